@@ -1,0 +1,16 @@
+// Each subcommand registers itself on the CLI11 app and returns the exit code through `result`.
+#pragma once
+
+#include <CLI/CLI.hpp>
+#include <functional>
+#include <string>
+
+namespace loadtrim::app {
+
+// Where the project's config/ and samples/ are (the source tree unless overridden by LOADTRIM_HOME).
+std::string data_dir();
+
+using Runner = std::function<int()>;
+void register_demo(CLI::App& app, Runner& run);
+
+}  // namespace loadtrim::app

@@ -1,0 +1,99 @@
+#include "config/epa_csv.hpp"
+
+#include <charconv>
+#include <cmath>
+#include <fstream>
+#include <map>
+
+#include "config/input_error.hpp"
+
+namespace loadtrim::config {
+
+namespace {
+std::vector<std::string> split_csv(const std::string& line) {
+  std::vector<std::string> out;
+  std::string cur;
+  bool quoted = false;
+  for (char c : line) {
+    if (c == '"') quoted = !quoted;
+    else if (c == ',' && !quoted) {
+      out.push_back(cur);
+      cur.clear();
+    } else if (c != '\r') cur += c;
+  }
+  out.push_back(cur);
+  return out;
+}
+
+bool to_double(const std::string& s, double& out) {
+  const char* b = s.data();
+  const char* e = s.data() + s.size();
+  while (b < e && *b == ' ') ++b;
+  auto r = std::from_chars(b, e, out);
+  return r.ec == std::errc() && r.ptr == e && std::isfinite(out);
+}
+}  // namespace
+
+EpaFile read_epa_csv(const std::string& path) {
+  std::ifstream in(path);
+  if (!in) throw InputError(path, {{core::Problem::Severity::error, "", "cannot open the file"}});
+  std::string line;
+  if (!std::getline(in, line)) throw InputError(path, {{core::Problem::Severity::error, "", "the file is empty"}});
+  const auto header = split_csv(line);
+  std::map<std::string, std::size_t> col;
+  for (std::size_t i = 0; i < header.size(); ++i) col[header[i]] = i;
+  const std::vector<std::string> required = {"model_year", "test_vehicle_id", "test_veh_config_num", "drive_system_code",
+                                             "etw_kg", "target_f0_N", "target_f1_N_per_kmh", "target_f2_N_per_kmh2",
+                                             "set_f0_N", "set_f1_N_per_kmh", "set_f2_N_per_kmh2"};
+  core::Problems missing;
+  for (const auto& r : required)
+    if (!col.count(r)) missing.push_back({core::Problem::Severity::error, "header", "missing column \"" + r + "\""});
+  if (!missing.empty()) throw InputError(path, missing);
+
+  EpaFile f;
+  int lineno = 1;
+  while (std::getline(in, line)) {
+    ++lineno;
+    if (line.empty() || line == "\r") continue;
+    const auto cells = split_csv(line);
+    if (cells.size() < header.size()) {
+      f.skipped.push_back("line " + std::to_string(lineno) + ": " + std::to_string(cells.size()) + " cells, header has " +
+                          std::to_string(header.size()));
+      continue;
+    }
+    EpaRow row;
+    row.line = lineno;
+    row.id = cells[col["model_year"]] + "/" + cells[col["test_vehicle_id"]] + "/" + cells[col["test_veh_config_num"]];
+    row.drive_code = cells[col["drive_system_code"]];
+    double v[7];
+    const char* names[7] = {"etw_kg", "target_f0_N", "target_f1_N_per_kmh", "target_f2_N_per_kmh2",
+                            "set_f0_N", "set_f1_N_per_kmh", "set_f2_N_per_kmh2"};
+    bool ok = true;
+    for (int k = 0; k < 7 && ok; ++k)
+      if (!to_double(cells[col[names[k]]], v[k])) {
+        f.skipped.push_back("line " + std::to_string(lineno) + ": " + names[k] + " is not a number");
+        ok = false;
+      }
+    if (!ok) continue;
+    row.etw_kg = v[0];
+    row.target = {v[1], v[2], v[3]};
+    row.set = {v[4], v[5], v[6]};
+    f.rows.push_back(row);
+  }
+  return f;
+}
+
+core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profile, double max_speed_kmh) {
+  core::VehicleTarget t;
+  t.id = row.id;
+  t.description = "US EPA Test Car List row at line " + std::to_string(row.line);
+  t.test_mass_kg = row.etw_kg;
+  t.mass_in_running_order_kg = row.etw_kg - 100.0;
+  t.drive = row.drive_code == "F" ? core::Drive::front : row.drive_code == "R" ? core::Drive::rear : core::Drive::all;
+  t.max_speed_kmh = max_speed_kmh;
+  t.target = row.target;
+  t.profile = profile;
+  return t;
+}
+
+}  // namespace loadtrim::config

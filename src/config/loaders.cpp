@@ -1,0 +1,166 @@
+#include "config/loaders.hpp"
+
+#include <filesystem>
+
+#include "config/input_error.hpp"
+#include "config/toml_reader.hpp"
+#include "core/units.hpp"
+
+namespace loadtrim::config {
+
+namespace {
+
+core::Profile read_profile(TomlReader& r) {
+  core::Profile p;
+  p.name = r.string("name");
+  p.standard = r.string_or("standard", "");
+  p.method = r.choice("method.kind", {"iterative", "fixed-run"}) == "fixed-run" ? core::SettingMethod::fixed_run
+                                                                                : core::SettingMethod::iterative;
+  // Speeds in km/h, or in mph for US-style profiles (converted exactly, NIST SP 811).
+  const bool mph = r.has("bands.reference_speeds_mph") || r.has("bands.half_width_mph");
+  if (mph && (r.has("bands.reference_speeds_kmh") || r.has("bands.half_width_kmh")))
+    r.error("bands", "give speeds in km/h or in mph, not both");
+  if (mph) {
+    for (double v : r.numbers("bands.reference_speeds_mph", 1.0, 160.0, "mph"))
+      p.reference_speeds_kmh.push_back(core::units::mph_to_kmh(v));
+    p.band_half_width_kmh = core::units::mph_to_kmh(r.number("bands.half_width_mph", 0.5, 7.0, "mph"));
+  } else {
+    p.reference_speeds_kmh = r.numbers("bands.reference_speeds_kmh", 1.0, 250.0, "km/h");
+    p.band_half_width_kmh = r.number("bands.half_width_kmh", 1.0, 10.0, "km/h");
+  }
+  p.tolerance_n = r.number("acceptance.tolerance_n", 0.1, 1000.0, "N");
+  p.consecutive_passes = r.integer_or("acceptance.consecutive_passes", 2, 1, 10);
+  p.estimator_disagreement_n = r.number_or("acceptance.estimator_disagreement_n", 5.0, 0.0, 1000.0, "N");
+  p.fixed_runs = r.integer_or("method.fixed_runs", 4, 2, 10);
+  p.fixed_run_verification_runs = r.integer_or("method.fixed_run_verification_runs", 1, 0, 5);
+  p.run_up_margin_kmh = r.number("run.run_up_margin_kmh", 0.0, 30.0, "km/h");
+  p.mass.rotating_fraction = r.number_or("mass.rotating_fraction", 0.03, 0.0, 0.2, "");
+  p.mass.rotating_offset_kg = r.number_or("mass.rotating_offset_kg", 25.0, 0.0, 500.0, "kg");
+  p.mass.single_axle_inertia_share = r.number_or("mass.single_axle_inertia_share", 0.5, 0.0, 1.0, "");
+  p.initial.f0_factor_single_axle = r.number_or("initial_setting.f0_factor_single_axle", 0.5, -1.0, 2.0, "");
+  p.initial.f0_factor_two_axle = r.number_or("initial_setting.f0_factor_two_axle", 0.1, -1.0, 2.0, "");
+  p.initial.f1_factor = r.number_or("initial_setting.f1_factor", 0.2, -1.0, 2.0, "");
+  p.initial.f2_factor = r.number_or("initial_setting.f2_factor", 1.0, -1.0, 2.0, "");
+  p.rounding.f0_decimals = r.integer_or("rounding.f0_decimals", 1, 0, 9);
+  p.rounding.f1_decimals = r.integer_or("rounding.f1_decimals", 3, 0, 9);
+  p.rounding.f2_decimals = r.integer_or("rounding.f2_decimals", 5, 0, 9);
+  p.max_coastdowns = r.integer_or("limits.max_coastdowns", 10, 2, 100);
+  p.max_unusable_runs = r.integer_or("limits.max_unusable_runs", 3, 1, 100);
+  p.max_gap_after_warmup_s = r.number_or("timing.max_gap_after_warmup_s", 120.0, 0.0, 3600.0, "s");
+  // Cross-field rules (ordering, run-up margin against Δv, fixed-run counts) live in the core validator.
+  core::Problems ps = core::validate(p);
+  if (mph)
+    for (auto& q : ps)
+      if (q.key.rfind("bands.reference_speeds_kmh", 0) == 0) q.key.replace(0, 26, "bands.reference_speeds_mph");
+  r.add(ps);
+  return p;
+}
+
+core::RoadLoad read_coefficients(TomlReader& r, const std::string& table, const std::string& us_table, bool& present) {
+  const bool metric = r.has(table), us = r.has(us_table);
+  present = metric || us;
+  if (metric && us) {
+    r.error(table, "give [" + table + "] (N, N/(km/h), N/(km/h)²) or [" + us_table + "] (lbf, lbf/mph, lbf/mph²), not both");
+    return {};
+  }
+  if (metric)
+    return {r.number(table + ".f0_n", -5000.0, 5000.0, "N"), r.number(table + ".f1_n_per_kmh", -50.0, 50.0, "N/(km/h)"),
+            r.number(table + ".f2_n_per_kmh2", -1.0, 1.0, "N/(km/h)²")};
+  if (us)
+    return core::to_metric({r.number(us_table + ".a_lbf", -1200.0, 1200.0, "lbf"),
+                            r.number(us_table + ".b_lbf_per_mph", -20.0, 20.0, "lbf/mph"),
+                            r.number(us_table + ".c_lbf_per_mph2", -0.6, 0.6, "lbf/mph²")});
+  return {};
+}
+
+core::VehicleTarget read_target(TomlReader& r) {
+  core::VehicleTarget v;
+  v.id = r.string("vehicle.id");
+  v.description = r.string_or("vehicle.description", "");
+  if (r.has("vehicle.test_mass_kg") && r.has("vehicle.test_mass_lb")) r.error("vehicle", "give test_mass_kg or test_mass_lb, not both");
+  if (r.has("vehicle.test_mass_lb"))
+    v.test_mass_kg = core::units::lb_to_kg(r.number("vehicle.test_mass_lb", 600.0, 45000.0, "lb"));
+  else
+    v.test_mass_kg = r.number("vehicle.test_mass_kg", 300.0, 20000.0, "kg");
+  v.rotating_mass_kg = r.maybe_number("vehicle.rotating_mass_kg", 0.0, 4000.0, "kg");
+  v.mass_in_running_order_kg = r.maybe_number("vehicle.mass_in_running_order_kg", 200.0, 20000.0, "kg");
+  core::parse(r.choice("vehicle.drive", {"front", "rear", "all"}), v.drive);
+  v.max_speed_kmh = r.number("vehicle.max_speed_kmh", 30.0, 400.0, "km/h");
+  v.profile = r.string("profile");
+  bool present = false;
+  v.target = read_coefficients(r, "target", "target_us", present);
+  if (!present) r.error("target", "is missing: give [target] with f0_n, f1_n_per_kmh, f2_n_per_kmh2 or [target_us] with a_lbf, b_lbf_per_mph, c_lbf_per_mph2");
+  bool initial = false;
+  const core::RoadLoad init = read_coefficients(r, "initial_set", "initial_set_us", initial);
+  if (initial) v.initial_set = init;
+  r.add(core::plausibility(v));
+  return v;
+}
+
+physics::Truth read_truth(TomlReader& r) {
+  physics::Truth t;
+  auto& v = t.vehicle;
+  v.name = r.string_or("vehicle.name", "unnamed");
+  v.test_mass_kg = r.number("vehicle.test_mass_kg", 300.0, 20000.0, "kg");
+  v.rotating_mass_on_rollers_kg = r.number_or("vehicle.rotating_mass_on_rollers_kg", v.rotating_mass_on_rollers_kg, 0.0, 2000.0, "kg");
+  v.tyre_radius_m = r.number_or("vehicle.tyre_radius_m", v.tyre_radius_m, 0.15, 1.0, "m");
+  v.tyre_loss_flat_n = r.number_or("vehicle.tyre_loss_flat_n", v.tyre_loss_flat_n, 0.0, 2000.0, "N");
+  v.tyre_loss_flat_n_per_kmh = r.number_or("vehicle.tyre_loss_flat_n_per_kmh", v.tyre_loss_flat_n_per_kmh, -5.0, 5.0, "N/(km/h)");
+  v.drivetrain_loss_n = r.number_or("vehicle.drivetrain_loss_n", v.drivetrain_loss_n, 0.0, 2000.0, "N");
+  v.drivetrain_loss_n_per_kmh2 = r.number_or("vehicle.drivetrain_loss_n_per_kmh2", v.drivetrain_loss_n_per_kmh2, 0.0, 0.2, "N/(km/h)²");
+  v.drivetrain_cold_excess = r.number_or("vehicle.drivetrain_cold_excess", v.drivetrain_cold_excess, 0.0, 2.0, "");
+  v.warm_up_time_constant_s = r.number_or("vehicle.warm_up_time_constant_s", v.warm_up_time_constant_s, 1.0, 36000.0, "s");
+  v.cool_down_time_constant_s = r.number_or("vehicle.cool_down_time_constant_s", v.cool_down_time_constant_s, 1.0, 360000.0, "s");
+  v.initial_warmth = r.number_or("vehicle.initial_warmth", v.initial_warmth, 0.0, 1.0, "");
+  v.brake_drag_n = r.number_or("vehicle.brake_drag_n", v.brake_drag_n, 0.0, 500.0, "N");
+  v.hold_bias_n = r.number_or("vehicle.hold_bias_n", v.hold_bias_n, -100.0, 100.0, "N");
+  auto& d = t.dyno;
+  d.roller_diameter_m = r.number_or("dyno.roller_diameter_m", d.roller_diameter_m, 0.2, 3.0, "m");
+  d.base_inertia_kg = r.number_or("dyno.base_inertia_kg", d.base_inertia_kg, 50.0, 10000.0, "kg");
+  d.inertia_simulation_error = r.number_or("dyno.inertia_simulation_error", d.inertia_simulation_error, -0.2, 0.2, "");
+  d.parasitic_f0_n = r.number_or("dyno.parasitic_f0_n", d.parasitic_f0_n, 0.0, 1000.0, "N");
+  d.parasitic_f1_n_per_kmh = r.number_or("dyno.parasitic_f1_n_per_kmh", d.parasitic_f1_n_per_kmh, -10.0, 10.0, "N/(km/h)");
+  d.parasitic_f2_n_per_kmh2 = r.number_or("dyno.parasitic_f2_n_per_kmh2", d.parasitic_f2_n_per_kmh2, 0.0, 0.1, "N/(km/h)²");
+  d.parasitic_compensation_error = r.number_or("dyno.parasitic_compensation_error", d.parasitic_compensation_error, -1.0, 1.0, "");
+  d.speed_noise_kmh = r.number_or("dyno.speed_noise_kmh", d.speed_noise_kmh, 0.0, 5.0, "km/h");
+  d.force_noise_n = r.number_or("dyno.force_noise_n", d.force_noise_n, 0.0, 500.0, "N");
+  d.motoring_accel_mps2 = r.number_or("dyno.motoring_accel_mps2", d.motoring_accel_mps2, 0.1, 10.0, "m/s²");
+  d.stop_decel_mps2 = r.number_or("dyno.stop_decel_mps2", d.stop_decel_mps2, 0.1, 10.0, "m/s²");
+  t.noise_seed = static_cast<std::uint64_t>(r.integer_or("noise_seed", 1, 0, 2147483647));
+  return t;
+}
+
+template <class T, class F>
+T load_with(TomlReader r, core::Problems* warnings, F read) {
+  T value = read(r);
+  core::Problems w = r.finish();  // throws on any error
+  if (warnings) warnings->insert(warnings->end(), w.begin(), w.end());
+  return value;
+}
+
+}  // namespace
+
+core::Profile load_profile(const std::string& path, core::Problems* w) {
+  return load_with<core::Profile>(TomlReader::from_file(path), w, read_profile);
+}
+core::VehicleTarget load_target(const std::string& path, core::Problems* w) {
+  return load_with<core::VehicleTarget>(TomlReader::from_file(path), w, read_target);
+}
+physics::Truth load_truth(const std::string& path, core::Problems* w) {
+  return load_with<physics::Truth>(TomlReader::from_file(path), w, read_truth);
+}
+core::Profile parse_profile(const std::string& text, const std::string& name, core::Problems* w) {
+  return load_with<core::Profile>(TomlReader::from_text(text, name), w, read_profile);
+}
+core::VehicleTarget parse_target(const std::string& text, const std::string& name, core::Problems* w) {
+  return load_with<core::VehicleTarget>(TomlReader::from_text(text, name), w, read_target);
+}
+physics::Truth parse_truth(const std::string& text, const std::string& name, core::Problems* w) {
+  return load_with<physics::Truth>(TomlReader::from_text(text, name), w, read_truth);
+}
+
+std::string profile_path(const std::string& profiles_dir, const std::string& name) {
+  return (std::filesystem::path(profiles_dir) / (name + ".toml")).string();
+}
+
+}  // namespace loadtrim::config

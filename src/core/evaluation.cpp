@@ -1,0 +1,44 @@
+#include "core/evaluation.hpp"
+
+#include <cmath>
+
+namespace loadtrim::core {
+
+CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, const RoadLoad& target,
+                                       double force_mass_kg, const EvaluationOptions& options) {
+  CoastdownEvaluation e;
+  e.bands = analyse_bands(trace, profile.reference_speeds_kmh, profile.band_half_width_kmh, force_mass_kg, options.bands);
+  std::vector<double> speeds, forces;
+  for (const auto& b : e.bands) {
+    if (b.ok()) {
+      speeds.push_back(b.reference_speed_kmh);
+      forces.push_back(b.force_n);
+    } else {
+      e.unusable_reason += (e.unusable_reason.empty() ? "" : "; ") + num(b.reference_speed_kmh) + " km/h " +
+                           to_string(b.status) + ": " + b.reason;
+    }
+  }
+  // The standard regresses every reference speed: a run with a missing band is repeated, not patched.
+  if (!e.unusable_reason.empty()) return e;
+  e.fit = fit_road_load(speeds, forces);
+  if (!e.fit.ok) {
+    e.unusable_reason = "regression failed: " + e.fit.message;
+    return e;
+  }
+  e.usable = true;
+  e.check = check_tolerance(target, e.fit.coefficients, profile.reference_speeds_kmh, profile.tolerance_n);
+  if (options.whole_trace) {
+    e.whole_trace = fit_whole_trace(trace, force_mass_kg, profile.bottom_speed_kmh() - profile.band_half_width_kmh,
+                                    profile.top_speed_kmh() + profile.band_half_width_kmh, e.fit.coefficients,
+                                    options.whole_trace_options);
+    if (e.whole_trace.ok) {
+      for (double v : profile.reference_speeds_kmh)
+        e.estimator_disagreement_n = std::max(
+            e.estimator_disagreement_n, std::abs(e.fit.coefficients.force_n(v) - e.whole_trace.coefficients.force_n(v)));
+      e.estimators_disagree = e.estimator_disagreement_n > profile.estimator_disagreement_n;
+    }
+  }
+  return e;
+}
+
+}  // namespace loadtrim::core

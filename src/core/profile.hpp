@@ -1,0 +1,76 @@
+// A standard profile: the rules one coast-down setting follows (reference speeds, band, tolerance, method,
+// mass and inertia rules, rounding). Profiles are data files in config/profiles; this header holds the
+// values and their validation. Pure: no I/O.
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include "core/problem.hpp"
+#include "core/road_load.hpp"
+
+namespace loadtrim::core {
+
+enum class SettingMethod { iterative, fixed_run };
+enum class AxleLayout { single_axle, two_axle };  // the dyno: one driven axle on rollers, or both
+
+const char* to_string(SettingMethod m);
+const char* to_string(AxleLayout a);
+bool parse(const std::string& s, SettingMethod& out);
+bool parse(const std::string& s, AxleLayout& out);
+
+// m_r = fraction × (mass in running order + offset) (EU SA4 §2.5.1: 3 % of (MRO + 25 kg)).
+// Forces use TM + m_r (§2.5.2). Dyno inertia: TM on a two-axle dyno, TM + share × m_r otherwise (§2.5.3).
+struct MassRule {
+  double rotating_fraction = 0.03;
+  double rotating_offset_kg = 25.0;
+  double single_axle_inertia_share = 0.5;
+};
+
+// Initial dyno setting when the lab has nothing better (domain.md §3, from memory, low confidence):
+// Ad = 0.5·At (0.1·At on a two-axle dyno), Bd = 0.2·Bt, Cd = Ct.
+struct InitialSettingRule {
+  double f0_factor_single_axle = 0.5;
+  double f0_factor_two_axle = 0.1;
+  double f1_factor = 0.2;
+  double f2_factor = 1.0;
+};
+
+struct Profile {
+  std::string name;
+  std::string standard;  // free text, e.g. "UN GTR 15 Annex 4 §8.1.3"
+  std::vector<double> reference_speeds_kmh;
+  double band_half_width_kmh = 5.0;      // Δv: the band runs from v_j + Δv down to v_j − Δv
+  double tolerance_n = 10.0;             // every reference speed within ± this of the target
+  int consecutive_passes = 2;            // iterative method: passes in a row for acceptance
+  double run_up_margin_kmh = 12.0;       // run up this far above the top reference speed before releasing
+  SettingMethod method = SettingMethod::iterative;
+  int fixed_runs = 4;                    // fixed-run method: coast-downs in total, run 1 stabilises
+  int fixed_run_verification_runs = 1;   // coast-downs at the final setting to confirm it (0 = none)
+  MassRule mass;
+  InitialSettingRule initial;
+  Rounding rounding;
+  int max_coastdowns = 10;               // stop reason "iteration limit" beyond this
+  int max_unusable_runs = 3;             // stop after this many unusable coast-downs
+  double max_gap_after_warmup_s = 120.0; // first coast-down starts within this of the warm-up end
+  double estimator_disagreement_n = 5.0; // flag when band and whole-trace forces differ by more
+
+  double top_speed_kmh() const;
+  double bottom_speed_kmh() const;
+  // Release into the coast from here: top reference speed + run-up margin (domain.md §3: 10–15 km/h on the road).
+  double start_speed_kmh() const { return top_speed_kmh() + run_up_margin_kmh; }
+  // Record until the speed is below this: lowest band edge less a margin for the crossing fit.
+  double end_speed_kmh() const { return bottom_speed_kmh() - band_half_width_kmh - 3.0; }
+};
+
+// Every problem at once, keys as they appear in the profile file.
+Problems validate(const Profile& p);
+
+// m_r from the mass in running order.
+double rotating_mass_kg(double mass_in_running_order_kg, const MassRule& rule);
+// TM + m_r: the mass used to turn deceleration into force, on road and dyno alike.
+inline double force_mass_kg(double test_mass_kg, double rotating_mass_kg) { return test_mass_kg + rotating_mass_kg; }
+// The inertia the dyno is told to simulate.
+double dyno_inertia_kg(double test_mass_kg, double rotating_mass_kg, AxleLayout layout, const MassRule& rule);
+
+}  // namespace loadtrim::core

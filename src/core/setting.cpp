@@ -1,0 +1,105 @@
+#include "core/setting.hpp"
+
+#include <cmath>
+
+namespace loadtrim::core {
+
+ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated, std::span<const double> speeds_kmh,
+                               double tolerance_n) {
+  ToleranceCheck out;
+  out.pass = !speeds_kmh.empty();
+  for (double v : speeds_kmh) {
+    SpeedDeviation d;
+    d.speed_kmh = v;
+    d.target_n = target.force_n(v);
+    d.measured_n = simulated.force_n(v);
+    d.deviation_n = d.measured_n - d.target_n;
+    d.pass = std::abs(d.deviation_n) <= tolerance_n;
+    out.pass = out.pass && d.pass;
+    out.worst_abs_deviation_n = std::max(out.worst_abs_deviation_n, std::abs(d.deviation_n));
+    out.rows.push_back(d);
+  }
+  return out;
+}
+
+RoadLoad adjusted_setting(const RoadLoad& target, const RoadLoad& set, const RoadLoad& simulated) {
+  return set + target - simulated;
+}
+
+RoadLoad standard_initial_setting(const RoadLoad& target, AxleLayout layout, const InitialSettingRule& rule) {
+  const double k0 = layout == AxleLayout::two_axle ? rule.f0_factor_two_axle : rule.f0_factor_single_axle;
+  return {k0 * target.f0_n, rule.f1_factor * target.f1_n_per_kmh, rule.f2_factor * target.f2_n_per_kmh2};
+}
+
+RoadLoad fixed_run_final_setting(const RoadLoad& target, std::span<const RunCoefficients> runs) {
+  RoadLoad loss_sum;
+  for (const auto& r : runs) loss_sum = loss_sum + (r.simulated - r.set);
+  return target - loss_sum.scaled(1.0 / static_cast<double>(runs.size()));
+}
+
+const char* to_string(Decision::Kind k) {
+  switch (k) {
+    case Decision::Kind::run_again: return "run-again";
+    case Decision::Kind::accepted: return "accepted";
+    case Decision::Kind::rejected: return "rejected";
+  }
+  return "unknown";
+}
+
+SettingMethodState::SettingMethodState(const Profile& profile, const RoadLoad& target)
+    : profile_(profile), target_(target) {}
+
+Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& simulated, bool within_tolerance) {
+  ++runs_;
+  Decision d;
+  if (profile_.method == SettingMethod::iterative || verifying_) {
+    const int required = verifying_ ? profile_.fixed_run_verification_runs : profile_.consecutive_passes;
+    if (within_tolerance) {
+      ++passes_;
+      if (passes_ >= required) {
+        d.kind = Decision::Kind::accepted;
+        d.next_set = set;
+        d.reason = std::to_string(passes_) + (verifying_ ? " verification" : " consecutive") +
+                   " coast-down(s) within tolerance";
+      } else {
+        d.next_set = set;
+        d.reason = "within tolerance (" + std::to_string(passes_) + " of " + std::to_string(required) +
+                   "), same setting again";
+      }
+      return d;
+    }
+    passes_ = 0;
+    if (verifying_) {
+      d.kind = Decision::Kind::rejected;
+      d.next_set = set;
+      d.reason = "fixed-run final setting outside tolerance on its verification coast-down";
+      return d;
+    }
+    d.next_set = adjusted_setting(target_, set, simulated);
+    d.reason = "outside tolerance: adjusted A*d = Ad + At − As (B, C likewise)";
+    return d;
+  }
+  // Fixed-run method: run 1 stabilises and sets run 2; runs 2..n at that setting; final from their mean.
+  if (runs_ == 1) {
+    d.next_set = adjusted_setting(target_, set, simulated);
+    d.reason = "fixed-run: stabilisation run, its result sets run 2";
+    return d;
+  }
+  fixed_runs_.push_back({set, simulated});
+  if (runs_ < profile_.fixed_runs) {
+    d.next_set = set;
+    d.reason = "fixed-run: run " + std::to_string(runs_) + " of " + std::to_string(profile_.fixed_runs);
+    return d;
+  }
+  d.next_set = fixed_run_final_setting(target_, fixed_runs_);
+  if (profile_.fixed_run_verification_runs == 0) {
+    d.kind = Decision::Kind::accepted;
+    d.reason = "fixed-run: final setting A = At − mean(As − Ad) over runs 2.." + std::to_string(profile_.fixed_runs);
+    return d;
+  }
+  verifying_ = true;
+  d.reason = "fixed-run: final setting computed, verifying it";
+  return d;
+}
+
+}  // namespace loadtrim::core

@@ -1,0 +1,37 @@
+// A vehicle's targets as the tool receives them, and their plausibility checks. Pure: no I/O.
+#pragma once
+
+#include <optional>
+#include <string>
+
+#include "core/problem.hpp"
+#include "core/profile.hpp"
+#include "core/road_load.hpp"
+
+namespace loadtrim::core {
+
+enum class Drive { front, rear, all };  // the vehicle's driven wheels
+const char* to_string(Drive d);
+bool parse(const std::string& s, Drive& out);
+
+struct VehicleTarget {
+  std::string id;
+  std::string description;
+  double test_mass_kg = 0.0;
+  std::optional<double> rotating_mass_kg;          // m_r when the file gives it, else
+  std::optional<double> mass_in_running_order_kg;  // m_r from this by the profile's rule (EU SA4 §2.5.1)
+  Drive drive = Drive::front;
+  double max_speed_kmh = 0.0;
+  RoadLoad target;
+  std::string profile;  // name of the standard profile to follow
+  std::optional<RoadLoad> initial_set;
+};
+
+// m_r: as given, else from the mass in running order by the rule.
+double resolved_rotating_mass_kg(const VehicleTarget& v, const MassRule& rule);
+
+// Plausibility, every problem at once. F0 / (TM·g) outside 0.004–0.03 (common practice, no source) is a warning
+// naming the likely unit mistake; negative F2 is an error (domain.md §1: the aerodynamic term is positive).
+Problems plausibility(const VehicleTarget& v);
+
+}  // namespace loadtrim::core

@@ -1,0 +1,160 @@
+#include "physics/roller_model.hpp"
+
+#include <algorithm>
+#include <cmath>
+
+#include "core/units.hpp"
+
+namespace loadtrim::physics {
+
+using core::units::kKmhPerMps;
+
+double roller_curvature_factor(double tyre_radius_m, double roller_radius_m) {
+  return std::sqrt(1.0 + tyre_radius_m / roller_radius_m);
+}
+
+const char* to_string(Mode m) {
+  switch (m) {
+    case Mode::idle: return "idle";
+    case Mode::speed_hold: return "speed-hold";
+    case Mode::road_load: return "road-load";
+    case Mode::controlled_stop: return "controlled-stop";
+  }
+  return "unknown";
+}
+
+RollerModel::RollerModel(const Truth& truth)
+    : truth_(truth),
+      inertia_set_kg_(truth.dyno.base_inertia_kg),
+      warmth_(std::clamp(truth.vehicle.initial_warmth, 0.0, 1.0)),
+      curvature_(roller_curvature_factor(truth.vehicle.tyre_radius_m, 0.5 * truth.dyno.roller_diameter_m)),
+      rng_(truth.noise_seed) {}
+
+void RollerModel::hold_speed(double speed_kmh) {
+  hold_kmh_ = std::max(0.0, speed_kmh);
+  mode_ = Mode::speed_hold;
+}
+
+double RollerModel::vehicle_loss_n(double v) const {
+  const auto& t = truth_.vehicle;
+  if (v <= 0.0) return 0.0;
+  const double tyre = (t.tyre_loss_flat_n + t.tyre_loss_flat_n_per_kmh * v) * curvature_;
+  const double spin = (t.drivetrain_loss_n + t.drivetrain_loss_n_per_kmh2 * v * v) *
+                      (1.0 + t.drivetrain_cold_excess * (1.0 - warmth_));
+  return tyre + spin + t.brake_drag_n;
+}
+
+double RollerModel::parasitic_residual_n(double v) const {
+  const auto& d = truth_.dyno;
+  if (v <= 0.0) return 0.0;
+  return d.parasitic_compensation_error * (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
+}
+
+double RollerModel::coasting_mass_kg() const {
+  return inertia_set_kg_ * (1.0 + truth_.dyno.inertia_simulation_error) + truth_.vehicle.rotating_mass_on_rollers_kg;
+}
+
+double RollerModel::road_load_force_n(double v) const {
+  return set_.force_n(v) + vehicle_loss_n(v) + parasitic_residual_n(v);
+}
+
+double RollerModel::acceleration_mps2(double v_mps) const {
+  const double v = v_mps * kKmhPerMps;
+  if (mode_ == Mode::road_load) return -road_load_force_n(v) / coasting_mass_kg();
+  // Idle: motor off, the rollers freewheel on their own inertia against the vehicle's and their own losses.
+  const auto& d = truth_.dyno;
+  const double parasitic = d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v;
+  return -(vehicle_loss_n(v) + (v > 0 ? parasitic : 0.0)) / (d.base_inertia_kg + truth_.vehicle.rotating_mass_on_rollers_kg);
+}
+
+void RollerModel::advance(double dt_s, double max_step_s) {
+  if (!(dt_s > 0.0)) return;
+  const int steps = std::max(1, static_cast<int>(std::ceil(dt_s / max_step_s - 1e-9)));
+  const double h = dt_s / steps;
+  const auto& veh = truth_.vehicle;
+  for (int i = 0; i < steps; ++i) {
+    const double v0 = speed_mps_;
+    switch (mode_) {
+      case Mode::speed_hold: {
+        const double target = hold_kmh_ / kKmhPerMps;
+        const double dv = std::clamp(target - v0, -truth_.dyno.motoring_accel_mps2 * h, truth_.dyno.motoring_accel_mps2 * h);
+        speed_mps_ = v0 + dv;
+        break;
+      }
+      case Mode::controlled_stop:
+        speed_mps_ = std::max(0.0, v0 - truth_.dyno.stop_decel_mps2 * h);
+        if (speed_mps_ == 0.0) mode_ = Mode::idle;
+        break;
+      case Mode::road_load:
+      case Mode::idle: {
+        if (v0 <= 0.0) {
+          speed_mps_ = 0.0;
+          break;
+        }
+        const double k1 = acceleration_mps2(v0);
+        const double k2 = acceleration_mps2(v0 + 0.5 * h * k1);
+        const double k3 = acceleration_mps2(v0 + 0.5 * h * k2);
+        const double k4 = acceleration_mps2(v0 + h * k3);
+        speed_mps_ = std::max(0.0, v0 + h / 6.0 * (k1 + 2.0 * k2 + 2.0 * k3 + k4));
+        break;
+      }
+    }
+    accel_mps2_ = (speed_mps_ - v0) / h;
+    // Drivetrain warmth: first-order rise while turning, decay at rest (exact exponential per step).
+    if (speed_mps_ > 0.3)
+      warmth_ = 1.0 - (1.0 - warmth_) * std::exp(-h / veh.warm_up_time_constant_s);
+    else
+      warmth_ *= std::exp(-h / veh.cool_down_time_constant_s);
+    time_s_ += h;
+  }
+}
+
+double RollerModel::load_cell_n() const {
+  const double v = speed_kmh();
+  switch (mode_) {
+    case Mode::speed_hold:
+    case Mode::controlled_stop:
+      // The force the motor needs: the vehicle's and residual parasitic losses, plus what accelerates the
+      // physical rotating mass.
+      return vehicle_loss_n(v) + parasitic_residual_n(v) + (v > 0.0 ? truth_.vehicle.hold_bias_n : 0.0) +
+             (truth_.dyno.base_inertia_kg + truth_.vehicle.rotating_mass_on_rollers_kg) * accel_mps2_;
+    case Mode::road_load:
+      // The set load plus the electrically simulated part of the inertia.
+      return set_.force_n(v) - (coasting_mass_kg() - truth_.dyno.base_inertia_kg) * accel_mps2_;
+    case Mode::idle: return 0.0;
+  }
+  return 0.0;
+}
+
+Sample RollerModel::exact() const { return {time_s_, speed_kmh(), load_cell_n()}; }
+
+Sample RollerModel::sample() {
+  Sample s = exact();
+  s.speed_kmh += truth_.dyno.speed_noise_kmh * unit_normal_(rng_);
+  s.force_n += truth_.dyno.force_noise_n * unit_normal_(rng_);
+  return s;
+}
+
+Trace record_coastdown(RollerModel& model, double start_kmh, double end_kmh, double rate_hz, double settle_s) {
+  model.hold_speed(start_kmh);
+  const double dt = 1.0 / rate_hz;
+  // Run up: bounded by the time the ramp needs plus the settling time.
+  const double ramp_s = std::abs(start_kmh - model.speed_kmh()) / kKmhPerMps / model.truth().dyno.motoring_accel_mps2;
+  model.advance(ramp_s + settle_s, std::min(dt, 0.01));
+  model.release_road_load();
+  Trace tr;
+  const double max_duration_s = 3600.0;  // a coast that never ends is a modelling error; stop anyway
+  const double t0 = model.time_s();
+  for (;;) {
+    const Sample s = model.sample();
+    tr.time_s.push_back(s.time_s);
+    tr.speed_kmh.push_back(s.speed_kmh);
+    tr.force_n.push_back(s.force_n);
+    if (model.speed_kmh() < end_kmh || model.time_s() - t0 > max_duration_s) break;
+    model.advance(dt, std::min(dt, 0.01));
+  }
+  model.controlled_stop();
+  return tr;
+}
+
+}  // namespace loadtrim::physics

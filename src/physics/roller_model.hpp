@@ -1,0 +1,136 @@
+// The vehicle on the rollers, in neutral, with the dyno applying its set load. This is the physics both the
+// in-process demo and the simulated controller run; its parameters ("truth") are hidden from the tool.
+// Pure: no I/O, no clocks (time advances only through advance()), noise from a seeded generator.
+//
+// Model (SI inside; speeds in km/h at the interface):
+//   road-load simulation:  (I_sim·(1+ε_I) + m_rot)·dv/dt = −(F_set(v) + L(v, θ) + P_res(v))
+//   L(v, θ)   vehicle loss on the rollers = tyre loss × √(1 + r_tyre/R_roller) + drivetrain spin loss × (1 + k·(1−θ))
+//             + brake drag;  θ ∈ [0, 1] the drivetrain warmth, rising while the rollers turn, falling at rest
+//   P_res(v)  dyno parasitic loss left after the controller's compensation: ε_P × P(v)
+//   speed hold: the dyno drives the rollers to the set speed; the load cell reads L + P_res + bias + inertial force
+// The curvature factor form is from memory (domain.md §5); the rest is a plain lumped-mass model.
+#pragma once
+
+#include <cstdint>
+#include <random>
+#include <string>
+#include <vector>
+
+#include "core/road_load.hpp"
+
+namespace loadtrim::physics {
+
+struct VehicleTruth {
+  std::string name = "unnamed";
+  double test_mass_kg = 1500.0;
+  double rotating_mass_on_rollers_kg = 25.0;  // wheels, axle and drivetrain the rollers turn, as an equivalent mass
+  double tyre_radius_m = 0.32;
+  double tyre_loss_flat_n = 60.0;             // tyre rolling loss on a flat road, constant part
+  double tyre_loss_flat_n_per_kmh = 0.05;     // and its speed slope
+  double drivetrain_loss_n = 25.0;            // spin loss in neutral when warm, constant part
+  double drivetrain_loss_n_per_kmh2 = 0.002;  // and its quadratic part
+  double drivetrain_cold_excess = 0.25;       // fraction added to the spin loss when fully cold
+  double warm_up_time_constant_s = 600.0;
+  double cool_down_time_constant_s = 1800.0;
+  double initial_warmth = 0.0;                // 0 = cold soak, 1 = fully warm
+  double brake_drag_n = 5.0;
+  double hold_bias_n = 2.0;                   // speed hold reads this much more than the coasting loss
+};
+
+struct DynoTruth {
+  double roller_diameter_m = 1.2192;          // 48 in
+  double base_inertia_kg = 1200.0;            // mechanical inertia of rollers and motor, as equivalent mass
+  double inertia_simulation_error = 0.0;      // fraction: the simulated inertia is I_set·(1 + this)
+  double parasitic_f0_n = 20.0;               // the dyno's own parasitic loss curve
+  double parasitic_f1_n_per_kmh = 0.10;
+  double parasitic_f2_n_per_kmh2 = 0.0008;
+  double parasitic_compensation_error = 0.05; // fraction of the parasitic loss the compensation misses
+  double speed_noise_kmh = 0.05;              // encoder noise, standard deviation
+  double force_noise_n = 2.0;                 // load-cell noise, standard deviation
+  double motoring_accel_mps2 = 1.5;           // speed-hold ramp rate
+  double stop_decel_mps2 = 2.0;               // controlled-stop deceleration
+};
+
+struct Truth {
+  VehicleTruth vehicle;
+  DynoTruth dyno;
+  std::uint64_t noise_seed = 1;
+};
+
+// √(1 + r_tyre / R_roller), from memory (domain.md §5).
+double roller_curvature_factor(double tyre_radius_m, double roller_radius_m);
+
+enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop };
+const char* to_string(Mode m);
+
+struct Sample {
+  double time_s = 0.0;
+  double speed_kmh = 0.0;
+  double force_n = 0.0;
+};
+
+class RollerModel {
+ public:
+  explicit RollerModel(const Truth& truth);
+
+  // Setpoints, as the controller is told them.
+  void set_inertia_kg(double inertia_kg) { inertia_set_kg_ = inertia_kg; }
+  void set_coefficients(const core::RoadLoad& set) { set_ = set; }
+  void hold_speed(double speed_kmh);
+  void release_road_load() { mode_ = Mode::road_load; }
+  void controlled_stop() { mode_ = Mode::controlled_stop; }
+  void idle() { mode_ = Mode::idle; }
+
+  // Advance simulated time by dt_s with fixed RK4 steps no longer than max_step_s.
+  void advance(double dt_s, double max_step_s = 0.001);
+  // A reading now, with encoder and load-cell noise.
+  Sample sample();
+  // The same without noise (tests).
+  Sample exact() const;
+
+  double time_s() const { return time_s_; }
+  double speed_kmh() const { return speed_mps_ * 3.6; }
+  double warmth() const { return warmth_; }
+  void set_warmth(double w) { warmth_ = w; }
+  Mode mode() const { return mode_; }
+  double hold_target_kmh() const { return hold_kmh_; }
+  double inertia_set_kg() const { return inertia_set_kg_; }
+  const core::RoadLoad& coefficients() const { return set_; }
+  const Truth& truth() const { return truth_; }
+
+  // Truth curves at the current warmth (tests and the benchmark compare against them).
+  double vehicle_loss_n(double speed_kmh) const;
+  double parasitic_residual_n(double speed_kmh) const;
+  double coasting_mass_kg() const;  // I_sim·(1+ε) + m_rot
+  // Total retarding force in road-load simulation at a speed, N.
+  double road_load_force_n(double speed_kmh) const;
+
+ private:
+  double acceleration_mps2(double v_mps) const;  // in road_load or idle
+  double load_cell_n() const;
+  Truth truth_;
+  core::RoadLoad set_;
+  double inertia_set_kg_;
+  double time_s_ = 0.0;
+  double speed_mps_ = 0.0;
+  double accel_mps2_ = 0.0;  // of the last step, for the load cell's inertial term
+  double warmth_;
+  double hold_kmh_ = 0.0;
+  Mode mode_ = Mode::idle;
+  double curvature_;
+  std::mt19937_64 rng_;
+  std::normal_distribution<double> unit_normal_{0.0, 1.0};
+};
+
+// A sampled coast-down trace (time from the model's clock).
+struct Trace {
+  std::vector<double> time_s;
+  std::vector<double> speed_kmh;
+  std::vector<double> force_n;
+};
+
+// Run up to start_kmh in speed hold (settling for settle_s), release into road-load simulation and sample
+// at rate_hz until the speed is below end_kmh; the model is left in controlled stop, not advanced further.
+Trace record_coastdown(RollerModel& model, double start_kmh, double end_kmh, double rate_hz, double settle_s = 2.0);
+
+}  // namespace loadtrim::physics

@@ -1,0 +1,52 @@
+#include "physics/truth_generator.hpp"
+
+#include <algorithm>
+#include <cmath>
+
+namespace loadtrim::physics {
+
+Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayout layout, const DynoTruth& dyno,
+                   std::mt19937_64& rng, const TruthSpread& spread) {
+  std::normal_distribution<double> z(0.0, 1.0);
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  constexpr double kZ95 = 1.6448536269514722;  // standard normal 95th percentile
+  const double s20 = std::log(spread.loss_p95_20_n / spread.loss_median_20_n) / kZ95;
+  const double s130 = std::log(spread.loss_p95_130_n / spread.loss_median_130_n) / kZ95;
+  // The two speeds are strongly correlated in the data (a lossy car is lossy at every speed): ρ ≈ 0.8 assumed.
+  const double z1 = z(rng), z2 = 0.8 * z1 + 0.6 * z(rng);
+  const double l20 = spread.loss_median_20_n * std::exp(s20 * z1);
+  const double l130 = std::max(l20 * 1.02, spread.loss_median_130_n * std::exp(s130 * z2));
+
+  Truth t;
+  t.dyno = dyno;
+  t.dyno.inertia_simulation_error = spread.inertia_error_sd * z(rng);
+  t.dyno.parasitic_compensation_error = spread.compensation_error_sd * z(rng);
+  t.noise_seed = rng();
+  auto& v = t.vehicle;
+  v.test_mass_kg = test_mass_kg;
+  const double share = layout == core::AxleLayout::two_axle ? 1.0 : 0.5;
+  v.rotating_mass_on_rollers_kg = share * rotating_mass_kg * (0.85 + 0.3 * u(rng));
+  v.tyre_radius_m = 0.29 + 0.08 * u(rng);
+  v.drivetrain_cold_excess = 0.15 + 0.25 * u(rng);
+  v.warm_up_time_constant_s = 300.0 + 600.0 * u(rng);
+  v.cool_down_time_constant_s = 1200.0 + 2400.0 * u(rng);
+  v.initial_warmth = 0.0;
+  v.hold_bias_n = spread.hold_bias_sd_n * z(rng);
+  v.brake_drag_n = 8.0 * u(rng);
+
+  // Warm loss L(v) = L0 + L1·v + L2·v² through the two drawn points; split into tyre, spin and brake parts.
+  const double curvature = roller_curvature_factor(v.tyre_radius_m, 0.5 * dyno.roller_diameter_m);
+  const double l1 = 0.08 * u(rng);  // N/(km/h), from the tyre
+  const double l2 = (l130 - l20 - l1 * 110.0) / (130.0 * 130.0 - 20.0 * 20.0);
+  const double quad = std::max(0.0, l2);
+  const double l0 = l20 - l1 * 20.0 - quad * 400.0;
+  const double tyre_share = 0.55 + 0.2 * u(rng);
+  const double constant = std::max(10.0, l0 - v.brake_drag_n);
+  v.tyre_loss_flat_n = tyre_share * constant / curvature;
+  v.tyre_loss_flat_n_per_kmh = l1 / curvature;
+  v.drivetrain_loss_n = (1.0 - tyre_share) * constant;
+  v.drivetrain_loss_n_per_kmh2 = quad;
+  return t;
+}
+
+}  // namespace loadtrim::physics

@@ -1,0 +1,137 @@
+// Tolerance, adjustment and the setting methods against the standard's rules (UN GTR 15 Annex 4 §8.1.3–8.1.4).
+#include <gtest/gtest.h>
+
+#include "core/profile.hpp"
+#include "core/setting.hpp"
+
+using namespace loadtrim::core;
+
+namespace {
+Profile wltp(SettingMethod m) {
+  Profile p;
+  p.name = "test";
+  p.reference_speeds_kmh = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
+  p.method = m;
+  return p;
+}
+void expect_eq(const RoadLoad& a, const RoadLoad& b, double tol = 1e-12) {
+  EXPECT_NEAR(a.f0_n, b.f0_n, tol);
+  EXPECT_NEAR(a.f1_n_per_kmh, b.f1_n_per_kmh, tol);
+  EXPECT_NEAR(a.f2_n_per_kmh2, b.f2_n_per_kmh2, tol);
+}
+}  // namespace
+
+TEST(Setting, AdjustmentExample) {
+  // domain.md §6.3 [computed from GTR 15 §8.1.4]: target (100, 0.5, 0.03), set (50, 0.2, 0.028),
+  // simulated (110, 0.6, 0.029) → new set (40, 0.1, 0.029).
+  expect_eq(adjusted_setting({100, 0.5, 0.03}, {50, 0.2, 0.028}, {110, 0.6, 0.029}), {40, 0.1, 0.029});
+}
+
+TEST(Setting, ToleranceAtTheBoundary) {
+  // GTR 15 §8.1.3.4.2: within ±10 N at every reference speed. A constant offset of exactly 10 N passes,
+  // 10.001 N fails; the worst row is reported.
+  const std::vector<double> v = {20, 60, 130};
+  EXPECT_TRUE(check_tolerance({100, 0.5, 0.03}, {110, 0.5, 0.03}, v, 10.0).pass);
+  EXPECT_TRUE(check_tolerance({100, 0.5, 0.03}, {90, 0.5, 0.03}, v, 10.0).pass);
+  const auto c = check_tolerance({100, 0.5, 0.03}, {110.001, 0.5, 0.03}, v, 10.0);
+  EXPECT_FALSE(c.pass);
+  EXPECT_NEAR(c.worst_abs_deviation_n, 10.001, 1e-9);
+  // Only the top speed out: f2 off by 0.001 gives 16.9 N at 130 km/h, 0.4 N at 20 km/h.
+  const auto d = check_tolerance({100, 0.5, 0.03}, {100, 0.5, 0.031}, v, 10.0);
+  EXPECT_TRUE(d.rows[0].pass);
+  EXPECT_FALSE(d.rows[2].pass);
+  EXPECT_NEAR(d.rows[2].deviation_n, 16.9, 1e-9);
+}
+
+TEST(Setting, StandardInitialSetting) {
+  // domain.md §3 (from memory): Ad = 0.5·At (0.1·At two-axle), Bd = 0.2·Bt, Cd = Ct.
+  InitialSettingRule r;
+  expect_eq(standard_initial_setting({100, 0.5, 0.03}, AxleLayout::single_axle, r), {50, 0.1, 0.03});
+  expect_eq(standard_initial_setting({100, 0.5, 0.03}, AxleLayout::two_axle, r), {10, 0.1, 0.03});
+}
+
+TEST(Setting, MassRules) {
+  // EU SA4 §2.5.1: m_r = 3 % of (MRO + 25 kg): MRO 1400 kg → 42.75 kg (domain.md §6.2). §2.5.3: dyno inertia
+  // TM + 50 % m_r on a single-axle dyno, TM on a two-axle dyno.
+  MassRule r;
+  EXPECT_NEAR(rotating_mass_kg(1400.0, r), 42.75, 1e-12);
+  EXPECT_NEAR(force_mass_kg(1500.0, 42.75), 1542.75, 1e-12);
+  EXPECT_NEAR(dyno_inertia_kg(1500.0, 42.75, AxleLayout::single_axle, r), 1521.375, 1e-12);
+  EXPECT_NEAR(dyno_inertia_kg(1500.0, 42.75, AxleLayout::two_axle, r), 1500.0, 1e-12);
+}
+
+TEST(Setting, IterativeNeedsTwoConsecutivePasses) {
+  // GTR 15 §8.1.3.4.2: within tolerance for two consecutive coast-downs; a failure in between restarts the count.
+  const Profile p = wltp(SettingMethod::iterative);
+  const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028};
+  SettingMethodState m(p, target);
+  auto d = m.on_coastdown(set, {103, 0.5, 0.03}, true);
+  EXPECT_EQ(d.kind, Decision::Kind::run_again);
+  expect_eq(d.next_set, set);  // a pass keeps the setting
+  d = m.on_coastdown(set, {120, 0.5, 0.03}, false);
+  EXPECT_EQ(d.kind, Decision::Kind::run_again);
+  expect_eq(d.next_set, {30, 0.2, 0.028});  // adjusted: 50 + 100 − 120
+  d = m.on_coastdown(d.next_set, {101, 0.5, 0.03}, true);
+  EXPECT_EQ(d.kind, Decision::Kind::run_again);
+  d = m.on_coastdown(d.next_set, {99, 0.5, 0.03}, true);
+  EXPECT_EQ(d.kind, Decision::Kind::accepted);
+  expect_eq(d.next_set, {30, 0.2, 0.028});
+  EXPECT_EQ(m.runs(), 4);
+}
+
+TEST(Setting, FixedRunFinalSetting) {
+  // GTR 15 §8.1.3.4.1 (four coast-downs, run 1 stabilises) and the final form A = At − (1/3)·Σ(As − Ad) over
+  // runs 2–4 (domain.md §3, from memory). Hand computation: losses (As − Ad) of runs 2..4 are
+  // (60, 0.30, 0.0010), (63, 0.33, 0.0012), (57, 0.27, 0.0008) → mean (60, 0.30, 0.0010) →
+  // final (100 − 60, 0.5 − 0.30, 0.03 − 0.0010) = (40, 0.2, 0.029).
+  Profile p = wltp(SettingMethod::fixed_run);
+  p.fixed_run_verification_runs = 0;
+  const RoadLoad target{100, 0.5, 0.03};
+  SettingMethodState m(p, target);
+  auto d = m.on_coastdown({50, 0.1, 0.03}, {112, 0.42, 0.031}, false);
+  expect_eq(d.next_set, {38, 0.18, 0.029});  // run 2 set from run 1 by the §8.1.4 adjustment
+  const RoadLoad s = d.next_set;
+  d = m.on_coastdown(s, s + RoadLoad{60, 0.30, 0.0010}, false);
+  EXPECT_EQ(d.kind, Decision::Kind::run_again);
+  expect_eq(d.next_set, s);
+  d = m.on_coastdown(s, s + RoadLoad{63, 0.33, 0.0012}, true);
+  EXPECT_EQ(d.kind, Decision::Kind::run_again);
+  d = m.on_coastdown(s, s + RoadLoad{57, 0.27, 0.0008}, false);
+  EXPECT_EQ(d.kind, Decision::Kind::accepted);
+  expect_eq(d.next_set, {40, 0.2, 0.029}, 1e-9);
+}
+
+TEST(Setting, FixedRunWithVerification) {
+  Profile p = wltp(SettingMethod::fixed_run);
+  p.fixed_run_verification_runs = 1;
+  const RoadLoad target{100, 0.5, 0.03};
+  SettingMethodState m(p, target);
+  RoadLoad s = m.on_coastdown({50, 0.1, 0.03}, {110, 0.4, 0.031}, false).next_set;
+  for (int i = 0; i < 3; ++i) s = m.on_coastdown(s, s + RoadLoad{60, 0.3, 0.001}, false).next_set;
+  EXPECT_TRUE(m.verifying());
+  expect_eq(s, {40, 0.2, 0.029}, 1e-9);
+  EXPECT_EQ(m.on_coastdown(s, {100.5, 0.5, 0.03}, true).kind, Decision::Kind::accepted);
+  SettingMethodState m2(p, target);
+  s = m2.on_coastdown({50, 0.1, 0.03}, {110, 0.4, 0.031}, false).next_set;
+  for (int i = 0; i < 3; ++i) s = m2.on_coastdown(s, s + RoadLoad{60, 0.3, 0.001}, false).next_set;
+  EXPECT_EQ(m2.on_coastdown(s, {130, 0.5, 0.03}, false).kind, Decision::Kind::rejected);
+}
+
+TEST(Setting, ProfileValidationReportsEveryProblem) {
+  Profile p = wltp(SettingMethod::iterative);
+  p.name = "";
+  p.band_half_width_kmh = 20.0;
+  p.tolerance_n = -1.0;
+  p.reference_speeds_kmh = {30, 20};
+  const Problems ps = validate(p);
+  auto has = [&](const std::string& key) {
+    for (const auto& q : ps)
+      if (q.key.rfind(key, 0) == 0) return true;
+    return false;
+  };
+  EXPECT_TRUE(has("name"));
+  EXPECT_TRUE(has("bands.half_width_kmh"));
+  EXPECT_TRUE(has("acceptance.tolerance_n"));
+  EXPECT_TRUE(has("bands.reference_speeds_kmh"));
+  EXPECT_TRUE(validate(wltp(SettingMethod::iterative)).empty());
+}

@@ -1,0 +1,140 @@
+// Band-time extraction against the textbook closed-form coast-down (domain.md §6.4) and the standard's formula.
+#include <gtest/gtest.h>
+
+#include <cmath>
+
+#include "core/evaluation.hpp"
+#include "core/predict.hpp"
+#include "core/trace_analysis.hpp"
+#include "support/test_support.hpp"
+
+using namespace loadtrim;
+
+namespace {
+const std::vector<double> kSpeeds = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
+const core::RoadLoad kTarget{100, 0.5, 0.03};  // domain.md §6.2
+constexpr double kMass = 1542.75;               // TM 1500 + m_r 42.75 (domain.md §6.2)
+}  // namespace
+
+TEST(TraceAnalysis, NoiseFreeBandTimesMatchTheClosedForm) {
+  // Exact samples at 100 Hz of the textbook solution; Δt_j must equal the closed-form band time, and F_mj the
+  // standard's formula (1/3.6)·m·2Δv/Δt_j (GTR 15 §8.1.3.2).
+  const auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 100.0);
+  const auto bands = core::analyse_bands({tr.time_s, tr.speed_kmh}, kSpeeds, 5.0, kMass);
+  ASSERT_EQ(bands.size(), kSpeeds.size());
+  for (const auto& b : bands) {
+    ASSERT_TRUE(b.ok()) << b.reason;
+    const double exact = *core::coastdown_time_s(kTarget, kMass, b.reference_speed_kmh + 5, b.reference_speed_kmh - 5);
+    EXPECT_NEAR(b.delta_t_s, exact, 2e-5) << b.reference_speed_kmh;
+    EXPECT_NEAR(b.force_n, (1 / 3.6) * kMass * 10.0 / exact, 1e-3);
+  }
+}
+
+TEST(TraceAnalysis, RecoversTheWltpTableThroughTheWholeChain) {
+  // Trace → bands → regression must land on the target within the mid-speed-versus-band-integral difference
+  // (under 0.2 %, from the closed form) at every reference speed: the §6.2 forces (122 … 672 N) within 1.5 N.
+  const auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 100.0);
+  core::Profile p;
+  p.name = "t";
+  p.reference_speeds_kmh = kSpeeds;
+  const auto e = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass);
+  ASSERT_TRUE(e.usable) << e.unusable_reason;
+  const double ft[] = {122, 142, 168, 200, 238, 282, 332, 388, 450, 518, 592, 672};
+  for (int j = 0; j < 12; ++j) EXPECT_NEAR(e.fit.coefficients.force_n(kSpeeds[j]), ft[j], 1.5) << kSpeeds[j];
+  EXPECT_TRUE(e.check.pass);
+  // The whole-trace ODE fit has no band-integral bias: it must recover the true curve itself.
+  ASSERT_TRUE(e.whole_trace.ok) << e.whole_trace.message;
+  for (double v : kSpeeds) EXPECT_NEAR(e.whole_trace.coefficients.force_n(v), kTarget.force_n(v), 0.05) << v;
+}
+
+namespace {
+// Expected 1-sigma error of a band force from white speed noise σ_v. Each crossing time comes from a quadratic
+// least-squares fit of v(t) over the N samples within ±w km/h of the level; for an evenly sampled window the
+// variance of the fitted value at the centre is (9/4)·σ_v²/N (the intercept variance of a quadratic on a
+// uniform design: S4/(S4 − S2²) = (1/5)/(1/5 − 1/9) = 9/4), so σ_t = (3/2)·σ_v/(|dv/dt|·√N), N = 2·(w/|dv/dt|)·rate.
+// Δt_j = t_low − t_up has σ_Δt = √(σ_t,up² + σ_t,low²), and σ_F = F·σ_Δt/Δt.
+double expected_force_sd(double v_ref, double sigma_v, double rate_hz, double w = core::BandOptions{}.fit_half_width_kmh) {
+  auto sigma_t = [&](double level) {
+    const double decel_kmh_s = 3.6 * kTarget.force_n(level) / kMass;
+    const double n = 2.0 * (w / decel_kmh_s) * rate_hz;
+    return 1.5 * sigma_v / (decel_kmh_s * std::sqrt(n));
+  };
+  const double dt = *core::coastdown_time_s(kTarget, kMass, v_ref + 5, v_ref - 5);
+  const double sdt = std::hypot(sigma_t(v_ref + 5), sigma_t(v_ref - 5));
+  return core::band_force_n(kMass, 5.0, dt) * sdt / dt;
+}
+}  // namespace
+
+TEST(TraceAnalysis, NoisyTracesStayWithinTheDerivedBound) {
+  // 0.05 km/h white speed noise at 10 Hz and 100 Hz (the GTR 15 §3.1 instrument floor is ±0.2 km/h at ≥ 10 Hz).
+  // Bound: 5σ from the derivation above (P(|z| > 5) ≈ 6e-7 per band) plus 0.01 N for the fit's own bias.
+  for (double rate : {10.0, 100.0}) {
+    for (std::uint64_t seed = 1; seed <= 5; ++seed) {
+      const auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, rate, 0.05, seed);
+      const auto bands = core::analyse_bands({tr.time_s, tr.speed_kmh}, kSpeeds, 5.0, kMass);
+      for (const auto& b : bands) {
+        ASSERT_TRUE(b.ok()) << b.reason;
+        const double exact_dt =
+            *core::coastdown_time_s(kTarget, kMass, b.reference_speed_kmh + 5, b.reference_speed_kmh - 5);
+        const double err = b.force_n - core::band_force_n(kMass, 5.0, exact_dt);
+        const double bound = 5.0 * expected_force_sd(b.reference_speed_kmh, 0.05, rate) + 0.01;
+        EXPECT_LT(std::abs(err), bound) << "rate " << rate << " seed " << seed << " v " << b.reference_speed_kmh;
+      }
+    }
+  }
+  // The bound is meaningful, not loose: even its 5σ stays inside the ±10 N tolerance (GTR 15 §8.1.3.4.2) at every
+  // speed at 10 Hz, and under 3 N at 100 Hz.
+  for (double v : kSpeeds) {
+    EXPECT_LT(5.0 * expected_force_sd(v, 0.05, 10.0), 10.0) << v;
+    EXPECT_LT(5.0 * expected_force_sd(v, 0.05, 100.0), 3.0) << v;
+  }
+}
+
+TEST(TraceAnalysis, FirstNoisyCrossingWouldBeWorse) {
+  // Why a local fit: taking the first sample below each level ("first noisy crossing") at 100 Hz has a spread
+  // several times larger than the fit. Measured here on the same traces, as a guard that the fit is in use.
+  double sse_fit = 0, sse_naive = 0;
+  int n = 0;
+  for (std::uint64_t seed = 1; seed <= 20; ++seed) {
+    const auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 100.0, 0.05, seed);
+    core::TraceAnalyser a({tr.time_s, tr.speed_kmh});
+    for (double level : {25.0, 55.0, 95.0, 125.0}) {
+      const double t_exact = *core::coastdown_time_s(kTarget, kMass, 142.0, level);
+      const auto c = a.crossing(level);
+      ASSERT_EQ(c.status, core::BandStatus::ok);
+      sse_fit += std::pow(c.time_s - t_exact, 2);
+      std::size_t i = 0;
+      while (tr.speed_kmh[i] >= level) ++i;
+      sse_naive += std::pow(tr.time_s[i] - t_exact, 2);
+      ++n;
+    }
+  }
+  EXPECT_LT(std::sqrt(sse_fit / n) * 3.0, std::sqrt(sse_naive / n));
+}
+
+TEST(TraceAnalysis, ReportsMissingAndUnusableBands) {
+  // Starts at 100 km/h: the 100–130 km/h bands are not reached. Stops at 32 km/h: 20 and 30 not finished.
+  const auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 100.0, 32.0, 100.0);
+  const auto bands = core::analyse_bands({tr.time_s, tr.speed_kmh}, kSpeeds, 5.0, kMass);
+  EXPECT_EQ(bands[0].status, core::BandStatus::not_finished);
+  EXPECT_EQ(bands[1].status, core::BandStatus::not_finished);
+  EXPECT_TRUE(bands[2].ok()) << bands[2].reason;
+  EXPECT_TRUE(bands[8].status == core::BandStatus::not_reached) << bands[8].reason;
+  EXPECT_EQ(bands[11].status, core::BandStatus::not_reached);
+  EXPECT_FALSE(bands[11].reason.empty());
+  // 1 Hz sampling leaves too few samples for the crossing fit at high speed.
+  const auto sparse = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 1.0);
+  const auto sb = core::analyse_bands({sparse.time_s, sparse.speed_kmh}, kSpeeds, 5.0, kMass);
+  EXPECT_EQ(sb[11].status, core::BandStatus::too_few_samples);
+  // Time running backwards is a bad trace, named as such.
+  auto bad = tr;
+  bad.time_s[10] = bad.time_s[9];
+  const auto bb = core::analyse_bands({bad.time_s, bad.speed_kmh}, kSpeeds, 5.0, kMass);
+  EXPECT_EQ(bb[2].status, core::BandStatus::bad_trace);
+  // A stall (speed held flat through a level) is not a deceleration.
+  auto stall = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 100.0);
+  for (std::size_t i = 0; i < stall.speed_kmh.size(); ++i)
+    if (stall.speed_kmh[i] < 66.0 && stall.speed_kmh[i] > 54.0) stall.speed_kmh[i] = 66.0;
+  const auto st = core::analyse_bands({stall.time_s, stall.speed_kmh}, kSpeeds, 5.0, kMass);
+  EXPECT_FALSE(st[4].ok());
+}
