@@ -22,6 +22,7 @@ int main(int argc, char** argv) {
   app.require_subcommand(1);
   Runner run;
   register_demo(app, run);
+  register_link_check(app, run);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {

@@ -1,0 +1,237 @@
+#include "line/line_controller.hpp"
+
+#include <charconv>
+
+#include "core/problem.hpp"
+
+namespace loadtrim::line {
+
+using controller::Mode;
+
+bool parse_mode(std::string_view w, Mode& out) {
+  if (w == kModeIdle) return out = Mode::idle, true;
+  if (w == kModeHold) return out = Mode::speed_hold, true;
+  if (w == kModeRoadLoad) return out = Mode::road_load, true;
+  if (w == kModeStop) return out = Mode::controlled_stop, true;
+  return false;
+}
+
+const char* wire_mode(Mode m) {
+  switch (m) {
+    case Mode::idle: return kModeIdle;
+    case Mode::speed_hold: return kModeHold;
+    case Mode::road_load: return kModeRoadLoad;
+    case Mode::controlled_stop: return kModeStop;
+  }
+  return kModeIdle;
+}
+
+bool parse_sample(const Message& m, controller::Sample& s) {
+  if (m.type != "SMP" || m.fields.size() != 6) return false;
+  const auto& f = m.fields;
+  std::uint64_t n = 0;
+  auto r = std::from_chars(f[0].data(), f[0].data() + f[0].size(), n);
+  if (r.ec != std::errc() || r.ptr != f[0].data() + f[0].size()) return false;
+  const auto t = parse_number(f[1]), v = parse_number(f[2]), force = parse_number(f[3]);
+  if (!t || !v || !force || !parse_mode(f[4], s.mode)) return false;
+  std::uint32_t flags = 0;
+  auto rf = std::from_chars(f[5].data(), f[5].data() + f[5].size(), flags, 16);
+  if (rf.ec != std::errc() || rf.ptr != f[5].data() + f[5].size()) return false;
+  s.index = n;
+  s.time_s = *t;
+  s.speed_kmh = *v;
+  s.force_n = *force;
+  s.flags = flags;
+  return true;
+}
+
+LineController::LineController(std::unique_ptr<Transport> transport, controller::Timeouts t, controller::Limits l)
+    : Controller(t, l), transport_(std::move(transport)) {}
+
+LineController::~LineController() { do_disconnect(); }
+
+void LineController::handle_line(std::string_view line, bool too_long) {
+  if (too_long) {
+    ++stats_.lines_rejected;
+    stats_.last_rejected = "line too long";
+    return;
+  }
+  const Decoded d = decode(line);
+  if (!d.ok()) {
+    if (d.error == DecodeError::empty) return;
+    ++stats_.lines_rejected;  // never acted on
+    stats_.last_rejected = std::string(to_string(d.error)) + ": " + std::string(line.substr(0, 80));
+    return;
+  }
+  if (have_peer_seq_ && d.message.seq != expected_peer_seq_) stats_.lines_lost += d.message.seq - expected_peer_seq_;
+  have_peer_seq_ = true;
+  expected_peer_seq_ = d.message.seq + 1;
+  const Message& m = d.message;
+  if (m.type == "SMP") {
+    controller::Sample s;
+    if (parse_sample(m, s)) samples_.push_back(s);
+    else {
+      ++stats_.lines_rejected;
+      stats_.last_rejected = "malformed SMP";
+    }
+  } else if (m.type == "EVT") {
+    std::string e;
+    for (const auto& f : m.fields) e += (e.empty() ? "" : " ") + f;
+    events_.push_back(e);
+  } else if (m.type == "OK" || m.type == "ERR") {
+    replies_.push_back(m);
+  } else {
+    ++stats_.lines_rejected;
+    stats_.last_rejected = "unexpected message type " + m.type;
+  }
+}
+
+Result LineController::pump(Deadline d) {
+  std::string bytes;
+  if (Result r = transport_->read_some(bytes, d); !r.ok()) return r;
+  splitter_.feed(bytes, [&](std::string_view line, bool too_long) { handle_line(line, too_long); });
+  return Result::success();
+}
+
+Result LineController::request(const std::string& verb, std::vector<std::string> fields, Message& reply, Deadline d) {
+  if (!transport_->is_open()) return Result::retry("link not open");
+  Message m;
+  m.seq = next_seq_++;
+  m.type = verb;
+  m.fields = std::move(fields);
+  if (Result r = transport_->write(encode(m), d); !r.ok()) return r;
+  for (;;) {
+    while (!replies_.empty()) {
+      Message rep = std::move(replies_.front());
+      replies_.pop_front();
+      if (rep.fields.empty() || rep.fields[0] != std::to_string(m.seq)) continue;  // a stale reply
+      if (rep.type == "ERR") {
+        int code = 0;
+        if (rep.fields.size() > 1) std::from_chars(rep.fields[1].data(), rep.fields[1].data() + rep.fields[1].size(), code);
+        std::string text;
+        for (std::size_t i = 2; i < rep.fields.size(); ++i) text += (text.empty() ? "" : " ") + rep.fields[i];
+        const std::string msg = "controller refused " + verb + " (error " + std::to_string(code) + "): " + text;
+        // Our request was damaged on the way: sending it again may work. Anything else is the controller's no.
+        return code == static_cast<int>(ErrorCode::bad_frame) ? Result::retry(msg, code) : Result::fail(msg, code);
+      }
+      reply = std::move(rep);
+      return Result::success();
+    }
+    if (controller::Clock::now() >= d) return Result::retry("no reply to " + verb + " before the deadline");
+    if (Result r = pump(d); !r.ok()) return r;
+  }
+}
+
+Result LineController::do_connect(Deadline d) {
+  transport_->close();
+  splitter_ = LineSplitter{};
+  replies_.clear();
+  samples_.clear();
+  have_peer_seq_ = false;
+  if (Result r = transport_->open(d); !r.ok()) return r;
+  Message rep;
+  if (Result r = request("HELLO", {kv("version", kProtocolVersion), "client=loadtrim"}, rep, d); !r.ok()) return r;
+  const auto v = number_field(rep, "version");
+  if (!v || static_cast<int>(*v) != kProtocolVersion)
+    return Result::fail("controller speaks protocol version " + field(rep, "version").value_or("?") + ", loadtrim speaks " +
+                        std::to_string(kProtocolVersion));
+  return Result::success();
+}
+
+void LineController::do_disconnect() {
+  if (transport_) transport_->close();
+}
+
+Result LineController::do_identify(controller::ControllerInfo& out, Deadline d) {
+  Message rep;
+  if (Result r = request("IDENT", {}, rep, d); !r.ok()) return r;
+  const auto dia = number_field(rep, "roller_diameter_m"), inertia = number_field(rep, "base_inertia_kg"),
+             vmax = number_field(rep, "max_speed_kmh"), fmax = number_field(rep, "max_force_n");
+  if (!dia || !inertia || !vmax || !fmax) return Result::fail("IDENT reply lacks a required field");
+  out.name = field(rep, "name").value_or("");
+  out.capabilities = field(rep, "caps").value_or("");
+  out.protocol_version = static_cast<int>(number_field(rep, "version").value_or(0));
+  out.roller_diameter_m = *dia;
+  out.base_inertia_kg = *inertia;
+  out.max_speed_kmh = *vmax;
+  out.max_force_n = *fmax;
+  return Result::success();
+}
+
+Result LineController::do_write_inertia(double kg, Deadline d) {
+  Message rep;
+  return request("INERTIA", {"SET", format_number(kg)}, rep, d);
+}
+
+Result LineController::do_read_inertia(double& kg, Deadline d) {
+  Message rep;
+  if (Result r = request("INERTIA", {"GET"}, rep, d); !r.ok()) return r;
+  const auto v = number_field(rep, "inertia_kg");
+  if (!v) return Result::fail("INERTIA reply lacks inertia_kg");
+  kg = *v;
+  return Result::success();
+}
+
+Result LineController::do_write_coefficients(const core::RoadLoad& c, Deadline d) {
+  Message rep;
+  return request("COEF", {"SET", format_number(c.f0_n), format_number(c.f1_n_per_kmh), format_number(c.f2_n_per_kmh2)}, rep, d);
+}
+
+Result LineController::do_read_coefficients(core::RoadLoad& c, Deadline d) {
+  Message rep;
+  if (Result r = request("COEF", {"GET"}, rep, d); !r.ok()) return r;
+  const auto a = number_field(rep, "f0_n"), b = number_field(rep, "f1_n_per_kmh"), k = number_field(rep, "f2_n_per_kmh2");
+  if (!a || !b || !k) return Result::fail("COEF reply lacks a coefficient");
+  c = {*a, *b, *k};
+  return Result::success();
+}
+
+Result LineController::do_command(Mode mode, double hold_kmh, Deadline d) {
+  Message rep;
+  std::vector<std::string> f = {wire_mode(mode)};
+  if (mode == Mode::speed_hold) f.push_back(format_number(hold_kmh));
+  return request("MODE", std::move(f), rep, d);
+}
+
+Result LineController::do_stream(double rate_hz, Deadline d) {
+  Message rep;
+  if (rate_hz == 0.0) samples_.clear();
+  return request("STREAM", {format_number(rate_hz)}, rep, d);
+}
+
+Result LineController::do_receive_samples(std::vector<controller::Sample>& out, Deadline d) {
+  while (samples_.empty() && controller::Clock::now() < d)
+    if (Result r = pump(d); !r.ok()) return r;
+  out.insert(out.end(), samples_.begin(), samples_.end());
+  samples_.clear();
+  return Result::success();
+}
+
+Result LineController::do_heartbeat(Deadline d) {
+  Message rep;
+  return request("BEAT", {}, rep, d);
+}
+
+Result LineController::do_status(controller::StatusReport& out, Deadline d) {
+  Message rep;
+  if (Result r = request("STATUS", {}, rep, d); !r.ok()) return r;
+  const auto mode = field(rep, "mode");
+  const auto v = number_field(rep, "speed_kmh"), t = number_field(rep, "time_s");
+  const auto flags = field(rep, "flags");
+  if (!mode || !parse_mode(*mode, out.mode) || !v || !t || !flags) return Result::fail("STATUS reply is incomplete");
+  out.speed_kmh = *v;
+  out.time_s = *t;
+  std::uint32_t fl = 0;
+  std::from_chars(flags->data(), flags->data() + flags->size(), fl, 16);
+  out.flags = fl;
+  const std::string fault = field(rep, "fault").value_or("none");
+  out.fault = fault == "none" ? "" : fault;
+  return Result::success();
+}
+
+Result LineController::do_clear_fault(Deadline d) {
+  Message rep;
+  return request("CLEAR", {}, rep, d);
+}
+
+}  // namespace loadtrim::line

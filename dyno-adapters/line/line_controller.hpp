@@ -1,0 +1,61 @@
+// The line-protocol adapter: one protocol engine over any Transport (TCP, serial, or an in-process loopback to
+// the simulated controller). Implements the Controller hooks; see docs/protocol.md for the messages.
+#pragma once
+
+#include <deque>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "controller/controller.hpp"
+#include "line/line_protocol.hpp"
+#include "line/transport.hpp"
+
+namespace loadtrim::line {
+
+class LineController : public controller::Controller {
+ public:
+  LineController(std::unique_ptr<Transport> transport, controller::Timeouts t, controller::Limits l);
+  ~LineController() override;
+  // Events the controller reported (EVT lines), oldest first; cleared by the caller.
+  std::vector<std::string>& events() { return events_; }
+  std::string describe() const { return transport_->describe(); }
+
+ protected:
+  Result do_connect(Deadline d) override;
+  void do_disconnect() override;
+  Result do_identify(controller::ControllerInfo& out, Deadline d) override;
+  Result do_write_inertia(double kg, Deadline d) override;
+  Result do_read_inertia(double& kg, Deadline d) override;
+  Result do_write_coefficients(const core::RoadLoad& c, Deadline d) override;
+  Result do_read_coefficients(core::RoadLoad& c, Deadline d) override;
+  Result do_command(controller::Mode mode, double hold_kmh, Deadline d) override;
+  Result do_stream(double rate_hz, Deadline d) override;
+  Result do_receive_samples(std::vector<controller::Sample>& out, Deadline d) override;
+  Result do_heartbeat(Deadline d) override;
+  Result do_status(controller::StatusReport& out, Deadline d) override;
+  Result do_clear_fault(Deadline d) override;
+
+ private:
+  // Sends a request and waits for its OK/ERR, handling every other line that arrives meanwhile.
+  Result request(const std::string& verb, std::vector<std::string> fields, Message& reply, Deadline d);
+  // Reads once from the transport and handles the complete lines; `reply_seq` set when a reply arrived.
+  Result pump(Deadline d);
+  void handle_line(std::string_view line, bool too_long);
+  std::unique_ptr<Transport> transport_;
+  LineSplitter splitter_;
+  std::string inbox_;
+  std::uint32_t next_seq_ = 1;
+  bool have_peer_seq_ = false;
+  std::uint32_t expected_peer_seq_ = 0;
+  std::deque<Message> replies_;
+  std::deque<controller::Sample> samples_;
+  std::vector<std::string> events_;
+};
+
+bool parse_mode(std::string_view wire, controller::Mode& out);
+const char* wire_mode(controller::Mode m);
+// An SMP message to a sample; false when malformed.
+bool parse_sample(const Message& m, controller::Sample& out);
+
+}  // namespace loadtrim::line

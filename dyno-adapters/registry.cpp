@@ -1,0 +1,38 @@
+#include "registry.hpp"
+
+#include <stdexcept>
+
+#include "config/loaders.hpp"
+#include "inprocess/loopback_transport.hpp"
+#include "line/line_controller.hpp"
+
+namespace loadtrim::adapters {
+
+std::vector<std::string> names() { return {"line-tcp", "line-serial", "inprocess-sim"}; }
+
+std::unique_ptr<controller::Controller> make_controller(const controller::CellConfig& cell) {
+  const controller::Limits limits{cell.max_speed_kmh};
+  if (cell.adapter == "line-tcp")
+    return std::make_unique<line::LineController>(line::make_tcp_transport(cell.host, static_cast<unsigned short>(cell.port)),
+                                                  cell.timeouts, limits);
+  if (cell.adapter == "line-serial") {
+    line::SerialSettings s;
+    s.device = cell.serial.device;
+    s.baud = cell.serial.baud;
+    s.parity = cell.serial.parity == "odd" ? line::SerialSettings::Parity::odd
+               : cell.serial.parity == "even" ? line::SerialSettings::Parity::even
+                                              : line::SerialSettings::Parity::none;
+    s.stop_bits = cell.serial.stop_bits == 2 ? line::SerialSettings::StopBits::two : line::SerialSettings::StopBits::one;
+    s.data_bits = cell.serial.data_bits;
+    return std::make_unique<line::LineController>(line::make_serial_transport(s), cell.timeouts, limits);
+  }
+  if (cell.adapter == "inprocess-sim") {
+    sim::SimSettings settings;
+    settings.watchdog_s = 1e9;  // simulated time races ahead of the host's heartbeats here
+    auto sim = std::make_shared<sim::SimController>(config::load_truth(cell.inprocess_truth), settings);
+    return std::make_unique<line::LineController>(std::make_unique<inprocess::LoopbackTransport>(sim), cell.timeouts, limits);
+  }
+  throw std::invalid_argument("unknown controller adapter \"" + cell.adapter + "\"");
+}
+
+}  // namespace loadtrim::adapters

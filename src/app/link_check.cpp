@@ -1,0 +1,90 @@
+// `loadtrim link-check`: connect to the cell's controller, print what it reports, check it against the cell file,
+// round-trip the set coefficients and inertia (writing back what is already there), and stream a few seconds of
+// samples with the rollers idle. Nothing moves.
+#include <cstdio>
+#include <iostream>
+
+#include "app/exit_codes.hpp"
+#include "app/subcommands.hpp"
+#include "config/cell_loader.hpp"
+#include "config/input_error.hpp"
+#include "registry.hpp"
+
+namespace loadtrim::app {
+
+namespace {
+
+struct LinkCheckOptions {
+  std::string cell;
+  int port = 0;
+  std::string device;
+  double seconds = 3.0;
+  double rate_hz = 100.0;
+};
+
+int fail(const controller::Result& r) {
+  std::fprintf(stderr, "link-check: %s (%s)\n", r.message.c_str(), controller::to_string(r.status));
+  return kControllerFault;
+}
+
+int run_link_check(const LinkCheckOptions& o) {
+  core::Problems w;
+  controller::CellConfig cell = config::load_cell(o.cell, &w);
+  if (!w.empty()) std::cerr << config::format_problems(o.cell, w);
+  if (o.port > 0) cell.port = static_cast<unsigned>(o.port);
+  if (!o.device.empty()) cell.serial.device = o.device;
+  auto c = adapters::make_controller(cell);
+  std::printf("cell %s: adapter %s\n", cell.name.c_str(), cell.adapter.c_str());
+  if (auto r = c->connect(); !r.ok()) return fail(r);
+  controller::ControllerInfo info;
+  if (auto r = c->identify(info); !r.ok()) return fail(r);
+  std::printf("controller %s, protocol %d, capabilities %s\n", info.name.c_str(), info.protocol_version, info.capabilities.c_str());
+  std::printf("  roller diameter %.4f m, base inertia %.1f kg, max speed %.1f km/h, max force %.0f N\n", info.roller_diameter_m,
+              info.base_inertia_kg, info.max_speed_kmh, info.max_force_n);
+  const core::Problems mismatch = controller::check_identity(cell, info);
+  if (!mismatch.empty()) std::cerr << config::format_problems(o.cell, mismatch);
+  core::RoadLoad set;
+  double inertia = 0.0;
+  if (auto r = c->read_coefficients(set); !r.ok()) return fail(r);
+  if (auto r = c->read_inertia(inertia); !r.ok()) return fail(r);
+  if (auto r = c->set_coefficients(set); !r.ok()) return fail(r);
+  if (auto r = c->set_inertia(inertia); !r.ok()) return fail(r);
+  std::printf("round trip ok: set f0 %.4f N, f1 %.6f N/(km/h), f2 %.7f N/(km/h)^2, inertia %.2f kg\n", set.f0_n,
+              set.f1_n_per_kmh, set.f2_n_per_kmh2, inertia);
+  controller::StatusReport st;
+  if (auto r = c->status(st); !r.ok()) return fail(r);
+  std::printf("status: mode %s, speed %.2f km/h, controller time %.3f s, fault %s\n", controller::to_string(st.mode),
+              st.speed_kmh, st.time_s, st.fault.empty() ? "none" : st.fault.c_str());
+  if (auto r = c->start_stream(o.rate_hz); !r.ok()) return fail(r);
+  std::vector<controller::Sample> samples;
+  double t0 = -1.0;
+  while (samples.empty() || samples.back().time_s - t0 < o.seconds) {
+    if (auto r = c->receive_samples(samples); !r.ok()) return fail(r);
+    if (t0 < 0.0 && !samples.empty()) t0 = samples.front().time_s;
+  }
+  c->stop_stream();
+  const auto& s = c->stats();
+  const double span = samples.back().time_s - samples.front().time_s;
+  std::printf("stream: %zu samples over %.3f s of controller time (%.1f Hz), lost %llu, rejected lines %llu\n",
+              samples.size(), span, span > 0 ? (samples.size() - 1) / span : 0.0, static_cast<unsigned long long>(s.samples_lost),
+              static_cast<unsigned long long>(s.lines_rejected));
+  c->disconnect();
+  const bool ok = mismatch.empty() && s.samples_lost == 0;
+  std::printf("link-check %s\n", ok ? "passed" : "found problems (see above)");
+  return ok ? kAccepted : kControllerFault;
+}
+
+}  // namespace
+
+void register_link_check(CLI::App& app, Runner& run) {
+  auto o = std::make_shared<LinkCheckOptions>();
+  auto* sub = app.add_subcommand("link-check", "check the link to the cell's controller (nothing moves)");
+  sub->add_option("--cell", o->cell, "cell configuration (TOML)")->required();
+  sub->add_option("--port", o->port, "override the TCP port of the cell file")->check(CLI::Range(1, 65535));
+  sub->add_option("--device", o->device, "override the serial device of the cell file");
+  sub->add_option("--seconds", o->seconds, "controller seconds of samples to stream")->check(CLI::Range(0.1, 600.0))->capture_default_str();
+  sub->add_option("--rate-hz", o->rate_hz, "sample rate to request")->check(CLI::Range(10.0, 1000.0))->capture_default_str();
+  sub->callback([o, &run] { run = [o] { return run_link_check(*o); }; });
+}
+
+}  // namespace loadtrim::app

@@ -1,0 +1,50 @@
+// A test cell: which adapter reaches its controller and how, the timeouts, the cell's limits and the dyno
+// facts the controller must confirm. Loaded from config/cells/*.toml and validated in full before anything
+// connects (config::load_cell).
+#pragma once
+
+#include <string>
+
+#include "controller/controller.hpp"
+#include "core/problem.hpp"
+#include "core/profile.hpp"
+
+namespace loadtrim::controller {
+
+struct ReconnectPolicy {
+  int attempts = 3;                          // after a lost link; 0 = never reconnect
+  std::chrono::milliseconds delay{500};      // between attempts
+};
+
+struct SerialConfig {
+  std::string device;
+  unsigned baud = 115200;
+  std::string parity = "none";  // none, odd, even
+  unsigned stop_bits = 1;       // 1 or 2
+  unsigned data_bits = 8;       // 7 or 8
+};
+
+struct CellConfig {
+  std::string name;
+  std::string adapter;  // "line-tcp", "line-serial", "inprocess-sim" (see dyno-adapters/registry.hpp)
+  std::string host = "127.0.0.1";
+  unsigned port = 0;
+  SerialConfig serial;
+  std::string inprocess_truth;  // inprocess-sim only: the truth file of the simulated vehicle and dyno
+  Timeouts timeouts;
+  ReconnectPolicy reconnect;
+  double max_speed_kmh = 0.0;
+  double max_force_n = 0.0;
+  double max_motoring_s = 0.0;  // one continuous motoring period (warm-up included)
+  double roller_diameter_m = 0.0;
+  double base_inertia_kg = 0.0;
+  double roller_diameter_tolerance_m = 0.002;
+  double base_inertia_tolerance_kg = 5.0;
+  core::AxleLayout axles = core::AxleLayout::single_axle;
+  double sample_rate_hz = 100.0;
+};
+
+// What the controller reports against what the cell file says: problems with key "dyno.*" when they differ.
+core::Problems check_identity(const CellConfig& cell, const ControllerInfo& info);
+
+}  // namespace loadtrim::controller

@@ -1,0 +1,67 @@
+// loadtrim-sim: a simulated roller-dyno controller speaking the loadtrim line protocol, for tests, demos and
+// training. It runs the same physics as loadtrim's predictions with a hidden truth file. It is not a dyno.
+#include <CLI/CLI.hpp>
+#include <iostream>
+
+#include "config/input_error.hpp"
+#include "config/loaders.hpp"
+#include "sim/sim_server.hpp"
+
+int main(int argc, char** argv) {
+  using namespace loadtrim;
+  CLI::App app{"loadtrim-sim: simulated roller-dyno controller (line protocol over TCP or a pseudo-terminal)"};
+  std::string truth_file;
+  sim::SimSettings s;
+  sim::ServerSettings srv;
+  double watchdog_ms = 1000.0, warmth = -1.0;
+  std::string drop_in_mode;
+  double drop_at = -1, stall_at = -1, estop_at = -1, report_dia = -1, report_inertia = -1;
+  long long corrupt_line = -1;
+  app.add_option("--truth", truth_file, "the simulated vehicle and dyno (TOML); the tool never sees it")->required();
+  app.add_option("--bind", srv.bind, "address to listen on")->capture_default_str();
+  app.add_option("--port", srv.port, "TCP port, 0 = pick a free one and print it")->capture_default_str();
+  app.add_flag("--pty", srv.pty, "serve on a new pseudo-terminal instead of TCP and print its path");
+  app.add_option("--time-scale", srv.time_scale, "simulated seconds per wall second")->check(CLI::Range(0.01, 10000.0))->capture_default_str();
+  app.add_option("--watchdog-ms", watchdog_ms, "no request for this long while motoring → controlled stop")->check(CLI::Range(50.0, 600000.0))->capture_default_str();
+  app.add_option("--max-speed-kmh", s.max_speed_kmh, "the controller's speed limit")->capture_default_str();
+  app.add_option("--name", s.name, "controller name reported by IDENT (no spaces)")->capture_default_str();
+  app.add_option("--initial-warmth", warmth, "override the truth's initial drivetrain warmth (0 cold .. 1 warm)")->check(CLI::Range(0.0, 1.0));
+  app.add_option("--exit-after-s", srv.exit_after_s, "exit after this many wall seconds (a safety net for tests)");
+  auto* f = app.add_option_group("faults", "fault injection");
+  f->add_option("--drop-at-s", drop_at, "drop the connection once at this simulated time");
+  f->add_option("--drop-in-mode", drop_in_mode, "drop the connection once this mode (HOLD, ROADLOAD) has lasted --drop-after-s");
+  f->add_option("--drop-after-s", s.faults.drop_after_s, "see --drop-in-mode (simulated seconds)");
+  f->add_option("--corrupt-line", corrupt_line, "corrupt the Nth line sent (1-based), once");
+  f->add_option("--corrupt-every", s.faults.corrupt_every, "corrupt every Nth line sent");
+  f->add_option("--stall-at-s", stall_at, "stop the sample stream at this simulated time");
+  f->add_option("--delay-replies-ms", s.faults.delay_replies_ms, "hold every reply back this long (wall)");
+  f->add_option("--refuse", s.faults.refuse, "answer this verb with ERR 41 (repeatable)");
+  f->add_option("--estop-at-s", estop_at, "raise an emergency stop at this simulated time");
+  f->add_option("--report-roller-diameter-m", report_dia, "IDENT reports this roller diameter instead of the truth");
+  f->add_option("--report-base-inertia-kg", report_inertia, "IDENT reports this base inertia instead of the truth");
+  CLI11_PARSE(app, argc, argv);
+  physics::Truth truth;
+  try {
+    core::Problems w;
+    truth = config::load_truth(truth_file, &w);
+    if (!w.empty()) std::cerr << config::format_problems(truth_file, w);
+  } catch (const config::InputError& e) {
+    std::cerr << e.what();
+    return 2;
+  }
+  if (warmth >= 0.0) truth.vehicle.initial_warmth = warmth;
+  s.watchdog_s = watchdog_ms / 1000.0;
+  if (drop_at >= 0) s.faults.drop_at_s = drop_at;
+  if (!drop_in_mode.empty()) s.faults.drop_in_mode = drop_in_mode;
+  if (corrupt_line > 0) s.faults.corrupt_line = static_cast<std::uint64_t>(corrupt_line);
+  if (stall_at >= 0) s.faults.stall_at_s = stall_at;
+  if (estop_at >= 0) s.faults.estop_at_s = estop_at;
+  if (report_dia > 0) s.faults.report_roller_diameter_m = report_dia;
+  if (report_inertia > 0) s.faults.report_base_inertia_kg = report_inertia;
+  try {
+    return sim::run_server(truth, s, srv, [](const std::string& line) { std::cout << line << std::endl; });
+  } catch (const std::exception& e) {
+    std::cerr << "loadtrim-sim: " << e.what() << "\n";
+    return 1;
+  }
+}
