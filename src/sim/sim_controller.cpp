@@ -68,7 +68,10 @@ void SimController::latch_fault(const std::string& kind, const std::string& deta
   fault_ = kind;
   if (model_.speed_kmh() > 0.0) model_.controlled_stop();
   else model_.idle();
-  if (hello_) send({0, "EVT", {"FAULT", kv("kind", kind), kv("detail", detail), kv("time_s", model_.time_s())}}, out);
+  std::string d = detail;  // one field on the wire: no spaces
+  for (char& ch : d)
+    if (ch == ' ') ch = '_';
+  if (hello_) send({0, "EVT", {"FAULT", kv("kind", kind), kv("detail", d), kv("time_s", model_.time_s())}}, out);
 }
 
 void SimController::on_line(std::string_view text, double wall_s, std::vector<std::string>& out) {

@@ -1,0 +1,32 @@
+// Starts loadtrim-sim as a child process for an integration test, reads where it listens from its first line,
+// and stops it by its PID (SIGTERM, then SIGKILL) when the object goes away. The child also gets SIGKILL if the
+// test process dies first (PR_SET_PDEATHSIG), so a simulator never outlives its test.
+#pragma once
+
+#include <string>
+#include <sys/types.h>
+#include <vector>
+
+namespace loadtrim::testing {
+
+class SimProcess {
+ public:
+  // args: extra command-line arguments; --truth defaults to the demo truth, --exit-after-s to 600.
+  explicit SimProcess(std::vector<std::string> args, bool pty = false);
+  ~SimProcess();
+  SimProcess(const SimProcess&) = delete;
+  SimProcess& operator=(const SimProcess&) = delete;
+
+  unsigned short port() const { return port_; }
+  const std::string& device() const { return device_; }
+  pid_t pid() const { return pid_; }
+  bool alive() const;
+  void stop();
+
+ private:
+  pid_t pid_ = -1;
+  unsigned short port_ = 0;
+  std::string device_;
+};
+
+}  // namespace loadtrim::testing
