@@ -3,6 +3,7 @@
 #include <stdexcept>
 
 #include "config/loaders.hpp"
+#include "physics/roller_model.hpp"
 #include "inprocess/loopback_transport.hpp"
 #include "line/line_controller.hpp"
 
@@ -26,13 +27,16 @@ std::unique_ptr<controller::Controller> make_controller(const controller::CellCo
     s.data_bits = cell.serial.data_bits;
     return std::make_unique<line::LineController>(line::make_serial_transport(s), cell.timeouts, limits);
   }
-  if (cell.adapter == "inprocess-sim") {
-    sim::SimSettings settings;
-    settings.watchdog_s = 1e9;  // simulated time races ahead of the host's heartbeats here
-    auto sim = std::make_shared<sim::SimController>(config::load_truth(cell.inprocess_truth), settings);
-    return std::make_unique<line::LineController>(std::make_unique<inprocess::LoopbackTransport>(sim), cell.timeouts, limits);
-  }
+  if (cell.adapter == "inprocess-sim") return make_inprocess_controller(cell, config::load_truth(cell.inprocess_truth));
   throw std::invalid_argument("unknown controller adapter \"" + cell.adapter + "\"");
+}
+
+std::unique_ptr<controller::Controller> make_inprocess_controller(const controller::CellConfig& cell, const physics::Truth& truth) {
+  sim::SimSettings settings;
+  settings.watchdog_s = 1e9;  // simulated time races ahead of the host's heartbeats here
+  auto sim = std::make_shared<sim::SimController>(truth, settings);
+  return std::make_unique<line::LineController>(std::make_unique<inprocess::LoopbackTransport>(sim), cell.timeouts,
+                                                controller::Limits{cell.max_speed_kmh});
 }
 
 }  // namespace loadtrim::adapters

@@ -23,6 +23,7 @@ int main(int argc, char** argv) {
   Runner run;
   register_demo(app, run);
   register_link_check(app, run);
+  register_session_commands(app, run);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {

@@ -13,5 +13,6 @@ std::string data_dir();
 using Runner = std::function<int()>;
 void register_demo(CLI::App& app, Runner& run);
 void register_link_check(CLI::App& app, Runner& run);
+void register_session_commands(CLI::App& app, Runner& run);
 
 }  // namespace loadtrim::app

@@ -47,6 +47,14 @@ core::Profile read_profile(TomlReader& r) {
   p.max_coastdowns = r.integer_or("limits.max_coastdowns", 10, 2, 100);
   p.max_unusable_runs = r.integer_or("limits.max_unusable_runs", 3, 1, 100);
   p.max_gap_after_warmup_s = r.number_or("timing.max_gap_after_warmup_s", 120.0, 0.0, 3600.0, "s");
+  p.warm_up.speed_kmh = r.number_or("warm_up.speed_kmh", p.warm_up.speed_kmh, 10.0, 250.0, "km/h");
+  p.warm_up.duration_s = r.number_or("warm_up.duration_s", p.warm_up.duration_s, 0.0, 14400.0, "s");
+  p.warm_up.stable_within_n = r.number_or("warm_up.stable_within_n", p.warm_up.stable_within_n, 0.0, 100.0, "N");
+  p.warm_up.stable_window_s = r.number_or("warm_up.stable_window_s", p.warm_up.stable_window_s, 5.0, 1200.0, "s");
+  p.warm_up.max_extra_s = r.number_or("warm_up.max_extra_s", p.warm_up.max_extra_s, 0.0, 7200.0, "s");
+  if (r.has("loss_map.speeds_kmh")) p.loss_map.speeds_kmh = r.numbers("loss_map.speeds_kmh", 5.0, 250.0, "km/h");
+  p.loss_map.settle_s = r.number_or("loss_map.settle_s", p.loss_map.settle_s, 0.5, 120.0, "s");
+  p.loss_map.average_s = r.number_or("loss_map.average_s", p.loss_map.average_s, 0.5, 120.0, "s");
   // Cross-field rules (ordering, run-up margin against Δv, fixed-run counts) live in the core validator.
   core::Problems ps = core::validate(p);
   if (mph)

@@ -74,6 +74,17 @@ Problems validate(const Profile& p) {
   irange(ps, "limits.max_unusable_runs", p.max_unusable_runs, 1, 100);
   range(ps, "timing.max_gap_after_warmup_s", p.max_gap_after_warmup_s, 0.0, 3600.0, "s");
   range(ps, "acceptance.estimator_disagreement_n", p.estimator_disagreement_n, 0.0, 1000.0, "N");
+  range(ps, "warm_up.speed_kmh", p.warm_up.speed_kmh, 10.0, 250.0, "km/h");
+  range(ps, "warm_up.duration_s", p.warm_up.duration_s, 0.0, 14400.0, "s");
+  range(ps, "warm_up.stable_within_n", p.warm_up.stable_within_n, 0.0, 100.0, "N");
+  range(ps, "warm_up.stable_window_s", p.warm_up.stable_window_s, 5.0, 1200.0, "s");
+  range(ps, "warm_up.max_extra_s", p.warm_up.max_extra_s, 0.0, 7200.0, "s");
+  if (p.loss_map.speeds_kmh.size() < 3)
+    ps.push_back({Problem::Severity::error, "loss_map.speeds_kmh", "needs at least 3 speeds for a quadratic"});
+  for (std::size_t i = 0; i < p.loss_map.speeds_kmh.size(); ++i)
+    range(ps, "loss_map.speeds_kmh[" + std::to_string(i) + "]", p.loss_map.speeds_kmh[i], 5.0, 250.0, "km/h");
+  range(ps, "loss_map.settle_s", p.loss_map.settle_s, 0.5, 120.0, "s");
+  range(ps, "loss_map.average_s", p.loss_map.average_s, 0.5, 120.0, "s");
   if (p.method == SettingMethod::fixed_run && p.max_coastdowns < p.fixed_runs + p.fixed_run_verification_runs)
     ps.push_back({Problem::Severity::error, "limits.max_coastdowns",
                   "must be at least method.fixed_runs + method.fixed_run_verification_runs (" +

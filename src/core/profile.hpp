@@ -36,6 +36,23 @@ struct InitialSettingRule {
   double f2_factor = 1.0;
 };
 
+// Vehicle warm-up on the dyno before the first coast-down (domain.md §3: the dyno-side wording was not found; the
+// road rule is 90 % of the cycle's maximum speed for at least 20 min — used here as the default, common practice).
+struct WarmUp {
+  double speed_kmh = 80.0;
+  double duration_s = 1200.0;
+  double stable_within_n = 0.0;   // > 0: continue until the hold force changes less than this between windows
+  double stable_window_s = 60.0;
+  double max_extra_s = 600.0;     // ...for at most this much longer
+};
+
+// Loss map at the end of the warm-up (first-setting strategy "loss-map"): hold each speed, let it settle, average.
+struct LossMap {
+  std::vector<double> speeds_kmh = {130.0, 100.0, 70.0, 40.0, 20.0};
+  double settle_s = 5.0;
+  double average_s = 5.0;
+};
+
 struct Profile {
   std::string name;
   std::string standard;  // free text, e.g. "UN GTR 15 Annex 4 §8.1.3"
@@ -49,6 +66,8 @@ struct Profile {
   int fixed_run_verification_runs = 1;   // coast-downs at the final setting to confirm it (0 = none)
   MassRule mass;
   InitialSettingRule initial;
+  WarmUp warm_up;
+  LossMap loss_map;
   Rounding rounding;
   int max_coastdowns = 10;               // stop reason "iteration limit" beyond this
   int max_unusable_runs = 3;             // stop after this many unusable coast-downs

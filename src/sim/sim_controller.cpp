@@ -95,7 +95,7 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
     if (!v || static_cast<int>(*v) != line::kProtocolVersion)
       return reply_err(req, ErrorCode::bad_argument, "unsupported protocol version", out);
     hello_ = true;
-    return reply_ok(req, "HELLO", {kv("version", line::kProtocolVersion), "caps=hold,roadload,stop,stream,watchdog,status"}, out);
+    return reply_ok(req, "HELLO", {kv("version", line::kProtocolVersion), "caps=hold,hold-force,roadload,stop,stream,watchdog,status"}, out);
   }
   if (!hello_) return reply_err(req, ErrorCode::wrong_state, "send HELLO first", out);
   if (m.type == "BEAT") return reply_ok(req, "BEAT", {}, out);
@@ -106,7 +106,7 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
                      kv("roller_diameter_m", settings_.faults.report_roller_diameter_m.value_or(d.roller_diameter_m)),
                      kv("base_inertia_kg", settings_.faults.report_base_inertia_kg.value_or(d.base_inertia_kg)),
                      kv("max_speed_kmh", settings_.max_speed_kmh), kv("max_force_n", settings_.max_force_n),
-                     "caps=hold,roadload,stop,stream,watchdog,status"},
+                     "caps=hold,hold-force,roadload,stop,stream,watchdog,status"},
                     out);
   }
   if (m.type == "STATUS")

@@ -1,0 +1,265 @@
+#include "app/session_runner.hpp"
+
+#include <unistd.h>
+
+#include <atomic>
+#include <csignal>
+#include <filesystem>
+#include <fstream>
+#include <iostream>
+
+#include "app/exit_codes.hpp"
+#include "app/subcommands.hpp"
+#include "config/cell_loader.hpp"
+#include "config/epa_csv.hpp"
+#include "config/input_error.hpp"
+#include "config/loaders.hpp"
+#include "record/event_log.hpp"
+#include "record/session_folder.hpp"
+#include "registry.hpp"
+#include "session/record_writer.hpp"
+
+namespace loadtrim::app {
+
+namespace fs = std::filesystem;
+
+namespace {
+std::atomic<bool> g_stop{false};
+extern "C" void on_stop_signal(int) { g_stop.store(true); }
+
+const char* kCautions =
+    "Before the rollers move (the lab's own safety rules, local codes and licensed practice come first):\n"
+    "  - the vehicle is restrained as the cell's rules require; tyres checked;\n"
+    "  - nobody is in the roller area; guards, interlocks and emergency stops work;\n"
+    "  - cooling fan and exhaust extraction are on; hood and doors as the cell requires;\n"
+    "  - the cell's and the vehicle's speed limits in the files are right; loadtrim never commands more.\n";
+
+std::string profile_file(const std::string& p) {
+  return p.find('/') != std::string::npos || p.ends_with(".toml") ? p : config::profile_path(data_dir() + "/config/profiles", p);
+}
+
+void warn(const std::string& file, const core::Problems& w) {
+  if (!w.empty()) std::cerr << config::format_problems(file, w);
+}
+
+struct Loaded {
+  session::Inputs inputs;
+  std::string profile_path;
+};
+
+Loaded load_all(const std::string& cell_file, const std::string& target_file, const std::string& profile_override,
+                const RunRequest& req) {
+  Loaded l;
+  core::Problems w;
+  l.inputs.cell = config::load_cell(cell_file, &w);
+  warn(cell_file, w);
+  w.clear();
+  l.inputs.vehicle = config::load_target(target_file, &w);
+  warn(target_file, w);
+  w.clear();
+  l.profile_path = profile_file(profile_override.empty() ? l.inputs.vehicle.profile : profile_override);
+  l.inputs.profile = config::load_profile(l.profile_path, &w);
+  warn(l.profile_path, w);
+  if (req.port > 0) l.inputs.cell.port = static_cast<unsigned>(req.port);
+  if (!req.device.empty()) l.inputs.cell.serial.device = req.device;
+  // Cross-file checks that need no controller: refuse now, before anything connects.
+  core::Problems cross;
+  const double start = l.inputs.profile.start_speed_kmh();
+  if (!(start < l.inputs.cell.max_speed_kmh))
+    cross.push_back({core::Problem::Severity::error, "limits.max_speed_kmh",
+                     "is " + core::num(l.inputs.cell.max_speed_kmh) + " km/h; the profile's start speed " + core::num(start) +
+                         " km/h (top reference speed + run-up margin) must be below it"});
+  if (!cross.empty()) throw config::InputError(cell_file, cross);
+  core::Problems vcross;
+  if (!(start < l.inputs.vehicle.max_speed_kmh))
+    vcross.push_back({core::Problem::Severity::error, "vehicle.max_speed_kmh",
+                      "is " + core::num(l.inputs.vehicle.max_speed_kmh) + " km/h; the profile's start speed " + core::num(start) +
+                          " km/h must be below it"});
+  if (!vcross.empty()) throw config::InputError(target_file, vcross);
+  return l;
+}
+
+std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
+  try {
+    const config::EpaFile f = config::read_epa_csv(csv);
+    std::vector<core::FleetRow> rows;
+    for (const auto& r : f.rows)
+      rows.push_back({r.etw_kg, r.drive_code == "F" || r.drive_code == "R" ? core::AxleLayout::single_axle : core::AxleLayout::two_axle,
+                      r.target, r.set});
+    auto m = core::fit_fleet_loss(rows);
+    if (m.ok()) return m;
+  } catch (const config::InputError& e) {
+    std::cerr << "fleet data not used: " << e.what();
+  }
+  return std::nullopt;
+}
+
+std::string history_file(const std::string& dir, const controller::CellConfig& cell, const core::VehicleTarget& v) {
+  return (fs::path(dir) / record::safe_name(cell.name) / (record::safe_name(v.id) + ".json")).string();
+}
+
+std::optional<core::HistoryEntry> load_history(const std::string& file) {
+  std::ifstream in(file);
+  if (!in) return std::nullopt;
+  try {
+    const auto j = nlohmann::json::parse(in);
+    core::HistoryEntry h;
+    h.utc = j.at("utc").get<std::string>();
+    auto c = [](const nlohmann::json& x) {
+      return core::RoadLoad{x.at("f0_n").get<double>(), x.at("f1_n_per_kmh").get<double>(), x.at("f2_n_per_kmh2").get<double>()};
+    };
+    h.target = c(j.at("target"));
+    h.final_set = c(j.at("final_set"));
+    return h;
+  } catch (const std::exception& e) {
+    std::cerr << file << ": history entry not used: " << e.what() << "\n";
+    return std::nullopt;
+  }
+}
+
+void save_history(const std::string& file, const core::VehicleTarget& v, const session::Summary& s, const std::string& folder) {
+  if (!s.final_set) return;
+  std::error_code ec;
+  fs::create_directories(fs::path(file).parent_path(), ec);
+  nlohmann::json j = {{"utc", record::utc_now()}, {"vehicle", v.id}, {"session", folder},
+                      {"target", {{"f0_n", v.target.f0_n}, {"f1_n_per_kmh", v.target.f1_n_per_kmh}, {"f2_n_per_kmh2", v.target.f2_n_per_kmh2}}},
+                      {"final_set", {{"f0_n", s.final_set->f0_n}, {"f1_n_per_kmh", s.final_set->f1_n_per_kmh}, {"f2_n_per_kmh2", s.final_set->f2_n_per_kmh2}}}};
+  std::string err;
+  if (!record::write_durable(file, j.dump(2) + "\n", err)) std::cerr << "history not saved: " << err << "\n";
+}
+
+// Interactive confirmation, or the explicit unattended flag. Returns the way it was given, or empty = refused.
+std::string confirm(const RunRequest& req) {
+  if (req.simulator) return "simulated controller started by this command: no rollers move";
+  if (req.unattended) return "--unattended flag";
+  std::cerr << kCautions;
+  if (!::isatty(STDIN_FILENO)) {
+    std::cerr << "refusing to motor the rollers: no terminal to confirm on; run interactively or pass --unattended\n";
+    return "";
+  }
+  std::cerr << "Type YES to let loadtrim motor the rollers: " << std::flush;
+  std::string answer;
+  std::getline(std::cin, answer);
+  return answer == "YES" ? "interactive confirmation" : "";
+}
+
+int execute(session::Inputs inputs, const RunRequest& req, const std::string& folder, const session::ResumePoint* resume,
+            const std::string& confirmation, nlohmann::json started) {
+  session::RecordWriter writer(folder);
+  if (!writer.ok()) {
+    std::cerr << "loadtrim: " << writer.error() << "\n";
+    return kRecordFailure;
+  }
+  session::Console console(req.console);
+  std::unique_ptr<controller::Controller> c =
+      req.inprocess_truth ? adapters::make_inprocess_controller(inputs.cell, *req.inprocess_truth) : adapters::make_controller(inputs.cell);
+  session::Options opt;
+  if (!core::parse(req.first_setting, opt.first_setting)) {
+    std::cerr << "--first-setting: \"" << req.first_setting << "\" is not one of standard, fleet, loss-map, history\n";
+    return kBadInput;
+  }
+  opt.sample_rate_hz = inputs.cell.sample_rate_hz;
+  opt.resume_warm_up_s = req.resume_warm_up_s;
+  opt.operator_note = req.note;
+  opt.fleet = load_fleet(req.fleet_csv.empty() ? data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv" : req.fleet_csv);
+  const std::string hdir = req.history_dir.empty() ? (fs::path(req.sessions_dir) / "history").string() : req.history_dir;
+  const std::string hfile = history_file(hdir, inputs.cell, inputs.vehicle);
+  opt.history = load_history(hfile);
+  started["confirmation"] = confirmation;
+  started["software"] = {{"version", LOADTRIM_VERSION}, {"build", LOADTRIM_BUILD_ID}};
+  started["operator_note"] = req.note;
+  started["first_setting_requested"] = req.first_setting;
+  started["history_file"] = hfile;
+  started["history_available"] = opt.history.has_value();
+  if (!writer.on_event({resume ? "resume_started" : "session_started", started, nullptr})) {
+    std::cerr << "loadtrim: " << writer.error() << "\n";
+    return kRecordFailure;
+  }
+  if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
+  const core::VehicleTarget vehicle = inputs.vehicle;
+  session::Session s(std::move(inputs), opt, *c, {&writer, &console}, &g_stop);
+  const session::Summary sum = s.run(resume);
+  c->disconnect();
+  if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder);
+  if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
+  if (sum.outcome == session::Outcome::record_failure)
+    std::cerr << "loadtrim: record failure: " << writer.error() << " (every record before it is intact in " << folder << ")\n";
+  return exit_code_for(sum.outcome);
+}
+
+}  // namespace
+
+int exit_code_for(session::Outcome o) {
+  switch (o) {
+    case session::Outcome::accepted: return kAccepted;
+    case session::Outcome::not_accepted: return kNotAccepted;
+    case session::Outcome::refused: return kBadInput;
+    case session::Outcome::controller_fault: return kControllerFault;
+    case session::Outcome::interrupted: return kInterrupted;
+    case session::Outcome::record_failure: return kRecordFailure;
+  }
+  return kInternalError;
+}
+
+void install_stop_handlers() {
+  struct sigaction sa {};
+  sa.sa_handler = on_stop_signal;
+  sigemptyset(&sa.sa_mask);
+  ::sigaction(SIGINT, &sa, nullptr);
+  ::sigaction(SIGTERM, &sa, nullptr);
+  ::signal(SIGPIPE, SIG_IGN);
+}
+
+int run_new_session(const RunRequest& req, std::string* folder_out) {
+  Loaded l = load_all(req.cell_file, req.target_file, req.profile, req);  // throws InputError: nothing started
+  const std::string confirmation = confirm(req);
+  if (confirmation.empty()) return kBadInput;
+  install_stop_handlers();
+  const std::string folder = record::create_session_folder(req.sessions_dir, l.inputs.vehicle.id);
+  if (folder_out) *folder_out = folder;
+  nlohmann::json files = nlohmann::json::array();
+  files.push_back(record::copy_input(folder, req.cell_file, "cell.toml"));
+  files.push_back(record::copy_input(folder, req.target_file, "target.toml"));
+  files.push_back(record::copy_input(folder, l.profile_path, "profile.toml"));
+  nlohmann::json started = {{"vehicle", l.inputs.vehicle.id}, {"cell", l.inputs.cell.name}, {"profile", l.inputs.profile.name},
+                            {"method", core::to_string(l.inputs.profile.method)}, {"files", files},
+                            {"overrides", {{"port", req.port}, {"device", req.device}}},
+                            {"inprocess", req.inprocess_truth.has_value()}};
+  return execute(std::move(l.inputs), req, folder, nullptr, confirmation, started);
+}
+
+int resume_session(const std::string& folder, const RunRequest& overrides) {
+  std::vector<nlohmann::json> records;
+  const record::VerifyResult v = record::read_log((fs::path(folder) / "events.jsonl").string(), &records);
+  if (!v.ok) {
+    std::cerr << "loadtrim: cannot resume " << folder << ": " << v.message << "\n";
+    return kRecordFailure;
+  }
+  for (const auto& r : records)
+    if (r.value("type", "") == "finished") {
+      std::cerr << "loadtrim: " << folder << " already finished (" << r.value("result", "") << "); nothing to resume\n";
+      return r.value("accepted", false) ? kAccepted : kNotAccepted;
+    }
+  const std::string in = (fs::path(folder) / "inputs").string();
+  RunRequest req = overrides;
+  // The same inputs as the interrupted session: the copies in its folder (their hashes are in the log).
+  Loaded l = load_all(in + "/cell.toml", in + "/target.toml", in + "/profile.toml", req);
+  for (const auto& r : records)
+    if (r.value("type", "") == "session_started") {
+      req.first_setting = r.value("first_setting_requested", req.first_setting);
+      // The port or device given on the first command line, unless this one gives another.
+      if (overrides.port == 0 && r.contains("overrides") && r["overrides"].value("port", 0) > 0)
+        l.inputs.cell.port = r["overrides"]["port"].get<unsigned>();
+      if (overrides.device.empty() && r.contains("overrides") && !r["overrides"].value("device", "").empty())
+        l.inputs.cell.serial.device = r["overrides"]["device"].get<std::string>();
+    }
+  const std::string confirmation = confirm(req);
+  if (confirmation.empty()) return kBadInput;
+  install_stop_handlers();
+  const session::ResumePoint rp = session::resume_point(records);
+  nlohmann::json started = {{"vehicle", l.inputs.vehicle.id}, {"cell", l.inputs.cell.name}, {"profile", l.inputs.profile.name},
+                            {"records_before", records.size()}, {"completed_coastdowns", rp.completed.size()}};
+  return execute(std::move(l.inputs), req, folder, &rp, confirmation, started);
+}
+
+}  // namespace loadtrim::app

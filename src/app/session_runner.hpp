@@ -1,0 +1,40 @@
+// What `run`, `resume` and `demo` share: loading and validating every input before anything connects, the
+// operator's confirmation, signal handling, the session folder and its record, history, and the exit code.
+#pragma once
+
+#include <optional>
+#include <string>
+
+#include "controller/controller.hpp"
+#include "physics/roller_model.hpp"
+#include "session/console.hpp"
+#include "session/session.hpp"
+
+namespace loadtrim::app {
+
+struct RunRequest {
+  std::string cell_file, target_file, profile;  // profile: a name in config/profiles or a file; empty = the target's
+  std::string sessions_dir = "sessions";
+  std::string first_setting = "loss-map";
+  std::string fleet_csv;     // default: samples/data's EPA file
+  std::string history_dir;   // default: <sessions_dir>/history
+  bool unattended = false;
+  bool simulator = false;    // the cell is a simulator this process started: no rollers move
+  session::Console::Mode console = session::Console::Mode::normal;
+  std::string note;
+  int port = 0;              // overrides of the cell file
+  std::string device;
+  double resume_warm_up_s = -1.0;
+  std::optional<physics::Truth> inprocess_truth;  // in-process simulated controller with this truth
+};
+
+// Loads and validates, asks for confirmation, creates the folder, runs, and returns the exit code.
+int run_new_session(const RunRequest& req, std::string* folder_out = nullptr);
+// Continues the session in `folder` from its log.
+int resume_session(const std::string& folder, const RunRequest& overrides);
+
+int exit_code_for(session::Outcome o);
+// Installs SIGINT/SIGTERM handlers that ask the session to stop safely.
+void install_stop_handlers();
+
+}  // namespace loadtrim::app

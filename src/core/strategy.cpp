@@ -1,0 +1,59 @@
+#include "core/strategy.hpp"
+
+namespace loadtrim::core {
+
+const char* to_string(FirstSetting f) {
+  switch (f) {
+    case FirstSetting::standard: return "standard";
+    case FirstSetting::fleet: return "fleet";
+    case FirstSetting::loss_map: return "loss-map";
+    case FirstSetting::history: return "history";
+  }
+  return "unknown";
+}
+
+bool parse(const std::string& s, FirstSetting& out) {
+  for (FirstSetting f : {FirstSetting::standard, FirstSetting::fleet, FirstSetting::loss_map, FirstSetting::history})
+    if (s == to_string(f)) return out = f, true;
+  return false;
+}
+
+RoadLoad FleetLossModel::estimate(double tm, AxleLayout layout) const {
+  const Line& l = layout == AxleLayout::two_axle && two_axle.rows >= 10 ? two_axle : single_axle;
+  return l.at_zero_kg + l.per_kg.scaled(tm);
+}
+
+FleetLossModel fit_fleet_loss(std::span<const FleetRow> rows) {
+  FleetLossModel m;
+  for (AxleLayout layout : {AxleLayout::single_axle, AxleLayout::two_axle}) {
+    std::vector<double> mass, c0, c1, c2;
+    for (const auto& r : rows) {
+      if (r.layout != layout) continue;
+      const RoadLoad loss = r.target - r.set;
+      const double l20 = loss.force_n(20.0), l130 = loss.force_n(130.0);
+      if (!(l20 >= 0.0 && l20 <= 600.0 && l130 >= 0.0 && l130 <= 600.0)) continue;
+      mass.push_back(r.test_mass_kg);
+      c0.push_back(loss.f0_n);
+      c1.push_back(loss.f1_n_per_kmh);
+      c2.push_back(loss.f2_n_per_kmh2);
+    }
+    FleetLossModel::Line& line = layout == AxleLayout::two_axle ? m.two_axle : m.single_axle;
+    const auto p0 = fit_polynomial(mass, c0, 1), p1 = fit_polynomial(mass, c1, 1), p2 = fit_polynomial(mass, c2, 1);
+    if (!p0.ok || !p1.ok || !p2.ok) continue;
+    line.at_zero_kg = {p0.coefficients(0), p1.coefficients(0), p2.coefficients(0)};
+    line.per_kg = {p0.coefficients(1), p1.coefficients(1), p2.coefficients(1)};
+    line.rows = static_cast<int>(mass.size());
+  }
+  return m;
+}
+
+RoadLoadFit fit_loss_map(std::span<const HoldPoint> points) {
+  std::vector<double> v, f;
+  for (const auto& p : points) {
+    v.push_back(p.speed_kmh);
+    f.push_back(p.force_n);
+  }
+  return fit_road_load(v, f);
+}
+
+}  // namespace loadtrim::core

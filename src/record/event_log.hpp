@@ -1,0 +1,61 @@
+// The session's event log: append-only JSON Lines where every record carries the SHA-256 of the previous
+// record's line (a hash chain; the first record's "prev" is 64 zeros). Each append is written, flushed and
+// fsync'd before it returns, so a record that append() confirmed survives a crash or SIGKILL.
+//
+// Record layout: {"seq": n, "utc": "...", "type": "...", ...payload..., "prev": "<hex>"}; the hash of a record
+// is the SHA-256 of its line without the '\n'.
+#pragma once
+
+#include <nlohmann/json.hpp>
+#include <string>
+#include <vector>
+
+namespace loadtrim::record {
+
+class EventLog {
+ public:
+  // Opens (creating if needed) the log; an existing log is read and its chain verified first, and appending
+  // continues after its last record (resume). A partial last line (torn write) is discarded and reported.
+  explicit EventLog(std::string path);
+  ~EventLog();
+  EventLog(const EventLog&) = delete;
+  EventLog& operator=(const EventLog&) = delete;
+
+  // Appends one record; false (with error()) when it could not be made durable. Never throws.
+  bool append(const std::string& type, nlohmann::json payload, const std::string& utc);
+  const std::string& error() const { return error_; }
+  std::uint64_t records() const { return next_seq_; }
+  const std::string& last_hash() const { return last_hash_; }
+  const std::string& path() const { return path_; }
+  // Set when opening found and cut a torn last line.
+  const std::string& repaired() const { return repaired_; }
+  // A test hook: the next appends fail as if the disk refused them.
+  void inject_write_failure(bool on) { fail_writes_ = on; }
+
+ private:
+  std::string path_;
+  int fd_ = -1;
+  std::uint64_t next_seq_ = 0;
+  std::string last_hash_;
+  std::string error_;
+  std::string repaired_;
+  bool fail_writes_ = false;
+};
+
+struct VerifyResult {
+  bool ok = false;
+  std::uint64_t records = 0;
+  std::int64_t first_bad_record = -1;  // seq of the first record that breaks the chain, -1 when none
+  std::string message;                 // what is wrong, or a summary when ok
+  std::vector<std::string> notes;      // per-file findings (traces, inputs)
+};
+
+// Reads a log, checking each record's "prev" against the hash of the line before and its "seq".
+// records gets the parsed records up to (not including) the first bad one.
+VerifyResult read_log(const std::string& path, std::vector<nlohmann::json>* records);
+
+// Verifies a session folder: the chain of events.jsonl, then every file the log recorded with a hash
+// (inputs, traces) against the file on disk.
+VerifyResult verify_session_folder(const std::string& folder);
+
+}  // namespace loadtrim::record

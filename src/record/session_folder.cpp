@@ -1,0 +1,150 @@
+#include "record/session_folder.hpp"
+
+#include <fcntl.h>
+#include <unistd.h>
+
+#include <cerrno>
+#include <charconv>
+#include <chrono>
+#include <cstring>
+#include <ctime>
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+#include <stdexcept>
+
+#include "record/sha256.hpp"
+
+namespace loadtrim::record {
+
+namespace fs = std::filesystem;
+
+std::string utc_now() {
+  const auto now = std::chrono::system_clock::now();
+  const std::time_t t = std::chrono::system_clock::to_time_t(now);
+  const auto ms = std::chrono::duration_cast<std::chrono::milliseconds>(now.time_since_epoch()).count() % 1000;
+  std::tm tm{};
+  gmtime_r(&t, &tm);
+  char buf[40];
+  std::strftime(buf, sizeof buf, "%Y-%m-%dT%H:%M:%S", &tm);
+  char out[48];
+  std::snprintf(out, sizeof out, "%s.%03dZ", buf, static_cast<int>(ms));
+  return out;
+}
+
+std::string utc_compact_now() {
+  const std::time_t t = std::chrono::system_clock::to_time_t(std::chrono::system_clock::now());
+  std::tm tm{};
+  gmtime_r(&t, &tm);
+  char buf[32];
+  std::strftime(buf, sizeof buf, "%Y%m%dT%H%M%SZ", &tm);
+  return buf;
+}
+
+std::string safe_name(const std::string& s) {
+  std::string out;
+  for (char c : s) out += (std::isalnum(static_cast<unsigned char>(c)) || c == '-' || c == '_' || c == '.') ? c : '_';
+  return out.empty() ? "unnamed" : out;
+}
+
+std::string create_session_folder(const std::string& root, const std::string& id) {
+  const std::string base = (fs::path(root) / (utc_compact_now() + "-" + safe_name(id))).string();
+  std::string path = base;
+  for (int i = 2; fs::exists(path); ++i) path = base + "-" + std::to_string(i);
+  std::error_code ec;
+  fs::create_directories(fs::path(path) / "inputs", ec);
+  if (!ec) fs::create_directories(fs::path(path) / "traces", ec);
+  if (ec) throw std::runtime_error("cannot create the session folder " + path + ": " + ec.message());
+  return path;
+}
+
+bool write_durable(const std::string& path, const std::string& content, std::string& error) {
+  const std::string tmp = path + ".tmp";
+  const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0644);
+  if (fd < 0) {
+    error = "cannot create " + tmp + ": " + std::strerror(errno);
+    return false;
+  }
+  std::size_t done = 0;
+  while (done < content.size()) {
+    const ssize_t w = ::write(fd, content.data() + done, content.size() - done);
+    if (w < 0 && errno == EINTR) continue;
+    if (w < 0) {
+      error = "cannot write " + tmp + ": " + std::strerror(errno);
+      ::close(fd);
+      return false;
+    }
+    done += static_cast<std::size_t>(w);
+  }
+  if (::fsync(fd) != 0 || ::close(fd) != 0) {
+    error = "cannot sync " + tmp + ": " + std::strerror(errno);
+    return false;
+  }
+  if (::rename(tmp.c_str(), path.c_str()) != 0) {
+    error = "cannot rename " + tmp + ": " + std::strerror(errno);
+    return false;
+  }
+  const int dfd = ::open(fs::path(path).parent_path().c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
+  if (dfd >= 0) {
+    ::fsync(dfd);
+    ::close(dfd);
+  }
+  return true;
+}
+
+nlohmann::json copy_input(const std::string& folder, const std::string& source, const std::string& name) {
+  std::ifstream in(source, std::ios::binary);
+  if (!in) throw std::runtime_error("cannot read " + source);
+  std::ostringstream ss;
+  ss << in.rdbuf();
+  const std::string rel = "inputs/" + name;
+  std::string err;
+  if (!write_durable((fs::path(folder) / rel).string(), ss.str(), err)) throw std::runtime_error(err);
+  return {{"path", rel}, {"sha256", sha256_hex(ss.str())}, {"source", fs::absolute(source).lexically_normal().string()}};
+}
+
+std::string trace_csv(const std::vector<controller::Sample>& samples) {
+  std::string out = "index,time_s,speed_kmh,force_n,mode,flags\n";
+  out.reserve(samples.size() * 48 + 64);
+  char buf[128];
+  for (const auto& s : samples) {
+    std::snprintf(buf, sizeof buf, "%llu,%.4f,%.4f,%.2f,%s,%u\n", static_cast<unsigned long long>(s.index), s.time_s, s.speed_kmh,
+                  s.force_n, controller::to_string(s.mode), s.flags);
+    out += buf;
+  }
+  return out;
+}
+
+bool read_trace_csv(const std::string& path, std::vector<double>& t, std::vector<double>& v, std::string& error) {
+  std::ifstream in(path);
+  if (!in) {
+    error = "cannot open " + path;
+    return false;
+  }
+  std::string line;
+  if (!std::getline(in, line) || line.rfind("index,time_s,speed_kmh", 0) != 0) {
+    error = path + ": not a loadtrim trace (header)";
+    return false;
+  }
+  int n = 1;
+  while (std::getline(in, line)) {
+    ++n;
+    const auto c1 = line.find(','), c2 = line.find(',', c1 + 1), c3 = line.find(',', c2 + 1);
+    if (c1 == std::string::npos || c2 == std::string::npos || c3 == std::string::npos) {
+      error = path + ": line " + std::to_string(n) + " has too few columns";
+      return false;
+    }
+    double a = 0, b = 0;
+    auto r1 = std::from_chars(line.data() + c1 + 1, line.data() + c2, a);
+    auto r2 = std::from_chars(line.data() + c2 + 1, line.data() + c3, b);
+    if (r1.ec != std::errc() || r2.ec != std::errc()) {
+      error = path + ": line " + std::to_string(n) + " is not numeric";
+      return false;
+    }
+    t.push_back(a);
+    v.push_back(b);
+  }
+  return true;
+}
+
+}  // namespace loadtrim::record

@@ -1,0 +1,36 @@
+// The session folder on disk:
+//   inputs/      copies of the cell, profile and target files (their SHA-256 in the log's first record)
+//   traces/      run-NNN.csv, one per coast-down (SHA-256 in the log's "coastdown" record)
+//   events.jsonl the hash-chained event log (record/event_log.hpp)
+//   summary.json the machine-readable result, written at the end (atomically)
+//   operator.log the human-readable log
+#pragma once
+
+#include <nlohmann/json.hpp>
+#include <string>
+#include <vector>
+
+#include "controller/controller.hpp"
+
+namespace loadtrim::record {
+
+std::string utc_now();             // 2026-12-01T19:39:30.123Z
+std::string utc_compact_now();     // 20261201T193930Z, for folder names
+std::string safe_name(const std::string& s);  // letters, digits, '-', '_', '.' only
+
+// Creates <root>/<utc>-<id>/ with inputs/ and traces/; throws std::runtime_error when it cannot.
+std::string create_session_folder(const std::string& root, const std::string& id);
+
+// Writes content to path durably: a temporary file, fsync, rename over the target, fsync of the directory.
+bool write_durable(const std::string& path, const std::string& content, std::string& error);
+
+// Copies an input file into folder/inputs/<name>; returns {"path", "sha256", "source"}.
+nlohmann::json copy_input(const std::string& folder, const std::string& source, const std::string& name);
+
+// A trace as CSV: index,time_s,speed_kmh,force_n,mode,flags.
+std::string trace_csv(const std::vector<controller::Sample>& samples);
+// Reads one back (for reports and tests): time and speed columns; false on a malformed file.
+bool read_trace_csv(const std::string& path, std::vector<double>& time_s, std::vector<double>& speed_kmh,
+                    std::string& error);
+
+}  // namespace loadtrim::record

@@ -1,0 +1,38 @@
+// The audit-log observer: writes every session event to the folder's hash-chained events.jsonl (fsync'd per
+// record), each coast-down's trace to traces/run-NNN.csv with its SHA-256 in the record, summary.json at the end,
+// and a human-readable operator.log (spdlog). Returns false from on_event when a record could not be made
+// durable; the session then stops safely.
+#pragma once
+
+#include <memory>
+#include <string>
+
+#include "record/event_log.hpp"
+#include "session/session.hpp"
+
+namespace spdlog {
+class logger;
+}
+
+namespace loadtrim::session {
+
+class RecordWriter : public Observer {
+ public:
+  explicit RecordWriter(std::string folder);
+  ~RecordWriter() override;
+  bool on_event(const Event& e) override;
+  std::string error() const override { return error_; }
+  bool ok() const { return error_.empty(); }
+  const std::string& folder() const { return folder_; }
+  record::EventLog& log() { return *log_; }
+  // Operator-log line without a log record (e.g. the console's view of a warning).
+  void note(const std::string& text);
+
+ private:
+  std::string folder_;
+  std::unique_ptr<record::EventLog> log_;
+  std::shared_ptr<spdlog::logger> op_;
+  std::string error_;
+};
+
+}  // namespace loadtrim::session
