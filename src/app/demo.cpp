@@ -42,11 +42,14 @@ int demo_one(DemoOptions o) {
     o.req.inprocess_truth = config::load_truth(o.truth);
     return run_new_session(o.req);
   }
+  // Everything is validated before the simulator starts, so bad input is refused with nothing running.
+  config::load_truth(o.truth);
+  o.req.cell_file = data_dir() + "/config/cells/sim-tcp.toml";
+  check_inputs(o.req);
   char scale[32];
   std::snprintf(scale, sizeof scale, "%g", o.time_scale);
   SimLauncher sim({"--truth", o.truth, "--port", "0", "--time-scale", scale});
   std::printf("simulated controller started: pid %d, tcp 127.0.0.1:%u, %s× real time\n", static_cast<int>(sim.pid()), sim.port(), scale);
-  o.req.cell_file = data_dir() + "/config/cells/sim-tcp.toml";
   o.req.port = sim.port();
   return run_new_session(o.req);
 }

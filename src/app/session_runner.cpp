@@ -176,6 +176,8 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     return kRecordFailure;
   }
   if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
+  else std::printf("%s\n", nlohmann::json({{"type", "session_folder"}, {"path", folder}}).dump().c_str());
+  std::fflush(stdout);
   const core::VehicleTarget vehicle = inputs.vehicle;
   session::Session s(std::move(inputs), opt, *c, {&writer, &console}, &g_stop);
   const session::Summary sum = s.run(resume);
@@ -209,6 +211,8 @@ void install_stop_handlers() {
   ::sigaction(SIGTERM, &sa, nullptr);
   ::signal(SIGPIPE, SIG_IGN);
 }
+
+void check_inputs(const RunRequest& req) { load_all(req.cell_file, req.target_file, req.profile, req); }
 
 int run_new_session(const RunRequest& req, std::string* folder_out) {
   Loaded l = load_all(req.cell_file, req.target_file, req.profile, req);  // throws InputError: nothing started

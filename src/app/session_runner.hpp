@@ -28,6 +28,8 @@ struct RunRequest {
   std::optional<physics::Truth> inprocess_truth;  // in-process simulated controller with this truth
 };
 
+// Loads and validates every input of the request (throws config::InputError listing every problem).
+void check_inputs(const RunRequest& req);
 // Loads and validates, asks for confirmation, creates the folder, runs, and returns the exit code.
 int run_new_session(const RunRequest& req, std::string* folder_out = nullptr);
 // Continues the session in `folder` from its log.

@@ -47,4 +47,39 @@ std::string target_toml(const core::VehicleTarget& v, const std::string& header)
   return o;
 }
 
+std::string truth_toml(const physics::Truth& t, const std::string& header) {
+  std::string o = "# " + header + "\n";
+  o += "noise_seed = " + std::to_string(t.noise_seed % 2147483647ULL) + "\n\n[vehicle]\n";
+  const auto& v = t.vehicle;
+  o += "name = " + quoted(v.name) + "\n";
+  auto kv = [&](const char* k, double x) { o += std::string(k) + " = " + num(x) + "\n"; };
+  kv("test_mass_kg", v.test_mass_kg);
+  kv("rotating_mass_on_rollers_kg", v.rotating_mass_on_rollers_kg);
+  kv("tyre_radius_m", v.tyre_radius_m);
+  kv("tyre_loss_flat_n", v.tyre_loss_flat_n);
+  kv("tyre_loss_flat_n_per_kmh", v.tyre_loss_flat_n_per_kmh);
+  kv("drivetrain_loss_n", v.drivetrain_loss_n);
+  kv("drivetrain_loss_n_per_kmh2", v.drivetrain_loss_n_per_kmh2);
+  kv("drivetrain_cold_excess", v.drivetrain_cold_excess);
+  kv("warm_up_time_constant_s", v.warm_up_time_constant_s);
+  kv("cool_down_time_constant_s", v.cool_down_time_constant_s);
+  kv("initial_warmth", v.initial_warmth);
+  kv("brake_drag_n", v.brake_drag_n);
+  kv("hold_bias_n", v.hold_bias_n);
+  o += "\n[dyno]\n";
+  const auto& d = t.dyno;
+  kv("roller_diameter_m", d.roller_diameter_m);
+  kv("base_inertia_kg", d.base_inertia_kg);
+  kv("inertia_simulation_error", d.inertia_simulation_error);
+  kv("parasitic_f0_n", d.parasitic_f0_n);
+  kv("parasitic_f1_n_per_kmh", d.parasitic_f1_n_per_kmh);
+  kv("parasitic_f2_n_per_kmh2", d.parasitic_f2_n_per_kmh2);
+  kv("parasitic_compensation_error", d.parasitic_compensation_error);
+  kv("speed_noise_kmh", d.speed_noise_kmh);
+  kv("force_noise_n", d.force_noise_n);
+  kv("motoring_accel_mps2", d.motoring_accel_mps2);
+  kv("stop_decel_mps2", d.stop_decel_mps2);
+  return o;
+}
+
 }  // namespace loadtrim::config

@@ -39,7 +39,7 @@ struct VehicleTruth {
 
 struct DynoTruth {
   double roller_diameter_m = 1.2192;          // 48 in
-  double base_inertia_kg = 1200.0;            // mechanical inertia of rollers and motor, as equivalent mass
+  double base_inertia_kg = 1250.0;            // mechanical inertia of rollers and motor, as equivalent mass
   double inertia_simulation_error = 0.0;      // fraction: the simulated inertia is I_set·(1 + this)
   double parasitic_f0_n = 20.0;               // the dyno's own parasitic loss curve
   double parasitic_f1_n_per_kmh = 0.10;

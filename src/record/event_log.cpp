@@ -48,9 +48,12 @@ VerifyResult read_log(const std::string& path, std::vector<nlohmann::json>* reco
       return v;
     }
     if (j["prev"].get<std::string>() != prev) {
-      v.first_bad_record = static_cast<std::int64_t>(n);
-      v.message = "record " + std::to_string(n) + " does not chain to record " + (n ? std::to_string(n - 1) : "(start)") +
-                  ": it or the record before it was altered";
+      // Record n's "prev" does not match record n−1: either record n−1 was altered (the usual case: its content
+      // changed, its own link did not) or record n's link was. The earlier one is named as the first broken record.
+      v.first_bad_record = static_cast<std::int64_t>(n ? n - 1 : 0);
+      v.message = n ? "record " + std::to_string(n - 1) + " was altered (record " + std::to_string(n) +
+                          " no longer chains to it), or record " + std::to_string(n) + "'s link was"
+                    : "record 0 does not start the chain";
       v.records = n;
       return v;
     }

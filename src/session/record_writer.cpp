@@ -14,8 +14,11 @@ namespace loadtrim::session {
 namespace fs = std::filesystem;
 
 RecordWriter::RecordWriter(std::string folder) : folder_(std::move(folder)) {
+  std::error_code ec;
+  fs::create_directories(fs::path(folder_) / "traces", ec);
+  if (ec) error_ = "cannot create " + folder_ + "/traces: " + ec.message();
   log_ = std::make_unique<record::EventLog>((fs::path(folder_) / "events.jsonl").string());
-  if (!log_->error().empty()) error_ = log_->error();
+  if (!log_->error().empty() && error_.empty()) error_ = log_->error();
   try {
     auto sink = std::make_shared<spdlog::sinks::basic_file_sink_mt>((fs::path(folder_) / "operator.log").string(), false);
     op_ = std::make_shared<spdlog::logger>("operator", sink);

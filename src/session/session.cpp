@@ -99,7 +99,7 @@ void Session::transition(State to, const std::string& why) {
 }
 
 Result Session::wait_for(const std::function<bool(const controller::Sample&)>& pred, double budget_s,
-                         std::vector<controller::Sample>* keep, const char* what) {
+                         std::vector<controller::Sample>* keep, const char* what, double since_s) {
   double t_begin = -1.0, last_progress = -1e9;
   std::vector<controller::Sample> got;
   for (;;) {
@@ -107,8 +107,10 @@ Result Session::wait_for(const std::function<bool(const controller::Sample&)>& p
     got.clear();
     if (Result r = c_.receive_samples(got); !r.ok()) return r;
     for (const auto& s : got) {
-      t_now_ = s.time_s;
+      t_now_ = std::max(t_now_, s.time_s);
       if (t_start_ < 0.0) t_start_ = s.time_s;
+      // Samples queued before the command that started this wait belong to the previous phase.
+      if (s.time_s < since_s) continue;
       if (t_begin < 0.0) t_begin = s.time_s;
       if (s.flags & kFaultFlags)
         return Result::fail(std::string("the controller reports a fault (flags ") + std::to_string(s.flags) + ") during " + what);
@@ -130,8 +132,17 @@ Result Session::wait_for(const std::function<bool(const controller::Sample&)>& p
   }
 }
 
+Result Session::command_time(double& t) {
+  controller::StatusReport st;
+  if (Result r = c_.status(st); !r.ok()) return r;
+  t = st.time_s;
+  return Result::success();
+}
+
 Result Session::hold_and_wait(double speed_kmh, const char* what) {
   if (Result r = c_.hold_speed(speed_kmh); !r.ok()) return r;
+  double since = -1e300;
+  if (Result r = command_time(since); !r.ok()) return r;
   // At the setpoint, then 2 s more to settle.
   double reached = -1.0;
   return wait_for(
@@ -140,7 +151,7 @@ Result Session::hold_and_wait(double speed_kmh, const char* what) {
         if (reached < 0.0 && std::abs(s.speed_kmh - speed_kmh) < 0.5) reached = s.time_s;
         return reached >= 0.0 && s.time_s - reached >= 2.0;
       },
-      600.0, nullptr, what);
+      600.0, nullptr, what, since);
 }
 
 std::optional<Session::Stop> Session::fault(const Result& r, const std::string& during) {
@@ -150,6 +161,29 @@ std::optional<Session::Stop> Session::fault(const Result& r, const std::string& 
   }
   emit("fault", {{"during", during}, {"message", r.message}, {"status", controller::to_string(r.status)}, {"code", r.code}});
   return Stop{Outcome::controller_fault, r.message};
+}
+
+bool Session::settle_and_clear(const std::string& when) {
+  // Wait for the rollers to stand still (a watchdog's controlled stop, or ours), then clear a latched fault.
+  controller::StatusReport st;
+  bool stopped = false;
+  for (int i = 0; i < 1200; ++i) {
+    if (!c_.status(st).ok()) return false;
+    t_now_ = std::max(t_now_, st.time_s);
+    if (st.speed_kmh == 0.0 && (st.mode == Mode::idle || st.mode == Mode::controlled_stop)) {
+      stopped = true;
+      break;
+    }
+    if (st.mode == Mode::speed_hold || st.mode == Mode::road_load) c_.controlled_stop();
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  }
+  if (!stopped) return false;
+  if (!st.fault.empty()) {
+    const Result cr = c_.clear_fault();
+    emit("fault_cleared", {{"fault", st.fault}, {"when", when}, {"rollers", "stopped"}, {"ok", cr.ok()}, {"message", cr.message}});
+    if (!cr.ok()) return false;
+  }
+  return true;
 }
 
 bool Session::recover_link(const std::string& why) {
@@ -164,26 +198,11 @@ bool Session::recover_link(const std::string& why) {
     c_.disconnect();
     Result r = c_.connect();
     if (r.ok()) r = c_.identify(info_);
-    if (r.ok()) r = c_.start_stream(opt_.sample_rate_hz);
     emit("reconnect", {{"attempt", attempt}, {"of", policy.attempts}, {"ok", r.ok()}, {"message", r.message}});
     if (!r.ok()) continue;
-    // Wait for the rollers to stand still (the watchdog's controlled stop), then clear its fault.
-    controller::StatusReport st;
-    for (int i = 0; i < 600; ++i) {
-      if (!c_.status(st).ok()) break;
-      t_now_ = std::max(t_now_, st.time_s);
-      if (st.speed_kmh == 0.0 && (st.mode == Mode::idle || st.mode == Mode::controlled_stop)) break;
-      if (st.mode == Mode::speed_hold || st.mode == Mode::road_load) {
-        c_.controlled_stop();
-      }
-      c_.heartbeat_if_due();
-      std::this_thread::sleep_for(std::chrono::milliseconds(50));
-    }
-    if (!st.fault.empty()) {
-      const Result cr = c_.clear_fault();
-      emit("fault_cleared", {{"fault", st.fault}, {"ok", cr.ok()}, {"message", cr.message}});
-      if (!cr.ok()) continue;
-    }
+    // Settle first, stream after: no stale samples from the stopping rollers reach the next wait.
+    if (!settle_and_clear("after the lost link")) continue;
+    if (!c_.start_stream(opt_.sample_rate_hz).ok()) continue;
     link_up_ = true;
     emit("link_restored", {{"attempt", attempt}, {"rollers", "stopped"}});
     return true;
@@ -210,6 +229,13 @@ std::optional<Session::Stop> Session::do_connect() {
     for (const auto& p : mismatch) msg += (msg.empty() ? "" : "; ") + p.key + ": " + p.message;
     emit("refused", {{"why", msg}});
     return Stop{Outcome::refused, "controller does not match the cell file: " + msg};
+  }
+  // A fault latched before we came (a watchdog stop after a lost tool): only with the rollers stopped is it cleared.
+  controller::StatusReport st;
+  if (r = c_.status(st); !r.ok()) return fault(r, "status");
+  if (!st.fault.empty() || st.speed_kmh != 0.0) {
+    emit("controller_state_on_connect", {{"fault", st.fault}, {"speed_kmh", st.speed_kmh}, {"mode", controller::to_string(st.mode)}});
+    if (!settle_and_clear("on connect")) return fault(Result::fail("the controller did not reach a stopped, fault-free state"), "connect");
   }
   if (r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "start stream");
   link_up_ = true;
@@ -378,6 +404,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
   if (Result r = c_.release_road_load(); !r.ok()) return link_or_fault(r, "release");
   std::vector<controller::Sample> trace;
   const double end = p.end_speed_kmh();
+  // The run-up wait consumed everything before the release, so the road-load samples from here on are this coast.
   Result r = wait_for(
       [&](const controller::Sample& s) { return s.mode == Mode::road_load && s.speed_kmh < end; }, 1800.0, &trace,
       "coast-down");

@@ -149,9 +149,11 @@ class Session {
   bool stop_requested() const { return stop_flag_ && stop_flag_->load(); }
   // Streams until pred(sample) or the controller-time budget runs out; samples go to `keep` when given.
   controller::Result wait_for(const std::function<bool(const controller::Sample&)>& pred, double budget_s,
-                              std::vector<controller::Sample>* keep, const char* what);
+                              std::vector<controller::Sample>* keep, const char* what, double since_s = -1e300);
+  controller::Result command_time(double& t);  // the controller's clock now (from a STATUS reply)
   controller::Result hold_and_wait(double speed_kmh, const char* what);
   bool recover_link(const std::string& why);
+  bool settle_and_clear(const std::string& when);
 
   std::optional<Stop> do_connect();
   std::optional<Stop> do_check_limits();

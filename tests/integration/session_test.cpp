@@ -1,0 +1,329 @@
+// End-to-end setting sessions against the simulated controller process over TCP: a fleet of real EPA targets
+// with randomised truths under both methods, kill -9 and resume, a dropped link, interruption, tampering, and
+// bad input refused before anything moves.
+#include <gtest/gtest.h>
+#include <signal.h>
+
+#include <filesystem>
+#include <fstream>
+#include <random>
+#include <thread>
+
+#include "config/cell_loader.hpp"
+#include "config/epa_csv.hpp"
+#include "config/loaders.hpp"
+#include "config/target_writer.hpp"
+#include "line/line_controller.hpp"
+#include "physics/truth_generator.hpp"
+#include "record/event_log.hpp"
+#include "registry.hpp"
+#include "session/record_writer.hpp"
+#include "session/session.hpp"
+#include "support/child_process.hpp"
+#include "support/sim_process.hpp"
+
+using namespace loadtrim;
+namespace fs = std::filesystem;
+using loadtrim::testing::ChildProcess;
+using loadtrim::testing::run_command;
+using loadtrim::testing::SimProcess;
+
+namespace {
+const std::string kSrc = LOADTRIM_SOURCE_DIR;
+const std::string kExe = LOADTRIM_EXE;
+
+std::string temp_dir(const std::string& tag) {
+  std::string t = (fs::temp_directory_path() / ("loadtrim-" + tag + "-XXXXXX")).string();
+  if (!::mkdtemp(t.data())) throw std::runtime_error("mkdtemp failed");
+  return t;
+}
+
+void write(const std::string& path, const std::string& text) {
+  std::ofstream(path) << text;
+}
+
+std::string cell_text(unsigned port, const std::string& axles, double rate_hz, int reconnect_delay_ms = 500) {
+  return "name = \"test cell (invented)\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport = " +
+         std::to_string(port) + "\nsample_rate_hz = " + std::to_string(rate_hz) +
+         "\n[timeouts]\nconnect_ms = 3000\nreply_ms = 1000\nsample_gap_ms = 1000\nheartbeat_interval_ms = 100\n"
+         "[reconnect]\nattempts = 3\ndelay_ms = " + std::to_string(reconnect_delay_ms) +
+         "\n[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 7200.0\n"
+         "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"" + axles + "\"\n";
+}
+
+std::vector<nlohmann::json> records(const std::string& folder) {
+  std::vector<nlohmann::json> r;
+  const auto v = record::read_log(folder + "/events.jsonl", &r);
+  EXPECT_TRUE(v.ok) << v.message;
+  return r;
+}
+
+int count(const std::vector<nlohmann::json>& rs, const std::string& type) {
+  int n = 0;
+  for (const auto& r : rs) n += r.value("type", "") == type;
+  return n;
+}
+
+// The i-th plausible EPA row in a seeded shuffle, the same for both methods.
+config::EpaRow epa_row(int i) {
+  static const config::EpaFile f = config::read_epa_csv(kSrc + "/samples/data/epa_test_car_roadload_MY2016_2019.csv");
+  static std::vector<std::size_t> order = [] {
+    std::vector<std::size_t> o(f.rows.size());
+    std::iota(o.begin(), o.end(), 0);
+    std::mt19937_64 rng(7);
+    std::shuffle(o.begin(), o.end(), rng);
+    std::vector<std::size_t> keep;
+    for (auto k : o)
+      if (!core::has_errors(core::plausibility(config::target_from_epa(f.rows[k], "p")))) keep.push_back(k);
+    return keep;
+  }();
+  return f.rows[order.at(static_cast<std::size_t>(i))];
+}
+}  // namespace
+
+class FleetOverTcp : public ::testing::TestWithParam<std::tuple<std::string, int>> {};
+
+TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
+  const auto [profile_name, i] = GetParam();
+  const core::Profile profile = config::load_profile(kSrc + "/config/profiles/" + profile_name + ".toml");
+  const config::EpaRow row = epa_row(i);
+  core::VehicleTarget v = config::target_from_epa(row, profile.name);
+  const auto layout = v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
+  std::mt19937_64 rng(1000 + static_cast<unsigned>(i));
+  physics::Truth truth = physics::random_truth(v.test_mass_kg, core::resolved_rotating_mass_kg(v, profile.mass), layout, {}, rng);
+  const std::string dir = temp_dir("fleet");
+  write(dir + "/truth.toml", config::truth_toml(truth, "randomised test truth"));
+  SimProcess sim({"--truth", dir + "/truth.toml", "--time-scale", "1000"});
+  session::Inputs in{config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0), "cell.toml"), profile, v};
+  auto c = adapters::make_controller(in.cell);
+  const std::string folder = dir + "/session";
+  fs::create_directories(folder);
+  session::RecordWriter writer(folder);
+  session::Options opt;  // default first setting: the warm-up loss map
+  session::Session s(in, opt, *c, {&writer});
+  const session::Summary sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << row.id << ": " << sum.stop_reason;
+  // The final measured forces within the tolerance (GTR 15 §8.1.3.4.2: ±10 N) at every reference speed.
+  ASSERT_EQ(sum.deviations.size(), profile.reference_speeds_kmh.size());
+  for (const auto& d : sum.deviations) EXPECT_LE(std::abs(d.deviation_n), profile.tolerance_n) << row.id << " at " << d.speed_kmh;
+  EXPECT_TRUE(record::verify_session_folder(folder).ok);
+  if (HasFailure()) std::cerr << "session folder kept for inspection: " << folder << "\n";
+  else fs::remove_all(dir);
+}
+
+INSTANTIATE_TEST_SUITE_P(EpaVehicles, FleetOverTcp,
+                         ::testing::Combine(::testing::Values("wltp-iterative", "wltp-fixed-run"), ::testing::Range(0, 20)),
+                         [](const auto& info) {
+                           std::string n = std::get<0>(info.param) + "_" + std::to_string(std::get<1>(info.param));
+                           for (char& ch : n)
+                             if (ch == '-') ch = '_';
+                           return n;
+                         });
+
+TEST(SessionCli, KillNineMidCoastdownThenResume) {
+  SimProcess sim({"--time-scale", "200", "--watchdog-ms", "500"});
+  const std::string dir = temp_dir("resume");
+  std::string folder;
+  {
+    ChildProcess run({kExe, "run", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()),
+                      "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--json",
+                      "--first-setting", "standard"});
+    bool first_done = false;
+    for (;;) {
+      auto line = run.read_line(std::chrono::seconds(60));
+      ASSERT_TRUE(line) << "the session ended or stalled before its second coast-down";
+      const auto j = nlohmann::json::parse(*line, nullptr, false);
+      if (!j.is_object()) continue;
+      if (j.value("type", "") == "session_folder") folder = j.value("path", "");
+      if (j.value("type", "") == "coastdown") first_done = true;
+      if (first_done && j.value("type", "") == "state" && j.value("to", "") == "coast_down") break;
+    }
+    std::this_thread::sleep_for(std::chrono::milliseconds(300));  // some way into coast-down 2
+    run.signal(SIGKILL);
+    EXPECT_EQ(run.wait(), 128 + SIGKILL);
+  }
+  ASSERT_FALSE(folder.empty());
+  const auto before = records(folder);
+  ASSERT_EQ(count(before, "coastdown"), 1);
+  ASSERT_EQ(count(before, "coastdown_started"), 2);
+  std::string out, err;
+  const int rc = run_command({kExe, "resume", folder, "--unattended", "--rewarm-s", "300", "--quiet"}, &out, &err);
+  EXPECT_EQ(rc, 0) << out << err;
+  const auto after = records(folder);
+  // Nothing before the kill was lost or changed: the old records are a prefix of the new log, chain intact.
+  ASSERT_GT(after.size(), before.size());
+  for (std::size_t k = 0; k < before.size(); ++k) EXPECT_EQ(after[k], before[k]) << k;
+  bool said = false;
+  for (const auto& r : after)
+    if (r.value("type", "") == "resumed") {
+      EXPECT_EQ(r.value("discarded_run", 0), 2);
+      EXPECT_EQ(r.value("completed_coastdowns", 0), 1);
+      said = true;
+    }
+  EXPECT_TRUE(said);
+  std::vector<int> runs;
+  for (const auto& r : after)
+    if (r.value("type", "") == "coastdown") runs.push_back(r.value("run", 0));
+  ASSERT_GE(runs.size(), 2u);
+  EXPECT_EQ(runs[0], 1);
+  EXPECT_EQ(runs[1], 3);  // run 2 was half-recorded and is repeated as run 3
+  EXPECT_EQ(after.back().value("type", ""), "finished");
+  EXPECT_TRUE(after.back().value("accepted", false));
+  const auto v = record::verify_session_folder(folder);
+  EXPECT_TRUE(v.ok) << v.message;
+  fs::remove_all(dir);
+}
+
+TEST(SessionCli, LinkDroppedMidCoastdownIsRepeated) {
+  // The simulator drops the link 40 s into the first coast-down; its watchdog (400 ms) stops the rollers before
+  // the tool reconnects (1.5 s); the run is discarded, the watchdog fault cleared with the rollers stopped, the
+  // vehicle re-warmed and the run repeated.
+  SimProcess sim({"--time-scale", "200", "--watchdog-ms", "400", "--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"});
+  const std::string dir = temp_dir("drop");
+  write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 100.0, 1500));
+  std::string out, err;
+  const int rc = run_command({kExe, "run", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+                              "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "200"},
+                             &out, &err);
+  EXPECT_EQ(rc, 0) << out << err;
+  std::string folder;
+  for (const auto& e : fs::directory_iterator(dir))
+    if (e.is_directory() && e.path().filename() != "history") folder = e.path().string();
+  const auto rs = records(folder);
+  EXPECT_EQ(count(rs, "link_lost"), 1);
+  EXPECT_EQ(count(rs, "link_restored"), 1);
+  EXPECT_EQ(count(rs, "coastdown_discarded"), 1);
+  bool watchdog = false;
+  for (const auto& r : rs)
+    if (r.value("type", "") == "fault_cleared") watchdog = r.value("fault", "") == "WATCHDOG" && r.value("rollers", "") == "stopped";
+  EXPECT_TRUE(watchdog) << "the controller's watchdog should have stopped the rollers";
+  EXPECT_EQ(rs.back().value("type", ""), "finished");
+  EXPECT_TRUE(rs.back().value("accepted", false));
+  EXPECT_TRUE(record::verify_session_folder(folder).ok);
+  fs::remove_all(dir);
+}
+
+TEST(SessionCli, InterruptStopsTheRollersAndSaysSo) {
+  SimProcess sim({"--time-scale", "100"});
+  const std::string dir = temp_dir("sigterm");
+  std::string folder;
+  ChildProcess run({kExe, "run", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
+                    kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--json"});
+  for (;;) {
+    auto line = run.read_line(std::chrono::seconds(60));
+    ASSERT_TRUE(line);
+    const auto j = nlohmann::json::parse(*line, nullptr, false);
+    if (j.is_object() && j.value("type", "") == "session_folder") folder = j.value("path", "");
+    if (j.is_object() && j.value("type", "") == "warm_up_started") break;
+  }
+  run.signal(SIGTERM);
+  EXPECT_EQ(run.wait(), 4);  // README: interrupted
+  const auto rs = records(folder);
+  EXPECT_EQ(count(rs, "interrupted"), 1);
+  bool stopped = false;
+  for (const auto& r : rs)
+    if (r.value("type", "") == "safe_stop") stopped = r.value("rollers_stopped", false);
+  EXPECT_TRUE(stopped);
+  // The controller agrees: rollers at zero, idle.
+  line::LineController c(line::make_tcp_transport("127.0.0.1", sim.port()), {}, {160.0});
+  ASSERT_TRUE(c.connect().ok());
+  controller::StatusReport st;
+  ASSERT_TRUE(c.status(st).ok());
+  EXPECT_EQ(st.speed_kmh, 0.0);
+  EXPECT_EQ(st.mode, controller::Mode::idle);
+  EXPECT_TRUE(record::verify_session_folder(folder).ok);
+  fs::remove_all(dir);
+}
+
+TEST(SessionCli, TamperedRecordOrTraceIsDetected) {
+  const std::string dir = temp_dir("tamper");
+  std::string out, err;
+  ASSERT_EQ(run_command({kExe, "demo", "--in-process", "--sessions", dir, "--quiet"}, &out, &err), 0) << out << err;
+  std::string folder;
+  for (const auto& e : fs::directory_iterator(dir))
+    if (e.is_directory() && e.path().filename() != "history") folder = e.path().string();
+  ASSERT_EQ(run_command({kExe, "verify", folder}, &out), 0) << out;
+  // Alter one character of record 5's content.
+  std::vector<std::string> lines;
+  {
+    std::ifstream in(folder + "/events.jsonl");
+    for (std::string l; std::getline(in, l);) lines.push_back(l);
+  }
+  const std::string original = lines[5];
+  const auto pos = lines[5].find("\"utc\":\"") + 8;
+  lines[5][pos] = lines[5][pos] == '1' ? '2' : '1';
+  auto save = [&] {
+    std::ofstream o(folder + "/events.jsonl");
+    for (const auto& l : lines) o << l << "\n";
+  };
+  save();
+  EXPECT_EQ(run_command({kExe, "verify", folder}, &out), 5) << out;
+  EXPECT_NE(out.find("first broken record: 5"), std::string::npos) << out;
+  lines[5] = original;
+  save();
+  ASSERT_EQ(run_command({kExe, "verify", folder}, &out), 0) << out;
+  // Alter one sample of a trace.
+  {
+    std::string csv;
+    {
+      std::ifstream in(folder + "/traces/run-001.csv");
+      csv.assign(std::istreambuf_iterator<char>(in), {});
+    }
+    const auto at = csv.find_first_of("0123456789", 200);
+    csv[at] = csv[at] == '7' ? '8' : '7';
+    std::ofstream(folder + "/traces/run-001.csv") << csv;
+  }
+  EXPECT_EQ(run_command({kExe, "verify", folder}, &out), 5) << out;
+  EXPECT_NE(out.find("traces/run-001.csv does not match"), std::string::npos) << out;
+  fs::remove_all(dir);
+}
+
+TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
+  // Nothing listens on the port: a tool that tried to connect would fail with code 3, not 2.
+  const std::string dir = temp_dir("bad");
+  write(dir + "/cell.toml", cell_text(9, "single-axle", 100.0));
+  std::string slow = cell_text(9, "single-axle", 100.0);
+  slow.replace(slow.find("max_speed_kmh = 160.0"), 21, "max_speed_kmh = 130.0");
+  write(dir + "/slow-cell.toml", slow);
+  std::string base;
+  {
+    std::ifstream in(kSrc + "/samples/targets/demo-hatchback.toml");
+    base.assign(std::istreambuf_iterator<char>(in), {});
+  }
+  auto variant = [&](const std::string& name, const std::string& from, const std::string& to) {
+    std::string t = base;
+    t.replace(t.find(from), from.size(), to);
+    write(dir + "/" + name, t);
+    return dir + "/" + name;
+  };
+  struct Case { std::string cell, target, must; };
+  const Case cases[] = {
+      // F2 given per (m/s)² instead of per (km/h)²: 0.033 × 3.6² = 0.428.
+      {dir + "/cell.toml", variant("units.toml", "f2_n_per_kmh2 = 0.03300", "f2_n_per_kmh2 = 0.428"),
+       "units.toml: error: target.f2_n_per_kmh2 (line 16): is 0.428, allowed 0 to 0.2 N/(km/h)²"},
+      {dir + "/cell.toml", variant("missing.toml", "test_mass_kg = 1470.0\n", ""),
+       "missing.toml: error: vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"},
+      {dir + "/cell.toml", variant("slowcar.toml", "max_speed_kmh = 185.0", "max_speed_kmh = 135.0"),
+       "slowcar.toml: error: vehicle.max_speed_kmh: is 135 km/h; the profile's start speed 142 km/h must be below it"},
+      {dir + "/slow-cell.toml", kSrc + "/samples/targets/demo-hatchback.toml",
+       "slow-cell.toml: error: limits.max_speed_kmh: is 130 km/h; the profile's start speed 142 km/h"},
+  };
+  for (const auto& c : cases) {
+    std::string out, err;
+    const int rc = run_command({kExe, "run", "--cell", c.cell, "--target", c.target, "--sessions", dir + "/sessions", "--unattended"},
+                               &out, &err);
+    EXPECT_EQ(rc, 2) << err;
+    EXPECT_NE(err.find(c.must), std::string::npos) << "expected: " << c.must << "\ngot: " << err;
+    EXPECT_NE(err.find("refused: nothing was started"), std::string::npos) << err;
+    EXPECT_FALSE(fs::exists(dir + "/sessions")) << "a session folder was created";
+  }
+  // Without a terminal and without --unattended, the rollers are not motored.
+  std::string out, err;
+  EXPECT_EQ(run_command({kExe, "run", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+                         "--sessions", dir + "/sessions"},
+                        &out, &err),
+            2);
+  EXPECT_NE(err.find("refusing to motor the rollers"), std::string::npos) << err;
+  EXPECT_FALSE(fs::exists(dir + "/sessions"));
+  fs::remove_all(dir);
+}

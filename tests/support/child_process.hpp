@@ -1,0 +1,36 @@
+// A child process with its stdout on a pipe, for tests that drive the loadtrim command itself.
+#pragma once
+
+#include <chrono>
+#include <optional>
+#include <string>
+#include <sys/types.h>
+#include <vector>
+
+namespace loadtrim::testing {
+
+class ChildProcess {
+ public:
+  explicit ChildProcess(std::vector<std::string> argv);
+  ~ChildProcess();  // SIGKILL and reap if still running
+  ChildProcess(const ChildProcess&) = delete;
+  ChildProcess& operator=(const ChildProcess&) = delete;
+  // The next stdout line, or nullopt at end of output or after the timeout.
+  std::optional<std::string> read_line(std::chrono::milliseconds timeout);
+  void signal(int sig);
+  // Waits for the exit; the exit code, or 128 + signal.
+  int wait();
+  pid_t pid() const { return pid_; }
+
+ private:
+  pid_t pid_ = -1;
+  int out_ = -1;
+  std::string buffer_;
+  bool reaped_ = false;
+  int status_ = 0;
+};
+
+// Runs a command to completion; returns the exit code and fills stdout/stderr.
+int run_command(const std::vector<std::string>& argv, std::string* out = nullptr, std::string* err = nullptr);
+
+}  // namespace loadtrim::testing
