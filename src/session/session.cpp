@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <future>
 #include <thread>
 
 #include "core/predict.hpp"
@@ -388,7 +389,9 @@ std::optional<Session::Stop> Session::do_run(int run) {
   };
   transition(State::write_set, "coast-down " + std::to_string(run));
   if (Result r = c_.set_coefficients(set_); !r.ok()) return link_or_fault(r, "write set");
-  if (!emit("set_written", {{"run", run}, {"set", coefficients_json(set_)}, {"read_back", "matches"}}))
+  if (!last_written_ || !(*last_written_ == set_)) ++iterations_;
+  last_written_ = set_;
+  if (!emit("set_written", {{"run", run}, {"set", coefficients_json(set_)}, {"read_back", "matches"}, {"iteration", iterations_}}))
     return Stop{Outcome::record_failure, record_error_};
   if (t_motoring_from_ >= 0.0 && t_now_ - t_motoring_from_ > in_.cell.max_motoring_s)
     return Stop{Outcome::not_accepted, "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) + " s was reached"};
@@ -441,7 +444,17 @@ std::optional<Session::Stop> Session::do_run(int run) {
   rec.duration_s = trace.empty() ? 0.0 : trace.back().time_s - trace.front().time_s;
   rec.run_up_s = run_up_s;
   rec.verifying = method_->verifying();
-  rec.evaluation = core::evaluate_coastdown({ts, vs}, p, in_.vehicle.target, force_mass_kg_);
+  {
+    // The analysis (the whole-trace fit above all) runs on a worker thread while this one keeps the link alive:
+    // the controller's watchdog must never see the tool fall silent while the vehicle turns.
+    auto job = std::async(std::launch::async, [&] { return core::evaluate_coastdown({ts, vs}, p, in_.vehicle.target, force_mass_kg_); });
+    while (job.wait_for(std::chrono::milliseconds(20)) != std::future_status::ready)
+      if (Result hb = c_.heartbeat_if_due(); !hb.ok()) {
+        rec.evaluation = job.get();
+        return link_or_fault(hb, "analysis");
+      }
+    rec.evaluation = job.get();
+  }
   ++coastdowns_;
   if (!rec.evaluation.usable) {
     ++unusable_;
@@ -605,6 +618,7 @@ Summary Session::run(const ResumePoint* resume) {
   Summary s;
   s.outcome = stop->outcome;
   s.stop_reason = stop->reason;
+  s.iterations = iterations_;
   s.coastdowns = coastdowns_;
   s.usable_coastdowns = coastdowns_ - (unusable_ - discarded_);
   s.cell_time_s = t_start_ >= 0.0 ? cell_time_before_ + t_now_ - t_start_ : cell_time_before_;

@@ -26,7 +26,9 @@
 //
 // A lost link inside a run discards that run: reconnect within the cell's policy, wait for the rollers to stop,
 // clear the watchdog fault, re-warm if needed and repeat the run. Everything is timed from the controller's
-// sample timestamps. Threading: run() blocks the calling thread; the stop flag may be set from a signal handler.
+// sample timestamps. Threading: run() blocks the calling thread, which alone drives the controller; each
+// coast-down's analysis runs on a worker thread meanwhile so heartbeats go on. The stop flag may be set from a
+// signal handler.
 #pragma once
 
 #include <atomic>
@@ -121,6 +123,7 @@ struct ResumePoint {
 struct Summary {
   Outcome outcome = Outcome::not_accepted;
   std::string stop_reason;
+  int iterations = 0;  // distinct settings tried
   int coastdowns = 0;
   int usable_coastdowns = 0;
   double cell_time_s = 0.0;
@@ -177,7 +180,8 @@ class Session {
   core::RoadLoad set_;
   std::unique_ptr<core::SettingMethodState> method_;
   std::vector<core::HoldPoint> loss_map_;
-  int coastdowns_ = 0, unusable_ = 0, discarded_ = 0, link_losses_ = 0;
+  int coastdowns_ = 0, unusable_ = 0, discarded_ = 0, link_losses_ = 0, iterations_ = 0;
+  std::optional<core::RoadLoad> last_written_;
   std::string first_setting_;
   std::optional<CoastdownRecord> last_;
   std::optional<core::RoadLoad> final_set_;

@@ -69,6 +69,7 @@ nlohmann::json to_json(const Summary& s) {
   nlohmann::json j = {{"result", to_string(s.outcome)},
                       {"accepted", s.outcome == Outcome::accepted},
                       {"stop_reason", s.stop_reason},
+                      {"iterations", s.iterations},
                       {"coastdowns", s.coastdowns},
                       {"usable_coastdowns", s.usable_coastdowns},
                       {"cell_time_s", s.cell_time_s},
