@@ -10,6 +10,7 @@
 #include <string_view>
 #include <vector>
 
+#include "controller/controller.hpp"
 #include "line/line_protocol.hpp"
 #include "physics/roller_model.hpp"
 
@@ -37,10 +38,31 @@ struct SimSettings {
   FaultPlan faults;
 };
 
+// A refusal by the simulated controller: the protocol's error code and a short text.
+struct SimError {
+  line::ErrorCode code;
+  std::string text;
+};
+
 class SimController {
  public:
   SimController(const physics::Truth& truth, SimSettings settings);
 
+  // The typed core: what any front end (the line protocol, a direct in-process adapter) calls.
+  std::optional<SimError> hello(int version);
+  controller::ControllerInfo info() const;
+  std::optional<SimError> set_inertia(double kg);
+  std::optional<SimError> set_coefficients(const core::RoadLoad& c);
+  std::optional<SimError> command(controller::Mode mode, double hold_kmh);
+  std::optional<SimError> stream(double rate_hz);
+  std::optional<SimError> clear();
+  controller::StatusReport status() const;
+  void touch(double wall_s) { last_request_wall_s_ = wall_s; }  // a sign of life from the tool
+  // Advances simulated time; samples at the stream rate and fault events ("FAULT kind=... detail=...") appended.
+  void advance_typed(double sim_dt_s, std::vector<controller::Sample>& samples, std::vector<std::string>& events);
+  void check_watchdog_typed(double wall_s, std::vector<std::string>& events);
+
+  // The line-protocol front end over the typed core.
   // A request line in (without '\n'); the encoded reply lines are appended to out.
   void on_line(std::string_view line, double wall_s, std::vector<std::string>& out);
   // Advances simulated time, appending SMP (and EVT) lines at the stream rate.
@@ -61,7 +83,8 @@ class SimController {
   void reply_ok(std::uint32_t req, const std::string& verb, std::vector<std::string> fields, std::vector<std::string>& out);
   void reply_err(std::uint32_t req, line::ErrorCode code, const std::string& text, std::vector<std::string>& out);
   void send(line::Message m, std::vector<std::string>& out);
-  void latch_fault(const std::string& kind, const std::string& detail, std::vector<std::string>& out);
+  void latch_fault(const std::string& kind, const std::string& detail, std::vector<std::string>& events);
+  void send_events(const std::vector<std::string>& events, std::vector<std::string>& out);
   std::string wire_mode() const;
   std::uint32_t flags() const;
 
