@@ -24,6 +24,7 @@ int main(int argc, char** argv) {
   register_demo(app, run);
   register_link_check(app, run);
   register_session_commands(app, run);
+  register_bench(app, run);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {

@@ -14,5 +14,6 @@ using Runner = std::function<int()>;
 void register_demo(CLI::App& app, Runner& run);
 void register_link_check(CLI::App& app, Runner& run);
 void register_session_commands(CLI::App& app, Runner& run);
+void register_bench(CLI::App& app, Runner& run);
 
 }  // namespace loadtrim::app

@@ -298,7 +298,19 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   const auto& w = in_.profile.warm_up;
   if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
   t_motoring_from_ = t_now_;
-  emit("warm_up_started", {{"speed_kmh", w.speed_kmh}, {"duration_s", duration_s}});
+  // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned time
+  // (ramps at the motoring rate, settle and average at each speed).
+  double map_s = 0.0;
+  if (measure_loss_map && info_.has("hold-force")) {
+    double v_prev = w.speed_kmh;
+    for (double v : in_.profile.loss_map.speeds_kmh)
+      if (v <= speed_limit_kmh_ - 1.0) {
+        map_s += std::abs(v - v_prev) / (3.6 * 1.5) + 2.0 + in_.profile.loss_map.settle_s + in_.profile.loss_map.average_s;
+        v_prev = v;
+      }
+  }
+  duration_s = std::max(0.0, duration_s - map_s);
+  emit("warm_up_started", {{"speed_kmh", w.speed_kmh}, {"duration_s", duration_s}, {"loss_map_planned_s", map_s}});
   const double t0 = t_now_;
   // Hold for the time, keeping the load-cell force of the last stability window.
   std::vector<double> window_means;
@@ -447,7 +459,10 @@ std::optional<Session::Stop> Session::do_run(int run) {
   {
     // The analysis (the whole-trace fit above all) runs on a worker thread while this one keeps the link alive:
     // the controller's watchdog must never see the tool fall silent while the vehicle turns.
-    auto job = std::async(std::launch::async, [&] { return core::evaluate_coastdown({ts, vs}, p, in_.vehicle.target, force_mass_kg_); });
+    core::EvaluationOptions eo;
+    eo.whole_trace = opt_.whole_trace_estimator;
+    auto job = std::async(std::launch::async,
+                          [&] { return core::evaluate_coastdown({ts, vs}, p, in_.vehicle.target, force_mass_kg_, eo); });
     while (job.wait_for(std::chrono::milliseconds(20)) != std::future_status::ready)
       if (Result hb = c_.heartbeat_if_due(); !hb.ok()) {
         rec.evaluation = job.get();

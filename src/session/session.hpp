@@ -62,6 +62,7 @@ struct Options {
   double sample_rate_hz = 100.0;
   double resume_warm_up_s = -1.0;                 // warm-up after a resume; < 0: the profile's full warm-up
   std::string operator_note;
+  bool whole_trace_estimator = true;             // the independent estimate beside the band method (benchmarks may skip it)
 };
 
 // What the session hands its observers. `trace` is set on "coastdown" events only.
