@@ -20,6 +20,7 @@ using core::num;
 
 namespace {
 constexpr int kInterruptedCode = -2;
+constexpr int kTooSlowCode = -3;
 constexpr std::uint32_t kFaultFlags = controller::kFlagFault | controller::kFlagEstop | controller::kFlagWatchdog;
 }  // namespace
 
@@ -129,7 +130,7 @@ Result Session::wait_for(const std::function<bool(const controller::Sample&)>& p
       if (pred(s)) return Result::success();
     }
     if (t_begin >= 0.0 && t_now_ - t_begin > budget_s)
-      return Result::fail(std::string(what) + " did not complete within " + num(budget_s) + " s of controller time");
+      return Result::fail(std::string(what) + " did not complete within " + num(budget_s) + " s of controller time", kTooSlowCode);
   }
 }
 
@@ -419,10 +420,27 @@ std::optional<Session::Stop> Session::do_run(int run) {
   if (Result r = c_.release_road_load(); !r.ok()) return link_or_fault(r, "release");
   std::vector<controller::Sample> trace;
   const double end = p.end_speed_kmh();
+  // A coast that takes three times the target's predicted time (or 5 min, whichever is longer) means the set load
+  // plus the vehicle's loss leaves too little retarding force: the dyno is nearly driving the car.
+  const double predicted = core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end).value_or(300.0);
+  const double budget = std::max(300.0, 3.0 * predicted);
   // The run-up wait consumed everything before the release, so the road-load samples from here on are this coast.
   Result r = wait_for(
-      [&](const controller::Sample& s) { return s.mode == Mode::road_load && s.speed_kmh < end; }, 1800.0, &trace,
+      [&](const controller::Sample& s) { return s.mode == Mode::road_load && s.speed_kmh < end; }, budget, &trace,
       "coast-down");
+  if (r.code == kTooSlowCode) {
+    // Leave road-load simulation at once, count the run unusable and fall back to the standard's default setting.
+    if (Result h = c_.hold_speed(std::max(10.0, end)); !h.ok()) return link_or_fault(h, "after a too slow coast-down");
+    ++unusable_;
+    ++discarded_;
+    const core::RoadLoad fallback = core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial);
+    emit("coastdown_discarded", {{"run", run}, {"why", r.message + ": too little retarding force with this setting"},
+                                 {"next_set", coefficients_json(fallback)}, {"note", "falling back to the standard's default setting"}});
+    set_ = fallback;
+    if (unusable_ >= p.max_unusable_runs)
+      return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) + ")"};
+    return std::nullopt;
+  }
   if (!r.ok()) return link_or_fault(r, "coast-down");
   // Keep only the road-load part (samples queued before the release still say HOLD).
   trace.erase(std::remove_if(trace.begin(), trace.end(), [](const controller::Sample& s) { return s.mode != Mode::road_load; }),

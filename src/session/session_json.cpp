@@ -98,6 +98,10 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
       pending = r.at("run").get<int>();
     } else if (type == "coastdown_discarded") {
       pending.reset();
+      if (r.contains("next_set")) {
+        p.next_set = coefficients_from_json(r.at("next_set"));
+        p.have_next_set = true;
+      }
     } else if (type == "coastdown") {
       pending.reset();
       p.completed.push_back(r);
