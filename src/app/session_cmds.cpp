@@ -6,6 +6,7 @@
 #include "app/session_runner.hpp"
 #include "app/subcommands.hpp"
 #include "record/event_log.hpp"
+#include "report/report.hpp"
 
 namespace loadtrim::app {
 
@@ -42,6 +43,32 @@ void register_session_commands(CLI::App& app, Runner& run) {
   res->add_option("folder", *folder, "the session folder")->required();
   output_options(res, *rreq);
   res->callback([rreq, folder, &run] { run = [rreq, folder] { return resume_session(*folder, *rreq); }; });
+
+  auto rfolder = std::make_shared<std::string>();
+  auto pdf = std::make_shared<bool>(false);
+  auto* rep = app.add_subcommand("report", "write the HTML report and CSV exports of a session folder (and a PDF)");
+  rep->add_option("folder", *rfolder, "the session folder")->required();
+  rep->add_flag("--pdf", *pdf, "also print report.pdf with headless Chromium (Debian package chromium)");
+  rep->callback([rfolder, pdf, &run] {
+    run = [rfolder, pdf] {
+      const report::ReportFiles r = report::write_report(*rfolder, LOADTRIM_VERSION);
+      if (!r.ok) {
+        std::fprintf(stderr, "loadtrim: %s\n", r.error.c_str());
+        return static_cast<int>(kRecordFailure);
+      }
+      std::printf("report: %s\ncsv: %s, %s\n", r.html.c_str(), r.coefficients_csv.c_str(), r.deviations_csv.c_str());
+      if (!r.chain_ok) std::printf("note: the log chain is broken; the report says so on its first page\n");
+      if (*pdf) {
+        std::string err;
+        if (!report::print_pdf(*rfolder, err)) {
+          std::fprintf(stderr, "loadtrim: %s\n", err.c_str());
+          return static_cast<int>(kRecordFailure);
+        }
+        std::printf("pdf: %s/report.pdf\n", rfolder->c_str());
+      }
+      return static_cast<int>(kAccepted);
+    };
+  });
 
   auto vfolder = std::make_shared<std::string>();
   auto* ver = app.add_subcommand("verify", "verify a session folder's log chain and recorded file hashes");

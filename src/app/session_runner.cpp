@@ -16,6 +16,7 @@
 #include "config/loaders.hpp"
 #include "record/event_log.hpp"
 #include "record/session_folder.hpp"
+#include "report/report.hpp"
 #include "registry.hpp"
 #include "session/record_writer.hpp"
 
@@ -166,6 +167,13 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   const std::string hfile = history_file(hdir, inputs.cell, inputs.vehicle);
   opt.history = load_history(hfile);
   started["confirmation"] = confirmation;
+  const auto& tv = inputs.vehicle;
+  started["target"] = {{"f0_n", tv.target.f0_n}, {"f1_n_per_kmh", tv.target.f1_n_per_kmh}, {"f2_n_per_kmh2", tv.target.f2_n_per_kmh2}};
+  started["vehicle_description"] = tv.description;
+  started["test_mass_kg"] = tv.test_mass_kg;
+  started["standard"] = inputs.profile.standard;
+  started["tolerance_n"] = inputs.profile.tolerance_n;
+  started["reference_speeds_kmh"] = inputs.profile.reference_speeds_kmh;
   started["software"] = {{"version", LOADTRIM_VERSION}, {"build", LOADTRIM_BUILD_ID}};
   started["operator_note"] = req.note;
   started["first_setting_requested"] = req.first_setting;
@@ -183,6 +191,10 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   const session::Summary sum = s.run(resume);
   c->disconnect();
   if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder);
+  // Every session ends with its report (from the record alone, so it shows what an auditor would see).
+  const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION);
+  if (!rep.ok) std::cerr << "loadtrim: report not written: " << rep.error << "\n";
+  else if (req.console == session::Console::Mode::normal) std::printf("report: %s\n", rep.html.c_str());
   if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
   if (sum.outcome == session::Outcome::record_failure)
     std::cerr << "loadtrim: record failure: " << writer.error() << " (every record before it is intact in " << folder << ")\n";
