@@ -6,10 +6,11 @@
 #include "physics/roller_model.hpp"
 #include "inprocess/loopback_transport.hpp"
 #include "line/line_controller.hpp"
+#include "modbus/modbus_controller.hpp"
 
 namespace loadtrim::adapters {
 
-std::vector<std::string> names() { return {"line-tcp", "line-serial", "inprocess-sim"}; }
+std::vector<std::string> names() { return {"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim"}; }
 
 std::unique_ptr<controller::Controller> make_controller(const controller::CellConfig& cell) {
   const controller::Limits limits{cell.max_speed_kmh};
@@ -27,6 +28,7 @@ std::unique_ptr<controller::Controller> make_controller(const controller::CellCo
     s.data_bits = cell.serial.data_bits;
     return std::make_unique<line::LineController>(line::make_serial_transport(s), cell.timeouts, limits);
   }
+  if (cell.adapter == "modbus-tcp" || cell.adapter == "modbus-rtu") return std::make_unique<modbus::ModbusController>(cell);
   if (cell.adapter == "inprocess-sim") return make_inprocess_controller(cell, config::load_truth(cell.inprocess_truth));
   throw std::invalid_argument("unknown controller adapter \"" + cell.adapter + "\"");
 }

@@ -12,15 +12,43 @@ std::chrono::milliseconds ms(TomlReader& r, const char* key, double fallback, do
   return std::chrono::milliseconds(static_cast<long long>(r.number_or(key, fallback, lo, hi, "ms")));
 }
 
+}  // namespace
+
+modbus::RegisterMap read_register_map(TomlReader& r) {
+  modbus::RegisterMap m;
+  m.unit_id = r.integer_or("modbus.unit_id", 1, 0, 247);
+  m.poll_rate_hz = r.number_or("modbus.poll_rate_hz", 50.0, 1.0, 1000.0, "Hz");
+  for (std::size_t i = 0; i < modbus::kQuantities.size(); ++i) {
+    const std::string k = std::string("modbus.") + modbus::kQuantities[i].name;
+    if (!r.has(k)) continue;
+    modbus::Register& reg = m.regs[i];
+    reg.present = true;
+    const std::string table = r.choice(k + ".table", {"holding", "input", "coil"});
+    reg.table = table == "input" ? modbus::Table::input : table == "coil" ? modbus::Table::coil : modbus::Table::holding;
+    reg.address = r.integer_or(k + ".address", -1, 0, 65535);
+    if (!r.has(k + ".address")) r.error(k + ".address", "is missing, allowed 0 to 65535");
+    const std::string type = r.choice(k + ".type", {"int16", "uint16", "int32", "uint32", "float32"});
+    reg.type = type == "int16" ? modbus::Type::int16 : type == "uint16" ? modbus::Type::uint16 : type == "int32" ? modbus::Type::int32
+             : type == "uint32" ? modbus::Type::uint32 : modbus::Type::float32;
+    reg.order = r.choice(k + ".word_order", {"big", "little"}, std::string("big")) == "little" ? modbus::WordOrder::little : modbus::WordOrder::big;
+    reg.scale = r.number_or(k + ".scale", 1.0, -1e9, 1e9, "");
+    reg.unit = r.string_or(k + ".unit", "");
+  }
+  r.add(modbus::validate(m));
+  return m;
+}
+
+namespace {
+
 controller::CellConfig read_cell(TomlReader& r) {
   controller::CellConfig c;
   c.name = r.string("name");
-  c.adapter = r.choice("controller.adapter", {"line-tcp", "line-serial", "inprocess-sim"});
-  if (c.adapter == "line-tcp") {
+  c.adapter = r.choice("controller.adapter", {"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim"});
+  if (c.adapter == "line-tcp" || c.adapter == "modbus-tcp") {
     c.host = r.string_or("controller.host", "127.0.0.1");
     c.port = static_cast<unsigned>(r.integer_or("controller.port", 0, 1, 65535));
     if (!r.has("controller.port")) r.error("controller.port", "is missing, allowed 1 to 65535");
-  } else if (c.adapter == "line-serial") {
+  } else if (c.adapter == "line-serial" || c.adapter == "modbus-rtu") {
     c.serial.device = r.string("controller.device");
     c.serial.baud = static_cast<unsigned>(r.integer_or("controller.baud", 115200, 1200, 4000000));
     c.serial.parity = r.choice("controller.parity", {"none", "odd", "even"}, std::string("none"));
@@ -48,10 +76,27 @@ controller::CellConfig read_cell(TomlReader& r) {
   c.base_inertia_tolerance_kg = r.number_or("dyno.base_inertia_tolerance_kg", 5.0, 0.0, 500.0, "kg");
   core::parse(r.choice("dyno.axles", {"single-axle", "two-axle"}), c.axles);
   c.sample_rate_hz = r.number_or("controller.sample_rate_hz", 100.0, 10.0, 1000.0, "Hz");
+  if (c.adapter.rfind("modbus", 0) == 0) c.register_map = read_register_map(r);
   return c;
 }
 
 }  // namespace
+
+modbus::RegisterMap load_register_map(const std::string& path, core::Problems* w) {
+  TomlReader r = TomlReader::from_file(path);
+  auto m = read_register_map(r);
+  // Only the map is read here: the rest of the file is the cell's business, not unknown keys.
+  core::Problems ws;
+  try {
+    ws = r.finish();
+  } catch (...) {
+    throw;
+  }
+  if (w)
+    for (const auto& p : ws)
+      if (p.key.rfind("modbus", 0) == 0) w->push_back(p);
+  return m;
+}
 
 controller::CellConfig load_cell(const std::string& path, core::Problems* w) {
   TomlReader r = TomlReader::from_file(path);

@@ -9,6 +9,10 @@
 namespace loadtrim::config {
 
 controller::CellConfig load_cell(const std::string& path, core::Problems* warnings = nullptr);
+// The [modbus] register map of a file (a cell file); the simulated controller serves the same map.
+modbus::RegisterMap load_register_map(const std::string& path, core::Problems* warnings = nullptr);
+class TomlReader;
+modbus::RegisterMap read_register_map(TomlReader& r);
 controller::CellConfig parse_cell(const std::string& text, const std::string& name, core::Problems* warnings = nullptr);
 
 }  // namespace loadtrim::config

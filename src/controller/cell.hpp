@@ -8,6 +8,7 @@
 #include "controller/controller.hpp"
 #include "core/problem.hpp"
 #include "core/profile.hpp"
+#include "modbus/register_map.hpp"
 
 namespace loadtrim::controller {
 
@@ -26,7 +27,7 @@ struct SerialConfig {
 
 struct CellConfig {
   std::string name;
-  std::string adapter;  // "line-tcp", "line-serial", "inprocess-sim" (see dyno-adapters/registry.hpp)
+  std::string adapter;  // "line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim" (dyno-adapters/registry.hpp)
   std::string host = "127.0.0.1";
   unsigned port = 0;
   SerialConfig serial;
@@ -42,6 +43,7 @@ struct CellConfig {
   double base_inertia_tolerance_kg = 5.0;
   core::AxleLayout axles = core::AxleLayout::single_axle;
   double sample_rate_hz = 100.0;
+  modbus::RegisterMap register_map;  // modbus-* adapters
 };
 
 // What the controller reports against what the cell file says: problems with key "dyno.*" when they differ.

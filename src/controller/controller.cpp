@@ -69,9 +69,6 @@ Result Controller::identify(ControllerInfo& out) {
   return guarded("identify", [&] { return do_identify(out, reply_deadline()); });
 }
 
-namespace {
-bool same(double a, double b) { return std::abs(a - b) <= 1e-9 * std::max({1.0, std::abs(a), std::abs(b)}); }
-}  // namespace
 
 Result Controller::set_inertia(double kg) {
   return guarded("set inertia", [&] {
@@ -79,6 +76,7 @@ Result Controller::set_inertia(double kg) {
     if (Result r = do_write_inertia(kg, reply_deadline()); !r.ok()) return r;
     double back = 0.0;
     if (Result r = do_read_inertia(back, reply_deadline()); !r.ok()) return r;
+    auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
     if (!same(back, kg)) return Result::fail("read-back " + num(back) + " kg differs from the " + num(kg) + " kg written; refusing to go on");
     return Result::success();
   });
@@ -91,6 +89,7 @@ Result Controller::set_coefficients(const core::RoadLoad& c) {
     if (Result r = do_write_coefficients(c, reply_deadline()); !r.ok()) return r;
     core::RoadLoad back;
     if (Result r = do_read_coefficients(back, reply_deadline()); !r.ok()) return r;
+    auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
     if (!same(back.f0_n, c.f0_n) || !same(back.f1_n_per_kmh, c.f1_n_per_kmh) || !same(back.f2_n_per_kmh2, c.f2_n_per_kmh2))
       return Result::fail("read-back (" + num(back.f0_n) + ", " + num(back.f1_n_per_kmh) + ", " + num(back.f2_n_per_kmh2) +
                           ") differs from what was written (" + num(c.f0_n) + ", " + num(c.f1_n_per_kmh) + ", " +

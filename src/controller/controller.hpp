@@ -8,7 +8,9 @@
 // host clock. The host clock (steady_clock) is used here for deadlines and heartbeats only.
 #pragma once
 
+#include <algorithm>
 #include <chrono>
+#include <cmath>
 #include <cstdint>
 #include <string>
 #include <vector>
@@ -141,6 +143,9 @@ class Controller {
   virtual Result do_heartbeat(Deadline d) = 0;
   virtual Result do_status(StatusReport& out, Deadline d) = 0;
   virtual Result do_clear_fault(Deadline d) = 0;
+
+  // How far a read-back may differ from what was written: the register's resolution (e.g. float32 in Modbus).
+  virtual double readback_tolerance(double written) const { return 1e-9 * std::max(1.0, std::abs(written)); }
 
   LinkStats stats_;
 

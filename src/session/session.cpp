@@ -177,6 +177,7 @@ bool Session::settle_and_clear(const std::string& when) {
       break;
     }
     if (st.mode == Mode::speed_hold || st.mode == Mode::road_load) c_.controlled_stop();
+    c_.heartbeat_if_due();
     std::this_thread::sleep_for(std::chrono::milliseconds(50));
   }
   if (!stopped) return false;

@@ -3,8 +3,10 @@
 #include <CLI/CLI.hpp>
 #include <iostream>
 
+#include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
+#include "sim/modbus_server.hpp"
 #include "sim/sim_server.hpp"
 
 int main(int argc, char** argv) {
@@ -26,6 +28,9 @@ int main(int argc, char** argv) {
   app.add_option("--max-speed-kmh", s.max_speed_kmh, "the controller's speed limit")->capture_default_str();
   app.add_option("--name", s.name, "controller name reported by IDENT (no spaces)")->capture_default_str();
   app.add_option("--initial-warmth", warmth, "override the truth's initial drivetrain warmth (0 cold .. 1 warm)")->check(CLI::Range(0.0, 1.0));
+  std::string modbus_map, modbus_rtu;
+  app.add_option("--modbus-map", modbus_map, "serve Modbus instead of the line protocol, with the [modbus] map of this cell file");
+  app.add_option("--modbus-rtu", modbus_rtu, "with --modbus-map: serve Modbus RTU on this serial device (115200 8N1) instead of TCP");
   app.add_option("--exit-after-s", srv.exit_after_s, "exit after this many wall seconds (a safety net for tests)");
   auto* f = app.add_option_group("faults", "fault injection");
   f->add_option("--drop-at-s", drop_at, "drop the connection once at this simulated time");
@@ -58,6 +63,18 @@ int main(int argc, char** argv) {
   if (estop_at >= 0) s.faults.estop_at_s = estop_at;
   if (report_dia > 0) s.faults.report_roller_diameter_m = report_dia;
   if (report_inertia > 0) s.faults.report_base_inertia_kg = report_inertia;
+  if (!modbus_map.empty()) {
+    modbus::RegisterMap map;
+    try {
+      core::Problems w;
+      map = config::load_register_map(modbus_map, &w);
+      if (!w.empty()) std::cerr << config::format_problems(modbus_map, w);
+    } catch (const config::InputError& e) {
+      std::cerr << e.what();
+      return 2;
+    }
+    return sim::run_modbus_server(truth, s, srv, map, modbus_rtu, [](const std::string& line) { std::cout << line << std::endl; });
+  }
   try {
     return sim::run_server(truth, s, srv, [](const std::string& line) { std::cout << line << std::endl; });
   } catch (const std::exception& e) {

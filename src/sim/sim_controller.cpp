@@ -121,6 +121,11 @@ std::optional<SimError> SimController::clear() {
   return std::nullopt;
 }
 
+controller::Sample SimController::reading() {
+  const physics::Sample s = model_.sample();
+  return {sample_index_++, s.time_s, std::max(0.0, s.speed_kmh), s.force_n, to_controller(model_.mode()), flags()};
+}
+
 controller::StatusReport SimController::status() const {
   return {to_controller(model_.mode()), model_.speed_kmh(), model_.time_s(), flags(), fault_};
 }

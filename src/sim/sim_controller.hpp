@@ -58,6 +58,8 @@ class SimController {
   std::optional<SimError> clear();
   controller::StatusReport status() const;
   void touch(double wall_s) { last_request_wall_s_ = wall_s; }  // a sign of life from the tool
+  // A reading now (noisy), with mode and flags: what register-based front ends publish.
+  controller::Sample reading();
   // Advances simulated time; samples at the stream rate and fault events ("FAULT kind=... detail=...") appended.
   void advance_typed(double sim_dt_s, std::vector<controller::Sample>& samples, std::vector<std::string>& events);
   void check_watchdog_typed(double wall_s, std::vector<std::string>& events);

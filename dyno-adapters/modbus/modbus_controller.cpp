@@ -1,0 +1,217 @@
+#include "modbus/modbus_controller.hpp"
+
+#include <modbus/modbus.h>
+
+#include <cerrno>
+#include <cmath>
+#include <thread>
+
+namespace loadtrim::modbus {
+
+using controller::Result;
+using Clock = std::chrono::steady_clock;
+
+ModbusController::ModbusController(const controller::CellConfig& cell)
+    : Controller(cell.timeouts, {cell.max_speed_kmh}), cell_(cell), map_(cell.register_map) {}
+
+ModbusController::~ModbusController() { do_disconnect(); }
+
+Result ModbusController::fail(const std::string& what) {
+  const int e = errno;
+  const std::string text = std::string(modbus_strerror(e));
+  // Exceptions the controller answered with are its refusals; timeouts and closed links are retryable.
+  if (e > MODBUS_ENOBASE && e < MODBUS_ENOBASE + 12)
+    return Result::fail(what + ": Modbus exception from the controller: " + text, e - MODBUS_ENOBASE);
+  return Result::retry(what + ": " + text);
+}
+
+Result ModbusController::do_connect(controller::Deadline) {
+  do_disconnect();
+  if (cell_.adapter == "modbus-tcp") {
+    ctx_ = modbus_new_tcp(cell_.host.c_str(), static_cast<int>(cell_.port));
+  } else {
+    const char parity = cell_.serial.parity == "odd" ? 'O' : cell_.serial.parity == "even" ? 'E' : 'N';
+    ctx_ = modbus_new_rtu(cell_.serial.device.c_str(), static_cast<int>(cell_.serial.baud), parity,
+                          static_cast<int>(cell_.serial.data_bits), static_cast<int>(cell_.serial.stop_bits));
+  }
+  if (!ctx_) return Result::fail("cannot create the Modbus context");
+  modbus_set_slave(ctx_, map_.unit_id);
+  const auto reply = timeouts().reply;
+  modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000), static_cast<std::uint32_t>(reply.count() % 1000) * 1000);
+  if (modbus_connect(ctx_) != 0) {
+    Result r = fail("connect");
+    modbus_free(ctx_);
+    ctx_ = nullptr;
+    return Result::retry(r.message);
+  }
+  return Result::success();
+}
+
+void ModbusController::do_disconnect() {
+  if (ctx_) {
+    modbus_close(ctx_);
+    modbus_free(ctx_);
+    ctx_ = nullptr;
+  }
+  streaming_ = false;
+}
+
+Result ModbusController::read(Q q, double& value) {
+  if (!ctx_) return Result::retry("link not open");
+  const Register& r = map_[q];
+  std::uint16_t w[2] = {0, 0};
+  int rc;
+  if (r.table == Table::coil) {
+    std::uint8_t bit = 0;
+    rc = modbus_read_bits(ctx_, r.address, 1, &bit);
+    w[0] = bit;
+  } else if (r.table == Table::input) {
+    rc = modbus_read_input_registers(ctx_, r.address, r.words(), w);
+  } else {
+    rc = modbus_read_registers(ctx_, r.address, r.words(), w);
+  }
+  if (rc < 0) return fail(std::string("read ") + kQuantities[q].name + " (" + to_string(r.table) + " " + std::to_string(r.address) + ")");
+  value = decode(r, w);
+  return Result::success();
+}
+
+Result ModbusController::write(Q q, double value) {
+  if (!ctx_) return Result::retry("link not open");
+  const Register& r = map_[q];
+  std::uint16_t w[2] = {0, 0};
+  encode(r, value, w);
+  int rc;
+  if (r.table == Table::coil) rc = modbus_write_bit(ctx_, r.address, w[0] ? 1 : 0);
+  else if (r.words() == 1) rc = modbus_write_register(ctx_, r.address, w[0]);
+  else rc = modbus_write_registers(ctx_, r.address, 2, w);
+  if (rc < 0) return fail(std::string("write ") + kQuantities[q].name + " (" + to_string(r.table) + " " + std::to_string(r.address) + ")");
+  return Result::success();
+}
+
+Result ModbusController::strobe(controller::Deadline d) {
+  if (Result r = write(Q::strobe, 1); !r.ok()) return r;
+  for (;;) {
+    double s = 1.0;
+    if (Result r = read(Q::strobe, s); !r.ok()) return r;
+    if (s == 0.0) break;
+    if (Clock::now() >= d) return Result::retry("the controller did not take the setpoints (strobe not cleared) before the deadline");
+    std::this_thread::sleep_for(std::chrono::milliseconds(2));
+  }
+  if (map_[Q::error].present) {
+    double e = 0.0;
+    if (Result r = read(Q::error, e); !r.ok()) return r;
+    if (e != 0.0) return Result::fail("the controller refused the setpoints (error register " + std::to_string(static_cast<int>(e)) + ")", static_cast<int>(e));
+  }
+  return Result::success();
+}
+
+Result ModbusController::do_identify(controller::ControllerInfo& out, controller::Deadline) {
+  out.name = "modbus unit " + std::to_string(map_.unit_id);
+  out.protocol_version = 1;
+  out.capabilities = "hold,hold-force,roadload,stop,stream,watchdog,status";
+  if (Result r = read(Q::roller_diameter, out.roller_diameter_m); !r.ok()) return r;
+  if (Result r = read(Q::base_inertia, out.base_inertia_kg); !r.ok()) return r;
+  if (Result r = read(Q::max_speed, out.max_speed_kmh); !r.ok()) return r;
+  return read(Q::max_force, out.max_force_n);
+}
+
+Result ModbusController::do_write_inertia(double kg, controller::Deadline d) {
+  if (Result r = write(Q::inertia, kg); !r.ok()) return r;
+  return strobe(d);
+}
+Result ModbusController::do_read_inertia(double& kg, controller::Deadline) { return read(Q::inertia, kg); }
+
+Result ModbusController::do_write_coefficients(const core::RoadLoad& c, controller::Deadline d) {
+  if (Result r = write(Q::f0, c.f0_n); !r.ok()) return r;
+  if (Result r = write(Q::f1, c.f1_n_per_kmh); !r.ok()) return r;
+  if (Result r = write(Q::f2, c.f2_n_per_kmh2); !r.ok()) return r;
+  return strobe(d);
+}
+
+Result ModbusController::do_read_coefficients(core::RoadLoad& c, controller::Deadline) {
+  if (Result r = read(Q::f0, c.f0_n); !r.ok()) return r;
+  if (Result r = read(Q::f1, c.f1_n_per_kmh); !r.ok()) return r;
+  return read(Q::f2, c.f2_n_per_kmh2);
+}
+
+Result ModbusController::do_command(controller::Mode mode, double hold_kmh, controller::Deadline d) {
+  int code = kCommandIdle;
+  switch (mode) {
+    case controller::Mode::idle: code = kCommandIdle; break;
+    case controller::Mode::speed_hold: code = kCommandHold; break;
+    case controller::Mode::road_load: code = kCommandRoadLoad; break;
+    case controller::Mode::controlled_stop: code = kCommandStop; break;
+  }
+  if (mode == controller::Mode::speed_hold)
+    if (Result r = write(Q::hold_speed, hold_kmh); !r.ok()) return r;
+  if (Result r = write(Q::command, code); !r.ok()) return r;
+  return strobe(d);
+}
+
+Result ModbusController::do_stream(double rate_hz, controller::Deadline) {
+  streaming_ = rate_hz > 0.0;
+  t0_ = next_poll_ = Clock::now();
+  return Result::success();
+}
+
+Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) {
+  if (!streaming_) return Result::success();
+  const auto period = std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(1.0 / map_.poll_rate_hz));
+  if (next_poll_ > d) return Result::success();
+  std::this_thread::sleep_until(next_poll_);
+  const auto now = Clock::now();
+  if (!map_[Q::time].present)
+    worst_jitter_s_ = std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - next_poll_).count()));
+  next_poll_ += period;
+  if (next_poll_ < now) next_poll_ = now + period;  // fell behind: no burst to catch up
+  controller::Sample s;
+  double mode = 0, status = 0;
+  if (Result r = read(Q::speed, s.speed_kmh); !r.ok()) return r;
+  if (Result r = read(Q::force, s.force_n); !r.ok()) return r;
+  if (Result r = read(Q::mode, mode); !r.ok()) return r;
+  if (Result r = read(Q::status, status); !r.ok()) return r;
+  if (map_[Q::time].present) {
+    if (Result r = read(Q::time, s.time_s); !r.ok()) return r;
+  } else {
+    s.time_s = std::chrono::duration<double>(now - t0_).count();
+  }
+  const int m = static_cast<int>(mode);
+  s.mode = m == kCommandHold ? controller::Mode::speed_hold : m == kCommandRoadLoad ? controller::Mode::road_load
+         : m == kCommandStop ? controller::Mode::controlled_stop : controller::Mode::idle;
+  s.flags = static_cast<std::uint32_t>(status);
+  s.index = index_++;
+  out.push_back(s);
+  return Result::success();
+}
+
+Result ModbusController::do_heartbeat(controller::Deadline) { return write(Q::heartbeat, ++beat_); }
+
+Result ModbusController::do_status(controller::StatusReport& out, controller::Deadline) {
+  double mode = 0, status = 0;
+  if (Result r = read(Q::speed, out.speed_kmh); !r.ok()) return r;
+  if (Result r = read(Q::mode, mode); !r.ok()) return r;
+  if (Result r = read(Q::status, status); !r.ok()) return r;
+  if (map_[Q::time].present)
+    if (Result r = read(Q::time, out.time_s); !r.ok()) return r;
+  const int m = static_cast<int>(mode);
+  out.mode = m == kCommandHold ? controller::Mode::speed_hold : m == kCommandRoadLoad ? controller::Mode::road_load
+           : m == kCommandStop ? controller::Mode::controlled_stop : controller::Mode::idle;
+  out.flags = static_cast<std::uint32_t>(status);
+  out.fault = (out.flags & controller::kFlagWatchdog) ? "WATCHDOG" : (out.flags & controller::kFlagEstop) ? "ESTOP"
+            : (out.flags & controller::kFlagFault) ? "FAULT" : "";
+  return Result::success();
+}
+
+Result ModbusController::do_clear_fault(controller::Deadline d) {
+  if (Result r = write(Q::command, kCommandClearFault); !r.ok()) return r;
+  return strobe(d);
+}
+
+double ModbusController::readback_tolerance(double written) const {
+  // float32 keeps 24 bits of mantissa; integer registers keep the scale's resolution. Either way, one unit of
+  // the register's last place (plus the scale's rounding).
+  const double v = std::max(1e-30, std::abs(written));
+  return std::max(v * 1.2e-7, 1e-9 * std::max(1.0, v));
+}
+
+}  // namespace loadtrim::modbus

@@ -1,0 +1,57 @@
+// The Modbus adapter (libmodbus, TCP or RTU) behind the controller interface, driven by a register map.
+// Setpoints: write the value registers, raise the strobe, wait until the controller clears it (the write
+// handshake, with a deadline), then read back. Live quantities are polled at the map's rate; the controller's time
+// register gives the sample time when the map has one, else the host clock does and the poll jitter is measured.
+// Heartbeat: a counter register the controller's watchdog watches.
+#pragma once
+
+#include <chrono>
+#include <string>
+
+#include "controller/cell.hpp"
+#include "controller/controller.hpp"
+#include "modbus/register_map.hpp"
+
+typedef struct _modbus modbus_t;
+
+namespace loadtrim::modbus {
+
+class ModbusController : public controller::Controller {
+ public:
+  explicit ModbusController(const controller::CellConfig& cell);
+  ~ModbusController() override;
+  // Poll timing when the map has no time register: worst deviation from the nominal period, s.
+  double worst_jitter_s() const { return worst_jitter_s_; }
+
+ protected:
+  controller::Result do_connect(controller::Deadline d) override;
+  void do_disconnect() override;
+  controller::Result do_identify(controller::ControllerInfo& out, controller::Deadline d) override;
+  controller::Result do_write_inertia(double kg, controller::Deadline d) override;
+  controller::Result do_read_inertia(double& kg, controller::Deadline d) override;
+  controller::Result do_write_coefficients(const core::RoadLoad& c, controller::Deadline d) override;
+  controller::Result do_read_coefficients(core::RoadLoad& c, controller::Deadline d) override;
+  controller::Result do_command(controller::Mode mode, double hold_kmh, controller::Deadline d) override;
+  controller::Result do_stream(double rate_hz, controller::Deadline d) override;
+  controller::Result do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) override;
+  controller::Result do_heartbeat(controller::Deadline d) override;
+  controller::Result do_status(controller::StatusReport& out, controller::Deadline d) override;
+  controller::Result do_clear_fault(controller::Deadline d) override;
+  double readback_tolerance(double written) const override;
+
+ private:
+  controller::Result read(Q q, double& value);
+  controller::Result write(Q q, double value);
+  controller::Result strobe(controller::Deadline d);  // raise, wait for the controller to clear it
+  controller::Result fail(const std::string& what);   // from errno, naming Modbus exceptions
+  controller::CellConfig cell_;
+  RegisterMap map_;
+  modbus_t* ctx_ = nullptr;
+  bool streaming_ = false;
+  std::uint64_t index_ = 0;
+  std::uint16_t beat_ = 0;
+  std::chrono::steady_clock::time_point next_poll_{}, t0_{};
+  double worst_jitter_s_ = 0.0;
+};
+
+}  // namespace loadtrim::modbus

@@ -1,0 +1,97 @@
+#include "modbus/register_map.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <cstring>
+#include <map>
+
+namespace loadtrim::modbus {
+
+using core::Problem;
+
+const char* to_string(Table t) { return t == Table::holding ? "holding" : t == Table::input ? "input" : "coil"; }
+const char* to_string(Type t) {
+  switch (t) {
+    case Type::int16: return "int16";
+    case Type::uint16: return "uint16";
+    case Type::int32: return "int32";
+    case Type::uint32: return "uint32";
+    case Type::float32: return "float32";
+  }
+  return "?";
+}
+
+core::Problems validate(const RegisterMap& m) {
+  core::Problems ps;
+  auto err = [&](const std::string& k, const std::string& msg) { ps.push_back({Problem::Severity::error, k, msg}); };
+  if (m.unit_id < 0 || m.unit_id > 247) err("modbus.unit_id", "is " + std::to_string(m.unit_id) + ", allowed 0 to 247");
+  if (!(m.poll_rate_hz >= 1.0 && m.poll_rate_hz <= 1000.0)) err("modbus.poll_rate_hz", "is " + core::num(m.poll_rate_hz) + ", allowed 1 to 1000 Hz");
+  std::map<Table, std::map<int, std::string>> used;  // address → quantity, per table
+  for (std::size_t i = 0; i < kQuantities.size(); ++i) {
+    const Quantity& q = kQuantities[i];
+    const Register& r = m.regs[i];
+    const std::string key = std::string("modbus.") + q.name;
+    if (!r.present) {
+      if (q.required) err(key, "is missing: the map must name this quantity");
+      continue;
+    }
+    if (r.address < 0 || r.address + r.words() > 65536)
+      err(key + ".address", "is " + std::to_string(r.address) + ", allowed 0 to " + std::to_string(65536 - r.words()));
+    if (!(std::isfinite(r.scale) && r.scale != 0.0)) err(key + ".scale", "is " + core::num(r.scale) + ", must be a finite non-zero number");
+    if (r.unit != q.unit)
+      err(key + ".unit", "is \"" + r.unit + "\", must be \"" + q.unit + "\" (convert with scale; SI and km/h inside loadtrim)");
+    if (q.writable && r.table == Table::input) err(key + ".table", "is \"input\", but loadtrim writes this quantity: use \"holding\"");
+    if (r.table == Table::coil && std::string(q.name) != "strobe") err(key + ".table", "is \"coil\"; only the strobe may be a coil");
+    if (r.table == Table::coil && r.type != Type::uint16) err(key + ".type", "a coil is one bit: use \"uint16\"");
+    for (int w = 0; w < r.words(); ++w) {
+      auto& slot = used[r.table][r.address + w];
+      if (!slot.empty()) err(key + ".address", "overlaps " + slot + " at " + to_string(r.table) + " register " + std::to_string(r.address + w));
+      else slot = q.name;
+    }
+  }
+  return ps;
+}
+
+double decode(const Register& r, const std::uint16_t* w) {
+  std::uint32_t v32 = 0;
+  if (r.words() == 2) v32 = r.order == WordOrder::big ? (std::uint32_t(w[0]) << 16) | w[1] : (std::uint32_t(w[1]) << 16) | w[0];
+  double raw = 0.0;
+  switch (r.type) {
+    case Type::int16: raw = static_cast<std::int16_t>(w[0]); break;
+    case Type::uint16: raw = w[0]; break;
+    case Type::int32: raw = static_cast<std::int32_t>(v32); break;
+    case Type::uint32: raw = v32; break;
+    case Type::float32: {
+      float f;
+      std::memcpy(&f, &v32, sizeof f);
+      raw = f;
+      break;
+    }
+  }
+  return raw * r.scale;
+}
+
+void encode(const Register& r, double value, std::uint16_t* w) {
+  const double raw = value / r.scale;
+  std::uint32_t v32 = 0;
+  switch (r.type) {
+    case Type::int16: w[0] = static_cast<std::uint16_t>(static_cast<std::int16_t>(std::lround(std::clamp(raw, -32768.0, 32767.0)))); return;
+    case Type::uint16: w[0] = static_cast<std::uint16_t>(std::lround(std::clamp(raw, 0.0, 65535.0))); return;
+    case Type::int32: v32 = static_cast<std::uint32_t>(static_cast<std::int32_t>(std::llround(std::clamp(raw, -2147483648.0, 2147483647.0)))); break;
+    case Type::uint32: v32 = static_cast<std::uint32_t>(std::llround(std::clamp(raw, 0.0, 4294967295.0))); break;
+    case Type::float32: {
+      const float f = static_cast<float>(raw);
+      std::memcpy(&v32, &f, sizeof f);
+      break;
+    }
+  }
+  if (r.order == WordOrder::big) {
+    w[0] = static_cast<std::uint16_t>(v32 >> 16);
+    w[1] = static_cast<std::uint16_t>(v32 & 0xFFFF);
+  } else {
+    w[1] = static_cast<std::uint16_t>(v32 >> 16);
+    w[0] = static_cast<std::uint16_t>(v32 & 0xFFFF);
+  }
+}
+
+}  // namespace loadtrim::modbus

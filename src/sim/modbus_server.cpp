@@ -1,0 +1,180 @@
+#include "sim/modbus_server.hpp"
+
+#include <arpa/inet.h>
+#include <modbus/modbus.h>
+#include <netinet/in.h>
+#include <sys/select.h>
+#include <sys/socket.h>
+#include <unistd.h>
+
+#include <algorithm>
+#include <atomic>
+#include <chrono>
+#include <csignal>
+#include <set>
+
+namespace loadtrim::sim {
+
+using modbus::Q;
+using modbus::Table;
+
+namespace {
+std::atomic<bool> g_stop{false};
+extern "C" void on_signal(int) { g_stop = true; }
+
+int extent(const modbus::RegisterMap& m, Table t) {
+  int n = 1;
+  for (const auto& r : m.regs)
+    if (r.present && r.table == t) n = std::max(n, r.address + r.words());
+  return n;
+}
+}  // namespace
+
+int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, const ServerSettings& server,
+                      const modbus::RegisterMap& map, const std::string& rtu_device,
+                      const std::function<void(const std::string&)>& announce) {
+  std::signal(SIGTERM, on_signal);
+  std::signal(SIGINT, on_signal);
+  SimController sim(truth, settings);
+  sim.hello(line::kProtocolVersion);
+  modbus_mapping_t* mb = modbus_mapping_new(extent(map, Table::coil), 0, extent(map, Table::holding), extent(map, Table::input));
+  if (!mb) return 1;
+  auto put = [&](Q q, double v) {
+    const auto& r = map[q];
+    if (!r.present) return;
+    std::uint16_t w[2] = {0, 0};
+    modbus::encode(r, v, w);
+    if (r.table == Table::coil) mb->tab_bits[r.address] = w[0] ? 1 : 0;
+    else {
+      std::uint16_t* tab = r.table == Table::input ? mb->tab_input_registers : mb->tab_registers;
+      for (int i = 0; i < r.words(); ++i) tab[r.address + i] = w[i];
+    }
+  };
+  auto get = [&](Q q) {
+    const auto& r = map[q];
+    std::uint16_t w[2] = {0, 0};
+    if (r.table == Table::coil) w[0] = mb->tab_bits[r.address];
+    else {
+      const std::uint16_t* tab = r.table == Table::input ? mb->tab_input_registers : mb->tab_registers;
+      for (int i = 0; i < r.words(); ++i) w[i] = tab[r.address + i];
+    }
+    return modbus::decode(r, w);
+  };
+  const auto info = sim.info();
+  put(Q::roller_diameter, info.roller_diameter_m);
+  put(Q::base_inertia, info.base_inertia_kg);
+  put(Q::max_speed, info.max_speed_kmh);
+  put(Q::max_force, info.max_force_n);
+  put(Q::inertia, sim.model().inertia_set_kg());
+  auto publish = [&] {
+    const controller::Sample s = sim.reading();
+    put(Q::speed, s.speed_kmh);
+    put(Q::force, s.force_n);
+    put(Q::time, s.time_s);
+    const int mode = s.mode == controller::Mode::speed_hold ? modbus::kCommandHold : s.mode == controller::Mode::road_load ? modbus::kCommandRoadLoad
+                   : s.mode == controller::Mode::controlled_stop ? modbus::kCommandStop : modbus::kCommandIdle;
+    put(Q::mode, mode);
+    put(Q::status, s.flags);
+  };
+
+  modbus_t* ctx = nullptr;
+  int listen_fd = -1, client = -1;
+  if (rtu_device.empty()) {
+    ctx = modbus_new_tcp(server.bind.c_str(), server.port);
+    listen_fd = modbus_tcp_listen(ctx, 1);
+    if (listen_fd < 0) return 1;
+    sockaddr_in a{};
+    socklen_t len = sizeof a;
+    ::getsockname(listen_fd, reinterpret_cast<sockaddr*>(&a), &len);
+    announce("loadtrim-sim listening modbus-tcp " + server.bind + ":" + std::to_string(ntohs(a.sin_port)) + " pid=" + std::to_string(::getpid()));
+  } else {
+    ctx = modbus_new_rtu(rtu_device.c_str(), 115200, 'N', 8, 1);
+    modbus_set_slave(ctx, map.unit_id);
+    if (!ctx || modbus_connect(ctx) != 0) return 1;
+    client = modbus_get_socket(ctx);
+    announce("loadtrim-sim listening modbus-rtu " + rtu_device + " pid=" + std::to_string(::getpid()));
+  }
+  std::uint8_t query[MODBUS_TCP_MAX_ADU_LENGTH];
+  std::set<int> written;  // holding addresses written since the last strobe
+  const auto start = std::chrono::steady_clock::now();
+  auto last = start;
+  double last_beat = get(Q::heartbeat);
+  auto wall = [&] { return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count(); };
+  sim.touch(0.0);
+  while (!g_stop) {
+    fd_set rd;
+    FD_ZERO(&rd);
+    int maxfd = -1;
+    if (listen_fd >= 0 && client < 0) FD_SET(listen_fd, &rd), maxfd = listen_fd;
+    if (client >= 0) FD_SET(client, &rd), maxfd = std::max(maxfd, client);
+    timeval tv{0, 2000};
+    const int n = ::select(maxfd + 1, &rd, nullptr, nullptr, &tv);
+    const auto now = std::chrono::steady_clock::now();
+    const double dt = std::min(0.05, std::chrono::duration<double>(now - last).count());
+    last = now;
+    std::vector<controller::Sample> unused;
+    std::vector<std::string> events;
+    sim.advance_typed(dt * server.time_scale, unused, events);
+    sim.check_watchdog_typed(wall(), events);
+    if (server.exit_after_s > 0 && wall() > server.exit_after_s) break;
+    if (n <= 0) continue;
+    if (listen_fd >= 0 && client < 0 && FD_ISSET(listen_fd, &rd)) {
+      client = modbus_tcp_accept(ctx, &listen_fd);
+      continue;
+    }
+    if (client < 0 || !FD_ISSET(client, &rd)) continue;
+    const int rc = modbus_receive(ctx, query);
+    if (rc == -1) {  // the client went away (TCP): accept the next one; the watchdog looks after the rollers
+      if (listen_fd >= 0) {
+        ::close(client);
+        client = -1;
+      }
+      continue;
+    }
+    if (rc == 0) continue;  // not for us (RTU address)
+    publish();
+    modbus_reply(ctx, query, rc, mb);
+    const int hl = modbus_get_header_length(ctx);
+    const int fn = query[hl];
+    const int addr = (query[hl + 1] << 8) | query[hl + 2];
+    if (fn == 0x06) written.insert(addr);
+    if (fn == 0x10) {
+      const int count = (query[hl + 3] << 8) | query[hl + 4];
+      for (int i = 0; i < count; ++i) written.insert(addr + i);
+    }
+    const double beat = get(Q::heartbeat);
+    if (beat != last_beat) {
+      last_beat = beat;
+      sim.touch(wall());
+    }
+    if (get(Q::strobe) != 0.0) {
+      auto was = [&](Q q) { return map[q].table != Table::coil && written.count(map[q].address) > 0; };
+      std::optional<SimError> e;
+      if (was(Q::inertia)) e = sim.set_inertia(get(Q::inertia));
+      if (!e && (was(Q::f0) || was(Q::f1) || was(Q::f2))) e = sim.set_coefficients({get(Q::f0), get(Q::f1), get(Q::f2)});
+      if (!e && (was(Q::command) || was(Q::hold_speed))) {
+        const int c = static_cast<int>(get(Q::command));
+        if (c == modbus::kCommandClearFault) e = sim.clear();
+        else
+          e = sim.command(c == modbus::kCommandHold ? controller::Mode::speed_hold : c == modbus::kCommandRoadLoad ? controller::Mode::road_load
+                          : c == modbus::kCommandStop ? controller::Mode::controlled_stop : controller::Mode::idle,
+                          get(Q::hold_speed));
+      }
+      put(Q::error, e ? static_cast<double>(static_cast<int>(e->code)) : 0.0);
+      put(Q::inertia, sim.model().inertia_set_kg());
+      put(Q::f0, sim.model().coefficients().f0_n);
+      put(Q::f1, sim.model().coefficients().f1_n_per_kmh);
+      put(Q::f2, sim.model().coefficients().f2_n_per_kmh2);
+      written.clear();
+      put(Q::strobe, 0.0);
+    }
+  }
+  if (client >= 0 && listen_fd >= 0) ::close(client);
+  if (listen_fd >= 0) ::close(listen_fd);
+  modbus_close(ctx);
+  modbus_free(ctx);
+  modbus_mapping_free(mb);
+  return 0;
+}
+
+}  // namespace loadtrim::sim
