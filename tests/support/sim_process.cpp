@@ -49,6 +49,8 @@ SimProcess::SimProcess(std::vector<std::string> args, bool pty) {
     port_ = static_cast<unsigned short>(std::stoi(first.substr(colon + 1)));
   } else if (const auto q = first.find("pty "); q != std::string::npos) {
     device_ = first.substr(q + 4, first.find(' ', q + 4) - (q + 4));
+  } else if (const auto m = first.find("modbus-rtu "); m != std::string::npos) {
+    device_ = first.substr(m + 11, first.find(' ', m + 11) - (m + 11));
   } else {
     stop();
     throw std::runtime_error("loadtrim-sim did not start: '" + first + "'");

@@ -1,0 +1,232 @@
+// The Modbus adapter against the simulated controller's Modbus server (TCP on loopback, RTU over a socat
+// pseudo-terminal pair), an independent Modbus client from Debian (mbpoll) reading the documented registers, and a
+// full setting session over Modbus TCP.
+#include <gtest/gtest.h>
+
+#include <filesystem>
+#include <fstream>
+#include <thread>
+
+#include "config/cell_loader.hpp"
+#include "config/input_error.hpp"
+#include "modbus/modbus_controller.hpp"
+#include "record/event_log.hpp"
+#include "support/child_process.hpp"
+#include "support/sim_process.hpp"
+
+using namespace loadtrim;
+namespace fs = std::filesystem;
+using loadtrim::testing::run_command;
+using loadtrim::testing::SimProcess;
+
+namespace {
+const std::string kSrc = LOADTRIM_SOURCE_DIR;
+const std::string kCell = kSrc + "/config/cells/sim-modbus.toml";
+
+controller::CellConfig cell_for(unsigned port) {
+  auto c = config::load_cell(kCell);
+  c.port = port;
+  return c;
+}
+
+std::vector<controller::Sample> poll_until(controller::Controller& c, const std::function<bool(const controller::Sample&)>& pred,
+                                           int max_samples) {
+  std::vector<controller::Sample> all;
+  while (static_cast<int>(all.size()) < max_samples) {
+    std::vector<controller::Sample> got;
+    if (!c.receive_samples(got).ok()) break;
+    all.insert(all.end(), got.begin(), got.end());
+    if (!all.empty() && pred(all.back())) break;
+  }
+  return all;
+}
+}  // namespace
+
+TEST(Modbus, TcpHandshakeReadBackCoastdownAt50HzPolling) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20"});
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  EXPECT_NEAR(info.roller_diameter_m, 1.2192, 1e-6);  // samples/truths/demo-hatchback.toml, float32 register
+  EXPECT_NEAR(info.base_inertia_kg, 1250.0, 1e-3);
+  ASSERT_TRUE(c.set_inertia(1491.075).ok());
+  ASSERT_TRUE(c.set_coefficients({42.38, 0.3135, 0.03013}).ok());
+  core::RoadLoad back;
+  ASSERT_TRUE(c.read_coefficients(back).ok());
+  EXPECT_NEAR(back.f2_n_per_kmh2, 0.03013, 1e-8);  // float32, the little-endian word order register
+  ASSERT_TRUE(c.start_stream(50.0).ok());
+  ASSERT_TRUE(c.hold_speed(100.0).ok());
+  auto hold = poll_until(c, [](const controller::Sample& s) { return s.speed_kmh > 99.5 && s.mode == controller::Mode::speed_hold; }, 5000);
+  ASSERT_FALSE(hold.empty());
+  EXPECT_GT(hold.back().speed_kmh, 99.5);
+  ASSERT_TRUE(c.release_road_load().ok());
+  auto coast = poll_until(c, [](const controller::Sample& s) { return s.speed_kmh < 30.0; }, 20000);
+  ASSERT_GT(coast.size(), 50u);
+  EXPECT_LT(coast.back().speed_kmh, 30.0);
+  for (std::size_t i = 1; i < coast.size(); ++i) {
+    ASSERT_EQ(coast[i].index, coast[i - 1].index + 1);
+    ASSERT_GE(coast[i].time_s, coast[i - 1].time_s);  // the controller's time register (ms)
+  }
+  // Speed falls through the coast (up to the 0.05 km/h encoder noise at each end).
+  EXPECT_GT(coast.front().speed_kmh, coast.back().speed_kmh + 60.0);
+  EXPECT_EQ(coast.back().mode, controller::Mode::road_load);
+  ASSERT_TRUE(c.controlled_stop().ok());
+}
+
+TEST(Modbus, WatchdogWatchesTheHeartbeatCounter) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20", "--watchdog-ms", "400"});
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.set_inertia(1491.0).ok());
+  ASSERT_TRUE(c.hold_speed(60.0).ok());
+  // Reads keep coming, but the heartbeat counter stops: the watchdog must trip anyway.
+  controller::StatusReport st;
+  for (int i = 0; i < 20; ++i) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    ASSERT_TRUE(c.status(st).ok());
+  }
+  EXPECT_EQ(st.fault, "WATCHDOG");
+  EXPECT_TRUE(st.mode == controller::Mode::controlled_stop || st.mode == controller::Mode::idle);
+  // Motoring is refused until the fault is cleared with the rollers stopped (error register, code 40).
+  const auto r = c.hold_speed(60.0);
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("error register 40"), std::string::npos) << r.message;
+}
+
+TEST(Modbus, ExceptionReplySurfacesAsAClearError) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "5"});
+  auto cell = cell_for(sim.port());
+  cell.register_map.regs[modbus::Q::f0].address = 900;  // beyond what the controller serves
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  const auto r = c.set_coefficients({40.0, 0.3, 0.03});
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("write f0 (holding 900)"), std::string::npos) << r.message;
+  EXPECT_NE(r.message.find("Modbus exception from the controller: Illegal data address"), std::string::npos) << r.message;
+}
+
+TEST(Modbus, IndependentClientReadsTheDocumentedRegisters) {
+  // mbpoll (Debian package mbpoll), references 1-based: input register reference 11 = address 10.
+  // One client at a time, like many controllers: the adapter lets go before mbpoll asks; a long watchdog keeps
+  // the hold going meanwhile.
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20", "--watchdog-ms", "60000"});
+  const std::string port = std::to_string(sim.port());
+  std::string out;
+  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "3:float", "-B", "-r", "11", "-c", "4", "-1", "127.0.0.1"}, &out), 0) << out;
+  EXPECT_NE(out.find("[11]: \t1.2192"), std::string::npos) << out;  // roller diameter, m
+  EXPECT_NE(out.find("[13]: \t1250"), std::string::npos) << out;    // base inertia, kg
+  EXPECT_NE(out.find("[15]: \t200"), std::string::npos) << out;     // speed limit, km/h
+  // Command a speed hold through our adapter, then read the speed register raw: 1 count = 0.01 km/h.
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.set_inertia(1491.0).ok());
+  ASSERT_TRUE(c.hold_speed(50.0).ok());
+  for (int i = 0; i < 40; ++i) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    c.heartbeat();
+  }
+  c.disconnect();
+  std::this_thread::sleep_for(std::chrono::milliseconds(100));
+  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "3", "-r", "1", "-c", "1", "-1", "127.0.0.1"}, &out), 0);
+  const auto pos = out.find("[1]: \t");
+  ASSERT_NE(pos, std::string::npos) << out;
+  const int raw = std::stoi(out.substr(pos + 6));
+  EXPECT_NEAR(raw * 0.01, 50.0, 0.3) << out;
+  // The inertia the adapter wrote, as holding register reference 1 (float32, big-endian words).
+  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "4:float", "-B", "-r", "1", "-c", "1", "-1", "127.0.0.1"}, &out), 0);
+  EXPECT_NE(out.find("[1]: \t1491"), std::string::npos) << out;
+  ASSERT_TRUE(c.connect().ok());
+  c.controlled_stop();
+}
+
+TEST(Modbus, RtuOverAPseudoTerminalPair) {
+  // socat (Debian) links two pseudo-terminals: the simulator serves RTU on one, the adapter opens the other.
+  std::string dir = (fs::temp_directory_path() / "loadtrim-rtu-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  const std::string a = dir + "/controller-end", b = dir + "/tool-end";
+  loadtrim::testing::ChildProcess socat({"/usr/bin/socat", "pty,raw,echo=0,link=" + a, "pty,raw,echo=0,link=" + b});
+  for (int i = 0; i < 100 && !(fs::exists(a) && fs::exists(b)); ++i) std::this_thread::sleep_for(std::chrono::milliseconds(20));
+  ASSERT_TRUE(fs::exists(a) && fs::exists(b)) << "socat did not create the pseudo-terminal pair";
+  SimProcess sim({"--modbus-map", kCell, "--modbus-rtu", a, "--time-scale", "20"}, false);
+  auto cell = config::load_cell(kCell);
+  cell.adapter = "modbus-rtu";
+  cell.serial.device = b;
+  cell.serial.baud = 115200;
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  const auto r = c.identify(info);
+  ASSERT_TRUE(r.ok()) << r.message;
+  EXPECT_NEAR(info.roller_diameter_m, 1.2192, 1e-6);
+  ASSERT_TRUE(c.set_coefficients({42.38, 0.3135, 0.03013}).ok());
+  ASSERT_TRUE(c.start_stream(20.0).ok());
+  auto s = poll_until(c, [](const controller::Sample&) { return false; }, 10);
+  EXPECT_EQ(s.size(), 10u);
+  c.disconnect();
+  fs::remove_all(dir);
+}
+
+TEST(Modbus, BadRegisterMapsAreRefused) {
+  std::string base;
+  {
+    std::ifstream in(kCell);
+    base.assign(std::istreambuf_iterator<char>(in), {});
+  }
+  auto variant = [&](const std::string& from, const std::string& to) {
+    std::string t = base;
+    const auto p = t.find(from);
+    EXPECT_NE(p, std::string::npos) << from;
+    t.replace(p, from.size(), to);
+    return t;
+  };
+  struct Case { std::string text, must; };
+  const Case cases[] = {
+      {variant("[modbus.force]\ntable = \"input\"\naddress = 1", "[modbus.force]\ntable = \"input\"\naddress = 0"),
+       "overlaps speed at input register 0"},
+      {variant("[modbus.heartbeat]\ntable = \"holding\"\naddress = 12", "[modbus.heartbeat]\ntable = \"holding\"\naddress = 70000"),
+       "modbus.heartbeat.address (line"},
+      {variant("[modbus.inertia]\ntable = \"holding\"\naddress = 0\ntype = \"float32\"", "[modbus.inertia]\ntable = \"holding\"\naddress = 0\ntype = \"float64\""),
+       "modbus.inertia.type (line"},
+      {variant("unit = \"km/h\"\n[modbus.force]", "unit = \"mph\"\n[modbus.force]"), "modbus.speed.unit"},
+      {variant("[modbus.f0]\ntable = \"holding\"", "[modbus.f0]\ntable = \"input\""), "modbus.f0.table"},
+      {variant("[modbus.strobe]", "[modbus.not_a_strobe]"), "modbus.strobe: is missing"},
+  };
+  for (const auto& c : cases) {
+    std::string msg;
+    try {
+      config::parse_cell(c.text, "bad-map.toml");
+    } catch (const config::InputError& e) {
+      msg = e.what();
+    }
+    EXPECT_NE(msg.find(c.must), std::string::npos) << "expected: " << c.must << "\ngot: " << msg;
+  }
+}
+
+TEST(Modbus, FullSessionOverModbusTcp) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20"});
+  std::string dir = (fs::temp_directory_path() / "loadtrim-modbus-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  std::string cell = [] {
+    std::ifstream in(kCell);
+    return std::string(std::istreambuf_iterator<char>(in), {});
+  }();
+  cell.replace(cell.find("poll_rate_hz = 50.0"), 19, "poll_rate_hz = 400.0");  // 20 Hz of controller time at 20x
+  std::ofstream(dir + "/cell.toml") << cell;
+  std::string out, err;
+  const int rc = run_command({LOADTRIM_EXE, "run", "--cell", dir + "/cell.toml", "--port", std::to_string(sim.port()), "--target",
+                              kSrc + "/samples/targets/demo-hatchback.toml", "--profile", kSrc + "/tests/data/wltp-iterative-short-warmup.toml",
+                              "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "60"},
+                             &out, &err);
+  EXPECT_EQ(rc, 0) << out << err;
+  std::string folder;
+  for (const auto& e : fs::directory_iterator(dir))
+    if (e.is_directory() && e.path().filename() != "history") folder = e.path().string();
+  const auto v = record::verify_session_folder(folder);
+  EXPECT_TRUE(v.ok) << v.message;
+  std::ifstream in(folder + "/summary.json");
+  const auto j = nlohmann::json::parse(in);
+  EXPECT_TRUE(j.value("accepted", false)) << j.dump(2);
+  for (const auto& d : j["deviations"]) EXPECT_LE(std::abs(d.value("deviation_n", 99.0)), 10.0);
+  if (!HasFailure()) fs::remove_all(dir);
+}
