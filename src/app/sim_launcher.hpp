@@ -1,9 +1,11 @@
 // Starts loadtrim-sim (from the same directory as this executable) as a child process and stops it by PID.
 #pragma once
 
+#include <memory>
 #include <string>
-#include <sys/types.h>
 #include <vector>
+
+#include "process/child_process.hpp"
 
 namespace loadtrim::app {
 
@@ -11,12 +13,12 @@ class SimLauncher {
  public:
   // Throws std::runtime_error when the simulator does not start.
   explicit SimLauncher(const std::vector<std::string>& args);
-  ~SimLauncher();
+  ~SimLauncher() { child_->stop(); }
   unsigned short port() const { return port_; }
-  pid_t pid() const { return pid_; }
+  int pid() const { return child_->pid(); }
 
  private:
-  pid_t pid_ = -1;
+  std::unique_ptr<process::ChildProcess> child_;
   unsigned short port_ = 0;
 };
 

@@ -11,12 +11,12 @@
 #include "config/input_error.hpp"
 #include "modbus/modbus_controller.hpp"
 #include "record/event_log.hpp"
-#include "support/child_process.hpp"
+#include "process/child_process.hpp"
 #include "support/sim_process.hpp"
 
 using namespace loadtrim;
 namespace fs = std::filesystem;
-using loadtrim::testing::run_command;
+using loadtrim::process::run_command;
 using loadtrim::testing::SimProcess;
 
 namespace {
@@ -145,7 +145,7 @@ TEST(Modbus, RtuOverAPseudoTerminalPair) {
   std::string dir = (fs::temp_directory_path() / "loadtrim-rtu-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
   const std::string a = dir + "/controller-end", b = dir + "/tool-end";
-  loadtrim::testing::ChildProcess socat({"/usr/bin/socat", "pty,raw,echo=0,link=" + a, "pty,raw,echo=0,link=" + b});
+  loadtrim::process::ChildProcess socat({"/usr/bin/socat", "pty,raw,echo=0,link=" + a, "pty,raw,echo=0,link=" + b});
   for (int i = 0; i < 100 && !(fs::exists(a) && fs::exists(b)); ++i) std::this_thread::sleep_for(std::chrono::milliseconds(20));
   ASSERT_TRUE(fs::exists(a) && fs::exists(b)) << "socat did not create the pseudo-terminal pair";
   SimProcess sim({"--modbus-map", kCell, "--modbus-rtu", a, "--time-scale", "20"}, false);

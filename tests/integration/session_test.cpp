@@ -19,13 +19,13 @@
 #include "registry.hpp"
 #include "session/record_writer.hpp"
 #include "session/session.hpp"
-#include "support/child_process.hpp"
+#include "process/child_process.hpp"
 #include "support/sim_process.hpp"
 
 using namespace loadtrim;
 namespace fs = std::filesystem;
-using loadtrim::testing::ChildProcess;
-using loadtrim::testing::run_command;
+using loadtrim::process::ChildProcess;
+using loadtrim::process::run_command;
 using loadtrim::testing::SimProcess;
 
 namespace {

@@ -3,9 +3,11 @@
 // test process dies first (PR_SET_PDEATHSIG), so a simulator never outlives its test.
 #pragma once
 
+#include <memory>
 #include <string>
-#include <sys/types.h>
 #include <vector>
+
+#include "process/child_process.hpp"
 
 namespace loadtrim::testing {
 
@@ -19,12 +21,11 @@ class SimProcess {
 
   unsigned short port() const { return port_; }
   const std::string& device() const { return device_; }
-  pid_t pid() const { return pid_; }
-  bool alive() const;
+  int pid() const { return child_->pid(); }
   void stop();
 
  private:
-  pid_t pid_ = -1;
+  std::unique_ptr<process::ChildProcess> child_;
   unsigned short port_ = 0;
   std::string device_;
 };

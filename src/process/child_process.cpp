@@ -1,4 +1,6 @@
-#include "support/child_process.hpp"
+#include "process/child_process.hpp"
+
+#include <thread>
 
 #include <fcntl.h>
 #include <poll.h>
@@ -9,16 +11,16 @@
 
 #include <stdexcept>
 
-namespace loadtrim::testing {
+namespace loadtrim::process {
 
-ChildProcess::ChildProcess(std::vector<std::string> argv) {
+ChildProcess::ChildProcess(std::vector<std::string> argv, int death_signal) {
   int fds[2];
   if (::pipe(fds) != 0) throw std::runtime_error("pipe failed");
   const pid_t parent = ::getpid();
   pid_ = ::fork();
   if (pid_ < 0) throw std::runtime_error("fork failed");
   if (pid_ == 0) {
-    ::prctl(PR_SET_PDEATHSIG, SIGKILL);
+    ::prctl(PR_SET_PDEATHSIG, death_signal);
     if (::getppid() != parent) ::_exit(1);
     ::dup2(fds[1], STDOUT_FILENO);
     const int devnull = ::open("/dev/null", O_RDONLY);
@@ -61,6 +63,21 @@ std::optional<std::string> ChildProcess::read_line(std::chrono::milliseconds tim
     if (n <= 0) return std::nullopt;
     buffer_.append(buf, static_cast<std::size_t>(n));
   }
+}
+
+void ChildProcess::stop(std::chrono::milliseconds grace) {
+  if (reaped_ || pid_ <= 0) return;
+  ::kill(pid_, SIGTERM);
+  const auto until = std::chrono::steady_clock::now() + grace;
+  while (std::chrono::steady_clock::now() < until) {
+    if (::waitpid(pid_, &status_, WNOHANG) == pid_) {
+      reaped_ = true;
+      return;
+    }
+    std::this_thread::sleep_for(std::chrono::milliseconds(20));
+  }
+  ::kill(pid_, SIGKILL);
+  wait();
 }
 
 void ChildProcess::signal(int sig) {
@@ -130,4 +147,4 @@ int run_command(const std::vector<std::string>& argv, std::string* out, std::str
   return WIFEXITED(st) ? WEXITSTATUS(st) : 128 + WTERMSIG(st);
 }
 
-}  // namespace loadtrim::testing
+}  // namespace loadtrim::process
