@@ -96,11 +96,22 @@ Result LineController::pump(Deadline d) {
 Result LineController::request(const std::string& verb, std::vector<std::string> fields, Message& reply, Deadline d) {
   if (!transport_->is_open()) return Result::retry("link not open");
   Message m;
-  m.seq = next_seq_++;
   m.type = verb;
   m.fields = std::move(fields);
+  // A reply lost to a corrupted line is asked for once more (every request is idempotent), with the same time
+  // allowance; a reply that simply does not come is not.
+  const auto allowance = d - controller::Clock::now();
+  bool resent = false;
+  const std::uint64_t rejected_before = stats_.lines_rejected;
+  m.seq = next_seq_++;
   if (Result r = transport_->write(encode(m), d); !r.ok()) return r;
   for (;;) {
+    if (controller::Clock::now() >= d && !resent && stats_.lines_rejected > rejected_before) {
+      resent = true;
+      d = controller::Clock::now() + allowance;
+      m.seq = next_seq_++;
+      if (Result r = transport_->write(encode(m), d); !r.ok()) return r;
+    }
     while (!replies_.empty()) {
       Message rep = std::move(replies_.front());
       replies_.pop_front();

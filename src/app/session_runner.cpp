@@ -251,11 +251,15 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     std::cerr << "loadtrim: cannot resume " << folder << ": " << v.message << "\n";
     return kRecordFailure;
   }
+  // A session that ended on a transient fault (the link, an interruption, the record) may be continued; one that
+  // reached a verdict (accepted, not accepted, refused) may not.
+  std::string last_result;
   for (const auto& r : records)
-    if (r.value("type", "") == "finished") {
-      std::cerr << "loadtrim: " << folder << " already finished (" << r.value("result", "") << "); nothing to resume\n";
-      return r.value("accepted", false) ? kAccepted : kNotAccepted;
-    }
+    if (r.value("type", "") == "finished") last_result = r.value("result", "");
+  if (!last_result.empty() && last_result != "controller-fault" && last_result != "interrupted" && last_result != "record-failure") {
+    std::cerr << "loadtrim: " << folder << " already finished (" << last_result << "); nothing to resume\n";
+    return last_result == "accepted" ? kAccepted : kNotAccepted;
+  }
   const std::string in = (fs::path(folder) / "inputs").string();
   RunRequest req = overrides;
   // The same inputs as the interrupted session: the copies in its folder (their hashes are in the log).

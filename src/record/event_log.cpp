@@ -4,6 +4,7 @@
 #include <unistd.h>
 
 #include <cerrno>
+#include <cstdlib>
 #include <cstring>
 #include <filesystem>
 #include <fstream>
@@ -92,6 +93,9 @@ EventLog::EventLog(std::string path) : path_(std::move(path)) {
     }
     next_seq_ = v.records;
   }
+  // Test hook (the fault matrix): LOADTRIM_TEST_FAIL_WRITES_AFTER=N makes every append after the Nth record of this
+  // process fail as a full disk would. Never set in production; documented in docs/session.md.
+  if (const char* n = std::getenv("LOADTRIM_TEST_FAIL_WRITES_AFTER")) fail_after_ = std::strtoll(n, nullptr, 10);
   fd_ = ::open(path_.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0644);
   if (fd_ < 0) error_ = "cannot open " + path_ + " for appending: " + std::strerror(errno);
 }
@@ -115,6 +119,7 @@ bool EventLog::append(const std::string& type, nlohmann::json payload, const std
     j["prev"] = last_hash_;
     const std::string line = j.dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
     const std::string out = line + "\n";
+    if (fail_after_ >= 0 && appended_ >= fail_after_) fail_writes_ = true;
     if (fail_writes_) {
       errno = ENOSPC;
       error_ = "cannot write to " + path_ + ": " + std::strerror(errno);
@@ -136,6 +141,7 @@ bool EventLog::append(const std::string& type, nlohmann::json payload, const std
     }
     last_hash_ = sha256_hex(line);
     ++next_seq_;
+    ++appended_;
     return true;
   } catch (const std::exception& e) {
     error_ = std::string("cannot encode a log record: ") + e.what();

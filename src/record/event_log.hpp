@@ -40,6 +40,8 @@ class EventLog {
   std::string error_;
   std::string repaired_;
   bool fail_writes_ = false;
+  long long fail_after_ = -1;
+  long long appended_ = 0;
 };
 
 struct VerifyResult {

@@ -524,6 +524,12 @@ void Session::do_safe_stop() {
     return;
   }
   Result r = c_.controlled_stop();
+  if (r.status == Result::Status::retryable && !stop_requested()) {
+    // The link failed: one reconnection to command the stop ourselves rather than wait for the watchdog.
+    c_.disconnect();
+    if (c_.connect().ok()) r = c_.controlled_stop();
+    emit("safe_stop_reconnect", {{"ok", r.ok()}, {"message", r.message}});
+  }
   if (!r.ok()) {
     emit("safe_stop", {{"how", "controlled stop refused or not confirmed; the controller's watchdog will stop the rollers"},
                        {"message", r.message}});
