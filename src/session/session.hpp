@@ -119,6 +119,7 @@ struct ResumePoint {
   bool have_next_set = false;
   std::string strategy;
   double cell_time_s = 0.0;               // controller time used before the interruption
+  int malformed = 0;                      // records that could not be read as this version writes them
 };
 
 struct Summary {

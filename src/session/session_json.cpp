@@ -87,7 +87,7 @@ nlohmann::json to_json(const Summary& s) {
 ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
   ResumePoint p;
   std::optional<int> pending;
-  for (const auto& r : records) {
+  for (const auto& r : records) try {
     const std::string type = r.value("type", "");
     if (r.contains("cell_time_s") && r["cell_time_s"].is_number()) p.cell_time_s = std::max(p.cell_time_s, r["cell_time_s"].get<double>());
     if (type == "first_setting") {
@@ -113,6 +113,9 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
       }
       p.have_next_set = true;
     }
+  } catch (const nlohmann::json::exception& e) {
+    // A record whose fields are not what this version writes: skipped and counted, never a crash.
+    ++p.malformed;
   }
   p.discarded_run = pending;
   return p;

@@ -1,0 +1,18 @@
+// libFuzzer target: the TOML loaders for profile, target, truth and cell (with its Modbus register map) on
+// arbitrary text. Bad input must come back as config::InputError, never as a crash or another exception.
+#include <cstdint>
+#include <string>
+
+#include "config/cell_loader.hpp"
+#include "config/input_error.hpp"
+#include "config/loaders.hpp"
+
+extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size) {
+  using namespace loadtrim::config;
+  const std::string text(reinterpret_cast<const char*>(data), size);
+  try { parse_profile(text, "fuzz.toml"); } catch (const InputError&) {}
+  try { parse_target(text, "fuzz.toml"); } catch (const InputError&) {}
+  try { parse_truth(text, "fuzz.toml"); } catch (const InputError&) {}
+  try { parse_cell(text, "fuzz.toml"); } catch (const InputError&) {}
+  return 0;
+}
