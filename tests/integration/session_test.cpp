@@ -193,9 +193,11 @@ TEST(SessionCli, LinkDroppedMidCoastdownIsRepeated) {
   for (const auto& e : fs::directory_iterator(dir))
     if (e.is_directory() && e.path().filename() != "history") folder = e.path().string();
   const auto rs = records(folder);
-  EXPECT_EQ(count(rs, "link_lost"), 1);
-  EXPECT_EQ(count(rs, "link_restored"), 1);
-  EXPECT_EQ(count(rs, "coastdown_discarded"), 1);
+  // At least the injected drop (a heavily loaded host may add a stalled-stream incident of its own; each is handled
+  // the same way and all of them are logged).
+  EXPECT_GE(count(rs, "link_lost"), 1);
+  EXPECT_EQ(count(rs, "link_restored"), count(rs, "link_lost"));
+  EXPECT_GE(count(rs, "coastdown_discarded"), 1);
   bool watchdog = false;
   for (const auto& r : rs)
     if (r.value("type", "") == "fault_cleared") watchdog = r.value("fault", "") == "WATCHDOG" && r.value("rollers", "") == "stopped";
