@@ -69,6 +69,8 @@ bool Session::emit(const std::string& type, nlohmann::json data, const std::vect
       record_failed_ = true;
       record_error_ = o->error();
     }
+    // Writing a record waits for the disk (fsync): keep the controller's watchdog fed between records.
+    if (link_up_) c_.heartbeat_if_due();
   }
   return !record_failed_;
 }

@@ -33,7 +33,7 @@ void PrintTo(const Row& r, std::ostream* os) { *os << r.name; }
 const Row kRows[] = {
     {"link_dropped_at_connect", {"--drop-at-s", "0"}, 0, "accepted", false, {}},
     {"link_dropped_in_warm_up", {"--drop-in-mode", "HOLD", "--drop-after-s", "200"}, 3, "connection closed by the controller", true, {}},
-    {"link_dropped_in_coast_down", {"--drop-in-mode", "ROADLOAD", "--drop-after-s", "40", "--watchdog-ms", "400"}, 0, "link_restored", false, {}},
+    {"link_dropped_in_coast_down", {"--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"}, 0, "link_restored", false, {}},
     {"corrupted_reply", {"--corrupt-line", "3"}, 0, "accepted", false, {}},
     {"stalled_sample_stream", {"--stall-at-s", "300"}, 3, "no sample for", false, {}},
     {"replies_slower_than_deadline", {"--delay-replies-ms", "1500"}, 3, "no reply to IDENT before the deadline", false, {}},
@@ -84,7 +84,7 @@ TEST_P(FaultMatrix, ExitsAsDocumentedWithTheRollersStopped) {
       << "expected '" << row.message << "' in:\n" << out;
   // The rollers end stopped: the simulator says zero speed and idle. Wait out its watchdog window first, so that
   // this check's own requests cannot keep a motoring controller alive; allow for slowed replies.
-  std::this_thread::sleep_for(std::chrono::milliseconds(1500));
+  std::this_thread::sleep_for(std::chrono::milliseconds(1500));  // > the simulator's 1 s watchdog window
   controller::Timeouts patient;
   patient.reply = std::chrono::milliseconds(4000);
   line::LineController c(line::make_tcp_transport("127.0.0.1", sim.port()), patient, {160.0});

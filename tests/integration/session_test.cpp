@@ -124,7 +124,7 @@ INSTANTIATE_TEST_SUITE_P(EpaVehicles, FleetOverTcp,
                          });
 
 TEST(SessionCli, KillNineMidCoastdownThenResume) {
-  SimProcess sim({"--time-scale", "200", "--watchdog-ms", "500"});
+  SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
   const std::string dir = temp_dir("resume");
   std::string folder;
   {
@@ -178,12 +178,12 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
 }
 
 TEST(SessionCli, LinkDroppedMidCoastdownIsRepeated) {
-  // The simulator drops the link 40 s into the first coast-down; its watchdog (400 ms) stops the rollers before
-  // the tool reconnects (1.5 s); the run is discarded, the watchdog fault cleared with the rollers stopped, the
-  // vehicle re-warmed and the run repeated.
-  SimProcess sim({"--time-scale", "200", "--watchdog-ms", "400", "--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"});
+  // The simulator drops the link 40 s into the first coast-down; its watchdog (1 s) stops the rollers before the
+  // tool reconnects (2.5 s); the run is discarded, the watchdog fault cleared with the rollers stopped, the vehicle
+  // re-warmed and the run repeated.
+  SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000", "--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"});
   const std::string dir = temp_dir("drop");
-  write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 100.0, 1500));
+  write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 100.0, 2500));
   std::string out, err;
   const int rc = run_command({kExe, "run", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
                               "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "200"},
