@@ -86,12 +86,7 @@ modbus::RegisterMap load_register_map(const std::string& path, core::Problems* w
   TomlReader r = TomlReader::from_file(path);
   auto m = read_register_map(r);
   // Only the map is read here: the rest of the file is the cell's business, not unknown keys.
-  core::Problems ws;
-  try {
-    ws = r.finish();
-  } catch (...) {
-    throw;
-  }
+  const core::Problems ws = r.finish();  // throws InputError on any error in the map
   if (w)
     for (const auto& p : ws)
       if (p.key.rfind("modbus", 0) == 0) w->push_back(p);
