@@ -72,6 +72,8 @@ Result ModbusController::read(Q q, double& value) {
   }
   if (rc < 0) return fail(std::string("read ") + kQuantities[q].name + " (" + to_string(r.table) + " " + std::to_string(r.address) + ")");
   value = decode(r, w);
+  if (!std::isfinite(value))
+    return Result::fail(std::string("the controller sent a non-finite ") + kQuantities[q].name + " (" + to_string(r.table) + " " + std::to_string(r.address) + ")");
   return Result::success();
 }
 
@@ -79,7 +81,9 @@ Result ModbusController::write(Q q, double value) {
   if (!ctx_) return Result::retry("link not open");
   const Register& r = map_[q];
   std::uint16_t w[2] = {0, 0};
-  encode(r, value, w);
+  if (!encode(r, value, w))
+    return Result::fail(std::string("cannot write ") + kQuantities[q].name + " = " + std::to_string(value) + ": it does not fit the " + to_string(r.type) +
+                        " register at " + to_string(r.table) + " " + std::to_string(r.address) + " with scale " + std::to_string(r.scale));
   int rc;
   if (r.table == Table::coil) rc = modbus_write_bit(ctx_, r.address, w[0] ? 1 : 0);
   else if (r.words() == 1) rc = modbus_write_register(ctx_, r.address, w[0]);
@@ -100,7 +104,9 @@ Result ModbusController::strobe(controller::Deadline d) {
   if (map_[Q::error].present) {
     double e = 0.0;
     if (Result r = read(Q::error, e); !r.ok()) return r;
-    if (e != 0.0) return Result::fail("the controller refused the setpoints (error register " + std::to_string(static_cast<int>(e)) + ")", static_cast<int>(e));
+    int code = 0;
+    if (std::string bad = decode_error_code(e, code); !bad.empty()) return Result::fail(bad);
+    if (code != 0) return Result::fail("the controller refused the setpoints (error register " + std::to_string(code) + ")", code);
   }
   return Result::success();
 }
@@ -175,10 +181,8 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   } else {
     s.time_s = std::chrono::duration<double>(now - t0_).count();
   }
-  const int m = static_cast<int>(mode);
-  s.mode = m == kCommandHold ? controller::Mode::speed_hold : m == kCommandRoadLoad ? controller::Mode::road_load
-         : m == kCommandStop ? controller::Mode::controlled_stop : controller::Mode::idle;
-  s.flags = static_cast<std::uint32_t>(status);
+  if (std::string bad = decode_mode(mode, s.mode); !bad.empty()) return Result::fail(bad);
+  if (std::string bad = decode_flags(status, s.flags); !bad.empty()) return Result::fail(bad);
   s.index = index_++;
   out.push_back(s);
   return Result::success();
@@ -193,10 +197,8 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
   if (Result r = read(Q::status, status); !r.ok()) return r;
   if (map_[Q::time].present)
     if (Result r = read(Q::time, out.time_s); !r.ok()) return r;
-  const int m = static_cast<int>(mode);
-  out.mode = m == kCommandHold ? controller::Mode::speed_hold : m == kCommandRoadLoad ? controller::Mode::road_load
-           : m == kCommandStop ? controller::Mode::controlled_stop : controller::Mode::idle;
-  out.flags = static_cast<std::uint32_t>(status);
+  if (std::string bad = decode_mode(mode, out.mode); !bad.empty()) return Result::fail(bad);
+  if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);
   out.fault = (out.flags & controller::kFlagWatchdog) ? "WATCHDOG" : (out.flags & controller::kFlagEstop) ? "ESTOP"
             : (out.flags & controller::kFlagFault) ? "FAULT" : "";
   return Result::success();

@@ -3,7 +3,9 @@
 #include <algorithm>
 #include <cmath>
 #include <cstring>
+#include <limits>
 #include <map>
+#include <sstream>
 
 namespace loadtrim::modbus {
 
@@ -71,15 +73,30 @@ double decode(const Register& r, const std::uint16_t* w) {
   return raw * r.scale;
 }
 
-void encode(const Register& r, double value, std::uint16_t* w) {
+bool encode(const Register& r, double value, std::uint16_t* w) {
+  if (!std::isfinite(value) || !(r.scale != 0.0)) return false;
   const double raw = value / r.scale;
   std::uint32_t v32 = 0;
+  const auto fits = [&](double lo, double hi) { return std::isfinite(raw) && std::round(raw) >= lo && std::round(raw) <= hi; };
   switch (r.type) {
-    case Type::int16: w[0] = static_cast<std::uint16_t>(static_cast<std::int16_t>(std::lround(std::clamp(raw, -32768.0, 32767.0)))); return;
-    case Type::uint16: w[0] = static_cast<std::uint16_t>(std::lround(std::clamp(raw, 0.0, 65535.0))); return;
-    case Type::int32: v32 = static_cast<std::uint32_t>(static_cast<std::int32_t>(std::llround(std::clamp(raw, -2147483648.0, 2147483647.0)))); break;
-    case Type::uint32: v32 = static_cast<std::uint32_t>(std::llround(std::clamp(raw, 0.0, 4294967295.0))); break;
+    case Type::int16:
+      if (!fits(-32768.0, 32767.0)) return false;
+      w[0] = static_cast<std::uint16_t>(static_cast<std::int16_t>(std::lround(raw)));
+      return true;
+    case Type::uint16:
+      if (!fits(0.0, 65535.0)) return false;
+      w[0] = static_cast<std::uint16_t>(std::lround(raw));
+      return true;
+    case Type::int32:
+      if (!fits(-2147483648.0, 2147483647.0)) return false;
+      v32 = static_cast<std::uint32_t>(static_cast<std::int32_t>(std::llround(raw)));
+      break;
+    case Type::uint32:
+      if (!fits(0.0, 4294967295.0)) return false;
+      v32 = static_cast<std::uint32_t>(std::llround(raw));
+      break;
     case Type::float32: {
+      if (!std::isfinite(raw) || std::abs(raw) > static_cast<double>(std::numeric_limits<float>::max())) return false;
       const float f = static_cast<float>(raw);
       std::memcpy(&v32, &f, sizeof f);
       break;
@@ -92,6 +109,38 @@ void encode(const Register& r, double value, std::uint16_t* w) {
     w[1] = static_cast<std::uint16_t>(v32 >> 16);
     w[0] = static_cast<std::uint16_t>(v32 & 0xFFFF);
   }
+  return true;
+}
+
+namespace {
+// A register value that must be a whole number in [lo, hi] (codes and bit fields).
+bool whole_in(double v, double lo, double hi) { return std::isfinite(v) && v == std::floor(v) && v >= lo && v <= hi; }
+std::string shown(double v) {
+  std::ostringstream o;
+  o << v;
+  return o.str();
+}
+}  // namespace
+
+std::string decode_mode(double value, controller::Mode& out) {
+  if (!whole_in(value, 0.0, 3.0))
+    return "mode register value " + shown(value) + " is not a mode code (allowed: 0 idle, 1 hold, 2 road load, 3 stop)";
+  const int m = static_cast<int>(value);
+  out = m == kCommandHold ? controller::Mode::speed_hold : m == kCommandRoadLoad ? controller::Mode::road_load
+      : m == kCommandStop ? controller::Mode::controlled_stop : controller::Mode::idle;
+  return "";
+}
+
+std::string decode_flags(double value, std::uint32_t& out) {
+  if (!whole_in(value, 0.0, 4294967295.0)) return "status register value " + shown(value) + " is not a bit field (allowed: 0 to 4294967295)";
+  out = static_cast<std::uint32_t>(value);
+  return "";
+}
+
+std::string decode_error_code(double value, int& out) {
+  if (!whole_in(value, -2147483648.0, 2147483647.0)) return "error register value " + shown(value) + " is not an error code";
+  out = static_cast<int>(value);
+  return "";
 }
 
 }  // namespace loadtrim::modbus

@@ -8,6 +8,7 @@
 #include <string>
 #include <vector>
 
+#include "controller/controller.hpp"
 #include "core/problem.hpp"
 
 namespace loadtrim::modbus {
@@ -58,9 +59,17 @@ struct RegisterMap {
 // Every problem at once, keys "modbus.<quantity>.<field>".
 core::Problems validate(const RegisterMap& m);
 
-// Raw words ↔ physical value, per the register's type, word order and scale.
+// Raw words ↔ physical value, per the register's type, word order and scale. encode refuses (returns false and
+// writes nothing) a value that is not finite or does not fit the register's type after scaling: a setpoint is
+// never clamped or wrapped silently.
 double decode(const Register& r, const std::uint16_t* words);
-void encode(const Register& r, double value, std::uint16_t* words);
+bool encode(const Register& r, double value, std::uint16_t* words);
+
+// Reply values in the controller's terms. Each returns "" or what is wrong with the value (the controller sent a
+// mode code we do not define, a status that is not a whole number of 0..2^32-1, an error code out of range).
+std::string decode_mode(double value, controller::Mode& out);
+std::string decode_flags(double value, std::uint32_t& out);
+std::string decode_error_code(double value, int& out);
 
 const char* to_string(Table t);
 const char* to_string(Type t);

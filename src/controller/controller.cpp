@@ -42,6 +42,7 @@ bool ControllerInfo::has(std::string_view c) const {
 
 template <class F>
 Result Controller::guarded(const char* what, F&& f) {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
   try {
     Result r = f();
     if (!r.ok() && r.message.rfind(what, 0) != 0) r.message = std::string(what) + ": " + r.message;
@@ -59,6 +60,7 @@ Result Controller::connect() {
 }
 
 void Controller::disconnect() {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
   try {
     do_disconnect();
   } catch (...) {  // closing never throws into the caller
@@ -169,8 +171,40 @@ Result Controller::heartbeat() {
 }
 
 Result Controller::heartbeat_if_due() {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
   if (Clock::now() - last_heartbeat_ < timeouts_.heartbeat_interval) return Result::success();
   return heartbeat();
+}
+
+void Controller::heartbeat_if_due_and_free() {
+  const std::unique_lock<std::recursive_mutex> lock(mu_, std::try_to_lock);
+  if (lock.owns_lock()) heartbeat_if_due();  // a failure shows on the driving thread's next call
+}
+
+LinkStats Controller::stats() const {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
+  return stats_;
+}
+
+KeepAlive::KeepAlive(Controller& c) : c_(c) {
+  thread_ = std::thread([this] {
+    const auto period = std::max(std::chrono::milliseconds(5), c_.timeouts().heartbeat_interval / 4);
+    std::unique_lock<std::mutex> lk(m_);
+    while (!cv_.wait_for(lk, period, [this] { return stop_; })) {
+      lk.unlock();
+      c_.heartbeat_if_due_and_free();
+      lk.lock();
+    }
+  });
+}
+
+KeepAlive::~KeepAlive() {
+  {
+    const std::lock_guard<std::mutex> lk(m_);
+    stop_ = true;
+  }
+  cv_.notify_all();
+  thread_.join();
 }
 
 Result Controller::status(StatusReport& out) {

@@ -3,7 +3,9 @@
 // configuration, the cell's limits, read-back checks, heartbeat scheduling and link statistics, and turn
 // anything an adapter throws into a fatal status.
 //
-// Threading: one thread drives a Controller. Calls block for at most their deadline.
+// Threading: one thread drives a Controller; calls block for at most their deadline. A KeepAlive (below) may feed
+// the watchdog from a second thread: every public call holds the controller's lock, and the keep-alive only takes
+// it when it is free, so it never delays the driving thread and never interleaves with a call.
 // Time: every sample carries the controller's own timestamp; callers time the test from those, never from the
 // host clock. The host clock (steady_clock) is used here for deadlines and heartbeats only.
 #pragma once
@@ -11,8 +13,11 @@
 #include <algorithm>
 #include <chrono>
 #include <cmath>
+#include <condition_variable>
 #include <cstdint>
+#include <mutex>
 #include <string>
+#include <thread>
 #include <vector>
 
 #include "core/road_load.hpp"
@@ -121,10 +126,12 @@ class Controller {
   Result receive_samples(std::vector<Sample>& out);
   Result heartbeat();                    // sends one now
   Result heartbeat_if_due();
+  // For KeepAlive: a heartbeat if one is due and no call is in progress (then the call sends its own).
+  void heartbeat_if_due_and_free();
   Result status(StatusReport& out);
   Result clear_fault();
 
-  const LinkStats& stats() const { return stats_; }
+  LinkStats stats() const;  // a copy, taken under the lock
   const Timeouts& timeouts() const { return timeouts_; }
   const Limits& limits() const { return limits_; }
   void set_speed_limit(double max_speed_kmh) { limits_.max_speed_kmh = max_speed_kmh; }
@@ -152,12 +159,31 @@ class Controller {
  private:
   template <class F>
   Result guarded(const char* what, F&& f);
+  mutable std::recursive_mutex mu_;
   Deadline reply_deadline() const { return Clock::now() + timeouts_.reply; }
   Timeouts timeouts_;
   Limits limits_;
   Clock::time_point last_heartbeat_{};
   std::uint64_t next_index_ = 0;
   bool have_index_ = false;
+};
+
+// Feeds the controller's watchdog from a thread of its own for as long as it lives, so that a slow disk, a large
+// trace being hashed and written, or report rendering on the driving thread never lets the heartbeat lapse while
+// the rollers turn. Destroy it before the controller.
+class KeepAlive {
+ public:
+  explicit KeepAlive(Controller& c);
+  ~KeepAlive();
+  KeepAlive(const KeepAlive&) = delete;
+  KeepAlive& operator=(const KeepAlive&) = delete;
+
+ private:
+  Controller& c_;
+  std::mutex m_;
+  std::condition_variable cv_;
+  bool stop_ = false;
+  std::thread thread_;
 };
 
 }  // namespace loadtrim::controller

@@ -69,8 +69,6 @@ bool Session::emit(const std::string& type, nlohmann::json data, const std::vect
       record_failed_ = true;
       record_error_ = o->error();
     }
-    // Writing a record waits for the disk (fsync): keep the controller's watchdog fed between records.
-    if (link_up_) c_.heartbeat_if_due();
   }
   return !record_failed_;
 }
@@ -555,6 +553,9 @@ void Session::do_safe_stop() {
 }
 
 Summary Session::run(const ResumePoint* resume) {
+  // Records wait for the disk (fsync) and large traces take time to hash and write: a thread of its own keeps the
+  // controller's watchdog fed meanwhile, for the whole session.
+  const controller::KeepAlive keep_alive(c_);
   const auto& p = in_.profile;
   method_ = std::make_unique<core::SettingMethodState>(in_.profile, in_.vehicle.target);
   int run_no = 1;

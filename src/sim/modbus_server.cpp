@@ -43,7 +43,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     const auto& r = map[q];
     if (!r.present) return;
     std::uint16_t w[2] = {0, 0};
-    modbus::encode(r, v, w);
+    if (!modbus::encode(r, v, w)) return;  // does not fit the register: it keeps its last value
     if (r.table == Table::coil) mb->tab_bits[r.address] = w[0] ? 1 : 0;
     else {
       std::uint16_t* tab = r.table == Table::input ? mb->tab_input_registers : mb->tab_registers;

@@ -10,10 +10,10 @@ if [ ! -f "$build/CMakeCache.txt" ]; then
   CC=clang CXX=clang++ cmake -S . -B "$build" -DLOADTRIM_FUZZ=ON -DBUILD_TESTING=OFF -DCMAKE_BUILD_TYPE=RelWithDebInfo \
     -DCMAKE_CXX_FLAGS="-fsanitize=fuzzer-no-link,address,undefined -fno-omit-frame-pointer" >/dev/null
 fi
-cmake --build "$build" -j "$(nproc)" --target fuzz_line_protocol fuzz_toml_loaders fuzz_files
+cmake --build "$build" -j "$(nproc)" --target fuzz_line_protocol fuzz_toml_loaders fuzz_files fuzz_modbus_reply
 mkdir -p tests/fuzz/findings
 status=0
-for t in fuzz_line_protocol fuzz_toml_loaders fuzz_files; do
+for t in fuzz_line_protocol fuzz_toml_loaders fuzz_files fuzz_modbus_reply; do
   work=$(mktemp -d)
   cp -r "tests/fuzz/corpus/$t/." "$work/" 2>/dev/null || true
   echo "== $t for ${seconds}s"

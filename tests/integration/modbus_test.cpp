@@ -3,13 +3,16 @@
 // full setting session over Modbus TCP.
 #include <gtest/gtest.h>
 
+#include <cmath>
 #include <filesystem>
+#include <limits>
 #include <fstream>
 #include <thread>
 
 #include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
 #include "modbus/modbus_controller.hpp"
+#include "modbus/register_map.hpp"
 #include "record/event_log.hpp"
 #include "process/child_process.hpp"
 #include "support/sim_process.hpp"
@@ -41,6 +44,50 @@ std::vector<controller::Sample> poll_until(controller::Controller& c, const std:
   return all;
 }
 }  // namespace
+
+// Reply decoding and setpoint encoding without a link. Check values: the ranges of 16-bit two's-complement and
+// unsigned integers, and the IEEE 754 single-precision quiet NaN 0x7FC00000 (definitions of the formats).
+TEST(Modbus, ReplyValuesAreCheckedAndSetpointsAreNeverClamped) {
+  using namespace loadtrim::modbus;
+  Register f32;
+  f32.present = true;
+  f32.type = Type::float32;
+  const std::uint16_t nan_words[2] = {0x7FC0, 0x0000};
+  EXPECT_TRUE(std::isnan(decode(f32, nan_words)));
+  controller::Mode m = controller::Mode::speed_hold;
+  EXPECT_NE(decode_mode(std::nan(""), m), "");
+  EXPECT_NE(decode_mode(1.5, m), "");
+  EXPECT_NE(decode_mode(4.0, m), "");
+  EXPECT_NE(decode_mode(-1.0, m), "");
+  EXPECT_EQ(decode_mode(2.0, m), "");
+  EXPECT_EQ(m, controller::Mode::road_load);
+  std::uint32_t flags = 0;
+  EXPECT_NE(decode_flags(-1.0, flags), "");
+  EXPECT_NE(decode_flags(4294967296.0, flags), "");
+  EXPECT_EQ(decode_flags(4294967295.0, flags), "");
+  EXPECT_EQ(flags, 0xFFFFFFFFu);
+  int code = 0;
+  EXPECT_NE(decode_error_code(std::numeric_limits<double>::infinity(), code), "");
+  Register i16;
+  i16.present = true;
+  i16.type = Type::int16;
+  i16.scale = 0.01;
+  std::uint16_t w[2] = {0xAAAA, 0xAAAA};
+  EXPECT_TRUE(encode(i16, 327.67, w));   // raw 32767, the largest int16
+  EXPECT_EQ(w[0], 0x7FFF);
+  EXPECT_TRUE(encode(i16, -327.68, w));  // raw -32768, the smallest
+  EXPECT_EQ(w[0], 0x8000);
+  w[0] = 0x1234;
+  EXPECT_FALSE(encode(i16, 327.69, w));  // raw 32769: refused, not clamped to 32767
+  EXPECT_FALSE(encode(i16, std::nan(""), w));
+  EXPECT_EQ(w[0], 0x1234);               // nothing written
+  Register u16;
+  u16.present = true;
+  u16.type = Type::uint16;
+  EXPECT_FALSE(encode(u16, -1.0, w));
+  EXPECT_FALSE(encode(u16, 65536.0, w));
+  EXPECT_FALSE(encode(f32, 1e39, w));    // beyond the largest float32 (about 3.4e38)
+}
 
 TEST(Modbus, TcpHandshakeReadBackCoastdownAt50HzPolling) {
   SimProcess sim({"--modbus-map", kCell, "--time-scale", "20"});

@@ -7,11 +7,14 @@
 namespace loadtrim::testing {
 
 SimProcess::SimProcess(std::vector<std::string> args, bool pty) {
-  bool has_truth = false;
-  for (const auto& a : args) has_truth = has_truth || a == "--truth";
+  bool has_truth = false, has_exit = false;
+  for (const auto& a : args) {
+    has_truth = has_truth || a == "--truth";
+    has_exit = has_exit || a == "--exit-after-s";
+  }
   std::vector<std::string> argv = {LOADTRIM_SIM_EXE};
   if (!has_truth) argv.insert(argv.end(), {"--truth", std::string(LOADTRIM_SOURCE_DIR) + "/samples/truths/demo-hatchback.toml"});
-  argv.insert(argv.end(), {"--exit-after-s", "600"});
+  if (!has_exit) argv.insert(argv.end(), {"--exit-after-s", "600"});
   if (pty) argv.push_back("--pty");
   else argv.insert(argv.end(), {"--port", "0"});
   argv.insert(argv.end(), args.begin(), args.end());
