@@ -13,6 +13,7 @@ bool parse_mode(std::string_view w, Mode& out) {
   if (w == kModeHold) return out = Mode::speed_hold, true;
   if (w == kModeRoadLoad) return out = Mode::road_load, true;
   if (w == kModeStop) return out = Mode::controlled_stop, true;
+  if (w == kModeForce) return out = Mode::constant_force, true;
   return false;
 }
 
@@ -22,6 +23,8 @@ const char* wire_mode(Mode m) {
     case Mode::speed_hold: return kModeHold;
     case Mode::road_load: return kModeRoadLoad;
     case Mode::controlled_stop: return kModeStop;
+    case Mode::constant_force: return kModeForce;
+    case Mode::free_coast: return kModeFree;
   }
   return kModeIdle;
 }
@@ -197,10 +200,10 @@ Result LineController::do_read_coefficients(core::RoadLoad& c, Deadline d) {
   return Result::success();
 }
 
-Result LineController::do_command(Mode mode, double hold_kmh, Deadline d) {
+Result LineController::do_command(Mode mode, double value, Deadline d) {
   Message rep;
   std::vector<std::string> f = {wire_mode(mode)};
-  if (mode == Mode::speed_hold) f.push_back(format_number(hold_kmh));
+  if (mode == Mode::speed_hold || mode == Mode::constant_force) f.push_back(format_number(value));
   return request("MODE", std::move(f), rep, d);
 }
 

@@ -83,6 +83,8 @@ inline constexpr const char* kModeIdle = "IDLE";
 inline constexpr const char* kModeHold = "HOLD";
 inline constexpr const char* kModeRoadLoad = "ROADLOAD";
 inline constexpr const char* kModeStop = "STOP";
+inline constexpr const char* kModeForce = "FORCE";  // MODE FORCE <N>: constant force, no simulation
+inline constexpr const char* kModeFree = "FREE";    // MODE FREE: motor off at speed, the rollers coast (reported IDLE)
 
 // Flag bits in SMP and STATUS.
 inline constexpr std::uint32_t kFlagFault = 0x01;

@@ -147,6 +147,10 @@ Result ModbusController::do_command(controller::Mode mode, double hold_kmh, cont
     case controller::Mode::speed_hold: code = kCommandHold; break;
     case controller::Mode::road_load: code = kCommandRoadLoad; break;
     case controller::Mode::controlled_stop: code = kCommandStop; break;
+    case controller::Mode::constant_force:
+    case controller::Mode::free_coast:
+      return Result::fail(std::string(controller::to_string(mode)) +
+                          " is not in the Modbus register map: run the dyno's own checks over a line adapter");
   }
   if (mode == controller::Mode::speed_hold)
     if (Result r = write(Q::hold_speed, hold_kmh); !r.ok()) return r;

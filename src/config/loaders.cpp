@@ -125,6 +125,8 @@ physics::Truth read_truth(TomlReader& r) {
   auto& d = t.dyno;
   d.roller_diameter_m = r.number_or("dyno.roller_diameter_m", d.roller_diameter_m, 0.2, 3.0, "m");
   d.base_inertia_kg = r.number_or("dyno.base_inertia_kg", d.base_inertia_kg, 50.0, 10000.0, "kg");
+  if (r.has("dyno.stated_base_inertia_kg"))
+    d.stated_base_inertia_kg = r.number("dyno.stated_base_inertia_kg", 50.0, 10000.0, "kg");
   d.inertia_simulation_error = r.number_or("dyno.inertia_simulation_error", d.inertia_simulation_error, -0.2, 0.2, "");
   d.parasitic_f0_n = r.number_or("dyno.parasitic_f0_n", d.parasitic_f0_n, 0.0, 1000.0, "N");
   d.parasitic_f1_n_per_kmh = r.number_or("dyno.parasitic_f1_n_per_kmh", d.parasitic_f1_n_per_kmh, -10.0, 10.0, "N/(km/h)");
@@ -135,6 +137,7 @@ physics::Truth read_truth(TomlReader& r) {
   d.motoring_accel_mps2 = r.number_or("dyno.motoring_accel_mps2", d.motoring_accel_mps2, 0.1, 10.0, "m/s²");
   d.stop_decel_mps2 = r.number_or("dyno.stop_decel_mps2", d.stop_decel_mps2, 0.1, 10.0, "m/s²");
   t.noise_seed = static_cast<std::uint64_t>(r.integer_or("noise_seed", 1, 0, 2147483647));
+  t.vehicle_on_rollers = r.boolean_or("vehicle_on_rollers", true);
   return t;
 }
 

@@ -49,7 +49,9 @@ std::string target_toml(const core::VehicleTarget& v, const std::string& header)
 
 std::string truth_toml(const physics::Truth& t, const std::string& header) {
   std::string o = "# " + header + "\n";
-  o += "noise_seed = " + std::to_string(t.noise_seed % 2147483647ULL) + "\n\n[vehicle]\n";
+  o += "noise_seed = " + std::to_string(t.noise_seed % 2147483647ULL) + "\n";
+  if (!t.vehicle_on_rollers) o += "vehicle_on_rollers = false\n";
+  o += "\n[vehicle]\n";
   const auto& v = t.vehicle;
   o += "name = " + quoted(v.name) + "\n";
   auto kv = [&](const char* k, double x) { o += std::string(k) + " = " + num(x) + "\n"; };
@@ -70,6 +72,7 @@ std::string truth_toml(const physics::Truth& t, const std::string& header) {
   const auto& d = t.dyno;
   kv("roller_diameter_m", d.roller_diameter_m);
   kv("base_inertia_kg", d.base_inertia_kg);
+  if (d.stated_base_inertia_kg > 0.0) kv("stated_base_inertia_kg", d.stated_base_inertia_kg);
   kv("inertia_simulation_error", d.inertia_simulation_error);
   kv("parasitic_f0_n", d.parasitic_f0_n);
   kv("parasitic_f1_n_per_kmh", d.parasitic_f1_n_per_kmh);

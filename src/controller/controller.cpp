@@ -25,6 +25,8 @@ const char* to_string(Mode m) {
     case Mode::speed_hold: return "speed-hold";
     case Mode::road_load: return "road-load";
     case Mode::controlled_stop: return "controlled-stop";
+    case Mode::constant_force: return "constant-force";
+    case Mode::free_coast: return "free-coast";
   }
   return "unknown";
 }
@@ -124,6 +126,18 @@ Result Controller::controlled_stop() {
 }
 Result Controller::idle() {
   return guarded("idle", [&] { return do_command(Mode::idle, 0.0, reply_deadline()); });
+}
+Result Controller::apply_force(double n) {
+  return guarded("constant force", [&] {
+    if (!std::isfinite(n)) return Result::fail("force " + num(n) + " N is not valid");
+    if (!(limits_.max_force_n > 0.0)) return Result::fail("no force limit configured: refusing to motor the rollers");
+    if (std::abs(n) > limits_.max_force_n)
+      return Result::fail("force " + num(n) + " N is above the limit of " + num(limits_.max_force_n) + " N; not sent");
+    return do_command(Mode::constant_force, n, reply_deadline());
+  });
+}
+Result Controller::free_coast() {
+  return guarded("free coast", [&] { return do_command(Mode::free_coast, 0.0, reply_deadline()); });
 }
 
 Result Controller::start_stream(double rate_hz) {

@@ -41,7 +41,10 @@ struct Result {
 };
 const char* to_string(Result::Status s);
 
-enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop };
+// free_coast is a command only (motor off at speed, no simulation: the rollers coast on their own inertia and
+// losses); the controller reports idle while they do. constant_force: the motor applies a set force, parasitic
+// compensation on, no inertia or road-load simulation. Both serve the dyno's own checks with no vehicle.
+enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop, constant_force, free_coast };
 const char* to_string(Mode m);
 
 // Fault and state flags, as every adapter reports them.
@@ -88,6 +91,7 @@ struct Timeouts {
 
 struct Limits {
   double max_speed_kmh = 0.0;  // never command more (the cell's and the vehicle's, whichever is lower)
+  double max_force_n = 0.0;    // never command a constant force of more (the cell's limit)
 };
 
 struct LinkStats {
@@ -119,6 +123,9 @@ class Controller {
   Result release_road_load();
   Result controlled_stop();
   Result idle();
+  // The dyno's own checks (no vehicle on the rollers): refused here above the cell's force limit.
+  Result apply_force(double force_n);
+  Result free_coast();
   Result start_stream(double rate_hz);  // 10 to 1000 Hz
   Result stop_stream();
   // Appends the samples that have arrived, waiting up to the sample-gap deadline for at least one. Sends a
@@ -144,7 +151,8 @@ class Controller {
   virtual Result do_read_inertia(double& inertia_kg, Deadline d) = 0;
   virtual Result do_write_coefficients(const core::RoadLoad& set, Deadline d) = 0;
   virtual Result do_read_coefficients(core::RoadLoad& set, Deadline d) = 0;
-  virtual Result do_command(Mode mode, double hold_speed_kmh, Deadline d) = 0;
+  // value: the hold speed in km/h for speed_hold, the force in N for constant_force, else unused.
+  virtual Result do_command(Mode mode, double value, Deadline d) = 0;
   virtual Result do_stream(double rate_hz, Deadline d) = 0;
   virtual Result do_receive_samples(std::vector<Sample>& out, Deadline d) = 0;
   virtual Result do_heartbeat(Deadline d) = 0;

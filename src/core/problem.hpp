@@ -23,6 +23,13 @@ inline std::string num(double v) {
   return buf;
 }
 
+// A number with a fixed count of decimals (reports and verdicts).
+inline std::string num(double v, int decimals) {
+  char buf[48];
+  std::snprintf(buf, sizeof buf, "%.*f", decimals, v);
+  return buf;
+}
+
 inline bool has_errors(const Problems& ps) {
   for (const auto& p : ps)
     if (p.severity == Problem::Severity::error) return true;

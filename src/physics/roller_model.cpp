@@ -19,6 +19,7 @@ const char* to_string(Mode m) {
     case Mode::speed_hold: return "speed-hold";
     case Mode::road_load: return "road-load";
     case Mode::controlled_stop: return "controlled-stop";
+    case Mode::constant_force: return "constant-force";
   }
   return "unknown";
 }
@@ -37,7 +38,7 @@ void RollerModel::hold_speed(double speed_kmh) {
 
 double RollerModel::vehicle_loss_n(double v) const {
   const auto& t = truth_.vehicle;
-  if (v <= 0.0) return 0.0;
+  if (v <= 0.0 || !truth_.vehicle_on_rollers) return 0.0;
   const double tyre = (t.tyre_loss_flat_n + t.tyre_loss_flat_n_per_kmh * v) * curvature_;
   const double spin = (t.drivetrain_loss_n + t.drivetrain_loss_n_per_kmh2 * v * v) *
                       (1.0 + t.drivetrain_cold_excess * (1.0 - warmth_));
@@ -50,8 +51,16 @@ double RollerModel::parasitic_residual_n(double v) const {
   return d.parasitic_compensation_error * (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
 }
 
+double RollerModel::stated_base_inertia_kg() const {
+  return truth_.dyno.stated_base_inertia_kg > 0.0 ? truth_.dyno.stated_base_inertia_kg : truth_.dyno.base_inertia_kg;
+}
+
+double RollerModel::rotating_mass_kg() const { return truth_.vehicle_on_rollers ? truth_.vehicle.rotating_mass_on_rollers_kg : 0.0; }
+
 double RollerModel::coasting_mass_kg() const {
-  return inertia_set_kg_ * (1.0 + truth_.dyno.inertia_simulation_error) + truth_.vehicle.rotating_mass_on_rollers_kg;
+  // The controller simulates I_set − (the base inertia it believes); the true base inertia turns as it is.
+  return inertia_set_kg_ * (1.0 + truth_.dyno.inertia_simulation_error) + rotating_mass_kg() +
+         (truth_.dyno.base_inertia_kg - stated_base_inertia_kg());
 }
 
 double RollerModel::road_load_force_n(double v) const {
@@ -61,10 +70,16 @@ double RollerModel::road_load_force_n(double v) const {
 double RollerModel::acceleration_mps2(double v_mps) const {
   const double v = v_mps * kKmhPerMps;
   if (mode_ == Mode::road_load) return -road_load_force_n(v) / coasting_mass_kg();
-  // Idle: motor off, the rollers freewheel on their own inertia against the vehicle's and their own losses.
   const auto& d = truth_.dyno;
+  const double physical_mass = d.base_inertia_kg + rotating_mass_kg();
+  if (mode_ == Mode::constant_force) {
+    // The motor's force against the vehicle's losses and the residual parasitic loss (compensation on).
+    if (v <= 0.0 && force_cmd_n_ <= 0.0) return 0.0;
+    return (force_cmd_n_ - vehicle_loss_n(v) - parasitic_residual_n(v)) / physical_mass;
+  }
+  // Idle: motor off, the rollers freewheel on their own inertia against the vehicle's and their own losses.
   const double parasitic = d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v;
-  return -(vehicle_loss_n(v) + (v > 0 ? parasitic : 0.0)) / (d.base_inertia_kg + truth_.vehicle.rotating_mass_on_rollers_kg);
+  return -(vehicle_loss_n(v) + (v > 0 ? parasitic : 0.0)) / physical_mass;
 }
 
 void RollerModel::advance(double dt_s, double max_step_s) {
@@ -85,9 +100,10 @@ void RollerModel::advance(double dt_s, double max_step_s) {
         speed_mps_ = std::max(0.0, v0 - truth_.dyno.stop_decel_mps2 * h);
         if (speed_mps_ == 0.0) mode_ = Mode::idle;
         break;
+      case Mode::constant_force:
       case Mode::road_load:
       case Mode::idle: {
-        if (v0 <= 0.0) {
+        if (v0 <= 0.0 && !(mode_ == Mode::constant_force && force_cmd_n_ > 0.0)) {
           speed_mps_ = 0.0;
           break;
         }
@@ -116,11 +132,12 @@ double RollerModel::load_cell_n() const {
     case Mode::controlled_stop:
       // The force the motor needs: the vehicle's and residual parasitic losses, plus what accelerates the
       // physical rotating mass.
-      return vehicle_loss_n(v) + parasitic_residual_n(v) + (v > 0.0 ? truth_.vehicle.hold_bias_n : 0.0) +
-             (truth_.dyno.base_inertia_kg + truth_.vehicle.rotating_mass_on_rollers_kg) * accel_mps2_;
+      return vehicle_loss_n(v) + parasitic_residual_n(v) + (v > 0.0 && truth_.vehicle_on_rollers ? truth_.vehicle.hold_bias_n : 0.0) +
+             (truth_.dyno.base_inertia_kg + rotating_mass_kg()) * accel_mps2_;
     case Mode::road_load:
       // The set load plus the electrically simulated part of the inertia.
       return set_.force_n(v) - (coasting_mass_kg() - truth_.dyno.base_inertia_kg) * accel_mps2_;
+    case Mode::constant_force: return force_cmd_n_;  // the force the motor applies, as its load cell reads it
     case Mode::idle: return 0.0;
   }
   return 0.0;

@@ -40,6 +40,8 @@ struct VehicleTruth {
 struct DynoTruth {
   double roller_diameter_m = 1.2192;          // 48 in
   double base_inertia_kg = 1250.0;            // mechanical inertia of rollers and motor, as equivalent mass
+  double stated_base_inertia_kg = 0.0;        // what the controller believes and reports (its nameplate); 0 = the
+                                              // true value. A difference is an inertia simulation error of its own.
   double inertia_simulation_error = 0.0;      // fraction: the simulated inertia is I_set·(1 + this)
   double parasitic_f0_n = 20.0;               // the dyno's own parasitic loss curve
   double parasitic_f1_n_per_kmh = 0.10;
@@ -52,6 +54,7 @@ struct DynoTruth {
 };
 
 struct Truth {
+  bool vehicle_on_rollers = true;             // false: the empty rollers (the dyno's own checks)
   VehicleTruth vehicle;
   DynoTruth dyno;
   std::uint64_t noise_seed = 1;
@@ -60,7 +63,10 @@ struct Truth {
 // √(1 + r_tyre / R_roller), from memory (domain.md §5).
 double roller_curvature_factor(double tyre_radius_m, double roller_radius_m);
 
-enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop };
+// idle: motor off; at speed the rollers coast freely on their own inertia and losses (no simulation, no
+// compensation). constant_force: the motor applies a set force at the roller surface, parasitic compensation on,
+// no inertia or road-load simulation (the base inertia check).
+enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop, constant_force };
 const char* to_string(Mode m);
 
 struct Sample {
@@ -80,6 +86,10 @@ class RollerModel {
   void release_road_load() { mode_ = Mode::road_load; }
   void controlled_stop() { mode_ = Mode::controlled_stop; }
   void idle() { mode_ = Mode::idle; }
+  void apply_force(double force_n) {
+    force_cmd_n_ = force_n;
+    mode_ = Mode::constant_force;
+  }
 
   // Advance simulated time by dt_s with fixed RK4 steps no longer than max_step_s.
   void advance(double dt_s, double max_step_s = 0.001);
@@ -101,7 +111,9 @@ class RollerModel {
   // Truth curves at the current warmth (tests and the benchmark compare against them).
   double vehicle_loss_n(double speed_kmh) const;
   double parasitic_residual_n(double speed_kmh) const;
-  double coasting_mass_kg() const;  // I_sim·(1+ε) + m_rot
+  double coasting_mass_kg() const;  // I_sim·(1+ε) + m_rot + (base − stated base)
+  double stated_base_inertia_kg() const;
+  double rotating_mass_kg() const;   // of the vehicle on the rollers (0 when empty)
   // Total retarding force in road-load simulation at a speed, N.
   double road_load_force_n(double speed_kmh) const;
 
@@ -116,6 +128,7 @@ class RollerModel {
   double accel_mps2_ = 0.0;  // of the last step, for the load cell's inertial term
   double warmth_;
   double hold_kmh_ = 0.0;
+  double force_cmd_n_ = 0.0;
   Mode mode_ = Mode::idle;
   double curvature_;
   std::mt19937_64 rng_;

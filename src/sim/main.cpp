@@ -22,6 +22,8 @@ int main(int argc, char** argv) {
   app.add_option("--truth", truth_file, "the simulated vehicle and dyno (TOML); the tool never sees it")->required();
   app.add_option("--bind", srv.bind, "address to listen on")->capture_default_str();
   app.add_option("--port", srv.port, "TCP port, 0 = pick a free one and print it")->capture_default_str();
+  bool empty = false;
+  app.add_flag("--empty-rollers", empty, "no vehicle on the rollers (the dyno's own checks): only the truth's [dyno] part acts");
   app.add_flag("--pty", srv.pty, "serve on a new pseudo-terminal instead of TCP and print its path");
   app.add_option("--time-scale", srv.time_scale, "simulated seconds per wall second")->check(CLI::Range(0.01, 10000.0))->capture_default_str();
   app.add_option("--watchdog-ms", watchdog_ms, "no request for this long while motoring → controlled stop")->check(CLI::Range(50.0, 600000.0))->capture_default_str();
@@ -55,6 +57,7 @@ int main(int argc, char** argv) {
     return 2;
   }
   if (warmth >= 0.0) truth.vehicle.initial_warmth = warmth;
+  if (empty) truth.vehicle_on_rollers = false;
   s.watchdog_s = watchdog_ms / 1000.0;
   if (drop_at >= 0) s.faults.drop_at_s = drop_at;
   if (!drop_in_mode.empty()) s.faults.drop_in_mode = drop_in_mode;

@@ -17,6 +17,7 @@ controller::Mode to_controller(Mode m) {
     case Mode::speed_hold: return controller::Mode::speed_hold;
     case Mode::road_load: return controller::Mode::road_load;
     case Mode::controlled_stop: return controller::Mode::controlled_stop;
+    case Mode::constant_force: return controller::Mode::constant_force;
   }
   return controller::Mode::idle;
 }
@@ -26,6 +27,8 @@ const char* wire(controller::Mode m) {
     case controller::Mode::speed_hold: return line::kModeHold;
     case controller::Mode::road_load: return line::kModeRoadLoad;
     case controller::Mode::controlled_stop: return line::kModeStop;
+    case controller::Mode::constant_force: return line::kModeForce;
+    case controller::Mode::free_coast: return line::kModeIdle;  // reported as idle while coasting
   }
   return line::kModeIdle;
 }
@@ -67,7 +70,7 @@ controller::ControllerInfo SimController::info() const {
   i.protocol_version = line::kProtocolVersion;
   i.capabilities = std::string(kCaps).substr(5);
   i.roller_diameter_m = settings_.faults.report_roller_diameter_m.value_or(d.roller_diameter_m);
-  i.base_inertia_kg = settings_.faults.report_base_inertia_kg.value_or(d.base_inertia_kg);
+  i.base_inertia_kg = settings_.faults.report_base_inertia_kg.value_or(model_.stated_base_inertia_kg());
   i.max_speed_kmh = settings_.max_speed_kmh;
   i.max_force_n = settings_.max_force_n;
   return i;
@@ -88,7 +91,7 @@ std::optional<SimError> SimController::set_coefficients(const core::RoadLoad& c)
 }
 
 std::optional<SimError> SimController::command(controller::Mode mode, double hold_kmh) {
-  const bool moving = mode == controller::Mode::speed_hold || mode == controller::Mode::road_load;
+  const bool moving = mode == controller::Mode::speed_hold || mode == controller::Mode::road_load || mode == controller::Mode::constant_force;
   if (moving && !fault_.empty()) return SimError{ErrorCode::fault_active, "fault " + fault_ + " latched: CLEAR first"};
   switch (mode) {
     case controller::Mode::speed_hold:
@@ -101,6 +104,11 @@ std::optional<SimError> SimController::command(controller::Mode mode, double hol
     case controller::Mode::idle:
       if (model_.speed_kmh() > 0.5) return SimError{ErrorCode::wrong_state, "rollers turning: STOP first"};
       model_.idle();
+      break;
+    case controller::Mode::free_coast: model_.idle(); break;  // the motor lets go at any speed
+    case controller::Mode::constant_force:
+      if (!(std::abs(hold_kmh) <= settings_.max_force_n)) return SimError{ErrorCode::out_of_limits, "force above the controller limit"};
+      model_.apply_force(hold_kmh);
       break;
   }
   mode_since_s_ = model_.time_s();
@@ -170,7 +178,7 @@ void SimController::advance_typed(double dt, std::vector<controller::Sample>& sa
 
 void SimController::check_watchdog_typed(double wall_s, std::vector<std::string>& events) {
   const Mode m = model_.mode();
-  if ((m == Mode::speed_hold || m == Mode::road_load) && wall_s - last_request_wall_s_ > settings_.watchdog_s)
+  if ((m == Mode::speed_hold || m == Mode::road_load || m == Mode::constant_force) && wall_s - last_request_wall_s_ > settings_.watchdog_s)
     latch_fault("WATCHDOG", "no request within the watchdog window: controlled stop", events);
 }
 
@@ -293,7 +301,7 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
     return reply_err(req, ErrorCode::bad_argument, "COEF GET or COEF SET <f0> <f1> <f2>", out);
   }
   if (m.type == "MODE") {
-    if (f.empty()) return reply_err(req, ErrorCode::bad_argument, "MODE IDLE|HOLD <km/h>|ROADLOAD|STOP", out);
+    if (f.empty()) return reply_err(req, ErrorCode::bad_argument, "MODE IDLE|HOLD <km/h>|ROADLOAD|STOP|FORCE <N>|FREE", out);
     controller::Mode mode;
     double hold = 0.0;
     if (f[0] == line::kModeHold) {
@@ -301,7 +309,13 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
       if (!v) return reply_err(req, ErrorCode::bad_argument, "MODE HOLD needs a speed in km/h", out);
       mode = controller::Mode::speed_hold;
       hold = *v;
-    } else if (f[0] == line::kModeRoadLoad) mode = controller::Mode::road_load;
+    } else if (f[0] == line::kModeForce) {
+      const auto v = f.size() == 2 ? line::parse_number(f[1]) : std::nullopt;
+      if (!v) return reply_err(req, ErrorCode::bad_argument, "MODE FORCE needs a force in N", out);
+      mode = controller::Mode::constant_force;
+      hold = *v;
+    } else if (f[0] == line::kModeFree) mode = controller::Mode::free_coast;
+    else if (f[0] == line::kModeRoadLoad) mode = controller::Mode::road_load;
     else if (f[0] == line::kModeStop) mode = controller::Mode::controlled_stop;
     else if (f[0] == line::kModeIdle) mode = controller::Mode::idle;
     else return reply_err(req, ErrorCode::bad_argument, "unknown mode " + f[0], out);
