@@ -25,6 +25,8 @@ int main(int argc, char** argv) {
   register_link_check(app, run);
   register_session_commands(app, run);
   register_bench(app, run);
+  register_check_commands(app, run);
+  register_target_command(app, run);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {

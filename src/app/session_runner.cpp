@@ -215,6 +215,14 @@ int exit_code_for(session::Outcome o) {
   return kInternalError;
 }
 
+const std::atomic<bool>& stop_flag() { return g_stop; }
+
+std::optional<core::FleetLossModel> fleet_model(const std::string& csv) { return load_fleet(csv); }
+std::optional<core::HistoryEntry> history_for(const std::string& dir, const controller::CellConfig& cell, const core::VehicleTarget& v) {
+  return load_history(history_file(dir, cell, v));
+}
+std::string default_fleet_csv() { return data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv"; }
+
 void install_stop_handlers() {
   struct sigaction sa {};
   sa.sa_handler = on_stop_signal;

@@ -2,10 +2,14 @@
 // operator's confirmation, signal handling, the session folder and its record, history, and the exit code.
 #pragma once
 
+#include <atomic>
 #include <optional>
 #include <string>
 
+#include "controller/cell.hpp"
 #include "controller/controller.hpp"
+#include "core/strategy.hpp"
+#include "core/vehicle.hpp"
 #include "physics/roller_model.hpp"
 #include "session/console.hpp"
 #include "session/session.hpp"
@@ -36,7 +40,15 @@ int run_new_session(const RunRequest& req, std::string* folder_out = nullptr);
 int resume_session(const std::string& folder, const RunRequest& overrides);
 
 int exit_code_for(session::Outcome o);
-// Installs SIGINT/SIGTERM handlers that ask the session to stop safely.
+
+// The fleet loss model from an EPA-format CSV (nullopt, with a message on stderr, when it cannot be fitted), and
+// the history of a vehicle on a cell (nullopt when there is none) — as the session's first-setting strategies use them.
+std::optional<core::FleetLossModel> fleet_model(const std::string& csv);
+std::optional<core::HistoryEntry> history_for(const std::string& history_dir, const controller::CellConfig& cell,
+                                              const core::VehicleTarget& v);
+std::string default_fleet_csv();
+// Installs SIGINT/SIGTERM handlers that ask the session (or check) to stop safely; the flag they set.
 void install_stop_handlers();
+const std::atomic<bool>& stop_flag();
 
 }  // namespace loadtrim::app

@@ -15,5 +15,7 @@ void register_demo(CLI::App& app, Runner& run);
 void register_link_check(CLI::App& app, Runner& run);
 void register_session_commands(CLI::App& app, Runner& run);
 void register_bench(CLI::App& app, Runner& run);
+void register_check_commands(CLI::App& app, Runner& run);
+void register_target_command(CLI::App& app, Runner& run);
 
 }  // namespace loadtrim::app

@@ -75,6 +75,12 @@ controller::CellConfig read_cell(TomlReader& r) {
   c.roller_diameter_tolerance_m = r.number_or("dyno.roller_diameter_tolerance_m", 0.002, 0.0, 0.1, "m");
   c.base_inertia_tolerance_kg = r.number_or("dyno.base_inertia_tolerance_kg", 5.0, 0.0, 500.0, "kg");
   core::parse(r.choice("dyno.axles", {"single-axle", "two-axle"}), c.axles);
+  // The inertia range the dyno simulates (the unloaded coast-down runs at both ends); optional for sessions.
+  c.min_inertia_kg = r.number_or("dyno.min_inertia_kg", 0.0, 0.0, 20000.0, "kg");
+  c.max_inertia_kg = r.number_or("dyno.max_inertia_kg", 0.0, 0.0, 20000.0, "kg");
+  if (c.min_inertia_kg > 0.0 && c.max_inertia_kg > 0.0 && c.max_inertia_kg < c.min_inertia_kg)
+    r.error("dyno.max_inertia_kg", "must not be below dyno.min_inertia_kg");
+  c.enforce_checks = r.boolean_or("checks.enforce", true);
   c.sample_rate_hz = r.number_or("controller.sample_rate_hz", 100.0, 10.0, 1000.0, "Hz");
   if (c.adapter.rfind("modbus", 0) == 0) c.register_map = read_register_map(r);
   return c;

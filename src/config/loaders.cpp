@@ -132,6 +132,7 @@ physics::Truth read_truth(TomlReader& r) {
   d.parasitic_f1_n_per_kmh = r.number_or("dyno.parasitic_f1_n_per_kmh", d.parasitic_f1_n_per_kmh, -10.0, 10.0, "N/(km/h)");
   d.parasitic_f2_n_per_kmh2 = r.number_or("dyno.parasitic_f2_n_per_kmh2", d.parasitic_f2_n_per_kmh2, 0.0, 0.1, "N/(km/h)²");
   d.parasitic_compensation_error = r.number_or("dyno.parasitic_compensation_error", d.parasitic_compensation_error, -1.0, 1.0, "");
+  d.parasitic_excess = r.number_or("dyno.parasitic_excess", d.parasitic_excess, -0.5, 2.0, "");
   d.speed_noise_kmh = r.number_or("dyno.speed_noise_kmh", d.speed_noise_kmh, 0.0, 5.0, "km/h");
   d.force_noise_n = r.number_or("dyno.force_noise_n", d.force_noise_n, 0.0, 500.0, "N");
   d.motoring_accel_mps2 = r.number_or("dyno.motoring_accel_mps2", d.motoring_accel_mps2, 0.1, 10.0, "m/s²");
@@ -139,6 +140,51 @@ physics::Truth read_truth(TomlReader& r) {
   t.noise_seed = static_cast<std::uint64_t>(r.integer_or("noise_seed", 1, 0, 2147483647));
   t.vehicle_on_rollers = r.boolean_or("vehicle_on_rollers", true);
   return t;
+}
+
+core::CheckProfile read_check_profile(TomlReader& r) {
+  core::CheckProfile p;
+  p.name = r.string("name");
+  p.standard = r.string_or("standard", "");
+  constexpr double kDay = 86400.0;
+  p.due.coastdown_interval_s = kDay * r.number("intervals.coastdown_days", 0.0, 3650.0, "days");
+  p.due.readiness_interval_s = kDay * r.number("intervals.readiness_days", 0.0, 3650.0, "days");
+  p.due.inertia_interval_s = kDay * r.number("intervals.inertia_days", 0.0, 3650.0, "days");
+  p.due.parasitic_interval_s = kDay * r.number("intervals.parasitic_days", 0.0, 3650.0, "days");
+  p.required.clear();
+  for (const auto& s : r.choices("intervals.required", {"parasitic", "coastdown", "readiness", "inertia"})) {
+    core::CheckKind k;
+    if (core::parse(s, k)) p.required.push_back(k);
+  }
+  auto& pa = p.parasitic;
+  pa.speeds_kmh = r.numbers("parasitic.speeds_kmh", 5.0, 250.0, "km/h");
+  if (pa.speeds_kmh.size() < 4) r.error("parasitic.speeds_kmh", "needs at least 4 speeds for a quadratic fit");
+  pa.half_band_kmh = r.number("parasitic.half_band_kmh", 1.0, 20.0, "km/h");
+  pa.tolerance_n = r.number("parasitic.tolerance_n", 0.0, 1000.0, "N");
+  pa.tolerance_fraction = r.number("parasitic.tolerance_fraction", 0.0, 1.0, "");
+  p.parasitic_run_up_margin_kmh = r.number("parasitic.run_up_margin_kmh", 0.0, 50.0, "km/h");
+  auto& c = p.coastdown;
+  c.v_start_mph = r.number("coastdown.start_mph", 10.0, 150.0, "mph");
+  c.v_end_mph = r.number("coastdown.end_mph", 2.0, 100.0, "mph");
+  c.interval_mph = r.number("coastdown.interval_mph", 1.0, 50.0, "mph");
+  if (c.v_end_mph + c.interval_mph > c.v_start_mph + 1e-9) r.error("coastdown.end_mph", "must be at least one interval below start_mph");
+  c.tolerance_n = r.number("coastdown.tolerance_n", 0.0, 1000.0, "N");
+  c.tolerance_fraction = r.number("coastdown.tolerance_fraction", 0.0, 1.0, "");
+  p.coastdown_run_up_margin_mph = r.number("coastdown.run_up_margin_mph", 0.0, 30.0, "mph");
+  p.settle_s = r.number("coastdown.settle_s", 0.0, 120.0, "s");
+  auto coef = [&](const std::string& t) {
+    return core::RoadLoad{r.number(t + ".f0_n", 0.0, 2000.0, "N"), r.number(t + ".f1_n_per_kmh", -10.0, 20.0, "N/(km/h)"),
+                          r.number(t + ".f2_n_per_kmh2", 0.0, 0.5, "N/(km/h)²")};
+  };
+  p.smallest_inertia_setting = coef("coastdown.smallest_inertia");
+  p.largest_inertia_setting = coef("coastdown.largest_inertia");
+  auto& in = p.inertia;
+  in.v_low_mph = r.number("inertia.low_mph", 1.0, 100.0, "mph");
+  in.v_high_mph = r.number("inertia.high_mph", 2.0, 150.0, "mph");
+  if (in.v_high_mph <= in.v_low_mph) r.error("inertia.high_mph", "must be above inertia.low_mph");
+  p.inertia_accel_mph_per_s = r.number("inertia.accel_mph_per_s", 0.1, 10.0, "mph/s");
+  in.tolerance_fraction = r.number("inertia.tolerance_fraction", 0.0, 0.5, "");
+  return p;
 }
 
 template <class T, class F>
@@ -159,6 +205,12 @@ core::VehicleTarget load_target(const std::string& path, core::Problems* w) {
 }
 physics::Truth load_truth(const std::string& path, core::Problems* w) {
   return load_with<physics::Truth>(TomlReader::from_file(path), w, read_truth);
+}
+core::CheckProfile load_check_profile(const std::string& path, core::Problems* w) {
+  return load_with<core::CheckProfile>(TomlReader::from_file(path), w, read_check_profile);
+}
+core::CheckProfile parse_check_profile(const std::string& text, const std::string& name, core::Problems* w) {
+  return load_with<core::CheckProfile>(TomlReader::from_text(text, name), w, read_check_profile);
 }
 core::Profile parse_profile(const std::string& text, const std::string& name, core::Problems* w) {
   return load_with<core::Profile>(TomlReader::from_text(text, name), w, read_profile);

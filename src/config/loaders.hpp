@@ -5,6 +5,7 @@
 
 #include <string>
 
+#include "core/dyno_checks.hpp"
 #include "core/problem.hpp"
 #include "core/profile.hpp"
 #include "core/vehicle.hpp"
@@ -15,6 +16,9 @@ namespace loadtrim::config {
 core::Profile load_profile(const std::string& path, core::Problems* warnings = nullptr);
 core::VehicleTarget load_target(const std::string& path, core::Problems* warnings = nullptr);
 physics::Truth load_truth(const std::string& path, core::Problems* warnings = nullptr);
+// The dyno checks' profile (config/checks/*.toml).
+core::CheckProfile load_check_profile(const std::string& path, core::Problems* warnings = nullptr);
+core::CheckProfile parse_check_profile(const std::string& text, const std::string& name, core::Problems* warnings = nullptr);
 
 // The same from text in memory (tests, fuzzing); `name` is used as the file name in messages.
 core::Profile parse_profile(const std::string& text, const std::string& name, core::Problems* warnings = nullptr);

@@ -78,6 +78,7 @@ std::string truth_toml(const physics::Truth& t, const std::string& header) {
   kv("parasitic_f1_n_per_kmh", d.parasitic_f1_n_per_kmh);
   kv("parasitic_f2_n_per_kmh2", d.parasitic_f2_n_per_kmh2);
   kv("parasitic_compensation_error", d.parasitic_compensation_error);
+  if (d.parasitic_excess != 0.0) kv("parasitic_excess", d.parasitic_excess);
   kv("speed_noise_kmh", d.speed_noise_kmh);
   kv("force_noise_n", d.force_noise_n);
   kv("motoring_accel_mps2", d.motoring_accel_mps2);

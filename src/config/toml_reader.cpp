@@ -1,5 +1,6 @@
 #include "config/toml_reader.hpp"
 
+#include <algorithm>
 #include <cmath>
 #include <fstream>
 #include <sstream>
@@ -192,6 +193,32 @@ std::vector<double> TomlReader::numbers(std::string_view key, double lo, double 
       continue;
     }
     out.push_back(x);
+  }
+  return out;
+}
+
+std::vector<std::string> TomlReader::choices(std::string_view key, const std::vector<std::string>& allowed) {
+  std::string list;
+  for (const auto& a : allowed) list += (list.empty() ? "" : ", ") + ("\"" + a + "\"");
+  const auto v = lookup(key);
+  std::vector<std::string> out;
+  if (!v) {
+    error(key, "is missing (a list, each one of " + list + ")");
+    return out;
+  }
+  const auto* arr = v.node()->as_array();
+  if (!arr) {
+    error(where(key, v.node()), "must be a list, each one of " + list);
+    return out;
+  }
+  for (std::size_t i = 0; i < arr->size(); ++i) {
+    const toml::node& e = *arr->get(i);
+    const auto* s = e.as_string();
+    if (!s || std::find(allowed.begin(), allowed.end(), s->get()) == allowed.end()) {
+      error(where(std::string(key) + "[" + std::to_string(i) + "]", &e), "must be one of " + list);
+      continue;
+    }
+    out.push_back(s->get());
   }
   return out;
 }

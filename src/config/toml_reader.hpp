@@ -29,6 +29,8 @@ class TomlReader {
   std::string string_or(std::string_view key, std::string fallback);
   bool boolean_or(std::string_view key, bool fallback);
   std::vector<double> numbers(std::string_view key, double lo, double hi, std::string_view unit);
+  // A list whose every entry must be one of `allowed`.
+  std::vector<std::string> choices(std::string_view key, const std::vector<std::string>& allowed);
   // An enumeration: the value must be one of `allowed`.
   std::string choice(std::string_view key, const std::vector<std::string>& allowed, std::optional<std::string> fallback = {});
 

@@ -43,6 +43,9 @@ struct CellConfig {
   double base_inertia_tolerance_kg = 5.0;
   core::AxleLayout axles = core::AxleLayout::single_axle;
   double sample_rate_hz = 100.0;
+  double min_inertia_kg = 0.0;  // the dyno's simulated inertia range; 0 = not given
+  double max_inertia_kg = 0.0;
+  bool enforce_checks = true;   // sessions refuse to start while a required dyno check is due (override: logged)
   modbus::RegisterMap register_map;  // modbus-* adapters
 };
 

@@ -131,4 +131,20 @@ struct DueItem {
 std::vector<DueItem> due_checks(std::span<const CheckRecord> history, double now_utc_s, const DuePolicy& policy,
                                 std::optional<double> maintenance_utc_s = std::nullopt);
 
+// --- a check profile: everything above, as one file (config/checks/*.toml) --------------------------------
+struct CheckProfile {
+  std::string name, standard;
+  DuePolicy due;
+  std::vector<CheckKind> required = {CheckKind::parasitic, CheckKind::coastdown, CheckKind::readiness, CheckKind::inertia};
+  ParasiticOptions parasitic;
+  double parasitic_run_up_margin_kmh = 10.0;
+  UnloadedCoastdownOptions coastdown;
+  RoadLoad smallest_inertia_setting{40.0, 0.2, 0.02};  // "typical" coefficients (1066.270 [text]); values: ours
+  RoadLoad largest_inertia_setting{150.0, 1.0, 0.04};
+  double coastdown_run_up_margin_mph = 5.0;
+  double settle_s = 3.0;  // hold at the start speed before releasing (common practice, no source)
+  InertiaCheckOptions inertia;
+  double inertia_accel_mph_per_s = 1.0;  // CFR 1066.250 [text]: a constant force at about 1 mph/s
+};
+
 }  // namespace loadtrim::core

@@ -48,7 +48,13 @@ double RollerModel::vehicle_loss_n(double v) const {
 double RollerModel::parasitic_residual_n(double v) const {
   const auto& d = truth_.dyno;
   if (v <= 0.0) return 0.0;
-  return d.parasitic_compensation_error * (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
+  return (d.parasitic_compensation_error + d.parasitic_excess) * (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
+}
+
+double RollerModel::parasitic_true_n(double v) const {
+  const auto& d = truth_.dyno;
+  if (v <= 0.0) return 0.0;
+  return (1.0 + d.parasitic_excess) * (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
 }
 
 double RollerModel::stated_base_inertia_kg() const {
@@ -78,8 +84,7 @@ double RollerModel::acceleration_mps2(double v_mps) const {
     return (force_cmd_n_ - vehicle_loss_n(v) - parasitic_residual_n(v)) / physical_mass;
   }
   // Idle: motor off, the rollers freewheel on their own inertia against the vehicle's and their own losses.
-  const double parasitic = d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v;
-  return -(vehicle_loss_n(v) + (v > 0 ? parasitic : 0.0)) / physical_mass;
+  return -(vehicle_loss_n(v) + parasitic_true_n(v)) / physical_mass;
 }
 
 void RollerModel::advance(double dt_s, double max_step_s) {

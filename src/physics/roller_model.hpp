@@ -47,6 +47,8 @@ struct DynoTruth {
   double parasitic_f1_n_per_kmh = 0.10;
   double parasitic_f2_n_per_kmh2 = 0.0008;
   double parasitic_compensation_error = 0.05; // fraction of the parasitic loss the compensation misses
+  double parasitic_excess = 0.0;              // the rollers' true loss is (1 + this) × the curve above, which is
+                                              // what the controller compensates (a worn bearing: a planted fault)
   double speed_noise_kmh = 0.05;              // encoder noise, standard deviation
   double force_noise_n = 2.0;                 // load-cell noise, standard deviation
   double motoring_accel_mps2 = 1.5;           // speed-hold ramp rate
@@ -111,6 +113,7 @@ class RollerModel {
   // Truth curves at the current warmth (tests and the benchmark compare against them).
   double vehicle_loss_n(double speed_kmh) const;
   double parasitic_residual_n(double speed_kmh) const;
+  double parasitic_true_n(double speed_kmh) const;  // the rollers' whole own loss (free coast)
   double coasting_mass_kg() const;  // I_sim·(1+ε) + m_rot + (base − stated base)
   double stated_base_inertia_kg() const;
   double rotating_mass_kg() const;   // of the vehicle on the rollers (0 when empty)

@@ -1,0 +1,197 @@
+// `loadtrim check ...`: the dyno's own checks with no vehicle on the rollers (parasitic, coastdown, readiness,
+// inertia), the due-date view (due), and logging major maintenance (maintenance). Thin: the procedures are in
+// src/checks, the computations in src/core/dyno_checks.
+#include <unistd.h>
+
+#include <cstdio>
+#include <iostream>
+#include <memory>
+
+#include "app/exit_codes.hpp"
+#include "app/session_runner.hpp"
+#include "app/subcommands.hpp"
+#include "checks/cell_history.hpp"
+#include "checks/check_runner.hpp"
+#include "config/cell_loader.hpp"
+#include "config/input_error.hpp"
+#include "config/loaders.hpp"
+#include "record/session_folder.hpp"
+#include "registry.hpp"
+
+namespace loadtrim::app {
+
+namespace {
+
+const char* kCheckCautions =
+    "Before the rollers move for a dyno check (the lab's own safety rules, local codes and licensed practice come first):\n"
+    "  - NO vehicle on the rollers; roller locks released; nothing loose in the pit;\n"
+    "  - nobody in the roller area; guards, interlocks and emergency stops work;\n"
+    "  - the cell's speed and force limits in the cell file are right; loadtrim never commands more.\n";
+
+struct CheckOptions {
+  std::string kind;
+  std::string cell, profile, checks = "checks", note, now;
+  int port = 0;
+  std::string device;
+  bool unattended = false, accept_new_curve = false, json = false;
+};
+
+std::string default_check_profile() { return data_dir() + "/config/checks/cfr1066.toml"; }
+
+std::string confirm_check(bool unattended) {
+  if (unattended) return "--unattended flag";
+  std::cerr << kCheckCautions;
+  if (!::isatty(STDIN_FILENO)) {
+    std::cerr << "refusing to motor the rollers: no terminal to confirm on; run interactively or pass --unattended\n";
+    return "";
+  }
+  std::cerr << "Type EMPTY to confirm there is no vehicle on the rollers and let loadtrim motor them: " << std::flush;
+  std::string answer;
+  std::getline(std::cin, answer);
+  return answer == "EMPTY" ? "interactive confirmation (rollers empty)" : "";
+}
+
+struct Loaded {
+  controller::CellConfig cell;
+  core::CheckProfile profile;
+  std::string profile_file;
+};
+
+Loaded load(const CheckOptions& o) {
+  Loaded l;
+  core::Problems w;
+  l.cell = config::load_cell(o.cell, &w);
+  if (!w.empty()) std::cerr << config::format_problems(o.cell, w);
+  l.profile_file = o.profile.empty() ? default_check_profile() : o.profile;
+  core::Problems pw;
+  l.profile = config::load_check_profile(l.profile_file, &pw);
+  if (!pw.empty()) std::cerr << config::format_problems(l.profile_file, pw);
+  if (o.port > 0) l.cell.port = static_cast<unsigned>(o.port);
+  if (!o.device.empty()) l.cell.serial.device = o.device;
+  return l;
+}
+
+int run_one(const CheckOptions& o) {
+  core::CheckKind kind;
+  if (!core::parse(o.kind, kind)) return kBadInput;
+  const Loaded l = load(o);  // throws InputError: nothing started
+  const std::string confirmation = confirm_check(o.unattended);
+  if (confirmation.empty()) return kBadInput;
+  install_stop_handlers();
+  checks::CheckRequest req;
+  req.kind = kind;
+  req.cell = l.cell;
+  req.cell_file = o.cell;
+  req.profile = l.profile;
+  req.profile_file = l.profile_file;
+  req.checks_root = o.checks;
+  req.confirmation = confirmation;
+  req.accept_new_curve = o.accept_new_curve;
+  req.note = o.note;
+  auto c = adapters::make_controller(l.cell);
+  const checks::CheckResult r = checks::run_check(*c, req, &stop_flag());
+  if (o.json) {
+    std::printf("%s\n", nlohmann::json({{"type", "check"}, {"check", o.kind}, {"end", checks::to_string(r.end)}, {"verdict", r.verdict},
+                                        {"folder", r.folder}})
+                            .dump()
+                            .c_str());
+  } else {
+    std::printf("check %s: %s\n%s\nfolder: %s\n", o.kind.c_str(), checks::to_string(r.end), r.verdict.c_str(), r.folder.c_str());
+  }
+  return checks::exit_code(r.end);
+}
+
+int run_due(const CheckOptions& o) {
+  const Loaded l = load(o);
+  const checks::CellHistory h(o.checks, l.cell.name);
+  double now = 0.0;
+  if (!o.now.empty()) {
+    const auto t = checks::parse_utc_s(o.now);
+    if (!t) {
+      std::cerr << "--now: \"" << o.now << "\" is not a UTC time like 2026-12-01T08:00:00Z\n";
+      return kBadInput;
+    }
+    now = *t;
+  } else {
+    now = *checks::parse_utc_s(record::utc_now());
+  }
+  const checks::Readiness r = checks::readiness(h, l.profile, now);
+  if (o.json) {
+    std::printf("%s\n", checks::to_json(r).dump().c_str());
+  } else {
+    std::printf("dyno checks for cell %s at %s (%s):\n", l.cell.name.c_str(), checks::utc_from_s(now).c_str(), h.log_path().c_str());
+    if (!r.history_ok) std::printf("  HISTORY BROKEN: %s\n", r.history_error.c_str());
+    for (const auto& it : r.items) {
+      std::printf("  %-10s %-26s last pass %-24s %s%s\n", core::to_string(it.kind), core::to_string(it.state),
+                  it.last_pass_utc_s ? checks::utc_from_s(*it.last_pass_utc_s).c_str() : "never",
+                  it.valid_until_utc_s ? ("valid until " + checks::utc_from_s(*it.valid_until_utc_s)).c_str() : "", it.why.empty() ? "" : ("  " + it.why).c_str());
+    }
+    std::printf("sessions %s: %s\n", r.may_start() ? "may start" : "REFUSED", r.summary().c_str());
+  }
+  return r.may_start() ? kAccepted : kNotAccepted;
+}
+
+int run_maintenance(const CheckOptions& o) {
+  const Loaded l = load(o);
+  if (o.note.empty()) {
+    std::cerr << "--note: say what was done (it goes in the cell's history)\n";
+    return kBadInput;
+  }
+  checks::CellHistory h(o.checks, l.cell.name);
+  if (!h.append("maintenance", {{"note", o.note}}, record::utc_now())) {
+    std::cerr << "loadtrim: " << h.error() << "\n";
+    return kRecordFailure;
+  }
+  std::printf("maintenance logged for cell %s: the parasitic determination and the base inertia check are due again\n", l.cell.name.c_str());
+  return kAccepted;
+}
+
+}  // namespace
+
+void register_check_commands(CLI::App& app, Runner& run) {
+  auto o = std::make_shared<CheckOptions>();
+  auto* sub = app.add_subcommand("check", "the dyno's own checks with no vehicle on the rollers, and which are due");
+  sub->require_subcommand(1);
+  auto common = [&](CLI::App* s) {
+    s->add_option("--cell", o->cell, "cell configuration (TOML)")->required();
+    s->add_option("--profile", o->profile, "check profile (default: config/checks/cfr1066.toml)");
+    s->add_option("--checks", o->checks, "where the cells' check histories and check folders are")->capture_default_str();
+  };
+  const struct {
+    const char* name;
+    const char* help;
+  } kinds[] = {
+      {"parasitic", "determine the parasitic loss curve (free coast of the empty rollers) and compare it with the stored one"},
+      {"coastdown", "unloaded coast-down (1066.270 shape) at the smallest and the largest inertia"},
+      {"readiness", "daily readiness: the unloaded coast-down at the largest inertia only"},
+      {"inertia", "base inertia (1066.250 shape): constant force, time 10 → 40 mph, I = F·Δt/Δv"},
+  };
+  for (const auto& k : kinds) {
+    auto* s = sub->add_subcommand(k.name, k.help);
+    common(s);
+    s->add_flag("--unattended", o->unattended, "motor the empty rollers without asking (the lab's rules must allow it)");
+    s->add_option("--port", o->port, "override the cell file's TCP port")->check(CLI::Range(1, 65535));
+    s->add_option("--device", o->device, "override the cell file's serial device");
+    s->add_option("--note", o->note, "operator note for the record");
+    s->add_flag("--json", o->json, "print the result as one JSON line");
+    if (std::string(k.name) == "parasitic")
+      s->add_flag("--accept-new-curve", o->accept_new_curve,
+                  "store the determined curve even when it differs from the stored one (after maintenance; logged)");
+    const std::string name = k.name;
+    s->callback([o, &run, name] {
+      o->kind = name;
+      run = [o] { return run_one(*o); };
+    });
+  }
+  auto* due = sub->add_subcommand("due", "which dyno checks are due for the cell (40 CFR 1066.215 intervals)");
+  common(due);
+  due->add_option("--now", o->now, "evaluate at this UTC time instead of now (e.g. 2026-12-08T08:00:00Z)");
+  due->add_flag("--json", o->json, "print the view as JSON");
+  due->callback([o, &run] { run = [o] { return run_due(*o); }; });
+  auto* mnt = sub->add_subcommand("maintenance", "log major maintenance of the dyno (makes its parasitic and inertia checks due)");
+  common(mnt);
+  mnt->add_option("--note", o->note, "what was done")->required();
+  mnt->callback([o, &run] { run = [o] { return run_maintenance(*o); }; });
+}
+
+}  // namespace loadtrim::app

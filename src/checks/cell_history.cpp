@@ -1,0 +1,137 @@
+#include "checks/cell_history.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <ctime>
+#include <filesystem>
+
+#include "record/event_log.hpp"
+#include "record/session_folder.hpp"
+
+namespace loadtrim::checks {
+
+namespace fs = std::filesystem;
+
+std::optional<double> parse_utc_s(const std::string& iso) {
+  int y, mo, d, h, mi;
+  double s;
+  char z = 0;
+  if (std::sscanf(iso.c_str(), "%4d-%2d-%2dT%2d:%2d:%lf%c", &y, &mo, &d, &h, &mi, &s, &z) != 7 || z != 'Z') return std::nullopt;
+  if (mo < 1 || mo > 12 || d < 1 || d > 31 || h < 0 || h > 23 || mi < 0 || mi > 59 || !(s >= 0.0 && s < 61.0)) return std::nullopt;
+  std::tm t{};
+  t.tm_year = y - 1900;
+  t.tm_mon = mo - 1;
+  t.tm_mday = d;
+  t.tm_hour = h;
+  t.tm_min = mi;
+  t.tm_sec = 0;
+  const std::time_t base = ::timegm(&t);
+  if (base == static_cast<std::time_t>(-1)) return std::nullopt;
+  return static_cast<double>(base) + s;
+}
+
+std::string utc_from_s(double epoch_s) {
+  const double whole = std::floor(epoch_s);
+  const std::time_t t = static_cast<std::time_t>(whole);
+  std::tm tm{};
+  ::gmtime_r(&t, &tm);
+  char buf[96];
+  const int ms = std::clamp(static_cast<int>(std::lround((epoch_s - whole) * 1000.0)), 0, 999);
+  std::snprintf(buf, sizeof buf, "%04d-%02d-%02dT%02d:%02d:%02d.%03dZ", tm.tm_year + 1900, tm.tm_mon + 1, tm.tm_mday, tm.tm_hour,
+                tm.tm_min, tm.tm_sec, ms);
+  return buf;
+}
+
+CellHistory::CellHistory(const std::string& root, const std::string& cell_name) {
+  dir_ = (fs::path(root) / record::safe_name(cell_name)).string();
+  log_path_ = (fs::path(dir_) / "cell-log.jsonl").string();
+  std::error_code ec;
+  if (!fs::exists(log_path_, ec)) return;  // a cell with no history yet
+  const record::VerifyResult v = record::read_log(log_path_, &records_);
+  if (!v.ok) error_ = log_path_ + ": " + v.message;
+}
+
+std::vector<core::CheckRecord> CellHistory::checks() const {
+  std::vector<core::CheckRecord> out;
+  for (const auto& r : records_) {
+    if (r.value("type", "") != "check") continue;
+    core::CheckRecord c;
+    const auto t = parse_utc_s(r.value("utc", ""));
+    if (!t || !core::parse(r.value("kind", ""), c.kind)) continue;
+    c.utc_s = *t;
+    c.passed = r.value("passed", false);
+    out.push_back(c);
+  }
+  return out;
+}
+
+std::optional<core::RoadLoad> CellHistory::parasitic_curve(std::string* utc) const {
+  std::optional<core::RoadLoad> out;
+  for (const auto& r : records_)
+    if (r.value("type", "") == "parasitic_curve" && r.contains("f0_n")) {
+      out = core::RoadLoad{r.value("f0_n", 0.0), r.value("f1_n_per_kmh", 0.0), r.value("f2_n_per_kmh2", 0.0)};
+      if (utc) *utc = r.value("utc", "");
+    }
+  return out;
+}
+
+std::optional<double> CellHistory::maintenance_utc_s() const {
+  std::optional<double> out;
+  for (const auto& r : records_)
+    if (r.value("type", "") == "maintenance")
+      if (const auto t = parse_utc_s(r.value("utc", ""))) out = *t;
+  return out;
+}
+
+bool CellHistory::append(const std::string& type, nlohmann::json payload, const std::string& utc) {
+  if (!ok()) return false;
+  std::error_code ec;
+  fs::create_directories(dir_, ec);
+  record::EventLog log(log_path_);
+  if (!log.append(type, payload, utc)) {
+    error_ = log.error();
+    return false;
+  }
+  payload["type"] = type;
+  payload["utc"] = utc;
+  records_.push_back(std::move(payload));
+  return true;
+}
+
+std::string Readiness::summary() const {
+  if (!history_ok) return "the cell's check history cannot be trusted: " + history_error;
+  if (blocking.empty()) return "all required dyno checks current";
+  std::string s;
+  for (const auto& b : blocking) s += std::string(s.empty() ? "" : "; ") + core::to_string(b.kind) + ": " + core::to_string(b.state) + " (" + b.why + ")";
+  return s;
+}
+
+Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, double now) {
+  Readiness r;
+  if (!h.ok()) {
+    r.history_ok = false;
+    r.history_error = h.error();
+    return r;
+  }
+  const auto recs = h.checks();
+  r.items = core::due_checks(recs, now, profile.due, h.maintenance_utc_s());
+  for (const auto& it : r.items)
+    if (it.due() && std::find(profile.required.begin(), profile.required.end(), it.kind) != profile.required.end())
+      r.blocking.push_back(it);
+  return r;
+}
+
+nlohmann::json to_json(const Readiness& r) {
+  nlohmann::json items = nlohmann::json::array();
+  for (const auto& it : r.items) {
+    nlohmann::json j = {{"check", core::to_string(it.kind)}, {"state", core::to_string(it.state)}, {"due", it.due()}, {"why", it.why}};
+    if (it.last_pass_utc_s) j["last_pass_utc"] = utc_from_s(*it.last_pass_utc_s);
+    if (it.valid_until_utc_s) j["valid_until_utc"] = utc_from_s(*it.valid_until_utc_s);
+    items.push_back(j);
+  }
+  return {{"history_ok", r.history_ok}, {"history_error", r.history_error}, {"may_start", r.may_start()}, {"items", items},
+          {"summary", r.summary()}};
+}
+
+}  // namespace loadtrim::checks

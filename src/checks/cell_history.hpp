@@ -1,0 +1,57 @@
+// A cell's own history, for the dyno checks and the sessions that depend on them:
+//   <checks root>/<cell>/cell-log.jsonl   hash-chained, fsync'd, append-only (record/event_log.hpp). Records:
+//     "check"            {kind, passed, verdict, folder}      one per finished check
+//     "parasitic_curve"  {f0_n, f1_n_per_kmh, f2_n_per_kmh2, folder}   the cell's stored curve, latest wins
+//     "maintenance"      {note}                                major maintenance (makes checks due again)
+//   <checks root>/<cell>/<utc>-<kind>/     one folder per check run, verifiable like a session folder
+// A broken chain is never read past: the history is then refused as a whole (nothing is assumed current).
+#pragma once
+
+#include <nlohmann/json.hpp>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "core/dyno_checks.hpp"
+#include "core/road_load.hpp"
+
+namespace loadtrim::checks {
+
+// "2026-12-01T19:39:30.123Z" → seconds since the Unix epoch; nullopt when malformed.
+std::optional<double> parse_utc_s(const std::string& iso);
+std::string utc_from_s(double epoch_s);  // the same format, to the millisecond
+
+class CellHistory {
+ public:
+  CellHistory(const std::string& checks_root, const std::string& cell_name);
+  bool ok() const { return error_.empty(); }
+  const std::string& error() const { return error_; }
+  const std::string& dir() const { return dir_; }
+  const std::string& log_path() const { return log_path_; }
+
+  std::vector<core::CheckRecord> checks() const;
+  std::optional<core::RoadLoad> parasitic_curve(std::string* utc = nullptr) const;
+  std::optional<double> maintenance_utc_s() const;
+  const std::vector<nlohmann::json>& records() const { return records_; }
+
+  // Appends (durably) with the given UTC (normally now); false with error() when it could not.
+  bool append(const std::string& type, nlohmann::json payload, const std::string& utc);
+
+ private:
+  std::string dir_, log_path_, error_;
+  std::vector<nlohmann::json> records_;
+};
+
+// What a session needs from the history: the due list under a check profile, and whether it may start.
+struct Readiness {
+  bool history_ok = true;
+  std::string history_error;
+  std::vector<core::DueItem> items;
+  std::vector<core::DueItem> blocking;  // due items among the profile's required checks
+  bool may_start() const { return history_ok && blocking.empty(); }
+  std::string summary() const;  // one line per blocking item (or "all required checks current")
+};
+Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, double now_utc_s);
+nlohmann::json to_json(const Readiness& r);
+
+}  // namespace loadtrim::checks
