@@ -34,6 +34,10 @@ void register_session_commands(CLI::App& app, Runner& run) {
       ->check(CLI::IsMember({"standard", "fleet", "loss-map", "history"}))->capture_default_str();
   sub->add_option("--fleet", req->fleet_csv, "EPA-format CSV for the fleet estimate (default: samples/data)");
   sub->add_option("--note", req->note, "operator note for the record");
+  sub->add_option("--checks", req->checks_dir, "the cells' dyno-check histories (loadtrim check)")->capture_default_str();
+  sub->add_option("--check-profile", req->check_profile, "dyno check profile (default: config/checks/cfr1066.toml)");
+  sub->add_option("--override-checks", req->override_checks,
+                  "start although required dyno checks are due or failed; give the reason (it is logged)");
   output_options(sub, *req);
   sub->callback([req, &run] { run = [req] { return run_new_session(*req); }; });
 

@@ -10,6 +10,7 @@
 
 #include "app/exit_codes.hpp"
 #include "app/subcommands.hpp"
+#include "checks/cell_history.hpp"
 #include "config/cell_loader.hpp"
 #include "config/epa_csv.hpp"
 #include "config/input_error.hpp"
@@ -234,8 +235,36 @@ void install_stop_handlers() {
 
 void check_inputs(const RunRequest& req) { load_all(req.cell_file, req.target_file, req.profile, req); }
 
+// Whether the cell's required dyno checks are current (loadtrim check due). A simulator this process started is
+// exempt (no rollers); a cell with checks.enforce = false is exempt; otherwise a due check refuses the session
+// unless the operator overrides it, and the record says which.
+nlohmann::json dyno_check_gate(const RunRequest& req, const controller::CellConfig& cell, bool& refuse) {
+  refuse = false;
+  if (req.simulator) return {{"enforced", false}, {"why", "simulated controller started by this command"}};
+  if (!cell.enforce_checks) return {{"enforced", false}, {"why", "checks.enforce = false in the cell file"}};
+  const std::string pfile = req.check_profile.empty() ? data_dir() + "/config/checks/cfr1066.toml" : req.check_profile;
+  const core::CheckProfile profile = config::load_check_profile(pfile);
+  const checks::CellHistory h(req.checks_dir, cell.name);
+  const checks::Readiness r = checks::readiness(h, profile, *checks::parse_utc_s(record::utc_now()));
+  nlohmann::json j = {{"enforced", true}, {"check_profile", pfile}, {"history", h.log_path()}, {"readiness", checks::to_json(r)}};
+  if (r.may_start()) return j;
+  if (req.override_checks.empty()) {
+    refuse = true;
+    std::cerr << "loadtrim: refusing to start: the dyno's own checks are not current for cell " << cell.name << ":\n  " << r.summary()
+              << "\nRun them first (loadtrim check due --cell ... shows which), or pass --override-checks \"REASON\" (logged).\n";
+    return j;
+  }
+  std::cerr << "loadtrim: WARNING: dyno checks not current (" << r.summary() << "); overridden by the operator: " << req.override_checks << "\n";
+  j["overridden"] = true;
+  j["override_reason"] = req.override_checks;
+  return j;
+}
+
 int run_new_session(const RunRequest& req, std::string* folder_out) {
   Loaded l = load_all(req.cell_file, req.target_file, req.profile, req);  // throws InputError: nothing started
+  bool refuse = false;
+  const nlohmann::json gate = dyno_check_gate(req, l.inputs.cell, refuse);
+  if (refuse) return kBadInput;
   const std::string confirmation = confirm(req);
   if (confirmation.empty()) return kBadInput;
   install_stop_handlers();
@@ -248,7 +277,7 @@ int run_new_session(const RunRequest& req, std::string* folder_out) {
   nlohmann::json started = {{"vehicle", l.inputs.vehicle.id}, {"cell", l.inputs.cell.name}, {"profile", l.inputs.profile.name},
                             {"method", core::to_string(l.inputs.profile.method)}, {"files", files},
                             {"overrides", {{"port", req.port}, {"device", req.device}}},
-                            {"inprocess", req.inprocess_truth.has_value()}};
+                            {"inprocess", req.inprocess_truth.has_value()}, {"dyno_checks", gate}};
   return execute(std::move(l.inputs), req, folder, nullptr, confirmation, started);
 }
 

@@ -30,6 +30,9 @@ struct RunRequest {
   std::string device;
   double resume_warm_up_s = -1.0;
   std::optional<physics::Truth> inprocess_truth;  // in-process simulated controller with this truth
+  std::string checks_dir = "checks";  // the cells' dyno-check histories (loadtrim check)
+  std::string check_profile;          // default: config/checks/cfr1066.toml
+  std::string override_checks;        // non-empty: start although required checks are due; the reason is logged
 };
 
 // Loads and validates every input of the request (throws config::InputError listing every problem).

@@ -128,7 +128,10 @@ int run_target(const TargetOptions& o) {
     const double s = profile.reference_speeds_kmh[j];
     nlohmann::json r = {{"speed_kmh", s}, {"speed_mph", core::units::kmh_to_mph(s)}, {"force_n", v.target.force_n(s)},
                         {"force_lbf", core::units::n_to_lbf(v.target.force_n(s))}};
-    if (times[j]) r["band_time_s"] = *times[j];
+    // The band time the standard's formula turns back into F_tj (F = (1/3.6)·(TM + m_r)·2Δv/Δt, domain.md §2), and the
+    // exact coast time through the band under the target (closed form, domain.md §6.4).
+    r["band_time_s"] = force_mass * 2.0 * profile.band_half_width_kmh / (core::units::kKmhPerMps * v.target.force_n(s));
+    if (times[j]) r["band_time_exact_s"] = *times[j];
     if (s + 14.0 >= v.max_speed_kmh) r["note"] = "v + 14 km/h reaches the vehicle's maximum speed: dropped by the standard (domain.md §2)";
     rows.push_back(r);
   }
@@ -168,10 +171,11 @@ int run_target(const TargetOptions& o) {
     std::printf("  as reported:  f0 %.1f N, f1 %.3f N/(km/h), f2 %.5f N/(km/h)^2 (rounding of the profile)\n", r.f0_n, r.f1_n_per_kmh, r.f2_n_per_kmh2);
     std::printf("masses: TM %.1f kg, m_r %.2f kg, forces with TM + m_r = %.2f kg; dyno inertia %.2f kg (%s, profile %s)\n", v.test_mass_kg, m_r,
                 force_mass, inertia, core::to_string(layout), profile.name.c_str());
-    std::printf("\n  v (km/h)   F_t (N)   band time (s)   [band %.1f km/h either side]\n", profile.band_half_width_kmh);
+    std::printf("\n  v (km/h)   F_t (N)   Δt by the formula (s)   exact coast time (s)   [band ±%.1f km/h]\n", profile.band_half_width_kmh);
     for (const auto& row : rows)
-      std::printf("  %8.1f  %8.1f   %13s   %s\n", row["speed_kmh"].get<double>(), row["force_n"].get<double>(),
-                  row.contains("band_time_s") ? core::num(row["band_time_s"].get<double>(), 3).c_str() : "never",
+      std::printf("  %8.1f  %8.1f   %21s   %20s   %s\n", row["speed_kmh"].get<double>(), row["force_n"].get<double>(),
+                  core::num(row["band_time_s"].get<double>(), 3).c_str(),
+                  row.contains("band_time_exact_s") ? core::num(row["band_time_exact_s"].get<double>(), 3).c_str() : "never",
                   row.value("note", "").c_str());
     std::printf("\ninitial dyno setting by strategy:\n");
     for (const auto& i : initial) {

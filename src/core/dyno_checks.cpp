@@ -119,8 +119,8 @@ UnloadedCoastdown check_unloaded_coastdown(TraceView coast, double inertia_kg, c
   } else {
     out.verdict = "FAIL at " + num(inertia_kg, 0) + " kg: mean force " + (mean_dev > 0 ? "above" : "below") + " the setting by " +
                   num(100.0 * std::abs(mean_dev), 1) + " % on average, worst near " + num(worst_speed, 0) + " mph (" +
-                  (mean_dev > 0 ? "parasitic loss not compensated, or a simulated inertia above the set value"
-                                : "simulated inertia below the set value, or over-compensated losses") + ")";
+                  (mean_dev > 0 ? "parasitic loss not compensated, or less inertia turning than set"
+                                : "more inertia turning than set (base inertia?), or losses over-compensated") + ")";
   }
   return out;
 }

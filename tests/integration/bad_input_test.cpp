@@ -68,7 +68,7 @@ TEST_P(BadInput, RefusedBeforeAnythingConnects) {
   }
   for (int i = 0; i < 3; ++i) std::ofstream(dir + "/" + names[i] + ".toml", std::ios::binary) << files[i];
   std::string out, err;
-  const int rc = loadtrim::process::run_command({LOADTRIM_EXE, "run", "--cell", dir + "/cell.toml", "--target", dir + "/target.toml",
+  const int rc = loadtrim::process::run_command({LOADTRIM_EXE, "run", "--override-checks", "integration test against the simulator", "--cell", dir + "/cell.toml", "--target", dir + "/target.toml",
                                                  "--profile", dir + "/profile.toml", "--sessions", dir + "/sessions", "--unattended"},
                                                 &out, &err);
   EXPECT_EQ(rc, row.rc) << err;

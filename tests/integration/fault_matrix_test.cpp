@@ -72,7 +72,7 @@ TEST_P(FaultMatrix, ExitsAsDocumentedWithTheRollersStopped) {
   std::string dir = (fs::temp_directory_path() / "loadtrim-fault-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
   std::string out;
-  const int rc = run_tool({"run", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
+  const int rc = run_tool({"run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
                            kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--rewarm-s", "120"},
                           row.env, out);
   EXPECT_EQ(rc, row.exit_code) << out;

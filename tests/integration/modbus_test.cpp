@@ -261,7 +261,7 @@ TEST(Modbus, FullSessionOverModbusTcp) {
   cell.replace(cell.find("poll_rate_hz = 50.0"), 19, "poll_rate_hz = 400.0");  // 20 Hz of controller time at 20x
   std::ofstream(dir + "/cell.toml") << cell;
   std::string out, err;
-  const int rc = run_command({LOADTRIM_EXE, "run", "--cell", dir + "/cell.toml", "--port", std::to_string(sim.port()), "--target",
+  const int rc = run_command({LOADTRIM_EXE, "run", "--override-checks", "integration test against the simulator", "--cell", dir + "/cell.toml", "--port", std::to_string(sim.port()), "--target",
                               kSrc + "/samples/targets/demo-hatchback.toml", "--profile", kSrc + "/tests/data/wltp-iterative-short-warmup.toml",
                               "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "60"},
                              &out, &err);

@@ -128,7 +128,7 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   const std::string dir = temp_dir("resume");
   std::string folder;
   {
-    ChildProcess run({kExe, "run", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()),
+    ChildProcess run({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()),
                       "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--json",
                       "--first-setting", "standard"});
     bool first_done = false;
@@ -185,7 +185,7 @@ TEST(SessionCli, LinkDroppedMidCoastdownIsRepeated) {
   const std::string dir = temp_dir("drop");
   write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 100.0, 2500));
   std::string out, err;
-  const int rc = run_command({kExe, "run", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+  const int rc = run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
                               "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "200"},
                              &out, &err);
   EXPECT_EQ(rc, 0) << out << err;
@@ -212,7 +212,7 @@ TEST(SessionCli, InterruptStopsTheRollersAndSaysSo) {
   SimProcess sim({"--time-scale", "100"});
   const std::string dir = temp_dir("sigterm");
   std::string folder;
-  ChildProcess run({kExe, "run", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
+  ChildProcess run({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
                     kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--json"});
   for (;;) {
     auto line = run.read_line(std::chrono::seconds(60));
@@ -315,7 +315,7 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
   };
   for (const auto& c : cases) {
     std::string out, err;
-    const int rc = run_command({kExe, "run", "--cell", c.cell, "--target", c.target, "--sessions", dir + "/sessions", "--unattended"},
+    const int rc = run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", c.cell, "--target", c.target, "--sessions", dir + "/sessions", "--unattended"},
                                &out, &err);
     EXPECT_EQ(rc, 2) << err;
     EXPECT_NE(err.find(c.must), std::string::npos) << "expected: " << c.must << "\ngot: " << err;
@@ -324,7 +324,7 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
   }
   // Without a terminal and without --unattended, the rollers are not motored.
   std::string out, err;
-  EXPECT_EQ(run_command({kExe, "run", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+  EXPECT_EQ(run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
                          "--sessions", dir + "/sessions"},
                         &out, &err),
             2);
