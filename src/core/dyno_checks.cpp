@@ -56,7 +56,11 @@ InertiaCheck check_base_inertia(TraceView rising, std::span<const double> force_
   r.verdict = std::string(r.passed ? "pass" : "FAIL") + ": base inertia measured " + num(r.inertia_kg, 1) + " kg against " +
               num(stated_kg, 1) + " kg stated (" + (r.error_fraction >= 0 ? "+" : "") + num(100.0 * r.error_fraction, 2) +
               " %, limit ±" + num(100.0 * o.tolerance_fraction, 2) + " %)" +
-              (r.passed ? "" : ": the base inertia differs from the cell's stated value; every inertia the dyno simulates is off by it");
+              (r.passed ? ""
+                          : r.error_fraction > 0 ? ": more inertia turns than the cell states (every simulated inertia is off by it), or losses the "
+                                                   "compensation misses slow the run (a passing parasitic determination rules that out)"
+                                                 : ": less inertia turns than the cell states (every simulated inertia is off by it), or the "
+                                                   "compensation over-corrects the losses");
   return r;
 }
 

@@ -1,4 +1,4 @@
-// libFuzzer target: the TOML loaders for profile, target, truth and cell (with its Modbus register map) on
+// libFuzzer target: the TOML loaders for profile, target, truth, cell (with its Modbus register map) and check profile on
 // arbitrary text. Bad input must come back as config::InputError, never as a crash or another exception.
 #include <cstdint>
 #include <string>
@@ -14,5 +14,6 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
   try { parse_target(text, "fuzz.toml"); } catch (const InputError&) {}
   try { parse_truth(text, "fuzz.toml"); } catch (const InputError&) {}
   try { parse_cell(text, "fuzz.toml"); } catch (const InputError&) {}
+  try { parse_check_profile(text, "fuzz.toml"); } catch (const InputError&) {}
   return 0;
 }

@@ -159,6 +159,7 @@ TEST(DynoChecksCli, PlantedBaseInertiaErrorFailsTheInertiaCheck) {
   const std::string verdict = r.json.value("verdict", "");
   EXPECT_NE(verdict.find("base inertia"), std::string::npos) << verdict;
   EXPECT_NE(verdict.find("+3."), std::string::npos) << verdict;  // 3 % planted; the compensation residual adds ~0.2 %
+  EXPECT_NE(verdict.find("more inertia turns than the cell states"), std::string::npos) << verdict;
   // The unloaded coast-down at the smallest inertia: the coast takes longer than the setting predicts.
   const Ran cd = check("coastdown", sim, dir);
   EXPECT_EQ(cd.rc, 1) << cd.out << cd.err;

@@ -71,6 +71,7 @@ TEST(DynoChecks, TheInertiaCheckTimesTenToFortyMph) {
   const InertiaCheck off = check_base_inertia({t, v}, f, 1250.0 / 1.03);
   EXPECT_FALSE(off.passed);
   EXPECT_NE(off.verdict.find("base inertia"), std::string::npos) << off.verdict;
+  EXPECT_NE(off.verdict.find("more inertia turns than the cell states"), std::string::npos) << off.verdict;
   EXPECT_NE(off.verdict.find("+3.00 %"), std::string::npos) << off.verdict;
 }
 
