@@ -289,6 +289,11 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     p.record("identified", {{"name", info.name}, {"roller_diameter_m", info.roller_diameter_m}, {"base_inertia_kg", info.base_inertia_kg},
                             {"problems", id.size()}});
     if (core::has_errors(id)) throw Abort{CheckResult::End::refused, "the controller is not the cell file's dyno: " + id.front().key + " " + id.front().message};
+    // The free coast and the constant force are not every controller's: refuse before anything moves.
+    const char* need = req.kind == core::CheckKind::parasitic ? "free" : req.kind == core::CheckKind::inertia ? "force" : nullptr;
+    if (need && !info.has(need))
+      throw Abort{CheckResult::End::refused, std::string("the controller does not offer the '") + need + "' capability this check needs (it lists: " +
+                                                 info.capabilities + ")"};
     p.must(c.start_stream(req.cell.sample_rate_hz), "start stream");
     moved = true;
     switch (req.kind) {

@@ -37,7 +37,7 @@ std::string hex2(std::uint32_t f) {
   std::snprintf(b, sizeof b, "%02X", f);
   return b;
 }
-const char* kCaps = "caps=hold,hold-force,roadload,stop,stream,watchdog,status";
+const char* kCaps = "caps=hold,hold-force,roadload,stop,stream,watchdog,status,force,free";
 }  // namespace
 
 SimController::SimController(const physics::Truth& truth, SimSettings settings)

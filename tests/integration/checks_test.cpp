@@ -252,3 +252,21 @@ TEST(TargetCli, EpaRowAndPlausibilityWarnings) {
   const Ran neg = tool({"target", "--metric", "100", "0.5", "-0.03", "--id", "NEG", "--test-mass-kg", "1500", "--json"});
   EXPECT_EQ(neg.rc, 2);
 }
+
+// A controller that does not offer the free coast (the Modbus register map has no such mode) is refused before
+// anything moves: exit 2, the missing capability named, and no motion in the check's record.
+TEST(DynoChecksCli, ACheckTheControllerCannotDoIsRefusedBeforeAnythingMoves) {
+  const std::string dir = temp_dir("checks-modbus");
+  const std::string cell = kSrc + "/config/cells/sim-modbus.toml";
+  SimProcess sim({"--modbus-map", cell, "--time-scale", "20", "--empty-rollers"});
+  const Ran r = tool({"check", "parasitic", "--cell", cell, "--port", std::to_string(sim.port()), "--checks", dir, "--unattended", "--json"});
+  EXPECT_EQ(r.rc, 2) << r.out << r.err;
+  EXPECT_NE(r.json.value("verdict", "").find("'free' capability"), std::string::npos) << r.out;
+  std::vector<nlohmann::json> recs;
+  ASSERT_TRUE(record::read_log(r.json.value("folder", "") + "/events.jsonl", &recs).ok);
+  for (const auto& rec : recs) EXPECT_NE(rec.value("type", ""), "coast_started");
+  // A refusal is not a check result: the cell's history does not count it as run or failed.
+  const checks::CellHistory h(dir, config::load_cell(cell).name);
+  EXPECT_TRUE(h.checks().empty());
+  fs::remove_all(dir);
+}
