@@ -9,6 +9,8 @@ build=build-fuzz
 if [ ! -f "$build/CMakeCache.txt" ]; then
   CC=clang CXX=clang++ cmake -S . -B "$build" -DLOADTRIM_FUZZ=ON -DBUILD_TESTING=OFF -DCMAKE_BUILD_TYPE=RelWithDebInfo \
     -DCMAKE_CXX_FLAGS="-fsanitize=fuzzer-no-link,address,undefined -fno-omit-frame-pointer" >/dev/null
+else
+  cmake -S . -B "$build" >/dev/null  # picks up targets added since the folder was configured
 fi
 cmake --build "$build" -j "$(nproc)" --target fuzz_line_protocol fuzz_toml_loaders fuzz_files fuzz_modbus_reply
 mkdir -p tests/fuzz/findings
