@@ -1,7 +1,6 @@
 // `loadtrim check ...`: the dyno's own checks with no vehicle on the rollers (parasitic, coastdown, readiness,
 // inertia), the due-date view (due), and logging major maintenance (maintenance). Thin: the procedures are in
 // src/checks, the computations in src/core/dyno_checks.
-#include <unistd.h>
 
 #include <cstdio>
 #include <iostream>
@@ -39,16 +38,8 @@ struct CheckOptions {
 std::string default_check_profile() { return data_dir() + "/config/checks/cfr1066.toml"; }
 
 std::string confirm_check(bool unattended) {
-  if (unattended) return "--unattended flag";
-  std::cerr << kCheckCautions;
-  if (!::isatty(STDIN_FILENO)) {
-    std::cerr << "refusing to motor the rollers: no terminal to confirm on; run interactively or pass --unattended\n";
-    return "";
-  }
-  std::cerr << "Type EMPTY to confirm there is no vehicle on the rollers and let loadtrim motor them: " << std::flush;
-  std::string answer;
-  std::getline(std::cin, answer);
-  return answer == "EMPTY" ? "interactive confirmation (rollers empty)" : "";
+  return ask_to_motor(unattended, kCheckCautions, "EMPTY", "Type EMPTY to confirm there is no vehicle on the rollers and let loadtrim motor them: ",
+                      "interactive confirmation (rollers empty)");
 }
 
 struct Loaded {
@@ -163,7 +154,7 @@ void register_check_commands(CLI::App& app, Runner& run) {
   } kinds[] = {
       {"parasitic", "determine the parasitic loss curve (free coast of the empty rollers) and compare it with the stored one"},
       {"coastdown", "unloaded coast-down (1066.270 shape) at the smallest and the largest inertia"},
-      {"readiness", "daily readiness: the unloaded coast-down at the largest inertia only"},
+      {"readiness", "daily readiness: the unloaded coast-down at the smallest inertia only (the most sensitive end)"},
       {"inertia", "base inertia (1066.250 shape): constant force, time 10 → 40 mph, I = F·Δt/Δv"},
   };
   for (const auto& k : kinds) {

@@ -133,16 +133,7 @@ void save_history(const std::string& file, const core::VehicleTarget& v, const s
 // Interactive confirmation, or the explicit unattended flag. Returns the way it was given, or empty = refused.
 std::string confirm(const RunRequest& req) {
   if (req.simulator) return "simulated controller started by this command: no rollers move";
-  if (req.unattended) return "--unattended flag";
-  std::cerr << kCautions;
-  if (!::isatty(STDIN_FILENO)) {
-    std::cerr << "refusing to motor the rollers: no terminal to confirm on; run interactively or pass --unattended\n";
-    return "";
-  }
-  std::cerr << "Type YES to let loadtrim motor the rollers: " << std::flush;
-  std::string answer;
-  std::getline(std::cin, answer);
-  return answer == "YES" ? "interactive confirmation" : "";
+  return ask_to_motor(req.unattended, kCautions, "YES", "Type YES to let loadtrim motor the rollers: ", "interactive confirmation");
 }
 
 int execute(session::Inputs inputs, const RunRequest& req, const std::string& folder, const session::ResumePoint* resume,
@@ -217,6 +208,20 @@ int exit_code_for(session::Outcome o) {
 }
 
 const std::atomic<bool>& stop_flag() { return g_stop; }
+
+std::string ask_to_motor(bool unattended, const char* cautions, const std::string& word, const std::string& prompt,
+                         const std::string& given_as) {
+  if (unattended) return "--unattended flag";
+  std::cerr << cautions;
+  if (!::isatty(STDIN_FILENO)) {
+    std::cerr << "refusing to motor the rollers: no terminal to confirm on; run interactively or pass --unattended\n";
+    return "";
+  }
+  std::cerr << prompt << std::flush;
+  std::string answer;
+  std::getline(std::cin, answer);
+  return answer == word ? given_as : "";
+}
 
 std::optional<core::FleetLossModel> fleet_model(const std::string& csv) { return load_fleet(csv); }
 std::optional<core::HistoryEntry> history_for(const std::string& dir, const controller::CellConfig& cell, const core::VehicleTarget& v) {

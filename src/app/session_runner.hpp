@@ -50,6 +50,11 @@ std::optional<core::FleetLossModel> fleet_model(const std::string& csv);
 std::optional<core::HistoryEntry> history_for(const std::string& history_dir, const controller::CellConfig& cell,
                                               const core::VehicleTarget& v);
 std::string default_fleet_csv();
+// The operator's permission to motor the rollers: the explicit unattended flag, or the cautions on stderr and
+// `word` typed on the terminal. Returns how it was given (for the record), or "" when refused.
+std::string ask_to_motor(bool unattended, const char* cautions, const std::string& word, const std::string& prompt,
+                         const std::string& given_as);
+
 // Installs SIGINT/SIGTERM handlers that ask the session (or check) to stop safely; the flag they set.
 void install_stop_handlers();
 const std::atomic<bool>& stop_flag();

