@@ -85,6 +85,10 @@ class FleetOverTcp : public ::testing::TestWithParam<std::tuple<std::string, int
 
 TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
   const auto [profile_name, i] = GetParam();
+  // LOADTRIM_TEST_FLEET_VEHICLES limits the fleet for slow builds (the sanitizer pass runs the first 8 per method:
+  // the same code paths; convergence over all 20 is the normal build's job).
+  if (const char* nv = std::getenv("LOADTRIM_TEST_FLEET_VEHICLES"); nv && i >= std::atoi(nv))
+    GTEST_SKIP() << "vehicle " << i << " beyond LOADTRIM_TEST_FLEET_VEHICLES=" << nv;
   const core::Profile profile = config::load_profile(kSrc + "/config/profiles/" + profile_name + ".toml");
   const config::EpaRow row = epa_row(i);
   core::VehicleTarget v = config::target_from_epa(row, profile.name);

@@ -113,7 +113,7 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
   const int scale = env_int("LOADTRIM_SOAK_TIME_SCALE", 200);
   ASSERT_GE(n, 3);
   SimProcess sim({"--time-scale", std::to_string(scale), "--watchdog-ms", "1000", "--exit-after-s", "3600"});
-  const core::Profile profile = config::load_profile(kSrc + "/tests/data/wltp-iterative-short-warmup.toml");
+  const core::Profile profile = config::load_profile(kSrc + "/tests/data/soak-short.toml");
   const core::VehicleTarget target = config::load_target(kSrc + "/samples/targets/demo-hatchback.toml");
   const controller::CellConfig cell = config::parse_cell(cell_text(sim.port()), "soak-cell.toml");
   std::string base = (fs::temp_directory_path() / "loadtrim-soak-XXXXXX").string();
@@ -163,6 +163,17 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
     EXPECT_EQ(row.sim_fds, rows.front().sim_fds) << "simulator file descriptors after session " << k;
     if (HasFailure()) break;
   }
+  if (std::getenv("LOADTRIM_SOAK_SMAPS")) {  // diagnosis: the tool's largest resident mappings
+    std::ifstream sm("/proc/self/smaps");
+    std::string line, head;
+    std::vector<std::pair<long, std::string>> big;
+    while (std::getline(sm, line)) {
+      if (!line.empty() && std::isxdigit(static_cast<unsigned char>(line[0])) && line.find('-') < 17) head = line;
+      else if (line.rfind("Rss:", 0) == 0) big.push_back({std::stol(line.substr(4)), head});
+    }
+    std::sort(big.rbegin(), big.rend());
+    for (std::size_t k = 0; k < big.size() && k < 8; ++k) std::printf("smaps: %8ld kB  %s\n", big[k].first, big[k].second.c_str());
+  }
   if (!std::getenv("LOADTRIM_SOAK_KEEP")) fs::remove_all(base);
   else std::printf("soak: session logs kept in %s\n", base.c_str());
 
@@ -199,7 +210,7 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
     // gets the tight one.
     EXPECT_GE(rows.back().tool_heap, 0) << "malloc_info could not be read";
     EXPECT_LE(d_heap, 512);
-    EXPECT_LE(d_tool, 16384);
+    EXPECT_LE(d_tool, 32768);  // a kept 1 kHz trace per session (~5 MB each) would pass this within a few sessions
     EXPECT_LE(d_sim, 4096);  // its send queue keeps the high-water mark of a backlog: a step, not a slope
   }
 }
