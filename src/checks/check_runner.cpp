@@ -76,8 +76,12 @@ class Procedure {
   }
 
   // Receives samples until `done` says so; faults, the operator's stop and the cell's speed limit end the check.
-  void collect(std::vector<Sample>& out, const std::function<bool(const Sample&)>& done, double max_controller_s) {
-    double t0 = -1.0;
+  // The step's time limit runs from the first sample in one of the `modes` the step commanded: samples the link
+  // buffered while earlier requests were answered come first and may span minutes of controller time on a slow
+  // host. A controller that never enters the mode is caught by a day of controller time.
+  void collect(std::vector<Sample>& out, const std::function<bool(const Sample&)>& done, double max_controller_s, const char* step,
+               std::initializer_list<controller::Mode> modes) {
+    double t0 = -1.0, first = -1.0;
     for (;;) {
       if (stop_ && stop_->load()) throw Abort{CheckResult::End::interrupted, "stopped by the operator"};
       std::vector<Sample> got;
@@ -87,11 +91,16 @@ class Procedure {
           throw Abort{CheckResult::End::controller_fault, "the controller reports a fault (flags " + std::to_string(s.flags) + ")"};
         if (s.speed_kmh > req_.cell.max_speed_kmh + 2.0)
           throw Abort{CheckResult::End::controller_fault, "speed " + num(s.speed_kmh) + " km/h above the cell limit"};
-        if (t0 < 0.0) t0 = s.time_s;
+        if (first < 0.0) first = s.time_s;
+        if (t0 < 0.0 && std::find(modes.begin(), modes.end(), s.mode) != modes.end()) t0 = s.time_s;
         out.push_back(s);
         if (done(s)) return;
-        if (s.time_s - t0 > max_controller_s)
-          throw Abort{CheckResult::End::failed, "the step did not complete within " + num(max_controller_s) + " s of controller time"};
+        if (t0 < 0.0 && s.time_s - first > 86400.0)
+          throw Abort{CheckResult::End::controller_fault, std::string(step) + ": the controller did not enter the commanded mode"};
+        if (t0 >= 0.0 && s.time_s - t0 > max_controller_s)
+          throw Abort{CheckResult::End::failed, std::string(step) + " did not complete within " + num(max_controller_s) +
+                                                    " s of controller time (last sample: " + num(s.speed_kmh) + " km/h, " +
+                                                    controller::to_string(s.mode) + ")"};
       }
     }
   }
@@ -108,13 +117,13 @@ class Procedure {
       }
       if (since < 0.0) since = x.time_s;
       return x.time_s - since >= req_.profile.settle_s;
-    }, 600.0);
+    }, 600.0, "settling at the start speed", {controller::Mode::speed_hold});
   }
 
   void stop_rollers() {
     must(c_.controlled_stop(), "controlled stop");
     std::vector<Sample> s;
-    collect(s, [](const Sample& x) { return x.speed_kmh <= 0.0 && x.mode == controller::Mode::idle; }, 600.0);
+    collect(s, [](const Sample& x) { return x.speed_kmh <= 0.0 && x.mode == controller::Mode::idle; }, 600.0, "the stop", {controller::Mode::controlled_stop, controller::Mode::idle});
   }
 
   // Writes a trace file and returns its record entry.
@@ -143,7 +152,7 @@ class Procedure {
     record("coast_started", {{"from_kmh", top}, {"simulation", "off (free coast of the empty rollers)"}});
     must(c_.free_coast(), "free coast");
     std::vector<Sample> tr;
-    collect(tr, [&](const Sample& x) { return x.speed_kmh < bottom; }, 7200.0);
+    collect(tr, [&](const Sample& x) { return x.speed_kmh < bottom; }, 7200.0, "the free coast", {controller::Mode::idle});
     stop_rollers();
     const auto file = write_trace("free-coast", tr);
     std::vector<double> t, v;
@@ -194,7 +203,7 @@ class Procedure {
       record("coast_started", {{"run", n}, {"inertia_kg", inertia}, {"set", coef_json(setting)}, {"from_kmh", start}});
       must(c_.release_road_load(), "road-load simulation");
       std::vector<Sample> tr;
-      collect(tr, [&](const Sample& x) { return x.speed_kmh < end; }, 3600.0);
+      collect(tr, [&](const Sample& x) { return x.speed_kmh < end; }, 3600.0, "the coast-down", {controller::Mode::road_load});
       stop_rollers();
       const auto file = write_trace("coastdown-" + std::to_string(n), tr);
       std::vector<double> t, v;
@@ -224,7 +233,7 @@ class Procedure {
     record("force_applied", {{"force_n", force}, {"stated_base_inertia_kg", stated}, {"simulation", "off"}});
     must(c_.apply_force(force), "constant force");
     std::vector<Sample> tr;
-    collect(tr, [&](const Sample& x) { return x.speed_kmh > stop_at; }, 600.0);
+    collect(tr, [&](const Sample& x) { return x.speed_kmh > stop_at; }, 600.0, "the constant-force run", {controller::Mode::constant_force});
     stop_rollers();
     const auto file = write_trace("constant-force", tr);
     std::vector<double> t, v, f;

@@ -28,6 +28,12 @@ const std::string kSrc = LOADTRIM_SOURCE_DIR;
 const std::string kExe = LOADTRIM_EXE;
 const std::string kCell = kSrc + "/config/cells/sim-tcp.toml";
 
+// LOADTRIM_TEST_CHECKS_TIME_SCALE lowers the simulator's speed for slow builds (the sanitizer preset sets 200).
+std::string scale() {
+  const char* s = std::getenv("LOADTRIM_TEST_CHECKS_TIME_SCALE");
+  return s && *s ? s : "1000";
+}
+
 std::string temp_dir(const std::string& tag) {
   std::string t = (fs::temp_directory_path() / ("loadtrim-" + tag + "-XXXXXX")).string();
   if (!::mkdtemp(t.data())) throw std::runtime_error("mkdtemp failed");
@@ -63,7 +69,7 @@ std::string truth_with(const std::string& dir, const std::string& name, const st
 
 TEST(DynoChecksCli, HealthyDynoPassesEveryCheckAndSessionsMayStart) {
   const std::string dir = temp_dir("checks-ok");
-  SimProcess sim({"--empty-rollers", "--time-scale", "1000", "--watchdog-ms", "1000"});
+  SimProcess sim({"--empty-rollers", "--time-scale", scale(), "--watchdog-ms", "1000"});
   // Installation: the first parasitic determination has nothing to compare with and stores its curve.
   for (const std::string kind : {"parasitic", "parasitic", "coastdown", "readiness", "inertia"}) {
     const Ran r = check(kind, sim, dir);
@@ -94,11 +100,11 @@ TEST(DynoChecksCli, HealthyDynoPassesEveryCheckAndSessionsMayStart) {
 TEST(DynoChecksCli, PlantedParasiticExcessFailsTheDeterminationAndBlocksSessions) {
   const std::string dir = temp_dir("checks-parasitic");
   {
-    SimProcess healthy({"--empty-rollers", "--time-scale", "1000"});
+    SimProcess healthy({"--empty-rollers", "--time-scale", scale()});
     for (const std::string kind : {"parasitic", "coastdown", "readiness", "inertia"}) ASSERT_EQ(check(kind, healthy, dir).rc, 0) << kind;
   }
   const std::string truth = truth_with(dir, "worn-bearing", [](physics::Truth& t) { t.dyno.parasitic_excess = 0.20; });
-  SimProcess worn({"--truth", truth, "--empty-rollers", "--time-scale", "1000"});
+  SimProcess worn({"--truth", truth, "--empty-rollers", "--time-scale", scale()});
   const Ran r = check("parasitic", worn, dir);
   EXPECT_EQ(r.rc, 1) << r.out << r.err;
   const std::string verdict = r.json.value("verdict", "");
@@ -129,7 +135,7 @@ TEST(DynoChecksCli, PlantedParasiticExcessFailsTheDeterminationAndBlocksSessions
   EXPECT_NE(refused.err.find("parasitic: failed"), std::string::npos) << refused.err;
   EXPECT_FALSE(fs::exists(sessions));  // no folder: nothing started
   // With the operator's explicit override the session runs, and the override and its reason are in the record.
-  SimProcess car({"--time-scale", "1000", "--watchdog-ms", "1000"});
+  SimProcess car({"--time-scale", scale(), "--watchdog-ms", "1000"});
   const Ran over = tool({"run", "--cell", kCell, "--port", std::to_string(car.port()), "--target", kSrc + "/samples/targets/demo-hatchback.toml",
                          "--checks", dir, "--sessions", sessions, "--unattended", "--quiet", "--override-checks", "bearing replaced, re-check booked"});
   EXPECT_EQ(over.rc, 0) << over.out << over.err;
@@ -156,7 +162,7 @@ TEST(DynoChecksCli, PlantedBaseInertiaErrorFailsTheInertiaCheck) {
     t.dyno.stated_base_inertia_kg = 1250.0;
     t.dyno.base_inertia_kg = 1250.0 * 1.03;
   });
-  SimProcess sim({"--truth", truth, "--empty-rollers", "--time-scale", "1000"});
+  SimProcess sim({"--truth", truth, "--empty-rollers", "--time-scale", scale()});
   const Ran r = check("inertia", sim, dir);
   EXPECT_EQ(r.rc, 1) << r.out << r.err;
   const std::string verdict = r.json.value("verdict", "");
