@@ -35,8 +35,6 @@ struct CheckOptions {
   bool unattended = false, accept_new_curve = false, json = false;
 };
 
-std::string default_check_profile() { return data_dir() + "/config/checks/cfr1066.toml"; }
-
 std::string confirm_check(bool unattended) {
   return ask_to_motor(unattended, kCheckCautions, "EMPTY", "Type EMPTY to confirm there is no vehicle on the rollers and let loadtrim motor them: ",
                       "interactive confirmation (rollers empty)");

@@ -36,9 +36,15 @@ const char* kCautions =
     "  - cooling fan and exhaust extraction are on; hood and doors as the cell requires;\n"
     "  - the cell's and the vehicle's speed limits in the files are right; loadtrim never commands more.\n";
 
+}  // namespace
+
+std::string default_check_profile() { return data_dir() + "/config/checks/cfr1066.toml"; }
+
 std::string profile_file(const std::string& p) {
   return p.find('/') != std::string::npos || p.ends_with(".toml") ? p : config::profile_path(data_dir() + "/config/profiles", p);
 }
+
+namespace {
 
 void warn(const std::string& file, const core::Problems& w) {
   if (!w.empty()) std::cerr << config::format_problems(file, w);
@@ -247,7 +253,7 @@ nlohmann::json dyno_check_gate(const RunRequest& req, const controller::CellConf
   refuse = false;
   if (req.simulator) return {{"enforced", false}, {"why", "simulated controller started by this command"}};
   if (!cell.enforce_checks) return {{"enforced", false}, {"why", "checks.enforce = false in the cell file"}};
-  const std::string pfile = req.check_profile.empty() ? data_dir() + "/config/checks/cfr1066.toml" : req.check_profile;
+  const std::string pfile = req.check_profile.empty() ? default_check_profile() : req.check_profile;
   const core::CheckProfile profile = config::load_check_profile(pfile);
   const checks::CellHistory h(req.checks_dir, cell.name);
   const checks::Readiness r = checks::readiness(h, profile, *checks::parse_utc_s(record::utc_now()));

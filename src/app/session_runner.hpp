@@ -50,6 +50,9 @@ std::optional<core::FleetLossModel> fleet_model(const std::string& csv);
 std::optional<core::HistoryEntry> history_for(const std::string& history_dir, const controller::CellConfig& cell,
                                               const core::VehicleTarget& v);
 std::string default_fleet_csv();
+// A standard profile given by name (config/profiles/NAME.toml) or as a file path; the default dyno check profile.
+std::string profile_file(const std::string& name_or_path);
+std::string default_check_profile();
 // The operator's permission to motor the rollers: the explicit unattended flag, or the cautions on stderr and
 // `word` typed on the terminal. Returns how it was given (for the record), or "" when refused.
 std::string ask_to_motor(bool unattended, const char* cautions, const std::string& word, const std::string& prompt,

@@ -84,9 +84,7 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
 nlohmann::json coef(const core::RoadLoad& c) { return {{"f0_n", c.f0_n}, {"f1_n_per_kmh", c.f1_n_per_kmh}, {"f2_n_per_kmh2", c.f2_n_per_kmh2}}; }
 
 int run_target(const TargetOptions& o) {
-  const std::string pfile = o.profile.find('/') != std::string::npos || o.profile.ends_with(".toml")
-                                ? o.profile
-                                : config::profile_path(data_dir() + "/config/profiles", o.profile);
+  const std::string pfile = profile_file(o.profile);
   const core::Profile profile = config::load_profile(pfile);
   std::string source;
   core::VehicleTarget v = build(o, profile, source);
