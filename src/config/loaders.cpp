@@ -93,6 +93,7 @@ core::VehicleTarget read_target(TomlReader& r) {
   v.rotating_mass_kg = r.maybe_number("vehicle.rotating_mass_kg", 0.0, 4000.0, "kg");
   v.mass_in_running_order_kg = r.maybe_number("vehicle.mass_in_running_order_kg", 200.0, 20000.0, "kg");
   core::parse(r.choice("vehicle.drive", {"front", "rear", "all"}), v.drive);
+  v.two_wheel_drive_mode = r.boolean_or("vehicle.two_wheel_drive_mode", false);
   v.max_speed_kmh = r.number("vehicle.max_speed_kmh", 30.0, 400.0, "km/h");
   v.profile = r.string("profile");
   bool present = false;

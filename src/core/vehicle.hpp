@@ -21,6 +21,10 @@ struct VehicleTarget {
   std::optional<double> rotating_mass_kg;          // m_r when the file gives it, else
   std::optional<double> mass_in_running_order_kg;  // m_r from this by the profile's rule (EU SA4 §2.5.1)
   Drive drive = Drive::front;
+  // The vehicle is run in an approved two-wheel-drive (coastdown) mode, on the road and the dyno alike
+  // (EU 2018/1832 amending Sub-Annex 4 §4.2.1.8.5): lets an all-wheel-drive vehicle run on a single-axle
+  // dyno (core::check_combination). Target file key vehicle.two_wheel_drive_mode, optional, default false.
+  bool two_wheel_drive_mode = false;
   double max_speed_kmh = 0.0;
   RoadLoad target;
   std::string profile;  // name of the standard profile to follow

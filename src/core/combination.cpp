@@ -1,0 +1,110 @@
+#include "core/combination.hpp"
+
+#include <algorithm>
+
+namespace loadtrim::core {
+
+double planned_motoring_s(const Profile& p) {
+  // Kept identical to session.cpp do_check_limits, which refuses the same thing after connecting: the 30 s
+  // per loss-map speed is that check's allowance for the ramp between speeds.
+  return p.warm_up.duration_s + p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
+         static_cast<double>(p.loss_map.speeds_kmh.size()) *
+             (p.loss_map.settle_s + p.loss_map.average_s + 30.0);
+}
+
+CombinationProblems check_combination(const VehicleTarget& vehicle, const Profile& profile,
+                                      const CellFacts& cell) {
+  CombinationProblems out;
+  auto err = [](Problems& ps, std::string key, std::string msg) {
+    ps.push_back({Problem::Severity::error, std::move(key), std::move(msg)});
+  };
+  auto warn = [](Problems& ps, std::string key, std::string msg) {
+    ps.push_back({Problem::Severity::warning, std::move(key), std::move(msg)});
+  };
+  const double start = profile.start_speed_kmh();
+  const std::string start_text = num(start) + " km/h (top reference speed " + num(profile.top_speed_kmh()) +
+                                 " + run.run_up_margin_kmh " + num(profile.run_up_margin_kmh) + ")";
+
+  // Speeds. Comparisons are written so that a NaN fails them.
+  if (!(start < cell.max_speed_kmh))
+    err(out.cell, "limits.max_speed_kmh",
+        "is " + num(cell.max_speed_kmh) + " km/h; the profile starts its coast-downs at " + start_text +
+            ": allowed only above " + num(start) + " km/h for this profile");
+  if (!(start < vehicle.max_speed_kmh))
+    err(out.target, "vehicle.max_speed_kmh",
+        "is " + num(vehicle.max_speed_kmh) + " km/h; the profile starts its coast-downs at " + start_text +
+            ": allowed only above " + num(start) + " km/h for this profile");
+  const double speed_limit = std::min(cell.max_speed_kmh, vehicle.max_speed_kmh);
+  if (!(profile.warm_up.speed_kmh <= cell.max_speed_kmh &&
+        profile.warm_up.speed_kmh <= vehicle.max_speed_kmh))
+    err(out.profile, "warm_up.speed_kmh",
+        "is " + num(profile.warm_up.speed_kmh) + " km/h, above the cell's limits.max_speed_kmh (" +
+            num(cell.max_speed_kmh) + ") or the vehicle's vehicle.max_speed_kmh (" +
+            num(vehicle.max_speed_kmh) + "): allowed up to " + num(speed_limit) + " km/h");
+  // GTR 15 §2.2 (from memory): a reference speed within 14 km/h of the vehicle's maximum speed is dropped; a
+  // fixed profile cannot drop it, so the profile does not fit this vehicle.
+  for (double v : profile.reference_speeds_kmh)
+    if (!(v + 14.0 < vehicle.max_speed_kmh))
+      err(out.profile, "bands.reference_speeds_kmh",
+          "has " + num(v) + " km/h, within 14 km/h of the vehicle's maximum speed of " +
+              num(vehicle.max_speed_kmh) +
+              " km/h (vehicle.max_speed_kmh; GTR 15 §2.2 drops such a point): allowed only below " +
+              num(vehicle.max_speed_kmh - 14.0) + " km/h; use a profile without it");
+
+  // Motoring time.
+  const double motoring = planned_motoring_s(profile);
+  if (!(motoring <= cell.max_motoring_s))
+    err(out.cell, "limits.max_motoring_s",
+        "is " + num(cell.max_motoring_s) + " s; the profile's warm-up motors the rollers for up to " +
+            num(motoring) + " s (warm_up.duration_s " + num(profile.warm_up.duration_s) +
+            (profile.warm_up.stable_within_n > 0
+                 ? " + warm_up.max_extra_s " + num(profile.warm_up.max_extra_s)
+                 : std::string()) +
+            " + " + std::to_string(profile.loss_map.speeds_kmh.size()) +
+            " loss_map.speeds_kmh × (settle_s + average_s + 30 s)): allowed only at " + num(motoring) +
+            " s or more");
+
+  // Drive layout against the dyno's axles. The AWD-on-single-axle rule is common practice, no source; the
+  // two-wheel-drive (coastdown) mode is EU 2018/1832 amending Sub-Annex 4 §4.2.1.8.5 [text].
+  if (vehicle.drive == Drive::all && cell.axles == AxleLayout::single_axle) {
+    if (!vehicle.two_wheel_drive_mode)
+      err(out.target, "vehicle.drive",
+          "is \"all\" (all-wheel drive), but the cell's dyno.axles is \"single-axle\": allowed on this "
+          "cell only with vehicle.two_wheel_drive_mode = true (an approved two-wheel-drive coastdown mode, "
+          "EU 2018/1832 amending Sub-Annex 4 §4.2.1.8.5); otherwise use a two-axle cell");
+    else
+      warn(out.target, "vehicle.two_wheel_drive_mode",
+           "is true: this all-wheel-drive vehicle runs on the single-axle dyno in its two-wheel-drive "
+           "(coastdown) mode (EU 2018/1832 amending Sub-Annex 4 §4.2.1.8.5); the mode must be engaged, and "
+           "it is logged as a condition of this test");
+  } else if (vehicle.two_wheel_drive_mode) {
+    warn(out.target, "vehicle.two_wheel_drive_mode",
+         std::string("is true: the vehicle (drive \"") + to_string(vehicle.drive) +
+             "\") runs in its two-wheel-drive (coastdown) mode on this " + to_string(cell.axles) +
+             " dyno; it is logged as a condition of this test");
+  }
+
+  // The inertia the session will set (EU SA4 §2.5.3 as amended, through the profile's mass rule).
+  const double inertia_kg = dyno_inertia_kg(
+      vehicle.test_mass_kg, resolved_rotating_mass_kg(vehicle, profile.mass), cell.axles, profile.mass);
+  if (cell.min_inertia_kg > 0 && !(inertia_kg >= cell.min_inertia_kg))
+    err(out.cell, "dyno.min_inertia_kg",
+        "is " + num(cell.min_inertia_kg) + " kg; this vehicle needs an inertia of " + num(inertia_kg, 1) +
+            " kg (test mass and m_r by the profile's mass rule, on a " + to_string(cell.axles) +
+            " dyno): allowed only at or below that");
+  if (cell.max_inertia_kg > 0 && !(inertia_kg <= cell.max_inertia_kg))
+    err(out.cell, "dyno.max_inertia_kg",
+        "is " + num(cell.max_inertia_kg) + " kg; this vehicle needs an inertia of " + num(inertia_kg, 1) +
+            " kg (test mass and m_r by the profile's mass rule, on a " + to_string(cell.axles) +
+            " dyno): allowed only at or above that");
+
+  // The target against the cell's force limit and physics.
+  EnvelopeLimits limits;
+  limits.max_force_n = cell.max_force_n;
+  limits.top_speed_kmh = start;
+  for (auto& p : check_target(vehicle.target, profile.reference_speeds_kmh, vehicle.test_mass_kg, limits))
+    out.target.push_back(std::move(p));
+  return out;
+}
+
+}  // namespace loadtrim::core

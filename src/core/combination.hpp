@@ -1,0 +1,49 @@
+// A vehicle against a cell and a profile, before anything connects (issue 13): every limit that the three
+// files settle between them. Pure: no I/O. The files have each been validated on their own (config::load_*);
+// this checks how they combine. Problems are sorted by the file whose key they name, so a loader can add the
+// file name.
+#pragma once
+
+#include "core/envelope.hpp"
+#include "core/problem.hpp"
+#include "core/profile.hpp"
+#include "core/vehicle.hpp"
+
+namespace loadtrim::core {
+
+// What the cell file says that matters here (controller::CellConfig carries these; the core does not see it).
+struct CellFacts {
+  double max_speed_kmh = 0;                       // limits.max_speed_kmh
+  double max_force_n = 0;                         // limits.max_force_n
+  double max_motoring_s = 0;                      // limits.max_motoring_s: one continuous motoring period
+  AxleLayout axles = AxleLayout::single_axle;     // dyno.axles
+  double min_inertia_kg = 0, max_inertia_kg = 0;  // dyno.min_inertia_kg / dyno.max_inertia_kg; 0 = not given
+};
+
+// Problems per file: `cell` keys as in the cell file, `target` as in the target file, `profile` as in the
+// profile.
+struct CombinationProblems {
+  Problems cell, target, profile;
+  bool any_error() const { return has_errors(cell) || has_errors(target) || has_errors(profile); }
+};
+
+// The longest continuous motoring of the warm-up, s: the same formula as the session's limit check
+// (session.cpp do_check_limits): warm_up.duration_s, plus warm_up.max_extra_s when the stability rule is on
+// (stable_within_n > 0), plus (settle + average + 30 s) for each loss-map speed.
+double planned_motoring_s(const Profile& p);
+
+// Checks, each a Problem naming the key and the allowed range, filed under the file whose key it names:
+// - cell: limits.max_speed_kmh above the profile's start speed; limits.max_motoring_s at least
+//   planned_motoring_s; dyno.min_inertia_kg ≤ the inertia the session will set ≤ dyno.max_inertia_kg when
+//   given (dyno_inertia_kg(TM, resolved m_r, dyno.axles, the profile's mass rule), EU SA4 §2.5.3).
+// - target: vehicle.max_speed_kmh above the start speed; vehicle.drive "all" on a single-axle cell is an
+//   error unless vehicle.two_wheel_drive_mode (then a warning: the mode is a condition of the test and is
+//   logged); check_target with EnvelopeLimits{limits.max_force_n, start speed}, whose force-limit error names
+//   limits.max_force_n.
+// - profile: warm_up.speed_kmh at most both maximum speeds (cell and vehicle); bands.reference_speeds_kmh: a
+//   reference speed v with v + 14 km/h ≥ vehicle.max_speed_kmh is an error, "use a profile without it"
+//   (GTR 15 §2.2, from memory: the standard drops such a point).
+CombinationProblems check_combination(const VehicleTarget& vehicle, const Profile& profile,
+                                      const CellFacts& cell);
+
+}  // namespace loadtrim::core

@@ -1,0 +1,251 @@
+// Vehicle against cell and profile before anything connects (core/combination.hpp), and the target file's
+// vehicle.two_wheel_drive_mode key (config loader and writer). Check values are computed by hand beside each
+// check.
+#include "core/combination.hpp"
+
+#include <gtest/gtest.h>
+
+#include <string>
+
+#include "config/input_error.hpp"
+#include "config/loaders.hpp"
+#include "config/target_writer.hpp"
+
+using namespace loadtrim;
+using namespace loadtrim::core;
+
+namespace {
+
+// The shipped WLTP profile: reference speeds 20–130 km/h, run-up margin 12 km/h (start 142 km/h), warm-up 80
+// km/h for 1200 s, stability rule off, loss map of 5 speeds with 5 s settle and 5 s average.
+Profile wltp() {
+  return config::load_profile(std::string(LOADTRIM_SOURCE_DIR) + "/config/profiles/wltp-iterative.toml");
+}
+// The invented demo target (samples/targets/demo-hatchback.toml): TM 1470 kg, MRO 1380 kg, front-wheel drive,
+// 185 km/h, target (142, 0.35, 0.033).
+VehicleTarget demo() {
+  return config::load_target(std::string(LOADTRIM_SOURCE_DIR) + "/samples/targets/demo-hatchback.toml");
+}
+// The invented demo cell's facts (config/cells/sim-inprocess.toml).
+CellFacts demo_cell() {
+  CellFacts c;
+  c.max_speed_kmh = 160.0;
+  c.max_force_n = 8000.0;
+  c.max_motoring_s = 5400.0;
+  c.axles = AxleLayout::single_axle;
+  c.min_inertia_kg = 800.0;
+  c.max_inertia_kg = 2700.0;
+  return c;
+}
+
+const Problem* find(const Problems& ps, const std::string& key,
+                    Problem::Severity s = Problem::Severity::error) {
+  for (const auto& p : ps)
+    if (p.key == key && p.severity == s) return &p;
+  return nullptr;
+}
+bool contains(const std::string& s, const std::string& part) {
+  return s.find(part) != std::string::npos;
+}
+std::size_t total(const CombinationProblems& c) {
+  return c.cell.size() + c.target.size() + c.profile.size();
+}
+
+}  // namespace
+
+TEST(Combination, DemoVehicleOnDemoCellIsClean) {
+  // Positive control: every check below fails on one changed fact of this combination.
+  const CombinationProblems c = check_combination(demo(), wltp(), demo_cell());
+  EXPECT_FALSE(c.any_error());
+  EXPECT_EQ(total(c), 0u);
+}
+
+TEST(Combination, StartSpeedAgainstTheCellsAndTheVehiclesMaximum) {
+  // Start speed = 130 + 12 = 142 km/h; it must be strictly below both maxima (as session.cpp
+  // do_check_limits).
+  CellFacts cell = demo_cell();
+  cell.max_speed_kmh = 142.0;
+  const CombinationProblems c = check_combination(demo(), wltp(), cell);
+  const Problem* p = find(c.cell, "limits.max_speed_kmh");
+  ASSERT_NE(p, nullptr);
+  EXPECT_TRUE(contains(p->message, "allowed only above 142 km/h")) << p->message;
+  cell.max_speed_kmh = 142.5;
+  EXPECT_FALSE(check_combination(demo(), wltp(), cell).any_error());
+
+  VehicleTarget v = demo();
+  v.max_speed_kmh = 142.0;  // also within 14 km/h of the 130 km/h point: 130 + 14 = 144 ≥ 142
+  const CombinationProblems d = check_combination(v, wltp(), demo_cell());
+  EXPECT_NE(find(d.target, "vehicle.max_speed_kmh"), nullptr);
+  EXPECT_NE(find(d.profile, "bands.reference_speeds_kmh"), nullptr);
+}
+
+TEST(Combination, ReferenceSpeedWithin14KmhOfTheVehiclesMaximumIsRefused) {
+  // GTR 15 §2.2 (from memory): a point with v + 14 ≥ v_max is dropped. v_max = 144: 130 + 14 = 144 ≥ 144 →
+  // refused, 120 + 14 = 134 < 144 is fine; the start speed 142 < 144 raises nothing else. v_max = 144.5 →
+  // clean.
+  VehicleTarget v = demo();
+  v.max_speed_kmh = 144.0;
+  const CombinationProblems c = check_combination(v, wltp(), demo_cell());
+  ASSERT_EQ(total(c), 1u);
+  const Problem* p = find(c.profile, "bands.reference_speeds_kmh");
+  ASSERT_NE(p, nullptr);
+  EXPECT_TRUE(contains(p->message, "has 130 km/h")) << p->message;
+  EXPECT_TRUE(contains(p->message, "use a profile without it")) << p->message;
+  v.max_speed_kmh = 144.5;
+  EXPECT_EQ(total(check_combination(v, wltp(), demo_cell())), 0u);
+}
+
+TEST(Combination, WarmUpSpeedAboveALimitIsRefused) {
+  // Warm-up at 165 km/h on a 160 km/h cell (the vehicle allows 185): allowed up to min(160, 185) = 160 km/h.
+  Profile p = wltp();
+  p.warm_up.speed_kmh = 165.0;
+  const CombinationProblems c = check_combination(demo(), p, demo_cell());
+  const Problem* w = find(c.profile, "warm_up.speed_kmh");
+  ASSERT_NE(w, nullptr);
+  EXPECT_TRUE(contains(w->message, "allowed up to 160 km/h")) << w->message;
+  p.warm_up.speed_kmh = 160.0;  // "not above": equal passes
+  EXPECT_EQ(find(check_combination(demo(), p, demo_cell()).profile, "warm_up.speed_kmh"), nullptr);
+}
+
+TEST(Combination, MotoringTimeTooShortIsRefused) {
+  // Same formula as session.cpp do_check_limits: 1200 s + 0 (stability off) + 5 × (5 + 5 + 30) s = 1400 s.
+  EXPECT_DOUBLE_EQ(planned_motoring_s(wltp()), 1400.0);
+  CellFacts cell = demo_cell();
+  cell.max_motoring_s = 1399.0;
+  const CombinationProblems c = check_combination(demo(), wltp(), cell);
+  const Problem* p = find(c.cell, "limits.max_motoring_s");
+  ASSERT_NE(p, nullptr);
+  EXPECT_TRUE(contains(p->message, "up to 1400 s")) << p->message;
+  cell.max_motoring_s = 1400.0;
+  EXPECT_FALSE(check_combination(demo(), wltp(), cell).any_error());
+  // With the stability rule on, warm_up.max_extra_s (600 s) is added: 2000 s no longer fits in 1400 s.
+  Profile stable = wltp();
+  stable.warm_up.stable_within_n = 2.0;
+  EXPECT_DOUBLE_EQ(planned_motoring_s(stable), 2000.0);
+  EXPECT_NE(find(check_combination(demo(), stable, cell).cell, "limits.max_motoring_s"), nullptr);
+}
+
+TEST(Combination, AllWheelDriveOnASingleAxleCell) {
+  // Issue 13: an all-wheel-drive vehicle ran to acceptance on a single-axle cell. Refused (common practice,
+  // no source) unless the target states the two-wheel-drive coastdown mode (EU 2018/1832 amending SA4
+  // §4.2.1.8.5).
+  VehicleTarget v = demo();
+  v.drive = Drive::all;
+  const CombinationProblems refused = check_combination(v, wltp(), demo_cell());
+  const Problem* p = find(refused.target, "vehicle.drive");
+  ASSERT_NE(p, nullptr);
+  EXPECT_TRUE(contains(p->message, "single-axle")) << p->message;
+  EXPECT_TRUE(contains(p->message, "vehicle.two_wheel_drive_mode = true")) << p->message;
+
+  v.two_wheel_drive_mode = true;
+  const CombinationProblems allowed = check_combination(v, wltp(), demo_cell());
+  EXPECT_FALSE(allowed.any_error());
+  const Problem* w = find(allowed.target, "vehicle.two_wheel_drive_mode", Problem::Severity::warning);
+  ASSERT_NE(w, nullptr);
+  EXPECT_TRUE(contains(w->message, "logged")) << w->message;
+
+  // On a two-axle cell all-wheel drive is what the cell is for: no error (inertia TM = 1470 kg, in range).
+  v.two_wheel_drive_mode = false;
+  CellFacts two = demo_cell();
+  two.axles = AxleLayout::two_axle;
+  EXPECT_EQ(total(check_combination(v, wltp(), two)), 0u);
+}
+
+TEST(Combination, InertiaOutsideTheDynosRangeIsRefused) {
+  // EU SA4 §2.5.1: m_r = 0.03·(1380 + 25) = 42.15 kg; §2.5.3: single-axle inertia 1470 + 0.5·42.15 = 1491.075
+  // kg.
+  CellFacts cell = demo_cell();
+  cell.min_inertia_kg = 1500.0;
+  const CombinationProblems c = check_combination(demo(), wltp(), cell);
+  const Problem* lo = find(c.cell, "dyno.min_inertia_kg");
+  ASSERT_NE(lo, nullptr);
+  EXPECT_TRUE(contains(lo->message, "1491.1 kg")) << lo->message;
+  cell.min_inertia_kg = 1491.0;
+  EXPECT_FALSE(check_combination(demo(), wltp(), cell).any_error());
+  cell = demo_cell();
+  cell.max_inertia_kg = 1491.0;
+  EXPECT_NE(find(check_combination(demo(), wltp(), cell).cell, "dyno.max_inertia_kg"), nullptr);
+  // Two-axle: inertia = TM = 1470 kg, inside 1400–1480.
+  cell.axles = AxleLayout::two_axle;
+  cell.min_inertia_kg = 1400.0;
+  cell.max_inertia_kg = 1480.0;
+  EXPECT_FALSE(check_combination(demo(), wltp(), cell).any_error());
+  // 0 = not given: nothing to check.
+  cell.min_inertia_kg = cell.max_inertia_kg = 0.0;
+  cell.axles = AxleLayout::single_axle;
+  EXPECT_FALSE(check_combination(demo(), wltp(), cell).any_error());
+}
+
+TEST(Combination, TargetAboveTheCellsForceLimitIsRefused) {
+  // Issue 13: max_force_n = 100 and the demo target. Up to the start speed 142 km/h the target needs
+  // 142 + 0.35·142 + 0.033·142² = 142 + 49.7 + 665.412 = 857.112 N (745.2 N at 130 km/h).
+  CellFacts cell = demo_cell();
+  cell.max_force_n = 100.0;
+  const CombinationProblems c = check_combination(demo(), wltp(), cell);
+  const Problem* p = find(c.target, "target");
+  ASSERT_NE(p, nullptr);
+  EXPECT_TRUE(contains(p->message, "857.1 N at 142.0 km/h")) << p->message;
+  EXPECT_TRUE(contains(p->message, "limits.max_force_n")) << p->message;
+  cell.max_force_n = 858.0;
+  EXPECT_FALSE(check_combination(demo(), wltp(), cell).any_error());
+}
+
+TEST(Combination, TargetNegativeInTheReferenceRangeAndNoAeroTerm) {
+  // (135, −5, 1/30): negative from 35.3 to 114.7 km/h (envelope_test has the hand computation) → error under
+  // target.
+  VehicleTarget v = demo();
+  v.target = {135.0, -5.0, 1.0 / 30.0};
+  EXPECT_NE(find(check_combination(v, wltp(), demo_cell()).target, "target"), nullptr);
+  // (150, 1, 0): only the f2 = 0 warning (ratios 170/14415.8 = 0.0118 and 280/14415.8 = 0.0194 are
+  // plausible).
+  v.target = {150.0, 1.0, 0.0};
+  const CombinationProblems w = check_combination(v, wltp(), demo_cell());
+  EXPECT_FALSE(w.any_error());
+  EXPECT_NE(find(w.target, "target.f2_n_per_kmh2", Problem::Severity::warning), nullptr);
+}
+
+// ------------------------------------------------------------------------ the target file's
+// two_wheel_drive_mode
+
+namespace {
+const char* kTargetText = R"(profile = "wltp-iterative"
+[vehicle]
+id = "T"
+test_mass_kg = 1470.0
+mass_in_running_order_kg = 1380.0
+drive = "all"
+max_speed_kmh = 185.0
+%MODE%
+[target]
+f0_n = 142.0
+f1_n_per_kmh = 0.35
+f2_n_per_kmh2 = 0.033
+)";
+std::string target_text(const std::string& mode_line) {
+  std::string s = kTargetText;
+  s.replace(s.find("%MODE%"), 6, mode_line);
+  return s;
+}
+}  // namespace
+
+TEST(Combination, TwoWheelDriveModeKeyIsReadAndWritten) {
+  EXPECT_FALSE(
+      config::parse_target(target_text(""), "t.toml").two_wheel_drive_mode);  // optional, default false
+  const VehicleTarget on = config::parse_target(target_text("two_wheel_drive_mode = true"), "t.toml");
+  EXPECT_TRUE(on.two_wheel_drive_mode);
+  // Written only when true, and read back the same.
+  const std::string written = config::target_toml(on, "test");
+  EXPECT_TRUE(contains(written, "two_wheel_drive_mode = true")) << written;
+  EXPECT_TRUE(config::parse_target(written, "w.toml").two_wheel_drive_mode);
+  VehicleTarget off = on;
+  off.two_wheel_drive_mode = false;
+  EXPECT_FALSE(contains(config::target_toml(off, "test"), "two_wheel_drive_mode"))
+      << config::target_toml(off, "test");
+  // Not a boolean: refused with the key.
+  try {
+    config::parse_target(target_text("two_wheel_drive_mode = \"yes\""), "t.toml");
+    ADD_FAILURE() << "a string was accepted as a boolean";
+  } catch (const config::InputError& e) {
+    EXPECT_TRUE(contains(e.what(), "two_wheel_drive_mode")) << e.what();
+  }
+}
