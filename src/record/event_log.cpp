@@ -11,6 +11,7 @@
 #include <sstream>
 
 #include "record/sha256.hpp"
+#include "record/verify.hpp"
 
 namespace loadtrim::record {
 
@@ -18,24 +19,23 @@ namespace {
 const std::string kZeroHash(64, '0');
 }
 
-VerifyResult read_log(const std::string& path, std::vector<nlohmann::json>* records) {
+VerifyResult parse_log(const std::string& text, std::vector<LogLine>* lines, bool* torn) {
   VerifyResult v;
-  std::ifstream in(path, std::ios::binary);
-  if (!in) {
-    v.message = "cannot open " + path;
-    return v;
-  }
-  std::string line, prev = kZeroHash;
+  if (torn) *torn = false;
+  std::string prev = kZeroHash;
   std::uint64_t n = 0;
-  while (std::getline(in, line)) {
-    if (in.eof()) {  // no '\n' at the end: a torn last write
+  std::size_t pos = 0;
+  while (pos < text.size()) {
+    const auto nl = text.find('\n', pos);
+    if (nl == std::string::npos) {  // no '\n' at the end: a torn last write
       v.notes.push_back("last line is incomplete (a write cut short); ignored");
+      if (torn) *torn = true;
       break;
     }
-    nlohmann::json j;
-    try {
-      j = nlohmann::json::parse(line);
-    } catch (const std::exception&) {
+    const std::string line = text.substr(pos, nl - pos);
+    pos = nl + 1;
+    nlohmann::json j = nlohmann::json::parse(line, nullptr, false);
+    if (j.is_discarded()) {
       v.first_bad_record = static_cast<std::int64_t>(n);
       v.message = "record " + std::to_string(n) + " is not valid JSON";
       v.records = n;
@@ -59,12 +59,28 @@ VerifyResult read_log(const std::string& path, std::vector<nlohmann::json>* reco
       return v;
     }
     prev = sha256_hex(line);
-    if (records) records->push_back(std::move(j));
+    if (lines) lines->push_back({std::move(j), line, prev});
     ++n;
   }
   v.ok = true;
   v.records = n;
   v.message = std::to_string(n) + " records, chain intact";
+  return v;
+}
+
+VerifyResult read_log(const std::string& path, std::vector<nlohmann::json>* records) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) {
+    VerifyResult v;
+    v.message = "cannot open " + path;
+    return v;
+  }
+  std::ostringstream ss;
+  ss << in.rdbuf();
+  std::vector<LogLine> lines;
+  VerifyResult v = parse_log(ss.str(), &lines);
+  if (records)
+    for (auto& l : lines) records->push_back(std::move(l.record));
   return v;
 }
 
@@ -150,34 +166,13 @@ bool EventLog::append(const std::string& type, nlohmann::json payload, const std
 }
 
 VerifyResult verify_session_folder(const std::string& folder) {
-  namespace fs = std::filesystem;
-  std::vector<nlohmann::json> recs;
-  VerifyResult v = read_log((fs::path(folder) / "events.jsonl").string(), &recs);
-  if (!v.ok) return v;
-  int files = 0;
-  for (const auto& r : recs) {
-    if (!r.contains("files") || !r["files"].is_array()) continue;
-    for (const auto& f : r["files"]) {
-      if (!f.is_object() || !f.contains("path") || !f.contains("sha256")) continue;
-      const std::string rel = f["path"].get<std::string>();
-      const std::string actual = sha256_file((fs::path(folder) / rel).string());
-      ++files;
-      if (actual.empty()) {
-        v.ok = false;
-        v.first_bad_record = r["seq"].get<std::int64_t>();
-        v.message = rel + " recorded in record " + std::to_string(v.first_bad_record) + " is missing";
-        return v;
-      }
-      if (actual != f["sha256"].get<std::string>()) {
-        v.ok = false;
-        v.first_bad_record = r["seq"].get<std::int64_t>();
-        v.message = rel + " does not match the SHA-256 recorded in record " + std::to_string(v.first_bad_record) +
-                    ": the file was altered";
-        return v;
-      }
-    }
-  }
-  v.message = std::to_string(v.records) + " records, chain intact, " + std::to_string(files) + " recorded files match";
+  const FolderVerdict f = verify_folder(folder);
+  VerifyResult v;
+  v.ok = f.intact();
+  v.records = f.records;
+  v.first_bad_record = f.outcome == Outcome::broken ? f.record : -1;
+  v.message = f.message;
+  v.notes = f.notes;
   return v;
 }
 

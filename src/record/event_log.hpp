@@ -56,8 +56,20 @@ struct VerifyResult {
 // records gets the parsed records up to (not including) the first bad one.
 VerifyResult read_log(const std::string& path, std::vector<nlohmann::json>* records);
 
-// Verifies a session folder: the chain of events.jsonl, then every file the log recorded with a hash
-// (inputs, traces) against the file on disk.
+// One line of a log as parse_log read it: the parsed record, the line's text (without '\n') and its SHA-256.
+struct LogLine {
+  nlohmann::json record;
+  std::string text;
+  std::string sha256;
+};
+// The same checks as read_log on a log's text. lines gets the lines up to (not including) the first bad one;
+// *torn is set when the text ends in a partial line (no '\n'), which is then ignored.
+VerifyResult parse_log(const std::string& text, std::vector<LogLine>* lines, bool* torn = nullptr);
+
+// Whether a session or check folder is intact as far as the folder itself shows: ok unless verify_folder
+// (record/verify.hpp) finds it broken — the chain, every recorded file hash, no path outside the folder, and, when
+// sealed, the seal's coverage. An unfinished or unsigned folder is ok here; `loadtrim verify` tells them apart.
+// first_bad_record is the record named by the finding.
 VerifyResult verify_session_folder(const std::string& folder);
 
 }  // namespace loadtrim::record

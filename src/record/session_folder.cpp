@@ -65,25 +65,23 @@ bool write_durable(const std::string& path, const std::string& content, std::str
     error = "cannot create " + tmp + ": " + std::strerror(errno);
     return false;
   }
+  // Every failure below removes the temporary file: a full disk must not leave *.tmp files in a record folder.
+  auto fail = [&](const std::string& what, bool close_fd) {
+    error = what + ": " + std::strerror(errno);
+    if (close_fd) ::close(fd);
+    ::unlink(tmp.c_str());
+    return false;
+  };
   std::size_t done = 0;
   while (done < content.size()) {
     const ssize_t w = ::write(fd, content.data() + done, content.size() - done);
     if (w < 0 && errno == EINTR) continue;
-    if (w < 0) {
-      error = "cannot write " + tmp + ": " + std::strerror(errno);
-      ::close(fd);
-      return false;
-    }
+    if (w < 0) return fail("cannot write " + tmp, true);
     done += static_cast<std::size_t>(w);
   }
-  if (::fsync(fd) != 0 || ::close(fd) != 0) {
-    error = "cannot sync " + tmp + ": " + std::strerror(errno);
-    return false;
-  }
-  if (::rename(tmp.c_str(), path.c_str()) != 0) {
-    error = "cannot rename " + tmp + ": " + std::strerror(errno);
-    return false;
-  }
+  if (::fsync(fd) != 0) return fail("cannot sync " + tmp, true);
+  if (::close(fd) != 0) return fail("cannot close " + tmp, false);
+  if (::rename(tmp.c_str(), path.c_str()) != 0) return fail("cannot rename " + tmp, false);
   const int dfd = ::open(fs::path(path).parent_path().c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
   if (dfd >= 0) {
     ::fsync(dfd);
@@ -116,11 +114,20 @@ std::string trace_csv(const std::vector<controller::Sample>& samples) {
 }
 
 bool read_trace_csv(const std::string& path, std::vector<double>& t, std::vector<double>& v, std::string& error) {
-  std::ifstream in(path);
+  std::ifstream in(path, std::ios::binary);
   if (!in) {
     error = "cannot open " + path;
     return false;
   }
+  std::ostringstream ss;
+  ss << in.rdbuf();
+  return parse_trace_csv(ss.str(), path, t, v, error);
+}
+
+bool parse_trace_csv(const std::string& text, const std::string& name, std::vector<double>& t, std::vector<double>& v,
+                     std::string& error) {
+  std::istringstream in(text);
+  const std::string& path = name;
   std::string line;
   if (!std::getline(in, line) || line.rfind("index,time_s,speed_kmh", 0) != 0) {
     error = path + ": not a loadtrim trace (header)";

@@ -21,7 +21,8 @@ std::string safe_name(const std::string& s);  // letters, digits, '-', '_', '.' 
 // Creates <root>/<utc>-<id>/ with inputs/ and traces/; throws std::runtime_error when it cannot.
 std::string create_session_folder(const std::string& root, const std::string& id);
 
-// Writes content to path durably: a temporary file, fsync, rename over the target, fsync of the directory.
+// Writes content to path durably: a temporary file, fsync, rename over the target, fsync of the directory. On
+// failure the temporary file is removed and the target is left as it was.
 bool write_durable(const std::string& path, const std::string& content, std::string& error);
 
 // Copies an input file into folder/inputs/<name>; returns {"path", "sha256", "source"}.
@@ -32,5 +33,8 @@ std::string trace_csv(const std::vector<controller::Sample>& samples);
 // Reads one back (for reports and tests): time and speed columns; false on a malformed file.
 bool read_trace_csv(const std::string& path, std::vector<double>& time_s, std::vector<double>& speed_kmh,
                     std::string& error);
+// The same from a trace's text (read with record::read_inside); name is used in messages.
+bool parse_trace_csv(const std::string& text, const std::string& name, std::vector<double>& time_s,
+                     std::vector<double>& speed_kmh, std::string& error);
 
 }  // namespace loadtrim::record
