@@ -99,6 +99,27 @@ bool CellHistory::append(const std::string& type, nlohmann::json payload, const 
   return true;
 }
 
+bool CellHistory::append_seal(const record::SealInfo& s, const std::string& kind, const std::string& utc) {
+  return append("seal",
+                {{"kind", kind}, {"folder", s.folder}, {"origin", s.origin}, {"chain_head", s.chain_head}, {"seal", s.seal_sha256},
+                 {"seal_seq", s.seq}, {"signer", s.signer}},
+                utc);
+}
+
+bool seal_and_log(const std::string& folder, const record::SealRequest& request, const std::string& checks_root,
+                  const std::string& kind, record::SealInfo* info, std::string& error) {
+  record::SealInfo local;
+  record::SealInfo& s = info ? *info : local;
+  s = {};
+  if (!record::seal_folder(folder, request, &s, error)) return false;
+  CellHistory h(checks_root, request.cell);
+  if (!h.append_seal(s, kind, record::utc_now())) {
+    error = "the folder " + s.folder + " is sealed, but the seal could not be added to the cell log " + h.log_path() + ": " + h.error();
+    return false;
+  }
+  return true;
+}
+
 std::string Readiness::summary() const {
   if (!history_ok) return "the cell's check history cannot be trusted: " + history_error;
   if (blocking.empty()) return "all required dyno checks current";

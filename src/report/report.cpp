@@ -6,12 +6,16 @@
 #include <cstdio>
 #include <filesystem>
 #include <fstream>
+#include <sstream>
 #include <nlohmann/json.hpp>
 
 #include "core/road_load.hpp"
 #include "core/units.hpp"
+#include "record/data_root.hpp"
 #include "record/event_log.hpp"
+#include "record/inside.hpp"
 #include "record/session_folder.hpp"
+#include "record/verify.hpp"
 #include "report/svg_plot.hpp"
 
 namespace loadtrim::report {
@@ -54,6 +58,91 @@ core::RoadLoad coef(const json& j) {
   return {j.value("f0_n", 0.0), j.value("f1_n_per_kmh", 0.0), j.value("f2_n_per_kmh2", 0.0)};
 }
 
+// What the report reads from each record, so that a record that chains correctly but lacks a member (or has one
+// of another type) gives a sentence naming the record and the member, never an exception. 'n' number, 'b' bool,
+// 's' string, 'o' object, 'a' array; a trailing '?' allows the member to be absent.
+struct Need {
+  const char* path;
+  const char* kind;
+};
+
+std::string check_needs(const json& r, std::initializer_list<Need> needs) {
+  for (const auto& n : needs) {
+    const json* v = &r;
+    std::string path = n.path;
+    std::size_t p = 0;
+    bool absent = false;
+    while (true) {
+      const auto q = path.find('.', p);
+      const std::string part = path.substr(p, q == std::string::npos ? std::string::npos : q - p);
+      if (!v->is_object() || !v->contains(part)) {
+        absent = true;
+        break;
+      }
+      v = &(*v)[part];
+      if (q == std::string::npos) break;
+      p = q + 1;
+    }
+    const bool optional = n.kind[1] == '?';
+    if (absent) {
+      if (optional) continue;
+      return "lacks " + path;
+    }
+    const bool ok = (n.kind[0] == 'n' && v->is_number()) || (n.kind[0] == 'b' && v->is_boolean()) || (n.kind[0] == 's' && v->is_string()) ||
+                    (n.kind[0] == 'o' && v->is_object()) || (n.kind[0] == 'a' && v->is_array());
+    if (!ok) return "has a " + path + " of the wrong type";
+  }
+  return "";
+}
+
+// The first problem with a record the report uses, "" when none.
+std::string record_problem(const json& r) {
+  if (const std::string p = check_needs(r, {{"type", "s?"}, {"utc", "s?"}, {"seq", "n?"}}); !p.empty()) return p;
+  const std::string type = r.value("type", "");
+  if (type == "session_started")
+    return check_needs(r, {{"target", "o?"}, {"target.f0_n", "n?"}, {"target.f1_n_per_kmh", "n?"}, {"target.f2_n_per_kmh2", "n?"},
+                           {"tolerance_n", "n?"}, {"vehicle", "s?"}, {"vehicle_description", "s?"}, {"test_mass_kg", "n?"},
+                           {"cell", "s?"}, {"profile", "s?"}, {"method", "s?"}, {"standard", "s?"}, {"software", "o?"},
+                           {"software.version", "s?"}, {"software.build", "s?"}, {"operator_note", "s?"}, {"confirmation", "s?"}});
+  if (type == "finished")
+    return check_needs(r, {{"accepted", "b?"}, {"result", "s?"}, {"stop_reason", "s?"}, {"coastdowns", "n?"}, {"cell_time_s", "n?"},
+                           {"final_set", "o?"}, {"final_set.f0_n", "n?"}, {"final_set.f1_n_per_kmh", "n?"}, {"final_set.f2_n_per_kmh2", "n?"}});
+  if (type == "first_setting") return check_needs(r, {{"strategy", "s?"}, {"fallback_reason", "s?"}});
+  if (type != "coastdown") return "";
+  std::string p = check_needs(r, {{"run", "n"}, {"usable", "b"}, {"set", "o"}, {"set.f0_n", "n"}, {"set.f1_n_per_kmh", "n"},
+                                  {"set.f2_n_per_kmh2", "n"}, {"unusable_reason", "s?"}, {"files", "a?"}});
+  if (!p.empty() || !r["usable"].get<bool>()) return p;
+  p = check_needs(r, {{"simulated", "o"}, {"simulated.f0_n", "n"}, {"simulated.f1_n_per_kmh", "n"}, {"simulated.f2_n_per_kmh2", "n"},
+                      {"check", "o"}, {"check.pass", "b"}, {"check.worst_abs_deviation_n", "n"}, {"check.rows", "a"},
+                      {"decision", "o"}, {"decision.reason", "s"}, {"bands", "a"}});
+  if (!p.empty()) return p;
+  std::size_t i = 0;
+  for (const auto& row : r["check"]["rows"]) {
+    const std::string q = check_needs(row, {{"speed_kmh", "n"}, {"target_n", "n"}, {"measured_n", "n"}, {"deviation_n", "n"}, {"pass", "b"}});
+    if (!q.empty()) return "has check.rows." + std::to_string(i) + " that " + q;
+    ++i;
+  }
+  i = 0;
+  for (const auto& b : r["bands"]) {
+    const std::string q = check_needs(b, {{"predicted_delta_t_s", "n?"}, {"delta_t_s", "n?"}});
+    if (!b.is_object() || !q.empty()) return "has bands." + std::to_string(i) + " that is malformed";
+    ++i;
+  }
+  if (r.contains("files") && (r["files"].empty() || !r["files"][0].is_object() || !r["files"][0].contains("path") ||
+                              !r["files"][0]["path"].is_string()))
+    return "has a files list without a trace path";
+  return "";
+}
+
+// Removes what an earlier `report` wrote, so a failed report never leaves a stale one that looks current.
+void remove_stale(const std::string& folder) {
+  std::error_code ec;
+  for (const auto& f : record::derived_files()) {
+    fs::remove(fs::path(folder) / f, ec);
+    fs::remove(fs::path(folder) / (f + ".tmp"), ec);
+  }
+}
+
 const char* kCss = R"(
 body{font-family:sans-serif;font-size:11pt;color:#111;margin:18mm;max-width:180mm}
 h1{font-size:18pt;margin:0 0 4pt} h2{font-size:13pt;margin:16pt 0 6pt;border-bottom:1px solid #999}
@@ -69,24 +158,29 @@ svg.plot{display:block;margin:6pt 0 12pt;max-width:100%;height:auto}
 
 }  // namespace
 
-ReportFiles write_report(const std::string& folder, const std::string& software_version) {
-  ReportFiles out;
-  const record::VerifyResult verify = record::verify_session_folder(folder);
-  out.chain_ok = verify.ok;
+// The report; "" when written, else why not (the caller removes what an earlier report left).
+static std::string write_report_body(const std::string& folder, const std::string& software_version,
+                                     const record::VerifyOptions& options, ReportFiles& out) {
+  const record::FolderVerdict verdict = record::verify_folder(folder, options);
+  out.chain_ok = verdict.intact();
+  out.verify_outcome = record::to_string(verdict.outcome);
   // Every record that parses, whether or not the chain holds: the report shows what is there and says which part
-  // is not vouched for.
+  // is not vouched for. Read without leaving the folder (record/inside.hpp).
   std::vector<json> recs;
   {
-    std::ifstream in((fs::path(folder) / "events.jsonl").string());
-    if (!in) {
-      out.error = "no events.jsonl in " + folder;
-      return out;
-    }
+    const record::InsideFile ev = record::read_inside(folder, "events.jsonl");
+    if (ev.status != record::InsideStatus::ok) return "no readable events.jsonl in " + folder + ": " + ev.error;
+    std::istringstream in(ev.content);
     for (std::string l; std::getline(in, l);) {
       auto j = json::parse(l, nullptr, false);
       if (j.is_object()) recs.push_back(std::move(j));
     }
   }
+  for (const auto& r : recs)
+    if (const std::string p = record_problem(r); !p.empty())
+      return "record " + (r.contains("seq") ? r["seq"].dump() : std::string("?")) + " (" +
+             (r.contains("type") && r["type"].is_string() ? r["type"].get<std::string>() : std::string("no type")) + ") " + p +
+             "; the report cannot be made from it";
   json started = json::object(), finished = json::object(), first = json::object();
   std::vector<json> runs;
   std::string t_first, t_last;
@@ -106,12 +200,30 @@ ReportFiles write_report(const std::string& folder, const std::string& software_
   std::string h = "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>loadtrim report " +
                   esc(started.value("vehicle", "")) + "</title><style>" + kCss + "</style></head><body>\n";
   h += "<h1>Road-load setting report</h1>\n";
-  if (!verify.ok)
-    h += "<div class=\"banner bad\" id=\"chain-status\">LOG CHAIN BROKEN: " + esc(verify.message) +
+  if (!verdict.intact()) {
+    h += "<div class=\"banner bad\" id=\"chain-status\">LOG CHAIN BROKEN: " + esc(verdict.message) +
          ". The records from the first broken one on are not vouched for by the log; do not use this setting without "
          "investigating.</div>\n";
-  else
-    h += "<div class=\"banner good\" id=\"chain-status\">Log chain verified: " + esc(verify.message) + ".</div>\n";
+  } else {
+    h += "<div class=\"banner good\" id=\"chain-status\">Log chain verified: " + esc(verdict.message) + ".</div>\n";
+    std::string seal;
+    bool good = false;
+    switch (verdict.outcome) {
+      case record::Outcome::verified:
+        good = true;
+        seal = "Sealed (record " + std::to_string(verdict.seal->seq) + ") and signed with the cell's key " + verdict.seal->signer + ".";
+        break;
+      case record::Outcome::not_finished: seal = "NOT FINISHED: the folder has no seal; its result is not final."; break;
+      case record::Outcome::unsigned_seal:
+        seal = "SEALED WITHOUT A SIGNATURE: no cell key was configured, so the seal does not show who made it.";
+        break;
+      case record::Outcome::key_unknown:
+        seal = "SIGNATURE NOT CHECKED: " + verdict.message.substr(verdict.message.rfind("; ") + 2) + ".";
+        break;
+      case record::Outcome::broken: break;
+    }
+    h += std::string("<div class=\"banner ") + (good ? "good" : "bad") + "\" id=\"seal-status\">" + esc(seal) + "</div>\n";
+  }
   h += std::string("<div class=\"banner ") + (accepted ? "good" : "bad") + "\" id=\"result\">Result: " +
        esc(finished.empty() ? std::string("session not finished") : finished.value("result", "")) + " — " +
        esc(finished.value("stop_reason", "")) + "</div>\n";
@@ -130,6 +242,14 @@ ReportFiles write_report(const std::string& folder, const std::string& software_
   meta("Coast-downs", std::to_string(finished.value("coastdowns", static_cast<int>(runs.size()))) + ", cell time " +
                           fmt(finished.value("cell_time_s", 0.0) / 60.0, 1) + " min (controller clock)");
   h += "</table>\n";
+  if (verdict.seal) {
+    h += "<table class=\"meta\" id=\"sign-off\"><tr><td><b>Sign-off</b></td><td>";
+    if (verdict.approvals.empty()) h += "no approval recorded";
+    for (const auto& a : verdict.approvals)
+      h += esc(a.reviewer) + ", " + esc(a.utc) + ": \u201c" + esc(a.statement) + "\u201d (record " + std::to_string(a.seq) + ", key " +
+           esc(a.signer) + (a.signature_checked ? ", signature verified" : ", signature NOT checked: reviewer key unknown") + ")<br>";
+    h += "</td></tr></table>\n";
+  }
   if (finished.contains("final_set")) {
     h += "<p>Final set coefficients: f0 " + fmt(finished["final_set"].value("f0_n", 0.0), 1) + " N, f1 " +
          fmt(finished["final_set"].value("f1_n_per_kmh", 0.0), 3) + " N/(km/h), f2 " +
@@ -253,7 +373,10 @@ ReportFiles write_report(const std::string& folder, const std::string& software_
       if (!r.contains("files")) continue;
       std::vector<double> t, v;
       std::string err;
-      if (!record::read_trace_csv((fs::path(folder) / r["files"][0].value("path", "")).string(), t, v, err) || t.empty()) continue;
+      // The trace's path comes from the record: read it only inside the folder.
+      const std::string rel = r["files"][0].value("path", "");
+      const record::InsideFile tf = record::read_inside(folder, rel);
+      if (tf.status != record::InsideStatus::ok || !record::parse_trace_csv(tf.content, rel, t, v, err) || t.empty()) continue;
       Series s{"coast-down " + std::to_string(r.value("run", 0)), {}, {}, kPalette[(k++) % 6], 1.5};
       const std::size_t step = std::max<std::size_t>(1, t.size() / 600);
       for (std::size_t i = 0; i < t.size(); i += step) {
@@ -321,11 +444,38 @@ ReportFiles write_report(const std::string& folder, const std::string& software_
   out.coefficients_csv = (fs::path(folder) / "coefficients.csv").string();
   out.deviations_csv = (fs::path(folder) / "deviations.csv").string();
   if (!record::write_durable(out.html, h, err) || !record::write_durable(out.coefficients_csv, coef_csv, err) ||
-      !record::write_durable(out.deviations_csv, dev_csv, err)) {
-    out.error = err;
-    return out;
-  }
+      !record::write_durable(out.deviations_csv, dev_csv, err))
+    return err;
   out.ok = true;
+  return "";
+}
+
+record::VerifyOptions default_verify_options() {
+  record::VerifyOptions o;
+  const record::DataRoot root = record::find_data_root("");
+  if (root.ok()) {
+    o.keys_dir = root.keys();
+    o.checks_root = root.checks();
+  }
+  return o;
+}
+
+ReportFiles write_report(const std::string& folder, const std::string& software_version) {
+  return write_report(folder, software_version, default_verify_options());
+}
+
+ReportFiles write_report(const std::string& folder, const std::string& software_version, const record::VerifyOptions& options) {
+  ReportFiles out;
+  std::string why;
+  try {
+    why = write_report_body(folder, software_version, options, out);
+  } catch (const std::exception& e) {
+    why = "cannot make the report of " + folder + ": " + e.what();
+  }
+  if (why.empty()) return out;
+  remove_stale(folder);
+  out.ok = false;
+  out.error = why + " (no report was written; an earlier report.html, if any, was removed)";
   return out;
 }
 
@@ -338,6 +488,8 @@ bool print_pdf(const std::string& folder, std::string& error) {
                           profile + "' --no-pdf-header-footer --print-to-pdf='" + pdf + "' 'file://" + html + "' >/dev/null 2>&1";
   const int rc = std::system(cmd.c_str());
   if (rc != 0 || !fs::exists(pdf)) {
+    std::error_code ec;
+    fs::remove(pdf, ec);  // never leave an older PDF that looks like this report's
     error = "headless Chromium did not print the PDF (is the Debian package chromium installed?)";
     return false;
   }

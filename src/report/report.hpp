@@ -5,17 +5,25 @@
 
 #include <string>
 
+#include "record/verify.hpp"
+
 namespace loadtrim::report {
 
 struct ReportFiles {
   bool ok = false;
   std::string error;
   std::string html, coefficients_csv, deviations_csv;  // paths written
-  bool chain_ok = false;
+  bool chain_ok = false;       // intact (record::FolderVerdict::intact)
+  std::string verify_outcome;  // record::to_string(outcome): verified, broken, not finished, ...
 };
 
-// Writes report.html, coefficients.csv and deviations.csv into the folder.
+// Writes report.html, coefficients.csv and deviations.csv into the folder. The first page states what verify
+// finds (broken, not finished, sealed with or without a signature) and the sign-off. A record the report needs
+// that lacks a member, or has one of another type, is named in error (never an exception); on any failure the
+// derived files of an earlier report (record::derived_files) are removed, so no stale report remains.
+// Keys and cell logs for the seal's status come from the data root (record::find_data_root), or from options.
 ReportFiles write_report(const std::string& folder, const std::string& software_version);
+ReportFiles write_report(const std::string& folder, const std::string& software_version, const record::VerifyOptions& options);
 
 // Prints report.html to report.pdf with headless Chromium; false with the reason when it could not.
 bool print_pdf(const std::string& folder, std::string& error);
