@@ -27,6 +27,8 @@ int main(int argc, char** argv) {
   register_bench(app, run);
   register_check_commands(app, run);
   register_target_command(app, run);
+  register_keys_command(app, run);
+  register_approve_command(app, run);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {

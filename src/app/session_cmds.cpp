@@ -1,11 +1,14 @@
 // `loadtrim run`, `loadtrim resume`, `loadtrim verify`.
 #include <cstdio>
+#include <filesystem>
 #include <iostream>
 
 #include "app/exit_codes.hpp"
 #include "app/session_runner.hpp"
 #include "app/subcommands.hpp"
+#include "record/data_root.hpp"
 #include "record/event_log.hpp"
+#include "record/verify.hpp"
 #include "report/report.hpp"
 
 namespace loadtrim::app {
@@ -74,20 +77,83 @@ void register_session_commands(CLI::App& app, Runner& run) {
     };
   });
 
-  auto vfolder = std::make_shared<std::string>();
-  auto* ver = app.add_subcommand("verify", "verify a session folder's log chain and recorded file hashes");
-  ver->add_option("folder", *vfolder, "the session folder")->required();
-  ver->callback([vfolder, &run] {
-    run = [vfolder] {
-      const record::VerifyResult v = record::verify_session_folder(*vfolder);
-      for (const auto& n : v.notes) std::printf("note: %s\n", n.c_str());
-      if (v.ok) {
-        std::printf("verified: %s\n", v.message.c_str());
-        return static_cast<int>(kAccepted);
+  struct VerifyArgs {
+    std::string folder, data_dir, checks;
+    std::vector<std::string> public_keys, reviewer_keys;
+    bool json = false, no_cell_log = false;
+  };
+  auto va = std::make_shared<VerifyArgs>();
+  auto* ver = app.add_subcommand("verify",
+                                 "verify a session or check folder: its log chain, every recorded file hash, the seal's coverage "
+                                 "and signature, and each approval (docs/records.md). Exit codes: 0 verified; 5 broken "
+                                 "(tampered or damaged: the record or file is named); 6 not finished (no seal); 7 sealed but "
+                                 "unsigned, or signed with a key verify does not know; 2 no such folder or a bad option");
+  ver->add_option("folder", va->folder, "the session or check folder")->required();
+  ver->add_option("--data-dir", va->data_dir,
+                  "the lab's data root: trusted public keys in keys/, cell logs in checks/ (default: --data-dir, else "
+                  "$LOADTRIM_DATA_DIR, else data_dir in /etc/loadtrim/loadtrim.toml, else $XDG_DATA_HOME/loadtrim or "
+                  "~/.local/share/loadtrim; now: " + record::find_data_root("").describe() + ")");
+  ver->add_option("--public-key", va->public_keys, "a trusted public key (PEM) for the seal, e.g. a retired cell key")->check(CLI::ExistingFile);
+  ver->add_option("--reviewer-key", va->reviewer_keys, "a trusted reviewer's public key (PEM) for approvals")->check(CLI::ExistingFile);
+  ver->add_option("--checks", va->checks, "where the cells' logs are (default: <data root>/checks)");
+  ver->add_flag("--no-cell-log", va->no_cell_log, "do not compare the folder with its cell's log");
+  ver->add_flag("--json", va->json, "print the verdict as one JSON object");
+  ver->callback([va, &run] {
+    run = [va] {
+      std::error_code ec;
+      if (!std::filesystem::is_directory(va->folder, ec)) {
+        std::fprintf(stderr, "loadtrim verify: %s is not a folder\n", va->folder.c_str());
+        return static_cast<int>(kBadInput);
       }
-      std::printf("BROKEN: %s\n", v.message.c_str());
-      if (v.first_bad_record >= 0) std::printf("first broken record: %lld\n", static_cast<long long>(v.first_bad_record));
-      return static_cast<int>(kRecordFailure);
+      record::VerifyOptions opt;
+      std::vector<std::string> notes;
+      const record::DataRoot root = record::find_data_root(va->data_dir);
+      if (root.ok()) {
+        opt.keys_dir = root.keys();
+        opt.checks_root = root.checks();
+      } else {
+        notes.push_back("no data root (" + root.error + "): no trusted keys or cell log from it");
+      }
+      if (!va->checks.empty()) opt.checks_root = va->checks;
+      if (va->no_cell_log) opt.checks_root.clear();
+      for (const auto& [files, keys] : {std::pair{&va->public_keys, &opt.cell_keys}, std::pair{&va->reviewer_keys, &opt.reviewer_keys}})
+        for (const auto& f : *files) {
+          std::string err;
+          auto k = record::PublicKey::load(f, err);
+          if (!k) {
+            std::fprintf(stderr, "loadtrim verify: %s\n", err.c_str());
+            return static_cast<int>(kBadInput);
+          }
+          keys->push_back(*k);
+        }
+      const record::FolderVerdict v = record::verify_folder(va->folder, opt);
+      if (va->json) {
+        nlohmann::json j = v.to_json();
+        for (const auto& n : notes) j["notes"].push_back(n);
+        std::printf("%s\n", j.dump().c_str());
+        return record::verify_exit_code(v.outcome);
+      }
+      for (const auto& n : notes) std::printf("note: %s\n", n.c_str());
+      for (const auto& n : v.notes) std::printf("note: %s\n", n.c_str());
+      switch (v.outcome) {
+        case record::Outcome::verified: std::printf("verified: %s\n", v.message.c_str()); break;
+        case record::Outcome::broken: std::printf("BROKEN: %s\n", v.message.c_str()); break;
+        case record::Outcome::not_finished: std::printf("NOT FINISHED: %s\n", v.message.c_str()); break;
+        case record::Outcome::unsigned_seal: std::printf("SEALED, NOT SIGNED: %s\n", v.message.c_str()); break;
+        case record::Outcome::key_unknown: std::printf("KEY UNKNOWN: %s\n", v.message.c_str()); break;
+      }
+      if (v.outcome == record::Outcome::broken) {
+        if (v.record >= 0) std::printf("first broken record: %lld\n", static_cast<long long>(v.record));
+        if (!v.file.empty()) std::printf("file: %s\n", v.file.c_str());
+      }
+      if (v.seal)
+        std::printf("seal: record %llu, %s, %zu files, %s\n", static_cast<unsigned long long>(v.seal->seq), v.seal->utc.c_str(), v.seal->files,
+                    v.seal->is_signed ? ("signer " + v.seal->signer + (v.seal->signature_checked ? " (signature verified)" : " (not checked)")).c_str()
+                                      : "unsigned");
+      for (const auto& a : v.approvals)
+        std::printf("approval: record %llu, %s, %s: \"%s\" (%s)\n", static_cast<unsigned long long>(a.seq), a.reviewer.c_str(), a.utc.c_str(),
+                    a.statement.c_str(), a.signature_checked ? "signature verified" : "reviewer key unknown");
+      return record::verify_exit_code(v.outcome);
     };
   });
 }

@@ -17,5 +17,7 @@ void register_session_commands(CLI::App& app, Runner& run);
 void register_bench(CLI::App& app, Runner& run);
 void register_check_commands(CLI::App& app, Runner& run);
 void register_target_command(CLI::App& app, Runner& run);
+void register_keys_command(CLI::App& app, Runner& run);
+void register_approve_command(CLI::App& app, Runner& run);
 
 }  // namespace loadtrim::app
