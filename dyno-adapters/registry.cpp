@@ -13,7 +13,7 @@ namespace loadtrim::adapters {
 std::vector<std::string> names() { return {"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim"}; }
 
 std::unique_ptr<controller::Controller> make_controller(const controller::CellConfig& cell) {
-  const controller::Limits limits{cell.max_speed_kmh, cell.max_force_n};
+  const controller::Limits limits{cell.max_speed_kmh, cell.max_force_n, cell.max_time_scale, true};
   if (cell.adapter == "line-tcp")
     return std::make_unique<line::LineController>(line::make_tcp_transport(cell.host, static_cast<unsigned short>(cell.port)),
                                                   cell.timeouts, limits);
@@ -37,8 +37,9 @@ std::unique_ptr<controller::Controller> make_inprocess_controller(const controll
   sim::SimSettings settings;
   settings.watchdog_s = 1e9;  // simulated time races ahead of the host's heartbeats here
   auto sim = std::make_shared<sim::SimController>(truth, settings);
+  // Its clock races ahead of the wall by design: only order and stream rate are checked, not the rate against the wall.
   return std::make_unique<line::LineController>(std::make_unique<inprocess::LoopbackTransport>(sim), cell.timeouts,
-                                                controller::Limits{cell.max_speed_kmh, cell.max_force_n});
+                                                controller::Limits{cell.max_speed_kmh, cell.max_force_n, 1e9, false});
 }
 
 }  // namespace loadtrim::adapters

@@ -72,16 +72,23 @@ void LineController::handle_line(std::string_view line, bool too_long) {
   const Message& m = d.message;
   if (m.type == "SMP") {
     controller::Sample s;
-    if (parse_sample(m, s)) samples_.push_back(s);
-    else {
+    if (parse_sample(m, s)) {
+      if (samples_.size() >= kMaxSamples) samples_.pop_front();  // shows as a gap in the sample counter
+      samples_.push_back(s);
+    } else {
       ++stats_.lines_rejected;
       stats_.last_rejected = "malformed SMP";
     }
   } else if (m.type == "EVT") {
     std::string e;
     for (const auto& f : m.fields) e += (e.empty() ? "" : " ") + f;
-    events_.push_back(e);
+    if (events_.size() >= kMaxEvents) {
+      events_.pop_front();
+      ++stats_.events_dropped;
+    }
+    events_.push_back(std::move(e));
   } else if (m.type == "OK" || m.type == "ERR") {
+    if (replies_.size() >= kMaxReplies) replies_.pop_front();
     replies_.push_back(m);
   } else {
     ++stats_.lines_rejected;
@@ -169,6 +176,7 @@ Result LineController::do_identify(controller::ControllerInfo& out, Deadline d) 
   out.base_inertia_kg = *inertia;
   out.max_speed_kmh = *vmax;
   out.max_force_n = *fmax;
+  out.time_scale = number_field(rep, "time_scale").value_or(1.0);
   return Result::success();
 }
 
@@ -241,6 +249,11 @@ Result LineController::do_status(controller::StatusReport& out, Deadline d) {
   const std::string fault = field(rep, "fault").value_or("none");
   out.fault = fault == "none" ? "" : fault;
   return Result::success();
+}
+
+void LineController::do_take_events(std::vector<std::string>& out) {
+  out.insert(out.end(), events_.begin(), events_.end());
+  events_.clear();
 }
 
 Result LineController::do_clear_fault(Deadline d) {

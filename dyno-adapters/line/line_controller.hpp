@@ -17,9 +17,9 @@ class LineController : public controller::Controller {
  public:
   LineController(std::unique_ptr<Transport> transport, controller::Timeouts t, controller::Limits l);
   ~LineController() override;
-  // Events the controller reported (EVT lines), oldest first; cleared by the caller.
-  std::vector<std::string>& events() { return events_; }
   std::string describe() const { return transport_->describe(); }
+  // Bounds on what is kept between calls: a flooding controller loses its oldest lines, never the tool its memory.
+  static constexpr std::size_t kMaxEvents = 256, kMaxReplies = 64, kMaxSamples = 262144;
 
  protected:
   Result do_connect(Deadline d) override;
@@ -35,6 +35,7 @@ class LineController : public controller::Controller {
   Result do_heartbeat(Deadline d) override;
   Result do_status(controller::StatusReport& out, Deadline d) override;
   Result do_clear_fault(Deadline d) override;
+  void do_take_events(std::vector<std::string>& out) override;
 
  private:
   // Sends a request and waits for its OK/ERR, handling every other line that arrives meanwhile.
@@ -50,7 +51,7 @@ class LineController : public controller::Controller {
   std::uint32_t expected_peer_seq_ = 0;
   std::deque<Message> replies_;
   std::deque<controller::Sample> samples_;
-  std::vector<std::string> events_;
+  std::deque<std::string> events_;
 };
 
 bool parse_mode(std::string_view wire, controller::Mode& out);

@@ -12,7 +12,7 @@ using controller::Result;
 using Clock = std::chrono::steady_clock;
 
 ModbusController::ModbusController(const controller::CellConfig& cell)
-    : Controller(cell.timeouts, {cell.max_speed_kmh}), cell_(cell), map_(cell.register_map) {}
+    : Controller(cell.timeouts, {cell.max_speed_kmh, cell.max_force_n, cell.max_time_scale, true}), cell_(cell), map_(cell.register_map) {}
 
 ModbusController::~ModbusController() { do_disconnect(); }
 
@@ -118,6 +118,8 @@ Result ModbusController::do_identify(controller::ControllerInfo& out, controller
   if (Result r = read(Q::roller_diameter, out.roller_diameter_m); !r.ok()) return r;
   if (Result r = read(Q::base_inertia, out.base_inertia_kg); !r.ok()) return r;
   if (Result r = read(Q::max_speed, out.max_speed_kmh); !r.ok()) return r;
+  if (map_[Q::time_scale].present)
+    if (Result r = read(Q::time_scale, out.time_scale); !r.ok()) return r;
   return read(Q::max_force, out.max_force_n);
 }
 

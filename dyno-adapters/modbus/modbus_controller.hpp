@@ -34,6 +34,7 @@ class ModbusController : public controller::Controller {
   controller::Result do_command(controller::Mode mode, double hold_kmh, controller::Deadline d) override;
   controller::Result do_stream(double rate_hz, controller::Deadline d) override;
   controller::Result do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) override;
+  bool streamed() const override { return false; }  // polled at the map's poll_rate_hz, not streamed at a rate asked
   controller::Result do_heartbeat(controller::Deadline d) override;
   controller::Result do_status(controller::StatusReport& out, controller::Deadline d) override;
   controller::Result do_clear_fault(controller::Deadline d) override;

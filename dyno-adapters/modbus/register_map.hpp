@@ -38,16 +38,18 @@ struct Quantity {
   bool writable;     // the tool writes it (holding register or coil)
 };
 // The quantities a map may name, in a fixed order (index = position in RegisterMap::regs).
-inline constexpr std::array<Quantity, 18> kQuantities = {{
+inline constexpr std::array<Quantity, 19> kQuantities = {{
     {"speed", "km/h", true, false},          {"force", "N", true, false},        {"time", "s", false, false},
     {"mode", "", true, false},               {"status", "", true, false},        {"error", "", false, false},
     {"inertia", "kg", true, true},           {"f0", "N", true, true},            {"f1", "N/(km/h)", true, true},
     {"f2", "N/(km/h)^2", true, true},        {"hold_speed", "km/h", true, true}, {"command", "", true, true},
     {"strobe", "", true, true},              {"heartbeat", "", true, true},      {"roller_diameter", "m", true, false},
     {"base_inertia", "kg", true, false},     {"max_speed", "km/h", true, false}, {"max_force", "N", true, false},
+    // The controller's clock rate (controller seconds per wall second): absent means 1, as for any real dyno.
+    {"time_scale", "", false, false},
 }};
 enum Q : std::size_t { speed, force, time, mode, status, error, inertia, f0, f1, f2, hold_speed, command, strobe, heartbeat,
-                       roller_diameter, base_inertia, max_speed, max_force };
+                       roller_diameter, base_inertia, max_speed, max_force, time_scale };
 
 struct RegisterMap {
   int unit_id = 1;

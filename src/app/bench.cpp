@@ -82,7 +82,7 @@ class WarmEnd : public session::Observer {
 };
 
 session::Summary run_one(const session::Inputs& in, const physics::Truth& truth, session::Options opt, double* warm_end_s) {
-  inprocess::DirectController c(truth, in.cell.timeouts, {in.cell.max_speed_kmh});
+  inprocess::DirectController c(truth, in.cell.timeouts, {in.cell.max_speed_kmh, in.cell.max_force_n, 1e9, false});
   WarmEnd w;
   opt.whole_trace_estimator = false;  // the band method decides; the whole-trace fit is measured separately below
   session::Session s(in, opt, c, {&w});

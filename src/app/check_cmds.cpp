@@ -6,6 +6,7 @@
 #include <iostream>
 #include <memory>
 
+#include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
 #include "app/session_runner.hpp"
 #include "app/subcommands.hpp"
@@ -64,8 +65,20 @@ int run_one(const CheckOptions& o) {
   core::CheckKind kind;
   if (!core::parse(o.kind, kind)) return kBadInput;
   const Loaded l = load(o);  // throws InputError: nothing started
+  // One procedure per cell: a busy cell is refused at once (the check's folder is not known yet: the lock names the
+  // command and the pid).
+  std::optional<record::FileLock> cell_lock;
+  std::string lock_msg;
+  if (!lock_cell(l.cell, record::LockMode::exclusive, "check " + o.kind, "(a dyno check of " + l.cell.name + ")", cell_lock, lock_msg)) {
+    std::cerr << "loadtrim: refusing to start: " << lock_msg << "\n";
+    return kBadInput;
+  }
+  if (!lock_msg.empty()) std::cerr << "loadtrim: " << lock_msg << "\n";
   const std::string confirmation = confirm_check(o.unattended);
-  if (confirmation.empty()) return kBadInput;
+  if (confirmation.empty()) {
+    std::cerr << "loadtrim: not confirmed: nothing was started\n";
+    return kBadInput;
+  }
   install_stop_handlers();
   checks::CheckRequest req;
   req.kind = kind;

@@ -7,6 +7,7 @@
 #include <filesystem>
 #include <fstream>
 #include <iostream>
+#include <thread>
 
 #include "app/exit_codes.hpp"
 #include "app/subcommands.hpp"
@@ -15,6 +16,8 @@
 #include "config/epa_csv.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
+#include "core/combination.hpp"
+#include "app/cell_locks.hpp"
 #include "record/event_log.hpp"
 #include "record/session_folder.hpp"
 #include "report/report.hpp"
@@ -53,37 +56,58 @@ void warn(const std::string& file, const core::Problems& w) {
 struct Loaded {
   session::Inputs inputs;
   std::string profile_path;
+  nlohmann::json warnings = nlohmann::json::array();  // the combination's warnings, for the record
 };
+
+// Every file's problems at once: all but the last are printed here, the last is thrown (main prints it and
+// "refused: nothing was started").
+[[noreturn]] void throw_all(std::vector<config::InputError>& errors) {
+  for (std::size_t i = 0; i + 1 < errors.size(); ++i) std::cerr << errors[i].what();
+  throw errors.back();
+}
 
 Loaded load_all(const std::string& cell_file, const std::string& target_file, const std::string& profile_override,
                 const RunRequest& req) {
   Loaded l;
-  core::Problems w;
-  l.inputs.cell = config::load_cell(cell_file, &w);
-  warn(cell_file, w);
-  w.clear();
-  l.inputs.vehicle = config::load_target(target_file, &w);
-  warn(target_file, w);
-  w.clear();
-  l.profile_path = profile_file(profile_override.empty() ? l.inputs.vehicle.profile : profile_override);
-  l.inputs.profile = config::load_profile(l.profile_path, &w);
-  warn(l.profile_path, w);
+  std::vector<config::InputError> errors;
+  auto load = [&](const std::string& file, const auto& fn) {
+    core::Problems w;
+    try {
+      fn(w);
+      warn(file, w);
+    } catch (const config::InputError& e) {
+      errors.push_back(e);
+    }
+  };
+  load(cell_file, [&](core::Problems& w) { l.inputs.cell = config::load_cell(cell_file, &w); });
+  bool have_target = false;
+  load(target_file, [&](core::Problems& w) {
+    l.inputs.vehicle = config::load_target(target_file, &w);
+    have_target = true;
+  });
+  if (have_target || !profile_override.empty()) {
+    l.profile_path = profile_file(profile_override.empty() ? l.inputs.vehicle.profile : profile_override);
+    load(l.profile_path, [&](core::Problems& w) { l.inputs.profile = config::load_profile(l.profile_path, &w); });
+  }
+  if (!errors.empty()) throw_all(errors);
   if (req.port > 0) l.inputs.cell.port = static_cast<unsigned>(req.port);
   if (!req.device.empty()) l.inputs.cell.serial.device = req.device;
-  // Cross-file checks that need no controller: refuse now, before anything connects.
-  core::Problems cross;
-  const double start = l.inputs.profile.start_speed_kmh();
-  if (!(start < l.inputs.cell.max_speed_kmh))
-    cross.push_back({core::Problem::Severity::error, "limits.max_speed_kmh",
-                     "is " + core::num(l.inputs.cell.max_speed_kmh) + " km/h; the profile's start speed " + core::num(start) +
-                         " km/h (top reference speed + run-up margin) must be below it"});
-  if (!cross.empty()) throw config::InputError(cell_file, cross);
-  core::Problems vcross;
-  if (!(start < l.inputs.vehicle.max_speed_kmh))
-    vcross.push_back({core::Problem::Severity::error, "vehicle.max_speed_kmh",
-                      "is " + core::num(l.inputs.vehicle.max_speed_kmh) + " km/h; the profile's start speed " + core::num(start) +
-                          " km/h must be below it"});
-  if (!vcross.empty()) throw config::InputError(target_file, vcross);
+  // How the three files combine (core/combination.hpp): every limit that needs no controller is checked now,
+  // before anything connects.
+  const auto& cell = l.inputs.cell;
+  const core::CellFacts facts{cell.max_speed_kmh, cell.max_force_n, cell.max_motoring_s, cell.axles, cell.min_inertia_kg, cell.max_inertia_kg};
+  const core::CombinationProblems cp = core::check_combination(l.inputs.vehicle, l.inputs.profile, facts);
+  if (cp.any_error())
+    std::cerr << "loadtrim: the cell file " << cell_file << ", the target " << target_file << " and the profile " << l.profile_path
+              << " do not fit together:\n";
+  for (const auto& [file, ps] : {std::pair{cell_file, cp.cell}, std::pair{target_file, cp.target}, std::pair{l.profile_path, cp.profile}}) {
+    core::Problems errs, warns;
+    for (const auto& p : ps) (p.severity == core::Problem::Severity::error ? errs : warns).push_back(p);
+    warn(file, warns);
+    for (const auto& p : warns) l.warnings.push_back(file + ": " + p.key + ": " + p.message);
+    if (!errs.empty()) errors.emplace_back(file, errs);
+  }
+  if (!errors.empty()) throw_all(errors);
   return l;
 }
 
@@ -142,6 +166,24 @@ std::string confirm(const RunRequest& req) {
   return ask_to_motor(req.unattended, kCautions, "YES", "Type YES to let loadtrim motor the rollers: ", "interactive confirmation");
 }
 
+// Blocks the session's thread for good at an event: a record type, or "state:<name>" for entering a state (test hook
+// only; see execute()).
+class FreezeForTest : public session::Observer {
+ public:
+  explicit FreezeForTest(std::string state) : state_(std::move(state)) {}
+  bool on_event(const session::Event& e) override {
+    if (e.type == state_ || (e.type == "state" && "state:" + e.data.value("to", "") == state_)) {
+      std::fprintf(stderr, "loadtrim: test hook: the session thread freezes at %s\n", state_.c_str());
+      for (;;) std::this_thread::sleep_for(std::chrono::hours(1));
+    }
+    return true;
+  }
+  std::string name() const override { return "the freeze test hook"; }
+
+ private:
+  std::string state_;
+};
+
 int execute(session::Inputs inputs, const RunRequest& req, const std::string& folder, const session::ResumePoint* resume,
             const std::string& confirmation, nlohmann::json started) {
   session::RecordWriter writer(folder);
@@ -185,7 +227,15 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   else std::printf("%s\n", nlohmann::json({{"type", "session_folder"}, {"path", folder}}).dump().c_str());
   std::fflush(stdout);
   const core::VehicleTarget vehicle = inputs.vehicle;
-  session::Session s(std::move(inputs), opt, *c, {&writer, &console}, &g_stop);
+  std::vector<session::Observer*> observers = {&writer, &console};
+  // A test hook (as LOADTRIM_TEST_FAIL_WRITES_AFTER): freeze the session's own thread at the named event, to show
+  // that a stalled tool lets the controller's watchdog stop the rollers (docs/safety.md).
+  std::optional<FreezeForTest> freezer;
+  if (const char* st = std::getenv("LOADTRIM_TEST_FREEZE_IN_STATE"); st && *st) {
+    freezer.emplace(st);
+    observers.push_back(&*freezer);
+  }
+  session::Session s(std::move(inputs), opt, *c, observers, &g_stop);
   const session::Summary sum = s.run(resume);
   c->disconnect();
   if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder);
@@ -196,6 +246,12 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
   if (sum.outcome == session::Outcome::record_failure)
     std::cerr << "loadtrim: record failure: " << writer.error() << " (every record before it is intact in " << folder << ")\n";
+  // A session that could not confirm the rollers at standstill ends with the controller-fault code, whatever its
+  // result, so no script mistakes it for a clean end.
+  if (!sum.rollers_stopped) {
+    std::cerr << "loadtrim: " << sum.stop_note << "\n";
+    return kControllerFault;
+  }
   return exit_code_for(sum.outcome);
 }
 
@@ -276,10 +332,31 @@ int run_new_session(const RunRequest& req, std::string* folder_out) {
   bool refuse = false;
   const nlohmann::json gate = dyno_check_gate(req, l.inputs.cell, refuse);
   if (refuse) return kBadInput;
+  // One session per cell: a busy cell is refused at once, before the operator is asked anything (a probe), and
+  // for good once the folder exists (the lock then names it).
+  std::optional<record::FileLock> cell_lock, folder_lock;
+  std::string lock_msg;
+  if (!lock_cell(l.inputs.cell, record::LockMode::exclusive, "run", "", cell_lock, lock_msg)) {
+    std::cerr << "loadtrim: refusing to start: " << lock_msg << "\n";
+    return kBadInput;
+  }
+  const std::string stale_lock = lock_msg;  // a lock left by a killed process, taken over by the probe
+  if (!stale_lock.empty()) std::cerr << "loadtrim: " << stale_lock << "\n";
+  cell_lock.reset();
   const std::string confirmation = confirm(req);
-  if (confirmation.empty()) return kBadInput;
+  if (confirmation.empty()) {
+    std::cerr << "loadtrim: not confirmed: nothing was started\n";
+    return kBadInput;
+  }
   install_stop_handlers();
   const std::string folder = record::create_session_folder(req.sessions_dir, l.inputs.vehicle.id);
+  if (!lock_cell(l.inputs.cell, record::LockMode::exclusive, "run", folder, cell_lock, lock_msg) ||
+      !lock_folder(folder, "run", folder_lock, lock_msg)) {
+    std::error_code ec;
+    fs::remove_all(folder, ec);  // empty: nothing was recorded
+    std::cerr << "loadtrim: refusing to start: " << lock_msg << "\n";
+    return kBadInput;
+  }
   if (folder_out) *folder_out = folder;
   nlohmann::json files = nlohmann::json::array();
   files.push_back(record::copy_input(folder, req.cell_file, "cell.toml"));
@@ -288,7 +365,9 @@ int run_new_session(const RunRequest& req, std::string* folder_out) {
   nlohmann::json started = {{"vehicle", l.inputs.vehicle.id}, {"cell", l.inputs.cell.name}, {"profile", l.inputs.profile.name},
                             {"method", core::to_string(l.inputs.profile.method)}, {"files", files},
                             {"overrides", {{"port", req.port}, {"device", req.device}}},
-                            {"inprocess", req.inprocess_truth.has_value()}, {"dyno_checks", gate}};
+                            {"inprocess", req.inprocess_truth.has_value()}, {"dyno_checks", gate},
+                            {"combination_warnings", l.warnings}, {"two_wheel_drive_mode", l.inputs.vehicle.two_wheel_drive_mode},
+                            {"cell_lock", {{"endpoint", endpoint_key(l.inputs.cell)}, {"stale_lock_taken_over", stale_lock.empty() ? lock_msg : stale_lock}}}};
   return execute(std::move(l.inputs), req, folder, nullptr, confirmation, started);
 }
 
@@ -321,8 +400,18 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
       if (overrides.device.empty() && r.contains("overrides") && !r["overrides"].value("device", "").empty())
         l.inputs.cell.serial.device = r["overrides"]["device"].get<std::string>();
     }
+  std::optional<record::FileLock> cell_lock, folder_lock;
+  std::string lock_msg;
+  if (!lock_folder(folder, "resume", folder_lock, lock_msg) ||
+      !lock_cell(l.inputs.cell, record::LockMode::exclusive, "resume", folder, cell_lock, lock_msg)) {
+    std::cerr << "loadtrim: refusing to resume: " << lock_msg << "\n";
+    return kBadInput;
+  }
   const std::string confirmation = confirm(req);
-  if (confirmation.empty()) return kBadInput;
+  if (confirmation.empty()) {
+    std::cerr << "loadtrim: not confirmed: nothing was started\n";
+    return kBadInput;
+  }
   install_stop_handlers();
   const session::ResumePoint rp = session::resume_point(records);
   nlohmann::json started = {{"vehicle", l.inputs.vehicle.id}, {"cell", l.inputs.cell.name}, {"profile", l.inputs.profile.name},

@@ -11,6 +11,7 @@
 #include "checks/cell_history.hpp"
 #include "core/problem.hpp"
 #include "core/units.hpp"
+#include "motion/motion.hpp"
 #include "record/event_log.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
@@ -63,7 +64,15 @@ class Procedure {
  public:
   Procedure(controller::Controller& c, const CheckRequest& req, record::EventLog& log, std::string folder,
             const std::atomic<bool>* stop)
-      : c_(c), req_(req), log_(log), folder_(std::move(folder)), stop_(stop) {}
+      : c_(c), req_(req), log_(log), folder_(std::move(folder)), motion_(c, rules(req), stop) {}
+
+  static motion::Rules rules(const CheckRequest& req) {
+    motion::Rules r;
+    r.speed_limit_kmh = req.cell.max_speed_kmh;
+    r.standstill_kmh = req.cell.standstill_kmh;
+    return r;
+  }
+  motion::Motion& motion() { return motion_; }
 
   bool record(const std::string& type, nlohmann::json payload) {
     if (!log_.append(type, std::move(payload), record::utc_now())) throw Abort{CheckResult::End::record_failure, log_.error()};
@@ -75,55 +84,36 @@ class Procedure {
     throw Abort{CheckResult::End::controller_fault, std::string(what) + ": " + r.message};
   }
 
-  // Receives samples until `done` says so; faults, the operator's stop and the cell's speed limit end the check.
-  // The step's time limit runs from the first sample in one of the `modes` the step commanded: samples the link
-  // buffered while earlier requests were answered come first and may span minutes of controller time on a slow
-  // host. A controller that never enters the mode is caught by a day of controller time.
+  // A step's result as the check's end: the controller budget running out is the check failing; the operator's stop
+  // is an interruption; anything else (a fault, over-speed, the clock, the link, the wall deadline) a controller fault.
+  void must_step(const Result& r) {
+    if (r.ok()) return;
+    const auto end = r.code == motion::kTooSlow      ? CheckResult::End::failed
+                     : r.code == motion::kInterrupted ? CheckResult::End::interrupted
+                                                      : CheckResult::End::controller_fault;
+    throw Abort{end, r.message};
+  }
+
+  // Receives samples of the step just commanded until `done` says so (motion/motion.hpp: deadlines in controller and
+  // wall time; fault flags and over-speed checked on every sample first).
   void collect(std::vector<Sample>& out, const std::function<bool(const Sample&)>& done, double max_controller_s, const char* step,
                std::initializer_list<controller::Mode> modes) {
-    double t0 = -1.0, first = -1.0;
-    for (;;) {
-      if (stop_ && stop_->load()) throw Abort{CheckResult::End::interrupted, "stopped by the operator"};
-      std::vector<Sample> got;
-      must(c_.receive_samples(got), "receive samples");
-      for (const auto& s : got) {
-        if (s.flags & (controller::kFlagFault | controller::kFlagEstop | controller::kFlagWatchdog))
-          throw Abort{CheckResult::End::controller_fault, "the controller reports a fault (flags " + std::to_string(s.flags) + ")"};
-        if (s.speed_kmh > req_.cell.max_speed_kmh + 2.0)
-          throw Abort{CheckResult::End::controller_fault, "speed " + num(s.speed_kmh) + " km/h above the cell limit"};
-        if (first < 0.0) first = s.time_s;
-        if (t0 < 0.0 && std::find(modes.begin(), modes.end(), s.mode) != modes.end()) t0 = s.time_s;
-        out.push_back(s);
-        if (done(s)) return;
-        if (t0 < 0.0 && s.time_s - first > 86400.0)
-          throw Abort{CheckResult::End::controller_fault, std::string(step) + ": the controller did not enter the commanded mode"};
-        if (t0 >= 0.0 && s.time_s - t0 > max_controller_s)
-          throw Abort{CheckResult::End::failed, std::string(step) + " did not complete within " + num(max_controller_s) +
-                                                    " s of controller time (last sample: " + num(s.speed_kmh) + " km/h, " +
-                                                    controller::to_string(s.mode) + ")"};
-      }
-    }
+    motion::Step st;
+    st.what = step;
+    st.budget_s = max_controller_s;
+    st.modes = modes;
+    st.since_epoch = c_.epoch();
+    must_step(motion_.collect(st, done, &out));
   }
 
   void hold_and_settle(double v_kmh) {
     if (v_kmh > req_.cell.max_speed_kmh) throw Abort{CheckResult::End::refused, "start speed " + num(v_kmh) + " km/h is above the cell limit"};
-    must(c_.hold_speed(v_kmh), "speed hold");
-    std::vector<Sample> s;
-    double since = -1.0;
-    collect(s, [&](const Sample& x) {
-      if (std::abs(x.speed_kmh - v_kmh) > 0.5) {
-        since = -1.0;
-        return false;
-      }
-      if (since < 0.0) since = x.time_s;
-      return x.time_s - since >= req_.profile.settle_s;
-    }, 600.0, "settling at the start speed", {controller::Mode::speed_hold});
+    must_step(motion_.hold(v_kmh, req_.profile.settle_s, "settling at the start speed", 600.0));
   }
 
   void stop_rollers() {
-    must(c_.controlled_stop(), "controlled stop");
-    std::vector<Sample> s;
-    collect(s, [](const Sample& x) { return x.speed_kmh <= 0.0 && x.mode == controller::Mode::idle; }, 600.0, "the stop", {controller::Mode::controlled_stop, controller::Mode::idle});
+    bool stopped = false;
+    must_step(motion_.stop_and_wait(600.0, stopped));
   }
 
   // Writes a trace file and returns its record entry.
@@ -254,7 +244,7 @@ class Procedure {
   const CheckRequest& req_;
   record::EventLog& log_;
   std::string folder_;
-  const std::atomic<bool>* stop_;
+  motion::Motion motion_;
 };
 
 }  // namespace
@@ -318,15 +308,23 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   } catch (const Abort& a) {
     res.end = a.end;
     verdict = std::string(to_string(a.end)) + ": " + a.why;
-    if (moved) {  // the safe stop: command it, do not wait for the watchdog
-      c.controlled_stop();
-      std::vector<Sample> s;
-      for (int i = 0; i < 200; ++i) {
-        s.clear();
-        if (!c.receive_samples(s).ok() || (!s.empty() && s.back().speed_kmh <= 0.0)) break;
-      }
-      c.stop_stream();
+  } catch (const std::exception& e) {
+    res.end = CheckResult::End::controller_fault;
+    verdict = std::string("internal error, the check was stopped: ") + e.what();
+  }
+  if (res.end != CheckResult::End::passed && res.end != CheckResult::End::failed && moved) {
+    // The safe stop: command it and wait for standstill (the motion library's stop, bounded in both clocks); with no
+    // stream to confirm it, the controller's status.
+    bool stopped = false;
+    const Result sr = p.motion().stop_and_wait(600.0, stopped);
+    controller::StatusReport st;
+    if (!stopped) stopped = p.motion().settle_by_status(600.0, st).ok();
+    c.stop_stream();
+    if (!stopped) {
+      res.end = CheckResult::End::controller_fault;
+      verdict += "; rollers not confirmed stopped: " + sr.message + "; the controller's watchdog is the remaining safeguard";
     }
+    result["rollers_stopped"] = stopped;
   }
   c.disconnect();
   res.verdict = verdict;

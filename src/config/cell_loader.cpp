@@ -63,6 +63,7 @@ controller::CellConfig read_cell(TomlReader& r) {
   c.timeouts.reply = ms(r, "timeouts.reply_ms", 1000, 10, 600000);
   c.timeouts.sample_gap = ms(r, "timeouts.sample_gap_ms", 1000, 10, 600000);
   c.timeouts.heartbeat_interval = ms(r, "timeouts.heartbeat_interval_ms", 200, 10, 60000);
+  c.timeouts.progress_grace = ms(r, "timeouts.progress_grace_ms", 2000, 100, 600000);
   if (c.timeouts.heartbeat_interval >= c.timeouts.sample_gap)
     r.error("timeouts.heartbeat_interval_ms", "must be shorter than timeouts.sample_gap_ms");
   c.reconnect.attempts = r.integer_or("reconnect.attempts", 3, 0, 100);
@@ -70,6 +71,8 @@ controller::CellConfig read_cell(TomlReader& r) {
   c.max_speed_kmh = r.number("limits.max_speed_kmh", 20.0, 300.0, "km/h");
   c.max_force_n = r.number("limits.max_force_n", 100.0, 100000.0, "N");
   c.max_motoring_s = r.number("limits.max_motoring_s", 60.0, 86400.0, "s");
+  c.standstill_kmh = r.number_or("limits.standstill_kmh", 0.5, 0.0, 5.0, "km/h");
+  c.max_time_scale = r.number_or("controller.max_time_scale", 1.0, 1.0, 10000.0, "");
   c.roller_diameter_m = r.number("dyno.roller_diameter_m", 0.2, 3.0, "m");
   c.base_inertia_kg = r.number("dyno.base_inertia_kg", 50.0, 10000.0, "kg");
   c.roller_diameter_tolerance_m = r.number_or("dyno.roller_diameter_tolerance_m", 0.002, 0.0, 0.1, "m");

@@ -37,6 +37,8 @@ struct CellConfig {
   double max_speed_kmh = 0.0;
   double max_force_n = 0.0;
   double max_motoring_s = 0.0;  // one continuous motoring period (warm-up included)
+  double standstill_kmh = 0.5;  // at or below this speed the rollers count as stopped (every stop and start check)
+  double max_time_scale = 1.0;  // the fastest controller clock accepted (controller seconds per wall second); > 1 for simulators only
   double roller_diameter_m = 0.0;
   double base_inertia_kg = 0.0;
   double roller_diameter_tolerance_m = 0.002;

@@ -42,9 +42,33 @@ bool ControllerInfo::has(std::string_view c) const {
   return false;
 }
 
-template <class F>
-Result Controller::guarded(const char* what, F&& f) {
+double Controller::wall_s() const { return std::chrono::duration<double>(Clock::now() - t0_).count(); }
+
+void Controller::lease(std::chrono::milliseconds d) { alive_until_.store((Clock::now() + d).time_since_epoch().count()); }
+bool Controller::lease_valid() const { return Clock::now().time_since_epoch().count() < alive_until_.load(); }
+
+void Controller::set_stopping(bool on) {
   const std::lock_guard<std::recursive_mutex> lock(mu_);
+  stopping_ = on;
+}
+
+std::uint64_t Controller::epoch() const {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
+  return epoch_;
+}
+std::uint64_t Controller::clear_epoch() const {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
+  return clear_epoch_;
+}
+double Controller::time_scale() const {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
+  return time_scale_;
+}
+
+template <class F>
+Result Controller::guarded(const char* what, F&& f, bool renews_lease) {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
+  if (renews_lease) lease(timeouts_.progress_grace);
   try {
     Result r = f();
     if (!r.ok() && r.message.rfind(what, 0) != 0) r.message = std::string(what) + ": " + r.message;
@@ -57,8 +81,15 @@ Result Controller::guarded(const char* what, F&& f) {
 }
 
 Result Controller::connect() {
-  have_index_ = false;
-  return guarded("connect", [&] { return do_connect(Clock::now() + timeouts_.connect); });
+  return guarded("connect", [&] {
+    have_index_ = false;
+    pending_.clear();
+    pending_fault_.reset();
+    pending_fault_is_event_ = false;
+    clock_.reset();
+    malformed_run_ = 0;
+    return do_connect(Clock::now() + timeouts_.connect);
+  });
 }
 
 void Controller::disconnect() {
@@ -70,7 +101,22 @@ void Controller::disconnect() {
 }
 
 Result Controller::identify(ControllerInfo& out) {
-  return guarded("identify", [&] { return do_identify(out, reply_deadline()); });
+  return guarded("identify", [&] {
+    out.time_scale = 1.0;
+    if (Result r = do_identify(out, reply_deadline()); !r.ok()) return r;
+    if (!(std::isfinite(out.time_scale) && out.time_scale >= 1e-3))
+      return Result::fail("the controller states a clock rate of " + num(out.time_scale) + "× real time, not a rate");
+    if (out.time_scale > limits_.max_time_scale)
+      return Result::fail("the controller states that its clock runs " + num(out.time_scale) + "× real time; the cell file allows at most " +
+                          num(limits_.max_time_scale) + "× (controller.max_time_scale: 1 for a real dyno)");
+    // A clock stated slower than real time would stretch every wall deadline: never below real time here.
+    time_scale_ = std::max(1.0, out.time_scale);
+    ClockRules rules = clock_.rules();
+    rules.scale = time_scale_;
+    rules.wall_related = limits_.clock_wall_related;
+    clock_.set_rules(rules);
+    return Result::success();
+  });
 }
 
 
@@ -115,17 +161,17 @@ Result Controller::hold_speed(double kmh) {
     if (!(limits_.max_speed_kmh > 0.0)) return Result::fail("no speed limit configured: refusing to motor the rollers");
     if (kmh > limits_.max_speed_kmh)
       return Result::fail("speed " + num(kmh) + " km/h is above the limit of " + num(limits_.max_speed_kmh) + " km/h; not sent");
-    return do_command(Mode::speed_hold, kmh, reply_deadline());
+    return command_done(do_command(Mode::speed_hold, kmh, reply_deadline()));
   });
 }
 Result Controller::release_road_load() {
-  return guarded("road-load simulation", [&] { return do_command(Mode::road_load, 0.0, reply_deadline()); });
+  return guarded("road-load simulation", [&] { return command_done(do_command(Mode::road_load, 0.0, reply_deadline())); });
 }
 Result Controller::controlled_stop() {
-  return guarded("controlled stop", [&] { return do_command(Mode::controlled_stop, 0.0, reply_deadline()); });
+  return guarded("controlled stop", [&] { return command_done(do_command(Mode::controlled_stop, 0.0, reply_deadline())); });
 }
 Result Controller::idle() {
-  return guarded("idle", [&] { return do_command(Mode::idle, 0.0, reply_deadline()); });
+  return guarded("idle", [&] { return command_done(do_command(Mode::idle, 0.0, reply_deadline())); });
 }
 Result Controller::apply_force(double n) {
   return guarded("constant force", [&] {
@@ -133,55 +179,151 @@ Result Controller::apply_force(double n) {
     if (!(limits_.max_force_n > 0.0)) return Result::fail("no force limit configured: refusing to motor the rollers");
     if (std::abs(n) > limits_.max_force_n)
       return Result::fail("force " + num(n) + " N is above the limit of " + num(limits_.max_force_n) + " N; not sent");
-    return do_command(Mode::constant_force, n, reply_deadline());
+    return command_done(do_command(Mode::constant_force, n, reply_deadline()));
   });
 }
 Result Controller::free_coast() {
-  return guarded("free coast", [&] { return do_command(Mode::free_coast, 0.0, reply_deadline()); });
+  return guarded("free coast", [&] { return command_done(do_command(Mode::free_coast, 0.0, reply_deadline())); });
 }
 
 Result Controller::start_stream(double rate_hz) {
   return guarded("start stream", [&] {
     if (!(rate_hz >= 10.0 && rate_hz <= 1000.0)) return Result::fail("rate " + num(rate_hz) + " Hz, allowed 10 to 1000 Hz");
+    Result r = do_stream(rate_hz, reply_deadline());
+    if (!r.ok()) return r;
+    // A new stream: what was buffered before it is dropped with the old epoch; its counter and clock start afresh.
+    drain_adapter();
+    pending_.clear();
     have_index_ = false;
-    return do_stream(rate_hz, reply_deadline());
+    clock_.reset();
+    ClockRules rules = clock_.rules();
+    rules.stream_rate_hz = streamed() ? rate_hz : 0.0;
+    clock_.set_rules(rules);
+    stream_rate_hz_ = rate_hz;
+    ++epoch_;
+    return r;
   });
 }
 Result Controller::stop_stream() {
-  return guarded("stop stream", [&] { return do_stream(0.0, reply_deadline()); });
+  return guarded("stop stream", [&] {
+    Result r = do_stream(0.0, reply_deadline());
+    pending_.clear();
+    stream_rate_hz_ = 0.0;
+    return r;
+  });
+}
+
+Result Controller::command_done(Result r) {
+  if (!r.ok()) return r;
+  drain_adapter();
+  ++epoch_;
+  return r;
+}
+
+void Controller::drain_adapter() {
+  std::vector<Sample> raw;
+  // A deadline already passed: only what the adapter has read, no waiting (a polled adapter may take one reading).
+  const Result r = do_receive_samples(raw, Clock::now() - std::chrono::milliseconds(1));
+  if (!r.ok() && !pending_fault_ && r.status == Result::Status::fatal) pending_fault_ = r;
+  ingest(raw, pending_);
+}
+
+namespace {
+std::string describe_sample(const Sample& s) {
+  return "index " + std::to_string(s.index) + ", time " + num(s.time_s) + " s, speed " + num(s.speed_kmh) + " km/h, force " +
+         num(s.force_n) + " N";
+}
+}  // namespace
+
+void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted) {
+  std::vector<std::string> events;
+  do_take_events(events);
+  for (auto& e : events) {
+    ++stats_.events;
+    stats_.last_event = e.substr(0, 200);
+    if (!pending_fault_ && e.rfind("FAULT", 0) == 0) {
+      pending_fault_ = Result::fail("the controller reports a fault event: " + e.substr(0, 200));
+      pending_fault_is_event_ = true;
+    }
+  }
+  const double w = wall_s();
+  for (auto& s : raw) {
+    // Exact repeats (a controller or a link that sends a line twice) are harmless: dropped and counted.
+    if (have_index_ && s.index == last_sample_.index && s.time_s == last_sample_.time_s && s.speed_kmh == last_sample_.speed_kmh &&
+        s.force_n == last_sample_.force_n && s.flags == last_sample_.flags) {
+      ++stats_.samples_duplicate;
+      continue;
+    }
+    std::string bad;
+    if (!std::isfinite(s.time_s) || !std::isfinite(s.speed_kmh) || !std::isfinite(s.force_n)) bad = "a value is not a finite number";
+    else if (s.speed_kmh < -2.0) bad = "negative speed";
+    else if (std::abs(s.force_n) > 1e6) bad = "force beyond any dyno";
+    else if (have_index_ && s.index < next_index_) bad = "the sample counter ran backwards (expected " + std::to_string(next_index_) + ")";
+    if (!bad.empty()) {
+      ++stats_.samples_malformed;
+      ++recent_malformed_;
+      ++malformed_run_;
+      stats_.last_malformed = bad + " (" + describe_sample(s) + ")";
+      if (!pending_fault_ && !stopping_ && (malformed_run_ > 20 || (recent_malformed_ > 50)))
+        pending_fault_ = Result::fail("the controller sends malformed samples: " + std::to_string(stats_.samples_malformed) +
+                                      " dropped so far (last: " + stats_.last_malformed + ")");
+      continue;
+    }
+    malformed_run_ = 0;
+    if (++recent_valid_ + recent_malformed_ >= 500) recent_valid_ = recent_malformed_ = 0;
+    if (!stopping_)
+      if (auto v = clock_.on_sample(s.time_s, w); v && !pending_fault_) pending_fault_ = Result::fail(*v);
+    if (have_index_ && s.index != next_index_) stats_.samples_lost += s.index - next_index_;
+    next_index_ = s.index + 1;
+    have_index_ = true;
+    last_sample_ = s;
+    s.epoch = epoch_;
+    ++stats_.samples_received;
+    accepted.push_back(s);
+  }
 }
 
 Result Controller::receive_samples(std::vector<Sample>& out) {
   return guarded("receive samples", [&] {
+    if (pending_fault_ && !stopping_) return *pending_fault_;
     if (Result r = heartbeat_if_due(); !r.ok()) return r;
     const std::size_t before = out.size();
+    out.insert(out.end(), pending_.begin(), pending_.end());
+    pending_.clear();
+    const std::uint64_t rejected_before = stats_.lines_rejected, malformed_before = stats_.samples_malformed;
     // Wait in slices no longer than the heartbeat interval so heartbeats keep going while samples are awaited.
     const Deadline gap = Clock::now() + timeouts_.sample_gap;
-    for (;;) {
+    std::vector<Sample> raw;
+    while (out.size() == before) {
       const Deadline slice = std::min(gap, Clock::now() + timeouts_.heartbeat_interval);
-      if (Result r = do_receive_samples(out, slice); !r.ok()) return r;
+      raw.clear();
+      if (Result r = do_receive_samples(raw, slice); !r.ok()) return r;
+      ingest(raw, out);
+      if (pending_fault_ && !stopping_) return *pending_fault_;
       if (out.size() > before) break;
-      if (Clock::now() >= gap)
-        return Result::retry("no sample for " + std::to_string(timeouts_.sample_gap.count()) + " ms (stalled stream or lost link)");
+      if (Clock::now() >= gap) {
+        std::string why = "no sample for " + std::to_string(timeouts_.sample_gap.count()) + " ms (stalled stream or lost link";
+        if (const auto n = stats_.lines_rejected - rejected_before; n > 0)
+          why += "; " + std::to_string(n) + " lines rejected meanwhile, last: " + stats_.last_rejected;
+        if (const auto n = stats_.samples_malformed - malformed_before; n > 0)
+          why += "; " + std::to_string(n) + " malformed samples dropped meanwhile, last: " + stats_.last_malformed;
+        return Result::retry(why + ")");
+      }
       if (Result r = heartbeat_if_due(); !r.ok()) return r;
     }
-    for (std::size_t i = before; i < out.size(); ++i) {
-      if (have_index_ && out[i].index != next_index_)
-        stats_.samples_lost += out[i].index > next_index_ ? out[i].index - next_index_ : 1;
-      next_index_ = out[i].index + 1;
-      have_index_ = true;
-    }
-    stats_.samples_received += out.size() - before;
     return Result::success();
   });
 }
 
 Result Controller::heartbeat() {
-  return guarded("heartbeat", [&] {
-    last_heartbeat_ = Clock::now();
-    ++stats_.heartbeats;
-    return do_heartbeat(reply_deadline());
-  });
+  return guarded(
+      "heartbeat",
+      [&] {
+        last_heartbeat_ = Clock::now();
+        ++stats_.heartbeats;
+        return do_heartbeat(reply_deadline());
+      },
+      /*renews_lease=*/false);
 }
 
 Result Controller::heartbeat_if_due() {
@@ -191,6 +333,9 @@ Result Controller::heartbeat_if_due() {
 }
 
 void Controller::heartbeat_if_due_and_free() {
+  // Only while the driving thread is alive and within its announced steps: a stalled tool must let the controller's
+  // watchdog stop the rollers.
+  if (!lease_valid()) return;
   const std::unique_lock<std::recursive_mutex> lock(mu_, std::try_to_lock);
   if (lock.owns_lock()) heartbeat_if_due();  // a failure shows on the driving thread's next call
 }
@@ -222,10 +367,25 @@ KeepAlive::~KeepAlive() {
 }
 
 Result Controller::status(StatusReport& out) {
-  return guarded("status", [&] { return do_status(out, reply_deadline()); });
+  return guarded("status", [&] {
+    if (Result r = do_status(out, reply_deadline()); !r.ok()) return r;
+    if (!std::isfinite(out.speed_kmh) || out.speed_kmh < -2.0)
+      return Result::fail("the controller's status reports a speed of " + num(out.speed_kmh) + " km/h, not a speed");
+    if (!stopping_)
+      if (auto v = clock_.on_status(out.time_s, wall_s())) return Result::fail(*v);
+    return Result::success();
+  });
 }
 Result Controller::clear_fault() {
-  return guarded("clear fault", [&] { return do_clear_fault(reply_deadline()); });
+  return guarded("clear fault", [&] {
+    Result r = command_done(do_clear_fault(reply_deadline()));
+    // The fault events that led here are answered by the clear; anything else found on the way stands.
+    if (r.ok()) {
+      clear_epoch_ = epoch_;
+      if (pending_fault_is_event_) pending_fault_.reset();
+    }
+    return r;
+  });
 }
 
 }  // namespace loadtrim::controller

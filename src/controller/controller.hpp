@@ -6,20 +6,26 @@
 // Threading: one thread drives a Controller; calls block for at most their deadline. A KeepAlive (below) may feed
 // the watchdog from a second thread: every public call holds the controller's lock, and the keep-alive only takes
 // it when it is free, so it never delays the driving thread and never interleaves with a call.
-// Time: every sample carries the controller's own timestamp; callers time the test from those, never from the
-// host clock. The host clock (steady_clock) is used here for deadlines and heartbeats only.
+// Time: every sample carries the controller's own timestamp; callers time the test from those. The host clock
+// (steady_clock) bounds every call, checks the controller's clock (clock_guard.hpp) and leases the keep-alive.
+// Nothing the controller sends is believed unchecked: samples with non-finite or impossible values, or a sample
+// counter that runs backwards, are dropped and counted (too many is a fault); exact repeats are dropped; fault
+// events end the next receive with a fatal status; the event queue is bounded.
 #pragma once
 
 #include <algorithm>
 #include <chrono>
 #include <cmath>
+#include <atomic>
 #include <condition_variable>
 #include <cstdint>
 #include <mutex>
+#include <optional>
 #include <string>
 #include <thread>
 #include <vector>
 
+#include "controller/clock_guard.hpp"
 #include "core/road_load.hpp"
 
 namespace loadtrim::controller {
@@ -62,6 +68,7 @@ struct ControllerInfo {
   double base_inertia_kg = 0.0;
   double max_speed_kmh = 0.0;
   double max_force_n = 0.0;
+  double time_scale = 1.0;   // controller seconds per wall second (1 for hardware; a simulator may run faster)
   bool has(std::string_view capability) const;
 };
 
@@ -72,6 +79,10 @@ struct Sample {
   double force_n = 0.0;
   Mode mode = Mode::idle;
   std::uint32_t flags = 0;
+  // Set by the public layer: how many commands the controller had acknowledged when this sample was read off the
+  // link. A step waits only for samples with epoch ≥ the epoch its command returned (samples buffered before the
+  // acknowledgement belong to the phase before), without trusting the controller's timestamps for that.
+  std::uint64_t epoch = 0;
 };
 
 struct StatusReport {
@@ -87,11 +98,16 @@ struct Timeouts {
   std::chrono::milliseconds reply{1000};
   std::chrono::milliseconds sample_gap{1000};          // no sample for this long while streaming = link trouble
   std::chrono::milliseconds heartbeat_interval{200};
+  // The keep-alive feeds the watchdog only while the driving thread has called within this, or within a longer
+  // lease it took for a known slow step (Controller::lease): a stalled tool lets the controller's watchdog trip.
+  std::chrono::milliseconds progress_grace{2000};
 };
 
 struct Limits {
   double max_speed_kmh = 0.0;  // never command more (the cell's and the vehicle's, whichever is lower)
   double max_force_n = 0.0;    // never command a constant force of more (the cell's limit)
+  double max_time_scale = 1.0; // a controller stating a faster clock is refused at identify (simulators only)
+  bool clock_wall_related = true;  // false only for a controller simulated inside the tool's process
 };
 
 struct LinkStats {
@@ -101,6 +117,12 @@ struct LinkStats {
   std::uint64_t samples_received = 0;
   std::uint64_t heartbeats = 0;
   std::string last_rejected;          // what the last rejection was
+  std::uint64_t samples_malformed = 0;  // dropped: non-finite or impossible values, counter running backwards
+  std::uint64_t samples_duplicate = 0;  // dropped: exact repeats of a sample already received
+  std::string last_malformed;
+  std::uint64_t events = 0;             // EVT lines (or their equivalent) received
+  std::uint64_t events_dropped = 0;     // beyond the bounded queue
+  std::string last_event;
 };
 
 class Controller {
@@ -129,7 +151,10 @@ class Controller {
   Result start_stream(double rate_hz);  // 10 to 1000 Hz
   Result stop_stream();
   // Appends the samples that have arrived, waiting up to the sample-gap deadline for at least one. Sends a
-  // heartbeat when one is due. A gap in the sample index is counted in stats().samples_lost.
+  // heartbeat when one is due. A gap in the sample index is counted in stats().samples_lost. Fatal: a fault event,
+  // a clock violation (clock_guard.hpp), or malformed samples beyond the bound (more than 20 in a row, or more
+  // than 50 of the last 500). Retryable: no valid sample within the sample gap (the message counts the lines
+  // rejected meanwhile and names the last).
   Result receive_samples(std::vector<Sample>& out);
   Result heartbeat();                    // sends one now
   Result heartbeat_if_due();
@@ -139,6 +164,22 @@ class Controller {
   Result clear_fault();
 
   LinkStats stats() const;  // a copy, taken under the lock
+  // The number of commands acknowledged so far (see Sample::epoch) and the epoch of the last fault clear.
+  std::uint64_t epoch() const;
+  std::uint64_t clear_epoch() const;
+  // The controller's stated clock rate, as accepted at identify (1 before).
+  double time_scale() const;
+  // The driving thread announces a step that may keep it from calling for up to `d` (a durable record write, an
+  // analysis): the keep-alive goes on feeding the watchdog until then. Every public call renews the lease by
+  // timeouts().progress_grace; heartbeats do not.
+  void lease(std::chrono::milliseconds d);
+  bool lease_valid() const;
+  // While the rollers are being brought to a stop, what is wanted from the controller is its speed and mode: a
+  // fault it reported earlier (already acted on) and its clock's misbehaviour are counted but no longer end a call,
+  // so the stop can still be confirmed. The caller bounds the stop in wall time (motion::Motion::stop_and_wait).
+  void set_stopping(bool on);
+  // Whether the adapter streams samples at the rate asked (true) or polls at a rate of its own.
+  bool streams() const { return streamed(); }
   const Timeouts& timeouts() const { return timeouts_; }
   const Limits& limits() const { return limits_; }
   void set_speed_limit(double max_speed_kmh) { limits_.max_speed_kmh = max_speed_kmh; }
@@ -158,6 +199,10 @@ class Controller {
   virtual Result do_heartbeat(Deadline d) = 0;
   virtual Result do_status(StatusReport& out, Deadline d) = 0;
   virtual Result do_clear_fault(Deadline d) = 0;
+  // Events the controller sent since the last call ("FAULT kind=... detail=..." and others), oldest first.
+  virtual void do_take_events(std::vector<std::string>&) {}
+  // Whether samples are streamed by the controller at the rate asked (checked), or polled by the adapter.
+  virtual bool streamed() const { return true; }
 
   // How far a read-back may differ from what was written: the register's resolution (e.g. float32 in Modbus).
   virtual double readback_tolerance(double written) const { return 1e-9 * std::max(1.0, std::abs(written)); }
@@ -166,14 +211,33 @@ class Controller {
 
  private:
   template <class F>
-  Result guarded(const char* what, F&& f);
+  Result guarded(const char* what, F&& f, bool renews_lease = true);
+  // Pulls what the adapter has already read (a command's acknowledgement closes an epoch), checked.
+  void drain_adapter();
+  // Validates, de-duplicates, clock-checks and tags samples fresh from the adapter; keeps the first fault.
+  void ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted);
+  Result command_done(Result r);  // a successful command closes the epoch
+  double wall_s() const;
   mutable std::recursive_mutex mu_;
   Deadline reply_deadline() const { return Clock::now() + timeouts_.reply; }
   Timeouts timeouts_;
   Limits limits_;
   Clock::time_point last_heartbeat_{};
+  Clock::time_point t0_ = Clock::now();
+  std::atomic<Clock::rep> alive_until_{0};
   std::uint64_t next_index_ = 0;
   bool have_index_ = false;
+  Sample last_sample_{};
+  std::uint64_t epoch_ = 0, clear_epoch_ = 0;
+  std::vector<Sample> pending_;   // read before the last acknowledgement, not yet handed out
+  std::optional<Result> pending_fault_;
+  bool pending_fault_is_event_ = false;
+  ClockGuard clock_;
+  double time_scale_ = 1.0;
+  double stream_rate_hz_ = 0.0;
+  int malformed_run_ = 0;
+  bool stopping_ = false;
+  std::uint64_t recent_valid_ = 0, recent_malformed_ = 0;
 };
 
 // Feeds the controller's watchdog from a thread of its own for as long as it lives, so that a slow disk, a large

@@ -53,9 +53,11 @@ bool Console::on_event(const Event& e) {
     std::fflush(out_);
     return true;
   }
+  const bool unconfirmed_stop = e.type == "finished" && !d.value("rollers_stopped", true);
   if (mode_ == Mode::quiet) {
     if (e.type == "finished")
       std::fprintf(out_, "%s: %s\n", d.value("result", "").c_str(), d.value("stop_reason", "").c_str());
+    if (unconfirmed_stop) std::fprintf(out_, "WARNING: %s\n", d.value("stop_note", "").c_str());
     return true;
   }
   clear_progress();
@@ -90,7 +92,12 @@ bool Console::on_event(const Event& e) {
              e.type == "refused" || e.type == "interrupted" || e.type == "coastdown_discarded" || e.type == "resumed" ||
              e.type == "fault_cleared" || e.type == "safe_stop") {
     std::fprintf(out_, "  %s: %s\n", e.type.c_str(), d.dump().c_str());
+  } else if (e.type == "envelope_refused" || e.type == "diverging" || e.type == "observer_dropped" || e.type == "not_settled") {
+    std::fprintf(out_, "  STOPPING: %s\n", d.value("why", d.value("message", "")).c_str());
   } else if (e.type == "finished") {
+    if (unconfirmed_stop)
+      std::fprintf(out_, "\n  WARNING: %s. Keep out of the roller area until the rollers are seen to stand still.\n",
+                   d.value("stop_note", "").c_str());
     std::fprintf(out_, "\n  %s: %s after %d coast-downs, %s of cell time\n", d.value("result", "").c_str(),
                  d.value("stop_reason", "").c_str(), d.value("coastdowns", 0), clock_text(d.value("cell_time_s", 0.0)).c_str());
     if (d.contains("final_set"))

@@ -14,6 +14,7 @@ class Console : public Observer {
   Console(Mode mode, std::FILE* out = stdout);
   bool on_event(const Event& e) override;
   void on_progress(const Progress& p) override;
+  std::string name() const override { return "the console"; }
 
  private:
   Mode mode_;

@@ -22,6 +22,8 @@ class RecordWriter : public Observer {
   ~RecordWriter() override;
   bool on_event(const Event& e) override;
   std::string error() const override { return error_; }
+  bool critical() const override { return true; }  // a record that cannot be written stops the session
+  std::string name() const override { return "the session record"; }
   bool ok() const { return error_.empty(); }
   const std::string& folder() const { return folder_; }
   record::EventLog& log() { return *log_; }

@@ -19,9 +19,8 @@ using controller::Result;
 using core::num;
 
 namespace {
-constexpr int kInterruptedCode = -2;
-constexpr int kTooSlowCode = -3;
-constexpr std::uint32_t kFaultFlags = controller::kFlagFault | controller::kFlagEstop | controller::kFlagWatchdog;
+constexpr int kInterruptedCode = motion::kInterrupted;
+constexpr int kTooSlowCode = motion::kTooSlow;
 }  // namespace
 
 const char* to_string(State s) {
@@ -54,7 +53,17 @@ const char* to_string(Outcome o) {
 
 Session::Session(Inputs inputs, Options options, controller::Controller& controller, std::vector<Observer*> observers,
                  const std::atomic<bool>* stop_flag)
-    : in_(std::move(inputs)), opt_(std::move(options)), c_(controller), observers_(std::move(observers)), stop_flag_(stop_flag) {}
+    : in_(std::move(inputs)),
+      opt_(std::move(options)),
+      c_(controller),
+      motion_(controller, motion::Rules{}, stop_flag),
+      observers_(std::move(observers)),
+      stop_flag_(stop_flag) {
+  motion::Rules rules;
+  rules.standstill_kmh = in_.cell.standstill_kmh;
+  motion_.set_rules(rules);
+  motion_.on_sample = [this](const controller::Sample& s) { on_sample(s); };
+}
 
 bool Session::emit(const std::string& type, nlohmann::json data, const std::vector<controller::Sample>* trace) {
   if (!data.is_object()) data = nlohmann::json::object();
@@ -64,13 +73,66 @@ bool Session::emit(const std::string& type, nlohmann::json data, const std::vect
     data["cell_time_s"] = cell_time_before_ + (t_now_ - t_start_);
   }
   const Event e{type, std::move(data), trace};
-  for (Observer* o : observers_) {
-    if (!o->on_event(e) && !record_failed_) {
-      record_failed_ = true;
-      record_error_ = o->error();
+  bool critical_failed = false;
+  std::vector<std::string> dropped;
+  for (auto it = observers_.begin(); it != observers_.end();) {
+    Observer* o = *it;
+    if (critical_failed && !o->critical()) {  // nothing is shown that the record does not hold
+      ++it;
+      continue;
     }
+    c_.lease(o->critical() ? opt_.record_budget : in_.cell.timeouts.progress_grace);
+    bool ok = false;
+    std::string err;
+    try {
+      ok = o->on_event(e);
+      if (!ok) err = o->error();
+    } catch (const std::exception& ex) {
+      err = std::string("threw: ") + ex.what();
+    } catch (...) {
+      err = "threw an unknown exception";
+    }
+    if (!ok && o->critical()) {
+      critical_failed = true;
+      if (!record_failed_) {
+        record_failed_ = true;
+        record_error_ = err.empty() ? "the record could not be written" : err;
+      }
+    } else if (!ok) {
+      dropped.push_back(o->name() + " failed on a \"" + type + "\" event and was dropped: " + (err.empty() ? "no reason given" : err));
+      it = observers_.erase(it);
+      continue;
+    }
+    ++it;
+  }
+  c_.lease(in_.cell.timeouts.progress_grace);
+  for (const auto& d : dropped) {
+    dropped_observers_.push_back(d);
+    std::fprintf(stderr, "loadtrim: %s\n", d.c_str());
+    emit("observer_dropped", {{"why", d}});
   }
   return !record_failed_;
+}
+
+void Session::on_sample(const controller::Sample& s) {
+  t_now_ = std::max(t_now_, s.time_s);
+  if (t_start_ < 0.0) t_start_ = s.time_s;
+  if (s.time_s - last_progress_s_ < 0.5) return;
+  last_progress_s_ = s.time_s;
+  double band = 0.0;
+  if (state_ == State::coast_down)
+    for (double v : in_.profile.reference_speeds_kmh)
+      if (std::abs(s.speed_kmh - v) <= in_.profile.band_half_width_kmh) band = v;
+  progress(s.speed_kmh, band);
+}
+
+motion::Step Session::step(const std::string& what, double budget_s, std::vector<controller::Mode> modes) const {
+  motion::Step st;
+  st.what = what;
+  st.budget_s = budget_s;
+  st.modes = std::move(modes);
+  st.since_epoch = c_.epoch();
+  return st;
 }
 
 void Session::progress(double speed_kmh, double band_kmh) {
@@ -91,7 +153,12 @@ void Session::progress(double speed_kmh, double band_kmh) {
   p.remaining_estimate_s = runs_left * per_run;
   if (state_ == State::warm_up && t_motoring_from_ >= 0.0)
     p.remaining_estimate_s += std::max(0.0, pr.warm_up.duration_s - (t_now_ - t_motoring_from_));
-  for (Observer* o : observers_) o->on_progress(p);
+  for (Observer* o : observers_) {
+    try {
+      o->on_progress(p);
+    } catch (...) {  // progress is a view: a failing one never stops the session
+    }
+  }
 }
 
 void Session::transition(State to, const std::string& why) {
@@ -100,60 +167,10 @@ void Session::transition(State to, const std::string& why) {
   emit("state", {{"from", to_string(from)}, {"to", to_string(to)}, {"why", why}});
 }
 
-Result Session::wait_for(const std::function<bool(const controller::Sample&)>& pred, double budget_s,
-                         std::vector<controller::Sample>* keep, const char* what, double since_s) {
-  double t_begin = -1.0, last_progress = -1e9;
-  std::vector<controller::Sample> got;
-  for (;;) {
-    if (stop_requested()) return Result::fail("interrupted by the operator", kInterruptedCode);
-    got.clear();
-    if (Result r = c_.receive_samples(got); !r.ok()) return r;
-    for (const auto& s : got) {
-      t_now_ = std::max(t_now_, s.time_s);
-      if (t_start_ < 0.0) t_start_ = s.time_s;
-      // Samples queued before the command that started this wait belong to the previous phase.
-      if (s.time_s < since_s) continue;
-      if (t_begin < 0.0) t_begin = s.time_s;
-      if (s.flags & kFaultFlags)
-        return Result::fail(std::string("the controller reports a fault (flags ") + std::to_string(s.flags) + ") during " + what);
-      if (s.speed_kmh > speed_limit_kmh_ + 2.0 && speed_limit_kmh_ > 0.0)
-        return Result::fail("speed " + num(s.speed_kmh) + " km/h above the limit of " + num(speed_limit_kmh_) + " km/h");
-      if (keep) keep->push_back(s);
-      double band = 0.0;
-      if (state_ == State::coast_down)
-        for (double v : in_.profile.reference_speeds_kmh)
-          if (std::abs(s.speed_kmh - v) <= in_.profile.band_half_width_kmh) band = v;
-      if (s.time_s - last_progress >= 0.5) {
-        last_progress = s.time_s;
-        progress(s.speed_kmh, band);
-      }
-      if (pred(s)) return Result::success();
-    }
-    if (t_begin >= 0.0 && t_now_ - t_begin > budget_s)
-      return Result::fail(std::string(what) + " did not complete within " + num(budget_s) + " s of controller time", kTooSlowCode);
-  }
-}
-
-Result Session::command_time(double& t) {
-  controller::StatusReport st;
-  if (Result r = c_.status(st); !r.ok()) return r;
-  t = st.time_s;
-  return Result::success();
-}
-
 Result Session::hold_and_wait(double speed_kmh, const char* what) {
-  if (Result r = c_.hold_speed(speed_kmh); !r.ok()) return r;
-  double since = -1e300;
-  if (Result r = command_time(since); !r.ok()) return r;
-  // At the setpoint, then 2 s more to settle.
-  double reached = -1.0;
-  return wait_for(
-      [&](const controller::Sample& s) {
-        if (s.mode != Mode::speed_hold) return false;
-        if (reached < 0.0 && std::abs(s.speed_kmh - speed_kmh) < 0.5) reached = s.time_s;
-        return reached >= 0.0 && s.time_s - reached >= 2.0;
-      },
-      600.0, nullptr, what, since);
+  motion_commanded_ = true;
+  // At the setpoint, then 2 s more to settle; 600 s of controller time at most.
+  return motion_.hold(speed_kmh, 2.0, what, 600.0);
 }
 
 std::optional<Session::Stop> Session::fault(const Result& r, const std::string& during) {
@@ -168,19 +185,12 @@ std::optional<Session::Stop> Session::fault(const Result& r, const std::string& 
 bool Session::settle_and_clear(const std::string& when) {
   // Wait for the rollers to stand still (a watchdog's controlled stop, or ours), then clear a latched fault.
   controller::StatusReport st;
-  bool stopped = false;
-  for (int i = 0; i < 1200; ++i) {
-    if (!c_.status(st).ok()) return false;
-    t_now_ = std::max(t_now_, st.time_s);
-    if (st.speed_kmh == 0.0 && (st.mode == Mode::idle || st.mode == Mode::controlled_stop)) {
-      stopped = true;
-      break;
-    }
-    if (st.mode == Mode::speed_hold || st.mode == Mode::road_load) c_.controlled_stop();
-    c_.heartbeat_if_due();
-    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  const Result settled = motion_.settle_by_status(opt_.stop_budget_s, st);
+  t_now_ = std::max(t_now_, st.time_s);
+  if (!settled.ok()) {
+    emit("not_settled", {{"when", when}, {"message", settled.message}});
+    return false;
   }
-  if (!stopped) return false;
   if (!st.fault.empty()) {
     const Result cr = c_.clear_fault();
     emit("fault_cleared", {{"fault", st.fault}, {"when", when}, {"rollers", "stopped"}, {"ok", cr.ok()}, {"message", cr.message}});
@@ -236,14 +246,14 @@ std::optional<Session::Stop> Session::do_connect() {
   // A fault latched before we came (a watchdog stop after a lost tool): only with the rollers stopped is it cleared.
   controller::StatusReport st;
   if (r = c_.status(st); !r.ok()) return fault(r, "status");
-  if (!st.fault.empty() || st.speed_kmh != 0.0) {
+  if (!st.fault.empty() || !motion_.standstill(st.speed_kmh)) {
     emit("controller_state_on_connect", {{"fault", st.fault}, {"speed_kmh", st.speed_kmh}, {"mode", controller::to_string(st.mode)}});
     if (!settle_and_clear("on connect")) return fault(Result::fail("the controller did not reach a stopped, fault-free state"), "connect");
   }
   if (r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "start stream");
   link_up_ = true;
   // The first samples give the controller's clock.
-  if (r = wait_for([](const controller::Sample&) { return true; }, 10.0, nullptr, "first sample"); !r.ok())
+  if (r = motion_.collect(step("the first sample", 10.0), [](const controller::Sample&) { return true; }); !r.ok())
     return fault(r, "first sample");
   return std::nullopt;
 }
@@ -277,6 +287,9 @@ std::optional<Session::Stop> Session::do_check_limits() {
     return Stop{Outcome::refused, why};
   }
   c_.set_speed_limit(speed_limit_kmh_);
+  motion::Rules rules = motion_.rules();
+  rules.speed_limit_kmh = speed_limit_kmh_;
+  motion_.set_rules(rules);
   emit("limits", {{"speed_limit_kmh", speed_limit_kmh_}, {"start_speed_kmh", start}, {"end_speed_kmh", p.end_speed_kmh()},
                   {"cell_max_speed_kmh", in_.cell.max_speed_kmh}, {"vehicle_max_speed_kmh", in_.vehicle.max_speed_kmh},
                   {"controller_max_speed_kmh", info_.max_speed_kmh}, {"max_motoring_s", in_.cell.max_motoring_s}});
@@ -320,7 +333,8 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   int n = 0;
   double window_start = t0;
   bool stable = w.stable_within_n <= 0.0;
-  Result r = wait_for(
+  Result r = motion_.collect(
+      step("warm-up", duration_s + w.max_extra_s + 60.0, {Mode::speed_hold}),
       [&](const controller::Sample& s) {
         sum += s.force_n;
         ++n;
@@ -335,8 +349,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         }
         const double held = s.time_s - t0;
         return held >= duration_s && (stable || held >= duration_s + w.max_extra_s);
-      },
-      duration_s + w.max_extra_s + 60.0, nullptr, "warm-up");
+      });
   if (!r.ok()) return fault(r, "warm-up");
   emit("warm_up", {{"speed_kmh", w.speed_kmh}, {"held_s", t_now_ - t0}, {"stable", stable},
                    {"stability_threshold_n", w.stable_within_n},
@@ -353,14 +366,14 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         }
         if (Result rr = hold_and_wait(v, "loss-map hold"); !rr.ok()) return fault(rr, "loss map");
         const double ts = t_now_;
-        if (Result rr = wait_for([&](const controller::Sample& s) { return s.time_s - ts >= in_.profile.loss_map.settle_s; },
-                                 in_.profile.loss_map.settle_s + 30.0, nullptr, "loss-map settle");
+        if (Result rr = motion_.collect(step("loss-map settle", in_.profile.loss_map.settle_s + 30.0, {Mode::speed_hold}),
+                                        [&](const controller::Sample& s) { return s.time_s - ts >= in_.profile.loss_map.settle_s; });
             !rr.ok())
           return fault(rr, "loss map");
         std::vector<controller::Sample> avg;
         const double ta = t_now_;
-        if (Result rr = wait_for([&](const controller::Sample& s) { return s.time_s - ta >= in_.profile.loss_map.average_s; },
-                                 in_.profile.loss_map.average_s + 30.0, &avg, "loss-map average");
+        if (Result rr = motion_.collect(step("loss-map average", in_.profile.loss_map.average_s + 30.0, {Mode::speed_hold}),
+                                        [&](const controller::Sample& s) { return s.time_s - ta >= in_.profile.loss_map.average_s; }, &avg);
             !rr.ok())
           return fault(rr, "loss map");
         core::HoldPoint hp;
@@ -402,6 +415,13 @@ std::optional<Session::Stop> Session::do_run(int run) {
     return fault(r, during);
   };
   transition(State::write_set, "coast-down " + std::to_string(run));
+  // The envelope, before anything is written: a setting that would ask the dyno for more than the cell allows, or
+  // that has run away from the target, is never sent.
+  if (const core::SetCheck chk = core::check_set(set_, in_.vehicle.target, last_written_, opt_.envelope); !chk.ok) {
+    emit("envelope_refused", {{"run", run}, {"set", coefficients_json(set_)}, {"why", chk.why}});
+    return Stop{Outcome::controller_fault, "the next setting was not written: it leaves the safe envelope (" + chk.why +
+                                               "); the controller does not follow the setting or the measurement is wrong"};
+  }
   if (Result r = c_.set_coefficients(set_); !r.ok()) return link_or_fault(r, "write set");
   if (!last_written_ || !(*last_written_ == set_)) ++iterations_;
   last_written_ = set_;
@@ -425,10 +445,9 @@ std::optional<Session::Stop> Session::do_run(int run) {
   // plus the vehicle's loss leaves too little retarding force: the dyno is nearly driving the car.
   const double predicted = core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end).value_or(300.0);
   const double budget = std::max(300.0, 3.0 * predicted);
-  // The run-up wait consumed everything before the release, so the road-load samples from here on are this coast.
-  Result r = wait_for(
-      [&](const controller::Sample& s) { return s.mode == Mode::road_load && s.speed_kmh < end; }, budget, &trace,
-      "coast-down");
+  // Only road-load samples read after the release was acknowledged are this coast's.
+  Result r = motion_.collect(step("coast-down", budget, {Mode::road_load}),
+                             [&](const controller::Sample& s) { return s.speed_kmh < end; }, &trace);
   if (r.code == kTooSlowCode) {
     // Leave road-load simulation at once, count the run unusable and fall back to the standard's default setting.
     if (Result h = c_.hold_speed(std::max(10.0, end)); !h.ok()) return link_or_fault(h, "after a too slow coast-down");
@@ -443,9 +462,6 @@ std::optional<Session::Stop> Session::do_run(int run) {
     return std::nullopt;
   }
   if (!r.ok()) return link_or_fault(r, "coast-down");
-  // Keep only the road-load part (samples queued before the release still say HOLD).
-  trace.erase(std::remove_if(trace.begin(), trace.end(), [](const controller::Sample& s) { return s.mode != Mode::road_load; }),
-              trace.end());
   // Keep the vehicle turning for the next run: leave road-load simulation for a low speed hold at once.
   if (Result h = c_.hold_speed(std::max(10.0, end)); !h.ok()) return link_or_fault(h, "after coast-down");
   const double release = trace.empty() ? t_now_ : trace.front().time_s;
@@ -482,11 +498,13 @@ std::optional<Session::Stop> Session::do_run(int run) {
     eo.whole_trace = opt_.whole_trace_estimator;
     auto job = std::async(std::launch::async,
                           [&] { return core::evaluate_coastdown({ts, vs}, p, in_.vehicle.target, force_mass_kg_, eo); });
-    while (job.wait_for(std::chrono::milliseconds(20)) != std::future_status::ready)
+    while (job.wait_for(std::chrono::milliseconds(20)) != std::future_status::ready) {
+      c_.lease(in_.cell.timeouts.progress_grace);  // this thread is alive: waiting on a bounded computation
       if (Result hb = c_.heartbeat_if_due(); !hb.ok()) {
         rec.evaluation = job.get();
         return link_or_fault(hb, "analysis");
       }
+    }
     rec.evaluation = job.get();
   }
   ++coastdowns_;
@@ -498,6 +516,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
       return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) + "): " + rec.evaluation.unusable_reason};
   } else {
     rec.decision = method_->on_coastdown(set_, rec.evaluation.fit.coefficients, rec.evaluation.check.pass);
+    if (divergence_) divergence_->add(set_, in_.vehicle.target, rec.evaluation.check.worst_abs_deviation_n);
     nlohmann::json j = to_json(rec, p);
     // Predicted band times for the target at TM + m_r, beside the measured ones (what the rollers should do).
     const auto predicted = core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_, p.reference_speeds_kmh, p.band_half_width_kmh);
@@ -510,6 +529,11 @@ std::optional<Session::Stop> Session::do_run(int run) {
       return Stop{Outcome::accepted, rec.decision.reason};
     }
     if (rec.decision.kind == core::Decision::Kind::rejected) return Stop{Outcome::not_accepted, rec.decision.reason};
+    if (divergence_)
+      if (auto why = divergence_->verdict()) {
+        emit("diverging", {{"run", run}, {"why", *why}});
+        return Stop{Outcome::controller_fault, *why};
+      }
     set_ = rec.decision.next_set;
   }
   if (coastdowns_ >= p.max_coastdowns)
@@ -518,45 +542,99 @@ std::optional<Session::Stop> Session::do_run(int run) {
 }
 
 void Session::do_safe_stop() {
+  if (safe_stop_done_) return;
+  safe_stop_done_ = true;
   transition(State::safe_stop);
-  if (!link_up_) {
-    emit("safe_stop", {{"how", "link down: the controller's watchdog takes the rollers to a controlled stop"}});
+  if (!link_up_ && !motion_commanded_) {
+    rollers_stopped_ = true;
+    stop_note_ = "nothing was commanded to move: the link to the controller never came up";
+    emit("safe_stop", {{"how", stop_note_}, {"rollers_stopped", true}});
     return;
   }
-  Result r = c_.controlled_stop();
-  if (r.status == Result::Status::retryable && !stop_requested()) {
-    // The link failed: one reconnection to command the stop ourselves rather than wait for the watchdog.
+  Result r = Result::retry("the link is down");
+  bool stopped = false;
+  if (link_up_) r = motion_.stop_and_wait(opt_.stop_budget_s, stopped);
+  if (!stopped && (r.status == Result::Status::retryable || !link_up_)) {
+    // The link failed: one reconnection to command the stop ourselves rather than leave it to the watchdog.
     c_.disconnect();
-    if (c_.connect().ok()) r = c_.controlled_stop();
+    r = c_.connect();
+    if (r.ok()) r = c_.controlled_stop();
     emit("safe_stop_reconnect", {{"ok", r.ok()}, {"message", r.message}});
   }
-  if (!r.ok()) {
-    emit("safe_stop", {{"how", "controlled stop refused or not confirmed; the controller's watchdog will stop the rollers"},
-                       {"message", r.message}});
-    return;
-  }
-  // Wait (without the operator's stop flag: stopping is what it asked for) until the rollers stand still.
-  double last = -1.0;
+  // Without confirmation from the stream, ask the controller's status (every poll bounded in both clocks).
   controller::StatusReport st;
-  for (int i = 0; i < 2000; ++i) {
-    std::vector<controller::Sample> got;
-    if (!c_.receive_samples(got).ok()) break;
-    if (!got.empty()) {
-      last = got.back().speed_kmh;
-      t_now_ = got.back().time_s;
-      if (last == 0.0 && got.back().mode == Mode::idle) break;
-    }
-  }
+  Result sr = Result::fail("not asked");
+  if (!stopped) sr = motion_.settle_by_status(opt_.stop_budget_s, st);
   c_.stop_stream();
-  const bool stopped = c_.status(st).ok() && st.speed_kmh == 0.0;
-  emit("safe_stop", {{"how", "controlled stop"}, {"rollers_stopped", stopped}, {"speed_kmh", st.speed_kmh}, {"mode", controller::to_string(st.mode)}});
+  if (stopped) {
+    if (Result q = c_.status(st); !q.ok()) st.speed_kmh = 0.0;  // the stream confirmed it just now
+  }
+  rollers_stopped_ = stopped || sr.ok();
+  if (rollers_stopped_) stop_note_ = "controlled stop: standstill confirmed by the controller";
+  else
+    stop_note_ = "rollers not confirmed stopped: " + (sr.message.empty() ? r.message : sr.message) +
+                 "; the controller's watchdog is the remaining safeguard";
+  emit("safe_stop", {{"how", rollers_stopped_ ? "controlled stop" : "controlled stop commanded, standstill not confirmed"},
+                     {"rollers_stopped", rollers_stopped_}, {"speed_kmh", st.speed_kmh}, {"mode", controller::to_string(st.mode)},
+                     {"standstill_threshold_kmh", in_.cell.standstill_kmh}, {"note", stop_note_}});
+}
+
+Session::StopGuard::~StopGuard() {
+  if (s.safe_stop_done_) return;
+  try {
+    s.c_.controlled_stop();  // best effort on a path that bypassed do_safe_stop
+  } catch (...) {
+  }
 }
 
 Summary Session::run(const ResumePoint* resume) {
   // Records wait for the disk (fsync) and large traces take time to hash and write: a thread of its own keeps the
-  // controller's watchdog fed meanwhile, for the whole session.
+  // controller's watchdog fed meanwhile, while this thread is alive and within its announced steps.
+  c_.lease(in_.cell.timeouts.progress_grace);
   const controller::KeepAlive keep_alive(c_);
+  StopGuard guard{*this};
   const auto& p = in_.profile;
+  std::optional<Stop> stop;
+  try {
+    stop = run_states(resume);
+  } catch (const std::exception& e) {
+    stop = Stop{Outcome::controller_fault, std::string("internal error, the session was stopped: ") + e.what()};
+  } catch (...) {
+    stop = Stop{Outcome::controller_fault, "internal error, the session was stopped"};
+  }
+  if (!stop) stop = Stop{Outcome::controller_fault, "internal error: the session ended without a reason"};
+  if (record_failed_ && stop->outcome != Outcome::record_failure) stop = Stop{Outcome::record_failure, record_error_};
+  try {
+    do_safe_stop();
+  } catch (const std::exception& e) {
+    stop_note_ = std::string("rollers not confirmed stopped: the stop failed: ") + e.what();
+    rollers_stopped_ = false;
+  }
+  transition(State::finished, to_string(stop->outcome));
+  Summary s;
+  s.outcome = stop->outcome;
+  s.stop_reason = stop->reason;
+  s.iterations = iterations_;
+  s.coastdowns = coastdowns_;
+  s.usable_coastdowns = coastdowns_ - (unusable_ - discarded_);
+  s.cell_time_s = t_start_ >= 0.0 ? cell_time_before_ + t_now_ - t_start_ : cell_time_before_;
+  s.first_setting = first_setting_;
+  s.rollers_stopped = rollers_stopped_;
+  s.stop_note = stop_note_;
+  if (final_set_) s.final_set = core::rounded(*final_set_, p.rounding);
+  if (last_) {
+    s.measured = last_->evaluation.fit.coefficients;
+    s.deviations = last_->evaluation.check.rows;
+  }
+  emit("finished", to_json(s));
+  return s;
+}
+
+std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
+  const auto& p = in_.profile;
+  opt_.envelope.max_force_n = in_.cell.max_force_n;
+  opt_.envelope.top_speed_kmh = p.start_speed_kmh();
+  divergence_.emplace(p.tolerance_n, p.bottom_speed_kmh(), p.top_speed_kmh());
   method_ = std::make_unique<core::SettingMethodState>(in_.profile, in_.vehicle.target);
   int run_no = 1;
   if (resume) {
@@ -579,12 +657,15 @@ Summary Session::run(const ResumePoint* resume) {
   std::optional<Stop> stop = do_connect();
   if (!stop) stop = do_check_limits();
   if (!stop) stop = do_set_inertia();
-  const bool want_map = !resume && !in_.vehicle.initial_set && opt_.first_setting == core::FirstSetting::loss_map;
+  // A resumed session that had not yet chosen its first setting (interrupted in connect, warm-up or the loss map)
+  // chooses it now, as a new session would; one that had continues with its recorded next setting.
+  const bool choose_first = !resume || !resume->have_next_set;
+  const bool want_map = choose_first && !in_.vehicle.initial_set && opt_.first_setting == core::FirstSetting::loss_map;
   if (!stop) {
     const double warm = resume && opt_.resume_warm_up_s >= 0.0 ? opt_.resume_warm_up_s : p.warm_up.duration_s;
     stop = do_warm_up(warm, want_map);
   }
-  if (!stop && !resume) {
+  if (!stop && choose_first) {
     // The first setting.
     std::string used = core::to_string(opt_.first_setting), why;
     core::RoadLoad loss;
@@ -655,24 +736,7 @@ Summary Session::run(const ResumePoint* resume) {
     stop = do_run(run_no++);
     if (!stop && record_failed_) stop = Stop{Outcome::record_failure, record_error_};
   }
-  if (record_failed_ && stop->outcome != Outcome::record_failure) stop = Stop{Outcome::record_failure, record_error_};
-  do_safe_stop();
-  transition(State::finished, to_string(stop->outcome));
-  Summary s;
-  s.outcome = stop->outcome;
-  s.stop_reason = stop->reason;
-  s.iterations = iterations_;
-  s.coastdowns = coastdowns_;
-  s.usable_coastdowns = coastdowns_ - (unusable_ - discarded_);
-  s.cell_time_s = t_start_ >= 0.0 ? cell_time_before_ + t_now_ - t_start_ : cell_time_before_;
-  s.first_setting = first_setting_;
-  if (final_set_) s.final_set = core::rounded(*final_set_, p.rounding);
-  if (last_) {
-    s.measured = last_->evaluation.fit.coefficients;
-    s.deviations = last_->evaluation.check.rows;
-  }
-  emit("finished", to_json(s));
-  return s;
+  return stop;
 }
 
 }  // namespace loadtrim::session

@@ -25,10 +25,18 @@
 //   safe_stop     controlled stop to zero speed (or, with the link lost, the controller's watchdog does it)
 //
 // A lost link inside a run discards that run: reconnect within the cell's policy, wait for the rollers to stop,
-// clear the watchdog fault, re-warm if needed and repeat the run. Everything is timed from the controller's
-// sample timestamps. Threading: run() blocks the calling thread, which alone drives the controller; each
-// coast-down's analysis runs on a worker thread meanwhile so heartbeats go on. The stop flag may be set from a
-// signal handler.
+// clear the watchdog fault, re-warm if needed and repeat the run. The test is timed from the controller's sample
+// timestamps, which the controller layer checks against the tool's own clock; every wait (motion/motion.hpp) also
+// has a deadline on the tool's own clock. Threading: run() blocks the calling thread, which alone drives the
+// controller; each coast-down's analysis runs on a worker thread meanwhile so heartbeats go on. The stop flag may be
+// set from a signal handler.
+//
+// Safety (docs/safety.md): every set curve is checked against the envelope (core/envelope.hpp) before it is
+// written, and a loop whose deviation does not shrink stops as "the controller does not follow the setting". The
+// safe stop runs on every path out of run(), exceptions included; the summary says whether standstill was confirmed
+// (rollers_stopped), and a session that could not confirm it ends with the controller-fault exit code. Observers
+// cannot throw into the session: only a critical observer (the record) that fails stops it (record_failure);
+// any other failing observer is logged and dropped.
 #pragma once
 
 #include <atomic>
@@ -40,10 +48,12 @@
 
 #include "controller/cell.hpp"
 #include "controller/controller.hpp"
+#include "core/envelope.hpp"
 #include "core/evaluation.hpp"
 #include "core/profile.hpp"
 #include "core/strategy.hpp"
 #include "core/vehicle.hpp"
+#include "motion/motion.hpp"
 
 namespace loadtrim::session {
 
@@ -62,6 +72,9 @@ struct Options {
   double sample_rate_hz = 100.0;
   double resume_warm_up_s = -1.0;                 // warm-up after a resume; < 0: the profile's full warm-up
   std::string operator_note;
+  std::chrono::milliseconds record_budget{30000};  // a durable record write (fsync) may take this long (wall)
+  double stop_budget_s = 300.0;                   // controller seconds for the rollers to stop
+  core::EnvelopeLimits envelope;                  // max_force_n and top_speed_kmh are filled from the cell and profile
   bool whole_trace_estimator = true;             // the independent estimate beside the band method (benchmarks may skip it)
 };
 
@@ -81,14 +94,20 @@ struct Progress {
   double remaining_estimate_s = 0.0;
 };
 
-// Observers: the record writer, the console, anything else. on_event returning false means the observer could
-// not do its job (a record that could not be written): the session stops safely with Outcome::record_failure.
+// Observers: the record writer, the console, anything else. on_event returning false (or throwing) means the
+// observer could not do its job. For a critical observer (the record: an event that could not be made durable)
+// the session stops safely with Outcome::record_failure, and the non-critical observers do not see that event (the
+// console never shows a result whose record was not written). Any other observer that fails is logged and dropped.
+// While an observer runs, the controller's keep-alive goes on for at most record_budget (critical) or the cell's
+// progress grace (others): an observer that hangs longer lets the controller's watchdog stop the rollers.
 class Observer {
  public:
   virtual ~Observer() = default;
   virtual bool on_event(const Event& e) = 0;
   virtual void on_progress(const Progress&) {}
   virtual std::string error() const { return {}; }
+  virtual bool critical() const { return false; }
+  virtual std::string name() const { return "an observer"; }
 };
 
 struct Inputs {
@@ -133,6 +152,8 @@ struct Summary {
   std::optional<core::RoadLoad> measured;
   std::vector<core::SpeedDeviation> deviations;
   std::string first_setting;
+  bool rollers_stopped = false;   // standstill confirmed by the controller at the end
+  std::string stop_note;          // how the rollers were stopped, or why that could not be confirmed
 };
 nlohmann::json to_json(const Summary& s);
 
@@ -152,13 +173,14 @@ class Session {
   void progress(double speed_kmh, double band_kmh = 0.0);
   void transition(State to, const std::string& why = "");
   bool stop_requested() const { return stop_flag_ && stop_flag_->load(); }
-  // Streams until pred(sample) or the controller-time budget runs out; samples go to `keep` when given.
-  controller::Result wait_for(const std::function<bool(const controller::Sample&)>& pred, double budget_s,
-                              std::vector<controller::Sample>* keep, const char* what, double since_s = -1e300);
-  controller::Result command_time(double& t);  // the controller's clock now (from a STATUS reply)
+  void on_sample(const controller::Sample& s);
+  // A step of the current epoch (samples read after the last command's acknowledgement).
+  motion::Step step(const std::string& what, double budget_s, std::vector<controller::Mode> modes = {}) const;
   controller::Result hold_and_wait(double speed_kmh, const char* what);
   bool recover_link(const std::string& why);
   bool settle_and_clear(const std::string& when);
+  std::optional<Stop> run_states(const ResumePoint* resume);
+  std::optional<Stop> write_set_checked(int run);
 
   std::optional<Stop> do_connect();
   std::optional<Stop> do_check_limits();
@@ -167,10 +189,16 @@ class Session {
   std::optional<Stop> do_run(int run);  // write_set → run_up → coast_down → analyse
   void do_safe_stop();
   std::optional<Stop> fault(const controller::Result& r, const std::string& during);
+  // Last line of defence when run() is left by an exception: a stop command, never throwing.
+  struct StopGuard {
+    Session& s;
+    ~StopGuard();
+  };
 
   Inputs in_;
   Options opt_;
   controller::Controller& c_;
+  motion::Motion motion_;
   std::vector<Observer*> observers_;
   const std::atomic<bool>* stop_flag_;
   State state_ = State::connect;
@@ -189,6 +217,11 @@ class Session {
   std::optional<core::RoadLoad> final_set_;
   bool record_failed_ = false;
   std::string record_error_;
+  std::vector<std::string> dropped_observers_;
+  bool safe_stop_done_ = false, rollers_stopped_ = false, motion_commanded_ = false;
+  std::string stop_note_;
+  double last_progress_s_ = -1e300;
+  std::optional<core::DivergenceWatch> divergence_;
 };
 
 // Rebuilds where a session stood from its log records (pure: the records are passed in).

@@ -73,7 +73,9 @@ nlohmann::json to_json(const Summary& s) {
                       {"coastdowns", s.coastdowns},
                       {"usable_coastdowns", s.usable_coastdowns},
                       {"cell_time_s", s.cell_time_s},
-                      {"first_setting", s.first_setting}};
+                      {"first_setting", s.first_setting},
+                      {"rollers_stopped", s.rollers_stopped},
+                      {"stop_note", s.stop_note}};
   if (s.final_set) j["final_set"] = coefficients_json(*s.final_set);
   if (s.measured) j["measured"] = coefficients_json(*s.measured);
   nlohmann::json rows = nlohmann::json::array();

@@ -59,6 +59,7 @@ int main(int argc, char** argv) {
   if (warmth >= 0.0) truth.vehicle.initial_warmth = warmth;
   if (empty) truth.vehicle_on_rollers = false;
   s.watchdog_s = watchdog_ms / 1000.0;
+  s.time_scale = srv.time_scale;
   if (drop_at >= 0) s.faults.drop_at_s = drop_at;
   if (!drop_in_mode.empty()) s.faults.drop_in_mode = drop_in_mode;
   if (corrupt_line > 0) s.faults.corrupt_line = static_cast<std::uint64_t>(corrupt_line);

@@ -65,6 +65,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
   put(Q::base_inertia, info.base_inertia_kg);
   put(Q::max_speed, info.max_speed_kmh);
   put(Q::max_force, info.max_force_n);
+  put(Q::time_scale, info.time_scale);
   put(Q::inertia, sim.model().inertia_set_kg());
   auto publish = [&] {
     const controller::Sample s = sim.reading();

@@ -73,6 +73,7 @@ controller::ControllerInfo SimController::info() const {
   i.base_inertia_kg = settings_.faults.report_base_inertia_kg.value_or(model_.stated_base_inertia_kg());
   i.max_speed_kmh = settings_.max_speed_kmh;
   i.max_force_n = settings_.max_force_n;
+  i.time_scale = settings_.time_scale;
   return i;
 }
 
@@ -266,7 +267,7 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
     return reply_ok(req, "IDENT",
                     {kv("name", i.name), kv("version", i.protocol_version), kv("roller_diameter_m", i.roller_diameter_m),
                      kv("base_inertia_kg", i.base_inertia_kg), kv("max_speed_kmh", i.max_speed_kmh),
-                     kv("max_force_n", i.max_force_n), kCaps},
+                     kv("max_force_n", i.max_force_n), kv("time_scale", i.time_scale), kCaps},
                     out);
   }
   if (m.type == "STATUS") {

@@ -35,6 +35,7 @@ struct SimSettings {
   double max_speed_kmh = 200.0;
   double max_force_n = 10000.0;
   double watchdog_s = 1.0;  // wall seconds without a request while motoring or simulating → controlled stop
+  double time_scale = 1.0;  // simulated seconds per wall second, stated in IDENT (time_scale=) so the tool can check the clock
   FaultPlan faults;
 };
 

@@ -22,6 +22,7 @@ class Server {
       : sim_(truth, sim), settings_(s), tick_(io_), signals_(io_, SIGINT, SIGTERM), start_(WallClock::now()) {}
 
   int run(const std::function<void(const std::string&)>& announce) {
+    announce_ = announce;
     signals_.async_wait([this](const asio::error_code&, int) { io_.stop(); });
     if (settings_.pty) {
       if (!open_pty(announce)) return 1;
@@ -152,6 +153,10 @@ class Server {
       // Bounded catch-up: after a stall of the host, simulated time jumps at most 50 ms of wall time.
       sim_.advance(std::min(wall_dt, 0.05) * settings_.time_scale, out);
       sim_.check_watchdog(wall_s(), out);
+      // Latched faults are also said on the simulator's own output (for its operator and the tests): a watchdog
+      // stop there proves the controller acted without the tool.
+      for (const auto& l : out)
+        if (l.find(" EVT FAULT ") != std::string::npos && announce_) announce_("loadtrim-sim: " + l.substr(0, l.find('*')));
       if (connected_)
         for (auto& s : out) outq_.push_back({wall_s(), std::move(s)});
       if (sim_.take_drop_request()) drop_client();
@@ -166,6 +171,7 @@ class Server {
 
   SimController sim_;
   ServerSettings settings_;
+  std::function<void(const std::string&)> announce_;
   asio::io_context io_;
   asio::steady_timer tick_;
   asio::signal_set signals_;

@@ -38,12 +38,27 @@ const Row kRows[] = {
     {"negative_mass", "target", "mass_in_running_order_kg = 1380.0", "mass_in_running_order_kg = -1380.0", {"vehicle.mass_in_running_order_kg (line 9): is -1380, allowed 200 to 20000 kg"}},
     {"implausible_coefficient", "target", "f1_n_per_kmh = 0.350", "f1_n_per_kmh = 75.0", {"target.f1_n_per_kmh (line 15): is 75, allowed -50 to 50 N/(km/h)"}},
     {"reference_speed_above_limit", "profile", "110, 120, 130]", "110, 120, 300]", {"bands.reference_speeds_kmh[11]", "is 300, allowed 1 to 250 km/h"}},
-    {"start_speed_above_cell_limit", "cell", "max_speed_kmh = 160.0", "max_speed_kmh = 140.0", {"limits.max_speed_kmh: is 140 km/h; the profile's start speed 142 km/h"}},
+    {"start_speed_above_cell_limit", "cell", "max_speed_kmh = 160.0", "max_speed_kmh = 140.0", {"limits.max_speed_kmh: is 140 km/h; the profile starts its coast-downs at 142 km/h"}},
     {"bad_choice", "cell", "axles = \"single-axle\"", "axles = \"three-axle\"", {"dyno.axles (line", "is \"three-axle\", allowed \"single-axle\", \"two-axle\""}},
     {"empty_file", "profile", "", "", {"error: the file is empty"}},
     {"truncated_file", "target", "[target]", "[tar", {"not valid TOML"}},
     {"binary_garbage", "cell", "", kGarbage, {"the file holds binary data, not TOML text"}},
     {"unknown_key_warns", "target", "drive = \"front\"", "drive = \"front\"\ncolour = \"red\"", {"warning: vehicle.colour (line 11): unknown key, ignored"}, 3},
+    // How the files combine (issue 13): each refused before anything connects, where the landed code connected first
+    // (or ran). The demo target needs F(142 km/h) = 142 + 0.35·142 + 0.033·142² = 857.1 N at the start speed and a
+    // dyno inertia of 1470 + 0.5·0.03·(1380 + 25) = 1491.1 kg (EU SA4 §2.5.1, §2.5.3) [computed].
+    {"awd_on_single_axle_cell", "target", "drive = \"front\"", "drive = \"all\"",
+     {"vehicle.drive: is \"all\" (all-wheel drive), but the cell's dyno.axles is \"single-axle\""}},
+    {"road_load_negative_40_to_110_kmh", "target", "f1_n_per_kmh = 0.350", "f1_n_per_kmh = -5.0", {"target: road load is zero or negative on"}},
+    {"target_beyond_cell_force_limit", "cell", "max_force_n = 8000.0", "max_force_n = 100.0",
+     {"needs 857.1 N at 142.0 km/h, beyond the cell's force limit limits.max_force_n = 100 N"}},
+    {"inertia_above_cell_range", "cell", "max_inertia_kg = 2700.0", "max_inertia_kg = 1400.0",
+     {"dyno.max_inertia_kg: is 1400 kg; this vehicle needs an inertia of 1491.1 kg"}},
+    {"motoring_limit_below_warm_up", "cell", "max_motoring_s = 5400.0", "max_motoring_s = 600.0",
+     {"limits.max_motoring_s: is 600 s; the profile's warm-up motors the rollers"}},
+    {"reference_speed_within_14_kmh_of_vehicle_max", "target", "max_speed_kmh = 185.0", "max_speed_kmh = 143.0",
+     {"bands.reference_speeds_kmh: has 130 km/h, within 14 km/h of the vehicle's maximum speed of 143"}},
+    {"no_aerodynamic_term_warns", "target", "f2_n_per_kmh2 = 0.03300", "f2_n_per_kmh2 = 0.0", {"warning: target.f2_n_per_kmh2: is 0: no aerodynamic term"}, 3},
 };
 }  // namespace
 

@@ -44,7 +44,7 @@ void write(const std::string& path, const std::string& text) {
 
 std::string cell_text(unsigned port, const std::string& axles, double rate_hz, int reconnect_delay_ms = 500) {
   return "name = \"test cell (invented)\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport = " +
-         std::to_string(port) + "\nsample_rate_hz = " + std::to_string(rate_hz) +
+         std::to_string(port) + "\nsample_rate_hz = " + std::to_string(rate_hz) + "\nmax_time_scale = 10000.0" +
          "\n[timeouts]\nconnect_ms = 3000\nreply_ms = 1000\nsample_gap_ms = 1000\nheartbeat_interval_ms = 100\n"
          "[reconnect]\nattempts = 3\ndelay_ms = " + std::to_string(reconnect_delay_ms) +
          "\n[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 7200.0\n"
@@ -313,9 +313,9 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
       {dir + "/cell.toml", variant("missing.toml", "test_mass_kg = 1470.0\n", ""),
        "missing.toml: error: vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"},
       {dir + "/cell.toml", variant("slowcar.toml", "max_speed_kmh = 185.0", "max_speed_kmh = 135.0"),
-       "slowcar.toml: error: vehicle.max_speed_kmh: is 135 km/h; the profile's start speed 142 km/h must be below it"},
+       "slowcar.toml: error: vehicle.max_speed_kmh: is 135 km/h; the profile starts its coast-downs at 142 km/h"},
       {dir + "/slow-cell.toml", kSrc + "/samples/targets/demo-hatchback.toml",
-       "slow-cell.toml: error: limits.max_speed_kmh: is 130 km/h; the profile's start speed 142 km/h"},
+       "slow-cell.toml: error: limits.max_speed_kmh: is 130 km/h; the profile starts its coast-downs at 142 km/h"},
   };
   for (const auto& c : cases) {
     std::string out, err;

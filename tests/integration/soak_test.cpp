@@ -93,7 +93,7 @@ int env_int(const char* name, int fallback) {
 std::string cell_text(unsigned port) {
   return "name = \"soak cell (invented)\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport = " +
          std::to_string(port) +
-         "\nsample_rate_hz = 1000.0\n"
+         "\nsample_rate_hz = 1000.0\nmax_time_scale = 10000.0\n"
          "[timeouts]\nconnect_ms = 3000\nreply_ms = 1000\nsample_gap_ms = 1000\nheartbeat_interval_ms = 100\n"
          "[reconnect]\nattempts = 3\ndelay_ms = 500\n"
          "[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 7200.0\n"

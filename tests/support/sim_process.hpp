@@ -3,7 +3,9 @@
 // test process dies first (PR_SET_PDEATHSIG), so a simulator never outlives its test.
 #pragma once
 
+#include <chrono>
 #include <memory>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -22,6 +24,9 @@ class SimProcess {
   unsigned short port() const { return port_; }
   const std::string& device() const { return device_; }
   int pid() const { return child_->pid(); }
+  // The simulator's next output line after its announcement (it says latched faults: "loadtrim-sim: ... EVT FAULT
+  // kind=WATCHDOG ..."), or nullopt after the timeout.
+  std::optional<std::string> read_line(std::chrono::milliseconds timeout) { return child_->read_line(timeout); }
   void stop();
 
  private:

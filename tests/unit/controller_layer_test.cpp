@@ -1,0 +1,297 @@
+// The controller's non-virtual safety layer, its clock guard and the motion library, without a simulator process:
+// the scripted fake controller (tests/support/fake_controller.hpp) stands in. The bounds checked here are the
+// project's own safety rules (docs/safety.md; lab policy, common practice, no source); every check value below is
+// constructed by the test itself (the clock a lie produces, the speed it reports), so it is stated beside the check.
+#include <gtest/gtest.h>
+
+#include <thread>
+
+#include "controller/clock_guard.hpp"
+#include "motion/motion.hpp"
+#include "support/fake_controller.hpp"
+
+using namespace loadtrim;
+using controller::ClockGuard;
+using controller::ClockRules;
+using controller::Mode;
+using loadtrim::testing::FakeController;
+
+namespace {
+
+ClockRules rules(double scale, double stream_hz = 0.0) {
+  ClockRules r;
+  r.scale = scale;
+  r.stream_rate_hz = stream_hz;
+  return r;
+}
+
+// Feeds a clock sampled at `hz` controller samples per second, read in batches every `batch_wall_s` of wall time,
+// with `clock(t)` mapping the true controller time to what is reported. Returns the first violation.
+std::optional<std::string> feed(ClockGuard& g, double scale, double hz, double batch_wall_s, double wall_s,
+                                const std::function<double(double)>& clock, double stall_at_wall_s = -1, double stall_s = 0) {
+  double w = 0.0, next_sample = 0.0;
+  while (w < wall_s) {
+    if (stall_at_wall_s >= 0 && w >= stall_at_wall_s && w < stall_at_wall_s + batch_wall_s) w += stall_s;  // the tool paused
+    const double c_now = w * scale;
+    for (; next_sample <= c_now; next_sample += 1.0 / hz)
+      if (auto v = g.on_sample(clock(next_sample), w)) return v;
+    w += batch_wall_s;
+  }
+  return std::nullopt;
+}
+
+}  // namespace
+
+TEST(ClockGuard, HonestClocksPassAtEveryScaleWithBatchesAndBacklogs) {
+  for (double scale : {1.0, 20.0, 200.0, 1000.0}) {
+    ClockGuard g;
+    g.set_rules(rules(scale, 100.0));
+    // Read every 2 ms of wall time, and once a 3 s pause of the tool's own (a slow disk): its backlog arrives late
+    // with its true, later times. Constructed: no lie, so no violation.
+    const auto v = feed(g, scale, 100.0, 0.002, 20.0, [](double t) { return t; }, 7.0, 3.0);
+    EXPECT_FALSE(v) << "scale " << scale << ": " << *v;
+  }
+}
+
+TEST(ClockGuard, NamesWhatTheClockDid) {
+  struct Case {
+    const char* name;
+    std::function<double(double)> clock;
+    const char* expected;
+  };
+  const std::vector<Case> cases = {
+      {"backwards by 100 s at t = 300 s", [](double t) { return t < 300 ? t : t - 100; }, "ran backwards"},
+      {"reset to zero after 400 s", [](double t) { return t < 400 ? t : t - 400; }, "ran backwards"},
+      {"frozen after 300 s", [](double t) { return std::min(t, 300.0); }, "stopped"},
+      {"creeping: 1e-9 s per sample after 300 s", [](double t) { return t < 300 ? t : 300 + (t - 300) * 1e-7; }, "runs too slow"},
+      {"jumps +1000 s at 300 s", [](double t) { return t < 300 ? t : t + 1000; }, "jumped ahead"},
+      {"jumps +1000 s at 2000 s", [](double t) { return t < 2000 ? t : t + 1000; }, "jumped ahead"},
+      {"backwards by 100 s at 3000 s", [](double t) { return t < 3000 ? t : t - 100; }, "ran backwards"},
+      {"runs 10x fast after 300 s", [](double t) { return t < 300 ? t : 300 + 10 * (t - 300); }, "runs too fast"},
+  };
+  for (const auto& c : cases) {
+    ClockGuard g;
+    g.set_rules(rules(200.0));
+    const auto v = feed(g, 200.0, 100.0, 0.002, 30.0, c.clock);
+    ASSERT_TRUE(v) << c.name;
+    EXPECT_NE(v->find("the controller's clock"), std::string::npos) << *v;
+    EXPECT_NE(v->find(c.expected), std::string::npos) << c.name << ": " << *v;
+  }
+}
+
+TEST(ClockGuard, StatusClockMustAgreeWithTheSamples) {
+  ClockGuard g;
+  g.set_rules(rules(200.0));
+  EXPECT_FALSE(feed(g, 200.0, 100.0, 0.002, 2.0, [](double t) { return t; }));
+  // 2 s of wall at 200x: the samples read 400 s. A status of 401 s is honest; 5400 s is not (constructed).
+  EXPECT_FALSE(g.on_status(401.0, 2.0));
+  const auto v = g.on_status(5400.0, 2.0);
+  ASSERT_TRUE(v);
+  EXPECT_NE(v->find("status clock and sample clock disagree"), std::string::npos) << *v;
+  EXPECT_TRUE(g.on_status(100.0, 2.0)) << "a status 300 s behind the samples";
+}
+
+TEST(ClockGuard, StreamRateMustBeTheRateAsked) {
+  ClockGuard g;
+  g.set_rules(rules(1.0, 100.0));
+  // 2 samples per second where 100 were asked (constructed).
+  const auto v = feed(g, 1.0, 2.0, 0.05, 20.0, [](double t) { return t; });
+  ASSERT_TRUE(v);
+  EXPECT_NE(v->find("streams at 2"), std::string::npos) << *v;
+}
+
+TEST(ClockGuard, InProcessClocksRaceButStillNeverRunBackwards) {
+  ClockGuard g;
+  ClockRules r = rules(1.0);
+  r.wall_related = false;
+  g.set_rules(r);
+  for (int i = 0; i < 100000; ++i) ASSERT_FALSE(g.on_sample(i * 0.01, 1e-6 * i));  // 10,000 s in 0.1 s of wall
+  const auto v = g.on_sample(5.0, 0.2);
+  ASSERT_TRUE(v);
+  EXPECT_NE(v->find("ran backwards"), std::string::npos);
+}
+
+class Layer : public ::testing::Test {
+ protected:
+  Layer() : c(loadtrim::testing::demo_truth()) {}
+  void SetUp() override {
+    ASSERT_TRUE(c.connect().ok());
+    ASSERT_TRUE(c.identify(info).ok());
+  }
+  FakeController c;
+  controller::ControllerInfo info;
+};
+
+TEST_F(Layer, LimitsAreRefusedBeforeAnythingIsSent) {
+  const auto r = c.hold_speed(170.0);  // above the fake's 160 km/h limit
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("above the limit"), std::string::npos) << r.message;
+  EXPECT_TRUE(c.commands.empty()) << "nothing may reach the controller";
+  EXPECT_FALSE(c.apply_force(9000.0).ok());  // above 8000 N
+  EXPECT_TRUE(c.commands.empty());
+  EXPECT_FALSE(c.set_coefficients({std::nan(""), 0, 0}).ok());
+  EXPECT_EQ(c.coefficient_writes, 0);
+}
+
+TEST_F(Layer, AReadBackThatDiffersIsFatal) {
+  c.script.readback_offset_n = 1.0;
+  const auto r = c.set_coefficients({100.0, 0.5, 0.03});
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("differs from what was written"), std::string::npos) << r.message;
+}
+
+TEST_F(Layer, AThrowingHookBecomesAFaultNotACrash) {
+  c.script.throw_in = "command";
+  const auto r = c.hold_speed(50.0);
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("adapter error"), std::string::npos) << r.message;
+  c.script.throw_in = "receive";
+  std::vector<controller::Sample> s;
+  EXPECT_EQ(c.receive_samples(s).status, controller::Result::Status::fatal);
+}
+
+TEST_F(Layer, MalformedSamplesAreDroppedCountedAndEndTheStreamWhenPersistent) {
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  int n = 0;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (++n % 10 == 0) s.speed_kmh = std::nan("");  // one in ten: dropped and counted, the rest flows
+  };
+  std::vector<controller::Sample> s;
+  ASSERT_TRUE(c.receive_samples(s).ok());
+  EXPECT_GT(c.stats().samples_malformed, 0u);
+  for (const auto& x : s) EXPECT_TRUE(std::isfinite(x.speed_kmh));
+  c.script.sample_lie = [](controller::Sample& x) { x.speed_kmh = -50.0; };  // every sample negative
+  controller::Result r;
+  for (int i = 0; i < 10 && (r = c.receive_samples(s)).ok(); ++i) {
+  }
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("malformed samples"), std::string::npos) << r.message;
+  EXPECT_NE(r.message.find("negative speed"), std::string::npos) << r.message;
+}
+
+TEST_F(Layer, ExactRepeatsAreDroppedAsDuplicates) {
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  std::vector<controller::Sample> raw;
+  // The fake hands up each sample; a repeat of the same sample (same index and values) must not reach the caller twice.
+  controller::Sample prev{};
+  bool have = false;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (have && s.index % 2 == 1) s = prev;  // every odd sample replaced by the one before it (an exact repeat)
+    prev = s;
+    have = true;
+  };
+  ASSERT_TRUE(c.receive_samples(raw).ok());
+  for (std::size_t i = 1; i < raw.size(); ++i) EXPECT_GT(raw[i].index, raw[i - 1].index);
+  EXPECT_GT(c.stats().samples_duplicate, 0u);
+  EXPECT_EQ(c.stats().samples_malformed, 0u);
+}
+
+TEST_F(Layer, AFaultEventEndsTheNextReceive) {
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  c.script.events = {"FAULT kind=ESTOP detail=scripted"};
+  std::vector<controller::Sample> s;
+  const auto r = c.receive_samples(s);
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("fault event"), std::string::npos) << r.message;
+  EXPECT_NE(r.message.find("ESTOP"), std::string::npos) << r.message;
+}
+
+TEST_F(Layer, SamplesReadBeforeACommandKeepTheOldEpoch) {
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  const auto e0 = c.epoch();
+  std::vector<controller::Sample> s;
+  ASSERT_TRUE(c.receive_samples(s).ok());
+  for (const auto& x : s) EXPECT_EQ(x.epoch, e0);
+  ASSERT_TRUE(c.hold_speed(40.0).ok());
+  EXPECT_EQ(c.epoch(), e0 + 1);
+  // The fake reads one more chunk when the command is acknowledged (as an adapter may hold lines already read): those
+  // come first with the old epoch, everything read afterwards has the new one.
+  s.clear();
+  ASSERT_TRUE(c.receive_samples(s).ok());
+  ASSERT_FALSE(s.empty());
+  for (const auto& x : s) EXPECT_EQ(x.epoch, e0);
+  s.clear();
+  ASSERT_TRUE(c.receive_samples(s).ok());
+  ASSERT_FALSE(s.empty());
+  for (const auto& x : s) EXPECT_EQ(x.epoch, e0 + 1);
+}
+
+TEST_F(Layer, TheKeepAliveStopsFeedingTheWatchdogWhenTheDrivingThreadStalls) {
+  controller::KeepAlive keep(c);
+  c.lease(std::chrono::milliseconds(200));
+  std::this_thread::sleep_for(std::chrono::milliseconds(150));
+  const int during = c.heartbeats.load();
+  EXPECT_GT(during, 0) << "within the lease the keep-alive feeds the watchdog (20 ms interval)";
+  std::this_thread::sleep_for(std::chrono::milliseconds(150));  // the lease ran out at 200 ms
+  const int after_lease = c.heartbeats.load();
+  std::this_thread::sleep_for(std::chrono::milliseconds(400));
+  EXPECT_EQ(c.heartbeats.load(), after_lease) << "a stalled driving thread must let the controller's watchdog trip";
+}
+
+TEST(Motion, FaultFlagsAndOverSpeedEndAStepWhateverTheEpochOrClock) {
+  FakeController c(loadtrim::testing::demo_truth());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  motion::Rules r;
+  r.speed_limit_kmh = 100.0;
+  motion::Motion m(c, r);
+  // A step waiting for samples of a later epoch still sees the flag on a sample of the current one.
+  c.script.sample_lie = [](controller::Sample& s) { s.flags |= controller::kFlagEstop; };
+  motion::Step st;
+  st.what = "a test step";
+  st.since_epoch = c.epoch() + 5;
+  auto res = m.collect(st, [](const controller::Sample&) { return true; });
+  EXPECT_EQ(res.status, controller::Result::Status::fatal);
+  EXPECT_NE(res.message.find("reports a fault"), std::string::npos) << res.message;
+  c.script.sample_lie = [](controller::Sample& s) { s.speed_kmh = 150.0; };  // above 100 + 2 km/h
+  res = m.collect(st, [](const controller::Sample&) { return true; });
+  EXPECT_NE(res.message.find("above the limit"), std::string::npos) << res.message;
+}
+
+TEST(Motion, AStepEndsOnItsControllerBudgetAndOnItsWallDeadline) {
+  FakeController c(loadtrim::testing::demo_truth());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  motion::Rules r;
+  r.wall_slack = std::chrono::milliseconds(300);
+  motion::Motion m(c, r);
+  motion::Step st;
+  st.what = "a condition that never comes";
+  st.budget_s = 30.0;
+  st.since_epoch = c.epoch();
+  auto res = m.collect(st, [](const controller::Sample&) { return false; });
+  EXPECT_EQ(res.code, motion::kTooSlow) << res.message;
+  EXPECT_NE(res.message.find("within 30 s of controller time"), std::string::npos) << res.message;
+  // A frozen controller clock: the controller budget never runs out, the wall deadline does (30 s / (1 × 0.25) +
+  // 0.3 s slack = 120.3 s would be long; a 0.2 s budget gives 0.8 s + 0.3 s).
+  c.script.sample_lie = [](controller::Sample& s) { s.time_s = 1000.0; };
+  st.budget_s = 0.2;
+  const auto t0 = std::chrono::steady_clock::now();
+  res = m.collect(st, [](const controller::Sample&) { return false; });
+  const double took = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  EXPECT_EQ(res.code, motion::kWallDeadline) << res.message;
+  EXPECT_LT(took, 5.0);
+}
+
+TEST(Motion, AStopThatIsNeverReachedIsReportedNotAssumed) {
+  FakeController c(loadtrim::testing::demo_truth());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  motion::Motion m(c, {});
+  ASSERT_TRUE(m.hold(50.0, 1.0, "run-up", 120.0).ok());
+  c.script.never_stops = true;
+  bool stopped = true;
+  const auto res = m.stop_and_wait(60.0, stopped);
+  EXPECT_FALSE(stopped);
+  EXPECT_EQ(res.code, motion::kTooSlow) << res.message;
+  EXPECT_TRUE(c.sent(Mode::controlled_stop));
+  c.script.never_stops = false;
+  EXPECT_TRUE(m.stop_and_wait(120.0, stopped).ok());
+  EXPECT_TRUE(stopped);
+}
