@@ -1,6 +1,7 @@
-// `loadtrim approve FOLDER --reviewer NAME --key REVIEWER_KEY --statement TEXT`: a reviewer's signed sign-off of a
-// sealed folder. Only a folder that verifies (the cell's seal checked against a trusted key) is approved; the
-// approval names the seal it approves and is verified by `loadtrim verify`. Thin: record/seal.hpp writes it.
+// `loadtrim approve FOLDER --reviewer NAME --key REVIEWER_KEY --statement TEXT`: a reviewer's signed sign-off
+// of a sealed folder. Only a folder that verifies (the cell's seal checked against a trusted key) is
+// approved; the approval names the seal it approves and is verified by `loadtrim verify`. Thin:
+// record/seal.hpp writes it.
 #include <cstdio>
 #include <filesystem>
 #include <memory>
@@ -49,26 +50,28 @@ int approve(const ApproveArgs& a) {
   }
   // The reviewer's registered key, when there is one, must be the key signing now.
   if (!opt.keys_dir.empty()) {
-    const std::string registered = (std::filesystem::path(opt.keys_dir) / (record::reviewer_key_stem(a.reviewer) + ".pub.pem")).string();
+    const std::string registered =
+        (std::filesystem::path(opt.keys_dir) / (record::reviewer_key_stem(a.reviewer) + ".pub.pem")).string();
     if (std::filesystem::exists(registered, ec)) {
       const auto pk = record::PublicKey::load(registered, err);
       if (pk && pk->fingerprint() != key->fingerprint()) {
-        std::fprintf(stderr, "loadtrim approve: %s is not %s's registered key (%s is %s)\n", a.key.c_str(), a.reviewer.c_str(),
-                     registered.c_str(), pk->fingerprint().c_str());
+        std::fprintf(stderr, "loadtrim approve: %s is not %s's registered key (%s is %s)\n", a.key.c_str(),
+                     a.reviewer.c_str(), registered.c_str(), pk->fingerprint().c_str());
         return kBadInput;
       }
     } else {
-      std::printf("note: %s is not in the data root; verify reports this approval as \"key unknown\" until it is\n",
-                  registered.c_str());
+      std::printf(
+          "note: %s is not in the data root; verify reports this approval as \"key unknown\" until it is\n",
+          registered.c_str());
     }
   }
-  // Approve only what verifies: approvals may follow the seal, so whether other approvals are already there does
-  // not matter, but an unknown reviewer key among them does not stop a new approval.
+  // Approve only what verifies: approvals may follow the seal, so whether other approvals are already there
+  // does not matter, but an unknown reviewer key among them does not stop a new approval.
   const record::FolderVerdict v = record::verify_folder(a.folder, opt);
   const bool seal_ok = v.seal && v.seal->signature_checked && v.outcome != record::Outcome::broken;
   if (!seal_ok) {
-    std::fprintf(stderr, "loadtrim approve: refusing to approve %s: %s: %s\n", a.folder.c_str(), record::to_string(v.outcome),
-                 v.message.c_str());
+    std::fprintf(stderr, "loadtrim approve: refusing to approve %s: %s: %s\n", a.folder.c_str(),
+                 record::to_string(v.outcome), v.message.c_str());
     return v.outcome == record::Outcome::verified ? kRecordFailure : record::verify_exit_code(v.outcome);
   }
   record::ApprovalInfo info;
@@ -76,8 +79,9 @@ int approve(const ApproveArgs& a) {
     std::fprintf(stderr, "loadtrim approve: %s\n", err.c_str());
     return kRecordFailure;
   }
-  std::printf("approved: record %llu by %s (key %s), approving the seal %s\n", static_cast<unsigned long long>(info.seq),
-              a.reviewer.c_str(), info.signer.c_str(), info.seal_sha256.c_str());
+  std::printf("approved: record %llu by %s (key %s), approving the seal %s\n",
+              static_cast<unsigned long long>(info.seq), a.reviewer.c_str(), info.signer.c_str(),
+              info.seal_sha256.c_str());
   return kAccepted;
 }
 
@@ -85,13 +89,20 @@ int approve(const ApproveArgs& a) {
 
 void register_approve_command(CLI::App& app, Runner& run) {
   auto a = std::make_shared<ApproveArgs>();
-  auto* sub = app.add_subcommand("approve", "record a reviewer's signed approval of a sealed, verified folder");
+  auto* sub =
+      app.add_subcommand("approve", "record a reviewer's signed approval of a sealed, verified folder");
   sub->add_option("folder", a->folder, "the session or check folder")->required();
   sub->add_option("--reviewer", a->reviewer, "the reviewer's name")->required();
-  sub->add_option("--key", a->key, "the reviewer's private key (PEM, mode 0600; loadtrim keys create --reviewer NAME)")->required();
-  sub->add_option("--statement", a->statement, "what the reviewer states, e.g. \"reviewed; setting fit for use\"")->required();
-  sub->add_option("--data-dir", a->data_dir, "the lab's data root (now: " + record::find_data_root("").describe() + ")");
-  sub->add_option("--public-key", a->public_keys, "a trusted public key (PEM) for the cell's seal")->check(CLI::ExistingFile);
+  sub->add_option("--key", a->key,
+                  "the reviewer's private key (PEM, mode 0600; loadtrim keys create --reviewer NAME)")
+      ->required();
+  sub->add_option("--statement", a->statement,
+                  "what the reviewer states, e.g. \"reviewed; setting fit for use\"")
+      ->required();
+  sub->add_option("--data-dir", a->data_dir,
+                  "the lab's data root (now: " + record::find_data_root("").describe() + ")");
+  sub->add_option("--public-key", a->public_keys, "a trusted public key (PEM) for the cell's seal")
+      ->check(CLI::ExistingFile);
   sub->add_option("--checks", a->checks, "where the cells' logs are (default: <data root>/checks)");
   sub->callback([a, &run] { run = [a] { return approve(*a); }; });
 }

@@ -1,6 +1,7 @@
-// `loadtrim keys create --cell NAME | --reviewer NAME [--out DIR]`: a new Ed25519 key pair for a cell (its sessions'
-// and checks' seals) or a reviewer (approvals), in the data root's keys/ by default; `loadtrim keys fingerprint PEM`.
-// Thin: record/seal.hpp creates the files (private key 0600, created with O_EXCL, never overwritten).
+// `loadtrim keys create --cell NAME | --reviewer NAME [--out DIR]`: a new Ed25519 key pair for a cell (its
+// sessions' and checks' seals) or a reviewer (approvals), in the data root's keys/ by default; `loadtrim keys
+// fingerprint PEM`. Thin: record/seal.hpp creates the files (private key 0600, created with O_EXCL, never
+// overwritten).
 #include <sys/stat.h>
 
 #include <cerrno>
@@ -43,7 +44,8 @@ int create(const KeysArgs& a) {
     std::fprintf(stderr, "loadtrim keys create: cannot create %s: %s\n", dir.c_str(), std::strerror(errno));
     return kBadInput;
   }
-  const std::string stem = a.cell.empty() ? record::reviewer_key_stem(a.reviewer) : record::cell_key_stem(a.cell);
+  const std::string stem =
+      a.cell.empty() ? record::reviewer_key_stem(a.reviewer) : record::cell_key_stem(a.cell);
   const std::string priv = (std::filesystem::path(dir) / (stem + ".key.pem")).string();
   const std::string pub = (std::filesystem::path(dir) / (stem + ".pub.pem")).string();
   record::KeyPairFiles files;
@@ -52,15 +54,19 @@ int create(const KeysArgs& a) {
     std::fprintf(stderr, "loadtrim keys create: %s\n", err.c_str());
     return kBadInput;
   }
-  std::printf("private key: %s (mode 0600: keep it where only %s can read it; never copy it into a session folder or a "
-              "shared backup)\npublic key:  %s\nfingerprint: %s\n",
-              files.private_path.c_str(), a.cell.empty() ? "the reviewer" : "the cell's account", files.public_path.c_str(),
-              files.fingerprint.c_str());
+  std::printf(
+      "private key: %s (mode 0600: keep it where only %s can read it; never copy it into a session folder or "
+      "a "
+      "shared backup)\npublic key:  %s\nfingerprint: %s\n",
+      files.private_path.c_str(), a.cell.empty() ? "the reviewer" : "the cell's account",
+      files.public_path.c_str(), files.fingerprint.c_str());
   if (!a.cell.empty())
     std::printf("add to the cell file:\n  [records]\n  public_key = \"%s\"\n", files.fingerprint.c_str());
   else
-    std::printf("verify trusts this reviewer's approvals once %s is in the data root's keys/ (or given with --reviewer-key)\n",
-                (stem + ".pub.pem").c_str());
+    std::printf(
+        "verify trusts this reviewer's approvals once %s is in the data root's keys/ (or given with "
+        "--reviewer-key)\n",
+        (stem + ".pub.pem").c_str());
   return kAccepted;
 }
 
@@ -82,16 +88,20 @@ int fingerprint(const KeysArgs& a) {
 
 void register_keys_command(CLI::App& app, Runner& run) {
   auto a = std::make_shared<KeysArgs>();
-  auto* keys = app.add_subcommand("keys", "Ed25519 key pairs for sealing folders (a cell's) and approving them (a reviewer's)");
+  auto* keys = app.add_subcommand(
+      "keys", "Ed25519 key pairs for sealing folders (a cell's) and approving them (a reviewer's)");
   keys->require_subcommand(1);
-  auto* c = keys->add_subcommand("create", "create a key pair: <dir>/cell-NAME.key.pem (0600) and .pub.pem, or reviewer-NAME.*");
+  auto* c = keys->add_subcommand(
+      "create", "create a key pair: <dir>/cell-NAME.key.pem (0600) and .pub.pem, or reviewer-NAME.*");
   auto* cell = c->add_option("--cell", a->cell, "the cell's name, as in its cell file");
   auto* rev = c->add_option("--reviewer", a->reviewer, "the reviewer's name, as given to approve");
   cell->excludes(rev);
   c->add_option("--out", a->out, "where to write the pair (default: the data root's keys/, mode 0700)");
-  c->add_option("--data-dir", a->data_dir, "the lab's data root (now: " + record::find_data_root("").describe() + ")");
+  c->add_option("--data-dir", a->data_dir,
+                "the lab's data root (now: " + record::find_data_root("").describe() + ")");
   c->callback([a, &run] { run = [a] { return create(*a); }; });
-  auto* f = keys->add_subcommand("fingerprint", "print the fingerprint (sha256:...) of a public or private key PEM");
+  auto* f = keys->add_subcommand("fingerprint",
+                                 "print the fingerprint (sha256:...) of a public or private key PEM");
   f->add_option("pem", a->pem, "the key file")->required()->check(CLI::ExistingFile);
   f->callback([a, &run] { run = [a] { return fingerprint(*a); }; });
 }

@@ -82,13 +82,27 @@ bool parse_string(const std::string& v, std::string& out, std::string& why) {
     }
     if (++i >= v.size()) break;
     switch (v[i]) {
-      case 'b': out += '\b'; break;
-      case 't': out += '\t'; break;
-      case 'n': out += '\n'; break;
-      case 'f': out += '\f'; break;
-      case 'r': out += '\r'; break;
-      case '"': out += '"'; break;
-      case '\\': out += '\\'; break;
+      case 'b':
+        out += '\b';
+        break;
+      case 't':
+        out += '\t';
+        break;
+      case 'n':
+        out += '\n';
+        break;
+      case 'f':
+        out += '\f';
+        break;
+      case 'r':
+        out += '\r';
+        break;
+      case '"':
+        out += '"';
+        break;
+      case '\\':
+        out += '\\';
+        break;
       case 'u':
       case 'U': {
         const std::size_t n = v[i] == 'u' ? 4 : 8;
@@ -99,7 +113,10 @@ bool parse_string(const std::string& v, std::string& out, std::string& why) {
         unsigned long cp = 0;
         for (std::size_t k = 1; k <= n; ++k) {
           const char h = v[i + k];
-          const int d = (h >= '0' && h <= '9') ? h - '0' : (h >= 'a' && h <= 'f') ? h - 'a' + 10 : (h >= 'A' && h <= 'F') ? h - 'A' + 10 : -1;
+          const int d = (h >= '0' && h <= '9')   ? h - '0'
+                        : (h >= 'a' && h <= 'f') ? h - 'a' + 10
+                        : (h >= 'A' && h <= 'F') ? h - 'A' + 10
+                                                 : -1;
           if (d < 0) {
             why = "has a malformed \\u escape";
             return false;
@@ -142,8 +159,8 @@ std::string absolute_from(const std::string& p, const std::string& cwd) {
 
 }  // namespace
 
-std::optional<std::string> toml_string_value(const std::string& text, const std::string& table, const std::string& key,
-                                             std::string* error) {
+std::optional<std::string> toml_string_value(const std::string& text, const std::string& table,
+                                             const std::string& key, std::string* error) {
   std::istringstream in(text);
   std::string line, current;
   std::optional<std::string> found;
@@ -155,7 +172,8 @@ std::optional<std::string> toml_string_value(const std::string& text, const std:
     if (t.front() == '[') {
       const bool array = t.rfind("[[", 0) == 0;
       const auto close = t.find(array ? "]]" : "]");
-      current = close == std::string::npos ? std::string("\x01") : trim(t.substr(array ? 2 : 1, close - (array ? 2 : 1)));
+      current = close == std::string::npos ? std::string("\x01")
+                                           : trim(t.substr(array ? 2 : 1, close - (array ? 2 : 1)));
       if (array) current = "\x01" + current;  // an array of tables never matches
       continue;
     }
@@ -163,11 +181,14 @@ std::optional<std::string> toml_string_value(const std::string& text, const std:
     if (eq == std::string::npos || current != table || unquote_key(trim(t.substr(0, eq))) != key) continue;
     std::string value, why;
     if (!parse_string(trim(t.substr(eq + 1)), value, why)) {
-      if (error) *error = (table.empty() ? "" : table + ".") + key + " (line " + std::to_string(n) + ") " + why;
+      if (error)
+        *error = (table.empty() ? "" : table + ".") + key + " (line " + std::to_string(n) + ") " + why;
       return std::nullopt;
     }
     if (found) {
-      if (error) *error = (table.empty() ? "" : table + ".") + key + " (line " + std::to_string(n) + ") is defined twice";
+      if (error)
+        *error =
+            (table.empty() ? "" : table + ".") + key + " (line " + std::to_string(n) + ") is defined twice";
       return std::nullopt;
     }
     found = value;

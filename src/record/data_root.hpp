@@ -1,5 +1,5 @@
-// The lab's data root: one place for sessions, dyno checks, histories, keys and the queue, so that every command,
-// run from any folder, sees the same state.
+// The lab's data root: one place for sessions, dyno checks, histories, keys and the queue, so that every
+// command, run from any folder, sees the same state.
 //
 // Where it is, first match wins:
 //   1. the --data-dir option (relative to the current folder)
@@ -8,8 +8,8 @@
 //   4. $XDG_DATA_HOME/loadtrim, when XDG_DATA_HOME is set to an absolute path (the XDG base directory rule:
 //      relative values are ignored)
 //   5. $HOME/.local/share/loadtrim
-// A system file that exists but whose data_dir is not an absolute path string is an error, not a fall-through: a
-// lab that configured a root must not silently get another one.
+// A system file that exists but whose data_dir is not an absolute path string is an error, not a
+// fall-through: a lab that configured a root must not silently get another one.
 //
 // Layout (made on first use by ensure_data_root):
 //   sessions/  session folders            checks/   <cell>/cell-log.jsonl and the check folders
@@ -60,11 +60,11 @@ DataRoot find_data_root(const std::string& option);
 // narrowed to 0700 (noted in *notes). False with error when a folder cannot be made.
 bool ensure_data_root(const DataRoot& root, std::string& error, std::vector<std::string>* notes = nullptr);
 
-// The string value of `key` in `table` ("" = the top level, before any [table] header) of a TOML text, for the
-// few keys the record layer reads (data_dir, [records] public_key) without a TOML library: basic strings with
-// the TOML escapes and literal strings, one per line, comments allowed. nullopt when the key is absent;
+// The string value of `key` in `table` ("" = the top level, before any [table] header) of a TOML text, for
+// the few keys the record layer reads (data_dir, [records] public_key) without a TOML library: basic strings
+// with the TOML escapes and literal strings, one per line, comments allowed. nullopt when the key is absent;
 // an *error (and nullopt) when it is present but not a one-line string.
-std::optional<std::string> toml_string_value(const std::string& text, const std::string& table, const std::string& key,
-                                             std::string* error = nullptr);
+std::optional<std::string> toml_string_value(const std::string& text, const std::string& table,
+                                             const std::string& key, std::string* error = nullptr);
 
 }  // namespace loadtrim::record

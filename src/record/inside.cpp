@@ -55,7 +55,8 @@ const char* kind_of(mode_t m) {
   return "not a regular file";
 }
 
-// Opens the regular file folder/rel (rules in the header); on failure, status and error are set and -1 returned.
+// Opens the regular file folder/rel (rules in the header); on failure, status and error are set and -1
+// returned.
 int open_inside(const std::string& folder, const std::string& rel, InsideStatus& status, std::string& error) {
   std::string why;
   if (!is_safe_relative_path(rel, &why)) {
@@ -76,14 +77,16 @@ int open_inside(const std::string& folder, const std::string& rel, InsideStatus&
     struct stat st {};
     if (::fstatat(dir.fd, parts[i].c_str(), &st, AT_SYMLINK_NOFOLLOW) != 0) {
       status = errno == ENOENT || errno == ENOTDIR ? InsideStatus::missing : InsideStatus::io_error;
-      error = walked + (status == InsideStatus::missing ? " is missing" : std::string(": ") + std::strerror(errno));
+      error = walked +
+              (status == InsideStatus::missing ? " is missing" : std::string(": ") + std::strerror(errno));
       return -1;
     }
     const bool last = i + 1 == parts.size();
     if (!last) {
       if (!S_ISDIR(st.st_mode)) {
         status = S_ISLNK(st.st_mode) ? InsideStatus::unsafe : InsideStatus::missing;
-        error = walked + " is " + kind_of(st.st_mode) + (status == InsideStatus::unsafe ? "; links are never followed" : "");
+        error = walked + " is " + kind_of(st.st_mode) +
+                (status == InsideStatus::unsafe ? "; links are never followed" : "");
         return -1;
       }
       Fd next(::openat(dir.fd, parts[i].c_str(), O_RDONLY | O_DIRECTORY | O_NOFOLLOW | O_CLOEXEC));
@@ -100,15 +103,19 @@ int open_inside(const std::string& folder, const std::string& rel, InsideStatus&
       error = walked + " is " + kind_of(st.st_mode) + "; only regular files are read";
       return -1;
     }
-    const int fd = ::openat(dir.fd, parts[i].c_str(), O_RDONLY | O_NOFOLLOW | O_NONBLOCK | O_NOCTTY | O_CLOEXEC);
+    const int fd =
+        ::openat(dir.fd, parts[i].c_str(), O_RDONLY | O_NOFOLLOW | O_NONBLOCK | O_NOCTTY | O_CLOEXEC);
     if (fd < 0) {
-      status = errno == ELOOP ? InsideStatus::unsafe : errno == ENOENT ? InsideStatus::missing : InsideStatus::io_error;
+      status = errno == ELOOP    ? InsideStatus::unsafe
+               : errno == ENOENT ? InsideStatus::missing
+                                 : InsideStatus::io_error;
       error = "cannot open " + walked + ": " + std::strerror(errno);
       return -1;
     }
     struct stat again {};
     // The entry may have been swapped between the check and the open: insist it is the same regular file.
-    if (::fstat(fd, &again) != 0 || !S_ISREG(again.st_mode) || again.st_ino != st.st_ino || again.st_dev != st.st_dev) {
+    if (::fstat(fd, &again) != 0 || !S_ISREG(again.st_mode) || again.st_ino != st.st_ino ||
+        again.st_dev != st.st_dev) {
       ::close(fd);
       status = InsideStatus::unsafe;
       error = walked + " changed while it was being opened";
@@ -185,7 +192,8 @@ bool walk(int dirfd, const std::string& prefix, int depth, std::vector<std::stri
       ok = walk(sub.fd, rel, depth + 1, out, error, offending);
     } else {
       offending = rel;
-      error = rel + " is " + kind_of(st.st_mode) + "; a record folder holds only regular files and directories";
+      error =
+          rel + " is " + kind_of(st.st_mode) + "; a record folder holds only regular files and directories";
       ok = false;
     }
   }

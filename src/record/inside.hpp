@@ -1,9 +1,10 @@
 // Reading a record folder without ever leaving it. Every path a folder's own records name (a "files" entry, a
 // trace, the seal's list) is untrusted input: it must be relative, made only of plain components (no "", ".",
 // ".." or backslash), and it is opened component by component from the folder's directory descriptor with
-// O_NOFOLLOW, so neither "../../etc/hostname" nor a symbolic link placed in the folder can make loadtrim open a
-// file outside it. Only regular files are opened: a FIFO, a device or a socket is refused after an lstat-style
-// check, before any open(2) (opening a FIFO could block, or be noticed by whoever holds its other end).
+// O_NOFOLLOW, so neither "../../etc/hostname" nor a symbolic link placed in the folder can make loadtrim open
+// a file outside it. Only regular files are opened: a FIFO, a device or a socket is refused after an
+// lstat-style check, before any open(2) (opening a FIFO could block, or be noticed by whoever holds its other
+// end).
 //
 // Never throws; every failure is a status with a sentence naming the path.
 #pragma once

@@ -29,7 +29,9 @@ using nlohmann::json;
 
 namespace {
 
-std::shared_ptr<evp_pkey_st> own(EVP_PKEY* k) { return std::shared_ptr<evp_pkey_st>(k, EVP_PKEY_free); }
+std::shared_ptr<evp_pkey_st> own(EVP_PKEY* k) {
+  return std::shared_ptr<evp_pkey_st>(k, EVP_PKEY_free);
+}
 
 std::string openssl_error() {
   const unsigned long e = ERR_get_error();
@@ -84,7 +86,9 @@ bool fingerprint_of(EVP_PKEY* k, std::string& fp, std::string& error) {
 }
 
 // Never prompts for a pass phrase (an encrypted key is refused rather than asked about on the terminal).
-int no_passphrase(char*, int, int, void*) { return -1; }
+int no_passphrase(char*, int, int, void*) {
+  return -1;
+}
 
 bool read_fd(int fd, std::string& out) {
   char buf[4096];
@@ -107,9 +111,9 @@ void fsync_dir(const std::string& path) {
   }
 }
 
-// Writes a new file that must not exist yet: a temporary file made with O_EXCL and `mode` from its first moment
-// (fchmod makes the mode exact whatever the umask), then link(2) to the final name, which fails on an existing
-// file, so a key is never overwritten and never half-written under its name.
+// Writes a new file that must not exist yet: a temporary file made with O_EXCL and `mode` from its first
+// moment (fchmod makes the mode exact whatever the umask), then link(2) to the final name, which fails on an
+// existing file, so a key is never overwritten and never half-written under its name.
 bool write_new_file(const std::string& path, const std::string& content, mode_t mode, std::string& error) {
   unsigned char rnd[8];
   if (RAND_bytes(rnd, sizeof rnd) != 1) {
@@ -117,7 +121,8 @@ bool write_new_file(const std::string& path, const std::string& content, mode_t 
     return false;
   }
   const fs::path p(path);
-  const std::string tmp = (p.parent_path() / ("." + p.filename().string() + ".tmp-" + to_hex(rnd, sizeof rnd))).string();
+  const std::string tmp =
+      (p.parent_path() / ("." + p.filename().string() + ".tmp-" + to_hex(rnd, sizeof rnd))).string();
   const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, mode);
   if (fd < 0) {
     error = "cannot create " + tmp + ": " + std::strerror(errno);
@@ -144,7 +149,8 @@ bool write_new_file(const std::string& path, const std::string& content, mode_t 
     return false;
   }
   if (::link(tmp.c_str(), path.c_str()) != 0) {
-    error = errno == EEXIST ? path + " already exists; a key is never overwritten" : "cannot create " + path + ": " + std::strerror(errno);
+    error = errno == EEXIST ? path + " already exists; a key is never overwritten"
+                            : "cannot create " + path + ": " + std::strerror(errno);
     ::unlink(tmp.c_str());
     return false;
   }
@@ -156,7 +162,8 @@ bool write_new_file(const std::string& path, const std::string& content, mode_t 
 std::string pem_of(EVP_PKEY* k, bool priv) {
   BIO* b = BIO_new(BIO_s_mem());
   if (!b) return "";
-  const int ok = priv ? PEM_write_bio_PrivateKey(b, k, nullptr, nullptr, 0, nullptr, nullptr) : PEM_write_bio_PUBKEY(b, k);
+  const int ok = priv ? PEM_write_bio_PrivateKey(b, k, nullptr, nullptr, 0, nullptr, nullptr)
+                      : PEM_write_bio_PUBKEY(b, k);
   std::string out;
   if (ok == 1) {
     char* data = nullptr;
@@ -230,7 +237,8 @@ std::optional<PublicKey> PublicKey::from_raw(std::string_view raw32, std::string
     error = "an Ed25519 public key has 32 bytes";
     return std::nullopt;
   }
-  EVP_PKEY* k = EVP_PKEY_new_raw_public_key(EVP_PKEY_ED25519, nullptr, reinterpret_cast<const unsigned char*>(raw32.data()), 32);
+  EVP_PKEY* k = EVP_PKEY_new_raw_public_key(EVP_PKEY_ED25519, nullptr,
+                                            reinterpret_cast<const unsigned char*>(raw32.data()), 32);
   if (!k) {
     error = "not an Ed25519 public key: " + openssl_error();
     return std::nullopt;
@@ -241,7 +249,9 @@ std::optional<PublicKey> PublicKey::from_raw(std::string_view raw32, std::string
   return p;
 }
 
-std::string PublicKey::pem() const { return key_ ? pem_of(key_.get(), false) : std::string(); }
+std::string PublicKey::pem() const {
+  return key_ ? pem_of(key_.get(), false) : std::string();
+}
 
 bool PublicKey::verify(std::string_view message, const std::string& signature_hex) const {
   if (!key_ || signature_hex.size() != 128) return false;
@@ -250,9 +260,10 @@ bool PublicKey::verify(std::string_view message, const std::string& signature_he
   EVP_MD_CTX* ctx = EVP_MD_CTX_new();
   if (!ctx) return false;
   // Ed25519 is a one-shot signature: no digest is named (RFC 8032 hashes internally with SHA-512).
-  const bool ok = EVP_DigestVerifyInit(ctx, nullptr, nullptr, nullptr, key_.get()) == 1 &&
-                  EVP_DigestVerify(ctx, reinterpret_cast<const unsigned char*>(sig.data()), sig.size(),
-                                   reinterpret_cast<const unsigned char*>(message.data()), message.size()) == 1;
+  const bool ok =
+      EVP_DigestVerifyInit(ctx, nullptr, nullptr, nullptr, key_.get()) == 1 &&
+      EVP_DigestVerify(ctx, reinterpret_cast<const unsigned char*>(sig.data()), sig.size(),
+                       reinterpret_cast<const unsigned char*>(message.data()), message.size()) == 1;
   EVP_MD_CTX_free(ctx);
   ERR_clear_error();
   return ok;
@@ -276,7 +287,8 @@ std::optional<SigningKey> SigningKey::load(const std::string& path, std::string&
     ::close(fd);
     char mode[8];
     std::snprintf(mode, sizeof mode, "%04o", static_cast<unsigned>(st.st_mode & 07777));
-    error = "the private key " + path + " has mode " + mode + ": others may read or change it, so it no longer identifies "
+    error = "the private key " + path + " has mode " + mode +
+            ": others may read or change it, so it no longer identifies "
             "its owner; refused (chmod 600, or better, make a new key pair)";
     return std::nullopt;
   }
@@ -312,7 +324,8 @@ std::optional<SigningKey> SigningKey::from_raw(std::string_view raw32, std::stri
     error = "an Ed25519 secret key has 32 bytes";
     return std::nullopt;
   }
-  EVP_PKEY* k = EVP_PKEY_new_raw_private_key(EVP_PKEY_ED25519, nullptr, reinterpret_cast<const unsigned char*>(raw32.data()), 32);
+  EVP_PKEY* k = EVP_PKEY_new_raw_private_key(EVP_PKEY_ED25519, nullptr,
+                                             reinterpret_cast<const unsigned char*>(raw32.data()), 32);
   if (!k) {
     error = "not an Ed25519 secret key: " + openssl_error();
     return std::nullopt;
@@ -337,7 +350,8 @@ bool SigningKey::sign(std::string_view message, std::string& signature_hex, std:
   unsigned char sig[64];
   std::size_t len = sizeof sig;
   const bool ok = EVP_DigestSignInit(ctx, nullptr, nullptr, nullptr, key_.get()) == 1 &&
-                  EVP_DigestSign(ctx, sig, &len, reinterpret_cast<const unsigned char*>(message.data()), message.size()) == 1 &&
+                  EVP_DigestSign(ctx, sig, &len, reinterpret_cast<const unsigned char*>(message.data()),
+                                 message.size()) == 1 &&
                   len == 64;
   EVP_MD_CTX_free(ctx);
   if (!ok) {
@@ -350,11 +364,14 @@ bool SigningKey::sign(std::string_view message, std::string& signature_hex, std:
 
 // ---- key pair files ----
 
-bool create_key_pair(const std::string& private_path, const std::string& public_path, KeyPairFiles* out, std::string& error) {
+bool create_key_pair(const std::string& private_path, const std::string& public_path, KeyPairFiles* out,
+                     std::string& error) {
   struct stat st {};
   for (const auto& p : {private_path, public_path})
     if (::lstat(p.c_str(), &st) == 0) {
-      error = p + " already exists; a key is never overwritten (remove or move it first if it is really to be replaced)";
+      error = p +
+              " already exists; a key is never overwritten (remove or move it first if it is really to be "
+              "replaced)";
       return false;
     }
   EVP_PKEY_CTX* pctx = EVP_PKEY_CTX_new_id(EVP_PKEY_ED25519, nullptr);
@@ -387,14 +404,22 @@ bool create_key_pair(const std::string& private_path, const std::string& public_
   return true;
 }
 
-std::string cell_key_stem(const std::string& cell_name) { return "cell-" + safe_name(cell_name); }
-std::string reviewer_key_stem(const std::string& reviewer) { return "reviewer-" + safe_name(reviewer); }
+std::string cell_key_stem(const std::string& cell_name) {
+  return "cell-" + safe_name(cell_name);
+}
+std::string reviewer_key_stem(const std::string& reviewer) {
+  return "reviewer-" + safe_name(reviewer);
+}
 
 std::optional<SigningKey> load_cell_signing_key(const std::string& data_root, const std::string& cell_name,
-                                                const std::string& public_key, const std::string& private_key, std::string& error) {
-  auto in_root = [&](const std::string& p) { return fs::path(p).is_absolute() ? p : (fs::path(data_root) / p).string(); };
-  const std::string priv = private_key.empty() ? (fs::path(data_root) / "keys" / (cell_key_stem(cell_name) + ".key.pem")).string()
-                                               : in_root(private_key);
+                                                const std::string& public_key, const std::string& private_key,
+                                                std::string& error) {
+  auto in_root = [&](const std::string& p) {
+    return fs::path(p).is_absolute() ? p : (fs::path(data_root) / p).string();
+  };
+  const std::string priv =
+      private_key.empty() ? (fs::path(data_root) / "keys" / (cell_key_stem(cell_name) + ".key.pem")).string()
+                          : in_root(private_key);
   auto key = SigningKey::load(priv, error);
   if (!key) return std::nullopt;
   std::string expected = public_key;
@@ -404,7 +429,8 @@ std::optional<SigningKey> load_cell_signing_key(const std::string& data_root, co
     expected = pk->fingerprint();
   }
   if (!expected.empty() && expected != key->fingerprint()) {
-    error = "the cell's signing key " + priv + " is " + key->fingerprint() + ", but the cell file names " + expected;
+    error = "the cell's signing key " + priv + " is " + key->fingerprint() + ", but the cell file names " +
+            expected;
     return std::nullopt;
   }
   return key;
@@ -425,7 +451,8 @@ std::string signed_message(const json& record) {
 }
 
 const std::vector<std::string>& derived_files() {
-  static const std::vector<std::string> k = {"report.html", "report.pdf", "coefficients.csv", "deviations.csv"};
+  static const std::vector<std::string> k = {"report.html", "report.pdf", "coefficients.csv",
+                                             "deviations.csv"};
   return k;
 }
 
@@ -485,28 +512,25 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
       error = "refusing to seal " + folder + ": " + d;
       return false;
     }
-    // A folder whose own cell file names the cell's key is sealed with that key or not at all (verify would refuse
-    // anything else).
+    // A folder whose own cell file names the cell's key is sealed with that key or not at all (verify would
+    // refuse anything else).
     if (const InsideFile cf = read_inside(folder, "inputs/cell.toml"); cf.status == InsideStatus::ok) {
       std::string terr;
       const auto named = toml_string_value(cf.content, "records", "public_key", &terr);
       if (named && named->rfind("sha256:", 0) == 0 && (!req.key || req.key->fingerprint() != *named)) {
-        error = "refusing to seal " + folder + ": its cell file (inputs/cell.toml) names the key " + *named + ", and " +
-                (req.key ? "the signing key is " + req.key->fingerprint() : std::string("no signing key was given"));
+        error = "refusing to seal " + folder + ": its cell file (inputs/cell.toml) names the key " + *named +
+                ", and " +
+                (req.key ? "the signing key is " + req.key->fingerprint()
+                         : std::string("no signing key was given"));
         return false;
       }
     }
     const std::string utc = req.utc.empty() ? utc_now() : req.utc;
-    json rec = {{"seq", log.records()},
-                {"utc", utc},
-                {"type", "seal"},
-                {"prev", log.last_hash()},
-                {"format", kSealFormat},
-                {"chain_head", log.last_hash()},
-                {"cell", req.cell},
-                {"files", files},
-                {"result", result},
-                {"signer", req.key ? req.key->fingerprint() : std::string()},
+    json rec = {{"seq", log.records()},  {"utc", utc},
+                {"type", "seal"},        {"prev", log.last_hash()},
+                {"format", kSealFormat}, {"chain_head", log.last_hash()},
+                {"cell", req.cell},      {"files", files},
+                {"result", result},      {"signer", req.key ? req.key->fingerprint() : std::string()},
                 {"signature", ""}};
     rec = normalised(rec);
     if (req.key) {
@@ -523,11 +547,17 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
       return false;
     }
     if (info) {
-      *info = SealInfo{folder, rec["seq"].get<std::uint64_t>(), lines.front().sha256, rec["chain_head"].get<std::string>(),
-                       log.last_hash(), rec["signer"].get<std::string>(), files.size(), utc};
+      *info = SealInfo{folder,
+                       rec["seq"].get<std::uint64_t>(),
+                       lines.front().sha256,
+                       rec["chain_head"].get<std::string>(),
+                       log.last_hash(),
+                       rec["signer"].get<std::string>(),
+                       files.size(),
+                       utc};
     }
-    // Self-check: the folder as sealed must read back as sealed and intact (catches any drift between what was
-    // signed and what the line parses back to).
+    // Self-check: the folder as sealed must read back as sealed and intact (catches any drift between what
+    // was signed and what the line parses back to).
     const FolderVerdict after = verify_folder(folder);
     if (!after.intact() || !after.seal) {
       error = "sealed " + folder + ", but it does not verify afterwards: " + after.message;
@@ -540,7 +570,8 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
   }
 }
 
-bool approve_folder(const std::string& folder_in, const ApprovalRequest& req, ApprovalInfo* info, std::string& error) {
+bool approve_folder(const std::string& folder_in, const ApprovalRequest& req, ApprovalInfo* info,
+                    std::string& error) {
   try {
     if (!req.key) {
       error = "an approval must be signed with the reviewer's key";
@@ -589,7 +620,9 @@ bool approve_folder(const std::string& folder_in, const ApprovalRequest& req, Ap
       error = log.error();
       return false;
     }
-    if (info) *info = {rec["seq"].get<std::uint64_t>(), v.seal->seal_sha256, v.seal->chain_head, req.key->fingerprint()};
+    if (info)
+      *info = {rec["seq"].get<std::uint64_t>(), v.seal->seal_sha256, v.seal->chain_head,
+               req.key->fingerprint()};
     return true;
   } catch (const std::exception& e) {
     error = std::string("cannot approve the folder: ") + e.what();

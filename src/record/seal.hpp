@@ -1,6 +1,6 @@
-// Ed25519 keys (OpenSSL 3 EVP), the seal a finished session or dyno check ends with, and reviewers' approvals.
-// docs/records.md describes the formats; this header is the API contract. Nothing here throws across the API:
-// failures are `false` / `std::nullopt` with a sentence in `error`.
+// Ed25519 keys (OpenSSL 3 EVP), the seal a finished session or dyno check ends with, and reviewers'
+// approvals. docs/records.md describes the formats; this header is the API contract. Nothing here throws
+// across the API: failures are `false` / `std::nullopt` with a sentence in `error`.
 //
 // Keys
 //   A key pair is two PEM files: the private key (PKCS#8, unencrypted, mode 0600) and the public key
@@ -10,14 +10,16 @@
 //   being record::safe_name of the cell's or the reviewer's name.
 //
 // The seal
-//   The last record a finished folder gets, of type "seal", appended to events.jsonl after every other record:
+//   The last record a finished folder gets, of type "seal", appended to events.jsonl after every other
+//   record:
 //     {"seq", "utc", "type": "seal", "prev", "format": "loadtrim-seal-1", "chain_head", "cell",
 //      "files": [{"path", "sha256", "bytes"}, ...], "result", "signer", "signature"}
-//   chain_head == prev (the SHA-256 of the line before the seal); files: every regular file in the folder except
-//   events.jsonl and the derived files (derived_files()), sorted bytewise by folder-relative path; result: what
-//   the caller sealed (the session's summary, a check's result); signer: the key's fingerprint; signature: the
-//   Ed25519 signature, lower-case hex, over signed_message(record). An unsigned seal (no key configured) has
-//   signer "" and signature ""; verify never treats it as signed (its own outcome, exit code 7).
+//   chain_head == prev (the SHA-256 of the line before the seal); files: every regular file in the folder
+//   except events.jsonl and the derived files (derived_files()), sorted bytewise by folder-relative path;
+//   result: what the caller sealed (the session's summary, a check's result); signer: the key's fingerprint;
+//   signature: the Ed25519 signature, lower-case hex, over signed_message(record). An unsigned seal (no key
+//   configured) has signer "" and signature ""; verify never treats it as signed (its own outcome, exit code
+//   7).
 //
 // Approvals
 //   After the seal, only "approval" records may follow:
@@ -62,8 +64,8 @@ class PublicKey {
 
 class SigningKey {
  public:
-  // Loads a private key PEM. Refuses a file that is not a regular file, or that its group or others may read or
-  // write (as ssh does): a signing key that others can read no longer identifies the cell.
+  // Loads a private key PEM. Refuses a file that is not a regular file, or that its group or others may read
+  // or write (as ssh does): a signing key that others can read no longer identifies the cell.
   static std::optional<SigningKey> load(const std::string& path, std::string& error);
   // From the raw 32-byte secret (RFC 8032 §5.1.5), for test vectors.
   static std::optional<SigningKey> from_raw(std::string_view raw32, std::string& error);
@@ -84,8 +86,8 @@ struct KeyPairFiles {
 };
 // Creates a new Ed25519 key pair. The private key is written to a temporary file created with O_EXCL and mode
 // 0600 (never readable by others at any moment, whatever the umask), fsync'd, and linked to private_path with
-// link(2), which refuses an existing file; the public key likewise with mode 0644. Never overwrites a key: when
-// either file exists, nothing is written. On any failure nothing is left behind.
+// link(2), which refuses an existing file; the public key likewise with mode 0644. Never overwrites a key:
+// when either file exists, nothing is written. On any failure nothing is left behind.
 bool create_key_pair(const std::string& private_path, const std::string& public_path, KeyPairFiles* out,
                      std::string& error);
 
@@ -93,17 +95,17 @@ bool create_key_pair(const std::string& private_path, const std::string& public_
 std::string cell_key_stem(const std::string& cell_name);
 std::string reviewer_key_stem(const std::string& reviewer);
 
-// The signing key a cell file's [records] table names (docs/records.md): private_key (absolute, or relative to the
-// data root; "" = <data_root>/keys/cell-<name>.key.pem), which must match public_key (a "sha256:" fingerprint, or
-// a .pub.pem path, absolute or relative to the data root). nullopt with error when it cannot be loaded or does not
-// match: the session or check must then refuse to start.
+// The signing key a cell file's [records] table names (docs/records.md): private_key (absolute, or relative
+// to the data root; "" = <data_root>/keys/cell-<name>.key.pem), which must match public_key (a "sha256:"
+// fingerprint, or a .pub.pem path, absolute or relative to the data root). nullopt with error when it cannot
+// be loaded or does not match: the session or check must then refuse to start.
 std::optional<SigningKey> load_cell_signing_key(const std::string& data_root, const std::string& cell_name,
                                                 const std::string& public_key, const std::string& private_key,
                                                 std::string& error);
 
-// The canonical serialisation a seal's or an approval's signature covers: the record's "format" value, a '\n',
-// and the record without its "signature" member as compact JSON with keys in byte order and every non-ASCII
-// character escaped (\uXXXX). Empty when the record is not a JSON object.
+// The canonical serialisation a seal's or an approval's signature covers: the record's "format" value, a
+// '\n', and the record without its "signature" member as compact JSON with keys in byte order and every
+// non-ASCII character escaped (\uXXXX). Empty when the record is not a JSON object.
 std::string signed_message(const nlohmann::json& record);
 
 // Files at the top of a folder that are made from its records and may be rewritten at any time (loadtrim
@@ -113,10 +115,10 @@ const std::vector<std::string>& derived_files();
 bool is_derived_file(const std::string& rel);
 
 struct SealRequest {
-  std::string cell;                                     // the cell's name, as in its file
-  nlohmann::json result = nlohmann::json::object();     // the session's summary / the check's result
-  const SigningKey* key = nullptr;                      // nullptr: an unsigned seal
-  std::string utc;                                      // empty: now
+  std::string cell;                                  // the cell's name, as in its file
+  nlohmann::json result = nlohmann::json::object();  // the session's summary / the check's result
+  const SigningKey* key = nullptr;                   // nullptr: an unsigned seal
+  std::string utc;                                   // empty: now
 };
 
 struct SealInfo {
@@ -133,25 +135,26 @@ struct SealInfo {
 // Seals a finished folder: checks it first (chain, every recorded file hash, no unsafe path, no link, no
 // special file, no seal yet), hashes every file, signs, and appends the seal record durably. Call it once,
 // after the last record and the last write to any file of the folder (operator.log included); afterwards only
-// approvals and derived files may be added. Refused, with the folder unchanged, when the folder is not intact,
-// is already sealed, its summary.json (else result.json) disagrees with request.result, its own cell file
-// (inputs/cell.toml, [records] public_key) names a key other than request.key, or the record could not be made
-// durable.
+// approvals and derived files may be added. Refused, with the folder unchanged, when the folder is not
+// intact, is already sealed, its summary.json (else result.json) disagrees with request.result, its own cell
+// file (inputs/cell.toml, [records] public_key) names a key other than request.key, or the record could not
+// be made durable.
 bool seal_folder(const std::string& folder, const SealRequest& request, SealInfo* info, std::string& error);
 
 struct ApprovalRequest {
-  std::string reviewer;   // the reviewer's name
-  std::string statement;  // what the reviewer states (free text)
+  std::string reviewer;             // the reviewer's name
+  std::string statement;            // what the reviewer states (free text)
   const SigningKey* key = nullptr;  // the reviewer's own key; required
-  std::string utc;        // empty: now
+  std::string utc;                  // empty: now
 };
 struct ApprovalInfo {
   std::uint64_t seq = 0;
   std::string seal_sha256, chain_head, signer;
 };
 // Appends a signed approval of the folder's seal. The folder must be sealed and intact (chain, files, seal
-// coverage); callers should also have it verified with the cell's key (verify_folder) before asking a reviewer to
-// sign, as `loadtrim approve` does.
-bool approve_folder(const std::string& folder, const ApprovalRequest& request, ApprovalInfo* info, std::string& error);
+// coverage); callers should also have it verified with the cell's key (verify_folder) before asking a
+// reviewer to sign, as `loadtrim approve` does.
+bool approve_folder(const std::string& folder, const ApprovalRequest& request, ApprovalInfo* info,
+                    std::string& error);
 
 }  // namespace loadtrim::record

@@ -17,39 +17,66 @@ using nlohmann::json;
 
 const char* to_string(Outcome o) {
   switch (o) {
-    case Outcome::verified: return "verified";
-    case Outcome::broken: return "broken";
-    case Outcome::not_finished: return "not finished";
-    case Outcome::unsigned_seal: return "sealed, not signed";
-    case Outcome::key_unknown: return "signed, key unknown";
+    case Outcome::verified:
+      return "verified";
+    case Outcome::broken:
+      return "broken";
+    case Outcome::not_finished:
+      return "not finished";
+    case Outcome::unsigned_seal:
+      return "sealed, not signed";
+    case Outcome::key_unknown:
+      return "signed, key unknown";
   }
   return "unknown";
 }
 
 int verify_exit_code(Outcome o) {
   switch (o) {
-    case Outcome::verified: return kVerifyExitVerified;
-    case Outcome::broken: return kVerifyExitBroken;
-    case Outcome::not_finished: return kVerifyExitNotFinished;
+    case Outcome::verified:
+      return kVerifyExitVerified;
+    case Outcome::broken:
+      return kVerifyExitBroken;
+    case Outcome::not_finished:
+      return kVerifyExitNotFinished;
     case Outcome::unsigned_seal:
-    case Outcome::key_unknown: return kVerifyExitUnsigned;
+    case Outcome::key_unknown:
+      return kVerifyExitUnsigned;
   }
   return kVerifyExitBroken;
 }
 
 json FolderVerdict::to_json() const {
-  json j = {{"outcome", record::to_string(outcome)}, {"exit_code", verify_exit_code(outcome)}, {"message", message},
-            {"records", records}, {"recorded_files", recorded_files}, {"cell", cell}, {"origin", origin}, {"notes", notes}};
+  json j = {{"outcome", record::to_string(outcome)},
+            {"exit_code", verify_exit_code(outcome)},
+            {"message", message},
+            {"records", records},
+            {"recorded_files", recorded_files},
+            {"cell", cell},
+            {"origin", origin},
+            {"notes", notes}};
   if (record >= 0) j["record"] = record;
   if (!file.empty()) j["file"] = file;
   if (seal)
-    j["seal"] = {{"seq", seal->seq}, {"utc", seal->utc}, {"cell", seal->cell}, {"chain_head", seal->chain_head},
-                 {"seal_sha256", seal->seal_sha256}, {"signer", seal->signer}, {"signed", seal->is_signed},
-                 {"signature_checked", seal->signature_checked}, {"key_source", seal->key_source}, {"files", seal->files}};
+    j["seal"] = {{"seq", seal->seq},
+                 {"utc", seal->utc},
+                 {"cell", seal->cell},
+                 {"chain_head", seal->chain_head},
+                 {"seal_sha256", seal->seal_sha256},
+                 {"signer", seal->signer},
+                 {"signed", seal->is_signed},
+                 {"signature_checked", seal->signature_checked},
+                 {"key_source", seal->key_source},
+                 {"files", seal->files}};
   json a = json::array();
   for (const auto& ap : approvals)
-    a.push_back({{"seq", ap.seq}, {"utc", ap.utc}, {"reviewer", ap.reviewer}, {"statement", ap.statement}, {"signer", ap.signer},
-                 {"signature_checked", ap.signature_checked}, {"key_source", ap.key_source}});
+    a.push_back({{"seq", ap.seq},
+                 {"utc", ap.utc},
+                 {"reviewer", ap.reviewer},
+                 {"statement", ap.statement},
+                 {"signer", ap.signer},
+                 {"signature_checked", ap.signature_checked},
+                 {"key_source", ap.key_source}});
   j["approvals"] = a;
   return j;
 }
@@ -66,7 +93,8 @@ bool is_hex64(const json& j) {
 }
 
 // Exactly these members, each a string unless listed in `other`.
-std::string shape_problem(const json& r, const std::set<std::string>& members, const std::set<std::string>& not_strings) {
+std::string shape_problem(const json& r, const std::set<std::string>& members,
+                          const std::set<std::string>& not_strings) {
   for (const auto& m : members) {
     if (!r.contains(m)) return "lacks \"" + m + "\"";
     if (!not_strings.count(m) && !r[m].is_string()) return "has a \"" + m + "\" that is not a string";
@@ -99,8 +127,8 @@ struct KeyLookup {
   std::string source, looked_at;
 };
 
-KeyLookup find_key(const std::vector<PublicKey>& given, const std::string& keys_dir, const std::string& stem, const std::string& signer,
-                   std::vector<std::string>& notes) {
+KeyLookup find_key(const std::vector<PublicKey>& given, const std::string& keys_dir, const std::string& stem,
+                   const std::string& signer, std::vector<std::string>& notes) {
   KeyLookup k;
   for (const auto& g : given)
     if (g.fingerprint() == signer) {
@@ -134,8 +162,8 @@ KeyLookup find_key(const std::vector<PublicKey>& given, const std::string& keys_
   return k;
 }
 
-CellLogEntry find_in_cell_log(const std::string& checks_root, const std::string& cell, const std::string& origin,
-                              std::vector<std::string>& notes) {
+CellLogEntry find_in_cell_log(const std::string& checks_root, const std::string& cell,
+                              const std::string& origin, std::vector<std::string>& notes) {
   CellLogEntry e;
   if (checks_root.empty() || cell.empty()) return e;
   const std::string path = (fs::path(checks_root) / safe_name(cell) / "cell-log.jsonl").string();
@@ -177,7 +205,9 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
     // 1. The log and its chain.
     const InsideFile ev = read_inside(folder, "events.jsonl");
     if (ev.status != InsideStatus::ok)
-      return broken(ev.status == InsideStatus::missing ? "events.jsonl is missing (" + ev.error + ")" : ev.error, -1, "events.jsonl");
+      return broken(
+          ev.status == InsideStatus::missing ? "events.jsonl is missing (" + ev.error + ")" : ev.error, -1,
+          "events.jsonl");
     bool torn = false;
     std::vector<LogLine> lines;
     const VerifyResult chain = parse_log(ev.content, &lines, &torn);
@@ -186,7 +216,8 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
     if (!chain.ok) return broken(chain.message, chain.first_bad_record, "events.jsonl");
     if (lines.empty()) return broken("events.jsonl holds no record", -1, "events.jsonl");
     v.origin = lines.front().sha256;
-    if (lines.front().record.contains("cell") && lines.front().record["cell"].is_string()) v.cell = lines.front().record["cell"];
+    if (lines.front().record.contains("cell") && lines.front().record["cell"].is_string())
+      v.cell = lines.front().record["cell"];
 
     // 2. Every file any record holds a hash of.
     for (const auto& l : lines) {
@@ -197,17 +228,22 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
       if (!r["files"].is_array()) return broken(at + ": its \"files\" member is not a list", seq);
       std::size_t k = 0;
       for (const auto& f : r["files"]) {
-        if (!f.is_object() || !f.contains("path") || !f["path"].is_string() || !f.contains("sha256") || !is_hex64(f["sha256"]))
+        if (!f.is_object() || !f.contains("path") || !f["path"].is_string() || !f.contains("sha256") ||
+            !is_hex64(f["sha256"]))
           return broken(at + ": files entry " + std::to_string(k) + " lacks a path or a SHA-256", seq);
         const std::string rel = f["path"];
         std::string why;
         if (!is_safe_relative_path(rel, &why))
-          return broken(at + " names \"" + rel + "\", which is not a path inside the folder (" + why + "); it was not opened", seq, rel);
+          return broken(at + " names \"" + rel + "\", which is not a path inside the folder (" + why +
+                            "); it was not opened",
+                        seq, rel);
         const InsideHash h = hash_inside(folder, rel);
-        if (h.status == InsideStatus::missing) return broken(rel + " recorded in " + at + " is missing", seq, rel);
+        if (h.status == InsideStatus::missing)
+          return broken(rel + " recorded in " + at + " is missing", seq, rel);
         if (h.status != InsideStatus::ok) return broken(h.error + " (recorded in " + at + ")", seq, rel);
         if (h.sha256 != f["sha256"].get<std::string>())
-          return broken(rel + " does not match the SHA-256 recorded in " + at + ": the file was altered", seq, rel);
+          return broken(rel + " does not match the SHA-256 recorded in " + at + ": the file was altered", seq,
+                        rel);
         ++v.recorded_files;
         ++k;
       }
@@ -219,13 +255,17 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
       const std::string type = lines[i].record.value("type", "");
       const auto seq = static_cast<std::int64_t>(i);
       if (type == "seal") {
-        if (seal_at >= 0) return broken("record " + std::to_string(i) + " is a second seal (the first is record " + std::to_string(seal_at) + ")", seq);
+        if (seal_at >= 0)
+          return broken("record " + std::to_string(i) + " is a second seal (the first is record " +
+                            std::to_string(seal_at) + ")",
+                        seq);
         seal_at = seq;
       } else if (type == "approval" && seal_at < 0) {
         return broken("record " + std::to_string(i) + " is an approval, but no seal precedes it", seq);
       } else if (type != "approval" && seal_at >= 0) {
-        return broken("record " + std::to_string(i) + " (" + (type.empty() ? "no type" : type) + ") follows the seal (record " +
-                          std::to_string(seal_at) + "): nothing but approvals may be added to a sealed folder",
+        return broken("record " + std::to_string(i) + " (" + (type.empty() ? "no type" : type) +
+                          ") follows the seal (record " + std::to_string(seal_at) +
+                          "): nothing but approvals may be added to a sealed folder",
                       seq);
       }
     }
@@ -233,15 +273,15 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
       const auto& s = lines[static_cast<std::size_t>(seal_at)].record;
       if (s.contains("cell") && s["cell"].is_string()) v.cell = s["cell"];
     }
-    const std::string summary_counts = std::to_string(v.records) + " records, chain intact, " + std::to_string(v.recorded_files) +
-                                       " recorded files match";
+    const std::string summary_counts = std::to_string(v.records) + " records, chain intact, " +
+                                       std::to_string(v.recorded_files) + " recorded files match";
     const CellLogEntry logged = find_in_cell_log(opt.checks_root, v.cell, v.origin, v.notes);
 
     if (seal_at < 0) {
       if (logged.found)
-        return broken("the folder was cut back: the cell log (record " + std::to_string(logged.seq) + ", " + logged.utc +
-                          ") records it sealed at record " + std::to_string(logged.seal_seq) + ", but it now ends at record " +
-                          std::to_string(v.records - 1) + " with no seal",
+        return broken("the folder was cut back: the cell log (record " + std::to_string(logged.seq) + ", " +
+                          logged.utc + ") records it sealed at record " + std::to_string(logged.seal_seq) +
+                          ", but it now ends at record " + std::to_string(v.records - 1) + " with no seal",
                       static_cast<std::int64_t>(v.records - 1), "events.jsonl");
       v.outcome = Outcome::not_finished;
       v.message = summary_counts + "; no seal: the session or check did not finish (or is still running)";
@@ -255,13 +295,18 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
     const LogLine& sl = lines[static_cast<std::size_t>(seal_at)];
     const json& s = sl.record;
     const std::string sat = "the seal (record " + std::to_string(seal_at) + ")";
-    if (const std::string p = shape_problem(s, {"seq", "utc", "type", "prev", "format", "chain_head", "cell", "files", "result", "signer", "signature"},
+    if (const std::string p = shape_problem(s,
+                                            {"seq", "utc", "type", "prev", "format", "chain_head", "cell",
+                                             "files", "result", "signer", "signature"},
                                             {"seq", "files", "result"});
         !p.empty())
       return broken(sat + " " + p, seal_at);
-    if (s["format"] != kSealFormat) return broken(sat + " has an unknown format \"" + s["format"].get<std::string>() + "\"", seal_at);
-    if (!is_canonical(sl)) return broken(sat + " is not in the form loadtrim writes: its line was edited", seal_at);
-    if (s["chain_head"] != s["prev"]) return broken(sat + " names a chain head that is not the record before it", seal_at);
+    if (s["format"] != kSealFormat)
+      return broken(sat + " has an unknown format \"" + s["format"].get<std::string>() + "\"", seal_at);
+    if (!is_canonical(sl))
+      return broken(sat + " is not in the form loadtrim writes: its line was edited", seal_at);
+    if (s["chain_head"] != s["prev"])
+      return broken(sat + " names a chain head that is not the record before it", seal_at);
     if (!s["result"].is_object()) return broken(sat + " has a result that is not an object", seal_at);
     SealView sv;
     sv.seq = static_cast<std::uint64_t>(seal_at);
@@ -277,8 +322,10 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
       if (!f.is_object() || f.size() != 3 || !f.contains("bytes") || !f["bytes"].is_number_unsigned())
         return broken(sat + " has a malformed files entry", seal_at);
       const std::string rel = f["path"];
-      if (!last.empty() && !(last < rel)) return broken(sat + " lists its files out of order or twice (" + rel + ")", seal_at, rel);
-      if (rel == "events.jsonl" || is_derived_file(rel)) return broken(sat + " lists " + rel + ", which a seal never covers", seal_at, rel);
+      if (!last.empty() && !(last < rel))
+        return broken(sat + " lists its files out of order or twice (" + rel + ")", seal_at, rel);
+      if (rel == "events.jsonl" || is_derived_file(rel))
+        return broken(sat + " lists " + rel + ", which a seal never covers", seal_at, rel);
       last = rel;
       covered.insert(rel);
     }
@@ -288,9 +335,11 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
     for (const auto& rel : listing.files) {
       if (rel == "events.jsonl" || is_derived_file(rel)) continue;
       if (!covered.count(rel))
-        return broken(rel + " is not covered by " + sat + ": it was added after the folder was sealed", seal_at, rel);
+        return broken(rel + " is not covered by " + sat + ": it was added after the folder was sealed",
+                      seal_at, rel);
     }
-    // Every covered file was hashed in step 2 (the seal's list is a "files" list), so a missing one was named there.
+    // Every covered file was hashed in step 2 (the seal's list is a "files" list), so a missing one was named
+    // there.
 
     // The summary on disk agrees with what was sealed.
     if (!covered.count("summary.json") && !covered.count("result.json"))
@@ -301,11 +350,13 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
 
     // The cell log knows this very seal.
     if (logged.found && logged.seal != sv.seal_sha256)
-      return broken(sat + " is not the seal the cell log recorded for this folder (cell log record " + std::to_string(logged.seq) + ", " +
-                        logged.utc + ", seal at record " + std::to_string(logged.seal_seq) +
+      return broken(sat + " is not the seal the cell log recorded for this folder (cell log record " +
+                        std::to_string(logged.seq) + ", " + logged.utc + ", seal at record " +
+                        std::to_string(logged.seal_seq) +
                         "): the folder was cut back and sealed again, or its seal replaced",
                     seal_at, "events.jsonl");
-    if (logged.found) v.notes.push_back("the cell log (record " + std::to_string(logged.seq) + ") records this seal");
+    if (logged.found)
+      v.notes.push_back("the cell log (record " + std::to_string(logged.seq) + ") records this seal");
 
     // 5. The seal's signature.
     const std::string sig = s["signature"];
@@ -316,14 +367,18 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
     if (covered.count("inputs/cell.toml")) {
       const InsideFile cf = read_inside(folder, "inputs/cell.toml");
       std::string terr;
-      const auto named = cf.status == InsideStatus::ok ? toml_string_value(cf.content, "records", "public_key", &terr) : std::nullopt;
+      const auto named = cf.status == InsideStatus::ok
+                             ? toml_string_value(cf.content, "records", "public_key", &terr)
+                             : std::nullopt;
       if (named && named->rfind("sha256:", 0) == 0) {
         if (!sv.is_signed)
-          return broken(sat + " is unsigned, yet the session's cell file (inputs/cell.toml) names the key " + *named +
-                            ": a session with a key always signs, so this seal was made without the cell's key",
-                        seal_at, "inputs/cell.toml");
+          return broken(
+              sat + " is unsigned, yet the session's cell file (inputs/cell.toml) names the key " + *named +
+                  ": a session with a key always signs, so this seal was made without the cell's key",
+              seal_at, "inputs/cell.toml");
         if (*named != sv.signer)
-          return broken(sat + " is signed by " + sv.signer + ", but the session's cell file (inputs/cell.toml) names the key " + *named,
+          return broken(sat + " is signed by " + sv.signer +
+                            ", but the session's cell file (inputs/cell.toml) names the key " + *named,
                         seal_at, "inputs/cell.toml");
       }
     }
@@ -333,19 +388,22 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
       KeyLookup k = find_key(opt.cell_keys, opt.keys_dir, cell_key_stem(sv.cell), sv.signer, v.notes);
       if (k.key) {
         if (!k.key->verify(signed_message(s), sig))
-          return broken("the signature of " + sat + " does not verify with the cell's key " + k.key->fingerprint() +
+          return broken("the signature of " + sat + " does not verify with the cell's key " +
+                            k.key->fingerprint() +
                             ": the seal (its chain head, file list or result) was changed",
                         seal_at);
         sv.signature_checked = true;
         sv.key_source = k.source;
       } else if (!k.known_other.empty()) {
-        return broken(sat + " is signed by " + sv.signer + ", which is not the cell's key " + k.known_other + " (" + k.source +
-                          "): it was not made with the cell's private key",
+        return broken(sat + " is signed by " + sv.signer + ", which is not the cell's key " + k.known_other +
+                          " (" + k.source + "): it was not made with the cell's private key",
                       seal_at);
       } else {
         unknown = true;
-        unknown_why = sat + " is signed by " + sv.signer + ", but no public key of cell \"" + sv.cell + "\" is known" +
-                      (k.looked_at.empty() ? std::string() : " (looked for " + k.looked_at + ")") + "; give it with --public-key";
+        unknown_why = sat + " is signed by " + sv.signer + ", but no public key of cell \"" + sv.cell +
+                      "\" is known" +
+                      (k.looked_at.empty() ? std::string() : " (looked for " + k.looked_at + ")") +
+                      "; give it with --public-key";
       }
     }
     v.seal = sv;
@@ -355,52 +413,69 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
       const json& a = lines[i].record;
       const auto seq = static_cast<std::int64_t>(i);
       const std::string aat = "the approval in record " + std::to_string(i);
-      if (const std::string p = shape_problem(a, {"seq", "utc", "type", "prev", "format", "reviewer", "statement", "seal", "chain_head", "signer", "signature"},
+      if (const std::string p = shape_problem(a,
+                                              {"seq", "utc", "type", "prev", "format", "reviewer",
+                                               "statement", "seal", "chain_head", "signer", "signature"},
                                               {"seq"});
           !p.empty())
         return broken(aat + " " + p, seq);
       if (a["format"] != kApprovalFormat) return broken(aat + " has an unknown format", seq);
-      if (!is_canonical(lines[i])) return broken(aat + " is not in the form loadtrim writes: its line was edited", seq);
+      if (!is_canonical(lines[i]))
+        return broken(aat + " is not in the form loadtrim writes: its line was edited", seq);
       if (a["seal"] != sv.seal_sha256 || a["chain_head"] != sv.chain_head)
-        return broken(aat + " approves another seal, not this folder's (record " + std::to_string(seal_at) + ")", seq);
+        return broken(
+            aat + " approves another seal, not this folder's (record " + std::to_string(seal_at) + ")", seq);
       ApprovalView av;
       av.seq = i;
       av.utc = a["utc"];
       av.reviewer = a["reviewer"];
       av.statement = a["statement"];
       av.signer = a["signer"];
-      KeyLookup k = find_key(opt.reviewer_keys, opt.keys_dir, reviewer_key_stem(av.reviewer), av.signer, v.notes);
+      KeyLookup k =
+          find_key(opt.reviewer_keys, opt.keys_dir, reviewer_key_stem(av.reviewer), av.signer, v.notes);
       if (k.key) {
         if (!k.key->verify(signed_message(a), a["signature"].get<std::string>()))
-          return broken("the signature of " + aat + " (" + av.reviewer + ") does not verify with the reviewer's key " + k.key->fingerprint(), seq);
+          return broken("the signature of " + aat + " (" + av.reviewer +
+                            ") does not verify with the reviewer's key " + k.key->fingerprint(),
+                        seq);
         av.signature_checked = true;
         av.key_source = k.source;
       } else if (!k.known_other.empty()) {
-        return broken(aat + " is signed by " + av.signer + ", which is not " + av.reviewer + "'s key " + k.known_other + " (" + k.source + ")", seq);
+        return broken(aat + " is signed by " + av.signer + ", which is not " + av.reviewer + "'s key " +
+                          k.known_other + " (" + k.source + ")",
+                      seq);
       } else if (!unknown) {
         unknown = true;
-        unknown_why = aat + " (" + av.reviewer + ") is signed by " + av.signer + ", but no public key of that reviewer is known" +
+        unknown_why = aat + " (" + av.reviewer + ") is signed by " + av.signer +
+                      ", but no public key of that reviewer is known" +
                       (k.looked_at.empty() ? std::string() : " (looked for " + k.looked_at + ")");
       }
       v.approvals.push_back(av);
     }
     v.seal = sv;
 
-    const std::string sealed = summary_counts + "; sealed at record " + std::to_string(seal_at) + " covering " + std::to_string(sv.files) + " files";
+    const std::string sealed = summary_counts + "; sealed at record " + std::to_string(seal_at) +
+                               " covering " + std::to_string(sv.files) + " files";
     if (!sv.is_signed) {
       v.outcome = Outcome::unsigned_seal;
-      v.message = sealed + ", but the seal is not signed (no cell key was configured): anyone able to write the folder could have made it";
+      v.message = sealed +
+                  ", but the seal is not signed (no cell key was configured): anyone able to write the "
+                  "folder could have made it";
       std::error_code ec;
-      const std::string cell_key = opt.keys_dir.empty() ? "" : (fs::path(opt.keys_dir) / (cell_key_stem(sv.cell) + ".pub.pem")).string();
+      const std::string cell_key =
+          opt.keys_dir.empty() ? ""
+                               : (fs::path(opt.keys_dir) / (cell_key_stem(sv.cell) + ".pub.pem")).string();
       if (!cell_key.empty() && fs::exists(cell_key, ec))
-        v.message += "; the cell has a key now (" + cell_key + "): a folder sealed after it was made would be signed";
+        v.message +=
+            "; the cell has a key now (" + cell_key + "): a folder sealed after it was made would be signed";
     } else if (unknown) {
       v.outcome = Outcome::key_unknown;
       v.message = sealed + "; " + unknown_why;
     } else {
       v.outcome = Outcome::verified;
       v.message = sealed + ", signed by the cell's key " + sv.signer;
-      if (!v.approvals.empty()) v.message += "; " + std::to_string(v.approvals.size()) + " approval(s) verified";
+      if (!v.approvals.empty())
+        v.message += "; " + std::to_string(v.approvals.size()) + " approval(s) verified";
     }
     return v;
   } catch (const std::exception& e) {

@@ -1,20 +1,24 @@
-// Verifying a record folder (a session's or a dyno check's): what `loadtrim verify` runs, what the report shows,
-// and what resume and approve rely on. docs/records.md explains each outcome.
+// Verifying a record folder (a session's or a dyno check's): what `loadtrim verify` runs, what the report
+// shows, and what resume and approve rely on. docs/records.md explains each outcome.
 //
 // In order, stopping at the first finding that makes the folder broken:
-//   1. events.jsonl read without leaving the folder (record/inside.hpp); the hash chain and seq of every line;
+//   1. events.jsonl read without leaving the folder (record/inside.hpp); the hash chain and seq of every
+//   line;
 //      a partial last line is a note in an unsealed folder and a break in a sealed one.
-//   2. Every "files" entry of every record: a safe relative path (never opened otherwise), present, and with the
+//   2. Every "files" entry of every record: a safe relative path (never opened otherwise), present, and with
+//   the
 //      SHA-256 the record holds.
 //   3. At most one seal; after it only approvals. No seal: the cell log (when given) must not know a seal for
 //      this folder (else it was cut back); outcome not_finished.
 //   4. The seal: exactly its fields, its line in canonical form, chain_head == prev; its files list sorted,
 //      unique and safe; every file present in the folder covered, none missing, none extra except the derived
-//      files; each hash matching; the folder's summary.json (else result.json) agreeing with every member of the
-//      sealed result; the cell log's entry for this folder (when given) naming this very seal.
-//   5. The seal's signature: unsigned → outcome unsigned_seal; signed by a key given in the options or found as
-//      <keys_dir>/cell-<name>.pub.pem → the signature must verify (else broken); signed by another key when the
-//      cell's key is known → broken (not made with the cell's key); no key known for the cell → key_unknown.
+//      files; each hash matching; the folder's summary.json (else result.json) agreeing with every member of
+//      the sealed result; the cell log's entry for this folder (when given) naming this very seal.
+//   5. The seal's signature: unsigned → outcome unsigned_seal; signed by a key given in the options or found
+//   as
+//      <keys_dir>/cell-<name>.pub.pem → the signature must verify (else broken); signed by another key when
+//      the cell's key is known → broken (not made with the cell's key); no key known for the cell →
+//      key_unknown.
 //   6. Each approval: its fields, canonical line, approving this folder's seal, signed by the reviewer's key
 //      (given, or <keys_dir>/reviewer-<name>.pub.pem); unknown reviewer key → key_unknown.
 // Never opens a path the folder names outside the folder, and never follows a link inside it. Never throws.
@@ -34,7 +38,8 @@ enum class Outcome {
   verified,       // chain, files, seal coverage and signatures all check against trusted keys
   broken,         // tampered or damaged: the record or file is named
   not_finished,   // intact so far, but no seal: the session or check did not finish (or is still running)
-  unsigned_seal,  // sealed without a signature: intact as far as anyone can tell, but anyone could have sealed it
+  unsigned_seal,  // sealed without a signature: intact as far as anyone can tell, but anyone could have
+                  // sealed it
   key_unknown     // signed, but no trusted key for the signer (cell or reviewer) was available to check it
 };
 const char* to_string(Outcome o);
@@ -50,8 +55,8 @@ int verify_exit_code(Outcome o);
 struct VerifyOptions {
   std::vector<PublicKey> cell_keys;      // trusted for seals, whatever the cell (e.g. --public-key)
   std::vector<PublicKey> reviewer_keys;  // trusted for approvals, whatever the reviewer
-  std::string keys_dir;    // a data root's keys/: cell-<name>.pub.pem, reviewer-<name>.pub.pem ("" = none)
-  std::string checks_root; // a data root's checks/: <cell>/cell-log.jsonl is consulted ("" = not consulted)
+  std::string keys_dir;     // a data root's keys/: cell-<name>.pub.pem, reviewer-<name>.pub.pem ("" = none)
+  std::string checks_root;  // a data root's checks/: <cell>/cell-log.jsonl is consulted ("" = not consulted)
 };
 
 struct SealView {
@@ -78,7 +83,7 @@ struct FolderVerdict {
   std::string file;           // the file named by the finding, "" when none
   std::uint64_t records = 0;  // records read (up to the first bad one)
   std::size_t recorded_files = 0;
-  std::string cell, origin;   // the cell's name (seal, else record 0) and the hash of record 0's line
+  std::string cell, origin;  // the cell's name (seal, else record 0) and the hash of record 0's line
   std::optional<SealView> seal;
   std::vector<ApprovalView> approvals;
   std::vector<std::string> notes;
@@ -90,9 +95,10 @@ struct FolderVerdict {
 
 FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& options = {});
 
-// Whether a result to be sealed agrees with the folder's summary: summary.json, else result.json, when present,
-// must hold every member of `result` with an equal value. "" when it agrees (or there is no summary); else a
-// sentence, with *file set to the summary's name.
-std::string result_disagreement(const std::string& folder, const nlohmann::json& result, std::string* file = nullptr);
+// Whether a result to be sealed agrees with the folder's summary: summary.json, else result.json, when
+// present, must hold every member of `result` with an equal value. "" when it agrees (or there is no
+// summary); else a sentence, with *file set to the summary's name.
+std::string result_disagreement(const std::string& folder, const nlohmann::json& result,
+                                std::string* file = nullptr);
 
 }  // namespace loadtrim::record

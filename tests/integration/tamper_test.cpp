@@ -1,11 +1,11 @@
-// Tampering with a sealed session folder (issue 14, item 6, and more), one table row per tamper: each is applied to
-// a fresh copy of a folder made by `loadtrim run` against the simulated controller, sealed with the cell's key
-// (checks::seal_and_log, as a finished session does) and approved by a reviewer (`loadtrim approve`); then
-// `loadtrim verify` must give the exit code docs/records.md documents and name the record or file. Paths a folder
-// names outside itself must be refused without being opened: inotify (IN_OPEN | IN_ACCESS) watches the outside
-// file, and a FIFO, whose blocking open would hang, stands in for a read that cannot go unnoticed.
-// Also: the report names a record that lacks a member (exit 5, never 70) and removes its stale report.html;
-// `loadtrim keys create` makes the key files with the documented modes.
+// Tampering with a sealed session folder (issue 14, item 6, and more), one table row per tamper: each is
+// applied to a fresh copy of a folder made by `loadtrim run` against the simulated controller, sealed with
+// the cell's key (checks::seal_and_log, as a finished session does) and approved by a reviewer (`loadtrim
+// approve`); then `loadtrim verify` must give the exit code docs/records.md documents and name the record or
+// file. Paths a folder names outside itself must be refused without being opened: inotify (IN_OPEN |
+// IN_ACCESS) watches the outside file, and a FIFO, whose blocking open would hang, stands in for a read that
+// cannot go unnoticed. Also: the report names a record that lacks a member (exit 5, never 70) and removes its
+// stale report.html; `loadtrim keys create` makes the key files with the documented modes.
 #include <fcntl.h>
 #include <gtest/gtest.h>
 #include <sys/inotify.h>
@@ -17,7 +17,6 @@
 #include <fstream>
 #include <functional>
 #include <iostream>
-#include <regex>
 
 #include "checks/cell_history.hpp"
 #include "process/child_process.hpp"
@@ -46,7 +45,9 @@ std::string temp_dir(const std::string& tag) {
   return t;
 }
 
-void write(const std::string& path, const std::string& text) { std::ofstream(path, std::ios::binary) << text; }
+void write(const std::string& path, const std::string& text) {
+  std::ofstream(path, std::ios::binary) << text;
+}
 std::string slurp(const std::string& path) {
   std::ifstream in(path, std::ios::binary);
   return std::string(std::istreambuf_iterator<char>(in), {});
@@ -61,7 +62,9 @@ struct Log {
     for (std::string l; std::getline(in, l);) lines.push_back(l);
   }
   json at(std::size_t i) const { return json::parse(lines.at(i)); }
-  void set(std::size_t i, const json& j) { lines.at(i) = j.dump(-1, ' ', false, json::error_handler_t::replace); }
+  void set(std::size_t i, const json& j) {
+    lines.at(i) = j.dump(-1, ' ', false, json::error_handler_t::replace);
+  }
   void append(json j) {
     j["seq"] = lines.size();
     j["prev"] = lines.empty() ? std::string(64, '0') : record::sha256_hex(lines.back());
@@ -83,7 +86,8 @@ struct Log {
   }
   void save(bool final_newline = true) const {
     std::ofstream o(path, std::ios::binary | std::ios::trunc);
-    for (std::size_t i = 0; i < lines.size(); ++i) o << lines[i] << (i + 1 < lines.size() || final_newline ? "\n" : "");
+    for (std::size_t i = 0; i < lines.size(); ++i)
+      o << lines[i] << (i + 1 < lines.size() || final_newline ? "\n" : "");
   }
 };
 
@@ -124,11 +128,16 @@ std::string copy_of(const std::string& base, const std::string& name) {
   return row + "/folder";
 }
 
-json summary_of(const std::string& folder) { return json::parse(slurp(folder + "/summary.json")); }
+json summary_of(const std::string& folder) {
+  return json::parse(slurp(folder + "/summary.json"));
+}
 
+// The "fingerprint: sha256:<64 hex>" line of `loadtrim keys create`.
 std::string fingerprint_from(const std::string& out) {
-  std::smatch m;
-  return std::regex_search(out, m, std::regex("fingerprint: (sha256:[0-9a-f]{64})")) ? m[1].str() : "";
+  const auto at = out.find("fingerprint: sha256:");
+  if (at == std::string::npos) return "";
+  const std::string fp = out.substr(at + 13, 7 + 64);
+  return fp.size() == 71 && fp.find_first_not_of("0123456789abcdef", 7) == std::string::npos ? fp : "";
 }
 
 }  // namespace
@@ -139,27 +148,37 @@ class Tamper : public ::testing::Test {
     g = new World;
     g->dir = temp_dir("tamper");
     g->root = g->dir + "/lab";
-    // Every loadtrim this test starts uses this data root (the tool reads LOADTRIM_DATA_DIR when --data-dir is not given).
+    // Every loadtrim this test starts uses this data root (the tool reads LOADTRIM_DATA_DIR when --data-dir
+    // is not given).
     ::setenv("LOADTRIM_DATA_DIR", g->root.c_str(), 1);
     std::string out, err;
     ASSERT_EQ(run_command({kExe, "keys", "create", "--cell", kCell}, &out, &err), 0) << out << err;
     g->cell_fp = fingerprint_from(out);
     ASSERT_FALSE(g->cell_fp.empty()) << out;
-    ASSERT_EQ(run_command({kExe, "keys", "create", "--reviewer", "Auditor One"}, &out, &err), 0) << out << err;
+    ASSERT_EQ(run_command({kExe, "keys", "create", "--reviewer", "Auditor One"}, &out, &err), 0)
+        << out << err;
     g->reviewer_fp = fingerprint_from(out);
 
-    // A real session folder: loadtrim run against the simulated controller, the cell file naming the cell's key.
+    // A real session folder: loadtrim run against the simulated controller, the cell file naming the cell's
+    // key.
     SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
     const std::string cell = g->dir + "/cell.toml";
-    write(cell, "name = \"" + kCell + "\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport = " + std::to_string(sim.port()) +
-                    "\nsample_rate_hz = 50.0\nmax_time_scale = 10000.0\n[timeouts]\nconnect_ms = 3000\nreply_ms = 1000\nsample_gap_ms = 1000\n"
-                    "heartbeat_interval_ms = 100\n[reconnect]\nattempts = 3\ndelay_ms = 500\n[limits]\nmax_speed_kmh = 160.0\n"
-                    "max_force_n = 8000.0\nmax_motoring_s = 7200.0\n[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\n"
-                    "axles = \"single-axle\"\n[records]\npublic_key = \"" + g->cell_fp + "\"\n");
-    const int rc = run_command({kExe, "run", "--override-checks", "tamper test against the simulator", "--cell", cell, "--target",
-                                kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", g->dir + "/sessions", "--checks", g->root + "/checks",
-                                "--unattended", "--quiet", "--first-setting", "standard"},
-                               &out, &err);
+    write(cell, "name = \"" + kCell +
+                    "\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport = " +
+                    std::to_string(sim.port()) +
+                    "\nsample_rate_hz = 50.0\nmax_time_scale = 10000.0\n[timeouts]\nconnect_ms = "
+                    "3000\nreply_ms = 1000\nsample_gap_ms = 1000\n"
+                    "heartbeat_interval_ms = 100\n[reconnect]\nattempts = 3\ndelay_ms = "
+                    "500\n[limits]\nmax_speed_kmh = 160.0\n"
+                    "max_force_n = 8000.0\nmax_motoring_s = 7200.0\n[dyno]\nroller_diameter_m = "
+                    "1.2192\nbase_inertia_kg = 1250.0\n"
+                    "axles = \"single-axle\"\n[records]\npublic_key = \"" +
+                    g->cell_fp + "\"\n");
+    const int rc = run_command(
+        {kExe, "run", "--override-checks", "tamper test against the simulator", "--cell", cell, "--target",
+         kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", g->dir + "/sessions", "--checks",
+         g->root + "/checks", "--unattended", "--quiet", "--first-setting", "standard"},
+        &out, &err);
     ASSERT_TRUE(rc == 0 || rc == 1) << out << err;
     for (const auto& e : fs::directory_iterator(g->dir + "/sessions"))
       if (e.is_directory() && e.path().filename() != "history") g->sealed = e.path().string();
@@ -171,18 +190,21 @@ class Tamper : public ::testing::Test {
       g->unfinished = g->dir + "/unfinished";
       fs::copy(g->sealed, g->unfinished, fs::copy_options::recursive);
       std::string e;
-      const auto key = record::SigningKey::load(g->root + "/keys/" + record::cell_key_stem(kCell) + ".key.pem", e);
+      const auto key =
+          record::SigningKey::load(g->root + "/keys/" + record::cell_key_stem(kCell) + ".key.pem", e);
       ASSERT_TRUE(key) << e;
       record::SealInfo info;
-      ASSERT_TRUE(checks::seal_and_log(g->sealed, {kCell, summary_of(g->sealed), &*key, ""}, g->root + "/checks", "session", &info, e)) << e;
+      ASSERT_TRUE(checks::seal_and_log(g->sealed, {kCell, summary_of(g->sealed), &*key, ""},
+                                       g->root + "/checks", "session", &info, e))
+          << e;
     }
     ASSERT_EQ(run_command({kExe, "verify", g->sealed}, &out, &err), 0) << out << err;
 
     g->approved = g->dir + "/approved";
     fs::copy(g->sealed, g->approved, fs::copy_options::recursive);
     ASSERT_EQ(run_command({kExe, "approve", g->approved, "--reviewer", "Auditor One", "--key",
-                           g->root + "/keys/" + record::reviewer_key_stem("Auditor One") + ".key.pem", "--statement",
-                           "reviewed against the lab's procedure; setting fit for use"},
+                           g->root + "/keys/" + record::reviewer_key_stem("Auditor One") + ".key.pem",
+                           "--statement", "reviewed against the lab's procedure; setting fit for use"},
                           &out, &err),
               0)
         << out << err;
@@ -195,11 +217,14 @@ class Tamper : public ::testing::Test {
     g->records = g->seal + 1;
   }
   void SetUp() override {
-    if (!g || g->seal == 0 || g->approval == 0) GTEST_FAIL() << "the sealed and approved folders could not be made";
+    if (!g || g->seal == 0 || g->approval == 0)
+      GTEST_FAIL() << "the sealed and approved folders could not be made";
   }
   static void TearDownTestSuite() {
-    if (g && ::testing::UnitTest::GetInstance()->failed_test_count() == 0) fs::remove_all(g->dir);
-    else if (g) std::cerr << "tamper test folders kept for inspection: " << g->dir << "\n";
+    if (g && ::testing::UnitTest::GetInstance()->failed_test_count() == 0)
+      fs::remove_all(g->dir);
+    else if (g)
+      std::cerr << "tamper test folders kept for inspection: " << g->dir << "\n";
     delete g;
     g = nullptr;
   }
@@ -207,18 +232,18 @@ class Tamper : public ::testing::Test {
 
 struct Row {
   std::string name;
-  std::string base;                                   // "sealed" or "approved"
+  std::string base;  // "sealed" or "approved"
   std::function<void(const std::string& folder)> mutate;
-  int exit;                                           // docs/records.md
-  std::vector<std::string> must;                      // in verify's output
-  std::vector<std::string> args = {};                 // extra verify arguments
-  std::string not_opened = "";                        // a file beside the folder that must never be opened
+  int exit;                            // docs/records.md
+  std::vector<std::string> must;       // in verify's output
+  std::vector<std::string> args = {};  // extra verify arguments
+  std::string not_opened = "";         // a file beside the folder that must never be opened
 };
 
 TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
   const World& w = *g;
-  const std::string S = std::to_string(w.seal), F = std::to_string(w.finished), C = std::to_string(w.coastdown),
-                    A = std::to_string(w.approval);
+  const std::string S = std::to_string(w.seal), F = std::to_string(w.finished),
+                    C = std::to_string(w.coastdown), A = std::to_string(w.approval);
   const std::string cell_key = w.root + "/keys/" + record::cell_key_stem(kCell) + ".key.pem";
   const std::string rev_key = w.root + "/keys/" + record::reviewer_key_stem("Auditor One") + ".key.pem";
   auto drop_last = [](const std::string& f, std::size_t n) {
@@ -226,8 +251,9 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
     l.lines.resize(l.lines.size() - n);
     l.save();
   };
-  // An attacker's seal, made as the documented format says (seal_folder itself refuses to seal against the cell
-  // file's key): every file but events.jsonl and the derived ones, hashed; signed with `key`, or unsigned.
+  // An attacker's seal, made as the documented format says (seal_folder itself refuses to seal against the
+  // cell file's key): every file but events.jsonl and the derived ones, hashed; signed with `key`, or
+  // unsigned.
   auto reseal = [&](const std::string& f, const record::SigningKey* key) {
     Log l(f + "/events.jsonl");
     const record::FolderListing listing = record::list_inside(f);
@@ -239,9 +265,17 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
         files.push_back({{"path", rel}, {"sha256", record::sha256_hex(content)}, {"bytes", content.size()}});
       }
     const std::string head = record::sha256_hex(l.lines.back());
-    json s = {{"seq", l.lines.size()}, {"utc", "2026-12-02T13:00:00.000Z"}, {"type", "seal"}, {"prev", head},
-              {"format", record::kSealFormat}, {"chain_head", head}, {"cell", kCell}, {"files", files}, {"result", summary_of(f)},
-              {"signer", key ? key->fingerprint() : std::string()}, {"signature", ""}};
+    json s = {{"seq", l.lines.size()},
+              {"utc", "2026-12-02T13:00:00.000Z"},
+              {"type", "seal"},
+              {"prev", head},
+              {"format", record::kSealFormat},
+              {"chain_head", head},
+              {"cell", kCell},
+              {"files", files},
+              {"result", summary_of(f)},
+              {"signer", key ? key->fingerprint() : std::string()},
+              {"signature", ""}};
     s = json::parse(s.dump());
     if (key) {
       std::string sig, e;
@@ -265,13 +299,21 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
     l.relink(2, true);
     l.save();
   };
-  auto signed_approval = [&](const std::string& f, const std::string& reviewer, const record::SigningKey& key, const std::string& seal_hash) {
+  auto signed_approval = [&](const std::string& f, const std::string& reviewer, const record::SigningKey& key,
+                             const std::string& seal_hash) {
     Log l(f + "/events.jsonl");
     const json s = l.at(w.seal);
-    json a = {{"seq", l.lines.size()}, {"utc", "2026-12-02T12:00:00.000Z"}, {"type", "approval"}, {"prev", record::sha256_hex(l.lines.back())},
-              {"format", record::kApprovalFormat}, {"reviewer", reviewer}, {"statement", "looks fine"},
-              {"seal", seal_hash.empty() ? record::sha256_hex(l.lines[w.seal]) : seal_hash}, {"chain_head", s["chain_head"]},
-              {"signer", key.fingerprint()}, {"signature", ""}};
+    json a = {{"seq", l.lines.size()},
+              {"utc", "2026-12-02T12:00:00.000Z"},
+              {"type", "approval"},
+              {"prev", record::sha256_hex(l.lines.back())},
+              {"format", record::kApprovalFormat},
+              {"reviewer", reviewer},
+              {"statement", "looks fine"},
+              {"seal", seal_hash.empty() ? record::sha256_hex(l.lines[w.seal]) : seal_hash},
+              {"chain_head", s["chain_head"]},
+              {"signer", key.fingerprint()},
+              {"signature", ""}};
     std::string sig, e;
     ASSERT_TRUE(key.sign(record::signed_message(a), sig, e)) << e;
     a["signature"] = sig;
@@ -280,12 +322,25 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
   };
 
   const std::vector<Row> rows = {
-      {"pristine", "sealed", [](const std::string&) {}, 0, {"verified:", "signer " + w.cell_fp + " (signature verified)"}},
-      {"pristine approved", "approved", [](const std::string&) {}, 0, {"verified:", "approval: record " + A + ", Auditor One"}},
-      {"derived report added", "sealed", [](const std::string& f) { write(f + "/report.html", "<html>forged report</html>"); }, 0, {"verified:"}},
+      {"pristine",
+       "sealed",
+       [](const std::string&) {},
+       0,
+       {"verified:", "signer " + w.cell_fp + " (signature verified)"}},
+      {"pristine approved",
+       "approved",
+       [](const std::string&) {},
+       0,
+       {"verified:", "approval: record " + A + ", Auditor One"}},
+      {"derived report added",
+       "sealed",
+       [](const std::string& f) { write(f + "/report.html", "<html>forged report</html>"); },
+       0,
+       {"verified:"}},
 
       // Issue 14 item 6: the last record edited (the seal; in an approved folder, the approval).
-      {"last record edited (seal)", "sealed",
+      {"last record edited (seal)",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json s = l.at(w.seal);
@@ -293,8 +348,11 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.set(w.seal, s);
          l.save();
        },
-       5, {"BROKEN:", "first broken record: " + S}, {"--no-cell-log"}},
-      {"last record edited (seal), cell log", "sealed",
+       5,
+       {"BROKEN:", "first broken record: " + S},
+       {"--no-cell-log"}},
+      {"last record edited (seal), cell log",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json s = l.at(w.seal);
@@ -302,8 +360,10 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.set(w.seal, s);
          l.save();
        },
-       5, {"BROKEN:", "first broken record: " + S}},
-      {"last record reformatted (same meaning)", "sealed",
+       5,
+       {"BROKEN:", "first broken record: " + S}},
+      {"last record reformatted (same meaning)",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          l.lines[w.seal] = l.at(w.seal).dump(1);
@@ -313,8 +373,10 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.lines[w.seal] = one;
          l.save();
        },
-       5, {"not in the form loadtrim writes", "first broken record: " + S}},
-      {"last record edited (approval)", "approved",
+       5,
+       {"not in the form loadtrim writes", "first broken record: " + S}},
+      {"last record edited (approval)",
+       "approved",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json a = l.at(w.approval);
@@ -322,36 +384,61 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.set(w.approval, a);
          l.save();
        },
-       5, {"does not verify with the reviewer's key", "first broken record: " + A}},
+       5,
+       {"does not verify with the reviewer's key", "first broken record: " + A}},
 
       // The last record deleted, with or without summary.json.
-      {"seal deleted", "sealed", [&](const std::string& f) { drop_last(f, 1); }, 5,
+      {"seal deleted",
+       "sealed",
+       [&](const std::string& f) { drop_last(f, 1); },
+       5,
        {"cut back", "first broken record: " + std::to_string(w.seal - 1), "file: events.jsonl"}},
-      {"seal deleted, no cell log", "sealed", [&](const std::string& f) { drop_last(f, 1); }, 6, {"NOT FINISHED:"}, {"--no-cell-log"}},
-      {"seal and summary.json deleted", "sealed",
+      {"seal deleted, no cell log",
+       "sealed",
+       [&](const std::string& f) { drop_last(f, 1); },
+       6,
+       {"NOT FINISHED:"},
+       {"--no-cell-log"}},
+      {"seal and summary.json deleted",
+       "sealed",
        [&](const std::string& f) {
          drop_last(f, 1);
          fs::remove(f + "/summary.json");
        },
-       5, {"summary.json recorded in record " + F + " is missing", "file: summary.json"}},
-      {"finished, seal and summary.json deleted", "sealed",
+       5,
+       {"summary.json recorded in record " + F + " is missing", "file: summary.json"}},
+      {"finished, seal and summary.json deleted",
+       "sealed",
        [&](const std::string& f) {
          drop_last(f, w.seal - w.finished + 1);
          fs::remove(f + "/summary.json");
        },
-       5, {"cut back"}},
-      {"finished, seal and summary.json deleted, no cell log", "sealed",
+       5,
+       {"cut back"}},
+      {"finished, seal and summary.json deleted, no cell log",
+       "sealed",
        [&](const std::string& f) {
          drop_last(f, w.seal - w.finished + 1);
          fs::remove(f + "/summary.json");
        },
-       6, {"NOT FINISHED:"}, {"--no-cell-log"}},
-      {"truncated at a line boundary", "approved", [&](const std::string& f) { drop_last(f, 4); }, 5, {"cut back"}},
-      {"truncated at a line boundary, no cell log", "approved", [&](const std::string& f) { drop_last(f, 4); }, 6, {"NOT FINISHED:"},
+       6,
+       {"NOT FINISHED:"},
+       {"--no-cell-log"}},
+      {"truncated at a line boundary",
+       "approved",
+       [&](const std::string& f) { drop_last(f, 4); },
+       5,
+       {"cut back"}},
+      {"truncated at a line boundary, no cell log",
+       "approved",
+       [&](const std::string& f) { drop_last(f, 4); },
+       6,
+       {"NOT FINISHED:"},
        {"--no-cell-log"}},
 
       // A forged finished record with a recomputed hash.
-      {"forged finished appended after the seal", "sealed",
+      {"forged finished appended after the seal",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json fin = l.at(w.finished);
@@ -360,8 +447,11 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.append(fin);
          l.save();
        },
-       5, {"record " + std::to_string(w.seal + 1) + " (finished) follows the seal", "first broken record: " + std::to_string(w.seal + 1)}},
-      {"forged finished, re-sealed without a key", "sealed",
+       5,
+       {"record " + std::to_string(w.seal + 1) + " (finished) follows the seal",
+        "first broken record: " + std::to_string(w.seal + 1)}},
+      {"forged finished, re-sealed without a key",
+       "sealed",
        [&](const std::string& f) {
          drop_last(f, 1);
          Log l(f + "/events.jsonl");
@@ -369,8 +459,10 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.save();
          reseal(f, nullptr);
        },
-       5, {"not the seal the cell log recorded", "first broken record: " + std::to_string(w.seal + 1)}},
-      {"forged finished, re-sealed without a key, no cell log", "sealed",
+       5,
+       {"not the seal the cell log recorded", "first broken record: " + std::to_string(w.seal + 1)}},
+      {"forged finished, re-sealed without a key, no cell log",
+       "sealed",
        [&](const std::string& f) {
          drop_last(f, 1);
          Log l(f + "/events.jsonl");
@@ -378,15 +470,22 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.save();
          reseal(f, nullptr);
        },
-       5, {"unsigned, yet the session's cell file (inputs/cell.toml) names the key", "file: inputs/cell.toml"}, {"--no-cell-log"}},
-      {"re-sealed with another key", "sealed",
+       5,
+       {"unsigned, yet the session's cell file (inputs/cell.toml) names the key", "file: inputs/cell.toml"},
+       {"--no-cell-log"}},
+      {"re-sealed with another key",
+       "sealed",
        [&](const std::string& f) {
          drop_last(f, 1);
          const auto k = attacker_key();
          reseal(f, &k);
        },
-       5, {"but the session's cell file (inputs/cell.toml) names the key " + w.cell_fp, "first broken record: " + S}, {"--no-cell-log"}},
-      {"cell file forged too, re-sealed with another key", "sealed",
+       5,
+       {"but the session's cell file (inputs/cell.toml) names the key " + w.cell_fp,
+        "first broken record: " + S},
+       {"--no-cell-log"}},
+      {"cell file forged too, re-sealed with another key",
+       "sealed",
        [&](const std::string& f) {
          drop_last(f, 1);
          std::string cell = slurp(f + "/inputs/cell.toml");
@@ -402,8 +501,10 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          const auto k = attacker_key();
          reseal(f, &k);
        },
-       5, {"which is not the cell's key " + w.cell_fp, "first broken record: " + S}},
-      {"everything forged, cell file too, re-sealed without a key", "sealed",
+       5,
+       {"which is not the cell's key " + w.cell_fp, "first broken record: " + S}},
+      {"everything forged, cell file too, re-sealed without a key",
+       "sealed",
        [&](const std::string& f) {
          drop_last(f, 1);
          std::string cell = slurp(f + "/inputs/cell.toml");
@@ -418,10 +519,12 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.save();
          reseal(f, nullptr);
        },
-       7, {"SEALED, NOT SIGNED:"}},
+       7,
+       {"SEALED, NOT SIGNED:"}},
 
       // A middle coast-down rewritten and every link recomputed.
-      {"middle coast-down rewritten, links recomputed", "sealed",
+      {"middle coast-down rewritten, links recomputed",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json c = l.at(w.coastdown);
@@ -430,8 +533,11 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.relink(w.coastdown + 1);
          l.save();
        },
-       5, {"chain head that is not the record before it", "first broken record: " + S}, {"--no-cell-log"}},
-      {"middle coast-down rewritten, links and chain head recomputed", "sealed",
+       5,
+       {"chain head that is not the record before it", "first broken record: " + S},
+       {"--no-cell-log"}},
+      {"middle coast-down rewritten, links and chain head recomputed",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json c = l.at(w.coastdown);
@@ -440,8 +546,11 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.relink(w.coastdown + 1, true);
          l.save();
        },
-       5, {"signature of the seal (record " + S + ") does not verify", "first broken record: " + S}, {"--no-cell-log"}},
-      {"middle coast-down rewritten, cell log", "sealed",
+       5,
+       {"signature of the seal (record " + S + ") does not verify", "first broken record: " + S},
+       {"--no-cell-log"}},
+      {"middle coast-down rewritten, cell log",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json c = l.at(w.coastdown);
@@ -450,28 +559,34 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.relink(w.coastdown + 1, true);
          l.save();
        },
-       5, {"first broken record: " + S}},
+       5,
+       {"first broken record: " + S}},
 
       // A trace replaced, and its recorded hash.
-      {"trace replaced with its hash", "sealed",
+      {"trace replaced with its hash",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json c = l.at(w.coastdown);
          const std::string rel = c["files"][0]["path"];
-         const std::string fake = "index,time_s,speed_kmh,force_n,mode,flags\n0,0.0000,130.0000,0.00,road_load,0\n";
+         const std::string fake =
+             "index,time_s,speed_kmh,force_n,mode,flags\n0,0.0000,130.0000,0.00,road_load,0\n";
          write(f + "/" + rel, fake);
          c["files"][0]["sha256"] = record::sha256_hex(fake);
          l.set(w.coastdown, c);
          l.relink(w.coastdown + 1, true);
          l.save();
        },
-       5, {"traces/run-001.csv does not match the SHA-256 recorded in record " + S, "file: traces/run-001.csv"}},
-      {"trace replaced with its hash, in the seal too", "sealed",
+       5,
+       {"traces/run-001.csv does not match the SHA-256 recorded in record " + S, "file: traces/run-001.csv"}},
+      {"trace replaced with its hash, in the seal too",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          json c = l.at(w.coastdown);
          const std::string rel = c["files"][0]["path"];
-         const std::string fake = "index,time_s,speed_kmh,force_n,mode,flags\n0,0.0000,130.0000,0.00,road_load,0\n";
+         const std::string fake =
+             "index,time_s,speed_kmh,force_n,mode,flags\n0,0.0000,130.0000,0.00,road_load,0\n";
          write(f + "/" + rel, fake);
          c["files"][0]["sha256"] = record::sha256_hex(fake);
          l.set(w.coastdown, c);
@@ -485,82 +600,132 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
          l.relink(w.coastdown + 1, true);
          l.save();
        },
-       5, {"does not verify with the cell's key", "first broken record: " + S}, {"--no-cell-log"}},
-      {"trace altered only", "sealed",
+       5,
+       {"does not verify with the cell's key", "first broken record: " + S},
+       {"--no-cell-log"}},
+      {"trace altered only",
+       "sealed",
        [&](const std::string& f) {
          std::string t = slurp(f + "/traces/run-001.csv");
          t[t.size() - 3] = t[t.size() - 3] == '0' ? '1' : '0';
          write(f + "/traces/run-001.csv", t);
        },
-       5, {"traces/run-001.csv does not match the SHA-256 recorded in record " + C, "file: traces/run-001.csv"}},
+       5,
+       {"traces/run-001.csv does not match the SHA-256 recorded in record " + C, "file: traces/run-001.csv"}},
 
       // Paths outside the folder: refused, never opened.
-      {"files entry ../../../../etc/hostname", "sealed", [&](const std::string& f) { add_entry(f, "../../../../etc/hostname"); }, 5,
-       {"\"../../../../etc/hostname\", which is not a path inside the folder", "it was not opened", "first broken record: 1"}},
-      {"files entry to a watched file beside the folder", "sealed", [&](const std::string& f) { add_entry(f, "../outside/secret"); }, 5,
-       {"\"../outside/secret\"", "first broken record: 1"}, {}, "outside/secret"},
-      {"files entry to a FIFO beside the folder", "sealed", [&](const std::string& f) { add_entry(f, "../outside/fifo"); }, 5,
+      {"files entry ../../../../etc/hostname",
+       "sealed",
+       [&](const std::string& f) { add_entry(f, "../../../../etc/hostname"); },
+       5,
+       {"\"../../../../etc/hostname\", which is not a path inside the folder", "it was not opened",
+        "first broken record: 1"}},
+      {"files entry to a watched file beside the folder",
+       "sealed",
+       [&](const std::string& f) { add_entry(f, "../outside/secret"); },
+       5,
+       {"\"../outside/secret\"", "first broken record: 1"},
+       {},
+       "outside/secret"},
+      {"files entry to a FIFO beside the folder",
+       "sealed",
+       [&](const std::string& f) { add_entry(f, "../outside/fifo"); },
+       5,
        {"\"../outside/fifo\""}},
-      {"files entry with an absolute path", "sealed", [&](const std::string& f) { add_entry(f, "/etc/hostname"); }, 5,
+      {"files entry with an absolute path",
+       "sealed",
+       [&](const std::string& f) { add_entry(f, "/etc/hostname"); },
+       5,
        {"\"/etc/hostname\", which is not a path inside the folder (absolute)"}},
-      {"trace replaced by a link to a watched file", "sealed",
+      {"trace replaced by a link to a watched file",
+       "sealed",
        [&](const std::string& f) {
          fs::remove(f + "/traces/run-001.csv");
          fs::create_symlink("../../outside/secret", f + "/traces/run-001.csv");
        },
-       5, {"traces/run-001.csv is a symbolic link", "file: traces/run-001.csv"}, {}, "outside/secret"},
-      {"inputs/ replaced by a link to a folder outside", "sealed",
+       5,
+       {"traces/run-001.csv is a symbolic link", "file: traces/run-001.csv"},
+       {},
+       "outside/secret"},
+      {"inputs/ replaced by a link to a folder outside",
+       "sealed",
        [&](const std::string& f) {
          fs::rename(f + "/inputs", f + "/../outside/inputs");
          fs::create_directory_symlink("../outside/inputs", f + "/inputs");
        },
-       5, {"inputs is a symbolic link", "file: inputs/cell.toml"}},
-      {"operator.log replaced by a FIFO", "sealed",
+       5,
+       {"inputs is a symbolic link", "file: inputs/cell.toml"}},
+      {"operator.log replaced by a FIFO",
+       "sealed",
        [&](const std::string& f) {
          fs::remove(f + "/operator.log");
          ::mkfifo((f + "/operator.log").c_str(), 0600);
        },
-       5, {"operator.log is a FIFO", "file: operator.log"}},
-      {"events.jsonl replaced by a link", "sealed",
+       5,
+       {"operator.log is a FIFO", "file: operator.log"}},
+      {"events.jsonl replaced by a link",
+       "sealed",
        [&](const std::string& f) {
          fs::rename(f + "/events.jsonl", f + "/../outside/events.jsonl");
          fs::create_symlink("../outside/events.jsonl", f + "/events.jsonl");
        },
-       5, {"events.jsonl is a symbolic link", "file: events.jsonl"}},
+       5,
+       {"events.jsonl is a symbolic link", "file: events.jsonl"}},
 
       // Files added, removed or edited after the seal.
-      {"file added after the seal", "sealed", [](const std::string& f) { write(f + "/traces/run-099.csv", "index,time_s\n"); }, 5,
+      {"file added after the seal",
+       "sealed",
+       [](const std::string& f) { write(f + "/traces/run-099.csv", "index,time_s\n"); },
+       5,
        {"traces/run-099.csv is not covered by the seal", "file: traces/run-099.csv"}},
-      {"sealed file deleted", "sealed", [](const std::string& f) { fs::remove(f + "/operator.log"); }, 5,
+      {"sealed file deleted",
+       "sealed",
+       [](const std::string& f) { fs::remove(f + "/operator.log"); },
+       5,
        {"operator.log recorded in record " + S + " is missing", "file: operator.log"}},
-      {"summary.json edited", "sealed",
+      {"summary.json edited",
+       "sealed",
        [](const std::string& f) {
          json s = summary_of(f);
          s["accepted"] = !s.value("accepted", false);
          write(f + "/summary.json", s.dump(2) + "\n");
        },
-       5, {"summary.json does not match the SHA-256", "file: summary.json"}},
-      {"partial line after the seal", "sealed",
-       [](const std::string& f) { std::ofstream(f + "/events.jsonl", std::ios::app) << "{\"seq\":"; }, 5, {"partial line after the seal"}},
-      {"second seal", "sealed",
+       5,
+       {"summary.json does not match the SHA-256", "file: summary.json"}},
+      {"partial line after the seal",
+       "sealed",
+       [](const std::string& f) { std::ofstream(f + "/events.jsonl", std::ios::app) << "{\"seq\":"; },
+       5,
+       {"partial line after the seal"}},
+      {"second seal",
+       "sealed",
        [&](const std::string& f) {
          Log l(f + "/events.jsonl");
          l.append(l.at(w.seal));
          l.save();
        },
-       5, {"is a second seal", "first broken record: " + std::to_string(w.seal + 1)}},
+       5,
+       {"is a second seal", "first broken record: " + std::to_string(w.seal + 1)}},
 
       // Approvals.
-      {"approval signed with a key that is not the reviewer's", "sealed",
-       [&](const std::string& f) { signed_approval(f, "Auditor One", attacker_key(), ""); }, 5, {"which is not Auditor One's key " + w.reviewer_fp}},
-      {"approval of another seal", "sealed",
+      {"approval signed with a key that is not the reviewer's",
+       "sealed",
+       [&](const std::string& f) { signed_approval(f, "Auditor One", attacker_key(), ""); },
+       5,
+       {"which is not Auditor One's key " + w.reviewer_fp}},
+      {"approval of another seal",
+       "sealed",
        [&](const std::string& f) {
          std::string e;
          signed_approval(f, "Auditor One", *record::SigningKey::load(rev_key, e), std::string(64, 'a'));
        },
-       5, {"approves another seal", "first broken record: " + std::to_string(w.seal + 1)}},
-      {"approval by a reviewer nobody registered", "sealed",
-       [&](const std::string& f) { signed_approval(f, "Somebody Else", attacker_key(), ""); }, 7, {"KEY UNKNOWN:", "Somebody Else"}},
+       5,
+       {"approves another seal", "first broken record: " + std::to_string(w.seal + 1)}},
+      {"approval by a reviewer nobody registered",
+       "sealed",
+       [&](const std::string& f) { signed_approval(f, "Somebody Else", attacker_key(), ""); },
+       7,
+       {"KEY UNKNOWN:", "Somebody Else"}},
   };
 
   for (const auto& row : rows) {
@@ -578,7 +743,8 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
     std::string out, err;
     const int rc = run_command(argv, &out, &err);
     EXPECT_EQ(rc, row.exit) << out << err;
-    for (const auto& m : row.must) EXPECT_NE(out.find(m), std::string::npos) << "expected: " << m << "\ngot:\n" << out << err;
+    for (const auto& m : row.must)
+      EXPECT_NE(out.find(m), std::string::npos) << "expected: " << m << "\ngot:\n" << out << err;
     if (watch) {
       EXPECT_FALSE(watch->touched()) << row.not_opened << " was opened";
     }
@@ -613,12 +779,16 @@ TEST_F(Tamper, OtherOutcomes) {
   // Approving needs a folder that verifies: not the unfinished one.
   if (!g->unfinished.empty()) {
     const std::string key = g->root + "/keys/" + record::reviewer_key_stem("Auditor One") + ".key.pem";
-    EXPECT_EQ(run_command({kExe, "approve", g->unfinished, "--reviewer", "Auditor One", "--key", key, "--statement", "ok", "--checks", empty_root},
+    EXPECT_EQ(run_command({kExe, "approve", g->unfinished, "--reviewer", "Auditor One", "--key", key,
+                           "--statement", "ok", "--checks", empty_root},
                           &out, &err),
               6)
         << out << err;
     // With the cell log, the unfinished copy is what it is: the sealed folder cut back.
-    EXPECT_EQ(run_command({kExe, "approve", g->unfinished, "--reviewer", "Auditor One", "--key", key, "--statement", "ok"}, &out, &err), 5);
+    EXPECT_EQ(run_command({kExe, "approve", g->unfinished, "--reviewer", "Auditor One", "--key", key,
+                           "--statement", "ok"},
+                          &out, &err),
+              5);
     EXPECT_NE(err.find("cut back"), std::string::npos) << err;
   }
 }
@@ -634,7 +804,10 @@ TEST_F(Tamper, KeysAreCreatedWithSafeModesAndNeverOverwritten) {
   std::string out, err;
   EXPECT_EQ(run_command({kExe, "keys", "create", "--cell", kCell}, &out, &err), 2);
   EXPECT_NE(err.find("already exists"), std::string::npos) << err;
-  EXPECT_EQ(run_command({kExe, "keys", "fingerprint", g->root + "/keys/" + record::cell_key_stem(kCell) + ".pub.pem"}, &out, &err), 0);
+  EXPECT_EQ(run_command(
+                {kExe, "keys", "fingerprint", g->root + "/keys/" + record::cell_key_stem(kCell) + ".pub.pem"},
+                &out, &err),
+            0);
   EXPECT_EQ(out, g->cell_fp + "\n");
 }
 
@@ -676,5 +849,6 @@ TEST_F(Tamper, ReportNamesAMissingMemberAndRemovesTheStaleReport) {
   EXPECT_NE(err.find("record " + std::to_string(k) + " (coastdown) lacks check"), std::string::npos) << err;
   EXPECT_FALSE(fs::exists(f + "/report.html")) << "a stale report.html remained";
   EXPECT_FALSE(fs::exists(f + "/coefficients.csv"));
-  for (const auto& e : fs::recursive_directory_iterator(f)) EXPECT_NE(e.path().extension(), ".tmp") << e.path();
+  for (const auto& e : fs::recursive_directory_iterator(f))
+    EXPECT_NE(e.path().extension(), ".tmp") << e.path();
 }

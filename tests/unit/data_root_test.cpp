@@ -2,12 +2,12 @@
 // layout with keys/ at 0700, and the small TOML string reader. External references: the XDG Base Directory
 // Specification (a relative XDG_DATA_HOME is ignored; the default is $HOME/.local/share) and TOML v1.0.0
 // (basic-string escapes, literal strings, comments, table headers).
+#include "record/data_root.hpp"
+
 #include <gtest/gtest.h>
 #include <sys/stat.h>
 
 #include <filesystem>
-
-#include "record/data_root.hpp"
 
 using namespace loadtrim;
 namespace fs = std::filesystem;
@@ -68,7 +68,8 @@ TEST(DataRoot, RelativeValuesAreTakenFromTheCurrentFolderAndNormalised) {
 TEST(DataRoot, SystemFileMistakesAreErrorsNotFallThroughs) {
   auto in = base();
   in.system_config = "# the lab's settings\nother = 1\n";
-  EXPECT_EQ(record::resolve_data_root(in).path, "/home/lab/.local/share/loadtrim") << "no data_dir: the next source";
+  EXPECT_EQ(record::resolve_data_root(in).path, "/home/lab/.local/share/loadtrim")
+      << "no data_dir: the next source";
   in.system_config = "data_dir = \"relative/path\"\n";
   auto r = record::resolve_data_root(in);
   EXPECT_FALSE(r.ok());
@@ -111,7 +112,8 @@ TEST(DataRoot, LayoutIsCreatedWithPrivateKeys) {
   const bool ok = record::ensure_data_root(root, err);
   ::umask(old);
   ASSERT_TRUE(ok) << err;
-  for (const auto& d : {root.sessions(), root.checks(), root.history(), root.keys(), root.queue()}) EXPECT_TRUE(fs::is_directory(d)) << d;
+  for (const auto& d : {root.sessions(), root.checks(), root.history(), root.keys(), root.queue()})
+    EXPECT_TRUE(fs::is_directory(d)) << d;
   struct stat st {};
   ASSERT_EQ(::stat(root.keys().c_str(), &st), 0);
   EXPECT_EQ(st.st_mode & 0777, 0700u);

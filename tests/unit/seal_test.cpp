@@ -1,7 +1,9 @@
 // Keys, signatures, the seal and approvals (record/seal.hpp, record/verify.hpp), the folder reader that never
-// leaves its folder (record/inside.hpp), and write_durable's clean-up. External references: RFC 8032 §7.1 (Ed25519
-// test vectors 1–3: secret, public key, message, signature), and Python's hashlib for the SHA-256 fingerprint of
-// test 1's public key (python3 -c "hashlib.sha256(bytes.fromhex(...)).hexdigest()").
+// leaves its folder (record/inside.hpp), and write_durable's clean-up. External references: RFC 8032 §7.1
+// (Ed25519 test vectors 1–3: secret, public key, message, signature), and Python's hashlib for the SHA-256
+// fingerprint of test 1's public key (python3 -c "hashlib.sha256(bytes.fromhex(...)).hexdigest()").
+#include "record/seal.hpp"
+
 #include <gtest/gtest.h>
 #include <signal.h>
 #include <sys/resource.h>
@@ -13,7 +15,6 @@
 
 #include "record/event_log.hpp"
 #include "record/inside.hpp"
-#include "record/seal.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
 #include "record/verify.hpp"
@@ -32,11 +33,14 @@ std::string temp_dir(const std::string& tag) {
 
 std::string unhex(const std::string& h) {
   std::string out;
-  for (std::size_t i = 0; i + 1 < h.size(); i += 2) out += static_cast<char>(std::stoi(h.substr(i, 2), nullptr, 16));
+  for (std::size_t i = 0; i + 1 < h.size(); i += 2)
+    out += static_cast<char>(std::stoi(h.substr(i, 2), nullptr, 16));
   return out;
 }
 
-void write(const std::string& path, const std::string& text) { std::ofstream(path, std::ios::binary) << text; }
+void write(const std::string& path, const std::string& text) {
+  std::ofstream(path, std::ios::binary) << text;
+}
 
 std::string slurp(const std::string& path) {
   std::ifstream in(path, std::ios::binary);
@@ -55,37 +59,54 @@ std::string make_folder(const std::string& root, const std::string& cell_toml = 
   fs::create_directories(f + "/inputs");
   fs::create_directories(f + "/traces");
   write(f + "/inputs/cell.toml", cell_toml);
-  const std::string trace = "index,time_s,speed_kmh,force_n,mode,flags\n0,0.0000,130.0000,0.00,road_load,0\n1,0.0100,129.9000,0.00,road_load,0\n";
+  const std::string trace =
+      "index,time_s,speed_kmh,force_n,mode,flags\n0,0.0000,130.0000,0.00,road_load,0\n1,0.0100,129.9000,0.00,"
+      "road_load,0\n";
   write(f + "/traces/run-001.csv", trace);
   const json summary = {{"result", "accepted"}, {"accepted", true}, {"coastdowns", 1}};
   const std::string stext = summary.dump(2) + "\n";
   write(f + "/summary.json", stext);
   write(f + "/operator.log", "2026-12-02T08:00:00.000Z session started\n");
   record::EventLog log(f + "/events.jsonl");
-  EXPECT_TRUE(log.append("session_started",
-                         {{"cell", "unit cell"}, {"files", json::array({{{"path", "inputs/cell.toml"}, {"sha256", record::sha256_hex(cell_toml)}}})}},
-                         "2026-12-02T08:00:00.000Z"));
-  EXPECT_TRUE(log.append("coastdown", {{"run", 1}, {"files", json::array({{{"path", "traces/run-001.csv"}, {"sha256", record::sha256_hex(trace)}}})}},
-                         "2026-12-02T08:10:00.000Z"));
-  EXPECT_TRUE(log.append("finished", {{"result", "accepted"}, {"files", json::array({{{"path", "summary.json"}, {"sha256", record::sha256_hex(stext)}}})}},
-                         "2026-12-02T08:20:00.000Z"));
+  EXPECT_TRUE(log.append(
+      "session_started",
+      {{"cell", "unit cell"},
+       {"files", json::array({{{"path", "inputs/cell.toml"}, {"sha256", record::sha256_hex(cell_toml)}}})}},
+      "2026-12-02T08:00:00.000Z"));
+  EXPECT_TRUE(log.append(
+      "coastdown",
+      {{"run", 1},
+       {"files", json::array({{{"path", "traces/run-001.csv"}, {"sha256", record::sha256_hex(trace)}}})}},
+      "2026-12-02T08:10:00.000Z"));
+  EXPECT_TRUE(log.append(
+      "finished",
+      {{"result", "accepted"},
+       {"files", json::array({{{"path", "summary.json"}, {"sha256", record::sha256_hex(stext)}}})}},
+      "2026-12-02T08:20:00.000Z"));
   return f;
 }
 
 }  // namespace
 
-// RFC 8032 §7.1, TEST 1–3: the signature OpenSSL makes from each secret equals the published one, and verifies.
+// RFC 8032 §7.1, TEST 1–3: the signature OpenSSL makes from each secret equals the published one, and
+// verifies.
 TEST(Ed25519, Rfc8032Vectors) {
   struct V {
     const char *secret, *pub, *msg, *sig;
   };
   const V vs[] = {
-      {"9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031cae7f60", "d75a980182b10ab7d54bfed3c964073a0ee172f3daa62325af021a68f707511a", "",
-       "e5564300c360ac729086e2cc806e828a84877f1eb8e5d974d873e065224901555fb8821590a33bacc61e39701cf9b46bd25bf5f0595bbe24655141438e7a100b"},
-      {"4ccd089b28ff96da9db6c346ec114e0f5b8a319f35aba624da8cf6ed4fb8a6fb", "3d4017c3e843895a92b70aa74d1b7ebc9c982ccf2ec4968cc0cd55f12af4660c", "72",
-       "92a009a9f0d4cab8720e820b5f642540a2b27b5416503f8fb3762223ebdb69da085ac1e43e15996e458f3613d0f11d8c387b2eaeb4302aeeb00d291612bb0c00"},
-      {"c5aa8df43f9f837bedb7442f31dcb7b166d38535076f094b85ce3a2e0b4458f7", "fc51cd8e6218a1a38da47ed00230f0580816ed13ba3303ac5deb911548908025", "af82",
-       "6291d657deec24024827e69c3abe01a30ce548a284743a445e3680d7db5ac3ac18ff9b538d16f290ae67f760984dc6594a7c15e9716ed28dc027beceea1ec40a"},
+      {"9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031cae7f60",
+       "d75a980182b10ab7d54bfed3c964073a0ee172f3daa62325af021a68f707511a", "",
+       "e5564300c360ac729086e2cc806e828a84877f1eb8e5d974d873e065224901555fb8821590a33bacc61e39701cf9b46bd25bf"
+       "5f0595bbe24655141438e7a100b"},
+      {"4ccd089b28ff96da9db6c346ec114e0f5b8a319f35aba624da8cf6ed4fb8a6fb",
+       "3d4017c3e843895a92b70aa74d1b7ebc9c982ccf2ec4968cc0cd55f12af4660c", "72",
+       "92a009a9f0d4cab8720e820b5f642540a2b27b5416503f8fb3762223ebdb69da085ac1e43e15996e458f3613d0f11d8c387b2"
+       "eaeb4302aeeb00d291612bb0c00"},
+      {"c5aa8df43f9f837bedb7442f31dcb7b166d38535076f094b85ce3a2e0b4458f7",
+       "fc51cd8e6218a1a38da47ed00230f0580816ed13ba3303ac5deb911548908025", "af82",
+       "6291d657deec24024827e69c3abe01a30ce548a284743a445e3680d7db5ac3ac18ff9b538d16f290ae67f760984dc6594a7c1"
+       "5e9716ed28dc027beceea1ec40a"},
   };
   for (const auto& v : vs) {
     std::string err;
@@ -107,8 +128,10 @@ TEST(Ed25519, Rfc8032Vectors) {
 
 TEST(Ed25519, FlippedBitsAndWrongKeysFail) {
   std::string err;
-  const auto a = record::SigningKey::from_raw(unhex("9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031cae7f60"), err);
-  const auto b = record::SigningKey::from_raw(unhex("4ccd089b28ff96da9db6c346ec114e0f5b8a319f35aba624da8cf6ed4fb8a6fb"), err);
+  const auto a = record::SigningKey::from_raw(
+      unhex("9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031cae7f60"), err);
+  const auto b = record::SigningKey::from_raw(
+      unhex("4ccd089b28ff96da9db6c346ec114e0f5b8a319f35aba624da8cf6ed4fb8a6fb"), err);
   ASSERT_TRUE(a && b);
   const std::string msg = "loadtrim-seal-1\n{\"chain_head\":\"00\"}";
   std::string sig;
@@ -164,10 +187,12 @@ TEST(Keys, CreatedWithSafeModesWhateverTheUmaskAndNeverOverwritten) {
   EXPECT_EQ(slurp(dir + "/cell-0.key.pem"), before);
   EXPECT_FALSE(fs::exists(dir + "/other.pub.pem"));
   // A public half that cannot be written leaves no private half behind.
-  EXPECT_FALSE(record::create_key_pair(dir + "/lonely.key.pem", dir + "/no-such-dir/lonely.pub.pem", nullptr, err));
+  EXPECT_FALSE(
+      record::create_key_pair(dir + "/lonely.key.pem", dir + "/no-such-dir/lonely.pub.pem", nullptr, err));
   EXPECT_FALSE(fs::exists(dir + "/lonely.key.pem"));
   // No temporary file remains from any of this.
-  for (const auto& e : fs::directory_iterator(dir)) EXPECT_EQ(e.path().string().find(".tmp"), std::string::npos) << e.path();
+  for (const auto& e : fs::directory_iterator(dir))
+    EXPECT_EQ(e.path().string().find(".tmp"), std::string::npos) << e.path();
   fs::remove_all(dir);
 }
 
@@ -179,7 +204,9 @@ TEST(Keys, CellSigningKeyAsTheCellFileNamesIt) {
   const std::string stem = root + "/keys/" + record::cell_key_stem("Cell 1");
   ASSERT_TRUE(record::create_key_pair(stem + ".key.pem", stem + ".pub.pem", &kp, err)) << err;
   EXPECT_TRUE(record::load_cell_signing_key(root, "Cell 1", kp.fingerprint, "", err)) << err;
-  EXPECT_TRUE(record::load_cell_signing_key(root, "Cell 1", "keys/" + record::cell_key_stem("Cell 1") + ".pub.pem", "", err)) << err;
+  EXPECT_TRUE(record::load_cell_signing_key(root, "Cell 1",
+                                            "keys/" + record::cell_key_stem("Cell 1") + ".pub.pem", "", err))
+      << err;
   EXPECT_TRUE(record::load_cell_signing_key(root, "Other", kp.fingerprint, stem + ".key.pem", err)) << err;
   EXPECT_FALSE(record::load_cell_signing_key(root, "Cell 1", "sha256:" + std::string(64, '0'), "", err));
   EXPECT_NE(err.find("but the cell file names"), std::string::npos) << err;
@@ -207,7 +234,8 @@ TEST(Seal, CanonicalMessageCoversEverythingButTheSignature) {
   const json a = {{"format", "loadtrim-seal-1"}, {"b", 1}, {"a", "é"}, {"signature", "x"}};
   const json b = {{"a", "é"}, {"signature", "y"}, {"b", 1}, {"format", "loadtrim-seal-1"}};
   EXPECT_EQ(record::signed_message(a), record::signed_message(b));
-  EXPECT_EQ(record::signed_message(a), "loadtrim-seal-1\n{\"a\":\"\\u00e9\",\"b\":1,\"format\":\"loadtrim-seal-1\"}");
+  EXPECT_EQ(record::signed_message(a),
+            "loadtrim-seal-1\n{\"a\":\"\\u00e9\",\"b\":1,\"format\":\"loadtrim-seal-1\"}");
   json c = a;
   c["b"] = 2;
   EXPECT_NE(record::signed_message(a), record::signed_message(c));
@@ -224,9 +252,12 @@ TEST(Seal, SignedSealVerifiesAgainstTheCellKeyOnly) {
   const auto key = record::SigningKey::load(dir + "/cell.key.pem", err);
   ASSERT_TRUE(key) << err;
   record::SealInfo info;
-  ASSERT_TRUE(record::seal_folder(f, {"unit cell", {{"result", "accepted"}, {"accepted", true}}, &*key, ""}, &info, err)) << err;
+  ASSERT_TRUE(record::seal_folder(f, {"unit cell", {{"result", "accepted"}, {"accepted", true}}, &*key, ""},
+                                  &info, err))
+      << err;
   EXPECT_EQ(info.seq, 3u);
-  EXPECT_EQ(info.files, 4u);  // inputs/cell.toml, operator.log, summary.json, traces/run-001.csv; never events.jsonl
+  EXPECT_EQ(info.files,
+            4u);  // inputs/cell.toml, operator.log, summary.json, traces/run-001.csv; never events.jsonl
   EXPECT_EQ(info.signer, key->fingerprint());
   // A second seal is refused.
   EXPECT_FALSE(record::seal_folder(f, {"unit cell", json::object(), &*key, ""}, nullptr, err));
@@ -240,7 +271,8 @@ TEST(Seal, SignedSealVerifiesAgainstTheCellKeyOnly) {
   EXPECT_EQ(s["chain_head"], s["prev"]);
   std::vector<std::string> paths;
   for (const auto& e : s["files"]) paths.push_back(e["path"]);
-  EXPECT_EQ(paths, (std::vector<std::string>{"inputs/cell.toml", "operator.log", "summary.json", "traces/run-001.csv"}));
+  EXPECT_EQ(paths, (std::vector<std::string>{"inputs/cell.toml", "operator.log", "summary.json",
+                                             "traces/run-001.csv"}));
   EXPECT_EQ(info.files, paths.size());
 
   record::VerifyOptions trusted;
@@ -300,11 +332,14 @@ TEST(Seal, SealedResultMustAgreeWithSummary) {
   std::string err;
   // The summary on disk says accepted: a seal claiming otherwise is not written.
   EXPECT_FALSE(record::seal_folder(f, {"unit cell", {{"accepted", false}}, nullptr, ""}, nullptr, err));
-  EXPECT_NE(err.find("summary.json disagrees with the sealed result at \"accepted\""), std::string::npos) << err;
+  EXPECT_NE(err.find("summary.json disagrees with the sealed result at \"accepted\""), std::string::npos)
+      << err;
   EXPECT_EQ(slurp(f + "/events.jsonl"), before);
   EXPECT_FALSE(record::seal_folder(f, {"unit cell", json::array({1}), nullptr, ""}, nullptr, err));
   // A subset that agrees is fine.
-  ASSERT_TRUE(record::seal_folder(f, {"unit cell", {{"accepted", true}, {"coastdowns", 1}}, nullptr, ""}, nullptr, err)) << err;
+  ASSERT_TRUE(record::seal_folder(f, {"unit cell", {{"accepted", true}, {"coastdowns", 1}}, nullptr, ""},
+                                  nullptr, err))
+      << err;
   fs::remove_all(dir);
 }
 
@@ -374,7 +409,8 @@ TEST(Inside, PathsThatLeaveTheFolderAreRefused) {
   EXPECT_EQ(record::read_inside(dir + "/f", "../outside.txt").status, record::InsideStatus::unsafe);
   EXPECT_EQ(record::read_inside(dir + "/f", "link.txt").status, record::InsideStatus::unsafe);
   EXPECT_EQ(record::read_inside(dir + "/f", "linkdir/outside.txt").status, record::InsideStatus::unsafe);
-  // A FIFO is refused before any open(2): a blocking open would hang here (no writer), so returning at all shows it.
+  // A FIFO is refused before any open(2): a blocking open would hang here (no writer), so returning at all
+  // shows it.
   const auto p = record::read_inside(dir + "/f", "pipe");
   EXPECT_EQ(p.status, record::InsideStatus::unsafe);
   EXPECT_NE(p.error.find("FIFO"), std::string::npos) << p.error;
