@@ -287,7 +287,9 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
   };
   auto attacker_key = [&]() {
     std::string e;
-    const std::string d = temp_dir("attacker");
+    static int n = 0;
+    const std::string d = w.dir + "/attacker-" + std::to_string(++n);  // removed with the suite's folder
+    fs::create_directories(d);
     EXPECT_TRUE(record::create_key_pair(d + "/a.key.pem", d + "/a.pub.pem", nullptr, e)) << e;
     return *record::SigningKey::load(d + "/a.key.pem", e);
   };
