@@ -1,0 +1,593 @@
+// The lying-controller table (issue 13): one row per lie. A real simulator (loadtrim-sim at 200x) runs behind a
+// scripted lying proxy (tests/support/lying_proxy.hpp) that tells ONE lie from its trigger onwards; the tool runs
+// `loadtrim run` (or `link-check`) against the proxy. Every row asserts:
+//   - an end within the row's wall-clock bound: the harness kills the tool (SIGKILL) at the bound and fails the
+//     row, so no row can hang CI (bound x LOADTRIM_TEST_LIE_BOUND_SCALE for sanitizer builds on loaded hosts, at
+//     most 270 s, inside ctest's 300 s; LOADTRIM_TEST_LIE_TIME_SCALE lowers the simulator's 200x for them);
+//   - the exit code (README) and a fragment of the message naming the cause, in stdout+stderr or events.jsonl;
+//   - that the lie really was told (else the row would prove nothing) and, for sessions, that MODE STOP was
+//     commanded after it began;
+//   - that the session folder verifies (record::verify_session_folder);
+//   - for the floods, that the tool's peak RSS (VmHWM, sampled while it runs) stays below 64 MiB (not under
+//     AddressSanitizer, whose own memory is far above that).
+// The no_lie row proves the proxy transparent: the same session through it is accepted and nothing was changed.
+// Each row prints one "[lie]" line (exit, seconds, what the tool said at its end) for the record of what it did.
+#include <arpa/inet.h>
+#include <fcntl.h>
+#include <gtest/gtest.h>
+#include <netinet/in.h>
+#include <poll.h>
+#include <signal.h>
+#include <sys/prctl.h>
+#include <sys/socket.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <algorithm>
+#include <chrono>
+#include <cstdio>
+#include <cstdlib>
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+#include <string>
+#include <thread>
+#include <vector>
+
+#include "line/line_protocol.hpp"
+#include "record/event_log.hpp"
+#include "support/lying_proxy.hpp"
+#include "support/sim_process.hpp"
+
+using namespace loadtrim;
+using loadtrim::testing::Lie;
+using loadtrim::testing::LyingProxy;
+using loadtrim::testing::Trigger;
+namespace fs = std::filesystem;
+
+namespace {
+const std::string kSrc = LOADTRIM_SOURCE_DIR;
+const std::string kExe = LOADTRIM_EXE;
+constexpr long kRssLimitKib = 64 * 1024;
+
+enum class Cmd { run, link_check };
+
+struct Row {
+  const char* name;
+  Lie lie;
+  Trigger trigger;
+  Cmd cmd;
+  int exit_code;        // README exit codes
+  const char* message;  // in the tool's stdout+stderr or the session log
+  double bound_s;       // wall seconds at 1x; <= 120
+  bool rss_bound;       // the tool's peak RSS must stay below 64 MiB
+};
+
+void PrintTo(const Row& r, std::ostream* os) { *os << r.name; }
+
+// Most lies start once the rollers have been motored for 30 simulated seconds (in the warm-up hold), so the tool
+// must both notice and bring the rollers to a controlled stop.
+Trigger hold30() { return Trigger::in_mode("HOLD", 30.0); }
+
+const Row kRows[] = {
+    // The proxy is transparent: the session through it is accepted and the proxy changed nothing.
+    {"no_lie", Lie::none, Trigger::at_start(), Cmd::run, 0, "accepted", 90, false},
+    // A clock that stops: every wait counts controller time, so only a wall-time check can end it.
+    {"clock_frozen", Lie::clock_frozen, hold30(), Cmd::run, 3, "the controller's clock stopped", 60, false},
+    // A clock that creeps by 1e-9 s per sample: it moves, so "stopped" checks alone do not see it.
+    {"clock_creeps", Lie::clock_creeps, hold30(), Cmd::run, 3, "the controller's clock runs too slow", 60, false},
+    // A clock that steps back 100 s once and runs on. Triggered after 110 s of holds (in the loss map), so that the
+    // clock still reads a positive time after the step: the step back is the only lie, not a negative time.
+    {"clock_backwards", Lie::clock_backwards, Trigger::in_mode("HOLD", 110.0), Cmd::run, 3,
+     "the controller's clock ran backwards", 60, false},
+    // A clock that reads a large value (true + 1e6 s) and then restarts from 0, as a counter that wraps.
+    {"clock_reset_to_zero", Lie::clock_reset_to_zero, hold30(), Cmd::run, 3, "the controller's clock ran backwards", 60,
+     false},
+    // A clock that jumps 1000 s ahead once in the middle of a coast-down.
+    {"clock_jumps_ahead", Lie::clock_jumps_ahead, Trigger::in_mode("ROADLOAD", 10.0), Cmd::run, 3,
+     "the controller's clock jumped ahead", 90, false},
+    // A clock that runs 10x faster than the controller's own (too fast against wall time).
+    {"clock_runs_fast", Lie::clock_runs_fast, hold30(), Cmd::run, 3, "the controller's clock runs too fast", 60, false},
+    // STATUS replies run 5000 s ahead of the samples' clock, from the start: whenever the tool compares the two it
+    // must refuse to go on (a tool that asks STATUS only at connect and at the stop still meets the lie there).
+    {"status_clock_ahead", Lie::status_clock_ahead, Trigger::at_start(), Cmd::run, 3,
+     "status clock and sample clock disagree", 60, false},
+    // The setting is acknowledged and read back but never applied after the first: the tool must see the
+    // coast-downs not respond and stop, not drive the setting to absurd values.
+    {"setting_not_applied", Lie::setting_not_applied, Trigger::at_start(), Cmd::run, 3,
+     "the controller does not follow the setting", 120, false},
+    // The read-back of the set coefficients differs by 1 N: the tool refuses to go on.
+    {"readback_differs", Lie::readback_differs, Trigger::at_start(), Cmd::run, 3, "differs from what was written", 60,
+     false},
+    // The controller says it stops but holds 30 km/h: the end must say the rollers were not confirmed stopped.
+    {"never_stops", Lie::never_stops, Trigger::at_start(), Cmd::run, 3, "rollers not confirmed stopped", 90, false},
+    // Non-finite and impossible samples are counted and named, not taken for a stalled stream or as data.
+    {"nan_speed", Lie::nan_speed, hold30(), Cmd::run, 3, "malformed samples", 60, false},
+    {"inf_force", Lie::inf_force, hold30(), Cmd::run, 3, "malformed samples", 60, false},
+    {"negative_speed", Lie::negative_speed, hold30(), Cmd::run, 3, "malformed samples", 60, false},
+    // A sample counter that repeats and runs backwards.
+    {"index_backwards", Lie::index_backwards, hold30(), Cmd::run, 3, "malformed samples", 60, false},
+    // Samples above the speed limit in a hold above 100 km/h: the tool stops at once.
+    {"over_speed", Lie::over_speed, Trigger::at_start(), Cmd::run, 3, "above the limit", 60, false},
+    // An EVT FAULT with no fault flag in the samples: the event alone must stop the session.
+    {"fault_event", Lie::fault_event, hold30(), Cmd::run, 3, "fault event", 60, false},
+    // The emergency-stop flag in the samples: the tool stops and says the controller reports a fault.
+    {"fault_flag", Lie::fault_flag, hold30(), Cmd::run, 3, "reports a fault", 60, false},
+    // Every sample cut in half: the message must count the rejected lines, not just report a stall.
+    {"half_lines", Lie::half_lines, hold30(), Cmd::run, 3, "lines rejected", 60, false},
+    // Nothing more reaches the tool though the TCP connection stays open (neither samples nor replies): the tool
+    // must not wait for ever on an open socket.
+    {"silence", Lie::silence, hold30(), Cmd::run, 3, "no sample for", 60, false},
+    // Replies name the wrong request: none answers what the tool asked.
+    {"wrong_reply_seq", Lie::wrong_reply_seq, hold30(), Cmd::run, 3, "no reply to", 60, false},
+    // Samples always say ROADLOAD while the rollers are held: the hold never completes.
+    {"wrong_mode", Lie::wrong_mode, hold30(), Cmd::run, 3, "did not complete", 60, false},
+    // A stream at 1/50 of the asked rate (2 Hz for 100 Hz), without gaps in its counter.
+    {"slow_stream", Lie::slow_stream, hold30(), Cmd::run, 3, "streams at", 60, false},
+    // The link delivers one byte per 20 ms: replies and samples arrive far too late. The assertion is exit 3 within
+    // the bound; the fragment is the stalled stream's.
+    {"trickle", Lie::trickle, hold30(), Cmd::run, 3, "no sample for", 60, false},
+    // Every sample 20 times: duplicates are dropped, the session still accepted, memory bounded.
+    {"sample_dup_flood", Lie::sample_dup_flood, hold30(), Cmd::run, 0, "accepted", 120, true},
+    // 2000 events per second: the event queue is bounded, the session still accepted.
+    {"event_flood", Lie::event_flood, hold30(), Cmd::run, 0, "accepted", 120, true},
+    // link-check meets the same lies: it moves nothing, but must end and say why.
+    {"link_check_clock_frozen", Lie::clock_frozen, Trigger::at_start(), Cmd::link_check, 3,
+     "the controller's clock stopped", 30, false},
+    {"link_check_slow_stream", Lie::slow_stream, Trigger::at_start(), Cmd::link_check, 3, "streams at", 30, false},
+    {"link_check_silence", Lie::silence, Trigger::after_reply_to("HELLO"), Cmd::link_check, 3, "no", 30, false},
+};
+
+// ctest gives each discovered test 300 s (loadtrim_integration_test); the harness ends the tool before that, so
+// a scaled bound still reports what the tool did rather than being cut off by ctest.
+constexpr double kMaxScaledBoundS = 270.0;
+
+#if defined(__SANITIZE_ADDRESS__)
+constexpr bool kAddressSanitizer = true;  // its shadow memory and quarantine dwarf the tool's own: no RSS bound
+#else
+constexpr bool kAddressSanitizer = false;
+#endif
+
+// The simulator's time scale: 200 unless LOADTRIM_TEST_LIE_TIME_SCALE says otherwise (a sanitized tool cannot keep
+// up with 20000 samples per wall second on a loaded host; the triggers are in simulated seconds either way).
+std::string time_scale() {
+  const char* s = std::getenv("LOADTRIM_TEST_LIE_TIME_SCALE");
+  if (!s || !*s) return "200";
+  char* end = nullptr;
+  const double v = std::strtod(s, &end);
+  return end && *end == '\0' && v >= 1.0 && v <= 1000.0 ? std::string(s) : "200";
+}
+
+double bound_scale() {
+  const char* s = std::getenv("LOADTRIM_TEST_LIE_BOUND_SCALE");
+  if (!s || !*s) return 1.0;
+  char* end = nullptr;
+  const double v = std::strtod(s, &end);
+  return end && *end == '\0' && v > 0.0 ? v : 1.0;
+}
+
+struct RunResult {
+  int exit_code = -1;   // the exit code, or 128 + signal
+  bool killed = false;  // by the harness at the bound
+  double seconds = 0.0;
+  std::string output;   // stdout and stderr interleaved (the last kMaxOutput bytes)
+  long peak_rss_kib = 0;  // VmHWM, the highest seen while it ran
+};
+
+long vm_hwm_kib(pid_t pid) {
+  std::ifstream in("/proc/" + std::to_string(pid) + "/status");
+  std::string line;
+  while (std::getline(in, line))
+    if (line.rfind("VmHWM:", 0) == 0) return std::strtol(line.c_str() + 6, nullptr, 10);
+  return 0;
+}
+
+// Runs the tool with stdout and stderr on one pipe and `env` added to the environment; SIGKILL at the bound.
+// Everything the child needs is built before fork (the test process has threads: only async-signal-safe calls
+// between fork and exec).
+RunResult run_bounded(const std::vector<std::string>& args, const std::vector<std::string>& env, double bound_s) {
+  constexpr std::size_t kMaxOutput = 4u << 20;
+  std::vector<std::string> argv_s = {kExe};
+  argv_s.insert(argv_s.end(), args.begin(), args.end());
+  std::vector<char*> argv;
+  for (auto& a : argv_s) argv.push_back(a.data());
+  argv.push_back(nullptr);
+  std::vector<std::string> env_s = env;
+  for (char** e = environ; *e; ++e) {
+    const std::string kv = *e;
+    const std::string key = kv.substr(0, kv.find('='));
+    if (std::none_of(env.begin(), env.end(), [&](const std::string& x) { return x.rfind(key + "=", 0) == 0; }))
+      env_s.push_back(kv);
+  }
+  std::vector<char*> envp;
+  for (auto& e : env_s) envp.push_back(e.data());
+  envp.push_back(nullptr);
+  int fds[2];
+  if (::pipe2(fds, O_CLOEXEC) != 0) throw std::runtime_error("pipe failed");
+  const pid_t parent = ::getpid();
+  const auto t0 = std::chrono::steady_clock::now();
+  const pid_t pid = ::fork();
+  if (pid < 0) throw std::runtime_error("fork failed");
+  if (pid == 0) {
+    ::prctl(PR_SET_PDEATHSIG, SIGKILL);
+    if (::getppid() != parent) ::_exit(127);
+    ::dup2(fds[1], STDOUT_FILENO);
+    ::dup2(fds[1], STDERR_FILENO);
+    const int devnull = ::open("/dev/null", O_RDONLY);
+    if (devnull >= 0) ::dup2(devnull, STDIN_FILENO);
+    ::execve(argv[0], argv.data(), envp.data());
+    ::_exit(127);
+  }
+  ::close(fds[1]);
+  // VmHWM counts only once the child runs the tool: before exec it is a copy of this process.
+  std::error_code ec;
+  const std::string exe_real = fs::canonical(kExe, ec).string();
+  const std::string exe_link = "/proc/" + std::to_string(pid) + "/exe";
+  bool running_tool = false;
+  RunResult res;
+  int status = 0;
+  bool reaped = false, eof = false;
+  auto last_rss = t0 - std::chrono::seconds(1);
+  const auto bound = std::chrono::duration<double>(bound_s);
+  while (!reaped || !eof) {
+    const auto now = std::chrono::steady_clock::now();
+    if (!reaped) {
+      if (!running_tool) running_tool = fs::read_symlink(exe_link, ec).string() == exe_real;
+      if (running_tool && now - last_rss >= std::chrono::milliseconds(50)) {
+        res.peak_rss_kib = std::max(res.peak_rss_kib, vm_hwm_kib(pid));
+        last_rss = now;
+      }
+      if (!res.killed && now - t0 > bound) {
+        ::kill(pid, SIGKILL);
+        res.killed = true;
+      }
+      if (::waitpid(pid, &status, WNOHANG) == pid) {
+        reaped = true;
+        res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+      }
+    } else if (now - t0 > bound + std::chrono::seconds(5)) {
+      break;  // a grandchild holds the pipe: stop reading
+    }
+    if (!eof) {
+      pollfd p{fds[0], POLLIN, 0};
+      if (::poll(&p, 1, 20) > 0) {
+        char buf[8192];
+        const ssize_t n = ::read(fds[0], buf, sizeof buf);
+        if (n <= 0) eof = true;
+        else {
+          res.output.append(buf, static_cast<std::size_t>(n));
+          if (res.output.size() > kMaxOutput) res.output.erase(0, res.output.size() - kMaxOutput / 2);
+        }
+      }
+    } else {
+      std::this_thread::sleep_for(std::chrono::milliseconds(20));
+    }
+  }
+  ::close(fds[0]);
+  res.exit_code = WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
+  return res;
+}
+
+std::string file_text(const std::string& path) {
+  std::ifstream in(path);
+  return std::string(std::istreambuf_iterator<char>(in), {});
+}
+
+std::string last_line(const std::string& s) {
+  std::string text = s;
+  for (char& c : text)
+    if (c == '\r') c = '\n';
+  std::size_t end = text.find_last_not_of('\n');
+  if (end == std::string::npos) return "";
+  const std::size_t start = text.rfind('\n', end);
+  return text.substr(start == std::string::npos ? 0 : start + 1, end - (start == std::string::npos ? 0 : start + 1) + 1);
+}
+
+// The line that says how the tool ended (its outcome, a link-check verdict or an error), else the last line.
+std::string outcome_line(const std::string& out) {
+  static const char* const kStarts[] = {"accepted:", "not-accepted:", "controller-fault:", "refused:", "interrupted:",
+                                        "record-failure:", "link-check ", "link-check:", "loadtrim: "};
+  std::string found;
+  std::istringstream in(out);
+  for (std::string l; std::getline(in, l);) {
+    const auto b = l.find_first_not_of(' ');
+    if (b == std::string::npos || l.compare(b, 18, "loadtrim: WARNING:") == 0) continue;
+    for (const char* k : kStarts)
+      if (l.compare(b, std::string_view(k).size(), k) == 0) found = l.substr(b);
+  }
+  return found.empty() ? last_line(out) : found;
+}
+
+std::string tail(const std::string& s, std::size_t n = 3000) { return s.size() > n ? "..." + s.substr(s.size() - n) : s; }
+}  // namespace
+
+class LyingController : public ::testing::TestWithParam<Row> {};
+
+TEST_P(LyingController, EndsWithinItsBoundNamingTheCause) {
+  const Row& row = GetParam();
+  const bool session = row.cmd == Cmd::run;
+  loadtrim::testing::SimProcess sim({"--time-scale", time_scale()});
+  LyingProxy proxy(sim.port(), {row.lie, row.trigger});
+  std::string dir = (fs::temp_directory_path() / "loadtrim-lie-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  // The row's own data root and lock folder: rows run in parallel and never touch the user's.
+  std::string data = (fs::temp_directory_path() / "loadtrim-lie-data-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(data.data()));
+  const std::vector<std::string> env = {"LOADTRIM_DATA_DIR=" + data + "/root", "LOADTRIM_LOCK_DIR=" + data + "/locks"};
+  std::vector<std::string> args;
+  if (session)
+    args = {"run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml",
+            "--port", std::to_string(proxy.port()), "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--profile",
+            kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir, "--unattended", "--rewarm-s", "60"};
+  else
+    args = {"link-check", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(proxy.port())};
+  const double bound = std::min(row.bound_s * bound_scale(), kMaxScaledBoundS);
+  const RunResult res = run_bounded(args, env, bound);
+
+  std::string folder;  // the session folder: the one with a log
+  for (const auto& e : fs::directory_iterator(dir))
+    if (e.is_directory() && fs::exists(e.path() / "events.jsonl")) folder = e.path().string();
+  const std::string logged = folder.empty() ? "" : file_text(folder + "/events.jsonl");
+  const auto began = proxy.lie_began_at();
+  const auto st = proxy.stats();
+  std::printf("[lie] %s (%s, %s): exit %d%s after %.1f s (bound %.0f s); lie %s; proxy: %d connection(s), %llu altered, "
+              "%llu dropped, %llu injected, %.1f s CPU; peak RSS %ld KiB; said: %s\n",
+              row.name, loadtrim::testing::to_string(row.lie), loadtrim::testing::describe(row.trigger).c_str(), res.exit_code,
+              res.killed ? " (killed at the bound)" : "", res.seconds, bound, began ? "told" : "never told", st.connections,
+              static_cast<unsigned long long>(st.lines_altered), static_cast<unsigned long long>(st.lines_dropped),
+              static_cast<unsigned long long>(st.lines_injected), st.cpu_s, res.peak_rss_kib, outcome_line(res.output).c_str());
+  std::fflush(stdout);
+
+  EXPECT_FALSE(res.killed) << "no end within " << bound << " s: killed at the bound. Last output:\n" << tail(res.output);
+  EXPECT_EQ(res.exit_code, row.exit_code) << tail(res.output);
+  EXPECT_TRUE(res.output.find(row.message) != std::string::npos || logged.find(row.message) != std::string::npos)
+      << "expected '" << row.message << "' in the output or the log; output:\n"
+      << tail(res.output);
+  if (row.lie == Lie::none) {
+    // Transparent: nothing changed, dropped or added, and the session ended with its own safe stop.
+    EXPECT_FALSE(began);
+    EXPECT_EQ(st.lines_altered, 0u);
+    EXPECT_EQ(st.lines_dropped, 0u);
+    EXPECT_EQ(st.lines_injected, 0u);
+    EXPECT_TRUE(proxy.sent("MODE", "STOP"));
+  } else {
+    // A lie never told proves nothing: the trigger must have fired while the tool was connected.
+    EXPECT_TRUE(began) << "the lie (" << loadtrim::testing::to_string(row.lie) << ", "
+                       << loadtrim::testing::describe(row.trigger) << ") was never told";
+    if (session) {
+      EXPECT_TRUE(proxy.sent_after_lie("MODE", "STOP")) << "no MODE STOP commanded after the lie began";
+    }
+  }
+  if (session) {
+    EXPECT_FALSE(folder.empty()) << "no session folder in " << dir;
+    if (!folder.empty()) {
+      const auto v = record::verify_session_folder(folder);
+      EXPECT_TRUE(v.ok) << v.message;
+    }
+  }
+  if (row.rss_bound && !kAddressSanitizer) {
+    EXPECT_LT(res.peak_rss_kib, kRssLimitKib) << "peak RSS of the tool";
+  }
+  fs::remove_all(data);
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
+INSTANTIATE_TEST_SUITE_P(Lies, LyingController, ::testing::ValuesIn(kRows),
+                         [](const auto& info) { return std::string(info.param.name); });
+
+// ---- the proxy checked on its own, with a bare protocol client (no tool code involved) --------------------------
+// These prove the harness: a lie is exactly the lie (the rest of the stream stays consistent: consecutive line
+// numbers, no made-up gaps) and starts at its trigger.
+namespace {
+
+class RawClient {
+ public:
+  explicit RawClient(unsigned short port) {
+    fd_ = ::socket(AF_INET, SOCK_STREAM | SOCK_CLOEXEC, 0);
+    sockaddr_in a{};
+    a.sin_family = AF_INET;
+    a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
+    a.sin_port = htons(port);
+    if (fd_ < 0 || ::connect(fd_, reinterpret_cast<sockaddr*>(&a), sizeof a) != 0) throw std::runtime_error("connect failed");
+  }
+  ~RawClient() { ::close(fd_); }
+  RawClient(const RawClient&) = delete;
+  RawClient& operator=(const RawClient&) = delete;
+
+  void send(const std::string& verb, std::vector<std::string> fields = {}) {
+    const std::string l = line::encode({seq_++, verb, std::move(fields)});
+    ASSERT_EQ(::write(fd_, l.data(), l.size()), static_cast<ssize_t>(l.size()));
+  }
+  // Every line that arrives within `d` (bytes as they came, decoded or not), sending BEAT every 200 ms so the
+  // controller's watchdog stays fed.
+  std::vector<std::string> read_for(std::chrono::milliseconds d) {
+    std::vector<std::string> out;
+    const auto until = std::chrono::steady_clock::now() + d;
+    auto beat = std::chrono::steady_clock::now();
+    while (std::chrono::steady_clock::now() < until) {
+      if (std::chrono::steady_clock::now() - beat > std::chrono::milliseconds(200)) {
+        send("BEAT");
+        beat = std::chrono::steady_clock::now();
+      }
+      pollfd p{fd_, POLLIN, 0};
+      if (::poll(&p, 1, 20) <= 0) continue;
+      char buf[65536];
+      const ssize_t n = ::read(fd_, buf, sizeof buf);
+      if (n <= 0) break;
+      splitter_.feed(std::string_view(buf, static_cast<std::size_t>(n)),
+                     [&](std::string_view l, bool) { out.emplace_back(l); });
+    }
+    return out;
+  }
+  // Sends a request and reads until its reply (other lines are kept in `seen`).
+  std::optional<line::Message> request(const std::string& verb, std::vector<std::string> fields,
+                                       std::vector<std::string>* seen = nullptr) {
+    const std::uint32_t s = seq_;
+    send(verb, std::move(fields));
+    const auto until = std::chrono::steady_clock::now() + std::chrono::seconds(3);
+    while (std::chrono::steady_clock::now() < until) {
+      for (const auto& l : read_for(std::chrono::milliseconds(50))) {
+        if (seen) seen->push_back(l);
+        const auto d = line::decode(l);
+        if (d.ok() && (d.message.type == "OK" || d.message.type == "ERR") && !d.message.fields.empty() &&
+            d.message.fields[0] == std::to_string(s))
+          return d.message;
+      }
+    }
+    return std::nullopt;
+  }
+
+ private:
+  int fd_ = -1;
+  std::uint32_t seq_ = 1;
+  line::LineSplitter splitter_;
+};
+
+struct Smp {
+  std::uint32_t seq;
+  std::uint64_t index;
+  double time_s;
+};
+
+// The decoded SMP lines, and whether all decoded lines carry consecutive numbers.
+std::vector<Smp> samples_of(const std::vector<std::string>& lines, bool* consecutive) {
+  std::vector<Smp> out;
+  std::optional<std::uint32_t> last;
+  *consecutive = true;
+  for (const auto& l : lines) {
+    const auto d = line::decode(l);
+    if (!d.ok()) continue;
+    if (last && d.message.seq != *last + 1) *consecutive = false;
+    last = d.message.seq;
+    if (d.message.type == "SMP" && d.message.fields.size() == 6)
+      out.push_back({d.message.seq, std::stoull(d.message.fields[0]), std::stod(d.message.fields[1])});
+  }
+  return out;
+}
+
+}  // namespace
+
+TEST(LiesProxySelfCheck, SlowStreamIsASlowStreamNotALossyOne) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "20"});
+  LyingProxy proxy(sim.port(), {Lie::slow_stream, Trigger::at_start()});
+  RawClient c(proxy.port());
+  ASSERT_TRUE(c.request("HELLO", {"version=1", "client=selfcheck"}));
+  ASSERT_TRUE(c.request("STREAM", {"100"}));
+  bool consecutive = false;
+  const auto s = samples_of(c.read_for(std::chrono::milliseconds(1500)), &consecutive);
+  EXPECT_TRUE(consecutive) << "line numbers with gaps: the tool would count lost lines";
+  ASSERT_GE(s.size(), 5u);
+  for (std::size_t i = 1; i < s.size(); ++i) {
+    EXPECT_EQ(s[i].index, s[i - 1].index + 1) << "sample counter with gaps";
+    EXPECT_NEAR(s[i].time_s - s[i - 1].time_s, 0.5, 1e-6) << "every 50th of a 100 Hz stream: 0.5 s apart";
+  }
+}
+
+TEST(LiesProxySelfCheck, DuplicateFloodRepeatsEachSampleTwentyTimesWithConsecutiveLineNumbers) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "5"});
+  LyingProxy proxy(sim.port(), {Lie::sample_dup_flood, Trigger::at_start()});
+  RawClient c(proxy.port());
+  ASSERT_TRUE(c.request("HELLO", {"version=1", "client=selfcheck"}));
+  ASSERT_TRUE(c.request("STREAM", {"10"}));
+  bool consecutive = false;
+  const auto s = samples_of(c.read_for(std::chrono::milliseconds(1000)), &consecutive);
+  EXPECT_TRUE(consecutive);
+  ASSERT_GE(s.size(), 40u);
+  // From the first sample on, groups of 20 copies, one group per sample.
+  for (std::size_t i = 0; i + 20 <= s.size(); i += 20) {
+    for (std::size_t k = 1; k < 20; ++k) EXPECT_EQ(s[i + k].index, s[i].index);
+    if (i > 0) {
+      EXPECT_EQ(s[i].index, s[i - 20].index + 1);
+    }
+  }
+}
+
+TEST(LiesProxySelfCheck, SettingNotAppliedAnswersLikeTheControllerButLeavesItsSettingAlone) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "1"});
+  {
+    LyingProxy proxy(sim.port(), {Lie::setting_not_applied, Trigger::at_start()});
+    RawClient c(proxy.port());
+    ASSERT_TRUE(c.request("HELLO", {"version=1", "client=selfcheck"}));
+    std::vector<std::string> seen;
+    ASSERT_TRUE(c.request("COEF", {"SET", "10", "0.5", "0.03"}, &seen));
+    const auto second = c.request("COEF", {"SET", "20", "0.25", "0.02"}, &seen);
+    ASSERT_TRUE(second);
+    EXPECT_EQ(second->type, "OK");
+    EXPECT_EQ(line::field(*second, "f0_n").value_or(""), "20");
+    const auto get = c.request("COEF", {"GET"}, &seen);
+    ASSERT_TRUE(get);
+    EXPECT_EQ(line::field(*get, "f0_n").value_or(""), "20") << "the read-back repeats what was written";
+    bool consecutive = false;
+    samples_of(seen, &consecutive);
+    EXPECT_TRUE(consecutive);
+    EXPECT_TRUE(proxy.lie_began());
+    const auto reqs = proxy.requests();
+    ASSERT_EQ(reqs.size(), 4u);
+    EXPECT_TRUE(reqs[1].forwarded);
+    EXPECT_FALSE(reqs[2].forwarded);
+    EXPECT_TRUE(reqs[2].after_lie);
+  }
+  // The controller itself still has the first setting.
+  RawClient direct(sim.port());
+  ASSERT_TRUE(direct.request("HELLO", {"version=1", "client=selfcheck"}));
+  const auto get = direct.request("COEF", {"GET"});
+  ASSERT_TRUE(get);
+  EXPECT_EQ(line::number_field(*get, "f0_n").value_or(-1), 10.0);
+}
+
+TEST(LiesProxySelfCheck, TheTriggerWaitsForTheModeToLast) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "20"});
+  LyingProxy proxy(sim.port(), {Lie::clock_jumps_ahead, Trigger::in_mode("HOLD", 10.0)});
+  RawClient c(proxy.port());
+  ASSERT_TRUE(c.request("HELLO", {"version=1", "client=selfcheck"}));
+  ASSERT_TRUE(c.request("STREAM", {"10"}));
+  bool consecutive = false;
+  const auto idle = samples_of(c.read_for(std::chrono::milliseconds(700)), &consecutive);
+  EXPECT_FALSE(idle.empty());
+  EXPECT_FALSE(proxy.armed_at()) << "armed before any HOLD";
+  ASSERT_TRUE(c.request("MODE", {"HOLD", "20"}));
+  const auto held = samples_of(c.read_for(std::chrono::milliseconds(1500)), &consecutive);  // ~30 simulated s
+  ASSERT_TRUE(c.request("MODE", {"STOP"}));
+  EXPECT_TRUE(consecutive);
+  ASSERT_GE(held.size(), 100u);
+  int jumps = 0;
+  for (std::size_t i = 1; i < held.size(); ++i)
+    if (held[i].time_s - held[i - 1].time_s > 500.0) ++jumps;
+  EXPECT_EQ(jumps, 1) << "one step ahead";
+  EXPECT_TRUE(proxy.lie_began());
+  EXPECT_TRUE(proxy.sent_after_lie("MODE", "STOP"));
+  EXPECT_FALSE(proxy.sent_after_lie("MODE", "HOLD"));
+}
+
+TEST(LiesProxySelfCheck, HalfLinesFailToDecodeAndEventFloodRunsAtItsRate) {
+  {
+    loadtrim::testing::SimProcess sim({"--time-scale", "1"});
+    LyingProxy proxy(sim.port(), {Lie::half_lines, Trigger::at_start()});
+    RawClient c(proxy.port());
+    ASSERT_TRUE(c.request("HELLO", {"version=1", "client=selfcheck"}));
+    ASSERT_TRUE(c.request("STREAM", {"100"}));
+    int cut = 0, smp = 0;
+    for (const auto& l : c.read_for(std::chrono::milliseconds(500))) {
+      const auto d = line::decode(l);
+      cut += d.error == line::DecodeError::no_crc;
+      smp += d.ok() && d.message.type == "SMP";
+    }
+    EXPECT_GT(cut, 20);
+    EXPECT_EQ(smp, 0);
+  }
+  {
+    loadtrim::testing::SimProcess sim({"--time-scale", "1"});
+    LyingProxy proxy(sim.port(), {Lie::event_flood, Trigger::at_start()});
+    RawClient c(proxy.port());
+    ASSERT_TRUE(c.request("HELLO", {"version=1", "client=selfcheck"}));
+    int events = 0;
+    bool consecutive = false;
+    const auto lines = c.read_for(std::chrono::milliseconds(1000));
+    samples_of(lines, &consecutive);
+    for (const auto& l : lines) events += l.find(" EVT INFO kind=NOTE ") != std::string::npos;
+    EXPECT_TRUE(consecutive);
+    // About 2000 in a second; a loaded host may deliver fewer, never many more.
+    EXPECT_GT(events, 500);
+    EXPECT_LT(events, 2600);
+  }
+}
