@@ -1,6 +1,7 @@
 #include "line/line_controller.hpp"
 
 #include <charconv>
+#include <optional>
 
 #include "core/problem.hpp"
 
@@ -35,7 +36,15 @@ bool parse_sample(const Message& m, controller::Sample& s) {
   std::uint64_t n = 0;
   auto r = std::from_chars(f[0].data(), f[0].data() + f[0].size(), n);
   if (r.ec != std::errc() || r.ptr != f[0].data() + f[0].size()) return false;
-  const auto t = parse_number(f[1]), v = parse_number(f[2]), force = parse_number(f[3]);
+  // A well-framed sample with a non-finite value ("nan", "inf") is still a sample: it goes up to the controller
+  // layer, which drops it, counts it and names it ("malformed samples"); only text that is not a number is refused here.
+  auto number = [](std::string_view x) -> std::optional<double> {
+    double d = 0.0;
+    const auto r = std::from_chars(x.data(), x.data() + x.size(), d);
+    if (x.empty() || r.ec != std::errc() || r.ptr != x.data() + x.size()) return std::nullopt;
+    return d;
+  };
+  const auto t = number(f[1]), v = number(f[2]), force = number(f[3]);
   if (!t || !v || !force || !parse_mode(f[4], s.mode)) return false;
   std::uint32_t flags = 0;
   auto rf = std::from_chars(f[5].data(), f[5].data() + f[5].size(), flags, 16);
@@ -73,7 +82,7 @@ void LineController::handle_line(std::string_view line, bool too_long) {
   if (m.type == "SMP") {
     controller::Sample s;
     if (parse_sample(m, s)) {
-      if (samples_.size() >= kMaxSamples) samples_.pop_front();  // shows as a gap in the sample counter
+      if (samples_.size() >= max_samples_) samples_.pop_front();  // shows as a gap in the sample counter
       samples_.push_back(s);
     } else {
       ++stats_.lines_rejected;
@@ -249,6 +258,11 @@ Result LineController::do_status(controller::StatusReport& out, Deadline d) {
   const std::string fault = field(rep, "fault").value_or("none");
   out.fault = fault == "none" ? "" : fault;
   return Result::success();
+}
+
+void LineController::on_stream_rate(double samples_per_wall_s) {
+  const double want = samples_per_wall_s * kSampleBoundWallS;
+  max_samples_ = std::max<std::size_t>(kMinSampleBound, want < 5e7 ? static_cast<std::size_t>(want) : 50000000u);
 }
 
 void LineController::do_take_events(std::vector<std::string>& out) {

@@ -19,7 +19,9 @@ class LineController : public controller::Controller {
   ~LineController() override;
   std::string describe() const { return transport_->describe(); }
   // Bounds on what is kept between calls: a flooding controller loses its oldest lines, never the tool its memory.
-  static constexpr std::size_t kMaxEvents = 256, kMaxReplies = 64, kMaxSamples = 262144;
+  // Samples: 10 s of the stream (at least 65,536), enough for any reply the tool waits for behind queued samples.
+  static constexpr std::size_t kMaxEvents = 256, kMaxReplies = 64, kMinSampleBound = 65536;
+  static constexpr double kSampleBoundWallS = 10.0;
 
  protected:
   Result do_connect(Deadline d) override;
@@ -36,6 +38,7 @@ class LineController : public controller::Controller {
   Result do_status(controller::StatusReport& out, Deadline d) override;
   Result do_clear_fault(Deadline d) override;
   void do_take_events(std::vector<std::string>& out) override;
+  void on_stream_rate(double samples_per_wall_s) override;
 
  private:
   // Sends a request and waits for its OK/ERR, handling every other line that arrives meanwhile.
@@ -51,6 +54,7 @@ class LineController : public controller::Controller {
   std::uint32_t expected_peer_seq_ = 0;
   std::deque<Message> replies_;
   std::deque<controller::Sample> samples_;
+  std::size_t max_samples_ = kMinSampleBound;
   std::deque<std::string> events_;
 };
 

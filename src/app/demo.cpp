@@ -84,6 +84,8 @@ int demo_fleet(DemoOptions o) {
     std::string err;
     record::write_durable(file, config::target_toml(v, "Target from the public US EPA Test Car List (samples/data), for the demo."), err);
     RunRequest r = o.req;
+    // An all-wheel-drive vehicle runs on a two-axle cell (a single-axle cell refuses it: docs/safety.md).
+    if (layout == core::AxleLayout::two_axle) r.cell_file = data_dir() + "/config/cells/sim-inprocess-two-axle.toml";
     r.target_file = file;
     r.profile = profile_name;
     r.inprocess_truth = truth;

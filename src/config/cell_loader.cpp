@@ -84,6 +84,9 @@ controller::CellConfig read_cell(TomlReader& r) {
   if (c.min_inertia_kg > 0.0 && c.max_inertia_kg > 0.0 && c.max_inertia_kg < c.min_inertia_kg)
     r.error("dyno.max_inertia_kg", "must not be below dyno.min_inertia_kg");
   c.enforce_checks = r.boolean_or("checks.enforce", true);
+  c.records_public_key = r.string_or("records.public_key", "");
+  c.records_private_key = r.string_or("records.private_key", "");
+  c.operator_name = r.string_or("records.operator", "");
   c.sample_rate_hz = r.number_or("controller.sample_rate_hz", 100.0, 10.0, 1000.0, "Hz");
   if (c.adapter.rfind("modbus", 0) == 0) c.register_map = read_register_map(r);
   return c;

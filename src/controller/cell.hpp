@@ -48,6 +48,10 @@ struct CellConfig {
   double min_inertia_kg = 0.0;  // the dyno's simulated inertia range; 0 = not given
   double max_inertia_kg = 0.0;
   bool enforce_checks = true;   // sessions refuse to start while a required dyno check is due (override: logged)
+  // [records] (docs/records.md): the cell's signing key for seals: public_key a "sha256:" fingerprint or a .pub.pem
+  // path; private_key "" = <data root>/keys/cell-<name>.key.pem. Both empty: folders are sealed unsigned.
+  std::string records_public_key, records_private_key;
+  std::string operator_name;    // records.operator: who runs this cell when the command does not say
   modbus::RegisterMap register_map;  // modbus-* adapters
 };
 

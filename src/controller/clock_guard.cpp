@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <iterator>
 
 #include "core/problem.hpp"
 
@@ -18,13 +19,15 @@ void ClockGuard::reset() {
   samples_ = 0;
   checkpoints_.clear();
   big_step_ = big_step_w_ = 0.0;
+  rate_c0_ = rate_w0_ = 0.0;
+  rate_n_ = 0;
 }
 
 const ClockGuard::Checkpoint* ClockGuard::reference(double w, double age_s) const {
-  const Checkpoint* ref = nullptr;
-  for (const auto& cp : checkpoints_)
-    if (cp.w <= w - age_s) ref = &cp;  // checkpoints are in time order: the last one old enough
-  return ref;
+  // Checkpoints are in time order: the last one old enough (a binary search: this runs for every sample).
+  const auto it = std::upper_bound(checkpoints_.begin(), checkpoints_.end(), w - age_s,
+                                   [](double t, const Checkpoint& cp) { return t < cp.w; });
+  return it == checkpoints_.begin() ? nullptr : &*std::prev(it);
 }
 
 std::optional<std::string> ClockGuard::close_window(double w) {
@@ -43,11 +46,6 @@ std::optional<std::string> ClockGuard::close_window(double w) {
             num(rules_.min_rate * rules_.scale) + "× accepted)";
     }
   }
-  if (!v && ref && rules_.stream_rate_hz > 0.0 && last_c_ > ref->c) {
-    const double hz = static_cast<double>(samples_ - ref->samples) / (last_c_ - ref->c);
-    if (hz < 0.5 * rules_.stream_rate_hz || hz > 2.0 * rules_.stream_rate_hz)
-      v = "the controller streams at " + num(hz, 1) + " Hz; " + num(rules_.stream_rate_hz) + " Hz was asked";
-  }
   checkpoints_.push_back({w, last_c_, max_offset_, samples_});
   // Keep what the references need: the newest checkpoint older than the longer window, and everything after it.
   const double keep_from = w - std::max(rules_.slow_window_wall_s, rules_.fast_window_wall_s) - 2.0 * rules_.window_wall_s;
@@ -57,7 +55,7 @@ std::optional<std::string> ClockGuard::close_window(double w) {
   return v;
 }
 
-std::optional<std::string> ClockGuard::on_sample(double c, double w) {
+std::optional<std::string> ClockGuard::on_sample(double c, double w, std::uint64_t index_gap) {
   if (!std::isfinite(c) || c < 0.0) return "the controller's clock reads " + num(c) + " s, not a time";
   const double scale = std::max(rules_.scale, 1e-9);
   const double offset = c - scale * w;
@@ -70,10 +68,23 @@ std::optional<std::string> ClockGuard::on_sample(double c, double w) {
     win_max_offset_ = offset;
     win_have_ = true;
     samples_ = 1;
+    last_advance_w_ = w;
+    checkpoints_.push_back({w, c, offset, samples_});  // the first reference: what the clocks said at the start
+    rate_c0_ = c;
+    rate_w0_ = w;
+    rate_n_ = 0;
     return std::nullopt;
   }
   if (c < last_c_)
     return "the controller's clock ran backwards from " + num(last_c_) + " s to " + num(c) + " s (" + num(last_c_ - c) + " s back)";
+  // On a streamed link consecutive samples are 1/rate apart in the controller's time: a step far beyond what the
+  // samples in between explain is a jump, whatever the wall clock says (index_gap: samples since the last one read).
+  if (rules_.stream_rate_hz > 0.0 && index_gap > 0) {
+    const double expected = static_cast<double>(index_gap) / rules_.stream_rate_hz;
+    if (c - last_c_ > 2.0 * expected + 1.0)
+      return "the controller's clock jumped ahead by " + num(c - last_c_) + " s between two consecutive samples (" +
+             num(expected) + " s expected at " + num(rules_.stream_rate_hz) + " Hz)";
+  }
   if (rules_.wall_related) {
     if (const Checkpoint* ref = reference(w, rules_.fast_window_wall_s)) {
       const double allowed = (rules_.max_rate - 1.0) * scale * (w - ref->w) + scale * rules_.slack_wall_s;
@@ -94,12 +105,34 @@ std::optional<std::string> ClockGuard::on_sample(double c, double w) {
     big_step_ = c - last_c_;
     big_step_w_ = w;
   }
+  // Stopped: samples keep arriving but the clock has not advanced for 3 s of wall time (a clock that ticks at least
+  // once a second passes; the tool's own pauses do not count: they leave no samples read in between).
+  if (c > last_c_) last_advance_w_ = w;
+  else if (rules_.wall_related && w - last_advance_w_ >= 3.0)
+    return "the controller's clock stopped: it read " + num(c) + " s for " + num(w - last_advance_w_, 1) +
+           " s of wall time while samples arrived";
   last_c_ = c;
   last_w_ = w;
   ++samples_;
   max_offset_ = std::max(max_offset_, offset);
   win_max_offset_ = win_have_ ? std::max(win_max_offset_, offset) : offset;
   win_have_ = true;
+  // The stream rate, over at least 5 s of controller time (and 0.5 s of wall time for wall-related clocks): samples
+  // per controller second outside [0.5, 2] × the rate asked — and, when the clock is tied to the wall, samples per
+  // wall second outside the same band around rate × scale too, so that a racing or crawling clock (which changes the
+  // first but not the second) is named as a clock by the rules above, not as a stream.
+  if (rules_.stream_rate_hz > 0.0 && c - rate_c0_ >= 5.0 && (!rules_.wall_related || w - rate_w0_ >= 0.5)) {
+    const double hz = static_cast<double>(rate_n_) / (c - rate_c0_);
+    const bool off = hz < 0.5 * rules_.stream_rate_hz || hz > 2.0 * rules_.stream_rate_hz;
+    const double per_wall = rules_.wall_related ? static_cast<double>(rate_n_) / (w - rate_w0_) : 0.0;
+    const double want_wall = rules_.stream_rate_hz * scale;
+    const bool off_wall = !rules_.wall_related || per_wall < 0.5 * want_wall || per_wall > 2.0 * want_wall;
+    rate_c0_ = c;
+    rate_w0_ = w;
+    rate_n_ = 0;
+    if (off && off_wall) return "the controller streams at " + num(hz, 1) + " Hz; " + num(rules_.stream_rate_hz) + " Hz was asked";
+  }
+  ++rate_n_;
   if (w - win_w0_ >= rules_.window_wall_s) return close_window(w);
   return std::nullopt;
 }

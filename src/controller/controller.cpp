@@ -49,6 +49,8 @@ bool Controller::lease_valid() const { return Clock::now().time_since_epoch().co
 
 void Controller::set_stopping(bool on) {
   const std::lock_guard<std::recursive_mutex> lock(mu_);
+  // The clock was not checked while stopping: its history starts afresh when moving resumes.
+  if (stopping_ && !on) clock_.reset();
   stopping_ = on;
 }
 
@@ -86,6 +88,7 @@ Result Controller::connect() {
     pending_.clear();
     pending_fault_.reset();
     pending_fault_is_event_ = false;
+    last_sample_wall_ = Clock::now();
     clock_.reset();
     malformed_run_ = 0;
     return do_connect(Clock::now() + timeouts_.connect);
@@ -200,6 +203,7 @@ Result Controller::start_stream(double rate_hz) {
     rules.stream_rate_hz = streamed() ? rate_hz : 0.0;
     clock_.set_rules(rules);
     stream_rate_hz_ = rate_hz;
+    on_stream_rate(rate_hz * time_scale_);
     ++epoch_;
     return r;
   });
@@ -272,11 +276,13 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
     malformed_run_ = 0;
     if (++recent_valid_ + recent_malformed_ >= 500) recent_valid_ = recent_malformed_ = 0;
     if (!stopping_)
-      if (auto v = clock_.on_sample(s.time_s, w); v && !pending_fault_) pending_fault_ = Result::fail(*v);
+      if (auto v = clock_.on_sample(s.time_s, w, have_index_ ? s.index - last_sample_.index : 0); v && !pending_fault_)
+        pending_fault_ = Result::fail(*v);
     if (have_index_ && s.index != next_index_) stats_.samples_lost += s.index - next_index_;
     next_index_ = s.index + 1;
     have_index_ = true;
     last_sample_ = s;
+    last_sample_wall_ = Clock::now();
     s.epoch = epoch_;
     ++stats_.samples_received;
     accepted.push_back(s);
@@ -286,7 +292,14 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
 Result Controller::receive_samples(std::vector<Sample>& out) {
   return guarded("receive samples", [&] {
     if (pending_fault_ && !stopping_) return *pending_fault_;
-    if (Result r = heartbeat_if_due(); !r.ok()) return r;
+    // A heartbeat that fails here is usually a controller that fell silent: say what was missing on both counts.
+    auto silent = [&](Result r) {
+      const auto quiet = std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - last_sample_wall_).count();
+      if (r.status == Result::Status::retryable && quiet >= timeouts_.sample_gap.count() / 2)
+        r.message = "no sample for " + std::to_string(quiet) + " ms and " + r.message;
+      return r;
+    };
+    if (Result r = heartbeat_if_due(); !r.ok()) return silent(r);
     const std::size_t before = out.size();
     out.insert(out.end(), pending_.begin(), pending_.end());
     pending_.clear();
@@ -309,8 +322,9 @@ Result Controller::receive_samples(std::vector<Sample>& out) {
           why += "; " + std::to_string(n) + " malformed samples dropped meanwhile, last: " + stats_.last_malformed;
         return Result::retry(why + ")");
       }
-      if (Result r = heartbeat_if_due(); !r.ok()) return r;
+      if (Result r = heartbeat_if_due(); !r.ok()) return silent(r);
     }
+    last_sample_wall_ = Clock::now();
     return Result::success();
   });
 }

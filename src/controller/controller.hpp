@@ -203,6 +203,9 @@ class Controller {
   virtual void do_take_events(std::vector<std::string>&) {}
   // Whether samples are streamed by the controller at the rate asked (checked), or polled by the adapter.
   virtual bool streamed() const { return true; }
+  // A stream was started: samples arrive at about this many per wall second (the rate asked × the controller's
+  // clock rate). Adapters that queue samples size their bounds from it.
+  virtual void on_stream_rate(double /*samples_per_wall_s*/) {}
 
   // How far a read-back may differ from what was written: the register's resolution (e.g. float32 in Modbus).
   virtual double readback_tolerance(double written) const { return 1e-9 * std::max(1.0, std::abs(written)); }
@@ -228,6 +231,7 @@ class Controller {
   std::uint64_t next_index_ = 0;
   bool have_index_ = false;
   Sample last_sample_{};
+  Clock::time_point last_sample_wall_ = Clock::now();
   std::uint64_t epoch_ = 0, clear_epoch_ = 0;
   std::vector<Sample> pending_;   // read before the last acknowledgement, not yet handed out
   std::optional<Result> pending_fault_;

@@ -201,6 +201,37 @@ DivergenceWatch::DivergenceWatch(double tolerance_n, double lowest_speed_kmh, do
   }
 }
 
+void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, const RoadLoad& measured, double worst_abs_deviation_n) {
+  if (verdict_) return;
+  if (!finite(measured)) {
+    verdict_ = "the controller does not follow the setting: a non-finite measured curve was reported";
+    return;
+  }
+  add(set, target, worst_abs_deviation_n);
+  if (verdict_ || entries_.empty()) return;
+  entries_.back().measured = measured;
+  // Rule 3: the measured road load does not move with the setting, over the last two or three adjustments.
+  const std::size_t n = entries_.size();
+  for (std::size_t span = 2; span <= 3 && !verdict_; ++span) {
+    if (n < span + 1 || !entries_[n - 1 - span].measured) continue;
+    const Entry &a = entries_[n - 1 - span], &c = entries_[n - 1];
+    double ss = 0.0, ms = 0.0;
+    constexpr int kPoints = 12;
+    for (int i = 0; i < kPoints; ++i) {
+      const double v = lo_kmh_ + (hi_kmh_ - lo_kmh_) * i / (kPoints - 1);
+      const double ds = (c.set - a.set).force_n(v), dm = (*c.measured - *a.measured).force_n(v);
+      ss += ds * ds;
+      ms += dm * ds;
+    }
+    const double rms = std::sqrt(ss / kPoints);
+    if (rms >= kMinMoveFactor * tolerance_n_ && ss > 0.0 && ms / ss < kMinResponse)
+      verdict_ = "the controller does not follow the setting: over the last " + std::to_string(span) +
+                 " adjustments the set road load moved by " + num(rms, 1) + " N (rms over " + num(lo_kmh_) + "–" +
+                 num(hi_kmh_) + " km/h) but the measured road load moved with it by a factor of only " + num(ms / ss, 2) +
+                 " (an applied setting moves it by about 1)";
+  }
+}
+
 void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, double worst_abs_deviation_n) {
   if (verdict_) return;
   if (!finite(set) || !finite(target) || !std::isfinite(worst_abs_deviation_n)) {
@@ -209,7 +240,7 @@ void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, double wo
     return;
   }
   const Entry e{set, std::abs(max_abs_on(set - target, lo_kmh_, hi_kmh_).force_n),
-                std::abs(worst_abs_deviation_n)};
+                std::abs(worst_abs_deviation_n), std::nullopt};
   if (!entries_.empty() &&
       std::abs(max_abs_on(set - entries_.back().set, lo_kmh_, hi_kmh_).force_n) < kSameSettingN)
     entries_.back() = e;  // the same setting again: not an adjustment; keep the latest deviation

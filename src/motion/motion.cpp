@@ -48,6 +48,17 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
   Sample last{};
   std::vector<Sample> got;
   for (;;) {
+    if (!stopping && rules_.status_every.count() > 0 &&
+        (Clock::now() - last_status_ >= rules_.status_every ||
+         (have_time_ && last_time_s_ - last_status_c_ >= rules_.status_every_controller_s))) {
+      last_status_ = Clock::now();
+      last_status_c_ = last_time_s_;
+      controller::StatusReport st;
+      if (Result r = c_.status(st); !r.ok()) {
+        r.message += " (during " + step.what + ")";
+        return r;
+      }
+    }
     if (step.stoppable && stop_requested()) return Result::fail("interrupted by the operator during " + step.what, kInterrupted);
     if (Clock::now() >= wall_end)
       return Result::fail(step.what + " did not complete within " + num(seconds(wall_end - began), 1) +

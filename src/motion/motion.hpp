@@ -47,6 +47,11 @@ struct Rules {
   double standstill_kmh = 0.5;      // at or below: the rollers stand still (every stop and start check)
   double min_clock_rate = 0.25;     // the slowest the controller's clock may run, × its stated rate (as the clock guard)
   std::chrono::milliseconds wall_slack{20000};
+  // How often the steps also ask the controller's status (its clock is checked against the samples' there, and an
+  // error there ends the step): after this much wall time or status_every_controller_s of controller time,
+  // whichever comes first, counted across steps; 0 = never.
+  std::chrono::milliseconds status_every{1000};
+  double status_every_controller_s = 30.0;
 };
 
 struct Step {
@@ -89,6 +94,8 @@ class Motion {
   const std::atomic<bool>* stop_;
   double last_time_s_ = 0.0;
   bool have_time_ = false;
+  std::chrono::steady_clock::time_point last_status_{};
+  double last_status_c_ = -1e300;
 };
 
 // A short description of a sample for messages: "82.3 km/h, road-load, flags 0x02".

@@ -32,6 +32,15 @@ RecordWriter::RecordWriter(std::string folder) : folder_(std::move(folder)) {
 
 RecordWriter::~RecordWriter() = default;
 
+void RecordWriter::close() {
+  try {
+    if (op_) op_->flush();
+  } catch (...) {
+  }
+  op_.reset();
+  log_.reset();
+}
+
 void RecordWriter::note(const std::string& text) {
   try {
     if (op_) op_->info(text);
@@ -64,6 +73,10 @@ std::string human(const Event& e) {
 
 bool RecordWriter::on_event(const Event& ev) {
   if (!error_.empty()) return false;
+  if (!log_) {
+    error_ = "the record is closed";
+    return false;
+  }
   nlohmann::json data = ev.data;
   if (ev.trace) {
     char name[32];
@@ -76,7 +89,10 @@ bool RecordWriter::on_event(const Event& ev) {
     }
     data["files"].push_back({{"path", name}, {"sha256", record::sha256_hex(csv)}, {"samples", ev.trace->size()}});
   }
-  if (ev.type == "finished") {
+  // summary.json is written once, when the session's result is final: an interrupted session's "finished" record
+  // holds its summary inline, and the file is written (and sealed) only when a resume reaches the verdict. Nothing
+  // whose hash a record holds is ever rewritten (docs/records.md).
+  if (ev.type == "finished" && is_final(data.value("result", ""))) {
     std::string err;
     const std::string text = data.dump(2) + "\n";
     if (!record::write_durable((fs::path(folder_) / "summary.json").string(), text, err)) {

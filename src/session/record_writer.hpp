@@ -29,6 +29,9 @@ class RecordWriter : public Observer {
   record::EventLog& log() { return *log_; }
   // Operator-log line without a log record (e.g. the console's view of a warning).
   void note(const std::string& text);
+  // Flushes and closes the operator log and the event log: after this nothing more is written (the folder can be
+  // sealed). Further events fail.
+  void close();
 
  private:
   std::string folder_;

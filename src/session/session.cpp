@@ -51,6 +51,11 @@ const char* to_string(Outcome o) {
   return "unknown";
 }
 
+bool is_final(Outcome o) { return o == Outcome::accepted || o == Outcome::not_accepted || o == Outcome::refused; }
+bool is_final(const std::string& r) {
+  return r == to_string(Outcome::accepted) || r == to_string(Outcome::not_accepted) || r == to_string(Outcome::refused);
+}
+
 Session::Session(Inputs inputs, Options options, controller::Controller& controller, std::vector<Observer*> observers,
                  const std::atomic<bool>* stop_flag)
     : in_(std::move(inputs)),
@@ -516,7 +521,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
       return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) + "): " + rec.evaluation.unusable_reason};
   } else {
     rec.decision = method_->on_coastdown(set_, rec.evaluation.fit.coefficients, rec.evaluation.check.pass);
-    if (divergence_) divergence_->add(set_, in_.vehicle.target, rec.evaluation.check.worst_abs_deviation_n);
+    if (divergence_) divergence_->add(set_, in_.vehicle.target, rec.evaluation.fit.coefficients, rec.evaluation.check.worst_abs_deviation_n);
     nlohmann::json j = to_json(rec, p);
     // Predicted band times for the target at TM + m_r, beside the measured ones (what the rollers should do).
     const auto predicted = core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_, p.reference_speeds_kmh, p.band_half_width_kmh);

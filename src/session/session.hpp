@@ -64,6 +64,10 @@ const char* to_string(State s);
 
 enum class Outcome : std::uint8_t { accepted, not_accepted, refused, controller_fault, interrupted, record_failure };
 const char* to_string(Outcome o);
+// A final result is a verdict (accepted, not accepted, refused): the session is over and its folder is sealed. The
+// others (a controller fault, an interruption, a record failure) leave a session that `resume` may continue.
+bool is_final(Outcome o);
+bool is_final(const std::string& result);  // as to_string(Outcome) writes it
 
 struct Options {
   core::FirstSetting first_setting = core::FirstSetting::loss_map;

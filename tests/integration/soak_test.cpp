@@ -211,6 +211,9 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
     EXPECT_GE(rows.back().tool_heap, 0) << "malloc_info could not be read";
     EXPECT_LE(d_heap, 512);
     EXPECT_LE(d_tool, 32768);  // a kept 1 kHz trace per session (~5 MB each) would pass this within a few sessions
-    EXPECT_LE(d_sim, 4096);  // its send queue keeps the high-water mark of a backlog: a step, not a slope
+    // The simulator's send queue keeps the high-water mark of a backlog (a step, not a slope): alone it grows by
+    // about 2 MiB, but under a parallel ctest run the tool is starved and the backlog of this 200,000-lines-per-second
+    // stream reached 6 and 12 MiB in two runs on the 2-core workplace machine. Gross, like the tool's RSS.
+    EXPECT_LE(d_sim, 32768);
   }
 }

@@ -58,7 +58,7 @@ enum class Lie : std::uint8_t {
                         // of the asked rate, not a link losing samples)
   trickle,              // tool-bound bytes delivered one per 20 ms
   sample_dup_flood,     // every SMP sent 20 times (same index, consecutive line numbers)
-  event_flood,          // 2000 lines "EVT INFO kind=NOTE ..." per wall second
+  event_flood,          // 20000 lines "EVT INFO kind=NOTE ..." per wall second
 };
 const char* to_string(Lie lie);
 
