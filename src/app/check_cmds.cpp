@@ -30,11 +30,23 @@ const char* kCheckCautions =
 
 struct CheckOptions {
   std::string kind;
-  std::string cell, profile, checks = "checks", note, now;
+  std::string cell, profile, checks, note, now, data_dir, operator_name;
   int port = 0;
   std::string device;
   bool unattended = false, accept_new_curve = false, json = false;
+  record::DataRoot root;
 };
+
+// The lab's data root (docs/records.md): the check histories default to <data root>/checks, whatever the current
+// folder, so `check due` run anywhere sees the same state.
+bool lab(CheckOptions& o) {
+  RunRequest r;
+  r.data_dir = o.data_dir;
+  r.checks_dir = o.checks;
+  if (!resolve_lab(r, o.root)) return false;
+  o.checks = r.checks_dir;
+  return true;
+}
 
 std::string confirm_check(bool unattended) {
   return ask_to_motor(unattended, kCheckCautions, "EMPTY", "Type EMPTY to confirm there is no vehicle on the rollers and let loadtrim motor them: ",
@@ -74,6 +86,12 @@ int run_one(const CheckOptions& o) {
     return kBadInput;
   }
   if (!lock_msg.empty()) std::cerr << "loadtrim: " << lock_msg << "\n";
+  std::optional<record::SigningKey> key;
+  if (!cell_signing_key(o.root, l.cell, key)) return kBadInput;
+  RunRequest who_req;
+  who_req.operator_name = o.operator_name;
+  who_req.unattended = o.unattended;
+  const nlohmann::json who = operator_identity(who_req, l.cell);
   const std::string confirmation = confirm_check(o.unattended);
   if (confirmation.empty()) {
     std::cerr << "loadtrim: not confirmed: nothing was started\n";
@@ -89,6 +107,8 @@ int run_one(const CheckOptions& o) {
   req.checks_root = o.checks;
   req.confirmation = confirmation;
   req.accept_new_curve = o.accept_new_curve;
+  req.key = key ? &*key : nullptr;
+  req.operator_id = who;
   req.note = o.note;
   auto c = adapters::make_controller(l.cell);
   const checks::CheckResult r = checks::run_check(*c, req, &stop_flag());
@@ -157,7 +177,8 @@ void register_check_commands(CLI::App& app, Runner& run) {
   auto common = [&](CLI::App* s) {
     s->add_option("--cell", o->cell, "cell configuration (TOML)")->required();
     s->add_option("--profile", o->profile, "check profile (default: config/checks/cfr1066.toml)");
-    s->add_option("--checks", o->checks, "where the cells' check histories and check folders are")->capture_default_str();
+    s->add_option("--data-dir", o->data_dir, "the lab's data root (default: as for run; see loadtrim run --help)");
+    s->add_option("--checks", o->checks, "where the cells' check histories and check folders are (default: <data root>/checks)");
   };
   const struct {
     const char* name;
@@ -175,6 +196,8 @@ void register_check_commands(CLI::App& app, Runner& run) {
     s->add_option("--port", o->port, "override the cell file's TCP port")->check(CLI::Range(1, 65535));
     s->add_option("--device", o->device, "override the cell file's serial device");
     s->add_option("--note", o->note, "operator note for the record");
+    s->add_option("--operator", o->operator_name,
+                  "who runs it, for the record (default: the cell file's records.operator, else asked, else the login name)");
     s->add_flag("--json", o->json, "print the result as one JSON line");
     if (std::string(k.name) == "parasitic")
       s->add_flag("--accept-new-curve", o->accept_new_curve,
@@ -182,18 +205,18 @@ void register_check_commands(CLI::App& app, Runner& run) {
     const std::string name = k.name;
     s->callback([o, &run, name] {
       o->kind = name;
-      run = [o] { return run_one(*o); };
+      run = [o] { return lab(*o) ? run_one(*o) : static_cast<int>(kBadInput); };
     });
   }
   auto* due = sub->add_subcommand("due", "which dyno checks are due for the cell (40 CFR 1066.215 intervals)");
   common(due);
   due->add_option("--now", o->now, "evaluate at this UTC time instead of now (e.g. 2026-12-08T08:00:00Z)");
   due->add_flag("--json", o->json, "print the view as JSON");
-  due->callback([o, &run] { run = [o] { return run_due(*o); }; });
+  due->callback([o, &run] { run = [o] { return lab(*o) ? run_due(*o) : static_cast<int>(kBadInput); }; });
   auto* mnt = sub->add_subcommand("maintenance", "log major maintenance of the dyno (makes its parasitic and inertia checks due)");
   common(mnt);
   mnt->add_option("--note", o->note, "what was done")->required();
-  mnt->callback([o, &run] { run = [o] { return run_maintenance(*o); }; });
+  mnt->callback([o, &run] { run = [o] { return lab(*o) ? run_maintenance(*o) : static_cast<int>(kBadInput); }; });
 }
 
 }  // namespace loadtrim::app

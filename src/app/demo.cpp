@@ -121,14 +121,21 @@ void register_demo(CLI::App& app, Runner& run) {
       ->check(CLI::IsMember({"standard", "fleet", "loss-map", "history"}))->capture_default_str();
   sub->add_option("--time-scale", o->time_scale, "simulated seconds per wall second")->check(CLI::Range(1.0, 2000.0))->capture_default_str();
   sub->add_flag("--in-process", o->in_process, "run the simulated controller inside this process");
-  sub->add_option("--sessions", o->req.sessions_dir, "where session folders go")->capture_default_str();
+  sub->add_option("--data-dir", o->req.data_dir, "the lab's data root (default: as for run; see loadtrim run --help)");
+  sub->add_option("--sessions", o->req.sessions_dir, "where session folders go (default: <data root>/sessions)");
   sub->add_option("--epa", o->epa, "run vehicles drawn from this EPA-format CSV (in-process, randomised truths)");
   sub->add_option("--vehicles", o->vehicles, "how many vehicles with --epa")->check(CLI::Range(1, 100000))->capture_default_str();
   sub->add_option("--seed", o->seed, "seed for drawing vehicles and truths")->capture_default_str();
   auto* q = sub->add_flag_function("--quiet", [o](std::int64_t) { o->req.console = session::Console::Mode::quiet; }, "print only results");
   auto* j = sub->add_flag_function("--json", [o](std::int64_t) { o->req.console = session::Console::Mode::json; }, "JSON lines");
   q->excludes(j);
-  sub->callback([o, &run] { run = [o] { return o->epa.empty() ? demo_one(*o) : demo_fleet(*o); }; });
+  sub->callback([o, &run] {
+    run = [o] {
+      record::DataRoot root;
+      if (!resolve_lab(o->req, root)) return static_cast<int>(kBadInput);
+      return o->epa.empty() ? demo_one(*o) : demo_fleet(*o);
+    };
+  });
 }
 
 }  // namespace loadtrim::app

@@ -22,8 +22,17 @@ void output_options(CLI::App* sub, RunRequest& r) {
   sub->add_option("--port", r.port, "override the cell file's TCP port")->check(CLI::Range(1, 65535));
   sub->add_option("--device", r.device, "override the cell file's serial device");
   sub->add_option("--rewarm-s", r.resume_warm_up_s, "warm-up after a resume or a lost link (default: the profile's)")->check(CLI::Range(0.0, 14400.0));
-  sub->add_option("--sessions", r.sessions_dir, "where session folders go")->capture_default_str();
-  sub->add_option("--history", r.history_dir, "history of earlier sessions (default: <sessions>/history)");
+  sub->add_option("--data-dir", r.data_dir,
+                  "the lab's data root: sessions, checks, histories, keys (default: $LOADTRIM_DATA_DIR, else data_dir in "
+                  "/etc/loadtrim/loadtrim.toml, else $XDG_DATA_HOME/loadtrim or ~/.local/share/loadtrim)");
+  sub->add_option("--sessions", r.sessions_dir, "where session folders go (default: <data root>/sessions)");
+  sub->add_option("--history", r.history_dir, "history of earlier sessions (default: <data root>/history)");
+  sub->add_option("--checks", r.checks_dir, "the cells' dyno-check histories (default: <data root>/checks)");
+  sub->add_option("--check-profile", r.check_profile, "dyno check profile (default: config/checks/cfr1066.toml)");
+  sub->add_option("--override-checks", r.override_checks,
+                  "start although required dyno checks are due or failed; give the reason (it is logged)");
+  sub->add_option("--operator", r.operator_name,
+                  "who runs it, for the record (default: the cell file's records.operator, else asked, else the login name)");
 }
 }  // namespace
 
@@ -37,10 +46,6 @@ void register_session_commands(CLI::App& app, Runner& run) {
       ->check(CLI::IsMember({"standard", "fleet", "loss-map", "history"}))->capture_default_str();
   sub->add_option("--fleet", req->fleet_csv, "EPA-format CSV for the fleet estimate (default: samples/data)");
   sub->add_option("--note", req->note, "operator note for the record");
-  sub->add_option("--checks", req->checks_dir, "the cells' dyno-check histories (loadtrim check)")->capture_default_str();
-  sub->add_option("--check-profile", req->check_profile, "dyno check profile (default: config/checks/cfr1066.toml)");
-  sub->add_option("--override-checks", req->override_checks,
-                  "start although required dyno checks are due or failed; give the reason (it is logged)");
   output_options(sub, *req);
   sub->callback([req, &run] { run = [req] { return run_new_session(*req); }; });
 

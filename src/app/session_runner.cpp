@@ -1,5 +1,6 @@
 #include "app/session_runner.hpp"
 
+#include <pwd.h>
 #include <unistd.h>
 
 #include <atomic>
@@ -18,6 +19,9 @@
 #include "config/loaders.hpp"
 #include "core/combination.hpp"
 #include "app/cell_locks.hpp"
+#include "checks/check_runner.hpp"
+#include "motion/motion.hpp"
+#include "record/verify.hpp"
 #include "record/event_log.hpp"
 #include "record/session_folder.hpp"
 #include "report/report.hpp"
@@ -184,8 +188,29 @@ class FreezeForTest : public session::Observer {
   std::string state_;
 };
 
+// Seals a session folder whose result is final (docs/records.md): the last thing written to it, with the cell's key
+// when its file names one, and the seal's chain head in the cell's own log. False (with the reason on stderr) is a
+// record failure.
+bool seal_session(const std::string& folder, const controller::CellConfig& cell, const nlohmann::json& summary,
+                  const record::SigningKey* key, const std::string& checks_root, bool quiet) {
+  record::SealRequest sr;
+  sr.cell = cell.name;
+  sr.result = summary;
+  sr.key = key;
+  record::SealInfo info;
+  std::string err;
+  if (!checks::seal_and_log(folder, sr, checks_root, "session", &info, err)) {
+    std::cerr << "loadtrim: record failure: the folder could not be sealed: " << err << "\n";
+    return false;
+  }
+  if (!quiet)
+    std::printf("sealed: %s\n", info.signer.empty() ? "unsigned (the cell file names no signing key: loadtrim keys create --cell ...)"
+                                                     : ("signed by " + info.signer).c_str());
+  return true;
+}
+
 int execute(session::Inputs inputs, const RunRequest& req, const std::string& folder, const session::ResumePoint* resume,
-            const std::string& confirmation, nlohmann::json started) {
+            const std::string& confirmation, nlohmann::json started, const record::SigningKey* key) {
   session::RecordWriter writer(folder);
   if (!writer.ok()) {
     std::cerr << "loadtrim: " << writer.error() << "\n";
@@ -203,8 +228,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   opt.resume_warm_up_s = req.resume_warm_up_s;
   opt.operator_note = req.note;
   opt.fleet = load_fleet(req.fleet_csv.empty() ? data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv" : req.fleet_csv);
-  const std::string hdir = req.history_dir.empty() ? (fs::path(req.sessions_dir) / "history").string() : req.history_dir;
-  const std::string hfile = history_file(hdir, inputs.cell, inputs.vehicle);
+  const std::string hfile = history_file(req.history_dir, inputs.cell, inputs.vehicle);
   opt.history = load_history(hfile);
   started["confirmation"] = confirmation;
   const auto& tv = inputs.vehicle;
@@ -235,21 +259,98 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     freezer.emplace(st);
     observers.push_back(&*freezer);
   }
+  const controller::CellConfig cell = inputs.cell;
   session::Session s(std::move(inputs), opt, *c, observers, &g_stop);
-  const session::Summary sum = s.run(resume);
+  session::Summary sum = s.run(resume);
   c->disconnect();
+  // Nothing more goes into the folder: a final result is sealed (the report, a derived file, may follow).
+  writer.close();
+  // A final result is sealed only when its record and summary.json were written: else it is a record failure, and
+  // resume finishes it from what was recorded.
+  if (session::is_final(sum.outcome) && (!writer.ok() || writer.summary().is_null())) sum.outcome = session::Outcome::record_failure;
+  if (session::is_final(sum.outcome) &&
+      !seal_session(folder, cell, writer.summary(), key, req.checks_dir, req.console == session::Console::Mode::json))
+    sum.outcome = session::Outcome::record_failure;
   if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder);
   // Every session ends with its report (from the record alone, so it shows what an auditor would see).
   const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION);
   if (!rep.ok) std::cerr << "loadtrim: report not written: " << rep.error << "\n";
   else if (req.console == session::Console::Mode::normal) std::printf("report: %s\n", rep.html.c_str());
   if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
-  if (sum.outcome == session::Outcome::record_failure)
+  if (sum.outcome == session::Outcome::record_failure && !writer.error().empty())
     std::cerr << "loadtrim: record failure: " << writer.error() << " (every record before it is intact in " << folder << ")\n";
   // A session that could not confirm the rollers at standstill ends with the controller-fault code, whatever its
   // result, so no script mistakes it for a clean end.
   if (!sum.rollers_stopped) {
     std::cerr << "loadtrim: " << sum.stop_note << "\n";
+    return kControllerFault;
+  }
+  return exit_code_for(sum.outcome);
+}
+
+// A folder whose result the record already holds (the process ended after the verdict, before the seal) is
+// finalised without motoring: the controller is asked only whether the rollers stand still, and sent to a
+// controlled stop if they do not; then the "finished" record, the summary and the seal.
+int finalise_recorded(const std::string& folder, const session::Inputs& in, const session::ResumePoint& rp, const RunRequest& req,
+                      const record::SigningKey* key) {
+  session::Summary sum = session::summary_from_record(rp, in.profile);
+  if (rp.finished_recorded) {
+    // Everything but the seal was written: seal what summary.json says (nothing hashed is ever rewritten).
+    std::ifstream sj((fs::path(folder) / "summary.json").string());
+    const nlohmann::json summary = nlohmann::json::parse(sj, nullptr, false);
+    if (!summary.is_object()) {
+      std::cerr << "loadtrim: record failure: the finished record names summary.json, which cannot be read\n";
+      return kRecordFailure;
+    }
+    if (!seal_session(folder, in.cell, summary, key, req.checks_dir, req.console == session::Console::Mode::json)) return kRecordFailure;
+    std::printf("%s: %s (finished earlier; now sealed)\n", session::to_string(sum.outcome), sum.stop_reason.c_str());
+    return summary.value("rollers_stopped", true) ? exit_code_for(sum.outcome) : static_cast<int>(kControllerFault);
+  }
+  session::RecordWriter writer(folder);
+  if (!writer.ok()) {
+    std::cerr << "loadtrim: " << writer.error() << "\n";
+    return kRecordFailure;
+  }
+  bool stopped = false;
+  std::string note;
+  {
+    auto c = req.inprocess_truth ? adapters::make_inprocess_controller(in.cell, *req.inprocess_truth) : adapters::make_controller(in.cell);
+    controller::ControllerInfo info;
+    controller::Result r = c->connect();
+    if (r.ok()) r = c->identify(info);
+    if (r.ok()) {
+      motion::Rules rules;
+      rules.standstill_kmh = in.cell.standstill_kmh;
+      motion::Motion m(*c, rules);
+      controller::StatusReport st;
+      r = m.settle_by_status(300.0, st);
+      stopped = r.ok();
+    }
+    c->disconnect();
+    note = stopped ? "standstill confirmed by the controller's status (nothing was motored by this process)"
+                   : "rollers not confirmed stopped: " + r.message;
+  }
+  sum.rollers_stopped = stopped;
+  sum.stop_note = note;
+  const bool ok =
+      writer.on_event({"resumed", {{"note", std::string("the result was already recorded (") + session::to_string(sum.outcome) +
+                                                "): finalised from the record without motoring"},
+                                   {"completed_coastdowns", rp.completed.size()}, {"rollers_stopped", stopped}, {"stop_note", note}},
+                       nullptr}) &&
+      writer.on_event({"finished", session::to_json(sum), nullptr});
+  if (!ok) {
+    std::cerr << "loadtrim: record failure: " << writer.error() << "\n";
+    return kRecordFailure;
+  }
+  writer.close();
+  if (writer.summary().is_null() ||
+      !seal_session(folder, in.cell, writer.summary(), key, req.checks_dir, req.console == session::Console::Mode::json))
+    return kRecordFailure;
+  const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION);
+  if (!rep.ok) std::cerr << "loadtrim: report not written: " << rep.error << "\n";
+  std::printf("%s: %s (finalised from the record; no coast-down was run)\n", session::to_string(sum.outcome), sum.stop_reason.c_str());
+  if (!stopped) {
+    std::cerr << "loadtrim: " << note << "\n";
     return kControllerFault;
   }
   return exit_code_for(sum.outcome);
@@ -270,6 +371,49 @@ int exit_code_for(session::Outcome o) {
 }
 
 const std::atomic<bool>& stop_flag() { return g_stop; }
+
+bool resolve_lab(RunRequest& req, record::DataRoot& root) {
+  root = record::find_data_root(req.data_dir);
+  if (!root.ok()) {
+    std::cerr << "loadtrim: the lab's data root: " << root.describe() << "\n";
+    return false;
+  }
+  std::string err;
+  if (!record::ensure_data_root(root, err)) {
+    std::cerr << "loadtrim: the lab's data root " << root.path << ": " << err << "\n";
+    return false;
+  }
+  if (req.sessions_dir.empty()) req.sessions_dir = root.sessions();
+  if (req.checks_dir.empty()) req.checks_dir = root.checks();
+  if (req.history_dir.empty()) req.history_dir = root.history();
+  return true;
+}
+
+nlohmann::json operator_identity(const RunRequest& req, const controller::CellConfig& cell) {
+  if (!req.operator_name.empty()) return {{"name", req.operator_name}, {"from", "--operator"}};
+  if (!cell.operator_name.empty()) return {{"name", cell.operator_name}, {"from", "the cell file (records.operator)"}};
+  if (!req.unattended && !req.simulator && ::isatty(STDIN_FILENO)) {
+    std::cerr << "Operator (your name, for the record): " << std::flush;
+    std::string name;
+    std::getline(std::cin, name);
+    if (!name.empty()) return {{"name", name}, {"from", "asked at the console"}};
+  }
+  const passwd* pw = ::getpwuid(::getuid());
+  return {{"name", pw && pw->pw_name ? pw->pw_name : "uid " + std::to_string(::getuid())},
+          {"from", "the system account (no --operator given and no records.operator in the cell file)"}};
+}
+
+bool cell_signing_key(const record::DataRoot& root, const controller::CellConfig& cell, std::optional<record::SigningKey>& key) {
+  key.reset();
+  if (cell.records_public_key.empty() && cell.records_private_key.empty()) return true;
+  std::string err;
+  key = record::load_cell_signing_key(root.path, cell.name, cell.records_public_key, cell.records_private_key, err);
+  if (!key) {
+    std::cerr << "loadtrim: refusing to start: the cell's signing key (records.public_key in the cell file): " << err << "\n";
+    return false;
+  }
+  return true;
+}
 
 std::string ask_to_motor(bool unattended, const char* cautions, const std::string& word, const std::string& prompt,
                          const std::string& given_as) {
@@ -327,8 +471,13 @@ nlohmann::json dyno_check_gate(const RunRequest& req, const controller::CellConf
   return j;
 }
 
-int run_new_session(const RunRequest& req, std::string* folder_out) {
+int run_new_session(const RunRequest& request, std::string* folder_out) {
+  RunRequest req = request;
+  record::DataRoot root;
+  if (!resolve_lab(req, root)) return kBadInput;
   Loaded l = load_all(req.cell_file, req.target_file, req.profile, req);  // throws InputError: nothing started
+  std::optional<record::SigningKey> key;
+  if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
   bool refuse = false;
   const nlohmann::json gate = dyno_check_gate(req, l.inputs.cell, refuse);
   if (refuse) return kBadInput;
@@ -343,6 +492,7 @@ int run_new_session(const RunRequest& req, std::string* folder_out) {
   const std::string stale_lock = lock_msg;  // a lock left by a killed process, taken over by the probe
   if (!stale_lock.empty()) std::cerr << "loadtrim: " << stale_lock << "\n";
   cell_lock.reset();
+  const nlohmann::json who = operator_identity(req, l.inputs.cell);
   const std::string confirmation = confirm(req);
   if (confirmation.empty()) {
     std::cerr << "loadtrim: not confirmed: nothing was started\n";
@@ -367,29 +517,44 @@ int run_new_session(const RunRequest& req, std::string* folder_out) {
                             {"overrides", {{"port", req.port}, {"device", req.device}}},
                             {"inprocess", req.inprocess_truth.has_value()}, {"dyno_checks", gate},
                             {"combination_warnings", l.warnings}, {"two_wheel_drive_mode", l.inputs.vehicle.two_wheel_drive_mode},
-                            {"cell_lock", {{"endpoint", endpoint_key(l.inputs.cell)}, {"stale_lock_taken_over", stale_lock.empty() ? lock_msg : stale_lock}}}};
-  return execute(std::move(l.inputs), req, folder, nullptr, confirmation, started);
+                            {"cell_lock", {{"endpoint", endpoint_key(l.inputs.cell)}, {"stale_lock_taken_over", stale_lock.empty() ? lock_msg : stale_lock}}},
+                            {"operator", who}, {"data_root", {{"path", root.path}, {"from", root.source}}},
+                            {"signing_key", key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
+  return execute(std::move(l.inputs), req, folder, nullptr, confirmation, started, key ? &*key : nullptr);
 }
 
 int resume_session(const std::string& folder, const RunRequest& overrides) {
+  RunRequest req = overrides;
+  record::DataRoot root;
+  if (!resolve_lab(req, root)) return kBadInput;
+  if (!fs::is_directory(folder)) {
+    std::cerr << "loadtrim: cannot resume " << folder << ": no such session folder\n";
+    return kBadInput;
+  }
+  // Resume is a function of the verified folder: the whole folder (chain, every recorded file hash, the inputs)
+  // is checked before anything connects, and a folder that does not verify is refused.
+  record::VerifyOptions vo;
+  vo.keys_dir = root.keys();
+  vo.checks_root = req.checks_dir;
+  const record::FolderVerdict verdict = record::verify_folder(folder, vo);
+  if (verdict.outcome == record::Outcome::broken) {
+    std::cerr << "loadtrim: refusing to resume " << folder << ": the folder does not verify: " << verdict.message
+              << (verdict.record >= 0 ? " (record " + std::to_string(verdict.record) + ")" : std::string())
+              << (verdict.file.empty() ? std::string() : " (file " + verdict.file + ")") << "\n";
+    return kRecordFailure;
+  }
+  if (verdict.seal) {
+    const std::string result = verdict.seal->result.value("result", "");
+    std::cerr << "loadtrim: " << folder << " is finished and sealed (" << result << "); nothing to resume\n";
+    return result == "accepted" ? kAccepted : result == "refused" ? kBadInput : kNotAccepted;
+  }
   std::vector<nlohmann::json> records;
-  const record::VerifyResult v = record::read_log((fs::path(folder) / "events.jsonl").string(), &records);
-  if (!v.ok) {
+  if (const record::VerifyResult v = record::read_log((fs::path(folder) / "events.jsonl").string(), &records); !v.ok) {
     std::cerr << "loadtrim: cannot resume " << folder << ": " << v.message << "\n";
     return kRecordFailure;
   }
-  // A session that ended on a transient fault (the link, an interruption, the record) may be continued; one that
-  // reached a verdict (accepted, not accepted, refused) may not.
-  std::string last_result;
-  for (const auto& r : records)
-    if (r.value("type", "") == "finished") last_result = r.value("result", "");
-  if (!last_result.empty() && last_result != "controller-fault" && last_result != "interrupted" && last_result != "record-failure") {
-    std::cerr << "loadtrim: " << folder << " already finished (" << last_result << "); nothing to resume\n";
-    return last_result == "accepted" ? kAccepted : kNotAccepted;
-  }
   const std::string in = (fs::path(folder) / "inputs").string();
-  RunRequest req = overrides;
-  // The same inputs as the interrupted session: the copies in its folder (their hashes are in the log).
+  // The same inputs as the interrupted session: the copies in its folder (their hashes were just verified).
   Loaded l = load_all(in + "/cell.toml", in + "/target.toml", in + "/profile.toml", req);
   for (const auto& r : records)
     if (r.value("type", "") == "session_started") {
@@ -400,6 +565,8 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
       if (overrides.device.empty() && r.contains("overrides") && !r["overrides"].value("device", "").empty())
         l.inputs.cell.serial.device = r["overrides"]["device"].get<std::string>();
     }
+  std::optional<record::SigningKey> key;
+  if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
   std::optional<record::FileLock> cell_lock, folder_lock;
   std::string lock_msg;
   if (!lock_folder(folder, "resume", folder_lock, lock_msg) ||
@@ -407,16 +574,25 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     std::cerr << "loadtrim: refusing to resume: " << lock_msg << "\n";
     return kBadInput;
   }
+  const session::ResumePoint rp = session::resume_point(records);
+  if (rp.verdict) return finalise_recorded(folder, l.inputs, rp, req, key ? &*key : nullptr);
+  // The dyno-check gate applies to a resumed session as to a new one.
+  bool refuse = false;
+  const nlohmann::json gate = dyno_check_gate(req, l.inputs.cell, refuse);
+  if (refuse) return kBadInput;
+  const nlohmann::json who = operator_identity(req, l.inputs.cell);
   const std::string confirmation = confirm(req);
   if (confirmation.empty()) {
     std::cerr << "loadtrim: not confirmed: nothing was started\n";
     return kBadInput;
   }
   install_stop_handlers();
-  const session::ResumePoint rp = session::resume_point(records);
   nlohmann::json started = {{"vehicle", l.inputs.vehicle.id}, {"cell", l.inputs.cell.name}, {"profile", l.inputs.profile.name},
-                            {"records_before", records.size()}, {"completed_coastdowns", rp.completed.size()}};
-  return execute(std::move(l.inputs), req, folder, &rp, confirmation, started);
+                            {"records_before", records.size()}, {"completed_coastdowns", rp.completed.size()},
+                            {"folder_verified", record::to_string(verdict.outcome)}, {"dyno_checks", gate}, {"operator", who},
+                            {"data_root", {{"path", root.path}, {"from", root.source}}},
+                            {"signing_key", key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
+  return execute(std::move(l.inputs), req, folder, &rp, confirmation, started, key ? &*key : nullptr);
 }
 
 }  // namespace loadtrim::app

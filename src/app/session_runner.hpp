@@ -11,6 +11,8 @@
 #include "core/strategy.hpp"
 #include "core/vehicle.hpp"
 #include "physics/roller_model.hpp"
+#include "record/data_root.hpp"
+#include "record/seal.hpp"
 #include "session/console.hpp"
 #include "session/session.hpp"
 
@@ -18,10 +20,12 @@ namespace loadtrim::app {
 
 struct RunRequest {
   std::string cell_file, target_file, profile;  // profile: a name in config/profiles or a file; empty = the target's
-  std::string sessions_dir = "sessions";
+  std::string data_dir;      // --data-dir; "" = LOADTRIM_DATA_DIR, the system file, the per-user default
+  std::string operator_name; // --operator; "" = the cell file's records.operator, else asked, else the login name
+  std::string sessions_dir;  // "" = <data root>/sessions
   std::string first_setting = "loss-map";
   std::string fleet_csv;     // default: samples/data's EPA file
-  std::string history_dir;   // default: <sessions_dir>/history
+  std::string history_dir;   // "" = <data root>/history
   bool unattended = false;
   bool simulator = false;    // the cell is a simulator this process started: no rollers move
   session::Console::Mode console = session::Console::Mode::normal;
@@ -30,13 +34,23 @@ struct RunRequest {
   std::string device;
   double resume_warm_up_s = -1.0;
   std::optional<physics::Truth> inprocess_truth;  // in-process simulated controller with this truth
-  std::string checks_dir = "checks";  // the cells' dyno-check histories (loadtrim check)
+  std::string checks_dir;             // the cells' dyno-check histories; "" = <data root>/checks
   std::string check_profile;          // default: config/checks/cfr1066.toml
   std::string override_checks;        // non-empty: start although required checks are due; the reason is logged
 };
 
 // Loads and validates every input of the request (throws config::InputError listing every problem).
 void check_inputs(const RunRequest& req);
+// The lab's data root (docs/records.md): resolves it (--data-dir, LOADTRIM_DATA_DIR, /etc/loadtrim/loadtrim.toml,
+// the per-user default), creates its layout, and fills the request's empty folders from it. False, with the reason
+// on stderr, when it cannot.
+bool resolve_lab(RunRequest& req, record::DataRoot& root);
+// Who runs it, for the record: --operator, else the cell file's records.operator, else asked at the console, else
+// the login name (said so). {"name", "from"}.
+nlohmann::json operator_identity(const RunRequest& req, const controller::CellConfig& cell);
+// The cell's signing key when its file names one (records.public_key): false, with the reason on stderr, when it
+// cannot be loaded or does not match (the session or check must not start). No key named: true, `key` empty.
+bool cell_signing_key(const record::DataRoot& root, const controller::CellConfig& cell, std::optional<record::SigningKey>& key);
 // Loads and validates, asks for confirmation, creates the folder, runs, and returns the exit code.
 int run_new_session(const RunRequest& req, std::string* folder_out = nullptr);
 // Continues the session in `folder` from its log.

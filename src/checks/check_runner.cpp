@@ -279,7 +279,9 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     files.push_back(record::copy_input(res.folder, req.cell_file, "cell.toml"));
     files.push_back(record::copy_input(res.folder, req.profile_file, "checks.toml"));
     nlohmann::json started = {{"check", core::to_string(req.kind)}, {"cell", req.cell.name}, {"files", files},
-                              {"confirmation", req.confirmation}, {"note", req.note}, {"vehicle_on_rollers", false}};
+                              {"confirmation", req.confirmation}, {"note", req.note}, {"vehicle_on_rollers", false},
+                              {"operator", req.operator_id},
+                              {"signing_key", req.key ? req.key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
     if (stored) started["stored_parasitic_curve"] = {{"curve", coef_json(*stored)}, {"utc", stored_utc}};
     p.record("check_started", started);
     const controller::KeepAlive keep_alive(c);
@@ -344,6 +346,18 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   const bool logged = log.append("check_finished", {{"check", core::to_string(req.kind)}, {"end", to_string(res.end)}, {"passed", result["passed"]},
                                                     {"verdict", verdict}, {"files", nlohmann::json::array({{{"path", "result.json"}, {"sha256", record::sha256_hex(text)}}})}},
                                  now);
+  // The folder's last record: the seal (docs/records.md), its chain head also in the cell's log. The report, a
+  // derived file, follows it.
+  bool sealed = false;
+  std::string seal_err;
+  if (wrote && logged) {
+    record::SealRequest sr;
+    sr.cell = req.cell.name;
+    sr.result = result;
+    sr.key = req.key;
+    record::SealInfo info;
+    sealed = seal_and_log(res.folder, sr, req.checks_root, core::to_string(req.kind), &info, seal_err);
+  }
   const bool counts = res.end == CheckResult::End::passed || res.end == CheckResult::End::failed;
   bool hist_ok = true;
   if (counts) hist_ok = hist.append("check", {{"kind", core::to_string(req.kind)}, {"passed", res.end == CheckResult::End::passed}, {"verdict", verdict},
@@ -352,9 +366,10 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     hist_ok = hist.append("parasitic_curve", {{"f0_n", new_curve->f0_n}, {"f1_n_per_kmh", new_curve->f1_n_per_kmh}, {"f2_n_per_kmh2", new_curve->f2_n_per_kmh2},
                                               {"folder", fs::path(res.folder).filename().string()},
                                               {"accepted_by_operator", res.end == CheckResult::End::failed}}, now);
-  if (!wrote || !logged || !hist_ok) {
+  if (!wrote || !logged || !sealed || !hist_ok) {
     res.end = CheckResult::End::record_failure;
-    res.verdict += std::string(res.verdict.empty() ? "" : "; ") + "record failure: " + (!wrote ? err : !logged ? log.error() : hist.error());
+    res.verdict += std::string(res.verdict.empty() ? "" : "; ") + "record failure: " +
+                   (!wrote ? err : !logged ? log.error() : !sealed ? "the folder could not be sealed: " + seal_err : hist.error());
   }
   std::string rerr;
   if (!write_check_report(res.folder, rerr)) res.verdict += "; report not written: " + rerr;

@@ -13,6 +13,7 @@
 #include "controller/cell.hpp"
 #include "controller/controller.hpp"
 #include "core/dyno_checks.hpp"
+#include "record/seal.hpp"
 
 namespace loadtrim::checks {
 
@@ -27,6 +28,8 @@ struct CheckRequest {
   bool accept_new_curve = false;  // parasitic: store the determined curve even when it differs from the stored one
                                   // (after major maintenance, when the difference is understood)
   std::string note;
+  const record::SigningKey* key = nullptr;  // the cell's signing key for the seal; nullptr: sealed unsigned
+  nlohmann::json operator_id = nlohmann::json::object();  // {"name", "from"}
 };
 
 struct CheckResult {

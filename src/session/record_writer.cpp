@@ -100,6 +100,7 @@ bool RecordWriter::on_event(const Event& ev) {
       return false;
     }
     data["files"].push_back({{"path", "summary.json"}, {"sha256", record::sha256_hex(text)}});
+    summary_ = nlohmann::json::parse(text);
   }
   if (!log_->append(ev.type, data, record::utc_now())) {
     error_ = log_->error();

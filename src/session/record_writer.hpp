@@ -32,12 +32,15 @@ class RecordWriter : public Observer {
   // Flushes and closes the operator log and the event log: after this nothing more is written (the folder can be
   // sealed). Further events fail.
   void close();
+  // The summary exactly as written to summary.json (null before): what a seal states as the result.
+  const nlohmann::json& summary() const { return summary_; }
 
  private:
   std::string folder_;
   std::unique_ptr<record::EventLog> log_;
   std::shared_ptr<spdlog::logger> op_;
   std::string error_;
+  nlohmann::json summary_;
 };
 
 }  // namespace loadtrim::session

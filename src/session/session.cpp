@@ -622,7 +622,7 @@ Summary Session::run(const ResumePoint* resume) {
   s.iterations = iterations_;
   s.coastdowns = coastdowns_;
   s.usable_coastdowns = coastdowns_ - (unusable_ - discarded_);
-  s.cell_time_s = t_start_ >= 0.0 ? cell_time_before_ + t_now_ - t_start_ : cell_time_before_;
+  s.cell_time_s = t_start_ >= 0.0 ? cell_time_before_ + (t_now_ - t_start_) : cell_time_before_;  // as emit() states it
   s.first_setting = first_setting_;
   s.rollers_stopped = rollers_stopped_;
   s.stop_note = stop_note_;

@@ -143,6 +143,14 @@ struct ResumePoint {
   std::string strategy;
   double cell_time_s = 0.0;               // controller time used before the interruption
   int malformed = 0;                      // records that could not be read as this version writes them
+  // A result the record already holds (the method's verdict in a coast-down record, a refusal, or a final
+  // "finished" record) when the process ended before the folder was sealed: resume finalises it without motoring
+  // and never runs another coast-down.
+  std::optional<Outcome> verdict;
+  std::string verdict_reason;
+  std::optional<core::RoadLoad> final_set;  // as the decision gave it (not yet rounded)
+  bool finished_recorded = false;           // the final "finished" record (and summary.json) is already written
+  int iterations = 0;                       // distinct settings written
 };
 
 struct Summary {
@@ -230,5 +238,7 @@ class Session {
 
 // Rebuilds where a session stood from its log records (pure: the records are passed in).
 ResumePoint resume_point(const std::vector<nlohmann::json>& records);
+// The summary of a session whose verdict the record already holds (ResumePoint::verdict), from the record alone.
+Summary summary_from_record(const ResumePoint& p, const core::Profile& profile);
 
 }  // namespace loadtrim::session

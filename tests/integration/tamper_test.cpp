@@ -198,6 +198,15 @@ class Tamper : public ::testing::Test {
                                        g->root + "/checks", "session", &info, e))
           << e;
     }
+    else {
+      // The session sealed its own folder (as every finished session does): the unfinished copy is that folder
+      // without its last record, the seal.
+      g->unfinished = g->dir + "/unfinished";
+      fs::copy(g->sealed, g->unfinished, fs::copy_options::recursive);
+      std::string text = slurp(g->unfinished + "/events.jsonl");
+      text.erase(text.rfind('\n', text.size() - 2) + 1);
+      write(g->unfinished + "/events.jsonl", text);
+    }
     ASSERT_EQ(run_command({kExe, "verify", g->sealed}, &out, &err), 0) << out << err;
 
     g->approved = g->dir + "/approved";
