@@ -18,6 +18,7 @@ std::vector<std::string> names();
 // Throws std::invalid_argument for an unknown adapter (the cell loader refuses those first).
 std::unique_ptr<controller::Controller> make_controller(const controller::CellConfig& cell);
 // An in-process simulated controller for a truth given directly (fleet runs, benchmarks).
-std::unique_ptr<controller::Controller> make_inprocess_controller(const controller::CellConfig& cell, const physics::Truth& truth);
+std::unique_ptr<controller::Controller> make_inprocess_controller(const controller::CellConfig& cell,
+                                                                  const physics::Truth& truth);
 
 }  // namespace loadtrim::adapters

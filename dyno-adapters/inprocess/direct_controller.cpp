@@ -7,29 +7,37 @@ using controller::Result;
 namespace {
 Result from(const std::optional<sim::SimError>& e) {
   if (!e) return Result::success();
-  return Result::fail("controller refused (error " + std::to_string(static_cast<int>(e->code)) + "): " + e->text,
-                      static_cast<int>(e->code));
+  return Result::fail(
+      "controller refused (error " + std::to_string(static_cast<int>(e->code)) + "): " + e->text,
+      static_cast<int>(e->code));
 }
 }  // namespace
 
-DirectController::DirectController(const physics::Truth& truth, controller::Timeouts t, controller::Limits l, double chunk_s)
+DirectController::DirectController(const physics::Truth& truth, controller::Timeouts t, controller::Limits l,
+                                   double chunk_s)
     : Controller(t, l), chunk_s_(chunk_s) {
   sim::SimSettings s;
   s.watchdog_s = 1e18;
   sim_ = std::make_unique<sim::SimController>(truth, s);
 }
 
-Result DirectController::do_connect(controller::Deadline) { return from(sim_->hello(line::kProtocolVersion)); }
+Result DirectController::do_connect(controller::Deadline) {
+  return from(sim_->hello(line::kProtocolVersion));
+}
 Result DirectController::do_identify(controller::ControllerInfo& out, controller::Deadline) {
   out = sim_->info();
   return Result::success();
 }
-Result DirectController::do_write_inertia(double kg, controller::Deadline) { return from(sim_->set_inertia(kg)); }
+Result DirectController::do_write_inertia(double kg, controller::Deadline) {
+  return from(sim_->set_inertia(kg));
+}
 Result DirectController::do_read_inertia(double& kg, controller::Deadline) {
   kg = sim_->model().inertia_set_kg();
   return Result::success();
 }
-Result DirectController::do_write_coefficients(const core::RoadLoad& c, controller::Deadline) { return from(sim_->set_coefficients(c)); }
+Result DirectController::do_write_coefficients(const core::RoadLoad& c, controller::Deadline) {
+  return from(sim_->set_coefficients(c));
+}
 Result DirectController::do_read_coefficients(core::RoadLoad& c, controller::Deadline) {
   c = sim_->model().coefficients();
   return Result::success();
@@ -37,7 +45,9 @@ Result DirectController::do_read_coefficients(core::RoadLoad& c, controller::Dea
 Result DirectController::do_command(controller::Mode mode, double hold_kmh, controller::Deadline) {
   return from(sim_->command(mode, hold_kmh));
 }
-Result DirectController::do_stream(double rate_hz, controller::Deadline) { return from(sim_->stream(rate_hz)); }
+Result DirectController::do_stream(double rate_hz, controller::Deadline) {
+  return from(sim_->stream(rate_hz));
+}
 Result DirectController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline) {
   const std::size_t before = out.size();
   for (int i = 0; i < 1000 && out.size() == before; ++i) sim_->advance_typed(chunk_s_, out, events_);
@@ -47,6 +57,8 @@ Result DirectController::do_status(controller::StatusReport& out, controller::De
   out = sim_->status();
   return Result::success();
 }
-Result DirectController::do_clear_fault(controller::Deadline) { return from(sim_->clear()); }
+Result DirectController::do_clear_fault(controller::Deadline) {
+  return from(sim_->clear());
+}
 
 }  // namespace loadtrim::inprocess

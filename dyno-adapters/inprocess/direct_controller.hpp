@@ -13,7 +13,8 @@ namespace loadtrim::inprocess {
 
 class DirectController : public controller::Controller {
  public:
-  DirectController(const physics::Truth& truth, controller::Timeouts t, controller::Limits l, double chunk_s = 1.0);
+  DirectController(const physics::Truth& truth, controller::Timeouts t, controller::Limits l,
+                   double chunk_s = 1.0);
   sim::SimController& sim() { return *sim_; }
 
  protected:

@@ -1,7 +1,7 @@
 // An in-process transport to the simulated controller's front end: the same line protocol and the same engine
-// as over TCP, without a socket or a second process. Simulated time advances only as the tool reads, in steps of
-// `chunk_s`, so it runs as fast as the host allows (benchmarks, fast tests). The heartbeat watchdog is measured in
-// simulated time here, so give it a window longer than any wait.
+// as over TCP, without a socket or a second process. Simulated time advances only as the tool reads, in steps
+// of `chunk_s`, so it runs as fast as the host allows (benchmarks, fast tests). The heartbeat watchdog is
+// measured in simulated time here, so give it a window longer than any wait.
 #pragma once
 
 #include <memory>
@@ -13,7 +13,8 @@ namespace loadtrim::inprocess {
 
 class LoopbackTransport : public line::Transport {
  public:
-  LoopbackTransport(std::shared_ptr<sim::SimController> sim, double chunk_s = 0.05) : sim_(std::move(sim)), chunk_s_(chunk_s) {}
+  LoopbackTransport(std::shared_ptr<sim::SimController> sim, double chunk_s = 0.05)
+      : sim_(std::move(sim)), chunk_s_(chunk_s) {}
   controller::Result open(controller::Deadline) override;
   void close() override;
   bool is_open() const override { return open_; }

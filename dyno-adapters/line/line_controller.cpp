@@ -20,12 +20,18 @@ bool parse_mode(std::string_view w, Mode& out) {
 
 const char* wire_mode(Mode m) {
   switch (m) {
-    case Mode::idle: return kModeIdle;
-    case Mode::speed_hold: return kModeHold;
-    case Mode::road_load: return kModeRoadLoad;
-    case Mode::controlled_stop: return kModeStop;
-    case Mode::constant_force: return kModeForce;
-    case Mode::free_coast: return kModeFree;
+    case Mode::idle:
+      return kModeIdle;
+    case Mode::speed_hold:
+      return kModeHold;
+    case Mode::road_load:
+      return kModeRoadLoad;
+    case Mode::controlled_stop:
+      return kModeStop;
+    case Mode::constant_force:
+      return kModeForce;
+    case Mode::free_coast:
+      return kModeFree;
   }
   return kModeIdle;
 }
@@ -36,8 +42,9 @@ bool parse_sample(const Message& m, controller::Sample& s) {
   std::uint64_t n = 0;
   auto r = std::from_chars(f[0].data(), f[0].data() + f[0].size(), n);
   if (r.ec != std::errc() || r.ptr != f[0].data() + f[0].size()) return false;
-  // A well-framed sample with a non-finite value ("nan", "inf") is still a sample: it goes up to the controller
-  // layer, which drops it, counts it and names it ("malformed samples"); only text that is not a number is refused here.
+  // A well-framed sample with a non-finite value ("nan", "inf") is still a sample: it goes up to the
+  // controller layer, which drops it, counts it and names it ("malformed samples"); only text that is not a
+  // number is refused here.
   auto number = [](std::string_view x) -> std::optional<double> {
     double d = 0.0;
     const auto r = std::from_chars(x.data(), x.data() + x.size(), d);
@@ -57,10 +64,13 @@ bool parse_sample(const Message& m, controller::Sample& s) {
   return true;
 }
 
-LineController::LineController(std::unique_ptr<Transport> transport, controller::Timeouts t, controller::Limits l)
+LineController::LineController(std::unique_ptr<Transport> transport, controller::Timeouts t,
+                               controller::Limits l)
     : Controller(t, l), transport_(std::move(transport)) {}
 
-LineController::~LineController() { do_disconnect(); }
+LineController::~LineController() {
+  do_disconnect();
+}
 
 void LineController::handle_line(std::string_view line, bool too_long) {
   if (too_long) {
@@ -75,7 +85,8 @@ void LineController::handle_line(std::string_view line, bool too_long) {
     stats_.last_rejected = std::string(to_string(d.error)) + ": " + std::string(line.substr(0, 80));
     return;
   }
-  if (have_peer_seq_ && d.message.seq != expected_peer_seq_) stats_.lines_lost += d.message.seq - expected_peer_seq_;
+  if (have_peer_seq_ && d.message.seq != expected_peer_seq_)
+    stats_.lines_lost += d.message.seq - expected_peer_seq_;
   have_peer_seq_ = true;
   expected_peer_seq_ = d.message.seq + 1;
   const Message& m = d.message;
@@ -112,7 +123,8 @@ Result LineController::pump(Deadline d) {
   return Result::success();
 }
 
-Result LineController::request(const std::string& verb, std::vector<std::string> fields, Message& reply, Deadline d) {
+Result LineController::request(const std::string& verb, std::vector<std::string> fields, Message& reply,
+                               Deadline d) {
   if (!transport_->is_open()) return Result::retry("link not open");
   Message m;
   m.type = verb;
@@ -137,12 +149,16 @@ Result LineController::request(const std::string& verb, std::vector<std::string>
       if (rep.fields.empty() || rep.fields[0] != std::to_string(m.seq)) continue;  // a stale reply
       if (rep.type == "ERR") {
         int code = 0;
-        if (rep.fields.size() > 1) std::from_chars(rep.fields[1].data(), rep.fields[1].data() + rep.fields[1].size(), code);
+        if (rep.fields.size() > 1)
+          std::from_chars(rep.fields[1].data(), rep.fields[1].data() + rep.fields[1].size(), code);
         std::string text;
         for (std::size_t i = 2; i < rep.fields.size(); ++i) text += (text.empty() ? "" : " ") + rep.fields[i];
-        const std::string msg = "controller refused " + verb + " (error " + std::to_string(code) + "): " + text;
-        // Our request was damaged on the way: sending it again may work. Anything else is the controller's no.
-        return code == static_cast<int>(ErrorCode::bad_frame) ? Result::retry(msg, code) : Result::fail(msg, code);
+        const std::string msg =
+            "controller refused " + verb + " (error " + std::to_string(code) + "): " + text;
+        // Our request was damaged on the way: sending it again may work. Anything else is the controller's
+        // no.
+        return code == static_cast<int>(ErrorCode::bad_frame) ? Result::retry(msg, code)
+                                                              : Result::fail(msg, code);
       }
       reply = std::move(rep);
       return Result::success();
@@ -160,11 +176,12 @@ Result LineController::do_connect(Deadline d) {
   have_peer_seq_ = false;
   if (Result r = transport_->open(d); !r.ok()) return r;
   Message rep;
-  if (Result r = request("HELLO", {kv("version", kProtocolVersion), "client=loadtrim"}, rep, d); !r.ok()) return r;
+  if (Result r = request("HELLO", {kv("version", kProtocolVersion), "client=loadtrim"}, rep, d); !r.ok())
+    return r;
   const auto v = number_field(rep, "version");
   if (!v || static_cast<int>(*v) != kProtocolVersion)
-    return Result::fail("controller speaks protocol version " + field(rep, "version").value_or("?") + ", loadtrim speaks " +
-                        std::to_string(kProtocolVersion));
+    return Result::fail("controller speaks protocol version " + field(rep, "version").value_or("?") +
+                        ", loadtrim speaks " + std::to_string(kProtocolVersion));
   return Result::success();
 }
 
@@ -205,13 +222,16 @@ Result LineController::do_read_inertia(double& kg, Deadline d) {
 
 Result LineController::do_write_coefficients(const core::RoadLoad& c, Deadline d) {
   Message rep;
-  return request("COEF", {"SET", format_number(c.f0_n), format_number(c.f1_n_per_kmh), format_number(c.f2_n_per_kmh2)}, rep, d);
+  return request(
+      "COEF", {"SET", format_number(c.f0_n), format_number(c.f1_n_per_kmh), format_number(c.f2_n_per_kmh2)},
+      rep, d);
 }
 
 Result LineController::do_read_coefficients(core::RoadLoad& c, Deadline d) {
   Message rep;
   if (Result r = request("COEF", {"GET"}, rep, d); !r.ok()) return r;
-  const auto a = number_field(rep, "f0_n"), b = number_field(rep, "f1_n_per_kmh"), k = number_field(rep, "f2_n_per_kmh2");
+  const auto a = number_field(rep, "f0_n"), b = number_field(rep, "f1_n_per_kmh"),
+             k = number_field(rep, "f2_n_per_kmh2");
   if (!a || !b || !k) return Result::fail("COEF reply lacks a coefficient");
   c = {*a, *b, *k};
   return Result::success();
@@ -249,7 +269,8 @@ Result LineController::do_status(controller::StatusReport& out, Deadline d) {
   const auto mode = field(rep, "mode");
   const auto v = number_field(rep, "speed_kmh"), t = number_field(rep, "time_s");
   const auto flags = field(rep, "flags");
-  if (!mode || !parse_mode(*mode, out.mode) || !v || !t || !flags) return Result::fail("STATUS reply is incomplete");
+  if (!mode || !parse_mode(*mode, out.mode) || !v || !t || !flags)
+    return Result::fail("STATUS reply is incomplete");
   out.speed_kmh = *v;
   out.time_s = *t;
   std::uint32_t fl = 0;
@@ -262,7 +283,8 @@ Result LineController::do_status(controller::StatusReport& out, Deadline d) {
 
 void LineController::on_stream_rate(double samples_per_wall_s) {
   const double want = samples_per_wall_s * kSampleBoundWallS;
-  max_samples_ = std::max<std::size_t>(kMinSampleBound, want < 5e7 ? static_cast<std::size_t>(want) : 50000000u);
+  max_samples_ =
+      std::max<std::size_t>(kMinSampleBound, want < 5e7 ? static_cast<std::size_t>(want) : 50000000u);
 }
 
 void LineController::do_take_events(std::vector<std::string>& out) {

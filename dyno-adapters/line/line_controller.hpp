@@ -1,5 +1,5 @@
-// The line-protocol adapter: one protocol engine over any Transport (TCP, serial, or an in-process loopback to
-// the simulated controller). Implements the Controller hooks; see docs/protocol.md for the messages.
+// The line-protocol adapter: one protocol engine over any Transport (TCP, serial, or an in-process loopback
+// to the simulated controller). Implements the Controller hooks; see docs/protocol.md for the messages.
 #pragma once
 
 #include <deque>
@@ -18,8 +18,9 @@ class LineController : public controller::Controller {
   LineController(std::unique_ptr<Transport> transport, controller::Timeouts t, controller::Limits l);
   ~LineController() override;
   std::string describe() const { return transport_->describe(); }
-  // Bounds on what is kept between calls: a flooding controller loses its oldest lines, never the tool its memory.
-  // Samples: 10 s of the stream (at least 65,536), enough for any reply the tool waits for behind queued samples.
+  // Bounds on what is kept between calls: a flooding controller loses its oldest lines, never the tool its
+  // memory. Samples: 10 s of the stream (at least 65,536), enough for any reply the tool waits for behind
+  // queued samples.
   static constexpr std::size_t kMaxEvents = 256, kMaxReplies = 64, kMinSampleBound = 65536;
   static constexpr double kSampleBoundWallS = 10.0;
 

@@ -10,7 +10,9 @@ std::uint16_t crc16(std::string_view data) {
   std::uint16_t crc = 0xFFFF;
   for (unsigned char c : data) {
     crc ^= static_cast<std::uint16_t>(c) << 8;
-    for (int i = 0; i < 8; ++i) crc = (crc & 0x8000) ? static_cast<std::uint16_t>((crc << 1) ^ 0x1021) : static_cast<std::uint16_t>(crc << 1);
+    for (int i = 0; i < 8; ++i)
+      crc = (crc & 0x8000) ? static_cast<std::uint16_t>((crc << 1) ^ 0x1021)
+                           : static_cast<std::uint16_t>(crc << 1);
   }
   return crc;
 }
@@ -25,14 +27,22 @@ std::string encode(const Message& m) {
 
 const char* to_string(DecodeError e) {
   switch (e) {
-    case DecodeError::none: return "ok";
-    case DecodeError::empty: return "empty line";
-    case DecodeError::too_long: return "line too long";
-    case DecodeError::bad_char: return "non-printable character";
-    case DecodeError::no_crc: return "no CRC";
-    case DecodeError::bad_crc: return "CRC mismatch";
-    case DecodeError::bad_seq: return "bad sequence number";
-    case DecodeError::bad_type: return "bad message type";
+    case DecodeError::none:
+      return "ok";
+    case DecodeError::empty:
+      return "empty line";
+    case DecodeError::too_long:
+      return "line too long";
+    case DecodeError::bad_char:
+      return "non-printable character";
+    case DecodeError::no_crc:
+      return "no CRC";
+    case DecodeError::bad_crc:
+      return "CRC mismatch";
+    case DecodeError::bad_seq:
+      return "bad sequence number";
+    case DecodeError::bad_type:
+      return "bad message type";
   }
   return "unknown";
 }
@@ -81,7 +91,8 @@ Decoded decode(std::string_view line) {
   const auto& s = tokens[0];
   std::uint32_t seq = 0;
   auto r = std::from_chars(s.data(), s.data() + s.size(), seq);
-  if (s.empty() || r.ec != std::errc() || r.ptr != s.data() + s.size()) return d.error = DecodeError::bad_seq, d;
+  if (s.empty() || r.ec != std::errc() || r.ptr != s.data() + s.size())
+    return d.error = DecodeError::bad_seq, d;
   const auto& t = tokens[1];
   if (t.empty()) return d.error = DecodeError::bad_type, d;
   for (char c : t)
@@ -102,8 +113,10 @@ Decoded decode(std::string_view line) {
 void LineSplitter::feed(std::string_view bytes, const Sink& sink) {
   for (char c : bytes) {
     if (c == '\n') {
-      if (discarding_) discarding_ = false;
-      else sink(buffer_, false);
+      if (discarding_)
+        discarding_ = false;
+      else
+        sink(buffer_, false);
       buffer_.clear();
       continue;
     }
@@ -119,14 +132,16 @@ void LineSplitter::feed(std::string_view bytes, const Sink& sink) {
 
 std::optional<std::string> field(const Message& m, std::string_view key) {
   for (const auto& f : m.fields)
-    if (f.size() > key.size() && f.compare(0, key.size(), key) == 0 && f[key.size()] == '=') return f.substr(key.size() + 1);
+    if (f.size() > key.size() && f.compare(0, key.size(), key) == 0 && f[key.size()] == '=')
+      return f.substr(key.size() + 1);
   return std::nullopt;
 }
 
 std::optional<double> parse_number(std::string_view s) {
   double v = 0.0;
   auto r = std::from_chars(s.data(), s.data() + s.size(), v);
-  if (s.empty() || r.ec != std::errc() || r.ptr != s.data() + s.size() || !std::isfinite(v)) return std::nullopt;
+  if (s.empty() || r.ec != std::errc() || r.ptr != s.data() + s.size() || !std::isfinite(v))
+    return std::nullopt;
   return v;
 }
 
@@ -141,7 +156,11 @@ std::string format_number(double v) {
   return buf;
 }
 
-std::string kv(std::string_view key, double value) { return std::string(key) + "=" + format_number(value); }
-std::string kv(std::string_view key, std::string_view value) { return std::string(key) + "=" + std::string(value); }
+std::string kv(std::string_view key, double value) {
+  return std::string(key) + "=" + format_number(value);
+}
+std::string kv(std::string_view key, std::string_view value) {
+  return std::string(key) + "=" + std::string(value);
+}
 
 }  // namespace loadtrim::line

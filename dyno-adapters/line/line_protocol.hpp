@@ -5,7 +5,8 @@
 //   seq    decimal 0..4294967295, the sender's own counter, +1 per line it sends (wraps to 0)
 //   TYPE   upper-case word: a request verb (tool → controller) or OK, ERR, SMP, EVT (controller → tool)
 //   CRC    CRC-16/CCITT-FALSE of every byte before '*', as 4 upper-case hex digits
-// Printable ASCII only (0x20..0x7E), at most kMaxLineLength bytes before the '\n'; a trailing '\r' is ignored.
+// Printable ASCII only (0x20..0x7E), at most kMaxLineLength bytes before the '\n'; a trailing '\r' is
+// ignored.
 #pragma once
 
 #include <cstdint>
@@ -20,7 +21,8 @@ namespace loadtrim::line {
 inline constexpr int kProtocolVersion = 1;
 inline constexpr std::size_t kMaxLineLength = 240;
 
-// CRC-16/CCITT-FALSE: poly 0x1021, init 0xFFFF, no reflection, no final xor (check value of "123456789": 0x29B1).
+// CRC-16/CCITT-FALSE: poly 0x1021, init 0xFFFF, no reflection, no final xor (check value of "123456789":
+// 0x29B1).
 std::uint16_t crc16(std::string_view data);
 
 struct Message {
@@ -42,7 +44,8 @@ struct Decoded {
   bool ok() const { return error == DecodeError::none; }
 };
 
-// Decodes one line (without its '\n'). Never throws; any defect is reported and the line must not be acted on.
+// Decodes one line (without its '\n'). Never throws; any defect is reported and the line must not be acted
+// on.
 Decoded decode(std::string_view line);
 
 // Splits a byte stream into lines. Pure state machine: feed bytes in any chunks, get whole lines out. A line
@@ -68,7 +71,7 @@ std::string format_number(double v);  // %.17g: parses back to the same double
 
 // Error codes in ERR replies.
 enum class ErrorCode : int {
-  bad_frame = 10,      // not a valid line (CRC, characters, length)
+  bad_frame = 10,  // not a valid line (CRC, characters, length)
   unknown_verb = 20,
   bad_argument = 21,
   out_of_limits = 30,  // refused: outside the controller's speed, force or inertia limits
@@ -84,7 +87,8 @@ inline constexpr const char* kModeHold = "HOLD";
 inline constexpr const char* kModeRoadLoad = "ROADLOAD";
 inline constexpr const char* kModeStop = "STOP";
 inline constexpr const char* kModeForce = "FORCE";  // MODE FORCE <N>: constant force, no simulation
-inline constexpr const char* kModeFree = "FREE";    // MODE FREE: motor off at speed, the rollers coast (reported IDLE)
+inline constexpr const char* kModeFree =
+    "FREE";  // MODE FREE: motor off at speed, the rollers coast (reported IDLE)
 
 // Flag bits in SMP and STATUS.
 inline constexpr std::uint32_t kFlagFault = 0x01;

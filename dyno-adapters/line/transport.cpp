@@ -7,8 +7,8 @@ namespace loadtrim::line {
 
 namespace {
 
-// Runs the io_context until `done` or the deadline; on timeout cancels the stream's operations and drains them,
-// so no handler outlives the call (the blocking-with-timeout pattern of the Asio examples).
+// Runs the io_context until `done` or the deadline; on timeout cancels the stream's operations and drains
+// them, so no handler outlives the call (the blocking-with-timeout pattern of the Asio examples).
 template <class Stream>
 bool run_until(asio::io_context& io, Stream& s, Deadline d, const bool& done) {
   io.restart();
@@ -36,10 +36,11 @@ class AsioStreamTransport : public Transport {
     if (!is_open()) return Result::retry("link not open");
     bool done = false;
     asio::error_code err;
-    asio::async_write(*stream_, asio::buffer(bytes.data(), bytes.size()), [&](const asio::error_code& ec, std::size_t) {
-      err = ec;
-      done = true;
-    });
+    asio::async_write(*stream_, asio::buffer(bytes.data(), bytes.size()),
+                      [&](const asio::error_code& ec, std::size_t) {
+                        err = ec;
+                        done = true;
+                      });
     if (!run_until(io_, *stream_, d, done) || err == asio::error::operation_aborted) {
       close();
       return Result::retry("write timed out on " + describe());
@@ -62,11 +63,13 @@ class AsioStreamTransport : public Transport {
     });
     const bool finished = run_until(io_, *stream_, d, done);
     if (n > 0) out.append(buf_.data(), n);
-    if (!finished || err == asio::error::operation_aborted) return Result::success();  // timeout, nothing lost
+    if (!finished || err == asio::error::operation_aborted)
+      return Result::success();  // timeout, nothing lost
     if (err) {
       close();
-      return Result::retry(err == asio::error::eof ? "connection closed by the controller (" + describe() + ")"
-                                                   : "read failed on " + describe() + ": " + err.message());
+      return Result::retry(err == asio::error::eof
+                               ? "connection closed by the controller (" + describe() + ")"
+                               : "read failed on " + describe() + ": " + err.message());
     }
     return Result::success();
   }
@@ -114,7 +117,9 @@ class TcpTransport : public AsioStreamTransport<asio::ip::tcp::socket> {
 class SerialTransport : public AsioStreamTransport<asio::serial_port> {
  public:
   explicit SerialTransport(SerialSettings s) : s_(std::move(s)) {}
-  std::string describe() const override { return "serial " + s_.device + " " + std::to_string(s_.baud) + " baud"; }
+  std::string describe() const override {
+    return "serial " + s_.device + " " + std::to_string(s_.baud) + " baud";
+  }
   Result open(Deadline) override {
     close();
     stream_ = std::make_unique<asio::serial_port>(io_);
@@ -124,10 +129,13 @@ class SerialTransport : public AsioStreamTransport<asio::serial_port> {
     using B = asio::serial_port_base;
     const B::parity::type parity = s_.parity == SerialSettings::Parity::none  ? B::parity::none
                                    : s_.parity == SerialSettings::Parity::odd ? B::parity::odd
-                                                                               : B::parity::even;
+                                                                              : B::parity::even;
     stream_->set_option(B::baud_rate(s_.baud), ec);
     if (!ec) stream_->set_option(B::parity(parity), ec);
-    if (!ec) stream_->set_option(B::stop_bits(s_.stop_bits == SerialSettings::StopBits::one ? B::stop_bits::one : B::stop_bits::two), ec);
+    if (!ec)
+      stream_->set_option(
+          B::stop_bits(s_.stop_bits == SerialSettings::StopBits::one ? B::stop_bits::one : B::stop_bits::two),
+          ec);
     if (!ec) stream_->set_option(B::character_size(s_.data_bits), ec);
     if (!ec) stream_->set_option(B::flow_control(B::flow_control::none), ec);
     if (ec) {

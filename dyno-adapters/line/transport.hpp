@@ -1,5 +1,5 @@
-// Byte transports under the line protocol engine: TCP (Asio) and serial (Asio serial_port), each call bounded by
-// a deadline. The engine never sees which one it has.
+// Byte transports under the line protocol engine: TCP (Asio) and serial (Asio serial_port), each call bounded
+// by a deadline. The engine never sees which one it has.
 #pragma once
 
 #include <memory>

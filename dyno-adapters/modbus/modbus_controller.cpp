@@ -12,9 +12,13 @@ using controller::Result;
 using Clock = std::chrono::steady_clock;
 
 ModbusController::ModbusController(const controller::CellConfig& cell)
-    : Controller(cell.timeouts, {cell.max_speed_kmh, cell.max_force_n, cell.max_time_scale, true}), cell_(cell), map_(cell.register_map) {}
+    : Controller(cell.timeouts, {cell.max_speed_kmh, cell.max_force_n, cell.max_time_scale, true}),
+      cell_(cell),
+      map_(cell.register_map) {}
 
-ModbusController::~ModbusController() { do_disconnect(); }
+ModbusController::~ModbusController() {
+  do_disconnect();
+}
 
 Result ModbusController::fail(const std::string& what) {
   const int e = errno;
@@ -37,7 +41,8 @@ Result ModbusController::do_connect(controller::Deadline) {
   if (!ctx_) return Result::fail("cannot create the Modbus context");
   modbus_set_slave(ctx_, map_.unit_id);
   const auto reply = timeouts().reply;
-  modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000), static_cast<std::uint32_t>(reply.count() % 1000) * 1000);
+  modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000),
+                              static_cast<std::uint32_t>(reply.count() % 1000) * 1000);
   if (modbus_connect(ctx_) != 0) {
     Result r = fail("connect");
     modbus_free(ctx_);
@@ -70,10 +75,13 @@ Result ModbusController::read(Q q, double& value) {
   } else {
     rc = modbus_read_registers(ctx_, r.address, r.words(), w);
   }
-  if (rc < 0) return fail(std::string("read ") + kQuantities[q].name + " (" + to_string(r.table) + " " + std::to_string(r.address) + ")");
+  if (rc < 0)
+    return fail(std::string("read ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
+                std::to_string(r.address) + ")");
   value = decode(r, w);
   if (!std::isfinite(value))
-    return Result::fail(std::string("the controller sent a non-finite ") + kQuantities[q].name + " (" + to_string(r.table) + " " + std::to_string(r.address) + ")");
+    return Result::fail(std::string("the controller sent a non-finite ") + kQuantities[q].name + " (" +
+                        to_string(r.table) + " " + std::to_string(r.address) + ")");
   return Result::success();
 }
 
@@ -82,13 +90,19 @@ Result ModbusController::write(Q q, double value) {
   const Register& r = map_[q];
   std::uint16_t w[2] = {0, 0};
   if (!encode(r, value, w))
-    return Result::fail(std::string("cannot write ") + kQuantities[q].name + " = " + std::to_string(value) + ": it does not fit the " + to_string(r.type) +
-                        " register at " + to_string(r.table) + " " + std::to_string(r.address) + " with scale " + std::to_string(r.scale));
+    return Result::fail(std::string("cannot write ") + kQuantities[q].name + " = " + std::to_string(value) +
+                        ": it does not fit the " + to_string(r.type) + " register at " + to_string(r.table) +
+                        " " + std::to_string(r.address) + " with scale " + std::to_string(r.scale));
   int rc;
-  if (r.table == Table::coil) rc = modbus_write_bit(ctx_, r.address, w[0] ? 1 : 0);
-  else if (r.words() == 1) rc = modbus_write_register(ctx_, r.address, w[0]);
-  else rc = modbus_write_registers(ctx_, r.address, 2, w);
-  if (rc < 0) return fail(std::string("write ") + kQuantities[q].name + " (" + to_string(r.table) + " " + std::to_string(r.address) + ")");
+  if (r.table == Table::coil)
+    rc = modbus_write_bit(ctx_, r.address, w[0] ? 1 : 0);
+  else if (r.words() == 1)
+    rc = modbus_write_register(ctx_, r.address, w[0]);
+  else
+    rc = modbus_write_registers(ctx_, r.address, 2, w);
+  if (rc < 0)
+    return fail(std::string("write ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
+                std::to_string(r.address) + ")");
   return Result::success();
 }
 
@@ -98,7 +112,9 @@ Result ModbusController::strobe(controller::Deadline d) {
     double s = 1.0;
     if (Result r = read(Q::strobe, s); !r.ok()) return r;
     if (s == 0.0) break;
-    if (Clock::now() >= d) return Result::retry("the controller did not take the setpoints (strobe not cleared) before the deadline");
+    if (Clock::now() >= d)
+      return Result::retry(
+          "the controller did not take the setpoints (strobe not cleared) before the deadline");
     std::this_thread::sleep_for(std::chrono::milliseconds(2));
   }
   if (map_[Q::error].present) {
@@ -106,7 +122,9 @@ Result ModbusController::strobe(controller::Deadline d) {
     if (Result r = read(Q::error, e); !r.ok()) return r;
     int code = 0;
     if (std::string bad = decode_error_code(e, code); !bad.empty()) return Result::fail(bad);
-    if (code != 0) return Result::fail("the controller refused the setpoints (error register " + std::to_string(code) + ")", code);
+    if (code != 0)
+      return Result::fail(
+          "the controller refused the setpoints (error register " + std::to_string(code) + ")", code);
   }
   return Result::success();
 }
@@ -127,7 +145,9 @@ Result ModbusController::do_write_inertia(double kg, controller::Deadline d) {
   if (Result r = write(Q::inertia, kg); !r.ok()) return r;
   return strobe(d);
 }
-Result ModbusController::do_read_inertia(double& kg, controller::Deadline) { return read(Q::inertia, kg); }
+Result ModbusController::do_read_inertia(double& kg, controller::Deadline) {
+  return read(Q::inertia, kg);
+}
 
 Result ModbusController::do_write_coefficients(const core::RoadLoad& c, controller::Deadline d) {
   if (Result r = write(Q::f0, c.f0_n); !r.ok()) return r;
@@ -145,14 +165,23 @@ Result ModbusController::do_read_coefficients(core::RoadLoad& c, controller::Dea
 Result ModbusController::do_command(controller::Mode mode, double hold_kmh, controller::Deadline d) {
   int code = kCommandIdle;
   switch (mode) {
-    case controller::Mode::idle: code = kCommandIdle; break;
-    case controller::Mode::speed_hold: code = kCommandHold; break;
-    case controller::Mode::road_load: code = kCommandRoadLoad; break;
-    case controller::Mode::controlled_stop: code = kCommandStop; break;
+    case controller::Mode::idle:
+      code = kCommandIdle;
+      break;
+    case controller::Mode::speed_hold:
+      code = kCommandHold;
+      break;
+    case controller::Mode::road_load:
+      code = kCommandRoadLoad;
+      break;
+    case controller::Mode::controlled_stop:
+      code = kCommandStop;
+      break;
     case controller::Mode::constant_force:
     case controller::Mode::free_coast:
-      return Result::fail(std::string(controller::to_string(mode)) +
-                          " is not in the Modbus register map: run the dyno's own checks over a line adapter");
+      return Result::fail(
+          std::string(controller::to_string(mode)) +
+          " is not in the Modbus register map: run the dyno's own checks over a line adapter");
   }
   if (mode == controller::Mode::speed_hold)
     if (Result r = write(Q::hold_speed, hold_kmh); !r.ok()) return r;
@@ -168,12 +197,14 @@ Result ModbusController::do_stream(double rate_hz, controller::Deadline) {
 
 Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) {
   if (!streaming_) return Result::success();
-  const auto period = std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(1.0 / map_.poll_rate_hz));
+  const auto period =
+      std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(1.0 / map_.poll_rate_hz));
   if (next_poll_ > d) return Result::success();
   std::this_thread::sleep_until(next_poll_);
   const auto now = Clock::now();
   if (!map_[Q::time].present)
-    worst_jitter_s_ = std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - next_poll_).count()));
+    worst_jitter_s_ =
+        std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - next_poll_).count()));
   next_poll_ += period;
   if (next_poll_ < now) next_poll_ = now + period;  // fell behind: no burst to catch up
   controller::Sample s;
@@ -194,7 +225,9 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   return Result::success();
 }
 
-Result ModbusController::do_heartbeat(controller::Deadline) { return write(Q::heartbeat, ++beat_); }
+Result ModbusController::do_heartbeat(controller::Deadline) {
+  return write(Q::heartbeat, ++beat_);
+}
 
 Result ModbusController::do_status(controller::StatusReport& out, controller::Deadline) {
   double mode = 0, status = 0;
@@ -205,8 +238,10 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
     if (Result r = read(Q::time, out.time_s); !r.ok()) return r;
   if (std::string bad = decode_mode(mode, out.mode); !bad.empty()) return Result::fail(bad);
   if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);
-  out.fault = (out.flags & controller::kFlagWatchdog) ? "WATCHDOG" : (out.flags & controller::kFlagEstop) ? "ESTOP"
-            : (out.flags & controller::kFlagFault) ? "FAULT" : "";
+  out.fault = (out.flags & controller::kFlagWatchdog) ? "WATCHDOG"
+              : (out.flags & controller::kFlagEstop)  ? "ESTOP"
+              : (out.flags & controller::kFlagFault)  ? "FAULT"
+                                                      : "";
   return Result::success();
 }
 

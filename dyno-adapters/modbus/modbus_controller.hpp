@@ -1,8 +1,8 @@
 // The Modbus adapter (libmodbus, TCP or RTU) behind the controller interface, driven by a register map.
 // Setpoints: write the value registers, raise the strobe, wait until the controller clears it (the write
-// handshake, with a deadline), then read back. Live quantities are polled at the map's rate; the controller's time
-// register gives the sample time when the map has one, else the host clock does and the poll jitter is measured.
-// Heartbeat: a counter register the controller's watchdog watches.
+// handshake, with a deadline), then read back. Live quantities are polled at the map's rate; the controller's
+// time register gives the sample time when the map has one, else the host clock does and the poll jitter is
+// measured. Heartbeat: a counter register the controller's watchdog watches.
 #pragma once
 
 #include <chrono>
@@ -33,8 +33,11 @@ class ModbusController : public controller::Controller {
   controller::Result do_read_coefficients(core::RoadLoad& c, controller::Deadline d) override;
   controller::Result do_command(controller::Mode mode, double hold_kmh, controller::Deadline d) override;
   controller::Result do_stream(double rate_hz, controller::Deadline d) override;
-  controller::Result do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) override;
-  bool streamed() const override { return false; }  // polled at the map's poll_rate_hz, not streamed at a rate asked
+  controller::Result do_receive_samples(std::vector<controller::Sample>& out,
+                                        controller::Deadline d) override;
+  bool streamed() const override {
+    return false;
+  }  // polled at the map's poll_rate_hz, not streamed at a rate asked
   controller::Result do_heartbeat(controller::Deadline d) override;
   controller::Result do_status(controller::StatusReport& out, controller::Deadline d) override;
   controller::Result do_clear_fault(controller::Deadline d) override;

@@ -11,23 +11,34 @@ namespace loadtrim::modbus {
 
 using core::Problem;
 
-const char* to_string(Table t) { return t == Table::holding ? "holding" : t == Table::input ? "input" : "coil"; }
+const char* to_string(Table t) {
+  return t == Table::holding ? "holding" : t == Table::input ? "input" : "coil";
+}
 const char* to_string(Type t) {
   switch (t) {
-    case Type::int16: return "int16";
-    case Type::uint16: return "uint16";
-    case Type::int32: return "int32";
-    case Type::uint32: return "uint32";
-    case Type::float32: return "float32";
+    case Type::int16:
+      return "int16";
+    case Type::uint16:
+      return "uint16";
+    case Type::int32:
+      return "int32";
+    case Type::uint32:
+      return "uint32";
+    case Type::float32:
+      return "float32";
   }
   return "?";
 }
 
 core::Problems validate(const RegisterMap& m) {
   core::Problems ps;
-  auto err = [&](const std::string& k, const std::string& msg) { ps.push_back({Problem::Severity::error, k, msg}); };
-  if (m.unit_id < 0 || m.unit_id > 247) err("modbus.unit_id", "is " + std::to_string(m.unit_id) + ", allowed 0 to 247");
-  if (!(m.poll_rate_hz >= 1.0 && m.poll_rate_hz <= 1000.0)) err("modbus.poll_rate_hz", "is " + core::num(m.poll_rate_hz) + ", allowed 1 to 1000 Hz");
+  auto err = [&](const std::string& k, const std::string& msg) {
+    ps.push_back({Problem::Severity::error, k, msg});
+  };
+  if (m.unit_id < 0 || m.unit_id > 247)
+    err("modbus.unit_id", "is " + std::to_string(m.unit_id) + ", allowed 0 to 247");
+  if (!(m.poll_rate_hz >= 1.0 && m.poll_rate_hz <= 1000.0))
+    err("modbus.poll_rate_hz", "is " + core::num(m.poll_rate_hz) + ", allowed 1 to 1000 Hz");
   std::map<Table, std::map<int, std::string>> used;  // address → quantity, per table
   for (std::size_t i = 0; i < kQuantities.size(); ++i) {
     const Quantity& q = kQuantities[i];
@@ -38,17 +49,26 @@ core::Problems validate(const RegisterMap& m) {
       continue;
     }
     if (r.address < 0 || r.address + r.words() > 65536)
-      err(key + ".address", "is " + std::to_string(r.address) + ", allowed 0 to " + std::to_string(65536 - r.words()));
-    if (!(std::isfinite(r.scale) && r.scale != 0.0)) err(key + ".scale", "is " + core::num(r.scale) + ", must be a finite non-zero number");
+      err(key + ".address",
+          "is " + std::to_string(r.address) + ", allowed 0 to " + std::to_string(65536 - r.words()));
+    if (!(std::isfinite(r.scale) && r.scale != 0.0))
+      err(key + ".scale", "is " + core::num(r.scale) + ", must be a finite non-zero number");
     if (r.unit != q.unit)
-      err(key + ".unit", "is \"" + r.unit + "\", must be \"" + q.unit + "\" (convert with scale; SI and km/h inside loadtrim)");
-    if (q.writable && r.table == Table::input) err(key + ".table", "is \"input\", but loadtrim writes this quantity: use \"holding\"");
-    if (r.table == Table::coil && std::string(q.name) != "strobe") err(key + ".table", "is \"coil\"; only the strobe may be a coil");
-    if (r.table == Table::coil && r.type != Type::uint16) err(key + ".type", "a coil is one bit: use \"uint16\"");
+      err(key + ".unit", "is \"" + r.unit + "\", must be \"" + q.unit +
+                             "\" (convert with scale; SI and km/h inside loadtrim)");
+    if (q.writable && r.table == Table::input)
+      err(key + ".table", "is \"input\", but loadtrim writes this quantity: use \"holding\"");
+    if (r.table == Table::coil && std::string(q.name) != "strobe")
+      err(key + ".table", "is \"coil\"; only the strobe may be a coil");
+    if (r.table == Table::coil && r.type != Type::uint16)
+      err(key + ".type", "a coil is one bit: use \"uint16\"");
     for (int w = 0; w < r.words(); ++w) {
       auto& slot = used[r.table][r.address + w];
-      if (!slot.empty()) err(key + ".address", "overlaps " + slot + " at " + to_string(r.table) + " register " + std::to_string(r.address + w));
-      else slot = q.name;
+      if (!slot.empty())
+        err(key + ".address",
+            "overlaps " + slot + " at " + to_string(r.table) + " register " + std::to_string(r.address + w));
+      else
+        slot = q.name;
     }
   }
   return ps;
@@ -56,13 +76,22 @@ core::Problems validate(const RegisterMap& m) {
 
 double decode(const Register& r, const std::uint16_t* w) {
   std::uint32_t v32 = 0;
-  if (r.words() == 2) v32 = r.order == WordOrder::big ? (std::uint32_t(w[0]) << 16) | w[1] : (std::uint32_t(w[1]) << 16) | w[0];
+  if (r.words() == 2)
+    v32 = r.order == WordOrder::big ? (std::uint32_t(w[0]) << 16) | w[1] : (std::uint32_t(w[1]) << 16) | w[0];
   double raw = 0.0;
   switch (r.type) {
-    case Type::int16: raw = static_cast<std::int16_t>(w[0]); break;
-    case Type::uint16: raw = w[0]; break;
-    case Type::int32: raw = static_cast<std::int32_t>(v32); break;
-    case Type::uint32: raw = v32; break;
+    case Type::int16:
+      raw = static_cast<std::int16_t>(w[0]);
+      break;
+    case Type::uint16:
+      raw = w[0];
+      break;
+    case Type::int32:
+      raw = static_cast<std::int32_t>(v32);
+      break;
+    case Type::uint32:
+      raw = v32;
+      break;
     case Type::float32: {
       float f;
       std::memcpy(&f, &v32, sizeof f);
@@ -77,7 +106,9 @@ bool encode(const Register& r, double value, std::uint16_t* w) {
   if (!std::isfinite(value) || !(r.scale != 0.0)) return false;
   const double raw = value / r.scale;
   std::uint32_t v32 = 0;
-  const auto fits = [&](double lo, double hi) { return std::isfinite(raw) && std::round(raw) >= lo && std::round(raw) <= hi; };
+  const auto fits = [&](double lo, double hi) {
+    return std::isfinite(raw) && std::round(raw) >= lo && std::round(raw) <= hi;
+  };
   switch (r.type) {
     case Type::int16:
       if (!fits(-32768.0, 32767.0)) return false;
@@ -96,7 +127,8 @@ bool encode(const Register& r, double value, std::uint16_t* w) {
       v32 = static_cast<std::uint32_t>(std::llround(raw));
       break;
     case Type::float32: {
-      if (!std::isfinite(raw) || std::abs(raw) > static_cast<double>(std::numeric_limits<float>::max())) return false;
+      if (!std::isfinite(raw) || std::abs(raw) > static_cast<double>(std::numeric_limits<float>::max()))
+        return false;
       const float f = static_cast<float>(raw);
       std::memcpy(&v32, &f, sizeof f);
       break;
@@ -114,7 +146,9 @@ bool encode(const Register& r, double value, std::uint16_t* w) {
 
 namespace {
 // A register value that must be a whole number in [lo, hi] (codes and bit fields).
-bool whole_in(double v, double lo, double hi) { return std::isfinite(v) && v == std::floor(v) && v >= lo && v <= hi; }
+bool whole_in(double v, double lo, double hi) {
+  return std::isfinite(v) && v == std::floor(v) && v >= lo && v <= hi;
+}
 std::string shown(double v) {
   std::ostringstream o;
   o << v;
@@ -124,21 +158,26 @@ std::string shown(double v) {
 
 std::string decode_mode(double value, controller::Mode& out) {
   if (!whole_in(value, 0.0, 3.0))
-    return "mode register value " + shown(value) + " is not a mode code (allowed: 0 idle, 1 hold, 2 road load, 3 stop)";
+    return "mode register value " + shown(value) +
+           " is not a mode code (allowed: 0 idle, 1 hold, 2 road load, 3 stop)";
   const int m = static_cast<int>(value);
-  out = m == kCommandHold ? controller::Mode::speed_hold : m == kCommandRoadLoad ? controller::Mode::road_load
-      : m == kCommandStop ? controller::Mode::controlled_stop : controller::Mode::idle;
+  out = m == kCommandHold       ? controller::Mode::speed_hold
+        : m == kCommandRoadLoad ? controller::Mode::road_load
+        : m == kCommandStop     ? controller::Mode::controlled_stop
+                                : controller::Mode::idle;
   return "";
 }
 
 std::string decode_flags(double value, std::uint32_t& out) {
-  if (!whole_in(value, 0.0, 4294967295.0)) return "status register value " + shown(value) + " is not a bit field (allowed: 0 to 4294967295)";
+  if (!whole_in(value, 0.0, 4294967295.0))
+    return "status register value " + shown(value) + " is not a bit field (allowed: 0 to 4294967295)";
   out = static_cast<std::uint32_t>(value);
   return "";
 }
 
 std::string decode_error_code(double value, int& out) {
-  if (!whole_in(value, -2147483648.0, 2147483647.0)) return "error register value " + shown(value) + " is not an error code";
+  if (!whole_in(value, -2147483648.0, 2147483647.0))
+    return "error register value " + shown(value) + " is not an error code";
   out = static_cast<int>(value);
   return "";
 }

@@ -1,6 +1,6 @@
-// The Modbus register map of a controller: for each quantity its table, address, type, word order, scale and unit.
-// Read from the [modbus] table of a cell file (config::load_register_map) and validated in full before connecting.
-// Pure: encoding and decoding of register words, no I/O.
+// The Modbus register map of a controller: for each quantity its table, address, type, word order, scale and
+// unit. Read from the [modbus] table of a cell file (config::load_register_map) and validated in full before
+// connecting. Pure: encoding and decoding of register words, no I/O.
 #pragma once
 
 #include <array>
@@ -25,31 +25,67 @@ struct Register {
   WordOrder order = WordOrder::big;
   double scale = 1.0;  // physical value = raw × scale
   std::string unit;
-  int words() const { return table == Table::coil ? 1 : (type == Type::int32 || type == Type::uint32 || type == Type::float32) ? 2 : 1; }
+  int words() const {
+    return table == Table::coil                                                     ? 1
+           : (type == Type::int32 || type == Type::uint32 || type == Type::float32) ? 2
+                                                                                    : 1;
+  }
 };
 
 // Command and mode codes (ours): what the command register takes and the mode register reports.
-inline constexpr int kCommandIdle = 0, kCommandHold = 1, kCommandRoadLoad = 2, kCommandStop = 3, kCommandClearFault = 4;
+inline constexpr int kCommandIdle = 0, kCommandHold = 1, kCommandRoadLoad = 2, kCommandStop = 3,
+                     kCommandClearFault = 4;
 
 struct Quantity {
   const char* name;
   const char* unit;  // expected unit ("" = a plain number or bit field)
   bool required;
-  bool writable;     // the tool writes it (holding register or coil)
+  bool writable;  // the tool writes it (holding register or coil)
 };
 // The quantities a map may name, in a fixed order (index = position in RegisterMap::regs).
 inline constexpr std::array<Quantity, 19> kQuantities = {{
-    {"speed", "km/h", true, false},          {"force", "N", true, false},        {"time", "s", false, false},
-    {"mode", "", true, false},               {"status", "", true, false},        {"error", "", false, false},
-    {"inertia", "kg", true, true},           {"f0", "N", true, true},            {"f1", "N/(km/h)", true, true},
-    {"f2", "N/(km/h)^2", true, true},        {"hold_speed", "km/h", true, true}, {"command", "", true, true},
-    {"strobe", "", true, true},              {"heartbeat", "", true, true},      {"roller_diameter", "m", true, false},
-    {"base_inertia", "kg", true, false},     {"max_speed", "km/h", true, false}, {"max_force", "N", true, false},
+    {"speed", "km/h", true, false},
+    {"force", "N", true, false},
+    {"time", "s", false, false},
+    {"mode", "", true, false},
+    {"status", "", true, false},
+    {"error", "", false, false},
+    {"inertia", "kg", true, true},
+    {"f0", "N", true, true},
+    {"f1", "N/(km/h)", true, true},
+    {"f2", "N/(km/h)^2", true, true},
+    {"hold_speed", "km/h", true, true},
+    {"command", "", true, true},
+    {"strobe", "", true, true},
+    {"heartbeat", "", true, true},
+    {"roller_diameter", "m", true, false},
+    {"base_inertia", "kg", true, false},
+    {"max_speed", "km/h", true, false},
+    {"max_force", "N", true, false},
     // The controller's clock rate (controller seconds per wall second): absent means 1, as for any real dyno.
     {"time_scale", "", false, false},
 }};
-enum Q : std::size_t { speed, force, time, mode, status, error, inertia, f0, f1, f2, hold_speed, command, strobe, heartbeat,
-                       roller_diameter, base_inertia, max_speed, max_force, time_scale };
+enum Q : std::size_t {
+  speed,
+  force,
+  time,
+  mode,
+  status,
+  error,
+  inertia,
+  f0,
+  f1,
+  f2,
+  hold_speed,
+  command,
+  strobe,
+  heartbeat,
+  roller_diameter,
+  base_inertia,
+  max_speed,
+  max_force,
+  time_scale
+};
 
 struct RegisterMap {
   int unit_id = 1;
@@ -61,14 +97,15 @@ struct RegisterMap {
 // Every problem at once, keys "modbus.<quantity>.<field>".
 core::Problems validate(const RegisterMap& m);
 
-// Raw words ↔ physical value, per the register's type, word order and scale. encode refuses (returns false and
-// writes nothing) a value that is not finite or does not fit the register's type after scaling: a setpoint is
-// never clamped or wrapped silently.
+// Raw words ↔ physical value, per the register's type, word order and scale. encode refuses (returns false
+// and writes nothing) a value that is not finite or does not fit the register's type after scaling: a
+// setpoint is never clamped or wrapped silently.
 double decode(const Register& r, const std::uint16_t* words);
 bool encode(const Register& r, double value, std::uint16_t* words);
 
-// Reply values in the controller's terms. Each returns "" or what is wrong with the value (the controller sent a
-// mode code we do not define, a status that is not a whole number of 0..2^32-1, an error code out of range).
+// Reply values in the controller's terms. Each returns "" or what is wrong with the value (the controller
+// sent a mode code we do not define, a status that is not a whole number of 0..2^32-1, an error code out of
+// range).
 std::string decode_mode(double value, controller::Mode& out);
 std::string decode_flags(double value, std::uint32_t& out);
 std::string decode_error_code(double value, int& out);

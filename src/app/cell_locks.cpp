@@ -12,7 +12,8 @@ namespace loadtrim::app {
 namespace fs = std::filesystem;
 
 std::string endpoint_key(const controller::CellConfig& cell) {
-  if (cell.adapter == "line-tcp" || cell.adapter == "modbus-tcp") return "tcp-" + cell.host + "-" + std::to_string(cell.port);
+  if (cell.adapter == "line-tcp" || cell.adapter == "modbus-tcp")
+    return "tcp-" + cell.host + "-" + std::to_string(cell.port);
   if (cell.adapter == "line-serial" || cell.adapter == "modbus-rtu") {
     std::error_code ec;
     const fs::path real = fs::weakly_canonical(cell.serial.device, ec);
@@ -34,8 +35,8 @@ record::LockHolder me(const std::string& command, const std::string& folder) {
   return h;
 }
 
-bool take(const std::string& path, record::LockMode mode, const record::LockHolder& who, const std::string& what,
-          std::optional<record::FileLock>& held, std::string& message) {
+bool take(const std::string& path, record::LockMode mode, const record::LockHolder& who,
+          const std::string& what, std::optional<record::FileLock>& held, std::string& message) {
   std::string busy, stale;
   held = record::FileLock::try_acquire(path, mode, who, what, busy, &stale);
   message = held ? stale : busy;
@@ -44,27 +45,31 @@ bool take(const std::string& path, record::LockMode mode, const record::LockHold
 
 }  // namespace
 
-bool lock_cell(const controller::CellConfig& cell, record::LockMode mode, const std::string& command, const std::string& folder,
-               std::optional<record::FileLock>& held, std::string& message) {
+bool lock_cell(const controller::CellConfig& cell, record::LockMode mode, const std::string& command,
+               const std::string& folder, std::optional<record::FileLock>& held, std::string& message) {
   held.reset();
   message.clear();
   const std::string key = endpoint_key(cell);
   if (key.empty()) return true;
   try {
-    return take(record::cell_lock_path(record::lock_dir(), key), mode, me(command, folder), "cell", held, message);
+    return take(record::cell_lock_path(record::lock_dir(), key), mode, me(command, folder), "cell", held,
+                message);
   } catch (const std::exception& e) {
     message = std::string("cannot lock the cell: ") + e.what();
     return false;
   }
 }
 
-bool lock_folder(const std::string& folder, const std::string& command, std::optional<record::FileLock>& held, std::string& message) {
+bool lock_folder(const std::string& folder, const std::string& command, std::optional<record::FileLock>& held,
+                 std::string& message) {
   held.reset();
   message.clear();
   std::error_code ec;
   const std::string abs = fs::weakly_canonical(folder, ec).string();
   try {
-    const std::string path = (fs::path(record::lock_dir()) / ("folder-" + record::sha256_hex(ec ? folder : abs).substr(0, 32) + ".lock")).string();
+    const std::string path = (fs::path(record::lock_dir()) /
+                              ("folder-" + record::sha256_hex(ec ? folder : abs).substr(0, 32) + ".lock"))
+                                 .string();
     return take(path, record::LockMode::exclusive, me(command, ec ? folder : abs), "folder", held, message);
   } catch (const std::exception& e) {
     message = std::string("cannot lock the folder: ") + e.what();

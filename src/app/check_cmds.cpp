@@ -1,6 +1,6 @@
-// `loadtrim check ...`: the dyno's own checks with no vehicle on the rollers (parasitic, coastdown, readiness,
-// inertia), the due-date view (due), and logging major maintenance (maintenance). Thin: the procedures are in
-// src/checks, the computations in src/core/dyno_checks.
+// `loadtrim check ...`: the dyno's own checks with no vehicle on the rollers (parasitic, coastdown,
+// readiness, inertia), the due-date view (due), and logging major maintenance (maintenance). Thin: the
+// procedures are in src/checks, the computations in src/core/dyno_checks.
 
 #include <cstdio>
 #include <iostream>
@@ -23,7 +23,8 @@ namespace loadtrim::app {
 namespace {
 
 const char* kCheckCautions =
-    "Before the rollers move for a dyno check (the lab's own safety rules, local codes and licensed practice come first):\n"
+    "Before the rollers move for a dyno check (the lab's own safety rules, local codes and licensed practice "
+    "come first):\n"
     "  - NO vehicle on the rollers; roller locks released; nothing loose in the pit;\n"
     "  - nobody in the roller area; guards, interlocks and emergency stops work;\n"
     "  - the cell's speed and force limits in the cell file are right; loadtrim never commands more.\n";
@@ -37,8 +38,8 @@ struct CheckOptions {
   record::DataRoot root;
 };
 
-// The lab's data root (docs/records.md): the check histories default to <data root>/checks, whatever the current
-// folder, so `check due` run anywhere sees the same state.
+// The lab's data root (docs/records.md): the check histories default to <data root>/checks, whatever the
+// current folder, so `check due` run anywhere sees the same state.
 bool lab(CheckOptions& o) {
   RunRequest r;
   r.data_dir = o.data_dir;
@@ -49,8 +50,10 @@ bool lab(CheckOptions& o) {
 }
 
 std::string confirm_check(bool unattended) {
-  return ask_to_motor(unattended, kCheckCautions, "EMPTY", "Type EMPTY to confirm there is no vehicle on the rollers and let loadtrim motor them: ",
-                      "interactive confirmation (rollers empty)");
+  return ask_to_motor(
+      unattended, kCheckCautions, "EMPTY",
+      "Type EMPTY to confirm there is no vehicle on the rollers and let loadtrim motor them: ",
+      "interactive confirmation (rollers empty)");
 }
 
 struct Loaded {
@@ -77,11 +80,12 @@ int run_one(const CheckOptions& o) {
   core::CheckKind kind;
   if (!core::parse(o.kind, kind)) return kBadInput;
   const Loaded l = load(o);  // throws InputError: nothing started
-  // One procedure per cell: a busy cell is refused at once (the check's folder is not known yet: the lock names the
-  // command and the pid).
+  // One procedure per cell: a busy cell is refused at once (the check's folder is not known yet: the lock
+  // names the command and the pid).
   std::optional<record::FileLock> cell_lock;
   std::string lock_msg;
-  if (!lock_cell(l.cell, record::LockMode::exclusive, "check " + o.kind, "(a dyno check of " + l.cell.name + ")", cell_lock, lock_msg)) {
+  if (!lock_cell(l.cell, record::LockMode::exclusive, "check " + o.kind,
+                 "(a dyno check of " + l.cell.name + ")", cell_lock, lock_msg)) {
     std::cerr << "loadtrim: refusing to start: " << lock_msg << "\n";
     return kBadInput;
   }
@@ -113,12 +117,16 @@ int run_one(const CheckOptions& o) {
   auto c = adapters::make_controller(l.cell);
   const checks::CheckResult r = checks::run_check(*c, req, &stop_flag());
   if (o.json) {
-    std::printf("%s\n", nlohmann::json({{"type", "check"}, {"check", o.kind}, {"end", checks::to_string(r.end)}, {"verdict", r.verdict},
+    std::printf("%s\n", nlohmann::json({{"type", "check"},
+                                        {"check", o.kind},
+                                        {"end", checks::to_string(r.end)},
+                                        {"verdict", r.verdict},
                                         {"folder", r.folder}})
                             .dump()
                             .c_str());
   } else {
-    std::printf("check %s: %s\n%s\nfolder: %s\n", o.kind.c_str(), checks::to_string(r.end), r.verdict.c_str(), r.folder.c_str());
+    std::printf("check %s: %s\n%s\nfolder: %s\n", o.kind.c_str(), checks::to_string(r.end), r.verdict.c_str(),
+                r.folder.c_str());
   }
   return checks::exit_code(r.end);
 }
@@ -141,12 +149,15 @@ int run_due(const CheckOptions& o) {
   if (o.json) {
     std::printf("%s\n", checks::to_json(r).dump().c_str());
   } else {
-    std::printf("dyno checks for cell %s at %s (%s):\n", l.cell.name.c_str(), checks::utc_from_s(now).c_str(), h.log_path().c_str());
+    std::printf("dyno checks for cell %s at %s (%s):\n", l.cell.name.c_str(), checks::utc_from_s(now).c_str(),
+                h.log_path().c_str());
     if (!r.history_ok) std::printf("  HISTORY BROKEN: %s\n", r.history_error.c_str());
     for (const auto& it : r.items) {
-      std::printf("  %-10s %-26s last pass %-24s %s%s\n", core::to_string(it.kind), core::to_string(it.state),
-                  it.last_pass_utc_s ? checks::utc_from_s(*it.last_pass_utc_s).c_str() : "never",
-                  it.valid_until_utc_s ? ("valid until " + checks::utc_from_s(*it.valid_until_utc_s)).c_str() : "", it.why.empty() ? "" : ("  " + it.why).c_str());
+      std::printf(
+          "  %-10s %-26s last pass %-24s %s%s\n", core::to_string(it.kind), core::to_string(it.state),
+          it.last_pass_utc_s ? checks::utc_from_s(*it.last_pass_utc_s).c_str() : "never",
+          it.valid_until_utc_s ? ("valid until " + checks::utc_from_s(*it.valid_until_utc_s)).c_str() : "",
+          it.why.empty() ? "" : ("  " + it.why).c_str());
     }
     std::printf("sessions %s: %s\n", r.may_start() ? "may start" : "REFUSED", r.summary().c_str());
   }
@@ -164,7 +175,10 @@ int run_maintenance(const CheckOptions& o) {
     std::cerr << "loadtrim: " << h.error() << "\n";
     return kRecordFailure;
   }
-  std::printf("maintenance logged for cell %s: the parasitic determination and the base inertia check are due again\n", l.cell.name.c_str());
+  std::printf(
+      "maintenance logged for cell %s: the parasitic determination and the base inertia check are due "
+      "again\n",
+      l.cell.name.c_str());
   return kAccepted;
 }
 
@@ -172,51 +186,63 @@ int run_maintenance(const CheckOptions& o) {
 
 void register_check_commands(CLI::App& app, Runner& run) {
   auto o = std::make_shared<CheckOptions>();
-  auto* sub = app.add_subcommand("check", "the dyno's own checks with no vehicle on the rollers, and which are due");
+  auto* sub =
+      app.add_subcommand("check", "the dyno's own checks with no vehicle on the rollers, and which are due");
   sub->require_subcommand(1);
   auto common = [&](CLI::App* s) {
     s->add_option("--cell", o->cell, "cell configuration (TOML)")->required();
     s->add_option("--profile", o->profile, "check profile (default: config/checks/cfr1066.toml)");
-    s->add_option("--data-dir", o->data_dir, "the lab's data root (default: as for run; see loadtrim run --help)");
-    s->add_option("--checks", o->checks, "where the cells' check histories and check folders are (default: <data root>/checks)");
+    s->add_option("--data-dir", o->data_dir,
+                  "the lab's data root (default: as for run; see loadtrim run --help)");
+    s->add_option("--checks", o->checks,
+                  "where the cells' check histories and check folders are (default: <data root>/checks)");
   };
   const struct {
     const char* name;
     const char* help;
   } kinds[] = {
-      {"parasitic", "determine the parasitic loss curve (free coast of the empty rollers) and compare it with the stored one"},
+      {"parasitic",
+       "determine the parasitic loss curve (free coast of the empty rollers) and compare it with the stored "
+       "one"},
       {"coastdown", "unloaded coast-down (1066.270 shape) at the smallest and the largest inertia"},
-      {"readiness", "daily readiness: the unloaded coast-down at the smallest inertia only (the most sensitive end)"},
+      {"readiness",
+       "daily readiness: the unloaded coast-down at the smallest inertia only (the most sensitive end)"},
       {"inertia", "base inertia (1066.250 shape): constant force, time 10 → 40 mph, I = F·Δt/Δv"},
   };
   for (const auto& k : kinds) {
     auto* s = sub->add_subcommand(k.name, k.help);
     common(s);
-    s->add_flag("--unattended", o->unattended, "motor the empty rollers without asking (the lab's rules must allow it)");
+    s->add_flag("--unattended", o->unattended,
+                "motor the empty rollers without asking (the lab's rules must allow it)");
     s->add_option("--port", o->port, "override the cell file's TCP port")->check(CLI::Range(1, 65535));
     s->add_option("--device", o->device, "override the cell file's serial device");
     s->add_option("--note", o->note, "operator note for the record");
     s->add_option("--operator", o->operator_name,
-                  "who runs it, for the record (default: the cell file's records.operator, else asked, else the login name)");
+                  "who runs it, for the record (default: the cell file's records.operator, else asked, else "
+                  "the login name)");
     s->add_flag("--json", o->json, "print the result as one JSON line");
     if (std::string(k.name) == "parasitic")
-      s->add_flag("--accept-new-curve", o->accept_new_curve,
-                  "store the determined curve even when it differs from the stored one (after maintenance; logged)");
+      s->add_flag(
+          "--accept-new-curve", o->accept_new_curve,
+          "store the determined curve even when it differs from the stored one (after maintenance; logged)");
     const std::string name = k.name;
     s->callback([o, &run, name] {
       o->kind = name;
       run = [o] { return lab(*o) ? run_one(*o) : static_cast<int>(kBadInput); };
     });
   }
-  auto* due = sub->add_subcommand("due", "which dyno checks are due for the cell (40 CFR 1066.215 intervals)");
+  auto* due =
+      sub->add_subcommand("due", "which dyno checks are due for the cell (40 CFR 1066.215 intervals)");
   common(due);
   due->add_option("--now", o->now, "evaluate at this UTC time instead of now (e.g. 2026-12-08T08:00:00Z)");
   due->add_flag("--json", o->json, "print the view as JSON");
   due->callback([o, &run] { run = [o] { return lab(*o) ? run_due(*o) : static_cast<int>(kBadInput); }; });
-  auto* mnt = sub->add_subcommand("maintenance", "log major maintenance of the dyno (makes its parasitic and inertia checks due)");
+  auto* mnt = sub->add_subcommand(
+      "maintenance", "log major maintenance of the dyno (makes its parasitic and inertia checks due)");
   common(mnt);
   mnt->add_option("--note", o->note, "what was done")->required();
-  mnt->callback([o, &run] { run = [o] { return lab(*o) ? run_maintenance(*o) : static_cast<int>(kBadInput); }; });
+  mnt->callback(
+      [o, &run] { run = [o] { return lab(*o) ? run_maintenance(*o) : static_cast<int>(kBadInput); }; });
 }
 
 }  // namespace loadtrim::app

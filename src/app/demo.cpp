@@ -49,17 +49,20 @@ int demo_one(DemoOptions o) {
   char scale[32];
   std::snprintf(scale, sizeof scale, "%g", o.time_scale);
   SimLauncher sim({"--truth", o.truth, "--port", "0", "--time-scale", scale});
-  std::printf("simulated controller started: pid %d, tcp 127.0.0.1:%u, %s× real time\n", static_cast<int>(sim.pid()), sim.port(), scale);
+  std::printf("simulated controller started: pid %d, tcp 127.0.0.1:%u, %s× real time\n",
+              static_cast<int>(sim.pid()), sim.port(), scale);
   o.req.port = sim.port();
   return run_new_session(o.req);
 }
 
 int demo_fleet(DemoOptions o) {
-  std::printf("loadtrim demo: %d vehicles from %s, randomised truths, in-process simulated controller.\n", o.vehicles, o.epa.c_str());
+  std::printf("loadtrim demo: %d vehicles from %s, randomised truths, in-process simulated controller.\n",
+              o.vehicles, o.epa.c_str());
   const config::EpaFile f = config::read_epa_csv(o.epa);
   const std::string profile_name = o.req.profile.empty() ? "wltp-iterative" : o.req.profile;
   const core::Profile profile = config::load_profile(
-      profile_name.ends_with(".toml") ? profile_name : config::profile_path(data_dir() + "/config/profiles", profile_name));
+      profile_name.ends_with(".toml") ? profile_name
+                                      : config::profile_path(data_dir() + "/config/profiles", profile_name));
   o.req.simulator = true;
   o.req.cell_file = data_dir() + "/config/cells/sim-inprocess.toml";
   if (o.req.console == session::Console::Mode::normal) o.req.console = session::Console::Mode::quiet;
@@ -78,18 +81,25 @@ int demo_fleet(DemoOptions o) {
       ++screened;
       continue;
     }
-    const auto layout = v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
-    physics::Truth truth = physics::random_truth(v.test_mass_kg, core::resolved_rotating_mass_kg(v, profile.mass), layout, {}, rng);
+    const auto layout =
+        v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
+    physics::Truth truth = physics::random_truth(
+        v.test_mass_kg, core::resolved_rotating_mass_kg(v, profile.mass), layout, {}, rng);
     const std::string file = targets + "/" + record::safe_name(v.id) + ".toml";
     std::string err;
-    record::write_durable(file, config::target_toml(v, "Target from the public US EPA Test Car List (samples/data), for the demo."), err);
+    record::write_durable(
+        file,
+        config::target_toml(v, "Target from the public US EPA Test Car List (samples/data), for the demo."),
+        err);
     RunRequest r = o.req;
     // An all-wheel-drive vehicle runs on a two-axle cell (a single-axle cell refuses it: docs/safety.md).
-    if (layout == core::AxleLayout::two_axle) r.cell_file = data_dir() + "/config/cells/sim-inprocess-two-axle.toml";
+    if (layout == core::AxleLayout::two_axle)
+      r.cell_file = data_dir() + "/config/cells/sim-inprocess-two-axle.toml";
     r.target_file = file;
     r.profile = profile_name;
     r.inprocess_truth = truth;
-    std::printf("vehicle %-22s TM %6.0f kg  %s: ", v.id.c_str(), v.test_mass_kg, layout == core::AxleLayout::two_axle ? "two-axle   " : "single-axle");
+    std::printf("vehicle %-22s TM %6.0f kg  %s: ", v.id.c_str(), v.test_mass_kg,
+                layout == core::AxleLayout::two_axle ? "two-axle   " : "single-axle");
     std::fflush(stdout);
     std::string folder;
     const int rc = run_new_session(r, &folder);
@@ -102,8 +112,11 @@ int demo_fleet(DemoOptions o) {
     }
   }
   std::sort(counts.begin(), counts.end());
-  std::printf("\n%d of %d vehicles accepted (%d rows screened out as implausible); coast-downs to acceptance: median %d, max %d\n",
-              accepted, done, screened, counts.empty() ? 0 : counts[counts.size() / 2], counts.empty() ? 0 : counts.back());
+  std::printf(
+      "\n%d of %d vehicles accepted (%d rows screened out as implausible); coast-downs to acceptance: median "
+      "%d, max %d\n",
+      accepted, done, screened, counts.empty() ? 0 : counts[counts.size() / 2],
+      counts.empty() ? 0 : counts.back());
   return accepted == done ? kAccepted : kNotAccepted;
 }
 
@@ -113,21 +126,32 @@ void register_demo(CLI::App& app, Runner& run) {
   auto o = std::make_shared<DemoOptions>();
   o->req.target_file = data_dir() + "/samples/targets/demo-hatchback.toml";
   o->truth = data_dir() + "/samples/truths/demo-hatchback.toml";
-  auto* sub = app.add_subcommand("demo", "a full session against the simulated controller for an invented demo vehicle");
+  auto* sub = app.add_subcommand(
+      "demo", "a full session against the simulated controller for an invented demo vehicle");
   sub->add_option("--target", o->req.target_file, "vehicle target file (TOML)")->capture_default_str();
   sub->add_option("--truth", o->truth, "the simulator's hidden truth (TOML)")->capture_default_str();
   sub->add_option("--profile", o->req.profile, "standard profile name or file (default: the target's)");
   sub->add_option("--first-setting", o->req.first_setting, "standard, fleet, loss-map or history")
-      ->check(CLI::IsMember({"standard", "fleet", "loss-map", "history"}))->capture_default_str();
-  sub->add_option("--time-scale", o->time_scale, "simulated seconds per wall second")->check(CLI::Range(1.0, 2000.0))->capture_default_str();
+      ->check(CLI::IsMember({"standard", "fleet", "loss-map", "history"}))
+      ->capture_default_str();
+  sub->add_option("--time-scale", o->time_scale, "simulated seconds per wall second")
+      ->check(CLI::Range(1.0, 2000.0))
+      ->capture_default_str();
   sub->add_flag("--in-process", o->in_process, "run the simulated controller inside this process");
-  sub->add_option("--data-dir", o->req.data_dir, "the lab's data root (default: as for run; see loadtrim run --help)");
-  sub->add_option("--sessions", o->req.sessions_dir, "where session folders go (default: <data root>/sessions)");
-  sub->add_option("--epa", o->epa, "run vehicles drawn from this EPA-format CSV (in-process, randomised truths)");
-  sub->add_option("--vehicles", o->vehicles, "how many vehicles with --epa")->check(CLI::Range(1, 100000))->capture_default_str();
+  sub->add_option("--data-dir", o->req.data_dir,
+                  "the lab's data root (default: as for run; see loadtrim run --help)");
+  sub->add_option("--sessions", o->req.sessions_dir,
+                  "where session folders go (default: <data root>/sessions)");
+  sub->add_option("--epa", o->epa,
+                  "run vehicles drawn from this EPA-format CSV (in-process, randomised truths)");
+  sub->add_option("--vehicles", o->vehicles, "how many vehicles with --epa")
+      ->check(CLI::Range(1, 100000))
+      ->capture_default_str();
   sub->add_option("--seed", o->seed, "seed for drawing vehicles and truths")->capture_default_str();
-  auto* q = sub->add_flag_function("--quiet", [o](std::int64_t) { o->req.console = session::Console::Mode::quiet; }, "print only results");
-  auto* j = sub->add_flag_function("--json", [o](std::int64_t) { o->req.console = session::Console::Mode::json; }, "JSON lines");
+  auto* q = sub->add_flag_function(
+      "--quiet", [o](std::int64_t) { o->req.console = session::Console::Mode::quiet; }, "print only results");
+  auto* j = sub->add_flag_function(
+      "--json", [o](std::int64_t) { o->req.console = session::Console::Mode::json; }, "JSON lines");
   q->excludes(j);
   sub->callback([o, &run] {
     run = [o] {

@@ -4,13 +4,20 @@ namespace loadtrim::app {
 
 const char* describe(ExitCode c) {
   switch (c) {
-    case kAccepted: return "accepted";
-    case kNotAccepted: return "not accepted";
-    case kBadInput: return "bad input";
-    case kControllerFault: return "controller or link fault";
-    case kInterrupted: return "interrupted";
-    case kRecordFailure: return "record failure";
-    case kInternalError: return "internal error";
+    case kAccepted:
+      return "accepted";
+    case kNotAccepted:
+      return "not accepted";
+    case kBadInput:
+      return "bad input";
+    case kControllerFault:
+      return "controller or link fault";
+    case kInterrupted:
+      return "interrupted";
+    case kRecordFailure:
+      return "record failure";
+    case kInternalError:
+      return "internal error";
   }
   return "unknown";
 }

@@ -1,16 +1,16 @@
-// `loadtrim link-check`: connect to the cell's controller, print what it reports, check it against the cell file,
-// round-trip the set coefficients and inertia (writing back what is already there), and stream a few seconds of
-// samples with the rollers idle. Nothing moves.
+// `loadtrim link-check`: connect to the cell's controller, print what it reports, check it against the cell
+// file, round-trip the set coefficients and inertia (writing back what is already there), and stream a few
+// seconds of samples with the rollers idle. Nothing moves.
 #include <cstdio>
 #include <iostream>
 
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
 #include "app/session_runner.hpp"
-#include "motion/motion.hpp"
 #include "app/subcommands.hpp"
 #include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
+#include "motion/motion.hpp"
 #include "registry.hpp"
 
 namespace loadtrim::app {
@@ -37,7 +37,8 @@ int run_link_check(const LinkCheckOptions& o) {
   if (!w.empty()) std::cerr << config::format_problems(o.cell, w);
   if (o.port > 0) cell.port = static_cast<unsigned>(o.port);
   if (!o.device.empty()) cell.serial.device = o.device;
-  // A link-check moves nothing and shares the cell with other link-checks; a session or check holding it refuses it.
+  // A link-check moves nothing and shares the cell with other link-checks; a session or check holding it
+  // refuses it.
   std::optional<record::FileLock> cell_lock;
   std::string lock_msg;
   if (!lock_cell(cell, record::LockMode::shared, "link-check", "", cell_lock, lock_msg)) {
@@ -49,9 +50,10 @@ int run_link_check(const LinkCheckOptions& o) {
   if (auto r = c->connect(); !r.ok()) return fail(r);
   controller::ControllerInfo info;
   if (auto r = c->identify(info); !r.ok()) return fail(r);
-  std::printf("controller %s, protocol %d, capabilities %s\n", info.name.c_str(), info.protocol_version, info.capabilities.c_str());
-  std::printf("  roller diameter %.4f m, base inertia %.1f kg, max speed %.1f km/h, max force %.0f N\n", info.roller_diameter_m,
-              info.base_inertia_kg, info.max_speed_kmh, info.max_force_n);
+  std::printf("controller %s, protocol %d, capabilities %s\n", info.name.c_str(), info.protocol_version,
+              info.capabilities.c_str());
+  std::printf("  roller diameter %.4f m, base inertia %.1f kg, max speed %.1f km/h, max force %.0f N\n",
+              info.roller_diameter_m, info.base_inertia_kg, info.max_speed_kmh, info.max_force_n);
   const core::Problems mismatch = controller::check_identity(cell, info);
   if (!mismatch.empty()) std::cerr << config::format_problems(o.cell, mismatch);
   core::RoadLoad set;
@@ -60,15 +62,17 @@ int run_link_check(const LinkCheckOptions& o) {
   if (auto r = c->read_inertia(inertia); !r.ok()) return fail(r);
   if (auto r = c->set_coefficients(set); !r.ok()) return fail(r);
   if (auto r = c->set_inertia(inertia); !r.ok()) return fail(r);
-  std::printf("round trip ok: set f0 %.4f N, f1 %.6f N/(km/h), f2 %.7f N/(km/h)^2, inertia %.2f kg\n", set.f0_n,
-              set.f1_n_per_kmh, set.f2_n_per_kmh2, inertia);
+  std::printf("round trip ok: set f0 %.4f N, f1 %.6f N/(km/h), f2 %.7f N/(km/h)^2, inertia %.2f kg\n",
+              set.f0_n, set.f1_n_per_kmh, set.f2_n_per_kmh2, inertia);
   controller::StatusReport st;
   if (auto r = c->status(st); !r.ok()) return fail(r);
-  std::printf("status: mode %s, speed %.2f km/h, controller time %.3f s, fault %s\n", controller::to_string(st.mode),
-              st.speed_kmh, st.time_s, st.fault.empty() ? "none" : st.fault.c_str());
+  std::printf("status: mode %s, speed %.2f km/h, controller time %.3f s, fault %s\n",
+              controller::to_string(st.mode), st.speed_kmh, st.time_s,
+              st.fault.empty() ? "none" : st.fault.c_str());
   if (auto r = c->start_stream(o.rate_hz); !r.ok()) return fail(r);
-  // Only samples read after the stream's start was acknowledged count, over the asked seconds of controller time; the
-  // wait is bounded in wall time too (motion/motion.hpp), and the controller's clock is checked against the tool's.
+  // Only samples read after the stream's start was acknowledged count, over the asked seconds of controller
+  // time; the wait is bounded in wall time too (motion/motion.hpp), and the controller's clock is checked
+  // against the tool's.
   motion::Rules rules;
   rules.speed_limit_kmh = cell.max_speed_kmh;
   rules.standstill_kmh = cell.standstill_kmh;
@@ -79,10 +83,13 @@ int run_link_check(const LinkCheckOptions& o) {
   stream_step.since_epoch = c->epoch();
   std::vector<controller::Sample> samples;
   double t0 = -1.0;
-  if (auto r = m.collect(stream_step, [&](const controller::Sample& s) {
-        if (t0 < 0.0) t0 = s.time_s;
-        return s.time_s - t0 >= o.seconds;
-      }, &samples);
+  if (auto r = m.collect(
+          stream_step,
+          [&](const controller::Sample& s) {
+            if (t0 < 0.0) t0 = s.time_s;
+            return s.time_s - t0 >= o.seconds;
+          },
+          &samples);
       !r.ok()) {
     c->stop_stream();
     return fail(r);
@@ -91,12 +98,17 @@ int run_link_check(const LinkCheckOptions& o) {
   const auto s = c->stats();
   const double span = samples.size() > 1 ? samples.back().time_s - samples.front().time_s : 0.0;
   const double hz = span > 0 ? (samples.size() - 1) / span : 0.0;
-  std::printf("stream: %zu samples over %.3f s of controller time (%.1f Hz), lost %llu, rejected lines %llu, malformed %llu, repeated %llu\n",
-              samples.size(), span, hz, static_cast<unsigned long long>(s.samples_lost), static_cast<unsigned long long>(s.lines_rejected),
-              static_cast<unsigned long long>(s.samples_malformed), static_cast<unsigned long long>(s.samples_duplicate));
-  // A streamed link must deliver the rate asked (within 10 %, common practice, no source); a polled one its own.
+  std::printf(
+      "stream: %zu samples over %.3f s of controller time (%.1f Hz), lost %llu, rejected lines %llu, "
+      "malformed %llu, repeated %llu\n",
+      samples.size(), span, hz, static_cast<unsigned long long>(s.samples_lost),
+      static_cast<unsigned long long>(s.lines_rejected), static_cast<unsigned long long>(s.samples_malformed),
+      static_cast<unsigned long long>(s.samples_duplicate));
+  // A streamed link must deliver the rate asked (within 10 %, common practice, no source); a polled one its
+  // own.
   const bool rate_ok = !c->streams() || (hz >= 0.9 * o.rate_hz && hz <= 1.1 * o.rate_hz);
-  if (!rate_ok) std::fprintf(stderr, "link-check: the controller streams at %.1f Hz; %.0f Hz was asked\n", hz, o.rate_hz);
+  if (!rate_ok)
+    std::fprintf(stderr, "link-check: the controller streams at %.1f Hz; %.0f Hz was asked\n", hz, o.rate_hz);
   c->disconnect();
   const bool ok = mismatch.empty() && s.samples_lost == 0 && s.samples_malformed == 0 && rate_ok;
   std::printf("link-check %s\n", ok ? "passed" : "found problems (see above)");
@@ -111,8 +123,12 @@ void register_link_check(CLI::App& app, Runner& run) {
   sub->add_option("--cell", o->cell, "cell configuration (TOML)")->required();
   sub->add_option("--port", o->port, "override the TCP port of the cell file")->check(CLI::Range(1, 65535));
   sub->add_option("--device", o->device, "override the serial device of the cell file");
-  sub->add_option("--seconds", o->seconds, "controller seconds of samples to stream")->check(CLI::Range(0.1, 600.0))->capture_default_str();
-  sub->add_option("--rate-hz", o->rate_hz, "sample rate to request")->check(CLI::Range(10.0, 1000.0))->capture_default_str();
+  sub->add_option("--seconds", o->seconds, "controller seconds of samples to stream")
+      ->check(CLI::Range(0.1, 600.0))
+      ->capture_default_str();
+  sub->add_option("--rate-hz", o->rate_hz, "sample rate to request")
+      ->check(CLI::Range(10.0, 1000.0))
+      ->capture_default_str();
   sub->callback([o, &run] { run = [o] { return run_link_check(*o); }; });
 }
 

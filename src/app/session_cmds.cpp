@@ -15,24 +15,33 @@ namespace loadtrim::app {
 
 namespace {
 void output_options(CLI::App* sub, RunRequest& r) {
-  auto* q = sub->add_flag_function("--quiet", [&r](std::int64_t) { r.console = session::Console::Mode::quiet; }, "print only the result");
-  auto* j = sub->add_flag_function("--json", [&r](std::int64_t) { r.console = session::Console::Mode::json; }, "one JSON object per line on stdout");
+  auto* q = sub->add_flag_function(
+      "--quiet", [&r](std::int64_t) { r.console = session::Console::Mode::quiet; }, "print only the result");
+  auto* j = sub->add_flag_function(
+      "--json", [&r](std::int64_t) { r.console = session::Console::Mode::json; },
+      "one JSON object per line on stdout");
   q->excludes(j);
-  sub->add_flag("--unattended", r.unattended, "motor the rollers without asking (the lab's rules must allow unattended runs)");
+  sub->add_flag("--unattended", r.unattended,
+                "motor the rollers without asking (the lab's rules must allow unattended runs)");
   sub->add_option("--port", r.port, "override the cell file's TCP port")->check(CLI::Range(1, 65535));
   sub->add_option("--device", r.device, "override the cell file's serial device");
-  sub->add_option("--rewarm-s", r.resume_warm_up_s, "warm-up after a resume or a lost link (default: the profile's)")->check(CLI::Range(0.0, 14400.0));
-  sub->add_option("--data-dir", r.data_dir,
-                  "the lab's data root: sessions, checks, histories, keys (default: $LOADTRIM_DATA_DIR, else data_dir in "
-                  "/etc/loadtrim/loadtrim.toml, else $XDG_DATA_HOME/loadtrim or ~/.local/share/loadtrim)");
+  sub->add_option("--rewarm-s", r.resume_warm_up_s,
+                  "warm-up after a resume or a lost link (default: the profile's)")
+      ->check(CLI::Range(0.0, 14400.0));
+  sub->add_option(
+      "--data-dir", r.data_dir,
+      "the lab's data root: sessions, checks, histories, keys (default: $LOADTRIM_DATA_DIR, else data_dir in "
+      "/etc/loadtrim/loadtrim.toml, else $XDG_DATA_HOME/loadtrim or ~/.local/share/loadtrim)");
   sub->add_option("--sessions", r.sessions_dir, "where session folders go (default: <data root>/sessions)");
   sub->add_option("--history", r.history_dir, "history of earlier sessions (default: <data root>/history)");
   sub->add_option("--checks", r.checks_dir, "the cells' dyno-check histories (default: <data root>/checks)");
-  sub->add_option("--check-profile", r.check_profile, "dyno check profile (default: config/checks/cfr1066.toml)");
+  sub->add_option("--check-profile", r.check_profile,
+                  "dyno check profile (default: config/checks/cfr1066.toml)");
   sub->add_option("--override-checks", r.override_checks,
                   "start although required dyno checks are due or failed; give the reason (it is logged)");
   sub->add_option("--operator", r.operator_name,
-                  "who runs it, for the record (default: the cell file's records.operator, else asked, else the login name)");
+                  "who runs it, for the record (default: the cell file's records.operator, else asked, else "
+                  "the login name)");
 }
 }  // namespace
 
@@ -43,7 +52,8 @@ void register_session_commands(CLI::App& app, Runner& run) {
   sub->add_option("--target", req->target_file, "vehicle target file (TOML)")->required();
   sub->add_option("--profile", req->profile, "standard profile name or file (default: the target's)");
   sub->add_option("--first-setting", req->first_setting, "standard, fleet, loss-map or history")
-      ->check(CLI::IsMember({"standard", "fleet", "loss-map", "history"}))->capture_default_str();
+      ->check(CLI::IsMember({"standard", "fleet", "loss-map", "history"}))
+      ->capture_default_str();
   sub->add_option("--fleet", req->fleet_csv, "EPA-format CSV for the fleet estimate (default: samples/data)");
   sub->add_option("--note", req->note, "operator note for the record");
   output_options(sub, *req);
@@ -58,7 +68,8 @@ void register_session_commands(CLI::App& app, Runner& run) {
 
   auto rfolder = std::make_shared<std::string>();
   auto pdf = std::make_shared<bool>(false);
-  auto* rep = app.add_subcommand("report", "write the HTML report and CSV exports of a session folder (and a PDF)");
+  auto* rep =
+      app.add_subcommand("report", "write the HTML report and CSV exports of a session folder (and a PDF)");
   rep->add_option("folder", *rfolder, "the session folder")->required();
   rep->add_flag("--pdf", *pdf, "also print report.pdf with headless Chromium (Debian package chromium)");
   rep->callback([rfolder, pdf, &run] {
@@ -68,7 +79,8 @@ void register_session_commands(CLI::App& app, Runner& run) {
         std::fprintf(stderr, "loadtrim: %s\n", r.error.c_str());
         return static_cast<int>(kRecordFailure);
       }
-      std::printf("report: %s\ncsv: %s, %s\n", r.html.c_str(), r.coefficients_csv.c_str(), r.deviations_csv.c_str());
+      std::printf("report: %s\ncsv: %s, %s\n", r.html.c_str(), r.coefficients_csv.c_str(),
+                  r.deviations_csv.c_str());
       if (!r.chain_ok) std::printf("note: the log chain is broken; the report says so on its first page\n");
       if (*pdf) {
         std::string err;
@@ -88,18 +100,24 @@ void register_session_commands(CLI::App& app, Runner& run) {
     bool json = false, no_cell_log = false;
   };
   auto va = std::make_shared<VerifyArgs>();
-  auto* ver = app.add_subcommand("verify",
-                                 "verify a session or check folder: its log chain, every recorded file hash, the seal's coverage "
-                                 "and signature, and each approval (docs/records.md). Exit codes: 0 verified; 5 broken "
-                                 "(tampered or damaged: the record or file is named); 6 not finished (no seal); 7 sealed but "
-                                 "unsigned, or signed with a key verify does not know; 2 no such folder or a bad option");
+  auto* ver = app.add_subcommand(
+      "verify",
+      "verify a session or check folder: its log chain, every recorded file hash, the seal's coverage "
+      "and signature, and each approval (docs/records.md). Exit codes: 0 verified; 5 broken "
+      "(tampered or damaged: the record or file is named); 6 not finished (no seal); 7 sealed but "
+      "unsigned, or signed with a key verify does not know; 2 no such folder or a bad option");
   ver->add_option("folder", va->folder, "the session or check folder")->required();
-  ver->add_option("--data-dir", va->data_dir,
-                  "the lab's data root: trusted public keys in keys/, cell logs in checks/ (default: --data-dir, else "
-                  "$LOADTRIM_DATA_DIR, else data_dir in /etc/loadtrim/loadtrim.toml, else $XDG_DATA_HOME/loadtrim or "
-                  "~/.local/share/loadtrim; now: " + record::find_data_root("").describe() + ")");
-  ver->add_option("--public-key", va->public_keys, "a trusted public key (PEM) for the seal, e.g. a retired cell key")->check(CLI::ExistingFile);
-  ver->add_option("--reviewer-key", va->reviewer_keys, "a trusted reviewer's public key (PEM) for approvals")->check(CLI::ExistingFile);
+  ver->add_option(
+      "--data-dir", va->data_dir,
+      "the lab's data root: trusted public keys in keys/, cell logs in checks/ (default: --data-dir, else "
+      "$LOADTRIM_DATA_DIR, else data_dir in /etc/loadtrim/loadtrim.toml, else $XDG_DATA_HOME/loadtrim or "
+      "~/.local/share/loadtrim; now: " +
+          record::find_data_root("").describe() + ")");
+  ver->add_option("--public-key", va->public_keys,
+                  "a trusted public key (PEM) for the seal, e.g. a retired cell key")
+      ->check(CLI::ExistingFile);
+  ver->add_option("--reviewer-key", va->reviewer_keys, "a trusted reviewer's public key (PEM) for approvals")
+      ->check(CLI::ExistingFile);
   ver->add_option("--checks", va->checks, "where the cells' logs are (default: <data root>/checks)");
   ver->add_flag("--no-cell-log", va->no_cell_log, "do not compare the folder with its cell's log");
   ver->add_flag("--json", va->json, "print the verdict as one JSON object");
@@ -121,7 +139,8 @@ void register_session_commands(CLI::App& app, Runner& run) {
       }
       if (!va->checks.empty()) opt.checks_root = va->checks;
       if (va->no_cell_log) opt.checks_root.clear();
-      for (const auto& [files, keys] : {std::pair{&va->public_keys, &opt.cell_keys}, std::pair{&va->reviewer_keys, &opt.reviewer_keys}})
+      for (const auto& [files, keys] :
+           {std::pair{&va->public_keys, &opt.cell_keys}, std::pair{&va->reviewer_keys, &opt.reviewer_keys}})
         for (const auto& f : *files) {
           std::string err;
           auto k = record::PublicKey::load(f, err);
@@ -141,23 +160,38 @@ void register_session_commands(CLI::App& app, Runner& run) {
       for (const auto& n : notes) std::printf("note: %s\n", n.c_str());
       for (const auto& n : v.notes) std::printf("note: %s\n", n.c_str());
       switch (v.outcome) {
-        case record::Outcome::verified: std::printf("verified: %s\n", v.message.c_str()); break;
-        case record::Outcome::broken: std::printf("BROKEN: %s\n", v.message.c_str()); break;
-        case record::Outcome::not_finished: std::printf("NOT FINISHED: %s\n", v.message.c_str()); break;
-        case record::Outcome::unsigned_seal: std::printf("SEALED, NOT SIGNED: %s\n", v.message.c_str()); break;
-        case record::Outcome::key_unknown: std::printf("KEY UNKNOWN: %s\n", v.message.c_str()); break;
+        case record::Outcome::verified:
+          std::printf("verified: %s\n", v.message.c_str());
+          break;
+        case record::Outcome::broken:
+          std::printf("BROKEN: %s\n", v.message.c_str());
+          break;
+        case record::Outcome::not_finished:
+          std::printf("NOT FINISHED: %s\n", v.message.c_str());
+          break;
+        case record::Outcome::unsigned_seal:
+          std::printf("SEALED, NOT SIGNED: %s\n", v.message.c_str());
+          break;
+        case record::Outcome::key_unknown:
+          std::printf("KEY UNKNOWN: %s\n", v.message.c_str());
+          break;
       }
       if (v.outcome == record::Outcome::broken) {
         if (v.record >= 0) std::printf("first broken record: %lld\n", static_cast<long long>(v.record));
         if (!v.file.empty()) std::printf("file: %s\n", v.file.c_str());
       }
       if (v.seal)
-        std::printf("seal: record %llu, %s, %zu files, %s\n", static_cast<unsigned long long>(v.seal->seq), v.seal->utc.c_str(), v.seal->files,
-                    v.seal->is_signed ? ("signer " + v.seal->signer + (v.seal->signature_checked ? " (signature verified)" : " (not checked)")).c_str()
-                                      : "unsigned");
+        std::printf("seal: record %llu, %s, %zu files, %s\n", static_cast<unsigned long long>(v.seal->seq),
+                    v.seal->utc.c_str(), v.seal->files,
+                    v.seal->is_signed
+                        ? ("signer " + v.seal->signer +
+                           (v.seal->signature_checked ? " (signature verified)" : " (not checked)"))
+                              .c_str()
+                        : "unsigned");
       for (const auto& a : v.approvals)
-        std::printf("approval: record %llu, %s, %s: \"%s\" (%s)\n", static_cast<unsigned long long>(a.seq), a.reviewer.c_str(), a.utc.c_str(),
-                    a.statement.c_str(), a.signature_checked ? "signature verified" : "reviewer key unknown");
+        std::printf("approval: record %llu, %s, %s: \"%s\" (%s)\n", static_cast<unsigned long long>(a.seq),
+                    a.reviewer.c_str(), a.utc.c_str(), a.statement.c_str(),
+                    a.signature_checked ? "signature verified" : "reviewer key unknown");
       return record::verify_exit_code(v.outcome);
     };
   });

@@ -10,22 +10,22 @@
 #include <iostream>
 #include <thread>
 
+#include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
 #include "app/subcommands.hpp"
 #include "checks/cell_history.hpp"
+#include "checks/check_runner.hpp"
 #include "config/cell_loader.hpp"
 #include "config/epa_csv.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
 #include "core/combination.hpp"
-#include "app/cell_locks.hpp"
-#include "checks/check_runner.hpp"
 #include "motion/motion.hpp"
-#include "record/verify.hpp"
 #include "record/event_log.hpp"
 #include "record/session_folder.hpp"
-#include "report/report.hpp"
+#include "record/verify.hpp"
 #include "registry.hpp"
+#include "report/report.hpp"
 #include "session/record_writer.hpp"
 
 namespace loadtrim::app {
@@ -34,7 +34,9 @@ namespace fs = std::filesystem;
 
 namespace {
 std::atomic<bool> g_stop{false};
-extern "C" void on_stop_signal(int) { g_stop.store(true); }
+extern "C" void on_stop_signal(int) {
+  g_stop.store(true);
+}
 
 const char* kCautions =
     "Before the rollers move (the lab's own safety rules, local codes and licensed practice come first):\n"
@@ -45,10 +47,14 @@ const char* kCautions =
 
 }  // namespace
 
-std::string default_check_profile() { return data_dir() + "/config/checks/cfr1066.toml"; }
+std::string default_check_profile() {
+  return data_dir() + "/config/checks/cfr1066.toml";
+}
 
 std::string profile_file(const std::string& p) {
-  return p.find('/') != std::string::npos || p.ends_with(".toml") ? p : config::profile_path(data_dir() + "/config/profiles", p);
+  return p.find('/') != std::string::npos || p.ends_with(".toml")
+             ? p
+             : config::profile_path(data_dir() + "/config/profiles", p);
 }
 
 namespace {
@@ -70,8 +76,8 @@ struct Loaded {
   throw errors.back();
 }
 
-Loaded load_all(const std::string& cell_file, const std::string& target_file, const std::string& profile_override,
-                const RunRequest& req) {
+Loaded load_all(const std::string& cell_file, const std::string& target_file,
+                const std::string& profile_override, const RunRequest& req) {
   Loaded l;
   std::vector<config::InputError> errors;
   auto load = [&](const std::string& file, const auto& fn) {
@@ -91,7 +97,8 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file, co
   });
   if (have_target || !profile_override.empty()) {
     l.profile_path = profile_file(profile_override.empty() ? l.inputs.vehicle.profile : profile_override);
-    load(l.profile_path, [&](core::Problems& w) { l.inputs.profile = config::load_profile(l.profile_path, &w); });
+    load(l.profile_path,
+         [&](core::Problems& w) { l.inputs.profile = config::load_profile(l.profile_path, &w); });
   }
   if (!errors.empty()) throw_all(errors);
   if (req.port > 0) l.inputs.cell.port = static_cast<unsigned>(req.port);
@@ -99,12 +106,14 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file, co
   // How the three files combine (core/combination.hpp): every limit that needs no controller is checked now,
   // before anything connects.
   const auto& cell = l.inputs.cell;
-  const core::CellFacts facts{cell.max_speed_kmh, cell.max_force_n, cell.max_motoring_s, cell.axles, cell.min_inertia_kg, cell.max_inertia_kg};
+  const core::CellFacts facts{cell.max_speed_kmh, cell.max_force_n,    cell.max_motoring_s,
+                              cell.axles,         cell.min_inertia_kg, cell.max_inertia_kg};
   const core::CombinationProblems cp = core::check_combination(l.inputs.vehicle, l.inputs.profile, facts);
   if (cp.any_error())
-    std::cerr << "loadtrim: the cell file " << cell_file << ", the target " << target_file << " and the profile " << l.profile_path
-              << " do not fit together:\n";
-  for (const auto& [file, ps] : {std::pair{cell_file, cp.cell}, std::pair{target_file, cp.target}, std::pair{l.profile_path, cp.profile}}) {
+    std::cerr << "loadtrim: the cell file " << cell_file << ", the target " << target_file
+              << " and the profile " << l.profile_path << " do not fit together:\n";
+  for (const auto& [file, ps] : {std::pair{cell_file, cp.cell}, std::pair{target_file, cp.target},
+                                 std::pair{l.profile_path, cp.profile}}) {
     core::Problems errs, warns;
     for (const auto& p : ps) (p.severity == core::Problem::Severity::error ? errs : warns).push_back(p);
     warn(file, warns);
@@ -120,7 +129,9 @@ std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
     const config::EpaFile f = config::read_epa_csv(csv);
     std::vector<core::FleetRow> rows;
     for (const auto& r : f.rows)
-      rows.push_back({r.etw_kg, r.drive_code == "F" || r.drive_code == "R" ? core::AxleLayout::single_axle : core::AxleLayout::two_axle,
+      rows.push_back({r.etw_kg,
+                      r.drive_code == "F" || r.drive_code == "R" ? core::AxleLayout::single_axle
+                                                                 : core::AxleLayout::two_axle,
                       r.target, r.set});
     auto m = core::fit_fleet_loss(rows);
     if (m.ok()) return m;
@@ -130,7 +141,8 @@ std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
   return std::nullopt;
 }
 
-std::string history_file(const std::string& dir, const controller::CellConfig& cell, const core::VehicleTarget& v) {
+std::string history_file(const std::string& dir, const controller::CellConfig& cell,
+                         const core::VehicleTarget& v) {
   return (fs::path(dir) / record::safe_name(cell.name) / (record::safe_name(v.id) + ".json")).string();
 }
 
@@ -142,7 +154,8 @@ std::optional<core::HistoryEntry> load_history(const std::string& file) {
     core::HistoryEntry h;
     h.utc = j.at("utc").get<std::string>();
     auto c = [](const nlohmann::json& x) {
-      return core::RoadLoad{x.at("f0_n").get<double>(), x.at("f1_n_per_kmh").get<double>(), x.at("f2_n_per_kmh2").get<double>()};
+      return core::RoadLoad{x.at("f0_n").get<double>(), x.at("f1_n_per_kmh").get<double>(),
+                            x.at("f2_n_per_kmh2").get<double>()};
     };
     h.target = c(j.at("target"));
     h.final_set = c(j.at("final_set"));
@@ -153,25 +166,36 @@ std::optional<core::HistoryEntry> load_history(const std::string& file) {
   }
 }
 
-void save_history(const std::string& file, const core::VehicleTarget& v, const session::Summary& s, const std::string& folder) {
+void save_history(const std::string& file, const core::VehicleTarget& v, const session::Summary& s,
+                  const std::string& folder) {
   if (!s.final_set) return;
   std::error_code ec;
   fs::create_directories(fs::path(file).parent_path(), ec);
-  nlohmann::json j = {{"utc", record::utc_now()}, {"vehicle", v.id}, {"session", folder},
-                      {"target", {{"f0_n", v.target.f0_n}, {"f1_n_per_kmh", v.target.f1_n_per_kmh}, {"f2_n_per_kmh2", v.target.f2_n_per_kmh2}}},
-                      {"final_set", {{"f0_n", s.final_set->f0_n}, {"f1_n_per_kmh", s.final_set->f1_n_per_kmh}, {"f2_n_per_kmh2", s.final_set->f2_n_per_kmh2}}}};
+  nlohmann::json j = {{"utc", record::utc_now()},
+                      {"vehicle", v.id},
+                      {"session", folder},
+                      {"target",
+                       {{"f0_n", v.target.f0_n},
+                        {"f1_n_per_kmh", v.target.f1_n_per_kmh},
+                        {"f2_n_per_kmh2", v.target.f2_n_per_kmh2}}},
+                      {"final_set",
+                       {{"f0_n", s.final_set->f0_n},
+                        {"f1_n_per_kmh", s.final_set->f1_n_per_kmh},
+                        {"f2_n_per_kmh2", s.final_set->f2_n_per_kmh2}}}};
   std::string err;
   if (!record::write_durable(file, j.dump(2) + "\n", err)) std::cerr << "history not saved: " << err << "\n";
 }
 
-// Interactive confirmation, or the explicit unattended flag. Returns the way it was given, or empty = refused.
+// Interactive confirmation, or the explicit unattended flag. Returns the way it was given, or empty =
+// refused.
 std::string confirm(const RunRequest& req) {
   if (req.simulator) return "simulated controller started by this command: no rollers move";
-  return ask_to_motor(req.unattended, kCautions, "YES", "Type YES to let loadtrim motor the rollers: ", "interactive confirmation");
+  return ask_to_motor(req.unattended, kCautions, "YES",
+                      "Type YES to let loadtrim motor the rollers: ", "interactive confirmation");
 }
 
-// Blocks the session's thread for good at an event: a record type, or "state:<name>" for entering a state (test hook
-// only; see execute()).
+// Blocks the session's thread for good at an event: a record type, or "state:<name>" for entering a state
+// (test hook only; see execute()).
 class FreezeForTest : public session::Observer {
  public:
   explicit FreezeForTest(std::string state) : state_(std::move(state)) {}
@@ -188,11 +212,12 @@ class FreezeForTest : public session::Observer {
   std::string state_;
 };
 
-// Seals a session folder whose result is final (docs/records.md): the last thing written to it, with the cell's key
-// when its file names one, and the seal's chain head in the cell's own log. False (with the reason on stderr) is a
-// record failure.
-bool seal_session(const std::string& folder, const controller::CellConfig& cell, const nlohmann::json& summary,
-                  const record::SigningKey* key, const std::string& checks_root, bool quiet) {
+// Seals a session folder whose result is final (docs/records.md): the last thing written to it, with the
+// cell's key when its file names one, and the seal's chain head in the cell's own log. False (with the reason
+// on stderr) is a record failure.
+bool seal_session(const std::string& folder, const controller::CellConfig& cell,
+                  const nlohmann::json& summary, const record::SigningKey* key,
+                  const std::string& checks_root, bool quiet) {
   record::SealRequest sr;
   sr.cell = cell.name;
   sr.result = summary;
@@ -204,13 +229,16 @@ bool seal_session(const std::string& folder, const controller::CellConfig& cell,
     return false;
   }
   if (!quiet)
-    std::printf("sealed: %s\n", info.signer.empty() ? "unsigned (the cell file names no signing key: loadtrim keys create --cell ...)"
-                                                     : ("signed by " + info.signer).c_str());
+    std::printf("sealed: %s\n",
+                info.signer.empty()
+                    ? "unsigned (the cell file names no signing key: loadtrim keys create --cell ...)"
+                    : ("signed by " + info.signer).c_str());
   return true;
 }
 
-int execute(session::Inputs inputs, const RunRequest& req, const std::string& folder, const session::ResumePoint* resume,
-            const std::string& confirmation, nlohmann::json started, const record::SigningKey* key) {
+int execute(session::Inputs inputs, const RunRequest& req, const std::string& folder,
+            const session::ResumePoint* resume, const std::string& confirmation, nlohmann::json started,
+            const record::SigningKey* key) {
   session::RecordWriter writer(folder);
   if (!writer.ok()) {
     std::cerr << "loadtrim: " << writer.error() << "\n";
@@ -218,21 +246,27 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   }
   session::Console console(req.console);
   std::unique_ptr<controller::Controller> c =
-      req.inprocess_truth ? adapters::make_inprocess_controller(inputs.cell, *req.inprocess_truth) : adapters::make_controller(inputs.cell);
+      req.inprocess_truth ? adapters::make_inprocess_controller(inputs.cell, *req.inprocess_truth)
+                          : adapters::make_controller(inputs.cell);
   session::Options opt;
   if (!core::parse(req.first_setting, opt.first_setting)) {
-    std::cerr << "--first-setting: \"" << req.first_setting << "\" is not one of standard, fleet, loss-map, history\n";
+    std::cerr << "--first-setting: \"" << req.first_setting
+              << "\" is not one of standard, fleet, loss-map, history\n";
     return kBadInput;
   }
   opt.sample_rate_hz = inputs.cell.sample_rate_hz;
   opt.resume_warm_up_s = req.resume_warm_up_s;
   opt.operator_note = req.note;
-  opt.fleet = load_fleet(req.fleet_csv.empty() ? data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv" : req.fleet_csv);
+  opt.fleet =
+      load_fleet(req.fleet_csv.empty() ? data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv"
+                                       : req.fleet_csv);
   const std::string hfile = history_file(req.history_dir, inputs.cell, inputs.vehicle);
   opt.history = load_history(hfile);
   started["confirmation"] = confirmation;
   const auto& tv = inputs.vehicle;
-  started["target"] = {{"f0_n", tv.target.f0_n}, {"f1_n_per_kmh", tv.target.f1_n_per_kmh}, {"f2_n_per_kmh2", tv.target.f2_n_per_kmh2}};
+  started["target"] = {{"f0_n", tv.target.f0_n},
+                       {"f1_n_per_kmh", tv.target.f1_n_per_kmh},
+                       {"f2_n_per_kmh2", tv.target.f2_n_per_kmh2}};
   started["vehicle_description"] = tv.description;
   started["test_mass_kg"] = tv.test_mass_kg;
   started["standard"] = inputs.profile.standard;
@@ -247,13 +281,15 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     std::cerr << "loadtrim: " << writer.error() << "\n";
     return kRecordFailure;
   }
-  if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
-  else std::printf("%s\n", nlohmann::json({{"type", "session_folder"}, {"path", folder}}).dump().c_str());
+  if (req.console != session::Console::Mode::json)
+    std::printf("session folder: %s\n", folder.c_str());
+  else
+    std::printf("%s\n", nlohmann::json({{"type", "session_folder"}, {"path", folder}}).dump().c_str());
   std::fflush(stdout);
   const core::VehicleTarget vehicle = inputs.vehicle;
   std::vector<session::Observer*> observers = {&writer, &console};
-  // A test hook (as LOADTRIM_TEST_FAIL_WRITES_AFTER): freeze the session's own thread at the named event, to show
-  // that a stalled tool lets the controller's watchdog stop the rollers (docs/safety.md).
+  // A test hook (as LOADTRIM_TEST_FAIL_WRITES_AFTER): freeze the session's own thread at the named event, to
+  // show that a stalled tool lets the controller's watchdog stop the rollers (docs/safety.md).
   std::optional<FreezeForTest> freezer;
   if (const char* st = std::getenv("LOADTRIM_TEST_FREEZE_IN_STATE"); st && *st) {
     freezer.emplace(st);
@@ -265,22 +301,26 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   c->disconnect();
   // Nothing more goes into the folder: a final result is sealed (the report, a derived file, may follow).
   writer.close();
-  // A final result is sealed only when its record and summary.json were written: else it is a record failure, and
-  // resume finishes it from what was recorded.
-  if (session::is_final(sum.outcome) && (!writer.ok() || writer.summary().is_null())) sum.outcome = session::Outcome::record_failure;
-  if (session::is_final(sum.outcome) &&
-      !seal_session(folder, cell, writer.summary(), key, req.checks_dir, req.console == session::Console::Mode::json))
+  // A final result is sealed only when its record and summary.json were written: else it is a record failure,
+  // and resume finishes it from what was recorded.
+  if (session::is_final(sum.outcome) && (!writer.ok() || writer.summary().is_null()))
+    sum.outcome = session::Outcome::record_failure;
+  if (session::is_final(sum.outcome) && !seal_session(folder, cell, writer.summary(), key, req.checks_dir,
+                                                      req.console == session::Console::Mode::json))
     sum.outcome = session::Outcome::record_failure;
   if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder);
   // Every session ends with its report (from the record alone, so it shows what an auditor would see).
   const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION);
-  if (!rep.ok) std::cerr << "loadtrim: report not written: " << rep.error << "\n";
-  else if (req.console == session::Console::Mode::normal) std::printf("report: %s\n", rep.html.c_str());
+  if (!rep.ok)
+    std::cerr << "loadtrim: report not written: " << rep.error << "\n";
+  else if (req.console == session::Console::Mode::normal)
+    std::printf("report: %s\n", rep.html.c_str());
   if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
   if (sum.outcome == session::Outcome::record_failure && !writer.error().empty())
-    std::cerr << "loadtrim: record failure: " << writer.error() << " (every record before it is intact in " << folder << ")\n";
-  // A session that could not confirm the rollers at standstill ends with the controller-fault code, whatever its
-  // result, so no script mistakes it for a clean end.
+    std::cerr << "loadtrim: record failure: " << writer.error() << " (every record before it is intact in "
+              << folder << ")\n";
+  // A session that could not confirm the rollers at standstill ends with the controller-fault code, whatever
+  // its result, so no script mistakes it for a clean end.
   if (!sum.rollers_stopped) {
     std::cerr << "loadtrim: " << sum.stop_note << "\n";
     return kControllerFault;
@@ -291,8 +331,8 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
 // A folder whose result the record already holds (the process ended after the verdict, before the seal) is
 // finalised without motoring: the controller is asked only whether the rollers stand still, and sent to a
 // controlled stop if they do not; then the "finished" record, the summary and the seal.
-int finalise_recorded(const std::string& folder, const session::Inputs& in, const session::ResumePoint& rp, const RunRequest& req,
-                      const record::SigningKey* key) {
+int finalise_recorded(const std::string& folder, const session::Inputs& in, const session::ResumePoint& rp,
+                      const RunRequest& req, const record::SigningKey* key) {
   session::Summary sum = session::summary_from_record(rp, in.profile);
   if (rp.finished_recorded) {
     // Everything but the seal was written: seal what summary.json says (nothing hashed is ever rewritten).
@@ -302,9 +342,13 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
       std::cerr << "loadtrim: record failure: the finished record names summary.json, which cannot be read\n";
       return kRecordFailure;
     }
-    if (!seal_session(folder, in.cell, summary, key, req.checks_dir, req.console == session::Console::Mode::json)) return kRecordFailure;
-    std::printf("%s: %s (finished earlier; now sealed)\n", session::to_string(sum.outcome), sum.stop_reason.c_str());
-    return summary.value("rollers_stopped", true) ? exit_code_for(sum.outcome) : static_cast<int>(kControllerFault);
+    if (!seal_session(folder, in.cell, summary, key, req.checks_dir,
+                      req.console == session::Console::Mode::json))
+      return kRecordFailure;
+    std::printf("%s: %s (finished earlier; now sealed)\n", session::to_string(sum.outcome),
+                sum.stop_reason.c_str());
+    return summary.value("rollers_stopped", true) ? exit_code_for(sum.outcome)
+                                                  : static_cast<int>(kControllerFault);
   }
   session::RecordWriter writer(folder);
   if (!writer.ok()) {
@@ -314,7 +358,8 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   bool stopped = false;
   std::string note;
   {
-    auto c = req.inprocess_truth ? adapters::make_inprocess_controller(in.cell, *req.inprocess_truth) : adapters::make_controller(in.cell);
+    auto c = req.inprocess_truth ? adapters::make_inprocess_controller(in.cell, *req.inprocess_truth)
+                                 : adapters::make_controller(in.cell);
     controller::ControllerInfo info;
     controller::Result r = c->connect();
     if (r.ok()) r = c->identify(info);
@@ -333,22 +378,27 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   sum.rollers_stopped = stopped;
   sum.stop_note = note;
   const bool ok =
-      writer.on_event({"resumed", {{"note", std::string("the result was already recorded (") + session::to_string(sum.outcome) +
-                                                "): finalised from the record without motoring"},
-                                   {"completed_coastdowns", rp.completed.size()}, {"rollers_stopped", stopped}, {"stop_note", note}},
-                       nullptr}) &&
+      writer.on_event(
+          {"resumed",
+           {{"note", std::string("the result was already recorded (") + session::to_string(sum.outcome) +
+                         "): finalised from the record without motoring"},
+            {"completed_coastdowns", rp.completed.size()},
+            {"rollers_stopped", stopped},
+            {"stop_note", note}},
+           nullptr}) &&
       writer.on_event({"finished", session::to_json(sum), nullptr});
   if (!ok) {
     std::cerr << "loadtrim: record failure: " << writer.error() << "\n";
     return kRecordFailure;
   }
   writer.close();
-  if (writer.summary().is_null() ||
-      !seal_session(folder, in.cell, writer.summary(), key, req.checks_dir, req.console == session::Console::Mode::json))
+  if (writer.summary().is_null() || !seal_session(folder, in.cell, writer.summary(), key, req.checks_dir,
+                                                  req.console == session::Console::Mode::json))
     return kRecordFailure;
   const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION);
   if (!rep.ok) std::cerr << "loadtrim: report not written: " << rep.error << "\n";
-  std::printf("%s: %s (finalised from the record; no coast-down was run)\n", session::to_string(sum.outcome), sum.stop_reason.c_str());
+  std::printf("%s: %s (finalised from the record; no coast-down was run)\n", session::to_string(sum.outcome),
+              sum.stop_reason.c_str());
   if (!stopped) {
     std::cerr << "loadtrim: " << note << "\n";
     return kControllerFault;
@@ -360,17 +410,25 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
 
 int exit_code_for(session::Outcome o) {
   switch (o) {
-    case session::Outcome::accepted: return kAccepted;
-    case session::Outcome::not_accepted: return kNotAccepted;
-    case session::Outcome::refused: return kBadInput;
-    case session::Outcome::controller_fault: return kControllerFault;
-    case session::Outcome::interrupted: return kInterrupted;
-    case session::Outcome::record_failure: return kRecordFailure;
+    case session::Outcome::accepted:
+      return kAccepted;
+    case session::Outcome::not_accepted:
+      return kNotAccepted;
+    case session::Outcome::refused:
+      return kBadInput;
+    case session::Outcome::controller_fault:
+      return kControllerFault;
+    case session::Outcome::interrupted:
+      return kInterrupted;
+    case session::Outcome::record_failure:
+      return kRecordFailure;
   }
   return kInternalError;
 }
 
-const std::atomic<bool>& stop_flag() { return g_stop; }
+const std::atomic<bool>& stop_flag() {
+  return g_stop;
+}
 
 bool resolve_lab(RunRequest& req, record::DataRoot& root) {
   root = record::find_data_root(req.data_dir);
@@ -391,7 +449,8 @@ bool resolve_lab(RunRequest& req, record::DataRoot& root) {
 
 nlohmann::json operator_identity(const RunRequest& req, const controller::CellConfig& cell) {
   if (!req.operator_name.empty()) return {{"name", req.operator_name}, {"from", "--operator"}};
-  if (!cell.operator_name.empty()) return {{"name", cell.operator_name}, {"from", "the cell file (records.operator)"}};
+  if (!cell.operator_name.empty())
+    return {{"name", cell.operator_name}, {"from", "the cell file (records.operator)"}};
   if (!req.unattended && !req.simulator && ::isatty(STDIN_FILENO)) {
     std::cerr << "Operator (your name, for the record): " << std::flush;
     std::string name;
@@ -403,24 +462,28 @@ nlohmann::json operator_identity(const RunRequest& req, const controller::CellCo
           {"from", "the system account (no --operator given and no records.operator in the cell file)"}};
 }
 
-bool cell_signing_key(const record::DataRoot& root, const controller::CellConfig& cell, std::optional<record::SigningKey>& key) {
+bool cell_signing_key(const record::DataRoot& root, const controller::CellConfig& cell,
+                      std::optional<record::SigningKey>& key) {
   key.reset();
   if (cell.records_public_key.empty() && cell.records_private_key.empty()) return true;
   std::string err;
-  key = record::load_cell_signing_key(root.path, cell.name, cell.records_public_key, cell.records_private_key, err);
+  key = record::load_cell_signing_key(root.path, cell.name, cell.records_public_key, cell.records_private_key,
+                                      err);
   if (!key) {
-    std::cerr << "loadtrim: refusing to start: the cell's signing key (records.public_key in the cell file): " << err << "\n";
+    std::cerr << "loadtrim: refusing to start: the cell's signing key (records.public_key in the cell file): "
+              << err << "\n";
     return false;
   }
   return true;
 }
 
-std::string ask_to_motor(bool unattended, const char* cautions, const std::string& word, const std::string& prompt,
-                         const std::string& given_as) {
+std::string ask_to_motor(bool unattended, const char* cautions, const std::string& word,
+                         const std::string& prompt, const std::string& given_as) {
   if (unattended) return "--unattended flag";
   std::cerr << cautions;
   if (!::isatty(STDIN_FILENO)) {
-    std::cerr << "refusing to motor the rollers: no terminal to confirm on; run interactively or pass --unattended\n";
+    std::cerr << "refusing to motor the rollers: no terminal to confirm on; run interactively or pass "
+                 "--unattended\n";
     return "";
   }
   std::cerr << prompt << std::flush;
@@ -429,11 +492,16 @@ std::string ask_to_motor(bool unattended, const char* cautions, const std::strin
   return answer == word ? given_as : "";
 }
 
-std::optional<core::FleetLossModel> fleet_model(const std::string& csv) { return load_fleet(csv); }
-std::optional<core::HistoryEntry> history_for(const std::string& dir, const controller::CellConfig& cell, const core::VehicleTarget& v) {
+std::optional<core::FleetLossModel> fleet_model(const std::string& csv) {
+  return load_fleet(csv);
+}
+std::optional<core::HistoryEntry> history_for(const std::string& dir, const controller::CellConfig& cell,
+                                              const core::VehicleTarget& v) {
   return load_history(history_file(dir, cell, v));
 }
-std::string default_fleet_csv() { return data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv"; }
+std::string default_fleet_csv() {
+  return data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv";
+}
 
 void install_stop_handlers() {
   struct sigaction sa {};
@@ -444,11 +512,13 @@ void install_stop_handlers() {
   ::signal(SIGPIPE, SIG_IGN);
 }
 
-void check_inputs(const RunRequest& req) { load_all(req.cell_file, req.target_file, req.profile, req); }
+void check_inputs(const RunRequest& req) {
+  load_all(req.cell_file, req.target_file, req.profile, req);
+}
 
-// Whether the cell's required dyno checks are current (loadtrim check due). A simulator this process started is
-// exempt (no rollers); a cell with checks.enforce = false is exempt; otherwise a due check refuses the session
-// unless the operator overrides it, and the record says which.
+// Whether the cell's required dyno checks are current (loadtrim check due). A simulator this process started
+// is exempt (no rollers); a cell with checks.enforce = false is exempt; otherwise a due check refuses the
+// session unless the operator overrides it, and the record says which.
 nlohmann::json dyno_check_gate(const RunRequest& req, const controller::CellConfig& cell, bool& refuse) {
   refuse = false;
   if (req.simulator) return {{"enforced", false}, {"why", "simulated controller started by this command"}};
@@ -457,15 +527,21 @@ nlohmann::json dyno_check_gate(const RunRequest& req, const controller::CellConf
   const core::CheckProfile profile = config::load_check_profile(pfile);
   const checks::CellHistory h(req.checks_dir, cell.name);
   const checks::Readiness r = checks::readiness(h, profile, *checks::parse_utc_s(record::utc_now()));
-  nlohmann::json j = {{"enforced", true}, {"check_profile", pfile}, {"history", h.log_path()}, {"readiness", checks::to_json(r)}};
+  nlohmann::json j = {{"enforced", true},
+                      {"check_profile", pfile},
+                      {"history", h.log_path()},
+                      {"readiness", checks::to_json(r)}};
   if (r.may_start()) return j;
   if (req.override_checks.empty()) {
     refuse = true;
-    std::cerr << "loadtrim: refusing to start: the dyno's own checks are not current for cell " << cell.name << ":\n  " << r.summary()
-              << "\nRun them first (loadtrim check due --cell ... shows which), or pass --override-checks \"REASON\" (logged).\n";
+    std::cerr << "loadtrim: refusing to start: the dyno's own checks are not current for cell " << cell.name
+              << ":\n  " << r.summary()
+              << "\nRun them first (loadtrim check due --cell ... shows which), or pass --override-checks "
+                 "\"REASON\" (logged).\n";
     return j;
   }
-  std::cerr << "loadtrim: WARNING: dyno checks not current (" << r.summary() << "); overridden by the operator: " << req.override_checks << "\n";
+  std::cerr << "loadtrim: WARNING: dyno checks not current (" << r.summary()
+            << "); overridden by the operator: " << req.override_checks << "\n";
   j["overridden"] = true;
   j["override_reason"] = req.override_checks;
   return j;
@@ -475,14 +551,15 @@ int run_new_session(const RunRequest& request, std::string* folder_out) {
   RunRequest req = request;
   record::DataRoot root;
   if (!resolve_lab(req, root)) return kBadInput;
-  Loaded l = load_all(req.cell_file, req.target_file, req.profile, req);  // throws InputError: nothing started
+  Loaded l =
+      load_all(req.cell_file, req.target_file, req.profile, req);  // throws InputError: nothing started
   std::optional<record::SigningKey> key;
   if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
   bool refuse = false;
   const nlohmann::json gate = dyno_check_gate(req, l.inputs.cell, refuse);
   if (refuse) return kBadInput;
-  // One session per cell: a busy cell is refused at once, before the operator is asked anything (a probe), and
-  // for good once the folder exists (the lock then names it).
+  // One session per cell: a busy cell is refused at once, before the operator is asked anything (a probe),
+  // and for good once the folder exists (the lock then names it).
   std::optional<record::FileLock> cell_lock, folder_lock;
   std::string lock_msg;
   if (!lock_cell(l.inputs.cell, record::LockMode::exclusive, "run", "", cell_lock, lock_msg)) {
@@ -512,14 +589,23 @@ int run_new_session(const RunRequest& request, std::string* folder_out) {
   files.push_back(record::copy_input(folder, req.cell_file, "cell.toml"));
   files.push_back(record::copy_input(folder, req.target_file, "target.toml"));
   files.push_back(record::copy_input(folder, l.profile_path, "profile.toml"));
-  nlohmann::json started = {{"vehicle", l.inputs.vehicle.id}, {"cell", l.inputs.cell.name}, {"profile", l.inputs.profile.name},
-                            {"method", core::to_string(l.inputs.profile.method)}, {"files", files},
-                            {"overrides", {{"port", req.port}, {"device", req.device}}},
-                            {"inprocess", req.inprocess_truth.has_value()}, {"dyno_checks", gate},
-                            {"combination_warnings", l.warnings}, {"two_wheel_drive_mode", l.inputs.vehicle.two_wheel_drive_mode},
-                            {"cell_lock", {{"endpoint", endpoint_key(l.inputs.cell)}, {"stale_lock_taken_over", stale_lock.empty() ? lock_msg : stale_lock}}},
-                            {"operator", who}, {"data_root", {{"path", root.path}, {"from", root.source}}},
-                            {"signing_key", key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
+  nlohmann::json started = {
+      {"vehicle", l.inputs.vehicle.id},
+      {"cell", l.inputs.cell.name},
+      {"profile", l.inputs.profile.name},
+      {"method", core::to_string(l.inputs.profile.method)},
+      {"files", files},
+      {"overrides", {{"port", req.port}, {"device", req.device}}},
+      {"inprocess", req.inprocess_truth.has_value()},
+      {"dyno_checks", gate},
+      {"combination_warnings", l.warnings},
+      {"two_wheel_drive_mode", l.inputs.vehicle.two_wheel_drive_mode},
+      {"cell_lock",
+       {{"endpoint", endpoint_key(l.inputs.cell)},
+        {"stale_lock_taken_over", stale_lock.empty() ? lock_msg : stale_lock}}},
+      {"operator", who},
+      {"data_root", {{"path", root.path}, {"from", root.source}}},
+      {"signing_key", key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
   return execute(std::move(l.inputs), req, folder, nullptr, confirmation, started, key ? &*key : nullptr);
 }
 
@@ -531,14 +617,15 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     std::cerr << "loadtrim: cannot resume " << folder << ": no such session folder\n";
     return kBadInput;
   }
-  // Resume is a function of the verified folder: the whole folder (chain, every recorded file hash, the inputs)
-  // is checked before anything connects, and a folder that does not verify is refused.
+  // Resume is a function of the verified folder: the whole folder (chain, every recorded file hash, the
+  // inputs) is checked before anything connects, and a folder that does not verify is refused.
   record::VerifyOptions vo;
   vo.keys_dir = root.keys();
   vo.checks_root = req.checks_dir;
   const record::FolderVerdict verdict = record::verify_folder(folder, vo);
   if (verdict.outcome == record::Outcome::broken) {
-    std::cerr << "loadtrim: refusing to resume " << folder << ": the folder does not verify: " << verdict.message
+    std::cerr << "loadtrim: refusing to resume " << folder
+              << ": the folder does not verify: " << verdict.message
               << (verdict.record >= 0 ? " (record " + std::to_string(verdict.record) + ")" : std::string())
               << (verdict.file.empty() ? std::string() : " (file " + verdict.file + ")") << "\n";
     return kRecordFailure;
@@ -549,7 +636,8 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     return result == "accepted" ? kAccepted : result == "refused" ? kBadInput : kNotAccepted;
   }
   std::vector<nlohmann::json> records;
-  if (const record::VerifyResult v = record::read_log((fs::path(folder) / "events.jsonl").string(), &records); !v.ok) {
+  if (const record::VerifyResult v = record::read_log((fs::path(folder) / "events.jsonl").string(), &records);
+      !v.ok) {
     std::cerr << "loadtrim: cannot resume " << folder << ": " << v.message << "\n";
     return kRecordFailure;
   }
@@ -587,11 +675,17 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     return kBadInput;
   }
   install_stop_handlers();
-  nlohmann::json started = {{"vehicle", l.inputs.vehicle.id}, {"cell", l.inputs.cell.name}, {"profile", l.inputs.profile.name},
-                            {"records_before", records.size()}, {"completed_coastdowns", rp.completed.size()},
-                            {"folder_verified", record::to_string(verdict.outcome)}, {"dyno_checks", gate}, {"operator", who},
-                            {"data_root", {{"path", root.path}, {"from", root.source}}},
-                            {"signing_key", key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
+  nlohmann::json started = {
+      {"vehicle", l.inputs.vehicle.id},
+      {"cell", l.inputs.cell.name},
+      {"profile", l.inputs.profile.name},
+      {"records_before", records.size()},
+      {"completed_coastdowns", rp.completed.size()},
+      {"folder_verified", record::to_string(verdict.outcome)},
+      {"dyno_checks", gate},
+      {"operator", who},
+      {"data_root", {{"path", root.path}, {"from", root.source}}},
+      {"signing_key", key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
   return execute(std::move(l.inputs), req, folder, &rp, confirmation, started, key ? &*key : nullptr);
 }
 

@@ -19,38 +19,42 @@
 namespace loadtrim::app {
 
 struct RunRequest {
-  std::string cell_file, target_file, profile;  // profile: a name in config/profiles or a file; empty = the target's
-  std::string data_dir;      // --data-dir; "" = LOADTRIM_DATA_DIR, the system file, the per-user default
-  std::string operator_name; // --operator; "" = the cell file's records.operator, else asked, else the login name
+  std::string cell_file, target_file,
+      profile;           // profile: a name in config/profiles or a file; empty = the target's
+  std::string data_dir;  // --data-dir; "" = LOADTRIM_DATA_DIR, the system file, the per-user default
+  std::string
+      operator_name;  // --operator; "" = the cell file's records.operator, else asked, else the login name
   std::string sessions_dir;  // "" = <data root>/sessions
   std::string first_setting = "loss-map";
-  std::string fleet_csv;     // default: samples/data's EPA file
-  std::string history_dir;   // "" = <data root>/history
+  std::string fleet_csv;    // default: samples/data's EPA file
+  std::string history_dir;  // "" = <data root>/history
   bool unattended = false;
-  bool simulator = false;    // the cell is a simulator this process started: no rollers move
+  bool simulator = false;  // the cell is a simulator this process started: no rollers move
   session::Console::Mode console = session::Console::Mode::normal;
   std::string note;
-  int port = 0;              // overrides of the cell file
+  int port = 0;  // overrides of the cell file
   std::string device;
   double resume_warm_up_s = -1.0;
   std::optional<physics::Truth> inprocess_truth;  // in-process simulated controller with this truth
-  std::string checks_dir;             // the cells' dyno-check histories; "" = <data root>/checks
-  std::string check_profile;          // default: config/checks/cfr1066.toml
-  std::string override_checks;        // non-empty: start although required checks are due; the reason is logged
+  std::string checks_dir;                         // the cells' dyno-check histories; "" = <data root>/checks
+  std::string check_profile;                      // default: config/checks/cfr1066.toml
+  std::string override_checks;  // non-empty: start although required checks are due; the reason is logged
 };
 
 // Loads and validates every input of the request (throws config::InputError listing every problem).
 void check_inputs(const RunRequest& req);
-// The lab's data root (docs/records.md): resolves it (--data-dir, LOADTRIM_DATA_DIR, /etc/loadtrim/loadtrim.toml,
-// the per-user default), creates its layout, and fills the request's empty folders from it. False, with the reason
-// on stderr, when it cannot.
+// The lab's data root (docs/records.md): resolves it (--data-dir, LOADTRIM_DATA_DIR,
+// /etc/loadtrim/loadtrim.toml, the per-user default), creates its layout, and fills the request's empty
+// folders from it. False, with the reason on stderr, when it cannot.
 bool resolve_lab(RunRequest& req, record::DataRoot& root);
-// Who runs it, for the record: --operator, else the cell file's records.operator, else asked at the console, else
-// the login name (said so). {"name", "from"}.
+// Who runs it, for the record: --operator, else the cell file's records.operator, else asked at the console,
+// else the login name (said so). {"name", "from"}.
 nlohmann::json operator_identity(const RunRequest& req, const controller::CellConfig& cell);
-// The cell's signing key when its file names one (records.public_key): false, with the reason on stderr, when it
-// cannot be loaded or does not match (the session or check must not start). No key named: true, `key` empty.
-bool cell_signing_key(const record::DataRoot& root, const controller::CellConfig& cell, std::optional<record::SigningKey>& key);
+// The cell's signing key when its file names one (records.public_key): false, with the reason on stderr, when
+// it cannot be loaded or does not match (the session or check must not start). No key named: true, `key`
+// empty.
+bool cell_signing_key(const record::DataRoot& root, const controller::CellConfig& cell,
+                      std::optional<record::SigningKey>& key);
 // Loads and validates, asks for confirmation, creates the folder, runs, and returns the exit code.
 int run_new_session(const RunRequest& req, std::string* folder_out = nullptr);
 // Continues the session in `folder` from its log.
@@ -58,19 +62,22 @@ int resume_session(const std::string& folder, const RunRequest& overrides);
 
 int exit_code_for(session::Outcome o);
 
-// The fleet loss model from an EPA-format CSV (nullopt, with a message on stderr, when it cannot be fitted), and
-// the history of a vehicle on a cell (nullopt when there is none) — as the session's first-setting strategies use them.
+// The fleet loss model from an EPA-format CSV (nullopt, with a message on stderr, when it cannot be fitted),
+// and the history of a vehicle on a cell (nullopt when there is none) — as the session's first-setting
+// strategies use them.
 std::optional<core::FleetLossModel> fleet_model(const std::string& csv);
-std::optional<core::HistoryEntry> history_for(const std::string& history_dir, const controller::CellConfig& cell,
+std::optional<core::HistoryEntry> history_for(const std::string& history_dir,
+                                              const controller::CellConfig& cell,
                                               const core::VehicleTarget& v);
 std::string default_fleet_csv();
-// A standard profile given by name (config/profiles/NAME.toml) or as a file path; the default dyno check profile.
+// A standard profile given by name (config/profiles/NAME.toml) or as a file path; the default dyno check
+// profile.
 std::string profile_file(const std::string& name_or_path);
 std::string default_check_profile();
 // The operator's permission to motor the rollers: the explicit unattended flag, or the cautions on stderr and
 // `word` typed on the terminal. Returns how it was given (for the record), or "" when refused.
-std::string ask_to_motor(bool unattended, const char* cautions, const std::string& word, const std::string& prompt,
-                         const std::string& given_as);
+std::string ask_to_motor(bool unattended, const char* cautions, const std::string& word,
+                         const std::string& prompt, const std::string& given_as);
 
 // Installs SIGINT/SIGTERM handlers that ask the session (or check) to stop safely; the flag they set.
 void install_stop_handlers();

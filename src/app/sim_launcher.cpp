@@ -18,7 +18,8 @@ SimLauncher::SimLauncher(const std::vector<std::string>& args) {
   child_ = std::make_unique<process::ChildProcess>(argv, SIGTERM);  // the simulator stops with the tool
   const auto line = child_->read_line(std::chrono::seconds(10));
   const sim::Announcement a = sim::parse_announcement(line.value_or(""));
-  if (!a.ok || a.port == 0) throw std::runtime_error("the simulated controller did not start (" + argv[0] + ")");
+  if (!a.ok || a.port == 0)
+    throw std::runtime_error("the simulated controller did not start (" + argv[0] + ")");
   port_ = a.port;
 }
 

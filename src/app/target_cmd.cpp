@@ -1,8 +1,8 @@
 // `loadtrim target`: prepare a target file from any supported form (a target file in metric or US units, the
-// three coefficients in metric or US units on the command line, or a row of an EPA-format CSV), and show what a
-// session will work with: the exact conversions, the masses and the dyno inertia by the profile's rules, the
-// target force and the predicted coast-down time at each reference speed, the plausibility findings, and the
-// dyno's initial setting under each first-setting strategy. Nothing connects and nothing moves.
+// three coefficients in metric or US units on the command line, or a row of an EPA-format CSV), and show what
+// a session will work with: the exact conversions, the masses and the dyno inertia by the profile's rules,
+// the target force and the predicted coast-down time at each reference speed, the plausibility findings, and
+// the dyno's initial setting under each first-setting strategy. Nothing connects and nothing moves.
 #include <cstdio>
 #include <iostream>
 #include <memory>
@@ -25,16 +25,21 @@ namespace loadtrim::app {
 namespace {
 
 struct TargetOptions {
-  std::string from, epa, epa_id, cell, profile = "wltp-iterative", out, id, description, drive = "front", history;
+  std::string from, epa, epa_id, cell, profile = "wltp-iterative", out, id, description, drive = "front",
+                                       history;
   std::vector<double> metric, us;
   int epa_line = 0;
-  double test_mass_kg = 0, test_mass_lb = 0, mass_in_running_order_kg = 0, rotating_mass_kg = -1, max_speed_kmh = 180.0;
+  double test_mass_kg = 0, test_mass_lb = 0, mass_in_running_order_kg = 0, rotating_mass_kg = -1,
+         max_speed_kmh = 180.0;
   bool json = false;
 };
 
 std::string where_from(const TargetOptions& o) {
   int n = !o.from.empty() + !o.metric.empty() + !o.us.empty() + !o.epa.empty();
-  if (n != 1) throw config::InputError("command line", {{core::Problem::Severity::error, "target", "give exactly one of --from FILE, --metric F0 F1 F2, --us A B C, --epa CSV"}});
+  if (n != 1)
+    throw config::InputError("command line",
+                             {{core::Problem::Severity::error, "target",
+                               "give exactly one of --from FILE, --metric F0 F1 F2, --us A B C, --epa CSV"}});
   return !o.from.empty() ? "file" : !o.metric.empty() ? "metric" : !o.us.empty() ? "us" : "epa";
 }
 
@@ -51,24 +56,32 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
     for (const auto& r : f.rows)
       if ((o.epa_line > 0 && r.line == o.epa_line) || (!o.epa_id.empty() && r.id == o.epa_id)) {
         v = config::target_from_epa(r, profile.name, o.max_speed_kmh);
-        source = o.epa + " line " + std::to_string(r.line) + " (US units: A, B, C and the equivalent test weight)";
+        source =
+            o.epa + " line " + std::to_string(r.line) + " (US units: A, B, C and the equivalent test weight)";
         return v;
       }
-    throw config::InputError(o.epa, {{core::Problem::Severity::error, o.epa_line > 0 ? "--epa-line" : "--epa-id",
-                                      "no usable row with " + (o.epa_line > 0 ? "line " + std::to_string(o.epa_line) : "id \"" + o.epa_id + "\"")}});
+    throw config::InputError(
+        o.epa, {{core::Problem::Severity::error, o.epa_line > 0 ? "--epa-line" : "--epa-id",
+                 "no usable row with " +
+                     (o.epa_line > 0 ? "line " + std::to_string(o.epa_line) : "id \"" + o.epa_id + "\"")}});
   }
   core::Problems problems;
   const auto E = core::Problem::Severity::error;
   if (o.id.empty()) problems.push_back({E, "--id", "give the vehicle's id"});
-  if ((o.test_mass_kg > 0) == (o.test_mass_lb > 0)) problems.push_back({E, "--test-mass-kg", "give exactly one of --test-mass-kg and --test-mass-lb"});
-  if (!core::parse(o.drive, v.drive)) problems.push_back({E, "--drive", "\"" + o.drive + "\" is not one of front, rear, all"});
+  if ((o.test_mass_kg > 0) == (o.test_mass_lb > 0))
+    problems.push_back({E, "--test-mass-kg", "give exactly one of --test-mass-kg and --test-mass-lb"});
+  if (!core::parse(o.drive, v.drive))
+    problems.push_back({E, "--drive", "\"" + o.drive + "\" is not one of front, rear, all"});
   if (!problems.empty()) throw config::InputError("command line", problems);
   v.id = o.id;
   v.description = o.description;
   v.test_mass_kg = o.test_mass_kg > 0 ? o.test_mass_kg : core::units::lb_to_kg(o.test_mass_lb);
-  if (o.rotating_mass_kg >= 0) v.rotating_mass_kg = o.rotating_mass_kg;
-  else if (o.mass_in_running_order_kg > 0) v.mass_in_running_order_kg = o.mass_in_running_order_kg;
-  else v.mass_in_running_order_kg = v.test_mass_kg;  // stated in the output: the rule then uses TM
+  if (o.rotating_mass_kg >= 0)
+    v.rotating_mass_kg = o.rotating_mass_kg;
+  else if (o.mass_in_running_order_kg > 0)
+    v.mass_in_running_order_kg = o.mass_in_running_order_kg;
+  else
+    v.mass_in_running_order_kg = v.test_mass_kg;  // stated in the output: the rule then uses TM
   v.max_speed_kmh = o.max_speed_kmh;
   v.profile = profile.name;
   if (kind == "metric") {
@@ -81,7 +94,9 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
   return v;
 }
 
-nlohmann::json coef(const core::RoadLoad& c) { return {{"f0_n", c.f0_n}, {"f1_n_per_kmh", c.f1_n_per_kmh}, {"f2_n_per_kmh2", c.f2_n_per_kmh2}}; }
+nlohmann::json coef(const core::RoadLoad& c) {
+  return {{"f0_n", c.f0_n}, {"f1_n_per_kmh", c.f1_n_per_kmh}, {"f2_n_per_kmh2", c.f2_n_per_kmh2}};
+}
 
 int run_target(const TargetOptions& o) {
   const std::string pfile = profile_file(o.profile);
@@ -89,7 +104,8 @@ int run_target(const TargetOptions& o) {
   std::string source;
   core::VehicleTarget v = build(o, profile, source);
   if (v.profile.empty()) v.profile = profile.name;
-  core::AxleLayout layout = v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
+  core::AxleLayout layout =
+      v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
   std::optional<controller::CellConfig> cell;
   if (!o.cell.empty()) {
     cell = config::load_cell(o.cell);
@@ -99,48 +115,64 @@ int run_target(const TargetOptions& o) {
   const double m_r = core::resolved_rotating_mass_kg(v, profile.mass);
   const double force_mass = core::force_mass_kg(v.test_mass_kg, m_r);
   const double inertia = core::dyno_inertia_kg(v.test_mass_kg, m_r, layout, profile.mass);
-  const auto times = core::predicted_band_times_s(v.target, force_mass, profile.reference_speeds_kmh, profile.band_half_width_kmh);
+  const auto times = core::predicted_band_times_s(v.target, force_mass, profile.reference_speeds_kmh,
+                                                  profile.band_half_width_kmh);
   const core::RoadLoadUs us = core::to_us(v.target);
 
   // Initial settings, as the session would choose them before it has measured anything.
   nlohmann::json initial = nlohmann::json::array();
-  initial.push_back({{"strategy", "standard"}, {"set", coef(core::standard_initial_setting(v.target, layout, profile.initial))},
+  initial.push_back({{"strategy", "standard"},
+                     {"set", coef(core::standard_initial_setting(v.target, layout, profile.initial))},
                      {"note", "the standard's initial setting (domain.md §3, from memory)"}});
   if (const auto fleet = fleet_model(default_fleet_csv()); fleet && fleet->ok())
-    initial.push_back({{"strategy", "fleet"}, {"set", coef(core::setting_for_loss(v.target, fleet->estimate(v.test_mass_kg, layout)))},
-                       {"note", "target minus the loss the EPA fleet shows at this test mass and axle layout"}});
+    initial.push_back(
+        {{"strategy", "fleet"},
+         {"set", coef(core::setting_for_loss(v.target, fleet->estimate(v.test_mass_kg, layout)))},
+         {"note", "target minus the loss the EPA fleet shows at this test mass and axle layout"}});
   else
     initial.push_back({{"strategy", "fleet"}, {"note", "no fleet data: the session falls back to standard"}});
   initial.push_back({{"strategy", "loss-map"},
-                     {"note", "measured in speed hold at the end of the warm-up, in the session; falls back to standard if it cannot be measured"}});
+                     {"note",
+                      "measured in speed hold at the end of the warm-up, in the session; falls back to "
+                      "standard if it cannot be measured"}});
   std::optional<core::HistoryEntry> hist;
   if (cell) hist = history_for(o.history.empty() ? "sessions/history" : o.history, *cell, v);
   if (hist)
-    initial.push_back({{"strategy", "history"}, {"set", coef(core::setting_for_loss(v.target, hist->loss()))},
+    initial.push_back({{"strategy", "history"},
+                       {"set", coef(core::setting_for_loss(v.target, hist->loss()))},
                        {"note", "target minus the loss of the accepted session of " + hist->utc}});
   else
-    initial.push_back({{"strategy", "history"}, {"note", cell ? "no earlier accepted session of this vehicle on this cell" : "give --cell to look up the history"}});
+    initial.push_back({{"strategy", "history"},
+                       {"note", cell ? "no earlier accepted session of this vehicle on this cell"
+                                     : "give --cell to look up the history"}});
 
   nlohmann::json rows = nlohmann::json::array();
   for (std::size_t j = 0; j < profile.reference_speeds_kmh.size(); ++j) {
     const double s = profile.reference_speeds_kmh[j];
-    nlohmann::json r = {{"speed_kmh", s}, {"speed_mph", core::units::kmh_to_mph(s)}, {"force_n", v.target.force_n(s)},
+    nlohmann::json r = {{"speed_kmh", s},
+                        {"speed_mph", core::units::kmh_to_mph(s)},
+                        {"force_n", v.target.force_n(s)},
                         {"force_lbf", core::units::n_to_lbf(v.target.force_n(s))}};
-    // The band time the standard's formula turns back into F_tj (F = (1/3.6)·(TM + m_r)·2Δv/Δt, domain.md §2), and the
-    // exact coast time through the band under the target (closed form, domain.md §6.4).
-    r["band_time_s"] = force_mass * 2.0 * profile.band_half_width_kmh / (core::units::kKmhPerMps * v.target.force_n(s));
+    // The band time the standard's formula turns back into F_tj (F = (1/3.6)·(TM + m_r)·2Δv/Δt, domain.md
+    // §2), and the exact coast time through the band under the target (closed form, domain.md §6.4).
+    r["band_time_s"] =
+        force_mass * 2.0 * profile.band_half_width_kmh / (core::units::kKmhPerMps * v.target.force_n(s));
     if (times[j]) r["band_time_exact_s"] = *times[j];
-    if (s + 14.0 >= v.max_speed_kmh) r["note"] = "v + 14 km/h reaches the vehicle's maximum speed: dropped by the standard (domain.md §2)";
+    if (s + 14.0 >= v.max_speed_kmh)
+      r["note"] = "v + 14 km/h reaches the vehicle's maximum speed: dropped by the standard (domain.md §2)";
     rows.push_back(r);
   }
   nlohmann::json warnings = nlohmann::json::array();
-  for (const auto& p : found) warnings.push_back({{"severity", p.severity == core::Problem::Severity::error ? "error" : "warning"}, {"key", p.key}, {"message", p.message}});
+  for (const auto& p : found)
+    warnings.push_back({{"severity", p.severity == core::Problem::Severity::error ? "error" : "warning"},
+                        {"key", p.key},
+                        {"message", p.message}});
 
   std::string written;
   if (!o.out.empty()) {
     std::string err;
-    const std::string text = config::target_toml(v, "Prepared by loadtrim target from " + source + "\non " + record::utc_now() +
-                                                        " for profile " + profile.name);
+    const std::string text = config::target_toml(v, "Prepared by loadtrim target from " + source + "\non " +
+                                                        record::utc_now() + " for profile " + profile.name);
     if (!record::write_durable(o.out, text, err)) {
       std::cerr << "loadtrim target: cannot write " << o.out << ": " << err << "\n";
       return kRecordFailure;
@@ -155,34 +187,56 @@ int run_target(const TargetOptions& o) {
   }
   const bool errors = core::has_errors(found);
   if (o.json) {
-    nlohmann::json j = {{"vehicle", v.id}, {"source", source}, {"profile", profile.name}, {"target", coef(v.target)},
-                        {"target_us", {{"a_lbf", us.a_lbf}, {"b_lbf_per_mph", us.b_lbf_per_mph}, {"c_lbf_per_mph2", us.c_lbf_per_mph2}}},
-                        {"test_mass_kg", v.test_mass_kg}, {"rotating_mass_kg", m_r}, {"force_mass_kg", force_mass},
-                        {"dyno_inertia_kg", inertia}, {"axles", core::to_string(layout)}, {"half_band_kmh", profile.band_half_width_kmh},
-                        {"rows", rows}, {"findings", warnings}, {"initial_settings", initial}, {"written", written}};
+    nlohmann::json j = {
+        {"vehicle", v.id},
+        {"source", source},
+        {"profile", profile.name},
+        {"target", coef(v.target)},
+        {"target_us",
+         {{"a_lbf", us.a_lbf}, {"b_lbf_per_mph", us.b_lbf_per_mph}, {"c_lbf_per_mph2", us.c_lbf_per_mph2}}},
+        {"test_mass_kg", v.test_mass_kg},
+        {"rotating_mass_kg", m_r},
+        {"force_mass_kg", force_mass},
+        {"dyno_inertia_kg", inertia},
+        {"axles", core::to_string(layout)},
+        {"half_band_kmh", profile.band_half_width_kmh},
+        {"rows", rows},
+        {"findings", warnings},
+        {"initial_settings", initial},
+        {"written", written}};
     std::printf("%s\n", j.dump().c_str());
   } else {
     std::printf("vehicle %s, from %s\n", v.id.c_str(), source.c_str());
-    std::printf("target (exact):  f0 %.10g N, f1 %.10g N/(km/h), f2 %.10g N/(km/h)^2\n", v.target.f0_n, v.target.f1_n_per_kmh, v.target.f2_n_per_kmh2);
-    std::printf("         in US:  A %.10g lbf, B %.10g lbf/mph, C %.10g lbf/mph^2\n", us.a_lbf, us.b_lbf_per_mph, us.c_lbf_per_mph2);
+    std::printf("target (exact):  f0 %.10g N, f1 %.10g N/(km/h), f2 %.10g N/(km/h)^2\n", v.target.f0_n,
+                v.target.f1_n_per_kmh, v.target.f2_n_per_kmh2);
+    std::printf("         in US:  A %.10g lbf, B %.10g lbf/mph, C %.10g lbf/mph^2\n", us.a_lbf,
+                us.b_lbf_per_mph, us.c_lbf_per_mph2);
     const core::RoadLoad r = core::rounded(v.target, profile.rounding);
-    std::printf("  as reported:  f0 %.1f N, f1 %.3f N/(km/h), f2 %.5f N/(km/h)^2 (rounding of the profile)\n", r.f0_n, r.f1_n_per_kmh, r.f2_n_per_kmh2);
-    std::printf("masses: TM %.1f kg, m_r %.2f kg, forces with TM + m_r = %.2f kg; dyno inertia %.2f kg (%s, profile %s)\n", v.test_mass_kg, m_r,
-                force_mass, inertia, core::to_string(layout), profile.name.c_str());
-    std::printf("\n  v (km/h)   F_t (N)   Δt by the formula (s)   exact coast time (s)   [band ±%.1f km/h]\n", profile.band_half_width_kmh);
+    std::printf("  as reported:  f0 %.1f N, f1 %.3f N/(km/h), f2 %.5f N/(km/h)^2 (rounding of the profile)\n",
+                r.f0_n, r.f1_n_per_kmh, r.f2_n_per_kmh2);
+    std::printf(
+        "masses: TM %.1f kg, m_r %.2f kg, forces with TM + m_r = %.2f kg; dyno inertia %.2f kg (%s, profile "
+        "%s)\n",
+        v.test_mass_kg, m_r, force_mass, inertia, core::to_string(layout), profile.name.c_str());
+    std::printf("\n  v (km/h)   F_t (N)   Δt by the formula (s)   exact coast time (s)   [band ±%.1f km/h]\n",
+                profile.band_half_width_kmh);
     for (const auto& row : rows)
-      std::printf("  %8.1f  %8.1f   %21s   %20s   %s\n", row["speed_kmh"].get<double>(), row["force_n"].get<double>(),
-                  core::num(row["band_time_s"].get<double>(), 3).c_str(),
-                  row.contains("band_time_exact_s") ? core::num(row["band_time_exact_s"].get<double>(), 3).c_str() : "never",
+      std::printf("  %8.1f  %8.1f   %21s   %20s   %s\n", row["speed_kmh"].get<double>(),
+                  row["force_n"].get<double>(), core::num(row["band_time_s"].get<double>(), 3).c_str(),
+                  row.contains("band_time_exact_s")
+                      ? core::num(row["band_time_exact_s"].get<double>(), 3).c_str()
+                      : "never",
                   row.value("note", "").c_str());
     std::printf("\ninitial dyno setting by strategy:\n");
     for (const auto& i : initial) {
       if (i.contains("set"))
-        std::printf("  %-9s f0 %8.2f N, f1 %8.4f N/(km/h), f2 %8.5f N/(km/h)^2   %s\n", i["strategy"].get<std::string>().c_str(),
-                    i["set"]["f0_n"].get<double>(), i["set"]["f1_n_per_kmh"].get<double>(), i["set"]["f2_n_per_kmh2"].get<double>(),
+        std::printf("  %-9s f0 %8.2f N, f1 %8.4f N/(km/h), f2 %8.5f N/(km/h)^2   %s\n",
+                    i["strategy"].get<std::string>().c_str(), i["set"]["f0_n"].get<double>(),
+                    i["set"]["f1_n_per_kmh"].get<double>(), i["set"]["f2_n_per_kmh2"].get<double>(),
                     i["note"].get<std::string>().c_str());
       else
-        std::printf("  %-9s %s\n", i["strategy"].get<std::string>().c_str(), i["note"].get<std::string>().c_str());
+        std::printf("  %-9s %s\n", i["strategy"].get<std::string>().c_str(),
+                    i["note"].get<std::string>().c_str());
     }
     if (!found.empty()) std::cerr << config::format_problems(o.from.empty() ? "target" : o.from, found);
     if (!written.empty()) std::printf("\nwritten: %s (read back: identical)\n", written.c_str());
@@ -194,7 +248,9 @@ int run_target(const TargetOptions& o) {
 
 void register_target_command(CLI::App& app, Runner& run) {
   auto o = std::make_shared<TargetOptions>();
-  auto* s = app.add_subcommand("target", "prepare a target file from metric, US or EPA-row targets; show forces, predicted times and initial settings");
+  auto* s = app.add_subcommand("target",
+                               "prepare a target file from metric, US or EPA-row targets; show forces, "
+                               "predicted times and initial settings");
   s->add_option("--from", o->from, "a target file (metric [target] or US [target_us])");
   s->add_option("--metric", o->metric, "f0 f1 f2 in N, N/(km/h), N/(km/h)^2")->expected(3);
   s->add_option("--us", o->us, "A B C in lbf, lbf/mph, lbf/mph^2")->expected(3);
@@ -204,11 +260,16 @@ void register_target_command(CLI::App& app, Runner& run) {
   s->add_option("--id", o->id, "vehicle id (metric and US forms)");
   s->add_option("--description", o->description, "vehicle description");
   s->add_option("--test-mass-kg", o->test_mass_kg, "test mass TM")->check(CLI::Range(300.0, 20000.0));
-  s->add_option("--test-mass-lb", o->test_mass_lb, "test mass in lb (converted exactly)")->check(CLI::Range(600.0, 45000.0));
-  s->add_option("--mass-in-running-order-kg", o->mass_in_running_order_kg, "for m_r by the profile's rule (default: TM)")->check(CLI::Range(200.0, 20000.0));
+  s->add_option("--test-mass-lb", o->test_mass_lb, "test mass in lb (converted exactly)")
+      ->check(CLI::Range(600.0, 45000.0));
+  s->add_option("--mass-in-running-order-kg", o->mass_in_running_order_kg,
+                "for m_r by the profile's rule (default: TM)")
+      ->check(CLI::Range(200.0, 20000.0));
   s->add_option("--rotating-mass-kg", o->rotating_mass_kg, "m_r when known")->check(CLI::Range(0.0, 4000.0));
   s->add_option("--drive", o->drive, "front, rear or all")->capture_default_str();
-  s->add_option("--max-speed-kmh", o->max_speed_kmh, "the vehicle's maximum speed")->check(CLI::Range(30.0, 400.0))->capture_default_str();
+  s->add_option("--max-speed-kmh", o->max_speed_kmh, "the vehicle's maximum speed")
+      ->check(CLI::Range(30.0, 400.0))
+      ->capture_default_str();
   s->add_option("--profile", o->profile, "standard profile name or file")->capture_default_str();
   s->add_option("--cell", o->cell, "cell file: its axle layout, and the history of this vehicle on it");
   s->add_option("--history", o->history, "history of earlier sessions (default: sessions/history)");

@@ -17,8 +17,10 @@ std::optional<double> parse_utc_s(const std::string& iso) {
   int y, mo, d, h, mi;
   double s;
   char z = 0;
-  if (std::sscanf(iso.c_str(), "%4d-%2d-%2dT%2d:%2d:%lf%c", &y, &mo, &d, &h, &mi, &s, &z) != 7 || z != 'Z') return std::nullopt;
-  if (mo < 1 || mo > 12 || d < 1 || d > 31 || h < 0 || h > 23 || mi < 0 || mi > 59 || !(s >= 0.0 && s < 61.0)) return std::nullopt;
+  if (std::sscanf(iso.c_str(), "%4d-%2d-%2dT%2d:%2d:%lf%c", &y, &mo, &d, &h, &mi, &s, &z) != 7 || z != 'Z')
+    return std::nullopt;
+  if (mo < 1 || mo > 12 || d < 1 || d > 31 || h < 0 || h > 23 || mi < 0 || mi > 59 || !(s >= 0.0 && s < 61.0))
+    return std::nullopt;
   std::tm t{};
   t.tm_year = y - 1900;
   t.tm_mon = mo - 1;
@@ -38,8 +40,8 @@ std::string utc_from_s(double epoch_s) {
   ::gmtime_r(&t, &tm);
   char buf[96];
   const int ms = std::clamp(static_cast<int>(std::lround((epoch_s - whole) * 1000.0)), 0, 999);
-  std::snprintf(buf, sizeof buf, "%04d-%02d-%02dT%02d:%02d:%02d.%03dZ", tm.tm_year + 1900, tm.tm_mon + 1, tm.tm_mday, tm.tm_hour,
-                tm.tm_min, tm.tm_sec, ms);
+  std::snprintf(buf, sizeof buf, "%04d-%02d-%02dT%02d:%02d:%02d.%03dZ", tm.tm_year + 1900, tm.tm_mon + 1,
+                tm.tm_mday, tm.tm_hour, tm.tm_min, tm.tm_sec, ms);
   return buf;
 }
 
@@ -101,20 +103,27 @@ bool CellHistory::append(const std::string& type, nlohmann::json payload, const 
 
 bool CellHistory::append_seal(const record::SealInfo& s, const std::string& kind, const std::string& utc) {
   return append("seal",
-                {{"kind", kind}, {"folder", s.folder}, {"origin", s.origin}, {"chain_head", s.chain_head}, {"seal", s.seal_sha256},
-                 {"seal_seq", s.seq}, {"signer", s.signer}},
+                {{"kind", kind},
+                 {"folder", s.folder},
+                 {"origin", s.origin},
+                 {"chain_head", s.chain_head},
+                 {"seal", s.seal_sha256},
+                 {"seal_seq", s.seq},
+                 {"signer", s.signer}},
                 utc);
 }
 
-bool seal_and_log(const std::string& folder, const record::SealRequest& request, const std::string& checks_root,
-                  const std::string& kind, record::SealInfo* info, std::string& error) {
+bool seal_and_log(const std::string& folder, const record::SealRequest& request,
+                  const std::string& checks_root, const std::string& kind, record::SealInfo* info,
+                  std::string& error) {
   record::SealInfo local;
   record::SealInfo& s = info ? *info : local;
   s = {};
   if (!record::seal_folder(folder, request, &s, error)) return false;
   CellHistory h(checks_root, request.cell);
   if (!h.append_seal(s, kind, record::utc_now())) {
-    error = "the folder " + s.folder + " is sealed, but the seal could not be added to the cell log " + h.log_path() + ": " + h.error();
+    error = "the folder " + s.folder + " is sealed, but the seal could not be added to the cell log " +
+            h.log_path() + ": " + h.error();
     return false;
   }
   return true;
@@ -124,7 +133,9 @@ std::string Readiness::summary() const {
   if (!history_ok) return "the cell's check history cannot be trusted: " + history_error;
   if (blocking.empty()) return "all required dyno checks current";
   std::string s;
-  for (const auto& b : blocking) s += std::string(s.empty() ? "" : "; ") + core::to_string(b.kind) + ": " + core::to_string(b.state) + " (" + b.why + ")";
+  for (const auto& b : blocking)
+    s += std::string(s.empty() ? "" : "; ") + core::to_string(b.kind) + ": " + core::to_string(b.state) +
+         " (" + b.why + ")";
   return s;
 }
 
@@ -138,7 +149,8 @@ Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, dou
   const auto recs = h.checks();
   r.items = core::due_checks(recs, now, profile.due, h.maintenance_utc_s());
   for (const auto& it : r.items)
-    if (it.due() && std::find(profile.required.begin(), profile.required.end(), it.kind) != profile.required.end())
+    if (it.due() &&
+        std::find(profile.required.begin(), profile.required.end(), it.kind) != profile.required.end())
       r.blocking.push_back(it);
   return r;
 }
@@ -146,12 +158,18 @@ Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, dou
 nlohmann::json to_json(const Readiness& r) {
   nlohmann::json items = nlohmann::json::array();
   for (const auto& it : r.items) {
-    nlohmann::json j = {{"check", core::to_string(it.kind)}, {"state", core::to_string(it.state)}, {"due", it.due()}, {"why", it.why}};
+    nlohmann::json j = {{"check", core::to_string(it.kind)},
+                        {"state", core::to_string(it.state)},
+                        {"due", it.due()},
+                        {"why", it.why}};
     if (it.last_pass_utc_s) j["last_pass_utc"] = utc_from_s(*it.last_pass_utc_s);
     if (it.valid_until_utc_s) j["valid_until_utc"] = utc_from_s(*it.valid_until_utc_s);
     items.push_back(j);
   }
-  return {{"history_ok", r.history_ok}, {"history_error", r.history_error}, {"may_start", r.may_start()}, {"items", items},
+  return {{"history_ok", r.history_ok},
+          {"history_error", r.history_error},
+          {"may_start", r.may_start()},
+          {"items", items},
           {"summary", r.summary()}};
 }
 

@@ -3,10 +3,12 @@
 //     "check"            {kind, passed, verdict, folder}      one per finished check
 //     "parasitic_curve"  {f0_n, f1_n_per_kmh, f2_n_per_kmh2, folder}   the cell's stored curve, latest wins
 //     "maintenance"      {note}                                major maintenance (makes checks due again)
-//     "seal"             {kind, folder, origin, chain_head, seal, seal_seq, signer}   one per sealed session or
+//     "seal"             {kind, folder, origin, chain_head, seal, seal_seq, signer}   one per sealed session
+//     or
 //                        check folder (record/seal.hpp): origin is the SHA-256 of the folder's record 0 (its
-//                        identity wherever it is moved), seal the SHA-256 of its seal line. verify looks a folder
-//                        up by origin, so a folder cut back to an earlier state, or sealed again, no longer matches.
+//                        identity wherever it is moved), seal the SHA-256 of its seal line. verify looks a
+//                        folder up by origin, so a folder cut back to an earlier state, or sealed again, no
+//                        longer matches.
 //   <checks root>/<cell>/<utc>-<kind>/     one folder per check run, verifiable like a session folder
 // A broken chain is never read past: the history is then refused as a whole (nothing is assumed current).
 #pragma once
@@ -41,7 +43,8 @@ class CellHistory {
 
   // Appends (durably) with the given UTC (normally now); false with error() when it could not.
   bool append(const std::string& type, nlohmann::json payload, const std::string& utc);
-  // Appends a "seal" record for a folder sealed by record::seal_folder; kind is "session" or the check's kind.
+  // Appends a "seal" record for a folder sealed by record::seal_folder; kind is "session" or the check's
+  // kind.
   bool append_seal(const record::SealInfo& seal, const std::string& kind, const std::string& utc);
 
  private:
@@ -61,12 +64,13 @@ struct Readiness {
 Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, double now_utc_s);
 
 // What a finished session or dyno check calls last, after its final record and its last write to any file of
-// the folder: seals the folder (record::seal_folder, with the cell's key or unsigned) and appends the seal to the
-// cell's log under checks_root (<checks_root>/<cell>/cell-log.jsonl, the same log CellHistory reads). False with
-// error when either step failed; *info->seal_sha256 is non-empty when the folder itself was sealed (then only the
-// cell-log append failed, and the error says so).
-bool seal_and_log(const std::string& folder, const record::SealRequest& request, const std::string& checks_root,
-                  const std::string& kind, record::SealInfo* info, std::string& error);
+// the folder: seals the folder (record::seal_folder, with the cell's key or unsigned) and appends the seal to
+// the cell's log under checks_root (<checks_root>/<cell>/cell-log.jsonl, the same log CellHistory reads).
+// False with error when either step failed; *info->seal_sha256 is non-empty when the folder itself was sealed
+// (then only the cell-log append failed, and the error says so).
+bool seal_and_log(const std::string& folder, const record::SealRequest& request,
+                  const std::string& checks_root, const std::string& kind, record::SealInfo* info,
+                  std::string& error);
 nlohmann::json to_json(const Readiness& r);
 
 }  // namespace loadtrim::checks

@@ -27,24 +27,36 @@ using core::num;
 
 const char* to_string(CheckResult::End e) {
   switch (e) {
-    case CheckResult::End::passed: return "passed";
-    case CheckResult::End::failed: return "failed";
-    case CheckResult::End::refused: return "refused";
-    case CheckResult::End::controller_fault: return "controller-fault";
-    case CheckResult::End::interrupted: return "interrupted";
-    case CheckResult::End::record_failure: return "record-failure";
+    case CheckResult::End::passed:
+      return "passed";
+    case CheckResult::End::failed:
+      return "failed";
+    case CheckResult::End::refused:
+      return "refused";
+    case CheckResult::End::controller_fault:
+      return "controller-fault";
+    case CheckResult::End::interrupted:
+      return "interrupted";
+    case CheckResult::End::record_failure:
+      return "record-failure";
   }
   return "unknown";
 }
 
 int exit_code(CheckResult::End e) {
   switch (e) {
-    case CheckResult::End::passed: return 0;
-    case CheckResult::End::failed: return 1;
-    case CheckResult::End::refused: return 2;
-    case CheckResult::End::controller_fault: return 3;
-    case CheckResult::End::interrupted: return 4;
-    case CheckResult::End::record_failure: return 5;
+    case CheckResult::End::passed:
+      return 0;
+    case CheckResult::End::failed:
+      return 1;
+    case CheckResult::End::refused:
+      return 2;
+    case CheckResult::End::controller_fault:
+      return 3;
+    case CheckResult::End::interrupted:
+      return 4;
+    case CheckResult::End::record_failure:
+      return 5;
   }
   return 70;
 }
@@ -75,7 +87,8 @@ class Procedure {
   motion::Motion& motion() { return motion_; }
 
   bool record(const std::string& type, nlohmann::json payload) {
-    if (!log_.append(type, std::move(payload), record::utc_now())) throw Abort{CheckResult::End::record_failure, log_.error()};
+    if (!log_.append(type, std::move(payload), record::utc_now()))
+      throw Abort{CheckResult::End::record_failure, log_.error()};
     return true;
   }
 
@@ -84,20 +97,21 @@ class Procedure {
     throw Abort{CheckResult::End::controller_fault, std::string(what) + ": " + r.message};
   }
 
-  // A step's result as the check's end: the controller budget running out is the check failing; the operator's stop
-  // is an interruption; anything else (a fault, over-speed, the clock, the link, the wall deadline) a controller fault.
+  // A step's result as the check's end: the controller budget running out is the check failing; the
+  // operator's stop is an interruption; anything else (a fault, over-speed, the clock, the link, the wall
+  // deadline) a controller fault.
   void must_step(const Result& r) {
     if (r.ok()) return;
-    const auto end = r.code == motion::kTooSlow      ? CheckResult::End::failed
+    const auto end = r.code == motion::kTooSlow       ? CheckResult::End::failed
                      : r.code == motion::kInterrupted ? CheckResult::End::interrupted
                                                       : CheckResult::End::controller_fault;
     throw Abort{end, r.message};
   }
 
-  // Receives samples of the step just commanded until `done` says so (motion/motion.hpp: deadlines in controller and
-  // wall time; fault flags and over-speed checked on every sample first).
-  void collect(std::vector<Sample>& out, const std::function<bool(const Sample&)>& done, double max_controller_s, const char* step,
-               std::initializer_list<controller::Mode> modes) {
+  // Receives samples of the step just commanded until `done` says so (motion/motion.hpp: deadlines in
+  // controller and wall time; fault flags and over-speed checked on every sample first).
+  void collect(std::vector<Sample>& out, const std::function<bool(const Sample&)>& done,
+               double max_controller_s, const char* step, std::initializer_list<controller::Mode> modes) {
     motion::Step st;
     st.what = step;
     st.budget_s = max_controller_s;
@@ -107,7 +121,8 @@ class Procedure {
   }
 
   void hold_and_settle(double v_kmh) {
-    if (v_kmh > req_.cell.max_speed_kmh) throw Abort{CheckResult::End::refused, "start speed " + num(v_kmh) + " km/h is above the cell limit"};
+    if (v_kmh > req_.cell.max_speed_kmh)
+      throw Abort{CheckResult::End::refused, "start speed " + num(v_kmh) + " km/h is above the cell limit"};
     must_step(motion_.hold(v_kmh, req_.profile.settle_s, "settling at the start speed", 600.0));
   }
 
@@ -121,11 +136,13 @@ class Procedure {
     const std::string rel = "traces/" + name + ".csv";
     const std::string csv = record::trace_csv(tr);
     std::string err;
-    if (!record::write_durable((fs::path(folder_) / rel).string(), csv, err)) throw Abort{CheckResult::End::record_failure, err};
+    if (!record::write_durable((fs::path(folder_) / rel).string(), csv, err))
+      throw Abort{CheckResult::End::record_failure, err};
     return {{"path", rel}, {"sha256", record::sha256_hex(csv)}, {"samples", tr.size()}};
   }
 
-  static void split(const std::vector<Sample>& tr, std::vector<double>& t, std::vector<double>& v, std::vector<double>* f = nullptr) {
+  static void split(const std::vector<Sample>& tr, std::vector<double>& t, std::vector<double>& v,
+                    std::vector<double>* f = nullptr) {
     for (const auto& s : tr) {
       t.push_back(s.time_s);
       v.push_back(s.speed_kmh);
@@ -136,29 +153,44 @@ class Procedure {
   nlohmann::json parasitic(const std::optional<core::RoadLoad>& stored, bool& passed, std::string& verdict,
                            std::optional<core::RoadLoad>& new_curve) {
     const auto& o = req_.profile.parasitic;
-    const double top = *std::max_element(o.speeds_kmh.begin(), o.speeds_kmh.end()) + o.half_band_kmh + req_.profile.parasitic_run_up_margin_kmh;
+    const double top = *std::max_element(o.speeds_kmh.begin(), o.speeds_kmh.end()) + o.half_band_kmh +
+                       req_.profile.parasitic_run_up_margin_kmh;
     const double bottom = *std::min_element(o.speeds_kmh.begin(), o.speeds_kmh.end()) - o.half_band_kmh - 2.0;
     hold_and_settle(top);
     record("coast_started", {{"from_kmh", top}, {"simulation", "off (free coast of the empty rollers)"}});
     must(c_.free_coast(), "free coast");
     std::vector<Sample> tr;
-    collect(tr, [&](const Sample& x) { return x.speed_kmh < bottom; }, 7200.0, "the free coast", {controller::Mode::idle});
+    collect(tr, [&](const Sample& x) { return x.speed_kmh < bottom; }, 7200.0, "the free coast",
+            {controller::Mode::idle});
     stop_rollers();
     const auto file = write_trace("free-coast", tr);
     std::vector<double> t, v;
     split(tr, t, v);
-    const core::ParasiticDetermination d = core::determine_parasitic({t, v}, req_.cell.base_inertia_kg, stored, o);
+    const core::ParasiticDetermination d =
+        core::determine_parasitic({t, v}, req_.cell.base_inertia_kg, stored, o);
     passed = d.passed;
     verdict = d.verdict;
     nlohmann::json bands = nlohmann::json::array();
     for (const auto& b : d.bands)
-      bands.push_back({{"speed_kmh", b.reference_speed_kmh}, {"ok", b.ok()}, {"reason", b.reason}, {"delta_t_s", b.delta_t_s}, {"force_n", b.force_n}});
+      bands.push_back({{"speed_kmh", b.reference_speed_kmh},
+                       {"ok", b.ok()},
+                       {"reason", b.reason},
+                       {"delta_t_s", b.delta_t_s},
+                       {"force_n", b.force_n}});
     nlohmann::json points = nlohmann::json::array();
     for (const auto& p : d.points)
-      points.push_back({{"speed_kmh", p.speed_kmh}, {"measured_n", p.measured_n}, {"stored_n", p.stored_n}, {"deviation_n", p.deviation_n},
-                        {"limit_n", p.limit_n}, {"passed", p.passed}});
-    nlohmann::json j = {{"base_inertia_kg", req_.cell.base_inertia_kg}, {"bands", bands}, {"points", points}, {"have_stored", d.have_stored},
-                        {"mean_ratio", d.mean_ratio}, {"files", nlohmann::json::array({file})}};
+      points.push_back({{"speed_kmh", p.speed_kmh},
+                        {"measured_n", p.measured_n},
+                        {"stored_n", p.stored_n},
+                        {"deviation_n", p.deviation_n},
+                        {"limit_n", p.limit_n},
+                        {"passed", p.passed}});
+    nlohmann::json j = {{"base_inertia_kg", req_.cell.base_inertia_kg},
+                        {"bands", bands},
+                        {"points", points},
+                        {"have_stored", d.have_stored},
+                        {"mean_ratio", d.mean_ratio},
+                        {"files", nlohmann::json::array({file})}};
     if (d.ok) {
       j["curve"] = coef_json(d.fit.coefficients);
       j["residual_sd_n"] = d.fit.residual_sd_n;
@@ -172,10 +204,12 @@ class Procedure {
   nlohmann::json coastdowns(bool readiness, bool& passed, std::string& verdict) {
     const auto& cell = req_.cell;
     if (!(cell.min_inertia_kg > 0.0 && cell.max_inertia_kg > 0.0))
-      throw Abort{CheckResult::End::refused, "the cell file gives no dyno.min_inertia_kg / dyno.max_inertia_kg: the unloaded coast-down runs at both"};
+      throw Abort{CheckResult::End::refused,
+                  "the cell file gives no dyno.min_inertia_kg / dyno.max_inertia_kg: the unloaded coast-down "
+                  "runs at both"};
     std::vector<std::pair<double, core::RoadLoad>> runs;
-    // The daily readiness check runs at the smallest inertia only: there the same force error is the largest share
-    // of the force, so uncompensated losses and inertia errors show first.
+    // The daily readiness check runs at the smallest inertia only: there the same force error is the largest
+    // share of the force, so uncompensated losses and inertia errors show first.
     runs.push_back({cell.min_inertia_kg, req_.profile.smallest_inertia_setting});
     if (!readiness) runs.push_back({cell.max_inertia_kg, req_.profile.largest_inertia_setting});
     const auto& o = req_.profile.coastdown;
@@ -190,10 +224,12 @@ class Procedure {
       must(c_.set_inertia(inertia), "set inertia");
       must(c_.set_coefficients(setting), "set coefficients");
       hold_and_settle(start);
-      record("coast_started", {{"run", n}, {"inertia_kg", inertia}, {"set", coef_json(setting)}, {"from_kmh", start}});
+      record("coast_started",
+             {{"run", n}, {"inertia_kg", inertia}, {"set", coef_json(setting)}, {"from_kmh", start}});
       must(c_.release_road_load(), "road-load simulation");
       std::vector<Sample> tr;
-      collect(tr, [&](const Sample& x) { return x.speed_kmh < end; }, 3600.0, "the coast-down", {controller::Mode::road_load});
+      collect(tr, [&](const Sample& x) { return x.speed_kmh < end; }, 3600.0, "the coast-down",
+              {controller::Mode::road_load});
       stop_rollers();
       const auto file = write_trace("coastdown-" + std::to_string(n), tr);
       std::vector<double> t, v;
@@ -201,11 +237,23 @@ class Procedure {
       const core::UnloadedCoastdown r = core::check_unloaded_coastdown({t, v}, inertia, setting, o);
       nlohmann::json iv = nlohmann::json::array();
       for (const auto& i : r.intervals)
-        iv.push_back({{"from_mph", i.v_high_mph}, {"to_mph", i.v_low_mph}, {"delta_t_s", i.delta_t_s}, {"expected_delta_t_s", i.expected_delta_t_s},
-                      {"mean_force_n", i.mean_force_n}, {"expected_force_n", i.expected_force_n}, {"deviation_n", i.deviation_n},
-                      {"limit_n", i.limit_n}, {"passed", i.passed}, {"reason", i.reason}});
-      nlohmann::json j = {{"run", n}, {"inertia_kg", inertia}, {"set", coef_json(setting)}, {"intervals", iv}, {"passed", r.passed},
-                          {"verdict", r.verdict}, {"files", nlohmann::json::array({file})}};
+        iv.push_back({{"from_mph", i.v_high_mph},
+                      {"to_mph", i.v_low_mph},
+                      {"delta_t_s", i.delta_t_s},
+                      {"expected_delta_t_s", i.expected_delta_t_s},
+                      {"mean_force_n", i.mean_force_n},
+                      {"expected_force_n", i.expected_force_n},
+                      {"deviation_n", i.deviation_n},
+                      {"limit_n", i.limit_n},
+                      {"passed", i.passed},
+                      {"reason", i.reason}});
+      nlohmann::json j = {{"run", n},
+                          {"inertia_kg", inertia},
+                          {"set", coef_json(setting)},
+                          {"intervals", iv},
+                          {"passed", r.passed},
+                          {"verdict", r.verdict},
+                          {"files", nlohmann::json::array({file})}};
       record("analysed", j);
       out.push_back(j);
       passed = passed && r.passed;
@@ -217,13 +265,16 @@ class Procedure {
   nlohmann::json inertia(bool& passed, std::string& verdict) {
     const auto& o = req_.profile.inertia;
     const double stated = req_.cell.base_inertia_kg;
-    const double force = stated * req_.profile.inertia_accel_mph_per_s * u::kMpsPerMph;  // F = m·a, about 1 mph/s
+    const double force =
+        stated * req_.profile.inertia_accel_mph_per_s * u::kMpsPerMph;  // F = m·a, about 1 mph/s
     const double stop_at = u::mph_to_kmh(o.v_high_mph) + 3.0;
-    if (stop_at > req_.cell.max_speed_kmh) throw Abort{CheckResult::End::refused, "the check's top speed is above the cell limit"};
+    if (stop_at > req_.cell.max_speed_kmh)
+      throw Abort{CheckResult::End::refused, "the check's top speed is above the cell limit"};
     record("force_applied", {{"force_n", force}, {"stated_base_inertia_kg", stated}, {"simulation", "off"}});
     must(c_.apply_force(force), "constant force");
     std::vector<Sample> tr;
-    collect(tr, [&](const Sample& x) { return x.speed_kmh > stop_at; }, 600.0, "the constant-force run", {controller::Mode::constant_force});
+    collect(tr, [&](const Sample& x) { return x.speed_kmh > stop_at; }, 600.0, "the constant-force run",
+            {controller::Mode::constant_force});
     stop_rollers();
     const auto file = write_trace("constant-force", tr);
     std::vector<double> t, v, f;
@@ -231,10 +282,18 @@ class Procedure {
     const core::InertiaCheck r = core::check_base_inertia({t, v}, f, stated, o);
     passed = r.ok && r.passed;
     verdict = r.ok ? r.verdict : "FAIL: " + r.message;
-    nlohmann::json j = {{"force_n", force}, {"t_low_s", r.t_low_s}, {"t_high_s", r.t_high_s}, {"delta_t_s", r.delta_t_s},
-                        {"delta_v_mps", r.delta_v_mps}, {"mean_force_n", r.mean_force_n}, {"inertia_kg", r.inertia_kg},
-                        {"stated_kg", stated}, {"error_fraction", r.error_fraction}, {"tolerance_fraction", o.tolerance_fraction},
-                        {"passed", passed}, {"files", nlohmann::json::array({file})}};
+    nlohmann::json j = {{"force_n", force},
+                        {"t_low_s", r.t_low_s},
+                        {"t_high_s", r.t_high_s},
+                        {"delta_t_s", r.delta_t_s},
+                        {"delta_v_mps", r.delta_v_mps},
+                        {"mean_force_n", r.mean_force_n},
+                        {"inertia_kg", r.inertia_kg},
+                        {"stated_kg", stated},
+                        {"error_fraction", r.error_fraction},
+                        {"tolerance_fraction", o.tolerance_fraction},
+                        {"passed", passed},
+                        {"files", nlohmann::json::array({file})}};
     record("analysed", j);
     return j;
   }
@@ -268,7 +327,9 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   }
   record::EventLog log((fs::path(res.folder) / "events.jsonl").string());
   Procedure p(c, req, log, res.folder, stop);
-  nlohmann::json result = {{"check", core::to_string(req.kind)}, {"cell", req.cell.name}, {"profile", req.profile.name},
+  nlohmann::json result = {{"check", core::to_string(req.kind)},
+                           {"cell", req.cell.name},
+                           {"profile", req.profile.name},
                            {"standard", req.profile.standard}};
   bool passed = false;
   std::string verdict;
@@ -278,10 +339,16 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     nlohmann::json files = nlohmann::json::array();
     files.push_back(record::copy_input(res.folder, req.cell_file, "cell.toml"));
     files.push_back(record::copy_input(res.folder, req.profile_file, "checks.toml"));
-    nlohmann::json started = {{"check", core::to_string(req.kind)}, {"cell", req.cell.name}, {"files", files},
-                              {"confirmation", req.confirmation}, {"note", req.note}, {"vehicle_on_rollers", false},
-                              {"operator", req.operator_id},
-                              {"signing_key", req.key ? req.key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
+    nlohmann::json started = {
+        {"check", core::to_string(req.kind)},
+        {"cell", req.cell.name},
+        {"files", files},
+        {"confirmation", req.confirmation},
+        {"note", req.note},
+        {"vehicle_on_rollers", false},
+        {"operator", req.operator_id},
+        {"signing_key",
+         req.key ? req.key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
     if (stored) started["stored_parasitic_curve"] = {{"curve", coef_json(*stored)}, {"utc", stored_utc}};
     p.record("check_started", started);
     const controller::KeepAlive keep_alive(c);
@@ -289,21 +356,36 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     controller::ControllerInfo info;
     p.must(c.identify(info), "identify");
     const core::Problems id = controller::check_identity(req.cell, info);
-    p.record("identified", {{"name", info.name}, {"roller_diameter_m", info.roller_diameter_m}, {"base_inertia_kg", info.base_inertia_kg},
+    p.record("identified", {{"name", info.name},
+                            {"roller_diameter_m", info.roller_diameter_m},
+                            {"base_inertia_kg", info.base_inertia_kg},
                             {"problems", id.size()}});
-    if (core::has_errors(id)) throw Abort{CheckResult::End::refused, "the controller is not the cell file's dyno: " + id.front().key + " " + id.front().message};
+    if (core::has_errors(id))
+      throw Abort{CheckResult::End::refused,
+                  "the controller is not the cell file's dyno: " + id.front().key + " " + id.front().message};
     // The free coast and the constant force are not every controller's: refuse before anything moves.
-    const char* need = req.kind == core::CheckKind::parasitic ? "free" : req.kind == core::CheckKind::inertia ? "force" : nullptr;
+    const char* need = req.kind == core::CheckKind::parasitic ? "free"
+                       : req.kind == core::CheckKind::inertia ? "force"
+                                                              : nullptr;
     if (need && !info.has(need))
-      throw Abort{CheckResult::End::refused, std::string("the controller does not offer the '") + need + "' capability this check needs (it lists: " +
-                                                 info.capabilities + ")"};
+      throw Abort{CheckResult::End::refused,
+                  std::string("the controller does not offer the '") + need +
+                      "' capability this check needs (it lists: " + info.capabilities + ")"};
     p.must(c.start_stream(req.cell.sample_rate_hz), "start stream");
     moved = true;
     switch (req.kind) {
-      case core::CheckKind::parasitic: result["parasitic"] = p.parasitic(stored, passed, verdict, new_curve); break;
-      case core::CheckKind::coastdown: result["coastdown"] = p.coastdowns(false, passed, verdict); break;
-      case core::CheckKind::readiness: result["coastdown"] = p.coastdowns(true, passed, verdict); break;
-      case core::CheckKind::inertia: result["inertia"] = p.inertia(passed, verdict); break;
+      case core::CheckKind::parasitic:
+        result["parasitic"] = p.parasitic(stored, passed, verdict, new_curve);
+        break;
+      case core::CheckKind::coastdown:
+        result["coastdown"] = p.coastdowns(false, passed, verdict);
+        break;
+      case core::CheckKind::readiness:
+        result["coastdown"] = p.coastdowns(true, passed, verdict);
+        break;
+      case core::CheckKind::inertia:
+        result["inertia"] = p.inertia(passed, verdict);
+        break;
     }
     c.stop_stream();
     res.end = passed ? CheckResult::End::passed : CheckResult::End::failed;
@@ -315,8 +397,8 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     verdict = std::string("internal error, the check was stopped: ") + e.what();
   }
   if (res.end != CheckResult::End::passed && res.end != CheckResult::End::failed && moved) {
-    // The safe stop: command it and wait for standstill (the motion library's stop, bounded in both clocks); with no
-    // stream to confirm it, the controller's status.
+    // The safe stop: command it and wait for standstill (the motion library's stop, bounded in both clocks);
+    // with no stream to confirm it, the controller's status.
     bool stopped = false;
     const Result sr = p.motion().stop_and_wait(600.0, stopped);
     controller::StatusReport st;
@@ -324,7 +406,8 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     c.stop_stream();
     if (!stopped) {
       res.end = CheckResult::End::controller_fault;
-      verdict += "; rollers not confirmed stopped: " + sr.message + "; the controller's watchdog is the remaining safeguard";
+      verdict += "; rollers not confirmed stopped: " + sr.message +
+                 "; the controller's watchdog is the remaining safeguard";
     }
     result["rollers_stopped"] = stopped;
   }
@@ -334,8 +417,9 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   result["passed"] = res.end == CheckResult::End::passed;
   result["verdict"] = verdict;
   // The new curve is stored when the determination passed, or when the operator accepts it explicitly.
-  const bool store_curve = req.kind == core::CheckKind::parasitic && new_curve &&
-                           (res.end == CheckResult::End::passed || (req.accept_new_curve && res.end == CheckResult::End::failed));
+  const bool store_curve =
+      req.kind == core::CheckKind::parasitic && new_curve &&
+      (res.end == CheckResult::End::passed || (req.accept_new_curve && res.end == CheckResult::End::failed));
   result["curve_stored"] = store_curve;
   if (store_curve && res.end == CheckResult::End::failed) result["curve_accepted_by_operator"] = true;
   res.result = result;
@@ -343,11 +427,16 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   std::string err;
   const bool wrote = record::write_durable((fs::path(res.folder) / "result.json").string(), text, err);
   const std::string now = record::utc_now();
-  const bool logged = log.append("check_finished", {{"check", core::to_string(req.kind)}, {"end", to_string(res.end)}, {"passed", result["passed"]},
-                                                    {"verdict", verdict}, {"files", nlohmann::json::array({{{"path", "result.json"}, {"sha256", record::sha256_hex(text)}}})}},
-                                 now);
-  // The folder's last record: the seal (docs/records.md), its chain head also in the cell's log. The report, a
-  // derived file, follows it.
+  const bool logged = log.append(
+      "check_finished",
+      {{"check", core::to_string(req.kind)},
+       {"end", to_string(res.end)},
+       {"passed", result["passed"]},
+       {"verdict", verdict},
+       {"files", nlohmann::json::array({{{"path", "result.json"}, {"sha256", record::sha256_hex(text)}}})}},
+      now);
+  // The folder's last record: the seal (docs/records.md), its chain head also in the cell's log. The report,
+  // a derived file, follows it.
   bool sealed = false;
   std::string seal_err;
   if (wrote && logged) {
@@ -360,16 +449,28 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   }
   const bool counts = res.end == CheckResult::End::passed || res.end == CheckResult::End::failed;
   bool hist_ok = true;
-  if (counts) hist_ok = hist.append("check", {{"kind", core::to_string(req.kind)}, {"passed", res.end == CheckResult::End::passed}, {"verdict", verdict},
-                                              {"folder", fs::path(res.folder).filename().string()}}, now);
+  if (counts)
+    hist_ok = hist.append("check",
+                          {{"kind", core::to_string(req.kind)},
+                           {"passed", res.end == CheckResult::End::passed},
+                           {"verdict", verdict},
+                           {"folder", fs::path(res.folder).filename().string()}},
+                          now);
   if (store_curve && hist_ok)
-    hist_ok = hist.append("parasitic_curve", {{"f0_n", new_curve->f0_n}, {"f1_n_per_kmh", new_curve->f1_n_per_kmh}, {"f2_n_per_kmh2", new_curve->f2_n_per_kmh2},
-                                              {"folder", fs::path(res.folder).filename().string()},
-                                              {"accepted_by_operator", res.end == CheckResult::End::failed}}, now);
+    hist_ok = hist.append("parasitic_curve",
+                          {{"f0_n", new_curve->f0_n},
+                           {"f1_n_per_kmh", new_curve->f1_n_per_kmh},
+                           {"f2_n_per_kmh2", new_curve->f2_n_per_kmh2},
+                           {"folder", fs::path(res.folder).filename().string()},
+                           {"accepted_by_operator", res.end == CheckResult::End::failed}},
+                          now);
   if (!wrote || !logged || !sealed || !hist_ok) {
     res.end = CheckResult::End::record_failure;
     res.verdict += std::string(res.verdict.empty() ? "" : "; ") + "record failure: " +
-                   (!wrote ? err : !logged ? log.error() : !sealed ? "the folder could not be sealed: " + seal_err : hist.error());
+                   (!wrote    ? err
+                    : !logged ? log.error()
+                    : !sealed ? "the folder could not be sealed: " + seal_err
+                              : hist.error());
   }
   std::string rerr;
   if (!write_check_report(res.folder, rerr)) res.verdict += "; report not written: " + rerr;
@@ -387,15 +488,24 @@ bool write_check_report(const std::string& folder, std::string& error) {
   using report::xml_escape;
   std::ostringstream h;
   const bool passed = r.value("passed", false);
-  h << "<!doctype html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>loadtrim dyno check: " << xml_escape(r.value("check", "")) << "</title>"
-    << "<style>body{font-family:sans-serif;max-width:60em;margin:1em auto;padding:0 1em}table{border-collapse:collapse}"
-       "td,th{border:1px solid #999;padding:.2em .5em;text-align:right}th{background:#eee}.pass{color:#009E73}.fail{color:#D55E00;font-weight:bold}"
+  h << "<!doctype html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>loadtrim dyno check: "
+    << xml_escape(r.value("check", "")) << "</title>"
+    << "<style>body{font-family:sans-serif;max-width:60em;margin:1em auto;padding:0 "
+       "1em}table{border-collapse:collapse}"
+       "td,th{border:1px solid #999;padding:.2em "
+       ".5em;text-align:right}th{background:#eee}.pass{color:#009E73}.fail{color:#D55E00;font-weight:bold}"
        ".warn{border:2px solid #D55E00;padding:.5em}</style></head><body>";
   h << "<h1>Dyno check: " << xml_escape(r.value("check", "")) << " (no vehicle on the rollers)</h1>";
-  h << "<p class=\"" << (passed ? "pass" : "fail") << "\">" << (passed ? "PASSED" : "NOT PASSED") << ": " << xml_escape(r.value("verdict", "")) << "</p>";
-  h << "<p>Cell: " << xml_escape(r.value("cell", "")) << ". Check profile: " << xml_escape(r.value("profile", "")) << " (" << xml_escape(r.value("standard", ""))
+  h << "<p class=\"" << (passed ? "pass" : "fail") << "\">" << (passed ? "PASSED" : "NOT PASSED") << ": "
+    << xml_escape(r.value("verdict", "")) << "</p>";
+  h << "<p>Cell: " << xml_escape(r.value("cell", ""))
+    << ". Check profile: " << xml_escape(r.value("profile", "")) << " ("
+    << xml_escape(r.value("standard", ""))
     << "). The numeric limits are the lab's settings, not quoted from the standards.</p>";
-  h << "<p>Record: " << (v.ok ? "chain intact, " + xml_escape(v.message) : "<span class=\"fail\">BROKEN: " + xml_escape(v.message) + "</span>") << "</p>";
+  h << "<p>Record: "
+    << (v.ok ? "chain intact, " + xml_escape(v.message)
+             : "<span class=\"fail\">BROKEN: " + xml_escape(v.message) + "</span>")
+    << "</p>";
   auto trace_plot = [&](const std::string& rel, const std::string& title) {
     std::vector<double> t, s;
     std::string e;
@@ -407,45 +517,59 @@ bool write_check_report(const std::string& folder, std::string& error) {
       ser.x.push_back(t[i] - t[0]);
       ser.y.push_back(s[i]);
     }
-    report::SvgPlot plot("trace-" + std::to_string(std::hash<std::string>{}(rel) % 100000), title, "time from start (s)", "speed (km/h)");
+    report::SvgPlot plot("trace-" + std::to_string(std::hash<std::string>{}(rel) % 100000), title,
+                         "time from start (s)", "speed (km/h)");
     plot.add(ser);
     h << plot.render();
   };
   if (r.contains("parasitic")) {
     const auto& p = r["parasitic"];
     if (p.contains("curve"))
-      h << "<p>Parasitic loss curve: P(v) = " << num(p["curve"].value("f0_n", 0.0)) << " N + " << num(p["curve"].value("f1_n_per_kmh", 0.0))
-        << " N/(km/h)·v + " << num(p["curve"].value("f2_n_per_kmh2", 0.0)) << " N/(km/h)²·v², from the coast of the empty rollers at the base inertia "
-        << num(p.value("base_inertia_kg", 0.0)) << " kg. " << (r.value("curve_stored", false) ? "Stored as the cell's curve." : "Not stored.") << "</p>";
-    h << "<table><tr><th>speed (km/h)</th><th>measured (N)</th><th>stored (N)</th><th>deviation (N)</th><th>limit (N)</th><th>result</th></tr>";
+      h << "<p>Parasitic loss curve: P(v) = " << num(p["curve"].value("f0_n", 0.0)) << " N + "
+        << num(p["curve"].value("f1_n_per_kmh", 0.0)) << " N/(km/h)·v + "
+        << num(p["curve"].value("f2_n_per_kmh2", 0.0))
+        << " N/(km/h)²·v², from the coast of the empty rollers at the base inertia "
+        << num(p.value("base_inertia_kg", 0.0)) << " kg. "
+        << (r.value("curve_stored", false) ? "Stored as the cell's curve." : "Not stored.") << "</p>";
+    h << "<table><tr><th>speed (km/h)</th><th>measured (N)</th><th>stored (N)</th><th>deviation "
+         "(N)</th><th>limit (N)</th><th>result</th></tr>";
     for (const auto& x : p.value("points", nlohmann::json::array()))
-      h << "<tr><td>" << num(x.value("speed_kmh", 0.0)) << "</td><td>" << num(x.value("measured_n", 0.0), 2) << "</td><td>" << num(x.value("stored_n", 0.0), 2)
-        << "</td><td>" << num(x.value("deviation_n", 0.0), 2) << "</td><td>" << num(x.value("limit_n", 0.0), 2) << "</td><td class=\""
-        << (x.value("passed", false) ? "pass\">pass" : "fail\">FAIL") << "</td></tr>";
+      h << "<tr><td>" << num(x.value("speed_kmh", 0.0)) << "</td><td>" << num(x.value("measured_n", 0.0), 2)
+        << "</td><td>" << num(x.value("stored_n", 0.0), 2) << "</td><td>"
+        << num(x.value("deviation_n", 0.0), 2) << "</td><td>" << num(x.value("limit_n", 0.0), 2)
+        << "</td><td class=\"" << (x.value("passed", false) ? "pass\">pass" : "fail\">FAIL") << "</td></tr>";
     h << "</table>";
     trace_plot("traces/free-coast.csv", "Free coast of the empty rollers");
   }
   if (r.contains("coastdown"))
     for (const auto& run : r["coastdown"].value("runs", nlohmann::json::array())) {
-      h << "<h2>Unloaded coast-down at " << num(run.value("inertia_kg", 0.0)) << " kg</h2><p>" << xml_escape(run.value("verdict", "")) << "</p>";
-      h << "<table><tr><th>interval (mph)</th><th>Δt (s)</th><th>expected Δt (s)</th><th>mean force (N)</th><th>expected (N)</th><th>deviation (N)</th><th>limit (N)</th><th>result</th></tr>";
+      h << "<h2>Unloaded coast-down at " << num(run.value("inertia_kg", 0.0)) << " kg</h2><p>"
+        << xml_escape(run.value("verdict", "")) << "</p>";
+      h << "<table><tr><th>interval (mph)</th><th>Δt (s)</th><th>expected Δt (s)</th><th>mean force "
+           "(N)</th><th>expected (N)</th><th>deviation (N)</th><th>limit (N)</th><th>result</th></tr>";
       for (const auto& x : run.value("intervals", nlohmann::json::array()))
-        h << "<tr><td>" << num(x.value("from_mph", 0.0)) << "→" << num(x.value("to_mph", 0.0)) << "</td><td>" << num(x.value("delta_t_s", 0.0), 3) << "</td><td>"
-          << num(x.value("expected_delta_t_s", 0.0), 3) << "</td><td>" << num(x.value("mean_force_n", 0.0), 2) << "</td><td>" << num(x.value("expected_force_n", 0.0), 2)
-          << "</td><td>" << num(x.value("deviation_n", 0.0), 2) << "</td><td>" << num(x.value("limit_n", 0.0), 2) << "</td><td class=\""
+        h << "<tr><td>" << num(x.value("from_mph", 0.0)) << "→" << num(x.value("to_mph", 0.0)) << "</td><td>"
+          << num(x.value("delta_t_s", 0.0), 3) << "</td><td>" << num(x.value("expected_delta_t_s", 0.0), 3)
+          << "</td><td>" << num(x.value("mean_force_n", 0.0), 2) << "</td><td>"
+          << num(x.value("expected_force_n", 0.0), 2) << "</td><td>" << num(x.value("deviation_n", 0.0), 2)
+          << "</td><td>" << num(x.value("limit_n", 0.0), 2) << "</td><td class=\""
           << (x.value("passed", false) ? "pass\">pass" : "fail\">FAIL") << "</td></tr>";
       h << "</table>";
-      trace_plot("traces/coastdown-" + std::to_string(run.value("run", 0)) + ".csv", "Coast-down at " + num(run.value("inertia_kg", 0.0)) + " kg");
+      trace_plot("traces/coastdown-" + std::to_string(run.value("run", 0)) + ".csv",
+                 "Coast-down at " + num(run.value("inertia_kg", 0.0)) + " kg");
     }
   if (r.contains("inertia")) {
     const auto& x = r["inertia"];
-    h << "<table><tr><th>force (N)</th><th>Δt (s)</th><th>Δv (m/s)</th><th>mean force (N)</th><th>I = F̄·Δt/Δv (kg)</th><th>stated (kg)</th><th>error (%)</th></tr><tr><td>"
-      << num(x.value("force_n", 0.0), 1) << "</td><td>" << num(x.value("delta_t_s", 0.0), 3) << "</td><td>" << num(x.value("delta_v_mps", 0.0), 5) << "</td><td>"
-      << num(x.value("mean_force_n", 0.0), 2) << "</td><td>" << num(x.value("inertia_kg", 0.0), 1) << "</td><td>" << num(x.value("stated_kg", 0.0), 1) << "</td><td>"
-      << num(100.0 * x.value("error_fraction", 0.0), 2) << "</td></tr></table>";
+    h << "<table><tr><th>force (N)</th><th>Δt (s)</th><th>Δv (m/s)</th><th>mean force (N)</th><th>I = "
+         "F̄·Δt/Δv (kg)</th><th>stated (kg)</th><th>error (%)</th></tr><tr><td>"
+      << num(x.value("force_n", 0.0), 1) << "</td><td>" << num(x.value("delta_t_s", 0.0), 3) << "</td><td>"
+      << num(x.value("delta_v_mps", 0.0), 5) << "</td><td>" << num(x.value("mean_force_n", 0.0), 2)
+      << "</td><td>" << num(x.value("inertia_kg", 0.0), 1) << "</td><td>" << num(x.value("stated_kg", 0.0), 1)
+      << "</td><td>" << num(100.0 * x.value("error_fraction", 0.0), 2) << "</td></tr></table>";
     trace_plot("traces/constant-force.csv", "Constant force, simulation off");
   }
-  h << "<p class=\"warn\">Rotating rollers can injure. These checks run with no vehicle on the rollers and nobody in the roller area; the lab's own "
+  h << "<p class=\"warn\">Rotating rollers can injure. These checks run with no vehicle on the rollers and "
+       "nobody in the roller area; the lab's own "
        "safety rules, local codes and licensed practice come first.</p></body></html>\n";
   return record::write_durable((fs::path(folder) / "report.html").string(), h.str(), error);
 }

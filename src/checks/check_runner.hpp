@@ -1,7 +1,8 @@
-// Runs one dyno check with no vehicle on the rollers, unattended, against the controller interface: connect and
-// verify the controller's identity against the cell file, drive the rollers through the check's procedure,
-// record every trace, analyse it with the pure core (core/dyno_checks.hpp), stop the rollers, and write the
-// check's folder (hash-chained log, traces, result.json, report.html) and its line in the cell's history.
+// Runs one dyno check with no vehicle on the rollers, unattended, against the controller interface: connect
+// and verify the controller's identity against the cell file, drive the rollers through the check's
+// procedure, record every trace, analyse it with the pure core (core/dyno_checks.hpp), stop the rollers, and
+// write the check's folder (hash-chained log, traces, result.json, report.html) and its line in the cell's
+// history.
 //
 // A sequential procedure, not a state machine: each step either completes or ends the check in the safe stop.
 #pragma once
@@ -25,8 +26,8 @@ struct CheckRequest {
   std::string profile_file;
   std::string checks_root = "checks";
   std::string confirmation;       // how the operator allowed the rollers to move
-  bool accept_new_curve = false;  // parasitic: store the determined curve even when it differs from the stored one
-                                  // (after major maintenance, when the difference is understood)
+  bool accept_new_curve = false;  // parasitic: store the determined curve even when it differs from the
+                                  // stored one (after major maintenance, when the difference is understood)
   std::string note;
   const record::SigningKey* key = nullptr;  // the cell's signing key for the seal; nullptr: sealed unsigned
   nlohmann::json operator_id = nlohmann::json::object();  // {"name", "from"}
@@ -40,9 +41,11 @@ struct CheckResult {
   nlohmann::json result;
 };
 const char* to_string(CheckResult::End e);
-int exit_code(CheckResult::End e);  // 0 passed, 1 failed, 2 refused, 3 controller fault, 4 interrupted, 5 record
+int exit_code(
+    CheckResult::End e);  // 0 passed, 1 failed, 2 refused, 3 controller fault, 4 interrupted, 5 record
 
-CheckResult run_check(controller::Controller& c, const CheckRequest& req, const std::atomic<bool>* stop = nullptr);
+CheckResult run_check(controller::Controller& c, const CheckRequest& req,
+                      const std::atomic<bool>* stop = nullptr);
 
 // The check's report.html, from its folder alone (result.json and the traces).
 bool write_check_report(const std::string& folder, std::string& error);

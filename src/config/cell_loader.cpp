@@ -24,13 +24,20 @@ modbus::RegisterMap read_register_map(TomlReader& r) {
     modbus::Register& reg = m.regs[i];
     reg.present = true;
     const std::string table = r.choice(k + ".table", {"holding", "input", "coil"});
-    reg.table = table == "input" ? modbus::Table::input : table == "coil" ? modbus::Table::coil : modbus::Table::holding;
+    reg.table = table == "input"  ? modbus::Table::input
+                : table == "coil" ? modbus::Table::coil
+                                  : modbus::Table::holding;
     reg.address = r.integer_or(k + ".address", -1, 0, 65535);
     if (!r.has(k + ".address")) r.error(k + ".address", "is missing, allowed 0 to 65535");
     const std::string type = r.choice(k + ".type", {"int16", "uint16", "int32", "uint32", "float32"});
-    reg.type = type == "int16" ? modbus::Type::int16 : type == "uint16" ? modbus::Type::uint16 : type == "int32" ? modbus::Type::int32
-             : type == "uint32" ? modbus::Type::uint32 : modbus::Type::float32;
-    reg.order = r.choice(k + ".word_order", {"big", "little"}, std::string("big")) == "little" ? modbus::WordOrder::little : modbus::WordOrder::big;
+    reg.type = type == "int16"    ? modbus::Type::int16
+               : type == "uint16" ? modbus::Type::uint16
+               : type == "int32"  ? modbus::Type::int32
+               : type == "uint32" ? modbus::Type::uint32
+                                  : modbus::Type::float32;
+    reg.order = r.choice(k + ".word_order", {"big", "little"}, std::string("big")) == "little"
+                    ? modbus::WordOrder::little
+                    : modbus::WordOrder::big;
     reg.scale = r.number_or(k + ".scale", 1.0, -1e9, 1e9, "");
     reg.unit = r.string_or(k + ".unit", "");
   }
@@ -43,7 +50,8 @@ namespace {
 controller::CellConfig read_cell(TomlReader& r) {
   controller::CellConfig c;
   c.name = r.string("name");
-  c.adapter = r.choice("controller.adapter", {"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim"});
+  c.adapter = r.choice("controller.adapter",
+                       {"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim"});
   if (c.adapter == "line-tcp" || c.adapter == "modbus-tcp") {
     c.host = r.string_or("controller.host", "127.0.0.1");
     c.port = static_cast<unsigned>(r.integer_or("controller.port", 0, 1, 65535));
@@ -57,7 +65,8 @@ controller::CellConfig read_cell(TomlReader& r) {
   } else {
     c.inprocess_truth = r.string("controller.truth");
     if (!c.inprocess_truth.empty() && std::filesystem::path(c.inprocess_truth).is_relative())
-      c.inprocess_truth = (std::filesystem::path(r.file()).parent_path() / c.inprocess_truth).lexically_normal().string();
+      c.inprocess_truth =
+          (std::filesystem::path(r.file()).parent_path() / c.inprocess_truth).lexically_normal().string();
   }
   c.timeouts.connect = ms(r, "timeouts.connect_ms", 3000, 10, 600000);
   c.timeouts.reply = ms(r, "timeouts.reply_ms", 1000, 10, 600000);

@@ -13,6 +13,7 @@ controller::CellConfig load_cell(const std::string& path, core::Problems* warnin
 modbus::RegisterMap load_register_map(const std::string& path, core::Problems* warnings = nullptr);
 class TomlReader;
 modbus::RegisterMap read_register_map(TomlReader& r);
-controller::CellConfig parse_cell(const std::string& text, const std::string& name, core::Problems* warnings = nullptr);
+controller::CellConfig parse_cell(const std::string& text, const std::string& name,
+                                  core::Problems* warnings = nullptr);
 
 }  // namespace loadtrim::config

@@ -15,11 +15,13 @@ std::vector<std::string> split_csv(const std::string& line) {
   std::string cur;
   bool quoted = false;
   for (char c : line) {
-    if (c == '"') quoted = !quoted;
+    if (c == '"')
+      quoted = !quoted;
     else if (c == ',' && !quoted) {
       out.push_back(cur);
       cur.clear();
-    } else if (c != '\r') cur += c;
+    } else if (c != '\r')
+      cur += c;
   }
   out.push_back(cur);
   return out;
@@ -38,16 +40,19 @@ EpaFile read_epa_csv(const std::string& path) {
   std::ifstream in(path);
   if (!in) throw InputError(path, {{core::Problem::Severity::error, "", "cannot open the file"}});
   std::string line;
-  if (!std::getline(in, line)) throw InputError(path, {{core::Problem::Severity::error, "", "the file is empty"}});
+  if (!std::getline(in, line))
+    throw InputError(path, {{core::Problem::Severity::error, "", "the file is empty"}});
   const auto header = split_csv(line);
   std::map<std::string, std::size_t> col;
   for (std::size_t i = 0; i < header.size(); ++i) col[header[i]] = i;
-  const std::vector<std::string> required = {"model_year", "test_vehicle_id", "test_veh_config_num", "drive_system_code",
-                                             "etw_kg", "target_f0_N", "target_f1_N_per_kmh", "target_f2_N_per_kmh2",
-                                             "set_f0_N", "set_f1_N_per_kmh", "set_f2_N_per_kmh2"};
+  const std::vector<std::string> required = {
+      "model_year", "test_vehicle_id",  "test_veh_config_num", "drive_system_code",
+      "etw_kg",     "target_f0_N",      "target_f1_N_per_kmh", "target_f2_N_per_kmh2",
+      "set_f0_N",   "set_f1_N_per_kmh", "set_f2_N_per_kmh2"};
   core::Problems missing;
   for (const auto& r : required)
-    if (!col.count(r)) missing.push_back({core::Problem::Severity::error, "header", "missing column \"" + r + "\""});
+    if (!col.count(r))
+      missing.push_back({core::Problem::Severity::error, "header", "missing column \"" + r + "\""});
   if (!missing.empty()) throw InputError(path, missing);
 
   EpaFile f;
@@ -57,16 +62,17 @@ EpaFile read_epa_csv(const std::string& path) {
     if (line.empty() || line == "\r") continue;
     const auto cells = split_csv(line);
     if (cells.size() < header.size()) {
-      f.skipped.push_back("line " + std::to_string(lineno) + ": " + std::to_string(cells.size()) + " cells, header has " +
-                          std::to_string(header.size()));
+      f.skipped.push_back("line " + std::to_string(lineno) + ": " + std::to_string(cells.size()) +
+                          " cells, header has " + std::to_string(header.size()));
       continue;
     }
     EpaRow row;
     row.line = lineno;
-    row.id = cells[col["model_year"]] + "/" + cells[col["test_vehicle_id"]] + "/" + cells[col["test_veh_config_num"]];
+    row.id = cells[col["model_year"]] + "/" + cells[col["test_vehicle_id"]] + "/" +
+             cells[col["test_veh_config_num"]];
     row.drive_code = cells[col["drive_system_code"]];
     double v[7];
-    const char* names[7] = {"etw_kg", "target_f0_N", "target_f1_N_per_kmh", "target_f2_N_per_kmh2",
+    const char* names[7] = {"etw_kg",   "target_f0_N",      "target_f1_N_per_kmh", "target_f2_N_per_kmh2",
                             "set_f0_N", "set_f1_N_per_kmh", "set_f2_N_per_kmh2"};
     bool ok = true;
     for (int k = 0; k < 7 && ok; ++k)
@@ -89,7 +95,9 @@ core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profil
   t.description = "US EPA Test Car List row at line " + std::to_string(row.line);
   t.test_mass_kg = row.etw_kg;
   t.mass_in_running_order_kg = row.etw_kg - 100.0;
-  t.drive = row.drive_code == "F" ? core::Drive::front : row.drive_code == "R" ? core::Drive::rear : core::Drive::all;
+  t.drive = row.drive_code == "F"   ? core::Drive::front
+            : row.drive_code == "R" ? core::Drive::rear
+                                    : core::Drive::all;
   t.max_speed_kmh = max_speed_kmh;
   t.target = row.target;
   t.profile = profile;

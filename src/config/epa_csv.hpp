@@ -11,7 +11,7 @@
 namespace loadtrim::config {
 
 struct EpaRow {
-  int line = 0;  // line in the file
+  int line = 0;    // line in the file
   std::string id;  // model year / test vehicle id / configuration
   std::string drive_code;
   double etw_kg = 0.0;
@@ -28,7 +28,9 @@ struct EpaFile {
 EpaFile read_epa_csv(const std::string& path);
 
 // A vehicle target from a row: test mass = ETW; mass in running order taken as ETW − 100 kg (common practice,
-// no source: US test weight adds a nominal load to the curb mass); drive code F/R single axle, A/4/P all wheels.
-core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profile, double max_speed_kmh = 180.0);
+// no source: US test weight adds a nominal load to the curb mass); drive code F/R single axle, A/4/P all
+// wheels.
+core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profile,
+                                    double max_speed_kmh = 180.0);
 
 }  // namespace loadtrim::config

@@ -14,8 +14,9 @@ core::Profile read_profile(TomlReader& r) {
   core::Profile p;
   p.name = r.string("name");
   p.standard = r.string_or("standard", "");
-  p.method = r.choice("method.kind", {"iterative", "fixed-run"}) == "fixed-run" ? core::SettingMethod::fixed_run
-                                                                                : core::SettingMethod::iterative;
+  p.method = r.choice("method.kind", {"iterative", "fixed-run"}) == "fixed-run"
+                 ? core::SettingMethod::fixed_run
+                 : core::SettingMethod::iterative;
   // Speeds in km/h, or in mph for US-style profiles (converted exactly, NIST SP 811).
   const bool mph = r.has("bands.reference_speeds_mph") || r.has("bands.half_width_mph");
   if (mph && (r.has("bands.reference_speeds_kmh") || r.has("bands.half_width_kmh")))
@@ -49,30 +50,37 @@ core::Profile read_profile(TomlReader& r) {
   p.max_gap_after_warmup_s = r.number_or("timing.max_gap_after_warmup_s", 120.0, 0.0, 3600.0, "s");
   p.warm_up.speed_kmh = r.number_or("warm_up.speed_kmh", p.warm_up.speed_kmh, 10.0, 250.0, "km/h");
   p.warm_up.duration_s = r.number_or("warm_up.duration_s", p.warm_up.duration_s, 0.0, 14400.0, "s");
-  p.warm_up.stable_within_n = r.number_or("warm_up.stable_within_n", p.warm_up.stable_within_n, 0.0, 100.0, "N");
-  p.warm_up.stable_window_s = r.number_or("warm_up.stable_window_s", p.warm_up.stable_window_s, 5.0, 1200.0, "s");
+  p.warm_up.stable_within_n =
+      r.number_or("warm_up.stable_within_n", p.warm_up.stable_within_n, 0.0, 100.0, "N");
+  p.warm_up.stable_window_s =
+      r.number_or("warm_up.stable_window_s", p.warm_up.stable_window_s, 5.0, 1200.0, "s");
   p.warm_up.max_extra_s = r.number_or("warm_up.max_extra_s", p.warm_up.max_extra_s, 0.0, 7200.0, "s");
-  if (r.has("loss_map.speeds_kmh")) p.loss_map.speeds_kmh = r.numbers("loss_map.speeds_kmh", 5.0, 250.0, "km/h");
+  if (r.has("loss_map.speeds_kmh"))
+    p.loss_map.speeds_kmh = r.numbers("loss_map.speeds_kmh", 5.0, 250.0, "km/h");
   p.loss_map.settle_s = r.number_or("loss_map.settle_s", p.loss_map.settle_s, 0.5, 120.0, "s");
   p.loss_map.average_s = r.number_or("loss_map.average_s", p.loss_map.average_s, 0.5, 120.0, "s");
   // Cross-field rules (ordering, run-up margin against Δv, fixed-run counts) live in the core validator.
   core::Problems ps = core::validate(p);
   if (mph)
     for (auto& q : ps)
-      if (q.key.rfind("bands.reference_speeds_kmh", 0) == 0) q.key.replace(0, 26, "bands.reference_speeds_mph");
+      if (q.key.rfind("bands.reference_speeds_kmh", 0) == 0)
+        q.key.replace(0, 26, "bands.reference_speeds_mph");
   r.add(ps);
   return p;
 }
 
-core::RoadLoad read_coefficients(TomlReader& r, const std::string& table, const std::string& us_table, bool& present) {
+core::RoadLoad read_coefficients(TomlReader& r, const std::string& table, const std::string& us_table,
+                                 bool& present) {
   const bool metric = r.has(table), us = r.has(us_table);
   present = metric || us;
   if (metric && us) {
-    r.error(table, "give [" + table + "] (N, N/(km/h), N/(km/h)²) or [" + us_table + "] (lbf, lbf/mph, lbf/mph²), not both");
+    r.error(table, "give [" + table + "] (N, N/(km/h), N/(km/h)²) or [" + us_table +
+                       "] (lbf, lbf/mph, lbf/mph²), not both");
     return {};
   }
   if (metric)
-    return {r.number(table + ".f0_n", -5000.0, 5000.0, "N"), r.number(table + ".f1_n_per_kmh", -50.0, 50.0, "N/(km/h)"),
+    return {r.number(table + ".f0_n", -5000.0, 5000.0, "N"),
+            r.number(table + ".f1_n_per_kmh", -50.0, 50.0, "N/(km/h)"),
             r.number(table + ".f2_n_per_kmh2", -1.0, 1.0, "N/(km/h)²")};
   if (us)
     return core::to_metric({r.number(us_table + ".a_lbf", -1200.0, 1200.0, "lbf"),
@@ -85,7 +93,8 @@ core::VehicleTarget read_target(TomlReader& r) {
   core::VehicleTarget v;
   v.id = r.string("vehicle.id");
   v.description = r.string_or("vehicle.description", "");
-  if (r.has("vehicle.test_mass_kg") && r.has("vehicle.test_mass_lb")) r.error("vehicle", "give test_mass_kg or test_mass_lb, not both");
+  if (r.has("vehicle.test_mass_kg") && r.has("vehicle.test_mass_lb"))
+    r.error("vehicle", "give test_mass_kg or test_mass_lb, not both");
   if (r.has("vehicle.test_mass_lb"))
     v.test_mass_kg = core::units::lb_to_kg(r.number("vehicle.test_mass_lb", 600.0, 45000.0, "lb"));
   else
@@ -98,7 +107,10 @@ core::VehicleTarget read_target(TomlReader& r) {
   v.profile = r.string("profile");
   bool present = false;
   v.target = read_coefficients(r, "target", "target_us", present);
-  if (!present) r.error("target", "is missing: give [target] with f0_n, f1_n_per_kmh, f2_n_per_kmh2 or [target_us] with a_lbf, b_lbf_per_mph, c_lbf_per_mph2");
+  if (!present)
+    r.error("target",
+            "is missing: give [target] with f0_n, f1_n_per_kmh, f2_n_per_kmh2 or [target_us] with a_lbf, "
+            "b_lbf_per_mph, c_lbf_per_mph2");
   bool initial = false;
   const core::RoadLoad init = read_coefficients(r, "initial_set", "initial_set_us", initial);
   if (initial) v.initial_set = init;
@@ -111,15 +123,21 @@ physics::Truth read_truth(TomlReader& r) {
   auto& v = t.vehicle;
   v.name = r.string_or("vehicle.name", "unnamed");
   v.test_mass_kg = r.number("vehicle.test_mass_kg", 300.0, 20000.0, "kg");
-  v.rotating_mass_on_rollers_kg = r.number_or("vehicle.rotating_mass_on_rollers_kg", v.rotating_mass_on_rollers_kg, 0.0, 2000.0, "kg");
+  v.rotating_mass_on_rollers_kg =
+      r.number_or("vehicle.rotating_mass_on_rollers_kg", v.rotating_mass_on_rollers_kg, 0.0, 2000.0, "kg");
   v.tyre_radius_m = r.number_or("vehicle.tyre_radius_m", v.tyre_radius_m, 0.15, 1.0, "m");
   v.tyre_loss_flat_n = r.number_or("vehicle.tyre_loss_flat_n", v.tyre_loss_flat_n, 0.0, 2000.0, "N");
-  v.tyre_loss_flat_n_per_kmh = r.number_or("vehicle.tyre_loss_flat_n_per_kmh", v.tyre_loss_flat_n_per_kmh, -5.0, 5.0, "N/(km/h)");
+  v.tyre_loss_flat_n_per_kmh =
+      r.number_or("vehicle.tyre_loss_flat_n_per_kmh", v.tyre_loss_flat_n_per_kmh, -5.0, 5.0, "N/(km/h)");
   v.drivetrain_loss_n = r.number_or("vehicle.drivetrain_loss_n", v.drivetrain_loss_n, 0.0, 2000.0, "N");
-  v.drivetrain_loss_n_per_kmh2 = r.number_or("vehicle.drivetrain_loss_n_per_kmh2", v.drivetrain_loss_n_per_kmh2, 0.0, 0.2, "N/(km/h)²");
-  v.drivetrain_cold_excess = r.number_or("vehicle.drivetrain_cold_excess", v.drivetrain_cold_excess, 0.0, 2.0, "");
-  v.warm_up_time_constant_s = r.number_or("vehicle.warm_up_time_constant_s", v.warm_up_time_constant_s, 1.0, 36000.0, "s");
-  v.cool_down_time_constant_s = r.number_or("vehicle.cool_down_time_constant_s", v.cool_down_time_constant_s, 1.0, 360000.0, "s");
+  v.drivetrain_loss_n_per_kmh2 =
+      r.number_or("vehicle.drivetrain_loss_n_per_kmh2", v.drivetrain_loss_n_per_kmh2, 0.0, 0.2, "N/(km/h)²");
+  v.drivetrain_cold_excess =
+      r.number_or("vehicle.drivetrain_cold_excess", v.drivetrain_cold_excess, 0.0, 2.0, "");
+  v.warm_up_time_constant_s =
+      r.number_or("vehicle.warm_up_time_constant_s", v.warm_up_time_constant_s, 1.0, 36000.0, "s");
+  v.cool_down_time_constant_s =
+      r.number_or("vehicle.cool_down_time_constant_s", v.cool_down_time_constant_s, 1.0, 360000.0, "s");
   v.initial_warmth = r.number_or("vehicle.initial_warmth", v.initial_warmth, 0.0, 1.0, "");
   v.brake_drag_n = r.number_or("vehicle.brake_drag_n", v.brake_drag_n, 0.0, 500.0, "N");
   v.hold_bias_n = r.number_or("vehicle.hold_bias_n", v.hold_bias_n, -100.0, 100.0, "N");
@@ -128,11 +146,15 @@ physics::Truth read_truth(TomlReader& r) {
   d.base_inertia_kg = r.number_or("dyno.base_inertia_kg", d.base_inertia_kg, 50.0, 10000.0, "kg");
   if (r.has("dyno.stated_base_inertia_kg"))
     d.stated_base_inertia_kg = r.number("dyno.stated_base_inertia_kg", 50.0, 10000.0, "kg");
-  d.inertia_simulation_error = r.number_or("dyno.inertia_simulation_error", d.inertia_simulation_error, -0.2, 0.2, "");
+  d.inertia_simulation_error =
+      r.number_or("dyno.inertia_simulation_error", d.inertia_simulation_error, -0.2, 0.2, "");
   d.parasitic_f0_n = r.number_or("dyno.parasitic_f0_n", d.parasitic_f0_n, 0.0, 1000.0, "N");
-  d.parasitic_f1_n_per_kmh = r.number_or("dyno.parasitic_f1_n_per_kmh", d.parasitic_f1_n_per_kmh, -10.0, 10.0, "N/(km/h)");
-  d.parasitic_f2_n_per_kmh2 = r.number_or("dyno.parasitic_f2_n_per_kmh2", d.parasitic_f2_n_per_kmh2, 0.0, 0.1, "N/(km/h)²");
-  d.parasitic_compensation_error = r.number_or("dyno.parasitic_compensation_error", d.parasitic_compensation_error, -1.0, 1.0, "");
+  d.parasitic_f1_n_per_kmh =
+      r.number_or("dyno.parasitic_f1_n_per_kmh", d.parasitic_f1_n_per_kmh, -10.0, 10.0, "N/(km/h)");
+  d.parasitic_f2_n_per_kmh2 =
+      r.number_or("dyno.parasitic_f2_n_per_kmh2", d.parasitic_f2_n_per_kmh2, 0.0, 0.1, "N/(km/h)²");
+  d.parasitic_compensation_error =
+      r.number_or("dyno.parasitic_compensation_error", d.parasitic_compensation_error, -1.0, 1.0, "");
   d.parasitic_excess = r.number_or("dyno.parasitic_excess", d.parasitic_excess, -0.5, 2.0, "");
   d.speed_noise_kmh = r.number_or("dyno.speed_noise_kmh", d.speed_noise_kmh, 0.0, 5.0, "km/h");
   d.force_noise_n = r.number_or("dyno.force_noise_n", d.force_noise_n, 0.0, 500.0, "N");
@@ -159,7 +181,8 @@ core::CheckProfile read_check_profile(TomlReader& r) {
   }
   auto& pa = p.parasitic;
   pa.speeds_kmh = r.numbers("parasitic.speeds_kmh", 5.0, 250.0, "km/h");
-  if (pa.speeds_kmh.size() < 4) r.error("parasitic.speeds_kmh", "needs at least 4 speeds for a quadratic fit");
+  if (pa.speeds_kmh.size() < 4)
+    r.error("parasitic.speeds_kmh", "needs at least 4 speeds for a quadratic fit");
   pa.half_band_kmh = r.number("parasitic.half_band_kmh", 1.0, 20.0, "km/h");
   pa.tolerance_n = r.number("parasitic.tolerance_n", 0.0, 1000.0, "N");
   pa.tolerance_fraction = r.number("parasitic.tolerance_fraction", 0.0, 1.0, "");
@@ -168,13 +191,15 @@ core::CheckProfile read_check_profile(TomlReader& r) {
   c.v_start_mph = r.number("coastdown.start_mph", 10.0, 150.0, "mph");
   c.v_end_mph = r.number("coastdown.end_mph", 2.0, 100.0, "mph");
   c.interval_mph = r.number("coastdown.interval_mph", 1.0, 50.0, "mph");
-  if (c.v_end_mph + c.interval_mph > c.v_start_mph + 1e-9) r.error("coastdown.end_mph", "must be at least one interval below start_mph");
+  if (c.v_end_mph + c.interval_mph > c.v_start_mph + 1e-9)
+    r.error("coastdown.end_mph", "must be at least one interval below start_mph");
   c.tolerance_n = r.number("coastdown.tolerance_n", 0.0, 1000.0, "N");
   c.tolerance_fraction = r.number("coastdown.tolerance_fraction", 0.0, 1.0, "");
   p.coastdown_run_up_margin_mph = r.number("coastdown.run_up_margin_mph", 0.0, 30.0, "mph");
   p.settle_s = r.number("coastdown.settle_s", 0.0, 120.0, "s");
   auto coef = [&](const std::string& t) {
-    return core::RoadLoad{r.number(t + ".f0_n", 0.0, 2000.0, "N"), r.number(t + ".f1_n_per_kmh", -10.0, 20.0, "N/(km/h)"),
+    return core::RoadLoad{r.number(t + ".f0_n", 0.0, 2000.0, "N"),
+                          r.number(t + ".f1_n_per_kmh", -10.0, 20.0, "N/(km/h)"),
                           r.number(t + ".f2_n_per_kmh2", 0.0, 0.5, "N/(km/h)²")};
   };
   p.smallest_inertia_setting = coef("coastdown.smallest_inertia");

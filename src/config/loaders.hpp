@@ -18,12 +18,16 @@ core::VehicleTarget load_target(const std::string& path, core::Problems* warning
 physics::Truth load_truth(const std::string& path, core::Problems* warnings = nullptr);
 // The dyno checks' profile (config/checks/*.toml).
 core::CheckProfile load_check_profile(const std::string& path, core::Problems* warnings = nullptr);
-core::CheckProfile parse_check_profile(const std::string& text, const std::string& name, core::Problems* warnings = nullptr);
+core::CheckProfile parse_check_profile(const std::string& text, const std::string& name,
+                                       core::Problems* warnings = nullptr);
 
 // The same from text in memory (tests, fuzzing); `name` is used as the file name in messages.
-core::Profile parse_profile(const std::string& text, const std::string& name, core::Problems* warnings = nullptr);
-core::VehicleTarget parse_target(const std::string& text, const std::string& name, core::Problems* warnings = nullptr);
-physics::Truth parse_truth(const std::string& text, const std::string& name, core::Problems* warnings = nullptr);
+core::Profile parse_profile(const std::string& text, const std::string& name,
+                            core::Problems* warnings = nullptr);
+core::VehicleTarget parse_target(const std::string& text, const std::string& name,
+                                 core::Problems* warnings = nullptr);
+physics::Truth parse_truth(const std::string& text, const std::string& name,
+                           core::Problems* warnings = nullptr);
 
 // Finds a profile by name in a directory of profiles (name.toml), for a target's `profile = "..."`.
 std::string profile_path(const std::string& profiles_dir, const std::string& name);

@@ -2,7 +2,6 @@
 
 #include <cstdio>
 
-
 namespace loadtrim::config {
 
 namespace {
@@ -18,7 +17,9 @@ std::string num(double v) {
   char b[40];
   std::snprintf(b, sizeof b, "%.17g", v);
   std::string s = b;
-  if (s.find_first_of(".eE") == std::string::npos && s.find("inf") == std::string::npos && s.find("nan") == std::string::npos) s += ".0";
+  if (s.find_first_of(".eE") == std::string::npos && s.find("inf") == std::string::npos &&
+      s.find("nan") == std::string::npos)
+    s += ".0";
   return s;
 }
 }  // namespace
@@ -37,13 +38,16 @@ std::string target_toml(const core::VehicleTarget& v, const std::string& header)
   if (!v.description.empty()) o += "description = " + quoted(v.description) + "\n";
   o += "test_mass_kg = " + num(v.test_mass_kg) + "\n";
   if (v.rotating_mass_kg) o += "rotating_mass_kg = " + num(*v.rotating_mass_kg) + "\n";
-  if (v.mass_in_running_order_kg) o += "mass_in_running_order_kg = " + num(*v.mass_in_running_order_kg) + "\n";
+  if (v.mass_in_running_order_kg)
+    o += "mass_in_running_order_kg = " + num(*v.mass_in_running_order_kg) + "\n";
   o += std::string("drive = \"") + core::to_string(v.drive) + "\"\n";
   if (v.two_wheel_drive_mode) o += "two_wheel_drive_mode = true\n";
   o += "max_speed_kmh = " + num(v.max_speed_kmh) + "\n\n[target]\n";
-  o += "f0_n = " + num(v.target.f0_n) + "\nf1_n_per_kmh = " + num(v.target.f1_n_per_kmh) + "\nf2_n_per_kmh2 = " + num(v.target.f2_n_per_kmh2) + "\n";
+  o += "f0_n = " + num(v.target.f0_n) + "\nf1_n_per_kmh = " + num(v.target.f1_n_per_kmh) +
+       "\nf2_n_per_kmh2 = " + num(v.target.f2_n_per_kmh2) + "\n";
   if (v.initial_set)
-    o += "\n[initial_set]\nf0_n = " + num(v.initial_set->f0_n) + "\nf1_n_per_kmh = " + num(v.initial_set->f1_n_per_kmh) +
+    o += "\n[initial_set]\nf0_n = " + num(v.initial_set->f0_n) +
+         "\nf1_n_per_kmh = " + num(v.initial_set->f1_n_per_kmh) +
          "\nf2_n_per_kmh2 = " + num(v.initial_set->f2_n_per_kmh2) + "\n";
   return o;
 }

@@ -1,4 +1,5 @@
-// Writes a vehicle target file (the format config::load_target reads), e.g. for targets prepared from other forms.
+// Writes a vehicle target file (the format config::load_target reads), e.g. for targets prepared from other
+// forms.
 #pragma once
 
 #include <string>

@@ -31,7 +31,8 @@ TomlReader TomlReader::from_text(std::string_view text, const std::string& name)
     return TomlReader(name, toml::parse(text, name));
   } catch (const toml::parse_error& e) {
     const auto& b = e.source().begin;
-    throw InputError(name, {{Problem::Severity::error, "line " + std::to_string(b.line) + ", column " + std::to_string(b.column),
+    throw InputError(name, {{Problem::Severity::error,
+                             "line " + std::to_string(b.line) + ", column " + std::to_string(b.column),
                              "not valid TOML: " + std::string(e.description())}});
   }
 }
@@ -41,7 +42,9 @@ toml::node_view<const toml::node> TomlReader::lookup(std::string_view key) {
   return std::as_const(root_).at_path(key);
 }
 
-bool TomlReader::has(std::string_view key) const { return static_cast<bool>(root_.at_path(key)); }
+bool TomlReader::has(std::string_view key) const {
+  return static_cast<bool>(root_.at_path(key));
+}
 
 std::string TomlReader::where(std::string_view key, const toml::node* n) const {
   std::string k(key);
@@ -78,13 +81,16 @@ std::string range_text(double lo, double hi, std::string_view unit) {
 }
 }  // namespace
 
-std::optional<double> TomlReader::maybe_number(std::string_view key, double lo, double hi, std::string_view unit) {
+std::optional<double> TomlReader::maybe_number(std::string_view key, double lo, double hi,
+                                               std::string_view unit) {
   const auto v = lookup(key);
   if (!v) return std::nullopt;
   const toml::node* n = v.node();
   double x;
-  if (const auto* f = n->as_floating_point()) x = f->get();
-  else if (const auto* i = n->as_integer()) x = static_cast<double>(i->get());
+  if (const auto* f = n->as_floating_point())
+    x = f->get();
+  else if (const auto* i = n->as_integer())
+    x = static_cast<double>(i->get());
   else {
     error(where(key, n), "must be a number, " + range_text(lo, hi, unit));
     return std::nullopt;
@@ -110,7 +116,8 @@ double TomlReader::number(std::string_view key, double lo, double hi, std::strin
   return maybe_number(key, lo, hi, unit).value_or(std::nan(""));
 }
 
-double TomlReader::number_or(std::string_view key, double fallback, double lo, double hi, std::string_view unit) {
+double TomlReader::number_or(std::string_view key, double fallback, double lo, double hi,
+                             std::string_view unit) {
   if (!has(key)) {
     used_.insert(std::string(key));
     return fallback;
@@ -123,7 +130,8 @@ int TomlReader::integer_or(std::string_view key, int fallback, int lo, int hi) {
   if (!v) return fallback;
   const auto* i = v.node()->as_integer();
   if (!i) {
-    error(where(key, v.node()), "must be a whole number, allowed " + std::to_string(lo) + " to " + std::to_string(hi));
+    error(where(key, v.node()),
+          "must be a whole number, allowed " + std::to_string(lo) + " to " + std::to_string(hi));
     return fallback;
   }
   if (i->get() < lo || i->get() > hi) {
@@ -182,14 +190,18 @@ std::vector<double> TomlReader::numbers(std::string_view key, double lo, double 
   for (std::size_t i = 0; i < arr->size(); ++i) {
     const toml::node& e = *arr->get(i);
     double x;
-    if (const auto* f = e.as_floating_point()) x = f->get();
-    else if (const auto* n = e.as_integer()) x = static_cast<double>(n->get());
+    if (const auto* f = e.as_floating_point())
+      x = f->get();
+    else if (const auto* n = e.as_integer())
+      x = static_cast<double>(n->get());
     else {
-      error(where(std::string(key) + "[" + std::to_string(i) + "]", &e), "must be a number, " + range_text(lo, hi, unit));
+      error(where(std::string(key) + "[" + std::to_string(i) + "]", &e),
+            "must be a number, " + range_text(lo, hi, unit));
       continue;
     }
     if (!std::isfinite(x) || x < lo || x > hi) {
-      error(where(std::string(key) + "[" + std::to_string(i) + "]", &e), "is " + num(x) + ", " + range_text(lo, hi, unit));
+      error(where(std::string(key) + "[" + std::to_string(i) + "]", &e),
+            "is " + num(x) + ", " + range_text(lo, hi, unit));
       continue;
     }
     out.push_back(x);

@@ -2,11 +2,12 @@
 // range) instead of stopping at the first, and a sweep that warns about keys nobody read (likely typos).
 #pragma once
 
+#include <toml++/toml.h>
+
 #include <optional>
 #include <set>
 #include <string>
 #include <string_view>
-#include <toml++/toml.h>
 #include <vector>
 
 #include "core/problem.hpp"
@@ -32,7 +33,8 @@ class TomlReader {
   // A list whose every entry must be one of `allowed`.
   std::vector<std::string> choices(std::string_view key, const std::vector<std::string>& allowed);
   // An enumeration: the value must be one of `allowed`.
-  std::string choice(std::string_view key, const std::vector<std::string>& allowed, std::optional<std::string> fallback = {});
+  std::string choice(std::string_view key, const std::vector<std::string>& allowed,
+                     std::optional<std::string> fallback = {});
 
   void error(std::string_view key, std::string message);
   void warning(std::string_view key, std::string message);

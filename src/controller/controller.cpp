@@ -12,21 +12,30 @@ using core::num;
 
 const char* to_string(Result::Status s) {
   switch (s) {
-    case Result::Status::ok: return "ok";
-    case Result::Status::retryable: return "retryable";
-    case Result::Status::fatal: return "fatal";
+    case Result::Status::ok:
+      return "ok";
+    case Result::Status::retryable:
+      return "retryable";
+    case Result::Status::fatal:
+      return "fatal";
   }
   return "unknown";
 }
 
 const char* to_string(Mode m) {
   switch (m) {
-    case Mode::idle: return "idle";
-    case Mode::speed_hold: return "speed-hold";
-    case Mode::road_load: return "road-load";
-    case Mode::controlled_stop: return "controlled-stop";
-    case Mode::constant_force: return "constant-force";
-    case Mode::free_coast: return "free-coast";
+    case Mode::idle:
+      return "idle";
+    case Mode::speed_hold:
+      return "speed-hold";
+    case Mode::road_load:
+      return "road-load";
+    case Mode::controlled_stop:
+      return "controlled-stop";
+    case Mode::constant_force:
+      return "constant-force";
+    case Mode::free_coast:
+      return "free-coast";
   }
   return "unknown";
 }
@@ -42,10 +51,16 @@ bool ControllerInfo::has(std::string_view c) const {
   return false;
 }
 
-double Controller::wall_s() const { return std::chrono::duration<double>(Clock::now() - t0_).count(); }
+double Controller::wall_s() const {
+  return std::chrono::duration<double>(Clock::now() - t0_).count();
+}
 
-void Controller::lease(std::chrono::milliseconds d) { alive_until_.store((Clock::now() + d).time_since_epoch().count()); }
-bool Controller::lease_valid() const { return Clock::now().time_since_epoch().count() < alive_until_.load(); }
+void Controller::lease(std::chrono::milliseconds d) {
+  alive_until_.store((Clock::now() + d).time_since_epoch().count());
+}
+bool Controller::lease_valid() const {
+  return Clock::now().time_since_epoch().count() < alive_until_.load();
+}
 
 void Controller::set_stopping(bool on) {
   const std::lock_guard<std::recursive_mutex> lock(mu_);
@@ -108,10 +123,12 @@ Result Controller::identify(ControllerInfo& out) {
     out.time_scale = 1.0;
     if (Result r = do_identify(out, reply_deadline()); !r.ok()) return r;
     if (!(std::isfinite(out.time_scale) && out.time_scale >= 1e-3))
-      return Result::fail("the controller states a clock rate of " + num(out.time_scale) + "× real time, not a rate");
+      return Result::fail("the controller states a clock rate of " + num(out.time_scale) +
+                          "× real time, not a rate");
     if (out.time_scale > limits_.max_time_scale)
-      return Result::fail("the controller states that its clock runs " + num(out.time_scale) + "× real time; the cell file allows at most " +
-                          num(limits_.max_time_scale) + "× (controller.max_time_scale: 1 for a real dyno)");
+      return Result::fail("the controller states that its clock runs " + num(out.time_scale) +
+                          "× real time; the cell file allows at most " + num(limits_.max_time_scale) +
+                          "× (controller.max_time_scale: 1 for a real dyno)");
     // A clock stated slower than real time would stretch every wall deadline: never below real time here.
     time_scale_ = std::max(1.0, out.time_scale);
     ClockRules rules = clock_.rules();
@@ -122,15 +139,17 @@ Result Controller::identify(ControllerInfo& out) {
   });
 }
 
-
 Result Controller::set_inertia(double kg) {
   return guarded("set inertia", [&] {
-    if (!(kg > 0.0 && std::isfinite(kg))) return Result::fail("inertia " + num(kg) + " kg is not a positive number");
+    if (!(kg > 0.0 && std::isfinite(kg)))
+      return Result::fail("inertia " + num(kg) + " kg is not a positive number");
     if (Result r = do_write_inertia(kg, reply_deadline()); !r.ok()) return r;
     double back = 0.0;
     if (Result r = do_read_inertia(back, reply_deadline()); !r.ok()) return r;
     auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
-    if (!same(back, kg)) return Result::fail("read-back " + num(back) + " kg differs from the " + num(kg) + " kg written; refusing to go on");
+    if (!same(back, kg))
+      return Result::fail("read-back " + num(back) + " kg differs from the " + num(kg) +
+                          " kg written; refusing to go on");
     return Result::success();
   });
 }
@@ -143,10 +162,11 @@ Result Controller::set_coefficients(const core::RoadLoad& c) {
     core::RoadLoad back;
     if (Result r = do_read_coefficients(back, reply_deadline()); !r.ok()) return r;
     auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
-    if (!same(back.f0_n, c.f0_n) || !same(back.f1_n_per_kmh, c.f1_n_per_kmh) || !same(back.f2_n_per_kmh2, c.f2_n_per_kmh2))
-      return Result::fail("read-back (" + num(back.f0_n) + ", " + num(back.f1_n_per_kmh) + ", " + num(back.f2_n_per_kmh2) +
-                          ") differs from what was written (" + num(c.f0_n) + ", " + num(c.f1_n_per_kmh) + ", " +
-                          num(c.f2_n_per_kmh2) + "); refusing to go on");
+    if (!same(back.f0_n, c.f0_n) || !same(back.f1_n_per_kmh, c.f1_n_per_kmh) ||
+        !same(back.f2_n_per_kmh2, c.f2_n_per_kmh2))
+      return Result::fail("read-back (" + num(back.f0_n) + ", " + num(back.f1_n_per_kmh) + ", " +
+                          num(back.f2_n_per_kmh2) + ") differs from what was written (" + num(c.f0_n) + ", " +
+                          num(c.f1_n_per_kmh) + ", " + num(c.f2_n_per_kmh2) + "); refusing to go on");
     return Result::success();
   });
 }
@@ -161,17 +181,21 @@ Result Controller::read_coefficients(core::RoadLoad& c) {
 Result Controller::hold_speed(double kmh) {
   return guarded("speed hold", [&] {
     if (!(kmh >= 0.0) || !std::isfinite(kmh)) return Result::fail("speed " + num(kmh) + " km/h is not valid");
-    if (!(limits_.max_speed_kmh > 0.0)) return Result::fail("no speed limit configured: refusing to motor the rollers");
+    if (!(limits_.max_speed_kmh > 0.0))
+      return Result::fail("no speed limit configured: refusing to motor the rollers");
     if (kmh > limits_.max_speed_kmh)
-      return Result::fail("speed " + num(kmh) + " km/h is above the limit of " + num(limits_.max_speed_kmh) + " km/h; not sent");
+      return Result::fail("speed " + num(kmh) + " km/h is above the limit of " + num(limits_.max_speed_kmh) +
+                          " km/h; not sent");
     return command_done(do_command(Mode::speed_hold, kmh, reply_deadline()));
   });
 }
 Result Controller::release_road_load() {
-  return guarded("road-load simulation", [&] { return command_done(do_command(Mode::road_load, 0.0, reply_deadline())); });
+  return guarded("road-load simulation",
+                 [&] { return command_done(do_command(Mode::road_load, 0.0, reply_deadline())); });
 }
 Result Controller::controlled_stop() {
-  return guarded("controlled stop", [&] { return command_done(do_command(Mode::controlled_stop, 0.0, reply_deadline())); });
+  return guarded("controlled stop",
+                 [&] { return command_done(do_command(Mode::controlled_stop, 0.0, reply_deadline())); });
 }
 Result Controller::idle() {
   return guarded("idle", [&] { return command_done(do_command(Mode::idle, 0.0, reply_deadline())); });
@@ -179,22 +203,27 @@ Result Controller::idle() {
 Result Controller::apply_force(double n) {
   return guarded("constant force", [&] {
     if (!std::isfinite(n)) return Result::fail("force " + num(n) + " N is not valid");
-    if (!(limits_.max_force_n > 0.0)) return Result::fail("no force limit configured: refusing to motor the rollers");
+    if (!(limits_.max_force_n > 0.0))
+      return Result::fail("no force limit configured: refusing to motor the rollers");
     if (std::abs(n) > limits_.max_force_n)
-      return Result::fail("force " + num(n) + " N is above the limit of " + num(limits_.max_force_n) + " N; not sent");
+      return Result::fail("force " + num(n) + " N is above the limit of " + num(limits_.max_force_n) +
+                          " N; not sent");
     return command_done(do_command(Mode::constant_force, n, reply_deadline()));
   });
 }
 Result Controller::free_coast() {
-  return guarded("free coast", [&] { return command_done(do_command(Mode::free_coast, 0.0, reply_deadline())); });
+  return guarded("free coast",
+                 [&] { return command_done(do_command(Mode::free_coast, 0.0, reply_deadline())); });
 }
 
 Result Controller::start_stream(double rate_hz) {
   return guarded("start stream", [&] {
-    if (!(rate_hz >= 10.0 && rate_hz <= 1000.0)) return Result::fail("rate " + num(rate_hz) + " Hz, allowed 10 to 1000 Hz");
+    if (!(rate_hz >= 10.0 && rate_hz <= 1000.0))
+      return Result::fail("rate " + num(rate_hz) + " Hz, allowed 10 to 1000 Hz");
     Result r = do_stream(rate_hz, reply_deadline());
     if (!r.ok()) return r;
-    // A new stream: what was buffered before it is dropped with the old epoch; its counter and clock start afresh.
+    // A new stream: what was buffered before it is dropped with the old epoch; its counter and clock start
+    // afresh.
     drain_adapter();
     pending_.clear();
     have_index_ = false;
@@ -226,7 +255,8 @@ Result Controller::command_done(Result r) {
 
 void Controller::drain_adapter() {
   std::vector<Sample> raw;
-  // A deadline already passed: only what the adapter has read, no waiting (a polled adapter may take one reading).
+  // A deadline already passed: only what the adapter has read, no waiting (a polled adapter may take one
+  // reading).
   const Result r = do_receive_samples(raw, Clock::now() - std::chrono::milliseconds(1));
   if (!r.ok() && !pending_fault_ && r.status == Result::Status::fatal) pending_fault_ = r;
   ingest(raw, pending_);
@@ -234,8 +264,8 @@ void Controller::drain_adapter() {
 
 namespace {
 std::string describe_sample(const Sample& s) {
-  return "index " + std::to_string(s.index) + ", time " + num(s.time_s) + " s, speed " + num(s.speed_kmh) + " km/h, force " +
-         num(s.force_n) + " N";
+  return "index " + std::to_string(s.index) + ", time " + num(s.time_s) + " s, speed " + num(s.speed_kmh) +
+         " km/h, force " + num(s.force_n) + " N";
 }
 }  // namespace
 
@@ -253,30 +283,37 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
   const double w = wall_s();
   for (auto& s : raw) {
     // Exact repeats (a controller or a link that sends a line twice) are harmless: dropped and counted.
-    if (have_index_ && s.index == last_sample_.index && s.time_s == last_sample_.time_s && s.speed_kmh == last_sample_.speed_kmh &&
-        s.force_n == last_sample_.force_n && s.flags == last_sample_.flags) {
+    if (have_index_ && s.index == last_sample_.index && s.time_s == last_sample_.time_s &&
+        s.speed_kmh == last_sample_.speed_kmh && s.force_n == last_sample_.force_n &&
+        s.flags == last_sample_.flags) {
       ++stats_.samples_duplicate;
       continue;
     }
     std::string bad;
-    if (!std::isfinite(s.time_s) || !std::isfinite(s.speed_kmh) || !std::isfinite(s.force_n)) bad = "a value is not a finite number";
-    else if (s.speed_kmh < -2.0) bad = "negative speed";
-    else if (std::abs(s.force_n) > 1e6) bad = "force beyond any dyno";
-    else if (have_index_ && s.index < next_index_) bad = "the sample counter ran backwards (expected " + std::to_string(next_index_) + ")";
+    if (!std::isfinite(s.time_s) || !std::isfinite(s.speed_kmh) || !std::isfinite(s.force_n))
+      bad = "a value is not a finite number";
+    else if (s.speed_kmh < -2.0)
+      bad = "negative speed";
+    else if (std::abs(s.force_n) > 1e6)
+      bad = "force beyond any dyno";
+    else if (have_index_ && s.index < next_index_)
+      bad = "the sample counter ran backwards (expected " + std::to_string(next_index_) + ")";
     if (!bad.empty()) {
       ++stats_.samples_malformed;
       ++recent_malformed_;
       ++malformed_run_;
       stats_.last_malformed = bad + " (" + describe_sample(s) + ")";
       if (!pending_fault_ && !stopping_ && (malformed_run_ > 20 || (recent_malformed_ > 50)))
-        pending_fault_ = Result::fail("the controller sends malformed samples: " + std::to_string(stats_.samples_malformed) +
-                                      " dropped so far (last: " + stats_.last_malformed + ")");
+        pending_fault_ = Result::fail(
+            "the controller sends malformed samples: " + std::to_string(stats_.samples_malformed) +
+            " dropped so far (last: " + stats_.last_malformed + ")");
       continue;
     }
     malformed_run_ = 0;
     if (++recent_valid_ + recent_malformed_ >= 500) recent_valid_ = recent_malformed_ = 0;
     if (!stopping_)
-      if (auto v = clock_.on_sample(s.time_s, w, have_index_ ? s.index - last_sample_.index : 0); v && !pending_fault_)
+      if (auto v = clock_.on_sample(s.time_s, w, have_index_ ? s.index - last_sample_.index : 0);
+          v && !pending_fault_)
         pending_fault_ = Result::fail(*v);
     if (have_index_ && s.index != next_index_) stats_.samples_lost += s.index - next_index_;
     next_index_ = s.index + 1;
@@ -292,9 +329,11 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
 Result Controller::receive_samples(std::vector<Sample>& out) {
   return guarded("receive samples", [&] {
     if (pending_fault_ && !stopping_) return *pending_fault_;
-    // A heartbeat that fails here is usually a controller that fell silent: say what was missing on both counts.
+    // A heartbeat that fails here is usually a controller that fell silent: say what was missing on both
+    // counts.
     auto silent = [&](Result r) {
-      const auto quiet = std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - last_sample_wall_).count();
+      const auto quiet =
+          std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - last_sample_wall_).count();
       if (r.status == Result::Status::retryable && quiet >= timeouts_.sample_gap.count() / 2)
         r.message = "no sample for " + std::to_string(quiet) + " ms and " + r.message;
       return r;
@@ -304,7 +343,8 @@ Result Controller::receive_samples(std::vector<Sample>& out) {
     out.insert(out.end(), pending_.begin(), pending_.end());
     pending_.clear();
     const std::uint64_t rejected_before = stats_.lines_rejected, malformed_before = stats_.samples_malformed;
-    // Wait in slices no longer than the heartbeat interval so heartbeats keep going while samples are awaited.
+    // Wait in slices no longer than the heartbeat interval so heartbeats keep going while samples are
+    // awaited.
     const Deadline gap = Clock::now() + timeouts_.sample_gap;
     std::vector<Sample> raw;
     while (out.size() == before) {
@@ -315,11 +355,13 @@ Result Controller::receive_samples(std::vector<Sample>& out) {
       if (pending_fault_ && !stopping_) return *pending_fault_;
       if (out.size() > before) break;
       if (Clock::now() >= gap) {
-        std::string why = "no sample for " + std::to_string(timeouts_.sample_gap.count()) + " ms (stalled stream or lost link";
+        std::string why = "no sample for " + std::to_string(timeouts_.sample_gap.count()) +
+                          " ms (stalled stream or lost link";
         if (const auto n = stats_.lines_rejected - rejected_before; n > 0)
           why += "; " + std::to_string(n) + " lines rejected meanwhile, last: " + stats_.last_rejected;
         if (const auto n = stats_.samples_malformed - malformed_before; n > 0)
-          why += "; " + std::to_string(n) + " malformed samples dropped meanwhile, last: " + stats_.last_malformed;
+          why += "; " + std::to_string(n) +
+                 " malformed samples dropped meanwhile, last: " + stats_.last_malformed;
         return Result::retry(why + ")");
       }
       if (Result r = heartbeat_if_due(); !r.ok()) return silent(r);
@@ -347,8 +389,8 @@ Result Controller::heartbeat_if_due() {
 }
 
 void Controller::heartbeat_if_due_and_free() {
-  // Only while the driving thread is alive and within its announced steps: a stalled tool must let the controller's
-  // watchdog stop the rollers.
+  // Only while the driving thread is alive and within its announced steps: a stalled tool must let the
+  // controller's watchdog stop the rollers.
   if (!lease_valid()) return;
   const std::unique_lock<std::recursive_mutex> lock(mu_, std::try_to_lock);
   if (lock.owns_lock()) heartbeat_if_due();  // a failure shows on the driving thread's next call
@@ -384,7 +426,8 @@ Result Controller::status(StatusReport& out) {
   return guarded("status", [&] {
     if (Result r = do_status(out, reply_deadline()); !r.ok()) return r;
     if (!std::isfinite(out.speed_kmh) || out.speed_kmh < -2.0)
-      return Result::fail("the controller's status reports a speed of " + num(out.speed_kmh) + " km/h, not a speed");
+      return Result::fail("the controller's status reports a speed of " + num(out.speed_kmh) +
+                          " km/h, not a speed");
     if (!stopping_)
       if (auto v = clock_.on_status(out.time_s, wall_s())) return Result::fail(*v);
     return Result::success();

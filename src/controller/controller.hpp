@@ -3,20 +3,20 @@
 // configuration, the cell's limits, read-back checks, heartbeat scheduling and link statistics, and turn
 // anything an adapter throws into a fatal status.
 //
-// Threading: one thread drives a Controller; calls block for at most their deadline. A KeepAlive (below) may feed
-// the watchdog from a second thread: every public call holds the controller's lock, and the keep-alive only takes
-// it when it is free, so it never delays the driving thread and never interleaves with a call.
+// Threading: one thread drives a Controller; calls block for at most their deadline. A KeepAlive (below) may
+// feed the watchdog from a second thread: every public call holds the controller's lock, and the keep-alive
+// only takes it when it is free, so it never delays the driving thread and never interleaves with a call.
 // Time: every sample carries the controller's own timestamp; callers time the test from those. The host clock
-// (steady_clock) bounds every call, checks the controller's clock (clock_guard.hpp) and leases the keep-alive.
-// Nothing the controller sends is believed unchecked: samples with non-finite or impossible values, or a sample
-// counter that runs backwards, are dropped and counted (too many is a fault); exact repeats are dropped; fault
-// events end the next receive with a fatal status; the event queue is bounded.
+// (steady_clock) bounds every call, checks the controller's clock (clock_guard.hpp) and leases the
+// keep-alive. Nothing the controller sends is believed unchecked: samples with non-finite or impossible
+// values, or a sample counter that runs backwards, are dropped and counted (too many is a fault); exact
+// repeats are dropped; fault events end the next receive with a fatal status; the event queue is bounded.
 #pragma once
 
 #include <algorithm>
+#include <atomic>
 #include <chrono>
 #include <cmath>
-#include <atomic>
 #include <condition_variable>
 #include <cstdint>
 #include <mutex>
@@ -48,8 +48,9 @@ struct Result {
 const char* to_string(Result::Status s);
 
 // free_coast is a command only (motor off at speed, no simulation: the rollers coast on their own inertia and
-// losses); the controller reports idle while they do. constant_force: the motor applies a set force, parasitic
-// compensation on, no inertia or road-load simulation. Both serve the dyno's own checks with no vehicle.
+// losses); the controller reports idle while they do. constant_force: the motor applies a set force,
+// parasitic compensation on, no inertia or road-load simulation. Both serve the dyno's own checks with no
+// vehicle.
 enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop, constant_force, free_coast };
 const char* to_string(Mode m);
 
@@ -68,7 +69,7 @@ struct ControllerInfo {
   double base_inertia_kg = 0.0;
   double max_speed_kmh = 0.0;
   double max_force_n = 0.0;
-  double time_scale = 1.0;   // controller seconds per wall second (1 for hardware; a simulator may run faster)
+  double time_scale = 1.0;  // controller seconds per wall second (1 for hardware; a simulator may run faster)
   bool has(std::string_view capability) const;
 };
 
@@ -79,9 +80,10 @@ struct Sample {
   double force_n = 0.0;
   Mode mode = Mode::idle;
   std::uint32_t flags = 0;
-  // Set by the public layer: how many commands the controller had acknowledged when this sample was read off the
-  // link. A step waits only for samples with epoch ≥ the epoch its command returned (samples buffered before the
-  // acknowledgement belong to the phase before), without trusting the controller's timestamps for that.
+  // Set by the public layer: how many commands the controller had acknowledged when this sample was read off
+  // the link. A step waits only for samples with epoch ≥ the epoch its command returned (samples buffered
+  // before the acknowledgement belong to the phase before), without trusting the controller's timestamps for
+  // that.
   std::uint64_t epoch = 0;
 };
 
@@ -96,32 +98,34 @@ struct StatusReport {
 struct Timeouts {
   std::chrono::milliseconds connect{3000};
   std::chrono::milliseconds reply{1000};
-  std::chrono::milliseconds sample_gap{1000};          // no sample for this long while streaming = link trouble
+  std::chrono::milliseconds sample_gap{1000};  // no sample for this long while streaming = link trouble
   std::chrono::milliseconds heartbeat_interval{200};
-  // The keep-alive feeds the watchdog only while the driving thread has called within this, or within a longer
-  // lease it took for a known slow step (Controller::lease): a stalled tool lets the controller's watchdog trip.
+  // The keep-alive feeds the watchdog only while the driving thread has called within this, or within a
+  // longer lease it took for a known slow step (Controller::lease): a stalled tool lets the controller's
+  // watchdog trip.
   std::chrono::milliseconds progress_grace{2000};
 };
 
 struct Limits {
   double max_speed_kmh = 0.0;  // never command more (the cell's and the vehicle's, whichever is lower)
   double max_force_n = 0.0;    // never command a constant force of more (the cell's limit)
-  double max_time_scale = 1.0; // a controller stating a faster clock is refused at identify (simulators only)
+  double max_time_scale =
+      1.0;  // a controller stating a faster clock is refused at identify (simulators only)
   bool clock_wall_related = true;  // false only for a controller simulated inside the tool's process
 };
 
 struct LinkStats {
-  std::uint64_t lines_rejected = 0;   // corrupted or malformed lines received and dropped
-  std::uint64_t lines_lost = 0;       // gaps in the controller's line sequence
-  std::uint64_t samples_lost = 0;     // gaps in the sample index
+  std::uint64_t lines_rejected = 0;  // corrupted or malformed lines received and dropped
+  std::uint64_t lines_lost = 0;      // gaps in the controller's line sequence
+  std::uint64_t samples_lost = 0;    // gaps in the sample index
   std::uint64_t samples_received = 0;
   std::uint64_t heartbeats = 0;
-  std::string last_rejected;          // what the last rejection was
+  std::string last_rejected;            // what the last rejection was
   std::uint64_t samples_malformed = 0;  // dropped: non-finite or impossible values, counter running backwards
   std::uint64_t samples_duplicate = 0;  // dropped: exact repeats of a sample already received
   std::string last_malformed;
-  std::uint64_t events = 0;             // EVT lines (or their equivalent) received
-  std::uint64_t events_dropped = 0;     // beyond the bounded queue
+  std::uint64_t events = 0;          // EVT lines (or their equivalent) received
+  std::uint64_t events_dropped = 0;  // beyond the bounded queue
   std::string last_event;
 };
 
@@ -151,12 +155,12 @@ class Controller {
   Result start_stream(double rate_hz);  // 10 to 1000 Hz
   Result stop_stream();
   // Appends the samples that have arrived, waiting up to the sample-gap deadline for at least one. Sends a
-  // heartbeat when one is due. A gap in the sample index is counted in stats().samples_lost. Fatal: a fault event,
-  // a clock violation (clock_guard.hpp), or malformed samples beyond the bound (more than 20 in a row, or more
-  // than 50 of the last 500). Retryable: no valid sample within the sample gap (the message counts the lines
-  // rejected meanwhile and names the last).
+  // heartbeat when one is due. A gap in the sample index is counted in stats().samples_lost. Fatal: a fault
+  // event, a clock violation (clock_guard.hpp), or malformed samples beyond the bound (more than 20 in a row,
+  // or more than 50 of the last 500). Retryable: no valid sample within the sample gap (the message counts
+  // the lines rejected meanwhile and names the last).
   Result receive_samples(std::vector<Sample>& out);
-  Result heartbeat();                    // sends one now
+  Result heartbeat();  // sends one now
   Result heartbeat_if_due();
   // For KeepAlive: a heartbeat if one is due and no call is in progress (then the call sends its own).
   void heartbeat_if_due_and_free();
@@ -169,14 +173,15 @@ class Controller {
   std::uint64_t clear_epoch() const;
   // The controller's stated clock rate, as accepted at identify (1 before).
   double time_scale() const;
-  // The driving thread announces a step that may keep it from calling for up to `d` (a durable record write, an
-  // analysis): the keep-alive goes on feeding the watchdog until then. Every public call renews the lease by
-  // timeouts().progress_grace; heartbeats do not.
+  // The driving thread announces a step that may keep it from calling for up to `d` (a durable record write,
+  // an analysis): the keep-alive goes on feeding the watchdog until then. Every public call renews the lease
+  // by timeouts().progress_grace; heartbeats do not.
   void lease(std::chrono::milliseconds d);
   bool lease_valid() const;
-  // While the rollers are being brought to a stop, what is wanted from the controller is its speed and mode: a
-  // fault it reported earlier (already acted on) and its clock's misbehaviour are counted but no longer end a call,
-  // so the stop can still be confirmed. The caller bounds the stop in wall time (motion::Motion::stop_and_wait).
+  // While the rollers are being brought to a stop, what is wanted from the controller is its speed and mode:
+  // a fault it reported earlier (already acted on) and its clock's misbehaviour are counted but no longer end
+  // a call, so the stop can still be confirmed. The caller bounds the stop in wall time
+  // (motion::Motion::stop_and_wait).
   void set_stopping(bool on);
   // Whether the adapter streams samples at the rate asked (true) or polls at a rate of its own.
   bool streams() const { return streamed(); }
@@ -203,8 +208,8 @@ class Controller {
   virtual void do_take_events(std::vector<std::string>&) {}
   // Whether samples are streamed by the controller at the rate asked (checked), or polled by the adapter.
   virtual bool streamed() const { return true; }
-  // A stream was started: samples arrive at about this many per wall second (the rate asked × the controller's
-  // clock rate). Adapters that queue samples size their bounds from it.
+  // A stream was started: samples arrive at about this many per wall second (the rate asked × the
+  // controller's clock rate). Adapters that queue samples size their bounds from it.
   virtual void on_stream_rate(double /*samples_per_wall_s*/) {}
 
   // How far a read-back may differ from what was written: the register's resolution (e.g. float32 in Modbus).
@@ -233,7 +238,7 @@ class Controller {
   Sample last_sample_{};
   Clock::time_point last_sample_wall_ = Clock::now();
   std::uint64_t epoch_ = 0, clear_epoch_ = 0;
-  std::vector<Sample> pending_;   // read before the last acknowledgement, not yet handed out
+  std::vector<Sample> pending_;  // read before the last acknowledgement, not yet handed out
   std::optional<Result> pending_fault_;
   bool pending_fault_is_event_ = false;
   ClockGuard clock_;
@@ -244,9 +249,9 @@ class Controller {
   std::uint64_t recent_valid_ = 0, recent_malformed_ = 0;
 };
 
-// Feeds the controller's watchdog from a thread of its own for as long as it lives, so that a slow disk, a large
-// trace being hashed and written, or report rendering on the driving thread never lets the heartbeat lapse while
-// the rollers turn. Destroy it before the controller.
+// Feeds the controller's watchdog from a thread of its own for as long as it lives, so that a slow disk, a
+// large trace being hashed and written, or report rendering on the driving thread never lets the heartbeat
+// lapse while the rollers turn. Destroy it before the controller.
 class KeepAlive {
  public:
   explicit KeepAlive(Controller& c);

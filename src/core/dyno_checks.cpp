@@ -15,7 +15,8 @@ double inertia_from_constant_force_kg(double mean_force_n, double delta_t_s, dou
   return mean_force_n * delta_t_s / delta_v_mps;
 }
 
-InertiaCheck check_base_inertia(TraceView rising, std::span<const double> force_n, double stated_kg, const InertiaCheckOptions& o) {
+InertiaCheck check_base_inertia(TraceView rising, std::span<const double> force_n, double stated_kg,
+                                const InertiaCheckOptions& o) {
   InertiaCheck r;
   r.stated_kg = stated_kg;
   if (force_n.size() != rising.size() || rising.size() < 10) {
@@ -29,8 +30,8 @@ InertiaCheck check_base_inertia(TraceView rising, std::span<const double> force_
   const double lo_kmh = u::mph_to_kmh(o.v_low_mph), hi_kmh = u::mph_to_kmh(o.v_high_mph);
   const Crossing c_lo = a.crossing(-lo_kmh), c_hi = a.crossing(-hi_kmh);
   if (c_lo.status != BandStatus::ok || c_hi.status != BandStatus::ok) {
-    r.message = "speed " + num(o.v_low_mph) + " or " + num(o.v_high_mph) + " mph not crossed cleanly: " +
-                (c_lo.status != BandStatus::ok ? c_lo.reason : c_hi.reason);
+    r.message = "speed " + num(o.v_low_mph) + " or " + num(o.v_high_mph) +
+                " mph not crossed cleanly: " + (c_lo.status != BandStatus::ok ? c_lo.reason : c_hi.reason);
     return r;
   }
   r.t_low_s = c_lo.time_s;
@@ -53,14 +54,17 @@ InertiaCheck check_base_inertia(TraceView rising, std::span<const double> force_
   r.error_fraction = (r.inertia_kg - stated_kg) / stated_kg;
   r.ok = true;
   r.passed = std::abs(r.error_fraction) <= o.tolerance_fraction;
-  r.verdict = std::string(r.passed ? "pass" : "FAIL") + ": base inertia measured " + num(r.inertia_kg, 1) + " kg against " +
-              num(stated_kg, 1) + " kg stated (" + (r.error_fraction >= 0 ? "+" : "") + num(100.0 * r.error_fraction, 2) +
-              " %, limit ±" + num(100.0 * o.tolerance_fraction, 2) + " %)" +
-              (r.passed ? ""
-                          : r.error_fraction > 0 ? ": more inertia turns than the cell states (every simulated inertia is off by it), or losses the "
-                                                   "compensation misses slow the run (a passing parasitic determination rules that out)"
-                                                 : ": less inertia turns than the cell states (every simulated inertia is off by it), or the "
-                                                   "compensation over-corrects the losses");
+  r.verdict =
+      std::string(r.passed ? "pass" : "FAIL") + ": base inertia measured " + num(r.inertia_kg, 1) +
+      " kg against " + num(stated_kg, 1) + " kg stated (" + (r.error_fraction >= 0 ? "+" : "") +
+      num(100.0 * r.error_fraction, 2) + " %, limit ±" + num(100.0 * o.tolerance_fraction, 2) + " %)" +
+      (r.passed ? ""
+       : r.error_fraction > 0
+           ? ": more inertia turns than the cell states (every simulated inertia is off by it), or losses "
+             "the "
+             "compensation misses slow the run (a passing parasitic determination rules that out)"
+           : ": less inertia turns than the cell states (every simulated inertia is off by it), or the "
+             "compensation over-corrects the losses");
   return r;
 }
 
@@ -87,7 +91,9 @@ UnloadedCoastdown check_unloaded_coastdown(TraceView coast, double inertia_kg, c
     const Crossing ch = a.crossing(hi), cl = a.crossing(lo);
     const auto expected = coastdown_time_s(setting, inertia_kg, hi, lo);
     if (ch.status != BandStatus::ok || cl.status != BandStatus::ok || !expected) {
-      r.reason = ch.status != BandStatus::ok ? ch.reason : cl.status != BandStatus::ok ? cl.reason : "the setting is not positive on the interval";
+      r.reason = ch.status != BandStatus::ok   ? ch.reason
+                 : cl.status != BandStatus::ok ? cl.reason
+                                               : "the setting is not positive on the interval";
       all = false;
       out.intervals.push_back(r);
       continue;
@@ -121,16 +127,19 @@ UnloadedCoastdown check_unloaded_coastdown(TraceView coast, double inertia_kg, c
   } else if (n < static_cast<int>(out.intervals.size())) {
     out.verdict = "FAIL: not every interval was measured (coast incomplete) at " + num(inertia_kg, 0) + " kg";
   } else {
-    out.verdict = "FAIL at " + num(inertia_kg, 0) + " kg: mean force " + (mean_dev > 0 ? "above" : "below") + " the setting by " +
-                  num(100.0 * std::abs(mean_dev), 1) + " % on average, worst near " + num(worst_speed, 0) + " mph (" +
-                  (mean_dev > 0 ? "parasitic loss not compensated, or less inertia turning than set"
-                                : "more inertia turning than set (base inertia?), or losses over-compensated") + ")";
+    out.verdict =
+        "FAIL at " + num(inertia_kg, 0) + " kg: mean force " + (mean_dev > 0 ? "above" : "below") +
+        " the setting by " + num(100.0 * std::abs(mean_dev), 1) + " % on average, worst near " +
+        num(worst_speed, 0) + " mph (" +
+        (mean_dev > 0 ? "parasitic loss not compensated, or less inertia turning than set"
+                      : "more inertia turning than set (base inertia?), or losses over-compensated") +
+        ")";
   }
   return out;
 }
 
-ParasiticDetermination determine_parasitic(TraceView coast, double base_inertia_kg, const std::optional<RoadLoad>& stored,
-                                           const ParasiticOptions& o) {
+ParasiticDetermination determine_parasitic(TraceView coast, double base_inertia_kg,
+                                           const std::optional<RoadLoad>& stored, const ParasiticOptions& o) {
   ParasiticDetermination d;
   d.bands = analyse_bands(coast, o.speeds_kmh, o.half_band_kmh, base_inertia_kg);
   std::vector<double> v, f;
@@ -174,19 +183,25 @@ ParasiticDetermination determine_parasitic(TraceView coast, double base_inertia_
   d.mean_ratio = ratio / static_cast<double>(o.speeds_kmh.size());
   d.passed = all;
   const double pct = 100.0 * (d.mean_ratio - 1.0);
-  d.verdict = std::string(all ? "pass" : "FAIL") + ": parasitic loss " + (pct >= 0 ? "+" : "") + num(pct, 1) +
-              " % against the stored curve on average" +
-              (all ? "" : pct > 0 ? ": the rollers lose more than stored (bearings, windage, a dragging brake or belt?)"
-                                  : ": the rollers lose less than stored (a changed or mis-stored curve?)");
+  d.verdict =
+      std::string(all ? "pass" : "FAIL") + ": parasitic loss " + (pct >= 0 ? "+" : "") + num(pct, 1) +
+      " % against the stored curve on average" +
+      (all       ? ""
+       : pct > 0 ? ": the rollers lose more than stored (bearings, windage, a dragging brake or belt?)"
+                 : ": the rollers lose less than stored (a changed or mis-stored curve?)");
   return d;
 }
 
 const char* to_string(CheckKind k) {
   switch (k) {
-    case CheckKind::parasitic: return "parasitic";
-    case CheckKind::coastdown: return "coastdown";
-    case CheckKind::readiness: return "readiness";
-    case CheckKind::inertia: return "inertia";
+    case CheckKind::parasitic:
+      return "parasitic";
+    case CheckKind::coastdown:
+      return "coastdown";
+    case CheckKind::readiness:
+      return "readiness";
+    case CheckKind::inertia:
+      return "inertia";
   }
   return "unknown";
 }
@@ -202,12 +217,18 @@ bool parse(const std::string& s, CheckKind& out) {
 
 const char* to_string(DueState s) {
   switch (s) {
-    case DueState::current: return "current";
-    case DueState::due_never_done: return "due (never passed)";
-    case DueState::overdue: return "overdue";
-    case DueState::failed: return "failed (last run)";
-    case DueState::after_maintenance: return "due after maintenance";
-    case DueState::after_failed_check: return "due after a failed check";
+    case DueState::current:
+      return "current";
+    case DueState::due_never_done:
+      return "due (never passed)";
+    case DueState::overdue:
+      return "overdue";
+    case DueState::failed:
+      return "failed (last run)";
+    case DueState::after_maintenance:
+      return "due after maintenance";
+    case DueState::after_failed_check:
+      return "due after a failed check";
   }
   return "unknown";
 }
@@ -215,7 +236,8 @@ const char* to_string(DueState s) {
 std::vector<DueItem> due_checks(std::span<const CheckRecord> history, double now, const DuePolicy& p,
                                 std::optional<double> maintenance_utc_s) {
   std::vector<CheckRecord> h(history.begin(), history.end());
-  std::stable_sort(h.begin(), h.end(), [](const CheckRecord& a, const CheckRecord& b) { return a.utc_s < b.utc_s; });
+  std::stable_sort(h.begin(), h.end(),
+                   [](const CheckRecord& a, const CheckRecord& b) { return a.utc_s < b.utc_s; });
   // The latest failure of any check: the parasitic determination is due after it (1066.215) unless a passing
   // determination came later.
   std::optional<double> last_failure;
@@ -233,8 +255,10 @@ std::vector<DueItem> due_checks(std::span<const CheckRecord> history, double now
         if (r.passed) last_pass = r.utc_s;
       }
     it.last_pass_utc_s = last_pass;
-    const double interval = k == CheckKind::coastdown ? p.coastdown_interval_s : k == CheckKind::readiness ? p.readiness_interval_s
-                          : k == CheckKind::inertia   ? p.inertia_interval_s  : p.parasitic_interval_s;
+    const double interval = k == CheckKind::coastdown   ? p.coastdown_interval_s
+                            : k == CheckKind::readiness ? p.readiness_interval_s
+                            : k == CheckKind::inertia   ? p.inertia_interval_s
+                                                        : p.parasitic_interval_s;
     if (latest_passed && !*latest_passed) {
       it.state = DueState::failed;
       it.why = "the latest run failed: repeat it after finding the cause";
@@ -245,7 +269,8 @@ std::vector<DueItem> due_checks(std::span<const CheckRecord> history, double now
       it.state = DueState::overdue;
       it.valid_until_utc_s = *last_pass + interval;
       it.why = "last passed more than " + num(interval / 86400.0, 0) + " day(s) ago";
-    } else if ((k == CheckKind::parasitic || k == CheckKind::inertia) && maintenance_utc_s && *maintenance_utc_s > *last_pass) {
+    } else if ((k == CheckKind::parasitic || k == CheckKind::inertia) && maintenance_utc_s &&
+               *maintenance_utc_s > *last_pass) {
       it.state = DueState::after_maintenance;
       it.why = "major maintenance was logged after the last passing run";
     } else if (k == CheckKind::parasitic && last_failure && *last_failure > *last_pass) {

@@ -1,7 +1,7 @@
 // The dyno's own checks, with no vehicle on the rollers (domain.md §4), as pure computations on traces and
-// records: the parasitic loss curve from a coast of the empty rollers with simulation off, the unloaded coast-down
-// in the shape of 40 CFR 1066.270, the base inertia in the shape of 40 CFR 1066.250, and which check is due per
-// the intervals of 40 CFR 1066.215. No I/O, no clocks: times come in as numbers.
+// records: the parasitic loss curve from a coast of the empty rollers with simulation off, the unloaded
+// coast-down in the shape of 40 CFR 1066.270, the base inertia in the shape of 40 CFR 1066.250, and which
+// check is due per the intervals of 40 CFR 1066.215. No I/O, no clocks: times come in as numbers.
 #pragma once
 
 #include <optional>
@@ -20,31 +20,32 @@ namespace loadtrim::core {
 double inertia_from_constant_force_kg(double mean_force_n, double delta_t_s, double delta_v_mps);
 
 struct InertiaCheckOptions {
-  double v_low_mph = 10.0;    // CFR 1066.250 [text]: time from 10 to 40 mph
+  double v_low_mph = 10.0;  // CFR 1066.250 [text]: time from 10 to 40 mph
   double v_high_mph = 40.0;
   double tolerance_fraction = 0.01;  // the numeric limit is not in domain.md: configurable, default no source
 };
 
-// An accelerating trace (speed rising) with the load-cell force: crossing times at the two speeds (local fits, as
-// for coast-downs), the mean force between them, the inertia, and its error against the stated base inertia.
+// An accelerating trace (speed rising) with the load-cell force: crossing times at the two speeds (local
+// fits, as for coast-downs), the mean force between them, the inertia, and its error against the stated base
+// inertia.
 struct InertiaCheck {
-  bool ok = false;          // computed (not: passed)
-  std::string message;      // why not computed
+  bool ok = false;      // computed (not: passed)
+  std::string message;  // why not computed
   double t_low_s = 0.0, t_high_s = 0.0, delta_t_s = 0.0, delta_v_mps = 0.0, mean_force_n = 0.0;
   double inertia_kg = 0.0, stated_kg = 0.0, error_fraction = 0.0;
   bool passed = false;
-  std::string verdict;      // one line naming the finding
+  std::string verdict;  // one line naming the finding
 };
-InertiaCheck check_base_inertia(TraceView rising, std::span<const double> force_n, double stated_base_inertia_kg,
-                                const InertiaCheckOptions& o = {});
+InertiaCheck check_base_inertia(TraceView rising, std::span<const double> force_n,
+                                double stated_base_inertia_kg, const InertiaCheckOptions& o = {});
 
 // --- 1066.270: unloaded coast-down ------------------------------------------------------------------------
 struct UnloadedCoastdownOptions {
-  double v_start_mph = 80.0;     // CFR 1066.270 [text]: 80 → 10 mph in 10 mph intervals
+  double v_start_mph = 80.0;  // CFR 1066.270 [text]: 80 → 10 mph in 10 mph intervals
   double v_end_mph = 10.0;
   double interval_mph = 10.0;
-  double tolerance_n = 9.8;      // not in domain.md: configurable. Default = the 1066.210 force resolution floor
-                                 // (±9.8 N), used here as an assumption, not as the standard's limit.
+  double tolerance_n = 9.8;  // not in domain.md: configurable. Default = the 1066.210 force resolution floor
+                             // (±9.8 N), used here as an assumption, not as the standard's limit.
   double tolerance_fraction = 0.02;  // and the larger of this share of the expected force (no source)
 };
 
@@ -55,7 +56,7 @@ struct IntervalResult {
   double expected_force_n = 0.0;  // I·Δv/Δt from the closed-form time under the setting (domain.md §6.4)
   double deviation_n = 0.0, limit_n = 0.0;
   bool passed = false;
-  std::string reason;             // when not measured
+  std::string reason;  // when not measured
 };
 struct UnloadedCoastdown {
   bool passed = false;
@@ -93,14 +94,16 @@ struct ParasiticDetermination {
   std::string verdict;
 };
 // A coast of the empty rollers with simulation off: base_inertia·dv/dt = −P(v).
-ParasiticDetermination determine_parasitic(TraceView coast, double base_inertia_kg, const std::optional<RoadLoad>& stored,
+ParasiticDetermination determine_parasitic(TraceView coast, double base_inertia_kg,
+                                           const std::optional<RoadLoad>& stored,
                                            const ParasiticOptions& o = {});
 
 // --- 1066.215: which check is due -------------------------------------------------------------------------
 enum class CheckKind { parasitic, coastdown, readiness, inertia };
 const char* to_string(CheckKind k);
 bool parse(const std::string& s, CheckKind& out);
-inline constexpr CheckKind kAllChecks[] = {CheckKind::parasitic, CheckKind::coastdown, CheckKind::readiness, CheckKind::inertia};
+inline constexpr CheckKind kAllChecks[] = {CheckKind::parasitic, CheckKind::coastdown, CheckKind::readiness,
+                                           CheckKind::inertia};
 
 struct CheckRecord {
   CheckKind kind = CheckKind::coastdown;
@@ -110,10 +113,10 @@ struct CheckRecord {
 struct DuePolicy {
   double coastdown_interval_s = 7 * 86400.0;  // CFR 1066.215 [text]: unloaded coast-down within every 7 days
   double readiness_interval_s = 1 * 86400.0;  // CFR 1066.215 [text]: daily readiness check within 1 day
-  double inertia_interval_s = 0.0;            // 0: at installation, after maintenance and after a failed check only
-                                              // (the interval is not in domain.md)
-  double parasitic_interval_s = 0.0;          // CFR 1066.215 [text]: at installation, after major maintenance and
-                                              // after a failed check
+  double inertia_interval_s = 0.0;    // 0: at installation, after maintenance and after a failed check only
+                                      // (the interval is not in domain.md)
+  double parasitic_interval_s = 0.0;  // CFR 1066.215 [text]: at installation, after major maintenance and
+                                      // after a failed check
 };
 enum class DueState { current, due_never_done, overdue, failed, after_maintenance, after_failed_check };
 const char* to_string(DueState s);
@@ -126,20 +129,23 @@ struct DueItem {
   bool due() const { return state != DueState::current; }
 };
 // `maintenance_utc_s`: when major maintenance was last logged (parasitic and inertia become due after it).
-// A check done at t with interval T is current for now − t ≤ T and overdue after; a failed latest run makes the
-// check due again, and makes the parasitic determination due (1066.215) until a later passing one.
-std::vector<DueItem> due_checks(std::span<const CheckRecord> history, double now_utc_s, const DuePolicy& policy,
+// A check done at t with interval T is current for now − t ≤ T and overdue after; a failed latest run makes
+// the check due again, and makes the parasitic determination due (1066.215) until a later passing one.
+std::vector<DueItem> due_checks(std::span<const CheckRecord> history, double now_utc_s,
+                                const DuePolicy& policy,
                                 std::optional<double> maintenance_utc_s = std::nullopt);
 
 // --- a check profile: everything above, as one file (config/checks/*.toml) --------------------------------
 struct CheckProfile {
   std::string name, standard;
   DuePolicy due;
-  std::vector<CheckKind> required = {CheckKind::parasitic, CheckKind::coastdown, CheckKind::readiness, CheckKind::inertia};
+  std::vector<CheckKind> required = {CheckKind::parasitic, CheckKind::coastdown, CheckKind::readiness,
+                                     CheckKind::inertia};
   ParasiticOptions parasitic;
   double parasitic_run_up_margin_kmh = 10.0;
   UnloadedCoastdownOptions coastdown;
-  RoadLoad smallest_inertia_setting{40.0, 0.2, 0.02};  // "typical" coefficients (1066.270 [text]); values: ours
+  RoadLoad smallest_inertia_setting{40.0, 0.2,
+                                    0.02};  // "typical" coefficients (1066.270 [text]); values: ours
   RoadLoad largest_inertia_setting{150.0, 1.0, 0.04};
   double coastdown_run_up_margin_mph = 5.0;
   double settle_s = 3.0;  // hold at the start speed before releasing (common practice, no source)

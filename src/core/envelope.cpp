@@ -201,7 +201,8 @@ DivergenceWatch::DivergenceWatch(double tolerance_n, double lowest_speed_kmh, do
   }
 }
 
-void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, const RoadLoad& measured, double worst_abs_deviation_n) {
+void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, const RoadLoad& measured,
+                          double worst_abs_deviation_n) {
   if (verdict_) return;
   if (!finite(measured)) {
     verdict_ = "the controller does not follow the setting: a non-finite measured curve was reported";
@@ -226,9 +227,9 @@ void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, const Roa
     const double rms = std::sqrt(ss / kPoints);
     if (rms >= kMinMoveFactor * tolerance_n_ && ss > 0.0 && ms / ss < kMinResponse)
       verdict_ = "the controller does not follow the setting: over the last " + std::to_string(span) +
-                 " adjustments the set road load moved by " + num(rms, 1) + " N (rms over " + num(lo_kmh_) + "–" +
-                 num(hi_kmh_) + " km/h) but the measured road load moved with it by a factor of only " + num(ms / ss, 2) +
-                 " (an applied setting moves it by about 1)";
+                 " adjustments the set road load moved by " + num(rms, 1) + " N (rms over " + num(lo_kmh_) +
+                 "–" + num(hi_kmh_) + " km/h) but the measured road load moved with it by a factor of only " +
+                 num(ms / ss, 2) + " (an applied setting moves it by about 1)";
   }
 }
 

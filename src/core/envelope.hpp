@@ -117,16 +117,18 @@ class DivergenceWatch {
   explicit DivergenceWatch(double tolerance_n, double lowest_speed_kmh = 20.0,
                            double highest_speed_kmh = 130.0);
   void add(const RoadLoad& set, const RoadLoad& target, double worst_abs_deviation_n);
-  // The same, with the measured (simulated) curve of that coast-down, which also enables rule 3: over the last two
-  // or three adjustments, with ΔS the change of the set curve and ΔM the change of the measured curve, taken at 12
-  // speeds evenly over the range, a controller that applies the setting moves the measured road load with it
-  // (ΔM ≈ ΔS: the measured load is the set load plus the car's own losses). When the set moved by at least 2.5·T
-  // (root mean square over the speeds) and the response r = Σ ΔM·ΔS / Σ ΔS² is below 0.25, the controller
-  // acknowledged settings it does not run. A move that large is a real adjustment, not noise chasing, and with
-  // measured curves good to a few newtons r's spread there is about 0.2 (lab policy, common practice, no source):
-  // an honest loop (r ≈ 1, or its force loop's gain) does not reach 0.25. It catches the controller that ignores the
-  // setting while the deviation stays between T and 3·T, which rules 1 and 2 may miss.
-  void add(const RoadLoad& set, const RoadLoad& target, const RoadLoad& measured, double worst_abs_deviation_n);
+  // The same, with the measured (simulated) curve of that coast-down, which also enables rule 3: over the
+  // last two or three adjustments, with ΔS the change of the set curve and ΔM the change of the measured
+  // curve, taken at 12 speeds evenly over the range, a controller that applies the setting moves the measured
+  // road load with it (ΔM ≈ ΔS: the measured load is the set load plus the car's own losses). When the set
+  // moved by at least 2.5·T (root mean square over the speeds) and the response r = Σ ΔM·ΔS / Σ ΔS² is below
+  // 0.25, the controller acknowledged settings it does not run. A move that large is a real adjustment, not
+  // noise chasing, and with measured curves good to a few newtons r's spread there is about 0.2 (lab policy,
+  // common practice, no source): an honest loop (r ≈ 1, or its force loop's gain) does not reach 0.25. It
+  // catches the controller that ignores the setting while the deviation stays between T and 3·T, which rules
+  // 1 and 2 may miss.
+  void add(const RoadLoad& set, const RoadLoad& target, const RoadLoad& measured,
+           double worst_abs_deviation_n);
   // "the controller does not follow the setting: ..." once a rule has fired; else nothing.
   std::optional<std::string> verdict() const { return verdict_; }
 

@@ -7,7 +7,8 @@ namespace loadtrim::core {
 CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, const RoadLoad& target,
                                        double force_mass_kg, const EvaluationOptions& options) {
   CoastdownEvaluation e;
-  e.bands = analyse_bands(trace, profile.reference_speeds_kmh, profile.band_half_width_kmh, force_mass_kg, options.bands);
+  e.bands = analyse_bands(trace, profile.reference_speeds_kmh, profile.band_half_width_kmh, force_mass_kg,
+                          options.bands);
   std::vector<double> speeds, forces;
   for (const auto& b : e.bands) {
     if (b.ok()) {
@@ -28,13 +29,15 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
   e.usable = true;
   e.check = check_tolerance(target, e.fit.coefficients, profile.reference_speeds_kmh, profile.tolerance_n);
   if (options.whole_trace) {
-    e.whole_trace = fit_whole_trace(trace, force_mass_kg, profile.bottom_speed_kmh() - profile.band_half_width_kmh,
-                                    profile.top_speed_kmh() + profile.band_half_width_kmh, e.fit.coefficients,
-                                    options.whole_trace_options);
+    e.whole_trace =
+        fit_whole_trace(trace, force_mass_kg, profile.bottom_speed_kmh() - profile.band_half_width_kmh,
+                        profile.top_speed_kmh() + profile.band_half_width_kmh, e.fit.coefficients,
+                        options.whole_trace_options);
     if (e.whole_trace.ok) {
       for (double v : profile.reference_speeds_kmh)
-        e.estimator_disagreement_n = std::max(
-            e.estimator_disagreement_n, std::abs(e.fit.coefficients.force_n(v) - e.whole_trace.coefficients.force_n(v)));
+        e.estimator_disagreement_n =
+            std::max(e.estimator_disagreement_n,
+                     std::abs(e.fit.coefficients.force_n(v) - e.whole_trace.coefficients.force_n(v)));
       e.estimators_disagree = e.estimator_disagreement_n > profile.estimator_disagreement_n;
     }
   }

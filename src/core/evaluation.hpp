@@ -16,9 +16,9 @@ namespace loadtrim::core {
 struct CoastdownEvaluation {
   std::vector<BandResult> bands;
   bool usable = false;
-  std::string unusable_reason;  // why not, naming the bands
-  RoadLoadFit fit;              // simulated coefficients As, Bs, Cs from the band forces
-  WholeTraceFit whole_trace;    // independent estimate from the whole trace
+  std::string unusable_reason;            // why not, naming the bands
+  RoadLoadFit fit;                        // simulated coefficients As, Bs, Cs from the band forces
+  WholeTraceFit whole_trace;              // independent estimate from the whole trace
   double estimator_disagreement_n = 0.0;  // largest |F_band(v_j) − F_whole(v_j)|
   bool estimators_disagree = false;       // above the profile's threshold
   ToleranceCheck check;                   // of the regressed curve against the target

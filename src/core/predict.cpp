@@ -31,7 +31,8 @@ double inverse_quadratic_integral(double a, double b, double c, double x1, doubl
 }
 }  // namespace
 
-std::optional<double> coastdown_time_s(const RoadLoad& load, double mass_kg, double v_from_kmh, double v_to_kmh) {
+std::optional<double> coastdown_time_s(const RoadLoad& load, double mass_kg, double v_from_kmh,
+                                       double v_to_kmh) {
   if (!(v_from_kmh > v_to_kmh) || !(mass_kg > 0.0)) return std::nullopt;
   // The load must stay positive on [v_to, v_from]: check the ends and the vertex of the parabola.
   auto positive = [&](double v) { return load.force_n(v) > 0.0; };

@@ -13,7 +13,8 @@ namespace loadtrim::core {
 
 // Time in s for a mass (kg) to coast from v_from_kmh down to v_to_kmh under the road load `load`.
 // nullopt when the load is not positive everywhere on the interval (the mass would never get there).
-std::optional<double> coastdown_time_s(const RoadLoad& load, double mass_kg, double v_from_kmh, double v_to_kmh);
+std::optional<double> coastdown_time_s(const RoadLoad& load, double mass_kg, double v_from_kmh,
+                                       double v_to_kmh);
 
 // Δt_j for each reference speed: from v_j + half_band down to v_j − half_band. Entries are nullopt as above.
 std::vector<std::optional<double>> predicted_band_times_s(const RoadLoad& load, double mass_kg,

@@ -6,8 +6,12 @@
 
 namespace loadtrim::core {
 
-const char* to_string(SettingMethod m) { return m == SettingMethod::iterative ? "iterative" : "fixed-run"; }
-const char* to_string(AxleLayout a) { return a == AxleLayout::single_axle ? "single-axle" : "two-axle"; }
+const char* to_string(SettingMethod m) {
+  return m == SettingMethod::iterative ? "iterative" : "fixed-run";
+}
+const char* to_string(AxleLayout a) {
+  return a == AxleLayout::single_axle ? "single-axle" : "two-axle";
+}
 
 bool parse(const std::string& s, SettingMethod& out) {
   if (s == "iterative") return out = SettingMethod::iterative, true;
@@ -21,10 +25,14 @@ bool parse(const std::string& s, AxleLayout& out) {
 }
 
 double Profile::top_speed_kmh() const {
-  return reference_speeds_kmh.empty() ? 0.0 : *std::max_element(reference_speeds_kmh.begin(), reference_speeds_kmh.end());
+  return reference_speeds_kmh.empty()
+             ? 0.0
+             : *std::max_element(reference_speeds_kmh.begin(), reference_speeds_kmh.end());
 }
 double Profile::bottom_speed_kmh() const {
-  return reference_speeds_kmh.empty() ? 0.0 : *std::min_element(reference_speeds_kmh.begin(), reference_speeds_kmh.end());
+  return reference_speeds_kmh.empty()
+             ? 0.0
+             : *std::min_element(reference_speeds_kmh.begin(), reference_speeds_kmh.end());
 }
 
 namespace {
@@ -35,8 +43,9 @@ void range(Problems& ps, const std::string& key, double v, double lo, double hi,
 }
 void irange(Problems& ps, const std::string& key, int v, int lo, int hi) {
   if (v < lo || v > hi)
-    ps.push_back({Problem::Severity::error, key,
-                  "is " + std::to_string(v) + ", allowed " + std::to_string(lo) + " to " + std::to_string(hi)});
+    ps.push_back(
+        {Problem::Severity::error, key,
+         "is " + std::to_string(v) + ", allowed " + std::to_string(lo) + " to " + std::to_string(hi)});
 }
 }  // namespace
 
@@ -46,10 +55,12 @@ Problems validate(const Profile& p) {
   range(ps, "bands.half_width_kmh", p.band_half_width_kmh, 1.0, 10.0, "km/h");
   if (p.reference_speeds_kmh.size() < 3)
     ps.push_back({Problem::Severity::error, "bands.reference_speeds_kmh",
-                  "needs at least 3 speeds to regress three coefficients, has " + std::to_string(p.reference_speeds_kmh.size())});
+                  "needs at least 3 speeds to regress three coefficients, has " +
+                      std::to_string(p.reference_speeds_kmh.size())});
   for (std::size_t i = 0; i < p.reference_speeds_kmh.size(); ++i) {
     const double v = p.reference_speeds_kmh[i];
-    range(ps, "bands.reference_speeds_kmh[" + std::to_string(i) + "]", v, p.band_half_width_kmh + 4.0, 250.0, "km/h");
+    range(ps, "bands.reference_speeds_kmh[" + std::to_string(i) + "]", v, p.band_half_width_kmh + 4.0, 250.0,
+          "km/h");
     if (i > 0 && !(v > p.reference_speeds_kmh[i - 1]))
       ps.push_back({Problem::Severity::error, "bands.reference_speeds_kmh",
                     "must be strictly increasing (entry " + std::to_string(i) + ")"});
@@ -80,7 +91,8 @@ Problems validate(const Profile& p) {
   range(ps, "warm_up.stable_window_s", p.warm_up.stable_window_s, 5.0, 1200.0, "s");
   range(ps, "warm_up.max_extra_s", p.warm_up.max_extra_s, 0.0, 7200.0, "s");
   if (p.loss_map.speeds_kmh.size() < 3)
-    ps.push_back({Problem::Severity::error, "loss_map.speeds_kmh", "needs at least 3 speeds for a quadratic"});
+    ps.push_back(
+        {Problem::Severity::error, "loss_map.speeds_kmh", "needs at least 3 speeds for a quadratic"});
   for (std::size_t i = 0; i < p.loss_map.speeds_kmh.size(); ++i)
     range(ps, "loss_map.speeds_kmh[" + std::to_string(i) + "]", p.loss_map.speeds_kmh[i], 5.0, 250.0, "km/h");
   range(ps, "loss_map.settle_s", p.loss_map.settle_s, 0.5, 120.0, "s");
@@ -96,8 +108,10 @@ double rotating_mass_kg(double mass_in_running_order_kg, const MassRule& rule) {
   return rule.rotating_fraction * (mass_in_running_order_kg + rule.rotating_offset_kg);
 }
 
-double dyno_inertia_kg(double test_mass_kg, double rotating_mass_kg, AxleLayout layout, const MassRule& rule) {
-  return layout == AxleLayout::two_axle ? test_mass_kg : test_mass_kg + rule.single_axle_inertia_share * rotating_mass_kg;
+double dyno_inertia_kg(double test_mass_kg, double rotating_mass_kg, AxleLayout layout,
+                       const MassRule& rule) {
+  return layout == AxleLayout::two_axle ? test_mass_kg
+                                        : test_mass_kg + rule.single_axle_inertia_share * rotating_mass_kg;
 }
 
 }  // namespace loadtrim::core

@@ -36,17 +36,19 @@ struct InitialSettingRule {
   double f2_factor = 1.0;
 };
 
-// Vehicle warm-up on the dyno before the first coast-down (domain.md §3: the dyno-side wording was not found; the
-// road rule is 90 % of the cycle's maximum speed for at least 20 min — used here as the default, common practice).
+// Vehicle warm-up on the dyno before the first coast-down (domain.md §3: the dyno-side wording was not found;
+// the road rule is 90 % of the cycle's maximum speed for at least 20 min — used here as the default, common
+// practice).
 struct WarmUp {
   double speed_kmh = 80.0;
   double duration_s = 1200.0;
-  double stable_within_n = 0.0;   // > 0: continue until the hold force changes less than this between windows
+  double stable_within_n = 0.0;  // > 0: continue until the hold force changes less than this between windows
   double stable_window_s = 60.0;
-  double max_extra_s = 600.0;     // ...for at most this much longer
+  double max_extra_s = 600.0;  // ...for at most this much longer
 };
 
-// Loss map at the end of the warm-up (first-setting strategy "loss-map"): hold each speed, let it settle, average.
+// Loss map at the end of the warm-up (first-setting strategy "loss-map"): hold each speed, let it settle,
+// average.
 struct LossMap {
   std::vector<double> speeds_kmh = {130.0, 100.0, 70.0, 40.0, 20.0};
   double settle_s = 5.0;
@@ -57,26 +59,27 @@ struct Profile {
   std::string name;
   std::string standard;  // free text, e.g. "UN GTR 15 Annex 4 §8.1.3"
   std::vector<double> reference_speeds_kmh;
-  double band_half_width_kmh = 5.0;      // Δv: the band runs from v_j + Δv down to v_j − Δv
-  double tolerance_n = 10.0;             // every reference speed within ± this of the target
-  int consecutive_passes = 2;            // iterative method: passes in a row for acceptance
-  double run_up_margin_kmh = 12.0;       // run up this far above the top reference speed before releasing
+  double band_half_width_kmh = 5.0;  // Δv: the band runs from v_j + Δv down to v_j − Δv
+  double tolerance_n = 10.0;         // every reference speed within ± this of the target
+  int consecutive_passes = 2;        // iterative method: passes in a row for acceptance
+  double run_up_margin_kmh = 12.0;   // run up this far above the top reference speed before releasing
   SettingMethod method = SettingMethod::iterative;
-  int fixed_runs = 4;                    // fixed-run method: coast-downs in total, run 1 stabilises
-  int fixed_run_verification_runs = 1;   // coast-downs at the final setting to confirm it (0 = none)
+  int fixed_runs = 4;                   // fixed-run method: coast-downs in total, run 1 stabilises
+  int fixed_run_verification_runs = 1;  // coast-downs at the final setting to confirm it (0 = none)
   MassRule mass;
   InitialSettingRule initial;
   WarmUp warm_up;
   LossMap loss_map;
   Rounding rounding;
-  int max_coastdowns = 10;               // stop reason "iteration limit" beyond this
-  int max_unusable_runs = 3;             // stop after this many unusable coast-downs
-  double max_gap_after_warmup_s = 120.0; // first coast-down starts within this of the warm-up end
-  double estimator_disagreement_n = 5.0; // flag when band and whole-trace forces differ by more
+  int max_coastdowns = 10;                // stop reason "iteration limit" beyond this
+  int max_unusable_runs = 3;              // stop after this many unusable coast-downs
+  double max_gap_after_warmup_s = 120.0;  // first coast-down starts within this of the warm-up end
+  double estimator_disagreement_n = 5.0;  // flag when band and whole-trace forces differ by more
 
   double top_speed_kmh() const;
   double bottom_speed_kmh() const;
-  // Release into the coast from here: top reference speed + run-up margin (domain.md §3: 10–15 km/h on the road).
+  // Release into the coast from here: top reference speed + run-up margin (domain.md §3: 10–15 km/h on the
+  // road).
   double start_speed_kmh() const { return top_speed_kmh() + run_up_margin_kmh; }
   // Record until the speed is below this: lowest band edge less a margin for the crossing fit.
   double end_speed_kmh() const { return bottom_speed_kmh() - band_half_width_kmh - 3.0; }
@@ -88,7 +91,9 @@ Problems validate(const Profile& p);
 // m_r from the mass in running order.
 double rotating_mass_kg(double mass_in_running_order_kg, const MassRule& rule);
 // TM + m_r: the mass used to turn deceleration into force, on road and dyno alike.
-inline double force_mass_kg(double test_mass_kg, double rotating_mass_kg) { return test_mass_kg + rotating_mass_kg; }
+inline double force_mass_kg(double test_mass_kg, double rotating_mass_kg) {
+  return test_mass_kg + rotating_mass_kg;
+}
 // The inertia the dyno is told to simulate.
 double dyno_inertia_kg(double test_mass_kg, double rotating_mass_kg, AxleLayout layout, const MassRule& rule);
 

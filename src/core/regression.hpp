@@ -14,7 +14,7 @@ namespace loadtrim::core {
 
 struct PolynomialFit {
   bool ok = false;
-  std::string message;          // why not, when !ok
+  std::string message;           // why not, when !ok
   Eigen::VectorXd coefficients;  // c0 + c1·x + ... + c_d·x^d
   Eigen::VectorXd residuals;     // y − fit, per observation
   Eigen::MatrixXd covariance;    // of the coefficients: s²·(XᵀWX)⁻¹, s² = weighted RSS / (n − p)

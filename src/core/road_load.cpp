@@ -6,7 +6,9 @@
 
 namespace loadtrim::core {
 
-double RoadLoad::power_w(double speed_kmh) const { return force_n(speed_kmh) * units::kmh_to_mps(speed_kmh); }
+double RoadLoad::power_w(double speed_kmh) const {
+  return force_n(speed_kmh) * units::kmh_to_mps(speed_kmh);
+}
 
 RoadLoad to_metric(const RoadLoadUs& us) {
   // B [lbf/mph] → N/(km/h): × N/lbf ÷ (km/h per mph); C likewise with the square.

@@ -14,7 +14,9 @@ struct RoadLoad {
   double f1_n_per_kmh = 0.0;
   double f2_n_per_kmh2 = 0.0;
 
-  double force_n(double speed_kmh) const { return f0_n + (f1_n_per_kmh + f2_n_per_kmh2 * speed_kmh) * speed_kmh; }
+  double force_n(double speed_kmh) const {
+    return f0_n + (f1_n_per_kmh + f2_n_per_kmh2 * speed_kmh) * speed_kmh;
+  }
   // Power absorbed at a speed, W (force × speed in m/s).
   double power_w(double speed_kmh) const;
 
@@ -33,7 +35,9 @@ struct RoadLoadUs {
   double a_lbf = 0.0;
   double b_lbf_per_mph = 0.0;
   double c_lbf_per_mph2 = 0.0;
-  double force_lbf(double speed_mph) const { return a_lbf + (b_lbf_per_mph + c_lbf_per_mph2 * speed_mph) * speed_mph; }
+  double force_lbf(double speed_mph) const {
+    return a_lbf + (b_lbf_per_mph + c_lbf_per_mph2 * speed_mph) * speed_mph;
+  }
 };
 
 RoadLoad to_metric(const RoadLoadUs& us);

@@ -4,8 +4,8 @@
 
 namespace loadtrim::core {
 
-ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated, std::span<const double> speeds_kmh,
-                               double tolerance_n) {
+ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated,
+                               std::span<const double> speeds_kmh, double tolerance_n) {
   ToleranceCheck out;
   out.pass = !speeds_kmh.empty();
   for (double v : speeds_kmh) {
@@ -39,9 +39,12 @@ RoadLoad fixed_run_final_setting(const RoadLoad& target, std::span<const RunCoef
 
 const char* to_string(Decision::Kind k) {
   switch (k) {
-    case Decision::Kind::run_again: return "run-again";
-    case Decision::Kind::accepted: return "accepted";
-    case Decision::Kind::rejected: return "rejected";
+    case Decision::Kind::run_again:
+      return "run-again";
+    case Decision::Kind::accepted:
+      return "accepted";
+    case Decision::Kind::rejected:
+      return "rejected";
   }
   return "unknown";
 }
@@ -49,7 +52,8 @@ const char* to_string(Decision::Kind k) {
 SettingMethodState::SettingMethodState(const Profile& profile, const RoadLoad& target)
     : profile_(profile), target_(target) {}
 
-Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& simulated, bool within_tolerance) {
+Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& simulated,
+                                          bool within_tolerance) {
   ++runs_;
   Decision d;
   if (profile_.method == SettingMethod::iterative || verifying_) {
@@ -94,7 +98,8 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
   d.next_set = fixed_run_final_setting(target_, fixed_runs_);
   if (profile_.fixed_run_verification_runs == 0) {
     d.kind = Decision::Kind::accepted;
-    d.reason = "fixed-run: final setting A = At − mean(As − Ad) over runs 2.." + std::to_string(profile_.fixed_runs);
+    d.reason =
+        "fixed-run: final setting A = At − mean(As − Ad) over runs 2.." + std::to_string(profile_.fixed_runs);
     return d;
   }
   verifying_ = true;

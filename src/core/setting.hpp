@@ -28,8 +28,8 @@ struct ToleranceCheck {
 };
 
 // Every reference speed within ±tolerance of the target (§8.1.3.4.2), on the regressed (simulated) curve.
-ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated, std::span<const double> speeds_kmh,
-                               double tolerance_n);
+ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated,
+                               std::span<const double> speeds_kmh, double tolerance_n);
 
 // §8.1.4: F*_dj = F_dj − (F_sj − F_tj), i.e. A*d = Ad + At − As, B*d = Bd + Bt − Bs, C*d = Cd + Ct − Cs.
 RoadLoad adjusted_setting(const RoadLoad& target, const RoadLoad& set, const RoadLoad& simulated);
@@ -43,7 +43,8 @@ struct RunCoefficients {
   RoadLoad set;
   RoadLoad simulated;
 };
-RoadLoad fixed_run_final_setting(const RoadLoad& target, std::span<const RunCoefficients> runs_after_stabilisation);
+RoadLoad fixed_run_final_setting(const RoadLoad& target,
+                                 std::span<const RunCoefficients> runs_after_stabilisation);
 
 // What the method says after a coast-down.
 struct Decision {

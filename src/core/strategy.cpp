@@ -4,16 +4,21 @@ namespace loadtrim::core {
 
 const char* to_string(FirstSetting f) {
   switch (f) {
-    case FirstSetting::standard: return "standard";
-    case FirstSetting::fleet: return "fleet";
-    case FirstSetting::loss_map: return "loss-map";
-    case FirstSetting::history: return "history";
+    case FirstSetting::standard:
+      return "standard";
+    case FirstSetting::fleet:
+      return "fleet";
+    case FirstSetting::loss_map:
+      return "loss-map";
+    case FirstSetting::history:
+      return "history";
   }
   return "unknown";
 }
 
 bool parse(const std::string& s, FirstSetting& out) {
-  for (FirstSetting f : {FirstSetting::standard, FirstSetting::fleet, FirstSetting::loss_map, FirstSetting::history})
+  for (FirstSetting f :
+       {FirstSetting::standard, FirstSetting::fleet, FirstSetting::loss_map, FirstSetting::history})
     if (s == to_string(f)) return out = f, true;
   return false;
 }
@@ -38,7 +43,8 @@ FleetLossModel fit_fleet_loss(std::span<const FleetRow> rows) {
       c2.push_back(loss.f2_n_per_kmh2);
     }
     FleetLossModel::Line& line = layout == AxleLayout::two_axle ? m.two_axle : m.single_axle;
-    const auto p0 = fit_polynomial(mass, c0, 1), p1 = fit_polynomial(mass, c1, 1), p2 = fit_polynomial(mass, c2, 1);
+    const auto p0 = fit_polynomial(mass, c0, 1), p1 = fit_polynomial(mass, c1, 1),
+               p2 = fit_polynomial(mass, c2, 1);
     if (!p0.ok || !p1.ok || !p2.ok) continue;
     line.at_zero_kg = {p0.coefficients(0), p1.coefficients(0), p2.coefficients(0)};
     line.per_kg = {p0.coefficients(1), p1.coefficients(1), p2.coefficients(1)};

@@ -1,7 +1,7 @@
-// First-setting strategies. The standard fixes how acceptance is judged and each adjustment made, but leaves the
-// first setting to the lab ("or empirical values from a similar vehicle", domain.md §3). All four give the dyno
-// setting as target minus an estimate of the vehicle's loss on the rollers, except the standard's default.
-// Pure: the data (EPA rows, hold readings, history) is passed in.
+// First-setting strategies. The standard fixes how acceptance is judged and each adjustment made, but leaves
+// the first setting to the lab ("or empirical values from a similar vehicle", domain.md §3). All four give
+// the dyno setting as target minus an estimate of the vehicle's loss on the rollers, except the standard's
+// default. Pure: the data (EPA rows, hold readings, history) is passed in.
 #pragma once
 
 #include <optional>
@@ -20,7 +20,9 @@ const char* to_string(FirstSetting f);
 bool parse(const std::string& s, FirstSetting& out);
 
 // Set = target − loss: the dyno adds what the vehicle does not take itself.
-inline RoadLoad setting_for_loss(const RoadLoad& target, const RoadLoad& loss) { return target - loss; }
+inline RoadLoad setting_for_loss(const RoadLoad& target, const RoadLoad& loss) {
+  return target - loss;
+}
 
 // (b) Fleet estimate: the loss (target − set) of real vehicles as a linear function of test mass, per dyno
 // layout, fitted by least squares to public EPA rows. Rows whose loss at 20 or 130 km/h falls outside
@@ -42,17 +44,18 @@ struct FleetLossModel {
 };
 FleetLossModel fit_fleet_loss(std::span<const FleetRow> rows);
 
-// (c) Loss map measured in speed hold at the end of the warm-up: the force the dyno needs to hold each speed is
-// the vehicle's loss on the rollers (plus the residual parasitic loss); a quadratic through the points.
+// (c) Loss map measured in speed hold at the end of the warm-up: the force the dyno needs to hold each speed
+// is the vehicle's loss on the rollers (plus the residual parasitic loss); a quadratic through the points.
 struct HoldPoint {
   double speed_kmh = 0.0;
-  double force_n = 0.0;   // mean load-cell force over the averaging window
+  double force_n = 0.0;  // mean load-cell force over the averaging window
   double force_sd_n = 0.0;
   int samples = 0;
 };
 RoadLoadFit fit_loss_map(std::span<const HoldPoint> points);
 
-// (d) History: the loss seen in earlier sessions of the same vehicle on the same cell (target − accepted set).
+// (d) History: the loss seen in earlier sessions of the same vehicle on the same cell (target − accepted
+// set).
 struct HistoryEntry {
   std::string utc;
   RoadLoad target;

@@ -12,12 +12,18 @@ namespace loadtrim::core {
 
 const char* to_string(BandStatus s) {
   switch (s) {
-    case BandStatus::ok: return "ok";
-    case BandStatus::not_reached: return "not-reached";
-    case BandStatus::not_finished: return "not-finished";
-    case BandStatus::too_few_samples: return "too-few-samples";
-    case BandStatus::not_decelerating: return "not-decelerating";
-    case BandStatus::bad_trace: return "bad-trace";
+    case BandStatus::ok:
+      return "ok";
+    case BandStatus::not_reached:
+      return "not-reached";
+    case BandStatus::not_finished:
+      return "not-finished";
+    case BandStatus::too_few_samples:
+      return "too-few-samples";
+    case BandStatus::not_decelerating:
+      return "not-decelerating";
+    case BandStatus::bad_trace:
+      return "bad-trace";
   }
   return "unknown";
 }
@@ -52,7 +58,8 @@ TraceAnalyser::TraceAnalyser(TraceView trace, BandOptions options) : trace_(trac
 
 bool TraceAnalyser::rough_crossing(double level, double& t) const {
   // First index whose running minimum is below the level.
-  auto first_below = std::partition_point(prefix_min_.begin(), prefix_min_.end(), [&](double v) { return v >= level; });
+  auto first_below =
+      std::partition_point(prefix_min_.begin(), prefix_min_.end(), [&](double v) { return v >= level; });
   if (first_below == prefix_min_.end() || first_below == prefix_min_.begin()) return false;
   // Last index whose suffix maximum is at or above the level.
   auto past_last_above =
@@ -97,8 +104,8 @@ Crossing TraceAnalyser::crossing(double level) const {
   const int count = static_cast<int>(i1 - i0);
   if (count < options_.min_fit_samples) {
     c.status = BandStatus::too_few_samples;
-    c.reason = std::to_string(count) + " samples within ±" + num(w) + " km/h of " + num(level) + " km/h, need " +
-               std::to_string(options_.min_fit_samples);
+    c.reason = std::to_string(count) + " samples within ±" + num(w) + " km/h of " + num(level) +
+               " km/h, need " + std::to_string(options_.min_fit_samples);
     return c;
   }
   // Quadratic least squares in τ = (t − t_mid)/h, h the half window, on normal equations: τ is O(1), so the
@@ -152,10 +159,11 @@ Crossing TraceAnalyser::crossing(double level) const {
   return c;
 }
 
-bool TraceAnalyser::even_deceleration(double v, double half_band, double t_up, double t_low, std::string& why) const {
+bool TraceAnalyser::even_deceleration(double v, double half_band, double t_up, double t_low,
+                                      std::string& why) const {
   // Within one band the deceleration changes little (the load varies by a few per cent over 2·Δv), so each
-  // quarter of the band must take roughly a quarter of Δt. A stall, a re-acceleration or a dropout shows up as
-  // one quarter far too long or too short. Quarter edges use the noise-tolerant rough crossings.
+  // quarter of the band must take roughly a quarter of Δt. A stall, a re-acceleration or a dropout shows up
+  // as one quarter far too long or too short. Quarter edges use the noise-tolerant rough crossings.
   double edges[5] = {t_up, 0, 0, 0, t_low};
   for (int k = 1; k < 4; ++k)
     if (!rough_crossing(v + half_band - 0.5 * half_band * k, edges[k])) {
@@ -166,16 +174,16 @@ bool TraceAnalyser::even_deceleration(double v, double half_band, double t_up, d
   for (int k = 0; k < 4; ++k) {
     const double d = edges[k + 1] - edges[k];
     if (!(d > 0.4 * quarter && d < 2.5 * quarter)) {
-      why = "uneven deceleration in the band (quarter " + std::to_string(k + 1) + " took " + num(d) + " s, expected about " +
-            num(quarter) + " s): stall, re-acceleration or dropout";
+      why = "uneven deceleration in the band (quarter " + std::to_string(k + 1) + " took " + num(d) +
+            " s, expected about " + num(quarter) + " s): stall, re-acceleration or dropout";
       return false;
     }
   }
   return true;
 }
 
-std::vector<BandResult> TraceAnalyser::bands(std::span<const double> reference_speeds_kmh, double half_band_kmh,
-                                             double force_mass_kg) const {
+std::vector<BandResult> TraceAnalyser::bands(std::span<const double> reference_speeds_kmh,
+                                             double half_band_kmh, double force_mass_kg) const {
   std::vector<BandResult> out;
   out.reserve(reference_speeds_kmh.size());
   // Adjacent bands share edges (v_j + Δv = v_{j+1} − Δv for 10 km/h steps and Δv = 5): find each level once.
@@ -214,7 +222,8 @@ std::vector<BandResult> TraceAnalyser::bands(std::span<const double> reference_s
 }
 
 std::vector<BandResult> analyse_bands(TraceView trace, std::span<const double> reference_speeds_kmh,
-                                      double half_band_kmh, double force_mass_kg, const BandOptions& options) {
+                                      double half_band_kmh, double force_mass_kg,
+                                      const BandOptions& options) {
   return TraceAnalyser(trace, options).bands(reference_speeds_kmh, half_band_kmh, force_mass_kg);
 }
 

@@ -37,7 +37,7 @@ struct BandOptions {
 struct BandResult {
   double reference_speed_kmh = 0.0;
   BandStatus status = BandStatus::ok;
-  std::string reason;  // empty when ok
+  std::string reason;      // empty when ok
   double t_upper_s = 0.0;  // crossing of v_j + Δv
   double t_lower_s = 0.0;  // crossing of v_j − Δv
   double delta_t_s = 0.0;
@@ -78,6 +78,7 @@ class TraceAnalyser {
 
 // Convenience wrapper.
 std::vector<BandResult> analyse_bands(TraceView trace, std::span<const double> reference_speeds_kmh,
-                                      double half_band_kmh, double force_mass_kg, const BandOptions& options = {});
+                                      double half_band_kmh, double force_mass_kg,
+                                      const BandOptions& options = {});
 
 }  // namespace loadtrim::core

@@ -12,14 +12,30 @@ inline constexpr double kMpsPerMph = 0.44704;             // NIST SP 811 App. B,
 inline constexpr double kStandardGravity_mps2 = 9.80665;  // NIST SP 811, standard acceleration of gravity
 inline constexpr double kNewtonPerLbf = kKgPerLb * kStandardGravity_mps2;  // 4.4482216152605 N, exact
 
-constexpr double kmh_to_mps(double speed_kmh) { return speed_kmh / kKmhPerMps; }
-constexpr double mps_to_kmh(double speed_mps) { return speed_mps * kKmhPerMps; }
-constexpr double mph_to_kmh(double speed_mph) { return speed_mph * kKmhPerMph; }
-constexpr double kmh_to_mph(double speed_kmh) { return speed_kmh / kKmhPerMph; }
-constexpr double lbf_to_n(double force_lbf) { return force_lbf * kNewtonPerLbf; }
-constexpr double n_to_lbf(double force_n) { return force_n / kNewtonPerLbf; }
-constexpr double lb_to_kg(double mass_lb) { return mass_lb * kKgPerLb; }
-constexpr double kg_to_lb(double mass_kg) { return mass_kg / kKgPerLb; }
+constexpr double kmh_to_mps(double speed_kmh) {
+  return speed_kmh / kKmhPerMps;
+}
+constexpr double mps_to_kmh(double speed_mps) {
+  return speed_mps * kKmhPerMps;
+}
+constexpr double mph_to_kmh(double speed_mph) {
+  return speed_mph * kKmhPerMph;
+}
+constexpr double kmh_to_mph(double speed_kmh) {
+  return speed_kmh / kKmhPerMph;
+}
+constexpr double lbf_to_n(double force_lbf) {
+  return force_lbf * kNewtonPerLbf;
+}
+constexpr double n_to_lbf(double force_n) {
+  return force_n / kNewtonPerLbf;
+}
+constexpr double lb_to_kg(double mass_lb) {
+  return mass_lb * kKgPerLb;
+}
+constexpr double kg_to_lb(double mass_kg) {
+  return mass_kg / kKgPerLb;
+}
 
 }  // namespace loadtrim::core::units
 

@@ -28,7 +28,8 @@ double objective(unsigned, const double* x, double*, void* data) {
   double sse = (v - p.v[0]) * (v - p.v[0]);
   for (std::size_t i = 1; i < p.t.size(); ++i) {
     const double h = p.t[i] - p.t[i - 1];
-    const double k1 = dvdt(v), k2 = dvdt(v + 0.5 * h * k1), k3 = dvdt(v + 0.5 * h * k2), k4 = dvdt(v + h * k3);
+    const double k1 = dvdt(v), k2 = dvdt(v + 0.5 * h * k1), k3 = dvdt(v + 0.5 * h * k2),
+                 k4 = dvdt(v + h * k3);
     v += h / 6.0 * (k1 + 2.0 * k2 + 2.0 * k3 + k4);
     const double r = v - p.v[i];
     sse += r * r;

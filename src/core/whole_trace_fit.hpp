@@ -1,7 +1,7 @@
 // Whole-trace estimator: fits the coast-down differential equation m·dv/dt = −F(v), F = f0 + f1·v + f2·v²,
 // to every sample of the trace between the lowest and highest band edges (NLopt, derivative-free BOBYQA
-// over f0, f1, f2 and the initial speed; fixed-step RK4 between samples). Independent of the band-time method,
-// so the two are reported side by side and their disagreement flagged. Pure: no I/O.
+// over f0, f1, f2 and the initial speed; fixed-step RK4 between samples). Independent of the band-time
+// method, so the two are reported side by side and their disagreement flagged. Pure: no I/O.
 #pragma once
 
 #include <string>

@@ -14,7 +14,8 @@ using controller::Mode;
 using core::num;
 
 namespace {
-constexpr std::uint32_t kFaultFlags = controller::kFlagFault | controller::kFlagEstop | controller::kFlagWatchdog;
+constexpr std::uint32_t kFaultFlags =
+    controller::kFlagFault | controller::kFlagEstop | controller::kFlagWatchdog;
 
 std::string flags_hex(std::uint32_t f) {
   char b[16];
@@ -22,7 +23,9 @@ std::string flags_hex(std::uint32_t f) {
   return b;
 }
 
-double seconds(Clock::duration d) { return std::chrono::duration<double>(d).count(); }
+double seconds(Clock::duration d) {
+  return std::chrono::duration<double>(d).count();
+}
 }  // namespace
 
 std::string describe(const Sample& s) {
@@ -31,7 +34,8 @@ std::string describe(const Sample& s) {
   return d;
 }
 
-Motion::Motion(controller::Controller& c, Rules rules, const std::atomic<bool>* stop) : c_(c), rules_(rules), stop_(stop) {}
+Motion::Motion(controller::Controller& c, Rules rules, const std::atomic<bool>* stop)
+    : c_(c), rules_(rules), stop_(stop) {}
 
 Clock::duration Motion::wall_budget(double budget_s) const {
   const double rate = std::max(1.0, c_.time_scale()) * std::max(1e-3, rules_.min_clock_rate);
@@ -39,7 +43,8 @@ Clock::duration Motion::wall_budget(double budget_s) const {
   return std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(s)) + rules_.wall_slack;
 }
 
-Result Motion::collect(const Step& step, const std::function<bool(const Sample&)>& done, std::vector<Sample>* keep) {
+Result Motion::collect(const Step& step, const std::function<bool(const Sample&)>& done,
+                       std::vector<Sample>* keep) {
   const auto began = Clock::now();
   const auto wall_end = began + wall_budget(step.budget_s);
   const std::uint64_t clear_epoch = c_.clear_epoch();
@@ -59,11 +64,13 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
         return r;
       }
     }
-    if (step.stoppable && stop_requested()) return Result::fail("interrupted by the operator during " + step.what, kInterrupted);
+    if (step.stoppable && stop_requested())
+      return Result::fail("interrupted by the operator during " + step.what, kInterrupted);
     if (Clock::now() >= wall_end)
       return Result::fail(step.what + " did not complete within " + num(seconds(wall_end - began), 1) +
-                              " s of wall time (the controller's clock advanced " + num(t_first >= 0 ? t_last - t_first : 0.0, 1) +
-                              " s meanwhile; its budget is " + num(step.budget_s) + " s)",
+                              " s of wall time (the controller's clock advanced " +
+                              num(t_first >= 0 ? t_last - t_first : 0.0, 1) + " s meanwhile; its budget is " +
+                              num(step.budget_s) + " s)",
                           kWallDeadline);
     got.clear();
     if (Result r = c_.receive_samples(got); !r.ok()) {
@@ -71,13 +78,16 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
       return r;
     }
     for (const Sample& s : got) {
-      // Safety first, whatever the sample's epoch or time: a fault latched after the last clear, or over-speed.
-      // While stopping, a latched fault (a watchdog stop, an emergency stop) is what is being waited out.
+      // Safety first, whatever the sample's epoch or time: a fault latched after the last clear, or
+      // over-speed. While stopping, a latched fault (a watchdog stop, an emergency stop) is what is being
+      // waited out.
       if (!stopping && s.epoch >= clear_epoch && (s.flags & kFaultFlags))
-        return Result::fail("the controller reports a fault (flags " + flags_hex(s.flags) + ") during " + step.what);
-      if (!stopping && rules_.speed_limit_kmh > 0.0 && s.speed_kmh > rules_.speed_limit_kmh + rules_.overspeed_margin_kmh)
-        return Result::fail("speed " + num(s.speed_kmh, 1) + " km/h above the limit of " + num(rules_.speed_limit_kmh) +
-                            " km/h during " + step.what);
+        return Result::fail("the controller reports a fault (flags " + flags_hex(s.flags) + ") during " +
+                            step.what);
+      if (!stopping && rules_.speed_limit_kmh > 0.0 &&
+          s.speed_kmh > rules_.speed_limit_kmh + rules_.overspeed_margin_kmh)
+        return Result::fail("speed " + num(s.speed_kmh, 1) + " km/h above the limit of " +
+                            num(rules_.speed_limit_kmh) + " km/h during " + step.what);
       last_time_s_ = s.time_s;
       have_time_ = true;
       if (on_sample) on_sample(s);
@@ -85,27 +95,30 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
       if (t_first < 0.0) t_first = s.time_s;
       t_last = s.time_s;
       last = s;
-      const bool in_mode = step.modes.empty() || std::find(step.modes.begin(), step.modes.end(), s.mode) != step.modes.end();
+      const bool in_mode =
+          step.modes.empty() || std::find(step.modes.begin(), step.modes.end(), s.mode) != step.modes.end();
       if (in_mode) {
         if (keep) keep->push_back(s);
         if (done(s)) return Result::success();
       }
       if (s.time_s - t_first > step.budget_s)
-        return Result::fail(step.what + " did not complete within " + num(step.budget_s) + " s of controller time (last sample: " +
-                                describe(last) + ")",
+        return Result::fail(step.what + " did not complete within " + num(step.budget_s) +
+                                " s of controller time (last sample: " + describe(last) + ")",
                             kTooSlow);
     }
   }
 }
 
-Result Motion::hold(double v_kmh, double settle_s, const std::string& what, double budget_s, double tolerance_kmh) {
+Result Motion::hold(double v_kmh, double settle_s, const std::string& what, double budget_s,
+                    double tolerance_kmh) {
   if (Result r = c_.hold_speed(v_kmh); !r.ok()) return r;
   Step st;
   st.what = what;
   st.budget_s = budget_s;
   st.modes = {Mode::speed_hold};
   st.since_epoch = c_.epoch();
-  // At the setpoint, then settle_s more (speed noise may cross the tolerance meanwhile without restarting it).
+  // At the setpoint, then settle_s more (speed noise may cross the tolerance meanwhile without restarting
+  // it).
   double reached = -1.0;
   return collect(st, [&](const Sample& s) {
     if (reached < 0.0 && std::abs(s.speed_kmh - v_kmh) < tolerance_kmh) reached = s.time_s;
@@ -148,16 +161,19 @@ Result Motion::settle_by_status(double budget_s, controller::StatusReport& st) {
   for (;;) {
     if (Result r = c_.status(st); !r.ok()) return r;
     if (t_first < 0.0) t_first = st.time_s;
-    if (standstill(st.speed_kmh) && (st.mode == Mode::idle || st.mode == Mode::controlled_stop)) return Result::success();
+    if (standstill(st.speed_kmh) && (st.mode == Mode::idle || st.mode == Mode::controlled_stop))
+      return Result::success();
     if (st.mode == Mode::speed_hold || st.mode == Mode::road_load || st.mode == Mode::constant_force)
       if (Result r = c_.controlled_stop(); !r.ok()) return r;
     if (st.time_s - t_first > budget_s)
-      return Result::fail("the rollers did not stop within " + num(budget_s) + " s of controller time (status: " + num(st.speed_kmh, 1) +
-                              " km/h, " + controller::to_string(st.mode) + ")",
+      return Result::fail("the rollers did not stop within " + num(budget_s) +
+                              " s of controller time (status: " + num(st.speed_kmh, 1) + " km/h, " +
+                              controller::to_string(st.mode) + ")",
                           kTooSlow);
     if (Clock::now() >= wall_end)
-      return Result::fail("the rollers did not stop within " + num(seconds(wall_end - began), 1) + " s of wall time (status: " +
-                              num(st.speed_kmh, 1) + " km/h, " + controller::to_string(st.mode) + ")",
+      return Result::fail("the rollers did not stop within " + num(seconds(wall_end - began), 1) +
+                              " s of wall time (status: " + num(st.speed_kmh, 1) + " km/h, " +
+                              controller::to_string(st.mode) + ")",
                           kWallDeadline);
     if (Result r = c_.heartbeat_if_due(); !r.ok()) return r;
     std::this_thread::sleep_for(std::chrono::milliseconds(50));

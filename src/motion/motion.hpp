@@ -3,23 +3,25 @@
 //
 // Every wait here has two deadlines and returns a Result (never throws):
 //   - a budget in controller time, counted from the first sample of the step: a sample read after the step's
-//     command was acknowledged (Sample::epoch), in one of the step's modes. The standard times the test by the
-//     measuring system's clock, so this is the budget the profile states;
+//     command was acknowledged (Sample::epoch), in one of the step's modes. The standard times the test by
+//     the measuring system's clock, so this is the budget the profile states;
 //   - a deadline on the tool's own monotonic clock from the moment the wait begins: the budget divided by the
-//     controller's stated clock rate and the slowest rate its clock may run at (Rules::min_clock_rate), plus a
-//     slack. The controller's clock is checked against that same minimum rate (controller/clock_guard.hpp), so an
-//     honest step always ends on its controller budget first; a controller whose replies, clock or stream misbehave
-//     in a way no other check names still cannot hold the tool longer than this.
-// On every sample, before any filtering by epoch, mode or time (so a fault never hides behind a controller clock
-// that is behind):
-//   - a fault, emergency-stop or watchdog flag on a sample read after the last fault clear ends the step (fatal);
+//     controller's stated clock rate and the slowest rate its clock may run at (Rules::min_clock_rate), plus
+//     a slack. The controller's clock is checked against that same minimum rate (controller/clock_guard.hpp),
+//     so an honest step always ends on its controller budget first; a controller whose replies, clock or
+//     stream misbehave in a way no other check names still cannot hold the tool longer than this.
+// On every sample, before any filtering by epoch, mode or time (so a fault never hides behind a controller
+// clock that is behind):
+//   - a fault, emergency-stop or watchdog flag on a sample read after the last fault clear ends the step
+//   (fatal);
 //   - a speed above the limit plus the margin ends the step (fatal);
 //   - the operator's stop flag ends a stoppable step (Result code kInterrupted).
-// Results: ok; retryable (the link: no sample within the cell's sample gap, a dropped connection); fatal, with code
-// kTooSlow when the controller budget ran out, kWallDeadline when the wall deadline passed, kInterrupted, or 0.
+// Results: ok; retryable (the link: no sample within the cell's sample gap, a dropped connection); fatal,
+// with code kTooSlow when the controller budget ran out, kWallDeadline when the wall deadline passed,
+// kInterrupted, or 0.
 //
-// Threading: the thread that drives the controller calls these; they renew the controller's keep-alive lease only
-// by calling it (a stalled caller lets the controller's watchdog trip).
+// Threading: the thread that drives the controller calls these; they renew the controller's keep-alive lease
+// only by calling it (a stalled caller lets the controller's watchdog trip).
 #pragma once
 
 #include <atomic>
@@ -38,28 +40,29 @@ using controller::Sample;
 
 // Result::code values of the motion library's own endings (controller error codes are positive).
 inline constexpr int kInterrupted = -2;
-inline constexpr int kTooSlow = -3;      // the step's controller-time budget ran out before its condition
-inline constexpr int kWallDeadline = -4; // the step's deadline on the tool's own clock passed
+inline constexpr int kTooSlow = -3;       // the step's controller-time budget ran out before its condition
+inline constexpr int kWallDeadline = -4;  // the step's deadline on the tool's own clock passed
 
 struct Rules {
-  double speed_limit_kmh = 0.0;     // > 0: a sample above this plus the margin ends the step
+  double speed_limit_kmh = 0.0;  // > 0: a sample above this plus the margin ends the step
   double overspeed_margin_kmh = 2.0;
-  double standstill_kmh = 0.5;      // at or below: the rollers stand still (every stop and start check)
-  double min_clock_rate = 0.25;     // the slowest the controller's clock may run, × its stated rate (as the clock guard)
+  double standstill_kmh = 0.5;  // at or below: the rollers stand still (every stop and start check)
+  double min_clock_rate =
+      0.25;  // the slowest the controller's clock may run, × its stated rate (as the clock guard)
   std::chrono::milliseconds wall_slack{20000};
-  // How often the steps also ask the controller's status (its clock is checked against the samples' there, and an
-  // error there ends the step): after this much wall time or status_every_controller_s of controller time,
-  // whichever comes first, counted across steps; 0 = never.
+  // How often the steps also ask the controller's status (its clock is checked against the samples' there,
+  // and an error there ends the step): after this much wall time or status_every_controller_s of controller
+  // time, whichever comes first, counted across steps; 0 = never.
   std::chrono::milliseconds status_every{1000};
   double status_every_controller_s = 30.0;
 };
 
 struct Step {
-  std::string what;                        // named in every message: "warm-up", "run-up", "the stop", ...
-  double budget_s = 600.0;                 // controller seconds from the step's first sample
-  std::vector<controller::Mode> modes;     // the step's samples are in one of these (empty: any)
-  std::uint64_t since_epoch = 0;           // samples read before this epoch belong to the phase before
-  bool stoppable = true;                   // the operator's stop flag ends it (false for stopping itself)
+  std::string what;                     // named in every message: "warm-up", "run-up", "the stop", ...
+  double budget_s = 600.0;              // controller seconds from the step's first sample
+  std::vector<controller::Mode> modes;  // the step's samples are in one of these (empty: any)
+  std::uint64_t since_epoch = 0;        // samples read before this epoch belong to the phase before
+  bool stoppable = true;                // the operator's stop flag ends it (false for stopping itself)
 };
 
 class Motion {
@@ -72,14 +75,18 @@ class Motion {
   std::function<void(const Sample&)> on_sample;
 
   // Receives until done(s) holds for a sample of the step; the step's samples go to `keep` when given.
-  Result collect(const Step& step, const std::function<bool(const Sample&)>& done, std::vector<Sample>* keep = nullptr);
-  // Speed hold at v_kmh, then wait until the speed has stayed within ±tolerance of it for settle_s (controller time).
-  Result hold(double v_kmh, double settle_s, const std::string& what, double budget_s = 600.0, double tolerance_kmh = 0.5);
-  // Controlled stop, then wait (not stoppable by the operator: stopping is what is wanted) for standstill: speed at
-  // or below the standstill threshold in idle or controlled-stop mode. `stopped` says whether it was confirmed.
+  Result collect(const Step& step, const std::function<bool(const Sample&)>& done,
+                 std::vector<Sample>* keep = nullptr);
+  // Speed hold at v_kmh, then wait until the speed has stayed within ±tolerance of it for settle_s
+  // (controller time).
+  Result hold(double v_kmh, double settle_s, const std::string& what, double budget_s = 600.0,
+              double tolerance_kmh = 0.5);
+  // Controlled stop, then wait (not stoppable by the operator: stopping is what is wanted) for standstill:
+  // speed at or below the standstill threshold in idle or controlled-stop mode. `stopped` says whether it was
+  // confirmed.
   Result stop_and_wait(double budget_s, bool& stopped);
-  // Without a stream: poll the status until the rollers stand still (commanding a stop while the controller still
-  // motors or simulates), every poll bounded; `last` gets the final status.
+  // Without a stream: poll the status until the rollers stand still (commanding a stop while the controller
+  // still motors or simulates), every poll bounded; `last` gets the final status.
   Result settle_by_status(double budget_s, controller::StatusReport& last);
   // The wall deadline a step of this controller budget gets.
   std::chrono::steady_clock::duration wall_budget(double budget_s) const;

@@ -15,11 +15,16 @@ double roller_curvature_factor(double tyre_radius_m, double roller_radius_m) {
 
 const char* to_string(Mode m) {
   switch (m) {
-    case Mode::idle: return "idle";
-    case Mode::speed_hold: return "speed-hold";
-    case Mode::road_load: return "road-load";
-    case Mode::controlled_stop: return "controlled-stop";
-    case Mode::constant_force: return "constant-force";
+    case Mode::idle:
+      return "idle";
+    case Mode::speed_hold:
+      return "speed-hold";
+    case Mode::road_load:
+      return "road-load";
+    case Mode::controlled_stop:
+      return "controlled-stop";
+    case Mode::constant_force:
+      return "constant-force";
   }
   return "unknown";
 }
@@ -48,20 +53,25 @@ double RollerModel::vehicle_loss_n(double v) const {
 double RollerModel::parasitic_residual_n(double v) const {
   const auto& d = truth_.dyno;
   if (v <= 0.0) return 0.0;
-  return (d.parasitic_compensation_error + d.parasitic_excess) * (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
+  return (d.parasitic_compensation_error + d.parasitic_excess) *
+         (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
 }
 
 double RollerModel::parasitic_true_n(double v) const {
   const auto& d = truth_.dyno;
   if (v <= 0.0) return 0.0;
-  return (1.0 + d.parasitic_excess) * (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
+  return (1.0 + d.parasitic_excess) *
+         (d.parasitic_f0_n + (d.parasitic_f1_n_per_kmh + d.parasitic_f2_n_per_kmh2 * v) * v);
 }
 
 double RollerModel::stated_base_inertia_kg() const {
-  return truth_.dyno.stated_base_inertia_kg > 0.0 ? truth_.dyno.stated_base_inertia_kg : truth_.dyno.base_inertia_kg;
+  return truth_.dyno.stated_base_inertia_kg > 0.0 ? truth_.dyno.stated_base_inertia_kg
+                                                  : truth_.dyno.base_inertia_kg;
 }
 
-double RollerModel::rotating_mass_kg() const { return truth_.vehicle_on_rollers ? truth_.vehicle.rotating_mass_on_rollers_kg : 0.0; }
+double RollerModel::rotating_mass_kg() const {
+  return truth_.vehicle_on_rollers ? truth_.vehicle.rotating_mass_on_rollers_kg : 0.0;
+}
 
 double RollerModel::coasting_mass_kg() const {
   // The controller simulates I_set − (the base inertia it believes); the true base inertia turns as it is.
@@ -97,7 +107,8 @@ void RollerModel::advance(double dt_s, double max_step_s) {
     switch (mode_) {
       case Mode::speed_hold: {
         const double target = hold_kmh_ / kKmhPerMps;
-        const double dv = std::clamp(target - v0, -truth_.dyno.motoring_accel_mps2 * h, truth_.dyno.motoring_accel_mps2 * h);
+        const double dv = std::clamp(target - v0, -truth_.dyno.motoring_accel_mps2 * h,
+                                     truth_.dyno.motoring_accel_mps2 * h);
         speed_mps_ = v0 + dv;
         break;
       }
@@ -137,18 +148,23 @@ double RollerModel::load_cell_n() const {
     case Mode::controlled_stop:
       // The force the motor needs: the vehicle's and residual parasitic losses, plus what accelerates the
       // physical rotating mass.
-      return vehicle_loss_n(v) + parasitic_residual_n(v) + (v > 0.0 && truth_.vehicle_on_rollers ? truth_.vehicle.hold_bias_n : 0.0) +
+      return vehicle_loss_n(v) + parasitic_residual_n(v) +
+             (v > 0.0 && truth_.vehicle_on_rollers ? truth_.vehicle.hold_bias_n : 0.0) +
              (truth_.dyno.base_inertia_kg + rotating_mass_kg()) * accel_mps2_;
     case Mode::road_load:
       // The set load plus the electrically simulated part of the inertia.
       return set_.force_n(v) - (coasting_mass_kg() - truth_.dyno.base_inertia_kg) * accel_mps2_;
-    case Mode::constant_force: return force_cmd_n_;  // the force the motor applies, as its load cell reads it
-    case Mode::idle: return 0.0;
+    case Mode::constant_force:
+      return force_cmd_n_;  // the force the motor applies, as its load cell reads it
+    case Mode::idle:
+      return 0.0;
   }
   return 0.0;
 }
 
-Sample RollerModel::exact() const { return {time_s_, speed_kmh(), load_cell_n()}; }
+Sample RollerModel::exact() const {
+  return {time_s_, speed_kmh(), load_cell_n()};
+}
 
 Sample RollerModel::sample() {
   Sample s = exact();
@@ -157,11 +173,13 @@ Sample RollerModel::sample() {
   return s;
 }
 
-Trace record_coastdown(RollerModel& model, double start_kmh, double end_kmh, double rate_hz, double settle_s) {
+Trace record_coastdown(RollerModel& model, double start_kmh, double end_kmh, double rate_hz,
+                       double settle_s) {
   model.hold_speed(start_kmh);
   const double dt = 1.0 / rate_hz;
   // Run up: bounded by the time the ramp needs plus the settling time.
-  const double ramp_s = std::abs(start_kmh - model.speed_kmh()) / kKmhPerMps / model.truth().dyno.motoring_accel_mps2;
+  const double ramp_s =
+      std::abs(start_kmh - model.speed_kmh()) / kKmhPerMps / model.truth().dyno.motoring_accel_mps2;
   model.advance(ramp_s + settle_s, std::min(dt, 0.01));
   model.release_road_load();
   Trace tr;

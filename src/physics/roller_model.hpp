@@ -4,10 +4,12 @@
 //
 // Model (SI inside; speeds in km/h at the interface):
 //   road-load simulation:  (I_sim·(1+ε_I) + m_rot)·dv/dt = −(F_set(v) + L(v, θ) + P_res(v))
-//   L(v, θ)   vehicle loss on the rollers = tyre loss × √(1 + r_tyre/R_roller) + drivetrain spin loss × (1 + k·(1−θ))
+//   L(v, θ)   vehicle loss on the rollers = tyre loss × √(1 + r_tyre/R_roller) + drivetrain spin loss × (1 +
+//   k·(1−θ))
 //             + brake drag;  θ ∈ [0, 1] the drivetrain warmth, rising while the rollers turn, falling at rest
 //   P_res(v)  dyno parasitic loss left after the controller's compensation: ε_P × P(v)
-//   speed hold: the dyno drives the rollers to the set speed; the load cell reads L + P_res + bias + inertial force
+//   speed hold: the dyno drives the rollers to the set speed; the load cell reads L + P_res + bias + inertial
+//   force
 // The curvature factor form is from memory (domain.md §5); the rest is a plain lumped-mass model.
 #pragma once
 
@@ -23,7 +25,8 @@ namespace loadtrim::physics {
 struct VehicleTruth {
   std::string name = "unnamed";
   double test_mass_kg = 1500.0;
-  double rotating_mass_on_rollers_kg = 25.0;  // wheels, axle and drivetrain the rollers turn, as an equivalent mass
+  double rotating_mass_on_rollers_kg =
+      25.0;  // wheels, axle and drivetrain the rollers turn, as an equivalent mass
   double tyre_radius_m = 0.32;
   double tyre_loss_flat_n = 60.0;             // tyre rolling loss on a flat road, constant part
   double tyre_loss_flat_n_per_kmh = 0.05;     // and its speed slope
@@ -32,31 +35,31 @@ struct VehicleTruth {
   double drivetrain_cold_excess = 0.25;       // fraction added to the spin loss when fully cold
   double warm_up_time_constant_s = 600.0;
   double cool_down_time_constant_s = 1800.0;
-  double initial_warmth = 0.0;                // 0 = cold soak, 1 = fully warm
+  double initial_warmth = 0.0;  // 0 = cold soak, 1 = fully warm
   double brake_drag_n = 5.0;
-  double hold_bias_n = 2.0;                   // speed hold reads this much more than the coasting loss
+  double hold_bias_n = 2.0;  // speed hold reads this much more than the coasting loss
 };
 
 struct DynoTruth {
-  double roller_diameter_m = 1.2192;          // 48 in
-  double base_inertia_kg = 1250.0;            // mechanical inertia of rollers and motor, as equivalent mass
-  double stated_base_inertia_kg = 0.0;        // what the controller believes and reports (its nameplate); 0 = the
-                                              // true value. A difference is an inertia simulation error of its own.
-  double inertia_simulation_error = 0.0;      // fraction: the simulated inertia is I_set·(1 + this)
-  double parasitic_f0_n = 20.0;               // the dyno's own parasitic loss curve
+  double roller_diameter_m = 1.2192;    // 48 in
+  double base_inertia_kg = 1250.0;      // mechanical inertia of rollers and motor, as equivalent mass
+  double stated_base_inertia_kg = 0.0;  // what the controller believes and reports (its nameplate); 0 = the
+                                        // true value. A difference is an inertia simulation error of its own.
+  double inertia_simulation_error = 0.0;  // fraction: the simulated inertia is I_set·(1 + this)
+  double parasitic_f0_n = 20.0;           // the dyno's own parasitic loss curve
   double parasitic_f1_n_per_kmh = 0.10;
   double parasitic_f2_n_per_kmh2 = 0.0008;
-  double parasitic_compensation_error = 0.05; // fraction of the parasitic loss the compensation misses
-  double parasitic_excess = 0.0;              // the rollers' true loss is (1 + this) × the curve above, which is
-                                              // what the controller compensates (a worn bearing: a planted fault)
-  double speed_noise_kmh = 0.05;              // encoder noise, standard deviation
-  double force_noise_n = 2.0;                 // load-cell noise, standard deviation
-  double motoring_accel_mps2 = 1.5;           // speed-hold ramp rate
-  double stop_decel_mps2 = 2.0;               // controlled-stop deceleration
+  double parasitic_compensation_error = 0.05;  // fraction of the parasitic loss the compensation misses
+  double parasitic_excess = 0.0;     // the rollers' true loss is (1 + this) × the curve above, which is
+                                     // what the controller compensates (a worn bearing: a planted fault)
+  double speed_noise_kmh = 0.05;     // encoder noise, standard deviation
+  double force_noise_n = 2.0;        // load-cell noise, standard deviation
+  double motoring_accel_mps2 = 1.5;  // speed-hold ramp rate
+  double stop_decel_mps2 = 2.0;      // controlled-stop deceleration
 };
 
 struct Truth {
-  bool vehicle_on_rollers = true;             // false: the empty rollers (the dyno's own checks)
+  bool vehicle_on_rollers = true;  // false: the empty rollers (the dyno's own checks)
   VehicleTruth vehicle;
   DynoTruth dyno;
   std::uint64_t noise_seed = 1;
@@ -66,8 +69,8 @@ struct Truth {
 double roller_curvature_factor(double tyre_radius_m, double roller_radius_m);
 
 // idle: motor off; at speed the rollers coast freely on their own inertia and losses (no simulation, no
-// compensation). constant_force: the motor applies a set force at the roller surface, parasitic compensation on,
-// no inertia or road-load simulation (the base inertia check).
+// compensation). constant_force: the motor applies a set force at the roller surface, parasitic compensation
+// on, no inertia or road-load simulation (the base inertia check).
 enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop, constant_force };
 const char* to_string(Mode m);
 
@@ -114,9 +117,9 @@ class RollerModel {
   double vehicle_loss_n(double speed_kmh) const;
   double parasitic_residual_n(double speed_kmh) const;
   double parasitic_true_n(double speed_kmh) const;  // the rollers' whole own loss (free coast)
-  double coasting_mass_kg() const;  // I_sim·(1+ε) + m_rot + (base − stated base)
+  double coasting_mass_kg() const;                  // I_sim·(1+ε) + m_rot + (base − stated base)
   double stated_base_inertia_kg() const;
-  double rotating_mass_kg() const;   // of the vehicle on the rollers (0 when empty)
+  double rotating_mass_kg() const;  // of the vehicle on the rollers (0 when empty)
   // Total retarding force in road-load simulation at a speed, N.
   double road_load_force_n(double speed_kmh) const;
 
@@ -147,6 +150,7 @@ struct Trace {
 
 // Run up to start_kmh in speed hold (settling for settle_s), release into road-load simulation and sample
 // at rate_hz until the speed is below end_kmh; the model is left in controlled stop, not advanced further.
-Trace record_coastdown(RollerModel& model, double start_kmh, double end_kmh, double rate_hz, double settle_s = 2.0);
+Trace record_coastdown(RollerModel& model, double start_kmh, double end_kmh, double rate_hz,
+                       double settle_s = 2.0);
 
 }  // namespace loadtrim::physics

@@ -5,14 +5,15 @@
 
 namespace loadtrim::physics {
 
-Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayout layout, const DynoTruth& dyno,
-                   std::mt19937_64& rng, const TruthSpread& spread) {
+Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayout layout,
+                   const DynoTruth& dyno, std::mt19937_64& rng, const TruthSpread& spread) {
   std::normal_distribution<double> z(0.0, 1.0);
   std::uniform_real_distribution<double> u(0.0, 1.0);
   constexpr double kZ95 = 1.6448536269514722;  // standard normal 95th percentile
   const double s20 = std::log(spread.loss_p95_20_n / spread.loss_median_20_n) / kZ95;
   const double s130 = std::log(spread.loss_p95_130_n / spread.loss_median_130_n) / kZ95;
-  // The two speeds are strongly correlated in the data (a lossy car is lossy at every speed): ρ ≈ 0.8 assumed.
+  // The two speeds are strongly correlated in the data (a lossy car is lossy at every speed): ρ ≈ 0.8
+  // assumed.
   const double z1 = z(rng), z2 = 0.8 * z1 + 0.6 * z(rng);
   const double l20 = spread.loss_median_20_n * std::exp(s20 * z1);
   const double l130 = std::max(l20 * 1.02, spread.loss_median_130_n * std::exp(s130 * z2));

@@ -1,6 +1,6 @@
-// Randomised but realistic truths for simulated vehicles, scaled to the public US EPA Test Car List: there the
-// target minus set load at 20 km/h has a median of about 115 N (p95 about 250 N) and at 130 km/h about 160 N
-// (p95 about 350 N) (samples/data/README.md; domain.md §5). Pure: the generator is passed in.
+// Randomised but realistic truths for simulated vehicles, scaled to the public US EPA Test Car List: there
+// the target minus set load at 20 km/h has a median of about 115 N (p95 about 250 N) and at 130 km/h about
+// 160 N (p95 about 350 N) (samples/data/README.md; domain.md §5). Pure: the generator is passed in.
 #pragma once
 
 #include <random>
@@ -20,7 +20,7 @@ struct TruthSpread {
 
 // A truth for a vehicle of this test mass and rotating mass on this dyno layout; `dyno` supplies the
 // rollers (diameter, base inertia, parasitic curve, noise).
-Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayout layout, const DynoTruth& dyno,
-                   std::mt19937_64& rng, const TruthSpread& spread = {});
+Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayout layout,
+                   const DynoTruth& dyno, std::mt19937_64& rng, const TruthSpread& spread = {});
 
 }  // namespace loadtrim::physics

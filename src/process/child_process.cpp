@@ -1,7 +1,5 @@
 #include "process/child_process.hpp"
 
-#include <thread>
-
 #include <fcntl.h>
 #include <poll.h>
 #include <signal.h>
@@ -10,6 +8,7 @@
 #include <unistd.h>
 
 #include <stdexcept>
+#include <thread>
 
 namespace loadtrim::process {
 
@@ -54,7 +53,9 @@ std::optional<std::string> ChildProcess::read_line(std::chrono::milliseconds tim
       buffer_.erase(0, nl + 1);
       return line;
     }
-    const auto left = std::chrono::duration_cast<std::chrono::milliseconds>(deadline - std::chrono::steady_clock::now()).count();
+    const auto left =
+        std::chrono::duration_cast<std::chrono::milliseconds>(deadline - std::chrono::steady_clock::now())
+            .count();
     if (left <= 0) return std::nullopt;
     pollfd p{out_, POLLIN, 0};
     if (::poll(&p, 1, static_cast<int>(left)) <= 0) return std::nullopt;

@@ -1,12 +1,13 @@
-// A child process with its stdout on a pipe (stdin from /dev/null), killed with SIGKILL if the parent dies first
-// (PR_SET_PDEATHSIG) and on destruction if still running. Used to start the simulated controller and, in tests,
-// the loadtrim command itself. Processes are always stopped by their PID.
+// A child process with its stdout on a pipe (stdin from /dev/null), killed with SIGKILL if the parent dies
+// first (PR_SET_PDEATHSIG) and on destruction if still running. Used to start the simulated controller and,
+// in tests, the loadtrim command itself. Processes are always stopped by their PID.
 #pragma once
+
+#include <sys/types.h>
 
 #include <chrono>
 #include <optional>
 #include <string>
-#include <sys/types.h>
 #include <vector>
 
 namespace loadtrim::process {

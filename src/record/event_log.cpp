@@ -49,8 +49,9 @@ VerifyResult parse_log(const std::string& text, std::vector<LogLine>* lines, boo
       return v;
     }
     if (j["prev"].get<std::string>() != prev) {
-      // Record n's "prev" does not match record n−1: either record n−1 was altered (the usual case: its content
-      // changed, its own link did not) or record n's link was. The earlier one is named as the first broken record.
+      // Record n's "prev" does not match record n−1: either record n−1 was altered (the usual case: its
+      // content changed, its own link did not) or record n's link was. The earlier one is named as the first
+      // broken record.
       v.first_bad_record = static_cast<std::int64_t>(n ? n - 1 : 0);
       v.message = n ? "record " + std::to_string(n - 1) + " was altered (record " + std::to_string(n) +
                           " no longer chains to it), or record " + std::to_string(n) + "'s link was"
@@ -109,9 +110,10 @@ EventLog::EventLog(std::string path) : path_(std::move(path)) {
     }
     next_seq_ = v.records;
   }
-  // Test hook (the fault matrix): LOADTRIM_TEST_FAIL_WRITES_AFTER=N makes every append after the Nth record of this
-  // process fail as a full disk would. Never set in production; documented in docs/session.md.
-  if (const char* n = std::getenv("LOADTRIM_TEST_FAIL_WRITES_AFTER")) fail_after_ = std::strtoll(n, nullptr, 10);
+  // Test hook (the fault matrix): LOADTRIM_TEST_FAIL_WRITES_AFTER=N makes every append after the Nth record
+  // of this process fail as a full disk would. Never set in production; documented in docs/session.md.
+  if (const char* n = std::getenv("LOADTRIM_TEST_FAIL_WRITES_AFTER"))
+    fail_after_ = std::strtoll(n, nullptr, 10);
   fd_ = ::open(path_.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0644);
   if (fd_ < 0) error_ = "cannot open " + path_ + " for appending: " + std::strerror(errno);
 }
@@ -131,7 +133,8 @@ bool EventLog::append(const std::string& type, nlohmann::json payload, const std
     j["utc"] = utc;
     j["type"] = type;
     for (auto it = payload.begin(); payload.is_object() && it != payload.end(); ++it)
-      if (it.key() != "seq" && it.key() != "prev" && it.key() != "type" && it.key() != "utc") j[it.key()] = it.value();
+      if (it.key() != "seq" && it.key() != "prev" && it.key() != "type" && it.key() != "utc")
+        j[it.key()] = it.value();
     j["prev"] = last_hash_;
     const std::string line = j.dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
     const std::string out = line + "\n";

@@ -2,8 +2,8 @@
 // record's line (a hash chain; the first record's "prev" is 64 zeros). Each append is written, flushed and
 // fsync'd before it returns, so a record that append() confirmed survives a crash or SIGKILL.
 //
-// Record layout: {"seq": n, "utc": "...", "type": "...", ...payload..., "prev": "<hex>"}; the hash of a record
-// is the SHA-256 of its line without the '\n'.
+// Record layout: {"seq": n, "utc": "...", "type": "...", ...payload..., "prev": "<hex>"}; the hash of a
+// record is the SHA-256 of its line without the '\n'.
 #pragma once
 
 #include <nlohmann/json.hpp>
@@ -67,9 +67,9 @@ struct LogLine {
 VerifyResult parse_log(const std::string& text, std::vector<LogLine>* lines, bool* torn = nullptr);
 
 // Whether a session or check folder is intact as far as the folder itself shows: ok unless verify_folder
-// (record/verify.hpp) finds it broken — the chain, every recorded file hash, no path outside the folder, and, when
-// sealed, the seal's coverage. An unfinished or unsigned folder is ok here; `loadtrim verify` tells them apart.
-// first_bad_record is the record named by the finding.
+// (record/verify.hpp) finds it broken — the chain, every recorded file hash, no path outside the folder, and,
+// when sealed, the seal's coverage. An unfinished or unsigned folder is ok here; `loadtrim verify` tells them
+// apart. first_bad_record is the record named by the finding.
 VerifyResult verify_session_folder(const std::string& folder);
 
 }  // namespace loadtrim::record

@@ -22,7 +22,8 @@ namespace fs = std::filesystem;
 std::string utc_now() {
   const auto now = std::chrono::system_clock::now();
   const std::time_t t = std::chrono::system_clock::to_time_t(now);
-  const auto ms = std::chrono::duration_cast<std::chrono::milliseconds>(now.time_since_epoch()).count() % 1000;
+  const auto ms =
+      std::chrono::duration_cast<std::chrono::milliseconds>(now.time_since_epoch()).count() % 1000;
   std::tm tm{};
   gmtime_r(&t, &tm);
   char buf[40];
@@ -43,7 +44,8 @@ std::string utc_compact_now() {
 
 std::string safe_name(const std::string& s) {
   std::string out;
-  for (char c : s) out += (std::isalnum(static_cast<unsigned char>(c)) || c == '-' || c == '_' || c == '.') ? c : '_';
+  for (char c : s)
+    out += (std::isalnum(static_cast<unsigned char>(c)) || c == '-' || c == '_' || c == '.') ? c : '_';
   return out.empty() ? "unnamed" : out;
 }
 
@@ -65,7 +67,8 @@ bool write_durable(const std::string& path, const std::string& content, std::str
     error = "cannot create " + tmp + ": " + std::strerror(errno);
     return false;
   }
-  // Every failure below removes the temporary file: a full disk must not leave *.tmp files in a record folder.
+  // Every failure below removes the temporary file: a full disk must not leave *.tmp files in a record
+  // folder.
   auto fail = [&](const std::string& what, bool close_fd) {
     error = what + ": " + std::strerror(errno);
     if (close_fd) ::close(fd);
@@ -98,7 +101,9 @@ nlohmann::json copy_input(const std::string& folder, const std::string& source, 
   const std::string rel = "inputs/" + name;
   std::string err;
   if (!write_durable((fs::path(folder) / rel).string(), ss.str(), err)) throw std::runtime_error(err);
-  return {{"path", rel}, {"sha256", sha256_hex(ss.str())}, {"source", fs::absolute(source).lexically_normal().string()}};
+  return {{"path", rel},
+          {"sha256", sha256_hex(ss.str())},
+          {"source", fs::absolute(source).lexically_normal().string()}};
 }
 
 std::string trace_csv(const std::vector<controller::Sample>& samples) {
@@ -106,14 +111,15 @@ std::string trace_csv(const std::vector<controller::Sample>& samples) {
   out.reserve(samples.size() * 48 + 64);
   char buf[128];
   for (const auto& s : samples) {
-    std::snprintf(buf, sizeof buf, "%llu,%.4f,%.4f,%.2f,%s,%u\n", static_cast<unsigned long long>(s.index), s.time_s, s.speed_kmh,
-                  s.force_n, controller::to_string(s.mode), s.flags);
+    std::snprintf(buf, sizeof buf, "%llu,%.4f,%.4f,%.2f,%s,%u\n", static_cast<unsigned long long>(s.index),
+                  s.time_s, s.speed_kmh, s.force_n, controller::to_string(s.mode), s.flags);
     out += buf;
   }
   return out;
 }
 
-bool read_trace_csv(const std::string& path, std::vector<double>& t, std::vector<double>& v, std::string& error) {
+bool read_trace_csv(const std::string& path, std::vector<double>& t, std::vector<double>& v,
+                    std::string& error) {
   std::ifstream in(path, std::ios::binary);
   if (!in) {
     error = "cannot open " + path;
@@ -124,8 +130,8 @@ bool read_trace_csv(const std::string& path, std::vector<double>& t, std::vector
   return parse_trace_csv(ss.str(), path, t, v, error);
 }
 
-bool parse_trace_csv(const std::string& text, const std::string& name, std::vector<double>& t, std::vector<double>& v,
-                     std::string& error) {
+bool parse_trace_csv(const std::string& text, const std::string& name, std::vector<double>& t,
+                     std::vector<double>& v, std::string& error) {
   std::istringstream in(text);
   const std::string& path = name;
   std::string line;

@@ -14,8 +14,8 @@
 
 namespace loadtrim::record {
 
-std::string utc_now();             // 2026-12-01T19:39:30.123Z
-std::string utc_compact_now();     // 20261201T193930Z, for folder names
+std::string utc_now();                        // 2026-12-01T19:39:30.123Z
+std::string utc_compact_now();                // 20261201T193930Z, for folder names
 std::string safe_name(const std::string& s);  // letters, digits, '-', '_', '.' only
 
 // Creates <root>/<utc>-<id>/ with inputs/ and traces/; throws std::runtime_error when it cannot.

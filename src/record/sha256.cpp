@@ -28,8 +28,8 @@ std::string sha256_hex(std::string_view data) {
   Ctx c;
   unsigned char md[EVP_MAX_MD_SIZE];
   unsigned n = 0;
-  if (!c.p || EVP_DigestInit_ex(c.p, EVP_sha256(), nullptr) != 1 || EVP_DigestUpdate(c.p, data.data(), data.size()) != 1 ||
-      EVP_DigestFinal_ex(c.p, md, &n) != 1)
+  if (!c.p || EVP_DigestInit_ex(c.p, EVP_sha256(), nullptr) != 1 ||
+      EVP_DigestUpdate(c.p, data.data(), data.size()) != 1 || EVP_DigestFinal_ex(c.p, md, &n) != 1)
     throw std::runtime_error("SHA-256 failed (OpenSSL)");
   return hex(md, n);
 }
@@ -38,7 +38,8 @@ std::string sha256_file(const std::string& path) {
   std::ifstream in(path, std::ios::binary);
   if (!in) return "";
   Ctx c;
-  if (!c.p || EVP_DigestInit_ex(c.p, EVP_sha256(), nullptr) != 1) throw std::runtime_error("SHA-256 failed (OpenSSL)");
+  if (!c.p || EVP_DigestInit_ex(c.p, EVP_sha256(), nullptr) != 1)
+    throw std::runtime_error("SHA-256 failed (OpenSSL)");
   char buf[65536];
   while (in) {
     in.read(buf, sizeof buf);

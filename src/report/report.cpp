@@ -6,8 +6,8 @@
 #include <cstdio>
 #include <filesystem>
 #include <fstream>
-#include <sstream>
 #include <nlohmann/json.hpp>
+#include <sstream>
 
 #include "core/road_load.hpp"
 #include "core/units.hpp"
@@ -31,36 +31,45 @@ std::string fmt(double v, int decimals) {
   return b;
 }
 
-// A table cell traced to its record: the value at `key` (dot path, numeric parts index arrays) of record `seq`.
-// `convert` names a unit conversion applied for display: "", "lbf", "lbf/mph", "lbf/mph2".
-std::string cell(const json& rec, const std::string& key, int decimals, const std::string& convert = "", const std::string& cls = "") {
+// A table cell traced to its record: the value at `key` (dot path, numeric parts index arrays) of record
+// `seq`. `convert` names a unit conversion applied for display: "", "lbf", "lbf/mph", "lbf/mph2".
+std::string cell(const json& rec, const std::string& key, int decimals, const std::string& convert = "",
+                 const std::string& cls = "") {
   const json* v = &rec;
   std::size_t p = 0;
   while (p <= key.size()) {
     const auto q = key.find('.', p);
     const std::string part = key.substr(p, q == std::string::npos ? std::string::npos : q - p);
-    if (v->is_array()) v = &(*v)[std::stoul(part)];
-    else v = &(*v)[part];
+    if (v->is_array())
+      v = &(*v)[std::stoul(part)];
+    else
+      v = &(*v)[part];
     if (q == std::string::npos) break;
     p = q + 1;
   }
   double x = v->is_number() ? v->get<double>() : NAN;
-  if (convert == "lbf") x = core::units::n_to_lbf(x);
-  else if (convert == "lbf/mph") x = core::units::n_to_lbf(x * core::units::kKmhPerMph);
-  else if (convert == "lbf/mph2") x = core::units::n_to_lbf(x * core::units::kKmhPerMph * core::units::kKmhPerMph);
-  return "<td class=\"num" + (cls.empty() ? "" : " " + cls) + "\" data-record=\"" + std::to_string(rec.value("seq", -1)) +
-         "\" data-key=\"" + key + "\"" + (convert.empty() ? "" : " data-convert=\"" + convert + "\"") + ">" + fmt(x, decimals) + "</td>";
+  if (convert == "lbf")
+    x = core::units::n_to_lbf(x);
+  else if (convert == "lbf/mph")
+    x = core::units::n_to_lbf(x * core::units::kKmhPerMph);
+  else if (convert == "lbf/mph2")
+    x = core::units::n_to_lbf(x * core::units::kKmhPerMph * core::units::kKmhPerMph);
+  return "<td class=\"num" + (cls.empty() ? "" : " " + cls) + "\" data-record=\"" +
+         std::to_string(rec.value("seq", -1)) + "\" data-key=\"" + key + "\"" +
+         (convert.empty() ? "" : " data-convert=\"" + convert + "\"") + ">" + fmt(x, decimals) + "</td>";
 }
 
-std::string esc(const std::string& s) { return xml_escape(s); }
+std::string esc(const std::string& s) {
+  return xml_escape(s);
+}
 
 core::RoadLoad coef(const json& j) {
   return {j.value("f0_n", 0.0), j.value("f1_n_per_kmh", 0.0), j.value("f2_n_per_kmh2", 0.0)};
 }
 
-// What the report reads from each record, so that a record that chains correctly but lacks a member (or has one
-// of another type) gives a sentence naming the record and the member, never an exception. 'n' number, 'b' bool,
-// 's' string, 'o' object, 'a' array; a trailing '?' allows the member to be absent.
+// What the report reads from each record, so that a record that chains correctly but lacks a member (or has
+// one of another type) gives a sentence naming the record and the member, never an exception. 'n' number, 'b'
+// bool, 's' string, 'o' object, 'a' array; a trailing '?' allows the member to be absent.
 struct Need {
   const char* path;
   const char* kind;
@@ -88,8 +97,9 @@ std::string check_needs(const json& r, std::initializer_list<Need> needs) {
       if (optional) continue;
       return "lacks " + path;
     }
-    const bool ok = (n.kind[0] == 'n' && v->is_number()) || (n.kind[0] == 'b' && v->is_boolean()) || (n.kind[0] == 's' && v->is_string()) ||
-                    (n.kind[0] == 'o' && v->is_object()) || (n.kind[0] == 'a' && v->is_array());
+    const bool ok = (n.kind[0] == 'n' && v->is_number()) || (n.kind[0] == 'b' && v->is_boolean()) ||
+                    (n.kind[0] == 's' && v->is_string()) || (n.kind[0] == 'o' && v->is_object()) ||
+                    (n.kind[0] == 'a' && v->is_array());
     if (!ok) return "has a " + path + " of the wrong type";
   }
   return "";
@@ -97,28 +107,65 @@ std::string check_needs(const json& r, std::initializer_list<Need> needs) {
 
 // The first problem with a record the report uses, "" when none.
 std::string record_problem(const json& r) {
-  if (const std::string p = check_needs(r, {{"type", "s?"}, {"utc", "s?"}, {"seq", "n?"}}); !p.empty()) return p;
+  if (const std::string p = check_needs(r, {{"type", "s?"}, {"utc", "s?"}, {"seq", "n?"}}); !p.empty())
+    return p;
   const std::string type = r.value("type", "");
   if (type == "session_started")
-    return check_needs(r, {{"target", "o?"}, {"target.f0_n", "n?"}, {"target.f1_n_per_kmh", "n?"}, {"target.f2_n_per_kmh2", "n?"},
-                           {"tolerance_n", "n?"}, {"vehicle", "s?"}, {"vehicle_description", "s?"}, {"test_mass_kg", "n?"},
-                           {"cell", "s?"}, {"profile", "s?"}, {"method", "s?"}, {"standard", "s?"}, {"software", "o?"},
-                           {"software.version", "s?"}, {"software.build", "s?"}, {"operator_note", "s?"}, {"confirmation", "s?"}});
+    return check_needs(r, {{"target", "o?"},
+                           {"target.f0_n", "n?"},
+                           {"target.f1_n_per_kmh", "n?"},
+                           {"target.f2_n_per_kmh2", "n?"},
+                           {"tolerance_n", "n?"},
+                           {"vehicle", "s?"},
+                           {"vehicle_description", "s?"},
+                           {"test_mass_kg", "n?"},
+                           {"cell", "s?"},
+                           {"profile", "s?"},
+                           {"method", "s?"},
+                           {"standard", "s?"},
+                           {"software", "o?"},
+                           {"software.version", "s?"},
+                           {"software.build", "s?"},
+                           {"operator_note", "s?"},
+                           {"confirmation", "s?"}});
   if (type == "finished")
-    return check_needs(r, {{"accepted", "b?"}, {"result", "s?"}, {"stop_reason", "s?"}, {"coastdowns", "n?"}, {"cell_time_s", "n?"},
-                           {"final_set", "o?"}, {"final_set.f0_n", "n?"}, {"final_set.f1_n_per_kmh", "n?"}, {"final_set.f2_n_per_kmh2", "n?"}});
+    return check_needs(r, {{"accepted", "b?"},
+                           {"result", "s?"},
+                           {"stop_reason", "s?"},
+                           {"coastdowns", "n?"},
+                           {"cell_time_s", "n?"},
+                           {"final_set", "o?"},
+                           {"final_set.f0_n", "n?"},
+                           {"final_set.f1_n_per_kmh", "n?"},
+                           {"final_set.f2_n_per_kmh2", "n?"}});
   if (type == "first_setting") return check_needs(r, {{"strategy", "s?"}, {"fallback_reason", "s?"}});
   if (type != "coastdown") return "";
-  std::string p = check_needs(r, {{"run", "n"}, {"usable", "b"}, {"set", "o"}, {"set.f0_n", "n"}, {"set.f1_n_per_kmh", "n"},
-                                  {"set.f2_n_per_kmh2", "n"}, {"unusable_reason", "s?"}, {"files", "a?"}});
+  std::string p = check_needs(r, {{"run", "n"},
+                                  {"usable", "b"},
+                                  {"set", "o"},
+                                  {"set.f0_n", "n"},
+                                  {"set.f1_n_per_kmh", "n"},
+                                  {"set.f2_n_per_kmh2", "n"},
+                                  {"unusable_reason", "s?"},
+                                  {"files", "a?"}});
   if (!p.empty() || !r["usable"].get<bool>()) return p;
-  p = check_needs(r, {{"simulated", "o"}, {"simulated.f0_n", "n"}, {"simulated.f1_n_per_kmh", "n"}, {"simulated.f2_n_per_kmh2", "n"},
-                      {"check", "o"}, {"check.pass", "b"}, {"check.worst_abs_deviation_n", "n"}, {"check.rows", "a"},
-                      {"decision", "o"}, {"decision.reason", "s"}, {"bands", "a"}});
+  p = check_needs(r, {{"simulated", "o"},
+                      {"simulated.f0_n", "n"},
+                      {"simulated.f1_n_per_kmh", "n"},
+                      {"simulated.f2_n_per_kmh2", "n"},
+                      {"check", "o"},
+                      {"check.pass", "b"},
+                      {"check.worst_abs_deviation_n", "n"},
+                      {"check.rows", "a"},
+                      {"decision", "o"},
+                      {"decision.reason", "s"},
+                      {"bands", "a"}});
   if (!p.empty()) return p;
   std::size_t i = 0;
   for (const auto& row : r["check"]["rows"]) {
-    const std::string q = check_needs(row, {{"speed_kmh", "n"}, {"target_n", "n"}, {"measured_n", "n"}, {"deviation_n", "n"}, {"pass", "b"}});
+    const std::string q = check_needs(
+        row,
+        {{"speed_kmh", "n"}, {"target_n", "n"}, {"measured_n", "n"}, {"deviation_n", "n"}, {"pass", "b"}});
     if (!q.empty()) return "has check.rows." + std::to_string(i) + " that " + q;
     ++i;
   }
@@ -128,8 +175,8 @@ std::string record_problem(const json& r) {
     if (!b.is_object() || !q.empty()) return "has bands." + std::to_string(i) + " that is malformed";
     ++i;
   }
-  if (r.contains("files") && (r["files"].empty() || !r["files"][0].is_object() || !r["files"][0].contains("path") ||
-                              !r["files"][0]["path"].is_string()))
+  if (r.contains("files") && (r["files"].empty() || !r["files"][0].is_object() ||
+                              !r["files"][0].contains("path") || !r["files"][0]["path"].is_string()))
     return "has a files list without a trace path";
   return "";
 }
@@ -164,12 +211,13 @@ static std::string write_report_body(const std::string& folder, const std::strin
   const record::FolderVerdict verdict = record::verify_folder(folder, options);
   out.chain_ok = verdict.intact();
   out.verify_outcome = record::to_string(verdict.outcome);
-  // Every record that parses, whether or not the chain holds: the report shows what is there and says which part
-  // is not vouched for. Read without leaving the folder (record/inside.hpp).
+  // Every record that parses, whether or not the chain holds: the report shows what is there and says which
+  // part is not vouched for. Read without leaving the folder (record/inside.hpp).
   std::vector<json> recs;
   {
     const record::InsideFile ev = record::read_inside(folder, "events.jsonl");
-    if (ev.status != record::InsideStatus::ok) return "no readable events.jsonl in " + folder + ": " + ev.error;
+    if (ev.status != record::InsideStatus::ok)
+      return "no readable events.jsonl in " + folder + ": " + ev.error;
     std::istringstream in(ev.content);
     for (std::string l; std::getline(in, l);) {
       auto j = json::parse(l, nullptr, false);
@@ -179,8 +227,9 @@ static std::string write_report_body(const std::string& folder, const std::strin
   for (const auto& r : recs)
     if (const std::string p = record_problem(r); !p.empty())
       return "record " + (r.contains("seq") ? r["seq"].dump() : std::string("?")) + " (" +
-             (r.contains("type") && r["type"].is_string() ? r["type"].get<std::string>() : std::string("no type")) + ") " + p +
-             "; the report cannot be made from it";
+             (r.contains("type") && r["type"].is_string() ? r["type"].get<std::string>()
+                                                          : std::string("no type")) +
+             ") " + p + "; the report cannot be made from it";
   json started = json::object(), finished = json::object(), first = json::object();
   std::vector<json> runs;
   std::string t_first, t_last;
@@ -188,10 +237,14 @@ static std::string write_report_body(const std::string& folder, const std::strin
     const std::string type = r.value("type", "");
     if (t_first.empty()) t_first = r.value("utc", "");
     t_last = r.value("utc", "");
-    if (type == "session_started") started = r;
-    else if (type == "finished") finished = r;
-    else if (type == "first_setting") first = r;
-    else if (type == "coastdown") runs.push_back(r);
+    if (type == "session_started")
+      started = r;
+    else if (type == "finished")
+      finished = r;
+    else if (type == "first_setting")
+      first = r;
+    else if (type == "coastdown")
+      runs.push_back(r);
   }
   const core::RoadLoad target = started.contains("target") ? coef(started["target"]) : core::RoadLoad{};
   const double tol = started.value("tolerance_n", 10.0);
@@ -202,52 +255,72 @@ static std::string write_report_body(const std::string& folder, const std::strin
   h += "<h1>Road-load setting report</h1>\n";
   if (!verdict.intact()) {
     h += "<div class=\"banner bad\" id=\"chain-status\">LOG CHAIN BROKEN: " + esc(verdict.message) +
-         ". The records from the first broken one on are not vouched for by the log; do not use this setting without "
+         ". The records from the first broken one on are not vouched for by the log; do not use this setting "
+         "without "
          "investigating.</div>\n";
   } else {
-    h += "<div class=\"banner good\" id=\"chain-status\">Log chain verified: " + esc(verdict.message) + ".</div>\n";
+    h += "<div class=\"banner good\" id=\"chain-status\">Log chain verified: " + esc(verdict.message) +
+         ".</div>\n";
     std::string seal;
     bool good = false;
     switch (verdict.outcome) {
       case record::Outcome::verified:
         good = true;
-        seal = "Sealed (record " + std::to_string(verdict.seal->seq) + ") and signed with the cell's key " + verdict.seal->signer + ".";
+        seal = "Sealed (record " + std::to_string(verdict.seal->seq) + ") and signed with the cell's key " +
+               verdict.seal->signer + ".";
         break;
-      case record::Outcome::not_finished: seal = "NOT FINISHED: the folder has no seal; its result is not final."; break;
+      case record::Outcome::not_finished:
+        seal = "NOT FINISHED: the folder has no seal; its result is not final.";
+        break;
       case record::Outcome::unsigned_seal:
-        seal = "SEALED WITHOUT A SIGNATURE: no cell key was configured, so the seal does not show who made it.";
+        seal =
+            "SEALED WITHOUT A SIGNATURE: no cell key was configured, so the seal does not show who made it.";
         break;
       case record::Outcome::key_unknown:
         seal = "SIGNATURE NOT CHECKED: " + verdict.message.substr(verdict.message.rfind("; ") + 2) + ".";
         break;
-      case record::Outcome::broken: break;
+      case record::Outcome::broken:
+        break;
     }
-    h += std::string("<div class=\"banner ") + (good ? "good" : "bad") + "\" id=\"seal-status\">" + esc(seal) + "</div>\n";
+    h += std::string("<div class=\"banner ") + (good ? "good" : "bad") + "\" id=\"seal-status\">" +
+         esc(seal) + "</div>\n";
   }
   h += std::string("<div class=\"banner ") + (accepted ? "good" : "bad") + "\" id=\"result\">Result: " +
        esc(finished.empty() ? std::string("session not finished") : finished.value("result", "")) + " — " +
        esc(finished.value("stop_reason", "")) + "</div>\n";
   h += "<table class=\"meta\">";
-  auto meta = [&](const std::string& k, const std::string& v) { h += "<tr><td><b>" + esc(k) + "</b></td><td>" + esc(v) + "</td></tr>"; };
-  meta("Vehicle", started.value("vehicle", "") + (started.value("vehicle_description", "").empty() ? "" : " — " + started.value("vehicle_description", "")));
+  auto meta = [&](const std::string& k, const std::string& v) {
+    h += "<tr><td><b>" + esc(k) + "</b></td><td>" + esc(v) + "</td></tr>";
+  };
+  meta("Vehicle", started.value("vehicle", "") + (started.value("vehicle_description", "").empty()
+                                                      ? ""
+                                                      : " — " + started.value("vehicle_description", "")));
   meta("Test mass", fmt(started.value("test_mass_kg", 0.0), 1) + " kg");
   meta("Cell", started.value("cell", ""));
-  meta("Profile and method", started.value("profile", "") + ", " + started.value("method", "") + " method (" + started.value("standard", "") + ")");
-  meta("First setting", first.value("strategy", "") + (first.value("fallback_reason", "").empty() ? "" : " (" + first.value("fallback_reason", "") + ")"));
+  meta("Profile and method", started.value("profile", "") + ", " + started.value("method", "") + " method (" +
+                                 started.value("standard", "") + ")");
+  meta("First setting",
+       first.value("strategy", "") + (first.value("fallback_reason", "").empty()
+                                          ? ""
+                                          : " (" + first.value("fallback_reason", "") + ")"));
   meta("Started / last record (UTC)", t_first + " / " + t_last);
   const json sw = started.value("software", json::object());
-  meta("Software", "loadtrim " + sw.value("version", software_version) + ", build " + sw.value("build", "unknown"));
+  meta("Software",
+       "loadtrim " + sw.value("version", software_version) + ", build " + sw.value("build", "unknown"));
   meta("Operator note", started.value("operator_note", ""));
   meta("Confirmation", started.value("confirmation", ""));
-  meta("Coast-downs", std::to_string(finished.value("coastdowns", static_cast<int>(runs.size()))) + ", cell time " +
-                          fmt(finished.value("cell_time_s", 0.0) / 60.0, 1) + " min (controller clock)");
+  meta("Coast-downs", std::to_string(finished.value("coastdowns", static_cast<int>(runs.size()))) +
+                          ", cell time " + fmt(finished.value("cell_time_s", 0.0) / 60.0, 1) +
+                          " min (controller clock)");
   h += "</table>\n";
   if (verdict.seal) {
     h += "<table class=\"meta\" id=\"sign-off\"><tr><td><b>Sign-off</b></td><td>";
     if (verdict.approvals.empty()) h += "no approval recorded";
     for (const auto& a : verdict.approvals)
-      h += esc(a.reviewer) + ", " + esc(a.utc) + ": \u201c" + esc(a.statement) + "\u201d (record " + std::to_string(a.seq) + ", key " +
-           esc(a.signer) + (a.signature_checked ? ", signature verified" : ", signature NOT checked: reviewer key unknown") + ")<br>";
+      h += esc(a.reviewer) + ", " + esc(a.utc) + ": \u201c" + esc(a.statement) + "\u201d (record " +
+           std::to_string(a.seq) + ", key " + esc(a.signer) +
+           (a.signature_checked ? ", signature verified" : ", signature NOT checked: reviewer key unknown") +
+           ")<br>";
     h += "</td></tr></table>\n";
   }
   if (finished.contains("final_set")) {
@@ -257,11 +330,13 @@ static std::string write_report_body(const std::string& folder, const std::strin
   }
 
   // Coefficients table.
-  h += "<h2>Coefficients</h2>\n<table id=\"coefficients\"><tr><th>what</th><th>f0 N</th><th>f1 N/(km/h)</th><th>f2 N/(km/h)²</th>"
+  h += "<h2>Coefficients</h2>\n<table id=\"coefficients\"><tr><th>what</th><th>f0 N</th><th>f1 "
+       "N/(km/h)</th><th>f2 N/(km/h)²</th>"
        "<th>A lbf</th><th>B lbf/mph</th><th>C lbf/mph²</th></tr>\n";
   auto coef_row = [&](const std::string& what, const json& rec, const std::string& base) {
-    h += "<tr><td>" + esc(what) + "</td>" + cell(rec, base + ".f0_n", 2) + cell(rec, base + ".f1_n_per_kmh", 4) +
-         cell(rec, base + ".f2_n_per_kmh2", 5) + cell(rec, base + ".f0_n", 2, "lbf") + cell(rec, base + ".f1_n_per_kmh", 4, "lbf/mph") +
+    h += "<tr><td>" + esc(what) + "</td>" + cell(rec, base + ".f0_n", 2) +
+         cell(rec, base + ".f1_n_per_kmh", 4) + cell(rec, base + ".f2_n_per_kmh2", 5) +
+         cell(rec, base + ".f0_n", 2, "lbf") + cell(rec, base + ".f1_n_per_kmh", 4, "lbf/mph") +
          cell(rec, base + ".f2_n_per_kmh2", 5, "lbf/mph2") + "</tr>\n";
   };
   if (started.contains("target")) coef_row("target", started, "target");
@@ -269,8 +344,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
   auto csv_coef = [&](const std::string& run, const std::string& what, const core::RoadLoad& c) {
     const core::RoadLoadUs u = core::to_us(c);
     char b[256];
-    std::snprintf(b, sizeof b, "%s,%s,%.4f,%.6f,%.7f,%.4f,%.6f,%.7f\n", run.c_str(), what.c_str(), c.f0_n, c.f1_n_per_kmh, c.f2_n_per_kmh2,
-                  u.a_lbf, u.b_lbf_per_mph, u.c_lbf_per_mph2);
+    std::snprintf(b, sizeof b, "%s,%s,%.4f,%.6f,%.7f,%.4f,%.6f,%.7f\n", run.c_str(), what.c_str(), c.f0_n,
+                  c.f1_n_per_kmh, c.f2_n_per_kmh2, u.a_lbf, u.b_lbf_per_mph, u.c_lbf_per_mph2);
     coef_csv += b;
   };
   csv_coef("", "target", target);
@@ -291,21 +366,26 @@ static std::string write_report_body(const std::string& folder, const std::strin
   for (const auto& r : runs) {
     const std::string n = std::to_string(r.value("run", 0));
     if (!r.value("usable", false)) {
-      h += "<p>Coast-down " + n + ": <span class=\"fail\">unusable</span> — " + esc(r.value("unusable_reason", "")) + "</p>\n";
+      h += "<p>Coast-down " + n + ": <span class=\"fail\">unusable</span> — " +
+           esc(r.value("unusable_reason", "")) + "</p>\n";
       continue;
     }
-    h += "<table class=\"speeds\" id=\"speeds-" + n + "\"><tr><th colspan=\"5\">coast-down " + n + (r["check"].value("pass", false) ? " — within tolerance" : " — OUTSIDE tolerance") +
-         "; decision: " + esc(r["decision"].value("reason", "")) + "</th></tr>\n<tr><th>v km/h</th><th>target N</th><th>measured N</th><th>deviation N</th><th>result</th></tr>\n";
+    h += "<table class=\"speeds\" id=\"speeds-" + n + "\"><tr><th colspan=\"5\">coast-down " + n +
+         (r["check"].value("pass", false) ? " — within tolerance" : " — OUTSIDE tolerance") +
+         "; decision: " + esc(r["decision"].value("reason", "")) +
+         "</th></tr>\n<tr><th>v km/h</th><th>target N</th><th>measured N</th><th>deviation "
+         "N</th><th>result</th></tr>\n";
     const auto& rows = r["check"]["rows"];
     for (std::size_t i = 0; i < rows.size(); ++i) {
       const std::string k = "check.rows." + std::to_string(i);
       const bool pass = rows[i].value("pass", false);
-      h += "<tr>" + cell(r, k + ".speed_kmh", 0) + cell(r, k + ".target_n", 2) + cell(r, k + ".measured_n", 2) +
-           cell(r, k + ".deviation_n", 2, "", pass ? "" : "fail") + "<td class=\"" + (pass ? "pass" : "fail") + "\">" +
-           (pass ? "pass" : "FAIL") + "</td></tr>\n";
+      h += "<tr>" + cell(r, k + ".speed_kmh", 0) + cell(r, k + ".target_n", 2) +
+           cell(r, k + ".measured_n", 2) + cell(r, k + ".deviation_n", 2, "", pass ? "" : "fail") +
+           "<td class=\"" + (pass ? "pass" : "fail") + "\">" + (pass ? "pass" : "FAIL") + "</td></tr>\n";
       char b[160];
-      std::snprintf(b, sizeof b, "%s,%.1f,%.3f,%.3f,%.3f,%s\n", n.c_str(), rows[i].value("speed_kmh", 0.0), rows[i].value("target_n", 0.0),
-                    rows[i].value("measured_n", 0.0), rows[i].value("deviation_n", 0.0), pass ? "pass" : "fail");
+      std::snprintf(b, sizeof b, "%s,%.1f,%.3f,%.3f,%.3f,%s\n", n.c_str(), rows[i].value("speed_kmh", 0.0),
+                    rows[i].value("target_n", 0.0), rows[i].value("measured_n", 0.0),
+                    rows[i].value("deviation_n", 0.0), pass ? "pass" : "fail");
       dev_csv += b;
     }
     h += "</table>\n";
@@ -316,7 +396,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
   std::vector<double> vs;
   for (double v = 15.0; v <= 135.0; v += 1.0) vs.push_back(v);
   {
-    SvgPlot p("plot-force", "Road load against speed: target ± tolerance, and each coast-down", "speed (km/h)", "force (N)");
+    SvgPlot p("plot-force", "Road load against speed: target ± tolerance, and each coast-down",
+              "speed (km/h)", "force (N)");
     Band band{"target ± " + fmt(tol, 0) + " N", vs, {}, {}, "#009E73"};
     Series tgt{"target", vs, {}, "#000000", 1.2, false, true};
     for (double v : vs) {
@@ -333,16 +414,20 @@ static std::string write_report_body(const std::string& folder, const std::strin
     for (const auto& r : runs) {
       if (!r.value("usable", false)) continue;
       const core::RoadLoad c = coef(r["simulated"]);
-      Series s{&r == last ? "final: coast-down " + std::to_string(r.value("run", 0)) : "coast-down " + std::to_string(r.value("run", 0)),
-               vs, {}, &r == last ? "#D55E00" : kPalette[(k++) % 4], &r == last ? 3.0 : 1.2};
+      Series s{&r == last ? "final: coast-down " + std::to_string(r.value("run", 0))
+                          : "coast-down " + std::to_string(r.value("run", 0)),
+               vs,
+               {},
+               &r == last ? "#D55E00" : kPalette[(k++) % 4],
+               &r == last ? 3.0 : 1.2};
       for (double v : vs) s.y.push_back(c.force_n(v));
       p.add(s);
     }
     h += p.render();
   }
   {
-    SvgPlot p("plot-deviation", "Deviation from the target at each reference speed, per coast-down", "speed (km/h)",
-              "measured − target (N)", 720, 320);
+    SvgPlot p("plot-deviation", "Deviation from the target at each reference speed, per coast-down",
+              "speed (km/h)", "measured − target (N)", 720, 320);
     Band band{"tolerance ± " + fmt(tol, 0) + " N", {}, {}, {}, "#009E73"};
     for (double v : {15.0, 135.0}) {
       band.x.push_back(v);
@@ -367,7 +452,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
     h += p.render();
   }
   {
-    SvgPlot p("plot-speed", "Speed against time for each coast-down (from its trace)", "time after release (s)", "speed (km/h)");
+    SvgPlot p("plot-speed", "Speed against time for each coast-down (from its trace)",
+              "time after release (s)", "speed (km/h)");
     int k = 0;
     for (const auto& r : runs) {
       if (!r.contains("files")) continue;
@@ -376,7 +462,9 @@ static std::string write_report_body(const std::string& folder, const std::strin
       // The trace's path comes from the record: read it only inside the folder.
       const std::string rel = r["files"][0].value("path", "");
       const record::InsideFile tf = record::read_inside(folder, rel);
-      if (tf.status != record::InsideStatus::ok || !record::parse_trace_csv(tf.content, rel, t, v, err) || t.empty()) continue;
+      if (tf.status != record::InsideStatus::ok || !record::parse_trace_csv(tf.content, rel, t, v, err) ||
+          t.empty())
+        continue;
       Series s{"coast-down " + std::to_string(r.value("run", 0)), {}, {}, kPalette[(k++) % 6], 1.5};
       const std::size_t step = std::max<std::size_t>(1, t.size() / 600);
       for (std::size_t i = 0; i < t.size(); i += step) {
@@ -388,7 +476,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
     h += p.render();
   }
   {
-    SvgPlot p("plot-convergence", "Worst deviation from the target per coast-down", "coast-down", "worst |deviation| (N)", 720, 300);
+    SvgPlot p("plot-convergence", "Worst deviation from the target per coast-down", "coast-down",
+              "worst |deviation| (N)", 720, 300);
     Series s{"worst |deviation|", {}, {}, "#0072B2", 2.0, true};
     Series line{"tolerance " + fmt(tol, 0) + " N", {}, {}, "#D55E00", 1.5, false, true};
     for (const auto& r : runs)
@@ -408,7 +497,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
     h += p.render();
   }
   {
-    SvgPlot p("plot-times", "Band times: measured against predicted for the target", "predicted Δt for the target (s)", "measured Δt (s)", 720, 360);
+    SvgPlot p("plot-times", "Band times: measured against predicted for the target",
+              "predicted Δt for the target (s)", "measured Δt (s)", 720, 360);
     Series eq{"measured = predicted", {}, {}, "#000000", 1.0, false, true};
     int k = 0;
     double mx = 0.0;
@@ -429,21 +519,30 @@ static std::string write_report_body(const std::string& folder, const std::strin
     h += p.render();
   }
 
-  h += "<h2>Safety and validity notes</h2>\n<div class=\"note\"><p>This report was made by loadtrim from the session folder's log and "
-       "traces. The setting follows " + esc(started.value("standard", "the profile named above")) +
-       " as configured in the profile; values the profile marks as recalled from memory must be checked against the regulation in "
-       "force. loadtrim did not check: the track coast-down and its corrections to reference conditions, the vehicle's preparation, "
-       "tyre pressures and restraint, the dyno's calibration, parasitic-loss compensation and daily checks, the cell's safety "
-       "systems, or the lab's own acceptance criteria. Whether this setting may be used for a regulated test is for the lab's "
-       "procedures and its responsible engineer to decide.</p><p>Rotating rollers, a restrained vehicle at speed, exhaust and heat can "
-       "injure: the lab's safety rules, local codes and licensed practice take precedence over anything in this report.</p></div>\n";
+  h += "<h2>Safety and validity notes</h2>\n<div class=\"note\"><p>This report was made by loadtrim from the "
+       "session folder's log and "
+       "traces. The setting follows " +
+       esc(started.value("standard", "the profile named above")) +
+       " as configured in the profile; values the profile marks as recalled from memory must be checked "
+       "against the regulation in "
+       "force. loadtrim did not check: the track coast-down and its corrections to reference conditions, the "
+       "vehicle's preparation, "
+       "tyre pressures and restraint, the dyno's calibration, parasitic-loss compensation and daily checks, "
+       "the cell's safety "
+       "systems, or the lab's own acceptance criteria. Whether this setting may be used for a regulated test "
+       "is for the lab's "
+       "procedures and its responsible engineer to decide.</p><p>Rotating rollers, a restrained vehicle at "
+       "speed, exhaust and heat can "
+       "injure: the lab's safety rules, local codes and licensed practice take precedence over anything in "
+       "this report.</p></div>\n";
   h += "</body></html>\n";
 
   std::string err;
   out.html = (fs::path(folder) / "report.html").string();
   out.coefficients_csv = (fs::path(folder) / "coefficients.csv").string();
   out.deviations_csv = (fs::path(folder) / "deviations.csv").string();
-  if (!record::write_durable(out.html, h, err) || !record::write_durable(out.coefficients_csv, coef_csv, err) ||
+  if (!record::write_durable(out.html, h, err) ||
+      !record::write_durable(out.coefficients_csv, coef_csv, err) ||
       !record::write_durable(out.deviations_csv, dev_csv, err))
     return err;
   out.ok = true;
@@ -464,7 +563,8 @@ ReportFiles write_report(const std::string& folder, const std::string& software_
   return write_report(folder, software_version, default_verify_options());
 }
 
-ReportFiles write_report(const std::string& folder, const std::string& software_version, const record::VerifyOptions& options) {
+ReportFiles write_report(const std::string& folder, const std::string& software_version,
+                         const record::VerifyOptions& options) {
   ReportFiles out;
   std::string why;
   try {
@@ -483,9 +583,10 @@ bool print_pdf(const std::string& folder, std::string& error) {
   const std::string html = fs::absolute(fs::path(folder) / "report.html").string();
   const std::string pdf = fs::absolute(fs::path(folder) / "report.pdf").string();
   const std::string profile = (fs::temp_directory_path() / "loadtrim-chromium-profile").string();
-  const std::string cmd = "chromium --headless --no-sandbox --disable-gpu --disable-quic --no-first-run "
-                          "--disable-background-networking --disable-component-update --disable-sync --user-data-dir='" +
-                          profile + "' --no-pdf-header-footer --print-to-pdf='" + pdf + "' 'file://" + html + "' >/dev/null 2>&1";
+  const std::string cmd =
+      "chromium --headless --no-sandbox --disable-gpu --disable-quic --no-first-run "
+      "--disable-background-networking --disable-component-update --disable-sync --user-data-dir='" +
+      profile + "' --no-pdf-header-footer --print-to-pdf='" + pdf + "' 'file://" + html + "' >/dev/null 2>&1";
   const int rc = std::system(cmd.c_str());
   if (rc != 0 || !fs::exists(pdf)) {
     std::error_code ec;

@@ -1,5 +1,5 @@
-// The session report: one self-contained HTML file (inline CSS and SVG, no scripts, fonts or network), plus CSV
-// exports, built from a session folder's log records and traces alone. Every number in its tables carries
+// The session report: one self-contained HTML file (inline CSS and SVG, no scripts, fonts or network), plus
+// CSV exports, built from a session folder's log records and traces alone. Every number in its tables carries
 // data-record / data-key attributes naming the log record and field it came from.
 #pragma once
 
@@ -13,17 +13,19 @@ struct ReportFiles {
   bool ok = false;
   std::string error;
   std::string html, coefficients_csv, deviations_csv;  // paths written
-  bool chain_ok = false;       // intact (record::FolderVerdict::intact)
+  bool chain_ok = false;                               // intact (record::FolderVerdict::intact)
   std::string verify_outcome;  // record::to_string(outcome): verified, broken, not finished, ...
 };
 
 // Writes report.html, coefficients.csv and deviations.csv into the folder. The first page states what verify
-// finds (broken, not finished, sealed with or without a signature) and the sign-off. A record the report needs
-// that lacks a member, or has one of another type, is named in error (never an exception); on any failure the
-// derived files of an earlier report (record::derived_files) are removed, so no stale report remains.
-// Keys and cell logs for the seal's status come from the data root (record::find_data_root), or from options.
+// finds (broken, not finished, sealed with or without a signature) and the sign-off. A record the report
+// needs that lacks a member, or has one of another type, is named in error (never an exception); on any
+// failure the derived files of an earlier report (record::derived_files) are removed, so no stale report
+// remains. Keys and cell logs for the seal's status come from the data root (record::find_data_root), or from
+// options.
 ReportFiles write_report(const std::string& folder, const std::string& software_version);
-ReportFiles write_report(const std::string& folder, const std::string& software_version, const record::VerifyOptions& options);
+ReportFiles write_report(const std::string& folder, const std::string& software_version,
+                         const record::VerifyOptions& options);
 
 // Prints report.html to report.pdf with headless Chromium; false with the reason when it could not.
 bool print_pdf(const std::string& folder, std::string& error);

@@ -11,11 +11,20 @@ std::string xml_escape(const std::string& s) {
   std::string o;
   for (char c : s) {
     switch (c) {
-      case '&': o += "&amp;"; break;
-      case '<': o += "&lt;"; break;
-      case '>': o += "&gt;"; break;
-      case '"': o += "&quot;"; break;
-      default: o += c;
+      case '&':
+        o += "&amp;";
+        break;
+      case '<':
+        o += "&lt;";
+        break;
+      case '>':
+        o += "&gt;";
+        break;
+      case '"':
+        o += "&quot;";
+        break;
+      default:
+        o += c;
     }
   }
   return o;
@@ -67,52 +76,64 @@ std::string SvgPlot::render() const {
   const double pw = w_ - L - R, ph = h_ - T - B;
   auto px = [&](double x) { return L + (x - x0) / (x1 - x0) * pw; };
   auto py = [&](double y) { return T + ph - (y - y0) / (y1 - y0) * ph; };
-  std::string o = "<svg xmlns=\"http://www.w3.org/2000/svg\" id=\"" + xml_escape(id_) + "\" class=\"plot\" width=\"" + std::to_string(w_) +
-                  "\" height=\"" + std::to_string(h_) + "\" viewBox=\"0 0 " + std::to_string(w_) + " " + std::to_string(h_) +
+  std::string o = "<svg xmlns=\"http://www.w3.org/2000/svg\" id=\"" + xml_escape(id_) +
+                  "\" class=\"plot\" width=\"" + std::to_string(w_) + "\" height=\"" + std::to_string(h_) +
+                  "\" viewBox=\"0 0 " + std::to_string(w_) + " " + std::to_string(h_) +
                   "\" font-family=\"sans-serif\" font-size=\"12\">\n";
-  o += "<rect x=\"0\" y=\"0\" width=\"" + std::to_string(w_) + "\" height=\"" + std::to_string(h_) + "\" fill=\"#ffffff\"/>\n";
-  o += "<text x=\"" + f(L) + "\" y=\"20\" font-size=\"14\" font-weight=\"bold\">" + xml_escape(title_) + "</text>\n";
+  o += "<rect x=\"0\" y=\"0\" width=\"" + std::to_string(w_) + "\" height=\"" + std::to_string(h_) +
+       "\" fill=\"#ffffff\"/>\n";
+  o += "<text x=\"" + f(L) + "\" y=\"20\" font-size=\"14\" font-weight=\"bold\">" + xml_escape(title_) +
+       "</text>\n";
   // Grid and ticks.
   for (double x = x0; x <= x1 + xs * 1e-6; x += xs) {
-    o += "<line x1=\"" + f(px(x)) + "\" y1=\"" + f(T) + "\" x2=\"" + f(px(x)) + "\" y2=\"" + f(T + ph) + "\" stroke=\"#e0e0e0\"/>\n";
-    o += "<text x=\"" + f(px(x)) + "\" y=\"" + f(T + ph + 16) + "\" text-anchor=\"middle\">" + tick_text(x, xs) + "</text>\n";
+    o += "<line x1=\"" + f(px(x)) + "\" y1=\"" + f(T) + "\" x2=\"" + f(px(x)) + "\" y2=\"" + f(T + ph) +
+         "\" stroke=\"#e0e0e0\"/>\n";
+    o += "<text x=\"" + f(px(x)) + "\" y=\"" + f(T + ph + 16) + "\" text-anchor=\"middle\">" +
+         tick_text(x, xs) + "</text>\n";
   }
   for (double y = y0; y <= y1 + ys * 1e-6; y += ys) {
-    o += "<line x1=\"" + f(L) + "\" y1=\"" + f(py(y)) + "\" x2=\"" + f(L + pw) + "\" y2=\"" + f(py(y)) + "\" stroke=\"#e0e0e0\"/>\n";
-    o += "<text x=\"" + f(L - 6) + "\" y=\"" + f(py(y) + 4) + "\" text-anchor=\"end\">" + tick_text(y, ys) + "</text>\n";
+    o += "<line x1=\"" + f(L) + "\" y1=\"" + f(py(y)) + "\" x2=\"" + f(L + pw) + "\" y2=\"" + f(py(y)) +
+         "\" stroke=\"#e0e0e0\"/>\n";
+    o += "<text x=\"" + f(L - 6) + "\" y=\"" + f(py(y) + 4) + "\" text-anchor=\"end\">" + tick_text(y, ys) +
+         "</text>\n";
   }
-  o += "<rect x=\"" + f(L) + "\" y=\"" + f(T) + "\" width=\"" + f(pw) + "\" height=\"" + f(ph) + "\" fill=\"none\" stroke=\"#333333\"/>\n";
-  o += "<text class=\"axis-label\" x=\"" + f(L + pw / 2) + "\" y=\"" + f(h_ - 12) + "\" text-anchor=\"middle\">" + xml_escape(xl_) + "</text>\n";
-  o += "<text class=\"axis-label\" transform=\"translate(16," + f(T + ph / 2) + ") rotate(-90)\" text-anchor=\"middle\">" +
-       xml_escape(yl_) + "</text>\n";
+  o += "<rect x=\"" + f(L) + "\" y=\"" + f(T) + "\" width=\"" + f(pw) + "\" height=\"" + f(ph) +
+       "\" fill=\"none\" stroke=\"#333333\"/>\n";
+  o += "<text class=\"axis-label\" x=\"" + f(L + pw / 2) + "\" y=\"" + f(h_ - 12) +
+       "\" text-anchor=\"middle\">" + xml_escape(xl_) + "</text>\n";
+  o += "<text class=\"axis-label\" transform=\"translate(16," + f(T + ph / 2) +
+       ") rotate(-90)\" text-anchor=\"middle\">" + xml_escape(yl_) + "</text>\n";
   // Bands, then series.
   for (const auto& b : bands_) {
     std::string pts;
     for (std::size_t i = 0; i < b.x.size(); ++i) pts += f(px(b.x[i])) + "," + f(py(b.hi[i])) + " ";
     for (std::size_t i = b.x.size(); i-- > 0;) pts += f(px(b.x[i])) + "," + f(py(b.lo[i])) + " ";
-    o += "<polygon points=\"" + pts + "\" fill=\"" + b.colour + "\" fill-opacity=\"0.25\" stroke=\"none\"/>\n";
+    o +=
+        "<polygon points=\"" + pts + "\" fill=\"" + b.colour + "\" fill-opacity=\"0.25\" stroke=\"none\"/>\n";
   }
   for (const auto& s : series_) {
     if (s.points) {
       for (std::size_t i = 0; i < s.x.size() && i < s.y.size(); ++i)
         if (std::isfinite(s.x[i]) && std::isfinite(s.y[i]))
-          o += "<circle cx=\"" + f(px(s.x[i])) + "\" cy=\"" + f(py(s.y[i])) + "\" r=\"3.5\" fill=\"" + s.colour + "\"/>\n";
+          o += "<circle cx=\"" + f(px(s.x[i])) + "\" cy=\"" + f(py(s.y[i])) + "\" r=\"3.5\" fill=\"" +
+               s.colour + "\"/>\n";
       continue;
     }
     std::string pts;
     for (std::size_t i = 0; i < s.x.size() && i < s.y.size(); ++i)
       if (std::isfinite(s.x[i]) && std::isfinite(s.y[i])) pts += f(px(s.x[i])) + "," + f(py(s.y[i])) + " ";
-    o += "<polyline points=\"" + pts + "\" fill=\"none\" stroke=\"" + s.colour + "\" stroke-width=\"" + f(s.width) + "\"" +
-         (s.dashed ? " stroke-dasharray=\"6,4\"" : "") + "/>\n";
+    o += "<polyline points=\"" + pts + "\" fill=\"none\" stroke=\"" + s.colour + "\" stroke-width=\"" +
+         f(s.width) + "\"" + (s.dashed ? " stroke-dasharray=\"6,4\"" : "") + "/>\n";
   }
   // Legend, top right inside the plot.
   double ly = T + 16;
   auto legend = [&](const std::string& label, const std::string& colour, bool box) {
     if (label.empty()) return;
     const double lx = L + pw - 190;
-    o += box ? "<rect x=\"" + f(lx) + "\" y=\"" + f(ly - 9) + "\" width=\"18\" height=\"10\" fill=\"" + colour + "\" fill-opacity=\"0.35\"/>\n"
-             : "<line x1=\"" + f(lx) + "\" y1=\"" + f(ly - 4) + "\" x2=\"" + f(lx + 18) + "\" y2=\"" + f(ly - 4) + "\" stroke=\"" + colour +
-                   "\" stroke-width=\"3\"/>\n";
+    o += box ? "<rect x=\"" + f(lx) + "\" y=\"" + f(ly - 9) + "\" width=\"18\" height=\"10\" fill=\"" +
+                   colour + "\" fill-opacity=\"0.35\"/>\n"
+             : "<line x1=\"" + f(lx) + "\" y1=\"" + f(ly - 4) + "\" x2=\"" + f(lx + 18) + "\" y2=\"" +
+                   f(ly - 4) + "\" stroke=\"" + colour + "\" stroke-width=\"3\"/>\n";
     o += "<text x=\"" + f(lx + 24) + "\" y=\"" + f(ly) + "\">" + xml_escape(label) + "</text>\n";
     ly += 16;
   };

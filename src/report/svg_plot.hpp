@@ -1,5 +1,5 @@
-// A small SVG line/scatter plot writer for the report: axes with ticks and labels (units on every axis), lines,
-// points, a shaded band, a legend. Colours from the Okabe–Ito colour-blind-safe palette.
+// A small SVG line/scatter plot writer for the report: axes with ticks and labels (units on every axis),
+// lines, points, a shaded band, a legend. Colours from the Okabe–Ito colour-blind-safe palette.
 #pragma once
 
 #include <string>
@@ -7,7 +7,8 @@
 
 namespace loadtrim::report {
 
-inline const char* const kPalette[] = {"#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442", "#000000"};
+inline const char* const kPalette[] = {"#0072B2", "#E69F00", "#009E73", "#CC79A7",
+                                       "#56B4E9", "#D55E00", "#F0E442", "#000000"};
 
 struct Series {
   std::string label;
@@ -26,8 +27,14 @@ struct Band {  // a shaded region between two curves over the same x
 
 class SvgPlot {
  public:
-  SvgPlot(std::string id, std::string title, std::string x_label, std::string y_label, int width = 720, int height = 360)
-      : id_(std::move(id)), title_(std::move(title)), xl_(std::move(x_label)), yl_(std::move(y_label)), w_(width), h_(height) {}
+  SvgPlot(std::string id, std::string title, std::string x_label, std::string y_label, int width = 720,
+          int height = 360)
+      : id_(std::move(id)),
+        title_(std::move(title)),
+        xl_(std::move(x_label)),
+        yl_(std::move(y_label)),
+        w_(width),
+        h_(height) {}
   void add(Series s) { series_.push_back(std::move(s)); }
   void add(Band b) { bands_.push_back(std::move(b)); }
   std::string render() const;

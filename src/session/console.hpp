@@ -1,5 +1,5 @@
-// The console observer: live progress and the per-coast-down table for the operator, or nothing but the result
-// (quiet), or one JSON object per line for scripts (json).
+// The console observer: live progress and the per-coast-down table for the operator, or nothing but the
+// result (quiet), or one JSON object per line for scripts (json).
 #pragma once
 
 #include <cstdio>

@@ -20,7 +20,8 @@ RecordWriter::RecordWriter(std::string folder) : folder_(std::move(folder)) {
   log_ = std::make_unique<record::EventLog>((fs::path(folder_) / "events.jsonl").string());
   if (!log_->error().empty() && error_.empty()) error_ = log_->error();
   try {
-    auto sink = std::make_shared<spdlog::sinks::basic_file_sink_mt>((fs::path(folder_) / "operator.log").string(), false);
+    auto sink = std::make_shared<spdlog::sinks::basic_file_sink_mt>(
+        (fs::path(folder_) / "operator.log").string(), false);
     op_ = std::make_shared<spdlog::logger>("operator", sink);
     op_->set_pattern("%Y-%m-%dT%H:%M:%S.%eZ %v", spdlog::pattern_time_type::utc);
     op_->flush_on(spdlog::level::info);
@@ -53,17 +54,22 @@ std::string human(const Event& e) {
   const auto& d = e.data;
   auto coef = [](const nlohmann::json& c) {
     char b[128];
-    std::snprintf(b, sizeof b, "(%.2f N, %.4f N/(km/h), %.5f N/(km/h)^2)", c.value("f0_n", 0.0), c.value("f1_n_per_kmh", 0.0),
-                  c.value("f2_n_per_kmh2", 0.0));
+    std::snprintf(b, sizeof b, "(%.2f N, %.4f N/(km/h), %.5f N/(km/h)^2)", c.value("f0_n", 0.0),
+                  c.value("f1_n_per_kmh", 0.0), c.value("f2_n_per_kmh2", 0.0));
     return std::string(b);
   };
-  if (e.type == "state") return "state " + d.value("from", "") + " -> " + d.value("to", "") + (d.value("why", "").empty() ? "" : " (" + d.value("why", "") + ")");
+  if (e.type == "state")
+    return "state " + d.value("from", "") + " -> " + d.value("to", "") +
+           (d.value("why", "").empty() ? "" : " (" + d.value("why", "") + ")");
   if (e.type == "coastdown") {
-    if (!d.value("usable", false)) return "coast-down " + std::to_string(d.value("run", 0)) + " unusable: " + d.value("unusable_reason", "");
+    if (!d.value("usable", false))
+      return "coast-down " + std::to_string(d.value("run", 0)) +
+             " unusable: " + d.value("unusable_reason", "");
     char b[96];
     std::snprintf(b, sizeof b, " worst %.2f N -> ", d["check"].value("worst_abs_deviation_n", 0.0));
-    return "coast-down " + std::to_string(d.value("run", 0)) + ": set " + coef(d["set"]) + " measured " + coef(d["simulated"]) + b +
-           (d["check"].value("pass", false) ? "pass" : "FAIL") + "; " + d["decision"].value("reason", "");
+    return "coast-down " + std::to_string(d.value("run", 0)) + ": set " + coef(d["set"]) + " measured " +
+           coef(d["simulated"]) + b + (d["check"].value("pass", false) ? "pass" : "FAIL") + "; " +
+           d["decision"].value("reason", "");
   }
   if (e.type == "first_setting") return "first setting (" + d.value("strategy", "") + "): " + coef(d["set"]);
   if (e.type == "finished") return "finished: " + d.value("result", "") + " — " + d.value("stop_reason", "");
@@ -87,11 +93,12 @@ bool RecordWriter::on_event(const Event& ev) {
       error_ = "cannot write the trace: " + err;
       return false;
     }
-    data["files"].push_back({{"path", name}, {"sha256", record::sha256_hex(csv)}, {"samples", ev.trace->size()}});
+    data["files"].push_back(
+        {{"path", name}, {"sha256", record::sha256_hex(csv)}, {"samples", ev.trace->size()}});
   }
-  // summary.json is written once, when the session's result is final: an interrupted session's "finished" record
-  // holds its summary inline, and the file is written (and sealed) only when a resume reaches the verdict. Nothing
-  // whose hash a record holds is ever rewritten (docs/records.md).
+  // summary.json is written once, when the session's result is final: an interrupted session's "finished"
+  // record holds its summary inline, and the file is written (and sealed) only when a resume reaches the
+  // verdict. Nothing whose hash a record holds is ever rewritten (docs/records.md).
   if (ev.type == "finished" && is_final(data.value("result", ""))) {
     std::string err;
     const std::string text = data.dump(2) + "\n";

@@ -1,7 +1,7 @@
 // The audit-log observer: writes every session event to the folder's hash-chained events.jsonl (fsync'd per
-// record), each coast-down's trace to traces/run-NNN.csv with its SHA-256 in the record, summary.json at the end,
-// and a human-readable operator.log (spdlog). Returns false from on_event when a record could not be made
-// durable; the session then stops safely.
+// record), each coast-down's trace to traces/run-NNN.csv with its SHA-256 in the record, summary.json at the
+// end, and a human-readable operator.log (spdlog). Returns false from on_event when a record could not be
+// made durable; the session then stops safely.
 #pragma once
 
 #include <memory>
@@ -29,8 +29,8 @@ class RecordWriter : public Observer {
   record::EventLog& log() { return *log_; }
   // Operator-log line without a log record (e.g. the console's view of a warning).
   void note(const std::string& text);
-  // Flushes and closes the operator log and the event log: after this nothing more is written (the folder can be
-  // sealed). Further events fail.
+  // Flushes and closes the operator log and the event log: after this nothing more is written (the folder can
+  // be sealed). Further events fail.
   void close();
   // The summary exactly as written to summary.json (null before): what a seal states as the result.
   const nlohmann::json& summary() const { return summary_; }

@@ -25,39 +25,58 @@ constexpr int kTooSlowCode = motion::kTooSlow;
 
 const char* to_string(State s) {
   switch (s) {
-    case State::connect: return "connect";
-    case State::check_limits: return "check_limits";
-    case State::set_inertia: return "set_inertia";
-    case State::warm_up: return "warm_up";
-    case State::write_set: return "write_set";
-    case State::run_up: return "run_up";
-    case State::coast_down: return "coast_down";
-    case State::analyse: return "analyse";
-    case State::safe_stop: return "safe_stop";
-    case State::finished: return "finished";
+    case State::connect:
+      return "connect";
+    case State::check_limits:
+      return "check_limits";
+    case State::set_inertia:
+      return "set_inertia";
+    case State::warm_up:
+      return "warm_up";
+    case State::write_set:
+      return "write_set";
+    case State::run_up:
+      return "run_up";
+    case State::coast_down:
+      return "coast_down";
+    case State::analyse:
+      return "analyse";
+    case State::safe_stop:
+      return "safe_stop";
+    case State::finished:
+      return "finished";
   }
   return "unknown";
 }
 
 const char* to_string(Outcome o) {
   switch (o) {
-    case Outcome::accepted: return "accepted";
-    case Outcome::not_accepted: return "not-accepted";
-    case Outcome::refused: return "refused";
-    case Outcome::controller_fault: return "controller-fault";
-    case Outcome::interrupted: return "interrupted";
-    case Outcome::record_failure: return "record-failure";
+    case Outcome::accepted:
+      return "accepted";
+    case Outcome::not_accepted:
+      return "not-accepted";
+    case Outcome::refused:
+      return "refused";
+    case Outcome::controller_fault:
+      return "controller-fault";
+    case Outcome::interrupted:
+      return "interrupted";
+    case Outcome::record_failure:
+      return "record-failure";
   }
   return "unknown";
 }
 
-bool is_final(Outcome o) { return o == Outcome::accepted || o == Outcome::not_accepted || o == Outcome::refused; }
+bool is_final(Outcome o) {
+  return o == Outcome::accepted || o == Outcome::not_accepted || o == Outcome::refused;
+}
 bool is_final(const std::string& r) {
-  return r == to_string(Outcome::accepted) || r == to_string(Outcome::not_accepted) || r == to_string(Outcome::refused);
+  return r == to_string(Outcome::accepted) || r == to_string(Outcome::not_accepted) ||
+         r == to_string(Outcome::refused);
 }
 
-Session::Session(Inputs inputs, Options options, controller::Controller& controller, std::vector<Observer*> observers,
-                 const std::atomic<bool>* stop_flag)
+Session::Session(Inputs inputs, Options options, controller::Controller& controller,
+                 std::vector<Observer*> observers, const std::atomic<bool>* stop_flag)
     : in_(std::move(inputs)),
       opt_(std::move(options)),
       c_(controller),
@@ -70,7 +89,8 @@ Session::Session(Inputs inputs, Options options, controller::Controller& control
   motion_.on_sample = [this](const controller::Sample& s) { on_sample(s); };
 }
 
-bool Session::emit(const std::string& type, nlohmann::json data, const std::vector<controller::Sample>* trace) {
+bool Session::emit(const std::string& type, nlohmann::json data,
+                   const std::vector<controller::Sample>* trace) {
   if (!data.is_object()) data = nlohmann::json::object();
   data["state"] = to_string(state_);
   if (t_start_ >= 0.0) {
@@ -104,7 +124,8 @@ bool Session::emit(const std::string& type, nlohmann::json data, const std::vect
         record_error_ = err.empty() ? "the record could not be written" : err;
       }
     } else if (!ok) {
-      dropped.push_back(o->name() + " failed on a \"" + type + "\" event and was dropped: " + (err.empty() ? "no reason given" : err));
+      dropped.push_back(o->name() + " failed on a \"" + type +
+                        "\" event and was dropped: " + (err.empty() ? "no reason given" : err));
       it = observers_.erase(it);
       continue;
     }
@@ -131,7 +152,8 @@ void Session::on_sample(const controller::Sample& s) {
   progress(s.speed_kmh, band);
 }
 
-motion::Step Session::step(const std::string& what, double budget_s, std::vector<controller::Mode> modes) const {
+motion::Step Session::step(const std::string& what, double budget_s,
+                           std::vector<controller::Mode> modes) const {
   motion::Step st;
   st.what = what;
   st.budget_s = budget_s;
@@ -183,7 +205,10 @@ std::optional<Session::Stop> Session::fault(const Result& r, const std::string& 
     emit("interrupted", {{"during", during}});
     return Stop{Outcome::interrupted, "interrupted by the operator during " + during};
   }
-  emit("fault", {{"during", during}, {"message", r.message}, {"status", controller::to_string(r.status)}, {"code", r.code}});
+  emit("fault", {{"during", during},
+                 {"message", r.message},
+                 {"status", controller::to_string(r.status)},
+                 {"code", r.code}});
   return Stop{Outcome::controller_fault, r.message};
 }
 
@@ -198,7 +223,11 @@ bool Session::settle_and_clear(const std::string& when) {
   }
   if (!st.fault.empty()) {
     const Result cr = c_.clear_fault();
-    emit("fault_cleared", {{"fault", st.fault}, {"when", when}, {"rollers", "stopped"}, {"ok", cr.ok()}, {"message", cr.message}});
+    emit("fault_cleared", {{"fault", st.fault},
+                           {"when", when},
+                           {"rollers", "stopped"},
+                           {"ok", cr.ok()},
+                           {"message", cr.message}});
     if (!cr.ok()) return false;
   }
   return true;
@@ -207,7 +236,8 @@ bool Session::settle_and_clear(const std::string& when) {
 bool Session::recover_link(const std::string& why) {
   ++link_losses_;
   link_up_ = false;
-  emit("link_lost", {{"why", why}, {"incident", link_losses_},
+  emit("link_lost", {{"why", why},
+                     {"incident", link_losses_},
                      {"note", "the controller's watchdog takes the rollers to a stop"}});
   const auto& policy = in_.cell.reconnect;
   for (int attempt = 1; attempt <= policy.attempts; ++attempt) {
@@ -216,7 +246,8 @@ bool Session::recover_link(const std::string& why) {
     c_.disconnect();
     Result r = c_.connect();
     if (r.ok()) r = c_.identify(info_);
-    emit("reconnect", {{"attempt", attempt}, {"of", policy.attempts}, {"ok", r.ok()}, {"message", r.message}});
+    emit("reconnect",
+         {{"attempt", attempt}, {"of", policy.attempts}, {"ok", r.ok()}, {"message", r.message}});
     if (!r.ok()) continue;
     // Settle first, stream after: no stale samples from the stopping rollers reach the next wait.
     if (!settle_and_clear("after the lost link")) continue;
@@ -231,16 +262,22 @@ bool Session::recover_link(const std::string& why) {
 std::optional<Session::Stop> Session::do_connect() {
   transition(State::connect);
   Result r = c_.connect();
-  for (int attempt = 1; !r.ok() && r.status == Result::Status::retryable && attempt <= in_.cell.reconnect.attempts; ++attempt) {
+  for (int attempt = 1;
+       !r.ok() && r.status == Result::Status::retryable && attempt <= in_.cell.reconnect.attempts;
+       ++attempt) {
     emit("reconnect", {{"attempt", attempt}, {"of", in_.cell.reconnect.attempts}, {"message", r.message}});
     std::this_thread::sleep_for(in_.cell.reconnect.delay);
     r = c_.connect();
   }
   if (!r.ok()) return fault(r, "connect");
   if (r = c_.identify(info_); !r.ok()) return fault(r, "identify");
-  emit("controller", {{"name", info_.name}, {"protocol_version", info_.protocol_version}, {"capabilities", info_.capabilities},
-                      {"roller_diameter_m", info_.roller_diameter_m}, {"base_inertia_kg", info_.base_inertia_kg},
-                      {"max_speed_kmh", info_.max_speed_kmh}, {"max_force_n", info_.max_force_n}});
+  emit("controller", {{"name", info_.name},
+                      {"protocol_version", info_.protocol_version},
+                      {"capabilities", info_.capabilities},
+                      {"roller_diameter_m", info_.roller_diameter_m},
+                      {"base_inertia_kg", info_.base_inertia_kg},
+                      {"max_speed_kmh", info_.max_speed_kmh},
+                      {"max_force_n", info_.max_force_n}});
   const core::Problems mismatch = controller::check_identity(in_.cell, info_);
   if (!mismatch.empty()) {
     std::string msg;
@@ -248,17 +285,21 @@ std::optional<Session::Stop> Session::do_connect() {
     emit("refused", {{"why", msg}});
     return Stop{Outcome::refused, "controller does not match the cell file: " + msg};
   }
-  // A fault latched before we came (a watchdog stop after a lost tool): only with the rollers stopped is it cleared.
+  // A fault latched before we came (a watchdog stop after a lost tool): only with the rollers stopped is it
+  // cleared.
   controller::StatusReport st;
   if (r = c_.status(st); !r.ok()) return fault(r, "status");
   if (!st.fault.empty() || !motion_.standstill(st.speed_kmh)) {
-    emit("controller_state_on_connect", {{"fault", st.fault}, {"speed_kmh", st.speed_kmh}, {"mode", controller::to_string(st.mode)}});
-    if (!settle_and_clear("on connect")) return fault(Result::fail("the controller did not reach a stopped, fault-free state"), "connect");
+    emit("controller_state_on_connect",
+         {{"fault", st.fault}, {"speed_kmh", st.speed_kmh}, {"mode", controller::to_string(st.mode)}});
+    if (!settle_and_clear("on connect"))
+      return fault(Result::fail("the controller did not reach a stopped, fault-free state"), "connect");
   }
   if (r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "start stream");
   link_up_ = true;
   // The first samples give the controller's clock.
-  if (r = motion_.collect(step("the first sample", 10.0), [](const controller::Sample&) { return true; }); !r.ok())
+  if (r = motion_.collect(step("the first sample", 10.0), [](const controller::Sample&) { return true; });
+      !r.ok())
     return fault(r, "first sample");
   return std::nullopt;
 }
@@ -270,23 +311,30 @@ std::optional<Session::Stop> Session::do_check_limits() {
   std::string why;
   const double start = p.start_speed_kmh();
   if (!(start < in_.cell.max_speed_kmh))
-    why = "start speed " + num(start) + " km/h (top reference speed + run-up margin) is not below the cell's limit of " +
+    why = "start speed " + num(start) +
+          " km/h (top reference speed + run-up margin) is not below the cell's limit of " +
           num(in_.cell.max_speed_kmh) + " km/h";
   else if (!(start < in_.vehicle.max_speed_kmh))
-    why = "start speed " + num(start) + " km/h is not below the vehicle's maximum speed of " + num(in_.vehicle.max_speed_kmh) + " km/h";
+    why = "start speed " + num(start) + " km/h is not below the vehicle's maximum speed of " +
+          num(in_.vehicle.max_speed_kmh) + " km/h";
   else if (!(start < info_.max_speed_kmh))
-    why = "start speed " + num(start) + " km/h is not below the controller's limit of " + num(info_.max_speed_kmh) + " km/h";
+    why = "start speed " + num(start) + " km/h is not below the controller's limit of " +
+          num(info_.max_speed_kmh) + " km/h";
   else if (p.warm_up.speed_kmh > speed_limit_kmh_)
-    why = "warm-up speed " + num(p.warm_up.speed_kmh) + " km/h is above the speed limit of " + num(speed_limit_kmh_) + " km/h";
-  // A reference speed within 14 km/h of the vehicle's maximum is dropped by the standard (domain.md §2, from memory):
-  // here that means the profile does not fit this vehicle.
+    why = "warm-up speed " + num(p.warm_up.speed_kmh) + " km/h is above the speed limit of " +
+          num(speed_limit_kmh_) + " km/h";
+  // A reference speed within 14 km/h of the vehicle's maximum is dropped by the standard (domain.md §2, from
+  // memory): here that means the profile does not fit this vehicle.
   for (double v : p.reference_speeds_kmh)
     if (why.empty() && v + 14.0 >= in_.vehicle.max_speed_kmh)
-      why = "reference speed " + num(v) + " km/h is within 14 km/h of the vehicle's maximum speed; use a profile without it";
-  const double warm_total = p.warm_up.duration_s + p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
-                            p.loss_map.speeds_kmh.size() * (p.loss_map.settle_s + p.loss_map.average_s + 30.0);
+      why = "reference speed " + num(v) +
+            " km/h is within 14 km/h of the vehicle's maximum speed; use a profile without it";
+  const double warm_total =
+      p.warm_up.duration_s + p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
+      p.loss_map.speeds_kmh.size() * (p.loss_map.settle_s + p.loss_map.average_s + 30.0);
   if (why.empty() && warm_total > in_.cell.max_motoring_s)
-    why = "the warm-up needs up to " + num(warm_total) + " s of motoring, above the cell's limit of " + num(in_.cell.max_motoring_s) + " s";
+    why = "the warm-up needs up to " + num(warm_total) + " s of motoring, above the cell's limit of " +
+          num(in_.cell.max_motoring_s) + " s";
   if (!why.empty()) {
     emit("refused", {{"why", why}});
     return Stop{Outcome::refused, why};
@@ -295,9 +343,13 @@ std::optional<Session::Stop> Session::do_check_limits() {
   motion::Rules rules = motion_.rules();
   rules.speed_limit_kmh = speed_limit_kmh_;
   motion_.set_rules(rules);
-  emit("limits", {{"speed_limit_kmh", speed_limit_kmh_}, {"start_speed_kmh", start}, {"end_speed_kmh", p.end_speed_kmh()},
-                  {"cell_max_speed_kmh", in_.cell.max_speed_kmh}, {"vehicle_max_speed_kmh", in_.vehicle.max_speed_kmh},
-                  {"controller_max_speed_kmh", info_.max_speed_kmh}, {"max_motoring_s", in_.cell.max_motoring_s}});
+  emit("limits", {{"speed_limit_kmh", speed_limit_kmh_},
+                  {"start_speed_kmh", start},
+                  {"end_speed_kmh", p.end_speed_kmh()},
+                  {"cell_max_speed_kmh", in_.cell.max_speed_kmh},
+                  {"vehicle_max_speed_kmh", in_.vehicle.max_speed_kmh},
+                  {"controller_max_speed_kmh", info_.max_speed_kmh},
+                  {"max_motoring_s", in_.cell.max_motoring_s}});
   return std::nullopt;
 }
 
@@ -308,8 +360,12 @@ std::optional<Session::Stop> Session::do_set_inertia() {
   force_mass_kg_ = core::force_mass_kg(in_.vehicle.test_mass_kg, m_r_kg_);
   inertia_kg_ = core::dyno_inertia_kg(in_.vehicle.test_mass_kg, m_r_kg_, in_.cell.axles, p.mass);
   if (Result r = c_.set_inertia(inertia_kg_); !r.ok()) return fault(r, "set inertia");
-  emit("inertia", {{"test_mass_kg", in_.vehicle.test_mass_kg}, {"rotating_mass_kg", m_r_kg_}, {"force_mass_kg", force_mass_kg_},
-                   {"inertia_kg", inertia_kg_}, {"axles", core::to_string(in_.cell.axles)}, {"read_back", "matches"}});
+  emit("inertia", {{"test_mass_kg", in_.vehicle.test_mass_kg},
+                   {"rotating_mass_kg", m_r_kg_},
+                   {"force_mass_kg", force_mass_kg_},
+                   {"inertia_kg", inertia_kg_},
+                   {"axles", core::to_string(in_.cell.axles)},
+                   {"read_back", "matches"}});
   return std::nullopt;
 }
 
@@ -318,19 +374,21 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   const auto& w = in_.profile.warm_up;
   if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
   t_motoring_from_ = t_now_;
-  // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned time
-  // (ramps at the motoring rate, settle and average at each speed).
+  // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
+  // time (ramps at the motoring rate, settle and average at each speed).
   double map_s = 0.0;
   if (measure_loss_map && info_.has("hold-force")) {
     double v_prev = w.speed_kmh;
     for (double v : in_.profile.loss_map.speeds_kmh)
       if (v <= speed_limit_kmh_ - 1.0) {
-        map_s += std::abs(v - v_prev) / (3.6 * 1.5) + 2.0 + in_.profile.loss_map.settle_s + in_.profile.loss_map.average_s;
+        map_s += std::abs(v - v_prev) / (3.6 * 1.5) + 2.0 + in_.profile.loss_map.settle_s +
+                 in_.profile.loss_map.average_s;
         v_prev = v;
       }
   }
   duration_s = std::max(0.0, duration_s - map_s);
-  emit("warm_up_started", {{"speed_kmh", w.speed_kmh}, {"duration_s", duration_s}, {"loss_map_planned_s", map_s}});
+  emit("warm_up_started",
+       {{"speed_kmh", w.speed_kmh}, {"duration_s", duration_s}, {"loss_map_planned_s", map_s}});
   const double t0 = t_now_;
   // Hold for the time, keeping the load-cell force of the last stability window.
   std::vector<double> window_means;
@@ -356,9 +414,12 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         return held >= duration_s && (stable || held >= duration_s + w.max_extra_s);
       });
   if (!r.ok()) return fault(r, "warm-up");
-  emit("warm_up", {{"speed_kmh", w.speed_kmh}, {"held_s", t_now_ - t0}, {"stable", stable},
+  emit("warm_up", {{"speed_kmh", w.speed_kmh},
+                   {"held_s", t_now_ - t0},
+                   {"stable", stable},
                    {"stability_threshold_n", w.stable_within_n},
-                   {"last_window_force_n", window_means.empty() ? nlohmann::json(nullptr) : nlohmann::json(window_means.back())}});
+                   {"last_window_force_n",
+                    window_means.empty() ? nlohmann::json(nullptr) : nlohmann::json(window_means.back())}});
   if (measure_loss_map) {
     loss_map_.clear();
     if (!info_.has("hold-force")) {
@@ -371,14 +432,17 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         }
         if (Result rr = hold_and_wait(v, "loss-map hold"); !rr.ok()) return fault(rr, "loss map");
         const double ts = t_now_;
-        if (Result rr = motion_.collect(step("loss-map settle", in_.profile.loss_map.settle_s + 30.0, {Mode::speed_hold}),
-                                        [&](const controller::Sample& s) { return s.time_s - ts >= in_.profile.loss_map.settle_s; });
+        if (Result rr = motion_.collect(
+                step("loss-map settle", in_.profile.loss_map.settle_s + 30.0, {Mode::speed_hold}),
+                [&](const controller::Sample& s) { return s.time_s - ts >= in_.profile.loss_map.settle_s; });
             !rr.ok())
           return fault(rr, "loss map");
         std::vector<controller::Sample> avg;
         const double ta = t_now_;
-        if (Result rr = motion_.collect(step("loss-map average", in_.profile.loss_map.average_s + 30.0, {Mode::speed_hold}),
-                                        [&](const controller::Sample& s) { return s.time_s - ta >= in_.profile.loss_map.average_s; }, &avg);
+        if (Result rr = motion_.collect(
+                step("loss-map average", in_.profile.loss_map.average_s + 30.0, {Mode::speed_hold}),
+                [&](const controller::Sample& s) { return s.time_s - ta >= in_.profile.loss_map.average_s; },
+                &avg);
             !rr.ok())
           return fault(rr, "loss map");
         core::HoldPoint hp;
@@ -390,9 +454,13 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         }
         hp.samples = static_cast<int>(avg.size());
         hp.force_n = s1 / std::max<std::size_t>(1, avg.size());
-        hp.force_sd_n = std::sqrt(std::max(0.0, s2 / std::max<std::size_t>(1, avg.size()) - hp.force_n * hp.force_n));
+        hp.force_sd_n =
+            std::sqrt(std::max(0.0, s2 / std::max<std::size_t>(1, avg.size()) - hp.force_n * hp.force_n));
         loss_map_.push_back(hp);
-        emit("loss_map_point", {{"speed_kmh", v}, {"force_n", hp.force_n}, {"force_sd_n", hp.force_sd_n}, {"samples", hp.samples}});
+        emit("loss_map_point", {{"speed_kmh", v},
+                                {"force_n", hp.force_n},
+                                {"force_sd_n", hp.force_sd_n},
+                                {"samples", hp.samples}});
       }
     }
   }
@@ -405,12 +473,14 @@ std::optional<Session::Stop> Session::do_run(int run) {
   const auto& p = in_.profile;
   auto link_or_fault = [&](const Result& r, const char* during) -> std::optional<Stop> {
     if (r.status == Result::Status::retryable && r.code != kInterruptedCode) {
-      emit("coastdown_discarded", {{"run", run}, {"why", std::string("link lost during ") + during + ": " + r.message}});
+      emit("coastdown_discarded",
+           {{"run", run}, {"why", std::string("link lost during ") + during + ": " + r.message}});
       ++unusable_;
       ++discarded_;
       if (!recover_link(r.message)) return fault(r, during);
       if (unusable_ >= p.max_unusable_runs)
-        return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) + ")"};
+        return Stop{Outcome::not_accepted,
+                    "too many unusable coast-downs (" + std::to_string(unusable_) + ")"};
       // The rollers stopped: re-warm before the repeat, so the 120 s rule applies to a warm vehicle again.
       const double rewarm = opt_.resume_warm_up_s >= 0.0 ? opt_.resume_warm_up_s : p.warm_up.duration_s;
       if (auto s = do_set_inertia()) return s;
@@ -420,24 +490,31 @@ std::optional<Session::Stop> Session::do_run(int run) {
     return fault(r, during);
   };
   transition(State::write_set, "coast-down " + std::to_string(run));
-  // The envelope, before anything is written: a setting that would ask the dyno for more than the cell allows, or
-  // that has run away from the target, is never sent.
-  if (const core::SetCheck chk = core::check_set(set_, in_.vehicle.target, last_written_, opt_.envelope); !chk.ok) {
+  // The envelope, before anything is written: a setting that would ask the dyno for more than the cell
+  // allows, or that has run away from the target, is never sent.
+  if (const core::SetCheck chk = core::check_set(set_, in_.vehicle.target, last_written_, opt_.envelope);
+      !chk.ok) {
     emit("envelope_refused", {{"run", run}, {"set", coefficients_json(set_)}, {"why", chk.why}});
-    return Stop{Outcome::controller_fault, "the next setting was not written: it leaves the safe envelope (" + chk.why +
-                                               "); the controller does not follow the setting or the measurement is wrong"};
+    return Stop{Outcome::controller_fault,
+                "the next setting was not written: it leaves the safe envelope (" + chk.why +
+                    "); the controller does not follow the setting or the measurement is wrong"};
   }
   if (Result r = c_.set_coefficients(set_); !r.ok()) return link_or_fault(r, "write set");
   if (!last_written_ || !(*last_written_ == set_)) ++iterations_;
   last_written_ = set_;
-  if (!emit("set_written", {{"run", run}, {"set", coefficients_json(set_)}, {"read_back", "matches"}, {"iteration", iterations_}}))
+  if (!emit("set_written", {{"run", run},
+                            {"set", coefficients_json(set_)},
+                            {"read_back", "matches"},
+                            {"iteration", iterations_}}))
     return Stop{Outcome::record_failure, record_error_};
   if (t_motoring_from_ >= 0.0 && t_now_ - t_motoring_from_ > in_.cell.max_motoring_s)
-    return Stop{Outcome::not_accepted, "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) + " s was reached"};
+    return Stop{Outcome::not_accepted,
+                "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) + " s was reached"};
 
   transition(State::run_up);
   const double t_ru = t_now_;
-  if (!emit("coastdown_started", {{"run", run}, {"set", coefficients_json(set_)}, {"start_speed_kmh", p.start_speed_kmh()}}))
+  if (!emit("coastdown_started",
+            {{"run", run}, {"set", coefficients_json(set_)}, {"start_speed_kmh", p.start_speed_kmh()}}))
     return Stop{Outcome::record_failure, record_error_};
   if (Result r = hold_and_wait(p.start_speed_kmh(), "run-up"); !r.ok()) return link_or_fault(r, "run-up");
   const double run_up_s = t_now_ - t_ru;
@@ -446,21 +523,28 @@ std::optional<Session::Stop> Session::do_run(int run) {
   if (Result r = c_.release_road_load(); !r.ok()) return link_or_fault(r, "release");
   std::vector<controller::Sample> trace;
   const double end = p.end_speed_kmh();
-  // A coast that takes three times the target's predicted time (or 5 min, whichever is longer) means the set load
-  // plus the vehicle's loss leaves too little retarding force: the dyno is nearly driving the car.
-  const double predicted = core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end).value_or(300.0);
+  // A coast that takes three times the target's predicted time (or 5 min, whichever is longer) means the set
+  // load plus the vehicle's loss leaves too little retarding force: the dyno is nearly driving the car.
+  const double predicted =
+      core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end).value_or(300.0);
   const double budget = std::max(300.0, 3.0 * predicted);
   // Only road-load samples read after the release was acknowledged are this coast's.
-  Result r = motion_.collect(step("coast-down", budget, {Mode::road_load}),
-                             [&](const controller::Sample& s) { return s.speed_kmh < end; }, &trace);
+  Result r = motion_.collect(
+      step("coast-down", budget, {Mode::road_load}),
+      [&](const controller::Sample& s) { return s.speed_kmh < end; }, &trace);
   if (r.code == kTooSlowCode) {
-    // Leave road-load simulation at once, count the run unusable and fall back to the standard's default setting.
-    if (Result h = c_.hold_speed(std::max(10.0, end)); !h.ok()) return link_or_fault(h, "after a too slow coast-down");
+    // Leave road-load simulation at once, count the run unusable and fall back to the standard's default
+    // setting.
+    if (Result h = c_.hold_speed(std::max(10.0, end)); !h.ok())
+      return link_or_fault(h, "after a too slow coast-down");
     ++unusable_;
     ++discarded_;
-    const core::RoadLoad fallback = core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial);
-    emit("coastdown_discarded", {{"run", run}, {"why", r.message + ": too little retarding force with this setting"},
-                                 {"next_set", coefficients_json(fallback)}, {"note", "falling back to the standard's default setting"}});
+    const core::RoadLoad fallback =
+        core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial);
+    emit("coastdown_discarded", {{"run", run},
+                                 {"why", r.message + ": too little retarding force with this setting"},
+                                 {"next_set", coefficients_json(fallback)},
+                                 {"note", "falling back to the standard's default setting"}});
     set_ = fallback;
     if (unusable_ >= p.max_unusable_runs)
       return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) + ")"};
@@ -474,10 +558,13 @@ std::optional<Session::Stop> Session::do_run(int run) {
     const double gap = release - t_warm_end_;
     const bool within = gap <= p.max_gap_after_warmup_s;
     emit(within ? "timing" : "timing_rule_missed",
-         {{"rule", "first coast-down released within " + num(p.max_gap_after_warmup_s) + " s of the warm-up end (EU SA4 §8.1.2-8.1.3)"},
-          {"gap_s", gap}, {"within", within}});
+         {{"rule", "first coast-down released within " + num(p.max_gap_after_warmup_s) +
+                       " s of the warm-up end (EU SA4 §8.1.2-8.1.3)"},
+          {"gap_s", gap},
+          {"within", within}});
   } else {
-    emit("timing", {{"rule", "consecutive coast-downs start immediately (EU SA4 §8.1.3)"}, {"gap_since_last_coast_s", release - t_last_coast_end_}});
+    emit("timing", {{"rule", "consecutive coast-downs start immediately (EU SA4 §8.1.3)"},
+                    {"gap_since_last_coast_s", release - t_last_coast_end_}});
   }
   t_last_coast_end_ = t_now_;
 
@@ -497,12 +584,13 @@ std::optional<Session::Stop> Session::do_run(int run) {
   rec.run_up_s = run_up_s;
   rec.verifying = method_->verifying();
   {
-    // The analysis (the whole-trace fit above all) runs on a worker thread while this one keeps the link alive:
-    // the controller's watchdog must never see the tool fall silent while the vehicle turns.
+    // The analysis (the whole-trace fit above all) runs on a worker thread while this one keeps the link
+    // alive: the controller's watchdog must never see the tool fall silent while the vehicle turns.
     core::EvaluationOptions eo;
     eo.whole_trace = opt_.whole_trace_estimator;
-    auto job = std::async(std::launch::async,
-                          [&] { return core::evaluate_coastdown({ts, vs}, p, in_.vehicle.target, force_mass_kg_, eo); });
+    auto job = std::async(std::launch::async, [&] {
+      return core::evaluate_coastdown({ts, vs}, p, in_.vehicle.target, force_mass_kg_, eo);
+    });
     while (job.wait_for(std::chrono::milliseconds(20)) != std::future_status::ready) {
       c_.lease(in_.cell.timeouts.progress_grace);  // this thread is alive: waiting on a bounded computation
       if (Result hb = c_.heartbeat_if_due(); !hb.ok()) {
@@ -518,13 +606,17 @@ std::optional<Session::Stop> Session::do_run(int run) {
     nlohmann::json j = to_json(rec, p);
     if (!emit("coastdown", j, &trace)) return Stop{Outcome::record_failure, record_error_};
     if (unusable_ >= p.max_unusable_runs)
-      return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) + "): " + rec.evaluation.unusable_reason};
+      return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) +
+                                             "): " + rec.evaluation.unusable_reason};
   } else {
     rec.decision = method_->on_coastdown(set_, rec.evaluation.fit.coefficients, rec.evaluation.check.pass);
-    if (divergence_) divergence_->add(set_, in_.vehicle.target, rec.evaluation.fit.coefficients, rec.evaluation.check.worst_abs_deviation_n);
+    if (divergence_)
+      divergence_->add(set_, in_.vehicle.target, rec.evaluation.fit.coefficients,
+                       rec.evaluation.check.worst_abs_deviation_n);
     nlohmann::json j = to_json(rec, p);
     // Predicted band times for the target at TM + m_r, beside the measured ones (what the rollers should do).
-    const auto predicted = core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_, p.reference_speeds_kmh, p.band_half_width_kmh);
+    const auto predicted = core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_,
+                                                        p.reference_speeds_kmh, p.band_half_width_kmh);
     for (std::size_t i = 0; i < predicted.size() && i < j["bands"].size(); ++i)
       if (predicted[i]) j["bands"][i]["predicted_delta_t_s"] = *predicted[i];
     last_ = rec;
@@ -533,7 +625,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
       final_set_ = rec.decision.next_set;
       return Stop{Outcome::accepted, rec.decision.reason};
     }
-    if (rec.decision.kind == core::Decision::Kind::rejected) return Stop{Outcome::not_accepted, rec.decision.reason};
+    if (rec.decision.kind == core::Decision::Kind::rejected)
+      return Stop{Outcome::not_accepted, rec.decision.reason};
     if (divergence_)
       if (auto why = divergence_->verdict()) {
         emit("diverging", {{"run", run}, {"why", *why}});
@@ -542,7 +635,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
     set_ = rec.decision.next_set;
   }
   if (coastdowns_ >= p.max_coastdowns)
-    return Stop{Outcome::not_accepted, "iteration limit of " + std::to_string(p.max_coastdowns) + " coast-downs reached"};
+    return Stop{Outcome::not_accepted,
+                "iteration limit of " + std::to_string(p.max_coastdowns) + " coast-downs reached"};
   return std::nullopt;
 }
 
@@ -575,13 +669,18 @@ void Session::do_safe_stop() {
     if (Result q = c_.status(st); !q.ok()) st.speed_kmh = 0.0;  // the stream confirmed it just now
   }
   rollers_stopped_ = stopped || sr.ok();
-  if (rollers_stopped_) stop_note_ = "controlled stop: standstill confirmed by the controller";
+  if (rollers_stopped_)
+    stop_note_ = "controlled stop: standstill confirmed by the controller";
   else
     stop_note_ = "rollers not confirmed stopped: " + (sr.message.empty() ? r.message : sr.message) +
                  "; the controller's watchdog is the remaining safeguard";
-  emit("safe_stop", {{"how", rollers_stopped_ ? "controlled stop" : "controlled stop commanded, standstill not confirmed"},
-                     {"rollers_stopped", rollers_stopped_}, {"speed_kmh", st.speed_kmh}, {"mode", controller::to_string(st.mode)},
-                     {"standstill_threshold_kmh", in_.cell.standstill_kmh}, {"note", stop_note_}});
+  emit("safe_stop",
+       {{"how", rollers_stopped_ ? "controlled stop" : "controlled stop commanded, standstill not confirmed"},
+        {"rollers_stopped", rollers_stopped_},
+        {"speed_kmh", st.speed_kmh},
+        {"mode", controller::to_string(st.mode)},
+        {"standstill_threshold_kmh", in_.cell.standstill_kmh},
+        {"note", stop_note_}});
 }
 
 Session::StopGuard::~StopGuard() {
@@ -593,8 +692,8 @@ Session::StopGuard::~StopGuard() {
 }
 
 Summary Session::run(const ResumePoint* resume) {
-  // Records wait for the disk (fsync) and large traces take time to hash and write: a thread of its own keeps the
-  // controller's watchdog fed meanwhile, while this thread is alive and within its announced steps.
+  // Records wait for the disk (fsync) and large traces take time to hash and write: a thread of its own keeps
+  // the controller's watchdog fed meanwhile, while this thread is alive and within its announced steps.
   c_.lease(in_.cell.timeouts.progress_grace);
   const controller::KeepAlive keep_alive(c_);
   StopGuard guard{*this};
@@ -603,12 +702,14 @@ Summary Session::run(const ResumePoint* resume) {
   try {
     stop = run_states(resume);
   } catch (const std::exception& e) {
-    stop = Stop{Outcome::controller_fault, std::string("internal error, the session was stopped: ") + e.what()};
+    stop =
+        Stop{Outcome::controller_fault, std::string("internal error, the session was stopped: ") + e.what()};
   } catch (...) {
     stop = Stop{Outcome::controller_fault, "internal error, the session was stopped"};
   }
   if (!stop) stop = Stop{Outcome::controller_fault, "internal error: the session ended without a reason"};
-  if (record_failed_ && stop->outcome != Outcome::record_failure) stop = Stop{Outcome::record_failure, record_error_};
+  if (record_failed_ && stop->outcome != Outcome::record_failure)
+    stop = Stop{Outcome::record_failure, record_error_};
   try {
     do_safe_stop();
   } catch (const std::exception& e) {
@@ -622,7 +723,8 @@ Summary Session::run(const ResumePoint* resume) {
   s.iterations = iterations_;
   s.coastdowns = coastdowns_;
   s.usable_coastdowns = coastdowns_ - (unusable_ - discarded_);
-  s.cell_time_s = t_start_ >= 0.0 ? cell_time_before_ + (t_now_ - t_start_) : cell_time_before_;  // as emit() states it
+  s.cell_time_s =
+      t_start_ >= 0.0 ? cell_time_before_ + (t_now_ - t_start_) : cell_time_before_;  // as emit() states it
   s.first_setting = first_setting_;
   s.rollers_stopped = rollers_stopped_;
   s.stop_note = stop_note_;
@@ -655,17 +757,23 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     set_ = resume->next_set;
     first_setting_ = resume->strategy;
     if (resume->discarded_run) run_no = std::max(run_no, *resume->discarded_run + 1);
-    emit("resumed", {{"completed_coastdowns", coastdowns_}, {"unusable", unusable_}, {"next_set", coefficients_json(set_)},
-                     {"discarded_run", resume->discarded_run ? nlohmann::json(*resume->discarded_run) : nlohmann::json(nullptr)},
-                     {"note", resume->discarded_run ? "the half-recorded coast-down is discarded and run again" : "no run was in progress"}});
+    emit("resumed",
+         {{"completed_coastdowns", coastdowns_},
+          {"unusable", unusable_},
+          {"next_set", coefficients_json(set_)},
+          {"discarded_run",
+           resume->discarded_run ? nlohmann::json(*resume->discarded_run) : nlohmann::json(nullptr)},
+          {"note", resume->discarded_run ? "the half-recorded coast-down is discarded and run again"
+                                         : "no run was in progress"}});
   }
   std::optional<Stop> stop = do_connect();
   if (!stop) stop = do_check_limits();
   if (!stop) stop = do_set_inertia();
-  // A resumed session that had not yet chosen its first setting (interrupted in connect, warm-up or the loss map)
-  // chooses it now, as a new session would; one that had continues with its recorded next setting.
+  // A resumed session that had not yet chosen its first setting (interrupted in connect, warm-up or the loss
+  // map) chooses it now, as a new session would; one that had continues with its recorded next setting.
   const bool choose_first = !resume || !resume->have_next_set;
-  const bool want_map = choose_first && !in_.vehicle.initial_set && opt_.first_setting == core::FirstSetting::loss_map;
+  const bool want_map =
+      choose_first && !in_.vehicle.initial_set && opt_.first_setting == core::FirstSetting::loss_map;
   if (!stop) {
     const double warm = resume && opt_.resume_warm_up_s >= 0.0 ? opt_.resume_warm_up_s : p.warm_up.duration_s;
     stop = do_warm_up(warm, want_map);
@@ -695,7 +803,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
       set_ = *in_.vehicle.initial_set;
     } else {
       switch (opt_.first_setting) {
-        case core::FirstSetting::standard: break;
+        case core::FirstSetting::standard:
+          break;
         case core::FirstSetting::fleet:
           if (opt_.fleet && opt_.fleet->ok()) {
             loss = opt_.fleet->estimate(in_.vehicle.test_mass_kg, in_.cell.axles);
@@ -733,8 +842,11 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
       if (have_loss) inputs["loss"] = coefficients_json(loss);
     }
     first_setting_ = used;
-    if (!emit("first_setting", {{"requested", core::to_string(opt_.first_setting)}, {"strategy", used}, {"fallback_reason", why},
-                                {"set", coefficients_json(set_)}, {"inputs", inputs}}))
+    if (!emit("first_setting", {{"requested", core::to_string(opt_.first_setting)},
+                                {"strategy", used},
+                                {"fallback_reason", why},
+                                {"set", coefficients_json(set_)},
+                                {"inputs", inputs}}))
       stop = Stop{Outcome::record_failure, record_error_};
   }
   while (!stop) {

@@ -15,28 +15,29 @@
 //   check_limits  top reference speed + run-up margin below the cell's and the vehicle's limits (and the
 //                 controller's); warm-up and loss-map speeds too; the motoring-time budget
 //   set_inertia   per the profile's rule (EU SA4 §2.5.3), written and read back
-//   warm_up       speed hold for the profile's time (optionally until the hold force is stable), then the loss
+//   warm_up       speed hold for the profile's time (optionally until the hold force is stable), then the
+//   loss
 //                 map when the first-setting strategy uses it; the first coast-down must be released within
 //                 timing.max_gap_after_warmup_s of the warm-up's end (logged when it could not)
 //   write_set     set coefficients written and read back
-//   run_up        speed hold at the start speed until at the setpoint, then released into road-load simulation
-//   coast_down    the trace recorded until below the lowest band
-//   analyse       band analysis, regression, whole-trace estimate, tolerance, and the method's decision
-//   safe_stop     controlled stop to zero speed (or, with the link lost, the controller's watchdog does it)
+//   run_up        speed hold at the start speed until at the setpoint, then released into road-load
+//   simulation coast_down    the trace recorded until below the lowest band analyse       band analysis,
+//   regression, whole-trace estimate, tolerance, and the method's decision safe_stop     controlled stop to
+//   zero speed (or, with the link lost, the controller's watchdog does it)
 //
-// A lost link inside a run discards that run: reconnect within the cell's policy, wait for the rollers to stop,
-// clear the watchdog fault, re-warm if needed and repeat the run. The test is timed from the controller's sample
-// timestamps, which the controller layer checks against the tool's own clock; every wait (motion/motion.hpp) also
-// has a deadline on the tool's own clock. Threading: run() blocks the calling thread, which alone drives the
-// controller; each coast-down's analysis runs on a worker thread meanwhile so heartbeats go on. The stop flag may be
-// set from a signal handler.
+// A lost link inside a run discards that run: reconnect within the cell's policy, wait for the rollers to
+// stop, clear the watchdog fault, re-warm if needed and repeat the run. The test is timed from the
+// controller's sample timestamps, which the controller layer checks against the tool's own clock; every wait
+// (motion/motion.hpp) also has a deadline on the tool's own clock. Threading: run() blocks the calling
+// thread, which alone drives the controller; each coast-down's analysis runs on a worker thread meanwhile so
+// heartbeats go on. The stop flag may be set from a signal handler.
 //
 // Safety (docs/safety.md): every set curve is checked against the envelope (core/envelope.hpp) before it is
-// written, and a loop whose deviation does not shrink stops as "the controller does not follow the setting". The
-// safe stop runs on every path out of run(), exceptions included; the summary says whether standstill was confirmed
-// (rollers_stopped), and a session that could not confirm it ends with the controller-fault exit code. Observers
-// cannot throw into the session: only a critical observer (the record) that fails stops it (record_failure);
-// any other failing observer is logged and dropped.
+// written, and a loop whose deviation does not shrink stops as "the controller does not follow the setting".
+// The safe stop runs on every path out of run(), exceptions included; the summary says whether standstill was
+// confirmed (rollers_stopped), and a session that could not confirm it ends with the controller-fault exit
+// code. Observers cannot throw into the session: only a critical observer (the record) that fails stops it
+// (record_failure); any other failing observer is logged and dropped.
 #pragma once
 
 #include <atomic>
@@ -58,28 +59,46 @@
 namespace loadtrim::session {
 
 enum class State : std::uint8_t {
-  connect, check_limits, set_inertia, warm_up, write_set, run_up, coast_down, analyse, safe_stop, finished
+  connect,
+  check_limits,
+  set_inertia,
+  warm_up,
+  write_set,
+  run_up,
+  coast_down,
+  analyse,
+  safe_stop,
+  finished
 };
 const char* to_string(State s);
 
-enum class Outcome : std::uint8_t { accepted, not_accepted, refused, controller_fault, interrupted, record_failure };
+enum class Outcome : std::uint8_t {
+  accepted,
+  not_accepted,
+  refused,
+  controller_fault,
+  interrupted,
+  record_failure
+};
 const char* to_string(Outcome o);
-// A final result is a verdict (accepted, not accepted, refused): the session is over and its folder is sealed. The
-// others (a controller fault, an interruption, a record failure) leave a session that `resume` may continue.
+// A final result is a verdict (accepted, not accepted, refused): the session is over and its folder is
+// sealed. The others (a controller fault, an interruption, a record failure) leave a session that `resume`
+// may continue.
 bool is_final(Outcome o);
 bool is_final(const std::string& result);  // as to_string(Outcome) writes it
 
 struct Options {
   core::FirstSetting first_setting = core::FirstSetting::loss_map;
-  std::optional<core::FleetLossModel> fleet;      // for FirstSetting::fleet, and as a fallback
-  std::optional<core::HistoryEntry> history;      // for FirstSetting::history, and as a fallback
+  std::optional<core::FleetLossModel> fleet;  // for FirstSetting::fleet, and as a fallback
+  std::optional<core::HistoryEntry> history;  // for FirstSetting::history, and as a fallback
   double sample_rate_hz = 100.0;
-  double resume_warm_up_s = -1.0;                 // warm-up after a resume; < 0: the profile's full warm-up
+  double resume_warm_up_s = -1.0;  // warm-up after a resume; < 0: the profile's full warm-up
   std::string operator_note;
   std::chrono::milliseconds record_budget{30000};  // a durable record write (fsync) may take this long (wall)
-  double stop_budget_s = 300.0;                   // controller seconds for the rollers to stop
-  core::EnvelopeLimits envelope;                  // max_force_n and top_speed_kmh are filled from the cell and profile
-  bool whole_trace_estimator = true;             // the independent estimate beside the band method (benchmarks may skip it)
+  double stop_budget_s = 300.0;                    // controller seconds for the rollers to stop
+  core::EnvelopeLimits envelope;  // max_force_n and top_speed_kmh are filled from the cell and profile
+  bool whole_trace_estimator =
+      true;  // the independent estimate beside the band method (benchmarks may skip it)
 };
 
 // What the session hands its observers. `trace` is set on "coastdown" events only.
@@ -93,17 +112,18 @@ struct Progress {
   State state = State::connect;
   int coastdown = 0;
   double speed_kmh = 0.0;
-  double band_kmh = 0.0;            // reference speed whose band the coast is in (0 = none)
-  double cell_time_s = 0.0;         // controller time since the session started
+  double band_kmh = 0.0;     // reference speed whose band the coast is in (0 = none)
+  double cell_time_s = 0.0;  // controller time since the session started
   double remaining_estimate_s = 0.0;
 };
 
 // Observers: the record writer, the console, anything else. on_event returning false (or throwing) means the
-// observer could not do its job. For a critical observer (the record: an event that could not be made durable)
-// the session stops safely with Outcome::record_failure, and the non-critical observers do not see that event (the
-// console never shows a result whose record was not written). Any other observer that fails is logged and dropped.
-// While an observer runs, the controller's keep-alive goes on for at most record_budget (critical) or the cell's
-// progress grace (others): an observer that hangs longer lets the controller's watchdog stop the rollers.
+// observer could not do its job. For a critical observer (the record: an event that could not be made
+// durable) the session stops safely with Outcome::record_failure, and the non-critical observers do not see
+// that event (the console never shows a result whose record was not written). Any other observer that fails
+// is logged and dropped. While an observer runs, the controller's keep-alive goes on for at most
+// record_budget (critical) or the cell's progress grace (others): an observer that hangs longer lets the
+// controller's watchdog stop the rollers.
 class Observer {
  public:
   virtual ~Observer() = default;
@@ -137,20 +157,20 @@ nlohmann::json to_json(const CoastdownRecord& r, const core::Profile& p);
 struct ResumePoint {
   std::vector<nlohmann::json> completed;  // "coastdown" records, in order
   int unusable = 0;
-  std::optional<int> discarded_run;       // a run started but not completed
+  std::optional<int> discarded_run;  // a run started but not completed
   core::RoadLoad next_set;
   bool have_next_set = false;
   std::string strategy;
-  double cell_time_s = 0.0;               // controller time used before the interruption
-  int malformed = 0;                      // records that could not be read as this version writes them
+  double cell_time_s = 0.0;  // controller time used before the interruption
+  int malformed = 0;         // records that could not be read as this version writes them
   // A result the record already holds (the method's verdict in a coast-down record, a refusal, or a final
-  // "finished" record) when the process ended before the folder was sealed: resume finalises it without motoring
-  // and never runs another coast-down.
+  // "finished" record) when the process ended before the folder was sealed: resume finalises it without
+  // motoring and never runs another coast-down.
   std::optional<Outcome> verdict;
   std::string verdict_reason;
   std::optional<core::RoadLoad> final_set;  // as the decision gave it (not yet rounded)
-  bool finished_recorded = false;           // the final "finished" record (and summary.json) is already written
-  int iterations = 0;                       // distinct settings written
+  bool finished_recorded = false;  // the final "finished" record (and summary.json) is already written
+  int iterations = 0;              // distinct settings written
 };
 
 struct Summary {
@@ -164,15 +184,15 @@ struct Summary {
   std::optional<core::RoadLoad> measured;
   std::vector<core::SpeedDeviation> deviations;
   std::string first_setting;
-  bool rollers_stopped = false;   // standstill confirmed by the controller at the end
-  std::string stop_note;          // how the rollers were stopped, or why that could not be confirmed
+  bool rollers_stopped = false;  // standstill confirmed by the controller at the end
+  std::string stop_note;         // how the rollers were stopped, or why that could not be confirmed
 };
 nlohmann::json to_json(const Summary& s);
 
 class Session {
  public:
-  Session(Inputs inputs, Options options, controller::Controller& controller, std::vector<Observer*> observers,
-          const std::atomic<bool>* stop_flag = nullptr);
+  Session(Inputs inputs, Options options, controller::Controller& controller,
+          std::vector<Observer*> observers, const std::atomic<bool>* stop_flag = nullptr);
   // A fresh session, or one continuing from its log.
   Summary run(const ResumePoint* resume = nullptr);
 
@@ -181,7 +201,8 @@ class Session {
     Outcome outcome;
     std::string reason;
   };
-  bool emit(const std::string& type, nlohmann::json data, const std::vector<controller::Sample>* trace = nullptr);
+  bool emit(const std::string& type, nlohmann::json data,
+            const std::vector<controller::Sample>* trace = nullptr);
   void progress(double speed_kmh, double band_kmh = 0.0);
   void transition(State to, const std::string& why = "");
   bool stop_requested() const { return stop_flag_ && stop_flag_->load(); }
@@ -238,7 +259,8 @@ class Session {
 
 // Rebuilds where a session stood from its log records (pure: the records are passed in).
 ResumePoint resume_point(const std::vector<nlohmann::json>& records);
-// The summary of a session whose verdict the record already holds (ResumePoint::verdict), from the record alone.
+// The summary of a session whose verdict the record already holds (ResumePoint::verdict), from the record
+// alone.
 Summary summary_from_record(const ResumePoint& p, const core::Profile& profile);
 
 }  // namespace loadtrim::session

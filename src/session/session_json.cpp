@@ -2,9 +2,8 @@
 #include <cmath>
 
 #include "core/predict.hpp"
-#include "session/session.hpp"
-
 #include "core/setting.hpp"
+#include "session/session.hpp"
 
 namespace loadtrim::session {
 
@@ -13,7 +12,8 @@ nlohmann::json coefficients_json(const core::RoadLoad& c) {
 }
 
 core::RoadLoad coefficients_from_json(const nlohmann::json& j) {
-  return {j.at("f0_n").get<double>(), j.at("f1_n_per_kmh").get<double>(), j.at("f2_n_per_kmh2").get<double>()};
+  return {j.at("f0_n").get<double>(), j.at("f1_n_per_kmh").get<double>(),
+          j.at("f2_n_per_kmh2").get<double>()};
 }
 
 nlohmann::json to_json(const CoastdownRecord& r, const core::Profile& p) {
@@ -58,32 +58,36 @@ nlohmann::json to_json(const CoastdownRecord& r, const core::Profile& p) {
   j["estimators_disagree"] = e.estimators_disagree;
   nlohmann::json rows = nlohmann::json::array();
   for (const auto& d : e.check.rows)
-    rows.push_back({{"speed_kmh", d.speed_kmh}, {"target_n", d.target_n}, {"measured_n", d.measured_n},
-                    {"deviation_n", d.deviation_n}, {"pass", d.pass}});
-  j["check"] = {{"pass", e.check.pass}, {"worst_abs_deviation_n", e.check.worst_abs_deviation_n},
-                {"tolerance_n", p.tolerance_n}, {"rows", rows}};
-  j["decision"] = {{"kind", core::to_string(r.decision.kind)}, {"reason", r.decision.reason},
+    rows.push_back({{"speed_kmh", d.speed_kmh},
+                    {"target_n", d.target_n},
+                    {"measured_n", d.measured_n},
+                    {"deviation_n", d.deviation_n},
+                    {"pass", d.pass}});
+  j["check"] = {{"pass", e.check.pass},
+                {"worst_abs_deviation_n", e.check.worst_abs_deviation_n},
+                {"tolerance_n", p.tolerance_n},
+                {"rows", rows}};
+  j["decision"] = {{"kind", core::to_string(r.decision.kind)},
+                   {"reason", r.decision.reason},
                    {"next_set", coefficients_json(r.decision.next_set)}};
   return j;
 }
 
 nlohmann::json to_json(const Summary& s) {
-  nlohmann::json j = {{"result", to_string(s.outcome)},
-                      {"accepted", s.outcome == Outcome::accepted},
-                      {"stop_reason", s.stop_reason},
-                      {"iterations", s.iterations},
-                      {"coastdowns", s.coastdowns},
-                      {"usable_coastdowns", s.usable_coastdowns},
-                      {"cell_time_s", s.cell_time_s},
-                      {"first_setting", s.first_setting},
-                      {"rollers_stopped", s.rollers_stopped},
-                      {"stop_note", s.stop_note}};
+  nlohmann::json j = {{"result", to_string(s.outcome)},       {"accepted", s.outcome == Outcome::accepted},
+                      {"stop_reason", s.stop_reason},         {"iterations", s.iterations},
+                      {"coastdowns", s.coastdowns},           {"usable_coastdowns", s.usable_coastdowns},
+                      {"cell_time_s", s.cell_time_s},         {"first_setting", s.first_setting},
+                      {"rollers_stopped", s.rollers_stopped}, {"stop_note", s.stop_note}};
   if (s.final_set) j["final_set"] = coefficients_json(*s.final_set);
   if (s.measured) j["measured"] = coefficients_json(*s.measured);
   nlohmann::json rows = nlohmann::json::array();
   for (const auto& d : s.deviations)
-    rows.push_back({{"speed_kmh", d.speed_kmh}, {"target_n", d.target_n}, {"measured_n", d.measured_n},
-                    {"deviation_n", d.deviation_n}, {"pass", d.pass}});
+    rows.push_back({{"speed_kmh", d.speed_kmh},
+                    {"target_n", d.target_n},
+                    {"measured_n", d.measured_n},
+                    {"deviation_n", d.deviation_n},
+                    {"pass", d.pass}});
   j["deviations"] = rows;
   return j;
 }
@@ -92,57 +96,61 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
   ResumePoint p;
   std::optional<int> pending;
   for (const auto& r : records) try {
-    const std::string type = r.value("type", "");
-    if (r.contains("cell_time_s") && r["cell_time_s"].is_number()) p.cell_time_s = std::max(p.cell_time_s, r["cell_time_s"].get<double>());
-    if (type == "first_setting") {
-      p.strategy = r.value("strategy", "");
-      p.next_set = coefficients_from_json(r.at("set"));
-      p.have_next_set = true;
-    } else if (type == "set_written") {
-      p.iterations = std::max(p.iterations, r.value("iteration", 0));
-    } else if (type == "resumed") {
-      pending.reset();  // a run this resume found half-recorded is discarded: it is not discarded again later
-    } else if (type == "refused") {
-      p.verdict = Outcome::refused;
-      p.verdict_reason = r.value("why", "");
-    } else if (type == "finished" && is_final(r.value("result", ""))) {
-      const std::string res = r.value("result", "");
-      p.verdict = res == to_string(Outcome::accepted) ? Outcome::accepted : res == to_string(Outcome::refused) ? Outcome::refused : Outcome::not_accepted;
-      p.verdict_reason = r.value("stop_reason", "");
-      p.finished_recorded = true;
-      if (r.contains("final_set")) p.final_set = coefficients_from_json(r.at("final_set"));
-    } else if (type == "coastdown_started") {
-      pending = r.at("run").get<int>();
-    } else if (type == "coastdown_discarded") {
-      pending.reset();
-      if (r.contains("next_set")) {
-        p.next_set = coefficients_from_json(r.at("next_set"));
+      const std::string type = r.value("type", "");
+      if (r.contains("cell_time_s") && r["cell_time_s"].is_number())
+        p.cell_time_s = std::max(p.cell_time_s, r["cell_time_s"].get<double>());
+      if (type == "first_setting") {
+        p.strategy = r.value("strategy", "");
+        p.next_set = coefficients_from_json(r.at("set"));
+        p.have_next_set = true;
+      } else if (type == "set_written") {
+        p.iterations = std::max(p.iterations, r.value("iteration", 0));
+      } else if (type == "resumed") {
+        pending
+            .reset();  // a run this resume found half-recorded is discarded: it is not discarded again later
+      } else if (type == "refused") {
+        p.verdict = Outcome::refused;
+        p.verdict_reason = r.value("why", "");
+      } else if (type == "finished" && is_final(r.value("result", ""))) {
+        const std::string res = r.value("result", "");
+        p.verdict = res == to_string(Outcome::accepted)  ? Outcome::accepted
+                    : res == to_string(Outcome::refused) ? Outcome::refused
+                                                         : Outcome::not_accepted;
+        p.verdict_reason = r.value("stop_reason", "");
+        p.finished_recorded = true;
+        if (r.contains("final_set")) p.final_set = coefficients_from_json(r.at("final_set"));
+      } else if (type == "coastdown_started") {
+        pending = r.at("run").get<int>();
+      } else if (type == "coastdown_discarded") {
+        pending.reset();
+        if (r.contains("next_set")) {
+          p.next_set = coefficients_from_json(r.at("next_set"));
+          p.have_next_set = true;
+        }
+      } else if (type == "coastdown") {
+        pending.reset();
+        p.completed.push_back(r);
+        if (!r.value("usable", false)) {
+          ++p.unusable;
+          p.next_set = coefficients_from_json(r.at("set"));
+        } else {
+          p.next_set = coefficients_from_json(r.at("decision").at("next_set"));
+          const std::string kind = r.at("decision").value("kind", "");
+          if (kind == core::to_string(core::Decision::Kind::accepted)) {
+            p.verdict = Outcome::accepted;
+            p.verdict_reason = r.at("decision").value("reason", "");
+            p.final_set = p.next_set;
+          } else if (kind == core::to_string(core::Decision::Kind::rejected)) {
+            p.verdict = Outcome::not_accepted;
+            p.verdict_reason = r.at("decision").value("reason", "");
+          }
+        }
         p.have_next_set = true;
       }
-    } else if (type == "coastdown") {
-      pending.reset();
-      p.completed.push_back(r);
-      if (!r.value("usable", false)) {
-        ++p.unusable;
-        p.next_set = coefficients_from_json(r.at("set"));
-      } else {
-        p.next_set = coefficients_from_json(r.at("decision").at("next_set"));
-        const std::string kind = r.at("decision").value("kind", "");
-        if (kind == core::to_string(core::Decision::Kind::accepted)) {
-          p.verdict = Outcome::accepted;
-          p.verdict_reason = r.at("decision").value("reason", "");
-          p.final_set = p.next_set;
-        } else if (kind == core::to_string(core::Decision::Kind::rejected)) {
-          p.verdict = Outcome::not_accepted;
-          p.verdict_reason = r.at("decision").value("reason", "");
-        }
-      }
-      p.have_next_set = true;
+    } catch (const nlohmann::json::exception& e) {
+      // A record whose fields are not what this version writes: skipped and counted, never a crash.
+      ++p.malformed;
     }
-  } catch (const nlohmann::json::exception& e) {
-    // A record whose fields are not what this version writes: skipped and counted, never a crash.
-    ++p.malformed;
-  }
   p.discarded_run = pending;
   return p;
 }
@@ -162,11 +170,13 @@ Summary summary_from_record(const ResumePoint& p, const core::Profile& profile) 
       if (it->value("usable", false) && it->contains("simulated")) {
         s.measured = coefficients_from_json(it->at("simulated"));
         for (const auto& row : it->at("check").at("rows"))
-          s.deviations.push_back({row.value("speed_kmh", 0.0), row.value("target_n", 0.0), row.value("measured_n", 0.0),
-                                  row.value("deviation_n", 0.0), row.value("pass", false)});
+          s.deviations.push_back({row.value("speed_kmh", 0.0), row.value("target_n", 0.0),
+                                  row.value("measured_n", 0.0), row.value("deviation_n", 0.0),
+                                  row.value("pass", false)});
         break;
       }
-  } catch (const nlohmann::json::exception&) {  // a record without those fields: the summary goes without them
+  } catch (
+      const nlohmann::json::exception&) {  // a record without those fields: the summary goes without them
     s.measured.reset();
     s.deviations.clear();
   }

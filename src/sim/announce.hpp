@@ -1,5 +1,6 @@
 // The one line loadtrim-sim prints when it is ready, and its parser for the programs that start it:
-//   "loadtrim-sim listening <tcp|modbus-tcp> <host>:<port> pid=<n>" or "loadtrim-sim listening <pty|modbus-rtu> <path> pid=<n>"
+//   "loadtrim-sim listening <tcp|modbus-tcp> <host>:<port> pid=<n>" or "loadtrim-sim listening
+//   <pty|modbus-rtu> <path> pid=<n>"
 #pragma once
 
 #include <string>
@@ -21,7 +22,8 @@ inline Announcement parse_announcement(const std::string& line) {
   if (kind_end == std::string::npos) return a;
   const std::string kind = line.substr(p + key.size(), kind_end - p - key.size());
   const auto where_end = line.find(' ', kind_end + 1);
-  const std::string where = line.substr(kind_end + 1, where_end == std::string::npos ? std::string::npos : where_end - kind_end - 1);
+  const std::string where = line.substr(
+      kind_end + 1, where_end == std::string::npos ? std::string::npos : where_end - kind_end - 1);
   if (kind == "tcp" || kind == "modbus-tcp") {
     const auto colon = where.rfind(':');
     if (colon == std::string::npos) return a;

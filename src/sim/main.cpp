@@ -11,7 +11,8 @@
 
 int main(int argc, char** argv) {
   using namespace loadtrim;
-  CLI::App app{"loadtrim-sim: simulated roller-dyno controller (line protocol over TCP or a pseudo-terminal)"};
+  CLI::App app{
+      "loadtrim-sim: simulated roller-dyno controller (line protocol over TCP or a pseudo-terminal)"};
   std::string truth_file;
   sim::SimSettings s;
   sim::ServerSettings srv;
@@ -19,24 +20,36 @@ int main(int argc, char** argv) {
   std::string drop_in_mode;
   double drop_at = -1, stall_at = -1, estop_at = -1, report_dia = -1, report_inertia = -1;
   long long corrupt_line = -1;
-  app.add_option("--truth", truth_file, "the simulated vehicle and dyno (TOML); the tool never sees it")->required();
+  app.add_option("--truth", truth_file, "the simulated vehicle and dyno (TOML); the tool never sees it")
+      ->required();
   app.add_option("--bind", srv.bind, "address to listen on")->capture_default_str();
   app.add_option("--port", srv.port, "TCP port, 0 = pick a free one and print it")->capture_default_str();
   bool empty = false;
-  app.add_flag("--empty-rollers", empty, "no vehicle on the rollers (the dyno's own checks): only the truth's [dyno] part acts");
+  app.add_flag("--empty-rollers", empty,
+               "no vehicle on the rollers (the dyno's own checks): only the truth's [dyno] part acts");
   app.add_flag("--pty", srv.pty, "serve on a new pseudo-terminal instead of TCP and print its path");
-  app.add_option("--time-scale", srv.time_scale, "simulated seconds per wall second")->check(CLI::Range(0.01, 10000.0))->capture_default_str();
-  app.add_option("--watchdog-ms", watchdog_ms, "no request for this long while motoring → controlled stop")->check(CLI::Range(50.0, 600000.0))->capture_default_str();
+  app.add_option("--time-scale", srv.time_scale, "simulated seconds per wall second")
+      ->check(CLI::Range(0.01, 10000.0))
+      ->capture_default_str();
+  app.add_option("--watchdog-ms", watchdog_ms, "no request for this long while motoring → controlled stop")
+      ->check(CLI::Range(50.0, 600000.0))
+      ->capture_default_str();
   app.add_option("--max-speed-kmh", s.max_speed_kmh, "the controller's speed limit")->capture_default_str();
   app.add_option("--name", s.name, "controller name reported by IDENT (no spaces)")->capture_default_str();
-  app.add_option("--initial-warmth", warmth, "override the truth's initial drivetrain warmth (0 cold .. 1 warm)")->check(CLI::Range(0.0, 1.0));
+  app.add_option("--initial-warmth", warmth,
+                 "override the truth's initial drivetrain warmth (0 cold .. 1 warm)")
+      ->check(CLI::Range(0.0, 1.0));
   std::string modbus_map, modbus_rtu;
-  app.add_option("--modbus-map", modbus_map, "serve Modbus instead of the line protocol, with the [modbus] map of this cell file");
-  app.add_option("--modbus-rtu", modbus_rtu, "with --modbus-map: serve Modbus RTU on this serial device (115200 8N1) instead of TCP");
-  app.add_option("--exit-after-s", srv.exit_after_s, "exit after this many wall seconds (a safety net for tests)");
+  app.add_option("--modbus-map", modbus_map,
+                 "serve Modbus instead of the line protocol, with the [modbus] map of this cell file");
+  app.add_option("--modbus-rtu", modbus_rtu,
+                 "with --modbus-map: serve Modbus RTU on this serial device (115200 8N1) instead of TCP");
+  app.add_option("--exit-after-s", srv.exit_after_s,
+                 "exit after this many wall seconds (a safety net for tests)");
   auto* f = app.add_option_group("faults", "fault injection");
   f->add_option("--drop-at-s", drop_at, "drop the connection once at this simulated time");
-  f->add_option("--drop-in-mode", drop_in_mode, "drop the connection once this mode (HOLD, ROADLOAD) has lasted --drop-after-s");
+  f->add_option("--drop-in-mode", drop_in_mode,
+                "drop the connection once this mode (HOLD, ROADLOAD) has lasted --drop-after-s");
   f->add_option("--drop-after-s", s.faults.drop_after_s, "see --drop-in-mode (simulated seconds)");
   f->add_option("--corrupt-line", corrupt_line, "corrupt the Nth line sent (1-based), once");
   f->add_option("--corrupt-every", s.faults.corrupt_every, "corrupt every Nth line sent");
@@ -44,8 +57,10 @@ int main(int argc, char** argv) {
   f->add_option("--delay-replies-ms", s.faults.delay_replies_ms, "hold every reply back this long (wall)");
   f->add_option("--refuse", s.faults.refuse, "answer this verb with ERR 41 (repeatable)");
   f->add_option("--estop-at-s", estop_at, "raise an emergency stop at this simulated time");
-  f->add_option("--report-roller-diameter-m", report_dia, "IDENT reports this roller diameter instead of the truth");
-  f->add_option("--report-base-inertia-kg", report_inertia, "IDENT reports this base inertia instead of the truth");
+  f->add_option("--report-roller-diameter-m", report_dia,
+                "IDENT reports this roller diameter instead of the truth");
+  f->add_option("--report-base-inertia-kg", report_inertia,
+                "IDENT reports this base inertia instead of the truth");
   CLI11_PARSE(app, argc, argv);
   physics::Truth truth;
   try {
@@ -77,7 +92,8 @@ int main(int argc, char** argv) {
       std::cerr << e.what();
       return 2;
     }
-    return sim::run_modbus_server(truth, s, srv, map, modbus_rtu, [](const std::string& line) { std::cout << line << std::endl; });
+    return sim::run_modbus_server(truth, s, srv, map, modbus_rtu,
+                                  [](const std::string& line) { std::cout << line << std::endl; });
   }
   try {
     return sim::run_server(truth, s, srv, [](const std::string& line) { std::cout << line << std::endl; });

@@ -20,7 +20,9 @@ using modbus::Table;
 
 namespace {
 std::atomic<bool> g_stop{false};
-extern "C" void on_signal(int) { g_stop = true; }
+extern "C" void on_signal(int) {
+  g_stop = true;
+}
 
 int extent(const modbus::RegisterMap& m, Table t) {
   int n = 1;
@@ -37,14 +39,16 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
   std::signal(SIGINT, on_signal);
   SimController sim(truth, settings);
   sim.hello(line::kProtocolVersion);
-  modbus_mapping_t* mb = modbus_mapping_new(extent(map, Table::coil), 0, extent(map, Table::holding), extent(map, Table::input));
+  modbus_mapping_t* mb =
+      modbus_mapping_new(extent(map, Table::coil), 0, extent(map, Table::holding), extent(map, Table::input));
   if (!mb) return 1;
   auto put = [&](Q q, double v) {
     const auto& r = map[q];
     if (!r.present) return;
     std::uint16_t w[2] = {0, 0};
     if (!modbus::encode(r, v, w)) return;  // does not fit the register: it keeps its last value
-    if (r.table == Table::coil) mb->tab_bits[r.address] = w[0] ? 1 : 0;
+    if (r.table == Table::coil)
+      mb->tab_bits[r.address] = w[0] ? 1 : 0;
     else {
       std::uint16_t* tab = r.table == Table::input ? mb->tab_input_registers : mb->tab_registers;
       for (int i = 0; i < r.words(); ++i) tab[r.address + i] = w[i];
@@ -53,7 +57,8 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
   auto get = [&](Q q) {
     const auto& r = map[q];
     std::uint16_t w[2] = {0, 0};
-    if (r.table == Table::coil) w[0] = mb->tab_bits[r.address];
+    if (r.table == Table::coil)
+      w[0] = mb->tab_bits[r.address];
     else {
       const std::uint16_t* tab = r.table == Table::input ? mb->tab_input_registers : mb->tab_registers;
       for (int i = 0; i < r.words(); ++i) w[i] = tab[r.address + i];
@@ -72,8 +77,10 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     put(Q::speed, s.speed_kmh);
     put(Q::force, s.force_n);
     put(Q::time, s.time_s);
-    const int mode = s.mode == controller::Mode::speed_hold ? modbus::kCommandHold : s.mode == controller::Mode::road_load ? modbus::kCommandRoadLoad
-                   : s.mode == controller::Mode::controlled_stop ? modbus::kCommandStop : modbus::kCommandIdle;
+    const int mode = s.mode == controller::Mode::speed_hold        ? modbus::kCommandHold
+                     : s.mode == controller::Mode::road_load       ? modbus::kCommandRoadLoad
+                     : s.mode == controller::Mode::controlled_stop ? modbus::kCommandStop
+                                                                   : modbus::kCommandIdle;
     put(Q::mode, mode);
     put(Q::status, s.flags);
   };
@@ -87,7 +94,8 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     sockaddr_in a{};
     socklen_t len = sizeof a;
     ::getsockname(listen_fd, reinterpret_cast<sockaddr*>(&a), &len);
-    announce("loadtrim-sim listening modbus-tcp " + server.bind + ":" + std::to_string(ntohs(a.sin_port)) + " pid=" + std::to_string(::getpid()));
+    announce("loadtrim-sim listening modbus-tcp " + server.bind + ":" + std::to_string(ntohs(a.sin_port)) +
+             " pid=" + std::to_string(::getpid()));
   } else {
     ctx = modbus_new_rtu(rtu_device.c_str(), 115200, 'N', 8, 1);
     modbus_set_slave(ctx, map.unit_id);
@@ -152,13 +160,17 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
       auto was = [&](Q q) { return map[q].table != Table::coil && written.count(map[q].address) > 0; };
       std::optional<SimError> e;
       if (was(Q::inertia)) e = sim.set_inertia(get(Q::inertia));
-      if (!e && (was(Q::f0) || was(Q::f1) || was(Q::f2))) e = sim.set_coefficients({get(Q::f0), get(Q::f1), get(Q::f2)});
+      if (!e && (was(Q::f0) || was(Q::f1) || was(Q::f2)))
+        e = sim.set_coefficients({get(Q::f0), get(Q::f1), get(Q::f2)});
       if (!e && (was(Q::command) || was(Q::hold_speed))) {
         const int c = static_cast<int>(get(Q::command));
-        if (c == modbus::kCommandClearFault) e = sim.clear();
+        if (c == modbus::kCommandClearFault)
+          e = sim.clear();
         else
-          e = sim.command(c == modbus::kCommandHold ? controller::Mode::speed_hold : c == modbus::kCommandRoadLoad ? controller::Mode::road_load
-                          : c == modbus::kCommandStop ? controller::Mode::controlled_stop : controller::Mode::idle,
+          e = sim.command(c == modbus::kCommandHold       ? controller::Mode::speed_hold
+                          : c == modbus::kCommandRoadLoad ? controller::Mode::road_load
+                          : c == modbus::kCommandStop     ? controller::Mode::controlled_stop
+                                                          : controller::Mode::idle,
                           get(Q::hold_speed));
       }
       put(Q::error, e ? static_cast<double>(static_cast<int>(e->code)) : 0.0);

@@ -13,22 +13,33 @@ using physics::Mode;
 namespace {
 controller::Mode to_controller(Mode m) {
   switch (m) {
-    case Mode::idle: return controller::Mode::idle;
-    case Mode::speed_hold: return controller::Mode::speed_hold;
-    case Mode::road_load: return controller::Mode::road_load;
-    case Mode::controlled_stop: return controller::Mode::controlled_stop;
-    case Mode::constant_force: return controller::Mode::constant_force;
+    case Mode::idle:
+      return controller::Mode::idle;
+    case Mode::speed_hold:
+      return controller::Mode::speed_hold;
+    case Mode::road_load:
+      return controller::Mode::road_load;
+    case Mode::controlled_stop:
+      return controller::Mode::controlled_stop;
+    case Mode::constant_force:
+      return controller::Mode::constant_force;
   }
   return controller::Mode::idle;
 }
 const char* wire(controller::Mode m) {
   switch (m) {
-    case controller::Mode::idle: return line::kModeIdle;
-    case controller::Mode::speed_hold: return line::kModeHold;
-    case controller::Mode::road_load: return line::kModeRoadLoad;
-    case controller::Mode::controlled_stop: return line::kModeStop;
-    case controller::Mode::constant_force: return line::kModeForce;
-    case controller::Mode::free_coast: return line::kModeIdle;  // reported as idle while coasting
+    case controller::Mode::idle:
+      return line::kModeIdle;
+    case controller::Mode::speed_hold:
+      return line::kModeHold;
+    case controller::Mode::road_load:
+      return line::kModeRoadLoad;
+    case controller::Mode::controlled_stop:
+      return line::kModeStop;
+    case controller::Mode::constant_force:
+      return line::kModeForce;
+    case controller::Mode::free_coast:
+      return line::kModeIdle;  // reported as idle while coasting
   }
   return line::kModeIdle;
 }
@@ -43,7 +54,9 @@ const char* kCaps = "caps=hold,hold-force,roadload,stop,stream,watchdog,status,f
 SimController::SimController(const physics::Truth& truth, SimSettings settings)
     : model_(truth), settings_(std::move(settings)) {}
 
-std::string SimController::wire_mode() const { return wire(to_controller(model_.mode())); }
+std::string SimController::wire_mode() const {
+  return wire(to_controller(model_.mode()));
+}
 
 std::uint32_t SimController::flags() const {
   std::uint32_t f = 0;
@@ -55,10 +68,12 @@ std::uint32_t SimController::flags() const {
   return f;
 }
 
-// ---- the typed core ------------------------------------------------------------------------------------------
+// ---- the typed core
+// ------------------------------------------------------------------------------------------
 
 std::optional<SimError> SimController::hello(int version) {
-  if (version != line::kProtocolVersion) return SimError{ErrorCode::bad_argument, "unsupported protocol version"};
+  if (version != line::kProtocolVersion)
+    return SimError{ErrorCode::bad_argument, "unsupported protocol version"};
   hello_ = true;
   return std::nullopt;
 }
@@ -78,37 +93,51 @@ controller::ControllerInfo SimController::info() const {
 }
 
 std::optional<SimError> SimController::set_inertia(double kg) {
-  if (kg < 100.0 || kg > 10000.0) return SimError{ErrorCode::out_of_limits, "inertia allowed 100 to 10000 kg"};
-  if (model_.mode() == Mode::road_load) return SimError{ErrorCode::wrong_state, "not during road-load simulation"};
+  if (kg < 100.0 || kg > 10000.0)
+    return SimError{ErrorCode::out_of_limits, "inertia allowed 100 to 10000 kg"};
+  if (model_.mode() == Mode::road_load)
+    return SimError{ErrorCode::wrong_state, "not during road-load simulation"};
   model_.set_inertia_kg(kg);
   return std::nullopt;
 }
 
 std::optional<SimError> SimController::set_coefficients(const core::RoadLoad& c) {
-  if (std::abs(c.f0_n) > settings_.max_force_n) return SimError{ErrorCode::out_of_limits, "f0 above the force limit"};
-  if (model_.mode() == Mode::road_load) return SimError{ErrorCode::wrong_state, "not during road-load simulation"};
+  if (std::abs(c.f0_n) > settings_.max_force_n)
+    return SimError{ErrorCode::out_of_limits, "f0 above the force limit"};
+  if (model_.mode() == Mode::road_load)
+    return SimError{ErrorCode::wrong_state, "not during road-load simulation"};
   model_.set_coefficients(c);
   return std::nullopt;
 }
 
 std::optional<SimError> SimController::command(controller::Mode mode, double hold_kmh) {
-  const bool moving = mode == controller::Mode::speed_hold || mode == controller::Mode::road_load || mode == controller::Mode::constant_force;
-  if (moving && !fault_.empty()) return SimError{ErrorCode::fault_active, "fault " + fault_ + " latched: CLEAR first"};
+  const bool moving = mode == controller::Mode::speed_hold || mode == controller::Mode::road_load ||
+                      mode == controller::Mode::constant_force;
+  if (moving && !fault_.empty())
+    return SimError{ErrorCode::fault_active, "fault " + fault_ + " latched: CLEAR first"};
   switch (mode) {
     case controller::Mode::speed_hold:
       if (!(hold_kmh >= 0.0)) return SimError{ErrorCode::bad_argument, "MODE HOLD needs a speed in km/h"};
-      if (hold_kmh > settings_.max_speed_kmh) return SimError{ErrorCode::out_of_limits, "speed above the controller limit"};
+      if (hold_kmh > settings_.max_speed_kmh)
+        return SimError{ErrorCode::out_of_limits, "speed above the controller limit"};
       model_.hold_speed(hold_kmh);
       break;
-    case controller::Mode::road_load: model_.release_road_load(); break;
-    case controller::Mode::controlled_stop: model_.controlled_stop(); break;
+    case controller::Mode::road_load:
+      model_.release_road_load();
+      break;
+    case controller::Mode::controlled_stop:
+      model_.controlled_stop();
+      break;
     case controller::Mode::idle:
       if (model_.speed_kmh() > 0.5) return SimError{ErrorCode::wrong_state, "rollers turning: STOP first"};
       model_.idle();
       break;
-    case controller::Mode::free_coast: model_.idle(); break;  // the motor lets go at any speed
+    case controller::Mode::free_coast:
+      model_.idle();
+      break;  // the motor lets go at any speed
     case controller::Mode::constant_force:
-      if (!(std::abs(hold_kmh) <= settings_.max_force_n)) return SimError{ErrorCode::out_of_limits, "force above the controller limit"};
+      if (!(std::abs(hold_kmh) <= settings_.max_force_n))
+        return SimError{ErrorCode::out_of_limits, "force above the controller limit"};
       model_.apply_force(hold_kmh);
       break;
   }
@@ -132,24 +161,29 @@ std::optional<SimError> SimController::clear() {
 
 controller::Sample SimController::reading() {
   const physics::Sample s = model_.sample();
-  return {sample_index_++, s.time_s, std::max(0.0, s.speed_kmh), s.force_n, to_controller(model_.mode()), flags()};
+  return {sample_index_++, s.time_s, std::max(0.0, s.speed_kmh), s.force_n, to_controller(model_.mode()),
+          flags()};
 }
 
 controller::StatusReport SimController::status() const {
   return {to_controller(model_.mode()), model_.speed_kmh(), model_.time_s(), flags(), fault_};
 }
 
-void SimController::latch_fault(const std::string& kind, const std::string& detail, std::vector<std::string>& events) {
+void SimController::latch_fault(const std::string& kind, const std::string& detail,
+                                std::vector<std::string>& events) {
   fault_ = kind;
-  if (model_.speed_kmh() > 0.0) model_.controlled_stop();
-  else model_.idle();
+  if (model_.speed_kmh() > 0.0)
+    model_.controlled_stop();
+  else
+    model_.idle();
   std::string d = detail;  // one field on the wire: no spaces
   for (char& ch : d)
     if (ch == ' ') ch = '_';
   events.push_back("FAULT " + kv("kind", kind) + " " + kv("detail", d) + " " + kv("time_s", model_.time_s()));
 }
 
-void SimController::advance_typed(double dt, std::vector<controller::Sample>& samples, std::vector<std::string>& events) {
+void SimController::advance_typed(double dt, std::vector<controller::Sample>& samples,
+                                  std::vector<std::string>& events) {
   const double end = model_.time_s() + dt;
   const auto& fp = settings_.faults;
   // Fixed 10 ms integration steps at most: the dynamics are slow and smooth (RK4 error far below the noise).
@@ -158,7 +192,8 @@ void SimController::advance_typed(double dt, std::vector<controller::Sample>& sa
     model_.advance(next_sample_s_ - model_.time_s(), kStep);
     if (!(fp.stall_at_s && model_.time_s() >= *fp.stall_at_s)) {
       const physics::Sample s = model_.sample();
-      samples.push_back({sample_index_++, s.time_s, std::max(0.0, s.speed_kmh), s.force_n, to_controller(model_.mode()), flags()});
+      samples.push_back({sample_index_++, s.time_s, std::max(0.0, s.speed_kmh), s.force_n,
+                         to_controller(model_.mode()), flags()});
     }
     next_sample_s_ += 1.0 / stream_hz_;
   }
@@ -169,7 +204,8 @@ void SimController::advance_typed(double dt, std::vector<controller::Sample>& sa
   }
   if (!dropped_once_) {
     const bool by_time = fp.drop_at_s && model_.time_s() >= *fp.drop_at_s;
-    const bool by_mode = fp.drop_in_mode && wire_mode() == *fp.drop_in_mode && model_.time_s() - mode_since_s_ >= fp.drop_after_s;
+    const bool by_mode = fp.drop_in_mode && wire_mode() == *fp.drop_in_mode &&
+                         model_.time_s() - mode_since_s_ >= fp.drop_after_s;
     if (by_time || by_mode) {
       dropped_once_ = true;
       drop_pending_ = true;
@@ -179,7 +215,8 @@ void SimController::advance_typed(double dt, std::vector<controller::Sample>& sa
 
 void SimController::check_watchdog_typed(double wall_s, std::vector<std::string>& events) {
   const Mode m = model_.mode();
-  if ((m == Mode::speed_hold || m == Mode::road_load || m == Mode::constant_force) && wall_s - last_request_wall_s_ > settings_.watchdog_s)
+  if ((m == Mode::speed_hold || m == Mode::road_load || m == Mode::constant_force) &&
+      wall_s - last_request_wall_s_ > settings_.watchdog_s)
     latch_fault("WATCHDOG", "no request within the watchdog window: controlled stop", events);
 }
 
@@ -189,7 +226,8 @@ bool SimController::take_drop_request() {
   return d;
 }
 
-// ---- the line-protocol front end -----------------------------------------------------------------------------
+// ---- the line-protocol front end
+// -----------------------------------------------------------------------------
 
 void SimController::send(line::Message m, std::vector<std::string>& out) {
   m.seq = seq_++;
@@ -223,14 +261,16 @@ void SimController::reply_ok(std::uint32_t req, const std::string& verb, std::ve
   send({0, "OK", std::move(fields)}, out);
 }
 
-void SimController::reply_err(std::uint32_t req, ErrorCode code, const std::string& text, std::vector<std::string>& out) {
+void SimController::reply_err(std::uint32_t req, ErrorCode code, const std::string& text,
+                              std::vector<std::string>& out) {
   std::vector<std::string> f = {std::to_string(req), std::to_string(static_cast<int>(code))};
   std::string word;
   for (char c : text) {
     if (c == ' ') {
       if (!word.empty()) f.push_back(word);
       word.clear();
-    } else word += c;
+    } else
+      word += c;
   }
   if (!word.empty()) f.push_back(word);
   send({0, "ERR", std::move(f)}, out);
@@ -250,35 +290,42 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
   const line::Message& m = d.message;
   const std::uint32_t req = m.seq;
   const auto& f = m.fields;
-  auto answer = [&](const std::optional<SimError>& e, const std::string& verb, std::vector<std::string> fields) {
-    if (e) reply_err(req, e->code, e->text, out);
-    else reply_ok(req, verb, std::move(fields), out);
+  auto answer = [&](const std::optional<SimError>& e, const std::string& verb,
+                    std::vector<std::string> fields) {
+    if (e)
+      reply_err(req, e->code, e->text, out);
+    else
+      reply_ok(req, verb, std::move(fields), out);
   };
   for (const auto& v : settings_.faults.refuse)
     if (v == m.type) return reply_err(req, ErrorCode::refused, "refused by fault injection", out);
   if (m.type == "HELLO") {
     const auto v = line::number_field(m, "version");
-    return answer(hello(v ? static_cast<int>(*v) : -1), "HELLO", {kv("version", line::kProtocolVersion), kCaps});
+    return answer(hello(v ? static_cast<int>(*v) : -1), "HELLO",
+                  {kv("version", line::kProtocolVersion), kCaps});
   }
   if (!hello_) return reply_err(req, ErrorCode::wrong_state, "send HELLO first", out);
   if (m.type == "BEAT") return reply_ok(req, "BEAT", {}, out);
   if (m.type == "IDENT") {
     const auto i = info();
-    return reply_ok(req, "IDENT",
-                    {kv("name", i.name), kv("version", i.protocol_version), kv("roller_diameter_m", i.roller_diameter_m),
-                     kv("base_inertia_kg", i.base_inertia_kg), kv("max_speed_kmh", i.max_speed_kmh),
-                     kv("max_force_n", i.max_force_n), kv("time_scale", i.time_scale), kCaps},
-                    out);
+    return reply_ok(
+        req, "IDENT",
+        {kv("name", i.name), kv("version", i.protocol_version), kv("roller_diameter_m", i.roller_diameter_m),
+         kv("base_inertia_kg", i.base_inertia_kg), kv("max_speed_kmh", i.max_speed_kmh),
+         kv("max_force_n", i.max_force_n), kv("time_scale", i.time_scale), kCaps},
+        out);
   }
   if (m.type == "STATUS") {
     const auto st = status();
-    return reply_ok(req, "STATUS",
-                    {kv("mode", wire(st.mode)), kv("speed_kmh", st.speed_kmh), kv("time_s", st.time_s), kv("flags", hex2(st.flags)),
-                     kv("fault", st.fault.empty() ? std::string("none") : st.fault)},
-                    out);
+    return reply_ok(
+        req, "STATUS",
+        {kv("mode", wire(st.mode)), kv("speed_kmh", st.speed_kmh), kv("time_s", st.time_s),
+         kv("flags", hex2(st.flags)), kv("fault", st.fault.empty() ? std::string("none") : st.fault)},
+        out);
   }
   if (m.type == "INERTIA") {
-    if (f.size() == 1 && f[0] == "GET") return reply_ok(req, "INERTIA", {kv("inertia_kg", model_.inertia_set_kg())}, out);
+    if (f.size() == 1 && f[0] == "GET")
+      return reply_ok(req, "INERTIA", {kv("inertia_kg", model_.inertia_set_kg())}, out);
     if (f.size() == 2 && f[0] == "SET") {
       const auto v = line::parse_number(f[1]);
       if (!v) return reply_err(req, ErrorCode::bad_argument, "INERTIA SET needs a number in kg", out);
@@ -290,7 +337,8 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
   if (m.type == "COEF") {
     auto echo = [&] {
       const auto& c = model_.coefficients();
-      return std::vector<std::string>{kv("f0_n", c.f0_n), kv("f1_n_per_kmh", c.f1_n_per_kmh), kv("f2_n_per_kmh2", c.f2_n_per_kmh2)};
+      return std::vector<std::string>{kv("f0_n", c.f0_n), kv("f1_n_per_kmh", c.f1_n_per_kmh),
+                                      kv("f2_n_per_kmh2", c.f2_n_per_kmh2)};
     };
     if (f.size() == 1 && f[0] == "GET") return reply_ok(req, "COEF", echo(), out);
     if (f.size() == 4 && f[0] == "SET") {
@@ -302,7 +350,9 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
     return reply_err(req, ErrorCode::bad_argument, "COEF GET or COEF SET <f0> <f1> <f2>", out);
   }
   if (m.type == "MODE") {
-    if (f.empty()) return reply_err(req, ErrorCode::bad_argument, "MODE IDLE|HOLD <km/h>|ROADLOAD|STOP|FORCE <N>|FREE", out);
+    if (f.empty())
+      return reply_err(req, ErrorCode::bad_argument, "MODE IDLE|HOLD <km/h>|ROADLOAD|STOP|FORCE <N>|FREE",
+                       out);
     controller::Mode mode;
     double hold = 0.0;
     if (f[0] == line::kModeHold) {
@@ -315,11 +365,16 @@ void SimController::on_line(std::string_view text, double wall_s, std::vector<st
       if (!v) return reply_err(req, ErrorCode::bad_argument, "MODE FORCE needs a force in N", out);
       mode = controller::Mode::constant_force;
       hold = *v;
-    } else if (f[0] == line::kModeFree) mode = controller::Mode::free_coast;
-    else if (f[0] == line::kModeRoadLoad) mode = controller::Mode::road_load;
-    else if (f[0] == line::kModeStop) mode = controller::Mode::controlled_stop;
-    else if (f[0] == line::kModeIdle) mode = controller::Mode::idle;
-    else return reply_err(req, ErrorCode::bad_argument, "unknown mode " + f[0], out);
+    } else if (f[0] == line::kModeFree)
+      mode = controller::Mode::free_coast;
+    else if (f[0] == line::kModeRoadLoad)
+      mode = controller::Mode::road_load;
+    else if (f[0] == line::kModeStop)
+      mode = controller::Mode::controlled_stop;
+    else if (f[0] == line::kModeIdle)
+      mode = controller::Mode::idle;
+    else
+      return reply_err(req, ErrorCode::bad_argument, "unknown mode " + f[0], out);
     const auto e = command(mode, hold);
     return answer(e, "MODE", {kv("mode", wire_mode())});
   }

@@ -1,7 +1,7 @@
 // The simulated controller's protocol front end: the physics model behind the line protocol, with limits, a
-// heartbeat watchdog and fault injection. Pure: no sockets, no clocks — the server (or an in-process loopback)
-// passes request lines in, advances simulated time, and sends the returned lines. Wall time for the watchdog is
-// passed in too.
+// heartbeat watchdog and fault injection. Pure: no sockets, no clocks — the server (or an in-process
+// loopback) passes request lines in, advances simulated time, and sends the returned lines. Wall time for the
+// watchdog is passed in too.
 #pragma once
 
 #include <cstdint>
@@ -17,15 +17,15 @@
 namespace loadtrim::sim {
 
 struct FaultPlan {
-  std::optional<double> drop_at_s;              // close the link once when simulated time passes this
-  std::optional<std::string> drop_in_mode;      // ...or when this mode (HOLD, ROADLOAD) has lasted drop_after_s
+  std::optional<double> drop_at_s;          // close the link once when simulated time passes this
+  std::optional<std::string> drop_in_mode;  // ...or when this mode (HOLD, ROADLOAD) has lasted drop_after_s
   double drop_after_s = 0.0;
-  std::optional<std::uint64_t> corrupt_line;    // corrupt the Nth line sent (1-based), once
-  std::uint64_t corrupt_every = 0;              // corrupt every Nth line sent (0 = never)
-  std::optional<double> stall_at_s;             // stop the sample stream at this simulated time
-  double delay_replies_ms = 0.0;                // hold every reply back this long (wall time; the server applies it)
-  std::vector<std::string> refuse;              // verbs answered with ERR 41
-  std::optional<double> estop_at_s;             // raise an emergency stop at this simulated time
+  std::optional<std::uint64_t> corrupt_line;  // corrupt the Nth line sent (1-based), once
+  std::uint64_t corrupt_every = 0;            // corrupt every Nth line sent (0 = never)
+  std::optional<double> stall_at_s;           // stop the sample stream at this simulated time
+  double delay_replies_ms = 0.0;     // hold every reply back this long (wall time; the server applies it)
+  std::vector<std::string> refuse;   // verbs answered with ERR 41
+  std::optional<double> estop_at_s;  // raise an emergency stop at this simulated time
   std::optional<double> report_roller_diameter_m;  // IDENT reports this instead of the truth
   std::optional<double> report_base_inertia_kg;
 };
@@ -35,7 +35,8 @@ struct SimSettings {
   double max_speed_kmh = 200.0;
   double max_force_n = 10000.0;
   double watchdog_s = 1.0;  // wall seconds without a request while motoring or simulating → controlled stop
-  double time_scale = 1.0;  // simulated seconds per wall second, stated in IDENT (time_scale=) so the tool can check the clock
+  double time_scale = 1.0;  // simulated seconds per wall second, stated in IDENT (time_scale=) so the tool
+                            // can check the clock
   FaultPlan faults;
 };
 
@@ -61,8 +62,10 @@ class SimController {
   void touch(double wall_s) { last_request_wall_s_ = wall_s; }  // a sign of life from the tool
   // A reading now (noisy), with mode and flags: what register-based front ends publish.
   controller::Sample reading();
-  // Advances simulated time; samples at the stream rate and fault events ("FAULT kind=... detail=...") appended.
-  void advance_typed(double sim_dt_s, std::vector<controller::Sample>& samples, std::vector<std::string>& events);
+  // Advances simulated time; samples at the stream rate and fault events ("FAULT kind=... detail=...")
+  // appended.
+  void advance_typed(double sim_dt_s, std::vector<controller::Sample>& samples,
+                     std::vector<std::string>& events);
   void check_watchdog_typed(double wall_s, std::vector<std::string>& events);
 
   // The line-protocol front end over the typed core.
@@ -73,7 +76,10 @@ class SimController {
   // Checks the heartbeat watchdog against the wall clock the caller passes.
   void check_watchdog(double wall_s, std::vector<std::string>& out);
   // The link went away (the server calls this; the watchdog then takes over).
-  void on_disconnect() { hello_ = false; stream_hz_ = 0.0; }
+  void on_disconnect() {
+    hello_ = false;
+    stream_hz_ = 0.0;
+  }
   // True once when the fault plan says the link must drop now.
   bool take_drop_request();
 
@@ -83,8 +89,10 @@ class SimController {
   double delay_replies_ms() const { return settings_.faults.delay_replies_ms; }
 
  private:
-  void reply_ok(std::uint32_t req, const std::string& verb, std::vector<std::string> fields, std::vector<std::string>& out);
-  void reply_err(std::uint32_t req, line::ErrorCode code, const std::string& text, std::vector<std::string>& out);
+  void reply_ok(std::uint32_t req, const std::string& verb, std::vector<std::string> fields,
+                std::vector<std::string>& out);
+  void reply_err(std::uint32_t req, line::ErrorCode code, const std::string& text,
+                 std::vector<std::string>& out);
   void send(line::Message m, std::vector<std::string>& out);
   void latch_fault(const std::string& kind, const std::string& detail, std::vector<std::string>& events);
   void send_events(const std::vector<std::string>& events, std::vector<std::string>& out);

@@ -19,7 +19,11 @@ using WallClock = std::chrono::steady_clock;
 class Server {
  public:
   Server(const physics::Truth& truth, const SimSettings& sim, const ServerSettings& s)
-      : sim_(truth, sim), settings_(s), tick_(io_), signals_(io_, SIGINT, SIGTERM), start_(WallClock::now()) {}
+      : sim_(truth, sim),
+        settings_(s),
+        tick_(io_),
+        signals_(io_, SIGINT, SIGTERM),
+        start_(WallClock::now()) {}
 
   int run(const std::function<void(const std::string&)>& announce) {
     announce_ = announce;
@@ -33,8 +37,8 @@ class Server {
       acceptor_->set_option(asio::ip::tcp::acceptor::reuse_address(true));
       acceptor_->bind(ep);
       acceptor_->listen(1);
-      announce("loadtrim-sim listening tcp " + settings_.bind + ":" + std::to_string(acceptor_->local_endpoint().port()) +
-               " pid=" + std::to_string(::getpid()));
+      announce("loadtrim-sim listening tcp " + settings_.bind + ":" +
+               std::to_string(acceptor_->local_endpoint().port()) + " pid=" + std::to_string(::getpid()));
       accept();
     }
     last_tick_ = WallClock::now();
@@ -97,8 +101,10 @@ class Server {
   void on_bytes(std::size_t n) {
     std::vector<std::string> out;
     splitter_.feed(std::string_view(buf_.data(), n), [&](std::string_view l, bool too_long) {
-      if (too_long) sim_.on_line("0 TOOLONG*0000", wall_s(), out);  // answered as a bad frame
-      else sim_.on_line(l, wall_s(), out);
+      if (too_long)
+        sim_.on_line("0 TOOLONG*0000", wall_s(), out);  // answered as a bad frame
+      else
+        sim_.on_line(l, wall_s(), out);
     });
     const double release = wall_s() + sim_.delay_replies_ms() / 1000.0;
     for (auto& s : out) outq_.push_back({release, std::move(s)});
@@ -137,9 +143,12 @@ class Server {
       if (ec) return drop_client();
       flush();
     };
-    if (settings_.pty) asio::async_write(*pty_, asio::buffer(*data), done);
-    else if (socket_) asio::async_write(*socket_, asio::buffer(*data), done);
-    else writing_ = false;
+    if (settings_.pty)
+      asio::async_write(*pty_, asio::buffer(*data), done);
+    else if (socket_)
+      asio::async_write(*socket_, asio::buffer(*data), done);
+    else
+      writing_ = false;
   }
 
   void schedule_tick() {
@@ -153,10 +162,11 @@ class Server {
       // Bounded catch-up: after a stall of the host, simulated time jumps at most 50 ms of wall time.
       sim_.advance(std::min(wall_dt, 0.05) * settings_.time_scale, out);
       sim_.check_watchdog(wall_s(), out);
-      // Latched faults are also said on the simulator's own output (for its operator and the tests): a watchdog
-      // stop there proves the controller acted without the tool.
+      // Latched faults are also said on the simulator's own output (for its operator and the tests): a
+      // watchdog stop there proves the controller acted without the tool.
       for (const auto& l : out)
-        if (l.find(" EVT FAULT ") != std::string::npos && announce_) announce_("loadtrim-sim: " + l.substr(0, l.find('*')));
+        if (l.find(" EVT FAULT ") != std::string::npos && announce_)
+          announce_("loadtrim-sim: " + l.substr(0, l.find('*')));
       if (connected_)
         for (auto& s : out) outq_.push_back({wall_s(), std::move(s)});
       if (sim_.take_drop_request()) drop_client();

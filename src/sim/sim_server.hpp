@@ -1,6 +1,6 @@
-// The simulated controller's I/O: serves the line protocol on TCP (127.0.0.1 by default, port 0 = any free one)
-// or on a pseudo-terminal, drives SimController from a wall-clock tick at a chosen time scale, and applies the
-// link faults (drop, delayed replies). Single-threaded Asio.
+// The simulated controller's I/O: serves the line protocol on TCP (127.0.0.1 by default, port 0 = any free
+// one) or on a pseudo-terminal, drives SimController from a wall-clock tick at a chosen time scale, and
+// applies the link faults (drop, delayed replies). Single-threaded Asio.
 #pragma once
 
 #include <functional>

@@ -1,5 +1,6 @@
-// libFuzzer target: the file readers — trace CSV (then band analysis on what it read), EPA CSV, and the session
-// log reader used by verify and resume (then the resume reconstruction). The input is written to a scratch file.
+// libFuzzer target: the file readers — trace CSV (then band analysis on what it read), EPA CSV, and the
+// session log reader used by verify and resume (then the resume reconstruction). The input is written to a
+// scratch file.
 #include <unistd.h>
 
 #include <cstdint>
@@ -16,7 +17,8 @@
 extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size) {
   static const std::string path = "/tmp/loadtrim-fuzz-" + std::to_string(::getpid());
   {
-    std::ofstream(path, std::ios::binary).write(reinterpret_cast<const char*>(data), static_cast<std::streamsize>(size));
+    std::ofstream(path, std::ios::binary)
+        .write(reinterpret_cast<const char*>(data), static_cast<std::streamsize>(size));
   }
   std::vector<double> t, v;
   std::string err;

@@ -1,7 +1,8 @@
-// libFuzzer target: Modbus reply decoding. The first bytes pick a register layout (table, type, word order, scale);
-// the next four are the register words as a controller would send them. The decoded value goes through the same
-// interpretation the adapter applies (finite check, mode code, status bit field, error code) and, when it is a
-// value the tool could write, back through encode, which must then reproduce a value within the type's resolution.
+// libFuzzer target: Modbus reply decoding. The first bytes pick a register layout (table, type, word order,
+// scale); the next four are the register words as a controller would send them. The decoded value goes
+// through the same interpretation the adapter applies (finite check, mode code, status bit field, error code)
+// and, when it is a value the tool could write, back through encode, which must then reproduce a value within
+// the type's resolution.
 #include <cmath>
 #include <cstdint>
 #include <cstdlib>
@@ -18,7 +19,8 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
   r.type = static_cast<Type>((data[0] / 3) % 5);
   r.order = (data[1] & 1) ? WordOrder::little : WordOrder::big;
   r.scale = kScales[(data[1] >> 1) % 8];
-  const std::uint16_t words[2] = {static_cast<std::uint16_t>(data[2] << 8 | data[3]), static_cast<std::uint16_t>(data[4] << 8 | data[5])};
+  const std::uint16_t words[2] = {static_cast<std::uint16_t>(data[2] << 8 | data[3]),
+                                  static_cast<std::uint16_t>(data[4] << 8 | data[5])};
   const double v = decode(r, words);
   loadtrim::controller::Mode mode;
   std::uint32_t flags = 0;
@@ -28,10 +30,11 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
   (void)decode_error_code(v, code);
   std::uint16_t back[2] = {0, 0};
   if (std::isfinite(v) && encode(r, v, back)) {
-    // Round trip: the words re-encoded from the decoded value decode to the same value (integer types exactly;
-    // float32 through the double product may differ in the last place of the float).
+    // Round trip: the words re-encoded from the decoded value decode to the same value (integer types
+    // exactly; float32 through the double product may differ in the last place of the float).
     const double again = decode(r, back);
-    const double tol = r.type == Type::float32 ? std::abs(v) * 1.2e-7 : std::abs(r.scale) * 1e-9 + std::abs(v) * 1e-15;
+    const double tol =
+        r.type == Type::float32 ? std::abs(v) * 1.2e-7 : std::abs(r.scale) * 1e-9 + std::abs(v) * 1e-15;
     if (!(std::abs(again - v) <= tol)) std::abort();
   }
   return 0;

@@ -1,6 +1,6 @@
-// The bad-input table: every kind of bad input file is refused before anything connects (exit 2), with the file,
-// the key and the allowed range in the message. Nothing listens on the cell's port, so a tool that tried to
-// connect would exit 3 instead. Unknown keys are warnings and do not stop the run.
+// The bad-input table: every kind of bad input file is refused before anything connects (exit 2), with the
+// file, the key and the allowed range in the message. Nothing listens on the cell's port, so a tool that
+// tried to connect would exit 3 instead. Unknown keys are warnings and do not stop the run.
 #include <gtest/gtest.h>
 
 #include <filesystem>
@@ -20,45 +20,120 @@ std::string slurp(const std::string& p) {
 
 struct Row {
   const char* name;
-  const char* file;  // "cell", "target" or "profile"
+  const char* file;      // "cell", "target" or "profile"
   std::string from, to;  // text replacement; from empty = replace the whole file by `to`
   std::vector<std::string> must;
   int rc = 2;
 };
-void PrintTo(const Row& r, std::ostream* os) { *os << r.name; }
+void PrintTo(const Row& r, std::ostream* os) {
+  *os << r.name;
+}
 
-const std::string kGarbage = std::string("\x7f" "ELF\x02\x01\x01\0\0\0\x13\x37 binary", 20);
+const std::string kGarbage = std::string(
+    "\x7f"
+    "ELF\x02\x01\x01\0\0\0\x13\x37 binary",
+    20);
 
 const Row kRows[] = {
-    {"missing_key", "target", "test_mass_kg = 1470.0\n", "", {"vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"}},
-    {"wrong_type", "target", "test_mass_kg = 1470.0", "test_mass_kg = \"1470\"", {"vehicle.test_mass_kg (line 8): must be a number, allowed 300 to 20000 kg"}},
-    {"wrong_units_f2_per_ms2", "target", "f2_n_per_kmh2 = 0.03300", "f2_n_per_kmh2 = 0.428", {"target.f2_n_per_kmh2 (line 16): is 0.428, allowed 0 to 0.2 N/(km/h)²"}},
-    {"nan", "target", "f0_n = 142.0", "f0_n = nan", {"target.f0_n (line 14): is nan, must be a finite number"}},
-    {"inf", "profile", "tolerance_n = 10.0 ", "tolerance_n = inf ", {"acceptance.tolerance_n", "must be a finite number, allowed 0.1 to 1000 N"}},
-    {"negative_mass", "target", "mass_in_running_order_kg = 1380.0", "mass_in_running_order_kg = -1380.0", {"vehicle.mass_in_running_order_kg (line 9): is -1380, allowed 200 to 20000 kg"}},
-    {"implausible_coefficient", "target", "f1_n_per_kmh = 0.350", "f1_n_per_kmh = 75.0", {"target.f1_n_per_kmh (line 15): is 75, allowed -50 to 50 N/(km/h)"}},
-    {"reference_speed_above_limit", "profile", "110, 120, 130]", "110, 120, 300]", {"bands.reference_speeds_kmh[11]", "is 300, allowed 1 to 250 km/h"}},
-    {"start_speed_above_cell_limit", "cell", "max_speed_kmh = 160.0", "max_speed_kmh = 140.0", {"limits.max_speed_kmh: is 140 km/h; the profile starts its coast-downs at 142 km/h"}},
-    {"bad_choice", "cell", "axles = \"single-axle\"", "axles = \"three-axle\"", {"dyno.axles (line", "is \"three-axle\", allowed \"single-axle\", \"two-axle\""}},
+    {"missing_key",
+     "target",
+     "test_mass_kg = 1470.0\n",
+     "",
+     {"vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"}},
+    {"wrong_type",
+     "target",
+     "test_mass_kg = 1470.0",
+     "test_mass_kg = \"1470\"",
+     {"vehicle.test_mass_kg (line 8): must be a number, allowed 300 to 20000 kg"}},
+    {"wrong_units_f2_per_ms2",
+     "target",
+     "f2_n_per_kmh2 = 0.03300",
+     "f2_n_per_kmh2 = 0.428",
+     {"target.f2_n_per_kmh2 (line 16): is 0.428, allowed 0 to 0.2 N/(km/h)²"}},
+    {"nan",
+     "target",
+     "f0_n = 142.0",
+     "f0_n = nan",
+     {"target.f0_n (line 14): is nan, must be a finite number"}},
+    {"inf",
+     "profile",
+     "tolerance_n = 10.0 ",
+     "tolerance_n = inf ",
+     {"acceptance.tolerance_n", "must be a finite number, allowed 0.1 to 1000 N"}},
+    {"negative_mass",
+     "target",
+     "mass_in_running_order_kg = 1380.0",
+     "mass_in_running_order_kg = -1380.0",
+     {"vehicle.mass_in_running_order_kg (line 9): is -1380, allowed 200 to 20000 kg"}},
+    {"implausible_coefficient",
+     "target",
+     "f1_n_per_kmh = 0.350",
+     "f1_n_per_kmh = 75.0",
+     {"target.f1_n_per_kmh (line 15): is 75, allowed -50 to 50 N/(km/h)"}},
+    {"reference_speed_above_limit",
+     "profile",
+     "110, 120, 130]",
+     "110, 120, 300]",
+     {"bands.reference_speeds_kmh[11]", "is 300, allowed 1 to 250 km/h"}},
+    {"start_speed_above_cell_limit",
+     "cell",
+     "max_speed_kmh = 160.0",
+     "max_speed_kmh = 140.0",
+     {"limits.max_speed_kmh: is 140 km/h; the profile starts its coast-downs at 142 km/h"}},
+    {"bad_choice",
+     "cell",
+     "axles = \"single-axle\"",
+     "axles = \"three-axle\"",
+     {"dyno.axles (line", "is \"three-axle\", allowed \"single-axle\", \"two-axle\""}},
     {"empty_file", "profile", "", "", {"error: the file is empty"}},
     {"truncated_file", "target", "[target]", "[tar", {"not valid TOML"}},
     {"binary_garbage", "cell", "", kGarbage, {"the file holds binary data, not TOML text"}},
-    {"unknown_key_warns", "target", "drive = \"front\"", "drive = \"front\"\ncolour = \"red\"", {"warning: vehicle.colour (line 11): unknown key, ignored"}, 3},
-    // How the files combine (issue 13): each refused before anything connects, where the landed code connected first
-    // (or ran). The demo target needs F(142 km/h) = 142 + 0.35·142 + 0.033·142² = 857.1 N at the start speed and a
-    // dyno inertia of 1470 + 0.5·0.03·(1380 + 25) = 1491.1 kg (EU SA4 §2.5.1, §2.5.3) [computed].
-    {"awd_on_single_axle_cell", "target", "drive = \"front\"", "drive = \"all\"",
+    {"unknown_key_warns",
+     "target",
+     "drive = \"front\"",
+     "drive = \"front\"\ncolour = \"red\"",
+     {"warning: vehicle.colour (line 11): unknown key, ignored"},
+     3},
+    // How the files combine (issue 13): each refused before anything connects, where the landed code
+    // connected first (or ran). The demo target needs F(142 km/h) = 142 + 0.35·142 + 0.033·142² = 857.1 N at
+    // the start speed and a dyno inertia of 1470 + 0.5·0.03·(1380 + 25) = 1491.1 kg (EU SA4 §2.5.1, §2.5.3)
+    // [computed].
+    {"awd_on_single_axle_cell",
+     "target",
+     "drive = \"front\"",
+     "drive = \"all\"",
      {"vehicle.drive: is \"all\" (all-wheel drive), but the cell's dyno.axles is \"single-axle\""}},
-    {"road_load_negative_40_to_110_kmh", "target", "f1_n_per_kmh = 0.350", "f1_n_per_kmh = -5.0", {"target: road load is zero or negative on"}},
-    {"target_beyond_cell_force_limit", "cell", "max_force_n = 8000.0", "max_force_n = 100.0",
+    {"road_load_negative_40_to_110_kmh",
+     "target",
+     "f1_n_per_kmh = 0.350",
+     "f1_n_per_kmh = -5.0",
+     {"target: road load is zero or negative on"}},
+    {"target_beyond_cell_force_limit",
+     "cell",
+     "max_force_n = 8000.0",
+     "max_force_n = 100.0",
      {"needs 857.1 N at 142.0 km/h, beyond the cell's force limit limits.max_force_n = 100 N"}},
-    {"inertia_above_cell_range", "cell", "max_inertia_kg = 2700.0", "max_inertia_kg = 1400.0",
+    {"inertia_above_cell_range",
+     "cell",
+     "max_inertia_kg = 2700.0",
+     "max_inertia_kg = 1400.0",
      {"dyno.max_inertia_kg: is 1400 kg; this vehicle needs an inertia of 1491.1 kg"}},
-    {"motoring_limit_below_warm_up", "cell", "max_motoring_s = 5400.0", "max_motoring_s = 600.0",
+    {"motoring_limit_below_warm_up",
+     "cell",
+     "max_motoring_s = 5400.0",
+     "max_motoring_s = 600.0",
      {"limits.max_motoring_s: is 600 s; the profile's warm-up motors the rollers"}},
-    {"reference_speed_within_14_kmh_of_vehicle_max", "target", "max_speed_kmh = 185.0", "max_speed_kmh = 143.0",
+    {"reference_speed_within_14_kmh_of_vehicle_max",
+     "target",
+     "max_speed_kmh = 185.0",
+     "max_speed_kmh = 143.0",
      {"bands.reference_speeds_kmh: has 130 km/h, within 14 km/h of the vehicle's maximum speed of 143"}},
-    {"no_aerodynamic_term_warns", "target", "f2_n_per_kmh2 = 0.03300", "f2_n_per_kmh2 = 0.0", {"warning: target.f2_n_per_kmh2: is 0: no aerodynamic term"}, 3},
+    {"no_aerodynamic_term_warns",
+     "target",
+     "f2_n_per_kmh2 = 0.03300",
+     "f2_n_per_kmh2 = 0.0",
+     {"warning: target.f2_n_per_kmh2: is 0: no aerodynamic term"},
+     3},
 };
 }  // namespace
 
@@ -70,11 +145,13 @@ TEST_P(BadInput, RefusedBeforeAnythingConnects) {
   ASSERT_TRUE(::mkdtemp(dir.data()));
   std::string cell = slurp(kSrc + "/config/cells/sim-tcp.toml");
   cell.replace(cell.find("port = 7301"), 11, "port = 9");  // nothing listens there
-  std::string files[3] = {cell, slurp(kSrc + "/samples/targets/demo-hatchback.toml"), slurp(kSrc + "/config/profiles/wltp-iterative.toml")};
+  std::string files[3] = {cell, slurp(kSrc + "/samples/targets/demo-hatchback.toml"),
+                          slurp(kSrc + "/config/profiles/wltp-iterative.toml")};
   const std::string names[3] = {"cell", "target", "profile"};
   for (int i = 0; i < 3; ++i) {
     if (names[i] != row.file) continue;
-    if (row.from.empty()) files[i] = row.to;
+    if (row.from.empty())
+      files[i] = row.to;
     else {
       const auto p = files[i].find(row.from);
       ASSERT_NE(p, std::string::npos) << row.from;
@@ -83,12 +160,15 @@ TEST_P(BadInput, RefusedBeforeAnythingConnects) {
   }
   for (int i = 0; i < 3; ++i) std::ofstream(dir + "/" + names[i] + ".toml", std::ios::binary) << files[i];
   std::string out, err;
-  const int rc = loadtrim::process::run_command({LOADTRIM_EXE, "run", "--override-checks", "integration test against the simulator", "--cell", dir + "/cell.toml", "--target", dir + "/target.toml",
-                                                 "--profile", dir + "/profile.toml", "--sessions", dir + "/sessions", "--unattended"},
-                                                &out, &err);
+  const int rc = loadtrim::process::run_command(
+      {LOADTRIM_EXE, "run", "--override-checks", "integration test against the simulator", "--cell",
+       dir + "/cell.toml", "--target", dir + "/target.toml", "--profile", dir + "/profile.toml", "--sessions",
+       dir + "/sessions", "--unattended"},
+      &out, &err);
   EXPECT_EQ(rc, row.rc) << err;
   EXPECT_NE(err.find(dir + "/" + row.file + ".toml"), std::string::npos) << "the file is not named:\n" << err;
-  for (const auto& m : row.must) EXPECT_NE(err.find(m), std::string::npos) << "expected: " << m << "\ngot: " << err;
+  for (const auto& m : row.must)
+    EXPECT_NE(err.find(m), std::string::npos) << "expected: " << m << "\ngot: " << err;
   if (row.rc == 2) {
     EXPECT_NE(err.find("refused: nothing was started"), std::string::npos) << err;
     EXPECT_FALSE(fs::exists(dir + "/sessions")) << "a session folder was created";
@@ -96,4 +176,5 @@ TEST_P(BadInput, RefusedBeforeAnythingConnects) {
   if (!HasFailure()) fs::remove_all(dir);
 }
 
-INSTANTIATE_TEST_SUITE_P(Files, BadInput, ::testing::ValuesIn(kRows), [](const auto& info) { return std::string(info.param.name); });
+INSTANTIATE_TEST_SUITE_P(Files, BadInput, ::testing::ValuesIn(kRows),
+                         [](const auto& info) { return std::string(info.param.name); });

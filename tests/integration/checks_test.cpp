@@ -1,12 +1,13 @@
 // The dyno's own checks end to end: `loadtrim check ...` against the simulated controller with empty rollers
-// (loadtrim-sim --empty-rollers), on a healthy dyno and on dynos with planted faults (parasitic loss 20 % high, base
-// inertia 3 % off), the due-date view, and a session refused while checks are due unless the operator overrides it
-// (the override logged). Target preparation (`loadtrim target`) against domain.md §6.2 and the NIST factors.
+// (loadtrim-sim --empty-rollers), on a healthy dyno and on dynos with planted faults (parasitic loss 20 %
+// high, base inertia 3 % off), the due-date view, and a session refused while checks are due unless the
+// operator overrides it (the override logged). Target preparation (`loadtrim target`) against domain.md §6.2
+// and the NIST factors.
 #include <gtest/gtest.h>
 
 #include <filesystem>
-#include <functional>
 #include <fstream>
+#include <functional>
 
 #include "checks/cell_history.hpp"
 #include "config/cell_loader.hpp"
@@ -28,7 +29,8 @@ const std::string kSrc = LOADTRIM_SOURCE_DIR;
 const std::string kExe = LOADTRIM_EXE;
 const std::string kCell = kSrc + "/config/cells/sim-tcp.toml";
 
-// LOADTRIM_TEST_CHECKS_TIME_SCALE lowers the simulator's speed for slow builds (the sanitizer preset sets 200).
+// LOADTRIM_TEST_CHECKS_TIME_SCALE lowers the simulator's speed for slow builds (the sanitizer preset sets
+// 200).
 std::string scale() {
   const char* s = std::getenv("LOADTRIM_TEST_CHECKS_TIME_SCALE");
   return s && *s ? s : "1000";
@@ -54,11 +56,13 @@ Ran tool(std::vector<std::string> args) {
   return r;
 }
 Ran check(const std::string& kind, const SimProcess& sim, const std::string& dir) {
-  return tool({"check", kind, "--cell", kCell, "--port", std::to_string(sim.port()), "--checks", dir, "--unattended", "--json"});
+  return tool({"check", kind, "--cell", kCell, "--port", std::to_string(sim.port()), "--checks", dir,
+               "--unattended", "--json"});
 }
 
 // A truth file: the demo truth with changes to its dyno part (planted faults).
-std::string truth_with(const std::string& dir, const std::string& name, const std::function<void(physics::Truth&)>& change) {
+std::string truth_with(const std::string& dir, const std::string& name,
+                       const std::function<void(physics::Truth&)>& change) {
   physics::Truth t = config::load_truth(kSrc + "/samples/truths/demo-hatchback.toml");
   change(t);
   const std::string path = dir + "/" + name + ".toml";
@@ -90,7 +94,8 @@ TEST(DynoChecksCli, HealthyDynoPassesEveryCheckAndSessionsMayStart) {
   ASSERT_TRUE(h.ok()) << h.error();
   const auto curve = h.parasitic_curve();
   ASSERT_TRUE(curve.has_value());
-  const core::RoadLoad true_curve{truth.dyno.parasitic_f0_n, truth.dyno.parasitic_f1_n_per_kmh, truth.dyno.parasitic_f2_n_per_kmh2};
+  const core::RoadLoad true_curve{truth.dyno.parasitic_f0_n, truth.dyno.parasitic_f1_n_per_kmh,
+                                  truth.dyno.parasitic_f2_n_per_kmh2};
   for (double s : {30.0, 60.0, 90.0, 120.0}) EXPECT_NEAR(curve->force_n(s), true_curve.force_n(s), 0.5) << s;
   const Ran due = tool({"check", "due", "--cell", kCell, "--checks", dir, "--json"});
   EXPECT_EQ(due.rc, 0) << due.out << due.err;
@@ -102,22 +107,27 @@ TEST(DynoChecksCli, PlantedParasiticExcessFailsTheDeterminationAndBlocksSessions
   const std::string dir = temp_dir("checks-parasitic");
   {
     SimProcess healthy({"--empty-rollers", "--time-scale", scale()});
-    for (const std::string kind : {"parasitic", "coastdown", "readiness", "inertia"}) ASSERT_EQ(check(kind, healthy, dir).rc, 0) << kind;
+    for (const std::string kind : {"parasitic", "coastdown", "readiness", "inertia"})
+      ASSERT_EQ(check(kind, healthy, dir).rc, 0) << kind;
   }
-  const std::string truth = truth_with(dir, "worn-bearing", [](physics::Truth& t) { t.dyno.parasitic_excess = 0.20; });
+  const std::string truth =
+      truth_with(dir, "worn-bearing", [](physics::Truth& t) { t.dyno.parasitic_excess = 0.20; });
   SimProcess worn({"--truth", truth, "--empty-rollers", "--time-scale", scale()});
   const Ran r = check("parasitic", worn, dir);
   EXPECT_EQ(r.rc, 1) << r.out << r.err;
   const std::string verdict = r.json.value("verdict", "");
-  EXPECT_NE(verdict.find("parasitic loss +20"), std::string::npos) << verdict;  // 20 % planted: "+19.x" would fail too
+  EXPECT_NE(verdict.find("parasitic loss +20"), std::string::npos)
+      << verdict;  // 20 % planted: "+19.x" would fail too
   EXPECT_NE(verdict.find("lose more"), std::string::npos) << verdict;
-  // The unloaded coast-down and the daily readiness check (both at the smallest inertia) see the uncompensated loss
-  // too, and say so.
+  // The unloaded coast-down and the daily readiness check (both at the smallest inertia) see the
+  // uncompensated loss too, and say so.
   for (const std::string kind : {"coastdown", "readiness"}) {
     const Ran cd = check(kind, worn, dir);
     EXPECT_EQ(cd.rc, 1) << kind << ": " << cd.out << cd.err;
-    EXPECT_NE(cd.json.value("verdict", "").find("above the setting"), std::string::npos) << kind << ": " << cd.json.value("verdict", "");
-    EXPECT_NE(cd.json.value("verdict", "").find("parasitic loss not compensated"), std::string::npos) << kind << ": " << cd.json.value("verdict", "");
+    EXPECT_NE(cd.json.value("verdict", "").find("above the setting"), std::string::npos)
+        << kind << ": " << cd.json.value("verdict", "");
+    EXPECT_NE(cd.json.value("verdict", "").find("parasitic loss not compensated"), std::string::npos)
+        << kind << ": " << cd.json.value("verdict", "");
   }
   // The failed determination does not replace the stored curve.
   const checks::CellHistory h(dir, config::load_cell(kCell).name);
@@ -129,16 +139,20 @@ TEST(DynoChecksCli, PlantedParasiticExcessFailsTheDeterminationAndBlocksSessions
   EXPECT_EQ(due.rc, 1);
   EXPECT_FALSE(due.json.value("may_start", true));
   const std::string sessions = dir + "/sessions";
-  const Ran refused = tool({"run", "--cell", kCell, "--port", "1", "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--checks", dir,
-                            "--sessions", sessions, "--unattended"});
+  const Ran refused =
+      tool({"run", "--cell", kCell, "--port", "1", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+            "--checks", dir, "--sessions", sessions, "--unattended"});
   EXPECT_EQ(refused.rc, 2) << refused.out << refused.err;
   EXPECT_NE(refused.err.find("refusing to start"), std::string::npos) << refused.err;
   EXPECT_NE(refused.err.find("parasitic: failed"), std::string::npos) << refused.err;
   EXPECT_FALSE(fs::exists(sessions));  // no folder: nothing started
-  // With the operator's explicit override the session runs, and the override and its reason are in the record.
+  // With the operator's explicit override the session runs, and the override and its reason are in the
+  // record.
   SimProcess car({"--time-scale", scale(), "--watchdog-ms", "1000"});
-  const Ran over = tool({"run", "--cell", kCell, "--port", std::to_string(car.port()), "--target", kSrc + "/samples/targets/demo-hatchback.toml",
-                         "--checks", dir, "--sessions", sessions, "--unattended", "--quiet", "--override-checks", "bearing replaced, re-check booked"});
+  const Ran over =
+      tool({"run", "--cell", kCell, "--port", std::to_string(car.port()), "--target",
+            kSrc + "/samples/targets/demo-hatchback.toml", "--checks", dir, "--sessions", sessions,
+            "--unattended", "--quiet", "--override-checks", "bearing replaced, re-check booked"});
   EXPECT_EQ(over.rc, 0) << over.out << over.err;
   bool logged = false;
   for (const auto& d : fs::directory_iterator(sessions)) {
@@ -158,7 +172,8 @@ TEST(DynoChecksCli, PlantedParasiticExcessFailsTheDeterminationAndBlocksSessions
 
 TEST(DynoChecksCli, PlantedBaseInertiaErrorFailsTheInertiaCheck) {
   const std::string dir = temp_dir("checks-inertia");
-  // The rollers turn 3 % more inertia than the controller states (and the cell file says): 1287.5 kg against 1250.
+  // The rollers turn 3 % more inertia than the controller states (and the cell file says): 1287.5 kg against
+  // 1250.
   const std::string truth = truth_with(dir, "heavy-rollers", [](physics::Truth& t) {
     t.dyno.stated_base_inertia_kg = 1250.0;
     t.dyno.base_inertia_kg = 1250.0 * 1.03;
@@ -168,45 +183,54 @@ TEST(DynoChecksCli, PlantedBaseInertiaErrorFailsTheInertiaCheck) {
   EXPECT_EQ(r.rc, 1) << r.out << r.err;
   const std::string verdict = r.json.value("verdict", "");
   EXPECT_NE(verdict.find("base inertia"), std::string::npos) << verdict;
-  EXPECT_NE(verdict.find("+3."), std::string::npos) << verdict;  // 3 % planted; the compensation residual adds ~0.2 %
+  EXPECT_NE(verdict.find("+3."), std::string::npos)
+      << verdict;  // 3 % planted; the compensation residual adds ~0.2 %
   EXPECT_NE(verdict.find("more inertia turns than the cell states"), std::string::npos) << verdict;
-  // The unloaded coast-down and the readiness check at the smallest inertia: the coast takes longer than the setting
-  // predicts.
+  // The unloaded coast-down and the readiness check at the smallest inertia: the coast takes longer than the
+  // setting predicts.
   for (const std::string kind : {"coastdown", "readiness"}) {
     const Ran cd = check(kind, sim, dir);
     EXPECT_EQ(cd.rc, 1) << kind << ": " << cd.out << cd.err;
-    EXPECT_NE(cd.json.value("verdict", "").find("below the setting"), std::string::npos) << kind << ": " << cd.json.value("verdict", "");
-    EXPECT_NE(cd.json.value("verdict", "").find("more inertia turning than set"), std::string::npos) << kind << ": " << cd.json.value("verdict", "");
+    EXPECT_NE(cd.json.value("verdict", "").find("below the setting"), std::string::npos)
+        << kind << ": " << cd.json.value("verdict", "");
+    EXPECT_NE(cd.json.value("verdict", "").find("more inertia turning than set"), std::string::npos)
+        << kind << ": " << cd.json.value("verdict", "");
   }
   // The result file holds the hand formula's terms: I = F̄·Δt/Δv.
   std::ifstream in(r.json.value("folder", "") + "/result.json");
   const auto res = nlohmann::json::parse(in);
   const auto& x = res["inertia"];
-  EXPECT_NEAR(x["inertia_kg"].get<double>(), x["mean_force_n"].get<double>() * x["delta_t_s"].get<double>() / x["delta_v_mps"].get<double>(), 1e-9);
+  EXPECT_NEAR(x["inertia_kg"].get<double>(),
+              x["mean_force_n"].get<double>() * x["delta_t_s"].get<double>() / x["delta_v_mps"].get<double>(),
+              1e-9);
   EXPECT_NEAR(x["delta_v_mps"].get<double>(), 13.4112, 1e-12);  // 30 mph × 0.44704 m/s per mph (NIST, exact)
   if (!HasFailure()) fs::remove_all(dir);
 }
 
-// domain.md §6.2 [computed]: TM 1500 kg, mass in running order 1400 kg → m_r 42.75 kg; target (100, 0.5, 0.03);
-// the table of (v_j, F_tj, Δt_j).
+// domain.md §6.2 [computed]: TM 1500 kg, mass in running order 1400 kg → m_r 42.75 kg; target (100, 0.5,
+// 0.03); the table of (v_j, F_tj, Δt_j).
 TEST(TargetCli, MatchesDomainTableSixTwo) {
-  const Ran r = tool({"target", "--metric", "100", "0.5", "0.03", "--id", "SIX-TWO", "--test-mass-kg", "1500", "--mass-in-running-order-kg", "1400",
-                      "--max-speed-kmh", "200", "--json"});
+  const Ran r = tool({"target", "--metric", "100", "0.5", "0.03", "--id", "SIX-TWO", "--test-mass-kg", "1500",
+                      "--mass-in-running-order-kg", "1400", "--max-speed-kmh", "200", "--json"});
   ASSERT_EQ(r.rc, 0) << r.out << r.err;
   EXPECT_NEAR(r.json["rotating_mass_kg"].get<double>(), 42.75, 1e-12);
-  const double table[][3] = {{20, 122, 35.126}, {30, 142, 30.179}, {40, 168, 25.508}, {50, 200, 21.427}, {60, 238, 18.006}, {70, 282, 15.197},
-                             {80, 332, 12.908}, {90, 388, 11.045}, {100, 450, 9.523}, {110, 518, 8.273}, {120, 592, 7.239}, {130, 672, 6.377}};
+  const double table[][3] = {{20, 122, 35.126}, {30, 142, 30.179}, {40, 168, 25.508}, {50, 200, 21.427},
+                             {60, 238, 18.006}, {70, 282, 15.197}, {80, 332, 12.908}, {90, 388, 11.045},
+                             {100, 450, 9.523}, {110, 518, 8.273}, {120, 592, 7.239}, {130, 672, 6.377}};
   ASSERT_EQ(r.json["rows"].size(), 12u);
   for (std::size_t j = 0; j < 12; ++j) {
     const auto& row = r.json["rows"][j];
     EXPECT_EQ(row["speed_kmh"].get<double>(), table[j][0]);
     EXPECT_NEAR(row["force_n"].get<double>(), table[j][1], 1e-9);
-    EXPECT_NEAR(row["band_time_s"].get<double>(), table[j][2], 0.0005) << table[j][0];  // the table's 3 decimals
-    // The exact coast time through the band (closed form) is close to the formula's: the formula uses the force
-    // at the band's middle, the coast integrates it (domain.md §6.1 shows the same effect, about 0.6 %).
+    EXPECT_NEAR(row["band_time_s"].get<double>(), table[j][2], 0.0005)
+        << table[j][0];  // the table's 3 decimals
+    // The exact coast time through the band (closed form) is close to the formula's: the formula uses the
+    // force at the band's middle, the coast integrates it (domain.md §6.1 shows the same effect, about 0.6
+    // %).
     EXPECT_NEAR(row["band_time_exact_s"].get<double>() / table[j][2], 1.0, 0.003) << table[j][0];
   }
-  // Every strategy's initial setting is shown; the standard one is the §3 rule (Ad = 0.5·At, Bd = 0.2·Bt, Cd = Ct).
+  // Every strategy's initial setting is shown; the standard one is the §3 rule (Ad = 0.5·At, Bd = 0.2·Bt, Cd
+  // = Ct).
   bool standard = false;
   for (const auto& i : r.json["initial_settings"])
     if (i.value("strategy", "") == "standard") {
@@ -223,9 +247,11 @@ TEST(TargetCli, MatchesDomainTableSixTwo) {
 TEST(TargetCli, UsAndMetricRoundTripThroughTheWrittenFile) {
   const std::string dir = temp_dir("target");
   const double a = 30.25, b = 0.3125, c = 0.018125;  // lbf, lbf/mph, lbf/mph² (an invented car)
-  const Ran us = tool({"target", "--us", "30.25", "0.3125", "0.018125", "--id", "RT-1", "--test-mass-lb", "3500", "--out", dir + "/rt.toml", "--json"});
+  const Ran us = tool({"target", "--us", "30.25", "0.3125", "0.018125", "--id", "RT-1", "--test-mass-lb",
+                       "3500", "--out", dir + "/rt.toml", "--json"});
   ASSERT_EQ(us.rc, 0) << us.out << us.err;
-  // The metric values are the exact conversions: A·4.4482216152605 N, B·4.4482216152605/1.609344, C·4.4482216152605/1.609344².
+  // The metric values are the exact conversions: A·4.4482216152605 N, B·4.4482216152605/1.609344,
+  // C·4.4482216152605/1.609344².
   const double lbf = 4.4482216152605, mph = 1.609344;
   const core::VehicleTarget written = config::load_target(dir + "/rt.toml");
   EXPECT_NEAR(written.target.f0_n / (a * lbf), 1.0, 1e-12);
@@ -239,10 +265,12 @@ TEST(TargetCli, UsAndMetricRoundTripThroughTheWrittenFile) {
   EXPECT_NEAR(back.json["target_us"]["b_lbf_per_mph"].get<double>() / b, 1.0, 1e-12);
   EXPECT_NEAR(back.json["target_us"]["c_lbf_per_mph2"].get<double>() / c, 1.0, 1e-12);
   // Metric → US → metric.
-  const Ran m = tool({"target", "--metric", "123.4", "0.567", "0.0345", "--id", "RT-2", "--test-mass-kg", "1600", "--json"});
+  const Ran m = tool(
+      {"target", "--metric", "123.4", "0.567", "0.0345", "--id", "RT-2", "--test-mass-kg", "1600", "--json"});
   ASSERT_EQ(m.rc, 0);
   const auto& u = m.json["target_us"];
-  const core::RoadLoad again = core::to_metric({u["a_lbf"].get<double>(), u["b_lbf_per_mph"].get<double>(), u["c_lbf_per_mph2"].get<double>()});
+  const core::RoadLoad again = core::to_metric(
+      {u["a_lbf"].get<double>(), u["b_lbf_per_mph"].get<double>(), u["c_lbf_per_mph2"].get<double>()});
   EXPECT_NEAR(again.f0_n / 123.4, 1.0, 1e-12);
   EXPECT_NEAR(again.f1_n_per_kmh / 0.567, 1.0, 1e-12);
   EXPECT_NEAR(again.f2_n_per_kmh2 / 0.0345, 1.0, 1e-12);
@@ -260,19 +288,22 @@ TEST(TargetCli, EpaRowAndPlausibilityWarnings) {
   EXPECT_NEAR(r.json["target"]["f2_n_per_kmh2"].get<double>() / row.target.f2_n_per_kmh2, 1.0, 1e-12);
   // An F0 of 3000 N on a 1500 kg car (F0/(TM·g) = 0.2, outside the 0.004–0.03 plausibility band; common
   // practice, no source) is reported, naming the likely unit mistake; a negative F2 is an error (exit 2).
-  const Ran odd = tool({"target", "--metric", "3000", "0.5", "0.03", "--id", "ODD", "--test-mass-kg", "1500", "--json"});
+  const Ran odd =
+      tool({"target", "--metric", "3000", "0.5", "0.03", "--id", "ODD", "--test-mass-kg", "1500", "--json"});
   EXPECT_FALSE(odd.json["findings"].empty()) << odd.out;
-  const Ran neg = tool({"target", "--metric", "100", "0.5", "-0.03", "--id", "NEG", "--test-mass-kg", "1500", "--json"});
+  const Ran neg =
+      tool({"target", "--metric", "100", "0.5", "-0.03", "--id", "NEG", "--test-mass-kg", "1500", "--json"});
   EXPECT_EQ(neg.rc, 2);
 }
 
-// A controller that does not offer the free coast (the Modbus register map has no such mode) is refused before
-// anything moves: exit 2, the missing capability named, and no motion in the check's record.
+// A controller that does not offer the free coast (the Modbus register map has no such mode) is refused
+// before anything moves: exit 2, the missing capability named, and no motion in the check's record.
 TEST(DynoChecksCli, ACheckTheControllerCannotDoIsRefusedBeforeAnythingMoves) {
   const std::string dir = temp_dir("checks-modbus");
   const std::string cell = kSrc + "/config/cells/sim-modbus.toml";
   SimProcess sim({"--modbus-map", cell, "--time-scale", "20", "--empty-rollers"});
-  const Ran r = tool({"check", "parasitic", "--cell", cell, "--port", std::to_string(sim.port()), "--checks", dir, "--unattended", "--json"});
+  const Ran r = tool({"check", "parasitic", "--cell", cell, "--port", std::to_string(sim.port()), "--checks",
+                      dir, "--unattended", "--json"});
   EXPECT_EQ(r.rc, 2) << r.out << r.err;
   EXPECT_NE(r.json.value("verdict", "").find("'free' capability"), std::string::npos) << r.out;
   std::vector<nlohmann::json> recs;

@@ -1,6 +1,7 @@
-// The fault matrix: one table of end-to-end faults against the simulated controller. For every row the tool exits
-// with the documented code (README) and message, the rollers end stopped (the simulator reports zero speed and
-// idle), the session folder verifies, and, where the fault was transient, `loadtrim resume` completes the session.
+// The fault matrix: one table of end-to-end faults against the simulated controller. For every row the tool
+// exits with the documented code (README) and message, the rollers end stopped (the simulator reports zero
+// speed and idle), the session folder verifies, and, where the fault was transient, `loadtrim resume`
+// completes the session.
 #include <gtest/gtest.h>
 
 #include <filesystem>
@@ -22,25 +23,52 @@ const std::string kExe = LOADTRIM_EXE;
 struct Row {
   const char* name;
   std::vector<std::string> sim_args;
-  int exit_code;         // README exit codes
-  const char* message;   // in the tool's stdout+stderr or the log
-  bool resumable;        // transient: resume must complete the session
+  int exit_code;                 // README exit codes
+  const char* message;           // in the tool's stdout+stderr or the log
+  bool resumable;                // transient: resume must complete the session
   std::vector<std::string> env;  // extra environment for the first run
 };
 
-void PrintTo(const Row& r, std::ostream* os) { *os << r.name; }
+void PrintTo(const Row& r, std::ostream* os) {
+  *os << r.name;
+}
 
 const Row kRows[] = {
     {"link_dropped_at_connect", {"--drop-at-s", "0"}, 0, "accepted", false, {}},
-    {"link_dropped_in_warm_up", {"--drop-in-mode", "HOLD", "--drop-after-s", "200"}, 3, "connection closed by the controller", true, {}},
-    {"link_dropped_in_coast_down", {"--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"}, 0, "link_restored", false, {}},
+    {"link_dropped_in_warm_up",
+     {"--drop-in-mode", "HOLD", "--drop-after-s", "200"},
+     3,
+     "connection closed by the controller",
+     true,
+     {}},
+    {"link_dropped_in_coast_down",
+     {"--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"},
+     0,
+     "link_restored",
+     false,
+     {}},
     {"corrupted_reply", {"--corrupt-line", "3"}, 0, "accepted", false, {}},
     {"stalled_sample_stream", {"--stall-at-s", "300"}, 3, "no sample for", false, {}},
-    {"replies_slower_than_deadline", {"--delay-replies-ms", "1500"}, 3, "no reply to IDENT before the deadline", false, {}},
+    {"replies_slower_than_deadline",
+     {"--delay-replies-ms", "1500"},
+     3,
+     "no reply to IDENT before the deadline",
+     false,
+     {}},
     {"command_refused", {"--refuse", "INERTIA"}, 3, "controller refused INERTIA (error 41)", false, {}},
     {"emergency_stop", {"--estop-at-s", "300"}, 3, "the controller reports a fault", false, {}},
-    {"wrong_roller_diameter", {"--report-roller-diameter-m", "1.0"}, 2, "dyno.roller_diameter_m: the controller reports 1 m", false, {}},
-    {"wrong_base_inertia", {"--report-base-inertia-kg", "1300"}, 2, "dyno.base_inertia_kg: the controller reports 1300 kg", false, {}},
+    {"wrong_roller_diameter",
+     {"--report-roller-diameter-m", "1.0"},
+     2,
+     "dyno.roller_diameter_m: the controller reports 1 m",
+     false,
+     {}},
+    {"wrong_base_inertia",
+     {"--report-base-inertia-kg", "1300"},
+     2,
+     "dyno.base_inertia_kg: the controller reports 1300 kg",
+     false,
+     {}},
     {"log_disk_unwritable", {}, 5, "record failure", true, {"LOADTRIM_TEST_FAIL_WRITES_AFTER=30"}},
 };
 
@@ -72,18 +100,21 @@ TEST_P(FaultMatrix, ExitsAsDocumentedWithTheRollersStopped) {
   std::string dir = (fs::temp_directory_path() / "loadtrim-fault-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
   std::string out;
-  const int rc = run_tool({"run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
-                           kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--rewarm-s", "120"},
-                          row.env, out);
+  const int rc = run_tool(
+      {"run", "--override-checks", "integration test against the simulator", "--cell",
+       kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
+       kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--rewarm-s", "120"},
+      row.env, out);
   EXPECT_EQ(rc, row.exit_code) << out;
   std::string folder;
   for (const auto& e : fs::directory_iterator(dir))
     if (e.is_directory() && e.path().filename() != "history") folder = e.path().string();
   const std::string logged = folder.empty() ? "" : log_text(folder);
   EXPECT_TRUE(out.find(row.message) != std::string::npos || logged.find(row.message) != std::string::npos)
-      << "expected '" << row.message << "' in:\n" << out;
-  // The rollers end stopped: the simulator says zero speed and idle. Wait out its watchdog window first, so that
-  // this check's own requests cannot keep a motoring controller alive; allow for slowed replies.
+      << "expected '" << row.message << "' in:\n"
+      << out;
+  // The rollers end stopped: the simulator says zero speed and idle. Wait out its watchdog window first, so
+  // that this check's own requests cannot keep a motoring controller alive; allow for slowed replies.
   std::this_thread::sleep_for(std::chrono::milliseconds(1500));  // > the simulator's 1 s watchdog window
   controller::Timeouts patient;
   patient.reply = std::chrono::milliseconds(4000);
@@ -91,7 +122,8 @@ TEST_P(FaultMatrix, ExitsAsDocumentedWithTheRollersStopped) {
   controller::StatusReport st;
   bool stopped = false;
   for (int i = 0; i < 20 && !stopped; ++i) {
-    if (c.connect().ok() && c.status(st).ok()) stopped = st.speed_kmh == 0.0 && st.mode == controller::Mode::idle;
+    if (c.connect().ok() && c.status(st).ok())
+      stopped = st.speed_kmh == 0.0 && st.mode == controller::Mode::idle;
     c.disconnect();
     if (!stopped) std::this_thread::sleep_for(std::chrono::milliseconds(100));
   }
@@ -103,7 +135,9 @@ TEST_P(FaultMatrix, ExitsAsDocumentedWithTheRollersStopped) {
   }
   if (row.resumable) {
     ASSERT_FALSE(folder.empty());
-    const int rrc = run_tool({"resume", folder, "--unattended", "--quiet", "--rewarm-s", "120", "--override-checks", "integration test against the simulator"}, {}, out);
+    const int rrc = run_tool({"resume", folder, "--unattended", "--quiet", "--rewarm-s", "120",
+                              "--override-checks", "integration test against the simulator"},
+                             {}, out);
     EXPECT_EQ(rrc, 0) << out;
     std::vector<nlohmann::json> recs;
     EXPECT_TRUE(record::read_log(folder + "/events.jsonl", &recs).ok);
@@ -116,4 +150,5 @@ TEST_P(FaultMatrix, ExitsAsDocumentedWithTheRollersStopped) {
   if (!HasFailure()) fs::remove_all(dir);
 }
 
-INSTANTIATE_TEST_SUITE_P(Faults, FaultMatrix, ::testing::ValuesIn(kRows), [](const auto& info) { return std::string(info.param.name); });
+INSTANTIATE_TEST_SUITE_P(Faults, FaultMatrix, ::testing::ValuesIn(kRows),
+                         [](const auto& info) { return std::string(info.param.name); });

@@ -26,12 +26,14 @@ controller::Timeouts fast_timeouts() {
 }
 
 std::unique_ptr<line::LineController> tcp(const SimProcess& sim, controller::Timeouts t = fast_timeouts()) {
-  return std::make_unique<line::LineController>(line::make_tcp_transport("127.0.0.1", sim.port()), t, controller::Limits{160.0, 0.0, 10000.0});
+  return std::make_unique<line::LineController>(line::make_tcp_transport("127.0.0.1", sim.port()), t,
+                                                controller::Limits{160.0, 0.0, 10000.0});
 }
 
 // Streams until pred(sample) holds or the controller-time budget is spent; returns the samples.
 template <class Pred>
-std::vector<controller::Sample> stream_until(controller::Controller& c, Pred pred, double budget_s, Result* last = nullptr) {
+std::vector<controller::Sample> stream_until(controller::Controller& c, Pred pred, double budget_s,
+                                             Result* last = nullptr) {
   std::vector<controller::Sample> all;
   double t0 = -1;
   for (;;) {
@@ -63,13 +65,15 @@ void full_exchange(controller::Controller& c) {
   // Speed hold: reaches the setpoint, flagged at setpoint.
   ASSERT_TRUE(c.start_stream(100.0).ok());
   ASSERT_TRUE(c.hold_speed(142.0).ok());
-  auto hold = stream_until(c, [](const controller::Sample& s) { return (s.flags & controller::kFlagAtSetpoint) != 0; }, 200.0);
+  auto hold = stream_until(
+      c, [](const controller::Sample& s) { return (s.flags & controller::kFlagAtSetpoint) != 0; }, 200.0);
   ASSERT_FALSE(hold.empty());
   EXPECT_NEAR(hold.back().speed_kmh, 142.0, 0.5);
   EXPECT_EQ(hold.back().mode, Mode::speed_hold);
   // A full coast-down at 100 Hz: consecutive indices, controller time strictly increasing by 10 ms.
   ASSERT_TRUE(c.release_road_load().ok());
-  auto coast = stream_until(c, [](const controller::Sample& s) { return s.speed_kmh < 10.0; }, 600.0);
+  auto coast = stream_until(
+      c, [](const controller::Sample& s) { return s.speed_kmh < 10.0; }, 600.0);
   ASSERT_GT(coast.size(), 10000u);  // ~200 s of controller time at 100 Hz
   EXPECT_LT(coast.back().speed_kmh, 10.0);
   for (std::size_t i = 1; i < coast.size(); ++i) {
@@ -81,7 +85,8 @@ void full_exchange(controller::Controller& c) {
   EXPECT_EQ(c.stats().lines_rejected, 0u);
   // Controlled stop: to zero speed, then idle.
   ASSERT_TRUE(c.controlled_stop().ok());
-  auto stop = stream_until(c, [](const controller::Sample& s) { return s.speed_kmh == 0.0 && s.mode == Mode::idle; }, 60.0);
+  auto stop = stream_until(
+      c, [](const controller::Sample& s) { return s.speed_kmh == 0.0 && s.mode == Mode::idle; }, 60.0);
   ASSERT_FALSE(stop.empty());
   EXPECT_EQ(stop.back().mode, Mode::idle);
   controller::StatusReport st;
@@ -104,7 +109,8 @@ TEST(LineAdapter, SerialOverPseudoTerminalAt115200) {
   line::SerialSettings s;
   s.device = sim.device();
   s.baud = 115200;
-  auto c = std::make_unique<line::LineController>(line::make_serial_transport(s), fast_timeouts(), controller::Limits{160.0, 0.0, 10000.0});
+  auto c = std::make_unique<line::LineController>(line::make_serial_transport(s), fast_timeouts(),
+                                                  controller::Limits{160.0, 0.0, 10000.0});
   full_exchange(*c);
 }
 
@@ -124,8 +130,9 @@ TEST(LineAdapter, RefusesSpeedsAboveTheLimitBeforeSending) {
 }
 
 TEST(LineAdapter, CorruptedLineIsRejectedNeverActedOn) {
-  // Line 2 the simulator sends is the reply to IDENT: corrupted, it is dropped (never acted on), counted, and the
-  // request is asked once more when its deadline passes; the answer then comes from the intact second reply.
+  // Line 2 the simulator sends is the reply to IDENT: corrupted, it is dropped (never acted on), counted, and
+  // the request is asked once more when its deadline passes; the answer then comes from the intact second
+  // reply.
   SimProcess sim({"--corrupt-line", "2"});
   auto c = tcp(sim);
   ASSERT_TRUE(c->connect().ok());
@@ -133,7 +140,8 @@ TEST(LineAdapter, CorruptedLineIsRejectedNeverActedOn) {
   const auto t0 = std::chrono::steady_clock::now();
   const Result r = c->identify(info);
   ASSERT_TRUE(r.ok()) << r.message;
-  EXPECT_GE(std::chrono::steady_clock::now() - t0, std::chrono::milliseconds(900));  // waited out the first deadline
+  EXPECT_GE(std::chrono::steady_clock::now() - t0,
+            std::chrono::milliseconds(900));  // waited out the first deadline
   EXPECT_EQ(info.name, "loadtrim-sim");
   EXPECT_DOUBLE_EQ(info.roller_diameter_m, 1.2192);
   EXPECT_EQ(c->stats().lines_rejected, 1u);
@@ -144,7 +152,8 @@ TEST(LineAdapter, CorruptedLineIsRejectedNeverActedOn) {
   auto c2 = tcp(sim2);
   ASSERT_TRUE(c2->connect().ok());
   ASSERT_TRUE(c2->start_stream(100.0).ok());
-  auto s = stream_until(*c2, [](const controller::Sample&) { return false; }, 30.0);
+  auto s = stream_until(
+      *c2, [](const controller::Sample&) { return false; }, 30.0);
   EXPECT_GT(c2->stats().lines_rejected, 10u);
   EXPECT_GT(c2->stats().samples_lost, 10u);
   for (std::size_t i = 1; i < s.size(); ++i) ASSERT_GT(s[i].index, s[i - 1].index);
@@ -158,7 +167,8 @@ TEST(LineAdapter, DroppedConnectionIsReportedWithinTheDeadline) {
   ASSERT_TRUE(c->set_inertia(1491.0).ok());
   ASSERT_TRUE(c->start_stream(100.0).ok());
   ASSERT_TRUE(c->hold_speed(100.0).ok());
-  stream_until(*c, [](const controller::Sample& s) { return s.speed_kmh > 99.0; }, 100.0);
+  stream_until(
+      *c, [](const controller::Sample& s) { return s.speed_kmh > 99.0; }, 100.0);
   ASSERT_TRUE(c->release_road_load().ok());
   // Receive until the link fails; the failure must come within the sample-gap deadline (800 ms) of the last
   // sample that arrived, plus scheduling slack.
@@ -188,7 +198,8 @@ TEST(LineAdapter, StalledStreamIsReportedAfterTheSampleGap) {
   ASSERT_TRUE(c->start_stream(100.0).ok());
   Result last;
   const auto t0 = std::chrono::steady_clock::now();
-  stream_until(*c, [](const controller::Sample&) { return false; }, 100.0, &last);
+  stream_until(
+      *c, [](const controller::Sample&) { return false; }, 100.0, &last);
   const double waited = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   EXPECT_EQ(last.status, Result::Status::retryable);
   EXPECT_NE(last.message.find("no sample for 800 ms"), std::string::npos) << last.message;

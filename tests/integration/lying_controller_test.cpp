@@ -1,17 +1,21 @@
-// The lying-controller table (issue 13): one row per lie. A real simulator (loadtrim-sim at 200x) runs behind a
-// scripted lying proxy (tests/support/lying_proxy.hpp) that tells ONE lie from its trigger onwards; the tool runs
-// `loadtrim run` (or `link-check`) against the proxy. Every row asserts:
-//   - an end within the row's wall-clock bound: the harness kills the tool (SIGKILL) at the bound and fails the
-//     row, so no row can hang CI (bound x LOADTRIM_TEST_LIE_BOUND_SCALE for sanitizer builds on loaded hosts, at
-//     most 270 s, inside ctest's 300 s; LOADTRIM_TEST_LIE_TIME_SCALE lowers the simulator's 200x for them);
-//   - the exit code (README) and a fragment of the message naming the cause, in stdout+stderr or events.jsonl;
+// The lying-controller table (issue 13): one row per lie. A real simulator (loadtrim-sim at 200x) runs behind
+// a scripted lying proxy (tests/support/lying_proxy.hpp) that tells ONE lie from its trigger onwards; the
+// tool runs `loadtrim run` (or `link-check`) against the proxy. Every row asserts:
+//   - an end within the row's wall-clock bound: the harness kills the tool (SIGKILL) at the bound and fails
+//   the
+//     row, so no row can hang CI (bound x LOADTRIM_TEST_LIE_BOUND_SCALE for sanitizer builds on loaded hosts,
+//     at most 270 s, inside ctest's 300 s; LOADTRIM_TEST_LIE_TIME_SCALE lowers the simulator's 200x for
+//     them);
+//   - the exit code (README) and a fragment of the message naming the cause, in stdout+stderr or
+//   events.jsonl;
 //   - that the lie really was told (else the row would prove nothing) and, for sessions, that MODE STOP was
 //     commanded after it began;
 //   - that the session folder verifies (record::verify_session_folder);
 //   - for the floods, that the tool's peak RSS (VmHWM, sampled while it runs) stays below 64 MiB (not under
 //     AddressSanitizer, whose own memory is far above that).
-// The no_lie row proves the proxy transparent: the same session through it is accepted and nothing was changed.
-// Each row prints one "[lie]" line (exit, seconds, what the tool said at its end) for the record of what it did.
+// The no_lie row proves the proxy transparent: the same session through it is accepted and nothing was
+// changed. Each row prints one "[lie]" line (exit, seconds, what the tool said at its end) for the record of
+// what it did.
 #include <arpa/inet.h>
 #include <fcntl.h>
 #include <gtest/gtest.h>
@@ -57,18 +61,22 @@ struct Row {
   Lie lie;
   Trigger trigger;
   Cmd cmd;
-  int exit_code;        // README exit codes
-  const char* message;  // in the tool's stdout+stderr or the session log
-  double bound_s;       // wall seconds at 1x; <= 120
-  bool rss_bound;       // the tool's peak RSS must stay below 64 MiB
+  int exit_code;                // README exit codes
+  const char* message;          // in the tool's stdout+stderr or the session log
+  double bound_s;               // wall seconds at 1x; <= 120
+  bool rss_bound;               // the tool's peak RSS must stay below 64 MiB
   const char* scale = nullptr;  // the simulator's time scale for this row (default: time_scale())
 };
 
-void PrintTo(const Row& r, std::ostream* os) { *os << r.name; }
+void PrintTo(const Row& r, std::ostream* os) {
+  *os << r.name;
+}
 
-// Most lies start once the rollers have been motored for 30 simulated seconds (in the warm-up hold), so the tool
-// must both notice and bring the rollers to a controlled stop.
-Trigger hold30() { return Trigger::in_mode("HOLD", 30.0); }
+// Most lies start once the rollers have been motored for 30 simulated seconds (in the warm-up hold), so the
+// tool must both notice and bring the rollers to a controlled stop.
+Trigger hold30() {
+  return Trigger::in_mode("HOLD", 30.0);
+}
 
 const Row kRows[] = {
     // The proxy is transparent: the session through it is accepted and the proxy changed nothing.
@@ -76,21 +84,26 @@ const Row kRows[] = {
     // A clock that stops: every wait counts controller time, so only a wall-time check can end it.
     {"clock_frozen", Lie::clock_frozen, hold30(), Cmd::run, 3, "the controller's clock stopped", 60, false},
     // A clock that creeps by 1e-9 s per sample: it moves, so "stopped" checks alone do not see it.
-    {"clock_creeps", Lie::clock_creeps, hold30(), Cmd::run, 3, "the controller's clock runs too slow", 60, false},
-    // A clock that steps back 100 s once and runs on. Triggered after 110 s of holds (in the loss map), so that the
+    {"clock_creeps", Lie::clock_creeps, hold30(), Cmd::run, 3, "the controller's clock runs too slow", 60,
+     false},
+    // A clock that steps back 100 s once and runs on. Triggered after 110 s of holds (in the loss map), so
+    // that the
     // clock still reads a positive time after the step: the step back is the only lie, not a negative time.
     {"clock_backwards", Lie::clock_backwards, Trigger::in_mode("HOLD", 110.0), Cmd::run, 3,
      "the controller's clock ran backwards", 60, false},
     // A clock that reads a large value (true + 1e6 s) and then restarts from 0, as a counter that wraps.
-    {"clock_reset_to_zero", Lie::clock_reset_to_zero, hold30(), Cmd::run, 3, "the controller's clock ran backwards", 60,
-     false},
+    {"clock_reset_to_zero", Lie::clock_reset_to_zero, hold30(), Cmd::run, 3,
+     "the controller's clock ran backwards", 60, false},
     // A clock that jumps 1000 s ahead once in the middle of a coast-down.
     {"clock_jumps_ahead", Lie::clock_jumps_ahead, Trigger::in_mode("ROADLOAD", 10.0), Cmd::run, 3,
      "the controller's clock jumped ahead", 90, false},
     // A clock that runs 10x faster than the controller's own (too fast against wall time).
-    {"clock_runs_fast", Lie::clock_runs_fast, hold30(), Cmd::run, 3, "the controller's clock runs too fast", 60, false},
-    // STATUS replies run 5000 s ahead of the samples' clock, from the start: whenever the tool compares the two it
-    // must refuse to go on (a tool that asks STATUS only at connect and at the stop still meets the lie there).
+    {"clock_runs_fast", Lie::clock_runs_fast, hold30(), Cmd::run, 3, "the controller's clock runs too fast",
+     60, false},
+    // STATUS replies run 5000 s ahead of the samples' clock, from the start: whenever the tool compares the
+    // two it
+    // must refuse to go on (a tool that asks STATUS only at connect and at the stop still meets the lie
+    // there).
     {"status_clock_ahead", Lie::status_clock_ahead, Trigger::at_start(), Cmd::run, 3,
      "status clock and sample clock disagree", 60, false},
     // The setting is acknowledged and read back but never applied after the first: the tool must see the
@@ -98,10 +111,12 @@ const Row kRows[] = {
     {"setting_not_applied", Lie::setting_not_applied, Trigger::at_start(), Cmd::run, 3,
      "the controller does not follow the setting", 120, false},
     // The read-back of the set coefficients differs by 1 N: the tool refuses to go on.
-    {"readback_differs", Lie::readback_differs, Trigger::at_start(), Cmd::run, 3, "differs from what was written", 60,
+    {"readback_differs", Lie::readback_differs, Trigger::at_start(), Cmd::run, 3,
+     "differs from what was written", 60, false},
+    // The controller says it stops but holds 30 km/h: the end must say the rollers were not confirmed
+    // stopped.
+    {"never_stops", Lie::never_stops, Trigger::at_start(), Cmd::run, 3, "rollers not confirmed stopped", 90,
      false},
-    // The controller says it stops but holds 30 km/h: the end must say the rollers were not confirmed stopped.
-    {"never_stops", Lie::never_stops, Trigger::at_start(), Cmd::run, 3, "rollers not confirmed stopped", 90, false},
     // Non-finite and impossible samples are counted and named, not taken for a stalled stream or as data.
     {"nan_speed", Lie::nan_speed, hold30(), Cmd::run, 3, "malformed samples", 60, false},
     {"inf_force", Lie::inf_force, hold30(), Cmd::run, 3, "malformed samples", 60, false},
@@ -116,7 +131,8 @@ const Row kRows[] = {
     {"fault_flag", Lie::fault_flag, hold30(), Cmd::run, 3, "reports a fault", 60, false},
     // Every sample cut in half: the message must count the rejected lines, not just report a stall.
     {"half_lines", Lie::half_lines, hold30(), Cmd::run, 3, "lines rejected", 60, false},
-    // Nothing more reaches the tool though the TCP connection stays open (neither samples nor replies): the tool
+    // Nothing more reaches the tool though the TCP connection stays open (neither samples nor replies): the
+    // tool
     // must not wait for ever on an open socket.
     {"silence", Lie::silence, hold30(), Cmd::run, 3, "no sample for", 60, false},
     // Replies name the wrong request: none answers what the tool asked.
@@ -125,34 +141,41 @@ const Row kRows[] = {
     {"wrong_mode", Lie::wrong_mode, hold30(), Cmd::run, 3, "did not complete", 60, false},
     // A stream at 1/50 of the asked rate (2 Hz for 100 Hz), without gaps in its counter.
     {"slow_stream", Lie::slow_stream, hold30(), Cmd::run, 3, "streams at", 60, false},
-    // The link delivers one byte per 20 ms: replies and samples arrive far too late. The assertion is exit 3 within
+    // The link delivers one byte per 20 ms: replies and samples arrive far too late. The assertion is exit 3
+    // within
     // the bound; the fragment is the stalled stream's.
     {"trickle", Lie::trickle, hold30(), Cmd::run, 3, "no sample for", 60, false},
-    // Every sample 20 times: duplicates are dropped, the session still accepted, memory bounded. At 20x (40,000
+    // Every sample 20 times: duplicates are dropped, the session still accepted, memory bounded. At 20x
+    // (40,000
     // lines per wall second) so that the row measures the duplicates, not the host's throughput.
     {"sample_dup_flood", Lie::sample_dup_flood, hold30(), Cmd::run, 0, "accepted", 120, true, "20"},
-    // 20,000 events per second for a session of about a minute (20x): over a million events, which an unbounded
+    // 20,000 events per second for a session of about a minute (20x): over a million events, which an
+    // unbounded
     // queue would keep (well above 64 MiB); the bounded one keeps 256. The session is still accepted.
     {"event_flood", Lie::event_flood, hold30(), Cmd::run, 0, "accepted", 120, true, "20"},
     // link-check meets the same lies: it moves nothing, but must end and say why.
     {"link_check_clock_frozen", Lie::clock_frozen, Trigger::at_start(), Cmd::link_check, 3,
      "the controller's clock stopped", 30, false},
-    {"link_check_slow_stream", Lie::slow_stream, Trigger::at_start(), Cmd::link_check, 3, "streams at", 30, false},
-    {"link_check_silence", Lie::silence, Trigger::after_reply_to("HELLO"), Cmd::link_check, 3, "no", 30, false},
+    {"link_check_slow_stream", Lie::slow_stream, Trigger::at_start(), Cmd::link_check, 3, "streams at", 30,
+     false},
+    {"link_check_silence", Lie::silence, Trigger::after_reply_to("HELLO"), Cmd::link_check, 3, "no", 30,
+     false},
 };
 
-// ctest gives each discovered test 300 s (loadtrim_integration_test); the harness ends the tool before that, so
-// a scaled bound still reports what the tool did rather than being cut off by ctest.
+// ctest gives each discovered test 300 s (loadtrim_integration_test); the harness ends the tool before that,
+// so a scaled bound still reports what the tool did rather than being cut off by ctest.
 constexpr double kMaxScaledBoundS = 270.0;
 
 #if defined(__SANITIZE_ADDRESS__)
-constexpr bool kAddressSanitizer = true;  // its shadow memory and quarantine dwarf the tool's own: no RSS bound
+constexpr bool kAddressSanitizer =
+    true;  // its shadow memory and quarantine dwarf the tool's own: no RSS bound
 #else
 constexpr bool kAddressSanitizer = false;
 #endif
 
-// The simulator's time scale: 200 unless LOADTRIM_TEST_LIE_TIME_SCALE says otherwise (a sanitized tool cannot keep
-// up with 20000 samples per wall second on a loaded host; the triggers are in simulated seconds either way).
+// The simulator's time scale: 200 unless LOADTRIM_TEST_LIE_TIME_SCALE says otherwise (a sanitized tool cannot
+// keep up with 20000 samples per wall second on a loaded host; the triggers are in simulated seconds either
+// way).
 std::string time_scale() {
   const char* s = std::getenv("LOADTRIM_TEST_LIE_TIME_SCALE");
   if (!s || !*s) return "200";
@@ -173,7 +196,7 @@ struct RunResult {
   int exit_code = -1;   // the exit code, or 128 + signal
   bool killed = false;  // by the harness at the bound
   double seconds = 0.0;
-  std::string output;   // stdout and stderr interleaved (the last kMaxOutput bytes)
+  std::string output;     // stdout and stderr interleaved (the last kMaxOutput bytes)
   long peak_rss_kib = 0;  // VmHWM, the highest seen while it ran
 };
 
@@ -188,7 +211,8 @@ long vm_hwm_kib(pid_t pid) {
 // Runs the tool with stdout and stderr on one pipe and `env` added to the environment; SIGKILL at the bound.
 // Everything the child needs is built before fork (the test process has threads: only async-signal-safe calls
 // between fork and exec).
-RunResult run_bounded(const std::vector<std::string>& args, const std::vector<std::string>& env, double bound_s) {
+RunResult run_bounded(const std::vector<std::string>& args, const std::vector<std::string>& env,
+                      double bound_s) {
   constexpr std::size_t kMaxOutput = 4u << 20;
   std::vector<std::string> argv_s = {kExe};
   argv_s.insert(argv_s.end(), args.begin(), args.end());
@@ -199,7 +223,8 @@ RunResult run_bounded(const std::vector<std::string>& args, const std::vector<st
   for (char** e = environ; *e; ++e) {
     const std::string kv = *e;
     const std::string key = kv.substr(0, kv.find('='));
-    if (std::none_of(env.begin(), env.end(), [&](const std::string& x) { return x.rfind(key + "=", 0) == 0; }))
+    if (std::none_of(env.begin(), env.end(),
+                     [&](const std::string& x) { return x.rfind(key + "=", 0) == 0; }))
       env_s.push_back(kv);
   }
   std::vector<char*> envp;
@@ -256,7 +281,8 @@ RunResult run_bounded(const std::vector<std::string>& args, const std::vector<st
       if (::poll(&p, 1, 20) > 0) {
         char buf[8192];
         const ssize_t n = ::read(fds[0], buf, sizeof buf);
-        if (n <= 0) eof = true;
+        if (n <= 0)
+          eof = true;
         else {
           res.output.append(buf, static_cast<std::size_t>(n));
           if (res.output.size() > kMaxOutput) res.output.erase(0, res.output.size() - kMaxOutput / 2);
@@ -283,13 +309,15 @@ std::string last_line(const std::string& s) {
   std::size_t end = text.find_last_not_of('\n');
   if (end == std::string::npos) return "";
   const std::size_t start = text.rfind('\n', end);
-  return text.substr(start == std::string::npos ? 0 : start + 1, end - (start == std::string::npos ? 0 : start + 1) + 1);
+  return text.substr(start == std::string::npos ? 0 : start + 1,
+                     end - (start == std::string::npos ? 0 : start + 1) + 1);
 }
 
 // The line that says how the tool ended (its outcome, a link-check verdict or an error), else the last line.
 std::string outcome_line(const std::string& out) {
-  static const char* const kStarts[] = {"accepted:", "not-accepted:", "controller-fault:", "refused:", "interrupted:",
-                                        "record-failure:", "link-check ", "link-check:", "loadtrim: "};
+  static const char* const kStarts[] = {
+      "accepted:",       "not-accepted:", "controller-fault:", "refused:",  "interrupted:",
+      "record-failure:", "link-check ",   "link-check:",       "loadtrim: "};
   std::string found;
   std::istringstream in(out);
   for (std::string l; std::getline(in, l);) {
@@ -301,7 +329,9 @@ std::string outcome_line(const std::string& out) {
   return found.empty() ? last_line(out) : found;
 }
 
-std::string tail(const std::string& s, std::size_t n = 3000) { return s.size() > n ? "..." + s.substr(s.size() - n) : s; }
+std::string tail(const std::string& s, std::size_t n = 3000) {
+  return s.size() > n ? "..." + s.substr(s.size() - n) : s;
+}
 }  // namespace
 
 class LyingController : public ::testing::TestWithParam<Row> {};
@@ -316,14 +346,29 @@ TEST_P(LyingController, EndsWithinItsBoundNamingTheCause) {
   // The row's own data root and lock folder: rows run in parallel and never touch the user's.
   std::string data = (fs::temp_directory_path() / "loadtrim-lie-data-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(data.data()));
-  const std::vector<std::string> env = {"LOADTRIM_DATA_DIR=" + data + "/root", "LOADTRIM_LOCK_DIR=" + data + "/locks"};
+  const std::vector<std::string> env = {"LOADTRIM_DATA_DIR=" + data + "/root",
+                                        "LOADTRIM_LOCK_DIR=" + data + "/locks"};
   std::vector<std::string> args;
   if (session)
-    args = {"run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml",
-            "--port", std::to_string(proxy.port()), "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--profile",
-            kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir, "--unattended", "--rewarm-s", "60"};
+    args = {"run",
+            "--override-checks",
+            "integration test against the simulator",
+            "--cell",
+            kSrc + "/config/cells/sim-tcp.toml",
+            "--port",
+            std::to_string(proxy.port()),
+            "--target",
+            kSrc + "/samples/targets/demo-hatchback.toml",
+            "--profile",
+            kSrc + "/tests/data/wltp-iterative-short-warmup.toml",
+            "--sessions",
+            dir,
+            "--unattended",
+            "--rewarm-s",
+            "60"};
   else
-    args = {"link-check", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(proxy.port())};
+    args = {"link-check", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port",
+            std::to_string(proxy.port())};
   const double bound = std::min(row.bound_s * bound_scale(), kMaxScaledBoundS);
   const RunResult res = run_bounded(args, env, bound);
 
@@ -333,17 +378,22 @@ TEST_P(LyingController, EndsWithinItsBoundNamingTheCause) {
   const std::string logged = folder.empty() ? "" : file_text(folder + "/events.jsonl");
   const auto began = proxy.lie_began_at();
   const auto st = proxy.stats();
-  std::printf("[lie] %s (%s, %s): exit %d%s after %.1f s (bound %.0f s); lie %s; proxy: %d connection(s), %llu altered, "
-              "%llu dropped, %llu injected, %.1f s CPU; peak RSS %ld KiB; said: %s\n",
-              row.name, loadtrim::testing::to_string(row.lie), loadtrim::testing::describe(row.trigger).c_str(), res.exit_code,
-              res.killed ? " (killed at the bound)" : "", res.seconds, bound, began ? "told" : "never told", st.connections,
-              static_cast<unsigned long long>(st.lines_altered), static_cast<unsigned long long>(st.lines_dropped),
-              static_cast<unsigned long long>(st.lines_injected), st.cpu_s, res.peak_rss_kib, outcome_line(res.output).c_str());
+  std::printf(
+      "[lie] %s (%s, %s): exit %d%s after %.1f s (bound %.0f s); lie %s; proxy: %d connection(s), %llu "
+      "altered, "
+      "%llu dropped, %llu injected, %.1f s CPU; peak RSS %ld KiB; said: %s\n",
+      row.name, loadtrim::testing::to_string(row.lie), loadtrim::testing::describe(row.trigger).c_str(),
+      res.exit_code, res.killed ? " (killed at the bound)" : "", res.seconds, bound,
+      began ? "told" : "never told", st.connections, static_cast<unsigned long long>(st.lines_altered),
+      static_cast<unsigned long long>(st.lines_dropped), static_cast<unsigned long long>(st.lines_injected),
+      st.cpu_s, res.peak_rss_kib, outcome_line(res.output).c_str());
   std::fflush(stdout);
 
-  EXPECT_FALSE(res.killed) << "no end within " << bound << " s: killed at the bound. Last output:\n" << tail(res.output);
+  EXPECT_FALSE(res.killed) << "no end within " << bound << " s: killed at the bound. Last output:\n"
+                           << tail(res.output);
   EXPECT_EQ(res.exit_code, row.exit_code) << tail(res.output);
-  EXPECT_TRUE(res.output.find(row.message) != std::string::npos || logged.find(row.message) != std::string::npos)
+  EXPECT_TRUE(res.output.find(row.message) != std::string::npos ||
+              logged.find(row.message) != std::string::npos)
       << "expected '" << row.message << "' in the output or the log; output:\n"
       << tail(res.output);
   if (row.lie == Lie::none) {
@@ -378,9 +428,9 @@ TEST_P(LyingController, EndsWithinItsBoundNamingTheCause) {
 INSTANTIATE_TEST_SUITE_P(Lies, LyingController, ::testing::ValuesIn(kRows),
                          [](const auto& info) { return std::string(info.param.name); });
 
-// ---- the proxy checked on its own, with a bare protocol client (no tool code involved) --------------------------
-// These prove the harness: a lie is exactly the lie (the rest of the stream stays consistent: consecutive line
-// numbers, no made-up gaps) and starts at its trigger.
+// ---- the proxy checked on its own, with a bare protocol client (no tool code involved)
+// -------------------------- These prove the harness: a lie is exactly the lie (the rest of the stream stays
+// consistent: consecutive line numbers, no made-up gaps) and starts at its trigger.
 namespace {
 
 class RawClient {
@@ -391,7 +441,8 @@ class RawClient {
     a.sin_family = AF_INET;
     a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
     a.sin_port = htons(port);
-    if (fd_ < 0 || ::connect(fd_, reinterpret_cast<sockaddr*>(&a), sizeof a) != 0) throw std::runtime_error("connect failed");
+    if (fd_ < 0 || ::connect(fd_, reinterpret_cast<sockaddr*>(&a), sizeof a) != 0)
+      throw std::runtime_error("connect failed");
   }
   ~RawClient() { ::close(fd_); }
   RawClient(const RawClient&) = delete;

@@ -1,20 +1,20 @@
 // The Modbus adapter against the simulated controller's Modbus server (TCP on loopback, RTU over a socat
-// pseudo-terminal pair), an independent Modbus client from Debian (mbpoll) reading the documented registers, and a
-// full setting session over Modbus TCP.
+// pseudo-terminal pair), an independent Modbus client from Debian (mbpoll) reading the documented registers,
+// and a full setting session over Modbus TCP.
 #include <gtest/gtest.h>
 
 #include <cmath>
 #include <filesystem>
-#include <limits>
 #include <fstream>
+#include <limits>
 #include <thread>
 
 #include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
 #include "modbus/modbus_controller.hpp"
 #include "modbus/register_map.hpp"
-#include "record/event_log.hpp"
 #include "process/child_process.hpp"
+#include "record/event_log.hpp"
 #include "support/sim_process.hpp"
 
 using namespace loadtrim;
@@ -32,7 +32,8 @@ controller::CellConfig cell_for(unsigned port) {
   return c;
 }
 
-std::vector<controller::Sample> poll_until(controller::Controller& c, const std::function<bool(const controller::Sample&)>& pred,
+std::vector<controller::Sample> poll_until(controller::Controller& c,
+                                           const std::function<bool(const controller::Sample&)>& pred,
                                            int max_samples) {
   std::vector<controller::Sample> all;
   while (static_cast<int>(all.size()) < max_samples) {
@@ -45,8 +46,8 @@ std::vector<controller::Sample> poll_until(controller::Controller& c, const std:
 }
 }  // namespace
 
-// Reply decoding and setpoint encoding without a link. Check values: the ranges of 16-bit two's-complement and
-// unsigned integers, and the IEEE 754 single-precision quiet NaN 0x7FC00000 (definitions of the formats).
+// Reply decoding and setpoint encoding without a link. Check values: the ranges of 16-bit two's-complement
+// and unsigned integers, and the IEEE 754 single-precision quiet NaN 0x7FC00000 (definitions of the formats).
 TEST(Modbus, ReplyValuesAreCheckedAndSetpointsAreNeverClamped) {
   using namespace loadtrim::modbus;
   Register f32;
@@ -73,20 +74,20 @@ TEST(Modbus, ReplyValuesAreCheckedAndSetpointsAreNeverClamped) {
   i16.type = Type::int16;
   i16.scale = 0.01;
   std::uint16_t w[2] = {0xAAAA, 0xAAAA};
-  EXPECT_TRUE(encode(i16, 327.67, w));   // raw 32767, the largest int16
+  EXPECT_TRUE(encode(i16, 327.67, w));  // raw 32767, the largest int16
   EXPECT_EQ(w[0], 0x7FFF);
   EXPECT_TRUE(encode(i16, -327.68, w));  // raw -32768, the smallest
   EXPECT_EQ(w[0], 0x8000);
   w[0] = 0x1234;
   EXPECT_FALSE(encode(i16, 327.69, w));  // raw 32769: refused, not clamped to 32767
   EXPECT_FALSE(encode(i16, std::nan(""), w));
-  EXPECT_EQ(w[0], 0x1234);               // nothing written
+  EXPECT_EQ(w[0], 0x1234);  // nothing written
   Register u16;
   u16.present = true;
   u16.type = Type::uint16;
   EXPECT_FALSE(encode(u16, -1.0, w));
   EXPECT_FALSE(encode(u16, 65536.0, w));
-  EXPECT_FALSE(encode(f32, 1e39, w));    // beyond the largest float32 (about 3.4e38)
+  EXPECT_FALSE(encode(f32, 1e39, w));  // beyond the largest float32 (about 3.4e38)
 }
 
 TEST(Modbus, TcpHandshakeReadBackCoastdownAt50HzPolling) {
@@ -104,11 +105,17 @@ TEST(Modbus, TcpHandshakeReadBackCoastdownAt50HzPolling) {
   EXPECT_NEAR(back.f2_n_per_kmh2, 0.03013, 1e-8);  // float32, the little-endian word order register
   ASSERT_TRUE(c.start_stream(50.0).ok());
   ASSERT_TRUE(c.hold_speed(100.0).ok());
-  auto hold = poll_until(c, [](const controller::Sample& s) { return s.speed_kmh > 99.5 && s.mode == controller::Mode::speed_hold; }, 5000);
+  auto hold = poll_until(
+      c,
+      [](const controller::Sample& s) {
+        return s.speed_kmh > 99.5 && s.mode == controller::Mode::speed_hold;
+      },
+      5000);
   ASSERT_FALSE(hold.empty());
   EXPECT_GT(hold.back().speed_kmh, 99.5);
   ASSERT_TRUE(c.release_road_load().ok());
-  auto coast = poll_until(c, [](const controller::Sample& s) { return s.speed_kmh < 30.0; }, 20000);
+  auto coast = poll_until(
+      c, [](const controller::Sample& s) { return s.speed_kmh < 30.0; }, 20000);
   ASSERT_GT(coast.size(), 50u);
   EXPECT_LT(coast.back().speed_kmh, 30.0);
   for (std::size_t i = 1; i < coast.size(); ++i) {
@@ -150,17 +157,22 @@ TEST(Modbus, ExceptionReplySurfacesAsAClearError) {
   const auto r = c.set_coefficients({40.0, 0.3, 0.03});
   EXPECT_EQ(r.status, controller::Result::Status::fatal);
   EXPECT_NE(r.message.find("write f0 (holding 900)"), std::string::npos) << r.message;
-  EXPECT_NE(r.message.find("Modbus exception from the controller: Illegal data address"), std::string::npos) << r.message;
+  EXPECT_NE(r.message.find("Modbus exception from the controller: Illegal data address"), std::string::npos)
+      << r.message;
 }
 
 TEST(Modbus, IndependentClientReadsTheDocumentedRegisters) {
   // mbpoll (Debian package mbpoll), references 1-based: input register reference 11 = address 10.
-  // One client at a time, like many controllers: the adapter lets go before mbpoll asks; a long watchdog keeps
-  // the hold going meanwhile.
+  // One client at a time, like many controllers: the adapter lets go before mbpoll asks; a long watchdog
+  // keeps the hold going meanwhile.
   SimProcess sim({"--modbus-map", kCell, "--time-scale", "20", "--watchdog-ms", "60000"});
   const std::string port = std::to_string(sim.port());
   std::string out;
-  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "3:float", "-B", "-r", "11", "-c", "4", "-1", "127.0.0.1"}, &out), 0) << out;
+  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "3:float", "-B", "-r",
+                         "11", "-c", "4", "-1", "127.0.0.1"},
+                        &out),
+            0)
+      << out;
   EXPECT_NE(out.find("[11]: \t1.2192"), std::string::npos) << out;  // roller diameter, m
   EXPECT_NE(out.find("[13]: \t1250"), std::string::npos) << out;    // base inertia, kg
   EXPECT_NE(out.find("[15]: \t200"), std::string::npos) << out;     // speed limit, km/h
@@ -175,13 +187,19 @@ TEST(Modbus, IndependentClientReadsTheDocumentedRegisters) {
   }
   c.disconnect();
   std::this_thread::sleep_for(std::chrono::milliseconds(100));
-  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "3", "-r", "1", "-c", "1", "-1", "127.0.0.1"}, &out), 0);
+  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "3", "-r", "1", "-c",
+                         "1", "-1", "127.0.0.1"},
+                        &out),
+            0);
   const auto pos = out.find("[1]: \t");
   ASSERT_NE(pos, std::string::npos) << out;
   const int raw = std::stoi(out.substr(pos + 6));
   EXPECT_NEAR(raw * 0.01, 50.0, 0.3) << out;
   // The inertia the adapter wrote, as holding register reference 1 (float32, big-endian words).
-  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "4:float", "-B", "-r", "1", "-c", "1", "-1", "127.0.0.1"}, &out), 0);
+  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "4:float", "-B", "-r",
+                         "1", "-c", "1", "-1", "127.0.0.1"},
+                        &out),
+            0);
   EXPECT_NE(out.find("[1]: \t1491"), std::string::npos) << out;
   ASSERT_TRUE(c.connect().ok());
   c.controlled_stop();
@@ -192,8 +210,10 @@ TEST(Modbus, RtuOverAPseudoTerminalPair) {
   std::string dir = (fs::temp_directory_path() / "loadtrim-rtu-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
   const std::string a = dir + "/controller-end", b = dir + "/tool-end";
-  loadtrim::process::ChildProcess socat({"/usr/bin/socat", "pty,raw,echo=0,link=" + a, "pty,raw,echo=0,link=" + b});
-  for (int i = 0; i < 100 && !(fs::exists(a) && fs::exists(b)); ++i) std::this_thread::sleep_for(std::chrono::milliseconds(20));
+  loadtrim::process::ChildProcess socat(
+      {"/usr/bin/socat", "pty,raw,echo=0,link=" + a, "pty,raw,echo=0,link=" + b});
+  for (int i = 0; i < 100 && !(fs::exists(a) && fs::exists(b)); ++i)
+    std::this_thread::sleep_for(std::chrono::milliseconds(20));
   ASSERT_TRUE(fs::exists(a) && fs::exists(b)) << "socat did not create the pseudo-terminal pair";
   SimProcess sim({"--modbus-map", kCell, "--modbus-rtu", a, "--time-scale", "20"}, false);
   auto cell = config::load_cell(kCell);
@@ -208,7 +228,8 @@ TEST(Modbus, RtuOverAPseudoTerminalPair) {
   EXPECT_NEAR(info.roller_diameter_m, 1.2192, 1e-6);
   ASSERT_TRUE(c.set_coefficients({42.38, 0.3135, 0.03013}).ok());
   ASSERT_TRUE(c.start_stream(20.0).ok());
-  auto s = poll_until(c, [](const controller::Sample&) { return false; }, 10);
+  auto s = poll_until(
+      c, [](const controller::Sample&) { return false; }, 10);
   EXPECT_EQ(s.size(), 10u);
   c.disconnect();
   fs::remove_all(dir);
@@ -227,13 +248,18 @@ TEST(Modbus, BadRegisterMapsAreRefused) {
     t.replace(p, from.size(), to);
     return t;
   };
-  struct Case { std::string text, must; };
+  struct Case {
+    std::string text, must;
+  };
   const Case cases[] = {
-      {variant("[modbus.force]\ntable = \"input\"\naddress = 1", "[modbus.force]\ntable = \"input\"\naddress = 0"),
+      {variant("[modbus.force]\ntable = \"input\"\naddress = 1",
+               "[modbus.force]\ntable = \"input\"\naddress = 0"),
        "overlaps speed at input register 0"},
-      {variant("[modbus.heartbeat]\ntable = \"holding\"\naddress = 12", "[modbus.heartbeat]\ntable = \"holding\"\naddress = 70000"),
+      {variant("[modbus.heartbeat]\ntable = \"holding\"\naddress = 12",
+               "[modbus.heartbeat]\ntable = \"holding\"\naddress = 70000"),
        "modbus.heartbeat.address (line"},
-      {variant("[modbus.inertia]\ntable = \"holding\"\naddress = 0\ntype = \"float32\"", "[modbus.inertia]\ntable = \"holding\"\naddress = 0\ntype = \"float64\""),
+      {variant("[modbus.inertia]\ntable = \"holding\"\naddress = 0\ntype = \"float32\"",
+               "[modbus.inertia]\ntable = \"holding\"\naddress = 0\ntype = \"float64\""),
        "modbus.inertia.type (line"},
       {variant("unit = \"km/h\"\n[modbus.force]", "unit = \"mph\"\n[modbus.force]"), "modbus.speed.unit"},
       {variant("[modbus.f0]\ntable = \"holding\"", "[modbus.f0]\ntable = \"input\""), "modbus.f0.table"},
@@ -258,13 +284,17 @@ TEST(Modbus, FullSessionOverModbusTcp) {
     std::ifstream in(kCell);
     return std::string(std::istreambuf_iterator<char>(in), {});
   }();
-  cell.replace(cell.find("poll_rate_hz = 50.0"), 19, "poll_rate_hz = 400.0");  // 20 Hz of controller time at 20x
+  cell.replace(cell.find("poll_rate_hz = 50.0"), 19,
+               "poll_rate_hz = 400.0");  // 20 Hz of controller time at 20x
   std::ofstream(dir + "/cell.toml") << cell;
   std::string out, err;
-  const int rc = run_command({LOADTRIM_EXE, "run", "--override-checks", "integration test against the simulator", "--cell", dir + "/cell.toml", "--port", std::to_string(sim.port()), "--target",
-                              kSrc + "/samples/targets/demo-hatchback.toml", "--profile", kSrc + "/tests/data/wltp-iterative-short-warmup.toml",
-                              "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "60"},
-                             &out, &err);
+  const int rc =
+      run_command({LOADTRIM_EXE, "run", "--override-checks", "integration test against the simulator",
+                   "--cell", dir + "/cell.toml", "--port", std::to_string(sim.port()), "--target",
+                   kSrc + "/samples/targets/demo-hatchback.toml", "--profile",
+                   kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir, "--unattended",
+                   "--quiet", "--rewarm-s", "60"},
+                  &out, &err);
   EXPECT_EQ(rc, 0) << out << err;
   std::string folder;
   for (const auto& e : fs::directory_iterator(dir))

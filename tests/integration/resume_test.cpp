@@ -1,14 +1,15 @@
-// Resume as a function of the verified folder (issue 14; docs/records.md): kill -9 and Ctrl-C at every session state,
-// then `loadtrim resume`. The resumed session uses the recorded setting (never the zero setting), never runs a
-// coast-down after a verdict was recorded, and leaves a sealed folder that verifies. A folder whose inputs were
-// altered is refused before anything connects; the dyno-check gate applies to a resume as to a new run. Against the
-// simulated controller on loopback; the session-level rules checked are the project's own (docs/records.md).
+// Resume as a function of the verified folder (issue 14; docs/records.md): kill -9 and Ctrl-C at every
+// session state, then `loadtrim resume`. The resumed session uses the recorded setting (never the zero
+// setting), never runs a coast-down after a verdict was recorded, and leaves a sealed folder that verifies. A
+// folder whose inputs were altered is refused before anything connects; the dyno-check gate applies to a
+// resume as to a new run. Against the simulated controller on loopback; the session-level rules checked are
+// the project's own (docs/records.md).
 #include <gtest/gtest.h>
 
 #include <csignal>
-#include <map>
 #include <filesystem>
 #include <fstream>
+#include <map>
 #include <thread>
 
 #include "process/child_process.hpp"
@@ -31,9 +32,22 @@ std::string temp_dir() {
 }
 
 std::vector<std::string> run_args(unsigned port, const std::string& sessions) {
-  return {kExe, "run", "--override-checks", kOverride, "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(port),
-          "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--profile", kSrc + "/tests/data/wltp-iterative-short-warmup.toml",
-          "--sessions", sessions, "--unattended", "--quiet"};
+  return {kExe,
+          "run",
+          "--override-checks",
+          kOverride,
+          "--cell",
+          kSrc + "/config/cells/sim-tcp.toml",
+          "--port",
+          std::to_string(port),
+          "--target",
+          kSrc + "/samples/targets/demo-hatchback.toml",
+          "--profile",
+          kSrc + "/tests/data/wltp-iterative-short-warmup.toml",
+          "--sessions",
+          sessions,
+          "--unattended",
+          "--quiet"};
 }
 
 std::string only_folder(const std::string& dir) {
@@ -70,11 +84,13 @@ bool wait_logged(const std::string& dir, const std::string& what, std::chrono::s
 }
 
 struct Row {
-  const char* at;     // where the first process ends: a record type, or "state:<name>"
-  bool kill9;         // kill -9 (frozen there by the test hook), else Ctrl-C (SIGINT) when it is logged
-  bool after_verdict; // the acceptance is already recorded there: resume must not run another coast-down
+  const char* at;      // where the first process ends: a record type, or "state:<name>"
+  bool kill9;          // kill -9 (frozen there by the test hook), else Ctrl-C (SIGINT) when it is logged
+  bool after_verdict;  // the acceptance is already recorded there: resume must not run another coast-down
 };
-void PrintTo(const Row& r, std::ostream* os) { *os << r.at << (r.kill9 ? " kill -9" : " Ctrl-C"); }
+void PrintTo(const Row& r, std::ostream* os) {
+  *os << r.at << (r.kill9 ? " kill -9" : " Ctrl-C");
+}
 
 std::string row_name(const Row& r) {
   std::string n = r.at;
@@ -113,13 +129,14 @@ TEST_P(ResumeAt, UsesTheRecordedSettingNeverRerunsAVerdictAndTheFolderVerifies) 
   const auto before = records_of(folder);
   std::this_thread::sleep_for(std::chrono::milliseconds(1500));  // the simulator's watchdog stops the rollers
   std::string out, err;
-  const int rc = process::run_command({kExe, "resume", folder, "--unattended", "--quiet", "--rewarm-s", "60", "--override-checks", kOverride},
-                                      &out, &err);
+  const int rc = process::run_command(
+      {kExe, "resume", folder, "--unattended", "--quiet", "--rewarm-s", "60", "--override-checks", kOverride},
+      &out, &err);
   EXPECT_EQ(rc, 0) << out << err;
   const auto after = records_of(folder);
   if (!before.empty() && before.back().value("type", "") == "seal") {
-    // Ctrl-C during the safe stop does not stop a stop: the first process finished and sealed the folder, and the
-    // resume found nothing to do and wrote nothing.
+    // Ctrl-C during the safe stop does not stop a stop: the first process finished and sealed the folder, and
+    // the resume found nothing to do and wrote nothing.
     EXPECT_FALSE(row.kill9);
     EXPECT_EQ(after.size(), before.size());
     EXPECT_NE(err.find("nothing to resume"), std::string::npos) << err;
@@ -154,7 +171,8 @@ TEST_P(ResumeAt, UsesTheRecordedSettingNeverRerunsAVerdictAndTheFolderVerifies) 
   } else {
     ASSERT_TRUE(first_set_after) << "the resumed session wrote no setting";
     const auto& s = *first_set_after;
-    EXPECT_FALSE(s.value("f0_n", 0.0) == 0.0 && s.value("f1_n_per_kmh", 0.0) == 0.0 && s.value("f2_n_per_kmh2", 0.0) == 0.0)
+    EXPECT_FALSE(s.value("f0_n", 0.0) == 0.0 && s.value("f1_n_per_kmh", 0.0) == 0.0 &&
+                 s.value("f2_n_per_kmh2", 0.0) == 0.0)
         << "the zero setting was written after the resume";
     if (recorded && !chose_first) {
       EXPECT_EQ(s, *recorded) << "the resumed session did not use the recorded setting";
@@ -180,7 +198,8 @@ TEST_P(ResumeAt, UsesTheRecordedSettingNeverRerunsAVerdictAndTheFolderVerifies) 
   if (!HasFailure()) fs::remove_all(dir);
 }
 
-INSTANTIATE_TEST_SUITE_P(States, ResumeAt, ::testing::ValuesIn(kRows), [](const auto& info) { return row_name(info.param); });
+INSTANTIATE_TEST_SUITE_P(States, ResumeAt, ::testing::ValuesIn(kRows),
+                         [](const auto& info) { return row_name(info.param); });
 
 TEST(Resume, AlteredInputsAreRefusedBeforeAnythingConnects) {
   loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
@@ -205,7 +224,8 @@ TEST(Resume, AlteredInputsAreRefusedBeforeAnythingConnects) {
   std::ofstream(folder + "/inputs/cell.toml") << cell;
   const auto before = records_of(folder).size();
   std::string out, err;
-  const int rc = process::run_command({kExe, "resume", folder, "--unattended", "--quiet", "--override-checks", kOverride}, &out, &err);
+  const int rc = process::run_command(
+      {kExe, "resume", folder, "--unattended", "--quiet", "--override-checks", kOverride}, &out, &err);
   EXPECT_EQ(rc, 5) << out << err;
   EXPECT_NE(err.find("does not verify"), std::string::npos) << err;
   EXPECT_NE(err.find("inputs/cell.toml"), std::string::npos) << err;
@@ -229,13 +249,14 @@ TEST(Resume, TheDynoCheckGateAppliesToAResume) {
   const auto before = records_of(folder).size();
   // The test's own data root has no dyno-check history: every check is due, and the cell enforces them.
   std::string out, err;
-  int rc = process::run_command({kExe, "resume", folder, "--unattended", "--quiet", "--data-dir", dir + "/lab"}, &out, &err);
+  int rc = process::run_command(
+      {kExe, "resume", folder, "--unattended", "--quiet", "--data-dir", dir + "/lab"}, &out, &err);
   EXPECT_EQ(rc, 2) << out << err;
   EXPECT_NE(err.find("dyno's own checks are not current"), std::string::npos) << err;
   EXPECT_EQ(records_of(folder).size(), before);
   // With the override, the resume goes on and the gate and its reason are in the record.
-  rc = process::run_command({kExe, "resume", folder, "--unattended", "--quiet", "--data-dir", dir + "/lab", "--rewarm-s", "60",
-                             "--override-checks", kOverride},
+  rc = process::run_command({kExe, "resume", folder, "--unattended", "--quiet", "--data-dir", dir + "/lab",
+                             "--rewarm-s", "60", "--override-checks", kOverride},
                             &out, &err);
   EXPECT_EQ(rc, 0) << out << err;
   bool gate_recorded = false;
@@ -249,7 +270,8 @@ TEST(Resume, TheDynoCheckGateAppliesToAResume) {
 TEST(Resume, TwoKilledResumesNameTheDiscardedRunOnce) {
   loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
   const std::string dir = temp_dir();
-  auto killed_at = [&](const std::vector<std::string>& cmd, const std::string& at, std::size_t records_before) {
+  auto killed_at = [&](const std::vector<std::string>& cmd, const std::string& at,
+                       std::size_t records_before) {
     std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=" + at};
     argv.insert(argv.end(), cmd.begin(), cmd.end());
     process::ChildProcess p(argv);
@@ -260,19 +282,23 @@ TEST(Resume, TwoKilledResumesNameTheDiscardedRunOnce) {
       if (!f.empty()) {
         const auto recs = records_of(f);
         for (std::size_t i = records_before; i < recs.size() && !reached; ++i)
-          reached = recs[i].value("type", "") == at || (recs[i].value("type", "") == "state" && "state:" + recs[i].value("to", "") == at);
+          reached = recs[i].value("type", "") == at ||
+                    (recs[i].value("type", "") == "state" && "state:" + recs[i].value("to", "") == at);
       }
       std::this_thread::sleep_for(std::chrono::milliseconds(20));
     }
     p.signal(SIGKILL);
     p.wait();
-    std::this_thread::sleep_for(std::chrono::milliseconds(1500));  // the simulator's watchdog stops the rollers
+    std::this_thread::sleep_for(
+        std::chrono::milliseconds(1500));  // the simulator's watchdog stops the rollers
     return reached;
   };
-  // Killed during coast-down 1 (a run half recorded), then the resume killed in its warm-up, then resumed to the end.
+  // Killed during coast-down 1 (a run half recorded), then the resume killed in its warm-up, then resumed to
+  // the end.
   ASSERT_TRUE(killed_at(run_args(sim.port(), dir), "state:coast_down", 0));
   const std::string folder = only_folder(dir);
-  const std::vector<std::string> resume = {kExe, "resume", folder, "--unattended", "--quiet", "--rewarm-s", "60", "--override-checks", kOverride};
+  const std::vector<std::string> resume = {
+      kExe, "resume", folder, "--unattended", "--quiet", "--rewarm-s", "60", "--override-checks", kOverride};
   ASSERT_TRUE(killed_at(resume, "warm_up_started", records_of(folder).size()));
   std::string out, err;
   EXPECT_EQ(process::run_command(resume, &out, &err), 0) << out << err;
@@ -280,6 +306,7 @@ TEST(Resume, TwoKilledResumesNameTheDiscardedRunOnce) {
   for (const auto& r : records_of(folder))
     if (r.value("type", "") == "resumed" && r.contains("discarded_run") && r["discarded_run"].is_number())
       discarded.push_back(r["discarded_run"].get<int>());
-  EXPECT_EQ(discarded, std::vector<int>{1}) << "the half-recorded run 1 is discarded once, by the first resume";
+  EXPECT_EQ(discarded, std::vector<int>{1})
+      << "the half-recorded run 1 is discarded once, by the first resume";
   if (!HasFailure()) fs::remove_all(dir);
 }

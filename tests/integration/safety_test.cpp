@@ -1,7 +1,7 @@
-// The safety envelope end to end (issue 13; docs/safety.md): a tool whose own thread stalls lets the controller's
-// watchdog stop the rollers; one session per cell and one process per folder, with stale locks after kill -9
-// recognised. Against the simulated controller on loopback; the bounds are the project's own (common practice, no
-// source).
+// The safety envelope end to end (issue 13; docs/safety.md): a tool whose own thread stalls lets the
+// controller's watchdog stop the rollers; one session per cell and one process per folder, with stale locks
+// after kill -9 recognised. Against the simulated controller on loopback; the bounds are the project's own
+// (common practice, no source).
 #include <gtest/gtest.h>
 #include <sys/wait.h>
 
@@ -26,9 +26,21 @@ std::string temp_dir() {
 }
 
 std::vector<std::string> run_args(unsigned port, const std::string& sessions) {
-  return {kExe, "run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml",
-          "--port", std::to_string(port), "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--profile",
-          kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", sessions, "--unattended"};
+  return {kExe,
+          "run",
+          "--override-checks",
+          "integration test against the simulator",
+          "--cell",
+          kSrc + "/config/cells/sim-tcp.toml",
+          "--port",
+          std::to_string(port),
+          "--target",
+          kSrc + "/samples/targets/demo-hatchback.toml",
+          "--profile",
+          kSrc + "/tests/data/wltp-iterative-short-warmup.toml",
+          "--sessions",
+          sessions,
+          "--unattended"};
 }
 
 std::string only_folder(const std::string& dir) {
@@ -59,8 +71,9 @@ bool wait_for_record(const std::string& dir, const std::string& record, std::chr
 TEST(Safety, AStalledToolLetsTheControllersWatchdogStopTheRollers) {
   loadtrim::testing::SimProcess sim({"--time-scale", "50", "--watchdog-ms", "500"});
   const std::string dir = temp_dir();
-  // The session's own thread freezes once the warm-up hold is reached (a test hook): the keep-alive may feed the
-  // watchdog only within the progress grace (2 s by default), so the controller must latch its watchdog fault.
+  // The session's own thread freezes once the warm-up hold is reached (a test hook): the keep-alive may feed
+  // the watchdog only within the progress grace (2 s by default), so the controller must latch its watchdog
+  // fault.
   std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=warm_up_started"};
   const auto args = run_args(sim.port(), dir);
   argv.insert(argv.end(), args.begin(), args.end());
@@ -73,7 +86,8 @@ TEST(Safety, AStalledToolLetsTheControllersWatchdogStopTheRollers) {
   }
   const double took = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   EXPECT_TRUE(tripped) << "the simulator's watchdog never tripped while the tool was frozen";
-  EXPECT_TRUE(wait_for_record(dir, "warm_up_started", std::chrono::seconds(1))) << "the freeze came before any motoring";
+  EXPECT_TRUE(wait_for_record(dir, "warm_up_started", std::chrono::seconds(1)))
+      << "the freeze came before any motoring";
   tool.signal(SIGKILL);
   tool.wait();
   std::printf("watchdog tripped %.1f s after the tool started\n", took);
@@ -100,8 +114,11 @@ TEST(Safety, OneSessionPerCellAndOneProcessPerFolder) {
   rc = process::run_command({kExe, "resume", folder, "--unattended"}, &out, &err);
   EXPECT_EQ(rc, 2) << err;
   EXPECT_NE(err.find("folder busy"), std::string::npos) << err;
-  // A link-check (moves nothing, shares the lock with other link-checks) is refused while a session holds the cell.
-  rc = process::run_command({kExe, "link-check", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port())}, &out, &err);
+  // A link-check (moves nothing, shares the lock with other link-checks) is refused while a session holds the
+  // cell.
+  rc = process::run_command({kExe, "link-check", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port",
+                             std::to_string(sim.port())},
+                            &out, &err);
   EXPECT_EQ(rc, 2) << err;
   EXPECT_NE(err.find("cell busy"), std::string::npos) << err;
   // kill -9: the kernel drops the lock; the next run takes it over and says whose it was.
@@ -113,7 +130,8 @@ TEST(Safety, OneSessionPerCellAndOneProcessPerFolder) {
   {
     std::ifstream in(only_folder(dir2) + "/events.jsonl");
     const std::string text((std::istreambuf_iterator<char>(in)), {});
-    EXPECT_NE(text.find("a stale lock of pid " + std::to_string(first.pid())), std::string::npos) << text.substr(0, 2000);
+    EXPECT_NE(text.find("a stale lock of pid " + std::to_string(first.pid())), std::string::npos)
+        << text.substr(0, 2000);
   }
   next.signal(SIGTERM);  // a controlled stop (exit 4)
   EXPECT_EQ(next.wait(), 4);

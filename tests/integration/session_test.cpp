@@ -1,6 +1,8 @@
 // End-to-end setting sessions against the simulated controller process over TCP: a fleet of real EPA targets
 // with randomised truths under both methods, kill -9 and resume, a dropped link, interruption, tampering, and
 // bad input refused before anything moves.
+#include "session/session.hpp"
+
 #include <gtest/gtest.h>
 #include <signal.h>
 
@@ -15,11 +17,10 @@
 #include "config/target_writer.hpp"
 #include "line/line_controller.hpp"
 #include "physics/truth_generator.hpp"
+#include "process/child_process.hpp"
 #include "record/event_log.hpp"
 #include "registry.hpp"
 #include "session/record_writer.hpp"
-#include "session/session.hpp"
-#include "process/child_process.hpp"
 #include "support/sim_process.hpp"
 
 using namespace loadtrim;
@@ -43,12 +44,17 @@ void write(const std::string& path, const std::string& text) {
 }
 
 std::string cell_text(unsigned port, const std::string& axles, double rate_hz, int reconnect_delay_ms = 500) {
-  return "name = \"test cell (invented)\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport = " +
-         std::to_string(port) + "\nsample_rate_hz = " + std::to_string(rate_hz) + "\nmax_time_scale = 10000.0" +
-         "\n[timeouts]\nconnect_ms = 3000\nreply_ms = 1000\nsample_gap_ms = 1000\nheartbeat_interval_ms = 100\n"
-         "[reconnect]\nattempts = 3\ndelay_ms = " + std::to_string(reconnect_delay_ms) +
+  return "name = \"test cell (invented)\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport "
+         "= " +
+         std::to_string(port) + "\nsample_rate_hz = " + std::to_string(rate_hz) +
+         "\nmax_time_scale = 10000.0" +
+         "\n[timeouts]\nconnect_ms = 3000\nreply_ms = 1000\nsample_gap_ms = 1000\nheartbeat_interval_ms = "
+         "100\n"
+         "[reconnect]\nattempts = 3\ndelay_ms = " +
+         std::to_string(reconnect_delay_ms) +
          "\n[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 7200.0\n"
-         "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"" + axles + "\"\n";
+         "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"" +
+         axles + "\"\n";
 }
 
 std::vector<nlohmann::json> records(const std::string& folder) {
@@ -66,7 +72,8 @@ int count(const std::vector<nlohmann::json>& rs, const std::string& type) {
 
 // The i-th plausible EPA row in a seeded shuffle, the same for both methods.
 config::EpaRow epa_row(int i) {
-  static const config::EpaFile f = config::read_epa_csv(kSrc + "/samples/data/epa_test_car_roadload_MY2016_2019.csv");
+  static const config::EpaFile f =
+      config::read_epa_csv(kSrc + "/samples/data/epa_test_car_roadload_MY2016_2019.csv");
   static std::vector<std::size_t> order = [] {
     std::vector<std::size_t> o(f.rows.size());
     std::iota(o.begin(), o.end(), 0);
@@ -85,23 +92,26 @@ class FleetOverTcp : public ::testing::TestWithParam<std::tuple<std::string, int
 
 TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
   const auto [profile_name, i] = GetParam();
-  // LOADTRIM_TEST_FLEET_VEHICLES limits the fleet for slow builds (the sanitizer pass runs the first 8 per method:
-  // the same code paths; convergence over all 20 is the normal build's job).
+  // LOADTRIM_TEST_FLEET_VEHICLES limits the fleet for slow builds (the sanitizer pass runs the first 8 per
+  // method: the same code paths; convergence over all 20 is the normal build's job).
   if (const char* nv = std::getenv("LOADTRIM_TEST_FLEET_VEHICLES"); nv && i >= std::atoi(nv))
     GTEST_SKIP() << "vehicle " << i << " beyond LOADTRIM_TEST_FLEET_VEHICLES=" << nv;
   const core::Profile profile = config::load_profile(kSrc + "/config/profiles/" + profile_name + ".toml");
   const config::EpaRow row = epa_row(i);
   core::VehicleTarget v = config::target_from_epa(row, profile.name);
-  const auto layout = v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
+  const auto layout =
+      v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
   std::mt19937_64 rng(1000 + static_cast<unsigned>(i));
-  physics::Truth truth = physics::random_truth(v.test_mass_kg, core::resolved_rotating_mass_kg(v, profile.mass), layout, {}, rng);
+  physics::Truth truth = physics::random_truth(
+      v.test_mass_kg, core::resolved_rotating_mass_kg(v, profile.mass), layout, {}, rng);
   const std::string dir = temp_dir("fleet");
   write(dir + "/truth.toml", config::truth_toml(truth, "randomised test truth"));
-  // LOADTRIM_TEST_FLEET_TIME_SCALE lowers the simulator's speed for slow builds (the sanitizer preset), where the
-  // tool would otherwise fall behind a 1000x controller.
+  // LOADTRIM_TEST_FLEET_TIME_SCALE lowers the simulator's speed for slow builds (the sanitizer preset), where
+  // the tool would otherwise fall behind a 1000x controller.
   const char* scale = std::getenv("LOADTRIM_TEST_FLEET_TIME_SCALE");
   SimProcess sim({"--truth", dir + "/truth.toml", "--time-scale", scale ? scale : "1000"});
-  session::Inputs in{config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0), "cell.toml"), profile, v};
+  session::Inputs in{config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0), "cell.toml"),
+                     profile, v};
   auto c = adapters::make_controller(in.cell);
   const std::string folder = dir + "/session";
   fs::create_directories(folder);
@@ -112,16 +122,21 @@ TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
   EXPECT_EQ(sum.outcome, session::Outcome::accepted) << row.id << ": " << sum.stop_reason;
   // The final measured forces within the tolerance (GTR 15 §8.1.3.4.2: ±10 N) at every reference speed.
   ASSERT_EQ(sum.deviations.size(), profile.reference_speeds_kmh.size());
-  for (const auto& d : sum.deviations) EXPECT_LE(std::abs(d.deviation_n), profile.tolerance_n) << row.id << " at " << d.speed_kmh;
+  for (const auto& d : sum.deviations)
+    EXPECT_LE(std::abs(d.deviation_n), profile.tolerance_n) << row.id << " at " << d.speed_kmh;
   EXPECT_TRUE(record::verify_session_folder(folder).ok);
-  if (HasFailure()) std::cerr << "session folder kept for inspection: " << folder << "\n";
-  else fs::remove_all(dir);
+  if (HasFailure())
+    std::cerr << "session folder kept for inspection: " << folder << "\n";
+  else
+    fs::remove_all(dir);
 }
 
 INSTANTIATE_TEST_SUITE_P(EpaVehicles, FleetOverTcp,
-                         ::testing::Combine(::testing::Values("wltp-iterative", "wltp-fixed-run"), ::testing::Range(0, 20)),
+                         ::testing::Combine(::testing::Values("wltp-iterative", "wltp-fixed-run"),
+                                            ::testing::Range(0, 20)),
                          [](const auto& info) {
-                           std::string n = std::get<0>(info.param) + "_" + std::to_string(std::get<1>(info.param));
+                           std::string n =
+                               std::get<0>(info.param) + "_" + std::to_string(std::get<1>(info.param));
                            for (char& ch : n)
                              if (ch == '-') ch = '_';
                            return n;
@@ -132,9 +147,10 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   const std::string dir = temp_dir("resume");
   std::string folder;
   {
-    ChildProcess run({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()),
-                      "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--json",
-                      "--first-setting", "standard"});
+    ChildProcess run({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+                      kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
+                      kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended",
+                      "--json", "--first-setting", "standard"});
     bool first_done = false;
     for (;;) {
       auto line = run.read_line(std::chrono::seconds(60));
@@ -154,7 +170,9 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   ASSERT_EQ(count(before, "coastdown"), 1);
   ASSERT_EQ(count(before, "coastdown_started"), 2);
   std::string out, err;
-  const int rc = run_command({kExe, "resume", folder, "--unattended", "--rewarm-s", "300", "--quiet", "--override-checks", "integration test against the simulator"}, &out, &err);
+  const int rc = run_command({kExe, "resume", folder, "--unattended", "--rewarm-s", "300", "--quiet",
+                              "--override-checks", "integration test against the simulator"},
+                             &out, &err);
   EXPECT_EQ(rc, 0) << out << err;
   const auto after = records(folder);
   // Nothing before the kill was lost or changed: the old records are a prefix of the new log, chain intact.
@@ -184,29 +202,33 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
 }
 
 TEST(SessionCli, LinkDroppedMidCoastdownIsRepeated) {
-  // The simulator drops the link 40 s into the first coast-down; its watchdog (1 s) stops the rollers before the
-  // tool reconnects (2.5 s); the run is discarded, the watchdog fault cleared with the rollers stopped, the vehicle
-  // re-warmed and the run repeated.
-  SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000", "--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"});
+  // The simulator drops the link 40 s into the first coast-down; its watchdog (1 s) stops the rollers before
+  // the tool reconnects (2.5 s); the run is discarded, the watchdog fault cleared with the rollers stopped,
+  // the vehicle re-warmed and the run repeated.
+  SimProcess sim(
+      {"--time-scale", "200", "--watchdog-ms", "1000", "--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"});
   const std::string dir = temp_dir("drop");
   write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 100.0, 2500));
   std::string out, err;
-  const int rc = run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
-                              "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "200"},
-                             &out, &err);
+  const int rc =
+      run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+                   dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+                   "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "200"},
+                  &out, &err);
   EXPECT_EQ(rc, 0) << out << err;
   std::string folder;
   for (const auto& e : fs::directory_iterator(dir))
     if (e.is_directory() && e.path().filename() != "history") folder = e.path().string();
   const auto rs = records(folder);
-  // At least the injected drop (a heavily loaded host may add a stalled-stream incident of its own; each is handled
-  // the same way and all of them are logged).
+  // At least the injected drop (a heavily loaded host may add a stalled-stream incident of its own; each is
+  // handled the same way and all of them are logged).
   EXPECT_GE(count(rs, "link_lost"), 1);
   EXPECT_EQ(count(rs, "link_restored"), count(rs, "link_lost"));
   EXPECT_GE(count(rs, "coastdown_discarded"), 1);
   bool watchdog = false;
   for (const auto& r : rs)
-    if (r.value("type", "") == "fault_cleared") watchdog = r.value("fault", "") == "WATCHDOG" && r.value("rollers", "") == "stopped";
+    if (r.value("type", "") == "fault_cleared")
+      watchdog = r.value("fault", "") == "WATCHDOG" && r.value("rollers", "") == "stopped";
   EXPECT_TRUE(watchdog) << "the controller's watchdog should have stopped the rollers";
   // A finished session's last records: "finished", then the seal (docs/records.md).
   ASSERT_GE(rs.size(), 2u);
@@ -221,8 +243,10 @@ TEST(SessionCli, InterruptStopsTheRollersAndSaysSo) {
   SimProcess sim({"--time-scale", "100"});
   const std::string dir = temp_dir("sigterm");
   std::string folder;
-  ChildProcess run({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
-                    kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--json"});
+  ChildProcess run({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+                    kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
+                    kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended",
+                    "--json"});
   for (;;) {
     auto line = run.read_line(std::chrono::seconds(60));
     ASSERT_TRUE(line);
@@ -252,27 +276,35 @@ TEST(SessionCli, InterruptStopsTheRollersAndSaysSo) {
 TEST(SessionCli, TamperedRecordOrTraceIsDetected) {
   const std::string dir = temp_dir("tamper");
   std::string out, err;
-  // A lab data root of the test's own with a key pair for the invented in-process cell, and the cell file naming its
-  // public key: the session seals its folder signed (docs/records.md).
+  // A lab data root of the test's own with a key pair for the invented in-process cell, and the cell file
+  // naming its public key: the session seals its folder signed (docs/records.md).
   const std::string data = dir + "/lab", cell = dir + "/cell.toml";
-  ASSERT_EQ(run_command({kExe, "keys", "create", "--cell", "sim-cell-inprocess (invented)", "--data-dir", data}, &out, &err), 0) << out << err;
+  ASSERT_EQ(
+      run_command({kExe, "keys", "create", "--cell", "sim-cell-inprocess (invented)", "--data-dir", data},
+                  &out, &err),
+      0)
+      << out << err;
   const auto fp = out.find("sha256:");
   ASSERT_NE(fp, std::string::npos) << out;
   {
     std::ifstream in(kSrc + "/config/cells/sim-inprocess.toml");
     std::string text((std::istreambuf_iterator<char>(in)), {});
     const auto truth = text.find("../../samples");
-    text.replace(truth, 5, kSrc + "/");  // the truth path relative to config/cells, made absolute for the copy
+    text.replace(truth, 5,
+                 kSrc + "/");  // the truth path relative to config/cells, made absolute for the copy
     std::ofstream(cell) << text << "\n[records]\npublic_key = \"" << out.substr(fp, 71) << "\"\n";
   }
-  ASSERT_EQ(run_command({kExe, "run", "--cell", cell, "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--data-dir", data,
-                         "--sessions", dir, "--unattended", "--quiet", "--override-checks", "test against the in-process simulator"},
-                        &out, &err),
-            0)
+  ASSERT_EQ(
+      run_command({kExe, "run", "--cell", cell, "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+                   "--data-dir", data, "--sessions", dir, "--unattended", "--quiet", "--override-checks",
+                   "test against the in-process simulator"},
+                  &out, &err),
+      0)
       << out << err;
   std::string folder;
   for (const auto& e : fs::directory_iterator(dir))
-    if (e.is_directory() && e.path().filename() != "history" && e.path().filename() != "lab") folder = e.path().string();
+    if (e.is_directory() && e.path().filename() != "history" && e.path().filename() != "lab")
+      folder = e.path().string();
   ASSERT_EQ(run_command({kExe, "verify", folder, "--data-dir", data}, &out), 0) << out;
   // Alter one character of record 5's content.
   std::vector<std::string> lines;
@@ -327,7 +359,9 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
     write(dir + "/" + name, t);
     return dir + "/" + name;
   };
-  struct Case { std::string cell, target, must; };
+  struct Case {
+    std::string cell, target, must;
+  };
   const Case cases[] = {
       // F2 given per (m/s)² instead of per (km/h)²: 0.033 × 3.6² = 0.428.
       {dir + "/cell.toml", variant("units.toml", "f2_n_per_kmh2 = 0.03300", "f2_n_per_kmh2 = 0.428"),
@@ -335,14 +369,18 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
       {dir + "/cell.toml", variant("missing.toml", "test_mass_kg = 1470.0\n", ""),
        "missing.toml: error: vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"},
       {dir + "/cell.toml", variant("slowcar.toml", "max_speed_kmh = 185.0", "max_speed_kmh = 135.0"),
-       "slowcar.toml: error: vehicle.max_speed_kmh: is 135 km/h; the profile starts its coast-downs at 142 km/h"},
+       "slowcar.toml: error: vehicle.max_speed_kmh: is 135 km/h; the profile starts its coast-downs at 142 "
+       "km/h"},
       {dir + "/slow-cell.toml", kSrc + "/samples/targets/demo-hatchback.toml",
-       "slow-cell.toml: error: limits.max_speed_kmh: is 130 km/h; the profile starts its coast-downs at 142 km/h"},
+       "slow-cell.toml: error: limits.max_speed_kmh: is 130 km/h; the profile starts its coast-downs at 142 "
+       "km/h"},
   };
   for (const auto& c : cases) {
     std::string out, err;
-    const int rc = run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", c.cell, "--target", c.target, "--sessions", dir + "/sessions", "--unattended"},
-                               &out, &err);
+    const int rc =
+        run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+                     c.cell, "--target", c.target, "--sessions", dir + "/sessions", "--unattended"},
+                    &out, &err);
     EXPECT_EQ(rc, 2) << err;
     EXPECT_NE(err.find(c.must), std::string::npos) << "expected: " << c.must << "\ngot: " << err;
     EXPECT_NE(err.find("refused: nothing was started"), std::string::npos) << err;
@@ -350,7 +388,8 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
   }
   // Without a terminal and without --unattended, the rollers are not motored.
   std::string out, err;
-  EXPECT_EQ(run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell", dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+  EXPECT_EQ(run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+                         dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
                          "--sessions", dir + "/sessions"},
                         &out, &err),
             2);

@@ -1,26 +1,28 @@
 // Soak: back-to-back setting sessions against ONE simulated controller process over TCP, with 1 kHz sample
-// streams at a high time scale. Each session connects a fresh controller object (as each `loadtrim run` does) and
-// writes its own folder. After every session the test records, for this process (the tool's side) and for the
-// simulator process: resident memory (VmRSS, /proc/PID/status) and open file descriptors (/proc/PID/fd), and the
-// link statistics (samples received, samples lost to gaps in the controller's sample index, lines rejected).
+// streams at a high time scale. Each session connects a fresh controller object (as each `loadtrim run` does)
+// and writes its own folder. After every session the test records, for this process (the tool's side) and for
+// the simulator process: resident memory (VmRSS, /proc/PID/status) and open file descriptors (/proc/PID/fd),
+// and the link statistics (samples received, samples lost to gaps in the controller's sample index, lines
+// rejected).
 //
-// Checks: every session accepted and its folder verifies; no sample or line lost; the file-descriptor counts of
-// both processes equal after every session to what they were after the first one; resident memory after the last
-// session within a bound of its value after the warm-in sessions (bound: common practice, no source; allocator
-// caches make a few hundred KiB of drift normal). The tool's RSS is read after malloc_trim(0), which returns the
-// allocator's free pages (without it, glibc's per-thread arenas keep several MB of freed 1 kHz trace buffers). Under AddressSanitizer the quarantine grows RSS by design, so
-// there the memory check is LeakSanitizer's at exit and RSS is reported only.
+// Checks: every session accepted and its folder verifies; no sample or line lost; the file-descriptor counts
+// of both processes equal after every session to what they were after the first one; resident memory after
+// the last session within a bound of its value after the warm-in sessions (bound: common practice, no source;
+// allocator caches make a few hundred KiB of drift normal). The tool's RSS is read after malloc_trim(0),
+// which returns the allocator's free pages (without it, glibc's per-thread arenas keep several MB of freed 1
+// kHz trace buffers). Under AddressSanitizer the quarantine grows RSS by design, so there the memory check is
+// LeakSanitizer's at exit and RSS is reported only.
 //
 // LOADTRIM_SOAK_SESSIONS (default 50) sets the number of sessions; LOADTRIM_SOAK_TIME_SCALE (default 200) the
 // simulator's time scale. The table printed at the end is the one quoted in docs/soak.md.
 #include <gtest/gtest.h>
+#include <malloc.h>
+#include <unistd.h>
 
 #include <algorithm>
 #include <cstdio>
 #include <filesystem>
 #include <fstream>
-#include <malloc.h>
-#include <unistd.h>
 
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
@@ -51,9 +53,9 @@ long rss_kib(int pid) {
   return -1;
 }
 
-// Bytes the allocator holds in use, over every arena (glibc malloc_info: the arenas' current system memory minus
-// their free chunks, fast and regular, plus the mmapped chunks in use). mallinfo2 alone sees the main arena only,
-// and the keep-alive and analysis threads allocate in arenas of their own.
+// Bytes the allocator holds in use, over every arena (glibc malloc_info: the arenas' current system memory
+// minus their free chunks, fast and regular, plus the mmapped chunks in use). mallinfo2 alone sees the main
+// arena only, and the keep-alive and analysis threads allocate in arenas of their own.
 long heap_in_use_kib() {
   char* buf = nullptr;
   std::size_t len = 0;
@@ -70,8 +72,8 @@ long heap_in_use_kib() {
     const auto q = xml.find("size=\"", p);
     return q == std::string::npos ? -1 : std::atoll(xml.c_str() + q + 6);
   };
-  const long long system = last("<system type=\"current\""), fast = last("<total type=\"fast\""), rest = last("<total type=\"rest\""),
-                  mmap = last("<total type=\"mmap\"");
+  const long long system = last("<system type=\"current\""), fast = last("<total type=\"fast\""),
+                  rest = last("<total type=\"rest\""), mmap = last("<total type=\"mmap\"");
   if (system < 0 || fast < 0 || rest < 0 || mmap < 0) return -1;
   return static_cast<long>((system - fast - rest + mmap) / 1024);
 }
@@ -79,8 +81,8 @@ long heap_in_use_kib() {
 long open_fds(int pid) {
   std::error_code ec;
   long n = 0;
-  for (auto it = fs::directory_iterator("/proc/" + std::to_string(pid) + "/fd", ec); !ec && it != fs::directory_iterator();
-       it.increment(ec))
+  for (auto it = fs::directory_iterator("/proc/" + std::to_string(pid) + "/fd", ec);
+       !ec && it != fs::directory_iterator(); it.increment(ec))
     ++n;
   return ec ? -1 : n;
 }
@@ -91,7 +93,8 @@ int env_int(const char* name, int fallback) {
 }
 
 std::string cell_text(unsigned port) {
-  return "name = \"soak cell (invented)\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport = " +
+  return "name = \"soak cell (invented)\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport "
+         "= " +
          std::to_string(port) +
          "\nsample_rate_hz = 1000.0\nmax_time_scale = 10000.0\n"
          "[timeouts]\nconnect_ms = 3000\nreply_ms = 1000\nsample_gap_ms = 1000\nheartbeat_interval_ms = 100\n"
@@ -142,10 +145,12 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
     }  // the controller, its socket and the record's files are closed here
     const auto v = record::verify_session_folder(folder);
     EXPECT_TRUE(v.ok) << "session " << k << ": " << v.message;
-    if (!std::getenv("LOADTRIM_SOAK_KEEP")) fs::remove_all(folder);  // 1 kHz traces are large; the folder has been verified
-    else fs::remove_all(folder + "/traces");
-    // Free memory the allocator keeps cached (glibc: per-thread arenas and the dynamic mmap threshold keep the
-    // pages of freed multi-MB trace buffers) is handed back first, so RSS shows what is still allocated.
+    if (!std::getenv("LOADTRIM_SOAK_KEEP"))
+      fs::remove_all(folder);  // 1 kHz traces are large; the folder has been verified
+    else
+      fs::remove_all(folder + "/traces");
+    // Free memory the allocator keeps cached (glibc: per-thread arenas and the dynamic mmap threshold keep
+    // the pages of freed multi-MB trace buffers) is handed back first, so RSS shows what is still allocated.
     ::malloc_trim(0);
     row.tool_rss = rss_kib(static_cast<int>(::getpid()));
     row.tool_heap = heap_in_use_kib();
@@ -156,8 +161,8 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
     EXPECT_EQ(row.lost, 0u) << "session " << k;
     EXPECT_EQ(row.lines_lost, 0u) << "session " << k;
     EXPECT_EQ(row.rejected, 0u) << "session " << k;
-    // A 1 kHz stream over several coast-downs: well over 100k samples per session (at least 2 coast-downs from
-    // 142 km/h, each tens of seconds of controller time, domain.md §6.2 times).
+    // A 1 kHz stream over several coast-downs: well over 100k samples per session (at least 2 coast-downs
+    // from 142 km/h, each tens of seconds of controller time, domain.md §6.2 times).
     EXPECT_GT(row.received, 100000u) << "session " << k;
     EXPECT_EQ(row.tool_fds, rows.front().tool_fds) << "tool file descriptors after session " << k;
     EXPECT_EQ(row.sim_fds, rows.front().sim_fds) << "simulator file descriptors after session " << k;
@@ -168,27 +173,34 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
     std::string line, head;
     std::vector<std::pair<long, std::string>> big;
     while (std::getline(sm, line)) {
-      if (!line.empty() && std::isxdigit(static_cast<unsigned char>(line[0])) && line.find('-') < 17) head = line;
-      else if (line.rfind("Rss:", 0) == 0) big.push_back({std::stol(line.substr(4)), head});
+      if (!line.empty() && std::isxdigit(static_cast<unsigned char>(line[0])) && line.find('-') < 17)
+        head = line;
+      else if (line.rfind("Rss:", 0) == 0)
+        big.push_back({std::stol(line.substr(4)), head});
     }
     std::sort(big.rbegin(), big.rend());
-    for (std::size_t k = 0; k < big.size() && k < 8; ++k) std::printf("smaps: %8ld kB  %s\n", big[k].first, big[k].second.c_str());
+    for (std::size_t k = 0; k < big.size() && k < 8; ++k)
+      std::printf("smaps: %8ld kB  %s\n", big[k].first, big[k].second.c_str());
   }
-  if (!std::getenv("LOADTRIM_SOAK_KEEP")) fs::remove_all(base);
-  else std::printf("soak: session logs kept in %s\n", base.c_str());
+  if (!std::getenv("LOADTRIM_SOAK_KEEP"))
+    fs::remove_all(base);
+  else
+    std::printf("soak: session logs kept in %s\n", base.c_str());
 
-  std::printf("soak: %d sessions, 1000 Hz, time scale %d%s\n", n, scale, kAsan ? ", AddressSanitizer build" : "");
-  std::printf("%8s %10s %11s %10s %9s %9s %11s %6s %9s %11s\n", "session", "tool_kiB", "tool_heap", "sim_kiB", "tool_fds", "sim_fds",
-              "samples", "lost", "rejected", "coastdowns");
+  std::printf("soak: %d sessions, 1000 Hz, time scale %d%s\n", n, scale,
+              kAsan ? ", AddressSanitizer build" : "");
+  std::printf("%8s %10s %11s %10s %9s %9s %11s %6s %9s %11s\n", "session", "tool_kiB", "tool_heap", "sim_kiB",
+              "tool_fds", "sim_fds", "samples", "lost", "rejected", "coastdowns");
   for (const auto& r : rows)
     if (r.session <= 3 || r.session % 10 == 0 || r.session == n || n <= 20)
-      std::printf("%8d %10ld %11ld %10ld %9ld %9ld %11llu %6llu %9llu %11d\n", r.session, r.tool_rss, r.tool_heap, r.sim_rss, r.tool_fds,
-                  r.sim_fds, static_cast<unsigned long long>(r.received), static_cast<unsigned long long>(r.lost),
-                  static_cast<unsigned long long>(r.rejected), r.coastdowns);
+      std::printf("%8d %10ld %11ld %10ld %9ld %9ld %11llu %6llu %9llu %11d\n", r.session, r.tool_rss,
+                  r.tool_heap, r.sim_rss, r.tool_fds, r.sim_fds, static_cast<unsigned long long>(r.received),
+                  static_cast<unsigned long long>(r.lost), static_cast<unsigned long long>(r.rejected),
+                  r.coastdowns);
   ASSERT_EQ(static_cast<int>(rows.size()), n);
-  // Memory: the median over sessions 3..12 against the median over the last ten (the first sessions fill allocator
-  // caches and lazy statics; single sessions with longer traces raise RSS briefly, a median ignores them). A leak
-  // shows as a steady rise between the two windows.
+  // Memory: the median over sessions 3..12 against the median over the last ten (the first sessions fill
+  // allocator caches and lazy statics; single sessions with longer traces raise RSS briefly, a median ignores
+  // them). A leak shows as a steady rise between the two windows.
   auto median = [&](std::size_t from, std::size_t to, long Row::*field) {
     std::vector<long> v;
     for (std::size_t k = from; k < to && k < rows.size(); ++k) v.push_back(rows[k].*field);
@@ -197,23 +209,31 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
   };
   const std::size_t early_from = 2, early_to = std::min<std::size_t>(12, rows.size());
   const std::size_t late_from = rows.size() > 10 ? rows.size() - 10 : 0;
-  const long d_tool = median(late_from, rows.size(), &Row::tool_rss) - median(early_from, early_to, &Row::tool_rss);
-  const long d_sim = median(late_from, rows.size(), &Row::sim_rss) - median(early_from, early_to, &Row::sim_rss);
-  const long d_heap = median(late_from, rows.size(), &Row::tool_heap) - median(early_from, early_to, &Row::tool_heap);
-  std::printf("soak: median change, sessions 3-12 to the last 10: tool heap in use %+ld kiB, tool RSS %+ld kiB, simulator RSS "
-              "%+ld kiB\n", d_heap, d_tool, d_sim);
+  const long d_tool =
+      median(late_from, rows.size(), &Row::tool_rss) - median(early_from, early_to, &Row::tool_rss);
+  const long d_sim =
+      median(late_from, rows.size(), &Row::sim_rss) - median(early_from, early_to, &Row::sim_rss);
+  const long d_heap =
+      median(late_from, rows.size(), &Row::tool_heap) - median(early_from, early_to, &Row::tool_heap);
+  std::printf(
+      "soak: median change, sessions 3-12 to the last 10: tool heap in use %+ld kiB, tool RSS %+ld kiB, "
+      "simulator RSS "
+      "%+ld kiB\n",
+      d_heap, d_tool, d_sim);
   if (!kAsan) {
-    // Bounds: common practice, no source. A leak is memory still allocated: the tool's heap in use over all arenas
-    // must not grow by more than 512 KiB. The tool's RSS also counts what the allocator keeps for reuse after
-    // malloc_trim (pages of multi-MB trace buffers pinned by small live chunks, more of them when a loaded host
-    // lets backlogs grow), so it only gets a gross bound; the simulator, a single-threaded long-lived process,
-    // gets the tight one.
+    // Bounds: common practice, no source. A leak is memory still allocated: the tool's heap in use over all
+    // arenas must not grow by more than 512 KiB. The tool's RSS also counts what the allocator keeps for
+    // reuse after malloc_trim (pages of multi-MB trace buffers pinned by small live chunks, more of them when
+    // a loaded host lets backlogs grow), so it only gets a gross bound; the simulator, a single-threaded
+    // long-lived process, gets the tight one.
     EXPECT_GE(rows.back().tool_heap, 0) << "malloc_info could not be read";
     EXPECT_LE(d_heap, 512);
-    EXPECT_LE(d_tool, 32768);  // a kept 1 kHz trace per session (~5 MB each) would pass this within a few sessions
-    // The simulator's send queue keeps the high-water mark of a backlog (a step, not a slope): alone it grows by
-    // about 2 MiB, but under a parallel ctest run the tool is starved and the backlog of this 200,000-lines-per-second
-    // stream reached 6 and 12 MiB in two runs on the 2-core workplace machine. Gross, like the tool's RSS.
+    EXPECT_LE(d_tool,
+              32768);  // a kept 1 kHz trace per session (~5 MB each) would pass this within a few sessions
+    // The simulator's send queue keeps the high-water mark of a backlog (a step, not a slope): alone it grows
+    // by about 2 MiB, but under a parallel ctest run the tool is starved and the backlog of this
+    // 200,000-lines-per-second stream reached 6 and 12 MiB in two runs on the 2-core workplace machine.
+    // Gross, like the tool's RSS.
     EXPECT_LE(d_sim, 32768);
   }
 }

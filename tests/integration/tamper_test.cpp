@@ -197,10 +197,9 @@ class Tamper : public ::testing::Test {
       ASSERT_TRUE(checks::seal_and_log(g->sealed, {kCell, summary_of(g->sealed), &*key, ""},
                                        g->root + "/checks", "session", &info, e))
           << e;
-    }
-    else {
-      // The session sealed its own folder (as every finished session does): the unfinished copy is that folder
-      // without its last record, the seal.
+    } else {
+      // The session sealed its own folder (as every finished session does): the unfinished copy is that
+      // folder without its last record, the seal.
       g->unfinished = g->dir + "/unfinished";
       fs::copy(g->sealed, g->unfinished, fs::copy_options::recursive);
       std::string text = slurp(g->unfinished + "/events.jsonl");

@@ -13,12 +13,15 @@ using controller::Result;
 namespace {
 Result from(const std::optional<sim::SimError>& e) {
   if (!e) return Result::success();
-  return Result::fail("controller refused (error " + std::to_string(static_cast<int>(e->code)) + "): " + e->text,
-                      static_cast<int>(e->code));
+  return Result::fail(
+      "controller refused (error " + std::to_string(static_cast<int>(e->code)) + "): " + e->text,
+      static_cast<int>(e->code));
 }
 }  // namespace
 
-physics::Truth demo_truth() { return config::load_truth(std::string(LOADTRIM_SOURCE_DIR) + "/samples/truths/demo-hatchback.toml"); }
+physics::Truth demo_truth() {
+  return config::load_truth(std::string(LOADTRIM_SOURCE_DIR) + "/samples/truths/demo-hatchback.toml");
+}
 
 controller::Timeouts FakeController::fast_timeouts() {
   controller::Timeouts t;
@@ -30,7 +33,8 @@ controller::Timeouts FakeController::fast_timeouts() {
   return t;
 }
 
-FakeController::FakeController(const physics::Truth& truth, controller::Timeouts t, controller::Limits l) : Controller(t, l) {
+FakeController::FakeController(const physics::Truth& truth, controller::Timeouts t, controller::Limits l)
+    : Controller(t, l) {
   sim::SimSettings s;
   s.watchdog_s = 1e18;  // simulated time races ahead of any wall clock here
   sim_ = std::make_unique<sim::SimController>(truth, s);
@@ -40,12 +44,16 @@ bool FakeController::sent(Mode m) const {
   return std::any_of(commands.begin(), commands.end(), [&](const auto& c) { return c.first == m; });
 }
 
-Result FakeController::do_connect(controller::Deadline) { return from(sim_->hello(1)); }
+Result FakeController::do_connect(controller::Deadline) {
+  return from(sim_->hello(1));
+}
 Result FakeController::do_identify(controller::ControllerInfo& out, controller::Deadline) {
   out = sim_->info();
   return Result::success();
 }
-Result FakeController::do_write_inertia(double kg, controller::Deadline) { return from(sim_->set_inertia(kg)); }
+Result FakeController::do_write_inertia(double kg, controller::Deadline) {
+  return from(sim_->set_inertia(kg));
+}
 Result FakeController::do_read_inertia(double& kg, controller::Deadline) {
   kg = sim_->model().inertia_set_kg();
   return Result::success();
@@ -72,7 +80,9 @@ Result FakeController::do_command(Mode mode, double value, controller::Deadline)
   }
   return from(sim_->command(mode, value));
 }
-Result FakeController::do_stream(double rate_hz, controller::Deadline) { return from(sim_->stream(rate_hz)); }
+Result FakeController::do_stream(double rate_hz, controller::Deadline) {
+  return from(sim_->stream(rate_hz));
+}
 Result FakeController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline) {
   ++receives;
   if (script.throw_in == "receive") throw std::runtime_error("scripted failure in the receive hook");
@@ -98,7 +108,9 @@ Result FakeController::do_status(controller::StatusReport& out, controller::Dead
   if (script.status_lie) script.status_lie(out);
   return Result::success();
 }
-Result FakeController::do_clear_fault(controller::Deadline) { return from(sim_->clear()); }
+Result FakeController::do_clear_fault(controller::Deadline) {
+  return from(sim_->clear());
+}
 void FakeController::do_take_events(std::vector<std::string>& out) {
   out.insert(out.end(), sim_events_.begin(), sim_events_.end());
   sim_events_.clear();

@@ -1,11 +1,11 @@
-// A scripted fake controller for unit tests: the simulated controller's typed core (physics with a hidden truth)
-// behind the controller interface in this process, with no protocol, no socket and no simulator process, plus a
-// script of lies and faults a test switches on. It proves the non-virtual safety layer (limits refused before
-// anything is sent, read-back, a throwing hook becoming a fault, malformed samples, fault events, the keep-alive
-// lease), the motion library and the session state machine.
+// A scripted fake controller for unit tests: the simulated controller's typed core (physics with a hidden
+// truth) behind the controller interface in this process, with no protocol, no socket and no simulator
+// process, plus a script of lies and faults a test switches on. It proves the non-virtual safety layer
+// (limits refused before anything is sent, read-back, a throwing hook becoming a fault, malformed samples,
+// fault events, the keep-alive lease), the motion library and the session state machine.
 //
-// Time: each receive advances simulated time by `chunk_s` (samples at the stream rate), as fast as the host allows;
-// the controller's clock is not related to the wall clock (Limits::clock_wall_related = false).
+// Time: each receive advances simulated time by `chunk_s` (samples at the stream rate), as fast as the host
+// allows; the controller's clock is not related to the wall clock (Limits::clock_wall_related = false).
 #pragma once
 
 #include <atomic>
@@ -25,12 +25,13 @@ struct FakeScript {
   double chunk_s = 0.5;                                       // simulated seconds per receive
   std::function<void(controller::Sample&)> sample_lie;        // alters every sample before it is handed up
   std::function<void(controller::StatusReport&)> status_lie;  // alters every status reply
-  bool coefficients_not_applied = false;  // acknowledges COEF writes after the first without applying them; reads back what was written
-  double readback_offset_n = 0.0;         // added to f0 on every read-back
-  bool never_stops = false;               // a controlled stop is acknowledged but the rollers are held at 30 km/h
-  std::string throw_in;                   // "command", "receive", "status": that hook throws
-  std::vector<std::string> events;        // handed up (once) with the next receive
-  bool silent = false;                    // receive returns no samples at all
+  bool coefficients_not_applied =
+      false;  // acknowledges COEF writes after the first without applying them; reads back what was written
+  double readback_offset_n = 0.0;   // added to f0 on every read-back
+  bool never_stops = false;         // a controlled stop is acknowledged but the rollers are held at 30 km/h
+  std::string throw_in;             // "command", "receive", "status": that hook throws
+  std::vector<std::string> events;  // handed up (once) with the next receive
+  bool silent = false;              // receive returns no samples at all
 };
 
 class FakeController : public controller::Controller {

@@ -26,32 +26,58 @@ namespace loadtrim::testing {
 
 const char* to_string(Lie lie) {
   switch (lie) {
-    case Lie::none: return "none";
-    case Lie::clock_frozen: return "clock_frozen";
-    case Lie::clock_creeps: return "clock_creeps";
-    case Lie::clock_backwards: return "clock_backwards";
-    case Lie::clock_reset_to_zero: return "clock_reset_to_zero";
-    case Lie::clock_jumps_ahead: return "clock_jumps_ahead";
-    case Lie::clock_runs_fast: return "clock_runs_fast";
-    case Lie::status_clock_ahead: return "status_clock_ahead";
-    case Lie::setting_not_applied: return "setting_not_applied";
-    case Lie::readback_differs: return "readback_differs";
-    case Lie::never_stops: return "never_stops";
-    case Lie::nan_speed: return "nan_speed";
-    case Lie::inf_force: return "inf_force";
-    case Lie::negative_speed: return "negative_speed";
-    case Lie::index_backwards: return "index_backwards";
-    case Lie::over_speed: return "over_speed";
-    case Lie::fault_event: return "fault_event";
-    case Lie::fault_flag: return "fault_flag";
-    case Lie::half_lines: return "half_lines";
-    case Lie::silence: return "silence";
-    case Lie::wrong_reply_seq: return "wrong_reply_seq";
-    case Lie::wrong_mode: return "wrong_mode";
-    case Lie::slow_stream: return "slow_stream";
-    case Lie::trickle: return "trickle";
-    case Lie::sample_dup_flood: return "sample_dup_flood";
-    case Lie::event_flood: return "event_flood";
+    case Lie::none:
+      return "none";
+    case Lie::clock_frozen:
+      return "clock_frozen";
+    case Lie::clock_creeps:
+      return "clock_creeps";
+    case Lie::clock_backwards:
+      return "clock_backwards";
+    case Lie::clock_reset_to_zero:
+      return "clock_reset_to_zero";
+    case Lie::clock_jumps_ahead:
+      return "clock_jumps_ahead";
+    case Lie::clock_runs_fast:
+      return "clock_runs_fast";
+    case Lie::status_clock_ahead:
+      return "status_clock_ahead";
+    case Lie::setting_not_applied:
+      return "setting_not_applied";
+    case Lie::readback_differs:
+      return "readback_differs";
+    case Lie::never_stops:
+      return "never_stops";
+    case Lie::nan_speed:
+      return "nan_speed";
+    case Lie::inf_force:
+      return "inf_force";
+    case Lie::negative_speed:
+      return "negative_speed";
+    case Lie::index_backwards:
+      return "index_backwards";
+    case Lie::over_speed:
+      return "over_speed";
+    case Lie::fault_event:
+      return "fault_event";
+    case Lie::fault_flag:
+      return "fault_flag";
+    case Lie::half_lines:
+      return "half_lines";
+    case Lie::silence:
+      return "silence";
+    case Lie::wrong_reply_seq:
+      return "wrong_reply_seq";
+    case Lie::wrong_mode:
+      return "wrong_mode";
+    case Lie::slow_stream:
+      return "slow_stream";
+    case Lie::trickle:
+      return "trickle";
+    case Lie::sample_dup_flood:
+      return "sample_dup_flood";
+    case Lie::event_flood:
+      return "event_flood";
   }
   return "?";
 }
@@ -59,11 +85,13 @@ const char* to_string(Lie lie) {
 std::string describe(const Trigger& t) {
   char b[64];
   switch (t.kind) {
-    case Trigger::Kind::at_start: return "from the start";
+    case Trigger::Kind::at_start:
+      return "from the start";
     case Trigger::Kind::in_mode:
       std::snprintf(b, sizeof b, "%g", t.after_s);
       return "after " + t.what + " for " + b + " s";
-    case Trigger::Kind::after_reply_to: return "after the reply to " + t.what;
+    case Trigger::Kind::after_reply_to:
+      return "after the reply to " + t.what;
   }
   return "?";
 }
@@ -94,13 +122,13 @@ struct Pair {
   int tool = -1, ctrl = -1;
   line::LineSplitter from_tool, from_ctrl;
   std::string to_tool, to_ctrl;
-  std::size_t to_tool_off = 0, to_ctrl_off = 0;          // bytes already written from the front
+  std::size_t to_tool_off = 0, to_ctrl_off = 0;               // bytes already written from the front
   std::deque<std::pair<std::uint32_t, std::string>> pending;  // request seq → "VERB FIELD0", for replies
-  std::deque<std::uint32_t> faked_stops;                 // never_stops: request seqs rewritten to HOLD 30
-  std::uint32_t seq_shift = 0;                           // added (wrapping) to the controller's numbers
+  std::deque<std::uint32_t> faked_stops;  // never_stops: request seqs rewritten to HOLD 30
+  std::uint32_t seq_shift = 0;            // added (wrapping) to the controller's numbers
   std::uint32_t last_out_seq = 0;
   bool have_out_seq = false;
-  Clock::time_point next_byte{};                         // trickle
+  Clock::time_point next_byte{};  // trickle
   bool dead = false;
 
   std::size_t tool_pending() const { return to_tool.size() - to_tool_off; }
@@ -133,8 +161,8 @@ int connect_loopback(unsigned short port, std::chrono::milliseconds timeout) {
     pollfd p{fd, POLLOUT, 0};
     int err = 0;
     socklen_t len = sizeof err;
-    if (::poll(&p, 1, static_cast<int>(timeout.count())) != 1 || ::getsockopt(fd, SOL_SOCKET, SO_ERROR, &err, &len) != 0 ||
-        err != 0) {
+    if (::poll(&p, 1, static_cast<int>(timeout.count())) != 1 ||
+        ::getsockopt(fd, SOL_SOCKET, SO_ERROR, &err, &len) != 0 || err != 0) {
       ::close(fd);
       return -1;
     }
@@ -143,7 +171,9 @@ int connect_loopback(unsigned short port, std::chrono::milliseconds timeout) {
   return fd;
 }
 
-std::optional<double> number(std::string_view s) { return line::parse_number(s); }
+std::optional<double> number(std::string_view s) {
+  return line::parse_number(s);
+}
 
 std::optional<std::uint64_t> unsigned_number(std::string_view s) {
   std::uint64_t v = 0;
@@ -155,7 +185,8 @@ std::optional<std::uint64_t> unsigned_number(std::string_view s) {
 // The index of the field "key=..." in m, or -1.
 int field_index(const Message& m, std::string_view key) {
   for (std::size_t i = 0; i < m.fields.size(); ++i)
-    if (m.fields[i].size() > key.size() && m.fields[i].compare(0, key.size(), key) == 0 && m.fields[i][key.size()] == '=')
+    if (m.fields[i].size() > key.size() && m.fields[i].compare(0, key.size(), key) == 0 &&
+        m.fields[i][key.size()] == '=')
       return static_cast<int>(i);
   return -1;
 }
@@ -188,11 +219,11 @@ struct LyingProxy::Impl {
   double last_true_time_s = 0.0;
   // Clock lies.
   bool have_anchor = false;
-  double anchor_s = 0.0;           // the true controller time when the lie first touched a timestamp
+  double anchor_s = 0.0;  // the true controller time when the lie first touched a timestamp
   bool have_time_out = false;
-  double last_time_out_s = 0.0;    // the last SMP time the tool was sent
+  double last_time_out_s = 0.0;  // the last SMP time the tool was sent
   // Sample-index lies.
-  std::uint64_t index_shift = 0;   // slow_stream: samples not forwarded so far
+  std::uint64_t index_shift = 0;  // slow_stream: samples not forwarded so far
   std::uint64_t lied_samples = 0;
   bool have_index_out = false;
   std::uint64_t last_index_out = 0;
@@ -255,7 +286,8 @@ struct LyingProxy::Impl {
     count(&ProxyStats::lines_injected);
   }
 
-  // ---- the controller's clock as the lie reports it ----------------------------------------------------------
+  // ---- the controller's clock as the lie reports it
+  // ----------------------------------------------------------
 
   void take_anchor(double t) {
     if (!have_anchor) {
@@ -267,24 +299,36 @@ struct LyingProxy::Impl {
   // The time to report for a true controller time t (sample: an SMP's time; otherwise a STATUS reply's), or
   // nullopt to leave it as it is.
   std::optional<double> clock_lie(double t, bool sample) {
-    if (script.lie == Lie::clock_reset_to_zero && !armed) return t + kResetLargeOffsetS;  // the large value before
+    if (script.lie == Lie::clock_reset_to_zero && !armed)
+      return t + kResetLargeOffsetS;  // the large value before
     if (!armed) return std::nullopt;
     switch (script.lie) {
-      case Lie::clock_frozen: take_anchor(t); return anchor_s;
+      case Lie::clock_frozen:
+        take_anchor(t);
+        return anchor_s;
       case Lie::clock_creeps: {
         const double prev = have_time_out ? last_time_out_s : t;
         return sample ? prev + kCreepS : prev;
       }
-      case Lie::clock_backwards: return t - kBackwardsStepS;
-      case Lie::clock_reset_to_zero: take_anchor(t); return t - anchor_s;
-      case Lie::clock_jumps_ahead: return t + kJumpAheadS;
-      case Lie::clock_runs_fast: take_anchor(t); return anchor_s + kFastFactor * (t - anchor_s);
-      case Lie::status_clock_ahead: return sample ? std::nullopt : std::optional<double>(t + kStatusAheadS);
-      default: return std::nullopt;
+      case Lie::clock_backwards:
+        return t - kBackwardsStepS;
+      case Lie::clock_reset_to_zero:
+        take_anchor(t);
+        return t - anchor_s;
+      case Lie::clock_jumps_ahead:
+        return t + kJumpAheadS;
+      case Lie::clock_runs_fast:
+        take_anchor(t);
+        return anchor_s + kFastFactor * (t - anchor_s);
+      case Lie::status_clock_ahead:
+        return sample ? std::nullopt : std::optional<double>(t + kStatusAheadS);
+      default:
+        return std::nullopt;
     }
   }
 
-  // ---- controller → tool ---------------------------------------------------------------------------------------
+  // ---- controller → tool
+  // ---------------------------------------------------------------------------------------
 
   void on_controller_line(Pair& p, std::string_view raw, bool too_long) {
     if (too_long) return;  // the controller never sends one; nothing to forward
@@ -309,7 +353,8 @@ struct LyingProxy::Impl {
           mode_since_s = *t_true;
         }
         const Trigger& tr = script.trigger;
-        if (tr.kind == Trigger::Kind::in_mode && mode == tr.what && *t_true - mode_since_s >= tr.after_s) arm();
+        if (tr.kind == Trigger::Kind::in_mode && mode == tr.what && *t_true - mode_since_s >= tr.after_s)
+          arm();
       }
     }
     // Which request a reply answers.
@@ -348,7 +393,8 @@ struct LyingProxy::Impl {
     };
 
     switch (script.lie) {
-      case Lie::none: break;
+      case Lie::none:
+        break;
       case Lie::clock_frozen:
       case Lie::clock_creeps:
       case Lie::clock_backwards:
@@ -366,7 +412,8 @@ struct LyingProxy::Impl {
         }
         break;
       }
-      case Lie::setting_not_applied: break;  // acts on requests
+      case Lie::setting_not_applied:
+        break;  // acts on requests
       case Lie::readback_differs:
         if (armed && m.type == "OK" && replied == "COEF GET") {
           const int i = field_index(m, "f0_n");
@@ -412,7 +459,8 @@ struct LyingProxy::Impl {
       case Lie::fault_event:
         if (armed && !fault_event_sent) {
           fault_event_sent = true;
-          after.push_back({0, "EVT", {"FAULT", "kind=ESTOP", "detail=injected", line::kv("time_s", last_true_time_s)}});
+          after.push_back(
+              {0, "EVT", {"FAULT", "kind=ESTOP", "detail=injected", line::kv("time_s", last_true_time_s)}});
         }
         break;
       case Lie::fault_flag:
@@ -432,7 +480,8 @@ struct LyingProxy::Impl {
         break;
       case Lie::wrong_reply_seq:
         if (armed && m.type == "OK" && !m.fields.empty()) {
-          if (const auto req = unsigned_number(m.fields[0])) set_field(0, std::to_string(static_cast<std::uint32_t>(*req + 1)));
+          if (const auto req = unsigned_number(m.fields[0]))
+            set_field(0, std::to_string(static_cast<std::uint32_t>(*req + 1)));
         }
         break;
       case Lie::wrong_mode:
@@ -445,13 +494,16 @@ struct LyingProxy::Impl {
             ++index_shift;
           }
         }
-        if (smp && idx_true && !drop && index_shift > 0) set_field(0, std::to_string(*idx_true - index_shift));
+        if (smp && idx_true && !drop && index_shift > 0)
+          set_field(0, std::to_string(*idx_true - index_shift));
         break;
-      case Lie::trickle: break;  // acts on the delivery
+      case Lie::trickle:
+        break;  // acts on the delivery
       case Lie::sample_dup_flood:
         if (armed && smp) copies = kDupCopies;
         break;
-      case Lie::event_flood: break;  // acts on a timer
+      case Lie::event_flood:
+        break;  // acts on a timer
     }
     if (changed || drop || cut || copies > 1 || !after.empty()) {
       // The pre-trigger offset of clock_reset_to_zero is the set-up, not the lie.
@@ -490,7 +542,8 @@ struct LyingProxy::Impl {
       arm();
   }
 
-  // ---- tool → controller ---------------------------------------------------------------------------------------
+  // ---- tool → controller
+  // ---------------------------------------------------------------------------------------
 
   void on_tool_line(Pair& p, std::string_view raw, bool too_long) {
     if (too_long) return;
@@ -515,8 +568,10 @@ struct LyingProxy::Impl {
     const bool coef_set = m.type == "COEF" && m.fields.size() == 4 && m.fields[0] == "SET";
     const bool coef_get = m.type == "COEF" && m.fields.size() == 1 && m.fields[0] == "GET";
     auto coef_reply = [&] {
-      return Message{0, "OK", {std::to_string(m.seq), "COEF", "f0_n=" + last_written[0], "f1_n_per_kmh=" + last_written[1],
-                               "f2_n_per_kmh2=" + last_written[2]}};
+      return Message{0,
+                     "OK",
+                     {std::to_string(m.seq), "COEF", "f0_n=" + last_written[0],
+                      "f1_n_per_kmh=" + last_written[1], "f2_n_per_kmh2=" + last_written[2]}};
     };
     if (armed && script.lie == Lie::setting_not_applied) {
       if (coef_set) {
@@ -562,26 +617,31 @@ struct LyingProxy::Impl {
     }
   }
 
-  // ---- timers --------------------------------------------------------------------------------------------------
+  // ---- timers
+  // --------------------------------------------------------------------------------------------------
 
   void flood(Clock::time_point now) {
     if (!flood_started) {
       flood_started = true;
       flood_start = now;
     }
-    const auto due = static_cast<std::uint64_t>(std::chrono::duration<double>(now - flood_start).count() * kEventFloodPerS);
+    const auto due = static_cast<std::uint64_t>(std::chrono::duration<double>(now - flood_start).count() *
+                                                kEventFloodPerS);
     // At most a quarter second's worth at once after a stall of this thread: a flood, not a burst.
-    const std::uint64_t n = std::min<std::uint64_t>(due - flood_due_done, static_cast<std::uint64_t>(kEventFloodPerS / 4));
+    const std::uint64_t n =
+        std::min<std::uint64_t>(due - flood_due_done, static_cast<std::uint64_t>(kEventFloodPerS / 4));
     for (Pair& p : pairs) {
       if (p.dead || !p.have_out_seq || p.tool_pending() > kMaxPendingBytes) continue;
       for (std::uint64_t i = 0; i < n; ++i)
-        inject(p, {0, "EVT", {"INFO", "kind=NOTE", "detail=flood", "n=" + std::to_string(flood_due_done + i)}});
+        inject(p,
+               {0, "EVT", {"INFO", "kind=NOTE", "detail=flood", "n=" + std::to_string(flood_due_done + i)}});
       if (n > 0) mark_lie();
     }
     flood_due_done = due;  // what could not be sent is not sent later
   }
 
-  // ---- sockets -------------------------------------------------------------------------------------------------
+  // ---- sockets
+  // -------------------------------------------------------------------------------------------------
 
   // Writes what it can; false when the peer is gone.
   static bool write_some(int fd, std::string& buf, std::size_t& off, std::size_t limit) {
@@ -622,7 +682,8 @@ struct LyingProxy::Impl {
   void close_pair(Pair& p) {
     // What one side sent before it went is still delivered to the other, as far as it goes at once.
     if (p.ctrl >= 0) write_some(p.ctrl, p.to_ctrl, p.to_ctrl_off, p.ctrl_pending());
-    if (p.tool >= 0 && !(script.lie == Lie::trickle && armed)) write_some(p.tool, p.to_tool, p.to_tool_off, p.tool_pending());
+    if (p.tool >= 0 && !(script.lie == Lie::trickle && armed))
+      write_some(p.tool, p.to_tool, p.to_tool_off, p.tool_pending());
     if (p.tool >= 0) ::close(p.tool);
     if (p.ctrl >= 0) ::close(p.ctrl);
     p.tool = p.ctrl = -1;
@@ -675,11 +736,15 @@ struct LyingProxy::Impl {
         if (p.tool_pending() < kMaxPendingBytes) cev |= POLLIN;  // back-pressure on the controller
         if (p.ctrl_pending() > 0) cev |= POLLOUT;
         if (p.tool_pending() > 0) {
-          if (!trickling) tev |= POLLOUT;
+          if (!trickling)
+            tev |= POLLOUT;
           else {
-            const auto wait = std::chrono::duration_cast<std::chrono::milliseconds>(p.next_byte - now).count();
-            if (wait <= 0) tev |= POLLOUT;
-            else timeout_ms = std::min<int>(timeout_ms, static_cast<int>(wait));
+            const auto wait =
+                std::chrono::duration_cast<std::chrono::milliseconds>(p.next_byte - now).count();
+            if (wait <= 0)
+              tev |= POLLOUT;
+            else
+              timeout_ms = std::min<int>(timeout_ms, static_cast<int>(wait));
           }
         }
         fds.push_back({p.tool, tev, 0});
@@ -708,10 +773,13 @@ struct LyingProxy::Impl {
           }
         }
         if (ev & POLLOUT) {
-          const bool ok = tool_side ? write_some(p.tool, p.to_tool, p.to_tool_off, trickling ? 1 : p.tool_pending())
-                                    : write_some(p.ctrl, p.to_ctrl, p.to_ctrl_off, p.ctrl_pending());
-          if (!ok) close_pair(p);
-          else if (tool_side && trickling) p.next_byte = Clock::now() + kTrickleEvery;
+          const bool ok = tool_side
+                              ? write_some(p.tool, p.to_tool, p.to_tool_off, trickling ? 1 : p.tool_pending())
+                              : write_some(p.ctrl, p.to_ctrl, p.to_ctrl_off, p.ctrl_pending());
+          if (!ok)
+            close_pair(p);
+          else if (tool_side && trickling)
+            p.next_byte = Clock::now() + kTrickleEvery;
         }
       }
       pairs.remove_if([](const Pair& p) { return p.dead; });
@@ -740,7 +808,8 @@ LyingProxy::LyingProxy(unsigned short controller_port, Script script) : impl_(st
   sockaddr_in a = loopback(0);
   socklen_t len = sizeof a;
   if (impl_->listen_fd < 0 || ::bind(impl_->listen_fd, reinterpret_cast<sockaddr*>(&a), sizeof a) != 0 ||
-      ::listen(impl_->listen_fd, 8) != 0 || ::getsockname(impl_->listen_fd, reinterpret_cast<sockaddr*>(&a), &len) != 0) {
+      ::listen(impl_->listen_fd, 8) != 0 ||
+      ::getsockname(impl_->listen_fd, reinterpret_cast<sockaddr*>(&a), &len) != 0) {
     if (impl_->listen_fd >= 0) ::close(impl_->listen_fd);
     ::close(impl_->wake[0]);
     ::close(impl_->wake[1]);
@@ -761,8 +830,12 @@ LyingProxy::~LyingProxy() {
   ::close(impl_->wake[1]);
 }
 
-unsigned short LyingProxy::port() const { return impl_->port; }
-const Script& LyingProxy::script() const { return impl_->script; }
+unsigned short LyingProxy::port() const {
+  return impl_->port;
+}
+const Script& LyingProxy::script() const {
+  return impl_->script;
+}
 
 std::optional<WallClock::time_point> LyingProxy::armed_at() const {
   std::lock_guard<std::mutex> l(impl_->mu);

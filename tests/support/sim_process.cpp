@@ -13,10 +13,14 @@ SimProcess::SimProcess(std::vector<std::string> args, bool pty) {
     has_exit = has_exit || a == "--exit-after-s";
   }
   std::vector<std::string> argv = {LOADTRIM_SIM_EXE};
-  if (!has_truth) argv.insert(argv.end(), {"--truth", std::string(LOADTRIM_SOURCE_DIR) + "/samples/truths/demo-hatchback.toml"});
+  if (!has_truth)
+    argv.insert(argv.end(),
+                {"--truth", std::string(LOADTRIM_SOURCE_DIR) + "/samples/truths/demo-hatchback.toml"});
   if (!has_exit) argv.insert(argv.end(), {"--exit-after-s", "600"});
-  if (pty) argv.push_back("--pty");
-  else argv.insert(argv.end(), {"--port", "0"});
+  if (pty)
+    argv.push_back("--pty");
+  else
+    argv.insert(argv.end(), {"--port", "0"});
   argv.insert(argv.end(), args.begin(), args.end());
   child_ = std::make_unique<process::ChildProcess>(argv);
   const auto line = child_->read_line(std::chrono::seconds(10));
@@ -29,8 +33,12 @@ SimProcess::SimProcess(std::vector<std::string> args, bool pty) {
   device_ = a.device;
 }
 
-void SimProcess::stop() { child_->stop(); }
+void SimProcess::stop() {
+  child_->stop();
+}
 
-SimProcess::~SimProcess() { stop(); }
+SimProcess::~SimProcess() {
+  stop();
+}
 
 }  // namespace loadtrim::testing

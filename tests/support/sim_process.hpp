@@ -1,6 +1,6 @@
 // Starts loadtrim-sim as a child process for an integration test, reads where it listens from its first line,
-// and stops it by its PID (SIGTERM, then SIGKILL) when the object goes away. The child also gets SIGKILL if the
-// test process dies first (PR_SET_PDEATHSIG), so a simulator never outlives its test.
+// and stops it by its PID (SIGTERM, then SIGKILL) when the object goes away. The child also gets SIGKILL if
+// the test process dies first (PR_SET_PDEATHSIG), so a simulator never outlives its test.
 #pragma once
 
 #include <chrono>
@@ -24,9 +24,11 @@ class SimProcess {
   unsigned short port() const { return port_; }
   const std::string& device() const { return device_; }
   int pid() const { return child_->pid(); }
-  // The simulator's next output line after its announcement (it says latched faults: "loadtrim-sim: ... EVT FAULT
-  // kind=WATCHDOG ..."), or nullopt after the timeout.
-  std::optional<std::string> read_line(std::chrono::milliseconds timeout) { return child_->read_line(timeout); }
+  // The simulator's next output line after its announcement (it says latched faults: "loadtrim-sim: ... EVT
+  // FAULT kind=WATCHDOG ..."), or nullopt after the timeout.
+  std::optional<std::string> read_line(std::chrono::milliseconds timeout) {
+    return child_->read_line(timeout);
+  }
   void stop();
 
  private:

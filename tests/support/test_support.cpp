@@ -8,7 +8,9 @@
 
 namespace loadtrim::testing {
 
-bool close_rel(double a, double b, double rel) { return std::abs(a - b) <= rel * std::max(std::abs(a), std::abs(b)); }
+bool close_rel(double a, double b, double rel) {
+  return std::abs(a - b) <= rel * std::max(std::abs(a), std::abs(b));
+}
 
 StrdData read_strd(const std::string& file_name) {
   std::ifstream in(std::string(LOADTRIM_TEST_DATA_DIR) + "/" + file_name);
@@ -22,7 +24,8 @@ StrdData read_strd(const std::string& file_name) {
       std::istringstream ss(line.substr(1));
       std::string name;
       double est;
-      if (ss >> name && name.size() == 2 && name[0] == 'B' && std::isdigit(static_cast<unsigned char>(name[1])) && ss >> est)
+      if (ss >> name && name.size() == 2 && name[0] == 'B' &&
+          std::isdigit(static_cast<unsigned char>(name[1])) && ss >> est)
         d.certified.push_back(est);
       continue;
     }
@@ -44,8 +47,8 @@ double exact_speed_kmh(const core::RoadLoad& load, double mass_kg, double v0_kmh
   return (u - b / (2.0 * c)) * 3.6;
 }
 
-SyntheticTrace exact_trace(const core::RoadLoad& load, double mass_kg, double v0_kmh, double v_end_kmh, double rate_hz,
-                           double noise_sd_kmh, std::uint64_t seed) {
+SyntheticTrace exact_trace(const core::RoadLoad& load, double mass_kg, double v0_kmh, double v_end_kmh,
+                           double rate_hz, double noise_sd_kmh, std::uint64_t seed) {
   SyntheticTrace tr;
   std::mt19937_64 rng(seed);
   std::normal_distribution<double> n(0.0, 1.0);

@@ -44,7 +44,8 @@ TEST(Config, ShippedFilesLoad) {
   const auto wltp = config::load_profile(kSrc + "/config/profiles/wltp-iterative.toml");
   EXPECT_EQ(wltp.reference_speeds_kmh.size(), 12u);
   EXPECT_EQ(wltp.method, core::SettingMethod::iterative);
-  EXPECT_EQ(config::load_profile(kSrc + "/config/profiles/wltp-fixed-run.toml").method, core::SettingMethod::fixed_run);
+  EXPECT_EQ(config::load_profile(kSrc + "/config/profiles/wltp-fixed-run.toml").method,
+            core::SettingMethod::fixed_run);
   const auto us = config::load_profile(kSrc + "/config/profiles/us-iterative.toml");
   EXPECT_DOUBLE_EQ(us.reference_speeds_kmh.front(), 15 * 1.609344);  // NIST SP 811: exact mph factor
   EXPECT_DOUBLE_EQ(us.band_half_width_kmh, 2.5 * 1.609344);
@@ -58,12 +59,15 @@ TEST(Config, ShippedFilesLoad) {
 
 TEST(Config, UsTargetsConvertExactly) {
   std::string text = kGoodTarget;
-  text.replace(text.find("[target]"), std::string::npos, "[target_us]\na_lbf = 37.6\nb_lbf_per_mph = 0.238\nc_lbf_per_mph2 = 0.0211\n");
+  text.replace(text.find("[target]"), std::string::npos,
+               "[target_us]\na_lbf = 37.6\nb_lbf_per_mph = 0.238\nc_lbf_per_mph2 = 0.0211\n");
   const auto v = config::parse_target(text, "us.toml");
   // NIST SP 811: 1 lbf = 4.4482216152605 N, 1 mph = 1.609344 km/h.
   EXPECT_PRED3(loadtrim::testing::close_rel, v.target.f0_n, 37.6 * 4.4482216152605, 1e-12);
-  EXPECT_PRED3(loadtrim::testing::close_rel, v.target.f1_n_per_kmh, 0.238 * 4.4482216152605 / 1.609344, 1e-12);
-  EXPECT_PRED3(loadtrim::testing::close_rel, v.target.f2_n_per_kmh2, 0.0211 * 4.4482216152605 / (1.609344 * 1.609344), 1e-12);
+  EXPECT_PRED3(loadtrim::testing::close_rel, v.target.f1_n_per_kmh, 0.238 * 4.4482216152605 / 1.609344,
+               1e-12);
+  EXPECT_PRED3(loadtrim::testing::close_rel, v.target.f2_n_per_kmh2,
+               0.0211 * 4.4482216152605 / (1.609344 * 1.609344), 1e-12);
 }
 
 TEST(Config, BadTargetsAreRefusedWithKeyAndRange) {
@@ -72,15 +76,21 @@ TEST(Config, BadTargetsAreRefusedWithKeyAndRange) {
     t.replace(t.find(from), from.size(), to);
     return t;
   };
-  struct Case { std::string text, must_contain; };
+  struct Case {
+    std::string text, must_contain;
+  };
   const Case cases[] = {
-      {with("test_mass_kg = 1500.0", "test_mass_kg = -5.0"), "vehicle.test_mass_kg (line 4): is -5, allowed 300 to 20000 kg"},
+      {with("test_mass_kg = 1500.0", "test_mass_kg = -5.0"),
+       "vehicle.test_mass_kg (line 4): is -5, allowed 300 to 20000 kg"},
       {with("test_mass_kg = 1500.0\n", ""), "vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"},
-      {with("test_mass_kg = 1500.0", "test_mass_kg = \"heavy\""), "vehicle.test_mass_kg (line 4): must be a number"},
-      {with("f2_n_per_kmh2 = 0.03", "f2_n_per_kmh2 = -0.03"), "target.f2_n_per_kmh2 (line 11): is -0.03, must be positive"},
+      {with("test_mass_kg = 1500.0", "test_mass_kg = \"heavy\""),
+       "vehicle.test_mass_kg (line 4): must be a number"},
+      {with("f2_n_per_kmh2 = 0.03", "f2_n_per_kmh2 = -0.03"),
+       "target.f2_n_per_kmh2 (line 11): is -0.03, must be positive"},
       {with("f0_n = 100.0", "f0_n = nan"), "target.f0_n (line 9): is nan, must be a finite number"},
       {with("f0_n = 100.0", "f0_n = inf"), "must be a finite number"},
-      {with("drive = \"front\"", "drive = \"sideways\""), "vehicle.drive (line 6): is \"sideways\", allowed \"front\", \"rear\", \"all\""},
+      {with("drive = \"front\"", "drive = \"sideways\""),
+       "vehicle.drive (line 6): is \"sideways\", allowed \"front\", \"rear\", \"all\""},
       {with("f1_n_per_kmh = 0.5", "f1_n_per_kmh = 0.5 0.6"), "not valid TOML"},
       {"", "the file is empty"},
       {std::string("profile = \"x\"\0\x01\x02", 16), "binary data"},
@@ -88,11 +98,13 @@ TEST(Config, BadTargetsAreRefusedWithKeyAndRange) {
   for (const auto& c : cases) {
     const std::string msg = refusal([&] { config::parse_target(c.text, "bad-target.toml"); });
     EXPECT_NE(msg.find("bad-target.toml"), std::string::npos) << msg;
-    EXPECT_NE(msg.find(c.must_contain), std::string::npos) << "expected: " << c.must_contain << "\ngot: " << msg;
+    EXPECT_NE(msg.find(c.must_contain), std::string::npos)
+        << "expected: " << c.must_contain << "\ngot: " << msg;
   }
   // Every problem at once, not only the first.
   const std::string many = refusal([&] {
-    config::parse_target(with("test_mass_kg = 1500.0", "test_mass_kg = -5.0").replace(0, 0, "") + "", "m.toml");
+    config::parse_target(with("test_mass_kg = 1500.0", "test_mass_kg = -5.0").replace(0, 0, "") + "",
+                         "m.toml");
   });
   std::string two = with("max_speed_kmh = 180.0", "max_speed_kmh = 999.0");
   two = two.replace(two.find("f2_n_per_kmh2 = 0.03"), 20, "f2_n_per_kmh2 = -0.1");
@@ -103,7 +115,8 @@ TEST(Config, BadTargetsAreRefusedWithKeyAndRange) {
 }
 
 TEST(Config, PlausibilityWarningsNameTheLikelyMistake) {
-  // F0 given in lbf by mistake: F0/(TM·g) = 22.5/(1500·9.80665) = 0.0015, below 0.004 (common practice, no source).
+  // F0 given in lbf by mistake: F0/(TM·g) = 22.5/(1500·9.80665) = 0.0015, below 0.004 (common practice, no
+  // source).
   std::string t = kGoodTarget;
   t.replace(t.find("f0_n = 100.0"), 12, "f0_n = 22.5");
   core::Problems w;
@@ -122,17 +135,24 @@ TEST(Config, PlausibilityWarningsNameTheLikelyMistake) {
 
 TEST(Config, BadProfilesAndTruthsAreRefused) {
   const std::string msg = refusal([] {
-    config::parse_profile("name = \"p\"\n[bands]\nreference_speeds_kmh = [20, 30, 500]\nhalf_width_kmh = 5.0\n"
-                          "[acceptance]\ntolerance_n = 10.0\n[run]\nrun_up_margin_kmh = 2.0\n[method]\nkind = \"guess\"\n",
-                          "bad-profile.toml");
+    config::parse_profile(
+        "name = \"p\"\n[bands]\nreference_speeds_kmh = [20, 30, 500]\nhalf_width_kmh = 5.0\n"
+        "[acceptance]\ntolerance_n = 10.0\n[run]\nrun_up_margin_kmh = 2.0\n[method]\nkind = \"guess\"\n",
+        "bad-profile.toml");
   });
-  EXPECT_NE(msg.find("bad-profile.toml: error: bands.reference_speeds_kmh[2] (line 3): is 500, allowed 1 to 250 km/h"),
-            std::string::npos) << msg;
-  EXPECT_NE(msg.find("method.kind (line 10): is \"guess\", allowed \"iterative\", \"fixed-run\""), std::string::npos) << msg;
+  EXPECT_NE(
+      msg.find(
+          "bad-profile.toml: error: bands.reference_speeds_kmh[2] (line 3): is 500, allowed 1 to 250 km/h"),
+      std::string::npos)
+      << msg;
+  EXPECT_NE(msg.find("method.kind (line 10): is \"guess\", allowed \"iterative\", \"fixed-run\""),
+            std::string::npos)
+      << msg;
   EXPECT_NE(msg.find("run.run_up_margin_kmh (line 8): is 2, allowed 7 to 30 km/h"), std::string::npos) << msg;
   const std::string tmsg = refusal([] {
     config::parse_truth("[vehicle]\ntest_mass_kg = 1500\n[dyno]\nroller_diameter_m = 30\n", "bad-truth.toml");
   });
-  EXPECT_NE(tmsg.find("bad-truth.toml: error: dyno.roller_diameter_m (line 4): is 30, allowed 0.2 to 3 m"), std::string::npos)
+  EXPECT_NE(tmsg.find("bad-truth.toml: error: dyno.roller_diameter_m (line 4): is 30, allowed 0.2 to 3 m"),
+            std::string::npos)
       << tmsg;
 }

@@ -1,7 +1,8 @@
-// The controller's non-virtual safety layer, its clock guard and the motion library, without a simulator process:
-// the scripted fake controller (tests/support/fake_controller.hpp) stands in. The bounds checked here are the
-// project's own safety rules (docs/safety.md; lab policy, common practice, no source); every check value below is
-// constructed by the test itself (the clock a lie produces, the speed it reports), so it is stated beside the check.
+// The controller's non-virtual safety layer, its clock guard and the motion library, without a simulator
+// process: the scripted fake controller (tests/support/fake_controller.hpp) stands in. The bounds checked
+// here are the project's own safety rules (docs/safety.md; lab policy, common practice, no source); every
+// check value below is constructed by the test itself (the clock a lie produces, the speed it reports), so it
+// is stated beside the check.
 #include <gtest/gtest.h>
 
 #include <thread>
@@ -25,13 +26,15 @@ ClockRules rules(double scale, double stream_hz = 0.0) {
   return r;
 }
 
-// Feeds a clock sampled at `hz` controller samples per second, read in batches every `batch_wall_s` of wall time,
-// with `clock(t)` mapping the true controller time to what is reported. Returns the first violation.
+// Feeds a clock sampled at `hz` controller samples per second, read in batches every `batch_wall_s` of wall
+// time, with `clock(t)` mapping the true controller time to what is reported. Returns the first violation.
 std::optional<std::string> feed(ClockGuard& g, double scale, double hz, double batch_wall_s, double wall_s,
-                                const std::function<double(double)>& clock, double stall_at_wall_s = -1, double stall_s = 0) {
+                                const std::function<double(double)>& clock, double stall_at_wall_s = -1,
+                                double stall_s = 0) {
   double w = 0.0, next_sample = 0.0;
   while (w < wall_s) {
-    if (stall_at_wall_s >= 0 && w >= stall_at_wall_s && w < stall_at_wall_s + batch_wall_s) w += stall_s;  // the tool paused
+    if (stall_at_wall_s >= 0 && w >= stall_at_wall_s && w < stall_at_wall_s + batch_wall_s)
+      w += stall_s;  // the tool paused
     const double c_now = w * scale;
     for (; next_sample <= c_now; next_sample += 1.0 / hz)
       if (auto v = g.on_sample(clock(next_sample), w)) return v;
@@ -46,9 +49,10 @@ TEST(ClockGuard, HonestClocksPassAtEveryScaleWithBatchesAndBacklogs) {
   for (double scale : {1.0, 20.0, 200.0, 1000.0}) {
     ClockGuard g;
     g.set_rules(rules(scale, 100.0));
-    // Read every 2 ms of wall time, and once a 3 s pause of the tool's own (a slow disk): its backlog arrives late
-    // with its true, later times. Constructed: no lie, so no violation.
-    const auto v = feed(g, scale, 100.0, 0.002, 20.0, [](double t) { return t; }, 7.0, 3.0);
+    // Read every 2 ms of wall time, and once a 3 s pause of the tool's own (a slow disk): its backlog arrives
+    // late with its true, later times. Constructed: no lie, so no violation.
+    const auto v = feed(
+        g, scale, 100.0, 0.002, 20.0, [](double t) { return t; }, 7.0, 3.0);
     EXPECT_FALSE(v) << "scale " << scale << ": " << *v;
   }
 }
@@ -63,15 +67,18 @@ TEST(ClockGuard, NamesWhatTheClockDid) {
       {"backwards by 100 s at t = 300 s", [](double t) { return t < 300 ? t : t - 100; }, "ran backwards"},
       {"reset to zero after 400 s", [](double t) { return t < 400 ? t : t - 400; }, "ran backwards"},
       {"frozen after 300 s", [](double t) { return std::min(t, 300.0); }, "stopped"},
-      {"creeping: 1e-9 s per sample after 300 s", [](double t) { return t < 300 ? t : 300 + (t - 300) * 1e-7; }, "runs too slow"},
+      {"creeping: 1e-9 s per sample after 300 s",
+       [](double t) { return t < 300 ? t : 300 + (t - 300) * 1e-7; }, "runs too slow"},
       {"jumps +1000 s at 300 s", [](double t) { return t < 300 ? t : t + 1000; }, "jumped ahead"},
       {"jumps +1000 s at 2000 s", [](double t) { return t < 2000 ? t : t + 1000; }, "jumped ahead"},
       {"backwards by 100 s at 3000 s", [](double t) { return t < 3000 ? t : t - 100; }, "ran backwards"},
-      {"runs 10x fast after 300 s", [](double t) { return t < 300 ? t : 300 + 10 * (t - 300); }, "runs too fast"},
+      {"runs 10x fast after 300 s", [](double t) { return t < 300 ? t : 300 + 10 * (t - 300); },
+       "runs too fast"},
   };
   for (const auto& c : cases) {
     ClockGuard g;
-    g.set_rules(rules(200.0, 100.0));  // a streamed link: the clock's lies must not be taken for a stream rate
+    g.set_rules(
+        rules(200.0, 100.0));  // a streamed link: the clock's lies must not be taken for a stream rate
     const auto v = feed(g, 200.0, 100.0, 0.002, 30.0, c.clock);
     ASSERT_TRUE(v) << c.name;
     EXPECT_NE(v->find("the controller's clock"), std::string::npos) << *v;
@@ -106,7 +113,8 @@ TEST(ClockGuard, InProcessClocksRaceButStillNeverRunBackwards) {
   ClockRules r = rules(1.0);
   r.wall_related = false;
   g.set_rules(r);
-  for (int i = 0; i < 100000; ++i) ASSERT_FALSE(g.on_sample(i * 0.01, 1e-6 * i));  // 10,000 s in 0.1 s of wall
+  for (int i = 0; i < 100000; ++i)
+    ASSERT_FALSE(g.on_sample(i * 0.01, 1e-6 * i));  // 10,000 s in 0.1 s of wall
   const auto v = g.on_sample(5.0, 0.2);
   ASSERT_TRUE(v);
   EXPECT_NE(v->find("ran backwards"), std::string::npos);
@@ -173,11 +181,13 @@ TEST_F(Layer, MalformedSamplesAreDroppedCountedAndEndTheStreamWhenPersistent) {
 TEST_F(Layer, ExactRepeatsAreDroppedAsDuplicates) {
   ASSERT_TRUE(c.start_stream(100.0).ok());
   std::vector<controller::Sample> raw;
-  // The fake hands up each sample; a repeat of the same sample (same index and values) must not reach the caller twice.
+  // The fake hands up each sample; a repeat of the same sample (same index and values) must not reach the
+  // caller twice.
   controller::Sample prev{};
   bool have = false;
   c.script.sample_lie = [&](controller::Sample& s) {
-    if (have && s.index % 2 == 1) s = prev;  // every odd sample replaced by the one before it (an exact repeat)
+    if (have && s.index % 2 == 1)
+      s = prev;  // every odd sample replaced by the one before it (an exact repeat)
     prev = s;
     have = true;
   };
@@ -205,8 +215,8 @@ TEST_F(Layer, SamplesReadBeforeACommandKeepTheOldEpoch) {
   for (const auto& x : s) EXPECT_EQ(x.epoch, e0);
   ASSERT_TRUE(c.hold_speed(40.0).ok());
   EXPECT_EQ(c.epoch(), e0 + 1);
-  // The fake reads one more chunk when the command is acknowledged (as an adapter may hold lines already read): those
-  // come first with the old epoch, everything read afterwards has the new one.
+  // The fake reads one more chunk when the command is acknowledged (as an adapter may hold lines already
+  // read): those come first with the old epoch, everything read afterwards has the new one.
   s.clear();
   ASSERT_TRUE(c.receive_samples(s).ok());
   ASSERT_FALSE(s.empty());
@@ -226,7 +236,8 @@ TEST_F(Layer, TheKeepAliveStopsFeedingTheWatchdogWhenTheDrivingThreadStalls) {
   std::this_thread::sleep_for(std::chrono::milliseconds(150));  // the lease ran out at 200 ms
   const int after_lease = c.heartbeats.load();
   std::this_thread::sleep_for(std::chrono::milliseconds(400));
-  EXPECT_EQ(c.heartbeats.load(), after_lease) << "a stalled driving thread must let the controller's watchdog trip";
+  EXPECT_EQ(c.heartbeats.load(), after_lease)
+      << "a stalled driving thread must let the controller's watchdog trip";
 }
 
 TEST(Motion, FaultFlagsAndOverSpeedEndAStepWhateverTheEpochOrClock) {
@@ -267,8 +278,8 @@ TEST(Motion, AStepEndsOnItsControllerBudgetAndOnItsWallDeadline) {
   auto res = m.collect(st, [](const controller::Sample&) { return false; });
   EXPECT_EQ(res.code, motion::kTooSlow) << res.message;
   EXPECT_NE(res.message.find("within 30 s of controller time"), std::string::npos) << res.message;
-  // A frozen controller clock: the controller budget never runs out, the wall deadline does (30 s / (1 × 0.25) +
-  // 0.3 s slack = 120.3 s would be long; a 0.2 s budget gives 0.8 s + 0.3 s).
+  // A frozen controller clock: the controller budget never runs out, the wall deadline does (30 s / (1 ×
+  // 0.25) + 0.3 s slack = 120.3 s would be long; a 0.2 s budget gives 0.8 s + 0.3 s).
   double frozen_at = -1.0;
   c.script.sample_lie = [&](controller::Sample& s) {
     if (frozen_at < 0.0) frozen_at = s.time_s;

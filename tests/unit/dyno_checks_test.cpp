@@ -1,6 +1,8 @@
 // The dyno's own checks (src/core/dyno_checks): the base inertia formula and the 1066.250 speeds against hand
 // computations, the 1066.270 intervals and the parasitic curve on traces from the closed-form coast-down
 // (domain.md §6.4), the 1066.215 due-date logic at its boundaries, and the check profile loader.
+#include "core/dyno_checks.hpp"
+
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -9,7 +11,6 @@
 #include "checks/cell_history.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
-#include "core/dyno_checks.hpp"
 #include "core/units.hpp"
 
 using namespace loadtrim;
@@ -18,8 +19,8 @@ using namespace loadtrim::core;
 namespace {
 // Closed-form coast under F = A + C·v² (SI) for a mass m: v(t) = √(A/C)·tan(atan(v0·√(C/A)) − t·√(A·C)/m)
 // (domain.md §6.4, the textbook integral solved for v). Sampled at rate_hz until v_end; speeds in km/h.
-void closed_form_coast(double m, double a_n, double c_n_per_mps2, double v0_kmh, double v_end_kmh, double rate_hz,
-                       std::vector<double>& t, std::vector<double>& v) {
+void closed_form_coast(double m, double a_n, double c_n_per_mps2, double v0_kmh, double v_end_kmh,
+                       double rate_hz, std::vector<double>& t, std::vector<double>& v) {
   const double k = std::sqrt(c_n_per_mps2 / a_n), w = std::sqrt(a_n * c_n_per_mps2) / m;
   const double phi0 = std::atan(v0_kmh / 3.6 * k);
   for (int i = 0;; ++i) {
@@ -33,11 +34,14 @@ void closed_form_coast(double m, double a_n, double c_n_per_mps2, double v0_kmh,
   }
 }
 // The same load in the project's coefficients: F(v) = A + C·v², v in km/h → f2 = C_SI / 3.6².
-RoadLoad load_of(double a_n, double c_n_per_mps2) { return {a_n, 0.0, c_n_per_mps2 / (3.6 * 3.6)}; }
+RoadLoad load_of(double a_n, double c_n_per_mps2) {
+  return {a_n, 0.0, c_n_per_mps2 / (3.6 * 3.6)};
+}
 }  // namespace
 
-// Hand computation: 1 mph/s = 0.44704 m/s² (NIST SP 811, exact); F = 1250 kg × 0.44704 m/s² = 558.8 N; from 10 to
-// 40 mph Δv = 30 × 0.44704 = 13.4112 m/s, reached in Δt = 30 s; I = 558.8 × 30 / 13.4112 = 16764 / 13.4112 = 1250 kg.
+// Hand computation: 1 mph/s = 0.44704 m/s² (NIST SP 811, exact); F = 1250 kg × 0.44704 m/s² = 558.8 N; from
+// 10 to 40 mph Δv = 30 × 0.44704 = 13.4112 m/s, reached in Δt = 30 s; I = 558.8 × 30 / 13.4112 = 16764
+// / 13.4112 = 1250 kg.
 TEST(DynoChecks, InertiaFormulaAgainstAHandComputation) {
   EXPECT_NEAR(inertia_from_constant_force_kg(558.8, 30.0, 13.4112), 1250.0, 1e-9);
   // A second hand value: 400 N for 25.0 s over 10 m/s → 1000 kg.
@@ -93,19 +97,22 @@ TEST(DynoChecks, UnloadedCoastdownIntervalsAndAnExactCoast) {
     EXPECT_NEAR(i.deviation_n, 0.0, 0.05) << i.v_high_mph;  // crossing fits on a 100 Hz exact trace
   }
   EXPECT_TRUE(ok.passed) << ok.verdict;
-  // The dyno really turning 5 % more mass than set: every interval's force reads 1/1.05 low (about 4.8 %), above
-  // the 2 % / 9.8 N limit where the force is over 490 N, and the verdict says the force is below the setting.
+  // The dyno really turning 5 % more mass than set: every interval's force reads 1/1.05 low (about 4.8 %),
+  // above the 2 % / 9.8 N limit where the force is over 490 N, and the verdict says the force is below the
+  // setting.
   t.clear();
   v.clear();
   closed_form_coast(m * 1.05, a, c, units::mph_to_kmh(85.0), units::mph_to_kmh(8.0), 100.0, t, v);
   const UnloadedCoastdown bad = check_unloaded_coastdown({t, v}, m, load_of(a, c), o);
   EXPECT_FALSE(bad.passed);
   EXPECT_NE(bad.verdict.find("below the setting"), std::string::npos) << bad.verdict;
-  for (const auto& i : bad.intervals) EXPECT_NEAR(i.mean_force_n / i.expected_force_n, 1.0 / 1.05, 2e-4) << i.v_high_mph;
+  for (const auto& i : bad.intervals)
+    EXPECT_NEAR(i.mean_force_n / i.expected_force_n, 1.0 / 1.05, 2e-4) << i.v_high_mph;
 }
 
 TEST(DynoChecks, ParasiticCurveFromAFreeCoastAndTheStoredComparison) {
-  const double base = 1250.0, a = 22.0, c = 0.0009 * 3.6 * 3.6;  // the demo dyno's loss without its linear term
+  const double base = 1250.0, a = 22.0,
+               c = 0.0009 * 3.6 * 3.6;  // the demo dyno's loss without its linear term
   std::vector<double> t, v;
   closed_form_coast(base, a, c, 140.0, 10.0, 50.0, t, v);
   const ParasiticDetermination first = determine_parasitic({t, v}, base, std::nullopt);
@@ -124,8 +131,9 @@ TEST(DynoChecks, ParasiticCurveFromAFreeCoastAndTheStoredComparison) {
   EXPECT_NE(high.verdict.find("lose more"), std::string::npos) << high.verdict;
 }
 
-// CFR 1066.215 [text, domain.md §4]: the unloaded coast-down within every 7 days, the readiness check within 1 day;
-// the parasitic determination after a failed check. "Within 7 days" read as: current while now − last ≤ 7 d.
+// CFR 1066.215 [text, domain.md §4]: the unloaded coast-down within every 7 days, the readiness check within
+// 1 day; the parasitic determination after a failed check. "Within 7 days" read as: current while now − last
+// ≤ 7 d.
 TEST(DynoChecks, DueDatesAtTheirBoundaries) {
   const DuePolicy p;
   const double t0 = 1'800'000'000.0, day = 86400.0;
@@ -134,16 +142,20 @@ TEST(DynoChecks, DueDatesAtTheirBoundaries) {
       if (it.kind == k) return it.state;
     return DueState::current;
   };
-  const std::vector<CheckRecord> h = {{CheckKind::coastdown, t0, true}, {CheckKind::readiness, t0, true}, {CheckKind::parasitic, t0, true},
+  const std::vector<CheckRecord> h = {{CheckKind::coastdown, t0, true},
+                                      {CheckKind::readiness, t0, true},
+                                      {CheckKind::parasitic, t0, true},
                                       {CheckKind::inertia, t0, true}};
   EXPECT_EQ(state(h, t0 + 7 * day - 1, CheckKind::coastdown), DueState::current);
   EXPECT_EQ(state(h, t0 + 7 * day, CheckKind::coastdown), DueState::current);
   EXPECT_EQ(state(h, t0 + 7 * day + 1, CheckKind::coastdown), DueState::overdue);
   EXPECT_EQ(state(h, t0 + day, CheckKind::readiness), DueState::current);
   EXPECT_EQ(state(h, t0 + day + 1, CheckKind::readiness), DueState::overdue);
-  EXPECT_EQ(state(h, t0 + 365 * day, CheckKind::parasitic), DueState::current);  // no interval: event-driven only
+  EXPECT_EQ(state(h, t0 + 365 * day, CheckKind::parasitic),
+            DueState::current);  // no interval: event-driven only
   EXPECT_EQ(state({}, t0, CheckKind::coastdown), DueState::due_never_done);
-  // A failed readiness check: it is due again at once, and so is the parasitic determination, until each passes.
+  // A failed readiness check: it is due again at once, and so is the parasitic determination, until each
+  // passes.
   auto h2 = h;
   h2.push_back({CheckKind::readiness, t0 + 3600, false});
   EXPECT_EQ(state(h2, t0 + 3601, CheckKind::readiness), DueState::failed);
@@ -157,8 +169,10 @@ TEST(DynoChecks, DueDatesAtTheirBoundaries) {
   // Major maintenance after the last passing run: parasitic and inertia due again, the coast-down unaffected.
   const auto items = due_checks(h, t0 + 100, p, t0 + 50);
   for (const auto& it : items) {
-    if (it.kind == CheckKind::parasitic || it.kind == CheckKind::inertia) EXPECT_EQ(it.state, DueState::after_maintenance);
-    else EXPECT_EQ(it.state, DueState::current);
+    if (it.kind == CheckKind::parasitic || it.kind == CheckKind::inertia)
+      EXPECT_EQ(it.state, DueState::after_maintenance);
+    else
+      EXPECT_EQ(it.state, DueState::current);
   }
 }
 
@@ -172,13 +186,16 @@ TEST(DynoChecks, UtcTimesRoundTrip) {
 }
 
 TEST(DynoChecks, CheckProfileLoadsAndBadValuesAreRefused) {
-  const CheckProfile p = config::load_check_profile(std::string(LOADTRIM_SOURCE_DIR) + "/config/checks/cfr1066.toml");
+  const CheckProfile p =
+      config::load_check_profile(std::string(LOADTRIM_SOURCE_DIR) + "/config/checks/cfr1066.toml");
   EXPECT_EQ(p.due.coastdown_interval_s, 7 * 86400.0);
   EXPECT_EQ(p.due.readiness_interval_s, 86400.0);
   EXPECT_EQ(p.required.size(), 4u);
   EXPECT_EQ(p.coastdown.v_start_mph, 80.0);
-  std::string text = "name = \"x\"\n[intervals]\ncoastdown_days = 7\nreadiness_days = 1\ninertia_days = 0\nparasitic_days = 0\n"
-                     "required = [\"coastdown\", \"sometimes\"]\n";
+  std::string text =
+      "name = \"x\"\n[intervals]\ncoastdown_days = 7\nreadiness_days = 1\ninertia_days = 0\nparasitic_days = "
+      "0\n"
+      "required = [\"coastdown\", \"sometimes\"]\n";
   try {
     config::parse_check_profile(text, "bad.toml");
     FAIL() << "a bad check profile was accepted";

@@ -359,8 +359,8 @@ TEST(Divergence, ControllersWithAGainErrorStillConvergeWithoutFiring) {
 
 TEST(Divergence, SettingNotAppliedWithASmallDeviationFiresByRule3) {
   // The controller keeps its first setting, which is 12–20 N off: rules 1 and 2 need more (above 3·T, or the
-  // set moving away by most of each deviation); the measured curve not moving with the set shows it within three
-  // adjustments (the fourth coast-down). Constructed: first set = target − loss + a 15 N offset.
+  // set moving away by most of each deviation); the measured curve not moving with the set shows it within
+  // three adjustments (the fourth coast-down). Constructed: first set = target − loss + a 15 N offset.
   const RoadLoad loss{90.0, 0.4, 0.004};
   for (unsigned seed = 1; seed <= 200; ++seed) {
     std::mt19937 rng(seed);
@@ -380,7 +380,8 @@ TEST(Divergence, SettingNotAppliedWithASmallDeviationFiresByRule3) {
     }
     ASSERT_GT(fired, 0) << "seed " << seed;
     EXPECT_LE(fired, 4) << "seed " << seed;
-    EXPECT_NE(watch.verdict()->find("moved with it by a factor of only"), std::string::npos) << *watch.verdict();
+    EXPECT_NE(watch.verdict()->find("moved with it by a factor of only"), std::string::npos)
+        << *watch.verdict();
   }
 }
 

@@ -31,8 +31,10 @@ physics::Truth bare_truth() {
 }  // namespace
 
 TEST(Physics, Rk4MatchesTheClosedFormCoastdown) {
-  // domain.md §6.4 (textbook integral, completed square): relative speed error below 1e-6 from 130 to 15 km/h.
-  for (const core::RoadLoad load : {core::RoadLoad{100, 0.0, 0.03}, core::RoadLoad{100, 0.5, 0.03}, core::RoadLoad{180, -0.9, 0.045}}) {
+  // domain.md §6.4 (textbook integral, completed square): relative speed error below 1e-6 from 130 to 15
+  // km/h.
+  for (const core::RoadLoad load :
+       {core::RoadLoad{100, 0.0, 0.03}, core::RoadLoad{100, 0.5, 0.03}, core::RoadLoad{180, -0.9, 0.045}}) {
     physics::RollerModel m(bare_truth());
     m.set_inertia_kg(1542.75);
     m.set_coefficients(load);
@@ -56,8 +58,9 @@ TEST(Physics, Rk4MatchesTheClosedFormCoastdown) {
 }
 
 TEST(Physics, RollerCurvatureFactor) {
-  // domain.md §5: √(1 + r/R) (form from memory); ratios 1.414 for equal diameters and 2.0 for a tyre three times
-  // the roller diameter [text, secondary]; 0.32 m tyre on a 48-inch roller (R = 0.6096 m): 1.2349 [computed].
+  // domain.md §5: √(1 + r/R) (form from memory); ratios 1.414 for equal diameters and 2.0 for a tyre three
+  // times the roller diameter [text, secondary]; 0.32 m tyre on a 48-inch roller (R = 0.6096 m): 1.2349
+  // [computed].
   EXPECT_NEAR(physics::roller_curvature_factor(0.5, 0.5), 1.414, 5e-4);
   EXPECT_NEAR(physics::roller_curvature_factor(1.5, 0.5), 2.0, 1e-12);
   EXPECT_NEAR(physics::roller_curvature_factor(0.32, 0.6096), 1.2349, 5e-5);
@@ -104,8 +107,8 @@ TEST(Physics, WarmUpLowersTheSpinLossAndRestCoolsIt) {
 }
 
 TEST(Physics, CoastdownAnalysedByTheCoreGivesSetPlusLoss) {
-  // The dyno reproduces F_set + L + P_res on a coasting mass I·(1+ε) + m_rot; the tool converts with TM + m_r.
-  // So the measured force at v_j is (TM + m_r)/(I·(1+ε) + m_rot) · (F_set + L + P_res)(v_j), up to the
+  // The dyno reproduces F_set + L + P_res on a coasting mass I·(1+ε) + m_rot; the tool converts with TM +
+  // m_r. So the measured force at v_j is (TM + m_r)/(I·(1+ε) + m_rot) · (F_set + L + P_res)(v_j), up to the
   // standard's mid-speed shortcut (< 0.2 %, see predict_test).
   physics::Truth t;
   t.vehicle.initial_warmth = 1.0;
@@ -123,11 +126,13 @@ TEST(Physics, CoastdownAnalysedByTheCoreGivesSetPlusLoss) {
   ASSERT_TRUE(e.usable) << e.unusable_reason;
   const double scale = force_mass / m.coasting_mass_kg();
   for (double v : p.reference_speeds_kmh)
-    EXPECT_NEAR(e.fit.coefficients.force_n(v), scale * m.road_load_force_n(v), 0.004 * m.road_load_force_n(v)) << v;
+    EXPECT_NEAR(e.fit.coefficients.force_n(v), scale * m.road_load_force_n(v), 0.004 * m.road_load_force_n(v))
+        << v;
 }
 
 TEST(Physics, RandomTruthsFollowTheEpaSpread) {
-  // samples/data/README.md: target − set at 20 km/h has median ≈ 115 N, p95 ≈ 250 N; at 130 km/h ≈ 160 N, 350 N.
+  // samples/data/README.md: target − set at 20 km/h has median ≈ 115 N, p95 ≈ 250 N; at 130 km/h ≈ 160 N, 350
+  // N.
   std::mt19937_64 rng(42);
   std::vector<double> l20, l130;
   for (int i = 0; i < 2000; ++i) {

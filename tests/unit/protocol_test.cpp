@@ -64,8 +64,10 @@ TEST(Protocol, SplitterHandlesChunksAndOverlongLines) {
   std::vector<std::string> lines;
   int too_long = 0;
   auto sink = [&](std::string_view l, bool tl) {
-    if (tl) ++too_long;
-    else lines.emplace_back(l);
+    if (tl)
+      ++too_long;
+    else
+      lines.emplace_back(l);
   };
   const std::string a = encode({1, "BEAT", {}}), b = encode({2, "STATUS", {}});
   const std::string stream = a + std::string(500, 'Z') + "\n" + b;
@@ -91,9 +93,10 @@ TEST(Protocol, SampleLines) {
 }
 
 TEST(Protocol, DocumentedExamplesParseAndTheSimulatorAnswersThem) {
-  // Every example line in docs/protocol.md decodes (their CRCs were computed by Python's binascii, an independent
-  // implementation), and feeding the documented requests to the simulated controller, in order, gives replies of
-  // the documented kind (OK with the same verb, or ERR with the same code) to the same request numbers.
+  // Every example line in docs/protocol.md decodes (their CRCs were computed by Python's binascii, an
+  // independent implementation), and feeding the documented requests to the simulated controller, in order,
+  // gives replies of the documented kind (OK with the same verb, or ERR with the same code) to the same
+  // request numbers.
   std::ifstream in(std::string(LOADTRIM_SOURCE_DIR) + "/docs/protocol.md");
   ASSERT_TRUE(in);
   std::string line;

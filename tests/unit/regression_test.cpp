@@ -1,9 +1,10 @@
 // Least squares against NIST StRD certified values and the WLTP worked example.
+#include "core/regression.hpp"
+
 #include <gtest/gtest.h>
 
 #include <cmath>
 
-#include "core/regression.hpp"
 #include "core/trace_analysis.hpp"
 #include "support/test_support.hpp"
 
@@ -18,8 +19,8 @@ TEST(Regression, NistStrdPontius) {
   const auto fit = core::fit_polynomial(d.x, d.y, 2);
   ASSERT_TRUE(fit.ok) << fit.message;
   for (int j = 0; j < 3; ++j) EXPECT_PRED3(close_rel, fit.coefficients(j), d.certified[j], 1e-9) << "B" << j;
-  // Certified standard deviations of the estimates (NIST header): 0.107938612033077E-03, 0.157817399981659E-09,
-  // 0.486652849992036E-16.
+  // Certified standard deviations of the estimates (NIST header): 0.107938612033077E-03,
+  // 0.157817399981659E-09, 0.486652849992036E-16.
   EXPECT_PRED3(close_rel, std::sqrt(fit.covariance(0, 0)), 0.107938612033077E-03, 1e-7);
   EXPECT_PRED3(close_rel, std::sqrt(fit.covariance(1, 1)), 0.157817399981659E-09, 1e-7);
   EXPECT_PRED3(close_rel, std::sqrt(fit.covariance(2, 2)), 0.486652849992036E-16, 1e-7);
@@ -36,10 +37,12 @@ TEST(Regression, NistStrdWampler1Degree5) {
 }
 
 TEST(Regression, WltpExampleTableRegressesBack) {
-  // domain.md §6.2 [computed from GTR 15 §8.1.3.2]: the forces from the table's Δt_j (3 decimals) regress back to
-  // (100, 0.5, 0.03). Δt rounded to 0.0005 s moves a force by at most F·0.0005/Δt ≤ 0.053 N, hence the bounds.
+  // domain.md §6.2 [computed from GTR 15 §8.1.3.2]: the forces from the table's Δt_j (3 decimals) regress
+  // back to (100, 0.5, 0.03). Δt rounded to 0.0005 s moves a force by at most F·0.0005/Δt ≤ 0.053 N, hence
+  // the bounds.
   const double speeds[] = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
-  const double dt[] = {35.126, 30.179, 25.508, 21.427, 18.006, 15.197, 12.908, 11.045, 9.523, 8.273, 7.239, 6.377};
+  const double dt[] = {35.126, 30.179, 25.508, 21.427, 18.006, 15.197,
+                       12.908, 11.045, 9.523,  8.273,  7.239,  6.377};
   const double ft[] = {122, 142, 168, 200, 238, 282, 332, 388, 450, 518, 592, 672};
   std::vector<double> forces;
   for (int j = 0; j < 12; ++j) {

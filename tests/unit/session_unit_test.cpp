@@ -1,8 +1,9 @@
-// The session state machine without a simulator process: the scripted fake controller (the simulator's typed core
-// in-process, tests/support/fake_controller.hpp) with observers that fail, a controller that never stops, and one
-// that acknowledges the setting without applying it. What is checked is the project's safety contract
-// (docs/safety.md): the safe stop on every path, observers unable to throw into the session, the envelope and the
-// divergence rule. Tolerance ±10 N at every reference speed for acceptance: GTR 15 Annex 4 §8.1.3.4.2 [text].
+// The session state machine without a simulator process: the scripted fake controller (the simulator's typed
+// core in-process, tests/support/fake_controller.hpp) with observers that fail, a controller that never
+// stops, and one that acknowledges the setting without applying it. What is checked is the project's safety
+// contract (docs/safety.md): the safe stop on every path, observers unable to throw into the session, the
+// envelope and the divergence rule. Tolerance ±10 N at every reference speed for acceptance: GTR 15 Annex 4
+// §8.1.3.4.2 [text].
 #include <gtest/gtest.h>
 
 #include <stdexcept>
@@ -82,7 +83,8 @@ TEST(SessionUnit, AThrowingViewIsDroppedAndTheSessionGoesOn) {
   const auto sum = s.run();
   EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
   EXPECT_TRUE(record.saw("observer_dropped"));
-  EXPECT_EQ(std::count(console.types.begin(), console.types.end(), "coastdown"), 1) << "dropped after it threw";
+  EXPECT_EQ(std::count(console.types.begin(), console.types.end(), "coastdown"), 1)
+      << "dropped after it threw";
 }
 
 TEST(SessionUnit, AFailingRecordStopsSafelyAndNothingUnrecordedIsShown) {

@@ -1,8 +1,10 @@
-// Tolerance, adjustment and the setting methods against the standard's rules (UN GTR 15 Annex 4 §8.1.3–8.1.4).
+// Tolerance, adjustment and the setting methods against the standard's rules (UN GTR 15 Annex 4
+// §8.1.3–8.1.4).
+#include "core/setting.hpp"
+
 #include <gtest/gtest.h>
 
 #include "core/profile.hpp"
-#include "core/setting.hpp"
 
 using namespace loadtrim::core;
 
@@ -61,7 +63,8 @@ TEST(Setting, MassRules) {
 }
 
 TEST(Setting, IterativeNeedsTwoConsecutivePasses) {
-  // GTR 15 §8.1.3.4.2: within tolerance for two consecutive coast-downs; a failure in between restarts the count.
+  // GTR 15 §8.1.3.4.2: within tolerance for two consecutive coast-downs; a failure in between restarts the
+  // count.
   const Profile p = wltp(SettingMethod::iterative);
   const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028};
   SettingMethodState m(p, target);

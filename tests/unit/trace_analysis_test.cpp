@@ -1,11 +1,13 @@
-// Band-time extraction against the textbook closed-form coast-down (domain.md §6.4) and the standard's formula.
+// Band-time extraction against the textbook closed-form coast-down (domain.md §6.4) and the standard's
+// formula.
+#include "core/trace_analysis.hpp"
+
 #include <gtest/gtest.h>
 
 #include <cmath>
 
 #include "core/evaluation.hpp"
 #include "core/predict.hpp"
-#include "core/trace_analysis.hpp"
 #include "support/test_support.hpp"
 
 using namespace loadtrim;
@@ -13,7 +15,7 @@ using namespace loadtrim;
 namespace {
 const std::vector<double> kSpeeds = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
 const core::RoadLoad kTarget{100, 0.5, 0.03};  // domain.md §6.2
-constexpr double kMass = 1542.75;               // TM 1500 + m_r 42.75 (domain.md §6.2)
+constexpr double kMass = 1542.75;              // TM 1500 + m_r 42.75 (domain.md §6.2)
 }  // namespace
 
 TEST(TraceAnalysis, NoiseFreeBandTimesMatchTheClosedForm) {
@@ -24,7 +26,8 @@ TEST(TraceAnalysis, NoiseFreeBandTimesMatchTheClosedForm) {
   ASSERT_EQ(bands.size(), kSpeeds.size());
   for (const auto& b : bands) {
     ASSERT_TRUE(b.ok()) << b.reason;
-    const double exact = *core::coastdown_time_s(kTarget, kMass, b.reference_speed_kmh + 5, b.reference_speed_kmh - 5);
+    const double exact =
+        *core::coastdown_time_s(kTarget, kMass, b.reference_speed_kmh + 5, b.reference_speed_kmh - 5);
     EXPECT_NEAR(b.delta_t_s, exact, 2e-5) << b.reference_speed_kmh;
     EXPECT_NEAR(b.force_n, (1 / 3.6) * kMass * 10.0 / exact, 1e-3);
   }
@@ -48,12 +51,13 @@ TEST(TraceAnalysis, RecoversTheWltpTableThroughTheWholeChain) {
 }
 
 namespace {
-// Expected 1-sigma error of a band force from white speed noise σ_v. Each crossing time comes from a quadratic
-// least-squares fit of v(t) over the N samples within ±w km/h of the level; for an evenly sampled window the
-// variance of the fitted value at the centre is (9/4)·σ_v²/N (the intercept variance of a quadratic on a
-// uniform design: S4/(S4 − S2²) = (1/5)/(1/5 − 1/9) = 9/4), so σ_t = (3/2)·σ_v/(|dv/dt|·√N), N = 2·(w/|dv/dt|)·rate.
-// Δt_j = t_low − t_up has σ_Δt = √(σ_t,up² + σ_t,low²), and σ_F = F·σ_Δt/Δt.
-double expected_force_sd(double v_ref, double sigma_v, double rate_hz, double w = core::BandOptions{}.fit_half_width_kmh) {
+// Expected 1-sigma error of a band force from white speed noise σ_v. Each crossing time comes from a
+// quadratic least-squares fit of v(t) over the N samples within ±w km/h of the level; for an evenly sampled
+// window the variance of the fitted value at the centre is (9/4)·σ_v²/N (the intercept variance of a
+// quadratic on a uniform design: S4/(S4 − S2²) = (1/5)/(1/5 − 1/9) = 9/4), so σ_t = (3/2)·σ_v/(|dv/dt|·√N), N
+// = 2·(w/|dv/dt|)·rate. Δt_j = t_low − t_up has σ_Δt = √(σ_t,up² + σ_t,low²), and σ_F = F·σ_Δt/Δt.
+double expected_force_sd(double v_ref, double sigma_v, double rate_hz,
+                         double w = core::BandOptions{}.fit_half_width_kmh) {
   auto sigma_t = [&](double level) {
     const double decel_kmh_s = 3.6 * kTarget.force_n(level) / kMass;
     const double n = 2.0 * (w / decel_kmh_s) * rate_hz;
@@ -66,8 +70,8 @@ double expected_force_sd(double v_ref, double sigma_v, double rate_hz, double w 
 }  // namespace
 
 TEST(TraceAnalysis, NoisyTracesStayWithinTheDerivedBound) {
-  // 0.05 km/h white speed noise at 10 Hz and 100 Hz (the GTR 15 §3.1 instrument floor is ±0.2 km/h at ≥ 10 Hz).
-  // Bound: 5σ from the derivation above (P(|z| > 5) ≈ 6e-7 per band) plus 0.01 N for the fit's own bias.
+  // 0.05 km/h white speed noise at 10 Hz and 100 Hz (the GTR 15 §3.1 instrument floor is ±0.2 km/h at ≥ 10
+  // Hz). Bound: 5σ from the derivation above (P(|z| > 5) ≈ 6e-7 per band) plus 0.01 N for the fit's own bias.
   for (double rate : {10.0, 100.0}) {
     for (std::uint64_t seed = 1; seed <= 5; ++seed) {
       const auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, rate, 0.05, seed);
@@ -78,12 +82,13 @@ TEST(TraceAnalysis, NoisyTracesStayWithinTheDerivedBound) {
             *core::coastdown_time_s(kTarget, kMass, b.reference_speed_kmh + 5, b.reference_speed_kmh - 5);
         const double err = b.force_n - core::band_force_n(kMass, 5.0, exact_dt);
         const double bound = 5.0 * expected_force_sd(b.reference_speed_kmh, 0.05, rate) + 0.01;
-        EXPECT_LT(std::abs(err), bound) << "rate " << rate << " seed " << seed << " v " << b.reference_speed_kmh;
+        EXPECT_LT(std::abs(err), bound)
+            << "rate " << rate << " seed " << seed << " v " << b.reference_speed_kmh;
       }
     }
   }
-  // The bound is meaningful, not loose: even its 5σ stays inside the ±10 N tolerance (GTR 15 §8.1.3.4.2) at every
-  // speed at 10 Hz, and under 3 N at 100 Hz.
+  // The bound is meaningful, not loose: even its 5σ stays inside the ±10 N tolerance (GTR 15 §8.1.3.4.2) at
+  // every speed at 10 Hz, and under 3 N at 100 Hz.
   for (double v : kSpeeds) {
     EXPECT_LT(5.0 * expected_force_sd(v, 0.05, 10.0), 10.0) << v;
     EXPECT_LT(5.0 * expected_force_sd(v, 0.05, 100.0), 3.0) << v;

@@ -1,11 +1,12 @@
 // Unit conversions against NIST SP 811 Appendix B (exact factors) and the EPA extract's own SI columns.
+#include "core/units.hpp"
+
 #include <gtest/gtest.h>
 
 #include <fstream>
 #include <sstream>
 
 #include "core/road_load.hpp"
-#include "core/units.hpp"
 #include "support/test_support.hpp"
 
 using namespace loadtrim;
@@ -44,7 +45,8 @@ TEST(Units, CoefficientFactors) {
   EXPECT_PRED3(close_rel, back.b_lbf_per_mph, us.b_lbf_per_mph, 1e-12);
   EXPECT_PRED3(close_rel, back.c_lbf_per_mph2, us.c_lbf_per_mph2, 1e-12);
   // The same force whichever units it is evaluated in: F(50 mph) in lbf × N/lbf = F(80.4672 km/h) in N.
-  EXPECT_PRED3(close_rel, units::lbf_to_n(us.force_lbf(50.0)), core::to_metric(us).force_n(units::mph_to_kmh(50.0)), 1e-12);
+  EXPECT_PRED3(close_rel, units::lbf_to_n(us.force_lbf(50.0)),
+               core::to_metric(us).force_n(units::mph_to_kmh(50.0)), 1e-12);
 }
 
 TEST(Units, MatchesEpaExtractSiColumns) {
