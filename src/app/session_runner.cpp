@@ -143,7 +143,7 @@ std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
 
 std::string history_file(const std::string& dir, const controller::CellConfig& cell,
                          const core::VehicleTarget& v) {
-  return (fs::path(dir) / record::safe_name(cell.name) / (record::safe_name(v.id) + ".json")).string();
+  return (fs::path(dir) / record::identity_name(cell.name) / (record::safe_name(v.id) + ".json")).string();
 }
 
 std::optional<core::HistoryEntry> load_history(const std::string& file) {
@@ -244,6 +244,9 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     std::cerr << "loadtrim: " << writer.error() << "\n";
     return kRecordFailure;
   }
+  // Every record signed with the cell's key, so an unfinished folder cannot be changed and re-chained by
+  // someone without it (docs/records.md). A folder begun unsigned stays unsigned.
+  writer.log().set_signer(key);
   session::Console console(req.console);
   std::unique_ptr<controller::Controller> c =
       req.inprocess_truth ? adapters::make_inprocess_controller(inputs.cell, *req.inprocess_truth)
@@ -509,6 +512,9 @@ void install_stop_handlers() {
   sigemptyset(&sa.sa_mask);
   ::sigaction(SIGINT, &sa, nullptr);
   ::sigaction(SIGTERM, &sa, nullptr);
+  // A closed terminal or ssh session (SIGHUP) and SIGQUIT stop the session safely too, never mid-motion.
+  ::sigaction(SIGHUP, &sa, nullptr);
+  ::sigaction(SIGQUIT, &sa, nullptr);
   ::signal(SIGPIPE, SIG_IGN);
 }
 
@@ -547,6 +553,17 @@ nlohmann::json dyno_check_gate(const RunRequest& req, const controller::CellConf
   return j;
 }
 
+// The cell's own log takes every sealed session's chain head: a damaged log would only be found at the end of
+// the session (its seal could not be logged), so it refuses the session before anything connects.
+bool cell_log_intact(const RunRequest& req, const controller::CellConfig& cell) {
+  const checks::CellHistory h(req.checks_dir, cell.name);
+  if (h.ok()) return true;
+  std::cerr << "loadtrim: refusing to start: the cell's log " << h.log_path() << " is damaged: " << h.error()
+            << "\n(every session's seal is recorded there; restore it from the lab's backup, see "
+               "docs/records.md)\n";
+  return false;
+}
+
 int run_new_session(const RunRequest& request, std::string* folder_out) {
   RunRequest req = request;
   record::DataRoot root;
@@ -555,6 +572,11 @@ int run_new_session(const RunRequest& request, std::string* folder_out) {
       load_all(req.cell_file, req.target_file, req.profile, req);  // throws InputError: nothing started
   std::optional<record::SigningKey> key;
   if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
+  if (!cell_log_intact(req, l.inputs.cell)) return kRecordFailure;
+  if (!key && !req.simulator)
+    std::cerr << "loadtrim: note: cell \"" << l.inputs.cell.name
+              << "\" has no signing key: its folders are sealed unsigned and an unfinished one can be altered "
+                 "unnoticed (loadtrim keys create --cell ...; docs/records.md)\n";
   bool refuse = false;
   const nlohmann::json gate = dyno_check_gate(req, l.inputs.cell, refuse);
   if (refuse) return kBadInput;
@@ -630,6 +652,12 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
               << (verdict.file.empty() ? std::string() : " (file " + verdict.file + ")") << "\n";
     return kRecordFailure;
   }
+  if (verdict.records_signed && !verdict.records_signature_checked) {
+    std::cerr << "loadtrim: refusing to resume " << folder << ": its records are signed by "
+              << verdict.records_signer << ", but no trusted key of cell \"" << verdict.cell << "\" is in "
+              << root.keys() << " to check them\n";
+    return kRecordFailure;
+  }
   if (verdict.seal) {
     const std::string result = verdict.seal->result.value("result", "");
     std::cerr << "loadtrim: " << folder << " is finished and sealed (" << result << "); nothing to resume\n";
@@ -655,6 +683,7 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     }
   std::optional<record::SigningKey> key;
   if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
+  if (!cell_log_intact(req, l.inputs.cell)) return kRecordFailure;
   std::optional<record::FileLock> cell_lock, folder_lock;
   std::string lock_msg;
   if (!lock_folder(folder, "resume", folder_lock, lock_msg) ||
@@ -663,6 +692,11 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     return kBadInput;
   }
   const session::ResumePoint rp = session::resume_point(records);
+  if (rp.malformed > 0) {
+    std::cerr << "loadtrim: refusing to resume " << folder << ": " << rp.malformed
+              << " record(s) lack what this version reads; the first: " << rp.malformed_note << "\n";
+    return kRecordFailure;
+  }
   if (rp.verdict) return finalise_recorded(folder, l.inputs, rp, req, key ? &*key : nullptr);
   // The dyno-check gate applies to a resumed session as to a new one.
   bool refuse = false;

@@ -46,7 +46,7 @@ std::string utc_from_s(double epoch_s) {
 }
 
 CellHistory::CellHistory(const std::string& root, const std::string& cell_name) {
-  dir_ = (fs::path(root) / record::safe_name(cell_name)).string();
+  dir_ = (fs::path(root) / record::identity_name(cell_name)).string();
   log_path_ = (fs::path(dir_) / "cell-log.jsonl").string();
   std::error_code ec;
   if (!fs::exists(log_path_, ec)) return;  // a cell with no history yet

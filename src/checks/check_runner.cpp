@@ -326,6 +326,7 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     return res;
   }
   record::EventLog log((fs::path(res.folder) / "events.jsonl").string());
+  log.set_signer(req.key);  // every record signed with the cell's key, like a session's (docs/records.md)
   Procedure p(c, req, log, res.folder, stop);
   nlohmann::json result = {{"check", core::to_string(req.kind)},
                            {"cell", req.cell.name},

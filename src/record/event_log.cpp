@@ -10,6 +10,7 @@
 #include <fstream>
 #include <sstream>
 
+#include "record/seal.hpp"
 #include "record/sha256.hpp"
 #include "record/verify.hpp"
 
@@ -109,6 +110,7 @@ EventLog::EventLog(std::string path) : path_(std::move(path)) {
       repaired_ = "cut an incomplete last line from the log";
     }
     next_seq_ = v.records;
+    first_signed_ = !recs.empty() && recs.front().contains("sig");
   }
   // Test hook (the fault matrix): LOADTRIM_TEST_FAIL_WRITES_AFTER=N makes every append after the Nth record
   // of this process fail as a full disk would. Never set in production; documented in docs/session.md.
@@ -122,6 +124,25 @@ EventLog::~EventLog() {
   if (fd_ >= 0) ::close(fd_);
 }
 
+bool split_record_signature(const std::string& line, std::string& signed_text, std::string& sig_hex) {
+  static const std::string head = ",\"sig\":\"";
+  const std::size_t n = head.size() + 128 + 2;  // ,"sig":" + 128 hex + "}
+  if (line.size() <= n || line.compare(line.size() - n, head.size(), head) != 0 ||
+      line.compare(line.size() - 2, 2, "\"}") != 0)
+    return false;
+  sig_hex = line.substr(line.size() - 130, 128);
+  for (char ch : sig_hex)
+    if (!((ch >= '0' && ch <= '9') || (ch >= 'a' && ch <= 'f'))) return false;
+  signed_text = line.substr(0, line.size() - n) + "}";
+  return true;
+}
+
+bool EventLog::set_signer(const SigningKey* key) {
+  if (key && next_seq_ > 0 && !first_signed_) return false;
+  signer_ = key;
+  return true;
+}
+
 bool EventLog::append(const std::string& type, nlohmann::json payload, const std::string& utc) {
   if (fd_ < 0) {
     if (error_.empty()) error_ = "log not open";
@@ -133,10 +154,21 @@ bool EventLog::append(const std::string& type, nlohmann::json payload, const std
     j["utc"] = utc;
     j["type"] = type;
     for (auto it = payload.begin(); payload.is_object() && it != payload.end(); ++it)
-      if (it.key() != "seq" && it.key() != "prev" && it.key() != "type" && it.key() != "utc")
+      if (it.key() != "seq" && it.key() != "prev" && it.key() != "type" && it.key() != "utc" &&
+          it.key() != "sig" && it.key() != "record_signer")
         j[it.key()] = it.value();
     j["prev"] = last_hash_;
-    const std::string line = j.dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
+    if (signer_ && next_seq_ == 0) j["record_signer"] = signer_->fingerprint();
+    std::string line = j.dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
+    if (signer_) {
+      std::string sig, err;
+      if (!signer_->sign(std::string(kRecordSigDomain) + line, sig, err)) {
+        error_ = "cannot sign a record of " + path_ + ": " + err;
+        return false;
+      }
+      line.pop_back();  // the closing '}'
+      line += ",\"sig\":\"" + sig + "\"}";
+    }
     const std::string out = line + "\n";
     if (fail_after_ >= 0 && appended_ >= fail_after_) fail_writes_ = true;
     if (fail_writes_) {

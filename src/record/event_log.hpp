@@ -4,6 +4,12 @@
 //
 // Record layout: {"seq": n, "utc": "...", "type": "...", ...payload..., "prev": "<hex>"}; the hash of a
 // record is the SHA-256 of its line without the '\n'.
+//
+// Record signatures (docs/records.md). With a signer set, every record's line ends with
+// ,"sig":"<128 hex>"} where the signature is Ed25519 over kRecordSigDomain + the line without that member
+// (the same text with the ,"sig":"..." cut out, ending in '}'); record 0 also names the signer's fingerprint in
+// "record_signer". So an unfinished folder of a cell with a key cannot be changed and re-chained by someone
+// without the key: the hash chain alone only shows accidents.
 #pragma once
 
 #include <nlohmann/json.hpp>
@@ -11,6 +17,14 @@
 #include <vector>
 
 namespace loadtrim::record {
+
+class SigningKey;
+class PublicKey;
+
+inline constexpr const char* kRecordSigDomain = "loadtrim-record-1\n";
+// The record signature at the end of a line: the signed text (the line without it) and the signature's hex.
+// False when the line carries none (or not in the exact form EventLog writes).
+bool split_record_signature(const std::string& line, std::string& signed_text, std::string& sig_hex);
 
 class EventLog {
  public:
@@ -29,6 +43,9 @@ class EventLog {
   const std::string& path() const { return path_; }
   // Set when opening found and cut a torn last line.
   const std::string& repaired() const { return repaired_; }
+  // Signs every record appended from now on with `key` (which must outlive the log). Ignored (false) when the
+  // log already holds records and its record 0 is not signed: one folder is signed throughout or not at all.
+  bool set_signer(const SigningKey* key);
   // A test hook: the next appends fail as if the disk refused them.
   void inject_write_failure(bool on) { fail_writes_ = on; }
 
@@ -40,6 +57,8 @@ class EventLog {
   std::string error_;
   std::string repaired_;
   bool fail_writes_ = false;
+  const SigningKey* signer_ = nullptr;
+  bool first_signed_ = false;  // record 0 of an existing log is signed
   long long fail_after_ = -1;
   long long appended_ = 0;
 };

@@ -405,10 +405,10 @@ bool create_key_pair(const std::string& private_path, const std::string& public_
 }
 
 std::string cell_key_stem(const std::string& cell_name) {
-  return "cell-" + safe_name(cell_name);
+  return "cell-" + identity_name(cell_name);
 }
 std::string reviewer_key_stem(const std::string& reviewer) {
-  return "reviewer-" + safe_name(reviewer);
+  return "reviewer-" + identity_name(reviewer);
 }
 
 std::optional<SigningKey> load_cell_signing_key(const std::string& data_root, const std::string& cell_name,

@@ -49,6 +49,11 @@ std::string safe_name(const std::string& s) {
   return out.empty() ? "unnamed" : out;
 }
 
+std::string identity_name(const std::string& s) {
+  const std::string safe = safe_name(s);
+  return safe == s ? safe : safe + "-" + sha256_hex(s).substr(0, 8);
+}
+
 std::string create_session_folder(const std::string& root, const std::string& id) {
   const std::string base = (fs::path(root) / (utc_compact_now() + "-" + safe_name(id))).string();
   std::string path = base;

@@ -17,6 +17,10 @@ namespace loadtrim::record {
 std::string utc_now();                        // 2026-12-01T19:39:30.123Z
 std::string utc_compact_now();                // 20261201T193930Z, for folder names
 std::string safe_name(const std::string& s);  // letters, digits, '-', '_', '.' only
+// A file-system name for an identity (a cell, a reviewer): safe_name(s) when that changes nothing, else
+// safe_name(s) + "-" + the first 8 hex digits of SHA-256(s), so two names that differ only in characters
+// safe_name replaces ("cell (A)" and "cell [A]") never share a key, a log or a history.
+std::string identity_name(const std::string& s);
 
 // Creates <root>/<utc>-<id>/ with inputs/ and traces/; throws std::runtime_error when it cannot.
 std::string create_session_folder(const std::string& root, const std::string& id);

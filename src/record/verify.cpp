@@ -54,7 +54,10 @@ json FolderVerdict::to_json() const {
             {"recorded_files", recorded_files},
             {"cell", cell},
             {"origin", origin},
+            {"records_signed", records_signed},
+            {"records_signature_checked", records_signature_checked},
             {"notes", notes}};
+  if (!records_signer.empty()) j["records_signer"] = records_signer;
   if (record >= 0) j["record"] = record;
   if (!file.empty()) j["file"] = file;
   if (seal)
@@ -121,10 +124,22 @@ struct CellLogEntry {
 
 // A trusted public key: from the options (any cell / reviewer) or <keys_dir>/<stem>.pub.pem.
 struct KeyLookup {
-  const PublicKey* key = nullptr;  // matches the signer
+  const PublicKey* key = nullptr;  // matches the signer: a given key, or `loaded`
   std::optional<PublicKey> loaded;
   std::string known_other;  // a trusted key for this name exists, and it is not the signer's
   std::string source, looked_at;
+  KeyLookup() = default;
+  // `key` may point into this very object: a copy points into the copy.
+  KeyLookup(const KeyLookup& o) { *this = o; }
+  KeyLookup& operator=(const KeyLookup& o) {
+    if (this == &o) return *this;
+    loaded = o.loaded;
+    known_other = o.known_other;
+    source = o.source;
+    looked_at = o.looked_at;
+    key = (o.key && o.loaded && o.key == &*o.loaded) ? &*loaded : o.key;
+    return *this;
+  }
 };
 
 KeyLookup find_key(const std::vector<PublicKey>& given, const std::string& keys_dir, const std::string& stem,
@@ -166,7 +181,7 @@ CellLogEntry find_in_cell_log(const std::string& checks_root, const std::string&
                               const std::string& origin, std::vector<std::string>& notes) {
   CellLogEntry e;
   if (checks_root.empty() || cell.empty()) return e;
-  const std::string path = (fs::path(checks_root) / safe_name(cell) / "cell-log.jsonl").string();
+  const std::string path = (fs::path(checks_root) / identity_name(cell) / "cell-log.jsonl").string();
   std::error_code ec;
   if (!fs::exists(path, ec)) {
     notes.push_back("no cell log at " + path + "; not consulted");
@@ -218,6 +233,45 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
     v.origin = lines.front().sha256;
     if (lines.front().record.contains("cell") && lines.front().record["cell"].is_string())
       v.cell = lines.front().record["cell"];
+
+    // 1a. Record signatures (the hash chain alone shows accidents; a signature shows who wrote the record).
+    {
+      const bool first_signed = lines.front().record.contains("sig");
+      v.records_signed = first_signed;
+      KeyLookup k;
+      if (first_signed) {
+        const json& r0 = lines.front().record;
+        if (!r0.contains("record_signer") || !r0["record_signer"].is_string())
+          return broken("record 0 is signed but does not name its signer (record_signer)", 0, "events.jsonl");
+        v.records_signer = r0["record_signer"];
+        k = find_key(opt.cell_keys, opt.keys_dir, cell_key_stem(v.cell), v.records_signer, v.notes);
+        if (!k.key && !k.known_other.empty())
+          return broken("the records are signed by " + v.records_signer + ", which is not the cell's key " +
+                            k.known_other + " (" + k.source + ")",
+                        0, "events.jsonl");
+        if (!k.key)
+          v.notes.push_back("record signatures not checked: no trusted key of cell \"" + v.cell + "\"" +
+                            (k.looked_at.empty() ? std::string() : " at " + k.looked_at));
+      }
+      for (std::size_t i = 0; i < lines.size(); ++i) {
+        const std::string type = lines[i].record.value("type", "");
+        if (type == "seal" || type == "approval") break;  // they carry their own signatures
+        const bool has = lines[i].record.contains("sig");
+        const std::string at = "record " + std::to_string(i);
+        if (has != first_signed)
+          return broken(at + (has ? " is signed, but record 0 is not" : " is not signed, but record 0 is") +
+                            ": records were added or replaced without the cell's key",
+                        static_cast<std::int64_t>(i), "events.jsonl");
+        if (!has || !k.key) continue;
+        std::string text, sig;
+        if (!split_record_signature(lines[i].text, text, sig) ||
+            !k.key->verify(std::string(kRecordSigDomain) + text, sig))
+          return broken(at + "'s signature does not verify with the cell's key " + k.key->fingerprint() +
+                            ": the record was altered",
+                        static_cast<std::int64_t>(i), "events.jsonl");
+      }
+      v.records_signature_checked = first_signed && k.key;
+    }
 
     // 2. Every file any record holds a hash of.
     for (const auto& l : lines) {
@@ -283,6 +337,20 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
                           logged.utc + ") records it sealed at record " + std::to_string(logged.seal_seq) +
                           ", but it now ends at record " + std::to_string(v.records - 1) + " with no seal",
                       static_cast<std::int64_t>(v.records - 1), "events.jsonl");
+      // No link, FIFO or device anywhere in it, sealed or not (a resumed session would otherwise run to the end
+      // before the seal refuses it).
+      const FolderListing listing = list_inside(folder);
+      if (!listing.ok) return broken(listing.error, -1, listing.offending);
+      // A cell with a trusted key signs its records: an unsigned unfinished folder of such a cell was
+      // re-chained by someone without the key (or started before the cell had one: either way, not resumable).
+      if (!v.records_signed && !opt.keys_dir.empty()) {
+        std::error_code ec;
+        const std::string pub = (fs::path(opt.keys_dir) / (cell_key_stem(v.cell) + ".pub.pem")).string();
+        if (!v.cell.empty() && fs::exists(pub, ec))
+          return broken("the records are not signed, but cell \"" + v.cell + "\" has a key (" + pub +
+                            "): the folder was re-chained without the key, or started before the cell had one",
+                        0, "events.jsonl");
+      }
       v.outcome = Outcome::not_finished;
       v.message = summary_counts + "; no seal: the session or check did not finish (or is still running)";
       return v;

@@ -19,6 +19,10 @@
 //      <keys_dir>/cell-<name>.pub.pem → the signature must verify (else broken); signed by another key when
 //      the cell's key is known → broken (not made with the cell's key); no key known for the cell →
 //      key_unknown.
+//   4a. Record signatures: when record 0 carries one, every record before the seal must, each verifying with
+//      the key record 0 names ("record_signer"), which must be the cell's trusted key when one is known. When
+//      record 0 carries none, none may; and an unfinished folder of a cell with a trusted key must carry them
+//      (else its records were re-chained without the key). Checked before the seal (sealed or not).
 //   6. Each approval: its fields, canonical line, approving this folder's seal, signed by the reviewer's key
 //      (given, or <keys_dir>/reviewer-<name>.pub.pem); unknown reviewer key → key_unknown.
 // Never opens a path the folder names outside the folder, and never follows a link inside it. Never throws.
@@ -86,6 +90,10 @@ struct FolderVerdict {
   std::string cell, origin;  // the cell's name (seal, else record 0) and the hash of record 0's line
   std::optional<SealView> seal;
   std::vector<ApprovalView> approvals;
+  // Record signatures (record/event_log.hpp): whether the records carry them, and whether they were checked
+  // against a trusted key of the cell (every one verified) — unchecked when no trusted key was available.
+  bool records_signed = false, records_signature_checked = false;
+  std::string records_signer;
   std::vector<std::string> notes;
   bool ok() const { return outcome == Outcome::verified; }
   // Intact as far as the folder itself shows (anything but broken).

@@ -262,12 +262,17 @@ bool Session::recover_link(const std::string& why) {
 std::optional<Session::Stop> Session::do_connect() {
   transition(State::connect);
   Result r = c_.connect();
-  for (int attempt = 1;
-       !r.ok() && r.status == Result::Status::retryable && attempt <= in_.cell.reconnect.attempts;
+  // The operator's stop is honoured between connect attempts (nothing moves yet: an interruption, exit 4).
+  for (int attempt = 1; !r.ok() && r.status == Result::Status::retryable &&
+                        attempt <= in_.cell.reconnect.attempts && !stop_requested();
        ++attempt) {
     emit("reconnect", {{"attempt", attempt}, {"of", in_.cell.reconnect.attempts}, {"message", r.message}});
     std::this_thread::sleep_for(in_.cell.reconnect.delay);
-    r = c_.connect();
+    if (!stop_requested()) r = c_.connect();
+  }
+  if (!r.ok() && stop_requested()) {
+    emit("interrupted", {{"during", "connect"}});
+    return Stop{Outcome::interrupted, "interrupted by the operator during connect (" + r.message + ")"};
   }
   if (!r.ok()) return fault(r, "connect");
   if (r = c_.identify(info_); !r.ok()) return fault(r, "identify");

@@ -1,5 +1,7 @@
 // JSON forms of the session's records (the log, the summary, the report all read these).
 #include <cmath>
+#include <stdexcept>
+#include <string>
 
 #include "core/predict.hpp"
 #include "core/setting.hpp"
@@ -129,6 +131,16 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         }
       } else if (type == "coastdown") {
         pending.reset();
+        // Every field resume, the summary and the report read: a record without one is refused by name, never
+        // read as a default (a missing "usable" is not "unusable").
+        (void)r.at("run").get<int>();
+        (void)coefficients_from_json(r.at("set"));
+        if (!r.at("usable").is_boolean()) throw std::invalid_argument("\"usable\" is not true or false");
+        if (r.at("usable").get<bool>()) {
+          (void)coefficients_from_json(r.at("simulated"));
+          (void)r.at("check").at("rows").size();
+          (void)r.at("decision").at("kind").get<std::string>();
+        }
         p.completed.push_back(r);
         if (!r.value("usable", false)) {
           ++p.unusable;
@@ -147,9 +159,12 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         }
         p.have_next_set = true;
       }
-    } catch (const nlohmann::json::exception& e) {
-      // A record whose fields are not what this version writes: skipped and counted, never a crash.
-      ++p.malformed;
+    } catch (const std::exception& e) {
+      // A record whose fields are not what this version writes: counted and named (resume refuses the
+      // folder), never a crash.
+      if (p.malformed++ == 0)
+        p.malformed_note = "record " + std::to_string(r.value("seq", -1)) + " (" + r.value("type", "?") +
+                           "): " + e.what();
     }
   p.discarded_run = pending;
   return p;

@@ -7,6 +7,7 @@
 #include <gtest/gtest.h>
 
 #include <csignal>
+#include <functional>
 #include <filesystem>
 #include <fstream>
 #include <map>
@@ -14,6 +15,7 @@
 
 #include "process/child_process.hpp"
 #include "record/event_log.hpp"
+#include "record/sha256.hpp"
 #include "record/verify.hpp"
 #include "support/sim_process.hpp"
 
@@ -308,5 +310,160 @@ TEST(Resume, TwoKilledResumesNameTheDiscardedRunOnce) {
       discarded.push_back(r["discarded_run"].get<int>());
   EXPECT_EQ(discarded, std::vector<int>{1})
       << "the half-recorded run 1 is discarded once, by the first resume";
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
+namespace {
+// A session of a cell with a signing key, killed (-9) after its first coast-down was recorded: the folder an
+// attacker without the key finds. Returns the folder; `lab` is its data root.
+std::string killed_signed_session(const std::string& dir, const std::string& lab, unsigned port) {
+  std::string out, err;
+  if (process::run_command({kExe, "keys", "create", "--cell", "sim-cell-tcp (invented)", "--data-dir", lab},
+                           &out, &err) != 0)
+    return "";
+  const auto at = out.find("fingerprint: sha256:");
+  if (at == std::string::npos) return "";
+  std::ifstream in(kSrc + "/config/cells/sim-tcp.toml");
+  std::string cell((std::istreambuf_iterator<char>(in)), {});
+  cell += "\n[records]\npublic_key = \"" + out.substr(at + 13, 71) + "\"\n";
+  std::ofstream(dir + "/keyed.toml") << cell;
+  std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=coastdown"};
+  auto args = run_args(port, dir + "/s");
+  args[5] = dir + "/keyed.toml";
+  args.insert(args.end(), {"--data-dir", lab});
+  argv.insert(argv.end(), args.begin(), args.end());
+  process::ChildProcess first(argv);
+  const bool ok = wait_logged(dir + "/s", "coastdown", std::chrono::seconds(120));
+  first.signal(SIGKILL);
+  first.wait();
+  return ok ? only_folder(dir + "/s") : "";
+}
+
+// The log as an attacker rewrites it without the key: each record parsed, changed, serialised again and every
+// link recomputed (docs/records.md: the chain alone shows accidents, not intent).
+void rechain(const std::string& folder, const std::function<void(std::vector<nlohmann::json>&)>& change) {
+  std::vector<nlohmann::json> recs = records_of(folder);
+  change(recs);
+  std::string prev(64, '0'), text;
+  for (auto& r : recs) {
+    r["prev"] = prev;
+    const std::string line = r.dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
+    prev = record::sha256_hex(line);
+    text += line + "\n";
+  }
+  std::ofstream(folder + "/events.jsonl", std::ios::binary | std::ios::trunc) << text;
+}
+
+int resume(const std::string& folder, const std::string& lab, std::string& err) {
+  std::string out;
+  return process::run_command({kExe, "resume", folder, "--unattended", "--quiet", "--override-checks",
+                               kOverride, "--data-dir", lab},
+                              &out, &err);
+}
+}  // namespace
+
+// Without the cell's key, a killed session's folder cannot be altered into another result or other inputs
+// (issue 14: resume never changes a result; docs/records.md, record signatures).
+TEST(Resume, AFolderAlteredWithoutTheCellsKeyIsRefused) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
+  const std::string dir = temp_dir(), lab = dir + "/lab";
+  const std::string base = killed_signed_session(dir, lab, sim.port());
+  ASSERT_FALSE(base.empty());
+  ASSERT_TRUE(records_of(base).front().contains("record_signer"));
+  auto copy = [&](const std::string& name) {
+    fs::copy(base, dir + "/" + name, fs::copy_options::recursive);
+    return dir + "/" + name;
+  };
+  std::string err;
+  // 1. The first coast-down's decision made "accepted", every link recomputed.
+  const std::string forged = copy("forged");
+  rechain(forged, [](auto& recs) {
+    for (auto& r : recs)
+      if (r.value("type", "") == "coastdown" && r.contains("decision")) r["decision"]["kind"] = "accepted";
+  });
+  EXPECT_EQ(resume(forged, lab, err), 5) << err;
+  EXPECT_NE(err.find("signature does not verify"), std::string::npos) << err;
+  EXPECT_FALSE(fs::exists(forged + "/summary.json"));
+  // 2. The cell file's gate switched off and a limit raised, its hash in record 0 recomputed.
+  const std::string inputs = copy("inputs");
+  {
+    std::ofstream(inputs + "/inputs/cell.toml", std::ios::app) << "\n[checks]\nenforce = false\n";
+    std::ifstream in(inputs + "/inputs/cell.toml");
+    const std::string text((std::istreambuf_iterator<char>(in)), {});
+    rechain(inputs, [&](auto& recs) {
+      for (auto& f : recs.front()["files"])
+        if (f.value("path", "") == "inputs/cell.toml") f["sha256"] = record::sha256_hex(text);
+    });
+  }
+  EXPECT_EQ(resume(inputs, lab, err), 5) << err;
+  EXPECT_NE(err.find("record 0's signature does not verify"), std::string::npos) << err;
+  // 3. Every signature stripped: the cell has a key, so unsigned records were re-chained without it.
+  const std::string stripped = copy("stripped");
+  rechain(stripped, [](auto& recs) {
+    for (auto& r : recs) {
+      r.erase("sig");
+      r.erase("record_signer");
+    }
+  });
+  EXPECT_EQ(resume(stripped, lab, err), 5) << err;
+  EXPECT_NE(err.find("the records are not signed, but cell"), std::string::npos) << err;
+  // 4. The untouched folder resumes and ends sealed, signed and verified.
+  const std::string honest = copy("honest");
+  EXPECT_EQ(resume(honest, lab, err), 0) << err;
+  std::string out;
+  EXPECT_EQ(process::run_command({kExe, "verify", honest, "--data-dir", lab}, &out, &err), 0) << out << err;
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
+// A record that verifies but lacks a field resume reads is named (exit 5), never read as a default; a link
+// placed in an unfinished folder is refused before anything connects; a damaged cell log refuses a session
+// before it connects (issue 14, robust readers; docs/records.md).
+TEST(Resume, AMissingFieldALinkOrADamagedCellLogIsRefusedBeforeAnythingMoves) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
+  const std::string dir = temp_dir(), lab = dir + "/lab";
+  {
+    std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=coastdown"};
+    auto args = run_args(sim.port(), dir + "/s");
+    args.insert(args.end(), {"--data-dir", lab});
+    argv.insert(argv.end(), args.begin(), args.end());
+    process::ChildProcess first(argv);
+    ASSERT_TRUE(wait_logged(dir + "/s", "coastdown", std::chrono::seconds(120)));
+    first.signal(SIGKILL);
+    first.wait();
+  }
+  const std::string base = only_folder(dir + "/s");
+  std::string err, out;
+  const std::string missing = dir + "/missing";
+  fs::copy(base, missing, fs::copy_options::recursive);
+  std::uint64_t seq = 0;
+  rechain(missing, [&](auto& recs) {
+    for (auto& r : recs)
+      if (r.value("type", "") == "coastdown") {
+        r.erase("usable");
+        seq = r.value("seq", std::uint64_t{0});
+      }
+  });
+  EXPECT_EQ(resume(missing, lab, err), 5) << err;
+  EXPECT_NE(err.find("record " + std::to_string(seq) + " (coastdown)"), std::string::npos) << err;
+  EXPECT_NE(err.find("usable"), std::string::npos) << err;
+
+  const std::string linked = dir + "/linked";
+  fs::copy(base, linked, fs::copy_options::recursive);
+  fs::create_symlink("/etc/hostname", linked + "/traces/run-009.csv");
+  EXPECT_EQ(process::run_command({kExe, "verify", linked, "--data-dir", lab}, &out, &err), 5) << out;
+  const auto before = records_of(linked).size();
+  EXPECT_EQ(resume(linked, lab, err), 5) << err;
+  EXPECT_NE(err.find("traces/run-009.csv"), std::string::npos) << err;
+  EXPECT_EQ(records_of(linked).size(), before);
+
+  const std::string logdir = lab + "/checks/sim-cell-tcp__invented_-" +
+                             record::sha256_hex("sim-cell-tcp (invented)").substr(0, 8);
+  fs::create_directories(logdir);
+  std::ofstream(logdir + "/cell-log.jsonl", std::ios::app) << "{\"junk\":1}\n";
+  auto args = run_args(sim.port(), dir + "/s2");
+  args.insert(args.end(), {"--data-dir", lab});
+  EXPECT_EQ(process::run_command(args, &out, &err), 5) << err;
+  EXPECT_NE(err.find("cell-log.jsonl is damaged"), std::string::npos) << err;
+  EXPECT_FALSE(fs::exists(dir + "/s2")) << "a folder was made for a session that could not be sealed";
   if (!HasFailure()) fs::remove_all(dir);
 }

@@ -3,7 +3,11 @@
 // after kill -9 recognised. Against the simulated controller on loopback; the bounds are the project's own
 // (common practice, no source).
 #include <gtest/gtest.h>
+#include <arpa/inet.h>
+#include <netinet/in.h>
+#include <sys/socket.h>
 #include <sys/wait.h>
+#include <unistd.h>
 
 #include <filesystem>
 #include <fstream>
@@ -121,6 +125,20 @@ TEST(Safety, OneSessionPerCellAndOneProcessPerFolder) {
                             &out, &err);
   EXPECT_EQ(rc, 2) << err;
   EXPECT_NE(err.find("cell busy"), std::string::npos) << err;
+  // The same controller spelled another way in another cell file ("localhost" for 127.0.0.1) is the same cell.
+  {
+    std::ifstream in(kSrc + "/config/cells/sim-tcp.toml");
+    std::string cell((std::istreambuf_iterator<char>(in)), {});
+    const auto at = cell.find("host = \"127.0.0.1\"");
+    ASSERT_NE(at, std::string::npos);
+    cell.replace(at, 18, "host = \"localhost\"");
+    std::ofstream(dir2 + "/localhost.toml") << cell;
+    auto argv = run_args(sim.port(), dir2 + "/s");
+    argv[5] = dir2 + "/localhost.toml";
+    rc = process::run_command(argv, &out, &err);
+    EXPECT_EQ(rc, 2) << err;
+    EXPECT_NE(err.find("cell busy: session " + folder), std::string::npos) << err;
+  }
   // kill -9: the kernel drops the lock; the next run takes it over and says whose it was.
   first.signal(SIGKILL);
   first.wait();
@@ -139,4 +157,42 @@ TEST(Safety, OneSessionPerCellAndOneProcessPerFolder) {
     fs::remove_all(dir);
     fs::remove_all(dir2);
   }
+}
+
+// A closed terminal (SIGHUP) stops the session safely, as Ctrl-C does: exit 4, the interruption and the safe stop
+// in the record (docs/safety.md).
+TEST(Safety, HangupStopsTheSessionSafely) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "20"});
+  const std::string dir = temp_dir();
+  process::ChildProcess tool(run_args(sim.port(), dir));
+  ASSERT_TRUE(wait_for_record(dir, "warm_up_started", std::chrono::seconds(30)));
+  tool.signal(SIGHUP);
+  const int rc = tool.wait();
+  EXPECT_EQ(rc, 4);
+  EXPECT_TRUE(wait_for_record(dir, "interrupted", std::chrono::seconds(1)));
+  EXPECT_TRUE(wait_for_record(dir, "safe_stop", std::chrono::seconds(1)));
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
+// Ctrl-C while the controller accepts the connection but never answers: an interruption (exit 4), not a fault.
+TEST(Safety, CtrlCDuringConnectIsAnInterruption) {
+  const int lfd = ::socket(AF_INET, SOCK_STREAM | SOCK_CLOEXEC, 0);
+  ASSERT_GE(lfd, 0);
+  sockaddr_in a{};
+  a.sin_family = AF_INET;
+  a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
+  ASSERT_EQ(::bind(lfd, reinterpret_cast<sockaddr*>(&a), sizeof a), 0);
+  ASSERT_EQ(::listen(lfd, 8), 0);  // the kernel completes the handshake; nobody ever reads or answers
+  socklen_t len = sizeof a;
+  ASSERT_EQ(::getsockname(lfd, reinterpret_cast<sockaddr*>(&a), &len), 0);
+  const std::string dir = temp_dir();
+  process::ChildProcess tool(run_args(ntohs(a.sin_port), dir));
+  ASSERT_TRUE(wait_for_record(dir, "session_started", std::chrono::seconds(30)));
+  std::this_thread::sleep_for(std::chrono::milliseconds(500));
+  tool.signal(SIGINT);
+  const int rc = tool.wait();
+  ::close(lfd);
+  EXPECT_EQ(rc, 4);
+  EXPECT_TRUE(wait_for_record(dir, "interrupted", std::chrono::seconds(1)));
+  if (!HasFailure()) fs::remove_all(dir);
 }

@@ -111,7 +111,10 @@ struct OpenWatch {
 };
 
 struct World {
-  std::string dir, root, sealed, approved, unfinished, cell_fp, reviewer_fp;
+  // sealed: the session's folder with its record signatures removed before it was sealed, so each row reaches
+  // the layer of verify it is about (the seal, its coverage, the cell log); signed: the folder as the session
+  // sealed it, every record signed with the cell's key (the rows that show the record signatures).
+  std::string dir, root, sealed, signed_sealed, approved, unfinished, cell_fp, reviewer_fp;
   std::size_t seal = 0, finished = 0, coastdown = 0, approval = 0, records = 0;
 };
 World* g = nullptr;
@@ -205,6 +208,34 @@ class Tamper : public ::testing::Test {
       std::string text = slurp(g->unfinished + "/events.jsonl");
       text.erase(text.rfind('\n', text.size() - 2) + 1);
       write(g->unfinished + "/events.jsonl", text);
+    }
+    ASSERT_EQ(run_command({kExe, "verify", g->sealed}, &out, &err), 0) << out << err;
+    ASSERT_NE(slurp(g->sealed + "/events.jsonl").find("\"record_signer\":"), std::string::npos)
+        << "a session of a cell with a key signs its records (docs/records.md)";
+
+    // The same records without their signatures, sealed with the cell's key: a sealed folder rests on its seal
+    // whatever its records carry, so the layered rows below run on this one.
+    g->signed_sealed = g->sealed;
+    g->sealed = g->dir + "/plain";
+    fs::copy(g->unfinished, g->sealed, fs::copy_options::recursive);
+    {
+      Log l(g->sealed + "/events.jsonl");
+      for (std::size_t i = 0; i < l.lines.size(); ++i) {
+        json j = l.at(i);
+        j.erase("sig");
+        j.erase("record_signer");
+        l.set(i, j);
+      }
+      l.relink(1);
+      l.save();
+      std::string e;
+      const auto key =
+          record::SigningKey::load(g->root + "/keys/" + record::cell_key_stem(kCell) + ".key.pem", e);
+      ASSERT_TRUE(key) << e;
+      record::SealInfo info;
+      ASSERT_TRUE(checks::seal_and_log(g->sealed, {kCell, summary_of(g->sealed), &*key, ""},
+                                       g->root + "/checks", "session", &info, e))
+          << e;
     }
     ASSERT_EQ(run_command({kExe, "verify", g->sealed}, &out, &err), 0) << out << err;
 
@@ -404,10 +435,17 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
        5,
        {"cut back", "first broken record: " + std::to_string(w.seal - 1), "file: events.jsonl"}},
       {"seal deleted, no cell log",
-       "sealed",
+       "signed",
        [&](const std::string& f) { drop_last(f, 1); },
        6,
        {"NOT FINISHED:"},
+       {"--no-cell-log"}},
+      // An unfinished folder of a cell with a key whose records carry no signatures: re-chained without the key.
+      {"seal deleted, records unsigned, no cell log",
+       "sealed",
+       [&](const std::string& f) { drop_last(f, 1); },
+       5,
+       {"the records are not signed, but cell \"" + kCell + "\" has a key", "first broken record: 0"},
        {"--no-cell-log"}},
       {"seal and summary.json deleted",
        "sealed",
@@ -426,7 +464,7 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
        5,
        {"cut back"}},
       {"finished, seal and summary.json deleted, no cell log",
-       "sealed",
+       "signed",
        [&](const std::string& f) {
          drop_last(f, w.seal - w.finished + 1);
          fs::remove(f + "/summary.json");
@@ -440,8 +478,8 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
        5,
        {"cut back"}},
       {"truncated at a line boundary, no cell log",
-       "approved",
-       [&](const std::string& f) { drop_last(f, 4); },
+       "signed",
+       [&](const std::string& f) { drop_last(f, 3); },
        6,
        {"NOT FINISHED:"},
        {"--no-cell-log"}},
@@ -731,6 +769,37 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
        },
        5,
        {"approves another seal", "first broken record: " + std::to_string(w.seal + 1)}},
+      // Record signatures (docs/records.md, "The chain"): without the cell's key, an altered record of a signed
+      // folder is named at once, whatever else the attacker recomputed.
+      {"signed folder: coast-down rewritten, links and chain head recomputed",
+       "signed",
+       [&](const std::string& f) {
+         Log l(f + "/events.jsonl");
+         json c = l.at(w.coastdown);
+         c["decision"]["kind"] = "accepted";
+         l.set(w.coastdown, c);
+         l.relink(w.coastdown + 1, true);
+         l.save();
+       },
+       5,
+       {"record " + C + "'s signature does not verify with the cell's key " + w.cell_fp,
+        "first broken record: " + C}},
+      {"signed folder: every signature stripped, links and chain head recomputed",
+       "signed",
+       [&](const std::string& f) {
+         Log l(f + "/events.jsonl");
+         for (std::size_t i = 0; i < w.seal; ++i) {
+           json j = l.at(i);
+           j.erase("sig");
+           j.erase("record_signer");
+           l.set(i, j);
+         }
+         l.relink(1, true);
+         l.save();
+       },
+       5,
+       {"signature of the seal (record " + S + ") does not verify"},
+       {"--no-cell-log"}},
       {"approval by a reviewer nobody registered",
        "sealed",
        [&](const std::string& f) { signed_approval(f, "Somebody Else", attacker_key(), ""); },
@@ -740,7 +809,10 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
 
   for (const auto& row : rows) {
     SCOPED_TRACE(row.name);
-    const std::string f = copy_of(row.base == "approved" ? w.approved : w.sealed, row.name);
+    const std::string f = copy_of(row.base == "approved" ? w.approved
+                                  : row.base == "signed"  ? w.signed_sealed
+                                                          : w.sealed,
+                                  row.name);
     const std::string beside = fs::path(f).parent_path().string();
     row.mutate(f);
     std::unique_ptr<OpenWatch> watch;
@@ -831,7 +903,8 @@ TEST_F(Tamper, CellLogRecordsTheSeal) {
       EXPECT_EQ(r.value("seal_seq", 0), static_cast<int>(g->seal));
       EXPECT_EQ(r.value("kind", ""), "session");
     }
-  EXPECT_EQ(seals, 1);
+  // The session's own seal, and the seal the suite made of its copy without record signatures.
+  EXPECT_EQ(seals, 2);
   // The cell's due view is not disturbed by seal records.
   EXPECT_TRUE(h.checks().empty());
 }

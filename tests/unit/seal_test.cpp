@@ -449,3 +449,15 @@ TEST(WriteDurable, FailuresLeaveNoTemporaryFile) {
   EXPECT_FALSE(fs::exists(dir + "/big.json"));
   fs::remove_all(dir);
 }
+
+// Two names that differ only in characters a file name cannot hold never share a key, a cell log or a history
+// (docs/records.md, Keys); a name that is already safe keeps its spelling (existing keys stay where they are).
+TEST(Seal, KeyStemsOfDifferentNamesNeverCollide) {
+  EXPECT_EQ(record::cell_key_stem("cell-1"), "cell-cell-1");
+  EXPECT_NE(record::cell_key_stem("sim cell (A)"), record::cell_key_stem("sim cell [A]"));
+  EXPECT_NE(record::reviewer_key_stem("A. Name"), record::reviewer_key_stem("A_ Name"));
+  // The suffix is the first 8 hex digits of SHA-256 of the name as written; the value is Python's
+  // hashlib.sha256(b"a(b)c").hexdigest()[:8], computed outside the project.
+  EXPECT_EQ(record::identity_name("abc"), "abc");
+  EXPECT_EQ(record::identity_name("a(b)c"), "a_b_c-456e6469");
+}
