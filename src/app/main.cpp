@@ -1,16 +1,41 @@
 // loadtrim: reproduce track road-load targets on a chassis dynamometer. Thin CLI over the libraries.
 #include <cstdlib>
 #include <exception>
+#include <filesystem>
 #include <iostream>
+#include <system_error>
 
 #include "app/exit_codes.hpp"
 #include "app/subcommands.hpp"
 #include "config/input_error.hpp"
 
 namespace loadtrim::app {
+namespace {
+// A folder holds loadtrim's data when it has the standard profiles.
+bool has_data(const std::filesystem::path& dir) {
+  std::error_code ec;
+  return std::filesystem::is_directory(dir / "config" / "profiles", ec);
+}
+}  // namespace
+
+// In order: LOADTRIM_HOME; the installed data beside this executable (<prefix>/bin/../share/loadtrim, so an
+// installed or unpacked package uses its own files even where a source tree exists); the source tree this
+// binary was built from (the build tree's layout has no share/ folder); the install data folder compiled in.
+// The result is computed once: the subcommands ask for it while registering their defaults.
 std::string data_dir() {
-  if (const char* home = std::getenv("LOADTRIM_HOME")) return home;
-  return LOADTRIM_SOURCE_DIR;
+  static const std::string dir = [] {
+    if (const char* home = std::getenv("LOADTRIM_HOME")) return std::string(home);
+    std::error_code ec;
+    const std::filesystem::path exe = std::filesystem::read_symlink("/proc/self/exe", ec);
+    if (!ec) {
+      const std::filesystem::path beside = (exe.parent_path() / LOADTRIM_DATA_FROM_BIN).lexically_normal();
+      if (has_data(beside)) return beside.string();
+    }
+    if (has_data(LOADTRIM_SOURCE_DIR)) return std::string(LOADTRIM_SOURCE_DIR);
+    if (has_data(LOADTRIM_INSTALL_DATA_DIR)) return std::string(LOADTRIM_INSTALL_DATA_DIR);
+    return std::string(LOADTRIM_SOURCE_DIR);  // nothing found: errors name the source path, as before
+  }();
+  return dir;
 }
 }  // namespace loadtrim::app
 

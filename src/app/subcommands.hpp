@@ -7,7 +7,8 @@
 
 namespace loadtrim::app {
 
-// Where the project's config/ and samples/ are (the source tree unless overridden by LOADTRIM_HOME).
+// Where the project's config/ and samples/ are: LOADTRIM_HOME, else the installed share/loadtrim beside the
+// executable, else the source tree it was built from (main.cpp says the order and why).
 std::string data_dir();
 
 using Runner = std::function<int()>;

@@ -1,0 +1,155 @@
+// First-setting strategies (core/strategy.hpp): the loss map (a quadratic through hold points), the fleet
+// loss model (straight lines in test mass fitted to EPA rows) and the history, each against a reference
+// outside loadtrim: exact interpolation by hand, exact data on known lines, and numpy on the public EPA
+// extract in samples/data.
+#include "core/strategy.hpp"
+
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <vector>
+
+#include "config/epa_csv.hpp"
+
+using namespace loadtrim;
+using core::AxleLayout;
+using core::RoadLoad;
+
+TEST(Strategy, NamesRoundTrip) {
+  // The four names the CLI offers for --first-setting (loadtrim demo/run --help: standard, fleet, loss-map,
+  // history) and nothing else.
+  for (const char* name : {"standard", "fleet", "loss-map", "history"}) {
+    core::FirstSetting f{};
+    ASSERT_TRUE(core::parse(name, f)) << name;
+    EXPECT_STREQ(core::to_string(f), name);
+  }
+  core::FirstSetting f = core::FirstSetting::fleet;
+  EXPECT_FALSE(core::parse("loss_map", f));
+  EXPECT_FALSE(core::parse("", f));
+  EXPECT_EQ(f, core::FirstSetting::fleet);  // a refused name leaves the value alone
+}
+
+TEST(Strategy, LossMapThroughThreeExactPointsIsTheInterpolatingQuadratic) {
+  // Three hold points determine the quadratic uniquely. Solved by hand (Lagrange interpolation, exact
+  // fractions) for (20 km/h, 80 N), (70, 150), (130, 400): f0 = 2878/33, f1 = −19/22, f2 = 83/3300;
+  // np.polyfit([20, 70, 130], [80, 150, 400], 2) gives the same (8.721212121212153e+01,
+  // −8.636363636363695e−01, 2.515151515151521e−02).
+  const std::vector<core::HoldPoint> pts = {{20, 80, 0.5, 500}, {70, 150, 0.5, 500}, {130, 400, 0.5, 500}};
+  const auto fit = core::fit_loss_map(pts);
+  ASSERT_TRUE(fit.ok) << fit.message;
+  EXPECT_NEAR(fit.coefficients.f0_n, 2878.0 / 33.0, 1e-9);
+  EXPECT_NEAR(fit.coefficients.f1_n_per_kmh, -19.0 / 22.0, 1e-11);
+  EXPECT_NEAR(fit.coefficients.f2_n_per_kmh2, 83.0 / 3300.0, 1e-13);
+}
+
+TEST(Strategy, LossMapOverFiveSpeedsIsTheLeastSquaresQuadratic) {
+  // The profile's default loss-map speeds (130, 100, 70, 40, 20 km/h) with forces that lie on no quadratic;
+  // the reference is np.polyfit([130, 100, 70, 40, 20], [455, 301, 203, 131, 97], 2), run once with
+  // numpy 1.24: f2 = 2.0127729214066165e−02, f1 = 1.8495988504370775e−01, f0 = 8.8019438789765644e+01.
+  const std::vector<core::HoldPoint> pts = {
+      {130, 455, 1, 500}, {100, 301, 1, 500}, {70, 203, 1, 500}, {40, 131, 1, 500}, {20, 97, 1, 500}};
+  const auto fit = core::fit_loss_map(pts);
+  ASSERT_TRUE(fit.ok) << fit.message;
+  EXPECT_NEAR(fit.coefficients.f0_n, 8.8019438789765644e+01, 1e-9);
+  EXPECT_NEAR(fit.coefficients.f1_n_per_kmh, 1.8495988504370775e-01, 1e-11);
+  EXPECT_NEAR(fit.coefficients.f2_n_per_kmh2, 2.0127729214066165e-02, 1e-13);
+}
+
+namespace {
+// Rows whose loss is exactly on a known line in test mass: loss(TM) = at0 + TM·slope.
+core::FleetRow exact_row(double tm, AxleLayout layout, const RoadLoad& at0, const RoadLoad& slope) {
+  const RoadLoad target{120.0 + 0.05 * tm, 1.0, 0.035};
+  return {tm, layout, target, target - (at0 + slope.scaled(tm))};
+}
+void expect_load_near(const RoadLoad& a, const RoadLoad& b, double rel) {
+  EXPECT_NEAR(a.f0_n, b.f0_n, rel * std::max(1.0, std::abs(b.f0_n)));
+  EXPECT_NEAR(a.f1_n_per_kmh, b.f1_n_per_kmh, rel * std::max(1e-3, std::abs(b.f1_n_per_kmh)));
+  EXPECT_NEAR(a.f2_n_per_kmh2, b.f2_n_per_kmh2, rel * std::max(1e-5, std::abs(b.f2_n_per_kmh2)));
+}
+}  // namespace
+
+TEST(Strategy, FleetLossLinesFromExactRowsAndTheScreeningRule) {
+  // Least squares on points that lie exactly on a line returns that line. Rows whose loss at 20 or 130 km/h
+  // is outside 0–600 N are screened out (header; entry errors in the EPA data, samples/data/README.md): the
+  // two outliers below would pull the lines far off if they were used.
+  const RoadLoad single0{50.0, -0.8, 0.005}, single_k{0.03, 0.0006, -2e-6};
+  const RoadLoad two0{60.0, 1.1, -0.005}, two_k{0.06, -0.0003, 3e-6};
+  std::vector<core::FleetRow> rows;
+  for (int i = 0; i < 12; ++i)
+    rows.push_back(exact_row(1000.0 + 150.0 * i, AxleLayout::single_axle, single0, single_k));
+  for (int i = 0; i < 11; ++i)
+    rows.push_back(exact_row(1400.0 + 120.0 * i, AxleLayout::two_axle, two0, two_k));
+  const RoadLoad t{200, 1, 0.03};
+  rows.push_back({1500.0, AxleLayout::single_axle, t, t + RoadLoad{50, 0, 0}});  // loss −50 N: negative
+  rows.push_back({1500.0, AxleLayout::two_axle, t, t - RoadLoad{0, 0, 0.05}});  // 845 N at 130 km/h: too high
+  const auto m = core::fit_fleet_loss(rows);
+  EXPECT_EQ(m.single_axle.rows, 12);
+  EXPECT_EQ(m.two_axle.rows, 11);
+  EXPECT_TRUE(m.ok());
+  expect_load_near(m.single_axle.at_zero_kg, single0, 1e-7);
+  expect_load_near(m.single_axle.per_kg, single_k, 1e-7);
+  expect_load_near(m.two_axle.at_zero_kg, two0, 1e-7);
+  expect_load_near(m.two_axle.per_kg, two_k, 1e-7);
+  expect_load_near(m.estimate(1800.0, AxleLayout::two_axle), two0 + two_k.scaled(1800.0), 1e-7);
+
+  // With fewer than ten two-axle rows the two-axle estimate falls back to the single-axle line (header
+  // contract); with fewer than ten single-axle rows the model is not usable.
+  rows.erase(rows.begin() + 12, rows.begin() + 14);
+  const auto few = core::fit_fleet_loss(rows);
+  EXPECT_EQ(few.two_axle.rows, 9);
+  expect_load_near(few.estimate(1800.0, AxleLayout::two_axle), single0 + single_k.scaled(1800.0), 1e-7);
+  rows.erase(rows.begin(), rows.begin() + 3);
+  EXPECT_FALSE(core::fit_fleet_loss(rows).ok());
+}
+
+TEST(Strategy, FleetLossModelOfTheEpaExtractMatchesNumpy) {
+  // The public EPA extract (samples/data, 3485 rows). Reference computed once with numpy 1.24: csv.DictReader
+  // over the file, loss = target_* − set_* (SI columns), rows dropped when the loss at 20 or 130 km/h is
+  // outside 0–600 N, drive codes F/R single axle and all others two axle (as `loadtrim run` maps them,
+  // app/session_runner.cpp load_fleet), then np.polyfit(etw_kg, loss_c, 1) per coefficient:
+  //   single axle, 3069 rows: intercept (56.75632323558945, −0.8340154471639946, 0.005163029750750922)
+  //                           slope (0.02758078850964422, 0.0005898962271224815, −2.2878931099171245e−06)
+  //   two axle, 360 rows:     intercept (63.539395896150516, 1.1170868809927548, −0.005572899541863091)
+  //                           slope (0.05787184587734525, −0.00034580425126235924, 3.4161173441222815e−06)
+  //   estimate at TM 1500 kg, single axle: (98.12750600005577, 0.05082889351972775, 0.001731190085875235)
+  const auto f = config::read_epa_csv(std::string(LOADTRIM_SOURCE_DIR) +
+                                      "/samples/data/epa_test_car_roadload_MY2016_2019.csv");
+  ASSERT_EQ(f.rows.size(), 3485u);
+  std::vector<core::FleetRow> rows;
+  for (const auto& r : f.rows)
+    rows.push_back(
+        {r.etw_kg,
+         r.drive_code == "F" || r.drive_code == "R" ? AxleLayout::single_axle : AxleLayout::two_axle,
+         r.target, r.set});
+  const auto m = core::fit_fleet_loss(rows);
+  ASSERT_TRUE(m.ok());
+  EXPECT_EQ(m.single_axle.rows, 3069);
+  EXPECT_EQ(m.two_axle.rows, 360);
+  expect_load_near(m.single_axle.at_zero_kg, {56.75632323558945, -0.8340154471639946, 0.005163029750750922},
+                   1e-8);
+  expect_load_near(m.single_axle.per_kg,
+                   {0.02758078850964422, 0.0005898962271224815, -2.2878931099171245e-06}, 1e-8);
+  expect_load_near(m.two_axle.at_zero_kg, {63.539395896150516, 1.1170868809927548, -0.005572899541863091},
+                   1e-8);
+  expect_load_near(m.two_axle.per_kg, {0.05787184587734525, -0.00034580425126235924, 3.4161173441222815e-06},
+                   1e-8);
+  expect_load_near(m.estimate(1500.0, AxleLayout::single_axle),
+                   {98.12750600005577, 0.05082889351972775, 0.001731190085875235}, 1e-8);
+}
+
+TEST(Strategy, SettingFromALossAndFromHistory) {
+  // Set = target − loss (header: "the dyno adds what the vehicle does not take itself"); a history entry's
+  // loss is target − accepted set, so the same target with the recorded loss gives back the accepted set
+  // (algebra), and a heavier target carries the same loss over. Numbers invented for the test.
+  const RoadLoad target{140.0, 0.9, 0.036}, loss{80.0, 0.7, 0.004};
+  const RoadLoad set = core::setting_for_loss(target, loss);
+  EXPECT_DOUBLE_EQ(set.f0_n, 60.0);
+  EXPECT_NEAR(set.f1_n_per_kmh, 0.2, 1e-15);
+  EXPECT_NEAR(set.f2_n_per_kmh2, 0.032, 1e-15);
+  for (double v : {20.0, 80.0, 130.0})
+    EXPECT_NEAR(set.force_n(v), target.force_n(v) - loss.force_n(v), 1e-12);
+  const core::HistoryEntry h{"2026-01-01T00:00:00Z", target, set};
+  EXPECT_NEAR(h.loss().f0_n, loss.f0_n, 1e-12);
+  EXPECT_NEAR(h.loss().f1_n_per_kmh, loss.f1_n_per_kmh, 1e-15);
+  EXPECT_NEAR(h.loss().f2_n_per_kmh2, loss.f2_n_per_kmh2, 1e-15);
+}
