@@ -7,6 +7,7 @@
 #include <unistd.h>
 
 #include <algorithm>
+#include <cstring>
 #include <filesystem>
 #include <vector>
 
@@ -20,8 +21,9 @@ namespace fs = std::filesystem;
 namespace {
 
 // One name for one host however the cell file spells it ("localhost", "127.0.0.1", "127.000.000.001"): the
-// numerically smallest address it resolves to, and every loopback address as "loopback" (a server on 127.0.0.1
-// is also reached as ::1's name). A name that does not resolve keeps its spelling (the connect fails anyway).
+// first, in byte order of its text, of the addresses it resolves to, and every loopback address as "loopback"
+// (a server on 127.0.0.1 is also reached as ::1's name). A name that does not resolve keeps its spelling (the
+// connect fails anyway).
 std::string host_key(const std::string& host) {
   addrinfo hints{};
   hints.ai_family = AF_UNSPEC;
@@ -39,7 +41,14 @@ std::string host_key(const std::string& host) {
     } else if (a->ai_family == AF_INET6) {
       const auto* in6 = reinterpret_cast<const sockaddr_in6*>(a->ai_addr);
       if (IN6_IS_ADDR_LOOPBACK(&in6->sin6_addr)) loopback = true;
-      ::inet_ntop(AF_INET6, &in6->sin6_addr, buf, sizeof buf);
+      if (IN6_IS_ADDR_V4MAPPED(&in6->sin6_addr)) {  // ::ffff:a.b.c.d is a.b.c.d
+        in_addr v4{};
+        std::memcpy(&v4, &in6->sin6_addr.s6_addr[12], 4);
+        if ((ntohl(v4.s_addr) >> 24) == 127) loopback = true;
+        ::inet_ntop(AF_INET, &v4, buf, sizeof buf);
+      } else {
+        ::inet_ntop(AF_INET6, &in6->sin6_addr, buf, sizeof buf);
+      }
     }
     if (*buf) found.emplace_back(buf);
   }

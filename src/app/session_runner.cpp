@@ -245,8 +245,13 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     return kRecordFailure;
   }
   // Every record signed with the cell's key, so an unfinished folder cannot be changed and re-chained by
-  // someone without it (docs/records.md). A folder begun unsigned stays unsigned.
-  writer.log().set_signer(key);
+  // someone without it (docs/records.md). A folder begun unsigned is never continued by a cell with a key
+  // (resume refuses it first).
+  if (!writer.log().set_signer(key)) {
+    std::cerr
+        << "loadtrim: record failure: the folder's records are not signed, but the cell now has a key\n";
+    return kRecordFailure;
+  }
   session::Console console(req.console);
   std::unique_ptr<controller::Controller> c =
       req.inprocess_truth ? adapters::make_inprocess_controller(inputs.cell, *req.inprocess_truth)
@@ -356,6 +361,11 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   session::RecordWriter writer(folder);
   if (!writer.ok()) {
     std::cerr << "loadtrim: " << writer.error() << "\n";
+    return kRecordFailure;
+  }
+  if (!writer.log().set_signer(key)) {
+    std::cerr
+        << "loadtrim: record failure: the folder's records are not signed, but the cell now has a key\n";
     return kRecordFailure;
   }
   bool stopped = false;
@@ -574,9 +584,10 @@ int run_new_session(const RunRequest& request, std::string* folder_out) {
   if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
   if (!cell_log_intact(req, l.inputs.cell)) return kRecordFailure;
   if (!key && !req.simulator)
-    std::cerr << "loadtrim: note: cell \"" << l.inputs.cell.name
-              << "\" has no signing key: its folders are sealed unsigned and an unfinished one can be altered "
-                 "unnoticed (loadtrim keys create --cell ...; docs/records.md)\n";
+    std::cerr
+        << "loadtrim: note: cell \"" << l.inputs.cell.name
+        << "\" has no signing key: its folders are sealed unsigned and an unfinished one can be altered "
+           "unnoticed (loadtrim keys create --cell ...; docs/records.md)\n";
   bool refuse = false;
   const nlohmann::json gate = dyno_check_gate(req, l.inputs.cell, refuse);
   if (refuse) return kBadInput;
@@ -684,6 +695,21 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
   std::optional<record::SigningKey> key;
   if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
   if (!cell_log_intact(req, l.inputs.cell)) return kRecordFailure;
+  // The folder's own first record names the cell its inputs describe, and a cell with a key signed every
+  // record: else the folder was re-chained without the key (or begun before the cell had one) and resuming it
+  // would put the cell's signature on records nobody can vouch for.
+  if (verdict.cell != l.inputs.cell.name) {
+    std::cerr << "loadtrim: refusing to resume " << folder << ": its first record names cell \""
+              << verdict.cell << "\", its inputs/cell.toml cell \"" << l.inputs.cell.name << "\"\n";
+    return kRecordFailure;
+  }
+  if (key && (!verdict.records_signed || verdict.records_signer != key->fingerprint())) {
+    std::cerr << "loadtrim: refusing to resume " << folder << ": cell \"" << l.inputs.cell.name
+              << "\" signs with " << key->fingerprint() << ", but the folder's records are "
+              << (verdict.records_signed ? "signed by " + verdict.records_signer : std::string("not signed"))
+              << "\n";
+    return kRecordFailure;
+  }
   std::optional<record::FileLock> cell_lock, folder_lock;
   std::string lock_msg;
   if (!lock_folder(folder, "resume", folder_lock, lock_msg) ||

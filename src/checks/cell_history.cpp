@@ -5,9 +5,11 @@
 #include <cstdio>
 #include <ctime>
 #include <filesystem>
+#include <fstream>
 
 #include "record/event_log.hpp"
 #include "record/session_folder.hpp"
+#include "record/sha256.hpp"
 
 namespace loadtrim::checks {
 
@@ -119,8 +121,24 @@ bool seal_and_log(const std::string& folder, const record::SealRequest& request,
   record::SealInfo local;
   record::SealInfo& s = info ? *info : local;
   s = {};
-  if (!record::seal_folder(folder, request, &s, error)) return false;
   CellHistory h(checks_root, request.cell);
+  // One seal per folder identity: a copy of an unfinished folder, finished on its own, is refused rather than
+  // sealed beside (and so breaking) the folder it was copied from.
+  {
+    std::ifstream in((std::filesystem::path(folder) / "events.jsonl").string(), std::ios::binary);
+    std::string first;
+    if (std::getline(in, first)) {
+      const std::string origin = record::sha256_hex(first);
+      for (const auto& r : h.records())
+        if (r.value("type", "") == "seal" && r.value("origin", "") == origin) {
+          error = "the cell log already holds a seal for this folder's origin (record " +
+                  std::to_string(r.value("seq", 0)) + ", folder " + r.value("folder", "?") +
+                  "): this folder is a copy of one already finished; it is not sealed";
+          return false;
+        }
+    }
+  }
+  if (!record::seal_folder(folder, request, &s, error)) return false;
   if (!h.append_seal(s, kind, record::utc_now())) {
     error = "the folder " + s.folder + " is sealed, but the seal could not be added to the cell log " +
             h.log_path() + ": " + h.error();

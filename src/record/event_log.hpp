@@ -7,9 +7,9 @@
 //
 // Record signatures (docs/records.md). With a signer set, every record's line ends with
 // ,"sig":"<128 hex>"} where the signature is Ed25519 over kRecordSigDomain + the line without that member
-// (the same text with the ,"sig":"..." cut out, ending in '}'); record 0 also names the signer's fingerprint in
-// "record_signer". So an unfinished folder of a cell with a key cannot be changed and re-chained by someone
-// without the key: the hash chain alone only shows accidents.
+// (the same text with the ,"sig":"..." cut out, ending in '}'); record 0 also names the signer's fingerprint
+// in "record_signer". So an unfinished folder of a cell with a key cannot be changed and re-chained by
+// someone without the key: the hash chain alone only shows accidents.
 #pragma once
 
 #include <nlohmann/json.hpp>

@@ -337,19 +337,21 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
                           logged.utc + ") records it sealed at record " + std::to_string(logged.seal_seq) +
                           ", but it now ends at record " + std::to_string(v.records - 1) + " with no seal",
                       static_cast<std::int64_t>(v.records - 1), "events.jsonl");
-      // No link, FIFO or device anywhere in it, sealed or not (a resumed session would otherwise run to the end
-      // before the seal refuses it).
+      // No link, FIFO or device anywhere in it, sealed or not (a resumed session would otherwise run to the
+      // end before the seal refuses it).
       const FolderListing listing = list_inside(folder);
       if (!listing.ok) return broken(listing.error, -1, listing.offending);
       // A cell with a trusted key signs its records: an unsigned unfinished folder of such a cell was
-      // re-chained by someone without the key (or started before the cell had one: either way, not resumable).
+      // re-chained by someone without the key (or started before the cell had one: either way, not
+      // resumable).
       if (!v.records_signed && !opt.keys_dir.empty()) {
         std::error_code ec;
         const std::string pub = (fs::path(opt.keys_dir) / (cell_key_stem(v.cell) + ".pub.pem")).string();
         if (!v.cell.empty() && fs::exists(pub, ec))
-          return broken("the records are not signed, but cell \"" + v.cell + "\" has a key (" + pub +
-                            "): the folder was re-chained without the key, or started before the cell had one",
-                        0, "events.jsonl");
+          return broken(
+              "the records are not signed, but cell \"" + v.cell + "\" has a key (" + pub +
+                  "): the folder was re-chained without the key, or started before the cell had one",
+              0, "events.jsonl");
       }
       v.outcome = Outcome::not_finished;
       v.message = summary_counts + "; no seal: the session or check did not finish (or is still running)";

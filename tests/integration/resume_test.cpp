@@ -7,9 +7,9 @@
 #include <gtest/gtest.h>
 
 #include <csignal>
-#include <functional>
 #include <filesystem>
 #include <fstream>
+#include <functional>
 #include <map>
 #include <thread>
 
@@ -316,7 +316,8 @@ TEST(Resume, TwoKilledResumesNameTheDiscardedRunOnce) {
 namespace {
 // A session of a cell with a signing key, killed (-9) after its first coast-down was recorded: the folder an
 // attacker without the key finds. Returns the folder; `lab` is its data root.
-std::string killed_signed_session(const std::string& dir, const std::string& lab, unsigned port) {
+std::string killed_signed_session(const std::string& dir, const std::string& lab, unsigned port,
+                                  const std::string& freeze_at = "coastdown") {
   std::string out, err;
   if (process::run_command({kExe, "keys", "create", "--cell", "sim-cell-tcp (invented)", "--data-dir", lab},
                            &out, &err) != 0)
@@ -327,13 +328,13 @@ std::string killed_signed_session(const std::string& dir, const std::string& lab
   std::string cell((std::istreambuf_iterator<char>(in)), {});
   cell += "\n[records]\npublic_key = \"" + out.substr(at + 13, 71) + "\"\n";
   std::ofstream(dir + "/keyed.toml") << cell;
-  std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=coastdown"};
+  std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=" + freeze_at};
   auto args = run_args(port, dir + "/s");
   args[5] = dir + "/keyed.toml";
   args.insert(args.end(), {"--data-dir", lab});
   argv.insert(argv.end(), args.begin(), args.end());
   process::ChildProcess first(argv);
-  const bool ok = wait_logged(dir + "/s", "coastdown", std::chrono::seconds(120));
+  const bool ok = wait_logged(dir + "/s", freeze_at, std::chrono::seconds(120));
   first.signal(SIGKILL);
   first.wait();
   return ok ? only_folder(dir + "/s") : "";
@@ -356,9 +357,9 @@ void rechain(const std::string& folder, const std::function<void(std::vector<nlo
 
 int resume(const std::string& folder, const std::string& lab, std::string& err) {
   std::string out;
-  return process::run_command({kExe, "resume", folder, "--unattended", "--quiet", "--override-checks",
-                               kOverride, "--data-dir", lab},
-                              &out, &err);
+  return process::run_command(
+      {kExe, "resume", folder, "--unattended", "--quiet", "--override-checks", kOverride, "--data-dir", lab},
+      &out, &err);
 }
 }  // namespace
 
@@ -407,11 +408,47 @@ TEST(Resume, AFolderAlteredWithoutTheCellsKeyIsRefused) {
   });
   EXPECT_EQ(resume(stripped, lab, err), 5) << err;
   EXPECT_NE(err.find("the records are not signed, but cell"), std::string::npos) << err;
-  // 4. The untouched folder resumes and ends sealed, signed and verified.
+  // 4. Signatures stripped and record 0 renamed to a cell without a key: its inputs name another cell.
+  const std::string renamed = copy("renamed");
+  rechain(renamed, [](auto& recs) {
+    for (auto& r : recs) {
+      r.erase("sig");
+      r.erase("record_signer");
+    }
+    recs.front()["cell"] = "a cell without a key";
+  });
+  EXPECT_EQ(resume(renamed, lab, err), 5) << err;
+  EXPECT_NE(err.find("its first record names cell \"a cell without a key\""), std::string::npos) << err;
+  // 5. A copy of the folder, resumed after the original was finished, is refused (checked below).
+  const std::string twin = copy("twin");
+  // 6. The untouched folder resumes and ends sealed, signed and verified.
   const std::string honest = copy("honest");
   EXPECT_EQ(resume(honest, lab, err), 0) << err;
   std::string out;
   EXPECT_EQ(process::run_command({kExe, "verify", honest, "--data-dir", lab}, &out, &err), 0) << out << err;
+  EXPECT_EQ(resume(twin, lab, err), 5) << err;
+  // verify finds the origin sealed in the cell log: the copy reads as cut back (seal_and_log also refuses a
+  // second seal of one origin).
+  EXPECT_NE(err.find("the folder was cut back"), std::string::npos) << err;
+  EXPECT_EQ(process::run_command({kExe, "verify", honest, "--data-dir", lab}, &out, &err), 0) << out << err;
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
+// A signed session killed after its verdict was recorded is finalised without motoring, its last records
+// signed like the others, and its folder verifies as signed by the cell's key (issue 14: resume never changes
+// a result).
+TEST(Resume, ASignedFolderKilledAfterItsVerdictIsFinalisedSigned) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
+  const std::string dir = temp_dir(), lab = dir + "/lab";
+  const std::string folder = killed_signed_session(dir, lab, sim.port(), "state:safe_stop");
+  ASSERT_FALSE(folder.empty());
+  std::string err, out;
+  EXPECT_EQ(resume(folder, lab, err), 0) << err;
+  EXPECT_EQ(process::run_command({kExe, "verify", folder, "--data-dir", lab}, &out, &err), 0) << out << err;
+  int unsigned_records = 0;
+  for (const auto& r : records_of(folder))
+    if (r.value("type", "") != "seal" && !r.contains("sig")) ++unsigned_records;
+  EXPECT_EQ(unsigned_records, 0);
   if (!HasFailure()) fs::remove_all(dir);
 }
 
@@ -456,8 +493,8 @@ TEST(Resume, AMissingFieldALinkOrADamagedCellLogIsRefusedBeforeAnythingMoves) {
   EXPECT_NE(err.find("traces/run-009.csv"), std::string::npos) << err;
   EXPECT_EQ(records_of(linked).size(), before);
 
-  const std::string logdir = lab + "/checks/sim-cell-tcp__invented_-" +
-                             record::sha256_hex("sim-cell-tcp (invented)").substr(0, 8);
+  const std::string logdir =
+      lab + "/checks/sim-cell-tcp__invented_-" + record::sha256_hex("sim-cell-tcp (invented)").substr(0, 8);
   fs::create_directories(logdir);
   std::ofstream(logdir + "/cell-log.jsonl", std::ios::app) << "{\"junk\":1}\n";
   auto args = run_args(sim.port(), dir + "/s2");

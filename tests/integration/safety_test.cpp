@@ -2,8 +2,8 @@
 // controller's watchdog stop the rollers; one session per cell and one process per folder, with stale locks
 // after kill -9 recognised. Against the simulated controller on loopback; the bounds are the project's own
 // (common practice, no source).
-#include <gtest/gtest.h>
 #include <arpa/inet.h>
+#include <gtest/gtest.h>
 #include <netinet/in.h>
 #include <sys/socket.h>
 #include <sys/wait.h>
@@ -125,7 +125,8 @@ TEST(Safety, OneSessionPerCellAndOneProcessPerFolder) {
                             &out, &err);
   EXPECT_EQ(rc, 2) << err;
   EXPECT_NE(err.find("cell busy"), std::string::npos) << err;
-  // The same controller spelled another way in another cell file ("localhost" for 127.0.0.1) is the same cell.
+  // The same controller spelled another way in another cell file ("localhost" for 127.0.0.1) is the same
+  // cell.
   {
     std::ifstream in(kSrc + "/config/cells/sim-tcp.toml");
     std::string cell((std::istreambuf_iterator<char>(in)), {});
@@ -159,8 +160,8 @@ TEST(Safety, OneSessionPerCellAndOneProcessPerFolder) {
   }
 }
 
-// A closed terminal (SIGHUP) stops the session safely, as Ctrl-C does: exit 4, the interruption and the safe stop
-// in the record (docs/safety.md).
+// A closed terminal (SIGHUP) stops the session safely, as Ctrl-C does: exit 4, the interruption and the safe
+// stop in the record (docs/safety.md).
 TEST(Safety, HangupStopsTheSessionSafely) {
   loadtrim::testing::SimProcess sim({"--time-scale", "20"});
   const std::string dir = temp_dir();
@@ -174,7 +175,8 @@ TEST(Safety, HangupStopsTheSessionSafely) {
   if (!HasFailure()) fs::remove_all(dir);
 }
 
-// Ctrl-C while the controller accepts the connection but never answers: an interruption (exit 4), not a fault.
+// Ctrl-C while the controller accepts the connection but never answers: an interruption (exit 4), not a
+// fault.
 TEST(Safety, CtrlCDuringConnectIsAnInterruption) {
   const int lfd = ::socket(AF_INET, SOCK_STREAM | SOCK_CLOEXEC, 0);
   ASSERT_GE(lfd, 0);

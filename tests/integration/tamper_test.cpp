@@ -213,8 +213,8 @@ class Tamper : public ::testing::Test {
     ASSERT_NE(slurp(g->sealed + "/events.jsonl").find("\"record_signer\":"), std::string::npos)
         << "a session of a cell with a key signs its records (docs/records.md)";
 
-    // The same records without their signatures, sealed with the cell's key: a sealed folder rests on its seal
-    // whatever its records carry, so the layered rows below run on this one.
+    // The same records without their signatures, sealed with the cell's key: a sealed folder rests on its
+    // seal whatever its records carry, so the layered rows below run on this one.
     g->signed_sealed = g->sealed;
     g->sealed = g->dir + "/plain";
     fs::copy(g->unfinished, g->sealed, fs::copy_options::recursive);
@@ -440,7 +440,8 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
        6,
        {"NOT FINISHED:"},
        {"--no-cell-log"}},
-      // An unfinished folder of a cell with a key whose records carry no signatures: re-chained without the key.
+      // An unfinished folder of a cell with a key whose records carry no signatures: re-chained without the
+      // key.
       {"seal deleted, records unsigned, no cell log",
        "sealed",
        [&](const std::string& f) { drop_last(f, 1); },
@@ -769,8 +770,8 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
        },
        5,
        {"approves another seal", "first broken record: " + std::to_string(w.seal + 1)}},
-      // Record signatures (docs/records.md, "The chain"): without the cell's key, an altered record of a signed
-      // folder is named at once, whatever else the attacker recomputed.
+      // Record signatures (docs/records.md, "The chain"): without the cell's key, an altered record of a
+      // signed folder is named at once, whatever else the attacker recomputed.
       {"signed folder: coast-down rewritten, links and chain head recomputed",
        "signed",
        [&](const std::string& f) {
@@ -810,8 +811,8 @@ TEST_F(Tamper, EveryTamperIsDetectedAndNamed) {
   for (const auto& row : rows) {
     SCOPED_TRACE(row.name);
     const std::string f = copy_of(row.base == "approved" ? w.approved
-                                  : row.base == "signed"  ? w.signed_sealed
-                                                          : w.sealed,
+                                  : row.base == "signed" ? w.signed_sealed
+                                                         : w.sealed,
                                   row.name);
     const std::string beside = fs::path(f).parent_path().string();
     row.mutate(f);

@@ -451,7 +451,8 @@ TEST(WriteDurable, FailuresLeaveNoTemporaryFile) {
 }
 
 // Two names that differ only in characters a file name cannot hold never share a key, a cell log or a history
-// (docs/records.md, Keys); a name that is already safe keeps its spelling (existing keys stay where they are).
+// (docs/records.md, Keys); a name that is already safe keeps its spelling (existing keys stay where they
+// are).
 TEST(Seal, KeyStemsOfDifferentNamesNeverCollide) {
   EXPECT_EQ(record::cell_key_stem("cell-1"), "cell-cell-1");
   EXPECT_NE(record::cell_key_stem("sim cell (A)"), record::cell_key_stem("sim cell [A]"));
