@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <chrono>
 #include <cmath>
+#include <cstdio>
 #include <filesystem>
 #include <fstream>
 #include <functional>
@@ -102,9 +103,8 @@ class Procedure {
     const auto d = observers_.deliver(e, [this](bool) { c_.lease(req_.cell.timeouts.progress_grace); });
     for (const auto& why : d.dropped) {
       std::fprintf(stderr, "loadtrim: %s\n", why.c_str());
-      if (!log_.append("observer_dropped", session::to_json(session::Payload{ev::ObserverDropped{why}}),
-                       record::utc_now()))
-        return false;
+      const session::Payload dropped = ev::ObserverDropped{why};
+      if (!log_.append(session::type_of(dropped), session::to_json(dropped), record::utc_now())) return false;
     }
     // A view that calls itself critical is still a view here: the check's record is its log.
     return true;

@@ -7,7 +7,10 @@
 #include "session/events.hpp"
 
 #include <gtest/gtest.h>
+#include <stdlib.h>
 
+#include <algorithm>
+#include <filesystem>
 #include <fstream>
 #include <map>
 #include <regex>
@@ -15,7 +18,12 @@
 #include <sstream>
 #include <stdexcept>
 
+#include "checks/check_runner.hpp"
+#include "config/cell_loader.hpp"
+#include "config/loaders.hpp"
+#include "record/event_log.hpp"
 #include "session/resume.hpp"
+#include "support/fake_controller.hpp"
 
 using namespace loadtrim;
 using namespace loadtrim::session;
@@ -392,4 +400,54 @@ TEST(Events, AFailingRecordHidesTheEventFromTheViews) {
   EXPECT_EQ(d.critical_error, "scripted failure");
   EXPECT_TRUE(d.dropped.empty()) << "the record is never dropped";
   EXPECT_EQ(view.calls, 0) << "nothing is shown that the record does not hold";
+}
+
+// The dyno checks emit their steps as the same typed events: a view sees each step after its record, and a
+// view that fails is dropped (stderr and an "observer_dropped" record) without ending the check. The
+// base-inertia check on the empty rollers of the scripted fake controller (no process).
+namespace {
+class Steps : public Observer {
+ public:
+  explicit Steps(std::string fail_on = "") : fail_on_(std::move(fail_on)) {}
+  bool on_event(const Event& e) override {
+    types.push_back(type_of(e));
+    return fail_on_.empty() || types.back() != fail_on_;
+  }
+  std::vector<std::string> types;
+
+ private:
+  std::string fail_on_;
+};
+}  // namespace
+
+TEST(Events, TheDynoChecksShowTheirStepsToObservers) {
+  physics::Truth truth = loadtrim::testing::demo_truth();
+  truth.vehicle_on_rollers = false;
+  loadtrim::testing::FakeController c(truth);
+  std::string dir = (std::filesystem::temp_directory_path() / "loadtrim-check-events-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  checks::CheckRequest req;
+  req.kind = core::CheckKind::inertia;
+  req.cell_file = kSrc + "/config/cells/sim-tcp.toml";
+  req.cell = config::load_cell(req.cell_file);
+  req.profile_file = kSrc + "/config/checks/cfr1066.toml";
+  req.profile = config::load_check_profile(req.profile_file);
+  req.checks_root = dir;
+  req.confirmation = "unit test: no rollers";
+  Steps view, says_no("identified");
+  req.observers = {&view, &says_no};
+  const checks::CheckResult r = checks::run_check(c, req);
+  EXPECT_TRUE(r.end == checks::CheckResult::End::passed || r.end == checks::CheckResult::End::failed)
+      << checks::to_string(r.end) << ": " << r.verdict;
+  const std::vector<std::string> want = {"check_started", "identified", "force_applied", "analysed",
+                                         "check_finished"};
+  EXPECT_EQ(view.types, want);
+  EXPECT_EQ(says_no.types, std::vector<std::string>({"check_started", "identified"}));
+  std::vector<nlohmann::json> recs;
+  ASSERT_TRUE(record::read_log(r.folder + "/events.jsonl", &recs).ok);
+  std::vector<std::string> logged;
+  for (const auto& j : recs) logged.push_back(j.value("type", ""));
+  EXPECT_EQ(std::count(logged.begin(), logged.end(), "observer_dropped"), 1);
+  EXPECT_TRUE(record::verify_session_folder(r.folder).ok);
+  std::filesystem::remove_all(dir);
 }
