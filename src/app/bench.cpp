@@ -72,9 +72,9 @@ double quantile(std::vector<double> x, double q) {
 class WarmEnd : public session::Observer {
  public:
   bool on_event(const session::Event& e) override {
-    if (e.type == "warm_up_ended" && !seen) {
+    if (std::holds_alternative<session::ev::WarmUpEnded>(e.payload) && !seen) {
       seen = true;
-      cell_time_s = e.data.value("cell_time_s", 0.0);
+      cell_time_s = e.stamp && e.stamp->cell_time_s ? *e.stamp->cell_time_s : 0.0;
     }
     return true;
   }

@@ -17,6 +17,7 @@
 #include "config/loaders.hpp"
 #include "record/session_folder.hpp"
 #include "registry.hpp"
+#include "session/console.hpp"
 
 namespace loadtrim::app {
 
@@ -114,6 +115,9 @@ int run_one(const CheckOptions& o) {
   req.key = key ? &*key : nullptr;
   req.operator_id = who;
   req.note = o.note;
+  // The steps as they happen, for the operator; --json keeps its one line (scripts read it).
+  session::Console console(session::Console::Mode::normal);
+  if (!o.json) req.observers.push_back(&console);
   auto c = adapters::make_controller(l.cell);
   const checks::CheckResult r = checks::run_check(*c, req, &stop_flag());
   if (o.json) {

@@ -7,6 +7,7 @@
 #include <csignal>
 #include <filesystem>
 #include <fstream>
+#include <functional>
 #include <iostream>
 #include <thread>
 
@@ -153,12 +154,8 @@ std::optional<core::HistoryEntry> load_history(const std::string& file) {
     const auto j = nlohmann::json::parse(in);
     core::HistoryEntry h;
     h.utc = j.at("utc").get<std::string>();
-    auto c = [](const nlohmann::json& x) {
-      return core::RoadLoad{x.at("f0_n").get<double>(), x.at("f1_n_per_kmh").get<double>(),
-                            x.at("f2_n_per_kmh2").get<double>()};
-    };
-    h.target = c(j.at("target"));
-    h.final_set = c(j.at("final_set"));
+    h.target = session::road_load_from_json(j.at("target"));
+    h.final_set = session::road_load_from_json(j.at("final_set"));
     return h;
   } catch (const std::exception& e) {
     std::cerr << file << ": history entry not used: " << e.what() << "\n";
@@ -174,14 +171,8 @@ void save_history(const std::string& file, const core::VehicleTarget& v, const s
   nlohmann::json j = {{"utc", record::utc_now()},
                       {"vehicle", v.id},
                       {"session", folder},
-                      {"target",
-                       {{"f0_n", v.target.f0_n},
-                        {"f1_n_per_kmh", v.target.f1_n_per_kmh},
-                        {"f2_n_per_kmh2", v.target.f2_n_per_kmh2}}},
-                      {"final_set",
-                       {{"f0_n", s.final_set->f0_n},
-                        {"f1_n_per_kmh", s.final_set->f1_n_per_kmh},
-                        {"f2_n_per_kmh2", s.final_set->f2_n_per_kmh2}}}};
+                      {"target", session::to_json(v.target)},
+                      {"final_set", session::to_json(*s.final_set)}};
   std::string err;
   if (!record::write_durable(file, j.dump(2) + "\n", err)) std::cerr << "history not saved: " << err << "\n";
 }
@@ -200,7 +191,9 @@ class FreezeForTest : public session::Observer {
  public:
   explicit FreezeForTest(std::string state) : state_(std::move(state)) {}
   bool on_event(const session::Event& e) override {
-    if (e.type == state_ || (e.type == "state" && "state:" + e.data.value("to", "") == state_)) {
+    const auto* st = std::get_if<session::ev::StateChanged>(&e.payload);
+    if (session::type_of(e) == state_ ||
+        (st && "state:" + std::string(session::to_string(st->to)) == state_)) {
       std::fprintf(stderr, "loadtrim: test hook: the session thread freezes at %s\n", state_.c_str());
       for (;;) std::this_thread::sleep_for(std::chrono::hours(1));
     }
@@ -236,8 +229,18 @@ bool seal_session(const std::string& folder, const controller::CellConfig& cell,
   return true;
 }
 
+// What the start record says about the lab, which only the command knows.
+struct LabContext {
+  nlohmann::json gate;  // the dyno-check gate's finding
+  nlohmann::json who;   // the operator
+  record::DataRoot root;
+};
+
+// `start_record` makes the complete start record (session_started or resume_started) from the part both
+// share, which only execute() can fill (the history it loaded, the options it parsed).
 int execute(session::Inputs inputs, const RunRequest& req, const std::string& folder,
-            const session::ResumePoint* resume, const std::string& confirmation, nlohmann::json started,
+            const session::ResumePoint* resume, const std::string& confirmation, const LabContext& lab,
+            const std::function<session::Payload(session::ev::StartCommon)>& start_record,
             const record::SigningKey* key) {
   session::RecordWriter writer(folder);
   if (!writer.ok()) {
@@ -270,22 +273,30 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
                                        : req.fleet_csv);
   const std::string hfile = history_file(req.history_dir, inputs.cell, inputs.vehicle);
   opt.history = load_history(hfile);
-  started["confirmation"] = confirmation;
   const auto& tv = inputs.vehicle;
-  started["target"] = {{"f0_n", tv.target.f0_n},
-                       {"f1_n_per_kmh", tv.target.f1_n_per_kmh},
-                       {"f2_n_per_kmh2", tv.target.f2_n_per_kmh2}};
-  started["vehicle_description"] = tv.description;
-  started["test_mass_kg"] = tv.test_mass_kg;
-  started["standard"] = inputs.profile.standard;
-  started["tolerance_n"] = inputs.profile.tolerance_n;
-  started["reference_speeds_kmh"] = inputs.profile.reference_speeds_kmh;
-  started["software"] = {{"version", LOADTRIM_VERSION}, {"build", LOADTRIM_BUILD_ID}};
-  started["operator_note"] = req.note;
-  started["first_setting_requested"] = req.first_setting;
-  started["history_file"] = hfile;
-  started["history_available"] = opt.history.has_value();
-  if (!writer.on_event({resume ? "resume_started" : "session_started", started, nullptr})) {
+  session::ev::StartCommon common{
+      .vehicle = tv.id,
+      .cell = inputs.cell.name,
+      .profile = inputs.profile.name,
+      .dyno_checks = lab.gate,
+      .operator_id = lab.who,
+      .data_root_path = lab.root.path,
+      .data_root_from = lab.root.source,
+      .signing_key = key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned"),
+      .confirmation = confirmation,
+      .target = tv.target,
+      .vehicle_description = tv.description,
+      .test_mass_kg = tv.test_mass_kg,
+      .standard = inputs.profile.standard,
+      .tolerance_n = inputs.profile.tolerance_n,
+      .reference_speeds_kmh = inputs.profile.reference_speeds_kmh,
+      .software_version = LOADTRIM_VERSION,
+      .software_build = LOADTRIM_BUILD_ID,
+      .operator_note = req.note,
+      .first_setting_requested = req.first_setting,
+      .history_file = hfile,
+      .history_available = opt.history.has_value()};
+  if (!writer.on_event({start_record(std::move(common)), std::nullopt, nullptr})) {
     std::cerr << "loadtrim: " << writer.error() << "\n";
     return kRecordFailure;
   }
@@ -390,16 +401,13 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   }
   sum.rollers_stopped = stopped;
   sum.stop_note = note;
-  const bool ok =
-      writer.on_event(
-          {"resumed",
-           {{"note", std::string("the result was already recorded (") + session::to_string(sum.outcome) +
-                         "): finalised from the record without motoring"},
-            {"completed_coastdowns", rp.completed.size()},
-            {"rollers_stopped", stopped},
-            {"stop_note", note}},
-           nullptr}) &&
-      writer.on_event({"finished", session::to_json(sum), nullptr});
+  const bool ok = writer.on_event({session::ev::Resumed{rp.completed.size(),
+                                                        std::string("the result was already recorded (") +
+                                                            session::to_string(sum.outcome) +
+                                                            "): finalised from the record without motoring",
+                                                        session::ev::Resumed::Finalised{stopped, note}},
+                                   std::nullopt, nullptr}) &&
+                  writer.on_event({session::ev::Finished{sum}, std::nullopt, nullptr});
   if (!ok) {
     std::cerr << "loadtrim: record failure: " << writer.error() << "\n";
     return kRecordFailure;
@@ -622,24 +630,25 @@ int run_new_session(const RunRequest& request, std::string* folder_out) {
   files.push_back(record::copy_input(folder, req.cell_file, "cell.toml"));
   files.push_back(record::copy_input(folder, req.target_file, "target.toml"));
   files.push_back(record::copy_input(folder, l.profile_path, "profile.toml"));
-  nlohmann::json started = {
-      {"vehicle", l.inputs.vehicle.id},
-      {"cell", l.inputs.cell.name},
-      {"profile", l.inputs.profile.name},
-      {"method", core::to_string(l.inputs.profile.method)},
-      {"files", files},
-      {"overrides", {{"port", req.port}, {"device", req.device}}},
-      {"inprocess", req.inprocess_truth.has_value()},
-      {"dyno_checks", gate},
-      {"combination_warnings", l.warnings},
-      {"two_wheel_drive_mode", l.inputs.vehicle.two_wheel_drive_mode},
-      {"cell_lock",
-       {{"endpoint", endpoint_key(l.inputs.cell)},
-        {"stale_lock_taken_over", stale_lock.empty() ? lock_msg : stale_lock}}},
-      {"operator", who},
-      {"data_root", {{"path", root.path}, {"from", root.source}}},
-      {"signing_key", key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
-  return execute(std::move(l.inputs), req, folder, nullptr, confirmation, started, key ? &*key : nullptr);
+  const std::string method = core::to_string(l.inputs.profile.method);
+  const bool two_wheel_drive_mode = l.inputs.vehicle.two_wheel_drive_mode;
+  const std::string endpoint = endpoint_key(l.inputs.cell);
+  const std::string taken_over = stale_lock.empty() ? lock_msg : stale_lock;
+  return execute(
+      std::move(l.inputs), req, folder, nullptr, confirmation, LabContext{gate, who, root},
+      [&](session::ev::StartCommon common) -> session::Payload {
+        return session::ev::SessionStarted{.common = std::move(common),
+                                           .method = method,
+                                           .files = files,
+                                           .port_override = req.port,
+                                           .device_override = req.device,
+                                           .inprocess = req.inprocess_truth.has_value(),
+                                           .combination_warnings = l.warnings,
+                                           .two_wheel_drive_mode = two_wheel_drive_mode,
+                                           .cell_lock_endpoint = endpoint,
+                                           .stale_lock_taken_over = taken_over};
+      },
+      key ? &*key : nullptr);
 }
 
 int resume_session(const std::string& folder, const RunRequest& overrides) {
@@ -735,18 +744,16 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     return kBadInput;
   }
   install_stop_handlers();
-  nlohmann::json started = {
-      {"vehicle", l.inputs.vehicle.id},
-      {"cell", l.inputs.cell.name},
-      {"profile", l.inputs.profile.name},
-      {"records_before", records.size()},
-      {"completed_coastdowns", rp.completed.size()},
-      {"folder_verified", record::to_string(verdict.outcome)},
-      {"dyno_checks", gate},
-      {"operator", who},
-      {"data_root", {{"path", root.path}, {"from", root.source}}},
-      {"signing_key", key ? key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
-  return execute(std::move(l.inputs), req, folder, &rp, confirmation, started, key ? &*key : nullptr);
+  const std::string verified = record::to_string(verdict.outcome);
+  return execute(
+      std::move(l.inputs), req, folder, &rp, confirmation, LabContext{gate, who, root},
+      [&](session::ev::StartCommon common) -> session::Payload {
+        return session::ev::ResumeStarted{.common = std::move(common),
+                                          .records_before = records.size(),
+                                          .completed_coastdowns = rp.completed.size(),
+                                          .folder_verified = verified};
+      },
+      key ? &*key : nullptr);
 }
 
 }  // namespace loadtrim::app

@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <chrono>
 #include <cmath>
+#include <cstdio>
 #include <filesystem>
 #include <fstream>
 #include <functional>
@@ -63,9 +64,7 @@ int exit_code(CheckResult::End e) {
 
 namespace {
 
-nlohmann::json coef_json(const core::RoadLoad& c) {
-  return {{"f0_n", c.f0_n}, {"f1_n_per_kmh", c.f1_n_per_kmh}, {"f2_n_per_kmh2", c.f2_n_per_kmh2}};
-}
+namespace ev = session::ev;
 
 struct Abort {
   CheckResult::End end;
@@ -76,7 +75,12 @@ class Procedure {
  public:
   Procedure(controller::Controller& c, const CheckRequest& req, record::EventLog& log, std::string folder,
             const std::atomic<bool>* stop)
-      : c_(c), req_(req), log_(log), folder_(std::move(folder)), motion_(c, rules(req), stop) {}
+      : c_(c),
+        req_(req),
+        log_(log),
+        folder_(std::move(folder)),
+        motion_(c, rules(req), stop),
+        observers_(req.observers) {}
 
   static motion::Rules rules(const CheckRequest& req) {
     motion::Rules r;
@@ -86,9 +90,23 @@ class Procedure {
   }
   motion::Motion& motion() { return motion_; }
 
-  bool record(const std::string& type, nlohmann::json payload) {
-    if (!log_.append(type, std::move(payload), record::utc_now()))
-      throw Abort{CheckResult::End::record_failure, log_.error()};
+  // A step's event: into the log first (the record), then to the observers, which therefore never show a
+  // step the record does not hold. Throws Abort when the record cannot hold it.
+  void record(session::Payload event) {
+    if (!log_event(std::move(event))) throw Abort{CheckResult::End::record_failure, log_.error()};
+  }
+  // The same without throwing: false when the log could not hold the event.
+  bool log_event(session::Payload event) {
+    const session::Event e{std::move(event), std::nullopt, nullptr};
+    if (!log_.append(session::type_of(e), session::to_json(e.payload), record::utc_now())) return false;
+    // The console is quick: the controller's keep-alive goes on for the cell's progress grace meanwhile.
+    const auto d = observers_.deliver(e, [this](bool) { c_.lease(req_.cell.timeouts.progress_grace); });
+    for (const auto& why : d.dropped) {
+      std::fprintf(stderr, "loadtrim: %s\n", why.c_str());
+      const session::Payload dropped = ev::ObserverDropped{why};
+      if (!log_.append(session::type_of(dropped), session::to_json(dropped), record::utc_now())) return false;
+    }
+    // A view that calls itself critical is still a view here: the check's record is its log.
     return true;
   }
 
@@ -157,7 +175,7 @@ class Procedure {
                        req_.profile.parasitic_run_up_margin_kmh;
     const double bottom = *std::min_element(o.speeds_kmh.begin(), o.speeds_kmh.end()) - o.half_band_kmh - 2.0;
     hold_and_settle(top);
-    record("coast_started", {{"from_kmh", top}, {"simulation", "off (free coast of the empty rollers)"}});
+    record(ev::FreeCoastStarted{top});
     must(c_.free_coast(), "free coast");
     std::vector<Sample> tr;
     collect(tr, [&](const Sample& x) { return x.speed_kmh < bottom; }, 7200.0, "the free coast",
@@ -170,34 +188,10 @@ class Procedure {
         core::determine_parasitic({t, v}, req_.cell.base_inertia_kg, stored, o);
     passed = d.passed;
     verdict = d.verdict;
-    nlohmann::json bands = nlohmann::json::array();
-    for (const auto& b : d.bands)
-      bands.push_back({{"speed_kmh", b.reference_speed_kmh},
-                       {"ok", b.ok()},
-                       {"reason", b.reason},
-                       {"delta_t_s", b.delta_t_s},
-                       {"force_n", b.force_n}});
-    nlohmann::json points = nlohmann::json::array();
-    for (const auto& p : d.points)
-      points.push_back({{"speed_kmh", p.speed_kmh},
-                        {"measured_n", p.measured_n},
-                        {"stored_n", p.stored_n},
-                        {"deviation_n", p.deviation_n},
-                        {"limit_n", p.limit_n},
-                        {"passed", p.passed}});
-    nlohmann::json j = {{"base_inertia_kg", req_.cell.base_inertia_kg},
-                        {"bands", bands},
-                        {"points", points},
-                        {"have_stored", d.have_stored},
-                        {"mean_ratio", d.mean_ratio},
-                        {"files", nlohmann::json::array({file})}};
-    if (d.ok) {
-      j["curve"] = coef_json(d.fit.coefficients);
-      j["residual_sd_n"] = d.fit.residual_sd_n;
-      new_curve = d.fit.coefficients;
-    }
-    if (stored) j["stored_curve"] = coef_json(*stored);
-    record("analysed", j);
+    if (d.ok) new_curve = d.fit.coefficients;
+    session::Payload analysed = ev::ParasiticAnalysed{req_.cell.base_inertia_kg, d, stored, file};
+    nlohmann::json j = session::to_json(analysed);  // also the check's part of result.json
+    record(std::move(analysed));
     return j;
   }
 
@@ -224,8 +218,7 @@ class Procedure {
       must(c_.set_inertia(inertia), "set inertia");
       must(c_.set_coefficients(setting), "set coefficients");
       hold_and_settle(start);
-      record("coast_started",
-             {{"run", n}, {"inertia_kg", inertia}, {"set", coef_json(setting)}, {"from_kmh", start}});
+      record(ev::CheckCoastStarted{n, inertia, setting, start});
       must(c_.release_road_load(), "road-load simulation");
       std::vector<Sample> tr;
       collect(tr, [&](const Sample& x) { return x.speed_kmh < end; }, 3600.0, "the coast-down",
@@ -235,27 +228,9 @@ class Procedure {
       std::vector<double> t, v;
       split(tr, t, v);
       const core::UnloadedCoastdown r = core::check_unloaded_coastdown({t, v}, inertia, setting, o);
-      nlohmann::json iv = nlohmann::json::array();
-      for (const auto& i : r.intervals)
-        iv.push_back({{"from_mph", i.v_high_mph},
-                      {"to_mph", i.v_low_mph},
-                      {"delta_t_s", i.delta_t_s},
-                      {"expected_delta_t_s", i.expected_delta_t_s},
-                      {"mean_force_n", i.mean_force_n},
-                      {"expected_force_n", i.expected_force_n},
-                      {"deviation_n", i.deviation_n},
-                      {"limit_n", i.limit_n},
-                      {"passed", i.passed},
-                      {"reason", i.reason}});
-      nlohmann::json j = {{"run", n},
-                          {"inertia_kg", inertia},
-                          {"set", coef_json(setting)},
-                          {"intervals", iv},
-                          {"passed", r.passed},
-                          {"verdict", r.verdict},
-                          {"files", nlohmann::json::array({file})}};
-      record("analysed", j);
-      out.push_back(j);
+      session::Payload analysed = ev::UnloadedCoastdownAnalysed{n, inertia, setting, r, file};
+      out.push_back(session::to_json(analysed));  // also the check's part of result.json
+      record(std::move(analysed));
       passed = passed && r.passed;
       verdict += (verdict.empty() ? "" : "; ") + r.verdict;
     }
@@ -270,7 +245,7 @@ class Procedure {
     const double stop_at = u::mph_to_kmh(o.v_high_mph) + 3.0;
     if (stop_at > req_.cell.max_speed_kmh)
       throw Abort{CheckResult::End::refused, "the check's top speed is above the cell limit"};
-    record("force_applied", {{"force_n", force}, {"stated_base_inertia_kg", stated}, {"simulation", "off"}});
+    record(ev::ForceApplied{force, stated});
     must(c_.apply_force(force), "constant force");
     std::vector<Sample> tr;
     collect(tr, [&](const Sample& x) { return x.speed_kmh > stop_at; }, 600.0, "the constant-force run",
@@ -282,19 +257,9 @@ class Procedure {
     const core::InertiaCheck r = core::check_base_inertia({t, v}, f, stated, o);
     passed = r.ok && r.passed;
     verdict = r.ok ? r.verdict : "FAIL: " + r.message;
-    nlohmann::json j = {{"force_n", force},
-                        {"t_low_s", r.t_low_s},
-                        {"t_high_s", r.t_high_s},
-                        {"delta_t_s", r.delta_t_s},
-                        {"delta_v_mps", r.delta_v_mps},
-                        {"mean_force_n", r.mean_force_n},
-                        {"inertia_kg", r.inertia_kg},
-                        {"stated_kg", stated},
-                        {"error_fraction", r.error_fraction},
-                        {"tolerance_fraction", o.tolerance_fraction},
-                        {"passed", passed},
-                        {"files", nlohmann::json::array({file})}};
-    record("analysed", j);
+    session::Payload analysed = ev::InertiaAnalysed{force, r, stated, o.tolerance_fraction, passed, file};
+    nlohmann::json j = session::to_json(analysed);  // also the check's part of result.json
+    record(std::move(analysed));
     return j;
   }
 
@@ -304,6 +269,7 @@ class Procedure {
   record::EventLog& log_;
   std::string folder_;
   motion::Motion motion_;
+  session::Observers observers_;
 };
 
 }  // namespace
@@ -340,27 +306,16 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     nlohmann::json files = nlohmann::json::array();
     files.push_back(record::copy_input(res.folder, req.cell_file, "cell.toml"));
     files.push_back(record::copy_input(res.folder, req.profile_file, "checks.toml"));
-    nlohmann::json started = {
-        {"check", core::to_string(req.kind)},
-        {"cell", req.cell.name},
-        {"files", files},
-        {"confirmation", req.confirmation},
-        {"note", req.note},
-        {"vehicle_on_rollers", false},
-        {"operator", req.operator_id},
-        {"signing_key",
-         req.key ? req.key->fingerprint() : std::string("none: the folder will be sealed unsigned")}};
-    if (stored) started["stored_parasitic_curve"] = {{"curve", coef_json(*stored)}, {"utc", stored_utc}};
-    p.record("check_started", started);
+    p.record(ev::CheckStarted{
+        core::to_string(req.kind), req.cell.name, files, req.confirmation, req.note, req.operator_id,
+        req.key ? req.key->fingerprint() : std::string("none: the folder will be sealed unsigned"), stored,
+        stored_utc});
     const controller::KeepAlive keep_alive(c);
     p.must(c.connect(), "connect");
     controller::ControllerInfo info;
     p.must(c.identify(info), "identify");
     const core::Problems id = controller::check_identity(req.cell, info);
-    p.record("identified", {{"name", info.name},
-                            {"roller_diameter_m", info.roller_diameter_m},
-                            {"base_inertia_kg", info.base_inertia_kg},
-                            {"problems", id.size()}});
+    p.record(ev::CheckIdentified{info.name, info.roller_diameter_m, info.base_inertia_kg, id.size()});
     if (core::has_errors(id))
       throw Abort{CheckResult::End::refused,
                   "the controller is not the cell file's dyno: " + id.front().key + " " + id.front().message};
@@ -428,14 +383,12 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   std::string err;
   const bool wrote = record::write_durable((fs::path(res.folder) / "result.json").string(), text, err);
   const std::string now = record::utc_now();
-  const bool logged = log.append(
-      "check_finished",
-      {{"check", core::to_string(req.kind)},
-       {"end", to_string(res.end)},
-       {"passed", result["passed"]},
-       {"verdict", verdict},
-       {"files", nlohmann::json::array({{{"path", "result.json"}, {"sha256", record::sha256_hex(text)}}})}},
-      now);
+  const bool logged =
+      p.log_event(ev::CheckFinished{core::to_string(req.kind),
+                                    to_string(res.end),
+                                    res.end == CheckResult::End::passed,
+                                    verdict,
+                                    {{"path", "result.json"}, {"sha256", record::sha256_hex(text)}}});
   // The folder's last record: the seal (docs/records.md), its chain head also in the cell's log. The report,
   // a derived file, follows it.
   bool sealed = false;
@@ -457,14 +410,12 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
                            {"verdict", verdict},
                            {"folder", fs::path(res.folder).filename().string()}},
                           now);
-  if (store_curve && hist_ok)
-    hist_ok = hist.append("parasitic_curve",
-                          {{"f0_n", new_curve->f0_n},
-                           {"f1_n_per_kmh", new_curve->f1_n_per_kmh},
-                           {"f2_n_per_kmh2", new_curve->f2_n_per_kmh2},
-                           {"folder", fs::path(res.folder).filename().string()},
-                           {"accepted_by_operator", res.end == CheckResult::End::failed}},
-                          now);
+  if (store_curve && hist_ok) {
+    nlohmann::json curve = session::to_json(*new_curve);  // the cell log keeps the curve's members at its top
+    curve["folder"] = fs::path(res.folder).filename().string();
+    curve["accepted_by_operator"] = res.end == CheckResult::End::failed;
+    hist_ok = hist.append("parasitic_curve", curve, now);
+  }
   if (!wrote || !logged || !sealed || !hist_ok) {
     res.end = CheckResult::End::record_failure;
     res.verdict += std::string(res.verdict.empty() ? "" : "; ") + "record failure: " +

@@ -5,6 +5,7 @@
 // history.
 //
 // A sequential procedure, not a state machine: each step either completes or ends the check in the safe stop.
+// Each step is a typed event (session/events.hpp): written to the check's log, then shown to the observers.
 #pragma once
 
 #include <atomic>
@@ -15,6 +16,7 @@
 #include "controller/controller.hpp"
 #include "core/dyno_checks.hpp"
 #include "record/seal.hpp"
+#include "session/events.hpp"
 
 namespace loadtrim::checks {
 
@@ -31,6 +33,10 @@ struct CheckRequest {
   std::string note;
   const record::SigningKey* key = nullptr;  // the cell's signing key for the seal; nullptr: sealed unsigned
   nlohmann::json operator_id = nlohmann::json::object();  // {"name", "from"}
+  // Views of the check's steps (the console): each gets every event after its record is durable. The
+  // check's record is its own log: an observer that fails or throws is dropped (said on stderr and in an
+  // "observer_dropped" record), never the end of the check.
+  std::vector<session::Observer*> observers;
 };
 
 struct CheckResult {

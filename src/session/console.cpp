@@ -49,79 +49,135 @@ void Console::on_progress(const Progress& p) {
   progress_shown_ = true;
 }
 
+namespace {
+template <class... F>
+struct Overloaded : F... {
+  using F::operator()...;
+};
+template <class... F>
+Overloaded(F...) -> Overloaded<F...>;
+
+std::string c3(const core::RoadLoad& c) {
+  char b[64];
+  std::snprintf(b, sizeof b, "%8.2f %7.4f %8.5f", c.f0_n, c.f1_n_per_kmh, c.f2_n_per_kmh2);
+  return b;
+}
+}  // namespace
+
 bool Console::on_event(const Event& e) {
-  const auto& d = e.data;
   if (mode_ == Mode::json) {
-    nlohmann::json j = d;
-    j["type"] = e.type;
+    nlohmann::json j = record_json(e);
+    j["type"] = type_of(e);
     std::fprintf(out_, "%s\n", j.dump().c_str());
     std::fflush(out_);
     return true;
   }
-  const bool unconfirmed_stop = e.type == "finished" && !d.value("rollers_stopped", true);
+  const auto* fin = std::get_if<ev::Finished>(&e.payload);
+  const bool unconfirmed_stop = fin && !fin->summary.rollers_stopped;
   if (mode_ == Mode::quiet) {
-    if (e.type == "finished")
-      std::fprintf(out_, "%s: %s\n", d.value("result", "").c_str(), d.value("stop_reason", "").c_str());
-    if (unconfirmed_stop) std::fprintf(out_, "WARNING: %s\n", d.value("stop_note", "").c_str());
+    if (fin)
+      std::fprintf(out_, "%s: %s\n", to_string(fin->summary.outcome), fin->summary.stop_reason.c_str());
+    if (unconfirmed_stop) std::fprintf(out_, "WARNING: %s\n", fin->summary.stop_note.c_str());
     return true;
   }
   clear_progress();
-  auto c3 = [](const nlohmann::json& c) {
-    char b[64];
-    std::snprintf(b, sizeof b, "%8.2f %7.4f %8.5f", c.value("f0_n", 0.0), c.value("f1_n_per_kmh", 0.0),
-                  c.value("f2_n_per_kmh2", 0.0));
-    return std::string(b);
-  };
-  if (e.type == "state" && d.value("to", "") != "analyse" && d.value("to", "") != "write_set" &&
-      d.value("to", "") != "run_up" && d.value("to", "") != "coast_down") {
-    std::fprintf(out_, "  -> %s%s\n", d.value("to", "").c_str(),
-                 d.value("why", "").empty() ? "" : (" (" + d.value("why", "") + ")").c_str());
-  } else if (e.type == "controller") {
-    std::fprintf(out_, "  controller %s: rollers %.4f m, base inertia %.0f kg, limit %.0f km/h\n",
-                 d.value("name", "").c_str(), d.value("roller_diameter_m", 0.0),
-                 d.value("base_inertia_kg", 0.0), d.value("max_speed_kmh", 0.0));
-  } else if (e.type == "inertia") {
-    std::fprintf(out_, "  inertia %.1f kg set and read back (TM %.1f kg, m_r %.2f kg, %s)\n",
-                 d.value("inertia_kg", 0.0), d.value("test_mass_kg", 0.0), d.value("rotating_mass_kg", 0.0),
-                 d.value("axles", "").c_str());
-  } else if (e.type == "loss_map_point") {
-    std::fprintf(out_, "  loss map: %.0f km/h holds with %.1f N\n", d.value("speed_kmh", 0.0),
-                 d.value("force_n", 0.0));
-  } else if (e.type == "first_setting") {
-    std::fprintf(out_, "  first setting (%s): %s\n", d.value("strategy", "").c_str(), c3(d["set"]).c_str());
-    std::fprintf(out_, "  %3s  %-26s  %-26s  %8s %8s %6s  %s\n", "run", "set f0 / f1 / f2",
-                 "measured f0 / f1 / f2", "worst N", "est.diff", "result", "decision");
-  } else if (e.type == "coastdown") {
-    if (!d.value("usable", false))
-      std::fprintf(out_, "  %3d  %s  unusable: %s\n", d.value("run", 0), c3(d["set"]).c_str(),
-                   d.value("unusable_reason", "").c_str());
-    else
-      std::fprintf(out_, "  %3d  %s  %s  %8.2f %8.2f %6s  %s\n", d.value("run", 0), c3(d["set"]).c_str(),
-                   c3(d["simulated"]).c_str(), d["check"].value("worst_abs_deviation_n", 0.0),
-                   d.value("estimator_disagreement_n", 0.0),
-                   d["check"].value("pass", false) ? "pass" : "FAIL",
-                   d["decision"].value("reason", "").c_str());
-  } else if (e.type == "timing_rule_missed" || e.type == "link_lost" || e.type == "link_restored" ||
-             e.type == "fault" || e.type == "refused" || e.type == "interrupted" ||
-             e.type == "coastdown_discarded" || e.type == "resumed" || e.type == "fault_cleared" ||
-             e.type == "safe_stop") {
-    std::fprintf(out_, "  %s: %s\n", e.type.c_str(), d.dump().c_str());
-  } else if (e.type == "envelope_refused" || e.type == "diverging" || e.type == "observer_dropped" ||
-             e.type == "not_settled") {
-    std::fprintf(out_, "  STOPPING: %s\n", d.value("why", d.value("message", "")).c_str());
-  } else if (e.type == "finished") {
-    if (unconfirmed_stop)
-      std::fprintf(
-          out_, "\n  WARNING: %s. Keep out of the roller area until the rollers are seen to stand still.\n",
-          d.value("stop_note", "").c_str());
-    std::fprintf(out_, "\n  %s: %s after %d coast-downs, %s of cell time\n", d.value("result", "").c_str(),
-                 d.value("stop_reason", "").c_str(), d.value("coastdowns", 0),
-                 clock_text(d.value("cell_time_s", 0.0)).c_str());
-    if (d.contains("final_set"))
-      std::fprintf(out_, "  final set coefficients: f0 %.1f N, f1 %.3f N/(km/h), f2 %.5f N/(km/h)²\n",
-                   d["final_set"].value("f0_n", 0.0), d["final_set"].value("f1_n_per_kmh", 0.0),
-                   d["final_set"].value("f2_n_per_kmh2", 0.0));
-  }
+  // A line of its record, for the events an operator must notice but that have no sentence of their own.
+  auto raw = [&] { std::fprintf(out_, "  %s: %s\n", type_of(e), record_json(e).dump().c_str()); };
+  auto stopping = [&](const std::string& why) { std::fprintf(out_, "  STOPPING: %s\n", why.c_str()); };
+  std::visit(
+      Overloaded{
+          [&](const ev::StateChanged& x) {
+            // The per-run states show as the run's table row instead.
+            if (x.to == State::analyse || x.to == State::write_set || x.to == State::run_up ||
+                x.to == State::coast_down)
+              return;
+            std::fprintf(out_, "  -> %s%s\n", to_string(x.to),
+                         x.why.empty() ? "" : (" (" + x.why + ")").c_str());
+          },
+          [&](const ev::ControllerIdentified& x) {
+            std::fprintf(out_, "  controller %s: rollers %.4f m, base inertia %.0f kg, limit %.0f km/h\n",
+                         x.info.name.c_str(), x.info.roller_diameter_m, x.info.base_inertia_kg,
+                         x.info.max_speed_kmh);
+          },
+          [&](const ev::InertiaSet& x) {
+            std::fprintf(out_, "  inertia %.1f kg set and read back (TM %.1f kg, m_r %.2f kg, %s)\n",
+                         x.inertia_kg, x.test_mass_kg, x.rotating_mass_kg, core::to_string(x.axles));
+          },
+          [&](const ev::LossMapPoint& x) {
+            std::fprintf(out_, "  loss map: %.0f km/h holds with %.1f N\n", x.point.speed_kmh,
+                         x.point.force_n);
+          },
+          [&](const ev::FirstSetting& x) {
+            std::fprintf(out_, "  first setting (%s): %s\n", x.strategy.c_str(), c3(x.set).c_str());
+            std::fprintf(out_, "  %3s  %-26s  %-26s  %8s %8s %6s  %s\n", "run", "set f0 / f1 / f2",
+                         "measured f0 / f1 / f2", "worst N", "est.diff", "result", "decision");
+          },
+          [&](const ev::Coastdown& x) {
+            const auto& r = x.record;
+            const auto& v = r.evaluation;
+            if (!v.usable)
+              std::fprintf(out_, "  %3d  %s  unusable: %s\n", r.run, c3(r.set).c_str(),
+                           v.unusable_reason.c_str());
+            else
+              std::fprintf(out_, "  %3d  %s  %s  %8.2f %8.2f %6s  %s\n", r.run, c3(r.set).c_str(),
+                           c3(v.fit.coefficients).c_str(), v.check.worst_abs_deviation_n,
+                           v.estimator_disagreement_n, v.check.pass ? "pass" : "FAIL",
+                           r.decision.reason.c_str());
+          },
+          [&](const ev::ReleaseTiming& x) {
+            if (!x.within) raw();
+          },
+          [&](const ev::LinkLost&) { raw(); }, [&](const ev::LinkRestored&) { raw(); },
+          [&](const ev::Fault&) { raw(); }, [&](const ev::Refused&) { raw(); },
+          [&](const ev::Interrupted&) { raw(); }, [&](const ev::CoastdownDiscarded&) { raw(); },
+          [&](const ev::Resumed&) { raw(); }, [&](const ev::FaultCleared&) { raw(); },
+          [&](const ev::SafeStop&) { raw(); }, [&](const ev::EnvelopeRefused& x) { stopping(x.why); },
+          [&](const ev::Diverging& x) { stopping(x.why); },
+          [&](const ev::ObserverDropped& x) { stopping(x.why); },
+          [&](const ev::NotSettled& x) { stopping(x.message); },
+          [&](const ev::Finished& x) {
+            const auto& s = x.summary;
+            if (unconfirmed_stop)
+              std::fprintf(out_,
+                           "\n  WARNING: %s. Keep out of the roller area until the rollers are seen to stand "
+                           "still.\n",
+                           s.stop_note.c_str());
+            std::fprintf(out_, "\n  %s: %s after %d coast-downs, %s of cell time\n", to_string(s.outcome),
+                         s.stop_reason.c_str(), s.coastdowns, clock_text(s.cell_time_s).c_str());
+            if (s.final_set)
+              std::fprintf(out_, "  final set coefficients: f0 %.1f N, f1 %.3f N/(km/h), f2 %.5f N/(km/h)²\n",
+                           s.final_set->f0_n, s.final_set->f1_n_per_kmh, s.final_set->f2_n_per_kmh2);
+          },
+          // The dyno's own checks: each step as it happens.
+          [&](const ev::CheckIdentified& x) {
+            std::fprintf(out_, "  controller %s: rollers %.4f m, base inertia %.0f kg%s\n", x.name.c_str(),
+                         x.roller_diameter_m, x.base_inertia_kg,
+                         x.problems ? " (does not match the cell file)" : "");
+          },
+          [&](const ev::FreeCoastStarted& x) {
+            std::fprintf(out_, "  free coast of the empty rollers from %.1f km/h\n", x.from_kmh);
+          },
+          [&](const ev::CheckCoastStarted& x) {
+            std::fprintf(out_, "  coast-down %d at %.0f kg from %.1f km/h, set %s\n", x.run, x.inertia_kg,
+                         x.from_kmh, c3(x.set).c_str());
+          },
+          [&](const ev::ForceApplied& x) {
+            std::fprintf(out_, "  constant force %.1f N against the stated base inertia %.0f kg\n", x.force_n,
+                         x.stated_base_inertia_kg);
+          },
+          [&](const ev::ParasiticAnalysed& x) {
+            std::fprintf(out_, "  parasitic loss: %s\n", x.determination.verdict.c_str());
+          },
+          [&](const ev::UnloadedCoastdownAnalysed& x) {
+            std::fprintf(out_, "  coast-down %d: %s\n", x.run, x.result.verdict.c_str());
+          },
+          [&](const ev::InertiaAnalysed& x) {
+            std::fprintf(out_, "  base inertia: %s\n",
+                         x.result.ok ? x.result.verdict.c_str() : x.result.message.c_str());
+          },
+          [&](const auto&) {},  // the rest is in the record and the operator log
+      },
+      e.payload);
   std::fflush(out_);
   return true;
 }

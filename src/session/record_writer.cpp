@@ -50,30 +50,33 @@ void RecordWriter::note(const std::string& text) {
 }
 
 namespace {
-std::string human(const Event& e) {
-  const auto& d = e.data;
-  auto coef = [](const nlohmann::json& c) {
-    char b[128];
-    std::snprintf(b, sizeof b, "(%.2f N, %.4f N/(km/h), %.5f N/(km/h)^2)", c.value("f0_n", 0.0),
-                  c.value("f1_n_per_kmh", 0.0), c.value("f2_n_per_kmh2", 0.0));
-    return std::string(b);
-  };
-  if (e.type == "state")
-    return "state " + d.value("from", "") + " -> " + d.value("to", "") +
-           (d.value("why", "").empty() ? "" : " (" + d.value("why", "") + ")");
-  if (e.type == "coastdown") {
-    if (!d.value("usable", false))
-      return "coast-down " + std::to_string(d.value("run", 0)) +
-             " unusable: " + d.value("unusable_reason", "");
+std::string coef(const core::RoadLoad& c) {
+  char b[128];
+  std::snprintf(b, sizeof b, "(%.2f N, %.4f N/(km/h), %.5f N/(km/h)^2)", c.f0_n, c.f1_n_per_kmh,
+                c.f2_n_per_kmh2);
+  return b;
+}
+
+// The operator log's line for an event: a sentence for the ones an operator reads, the record otherwise.
+std::string human(const Event& e, const nlohmann::json& record) {
+  if (const auto* x = std::get_if<ev::StateChanged>(&e.payload))
+    return std::string("state ") + to_string(x->from) + " -> " + to_string(x->to) +
+           (x->why.empty() ? "" : " (" + x->why + ")");
+  if (const auto* x = std::get_if<ev::Coastdown>(&e.payload)) {
+    const auto& r = x->record;
+    if (!r.evaluation.usable)
+      return "coast-down " + std::to_string(r.run) + " unusable: " + r.evaluation.unusable_reason;
     char b[96];
-    std::snprintf(b, sizeof b, " worst %.2f N -> ", d["check"].value("worst_abs_deviation_n", 0.0));
-    return "coast-down " + std::to_string(d.value("run", 0)) + ": set " + coef(d["set"]) + " measured " +
-           coef(d["simulated"]) + b + (d["check"].value("pass", false) ? "pass" : "FAIL") + "; " +
-           d["decision"].value("reason", "");
+    std::snprintf(b, sizeof b, " worst %.2f N -> ", r.evaluation.check.worst_abs_deviation_n);
+    return "coast-down " + std::to_string(r.run) + ": set " + coef(r.set) + " measured " +
+           coef(r.evaluation.fit.coefficients) + b + (r.evaluation.check.pass ? "pass" : "FAIL") + "; " +
+           r.decision.reason;
   }
-  if (e.type == "first_setting") return "first setting (" + d.value("strategy", "") + "): " + coef(d["set"]);
-  if (e.type == "finished") return "finished: " + d.value("result", "") + " — " + d.value("stop_reason", "");
-  return e.type + " " + d.dump();
+  if (const auto* x = std::get_if<ev::FirstSetting>(&e.payload))
+    return "first setting (" + x->strategy + "): " + coef(x->set);
+  if (const auto* x = std::get_if<ev::Finished>(&e.payload))
+    return std::string("finished: ") + to_string(x->summary.outcome) + " — " + x->summary.stop_reason;
+  return std::string(type_of(e)) + " " + record.dump();
 }
 }  // namespace
 
@@ -83,10 +86,13 @@ bool RecordWriter::on_event(const Event& ev) {
     error_ = "the record is closed";
     return false;
   }
-  nlohmann::json data = ev.data;
-  if (ev.trace) {
+  // The record: the event's own JSON and stamp, plus the files this writer wrote for it (their hashes
+  // are the writer's to know, so they are the one thing the record adds to the event).
+  nlohmann::json data = record_json(ev);
+  const auto* coast = std::get_if<ev::Coastdown>(&ev.payload);
+  if (coast && ev.trace) {
     char name[32];
-    std::snprintf(name, sizeof name, "traces/run-%03d.csv", data.value("run", 0));
+    std::snprintf(name, sizeof name, "traces/run-%03d.csv", coast->record.run);
     const std::string csv = record::trace_csv(*ev.trace);
     std::string err;
     if (!record::write_durable((fs::path(folder_) / name).string(), csv, err)) {
@@ -99,7 +105,8 @@ bool RecordWriter::on_event(const Event& ev) {
   // summary.json is written once, when the session's result is final: an interrupted session's "finished"
   // record holds its summary inline, and the file is written (and sealed) only when a resume reaches the
   // verdict. Nothing whose hash a record holds is ever rewritten (docs/records.md).
-  if (ev.type == "finished" && is_final(data.value("result", ""))) {
+  const auto* fin = std::get_if<ev::Finished>(&ev.payload);
+  if (fin && is_final(fin->summary.outcome)) {
     std::string err;
     const std::string text = data.dump(2) + "\n";
     if (!record::write_durable((fs::path(folder_) / "summary.json").string(), text, err)) {
@@ -109,12 +116,12 @@ bool RecordWriter::on_event(const Event& ev) {
     data["files"].push_back({{"path", "summary.json"}, {"sha256", record::sha256_hex(text)}});
     summary_ = nlohmann::json::parse(text);
   }
-  if (!log_->append(ev.type, data, record::utc_now())) {
+  if (!log_->append(type_of(ev), data, record::utc_now())) {
     error_ = log_->error();
     note("RECORD FAILURE: " + error_);
     return false;
   }
-  note(human({ev.type, data, nullptr}));
+  note(human(ev, data));
   return true;
 }
 

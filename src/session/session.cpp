@@ -11,9 +11,6 @@
 
 namespace loadtrim::session {
 
-nlohmann::json coefficients_json(const core::RoadLoad& c);
-core::RoadLoad coefficients_from_json(const nlohmann::json& j);
-
 using controller::Mode;
 using controller::Result;
 using core::num;
@@ -22,58 +19,6 @@ namespace {
 constexpr int kInterruptedCode = motion::kInterrupted;
 constexpr int kTooSlowCode = motion::kTooSlow;
 }  // namespace
-
-const char* to_string(State s) {
-  switch (s) {
-    case State::connect:
-      return "connect";
-    case State::check_limits:
-      return "check_limits";
-    case State::set_inertia:
-      return "set_inertia";
-    case State::warm_up:
-      return "warm_up";
-    case State::write_set:
-      return "write_set";
-    case State::run_up:
-      return "run_up";
-    case State::coast_down:
-      return "coast_down";
-    case State::analyse:
-      return "analyse";
-    case State::safe_stop:
-      return "safe_stop";
-    case State::finished:
-      return "finished";
-  }
-  return "unknown";
-}
-
-const char* to_string(Outcome o) {
-  switch (o) {
-    case Outcome::accepted:
-      return "accepted";
-    case Outcome::not_accepted:
-      return "not-accepted";
-    case Outcome::refused:
-      return "refused";
-    case Outcome::controller_fault:
-      return "controller-fault";
-    case Outcome::interrupted:
-      return "interrupted";
-    case Outcome::record_failure:
-      return "record-failure";
-  }
-  return "unknown";
-}
-
-bool is_final(Outcome o) {
-  return o == Outcome::accepted || o == Outcome::not_accepted || o == Outcome::refused;
-}
-bool is_final(const std::string& r) {
-  return r == to_string(Outcome::accepted) || r == to_string(Outcome::not_accepted) ||
-         r == to_string(Outcome::refused);
-}
 
 Session::Session(Inputs inputs, Options options, controller::Controller& controller,
                  std::vector<Observer*> observers, const std::atomic<bool>* stop_flag)
@@ -89,53 +34,26 @@ Session::Session(Inputs inputs, Options options, controller::Controller& control
   motion_.on_sample = [this](const controller::Sample& s) { on_sample(s); };
 }
 
-bool Session::emit(const std::string& type, nlohmann::json data,
-                   const std::vector<controller::Sample>* trace) {
-  if (!data.is_object()) data = nlohmann::json::object();
-  data["state"] = to_string(state_);
+bool Session::emit(Payload event, const std::vector<controller::Sample>* trace) {
+  // The stamp is the session's, taken as the event leaves: its state and clocks at that moment.
+  Stamp stamp{state_, std::nullopt, std::nullopt};
   if (t_start_ >= 0.0) {
-    data["t_s"] = t_now_;
-    data["cell_time_s"] = cell_time_before_ + (t_now_ - t_start_);
+    stamp.t_s = t_now_;
+    stamp.cell_time_s = cell_time_before_ + (t_now_ - t_start_);
   }
-  const Event e{type, std::move(data), trace};
-  bool critical_failed = false;
-  std::vector<std::string> dropped;
-  for (auto it = observers_.begin(); it != observers_.end();) {
-    Observer* o = *it;
-    if (critical_failed && !o->critical()) {  // nothing is shown that the record does not hold
-      ++it;
-      continue;
-    }
-    c_.lease(o->critical() ? opt_.record_budget : in_.cell.timeouts.progress_grace);
-    bool ok = false;
-    std::string err;
-    try {
-      ok = o->on_event(e);
-      if (!ok) err = o->error();
-    } catch (const std::exception& ex) {
-      err = std::string("threw: ") + ex.what();
-    } catch (...) {
-      err = "threw an unknown exception";
-    }
-    if (!ok && o->critical()) {
-      critical_failed = true;
-      if (!record_failed_) {
-        record_failed_ = true;
-        record_error_ = err.empty() ? "the record could not be written" : err;
-      }
-    } else if (!ok) {
-      dropped.push_back(o->name() + " failed on a \"" + type +
-                        "\" event and was dropped: " + (err.empty() ? "no reason given" : err));
-      it = observers_.erase(it);
-      continue;
-    }
-    ++it;
-  }
+  const Event e{std::move(event), stamp, trace};
+  const Observers::Delivery d = observers_.deliver(e, [this](bool critical) {
+    c_.lease(critical ? opt_.record_budget : in_.cell.timeouts.progress_grace);
+  });
   c_.lease(in_.cell.timeouts.progress_grace);
-  for (const auto& d : dropped) {
-    dropped_observers_.push_back(d);
-    std::fprintf(stderr, "loadtrim: %s\n", d.c_str());
-    emit("observer_dropped", {{"why", d}});
+  if (d.critical_failed && !record_failed_) {
+    record_failed_ = true;
+    record_error_ = d.critical_error;
+  }
+  for (const auto& why : d.dropped) {
+    dropped_observers_.push_back(why);
+    std::fprintf(stderr, "loadtrim: %s\n", why.c_str());
+    emit(ev::ObserverDropped{why});
   }
   return !record_failed_;
 }
@@ -180,18 +98,13 @@ void Session::progress(double speed_kmh, double band_kmh) {
   p.remaining_estimate_s = runs_left * per_run;
   if (state_ == State::warm_up && t_motoring_from_ >= 0.0)
     p.remaining_estimate_s += std::max(0.0, pr.warm_up.duration_s - (t_now_ - t_motoring_from_));
-  for (Observer* o : observers_) {
-    try {
-      o->on_progress(p);
-    } catch (...) {  // progress is a view: a failing one never stops the session
-    }
-  }
+  observers_.progress(p);
 }
 
 void Session::transition(State to, const std::string& why) {
   const State from = state_;
   state_ = to;
-  emit("state", {{"from", to_string(from)}, {"to", to_string(to)}, {"why", why}});
+  emit(ev::StateChanged{from, to, why});
 }
 
 Result Session::hold_and_wait(double speed_kmh, const char* what) {
@@ -202,13 +115,10 @@ Result Session::hold_and_wait(double speed_kmh, const char* what) {
 
 std::optional<Session::Stop> Session::fault(const Result& r, const std::string& during) {
   if (r.code == kInterruptedCode) {
-    emit("interrupted", {{"during", during}});
+    emit(ev::Interrupted{during});
     return Stop{Outcome::interrupted, "interrupted by the operator during " + during};
   }
-  emit("fault", {{"during", during},
-                 {"message", r.message},
-                 {"status", controller::to_string(r.status)},
-                 {"code", r.code}});
+  emit(ev::Fault{during, r.message, r.status, r.code});
   return Stop{Outcome::controller_fault, r.message};
 }
 
@@ -218,16 +128,12 @@ bool Session::settle_and_clear(const std::string& when) {
   const Result settled = motion_.settle_by_status(opt_.stop_budget_s, st);
   t_now_ = std::max(t_now_, st.time_s);
   if (!settled.ok()) {
-    emit("not_settled", {{"when", when}, {"message", settled.message}});
+    emit(ev::NotSettled{when, settled.message});
     return false;
   }
   if (!st.fault.empty()) {
     const Result cr = c_.clear_fault();
-    emit("fault_cleared", {{"fault", st.fault},
-                           {"when", when},
-                           {"rollers", "stopped"},
-                           {"ok", cr.ok()},
-                           {"message", cr.message}});
+    emit(ev::FaultCleared{st.fault, when, cr.ok(), cr.message});
     if (!cr.ok()) return false;
   }
   return true;
@@ -236,9 +142,7 @@ bool Session::settle_and_clear(const std::string& when) {
 bool Session::recover_link(const std::string& why) {
   ++link_losses_;
   link_up_ = false;
-  emit("link_lost", {{"why", why},
-                     {"incident", link_losses_},
-                     {"note", "the controller's watchdog takes the rollers to a stop"}});
+  emit(ev::LinkLost{why, link_losses_});
   const auto& policy = in_.cell.reconnect;
   for (int attempt = 1; attempt <= policy.attempts; ++attempt) {
     if (stop_requested()) return false;
@@ -246,14 +150,13 @@ bool Session::recover_link(const std::string& why) {
     c_.disconnect();
     Result r = c_.connect();
     if (r.ok()) r = c_.identify(info_);
-    emit("reconnect",
-         {{"attempt", attempt}, {"of", policy.attempts}, {"ok", r.ok()}, {"message", r.message}});
+    emit(ev::Reconnect{attempt, policy.attempts, r.ok(), r.message});
     if (!r.ok()) continue;
     // Settle first, stream after: no stale samples from the stopping rollers reach the next wait.
     if (!settle_and_clear("after the lost link")) continue;
     if (!c_.start_stream(opt_.sample_rate_hz).ok()) continue;
     link_up_ = true;
-    emit("link_restored", {{"attempt", attempt}, {"rollers", "stopped"}});
+    emit(ev::LinkRestored{attempt});
     return true;
   }
   return false;
@@ -266,28 +169,22 @@ std::optional<Session::Stop> Session::do_connect() {
   for (int attempt = 1; !r.ok() && r.status == Result::Status::retryable &&
                         attempt <= in_.cell.reconnect.attempts && !stop_requested();
        ++attempt) {
-    emit("reconnect", {{"attempt", attempt}, {"of", in_.cell.reconnect.attempts}, {"message", r.message}});
+    emit(ev::Reconnect{attempt, in_.cell.reconnect.attempts, std::nullopt, r.message});
     std::this_thread::sleep_for(in_.cell.reconnect.delay);
     if (!stop_requested()) r = c_.connect();
   }
   if (!r.ok() && stop_requested()) {
-    emit("interrupted", {{"during", "connect"}});
+    emit(ev::Interrupted{"connect"});
     return Stop{Outcome::interrupted, "interrupted by the operator during connect (" + r.message + ")"};
   }
   if (!r.ok()) return fault(r, "connect");
   if (r = c_.identify(info_); !r.ok()) return fault(r, "identify");
-  emit("controller", {{"name", info_.name},
-                      {"protocol_version", info_.protocol_version},
-                      {"capabilities", info_.capabilities},
-                      {"roller_diameter_m", info_.roller_diameter_m},
-                      {"base_inertia_kg", info_.base_inertia_kg},
-                      {"max_speed_kmh", info_.max_speed_kmh},
-                      {"max_force_n", info_.max_force_n}});
+  emit(ev::ControllerIdentified{info_});
   const core::Problems mismatch = controller::check_identity(in_.cell, info_);
   if (!mismatch.empty()) {
     std::string msg;
     for (const auto& p : mismatch) msg += (msg.empty() ? "" : "; ") + p.key + ": " + p.message;
-    emit("refused", {{"why", msg}});
+    emit(ev::Refused{msg});
     return Stop{Outcome::refused, "controller does not match the cell file: " + msg};
   }
   // A fault latched before we came (a watchdog stop after a lost tool): only with the rollers stopped is it
@@ -295,8 +192,7 @@ std::optional<Session::Stop> Session::do_connect() {
   controller::StatusReport st;
   if (r = c_.status(st); !r.ok()) return fault(r, "status");
   if (!st.fault.empty() || !motion_.standstill(st.speed_kmh)) {
-    emit("controller_state_on_connect",
-         {{"fault", st.fault}, {"speed_kmh", st.speed_kmh}, {"mode", controller::to_string(st.mode)}});
+    emit(ev::ControllerStateOnConnect{st.fault, st.speed_kmh, st.mode});
     if (!settle_and_clear("on connect"))
       return fault(Result::fail("the controller did not reach a stopped, fault-free state"), "connect");
   }
@@ -341,20 +237,15 @@ std::optional<Session::Stop> Session::do_check_limits() {
     why = "the warm-up needs up to " + num(warm_total) + " s of motoring, above the cell's limit of " +
           num(in_.cell.max_motoring_s) + " s";
   if (!why.empty()) {
-    emit("refused", {{"why", why}});
+    emit(ev::Refused{why});
     return Stop{Outcome::refused, why};
   }
   c_.set_speed_limit(speed_limit_kmh_);
   motion::Rules rules = motion_.rules();
   rules.speed_limit_kmh = speed_limit_kmh_;
   motion_.set_rules(rules);
-  emit("limits", {{"speed_limit_kmh", speed_limit_kmh_},
-                  {"start_speed_kmh", start},
-                  {"end_speed_kmh", p.end_speed_kmh()},
-                  {"cell_max_speed_kmh", in_.cell.max_speed_kmh},
-                  {"vehicle_max_speed_kmh", in_.vehicle.max_speed_kmh},
-                  {"controller_max_speed_kmh", info_.max_speed_kmh},
-                  {"max_motoring_s", in_.cell.max_motoring_s}});
+  emit(ev::Limits{speed_limit_kmh_, start, p.end_speed_kmh(), in_.cell.max_speed_kmh,
+                  in_.vehicle.max_speed_kmh, info_.max_speed_kmh, in_.cell.max_motoring_s});
   return std::nullopt;
 }
 
@@ -365,12 +256,7 @@ std::optional<Session::Stop> Session::do_set_inertia() {
   force_mass_kg_ = core::force_mass_kg(in_.vehicle.test_mass_kg, m_r_kg_);
   inertia_kg_ = core::dyno_inertia_kg(in_.vehicle.test_mass_kg, m_r_kg_, in_.cell.axles, p.mass);
   if (Result r = c_.set_inertia(inertia_kg_); !r.ok()) return fault(r, "set inertia");
-  emit("inertia", {{"test_mass_kg", in_.vehicle.test_mass_kg},
-                   {"rotating_mass_kg", m_r_kg_},
-                   {"force_mass_kg", force_mass_kg_},
-                   {"inertia_kg", inertia_kg_},
-                   {"axles", core::to_string(in_.cell.axles)},
-                   {"read_back", "matches"}});
+  emit(ev::InertiaSet{in_.vehicle.test_mass_kg, m_r_kg_, force_mass_kg_, inertia_kg_, in_.cell.axles});
   return std::nullopt;
 }
 
@@ -392,8 +278,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
       }
   }
   duration_s = std::max(0.0, duration_s - map_s);
-  emit("warm_up_started",
-       {{"speed_kmh", w.speed_kmh}, {"duration_s", duration_s}, {"loss_map_planned_s", map_s}});
+  emit(ev::WarmUpStarted{w.speed_kmh, duration_s, map_s});
   const double t0 = t_now_;
   // Hold for the time, keeping the load-cell force of the last stability window.
   std::vector<double> window_means;
@@ -419,20 +304,16 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         return held >= duration_s && (stable || held >= duration_s + w.max_extra_s);
       });
   if (!r.ok()) return fault(r, "warm-up");
-  emit("warm_up", {{"speed_kmh", w.speed_kmh},
-                   {"held_s", t_now_ - t0},
-                   {"stable", stable},
-                   {"stability_threshold_n", w.stable_within_n},
-                   {"last_window_force_n",
-                    window_means.empty() ? nlohmann::json(nullptr) : nlohmann::json(window_means.back())}});
+  emit(ev::WarmUpHeld{w.speed_kmh, t_now_ - t0, stable, w.stable_within_n,
+                      window_means.empty() ? std::nullopt : std::optional<double>(window_means.back())});
   if (measure_loss_map) {
     loss_map_.clear();
     if (!info_.has("hold-force")) {
-      emit("loss_map_skipped", {{"why", "the controller does not report force in speed hold"}});
+      emit(ev::LossMapSkipped{"the controller does not report force in speed hold"});
     } else {
       for (double v : in_.profile.loss_map.speeds_kmh) {
         if (v > speed_limit_kmh_ - 1.0) {
-          emit("loss_map_point_skipped", {{"speed_kmh", v}, {"why", "above the speed limit"}});
+          emit(ev::LossMapPointSkipped{v, "above the speed limit"});
           continue;
         }
         if (Result rr = hold_and_wait(v, "loss-map hold"); !rr.ok()) return fault(rr, "loss map");
@@ -462,15 +343,12 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         hp.force_sd_n =
             std::sqrt(std::max(0.0, s2 / std::max<std::size_t>(1, avg.size()) - hp.force_n * hp.force_n));
         loss_map_.push_back(hp);
-        emit("loss_map_point", {{"speed_kmh", v},
-                                {"force_n", hp.force_n},
-                                {"force_sd_n", hp.force_sd_n},
-                                {"samples", hp.samples}});
+        emit(ev::LossMapPoint{hp});
       }
     }
   }
   t_warm_end_ = t_now_;
-  emit("warm_up_ended", {{"t_s", t_warm_end_}});
+  emit(ev::WarmUpEnded{});  // its stamp's t_s is t_warm_end_
   return std::nullopt;
 }
 
@@ -478,8 +356,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
   const auto& p = in_.profile;
   auto link_or_fault = [&](const Result& r, const char* during) -> std::optional<Stop> {
     if (r.status == Result::Status::retryable && r.code != kInterruptedCode) {
-      emit("coastdown_discarded",
-           {{"run", run}, {"why", std::string("link lost during ") + during + ": " + r.message}});
+      emit(ev::CoastdownDiscarded{run, std::string("link lost during ") + during + ": " + r.message,
+                                  std::nullopt, std::nullopt});
       ++unusable_;
       ++discarded_;
       if (!recover_link(r.message)) return fault(r, during);
@@ -499,7 +377,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
   // allows, or that has run away from the target, is never sent.
   if (const core::SetCheck chk = core::check_set(set_, in_.vehicle.target, last_written_, opt_.envelope);
       !chk.ok) {
-    emit("envelope_refused", {{"run", run}, {"set", coefficients_json(set_)}, {"why", chk.why}});
+    emit(ev::EnvelopeRefused{run, set_, chk.why});
     return Stop{Outcome::controller_fault,
                 "the next setting was not written: it leaves the safe envelope (" + chk.why +
                     "); the controller does not follow the setting or the measurement is wrong"};
@@ -507,19 +385,14 @@ std::optional<Session::Stop> Session::do_run(int run) {
   if (Result r = c_.set_coefficients(set_); !r.ok()) return link_or_fault(r, "write set");
   if (!last_written_ || !(*last_written_ == set_)) ++iterations_;
   last_written_ = set_;
-  if (!emit("set_written", {{"run", run},
-                            {"set", coefficients_json(set_)},
-                            {"read_back", "matches"},
-                            {"iteration", iterations_}}))
-    return Stop{Outcome::record_failure, record_error_};
+  if (!emit(ev::SetWritten{run, set_, iterations_})) return Stop{Outcome::record_failure, record_error_};
   if (t_motoring_from_ >= 0.0 && t_now_ - t_motoring_from_ > in_.cell.max_motoring_s)
     return Stop{Outcome::not_accepted,
                 "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) + " s was reached"};
 
   transition(State::run_up);
   const double t_ru = t_now_;
-  if (!emit("coastdown_started",
-            {{"run", run}, {"set", coefficients_json(set_)}, {"start_speed_kmh", p.start_speed_kmh()}}))
+  if (!emit(ev::CoastdownStarted{run, set_, p.start_speed_kmh()}))
     return Stop{Outcome::record_failure, record_error_};
   if (Result r = hold_and_wait(p.start_speed_kmh(), "run-up"); !r.ok()) return link_or_fault(r, "run-up");
   const double run_up_s = t_now_ - t_ru;
@@ -546,10 +419,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
     ++discarded_;
     const core::RoadLoad fallback =
         core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial);
-    emit("coastdown_discarded", {{"run", run},
-                                 {"why", r.message + ": too little retarding force with this setting"},
-                                 {"next_set", coefficients_json(fallback)},
-                                 {"note", "falling back to the standard's default setting"}});
+    emit(ev::CoastdownDiscarded{run, r.message + ": too little retarding force with this setting", fallback,
+                                "falling back to the standard's default setting"});
     set_ = fallback;
     if (unusable_ >= p.max_unusable_runs)
       return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) + ")"};
@@ -562,14 +433,12 @@ std::optional<Session::Stop> Session::do_run(int run) {
   if (t_last_coast_end_ < 0.0 || coastdowns_ == 0) {
     const double gap = release - t_warm_end_;
     const bool within = gap <= p.max_gap_after_warmup_s;
-    emit(within ? "timing" : "timing_rule_missed",
-         {{"rule", "first coast-down released within " + num(p.max_gap_after_warmup_s) +
-                       " s of the warm-up end (EU SA4 §8.1.2-8.1.3)"},
-          {"gap_s", gap},
-          {"within", within}});
+    emit(ev::ReleaseTiming{"first coast-down released within " + num(p.max_gap_after_warmup_s) +
+                               " s of the warm-up end (EU SA4 §8.1.2-8.1.3)",
+                           gap, within});
   } else {
-    emit("timing", {{"rule", "consecutive coast-downs start immediately (EU SA4 §8.1.3)"},
-                    {"gap_since_last_coast_s", release - t_last_coast_end_}});
+    emit(ev::ConsecutiveTiming{"consecutive coast-downs start immediately (EU SA4 §8.1.3)",
+                               release - t_last_coast_end_});
   }
   t_last_coast_end_ = t_now_;
 
@@ -588,6 +457,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
   rec.duration_s = trace.empty() ? 0.0 : trace.back().time_s - trace.front().time_s;
   rec.run_up_s = run_up_s;
   rec.verifying = method_->verifying();
+  rec.tolerance_n = p.tolerance_n;
   {
     // The analysis (the whole-trace fit above all) runs on a worker thread while this one keeps the link
     // alive: the controller's watchdog must never see the tool fall silent while the vehicle turns.
@@ -608,8 +478,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
   ++coastdowns_;
   if (!rec.evaluation.usable) {
     ++unusable_;
-    nlohmann::json j = to_json(rec, p);
-    if (!emit("coastdown", j, &trace)) return Stop{Outcome::record_failure, record_error_};
+    if (!emit(ev::Coastdown{rec}, &trace)) return Stop{Outcome::record_failure, record_error_};
     if (unusable_ >= p.max_unusable_runs)
       return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) +
                                              "): " + rec.evaluation.unusable_reason};
@@ -618,14 +487,13 @@ std::optional<Session::Stop> Session::do_run(int run) {
     if (divergence_)
       divergence_->add(set_, in_.vehicle.target, rec.evaluation.fit.coefficients,
                        rec.evaluation.check.worst_abs_deviation_n);
-    nlohmann::json j = to_json(rec, p);
-    // Predicted band times for the target at TM + m_r, beside the measured ones (what the rollers should do).
-    const auto predicted = core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_,
-                                                        p.reference_speeds_kmh, p.band_half_width_kmh);
-    for (std::size_t i = 0; i < predicted.size() && i < j["bands"].size(); ++i)
-      if (predicted[i]) j["bands"][i]["predicted_delta_t_s"] = *predicted[i];
+    // Predicted band times for the target at TM + m_r, beside the measured ones (what the rollers should do):
+    // part of the record from the start, so the event is complete when it is built.
+    for (const auto& t : core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_,
+                                                      p.reference_speeds_kmh, p.band_half_width_kmh))
+      rec.predicted_delta_t_s.push_back(t);
     last_ = rec;
-    if (!emit("coastdown", j, &trace)) return Stop{Outcome::record_failure, record_error_};
+    if (!emit(ev::Coastdown{rec}, &trace)) return Stop{Outcome::record_failure, record_error_};
     if (rec.decision.kind == core::Decision::Kind::accepted) {
       final_set_ = rec.decision.next_set;
       return Stop{Outcome::accepted, rec.decision.reason};
@@ -634,7 +502,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
       return Stop{Outcome::not_accepted, rec.decision.reason};
     if (divergence_)
       if (auto why = divergence_->verdict()) {
-        emit("diverging", {{"run", run}, {"why", *why}});
+        emit(ev::Diverging{run, *why});
         return Stop{Outcome::controller_fault, *why};
       }
     set_ = rec.decision.next_set;
@@ -652,7 +520,7 @@ void Session::do_safe_stop() {
   if (!link_up_ && !motion_commanded_) {
     rollers_stopped_ = true;
     stop_note_ = "nothing was commanded to move: the link to the controller never came up";
-    emit("safe_stop", {{"how", stop_note_}, {"rollers_stopped", true}});
+    emit(ev::SafeStop{stop_note_, true, std::nullopt});
     return;
   }
   Result r = Result::retry("the link is down");
@@ -663,7 +531,7 @@ void Session::do_safe_stop() {
     c_.disconnect();
     r = c_.connect();
     if (r.ok()) r = c_.controlled_stop();
-    emit("safe_stop_reconnect", {{"ok", r.ok()}, {"message", r.message}});
+    emit(ev::SafeStopReconnect{r.ok(), r.message});
   }
   // Without confirmation from the stream, ask the controller's status (every poll bounded in both clocks).
   controller::StatusReport st;
@@ -679,13 +547,9 @@ void Session::do_safe_stop() {
   else
     stop_note_ = "rollers not confirmed stopped: " + (sr.message.empty() ? r.message : sr.message) +
                  "; the controller's watchdog is the remaining safeguard";
-  emit("safe_stop",
-       {{"how", rollers_stopped_ ? "controlled stop" : "controlled stop commanded, standstill not confirmed"},
-        {"rollers_stopped", rollers_stopped_},
-        {"speed_kmh", st.speed_kmh},
-        {"mode", controller::to_string(st.mode)},
-        {"standstill_threshold_kmh", in_.cell.standstill_kmh},
-        {"note", stop_note_}});
+  emit(ev::SafeStop{
+      rollers_stopped_ ? "controlled stop" : "controlled stop commanded, standstill not confirmed",
+      rollers_stopped_, ev::SafeStop::Seen{st.speed_kmh, st.mode, in_.cell.standstill_kmh, stop_note_}});
 }
 
 Session::StopGuard::~StopGuard() {
@@ -738,7 +602,7 @@ Summary Session::run(const ResumePoint* resume) {
     s.measured = last_->evaluation.fit.coefficients;
     s.deviations = last_->evaluation.check.rows;
   }
-  emit("finished", to_json(s));
+  emit(ev::Finished{s});
   return s;
 }
 
@@ -753,7 +617,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     cell_time_before_ = resume->cell_time_s;
     for (const auto& r : resume->completed) {
       if (r.value("usable", false))
-        method_->on_coastdown(coefficients_from_json(r.at("set")), coefficients_from_json(r.at("simulated")),
+        method_->on_coastdown(road_load_from_json(r.at("set")), road_load_from_json(r.at("simulated")),
                               r.at("check").at("pass").get<bool>());
       run_no = std::max(run_no, r.at("run").get<int>() + 1);
     }
@@ -762,14 +626,10 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     set_ = resume->next_set;
     first_setting_ = resume->strategy;
     if (resume->discarded_run) run_no = std::max(run_no, *resume->discarded_run + 1);
-    emit("resumed",
-         {{"completed_coastdowns", coastdowns_},
-          {"unusable", unusable_},
-          {"next_set", coefficients_json(set_)},
-          {"discarded_run",
-           resume->discarded_run ? nlohmann::json(*resume->discarded_run) : nlohmann::json(nullptr)},
-          {"note", resume->discarded_run ? "the half-recorded coast-down is discarded and run again"
-                                         : "no run was in progress"}});
+    emit(ev::Resumed{static_cast<std::size_t>(coastdowns_),
+                     resume->discarded_run ? "the half-recorded coast-down is discarded and run again"
+                                           : "no run was in progress",
+                     ev::Resumed::Continued{unusable_, set_, resume->discarded_run}});
   }
   std::optional<Stop> stop = do_connect();
   if (!stop) stop = do_check_limits();
@@ -802,7 +662,10 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
         used = "standard";
       }
     };
-    nlohmann::json inputs = nlohmann::json::object();
+    // What the chosen strategy used, recorded beside its result.
+    std::optional<std::string> history_utc;
+    std::optional<core::RoadLoad> map_fit;
+    std::optional<double> map_residual_sd_n;
     if (in_.vehicle.initial_set) {
       used = "target-file";
       set_ = *in_.vehicle.initial_set;
@@ -823,7 +686,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
           if (opt_.history) {
             loss = opt_.history->loss();
             have_loss = true;
-            inputs["history_utc"] = opt_.history->utc;
+            history_utc = opt_.history->utc;
           } else {
             opt_.history.reset();
             fallback("no earlier session of this vehicle on this cell");
@@ -834,8 +697,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
           if (fit.ok) {
             loss = fit.coefficients;
             have_loss = true;
-            inputs["loss_map_fit"] = coefficients_json(fit.coefficients);
-            inputs["loss_map_residual_sd_n"] = fit.residual_sd_n;
+            map_fit = fit.coefficients;
+            map_residual_sd_n = fit.residual_sd_n;
           } else {
             fallback("no loss map (" + (loss_map_.empty() ? std::string("not measured") : fit.message) + ")");
           }
@@ -844,14 +707,11 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
       }
       set_ = have_loss ? core::setting_for_loss(in_.vehicle.target, loss)
                        : core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial);
-      if (have_loss) inputs["loss"] = coefficients_json(loss);
     }
     first_setting_ = used;
-    if (!emit("first_setting", {{"requested", core::to_string(opt_.first_setting)},
-                                {"strategy", used},
-                                {"fallback_reason", why},
-                                {"set", coefficients_json(set_)},
-                                {"inputs", inputs}}))
+    if (!emit(ev::FirstSetting{core::to_string(opt_.first_setting), used, why, set_, history_utc, map_fit,
+                               map_residual_sd_n,
+                               have_loss ? std::optional<core::RoadLoad>(loss) : std::nullopt}))
       stop = Stop{Outcome::record_failure, record_error_};
   }
   while (!stop) {

@@ -55,37 +55,10 @@
 #include "core/strategy.hpp"
 #include "core/vehicle.hpp"
 #include "motion/motion.hpp"
+#include "session/events.hpp"
+#include "session/resume.hpp"
 
 namespace loadtrim::session {
-
-enum class State : std::uint8_t {
-  connect,
-  check_limits,
-  set_inertia,
-  warm_up,
-  write_set,
-  run_up,
-  coast_down,
-  analyse,
-  safe_stop,
-  finished
-};
-const char* to_string(State s);
-
-enum class Outcome : std::uint8_t {
-  accepted,
-  not_accepted,
-  refused,
-  controller_fault,
-  interrupted,
-  record_failure
-};
-const char* to_string(Outcome o);
-// A final result is a verdict (accepted, not accepted, refused): the session is over and its folder is
-// sealed. The others (a controller fault, an interruption, a record failure) leave a session that `resume`
-// may continue.
-bool is_final(Outcome o);
-bool is_final(const std::string& result);  // as to_string(Outcome) writes it
 
 struct Options {
   core::FirstSetting first_setting = core::FirstSetting::loss_map;
@@ -101,94 +74,11 @@ struct Options {
       true;  // the independent estimate beside the band method (benchmarks may skip it)
 };
 
-// What the session hands its observers. `trace` is set on "coastdown" events only.
-struct Event {
-  std::string type;
-  nlohmann::json data;
-  const std::vector<controller::Sample>* trace = nullptr;
-};
-
-struct Progress {
-  State state = State::connect;
-  int coastdown = 0;
-  double speed_kmh = 0.0;
-  double band_kmh = 0.0;     // reference speed whose band the coast is in (0 = none)
-  double cell_time_s = 0.0;  // controller time since the session started
-  double remaining_estimate_s = 0.0;
-};
-
-// Observers: the record writer, the console, anything else. on_event returning false (or throwing) means the
-// observer could not do its job. For a critical observer (the record: an event that could not be made
-// durable) the session stops safely with Outcome::record_failure, and the non-critical observers do not see
-// that event (the console never shows a result whose record was not written). Any other observer that fails
-// is logged and dropped. While an observer runs, the controller's keep-alive goes on for at most
-// record_budget (critical) or the cell's progress grace (others): an observer that hangs longer lets the
-// controller's watchdog stop the rollers.
-class Observer {
- public:
-  virtual ~Observer() = default;
-  virtual bool on_event(const Event& e) = 0;
-  virtual void on_progress(const Progress&) {}
-  virtual std::string error() const { return {}; }
-  virtual bool critical() const { return false; }
-  virtual std::string name() const { return "an observer"; }
-};
-
 struct Inputs {
   controller::CellConfig cell;
   core::Profile profile;
   core::VehicleTarget vehicle;
 };
-
-// The per-coast-down record (also the "coastdown" event's data).
-struct CoastdownRecord {
-  int run = 0;
-  core::RoadLoad set;
-  core::CoastdownEvaluation evaluation;
-  core::Decision decision;
-  double release_time_s = 0.0;  // controller time
-  double duration_s = 0.0;
-  double run_up_s = 0.0;
-  bool verifying = false;
-};
-nlohmann::json to_json(const CoastdownRecord& r, const core::Profile& p);
-
-// What a resumed session takes over from its log.
-struct ResumePoint {
-  std::vector<nlohmann::json> completed;  // "coastdown" records, in order
-  int unusable = 0;
-  std::optional<int> discarded_run;  // a run started but not completed
-  core::RoadLoad next_set;
-  bool have_next_set = false;
-  std::string strategy;
-  double cell_time_s = 0.0;    // controller time used before the interruption
-  int malformed = 0;           // records that could not be read as this version writes them
-  std::string malformed_note;  // the first of them: "record N (type): what is missing"; resume refuses
-  // A result the record already holds (the method's verdict in a coast-down record, a refusal, or a final
-  // "finished" record) when the process ended before the folder was sealed: resume finalises it without
-  // motoring and never runs another coast-down.
-  std::optional<Outcome> verdict;
-  std::string verdict_reason;
-  std::optional<core::RoadLoad> final_set;  // as the decision gave it (not yet rounded)
-  bool finished_recorded = false;  // the final "finished" record (and summary.json) is already written
-  int iterations = 0;              // distinct settings written
-};
-
-struct Summary {
-  Outcome outcome = Outcome::not_accepted;
-  std::string stop_reason;
-  int iterations = 0;  // distinct settings tried
-  int coastdowns = 0;
-  int usable_coastdowns = 0;
-  double cell_time_s = 0.0;
-  std::optional<core::RoadLoad> final_set;
-  std::optional<core::RoadLoad> measured;
-  std::vector<core::SpeedDeviation> deviations;
-  std::string first_setting;
-  bool rollers_stopped = false;  // standstill confirmed by the controller at the end
-  std::string stop_note;         // how the rollers were stopped, or why that could not be confirmed
-};
-nlohmann::json to_json(const Summary& s);
 
 class Session {
  public:
@@ -202,8 +92,8 @@ class Session {
     Outcome outcome;
     std::string reason;
   };
-  bool emit(const std::string& type, nlohmann::json data,
-            const std::vector<controller::Sample>* trace = nullptr);
+  // Delivers one event, complete, with the session's stamp; false when the record could not hold it.
+  bool emit(Payload event, const std::vector<controller::Sample>* trace = nullptr);
   void progress(double speed_kmh, double band_kmh = 0.0);
   void transition(State to, const std::string& why = "");
   bool stop_requested() const { return stop_flag_ && stop_flag_->load(); }
@@ -233,7 +123,7 @@ class Session {
   Options opt_;
   controller::Controller& c_;
   motion::Motion motion_;
-  std::vector<Observer*> observers_;
+  Observers observers_;
   const std::atomic<bool>* stop_flag_;
   State state_ = State::connect;
   controller::ControllerInfo info_;
@@ -257,11 +147,5 @@ class Session {
   double last_progress_s_ = -1e300;
   std::optional<core::DivergenceWatch> divergence_;
 };
-
-// Rebuilds where a session stood from its log records (pure: the records are passed in).
-ResumePoint resume_point(const std::vector<nlohmann::json>& records);
-// The summary of a session whose verdict the record already holds (ResumePoint::verdict), from the record
-// alone.
-Summary summary_from_record(const ResumePoint& p, const core::Profile& profile);
 
 }  // namespace loadtrim::session

@@ -43,8 +43,8 @@ class Recorder : public session::Observer {
   explicit Recorder(bool critical, std::string fail_on = "", bool throws = false)
       : critical_(critical), fail_on_(std::move(fail_on)), throws_(throws) {}
   bool on_event(const session::Event& e) override {
-    types.push_back(e.type);
-    if (!fail_on_.empty() && e.type == fail_on_) {
+    types.push_back(session::type_of(e));
+    if (!fail_on_.empty() && types.back() == fail_on_) {
       if (throws_) throw std::runtime_error("scripted observer failure");
       return false;
     }
@@ -85,6 +85,18 @@ TEST(SessionUnit, AThrowingViewIsDroppedAndTheSessionGoesOn) {
   EXPECT_TRUE(record.saw("observer_dropped"));
   EXPECT_EQ(std::count(console.types.begin(), console.types.end(), "coastdown"), 1)
       << "dropped after it threw";
+}
+
+TEST(SessionUnit, AViewThatSaysNoIsDroppedOnceAndTheSessionGoesOn) {
+  FakeController c(loadtrim::testing::demo_truth());
+  Recorder record(true);
+  Recorder console(false, "first_setting");  // returns false: only the record may fail a session
+  session::Session s(inputs(), options(), c, {&record, &console});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+  EXPECT_EQ(std::count(record.types.begin(), record.types.end(), "observer_dropped"), 1) << "said once";
+  EXPECT_EQ(console.types.back(), "first_setting") << "never called again after it failed";
 }
 
 TEST(SessionUnit, AFailingRecordStopsSafelyAndNothingUnrecordedIsShown) {

@@ -1,0 +1,566 @@
+// The JSON form of every event: the record format of events.jsonl (docs/session.md, docs/records.md). Each
+// mapping writes exactly the members (names, JSON number kinds) earlier versions wrote, so folders written
+// before and after read alike; tests/unit/events_test.cpp pins them.
+#include "session/events.hpp"
+
+#include <algorithm>
+#include <cmath>
+
+namespace loadtrim::session {
+
+const char* to_string(State s) {
+  switch (s) {
+    case State::connect:
+      return "connect";
+    case State::check_limits:
+      return "check_limits";
+    case State::set_inertia:
+      return "set_inertia";
+    case State::warm_up:
+      return "warm_up";
+    case State::write_set:
+      return "write_set";
+    case State::run_up:
+      return "run_up";
+    case State::coast_down:
+      return "coast_down";
+    case State::analyse:
+      return "analyse";
+    case State::safe_stop:
+      return "safe_stop";
+    case State::finished:
+      return "finished";
+  }
+  return "unknown";
+}
+
+const char* to_string(Outcome o) {
+  switch (o) {
+    case Outcome::accepted:
+      return "accepted";
+    case Outcome::not_accepted:
+      return "not-accepted";
+    case Outcome::refused:
+      return "refused";
+    case Outcome::controller_fault:
+      return "controller-fault";
+    case Outcome::interrupted:
+      return "interrupted";
+    case Outcome::record_failure:
+      return "record-failure";
+  }
+  return "unknown";
+}
+
+bool is_final(Outcome o) {
+  return o == Outcome::accepted || o == Outcome::not_accepted || o == Outcome::refused;
+}
+bool is_final(const std::string& r) {
+  return r == to_string(Outcome::accepted) || r == to_string(Outcome::not_accepted) ||
+         r == to_string(Outcome::refused);
+}
+
+nlohmann::json to_json(const core::RoadLoad& c) {
+  return {{"f0_n", c.f0_n}, {"f1_n_per_kmh", c.f1_n_per_kmh}, {"f2_n_per_kmh2", c.f2_n_per_kmh2}};
+}
+
+core::RoadLoad road_load_from_json(const nlohmann::json& j) {
+  return {j.at("f0_n").get<double>(), j.at("f1_n_per_kmh").get<double>(),
+          j.at("f2_n_per_kmh2").get<double>()};
+}
+
+namespace {
+
+nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
+  nlohmann::json out = nlohmann::json::array();
+  for (const auto& d : rows)
+    out.push_back({{"speed_kmh", d.speed_kmh},
+                   {"target_n", d.target_n},
+                   {"measured_n", d.measured_n},
+                   {"deviation_n", d.deviation_n},
+                   {"pass", d.pass}});
+  return out;
+}
+
+nlohmann::json common_json(const ev::StartCommon& c) {
+  return {{"vehicle", c.vehicle},
+          {"cell", c.cell},
+          {"profile", c.profile},
+          {"dyno_checks", c.dyno_checks},
+          {"operator", c.operator_id},
+          {"data_root", {{"path", c.data_root_path}, {"from", c.data_root_from}}},
+          {"signing_key", c.signing_key},
+          {"confirmation", c.confirmation},
+          {"target", to_json(c.target)},
+          {"vehicle_description", c.vehicle_description},
+          {"test_mass_kg", c.test_mass_kg},
+          {"standard", c.standard},
+          {"tolerance_n", c.tolerance_n},
+          {"reference_speeds_kmh", c.reference_speeds_kmh},
+          {"software", {{"version", c.software_version}, {"build", c.software_build}}},
+          {"operator_note", c.operator_note},
+          {"first_setting_requested", c.first_setting_requested},
+          {"history_file", c.history_file},
+          {"history_available", c.history_available}};
+}
+
+// One overload per event: the record's data. Members are those earlier versions wrote, with their JSON kinds
+// (an int stays an int, a size stays unsigned), because the report and resume read them back.
+struct Mapper {
+  nlohmann::json operator()(const ev::SessionStarted& e) const {
+    nlohmann::json j = common_json(e.common);
+    j["method"] = e.method;
+    j["files"] = e.files;
+    j["overrides"] = {{"port", e.port_override}, {"device", e.device_override}};
+    j["inprocess"] = e.inprocess;
+    j["combination_warnings"] = e.combination_warnings;
+    j["two_wheel_drive_mode"] = e.two_wheel_drive_mode;
+    j["cell_lock"] = {{"endpoint", e.cell_lock_endpoint}, {"stale_lock_taken_over", e.stale_lock_taken_over}};
+    return j;
+  }
+  nlohmann::json operator()(const ev::ResumeStarted& e) const {
+    nlohmann::json j = common_json(e.common);
+    j["records_before"] = e.records_before;
+    j["completed_coastdowns"] = e.completed_coastdowns;
+    j["folder_verified"] = e.folder_verified;
+    return j;
+  }
+  nlohmann::json operator()(const ev::StateChanged& e) const {
+    return {{"from", to_string(e.from)}, {"to", to_string(e.to)}, {"why", e.why}};
+  }
+  nlohmann::json operator()(const ev::ControllerIdentified& e) const {
+    const auto& i = e.info;
+    return {{"name", i.name},
+            {"protocol_version", i.protocol_version},
+            {"capabilities", i.capabilities},
+            {"roller_diameter_m", i.roller_diameter_m},
+            {"base_inertia_kg", i.base_inertia_kg},
+            {"max_speed_kmh", i.max_speed_kmh},
+            {"max_force_n", i.max_force_n}};
+  }
+  nlohmann::json operator()(const ev::ControllerStateOnConnect& e) const {
+    return {{"fault", e.fault}, {"speed_kmh", e.speed_kmh}, {"mode", controller::to_string(e.mode)}};
+  }
+  nlohmann::json operator()(const ev::Refused& e) const { return {{"why", e.why}}; }
+  nlohmann::json operator()(const ev::Limits& e) const {
+    return {{"speed_limit_kmh", e.speed_limit_kmh},
+            {"start_speed_kmh", e.start_speed_kmh},
+            {"end_speed_kmh", e.end_speed_kmh},
+            {"cell_max_speed_kmh", e.cell_max_speed_kmh},
+            {"vehicle_max_speed_kmh", e.vehicle_max_speed_kmh},
+            {"controller_max_speed_kmh", e.controller_max_speed_kmh},
+            {"max_motoring_s", e.max_motoring_s}};
+  }
+  nlohmann::json operator()(const ev::InertiaSet& e) const {
+    return {{"test_mass_kg", e.test_mass_kg},    {"rotating_mass_kg", e.rotating_mass_kg},
+            {"force_mass_kg", e.force_mass_kg},  {"inertia_kg", e.inertia_kg},
+            {"axles", core::to_string(e.axles)}, {"read_back", "matches"}};
+  }
+  nlohmann::json operator()(const ev::WarmUpStarted& e) const {
+    return {{"speed_kmh", e.speed_kmh},
+            {"duration_s", e.duration_s},
+            {"loss_map_planned_s", e.loss_map_planned_s}};
+  }
+  nlohmann::json operator()(const ev::WarmUpHeld& e) const {
+    return {{"speed_kmh", e.speed_kmh},
+            {"held_s", e.held_s},
+            {"stable", e.stable},
+            {"stability_threshold_n", e.stability_threshold_n},
+            {"last_window_force_n",
+             e.last_window_force_n ? nlohmann::json(*e.last_window_force_n) : nlohmann::json(nullptr)}};
+  }
+  nlohmann::json operator()(const ev::LossMapSkipped& e) const { return {{"why", e.why}}; }
+  nlohmann::json operator()(const ev::LossMapPointSkipped& e) const {
+    return {{"speed_kmh", e.speed_kmh}, {"why", e.why}};
+  }
+  nlohmann::json operator()(const ev::LossMapPoint& e) const {
+    return {{"speed_kmh", e.point.speed_kmh},
+            {"force_n", e.point.force_n},
+            {"force_sd_n", e.point.force_sd_n},
+            {"samples", e.point.samples}};
+  }
+  nlohmann::json operator()(const ev::WarmUpEnded&) const { return nlohmann::json::object(); }
+  nlohmann::json operator()(const ev::FirstSetting& e) const {
+    nlohmann::json inputs = nlohmann::json::object();
+    if (e.history_utc) inputs["history_utc"] = *e.history_utc;
+    if (e.loss_map_fit) inputs["loss_map_fit"] = to_json(*e.loss_map_fit);
+    if (e.loss_map_residual_sd_n) inputs["loss_map_residual_sd_n"] = *e.loss_map_residual_sd_n;
+    if (e.loss) inputs["loss"] = to_json(*e.loss);
+    return {{"requested", e.requested},
+            {"strategy", e.strategy},
+            {"fallback_reason", e.fallback_reason},
+            {"set", to_json(e.set)},
+            {"inputs", inputs}};
+  }
+  nlohmann::json operator()(const ev::EnvelopeRefused& e) const {
+    return {{"run", e.run}, {"set", to_json(e.set)}, {"why", e.why}};
+  }
+  nlohmann::json operator()(const ev::SetWritten& e) const {
+    return {{"run", e.run}, {"set", to_json(e.set)}, {"read_back", "matches"}, {"iteration", e.iteration}};
+  }
+  nlohmann::json operator()(const ev::CoastdownStarted& e) const {
+    return {{"run", e.run}, {"set", to_json(e.set)}, {"start_speed_kmh", e.start_speed_kmh}};
+  }
+  nlohmann::json operator()(const ev::ReleaseTiming& e) const {
+    return {{"rule", e.rule}, {"gap_s", e.gap_s}, {"within", e.within}};
+  }
+  nlohmann::json operator()(const ev::ConsecutiveTiming& e) const {
+    return {{"rule", e.rule}, {"gap_since_last_coast_s", e.gap_since_last_coast_s}};
+  }
+  nlohmann::json operator()(const ev::Coastdown& e) const { return to_json(e.record); }
+  nlohmann::json operator()(const ev::CoastdownDiscarded& e) const {
+    nlohmann::json j = {{"run", e.run}, {"why", e.why}};
+    if (e.next_set) j["next_set"] = to_json(*e.next_set);
+    if (e.note) j["note"] = *e.note;
+    return j;
+  }
+  nlohmann::json operator()(const ev::Diverging& e) const { return {{"run", e.run}, {"why", e.why}}; }
+  nlohmann::json operator()(const ev::LinkLost& e) const {
+    return {{"why", e.why},
+            {"incident", e.incident},
+            {"note", "the controller's watchdog takes the rollers to a stop"}};
+  }
+  nlohmann::json operator()(const ev::Reconnect& e) const {
+    nlohmann::json j = {{"attempt", e.attempt}, {"of", e.of}, {"message", e.message}};
+    if (e.ok) j["ok"] = *e.ok;
+    return j;
+  }
+  nlohmann::json operator()(const ev::NotSettled& e) const {
+    return {{"when", e.when}, {"message", e.message}};
+  }
+  nlohmann::json operator()(const ev::FaultCleared& e) const {
+    return {
+        {"fault", e.fault}, {"when", e.when}, {"rollers", "stopped"}, {"ok", e.ok}, {"message", e.message}};
+  }
+  nlohmann::json operator()(const ev::LinkRestored& e) const {
+    return {{"attempt", e.attempt}, {"rollers", "stopped"}};
+  }
+  nlohmann::json operator()(const ev::Fault& e) const {
+    return {{"during", e.during},
+            {"message", e.message},
+            {"status", controller::to_string(e.status)},
+            {"code", e.code}};
+  }
+  nlohmann::json operator()(const ev::Interrupted& e) const { return {{"during", e.during}}; }
+  nlohmann::json operator()(const ev::Resumed& e) const {
+    nlohmann::json j = {{"completed_coastdowns", e.completed_coastdowns}, {"note", e.note}};
+    if (const auto* c = std::get_if<ev::Resumed::Continued>(&e.how)) {
+      j["unusable"] = c->unusable;
+      j["next_set"] = to_json(c->next_set);
+      j["discarded_run"] = c->discarded_run ? nlohmann::json(*c->discarded_run) : nlohmann::json(nullptr);
+    } else {
+      const auto& f = std::get<ev::Resumed::Finalised>(e.how);
+      j["rollers_stopped"] = f.rollers_stopped;
+      j["stop_note"] = f.stop_note;
+    }
+    return j;
+  }
+  nlohmann::json operator()(const ev::SafeStopReconnect& e) const {
+    return {{"ok", e.ok}, {"message", e.message}};
+  }
+  nlohmann::json operator()(const ev::SafeStop& e) const {
+    nlohmann::json j = {{"how", e.how}, {"rollers_stopped", e.rollers_stopped}};
+    if (e.seen) {
+      j["speed_kmh"] = e.seen->speed_kmh;
+      j["mode"] = controller::to_string(e.seen->mode);
+      j["standstill_threshold_kmh"] = e.seen->standstill_threshold_kmh;
+      j["note"] = e.seen->note;
+    }
+    return j;
+  }
+  nlohmann::json operator()(const ev::ObserverDropped& e) const { return {{"why", e.why}}; }
+  nlohmann::json operator()(const ev::Finished& e) const { return to_json(e.summary); }
+
+  nlohmann::json operator()(const ev::CheckStarted& e) const {
+    nlohmann::json j = {{"check", e.check},
+                        {"cell", e.cell},
+                        {"files", e.files},
+                        {"confirmation", e.confirmation},
+                        {"note", e.note},
+                        {"vehicle_on_rollers", false},
+                        {"operator", e.operator_id},
+                        {"signing_key", e.signing_key}};
+    if (e.stored_parasitic_curve)
+      j["stored_parasitic_curve"] = {{"curve", to_json(*e.stored_parasitic_curve)},
+                                     {"utc", e.stored_parasitic_utc}};
+    return j;
+  }
+  nlohmann::json operator()(const ev::CheckIdentified& e) const {
+    return {{"name", e.name},
+            {"roller_diameter_m", e.roller_diameter_m},
+            {"base_inertia_kg", e.base_inertia_kg},
+            {"problems", e.problems}};
+  }
+  nlohmann::json operator()(const ev::FreeCoastStarted& e) const {
+    return {{"from_kmh", e.from_kmh}, {"simulation", "off (free coast of the empty rollers)"}};
+  }
+  nlohmann::json operator()(const ev::CheckCoastStarted& e) const {
+    return {{"run", e.run}, {"inertia_kg", e.inertia_kg}, {"set", to_json(e.set)}, {"from_kmh", e.from_kmh}};
+  }
+  nlohmann::json operator()(const ev::ForceApplied& e) const {
+    return {
+        {"force_n", e.force_n}, {"stated_base_inertia_kg", e.stated_base_inertia_kg}, {"simulation", "off"}};
+  }
+  nlohmann::json operator()(const ev::ParasiticAnalysed& e) const {
+    const auto& d = e.determination;
+    nlohmann::json bands = nlohmann::json::array();
+    for (const auto& b : d.bands)
+      bands.push_back({{"speed_kmh", b.reference_speed_kmh},
+                       {"ok", b.ok()},
+                       {"reason", b.reason},
+                       {"delta_t_s", b.delta_t_s},
+                       {"force_n", b.force_n}});
+    nlohmann::json points = nlohmann::json::array();
+    for (const auto& p : d.points)
+      points.push_back({{"speed_kmh", p.speed_kmh},
+                        {"measured_n", p.measured_n},
+                        {"stored_n", p.stored_n},
+                        {"deviation_n", p.deviation_n},
+                        {"limit_n", p.limit_n},
+                        {"passed", p.passed}});
+    nlohmann::json j = {{"base_inertia_kg", e.base_inertia_kg},
+                        {"bands", bands},
+                        {"points", points},
+                        {"have_stored", d.have_stored},
+                        {"mean_ratio", d.mean_ratio},
+                        {"files", nlohmann::json::array({e.file})}};
+    if (d.ok) {
+      j["curve"] = to_json(d.fit.coefficients);
+      j["residual_sd_n"] = d.fit.residual_sd_n;
+    }
+    if (e.stored) j["stored_curve"] = to_json(*e.stored);
+    return j;
+  }
+  nlohmann::json operator()(const ev::UnloadedCoastdownAnalysed& e) const {
+    nlohmann::json iv = nlohmann::json::array();
+    for (const auto& i : e.result.intervals)
+      iv.push_back({{"from_mph", i.v_high_mph},
+                    {"to_mph", i.v_low_mph},
+                    {"delta_t_s", i.delta_t_s},
+                    {"expected_delta_t_s", i.expected_delta_t_s},
+                    {"mean_force_n", i.mean_force_n},
+                    {"expected_force_n", i.expected_force_n},
+                    {"deviation_n", i.deviation_n},
+                    {"limit_n", i.limit_n},
+                    {"passed", i.passed},
+                    {"reason", i.reason}});
+    return {{"run", e.run},
+            {"inertia_kg", e.inertia_kg},
+            {"set", to_json(e.set)},
+            {"intervals", iv},
+            {"passed", e.result.passed},
+            {"verdict", e.result.verdict},
+            {"files", nlohmann::json::array({e.file})}};
+  }
+  nlohmann::json operator()(const ev::InertiaAnalysed& e) const {
+    const auto& r = e.result;
+    return {{"force_n", e.force_n},
+            {"t_low_s", r.t_low_s},
+            {"t_high_s", r.t_high_s},
+            {"delta_t_s", r.delta_t_s},
+            {"delta_v_mps", r.delta_v_mps},
+            {"mean_force_n", r.mean_force_n},
+            {"inertia_kg", r.inertia_kg},
+            {"stated_kg", e.stated_kg},
+            {"error_fraction", r.error_fraction},
+            {"tolerance_fraction", e.tolerance_fraction},
+            {"passed", e.passed},
+            {"files", nlohmann::json::array({e.file})}};
+  }
+  nlohmann::json operator()(const ev::CheckFinished& e) const {
+    return {{"check", e.check},
+            {"end", e.end},
+            {"passed", e.passed},
+            {"verdict", e.verdict},
+            {"files", nlohmann::json::array({e.file})}};
+  }
+};
+
+struct Typer {
+  const char* operator()(const ev::SessionStarted&) const { return "session_started"; }
+  const char* operator()(const ev::ResumeStarted&) const { return "resume_started"; }
+  const char* operator()(const ev::StateChanged&) const { return "state"; }
+  const char* operator()(const ev::ControllerIdentified&) const { return "controller"; }
+  const char* operator()(const ev::ControllerStateOnConnect&) const { return "controller_state_on_connect"; }
+  const char* operator()(const ev::Refused&) const { return "refused"; }
+  const char* operator()(const ev::Limits&) const { return "limits"; }
+  const char* operator()(const ev::InertiaSet&) const { return "inertia"; }
+  const char* operator()(const ev::WarmUpStarted&) const { return "warm_up_started"; }
+  const char* operator()(const ev::WarmUpHeld&) const { return "warm_up"; }
+  const char* operator()(const ev::LossMapSkipped&) const { return "loss_map_skipped"; }
+  const char* operator()(const ev::LossMapPointSkipped&) const { return "loss_map_point_skipped"; }
+  const char* operator()(const ev::LossMapPoint&) const { return "loss_map_point"; }
+  const char* operator()(const ev::WarmUpEnded&) const { return "warm_up_ended"; }
+  const char* operator()(const ev::FirstSetting&) const { return "first_setting"; }
+  const char* operator()(const ev::EnvelopeRefused&) const { return "envelope_refused"; }
+  const char* operator()(const ev::SetWritten&) const { return "set_written"; }
+  const char* operator()(const ev::CoastdownStarted&) const { return "coastdown_started"; }
+  const char* operator()(const ev::ReleaseTiming& e) const {
+    return e.within ? "timing" : "timing_rule_missed";
+  }
+  const char* operator()(const ev::ConsecutiveTiming&) const { return "timing"; }
+  const char* operator()(const ev::Coastdown&) const { return "coastdown"; }
+  const char* operator()(const ev::CoastdownDiscarded&) const { return "coastdown_discarded"; }
+  const char* operator()(const ev::Diverging&) const { return "diverging"; }
+  const char* operator()(const ev::LinkLost&) const { return "link_lost"; }
+  const char* operator()(const ev::Reconnect&) const { return "reconnect"; }
+  const char* operator()(const ev::NotSettled&) const { return "not_settled"; }
+  const char* operator()(const ev::FaultCleared&) const { return "fault_cleared"; }
+  const char* operator()(const ev::LinkRestored&) const { return "link_restored"; }
+  const char* operator()(const ev::Fault&) const { return "fault"; }
+  const char* operator()(const ev::Interrupted&) const { return "interrupted"; }
+  const char* operator()(const ev::Resumed&) const { return "resumed"; }
+  const char* operator()(const ev::SafeStopReconnect&) const { return "safe_stop_reconnect"; }
+  const char* operator()(const ev::SafeStop&) const { return "safe_stop"; }
+  const char* operator()(const ev::ObserverDropped&) const { return "observer_dropped"; }
+  const char* operator()(const ev::Finished&) const { return "finished"; }
+  const char* operator()(const ev::CheckStarted&) const { return "check_started"; }
+  const char* operator()(const ev::CheckIdentified&) const { return "identified"; }
+  const char* operator()(const ev::FreeCoastStarted&) const { return "coast_started"; }
+  const char* operator()(const ev::CheckCoastStarted&) const { return "coast_started"; }
+  const char* operator()(const ev::ForceApplied&) const { return "force_applied"; }
+  const char* operator()(const ev::ParasiticAnalysed&) const { return "analysed"; }
+  const char* operator()(const ev::UnloadedCoastdownAnalysed&) const { return "analysed"; }
+  const char* operator()(const ev::InertiaAnalysed&) const { return "analysed"; }
+  const char* operator()(const ev::CheckFinished&) const { return "check_finished"; }
+};
+
+}  // namespace
+
+nlohmann::json to_json(const CoastdownRecord& r) {
+  const auto& e = r.evaluation;
+  nlohmann::json bands = nlohmann::json::array();
+  for (std::size_t i = 0; i < e.bands.size(); ++i) {
+    const auto& b = e.bands[i];
+    nlohmann::json jb = {{"speed_kmh", b.reference_speed_kmh}, {"status", core::to_string(b.status)}};
+    if (b.ok()) {
+      jb["t_upper_s"] = b.t_upper_s;
+      jb["t_lower_s"] = b.t_lower_s;
+      jb["delta_t_s"] = b.delta_t_s;
+      jb["force_n"] = b.force_n;
+    } else {
+      jb["reason"] = b.reason;
+    }
+    // The prediction goes beside the measurement of a usable run only (what the rollers should have done).
+    if (e.usable && i < r.predicted_delta_t_s.size() && r.predicted_delta_t_s[i])
+      jb["predicted_delta_t_s"] = *r.predicted_delta_t_s[i];
+    bands.push_back(jb);
+  }
+  nlohmann::json j = {{"run", r.run},
+                      {"set", to_json(r.set)},
+                      {"usable", e.usable},
+                      {"bands", bands},
+                      {"release_time_s", r.release_time_s},
+                      {"duration_s", r.duration_s},
+                      {"run_up_s", r.run_up_s},
+                      {"verifying", r.verifying}};
+  if (!e.usable) {
+    j["unusable_reason"] = e.unusable_reason;
+    return j;
+  }
+  j["simulated"] = to_json(e.fit.coefficients);
+  j["simulated_std_error"] = {{"f0_n", std::sqrt(std::max(0.0, e.fit.covariance(0, 0)))},
+                              {"f1_n_per_kmh", std::sqrt(std::max(0.0, e.fit.covariance(1, 1)))},
+                              {"f2_n_per_kmh2", std::sqrt(std::max(0.0, e.fit.covariance(2, 2)))}};
+  j["regression_residual_sd_n"] = e.fit.residual_sd_n;
+  if (e.whole_trace.ok)
+    j["whole_trace"] = {{"coefficients", to_json(e.whole_trace.coefficients)},
+                        {"rms_residual_kmh", e.whole_trace.rms_residual_kmh},
+                        {"evaluations", e.whole_trace.evaluations}};
+  else
+    j["whole_trace"] = {{"failed", e.whole_trace.message}};
+  j["estimator_disagreement_n"] = e.estimator_disagreement_n;
+  j["estimators_disagree"] = e.estimators_disagree;
+  j["check"] = {{"pass", e.check.pass},
+                {"worst_abs_deviation_n", e.check.worst_abs_deviation_n},
+                {"tolerance_n", r.tolerance_n},
+                {"rows", deviations_json(e.check.rows)}};
+  j["decision"] = {{"kind", core::to_string(r.decision.kind)},
+                   {"reason", r.decision.reason},
+                   {"next_set", to_json(r.decision.next_set)}};
+  return j;
+}
+
+nlohmann::json to_json(const Summary& s) {
+  nlohmann::json j = {{"result", to_string(s.outcome)},       {"accepted", s.outcome == Outcome::accepted},
+                      {"stop_reason", s.stop_reason},         {"iterations", s.iterations},
+                      {"coastdowns", s.coastdowns},           {"usable_coastdowns", s.usable_coastdowns},
+                      {"cell_time_s", s.cell_time_s},         {"first_setting", s.first_setting},
+                      {"rollers_stopped", s.rollers_stopped}, {"stop_note", s.stop_note}};
+  if (s.final_set) j["final_set"] = to_json(*s.final_set);
+  if (s.measured) j["measured"] = to_json(*s.measured);
+  j["deviations"] = deviations_json(s.deviations);
+  return j;
+}
+
+const char* type_of(const Payload& p) {
+  return std::visit(Typer{}, p);
+}
+nlohmann::json to_json(const Payload& p) {
+  return std::visit(Mapper{}, p);
+}
+const char* type_of(const Event& e) {
+  return type_of(e.payload);
+}
+
+nlohmann::json record_json(const Event& e) {
+  nlohmann::json j = to_json(e.payload);
+  if (e.stamp) {
+    j["state"] = to_string(e.stamp->state);
+    if (e.stamp->t_s) j["t_s"] = *e.stamp->t_s;
+    if (e.stamp->cell_time_s) j["cell_time_s"] = *e.stamp->cell_time_s;
+  }
+  return j;
+}
+
+Observers::Delivery Observers::deliver(const Event& e, const std::function<void(bool)>& before_each) {
+  Delivery d;
+  for (auto it = list_.begin(); it != list_.end();) {
+    Observer* o = *it;
+    const bool critical = o->critical();
+    if (d.critical_failed && !critical) {  // nothing is shown that the record does not hold
+      ++it;
+      continue;
+    }
+    if (before_each) before_each(critical);
+    bool ok = false;
+    std::string err;
+    try {
+      ok = o->on_event(e);
+      if (!ok) err = o->error();
+    } catch (const std::exception& ex) {
+      err = std::string("threw: ") + ex.what();
+    } catch (...) {
+      err = "threw an unknown exception";
+    }
+    if (!ok && critical) {
+      if (!d.critical_failed) d.critical_error = err.empty() ? "the record could not be written" : err;
+      d.critical_failed = true;
+    } else if (!ok) {
+      // A view that fails is a view lost, not a session lost: said once, and never asked again.
+      std::string name;
+      try {
+        name = o->name();
+      } catch (...) {
+        name = "an observer";
+      }
+      d.dropped.push_back(name + " failed on a \"" + type_of(e) +
+                          "\" event and was dropped: " + (err.empty() ? "no reason given" : err));
+      it = list_.erase(it);
+      continue;
+    }
+    ++it;
+  }
+  return d;
+}
+
+void Observers::progress(const Progress& p) {
+  for (Observer* o : list_) {
+    try {
+      o->on_progress(p);
+    } catch (...) {  // progress is a view: a failing one never stops the session
+    }
+  }
+}
+
+}  // namespace loadtrim::session

@@ -1,0 +1,445 @@
+// The typed events of a setting session and of the dyno's own checks: one struct per record kind, one JSON
+// mapping each (to_json below), and the observer interface that every consumer implements (the record
+// writer, the console, the check runner's log, the test hooks, the benchmark).
+//
+// The JSON mappings ARE the on-disk record format (docs/records.md, docs/session.md): events.jsonl holds, for
+// each event, {"seq", "utc", "type": type_of(event), ...record_json(event), "prev"}. The report, verify,
+// resume and the tamper tests read those field names, so a mapping changes only with the format. Field
+// names carry their unit; a road-load curve is always written by to_json(core::RoadLoad), the one place
+// that spells "f0_n", "f1_n_per_kmh", "f2_n_per_kmh2".
+//
+// An event is built complete, once, by whoever knows its facts; nothing is added to it afterwards. What is
+// added around it is not the event's: the session's stamp (state and clocks at the moment it was emitted,
+// Event::stamp) and, in the record writer, the files the writer itself wrote for it (a trace, summary.json).
+//
+// Pure: no files, clocks or threads (a check's or session's emitter owns those).
+#pragma once
+
+#include <cstdint>
+#include <functional>
+#include <nlohmann/json.hpp>
+#include <optional>
+#include <string>
+#include <variant>
+#include <vector>
+
+#include "controller/controller.hpp"
+#include "core/dyno_checks.hpp"
+#include "core/evaluation.hpp"
+#include "core/road_load.hpp"
+#include "core/setting.hpp"
+#include "core/strategy.hpp"
+
+namespace loadtrim::session {
+
+enum class State : std::uint8_t {
+  connect,
+  check_limits,
+  set_inertia,
+  warm_up,
+  write_set,
+  run_up,
+  coast_down,
+  analyse,
+  safe_stop,
+  finished
+};
+const char* to_string(State s);
+
+enum class Outcome : std::uint8_t {
+  accepted,
+  not_accepted,
+  refused,
+  controller_fault,
+  interrupted,
+  record_failure
+};
+const char* to_string(Outcome o);
+// A final result is a verdict (accepted, not accepted, refused): the session is over and its folder is
+// sealed. The others (a controller fault, an interruption, a record failure) leave a session that `resume`
+// may continue.
+bool is_final(Outcome o);
+bool is_final(const std::string& result);  // as to_string(Outcome) writes it
+
+// The one JSON spelling of a road-load curve: {"f0_n", "f1_n_per_kmh", "f2_n_per_kmh2"}.
+nlohmann::json to_json(const core::RoadLoad& c);
+// Its inverse; throws nlohmann::json::exception when a member is missing or not a number.
+core::RoadLoad road_load_from_json(const nlohmann::json& j);
+
+// The per-coast-down record (the "coastdown" event).
+struct CoastdownRecord {
+  int run = 0;
+  core::RoadLoad set;
+  core::CoastdownEvaluation evaluation;
+  core::Decision decision;      // meaningful only when the evaluation is usable
+  double release_time_s = 0.0;  // controller time
+  double duration_s = 0.0;
+  double run_up_s = 0.0;
+  bool verifying = false;
+  double tolerance_n = 0.0;  // the profile's, beside the check it was judged by
+  // Per band (same order as evaluation.bands): the band time the target predicts at TM + m_r, when it can
+  // be predicted. Written beside the measured times of a usable run only.
+  std::vector<std::optional<double>> predicted_delta_t_s;
+};
+nlohmann::json to_json(const CoastdownRecord& r);
+
+struct Summary {
+  Outcome outcome = Outcome::not_accepted;
+  std::string stop_reason;
+  int iterations = 0;  // distinct settings tried
+  int coastdowns = 0;
+  int usable_coastdowns = 0;
+  double cell_time_s = 0.0;
+  std::optional<core::RoadLoad> final_set;
+  std::optional<core::RoadLoad> measured;
+  std::vector<core::SpeedDeviation> deviations;
+  std::string first_setting;
+  bool rollers_stopped = false;  // standstill confirmed by the controller at the end
+  std::string stop_note;         // how the rollers were stopped, or why that could not be confirmed
+};
+nlohmann::json to_json(const Summary& s);  // also summary.json
+
+// One struct per record kind. The record type each is written as is in type_of (events.cpp); a struct
+// whose record kind depends on a fact says so.
+namespace ev {
+
+// --- the start of a session (built by the app, which knows the lab's context) ---
+// What both start records hold. The members that are JSON come ready-made from their own libraries
+// (record::copy_input, the dyno-check gate, the operator's identity) and are written as they are.
+struct StartCommon {
+  std::string vehicle, cell, profile;
+  nlohmann::json dyno_checks;  // the gate's finding
+  nlohmann::json operator_id;  // {"name", "from"}; written as "operator"
+  std::string data_root_path, data_root_from;
+  std::string signing_key;   // the key's fingerprint, or why there is none
+  std::string confirmation;  // how the operator allowed the rollers to move
+  core::RoadLoad target;
+  std::string vehicle_description;
+  double test_mass_kg = 0.0;
+  std::string standard;
+  double tolerance_n = 0.0;
+  std::vector<double> reference_speeds_kmh;
+  std::string software_version, software_build;
+  std::string operator_note;
+  std::string first_setting_requested;
+  std::string history_file;
+  bool history_available = false;
+};
+struct SessionStarted {  // "session_started"
+  StartCommon common;
+  std::string method;
+  nlohmann::json files;  // the input copies, with their hashes
+  int port_override = 0;
+  std::string device_override;
+  bool inprocess = false;
+  nlohmann::json combination_warnings = nlohmann::json::array();
+  bool two_wheel_drive_mode = false;
+  std::string cell_lock_endpoint;
+  std::string stale_lock_taken_over;
+};
+struct ResumeStarted {  // "resume_started"
+  StartCommon common;
+  std::size_t records_before = 0;
+  std::size_t completed_coastdowns = 0;
+  std::string folder_verified;
+};
+
+// --- the session's state machine ---
+struct StateChanged {  // "state"
+  State from = State::connect, to = State::connect;
+  std::string why;
+};
+struct ControllerIdentified {  // "controller"
+  controller::ControllerInfo info;
+};
+struct ControllerStateOnConnect {  // "controller_state_on_connect"
+  std::string fault;
+  double speed_kmh = 0.0;
+  controller::Mode mode = controller::Mode::idle;
+};
+struct Refused {  // "refused"
+  std::string why;
+};
+struct Limits {  // "limits"
+  double speed_limit_kmh = 0.0, start_speed_kmh = 0.0, end_speed_kmh = 0.0;
+  double cell_max_speed_kmh = 0.0, vehicle_max_speed_kmh = 0.0, controller_max_speed_kmh = 0.0;
+  double max_motoring_s = 0.0;
+};
+struct InertiaSet {  // "inertia" (always read back and matching: a mismatch is a fault instead)
+  double test_mass_kg = 0.0, rotating_mass_kg = 0.0, force_mass_kg = 0.0, inertia_kg = 0.0;
+  core::AxleLayout axles = core::AxleLayout::single_axle;
+};
+struct WarmUpStarted {  // "warm_up_started"
+  double speed_kmh = 0.0, duration_s = 0.0, loss_map_planned_s = 0.0;
+};
+struct WarmUpHeld {  // "warm_up"
+  double speed_kmh = 0.0, held_s = 0.0;
+  bool stable = false;
+  double stability_threshold_n = 0.0;
+  std::optional<double> last_window_force_n;  // null when no stability window completed
+};
+struct LossMapSkipped {  // "loss_map_skipped"
+  std::string why;
+};
+struct LossMapPointSkipped {  // "loss_map_point_skipped"
+  double speed_kmh = 0.0;
+  std::string why;
+};
+struct LossMapPoint {  // "loss_map_point"
+  core::HoldPoint point;
+};
+struct WarmUpEnded {};  // "warm_up_ended": the stamp's t_s is the warm-up's end (controller time)
+struct FirstSetting {   // "first_setting"
+  std::string requested, strategy, fallback_reason;
+  core::RoadLoad set;
+  // The inputs the strategy used ("inputs": only those present are written).
+  std::optional<std::string> history_utc;
+  std::optional<core::RoadLoad> loss_map_fit;
+  std::optional<double> loss_map_residual_sd_n;
+  std::optional<core::RoadLoad> loss;
+};
+struct EnvelopeRefused {  // "envelope_refused"
+  int run = 0;
+  core::RoadLoad set;
+  std::string why;
+};
+struct SetWritten {  // "set_written" (always read back and matching: a mismatch is a fault instead)
+  int run = 0;
+  core::RoadLoad set;
+  int iteration = 0;
+};
+struct CoastdownStarted {  // "coastdown_started"
+  int run = 0;
+  core::RoadLoad set;
+  double start_speed_kmh = 0.0;
+};
+// The first coast-down's release after the warm-up: "timing" when within the rule, else
+// "timing_rule_missed" (the standard's rule decides the record kind, so an auditor can search for it).
+struct ReleaseTiming {
+  std::string rule;
+  double gap_s = 0.0;
+  bool within = true;
+};
+struct ConsecutiveTiming {  // "timing"
+  std::string rule;
+  double gap_since_last_coast_s = 0.0;
+};
+struct Coastdown {  // "coastdown"; Event::trace holds its samples
+  CoastdownRecord record;
+};
+struct CoastdownDiscarded {  // "coastdown_discarded"
+  int run = 0;
+  std::string why;
+  std::optional<core::RoadLoad> next_set;  // a fallback setting, when the discard chose one
+  std::optional<std::string> note;
+};
+struct Diverging {  // "diverging"
+  int run = 0;
+  std::string why;
+};
+struct LinkLost {  // "link_lost"
+  std::string why;
+  int incident = 0;
+};
+struct Reconnect {  // "reconnect"
+  int attempt = 0, of = 0;
+  std::optional<bool> ok;  // absent while connecting at the start (the attempt is announced before it)
+  std::string message;
+};
+struct NotSettled {  // "not_settled"
+  std::string when, message;
+};
+struct FaultCleared {  // "fault_cleared" (only ever with the rollers stopped)
+  std::string fault, when;
+  bool ok = false;
+  std::string message;
+};
+struct LinkRestored {  // "link_restored" (only ever with the rollers stopped)
+  int attempt = 0;
+};
+struct Fault {  // "fault"
+  std::string during, message;
+  controller::Result::Status status = controller::Result::Status::fatal;
+  int code = 0;
+};
+struct Interrupted {  // "interrupted"
+  std::string during;
+};
+// "resumed": a session continuing from its log (continued), or a recorded verdict finalised without
+// motoring (finalised); the note says which.
+struct Resumed {
+  std::size_t completed_coastdowns = 0;
+  std::string note;
+  struct Continued {
+    int unusable = 0;
+    core::RoadLoad next_set;
+    std::optional<int> discarded_run;
+  };
+  struct Finalised {
+    bool rollers_stopped = false;
+    std::string stop_note;
+  };
+  std::variant<Continued, Finalised> how;
+};
+struct SafeStopReconnect {  // "safe_stop_reconnect"
+  bool ok = false;
+  std::string message;
+};
+struct SafeStop {  // "safe_stop"
+  std::string how;
+  bool rollers_stopped = false;
+  // The controller's view at the end; absent when nothing was ever commanded to move.
+  struct Seen {
+    double speed_kmh = 0.0;
+    controller::Mode mode = controller::Mode::idle;
+    double standstill_threshold_kmh = 0.0;
+    std::string note;
+  };
+  std::optional<Seen> seen;
+};
+struct ObserverDropped {  // "observer_dropped"
+  std::string why;
+};
+struct Finished {  // "finished"; summary.json when the result is final
+  Summary summary;
+};
+
+// --- the dyno's own checks (no vehicle on the rollers) ---
+struct CheckStarted {  // "check_started"
+  std::string check, cell;
+  nlohmann::json files;  // the input copies, with their hashes
+  std::string confirmation, note;
+  nlohmann::json operator_id;  // written as "operator"
+  std::string signing_key;
+  std::optional<core::RoadLoad> stored_parasitic_curve;
+  std::string stored_parasitic_utc;
+};
+struct CheckIdentified {  // "identified"
+  std::string name;
+  double roller_diameter_m = 0.0, base_inertia_kg = 0.0;
+  std::size_t problems = 0;
+};
+struct FreeCoastStarted {  // "coast_started" (parasitic determination: simulation off)
+  double from_kmh = 0.0;
+};
+struct CheckCoastStarted {  // "coast_started" (unloaded coast-down at a set inertia and setting)
+  int run = 0;
+  double inertia_kg = 0.0;
+  core::RoadLoad set;
+  double from_kmh = 0.0;
+};
+struct ForceApplied {  // "force_applied" (base-inertia check: simulation off)
+  double force_n = 0.0, stated_base_inertia_kg = 0.0;
+};
+// The "analysed" records; the same JSON is the check's part of result.json.
+struct ParasiticAnalysed {
+  double base_inertia_kg = 0.0;
+  core::ParasiticDetermination determination;
+  std::optional<core::RoadLoad> stored;
+  nlohmann::json file;  // the trace's entry (path, sha256, samples)
+};
+struct UnloadedCoastdownAnalysed {
+  int run = 0;
+  double inertia_kg = 0.0;
+  core::RoadLoad set;
+  core::UnloadedCoastdown result;
+  nlohmann::json file;
+};
+struct InertiaAnalysed {
+  double force_n = 0.0;
+  core::InertiaCheck result;
+  double stated_kg = 0.0, tolerance_fraction = 0.0;
+  bool passed = false;  // computed and within tolerance
+  nlohmann::json file;
+};
+struct CheckFinished {  // "check_finished"
+  std::string check, end;
+  bool passed = false;
+  std::string verdict;
+  nlohmann::json file;  // result.json's entry
+};
+
+}  // namespace ev
+
+using Payload =
+    std::variant<ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
+                 ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted,
+                 ev::WarmUpHeld, ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint,
+                 ev::WarmUpEnded, ev::FirstSetting, ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted,
+                 ev::ReleaseTiming, ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded,
+                 ev::Diverging, ev::LinkLost, ev::Reconnect, ev::NotSettled, ev::FaultCleared,
+                 ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Resumed, ev::SafeStopReconnect,
+                 ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted, ev::CheckIdentified,
+                 ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied, ev::ParasiticAnalysed,
+                 ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::CheckFinished>;
+
+// The record type an event is written as (the "type" member of its line).
+const char* type_of(const Payload& p);
+// The record's data: every member but seq, utc, type, prev and the stamp.
+nlohmann::json to_json(const Payload& p);
+
+// The session's state and clocks when it emitted an event (none before the first sample's clock).
+struct Stamp {
+  State state = State::connect;
+  std::optional<double> t_s;          // controller time
+  std::optional<double> cell_time_s;  // controller time this session (with its earlier runs) has used
+};
+
+// What observers receive.
+struct Event {
+  Payload payload;
+  std::optional<Stamp> stamp;  // the session's events have one; the start records and the checks' do not
+  const std::vector<controller::Sample>* trace = nullptr;  // a coast-down's samples (Coastdown only)
+};
+const char* type_of(const Event& e);
+// to_json(payload) with the stamp's members ("state", "t_s", "cell_time_s"): the record as it is logged.
+nlohmann::json record_json(const Event& e);
+
+struct Progress {
+  State state = State::connect;
+  int coastdown = 0;
+  double speed_kmh = 0.0;
+  double band_kmh = 0.0;     // reference speed whose band the coast is in (0 = none)
+  double cell_time_s = 0.0;  // controller time since the session started
+  double remaining_estimate_s = 0.0;
+};
+
+// Observers: the record writer, the console, anything else. on_event returning false (or throwing) means the
+// observer could not do its job. For a critical observer (the record: an event that could not be made
+// durable) the session stops safely with Outcome::record_failure, and the non-critical observers do not see
+// that event (the console never shows a result whose record was not written). Any other observer that fails
+// is logged once and dropped; it never ends the session. While an observer runs, the controller's keep-alive
+// goes on for at most record_budget (critical) or the cell's progress grace (others): an observer that hangs
+// longer lets the controller's watchdog stop the rollers.
+class Observer {
+ public:
+  virtual ~Observer() = default;
+  virtual bool on_event(const Event& e) = 0;
+  virtual void on_progress(const Progress&) {}
+  virtual std::string error() const { return {}; }
+  virtual bool critical() const { return false; }
+  virtual std::string name() const { return "an observer"; }
+};
+
+// The delivery rule above, shared by the session and the dyno checks so they cannot drift apart. Never
+// throws: an observer's exception is caught here.
+class Observers {
+ public:
+  Observers() = default;
+  explicit Observers(std::vector<Observer*> list) : list_(std::move(list)) {}
+  struct Delivery {
+    bool critical_failed = false;
+    std::string critical_error;        // what the failing critical observer said
+    std::vector<std::string> dropped;  // one line per observer dropped by this delivery
+  };
+  // `before_each(critical)` runs before each observer is called (the session extends the controller's
+  // keep-alive lease by the observer's budget there).
+  Delivery deliver(const Event& e, const std::function<void(bool critical)>& before_each = {});
+  void progress(const Progress& p);  // views only: a failing one is ignored
+  bool empty() const { return list_.empty(); }
+
+ private:
+  std::vector<Observer*> list_;
+};
+
+}  // namespace loadtrim::session

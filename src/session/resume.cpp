@@ -1,0 +1,118 @@
+// Reading a session's log back (session/resume.hpp): the inverse of the event mappings in events.cpp, for
+// the records resume needs.
+#include "session/resume.hpp"
+
+#include <algorithm>
+#include <stdexcept>
+#include <string>
+
+
+#include "core/setting.hpp"
+
+namespace loadtrim::session {
+
+ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
+  ResumePoint p;
+  std::optional<int> pending;
+  for (const auto& r : records) try {
+      const std::string type = r.value("type", "");
+      if (r.contains("cell_time_s") && r["cell_time_s"].is_number())
+        p.cell_time_s = std::max(p.cell_time_s, r["cell_time_s"].get<double>());
+      if (type == "first_setting") {
+        p.strategy = r.value("strategy", "");
+        p.next_set = road_load_from_json(r.at("set"));
+        p.have_next_set = true;
+      } else if (type == "set_written") {
+        p.iterations = std::max(p.iterations, r.value("iteration", 0));
+      } else if (type == "resumed") {
+        pending
+            .reset();  // a run this resume found half-recorded is discarded: it is not discarded again later
+      } else if (type == "refused") {
+        p.verdict = Outcome::refused;
+        p.verdict_reason = r.value("why", "");
+      } else if (type == "finished" && is_final(r.value("result", ""))) {
+        const std::string res = r.value("result", "");
+        p.verdict = res == to_string(Outcome::accepted)  ? Outcome::accepted
+                    : res == to_string(Outcome::refused) ? Outcome::refused
+                                                         : Outcome::not_accepted;
+        p.verdict_reason = r.value("stop_reason", "");
+        p.finished_recorded = true;
+        if (r.contains("final_set")) p.final_set = road_load_from_json(r.at("final_set"));
+      } else if (type == "coastdown_started") {
+        pending = r.at("run").get<int>();
+      } else if (type == "coastdown_discarded") {
+        pending.reset();
+        if (r.contains("next_set")) {
+          p.next_set = road_load_from_json(r.at("next_set"));
+          p.have_next_set = true;
+        }
+      } else if (type == "coastdown") {
+        pending.reset();
+        // Every field resume, the summary and the report read: a record without one is refused by name, never
+        // read as a default (a missing "usable" is not "unusable").
+        (void)r.at("run").get<int>();
+        (void)road_load_from_json(r.at("set"));
+        if (!r.at("usable").is_boolean()) throw std::invalid_argument("\"usable\" is not true or false");
+        if (r.at("usable").get<bool>()) {
+          (void)road_load_from_json(r.at("simulated"));
+          (void)r.at("check").at("rows").size();
+          (void)r.at("decision").at("kind").get<std::string>();
+        }
+        p.completed.push_back(r);
+        if (!r.value("usable", false)) {
+          ++p.unusable;
+          p.next_set = road_load_from_json(r.at("set"));
+        } else {
+          p.next_set = road_load_from_json(r.at("decision").at("next_set"));
+          const std::string kind = r.at("decision").value("kind", "");
+          if (kind == core::to_string(core::Decision::Kind::accepted)) {
+            p.verdict = Outcome::accepted;
+            p.verdict_reason = r.at("decision").value("reason", "");
+            p.final_set = p.next_set;
+          } else if (kind == core::to_string(core::Decision::Kind::rejected)) {
+            p.verdict = Outcome::not_accepted;
+            p.verdict_reason = r.at("decision").value("reason", "");
+          }
+        }
+        p.have_next_set = true;
+      }
+    } catch (const std::exception& e) {
+      // A record whose fields are not what this version writes: counted and named (resume refuses the
+      // folder), never a crash.
+      if (p.malformed++ == 0)
+        p.malformed_note = "record " + std::to_string(r.value("seq", -1)) + " (" + r.value("type", "?") +
+                           "): " + e.what();
+    }
+  p.discarded_run = pending;
+  return p;
+}
+
+Summary summary_from_record(const ResumePoint& p, const core::Profile& profile) {
+  Summary s;
+  s.outcome = p.verdict.value_or(Outcome::not_accepted);
+  s.stop_reason = p.verdict_reason;
+  s.iterations = p.iterations;
+  s.coastdowns = static_cast<int>(p.completed.size());
+  s.usable_coastdowns = s.coastdowns - p.unusable;
+  s.cell_time_s = p.cell_time_s;
+  s.first_setting = p.strategy;
+  if (p.final_set) s.final_set = core::rounded(*p.final_set, profile.rounding);
+  try {
+    for (auto it = p.completed.rbegin(); it != p.completed.rend(); ++it)
+      if (it->value("usable", false) && it->contains("simulated")) {
+        s.measured = road_load_from_json(it->at("simulated"));
+        for (const auto& row : it->at("check").at("rows"))
+          s.deviations.push_back({row.value("speed_kmh", 0.0), row.value("target_n", 0.0),
+                                  row.value("measured_n", 0.0), row.value("deviation_n", 0.0),
+                                  row.value("pass", false)});
+        break;
+      }
+  } catch (
+      const nlohmann::json::exception&) {  // a record without those fields: the summary goes without them
+    s.measured.reset();
+    s.deviations.clear();
+  }
+  return s;
+}
+
+}  // namespace loadtrim::session

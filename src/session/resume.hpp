@@ -1,0 +1,44 @@
+// Reading a session's own log back: where an interrupted session stood (for `loadtrim resume`) and the
+// summary of one whose verdict the log already holds. Pure: the records are passed in, as record::read_log
+// gives them; they are read by the field names the event mappings (session/events.hpp) write.
+#pragma once
+
+#include <nlohmann/json.hpp>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "core/profile.hpp"
+#include "session/events.hpp"
+
+namespace loadtrim::session {
+
+// What a resumed session takes over from its log.
+struct ResumePoint {
+  std::vector<nlohmann::json> completed;  // "coastdown" records, in order
+  int unusable = 0;
+  std::optional<int> discarded_run;  // a run started but not completed
+  core::RoadLoad next_set;
+  bool have_next_set = false;
+  std::string strategy;
+  double cell_time_s = 0.0;  // controller time used before the interruption
+  int malformed = 0;         // records that could not be read as this version writes them
+  std::string malformed_note;  // the first of them: "record N (type): what is missing"; resume refuses
+  // A result the record already holds (the method's verdict in a coast-down record, a refusal, or a final
+  // "finished" record) when the process ended before the folder was sealed: resume finalises it without
+  // motoring and never runs another coast-down.
+  std::optional<Outcome> verdict;
+  std::string verdict_reason;
+  std::optional<core::RoadLoad> final_set;  // as the decision gave it (not yet rounded)
+  bool finished_recorded = false;  // the final "finished" record (and summary.json) is already written
+  int iterations = 0;              // distinct settings written
+};
+
+// Rebuilds where a session stood from its log records. A record whose fields are not what this version
+// writes is counted and named (malformed, malformed_note; resume refuses it), never a crash.
+ResumePoint resume_point(const std::vector<nlohmann::json>& records);
+// The summary of a session whose verdict the record already holds (ResumePoint::verdict), from the record
+// alone.
+Summary summary_from_record(const ResumePoint& p, const core::Profile& profile);
+
+}  // namespace loadtrim::session

@@ -1,0 +1,453 @@
+// The typed events (src/session/events.hpp) against the record format: every event's JSON has exactly the
+// members docs/session.md documents for its record kind (the table is read from the document itself, so the
+// document and the code cannot drift apart), a handful of records are byte-for-byte what earlier versions
+// wrote, the records a resume needs read back to what was emitted, and the delivery rule (only the critical
+// observer can fail a session; any other failing observer is dropped once) holds. No external numeric
+// source: the values are arbitrary and only their round trip is checked.
+#include "session/events.hpp"
+
+#include <gtest/gtest.h>
+#include <stdlib.h>
+
+#include <algorithm>
+#include <filesystem>
+#include <fstream>
+#include <map>
+#include <regex>
+#include <set>
+#include <sstream>
+#include <stdexcept>
+
+#include "checks/check_runner.hpp"
+#include "config/cell_loader.hpp"
+#include "config/loaders.hpp"
+#include "record/event_log.hpp"
+#include "session/resume.hpp"
+#include "support/fake_controller.hpp"
+
+using namespace loadtrim;
+using namespace loadtrim::session;
+
+namespace {
+
+const std::string kSrc = LOADTRIM_SOURCE_DIR;
+
+struct Documented {
+  std::set<std::string> types;     // the record types the row names
+  std::set<std::string> required;  // members always present
+  std::set<std::string> optional;  // members marked `?`
+};
+
+// The events table of docs/session.md, by event name.
+std::map<std::string, Documented> documented() {
+  std::ifstream in(kSrc + "/docs/session.md");
+  std::map<std::string, Documented> out;
+  std::string line;
+  const std::regex row(R"(^\| (.+?) \| ([A-Za-z]+) \| (.*) \|$)");
+  const std::regex name(R"(`([a-z0-9_]+)`(\??))");
+  while (std::getline(in, line)) {
+    std::smatch m;
+    if (!std::regex_match(line, m, row) || m[2] == "event") continue;
+    Documented d;
+    const std::string types = m[1], members = m[3];
+    for (std::sregex_iterator it(types.begin(), types.end(), name), end; it != end; ++it)
+      d.types.insert((*it)[1]);
+    // Members nested in parentheses (first_setting's inputs) belong to the member before them.
+    std::string top;
+    int depth = 0;
+    for (char c : members) {
+      if (c == '(') ++depth;
+      if (depth == 0) top += c;
+      if (c == ')') --depth;
+    }
+    for (std::sregex_iterator it(top.begin(), top.end(), name), end; it != end; ++it)
+      ((*it)[2] == "?" ? d.optional : d.required).insert((*it)[1]);
+    out[m[2]] = d;
+  }
+  return out;
+}
+
+std::string event_name(const Payload& p) {
+  // The variant's alternatives in declaration order, as the table names them.
+  static const char* const names[] = {"SessionStarted",
+                                      "ResumeStarted",
+                                      "StateChanged",
+                                      "ControllerIdentified",
+                                      "ControllerStateOnConnect",
+                                      "Refused",
+                                      "Limits",
+                                      "InertiaSet",
+                                      "WarmUpStarted",
+                                      "WarmUpHeld",
+                                      "LossMapSkipped",
+                                      "LossMapPointSkipped",
+                                      "LossMapPoint",
+                                      "WarmUpEnded",
+                                      "FirstSetting",
+                                      "EnvelopeRefused",
+                                      "SetWritten",
+                                      "CoastdownStarted",
+                                      "ReleaseTiming",
+                                      "ConsecutiveTiming",
+                                      "Coastdown",
+                                      "CoastdownDiscarded",
+                                      "Diverging",
+                                      "LinkLost",
+                                      "Reconnect",
+                                      "NotSettled",
+                                      "FaultCleared",
+                                      "LinkRestored",
+                                      "Fault",
+                                      "Interrupted",
+                                      "Resumed",
+                                      "SafeStopReconnect",
+                                      "SafeStop",
+                                      "ObserverDropped",
+                                      "Finished",
+                                      "CheckStarted",
+                                      "CheckIdentified",
+                                      "FreeCoastStarted",
+                                      "CheckCoastStarted",
+                                      "ForceApplied",
+                                      "ParasiticAnalysed",
+                                      "UnloadedCoastdownAnalysed",
+                                      "InertiaAnalysed",
+                                      "CheckFinished"};
+  static_assert(std::size(names) == std::variant_size_v<Payload>, "a name per event");
+  return names[p.index()];
+}
+
+const core::RoadLoad kSet{120.5, 0.25, 0.031};
+
+CoastdownRecord usable_run() {
+  CoastdownRecord r;
+  r.run = 3;
+  r.set = kSet;
+  r.release_time_s = 812.5;
+  r.duration_s = 95.25;
+  r.run_up_s = 40.0;
+  r.tolerance_n = 10.0;
+  auto& e = r.evaluation;
+  e.usable = true;
+  core::BandResult ok;
+  ok.reference_speed_kmh = 100.0;
+  ok.t_upper_s = 1.0;
+  ok.t_lower_s = 4.5;
+  ok.delta_t_s = 3.5;
+  ok.force_n = 450.0;
+  core::BandResult bad;
+  bad.reference_speed_kmh = 20.0;
+  bad.status = core::BandStatus::not_reached;
+  bad.reason = "not reached";
+  e.bands = {ok, bad};
+  r.predicted_delta_t_s = {3.4, std::nullopt};
+  e.fit.ok = true;
+  e.fit.coefficients = {130.0, 0.2, 0.03};
+  e.whole_trace.ok = true;
+  e.whole_trace.coefficients = {131.0, 0.21, 0.0301};
+  e.check.pass = true;
+  e.check.worst_abs_deviation_n = 4.5;
+  e.check.rows = {{100.0, 450.0, 454.5, 4.5, true}};
+  r.decision.kind = core::Decision::Kind::accepted;
+  r.decision.reason = "within tolerance twice";
+  r.decision.next_set = {118.0, 0.24, 0.0305};
+  return r;
+}
+
+Summary summary() {
+  Summary s;
+  s.outcome = Outcome::accepted;
+  s.stop_reason = "within tolerance twice";
+  s.iterations = 2;
+  s.coastdowns = 3;
+  s.usable_coastdowns = 3;
+  s.cell_time_s = 2400.0;
+  s.final_set = core::RoadLoad{118.0, 0.24, 0.0305};
+  s.measured = core::RoadLoad{130.0, 0.2, 0.03};
+  s.deviations = {{100.0, 450.0, 454.5, 4.5, true}};
+  s.first_setting = "loss-map";
+  s.rollers_stopped = true;
+  s.stop_note = "controlled stop: standstill confirmed by the controller";
+  return s;
+}
+
+// One of every event; where a record has forms, each form.
+std::vector<Payload> every_event() {
+  ev::StartCommon common;
+  common.target = {150.0, 0.3, 0.035};
+  CoastdownRecord unusable;
+  unusable.run = 1;
+  unusable.set = kSet;
+  unusable.evaluation.unusable_reason = "no band reached";
+  core::ParasiticDetermination pd;
+  pd.ok = true;
+  pd.fit.coefficients = {22.0, 0.12, 0.0009};
+  pd.points = {{30.0, 26.0, 26.1, -0.1, 5.0, true}};
+  core::UnloadedCoastdown uc;
+  uc.intervals = {{80.0, 70.0, 10.0, 10.1, 100.0, 99.0, 1.0, 9.8, true, ""}};
+  return {
+      ev::SessionStarted{common, "iterative", nlohmann::json::array(), 4100, "", false,
+                         nlohmann::json::array(), false, "tcp:127.0.0.1:4100", ""},
+      ev::ResumeStarted{common, 40, 2, "not finished"},
+      ev::StateChanged{State::warm_up, State::write_set, "coast-down 1"},
+      ev::ControllerIdentified{{"sim", 1, "hold-force,free,force", 0.5, 1100.0, 200.0, 6000.0, 1.0}},
+      ev::ControllerStateOnConnect{"WATCHDOG", 0.0, controller::Mode::idle},
+      ev::Refused{"start speed too high"},
+      ev::Limits{140.0, 135.0, 15.0, 200.0, 180.0, 200.0, 3600.0},
+      ev::InertiaSet{1500.0, 45.0, 1545.0, 1522.5, core::AxleLayout::single_axle},
+      ev::WarmUpStarted{80.0, 1200.0, 60.0},
+      ev::WarmUpHeld{80.0, 1201.0, true, 2.0, 160.0},
+      ev::WarmUpHeld{80.0, 1201.0, false, 2.0, std::nullopt},
+      ev::LossMapSkipped{"no force in speed hold"},
+      ev::LossMapPointSkipped{150.0, "above the speed limit"},
+      ev::LossMapPoint{{60.0, 80.0, 1.5, 500}},
+      ev::WarmUpEnded{},
+      ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, core::RoadLoad{30.0, 0.1, 0.004}, 0.8,
+                       core::RoadLoad{30.0, 0.1, 0.004}},
+      ev::FirstSetting{"history", "standard", "no history", kSet, std::nullopt, std::nullopt, std::nullopt,
+                       std::nullopt},
+      ev::EnvelopeRefused{2, kSet, "force above the cell's"},
+      ev::SetWritten{1, kSet, 1},
+      ev::CoastdownStarted{1, kSet, 135.0},
+      ev::ReleaseTiming{"first coast-down released within 120 s", 30.0, true},
+      ev::ReleaseTiming{"first coast-down released within 120 s", 130.0, false},
+      ev::ConsecutiveTiming{"consecutive coast-downs start immediately", 12.0},
+      ev::Coastdown{usable_run()},
+      ev::Coastdown{unusable},
+      ev::CoastdownDiscarded{2, "link lost during run-up", std::nullopt, std::nullopt},
+      ev::CoastdownDiscarded{2, "too slow", kSet, "falling back to the standard's default setting"},
+      ev::Diverging{4, "the deviation does not shrink"},
+      ev::LinkLost{"timeout", 1},
+      ev::Reconnect{1, 3, true, ""},
+      ev::Reconnect{1, 3, std::nullopt, "refused"},
+      ev::NotSettled{"after the lost link", "still turning"},
+      ev::FaultCleared{"WATCHDOG", "on connect", true, ""},
+      ev::LinkRestored{1},
+      ev::Fault{"coast-down", "over-speed", controller::Result::Status::fatal, 7},
+      ev::Interrupted{"warm-up"},
+      ev::Resumed{2, "no run was in progress", ev::Resumed::Continued{0, kSet, std::nullopt}},
+      ev::Resumed{2, "finalised", ev::Resumed::Finalised{true, "standstill"}},
+      ev::SafeStopReconnect{true, ""},
+      ev::SafeStop{"nothing was commanded to move", true, std::nullopt},
+      ev::SafeStop{"controlled stop", true,
+                   ev::SafeStop::Seen{0.0, controller::Mode::idle, 0.5, "confirmed"}},
+      ev::ObserverDropped{"the console failed"},
+      ev::Finished{summary()},
+      ev::CheckStarted{"parasitic", "cell-1", nlohmann::json::array(), "unattended", "",
+                       nlohmann::json::object(), "none", core::RoadLoad{22.0, 0.12, 0.0009},
+                       "2024-01-01T00:00:00Z"},
+      ev::CheckIdentified{"sim", 0.5, 1100.0, 0},
+      ev::FreeCoastStarted{130.0},
+      ev::CheckCoastStarted{1, 900.0, kSet, 135.0},
+      ev::ForceApplied{490.0, 1100.0},
+      ev::ParasiticAnalysed{
+          1100.0, pd, core::RoadLoad{22.0, 0.12, 0.0009}, {{"path", "traces/free-coast.csv"}}},
+      ev::UnloadedCoastdownAnalysed{1, 900.0, kSet, uc, {{"path", "traces/coastdown-1.csv"}}},
+      ev::InertiaAnalysed{
+          490.0, core::InertiaCheck{}, 1100.0, 0.01, false, {{"path", "traces/constant-force.csv"}}},
+      ev::CheckFinished{"parasitic", "passed", true, "ok", {{"path", "result.json"}}},
+  };
+}
+
+std::set<std::string> keys(const nlohmann::json& j) {
+  std::set<std::string> k;
+  for (auto it = j.begin(); it != j.end(); ++it) k.insert(it.key());
+  return k;
+}
+
+}  // namespace
+
+TEST(Events, EveryEventHasExactlyTheDocumentedMembers) {
+  const auto doc = documented();
+  ASSERT_GE(doc.size(), std::variant_size_v<Payload>) << "docs/session.md's events table was not found whole";
+  std::set<std::size_t> seen;
+  for (const Payload& p : every_event()) {
+    seen.insert(p.index());
+    const std::string name = event_name(p);
+    const auto it = doc.find(name);
+    ASSERT_NE(it, doc.end()) << name << " is not in docs/session.md's events table";
+    EXPECT_TRUE(it->second.types.count(type_of(p)))
+        << name << " is written as \"" << type_of(p) << "\", which its row does not name";
+    const nlohmann::json j = to_json(p);
+    ASSERT_TRUE(j.is_object()) << name;
+    for (const auto& k : keys(j))
+      EXPECT_TRUE(it->second.required.count(k) || it->second.optional.count(k))
+          << name << " writes \"" << k << "\", which docs/session.md does not document";
+    for (const auto& k : it->second.required)
+      EXPECT_TRUE(j.contains(k)) << name << " lacks the documented member \"" << k << "\"";
+  }
+  EXPECT_EQ(seen.size(), std::variant_size_v<Payload>) << "every event is exercised";
+}
+
+TEST(Events, TheRoadLoadSpellingRoundTrips) {
+  const nlohmann::json j = to_json(kSet);
+  EXPECT_EQ(j.dump(), R"({"f0_n":120.5,"f1_n_per_kmh":0.25,"f2_n_per_kmh2":0.031})");
+  const core::RoadLoad back = road_load_from_json(j);
+  EXPECT_EQ(back.f0_n, kSet.f0_n);
+  EXPECT_EQ(back.f1_n_per_kmh, kSet.f1_n_per_kmh);
+  EXPECT_EQ(back.f2_n_per_kmh2, kSet.f2_n_per_kmh2);
+  EXPECT_THROW(road_load_from_json({{"f0_n", 1.0}}), nlohmann::json::exception);
+}
+
+// Lines as the version before typed events wrote them (the data part: the log adds seq, utc, type, prev).
+TEST(Events, RecordsAreByteForByteWhatEarlierVersionsWrote) {
+  const Event state{ev::StateChanged{State::warm_up, State::write_set, "coast-down 1"},
+                    Stamp{State::write_set, 100.5, 90.5}, nullptr};
+  EXPECT_EQ(
+      record_json(state).dump(),
+      R"({"cell_time_s":90.5,"from":"warm_up","state":"write_set","t_s":100.5,"to":"write_set","why":"coast-down 1"})");
+  EXPECT_EQ(
+      to_json(Payload{ev::SetWritten{1, kSet, 1}}).dump(),
+      R"({"iteration":1,"read_back":"matches","run":1,"set":{"f0_n":120.5,"f1_n_per_kmh":0.25,"f2_n_per_kmh2":0.031}})");
+  EXPECT_EQ(
+      to_json(Payload{ev::LinkLost{"timeout", 2}}).dump(),
+      R"({"incident":2,"note":"the controller's watchdog takes the rollers to a stop","why":"timeout"})");
+  EXPECT_EQ(
+      to_json(Payload{ev::WarmUpHeld{80.0, 1201.0, false, 2.0, std::nullopt}}).dump(),
+      R"({"held_s":1201.0,"last_window_force_n":null,"speed_kmh":80.0,"stability_threshold_n":2.0,"stable":false})");
+  // A stamp before the controller's clock is known: the state only.
+  const Event early{ev::Refused{"no"}, Stamp{State::connect, std::nullopt, std::nullopt}, nullptr};
+  EXPECT_EQ(record_json(early).dump(), R"({"state":"connect","why":"no"})");
+  // Predicted band times go beside the measured ones of a usable run, only where they can be predicted.
+  const nlohmann::json c = to_json(Payload{ev::Coastdown{usable_run()}});
+  EXPECT_EQ(c["bands"][0]["predicted_delta_t_s"], 3.4);
+  EXPECT_FALSE(c["bands"][1].contains("predicted_delta_t_s"));
+  EXPECT_EQ(c["check"]["tolerance_n"], 10.0);
+}
+
+// What resume reads back from the records is what was emitted.
+TEST(Events, TheRecordsResumeNeedsReadBack) {
+  auto line = [](const Payload& p) {
+    nlohmann::json j = record_json(Event{p, Stamp{State::analyse, 500.0, 400.0}, nullptr});
+    j["type"] = type_of(p);
+    return j;
+  };
+  const CoastdownRecord run = usable_run();
+  const std::vector<nlohmann::json> records = {
+      line(ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, std::nullopt, std::nullopt,
+                            std::nullopt}),
+      line(ev::SetWritten{3, kSet, 2}), line(ev::CoastdownStarted{3, kSet, 135.0}), line(ev::Coastdown{run})};
+  const ResumePoint p = resume_point(records);
+  EXPECT_EQ(p.malformed, 0);
+  EXPECT_EQ(p.strategy, "loss-map");
+  EXPECT_EQ(p.iterations, 2);
+  ASSERT_EQ(p.completed.size(), 1u);
+  EXPECT_FALSE(p.discarded_run.has_value());
+  ASSERT_TRUE(p.verdict.has_value());
+  EXPECT_EQ(*p.verdict, Outcome::accepted);
+  EXPECT_EQ(p.verdict_reason, run.decision.reason);
+  ASSERT_TRUE(p.final_set.has_value());
+  EXPECT_EQ(p.final_set->f0_n, run.decision.next_set.f0_n);
+  EXPECT_EQ(p.cell_time_s, 400.0);
+
+  // A finished record reads back as the summary it was made from.
+  const Summary s = summary();
+  const ResumePoint f = resume_point({line(ev::Finished{s})});
+  ASSERT_TRUE(f.verdict.has_value());
+  EXPECT_EQ(*f.verdict, s.outcome);
+  EXPECT_EQ(f.verdict_reason, s.stop_reason);
+  EXPECT_TRUE(f.finished_recorded);
+  ASSERT_TRUE(f.final_set.has_value());
+  EXPECT_EQ(f.final_set->f2_n_per_kmh2, s.final_set->f2_n_per_kmh2);
+}
+
+namespace {
+class Scripted : public Observer {
+ public:
+  enum class Fails { never, returns_false, throws };
+  Scripted(bool critical, Fails fails) : critical_(critical), fails_(fails) {}
+  bool on_event(const Event&) override {
+    ++calls;
+    if (fails_ == Fails::throws) throw std::runtime_error("scripted");
+    return fails_ == Fails::never;
+  }
+  bool critical() const override { return critical_; }
+  std::string error() const override { return "scripted failure"; }
+  int calls = 0;
+
+ private:
+  bool critical_;
+  Fails fails_;
+};
+}  // namespace
+
+TEST(Events, OnlyTheCriticalObserverFailsADeliveryAnyOtherIsDroppedOnce) {
+  Scripted record(true, Scripted::Fails::never);
+  Scripted says_no(false, Scripted::Fails::returns_false);
+  Scripted throws(false, Scripted::Fails::throws);
+  Scripted fine(false, Scripted::Fails::never);
+  Observers obs({&record, &says_no, &throws, &fine});
+  const Event e{ev::Refused{"x"}, std::nullopt, nullptr};
+  const auto d1 = obs.deliver(e);
+  EXPECT_FALSE(d1.critical_failed);
+  ASSERT_EQ(d1.dropped.size(), 2u);
+  EXPECT_NE(d1.dropped[0].find("scripted failure"), std::string::npos) << d1.dropped[0];
+  EXPECT_NE(d1.dropped[1].find("threw: scripted"), std::string::npos) << d1.dropped[1];
+  const auto d2 = obs.deliver(e);
+  EXPECT_TRUE(d2.dropped.empty()) << "a dropped observer is said once and never called again";
+  EXPECT_EQ(says_no.calls, 1);
+  EXPECT_EQ(throws.calls, 1);
+  EXPECT_EQ(fine.calls, 2);
+  EXPECT_EQ(record.calls, 2);
+}
+
+TEST(Events, AFailingRecordHidesTheEventFromTheViews) {
+  Scripted record(true, Scripted::Fails::returns_false);
+  Scripted view(false, Scripted::Fails::never);
+  Observers obs({&record, &view});
+  const auto d = obs.deliver(Event{ev::Refused{"x"}, std::nullopt, nullptr});
+  EXPECT_TRUE(d.critical_failed);
+  EXPECT_EQ(d.critical_error, "scripted failure");
+  EXPECT_TRUE(d.dropped.empty()) << "the record is never dropped";
+  EXPECT_EQ(view.calls, 0) << "nothing is shown that the record does not hold";
+}
+
+// The dyno checks emit their steps as the same typed events: a view sees each step after its record, and a
+// view that fails is dropped (stderr and an "observer_dropped" record) without ending the check. The
+// base-inertia check on the empty rollers of the scripted fake controller (no process).
+namespace {
+class Steps : public Observer {
+ public:
+  explicit Steps(std::string fail_on = "") : fail_on_(std::move(fail_on)) {}
+  bool on_event(const Event& e) override {
+    types.push_back(type_of(e));
+    return fail_on_.empty() || types.back() != fail_on_;
+  }
+  std::vector<std::string> types;
+
+ private:
+  std::string fail_on_;
+};
+}  // namespace
+
+TEST(Events, TheDynoChecksShowTheirStepsToObservers) {
+  physics::Truth truth = loadtrim::testing::demo_truth();
+  truth.vehicle_on_rollers = false;
+  loadtrim::testing::FakeController c(truth);
+  std::string dir = (std::filesystem::temp_directory_path() / "loadtrim-check-events-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  checks::CheckRequest req;
+  req.kind = core::CheckKind::inertia;
+  req.cell_file = kSrc + "/config/cells/sim-tcp.toml";
+  req.cell = config::load_cell(req.cell_file);
+  req.profile_file = kSrc + "/config/checks/cfr1066.toml";
+  req.profile = config::load_check_profile(req.profile_file);
+  req.checks_root = dir;
+  req.confirmation = "unit test: no rollers";
+  Steps view, says_no("identified");
+  req.observers = {&view, &says_no};
+  const checks::CheckResult r = checks::run_check(c, req);
+  EXPECT_TRUE(r.end == checks::CheckResult::End::passed || r.end == checks::CheckResult::End::failed)
+      << checks::to_string(r.end) << ": " << r.verdict;
+  const std::vector<std::string> want = {"check_started", "identified", "force_applied", "analysed",
+                                         "check_finished"};
+  EXPECT_EQ(view.types, want);
+  EXPECT_EQ(says_no.types, std::vector<std::string>({"check_started", "identified"}));
+  std::vector<nlohmann::json> recs;
+  ASSERT_TRUE(record::read_log(r.folder + "/events.jsonl", &recs).ok);
+  std::vector<std::string> logged;
+  for (const auto& j : recs) logged.push_back(j.value("type", ""));
+  EXPECT_EQ(std::count(logged.begin(), logged.end(), "observer_dropped"), 1);
+  EXPECT_TRUE(record::verify_session_folder(r.folder).ok);
+  std::filesystem::remove_all(dir);
+}
