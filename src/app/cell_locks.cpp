@@ -4,6 +4,7 @@
 
 #include <filesystem>
 
+#include "inprocess/sim_rows.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
 
@@ -12,14 +13,7 @@ namespace loadtrim::app {
 namespace fs = std::filesystem;
 
 std::string endpoint_key(const controller::CellConfig& cell) {
-  if (cell.adapter == "line-tcp" || cell.adapter == "modbus-tcp")
-    return "tcp-" + cell.host + "-" + std::to_string(cell.port);
-  if (cell.adapter == "line-serial" || cell.adapter == "modbus-rtu") {
-    std::error_code ec;
-    const fs::path real = fs::weakly_canonical(cell.serial.device, ec);
-    return "serial-" + (ec ? cell.serial.device : real.string());
-  }
-  return "";
+  return adapters::tool_registry().link_key(cell);
 }
 
 namespace {
