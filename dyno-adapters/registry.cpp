@@ -2,52 +2,85 @@
 
 #include <stdexcept>
 
-#include "config/loaders.hpp"
-#include "inprocess/loopback_transport.hpp"
-#include "line/line_controller.hpp"
-#include "modbus/modbus_controller.hpp"
-#include "physics/roller_model.hpp"
+#include "line/line_rows.hpp"
+#include "modbus/modbus_rows.hpp"
 
 namespace loadtrim::adapters {
 
-std::vector<std::string> names() {
-  return {"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim"};
+Registry::Registry(std::vector<Row> rows) : rows_(std::move(rows)) {
+  for (std::size_t i = 0; i < rows_.size(); ++i) {
+    const Row& r = rows_[i];
+    if (r.name.empty() || !r.read || !r.make || !r.link_key || !r.override_link)
+      throw std::logic_error("adapter registry: row \"" + std::string(r.name) + "\" is incomplete");
+    for (std::size_t j = 0; j < i; ++j)
+      if (rows_[j].name == r.name)
+        throw std::logic_error("adapter registry: \"" + std::string(r.name) + "\" has two rows");
+  }
 }
 
-std::unique_ptr<controller::Controller> make_controller(const controller::CellConfig& cell) {
-  const controller::Limits limits{cell.max_speed_kmh, cell.max_force_n, cell.max_time_scale, true};
-  if (cell.adapter == "line-tcp")
-    return std::make_unique<line::LineController>(
-        line::make_tcp_transport(cell.host, static_cast<unsigned short>(cell.port)), cell.timeouts, limits);
-  if (cell.adapter == "line-serial") {
-    line::SerialSettings s;
-    s.device = cell.serial.device;
-    s.baud = cell.serial.baud;
-    s.parity = cell.serial.parity == "odd"    ? line::SerialSettings::Parity::odd
-               : cell.serial.parity == "even" ? line::SerialSettings::Parity::even
-                                              : line::SerialSettings::Parity::none;
-    s.stop_bits = cell.serial.stop_bits == 2 ? line::SerialSettings::StopBits::two
-                                             : line::SerialSettings::StopBits::one;
-    s.data_bits = cell.serial.data_bits;
-    return std::make_unique<line::LineController>(line::make_serial_transport(s), cell.timeouts, limits);
-  }
-  if (cell.adapter == "modbus-tcp" || cell.adapter == "modbus-rtu")
-    return std::make_unique<modbus::ModbusController>(cell);
-  if (cell.adapter == "inprocess-sim")
-    return make_inprocess_controller(cell, config::load_truth(cell.inprocess_truth));
+Registry Registry::with(const std::vector<Row>& more) const {
+  std::vector<Row> all = rows_;
+  all.insert(all.end(), more.begin(), more.end());
+  return Registry(std::move(all));
+}
+
+std::vector<std::string> Registry::names() const {
+  std::vector<std::string> out;
+  for (const Row& r : rows_) out.emplace_back(r.name);
+  return out;
+}
+
+const Row* Registry::find(std::string_view name) const {
+  for (const Row& r : rows_)
+    if (r.name == name) return &r;
+  return nullptr;
+}
+
+const Row& Registry::row(const controller::CellConfig& cell) const {
+  if (const Row* r = find(cell.adapter)) return *r;
   throw std::invalid_argument("unknown controller adapter \"" + cell.adapter + "\"");
 }
 
-std::unique_ptr<controller::Controller> make_inprocess_controller(const controller::CellConfig& cell,
-                                                                  const physics::Truth& truth) {
-  sim::SimSettings settings;
-  settings.watchdog_s = 1e9;  // simulated time races ahead of the host's heartbeats here
-  auto sim = std::make_shared<sim::SimController>(truth, settings);
-  // Its clock races ahead of the wall by design: only order and stream rate are checked, not the rate against
-  // the wall.
-  return std::make_unique<line::LineController>(
-      std::make_unique<inprocess::LoopbackTransport>(sim), cell.timeouts,
-      controller::Limits{cell.max_speed_kmh, cell.max_force_n, 1e9, false});
+config::AdapterSections Registry::sections() const {
+  // The rows are copied into the reader so that it outlives a temporary registry. The loader asks only for a
+  // name from `names` (an unknown one comes back as the first), but a name no row has yields empty settings,
+  // which fail loudly at make_controller rather than being guessed.
+  return {names(), [rows = rows_](const std::string& adapter, config::TomlReader& r) -> std::any {
+            for (const Row& row : rows)
+              if (row.name == adapter) return row.read(r);
+            return {};
+          }};
+}
+
+std::unique_ptr<controller::Controller> Registry::make_controller(const controller::CellConfig& cell) const {
+  return row(cell).make(cell);
+}
+
+std::string Registry::link_key(const controller::CellConfig& cell) const {
+  return row(cell).link_key(cell.adapter_settings);
+}
+
+void Registry::override_link(controller::CellConfig& cell, const LinkOverrides& o) const {
+  row(cell).override_link(cell.adapter_settings, o);
+}
+
+const Registry& production() {
+  // The table. The order is the order messages list the choices of controller.adapter in.
+  static const Registry table({
+      line::tcp_row(),
+      line::serial_row(),
+      modbus::tcp_row(),
+      modbus::rtu_row(),
+  });
+  return table;
+}
+
+std::vector<std::string> names() {
+  return production().names();
+}
+
+std::unique_ptr<controller::Controller> make_controller(const controller::CellConfig& cell) {
+  return production().make_controller(cell);
 }
 
 }  // namespace loadtrim::adapters

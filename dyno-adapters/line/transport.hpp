@@ -7,6 +7,7 @@
 #include <string_view>
 
 #include "controller/controller.hpp"
+#include "link.hpp"
 
 namespace loadtrim::line {
 
@@ -26,13 +27,8 @@ class Transport {
   virtual std::string describe() const = 0;
 };
 
-struct SerialSettings {
-  std::string device;
-  unsigned baud = 115200;
-  enum class Parity { none, odd, even } parity = Parity::none;
-  enum class StopBits { one, two } stop_bits = StopBits::one;
-  unsigned data_bits = 8;
-};
+// The serial line as the cell file gives it (shared with the Modbus RTU adapter).
+using SerialSettings = adapters::SerialLine;
 
 std::unique_ptr<Transport> make_tcp_transport(std::string host, unsigned short port);
 std::unique_ptr<Transport> make_serial_transport(SerialSettings settings);

@@ -6,15 +6,19 @@
 #include <cmath>
 #include <thread>
 
+#include "adapter_row.hpp"
+
 namespace loadtrim::modbus {
 
 using controller::Result;
 using Clock = std::chrono::steady_clock;
 
+ModbusController::ModbusController(Settings settings, controller::Timeouts t, controller::Limits l)
+    : Controller(t, l), settings_(std::move(settings)) {}
+
 ModbusController::ModbusController(const controller::CellConfig& cell)
-    : Controller(cell.timeouts, {cell.max_speed_kmh, cell.max_force_n, cell.max_time_scale, true}),
-      cell_(cell),
-      map_(cell.register_map) {}
+    : ModbusController(std::any_cast<const Settings&>(cell.adapter_settings), cell.timeouts,
+                       adapters::cell_limits(cell)) {}
 
 ModbusController::~ModbusController() {
   do_disconnect();
@@ -31,15 +35,17 @@ Result ModbusController::fail(const std::string& what) {
 
 Result ModbusController::do_connect(controller::Deadline) {
   do_disconnect();
-  if (cell_.adapter == "modbus-tcp") {
-    ctx_ = modbus_new_tcp(cell_.host.c_str(), static_cast<int>(cell_.port));
+  if (const auto* tcp = std::get_if<adapters::TcpAddress>(&settings_.link)) {
+    ctx_ = modbus_new_tcp(tcp->host.c_str(), static_cast<int>(tcp->port));
   } else {
-    const char parity = cell_.serial.parity == "odd" ? 'O' : cell_.serial.parity == "even" ? 'E' : 'N';
-    ctx_ = modbus_new_rtu(cell_.serial.device.c_str(), static_cast<int>(cell_.serial.baud), parity,
-                          static_cast<int>(cell_.serial.data_bits), static_cast<int>(cell_.serial.stop_bits));
+    const auto& s = std::get<adapters::SerialLine>(settings_.link);
+    using P = adapters::SerialLine::Parity;
+    const char parity = s.parity == P::odd ? 'O' : s.parity == P::even ? 'E' : 'N';
+    ctx_ = modbus_new_rtu(s.device.c_str(), static_cast<int>(s.baud), parity, static_cast<int>(s.data_bits),
+                          s.stop_bits == adapters::SerialLine::StopBits::two ? 2 : 1);
   }
   if (!ctx_) return Result::fail("cannot create the Modbus context");
-  modbus_set_slave(ctx_, map_.unit_id);
+  modbus_set_slave(ctx_, settings_.map.unit_id);
   const auto reply = timeouts().reply;
   modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000),
                               static_cast<std::uint32_t>(reply.count() % 1000) * 1000);
@@ -63,7 +69,7 @@ void ModbusController::do_disconnect() {
 
 Result ModbusController::read(Q q, double& value) {
   if (!ctx_) return Result::retry("link not open");
-  const Register& r = map_[q];
+  const Register& r = settings_.map[q];
   std::uint16_t w[2] = {0, 0};
   int rc;
   if (r.table == Table::coil) {
@@ -87,7 +93,7 @@ Result ModbusController::read(Q q, double& value) {
 
 Result ModbusController::write(Q q, double value) {
   if (!ctx_) return Result::retry("link not open");
-  const Register& r = map_[q];
+  const Register& r = settings_.map[q];
   std::uint16_t w[2] = {0, 0};
   if (!encode(r, value, w))
     return Result::fail(std::string("cannot write ") + kQuantities[q].name + " = " + std::to_string(value) +
@@ -117,7 +123,7 @@ Result ModbusController::strobe(controller::Deadline d) {
           "the controller did not take the setpoints (strobe not cleared) before the deadline");
     std::this_thread::sleep_for(std::chrono::milliseconds(2));
   }
-  if (map_[Q::error].present) {
+  if (settings_.map[Q::error].present) {
     double e = 0.0;
     if (Result r = read(Q::error, e); !r.ok()) return r;
     int code = 0;
@@ -130,13 +136,13 @@ Result ModbusController::strobe(controller::Deadline d) {
 }
 
 Result ModbusController::do_identify(controller::ControllerInfo& out, controller::Deadline) {
-  out.name = "modbus unit " + std::to_string(map_.unit_id);
+  out.name = "modbus unit " + std::to_string(settings_.map.unit_id);
   out.protocol_version = 1;
   out.capabilities = "hold,hold-force,roadload,stop,stream,watchdog,status";
   if (Result r = read(Q::roller_diameter, out.roller_diameter_m); !r.ok()) return r;
   if (Result r = read(Q::base_inertia, out.base_inertia_kg); !r.ok()) return r;
   if (Result r = read(Q::max_speed, out.max_speed_kmh); !r.ok()) return r;
-  if (map_[Q::time_scale].present)
+  if (settings_.map[Q::time_scale].present)
     if (Result r = read(Q::time_scale, out.time_scale); !r.ok()) return r;
   return read(Q::max_force, out.max_force_n);
 }
@@ -197,12 +203,12 @@ Result ModbusController::do_stream(double rate_hz, controller::Deadline) {
 
 Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) {
   if (!streaming_) return Result::success();
-  const auto period =
-      std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(1.0 / map_.poll_rate_hz));
+  const auto period = std::chrono::duration_cast<Clock::duration>(
+      std::chrono::duration<double>(1.0 / settings_.map.poll_rate_hz));
   if (next_poll_ > d) return Result::success();
   std::this_thread::sleep_until(next_poll_);
   const auto now = Clock::now();
-  if (!map_[Q::time].present)
+  if (!settings_.map[Q::time].present)
     worst_jitter_s_ =
         std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - next_poll_).count()));
   next_poll_ += period;
@@ -213,7 +219,7 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   if (Result r = read(Q::force, s.force_n); !r.ok()) return r;
   if (Result r = read(Q::mode, mode); !r.ok()) return r;
   if (Result r = read(Q::status, status); !r.ok()) return r;
-  if (map_[Q::time].present) {
+  if (settings_.map[Q::time].present) {
     if (Result r = read(Q::time, s.time_s); !r.ok()) return r;
   } else {
     s.time_s = std::chrono::duration<double>(now - t0_).count();
@@ -234,7 +240,7 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
   if (Result r = read(Q::speed, out.speed_kmh); !r.ok()) return r;
   if (Result r = read(Q::mode, mode); !r.ok()) return r;
   if (Result r = read(Q::status, status); !r.ok()) return r;
-  if (map_[Q::time].present)
+  if (settings_.map[Q::time].present)
     if (Result r = read(Q::time, out.time_s); !r.ok()) return r;
   if (std::string bad = decode_mode(mode, out.mode); !bad.empty()) return Result::fail(bad);
   if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);

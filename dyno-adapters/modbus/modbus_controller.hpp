@@ -7,17 +7,28 @@
 
 #include <chrono>
 #include <string>
+#include <variant>
 
 #include "controller/cell.hpp"
 #include "controller/controller.hpp"
+#include "link.hpp"
 #include "modbus/register_map.hpp"
 
 typedef struct _modbus modbus_t;
 
 namespace loadtrim::modbus {
 
+// The adapter's settings (CellConfig::adapter_settings of a modbus-tcp or modbus-rtu cell): the link from the
+// [controller] keys and the register map from [modbus].
+struct Settings {
+  std::variant<adapters::TcpAddress, adapters::SerialLine> link;
+  RegisterMap map;
+};
+
 class ModbusController : public controller::Controller {
  public:
+  ModbusController(Settings settings, controller::Timeouts t, controller::Limits l);
+  // A cell whose adapter_settings are a modbus::Settings (std::bad_any_cast otherwise).
   explicit ModbusController(const controller::CellConfig& cell);
   ~ModbusController() override;
   // Poll timing when the map has no time register: worst deviation from the nominal period, s.
@@ -48,8 +59,7 @@ class ModbusController : public controller::Controller {
   controller::Result write(Q q, double value);
   controller::Result strobe(controller::Deadline d);  // raise, wait for the controller to clear it
   controller::Result fail(const std::string& what);   // from errno, naming Modbus exceptions
-  controller::CellConfig cell_;
-  RegisterMap map_;
+  Settings settings_;
   modbus_t* ctx_ = nullptr;
   bool streaming_ = false;
   std::uint64_t index_ = 0;

@@ -25,6 +25,7 @@
 #include "core/evaluation.hpp"
 #include "core/predict.hpp"
 #include "inprocess/direct_controller.hpp"
+#include "inprocess/sim_rows.hpp"
 #include "physics/truth_generator.hpp"
 #include "session/session.hpp"
 
@@ -209,10 +210,10 @@ int run_bench(BenchOptions o) {
     v.target = t;
     fleet_v.push_back(std::move(v));
   }
-  const controller::CellConfig cell_single =
-      config::parse_cell(cell_toml("single-axle", o.rate_hz), "bench-cell.toml");
-  const controller::CellConfig cell_two =
-      config::parse_cell(cell_toml("two-axle", o.rate_hz), "bench-cell.toml");
+  const controller::CellConfig cell_single = config::parse_cell(
+      cell_toml("single-axle", o.rate_hz), "bench-cell.toml", adapters::tool_registry().sections());
+  const controller::CellConfig cell_two = config::parse_cell(
+      cell_toml("two-axle", o.rate_hz), "bench-cell.toml", adapters::tool_registry().sections());
 
   const std::vector<Strategy> strategies = {{"standard", core::FirstSetting::standard},
                                             {"fleet", core::FirstSetting::fleet},

@@ -15,6 +15,7 @@
 #include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
+#include "inprocess/sim_rows.hpp"
 #include "record/session_folder.hpp"
 #include "registry.hpp"
 #include "session/console.hpp"
@@ -66,14 +67,14 @@ struct Loaded {
 Loaded load(const CheckOptions& o) {
   Loaded l;
   core::Problems w;
-  l.cell = config::load_cell(o.cell, &w);
+  l.cell = config::load_cell(o.cell, adapters::tool_registry().sections(), &w);
   if (!w.empty()) std::cerr << config::format_problems(o.cell, w);
   l.profile_file = o.profile.empty() ? default_check_profile() : o.profile;
   core::Problems pw;
   l.profile = config::load_check_profile(l.profile_file, &pw);
   if (!pw.empty()) std::cerr << config::format_problems(l.profile_file, pw);
-  if (o.port > 0) l.cell.port = static_cast<unsigned>(o.port);
-  if (!o.device.empty()) l.cell.serial.device = o.device;
+  adapters::tool_registry().override_link(l.cell,
+                                          {o.port > 0 ? static_cast<unsigned>(o.port) : 0u, o.device});
   return l;
 }
 
@@ -118,7 +119,7 @@ int run_one(const CheckOptions& o) {
   // The steps as they happen, for the operator; --json keeps its one line (scripts read it).
   session::Console console(session::Console::Mode::normal);
   if (!o.json) req.observers.push_back(&console);
-  auto c = adapters::make_controller(l.cell);
+  auto c = adapters::tool_registry().make_controller(l.cell);
   const checks::CheckResult r = checks::run_check(*c, req, &stop_flag());
   if (o.json) {
     std::printf("%s\n", nlohmann::json({{"type", "check"},

@@ -10,8 +10,8 @@
 #include "app/subcommands.hpp"
 #include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
+#include "inprocess/sim_rows.hpp"
 #include "motion/motion.hpp"
-#include "registry.hpp"
 
 namespace loadtrim::app {
 
@@ -33,10 +33,9 @@ int fail(const controller::Result& r) {
 int run_link_check(const LinkCheckOptions& o) {
   install_stop_handlers();
   core::Problems w;
-  controller::CellConfig cell = config::load_cell(o.cell, &w);
+  controller::CellConfig cell = config::load_cell(o.cell, adapters::tool_registry().sections(), &w);
   if (!w.empty()) std::cerr << config::format_problems(o.cell, w);
-  if (o.port > 0) cell.port = static_cast<unsigned>(o.port);
-  if (!o.device.empty()) cell.serial.device = o.device;
+  adapters::tool_registry().override_link(cell, {o.port > 0 ? static_cast<unsigned>(o.port) : 0u, o.device});
   // A link-check moves nothing and shares the cell with other link-checks; a session or check holding it
   // refuses it.
   std::optional<record::FileLock> cell_lock;
@@ -45,7 +44,7 @@ int run_link_check(const LinkCheckOptions& o) {
     std::fprintf(stderr, "link-check: refused: %s\n", lock_msg.c_str());
     return kBadInput;
   }
-  auto c = adapters::make_controller(cell);
+  auto c = adapters::tool_registry().make_controller(cell);
   std::printf("cell %s: adapter %s\n", cell.name.c_str(), cell.adapter.c_str());
   if (auto r = c->connect(); !r.ok()) return fail(r);
   controller::ControllerInfo info;

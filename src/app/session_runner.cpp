@@ -21,11 +21,11 @@
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
 #include "core/combination.hpp"
+#include "inprocess/sim_rows.hpp"
 #include "motion/motion.hpp"
 #include "record/event_log.hpp"
 #include "record/session_folder.hpp"
 #include "record/verify.hpp"
-#include "registry.hpp"
 #include "report/report.hpp"
 #include "session/record_writer.hpp"
 
@@ -90,7 +90,9 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
       errors.push_back(e);
     }
   };
-  load(cell_file, [&](core::Problems& w) { l.inputs.cell = config::load_cell(cell_file, &w); });
+  load(cell_file, [&](core::Problems& w) {
+    l.inputs.cell = config::load_cell(cell_file, adapters::tool_registry().sections(), &w);
+  });
   bool have_target = false;
   load(target_file, [&](core::Problems& w) {
     l.inputs.vehicle = config::load_target(target_file, &w);
@@ -102,8 +104,8 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
          [&](core::Problems& w) { l.inputs.profile = config::load_profile(l.profile_path, &w); });
   }
   if (!errors.empty()) throw_all(errors);
-  if (req.port > 0) l.inputs.cell.port = static_cast<unsigned>(req.port);
-  if (!req.device.empty()) l.inputs.cell.serial.device = req.device;
+  adapters::tool_registry().override_link(l.inputs.cell,
+                                          {req.port > 0 ? static_cast<unsigned>(req.port) : 0u, req.device});
   // How the three files combine (core/combination.hpp): every limit that needs no controller is checked now,
   // before anything connects.
   const auto& cell = l.inputs.cell;
@@ -257,8 +259,8 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   }
   session::Console console(req.console);
   std::unique_ptr<controller::Controller> c =
-      req.inprocess_truth ? adapters::make_inprocess_controller(inputs.cell, *req.inprocess_truth)
-                          : adapters::make_controller(inputs.cell);
+      req.inprocess_truth ? inprocess::make_controller(inputs.cell, *req.inprocess_truth)
+                          : adapters::tool_registry().make_controller(inputs.cell);
   session::Options opt;
   if (!core::parse(req.first_setting, opt.first_setting)) {
     std::cerr << "--first-setting: \"" << req.first_setting
@@ -382,8 +384,8 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   bool stopped = false;
   std::string note;
   {
-    auto c = req.inprocess_truth ? adapters::make_inprocess_controller(in.cell, *req.inprocess_truth)
-                                 : adapters::make_controller(in.cell);
+    auto c = req.inprocess_truth ? inprocess::make_controller(in.cell, *req.inprocess_truth)
+                                 : adapters::tool_registry().make_controller(in.cell);
     controller::ControllerInfo info;
     controller::Result r = c->connect();
     if (r.ok()) r = c->identify(info);
@@ -697,9 +699,10 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
       req.first_setting = r.value("first_setting_requested", req.first_setting);
       // The port or device given on the first command line, unless this one gives another.
       if (overrides.port == 0 && r.contains("overrides") && r["overrides"].value("port", 0) > 0)
-        l.inputs.cell.port = r["overrides"]["port"].get<unsigned>();
+        adapters::tool_registry().override_link(l.inputs.cell, {r["overrides"]["port"].get<unsigned>(), ""});
       if (overrides.device.empty() && r.contains("overrides") && !r["overrides"].value("device", "").empty())
-        l.inputs.cell.serial.device = r["overrides"]["device"].get<std::string>();
+        adapters::tool_registry().override_link(l.inputs.cell,
+                                                {0, r["overrides"]["device"].get<std::string>()});
     }
   std::optional<record::SigningKey> key;
   if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;

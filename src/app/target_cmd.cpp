@@ -18,6 +18,7 @@
 #include "core/predict.hpp"
 #include "core/setting.hpp"
 #include "core/units.hpp"
+#include "inprocess/sim_rows.hpp"
 #include "record/session_folder.hpp"
 
 namespace loadtrim::app {
@@ -108,7 +109,7 @@ int run_target(const TargetOptions& o) {
       v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
   std::optional<controller::CellConfig> cell;
   if (!o.cell.empty()) {
-    cell = config::load_cell(o.cell);
+    cell = config::load_cell(o.cell, adapters::tool_registry().sections());
     layout = cell->axles;
   }
   const core::Problems found = core::plausibility(v);

@@ -1,14 +1,16 @@
-// A test cell: which adapter reaches its controller and how, the timeouts, the cell's limits and the dyno
-// facts the controller must confirm. Loaded from config/cells/*.toml and validated in full before anything
-// connects (config::load_cell).
+// A test cell: which adapter reaches its controller, the timeouts, the cell's limits and the dyno facts the
+// controller must confirm. Loaded from config/cells/*.toml and validated in full before anything connects
+// (config::load_cell). How the adapter reaches the controller (address, serial line, register map, ...) is
+// the adapter's own business: its registry row reads those keys into adapter_settings, which this layer never
+// looks inside, so the controller interface depends on no adapter.
 #pragma once
 
+#include <any>
 #include <string>
 
 #include "controller/controller.hpp"
 #include "core/problem.hpp"
 #include "core/profile.hpp"
-#include "modbus/register_map.hpp"
 
 namespace loadtrim::controller {
 
@@ -17,22 +19,13 @@ struct ReconnectPolicy {
   std::chrono::milliseconds delay{500};  // between attempts
 };
 
-struct SerialConfig {
-  std::string device;
-  unsigned baud = 115200;
-  std::string parity = "none";  // none, odd, even
-  unsigned stop_bits = 1;       // 1 or 2
-  unsigned data_bits = 8;       // 7 or 8
-};
-
 struct CellConfig {
   std::string name;
-  std::string adapter;  // "line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim"
-                        // (dyno-adapters/registry.hpp)
-  std::string host = "127.0.0.1";
-  unsigned port = 0;
-  SerialConfig serial;
-  std::string inprocess_truth;  // inprocess-sim only: the truth file of the simulated vehicle and dyno
+  std::string adapter;  // controller.adapter: a row of the adapter registry (dyno-adapters/registry.hpp)
+  // What that row read from the cell file for its adapter (e.g. a TCP address, a serial line and a Modbus
+  // register map), only ever read back by the same row. std::any keeps the settings' type with them while
+  // CellConfig stays a plain copyable value that names no adapter type.
+  std::any adapter_settings;
   Timeouts timeouts;
   ReconnectPolicy reconnect;
   double max_speed_kmh = 0.0;
@@ -56,8 +49,7 @@ struct CellConfig {
   // .pub.pem path; private_key "" = <data root>/keys/cell-<name>.key.pem. Both empty: folders are sealed
   // unsigned.
   std::string records_public_key, records_private_key;
-  std::string operator_name;         // records.operator: who runs this cell when the command does not say
-  modbus::RegisterMap register_map;  // modbus-* adapters
+  std::string operator_name;  // records.operator: who runs this cell when the command does not say
 };
 
 // What the controller reports against what the cell file says: problems with key "dyno.*" when they differ.

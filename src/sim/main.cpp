@@ -3,9 +3,9 @@
 #include <CLI/CLI.hpp>
 #include <iostream>
 
-#include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
+#include "modbus/map_file.hpp"
 #include "sim/modbus_server.hpp"
 #include "sim/sim_server.hpp"
 
@@ -86,7 +86,7 @@ int main(int argc, char** argv) {
     modbus::RegisterMap map;
     try {
       core::Problems w;
-      map = config::load_register_map(modbus_map, &w);
+      map = modbus::load_register_map(modbus_map, &w);
       if (!w.empty()) std::cerr << config::format_problems(modbus_map, w);
     } catch (const config::InputError& e) {
       std::cerr << e.what();

@@ -1,12 +1,13 @@
-// libFuzzer target: the TOML loaders for profile, target, truth, cell (with its Modbus register map) and
-// check profile on arbitrary text. Bad input must come back as config::InputError, never as a crash or
-// another exception.
+// libFuzzer target: the TOML loaders for profile, target, truth, cell (with every adapter's own keys, the
+// Modbus register map among them) and check profile on arbitrary text. Bad input must come back as
+// config::InputError, never as a crash or another exception.
 #include <cstdint>
 #include <string>
 
 #include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
+#include "inprocess/sim_rows.hpp"
 
 extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size) {
   using namespace loadtrim::config;
@@ -24,7 +25,7 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
   } catch (const InputError&) {
   }
   try {
-    parse_cell(text, "fuzz.toml");
+    parse_cell(text, "fuzz.toml", loadtrim::adapters::tool_registry().sections());
   } catch (const InputError&) {
   }
   try {

@@ -17,6 +17,7 @@
 #include "core/road_load.hpp"
 #include "process/child_process.hpp"
 #include "record/event_log.hpp"
+#include "registry.hpp"
 #include "support/sim_process.hpp"
 
 using namespace loadtrim;
@@ -90,7 +91,7 @@ TEST(DynoChecksCli, HealthyDynoPassesEveryCheckAndSessionsMayStart) {
   // 0.12 N/(km/h), 0.0009 N/(km/h)²) within 0.5 N (bound: common practice, no source; the band method at the
   // truth's 0.05 km/h speed noise).
   const physics::Truth truth = config::load_truth(kSrc + "/samples/truths/demo-hatchback.toml");
-  const checks::CellHistory h(dir, config::load_cell(kCell).name);
+  const checks::CellHistory h(dir, config::load_cell(kCell, adapters::production().sections()).name);
   ASSERT_TRUE(h.ok()) << h.error();
   const auto curve = h.parasitic_curve();
   ASSERT_TRUE(curve.has_value());
@@ -130,7 +131,7 @@ TEST(DynoChecksCli, PlantedParasiticExcessFailsTheDeterminationAndBlocksSessions
         << kind << ": " << cd.json.value("verdict", "");
   }
   // The failed determination does not replace the stored curve.
-  const checks::CellHistory h(dir, config::load_cell(kCell).name);
+  const checks::CellHistory h(dir, config::load_cell(kCell, adapters::production().sections()).name);
   int curves = 0;
   for (const auto& rec : h.records()) curves += rec.value("type", "") == "parasitic_curve";
   EXPECT_EQ(curves, 1);
@@ -310,7 +311,7 @@ TEST(DynoChecksCli, ACheckTheControllerCannotDoIsRefusedBeforeAnythingMoves) {
   ASSERT_TRUE(record::read_log(r.json.value("folder", "") + "/events.jsonl", &recs).ok);
   for (const auto& rec : recs) EXPECT_NE(rec.value("type", ""), "coast_started");
   // A refusal is not a check result: the cell's history does not count it as run or failed.
-  const checks::CellHistory h(dir, config::load_cell(cell).name);
+  const checks::CellHistory h(dir, config::load_cell(cell, adapters::production().sections()).name);
   EXPECT_TRUE(h.checks().empty());
   fs::remove_all(dir);
 }

@@ -15,6 +15,7 @@
 #include "modbus/register_map.hpp"
 #include "process/child_process.hpp"
 #include "record/event_log.hpp"
+#include "registry.hpp"
 #include "support/sim_process.hpp"
 
 using namespace loadtrim;
@@ -26,9 +27,17 @@ namespace {
 const std::string kSrc = LOADTRIM_SOURCE_DIR;
 const std::string kCell = kSrc + "/config/cells/sim-modbus.toml";
 
+controller::CellConfig load_cell() {
+  return config::load_cell(kCell, adapters::production().sections());
+}
+
+modbus::Settings& settings(controller::CellConfig& c) {
+  return std::any_cast<modbus::Settings&>(c.adapter_settings);
+}
+
 controller::CellConfig cell_for(unsigned port) {
-  auto c = config::load_cell(kCell);
-  c.port = port;
+  auto c = load_cell();
+  adapters::production().override_link(c, {port, ""});
   return c;
 }
 
@@ -151,7 +160,7 @@ TEST(Modbus, WatchdogWatchesTheHeartbeatCounter) {
 TEST(Modbus, ExceptionReplySurfacesAsAClearError) {
   SimProcess sim({"--modbus-map", kCell, "--time-scale", "5"});
   auto cell = cell_for(sim.port());
-  cell.register_map.regs[modbus::Q::f0].address = 900;  // beyond what the controller serves
+  settings(cell).map.regs[modbus::Q::f0].address = 900;  // beyond what the controller serves
   modbus::ModbusController c(cell);
   ASSERT_TRUE(c.connect().ok());
   const auto r = c.set_coefficients({40.0, 0.3, 0.03});
@@ -216,10 +225,11 @@ TEST(Modbus, RtuOverAPseudoTerminalPair) {
     std::this_thread::sleep_for(std::chrono::milliseconds(20));
   ASSERT_TRUE(fs::exists(a) && fs::exists(b)) << "socat did not create the pseudo-terminal pair";
   SimProcess sim({"--modbus-map", kCell, "--modbus-rtu", a, "--time-scale", "20"}, false);
-  auto cell = config::load_cell(kCell);
-  cell.adapter = "modbus-rtu";
-  cell.serial.device = b;
-  cell.serial.baud = 115200;
+  auto cell = load_cell();
+  adapters::SerialLine line;
+  line.device = b;
+  line.baud = 115200;
+  settings(cell).link = line;  // the map of the TCP cell, over RTU
   modbus::ModbusController c(cell);
   ASSERT_TRUE(c.connect().ok());
   controller::ControllerInfo info;
@@ -268,7 +278,7 @@ TEST(Modbus, BadRegisterMapsAreRefused) {
   for (const auto& c : cases) {
     std::string msg;
     try {
-      config::parse_cell(c.text, "bad-map.toml");
+      config::parse_cell(c.text, "bad-map.toml", adapters::production().sections());
     } catch (const config::InputError& e) {
       msg = e.what();
     }

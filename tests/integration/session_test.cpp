@@ -110,7 +110,8 @@ TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
   // the tool would otherwise fall behind a 1000x controller.
   const char* scale = std::getenv("LOADTRIM_TEST_FLEET_TIME_SCALE");
   SimProcess sim({"--truth", dir + "/truth.toml", "--time-scale", scale ? scale : "1000"});
-  session::Inputs in{config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0), "cell.toml"),
+  session::Inputs in{config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0), "cell.toml",
+                                        adapters::production().sections()),
                      profile, v};
   auto c = adapters::make_controller(in.cell);
   const std::string folder = dir + "/session";

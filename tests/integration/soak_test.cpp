@@ -118,7 +118,8 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
   SimProcess sim({"--time-scale", std::to_string(scale), "--watchdog-ms", "1000", "--exit-after-s", "3600"});
   const core::Profile profile = config::load_profile(kSrc + "/tests/data/soak-short.toml");
   const core::VehicleTarget target = config::load_target(kSrc + "/samples/targets/demo-hatchback.toml");
-  const controller::CellConfig cell = config::parse_cell(cell_text(sim.port()), "soak-cell.toml");
+  const controller::CellConfig cell =
+      config::parse_cell(cell_text(sim.port()), "soak-cell.toml", adapters::production().sections());
   std::string base = (fs::temp_directory_path() / "loadtrim-soak-XXXXXX").string();
   ASSERT_NE(::mkdtemp(base.data()), nullptr);
 

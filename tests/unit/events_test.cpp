@@ -22,6 +22,7 @@
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
 #include "record/event_log.hpp"
+#include "registry.hpp"
 #include "session/resume.hpp"
 #include "support/fake_controller.hpp"
 
@@ -429,7 +430,7 @@ TEST(Events, TheDynoChecksShowTheirStepsToObservers) {
   checks::CheckRequest req;
   req.kind = core::CheckKind::inertia;
   req.cell_file = kSrc + "/config/cells/sim-tcp.toml";
-  req.cell = config::load_cell(req.cell_file);
+  req.cell = config::load_cell(req.cell_file, adapters::production().sections());
   req.profile_file = kSrc + "/config/checks/cfr1066.toml";
   req.profile = config::load_check_profile(req.profile_file);
   req.checks_root = dir;

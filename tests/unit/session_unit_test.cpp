@@ -10,6 +10,7 @@
 
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
+#include "registry.hpp"
 #include "session/session.hpp"
 #include "support/fake_controller.hpp"
 
@@ -23,7 +24,7 @@ const std::string kSrc = LOADTRIM_SOURCE_DIR;
 
 session::Inputs inputs() {
   session::Inputs in;
-  in.cell = config::load_cell(kSrc + "/config/cells/sim-tcp.toml");
+  in.cell = config::load_cell(kSrc + "/config/cells/sim-tcp.toml", adapters::production().sections());
   in.profile = config::load_profile(kSrc + "/tests/data/wltp-iterative-short-warmup.toml");
   in.vehicle = config::load_target(kSrc + "/samples/targets/demo-hatchback.toml");
   return in;

@@ -1,0 +1,46 @@
+#include "modbus/map_file.hpp"
+
+#include "config/toml_reader.hpp"
+
+namespace loadtrim::modbus {
+
+RegisterMap read_register_map(config::TomlReader& r) {
+  RegisterMap m;
+  m.unit_id = r.integer_or("modbus.unit_id", 1, 0, 247);
+  m.poll_rate_hz = r.number_or("modbus.poll_rate_hz", 50.0, 1.0, 1000.0, "Hz");
+  for (std::size_t i = 0; i < kQuantities.size(); ++i) {
+    const std::string k = std::string("modbus.") + kQuantities[i].name;
+    if (!r.has(k)) continue;
+    Register& reg = m.regs[i];
+    reg.present = true;
+    const std::string table = r.choice(k + ".table", {"holding", "input", "coil"});
+    reg.table = table == "input" ? Table::input : table == "coil" ? Table::coil : Table::holding;
+    reg.address = r.integer_or(k + ".address", -1, 0, 65535);
+    if (!r.has(k + ".address")) r.error(k + ".address", "is missing, allowed 0 to 65535");
+    const std::string type = r.choice(k + ".type", {"int16", "uint16", "int32", "uint32", "float32"});
+    reg.type = type == "int16"    ? Type::int16
+               : type == "uint16" ? Type::uint16
+               : type == "int32"  ? Type::int32
+               : type == "uint32" ? Type::uint32
+                                  : Type::float32;
+    reg.order = r.choice(k + ".word_order", {"big", "little"}, std::string("big")) == "little"
+                    ? WordOrder::little
+                    : WordOrder::big;
+    reg.scale = r.number_or(k + ".scale", 1.0, -1e9, 1e9, "");
+    reg.unit = r.string_or(k + ".unit", "");
+  }
+  r.add(validate(m));
+  return m;
+}
+
+RegisterMap load_register_map(const std::string& path, core::Problems* w) {
+  config::TomlReader r = config::TomlReader::from_file(path);
+  auto m = read_register_map(r);
+  const core::Problems ws = r.finish();  // throws InputError on any error in the map
+  if (w)
+    for (const auto& p : ws)
+      if (p.key.rfind("modbus", 0) == 0) w->push_back(p);
+  return m;
+}
+
+}  // namespace loadtrim::modbus
