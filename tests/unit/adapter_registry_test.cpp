@@ -66,10 +66,10 @@ TEST(AdapterRegistry, TcpCellSettingsBelongToTheLineRow) {
   const auto& a = std::any_cast<const adapters::TcpAddress&>(c.adapter_settings);
   EXPECT_EQ(a.host, "127.0.0.1");
   EXPECT_EQ(a.port, 7301u);
-  EXPECT_EQ(adapters::production().link_key(c), "tcp-127.0.0.1-7301");
+  EXPECT_EQ(adapters::production().link_key(c), "tcp-loopback-7301");
   // --port changes the port; --device means nothing for TCP and is ignored, as it always was.
   adapters::production().override_link(c, {9000, "/dev/null"});
-  EXPECT_EQ(adapters::production().link_key(c), "tcp-127.0.0.1-9000");
+  EXPECT_EQ(adapters::production().link_key(c), "tcp-loopback-9000");
   EXPECT_NE(adapters::production().make_controller(c), nullptr);  // constructs; connects to nothing
 }
 
@@ -93,7 +93,7 @@ TEST(AdapterRegistry, ModbusCellCarriesItsRegisterMap) {
   EXPECT_EQ(std::get<adapters::TcpAddress>(s.link).port, 1502u);
   EXPECT_TRUE(s.map[modbus::Q::speed].present);
   EXPECT_EQ(s.map[modbus::Q::f2].order, modbus::WordOrder::little);  // as the shipped file says
-  EXPECT_EQ(adapters::production().link_key(c), "tcp-127.0.0.1-1502");
+  EXPECT_EQ(adapters::production().link_key(c), "tcp-loopback-1502");
 }
 
 TEST(AdapterRegistry, InProcessCellNeedsTheSimulatorRow) {

@@ -13,7 +13,6 @@
 #include <filesystem>
 #include <fstream>
 #include <map>
-#include <regex>
 #include <set>
 #include <sstream>
 #include <stdexcept>
@@ -44,15 +43,35 @@ std::map<std::string, Documented> documented() {
   std::ifstream in(kSrc + "/docs/session.md");
   std::map<std::string, Documented> out;
   std::string line;
-  const std::regex row(R"(^\| (.+?) \| ([A-Za-z]+) \| (.*) \|$)");
-  const std::regex name(R"(`([a-z0-9_]+)`(\??))");
+  // Without std::regex (GCC 12's libstdc++ regex trips -Wmaybe-uninitialized under the sanitizer preset).
+  // A row: "| `types` | Name | members |"; a member: `name` or `name`? (optional).
+  auto names_in = [](const std::string& text, std::set<std::string>* required,
+                     std::set<std::string>* optional) {
+    for (std::size_t at = text.find('`'); at != std::string::npos; at = text.find('`', at)) {
+      const std::size_t end = text.find('`', at + 1);
+      if (end == std::string::npos) break;
+      const std::string n = text.substr(at + 1, end - at - 1);
+      const bool ok =
+          !n.empty() && n.find_first_not_of("abcdefghijklmnopqrstuvwxyz0123456789_") == std::string::npos;
+      const bool opt = end + 1 < text.size() && text[end + 1] == '?';
+      if (ok) (opt && optional ? optional : required)->insert(n);
+      at = end + 1;
+    }
+  };
   while (std::getline(in, line)) {
-    std::smatch m;
-    if (!std::regex_match(line, m, row) || m[2] == "event") continue;
+    if (line.size() < 4 || line.compare(0, 2, "| ") != 0 || line.compare(line.size() - 2, 2, " |") != 0)
+      continue;
+    const std::size_t a = line.find(" | ", 2);
+    if (a == std::string::npos) continue;
+    const std::size_t b = line.find(" | ", a + 3);
+    if (b == std::string::npos) continue;
+    const std::string types = line.substr(2, a - 2), ev = line.substr(a + 3, b - a - 3);
+    const std::string members = line.substr(b + 3, line.size() - 2 - (b + 3));
+    if (ev.empty() || ev == "event" ||
+        ev.find_first_not_of("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz") != std::string::npos)
+      continue;
     Documented d;
-    const std::string types = m[1], members = m[3];
-    for (std::sregex_iterator it(types.begin(), types.end(), name), end; it != end; ++it)
-      d.types.insert((*it)[1]);
+    names_in(types, &d.types, nullptr);
     // Members nested in parentheses (first_setting's inputs) belong to the member before them.
     std::string top;
     int depth = 0;
@@ -61,9 +80,8 @@ std::map<std::string, Documented> documented() {
       if (depth == 0) top += c;
       if (c == ')') --depth;
     }
-    for (std::sregex_iterator it(top.begin(), top.end(), name), end; it != end; ++it)
-      ((*it)[2] == "?" ? d.optional : d.required).insert((*it)[1]);
-    out[m[2]] = d;
+    names_in(top, &d.required, &d.optional);
+    out[ev] = d;
   }
   return out;
 }
