@@ -127,12 +127,14 @@ std::optional<std::string> ClockGuard::on_sample(double c, double w, std::uint64
   max_offset_ = std::max(max_offset_, offset);
   win_max_offset_ = win_have_ ? std::max(win_max_offset_, offset) : offset;
   win_have_ = true;
-  // The stream rate, over at least 5 s of controller time (and 0.5 s of wall time for wall-related clocks):
+  // The stream rate, over at least 5 s of controller time (and 2 s of wall time for wall-related clocks):
   // samples per controller second outside [0.5, 2] × the rate asked — and, when the clock is tied to the
   // wall, samples per wall second outside the same band around rate × scale too, so that a racing or crawling
   // clock (which changes the first but not the second) is named as a clock by the rules above, not as a
   // stream.
-  if (rules_.stream_rate_hz > 0.0 && c - rate_c0_ >= 5.0 && (!rules_.wall_related || w - rate_w0_ >= 0.5)) {
+  // The wall window is 2 s: long enough that a tool reading its stream in bursts on a loaded host does not
+  // see a wall rate off by a factor of 2, and that a racing clock is named by the rule above first.
+  if (rules_.stream_rate_hz > 0.0 && c - rate_c0_ >= 5.0 && (!rules_.wall_related || w - rate_w0_ >= 2.0)) {
     const double hz = static_cast<double>(rate_n_) / (c - rate_c0_);
     const bool off = hz < 0.5 * rules_.stream_rate_hz || hz > 2.0 * rules_.stream_rate_hz;
     const double per_wall = rules_.wall_related ? static_cast<double>(rate_n_) / (w - rate_w0_) : 0.0;

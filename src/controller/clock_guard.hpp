@@ -32,10 +32,9 @@
 //     by more than scale × 2 × slack nor behind the last sample by more than scale × 1 s ("status clock and
 //     sample clock disagree");
 //   - with a streamed (not polled) link, the samples per controller second over at least 5 s of controller
-//   time stay
-//     within [0.5, 2] × the rate asked ("streams at N Hz"); for a wall-related clock the samples per wall
-//     second must be out of the same band around rate × scale as well, so a racing or crawling clock is named
-//     as a clock.
+//     time (and 2 s of wall time) stay within [0.5, 2] × the rate asked ("streams at N Hz"); for a
+//     wall-related clock the samples per wall second must be out of the same band around rate × scale as
+//     well, so a racing or crawling clock is named as a clock.
 // With `wall_related` false (a controller simulated inside the tool's own process, whose clock races ahead of
 // the wall by design) only the order and the stream rate are checked.
 #pragma once
