@@ -29,6 +29,11 @@ RegisterMap read_register_map(config::TomlReader& r) {
     reg.scale = r.number_or(k + ".scale", 1.0, -1e9, 1e9, "");
     reg.unit = r.string_or(k + ".unit", "");
   }
+  // The checks' mode codes (register_map.hpp ModeCodes): absent = the controller does not offer the mode.
+  if (r.has("modbus.modes.constant_force"))
+    m.modes.constant_force = static_cast<int>(r.integer_or("modbus.modes.constant_force", -1, 5, 65535));
+  if (r.has("modbus.modes.free_coast"))
+    m.modes.free_coast = static_cast<int>(r.integer_or("modbus.modes.free_coast", -1, 5, 65535));
   r.add(validate(m));
   return m;
 }

@@ -139,6 +139,9 @@ Result ModbusController::do_identify(controller::ControllerInfo& out, controller
   out.name = "modbus unit " + std::to_string(settings_.map.unit_id);
   out.protocol_version = 1;
   out.capabilities = "hold,hold-force,roadload,stop,stream,watchdog,status";
+  // The checks' modes only where the map names their codes and registers.
+  if (missing_for(settings_.map, controller::Mode::constant_force).empty()) out.capabilities += ",force";
+  if (missing_for(settings_.map, controller::Mode::free_coast).empty()) out.capabilities += ",free";
   if (Result r = read(Q::roller_diameter, out.roller_diameter_m); !r.ok()) return r;
   if (Result r = read(Q::base_inertia, out.base_inertia_kg); !r.ok()) return r;
   if (Result r = read(Q::max_speed, out.max_speed_kmh); !r.ok()) return r;
@@ -168,31 +171,31 @@ Result ModbusController::do_read_coefficients(core::RoadLoad& c, controller::Dea
   return read(Q::f2, c.f2_n_per_kmh2);
 }
 
-Result ModbusController::do_command(controller::Mode mode, double hold_kmh, controller::Deadline d) {
-  int code = kCommandIdle;
-  switch (mode) {
-    case controller::Mode::idle:
-      code = kCommandIdle;
-      break;
-    case controller::Mode::speed_hold:
-      code = kCommandHold;
-      break;
-    case controller::Mode::road_load:
-      code = kCommandRoadLoad;
-      break;
-    case controller::Mode::controlled_stop:
-      code = kCommandStop;
-      break;
-    case controller::Mode::constant_force:
-    case controller::Mode::free_coast:
-      return Result::fail(
-          std::string(controller::to_string(mode)) +
-          " is not in the Modbus register map: run the dyno's own checks over a line adapter");
-  }
+Result ModbusController::do_command(controller::Mode mode, double value, controller::Deadline d) {
+  const RegisterMap& m = settings_.map;
+  const int code = command_code(m, mode);
+  if (code < 0) return Result::fail(missing_for(m, mode));
+  // The value registers first, then the command, then one strobe: the controller takes them together.
   if (mode == controller::Mode::speed_hold)
-    if (Result r = write(Q::hold_speed, hold_kmh); !r.ok()) return r;
+    if (Result r = write(Q::hold_speed, value); !r.ok()) return r;
+  if (mode == controller::Mode::constant_force)
+    if (Result r = write(Q::force_setpoint, value); !r.ok()) return r;
   if (Result r = write(Q::command, code); !r.ok()) return r;
-  return strobe(d);
+  if (Result r = strobe(d); !r.ok()) return r;
+  if (mode == controller::Mode::constant_force) {
+    // The force the controller holds is read back like every other setpoint (the public layer reads back
+    // inertia and coefficients, not a command's value).
+    double back = 0.0;
+    if (Result r = read(Q::force_setpoint, back); !r.ok()) return r;
+    if (!(std::abs(back - value) <= readback_tolerance(value) + m[Q::force_setpoint].scale / 2))
+      return Result::fail("read-back force setpoint " + std::to_string(back) + " N differs from the " +
+                          std::to_string(value) + " N written; refusing to go on");
+  }
+  return Result::success();
+}
+
+std::string ModbusController::mode_unavailable(controller::Mode mode) const {
+  return missing_for(settings_.map, mode);
 }
 
 Result ModbusController::do_stream(double rate_hz, controller::Deadline) {
@@ -224,7 +227,8 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   } else {
     s.time_s = std::chrono::duration<double>(now - t0_).count();
   }
-  if (std::string bad = decode_mode(mode, s.mode); !bad.empty()) return Result::fail(bad);
+  if (std::string bad = decode_mode(mode, s.mode, settings_.map.modes); !bad.empty())
+    return Result::fail(bad);
   if (std::string bad = decode_flags(status, s.flags); !bad.empty()) return Result::fail(bad);
   s.index = index_++;
   out.push_back(s);
@@ -242,7 +246,8 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
   if (Result r = read(Q::status, status); !r.ok()) return r;
   if (settings_.map[Q::time].present)
     if (Result r = read(Q::time, out.time_s); !r.ok()) return r;
-  if (std::string bad = decode_mode(mode, out.mode); !bad.empty()) return Result::fail(bad);
+  if (std::string bad = decode_mode(mode, out.mode, settings_.map.modes); !bad.empty())
+    return Result::fail(bad);
   if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);
   out.fault = (out.flags & controller::kFlagWatchdog) ? "WATCHDOG"
               : (out.flags & controller::kFlagEstop)  ? "ESTOP"

@@ -53,6 +53,7 @@ class ModbusController : public controller::Controller {
   controller::Result do_status(controller::StatusReport& out, controller::Deadline d) override;
   controller::Result do_clear_fault(controller::Deadline d) override;
   double readback_tolerance(double written) const override;
+  std::string mode_unavailable(controller::Mode mode) const override;
 
  private:
   controller::Result read(Q q, double& value);

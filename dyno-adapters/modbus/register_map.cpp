@@ -71,7 +71,67 @@ core::Problems validate(const RegisterMap& m) {
         slot = q.name;
     }
   }
+  // The checks' mode codes: distinct from ours (0 to 4) and from each other, and sendable through the command
+  // register; a constant force goes with its setpoint register.
+  const auto code = [&](const char* name, int c) {
+    const std::string key = std::string("modbus.modes.") + name;
+    if (c < 0) return;
+    if (c > 65535) return err(key, "is " + std::to_string(c) + ", allowed 5 to 65535");
+    if (c <= kCommandClearFault)
+      return err(key, "is " + std::to_string(c) +
+                          ", which is taken (0 idle, 1 speed hold, 2 road load, 3 stop, 4 clear fault): "
+                          "allowed 5 to 65535");
+    std::uint16_t w[2] = {0, 0};
+    if (m.regs[Q::command].present && !encode(m.regs[Q::command], c, w))
+      err(key, "is " + std::to_string(c) + ", which does not fit the command register (" +
+                   to_string(m.regs[Q::command].type) + ", scale " + core::num(m.regs[Q::command].scale) +
+                   ")");
+  };
+  code("constant_force", m.modes.constant_force);
+  code("free_coast", m.modes.free_coast);
+  if (m.modes.constant_force >= 0 && m.modes.constant_force == m.modes.free_coast)
+    err("modbus.modes.free_coast",
+        "is " + std::to_string(m.modes.free_coast) + ", the same code as modbus.modes.constant_force");
+  if (m.modes.constant_force >= 0 && !m.regs[Q::force_setpoint].present)
+    err("modbus.force_setpoint",
+        "is missing: modbus.modes.constant_force needs the register the force is written to (unit N)");
+  if (m.modes.constant_force < 0 && m.regs[Q::force_setpoint].present)
+    err("modbus.modes.constant_force",
+        "is missing: modbus.force_setpoint is written only with the constant-force command code, "
+        "allowed 5 to 65535");
   return ps;
+}
+
+std::string missing_for(const RegisterMap& m, controller::Mode mode) {
+  std::vector<std::string> keys;
+  if (mode == controller::Mode::constant_force) {
+    if (m.modes.constant_force < 0) keys.push_back("modbus.modes.constant_force");
+    if (!m.regs[Q::force_setpoint].present) keys.push_back("modbus.force_setpoint");
+  } else if (mode == controller::Mode::free_coast) {
+    if (m.modes.free_coast < 0) keys.push_back("modbus.modes.free_coast");
+  }
+  if (keys.empty()) return "";
+  std::string s = std::string("the register map has no ") + keys[0];
+  for (std::size_t i = 1; i < keys.size(); ++i) s += (i + 1 == keys.size() ? " and " : ", ") + keys[i];
+  return s + " (docs/modbus.md): " + controller::to_string(mode) + " cannot be commanded over it";
+}
+
+int command_code(const RegisterMap& m, controller::Mode mode) {
+  switch (mode) {
+    case controller::Mode::idle:
+      return kCommandIdle;
+    case controller::Mode::speed_hold:
+      return kCommandHold;
+    case controller::Mode::road_load:
+      return kCommandRoadLoad;
+    case controller::Mode::controlled_stop:
+      return kCommandStop;
+    case controller::Mode::constant_force:
+      return missing_for(m, mode).empty() ? m.modes.constant_force : -1;
+    case controller::Mode::free_coast:
+      return m.modes.free_coast;
+  }
+  return -1;
 }
 
 double decode(const Register& r, const std::uint16_t* w) {
@@ -156,10 +216,18 @@ std::string shown(double v) {
 }
 }  // namespace
 
-std::string decode_mode(double value, controller::Mode& out) {
-  if (!whole_in(value, 0.0, 3.0))
-    return "mode register value " + shown(value) +
-           " is not a mode code (allowed: 0 idle, 1 hold, 2 road load, 3 stop)";
+std::string decode_mode(double value, controller::Mode& out, const ModeCodes& codes) {
+  const bool ours = whole_in(value, 0.0, 3.0);
+  const bool force = codes.constant_force >= 0 && value == codes.constant_force;
+  const bool free = codes.free_coast >= 0 && value == codes.free_coast;
+  if (!ours && !force && !free) {
+    std::string allowed = "0 idle, 1 hold, 2 road load, 3 stop";
+    if (codes.constant_force >= 0) allowed += ", " + std::to_string(codes.constant_force) + " constant force";
+    if (codes.free_coast >= 0) allowed += ", " + std::to_string(codes.free_coast) + " free coast";
+    return "mode register value " + shown(value) + " is not a mode code (allowed: " + allowed + ")";
+  }
+  if (force) return out = controller::Mode::constant_force, "";
+  if (free) return out = controller::Mode::idle, "";
   const int m = static_cast<int>(value);
   out = m == kCommandHold       ? controller::Mode::speed_hold
         : m == kCommandRoadLoad ? controller::Mode::road_load

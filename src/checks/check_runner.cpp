@@ -7,6 +7,7 @@
 #include <filesystem>
 #include <fstream>
 #include <functional>
+#include <optional>
 #include <sstream>
 
 #include "checks/cell_history.hpp"
@@ -310,6 +311,17 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
         core::to_string(req.kind), req.cell.name, files, req.confirmation, req.note, req.operator_id,
         req.key ? req.key->fingerprint() : std::string("none: the folder will be sealed unsigned"), stored,
         stored_utc});
+    // The free coast and the constant force are not every controller's. What the cell file alone says (a
+    // register map without their keys) refuses the check before anything connects; the capabilities the
+    // controller states at identify, below, before anything moves.
+    const std::optional<controller::Mode> mode =
+        req.kind == core::CheckKind::parasitic ? std::optional(controller::Mode::free_coast)
+        : req.kind == core::CheckKind::inertia ? std::optional(controller::Mode::constant_force)
+                                               : std::nullopt;
+    if (mode)
+      if (const std::string why = c.unavailable(*mode); !why.empty())
+        throw Abort{CheckResult::End::refused, std::string("this check needs the ") +
+                                                   controller::to_string(*mode) + " mode, but " + why};
     const controller::KeepAlive keep_alive(c);
     p.must(c.connect(), "connect");
     controller::ControllerInfo info;

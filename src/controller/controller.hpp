@@ -185,6 +185,10 @@ class Controller {
   void set_stopping(bool on);
   // Whether the adapter streams samples at the rate asked (true) or polls at a rate of its own.
   bool streams() const { return streamed(); }
+  // What its configuration alone (no link) says about a mode this controller cannot be commanded into: ""
+  // when nothing stands in the way (the controller's capabilities, at identify, have the last word), else
+  // why, e.g. the register map keys it lacks. The checks ask before anything connects.
+  std::string unavailable(Mode m) const { return mode_unavailable(m); }
   const Timeouts& timeouts() const { return timeouts_; }
   const Limits& limits() const { return limits_; }
   void set_speed_limit(double max_speed_kmh) { limits_.max_speed_kmh = max_speed_kmh; }
@@ -208,6 +212,7 @@ class Controller {
   virtual void do_take_events(std::vector<std::string>&) {}
   // Whether samples are streamed by the controller at the rate asked (checked), or polled by the adapter.
   virtual bool streamed() const { return true; }
+  virtual std::string mode_unavailable(Mode) const { return ""; }
   // A stream was started: samples arrive at about this many per wall second (the rate asked × the
   // controller's clock rate). Adapters that queue samples size their bounds from it.
   virtual void on_stream_rate(double /*samples_per_wall_s*/) {}

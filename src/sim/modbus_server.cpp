@@ -77,11 +77,8 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     put(Q::speed, s.speed_kmh);
     put(Q::force, s.force_n);
     put(Q::time, s.time_s);
-    const int mode = s.mode == controller::Mode::speed_hold        ? modbus::kCommandHold
-                     : s.mode == controller::Mode::road_load       ? modbus::kCommandRoadLoad
-                     : s.mode == controller::Mode::controlled_stop ? modbus::kCommandStop
-                                                                   : modbus::kCommandIdle;
-    put(Q::mode, mode);
+    // A mode the map has no code for reads as idle (it cannot have been commanded over this map).
+    put(Q::mode, std::max(modbus::kCommandIdle, modbus::command_code(map, s.mode)));
     put(Q::status, s.flags);
   };
 
@@ -162,10 +159,18 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
       if (was(Q::inertia)) e = sim.set_inertia(get(Q::inertia));
       if (!e && (was(Q::f0) || was(Q::f1) || was(Q::f2)))
         e = sim.set_coefficients({get(Q::f0), get(Q::f1), get(Q::f2)});
-      if (!e && (was(Q::command) || was(Q::hold_speed))) {
+      if (!e && (was(Q::command) || was(Q::hold_speed) || was(Q::force_setpoint))) {
         const int c = static_cast<int>(get(Q::command));
+        const bool force = map.modes.constant_force >= 0 && c == map.modes.constant_force;
         if (c == modbus::kCommandClearFault)
           e = sim.clear();
+        else if (force && map[Q::force_setpoint].present)
+          e = sim.command(controller::Mode::constant_force, get(Q::force_setpoint));
+        else if (map.modes.free_coast >= 0 && c == map.modes.free_coast)
+          e = sim.command(controller::Mode::free_coast, 0.0);
+        else if (c < modbus::kCommandIdle || c > modbus::kCommandStop)
+          e = SimError{line::ErrorCode::bad_argument,
+                       "command code " + std::to_string(c) + " is not in the map"};
         else
           e = sim.command(c == modbus::kCommandHold       ? controller::Mode::speed_hold
                           : c == modbus::kCommandRoadLoad ? controller::Mode::road_load

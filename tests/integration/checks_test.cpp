@@ -8,6 +8,7 @@
 #include <filesystem>
 #include <fstream>
 #include <functional>
+#include <iterator>
 
 #include "checks/cell_history.hpp"
 #include "config/cell_loader.hpp"
@@ -297,21 +298,90 @@ TEST(TargetCli, EpaRowAndPlausibilityWarnings) {
   EXPECT_EQ(neg.rc, 2);
 }
 
-// A controller that does not offer the free coast (the Modbus register map has no such mode) is refused
-// before anything moves: exit 2, the missing capability named, and no motion in the check's record.
-TEST(DynoChecksCli, ACheckTheControllerCannotDoIsRefusedBeforeAnythingMoves) {
+// The Modbus example cell for the checks: the shipped map, polled at 1000 Hz (10 samples per controller
+// second at 100×), and optionally without the checks' entries (the force setpoint and [modbus.modes]).
+namespace {
+std::string modbus_cell(const std::string& dir, bool with_check_entries) {
+  std::ifstream in(kSrc + "/config/cells/sim-modbus.toml");
+  std::string t(std::istreambuf_iterator<char>(in), {});
+  const std::string rate = "poll_rate_hz = 50.0";
+  t.replace(t.find(rate), rate.size(), "poll_rate_hz = 1000.0");
+  if (!with_check_entries) t = t.substr(0, t.find("# The dyno's own checks"));
+  const std::string path = dir + (with_check_entries ? "/modbus-cell.toml" : "/modbus-cell-no-checks.toml");
+  std::ofstream(path) << t;
+  return path;
+}
+
+// LOADTRIM_TEST_MODBUS_CHECKS_TIME_SCALE: the simulator's speed for the checks over Modbus; each sample is
+// five register reads, so the poll rate, not the tool, bounds it (100: the four checks in about 30 s).
+std::string modbus_scale() {
+  const char* s = std::getenv("LOADTRIM_TEST_MODBUS_CHECKS_TIME_SCALE");
+  return s && *s ? s : "100";
+}
+}  // namespace
+
+// The four checks over Modbus TCP, the constant force and the free coast through the map's force setpoint and
+// mode codes, each with the result docs/dyno-checks.md gives for the healthy simulator: passed, and the
+// stored parasitic curve the simulator's hidden one (the same 0.5 N bound as over the line protocol).
+TEST(DynoChecksCli, FourChecksOverModbusTcp) {
+  const std::string dir = temp_dir("checks-modbus-ok");
+  const std::string cell = modbus_cell(dir, true);
+  SimProcess sim(
+      {"--modbus-map", cell, "--empty-rollers", "--time-scale", modbus_scale(), "--watchdog-ms", "1000"});
+  for (const std::string kind : {"parasitic", "coastdown", "readiness", "inertia"}) {
+    const Ran r = tool({"check", kind, "--cell", cell, "--port", std::to_string(sim.port()), "--checks", dir,
+                        "--unattended", "--json"});
+    EXPECT_EQ(r.rc, 0) << kind << ": " << r.out << r.err;
+    ASSERT_TRUE(r.json.is_object()) << r.out << r.err;
+    EXPECT_EQ(r.json.value("end", ""), "passed") << kind << ": " << r.json.value("verdict", "");
+    const std::string folder = r.json.value("folder", "");
+    const auto v = record::verify_session_folder(folder);
+    EXPECT_TRUE(v.ok) << folder << ": " << v.message;
+    std::vector<nlohmann::json> recs;
+    ASSERT_TRUE(record::read_log(folder + "/events.jsonl", &recs).ok);
+    for (const auto& rec : recs) {
+      if (rec.value("type", "") == "force_applied") {  // through the force setpoint register
+        EXPECT_GT(rec.value("force_n", 0.0), 0.0) << rec.dump();
+      }
+    }
+  }
+  const physics::Truth truth = config::load_truth(kSrc + "/samples/truths/demo-hatchback.toml");
+  const checks::CellHistory h(dir, config::load_cell(cell, adapters::production().sections()).name);
+  ASSERT_TRUE(h.ok()) << h.error();
+  const auto curve = h.parasitic_curve();
+  ASSERT_TRUE(curve.has_value());
+  const core::RoadLoad true_curve{truth.dyno.parasitic_f0_n, truth.dyno.parasitic_f1_n_per_kmh,
+                                  truth.dyno.parasitic_f2_n_per_kmh2};
+  for (double s : {30.0, 60.0, 90.0, 120.0}) EXPECT_NEAR(curve->force_n(s), true_curve.force_n(s), 0.5) << s;
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
+// A Modbus map without the checks' entries still drives setting sessions (modbus_test's full session uses
+// one) and the road-load checks, but the parasitic determination and the inertia check are refused before
+// anything connects: exit 2, the missing map keys named, no identification and no motion in the record.
+TEST(DynoChecksCli, ACheckTheMapCannotCommandIsRefusedBeforeAnythingConnects) {
   const std::string dir = temp_dir("checks-modbus");
-  const std::string cell = kSrc + "/config/cells/sim-modbus.toml";
+  const std::string cell = modbus_cell(dir, false);
   SimProcess sim({"--modbus-map", cell, "--time-scale", "20", "--empty-rollers"});
-  const Ran r = tool({"check", "parasitic", "--cell", cell, "--port", std::to_string(sim.port()), "--checks",
-                      dir, "--unattended", "--json"});
-  EXPECT_EQ(r.rc, 2) << r.out << r.err;
-  EXPECT_NE(r.json.value("verdict", "").find("'free' capability"), std::string::npos) << r.out;
-  std::vector<nlohmann::json> recs;
-  ASSERT_TRUE(record::read_log(r.json.value("folder", "") + "/events.jsonl", &recs).ok);
-  for (const auto& rec : recs) EXPECT_NE(rec.value("type", ""), "coast_started");
+  const std::pair<std::string, std::string> cases[] = {
+      {"parasitic", "needs the free-coast mode, but the register map has no modbus.modes.free_coast"},
+      {"inertia",
+       "needs the constant-force mode, but the register map has no modbus.modes.constant_force and "
+       "modbus.force_setpoint"}};
+  for (const auto& [kind, must] : cases) {
+    const Ran r = tool({"check", kind, "--cell", cell, "--port", std::to_string(sim.port()), "--checks", dir,
+                        "--unattended", "--json"});
+    EXPECT_EQ(r.rc, 2) << r.out << r.err;
+    EXPECT_NE(r.json.value("verdict", "").find(must), std::string::npos) << r.out;
+    std::vector<nlohmann::json> recs;
+    ASSERT_TRUE(record::read_log(r.json.value("folder", "") + "/events.jsonl", &recs).ok);
+    for (const auto& rec : recs) {
+      EXPECT_NE(rec.value("type", ""), "identified") << kind;  // refused before connecting
+      EXPECT_NE(rec.value("type", ""), "coast_started") << kind;
+    }
+  }
   // A refusal is not a check result: the cell's history does not count it as run or failed.
   const checks::CellHistory h(dir, config::load_cell(cell, adapters::production().sections()).name);
   EXPECT_TRUE(h.checks().empty());
-  fs::remove_all(dir);
+  if (!HasFailure()) fs::remove_all(dir);
 }

@@ -214,6 +214,49 @@ TEST(Modbus, IndependentClientReadsTheDocumentedRegisters) {
   c.controlled_stop();
 }
 
+// The force setpoint's documented encoding (docs/modbus.md: holding register 13, int16, 1 count = 0.5 N) and
+// the constant-force mode code (5) in the mode register, read by mbpoll after our adapter commanded the
+// force.
+TEST(Modbus, IndependentClientReadsTheForceSetpointScaling) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "5", "--watchdog-ms", "60000", "--empty-rollers"});
+  const std::string port = std::to_string(sim.port());
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  EXPECT_TRUE(info.has("force"));
+  EXPECT_TRUE(info.has("free"));
+  const auto r = c.apply_force(558.8);  // 1117.6 counts: the controller holds 1118 counts, 559 N
+  ASSERT_TRUE(r.ok()) << r.message;
+  c.disconnect();
+  std::this_thread::sleep_for(std::chrono::milliseconds(100));
+  std::string out;
+  // Holding register reference 14 = address 13, signed 16-bit.
+  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "4", "-r", "14", "-c",
+                         "1", "-1", "127.0.0.1"},
+                        &out),
+            0)
+      << out;
+  auto pos = out.find("[14]: \t");
+  ASSERT_NE(pos, std::string::npos) << out;
+  EXPECT_EQ(std::stoi(out.substr(pos + 6)), 1118) << out;  // × 0.5 N = 559 N
+  // Input register reference 5 = address 4, the mode: 5 = constant force (the map's modes.constant_force).
+  ASSERT_EQ(run_command({"/usr/bin/mbpoll", "-m", "tcp", "-p", port, "-a", "1", "-t", "3", "-r", "5", "-c",
+                         "1", "-1", "127.0.0.1"},
+                        &out),
+            0)
+      << out;
+  pos = out.find("[5]: \t");
+  ASSERT_NE(pos, std::string::npos) << out;
+  EXPECT_EQ(std::stoi(out.substr(pos + 5)), 5) << out;
+  ASSERT_TRUE(c.connect().ok());
+  EXPECT_TRUE(c.free_coast().ok());  // code 6: the motor lets go, the mode register reads idle
+  controller::StatusReport st;
+  ASSERT_TRUE(c.status(st).ok());
+  EXPECT_EQ(st.mode, controller::Mode::idle);
+  c.controlled_stop();
+}
+
 TEST(Modbus, RtuOverAPseudoTerminalPair) {
   // socat (Debian) links two pseudo-terminals: the simulator serves RTU on one, the adapter opens the other.
   std::string dir = (fs::temp_directory_path() / "loadtrim-rtu-XXXXXX").string();
@@ -286,8 +329,9 @@ TEST(Modbus, BadRegisterMapsAreRefused) {
   }
 }
 
+// With a map that has none of the dyno checks' entries (force setpoint, [modbus.modes]), as a map written
+// before they existed: setting sessions need none of them.
 TEST(Modbus, FullSessionOverModbusTcp) {
-  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20"});
   std::string dir = (fs::temp_directory_path() / "loadtrim-modbus-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
   std::string cell = [] {
@@ -296,7 +340,13 @@ TEST(Modbus, FullSessionOverModbusTcp) {
   }();
   cell.replace(cell.find("poll_rate_hz = 50.0"), 19,
                "poll_rate_hz = 400.0");  // 20 Hz of controller time at 20x
+  const auto checks_part = cell.find("# The dyno's own checks");
+  ASSERT_NE(checks_part, std::string::npos);
+  cell.resize(checks_part);
+  ASSERT_EQ(cell.find("\n[modbus.force_setpoint]"), std::string::npos);
+  ASSERT_EQ(cell.find("\n[modbus.modes]"), std::string::npos);
   std::ofstream(dir + "/cell.toml") << cell;
+  SimProcess sim({"--modbus-map", dir + "/cell.toml", "--time-scale", "20"});
   std::string out, err;
   const int rc =
       run_command({LOADTRIM_EXE, "run", "--override-checks", "integration test against the simulator",
