@@ -27,8 +27,8 @@ std::string fault_of(std::uint32_t flags) {
 }
 }  // namespace
 
-FramedController::FramedController(std::unique_ptr<line::Transport> transport, Table table, controller::Timeouts t,
-                                   controller::Limits l)
+FramedController::FramedController(std::unique_ptr<line::Transport> transport, Table table,
+                                   controller::Timeouts t, controller::Limits l)
     : Controller(t, l), transport_(std::move(transport)), table_(std::move(table)) {}
 
 FramedController::FramedController(const controller::CellConfig& cell)
@@ -51,7 +51,8 @@ void FramedController::do_disconnect() {
 Result FramedController::transact(Op op, const Values& in, Values& out, controller::Deadline d) {
   const Command& c = table_[op];
   const std::string what = std::string(to_string(op)) + " (" + c.code + ")";
-  if (!c.present) return Result::fail(std::string("the [framed] table maps no ") + to_string(op) + " command");
+  if (!c.present)
+    return Result::fail(std::string("the [framed] table maps no ") + to_string(op) + " command");
   if (!transport_->is_open()) return Result::retry("link not open");
   std::vector<std::string> words{c.code, std::to_string(table_.channel)};
   if (std::string e = encode_values(table_, c.request, in, words); !e.empty())
@@ -206,8 +207,8 @@ Result FramedController::do_stream(double rate_hz, controller::Deadline) {
 
 Result FramedController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) {
   if (!streaming_) return Result::success();
-  const auto period = std::chrono::duration_cast<Clock::duration>(
-      std::chrono::duration<double>(1.0 / table_.poll_rate_hz));
+  const auto period =
+      std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(1.0 / table_.poll_rate_hz));
   if (next_poll_ > d) return Result::success();
   std::this_thread::sleep_until(next_poll_);
   const auto now = Clock::now();

@@ -43,7 +43,8 @@ class FramedController : public controller::Controller {
   controller::Result do_read_coefficients(core::RoadLoad& c, controller::Deadline d) override;
   controller::Result do_command(controller::Mode mode, double value, controller::Deadline d) override;
   controller::Result do_stream(double rate_hz, controller::Deadline d) override;
-  controller::Result do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) override;
+  controller::Result do_receive_samples(std::vector<controller::Sample>& out,
+                                        controller::Deadline d) override;
   bool streamed() const override { return false; }  // polled at framed.poll_rate_hz
   controller::Result do_heartbeat(controller::Deadline d) override;
   controller::Result do_status(controller::StatusReport& out, controller::Deadline d) override;

@@ -13,13 +13,26 @@ using core::Problem;
 
 namespace {
 
-constexpr std::array<const char*, kOps> kOpNames = {
-    "identify", "status", "sample", "hold", "roadload", "stop", "idle", "force", "free",
-    "write_inertia", "read_inertia", "write_coefficients", "read_coefficients", "heartbeat", "clear_fault"};
+constexpr std::array<const char*, kOps> kOpNames = {"identify",
+                                                    "status",
+                                                    "sample",
+                                                    "hold",
+                                                    "roadload",
+                                                    "stop",
+                                                    "idle",
+                                                    "force",
+                                                    "free",
+                                                    "write_inertia",
+                                                    "read_inertia",
+                                                    "write_coefficients",
+                                                    "read_coefficients",
+                                                    "heartbeat",
+                                                    "clear_fault"};
 
 constexpr std::array<const char*, kQtys> kQtyNames = {
-    "speed_kmh", "force_n", "time_s", "mode", "flags", "inertia_kg", "f0_n", "f1_n_per_kmh", "f2_n_per_kmh2",
-    "roller_diameter_m", "base_inertia_kg", "max_speed_kmh", "max_force_n", "time_scale"};
+    "speed_kmh",       "force_n",       "time_s",       "mode",          "flags",
+    "inertia_kg",      "f0_n",          "f1_n_per_kmh", "f2_n_per_kmh2", "roller_diameter_m",
+    "base_inertia_kg", "max_speed_kmh", "max_force_n",  "time_scale"};
 
 using Qs = std::vector<Qty>;
 
@@ -35,7 +48,9 @@ Rule rule(Op op) {
   using Q = Qty;
   switch (op) {
     case Op::identify:
-      return {true, {}, {Q::roller_diameter_m, Q::base_inertia_kg, Q::max_speed_kmh, Q::max_force_n},
+      return {true,
+              {},
+              {Q::roller_diameter_m, Q::base_inertia_kg, Q::max_speed_kmh, Q::max_force_n},
               {Q::time_scale}};
     case Op::status:
       return {true, {}, {Q::mode, Q::speed_kmh, Q::flags}, {Q::time_s, Q::force_n}};
@@ -56,7 +71,10 @@ Rule rule(Op op) {
     case Op::read_inertia:
       return {true, {}, {Q::inertia_kg}, {}};
     case Op::write_coefficients:
-      return {true, {Q::f0_n, Q::f1_n_per_kmh, Q::f2_n_per_kmh2}, {}, {Q::f0_n, Q::f1_n_per_kmh, Q::f2_n_per_kmh2}};
+      return {true,
+              {Q::f0_n, Q::f1_n_per_kmh, Q::f2_n_per_kmh2},
+              {},
+              {Q::f0_n, Q::f1_n_per_kmh, Q::f2_n_per_kmh2}};
     case Op::read_coefficients:
       return {true, {}, {Q::f0_n, Q::f1_n_per_kmh, Q::f2_n_per_kmh2}, {}};
     case Op::heartbeat:
@@ -189,9 +207,12 @@ std::string format_fields(const std::vector<Field>& fields) {
 
 core::Problems validate(const Table& t) {
   core::Problems ps;
-  auto err = [&](const std::string& key, std::string m) { ps.push_back({Problem::Severity::error, key, std::move(m)}); };
+  auto err = [&](const std::string& key, std::string m) {
+    ps.push_back({Problem::Severity::error, key, std::move(m)});
+  };
   if (t.channel > 99) err("framed.channel", "allowed 0 to 99");
-  if (!(t.poll_rate_hz >= 1.0 && t.poll_rate_hz <= 1000.0)) err("framed.poll_rate_hz", "allowed 1 to 1000 Hz");
+  if (!(t.poll_rate_hz >= 1.0 && t.poll_rate_hz <= 1000.0))
+    err("framed.poll_rate_hz", "allowed 1 to 1000 Hz");
   for (std::size_t i = 0; i < kOps; ++i) {
     const Op op = static_cast<Op>(i);
     const Command& c = t.ops[i];
@@ -242,9 +263,10 @@ core::Problems validate(const Table& t) {
                                 format_fields(c.request) == format_fields(o.request) &&
                                 format_fields(c.reply) == format_fields(o.reply);
       if (!told_apart && !same_command)
-        err(key + ".code", "\"" + c.code + "\" is also the code of " + kOpNames[j] +
-                               ": operations sharing a code need a literal (=WORD) at the same place that differs, "
-                               "or (two reading operations) the same request and reply");
+        err(key + ".code",
+            "\"" + c.code + "\" is also the code of " + kOpNames[j] +
+                ": operations sharing a code need a literal (=WORD) at the same place that differs, "
+                "or (two reading operations) the same request and reply");
     }
   }
   const std::array<std::pair<const char*, int>, 5> modes = {{{"idle", t.modes.idle},
@@ -258,10 +280,10 @@ core::Problems validate(const Table& t) {
         err(std::string("framed.modes.") + modes[i].first,
             "the same number as framed.modes." + std::string(modes[j].first) + "; each mode needs its own");
   const std::array<std::pair<const char*, std::uint32_t>, 5> bits = {{{"fault", t.flags.fault},
-                                                                     {"estop", t.flags.estop},
-                                                                     {"watchdog", t.flags.watchdog},
-                                                                     {"limit", t.flags.limit},
-                                                                     {"at_setpoint", t.flags.at_setpoint}}};
+                                                                      {"estop", t.flags.estop},
+                                                                      {"watchdog", t.flags.watchdog},
+                                                                      {"limit", t.flags.limit},
+                                                                      {"at_setpoint", t.flags.at_setpoint}}};
   for (std::size_t i = 0; i < bits.size(); ++i) {
     if (!is_power_of_two(static_cast<long>(bits[i].second)))
       err(std::string("framed.flags.") + bits[i].first, "must be one bit: 1, 2, 4, ... up to 1073741824");
@@ -355,7 +377,8 @@ Decoded decode_payload(std::string_view payload, bool checksum) {
     const auto x = payload.substr(mark + 1);
     unsigned v = 0;
     const auto r = std::from_chars(x.data(), x.data() + 2, v, 16);
-    const bool upper = std::all_of(x.begin(), x.end(), [](char c) { return (c >= '0' && c <= '9') || (c >= 'A' && c <= 'F'); });
+    const bool upper = std::all_of(x.begin(), x.end(),
+                                   [](char c) { return (c >= '0' && c <= '9') || (c >= 'A' && c <= 'F'); });
     if (r.ec != std::errc() || r.ptr != x.data() + 2 || !upper) {
       d.error = "checksum is not two upper-case hex digits";
       return d;
@@ -448,8 +471,8 @@ std::string encode_values(const Table& t, const std::vector<Field>& fields, cons
   return {};
 }
 
-std::string decode_values(const Table& t, const std::vector<Field>& fields, const std::vector<std::string>& words,
-                          Values& out) {
+std::string decode_values(const Table& t, const std::vector<Field>& fields,
+                          const std::vector<std::string>& words, Values& out) {
   if (words.size() != fields.size())
     return "expected " + std::to_string(fields.size()) + " values (" + format_fields(fields) + "), got " +
            std::to_string(words.size());
@@ -458,7 +481,8 @@ std::string decode_values(const Table& t, const std::vector<Field>& fields, cons
     const std::string& w = words[i];
     if (f.kind == Field::Kind::skip) continue;
     if (f.kind == Field::Kind::literal) {
-      if (w != f.literal) return "value " + std::to_string(i + 1) + " must be " + f.literal + ", got " + w.substr(0, 16);
+      if (w != f.literal)
+        return "value " + std::to_string(i + 1) + " must be " + f.literal + ", got " + w.substr(0, 16);
       continue;
     }
     if (f.q == Qty::mode) {

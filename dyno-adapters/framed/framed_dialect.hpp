@@ -1,6 +1,6 @@
-// The framed ASCII dialect (docs/framed.md): short commands in STX ... ETX frames whose codes, fields, units and
-// scaling come from the cell file's [framed] table, so a lab maps its own device. Pure: the command table, its
-// validation, the frame codec and the field scaling; no sockets, no clocks. Shared by the adapter
+// The framed ASCII dialect (docs/framed.md): short commands in STX ... ETX frames whose codes, fields, units
+// and scaling come from the cell file's [framed] table, so a lab maps its own device. Pure: the command
+// table, its validation, the frame codec and the field scaling; no sockets, no clocks. Shared by the adapter
 // (framed_controller.hpp), the simulator's framed front end (src/sim/framed_front_end.hpp) and the tests.
 //
 // Request:  STX <code> SP <channel> [SP <value>]... [';' <XX>] ETX

@@ -51,7 +51,8 @@ void FramedFrontEnd::send(std::vector<std::string> words, std::vector<std::strin
   const auto& fp = sim_.settings().faults;
   const bool corrupt = (fp.corrupt_line && *fp.corrupt_line == frames_sent_) ||
                        (fp.corrupt_every && frames_sent_ % fp.corrupt_every == 0);
-  if (corrupt && s.size() > 6) s[s.size() / 2] = s[s.size() / 2] == 'X' ? 'Y' : 'X';  // checksum no longer matches
+  if (corrupt && s.size() > 6)
+    s[s.size() / 2] = s[s.size() / 2] == 'X' ? 'Y' : 'X';  // checksum no longer matches
   out.push_back(std::move(s));
 }
 
@@ -170,7 +171,8 @@ void FramedFrontEnd::on_payload(std::string_view payload, double wall_s, std::ve
 }
 
 void FramedFrontEnd::catch_up(double wall_s) {
-  // Bounded like the server's ticks: after a stall of the host, simulated time jumps at most 50 ms of wall time.
+  // Bounded like the server's ticks: after a stall of the host, simulated time jumps at most 50 ms of wall
+  // time.
   const double dt = std::clamp(wall_s - last_wall_s_, 0.0, 0.05);
   last_wall_s_ = std::max(last_wall_s_, wall_s);
   std::vector<controller::Sample> unused;  // the dialect polls: nothing is streamed

@@ -1,9 +1,9 @@
 // The simulator's framed ASCII front end (docs/framed.md) over the dialect-neutral core: serves the command
-// table of a cell file's [framed] section (loadtrim-sim --framed-table), so the adapter and the simulator read
-// the same table. Requests are matched to an operation by code, field count and literals; refusals of the
-// core become status digits. Faults latched by the core are seen by the tool in the status word of the next
-// sample or status reply (the dialect has no unsolicited messages). A polled dialect reads the state at the
-// moment of the request: simulated time first catches up with the request's wall time (at the settings'
+// table of a cell file's [framed] section (loadtrim-sim --framed-table), so the adapter and the simulator
+// read the same table. Requests are matched to an operation by code, field count and literals; refusals of
+// the core become status digits. Faults latched by the core are seen by the tool in the status word of the
+// next sample or status reply (the dialect has no unsolicited messages). A polled dialect reads the state at
+// the moment of the request: simulated time first catches up with the request's wall time (at the settings'
 // time scale), so two polls never read the same instant. Pure: bytes and wall time in.
 #pragma once
 

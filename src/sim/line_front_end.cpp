@@ -32,7 +32,8 @@ std::string hex2(std::uint32_t f) {
 const std::string kCapsField = std::string("caps=") + SimController::kCapabilities;
 }  // namespace
 
-LineFrontEnd::LineFrontEnd(const physics::Truth& truth, SimSettings settings) : sim_(truth, std::move(settings)) {}
+LineFrontEnd::LineFrontEnd(const physics::Truth& truth, SimSettings settings)
+    : sim_(truth, std::move(settings)) {}
 
 void LineFrontEnd::on_bytes(std::string_view bytes, double wall_s, std::vector<std::string>& out) {
   splitter_.feed(bytes, [&](std::string_view l, bool too_long) {
@@ -63,8 +64,9 @@ void LineFrontEnd::send(line::Message m, std::vector<std::string>& out) {
   m.seq = seq_++;
   std::string s = line::encode(m);
   ++lines_sent_;
-  const bool corrupt = (sim_.settings().faults.corrupt_line && *sim_.settings().faults.corrupt_line == lines_sent_) ||
-                       (sim_.settings().faults.corrupt_every && lines_sent_ % sim_.settings().faults.corrupt_every == 0);
+  const bool corrupt =
+      (sim_.settings().faults.corrupt_line && *sim_.settings().faults.corrupt_line == lines_sent_) ||
+      (sim_.settings().faults.corrupt_every && lines_sent_ % sim_.settings().faults.corrupt_every == 0);
   if (corrupt && s.size() > 8) s[s.size() / 2] = s[s.size() / 2] == 'X' ? 'Y' : 'X';  // CRC no longer matches
   out.push_back(std::move(s));
 }
@@ -85,14 +87,14 @@ void LineFrontEnd::send_events(const std::vector<std::string>& events, std::vect
 }
 
 void LineFrontEnd::reply_ok(std::uint32_t req, const std::string& verb, std::vector<std::string> fields,
-                             std::vector<std::string>& out) {
+                            std::vector<std::string>& out) {
   fields.insert(fields.begin(), verb);
   fields.insert(fields.begin(), std::to_string(req));
   send({0, kTypeOk, std::move(fields)}, out);
 }
 
 void LineFrontEnd::reply_err(std::uint32_t req, ErrorCode code, const std::string& text,
-                              std::vector<std::string>& out) {
+                             std::vector<std::string>& out) {
   std::vector<std::string> f = {std::to_string(req), std::to_string(static_cast<int>(code))};
   std::string word;
   for (char c : text) {
@@ -133,8 +135,7 @@ void LineFrontEnd::on_line(std::string_view text, double wall_s, std::vector<std
     const auto v = line::number_field(m, "version");
     const auto e = sim_.hello(v ? static_cast<int>(*v) : -1);
     if (!e) hello_ = true;
-    return answer(e, kVerbHello,
-                  {kv("version", line::kProtocolVersion), kCapsField});
+    return answer(e, kVerbHello, {kv("version", line::kProtocolVersion), kCapsField});
   }
   if (!hello_) return reply_err(req, ErrorCode::wrong_state, "send HELLO first", out);
   if (m.type == kVerbBeat) return reply_ok(req, kVerbBeat, {}, out);

@@ -1,9 +1,9 @@
-// The simulated controller's dialect-neutral core: the physics model with the controller's limits, a heartbeat
-// watchdog and fault injection, as typed calls. Pure: no sockets, no clocks, no wire format. Each dialect has
-// its own front end over it (line_front_end.hpp: the line protocol; framed_front_end.hpp: the framed ASCII
-// dialect; modbus_server.cpp: the Modbus register map), which decodes requests into these calls, passes wall
-// time in for the watchdog and encodes the answers. Refusals carry the line protocol's error codes
-// (docs/protocol.md section 10), which every front end maps to its own.
+// The simulated controller's dialect-neutral core: the physics model with the controller's limits, a
+// heartbeat watchdog and fault injection, as typed calls. Pure: no sockets, no clocks, no wire format. Each
+// dialect has its own front end over it (line_front_end.hpp: the line protocol; framed_front_end.hpp: the
+// framed ASCII dialect; modbus_server.cpp: the Modbus register map), which decodes requests into these calls,
+// passes wall time in for the watchdog and encodes the answers. Refusals carry the line protocol's error
+// codes (docs/protocol.md section 10), which every front end maps to its own.
 #pragma once
 
 #include <cstdint>
@@ -53,7 +53,8 @@ class SimController {
   SimController(const physics::Truth& truth, SimSettings settings);
 
   // The capability words of info().capabilities (the line protocol's spelling, docs/protocol.md section 2).
-  static constexpr const char* kCapabilities = "hold,hold-force,roadload,stop,stream,watchdog,status,force,free";
+  static constexpr const char* kCapabilities =
+      "hold,hold-force,roadload,stop,stream,watchdog,status,force,free";
 
   // What any front end (a dialect, a direct in-process adapter) calls.
   // Checks a client's protocol version against the one this simulator states in info() (no state kept).

@@ -21,11 +21,7 @@ using WallClock = std::chrono::steady_clock;
 class Server {
  public:
   Server(FrontEnd& fe, const ServerSettings& s)
-      : fe_(fe),
-        settings_(s),
-        tick_(io_),
-        signals_(io_, SIGINT, SIGTERM),
-        start_(WallClock::now()) {}
+      : fe_(fe), settings_(s), tick_(io_), signals_(io_, SIGINT, SIGTERM), start_(WallClock::now()) {}
 
   int run(const std::function<void(const std::string&)>& announce) {
     announce_ = announce;

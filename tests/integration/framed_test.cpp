@@ -99,11 +99,11 @@ TEST(Framed, FullSessionEndsAccepted) {
   const std::string dir = temp_dir("framed-session");
   SimProcess sim({"--framed-table", kCell, "--time-scale", "20"});
   const std::string cell = cell_polling_at(dir, 400.0);  // 20 Hz of controller time at 20x
-  const Ran r = tool({"run", "--override-checks", "integration test against the simulator", "--cell", cell,
-                      "--port", std::to_string(sim.port()), "--target",
-                      kSrc + "/samples/targets/demo-hatchback.toml", "--profile",
-                      kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir, "--unattended",
-                      "--quiet", "--rewarm-s", "60"});
+  const Ran r =
+      tool({"run", "--override-checks", "integration test against the simulator", "--cell", cell, "--port",
+            std::to_string(sim.port()), "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+            "--profile", kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir,
+            "--unattended", "--quiet", "--rewarm-s", "60"});
   EXPECT_EQ(r.rc, 0) << r.out << r.err;
   std::string folder;
   for (const auto& e : fs::directory_iterator(dir))

@@ -1,6 +1,8 @@
 // The framed ASCII dialect without any I/O (docs/framed.md): frames and their checksum, the splitter, field
 // specs and scaling, the table's validation messages, and the simulator's framed front end answering requests
 // built by the same codec. Checksum values are worked by hand from the ASCII table (XOR of the bytes).
+#include "framed/framed_dialect.hpp"
+
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -8,7 +10,6 @@
 
 #include "config/input_error.hpp"
 #include "config/toml_reader.hpp"
-#include "framed/framed_dialect.hpp"
 #include "sim/framed_front_end.hpp"
 
 using namespace loadtrim;
@@ -139,8 +140,10 @@ TEST(FramedDialect, FieldsScaleToWholeCountsAndRefuseWhatDoesNotFit) {
   EXPECT_DOUBLE_EQ(out.get(Qty::time_s), 612.34);
   EXPECT_DOUBLE_EQ(out.get(Qty::speed_kmh), 142.03);
   EXPECT_DOUBLE_EQ(out.get(Qty::force_n), 188.4);
-  EXPECT_EQ(static_cast<controller::Mode>(static_cast<int>(out.get(Qty::mode))), controller::Mode::speed_hold);
-  EXPECT_EQ(static_cast<std::uint32_t>(out.get(Qty::flags)), controller::kFlagFault | controller::kFlagAtSetpoint);
+  EXPECT_EQ(static_cast<controller::Mode>(static_cast<int>(out.get(Qty::mode))),
+            controller::Mode::speed_hold);
+  EXPECT_EQ(static_cast<std::uint32_t>(out.get(Qty::flags)),
+            controller::kFlagFault | controller::kFlagAtSetpoint);
   EXPECT_NE(decode_values(t, t[Op::sample].reply, {"1", "2", "3", "7", "0"}, out).find("unknown mode 7"),
             std::string::npos);
   EXPECT_NE(decode_values(t, t[Op::sample].reply, {"1", "2", "3"}, out).find("expected 5 values"),
@@ -198,10 +201,11 @@ TEST(FramedDialect, SimulatorFrontEndServesTheTable) {
   EXPECT_EQ(id[1], "0");
   EXPECT_EQ(ask({"MD", "1", "H", "5000"}), (std::vector<std::string>{"MD", "0", "1"}));  // 50 km/h, hold
   EXPECT_EQ(ask({"MD", "1", "H", "99999"})[1], "3");  // 999.99 km/h: outside the limits
-  EXPECT_EQ(ask({"MD", "2", "S"})[1], "2");            // another channel
-  EXPECT_EQ(ask({"MD", "1", "Q"})[1], "2");            // no operation has this literal
-  EXPECT_EQ(ask({"CL", "1"})[1], "6");                 // refused by the fault plan
-  EXPECT_EQ(ask({"WC", "1", "4238", "3135", "3013"}), (std::vector<std::string>{"WC", "0", "4238", "3135", "3013"}));
+  EXPECT_EQ(ask({"MD", "2", "S"})[1], "2");           // another channel
+  EXPECT_EQ(ask({"MD", "1", "Q"})[1], "2");           // no operation has this literal
+  EXPECT_EQ(ask({"CL", "1"})[1], "6");                // refused by the fault plan
+  EXPECT_EQ(ask({"WC", "1", "4238", "3135", "3013"}),
+            (std::vector<std::string>{"WC", "0", "4238", "3135", "3013"}));
   EXPECT_EQ(ask({"RC", "1"}), (std::vector<std::string>{"RC", "0", "4238", "3135", "3013"}));
   // A damaged request is never acted on and is answered with status 1.
   std::vector<std::string> out;
