@@ -6,6 +6,7 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <fstream>
 #include <limits>
 
 #include "config/input_error.hpp"
@@ -216,4 +217,39 @@ TEST(FramedDialect, SimulatorFrontEndServesTheTable) {
   EXPECT_EQ(decode_payload(std::string_view(out[0]).substr(1, out[0].size() - 2), true).words,
             (std::vector<std::string>{"MD", "1"}));
   EXPECT_EQ(ask({"RS", "1"})[2], "1");  // still holding
+}
+
+// docs/framed.md section 3: every frame decodes with its checksum and its values fit the table; the requests
+// replayed against the simulator's front end get the documented code and status digit.
+TEST(FramedDialect, DocumentedExchangeDecodesAndReplays) {
+  std::ifstream in(std::string(LOADTRIM_SOURCE_DIR) + "/docs/framed.md");
+  ASSERT_TRUE(in);
+  const Table t = shipped_table();
+  sim::FramedFrontEnd fe(physics::Truth{}, sim::SimSettings{}, t);
+  const std::string stx = "\u2402", etx = "\u2403";  // the symbols the page shows for STX and ETX
+  std::vector<std::string> pending;
+  int frames = 0;
+  std::string line;
+  while (std::getline(in, line)) {
+    const auto a = line.find(stx), b = line.find(etx);
+    const bool exchange = line.rfind("    > ", 0) == 0 || line.rfind("    < ", 0) == 0;
+    if (!exchange || a == std::string::npos || b == std::string::npos) continue;
+    const std::string payload = line.substr(a + stx.size(), b - a - stx.size());
+    const Decoded d = decode_payload(payload, true);
+    ASSERT_TRUE(d.ok()) << line << ": " << d.error;
+    ++frames;
+    if (line.find("    >") == 0) {
+      fe.on_bytes(encode_frame(d.words, true), 0.0, pending);
+      continue;
+    }
+    ASSERT_FALSE(pending.empty()) << "documented reply without a request: " << line;
+    const std::string got = pending.front();
+    pending.erase(pending.begin());
+    const Decoded g = decode_payload(std::string_view(got).substr(1, got.size() - 2), true);
+    ASSERT_TRUE(g.ok());
+    ASSERT_GE(g.words.size(), 2u);
+    EXPECT_EQ(g.words[0], d.words[0]) << line;
+    EXPECT_EQ(g.words[1], d.words[1]) << line << "\nsimulator: " << got;
+  }
+  EXPECT_EQ(frames, 10);
 }
