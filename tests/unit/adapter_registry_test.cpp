@@ -43,15 +43,13 @@ std::string tcp_cell(const std::string& from, const std::string& to) {
 
 TEST(AdapterRegistry, NamesComeFromTheRows) {
   // The production table, in the order messages list the choices; the in-process simulator is not in it.
-  EXPECT_EQ(adapters::names(),
-            (std::vector<std::string>{"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "framed-tcp",
-                                      "framed-serial"}));
+  EXPECT_EQ(adapters::names(), (std::vector<std::string>{"line-tcp", "line-serial", "modbus-tcp",
+                                                         "modbus-rtu", "framed-tcp", "framed-serial"}));
   EXPECT_EQ(adapters::production().find("inprocess-sim"), nullptr);
   // The tool's table: the same rows and the in-process simulated controller after them.
-  EXPECT_EQ(
-      adapters::tool_registry().names(),
-      (std::vector<std::string>{"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "framed-tcp",
-                                "framed-serial", "inprocess-sim"}));
+  EXPECT_EQ(adapters::tool_registry().names(),
+            (std::vector<std::string>{"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "framed-tcp",
+                                      "framed-serial", "inprocess-sim"}));
 }
 
 TEST(AdapterRegistry, RefusesARepeatedOrIncompleteRow) {
