@@ -2,6 +2,7 @@
 
 #include <stdexcept>
 
+#include "framed/framed_rows.hpp"
 #include "line/line_rows.hpp"
 #include "modbus/modbus_rows.hpp"
 
@@ -71,6 +72,7 @@ const Registry& production() {
       line::serial_row(),
       modbus::tcp_row(),
       modbus::rtu_row(),
+      framed::tcp_row(), framed::serial_row(),
   });
   return table;
 }

@@ -7,6 +7,8 @@
 //   line-serial    line protocol over a serial port (dyno-adapters/line)
 //   modbus-tcp     Modbus TCP, a register map from the cell file (dyno-adapters/modbus)
 //   modbus-rtu     Modbus RTU over a serial port, the same map (dyno-adapters/modbus)
+//   framed-tcp     framed ASCII commands over TCP, a command table from the cell file (dyno-adapters/framed)
+//   framed-serial  the same over a serial port (dyno-adapters/framed)
 // The in-process simulated controller (inprocess-sim) has its row in its own library, loadtrim_sim_adapters
 // (inprocess/sim_rows.hpp), which only the loadtrim tool (for its demo) and the tests link.
 #pragma once

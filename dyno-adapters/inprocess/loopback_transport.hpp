@@ -7,13 +7,13 @@
 #include <memory>
 
 #include "line/transport.hpp"
-#include "sim/sim_controller.hpp"
+#include "sim/line_front_end.hpp"
 
 namespace loadtrim::inprocess {
 
 class LoopbackTransport : public line::Transport {
  public:
-  LoopbackTransport(std::shared_ptr<sim::SimController> sim, double chunk_s = 0.05)
+  LoopbackTransport(std::shared_ptr<sim::LineFrontEnd> sim, double chunk_s = 0.05)
       : sim_(std::move(sim)), chunk_s_(chunk_s) {}
   controller::Result open(controller::Deadline) override;
   void close() override;
@@ -21,10 +21,10 @@ class LoopbackTransport : public line::Transport {
   controller::Result write(std::string_view bytes, controller::Deadline) override;
   controller::Result read_some(std::string& out, controller::Deadline) override;
   std::string describe() const override { return "in-process simulated controller"; }
-  sim::SimController& sim() { return *sim_; }
+  sim::SimController& sim() { return sim_->core(); }
 
  private:
-  std::shared_ptr<sim::SimController> sim_;
+  std::shared_ptr<sim::LineFrontEnd> sim_;
   double chunk_s_;
   bool open_ = false;
   line::LineSplitter splitter_;

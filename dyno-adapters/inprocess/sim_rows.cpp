@@ -6,7 +6,7 @@
 #include "config/toml_reader.hpp"
 #include "inprocess/loopback_transport.hpp"
 #include "line/line_controller.hpp"
-#include "sim/sim_controller.hpp"
+#include "sim/line_front_end.hpp"
 
 namespace loadtrim::inprocess {
 
@@ -36,7 +36,7 @@ std::unique_ptr<controller::Controller> make_controller(const controller::CellCo
                                                         const physics::Truth& truth) {
   sim::SimSettings settings;
   settings.watchdog_s = 1e9;  // simulated time races ahead of the host's heartbeats here
-  auto sim = std::make_shared<sim::SimController>(truth, settings);
+  auto sim = std::make_shared<sim::LineFrontEnd>(truth, settings);
   // Its clock races ahead of the wall by design: only order and stream rate are checked, not the rate against
   // the wall.
   return std::make_unique<line::LineController>(

@@ -37,7 +37,7 @@ const char* wire_mode(Mode m) {
 }
 
 bool parse_sample(const Message& m, controller::Sample& s) {
-  if (m.type != "SMP" || m.fields.size() != 6) return false;
+  if (m.type != kTypeSample || m.fields.size() != 6) return false;
   const auto& f = m.fields;
   std::uint64_t n = 0;
   auto r = std::from_chars(f[0].data(), f[0].data() + f[0].size(), n);
@@ -90,7 +90,7 @@ void LineController::handle_line(std::string_view line, bool too_long) {
   have_peer_seq_ = true;
   expected_peer_seq_ = d.message.seq + 1;
   const Message& m = d.message;
-  if (m.type == "SMP") {
+  if (m.type == kTypeSample) {
     controller::Sample s;
     if (parse_sample(m, s)) {
       if (samples_.size() >= max_samples_) samples_.pop_front();  // shows as a gap in the sample counter
@@ -99,7 +99,7 @@ void LineController::handle_line(std::string_view line, bool too_long) {
       ++stats_.lines_rejected;
       stats_.last_rejected = "malformed SMP";
     }
-  } else if (m.type == "EVT") {
+  } else if (m.type == kTypeEvent) {
     std::string e;
     for (const auto& f : m.fields) e += (e.empty() ? "" : " ") + f;
     if (events_.size() >= kMaxEvents) {
@@ -107,7 +107,7 @@ void LineController::handle_line(std::string_view line, bool too_long) {
       ++stats_.events_dropped;
     }
     events_.push_back(std::move(e));
-  } else if (m.type == "OK" || m.type == "ERR") {
+  } else if (m.type == kTypeOk || m.type == kTypeErr) {
     if (replies_.size() >= kMaxReplies) replies_.pop_front();
     replies_.push_back(m);
   } else {
@@ -147,7 +147,7 @@ Result LineController::request(const std::string& verb, std::vector<std::string>
       Message rep = std::move(replies_.front());
       replies_.pop_front();
       if (rep.fields.empty() || rep.fields[0] != std::to_string(m.seq)) continue;  // a stale reply
-      if (rep.type == "ERR") {
+      if (rep.type == kTypeErr) {
         int code = 0;
         if (rep.fields.size() > 1)
           std::from_chars(rep.fields[1].data(), rep.fields[1].data() + rep.fields[1].size(), code);
@@ -176,7 +176,7 @@ Result LineController::do_connect(Deadline d) {
   have_peer_seq_ = false;
   if (Result r = transport_->open(d); !r.ok()) return r;
   Message rep;
-  if (Result r = request("HELLO", {kv("version", kProtocolVersion), "client=loadtrim"}, rep, d); !r.ok())
+  if (Result r = request(kVerbHello, {kv("version", kProtocolVersion), "client=loadtrim"}, rep, d); !r.ok())
     return r;
   const auto v = number_field(rep, "version");
   if (!v || static_cast<int>(*v) != kProtocolVersion)
@@ -191,7 +191,7 @@ void LineController::do_disconnect() {
 
 Result LineController::do_identify(controller::ControllerInfo& out, Deadline d) {
   Message rep;
-  if (Result r = request("IDENT", {}, rep, d); !r.ok()) return r;
+  if (Result r = request(kVerbIdent, {}, rep, d); !r.ok()) return r;
   const auto dia = number_field(rep, "roller_diameter_m"), inertia = number_field(rep, "base_inertia_kg"),
              vmax = number_field(rep, "max_speed_kmh"), fmax = number_field(rep, "max_force_n");
   if (!dia || !inertia || !vmax || !fmax) return Result::fail("IDENT reply lacks a required field");
@@ -208,12 +208,12 @@ Result LineController::do_identify(controller::ControllerInfo& out, Deadline d) 
 
 Result LineController::do_write_inertia(double kg, Deadline d) {
   Message rep;
-  return request("INERTIA", {"SET", format_number(kg)}, rep, d);
+  return request(kVerbInertia, {kArgSet, format_number(kg)}, rep, d);
 }
 
 Result LineController::do_read_inertia(double& kg, Deadline d) {
   Message rep;
-  if (Result r = request("INERTIA", {"GET"}, rep, d); !r.ok()) return r;
+  if (Result r = request(kVerbInertia, {kArgGet}, rep, d); !r.ok()) return r;
   const auto v = number_field(rep, "inertia_kg");
   if (!v) return Result::fail("INERTIA reply lacks inertia_kg");
   kg = *v;
@@ -223,13 +223,13 @@ Result LineController::do_read_inertia(double& kg, Deadline d) {
 Result LineController::do_write_coefficients(const core::RoadLoad& c, Deadline d) {
   Message rep;
   return request(
-      "COEF", {"SET", format_number(c.f0_n), format_number(c.f1_n_per_kmh), format_number(c.f2_n_per_kmh2)},
+      kVerbCoef, {kArgSet, format_number(c.f0_n), format_number(c.f1_n_per_kmh), format_number(c.f2_n_per_kmh2)},
       rep, d);
 }
 
 Result LineController::do_read_coefficients(core::RoadLoad& c, Deadline d) {
   Message rep;
-  if (Result r = request("COEF", {"GET"}, rep, d); !r.ok()) return r;
+  if (Result r = request(kVerbCoef, {kArgGet}, rep, d); !r.ok()) return r;
   const auto a = number_field(rep, "f0_n"), b = number_field(rep, "f1_n_per_kmh"),
              k = number_field(rep, "f2_n_per_kmh2");
   if (!a || !b || !k) return Result::fail("COEF reply lacks a coefficient");
@@ -241,13 +241,13 @@ Result LineController::do_command(Mode mode, double value, Deadline d) {
   Message rep;
   std::vector<std::string> f = {wire_mode(mode)};
   if (mode == Mode::speed_hold || mode == Mode::constant_force) f.push_back(format_number(value));
-  return request("MODE", std::move(f), rep, d);
+  return request(kVerbMode, std::move(f), rep, d);
 }
 
 Result LineController::do_stream(double rate_hz, Deadline d) {
   Message rep;
   if (rate_hz == 0.0) samples_.clear();
-  return request("STREAM", {format_number(rate_hz)}, rep, d);
+  return request(kVerbStream, {format_number(rate_hz)}, rep, d);
 }
 
 Result LineController::do_receive_samples(std::vector<controller::Sample>& out, Deadline d) {
@@ -260,12 +260,12 @@ Result LineController::do_receive_samples(std::vector<controller::Sample>& out, 
 
 Result LineController::do_heartbeat(Deadline d) {
   Message rep;
-  return request("BEAT", {}, rep, d);
+  return request(kVerbBeat, {}, rep, d);
 }
 
 Result LineController::do_status(controller::StatusReport& out, Deadline d) {
   Message rep;
-  if (Result r = request("STATUS", {}, rep, d); !r.ok()) return r;
+  if (Result r = request(kVerbStatus, {}, rep, d); !r.ok()) return r;
   const auto mode = field(rep, "mode");
   const auto v = number_field(rep, "speed_kmh"), t = number_field(rep, "time_s");
   const auto flags = field(rep, "flags");
@@ -294,7 +294,7 @@ void LineController::do_take_events(std::vector<std::string>& out) {
 
 Result LineController::do_clear_fault(Deadline d) {
   Message rep;
-  return request("CLEAR", {}, rep, d);
+  return request(kVerbClear, {}, rep, d);
 }
 
 }  // namespace loadtrim::line

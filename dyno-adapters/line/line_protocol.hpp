@@ -81,6 +81,24 @@ enum class ErrorCode : int {
   internal = 50,
 };
 
+// Request verbs (tool -> controller) and message types (controller -> tool), spelled once for the line adapter
+// and the simulator's line front end (src/sim/line_front_end.cpp).
+inline constexpr const char* kVerbHello = "HELLO";
+inline constexpr const char* kVerbIdent = "IDENT";
+inline constexpr const char* kVerbInertia = "INERTIA";
+inline constexpr const char* kVerbCoef = "COEF";
+inline constexpr const char* kVerbMode = "MODE";
+inline constexpr const char* kVerbStream = "STREAM";
+inline constexpr const char* kVerbBeat = "BEAT";
+inline constexpr const char* kVerbStatus = "STATUS";
+inline constexpr const char* kVerbClear = "CLEAR";
+inline constexpr const char* kArgSet = "SET";  // INERTIA SET <kg>, COEF SET <f0> <f1> <f2>
+inline constexpr const char* kArgGet = "GET";
+inline constexpr const char* kTypeOk = "OK";
+inline constexpr const char* kTypeErr = "ERR";
+inline constexpr const char* kTypeSample = "SMP";
+inline constexpr const char* kTypeEvent = "EVT";
+
 // Controller modes as they appear on the wire.
 inline constexpr const char* kModeIdle = "IDLE";
 inline constexpr const char* kModeHold = "HOLD";

@@ -5,14 +5,16 @@
 
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
+#include "framed/framed_dialect.hpp"
 #include "modbus/map_file.hpp"
+#include "sim/framed_front_end.hpp"
 #include "sim/modbus_server.hpp"
 #include "sim/sim_server.hpp"
 
 int main(int argc, char** argv) {
   using namespace loadtrim;
   CLI::App app{
-      "loadtrim-sim: simulated roller-dyno controller (line protocol over TCP or a pseudo-terminal)"};
+      "loadtrim-sim: simulated roller-dyno controller (line protocol or framed ASCII over TCP or a pseudo-terminal, or Modbus)"};
   std::string truth_file;
   sim::SimSettings s;
   sim::ServerSettings srv;
@@ -44,6 +46,10 @@ int main(int argc, char** argv) {
                  "serve Modbus instead of the line protocol, with the [modbus] map of this cell file");
   app.add_option("--modbus-rtu", modbus_rtu,
                  "with --modbus-map: serve Modbus RTU on this serial device (115200 8N1) instead of TCP");
+  std::string framed_table;
+  app.add_option("--framed-table", framed_table,
+                 "serve the framed ASCII dialect instead of the line protocol (TCP, or --pty), with the [framed] "
+                 "command table of this cell file");
   app.add_option("--exit-after-s", srv.exit_after_s,
                  "exit after this many wall seconds (a safety net for tests)");
   auto* f = app.add_option_group("faults", "fault injection");
@@ -94,6 +100,24 @@ int main(int argc, char** argv) {
     }
     return sim::run_modbus_server(truth, s, srv, map, modbus_rtu,
                                   [](const std::string& line) { std::cout << line << std::endl; });
+  }
+  if (!framed_table.empty()) {
+    framed::Table table;
+    try {
+      core::Problems w;
+      table = framed::load_table(framed_table, &w);
+      if (!w.empty()) std::cerr << config::format_problems(framed_table, w);
+    } catch (const config::InputError& e) {
+      std::cerr << e.what();
+      return 2;
+    }
+    try {
+      sim::FramedFrontEnd fe(truth, s, std::move(table));
+      return sim::run_server(fe, srv, [](const std::string& line) { std::cout << line << std::endl; });
+    } catch (const std::exception& e) {
+      std::cerr << "loadtrim-sim: " << e.what() << "\n";
+      return 1;
+    }
   }
   try {
     return sim::run_server(truth, s, srv, [](const std::string& line) { std::cout << line << std::endl; });

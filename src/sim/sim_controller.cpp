@@ -2,7 +2,6 @@
 
 #include <algorithm>
 #include <cmath>
-#include <cstdio>
 
 namespace loadtrim::sim {
 
@@ -26,6 +25,7 @@ controller::Mode to_controller(Mode m) {
   }
   return controller::Mode::idle;
 }
+// The fault plan names modes in the line protocol's words (--drop-in-mode HOLD).
 const char* wire(controller::Mode m) {
   switch (m) {
     case controller::Mode::idle:
@@ -43,12 +43,6 @@ const char* wire(controller::Mode m) {
   }
   return line::kModeIdle;
 }
-std::string hex2(std::uint32_t f) {
-  char b[16];
-  std::snprintf(b, sizeof b, "%02X", f);
-  return b;
-}
-const char* kCaps = "caps=hold,hold-force,roadload,stop,stream,watchdog,status,force,free";
 }  // namespace
 
 SimController::SimController(const physics::Truth& truth, SimSettings settings)
@@ -60,21 +54,17 @@ std::string SimController::wire_mode() const {
 
 std::uint32_t SimController::flags() const {
   std::uint32_t f = 0;
-  if (!fault_.empty()) f |= line::kFlagFault;
-  if (fault_ == "ESTOP") f |= line::kFlagEstop;
-  if (fault_ == "WATCHDOG") f |= line::kFlagWatchdog;
+  if (!fault_.empty()) f |= controller::kFlagFault;
+  if (fault_ == "ESTOP") f |= controller::kFlagEstop;
+  if (fault_ == "WATCHDOG") f |= controller::kFlagWatchdog;
   if (model_.mode() == Mode::speed_hold && std::abs(model_.speed_kmh() - model_.hold_target_kmh()) < 0.1)
-    f |= line::kFlagAtSetpoint;
+    f |= controller::kFlagAtSetpoint;
   return f;
 }
-
-// ---- the typed core
-// ------------------------------------------------------------------------------------------
 
 std::optional<SimError> SimController::hello(int version) {
   if (version != line::kProtocolVersion)
     return SimError{ErrorCode::bad_argument, "unsupported protocol version"};
-  hello_ = true;
   return std::nullopt;
 }
 
@@ -83,7 +73,7 @@ controller::ControllerInfo SimController::info() const {
   controller::ControllerInfo i;
   i.name = settings_.name;
   i.protocol_version = line::kProtocolVersion;
-  i.capabilities = std::string(kCaps).substr(5);
+  i.capabilities = kCapabilities;
   i.roller_diameter_m = settings_.faults.report_roller_diameter_m.value_or(d.roller_diameter_m);
   i.base_inertia_kg = settings_.faults.report_base_inertia_kg.value_or(model_.stated_base_inertia_kg());
   i.max_speed_kmh = settings_.max_speed_kmh;
@@ -224,189 +214,6 @@ bool SimController::take_drop_request() {
   const bool d = drop_pending_;
   drop_pending_ = false;
   return d;
-}
-
-// ---- the line-protocol front end
-// -----------------------------------------------------------------------------
-
-void SimController::send(line::Message m, std::vector<std::string>& out) {
-  m.seq = seq_++;
-  std::string s = line::encode(m);
-  ++lines_sent_;
-  const bool corrupt = (settings_.faults.corrupt_line && *settings_.faults.corrupt_line == lines_sent_) ||
-                       (settings_.faults.corrupt_every && lines_sent_ % settings_.faults.corrupt_every == 0);
-  if (corrupt && s.size() > 8) s[s.size() / 2] = s[s.size() / 2] == 'X' ? 'Y' : 'X';  // CRC no longer matches
-  out.push_back(std::move(s));
-}
-
-void SimController::send_events(const std::vector<std::string>& events, std::vector<std::string>& out) {
-  if (!hello_) return;
-  for (const auto& e : events) {
-    line::Message m{0, "EVT", {}};
-    std::size_t p = 0;
-    while (p <= e.size()) {
-      const auto q = e.find(' ', p);
-      m.fields.push_back(e.substr(p, q == std::string::npos ? std::string::npos : q - p));
-      if (q == std::string::npos) break;
-      p = q + 1;
-    }
-    send(std::move(m), out);
-  }
-}
-
-void SimController::reply_ok(std::uint32_t req, const std::string& verb, std::vector<std::string> fields,
-                             std::vector<std::string>& out) {
-  fields.insert(fields.begin(), verb);
-  fields.insert(fields.begin(), std::to_string(req));
-  send({0, "OK", std::move(fields)}, out);
-}
-
-void SimController::reply_err(std::uint32_t req, ErrorCode code, const std::string& text,
-                              std::vector<std::string>& out) {
-  std::vector<std::string> f = {std::to_string(req), std::to_string(static_cast<int>(code))};
-  std::string word;
-  for (char c : text) {
-    if (c == ' ') {
-      if (!word.empty()) f.push_back(word);
-      word.clear();
-    } else
-      word += c;
-  }
-  if (!word.empty()) f.push_back(word);
-  send({0, "ERR", std::move(f)}, out);
-}
-
-void SimController::on_line(std::string_view text, double wall_s, std::vector<std::string>& out) {
-  const line::Decoded d = line::decode(text);
-  if (!d.ok()) {
-    if (d.error == line::DecodeError::empty) return;
-    // Never acted on: tell the sender which line could not be read when its sequence number is legible.
-    std::uint32_t req = 0;
-    std::sscanf(std::string(text.substr(0, 10)).c_str(), "%u", &req);
-    reply_err(req, ErrorCode::bad_frame, std::string("line rejected: ") + line::to_string(d.error), out);
-    return;
-  }
-  touch(wall_s);
-  const line::Message& m = d.message;
-  const std::uint32_t req = m.seq;
-  const auto& f = m.fields;
-  auto answer = [&](const std::optional<SimError>& e, const std::string& verb,
-                    std::vector<std::string> fields) {
-    if (e)
-      reply_err(req, e->code, e->text, out);
-    else
-      reply_ok(req, verb, std::move(fields), out);
-  };
-  for (const auto& v : settings_.faults.refuse)
-    if (v == m.type) return reply_err(req, ErrorCode::refused, "refused by fault injection", out);
-  if (m.type == "HELLO") {
-    const auto v = line::number_field(m, "version");
-    return answer(hello(v ? static_cast<int>(*v) : -1), "HELLO",
-                  {kv("version", line::kProtocolVersion), kCaps});
-  }
-  if (!hello_) return reply_err(req, ErrorCode::wrong_state, "send HELLO first", out);
-  if (m.type == "BEAT") return reply_ok(req, "BEAT", {}, out);
-  if (m.type == "IDENT") {
-    const auto i = info();
-    return reply_ok(
-        req, "IDENT",
-        {kv("name", i.name), kv("version", i.protocol_version), kv("roller_diameter_m", i.roller_diameter_m),
-         kv("base_inertia_kg", i.base_inertia_kg), kv("max_speed_kmh", i.max_speed_kmh),
-         kv("max_force_n", i.max_force_n), kv("time_scale", i.time_scale), kCaps},
-        out);
-  }
-  if (m.type == "STATUS") {
-    const auto st = status();
-    return reply_ok(
-        req, "STATUS",
-        {kv("mode", wire(st.mode)), kv("speed_kmh", st.speed_kmh), kv("time_s", st.time_s),
-         kv("flags", hex2(st.flags)), kv("fault", st.fault.empty() ? std::string("none") : st.fault)},
-        out);
-  }
-  if (m.type == "INERTIA") {
-    if (f.size() == 1 && f[0] == "GET")
-      return reply_ok(req, "INERTIA", {kv("inertia_kg", model_.inertia_set_kg())}, out);
-    if (f.size() == 2 && f[0] == "SET") {
-      const auto v = line::parse_number(f[1]);
-      if (!v) return reply_err(req, ErrorCode::bad_argument, "INERTIA SET needs a number in kg", out);
-      const auto e = set_inertia(*v);
-      return answer(e, "INERTIA", {kv("inertia_kg", model_.inertia_set_kg())});
-    }
-    return reply_err(req, ErrorCode::bad_argument, "INERTIA GET or INERTIA SET <kg>", out);
-  }
-  if (m.type == "COEF") {
-    auto echo = [&] {
-      const auto& c = model_.coefficients();
-      return std::vector<std::string>{kv("f0_n", c.f0_n), kv("f1_n_per_kmh", c.f1_n_per_kmh),
-                                      kv("f2_n_per_kmh2", c.f2_n_per_kmh2)};
-    };
-    if (f.size() == 1 && f[0] == "GET") return reply_ok(req, "COEF", echo(), out);
-    if (f.size() == 4 && f[0] == "SET") {
-      const auto a = line::parse_number(f[1]), b = line::parse_number(f[2]), c = line::parse_number(f[3]);
-      if (!a || !b || !c) return reply_err(req, ErrorCode::bad_argument, "COEF SET needs three numbers", out);
-      const auto e = set_coefficients({*a, *b, *c});
-      return answer(e, "COEF", echo());
-    }
-    return reply_err(req, ErrorCode::bad_argument, "COEF GET or COEF SET <f0> <f1> <f2>", out);
-  }
-  if (m.type == "MODE") {
-    if (f.empty())
-      return reply_err(req, ErrorCode::bad_argument, "MODE IDLE|HOLD <km/h>|ROADLOAD|STOP|FORCE <N>|FREE",
-                       out);
-    controller::Mode mode;
-    double hold = 0.0;
-    if (f[0] == line::kModeHold) {
-      const auto v = f.size() == 2 ? line::parse_number(f[1]) : std::nullopt;
-      if (!v) return reply_err(req, ErrorCode::bad_argument, "MODE HOLD needs a speed in km/h", out);
-      mode = controller::Mode::speed_hold;
-      hold = *v;
-    } else if (f[0] == line::kModeForce) {
-      const auto v = f.size() == 2 ? line::parse_number(f[1]) : std::nullopt;
-      if (!v) return reply_err(req, ErrorCode::bad_argument, "MODE FORCE needs a force in N", out);
-      mode = controller::Mode::constant_force;
-      hold = *v;
-    } else if (f[0] == line::kModeFree)
-      mode = controller::Mode::free_coast;
-    else if (f[0] == line::kModeRoadLoad)
-      mode = controller::Mode::road_load;
-    else if (f[0] == line::kModeStop)
-      mode = controller::Mode::controlled_stop;
-    else if (f[0] == line::kModeIdle)
-      mode = controller::Mode::idle;
-    else
-      return reply_err(req, ErrorCode::bad_argument, "unknown mode " + f[0], out);
-    const auto e = command(mode, hold);
-    return answer(e, "MODE", {kv("mode", wire_mode())});
-  }
-  if (m.type == "STREAM") {
-    const auto r = f.size() == 1 ? line::parse_number(f[0]) : std::nullopt;
-    const auto e = stream(r ? *r : -1.0);
-    return answer(e, "STREAM", {kv("rate_hz", stream_hz_)});
-  }
-  if (m.type == "CLEAR") return answer(clear(), "CLEAR", {});
-  reply_err(req, ErrorCode::unknown_verb, "unknown verb " + m.type, out);
-}
-
-void SimController::advance(double dt, std::vector<std::string>& out) {
-  std::vector<controller::Sample> samples;
-  std::vector<std::string> events;
-  advance_typed(dt, samples, events);
-  char b[160];
-  for (const auto& s : samples) {
-    std::snprintf(b, sizeof b, "%.4f", s.time_s);
-    std::string t = b;
-    std::snprintf(b, sizeof b, "%.4f", s.speed_kmh);
-    std::string v = b;
-    std::snprintf(b, sizeof b, "%.2f", s.force_n);
-    send({0, "SMP", {std::to_string(s.index), t, v, b, wire(s.mode), hex2(s.flags)}}, out);
-  }
-  send_events(events, out);
-}
-
-void SimController::check_watchdog(double wall_s, std::vector<std::string>& out) {
-  std::vector<std::string> events;
-  check_watchdog_typed(wall_s, events);
-  send_events(events, out);
 }
 
 }  // namespace loadtrim::sim

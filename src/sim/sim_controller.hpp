@@ -1,7 +1,9 @@
-// The simulated controller's protocol front end: the physics model behind the line protocol, with limits, a
-// heartbeat watchdog and fault injection. Pure: no sockets, no clocks — the server (or an in-process
-// loopback) passes request lines in, advances simulated time, and sends the returned lines. Wall time for the
-// watchdog is passed in too.
+// The simulated controller's dialect-neutral core: the physics model with the controller's limits, a
+// heartbeat watchdog and fault injection, as typed calls. Pure: no sockets, no clocks, no wire format. Each
+// dialect has its own front end over it (line_front_end.hpp: the line protocol; framed_front_end.hpp: the
+// framed ASCII dialect; modbus_server.cpp: the Modbus register map), which decodes requests into these calls,
+// passes wall time in for the watchdog and encodes the answers. Refusals carry the line protocol's error
+// codes (docs/protocol.md section 10), which every front end maps to its own.
 #pragma once
 
 #include <cstdint>
@@ -50,7 +52,12 @@ class SimController {
  public:
   SimController(const physics::Truth& truth, SimSettings settings);
 
-  // The typed core: what any front end (the line protocol, a direct in-process adapter) calls.
+  // The capability words of info().capabilities (the line protocol's spelling, docs/protocol.md section 2).
+  static constexpr const char* kCapabilities =
+      "hold,hold-force,roadload,stop,stream,watchdog,status,force,free";
+
+  // What any front end (a dialect, a direct in-process adapter) calls.
+  // Checks a client's protocol version against the one this simulator states in info() (no state kept).
   std::optional<SimError> hello(int version);
   controller::ControllerInfo info() const;
   std::optional<SimError> set_inertia(double kg);
@@ -68,18 +75,10 @@ class SimController {
                      std::vector<std::string>& events);
   void check_watchdog_typed(double wall_s, std::vector<std::string>& events);
 
-  // The line-protocol front end over the typed core.
-  // A request line in (without '\n'); the encoded reply lines are appended to out.
-  void on_line(std::string_view line, double wall_s, std::vector<std::string>& out);
-  // Advances simulated time, appending SMP (and EVT) lines at the stream rate.
-  void advance(double sim_dt_s, std::vector<std::string>& out);
-  // Checks the heartbeat watchdog against the wall clock the caller passes.
-  void check_watchdog(double wall_s, std::vector<std::string>& out);
-  // The link went away (the server calls this; the watchdog then takes over).
-  void on_disconnect() {
-    hello_ = false;
-    stream_hz_ = 0.0;
-  }
+  // The link went away: the stream stops (the watchdog then takes over).
+  void on_disconnect() { stream_hz_ = 0.0; }
+  double stream_hz() const { return stream_hz_; }
+  const SimSettings& settings() const { return settings_; }
   // True once when the fault plan says the link must drop now.
   bool take_drop_request();
 
@@ -89,21 +88,12 @@ class SimController {
   double delay_replies_ms() const { return settings_.faults.delay_replies_ms; }
 
  private:
-  void reply_ok(std::uint32_t req, const std::string& verb, std::vector<std::string> fields,
-                std::vector<std::string>& out);
-  void reply_err(std::uint32_t req, line::ErrorCode code, const std::string& text,
-                 std::vector<std::string>& out);
-  void send(line::Message m, std::vector<std::string>& out);
   void latch_fault(const std::string& kind, const std::string& detail, std::vector<std::string>& events);
-  void send_events(const std::vector<std::string>& events, std::vector<std::string>& out);
   std::string wire_mode() const;
   std::uint32_t flags() const;
 
   physics::RollerModel model_;
   SimSettings settings_;
-  std::uint32_t seq_ = 0;
-  std::uint64_t lines_sent_ = 0;
-  bool hello_ = false;
   double stream_hz_ = 0.0;
   double next_sample_s_ = 0.0;
   std::uint64_t sample_index_ = 0;

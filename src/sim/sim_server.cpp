@@ -10,6 +10,8 @@
 #include <deque>
 #include <memory>
 
+#include "sim/line_front_end.hpp"
+
 namespace loadtrim::sim {
 
 namespace {
@@ -18,12 +20,8 @@ using WallClock = std::chrono::steady_clock;
 
 class Server {
  public:
-  Server(const physics::Truth& truth, const SimSettings& sim, const ServerSettings& s)
-      : sim_(truth, sim),
-        settings_(s),
-        tick_(io_),
-        signals_(io_, SIGINT, SIGTERM),
-        start_(WallClock::now()) {}
+  Server(FrontEnd& fe, const ServerSettings& s)
+      : fe_(fe), settings_(s), tick_(io_), signals_(io_, SIGINT, SIGTERM), start_(WallClock::now()) {}
 
   int run(const std::function<void(const std::string&)>& announce) {
     announce_ = announce;
@@ -78,7 +76,6 @@ class Server {
       socket_ = std::make_unique<asio::ip::tcp::socket>(std::move(s));
       socket_->set_option(asio::ip::tcp::no_delay(true));
       connected_ = true;
-      splitter_ = line::LineSplitter{};
       outq_.clear();
       read_socket();
     });
@@ -92,7 +89,7 @@ class Server {
     }
     if (connected_ && !settings_.pty) {
       connected_ = false;
-      sim_.on_disconnect();
+      fe_.on_disconnect();
       outq_.clear();
       accept();
     }
@@ -100,13 +97,8 @@ class Server {
 
   void on_bytes(std::size_t n) {
     std::vector<std::string> out;
-    splitter_.feed(std::string_view(buf_.data(), n), [&](std::string_view l, bool too_long) {
-      if (too_long)
-        sim_.on_line("0 TOOLONG*0000", wall_s(), out);  // answered as a bad frame
-      else
-        sim_.on_line(l, wall_s(), out);
-    });
-    const double release = wall_s() + sim_.delay_replies_ms() / 1000.0;
+    fe_.on_bytes(std::string_view(buf_.data(), n), wall_s(), out);
+    const double release = wall_s() + fe_.delay_replies_ms() / 1000.0;
     for (auto& s : out) outq_.push_back({release, std::move(s)});
     flush();
   }
@@ -158,18 +150,16 @@ class Server {
       const auto now = WallClock::now();
       const double wall_dt = std::chrono::duration<double>(now - last_tick_).count();
       last_tick_ = now;
-      std::vector<std::string> out;
+      std::vector<std::string> out, notes;
       // Bounded catch-up: after a stall of the host, simulated time jumps at most 50 ms of wall time.
-      sim_.advance(std::min(wall_dt, 0.05) * settings_.time_scale, out);
-      sim_.check_watchdog(wall_s(), out);
+      fe_.tick(std::min(wall_dt, 0.05) * settings_.time_scale, wall_s(), out, notes);
       // Latched faults are also said on the simulator's own output (for its operator and the tests): a
       // watchdog stop there proves the controller acted without the tool.
-      for (const auto& l : out)
-        if (l.find(" EVT FAULT ") != std::string::npos && announce_)
-          announce_("loadtrim-sim: " + l.substr(0, l.find('*')));
+      if (announce_)
+        for (const auto& l : notes) announce_("loadtrim-sim: " + l);
       if (connected_)
         for (auto& s : out) outq_.push_back({wall_s(), std::move(s)});
-      if (sim_.take_drop_request()) drop_client();
+      if (fe_.take_drop_request()) drop_client();
       flush();
       if (settings_.exit_after_s > 0.0 && wall_s() > settings_.exit_after_s) {
         io_.stop();
@@ -179,7 +169,7 @@ class Server {
     });
   }
 
-  SimController sim_;
+  FrontEnd& fe_;
   ServerSettings settings_;
   std::function<void(const std::string&)> announce_;
   asio::io_context io_;
@@ -192,17 +182,22 @@ class Server {
   int slave_fd_ = -1;
   bool connected_ = false;
   bool writing_ = false;
-  line::LineSplitter splitter_;
   std::array<char, 4096> buf_{};
   std::deque<std::pair<double, std::string>> outq_;
 };
 
 }  // namespace
 
+int run_server(FrontEnd& front_end, const ServerSettings& server,
+               const std::function<void(const std::string&)>& announce) {
+  Server s(front_end, server);
+  return s.run(announce);
+}
+
 int run_server(const physics::Truth& truth, const SimSettings& sim, const ServerSettings& server,
                const std::function<void(const std::string&)>& announce) {
-  Server s(truth, sim, server);
-  return s.run(announce);
+  LineFrontEnd fe(truth, sim);
+  return run_server(fe, server, announce);
 }
 
 }  // namespace loadtrim::sim

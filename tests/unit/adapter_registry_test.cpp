@@ -10,6 +10,7 @@
 
 #include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
+#include "framed/framed_controller.hpp"
 #include "inprocess/sim_rows.hpp"
 #include "link.hpp"
 #include "modbus/modbus_controller.hpp"
@@ -42,13 +43,13 @@ std::string tcp_cell(const std::string& from, const std::string& to) {
 
 TEST(AdapterRegistry, NamesComeFromTheRows) {
   // The production table, in the order messages list the choices; the in-process simulator is not in it.
-  EXPECT_EQ(adapters::names(),
-            (std::vector<std::string>{"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu"}));
+  EXPECT_EQ(adapters::names(), (std::vector<std::string>{"line-tcp", "line-serial", "modbus-tcp",
+                                                         "modbus-rtu", "framed-tcp", "framed-serial"}));
   EXPECT_EQ(adapters::production().find("inprocess-sim"), nullptr);
   // The tool's table: the same rows and the in-process simulated controller after them.
-  EXPECT_EQ(
-      adapters::tool_registry().names(),
-      (std::vector<std::string>{"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "inprocess-sim"}));
+  EXPECT_EQ(adapters::tool_registry().names(),
+            (std::vector<std::string>{"line-tcp", "line-serial", "modbus-tcp", "modbus-rtu", "framed-tcp",
+                                      "framed-serial", "inprocess-sim"}));
 }
 
 TEST(AdapterRegistry, RefusesARepeatedOrIncompleteRow) {
@@ -94,6 +95,23 @@ TEST(AdapterRegistry, ModbusCellCarriesItsRegisterMap) {
   EXPECT_TRUE(s.map[modbus::Q::speed].present);
   EXPECT_EQ(s.map[modbus::Q::f2].order, modbus::WordOrder::little);  // as the shipped file says
   EXPECT_EQ(adapters::production().link_key(c), "tcp-loopback-1502");
+}
+
+TEST(AdapterRegistry, FramedCellCarriesItsCommandTable) {
+  const std::string path = kSrc + "/config/cells/sim-framed.toml";
+  const controller::CellConfig c = config::load_cell(path, adapters::production().sections());
+  const auto& s = std::any_cast<const framed::Settings&>(c.adapter_settings);
+  EXPECT_EQ(std::get<adapters::TcpAddress>(s.link).port, 7401u);
+  EXPECT_EQ(s.table[framed::Op::hold].code, "MD");
+  EXPECT_EQ(adapters::production().link_key(c), "tcp-loopback-7401");
+  // The table's problems come with the file's, by key.
+  std::ifstream in(path);
+  std::string text((std::istreambuf_iterator<char>(in)), {});
+  text.replace(text.find("code = \"RC\""), 11, "code = \"rc\"");
+  const std::string msg =
+      refusal([&] { config::parse_cell(text, "bad-table.toml", adapters::production().sections()); });
+  EXPECT_NE(msg.find("bad-table.toml"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("framed.ops.read_coefficients.code"), std::string::npos) << msg;
 }
 
 TEST(AdapterRegistry, InProcessCellNeedsTheSimulatorRow) {

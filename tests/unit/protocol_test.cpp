@@ -6,7 +6,7 @@
 
 #include "line/line_controller.hpp"
 #include "line/line_protocol.hpp"
-#include "sim/sim_controller.hpp"
+#include "sim/line_front_end.hpp"
 
 using namespace loadtrim;
 using namespace loadtrim::line;
@@ -102,7 +102,7 @@ TEST(Protocol, DocumentedExamplesParseAndTheSimulatorAnswersThem) {
   std::string line;
   bool in_wire = false;
   int requests = 0, replies = 0, checked = 0;
-  sim::SimController sim(physics::Truth{}, sim::SimSettings{});
+  sim::LineFrontEnd sim(physics::Truth{}, sim::SimSettings{});
   std::vector<std::string> pending;  // simulator replies not yet compared
   while (std::getline(in, line)) {
     if (line.rfind("```", 0) == 0) {
