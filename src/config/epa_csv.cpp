@@ -89,15 +89,19 @@ EpaFile read_epa_csv(const std::string& path) {
   return f;
 }
 
+core::Drive drive_of(const EpaRow& row) {
+  return row.drive_code == "F"   ? core::Drive::front
+         : row.drive_code == "R" ? core::Drive::rear
+                                 : core::Drive::all;
+}
+
 core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profile, double max_speed_kmh) {
   core::VehicleTarget t;
   t.id = row.id;
   t.description = "US EPA Test Car List row at line " + std::to_string(row.line);
   t.test_mass_kg = row.etw_kg;
   t.mass_in_running_order_kg = row.etw_kg - 100.0;
-  t.drive = row.drive_code == "F"   ? core::Drive::front
-            : row.drive_code == "R" ? core::Drive::rear
-                                    : core::Drive::all;
+  t.drive = drive_of(row);
   t.max_speed_kmh = max_speed_kmh;
   t.target = row.target;
   t.profile = profile;

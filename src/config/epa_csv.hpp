@@ -27,6 +27,9 @@ struct EpaFile {
 // Throws InputError when the file cannot be read or lacks a required column.
 EpaFile read_epa_csv(const std::string& path);
 
+// The row's driven wheels from its drive_system_code: F front, R rear, anything else (A, 4, P) all wheels.
+core::Drive drive_of(const EpaRow& row);
+
 // A vehicle target from a row: test mass = ETW; mass in running order taken as ETW − 100 kg (common practice,
 // no source: US test weight adds a nominal load to the curb mass); drive code F/R single axle, A/4/P all
 // wheels.
