@@ -131,10 +131,7 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
 std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
   try {
     const config::EpaFile f = config::read_epa_csv(csv);
-    std::vector<core::FleetRow> rows;
-    for (const auto& r : f.rows)
-      rows.push_back({r.etw_kg, core::axle_layout_for(config::drive_of(r)), r.target, r.set});
-    auto m = core::fit_fleet_loss(rows);
+    auto m = core::fit_fleet_loss(config::fleet_rows(f));
     if (m.ok()) return m;
   } catch (const config::InputError& e) {
     std::cerr << "fleet data not used: " << e.what();

@@ -95,6 +95,14 @@ core::Drive drive_of(const EpaRow& row) {
                                  : core::Drive::all;
 }
 
+std::vector<core::FleetRow> fleet_rows(const EpaFile& f) {
+  std::vector<core::FleetRow> rows;
+  rows.reserve(f.rows.size());
+  for (const auto& r : f.rows)
+    rows.push_back({r.etw_kg, core::axle_layout_for(drive_of(r)), r.target, r.set});
+  return rows;
+}
+
 core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profile, double max_speed_kmh) {
   core::VehicleTarget t;
   t.id = row.id;

@@ -5,8 +5,7 @@
 namespace loadtrim::core {
 
 double planned_motoring_s(const Profile& p) {
-  // Kept identical to session.cpp do_check_limits, which refuses the same thing after connecting: the 30 s
-  // per loss-map speed is that check's allowance for the ramp between speeds.
+  // The 30 s per loss-map speed is the allowance for the ramp between speeds.
   return p.warm_up.duration_s + p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
          static_cast<double>(p.loss_map.speeds_kmh.size()) *
              (p.loss_map.settle_s + p.loss_map.average_s + 30.0);
@@ -96,7 +95,7 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
           "has " + num(v) + " km/h, within 14 km/h of the vehicle's maximum speed of " +
               num(vehicle.max_speed_kmh) +
               " km/h (vehicle.max_speed_kmh; GTR 15 §2.2 drops such a point): allowed only below " +
-              num(vehicle.max_speed_kmh - 14.0) + " km/h; use a profile without it");
+              num(vehicle.max_speed_kmh - kReferenceSpeedMarginKmh) + " km/h; use a profile without it");
 
   // Motoring time.
   const double motoring = planned_motoring_s(profile);

@@ -30,8 +30,8 @@ struct CombinationProblems {
   bool any_error() const { return has_errors(cell) || has_errors(target) || has_errors(profile); }
 };
 
-// The longest continuous motoring of the warm-up, s: the same formula as the session's limit check
-// (session.cpp do_check_limits): warm_up.duration_s, plus warm_up.max_extra_s when the stability rule is on
+// The longest continuous motoring of the warm-up, s (check_combination and, through limits_refusal, the
+// session's limit check): warm_up.duration_s, plus warm_up.max_extra_s when the stability rule is on
 // (stable_within_n > 0), plus (settle + average + 30 s) for each loss-map speed.
 double planned_motoring_s(const Profile& p);
 
