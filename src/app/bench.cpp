@@ -180,13 +180,7 @@ int run_bench(BenchOptions o) {
       config::load_profile(config::profile_path(data_dir() + "/config/profiles", "wltp-fixed-run"));
   const config::EpaFile f = config::read_epa_csv(o.epa);
   // Fleet model from the same file (in-sample: the benchmark's fleet figure is optimistic by that much).
-  std::vector<core::FleetRow> rows;
-  for (const auto& r : f.rows)
-    rows.push_back({r.etw_kg,
-                    r.drive_code == "F" || r.drive_code == "R" ? core::AxleLayout::single_axle
-                                                               : core::AxleLayout::two_axle,
-                    r.target, r.set});
-  const core::FleetLossModel fleet = core::fit_fleet_loss(rows);
+  const core::FleetLossModel fleet = core::fit_fleet_loss(config::fleet_rows(f));
 
   // The vehicles: every plausible row (or a seeded sample), each with its own seeded truth.
   std::vector<std::size_t> order(f.rows.size());
@@ -203,7 +197,7 @@ int run_bench(BenchOptions o) {
       continue;
     }
     Vehicle v;
-    v.layout = t.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
+    v.layout = core::axle_layout_for(t.drive);
     std::mt19937_64 rng(o.seed * 1000003ULL + idx);
     v.truth = physics::random_truth(t.test_mass_kg, core::resolved_rotating_mass_kg(t, iterative.mass),
                                     v.layout, {}, rng);

@@ -81,8 +81,7 @@ int demo_fleet(DemoOptions o) {
       ++screened;
       continue;
     }
-    const auto layout =
-        v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
+    const auto layout = core::axle_layout_for(v.drive);
     physics::Truth truth = physics::random_truth(
         v.test_mass_kg, core::resolved_rotating_mass_kg(v, profile.mass), layout, {}, rng);
     const std::string file = targets + "/" + record::safe_name(v.id) + ".toml";

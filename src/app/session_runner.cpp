@@ -25,6 +25,7 @@
 #include "motion/motion.hpp"
 #include "record/event_log.hpp"
 #include "record/session_folder.hpp"
+#include "record/vehicle_history.hpp"
 #include "record/verify.hpp"
 #include "report/report.hpp"
 #include "session/record_writer.hpp"
@@ -130,13 +131,7 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
 std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
   try {
     const config::EpaFile f = config::read_epa_csv(csv);
-    std::vector<core::FleetRow> rows;
-    for (const auto& r : f.rows)
-      rows.push_back({r.etw_kg,
-                      r.drive_code == "F" || r.drive_code == "R" ? core::AxleLayout::single_axle
-                                                                 : core::AxleLayout::two_axle,
-                      r.target, r.set});
-    auto m = core::fit_fleet_loss(rows);
+    auto m = core::fit_fleet_loss(config::fleet_rows(f));
     if (m.ok()) return m;
   } catch (const config::InputError& e) {
     std::cerr << "fleet data not used: " << e.what();
@@ -146,37 +141,22 @@ std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
 
 std::string history_file(const std::string& dir, const controller::CellConfig& cell,
                          const core::VehicleTarget& v) {
-  return (fs::path(dir) / record::identity_name(cell.name) / (record::safe_name(v.id) + ".json")).string();
+  return record::vehicle_history_file(dir, cell.name, v.id);
 }
 
 std::optional<core::HistoryEntry> load_history(const std::string& file) {
-  std::ifstream in(file);
-  if (!in) return std::nullopt;
-  try {
-    const auto j = nlohmann::json::parse(in);
-    core::HistoryEntry h;
-    h.utc = j.at("utc").get<std::string>();
-    h.target = session::road_load_from_json(j.at("target"));
-    h.final_set = session::road_load_from_json(j.at("final_set"));
-    return h;
-  } catch (const std::exception& e) {
-    std::cerr << file << ": history entry not used: " << e.what() << "\n";
-    return std::nullopt;
-  }
+  std::string err;
+  auto h = record::load_vehicle_history(file, &err);
+  if (!h && !err.empty()) std::cerr << file << ": history entry not used: " << err << "\n";
+  return h;
 }
 
 void save_history(const std::string& file, const core::VehicleTarget& v, const session::Summary& s,
                   const std::string& folder) {
   if (!s.final_set) return;
-  std::error_code ec;
-  fs::create_directories(fs::path(file).parent_path(), ec);
-  nlohmann::json j = {{"utc", record::utc_now()},
-                      {"vehicle", v.id},
-                      {"session", folder},
-                      {"target", session::to_json(v.target)},
-                      {"final_set", session::to_json(*s.final_set)}};
   std::string err;
-  if (!record::write_durable(file, j.dump(2) + "\n", err)) std::cerr << "history not saved: " << err << "\n";
+  if (!record::save_vehicle_history(file, v.id, folder, v.target, *s.final_set, err))
+    std::cerr << "history not saved: " << err << "\n";
 }
 
 // Interactive confirmation, or the explicit unattended flag. Returns the way it was given, or empty =
@@ -683,7 +663,8 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
   if (verdict.seal) {
     const std::string result = verdict.seal->result.value("result", "");
     std::cerr << "loadtrim: " << folder << " is finished and sealed (" << result << "); nothing to resume\n";
-    return result == "accepted" ? kAccepted : result == "refused" ? kBadInput : kNotAccepted;
+    const std::optional<session::Outcome> o = session::outcome_from_string(result);
+    return o && session::is_final(*o) ? exit_code_for(*o) : static_cast<int>(kNotAccepted);
   }
   std::vector<nlohmann::json> records;
   if (const record::VerifyResult v = record::read_log((fs::path(folder) / "events.jsonl").string(), &records);

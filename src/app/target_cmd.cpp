@@ -6,6 +6,8 @@
 #include <cstdio>
 #include <iostream>
 #include <memory>
+#include <optional>
+#include <utility>
 
 #include "app/exit_codes.hpp"
 #include "app/session_runner.hpp"
@@ -15,8 +17,11 @@
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
 #include "config/target_writer.hpp"
+#include "core/combination.hpp"
 #include "core/predict.hpp"
 #include "core/setting.hpp"
+#include "core/strategy.hpp"
+#include "core/trace_analysis.hpp"
 #include "core/units.hpp"
 #include "inprocess/sim_rows.hpp"
 #include "record/session_folder.hpp"
@@ -105,8 +110,7 @@ int run_target(const TargetOptions& o) {
   std::string source;
   core::VehicleTarget v = build(o, profile, source);
   if (v.profile.empty()) v.profile = profile.name;
-  core::AxleLayout layout =
-      v.drive == core::Drive::all ? core::AxleLayout::two_axle : core::AxleLayout::single_axle;
+  core::AxleLayout layout = core::axle_layout_for(v.drive);
   std::optional<controller::CellConfig> cell;
   if (!o.cell.empty()) {
     cell = config::load_cell(o.cell, adapters::tool_registry().sections());
@@ -120,15 +124,36 @@ int run_target(const TargetOptions& o) {
                                                   profile.band_half_width_kmh);
   const core::RoadLoadUs us = core::to_us(v.target);
 
-  // Initial settings, as the session would choose them before it has measured anything.
+  // Initial settings, as the session would choose them before it has measured anything (no loss map yet):
+  // each strategy through the session's own choice (core::choose_first_setting); a strategy whose data is
+  // missing shows why instead of the setting the session would fall back to.
+  std::optional<core::FleetLossModel> fleet = fleet_model(default_fleet_csv());  // first: its messages first
+  std::optional<core::HistoryEntry> hist;
+  if (cell) hist = history_for(o.history.empty() ? "sessions/history" : o.history, *cell, v);
+  core::FirstSettingInputs choice_in{.requested = core::FirstSetting::standard,
+                                     .target = v.target,
+                                     .test_mass_kg = v.test_mass_kg,
+                                     .layout = layout,
+                                     .rule = profile.initial,
+                                     .target_file_set = std::nullopt,  // each strategy, not the file's set
+                                     .fleet = std::move(fleet),
+                                     .history = hist,
+                                     .loss_map = {}};
+  auto choice = [&](core::FirstSetting f) {
+    choice_in.requested = f;
+    return core::choose_first_setting(choice_in);
+  };
+  auto chosen = [](const core::FirstSettingChoice& c, core::FirstSetting f) {
+    return c.used == core::to_string(f);
+  };
   nlohmann::json initial = nlohmann::json::array();
   initial.push_back({{"strategy", "standard"},
-                     {"set", coef(core::standard_initial_setting(v.target, layout, profile.initial))},
+                     {"set", coef(choice(core::FirstSetting::standard).set)},
                      {"note", "the standard's initial setting (domain.md §3, from memory)"}});
-  if (const auto fleet = fleet_model(default_fleet_csv()); fleet && fleet->ok())
+  if (const auto c = choice(core::FirstSetting::fleet); chosen(c, core::FirstSetting::fleet))
     initial.push_back(
         {{"strategy", "fleet"},
-         {"set", coef(core::setting_for_loss(v.target, fleet->estimate(v.test_mass_kg, layout)))},
+         {"set", coef(c.set)},
          {"note", "target minus the loss the EPA fleet shows at this test mass and axle layout"}});
   else
     initial.push_back({{"strategy", "fleet"}, {"note", "no fleet data: the session falls back to standard"}});
@@ -136,12 +161,10 @@ int run_target(const TargetOptions& o) {
                      {"note",
                       "measured in speed hold at the end of the warm-up, in the session; falls back to "
                       "standard if it cannot be measured"}});
-  std::optional<core::HistoryEntry> hist;
-  if (cell) hist = history_for(o.history.empty() ? "sessions/history" : o.history, *cell, v);
-  if (hist)
+  if (const auto c = choice(core::FirstSetting::history); chosen(c, core::FirstSetting::history))
     initial.push_back({{"strategy", "history"},
-                       {"set", coef(core::setting_for_loss(v.target, hist->loss()))},
-                       {"note", "target minus the loss of the accepted session of " + hist->utc}});
+                       {"set", coef(c.set)},
+                       {"note", "target minus the loss of the accepted session of " + *c.history_utc}});
   else
     initial.push_back({{"strategy", "history"},
                        {"note", cell ? "no earlier accepted session of this vehicle on this cell"
@@ -156,10 +179,9 @@ int run_target(const TargetOptions& o) {
                         {"force_lbf", core::units::n_to_lbf(v.target.force_n(s))}};
     // The band time the standard's formula turns back into F_tj (F = (1/3.6)·(TM + m_r)·2Δv/Δt, domain.md
     // §2), and the exact coast time through the band under the target (closed form, domain.md §6.4).
-    r["band_time_s"] =
-        force_mass * 2.0 * profile.band_half_width_kmh / (core::units::kKmhPerMps * v.target.force_n(s));
+    r["band_time_s"] = core::band_time_s(force_mass, profile.band_half_width_kmh, v.target.force_n(s));
     if (times[j]) r["band_time_exact_s"] = *times[j];
-    if (s + 14.0 >= v.max_speed_kmh)
+    if (!core::reference_speed_kept(s, v.max_speed_kmh))
       r["note"] = "v + 14 km/h reaches the vehicle's maximum speed: dropped by the standard (domain.md §2)";
     rows.push_back(r);
   }

@@ -89,15 +89,27 @@ EpaFile read_epa_csv(const std::string& path) {
   return f;
 }
 
+core::Drive drive_of(const EpaRow& row) {
+  return row.drive_code == "F"   ? core::Drive::front
+         : row.drive_code == "R" ? core::Drive::rear
+                                 : core::Drive::all;
+}
+
+std::vector<core::FleetRow> fleet_rows(const EpaFile& f) {
+  std::vector<core::FleetRow> rows;
+  rows.reserve(f.rows.size());
+  for (const auto& r : f.rows)
+    rows.push_back({r.etw_kg, core::axle_layout_for(drive_of(r)), r.target, r.set});
+  return rows;
+}
+
 core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profile, double max_speed_kmh) {
   core::VehicleTarget t;
   t.id = row.id;
   t.description = "US EPA Test Car List row at line " + std::to_string(row.line);
   t.test_mass_kg = row.etw_kg;
   t.mass_in_running_order_kg = row.etw_kg - 100.0;
-  t.drive = row.drive_code == "F"   ? core::Drive::front
-            : row.drive_code == "R" ? core::Drive::rear
-                                    : core::Drive::all;
+  t.drive = drive_of(row);
   t.max_speed_kmh = max_speed_kmh;
   t.target = row.target;
   t.profile = profile;

@@ -5,11 +5,57 @@
 namespace loadtrim::core {
 
 double planned_motoring_s(const Profile& p) {
-  // Kept identical to session.cpp do_check_limits, which refuses the same thing after connecting: the 30 s
-  // per loss-map speed is that check's allowance for the ramp between speeds.
+  // The 30 s per loss-map speed is the allowance for the ramp between speeds.
   return p.warm_up.duration_s + p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
          static_cast<double>(p.loss_map.speeds_kmh.size()) *
              (p.loss_map.settle_s + p.loss_map.average_s + 30.0);
+}
+
+bool start_speed_below(const Profile& p, double limit_kmh) {
+  return p.start_speed_kmh() < limit_kmh;
+}
+
+bool warm_up_speed_within(const Profile& p, double limit_kmh) {
+  return p.warm_up.speed_kmh <= limit_kmh;
+}
+
+bool reference_speed_kept(double reference_kmh, double vehicle_max_speed_kmh) {
+  return reference_kmh + kReferenceSpeedMarginKmh < vehicle_max_speed_kmh;
+}
+
+bool motoring_within(const Profile& p, double max_motoring_s) {
+  return planned_motoring_s(p) <= max_motoring_s;
+}
+
+double session_speed_limit_kmh(double cell_max_kmh, double vehicle_max_kmh, double controller_max_kmh) {
+  return std::min({cell_max_kmh, vehicle_max_kmh, controller_max_kmh});
+}
+
+std::optional<std::string> limits_refusal(const Profile& p, double cell_max_kmh, double vehicle_max_kmh,
+                                          double controller_max_kmh, double cell_max_motoring_s) {
+  const double start = p.start_speed_kmh();
+  const double limit = session_speed_limit_kmh(cell_max_kmh, vehicle_max_kmh, controller_max_kmh);
+  if (!start_speed_below(p, cell_max_kmh))
+    return "start speed " + num(start) +
+           " km/h (top reference speed + run-up margin) is not below the cell's limit of " +
+           num(cell_max_kmh) + " km/h";
+  if (!start_speed_below(p, vehicle_max_kmh))
+    return "start speed " + num(start) + " km/h is not below the vehicle's maximum speed of " +
+           num(vehicle_max_kmh) + " km/h";
+  if (!start_speed_below(p, controller_max_kmh))
+    return "start speed " + num(start) + " km/h is not below the controller's limit of " +
+           num(controller_max_kmh) + " km/h";
+  if (!warm_up_speed_within(p, limit))
+    return "warm-up speed " + num(p.warm_up.speed_kmh) + " km/h is above the speed limit of " + num(limit) +
+           " km/h";
+  for (double v : p.reference_speeds_kmh)
+    if (!reference_speed_kept(v, vehicle_max_kmh))
+      return "reference speed " + num(v) +
+             " km/h is within 14 km/h of the vehicle's maximum speed; use a profile without it";
+  if (!motoring_within(p, cell_max_motoring_s))
+    return "the warm-up needs up to " + num(planned_motoring_s(p)) +
+           " s of motoring, above the cell's limit of " + num(cell_max_motoring_s) + " s";
+  return std::nullopt;
 }
 
 CombinationProblems check_combination(const VehicleTarget& vehicle, const Profile& profile,
@@ -26,17 +72,17 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
                                  " + run.run_up_margin_kmh " + num(profile.run_up_margin_kmh) + ")";
 
   // Speeds. Comparisons are written so that a NaN fails them.
-  if (!(start < cell.max_speed_kmh))
+  if (!start_speed_below(profile, cell.max_speed_kmh))
     err(out.cell, "limits.max_speed_kmh",
         "is " + num(cell.max_speed_kmh) + " km/h; the profile starts its coast-downs at " + start_text +
             ": allowed only above " + num(start) + " km/h for this profile");
-  if (!(start < vehicle.max_speed_kmh))
+  if (!start_speed_below(profile, vehicle.max_speed_kmh))
     err(out.target, "vehicle.max_speed_kmh",
         "is " + num(vehicle.max_speed_kmh) + " km/h; the profile starts its coast-downs at " + start_text +
             ": allowed only above " + num(start) + " km/h for this profile");
   const double speed_limit = std::min(cell.max_speed_kmh, vehicle.max_speed_kmh);
-  if (!(profile.warm_up.speed_kmh <= cell.max_speed_kmh &&
-        profile.warm_up.speed_kmh <= vehicle.max_speed_kmh))
+  if (!(warm_up_speed_within(profile, cell.max_speed_kmh) &&
+        warm_up_speed_within(profile, vehicle.max_speed_kmh)))
     err(out.profile, "warm_up.speed_kmh",
         "is " + num(profile.warm_up.speed_kmh) + " km/h, above the cell's limits.max_speed_kmh (" +
             num(cell.max_speed_kmh) + ") or the vehicle's vehicle.max_speed_kmh (" +
@@ -44,16 +90,16 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
   // GTR 15 §2.2 (from memory): a reference speed within 14 km/h of the vehicle's maximum speed is dropped; a
   // fixed profile cannot drop it, so the profile does not fit this vehicle.
   for (double v : profile.reference_speeds_kmh)
-    if (!(v + 14.0 < vehicle.max_speed_kmh))
+    if (!reference_speed_kept(v, vehicle.max_speed_kmh))
       err(out.profile, "bands.reference_speeds_kmh",
           "has " + num(v) + " km/h, within 14 km/h of the vehicle's maximum speed of " +
               num(vehicle.max_speed_kmh) +
               " km/h (vehicle.max_speed_kmh; GTR 15 §2.2 drops such a point): allowed only below " +
-              num(vehicle.max_speed_kmh - 14.0) + " km/h; use a profile without it");
+              num(vehicle.max_speed_kmh - kReferenceSpeedMarginKmh) + " km/h; use a profile without it");
 
   // Motoring time.
   const double motoring = planned_motoring_s(profile);
-  if (!(motoring <= cell.max_motoring_s))
+  if (!motoring_within(profile, cell.max_motoring_s))
     err(out.cell, "limits.max_motoring_s",
         "is " + num(cell.max_motoring_s) + " s; the profile's warm-up motors the rollers for up to " +
             num(motoring) + " s (warm_up.duration_s " + num(profile.warm_up.duration_s) +

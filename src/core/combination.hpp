@@ -4,6 +4,9 @@
 // file name.
 #pragma once
 
+#include <optional>
+#include <string>
+
 #include "core/envelope.hpp"
 #include "core/problem.hpp"
 #include "core/profile.hpp"
@@ -27,10 +30,33 @@ struct CombinationProblems {
   bool any_error() const { return has_errors(cell) || has_errors(target) || has_errors(profile); }
 };
 
-// The longest continuous motoring of the warm-up, s: the same formula as the session's limit check
-// (session.cpp do_check_limits): warm_up.duration_s, plus warm_up.max_extra_s when the stability rule is on
+// The longest continuous motoring of the warm-up, s (check_combination and, through limits_refusal, the
+// session's limit check): warm_up.duration_s, plus warm_up.max_extra_s when the stability rule is on
 // (stable_within_n > 0), plus (settle + average + 30 s) for each loss-map speed.
 double planned_motoring_s(const Profile& p);
+
+// The speed and time rules, each written once: check_combination (before anything connects) and
+// limits_refusal (the session, after connecting, with the controller's own limit) both use them. Every
+// comparison is written so that a NaN fails it.
+// The profile's start speed (top reference speed + run-up margin) must lie strictly below a speed limit.
+bool start_speed_below(const Profile& p, double limit_kmh);
+// The warm-up speed may reach a speed limit but not exceed it.
+bool warm_up_speed_within(const Profile& p, double limit_kmh);
+// GTR 15 §2.2 (from memory; domain.md §2): a reference speed v with v + 14 km/h ≥ the vehicle's maximum speed
+// is dropped by the standard. A fixed profile cannot drop it, so true means the point may stay.
+inline constexpr double kReferenceSpeedMarginKmh = 14.0;
+bool reference_speed_kept(double reference_kmh, double vehicle_max_speed_kmh);
+// The warm-up's motoring fits the cell's limit of one continuous motoring period (planned_motoring_s).
+bool motoring_within(const Profile& p, double max_motoring_s);
+// The session's speed limit: the lowest of the cell's, the vehicle's and the controller's.
+double session_speed_limit_kmh(double cell_max_kmh, double vehicle_max_kmh, double controller_max_kmh);
+
+// The session's check once the controller has told its own limit (session.cpp do_check_limits): the first
+// rule broken, as one line for the "refused" record, in this order: start speed against the cell, the
+// vehicle and the controller; warm-up speed against the session's speed limit; each reference speed against
+// the vehicle's maximum (GTR 15 §2.2); the warm-up's motoring against limits.max_motoring_s. nullopt = none.
+std::optional<std::string> limits_refusal(const Profile& p, double cell_max_kmh, double vehicle_max_kmh,
+                                          double controller_max_kmh, double cell_max_motoring_s);
 
 // Checks, each a Problem naming the key and the allowed range, filed under the file whose key it names:
 // - cell: limits.max_speed_kmh above the profile's start speed; limits.max_motoring_s at least

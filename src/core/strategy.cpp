@@ -1,5 +1,7 @@
 #include "core/strategy.hpp"
 
+#include "core/setting.hpp"
+
 namespace loadtrim::core {
 
 const char* to_string(FirstSetting f) {
@@ -60,6 +62,63 @@ RoadLoadFit fit_loss_map(std::span<const HoldPoint> points) {
     f.push_back(p.force_n);
   }
   return fit_road_load(v, f);
+}
+
+FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
+  FirstSettingChoice c;
+  c.used = to_string(in.requested);
+  if (in.target_file_set) {
+    c.used = "target-file";
+    c.set = *in.target_file_set;
+    return c;
+  }
+  const bool fleet_ok = in.fleet && in.fleet->ok();
+  auto fallback = [&](const std::string& reason) {
+    c.why += (c.why.empty() ? "" : "; ") + reason;
+    if (in.history) {
+      c.used = to_string(FirstSetting::history);
+      c.loss = in.history->loss();
+    } else if (fleet_ok) {
+      c.used = to_string(FirstSetting::fleet);
+      c.loss = in.fleet->estimate(in.test_mass_kg, in.layout);
+    } else {
+      c.used = to_string(FirstSetting::standard);
+    }
+  };
+  switch (in.requested) {
+    case FirstSetting::standard:
+      break;
+    case FirstSetting::fleet:
+      if (fleet_ok) {
+        c.loss = in.fleet->estimate(in.test_mass_kg, in.layout);
+      } else {
+        c.used = to_string(FirstSetting::standard);
+        c.why = "no fleet data";
+      }
+      break;
+    case FirstSetting::history:
+      if (in.history) {
+        c.loss = in.history->loss();
+        c.history_utc = in.history->utc;
+      } else {
+        fallback("no earlier session of this vehicle on this cell");
+      }
+      break;
+    case FirstSetting::loss_map: {
+      const RoadLoadFit fit = fit_loss_map(in.loss_map);
+      if (fit.ok) {
+        c.loss = fit.coefficients;
+        c.map_fit = fit.coefficients;
+        c.map_residual_sd_n = fit.residual_sd_n;
+      } else {
+        fallback("no loss map (" + (in.loss_map.empty() ? std::string("not measured") : fit.message) + ")");
+      }
+      break;
+    }
+  }
+  c.set =
+      c.loss ? setting_for_loss(in.target, *c.loss) : standard_initial_setting(in.target, in.layout, in.rule);
+  return c;
 }
 
 }  // namespace loadtrim::core

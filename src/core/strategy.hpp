@@ -63,4 +63,38 @@ struct HistoryEntry {
   RoadLoad loss() const { return target - final_set; }
 };
 
+// The first setting, chosen once before the first coast-down (session.cpp) and shown per strategy by
+// `loadtrim target` (target_cmd.cpp): the one place the choice and its fallbacks are written.
+struct FirstSettingInputs {
+  FirstSetting requested = FirstSetting::standard;
+  RoadLoad target;
+  double test_mass_kg = 0.0;
+  AxleLayout layout = AxleLayout::single_axle;  // the cell's dyno.axles
+  InitialSettingRule rule;                      // the profile's [initial_setting]
+  std::optional<RoadLoad> target_file_set;      // vehicle.initial_set: overrides every strategy
+  std::optional<FleetLossModel> fleet;          // used only when ok()
+  std::optional<HistoryEntry> history;          // this vehicle on this cell
+  std::vector<HoldPoint> loss_map;              // measured at the end of the warm-up (empty: not measured)
+};
+struct FirstSettingChoice {
+  std::string used;  // the strategy's name (to_string), or "target-file"
+  std::string why;   // why the requested strategy was not used ("" when it was)
+  RoadLoad set;
+  std::optional<RoadLoad> loss;  // the loss estimate the set was derived from (set = target − loss)
+  // What the chosen strategy used, recorded beside its result.
+  std::optional<std::string> history_utc;  // only when history was requested and used
+  std::optional<RoadLoad> map_fit;
+  std::optional<double> map_residual_sd_n;
+};
+// The rules:
+// - A target file's initial set is used as given ("target-file").
+// - standard: Ad = k0·At, Bd = k1·Bt, Cd = k2·Ct (standard_initial_setting with the layout and rule).
+// - fleet: target − fleet.estimate(TM, layout) when the model is ok(); else standard, why "no fleet data".
+// - history: target − history.loss(); without history, the fallback below, why "no earlier session of this
+//   vehicle on this cell".
+// - loss-map: target − fit_loss_map(points) when the fit is ok; else the fallback, why "no loss map (not
+//   measured)" or "no loss map (<the fit's message>)".
+// - The fallback: history when there is one, else fleet when ok(), else standard.
+FirstSettingChoice choose_first_setting(const FirstSettingInputs& in);
+
 }  // namespace loadtrim::core

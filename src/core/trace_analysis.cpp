@@ -32,6 +32,11 @@ double band_force_n(double force_mass_kg, double half_band_kmh, double delta_t_s
   return (1.0 / units::kKmhPerMps) * force_mass_kg * (2.0 * half_band_kmh) / delta_t_s;
 }
 
+double band_time_s(double force_mass_kg, double half_band_kmh, double force_n) {
+  // Written as `loadtrim target` always printed it (same operations in the same order: same digits).
+  return force_mass_kg * 2.0 * half_band_kmh / (units::kKmhPerMps * force_n);
+}
+
 TraceAnalyser::TraceAnalyser(TraceView trace, BandOptions options) : trace_(trace), options_(options) {
   const std::size_t n = trace_.size();
   if (trace_.speed_kmh.size() != n) {

@@ -47,6 +47,10 @@ struct BandResult {
 
 // The standard's formula: F = (1/3.6)·m·(2·Δv)/Δt.
 double band_force_n(double force_mass_kg, double half_band_kmh, double delta_t_s);
+// Its inverse, the band time Δt the formula turns back into force_n: Δt = m·(2·Δv)/(3.6·F), s. For a road
+// load that is constant over the band this is the exact coast time (core::coastdown_time_s); otherwise the
+// time of the mean deceleration the formula assumes. F = 0 gives infinity, as the formula does.
+double band_time_s(double force_mass_kg, double half_band_kmh, double force_n);
 
 // Time at which the trace falls through level_kmh, with the reason when it cannot be found.
 struct Crossing {

@@ -17,6 +17,10 @@ const char* to_string(Drive d) {
   }
   return "unknown";
 }
+AxleLayout axle_layout_for(Drive d) {
+  return d == Drive::all ? AxleLayout::two_axle : AxleLayout::single_axle;
+}
+
 bool parse(const std::string& s, Drive& out) {
   if (s == "front") return out = Drive::front, true;
   if (s == "rear") return out = Drive::rear, true;

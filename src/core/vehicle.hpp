@@ -13,6 +13,11 @@ namespace loadtrim::core {
 enum class Drive { front, rear, all };  // the vehicle's driven wheels
 const char* to_string(Drive d);
 bool parse(const std::string& s, Drive& out);
+// The dyno layout a vehicle with these driven wheels needs: both axles on rollers for all-wheel drive, one
+// driven axle for front or rear drive (common practice, no source; a single-axle cell takes an
+// all-wheel-drive vehicle only in its two-wheel-drive mode, check_combination). The one mapping from drive to
+// layout: the fleet model's rows, `loadtrim target` without a cell and the demo's choice of cell all use it.
+AxleLayout axle_layout_for(Drive d);
 
 struct VehicleTarget {
   std::string id;

@@ -56,8 +56,15 @@ bool is_final(Outcome o) {
   return o == Outcome::accepted || o == Outcome::not_accepted || o == Outcome::refused;
 }
 bool is_final(const std::string& r) {
-  return r == to_string(Outcome::accepted) || r == to_string(Outcome::not_accepted) ||
-         r == to_string(Outcome::refused);
+  const std::optional<Outcome> o = outcome_from_string(r);
+  return o && is_final(*o);
+}
+
+std::optional<Outcome> outcome_from_string(const std::string& s) {
+  for (Outcome o : {Outcome::accepted, Outcome::not_accepted, Outcome::refused, Outcome::controller_fault,
+                    Outcome::interrupted, Outcome::record_failure})
+    if (s == to_string(o)) return o;
+  return std::nullopt;
 }
 
 nlohmann::json to_json(const core::RoadLoad& c) {

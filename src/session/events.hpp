@@ -60,6 +60,9 @@ const char* to_string(Outcome o);
 // may continue.
 bool is_final(Outcome o);
 bool is_final(const std::string& result);  // as to_string(Outcome) writes it
+// The inverse of to_string(Outcome): nullopt for any other text. Pure; the record's "result" strings (the
+// finished record, the seal) are read back only through it.
+std::optional<Outcome> outcome_from_string(const std::string& s);
 
 // The one JSON spelling of a road-load curve: {"f0_n", "f1_n_per_kmh", "f2_n_per_kmh2"}.
 nlohmann::json to_json(const core::RoadLoad& c);

@@ -31,10 +31,7 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         p.verdict = Outcome::refused;
         p.verdict_reason = r.value("why", "");
       } else if (type == "finished" && is_final(r.value("result", ""))) {
-        const std::string res = r.value("result", "");
-        p.verdict = res == to_string(Outcome::accepted)  ? Outcome::accepted
-                    : res == to_string(Outcome::refused) ? Outcome::refused
-                                                         : Outcome::not_accepted;
+        p.verdict = outcome_from_string(r.value("result", ""));  // a final one: is_final read it
         p.verdict_reason = r.value("stop_reason", "");
         p.finished_recorded = true;
         if (r.contains("final_set")) p.final_set = road_load_from_json(r.at("final_set"));

@@ -5,6 +5,7 @@
 #include <future>
 #include <thread>
 
+#include "core/combination.hpp"
 #include "core/predict.hpp"
 #include "core/problem.hpp"
 #include "core/setting.hpp"
@@ -208,34 +209,14 @@ std::optional<Session::Stop> Session::do_connect() {
 std::optional<Session::Stop> Session::do_check_limits() {
   transition(State::check_limits);
   const auto& p = in_.profile;
-  speed_limit_kmh_ = std::min({in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh, info_.max_speed_kmh});
-  std::string why;
+  speed_limit_kmh_ =
+      core::session_speed_limit_kmh(in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh, info_.max_speed_kmh);
   const double start = p.start_speed_kmh();
-  if (!(start < in_.cell.max_speed_kmh))
-    why = "start speed " + num(start) +
-          " km/h (top reference speed + run-up margin) is not below the cell's limit of " +
-          num(in_.cell.max_speed_kmh) + " km/h";
-  else if (!(start < in_.vehicle.max_speed_kmh))
-    why = "start speed " + num(start) + " km/h is not below the vehicle's maximum speed of " +
-          num(in_.vehicle.max_speed_kmh) + " km/h";
-  else if (!(start < info_.max_speed_kmh))
-    why = "start speed " + num(start) + " km/h is not below the controller's limit of " +
-          num(info_.max_speed_kmh) + " km/h";
-  else if (p.warm_up.speed_kmh > speed_limit_kmh_)
-    why = "warm-up speed " + num(p.warm_up.speed_kmh) + " km/h is above the speed limit of " +
-          num(speed_limit_kmh_) + " km/h";
-  // A reference speed within 14 km/h of the vehicle's maximum is dropped by the standard (domain.md §2, from
-  // memory): here that means the profile does not fit this vehicle.
-  for (double v : p.reference_speeds_kmh)
-    if (why.empty() && v + 14.0 >= in_.vehicle.max_speed_kmh)
-      why = "reference speed " + num(v) +
-            " km/h is within 14 km/h of the vehicle's maximum speed; use a profile without it";
-  const double warm_total =
-      p.warm_up.duration_s + p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
-      p.loss_map.speeds_kmh.size() * (p.loss_map.settle_s + p.loss_map.average_s + 30.0);
-  if (why.empty() && warm_total > in_.cell.max_motoring_s)
-    why = "the warm-up needs up to " + num(warm_total) + " s of motoring, above the cell's limit of " +
-          num(in_.cell.max_motoring_s) + " s";
+  // The rules are the core's (core/combination.hpp), the same ones check_combination applied before
+  // connecting; here the controller's own limit joins them.
+  const std::string why = core::limits_refusal(p, in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh,
+                                               info_.max_speed_kmh, in_.cell.max_motoring_s)
+                              .value_or("");
   if (!why.empty()) {
     emit(ev::Refused{why});
     return Stop{Outcome::refused, why};
@@ -644,74 +625,20 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     stop = do_warm_up(warm, want_map);
   }
   if (!stop && choose_first) {
-    // The first setting.
-    std::string used = core::to_string(opt_.first_setting), why;
-    core::RoadLoad loss;
-    bool have_loss = false;
-    auto fallback = [&](const std::string& reason) {
-      why += (why.empty() ? "" : "; ") + reason;
-      if (opt_.history) {
-        used = "history";
-        loss = opt_.history->loss();
-        have_loss = true;
-      } else if (opt_.fleet && opt_.fleet->ok()) {
-        used = "fleet";
-        loss = opt_.fleet->estimate(in_.vehicle.test_mass_kg, in_.cell.axles);
-        have_loss = true;
-      } else {
-        used = "standard";
-      }
-    };
-    // What the chosen strategy used, recorded beside its result.
-    std::optional<std::string> history_utc;
-    std::optional<core::RoadLoad> map_fit;
-    std::optional<double> map_residual_sd_n;
-    if (in_.vehicle.initial_set) {
-      used = "target-file";
-      set_ = *in_.vehicle.initial_set;
-    } else {
-      switch (opt_.first_setting) {
-        case core::FirstSetting::standard:
-          break;
-        case core::FirstSetting::fleet:
-          if (opt_.fleet && opt_.fleet->ok()) {
-            loss = opt_.fleet->estimate(in_.vehicle.test_mass_kg, in_.cell.axles);
-            have_loss = true;
-          } else {
-            used = "standard";
-            why = "no fleet data";
-          }
-          break;
-        case core::FirstSetting::history:
-          if (opt_.history) {
-            loss = opt_.history->loss();
-            have_loss = true;
-            history_utc = opt_.history->utc;
-          } else {
-            opt_.history.reset();
-            fallback("no earlier session of this vehicle on this cell");
-          }
-          break;
-        case core::FirstSetting::loss_map: {
-          const core::RoadLoadFit fit = core::fit_loss_map(loss_map_);
-          if (fit.ok) {
-            loss = fit.coefficients;
-            have_loss = true;
-            map_fit = fit.coefficients;
-            map_residual_sd_n = fit.residual_sd_n;
-          } else {
-            fallback("no loss map (" + (loss_map_.empty() ? std::string("not measured") : fit.message) + ")");
-          }
-          break;
-        }
-      }
-      set_ = have_loss ? core::setting_for_loss(in_.vehicle.target, loss)
-                       : core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial);
-    }
-    first_setting_ = used;
-    if (!emit(ev::FirstSetting{core::to_string(opt_.first_setting), used, why, set_, history_utc, map_fit,
-                               map_residual_sd_n,
-                               have_loss ? std::optional<core::RoadLoad>(loss) : std::nullopt}))
+    // The first setting: the choice and its fallbacks are the core's (core/strategy.hpp).
+    const core::FirstSettingChoice c = core::choose_first_setting({.requested = opt_.first_setting,
+                                                                   .target = in_.vehicle.target,
+                                                                   .test_mass_kg = in_.vehicle.test_mass_kg,
+                                                                   .layout = in_.cell.axles,
+                                                                   .rule = p.initial,
+                                                                   .target_file_set = in_.vehicle.initial_set,
+                                                                   .fleet = opt_.fleet,
+                                                                   .history = opt_.history,
+                                                                   .loss_map = loss_map_});
+    set_ = c.set;
+    first_setting_ = c.used;
+    if (!emit(ev::FirstSetting{core::to_string(opt_.first_setting), c.used, c.why, set_, c.history_utc,
+                               c.map_fit, c.map_residual_sd_n, c.loss}))
       stop = Stop{Outcome::record_failure, record_error_};
   }
   while (!stop) {

@@ -12,6 +12,7 @@
 #include <algorithm>
 #include <filesystem>
 #include <fstream>
+#include <iterator>
 #include <map>
 #include <set>
 #include <sstream>
@@ -21,6 +22,8 @@
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
 #include "record/event_log.hpp"
+#include "record/session_folder.hpp"
+#include "record/vehicle_history.hpp"
 #include "registry.hpp"
 #include "session/resume.hpp"
 #include "support/fake_controller.hpp"
@@ -469,4 +472,60 @@ TEST(Events, TheDynoChecksShowTheirStepsToObservers) {
   EXPECT_EQ(std::count(logged.begin(), logged.end(), "observer_dropped"), 1);
   EXPECT_TRUE(record::verify_session_folder(r.folder).ok);
   std::filesystem::remove_all(dir);
+}
+
+// The record's result strings read back through one function (session::outcome_from_string), the inverse of
+// to_string(Outcome) as docs/session.md spells the results; anything else is not an outcome.
+TEST(Events, OutcomesReadBackFromTheirRecordedSpelling) {
+  const std::map<std::string, Outcome> spelled = {
+      {"accepted", Outcome::accepted},       {"not-accepted", Outcome::not_accepted},
+      {"refused", Outcome::refused},         {"controller-fault", Outcome::controller_fault},
+      {"interrupted", Outcome::interrupted}, {"record-failure", Outcome::record_failure}};
+  for (const auto& [text, o] : spelled) {
+    EXPECT_EQ(outcome_from_string(text), o) << text;
+    EXPECT_EQ(to_string(o), text);
+    // Final (sealed, not resumable) exactly for the three verdicts (events.hpp).
+    EXPECT_EQ(is_final(text), o == Outcome::accepted || o == Outcome::not_accepted || o == Outcome::refused);
+  }
+  for (const char* other : {"", "not_accepted", "Accepted", "unknown", "finished"}) {
+    EXPECT_FALSE(outcome_from_string(other)) << other;
+    EXPECT_FALSE(is_final(std::string(other))) << other;
+  }
+}
+
+// The vehicle history store (record/vehicle_history.hpp) writes what the session runner wrote before it moved
+// to record/: the members utc, vehicle, session, target, final_set, road loads in the record's spelling
+// (session::to_json), and reads it back.
+TEST(Events, VehicleHistoryFileKeepsItsFormat) {
+  namespace fs = std::filesystem;
+  std::string dir = (fs::temp_directory_path() / "loadtrim-history-XXXXXX").string();
+  ASSERT_NE(::mkdtemp(dir.data()), nullptr);
+  const std::string file = record::vehicle_history_file(dir, "cell (A)", "car/1");
+  EXPECT_EQ(
+      file,
+      (fs::path(dir) / record::identity_name("cell (A)") / (record::safe_name("car/1") + ".json")).string());
+  const core::RoadLoad target{142.0, 0.35, 0.033}, final_set = kSet;
+  std::string err;
+  ASSERT_TRUE(record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err)) << err;
+  std::ifstream in(file);
+  const std::string text((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+  nlohmann::json j = nlohmann::json::parse(text);
+  ASSERT_TRUE(j.contains("utc"));
+  const nlohmann::json as_before = {{"utc", j["utc"]},
+                                    {"vehicle", "car/1"},
+                                    {"session", "/s/folder"},
+                                    {"target", to_json(target)},
+                                    {"final_set", to_json(final_set)}};
+  EXPECT_EQ(text, as_before.dump(2) + "\n");
+  const auto back = record::load_vehicle_history(file);
+  ASSERT_TRUE(back);
+  EXPECT_EQ(back->utc, j["utc"].get<std::string>());
+  EXPECT_TRUE(back->target == target);
+  EXPECT_TRUE(back->final_set == final_set);
+  EXPECT_FALSE(record::load_vehicle_history(dir + "/none.json"));
+  { std::ofstream(file) << R"({"utc": "x", "target": {"f0_n": 1}})"; }
+  err.clear();
+  EXPECT_FALSE(record::load_vehicle_history(file, &err));
+  EXPECT_FALSE(err.empty());
+  fs::remove_all(dir);
 }

@@ -106,7 +106,7 @@ TEST(Strategy, FleetLossModelOfTheEpaExtractMatchesNumpy) {
   // The public EPA extract (samples/data, 3485 rows). Reference computed once with numpy 1.24: csv.DictReader
   // over the file, loss = target_* − set_* (SI columns), rows dropped when the loss at 20 or 130 km/h is
   // outside 0–600 N, drive codes F/R single axle and all others two axle (as `loadtrim run` maps them,
-  // app/session_runner.cpp load_fleet), then np.polyfit(etw_kg, loss_c, 1) per coefficient:
+  // config::fleet_rows), then np.polyfit(etw_kg, loss_c, 1) per coefficient:
   //   single axle, 3069 rows: intercept (56.75632323558945, −0.8340154471639946, 0.005163029750750922)
   //                           slope (0.02758078850964422, 0.0005898962271224815, −2.2878931099171245e−06)
   //   two axle, 360 rows:     intercept (63.539395896150516, 1.1170868809927548, −0.005572899541863091)
@@ -115,13 +115,8 @@ TEST(Strategy, FleetLossModelOfTheEpaExtractMatchesNumpy) {
   const auto f = config::read_epa_csv(std::string(LOADTRIM_SOURCE_DIR) +
                                       "/samples/data/epa_test_car_roadload_MY2016_2019.csv");
   ASSERT_EQ(f.rows.size(), 3485u);
-  std::vector<core::FleetRow> rows;
-  for (const auto& r : f.rows)
-    rows.push_back(
-        {r.etw_kg,
-         r.drive_code == "F" || r.drive_code == "R" ? AxleLayout::single_axle : AxleLayout::two_axle,
-         r.target, r.set});
-  const auto m = core::fit_fleet_loss(rows);
+  // The rows as `loadtrim run`, `target` and `bench` build them (config::fleet_rows).
+  const auto m = core::fit_fleet_loss(config::fleet_rows(f));
   ASSERT_TRUE(m.ok());
   EXPECT_EQ(m.single_axle.rows, 3069);
   EXPECT_EQ(m.two_axle.rows, 360);

@@ -1,0 +1,325 @@
+// Policy in the core (issue 15, item 3): the first-setting choice (core/strategy.hpp), the session's limit
+// rules (core/combination.hpp), the band-time formula (core/trace_analysis.hpp) and the drive-to-axle mapping
+// (core/vehicle.hpp, config/epa_csv.hpp). Each check names its reference outside loadtrim beside it.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <limits>
+#include <string>
+#include <vector>
+
+#include "config/epa_csv.hpp"
+#include "config/loaders.hpp"
+#include "core/combination.hpp"
+#include "core/predict.hpp"
+#include "core/setting.hpp"
+#include "core/strategy.hpp"
+#include "core/trace_analysis.hpp"
+#include "core/vehicle.hpp"
+
+using namespace loadtrim;
+using core::AxleLayout;
+using core::FirstSetting;
+using core::RoadLoad;
+
+namespace {
+
+// The shipped WLTP profile (config/profiles/wltp-iterative.toml): reference speeds 20–130 km/h, run-up margin
+// 12 km/h (start 142 km/h), warm-up 80 km/h for 1200 s, stability rule off, loss map of 5 speeds with 5 s
+// settle and 5 s average; [initial_setting] f0 0.5 (single axle) / 0.1 (two axle), f1 0.2, f2 1.0.
+core::Profile wltp() {
+  return config::load_profile(std::string(LOADTRIM_SOURCE_DIR) + "/config/profiles/wltp-iterative.toml");
+}
+// The invented demo target's curve (samples/targets/demo-hatchback.toml): (142 N, 0.35 N/(km/h), 0.033).
+const RoadLoad kDemo{142.0, 0.35, 0.033};
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+constexpr double kInf = std::numeric_limits<double>::infinity();
+
+void expect_curve(const RoadLoad& got, const RoadLoad& want, double tol = 1e-12) {
+  EXPECT_NEAR(got.f0_n, want.f0_n, tol);
+  EXPECT_NEAR(got.f1_n_per_kmh, want.f1_n_per_kmh, tol);
+  EXPECT_NEAR(got.f2_n_per_kmh2, want.f2_n_per_kmh2, tol);
+}
+
+// A fleet model whose loss is exactly at0 + slope·TM for both layouts (twelve rows on the line, screening
+// bounds respected), as strategy_test builds it.
+core::FleetLossModel exact_fleet(const RoadLoad& at0, const RoadLoad& slope) {
+  std::vector<core::FleetRow> rows;
+  for (AxleLayout l : {AxleLayout::single_axle, AxleLayout::two_axle})
+    for (int i = 0; i < 12; ++i) {
+      const double tm = 1000.0 + 100.0 * i;
+      const RoadLoad loss{at0.f0_n + slope.f0_n * tm, at0.f1_n_per_kmh + slope.f1_n_per_kmh * tm,
+                          at0.f2_n_per_kmh2 + slope.f2_n_per_kmh2 * tm};
+      const RoadLoad target{300.0, 2.0, 0.05};
+      rows.push_back({tm, l, target, target - loss});
+    }
+  return core::fit_fleet_loss(rows);
+}
+
+core::FirstSettingInputs demo_inputs(FirstSetting f) {
+  core::FirstSettingInputs in;
+  in.requested = f;
+  in.target = kDemo;
+  in.test_mass_kg = 1470.0;
+  in.layout = AxleLayout::single_axle;
+  in.rule = wltp().initial;
+  return in;
+}
+
+// History: a target of (150, 0.4, 0.03) accepted at (100, 0.1, 0.03): loss (50, 0.3, 0) by hand.
+core::HistoryEntry a_history() {
+  return {"2026-11-30T10:00:00.000Z", {150.0, 0.4, 0.03}, {100.0, 0.1, 0.03}};
+}
+
+}  // namespace
+
+// ---- the first setting
+// -------------------------------------------------------------------------------------
+
+TEST(FirstSettingChoice, StandardIsTheProfilesRule) {
+  // config/profiles/wltp-iterative.toml [initial_setting] (domain.md §3): Ad = 0.5·At single axle, 0.1·At two
+  // axle, Bd = 0.2·Bt, Cd = 1.0·Ct. On (142, 0.35, 0.033) by hand: (71, 0.07, 0.033) and (14.2, 0.07, 0.033).
+  auto in = demo_inputs(FirstSetting::standard);
+  in.history = a_history();  // present, not asked for: ignored
+  core::FirstSettingChoice c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "standard");
+  EXPECT_EQ(c.why, "");
+  EXPECT_FALSE(c.loss);
+  expect_curve(c.set, {71.0, 0.07, 0.033});
+  in.layout = AxleLayout::two_axle;
+  expect_curve(core::choose_first_setting(in).set, {14.2, 0.07, 0.033});
+}
+
+TEST(FirstSettingChoice, FleetIsTargetMinusTheModelsLoss) {
+  // Loss on the exact line (20 N + 0.05 N/kg·TM, 0.1 + 0.0001·TM, 0): at TM 1470 kg, 93.5 N, 0.247, 0, so the
+  // set is (142 − 93.5, 0.35 − 0.247, 0.033) = (48.5, 0.103, 0.033) by hand.
+  auto in = demo_inputs(FirstSetting::fleet);
+  in.fleet = exact_fleet({20.0, 0.1, 0.0}, {0.05, 0.0001, 0.0});
+  ASSERT_TRUE(in.fleet->ok());
+  const core::FirstSettingChoice c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "fleet");
+  EXPECT_EQ(c.why, "");
+  ASSERT_TRUE(c.loss);
+  expect_curve(*c.loss, {93.5, 0.247, 0.0}, 1e-8);
+  expect_curve(c.set, {48.5, 0.103, 0.033}, 1e-8);
+}
+
+TEST(FirstSettingChoice, FleetWithoutDataIsStandardEvenWithHistory) {
+  auto in = demo_inputs(FirstSetting::fleet);
+  in.history = a_history();
+  const core::FirstSettingChoice c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "standard");
+  EXPECT_EQ(c.why, "no fleet data");
+  expect_curve(c.set, {71.0, 0.07, 0.033});
+}
+
+TEST(FirstSettingChoice, HistoryIsTargetMinusTheEarlierLoss) {
+  // Loss (50, 0.3, 0) (a_history, by hand): set (92, 0.05, 0.033); the entry's time is recorded.
+  auto in = demo_inputs(FirstSetting::history);
+  in.history = a_history();
+  const core::FirstSettingChoice c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "history");
+  ASSERT_TRUE(c.history_utc);
+  EXPECT_EQ(*c.history_utc, "2026-11-30T10:00:00.000Z");
+  expect_curve(c.set, {92.0, 0.05, 0.033});
+}
+
+TEST(FirstSettingChoice, HistoryMissingFallsBackToFleetThenStandard) {
+  auto in = demo_inputs(FirstSetting::history);
+  in.fleet = exact_fleet({20.0, 0.1, 0.0}, {0.05, 0.0001, 0.0});
+  core::FirstSettingChoice c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "fleet");
+  EXPECT_EQ(c.why, "no earlier session of this vehicle on this cell");
+  EXPECT_FALSE(c.history_utc);
+  expect_curve(c.set, {48.5, 0.103, 0.033}, 1e-8);
+  in.fleet.reset();
+  c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "standard");
+  expect_curve(c.set, {71.0, 0.07, 0.033});
+}
+
+TEST(FirstSettingChoice, LossMapIsTheQuadraticThroughTheHoldPoints) {
+  // Three exact points (20, 80), (70, 150), (130, 400): by Lagrange interpolation (exact fractions, as in
+  // strategy_test; np.polyfit gives the same) the loss is (2878/33, −19/22, 83/3300), so the set is
+  // (142 − 2878/33, 0.35 + 19/22, 0.033 − 83/3300).
+  auto in = demo_inputs(FirstSetting::loss_map);
+  in.history = a_history();  // not used: the map is there
+  in.loss_map = {{20, 80, 0.5, 500}, {70, 150, 0.5, 500}, {130, 400, 0.5, 500}};
+  const core::FirstSettingChoice c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "loss-map");
+  ASSERT_TRUE(c.map_fit && c.map_residual_sd_n);
+  expect_curve(*c.map_fit, {2878.0 / 33.0, -19.0 / 22.0, 83.0 / 3300.0}, 1e-9);
+  expect_curve(c.set, {142.0 - 2878.0 / 33.0, 0.35 + 19.0 / 22.0, 0.033 - 83.0 / 3300.0}, 1e-9);
+  EXPECT_FALSE(c.history_utc);
+}
+
+TEST(FirstSettingChoice, LossMapMissingFallsBackToHistoryFirst) {
+  auto in = demo_inputs(FirstSetting::loss_map);
+  in.history = a_history();
+  in.fleet = exact_fleet({20.0, 0.1, 0.0}, {0.05, 0.0001, 0.0});
+  core::FirstSettingChoice c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "history");
+  EXPECT_EQ(c.why, "no loss map (not measured)");
+  expect_curve(c.set, {92.0, 0.05, 0.033});
+  // Recorded behaviour: a fallback to history does not record the entry's time.
+  EXPECT_FALSE(c.history_utc);
+  EXPECT_FALSE(c.map_fit);
+  // One point cannot carry a quadratic: the fit's own message is kept in the reason.
+  in.history.reset();
+  in.loss_map = {{80, 200, 0.5, 500}};
+  c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "fleet");
+  EXPECT_EQ(c.why.rfind("no loss map (", 0), 0u) << c.why;
+  EXPECT_NE(c.why, "no loss map (not measured)");
+}
+
+TEST(FirstSettingChoice, ATargetFilesSetOverridesEveryStrategy) {
+  for (FirstSetting f :
+       {FirstSetting::standard, FirstSetting::fleet, FirstSetting::history, FirstSetting::loss_map}) {
+    auto in = demo_inputs(f);
+    in.target_file_set = RoadLoad{60.0, 0.1, 0.03};
+    in.history = a_history();
+    const core::FirstSettingChoice c = core::choose_first_setting(in);
+    EXPECT_EQ(c.used, "target-file");
+    EXPECT_EQ(c.why, "");
+    EXPECT_FALSE(c.loss);
+    expect_curve(c.set, {60.0, 0.1, 0.03}, 0.0);
+  }
+}
+
+// ---- limits
+// --------------------------------------------------------------------------------------------------
+
+TEST(Limits, TheFourteenKmhRule) {
+  // GTR 15 §2.2 as the profile states it (config/profiles/wltp-iterative.toml, from memory; domain.md §2): a
+  // reference speed v is dropped when v + 14 km/h ≥ the vehicle's maximum speed.
+  EXPECT_TRUE(core::reference_speed_kept(130.0, 144.1));
+  EXPECT_FALSE(core::reference_speed_kept(130.0, 144.0));  // equal: dropped
+  EXPECT_FALSE(core::reference_speed_kept(130.0, 140.0));
+  EXPECT_TRUE(core::reference_speed_kept(120.0, 144.0));
+  EXPECT_FALSE(core::reference_speed_kept(kNaN, 200.0));
+  EXPECT_FALSE(core::reference_speed_kept(20.0, kNaN));
+}
+
+TEST(Limits, StartAndWarmUpSpeeds) {
+  // Start 130 + 12 = 142 km/h (the profile's top reference speed and run-up margin, GTR 15 §4.3.2.4.1).
+  const core::Profile p = wltp();
+  EXPECT_TRUE(core::start_speed_below(p, 142.5));
+  EXPECT_FALSE(core::start_speed_below(p, 142.0));
+  EXPECT_FALSE(core::start_speed_below(p, kNaN));
+  EXPECT_TRUE(core::warm_up_speed_within(p, 80.0));  // warm-up 80 km/h: reaching the limit is allowed
+  EXPECT_FALSE(core::warm_up_speed_within(p, 79.9));
+  EXPECT_DOUBLE_EQ(core::session_speed_limit_kmh(160.0, 185.0, 150.0), 150.0);
+}
+
+TEST(Limits, MotoringTimeOfTheWarmUp) {
+  // By hand from the profile file: 1200 s + 5 loss-map speeds × (5 s + 5 s + 30 s ramp) = 1400 s.
+  const core::Profile p = wltp();
+  EXPECT_DOUBLE_EQ(core::planned_motoring_s(p), 1400.0);
+  EXPECT_TRUE(core::motoring_within(p, 1400.0));
+  EXPECT_FALSE(core::motoring_within(p, 1399.0));
+  EXPECT_FALSE(core::motoring_within(p, kNaN));
+}
+
+TEST(Limits, TheSessionsRefusalNamesTheFirstRuleBroken) {
+  const core::Profile p = wltp();
+  // Demo cell 160 km/h, demo vehicle 185 km/h, a controller good for 250 km/h, 5400 s of motoring: nothing.
+  EXPECT_FALSE(core::limits_refusal(p, 160.0, 185.0, 250.0, 5400.0));
+  EXPECT_EQ(core::limits_refusal(p, 142.0, 185.0, 250.0, 5400.0).value_or(""),
+            "start speed 142 km/h (top reference speed + run-up margin) is not below the cell's limit of 142 "
+            "km/h");
+  EXPECT_EQ(core::limits_refusal(p, 160.0, 140.0, 250.0, 5400.0).value_or(""),
+            "start speed 142 km/h is not below the vehicle's maximum speed of 140 km/h");
+  EXPECT_EQ(core::limits_refusal(p, 160.0, 185.0, 141.0, 5400.0).value_or(""),
+            "start speed 142 km/h is not below the controller's limit of 141 km/h");
+  // 143 km/h: the start speed fits, the 130 km/h point does not (130 + 14 = 144 ≥ 143).
+  EXPECT_EQ(
+      core::limits_refusal(p, 160.0, 143.0, 250.0, 5400.0).value_or(""),
+      "reference speed 130 km/h is within 14 km/h of the vehicle's maximum speed; use a profile without it");
+  EXPECT_EQ(core::limits_refusal(p, 160.0, 185.0, 250.0, 1399.0).value_or(""),
+            "the warm-up needs up to 1400 s of motoring, above the cell's limit of 1399 s");
+  core::Profile hot = p;
+  hot.warm_up.speed_kmh = 155.0;  // above the controller's 150 km/h
+  EXPECT_EQ(core::limits_refusal(hot, 160.0, 185.0, 150.0, 5400.0).value_or(""),
+            "warm-up speed 155 km/h is above the speed limit of 150 km/h");
+}
+
+TEST(Limits, TheSessionAndTheCombinationCheckAgree) {
+  // The same rules before connecting (check_combination) and after (limits_refusal, with a controller that
+  // adds no limit): over a grid of cell and vehicle speeds and motoring limits, both refuse or both accept.
+  const core::Profile p = wltp();
+  core::VehicleTarget v;
+  v.test_mass_kg = 1470.0;
+  v.mass_in_running_order_kg = 1380.0;
+  v.target = kDemo;
+  core::CellFacts cell;
+  cell.max_force_n = 8000.0;
+  int refused = 0, accepted = 0;
+  for (double cell_kmh : {80.0, 142.0, 150.0, 200.0})
+    for (double veh_kmh : {79.0, 142.0, 143.0, 144.0, 144.5, 200.0})
+      for (double motoring_s : {1399.0, 1400.0}) {
+        cell.max_speed_kmh = cell_kmh;
+        cell.max_motoring_s = motoring_s;
+        v.max_speed_kmh = veh_kmh;
+        const bool combination_refuses = core::check_combination(v, p, cell).any_error();
+        const bool session_refuses = core::limits_refusal(p, cell_kmh, veh_kmh, kInf, motoring_s).has_value();
+        EXPECT_EQ(combination_refuses, session_refuses) << cell_kmh << " " << veh_kmh << " " << motoring_s;
+        (session_refuses ? refused : accepted)++;
+      }
+  // Both kinds occur (cell 150 or 200 with vehicle 144.5 or 200 and 1400 s: 4 accepted).
+  EXPECT_EQ(accepted, 4);
+  EXPECT_EQ(refused, 44);
+}
+
+// ---- band time
+// ----------------------------------------------------------------------------------------------
+
+TEST(BandTime, ConstantLoadIsTheExactCoastTime) {
+  // Under a constant force F the deceleration is F/m (Newton), so the time through the band 2·Δv is
+  // m·2Δv/F exactly; core::coastdown_time_s (closed-form integral) must agree. By hand: m 1500 kg, Δv 5 km/h,
+  // F 300 N: 1500·10/(3.6·300) = 125/9 s.
+  EXPECT_NEAR(core::band_time_s(1500.0, 5.0, 300.0), 125.0 / 9.0, 1e-12);
+  const auto exact = core::coastdown_time_s({300.0, 0.0, 0.0}, 1500.0, 85.0, 75.0);
+  ASSERT_TRUE(exact);
+  EXPECT_NEAR(core::band_time_s(1500.0, 5.0, 300.0), *exact, 1e-9);
+  // The inverse of the standard's formula (band_force_n): F → Δt → F.
+  EXPECT_NEAR(core::band_force_n(1500.0, 5.0, core::band_time_s(1500.0, 5.0, 300.0)), 300.0, 1e-10);
+}
+
+TEST(BandTime, QuadraticLoadAgainstAnIndependentIntegral) {
+  // With curvature the formula's time (the force at the band centre) is not the coast time. Demo target at
+  // 80 km/h (±5 km/h), mass 1497.9 kg. Reference computed with Python (composite Simpson rule, 10^5
+  // intervals, of m/(3.6·F(v)) from 75 to 85 km/h): exact 10.927057009443539 s; the formula by hand
+  // 1497.9·10/(3.6·381.2) = 10.91509268975166 s (0.11 % short).
+  const double m = 1497.9;
+  EXPECT_NEAR(core::band_time_s(m, 5.0, kDemo.force_n(80.0)), 10.91509268975166, 1e-12);
+  const auto exact = core::coastdown_time_s(kDemo, m, 85.0, 75.0);
+  ASSERT_TRUE(exact);
+  EXPECT_NEAR(*exact, 10.927057009443539, 1e-9);
+}
+
+// ---- drive and axle layout
+// ----------------------------------------------------------------------------------
+
+TEST(AxleLayout, AllWheelDriveNeedsTwoAxles) {
+  EXPECT_EQ(core::axle_layout_for(core::Drive::front), AxleLayout::single_axle);
+  EXPECT_EQ(core::axle_layout_for(core::Drive::rear), AxleLayout::single_axle);
+  EXPECT_EQ(core::axle_layout_for(core::Drive::all), AxleLayout::two_axle);
+}
+
+TEST(AxleLayout, EpaDriveCodesOfTheExtract) {
+  // samples/data/epa_test_car_roadload_MY2016_2019.csv, counted with Python's csv module
+  // (collections.Counter(row['drive_system_code'])): F 1617, R 1493, A 270, 4 96, P 9 of 3485 rows. F and R
+  // are one driven axle, A, 4 and P all wheels: 3110 single-axle, 375 two-axle.
+  const config::EpaFile f = config::read_epa_csv(std::string(LOADTRIM_SOURCE_DIR) +
+                                                 "/samples/data/epa_test_car_roadload_MY2016_2019.csv");
+  ASSERT_EQ(f.rows.size(), 3485u);
+  int single = 0, two = 0;
+  for (const auto& r : f.rows) {
+    const AxleLayout l = core::axle_layout_for(config::drive_of(r));
+    (l == AxleLayout::single_axle ? single : two)++;
+    EXPECT_EQ(config::drive_of(r), config::target_from_epa(r, "wltp-iterative").drive);
+  }
+  EXPECT_EQ(single, 3110);
+  EXPECT_EQ(two, 375);
+}
