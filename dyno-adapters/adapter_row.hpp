@@ -8,9 +8,11 @@
 #include <memory>
 #include <string>
 #include <string_view>
+#include <variant>
 
 #include "controller/cell.hpp"
 #include "controller/controller.hpp"
+#include "link.hpp"
 
 namespace loadtrim::config {
 class TomlReader;
@@ -39,6 +41,19 @@ struct Row {
   // and ignores the others, as the command line always has.
   void (*override_link)(std::any& settings, const LinkOverrides& o);
 };
+
+// The row functions of an adapter whose Settings hold `link`, a std::variant<TcpAddress, SerialLine>
+// (link.hpp): the lock key of whichever link it is, and --port / --device applied to the one that takes it.
+template <class Settings>
+std::string variant_link_key(const std::any& s) {
+  return std::visit([](const auto& link) { return link_key(link); }, std::any_cast<const Settings&>(s).link);
+}
+template <class Settings>
+void override_variant_link(std::any& s, const LinkOverrides& o) {
+  auto& link = std::any_cast<Settings&>(s).link;
+  if (auto* tcp = std::get_if<TcpAddress>(&link); tcp && o.port > 0) tcp->port = o.port;
+  if (auto* serial = std::get_if<SerialLine>(&link); serial && !o.device.empty()) serial->device = o.device;
+}
 
 // The interface's limits from the cell's own facts, the same for every adapter that reaches a real dyno.
 inline controller::Limits cell_limits(const controller::CellConfig& cell) {

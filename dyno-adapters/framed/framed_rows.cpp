@@ -11,18 +11,6 @@ std::unique_ptr<controller::Controller> make(const controller::CellConfig& cell)
   return std::make_unique<FramedController>(cell);
 }
 
-std::string key(const std::any& s) {
-  return std::visit([](const auto& link) { return adapters::link_key(link); },
-                    std::any_cast<const Settings&>(s).link);
-}
-
-void override_link(std::any& s, const adapters::LinkOverrides& o) {
-  auto& link = std::any_cast<Settings&>(s).link;
-  if (auto* tcp = std::get_if<adapters::TcpAddress>(&link); tcp && o.port > 0) tcp->port = o.port;
-  if (auto* serial = std::get_if<adapters::SerialLine>(&link); serial && !o.device.empty())
-    serial->device = o.device;
-}
-
 }  // namespace
 
 adapters::Row tcp_row() {
@@ -33,7 +21,7 @@ adapters::Row tcp_row() {
             s.table = read_table(r);
             return s;
           },
-          make, key, override_link};
+          make, adapters::variant_link_key<Settings>, adapters::override_variant_link<Settings>};
 }
 
 adapters::Row serial_row() {
@@ -44,7 +32,7 @@ adapters::Row serial_row() {
             s.table = read_table(r);
             return s;
           },
-          make, key, override_link};
+          make, adapters::variant_link_key<Settings>, adapters::override_variant_link<Settings>};
 }
 
 }  // namespace loadtrim::framed

@@ -12,18 +12,6 @@ std::unique_ptr<controller::Controller> make(const controller::CellConfig& cell)
   return std::make_unique<ModbusController>(cell);
 }
 
-std::string key(const std::any& s) {
-  return std::visit([](const auto& link) { return adapters::link_key(link); },
-                    std::any_cast<const Settings&>(s).link);
-}
-
-void override_link(std::any& s, const adapters::LinkOverrides& o) {
-  auto& link = std::any_cast<Settings&>(s).link;
-  if (auto* tcp = std::get_if<adapters::TcpAddress>(&link); tcp && o.port > 0) tcp->port = o.port;
-  if (auto* serial = std::get_if<adapters::SerialLine>(&link); serial && !o.device.empty())
-    serial->device = o.device;
-}
-
 }  // namespace
 
 adapters::Row tcp_row() {
@@ -34,7 +22,7 @@ adapters::Row tcp_row() {
             s.map = read_register_map(r);
             return s;
           },
-          make, key, override_link};
+          make, adapters::variant_link_key<Settings>, adapters::override_variant_link<Settings>};
 }
 
 adapters::Row rtu_row() {
@@ -45,7 +33,7 @@ adapters::Row rtu_row() {
             s.map = read_register_map(r);
             return s;
           },
-          make, key, override_link};
+          make, adapters::variant_link_key<Settings>, adapters::override_variant_link<Settings>};
 }
 
 }  // namespace loadtrim::modbus
