@@ -82,7 +82,8 @@ TEST(ModbusMap, ShippedMapNamesTheChecksEntries) {
 // The force setpoint as the shipped map encodes it: int16, 1 count = 0.5 N. Check values from the definition
 // of 16-bit two's complement: -200 counts = 0xFF38, the range -32768..32767 counts = -16384..16383.5 N.
 TEST(ModbusMap, ForceSetpointEncodingUsesTheScaleAndNeverClamps) {
-  const Register& f = map_of(shipped())[Q::force_setpoint];
+  const RegisterMap m = map_of(shipped());  // the map outlives the reference into it
+  const Register& f = m[Q::force_setpoint];
   std::uint16_t w[2] = {0, 0};
   ASSERT_TRUE(encode(f, 559.0, w));
   EXPECT_EQ(w[0], 1118);
