@@ -149,7 +149,7 @@ int run_target(const TargetOptions& o) {
   nlohmann::json initial = nlohmann::json::array();
   initial.push_back({{"strategy", "standard"},
                      {"set", coef(choice(core::FirstSetting::standard).set)},
-                     {"note", "the standard's initial setting (domain.md §3, from memory)"}});
+                     {"note", "the standard's initial setting (docs/standards.md §3, from memory)"}});
   if (const auto c = choice(core::FirstSetting::fleet); chosen(c, core::FirstSetting::fleet))
     initial.push_back(
         {{"strategy", "fleet"},
@@ -177,12 +177,12 @@ int run_target(const TargetOptions& o) {
                         {"speed_mph", core::units::kmh_to_mph(s)},
                         {"force_n", v.target.force_n(s)},
                         {"force_lbf", core::units::n_to_lbf(v.target.force_n(s))}};
-    // The band time the standard's formula turns back into F_tj (F = (1/3.6)·(TM + m_r)·2Δv/Δt, domain.md
-    // §2), and the exact coast time through the band under the target (closed form, domain.md §6.4).
+    // The band time the standard's formula turns back into F_tj (F = (1/3.6)·(TM + m_r)·2Δv/Δt, docs/standards.md
+    // §2), and the exact coast time through the band under the target (closed form, docs/standards.md §6.4).
     r["band_time_s"] = core::band_time_s(force_mass, profile.band_half_width_kmh, v.target.force_n(s));
     if (times[j]) r["band_time_exact_s"] = *times[j];
     if (!core::reference_speed_kept(s, v.max_speed_kmh))
-      r["note"] = "v + 14 km/h reaches the vehicle's maximum speed: dropped by the standard (domain.md §2)";
+      r["note"] = "v + 14 km/h reaches the vehicle's maximum speed: dropped by the standard (docs/standards.md §2)";
     rows.push_back(r);
   }
   nlohmann::json warnings = nlohmann::json::array();

@@ -42,7 +42,7 @@ double planned_motoring_s(const Profile& p);
 bool start_speed_below(const Profile& p, double limit_kmh);
 // The warm-up speed may reach a speed limit but not exceed it.
 bool warm_up_speed_within(const Profile& p, double limit_kmh);
-// GTR 15 §2.2 (from memory; domain.md §2): a reference speed v with v + 14 km/h ≥ the vehicle's maximum speed
+// GTR 15 §2.2 (from memory; docs/standards.md §2): a reference speed v with v + 14 km/h ≥ the vehicle's maximum speed
 // is dropped by the standard. A fixed profile cannot drop it, so true means the point may stay.
 inline constexpr double kReferenceSpeedMarginKmh = 14.0;
 bool reference_speed_kept(double reference_kmh, double vehicle_max_speed_kmh);

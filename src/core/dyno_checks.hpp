@@ -1,4 +1,4 @@
-// The dyno's own checks, with no vehicle on the rollers (domain.md §4), as pure computations on traces and
+// The dyno's own checks, with no vehicle on the rollers (docs/standards.md §4), as pure computations on traces and
 // records: the parasitic loss curve from a coast of the empty rollers with simulation off, the unloaded
 // coast-down in the shape of 40 CFR 1066.270, the base inertia in the shape of 40 CFR 1066.250, and which
 // check is due per the intervals of 40 CFR 1066.215. No I/O, no clocks: times come in as numbers.
@@ -16,13 +16,13 @@
 namespace loadtrim::core {
 
 // --- 1066.250: base inertia -------------------------------------------------------------------------------
-// I = F̄·Δt/Δv (domain.md §4, the formula from memory), SI: N, s, m/s → kg.
+// I = F̄·Δt/Δv (docs/standards.md §4, the formula from memory), SI: N, s, m/s → kg.
 double inertia_from_constant_force_kg(double mean_force_n, double delta_t_s, double delta_v_mps);
 
 struct InertiaCheckOptions {
   double v_low_mph = 10.0;  // CFR 1066.250 [text]: time from 10 to 40 mph
   double v_high_mph = 40.0;
-  double tolerance_fraction = 0.01;  // the numeric limit is not in domain.md: configurable, default no source
+  double tolerance_fraction = 0.01;  // the numeric limit is not in docs/standards.md: configurable, default no source
 };
 
 // An accelerating trace (speed rising) with the load-cell force: crossing times at the two speeds (local
@@ -44,7 +44,7 @@ struct UnloadedCoastdownOptions {
   double v_start_mph = 80.0;  // CFR 1066.270 [text]: 80 → 10 mph in 10 mph intervals
   double v_end_mph = 10.0;
   double interval_mph = 10.0;
-  double tolerance_n = 9.8;  // not in domain.md: configurable. Default = the 1066.210 force resolution floor
+  double tolerance_n = 9.8;  // not in docs/standards.md: configurable. Default = the 1066.210 force resolution floor
                              // (±9.8 N), used here as an assumption, not as the standard's limit.
   double tolerance_fraction = 0.02;  // and the larger of this share of the expected force (no source)
 };
@@ -53,7 +53,7 @@ struct IntervalResult {
   double v_high_mph = 0.0, v_low_mph = 0.0;
   double delta_t_s = 0.0, expected_delta_t_s = 0.0;
   double mean_force_n = 0.0;      // I·Δv/Δt from the measured time
-  double expected_force_n = 0.0;  // I·Δv/Δt from the closed-form time under the setting (domain.md §6.4)
+  double expected_force_n = 0.0;  // I·Δv/Δt from the closed-form time under the setting (docs/standards.md §6.4)
   double deviation_n = 0.0, limit_n = 0.0;
   bool passed = false;
   std::string reason;  // when not measured
@@ -114,7 +114,7 @@ struct DuePolicy {
   double coastdown_interval_s = 7 * 86400.0;  // CFR 1066.215 [text]: unloaded coast-down within every 7 days
   double readiness_interval_s = 1 * 86400.0;  // CFR 1066.215 [text]: daily readiness check within 1 day
   double inertia_interval_s = 0.0;    // 0: at installation, after maintenance and after a failed check only
-                                      // (the interval is not in domain.md)
+                                      // (the interval is not in docs/standards.md)
   double parasitic_interval_s = 0.0;  // CFR 1066.215 [text]: at installation, after major maintenance and
                                       // after a failed check
 };

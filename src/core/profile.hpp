@@ -27,7 +27,7 @@ struct MassRule {
   double single_axle_inertia_share = 0.5;
 };
 
-// Initial dyno setting when the lab has nothing better (domain.md §3, from memory, low confidence):
+// Initial dyno setting when the lab has nothing better (docs/standards.md §3, from memory, low confidence):
 // Ad = 0.5·At (0.1·At on a two-axle dyno), Bd = 0.2·Bt, Cd = Ct.
 struct InitialSettingRule {
   double f0_factor_single_axle = 0.5;
@@ -36,7 +36,7 @@ struct InitialSettingRule {
   double f2_factor = 1.0;
 };
 
-// Vehicle warm-up on the dyno before the first coast-down (domain.md §3: the dyno-side wording was not found;
+// Vehicle warm-up on the dyno before the first coast-down (docs/standards.md §3: the dyno-side wording was not found;
 // the road rule is 90 % of the cycle's maximum speed for at least 20 min — used here as the default, common
 // practice).
 struct WarmUp {
@@ -78,7 +78,7 @@ struct Profile {
 
   double top_speed_kmh() const;
   double bottom_speed_kmh() const;
-  // Release into the coast from here: top reference speed + run-up margin (domain.md §3: 10–15 km/h on the
+  // Release into the coast from here: top reference speed + run-up margin (docs/standards.md §3: 10–15 km/h on the
   // road).
   double start_speed_kmh() const { return top_speed_kmh() + run_up_margin_kmh; }
   // Record until the speed is below this: lowest band edge less a margin for the crossing fit.

@@ -34,10 +34,10 @@ ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated
 // §8.1.4: F*_dj = F_dj − (F_sj − F_tj), i.e. A*d = Ad + At − As, B*d = Bd + Bt − Bs, C*d = Cd + Ct − Cs.
 RoadLoad adjusted_setting(const RoadLoad& target, const RoadLoad& set, const RoadLoad& simulated);
 
-// The standard's default initial setting (domain.md §3, from memory): Ad = k0·At, Bd = k1·Bt, Cd = k2·Ct.
+// The standard's default initial setting (docs/standards.md §3, from memory): Ad = k0·At, Bd = k1·Bt, Cd = k2·Ct.
 RoadLoad standard_initial_setting(const RoadLoad& target, AxleLayout layout, const InitialSettingRule& rule);
 
-// Fixed-run final setting (domain.md §3, form from memory): A = At − (1/n)·Σ(A_sn − A_dn) over the runs after
+// Fixed-run final setting (docs/standards.md §3, form from memory): A = At − (1/n)·Σ(A_sn − A_dn) over the runs after
 // the stabilisation run; B and C likewise.
 struct RunCoefficients {
   RoadLoad set;

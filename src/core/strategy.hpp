@@ -1,5 +1,5 @@
 // First-setting strategies. The standard fixes how acceptance is judged and each adjustment made, but leaves
-// the first setting to the lab ("or empirical values from a similar vehicle", domain.md §3). All four give
+// the first setting to the lab ("or empirical values from a similar vehicle", docs/standards.md §3). All four give
 // the dyno setting as target minus an estimate of the vehicle's loss on the rollers, except the standard's
 // default. Pure: the data (EPA rows, hold readings, history) is passed in.
 #pragma once

@@ -40,7 +40,7 @@ struct VehicleTarget {
 double resolved_rotating_mass_kg(const VehicleTarget& v, const MassRule& rule);
 
 // Plausibility, every problem at once. F0 / (TM·g) outside 0.004–0.03 (common practice, no source) is a
-// warning naming the likely unit mistake; negative F2 is an error (domain.md §1: the aerodynamic term is
+// warning naming the likely unit mistake; negative F2 is an error (docs/standards.md §1: the aerodynamic term is
 // positive).
 Problems plausibility(const VehicleTarget& v);
 

@@ -10,7 +10,7 @@
 //   P_res(v)  dyno parasitic loss left after the controller's compensation: ε_P × P(v)
 //   speed hold: the dyno drives the rollers to the set speed; the load cell reads L + P_res + bias + inertial
 //   force
-// The curvature factor form is from memory (domain.md §5); the rest is a plain lumped-mass model.
+// The curvature factor form is from memory (docs/standards.md §5); the rest is a plain lumped-mass model.
 #pragma once
 
 #include <cstdint>
@@ -65,7 +65,7 @@ struct Truth {
   std::uint64_t noise_seed = 1;
 };
 
-// √(1 + r_tyre / R_roller), from memory (domain.md §5).
+// √(1 + r_tyre / R_roller), from memory (docs/standards.md §5).
 double roller_curvature_factor(double tyre_radius_m, double roller_radius_m);
 
 // idle: motor off; at speed the rollers coast freely on their own inertia and losses (no simulation, no

@@ -1,6 +1,6 @@
 // Randomised but realistic truths for simulated vehicles, scaled to the public US EPA Test Car List: there
 // the target minus set load at 20 km/h has a median of about 115 N (p95 about 250 N) and at 130 km/h about
-// 160 N (p95 about 350 N) (samples/data/README.md; domain.md §5). Pure: the generator is passed in.
+// 160 N (p95 about 350 N) (samples/data/README.md; docs/standards.md §5). Pure: the generator is passed in.
 #pragma once
 
 #include <random>

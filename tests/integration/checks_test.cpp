@@ -1,7 +1,7 @@
 // The dyno's own checks end to end: `loadtrim check ...` against the simulated controller with empty rollers
 // (loadtrim-sim --empty-rollers), on a healthy dyno and on dynos with planted faults (parasitic loss 20 %
 // high, base inertia 3 % off), the due-date view, and a session refused while checks are due unless the
-// operator overrides it (the override logged). Target preparation (`loadtrim target`) against domain.md §6.2
+// operator overrides it (the override logged). Target preparation (`loadtrim target`) against docs/standards.md §6.2
 // and the NIST factors.
 #include <gtest/gtest.h>
 
@@ -209,7 +209,7 @@ TEST(DynoChecksCli, PlantedBaseInertiaErrorFailsTheInertiaCheck) {
   if (!HasFailure()) fs::remove_all(dir);
 }
 
-// domain.md §6.2 [computed]: TM 1500 kg, mass in running order 1400 kg → m_r 42.75 kg; target (100, 0.5,
+// docs/standards.md §6.2 [computed]: TM 1500 kg, mass in running order 1400 kg → m_r 42.75 kg; target (100, 0.5,
 // 0.03); the table of (v_j, F_tj, Δt_j).
 TEST(TargetCli, MatchesDomainTableSixTwo) {
   const Ran r = tool({"target", "--metric", "100", "0.5", "0.03", "--id", "SIX-TWO", "--test-mass-kg", "1500",
@@ -227,7 +227,7 @@ TEST(TargetCli, MatchesDomainTableSixTwo) {
     EXPECT_NEAR(row["band_time_s"].get<double>(), table[j][2], 0.0005)
         << table[j][0];  // the table's 3 decimals
     // The exact coast time through the band (closed form) is close to the formula's: the formula uses the
-    // force at the band's middle, the coast integrates it (domain.md §6.1 shows the same effect, about 0.6
+    // force at the band's middle, the coast integrates it (docs/standards.md §6.1 shows the same effect, about 0.6
     // %).
     EXPECT_NEAR(row["band_time_exact_s"].get<double>() / table[j][2], 1.0, 0.003) << table[j][0];
   }

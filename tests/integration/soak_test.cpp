@@ -163,7 +163,7 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
     EXPECT_EQ(row.lines_lost, 0u) << "session " << k;
     EXPECT_EQ(row.rejected, 0u) << "session " << k;
     // A 1 kHz stream over several coast-downs: well over 100k samples per session (at least 2 coast-downs
-    // from 142 km/h, each tens of seconds of controller time, domain.md §6.2 times).
+    // from 142 km/h, each tens of seconds of controller time, docs/standards.md §6.2 times).
     EXPECT_GT(row.received, 100000u) << "session " << k;
     EXPECT_EQ(row.tool_fds, rows.front().tool_fds) << "tool file descriptors after session " << k;
     EXPECT_EQ(row.sim_fds, rows.front().sim_fds) << "simulator file descriptors after session " << k;

@@ -1,6 +1,6 @@
 // The dyno's own checks (src/core/dyno_checks): the base inertia formula and the 1066.250 speeds against hand
 // computations, the 1066.270 intervals and the parasitic curve on traces from the closed-form coast-down
-// (domain.md §6.4), the 1066.215 due-date logic at its boundaries, and the check profile loader.
+// (docs/standards.md §6.4), the 1066.215 due-date logic at its boundaries, and the check profile loader.
 #include "core/dyno_checks.hpp"
 
 #include <gtest/gtest.h>
@@ -18,7 +18,7 @@ using namespace loadtrim::core;
 
 namespace {
 // Closed-form coast under F = A + C·v² (SI) for a mass m: v(t) = √(A/C)·tan(atan(v0·√(C/A)) − t·√(A·C)/m)
-// (domain.md §6.4, the textbook integral solved for v). Sampled at rate_hz until v_end; speeds in km/h.
+// (docs/standards.md §6.4, the textbook integral solved for v). Sampled at rate_hz until v_end; speeds in km/h.
 void closed_form_coast(double m, double a_n, double c_n_per_mps2, double v0_kmh, double v_end_kmh,
                        double rate_hz, std::vector<double>& t, std::vector<double>& v) {
   const double k = std::sqrt(c_n_per_mps2 / a_n), w = std::sqrt(a_n * c_n_per_mps2) / m;
@@ -48,7 +48,7 @@ TEST(DynoChecks, InertiaFormulaAgainstAHandComputation) {
   EXPECT_DOUBLE_EQ(inertia_from_constant_force_kg(400.0, 25.0, 10.0), 1000.0);
 }
 
-// CFR 1066.250 [text, domain.md §4]: time from 10 to 40 mph. In km/h by the NIST factor 1.609344 (exact):
+// CFR 1066.250 [text, docs/standards.md §4]: time from 10 to 40 mph. In km/h by the NIST factor 1.609344 (exact):
 // 16.09344 and 64.37376 km/h.
 TEST(DynoChecks, TheInertiaCheckTimesTenToFortyMph) {
   const InertiaCheckOptions o;
@@ -131,7 +131,7 @@ TEST(DynoChecks, ParasiticCurveFromAFreeCoastAndTheStoredComparison) {
   EXPECT_NE(high.verdict.find("lose more"), std::string::npos) << high.verdict;
 }
 
-// CFR 1066.215 [text, domain.md §4]: the unloaded coast-down within every 7 days, the readiness check within
+// CFR 1066.215 [text, docs/standards.md §4]: the unloaded coast-down within every 7 days, the readiness check within
 // 1 day; the parasitic determination after a failed check. "Within 7 days" read as: current while now − last
 // ≤ 7 d.
 TEST(DynoChecks, DueDatesAtTheirBoundaries) {

@@ -23,8 +23,8 @@ using namespace loadtrim;
 
 namespace {
 const std::vector<double> kSpeeds = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
-const core::RoadLoad kTarget{100, 0.5, 0.03};  // domain.md §6.2
-constexpr double kMass = 1542.75;              // TM 1500 + m_r 42.75 kg (domain.md §6.2)
+const core::RoadLoad kTarget{100, 0.5, 0.03};  // docs/standards.md §6.2
+constexpr double kMass = 1542.75;              // TM 1500 + m_r 42.75 kg (docs/standards.md §6.2)
 
 core::Profile profile() {
   core::Profile p;

@@ -31,7 +31,7 @@ physics::Truth bare_truth() {
 }  // namespace
 
 TEST(Physics, Rk4MatchesTheClosedFormCoastdown) {
-  // domain.md §6.4 (textbook integral, completed square): relative speed error below 1e-6 from 130 to 15
+  // docs/standards.md §6.4 (textbook integral, completed square): relative speed error below 1e-6 from 130 to 15
   // km/h.
   for (const core::RoadLoad load :
        {core::RoadLoad{100, 0.0, 0.03}, core::RoadLoad{100, 0.5, 0.03}, core::RoadLoad{180, -0.9, 0.045}}) {
@@ -58,7 +58,7 @@ TEST(Physics, Rk4MatchesTheClosedFormCoastdown) {
 }
 
 TEST(Physics, RollerCurvatureFactor) {
-  // domain.md §5: √(1 + r/R) (form from memory); ratios 1.414 for equal diameters and 2.0 for a tyre three
+  // docs/standards.md §5: √(1 + r/R) (form from memory); ratios 1.414 for equal diameters and 2.0 for a tyre three
   // times the roller diameter [text, secondary]; 0.32 m tyre on a 48-inch roller (R = 0.6096 m): 1.2349
   // [computed].
   EXPECT_NEAR(physics::roller_curvature_factor(0.5, 0.5), 1.414, 5e-4);

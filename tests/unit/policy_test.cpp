@@ -77,7 +77,7 @@ core::HistoryEntry a_history() {
 // -------------------------------------------------------------------------------------
 
 TEST(FirstSettingChoice, StandardIsTheProfilesRule) {
-  // config/profiles/wltp-iterative.toml [initial_setting] (domain.md §3): Ad = 0.5·At single axle, 0.1·At two
+  // config/profiles/wltp-iterative.toml [initial_setting] (docs/standards.md §3): Ad = 0.5·At single axle, 0.1·At two
   // axle, Bd = 0.2·Bt, Cd = 1.0·Ct. On (142, 0.35, 0.033) by hand: (71, 0.07, 0.033) and (14.2, 0.07, 0.033).
   auto in = demo_inputs(FirstSetting::standard);
   in.history = a_history();  // present, not asked for: ignored
@@ -191,7 +191,7 @@ TEST(FirstSettingChoice, ATargetFilesSetOverridesEveryStrategy) {
 // --------------------------------------------------------------------------------------------------
 
 TEST(Limits, TheFourteenKmhRule) {
-  // GTR 15 §2.2 as the profile states it (config/profiles/wltp-iterative.toml, from memory; domain.md §2): a
+  // GTR 15 §2.2 as the profile states it (config/profiles/wltp-iterative.toml, from memory; docs/standards.md §2): a
   // reference speed v is dropped when v + 14 km/h ≥ the vehicle's maximum speed.
   EXPECT_TRUE(core::reference_speed_kept(130.0, 144.1));
   EXPECT_FALSE(core::reference_speed_kept(130.0, 144.0));  // equal: dropped

@@ -37,7 +37,7 @@ TEST(Regression, NistStrdWampler1Degree5) {
 }
 
 TEST(Regression, WltpExampleTableRegressesBack) {
-  // domain.md §6.2 [computed from GTR 15 §8.1.3.2]: the forces from the table's Δt_j (3 decimals) regress
+  // docs/standards.md §6.2 [computed from GTR 15 §8.1.3.2]: the forces from the table's Δt_j (3 decimals) regress
   // back to (100, 0.5, 0.03). Δt rounded to 0.0005 s moves a force by at most F·0.0005/Δt ≤ 0.053 N, hence
   // the bounds.
   const double speeds[] = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};

@@ -24,7 +24,7 @@ void expect_eq(const RoadLoad& a, const RoadLoad& b, double tol = 1e-12) {
 }  // namespace
 
 TEST(Setting, AdjustmentExample) {
-  // domain.md §6.3 [computed from GTR 15 §8.1.4]: target (100, 0.5, 0.03), set (50, 0.2, 0.028),
+  // docs/standards.md §6.3 [computed from GTR 15 §8.1.4]: target (100, 0.5, 0.03), set (50, 0.2, 0.028),
   // simulated (110, 0.6, 0.029) → new set (40, 0.1, 0.029).
   expect_eq(adjusted_setting({100, 0.5, 0.03}, {50, 0.2, 0.028}, {110, 0.6, 0.029}), {40, 0.1, 0.029});
 }
@@ -46,14 +46,14 @@ TEST(Setting, ToleranceAtTheBoundary) {
 }
 
 TEST(Setting, StandardInitialSetting) {
-  // domain.md §3 (from memory): Ad = 0.5·At (0.1·At two-axle), Bd = 0.2·Bt, Cd = Ct.
+  // docs/standards.md §3 (from memory): Ad = 0.5·At (0.1·At two-axle), Bd = 0.2·Bt, Cd = Ct.
   InitialSettingRule r;
   expect_eq(standard_initial_setting({100, 0.5, 0.03}, AxleLayout::single_axle, r), {50, 0.1, 0.03});
   expect_eq(standard_initial_setting({100, 0.5, 0.03}, AxleLayout::two_axle, r), {10, 0.1, 0.03});
 }
 
 TEST(Setting, MassRules) {
-  // EU SA4 §2.5.1: m_r = 3 % of (MRO + 25 kg): MRO 1400 kg → 42.75 kg (domain.md §6.2). §2.5.3: dyno inertia
+  // EU SA4 §2.5.1: m_r = 3 % of (MRO + 25 kg): MRO 1400 kg → 42.75 kg (docs/standards.md §6.2). §2.5.3: dyno inertia
   // TM + 50 % m_r on a single-axle dyno, TM on a two-axle dyno.
   MassRule r;
   EXPECT_NEAR(rotating_mass_kg(1400.0, r), 42.75, 1e-12);
@@ -84,7 +84,7 @@ TEST(Setting, IterativeNeedsTwoConsecutivePasses) {
 
 TEST(Setting, FixedRunFinalSetting) {
   // GTR 15 §8.1.3.4.1 (four coast-downs, run 1 stabilises) and the final form A = At − (1/3)·Σ(As − Ad) over
-  // runs 2–4 (domain.md §3, from memory). Hand computation: losses (As − Ad) of runs 2..4 are
+  // runs 2–4 (docs/standards.md §3, from memory). Hand computation: losses (As − Ad) of runs 2..4 are
   // (60, 0.30, 0.0010), (63, 0.33, 0.0012), (57, 0.27, 0.0008) → mean (60, 0.30, 0.0010) →
   // final (100 − 60, 0.5 − 0.30, 0.03 − 0.0010) = (40, 0.2, 0.029).
   Profile p = wltp(SettingMethod::fixed_run);

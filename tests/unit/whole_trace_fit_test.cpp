@@ -14,8 +14,8 @@ using namespace loadtrim;
 
 namespace {
 const std::vector<double> kSpeeds = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
-const core::RoadLoad kTarget{100, 0.5, 0.03};  // domain.md §6.2
-constexpr double kMass = 1542.75;              // TM 1500 + m_r 42.75 kg (domain.md §6.2)
+const core::RoadLoad kTarget{100, 0.5, 0.03};  // docs/standards.md §6.2
+constexpr double kMass = 1542.75;              // TM 1500 + m_r 42.75 kg (docs/standards.md §6.2)
 constexpr double kLow = 15.0, kHigh = 135.0;  // lowest and highest band edges of 20…130 km/h with Δv = 5 km/h
 const core::RoadLoad kPoorStart{300, 0.0, 0.01};
 
@@ -63,7 +63,7 @@ TEST(WholeTraceFit, RecoversAPureQuadraticLoadFromTheTextbookSolution) {
 }
 
 TEST(WholeTraceFit, RecoversTheWltpExampleCurveWithControllerTimestamps) {
-  // General F = f0 + f1·v + f2·v² (domain.md §6.2 target), exact samples at 100 Hz from the closed form in
+  // General F = f0 + f1·v + f2·v² (docs/standards.md §6.2 target), exact samples at 100 Hz from the closed form in
   // tests/support (u(t) = K·tan(atan(u0/K) − C·K·t/m), table integral). The controller's clock does not start
   // at zero: a 5000 s offset on every timestamp must not change the result (the ODE has no explicit time).
   auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 100.0);
@@ -93,7 +93,7 @@ TEST(WholeTraceFit, SamplesOutsideTheWindowAreIgnored) {
 }
 
 TEST(WholeTraceFit, WhiteSpeedNoiseLeavesResidualsAtTheNoiseLevel) {
-  // Speed noise σ = 0.1 km/h (half the ±0.2 km/h speed accuracy of GTR 15 §3.1, domain.md). For a correct
+  // Speed noise σ = 0.1 km/h (half the ±0.2 km/h speed accuracy of GTR 15 §3.1, docs/standards.md). For a correct
   // model the residual RMS estimates σ; with N ≈ 3000 points and 4 parameters its relative standard deviation
   // is about 1/√(2N) ≈ 1.3 % (textbook: var(s²)/σ⁴ = 2/(N − p) for Gaussian noise), so ±6 % is over 4
   // standard deviations. A wrong model or a fit stuck away from the optimum leaves systematic residuals and a
