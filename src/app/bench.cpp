@@ -224,9 +224,10 @@ int run_bench(BenchOptions o) {
       if (i >= fleet_v.size()) return;
       const Vehicle& v = fleet_v[i];
       for (std::size_t m = 0; m < methods.size(); ++m) {
-        session::Inputs in{v.layout == core::AxleLayout::two_axle ? cell_two : cell_single, *methods[m],
-                           v.target};
-        in.vehicle.profile = methods[m]->name;
+        core::VehicleTarget target = v.target;
+        target.profile = methods[m]->name;
+        session::Inputs in = session::plan_inputs(
+            v.layout == core::AxleLayout::two_axle ? cell_two : cell_single, *methods[m], std::move(target));
         for (std::size_t s = 0; s < strategies.size(); ++s) {
           session::Options opt;
           opt.first_setting = strategies[s].first;

@@ -125,6 +125,8 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
     if (!errs.empty()) errors.emplace_back(file, errs);
   }
   if (!errors.empty()) throw_all(errors);
+  // The session runs the vehicle's reference speeds (the same rule check_combination applied above).
+  l.inputs = session::plan_inputs(std::move(l.inputs.cell), l.inputs.profile, std::move(l.inputs.vehicle));
   return l;
 }
 
@@ -272,6 +274,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
       .standard = inputs.profile.standard,
       .tolerance_n = inputs.profile.tolerance_n,
       .reference_speeds_kmh = inputs.profile.reference_speeds_kmh,
+      .dropped_reference_speeds = inputs.dropped_reference_speeds,
       .software_version = LOADTRIM_VERSION,
       .software_build = LOADTRIM_BUILD_ID,
       .operator_note = req.note,

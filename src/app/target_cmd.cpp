@@ -36,7 +36,7 @@ struct TargetOptions {
   std::vector<double> metric, us;
   int epa_line = 0;
   double test_mass_kg = 0, test_mass_lb = 0, mass_in_running_order_kg = 0, rotating_mass_kg = -1,
-         max_speed_kmh = 180.0;
+         max_speed_kmh = 180.0, cycle_max_speed_kmh = 0;
   bool json = false;
 };
 
@@ -54,6 +54,7 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
   core::VehicleTarget v;
   if (kind == "file") {
     v = config::load_target(o.from);
+    if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
     source = "target file " + o.from;
     return v;
   }
@@ -62,6 +63,7 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
     for (const auto& r : f.rows)
       if ((o.epa_line > 0 && r.line == o.epa_line) || (!o.epa_id.empty() && r.id == o.epa_id)) {
         v = config::target_from_epa(r, profile.name, o.max_speed_kmh);
+        if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
         source =
             o.epa + " line " + std::to_string(r.line) + " (US units: A, B, C and the equivalent test weight)";
         return v;
@@ -89,6 +91,7 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
   else
     v.mass_in_running_order_kg = v.test_mass_kg;  // stated in the output: the rule then uses TM
   v.max_speed_kmh = o.max_speed_kmh;
+  if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
   v.profile = profile.name;
   if (kind == "metric") {
     v.target = {o.metric[0], o.metric[1], o.metric[2]};
@@ -116,7 +119,12 @@ int run_target(const TargetOptions& o) {
     cell = config::load_cell(o.cell, adapters::tool_registry().sections());
     layout = cell->axles;
   }
-  const core::Problems found = core::plausibility(v);
+  core::Problems found = core::plausibility(v);
+  // The same reference-speed rule as `run` (core::plan_reference_speeds): what is dropped and why.
+  const core::ReferenceSpeedPlan plan =
+      core::plan_reference_speeds(profile, v.max_speed_kmh, v.cycle_max_speed_kmh);
+  if (plan.refusal)
+    found.push_back({core::Problem::Severity::error, "bands.reference_speeds_kmh", *plan.refusal});
   const double m_r = core::resolved_rotating_mass_kg(v, profile.mass);
   const double force_mass = core::force_mass_kg(v.test_mass_kg, m_r);
   const double inertia = core::dyno_inertia_kg(v.test_mass_kg, m_r, layout, profile.mass);
@@ -177,12 +185,13 @@ int run_target(const TargetOptions& o) {
                         {"speed_mph", core::units::kmh_to_mph(s)},
                         {"force_n", v.target.force_n(s)},
                         {"force_lbf", core::units::n_to_lbf(v.target.force_n(s))}};
-    // The band time the standard's formula turns back into F_tj (F = (1/3.6)·(TM + m_r)·2Δv/Δt, docs/standards.md
-    // §2), and the exact coast time through the band under the target (closed form, docs/standards.md §6.4).
+    // The band time the standard's formula turns back into F_tj (F = (1/3.6)·(TM + m_r)·2Δv/Δt,
+    // docs/standards.md §2), and the exact coast time through the band under the target (closed form,
+    // docs/standards.md §6.4).
     r["band_time_s"] = core::band_time_s(force_mass, profile.band_half_width_kmh, v.target.force_n(s));
     if (times[j]) r["band_time_exact_s"] = *times[j];
-    if (!core::reference_speed_kept(s, v.max_speed_kmh))
-      r["note"] = "v + 14 km/h reaches the vehicle's maximum speed: dropped by the standard (docs/standards.md §2)";
+    for (const auto& d : plan.dropped)
+      if (d.speed_kmh == s) r["note"] = "dropped: " + d.why;
     rows.push_back(r);
   }
   nlohmann::json warnings = nlohmann::json::array();
@@ -223,6 +232,7 @@ int run_target(const TargetOptions& o) {
         {"dyno_inertia_kg", inertia},
         {"axles", core::to_string(layout)},
         {"half_band_kmh", profile.band_half_width_kmh},
+        {"reference_speeds_kmh", plan.kept_kmh},
         {"rows", rows},
         {"findings", warnings},
         {"initial_settings", initial},
@@ -293,6 +303,9 @@ void register_target_command(CLI::App& app, Runner& run) {
   s->add_option("--max-speed-kmh", o->max_speed_kmh, "the vehicle's maximum speed")
       ->check(CLI::Range(30.0, 400.0))
       ->capture_default_str();
+  s->add_option("--cycle-max-speed-kmh", o->cycle_max_speed_kmh,
+                "the test cycle's maximum speed: the top reference speed is the one just above it")
+      ->check(CLI::Range(10.0, 400.0));
   s->add_option("--profile", o->profile, "standard profile name or file")->capture_default_str();
   s->add_option("--cell", o->cell, "cell file: its axle layout, and the history of this vehicle on it");
   s->add_option("--history", o->history, "history of earlier sessions (default: sessions/history)");

@@ -104,6 +104,7 @@ core::VehicleTarget read_target(TomlReader& r) {
   core::parse(r.choice("vehicle.drive", {"front", "rear", "all"}), v.drive);
   v.two_wheel_drive_mode = r.boolean_or("vehicle.two_wheel_drive_mode", false);
   v.max_speed_kmh = r.number("vehicle.max_speed_kmh", 30.0, 400.0, "km/h");
+  v.cycle_max_speed_kmh = r.maybe_number("vehicle.cycle_max_speed_kmh", 10.0, 400.0, "km/h");
   v.profile = r.string("profile");
   bool present = false;
   v.target = read_coefficients(r, "target", "target_us", present);

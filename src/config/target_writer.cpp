@@ -42,7 +42,9 @@ std::string target_toml(const core::VehicleTarget& v, const std::string& header)
     o += "mass_in_running_order_kg = " + num(*v.mass_in_running_order_kg) + "\n";
   o += std::string("drive = \"") + core::to_string(v.drive) + "\"\n";
   if (v.two_wheel_drive_mode) o += "two_wheel_drive_mode = true\n";
-  o += "max_speed_kmh = " + num(v.max_speed_kmh) + "\n\n[target]\n";
+  o += "max_speed_kmh = " + num(v.max_speed_kmh) + "\n";
+  if (v.cycle_max_speed_kmh) o += "cycle_max_speed_kmh = " + num(*v.cycle_max_speed_kmh) + "\n";
+  o += "\n[target]\n";
   o += "f0_n = " + num(v.target.f0_n) + "\nf1_n_per_kmh = " + num(v.target.f1_n_per_kmh) +
        "\nf2_n_per_kmh2 = " + num(v.target.f2_n_per_kmh2) + "\n";
   if (v.initial_set)

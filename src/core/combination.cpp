@@ -23,6 +23,46 @@ bool reference_speed_kept(double reference_kmh, double vehicle_max_speed_kmh) {
   return reference_kmh + kReferenceSpeedMarginKmh < vehicle_max_speed_kmh;
 }
 
+ReferenceSpeedPlan plan_reference_speeds(const Profile& p, double vehicle_max_speed_kmh,
+                                         std::optional<double> cycle_max_speed_kmh) {
+  ReferenceSpeedPlan out;
+  std::vector<double> speeds = p.reference_speeds_kmh;
+  std::sort(speeds.begin(), speeds.end());
+  // The top point is the profile's highest or the one just above the cycle's maximum speed.
+  std::optional<double> cycle_top;
+  if (cycle_max_speed_kmh)
+    for (double v : speeds)
+      if (v >= *cycle_max_speed_kmh) {
+        cycle_top = v;
+        break;
+      }
+  for (double v : speeds) {
+    if (cycle_top && v > *cycle_top)
+      out.dropped.push_back({v, "above " + num(*cycle_top) +
+                                    " km/h, the reference speed just above the test "
+                                    "cycle's maximum speed of " +
+                                    num(*cycle_max_speed_kmh) +
+                                    " km/h (GTR 15 §2.2, from memory; docs/standards.md §2.1)"});
+    else if (!reference_speed_kept(v, vehicle_max_speed_kmh))
+      out.dropped.push_back({v, "v + 14 km/h reaches the vehicle's maximum speed of " +
+                                    num(vehicle_max_speed_kmh) +
+                                    " km/h (GTR 15 §2.2, from memory; docs/standards.md §2.1)"});
+    else
+      out.kept_kmh.push_back(v);
+  }
+  if (out.kept_kmh.size() < kMinReferenceSpeeds)
+    out.refusal = "only " + std::to_string(out.kept_kmh.size()) + " of the profile's " +
+                  std::to_string(speeds.size()) +
+                  " reference speeds remain for this vehicle; the regression of f0, f1, f2 needs at least " +
+                  std::to_string(kMinReferenceSpeeds);
+  return out;
+}
+
+Profile with_reference_speeds(Profile p, const ReferenceSpeedPlan& plan) {
+  if (!plan.refusal) p.reference_speeds_kmh = plan.kept_kmh;
+  return p;
+}
+
 bool motoring_within(const Profile& p, double max_motoring_s) {
   return planned_motoring_s(p) <= max_motoring_s;
 }
@@ -50,17 +90,19 @@ std::optional<std::string> limits_refusal(const Profile& p, double cell_max_kmh,
            " km/h";
   for (double v : p.reference_speeds_kmh)
     if (!reference_speed_kept(v, vehicle_max_kmh))
-      return "reference speed " + num(v) +
-             " km/h is within 14 km/h of the vehicle's maximum speed; use a profile without it";
+      return "reference speed " + num(v) + " km/h is within 14 km/h of the vehicle's maximum speed";
   if (!motoring_within(p, cell_max_motoring_s))
     return "the warm-up needs up to " + num(planned_motoring_s(p)) +
            " s of motoring, above the cell's limit of " + num(cell_max_motoring_s) + " s";
   return std::nullopt;
 }
 
-CombinationProblems check_combination(const VehicleTarget& vehicle, const Profile& profile,
+CombinationProblems check_combination(const VehicleTarget& vehicle, const Profile& given,
                                       const CellFacts& cell) {
   CombinationProblems out;
+  const ReferenceSpeedPlan plan =
+      plan_reference_speeds(given, vehicle.max_speed_kmh, vehicle.cycle_max_speed_kmh);
+  const Profile profile = with_reference_speeds(given, plan);
   auto err = [](Problems& ps, std::string key, std::string msg) {
     ps.push_back({Problem::Severity::error, std::move(key), std::move(msg)});
   };
@@ -87,15 +129,13 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
         "is " + num(profile.warm_up.speed_kmh) + " km/h, above the cell's limits.max_speed_kmh (" +
             num(cell.max_speed_kmh) + ") or the vehicle's vehicle.max_speed_kmh (" +
             num(vehicle.max_speed_kmh) + "): allowed up to " + num(speed_limit) + " km/h");
-  // GTR 15 §2.2 (from memory): a reference speed within 14 km/h of the vehicle's maximum speed is dropped; a
-  // fixed profile cannot drop it, so the profile does not fit this vehicle.
-  for (double v : profile.reference_speeds_kmh)
-    if (!reference_speed_kept(v, vehicle.max_speed_kmh))
-      err(out.profile, "bands.reference_speeds_kmh",
-          "has " + num(v) + " km/h, within 14 km/h of the vehicle's maximum speed of " +
-              num(vehicle.max_speed_kmh) +
-              " km/h (vehicle.max_speed_kmh; GTR 15 §2.2 drops such a point): allowed only below " +
-              num(vehicle.max_speed_kmh - kReferenceSpeedMarginKmh) + " km/h; use a profile without it");
+  // GTR 15 §2.2 (from memory): points the vehicle cannot reach are dropped (plan_reference_speeds); too few
+  // left is an error.
+  if (plan.refusal)
+    err(out.profile, "bands.reference_speeds_kmh",
+        *plan.refusal + " (vehicle.max_speed_kmh " + num(vehicle.max_speed_kmh) +
+            " km/h: a point v is kept only while v + 14 km/h is below it): use a profile with lower "
+            "reference speeds");
 
   // Motoring time.
   const double motoring = planned_motoring_s(profile);

@@ -6,6 +6,7 @@
 
 #include <optional>
 #include <string>
+#include <vector>
 
 #include "core/envelope.hpp"
 #include "core/problem.hpp"
@@ -42,10 +43,31 @@ double planned_motoring_s(const Profile& p);
 bool start_speed_below(const Profile& p, double limit_kmh);
 // The warm-up speed may reach a speed limit but not exceed it.
 bool warm_up_speed_within(const Profile& p, double limit_kmh);
-// GTR 15 §2.2 (from memory; docs/standards.md §2): a reference speed v with v + 14 km/h ≥ the vehicle's maximum speed
-// is dropped by the standard. A fixed profile cannot drop it, so true means the point may stay.
+// GTR 15 §2.2 (from memory; docs/standards.md §2): a reference speed v with v + 14 km/h ≥ the vehicle's
+// maximum speed is dropped by the standard. A fixed profile cannot drop it, so true means the point may stay.
 inline constexpr double kReferenceSpeedMarginKmh = 14.0;
 bool reference_speed_kept(double reference_kmh, double vehicle_max_speed_kmh);
+// The session's reference speeds, one rule for `target`, `run`, the demo and the benchmark (docs/standards.md
+// §2.1; GTR 15 §2.2, from memory): from the profile's list, drop every point above the one just above the
+// test cycle's maximum speed (when the target gives that speed), then every point v with v + 14 km/h ≥ the
+// vehicle's maximum speed. A quadratic needs three points: fewer left is a refusal (arithmetic). The run-up
+// margin above the new top point is the profile's; the cell's and controller's limits are checked on the
+// result, not used to drop points (a cell too slow for the standard's speeds is refused, not worked around).
+struct DroppedSpeed {
+  double speed_kmh = 0;
+  std::string why;
+};
+struct ReferenceSpeedPlan {
+  std::vector<double> kept_kmh;  // ascending
+  std::vector<DroppedSpeed> dropped;
+  std::optional<std::string> refusal;  // fewer than kMinReferenceSpeeds kept
+};
+inline constexpr std::size_t kMinReferenceSpeeds = 3;
+ReferenceSpeedPlan plan_reference_speeds(const Profile& p, double vehicle_max_speed_kmh,
+                                         std::optional<double> cycle_max_speed_kmh);
+// The profile with the plan's speeds (unchanged when the plan is a refusal).
+Profile with_reference_speeds(Profile p, const ReferenceSpeedPlan& plan);
+
 // The warm-up's motoring fits the cell's limit of one continuous motoring period (planned_motoring_s).
 bool motoring_within(const Profile& p, double max_motoring_s);
 // The session's speed limit: the lowest of the cell's, the vehicle's and the controller's.
@@ -66,9 +88,9 @@ std::optional<std::string> limits_refusal(const Profile& p, double cell_max_kmh,
 //   error unless vehicle.two_wheel_drive_mode (then a warning: the mode is a condition of the test and is
 //   logged); check_target with EnvelopeLimits{limits.max_force_n, start speed}, whose force-limit error names
 //   limits.max_force_n.
-// - profile: warm_up.speed_kmh at most both maximum speeds (cell and vehicle); bands.reference_speeds_kmh: a
-//   reference speed v with v + 14 km/h ≥ vehicle.max_speed_kmh is an error, "use a profile without it"
-//   (GTR 15 §2.2, from memory: the standard drops such a point).
+// - profile: warm_up.speed_kmh at most both maximum speeds (cell and vehicle); bands.reference_speeds_kmh:
+//   fewer than three points left by plan_reference_speeds is an error. The start-speed checks above use the
+//   planned speeds: callers pass the profile as given and check_combination plans it the same way.
 CombinationProblems check_combination(const VehicleTarget& vehicle, const Profile& profile,
                                       const CellFacts& cell);
 

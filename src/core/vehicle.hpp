@@ -31,6 +31,9 @@ struct VehicleTarget {
   // dyno (core::check_combination). Target file key vehicle.two_wheel_drive_mode, optional, default false.
   bool two_wheel_drive_mode = false;
   double max_speed_kmh = 0.0;
+  // The applicable test cycle's maximum speed, when given (target key vehicle.cycle_max_speed_kmh): the top
+  // reference speed is the one just above it (core::plan_reference_speeds, docs/standards.md §2.1).
+  std::optional<double> cycle_max_speed_kmh;
   RoadLoad target;
   std::string profile;  // name of the standard profile to follow
   std::optional<RoadLoad> initial_set;
@@ -40,8 +43,8 @@ struct VehicleTarget {
 double resolved_rotating_mass_kg(const VehicleTarget& v, const MassRule& rule);
 
 // Plausibility, every problem at once. F0 / (TM·g) outside 0.004–0.03 (common practice, no source) is a
-// warning naming the likely unit mistake; negative F2 is an error (docs/standards.md §1: the aerodynamic term is
-// positive).
+// warning naming the likely unit mistake; negative F2 is an error (docs/standards.md §1: the aerodynamic term
+// is positive).
 Problems plausibility(const VehicleTarget& v);
 
 }  // namespace loadtrim::core

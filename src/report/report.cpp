@@ -299,6 +299,18 @@ static std::string write_report_body(const std::string& folder, const std::strin
   meta("Cell", started.value("cell", ""));
   meta("Profile and method", started.value("profile", "") + ", " + started.value("method", "") + " method (" +
                                  started.value("standard", "") + ")");
+  {
+    // The vehicle's reference speeds and those the standard's rules dropped (core::plan_reference_speeds).
+    std::string speeds;
+    for (const auto& v : started.value("reference_speeds_kmh", json::array()))
+      if (v.is_number()) speeds += (speeds.empty() ? "" : ", ") + fmt(v.get<double>(), 0);
+    std::string dropped;
+    for (const auto& d : started.value("dropped_reference_speeds", json::array()))
+      if (d.is_object() && d.value("speed_kmh", json()).is_number())
+        dropped += (dropped.empty() ? "" : "; ") + fmt(d["speed_kmh"].get<double>(), 0) +
+                   " km/h dropped: " + d.value("why", std::string());
+    meta("Reference speeds", speeds + " km/h" + (dropped.empty() ? std::string() : " (" + dropped + ")"));
+  }
   meta("First setting",
        first.value("strategy", "") + (first.value("fallback_reason", "").empty()
                                           ? ""

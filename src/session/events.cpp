@@ -89,6 +89,12 @@ nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
   return out;
 }
 
+nlohmann::json dropped_json(const std::vector<core::DroppedSpeed>& dropped) {
+  nlohmann::json a = nlohmann::json::array();
+  for (const auto& d : dropped) a.push_back({{"speed_kmh", d.speed_kmh}, {"why", d.why}});
+  return a;
+}
+
 nlohmann::json common_json(const ev::StartCommon& c) {
   return {{"vehicle", c.vehicle},
           {"cell", c.cell},
@@ -104,6 +110,7 @@ nlohmann::json common_json(const ev::StartCommon& c) {
           {"standard", c.standard},
           {"tolerance_n", c.tolerance_n},
           {"reference_speeds_kmh", c.reference_speeds_kmh},
+          {"dropped_reference_speeds", dropped_json(c.dropped_reference_speeds)},
           {"software", {{"version", c.software_version}, {"build", c.software_build}}},
           {"operator_note", c.operator_note},
           {"first_setting_requested", c.first_setting_requested},

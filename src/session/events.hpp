@@ -24,6 +24,7 @@
 #include <vector>
 
 #include "controller/controller.hpp"
+#include "core/combination.hpp"
 #include "core/dyno_checks.hpp"
 #include "core/evaluation.hpp"
 #include "core/road_load.hpp"
@@ -121,7 +122,8 @@ struct StartCommon {
   double test_mass_kg = 0.0;
   std::string standard;
   double tolerance_n = 0.0;
-  std::vector<double> reference_speeds_kmh;
+  std::vector<double> reference_speeds_kmh;  // the vehicle's (core::plan_reference_speeds)
+  std::vector<core::DroppedSpeed> dropped_reference_speeds;
   std::string software_version, software_build;
   std::string operator_note;
   std::string first_setting_requested;

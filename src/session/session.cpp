@@ -35,6 +35,13 @@ Session::Session(Inputs inputs, Options options, controller::Controller& control
   motion_.on_sample = [this](const controller::Sample& s) { on_sample(s); };
 }
 
+Inputs plan_inputs(controller::CellConfig cell, const core::Profile& profile, core::VehicleTarget vehicle) {
+  const core::ReferenceSpeedPlan plan =
+      core::plan_reference_speeds(profile, vehicle.max_speed_kmh, vehicle.cycle_max_speed_kmh);
+  Inputs in{std::move(cell), core::with_reference_speeds(profile, plan), std::move(vehicle), plan.dropped};
+  return in;
+}
+
 bool Session::emit(Payload event, const std::vector<controller::Sample>* trace) {
   // The stamp is the session's, taken as the event leaves: its state and clocks at that moment.
   Stamp stamp{state_, std::nullopt, std::nullopt};

@@ -76,9 +76,14 @@ struct Options {
 
 struct Inputs {
   controller::CellConfig cell;
-  core::Profile profile;
+  core::Profile profile;  // with the vehicle's reference speeds (core::plan_reference_speeds)
   core::VehicleTarget vehicle;
+  std::vector<core::DroppedSpeed> dropped_reference_speeds;  // what the plan dropped, and why
 };
+// The inputs of a session for this vehicle: the profile's reference speeds planned for it
+// (core::plan_reference_speeds; `run`, `resume`, the demo and the benchmark all start here). A plan that
+// leaves too few speeds keeps the profile's list: check_combination refuses such a vehicle before this.
+Inputs plan_inputs(controller::CellConfig cell, const core::Profile& profile, core::VehicleTarget vehicle);
 
 class Session {
  public:

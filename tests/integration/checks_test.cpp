@@ -1,8 +1,8 @@
 // The dyno's own checks end to end: `loadtrim check ...` against the simulated controller with empty rollers
 // (loadtrim-sim --empty-rollers), on a healthy dyno and on dynos with planted faults (parasitic loss 20 %
 // high, base inertia 3 % off), the due-date view, and a session refused while checks are due unless the
-// operator overrides it (the override logged). Target preparation (`loadtrim target`) against docs/standards.md §6.2
-// and the NIST factors.
+// operator overrides it (the override logged). Target preparation (`loadtrim target`) against
+// docs/standards.md §6.2 and the NIST factors.
 #include <gtest/gtest.h>
 
 #include <filesystem>
@@ -209,8 +209,8 @@ TEST(DynoChecksCli, PlantedBaseInertiaErrorFailsTheInertiaCheck) {
   if (!HasFailure()) fs::remove_all(dir);
 }
 
-// docs/standards.md §6.2 [computed]: TM 1500 kg, mass in running order 1400 kg → m_r 42.75 kg; target (100, 0.5,
-// 0.03); the table of (v_j, F_tj, Δt_j).
+// docs/standards.md §6.2 [computed]: TM 1500 kg, mass in running order 1400 kg → m_r 42.75 kg; target (100,
+// 0.5, 0.03); the table of (v_j, F_tj, Δt_j).
 TEST(TargetCli, MatchesDomainTableSixTwo) {
   const Ran r = tool({"target", "--metric", "100", "0.5", "0.03", "--id", "SIX-TWO", "--test-mass-kg", "1500",
                       "--mass-in-running-order-kg", "1400", "--max-speed-kmh", "200", "--json"});
@@ -227,7 +227,8 @@ TEST(TargetCli, MatchesDomainTableSixTwo) {
     EXPECT_NEAR(row["band_time_s"].get<double>(), table[j][2], 0.0005)
         << table[j][0];  // the table's 3 decimals
     // The exact coast time through the band (closed form) is close to the formula's: the formula uses the
-    // force at the band's middle, the coast integrates it (docs/standards.md §6.1 shows the same effect, about 0.6
+    // force at the band's middle, the coast integrates it (docs/standards.md §6.1 shows the same effect,
+    // about 0.6
     // %).
     EXPECT_NEAR(row["band_time_exact_s"].get<double>() / table[j][2], 1.0, 0.003) << table[j][0];
   }

@@ -121,8 +121,8 @@ TEST(Framed, FullSessionEndsAccepted) {
 
 TEST(Framed, TheFourDynoChecksPass) {
   const std::string dir = temp_dir("framed-checks");
-  // A sanitized tool cannot poll at 1 kHz: the sanitizer preset (which lowers LOADTRIM_TEST_CHECKS_TIME_SCALE)
-  // runs the simulator slower, with the same controller-time sample rate.
+  // A sanitized tool cannot poll at 1 kHz: the sanitizer preset (which lowers
+  // LOADTRIM_TEST_CHECKS_TIME_SCALE) runs the simulator slower, with the same controller-time sample rate.
   const char* slow = std::getenv("LOADTRIM_TEST_CHECKS_TIME_SCALE");
   const double scale = slow && *slow ? 20.0 : 50.0;
   SimProcess sim({"--framed-table", kCell, "--empty-rollers", "--time-scale", std::to_string(scale),

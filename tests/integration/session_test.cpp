@@ -110,9 +110,10 @@ TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
   // the tool would otherwise fall behind a 1000x controller.
   const char* scale = std::getenv("LOADTRIM_TEST_FLEET_TIME_SCALE");
   SimProcess sim({"--truth", dir + "/truth.toml", "--time-scale", scale ? scale : "1000"});
-  session::Inputs in{config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0), "cell.toml",
-                                        adapters::production().sections()),
-                     profile, v};
+  session::Inputs in =
+      session::plan_inputs(config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0),
+                                              "cell.toml", adapters::production().sections()),
+                           profile, v);
   auto c = adapters::make_controller(in.cell);
   const std::string folder = dir + "/session";
   fs::create_directories(folder);
@@ -122,7 +123,7 @@ TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
   const session::Summary sum = s.run();
   EXPECT_EQ(sum.outcome, session::Outcome::accepted) << row.id << ": " << sum.stop_reason;
   // The final measured forces within the tolerance (GTR 15 §8.1.3.4.2: ±10 N) at every reference speed.
-  ASSERT_EQ(sum.deviations.size(), profile.reference_speeds_kmh.size());
+  ASSERT_EQ(sum.deviations.size(), in.profile.reference_speeds_kmh.size());
   for (const auto& d : sum.deviations)
     EXPECT_LE(std::abs(d.deviation_n), profile.tolerance_n) << row.id << " at " << d.speed_kmh;
   EXPECT_TRUE(record::verify_session_folder(folder).ok);
@@ -369,9 +370,11 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
        "units.toml: error: target.f2_n_per_kmh2 (line 16): is 0.428, allowed 0 to 0.2 N/(km/h)²"},
       {dir + "/cell.toml", variant("missing.toml", "test_mass_kg = 1470.0\n", ""),
        "missing.toml: error: vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"},
-      {dir + "/cell.toml", variant("slowcar.toml", "max_speed_kmh = 185.0", "max_speed_kmh = 135.0"),
-       "slowcar.toml: error: vehicle.max_speed_kmh: is 135 km/h; the profile starts its coast-downs at 142 "
-       "km/h"},
+      // A 50 km/h vehicle keeps only 20 and 30 km/h (40 + 14 ≥ 50; GTR 15 §2.2 from memory,
+      // docs/standards.md §2.1): too few points for f0, f1, f2.
+      {dir + "/cell.toml", variant("slowcar.toml", "max_speed_kmh = 185.0", "max_speed_kmh = 50.0"),
+       "error: bands.reference_speeds_kmh: only 2 of the profile's 12 reference speeds remain for this "
+       "vehicle"},
       {dir + "/slow-cell.toml", kSrc + "/samples/targets/demo-hatchback.toml",
        "slow-cell.toml: error: limits.max_speed_kmh: is 130 km/h; the profile starts its coast-downs at 142 "
        "km/h"},
@@ -396,5 +399,74 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
             2);
   EXPECT_NE(err.find("refusing to motor the rollers"), std::string::npos) << err;
   EXPECT_FALSE(fs::exists(dir + "/sessions"));
+  fs::remove_all(dir);
+}
+
+TEST(SessionCli, ReferenceSpeedsOfASlowVehicleAreDroppedAlikeByTargetAndRun) {
+  // GTR 15 §2.2 (from memory; docs/standards.md §2.1): a reference speed v is dropped when v + 14 km/h ≥ the
+  // vehicle's maximum speed. By hand for the wltp-iterative profile (20..130 km/h, run-up margin 12 km/h):
+  // 120 km/h keeps 20..100 (110 + 14 = 124 ≥ 120) and starts at 112 km/h; 140 and 143 km/h keep 20..120
+  // (130 + 14 = 144) and start at 132 km/h. `target` and `run` must agree, and the run must reach acceptance
+  // on the in-process simulator with its record naming what was dropped.
+  const std::string dir = temp_dir("refspeeds");
+  std::string cell_text_copy;
+  {
+    std::ifstream in(kSrc + "/config/cells/sim-inprocess.toml");
+    cell_text_copy.assign((std::istreambuf_iterator<char>(in)), {});
+    cell_text_copy.replace(cell_text_copy.find("../../samples"), 5, kSrc + "/");
+  }
+  write(dir + "/cell.toml", cell_text_copy);
+  struct Case {
+    double vmax, top, start;
+    std::size_t dropped;
+  };
+  for (const Case c :
+       {Case{120.0, 100.0, 112.0, 3}, Case{140.0, 120.0, 132.0, 1}, Case{143.0, 120.0, 132.0, 1}}) {
+    SCOPED_TRACE("vehicle maximum " + std::to_string(c.vmax));
+    const std::string tag = std::to_string(static_cast<int>(c.vmax));
+    const std::string target = dir + "/t" + tag + ".toml";
+    std::string out, err;
+    ASSERT_EQ(run_command({kExe, "target", "--metric", "100", "0.5", "0.03", "--id", "slow-" + tag,
+                           "--test-mass-kg", "1500", "--mass-in-running-order-kg", "1400", "--max-speed-kmh",
+                           tag, "--json", "--out", target},
+                          &out, &err),
+              0)
+        << out << err;
+    const auto t = nlohmann::json::parse(out);
+    std::vector<double> expected;
+    for (double v = 20.0; v <= c.top + 1e-9; v += 10.0) expected.push_back(v);
+    EXPECT_EQ(t["reference_speeds_kmh"].get<std::vector<double>>(), expected);
+    std::size_t noted = 0;
+    for (const auto& r : t["rows"]) noted += r.contains("note");
+    EXPECT_EQ(noted, c.dropped);
+    const std::string sessions = dir + "/s" + tag;
+    EXPECT_EQ(run_command({kExe, "run", "--cell", dir + "/cell.toml", "--target", target, "--sessions",
+                           sessions, "--data-dir", dir + "/lab", "--unattended", "--quiet",
+                           "--override-checks", "test against the in-process simulator"},
+                          &out, &err),
+              0)
+        << out << err;
+    std::string folder;
+    for (const auto& e : fs::directory_iterator(sessions))
+      if (e.is_directory() && e.path().filename() != "history") folder = e.path().string();
+    const auto rs = records(folder);
+    ASSERT_FALSE(rs.empty());
+    EXPECT_EQ(rs[0]["reference_speeds_kmh"], t["reference_speeds_kmh"]);
+    EXPECT_EQ(rs[0]["dropped_reference_speeds"].size(), c.dropped);
+    int limits = 0, coastdowns = 0;
+    for (const auto& r : rs) {
+      if (r.value("type", "") == "limits") {
+        ++limits;
+        EXPECT_DOUBLE_EQ(r["start_speed_kmh"].get<double>(), c.start);
+      }
+      // Each coast-down's bands are the kept speeds only.
+      if (r.value("type", "") == "coastdown") {
+        ++coastdowns;
+        EXPECT_EQ(r["bands"].size(), expected.size()) << r.dump();
+      }
+    }
+    EXPECT_EQ(limits, 1);
+    EXPECT_GE(coastdowns, 2);
+  }
   fs::remove_all(dir);
 }

@@ -135,7 +135,7 @@ TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
       session::Options opt;
       opt.sample_rate_hz = 1000.0;
       opt.first_setting = core::FirstSetting::standard;
-      session::Session s({cell, profile, target}, opt, *c, {&writer});
+      session::Session s(session::plan_inputs(cell, profile, target), opt, *c, {&writer});
       const session::Summary sum = s.run();
       EXPECT_EQ(sum.outcome, session::Outcome::accepted) << "session " << k << ": " << sum.stop_reason;
       row.coastdowns = sum.coastdowns;
