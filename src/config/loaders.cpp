@@ -48,6 +48,10 @@ core::Profile read_profile(TomlReader& r) {
   p.max_coastdowns = r.integer_or("limits.max_coastdowns", 10, 2, 100);
   p.max_unusable_runs = r.integer_or("limits.max_unusable_runs", 3, 1, 100);
   p.max_gap_after_warmup_s = r.number_or("timing.max_gap_after_warmup_s", 120.0, 0.0, 3600.0, "s");
+  p.late_start = r.choice("timing.late_start", {"repeat", "finding"}, std::string("repeat")) == "finding"
+                     ? core::Profile::LateStart::finding
+                     : core::Profile::LateStart::repeat;
+  p.late_start_rewarm_s = r.number_or("timing.late_start_rewarm_s", 300.0, 0.0, 3600.0, "s");
   p.warm_up.speed_kmh = r.number_or("warm_up.speed_kmh", p.warm_up.speed_kmh, 10.0, 250.0, "km/h");
   p.warm_up.duration_s = r.number_or("warm_up.duration_s", p.warm_up.duration_s, 0.0, 14400.0, "s");
   p.warm_up.stable_within_n =

@@ -6,6 +6,7 @@
 #include <optional>
 #include <span>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include "core/profile.hpp"
@@ -34,11 +35,12 @@ ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated
 // §8.1.4: F*_dj = F_dj − (F_sj − F_tj), i.e. A*d = Ad + At − As, B*d = Bd + Bt − Bs, C*d = Cd + Ct − Cs.
 RoadLoad adjusted_setting(const RoadLoad& target, const RoadLoad& set, const RoadLoad& simulated);
 
-// The standard's default initial setting (docs/standards.md §3, from memory): Ad = k0·At, Bd = k1·Bt, Cd = k2·Ct.
+// The standard's default initial setting (docs/standards.md §3, from memory): Ad = k0·At, Bd = k1·Bt, Cd =
+// k2·Ct.
 RoadLoad standard_initial_setting(const RoadLoad& target, AxleLayout layout, const InitialSettingRule& rule);
 
-// Fixed-run final setting (docs/standards.md §3, form from memory): A = At − (1/n)·Σ(A_sn − A_dn) over the runs after
-// the stabilisation run; B and C likewise.
+// Fixed-run final setting (docs/standards.md §3, form from memory): A = At − (1/n)·Σ(A_sn − A_dn) over the
+// runs after the stabilisation run; B and C likewise.
 struct RunCoefficients {
   RoadLoad set;
   RoadLoad simulated;
@@ -62,6 +64,9 @@ class SettingMethodState {
   SettingMethodState(const Profile& profile, const RoadLoad& target);
   Decision on_coastdown(const RoadLoad& set, const RoadLoad& simulated, bool within_tolerance);
   int consecutive_passes() const { return passes_; }
+  // A discarded run, a stop or a re-warm breaks "consecutive" (GTR 15 §8.1.3.4.2, docs/standards.md §3.1):
+  // the passes so far no longer count. Returns how many were dropped.
+  int reset_passes() { return std::exchange(passes_, 0); }
   int runs() const { return runs_; }
   // Fixed-run: true once the final setting has been computed and the runs are verification runs.
   bool verifying() const { return verifying_; }

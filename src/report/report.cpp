@@ -288,6 +288,13 @@ static std::string write_report_body(const std::string& folder, const std::strin
   h += std::string("<div class=\"banner ") + (accepted ? "good" : "bad") + "\" id=\"result\">Result: " +
        esc(finished.empty() ? std::string("session not finished") : finished.value("result", "")) + " — " +
        esc(finished.value("stop_reason", "")) + "</div>\n";
+  // Timing and validity findings the session kept (a late first coast-down kept by the profile's policy).
+  if (const json f = finished.value("findings", json::array()); f.is_array() && !f.empty()) {
+    h += "<div class=\"banner bad\" id=\"findings\"><b>Findings</b><ul>";
+    for (const auto& x : f)
+      if (x.is_string()) h += "<li>" + esc(x.get<std::string>()) + "</li>";
+    h += "</ul></div>\n";
+  }
   h += "<table class=\"meta\">";
   auto meta = [&](const std::string& k, const std::string& v) {
     h += "<tr><td><b>" + esc(k) + "</b></td><td>" + esc(v) + "</td></tr>";

@@ -178,7 +178,7 @@ struct Mapper {
   nlohmann::json operator()(const ev::WarmUpHeld& e) const {
     return {{"speed_kmh", e.speed_kmh},
             {"held_s", e.held_s},
-            {"stable", e.stable},
+            {"stability", e.stability},
             {"stability_threshold_n", e.stability_threshold_n},
             {"last_window_force_n",
              e.last_window_force_n ? nlohmann::json(*e.last_window_force_n) : nlohmann::json(nullptr)}};
@@ -216,7 +216,12 @@ struct Mapper {
     return {{"run", e.run}, {"set", to_json(e.set)}, {"start_speed_kmh", e.start_speed_kmh}};
   }
   nlohmann::json operator()(const ev::ReleaseTiming& e) const {
-    return {{"rule", e.rule}, {"gap_s", e.gap_s}, {"within", e.within}};
+    nlohmann::json j = {{"rule", e.rule}, {"gap_s", e.gap_s}, {"within", e.within}};
+    if (!e.within) j["action"] = e.action;
+    return j;
+  }
+  nlohmann::json operator()(const ev::PassesReset& e) const {
+    return {{"run", e.run}, {"passes", e.passes}, {"why", e.why}};
   }
   nlohmann::json operator()(const ev::ConsecutiveTiming& e) const {
     return {{"rule", e.rule}, {"gap_since_last_coast_s", e.gap_since_last_coast_s}};
@@ -412,6 +417,7 @@ struct Typer {
   const char* operator()(const ev::ReleaseTiming& e) const {
     return e.within ? "timing" : "timing_rule_missed";
   }
+  const char* operator()(const ev::PassesReset&) const { return "passes_reset"; }
   const char* operator()(const ev::ConsecutiveTiming&) const { return "timing"; }
   const char* operator()(const ev::Coastdown&) const { return "coastdown"; }
   const char* operator()(const ev::CoastdownDiscarded&) const { return "coastdown_discarded"; }
@@ -496,11 +502,17 @@ nlohmann::json to_json(const CoastdownRecord& r) {
 }
 
 nlohmann::json to_json(const Summary& s) {
-  nlohmann::json j = {{"result", to_string(s.outcome)},       {"accepted", s.outcome == Outcome::accepted},
-                      {"stop_reason", s.stop_reason},         {"iterations", s.iterations},
-                      {"coastdowns", s.coastdowns},           {"usable_coastdowns", s.usable_coastdowns},
-                      {"cell_time_s", s.cell_time_s},         {"first_setting", s.first_setting},
-                      {"rollers_stopped", s.rollers_stopped}, {"stop_note", s.stop_note}};
+  nlohmann::json j = {{"result", to_string(s.outcome)},
+                      {"accepted", s.outcome == Outcome::accepted},
+                      {"stop_reason", s.stop_reason},
+                      {"iterations", s.iterations},
+                      {"coastdowns", s.coastdowns},
+                      {"usable_coastdowns", s.usable_coastdowns},
+                      {"cell_time_s", s.cell_time_s},
+                      {"first_setting", s.first_setting},
+                      {"rollers_stopped", s.rollers_stopped},
+                      {"stop_note", s.stop_note},
+                      {"findings", s.findings}};
   if (s.final_set) j["final_set"] = to_json(*s.final_set);
   if (s.measured) j["measured"] = to_json(*s.measured);
   j["deviations"] = deviations_json(s.deviations);

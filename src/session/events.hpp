@@ -98,8 +98,9 @@ struct Summary {
   std::optional<core::RoadLoad> measured;
   std::vector<core::SpeedDeviation> deviations;
   std::string first_setting;
-  bool rollers_stopped = false;  // standstill confirmed by the controller at the end
-  std::string stop_note;         // how the rollers were stopped, or why that could not be confirmed
+  bool rollers_stopped = false;       // standstill confirmed by the controller at the end
+  std::string stop_note;              // how the rollers were stopped, or why that could not be confirmed
+  std::vector<std::string> findings;  // timing and validity findings the report shows on page one
 };
 nlohmann::json to_json(const Summary& s);  // also summary.json
 
@@ -179,7 +180,8 @@ struct WarmUpStarted {  // "warm_up_started"
 };
 struct WarmUpHeld {  // "warm_up"
   double speed_kmh = 0.0, held_s = 0.0;
-  bool stable = false;
+  // "not checked" (the profile's stability rule is off), "stable" or "not stable within the extra time".
+  std::string stability;
   double stability_threshold_n = 0.0;
   std::optional<double> last_window_force_n;  // null when no stability window completed
 };
@@ -224,6 +226,12 @@ struct ReleaseTiming {
   std::string rule;
   double gap_s = 0.0;
   bool within = true;
+  std::string action;  // when not within: "repeat" (discarded, re-warmed) or "finding" (kept, on page one)
+};
+struct PassesReset {  // "passes_reset": passes that no longer count as consecutive
+  int run = 0;
+  int passes = 0;
+  std::string why;
 };
 struct ConsecutiveTiming {  // "timing"
   std::string rule;
@@ -366,17 +374,16 @@ struct CheckFinished {  // "check_finished"
 
 }  // namespace ev
 
-using Payload =
-    std::variant<ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
-                 ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted,
-                 ev::WarmUpHeld, ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint,
-                 ev::WarmUpEnded, ev::FirstSetting, ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted,
-                 ev::ReleaseTiming, ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded,
-                 ev::Diverging, ev::LinkLost, ev::Reconnect, ev::NotSettled, ev::FaultCleared,
-                 ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Resumed, ev::SafeStopReconnect,
-                 ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted, ev::CheckIdentified,
-                 ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied, ev::ParasiticAnalysed,
-                 ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::CheckFinished>;
+using Payload = std::variant<
+    ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
+    ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted, ev::WarmUpHeld,
+    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::WarmUpEnded, ev::FirstSetting,
+    ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted, ev::ReleaseTiming, ev::PassesReset,
+    ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect,
+    ev::NotSettled, ev::FaultCleared, ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Resumed,
+    ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted,
+    ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied, ev::ParasiticAnalysed,
+    ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::CheckFinished>;
 
 // The record type an event is written as (the "type" member of its line).
 const char* type_of(const Payload& p);

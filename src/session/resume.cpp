@@ -6,7 +6,6 @@
 #include <stdexcept>
 #include <string>
 
-
 #include "core/setting.hpp"
 
 namespace loadtrim::session {
@@ -77,8 +76,8 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
       // A record whose fields are not what this version writes: counted and named (resume refuses the
       // folder), never a crash.
       if (p.malformed++ == 0)
-        p.malformed_note = "record " + std::to_string(r.value("seq", -1)) + " (" + r.value("type", "?") +
-                           "): " + e.what();
+        p.malformed_note =
+            "record " + std::to_string(r.value("seq", -1)) + " (" + r.value("type", "?") + "): " + e.what();
     }
   p.discarded_run = pending;
   return p;

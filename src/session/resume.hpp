@@ -21,8 +21,8 @@ struct ResumePoint {
   core::RoadLoad next_set;
   bool have_next_set = false;
   std::string strategy;
-  double cell_time_s = 0.0;  // controller time used before the interruption
-  int malformed = 0;         // records that could not be read as this version writes them
+  double cell_time_s = 0.0;    // controller time used before the interruption
+  int malformed = 0;           // records that could not be read as this version writes them
   std::string malformed_note;  // the first of them: "record N (type): what is missing"; resume refuses
   // A result the record already holds (the method's verdict in a coast-down record, a refusal, or a final
   // "finished" record) when the process ended before the folder was sealed: resume finalises it without

@@ -109,6 +109,11 @@ void Session::progress(double speed_kmh, double band_kmh) {
   observers_.progress(p);
 }
 
+void Session::reset_passes(int run, const std::string& why) {
+  if (!method_) return;
+  if (const int n = method_->reset_passes(); n > 0) emit(ev::PassesReset{run, n, why});
+}
+
 void Session::transition(State to, const std::string& why) {
   const State from = state_;
   state_ = to;
@@ -292,7 +297,11 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         return held >= duration_s && (stable || held >= duration_s + w.max_extra_s);
       });
   if (!r.ok()) return fault(r, "warm-up");
-  emit(ev::WarmUpHeld{w.speed_kmh, t_now_ - t0, stable, w.stable_within_n,
+  emit(ev::WarmUpHeld{w.speed_kmh, t_now_ - t0,
+                      w.stable_within_n <= 0.0 ? "not checked"
+                      : stable                 ? "stable"
+                                               : "not stable within the extra time",
+                      w.stable_within_n,
                       window_means.empty() ? std::nullopt : std::optional<double>(window_means.back())});
   if (measure_loss_map) {
     loss_map_.clear();
@@ -336,6 +345,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
     }
   }
   t_warm_end_ = t_now_;
+  first_after_warm_up_ = true;
   emit(ev::WarmUpEnded{});  // its stamp's t_s is t_warm_end_
   return std::nullopt;
 }
@@ -348,6 +358,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
                                   std::nullopt, std::nullopt});
       ++unusable_;
       ++discarded_;
+      reset_passes(
+          run, std::string("coast-down ") + std::to_string(run) + " discarded: link lost during " + during);
       if (!recover_link(r.message)) return fault(r, during);
       if (unusable_ >= p.max_unusable_runs)
         return Stop{Outcome::not_accepted,
@@ -405,6 +417,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
       return link_or_fault(h, "after a too slow coast-down");
     ++unusable_;
     ++discarded_;
+    reset_passes(run, "coast-down " + std::to_string(run) + " discarded: too little retarding force");
     const core::RoadLoad fallback =
         core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial);
     emit(ev::CoastdownDiscarded{run, r.message + ": too little retarding force with this setting", fallback,
@@ -418,12 +431,36 @@ std::optional<Session::Stop> Session::do_run(int run) {
   // Keep the vehicle turning for the next run: leave road-load simulation for a low speed hold at once.
   if (Result h = c_.hold_speed(std::max(10.0, end)); !h.ok()) return link_or_fault(h, "after coast-down");
   const double release = trace.empty() ? t_now_ : trace.front().time_s;
-  if (t_last_coast_end_ < 0.0 || coastdowns_ == 0) {
+  if (first_after_warm_up_) {
+    // The 120 s rule applies after every warm-up, a re-warm included (EU SA4 §8.1.2–8.1.3, docs/standards.md
+    // §3.6). Comparisons are written so that a NaN gap is late.
+    first_after_warm_up_ = false;
     const double gap = release - t_warm_end_;
     const bool within = gap <= p.max_gap_after_warmup_s;
-    emit(ev::ReleaseTiming{"first coast-down released within " + num(p.max_gap_after_warmup_s) +
-                               " s of the warm-up end (EU SA4 §8.1.2-8.1.3)",
-                           gap, within});
+    const bool repeat = !within && p.late_start == core::Profile::LateStart::repeat;
+    const std::string rule = "first coast-down after the warm-up released within " +
+                             num(p.max_gap_after_warmup_s) + " s of its end (EU SA4 §8.1.2-8.1.3)";
+    emit(ev::ReleaseTiming{rule, gap, within, within ? "" : repeat ? "repeat" : "finding"});
+    if (!within && !repeat)
+      findings_.push_back("coast-down " + std::to_string(run) + " was released " + num(gap, 1) +
+                          " s after the warm-up ended, beyond the " + num(p.max_gap_after_warmup_s) +
+                          " s rule; kept by the profile's policy (timing.late_start = \"finding\")");
+    if (repeat) {
+      // Discarded unanalysed; a short re-warm, then the run again (bounded by the unusable-run limit).
+      ++unusable_;
+      ++discarded_;
+      reset_passes(run, "coast-down " + std::to_string(run) + " discarded: released late");
+      emit(ev::CoastdownDiscarded{run,
+                                  "released " + num(gap, 1) + " s after the warm-up ended, beyond the " +
+                                      num(p.max_gap_after_warmup_s) + " s rule",
+                                  std::nullopt,
+                                  "repeated after a short re-warm (timing.late_start = \"repeat\")"});
+      if (unusable_ >= p.max_unusable_runs)
+        return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) +
+                                               "): the last released late"};
+      if (auto s = do_warm_up(p.late_start_rewarm_s, false)) return s;
+      return std::nullopt;
+    }
   } else {
     emit(ev::ConsecutiveTiming{"consecutive coast-downs start immediately (EU SA4 §8.1.3)",
                                release - t_last_coast_end_});
@@ -466,6 +503,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
   ++coastdowns_;
   if (!rec.evaluation.usable) {
     ++unusable_;
+    reset_passes(run, "coast-down " + std::to_string(run) + " unusable: " + rec.evaluation.unusable_reason);
     if (!emit(ev::Coastdown{rec}, &trace)) return Stop{Outcome::record_failure, record_error_};
     if (unusable_ >= p.max_unusable_runs)
       return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) +
@@ -585,6 +623,7 @@ Summary Session::run(const ResumePoint* resume) {
   s.first_setting = first_setting_;
   s.rollers_stopped = rollers_stopped_;
   s.stop_note = stop_note_;
+  s.findings = findings_;
   if (final_set_) s.final_set = core::rounded(*final_set_, p.rounding);
   if (last_) {
     s.measured = last_->evaluation.fit.coefficients;
@@ -614,6 +653,9 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     set_ = resume->next_set;
     first_setting_ = resume->strategy;
     if (resume->discarded_run) run_no = std::max(run_no, *resume->discarded_run + 1);
+    // The session stopped and re-warms: passes before the stop are not consecutive with what follows.
+    if (method_->consecutive_passes() > 0)
+      emit(ev::PassesReset{run_no, method_->reset_passes(), "the session stopped and was resumed"});
     emit(ev::Resumed{static_cast<std::size_t>(coastdowns_),
                      resume->discarded_run ? "the half-recorded coast-down is discarded and run again"
                                            : "no run was in progress",

@@ -103,6 +103,8 @@ class Session {
   void transition(State to, const std::string& why = "");
   bool stop_requested() const { return stop_flag_ && stop_flag_->load(); }
   void on_sample(const controller::Sample& s);
+  // A discarded run, a stop or a re-warm: the passes so far are not consecutive with what follows (logged).
+  void reset_passes(int run, const std::string& why);
   // A step of the current epoch (samples read after the last command's acknowledgement).
   motion::Step step(const std::string& what, double budget_s, std::vector<controller::Mode> modes = {}) const;
   controller::Result hold_and_wait(double speed_kmh, const char* what);
@@ -147,6 +149,8 @@ class Session {
   bool record_failed_ = false;
   std::string record_error_;
   std::vector<std::string> dropped_observers_;
+  std::vector<std::string> findings_;  // for page one (Summary::findings)
+  bool first_after_warm_up_ = true;    // the next release is the first after a (re-)warm-up: the 120 s rule
   bool safe_stop_done_ = false, rollers_stopped_ = false, motion_commanded_ = false;
   std::string stop_note_;
   double last_progress_s_ = -1e300;
