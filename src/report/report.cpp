@@ -149,10 +149,12 @@ std::string record_problem(const json& r) {
                                   {"unusable_reason", "s?"},
                                   {"files", "a?"}});
   if (!p.empty() || !r["usable"].get<bool>()) return p;
-  p = check_needs(r, {{"simulated", "o"},
-                      {"simulated.f0_n", "n"},
-                      {"simulated.f1_n_per_kmh", "n"},
-                      {"simulated.f2_n_per_kmh2", "n"},
+  // Older folders wrote the measured coefficients as "simulated".
+  const bool old = !r.contains("measured");
+  p = check_needs(r, {{old ? "simulated" : "measured", "o"},
+                      {old ? "simulated.f0_n" : "measured.f0_n", "n"},
+                      {old ? "simulated.f1_n_per_kmh" : "measured.f1_n_per_kmh", "n"},
+                      {old ? "simulated.f2_n_per_kmh2" : "measured.f2_n_per_kmh2", "n"},
                       {"check", "o"},
                       {"check.pass", "b"},
                       {"check.worst_abs_deviation_n", "n"},
@@ -373,8 +375,9 @@ static std::string write_report_body(const std::string& folder, const std::strin
     coef_row("coast-down " + n + ": set", r, "set");
     csv_coef(n, "set", coef(r["set"]));
     if (r.value("usable", false)) {
-      coef_row("coast-down " + n + ": measured", r, "simulated");
-      csv_coef(n, "measured", coef(r["simulated"]));
+      const std::string mk = r.contains("measured") ? "measured" : "simulated";
+      coef_row("coast-down " + n + ": measured", r, mk);
+      csv_coef(n, "measured", coef(r[mk]));
     }
   }
   h += "</table>\n";
@@ -432,7 +435,7 @@ static std::string write_report_body(const std::string& folder, const std::strin
     int k = 0;
     for (const auto& r : runs) {
       if (!r.value("usable", false)) continue;
-      const core::RoadLoad c = coef(r["simulated"]);
+      const core::RoadLoad c = coef(r.contains("measured") ? r["measured"] : r["simulated"]);
       Series s{&r == last ? "final: coast-down " + std::to_string(r.value("run", 0))
                           : "coast-down " + std::to_string(r.value("run", 0)),
                vs,

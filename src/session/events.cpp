@@ -76,6 +76,10 @@ core::RoadLoad road_load_from_json(const nlohmann::json& j) {
           j.at("f2_n_per_kmh2").get<double>()};
 }
 
+core::RoadLoad measured_of(const nlohmann::json& r) {
+  return road_load_from_json(r.contains("measured") ? r.at("measured") : r.at("simulated"));
+}
+
 namespace {
 
 nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
@@ -478,10 +482,10 @@ nlohmann::json to_json(const CoastdownRecord& r) {
     j["unusable_reason"] = e.unusable_reason;
     return j;
   }
-  j["simulated"] = to_json(e.fit.coefficients);
-  j["simulated_std_error"] = {{"f0_n", std::sqrt(std::max(0.0, e.fit.covariance(0, 0)))},
-                              {"f1_n_per_kmh", std::sqrt(std::max(0.0, e.fit.covariance(1, 1)))},
-                              {"f2_n_per_kmh2", std::sqrt(std::max(0.0, e.fit.covariance(2, 2)))}};
+  j["measured"] = to_json(e.fit.coefficients);
+  j["measured_std_error"] = {{"f0_n", std::sqrt(std::max(0.0, e.fit.covariance(0, 0)))},
+                             {"f1_n_per_kmh", std::sqrt(std::max(0.0, e.fit.covariance(1, 1)))},
+                             {"f2_n_per_kmh2", std::sqrt(std::max(0.0, e.fit.covariance(2, 2)))}};
   j["regression_residual_sd_n"] = e.fit.residual_sd_n;
   if (e.whole_trace.ok)
     j["whole_trace"] = {{"coefficients", to_json(e.whole_trace.coefficients)},

@@ -69,6 +69,9 @@ std::optional<Outcome> outcome_from_string(const std::string& s);
 nlohmann::json to_json(const core::RoadLoad& c);
 // Its inverse; throws nlohmann::json::exception when a member is missing or not a number.
 core::RoadLoad road_load_from_json(const nlohmann::json& j);
+// A usable coast-down record's measured coefficients (As, Bs, Cs; the standard's "simulated"): "measured", or
+// "simulated" in folders written before the name was unified. Throws like road_load_from_json when absent.
+core::RoadLoad measured_of(const nlohmann::json& coastdown_record);
 
 // The per-coast-down record (the "coastdown" event).
 struct CoastdownRecord {

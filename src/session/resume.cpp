@@ -50,7 +50,7 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         (void)road_load_from_json(r.at("set"));
         if (!r.at("usable").is_boolean()) throw std::invalid_argument("\"usable\" is not true or false");
         if (r.at("usable").get<bool>()) {
-          (void)road_load_from_json(r.at("simulated"));
+          (void)measured_of(r);
           (void)r.at("check").at("rows").size();
           (void)r.at("decision").at("kind").get<std::string>();
         }
@@ -95,8 +95,8 @@ Summary summary_from_record(const ResumePoint& p, const core::Profile& profile) 
   if (p.final_set) s.final_set = core::rounded(*p.final_set, profile.rounding);
   try {
     for (auto it = p.completed.rbegin(); it != p.completed.rend(); ++it)
-      if (it->value("usable", false) && it->contains("simulated")) {
-        s.measured = road_load_from_json(it->at("simulated"));
+      if (it->value("usable", false) && (it->contains("measured") || it->contains("simulated"))) {
+        s.measured = measured_of(*it);
         for (const auto& row : it->at("check").at("rows"))
           s.deviations.push_back({row.value("speed_kmh", 0.0), row.value("target_n", 0.0),
                                   row.value("measured_n", 0.0), row.value("deviation_n", 0.0),

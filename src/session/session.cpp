@@ -644,7 +644,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     cell_time_before_ = resume->cell_time_s;
     for (const auto& r : resume->completed) {
       if (r.value("usable", false))
-        method_->on_coastdown(road_load_from_json(r.at("set")), road_load_from_json(r.at("simulated")),
+        method_->on_coastdown(road_load_from_json(r.at("set")), measured_of(r),
                               r.at("check").at("pass").get<bool>());
       run_no = std::max(run_no, r.at("run").get<int>() + 1);
     }

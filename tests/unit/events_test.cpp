@@ -531,3 +531,14 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   EXPECT_FALSE(err.empty());
   fs::remove_all(dir);
 }
+
+TEST(Events, MeasuredCoefficientsAreReadUnderEitherName) {
+  // One name for As, Bs, Cs ("measured"); folders written before the name was unified say "simulated", the
+  // standard's word (GTR 15 §8.1.3, docs/standards.md §1.5). Both read the same; neither is a refusal.
+  const nlohmann::json now = {{"measured", {{"f0_n", 1.0}, {"f1_n_per_kmh", 2.0}, {"f2_n_per_kmh2", 3.0}}}};
+  const nlohmann::json before = {
+      {"simulated", {{"f0_n", 1.0}, {"f1_n_per_kmh", 2.0}, {"f2_n_per_kmh2", 3.0}}}};
+  EXPECT_TRUE(loadtrim::session::measured_of(now) == loadtrim::session::measured_of(before));
+  EXPECT_EQ(loadtrim::session::measured_of(now).f2_n_per_kmh2, 3.0);
+  EXPECT_THROW((void)loadtrim::session::measured_of(nlohmann::json::object()), std::exception);
+}
