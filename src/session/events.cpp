@@ -543,11 +543,27 @@ nlohmann::json record_json(const Event& e) {
   return j;
 }
 
+Observers::Observers(const std::vector<Observer*>& list) {
+  bool have_critical = false;
+  for (Observer* o : list) {
+    if (!o) continue;
+    bool critical = false;
+    try {
+      critical = o->critical();
+    } catch (...) {
+      critical = false;
+    }
+    critical = critical && !have_critical;
+    have_critical = have_critical || critical;
+    list_.push_back({o, critical});
+  }
+}
+
 Observers::Delivery Observers::deliver(const Event& e, const std::function<void(bool)>& before_each) {
   Delivery d;
   for (auto it = list_.begin(); it != list_.end();) {
-    Observer* o = *it;
-    const bool critical = o->critical();
+    Observer* o = it->observer;
+    const bool critical = it->critical;
     if (d.critical_failed && !critical) {  // nothing is shown that the record does not hold
       ++it;
       continue;
@@ -585,9 +601,9 @@ Observers::Delivery Observers::deliver(const Event& e, const std::function<void(
 }
 
 void Observers::progress(const Progress& p) {
-  for (Observer* o : list_) {
+  for (const Entry& e : list_) {
     try {
-      o->on_progress(p);
+      e.observer->on_progress(p);
     } catch (...) {  // progress is a view: a failing one never stops the session
     }
   }

@@ -441,7 +441,10 @@ class Observer {
 class Observers {
  public:
   Observers() = default;
-  explicit Observers(std::vector<Observer*> list) : list_(std::move(list)) {}
+  // Who is critical is settled here, once: the first observer that says so (the record), asked inside a
+  // try (one that throws is a view). A second observer claiming to be critical is a view too: only the
+  // record can fail a session, and no observer can change its role later.
+  explicit Observers(const std::vector<Observer*>& list);
   struct Delivery {
     bool critical_failed = false;
     std::string critical_error;        // what the failing critical observer said
@@ -454,7 +457,11 @@ class Observers {
   bool empty() const { return list_.empty(); }
 
  private:
-  std::vector<Observer*> list_;
+  struct Entry {
+    Observer* observer;
+    bool critical;
+  };
+  std::vector<Entry> list_;
 };
 
 }  // namespace loadtrim::session

@@ -247,3 +247,22 @@ TEST(SessionUnit, ALateFirstCoastDownIsRepeatedOrKeptWithAFindingAsTheProfileSay
     EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
   }
 }
+
+TEST(SessionUnit, OnlyTheFirstCriticalObserverCanFailASession) {
+  // docs/safety.md: only the record can end a session; a second observer that calls itself critical is a
+  // view, dropped once when it fails, and one whose critical() throws is a view too.
+  class ThrowsOnAsk : public Recorder {
+   public:
+    ThrowsOnAsk() : Recorder(true, "state") {}
+    bool critical() const override { throw std::runtime_error("asked"); }
+  };
+  FakeController c(loadtrim::testing::demo_truth());
+  Recorder record(true);
+  Recorder impostor(true, "state");  // says critical, fails on the first state change
+  ThrowsOnAsk thrower;
+  session::Session s(inputs(), options(), c, {&record, &impostor, &thrower});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  EXPECT_EQ(count(record, "observer_dropped"), 2);
+  EXPECT_TRUE(sum.rollers_stopped);
+}
