@@ -1,8 +1,42 @@
 #include "core/strategy.hpp"
 
+#include <algorithm>
+#include <cmath>
+
 #include "core/setting.hpp"
 
 namespace loadtrim::core {
+
+HoldPoint hold_point(double speed_kmh, std::span<const double> forces_n) {
+  HoldPoint hp;
+  hp.speed_kmh = speed_kmh;
+  hp.samples = static_cast<int>(forces_n.size());
+  if (forces_n.empty()) return hp;
+  double s1 = 0.0, s2 = 0.0;
+  for (double f : forces_n) {
+    s1 += f;
+    s2 += f * f;
+  }
+  const double n = static_cast<double>(forces_n.size());
+  hp.force_n = s1 / n;
+  hp.force_sd_n = std::sqrt(std::max(0.0, s2 / n - hp.force_n * hp.force_n));
+  return hp;
+}
+
+HoldPlan plan_hold_points(const LossMap& map, double from_kmh, double speed_limit_kmh) {
+  HoldPlan plan;
+  double v_prev = from_kmh;
+  for (double v : map.speeds_kmh) {
+    if (!(v <= speed_limit_kmh - 1.0)) {  // a NaN limit skips every point
+      plan.skipped_kmh.push_back(v);
+      continue;
+    }
+    plan.speeds_kmh.push_back(v);
+    plan.planned_s += std::abs(v - v_prev) / (3.6 * kHoldRampMps2) + 2.0 + map.settle_s + map.average_s;
+    v_prev = v;
+  }
+  return plan;
+}
 
 const char* to_string(FirstSetting f) {
   switch (f) {

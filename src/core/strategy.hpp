@@ -1,7 +1,7 @@
 // First-setting strategies. The standard fixes how acceptance is judged and each adjustment made, but leaves
-// the first setting to the lab ("or empirical values from a similar vehicle", docs/standards.md §3). All four give
-// the dyno setting as target minus an estimate of the vehicle's loss on the rollers, except the standard's
-// default. Pure: the data (EPA rows, hold readings, history) is passed in.
+// the first setting to the lab ("or empirical values from a similar vehicle", docs/standards.md §3). All four
+// give the dyno setting as target minus an estimate of the vehicle's loss on the rollers, except the
+// standard's default. Pure: the data (EPA rows, hold readings, history) is passed in.
 #pragma once
 
 #include <optional>
@@ -53,6 +53,19 @@ struct HoldPoint {
   int samples = 0;
 };
 RoadLoadFit fit_loss_map(std::span<const HoldPoint> points);
+// The mean and the (population) spread of the load-cell force over one averaging window.
+HoldPoint hold_point(double speed_kmh, std::span<const double> forces_n);
+
+// The loss map's plan, before it is run: the profile's speeds at or below the speed limit less 1 km/h, in the
+// profile's order (the others skipped), and the time they take: each ramp from the previous speed at the
+// motoring rate kHoldRampMps2, 2 s to reach the setpoint, then settle and average (common practice, no
+// source). The session shortens the plain warm-up hold by planned_s: the map is part of the warm-up.
+inline constexpr double kHoldRampMps2 = 1.5;
+struct HoldPlan {
+  std::vector<double> speeds_kmh, skipped_kmh;
+  double planned_s = 0.0;
+};
+HoldPlan plan_hold_points(const LossMap& map, double from_kmh, double speed_limit_kmh);
 
 // (d) History: the loss seen in earlier sessions of the same vehicle on the same cell (target − accepted
 // set).

@@ -260,16 +260,8 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   t_motoring_from_ = t_now_;
   // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
   // time (ramps at the motoring rate, settle and average at each speed).
-  double map_s = 0.0;
-  if (measure_loss_map && info_.has("hold-force")) {
-    double v_prev = w.speed_kmh;
-    for (double v : in_.profile.loss_map.speeds_kmh)
-      if (v <= speed_limit_kmh_ - 1.0) {
-        map_s += std::abs(v - v_prev) / (3.6 * 1.5) + 2.0 + in_.profile.loss_map.settle_s +
-                 in_.profile.loss_map.average_s;
-        v_prev = v;
-      }
-  }
+  const core::HoldPlan plan = core::plan_hold_points(in_.profile.loss_map, w.speed_kmh, speed_limit_kmh_);
+  const double map_s = measure_loss_map && info_.has("hold-force") ? plan.planned_s : 0.0;
   duration_s = std::max(0.0, duration_s - map_s);
   emit(ev::WarmUpStarted{w.speed_kmh, duration_s, map_s});
   const double t0 = t_now_;
@@ -308,11 +300,8 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
     if (!info_.has("hold-force")) {
       emit(ev::LossMapSkipped{"the controller does not report force in speed hold"});
     } else {
-      for (double v : in_.profile.loss_map.speeds_kmh) {
-        if (v > speed_limit_kmh_ - 1.0) {
-          emit(ev::LossMapPointSkipped{v, "above the speed limit"});
-          continue;
-        }
+      for (double v : plan.skipped_kmh) emit(ev::LossMapPointSkipped{v, "above the speed limit"});
+      for (double v : plan.speeds_kmh) {
         if (Result rr = hold_and_wait(v, "loss-map hold"); !rr.ok()) return fault(rr, "loss map");
         const double ts = t_now_;
         if (Result rr = motion_.collect(
@@ -328,17 +317,10 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
                 &avg);
             !rr.ok())
           return fault(rr, "loss map");
-        core::HoldPoint hp;
-        hp.speed_kmh = v;
-        double s1 = 0, s2 = 0;
-        for (const auto& s : avg) {
-          s1 += s.force_n;
-          s2 += s.force_n * s.force_n;
-        }
-        hp.samples = static_cast<int>(avg.size());
-        hp.force_n = s1 / std::max<std::size_t>(1, avg.size());
-        hp.force_sd_n =
-            std::sqrt(std::max(0.0, s2 / std::max<std::size_t>(1, avg.size()) - hp.force_n * hp.force_n));
+        std::vector<double> forces;
+        forces.reserve(avg.size());
+        for (const auto& sm : avg) forces.push_back(sm.force_n);
+        const core::HoldPoint hp = core::hold_point(v, forces);
         loss_map_.push_back(hp);
         emit(ev::LossMapPoint{hp});
       }

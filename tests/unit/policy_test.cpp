@@ -331,3 +331,30 @@ TEST(AxleLayout, EpaDriveCodesOfTheExtract) {
   EXPECT_EQ(single, 3110);
   EXPECT_EQ(two, 375);
 }
+
+// ---- hold points
+// -------------------------------------------------------------------------------------------
+
+TEST(HoldPoints, ThePlanSkipsWhatTheLimitForbidsAndTimesTheRest) {
+  // Speeds 130, 100, 70, 40, 20 km/h from the 80 km/h warm-up, settle 5 s + average 5 s each. With a 125 km/h
+  // limit, 130 is skipped (above 125 − 1). By hand: ramps 80→100→70→40→20 = 20 + 30 + 30 + 20 = 100 km/h at
+  // 1.5 m/s² (kHoldRampMps2, common practice, no source) = 100/(3.6·1.5) s, plus 4 × (2 + 5 + 5) s.
+  core::LossMap map;  // the profile's defaults
+  const core::HoldPlan plan = core::plan_hold_points(map, 80.0, 125.0);
+  EXPECT_EQ(plan.speeds_kmh, (std::vector<double>{100.0, 70.0, 40.0, 20.0}));
+  EXPECT_EQ(plan.skipped_kmh, (std::vector<double>{130.0}));
+  EXPECT_NEAR(plan.planned_s, 100.0 / (3.6 * 1.5) + 4 * 12.0, 1e-12);
+  // 131 km/h keeps 130 (130 ≤ 131 − 1); a NaN limit skips everything.
+  EXPECT_EQ(core::plan_hold_points(map, 80.0, 131.0).speeds_kmh.size(), 5u);
+  EXPECT_TRUE(core::plan_hold_points(map, 80.0, kNaN).speeds_kmh.empty());
+}
+
+TEST(HoldPoints, MeanAndSpreadOfAWindow) {
+  // By hand: forces 10, 12, 14 N → mean 12 N, population spread sqrt(((−2)² + 0 + 2²)/3) = sqrt(8/3) N.
+  const std::vector<double> f = {10.0, 12.0, 14.0};
+  const core::HoldPoint hp = core::hold_point(70.0, f);
+  EXPECT_EQ(hp.samples, 3);
+  EXPECT_DOUBLE_EQ(hp.force_n, 12.0);
+  EXPECT_NEAR(hp.force_sd_n, std::sqrt(8.0 / 3.0), 1e-12);
+  EXPECT_EQ(core::hold_point(70.0, {}).samples, 0);
+}
