@@ -133,6 +133,9 @@ std::uint8_t xor_of(std::string_view s) {
   return x;
 }
 
+// The largest count a scaled field carries either way (well inside the doubles' exact integers, 2^53).
+constexpr double kMaxCounts = 1e15;
+
 bool is_power_of_two(long v) {
   return v > 0 && (v & (v - 1)) == 0;
 }
@@ -513,7 +516,7 @@ std::string encode_values(const Table& t, const std::vector<Field>& fields, cons
       words.push_back(std::to_string(flags_to_device(t, static_cast<std::uint32_t>(v))));
     } else if (f.scale > 0.0) {
       const double x = std::round(v * f.scale);
-      if (!(std::abs(x) <= 1e15))
+      if (!(std::abs(x) <= kMaxCounts))
         return std::string(to_string(f.q)) + " = " + shortest(v) + " does not fit the field's counts of 1/" +
                shortest(f.scale);
       words.push_back(std::to_string(static_cast<long long>(x)));
@@ -562,6 +565,10 @@ std::string decode_values(const Table& t, const std::vector<Field>& fields,
     }
     const auto v = parse_double(w);
     if (!v) return std::string(to_string(f.q)) + " \"" + w.substr(0, 16) + "\" is not a finite number";
+    // A scaled field carries whole counts, within the bound encode_values keeps (exact in a double).
+    if (f.scale > 0.0 && !(*v == std::floor(*v) && std::abs(*v) <= kMaxCounts))
+      return std::string(to_string(f.q)) + " \"" + w.substr(0, 16) +
+             "\" is not a whole number of counts of 1/" + shortest(f.scale) + " up to 10^15";
     const double x = f.scale > 0.0 ? *v / f.scale : *v;
     if (!std::isfinite(x))
       return std::string(to_string(f.q)) + " \"" + w.substr(0, 16) +

@@ -157,12 +157,12 @@ TEST(FramedAdapter, ReadBacksNoDynoCouldHoldAreRefused) {
     EXPECT_NE(r.message.find("inertia of -1491 kg"), std::string::npos) << r.message;
   }
   {
-    Rig rig;  // 1e308 counts of 0.1 kg: 1e307 kg
-    rig.link->answer = [](const auto&) { return Reply{frame({"RI", "0", "1e308"})}; };
+    Rig rig;  // 10^15 counts of 0.1 kg (the most a field carries): 1e14 kg
+    rig.link->answer = [](const auto&) { return Reply{frame({"RI", "0", "1000000000000000"})}; };
     double kg = 0;
     const Result r = rig.c->read_inertia(kg);
     EXPECT_EQ(r.status, Result::Status::fatal);
-    EXPECT_NE(r.message.find("inertia of 1e+307 kg"), std::string::npos) << r.message;
+    EXPECT_NE(r.message.find("inertia of 1e+14 kg"), std::string::npos) << r.message;
   }
   {
     // The write is echoed, the read-back says -1491 kg: refused as a read-back no dyno holds.
@@ -176,9 +176,11 @@ TEST(FramedAdapter, ReadBacksNoDynoCouldHoldAreRefused) {
     EXPECT_NE(r.message.find("read-back inertia of -1491 kg"), std::string::npos) << r.message;
   }
   {
-    // f2 of 1e300 (counts of 1e-5): F(160 km/h) = 1e300 × 160² N, far beyond any dyno's 1e6 N.
+    // f2 of 10^10 (10^15 counts of 1e-5): F(160 km/h) = 1e10 × 160² N, far beyond any dyno's 1e6 N.
     Rig rig;
-    rig.link->answer = [](const auto&) { return Reply{frame({"RC", "0", "4238", "3135", "1e305"})}; };
+    rig.link->answer = [](const auto&) {
+      return Reply{frame({"RC", "0", "4238", "3135", "1000000000000000"})};
+    };
     core::RoadLoad c;
     const Result r = rig.c->read_coefficients(c);
     EXPECT_EQ(r.status, Result::Status::fatal);

@@ -164,11 +164,16 @@ TEST(FramedDialect, NonFiniteNumbersAreRefused) {
     EXPECT_NE(e.find("roller_diameter_m"), std::string::npos) << bad << ": " << e;
     EXPECT_NE(e.find("not a finite number"), std::string::npos) << bad << ": " << e;
   }
-  // Finite on the wire but not once scaled: 1e305 counts of 1e6 units (a scale of 1e-6) is beyond a double.
-  std::vector<Field> f;
-  ASSERT_EQ(parse_fields("inertia_kg*0.000001", f), "");
+  // A scaled field carries whole counts up to 10^15 (docs/framed.md section 2), e.g. inertia_kg*10: counts
+  // of 0.1 kg. 1e305 counts, or a fraction of a count, are not what such a field carries.
+  for (const std::string bad : {"1e305", "14910.5", "1000000000000001"}) {
+    Values out;
+    EXPECT_NE(decode_values(t, t[Op::read_inertia].reply, {bad}, out).find("not a whole number of counts"),
+              std::string::npos)
+        << bad;
+  }
   Values out;
-  EXPECT_NE(decode_values(t, f, {"1e305"}, out).find("beyond any number"), std::string::npos);
+  EXPECT_EQ(decode_values(t, t[Op::read_inertia].reply, {"1000000000000000"}, out), "");  // 10^15: the bound
   // The simulator shares the codec: a request with "nan" is refused (status 2), not acted on.
   sim::FramedFrontEnd fe(physics::Truth{}, sim::SimSettings{}, t);
   std::vector<std::string> replies;
