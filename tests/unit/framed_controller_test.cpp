@@ -97,10 +97,11 @@ class ScriptedLink : public line::Transport {
   std::vector<std::pair<Clock::time_point, std::string>> in_flight_;
 };
 
-// Reply timeout 200 ms: the adapter's quiet window after a timeout is a quarter of it, 50 ms.
+// Reply timeout 400 ms: the adapter's quiet window after a timeout is a quarter of it, 100 ms. The scripts'
+// times keep at least 50 ms from every edge, so that a loaded machine does not change what happens.
 controller::Timeouts timeouts() {
   controller::Timeouts t;
-  t.reply = milliseconds(200);
+  t.reply = milliseconds(400);
   t.heartbeat_interval = milliseconds(10000);  // no heartbeats in the scripts
   return t;
 }
@@ -188,17 +189,18 @@ TEST(FramedAdapter, ReadBacksNoDynoCouldHoldAreRefused) {
   }
 }
 
-// Replies carry no sequence number. The first read gets its reply late (after its 200 ms deadline); the
-// second must be answered by its own reply (2222.0 kg, 100 ms after it was sent), never by the late one
-// (1111.0 kg). Over TCP the late reply comes 300 ms after the first request; over a serial line 220 ms, while
-// the adapter waits for the line to fall quiet before sending the second.
+// Replies carry no sequence number. The first read gets its reply 450 ms late, after its 400 ms deadline; the
+// second must be answered by its own reply (2222.0 kg, 200 ms after it was sent), never by the late one
+// (1111.0 kg). Over TCP the late reply is lost with the connection the adapter opens again; over a serial
+// line it arrives while the adapter waits for the line to fall quiet (400 to 500 ms) before sending the
+// second.
 TEST(FramedAdapter, ALateReplyIsNeverTakenForTheNextRequestsAnswer) {
   for (const bool serial : {false, true}) {
     Rig rig(serial);
     int n = 0;
     rig.link->answer = [&](const auto&) {
-      return ++n == 1 ? Reply{frame({"RI", "0", "11110"}), milliseconds(serial ? 220 : 300)}
-                      : Reply{frame({"RI", "0", "22220"}), milliseconds(100)};
+      return ++n == 1 ? Reply{frame({"RI", "0", "11110"}), milliseconds(450)}
+                      : Reply{frame({"RI", "0", "22220"}), milliseconds(200)};
     };
     double kg = 0;
     const Result first = rig.c->read_inertia(kg);
@@ -216,10 +218,10 @@ TEST(FramedAdapter, ALateReplyIsNeverTakenForTheNextRequestsAnswer) {
 // the device never answers.
 TEST(FramedAdapter, AStopIsNotAcknowledgedByALateHoldReply) {
   for (const bool serial : {false, true})
-    for (const int late_ms : {220, 350}) {
-      // Over a serial line: at 220 ms it arrives while the stop waits for the line to fall quiet (dropped);
-      // at 350 ms after the stop was sent (200 ms timeout + 50 ms quiet window) and before the stop's
-      // deadline (about 450 ms), where only its mode (hold, not stop) tells it apart.
+    for (const int late_ms : {450, 700}) {
+      // Over a serial line: at 450 ms it arrives while the stop waits for the line to fall quiet (dropped);
+      // at 700 ms after the stop was sent (400 ms timeout + 100 ms quiet window) and before the stop's
+      // deadline (about 900 ms), where only its mode (hold, not stop) tells it apart.
       Rig rig(serial);
       rig.link->answer = [&](const std::vector<std::string>& q) -> std::optional<Reply> {
         if (q[2] == "H") return Reply{frame({"MD", "0", "1"}), milliseconds(late_ms)};
