@@ -1,7 +1,8 @@
 #include "framed/framed_controller.hpp"
 
+#include <algorithm>
 #include <cmath>
-#include <thread>
+#include <cstdio>
 
 #include "adapter_row.hpp"
 
@@ -19,11 +20,18 @@ std::unique_ptr<line::Transport> transport_for(const Settings& s) {
 controller::Mode to_mode(double v) {
   return static_cast<controller::Mode>(static_cast<int>(v));
 }
-std::string fault_of(std::uint32_t flags) {
-  return (flags & controller::kFlagWatchdog) ? "WATCHDOG"
-         : (flags & controller::kFlagEstop)  ? "ESTOP"
-         : (flags & controller::kFlagFault)  ? "FAULT"
-                                             : "";
+// The modes a device may state in its reply to a command: the one commanded; a stop at standstill may end in
+// idle at once, and free coast reads as idle (docs/framed.md).
+bool mode_answers(controller::Mode commanded, controller::Mode stated) {
+  using M = controller::Mode;
+  switch (commanded) {
+    case M::controlled_stop:
+      return stated == M::controlled_stop || stated == M::idle;
+    case M::free_coast:
+      return stated == M::idle;
+    default:
+      return stated == commanded;
+  }
 }
 }  // namespace
 
@@ -37,6 +45,7 @@ FramedController::FramedController(const controller::CellConfig& cell)
                        adapters::cell_limits(cell)) {}
 
 Result FramedController::do_connect(controller::Deadline d) {
+  // dirty_ stays: on a serial line a late reply may still arrive after the port is opened again.
   do_disconnect();
   splitter_.reset();
   frames_.clear();
@@ -45,7 +54,61 @@ Result FramedController::do_connect(controller::Deadline d) {
 
 void FramedController::do_disconnect() {
   if (transport_->is_open()) transport_->close();
-  streaming_ = false;
+  pacer_.stop();
+}
+
+Result FramedController::read_frames(controller::Deadline d) {
+  std::string bytes;
+  if (Result r = transport_->read_some(bytes, d); !r.ok()) return r;
+  splitter_.feed(bytes, [&](std::string_view payload, bool noise) {
+    if (noise) {
+      ++stats_.lines_rejected;
+      stats_.last_rejected = "bytes outside a frame, or a frame cut off or too long";
+      return;
+    }
+    Decoded dd = decode_payload(payload, table_.checksum);
+    if (!dd.ok()) {
+      ++stats_.lines_rejected;
+      stats_.last_rejected = dd.error + ": " + std::string(payload.substr(0, 80));
+      return;
+    }
+    frames_.push_back(std::move(dd.words));
+  });
+  return Result::success();
+}
+
+Result FramedController::resync(controller::Deadline d, const std::string& before) {
+  // Over TCP a new connection leaves a late reply on the old one; a serial port opened again may still
+  // receive it, hence the quiet window too.
+  transport_->close();
+  splitter_.reset();
+  frames_.clear();
+  if (Result r = transport_->open(d); !r.ok()) return r;
+  const auto quiet = std::clamp<Clock::duration>(timeouts().reply / 4, std::chrono::milliseconds(10),
+                                                 std::chrono::milliseconds(250));
+  auto last_bytes = Clock::now();
+  std::size_t dropped = 0;
+  for (;;) {
+    const auto now = Clock::now();
+    if (now - last_bytes >= quiet) break;
+    if (now >= d)
+      return Result::retry("replies still arriving after an earlier request timed out (" +
+                           std::to_string(dropped) + " dropped); " + before + " not sent");
+    const std::size_t frames_before = frames_.size();
+    const auto rejected_before = stats_.lines_rejected;
+    if (Result r = read_frames(std::min(d, last_bytes + quiet)); !r.ok()) return r;
+    if (frames_.size() != frames_before || stats_.lines_rejected != rejected_before)
+      last_bytes = Clock::now();
+    for (const auto& f : frames_) {
+      ++dropped;
+      ++stats_.lines_rejected;
+      stats_.last_rejected = "late reply " + f[0] + " (after its request timed out)";
+    }
+    frames_.clear();
+  }
+  splitter_.reset();  // a frame cut off by the quiet window is not a reply either
+  dirty_ = false;
+  return Result::success();
 }
 
 Result FramedController::transact(Op op, const Values& in, Values& out, controller::Deadline d) {
@@ -57,12 +120,16 @@ Result FramedController::transact(Op op, const Values& in, Values& out, controll
   std::vector<std::string> words{c.code, std::to_string(table_.channel)};
   if (std::string e = encode_values(table_, c.request, in, words); !e.empty())
     return Result::fail("cannot send " + what + ": " + e);
+  if (dirty_)
+    if (Result r = resync(d, what); !r.ok()) return r;
   // One request at a time: whatever was read before this request is a late reply to an earlier one.
   for (const auto& f : frames_) {
     ++stats_.lines_rejected;
     stats_.last_rejected = "late reply " + f[0];
   }
   frames_.clear();
+  // From here until its reply is read, a reply to this request may be on its way.
+  dirty_ = true;
   if (Result r = transport_->write(encode_frame(words, table_.checksum), d); !r.ok()) return r;
   for (;;) {
     while (!frames_.empty()) {
@@ -73,6 +140,7 @@ Result FramedController::transact(Op op, const Values& in, Values& out, controll
         stats_.last_rejected = "reply " + w[0] + " while waiting for " + c.code;
         continue;
       }
+      dirty_ = false;  // this request's reply: the link is in step again
       if (w.size() < 2 || w[1].size() != 1 || w[1][0] < '0' || w[1][0] > '9')
         return Result::fail("reply to " + what + " has no status digit");
       const int status = w[1][0] - '0';
@@ -84,25 +152,19 @@ Result FramedController::transact(Op op, const Values& in, Values& out, controll
       const std::vector<std::string> values(w.begin() + 2, w.end());
       if (std::string e = decode_values(table_, c.reply, values, out); !e.empty())
         return Result::fail("reply to " + what + ": " + e);
+      if (const std::uint64_t fresh = out.unmapped_flags & ~warned_bits_; fresh != 0) {
+        warned_bits_ |= fresh;
+        char hex[24];
+        std::snprintf(hex, sizeof hex, "0x%llX", static_cast<unsigned long long>(fresh));
+        events_.push_back(
+            std::string("WARNING framed: status-word bits ") + hex + " in the reply to " + what +
+            " are not mapped by [framed.flags] (fault, estop, watchdog, limit, at_setpoint) and "
+            "are ignored");
+      }
       return Result::success();
     }
     if (Clock::now() >= d) return Result::retry("no reply to " + what + " before the deadline");
-    std::string bytes;
-    if (Result r = transport_->read_some(bytes, d); !r.ok()) return r;
-    splitter_.feed(bytes, [&](std::string_view payload, bool noise) {
-      if (noise) {
-        ++stats_.lines_rejected;
-        stats_.last_rejected = "bytes outside a frame, or a frame cut off or too long";
-        return;
-      }
-      Decoded dd = decode_payload(payload, table_.checksum);
-      if (!dd.ok()) {
-        ++stats_.lines_rejected;
-        stats_.last_rejected = dd.error + ": " + std::string(payload.substr(0, 80));
-        return;
-      }
-      frames_.push_back(std::move(dd.words));
-    });
+    if (Result r = read_frames(d); !r.ok()) return r;
   }
 }
 
@@ -196,32 +258,38 @@ Result FramedController::do_command(controller::Mode mode, double value, control
       op = Op::free;
       break;
   }
-  return transact(op, in, out, d);
+  if (Result r = transact(op, in, out, d); !r.ok()) return r;
+  // The reply's mode is the device's word on what it now does: another mode is not this command's answer
+  // (a late reply to an earlier command) or a command not carried out.
+  if (out.contains(Qty::mode) && !mode_answers(mode, to_mode(out.get(Qty::mode))))
+    return Result::fail(std::string("the reply to ") + to_string(op) + " (" + table_[op].code +
+                        ") states mode " + controller::to_string(to_mode(out.get(Qty::mode))) + ", not the " +
+                        controller::to_string(mode) + " commanded");
+  return Result::success();
 }
 
 Result FramedController::do_stream(double rate_hz, controller::Deadline) {
-  streaming_ = rate_hz > 0.0;
-  t0_ = next_poll_ = Clock::now();
+  if (rate_hz > 0.0)
+    pacer_.start();
+  else
+    pacer_.stop();
   return Result::success();
 }
 
 Result FramedController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) {
-  if (!streaming_) return Result::success();
-  const auto period =
-      std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(1.0 / table_.poll_rate_hz));
-  if (next_poll_ > d) return Result::success();
-  std::this_thread::sleep_until(next_poll_);
-  const auto now = Clock::now();
-  next_poll_ += period;
-  if (next_poll_ < now) next_poll_ = now + period;  // fell behind: no burst to catch up
+  // A deadline already passed (the controller layer collecting what was read before a command's
+  // acknowledgement) leaves no time for a reply: no poll then, or its reply would come late.
+  if (Clock::now() >= d || !pacer_.wait_turn(d, table_.poll_rate_hz)) return Result::success();
   Values v;
   if (Result r = transact(Op::sample, {}, v, d); !r.ok()) return r;
+  if (!v.contains(Qty::time_s))  // validate() requires it; never the host's clock in its place
+    return Result::fail("the sample reply carries no time_s (framed.ops.sample.reply)");
   controller::Sample s;
   s.speed_kmh = v.get(Qty::speed_kmh);
   s.force_n = v.get(Qty::force_n);
   s.mode = to_mode(v.get(Qty::mode));
   s.flags = static_cast<std::uint32_t>(v.get(Qty::flags));
-  s.time_s = v.contains(Qty::time_s) ? v.get(Qty::time_s) : std::chrono::duration<double>(now - t0_).count();
+  s.time_s = v.get(Qty::time_s);
   s.index = index_++;
   out.push_back(s);
   return Result::success();
@@ -239,13 +307,18 @@ Result FramedController::do_status(controller::StatusReport& out, controller::De
   out.speed_kmh = v.get(Qty::speed_kmh);
   out.flags = static_cast<std::uint32_t>(v.get(Qty::flags));
   if (v.contains(Qty::time_s)) out.time_s = v.get(Qty::time_s);
-  out.fault = fault_of(out.flags);
+  out.fault = adapters::fault_name(out.flags);
   return Result::success();
 }
 
 Result FramedController::do_clear_fault(controller::Deadline d) {
   Values v;
   return transact(Op::clear_fault, {}, v, d);
+}
+
+void FramedController::do_take_events(std::vector<std::string>& out) {
+  out.insert(out.end(), events_.begin(), events_.end());
+  events_.clear();
 }
 
 }  // namespace loadtrim::framed

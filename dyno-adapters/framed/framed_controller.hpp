@@ -1,8 +1,16 @@
 // The framed ASCII adapter (docs/framed.md) behind the controller interface: one request at a time, each a
 // frame built from the cell file's command table (framed_dialect.hpp), its reply read within the hook's
 // deadline. Samples are polled with the table's `sample` command at framed.poll_rate_hz (streamed() is
-// false); faults are seen in the status word of every sample. Runs over the line adapter's byte transports
-// (TCP or a serial line).
+// false) and timed by the controller's clock (the table's time_s); faults are seen in the status word of
+// every sample. Runs over the line adapter's byte transports (TCP or a serial line).
+//
+// Replies carry no sequence number, so a reply that comes after its request timed out could be taken for the
+// answer to the next request with the same code. After any request that got no reply in time the link is
+// dirty: before the next request the adapter opens the link again (over TCP the late reply stays on the old
+// connection) and drops whatever arrives until the link has been quiet for a quarter of the reply timeout
+// (10 to 250 ms; a serial line opened again may still receive it), all within that request's deadline; a
+// link that does not fall quiet fails the request as retryable. A reply that states a mode must state one
+// the command leads to (the last guard against a reply later than the quiet window).
 #pragma once
 
 #include <chrono>
@@ -16,6 +24,7 @@
 #include "framed/framed_dialect.hpp"
 #include "line/transport.hpp"
 #include "link.hpp"
+#include "poller.hpp"
 
 namespace loadtrim::framed {
 
@@ -49,6 +58,8 @@ class FramedController : public controller::Controller {
   controller::Result do_heartbeat(controller::Deadline d) override;
   controller::Result do_status(controller::StatusReport& out, controller::Deadline d) override;
   controller::Result do_clear_fault(controller::Deadline d) override;
+  // Warnings (once each): status-word bits the table does not map.
+  void do_take_events(std::vector<std::string>& out) override;
   // A scaled field carries whole counts: a read-back may differ from the value written by half a count of
   // the field that carried it (and by nothing more).
   double readback_tolerance(double written) const override;
@@ -56,15 +67,21 @@ class FramedController : public controller::Controller {
  private:
   // Sends the operation's request with these values and reads its reply's values, within the deadline.
   controller::Result transact(Op op, const Values& in, Values& out, controller::Deadline d);
+  // Reads what is on the link into frames_ (until the deadline or the first bytes).
+  controller::Result read_frames(controller::Deadline d);
+  // After a timeout: opens the link again and drops what arrives until it is quiet (see above).
+  controller::Result resync(controller::Deadline d, const std::string& before);
   void remember_resolution(double written, const std::vector<Field>& fields, Qty q);
   std::unique_ptr<line::Transport> transport_;
   Table table_;
   FrameSplitter splitter_;
   std::vector<std::vector<std::string>> frames_;  // complete reply frames read, not yet taken
-  bool streaming_ = false;
+  bool dirty_ = false;                            // a request timed out: its reply may still be on its way
+  adapters::PollPacer pacer_;
   std::uint64_t index_ = 0;
-  std::chrono::steady_clock::time_point next_poll_{}, t0_{};
   std::vector<std::pair<double, double>> resolutions_;  // (value written, half a count of its field)
+  std::uint64_t warned_bits_ = 0;                       // unmapped status-word bits already warned about
+  std::vector<std::string> events_;
 };
 
 }  // namespace loadtrim::framed

@@ -32,7 +32,7 @@ constexpr std::array<const char*, kOps> kOpNames = {"identify",
 constexpr std::array<const char*, kQtys> kQtyNames = {
     "speed_kmh",       "force_n",       "time_s",       "mode",          "flags",
     "inertia_kg",      "f0_n",          "f1_n_per_kmh", "f2_n_per_kmh2", "roller_diameter_m",
-    "base_inertia_kg", "max_speed_kmh", "max_force_n",  "time_scale"};
+    "base_inertia_kg", "max_speed_kmh", "max_force_n",  "time_scale",    "channel"};
 
 using Qs = std::vector<Qty>;
 
@@ -52,10 +52,12 @@ Rule rule(Op op) {
               {},
               {Q::roller_diameter_m, Q::base_inertia_kg, Q::max_speed_kmh, Q::max_force_n},
               {Q::time_scale}};
+    // The controller's clock in both: samples are timed by it (never by the host's clock, which would
+    // defeat the clock guard), and the guard compares the status clock with the samples'.
     case Op::status:
-      return {true, {}, {Q::mode, Q::speed_kmh, Q::flags}, {Q::time_s, Q::force_n}};
+      return {true, {}, {Q::mode, Q::speed_kmh, Q::flags, Q::time_s}, {Q::force_n}};
     case Op::sample:
-      return {true, {}, {Q::speed_kmh, Q::force_n, Q::mode, Q::flags}, {Q::time_s}};
+      return {true, {}, {Q::speed_kmh, Q::force_n, Q::mode, Q::flags, Q::time_s}, {}};
     case Op::hold:
       return {true, {Q::speed_kmh}, {}, {Q::mode}};
     case Op::force:
@@ -103,10 +105,12 @@ bool good_code(std::string_view c) {
   return true;
 }
 
+// A finite decimal number: "nan", "inf" and values beyond a double are not numbers here.
 std::optional<double> parse_double(std::string_view s) {
   double d = 0.0;
   const auto r = std::from_chars(s.data(), s.data() + s.size(), d);
-  if (s.empty() || r.ec != std::errc() || r.ptr != s.data() + s.size()) return std::nullopt;
+  if (s.empty() || r.ec != std::errc() || r.ptr != s.data() + s.size() || !std::isfinite(d))
+    return std::nullopt;
   return d;
 }
 
@@ -129,6 +133,9 @@ std::uint8_t xor_of(std::string_view s) {
   return x;
 }
 
+// The largest count a scaled field carries either way (well inside the doubles' exact integers, 2^53).
+constexpr double kMaxCounts = 1e15;
+
 bool is_power_of_two(long v) {
   return v > 0 && (v & (v - 1)) == 0;
 }
@@ -140,6 +147,21 @@ const char* to_string(Op op) {
 }
 const char* to_string(Qty q) {
   return q < Qty::count ? kQtyNames[static_cast<std::size_t>(q)] : "?";
+}
+
+double min_scale(Qty q) {
+  switch (q) {
+    case Qty::f0_n:
+      return 10.0;  // 0.1 N (docs/standards.md §1.2)
+    case Qty::f1_n_per_kmh:
+      return 1e3;  // 0.001 N/(km/h) (docs/standards.md §1.2)
+    case Qty::f2_n_per_kmh2:
+      return 1e5;  // 0.00001 N/(km/h)² (docs/standards.md §1.2)
+    case Qty::inertia_kg:
+      return 1.0;  // 1 kg (common practice, no source)
+    default:
+      return 0.0;
+  }
 }
 
 std::string parse_fields(std::string_view spec, std::vector<Field>& out) {
@@ -181,8 +203,9 @@ std::string parse_fields(std::string_view spec, std::vector<Field>& out) {
         const auto s = parse_double(w.substr(star + 1));
         if (!s || !(*s >= 1e-6 && *s <= 1e9))
           return "field \"" + std::string(w) + "\": the scale after '*' must be a number from 1e-06 to 1e+09";
-        if (f.q == Qty::mode || f.q == Qty::flags)
-          return "field \"" + std::string(w) + "\": mode and flags are device codes and take no scale";
+        if (f.q == Qty::mode || f.q == Qty::flags || f.q == Qty::channel)
+          return "field \"" + std::string(w) +
+                 "\": mode, flags and channel are device codes and take no scale";
         f.scale = *s;
       }
     }
@@ -239,13 +262,43 @@ core::Problems validate(const Table& t) {
         }
       }
       for (Qty q : needs)
-        if (!seen[static_cast<std::size_t>(q)]) err(k, std::string("must carry ") + to_string(q));
+        if (!seen[static_cast<std::size_t>(q)])
+          err(k, std::string("must carry ") + to_string(q) +
+                     (q == Qty::time_s ? " (the controller's clock: samples are timed by it, never by the "
+                                         "host's, and the clock guard checks it)"
+                                       : ""));
       if (fs.size() > 24) err(k, "allowed at most 24 fields");
     };
     check(c.request, r.request_needs, {}, "request");
     for (const auto& f : c.request)
       if (f.kind == Field::Kind::skip) err(key + ".request", "\"-\" is for replies only");
-    check(c.reply, r.reply_needs, r.reply_may, "reply");
+    Qs reply_may = r.reply_may;
+    reply_may.push_back(Qty::channel);  // any reply may name the controller that answers
+    check(c.reply, r.reply_needs, reply_may, "reply");
+    // A coarse count would let the device hold a rounded value while the record keeps the one written.
+    for (const char* which : {"request", "reply"})
+      for (const auto& f : std::string_view(which) == "request" ? c.request : c.reply) {
+        const double least = min_scale(f.q);
+        if (f.kind != Field::Kind::quantity || f.scale == 0.0 || least == 0.0 || f.scale >= least) continue;
+        const bool inertia = f.q == Qty::inertia_kg;
+        const char* unit = inertia                    ? "kg"
+                           : f.q == Qty::f0_n         ? "N"
+                           : f.q == Qty::f1_n_per_kmh ? "N/(km/h)"
+                                                      : "N/(km/h)²";
+        const char* finest = inertia                    ? "1"
+                             : f.q == Qty::f0_n         ? "0.1"
+                             : f.q == Qty::f1_n_per_kmh ? "0.001"
+                                                        : "0.00001";
+        char allowed[32];
+        std::snprintf(allowed, sizeof allowed, "%.0f", least);
+        err(key + "." + which, format_fields({f}) + " carries counts of " + shortest(1.0 / f.scale) + " " +
+                                   unit + ", coarser than the " + finest + " " + unit + " it must resolve (" +
+                                   (inertia ? "common practice, no source"
+                                            : "set coefficients as finely as they are reported, "
+                                              "docs/standards.md §1.2") +
+                                   "): allowed scale " + allowed +
+                                   " to 1000000000, or no scale (a plain decimal)");
+      }
     for (std::size_t j = 0; j < i; ++j) {
       const Command& o = t.ops[j];
       if (!o.present || o.code != c.code || o.request.size() != c.request.size()) continue;
@@ -456,11 +509,14 @@ std::string encode_values(const Table& t, const std::vector<Field>& fields, cons
     if (!std::isfinite(v)) return std::string(to_string(f.q)) + " is not a finite number";
     if (f.q == Qty::mode) {
       words.push_back(std::to_string(mode_to_device(t, static_cast<controller::Mode>(static_cast<int>(v)))));
+    } else if (f.q == Qty::channel) {
+      if (!(v >= 0.0 && v <= 99.0 && v == std::floor(v))) return "channel " + shortest(v) + " is not 0 to 99";
+      words.push_back(std::to_string(static_cast<int>(v)));
     } else if (f.q == Qty::flags) {
       words.push_back(std::to_string(flags_to_device(t, static_cast<std::uint32_t>(v))));
     } else if (f.scale > 0.0) {
       const double x = std::round(v * f.scale);
-      if (!(std::abs(x) <= 1e15))
+      if (!(std::abs(x) <= kMaxCounts))
         return std::string(to_string(f.q)) + " = " + shortest(v) + " does not fit the field's counts of 1/" +
                shortest(f.scale);
       words.push_back(std::to_string(static_cast<long long>(x)));
@@ -496,11 +552,28 @@ std::string decode_values(const Table& t, const std::vector<Field>& fields,
       const auto n = parse_integer(w);
       if (!n || *n < 0) return "status word " + w.substr(0, 16) + " is not a non-negative integer";
       out.set(f.q, static_cast<double>(flags_from_device(t, static_cast<std::uint64_t>(*n))));
+      out.unmapped_flags |= unmapped_bits(t, static_cast<std::uint64_t>(*n));
+      continue;
+    }
+    if (f.q == Qty::channel) {
+      const auto n = parse_integer(w);
+      if (!n || *n != static_cast<long long>(t.channel))
+        return "the reply names channel " + w.substr(0, 16) + "; this cell's controller is channel " +
+               std::to_string(t.channel) + " (framed.channel)";
+      out.set(f.q, static_cast<double>(*n));
       continue;
     }
     const auto v = parse_double(w);
-    if (!v) return std::string(to_string(f.q)) + " \"" + w.substr(0, 16) + "\" is not a number";
-    out.set(f.q, f.scale > 0.0 ? *v / f.scale : *v);
+    if (!v) return std::string(to_string(f.q)) + " \"" + w.substr(0, 16) + "\" is not a finite number";
+    // A scaled field carries whole counts, within the bound encode_values keeps (exact in a double).
+    if (f.scale > 0.0 && !(*v == std::floor(*v) && std::abs(*v) <= kMaxCounts))
+      return std::string(to_string(f.q)) + " \"" + w.substr(0, 16) +
+             "\" is not a whole number of counts of 1/" + shortest(f.scale) + " up to 10^15";
+    const double x = f.scale > 0.0 ? *v / f.scale : *v;
+    if (!std::isfinite(x))
+      return std::string(to_string(f.q)) + " \"" + w.substr(0, 16) +
+             "\" is beyond any number in counts of 1/" + shortest(f.scale);
+    out.set(f.q, x);
   }
   return {};
 }
@@ -568,6 +641,11 @@ std::uint32_t flags_from_device(const Table& t, std::uint64_t w) {
   if (w & t.flags.limit) f |= controller::kFlagLimit;
   if (w & t.flags.at_setpoint) f |= controller::kFlagAtSetpoint;
   return f;
+}
+
+std::uint64_t unmapped_bits(const Table& t, std::uint64_t w) {
+  return w & ~static_cast<std::uint64_t>(t.flags.fault | t.flags.estop | t.flags.watchdog | t.flags.limit |
+                                         t.flags.at_setpoint);
 }
 
 std::uint64_t flags_to_device(const Table& t, std::uint32_t f) {

@@ -77,6 +77,7 @@ enum class Qty : std::uint8_t {
   max_speed_kmh,
   max_force_n,
   time_scale,
+  channel,  // replies only: the controller that answers (must be framed.channel)
   count
 };
 inline constexpr std::size_t kQtys = static_cast<std::size_t>(Qty::count);
@@ -93,6 +94,12 @@ struct Field {
   // Half the step the wire can carry (0 for a plain decimal): how far a read-back may differ from a write.
   double resolution() const { return scale > 0.0 ? 0.5 / scale : 0.0; }
 };
+
+// The coarsest scale a scaled field of inertia or set coefficients may have (0: any), so that what the
+// device holds after a write differs from what the tool records by at most half a count: set coefficients
+// as finely as they are reported (f0 to 0.1 N, f1 to 0.001 N/(km/h), f2 to 0.00001 N/(km/h)²,
+// docs/standards.md §1.2), inertia to 1 kg (common practice, no source).
+double min_scale(Qty q);
 
 struct Command {
   bool present = false;
@@ -128,8 +135,9 @@ std::string format_fields(const std::vector<Field>& fields);
 
 // Every rule a table must follow, with keys as in the cell file ("framed.ops.hold.request"): the required
 // operations present, each request and reply carrying exactly the quantities its operation needs (and only
-// ones it may), codes well formed, operations sharing a code told apart by a literal, modes and flag bits
-// distinct.
+// ones it may; the sample and status replies must carry the controller's clock, time_s), codes well formed,
+// operations sharing a code told apart by a literal, modes and flag bits distinct, and the fields that carry
+// set coefficients and inertia no coarser than min_scale() allows.
 core::Problems validate(const Table& t);
 
 // Reads [framed] (problems go to the reader, with the whole file's).
@@ -174,6 +182,8 @@ class FrameSplitter {
 struct Values {
   std::array<double, kQtys> v{};
   std::array<bool, kQtys> has{};
+  // Bits of a decoded status word that [framed.flags] does not map (the adapter warns once per bit).
+  std::uint64_t unmapped_flags = 0;
   void set(Qty q, double x) {
     v[static_cast<std::size_t>(q)] = x;
     has[static_cast<std::size_t>(q)] = true;
@@ -188,7 +198,9 @@ struct Values {
 std::string encode_values(const Table& t, const std::vector<Field>& fields, const Values& in,
                           std::vector<std::string>& words);
 // Reads `words` (without code and channel/status) against the fields: the count must match, literals must
-// come back as written, numbers must parse; mode and flags come back in the tool's terms.
+// come back as written, numbers must parse and be finite (nan, inf and values beyond a double are refused),
+// a channel must be framed.channel; mode and flags come back in the tool's terms (status-word bits that
+// [framed.flags] does not map in Values::unmapped_flags).
 std::string decode_values(const Table& t, const std::vector<Field>& fields,
                           const std::vector<std::string>& words, Values& out);
 
@@ -200,6 +212,7 @@ bool status_retryable(int status);
 std::optional<controller::Mode> mode_from_device(const Table& t, long code);
 long mode_to_device(const Table& t, controller::Mode m);
 std::uint32_t flags_from_device(const Table& t, std::uint64_t word);
+std::uint64_t unmapped_bits(const Table& t, std::uint64_t word);  // the bits no [framed.flags] key names
 std::uint64_t flags_to_device(const Table& t, std::uint32_t flags);
 
 }  // namespace loadtrim::framed

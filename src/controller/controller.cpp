@@ -4,6 +4,7 @@
 #include <cmath>
 #include <exception>
 
+#include "core/envelope.hpp"
 #include "core/problem.hpp"
 
 namespace loadtrim::controller {
@@ -50,6 +51,38 @@ bool ControllerInfo::has(std::string_view c) const {
   }
   return false;
 }
+
+namespace {
+// Bounds on what a controller may state or read back, whatever the adapter: they catch what cannot be a
+// reading at all (garbage, a sign or unit error of orders of magnitude), not a wrong dyno (check_identity
+// and the read-back comparison do that). Every test is written so that NaN fails it. The ceilings are
+// beyond any chassis dyno (common practice, no source); 1e6 N is the samples' bound (ingest).
+constexpr double kMaxRollerDiameterM = 10.0;
+constexpr double kMaxInertiaKg = 1e6;
+constexpr double kMaxSpeedKmh = 1000.0;
+constexpr double kMaxForceN = 1e6;
+
+// "" when 0 < v ≤ most, else what is wrong.
+std::string positive_up_to(const char* what, double v, double most, const char* unit) {
+  if (v > 0.0 && v <= most) return "";
+  return std::string(what) + " of " + num(v) + " " + unit + " (allowed: above 0, up to " + num(most) + " " +
+         unit + ")";
+}
+
+// "" when the curve is finite and |F(v)| ≤ kMaxForceN from standstill to the speed limit (200 km/h when none
+// is configured: common practice, no source).
+std::string plausible_curve(const core::RoadLoad& c, double max_speed_kmh) {
+  if (!std::isfinite(c.f0_n) || !std::isfinite(c.f1_n_per_kmh) || !std::isfinite(c.f2_n_per_kmh2))
+    return "coefficients (" + num(c.f0_n) + ", " + num(c.f1_n_per_kmh) + ", " + num(c.f2_n_per_kmh2) +
+           ") are not finite";
+  const double top = max_speed_kmh > 0.0 ? max_speed_kmh : 200.0;
+  const core::CurvePoint p = core::max_abs_on(c, 0.0, top);
+  if (std::abs(p.force_n) <= kMaxForceN) return "";
+  return "coefficients (" + num(c.f0_n) + ", " + num(c.f1_n_per_kmh) + ", " + num(c.f2_n_per_kmh2) +
+         ") give " + num(p.force_n) + " N at " + num(p.speed_kmh) + " km/h, beyond any dyno (" +
+         num(kMaxForceN) + " N)";
+}
+}  // namespace
 
 double Controller::wall_s() const {
   return std::chrono::duration<double>(Clock::now() - t0_).count();
@@ -122,6 +155,12 @@ Result Controller::identify(ControllerInfo& out) {
   return guarded("identify", [&] {
     out.time_scale = 1.0;
     if (Result r = do_identify(out, reply_deadline()); !r.ok()) return r;
+    for (const std::string& bad :
+         {positive_up_to("roller diameter", out.roller_diameter_m, kMaxRollerDiameterM, "m"),
+          positive_up_to("base inertia", out.base_inertia_kg, kMaxInertiaKg, "kg"),
+          positive_up_to("maximum speed", out.max_speed_kmh, kMaxSpeedKmh, "km/h"),
+          positive_up_to("maximum force", out.max_force_n, kMaxForceN, "N")})
+      if (!bad.empty()) return Result::fail("the controller states a " + bad + "; refusing to go on");
     if (!(std::isfinite(out.time_scale) && out.time_scale >= 1e-3))
       return Result::fail("the controller states a clock rate of " + num(out.time_scale) +
                           "× real time, not a rate");
@@ -146,6 +185,8 @@ Result Controller::set_inertia(double kg) {
     if (Result r = do_write_inertia(kg, reply_deadline()); !r.ok()) return r;
     double back = 0.0;
     if (Result r = do_read_inertia(back, reply_deadline()); !r.ok()) return r;
+    if (std::string bad = positive_up_to("inertia", back, kMaxInertiaKg, "kg"); !bad.empty())
+      return Result::fail("read-back " + bad + "; refusing to go on");
     auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
     if (!same(back, kg))
       return Result::fail("read-back " + num(back) + " kg differs from the " + num(kg) +
@@ -161,6 +202,8 @@ Result Controller::set_coefficients(const core::RoadLoad& c) {
     if (Result r = do_write_coefficients(c, reply_deadline()); !r.ok()) return r;
     core::RoadLoad back;
     if (Result r = do_read_coefficients(back, reply_deadline()); !r.ok()) return r;
+    if (std::string bad = plausible_curve(back, limits_.max_speed_kmh); !bad.empty())
+      return Result::fail("read-back " + bad + "; refusing to go on");
     auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
     if (!same(back.f0_n, c.f0_n) || !same(back.f1_n_per_kmh, c.f1_n_per_kmh) ||
         !same(back.f2_n_per_kmh2, c.f2_n_per_kmh2))
@@ -172,10 +215,20 @@ Result Controller::set_coefficients(const core::RoadLoad& c) {
 }
 
 Result Controller::read_inertia(double& kg) {
-  return guarded("read inertia", [&] { return do_read_inertia(kg, reply_deadline()); });
+  return guarded("read inertia", [&] {
+    if (Result r = do_read_inertia(kg, reply_deadline()); !r.ok()) return r;
+    if (std::string bad = positive_up_to("inertia", kg, kMaxInertiaKg, "kg"); !bad.empty())
+      return Result::fail("the controller reads back an " + bad);
+    return Result::success();
+  });
 }
 Result Controller::read_coefficients(core::RoadLoad& c) {
-  return guarded("read coefficients", [&] { return do_read_coefficients(c, reply_deadline()); });
+  return guarded("read coefficients", [&] {
+    if (Result r = do_read_coefficients(c, reply_deadline()); !r.ok()) return r;
+    if (std::string bad = plausible_curve(c, limits_.max_speed_kmh); !bad.empty())
+      return Result::fail("the controller reads back " + bad);
+    return Result::success();
+  });
 }
 
 Result Controller::hold_speed(double kmh) {

@@ -90,6 +90,7 @@ void FramedFrontEnd::on_payload(std::string_view payload, double wall_s, std::ve
   const framed::Command& c = table_[*op];
   Values in, res;
   if (!framed::decode_values(table_, c.request, args, in).empty()) return reply(code, 2, out);
+  res.set(Qty::channel, static_cast<double>(table_.channel));  // for a table whose replies name it
   std::optional<SimError> e;
   auto echo_mode = [&] { res.set(Qty::mode, mode_value(sim_.status().mode)); };
   auto echo_coefficients = [&] {

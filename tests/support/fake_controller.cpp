@@ -49,6 +49,7 @@ Result FakeController::do_connect(controller::Deadline) {
 }
 Result FakeController::do_identify(controller::ControllerInfo& out, controller::Deadline) {
   out = sim_->info();
+  if (script.identify_lie) script.identify_lie(out);
   return Result::success();
 }
 Result FakeController::do_write_inertia(double kg, controller::Deadline) {
@@ -56,6 +57,7 @@ Result FakeController::do_write_inertia(double kg, controller::Deadline) {
 }
 Result FakeController::do_read_inertia(double& kg, controller::Deadline) {
   kg = sim_->model().inertia_set_kg();
+  if (script.inertia_lie) script.inertia_lie(kg);
   return Result::success();
 }
 Result FakeController::do_write_coefficients(const core::RoadLoad& c, controller::Deadline) {

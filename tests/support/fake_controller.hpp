@@ -25,6 +25,8 @@ struct FakeScript {
   double chunk_s = 0.5;                                       // simulated seconds per receive
   std::function<void(controller::Sample&)> sample_lie;        // alters every sample before it is handed up
   std::function<void(controller::StatusReport&)> status_lie;  // alters every status reply
+  std::function<void(controller::ControllerInfo&)> identify_lie;  // alters what identify reports
+  std::function<void(double&)> inertia_lie;                       // alters every inertia read-back
   bool coefficients_not_applied =
       false;  // acknowledges COEF writes after the first without applying them; reads back what was written
   double readback_offset_n = 0.0;   // added to f0 on every read-back

@@ -5,8 +5,10 @@
 // is stated beside the check.
 #include <gtest/gtest.h>
 
+#include <limits>
 #include <thread>
 
+#include "controller/cell.hpp"
 #include "controller/clock_guard.hpp"
 #include "motion/motion.hpp"
 #include "support/fake_controller.hpp"
@@ -147,6 +149,65 @@ TEST_F(Layer, AReadBackThatDiffersIsFatal) {
   const auto r = c.set_coefficients({100.0, 0.5, 0.03});
   EXPECT_EQ(r.status, controller::Result::Status::fatal);
   EXPECT_NE(r.message.find("differs from what was written"), std::string::npos) << r.message;
+}
+
+// IEEE 754: every ordered comparison with NaN is false, so a check written as "mismatch when |a − b| > tol"
+// lets a NaN through. check_identity must report a NaN (or infinite) diameter, inertia or speed limit.
+TEST(CellIdentity, NonFiniteValuesAreMismatchesNotMatches) {
+  controller::CellConfig cell;
+  cell.roller_diameter_m = 1.2192;  // the sim-tcp cell file's facts (config/cells/sim-tcp.toml)
+  cell.base_inertia_kg = 1250.0;
+  cell.max_speed_kmh = 160.0;
+  controller::ControllerInfo honest;
+  honest.roller_diameter_m = 1.2192;
+  honest.base_inertia_kg = 1250.0;
+  honest.max_speed_kmh = 200.0;
+  EXPECT_TRUE(controller::check_identity(cell, honest).empty());
+  const double nan = std::numeric_limits<double>::quiet_NaN(), inf = std::numeric_limits<double>::infinity();
+  for (const double bad : {nan, inf, -inf}) {
+    for (const char* key : {"dyno.roller_diameter_m", "dyno.base_inertia_kg", "limits.max_speed_kmh"}) {
+      controller::ControllerInfo i = honest;
+      if (std::string(key) == "dyno.roller_diameter_m") i.roller_diameter_m = bad;
+      if (std::string(key) == "dyno.base_inertia_kg") i.base_inertia_kg = bad;
+      if (std::string(key) == "limits.max_speed_kmh") i.max_speed_kmh = bad;
+      const core::Problems ps = controller::check_identity(cell, i);
+      // +inf as the controller's speed limit is above the cell's: not a mismatch of the limits (identify
+      // refuses it as a statement no dyno makes, below).
+      if (bad == inf && std::string(key) == "limits.max_speed_kmh") continue;
+      ASSERT_EQ(ps.size(), 1u) << key << " = " << bad;
+      EXPECT_EQ(ps[0].key, key);
+    }
+  }
+}
+
+// Whatever the adapter, what a controller states or reads back is bounded by what any dyno could (the
+// layer's bounds: common practice, no source): a NaN, negative or absurd value is refused, not passed on.
+TEST_F(Layer, StatementsAndReadBacksNoDynoCouldMakeAreRefused) {
+  for (const double bad : {std::nan(""), -1.2192, 0.0, 1e308}) {
+    c.script.identify_lie = [&](controller::ControllerInfo& i) { i.roller_diameter_m = bad; };
+    const auto r = c.identify(info);
+    EXPECT_EQ(r.status, controller::Result::Status::fatal) << bad;
+    EXPECT_NE(r.message.find("roller diameter of"), std::string::npos) << r.message;
+  }
+  c.script.identify_lie = [](controller::ControllerInfo& i) { i.max_force_n = -8000.0; };
+  EXPECT_NE(c.identify(info).message.find("maximum force of -8000 N"), std::string::npos);
+  c.script.identify_lie = nullptr;
+  for (const double bad : {-1491.0, 1e308, std::nan("")}) {
+    c.script.inertia_lie = [&](double& kg) { kg = bad; };
+    double kg = 0.0;
+    const auto r = c.read_inertia(kg);
+    EXPECT_EQ(r.status, controller::Result::Status::fatal) << bad;
+    EXPECT_NE(r.message.find("inertia of"), std::string::npos) << r.message;
+    const auto s = c.set_inertia(1491.0);
+    EXPECT_EQ(s.status, controller::Result::Status::fatal) << bad;
+    EXPECT_NE(s.message.find("read-back inertia of"), std::string::npos) << s.message;
+  }
+  c.script.inertia_lie = nullptr;
+  c.script.readback_offset_n = 1e300;  // f0 read back as 1e300 N
+  core::RoadLoad back;
+  const auto r = c.read_coefficients(back);
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("beyond any dyno"), std::string::npos) << r.message;
 }
 
 TEST_F(Layer, AThrowingHookBecomesAFaultNotACrash) {

@@ -44,10 +44,10 @@ code = "ID"
 reply = "roller_diameter_m base_inertia_kg max_speed_kmh max_force_n"
 [framed.ops.status]
 code = "RS"
-reply = "mode speed_kmh flags"
+reply = "mode speed_kmh flags time_s"
 [framed.ops.sample]
 code = "RV"
-reply = "speed_kmh force_n mode flags"
+reply = "time_s speed_kmh force_n mode flags"
 [framed.ops.hold]
 code = "SH"
 request = "speed_kmh*100"
@@ -149,8 +149,64 @@ TEST(FramedDialect, FieldsScaleToWholeCountsAndRefuseWhatDoesNotFit) {
             std::string::npos);
   EXPECT_NE(decode_values(t, t[Op::sample].reply, {"1", "2", "3"}, out).find("expected 5 values"),
             std::string::npos);
-  EXPECT_NE(decode_values(t, t[Op::sample].reply, {"1", "x", "3", "0", "0"}, out).find("not a number"),
+  EXPECT_NE(decode_values(t, t[Op::sample].reply, {"1", "x", "3", "0", "0"}, out).find("not a finite number"),
             std::string::npos);
+}
+
+// IEEE 754 (ISO/IEC 60559) has non-finite values: NaN and the infinities, which std::from_chars parses from
+// "nan" and "inf", and a decimal beyond the largest double (about 1.8e308) is not representable. None of them
+// is a reading.
+TEST(FramedDialect, NonFiniteNumbersAreRefused) {
+  const Table t = shipped_table();
+  for (const std::string bad : {"nan", "-nan", "inf", "-inf", "infinity", "NaN", "1e400"}) {
+    Values out;
+    const std::string e = decode_values(t, t[Op::identify].reply, {bad, "1250", "16000", "80000", "1"}, out);
+    EXPECT_NE(e.find("roller_diameter_m"), std::string::npos) << bad << ": " << e;
+    EXPECT_NE(e.find("not a finite number"), std::string::npos) << bad << ": " << e;
+  }
+  // A scaled field carries whole counts up to 10^15 (docs/framed.md section 2), e.g. inertia_kg*10: counts
+  // of 0.1 kg. 1e305 counts, or a fraction of a count, are not what such a field carries.
+  for (const std::string bad : {"1e305", "14910.5", "1000000000000001"}) {
+    Values out;
+    EXPECT_NE(decode_values(t, t[Op::read_inertia].reply, {bad}, out).find("not a whole number of counts"),
+              std::string::npos)
+        << bad;
+  }
+  Values out;
+  EXPECT_EQ(decode_values(t, t[Op::read_inertia].reply, {"1000000000000000"}, out), "");  // 10^15: the bound
+  // The simulator shares the codec: a request with "nan" is refused (status 2), not acted on.
+  sim::FramedFrontEnd fe(physics::Truth{}, sim::SimSettings{}, t);
+  std::vector<std::string> replies;
+  fe.on_bytes(encode_frame({"MD", "1", "H", "nan"}, true), 0.0, replies);
+  ASSERT_EQ(replies.size(), 1u);
+  EXPECT_EQ(decode_payload(std::string_view(replies[0]).substr(1, replies[0].size() - 2), true).words,
+            (std::vector<std::string>{"MD", "2"}));
+}
+
+// docs/framed.md section 1: a reply may name the channel that answers; it must be this cell's.
+TEST(FramedDialect, AReplyFromAnotherChannelIsRefused) {
+  Table t = shipped_table();
+  ASSERT_EQ(parse_fields("channel inertia_kg*10", t[Op::read_inertia].reply), "");
+  EXPECT_TRUE(validate(t).empty());
+  Values out;
+  EXPECT_EQ(decode_values(t, t[Op::read_inertia].reply, {"1", "14910"}, out), "");
+  EXPECT_DOUBLE_EQ(out.get(Qty::inertia_kg), 1491.0);
+  const std::string e = decode_values(t, t[Op::read_inertia].reply, {"2", "14910"}, out);
+  EXPECT_NE(e.find("channel 2"), std::string::npos) << e;
+  EXPECT_NE(e.find("framed.channel"), std::string::npos) << e;
+  std::vector<Field> f;
+  EXPECT_NE(parse_fields("channel*10", f).find("take no scale"), std::string::npos);
+}
+
+// Status-word bits are mapped one by one by [framed.flags]; the others are reported, not silently mapped.
+TEST(FramedDialect, UnmappedStatusBitsAreReported) {
+  const Table t = shipped_table();  // bits 1, 2, 4, 8, 16
+  Values out;
+  ASSERT_EQ(decode_values(t, t[Op::sample].reply, {"1", "2", "3", "0", "48"}, out), "");  // 48 = 32 + 16
+  EXPECT_EQ(static_cast<std::uint32_t>(out.get(Qty::flags)), controller::kFlagAtSetpoint);
+  EXPECT_EQ(out.unmapped_flags, 32u);
+  EXPECT_EQ(unmapped_bits(t, 4294967296ull), 4294967296ull);  // 2^32: no 32-bit flag can name it
+  EXPECT_EQ(unmapped_bits(t, 31), 0u);
 }
 
 TEST(FramedDialect, TheShippedTableIsCompleteAndValid) {
@@ -176,12 +232,61 @@ TEST(FramedDialect, BadTablesAreRefusedWithKeyAndAllowedRange) {
       {minimal_ops() + "[framed.modes]\nhold = 0\n", "framed.modes.hold"},
       {minimal_ops() + "[framed.flags]\nlimit = 3\n", "framed.flags.limit"},
       {minimal_ops() + "[framed.ops.free]\ncode = \"FR\"\nrequest = \"-\"\n", "for replies only"},
+      {minimal_ops() + "[framed.ops.free]\ncode = \"FR\"\nrequest = \"channel\"\n",
+       "channel has no place here"},
   };
   for (const auto& c : cases) {
     const std::string msg = problems_of(c.toml);
     EXPECT_NE(msg.find("cell.toml"), std::string::npos) << msg;
     EXPECT_NE(msg.find(c.must), std::string::npos) << "expected: " << c.must << "\ngot: " << msg;
   }
+}
+
+// The controller's clock must time the samples (docs/framed.md section 2): a table whose sample or status
+// reply has no time_s is refused when the file is read, naming the key.
+TEST(FramedDialect, SampleAndStatusRepliesMustCarryTheControllersClock) {
+  auto without = [](const std::string& from, const std::string& to) {
+    std::string ops = minimal_ops();
+    ops.replace(ops.find(from), from.size(), to);
+    return ops;
+  };
+  std::string msg = problems_of(without("reply = \"time_s speed_kmh", "reply = \"speed_kmh"));
+  EXPECT_NE(msg.find("framed.ops.sample.reply"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("must carry time_s"), std::string::npos) << msg;
+  msg = problems_of(without(" flags time_s\"", " flags\""));
+  EXPECT_NE(msg.find("framed.ops.status.reply"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("must carry time_s"), std::string::npos) << msg;
+}
+
+// Set coefficients are reported as f0 to 0.1 N, f1 to 0.001 N/(km/h), f2 to 0.00001 N/(km/h)²
+// (docs/standards.md §1.2): a table whose counts are coarser would let the device hold a value rounded more
+// than the record shows (f2 counted in 0.01: 0.0349 is sent as 3 and held as 0.03). Refused when the file is
+// read, with the key and the allowed scales; exactly the reported resolution passes.
+TEST(FramedDialect, CoarseCountsForSetCoefficientsAndInertiaAreRefused) {
+  auto with = [](const std::string& op, const std::string& part, const std::string& fields) {
+    std::string ops = minimal_ops();
+    const std::string head = "[framed.ops." + op + "]\n";
+    const auto at = ops.find(head);
+    const auto line = ops.find(part + " = ", at);
+    ops.replace(line, ops.find('\n', line) - line, part + " = \"" + fields + "\"");
+    return problems_of(ops);
+  };
+  std::string msg = with("write_coefficients", "request", "f0_n f1_n_per_kmh f2_n_per_kmh2*100");
+  EXPECT_NE(msg.find("framed.ops.write_coefficients.request"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("counts of 0.01 N/(km/h)²"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("allowed scale 100000 to 1000000000"), std::string::npos) << msg;
+  msg = with("read_coefficients", "reply", "f0_n*1 f1_n_per_kmh f2_n_per_kmh2");
+  EXPECT_NE(msg.find("framed.ops.read_coefficients.reply"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("allowed scale 10 to 1000000000"), std::string::npos) << msg;
+  msg = with("read_coefficients", "reply", "f0_n f1_n_per_kmh*100 f2_n_per_kmh2");
+  EXPECT_NE(msg.find("allowed scale 1000 to 1000000000"), std::string::npos) << msg;
+  msg = with("read_inertia", "reply", "inertia_kg*0.1");  // counts of 10 kg
+  EXPECT_NE(msg.find("framed.ops.read_inertia.reply"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("allowed scale 1 to 1000000000"), std::string::npos) << msg;
+  EXPECT_EQ(with("write_coefficients", "request", "f0_n*10 f1_n_per_kmh*1000 f2_n_per_kmh2*100000"), "");
+  EXPECT_EQ(with("write_inertia", "request", "inertia_kg*1"), "");
+  // Scales of other quantities are the lab's business (a hold speed in whole km/h is a valid table).
+  EXPECT_EQ(with("hold", "request", "speed_kmh*1"), "");
 }
 
 TEST(FramedDialect, SimulatorFrontEndServesTheTable) {
