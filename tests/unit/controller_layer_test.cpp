@@ -311,3 +311,50 @@ TEST(Motion, AStopThatIsNeverReachedIsReportedNotAssumed) {
   EXPECT_TRUE(m.stop_and_wait(120.0, stopped).ok());
   EXPECT_TRUE(stopped);
 }
+
+// The issue this guards against (docs/safety.md §3): a wait that skipped samples stamped before its command's
+// time, before looking at their flags, let an emergency stop latched behind a lagging clock go unseen. Here
+// the controller's sample clock stops (so every later sample is stamped before the command below) and the
+// samples then carry the emergency-stop flag: the step must end on the flag, and the stop must follow.
+TEST(Motion, AnEmergencyStopOnASampleStampedBeforeTheCommandTimeIsSeenAndStops) {
+  FakeController c(loadtrim::testing::demo_truth());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  motion::Motion m(c, {});
+  ASSERT_TRUE(m.hold(30.0, 1.0, "run-up", 120.0).ok());
+  double frozen_at = -1.0;
+  bool estop = false;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (frozen_at < 0.0) frozen_at = s.time_s;
+    s.time_s = frozen_at;
+    if (estop) s.flags |= controller::kFlagEstop;
+  };
+  std::vector<controller::Sample> got;
+  ASSERT_TRUE(c.receive_samples(got).ok());
+  ASSERT_GE(frozen_at, 0.0);
+  ASSERT_TRUE(c.hold_speed(40.0).ok());
+  controller::StatusReport st;
+  ASSERT_TRUE(c.status(st).ok());
+  const double command_time_s = st.time_s;
+  // The fake advances its own clock by chunk_s per receive: the status clock has moved on, the samples' has
+  // not.
+  ASSERT_GT(command_time_s, frozen_at);
+  estop = true;
+  motion::Step step;
+  step.what = "the hold";
+  step.modes = {Mode::speed_hold};
+  step.since_epoch = c.epoch();
+  // A condition that, by time, would only ever look at samples from the command's time on.
+  const auto res =
+      m.collect(step, [&](const controller::Sample& s) { return s.time_s >= command_time_s + 5.0; });
+  EXPECT_EQ(res.status, controller::Result::Status::fatal);
+  EXPECT_NE(res.message.find("reports a fault (flags 0x02"), std::string::npos) << res.message;
+  EXPECT_NE(res.message.find("during the hold"), std::string::npos) << res.message;
+  bool stopped = false;
+  EXPECT_TRUE(m.stop_and_wait(120.0, stopped).ok());
+  EXPECT_TRUE(stopped);
+  EXPECT_TRUE(c.sent(Mode::controlled_stop));
+}
+
