@@ -146,9 +146,8 @@ Result Controller::set_inertia(double kg) {
     if (Result r = do_write_inertia(kg, reply_deadline()); !r.ok()) return r;
     double back = 0.0;
     if (Result r = do_read_inertia(back, reply_deadline()); !r.ok()) return r;
-    auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
-    if (!same(back, kg))
-      return Result::fail("read-back " + num(back) + " kg differs from the " + num(kg) +
+    if (!(std::abs(back - kg) <= setting_tolerance(Setting::inertia, kg)))
+      return Result::fail(readback_source() + " " + num(back) + " kg differs from the " + num(kg) +
                           " kg written; refusing to go on");
     return Result::success();
   });
@@ -161,10 +160,10 @@ Result Controller::set_coefficients(const core::RoadLoad& c) {
     if (Result r = do_write_coefficients(c, reply_deadline()); !r.ok()) return r;
     core::RoadLoad back;
     if (Result r = do_read_coefficients(back, reply_deadline()); !r.ok()) return r;
-    auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
-    if (!same(back.f0_n, c.f0_n) || !same(back.f1_n_per_kmh, c.f1_n_per_kmh) ||
-        !same(back.f2_n_per_kmh2, c.f2_n_per_kmh2))
-      return Result::fail("read-back (" + num(back.f0_n) + ", " + num(back.f1_n_per_kmh) + ", " +
+    auto same = [&](Setting q, double b, double w) { return std::abs(b - w) <= setting_tolerance(q, w); };
+    if (!same(Setting::f0, back.f0_n, c.f0_n) || !same(Setting::f1, back.f1_n_per_kmh, c.f1_n_per_kmh) ||
+        !same(Setting::f2, back.f2_n_per_kmh2, c.f2_n_per_kmh2))
+      return Result::fail(readback_source() + " (" + num(back.f0_n) + ", " + num(back.f1_n_per_kmh) + ", " +
                           num(back.f2_n_per_kmh2) + ") differs from what was written (" + num(c.f0_n) + ", " +
                           num(c.f1_n_per_kmh) + ", " + num(c.f2_n_per_kmh2) + "); refusing to go on");
     return Result::success();
@@ -294,6 +293,12 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
       bad = "a value is not a finite number";
     else if (s.speed_kmh < -2.0)
       bad = "negative speed";
+    else if (s.speed_kmh < 0.0 && have_index_ && last_sample_.speed_kmh > 2.0)
+      // Noise at rest may read a little below zero; rollers turning at more than 2 km/h cannot read below
+      // zero one sample later (a glitch: dropped and counted, so one such sample never ends a coast-down; a
+      // run of them is a fault). Common practice, no source.
+      bad = "negative speed " + num(s.speed_kmh) + " km/h one sample after " + num(last_sample_.speed_kmh) +
+            " km/h";
     else if (std::abs(s.force_n) > 1e6)
       bad = "force beyond any dyno";
     else if (have_index_ && s.index < next_index_)

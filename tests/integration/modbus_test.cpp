@@ -137,6 +137,70 @@ TEST(Modbus, TcpHandshakeReadBackCoastdownAt50HzPolling) {
   ASSERT_TRUE(c.controlled_stop().ok());
 }
 
+// A controller that acknowledges a setting (strobe cleared, error 0, setpoint registers holding what was
+// written) but does not apply it (loadtrim-sim --modbus-coefficients-not-applied): read back from the
+// applied-value registers, the second setting is refused; read back from the setpoint registers alone (a map
+// accepted with modbus.accept_setpoint_readback), the same lie passes unseen, which is why a map must name
+// the applied values or say that it cannot.
+TEST(Modbus, ASettingAcknowledgedButNotAppliedIsRefusedByTheAppliedValues) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "5", "--modbus-coefficients-not-applied"});
+  {
+    modbus::ModbusController c(cell_for(sim.port()));
+    ASSERT_TRUE(c.connect().ok());
+    controller::ControllerInfo info;
+    ASSERT_TRUE(c.identify(info).ok());
+    EXPECT_FALSE(info.has("readback-setpoint-only"));
+    ASSERT_TRUE(c.set_coefficients({42.38, 0.3135, 0.03013}).ok());  // the first is applied
+    const auto r = c.set_coefficients({50.0, 0.25, 0.031});
+    EXPECT_EQ(r.status, controller::Result::Status::fatal);
+    EXPECT_NE(r.message.find("the applied values the controller reports (input registers from 20)"),
+              std::string::npos)
+        << r.message;
+    EXPECT_NE(r.message.find("differs from what was written"), std::string::npos) << r.message;
+    core::RoadLoad applied;  // still the first setting (float32 registers: 1.2e-7 relative)
+    ASSERT_TRUE(c.read_coefficients(applied).ok());
+    EXPECT_NEAR(applied.f0_n, 42.38, 42.38 * 1.2e-7);
+    c.disconnect();
+  }
+  auto cell = cell_for(sim.port());
+  auto& m = settings(cell).map;
+  for (modbus::Q q : modbus::kApplied) m.regs[q].present = false;
+  m.accept_setpoint_readback = true;
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  EXPECT_TRUE(info.has("readback-setpoint-only"));  // logged with the controller in every session
+  EXPECT_TRUE(c.set_coefficients({60.0, 0.2, 0.032}).ok()) << "the setpoint registers cannot see the lie";
+}
+
+// The controller has been up 2^32 ms - 2 s when the simulation starts (loadtrim-sim --modbus-clock-offset-s):
+// the example map's uint32 ms time register wraps to 0 within the first 2 s of controller time (0.1 s of wall
+// time at 20x). The adapter's samples keep counting across it, and the clock guard sees an honest clock.
+TEST(Modbus, TheTimeCounterWrapsAtItsLimitAndTheSamplesCountOn) {
+  const double period = 4294967.296;  // 2^32 ms (definition of a 32-bit counter)
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20", "--modbus-clock-offset-s", "4294965.296"});
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(50.0).ok());
+  std::vector<controller::Sample> all;
+  while (all.size() < 60) {  // about 1.2 s of wall time at 50 Hz: 24 s of controller time
+    std::vector<controller::Sample> got;
+    const auto r = c.receive_samples(got);
+    ASSERT_TRUE(r.ok()) << r.message;
+    all.insert(all.end(), got.begin(), got.end());
+  }
+  ASSERT_LT(all.front().time_s, period);
+  EXPECT_GT(all.back().time_s, period);
+  for (std::size_t i = 1; i < all.size(); ++i) ASSERT_GE(all[i].time_s, all[i - 1].time_s) << i;
+  controller::StatusReport st;
+  const auto r = c.status(st);
+  ASSERT_TRUE(r.ok()) << r.message;
+  EXPECT_GT(st.time_s, period);
+}
+
 TEST(Modbus, WatchdogWatchesTheHeartbeatCounter) {
   SimProcess sim({"--modbus-map", kCell, "--time-scale", "20", "--watchdog-ms", "400"});
   modbus::ModbusController c(cell_for(sim.port()));
@@ -166,7 +230,7 @@ TEST(Modbus, ExceptionReplySurfacesAsAClearError) {
   const auto r = c.set_coefficients({40.0, 0.3, 0.03});
   EXPECT_EQ(r.status, controller::Result::Status::fatal);
   EXPECT_NE(r.message.find("write f0 (holding 900)"), std::string::npos) << r.message;
-  EXPECT_NE(r.message.find("Modbus exception from the controller: Illegal data address"), std::string::npos)
+  EXPECT_NE(r.message.find("Modbus exception 2 from the controller: Illegal data address"), std::string::npos)
       << r.message;
 }
 
@@ -364,6 +428,8 @@ TEST(Modbus, FullSessionOverModbusTcp) {
   std::ifstream in(folder + "/summary.json");
   const auto j = nlohmann::json::parse(in);
   EXPECT_TRUE(j.value("accepted", false)) << j.dump(2);
+  // Standstill by the cell's threshold with the simulator's encoder noise at rest (docs/safety.md §3).
+  EXPECT_TRUE(j.value("rollers_stopped", false)) << j.dump(2);
   for (const auto& d : j["deviations"]) EXPECT_LE(std::abs(d.value("deviation_n", 99.0)), 10.0);
   if (!HasFailure()) fs::remove_all(dir);
 }
