@@ -38,6 +38,11 @@ Result ModbusController::fail(const std::string& what, int e) {
     return code == 0x0A || code == 0x0B ? Result::retry(m, code) : Result::fail(m, code);
   }
   std::string m = what + ": " + text;
+  if (e == ETIMEDOUT)
+    m += " (no complete reply: the first byte is awaited timeouts.reply_ms = " +
+         std::to_string(timeouts().reply.count()) + " ms, each next one modbus.byte_timeout_ms = " +
+         std::to_string(std::min<long long>(settings_.map.retry.byte_timeout_ms, timeouts().reply.count())) +
+         " ms)";
   // A serial device that went away (unplugged, its driver gone) is named by its path.
   if (const auto* line = std::get_if<adapters::SerialLine>(&settings_.link)) {
     std::error_code ec;
@@ -239,7 +244,7 @@ std::string ModbusController::readback_source() const {
   if (!settings_.map.reads_applied())
     return "read-back of the setpoint registers (setpoint-only read-back, accepted by the cell file)";
   const Register& r = settings_.map[Q::applied_inertia];
-  return std::string("the applied values the controller reports (") + to_string(r.table) +
+  return std::string("read-back of the applied values the controller reports (") + to_string(r.table) +
          " registers from " + std::to_string(r.address) + ")";
 }
 

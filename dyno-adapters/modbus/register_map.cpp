@@ -308,7 +308,8 @@ void TimeCounter::reset(double period_s, double rate) {
   period_s_ = period_s;
   rate_ = rate > 0.0 && std::isfinite(rate) ? rate : 1.0;
   have_ = false;
-  last_raw_s_ = time_s_ = last_wall_s_ = 0.0;
+  last_raw_s_ = last_wall_s_ = 0.0;
+  periods_ = 0;
   wraps_ = 0;
 }
 
@@ -320,25 +321,31 @@ double TimeCounter::read(double raw_s, double wall_s) {
   if (r < 0.0) r += p;
   if (!have_) {
     have_ = true;
-    last_raw_s_ = time_s_ = r;
+    last_raw_s_ = r;
     last_wall_s_ = wall_s;
-    return time_s_;
+    periods_ = 0;
+    return r;
   }
   double d = r - last_raw_s_;  // forward movement modulo the period, in [0, p)
   if (d < 0.0) d += p;
   const double expected = rate_ * std::max(0.0, wall_s - last_wall_s_);
-  double step;
+  // Whole periods are counted apart from the position, so the time is exact (no sum of steps drifting).
+  std::int64_t k = 0;
   if (expected < p / 2.0) {
-    step = d <= p / 2.0 ? d : d - p;  // more than half a period forward = a step back by the rest
+    if (d <= p / 2.0)
+      k = r < last_raw_s_ ? 1 : 0;  // forward, across the wrap or not
+    else
+      k = r > last_raw_s_ ? -1 : 0;  // more than half a period forward = a step BACK by the rest
   } else {
-    const double k = std::max(0.0, std::round((expected - d) / p));
-    step = d + k * p;
+    k = static_cast<std::int64_t>(std::max(0.0, std::round((expected - d) / p))) + (r < last_raw_s_ ? 1 : 0);
   }
-  if (step > 0.0) wraps_ += static_cast<std::uint64_t>(std::floor((last_raw_s_ + step) / p));
-  time_s_ += step;
+  periods_ += k;
+  if (k > 0) wraps_ += static_cast<std::uint64_t>(k);
   last_raw_s_ = r;
   last_wall_s_ = wall_s;
-  return time_s_;
+  // A step back below the first reading's period reads 0: lower than before, so the clock guard names it a
+  // clock that ran backwards (a negative time would be named "not a time" instead).
+  return std::max(0.0, static_cast<double>(periods_) * p + r);
 }
 
 }  // namespace loadtrim::modbus

@@ -190,7 +190,8 @@ class TimeCounter {
  private:
   double period_s_ = 0.0, rate_ = 1.0;
   bool have_ = false;
-  double last_raw_s_ = 0.0, time_s_ = 0.0, last_wall_s_ = 0.0;
+  double last_raw_s_ = 0.0, last_wall_s_ = 0.0;
+  std::int64_t periods_ = 0;  // whole periods counted since the first reading
   std::uint64_t wraps_ = 0;
 };
 

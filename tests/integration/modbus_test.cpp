@@ -153,8 +153,9 @@ TEST(Modbus, ASettingAcknowledgedButNotAppliedIsRefusedByTheAppliedValues) {
     ASSERT_TRUE(c.set_coefficients({42.38, 0.3135, 0.03013}).ok());  // the first is applied
     const auto r = c.set_coefficients({50.0, 0.25, 0.031});
     EXPECT_EQ(r.status, controller::Result::Status::fatal);
-    EXPECT_NE(r.message.find("the applied values the controller reports (input registers from 20)"),
-              std::string::npos)
+    EXPECT_NE(
+        r.message.find("read-back of the applied values the controller reports (input registers from 20)"),
+        std::string::npos)
         << r.message;
     EXPECT_NE(r.message.find("differs from what was written"), std::string::npos) << r.message;
     core::RoadLoad applied;  // still the first setting (float32 registers: 1.2e-7 relative)
