@@ -349,6 +349,14 @@ TEST(Modbus, RtuOverAPseudoTerminalPair) {
   auto s = poll_until(
       c, [](const controller::Sample&) { return false; }, 10);
   EXPECT_EQ(s.size(), 10u);
+  // The device goes away (socat ends and removes its links, as an unplugged adapter's node goes): the next
+  // request fails, retryable, naming the device's path.
+  socat.stop();
+  ASSERT_FALSE(fs::exists(b));
+  controller::StatusReport st;
+  const auto gone = c.status(st);
+  EXPECT_EQ(gone.status, controller::Result::Status::retryable) << gone.message;
+  EXPECT_NE(gone.message.find("the RTU device " + b + " is gone"), std::string::npos) << gone.message;
   c.disconnect();
   fs::remove_all(dir);
 }
