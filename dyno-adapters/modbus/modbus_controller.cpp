@@ -72,7 +72,15 @@ Result ModbusController::transact(const std::string& what, F&& request) {
       return Result::success();
     }
     const bool exception = e > MODBUS_ENOBASE && e < MODBUS_ENOBASE + 12;
-    if (!exception && ctx_) modbus_flush(ctx_);  // a late reply must not answer the next request
+    if (!exception && ctx_) {
+      // A late reply must not answer the next request. Over TCP the transaction id tells replies apart; an
+      // RTU frame carries no such id, and a late reply of the same function and length would pass for the
+      // next one's: after a timeout the line is given one more reply timeout to bring what was still on its
+      // way, and then flushed (a reply later than twice the timeout cannot be told apart on RTU at all).
+      if (e == ETIMEDOUT && std::holds_alternative<adapters::SerialLine>(settings_.link))
+        std::this_thread::sleep_for(timeouts().reply);
+      modbus_flush(ctx_);
+    }
     const bool again = exception && retryable_exception(e - MODBUS_ENOBASE);
     const auto next = Clock::now() + std::chrono::milliseconds(p.delay_ms);
     if (again && attempt < p.attempts && next - first < std::chrono::milliseconds(p.within_ms)) {

@@ -676,6 +676,7 @@ struct ModbusRow {
   double bound_s;
   const char* sim_flag = nullptr;  // a lie the simulator itself tells (the proxy stays transparent)
   bool counter16 = false;          // the time register a uint16 of ms: it wraps every 65.536 s
+  bool rtu = false;                // Modbus RTU over pseudo-terminals instead of TCP
 };
 
 void PrintTo(const ModbusRow& r, std::ostream* os) {
@@ -730,6 +731,23 @@ const ModbusRow kModbusRows[] = {
      0, "status register sets bits the map does not define (0x40", 30},
     {"link_check_clock_frozen", ModbusLie::clock_frozen, ModbusTrigger::start(), Cmd::link_check, 3,
      "the controller's clock stopped", 30},
+    // The same over Modbus RTU (the proxy between two pseudo-terminal pairs; frames by length and CRC).
+    {"rtu_link_check_no_lie", ModbusLie::none, ModbusTrigger::start(), Cmd::link_check, 0,
+     "link-check passed", 30, nullptr, false, true},
+    {"rtu_clock_frozen", ModbusLie::clock_frozen, mb_hold30(), Cmd::run, 3, "the controller's clock stopped",
+     60, nullptr, false, true},
+    {"rtu_clock_jumps_ahead", ModbusLie::clock_jumps_ahead, mb_hold30(), Cmd::run, 3,
+     "the controller's clock jumped ahead", 60, nullptr, false, true},
+    {"rtu_fault_flag", ModbusLie::fault_flag, mb_hold30(), Cmd::run, 3, "reports a fault", 60, nullptr, false,
+     true},
+    {"rtu_busy_always", ModbusLie::busy_always, mb_hold30(), Cmd::run, 3, "Modbus exception 6", 60, nullptr,
+     false, true},
+    {"rtu_trickle", ModbusLie::trickle, mb_hold30(), Cmd::run, 3, "no complete reply", 60, nullptr, false,
+     true},
+    // A reply that arrives after the tool's reply timeout, when it has asked something else: never taken for
+    // the other request's reply (RTU frames carry no transaction id); the link is reported, the stop follows.
+    {"rtu_late_reply", ModbusLie::late_reply, mb_hold30(), Cmd::run, 3, "no complete reply", 60, nullptr,
+     false, true},
 };
 
 std::string modbus_time_scale() {
@@ -767,14 +785,26 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
   if (row.counter16)
     replace_once(cell, "type = \"uint32\"         # uint16", "type = \"uint16\"         # uint16");
   const std::string cell_path = dir + "/cell.toml";
-  std::ofstream(cell_path) << cell;
   const auto parsed = config::parse_cell(cell, "cell.toml", adapters::production().sections());
-  const auto& map = std::any_cast<const modbus::Settings&>(parsed.adapter_settings).map;
-
+  const auto map = std::any_cast<const modbus::Settings&>(parsed.adapter_settings).map;
   std::vector<std::string> sim_args = {"--modbus-map", cell_path, "--time-scale", modbus_time_scale()};
   if (row.sim_flag) sim_args.emplace_back(row.sim_flag);
-  loadtrim::testing::SimProcess sim(sim_args);
-  ModbusLyingProxy proxy(sim.port(), map, row.lie, row.trigger);
+  // TCP: the simulator first, the proxy in front of its port. RTU: the proxy's pseudo-terminals first, the
+  // simulator on one of them, the tool on the other.
+  std::optional<loadtrim::testing::SimProcess> sim;
+  std::optional<ModbusLyingProxy> proxy;
+  if (row.rtu) {
+    proxy.emplace(map, row.lie, row.trigger);
+    replace_once(cell, "adapter = \"modbus-tcp\"\nhost = \"127.0.0.1\"\nport = 1502",
+                 "adapter = \"modbus-rtu\"\ndevice = \"" + proxy->tool_device() + "\"\nbaud = 115200");
+    std::ofstream(cell_path) << cell;
+    sim_args.insert(sim_args.end(), {"--modbus-rtu", proxy->controller_device()});
+    sim.emplace(sim_args, false);
+  } else {
+    std::ofstream(cell_path) << cell;
+    sim.emplace(sim_args);
+    proxy.emplace(sim->port(), map, row.lie, row.trigger);
+  }
   const std::vector<std::string> env = {"LOADTRIM_DATA_DIR=" + data + "/root",
                                         "LOADTRIM_LOCK_DIR=" + data + "/locks"};
   std::vector<std::string> args;
@@ -785,7 +815,7 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
             "--cell",
             cell_path,
             "--port",
-            std::to_string(proxy.port()),
+            std::to_string(proxy->port()),
             "--target",
             kSrc + "/samples/targets/demo-hatchback.toml",
             "--profile",
@@ -796,7 +826,11 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
             "--rewarm-s",
             "60"};
   else
-    args = {"link-check", "--cell", cell_path, "--port", std::to_string(proxy.port())};
+    args = {"link-check", "--cell", cell_path, "--port", std::to_string(proxy->port())};
+  if (row.rtu) {  // the device is in the cell file: no port to override
+    const auto at = std::find(args.begin(), args.end(), "--port");
+    args.erase(at, at + 2);
+  }
   const double bound = std::min(row.bound_s * bound_scale(), kMaxScaledBoundS);
   const RunResult res = run_bounded(args, env, bound);
 
@@ -804,13 +838,13 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
   for (const auto& e : fs::directory_iterator(dir))
     if (e.is_directory() && fs::exists(e.path() / "events.jsonl")) folder = e.path().string();
   const std::string logged = folder.empty() ? "" : read_text(folder + "/events.jsonl");
-  const auto st = proxy.stats();
+  const auto st = proxy->stats();
   std::printf(
       "[lie] modbus %s (%s, %s): exit %d%s after %.1f s (bound %.0f s); lie %s; proxy: %d connection(s), "
       "%llu requests, %llu values altered, %llu exceptions sent, %llu replies dropped; said: %s\n",
       row.name, loadtrim::testing::to_string(row.lie), loadtrim::testing::describe(row.trigger).c_str(),
       res.exit_code, res.killed ? " (killed at the bound)" : "", res.seconds, bound,
-      proxy.lie_began() ? "told" : "not told by the proxy", st.connections,
+      proxy->lie_began() ? "told" : "not told by the proxy", st.connections,
       static_cast<unsigned long long>(st.requests), static_cast<unsigned long long>(st.values_altered),
       static_cast<unsigned long long>(st.exceptions_sent),
       static_cast<unsigned long long>(st.replies_dropped), outcome_line(res.output).c_str());
@@ -823,16 +857,17 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
       << "expected '" << row.message << "' in the output or the log; output:\n"
       << tail(res.output);
   if (row.lie == ModbusLie::none) {
-    EXPECT_FALSE(proxy.lie_began());
+    EXPECT_FALSE(proxy->lie_began());
     EXPECT_EQ(st.values_altered + st.exceptions_sent + st.replies_dropped, 0u);
     if (session) {
-      EXPECT_TRUE(proxy.commanded(modbus::kCommandStop));
+      EXPECT_TRUE(proxy->commanded(modbus::kCommandStop));
     }
   } else {
-    EXPECT_TRUE(proxy.lie_began()) << "the lie (" << loadtrim::testing::to_string(row.lie) << ", "
-                                   << loadtrim::testing::describe(row.trigger) << ") was never told";
+    EXPECT_TRUE(proxy->lie_began()) << "the lie (" << loadtrim::testing::to_string(row.lie) << ", "
+                                    << loadtrim::testing::describe(row.trigger) << ") was never told";
     if (session) {
-      EXPECT_TRUE(proxy.commanded_after_lie(modbus::kCommandStop)) << "no stop commanded after the lie began";
+      EXPECT_TRUE(proxy->commanded_after_lie(modbus::kCommandStop))
+          << "no stop commanded after the lie began";
     }
   }
   if (session) {

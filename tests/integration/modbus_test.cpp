@@ -16,6 +16,7 @@
 #include "process/child_process.hpp"
 #include "record/event_log.hpp"
 #include "registry.hpp"
+#include "support/modbus_lying_proxy.hpp"
 #include "support/sim_process.hpp"
 
 using namespace loadtrim;
@@ -359,6 +360,45 @@ TEST(Modbus, RtuOverAPseudoTerminalPair) {
   EXPECT_NE(gone.message.find("the RTU device " + b + " is gone"), std::string::npos) << gone.message;
   c.disconnect();
   fs::remove_all(dir);
+}
+
+// RTU frames carry no transaction id: a reply that arrives after the tool's reply timeout would pass for the
+// reply to whatever the tool asks next if it has the same function and length. The proxy holds the first
+// reply to a read of the mode register back 1.5 s (the reply timeout is 1 s) and then delivers it; the tool,
+// 0.7 s after giving up on it, asks for the status again. The late frame (mode 1, speed hold) would read as a
+// speed of 0.01 km/h and push every later reply one request on (the speed's reply read as a mode code, …);
+// the adapter gives the line one more reply timeout after a timeout and flushes it, so the next status is
+// right.
+TEST(Modbus, RtuALateReplyIsNeverTakenForTheNextRequestsReply) {
+  auto cell = load_cell();
+  const auto map = settings(cell).map;
+  loadtrim::testing::ModbusLyingProxy proxy(map, loadtrim::testing::ModbusLie::late_reply,
+                                            loadtrim::testing::ModbusTrigger::start());
+  SimProcess sim({"--modbus-map", kCell, "--modbus-rtu", proxy.controller_device(), "--time-scale", "5",
+                  "--watchdog-ms", "60000"},
+                 false);
+  adapters::SerialLine line;
+  line.device = proxy.tool_device();
+  line.baud = 115200;
+  settings(cell).link = line;
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.set_inertia(1491.0).ok());
+  ASSERT_TRUE(c.hold_speed(40.0).ok());
+  controller::StatusReport st;
+  const auto late = c.status(st);
+  EXPECT_EQ(late.status, controller::Result::Status::retryable) << late.message;
+  EXPECT_NE(late.message.find("read mode (input 4)"), std::string::npos) << late.message;
+  EXPECT_TRUE(proxy.lie_began());
+  std::this_thread::sleep_for(std::chrono::milliseconds(700));
+  const auto next = c.status(st);
+  ASSERT_TRUE(next.ok()) << next.message;
+  EXPECT_EQ(st.mode, controller::Mode::speed_hold);
+  EXPECT_EQ(st.flags & controller::kFlagFault, 0u);
+  EXPECT_GT(st.speed_kmh, 0.5);  // the rollers are on their way to 40 km/h, not at the stale frame's 0.01
+  c.controlled_stop();
 }
 
 TEST(Modbus, BadRegisterMapsAreRefused) {

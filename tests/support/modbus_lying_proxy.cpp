@@ -5,12 +5,15 @@
 #include <netinet/in.h>
 #include <netinet/tcp.h>
 #include <poll.h>
+#include <pty.h>
 #include <sys/socket.h>
+#include <termios.h>
 #include <unistd.h>
 
 #include <algorithm>
 #include <atomic>
 #include <cerrno>
+#include <deque>
 #include <list>
 #include <map>
 #include <mutex>
@@ -58,6 +61,8 @@ const char* to_string(ModbusLie lie) {
       return "trickle";
     case ModbusLie::silence:
       return "silence";
+    case ModbusLie::late_reply:
+      return "late_reply";
   }
   return "?";
 }
@@ -82,16 +87,53 @@ struct Pending {  // a request on its way, by transaction id
 struct Pair {
   int tool = -1, ctrl = -1;
   std::vector<std::uint8_t> from_tool, from_ctrl, to_tool, to_ctrl;
-  std::map<std::uint16_t, Pending> pending;
+  std::map<std::uint16_t, Pending> pending;  // TCP: by transaction id
+  std::deque<Pending> rtu_pending;           // RTU: one request at a time, in order
   Clock::time_point next_trickle{};
+  std::vector<std::pair<Clock::time_point, std::vector<std::uint8_t>>> held;  // late replies
   bool dead = false;
 };
 
 // One complete MBAP frame at the front of `b`, or 0.
-std::size_t frame_length(const std::vector<std::uint8_t>& b) {
+std::size_t tcp_frame_length(const std::vector<std::uint8_t>& b) {
   if (b.size() < 7) return 0;
   const std::size_t len = (std::size_t(b[4]) << 8) | b[5];
   return b.size() >= 6 + len ? 6 + len : 0;
+}
+
+// One complete RTU frame at the front of `b` (unit, PDU, CRC), or 0; SIZE_MAX when the bytes cannot start a
+// frame of the functions the adapter uses (the buffer is then dropped to find the next frame).
+constexpr std::size_t kNoFrame = static_cast<std::size_t>(-1);
+std::size_t rtu_frame_length(const std::vector<std::uint8_t>& b, bool request) {
+  if (b.size() < 2) return 0;
+  const int fn = b[1];
+  std::size_t n = 0;
+  if (!request && (fn & 0x80))
+    n = 5;
+  else if (fn == 5 || fn == 6 || (request && fn >= 1 && fn <= 4) || (!request && (fn == 15 || fn == 16)))
+    n = 8;
+  else if (!request && fn >= 1 && fn <= 4)
+    n = b.size() >= 3 ? 5 + std::size_t(b[2]) : 0;
+  else if (request && (fn == 15 || fn == 16))
+    n = b.size() >= 7 ? 9 + std::size_t(b[6]) : 0;
+  else
+    return kNoFrame;
+  return n > 0 && b.size() >= n ? n : 0;
+}
+
+// Modbus RTU's CRC-16 (polynomial 0xA001 reflected, initial 0xFFFF; low byte first on the wire).
+std::uint16_t crc16(const std::uint8_t* d, std::size_t n) {
+  std::uint16_t crc = 0xFFFF;
+  for (std::size_t i = 0; i < n; ++i) {
+    crc ^= d[i];
+    for (int k = 0; k < 8; ++k) crc = (crc & 1) ? static_cast<std::uint16_t>((crc >> 1) ^ 0xA001) : crc >> 1;
+  }
+  return crc;
+}
+void put_crc(std::vector<std::uint8_t>& f) {
+  const std::uint16_t c = crc16(f.data(), f.size() - 2);
+  f[f.size() - 2] = static_cast<std::uint8_t>(c & 0xFF);
+  f[f.size() - 1] = static_cast<std::uint8_t>(c >> 8);
 }
 
 }  // namespace
@@ -119,7 +161,11 @@ struct ModbusLyingProxy::Impl {
   double lie_t0 = 0.0;  // the true time when the lie began (clock lies)
   bool lie_t0_set = false;
   std::uint64_t request_count = 0;
-  bool illegal_sent = false;
+  bool illegal_sent = false, late_sent = false;
+  bool rtu = false;
+  std::string tool_device, controller_device;
+  int slaves[2] = {
+      -1, -1};  // the proxy keeps each pseudo-terminal's slave open (no EIO between the tool's opens)
 
   void begin() {
     std::lock_guard<std::mutex> l(mu);
@@ -220,17 +266,25 @@ struct ModbusLyingProxy::Impl {
     commands.emplace_back(value, began.has_value());
   }
 
-  void exception_reply(Pair& pr, const std::uint8_t* f, int code) {
-    const std::uint8_t out[9] = {f[0],
-                                 f[1],
-                                 0,
-                                 0,
-                                 0,
-                                 3,
-                                 f[6],
-                                 static_cast<std::uint8_t>(f[7] | 0x80),
-                                 static_cast<std::uint8_t>(code)};
-    pr.to_tool.insert(pr.to_tool.end(), out, out + 9);
+  std::size_t header() const { return rtu ? 1 : 7; }  // bytes before the PDU
+  std::size_t trailer() const { return rtu ? 2 : 0; }
+
+  void exception_reply(Pair& pr, const std::vector<std::uint8_t>& f, int code) {
+    std::vector<std::uint8_t> out;
+    if (rtu)
+      out = {f[0], static_cast<std::uint8_t>(f[1] | 0x80), static_cast<std::uint8_t>(code), 0, 0};
+    else
+      out = {f[0],
+             f[1],
+             0,
+             0,
+             0,
+             3,
+             f[6],
+             static_cast<std::uint8_t>(f[7] | 0x80),
+             static_cast<std::uint8_t>(code)};
+    if (rtu) put_crc(out);
+    pr.to_tool.insert(pr.to_tool.end(), out.begin(), out.end());
     begin();
     std::lock_guard<std::mutex> l(mu);
     ++stats.exceptions_sent;
@@ -242,9 +296,9 @@ struct ModbusLyingProxy::Impl {
       ++stats.requests;
     }
     ++request_count;
-    const std::uint16_t tid = static_cast<std::uint16_t>(f[0] << 8 | f[1]);
-    const std::uint8_t* pdu = f.data() + 7;
-    const std::size_t n = f.size() - 7;
+    const std::uint16_t tid = rtu ? 0 : static_cast<std::uint16_t>(f[0] << 8 | f[1]);
+    const std::uint8_t* pdu = f.data() + header();
+    const std::size_t n = f.size() - header() - trailer();
     Pending p;
     p.fn = n >= 1 ? pdu[0] : 0;
     p.addr = n >= 3 ? (pdu[1] << 8 | pdu[2]) : 0;
@@ -256,9 +310,12 @@ struct ModbusLyingProxy::Impl {
         code = 0x06;
       if (lie == ModbusLie::gateway_always) code = 0x0B;
       if (lie == ModbusLie::illegal_address && !illegal_sent) code = 0x02, illegal_sent = true;
-      if (code) return exception_reply(pr, f.data(), code);
+      if (code) return exception_reply(pr, f, code);
     }
-    pr.pending[tid] = p;
+    if (rtu)
+      pr.rtu_pending.push_back(p);
+    else
+      pr.pending[tid] = p;
     pr.to_ctrl.insert(pr.to_ctrl.end(), f.begin(), f.end());
   }
 
@@ -267,15 +324,30 @@ struct ModbusLyingProxy::Impl {
       std::lock_guard<std::mutex> l(mu);
       ++stats.replies;
     }
-    const std::uint16_t tid = static_cast<std::uint16_t>(f[0] << 8 | f[1]);
-    const auto it = pr.pending.find(tid);
-    if (it != pr.pending.end()) {
-      const Pending p = it->second;
+    std::optional<Pending> req;
+    if (rtu) {
+      if (!pr.rtu_pending.empty()) req = pr.rtu_pending.front(), pr.rtu_pending.pop_front();
+    } else if (const auto it = pr.pending.find(static_cast<std::uint16_t>(f[0] << 8 | f[1]));
+               it != pr.pending.end()) {
+      req = it->second;
       pr.pending.erase(it);
-      std::uint8_t* pdu = f.data() + 7;
-      const std::size_t n = f.size() - 7;
-      if ((p.fn == 0x03 || p.fn == 0x04) && n >= 2 && pdu[0] == p.fn && n >= 2u + pdu[1])
-        alter(p, pdu + 2, pdu[1] / 2);
+    }
+    if (req) {
+      std::uint8_t* pdu = f.data() + header();
+      const std::size_t n = f.size() - header() - trailer();
+      if ((req->fn == 0x03 || req->fn == 0x04) && n >= 2 && pdu[0] == req->fn && n >= 2u + pdu[1])
+        alter(*req, pdu + 2, pdu[1] / 2);
+      if (rtu) put_crc(f);
+      // The late reply: the first reply to a read of the mode register, held back 1.5 s (past the tool's
+      // 1 s reply timeout, so it arrives when the tool has asked something else).
+      const auto& m = map[Q::mode];
+      if (is_armed() && lie == ModbusLie::late_reply && !late_sent && req->fn == 0x04 &&
+          m.table == Table::input && req->addr == m.address) {
+        late_sent = true;
+        begin();
+        pr.held.emplace_back(Clock::now() + std::chrono::milliseconds(1500), std::move(f));
+        return;
+      }
     }
     if (is_armed() && lie == ModbusLie::silence) {
       begin();
@@ -323,13 +395,14 @@ struct ModbusLyingProxy::Impl {
         continue;
       }
       if (n == 0) return false;
-      return errno == EAGAIN || errno == EWOULDBLOCK || errno == EINTR;
+      // EIO: a pseudo-terminal whose other side is closed for a moment (the tool reconnecting).
+      return errno == EAGAIN || errno == EWOULDBLOCK || errno == EINTR || errno == EIO;
     }
   }
-  static bool flush(int fd, std::vector<std::uint8_t>& from, std::size_t at_most) {
+  bool flush(int fd, std::vector<std::uint8_t>& from, std::size_t at_most) const {
     const std::size_t k = std::min(from.size(), at_most);
     if (k == 0) return true;
-    const ssize_t n = ::send(fd, from.data(), k, MSG_NOSIGNAL);
+    const ssize_t n = rtu ? ::write(fd, from.data(), k) : ::send(fd, from.data(), k, MSG_NOSIGNAL);
     if (n > 0) from.erase(from.begin(), from.begin() + n);
     return n >= 0 || errno == EAGAIN || errno == EWOULDBLOCK || errno == EINTR;
   }
@@ -340,7 +413,7 @@ struct ModbusLyingProxy::Impl {
         std::lock_guard<std::mutex> l(mu);
         armed = true;
       }
-      std::vector<pollfd> fds{{listen_fd, POLLIN, 0}};
+      std::vector<pollfd> fds{{rtu ? -1 : listen_fd, POLLIN, 0}};
       for (auto& p : pairs) {
         fds.push_back({p.tool, static_cast<short>(POLLIN | (p.to_tool.empty() ? 0 : POLLOUT)), 0});
         fds.push_back({p.ctrl, static_cast<short>(POLLIN | (p.to_ctrl.empty() ? 0 : POLLOUT)), 0});
@@ -351,15 +424,34 @@ struct ModbusLyingProxy::Impl {
       for (auto& p : pairs) {
         if (!drain(p.tool, p.from_tool)) p.dead = true;
         if (!drain(p.ctrl, p.from_ctrl)) p.dead = true;
-        for (std::size_t n; (n = frame_length(p.from_tool)) > 0;) {
+        const auto length = [&](const std::vector<std::uint8_t>& b, bool request) {
+          return rtu ? rtu_frame_length(b, request) : tcp_frame_length(b);
+        };
+        for (std::size_t n; (n = length(p.from_tool, true)) > 0;) {
+          if (n == kNoFrame) {
+            p.from_tool.clear();
+            break;
+          }
           std::vector<std::uint8_t> f(p.from_tool.begin(), p.from_tool.begin() + n);
           p.from_tool.erase(p.from_tool.begin(), p.from_tool.begin() + n);
           on_request(p, std::move(f));
         }
-        for (std::size_t n; (n = frame_length(p.from_ctrl)) > 0;) {
+        for (std::size_t n; (n = length(p.from_ctrl, false)) > 0;) {
+          if (n == kNoFrame) {
+            p.from_ctrl.clear();
+            break;
+          }
           std::vector<std::uint8_t> f(p.from_ctrl.begin(), p.from_ctrl.begin() + n);
           p.from_ctrl.erase(p.from_ctrl.begin(), p.from_ctrl.begin() + n);
           on_reply(p, std::move(f));
+        }
+        for (auto h = p.held.begin(); h != p.held.end();) {
+          if (Clock::now() < h->first) {
+            ++h;
+            continue;
+          }
+          p.to_tool.insert(p.to_tool.end(), h->second.begin(), h->second.end());
+          h = p.held.erase(h);
         }
         if (!flush(p.ctrl, p.to_ctrl, p.to_ctrl.size())) p.dead = true;
         if (trickling) {
@@ -414,10 +506,48 @@ ModbusLyingProxy::ModbusLyingProxy(unsigned short controller_port, modbus::Regis
   impl_->worker = std::thread([this] { impl_->run(); });
 }
 
+ModbusLyingProxy::ModbusLyingProxy(modbus::RegisterMap map, ModbusLie lie, ModbusTrigger trigger)
+    : impl_(std::make_unique<Impl>()) {
+  impl_->map = std::move(map);
+  impl_->lie = lie;
+  impl_->trigger = lie == ModbusLie::none ? ModbusTrigger::in_mode(-100, 0.0) : trigger;
+  impl_->rtu = true;
+  int masters[2] = {-1, -1};
+  std::string* names[2] = {&impl_->tool_device, &impl_->controller_device};
+  for (int i = 0; i < 2; ++i) {
+    char name[128] = {0};
+    if (::openpty(&masters[i], &impl_->slaves[i], name, nullptr, nullptr) != 0)
+      throw std::runtime_error("modbus lying proxy: cannot open a pseudo-terminal");
+    termios t{};
+    ::tcgetattr(impl_->slaves[i], &t);
+    ::cfmakeraw(&t);
+    ::tcsetattr(impl_->slaves[i], TCSANOW, &t);
+    ::fcntl(masters[i], F_SETFD, FD_CLOEXEC);
+    ::fcntl(impl_->slaves[i], F_SETFD, FD_CLOEXEC);
+    nonblocking(masters[i]);
+    *names[i] = name;
+  }
+  Pair p;
+  p.tool = masters[0];
+  p.ctrl = masters[1];
+  impl_->pairs.push_back(std::move(p));
+  impl_->stats.connections = 1;
+  impl_->worker = std::thread([this] { impl_->run(); });
+}
+
+const std::string& ModbusLyingProxy::tool_device() const {
+  return impl_->tool_device;
+}
+const std::string& ModbusLyingProxy::controller_device() const {
+  return impl_->controller_device;
+}
+
 ModbusLyingProxy::~ModbusLyingProxy() {
   impl_->stop = true;
   impl_->worker.join();
-  ::close(impl_->listen_fd);
+  if (impl_->listen_fd >= 0) ::close(impl_->listen_fd);
+  for (int fd : impl_->slaves)
+    if (fd >= 0) ::close(fd);
 }
 
 unsigned short ModbusLyingProxy::port() const {

@@ -6,8 +6,9 @@
 // commanded after the lie began?". The line protocol's proxy (lying_proxy.hpp) is its twin; the lies are the
 // same where the dialects allow.
 //
-// Frames: Modbus TCP (MBAP header: transaction id, protocol id 0, length, unit id; then the PDU). Requests
-// are matched to replies by transaction id. Threads: one worker (poll on non-blocking sockets), joined in the
+// Frames: Modbus TCP (MBAP header: transaction id, protocol id 0, length, unit id; then the PDU), requests
+// matched to replies by transaction id; or Modbus RTU over pseudo-terminals (unit id, PDU, CRC-16), one
+// request at a time. Threads: one worker (poll on non-blocking sockets), joined in the
 // destructor. The lie state is the proxy's, not a connection's: a tool that reconnects meets the same liar.
 #pragma once
 
@@ -39,6 +40,8 @@ enum class ModbusLie : std::uint8_t {
   illegal_address,    // one request answered with exception 02 (illegal data address)
   trickle,            // tool-bound bytes delivered one per 150 ms
   silence,            // requests still reach the controller; no reply reaches the tool
+  late_reply,  // RTU: the first reply to a read of the mode register held back 1.5 s, then delivered (after
+               // the tool's reply timeout: when it has asked something else)
 };
 const char* to_string(ModbusLie lie);
 
@@ -65,6 +68,12 @@ class ModbusLyingProxy {
   // Throws std::runtime_error when it cannot listen.
   ModbusLyingProxy(unsigned short controller_port, modbus::RegisterMap map, ModbusLie lie,
                    ModbusTrigger trigger);
+  // Modbus RTU: two pseudo-terminal pairs the proxy opens itself, the tool on one (tool_device()), the
+  // controller (loadtrim-sim --modbus-rtu) on the other (controller_device()); frames are told apart by their
+  // function code's length and carry a recomputed CRC when altered. Throws std::runtime_error without ptys.
+  ModbusLyingProxy(modbus::RegisterMap map, ModbusLie lie, ModbusTrigger trigger);
+  const std::string& tool_device() const;
+  const std::string& controller_device() const;
   ~ModbusLyingProxy();
   ModbusLyingProxy(const ModbusLyingProxy&) = delete;
   ModbusLyingProxy& operator=(const ModbusLyingProxy&) = delete;
