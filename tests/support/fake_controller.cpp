@@ -49,6 +49,7 @@ Result FakeController::do_connect(controller::Deadline) {
 }
 Result FakeController::do_identify(controller::ControllerInfo& out, controller::Deadline) {
   out = sim_->info();
+  out.capabilities += script.extra_capabilities;
   return Result::success();
 }
 Result FakeController::do_write_inertia(double kg, controller::Deadline) {
