@@ -300,3 +300,23 @@ TEST(ModbusMap, AppliedValueRegistersOrAnExplicitAcceptanceOfSetpointReadBack) {
   msg = refusal(partial);
   EXPECT_NE(msg.find("names all four or none"), std::string::npos) << msg;
 }
+
+// The retry policy's keys (docs/modbus.md, "Exceptions"): defaults, and out-of-range values refused with key
+// and range. Exception codes and meanings: Modbus Application Protocol Specification V1.1b3, section 7
+// (from memory).
+TEST(ModbusMap, RetryPolicyKeysAndTheirRanges) {
+  const RegisterMap m = map_of(shipped());
+  EXPECT_EQ(m.retry.attempts, 3);
+  EXPECT_EQ(m.retry.within_ms, 500);
+  EXPECT_EQ(m.retry.delay_ms, 20);
+  EXPECT_EQ(m.retry.byte_timeout_ms, 100);
+  EXPECT_TRUE(retryable_exception(0x06));   // server device busy
+  EXPECT_TRUE(retryable_exception(0x0A));   // gateway path unavailable
+  EXPECT_TRUE(retryable_exception(0x0B));   // gateway target device failed to respond
+  EXPECT_FALSE(retryable_exception(0x02));  // illegal data address: a refusal
+  EXPECT_FALSE(retryable_exception(0x04));  // server device failure
+  const std::string msg = refusal(
+      variant("poll_rate_hz = 50.0", "poll_rate_hz = 50.0\nretry_attempts = 50\nbyte_timeout_ms = 0"));
+  EXPECT_NE(msg.find("modbus.retry_attempts"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("modbus.byte_timeout_ms"), std::string::npos) << msg;
+}
