@@ -135,6 +135,8 @@ const Row kRows[] = {
     {"fault_event", Lie::fault_event, hold30(), Cmd::run, 3, "fault event", 60, false},
     // The emergency-stop flag in the samples: the tool stops and says the controller reports a fault.
     {"fault_flag", Lie::fault_flag, hold30(), Cmd::run, 3, "reports a fault", 60, false},
+    // The at-limit flag in the samples: a stop, as over Modbus (docs/safety.md §3).
+    {"at_limit", Lie::at_limit, hold30(), Cmd::run, 3, "at a limit (flags 0x", 60, false},
     // Every sample cut in half: the message must count the rejected lines, not just report a stall.
     {"half_lines", Lie::half_lines, hold30(), Cmd::run, 3, "lines rejected", 60, false},
     // Nothing more reaches the tool though the TCP connection stays open (neither samples nor replies): the
