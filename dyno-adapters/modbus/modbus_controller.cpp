@@ -111,7 +111,8 @@ Result ModbusController::do_connect(controller::Deadline) {
                           s.stop_bits == adapters::SerialLine::StopBits::two ? 2 : 1);
   }
   if (!ctx_) return Result::fail("cannot create the Modbus context");
-  counter_.reset(counter_period_s(settings_.map[Q::time]), 1.0);  // a new link: the counter read afresh
+  // A new link: the counter is read afresh, at the rate the controller stated before (1 until it states one).
+  counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
   modbus_set_slave(ctx_, settings_.map.unit_id);
   const auto reply = timeouts().reply;
   modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000),
@@ -220,7 +221,8 @@ Result ModbusController::do_identify(controller::ControllerInfo& out, controller
   if (settings_.map[Q::time_scale].present)
     if (Result r = read(Q::time_scale, out.time_scale); !r.ok()) return r;
   // The time counter's unwrapping judges long gaps between reads by the stated rate.
-  counter_.reset(counter_period_s(settings_.map[Q::time]), std::max(1.0, out.time_scale));
+  stated_rate_ = std::isfinite(out.time_scale) ? std::max(1.0, out.time_scale) : 1.0;
+  counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
   return read(Q::max_force, out.max_force_n);
 }
 

@@ -78,7 +78,8 @@ class ModbusController : public controller::Controller {
   std::uint16_t beat_ = 0;
   std::chrono::steady_clock::time_point next_poll_{}, t0_{};
   double worst_jitter_s_ = 0.0;
-  TimeCounter counter_;  // the time register unwrapped (register_map.hpp)
+  TimeCounter counter_;       // the time register unwrapped (register_map.hpp)
+  double stated_rate_ = 1.0;  // the clock rate the controller stated at its last identify
   std::uint64_t exception_retries_ = 0;
   bool warned_status_bits_ = false;
   std::vector<std::string> events_;
