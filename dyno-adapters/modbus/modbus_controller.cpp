@@ -2,8 +2,11 @@
 
 #include <modbus/modbus.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <cmath>
+#include <cstdio>
+#include <filesystem>
 #include <thread>
 
 #include "adapter_row.hpp"
@@ -24,13 +27,76 @@ ModbusController::~ModbusController() {
   do_disconnect();
 }
 
-Result ModbusController::fail(const std::string& what) {
-  const int e = errno;
+Result ModbusController::fail(const std::string& what, int e) {
   const std::string text = std::string(modbus_strerror(e));
-  // Exceptions the controller answered with are its refusals; timeouts and closed links are retryable.
-  if (e > MODBUS_ENOBASE && e < MODBUS_ENOBASE + 12)
-    return Result::fail(what + ": Modbus exception from the controller: " + text, e - MODBUS_ENOBASE);
-  return Result::retry(what + ": " + text);
+  // Exceptions the controller answered with are its refusals (busy and gateway ones once the retry policy is
+  // spent: busy stays a refusal, a gateway's is a timeout); timeouts and closed links are retryable.
+  if (e > MODBUS_ENOBASE && e < MODBUS_ENOBASE + 12) {
+    const int code = e - MODBUS_ENOBASE;
+    const std::string m =
+        what + ": Modbus exception " + std::to_string(code) + " from the controller: " + text;
+    return code == 0x0A || code == 0x0B ? Result::retry(m, code) : Result::fail(m, code);
+  }
+  std::string m = what + ": " + text;
+  if (e == ETIMEDOUT)
+    m += " (no complete reply: the first byte is awaited timeouts.reply_ms = " +
+         std::to_string(timeouts().reply.count()) + " ms, each next one modbus.byte_timeout_ms = " +
+         std::to_string(std::min<long long>(settings_.map.retry.byte_timeout_ms, timeouts().reply.count())) +
+         " ms)";
+  // A serial device that went away (unplugged, its driver gone) is named by its path.
+  if (const auto* line = std::get_if<adapters::SerialLine>(&settings_.link)) {
+    std::error_code ec;
+    m += std::filesystem::exists(line->device, ec) ? " (RTU device " + line->device + ")"
+                                                   : " (the RTU device " + line->device + " is gone)";
+  }
+  return Result::retry(m);
+}
+
+template <class F>
+Result ModbusController::transact(const std::string& what, F&& request) {
+  const RetryPolicy& p = settings_.map.retry;
+  const auto first = Clock::now();
+  for (int attempt = 0;; ++attempt) {
+    const auto t0 = Clock::now();
+    errno = 0;
+    const int rc = request();
+    const int e = errno;
+    if (rc >= 0) {
+      // libmodbus bounds the first byte (response timeout) and each gap (byte timeout), not the whole reply:
+      // a controller trickling its bytes is a link that does not answer in time.
+      const auto took = std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - t0);
+      if (took > timeouts().reply)
+        return Result::retry(what + ": the reply took " + std::to_string(took.count()) +
+                             " ms, more than timeouts.reply_ms (" + std::to_string(timeouts().reply.count()) +
+                             " ms)");
+      return Result::success();
+    }
+    const bool exception = e > MODBUS_ENOBASE && e < MODBUS_ENOBASE + 12;
+    if (!exception && ctx_) {
+      // A late reply must not answer the next request. Over TCP the transaction id tells replies apart; an
+      // RTU frame carries no such id, and a late reply of the same function and length would pass for the
+      // next one's: after a timeout the line is given one more reply timeout to bring what was still on its
+      // way, and then flushed (a reply later than twice the timeout cannot be told apart on RTU at all).
+      if (e == ETIMEDOUT && std::holds_alternative<adapters::SerialLine>(settings_.link))
+        std::this_thread::sleep_for(timeouts().reply);
+      modbus_flush(ctx_);
+    }
+    const bool again = exception && retryable_exception(e - MODBUS_ENOBASE);
+    const auto next = Clock::now() + std::chrono::milliseconds(p.delay_ms);
+    if (again && attempt < p.attempts && next - first < std::chrono::milliseconds(p.within_ms)) {
+      ++exception_retries_;
+      std::this_thread::sleep_until(next);
+      continue;
+    }
+    Result r = fail(what, e);
+    if (again)
+      r.message += " (still after " + std::to_string(attempt) + " retries within " +
+                   std::to_string(
+                       std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - first).count()) +
+                   " ms: modbus.retry_attempts = " + std::to_string(p.attempts) +
+                   ", modbus.retry_within_ms = " + std::to_string(p.within_ms) + ")";
+    return r;
+  }
 }
 
 Result ModbusController::do_connect(controller::Deadline) {
@@ -45,12 +111,18 @@ Result ModbusController::do_connect(controller::Deadline) {
                           s.stop_bits == adapters::SerialLine::StopBits::two ? 2 : 1);
   }
   if (!ctx_) return Result::fail("cannot create the Modbus context");
+  // A new link: the counter is read afresh, at the rate the controller stated before (1 until it states one).
+  counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
   modbus_set_slave(ctx_, settings_.map.unit_id);
   const auto reply = timeouts().reply;
   modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000),
                               static_cast<std::uint32_t>(reply.count() % 1000) * 1000);
+  // The longest gap between two bytes of one reply (libmodbus waits for each byte this long).
+  const int gap_ms = std::min<int>(settings_.map.retry.byte_timeout_ms, static_cast<int>(reply.count()));
+  modbus_set_byte_timeout(ctx_, static_cast<std::uint32_t>(gap_ms / 1000),
+                          static_cast<std::uint32_t>(gap_ms % 1000) * 1000);
   if (modbus_connect(ctx_) != 0) {
-    Result r = fail("connect");
+    Result r = fail("connect", errno);
     modbus_free(ctx_);
     ctx_ = nullptr;
     return Result::retry(r.message);
@@ -70,20 +142,22 @@ void ModbusController::do_disconnect() {
 Result ModbusController::read(Q q, double& value) {
   if (!ctx_) return Result::retry("link not open");
   const Register& r = settings_.map[q];
-  std::uint16_t w[2] = {0, 0};
-  int rc;
-  if (r.table == Table::coil) {
-    std::uint8_t bit = 0;
-    rc = modbus_read_bits(ctx_, r.address, 1, &bit);
-    w[0] = bit;
-  } else if (r.table == Table::input) {
-    rc = modbus_read_input_registers(ctx_, r.address, r.words(), w);
-  } else {
-    rc = modbus_read_registers(ctx_, r.address, r.words(), w);
-  }
-  if (rc < 0)
-    return fail(std::string("read ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
-                std::to_string(r.address) + ")");
+  std::uint16_t w[4] = {0, 0, 0, 0};
+  if (Result res = transact(std::string("read ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
+                                std::to_string(r.address) + ")",
+                            [&] {
+                              if (r.table == Table::coil) {
+                                std::uint8_t bit = 0;
+                                const int rc = modbus_read_bits(ctx_, r.address, 1, &bit);
+                                w[0] = bit;
+                                return rc;
+                              }
+                              if (r.table == Table::input)
+                                return modbus_read_input_registers(ctx_, r.address, r.words(), w);
+                              return modbus_read_registers(ctx_, r.address, r.words(), w);
+                            });
+      !res.ok())
+    return res;
   value = decode(r, w);
   if (!std::isfinite(value))
     return Result::fail(std::string("the controller sent a non-finite ") + kQuantities[q].name + " (" +
@@ -94,22 +168,18 @@ Result ModbusController::read(Q q, double& value) {
 Result ModbusController::write(Q q, double value) {
   if (!ctx_) return Result::retry("link not open");
   const Register& r = settings_.map[q];
-  std::uint16_t w[2] = {0, 0};
+  std::uint16_t w[4] = {0, 0, 0, 0};
   if (!encode(r, value, w))
     return Result::fail(std::string("cannot write ") + kQuantities[q].name + " = " + std::to_string(value) +
                         ": it does not fit the " + to_string(r.type) + " register at " + to_string(r.table) +
                         " " + std::to_string(r.address) + " with scale " + std::to_string(r.scale));
-  int rc;
-  if (r.table == Table::coil)
-    rc = modbus_write_bit(ctx_, r.address, w[0] ? 1 : 0);
-  else if (r.words() == 1)
-    rc = modbus_write_register(ctx_, r.address, w[0]);
-  else
-    rc = modbus_write_registers(ctx_, r.address, 2, w);
-  if (rc < 0)
-    return fail(std::string("write ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
-                std::to_string(r.address) + ")");
-  return Result::success();
+  return transact(std::string("write ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
+                      std::to_string(r.address) + ")",
+                  [&] {
+                    if (r.table == Table::coil) return modbus_write_bit(ctx_, r.address, w[0] ? 1 : 0);
+                    if (r.words() == 1) return modbus_write_register(ctx_, r.address, w[0]);
+                    return modbus_write_registers(ctx_, r.address, r.words(), w);
+                  });
 }
 
 Result ModbusController::strobe(controller::Deadline d) {
@@ -142,11 +212,17 @@ Result ModbusController::do_identify(controller::ControllerInfo& out, controller
   // The checks' modes only where the map names their codes and registers.
   if (missing_for(settings_.map, controller::Mode::constant_force).empty()) out.capabilities += ",force";
   if (missing_for(settings_.map, controller::Mode::free_coast).empty()) out.capabilities += ",free";
+  // Logged with the controller in every session and shown on the report: the read-back proves only that the
+  // write arrived.
+  if (!settings_.map.reads_applied()) out.capabilities += ",readback-setpoint-only";
   if (Result r = read(Q::roller_diameter, out.roller_diameter_m); !r.ok()) return r;
   if (Result r = read(Q::base_inertia, out.base_inertia_kg); !r.ok()) return r;
   if (Result r = read(Q::max_speed, out.max_speed_kmh); !r.ok()) return r;
   if (settings_.map[Q::time_scale].present)
     if (Result r = read(Q::time_scale, out.time_scale); !r.ok()) return r;
+  // The time counter's unwrapping judges long gaps between reads by the stated rate.
+  stated_rate_ = std::isfinite(out.time_scale) ? std::max(1.0, out.time_scale) : 1.0;
+  counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
   return read(Q::max_force, out.max_force_n);
 }
 
@@ -155,7 +231,7 @@ Result ModbusController::do_write_inertia(double kg, controller::Deadline d) {
   return strobe(d);
 }
 Result ModbusController::do_read_inertia(double& kg, controller::Deadline) {
-  return read(Q::inertia, kg);
+  return read(settings_.map.reads_applied() ? Q::applied_inertia : Q::inertia, kg);
 }
 
 Result ModbusController::do_write_coefficients(const core::RoadLoad& c, controller::Deadline d) {
@@ -166,9 +242,40 @@ Result ModbusController::do_write_coefficients(const core::RoadLoad& c, controll
 }
 
 Result ModbusController::do_read_coefficients(core::RoadLoad& c, controller::Deadline) {
-  if (Result r = read(Q::f0, c.f0_n); !r.ok()) return r;
-  if (Result r = read(Q::f1, c.f1_n_per_kmh); !r.ok()) return r;
-  return read(Q::f2, c.f2_n_per_kmh2);
+  // What the controller reports running, when the map names it; else (accepted by the cell file) the setpoint
+  // registers just written.
+  const bool applied = settings_.map.reads_applied();
+  if (Result r = read(applied ? Q::applied_f0 : Q::f0, c.f0_n); !r.ok()) return r;
+  if (Result r = read(applied ? Q::applied_f1 : Q::f1, c.f1_n_per_kmh); !r.ok()) return r;
+  return read(applied ? Q::applied_f2 : Q::f2, c.f2_n_per_kmh2);
+}
+
+std::string ModbusController::readback_source() const {
+  if (!settings_.map.reads_applied())
+    return "read-back of the setpoint registers (setpoint-only read-back, accepted by the cell file)";
+  const Register& r = settings_.map[Q::applied_inertia];
+  return std::string("read-back of the applied values the controller reports (") + to_string(r.table) +
+         " registers from " + std::to_string(r.address) + ")";
+}
+
+double ModbusController::setting_tolerance(Setting what, double written) const {
+  // The setpoint register rounds what is written to its resolution, and the register it is read back from
+  // (the applied value's, or the same one) rounds it again: half a count of each integer register, and
+  // float32's last place.
+  const Q set = what == Setting::inertia ? Q::inertia
+                : what == Setting::f0    ? Q::f0
+                : what == Setting::f1    ? Q::f1
+                                         : Q::f2;
+  const Q back = !settings_.map.reads_applied() ? set
+                 : what == Setting::inertia     ? Q::applied_inertia
+                 : what == Setting::f0          ? Q::applied_f0
+                 : what == Setting::f1          ? Q::applied_f1
+                                                : Q::applied_f2;
+  const auto half_count = [&](Q q) {
+    const Register& r = settings_.map[q];
+    return r.type == Type::float32 ? 0.0 : std::abs(r.scale) / 2.0;
+  };
+  return readback_tolerance(written) + half_count(set) + (back == set ? 0.0 : half_count(back));
 }
 
 Result ModbusController::do_command(controller::Mode mode, double value, controller::Deadline d) {
@@ -223,15 +330,43 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   if (Result r = read(Q::mode, mode); !r.ok()) return r;
   if (Result r = read(Q::status, status); !r.ok()) return r;
   if (settings_.map[Q::time].present) {
-    if (Result r = read(Q::time, s.time_s); !r.ok()) return r;
+    if (Result r = read_time(s.time_s); !r.ok()) return r;
   } else {
     s.time_s = std::chrono::duration<double>(now - t0_).count();
   }
   if (std::string bad = decode_mode(mode, s.mode, settings_.map.modes); !bad.empty())
     return Result::fail(bad);
   if (std::string bad = decode_flags(status, s.flags); !bad.empty()) return Result::fail(bad);
+  check_status_bits(s.flags);
   s.index = index_++;
   out.push_back(s);
+  return Result::success();
+}
+
+void ModbusController::check_status_bits(std::uint32_t flags) {
+  const std::uint32_t undefined = flags & ~kDefinedStatusBits;
+  if (!undefined || warned_status_bits_) return;
+  warned_status_bits_ = true;
+  char hex[16];
+  std::snprintf(hex, sizeof hex, "0x%X", undefined);
+  const std::string w = std::string("the controller's status register sets bits the map does not define (") +
+                        hex +
+                        "; defined: 1 fault, 2 emergency stop, 4 watchdog, 8 at a limit, 16 at setpoint)";
+  // Once per connection's life: a warning, not a stop (the defined bits still act); the operator should
+  // learn what they mean from the controller's documentation.
+  std::fprintf(stderr, "loadtrim: WARNING: %s\n", w.c_str());
+  if (events_.size() < 16) events_.push_back("WARNING kind=STATUS_BITS detail=" + w);
+}
+
+void ModbusController::do_take_events(std::vector<std::string>& out) {
+  out.insert(out.end(), events_.begin(), events_.end());
+  events_.clear();
+}
+
+Result ModbusController::read_time(double& time_s) {
+  double raw = 0.0;
+  if (Result r = read(Q::time, raw); !r.ok()) return r;
+  time_s = counter_.read(raw, std::chrono::duration<double>(Clock::now().time_since_epoch()).count());
   return Result::success();
 }
 
@@ -245,10 +380,11 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
   if (Result r = read(Q::mode, mode); !r.ok()) return r;
   if (Result r = read(Q::status, status); !r.ok()) return r;
   if (settings_.map[Q::time].present)
-    if (Result r = read(Q::time, out.time_s); !r.ok()) return r;
+    if (Result r = read_time(out.time_s); !r.ok()) return r;
   if (std::string bad = decode_mode(mode, out.mode, settings_.map.modes); !bad.empty())
     return Result::fail(bad);
   if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);
+  check_status_bits(out.flags);
   out.fault = (out.flags & controller::kFlagWatchdog) ? "WATCHDOG"
               : (out.flags & controller::kFlagEstop)  ? "ESTOP"
               : (out.flags & controller::kFlagFault)  ? "FAULT"

@@ -33,6 +33,8 @@ class ModbusController : public controller::Controller {
   ~ModbusController() override;
   // Poll timing when the map has no time register: worst deviation from the nominal period, s.
   double worst_jitter_s() const { return worst_jitter_s_; }
+  // Requests sent again after a busy or gateway exception (the retry policy), since construction.
+  std::uint64_t exception_retries() const { return exception_retries_; }
 
  protected:
   controller::Result do_connect(controller::Deadline d) override;
@@ -53,13 +55,22 @@ class ModbusController : public controller::Controller {
   controller::Result do_status(controller::StatusReport& out, controller::Deadline d) override;
   controller::Result do_clear_fault(controller::Deadline d) override;
   double readback_tolerance(double written) const override;
+  double setting_tolerance(Setting what, double written) const override;
+  std::string readback_source() const override;
   std::string mode_unavailable(controller::Mode mode) const override;
+  void do_take_events(std::vector<std::string>& out) override;
 
  private:
   controller::Result read(Q q, double& value);
   controller::Result write(Q q, double value);
-  controller::Result strobe(controller::Deadline d);  // raise, wait for the controller to clear it
-  controller::Result fail(const std::string& what);   // from errno, naming Modbus exceptions
+  controller::Result strobe(controller::Deadline d);          // raise, wait for the controller to clear it
+  controller::Result fail(const std::string& what, int err);  // from an errno, naming Modbus exceptions
+  // One request (a libmodbus call returning < 0 on failure), under the map's retry policy for busy and
+  // gateway exceptions and the whole-reply bound (timeouts.reply_ms).
+  template <class F>
+  controller::Result transact(const std::string& what, F&& request);
+  // Status bits the map does not define: named once (stderr and an event), then only counted.
+  void check_status_bits(std::uint32_t flags);
   Settings settings_;
   modbus_t* ctx_ = nullptr;
   bool streaming_ = false;
@@ -67,6 +78,12 @@ class ModbusController : public controller::Controller {
   std::uint16_t beat_ = 0;
   std::chrono::steady_clock::time_point next_poll_{}, t0_{};
   double worst_jitter_s_ = 0.0;
+  TimeCounter counter_;       // the time register unwrapped (register_map.hpp)
+  double stated_rate_ = 1.0;  // the clock rate the controller stated at its last identify
+  std::uint64_t exception_retries_ = 0;
+  bool warned_status_bits_ = false;
+  std::vector<std::string> events_;
+  controller::Result read_time(double& time_s);  // read and unwrapped
 };
 
 }  // namespace loadtrim::modbus

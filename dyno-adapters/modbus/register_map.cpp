@@ -26,6 +26,8 @@ const char* to_string(Type t) {
       return "uint32";
     case Type::float32:
       return "float32";
+    case Type::uint64:
+      return "uint64";
   }
   return "?";
 }
@@ -70,6 +72,33 @@ core::Problems validate(const RegisterMap& m) {
       else
         slot = q.name;
     }
+  }
+  // Applied values: all four, or none with the cell file's explicit acceptance of setpoint-only read-back.
+  {
+    std::vector<std::string> missing;
+    for (Q q : kApplied)
+      if (!m.regs[q].present) missing.push_back(std::string("modbus.") + kQuantities[q].name);
+    if (!missing.empty() && missing.size() < kApplied.size())
+      err(missing.front(),
+          "is missing: the applied values are read back together (applied_inertia, "
+          "applied_f0, applied_f1, applied_f2), so the map names all four or none");
+    else if (!missing.empty() && !m.accept_setpoint_readback)
+      err("modbus.applied_inertia",
+          "is missing (with applied_f0, applied_f1, applied_f2): the map must name where the controller "
+          "reports the inertia and coefficients it applies, or the cell file must accept a read-back of the "
+          "setpoint registers alone with modbus.accept_setpoint_readback = true (docs/modbus.md)");
+  }
+  // The controller's clock: a counter with a positive unit (its period is what tells a wrap from a step
+  // back).
+  if (const Register& t = m.regs[Q::time]; t.present) {
+    if (!(t.scale > 0.0))
+      err("modbus.time.scale", "is " + core::num(t.scale) + ", must be positive (seconds per count)");
+    else if (const double p = counter_period_s(t); p > 0.0 && p < 10.0)
+      err("modbus.time.type",
+          std::string("is \"") + to_string(t.type) + "\" with scale " + core::num(t.scale) +
+              ": the counter wraps every " + core::num(p) +
+              " s, which cannot be told from a clock stepping back between reads; at least 10 s is needed "
+              "(a wider type or a coarser scale)");
   }
   // The checks' mode codes: distinct from ours (0 to 4) and from each other, and sendable through the command
   // register; a constant force goes with its setpoint register.
@@ -135,6 +164,11 @@ int command_code(const RegisterMap& m, controller::Mode mode) {
 }
 
 double decode(const Register& r, const std::uint16_t* w) {
+  if (r.type == Type::uint64 && r.table != Table::coil) {
+    std::uint64_t v = 0;
+    for (int i = 0; i < 4; ++i) v = (v << 16) | w[r.order == WordOrder::big ? i : 3 - i];
+    return static_cast<double>(v) * r.scale;
+  }
   std::uint32_t v32 = 0;
   if (r.words() == 2)
     v32 = r.order == WordOrder::big ? (std::uint32_t(w[0]) << 16) | w[1] : (std::uint32_t(w[1]) << 16) | w[0];
@@ -158,6 +192,8 @@ double decode(const Register& r, const std::uint16_t* w) {
       raw = f;
       break;
     }
+    case Type::uint64:
+      break;  // above
   }
   return raw * r.scale;
 }
@@ -192,6 +228,15 @@ bool encode(const Register& r, double value, std::uint16_t* w) {
       const float f = static_cast<float>(raw);
       std::memcpy(&v32, &f, sizeof f);
       break;
+    }
+    case Type::uint64: {
+      // 2^64 itself is one count too many (a double cannot hold 2^64 - 1: the largest below is 2^64 - 2048).
+      if (!(std::isfinite(raw) && std::round(raw) >= 0.0 && std::round(raw) < 18446744073709551616.0))
+        return false;
+      auto v = static_cast<std::uint64_t>(std::round(raw));
+      for (int i = 3; i >= 0; --i, v >>= 16)
+        w[r.order == WordOrder::big ? i : 3 - i] = static_cast<std::uint16_t>(v & 0xFFFF);
+      return true;
     }
   }
   if (r.order == WordOrder::big) {
@@ -248,6 +293,59 @@ std::string decode_error_code(double value, int& out) {
     return "error register value " + shown(value) + " is not an error code";
   out = static_cast<int>(value);
   return "";
+}
+
+bool retryable_exception(int code) {
+  return code == 0x06 || code == 0x0A || code == 0x0B;
+}
+
+double counter_period_s(const Register& time) {
+  const int bits = time.bits();
+  return bits > 0 ? std::ldexp(std::abs(time.scale), bits) : 0.0;
+}
+
+void TimeCounter::reset(double period_s, double rate) {
+  period_s_ = period_s;
+  rate_ = rate > 0.0 && std::isfinite(rate) ? rate : 1.0;
+  have_ = false;
+  last_raw_s_ = last_wall_s_ = 0.0;
+  periods_ = 0;
+  wraps_ = 0;
+}
+
+double TimeCounter::read(double raw_s, double wall_s) {
+  if (!(period_s_ > 0.0) || !std::isfinite(raw_s)) return raw_s;  // not a counter (float32), or not a time
+  const double p = period_s_;
+  // The counter's position in [0, p): a signed register's negative half is the upper half of its period.
+  double r = std::fmod(raw_s, p);
+  if (r < 0.0) r += p;
+  if (!have_) {
+    have_ = true;
+    last_raw_s_ = r;
+    last_wall_s_ = wall_s;
+    periods_ = 0;
+    return r;
+  }
+  double d = r - last_raw_s_;  // forward movement modulo the period, in [0, p)
+  if (d < 0.0) d += p;
+  const double expected = rate_ * std::max(0.0, wall_s - last_wall_s_);
+  // Whole periods are counted apart from the position, so the time is exact (no sum of steps drifting).
+  std::int64_t k = 0;
+  if (expected < p / 2.0) {
+    if (d <= p / 2.0)
+      k = r < last_raw_s_ ? 1 : 0;  // forward, across the wrap or not
+    else
+      k = r > last_raw_s_ ? -1 : 0;  // more than half a period forward = a step BACK by the rest
+  } else {
+    k = static_cast<std::int64_t>(std::max(0.0, std::round((expected - d) / p))) + (r < last_raw_s_ ? 1 : 0);
+  }
+  periods_ += k;
+  if (k > 0) wraps_ += static_cast<std::uint64_t>(k);
+  last_raw_s_ = r;
+  last_wall_s_ = wall_s;
+  // A step back below the first reading's period reads 0: lower than before, so the clock guard names it a
+  // clock that ran backwards (a negative time would be named "not a time" instead).
+  return std::max(0.0, static_cast<double>(periods_) * p + r);
 }
 
 }  // namespace loadtrim::modbus

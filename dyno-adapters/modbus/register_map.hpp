@@ -14,8 +14,9 @@
 namespace loadtrim::modbus {
 
 enum class Table : std::uint8_t { holding, input, coil };
-enum class Type : std::uint8_t { int16, uint16, int32, uint32, float32 };
-enum class WordOrder : std::uint8_t { big, little };  // big: the high word at the lower address
+enum class Type : std::uint8_t { int16, uint16, int32, uint32, float32, uint64 };
+// big: the high word at the lower address (for uint64, the highest of its four words first)
+enum class WordOrder : std::uint8_t { big, little };
 
 struct Register {
   bool present = false;
@@ -27,9 +28,12 @@ struct Register {
   std::string unit;
   int words() const {
     return table == Table::coil                                                     ? 1
+           : type == Type::uint64                                                   ? 4
            : (type == Type::int32 || type == Type::uint32 || type == Type::float32) ? 2
                                                                                     : 1;
   }
+  // An integer register's width in bits (16, 32, 64); 0 for float32 and coils.
+  int bits() const { return table == Table::coil || type == Type::float32 ? 0 : 16 * words(); }
 };
 
 // Command and mode codes (ours): what the command register takes and the mode register reports.
@@ -51,7 +55,7 @@ struct Quantity {
   bool writable;  // the tool writes it (holding register or coil)
 };
 // The quantities a map may name, in a fixed order (index = position in RegisterMap::regs).
-inline constexpr std::array<Quantity, 20> kQuantities = {{
+inline constexpr std::array<Quantity, 24> kQuantities = {{
     {"speed", "km/h", true, false},
     {"force", "N", true, false},
     {"time", "s", false, false},
@@ -75,6 +79,13 @@ inline constexpr std::array<Quantity, 20> kQuantities = {{
     // The constant force of the base-inertia check (controller::Mode::constant_force), with
     // modes.constant_force.
     {"force_setpoint", "N", false, true},
+    // What the controller reports it is running (docs/modbus.md, "Applied values"): read back after every
+    // strobe instead of the setpoint registers just written, which prove only that the write arrived.
+    // Required unless the cell file says modbus.accept_setpoint_readback = true.
+    {"applied_inertia", "kg", false, false},
+    {"applied_f0", "N", false, false},
+    {"applied_f1", "N/(km/h)", false, false},
+    {"applied_f2", "N/(km/h)^2", false, false},
 }};
 enum Q : std::size_t {
   speed,
@@ -96,15 +107,43 @@ enum Q : std::size_t {
   max_speed,
   max_force,
   time_scale,
-  force_setpoint
+  force_setpoint,
+  applied_inertia,
+  applied_f0,
+  applied_f1,
+  applied_f2
 };
+inline constexpr std::array<Q, 4> kApplied = {Q::applied_inertia, Q::applied_f0, Q::applied_f1,
+                                              Q::applied_f2};
+
+// Modbus exceptions by meaning (docs/modbus.md, "Exceptions"): 06 "server device busy", 0A "gateway path
+// unavailable" and 0B "gateway target device failed to respond" say "not now", not "no": the request is sent
+// again, at most `attempts` more times and only while less than `within_ms` has passed since it first failed,
+// `delay_ms` apart. Every other exception is the controller's refusal and fatal.
+struct RetryPolicy {
+  int attempts = 3;     // modbus.retry_attempts, 0 to 20
+  int within_ms = 500;  // modbus.retry_within_ms, 10 to 10000
+  int delay_ms = 20;    // modbus.retry_delay_ms, 0 to 1000
+  int byte_timeout_ms =
+      100;  // modbus.byte_timeout_ms, 1 to 1000: the longest gap between two bytes of a reply
+};
+// Whether a Modbus exception code is worth sending the request again for (busy, gateway), per RetryPolicy.
+bool retryable_exception(int code);
+// The status bits the map defines (docs/modbus.md): fault, emergency stop, watchdog, at a limit, at setpoint.
+inline constexpr std::uint32_t kDefinedStatusBits = 0x1F;
 
 struct RegisterMap {
   int unit_id = 1;
   double poll_rate_hz = 50.0;
+  RetryPolicy retry;
   std::array<Register, kQuantities.size()> regs{};
   ModeCodes modes;
+  // modbus.accept_setpoint_readback: the cell file accepts a map without the applied-value registers; the
+  // read-back is then of the setpoint registers only (it proves the write, not that the controller runs it),
+  // which every session logs (the controller's capability "readback-setpoint-only") and the report shows.
+  bool accept_setpoint_readback = false;
   const Register& operator[](Q q) const { return regs[q]; }
+  bool reads_applied() const { return regs[Q::applied_inertia].present; }
 };
 
 // Every problem at once, keys "modbus.<quantity>.<field>" and "modbus.modes.<mode>".
@@ -118,9 +157,43 @@ int command_code(const RegisterMap& m, controller::Mode mode);
 
 // Raw words ↔ physical value, per the register's type, word order and scale. encode refuses (returns false
 // and writes nothing) a value that is not finite or does not fit the register's type after scaling: a
-// setpoint is never clamped or wrapped silently.
+// setpoint is never clamped or wrapped silently. `words` holds Register::words() words (at most 4).
 double decode(const Register& r, const std::uint16_t* words);
 bool encode(const Register& r, double value, std::uint16_t* words);
+
+// The controller's clock as a counter (docs/modbus.md, "The time counter"): an integer time register counts
+// in units of its scale and wraps to 0 after 2^bits counts (a uint32 of milliseconds after 49.7 days of
+// controller uptime; a uint16 of milliseconds after 65.536 s). This is that period in seconds; 0 for float32
+// (read as it is, no wrap).
+double counter_period_s(const Register& time);
+
+// Unwraps the time counter into a time that keeps counting past each wrap. Pure: the tool's own monotonic
+// time of each read is passed in. How far the counter moved since the last read is known only modulo its
+// period; the tool's clock says which multiple it was:
+//   - reads less than half a period apart (in controller time at the stated rate, by the tool's clock): a
+//     forward movement of up to half a period is the counter advancing (across a wrap or not); more than
+//     half a period forward is the counter having stepped BACK by the rest, and is reported as such (the
+//     unwrapped time goes down, and the clock guard names a clock that ran backwards);
+//   - reads further apart (the tool paused): the movement plus the whole number of periods nearest to what
+//     the tool's clock says elapsed (a backwards step cannot be told from a wrap then: a counter whose period
+//     is short against the tool's pauses should be wider).
+// Stops, crawls, jumps and races of the unwrapped clock are the clock guard's to judge
+// (controller/clock_guard.hpp): this only undoes the wrap.
+class TimeCounter {
+ public:
+  // period_s: counter_period_s of the register; rate: controller seconds per wall second (the stated rate).
+  void reset(double period_s, double rate);
+  // A raw reading (the register decoded: counts × scale) and the tool's monotonic time of the read, s.
+  double read(double raw_s, double wall_s);
+  std::uint64_t wraps() const { return wraps_; }
+
+ private:
+  double period_s_ = 0.0, rate_ = 1.0;
+  bool have_ = false;
+  double last_raw_s_ = 0.0, last_wall_s_ = 0.0;
+  std::int64_t periods_ = 0;  // whole periods counted since the first reading
+  std::uint64_t wraps_ = 0;
+};
 
 // Reply values in the controller's terms. Each returns "" or what is wrong with the value (the controller
 // sent a mode code we do not define, a status that is not a whole number of 0..2^32-1, an error code out of

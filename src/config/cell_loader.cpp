@@ -1,5 +1,7 @@
 #include "config/cell_loader.hpp"
 
+#include <algorithm>
+
 #include "config/toml_reader.hpp"
 
 namespace loadtrim::config {
@@ -35,7 +37,18 @@ controller::CellConfig read_cell(TomlReader& r, const AdapterSections& adapters)
   c.max_speed_kmh = r.number("limits.max_speed_kmh", 20.0, 300.0, "km/h");
   c.max_force_n = r.number("limits.max_force_n", 100.0, 100000.0, "N");
   c.max_motoring_s = r.number("limits.max_motoring_s", 60.0, 86400.0, "s");
-  c.standstill_kmh = r.number_or("limits.standstill_kmh", 0.5, 0.0, 5.0, "km/h");
+  // Standstill (docs/safety.md §3): a speed at or below limits.standstill_kmh. Its default is 5 × the speed
+  // signal's stated noise (dyno.speed_noise_kmh, one standard deviation at rest; 0.1 km/h when not stated),
+  // so that noise at rest is never taken for motion (a reading 5 σ out is about 1 in 3.5 million for Gaussian
+  // noise: textbook normal tail). Never exactly zero. Lab policy, common practice, no source.
+  c.speed_noise_kmh = r.number_or("dyno.speed_noise_kmh", 0.1, 0.0, 1.0, "km/h");
+  c.standstill_kmh =
+      r.number_or("limits.standstill_kmh", std::max(0.05, 5.0 * c.speed_noise_kmh), 0.05, 5.0, "km/h");
+  if (r.has("limits.standstill_kmh") && c.standstill_kmh < 3.0 * c.speed_noise_kmh)
+    r.error("limits.standstill_kmh", "is " + core::num(c.standstill_kmh) +
+                                         " km/h, below 3 × dyno.speed_noise_kmh (" +
+                                         core::num(3.0 * c.speed_noise_kmh) +
+                                         " km/h): the speed signal's noise at rest would read as motion");
   c.max_time_scale = r.number_or("controller.max_time_scale", 1.0, 1.0, 10000.0, "");
   c.roller_diameter_m = r.number("dyno.roller_diameter_m", 0.2, 3.0, "m");
   c.base_inertia_kg = r.number("dyno.base_inertia_kg", 50.0, 10000.0, "kg");

@@ -31,6 +31,9 @@ struct CellConfig {
   double max_speed_kmh = 0.0;
   double max_force_n = 0.0;
   double max_motoring_s = 0.0;  // one continuous motoring period (warm-up included)
+  // The speed signal's noise at rest (one standard deviation, km/h), as the dyno's documentation states it
+  // (dyno.speed_noise_kmh); the standstill threshold's default is 5 × this.
+  double speed_noise_kmh = 0.1;
   double standstill_kmh =
       0.5;  // at or below this speed the rollers count as stopped (every stop and start check)
   double max_time_scale = 1.0;  // the fastest controller clock accepted (controller seconds per wall second);

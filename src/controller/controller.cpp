@@ -186,10 +186,9 @@ Result Controller::set_inertia(double kg) {
     double back = 0.0;
     if (Result r = do_read_inertia(back, reply_deadline()); !r.ok()) return r;
     if (std::string bad = positive_up_to("inertia", back, kMaxInertiaKg, "kg"); !bad.empty())
-      return Result::fail("read-back " + bad + "; refusing to go on");
-    auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
-    if (!same(back, kg))
-      return Result::fail("read-back " + num(back) + " kg differs from the " + num(kg) +
+      return Result::fail(readback_source() + " " + bad + "; refusing to go on");
+    if (!(std::abs(back - kg) <= setting_tolerance(Setting::inertia, kg)))
+      return Result::fail(readback_source() + " " + num(back) + " kg differs from the " + num(kg) +
                           " kg written; refusing to go on");
     return Result::success();
   });
@@ -203,11 +202,11 @@ Result Controller::set_coefficients(const core::RoadLoad& c) {
     core::RoadLoad back;
     if (Result r = do_read_coefficients(back, reply_deadline()); !r.ok()) return r;
     if (std::string bad = plausible_curve(back, limits_.max_speed_kmh); !bad.empty())
-      return Result::fail("read-back " + bad + "; refusing to go on");
-    auto same = [&](double b, double w) { return std::abs(b - w) <= readback_tolerance(w); };
-    if (!same(back.f0_n, c.f0_n) || !same(back.f1_n_per_kmh, c.f1_n_per_kmh) ||
-        !same(back.f2_n_per_kmh2, c.f2_n_per_kmh2))
-      return Result::fail("read-back (" + num(back.f0_n) + ", " + num(back.f1_n_per_kmh) + ", " +
+      return Result::fail(readback_source() + " " + bad + "; refusing to go on");
+    auto same = [&](Setting q, double b, double w) { return std::abs(b - w) <= setting_tolerance(q, w); };
+    if (!same(Setting::f0, back.f0_n, c.f0_n) || !same(Setting::f1, back.f1_n_per_kmh, c.f1_n_per_kmh) ||
+        !same(Setting::f2, back.f2_n_per_kmh2, c.f2_n_per_kmh2))
+      return Result::fail(readback_source() + " (" + num(back.f0_n) + ", " + num(back.f1_n_per_kmh) + ", " +
                           num(back.f2_n_per_kmh2) + ") differs from what was written (" + num(c.f0_n) + ", " +
                           num(c.f1_n_per_kmh) + ", " + num(c.f2_n_per_kmh2) + "); refusing to go on");
     return Result::success();
@@ -347,6 +346,12 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
       bad = "a value is not a finite number";
     else if (s.speed_kmh < -2.0)
       bad = "negative speed";
+    else if (s.speed_kmh < 0.0 && have_index_ && last_sample_.speed_kmh > 2.0)
+      // Noise at rest may read a little below zero; rollers turning at more than 2 km/h cannot read below
+      // zero one sample later (a glitch: dropped and counted, so one such sample never ends a coast-down; a
+      // run of them is a fault). Common practice, no source.
+      bad = "negative speed " + num(s.speed_kmh) + " km/h one sample after " + num(last_sample_.speed_kmh) +
+            " km/h";
     else if (std::abs(s.force_n) > 1e6)
       bad = "force beyond any dyno";
     else if (have_index_ && s.index < next_index_)

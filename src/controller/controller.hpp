@@ -219,6 +219,14 @@ class Controller {
 
   // How far a read-back may differ from what was written: the register's resolution (e.g. float32 in Modbus).
   virtual double readback_tolerance(double written) const { return 1e-9 * std::max(1.0, std::abs(written)); }
+  // The same for one quantity of the setting (its registers may differ in type and scale).
+  enum class Setting : std::uint8_t { inertia, f0, f1, f2 };
+  virtual double setting_tolerance(Setting /*what*/, double written) const {
+    return readback_tolerance(written);
+  }
+  // What the read-back reads, named in a mismatch's message ("read-back", "the applied values the
+  // controller reports", ...).
+  virtual std::string readback_source() const { return "read-back"; }
 
   LinkStats stats_;
 

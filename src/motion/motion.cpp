@@ -84,6 +84,11 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
       if (!stopping && s.epoch >= clear_epoch && (s.flags & kFaultFlags))
         return Result::fail("the controller reports a fault (flags " + flags_hex(s.flags) + ") during " +
                             step.what);
+      // The controller says it is at one of its limits (speed, force, power, travel): not a state to go on
+      // measuring in. A live state, not latched: whatever the epoch.
+      if (!stopping && (s.flags & controller::kFlagLimit))
+        return Result::fail("the controller reports that it is at a limit (flags " + flags_hex(s.flags) +
+                            ") during " + step.what);
       if (!stopping && rules_.speed_limit_kmh > 0.0 &&
           s.speed_kmh > rules_.speed_limit_kmh + rules_.overspeed_margin_kmh)
         return Result::fail("speed " + num(s.speed_kmh, 1) + " km/h above the limit of " +

@@ -14,6 +14,7 @@
 // clock that is behind):
 //   - a fault, emergency-stop or watchdog flag on a sample read after the last fault clear ends the step
 //   (fatal);
+//   - the at-limit flag (controller::kFlagLimit) ends the step (fatal);
 //   - a speed above the limit plus the margin ends the step (fatal);
 //   - the operator's stop flag ends a stoppable step (Result code kInterrupted).
 // Results: ok; retryable (the link: no sample within the cell's sample gap, a dropped connection); fatal,

@@ -232,7 +232,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
              (r.contains("type") && r["type"].is_string() ? r["type"].get<std::string>()
                                                           : std::string("no type")) +
              ") " + p + "; the report cannot be made from it";
-  json started = json::object(), finished = json::object(), first = json::object();
+  json started = json::object(), finished = json::object(), first = json::object(),
+       controller_rec = json::object();
   std::vector<json> runs;
   std::string t_first, t_last;
   for (const auto& r : recs) {
@@ -245,6 +246,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
       finished = r;
     else if (type == "first_setting")
       first = r;
+    else if (type == "controller")
+      controller_rec = r;
     else if (type == "coastdown")
       runs.push_back(r);
   }
@@ -333,6 +336,11 @@ static std::string write_report_body(const std::string& folder, const std::strin
   meta("Coast-downs", std::to_string(finished.value("coastdowns", static_cast<int>(runs.size()))) +
                           ", cell time " + fmt(finished.value("cell_time_s", 0.0) / 60.0, 1) +
                           " min (controller clock)");
+  // A Modbus map without the applied-value registers, accepted by the cell file (docs/modbus.md).
+  if (controller_rec.value("capabilities", "").find("readback-setpoint-only") != std::string::npos)
+    meta("Read-back",
+         "SETPOINT REGISTERS ONLY (accepted by the cell file): the controller did not report "
+         "the values it applied");
   h += "</table>\n";
   if (verdict.seal) {
     h += "<table class=\"meta\" id=\"sign-off\"><tr><td><b>Sign-off</b></td><td>";

@@ -14,7 +14,8 @@
 int main(int argc, char** argv) {
   using namespace loadtrim;
   CLI::App app{
-      "loadtrim-sim: simulated roller-dyno controller (line protocol or framed ASCII over TCP or a pseudo-terminal, or Modbus)"};
+      "loadtrim-sim: simulated roller-dyno controller (line protocol or framed ASCII over TCP or a "
+      "pseudo-terminal, or Modbus)"};
   std::string truth_file;
   sim::SimSettings s;
   sim::ServerSettings srv;
@@ -47,9 +48,10 @@ int main(int argc, char** argv) {
   app.add_option("--modbus-rtu", modbus_rtu,
                  "with --modbus-map: serve Modbus RTU on this serial device (115200 8N1) instead of TCP");
   std::string framed_table;
-  app.add_option("--framed-table", framed_table,
-                 "serve the framed ASCII dialect instead of the line protocol (TCP, or --pty), with the [framed] "
-                 "command table of this cell file");
+  app.add_option(
+      "--framed-table", framed_table,
+      "serve the framed ASCII dialect instead of the line protocol (TCP, or --pty), with the [framed] "
+      "command table of this cell file");
   app.add_option("--exit-after-s", srv.exit_after_s,
                  "exit after this many wall seconds (a safety net for tests)");
   auto* f = app.add_option_group("faults", "fault injection");
@@ -67,6 +69,14 @@ int main(int argc, char** argv) {
                 "IDENT reports this roller diameter instead of the truth");
   f->add_option("--report-base-inertia-kg", report_inertia,
                 "IDENT reports this base inertia instead of the truth");
+  sim::ModbusOptions mb_opt;
+  app.add_option(
+         "--modbus-clock-offset-s", mb_opt.clock_offset_s,
+         "Modbus: the controller's uptime when the simulation starts (its time counter starts there and "
+         "wraps at the register's width)")
+      ->check(CLI::Range(0.0, 1e15));
+  f->add_flag("--modbus-coefficients-not-applied", mb_opt.coefficients_not_applied,
+              "Modbus: acknowledge every coefficient setting after the first without applying it");
   CLI11_PARSE(app, argc, argv);
   physics::Truth truth;
   try {
@@ -98,7 +108,8 @@ int main(int argc, char** argv) {
       std::cerr << e.what();
       return 2;
     }
-    return sim::run_modbus_server(truth, s, srv, map, modbus_rtu,
+    mb_opt.rtu_device = modbus_rtu;
+    return sim::run_modbus_server(truth, s, srv, map, mb_opt,
                                   [](const std::string& line) { std::cout << line << std::endl; });
   }
   if (!framed_table.empty()) {

@@ -10,6 +10,7 @@
 #include <algorithm>
 #include <atomic>
 #include <chrono>
+#include <cmath>
 #include <csignal>
 #include <set>
 
@@ -33,8 +34,9 @@ int extent(const modbus::RegisterMap& m, Table t) {
 }  // namespace
 
 int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, const ServerSettings& server,
-                      const modbus::RegisterMap& map, const std::string& rtu_device,
+                      const modbus::RegisterMap& map, const ModbusOptions& options,
                       const std::function<void(const std::string&)>& announce) {
+  const std::string& rtu_device = options.rtu_device;
   std::signal(SIGTERM, on_signal);
   std::signal(SIGINT, on_signal);
   SimController sim(truth, settings);
@@ -45,7 +47,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
   auto put = [&](Q q, double v) {
     const auto& r = map[q];
     if (!r.present) return;
-    std::uint16_t w[2] = {0, 0};
+    std::uint16_t w[4] = {0, 0, 0, 0};
     if (!modbus::encode(r, v, w)) return;  // does not fit the register: it keeps its last value
     if (r.table == Table::coil)
       mb->tab_bits[r.address] = w[0] ? 1 : 0;
@@ -56,7 +58,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
   };
   auto get = [&](Q q) {
     const auto& r = map[q];
-    std::uint16_t w[2] = {0, 0};
+    std::uint16_t w[4] = {0, 0, 0, 0};
     if (r.table == Table::coil)
       w[0] = mb->tab_bits[r.address];
     else {
@@ -72,11 +74,26 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
   put(Q::max_force, info.max_force_n);
   put(Q::time_scale, info.time_scale);
   put(Q::inertia, sim.model().inertia_set_kg());
+  // What the controller runs, in the applied-value registers (a map may name none: setpoint-only read-back).
+  auto publish_applied = [&] {
+    put(Q::applied_inertia, sim.model().inertia_set_kg());
+    put(Q::applied_f0, sim.model().coefficients().f0_n);
+    put(Q::applied_f1, sim.model().coefficients().f1_n_per_kmh);
+    put(Q::applied_f2, sim.model().coefficients().f2_n_per_kmh2);
+  };
+  publish_applied();
+  // The time register: a counter that wraps at its period (0 = float32, no wrap).
+  const double period_s = modbus::counter_period_s(map[Q::time]);
+  auto counter = [&](double t) {
+    const double c = t + options.clock_offset_s;
+    return period_s > 0.0 ? std::fmod(c, period_s) : c;
+  };
+  bool coefficients_set_once = false;
   auto publish = [&] {
     const controller::Sample s = sim.reading();
     put(Q::speed, s.speed_kmh);
     put(Q::force, s.force_n);
-    put(Q::time, s.time_s);
+    put(Q::time, counter(s.time_s));
     // A mode the map has no code for reads as idle (it cannot have been commanded over this map).
     put(Q::mode, std::max(modbus::kCommandIdle, modbus::command_code(map, s.mode)));
     put(Q::status, s.flags);
@@ -157,8 +174,10 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
       auto was = [&](Q q) { return map[q].table != Table::coil && written.count(map[q].address) > 0; };
       std::optional<SimError> e;
       if (was(Q::inertia)) e = sim.set_inertia(get(Q::inertia));
-      if (!e && (was(Q::f0) || was(Q::f1) || was(Q::f2)))
-        e = sim.set_coefficients({get(Q::f0), get(Q::f1), get(Q::f2)});
+      const bool coefficients = was(Q::f0) || was(Q::f1) || was(Q::f2);
+      const bool lie = coefficients && options.coefficients_not_applied && coefficients_set_once;
+      if (!e && coefficients && !lie) e = sim.set_coefficients({get(Q::f0), get(Q::f1), get(Q::f2)});
+      if (!e && coefficients) coefficients_set_once = true;
       if (!e && (was(Q::command) || was(Q::hold_speed) || was(Q::force_setpoint))) {
         const int c = static_cast<int>(get(Q::command));
         const bool force = map.modes.constant_force >= 0 && c == map.modes.constant_force;
@@ -180,9 +199,12 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
       }
       put(Q::error, e ? static_cast<double>(static_cast<int>(e->code)) : 0.0);
       put(Q::inertia, sim.model().inertia_set_kg());
-      put(Q::f0, sim.model().coefficients().f0_n);
-      put(Q::f1, sim.model().coefficients().f1_n_per_kmh);
-      put(Q::f2, sim.model().coefficients().f2_n_per_kmh2);
+      if (!lie) {  // the lie leaves the setpoint registers as written: they read back what the tool wrote
+        put(Q::f0, sim.model().coefficients().f0_n);
+        put(Q::f1, sim.model().coefficients().f1_n_per_kmh);
+        put(Q::f2, sim.model().coefficients().f2_n_per_kmh2);
+      }
+      publish_applied();
       written.clear();
       put(Q::strobe, 0.0);
     }

@@ -1,8 +1,8 @@
 // The simulated controller as a Modbus server (libmodbus): TCP on 127.0.0.1 (port 0 = a free one, printed) or
 // RTU on a serial device (e.g. one end of a socat pseudo-terminal pair), serving the register map of a cell
 // file from the same typed simulator core as the line protocol. Setpoints take effect when the strobe is
-// raised; the strobe is then cleared and the error register holds 0 or the refusal's code. The watchdog
-// watches the heartbeat counter.
+// raised; the strobe is then cleared and the error register holds 0 or the refusal's code; the applied-value
+// registers report what the simulated controller runs. The watchdog watches the heartbeat counter.
 #pragma once
 
 #include <functional>
@@ -13,8 +13,19 @@
 
 namespace loadtrim::sim {
 
+struct ModbusOptions {
+  std::string rtu_device;  // "" = Modbus TCP
+  // The controller had been running this long when the simulation starts: its time register counts from
+  // here, and an integer one wraps at its period (modbus::counter_period_s) as a real counter does.
+  double clock_offset_s = 0.0;
+  // A lie, for tests: every coefficient setting after the first is acknowledged (strobe cleared, error 0, the
+  // setpoint registers keep what was written) but never applied; the applied-value registers keep reporting
+  // the first.
+  bool coefficients_not_applied = false;
+};
+
 int run_modbus_server(const physics::Truth& truth, const SimSettings& sim, const ServerSettings& server,
-                      const modbus::RegisterMap& map, const std::string& rtu_device,
+                      const modbus::RegisterMap& map, const ModbusOptions& options,
                       const std::function<void(const std::string&)>& announce);
 
 }  // namespace loadtrim::sim

@@ -46,7 +46,7 @@ const char* wire(controller::Mode m) {
 }  // namespace
 
 SimController::SimController(const physics::Truth& truth, SimSettings settings)
-    : model_(truth), settings_(std::move(settings)) {}
+    : model_(truth), settings_(std::move(settings)), status_rng_(truth.noise_seed ^ 0x5A17u) {}
 
 std::string SimController::wire_mode() const {
   return wire(to_controller(model_.mode()));
@@ -156,7 +156,9 @@ controller::Sample SimController::reading() {
 }
 
 controller::StatusReport SimController::status() const {
-  return {to_controller(model_.mode()), model_.speed_kmh(), model_.time_s(), flags(), fault_};
+  // The encoder's reading as the samples carry it: noise on top, never below zero.
+  const double noisy = model_.speed_kmh() + model_.truth().dyno.speed_noise_kmh * status_normal_(status_rng_);
+  return {to_controller(model_.mode()), std::max(0.0, noisy), model_.time_s(), flags(), fault_};
 }
 
 void SimController::latch_fault(const std::string& kind, const std::string& detail,

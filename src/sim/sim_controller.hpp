@@ -8,6 +8,7 @@
 
 #include <cstdint>
 #include <optional>
+#include <random>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -65,6 +66,7 @@ class SimController {
   std::optional<SimError> command(controller::Mode mode, double hold_kmh);
   std::optional<SimError> stream(double rate_hz);
   std::optional<SimError> clear();
+  // The speed in it is the encoder's reading, with its noise (at rest too: never an exact zero by design).
   controller::StatusReport status() const;
   void touch(double wall_s) { last_request_wall_s_ = wall_s; }  // a sign of life from the tool
   // A reading now (noisy), with mode and flags: what register-based front ends publish.
@@ -103,6 +105,9 @@ class SimController {
   bool dropped_once_ = false;
   bool drop_pending_ = false;
   bool estop_done_ = false;
+  // The status reply's encoder noise (its own generator: the samples' noise sequence stays as it was).
+  mutable std::mt19937_64 status_rng_;
+  mutable std::normal_distribution<double> status_normal_{0.0, 1.0};
 };
 
 }  // namespace loadtrim::sim

@@ -16,6 +16,7 @@
 #include "process/child_process.hpp"
 #include "record/event_log.hpp"
 #include "registry.hpp"
+#include "support/modbus_lying_proxy.hpp"
 #include "support/sim_process.hpp"
 
 using namespace loadtrim;
@@ -137,6 +138,71 @@ TEST(Modbus, TcpHandshakeReadBackCoastdownAt50HzPolling) {
   ASSERT_TRUE(c.controlled_stop().ok());
 }
 
+// A controller that acknowledges a setting (strobe cleared, error 0, setpoint registers holding what was
+// written) but does not apply it (loadtrim-sim --modbus-coefficients-not-applied): read back from the
+// applied-value registers, the second setting is refused; read back from the setpoint registers alone (a map
+// accepted with modbus.accept_setpoint_readback), the same lie passes unseen, which is why a map must name
+// the applied values or say that it cannot.
+TEST(Modbus, ASettingAcknowledgedButNotAppliedIsRefusedByTheAppliedValues) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "5", "--modbus-coefficients-not-applied"});
+  {
+    modbus::ModbusController c(cell_for(sim.port()));
+    ASSERT_TRUE(c.connect().ok());
+    controller::ControllerInfo info;
+    ASSERT_TRUE(c.identify(info).ok());
+    EXPECT_FALSE(info.has("readback-setpoint-only"));
+    ASSERT_TRUE(c.set_coefficients({42.38, 0.3135, 0.03013}).ok());  // the first is applied
+    const auto r = c.set_coefficients({50.0, 0.25, 0.031});
+    EXPECT_EQ(r.status, controller::Result::Status::fatal);
+    EXPECT_NE(
+        r.message.find("read-back of the applied values the controller reports (input registers from 20)"),
+        std::string::npos)
+        << r.message;
+    EXPECT_NE(r.message.find("differs from what was written"), std::string::npos) << r.message;
+    core::RoadLoad applied;  // still the first setting (float32 registers: 1.2e-7 relative)
+    ASSERT_TRUE(c.read_coefficients(applied).ok());
+    EXPECT_NEAR(applied.f0_n, 42.38, 42.38 * 1.2e-7);
+    c.disconnect();
+  }
+  auto cell = cell_for(sim.port());
+  auto& m = settings(cell).map;
+  for (modbus::Q q : modbus::kApplied) m.regs[q].present = false;
+  m.accept_setpoint_readback = true;
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  EXPECT_TRUE(info.has("readback-setpoint-only"));  // logged with the controller in every session
+  EXPECT_TRUE(c.set_coefficients({60.0, 0.2, 0.032}).ok()) << "the setpoint registers cannot see the lie";
+}
+
+// The controller has been up 2^32 ms - 2 s when the simulation starts (loadtrim-sim --modbus-clock-offset-s):
+// the example map's uint32 ms time register wraps to 0 within the first 2 s of controller time (0.1 s of wall
+// time at 20x). The adapter's samples keep counting across it, and the clock guard sees an honest clock.
+TEST(Modbus, TheTimeCounterWrapsAtItsLimitAndTheSamplesCountOn) {
+  const double period = 4294967.296;  // 2^32 ms (definition of a 32-bit counter)
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20", "--modbus-clock-offset-s", "4294965.296"});
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(50.0).ok());
+  std::vector<controller::Sample> all;
+  while (all.size() < 60) {  // about 1.2 s of wall time at 50 Hz: 24 s of controller time
+    std::vector<controller::Sample> got;
+    const auto r = c.receive_samples(got);
+    ASSERT_TRUE(r.ok()) << r.message;
+    all.insert(all.end(), got.begin(), got.end());
+  }
+  ASSERT_LT(all.front().time_s, period);
+  EXPECT_GT(all.back().time_s, period);
+  for (std::size_t i = 1; i < all.size(); ++i) ASSERT_GE(all[i].time_s, all[i - 1].time_s) << i;
+  controller::StatusReport st;
+  const auto r = c.status(st);
+  ASSERT_TRUE(r.ok()) << r.message;
+  EXPECT_GT(st.time_s, period);
+}
+
 TEST(Modbus, WatchdogWatchesTheHeartbeatCounter) {
   SimProcess sim({"--modbus-map", kCell, "--time-scale", "20", "--watchdog-ms", "400"});
   modbus::ModbusController c(cell_for(sim.port()));
@@ -166,7 +232,7 @@ TEST(Modbus, ExceptionReplySurfacesAsAClearError) {
   const auto r = c.set_coefficients({40.0, 0.3, 0.03});
   EXPECT_EQ(r.status, controller::Result::Status::fatal);
   EXPECT_NE(r.message.find("write f0 (holding 900)"), std::string::npos) << r.message;
-  EXPECT_NE(r.message.find("Modbus exception from the controller: Illegal data address"), std::string::npos)
+  EXPECT_NE(r.message.find("Modbus exception 2 from the controller: Illegal data address"), std::string::npos)
       << r.message;
 }
 
@@ -284,8 +350,55 @@ TEST(Modbus, RtuOverAPseudoTerminalPair) {
   auto s = poll_until(
       c, [](const controller::Sample&) { return false; }, 10);
   EXPECT_EQ(s.size(), 10u);
+  // The device goes away (socat ends and removes its links, as an unplugged adapter's node goes): the next
+  // request fails, retryable, naming the device's path.
+  socat.stop();
+  ASSERT_FALSE(fs::exists(b));
+  controller::StatusReport st;
+  const auto gone = c.status(st);
+  EXPECT_EQ(gone.status, controller::Result::Status::retryable) << gone.message;
+  EXPECT_NE(gone.message.find("the RTU device " + b + " is gone"), std::string::npos) << gone.message;
   c.disconnect();
   fs::remove_all(dir);
+}
+
+// RTU frames carry no transaction id: a reply that arrives after the tool's reply timeout would pass for the
+// reply to whatever the tool asks next if it has the same function and length. The proxy holds the first
+// reply to a read of the mode register back 1.5 s (the reply timeout is 1 s) and then delivers it; the tool,
+// 0.7 s after giving up on it, asks for the status again. The late frame (mode 1, speed hold) would read as a
+// speed of 0.01 km/h and push every later reply one request on (the speed's reply read as a mode code, …);
+// the adapter gives the line one more reply timeout after a timeout and flushes it, so the next status is
+// right.
+TEST(Modbus, RtuALateReplyIsNeverTakenForTheNextRequestsReply) {
+  auto cell = load_cell();
+  const auto map = settings(cell).map;
+  loadtrim::testing::ModbusLyingProxy proxy(map, loadtrim::testing::ModbusLie::late_reply,
+                                            loadtrim::testing::ModbusTrigger::start());
+  SimProcess sim({"--modbus-map", kCell, "--modbus-rtu", proxy.controller_device(), "--time-scale", "5",
+                  "--watchdog-ms", "60000"},
+                 false);
+  adapters::SerialLine line;
+  line.device = proxy.tool_device();
+  line.baud = 115200;
+  settings(cell).link = line;
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.set_inertia(1491.0).ok());
+  ASSERT_TRUE(c.hold_speed(40.0).ok());
+  controller::StatusReport st;
+  const auto late = c.status(st);
+  EXPECT_EQ(late.status, controller::Result::Status::retryable) << late.message;
+  EXPECT_NE(late.message.find("read mode (input 4)"), std::string::npos) << late.message;
+  EXPECT_TRUE(proxy.lie_began());
+  std::this_thread::sleep_for(std::chrono::milliseconds(700));
+  const auto next = c.status(st);
+  ASSERT_TRUE(next.ok()) << next.message;
+  EXPECT_EQ(st.mode, controller::Mode::speed_hold);
+  EXPECT_EQ(st.flags & controller::kFlagFault, 0u);
+  EXPECT_GT(st.speed_kmh, 0.5);  // the rollers are on their way to 40 km/h, not at the stale frame's 0.01
+  c.controlled_stop();
 }
 
 TEST(Modbus, BadRegisterMapsAreRefused) {
@@ -364,6 +477,8 @@ TEST(Modbus, FullSessionOverModbusTcp) {
   std::ifstream in(folder + "/summary.json");
   const auto j = nlohmann::json::parse(in);
   EXPECT_TRUE(j.value("accepted", false)) << j.dump(2);
+  // Standstill by the cell's threshold with the simulator's encoder noise at rest (docs/safety.md §3).
+  EXPECT_TRUE(j.value("rollers_stopped", false)) << j.dump(2);
   for (const auto& d : j["deviations"]) EXPECT_LE(std::abs(d.value("deviation_n", 99.0)), 10.0);
   if (!HasFailure()) fs::remove_all(dir);
 }

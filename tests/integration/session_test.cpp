@@ -122,6 +122,9 @@ TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
   session::Session s(in, opt, *c, {&writer});
   const session::Summary sum = s.run();
   EXPECT_EQ(sum.outcome, session::Outcome::accepted) << row.id << ": " << sum.stop_reason;
+  // The honest simulator's encoder reads noise at rest (0.05 km/h σ, in samples and status alike): the safe
+  // stop must still confirm standstill by the cell's threshold (docs/safety.md §3), never by an exact zero.
+  EXPECT_TRUE(sum.rollers_stopped) << row.id << ": " << sum.stop_note;
   // The final measured forces within the tolerance (GTR 15 §8.1.3.4.2: ±10 N) at every reference speed.
   ASSERT_EQ(sum.deviations.size(), in.profile.reference_speeds_kmh.size());
   for (const auto& d : sum.deviations)
@@ -269,7 +272,9 @@ TEST(SessionCli, InterruptStopsTheRollersAndSaysSo) {
   ASSERT_TRUE(c.connect().ok());
   controller::StatusReport st;
   ASSERT_TRUE(c.status(st).ok());
-  EXPECT_EQ(st.speed_kmh, 0.0);
+  // At rest the encoder reads its noise (the simulator's 0.05 km/h σ): at or below the cell's standstill
+  // threshold (docs/safety.md §3, 5 × the stated noise, 0.5 km/h here), not an exact zero.
+  EXPECT_LE(st.speed_kmh, 0.5);
   EXPECT_EQ(st.mode, controller::Mode::idle);
   EXPECT_TRUE(record::verify_session_folder(folder).ok);
   fs::remove_all(dir);

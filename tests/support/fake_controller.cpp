@@ -49,6 +49,7 @@ Result FakeController::do_connect(controller::Deadline) {
 }
 Result FakeController::do_identify(controller::ControllerInfo& out, controller::Deadline) {
   out = sim_->info();
+  out.capabilities += script.extra_capabilities;
   if (script.identify_lie) script.identify_lie(out);
   return Result::success();
 }

@@ -34,6 +34,7 @@ struct FakeScript {
   std::string throw_in;             // "command", "receive", "status": that hook throws
   std::vector<std::string> events;  // handed up (once) with the next receive
   bool silent = false;              // receive returns no samples at all
+  std::string extra_capabilities;  // appended to the identity's capabilities (e.g. ",readback-setpoint-only")
 };
 
 class FakeController : public controller::Controller {

@@ -62,6 +62,8 @@ const char* to_string(Lie lie) {
       return "fault_event";
     case Lie::fault_flag:
       return "fault_flag";
+    case Lie::at_limit:
+      return "at_limit";
     case Lie::half_lines:
       return "half_lines";
     case Lie::silence:
@@ -464,11 +466,12 @@ struct LyingProxy::Impl {
         }
         break;
       case Lie::fault_flag:
+      case Lie::at_limit:
         if (armed && smp) {
           std::uint32_t flags = 0;
           std::from_chars(m.fields[5].data(), m.fields[5].data() + m.fields[5].size(), flags, 16);
           char b[16];
-          std::snprintf(b, sizeof b, "%02X", flags | 0x02u);
+          std::snprintf(b, sizeof b, "%02X", flags | (script.lie == Lie::at_limit ? 0x08u : 0x02u));
           set_field(5, b);
         }
         break;

@@ -41,17 +41,18 @@ enum class Lie : std::uint8_t {
   status_clock_ahead,   // STATUS replies' time_s = true + 5000 s; samples keep the true clock
   setting_not_applied,  // COEF SET after the first: answered OK by the proxy, not forwarded; COEF GET then
                         // answered by the proxy with what the tool last wrote
-  readback_differs,  // replies to COEF GET report f0 + 1 N
-  never_stops,       // MODE STOP reaches the controller as MODE HOLD 30; the reply, STATUS and SMP say STOP
-                     // instead of HOLD until the tool commands another mode
-  nan_speed,         // SMP speed field "nan"
-  inf_force,         // SMP force field "inf"
-  negative_speed,    // SMP speed -50 km/h
-  index_backwards,   // SMP index, in turn: true, a repeat of the previous one, 50 back (not below 0)
-  over_speed,        // SMP speed x 1.5 while the controller is in HOLD above 100 km/h
-  fault_event,       // once: EVT FAULT kind=ESTOP detail=injected (no flag in the samples, nothing latched)
-  fault_flag,        // SMP flags |= 0x02 (emergency stop)
-  half_lines,        // every SMP cut in half (no CRC left): rejected by any reader
+  readback_differs,     // replies to COEF GET report f0 + 1 N
+  never_stops,      // MODE STOP reaches the controller as MODE HOLD 30; the reply, STATUS and SMP say STOP
+                    // instead of HOLD until the tool commands another mode
+  nan_speed,        // SMP speed field "nan"
+  inf_force,        // SMP force field "inf"
+  negative_speed,   // SMP speed -50 km/h
+  index_backwards,  // SMP index, in turn: true, a repeat of the previous one, 50 back (not below 0)
+  over_speed,       // SMP speed x 1.5 while the controller is in HOLD above 100 km/h
+  fault_event,      // once: EVT FAULT kind=ESTOP detail=injected (no flag in the samples, nothing latched)
+  fault_flag,       // SMP flags |= 0x02 (emergency stop)
+  at_limit,         // SMP flags |= 0x08 (the controller at one of its limits)
+  half_lines,       // every SMP cut in half (no CRC left): rejected by any reader
   silence,          // nothing more reaches the tool; the TCP connection stays open, requests still go through
   wrong_reply_seq,  // OK replies name request seq + 1 instead of the request's own
   wrong_mode,       // SMP mode always ROADLOAD

@@ -168,3 +168,31 @@ TEST(AdapterRegistry, LoaderWithoutAdaptersRefusesRatherThanGuesses) {
       refusal([&] { config::load_cell(kSrc + "/config/cells/sim-tcp.toml", config::AdapterSections{}); });
   EXPECT_NE(msg.find("controller.adapter: cannot be checked"), std::string::npos) << msg;
 }
+
+// Standstill (docs/safety.md §3): limits.standstill_kmh, default 5 × dyno.speed_noise_kmh (5 σ of the stated
+// noise at rest: a Gaussian reading beyond 5 σ is about 1 in 3.5 million, textbook normal tail; the factor is
+// lab policy, common practice, no source), never zero, never below 3 × the stated noise.
+TEST(AdapterRegistry, StandstillThresholdComesFromTheCellOrTheStatedSpeedNoise) {
+  const auto sections = adapters::production().sections();
+  // Neither key: the stated noise defaults to 0.1 km/h, the threshold to 5 × that.
+  auto c = config::parse_cell(tcp_cell("port = 7301", "port = 7301"), "plain.toml", sections);
+  EXPECT_DOUBLE_EQ(c.speed_noise_kmh, 0.1);
+  EXPECT_DOUBLE_EQ(c.standstill_kmh, 0.5);
+  // A stated noise of 0.02 km/h: 0.1 km/h.
+  c = config::parse_cell(tcp_cell("[dyno]\n", "[dyno]\nspeed_noise_kmh = 0.02\n"), "noise.toml", sections);
+  EXPECT_DOUBLE_EQ(c.standstill_kmh, 5.0 * 0.02);
+  // Given explicitly: taken as is.
+  c = config::parse_cell(tcp_cell("[limits]\n", "[limits]\nstandstill_kmh = 0.8\n"), "given.toml", sections);
+  EXPECT_DOUBLE_EQ(c.standstill_kmh, 0.8);
+  // Exactly zero is refused, with the range.
+  std::string msg = refusal([&] {
+    config::parse_cell(tcp_cell("[limits]\n", "[limits]\nstandstill_kmh = 0.0\n"), "zero.toml", sections);
+  });
+  EXPECT_NE(msg.find("limits.standstill_kmh"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("0.05"), std::string::npos) << msg;
+  // Below 3 × the stated noise: the noise at rest would read as motion.
+  std::string noisy = tcp_cell("[limits]\n", "[limits]\nstandstill_kmh = 0.2\n");
+  noisy.replace(noisy.find("[dyno]\n"), 7, "[dyno]\nspeed_noise_kmh = 0.1\n");
+  msg = refusal([&] { config::parse_cell(noisy, "noisy.toml", sections); });
+  EXPECT_NE(msg.find("below 3 × dyno.speed_noise_kmh"), std::string::npos) << msg;
+}

@@ -372,3 +372,98 @@ TEST(Motion, AStopThatIsNeverReachedIsReportedNotAssumed) {
   EXPECT_TRUE(m.stop_and_wait(120.0, stopped).ok());
   EXPECT_TRUE(stopped);
 }
+
+// The issue this guards against (docs/safety.md §3): a wait that skipped samples stamped before its command's
+// time, before looking at their flags, let an emergency stop latched behind a lagging clock go unseen. Here
+// the controller's sample clock stops (so every later sample is stamped before the command below) and the
+// samples then carry the emergency-stop flag: the step must end on the flag, and the stop must follow.
+TEST(Motion, AnEmergencyStopOnASampleStampedBeforeTheCommandTimeIsSeenAndStops) {
+  FakeController c(loadtrim::testing::demo_truth());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  motion::Motion m(c, {});
+  ASSERT_TRUE(m.hold(30.0, 1.0, "run-up", 120.0).ok());
+  double frozen_at = -1.0;
+  bool estop = false;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (frozen_at < 0.0) frozen_at = s.time_s;
+    s.time_s = frozen_at;
+    if (estop) s.flags |= controller::kFlagEstop;
+  };
+  std::vector<controller::Sample> got;
+  ASSERT_TRUE(c.receive_samples(got).ok());
+  ASSERT_GE(frozen_at, 0.0);
+  ASSERT_TRUE(c.hold_speed(40.0).ok());
+  controller::StatusReport st;
+  ASSERT_TRUE(c.status(st).ok());
+  const double command_time_s = st.time_s;
+  // The fake advances its own clock by chunk_s per receive: the status clock has moved on, the samples' has
+  // not.
+  ASSERT_GT(command_time_s, frozen_at);
+  estop = true;
+  motion::Step step;
+  step.what = "the hold";
+  step.modes = {Mode::speed_hold};
+  step.since_epoch = c.epoch();
+  // A condition that, by time, would only ever look at samples from the command's time on.
+  const auto res =
+      m.collect(step, [&](const controller::Sample& s) { return s.time_s >= command_time_s + 5.0; });
+  EXPECT_EQ(res.status, controller::Result::Status::fatal);
+  EXPECT_NE(res.message.find("reports a fault (flags 0x02"), std::string::npos) << res.message;
+  EXPECT_NE(res.message.find("during the hold"), std::string::npos) << res.message;
+  bool stopped = false;
+  EXPECT_TRUE(m.stop_and_wait(120.0, stopped).ok());
+  EXPECT_TRUE(stopped);
+  EXPECT_TRUE(c.sent(Mode::controlled_stop));
+}
+
+// The at-limit status bit (docs/safety.md §3; docs/modbus.md: bit 8) ends a step, whatever its epoch: a
+// controller at one of its limits is not in a state to measure in.
+TEST(Motion, TheAtLimitFlagEndsAStep) {
+  FakeController c(loadtrim::testing::demo_truth());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  motion::Motion m(c, {});
+  ASSERT_TRUE(m.hold(30.0, 1.0, "run-up", 120.0).ok());
+  c.script.sample_lie = [](controller::Sample& s) { s.flags |= controller::kFlagLimit; };
+  const auto res = m.hold(40.0, 5.0, "the hold", 120.0);
+  EXPECT_EQ(res.status, controller::Result::Status::fatal);
+  EXPECT_NE(res.message.find("at a limit (flags 0x08) during the hold"), std::string::npos) << res.message;
+  bool stopped = false;
+  EXPECT_TRUE(m.stop_and_wait(120.0, stopped).ok()) << "while stopping, the bit is what is being waited out";
+  EXPECT_TRUE(stopped);
+}
+
+// One sample reading below zero while the rollers turn at 50 km/h is a glitch (the rollers cannot get there
+// in 10 ms): dropped and counted, the step goes on. A run of them (more than 20 in a row, docs/safety.md §2)
+// ends the stream as malformed samples.
+TEST_F(Layer, ANegativeSpeedGlitchIsDroppedAndARunOfThemIsAFault) {
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  motion::Motion m(c, {});
+  ASSERT_TRUE(m.hold(50.0, 1.0, "run-up", 120.0).ok());
+  int glitches = 1;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (glitches > 0) {
+      --glitches;
+      s.speed_kmh = -0.4;
+    }
+  };
+  std::vector<controller::Sample> got;
+  ASSERT_TRUE(c.receive_samples(got).ok());
+  for (const auto& s : got) EXPECT_GE(s.speed_kmh, 0.0);
+  EXPECT_EQ(c.stats().samples_malformed, 1u);
+  EXPECT_NE(c.stats().last_malformed.find("negative speed -0.4 km/h one sample after"), std::string::npos)
+      << c.stats().last_malformed;
+  glitches = 1000;
+  controller::Result r;
+  for (int i = 0; i < 10 && r.ok(); ++i) {
+    got.clear();
+    r = c.receive_samples(got);
+  }
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("malformed samples"), std::string::npos) << r.message;
+}

@@ -10,6 +10,7 @@
 
 #include "config/cell_loader.hpp"
 #include "config/input_error.hpp"
+#include "controller/clock_guard.hpp"
 #include "modbus/modbus_controller.hpp"
 #include "modbus/register_map.hpp"
 #include "registry.hpp"
@@ -169,4 +170,153 @@ TEST(ModbusMap, BadChecksEntriesAreRefusedWithFileKeyAndRange) {
   for (const auto& p : ps)
     named |= p.key == "modbus.modes.constant_force" && p.message.find("does not fit") != std::string::npos;
   EXPECT_TRUE(named);
+}
+
+// ---- The time counter (docs/modbus.md, "The time counter") ----
+// Check values from the definition of an n-bit unsigned counter (it counts modulo 2^n): 2^16 ms = 65.536 s;
+// 2^32 ms = 4,294,967.296 s (49.7 days); 2^64 × 1 µs.
+TEST(ModbusTimeCounter, PeriodIsTwoToTheWidthTimesTheScale) {
+  Register t;
+  t.present = true;
+  t.table = Table::input;
+  t.scale = 0.001;
+  t.type = Type::uint16;
+  EXPECT_DOUBLE_EQ(counter_period_s(t), 65.536);
+  t.type = Type::uint32;
+  EXPECT_DOUBLE_EQ(counter_period_s(t), 4294967.296);
+  t.type = Type::int32;  // a signed counter wraps after the same 2^32 counts
+  EXPECT_DOUBLE_EQ(counter_period_s(t), 4294967.296);
+  t.type = Type::uint64;
+  t.scale = 1e-6;
+  EXPECT_DOUBLE_EQ(counter_period_s(t), std::ldexp(1e-6, 64));
+  t.type = Type::float32;
+  EXPECT_EQ(counter_period_s(t), 0.0);  // not a counter
+}
+
+// uint64 words (four, highest first in big word order): 2^40 + 5 = 0x0000_0100_0000_0005 (hand).
+TEST(ModbusTimeCounter, Uint64WordsInBothOrders) {
+  Register r;
+  r.present = true;
+  r.table = Table::input;
+  r.type = Type::uint64;
+  ASSERT_EQ(r.words(), 4);
+  std::uint16_t w[4] = {0, 0, 0, 0};
+  ASSERT_TRUE(encode(r, std::ldexp(1.0, 40) + 5.0, w));
+  EXPECT_EQ(w[0], 0x0000);
+  EXPECT_EQ(w[1], 0x0100);
+  EXPECT_EQ(w[2], 0x0000);
+  EXPECT_EQ(w[3], 0x0005);
+  EXPECT_DOUBLE_EQ(decode(r, w), std::ldexp(1.0, 40) + 5.0);
+  r.order = WordOrder::little;
+  const std::uint16_t le[4] = {0x0005, 0x0000, 0x0100, 0x0000};
+  EXPECT_DOUBLE_EQ(decode(r, le), std::ldexp(1.0, 40) + 5.0);
+  EXPECT_FALSE(encode(r, -1.0, w));
+  EXPECT_FALSE(encode(r, std::ldexp(1.0, 64), w));  // one count beyond 2^64 - 1
+}
+
+// A uint32 ms counter read every 20 ms across its wrap: 4,294,967.280 s, ... 4,294,967.296 s reads 0 (2^32 ms
+// mod 2^32), and the unwrapped time keeps counting; the clock guard (controller/clock_guard.hpp) sees an
+// honest clock. Then a step back by 1 s is a step back (the guard names it), not a wrap forward.
+TEST(ModbusTimeCounter, AWrapAtTheCountersLimitIsUnwrappedAndAStepBackIsNot) {
+  const double p = 4294967.296;
+  TimeCounter tc;
+  tc.reset(p, 1.0);
+  controller::ClockGuard guard;
+  double true_s = p - 0.1, wall = 0.0, last = 0.0;
+  for (int i = 0; i < 20; ++i, true_s += 0.02, wall += 0.02) {
+    const double raw = std::fmod(true_s, p);  // what the register reads
+    last = tc.read(raw, wall);
+    EXPECT_NEAR(last, true_s, 1e-6) << i;
+    EXPECT_FALSE(guard.on_sample(last, wall, 0)) << i;
+  }
+  EXPECT_EQ(tc.wraps(), 1u);
+  EXPECT_GT(last, p);
+  // The counter steps back by 1 s (not a wrap: 1 s back, a period minus 1 s forward would be 49.7 days).
+  const double back = tc.read(std::fmod(true_s - 1.0, p), wall);
+  EXPECT_NEAR(back, true_s - 1.0, 1e-6);
+  const auto v = guard.on_sample(back, wall, 0);
+  ASSERT_TRUE(v);
+  EXPECT_NE(v->find("ran backwards"), std::string::npos) << *v;
+}
+
+// A 16-bit ms counter (period 65.536 s): a signed one passes from +32.767 s to -32.768 s, one count on; a
+// tool that paused 200 s (rate 1) finds the counter 3 periods and 4.392 s on (201 - 3 × 65.536 = 4.392,
+// hand); a frozen counter read promptly stays frozen (for the guard to name it).
+TEST(ModbusTimeCounter, SignedCountersLongPausesAndFrozenCounters) {
+  TimeCounter tc;
+  tc.reset(65.536, 1.0);
+  EXPECT_NEAR(tc.read(32.767, 0.0), 32.767, 1e-9);
+  EXPECT_NEAR(tc.read(-32.768, 0.001), 32.768, 1e-9);
+  tc.reset(65.536, 1.0);
+  EXPECT_NEAR(tc.read(1.0, 0.0), 1.0, 1e-9);
+  EXPECT_NEAR(tc.read(4.392, 200.0), 201.0, 1e-9);
+  EXPECT_EQ(tc.wraps(), 3u);
+  for (int i = 1; i <= 10; ++i) EXPECT_NEAR(tc.read(4.392, 200.0 + 0.02 * i), 201.0, 1e-9);
+  // At a stated rate of 20× the same wall pause is 20 times the controller time: 4000 s.
+  tc.reset(65.536, 20.0);
+  tc.read(1.0, 0.0);
+  const double expect = 1.0 + 4000.0;
+  EXPECT_NEAR(tc.read(std::fmod(expect, 65.536), 200.0), expect, 1e-6);
+}
+
+TEST(ModbusTimeCounter, ACounterThatWrapsTooOftenOrCountsBackIsRefused) {
+  // uint16 at 0.1 ms wraps every 6.5536 s: too short to tell a wrap from a step back.
+  std::string text = variant("type = \"uint32\"         # uint16", "type = \"uint16\"         # uint16");
+  EXPECT_EQ(refusal(text), "") << "65.536 s is enough";
+  const std::string ms = "scale = 0.001           # ms";
+  text.replace(text.find(ms), ms.size(), "scale = 0.0001");
+  std::string msg = refusal(text);
+  EXPECT_NE(msg.find("modbus.time.type"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("wraps every 6.5536 s"), std::string::npos) << msg;
+  msg = refusal(variant("scale = 0.001           # ms", "scale = -0.001"));
+  EXPECT_NE(msg.find("modbus.time.scale"), std::string::npos) << msg;
+}
+
+// ---- Applied values (docs/modbus.md, "Applied values") ----
+TEST(ModbusMap, AppliedValueRegistersOrAnExplicitAcceptanceOfSetpointReadBack) {
+  const RegisterMap m = map_of(shipped());
+  EXPECT_TRUE(m.reads_applied());
+  EXPECT_EQ(m[Q::applied_inertia].table, Table::input);
+  EXPECT_EQ(m[Q::applied_f2].address, 26);
+  // Without them: refused, naming the keys and the way out.
+  std::string text = shipped();
+  const auto from = text.find("[modbus.applied_inertia]"), to = text.find("# Setpoints and commands");
+  ASSERT_NE(from, std::string::npos);
+  ASSERT_NE(to, std::string::npos);
+  text.erase(from, to - from);
+  std::string msg = refusal(text);
+  EXPECT_NE(msg.find("modbus.applied_inertia: is missing"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("modbus.accept_setpoint_readback = true"), std::string::npos) << msg;
+  // Accepted explicitly: the map reads back its setpoint registers.
+  std::string accepted = text;
+  accepted.replace(accepted.find("poll_rate_hz = 50.0"), 19,
+                   "poll_rate_hz = 50.0\naccept_setpoint_readback = true");
+  EXPECT_FALSE(map_of(accepted).reads_applied());
+  // Some but not all: refused, whatever the acceptance says.
+  std::string partial = accepted;
+  partial.replace(
+      partial.find("# Setpoints and commands"), 0,
+      "[modbus.applied_inertia]\ntable = \"input\"\naddress = 20\ntype = \"float32\"\nunit = \"kg\"\n");
+  msg = refusal(partial);
+  EXPECT_NE(msg.find("names all four or none"), std::string::npos) << msg;
+}
+
+// The retry policy's keys (docs/modbus.md, "Exceptions"): defaults, and out-of-range values refused with key
+// and range. Exception codes and meanings: Modbus Application Protocol Specification V1.1b3, section 7
+// (from memory).
+TEST(ModbusMap, RetryPolicyKeysAndTheirRanges) {
+  const RegisterMap m = map_of(shipped());
+  EXPECT_EQ(m.retry.attempts, 3);
+  EXPECT_EQ(m.retry.within_ms, 500);
+  EXPECT_EQ(m.retry.delay_ms, 20);
+  EXPECT_EQ(m.retry.byte_timeout_ms, 100);
+  EXPECT_TRUE(retryable_exception(0x06));   // server device busy
+  EXPECT_TRUE(retryable_exception(0x0A));   // gateway path unavailable
+  EXPECT_TRUE(retryable_exception(0x0B));   // gateway target device failed to respond
+  EXPECT_FALSE(retryable_exception(0x02));  // illegal data address: a refusal
+  EXPECT_FALSE(retryable_exception(0x04));  // server device failure
+  const std::string msg = refusal(
+      variant("poll_rate_hz = 50.0", "poll_rate_hz = 50.0\nretry_attempts = 50\nbyte_timeout_ms = 0"));
+  EXPECT_NE(msg.find("modbus.retry_attempts"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("modbus.byte_timeout_ms"), std::string::npos) << msg;
 }

@@ -7,12 +7,16 @@
 #include <gtest/gtest.h>
 
 #include <algorithm>
+#include <filesystem>
+#include <fstream>
 #include <functional>
 #include <stdexcept>
 
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
 #include "registry.hpp"
+#include "report/report.hpp"
+#include "session/record_writer.hpp"
 #include "session/session.hpp"
 #include "support/fake_controller.hpp"
 
@@ -265,4 +269,33 @@ TEST(SessionUnit, OnlyTheFirstCriticalObserverCanFailASession) {
   EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
   EXPECT_EQ(count(record, "observer_dropped"), 2);
   EXPECT_TRUE(sum.rollers_stopped);
+}
+// A Modbus map accepted with setpoint-only read-back (docs/modbus.md, "Applied values") states the capability
+// "readback-setpoint-only": every session logs it with the controller, and the report shows one line for it;
+// a controller without it shows no such line.
+TEST(SessionUnit, SetpointOnlyReadBackIsLoggedAndShownOnTheReport) {
+  namespace fs = std::filesystem;
+  for (const bool setpoint_only : {false, true}) {
+    FakeController c(loadtrim::testing::demo_truth());
+    if (setpoint_only) c.script.extra_capabilities = ",readback-setpoint-only";
+    std::string dir = (fs::temp_directory_path() / "loadtrim-readback-XXXXXX").string();
+    ASSERT_TRUE(::mkdtemp(dir.data()));
+    const std::string folder = dir + "/session";
+    fs::create_directories(folder);
+    {
+      session::RecordWriter writer(folder);
+      session::Session s(inputs(), options(), c, {&writer});
+      const auto sum = s.run();
+      EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+    }
+    std::ifstream log(folder + "/events.jsonl");
+    const std::string events((std::istreambuf_iterator<char>(log)), {});
+    EXPECT_EQ(events.find("readback-setpoint-only") != std::string::npos, setpoint_only);
+    const auto files = report::write_report(folder, "test");
+    ASSERT_TRUE(files.ok) << files.error;
+    std::ifstream html(files.html);
+    const std::string page((std::istreambuf_iterator<char>(html)), {});
+    EXPECT_EQ(page.find("SETPOINT REGISTERS ONLY") != std::string::npos, setpoint_only);
+    fs::remove_all(dir);
+  }
 }
