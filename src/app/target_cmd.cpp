@@ -3,6 +3,7 @@
 // a session will work with: the exact conversions, the masses and the dyno inertia by the profile's rules,
 // the target force and the predicted coast-down time at each reference speed, the plausibility findings, and
 // the dyno's initial setting under each first-setting strategy. Nothing connects and nothing moves.
+#include <cmath>
 #include <cstdio>
 #include <iostream>
 #include <memory>
@@ -51,6 +52,10 @@ std::string where_from(const TargetOptions& o) {
 
 core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, std::string& source) {
   const std::string kind = where_from(o);
+  // CLI11's range check lets NaN through; an option that is given must be a number in range.
+  if (!std::isfinite(o.cycle_max_speed_kmh) || !std::isfinite(o.max_speed_kmh))
+    throw config::InputError("command line", {{core::Problem::Severity::error, "--cycle-max-speed-kmh",
+                                               "must be a number from 10 to 400 km/h"}});
   core::VehicleTarget v;
   if (kind == "file") {
     v = config::load_target(o.from);

@@ -131,11 +131,22 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
             num(vehicle.max_speed_kmh) + "): allowed up to " + num(speed_limit) + " km/h");
   // GTR 15 §2.2 (from memory): points the vehicle cannot reach are dropped (plan_reference_speeds); too few
   // left is an error.
-  if (plan.refusal)
+  if (plan.refusal) {
+    // Name what dropped the points: the vehicle's maximum, the cycle's, or both.
+    bool by_cycle = false, by_vehicle = false;
+    for (const auto& d : plan.dropped)
+      (d.why.find("test cycle") != std::string::npos ? by_cycle : by_vehicle) = true;
+    std::string cause;
+    if (by_vehicle)
+      cause = "vehicle.max_speed_kmh " + num(vehicle.max_speed_kmh) +
+              " km/h: a point v is kept only while v + 14 km/h is below it";
+    if (by_cycle)
+      cause += (cause.empty() ? "" : "; ") + std::string("vehicle.cycle_max_speed_kmh ") +
+               num(vehicle.cycle_max_speed_kmh.value_or(0.0)) +
+               " km/h: no point is kept above the one just above it";
     err(out.profile, "bands.reference_speeds_kmh",
-        *plan.refusal + " (vehicle.max_speed_kmh " + num(vehicle.max_speed_kmh) +
-            " km/h: a point v is kept only while v + 14 km/h is below it): use a profile with lower "
-            "reference speeds");
+        *plan.refusal + " (" + cause + "): use a profile with reference speeds this vehicle and cycle reach");
+  }
 
   // Motoring time.
   const double motoring = planned_motoring_s(profile);

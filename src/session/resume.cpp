@@ -36,8 +36,12 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         if (r.contains("final_set")) p.final_set = road_load_from_json(r.at("final_set"));
       } else if (type == "coastdown_started") {
         pending = r.at("run").get<int>();
+        p.last_run = std::max(p.last_run, *pending);
       } else if (type == "coastdown_discarded") {
         pending.reset();
+        ++p.unusable;
+        ++p.discarded;
+        p.last_run = std::max(p.last_run, r.at("run").get<int>());
         if (r.contains("next_set")) {
           p.next_set = road_load_from_json(r.at("next_set"));
           p.have_next_set = true;
@@ -46,7 +50,7 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         pending.reset();
         // Every field resume, the summary and the report read: a record without one is refused by name, never
         // read as a default (a missing "usable" is not "unusable").
-        (void)r.at("run").get<int>();
+        p.last_run = std::max(p.last_run, r.at("run").get<int>());
         (void)road_load_from_json(r.at("set"));
         if (!r.at("usable").is_boolean()) throw std::invalid_argument("\"usable\" is not true or false");
         if (r.at("usable").get<bool>()) {
@@ -89,7 +93,7 @@ Summary summary_from_record(const ResumePoint& p, const core::Profile& profile) 
   s.stop_reason = p.verdict_reason;
   s.iterations = p.iterations;
   s.coastdowns = static_cast<int>(p.completed.size());
-  s.usable_coastdowns = s.coastdowns - p.unusable;
+  s.usable_coastdowns = s.coastdowns - (p.unusable - p.discarded);
   s.cell_time_s = p.cell_time_s;
   s.first_setting = p.strategy;
   if (p.final_set) s.final_set = core::rounded(*p.final_set, profile.rounding);

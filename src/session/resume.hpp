@@ -16,7 +16,9 @@ namespace loadtrim::session {
 // What a resumed session takes over from its log.
 struct ResumePoint {
   std::vector<nlohmann::json> completed;  // "coastdown" records, in order
-  int unusable = 0;
+  int unusable = 0;   // unusable and discarded runs (both count against limits.max_unusable_runs)
+  int discarded = 0;  // of which discarded (lost link, too little retarding force, released late)
+  int last_run = 0;   // the highest run number any record names (a repeat gets the next one)
   std::optional<int> discarded_run;  // a run started but not completed
   core::RoadLoad next_set;
   bool have_next_set = false;

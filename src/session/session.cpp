@@ -204,7 +204,10 @@ std::optional<Session::Stop> Session::do_connect() {
   // cleared.
   controller::StatusReport st;
   if (r = c_.status(st); !r.ok()) return fault(r, "status");
-  if (!st.fault.empty() || !motion_.standstill(st.speed_kmh)) {
+  // Ready means stopped in a mode that holds nothing (docs/safety.md: idle or controlled stop), not merely
+  // slow.
+  const bool resting = st.mode == Mode::idle || st.mode == Mode::controlled_stop;
+  if (!st.fault.empty() || !motion_.standstill(st.speed_kmh) || !resting) {
     emit(ev::ControllerStateOnConnect{st.fault, st.speed_kmh, st.mode});
     if (!settle_and_clear("on connect"))
       return fault(Result::fail("the controller did not reach a stopped, fault-free state"), "connect");
@@ -399,6 +402,9 @@ std::optional<Session::Stop> Session::do_run(int run) {
       return link_or_fault(h, "after a too slow coast-down");
     ++unusable_;
     ++discarded_;
+    // This run was released: the next one follows it (the 120 s rule was this run's; it is discarded).
+    first_after_warm_up_ = false;
+    t_last_coast_end_ = t_now_;
     reset_passes(run, "coast-down " + std::to_string(run) + " discarded: too little retarding force");
     const core::RoadLoad fallback =
         core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial);
@@ -632,6 +638,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     }
     coastdowns_ = static_cast<int>(resume->completed.size());
     unusable_ = resume->unusable;
+    discarded_ = resume->discarded;
+    run_no = std::max(run_no, resume->last_run + 1);
     set_ = resume->next_set;
     first_setting_ = resume->strategy;
     if (resume->discarded_run) run_no = std::max(run_no, *resume->discarded_run + 1);
