@@ -234,8 +234,9 @@ core::Problems validate(const Table& t) {
     ps.push_back({Problem::Severity::error, key, std::move(m)});
   };
   if (t.channel > 99) err("framed.channel", "allowed 0 to 99");
-  if (!(t.poll_rate_hz >= 1.0 && t.poll_rate_hz <= 1000.0))
-    err("framed.poll_rate_hz", "allowed 1 to 1000 Hz");
+  // At least 10 Hz: the speed signal's minimum rate (GTR 15 §3.1, docs/standards.md §2.7).
+  if (!(t.poll_rate_hz >= 10.0 && t.poll_rate_hz <= 1000.0))
+    err("framed.poll_rate_hz", "allowed 10 to 1000 Hz");
   for (std::size_t i = 0; i < kOps; ++i) {
     const Op op = static_cast<Op>(i);
     const Command& c = t.ops[i];
@@ -353,7 +354,7 @@ Table read_table(config::TomlReader& r) {
   t.name = r.string_or("framed.name", t.name);
   t.channel = static_cast<unsigned>(r.integer_or("framed.channel", 1, 0, 99));
   t.checksum = r.choice("framed.checksum", {"xor", "none"}, std::string("xor")) == "xor";
-  t.poll_rate_hz = r.number_or("framed.poll_rate_hz", 50.0, 1.0, 1000.0, "Hz");
+  t.poll_rate_hz = r.number_or("framed.poll_rate_hz", 50.0, 10.0, 1000.0, "Hz");
   t.modes.idle = r.integer_or("framed.modes.idle", 0, 0, 9999);
   t.modes.hold = r.integer_or("framed.modes.hold", 1, 0, 9999);
   t.modes.roadload = r.integer_or("framed.modes.roadload", 2, 0, 9999);

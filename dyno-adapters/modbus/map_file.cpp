@@ -7,7 +7,7 @@ namespace loadtrim::modbus {
 RegisterMap read_register_map(config::TomlReader& r) {
   RegisterMap m;
   m.unit_id = r.integer_or("modbus.unit_id", 1, 0, 247);
-  m.poll_rate_hz = r.number_or("modbus.poll_rate_hz", 50.0, 1.0, 1000.0, "Hz");
+  m.poll_rate_hz = r.number_or("modbus.poll_rate_hz", 50.0, 10.0, 1000.0, "Hz");
   m.retry.attempts = static_cast<int>(r.integer_or("modbus.retry_attempts", 3, 0, 20));
   m.retry.within_ms = static_cast<int>(r.number_or("modbus.retry_within_ms", 500, 10, 10000, "ms"));
   m.retry.delay_ms = static_cast<int>(r.number_or("modbus.retry_delay_ms", 20, 0, 1000, "ms"));

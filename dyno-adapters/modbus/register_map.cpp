@@ -39,8 +39,9 @@ core::Problems validate(const RegisterMap& m) {
   };
   if (m.unit_id < 0 || m.unit_id > 247)
     err("modbus.unit_id", "is " + std::to_string(m.unit_id) + ", allowed 0 to 247");
-  if (!(m.poll_rate_hz >= 1.0 && m.poll_rate_hz <= 1000.0))
-    err("modbus.poll_rate_hz", "is " + core::num(m.poll_rate_hz) + ", allowed 1 to 1000 Hz");
+  // At least 10 Hz: the speed signal's minimum rate (GTR 15 §3.1, docs/standards.md §2.7).
+  if (!(m.poll_rate_hz >= 10.0 && m.poll_rate_hz <= 1000.0))
+    err("modbus.poll_rate_hz", "is " + core::num(m.poll_rate_hz) + ", allowed 10 to 1000 Hz");
   std::map<Table, std::map<int, std::string>> used;  // address → quantity, per table
   for (std::size_t i = 0; i < kQuantities.size(); ++i) {
     const Quantity& q = kQuantities[i];

@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
+#include <limits>
 #include <thread>
 
 #include "core/problem.hpp"
@@ -151,8 +152,21 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
   st.budget_s = budget_s;
   st.since_epoch = c_.epoch();
   st.stoppable = false;
+  // Held for standstill_hold_s of controller time, or of the tool's own time when the controller's clock
+  // does not move (a frozen clock must not keep the stop from being confirmed, nor confirm it at once).
+  double still_since = std::numeric_limits<double>::quiet_NaN();
+  Clock::time_point still_wall{};
   Result r = collect(st, [&](const Sample& s) {
-    return standstill(s.speed_kmh) && (s.mode == Mode::idle || s.mode == Mode::controlled_stop);
+    if (!(standstill(s.speed_kmh) && (s.mode == Mode::idle || s.mode == Mode::controlled_stop))) {
+      still_since = std::numeric_limits<double>::quiet_NaN();
+      return false;
+    }
+    if (std::isnan(still_since)) {
+      still_since = s.time_s;
+      still_wall = Clock::now();
+    }
+    return s.time_s - still_since >= rules_.standstill_hold_s ||
+           seconds(Clock::now() - still_wall) >= rules_.standstill_hold_s;
   });
   stopped = r.ok();
   return r;

@@ -48,6 +48,9 @@ struct Rules {
   double speed_limit_kmh = 0.0;  // > 0: a sample above this plus the margin ends the step
   double overspeed_margin_kmh = 2.0;
   double standstill_kmh = 0.5;  // at or below: the rollers stand still (every stop and start check)
+  // A stop seen in the samples must hold this long in controller time: one sample of an encoder dropout
+  // is not a standstill (common practice, no source).
+  double standstill_hold_s = 1.0;
   double min_clock_rate =
       0.25;  // the slowest the controller's clock may run, × its stated rate (as the clock guard)
   std::chrono::milliseconds wall_slack{20000};

@@ -550,11 +550,19 @@ void Session::do_safe_stop() {
   // Without confirmation from the stream, ask the controller's status (every poll bounded in both clocks).
   controller::StatusReport st;
   Result sr = Result::fail("not asked");
-  if (!stopped) sr = motion_.settle_by_status(opt_.stop_budget_s, st);
-  c_.stop_stream();
+  bool seen = true;  // st holds a status the controller sent
   if (stopped) {
-    if (Result q = c_.status(st); !q.ok()) st.speed_kmh = 0.0;  // the stream confirmed it just now
+    // The stream saw a standstill; the controller's own status must agree, or the wait goes on by status.
+    if (Result q = c_.status(st); !q.ok())
+      seen = false;  // nothing read: the record says so rather than a speed nobody reported
+    else if (!motion_.standstill(st.speed_kmh))
+      stopped = false;
   }
+  if (!stopped) {
+    seen = true;
+    sr = motion_.settle_by_status(opt_.stop_budget_s, st);
+  }
+  c_.stop_stream();
   rollers_stopped_ = stopped || sr.ok();
   if (rollers_stopped_)
     stop_note_ = "controlled stop: standstill confirmed by the controller";
@@ -563,7 +571,10 @@ void Session::do_safe_stop() {
                  "; the controller's watchdog is the remaining safeguard";
   emit(ev::SafeStop{
       rollers_stopped_ ? "controlled stop" : "controlled stop commanded, standstill not confirmed",
-      rollers_stopped_, ev::SafeStop::Seen{st.speed_kmh, st.mode, in_.cell.standstill_kmh, stop_note_}});
+      rollers_stopped_,
+      seen ? std::optional<ev::SafeStop::Seen>(
+                 ev::SafeStop::Seen{st.speed_kmh, st.mode, in_.cell.standstill_kmh, stop_note_})
+           : std::nullopt});
 }
 
 Session::StopGuard::~StopGuard() {
