@@ -71,6 +71,20 @@ std::string truth_with(const std::string& dir, const std::string& name,
   std::ofstream(path) << config::truth_toml(t, "test truth with a planted fault (invented)");
   return path;
 }
+// The parasitic curve the cell's check log stored is the simulator's hidden one
+// (samples/truths/demo-hatchback.toml) within 0.5 N at 30–120 km/h (bound: common practice, no source; the
+// band method at the truth's 0.05 km/h speed noise).
+void expect_stored_curve_is_the_truth(const std::string& dir, const std::string& cell_file) {
+  const physics::Truth truth = config::load_truth(kSrc + "/samples/truths/demo-hatchback.toml");
+  const checks::CellHistory h(dir, config::load_cell(cell_file, adapters::production().sections()).name);
+  ASSERT_TRUE(h.ok()) << h.error();
+  const auto curve = h.parasitic_curve();
+  ASSERT_TRUE(curve.has_value());
+  const core::RoadLoad true_curve{truth.dyno.parasitic_f0_n, truth.dyno.parasitic_f1_n_per_kmh,
+                                  truth.dyno.parasitic_f2_n_per_kmh2};
+  for (double s : {30.0, 60.0, 90.0, 120.0}) EXPECT_NEAR(curve->force_n(s), true_curve.force_n(s), 0.5) << s;
+}
+
 }  // namespace
 
 TEST(DynoChecksCli, HealthyDynoPassesEveryCheckAndSessionsMayStart) {
@@ -91,14 +105,7 @@ TEST(DynoChecksCli, HealthyDynoPassesEveryCheckAndSessionsMayStart) {
   // The stored curve is the simulator's hidden parasitic curve (samples/truths/demo-hatchback.toml: 22 N,
   // 0.12 N/(km/h), 0.0009 N/(km/h)²) within 0.5 N (bound: common practice, no source; the band method at the
   // truth's 0.05 km/h speed noise).
-  const physics::Truth truth = config::load_truth(kSrc + "/samples/truths/demo-hatchback.toml");
-  const checks::CellHistory h(dir, config::load_cell(kCell, adapters::production().sections()).name);
-  ASSERT_TRUE(h.ok()) << h.error();
-  const auto curve = h.parasitic_curve();
-  ASSERT_TRUE(curve.has_value());
-  const core::RoadLoad true_curve{truth.dyno.parasitic_f0_n, truth.dyno.parasitic_f1_n_per_kmh,
-                                  truth.dyno.parasitic_f2_n_per_kmh2};
-  for (double s : {30.0, 60.0, 90.0, 120.0}) EXPECT_NEAR(curve->force_n(s), true_curve.force_n(s), 0.5) << s;
+  ASSERT_NO_FATAL_FAILURE(expect_stored_curve_is_the_truth(dir, kCell));
   const Ran due = tool({"check", "due", "--cell", kCell, "--checks", dir, "--json"});
   EXPECT_EQ(due.rc, 0) << due.out << due.err;
   EXPECT_TRUE(due.json.value("may_start", false)) << due.out;
@@ -346,14 +353,7 @@ TEST(DynoChecksCli, FourChecksOverModbusTcp) {
       }
     }
   }
-  const physics::Truth truth = config::load_truth(kSrc + "/samples/truths/demo-hatchback.toml");
-  const checks::CellHistory h(dir, config::load_cell(cell, adapters::production().sections()).name);
-  ASSERT_TRUE(h.ok()) << h.error();
-  const auto curve = h.parasitic_curve();
-  ASSERT_TRUE(curve.has_value());
-  const core::RoadLoad true_curve{truth.dyno.parasitic_f0_n, truth.dyno.parasitic_f1_n_per_kmh,
-                                  truth.dyno.parasitic_f2_n_per_kmh2};
-  for (double s : {30.0, 60.0, 90.0, 120.0}) EXPECT_NEAR(curve->force_n(s), true_curve.force_n(s), 0.5) << s;
+  ASSERT_NO_FATAL_FAILURE(expect_stored_curve_is_the_truth(dir, cell));
   if (!HasFailure()) fs::remove_all(dir);
 }
 

@@ -45,6 +45,14 @@ std::optional<std::string> feed(ClockGuard& g, double scale, double hz, double b
   return std::nullopt;
 }
 
+// Connected, identified and streaming at 100 Hz: where every Motion test starts.
+void bring_up(FakeController& c) {
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+}
+
 }  // namespace
 
 TEST(ClockGuard, HonestClocksPassAtEveryScaleWithBatchesAndBacklogs) {
@@ -303,10 +311,7 @@ TEST_F(Layer, TheKeepAliveStopsFeedingTheWatchdogWhenTheDrivingThreadStalls) {
 
 TEST(Motion, FaultFlagsAndOverSpeedEndAStepWhateverTheEpochOrClock) {
   FakeController c(loadtrim::testing::demo_truth());
-  controller::ControllerInfo info;
-  ASSERT_TRUE(c.connect().ok());
-  ASSERT_TRUE(c.identify(info).ok());
-  ASSERT_TRUE(c.start_stream(100.0).ok());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
   motion::Rules r;
   r.speed_limit_kmh = 100.0;
   motion::Motion m(c, r);
@@ -325,10 +330,7 @@ TEST(Motion, FaultFlagsAndOverSpeedEndAStepWhateverTheEpochOrClock) {
 
 TEST(Motion, AStepEndsOnItsControllerBudgetAndOnItsWallDeadline) {
   FakeController c(loadtrim::testing::demo_truth());
-  controller::ControllerInfo info;
-  ASSERT_TRUE(c.connect().ok());
-  ASSERT_TRUE(c.identify(info).ok());
-  ASSERT_TRUE(c.start_stream(100.0).ok());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
   motion::Rules r;
   r.wall_slack = std::chrono::milliseconds(300);
   motion::Motion m(c, r);
@@ -356,10 +358,7 @@ TEST(Motion, AStepEndsOnItsControllerBudgetAndOnItsWallDeadline) {
 
 TEST(Motion, AStopThatIsNeverReachedIsReportedNotAssumed) {
   FakeController c(loadtrim::testing::demo_truth());
-  controller::ControllerInfo info;
-  ASSERT_TRUE(c.connect().ok());
-  ASSERT_TRUE(c.identify(info).ok());
-  ASSERT_TRUE(c.start_stream(100.0).ok());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
   motion::Motion m(c, {});
   ASSERT_TRUE(m.hold(50.0, 1.0, "run-up", 120.0).ok());
   c.script.never_stops = true;
@@ -379,10 +378,7 @@ TEST(Motion, AStopThatIsNeverReachedIsReportedNotAssumed) {
 // samples then carry the emergency-stop flag: the step must end on the flag, and the stop must follow.
 TEST(Motion, AnEmergencyStopOnASampleStampedBeforeTheCommandTimeIsSeenAndStops) {
   FakeController c(loadtrim::testing::demo_truth());
-  controller::ControllerInfo info;
-  ASSERT_TRUE(c.connect().ok());
-  ASSERT_TRUE(c.identify(info).ok());
-  ASSERT_TRUE(c.start_stream(100.0).ok());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
   motion::Motion m(c, {});
   ASSERT_TRUE(m.hold(30.0, 1.0, "run-up", 120.0).ok());
   double frozen_at = -1.0;
@@ -423,10 +419,7 @@ TEST(Motion, AnEmergencyStopOnASampleStampedBeforeTheCommandTimeIsSeenAndStops) 
 // controller at one of its limits is not in a state to measure in.
 TEST(Motion, TheAtLimitFlagEndsAStep) {
   FakeController c(loadtrim::testing::demo_truth());
-  controller::ControllerInfo info;
-  ASSERT_TRUE(c.connect().ok());
-  ASSERT_TRUE(c.identify(info).ok());
-  ASSERT_TRUE(c.start_stream(100.0).ok());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
   motion::Motion m(c, {});
   ASSERT_TRUE(m.hold(30.0, 1.0, "run-up", 120.0).ok());
   c.script.sample_lie = [](controller::Sample& s) { s.flags |= controller::kFlagLimit; };
