@@ -157,7 +157,7 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
   double still_since = std::numeric_limits<double>::quiet_NaN();
   Clock::time_point still_wall{};
   Result r = collect(st, [&](const Sample& s) {
-    if (!(standstill(s.speed_kmh) && (s.mode == Mode::idle || s.mode == Mode::controlled_stop))) {
+    if (!at_rest(s.speed_kmh, s.mode)) {
       still_since = std::numeric_limits<double>::quiet_NaN();
       return false;
     }
@@ -180,8 +180,7 @@ Result Motion::settle_by_status(double budget_s, controller::StatusReport& st) {
   for (;;) {
     if (Result r = c_.status(st); !r.ok()) return r;
     if (t_first < 0.0) t_first = st.time_s;
-    if (standstill(st.speed_kmh) && (st.mode == Mode::idle || st.mode == Mode::controlled_stop))
-      return Result::success();
+    if (at_rest(st.speed_kmh, st.mode)) return Result::success();
     if (st.mode == Mode::speed_hold || st.mode == Mode::road_load || st.mode == Mode::constant_force)
       if (Result r = c_.controlled_stop(); !r.ok()) return r;
     if (st.time_s - t_first > budget_s)

@@ -95,6 +95,11 @@ class Motion {
   // The wall deadline a step of this controller budget gets.
   std::chrono::steady_clock::duration wall_budget(double budget_s) const;
   bool standstill(double speed_kmh) const { return speed_kmh <= rules_.standstill_kmh; }
+  // At rest: standing still in a mode that holds nothing (idle or controlled stop; docs/safety.md).
+  bool at_rest(double speed_kmh, controller::Mode mode) const {
+    return standstill(speed_kmh) &&
+           (mode == controller::Mode::idle || mode == controller::Mode::controlled_stop);
+  }
   double last_time_s() const { return last_time_s_; }
   bool have_time() const { return have_time_; }
 

@@ -206,8 +206,7 @@ std::optional<Session::Stop> Session::do_connect() {
   if (r = c_.status(st); !r.ok()) return fault(r, "status");
   // Ready means stopped in a mode that holds nothing (docs/safety.md: idle or controlled stop), not merely
   // slow.
-  const bool resting = st.mode == Mode::idle || st.mode == Mode::controlled_stop;
-  if (!st.fault.empty() || !motion_.standstill(st.speed_kmh) || !resting) {
+  if (!st.fault.empty() || !motion_.at_rest(st.speed_kmh, st.mode)) {
     emit(ev::ControllerStateOnConnect{st.fault, st.speed_kmh, st.mode});
     if (!settle_and_clear("on connect"))
       return fault(Result::fail("the controller did not reach a stopped, fault-free state"), "connect");
