@@ -1,7 +1,9 @@
 // `loadtrim check ...`: the dyno's own checks with no vehicle on the rollers (parasitic, coastdown,
-// readiness, inertia), the due-date view (due), and logging major maintenance (maintenance). Thin: the
-// procedures are in src/checks, the computations in src/core/dyno_checks.
+// readiness, inertia, friction, accel-decel, response), the due table (due), logging a check performed
+// outside loadtrim (record) and major maintenance (maintenance). Thin: the procedures are in src/checks, the
+// computations in src/core/dyno_checks; the outcome → exit-code mapping is here, with the other commands'.
 
+#include <algorithm>
 #include <cstdio>
 #include <iostream>
 #include <memory>
@@ -31,9 +33,28 @@ const char* kCheckCautions =
     "  - nobody in the roller area; guards, interlocks and emergency stops work;\n"
     "  - the cell's speed and force limits in the cell file are right; loadtrim never commands more.\n";
 
+// A check's end as the process exit code (the README's table; app/exit_codes.hpp).
+ExitCode exit_code_for(checks::CheckResult::End e) {
+  switch (e) {
+    case checks::CheckResult::End::passed:
+      return kAccepted;
+    case checks::CheckResult::End::failed:
+      return kNotAccepted;
+    case checks::CheckResult::End::refused:
+      return kBadInput;
+    case checks::CheckResult::End::controller_fault:
+      return kControllerFault;
+    case checks::CheckResult::End::interrupted:
+      return kInterrupted;
+    case checks::CheckResult::End::record_failure:
+      return kRecordFailure;
+  }
+  return kInternalError;
+}
+
 struct CheckOptions {
   std::string kind;
-  std::string cell, profile, checks, note, now, data_dir, operator_name;
+  std::string cell, profile, checks, note, now, data_dir, operator_name, result;
   int port = 0;
   std::string device;
   bool unattended = false, accept_new_curve = false, json = false;
@@ -133,7 +154,7 @@ int run_one(const CheckOptions& o) {
     std::printf("check %s: %s\n%s\nfolder: %s\n", o.kind.c_str(), checks::to_string(r.end), r.verdict.c_str(),
                 r.folder.c_str());
   }
-  return checks::exit_code(r.end);
+  return exit_code_for(r.end);
 }
 
 int run_due(const CheckOptions& o) {
@@ -154,19 +175,59 @@ int run_due(const CheckOptions& o) {
   if (o.json) {
     std::printf("%s\n", checks::to_json(r).dump().c_str());
   } else {
-    std::printf("dyno checks for cell %s at %s (%s):\n", l.cell.name.c_str(), checks::utc_from_s(now).c_str(),
-                h.log_path().c_str());
+    std::printf("dyno checks for cell %s at %s (%s), profile %s:\n", l.cell.name.c_str(),
+                checks::utc_from_s(now).c_str(), h.log_path().c_str(), l.profile.name.c_str());
     if (!r.history_ok) std::printf("  HISTORY BROKEN: %s\n", r.history_error.c_str());
     for (const auto& it : r.items) {
+      const bool required = std::find(l.profile.required.begin(), l.profile.required.end(), it.kind) !=
+                            l.profile.required.end();
       std::printf(
-          "  %-10s %-26s last pass %-24s %s%s\n", core::to_string(it.kind), core::to_string(it.state),
+          "  %-11s %-26s last pass %-24s %s%s\n", core::to_string(it.kind), core::to_string(it.state),
           it.last_pass_utc_s ? checks::utc_from_s(*it.last_pass_utc_s).c_str() : "never",
           it.valid_until_utc_s ? ("valid until " + checks::utc_from_s(*it.valid_until_utc_s)).c_str() : "",
-          it.why.empty() ? "" : ("  " + it.why).c_str());
+          required ? "" : "  (not required by the profile)");
+      std::printf("  %-11s rule (%s): %s\n", "", it.clause.c_str(), it.rule.c_str());
+      if (!it.why.empty()) std::printf("  %-11s due because: %s\n", "", it.why.c_str());
     }
     std::printf("sessions %s: %s\n", r.may_start() ? "may start" : "REFUSED", r.summary().c_str());
   }
   return r.may_start() ? kAccepted : kNotAccepted;
+}
+
+// A check performed outside loadtrim (speed, speed linearity: they need a reference it does not have), logged
+// with its result so the due table counts it. The record says it was logged, not run here.
+int run_record(const CheckOptions& o) {
+  const Loaded l = load(o);
+  core::CheckKind kind;
+  if (!core::parse(o.kind, kind) || core::runs_in_loadtrim(kind)) {
+    std::cerr << "loadtrim check record: \"" << o.kind
+              << "\" is not a check performed outside loadtrim (speed, linearity); loadtrim runs the others "
+                 "itself\n";
+    return kBadInput;
+  }
+  if (o.note.empty()) {
+    std::cerr
+        << "--note: say how and by whom it was performed, and where its record is (it goes in the cell's "
+           "history)\n";
+    return kBadInput;
+  }
+  checks::CellHistory h(o.checks, l.cell.name);
+  const bool passed = o.result == "passed";
+  const std::string verdict = std::string(passed ? "pass" : "FAIL") + " (40 CFR " + core::clause_of(kind) +
+                              "), performed outside loadtrim and logged: " + o.note;
+  if (!h.append("check",
+                {{"kind", core::to_string(kind)},
+                 {"passed", passed},
+                 {"verdict", verdict},
+                 {"logged", true},
+                 {"operator", o.operator_name}},
+                record::utc_now())) {
+    std::cerr << "loadtrim: " << h.error() << "\n";
+    return kRecordFailure;
+  }
+  std::printf("check %s logged for cell %s: %s\n", core::to_string(kind), l.cell.name.c_str(),
+              verdict.c_str());
+  return kAccepted;
 }
 
 int run_maintenance(const CheckOptions& o) {
@@ -180,10 +241,11 @@ int run_maintenance(const CheckOptions& o) {
     std::cerr << "loadtrim: " << h.error() << "\n";
     return kRecordFailure;
   }
-  std::printf(
-      "maintenance logged for cell %s: the parasitic determination and the base inertia check are due "
-      "again\n",
-      l.cell.name.c_str());
+  std::string again;
+  for (const auto& rule : l.profile.due.rules)
+    if (rule.after_maintenance) again += std::string(again.empty() ? "" : ", ") + core::to_string(rule.kind);
+  std::printf("maintenance logged for cell %s: due again by the profile's table: %s\n", l.cell.name.c_str(),
+              again.empty() ? "none" : again.c_str());
   return kAccepted;
 }
 
@@ -208,11 +270,21 @@ void register_check_commands(CLI::App& app, Runner& run) {
   } kinds[] = {
       {"parasitic",
        "determine the parasitic loss curve (free coast of the empty rollers) and compare it with the stored "
-       "one"},
-      {"coastdown", "unloaded coast-down (1066.270 shape) at the smallest and the largest inertia"},
+       "one (1066.255)"},
+      {"coastdown", "unloaded coast-down (1066.270) at the smallest and the largest inertia"},
       {"readiness",
-       "daily readiness: the unloaded coast-down at the smallest inertia only (the most sensitive end)"},
-      {"inertia", "base inertia (1066.250 shape): constant force, time 10 → 40 mph, I = F·Δt/Δv"},
+       "daily readiness (1066.275): the unloaded coast-down at the smallest inertia only (the most sensitive "
+       "end)"},
+      {"inertia",
+       "base inertia (1066.250): constant force, 10 → 40 mph and 40 → 10 mph at three rate pairs, the loss "
+       "cancelling"},
+      {"friction",
+       "friction compensation (1066.260): base inertia, A = B = C = 0, 50 mph hold then a 60 s coast"},
+      {"accel-decel",
+       "acceleration/deceleration (1066.265): road-load simulation at a set force, 10 ↔ 40 mph at 1 (mph)/s "
+       "steps"},
+      {"response",
+       "response time (1066.245): force steps at base inertia, settling within ±10 % under 100 ms"},
   };
   for (const auto& k : kinds) {
     auto* s = sub->add_subcommand(k.name, k.help);
@@ -236,14 +308,26 @@ void register_check_commands(CLI::App& app, Runner& run) {
       run = [o] { return lab(*o) ? run_one(*o) : static_cast<int>(kBadInput); };
     });
   }
-  auto* due =
-      sub->add_subcommand("due", "which dyno checks are due for the cell (40 CFR 1066.215 intervals)");
+  auto* rec = sub->add_subcommand(
+      "record",
+      "log a check performed outside loadtrim (speed 1066.235, linearity 1066.220) with its result");
+  common(rec);
+  rec->add_option("kind", o->kind, "speed or linearity")->required();
+  rec->add_option("--result", o->result, "passed or failed")
+      ->required()
+      ->check(CLI::IsMember({"passed", "failed"}));
+  rec->add_option("--note", o->note, "how and by whom it was performed, where its record is")->required();
+  rec->add_option("--operator", o->operator_name, "who logs it, for the record");
+  rec->callback([o, &run] { run = [o] { return lab(*o) ? run_record(*o) : static_cast<int>(kBadInput); }; });
+  auto* due = sub->add_subcommand(
+      "due", "which dyno checks are due for the cell, each with its rule (40 CFR 1066.215 Table 1)");
   common(due);
   due->add_option("--now", o->now, "evaluate at this UTC time instead of now (e.g. 2026-12-08T08:00:00Z)");
   due->add_flag("--json", o->json, "print the view as JSON");
   due->callback([o, &run] { run = [o] { return lab(*o) ? run_due(*o) : static_cast<int>(kBadInput); }; });
   auto* mnt = sub->add_subcommand(
-      "maintenance", "log major maintenance of the dyno (makes its parasitic and inertia checks due)");
+      "maintenance",
+      "log major maintenance of the dyno (makes the checks due that the profile's table names)");
   common(mnt);
   mnt->add_option("--note", o->note, "what was done")->required();
   mnt->callback(

@@ -39,7 +39,40 @@ struct TargetOptions {
   double test_mass_kg = 0, test_mass_lb = 0, mass_in_running_order_kg = 0, rotating_mass_kg = -1,
          max_speed_kmh = 180.0, cycle_max_speed_kmh = 0;
   bool json = false;
+  bool estimate_mro = false;  // --estimate-mass-in-running-order: the estimate accepted explicitly (recorded)
 };
+
+// How the mass in running order was settled: given, or an estimate the operator accepted explicitly. Without
+// either (and without a rotating mass), nothing is invented: the command is refused, naming the options.
+// `estimate`: the estimate this source offers and how it is made.
+void settle_mass_in_running_order(const TargetOptions& o, core::VehicleTarget& v, double estimate_kg,
+                                  const std::string& how, std::string& basis) {
+  if (o.rotating_mass_kg >= 0) {
+    v.rotating_mass_kg = o.rotating_mass_kg;
+    v.mass_in_running_order_kg.reset();
+    v.mass_in_running_order_estimated = false;
+    basis = "not used: the rotating mass is given (--rotating-mass-kg)";
+    return;
+  }
+  if (o.mass_in_running_order_kg > 0) {
+    v.mass_in_running_order_kg = o.mass_in_running_order_kg;
+    v.mass_in_running_order_estimated = false;
+    basis = "given (--mass-in-running-order-kg)";
+    return;
+  }
+  if (o.estimate_mro) {
+    v.mass_in_running_order_kg = estimate_kg;
+    v.mass_in_running_order_estimated = true;
+    basis = "estimated: " + how + " (--estimate-mass-in-running-order; recorded in the target file)";
+    return;
+  }
+  throw config::InputError(
+      "command line",
+      {{core::Problem::Severity::error, "--mass-in-running-order-kg",
+        "is missing: m_r follows from the mass in running order by the profile's rule. Give "
+        "--mass-in-running-order-kg (or --rotating-mass-kg), or accept the estimate (" +
+            how + ", " + core::num(estimate_kg, 1) + " kg) with --estimate-mass-in-running-order"}});
+}
 
 std::string where_from(const TargetOptions& o) {
   int n = !o.from.empty() + !o.metric.empty() + !o.us.empty() + !o.epa.empty();
@@ -50,7 +83,8 @@ std::string where_from(const TargetOptions& o) {
   return !o.from.empty() ? "file" : !o.metric.empty() ? "metric" : !o.us.empty() ? "us" : "epa";
 }
 
-core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, std::string& source) {
+core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, std::string& source,
+                          std::string& mro_basis) {
   const std::string kind = where_from(o);
   // CLI11's range check lets NaN through; an option that is given must be a number in range.
   if (!std::isfinite(o.cycle_max_speed_kmh) || !std::isfinite(o.max_speed_kmh))
@@ -61,6 +95,9 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
     v = config::load_target(o.from);
     if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
     source = "target file " + o.from;
+    mro_basis = v.rotating_mass_kg                  ? "not used: the file gives the rotating mass"
+                : v.mass_in_running_order_estimated ? "estimated (the file says so)"
+                                                    : "as the file gives it";
     return v;
   }
   if (kind == "epa") {
@@ -69,6 +106,9 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
       if ((o.epa_line > 0 && r.line == o.epa_line) || (!o.epa_id.empty() && r.id == o.epa_id)) {
         v = config::target_from_epa(r, profile.name, o.max_speed_kmh);
         if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
+        // The row gives the equivalent test weight only: its mass in running order is an estimate.
+        settle_mass_in_running_order(o, v, *v.mass_in_running_order_kg,
+                                     "the row's equivalent test weight less 100 kg", mro_basis);
         source =
             o.epa + " line " + std::to_string(r.line) + " (US units: A, B, C and the equivalent test weight)";
         return v;
@@ -89,12 +129,7 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
   v.id = o.id;
   v.description = o.description;
   v.test_mass_kg = o.test_mass_kg > 0 ? o.test_mass_kg : core::units::lb_to_kg(o.test_mass_lb);
-  if (o.rotating_mass_kg >= 0)
-    v.rotating_mass_kg = o.rotating_mass_kg;
-  else if (o.mass_in_running_order_kg > 0)
-    v.mass_in_running_order_kg = o.mass_in_running_order_kg;
-  else
-    v.mass_in_running_order_kg = v.test_mass_kg;  // stated in the output: the rule then uses TM
+  settle_mass_in_running_order(o, v, v.test_mass_kg, "taken equal to the test mass", mro_basis);
   v.max_speed_kmh = o.max_speed_kmh;
   if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
   v.profile = profile.name;
@@ -115,8 +150,8 @@ nlohmann::json coef(const core::RoadLoad& c) {
 int run_target(const TargetOptions& o) {
   const std::string pfile = profile_file(o.profile);
   const core::Profile profile = config::load_profile(pfile);
-  std::string source;
-  core::VehicleTarget v = build(o, profile, source);
+  std::string source, mro_basis;
+  core::VehicleTarget v = build(o, profile, source, mro_basis);
   if (v.profile.empty()) v.profile = profile.name;
   core::AxleLayout layout = core::axle_layout_for(v.drive);
   std::optional<controller::CellConfig> cell;
@@ -208,15 +243,17 @@ int run_target(const TargetOptions& o) {
   std::string written;
   if (!o.out.empty()) {
     std::string err;
-    const std::string text = config::target_toml(v, "Prepared by loadtrim target from " + source + "\non " +
-                                                        record::utc_now() + " for profile " + profile.name);
+    const std::string text =
+        config::target_toml(v, "Prepared by loadtrim target from " + source + "\non " + record::utc_now() +
+                                   " for profile " + profile.name + "\nmass in running order: " + mro_basis);
     if (!record::write_durable(o.out, text, err)) {
       std::cerr << "loadtrim target: cannot write " << o.out << ": " << err << "\n";
       return kRecordFailure;
     }
     // Read back through the loader: the file must say exactly what was prepared.
     const core::VehicleTarget back = config::load_target(o.out);
-    if (!(back.target == v.target) || back.test_mass_kg != v.test_mass_kg) {
+    if (!(back.target == v.target) || back.test_mass_kg != v.test_mass_kg ||
+        back.mass_in_running_order_estimated != v.mass_in_running_order_estimated) {
       std::cerr << "loadtrim target: " << o.out << " does not read back as written\n";
       return kInternalError;
     }
@@ -232,6 +269,10 @@ int run_target(const TargetOptions& o) {
         {"target_us",
          {{"a_lbf", us.a_lbf}, {"b_lbf_per_mph", us.b_lbf_per_mph}, {"c_lbf_per_mph2", us.c_lbf_per_mph2}}},
         {"test_mass_kg", v.test_mass_kg},
+        {"mass_in_running_order",
+         {{"kg", v.mass_in_running_order_kg ? nlohmann::json(*v.mass_in_running_order_kg) : nlohmann::json()},
+          {"estimated", v.mass_in_running_order_estimated},
+          {"basis", mro_basis}}},
         {"rotating_mass_kg", m_r},
         {"force_mass_kg", force_mass},
         {"dyno_inertia_kg", inertia},
@@ -256,6 +297,10 @@ int run_target(const TargetOptions& o) {
         "masses: TM %.1f kg, m_r %.2f kg, forces with TM + m_r = %.2f kg; dyno inertia %.2f kg (%s, profile "
         "%s)\n",
         v.test_mass_kg, m_r, force_mass, inertia, core::to_string(layout), profile.name.c_str());
+    std::printf(
+        "mass in running order: %s%s\n",
+        v.mass_in_running_order_kg ? (core::num(*v.mass_in_running_order_kg, 1) + " kg, ").c_str() : "",
+        mro_basis.c_str());
     std::printf("\n  v (km/h)   F_t (N)   Δt by the formula (s)   exact coast time (s)   [band ±%.1f km/h]\n",
                 profile.band_half_width_kmh);
     for (const auto& row : rows)
@@ -297,12 +342,19 @@ void register_target_command(CLI::App& app, Runner& run) {
   s->add_option("--epa-id", o->epa_id, "the row's vehicle id (model year / test vehicle / configuration)");
   s->add_option("--id", o->id, "vehicle id (metric and US forms)");
   s->add_option("--description", o->description, "vehicle description");
-  s->add_option("--test-mass-kg", o->test_mass_kg, "test mass TM")->check(CLI::Range(300.0, 20000.0));
+  s->add_option("--test-mass-kg", o->test_mass_kg, "test mass TM")
+      ->check(CLI::Range(core::kMinTestMass_kg, core::kMaxTestMass_kg));
   s->add_option("--test-mass-lb", o->test_mass_lb, "test mass in lb (converted exactly)")
-      ->check(CLI::Range(600.0, 45000.0));
+      ->check(CLI::Range(core::units::kg_to_lb(core::kMinTestMass_kg),
+                         core::units::kg_to_lb(core::kMaxTestMass_kg)));
   s->add_option("--mass-in-running-order-kg", o->mass_in_running_order_kg,
-                "for m_r by the profile's rule (default: TM)")
-      ->check(CLI::Range(200.0, 20000.0));
+                "for m_r by the profile's rule (required unless --rotating-mass-kg or "
+                "--estimate-mass-in-running-order)")
+      ->check(CLI::Range(0.5 * core::kMinTestMass_kg, core::kMaxTestMass_kg));
+  s->add_flag(
+      "--estimate-mass-in-running-order", o->estimate_mro,
+      "no measured mass in running order: accept the estimate (the test mass; for an EPA row its test "
+      "weight less 100 kg), recorded as an estimate in the target file");
   s->add_option("--rotating-mass-kg", o->rotating_mass_kg, "m_r when known")->check(CLI::Range(0.0, 4000.0));
   s->add_option("--drive", o->drive, "front, rear or all")->capture_default_str();
   s->add_option("--max-speed-kmh", o->max_speed_kmh, "the vehicle's maximum speed")

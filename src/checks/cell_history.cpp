@@ -177,6 +177,9 @@ nlohmann::json to_json(const Readiness& r) {
   nlohmann::json items = nlohmann::json::array();
   for (const auto& it : r.items) {
     nlohmann::json j = {{"check", core::to_string(it.kind)},
+                        {"clause", it.clause},
+                        {"rule", it.rule},
+                        {"interval_days", it.interval_s / 86400.0},
                         {"state", core::to_string(it.state)},
                         {"due", it.due()},
                         {"why", it.why}};

@@ -46,9 +46,7 @@ struct CheckResult {
   std::string folder;
   nlohmann::json result;
 };
-const char* to_string(CheckResult::End e);
-int exit_code(
-    CheckResult::End e);  // 0 passed, 1 failed, 2 refused, 3 controller fault, 4 interrupted, 5 record
+const char* to_string(CheckResult::End e);  // the process exit codes are the app's (src/app/check_cmds.cpp)
 
 CheckResult run_check(controller::Controller& c, const CheckRequest& req,
                       const std::atomic<bool>* stop = nullptr);

@@ -4,6 +4,7 @@
 
 #include "config/input_error.hpp"
 #include "config/toml_reader.hpp"
+#include "core/problem.hpp"
 #include "core/units.hpp"
 
 namespace loadtrim::config {
@@ -100,11 +101,17 @@ core::VehicleTarget read_target(TomlReader& r) {
   if (r.has("vehicle.test_mass_kg") && r.has("vehicle.test_mass_lb"))
     r.error("vehicle", "give test_mass_kg or test_mass_lb, not both");
   if (r.has("vehicle.test_mass_lb"))
-    v.test_mass_kg = core::units::lb_to_kg(r.number("vehicle.test_mass_lb", 600.0, 45000.0, "lb"));
+    v.test_mass_kg =
+        core::units::lb_to_kg(r.number("vehicle.test_mass_lb", core::units::kg_to_lb(core::kMinTestMass_kg),
+                                       core::units::kg_to_lb(core::kMaxTestMass_kg), "lb"));
   else
-    v.test_mass_kg = r.number("vehicle.test_mass_kg", 300.0, 20000.0, "kg");
+    v.test_mass_kg = r.number("vehicle.test_mass_kg", core::kMinTestMass_kg, core::kMaxTestMass_kg, "kg");
   v.rotating_mass_kg = r.maybe_number("vehicle.rotating_mass_kg", 0.0, 4000.0, "kg");
-  v.mass_in_running_order_kg = r.maybe_number("vehicle.mass_in_running_order_kg", 200.0, 20000.0, "kg");
+  v.mass_in_running_order_kg = r.maybe_number("vehicle.mass_in_running_order_kg", 0.5 * core::kMinTestMass_kg,
+                                              core::kMaxTestMass_kg, "kg");
+  v.mass_in_running_order_estimated = r.boolean_or("vehicle.mass_in_running_order_estimated", false);
+  if (v.mass_in_running_order_estimated && !v.mass_in_running_order_kg)
+    r.error("vehicle.mass_in_running_order_estimated", "is true, but no mass_in_running_order_kg is given");
   core::parse(r.choice("vehicle.drive", {"front", "rear", "all"}), v.drive);
   v.two_wheel_drive_mode = r.boolean_or("vehicle.two_wheel_drive_mode", false);
   v.max_speed_kmh = r.number("vehicle.max_speed_kmh", 30.0, 400.0, "km/h");
@@ -165,25 +172,65 @@ physics::Truth read_truth(TomlReader& r) {
   d.force_noise_n = r.number_or("dyno.force_noise_n", d.force_noise_n, 0.0, 500.0, "N");
   d.motoring_accel_mps2 = r.number_or("dyno.motoring_accel_mps2", d.motoring_accel_mps2, 0.1, 10.0, "m/s²");
   d.stop_decel_mps2 = r.number_or("dyno.stop_decel_mps2", d.stop_decel_mps2, 0.1, 10.0, "m/s²");
+  d.force_loop_gain = r.number_or("dyno.force_loop_gain", d.force_loop_gain, 0.5, 1.5, "");
+  d.force_loop_time_constant_s =
+      r.number_or("dyno.force_loop_time_constant_s", d.force_loop_time_constant_s, 0.0, 2.0, "s");
+  d.force_loop_damping = r.number_or("dyno.force_loop_damping", d.force_loop_damping, 0.05, 5.0, "");
   t.noise_seed = static_cast<std::uint64_t>(r.integer_or("noise_seed", 1, 0, 2147483647));
   t.vehicle_on_rollers = r.boolean_or("vehicle_on_rollers", true);
   return t;
+}
+
+std::vector<std::string> check_names() {
+  std::vector<std::string> out;
+  for (core::CheckKind k : core::kAllChecks) out.push_back(core::to_string(k));
+  return out;
+}
+
+std::vector<core::CheckKind> check_kinds(TomlReader& r, const std::string& key) {
+  std::vector<core::CheckKind> out;
+  for (const auto& s : r.choices(key, check_names())) {
+    core::CheckKind k;
+    if (core::parse(s, k)) out.push_back(k);
+  }
+  return out;
+}
+
+// The due table (CFR 1066.215 Table 1): one [due.<check>] table per check the profile tracks.
+void read_due(TomlReader& r, core::CheckProfile& p) {
+  if (r.has("intervals"))
+    r.error("intervals",
+            "is replaced by one [due.<check>] table per check (interval_days, after_maintenance, "
+            "after_failure_of) and [due] required: see config/checks/cfr1066.toml and docs/dyno-checks.md");
+  p.due.rules.clear();
+  constexpr double kDay = 86400.0;
+  for (core::CheckKind k : core::kAllChecks) {
+    const std::string t = std::string("due.") + core::to_string(k);
+    if (!r.has(t)) continue;
+    core::DueRule row;
+    row.kind = k;
+    row.clause = r.string_or(t + ".clause", std::string("1066.215 Table 1; ") + core::clause_of(k));
+    row.interval_s = kDay * r.number(t + ".interval_days", 0.0, 3650.0, "days (0: no interval)");
+    row.after_maintenance = r.boolean_or(t + ".after_maintenance", false);
+    if (r.has(t + ".after_failure_of")) row.after_failure_of = check_kinds(r, t + ".after_failure_of");
+    p.due.rules.push_back(std::move(row));
+  }
+  if (p.due.rules.empty())
+    r.error("due",
+            "is missing: give one [due.<check>] table per check (e.g. [due.coastdown] interval_days = 7)");
+  p.required = check_kinds(r, "due.required");
+  for (std::size_t i = 0; i < p.required.size(); ++i)
+    if (!p.due.find(p.required[i]))
+      r.error("due.required[" + std::to_string(i) + "]",
+              std::string("\"") + core::to_string(p.required[i]) + "\" has no [due." +
+                  core::to_string(p.required[i]) + "] row: a required check needs its rule");
 }
 
 core::CheckProfile read_check_profile(TomlReader& r) {
   core::CheckProfile p;
   p.name = r.string("name");
   p.standard = r.string_or("standard", "");
-  constexpr double kDay = 86400.0;
-  p.due.coastdown_interval_s = kDay * r.number("intervals.coastdown_days", 0.0, 3650.0, "days");
-  p.due.readiness_interval_s = kDay * r.number("intervals.readiness_days", 0.0, 3650.0, "days");
-  p.due.inertia_interval_s = kDay * r.number("intervals.inertia_days", 0.0, 3650.0, "days");
-  p.due.parasitic_interval_s = kDay * r.number("intervals.parasitic_days", 0.0, 3650.0, "days");
-  p.required.clear();
-  for (const auto& s : r.choices("intervals.required", {"parasitic", "coastdown", "readiness", "inertia"})) {
-    core::CheckKind k;
-    if (core::parse(s, k)) p.required.push_back(k);
-  }
+  read_due(r, p);
   auto& pa = p.parasitic;
   pa.speeds_kmh = r.numbers("parasitic.speeds_kmh", 5.0, 250.0, "km/h");
   if (pa.speeds_kmh.size() < 4)
@@ -209,12 +256,70 @@ core::CheckProfile read_check_profile(TomlReader& r) {
   };
   p.smallest_inertia_setting = coef("coastdown.smallest_inertia");
   p.largest_inertia_setting = coef("coastdown.largest_inertia");
+
+  // 1066.250 base inertia: both directions at rate pairs.
   auto& in = p.inertia;
+  for (const char* old : {"inertia.tolerance_fraction", "inertia.accel_mph_per_s"})
+    if (r.has(old))
+      r.error(old,
+              "is replaced: the base-inertia check times both directions at rate pairs "
+              "(accel_rates_mph_per_s, decel_rates_mph_per_s, sets_per_rate_pair) with a per-set and a mean "
+              "tolerance (set_tolerance_fraction, mean_tolerance_fraction), CFR 1066.250");
   in.v_low_mph = r.number("inertia.low_mph", 1.0, 100.0, "mph");
   in.v_high_mph = r.number("inertia.high_mph", 2.0, 150.0, "mph");
   if (in.v_high_mph <= in.v_low_mph) r.error("inertia.high_mph", "must be above inertia.low_mph");
-  p.inertia_accel_mph_per_s = r.number("inertia.accel_mph_per_s", 0.1, 10.0, "mph/s");
-  in.tolerance_fraction = r.number("inertia.tolerance_fraction", 0.0, 0.5, "");
+  in.start_mph = r.number_or("inertia.start_mph", in.start_mph, 1.0, 100.0, "mph");
+  if (in.start_mph >= in.v_low_mph) r.error("inertia.start_mph", "must be below inertia.low_mph");
+  in.margin_mph = r.number_or("inertia.margin_mph", in.margin_mph, 0.5, 20.0, "mph");
+  if (in.v_low_mph - in.margin_mph <= 0.0)
+    r.error("inertia.margin_mph", "must leave the run's turn-round speed above 0 (below inertia.low_mph)");
+  in.accel_rates_mph_per_s = r.numbers("inertia.accel_rates_mph_per_s", 0.1, 10.0, "(mph)/s");
+  in.decel_rates_mph_per_s = r.numbers("inertia.decel_rates_mph_per_s", 0.1, 10.0, "(mph)/s");
+  if (in.accel_rates_mph_per_s.size() != in.decel_rates_mph_per_s.size() || in.accel_rates_mph_per_s.empty())
+    r.error("inertia.decel_rates_mph_per_s",
+            "must give one deceleration rate per acceleration rate (the rate pairs), at least one pair");
+  in.sets_per_rate_pair = r.integer_or("inertia.sets_per_rate_pair", in.sets_per_rate_pair, 1, 20);
+  in.set_tolerance_fraction = r.number("inertia.set_tolerance_fraction", 0.0, 0.5, "");
+  in.mean_tolerance_fraction = r.number("inertia.mean_tolerance_fraction", 0.0, 0.5, "");
+
+  // 1066.260 friction compensation.
+  auto& fr = p.friction;
+  fr.speed_mph = r.number_or("friction.speed_mph", fr.speed_mph, 5.0, 100.0, "mph");
+  fr.coast_s = r.number_or("friction.coast_s", fr.coast_s, 5.0, 600.0, "s");
+  fr.above_20000_lb_gvwr = r.boolean_or("friction.above_20000_lb_gvwr", fr.above_20000_lb_gvwr);
+
+  // 1066.265 acceleration and deceleration.
+  auto& ad = p.accel_decel;
+  ad.v_low_mph = r.number_or("accel_decel.low_mph", ad.v_low_mph, 1.0, 100.0, "mph");
+  ad.v_high_mph = r.number_or("accel_decel.high_mph", ad.v_high_mph, 2.0, 150.0, "mph");
+  if (ad.v_high_mph <= ad.v_low_mph) r.error("accel_decel.high_mph", "must be above accel_decel.low_mph");
+  ad.start_mph = r.number_or("accel_decel.start_mph", ad.start_mph, 1.0, 100.0, "mph");
+  if (ad.start_mph >= ad.v_low_mph) r.error("accel_decel.start_mph", "must be below accel_decel.low_mph");
+  ad.margin_mph = r.number_or("accel_decel.margin_mph", ad.margin_mph, 0.5, 20.0, "mph");
+  if (ad.v_low_mph - ad.margin_mph <= 0.0)
+    r.error("accel_decel.margin_mph", "must leave the run's turn-round speed above 0 (below low_mph)");
+  ad.highest_test_rate_mph_per_s = r.number_or("accel_decel.highest_test_rate_mph_per_s",
+                                               ad.highest_test_rate_mph_per_s, 0.1, 20.0, "(mph)/s");
+  ad.runs_per_rate = r.integer_or("accel_decel.runs_per_rate", ad.runs_per_rate, 1, 20);
+  ad.tolerance_fraction = r.number_or("accel_decel.tolerance_fraction", ad.tolerance_fraction, 0.0, 0.5, "");
+  if (r.has("accel_decel.inertias_kg"))
+    ad.inertias_kg = r.numbers("accel_decel.inertias_kg", 100.0, 20000.0, "kg");
+
+  // 1066.245 response time.
+  auto& rs = p.response;
+  if (r.has("response.rates_mph_per_s"))
+    rs.rates_mph_per_s = r.numbers("response.rates_mph_per_s", 0.1, 20.0, "(mph)/s");
+  rs.start_mph = r.number_or("response.start_mph", rs.start_mph, 1.0, 100.0, "mph");
+  rs.window_s = r.number_or("response.window_s", rs.window_s, 0.2, 10.0, "s");
+  rs.limit_s = r.number_or("response.limit_s", rs.limit_s, 0.001, 10.0, "s");
+  rs.band_fraction = r.number_or("response.band_fraction", rs.band_fraction, 0.001, 0.5, "");
+  rs.max_sample_period_s =
+      r.number_or("response.max_sample_period_s", rs.max_sample_period_s, 0.0001, 1.0, "s");
+  rs.sample_rate_hz = r.number_or("response.sample_rate_hz", rs.sample_rate_hz, 10.0, 1000.0, "Hz");
+  if (1.0 / rs.sample_rate_hz > rs.max_sample_period_s + 1e-12)
+    r.error("response.sample_rate_hz", "gives samples " + core::num(1000.0 / rs.sample_rate_hz) +
+                                           " ms apart, more than response.max_sample_period_s allows");
+  if (rs.window_s <= rs.limit_s) r.error("response.window_s", "must be longer than response.limit_s");
   return p;
 }
 

@@ -40,6 +40,8 @@ std::string target_toml(const core::VehicleTarget& v, const std::string& header)
   if (v.rotating_mass_kg) o += "rotating_mass_kg = " + num(*v.rotating_mass_kg) + "\n";
   if (v.mass_in_running_order_kg)
     o += "mass_in_running_order_kg = " + num(*v.mass_in_running_order_kg) + "\n";
+  if (v.mass_in_running_order_estimated)
+    o += "mass_in_running_order_estimated = true   # an estimate accepted explicitly, not a measurement\n";
   o += std::string("drive = \"") + core::to_string(v.drive) + "\"\n";
   if (v.two_wheel_drive_mode) o += "two_wheel_drive_mode = true\n";
   o += "max_speed_kmh = " + num(v.max_speed_kmh) + "\n";
@@ -90,6 +92,9 @@ std::string truth_toml(const physics::Truth& t, const std::string& header) {
   kv("force_noise_n", d.force_noise_n);
   kv("motoring_accel_mps2", d.motoring_accel_mps2);
   kv("stop_decel_mps2", d.stop_decel_mps2);
+  if (d.force_loop_gain != 1.0) kv("force_loop_gain", d.force_loop_gain);
+  if (d.force_loop_time_constant_s != 0.0) kv("force_loop_time_constant_s", d.force_loop_time_constant_s);
+  if (d.force_loop_damping != 1.0) kv("force_loop_damping", d.force_loop_damping);
   return o;
 }
 

@@ -11,6 +11,10 @@ inline constexpr double kKmhPerMph = 1.609344;            // NIST SP 811 App. B,
 inline constexpr double kMpsPerMph = 0.44704;             // NIST SP 811 App. B, exact
 inline constexpr double kStandardGravity_mps2 = 9.80665;  // NIST SP 811, standard acceleration of gravity
 inline constexpr double kNewtonPerLbf = kKgPerLb * kStandardGravity_mps2;  // 4.4482216152605 N, exact
+inline constexpr double kMetrePerFoot = 0.3048;                            // NIST SP 811 App. B, exact
+// The horsepower of 550 ft·lbf/s (NIST SP 811 App. B: 7.456999 E+02 W), from the exact factors above:
+// 745.69987158227022 W.
+inline constexpr double kWattPerHp = 550.0 * kMetrePerFoot * kNewtonPerLbf;
 
 constexpr double kmh_to_mps(double speed_kmh) {
   return speed_kmh / kKmhPerMps;

@@ -41,8 +41,9 @@ Problems plausibility(const VehicleTarget& v) {
   auto warn = [&](std::string key, std::string msg) {
     ps.push_back({Problem::Severity::warning, std::move(key), std::move(msg)});
   };
-  if (!(v.test_mass_kg >= 300.0 && v.test_mass_kg <= 20000.0))
-    err("vehicle.test_mass_kg", "is " + num(v.test_mass_kg) + ", allowed 300 to 20000 kg");
+  if (!(v.test_mass_kg >= kMinTestMass_kg && v.test_mass_kg <= kMaxTestMass_kg))
+    err("vehicle.test_mass_kg", "is " + num(v.test_mass_kg) + ", allowed " + num(kMinTestMass_kg) + " to " +
+                                    num(kMaxTestMass_kg) + " kg");
   if (v.rotating_mass_kg &&
       !(*v.rotating_mass_kg >= 0.0 && *v.rotating_mass_kg <= 0.2 * std::max(v.test_mass_kg, 1.0)))
     err("vehicle.rotating_mass_kg",
@@ -66,7 +67,9 @@ Problems plausibility(const VehicleTarget& v) {
         "is " + num(t.f2_n_per_kmh2) + ", must be positive (allowed 0 to 0.2 N/(km/h)²)");
   else if (t.f2_n_per_kmh2 > 0.2)
     err("target.f2_n_per_kmh2", "is " + num(t.f2_n_per_kmh2) + ", allowed 0 to 0.2 N/(km/h)²");
-  if (!(t.f0_n > 0.0)) err("target.f0_n", "is " + num(t.f0_n) + ", must be positive (allowed 0 to 5000 N)");
+  // F0 may be zero (CFR 86.529-98 Figure F98-9's lightest row has A = 0), never negative.
+  if (!(t.f0_n >= 0.0))
+    err("target.f0_n", "is " + num(t.f0_n) + ", must not be negative (allowed 0 to 5000 N)");
   if (v.test_mass_kg > 0.0 && t.f0_n > 0.0) {
     const double ratio = t.f0_n / (v.test_mass_kg * units::kStandardGravity_mps2);
     if (ratio < 0.004)

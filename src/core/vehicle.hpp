@@ -25,6 +25,10 @@ struct VehicleTarget {
   double test_mass_kg = 0.0;
   std::optional<double> rotating_mass_kg;          // m_r when the file gives it, else
   std::optional<double> mass_in_running_order_kg;  // m_r from this by the profile's rule (EU SA4 §2.5.1)
+  // The mass in running order is an estimate the operator accepted explicitly (`loadtrim target
+  // --estimate-mass-in-running-order`), not a measurement; target key
+  // vehicle.mass_in_running_order_estimated.
+  bool mass_in_running_order_estimated = false;
   Drive drive = Drive::front;
   // The vehicle is run in an approved two-wheel-drive (coastdown) mode, on the road and the dyno alike
   // (EU 2018/1832 amending Sub-Annex 4 §4.2.1.8.5): lets an all-wheel-drive vehicle run on a single-axle
@@ -38,6 +42,12 @@ struct VehicleTarget {
   std::string profile;  // name of the standard profile to follow
   std::optional<RoadLoad> initial_set;
 };
+
+// The test masses the tool accepts: from below the lightest motorcycle of CFR 86.529-98 Figure F98-9 (100 kg
+// equivalent inertia, docs/standards.md §6.1) to a heavy truck. The floor's value is common practice, no
+// source; the vehicle's profile sets the rest (its mass rule, inertia and bands).
+inline constexpr double kMinTestMass_kg = 50.0;
+inline constexpr double kMaxTestMass_kg = 20000.0;
 
 // m_r: as given, else from the mass in running order by the rule.
 double resolved_rotating_mass_kg(const VehicleTarget& v, const MassRule& rule);

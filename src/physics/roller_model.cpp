@@ -36,6 +36,48 @@ RollerModel::RollerModel(const Truth& truth)
       curvature_(roller_curvature_factor(truth.vehicle.tyre_radius_m, 0.5 * truth.dyno.roller_diameter_m)),
       rng_(truth.noise_seed) {}
 
+void RollerModel::apply_force(double force_n) {
+  if (mode_ != Mode::constant_force) {  // the motor's force starts from nothing (no load at a steady hold)
+    force_applied_n_ = 0.0;
+    force_rate_n_per_s_ = 0.0;
+  }
+  force_cmd_n_ = force_n;
+  mode_ = Mode::constant_force;
+  if (!(truth_.dyno.force_loop_time_constant_s > 0.0))
+    force_applied_n_ = truth_.dyno.force_loop_gain * force_cmd_n_;
+}
+
+void RollerModel::advance_force_loop(double h) {
+  const auto& d = truth_.dyno;
+  const double demand = d.force_loop_gain * force_cmd_n_;
+  if (!(d.force_loop_time_constant_s > 0.0)) {
+    force_applied_n_ = demand;
+    return;
+  }
+  // F'' = ω²·(demand − F) − 2ζω·F', ω = 1/τ, by RK4 in steps of at most τ/20 (its error far below the noise).
+  const double w = 1.0 / d.force_loop_time_constant_s, z = d.force_loop_damping;
+  const int n = std::max(1, static_cast<int>(std::ceil(h * w * 20.0)));
+  const double dt = h / n;
+  auto rate = [&](double f, double r) { return w * w * (demand - f) - 2.0 * z * w * r; };
+  for (int i = 0; i < n; ++i) {
+    const double f0 = force_applied_n_, r0 = force_rate_n_per_s_;
+    const double kf1 = r0, kr1 = rate(f0, r0);
+    const double kf2 = r0 + 0.5 * dt * kr1, kr2 = rate(f0 + 0.5 * dt * kf1, kf2);
+    const double kf3 = r0 + 0.5 * dt * kr2, kr3 = rate(f0 + 0.5 * dt * kf2, kf3);
+    const double kf4 = r0 + dt * kr3, kr4 = rate(f0 + dt * kf3, kf4);
+    force_applied_n_ = f0 + dt / 6.0 * (kf1 + 2.0 * kf2 + 2.0 * kf3 + kf4);
+    force_rate_n_per_s_ = r0 + dt / 6.0 * (kr1 + 2.0 * kr2 + 2.0 * kr3 + kr4);
+  }
+}
+
+double RollerModel::road_load_mass_kg() const {
+  const auto& d = truth_.dyno;
+  if (d.force_loop_gain == 1.0) return coasting_mass_kg();
+  return d.base_inertia_kg + rotating_mass_kg() +
+         d.force_loop_gain *
+             (inertia_set_kg_ * (1.0 + d.inertia_simulation_error) - stated_base_inertia_kg());
+}
+
 void RollerModel::hold_speed(double speed_kmh) {
   hold_kmh_ = std::max(0.0, speed_kmh);
   mode_ = Mode::speed_hold;
@@ -85,13 +127,17 @@ double RollerModel::road_load_force_n(double v) const {
 
 double RollerModel::acceleration_mps2(double v_mps) const {
   const double v = v_mps * kKmhPerMps;
-  if (mode_ == Mode::road_load) return -road_load_force_n(v) / coasting_mass_kg();
   const auto& d = truth_.dyno;
+  if (mode_ == Mode::road_load) {
+    if (d.force_loop_gain == 1.0) return -road_load_force_n(v) / coasting_mass_kg();
+    return -(d.force_loop_gain * set_.force_n(v) + vehicle_loss_n(v) + parasitic_residual_n(v)) /
+           road_load_mass_kg();
+  }
   const double physical_mass = d.base_inertia_kg + rotating_mass_kg();
   if (mode_ == Mode::constant_force) {
     // The motor's force against the vehicle's losses and the residual parasitic loss (compensation on).
-    if (v <= 0.0 && force_cmd_n_ <= 0.0) return 0.0;
-    return (force_cmd_n_ - vehicle_loss_n(v) - parasitic_residual_n(v)) / physical_mass;
+    if (v <= 0.0 && force_applied_n_ <= 0.0) return 0.0;
+    return (force_applied_n_ - vehicle_loss_n(v) - parasitic_residual_n(v)) / physical_mass;
   }
   // Idle: motor off, the rollers freewheel on their own inertia against the vehicle's and their own losses.
   return -(vehicle_loss_n(v) + parasitic_true_n(v)) / physical_mass;
@@ -119,7 +165,8 @@ void RollerModel::advance(double dt_s, double max_step_s) {
       case Mode::constant_force:
       case Mode::road_load:
       case Mode::idle: {
-        if (v0 <= 0.0 && !(mode_ == Mode::constant_force && force_cmd_n_ > 0.0)) {
+        if (mode_ == Mode::constant_force) advance_force_loop(h);
+        if (v0 <= 0.0 && !(mode_ == Mode::constant_force && force_applied_n_ > 0.0)) {
           speed_mps_ = 0.0;
           break;
         }
@@ -153,9 +200,10 @@ double RollerModel::load_cell_n() const {
              (truth_.dyno.base_inertia_kg + rotating_mass_kg()) * accel_mps2_;
     case Mode::road_load:
       // The set load plus the electrically simulated part of the inertia.
-      return set_.force_n(v) - (coasting_mass_kg() - truth_.dyno.base_inertia_kg) * accel_mps2_;
+      return truth_.dyno.force_loop_gain * set_.force_n(v) -
+             (road_load_mass_kg() - truth_.dyno.base_inertia_kg) * accel_mps2_;
     case Mode::constant_force:
-      return force_cmd_n_;  // the force the motor applies, as its load cell reads it
+      return force_applied_n_;  // the force the motor applies, as its load cell reads it
     case Mode::idle:
       return 0.0;
   }

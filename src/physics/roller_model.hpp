@@ -10,6 +10,9 @@
 //   P_res(v)  dyno parasitic loss left after the controller's compensation: ε_P × P(v)
 //   speed hold: the dyno drives the rollers to the set speed; the load cell reads L + P_res + bias + inertial
 //   force
+//   force loop (DynoTruth::force_loop_*): with a gain k ≠ 1 road-load simulation turns
+//   base + m_rot + k·(I_sim·(1+ε_I) − stated base) against k·F_set(v) + L + P_res; constant force applies the
+//   demand through a second-order lag
 // The curvature factor form is from memory (docs/standards.md §5); the rest is a plain lumped-mass model.
 #pragma once
 
@@ -56,6 +59,14 @@ struct DynoTruth {
   double force_noise_n = 2.0;        // load-cell noise, standard deviation
   double motoring_accel_mps2 = 1.5;  // speed-hold ramp rate
   double stop_decel_mps2 = 2.0;      // controlled-stop deceleration
+  // The motor's force loop, in every torque-controlled mode (road-load simulation, constant force). Planted
+  // faults for the dyno's own checks (docs/dyno-checks.md): a gain off 1 (the motor applies gain × the force
+  // it is asked for: a mis-calibrated torque loop) fails the acceleration/deceleration check; a time constant
+  // (a second-order lag, 0 = the force follows its demand at once) and a damping below 1 (it overshoots) fail
+  // the response-time check. The lag is modelled in constant force only; the gain in both modes.
+  double force_loop_gain = 1.0;
+  double force_loop_time_constant_s = 0.0;
+  double force_loop_damping = 1.0;
 };
 
 struct Truth {
@@ -91,10 +102,7 @@ class RollerModel {
   void release_road_load() { mode_ = Mode::road_load; }
   void controlled_stop() { mode_ = Mode::controlled_stop; }
   void idle() { mode_ = Mode::idle; }
-  void apply_force(double force_n) {
-    force_cmd_n_ = force_n;
-    mode_ = Mode::constant_force;
-  }
+  void apply_force(double force_n);
 
   // Advance simulated time by dt_s with fixed RK4 steps no longer than max_step_s.
   void advance(double dt_s, double max_step_s = 0.001);
@@ -124,7 +132,9 @@ class RollerModel {
   double road_load_force_n(double speed_kmh) const;
 
  private:
-  double acceleration_mps2(double v_mps) const;  // in road_load or idle
+  double acceleration_mps2(double v_mps) const;  // in road_load, constant_force or idle
+  double road_load_mass_kg() const;   // the mass road-load simulation turns (the force loop's gain)
+  void advance_force_loop(double h);  // the applied force towards its demand, over h seconds
   double load_cell_n() const;
   Truth truth_;
   core::RoadLoad set_;
@@ -135,6 +145,8 @@ class RollerModel {
   double warmth_;
   double hold_kmh_ = 0.0;
   double force_cmd_n_ = 0.0;
+  double force_applied_n_ = 0.0;  // what the motor applies in constant force (the load cell reads it)
+  double force_rate_n_per_s_ = 0.0;
   Mode mode_ = Mode::idle;
   double curvature_;
   std::mt19937_64 rng_;

@@ -171,9 +171,22 @@ bool Console::on_event(const Event& e) {
           [&](const ev::UnloadedCoastdownAnalysed& x) {
             std::fprintf(out_, "  coast-down %d: %s\n", x.run, x.result.verdict.c_str());
           },
+          [&](const ev::RateRunStarted& x) {
+            std::fprintf(out_, "  %s %d at %.0f kg, %.1f (mph)/s nominal, from %.1f km/h\n",
+                         x.rising ? "acceleration" : "deceleration", x.run, x.inertia_kg, x.rate_mph_per_s,
+                         x.from_kmh);
+          },
           [&](const ev::InertiaAnalysed& x) {
-            std::fprintf(out_, "  base inertia: %s\n",
-                         x.result.ok ? x.result.verdict.c_str() : x.result.message.c_str());
+            std::fprintf(out_, "  base inertia: %s\n", x.result.verdict.c_str());
+          },
+          [&](const ev::FrictionAnalysed& x) {
+            std::fprintf(out_, "  friction compensation: %s\n", x.result.verdict.c_str());
+          },
+          [&](const ev::AccelDecelAnalysed& x) {
+            std::fprintf(out_, "  acceleration/deceleration: %s\n", x.result.verdict.c_str());
+          },
+          [&](const ev::ResponseAnalysed& x) {
+            std::fprintf(out_, "  response time: %s\n", x.result.verdict.c_str());
           },
           [&](const auto&) {},  // the rest is in the record and the operator log
       },

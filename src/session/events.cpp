@@ -324,6 +324,14 @@ struct Mapper {
     return {
         {"force_n", e.force_n}, {"stated_base_inertia_kg", e.stated_base_inertia_kg}, {"simulation", "off"}};
   }
+  nlohmann::json operator()(const ev::RateRunStarted& e) const {
+    return {{"inertia_kg", e.inertia_kg},
+            {"rate_mph_per_s", e.rate_mph_per_s},
+            {"run", e.run},
+            {"direction", e.rising ? "acceleration" : "deceleration"},
+            {"set", to_json(e.set)},
+            {"from_kmh", e.from_kmh}};
+  }
   nlohmann::json operator()(const ev::ParasiticAnalysed& e) const {
     const auto& d = e.determination;
     nlohmann::json bands = nlohmann::json::array();
@@ -377,18 +385,101 @@ struct Mapper {
   }
   nlohmann::json operator()(const ev::InertiaAnalysed& e) const {
     const auto& r = e.result;
-    return {{"force_n", e.force_n},
-            {"t_low_s", r.t_low_s},
-            {"t_high_s", r.t_high_s},
-            {"delta_t_s", r.delta_t_s},
-            {"delta_v_mps", r.delta_v_mps},
-            {"mean_force_n", r.mean_force_n},
-            {"inertia_kg", r.inertia_kg},
-            {"stated_kg", e.stated_kg},
-            {"error_fraction", r.error_fraction},
-            {"tolerance_fraction", e.tolerance_fraction},
-            {"passed", e.passed},
+    auto run = [](const core::ConstantForceRun& x) {
+      return nlohmann::json{{"ok", x.ok},
+                            {"message", x.message},
+                            {"t_low_s", x.t_low_s},
+                            {"t_high_s", x.t_high_s},
+                            {"delta_t_s", x.delta_t_s},
+                            {"delta_v_mps", x.delta_v_mps},
+                            {"mean_force_n", x.mean_force_n},
+                            {"accel_mps2", x.accel_mps2},
+                            {"apparent_inertia_kg", x.apparent_inertia_kg}};
+    };
+    nlohmann::json sets = nlohmann::json::array();
+    for (const auto& s : r.sets)
+      sets.push_back({{"rate_pair", s.rate_pair},
+                      {"set", s.set},
+                      {"accel_rate_mph_per_s", s.accel_rate_mph_per_s},
+                      {"decel_rate_mph_per_s", s.decel_rate_mph_per_s},
+                      {"ok", s.ok},
+                      {"inertia_kg", s.inertia_kg},
+                      {"error_fraction", s.error_fraction},
+                      {"passed", s.passed},
+                      {"accel", run(s.accel)},
+                      {"decel", run(s.decel)}});
+    return {{"stated_kg", r.stated_kg},
+            {"sets", sets},
+            {"mean_kg", r.mean_kg},
+            {"mean_error_fraction", r.mean_error_fraction},
+            {"worst_set_error_fraction", r.worst_set_error_fraction},
+            {"sets_outside", r.sets_outside},
+            {"set_tolerance_fraction", r.set_tolerance_fraction},
+            {"mean_tolerance_fraction", r.mean_tolerance_fraction},
+            {"complete", r.complete},
+            {"passed", r.passed},
+            {"verdict", r.verdict},
+            {"files", e.files}};
+  }
+  nlohmann::json operator()(const ev::FrictionAnalysed& e) const {
+    const auto& r = e.result;
+    return {{"speed_mph", e.speed_mph},
+            {"base_inertia_kg", r.base_inertia_kg},
+            {"ok", r.ok},
+            {"message", r.message},
+            {"duration_s", r.duration_s},
+            {"v_start_mph", r.v_start_mph},
+            {"v_end_mph", r.v_end_mph},
+            {"power_w", r.power_w},
+            {"power_hp", r.power_hp},
+            {"force_n", r.force_n},
+            {"tolerance_hp", r.tolerance_hp},
+            {"passed", r.passed},
+            {"verdict", r.verdict},
             {"files", nlohmann::json::array({e.file})}};
+  }
+  nlohmann::json operator()(const ev::AccelDecelAnalysed& e) const {
+    const auto& r = e.result;
+    nlohmann::json runs = nlohmann::json::array();
+    for (const auto& x : r.runs)
+      runs.push_back({{"inertia_kg", x.inertia_kg},
+                      {"nominal_mph_per_s", x.nominal_mph_per_s},
+                      {"run", x.run},
+                      {"direction", x.rising ? "acceleration" : "deceleration"},
+                      {"ok", x.ok},
+                      {"message", x.message},
+                      {"t_low_s", x.t_low_s},
+                      {"t_high_s", x.t_high_s},
+                      {"delta_t_s", x.delta_t_s},
+                      {"measured_mph_per_s", x.measured_mph_per_s},
+                      {"error_fraction", x.error_fraction},
+                      {"passed", x.passed}});
+    return {{"runs", runs},
+            {"tolerance_fraction", r.tolerance_fraction},
+            {"worst_error_fraction", r.worst_error_fraction},
+            {"runs_outside", r.runs_outside},
+            {"complete", r.complete},
+            {"not_run", r.not_run},
+            {"passed", r.passed},
+            {"verdict", r.verdict},
+            {"files", e.files}};
+  }
+  nlohmann::json operator()(const ev::ResponseAnalysed& e) const {
+    const auto& r = e.result;
+    nlohmann::json steps = nlohmann::json::array();
+    for (const auto& x : r.steps)
+      steps.push_back({{"rate_mph_per_s", x.rate_mph_per_s},
+                       {"force_n", x.force_n},
+                       {"ok", x.ok},
+                       {"message", x.message},
+                       {"t_before_s", x.t_before_s},
+                       {"final_n", x.final_n},
+                       {"settling_s", x.settling_s},
+                       {"overshoot_fraction", x.overshoot_fraction},
+                       {"max_sample_period_s", x.max_sample_period_s},
+                       {"passed", x.passed}});
+    return {{"steps", steps},     {"limit_s", e.limit_s}, {"band_fraction", e.band_fraction},
+            {"passed", r.passed}, {"verdict", r.verdict}, {"files", e.files}};
   }
   nlohmann::json operator()(const ev::CheckFinished& e) const {
     return {{"check", e.check},
@@ -445,7 +536,11 @@ struct Typer {
   const char* operator()(const ev::ForceApplied&) const { return "force_applied"; }
   const char* operator()(const ev::ParasiticAnalysed&) const { return "analysed"; }
   const char* operator()(const ev::UnloadedCoastdownAnalysed&) const { return "analysed"; }
+  const char* operator()(const ev::RateRunStarted&) const { return "rate_run_started"; }
   const char* operator()(const ev::InertiaAnalysed&) const { return "analysed"; }
+  const char* operator()(const ev::FrictionAnalysed&) const { return "analysed"; }
+  const char* operator()(const ev::AccelDecelAnalysed&) const { return "analysed"; }
+  const char* operator()(const ev::ResponseAnalysed&) const { return "analysed"; }
   const char* operator()(const ev::CheckFinished&) const { return "check_finished"; }
 };
 

@@ -344,8 +344,15 @@ struct CheckCoastStarted {  // "coast_started" (unloaded coast-down at a set ine
   core::RoadLoad set;
   double from_kmh = 0.0;
 };
-struct ForceApplied {  // "force_applied" (base-inertia check: simulation off)
+struct ForceApplied {  // "force_applied" (base-inertia and response checks: simulation off)
   double force_n = 0.0, stated_base_inertia_kg = 0.0;
+};
+struct RateRunStarted {  // "rate_run_started" (acceleration/deceleration check: road-load simulation)
+  double inertia_kg = 0.0, rate_mph_per_s = 0.0;
+  int run = 0;
+  bool rising = true;
+  core::RoadLoad set;
+  double from_kmh = 0.0;
 };
 // The "analysed" records; the same JSON is the check's part of result.json.
 struct ParasiticAnalysed {
@@ -361,12 +368,23 @@ struct UnloadedCoastdownAnalysed {
   core::UnloadedCoastdown result;
   nlohmann::json file;
 };
-struct InertiaAnalysed {
-  double force_n = 0.0;
-  core::InertiaCheck result;
-  double stated_kg = 0.0, tolerance_fraction = 0.0;
-  bool passed = false;  // computed and within tolerance
+struct InertiaAnalysed {  // the base-inertia check: every set, both directions, and the mean
+  core::BaseInertiaCheck result;
+  nlohmann::json files;  // the traces' entries (path, sha256, samples), two per set
+};
+struct FrictionAnalysed {
+  core::FrictionCheck result;
+  double speed_mph = 0.0;
   nlohmann::json file;
+};
+struct AccelDecelAnalysed {
+  core::AccelDecelCheck result;
+  nlohmann::json files;  // one per run
+};
+struct ResponseAnalysed {
+  core::ResponseCheck result;
+  double limit_s = 0.0, band_fraction = 0.0;
+  nlohmann::json files;  // one per step
 };
 struct CheckFinished {  // "check_finished"
   std::string check, end;
@@ -385,8 +403,9 @@ using Payload = std::variant<
     ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect,
     ev::NotSettled, ev::FaultCleared, ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Resumed,
     ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted,
-    ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied, ev::ParasiticAnalysed,
-    ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::CheckFinished>;
+    ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied, ev::RateRunStarted,
+    ev::ParasiticAnalysed, ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::FrictionAnalysed,
+    ev::AccelDecelAnalysed, ev::ResponseAnalysed, ev::CheckFinished>;
 
 // The record type an event is written as (the "type" member of its line).
 const char* type_of(const Payload& p);

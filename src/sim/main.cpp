@@ -77,6 +77,23 @@ int main(int argc, char** argv) {
       ->check(CLI::Range(0.0, 1e15));
   f->add_flag("--modbus-coefficients-not-applied", mb_opt.coefficients_not_applied,
               "Modbus: acknowledge every coefficient setting after the first without applying it");
+  // Faults of the dyno's own checks (docs/dyno-checks.md): each overrides the truth's [dyno] key of its name.
+  double loop_gain = -1, loop_tau = -1, loop_damping = -1, friction_error = -2;
+  f->add_option("--force-loop-gain", loop_gain,
+                "the motor applies this × the force asked (dyno.force_loop_gain; fails 1066.265)")
+      ->check(CLI::Range(0.5, 1.5));
+  f->add_option(
+       "--force-loop-time-constant-s", loop_tau,
+       "the constant force follows its demand with this second-order lag (dyno.force_loop_time_constant_s; "
+       "fails 1066.245)")
+      ->check(CLI::Range(0.0, 2.0));
+  f->add_option("--force-loop-damping", loop_damping,
+                "the force loop's damping, below 1 it overshoots (dyno.force_loop_damping)")
+      ->check(CLI::Range(0.05, 5.0));
+  f->add_option("--friction-compensation-error", friction_error,
+                "the share of the parasitic loss the compensation misses (dyno.parasitic_compensation_error; "
+                "fails 1066.260)")
+      ->check(CLI::Range(-1.0, 1.0));
   CLI11_PARSE(app, argc, argv);
   physics::Truth truth;
   try {
@@ -88,6 +105,10 @@ int main(int argc, char** argv) {
     return 2;
   }
   if (warmth >= 0.0) truth.vehicle.initial_warmth = warmth;
+  if (loop_gain > 0.0) truth.dyno.force_loop_gain = loop_gain;
+  if (loop_tau >= 0.0) truth.dyno.force_loop_time_constant_s = loop_tau;
+  if (loop_damping > 0.0) truth.dyno.force_loop_damping = loop_damping;
+  if (friction_error >= -1.0) truth.dyno.parasitic_compensation_error = friction_error;
   if (empty) truth.vehicle_on_rollers = false;
   s.watchdog_s = watchdog_ms / 1000.0;
   s.time_scale = srv.time_scale;

@@ -4,7 +4,7 @@ execute_process(COMMAND ${EXE} demo --target ${DATA}/bad-target.toml --truth ${S
 if(NOT rc EQUAL 2)
   message(FATAL_ERROR "expected exit code 2, got ${rc}\n${out}\n${err}")
 endif()
-foreach(needle "bad-target.toml: error: vehicle.test_mass_kg (line 5): is -1500, allowed 300 to 20000 kg"
+foreach(needle "bad-target.toml: error: vehicle.test_mass_kg (line 5): is -1500, allowed 50 to 20000 kg"
                "target.f2_n_per_kmh2 (line 12): is -0.03, must be positive" "refused: nothing was started")
   string(FIND "${err}" "${needle}" pos)
   if(pos EQUAL -1)

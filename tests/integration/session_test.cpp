@@ -374,7 +374,7 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
       {dir + "/cell.toml", variant("units.toml", "f2_n_per_kmh2 = 0.03300", "f2_n_per_kmh2 = 0.428"),
        "units.toml: error: target.f2_n_per_kmh2 (line 16): is 0.428, allowed 0 to 0.2 N/(km/h)²"},
       {dir + "/cell.toml", variant("missing.toml", "test_mass_kg = 1470.0\n", ""),
-       "missing.toml: error: vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"},
+       "missing.toml: error: vehicle.test_mass_kg: is missing, allowed 50 to 20000 kg"},
       // A 50 km/h vehicle keeps only 20 and 30 km/h (40 + 14 ≥ 50; GTR 15 §2.2 from memory,
       // docs/standards.md §2.1): too few points for f0, f1, f2.
       {dir + "/cell.toml", variant("slowcar.toml", "max_speed_kmh = 185.0", "max_speed_kmh = 50.0"),

@@ -81,8 +81,8 @@ TEST(Config, BadTargetsAreRefusedWithKeyAndRange) {
   };
   const Case cases[] = {
       {with("test_mass_kg = 1500.0", "test_mass_kg = -5.0"),
-       "vehicle.test_mass_kg (line 4): is -5, allowed 300 to 20000 kg"},
-      {with("test_mass_kg = 1500.0\n", ""), "vehicle.test_mass_kg: is missing, allowed 300 to 20000 kg"},
+       "vehicle.test_mass_kg (line 4): is -5, allowed 50 to 20000 kg"},
+      {with("test_mass_kg = 1500.0\n", ""), "vehicle.test_mass_kg: is missing, allowed 50 to 20000 kg"},
       {with("test_mass_kg = 1500.0", "test_mass_kg = \"heavy\""),
        "vehicle.test_mass_kg (line 4): must be a number"},
       {with("f2_n_per_kmh2 = 0.03", "f2_n_per_kmh2 = -0.03"),

@@ -132,15 +132,32 @@ std::string event_name(const Payload& p) {
                                       "FreeCoastStarted",
                                       "CheckCoastStarted",
                                       "ForceApplied",
+                                      "RateRunStarted",
                                       "ParasiticAnalysed",
                                       "UnloadedCoastdownAnalysed",
                                       "InertiaAnalysed",
+                                      "FrictionAnalysed",
+                                      "AccelDecelAnalysed",
+                                      "ResponseAnalysed",
                                       "CheckFinished"};
   static_assert(std::size(names) == std::variant_size_v<Payload>, "a name per event");
   return names[p.index()];
 }
 
 const core::RoadLoad kSet{120.5, 0.25, 0.031};
+
+// One base-inertia set (both directions) and its summary.
+core::BaseInertiaCheck inertia_check() {
+  core::ConstantForceRun up, down;
+  up.ok = down.ok = true;
+  up.mean_force_n = 558.8;
+  up.accel_mps2 = 0.44704;
+  down.mean_force_n = -558.8;
+  down.accel_mps2 = -0.44704;
+  core::InertiaSet s = core::analyse_inertia_set(up, down, 1250.0);
+  s.rate_pair = s.set = 1;
+  return core::summarise_base_inertia({s}, 1250.0);
+}
 
 CoastdownRecord usable_run() {
   CoastdownRecord r;
@@ -264,11 +281,19 @@ std::vector<Payload> every_event() {
       ev::FreeCoastStarted{130.0},
       ev::CheckCoastStarted{1, 900.0, kSet, 135.0},
       ev::ForceApplied{490.0, 1100.0},
+      ev::RateRunStarted{800.0, 2.0, 1, true, core::RoadLoad{-715.264, 0.0, 0.0}, 8.04672},
       ev::ParasiticAnalysed{
           1100.0, pd, core::RoadLoad{22.0, 0.12, 0.0009}, {{"path", "traces/free-coast.csv"}}},
       ev::UnloadedCoastdownAnalysed{1, 900.0, kSet, uc, {{"path", "traces/coastdown-1.csv"}}},
-      ev::InertiaAnalysed{
-          490.0, core::InertiaCheck{}, 1100.0, 0.01, false, {{"path", "traces/constant-force.csv"}}},
+      ev::InertiaAnalysed{inertia_check(),
+                          nlohmann::json::array({{{"path", "traces/inertia-pair1-set1-accel.csv"}},
+                                                 {{"path", "traces/inertia-pair1-set1-decel.csv"}}})},
+      ev::FrictionAnalysed{core::FrictionCheck{}, 50.0, {{"path", "traces/friction-coast.csv"}}},
+      ev::AccelDecelAnalysed{
+          core::summarise_accel_decel({core::RateRun{}}),
+          nlohmann::json::array({{{"path", "traces/accel-decel-800kg-1mphps-run1-accel.csv"}}})},
+      ev::ResponseAnalysed{core::summarise_response({core::ResponseStep{}}), 0.1, 0.1,
+                           nlohmann::json::array({{{"path", "traces/response-step-1.csv"}}})},
       ev::CheckFinished{"parasitic", "passed", true, "ok", {{"path", "result.json"}}},
   };
 }
@@ -454,7 +479,7 @@ TEST(Events, TheDynoChecksShowTheirStepsToObservers) {
   req.kind = core::CheckKind::inertia;
   req.cell_file = kSrc + "/config/cells/sim-tcp.toml";
   req.cell = config::load_cell(req.cell_file, adapters::production().sections());
-  req.profile_file = kSrc + "/config/checks/cfr1066.toml";
+  req.profile_file = kSrc + "/tests/data/checks-short.toml";  // one set at each of the three rate pairs
   req.profile = config::load_check_profile(req.profile_file);
   req.checks_root = dir;
   req.confirmation = "unit test: no rollers";
@@ -463,8 +488,10 @@ TEST(Events, TheDynoChecksShowTheirStepsToObservers) {
   const checks::CheckResult r = checks::run_check(c, req);
   EXPECT_TRUE(r.end == checks::CheckResult::End::passed || r.end == checks::CheckResult::End::failed)
       << checks::to_string(r.end) << ": " << r.verdict;
-  const std::vector<std::string> want = {"check_started", "identified", "force_applied", "analysed",
-                                         "check_finished"};
+  // Both directions of each of the three sets: six forces applied.
+  std::vector<std::string> want = {"check_started", "identified"};
+  want.insert(want.end(), 6, "force_applied");
+  want.insert(want.end(), {"analysed", "check_finished"});
   EXPECT_EQ(view.types, want);
   EXPECT_EQ(says_no.types, std::vector<std::string>({"check_started", "identified"}));
   std::vector<nlohmann::json> recs;
