@@ -1,6 +1,8 @@
 // A cell's own history, for the dyno checks and the sessions that depend on them:
 //   <checks root>/<cell>/cell-log.jsonl   hash-chained, fsync'd, append-only (record/event_log.hpp). Records:
-//     "check"            {kind, passed, verdict, folder}      one per finished check
+//     "check"            {kind, passed, verdict, folder}      one per finished check; or
+//                        {kind, passed, verdict, logged: true, operator}   one per check performed outside
+//                        loadtrim (speed, linearity) and logged with `loadtrim check record`
 //     "parasitic_curve"  {f0_n, f1_n_per_kmh, f2_n_per_kmh2, folder}   the cell's stored curve, latest wins
 //     "maintenance"      {note}                                major maintenance (makes checks due again)
 //     "seal"             {kind, folder, origin, chain_head, seal, seal_seq, signer}   one per sealed session
