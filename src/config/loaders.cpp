@@ -31,6 +31,10 @@ core::Profile read_profile(TomlReader& r) {
   }
   p.tolerance_n = r.number("acceptance.tolerance_n", 0.1, 1000.0, "N");
   p.consecutive_passes = r.integer_or("acceptance.consecutive_passes", 2, 1, 10);
+  // docs/standards.md §3.11: the standard's simple acceptance by default; a guard band only as lab policy.
+  if (r.choice("acceptance.decision_rule", {"simple", "guard-band"}, std::string("simple")) == "guard-band")
+    p.decision_rule.kind = core::DecisionRule::Kind::guard_band;
+  p.decision_rule.coverage_k = r.number_or("acceptance.guard_band_k", 2.0, 1.0, 3.0, "");
   p.estimator_disagreement_n = r.number_or("acceptance.estimator_disagreement_n", 5.0, 0.0, 1000.0, "N");
   p.fixed_runs = r.integer_or("method.fixed_runs", 4, 2, 10);
   p.fixed_run_verification_runs = r.integer_or("method.fixed_run_verification_runs", 1, 0, 5);

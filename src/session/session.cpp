@@ -19,6 +19,15 @@ using core::num;
 namespace {
 constexpr int kInterruptedCode = motion::kInterrupted;
 constexpr int kTooSlowCode = motion::kTooSlow;
+// The progress line's estimate only (it moves nothing): a coast-down whose time cannot be predicted counts as
+// 5 min, each run adds a minute of run-up, and before the inertia is known a mid-size car's 1500 kg stands in
+// (common practice, no source).
+constexpr double kUnpredictedCoastS = 300.0;
+constexpr double kRunUpEstimateS = 60.0;
+constexpr double kEstimateMassKg = 1500.0;
+// A coast-down with no predicted time gets this much controller time at least, and never less than three
+// times the predicted time (common practice, no source): longer means too little retarding force.
+constexpr double kMinCoastBudgetS = 300.0;
 }  // namespace
 
 Session::Session(Inputs inputs, Options options, controller::Controller& controller,
@@ -100,9 +109,10 @@ void Session::progress(double speed_kmh, double band_kmh) {
   int runs_left = pr.method == core::SettingMethod::iterative
                       ? std::max(1, pr.consecutive_passes - (method_ ? method_->consecutive_passes() : 0))
                       : std::max(1, pr.fixed_runs + pr.fixed_run_verification_runs - coastdowns_);
-  const auto coast = core::coastdown_time_s(in_.vehicle.target, force_mass_kg_ > 0 ? force_mass_kg_ : 1500.0,
-                                            pr.start_speed_kmh(), std::max(1.0, pr.end_speed_kmh()));
-  const double per_run = coast.value_or(300.0) + 60.0;
+  const auto coast =
+      core::coastdown_time_s(in_.vehicle.target, force_mass_kg_ > 0 ? force_mass_kg_ : kEstimateMassKg,
+                             pr.start_speed_kmh(), std::max(1.0, pr.end_speed_kmh()));
+  const double per_run = coast.value_or(kUnpredictedCoastS) + kRunUpEstimateS;
   p.remaining_estimate_s = runs_left * per_run;
   if (state_ == State::warm_up && t_motoring_from_ >= 0.0)
     p.remaining_estimate_s += std::max(0.0, pr.warm_up.duration_s - (t_now_ - t_motoring_from_));
@@ -122,8 +132,8 @@ void Session::transition(State to, const std::string& why) {
 
 Result Session::hold_and_wait(double speed_kmh, const char* what) {
   motion_commanded_ = true;
-  // At the setpoint, then 2 s more to settle; 600 s of controller time at most.
-  return motion_.hold(speed_kmh, 2.0, what, 600.0);
+  // At the setpoint, then 2 s more to settle; the default step budget of controller time at most.
+  return motion_.hold(speed_kmh, 2.0, what, motion::kDefaultStepBudgetS);
 }
 
 std::optional<Session::Stop> Session::fault(const Result& r, const std::string& during) {
@@ -388,8 +398,9 @@ std::optional<Session::Stop> Session::do_run(int run) {
   // A coast that takes three times the target's predicted time (or 5 min, whichever is longer) means the set
   // load plus the vehicle's loss leaves too little retarding force: the dyno is nearly driving the car.
   const double predicted =
-      core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end).value_or(300.0);
-  const double budget = std::max(300.0, 3.0 * predicted);
+      core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end)
+          .value_or(kMinCoastBudgetS);
+  const double budget = std::max(kMinCoastBudgetS, 3.0 * predicted);
   // Only road-load samples read after the release was acknowledged are this coast's.
   Result r = motion_.collect(
       step("coast-down", budget, {Mode::road_load}),

@@ -407,6 +407,44 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
   fs::remove_all(dir);
 }
 
+TEST(SessionCli, AVehicleSlowerThanTheWarmUpIsRefusedAlikeByTargetAndRun) {
+  // The shipped wltp-iterative profile warms up at 80 km/h (docs/standards.md §3); a vehicle whose maximum is
+  // 70 km/h cannot be driven there. `run` refuses it before connecting (core::check_combination); `target`,
+  // which prepares the file, must refuse it with the same sentence (the profile's key, the figure, the cause)
+  // rather than accept what run then refuses. By hand: 80 > 70; the session's speed limit is min(cell 160,
+  // vehicle 70) = 70 km/h. Nothing listens on the cell's port: a tool that tried to connect would exit 3.
+  const std::string dir = temp_dir("slowwarm");
+  write(dir + "/cell.toml", cell_text(9, "single-axle", 100.0));
+  std::string t;
+  {
+    std::ifstream in(kSrc + "/samples/targets/demo-hatchback.toml");
+    t.assign(std::istreambuf_iterator<char>(in), {});
+  }
+  t.replace(t.find("max_speed_kmh = 185.0"), 21, "max_speed_kmh = 70.0");
+  write(dir + "/t70.toml", t);
+  const std::string must =
+      "warm_up.speed_kmh: is 80 km/h, above the vehicle's vehicle.max_speed_kmh (70 km/h): "
+      "allowed up to 70 km/h";
+  std::string out, err;
+  EXPECT_EQ(
+      run_command({kExe, "target", "--metric", "142", "0.35", "0.033", "--id", "slow-70", "--test-mass-kg",
+                   "1470", "--mass-in-running-order-kg", "1380", "--max-speed-kmh", "70"},
+                  &out, &err),
+      2)
+      << out << err;
+  EXPECT_NE((out + err).find(must), std::string::npos) << out << err;
+  EXPECT_EQ(run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+                         dir + "/cell.toml", "--target", dir + "/t70.toml", "--sessions", dir + "/sessions",
+                         "--unattended"},
+                        &out, &err),
+            2)
+      << err;
+  EXPECT_NE(err.find(must), std::string::npos) << err;
+  EXPECT_NE(err.find("refused: nothing was started"), std::string::npos) << err;
+  EXPECT_FALSE(fs::exists(dir + "/sessions")) << "a session folder was created";
+  fs::remove_all(dir);
+}
+
 TEST(SessionCli, ReferenceSpeedsOfASlowVehicleAreDroppedAlikeByTargetAndRun) {
   // GTR 15 §2.2 (from memory; docs/standards.md §2.1): a reference speed v is dropped when v + 14 km/h ≥ the
   // vehicle's maximum speed. By hand for the wltp-iterative profile (20..130 km/h, run-up margin 12 km/h):

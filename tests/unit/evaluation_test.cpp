@@ -14,7 +14,9 @@
 
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cmath>
+#include <random>
 #include <vector>
 
 #include "support/test_support.hpp"
@@ -112,6 +114,42 @@ TEST(Evaluation, ToleranceVerdictFollowsTheStandardRowByRow) {
   }
   EXPECT_FALSE(b.check.pass);
   EXPECT_NEAR(b.check.worst_abs_deviation_n, 10.3147, 5e-3);
+}
+
+TEST(Evaluation, AGuardBandRefusesACoastDownWhoseUncertaintyStraddlesTheLimit) {
+  // docs/standards.md §3.11: the same coast-down, judged by the standard's simple rule and by a guard band
+  // (lab policy). The trace is the closed-form coast-down of target + 9 N with seeded N(0, 0.05 km/h) speed
+  // noise, so each regressed force carries a standard error u > 0. The tolerance is set just above the worst
+  // deviation, by less than k·u: the measured value is inside the tolerance, its uncertainty straddles the
+  // limit. Simple acceptance passes every speed; the guard band fails the worst one (its limit is the
+  // tolerance − k·u, below the worst deviation). u is recorded under both rules.
+  auto tr = loadtrim::testing::exact_trace({109.0, 0.5, 0.03}, kMass, 142.0, 10.0, 100.0);
+  std::mt19937_64 rng(7);
+  std::normal_distribution<double> noise(0.0, 0.05);
+  for (double& v : tr.speed_kmh) v += noise(rng);
+  core::Profile p = profile();
+  const auto first = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass);
+  ASSERT_TRUE(first.usable) << first.unusable_reason;
+  double worst = 0, u_min = 1e9;
+  for (const auto& r : first.check.rows) {
+    worst = std::max(worst, std::abs(r.deviation_n));
+    u_min = std::min(u_min, r.u_n);
+  }
+  ASSERT_GT(u_min, 0.0);
+  p.decision_rule.coverage_k = 2.0;
+  p.tolerance_n = worst + 0.5 * p.decision_rule.coverage_k * u_min;
+  const auto simple = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass);
+  EXPECT_TRUE(simple.check.pass);
+  p.decision_rule.kind = core::DecisionRule::Kind::guard_band;
+  const auto banded = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass);
+  EXPECT_FALSE(banded.check.pass);
+  ASSERT_EQ(banded.check.rows.size(), simple.check.rows.size());
+  for (std::size_t j = 0; j < banded.check.rows.size(); ++j) {
+    const auto& r = banded.check.rows[j];
+    EXPECT_DOUBLE_EQ(r.u_n, simple.check.rows[j].u_n);
+    EXPECT_NEAR(r.limit_n, p.tolerance_n - 2.0 * r.u_n, 1e-12);
+    EXPECT_EQ(r.pass, std::abs(r.deviation_n) <= r.limit_n);
+  }
 }
 
 TEST(Evaluation, AMissingBandMakesTheRunUnusable) {

@@ -22,6 +22,7 @@
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
 #include "record/event_log.hpp"
+#include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 #include "record/vehicle_history.hpp"
 #include "registry.hpp"
@@ -311,6 +312,19 @@ TEST(Events, TheRoadLoadSpellingRoundTrips) {
   EXPECT_EQ(back.f1_n_per_kmh, kSet.f1_n_per_kmh);
   EXPECT_EQ(back.f2_n_per_kmh2, kSet.f2_n_per_kmh2);
   EXPECT_THROW(road_load_from_json({{"f0_n", 1.0}}), nlohmann::json::exception);
+}
+
+TEST(Events, OneRoadLoadSpellingServesRecordsHistoriesAndReports) {
+  // The record layer's mapping is the one the events use (docs/records.md: one spelling for every file).
+  EXPECT_EQ(loadtrim::record::road_load_json(kSet), to_json(kSet));
+  EXPECT_TRUE(loadtrim::record::is_road_load_json(to_json(kSet)));
+  EXPECT_FALSE(loadtrim::record::is_road_load_json({{"f0_n", 1.0}, {"f1_n_per_kmh", 2.0}}));
+  EXPECT_FALSE(
+      loadtrim::record::is_road_load_json({{"f0_n", 1.0}, {"f1_n_per_kmh", "2"}, {"f2_n_per_kmh2", 3.0}}));
+  EXPECT_FALSE(loadtrim::record::is_road_load_json(nlohmann::json::array({1.0, 2.0, 3.0})));
+  EXPECT_EQ(loadtrim::record::measured_member({{"simulated", to_json(kSet)}}), "simulated");
+  EXPECT_EQ(loadtrim::record::measured_member({{"measured", to_json(kSet)}, {"simulated", 0}}), "measured");
+  EXPECT_EQ(loadtrim::record::measured_member(nlohmann::json::object()), "measured");
 }
 
 // Lines as the version before typed events wrote them (the data part: the log adds seq, utc, type, prev).
