@@ -52,6 +52,10 @@ core::Profile read_profile(TomlReader& r) {
   p.max_coastdowns = r.integer_or("limits.max_coastdowns", 10, 2, 100);
   p.max_unusable_runs = r.integer_or("limits.max_unusable_runs", 3, 1, 100);
   p.max_gap_after_warmup_s = r.number_or("timing.max_gap_after_warmup_s", 120.0, 0.0, 3600.0, "s");
+  p.warm_up.drift_rule = r.choice("warm_up.drift_rule", {"warn", "require"}, std::string("warn")) == "require"
+                             ? core::WarmUp::DriftRule::require
+                             : core::WarmUp::DriftRule::warn;
+  p.warm_up.drift_threshold_n = r.number_or("warm_up.drift_threshold_n", 3.0, 0.1, 100.0, "N");
   p.late_start = r.choice("timing.late_start", {"repeat", "finding"}, std::string("repeat")) == "finding"
                      ? core::Profile::LateStart::finding
                      : core::Profile::LateStart::repeat;

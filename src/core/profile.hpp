@@ -45,6 +45,12 @@ struct WarmUp {
   double stable_within_n = 0.0;  // > 0: continue until the hold force changes less than this between windows
   double stable_window_s = 60.0;
   double max_extra_s = 600.0;  // ...for at most this much longer
+  // The drift still to come at acceptance (docs/standards.md §3.12, lab policy): "warn" accepts with a
+  // finding when it is above drift_threshold_n; "require" keeps coasting at the accepted setting until it is
+  // below (within the coast-down limit).
+  enum class DriftRule { warn, require };
+  DriftRule drift_rule = DriftRule::warn;
+  double drift_threshold_n = 3.0;
 };
 
 // Loss map at the end of the warm-up (first-setting strategy "loss-map"): hold each speed, let it settle,

@@ -230,6 +230,22 @@ struct Mapper {
   nlohmann::json operator()(const ev::PassesReset& e) const {
     return {{"run", e.run}, {"passes", e.passes}, {"why", e.why}};
   }
+  nlohmann::json operator()(const ev::WarmUpDrift& e) const {
+    nlohmann::json j = {{"run", e.run},         {"t_s", e.t_s},
+                        {"rule", e.rule},       {"threshold_n", e.threshold_n},
+                        {"verdict", e.verdict}, {"points", e.curve.points}};
+    if (e.curve.ok) {
+      j["remaining_drift_n"] = e.curve.remaining_drift_n(e.t_s);
+      j["settled_n"] = e.curve.settled_n;
+      j["amplitude_n"] = e.curve.amplitude_n;
+      j["tau_s"] = e.curve.tau_s;
+      j["tau_at_bound"] = e.curve.tau_at_bound;
+      j["rms_residual_n"] = e.curve.rms_residual_n;
+    } else {
+      j["why"] = e.curve.why;
+    }
+    return j;
+  }
   nlohmann::json operator()(const ev::ConsecutiveTiming& e) const {
     return {{"rule", e.rule}, {"gap_since_last_coast_s", e.gap_since_last_coast_s}};
   }
@@ -425,6 +441,7 @@ struct Typer {
     return e.within ? "timing" : "timing_rule_missed";
   }
   const char* operator()(const ev::PassesReset&) const { return "passes_reset"; }
+  const char* operator()(const ev::WarmUpDrift&) const { return "warm_up_drift"; }
   const char* operator()(const ev::ConsecutiveTiming&) const { return "timing"; }
   const char* operator()(const ev::Coastdown&) const { return "coastdown"; }
   const char* operator()(const ev::CoastdownDiscarded&) const { return "coastdown_discarded"; }

@@ -270,6 +270,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   const auto& w = in_.profile.warm_up;
   if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
   t_motoring_from_ = t_now_;
+  if (drift_t0_ < 0.0) drift_t0_ = t_now_;
   // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
   // time (ramps at the motoring rate, settle and average at each speed).
   const core::HoldPlan plan = core::plan_hold_points(in_.profile.loss_map, w.speed_kmh, speed_limit_kmh_);
@@ -290,6 +291,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         ++n;
         if (s.time_s - window_start >= w.stable_window_s) {
           window_means.push_back(sum / std::max(1, n));
+          drift_points_.push_back({0.5 * (window_start + s.time_s) - drift_t0_, window_means.back()});
           sum = 0.0;
           n = 0;
           window_start = s.time_s;
@@ -516,6 +518,38 @@ std::optional<Session::Stop> Session::do_run(int run) {
     for (const auto& t : core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_,
                                                       p.reference_speeds_kmh, p.band_half_width_kmh))
       rec.predicted_delta_t_s.push_back(t);
+    // A setting about to be accepted: is the vehicle still warming (docs/standards.md §3.12)?
+    if (rec.decision.kind == core::Decision::Kind::accepted) {
+      const auto& w = p.warm_up;
+      const bool require = w.drift_rule == core::WarmUp::DriftRule::require;
+      ev::WarmUpDrift d{run,
+                        t_now_ - drift_t0_,
+                        core::fit_warm_up_curve(drift_points_),
+                        require ? "require" : "warn",
+                        w.drift_threshold_n,
+                        ""};
+      const bool warming = d.curve.ok && !(d.curve.remaining_drift_n(d.t_s) <= w.drift_threshold_n);
+      if (!d.curve.ok)
+        d.verdict = "not estimated: " + d.curve.why;
+      else if (!warming)
+        d.verdict = "settled";
+      else if (require)
+        d.verdict = "still warming: coasting again at the accepted setting";
+      else
+        d.verdict = "still warming: accepted with a finding";
+      emit(d);
+      if (warming && require) {
+        rec.decision.kind = core::Decision::Kind::run_again;
+        rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +
+                               num(d.curve.remaining_drift_n(d.t_s), 1) + " N above " +
+                               num(w.drift_threshold_n, 1) + " N): same setting again";
+      } else if (warming) {
+        findings_.push_back("the vehicle was still warming at acceptance: estimated remaining drift " +
+                            num(d.curve.remaining_drift_n(d.t_s), 1) + " N at the warm-up speed (threshold " +
+                            num(w.drift_threshold_n, 1) + " N; warm-up curve time constant " +
+                            num(d.curve.tau_s, 0) + " s); the profile's warm_up.drift_rule is \"warn\"");
+      }
+    }
     last_ = rec;
     if (!emit(ev::Coastdown{rec}, &trace)) return Stop{Outcome::record_failure, record_error_};
     if (rec.decision.kind == core::Decision::Kind::accepted) {

@@ -19,6 +19,7 @@
 #include <random>
 #include <vector>
 
+#include "core/warm_up_drift.hpp"
 #include "support/test_support.hpp"
 
 using namespace loadtrim;
@@ -164,4 +165,33 @@ TEST(Evaluation, AMissingBandMakesTheRunUnusable) {
   EXPECT_TRUE(e.check.rows.empty());
   ASSERT_EQ(e.bands.size(), kSpeeds.size());
   EXPECT_EQ(e.bands.back().status, core::BandStatus::not_reached);
+}
+
+TEST(WarmUpDrift, TheFirstOrderWarmingCurveIsRecovered) {
+  // docs/standards.md §3.12: F(t) = F∞ + A·exp(−t/τ) (first-order response, textbook). Windows every 30 s
+  // over 20 min of F∞ = 80 N, A = 20 N, τ = 600 s with seeded N(0, 0.3 N) noise: the fit recovers the three
+  // within a few per cent, and the drift still to come at t = 1500 s is 20·e^(−2.5) = 1.64 N (by hand).
+  std::vector<core::DriftPoint> pts;
+  std::mt19937_64 rng(11);
+  std::normal_distribution<double> noise(0.0, 0.3);
+  for (double t = 15.0; t < 1200.0; t += 30.0)
+    pts.push_back({t, 80.0 + 20.0 * std::exp(-t / 600.0) + noise(rng)});
+  const core::WarmUpCurve c = core::fit_warm_up_curve(pts);
+  ASSERT_TRUE(c.ok) << c.why;
+  EXPECT_NEAR(c.tau_s / 600.0, 1.0, 0.1);
+  EXPECT_NEAR(c.amplitude_n / 20.0, 1.0, 0.05);
+  EXPECT_NEAR(c.settled_n, 80.0, 1.0);
+  EXPECT_FALSE(c.tau_at_bound);
+  EXPECT_NEAR(c.remaining_drift_n(1500.0), 20.0 * std::exp(-2.5), 0.3);
+  EXPECT_LT(c.rms_residual_n, 0.5);
+  // Too few windows, a NaN, or a flat line that no τ resolves: said, never a made-up curve.
+  EXPECT_FALSE(core::fit_warm_up_curve(std::span(pts).first(3)).ok);
+  auto bad = pts;
+  bad[4].force_n = std::nan("");
+  EXPECT_FALSE(core::fit_warm_up_curve(bad).ok);
+  std::vector<core::DriftPoint> line;
+  for (double t = 15.0; t < 300.0; t += 30.0) line.push_back({t, 100.0 - 0.01 * t});
+  const core::WarmUpCurve l = core::fit_warm_up_curve(line);
+  ASSERT_TRUE(l.ok);
+  EXPECT_TRUE(l.tau_at_bound) << "a straight fall over 5 min does not show where warming ends";
 }
