@@ -23,24 +23,6 @@ const char* to_string(Result::Status s) {
   return "unknown";
 }
 
-const char* to_string(Mode m) {
-  switch (m) {
-    case Mode::idle:
-      return "idle";
-    case Mode::speed_hold:
-      return "speed-hold";
-    case Mode::road_load:
-      return "road-load";
-    case Mode::controlled_stop:
-      return "controlled-stop";
-    case Mode::constant_force:
-      return "constant-force";
-    case Mode::free_coast:
-      return "free-coast";
-  }
-  return "unknown";
-}
-
 bool ControllerInfo::has(std::string_view c) const {
   std::size_t pos = 0;
   while (pos <= capabilities.size()) {

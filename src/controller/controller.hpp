@@ -26,6 +26,7 @@
 #include <vector>
 
 #include "controller/clock_guard.hpp"
+#include "core/mode.hpp"
 #include "core/road_load.hpp"
 
 namespace loadtrim::controller {
@@ -47,12 +48,12 @@ struct Result {
 };
 const char* to_string(Result::Status s);
 
-// free_coast is a command only (motor off at speed, no simulation: the rollers coast on their own inertia and
-// losses); the controller reports idle while they do. constant_force: the motor applies a set force,
-// parasitic compensation on, no inertia or road-load simulation. Both serve the dyno's own checks with no
-// vehicle.
-enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop, constant_force, free_coast };
-const char* to_string(Mode m);
+// The controller's modes (core/mode.hpp, shared with the physics model). free_coast is a command only (motor
+// off at speed, no simulation: the rollers coast on their own inertia and losses); the controller reports
+// idle while they do. constant_force: the motor applies a set force, parasitic compensation on, no inertia or
+// road-load simulation. Both serve the dyno's own checks with no vehicle.
+using Mode = core::Mode;
+using core::to_string;
 
 // Fault and state flags, as every adapter reports them.
 inline constexpr std::uint32_t kFlagFault = 0x01;
