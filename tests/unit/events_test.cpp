@@ -33,6 +33,24 @@ using namespace loadtrim;
 using namespace loadtrim::session;
 
 namespace {
+loadtrim::core::WarmUpCurve settled_curve() {
+  loadtrim::core::WarmUpCurve c;
+  c.ok = true;
+  c.settled_n = 80.0;
+  c.amplitude_n = 20.0;
+  c.tau_s = 600.0;
+  c.points = 20;
+  return c;
+}
+loadtrim::core::WarmUpCurve unestimated_curve() {
+  loadtrim::core::WarmUpCurve c;
+  c.why = "too few hold windows (2, at least 4)";
+  c.points = 2;
+  return c;
+}
+}  // namespace
+
+namespace {
 
 const std::string kSrc = LOADTRIM_SOURCE_DIR;
 
@@ -237,13 +255,9 @@ std::vector<Payload> every_event() {
       ev::ReleaseTiming{"first coast-down released within 120 s", 30.0, true, ""},
       ev::ReleaseTiming{"first coast-down released within 120 s", 130.0, false, "repeat"},
       ev::PassesReset{3, 1, "coast-down 3 discarded"},
-      ev::WarmUpDrift{
-          2, 1500.0,
-          core::WarmUpCurve{.ok = true, .settled_n = 80.0, .amplitude_n = 20.0, .tau_s = 600.0, .points = 20},
-          "warn", 3.0, "settled"},
-      ev::WarmUpDrift{2, 1500.0,
-                      core::WarmUpCurve{.why = "too few hold windows (2, at least 4)", .points = 2}, "warn",
-                      3.0, "not estimated: too few hold windows (2, at least 4)"},
+      ev::WarmUpDrift{2, 1500.0, settled_curve(), "warn", 3.0, "settled"},
+      ev::WarmUpDrift{2, 1500.0, unestimated_curve(), "warn", 3.0,
+                      "not estimated: too few hold windows (2, at least 4)"},
       ev::ConsecutiveTiming{"consecutive coast-downs start immediately", 12.0},
       ev::Coastdown{usable_run()},
       ev::Coastdown{unusable},
