@@ -265,12 +265,14 @@ double ModbusController::setting_tolerance(Setting what, double written) const {
   const Q set = what == Setting::inertia ? Q::inertia
                 : what == Setting::f0    ? Q::f0
                 : what == Setting::f1    ? Q::f1
-                                         : Q::f2;
-  const Q back = !settings_.map.reads_applied() ? set
-                 : what == Setting::inertia     ? Q::applied_inertia
-                 : what == Setting::f0          ? Q::applied_f0
-                 : what == Setting::f1          ? Q::applied_f1
-                                                : Q::applied_f2;
+                : what == Setting::f2    ? Q::f2
+                                         : Q::force_setpoint;
+  // The force is read back from its setpoint register (the map names no applied force).
+  const Q back = !settings_.map.reads_applied() || what == Setting::force ? set
+                 : what == Setting::inertia                               ? Q::applied_inertia
+                 : what == Setting::f0                                    ? Q::applied_f0
+                 : what == Setting::f1                                    ? Q::applied_f1
+                                                                          : Q::applied_f2;
   const auto half_count = [&](Q q) {
     const Register& r = settings_.map[q];
     return r.type == Type::float32 ? 0.0 : std::abs(r.scale) / 2.0;
@@ -288,16 +290,17 @@ Result ModbusController::do_command(controller::Mode mode, double value, control
   if (mode == controller::Mode::constant_force)
     if (Result r = write(Q::force_setpoint, value); !r.ok()) return r;
   if (Result r = write(Q::command, code); !r.ok()) return r;
-  if (Result r = strobe(d); !r.ok()) return r;
-  if (mode == controller::Mode::constant_force) {
-    // The force the controller holds is read back like every other setpoint (the public layer reads back
-    // inertia and coefficients, not a command's value).
-    double back = 0.0;
-    if (Result r = read(Q::force_setpoint, back); !r.ok()) return r;
-    if (!(std::abs(back - value) <= readback_tolerance(value) + m[Q::force_setpoint].scale / 2))
-      return Result::fail("read-back force setpoint " + std::to_string(back) + " N differs from the " +
-                          std::to_string(value) + " N written; refusing to go on");
-  }
+  return strobe(d);
+}
+
+Result ModbusController::do_read_force(std::optional<double>& force_n, controller::Deadline) {
+  // The force setpoint register, read after the strobe; the controller layer compares it with what was
+  // written (setting_tolerance).
+  force_n.reset();
+  if (!settings_.map[Q::force_setpoint].present) return Result::success();
+  double back = 0.0;
+  if (Result r = read(Q::force_setpoint, back); !r.ok()) return r;
+  force_n = back;
   return Result::success();
 }
 

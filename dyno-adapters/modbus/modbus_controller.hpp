@@ -6,6 +6,7 @@
 #pragma once
 
 #include <chrono>
+#include <optional>
 #include <string>
 #include <variant>
 
@@ -44,7 +45,8 @@ class ModbusController : public controller::Controller {
   controller::Result do_read_inertia(double& kg, controller::Deadline d) override;
   controller::Result do_write_coefficients(const core::RoadLoad& c, controller::Deadline d) override;
   controller::Result do_read_coefficients(core::RoadLoad& c, controller::Deadline d) override;
-  controller::Result do_command(controller::Mode mode, double hold_kmh, controller::Deadline d) override;
+  controller::Result do_command(controller::Mode mode, double value, controller::Deadline d) override;
+  controller::Result do_read_force(std::optional<double>& force_n, controller::Deadline d) override;
   controller::Result do_stream(double rate_hz, controller::Deadline d) override;
   controller::Result do_receive_samples(std::vector<controller::Sample>& out,
                                         controller::Deadline d) override;
