@@ -136,7 +136,7 @@ void ModbusController::do_disconnect() {
     modbus_free(ctx_);
     ctx_ = nullptr;
   }
-  streaming_ = false;
+  pacer_.stop();
 }
 
 Result ModbusController::read(Q q, double& value) {
@@ -309,23 +309,25 @@ std::string ModbusController::mode_unavailable(controller::Mode mode) const {
 }
 
 Result ModbusController::do_stream(double rate_hz, controller::Deadline) {
-  streaming_ = rate_hz > 0.0;
-  t0_ = next_poll_ = Clock::now();
+  const auto now = Clock::now();
+  t0_ = now;
+  if (rate_hz > 0.0)
+    pacer_.start(now);
+  else
+    pacer_.stop();
   return Result::success();
 }
 
 Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) {
-  if (!streaming_) return Result::success();
-  const auto period = std::chrono::duration_cast<Clock::duration>(
-      std::chrono::duration<double>(1.0 / settings_.map.poll_rate_hz));
-  if (next_poll_ > d) return Result::success();
-  std::this_thread::sleep_until(next_poll_);
-  const auto now = Clock::now();
+  // The shared pacer (poller.hpp): one poll per period of the map's rate, none when it is due after the
+  // deadline, no burst after a stall. A poll already due is taken even with the deadline passed (the
+  // controller layer collecting what was read before a command's acknowledgement).
+  const auto turn = pacer_.wait_turn(d, settings_.map.poll_rate_hz);
+  if (!turn) return Result::success();
+  const auto now = turn->now;
   if (!settings_.map[Q::time].present)
     worst_jitter_s_ =
-        std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - next_poll_).count()));
-  next_poll_ += period;
-  if (next_poll_ < now) next_poll_ = now + period;  // fell behind: no burst to catch up
+        std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - turn->due).count()));
   controller::Sample s;
   double mode = 0, status = 0;
   if (Result r = read(Q::speed, s.speed_kmh); !r.ok()) return r;
@@ -388,10 +390,7 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
     return Result::fail(bad);
   if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);
   check_status_bits(out.flags);
-  out.fault = (out.flags & controller::kFlagWatchdog) ? "WATCHDOG"
-              : (out.flags & controller::kFlagEstop)  ? "ESTOP"
-              : (out.flags & controller::kFlagFault)  ? "FAULT"
-                                                      : "";
+  out.fault = adapters::fault_name(out.flags);
   return Result::success();
 }
 

@@ -14,6 +14,7 @@
 #include "controller/controller.hpp"
 #include "link.hpp"
 #include "modbus/register_map.hpp"
+#include "poller.hpp"
 
 typedef struct _modbus modbus_t;
 
@@ -75,10 +76,10 @@ class ModbusController : public controller::Controller {
   void check_status_bits(std::uint32_t flags);
   Settings settings_;
   modbus_t* ctx_ = nullptr;
-  bool streaming_ = false;
+  adapters::PollPacer pacer_;  // the live quantities' polls (poller.hpp)
   std::uint64_t index_ = 0;
   std::uint16_t beat_ = 0;
-  std::chrono::steady_clock::time_point next_poll_{}, t0_{};
+  std::chrono::steady_clock::time_point t0_{};  // the host clock's origin for samples without a time register
   double worst_jitter_s_ = 0.0;
   TimeCounter counter_;       // the time register unwrapped (register_map.hpp)
   double stated_rate_ = 1.0;  // the clock rate the controller stated at its last identify
