@@ -66,9 +66,12 @@ Result ModbusController::transact(const std::string& what, F&& request) {
       // a controller trickling its bytes is a link that does not answer in time.
       const auto took = std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - t0);
       if (took > timeouts().reply)
-        return Result::retry(what + ": the reply took " + std::to_string(took.count()) +
-                             " ms, more than timeouts.reply_ms (" + std::to_string(timeouts().reply.count()) +
-                             " ms)");
+        return Result::retry(
+            what + ": no complete reply within timeouts.reply_ms = " +
+            std::to_string(timeouts().reply.count()) + " ms: it took " + std::to_string(took.count()) +
+            " ms in all, its bytes each within " + "modbus.byte_timeout_ms = " +
+            std::to_string(std::min<long long>(p.byte_timeout_ms, timeouts().reply.count())) +
+            " ms of the last (a controller trickling its bytes is no slow link)");
       return Result::success();
     }
     const bool exception = e > MODBUS_ENOBASE && e < MODBUS_ENOBASE + 12;

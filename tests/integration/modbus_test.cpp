@@ -401,6 +401,41 @@ TEST(Modbus, RtuALateReplyIsNeverTakenForTheNextRequestsReply) {
   c.controlled_stop();
 }
 
+// The whole-reply bound (docs/modbus.md, "Exceptions"): a reply whose bytes each come within the byte timeout
+// of the last but that takes longer than timeouts.reply_ms in all is no reply: a retryable timeout named as
+// such, never a slow link that passes. The lying proxy delivers the tool-bound bytes one per 150 ms; with
+// modbus.byte_timeout_ms = 1000 no single gap ends the wait, so only the whole-reply bound can. The first
+// read of identify (roller_diameter, float32: two registers) is answered over TCP in 13 bytes (7 of MBAP
+// header, function code, byte count, 4 data bytes: the Modbus TCP frame format), so about 12 × 150 ms = 1.8
+// s, past reply_ms = 1000.
+TEST(Modbus, AReplyTricklingInSlowerThanTheWholeReplyBoundIsATimeout) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "5", "--watchdog-ms", "60000"});
+  auto cell = load_cell();
+  const auto map = settings(cell).map;
+  loadtrim::testing::ModbusLyingProxy proxy(sim.port(), map, loadtrim::testing::ModbusLie::trickle,
+                                            loadtrim::testing::ModbusTrigger::start());
+  adapters::production().override_link(cell, {proxy.port(), ""});
+  ASSERT_EQ(cell.timeouts.reply, std::chrono::milliseconds(1000)) << "the shipped reply_ms";
+  settings(cell).map.retry.byte_timeout_ms = 1000;
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  const auto t0 = std::chrono::steady_clock::now();
+  const auto r = c.identify(info);
+  const double took_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  EXPECT_EQ(r.status, controller::Result::Status::retryable) << r.message;
+  EXPECT_NE(r.message.find("read roller_diameter (input 10): no complete reply within timeouts.reply_ms = "
+                           "1000 ms: it took "),
+            std::string::npos)
+      << r.message;
+  EXPECT_NE(r.message.find("modbus.byte_timeout_ms = 1000 ms"), std::string::npos) << r.message;
+  EXPECT_TRUE(proxy.lie_began());
+  // The whole reply came (about 1.8 s) and was refused then: one request, not the rest of identify's reads.
+  EXPECT_GT(took_s, 1.0) << r.message;
+  EXPECT_LT(took_s, 4.0);
+  c.disconnect();
+}
+
 TEST(Modbus, BadRegisterMapsAreRefused) {
   std::string base;
   {
