@@ -114,8 +114,10 @@ Result ModbusController::do_connect(controller::Deadline) {
                           s.stop_bits == adapters::SerialLine::StopBits::two ? 2 : 1);
   }
   if (!ctx_) return Result::fail("cannot create the Modbus context");
-  // A new link: the counter is read afresh, at the rate the controller stated before (1 until it states one).
+  // A new link: the counter is read afresh, at the rate the controller stated before (1 until it states one);
+  // without a time register the host clock counts from here.
   counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
+  t0_ = Clock::now();
   modbus_set_slave(ctx_, settings_.map.unit_id);
   const auto reply = timeouts().reply;
   modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000),
@@ -226,7 +228,13 @@ Result ModbusController::do_identify(controller::ControllerInfo& out, controller
   // The time counter's unwrapping judges long gaps between reads by the stated rate.
   stated_rate_ = std::isfinite(out.time_scale) ? std::max(1.0, out.time_scale) : 1.0;
   counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
-  return read(Q::max_force, out.max_force_n);
+  if (Result r = read(Q::max_force, out.max_force_n); !r.ok()) return r;
+  // The heartbeat counter goes on from the value the register holds (left by an earlier connection or
+  // process), so the next beat changes it: a controller's watchdog sees a beat only as a change.
+  double beat = 0.0;
+  if (Result r = read(Q::heartbeat, beat); !r.ok()) return r;
+  if (beat >= 0.0 && beat <= 65535.0 && beat == std::floor(beat)) beat_ = static_cast<std::uint16_t>(beat);
+  return Result::success();
 }
 
 Result ModbusController::do_write_inertia(double kg, controller::Deadline d) {
@@ -292,6 +300,11 @@ Result ModbusController::do_command(controller::Mode mode, double value, control
     if (Result r = write(Q::hold_speed, value); !r.ok()) return r;
   if (mode == controller::Mode::constant_force)
     if (Result r = write(Q::force_setpoint, value); !r.ok()) return r;
+  // A beat just before a command that sets the rollers moving: a controller whose watchdog has seen no beat
+  // while the tool was idle (connected, identifying, analysing) must not take its first motoring command for
+  // a lapsed watchdog. Stops and idle need none.
+  if (mode != controller::Mode::idle && mode != controller::Mode::controlled_stop)
+    if (Result r = write(Q::heartbeat, ++beat_); !r.ok()) return r;
   if (Result r = write(Q::command, code); !r.ok()) return r;
   return strobe(d);
 }
@@ -312,10 +325,8 @@ std::string ModbusController::mode_unavailable(controller::Mode mode) const {
 }
 
 Result ModbusController::do_stream(double rate_hz, controller::Deadline) {
-  const auto now = Clock::now();
-  t0_ = now;
   if (rate_hz > 0.0)
-    pacer_.start(now);
+    pacer_.start();
   else
     pacer_.stop();
   return Result::success();
@@ -340,7 +351,7 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   if (settings_.map[Q::time].present) {
     if (Result r = read_time(s.time_s); !r.ok()) return r;
   } else {
-    s.time_s = std::chrono::duration<double>(now - t0_).count();
+    s.time_s = host_time_s(now);
   }
   if (std::string bad = decode_mode(mode, s.mode, settings_.map.modes); !bad.empty())
     return Result::fail(bad);
@@ -371,6 +382,11 @@ void ModbusController::do_take_events(std::vector<std::string>& out) {
   events_.clear();
 }
 
+double ModbusController::host_time_s(Clock::time_point at) const {
+  // In the controller's seconds: the wall time since the connection at the rate the controller stated.
+  return stated_rate_ * std::chrono::duration<double>(at - t0_).count();
+}
+
 Result ModbusController::read_time(double& time_s) {
   double raw = 0.0;
   if (Result r = read(Q::time, raw); !r.ok()) return r;
@@ -387,8 +403,12 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
   if (Result r = read(Q::speed, out.speed_kmh); !r.ok()) return r;
   if (Result r = read(Q::mode, mode); !r.ok()) return r;
   if (Result r = read(Q::status, status); !r.ok()) return r;
-  if (settings_.map[Q::time].present)
+  // The status's clock is the samples' clock: the time register, or the same host clock.
+  if (settings_.map[Q::time].present) {
     if (Result r = read_time(out.time_s); !r.ok()) return r;
+  } else {
+    out.time_s = host_time_s(Clock::now());
+  }
   if (std::string bad = decode_mode(mode, out.mode, settings_.map.modes); !bad.empty())
     return Result::fail(bad);
   if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);

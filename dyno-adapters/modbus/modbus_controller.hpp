@@ -1,8 +1,10 @@
 // The Modbus adapter (libmodbus, TCP or RTU) behind the controller interface, driven by a register map.
 // Setpoints: write the value registers, raise the strobe, wait until the controller clears it (the write
 // handshake, with a deadline), then read back. Live quantities are polled at the map's rate; the controller's
-// time register gives the sample time when the map has one, else the host clock does and the poll jitter is
-// measured. Heartbeat: a counter register the controller's watchdog watches.
+// time register gives the sample and status time when the map has one, else the host clock does (since
+// connect, at the controller's stated rate) and the poll jitter is measured. Heartbeat: a counter register
+// the controller's watchdog watches, continued from its value at identify and beaten once more just before
+// every command that sets the rollers moving.
 #pragma once
 
 #include <chrono>
@@ -79,7 +81,7 @@ class ModbusController : public controller::Controller {
   adapters::PollPacer pacer_;  // the live quantities' polls (poller.hpp)
   std::uint64_t index_ = 0;
   std::uint16_t beat_ = 0;
-  std::chrono::steady_clock::time_point t0_{};  // the host clock's origin for samples without a time register
+  std::chrono::steady_clock::time_point t0_{};  // without a time register: the host clock's origin (connect)
   double worst_jitter_s_ = 0.0;
   TimeCounter counter_;       // the time register unwrapped (register_map.hpp)
   double stated_rate_ = 1.0;  // the clock rate the controller stated at its last identify
@@ -87,6 +89,8 @@ class ModbusController : public controller::Controller {
   bool warned_status_bits_ = false;
   std::vector<std::string> events_;
   controller::Result read_time(double& time_s);  // read and unwrapped
+  // Without a time register, samples and status alike: the host clock since connect, at the stated rate.
+  double host_time_s(std::chrono::steady_clock::time_point at) const;
 };
 
 }  // namespace loadtrim::modbus
