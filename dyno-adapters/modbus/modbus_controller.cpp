@@ -1,6 +1,7 @@
 #include "modbus/modbus_controller.hpp"
 
 #include <modbus/modbus.h>
+#include <sys/ioctl.h>
 
 #include <algorithm>
 #include <cerrno>
@@ -75,14 +76,23 @@ Result ModbusController::transact(const std::string& what, F&& request) {
       return Result::success();
     }
     const bool exception = e > MODBUS_ENOBASE && e < MODBUS_ENOBASE + 12;
+    std::string discarded;
     if (!exception && ctx_) {
       // A late reply must not answer the next request. Over TCP the transaction id tells replies apart; an
       // RTU frame carries no such id, and a late reply of the same function and length would pass for the
       // next one's: after a timeout the line is given one more reply timeout to bring what was still on its
       // way, and then flushed (a reply later than twice the timeout cannot be told apart on RTU at all).
+      // What the flush throws away is counted in the link statistics and named in the failure.
       if (e == ETIMEDOUT && std::holds_alternative<adapters::SerialLine>(settings_.link))
         std::this_thread::sleep_for(timeouts().reply);
+      int waiting = 0;
+      if (::ioctl(modbus_get_socket(ctx_), FIONREAD, &waiting) != 0) waiting = 0;
       modbus_flush(ctx_);
+      if (waiting > 0) {
+        discarded = std::to_string(waiting) + " bytes that came after the failure (a late reply) discarded";
+        ++stats_.lines_rejected;
+        stats_.last_rejected = what + ": " + discarded;
+      }
     }
     const bool again = exception && retryable_exception(e - MODBUS_ENOBASE);
     const auto next = Clock::now() + std::chrono::milliseconds(p.delay_ms);
@@ -92,6 +102,7 @@ Result ModbusController::transact(const std::string& what, F&& request) {
       continue;
     }
     Result r = fail(what, e);
+    if (!discarded.empty()) r.message += "; " + discarded;
     if (again)
       r.message += " (still after " + std::to_string(attempt) + " retries within " +
                    std::to_string(

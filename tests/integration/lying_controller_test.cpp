@@ -748,7 +748,8 @@ const ModbusRow kModbusRows[] = {
     {"rtu_trickle", ModbusLie::trickle, mb_hold30(), Cmd::run, 3, "no complete reply", 60, nullptr, false,
      true},
     // A reply that arrives after the tool's reply timeout, when it has asked something else: never taken for
-    // the other request's reply (RTU frames carry no transaction id); the link is reported, the stop follows.
+    // the other request's reply (RTU frames carry no transaction id); the link is reported with the late
+    // bytes discarded (checked below), the stop follows.
     {"rtu_late_reply", ModbusLie::late_reply, mb_hold30(), Cmd::run, 3, "no complete reply", 60, nullptr,
      false, true},
 };
@@ -902,6 +903,15 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
           << "expected '" << said << "'; output:\n"
           << tail(res.output);
     }
+  }
+  if (row.lie == ModbusLie::late_reply) {
+    // The late frame reached the tool's line (the proxy sent it on) and the tool threw it away and said so,
+    // rather than taking it for the next request's reply.
+    EXPECT_EQ(st.late_replies_delivered, 1u);
+    const std::string said = "(a late reply) discarded";
+    EXPECT_TRUE(res.output.find(said) != std::string::npos || logged.find(said) != std::string::npos)
+        << "expected '" << said << "'; output:\n"
+        << tail(res.output);
   }
   if (row.counter16) {
     // At least one coast-down spanned a wrap of the 16-bit counter: its release and its end lie in different

@@ -475,6 +475,15 @@ TEST(Modbus, RtuALateReplyIsNeverTakenForTheNextRequestsReply) {
   EXPECT_EQ(late.status, controller::Result::Status::retryable) << late.message;
   EXPECT_NE(late.message.find("read mode (input 4)"), std::string::npos) << late.message;
   EXPECT_TRUE(proxy.lie_began());
+  // The held-back reply reached the tool's line and was thrown away, counted and named: a read reply of one
+  // register over RTU is 7 bytes (unit, function, byte count, 2 data bytes, CRC-16: the RTU frame format).
+  EXPECT_EQ(proxy.stats().late_replies_delivered, 1u);
+  EXPECT_NE(late.message.find("7 bytes that came after the failure (a late reply) discarded"),
+            std::string::npos)
+      << late.message;
+  EXPECT_EQ(c.stats().lines_rejected, 1u);
+  EXPECT_NE(c.stats().last_rejected.find("read mode (input 4): 7 bytes"), std::string::npos)
+      << c.stats().last_rejected;
   std::this_thread::sleep_for(std::chrono::milliseconds(700));
   const auto next = c.status(st);
   ASSERT_TRUE(next.ok()) << next.message;
