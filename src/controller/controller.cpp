@@ -242,7 +242,14 @@ Result Controller::apply_force(double n) {
     if (std::abs(n) > limits_.max_force_n)
       return Result::fail("force " + num(n) + " N is above the limit of " + num(limits_.max_force_n) +
                           " N; not sent");
-    return command_done(do_command(Mode::constant_force, n, reply_deadline()));
+    if (Result r = do_command(Mode::constant_force, n, reply_deadline()); !r.ok()) return r;
+    // The force the controller holds is read back and compared like the inertia and coefficients.
+    std::optional<double> back;
+    if (Result r = do_read_force(back, reply_deadline()); !r.ok()) return r;
+    if (back && !(std::abs(*back - n) <= setting_tolerance(Setting::force, n)))
+      return Result::fail("read-back force " + num(*back) + " N differs from the " + num(n) +
+                          " N written; refusing to go on");
+    return command_done(Result::success());
   });
 }
 Result Controller::free_coast() {

@@ -150,7 +150,8 @@ class Controller {
   Result release_road_load();
   Result controlled_stop();
   Result idle();
-  // The dyno's own checks (no vehicle on the rollers): refused here above the cell's force limit.
+  // The dyno's own checks (no vehicle on the rollers): refused here above the cell's force limit; the force
+  // is read back and compared when the adapter can read it (do_read_force), a mismatch being fatal.
   Result apply_force(double force_n);
   Result free_coast();
   Result start_stream(double rate_hz);  // 10 to 1000 Hz
@@ -218,10 +219,19 @@ class Controller {
   // controller's clock rate). Adapters that queue samples size their bounds from it.
   virtual void on_stream_rate(double /*samples_per_wall_s*/) {}
 
+  // After a constant-force command: the force the controller reports holding, for this layer to compare with
+  // the force written (within setting_tolerance(Setting::force, ...)). An adapter that cannot read it back
+  // leaves `force_n` empty.
+  virtual Result do_read_force(std::optional<double>& force_n, Deadline /*d*/) {
+    force_n.reset();
+    return Result::success();
+  }
+
   // How far a read-back may differ from what was written: the register's resolution (e.g. float32 in Modbus).
   virtual double readback_tolerance(double written) const { return 1e-9 * std::max(1.0, std::abs(written)); }
-  // The same for one quantity of the setting (its registers may differ in type and scale).
-  enum class Setting : std::uint8_t { inertia, f0, f1, f2 };
+  // The same for one quantity of the setting, or the constant force (their registers may differ in type and
+  // scale).
+  enum class Setting : std::uint8_t { inertia, f0, f1, f2, force };
   virtual double setting_tolerance(Setting /*what*/, double written) const {
     return readback_tolerance(written);
   }
