@@ -173,7 +173,11 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   ASSERT_FALSE(folder.empty());
   const auto before = records(folder);
   ASSERT_EQ(count(before, "coastdown"), 1);
-  ASSERT_EQ(count(before, "coastdown_started"), 2);
+  // A first release later than the 120 s rule (possible at 200x on a loaded host: 0.6 s of wall time) is
+  // discarded and repeated after a re-warm (docs/standards.md §3.6); each such run shifts the run numbers by
+  // one.
+  const int late = count(before, "coastdown_discarded");
+  ASSERT_EQ(count(before, "coastdown_started"), 2 + late);
   std::string out, err;
   const int rc = run_command({kExe, "resume", folder, "--unattended", "--rewarm-s", "300", "--quiet",
                               "--override-checks", "integration test against the simulator"},
@@ -186,7 +190,7 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   bool said = false;
   for (const auto& r : after)
     if (r.value("type", "") == "resumed") {
-      EXPECT_EQ(r.value("discarded_run", 0), 2);
+      EXPECT_EQ(r.value("discarded_run", 0), 2 + late);
       EXPECT_EQ(r.value("completed_coastdowns", 0), 1);
       said = true;
     }
@@ -195,8 +199,8 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   for (const auto& r : after)
     if (r.value("type", "") == "coastdown") runs.push_back(r.value("run", 0));
   ASSERT_GE(runs.size(), 2u);
-  EXPECT_EQ(runs[0], 1);
-  EXPECT_EQ(runs[1], 3);  // run 2 was half-recorded and is repeated as run 3
+  EXPECT_EQ(runs[0], 1 + late);
+  EXPECT_EQ(runs[1], 3 + late);  // run 2 was half-recorded and is repeated as run 3
   ASSERT_GE(after.size(), 2u);
   EXPECT_EQ(after.back().value("type", ""), "seal");
   EXPECT_EQ(after[after.size() - 2].value("type", ""), "finished");
