@@ -114,6 +114,10 @@ TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
       session::plan_inputs(config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0),
                                               "cell.toml", adapters::production().sections()),
                            profile, v);
+  // At 1000x, 0.12 s of the tool's wall time is 120 s of controller time: on a loaded host the first release
+  // can miss the 120 s rule for reasons of the host alone. This test is about convergence, so a late release
+  // is kept with a finding (the rule itself is tested in SessionUnit at controller speed).
+  in.profile.late_start = core::Profile::LateStart::finding;
   auto c = adapters::make_controller(in.cell);
   const std::string folder = dir + "/session";
   fs::create_directories(folder);
