@@ -1,6 +1,6 @@
-// What the polling adapters share (framed now; written so that the Modbus adapter can take it over): the
-// pacer that spaces polls at a fixed rate of wall time without bursts after a stall, and the fault name a
-// status report gives for the controller's flags. Header only; no I/O besides sleeping until a poll is due.
+// What the polling adapters (framed, Modbus) share: the pacer that spaces polls at a fixed rate of wall time
+// without bursts after a stall, and the fault name a status report gives for the controller's flags. Header
+// only; no I/O besides sleeping until a poll is due.
 #pragma once
 
 #include <chrono>

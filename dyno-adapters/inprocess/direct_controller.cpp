@@ -1,15 +1,17 @@
 #include "inprocess/direct_controller.hpp"
 
+#include "sim/line_front_end.hpp"
+
 namespace loadtrim::inprocess {
 
 using controller::Result;
 
 namespace {
+// A refusal as the line protocol's error code, as a line adapter would report it.
 Result from(const std::optional<sim::SimError>& e) {
   if (!e) return Result::success();
-  return Result::fail(
-      "controller refused (error " + std::to_string(static_cast<int>(e->code)) + "): " + e->text,
-      static_cast<int>(e->code));
+  const int code = static_cast<int>(sim::line_error_code(e->cause));
+  return Result::fail("controller refused (error " + std::to_string(code) + "): " + e->message, code);
 }
 }  // namespace
 
@@ -22,7 +24,7 @@ DirectController::DirectController(const physics::Truth& truth, controller::Time
 }
 
 Result DirectController::do_connect(controller::Deadline) {
-  return from(sim_->hello(line::kProtocolVersion));
+  return from(sim_->hello(sim::SimController::kProtocolVersion));
 }
 Result DirectController::do_identify(controller::ControllerInfo& out, controller::Deadline) {
   out = sim_->info();
@@ -42,8 +44,8 @@ Result DirectController::do_read_coefficients(core::RoadLoad& c, controller::Dea
   c = sim_->model().coefficients();
   return Result::success();
 }
-Result DirectController::do_command(controller::Mode mode, double hold_kmh, controller::Deadline) {
-  return from(sim_->command(mode, hold_kmh));
+Result DirectController::do_command(controller::Mode mode, double value, controller::Deadline) {
+  return from(sim_->command(sim::command_for(mode, value)));
 }
 Result DirectController::do_stream(double rate_hz, controller::Deadline) {
   return from(sim_->stream(rate_hz));

@@ -25,7 +25,7 @@ class DirectController : public controller::Controller {
   controller::Result do_read_inertia(double& kg, controller::Deadline) override;
   controller::Result do_write_coefficients(const core::RoadLoad& c, controller::Deadline) override;
   controller::Result do_read_coefficients(core::RoadLoad& c, controller::Deadline) override;
-  controller::Result do_command(controller::Mode mode, double hold_kmh, controller::Deadline) override;
+  controller::Result do_command(controller::Mode mode, double value, controller::Deadline) override;
   controller::Result do_stream(double rate_hz, controller::Deadline) override;
   controller::Result do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline) override;
   controller::Result do_heartbeat(controller::Deadline) override { return controller::Result::success(); }
@@ -35,7 +35,7 @@ class DirectController : public controller::Controller {
  private:
   std::unique_ptr<sim::SimController> sim_;
   double chunk_s_;
-  std::vector<std::string> events_;
+  std::vector<sim::FaultEvent> events_;  // not handed up: the watchdog is off and no fault is planned
 };
 
 }  // namespace loadtrim::inprocess

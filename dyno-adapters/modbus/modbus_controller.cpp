@@ -1,6 +1,7 @@
 #include "modbus/modbus_controller.hpp"
 
 #include <modbus/modbus.h>
+#include <sys/ioctl.h>
 
 #include <algorithm>
 #include <cerrno>
@@ -66,20 +67,32 @@ Result ModbusController::transact(const std::string& what, F&& request) {
       // a controller trickling its bytes is a link that does not answer in time.
       const auto took = std::chrono::duration_cast<std::chrono::milliseconds>(Clock::now() - t0);
       if (took > timeouts().reply)
-        return Result::retry(what + ": the reply took " + std::to_string(took.count()) +
-                             " ms, more than timeouts.reply_ms (" + std::to_string(timeouts().reply.count()) +
-                             " ms)");
+        return Result::retry(
+            what + ": no complete reply within timeouts.reply_ms = " +
+            std::to_string(timeouts().reply.count()) + " ms: it took " + std::to_string(took.count()) +
+            " ms in all, its bytes each within " + "modbus.byte_timeout_ms = " +
+            std::to_string(std::min<long long>(p.byte_timeout_ms, timeouts().reply.count())) +
+            " ms of the last (a controller trickling its bytes is no slow link)");
       return Result::success();
     }
     const bool exception = e > MODBUS_ENOBASE && e < MODBUS_ENOBASE + 12;
+    std::string discarded;
     if (!exception && ctx_) {
       // A late reply must not answer the next request. Over TCP the transaction id tells replies apart; an
       // RTU frame carries no such id, and a late reply of the same function and length would pass for the
       // next one's: after a timeout the line is given one more reply timeout to bring what was still on its
       // way, and then flushed (a reply later than twice the timeout cannot be told apart on RTU at all).
+      // What the flush throws away is counted in the link statistics and named in the failure.
       if (e == ETIMEDOUT && std::holds_alternative<adapters::SerialLine>(settings_.link))
         std::this_thread::sleep_for(timeouts().reply);
+      int waiting = 0;
+      if (::ioctl(modbus_get_socket(ctx_), FIONREAD, &waiting) != 0) waiting = 0;
       modbus_flush(ctx_);
+      if (waiting > 0) {
+        discarded = std::to_string(waiting) + " bytes that came after the failure (a late reply) discarded";
+        ++stats_.lines_rejected;
+        stats_.last_rejected = what + ": " + discarded;
+      }
     }
     const bool again = exception && retryable_exception(e - MODBUS_ENOBASE);
     const auto next = Clock::now() + std::chrono::milliseconds(p.delay_ms);
@@ -89,6 +102,7 @@ Result ModbusController::transact(const std::string& what, F&& request) {
       continue;
     }
     Result r = fail(what, e);
+    if (!discarded.empty()) r.message += "; " + discarded;
     if (again)
       r.message += " (still after " + std::to_string(attempt) + " retries within " +
                    std::to_string(
@@ -111,8 +125,10 @@ Result ModbusController::do_connect(controller::Deadline) {
                           s.stop_bits == adapters::SerialLine::StopBits::two ? 2 : 1);
   }
   if (!ctx_) return Result::fail("cannot create the Modbus context");
-  // A new link: the counter is read afresh, at the rate the controller stated before (1 until it states one).
+  // A new link: the counter is read afresh, at the rate the controller stated before (1 until it states one);
+  // without a time register the host clock counts from here.
   counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
+  t0_ = Clock::now();
   modbus_set_slave(ctx_, settings_.map.unit_id);
   const auto reply = timeouts().reply;
   modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000),
@@ -136,7 +152,7 @@ void ModbusController::do_disconnect() {
     modbus_free(ctx_);
     ctx_ = nullptr;
   }
-  streaming_ = false;
+  pacer_.stop();
 }
 
 Result ModbusController::read(Q q, double& value) {
@@ -223,7 +239,13 @@ Result ModbusController::do_identify(controller::ControllerInfo& out, controller
   // The time counter's unwrapping judges long gaps between reads by the stated rate.
   stated_rate_ = std::isfinite(out.time_scale) ? std::max(1.0, out.time_scale) : 1.0;
   counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
-  return read(Q::max_force, out.max_force_n);
+  if (Result r = read(Q::max_force, out.max_force_n); !r.ok()) return r;
+  // The heartbeat counter goes on from the value the register holds (left by an earlier connection or
+  // process), so the next beat changes it: a controller's watchdog sees a beat only as a change.
+  double beat = 0.0;
+  if (Result r = read(Q::heartbeat, beat); !r.ok()) return r;
+  if (beat >= 0.0 && beat <= 65535.0 && beat == std::floor(beat)) beat_ = static_cast<std::uint16_t>(beat);
+  return Result::success();
 }
 
 Result ModbusController::do_write_inertia(double kg, controller::Deadline d) {
@@ -265,12 +287,14 @@ double ModbusController::setting_tolerance(Setting what, double written) const {
   const Q set = what == Setting::inertia ? Q::inertia
                 : what == Setting::f0    ? Q::f0
                 : what == Setting::f1    ? Q::f1
-                                         : Q::f2;
-  const Q back = !settings_.map.reads_applied() ? set
-                 : what == Setting::inertia     ? Q::applied_inertia
-                 : what == Setting::f0          ? Q::applied_f0
-                 : what == Setting::f1          ? Q::applied_f1
-                                                : Q::applied_f2;
+                : what == Setting::f2    ? Q::f2
+                                         : Q::force_setpoint;
+  // The force is read back from its setpoint register (the map names no applied force).
+  const Q back = !settings_.map.reads_applied() || what == Setting::force ? set
+                 : what == Setting::inertia                               ? Q::applied_inertia
+                 : what == Setting::f0                                    ? Q::applied_f0
+                 : what == Setting::f1                                    ? Q::applied_f1
+                                                                          : Q::applied_f2;
   const auto half_count = [&](Q q) {
     const Register& r = settings_.map[q];
     return r.type == Type::float32 ? 0.0 : std::abs(r.scale) / 2.0;
@@ -287,17 +311,23 @@ Result ModbusController::do_command(controller::Mode mode, double value, control
     if (Result r = write(Q::hold_speed, value); !r.ok()) return r;
   if (mode == controller::Mode::constant_force)
     if (Result r = write(Q::force_setpoint, value); !r.ok()) return r;
+  // A beat just before a command that sets the rollers moving: a controller whose watchdog has seen no beat
+  // while the tool was idle (connected, identifying, analysing) must not take its first motoring command for
+  // a lapsed watchdog. Stops and idle need none.
+  if (mode != controller::Mode::idle && mode != controller::Mode::controlled_stop)
+    if (Result r = write(Q::heartbeat, ++beat_); !r.ok()) return r;
   if (Result r = write(Q::command, code); !r.ok()) return r;
-  if (Result r = strobe(d); !r.ok()) return r;
-  if (mode == controller::Mode::constant_force) {
-    // The force the controller holds is read back like every other setpoint (the public layer reads back
-    // inertia and coefficients, not a command's value).
-    double back = 0.0;
-    if (Result r = read(Q::force_setpoint, back); !r.ok()) return r;
-    if (!(std::abs(back - value) <= readback_tolerance(value) + m[Q::force_setpoint].scale / 2))
-      return Result::fail("read-back force setpoint " + std::to_string(back) + " N differs from the " +
-                          std::to_string(value) + " N written; refusing to go on");
-  }
+  return strobe(d);
+}
+
+Result ModbusController::do_read_force(std::optional<double>& force_n, controller::Deadline) {
+  // The force setpoint register, read after the strobe; the controller layer compares it with what was
+  // written (setting_tolerance).
+  force_n.reset();
+  if (!settings_.map[Q::force_setpoint].present) return Result::success();
+  double back = 0.0;
+  if (Result r = read(Q::force_setpoint, back); !r.ok()) return r;
+  force_n = back;
   return Result::success();
 }
 
@@ -306,23 +336,23 @@ std::string ModbusController::mode_unavailable(controller::Mode mode) const {
 }
 
 Result ModbusController::do_stream(double rate_hz, controller::Deadline) {
-  streaming_ = rate_hz > 0.0;
-  t0_ = next_poll_ = Clock::now();
+  if (rate_hz > 0.0)
+    pacer_.start();
+  else
+    pacer_.stop();
   return Result::success();
 }
 
 Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out, controller::Deadline d) {
-  if (!streaming_) return Result::success();
-  const auto period = std::chrono::duration_cast<Clock::duration>(
-      std::chrono::duration<double>(1.0 / settings_.map.poll_rate_hz));
-  if (next_poll_ > d) return Result::success();
-  std::this_thread::sleep_until(next_poll_);
-  const auto now = Clock::now();
+  // The shared pacer (poller.hpp): one poll per period of the map's rate, none when it is due after the
+  // deadline, no burst after a stall. A poll already due is taken even with the deadline passed (the
+  // controller layer collecting what was read before a command's acknowledgement).
+  const auto turn = pacer_.wait_turn(d, settings_.map.poll_rate_hz);
+  if (!turn) return Result::success();
+  const auto now = turn->now;
   if (!settings_.map[Q::time].present)
     worst_jitter_s_ =
-        std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - next_poll_).count()));
-  next_poll_ += period;
-  if (next_poll_ < now) next_poll_ = now + period;  // fell behind: no burst to catch up
+        std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - turn->due).count()));
   controller::Sample s;
   double mode = 0, status = 0;
   if (Result r = read(Q::speed, s.speed_kmh); !r.ok()) return r;
@@ -332,7 +362,7 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   if (settings_.map[Q::time].present) {
     if (Result r = read_time(s.time_s); !r.ok()) return r;
   } else {
-    s.time_s = std::chrono::duration<double>(now - t0_).count();
+    s.time_s = host_time_s(now);
   }
   if (std::string bad = decode_mode(mode, s.mode, settings_.map.modes); !bad.empty())
     return Result::fail(bad);
@@ -363,6 +393,11 @@ void ModbusController::do_take_events(std::vector<std::string>& out) {
   events_.clear();
 }
 
+double ModbusController::host_time_s(Clock::time_point at) const {
+  // In the controller's seconds: the wall time since the connection at the rate the controller stated.
+  return stated_rate_ * std::chrono::duration<double>(at - t0_).count();
+}
+
 Result ModbusController::read_time(double& time_s) {
   double raw = 0.0;
   if (Result r = read(Q::time, raw); !r.ok()) return r;
@@ -379,16 +414,17 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
   if (Result r = read(Q::speed, out.speed_kmh); !r.ok()) return r;
   if (Result r = read(Q::mode, mode); !r.ok()) return r;
   if (Result r = read(Q::status, status); !r.ok()) return r;
-  if (settings_.map[Q::time].present)
+  // The status's clock is the samples' clock: the time register, or the same host clock.
+  if (settings_.map[Q::time].present) {
     if (Result r = read_time(out.time_s); !r.ok()) return r;
+  } else {
+    out.time_s = host_time_s(Clock::now());
+  }
   if (std::string bad = decode_mode(mode, out.mode, settings_.map.modes); !bad.empty())
     return Result::fail(bad);
   if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);
   check_status_bits(out.flags);
-  out.fault = (out.flags & controller::kFlagWatchdog) ? "WATCHDOG"
-              : (out.flags & controller::kFlagEstop)  ? "ESTOP"
-              : (out.flags & controller::kFlagFault)  ? "FAULT"
-                                                      : "";
+  out.fault = adapters::fault_name(out.flags);
   return Result::success();
 }
 

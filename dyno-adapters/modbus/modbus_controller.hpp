@@ -1,11 +1,14 @@
 // The Modbus adapter (libmodbus, TCP or RTU) behind the controller interface, driven by a register map.
 // Setpoints: write the value registers, raise the strobe, wait until the controller clears it (the write
 // handshake, with a deadline), then read back. Live quantities are polled at the map's rate; the controller's
-// time register gives the sample time when the map has one, else the host clock does and the poll jitter is
-// measured. Heartbeat: a counter register the controller's watchdog watches.
+// time register gives the sample and status time when the map has one, else the host clock does (since
+// connect, at the controller's stated rate) and the poll jitter is measured. Heartbeat: a counter register
+// the controller's watchdog watches, continued from its value at identify and beaten once more just before
+// every command that sets the rollers moving.
 #pragma once
 
 #include <chrono>
+#include <optional>
 #include <string>
 #include <variant>
 
@@ -13,6 +16,7 @@
 #include "controller/controller.hpp"
 #include "link.hpp"
 #include "modbus/register_map.hpp"
+#include "poller.hpp"
 
 typedef struct _modbus modbus_t;
 
@@ -44,7 +48,8 @@ class ModbusController : public controller::Controller {
   controller::Result do_read_inertia(double& kg, controller::Deadline d) override;
   controller::Result do_write_coefficients(const core::RoadLoad& c, controller::Deadline d) override;
   controller::Result do_read_coefficients(core::RoadLoad& c, controller::Deadline d) override;
-  controller::Result do_command(controller::Mode mode, double hold_kmh, controller::Deadline d) override;
+  controller::Result do_command(controller::Mode mode, double value, controller::Deadline d) override;
+  controller::Result do_read_force(std::optional<double>& force_n, controller::Deadline d) override;
   controller::Result do_stream(double rate_hz, controller::Deadline d) override;
   controller::Result do_receive_samples(std::vector<controller::Sample>& out,
                                         controller::Deadline d) override;
@@ -73,10 +78,10 @@ class ModbusController : public controller::Controller {
   void check_status_bits(std::uint32_t flags);
   Settings settings_;
   modbus_t* ctx_ = nullptr;
-  bool streaming_ = false;
+  adapters::PollPacer pacer_;  // the live quantities' polls (poller.hpp)
   std::uint64_t index_ = 0;
   std::uint16_t beat_ = 0;
-  std::chrono::steady_clock::time_point next_poll_{}, t0_{};
+  std::chrono::steady_clock::time_point t0_{};  // without a time register: the host clock's origin (connect)
   double worst_jitter_s_ = 0.0;
   TimeCounter counter_;       // the time register unwrapped (register_map.hpp)
   double stated_rate_ = 1.0;  // the clock rate the controller stated at its last identify
@@ -84,6 +89,8 @@ class ModbusController : public controller::Controller {
   bool warned_status_bits_ = false;
   std::vector<std::string> events_;
   controller::Result read_time(double& time_s);  // read and unwrapped
+  // Without a time register, samples and status alike: the host clock since connect, at the stated rate.
+  double host_time_s(std::chrono::steady_clock::time_point at) const;
 };
 
 }  // namespace loadtrim::modbus

@@ -338,7 +338,16 @@ double TimeCounter::read(double raw_s, double wall_s) {
     else
       k = r > last_raw_s_ ? -1 : 0;  // more than half a period forward = a step BACK by the rest
   } else {
-    k = static_cast<std::int64_t>(std::max(0.0, std::round((expected - d) / p))) + (r < last_raw_s_ ? 1 : 0);
+    // The tool paused: the whole number of periods that brings the movement nearest to what the tool's clock
+    // says elapsed, counted only when the counter moved at all and the total then agrees with the tool's
+    // clock (kPauseAgreement of the elapsed time, plus kPauseSlackWallS at the stated rate). Otherwise no
+    // whole period is counted, and the clock guard judges the movement as read: a counter frozen across the
+    // pause reads as stopped, never as one that advanced by whole periods.
+    const auto n = static_cast<std::int64_t>(std::max(0.0, std::round((expected - d) / p)));
+    const double total = d + static_cast<double>(n) * p;
+    const bool agrees =
+        d > 0.0 && std::abs(total - expected) <= kPauseAgreement * expected + rate_ * kPauseSlackWallS;
+    k = (agrees ? n : 0) + (r < last_raw_s_ ? 1 : 0);
   }
   periods_ += k;
   if (k > 0) wraps_ += static_cast<std::uint64_t>(k);

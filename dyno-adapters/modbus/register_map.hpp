@@ -176,11 +176,19 @@ double counter_period_s(const Register& time);
 //     unwrapped time goes down, and the clock guard names a clock that ran backwards);
 //   - reads further apart (the tool paused): the movement plus the whole number of periods nearest to what
 //     the tool's clock says elapsed (a backwards step cannot be told from a wrap then: a counter whose period
-//     is short against the tool's pauses should be wider).
+//     is short against the tool's pauses should be wider) — but whole periods are counted only when the
+//     counter moved at all and the total agrees with the tool's clock within kPauseAgreement of the elapsed
+//     time plus kPauseSlackWallS (at the stated rate); else none is, so a counter frozen across a pause reads
+//     as frozen (the clock guard names it stopped), never as one that advanced by whole periods.
 // Stops, crawls, jumps and races of the unwrapped clock are the clock guard's to judge
 // (controller/clock_guard.hpp): this only undoes the wrap.
 class TimeCounter {
  public:
+  // How closely a movement across a pause must agree with the tool's clock for whole periods to be counted:
+  // 10 % of the elapsed time (a clock off by more is broken anyway) plus 1 s of the tool's time (a read's
+  // latency, the clock guard's slack). Lab policy, common practice, no source.
+  static constexpr double kPauseAgreement = 0.10;
+  static constexpr double kPauseSlackWallS = 1.0;
   // period_s: counter_period_s of the register; rate: controller seconds per wall second (the stated rate).
   void reset(double period_s, double rate);
   // A raw reading (the register decoded: counts × scale) and the tool's monotonic time of the read, s.

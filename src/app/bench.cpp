@@ -400,12 +400,11 @@ int run_bench(BenchOptions o) {
     const double sps = n * reps / band_s, naive_sps = n * reps / naive_s;
     // Simulator speed: simulated seconds per wall second, 100 Hz stream, one core.
     sim::SimController sim(t, {});
-    sim.hello(line::kProtocolVersion);
     sim.set_inertia(1521.0);
     sim.stream(100.0);
-    sim.command(controller::Mode::speed_hold, 80.0);
+    sim.command(sim::cmd::HoldSpeed{80.0});
     std::vector<controller::Sample> smp;
-    std::vector<std::string> ev;
+    std::vector<sim::FaultEvent> ev;
     t0 = Clock::now();
     const double sim_span = o.quick ? 2000.0 : 20000.0;
     for (double s = 0; s < sim_span; s += 10.0) {

@@ -3,9 +3,11 @@
 // a session will work with: the exact conversions, the masses and the dyno inertia by the profile's rules,
 // the target force and the predicted coast-down time at each reference speed, the plausibility findings, and
 // the dyno's initial setting under each first-setting strategy. Nothing connects and nothing moves.
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <iostream>
+#include <limits>
 #include <memory>
 #include <optional>
 #include <utility>
@@ -25,6 +27,7 @@
 #include "core/trace_analysis.hpp"
 #include "core/units.hpp"
 #include "inprocess/sim_rows.hpp"
+#include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 
 namespace loadtrim::app {
@@ -144,7 +147,7 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
 }
 
 nlohmann::json coef(const core::RoadLoad& c) {
-  return {{"f0_n", c.f0_n}, {"f1_n_per_kmh", c.f1_n_per_kmh}, {"f2_n_per_kmh2", c.f2_n_per_kmh2}};
+  return record::road_load_json(c);
 }
 
 int run_target(const TargetOptions& o) {
@@ -165,6 +168,30 @@ int run_target(const TargetOptions& o) {
       core::plan_reference_speeds(profile, v.max_speed_kmh, v.cycle_max_speed_kmh);
   if (plan.refusal)
     found.push_back({core::Problem::Severity::error, "bands.reference_speeds_kmh", *plan.refusal});
+  // The rest of run's check of how the files combine (core::check_combination), so that target refuses what
+  // run would refuse: the warm-up and start speeds against the vehicle's maximum, the force envelope and, with
+  // --cell, the cell's limits and inertia range. Without --cell the cell's limits are not known and are not
+  // checked. A problem of the profile or the cell names its file.
+  {
+    constexpr double kUnbounded = std::numeric_limits<double>::infinity();
+    const core::CellFacts facts =
+        cell ? core::CellFacts{cell->max_speed_kmh, cell->max_force_n,    cell->max_motoring_s,
+                               cell->axles,         cell->min_inertia_kg, cell->max_inertia_kg}
+             : core::CellFacts{kUnbounded, kUnbounded, kUnbounded, layout, 0.0, 0.0};
+    const core::CombinationProblems cp = core::check_combination(v, profile, facts);
+    auto add = [&](const core::Problems& ps, const std::string& file) {
+      for (core::Problem p : ps) {
+        if (!file.empty()) p.key = file + ": " + p.key;
+        // The plausibility checks and the reference-speed plan above may have said it already.
+        const bool known = std::any_of(found.begin(), found.end(),
+                                       [&](const core::Problem& q) { return q.message == p.message; });
+        if (!known) found.push_back(p);
+      }
+    };
+    add(cp.target, "");
+    add(cp.profile, pfile);
+    if (cell) add(cp.cell, o.cell);
+  }
   const double m_r = core::resolved_rotating_mass_kg(v, profile.mass);
   const double force_mass = core::force_mass_kg(v.test_mass_kg, m_r);
   const double inertia = core::dyno_inertia_kg(v.test_mass_kg, m_r, layout, profile.mass);
@@ -312,12 +339,12 @@ int run_target(const TargetOptions& o) {
                   row.value("note", "").c_str());
     std::printf("\ninitial dyno setting by strategy:\n");
     for (const auto& i : initial) {
-      if (i.contains("set"))
+      if (i.contains("set")) {
+        const core::RoadLoad c = record::road_load_from_json(i["set"]);
         std::printf("  %-9s f0 %8.2f N, f1 %8.4f N/(km/h), f2 %8.5f N/(km/h)^2   %s\n",
-                    i["strategy"].get<std::string>().c_str(), i["set"]["f0_n"].get<double>(),
-                    i["set"]["f1_n_per_kmh"].get<double>(), i["set"]["f2_n_per_kmh2"].get<double>(),
+                    i["strategy"].get<std::string>().c_str(), c.f0_n, c.f1_n_per_kmh, c.f2_n_per_kmh2,
                     i["note"].get<std::string>().c_str());
-      else
+      } else
         std::printf("  %-9s %s\n", i["strategy"].get<std::string>().c_str(),
                     i["note"].get<std::string>().c_str());
     }

@@ -32,6 +32,10 @@ core::Profile read_profile(TomlReader& r) {
   }
   p.tolerance_n = r.number("acceptance.tolerance_n", 0.1, 1000.0, "N");
   p.consecutive_passes = r.integer_or("acceptance.consecutive_passes", 2, 1, 10);
+  // docs/standards.md §3.11: the standard's simple acceptance by default; a guard band only as lab policy.
+  if (r.choice("acceptance.decision_rule", {"simple", "guard-band"}, std::string("simple")) == "guard-band")
+    p.decision_rule.kind = core::DecisionRule::Kind::guard_band;
+  p.decision_rule.coverage_k = r.number_or("acceptance.guard_band_k", 2.0, 1.0, 3.0, "");
   p.estimator_disagreement_n = r.number_or("acceptance.estimator_disagreement_n", 5.0, 0.0, 1000.0, "N");
   p.fixed_runs = r.integer_or("method.fixed_runs", 4, 2, 10);
   p.fixed_run_verification_runs = r.integer_or("method.fixed_run_verification_runs", 1, 0, 5);
@@ -49,6 +53,10 @@ core::Profile read_profile(TomlReader& r) {
   p.max_coastdowns = r.integer_or("limits.max_coastdowns", 10, 2, 100);
   p.max_unusable_runs = r.integer_or("limits.max_unusable_runs", 3, 1, 100);
   p.max_gap_after_warmup_s = r.number_or("timing.max_gap_after_warmup_s", 120.0, 0.0, 3600.0, "s");
+  p.warm_up.drift_rule = r.choice("warm_up.drift_rule", {"warn", "require"}, std::string("warn")) == "require"
+                             ? core::WarmUp::DriftRule::require
+                             : core::WarmUp::DriftRule::warn;
+  p.warm_up.drift_threshold_n = r.number_or("warm_up.drift_threshold_n", 3.0, 0.1, 100.0, "N");
   p.late_start = r.choice("timing.late_start", {"repeat", "finding"}, std::string("repeat")) == "finding"
                      ? core::Profile::LateStart::finding
                      : core::Profile::LateStart::repeat;

@@ -23,24 +23,6 @@ const char* to_string(Result::Status s) {
   return "unknown";
 }
 
-const char* to_string(Mode m) {
-  switch (m) {
-    case Mode::idle:
-      return "idle";
-    case Mode::speed_hold:
-      return "speed-hold";
-    case Mode::road_load:
-      return "road-load";
-    case Mode::controlled_stop:
-      return "controlled-stop";
-    case Mode::constant_force:
-      return "constant-force";
-    case Mode::free_coast:
-      return "free-coast";
-  }
-  return "unknown";
-}
-
 bool ControllerInfo::has(std::string_view c) const {
   std::size_t pos = 0;
   while (pos <= capabilities.size()) {
@@ -260,7 +242,14 @@ Result Controller::apply_force(double n) {
     if (std::abs(n) > limits_.max_force_n)
       return Result::fail("force " + num(n) + " N is above the limit of " + num(limits_.max_force_n) +
                           " N; not sent");
-    return command_done(do_command(Mode::constant_force, n, reply_deadline()));
+    if (Result r = do_command(Mode::constant_force, n, reply_deadline()); !r.ok()) return r;
+    // The force the controller holds is read back and compared like the inertia and coefficients.
+    std::optional<double> back;
+    if (Result r = do_read_force(back, reply_deadline()); !r.ok()) return r;
+    if (back && !(std::abs(*back - n) <= setting_tolerance(Setting::force, n)))
+      return Result::fail("read-back force " + num(*back) + " N differs from the " + num(n) +
+                          " N written; refusing to go on");
+    return command_done(Result::success());
   });
 }
 Result Controller::free_coast() {

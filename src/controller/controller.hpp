@@ -26,6 +26,7 @@
 #include <vector>
 
 #include "controller/clock_guard.hpp"
+#include "core/mode.hpp"
 #include "core/road_load.hpp"
 
 namespace loadtrim::controller {
@@ -47,12 +48,12 @@ struct Result {
 };
 const char* to_string(Result::Status s);
 
-// free_coast is a command only (motor off at speed, no simulation: the rollers coast on their own inertia and
-// losses); the controller reports idle while they do. constant_force: the motor applies a set force,
-// parasitic compensation on, no inertia or road-load simulation. Both serve the dyno's own checks with no
-// vehicle.
-enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop, constant_force, free_coast };
-const char* to_string(Mode m);
+// The controller's modes (core/mode.hpp, shared with the physics model). free_coast is a command only (motor
+// off at speed, no simulation: the rollers coast on their own inertia and losses); the controller reports
+// idle while they do. constant_force: the motor applies a set force, parasitic compensation on, no inertia or
+// road-load simulation. Both serve the dyno's own checks with no vehicle.
+using Mode = core::Mode;
+using core::to_string;
 
 // Fault and state flags, as every adapter reports them.
 inline constexpr std::uint32_t kFlagFault = 0x01;
@@ -149,7 +150,8 @@ class Controller {
   Result release_road_load();
   Result controlled_stop();
   Result idle();
-  // The dyno's own checks (no vehicle on the rollers): refused here above the cell's force limit.
+  // The dyno's own checks (no vehicle on the rollers): refused here above the cell's force limit; the force
+  // is read back and compared when the adapter can read it (do_read_force), a mismatch being fatal.
   Result apply_force(double force_n);
   Result free_coast();
   Result start_stream(double rate_hz);  // 10 to 1000 Hz
@@ -217,10 +219,19 @@ class Controller {
   // controller's clock rate). Adapters that queue samples size their bounds from it.
   virtual void on_stream_rate(double /*samples_per_wall_s*/) {}
 
+  // After a constant-force command: the force the controller reports holding, for this layer to compare with
+  // the force written (within setting_tolerance(Setting::force, ...)). An adapter that cannot read it back
+  // leaves `force_n` empty.
+  virtual Result do_read_force(std::optional<double>& force_n, Deadline /*d*/) {
+    force_n.reset();
+    return Result::success();
+  }
+
   // How far a read-back may differ from what was written: the register's resolution (e.g. float32 in Modbus).
   virtual double readback_tolerance(double written) const { return 1e-9 * std::max(1.0, std::abs(written)); }
-  // The same for one quantity of the setting (its registers may differ in type and scale).
-  enum class Setting : std::uint8_t { inertia, f0, f1, f2 };
+  // The same for one quantity of the setting, or the constant force (their registers may differ in type and
+  // scale).
+  enum class Setting : std::uint8_t { inertia, f0, f1, f2, force };
   virtual double setting_tolerance(Setting /*what*/, double written) const {
     return readback_tolerance(written);
   }

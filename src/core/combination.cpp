@@ -123,12 +123,19 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
         "is " + num(vehicle.max_speed_kmh) + " km/h; the profile starts its coast-downs at " + start_text +
             ": allowed only above " + num(start) + " km/h for this profile");
   const double speed_limit = std::min(cell.max_speed_kmh, vehicle.max_speed_kmh);
-  if (!(warm_up_speed_within(profile, cell.max_speed_kmh) &&
-        warm_up_speed_within(profile, vehicle.max_speed_kmh)))
-    err(out.profile, "warm_up.speed_kmh",
-        "is " + num(profile.warm_up.speed_kmh) + " km/h, above the cell's limits.max_speed_kmh (" +
-            num(cell.max_speed_kmh) + ") or the vehicle's vehicle.max_speed_kmh (" +
-            num(vehicle.max_speed_kmh) + "): allowed up to " + num(speed_limit) + " km/h");
+  {
+    // Name only the limit (or limits) the warm-up speed exceeds.
+    std::string above;
+    if (!warm_up_speed_within(profile, cell.max_speed_kmh))
+      above = "the cell's limits.max_speed_kmh (" + num(cell.max_speed_kmh) + " km/h)";
+    if (!warm_up_speed_within(profile, vehicle.max_speed_kmh))
+      above += (above.empty() ? "" : " and ") + std::string("the vehicle's vehicle.max_speed_kmh (") +
+               num(vehicle.max_speed_kmh) + " km/h)";
+    if (!above.empty())
+      err(out.profile, "warm_up.speed_kmh",
+          "is " + num(profile.warm_up.speed_kmh) + " km/h, above " + above + ": allowed up to " +
+              num(speed_limit) + " km/h");
+  }
   // GTR 15 §2.2 (from memory): points the vehicle cannot reach are dropped (plan_reference_speeds); too few
   // left is an error.
   if (plan.refusal) {

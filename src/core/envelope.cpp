@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <limits>
 
 #include "core/units.hpp"
 
@@ -115,8 +116,12 @@ Problems check_target(const RoadLoad& target, std::span<const double> reference_
                         " km/h); it must be above 0 N at every speed from " + num(lo) + " to " + num(hi) +
                         " km/h (the reference speeds), or the vehicle would not coast down");
   }
-  // Within the cell's force limit from standstill to the top speed.
-  if (!positive(limits.max_force_n) || !positive(limits.top_speed_kmh)) {
+  // Within the cell's force limit from standstill to the top speed. A limit of +∞ means no cell is known
+  // (`target` without --cell): there is nothing to compare with.
+  const bool no_cell = limits.max_force_n == std::numeric_limits<double>::infinity();
+  if (no_cell) {
+    // nothing to compare with
+  } else if (!positive(limits.max_force_n) || !positive(limits.top_speed_kmh)) {
     err("target", "cannot be checked against the cell: limits.max_force_n (" + num(limits.max_force_n) +
                       " N) and the top speed (" + num(limits.top_speed_kmh) +
                       " km/h) must be positive numbers");

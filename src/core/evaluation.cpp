@@ -27,7 +27,12 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
     return e;
   }
   e.usable = true;
-  e.check = check_tolerance(target, e.fit.coefficients, profile.reference_speeds_kmh, profile.tolerance_n);
+  // Each reference speed's force carries the regression's standard error (OLS covariance of f0, f1, f2
+  // propagated to F(v); checked against repeats in regression_test), which the decision rule may use.
+  const RoadLoadFit& fit = e.fit;
+  e.check =
+      check_tolerance(target, e.fit.coefficients, profile.reference_speeds_kmh, profile.tolerance_n,
+                      profile.decision_rule, [&fit](double v) { return fit.force_standard_error_n(v); });
   if (options.whole_trace) {
     e.whole_trace =
         fit_whole_trace(trace, force_mass_kg, profile.bottom_speed_kmh() - profile.band_half_width_kmh,

@@ -6,6 +6,10 @@
 
 namespace loadtrim::core {
 
+const char* to_string(DecisionRule::Kind k) {
+  return k == DecisionRule::Kind::guard_band ? "guard-band" : "simple";
+}
+
 const char* to_string(SettingMethod m) {
   return m == SettingMethod::iterative ? "iterative" : "fixed-run";
 }
@@ -67,6 +71,7 @@ Problems validate(const Profile& p) {
   }
   range(ps, "acceptance.tolerance_n", p.tolerance_n, 0.1, 1000.0, "N");
   irange(ps, "acceptance.consecutive_passes", p.consecutive_passes, 1, 10);
+  range(ps, "acceptance.guard_band_k", p.decision_rule.coverage_k, 1.0, 3.0, "");
   // The upper edge of the top band must be passed in free coast, with room for the crossing fit.
   range(ps, "run.run_up_margin_kmh", p.run_up_margin_kmh, p.band_half_width_kmh + 2.0, 30.0, "km/h");
   irange(ps, "method.fixed_runs", p.fixed_runs, 2, 10);

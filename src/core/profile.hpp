@@ -45,6 +45,12 @@ struct WarmUp {
   double stable_within_n = 0.0;  // > 0: continue until the hold force changes less than this between windows
   double stable_window_s = 60.0;
   double max_extra_s = 600.0;  // ...for at most this much longer
+  // The drift still to come at acceptance (docs/standards.md §3.12, lab policy): "warn" accepts with a
+  // finding when it is above drift_threshold_n; "require" keeps coasting at the accepted setting until it is
+  // below (within the coast-down limit).
+  enum class DriftRule { warn, require };
+  DriftRule drift_rule = DriftRule::warn;
+  double drift_threshold_n = 3.0;
 };
 
 // Loss map at the end of the warm-up (first-setting strategy "loss-map"): hold each speed, let it settle,
@@ -55,12 +61,25 @@ struct LossMap {
   double average_s = 5.0;
 };
 
+// How a deviation is judged against the tolerance (docs/standards.md §3.11). ISO/IEC 17025:2017 §7.8.6 asks
+// that a statement of conformity name its decision rule [text, from memory]. "simple": the standard's own
+// acceptance, |deviation| ≤ tolerance, the measured value taken as it is (GTR 15 §8.1.3.4.2). "guard-band":
+// lab policy, |deviation| ≤ tolerance − k·u, so that a pass is a pass with the stated coverage (the guard
+// band w = k·u of ILAC-G8, from memory; k = 2 is about 95 % for a normal distribution).
+struct DecisionRule {
+  enum class Kind { simple, guard_band };
+  Kind kind = Kind::simple;
+  double coverage_k = 2.0;
+};
+const char* to_string(DecisionRule::Kind k);  // "simple", "guard-band"
+
 struct Profile {
   std::string name;
   std::string standard;  // free text, e.g. "UN GTR 15 Annex 4 §8.1.3"
   std::vector<double> reference_speeds_kmh;
   double band_half_width_kmh = 5.0;  // Δv: the band runs from v_j + Δv down to v_j − Δv
   double tolerance_n = 10.0;         // every reference speed within ± this of the target
+  DecisionRule decision_rule;        // how "within" is judged (acceptance.decision_rule)
   int consecutive_passes = 2;        // iterative method: passes in a row for acceptance
   double run_up_margin_kmh = 12.0;   // run up this far above the top reference speed before releasing
   SettingMethod method = SettingMethod::iterative;

@@ -5,8 +5,10 @@
 namespace loadtrim::core {
 
 ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated,
-                               std::span<const double> speeds_kmh, double tolerance_n) {
+                               std::span<const double> speeds_kmh, double tolerance_n,
+                               const DecisionRule& rule, const std::function<double(double)>& u_n) {
   ToleranceCheck out;
+  out.rule = rule;
   out.pass = !speeds_kmh.empty();
   for (double v : speeds_kmh) {
     SpeedDeviation d;
@@ -14,7 +16,11 @@ ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated
     d.target_n = target.force_n(v);
     d.measured_n = simulated.force_n(v);
     d.deviation_n = d.measured_n - d.target_n;
-    d.pass = std::abs(d.deviation_n) <= tolerance_n;
+    d.u_n = u_n ? u_n(v) : 0.0;
+    d.limit_n =
+        rule.kind == DecisionRule::Kind::guard_band ? tolerance_n - rule.coverage_k * d.u_n : tolerance_n;
+    // Written so that a NaN deviation or uncertainty fails.
+    d.pass = std::abs(d.deviation_n) <= d.limit_n;
     out.pass = out.pass && d.pass;
     out.worst_abs_deviation_n = std::max(out.worst_abs_deviation_n, std::abs(d.deviation_n));
     out.rows.push_back(d);

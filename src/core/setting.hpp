@@ -3,6 +3,7 @@
 // As, Bs, Cs; set (what the dyno is told) Ad, Bd, Cd. Pure: no I/O.
 #pragma once
 
+#include <functional>
 #include <optional>
 #include <span>
 #include <string>
@@ -19,6 +20,8 @@ struct SpeedDeviation {
   double target_n = 0.0;
   double measured_n = 0.0;
   double deviation_n = 0.0;  // measured − target
+  double u_n = 0.0;          // standard uncertainty of measured_n (0 when not known)
+  double limit_n = 0.0;      // the acceptance limit on |deviation_n| the decision rule applied
   bool pass = false;
 };
 
@@ -26,11 +29,15 @@ struct ToleranceCheck {
   std::vector<SpeedDeviation> rows;
   bool pass = false;
   double worst_abs_deviation_n = 0.0;
+  DecisionRule rule;
 };
 
-// Every reference speed within ±tolerance of the target (§8.1.3.4.2), on the regressed (simulated) curve.
+// Every reference speed within ±tolerance of the target (§8.1.3.4.2), on the regressed (simulated) curve,
+// judged by `rule`; `u_n(v)` gives the standard uncertainty of the measured force at v (none: 0). A guard
+// band wider than the tolerance leaves no acceptance zone: the speed fails.
 ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated,
-                               std::span<const double> speeds_kmh, double tolerance_n);
+                               std::span<const double> speeds_kmh, double tolerance_n,
+                               const DecisionRule& rule = {}, const std::function<double(double)>& u_n = {});
 
 // §8.1.4: F*_dj = F_dj − (F_sj − F_tj), i.e. A*d = Ad + At − As, B*d = Bd + Bt − Bs, C*d = Cd + Ct − Cs.
 RoadLoad adjusted_setting(const RoadLoad& target, const RoadLoad& set, const RoadLoad& simulated);

@@ -41,6 +41,11 @@ using controller::Sample;
 
 // Result::code values of the motion library's own endings (controller error codes are positive).
 inline constexpr int kInterrupted = -2;
+// The controller-time budget of a step that has no better bound of its own: reaching and settling at a speed,
+// a constant-force run, a stop. A healthy roller cell reaches 140 km/h or stops from it in well under a
+// minute; ten minutes is a generous multiple that still ends a step whose condition never comes (common
+// practice, no source).
+inline constexpr double kDefaultStepBudgetS = 600.0;
 inline constexpr int kTooSlow = -3;       // the step's controller-time budget ran out before its condition
 inline constexpr int kWallDeadline = -4;  // the step's deadline on the tool's own clock passed
 
@@ -62,11 +67,11 @@ struct Rules {
 };
 
 struct Step {
-  std::string what;                     // named in every message: "warm-up", "run-up", "the stop", ...
-  double budget_s = 600.0;              // controller seconds from the step's first sample
-  std::vector<controller::Mode> modes;  // the step's samples are in one of these (empty: any)
-  std::uint64_t since_epoch = 0;        // samples read before this epoch belong to the phase before
-  bool stoppable = true;                // the operator's stop flag ends it (false for stopping itself)
+  std::string what;                       // named in every message: "warm-up", "run-up", "the stop", ...
+  double budget_s = kDefaultStepBudgetS;  // controller seconds from the step's first sample
+  std::vector<controller::Mode> modes;    // the step's samples are in one of these (empty: any)
+  std::uint64_t since_epoch = 0;          // samples read before this epoch belong to the phase before
+  bool stoppable = true;                  // the operator's stop flag ends it (false for stopping itself)
 };
 
 class Motion {
@@ -83,7 +88,7 @@ class Motion {
                  std::vector<Sample>* keep = nullptr);
   // Speed hold at v_kmh, then wait until the speed has stayed within ±tolerance of it for settle_s
   // (controller time).
-  Result hold(double v_kmh, double settle_s, const std::string& what, double budget_s = 600.0,
+  Result hold(double v_kmh, double settle_s, const std::string& what, double budget_s = kDefaultStepBudgetS,
               double tolerance_kmh = 0.5);
   // Controlled stop, then wait (not stoppable by the operator: stopping is what is wanted) for standstill:
   // speed at or below the standstill threshold in idle or controlled-stop mode. `stopped` says whether it was

@@ -13,22 +13,6 @@ double roller_curvature_factor(double tyre_radius_m, double roller_radius_m) {
   return std::sqrt(1.0 + tyre_radius_m / roller_radius_m);
 }
 
-const char* to_string(Mode m) {
-  switch (m) {
-    case Mode::idle:
-      return "idle";
-    case Mode::speed_hold:
-      return "speed-hold";
-    case Mode::road_load:
-      return "road-load";
-    case Mode::controlled_stop:
-      return "controlled-stop";
-    case Mode::constant_force:
-      return "constant-force";
-  }
-  return "unknown";
-}
-
 RollerModel::RollerModel(const Truth& truth)
     : truth_(truth),
       inertia_set_kg_(truth.dyno.base_inertia_kg),
@@ -139,7 +123,8 @@ double RollerModel::acceleration_mps2(double v_mps) const {
     if (v <= 0.0 && force_applied_n_ <= 0.0) return 0.0;
     return (force_applied_n_ - vehicle_loss_n(v) - parasitic_residual_n(v)) / physical_mass;
   }
-  // Idle: motor off, the rollers freewheel on their own inertia against the vehicle's and their own losses.
+  // Idle and free coast: motor off, the rollers freewheel on their own inertia against the vehicle's and
+  // their own losses.
   return -(vehicle_loss_n(v) + parasitic_true_n(v)) / physical_mass;
 }
 
@@ -164,7 +149,8 @@ void RollerModel::advance(double dt_s, double max_step_s) {
         break;
       case Mode::constant_force:
       case Mode::road_load:
-      case Mode::idle: {
+      case Mode::idle:
+      case Mode::free_coast: {
         if (mode_ == Mode::constant_force) advance_force_loop(h);
         if (v0 <= 0.0 && !(mode_ == Mode::constant_force && force_applied_n_ > 0.0)) {
           speed_mps_ = 0.0;
@@ -205,6 +191,7 @@ double RollerModel::load_cell_n() const {
     case Mode::constant_force:
       return force_applied_n_;  // the force the motor applies, as its load cell reads it
     case Mode::idle:
+    case Mode::free_coast:
       return 0.0;
   }
   return 0.0;

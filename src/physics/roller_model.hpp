@@ -21,6 +21,7 @@
 #include <string>
 #include <vector>
 
+#include "core/mode.hpp"
 #include "core/road_load.hpp"
 
 namespace loadtrim::physics {
@@ -79,11 +80,12 @@ struct Truth {
 // √(1 + r_tyre / R_roller), from memory (docs/standards.md §5).
 double roller_curvature_factor(double tyre_radius_m, double roller_radius_m);
 
-// idle: motor off; at speed the rollers coast freely on their own inertia and losses (no simulation, no
-// compensation). constant_force: the motor applies a set force at the roller surface, parasitic compensation
-// on, no inertia or road-load simulation (the base inertia check).
-enum class Mode : std::uint8_t { idle, speed_hold, road_load, controlled_stop, constant_force };
-const char* to_string(Mode m);
+// The controller's modes (core/mode.hpp, shared with the controller interface). idle and free_coast: motor
+// off; at speed the rollers coast freely on their own inertia and losses (no simulation, no compensation).
+// constant_force: the motor applies a set force at the roller surface, parasitic compensation on, no inertia
+// or road-load simulation (the base inertia check).
+using Mode = core::Mode;
+using core::to_string;
 
 struct Sample {
   double time_s = 0.0;
@@ -102,6 +104,7 @@ class RollerModel {
   void release_road_load() { mode_ = Mode::road_load; }
   void controlled_stop() { mode_ = Mode::controlled_stop; }
   void idle() { mode_ = Mode::idle; }
+  void free_coast() { mode_ = Mode::free_coast; }  // as idle; the mode says it was commanded at speed
   void apply_force(double force_n);
 
   // Advance simulated time by dt_s with fixed RK4 steps no longer than max_step_s.
@@ -132,7 +135,7 @@ class RollerModel {
   double road_load_force_n(double speed_kmh) const;
 
  private:
-  double acceleration_mps2(double v_mps) const;  // in road_load, constant_force or idle
+  double acceleration_mps2(double v_mps) const;  // in road_load, constant_force, idle or free_coast
   double road_load_mass_kg() const;   // the mass road-load simulation turns (the force loop's gain)
   void advance_force_loop(double h);  // the applied force towards its demand, over h seconds
   double load_cell_n() const;

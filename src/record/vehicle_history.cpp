@@ -4,23 +4,12 @@
 #include <fstream>
 #include <nlohmann/json.hpp>
 
+#include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 
 namespace loadtrim::record {
 
 namespace fs = std::filesystem;
-
-namespace {
-// The record format's road-load members (session::to_json writes the same; events_test checks that a history
-// file reads back through session::road_load_from_json). record/ lies below session/, so it spells them here.
-nlohmann::json road_load_json(const core::RoadLoad& c) {
-  return {{"f0_n", c.f0_n}, {"f1_n_per_kmh", c.f1_n_per_kmh}, {"f2_n_per_kmh2", c.f2_n_per_kmh2}};
-}
-core::RoadLoad road_load_of(const nlohmann::json& j) {
-  return {j.at("f0_n").get<double>(), j.at("f1_n_per_kmh").get<double>(),
-          j.at("f2_n_per_kmh2").get<double>()};
-}
-}  // namespace
 
 std::string vehicle_history_file(const std::string& dir, const std::string& cell_name,
                                  const std::string& vehicle_id) {
@@ -34,8 +23,8 @@ std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, 
     const auto j = nlohmann::json::parse(in);
     core::HistoryEntry h;
     h.utc = j.at("utc").get<std::string>();
-    h.target = road_load_of(j.at("target"));
-    h.final_set = road_load_of(j.at("final_set"));
+    h.target = road_load_from_json(j.at("target"));
+    h.final_set = road_load_from_json(j.at("final_set"));
     return h;
   } catch (const std::exception& e) {
     if (error) *error = e.what();

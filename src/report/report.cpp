@@ -14,6 +14,7 @@
 #include "record/data_root.hpp"
 #include "record/event_log.hpp"
 #include "record/inside.hpp"
+#include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 #include "record/verify.hpp"
 #include "report/svg_plot.hpp"
@@ -63,19 +64,25 @@ std::string esc(const std::string& s) {
   return xml_escape(s);
 }
 
+// A road-load member the record checks below have passed; 0 for a member that is absent.
 core::RoadLoad coef(const json& j) {
-  return {j.value("f0_n", 0.0), j.value("f1_n_per_kmh", 0.0), j.value("f2_n_per_kmh2", 0.0)};
+  return record::is_road_load_json(j) ? record::road_load_from_json(j) : core::RoadLoad{};
+}
+
+// The record path of one coefficient of a road-load member: "set.f0_n" for ("set", 0).
+std::string coef_path(const std::string& member, std::size_t k) {
+  return member + "." + std::string(record::kRoadLoadMembers[k]);
 }
 
 // What the report reads from each record, so that a record that chains correctly but lacks a member (or has
 // one of another type) gives a sentence naming the record and the member, never an exception. 'n' number, 'b'
 // bool, 's' string, 'o' object, 'a' array; a trailing '?' allows the member to be absent.
 struct Need {
-  const char* path;
+  std::string path;
   const char* kind;
 };
 
-std::string check_needs(const json& r, std::initializer_list<Need> needs) {
+std::string check_needs(const json& r, const std::vector<Need>& needs) {
   for (const auto& n : needs) {
     const json* v = &r;
     std::string path = n.path;
@@ -105,17 +112,20 @@ std::string check_needs(const json& r, std::initializer_list<Need> needs) {
   return "";
 }
 
+// A road-load member and its three coefficients, as numbers; `kind` "o" required, "o?" optional.
+std::vector<Need> curve_needs(const std::string& member, const char* kind) {
+  const char* n = kind[1] == '?' ? "n?" : "n";
+  return {{member, kind}, {coef_path(member, 0), n}, {coef_path(member, 1), n}, {coef_path(member, 2), n}};
+}
+
 // The first problem with a record the report uses, "" when none.
 std::string record_problem(const json& r) {
   if (const std::string p = check_needs(r, {{"type", "s?"}, {"utc", "s?"}, {"seq", "n?"}}); !p.empty())
     return p;
   const std::string type = r.value("type", "");
-  if (type == "session_started")
-    return check_needs(r, {{"target", "o?"},
-                           {"target.f0_n", "n?"},
-                           {"target.f1_n_per_kmh", "n?"},
-                           {"target.f2_n_per_kmh2", "n?"},
-                           {"tolerance_n", "n?"},
+  if (type == "session_started") {
+    if (const std::string p = check_needs(r, curve_needs("target", "o?")); !p.empty()) return p;
+    return check_needs(r, {{"tolerance_n", "n?"},
                            {"vehicle", "s?"},
                            {"vehicle_description", "s?"},
                            {"test_mass_kg", "n?"},
@@ -128,34 +138,24 @@ std::string record_problem(const json& r) {
                            {"software.build", "s?"},
                            {"operator_note", "s?"},
                            {"confirmation", "s?"}});
-  if (type == "finished")
+  }
+  if (type == "finished") {
+    if (const std::string p = check_needs(r, curve_needs("final_set", "o?")); !p.empty()) return p;
     return check_needs(r, {{"accepted", "b?"},
                            {"result", "s?"},
                            {"stop_reason", "s?"},
                            {"coastdowns", "n?"},
-                           {"cell_time_s", "n?"},
-                           {"final_set", "o?"},
-                           {"final_set.f0_n", "n?"},
-                           {"final_set.f1_n_per_kmh", "n?"},
-                           {"final_set.f2_n_per_kmh2", "n?"}});
+                           {"cell_time_s", "n?"}});
+  }
   if (type == "first_setting") return check_needs(r, {{"strategy", "s?"}, {"fallback_reason", "s?"}});
   if (type != "coastdown") return "";
-  std::string p = check_needs(r, {{"run", "n"},
-                                  {"usable", "b"},
-                                  {"set", "o"},
-                                  {"set.f0_n", "n"},
-                                  {"set.f1_n_per_kmh", "n"},
-                                  {"set.f2_n_per_kmh2", "n"},
-                                  {"unusable_reason", "s?"},
-                                  {"files", "a?"}});
+  std::string p = check_needs(r, {{"run", "n"}, {"usable", "b"}, {"unusable_reason", "s?"}, {"files", "a?"}});
+  if (p.empty()) p = check_needs(r, curve_needs("set", "o"));
   if (!p.empty() || !r["usable"].get<bool>()) return p;
   // Older folders wrote the measured coefficients as "simulated".
-  const bool old = !r.contains("measured");
-  p = check_needs(r, {{old ? "simulated" : "measured", "o"},
-                      {old ? "simulated.f0_n" : "measured.f0_n", "n"},
-                      {old ? "simulated.f1_n_per_kmh" : "measured.f1_n_per_kmh", "n"},
-                      {old ? "simulated.f2_n_per_kmh2" : "measured.f2_n_per_kmh2", "n"},
-                      {"check", "o"},
+  p = check_needs(r, curve_needs(std::string(record::measured_member(r)), "o"));
+  if (!p.empty()) return p;
+  p = check_needs(r, {{"check", "o"},
                       {"check.pass", "b"},
                       {"check.worst_abs_deviation_n", "n"},
                       {"check.rows", "a"},
@@ -165,9 +165,13 @@ std::string record_problem(const json& r) {
   if (!p.empty()) return p;
   std::size_t i = 0;
   for (const auto& row : r["check"]["rows"]) {
-    const std::string q = check_needs(
-        row,
-        {{"speed_kmh", "n"}, {"target_n", "n"}, {"measured_n", "n"}, {"deviation_n", "n"}, {"pass", "b"}});
+    const std::string q = check_needs(row, {{"speed_kmh", "n"},
+                                            {"target_n", "n"},
+                                            {"measured_n", "n"},
+                                            {"deviation_n", "n"},
+                                            {"u_n", "n?"},
+                                            {"limit_n", "n?"},
+                                            {"pass", "b"}});
     if (!q.empty()) return "has check.rows." + std::to_string(i) + " that " + q;
     ++i;
   }
@@ -353,9 +357,9 @@ static std::string write_report_body(const std::string& folder, const std::strin
     h += "</td></tr></table>\n";
   }
   if (finished.contains("final_set")) {
-    h += "<p>Final set coefficients: f0 " + fmt(finished["final_set"].value("f0_n", 0.0), 1) + " N, f1 " +
-         fmt(finished["final_set"].value("f1_n_per_kmh", 0.0), 3) + " N/(km/h), f2 " +
-         fmt(finished["final_set"].value("f2_n_per_kmh2", 0.0), 5) + " N/(km/h)²</p>\n";
+    const core::RoadLoad fs = coef(finished["final_set"]);
+    h += "<p>Final set coefficients: f0 " + fmt(fs.f0_n, 1) + " N, f1 " + fmt(fs.f1_n_per_kmh, 3) +
+         " N/(km/h), f2 " + fmt(fs.f2_n_per_kmh2, 5) + " N/(km/h)²</p>\n";
   }
 
   // Coefficients table.
@@ -363,10 +367,10 @@ static std::string write_report_body(const std::string& folder, const std::strin
        "N/(km/h)</th><th>f2 N/(km/h)²</th>"
        "<th>A lbf</th><th>B lbf/mph</th><th>C lbf/mph²</th></tr>\n";
   auto coef_row = [&](const std::string& what, const json& rec, const std::string& base) {
-    h += "<tr><td>" + esc(what) + "</td>" + cell(rec, base + ".f0_n", 2) +
-         cell(rec, base + ".f1_n_per_kmh", 4) + cell(rec, base + ".f2_n_per_kmh2", 5) +
-         cell(rec, base + ".f0_n", 2, "lbf") + cell(rec, base + ".f1_n_per_kmh", 4, "lbf/mph") +
-         cell(rec, base + ".f2_n_per_kmh2", 5, "lbf/mph2") + "</tr>\n";
+    h += "<tr><td>" + esc(what) + "</td>" + cell(rec, coef_path(base, 0), 2) +
+         cell(rec, coef_path(base, 1), 4) + cell(rec, coef_path(base, 2), 5) +
+         cell(rec, coef_path(base, 0), 2, "lbf") + cell(rec, coef_path(base, 1), 4, "lbf/mph") +
+         cell(rec, coef_path(base, 2), 5, "lbf/mph2") + "</tr>\n";
   };
   if (started.contains("target")) coef_row("target", started, "target");
   std::string coef_csv = "run,what,f0_n,f1_n_per_kmh,f2_n_per_kmh2,a_lbf,b_lbf_per_mph,c_lbf_per_mph2\n";
@@ -383,7 +387,7 @@ static std::string write_report_body(const std::string& folder, const std::strin
     coef_row("coast-down " + n + ": set", r, "set");
     csv_coef(n, "set", coef(r["set"]));
     if (r.value("usable", false)) {
-      const std::string mk = r.contains("measured") ? "measured" : "simulated";
+      const std::string mk(record::measured_member(r));
       coef_row("coast-down " + n + ": measured", r, mk);
       csv_coef(n, "measured", coef(r[mk]));
     }
@@ -391,7 +395,19 @@ static std::string write_report_body(const std::string& folder, const std::strin
   h += "</table>\n";
 
   // Per reference speed, every coast-down.
-  h += "<h2>Forces at the reference speeds (tolerance ±" + fmt(tol, 1) + " N)</h2>\n";
+  // The decision rule each coast-down was judged by (docs/standards.md §3.11); folders written before the
+  // rule was recorded were judged by the simple rule.
+  std::string rule_text =
+      "simple acceptance (the standard's: each deviation within the tolerance as measured)";
+  for (const auto& r : runs)
+    if (r.value("usable", false) && r.contains("check") &&
+        r["check"].value("decision_rule", "simple") == "guard-band")
+      rule_text = "guard band (lab policy): |deviation| ≤ tolerance − " +
+                  fmt(r["check"].value("coverage_k", 2.0), 1) + " × u";
+  h +=
+      "<h2>Forces at the reference speeds (tolerance ±" + fmt(tol, 1) +
+      " N)</h2>\n<p id=\"decision-rule\">Decision rule: " + esc(rule_text) +
+      ". u is the standard uncertainty of the regressed force at the speed (least-squares covariance).</p>\n";
   std::string dev_csv = "run,speed_kmh,target_n,measured_n,deviation_n,pass\n";
   for (const auto& r : runs) {
     const std::string n = std::to_string(r.value("run", 0));
@@ -400,17 +416,19 @@ static std::string write_report_body(const std::string& folder, const std::strin
            esc(r.value("unusable_reason", "")) + "</p>\n";
       continue;
     }
-    h += "<table class=\"speeds\" id=\"speeds-" + n + "\"><tr><th colspan=\"5\">coast-down " + n +
+    h += "<table class=\"speeds\" id=\"speeds-" + n + "\"><tr><th colspan=\"7\">coast-down " + n +
          (r["check"].value("pass", false) ? " — within tolerance" : " — OUTSIDE tolerance") +
          "; decision: " + esc(r["decision"].value("reason", "")) +
          "</th></tr>\n<tr><th>v km/h</th><th>target N</th><th>measured N</th><th>deviation "
-         "N</th><th>result</th></tr>\n";
+         "N</th><th>u N</th><th>limit ±N</th><th>result</th></tr>\n";
     const auto& rows = r["check"]["rows"];
     for (std::size_t i = 0; i < rows.size(); ++i) {
       const std::string k = "check.rows." + std::to_string(i);
       const bool pass = rows[i].value("pass", false);
       h += "<tr>" + cell(r, k + ".speed_kmh", 0) + cell(r, k + ".target_n", 2) +
            cell(r, k + ".measured_n", 2) + cell(r, k + ".deviation_n", 2, "", pass ? "" : "fail") +
+           (rows[i].contains("u_n") ? cell(r, k + ".u_n", 2) + cell(r, k + ".limit_n", 2)
+                                    : std::string("<td>—</td><td>—</td>")) +
            "<td class=\"" + (pass ? "pass" : "fail") + "\">" + (pass ? "pass" : "FAIL") + "</td></tr>\n";
       char b[160];
       std::snprintf(b, sizeof b, "%s,%.1f,%.3f,%.3f,%.3f,%s\n", n.c_str(), rows[i].value("speed_kmh", 0.0),
@@ -443,7 +461,7 @@ static std::string write_report_body(const std::string& folder, const std::strin
     int k = 0;
     for (const auto& r : runs) {
       if (!r.value("usable", false)) continue;
-      const core::RoadLoad c = coef(r.contains("measured") ? r["measured"] : r["simulated"]);
+      const core::RoadLoad c = coef(r[std::string(record::measured_member(r))]);
       Series s{&r == last ? "final: coast-down " + std::to_string(r.value("run", 0))
                           : "coast-down " + std::to_string(r.value("run", 0)),
                vs,

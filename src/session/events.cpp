@@ -6,6 +6,8 @@
 #include <algorithm>
 #include <cmath>
 
+#include "record/road_load_json.hpp"
+
 namespace loadtrim::session {
 
 const char* to_string(State s) {
@@ -68,16 +70,15 @@ std::optional<Outcome> outcome_from_string(const std::string& s) {
 }
 
 nlohmann::json to_json(const core::RoadLoad& c) {
-  return {{"f0_n", c.f0_n}, {"f1_n_per_kmh", c.f1_n_per_kmh}, {"f2_n_per_kmh2", c.f2_n_per_kmh2}};
+  return record::road_load_json(c);
 }
 
 core::RoadLoad road_load_from_json(const nlohmann::json& j) {
-  return {j.at("f0_n").get<double>(), j.at("f1_n_per_kmh").get<double>(),
-          j.at("f2_n_per_kmh2").get<double>()};
+  return record::road_load_from_json(j);
 }
 
 core::RoadLoad measured_of(const nlohmann::json& r) {
-  return road_load_from_json(r.contains("measured") ? r.at("measured") : r.at("simulated"));
+  return road_load_from_json(r.at(std::string(record::measured_member(r))));
 }
 
 namespace {
@@ -89,6 +90,8 @@ nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
                    {"target_n", d.target_n},
                    {"measured_n", d.measured_n},
                    {"deviation_n", d.deviation_n},
+                   {"u_n", d.u_n},
+                   {"limit_n", d.limit_n},
                    {"pass", d.pass}});
   return out;
 }
@@ -226,6 +229,22 @@ struct Mapper {
   }
   nlohmann::json operator()(const ev::PassesReset& e) const {
     return {{"run", e.run}, {"passes", e.passes}, {"why", e.why}};
+  }
+  nlohmann::json operator()(const ev::WarmUpDrift& e) const {
+    nlohmann::json j = {{"run", e.run},         {"t_s", e.t_s},
+                        {"rule", e.rule},       {"threshold_n", e.threshold_n},
+                        {"verdict", e.verdict}, {"points", e.curve.points}};
+    if (e.curve.ok) {
+      j["remaining_drift_n"] = e.curve.remaining_drift_n(e.t_s);
+      j["settled_n"] = e.curve.settled_n;
+      j["amplitude_n"] = e.curve.amplitude_n;
+      j["tau_s"] = e.curve.tau_s;
+      j["tau_at_bound"] = e.curve.tau_at_bound;
+      j["rms_residual_n"] = e.curve.rms_residual_n;
+    } else {
+      j["why"] = e.curve.why;
+    }
+    return j;
   }
   nlohmann::json operator()(const ev::ConsecutiveTiming& e) const {
     return {{"rule", e.rule}, {"gap_since_last_coast_s", e.gap_since_last_coast_s}};
@@ -513,6 +532,7 @@ struct Typer {
     return e.within ? "timing" : "timing_rule_missed";
   }
   const char* operator()(const ev::PassesReset&) const { return "passes_reset"; }
+  const char* operator()(const ev::WarmUpDrift&) const { return "warm_up_drift"; }
   const char* operator()(const ev::ConsecutiveTiming&) const { return "timing"; }
   const char* operator()(const ev::Coastdown&) const { return "coastdown"; }
   const char* operator()(const ev::CoastdownDiscarded&) const { return "coastdown_discarded"; }
@@ -578,9 +598,9 @@ nlohmann::json to_json(const CoastdownRecord& r) {
     return j;
   }
   j["measured"] = to_json(e.fit.coefficients);
-  j["measured_std_error"] = {{"f0_n", std::sqrt(std::max(0.0, e.fit.covariance(0, 0)))},
-                             {"f1_n_per_kmh", std::sqrt(std::max(0.0, e.fit.covariance(1, 1)))},
-                             {"f2_n_per_kmh2", std::sqrt(std::max(0.0, e.fit.covariance(2, 2)))}};
+  j["measured_std_error"] = to_json(core::RoadLoad{std::sqrt(std::max(0.0, e.fit.covariance(0, 0))),
+                                                   std::sqrt(std::max(0.0, e.fit.covariance(1, 1))),
+                                                   std::sqrt(std::max(0.0, e.fit.covariance(2, 2)))});
   j["regression_residual_sd_n"] = e.fit.residual_sd_n;
   if (e.whole_trace.ok)
     j["whole_trace"] = {{"coefficients", to_json(e.whole_trace.coefficients)},
@@ -593,7 +613,10 @@ nlohmann::json to_json(const CoastdownRecord& r) {
   j["check"] = {{"pass", e.check.pass},
                 {"worst_abs_deviation_n", e.check.worst_abs_deviation_n},
                 {"tolerance_n", r.tolerance_n},
+                {"decision_rule", core::to_string(e.check.rule.kind)},
                 {"rows", deviations_json(e.check.rows)}};
+  if (e.check.rule.kind == core::DecisionRule::Kind::guard_band)
+    j["check"]["coverage_k"] = e.check.rule.coverage_k;
   j["decision"] = {{"kind", core::to_string(r.decision.kind)},
                    {"reason", r.decision.reason},
                    {"next_set", to_json(r.decision.next_set)}};

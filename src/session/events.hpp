@@ -30,6 +30,7 @@
 #include "core/road_load.hpp"
 #include "core/setting.hpp"
 #include "core/strategy.hpp"
+#include "core/warm_up_drift.hpp"
 
 namespace loadtrim::session {
 
@@ -236,6 +237,16 @@ struct PassesReset {  // "passes_reset": passes that no longer count as consecut
   int passes = 0;
   std::string why;
 };
+struct WarmUpDrift {  // "warm_up_drift": the vehicle's warming trend when a setting is about to be accepted
+  int run = 0;
+  double t_s = 0.0;  // controller time since motoring began
+  core::WarmUpCurve curve;
+  std::string rule;  // "warn" or "require"
+  double threshold_n = 0.0;
+  // "settled" (below the threshold), "still warming: accepted with a finding", "still warming: coasting
+  // again", or "not estimated: ..." (then nothing is decided by it).
+  std::string verdict;
+};
 struct ConsecutiveTiming {  // "timing"
   std::string rule;
   double gap_since_last_coast_s = 0.0;
@@ -400,12 +411,12 @@ using Payload = std::variant<
     ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted, ev::WarmUpHeld,
     ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::WarmUpEnded, ev::FirstSetting,
     ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted, ev::ReleaseTiming, ev::PassesReset,
-    ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect,
-    ev::NotSettled, ev::FaultCleared, ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Resumed,
-    ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted,
-    ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied, ev::RateRunStarted,
-    ev::ParasiticAnalysed, ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::FrictionAnalysed,
-    ev::AccelDecelAnalysed, ev::ResponseAnalysed, ev::CheckFinished>;
+    ev::WarmUpDrift, ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging,
+    ev::LinkLost, ev::Reconnect, ev::NotSettled, ev::FaultCleared, ev::LinkRestored, ev::Fault,
+    ev::Interrupted, ev::Resumed, ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished,
+    ev::CheckStarted, ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied,
+    ev::RateRunStarted, ev::ParasiticAnalysed, ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed,
+    ev::FrictionAnalysed, ev::AccelDecelAnalysed, ev::ResponseAnalysed, ev::CheckFinished>;
 
 // The record type an event is written as (the "type" member of its line).
 const char* type_of(const Payload& p);

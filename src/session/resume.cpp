@@ -102,9 +102,13 @@ Summary summary_from_record(const ResumePoint& p, const core::Profile& profile) 
       if (it->value("usable", false) && (it->contains("measured") || it->contains("simulated"))) {
         s.measured = measured_of(*it);
         for (const auto& row : it->at("check").at("rows"))
-          s.deviations.push_back({row.value("speed_kmh", 0.0), row.value("target_n", 0.0),
-                                  row.value("measured_n", 0.0), row.value("deviation_n", 0.0),
-                                  row.value("pass", false)});
+          s.deviations.push_back({.speed_kmh = row.value("speed_kmh", 0.0),
+                                  .target_n = row.value("target_n", 0.0),
+                                  .measured_n = row.value("measured_n", 0.0),
+                                  .deviation_n = row.value("deviation_n", 0.0),
+                                  .u_n = row.value("u_n", 0.0),
+                                  .limit_n = row.value("limit_n", it->at("check").value("tolerance_n", 0.0)),
+                                  .pass = row.value("pass", false)});
         break;
       }
   } catch (

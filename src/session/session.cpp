@@ -19,6 +19,15 @@ using core::num;
 namespace {
 constexpr int kInterruptedCode = motion::kInterrupted;
 constexpr int kTooSlowCode = motion::kTooSlow;
+// The progress line's estimate only (it moves nothing): a coast-down whose time cannot be predicted counts as
+// 5 min, each run adds a minute of run-up, and before the inertia is known a mid-size car's 1500 kg stands in
+// (common practice, no source).
+constexpr double kUnpredictedCoastS = 300.0;
+constexpr double kRunUpEstimateS = 60.0;
+constexpr double kEstimateMassKg = 1500.0;
+// A coast-down with no predicted time gets this much controller time at least, and never less than three
+// times the predicted time (common practice, no source): longer means too little retarding force.
+constexpr double kMinCoastBudgetS = 300.0;
 }  // namespace
 
 Session::Session(Inputs inputs, Options options, controller::Controller& controller,
@@ -100,9 +109,10 @@ void Session::progress(double speed_kmh, double band_kmh) {
   int runs_left = pr.method == core::SettingMethod::iterative
                       ? std::max(1, pr.consecutive_passes - (method_ ? method_->consecutive_passes() : 0))
                       : std::max(1, pr.fixed_runs + pr.fixed_run_verification_runs - coastdowns_);
-  const auto coast = core::coastdown_time_s(in_.vehicle.target, force_mass_kg_ > 0 ? force_mass_kg_ : 1500.0,
-                                            pr.start_speed_kmh(), std::max(1.0, pr.end_speed_kmh()));
-  const double per_run = coast.value_or(300.0) + 60.0;
+  const auto coast =
+      core::coastdown_time_s(in_.vehicle.target, force_mass_kg_ > 0 ? force_mass_kg_ : kEstimateMassKg,
+                             pr.start_speed_kmh(), std::max(1.0, pr.end_speed_kmh()));
+  const double per_run = coast.value_or(kUnpredictedCoastS) + kRunUpEstimateS;
   p.remaining_estimate_s = runs_left * per_run;
   if (state_ == State::warm_up && t_motoring_from_ >= 0.0)
     p.remaining_estimate_s += std::max(0.0, pr.warm_up.duration_s - (t_now_ - t_motoring_from_));
@@ -122,8 +132,8 @@ void Session::transition(State to, const std::string& why) {
 
 Result Session::hold_and_wait(double speed_kmh, const char* what) {
   motion_commanded_ = true;
-  // At the setpoint, then 2 s more to settle; 600 s of controller time at most.
-  return motion_.hold(speed_kmh, 2.0, what, 600.0);
+  // At the setpoint, then 2 s more to settle; the default step budget of controller time at most.
+  return motion_.hold(speed_kmh, 2.0, what, motion::kDefaultStepBudgetS);
 }
 
 std::optional<Session::Stop> Session::fault(const Result& r, const std::string& during) {
@@ -260,6 +270,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   const auto& w = in_.profile.warm_up;
   if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
   t_motoring_from_ = t_now_;
+  if (drift_t0_ < 0.0) drift_t0_ = t_now_;
   // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
   // time (ramps at the motoring rate, settle and average at each speed).
   const core::HoldPlan plan = core::plan_hold_points(in_.profile.loss_map, w.speed_kmh, speed_limit_kmh_);
@@ -280,6 +291,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         ++n;
         if (s.time_s - window_start >= w.stable_window_s) {
           window_means.push_back(sum / std::max(1, n));
+          drift_points_.push_back({0.5 * (window_start + s.time_s) - drift_t0_, window_means.back()});
           sum = 0.0;
           n = 0;
           window_start = s.time_s;
@@ -388,8 +400,9 @@ std::optional<Session::Stop> Session::do_run(int run) {
   // A coast that takes three times the target's predicted time (or 5 min, whichever is longer) means the set
   // load plus the vehicle's loss leaves too little retarding force: the dyno is nearly driving the car.
   const double predicted =
-      core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end).value_or(300.0);
-  const double budget = std::max(300.0, 3.0 * predicted);
+      core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end)
+          .value_or(kMinCoastBudgetS);
+  const double budget = std::max(kMinCoastBudgetS, 3.0 * predicted);
   // Only road-load samples read after the release was acknowledged are this coast's.
   Result r = motion_.collect(
       step("coast-down", budget, {Mode::road_load}),
@@ -505,6 +518,38 @@ std::optional<Session::Stop> Session::do_run(int run) {
     for (const auto& t : core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_,
                                                       p.reference_speeds_kmh, p.band_half_width_kmh))
       rec.predicted_delta_t_s.push_back(t);
+    // A setting about to be accepted: is the vehicle still warming (docs/standards.md §3.12)?
+    if (rec.decision.kind == core::Decision::Kind::accepted) {
+      const auto& w = p.warm_up;
+      const bool require = w.drift_rule == core::WarmUp::DriftRule::require;
+      ev::WarmUpDrift d{run,
+                        t_now_ - drift_t0_,
+                        core::fit_warm_up_curve(drift_points_),
+                        require ? "require" : "warn",
+                        w.drift_threshold_n,
+                        ""};
+      const bool warming = d.curve.ok && !(d.curve.remaining_drift_n(d.t_s) <= w.drift_threshold_n);
+      if (!d.curve.ok)
+        d.verdict = "not estimated: " + d.curve.why;
+      else if (!warming)
+        d.verdict = "settled";
+      else if (require)
+        d.verdict = "still warming: coasting again at the accepted setting";
+      else
+        d.verdict = "still warming: accepted with a finding";
+      emit(d);
+      if (warming && require) {
+        rec.decision.kind = core::Decision::Kind::run_again;
+        rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +
+                               num(d.curve.remaining_drift_n(d.t_s), 1) + " N above " +
+                               num(w.drift_threshold_n, 1) + " N): same setting again";
+      } else if (warming) {
+        findings_.push_back("the vehicle was still warming at acceptance: estimated remaining drift " +
+                            num(d.curve.remaining_drift_n(d.t_s), 1) + " N at the warm-up speed (threshold " +
+                            num(w.drift_threshold_n, 1) + " N; warm-up curve time constant " +
+                            num(d.curve.tau_s, 0) + " s); the profile's warm_up.drift_rule is \"warn\"");
+      }
+    }
     last_ = rec;
     if (!emit(ev::Coastdown{rec}, &trace)) return Stop{Outcome::record_failure, record_error_};
     if (rec.decision.kind == core::Decision::Kind::accepted) {

@@ -54,6 +54,7 @@
 #include "core/profile.hpp"
 #include "core/strategy.hpp"
 #include "core/vehicle.hpp"
+#include "core/warm_up_drift.hpp"
 #include "motion/motion.hpp"
 #include "session/events.hpp"
 #include "session/resume.hpp"
@@ -150,7 +151,10 @@ class Session {
   std::string record_error_;
   std::vector<std::string> dropped_observers_;
   std::vector<std::string> findings_;  // for page one (Summary::findings)
-  bool first_after_warm_up_ = true;    // the next release is the first after a (re-)warm-up: the 120 s rule
+  // The warm-up hold windows (controller time since the first motoring, mean force) for the drift estimate.
+  std::vector<core::DriftPoint> drift_points_;
+  double drift_t0_ = -1.0;
+  bool first_after_warm_up_ = true;  // the next release is the first after a (re-)warm-up: the 120 s rule
   bool safe_stop_done_ = false, rollers_stopped_ = false, motion_commanded_ = false;
   std::string stop_note_;
   double last_progress_s_ = -1e300;

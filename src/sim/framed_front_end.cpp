@@ -2,6 +2,8 @@
 
 #include <algorithm>
 
+#include "sim/line_front_end.hpp"  // line_event_text: the simulator's note for a latched fault
+
 namespace loadtrim::sim {
 
 using framed::Field;
@@ -10,31 +12,24 @@ using framed::Qty;
 using framed::Values;
 
 namespace {
-// The core's refusal codes (the line protocol's, docs/protocol.md section 10) as the dialect's status digits.
-int status_of(line::ErrorCode c) {
-  switch (c) {
-    case line::ErrorCode::bad_frame:
-      return 1;
-    case line::ErrorCode::unknown_verb:
-    case line::ErrorCode::bad_argument:
-      return 2;
-    case line::ErrorCode::out_of_limits:
-      return 3;
-    case line::ErrorCode::wrong_state:
-      return 4;
-    case line::ErrorCode::fault_active:
-      return 5;
-    case line::ErrorCode::refused:
-      return 6;
-    case line::ErrorCode::internal:
-      break;
-  }
-  return 9;
-}
 double mode_value(controller::Mode m) {
   return static_cast<double>(static_cast<int>(m));
 }
 }  // namespace
+
+int framed_status(Cause c) {
+  switch (c) {
+    case Cause::bad_argument:
+      return 2;
+    case Cause::out_of_limits:
+      return 3;
+    case Cause::wrong_state:
+      return 4;
+    case Cause::fault_active:
+      return 5;
+  }
+  return 9;
+}
 
 FramedFrontEnd::FramedFrontEnd(const physics::Truth& truth, SimSettings settings, framed::Table table)
     : sim_(truth, std::move(settings)), table_(std::move(table)) {}
@@ -120,27 +115,27 @@ void FramedFrontEnd::on_payload(std::string_view payload, double wall_s, std::ve
       break;
     }
     case Op::hold:
-      e = sim_.command(controller::Mode::speed_hold, in.get(Qty::speed_kmh));
+      e = sim_.command(cmd::HoldSpeed{in.get(Qty::speed_kmh)});
       echo_mode();
       break;
     case Op::force:
-      e = sim_.command(controller::Mode::constant_force, in.get(Qty::force_n));
+      e = sim_.command(cmd::ApplyForce{in.get(Qty::force_n)});
       echo_mode();
       break;
     case Op::roadload:
-      e = sim_.command(controller::Mode::road_load, 0.0);
+      e = sim_.command(cmd::ReleaseRoadLoad{});
       echo_mode();
       break;
     case Op::stop:
-      e = sim_.command(controller::Mode::controlled_stop, 0.0);
+      e = sim_.command(cmd::ControlledStop{});
       echo_mode();
       break;
     case Op::idle:
-      e = sim_.command(controller::Mode::idle, 0.0);
+      e = sim_.command(cmd::Idle{});
       echo_mode();
       break;
     case Op::free:
-      e = sim_.command(controller::Mode::free_coast, 0.0);
+      e = sim_.command(cmd::FreeCoast{});
       echo_mode();
       break;
     case Op::write_inertia:
@@ -165,7 +160,7 @@ void FramedFrontEnd::on_payload(std::string_view payload, double wall_s, std::ve
     case Op::count:
       return reply(code, 9, out);
   }
-  if (e) return reply(code, status_of(e->code), out);
+  if (e) return reply(code, framed_status(e->cause), out);
   std::vector<std::string> words{code, "0"};
   if (!framed::encode_values(table_, c.reply, res, words).empty()) return reply(code, 9, out);
   send(std::move(words), out);
@@ -183,7 +178,7 @@ void FramedFrontEnd::catch_up(double wall_s) {
 void FramedFrontEnd::tick(double, double wall_s, std::vector<std::string>&, std::vector<std::string>& notes) {
   catch_up(wall_s);
   sim_.check_watchdog_typed(wall_s, events_);
-  for (const auto& e : events_) notes.push_back("framed EVT " + e);
+  for (const auto& e : events_) notes.push_back("framed EVT " + line_event_text(e));
   events_.clear();
 }
 

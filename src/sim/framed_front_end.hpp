@@ -16,6 +16,9 @@
 
 namespace loadtrim::sim {
 
+// A refusal's cause as the framed dialect's status digit (docs/framed.md section 1).
+int framed_status(Cause c);
+
 class FramedFrontEnd : public FrontEnd {
  public:
   FramedFrontEnd(const physics::Truth& truth, SimSettings settings, framed::Table table);
@@ -37,7 +40,7 @@ class FramedFrontEnd : public FrontEnd {
   framed::FrameSplitter splitter_;
   std::uint64_t frames_sent_ = 0;
   double last_wall_s_ = 0.0;
-  std::vector<std::string> events_;  // fault events latched, said on the next tick
+  std::vector<FaultEvent> events_;  // fault events latched, said on the next tick
 };
 
 }  // namespace loadtrim::sim

@@ -30,7 +30,37 @@ std::string hex2(std::uint32_t f) {
   return b;
 }
 const std::string kCapsField = std::string("caps=") + SimController::kCapabilities;
+static_assert(SimController::kProtocolVersion == kProtocolVersion,
+              "the simulator states the line protocol's version in IDENT and checks it at HELLO");
 }  // namespace
+
+ErrorCode line_error_code(Cause c) {
+  switch (c) {
+    case Cause::bad_argument:
+      return ErrorCode::bad_argument;
+    case Cause::out_of_limits:
+      return ErrorCode::out_of_limits;
+    case Cause::wrong_state:
+      return ErrorCode::wrong_state;
+    case Cause::fault_active:
+      return ErrorCode::fault_active;
+  }
+  return ErrorCode::internal;
+}
+
+std::vector<std::string> line_event_fields(const FaultEvent& e) {
+  std::string d = e.detail;  // one field on the wire: no spaces
+  for (char& ch : d)
+    if (ch == ' ') ch = '_';
+  // The fault's words are the controller interface's (to_string(FaultKind)), as section 9 spells them.
+  return {"FAULT", kv("kind", to_string(e.kind)), kv("detail", d), kv("time_s", e.time_s)};
+}
+
+std::string line_event_text(const FaultEvent& e) {
+  std::string t;
+  for (const auto& f : line_event_fields(e)) t += (t.empty() ? "" : " ") + f;
+  return t;
+}
 
 LineFrontEnd::LineFrontEnd(const physics::Truth& truth, SimSettings settings)
     : sim_(truth, std::move(settings)) {}
@@ -71,19 +101,9 @@ void LineFrontEnd::send(line::Message m, std::vector<std::string>& out) {
   out.push_back(std::move(s));
 }
 
-void LineFrontEnd::send_events(const std::vector<std::string>& events, std::vector<std::string>& out) {
+void LineFrontEnd::send_events(const std::vector<FaultEvent>& events, std::vector<std::string>& out) {
   if (!hello_) return;
-  for (const auto& e : events) {
-    line::Message m{0, kTypeEvent, {}};
-    std::size_t p = 0;
-    while (p <= e.size()) {
-      const auto q = e.find(' ', p);
-      m.fields.push_back(e.substr(p, q == std::string::npos ? std::string::npos : q - p));
-      if (q == std::string::npos) break;
-      p = q + 1;
-    }
-    send(std::move(m), out);
-  }
+  for (const auto& e : events) send({0, kTypeEvent, line_event_fields(e)}, out);
 }
 
 void LineFrontEnd::reply_ok(std::uint32_t req, const std::string& verb, std::vector<std::string> fields,
@@ -125,7 +145,7 @@ void LineFrontEnd::on_line(std::string_view text, double wall_s, std::vector<std
   auto answer = [&](const std::optional<SimError>& e, const std::string& verb,
                     std::vector<std::string> fields) {
     if (e)
-      reply_err(req, e->code, e->text, out);
+      reply_err(req, line_error_code(e->cause), e->message, out);
     else
       reply_ok(req, verb, std::move(fields), out);
   };
@@ -186,29 +206,26 @@ void LineFrontEnd::on_line(std::string_view text, double wall_s, std::vector<std
     if (f.empty())
       return reply_err(req, ErrorCode::bad_argument, "MODE IDLE|HOLD <km/h>|ROADLOAD|STOP|FORCE <N>|FREE",
                        out);
-    controller::Mode mode;
-    double hold = 0.0;
+    Command command;
     if (f[0] == line::kModeHold) {
       const auto v = f.size() == 2 ? line::parse_number(f[1]) : std::nullopt;
       if (!v) return reply_err(req, ErrorCode::bad_argument, "MODE HOLD needs a speed in km/h", out);
-      mode = controller::Mode::speed_hold;
-      hold = *v;
+      command = cmd::HoldSpeed{*v};
     } else if (f[0] == line::kModeForce) {
       const auto v = f.size() == 2 ? line::parse_number(f[1]) : std::nullopt;
       if (!v) return reply_err(req, ErrorCode::bad_argument, "MODE FORCE needs a force in N", out);
-      mode = controller::Mode::constant_force;
-      hold = *v;
+      command = cmd::ApplyForce{*v};
     } else if (f[0] == line::kModeFree)
-      mode = controller::Mode::free_coast;
+      command = cmd::FreeCoast{};
     else if (f[0] == line::kModeRoadLoad)
-      mode = controller::Mode::road_load;
+      command = cmd::ReleaseRoadLoad{};
     else if (f[0] == line::kModeStop)
-      mode = controller::Mode::controlled_stop;
+      command = cmd::ControlledStop{};
     else if (f[0] == line::kModeIdle)
-      mode = controller::Mode::idle;
+      command = cmd::Idle{};
     else
       return reply_err(req, ErrorCode::bad_argument, "unknown mode " + f[0], out);
-    const auto e = sim_.command(mode, hold);
+    const auto e = sim_.command(command);
     return answer(e, kVerbMode, {kv("mode", wire(sim_.status().mode))});
   }
   if (m.type == kVerbStream) {
@@ -222,7 +239,7 @@ void LineFrontEnd::on_line(std::string_view text, double wall_s, std::vector<std
 
 void LineFrontEnd::advance(double dt, std::vector<std::string>& out) {
   std::vector<controller::Sample> samples;
-  std::vector<std::string> events;
+  std::vector<FaultEvent> events;
   sim_.advance_typed(dt, samples, events);
   char b[160];
   for (const auto& s : samples) {
@@ -237,7 +254,7 @@ void LineFrontEnd::advance(double dt, std::vector<std::string>& out) {
 }
 
 void LineFrontEnd::check_watchdog(double wall_s, std::vector<std::string>& out) {
-  std::vector<std::string> events;
+  std::vector<FaultEvent> events;
   sim_.check_watchdog_typed(wall_s, events);
   send_events(events, out);
 }

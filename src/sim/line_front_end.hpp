@@ -13,6 +13,16 @@
 
 namespace loadtrim::sim {
 
+// A refusal's cause as the line protocol's error code (docs/protocol.md section 10).
+line::ErrorCode line_error_code(Cause c);
+// A latched fault as the fields of the EVT line that tells it (docs/protocol.md section 9): FAULT,
+// kind=<WATCHDOG|ESTOP>, detail=<words joined by _>, time_s=<simulated s>.
+std::vector<std::string> line_event_fields(const FaultEvent& e);
+// The same joined by spaces ("FAULT kind=WATCHDOG detail=... time_s=..."): the text of a controller event as
+// the controller interface hands it up (controller.hpp, do_take_events), for in-process adapters, and the
+// simulator's note to its operator.
+std::string line_event_text(const FaultEvent& e);
+
 class LineFrontEnd : public FrontEnd {
  public:
   LineFrontEnd(const physics::Truth& truth, SimSettings settings);
@@ -37,7 +47,7 @@ class LineFrontEnd : public FrontEnd {
   void reply_err(std::uint32_t req, line::ErrorCode code, const std::string& text,
                  std::vector<std::string>& out);
   void send(line::Message m, std::vector<std::string>& out);
-  void send_events(const std::vector<std::string>& events, std::vector<std::string>& out);
+  void send_events(const std::vector<FaultEvent>& events, std::vector<std::string>& out);
 
   SimController sim_;
   line::LineSplitter splitter_;

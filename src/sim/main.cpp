@@ -2,10 +2,12 @@
 // training. It runs the same physics as loadtrim's predictions with a hidden truth file. It is not a dyno.
 #include <CLI/CLI.hpp>
 #include <iostream>
+#include <utility>
 
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
 #include "framed/framed_dialect.hpp"
+#include "line/line_protocol.hpp"
 #include "modbus/map_file.hpp"
 #include "sim/framed_front_end.hpp"
 #include "sim/modbus_server.hpp"
@@ -56,8 +58,9 @@ int main(int argc, char** argv) {
                  "exit after this many wall seconds (a safety net for tests)");
   auto* f = app.add_option_group("faults", "fault injection");
   f->add_option("--drop-at-s", drop_at, "drop the connection once at this simulated time");
-  f->add_option("--drop-in-mode", drop_in_mode,
-                "drop the connection once this mode (HOLD, ROADLOAD) has lasted --drop-after-s");
+  f->add_option(
+      "--drop-in-mode", drop_in_mode,
+      "drop the connection once this mode (IDLE, HOLD, ROADLOAD, STOP, FORCE) has lasted --drop-after-s");
   f->add_option("--drop-after-s", s.faults.drop_after_s, "see --drop-in-mode (simulated seconds)");
   f->add_option("--corrupt-line", corrupt_line, "corrupt the Nth line sent (1-based), once");
   f->add_option("--corrupt-every", s.faults.corrupt_every, "corrupt every Nth line sent");
@@ -113,7 +116,22 @@ int main(int argc, char** argv) {
   s.watchdog_s = watchdog_ms / 1000.0;
   s.time_scale = srv.time_scale;
   if (drop_at >= 0) s.faults.drop_at_s = drop_at;
-  if (!drop_in_mode.empty()) s.faults.drop_in_mode = drop_in_mode;
+  if (!drop_in_mode.empty()) {
+    // In the line protocol's words for the modes a controller reports (docs/protocol.md section 5).
+    const std::pair<const char*, controller::Mode> words[] = {
+        {line::kModeIdle, controller::Mode::idle},
+        {line::kModeHold, controller::Mode::speed_hold},
+        {line::kModeRoadLoad, controller::Mode::road_load},
+        {line::kModeStop, controller::Mode::controlled_stop},
+        {line::kModeForce, controller::Mode::constant_force}};
+    for (const auto& [word, mode] : words)
+      if (drop_in_mode == word) s.faults.drop_in_mode = mode;
+    if (!s.faults.drop_in_mode) {
+      std::cerr << "loadtrim-sim: --drop-in-mode " << drop_in_mode
+                << ": allowed IDLE, HOLD, ROADLOAD, STOP or FORCE\n";
+      return 2;
+    }
+  }
   if (corrupt_line > 0) s.faults.corrupt_line = static_cast<std::uint64_t>(corrupt_line);
   if (stall_at >= 0) s.faults.stall_at_s = stall_at;
   if (estop_at >= 0) s.faults.estop_at_s = estop_at;

@@ -40,7 +40,6 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
   std::signal(SIGTERM, on_signal);
   std::signal(SIGINT, on_signal);
   SimController sim(truth, settings);
-  sim.hello(line::kProtocolVersion);
   modbus_mapping_t* mb =
       modbus_mapping_new(extent(map, Table::coil), 0, extent(map, Table::holding), extent(map, Table::input));
   if (!mb) return 1;
@@ -136,7 +135,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     const double dt = std::min(0.05, std::chrono::duration<double>(now - last).count());
     last = now;
     std::vector<controller::Sample> unused;
-    std::vector<std::string> events;
+    std::vector<FaultEvent> events;  // seen by the tool in the status register (the map has no events)
     sim.advance_typed(dt * server.time_scale, unused, events);
     sim.check_watchdog_typed(wall(), events);
     if (server.exit_after_s > 0 && wall() > server.exit_after_s) break;
@@ -184,20 +183,21 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
         if (c == modbus::kCommandClearFault)
           e = sim.clear();
         else if (force && map[Q::force_setpoint].present)
-          e = sim.command(controller::Mode::constant_force, get(Q::force_setpoint));
+          e = sim.command(cmd::ApplyForce{get(Q::force_setpoint)});
         else if (map.modes.free_coast >= 0 && c == map.modes.free_coast)
-          e = sim.command(controller::Mode::free_coast, 0.0);
-        else if (c < modbus::kCommandIdle || c > modbus::kCommandStop)
-          e = SimError{line::ErrorCode::bad_argument,
-                       "command code " + std::to_string(c) + " is not in the map"};
+          e = sim.command(cmd::FreeCoast{});
+        else if (c == modbus::kCommandHold)
+          e = sim.command(cmd::HoldSpeed{get(Q::hold_speed)});
+        else if (c == modbus::kCommandRoadLoad)
+          e = sim.command(cmd::ReleaseRoadLoad{});
+        else if (c == modbus::kCommandStop)
+          e = sim.command(cmd::ControlledStop{});
+        else if (c == modbus::kCommandIdle)
+          e = sim.command(cmd::Idle{});
         else
-          e = sim.command(c == modbus::kCommandHold       ? controller::Mode::speed_hold
-                          : c == modbus::kCommandRoadLoad ? controller::Mode::road_load
-                          : c == modbus::kCommandStop     ? controller::Mode::controlled_stop
-                                                          : controller::Mode::idle,
-                          get(Q::hold_speed));
+          e = SimError{Cause::bad_argument, "command code " + std::to_string(c) + " is not in the map"};
       }
-      put(Q::error, e ? static_cast<double>(static_cast<int>(e->code)) : 0.0);
+      put(Q::error, e ? static_cast<double>(modbus_error_code(e->cause)) : 0.0);
       put(Q::inertia, sim.model().inertia_set_kg());
       if (!lie) {  // the lie leaves the setpoint registers as written: they read back what the tool wrote
         put(Q::f0, sim.model().coefficients().f0_n);

@@ -9,9 +9,16 @@
 #include <string>
 
 #include "modbus/register_map.hpp"
+#include "sim/line_front_end.hpp"
 #include "sim/sim_server.hpp"
 
 namespace loadtrim::sim {
+
+// A refusal's cause as the value of the error register after a strobe: the line protocol's error code
+// (docs/modbus.md, register "error"; the codes are docs/protocol.md section 10).
+inline int modbus_error_code(Cause c) {
+  return static_cast<int>(line_error_code(c));
+}
 
 struct ModbusOptions {
   std::string rtu_device;  // "" = Modbus TCP

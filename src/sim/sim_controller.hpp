@@ -1,33 +1,33 @@
 // The simulated controller's dialect-neutral core: the physics model with the controller's limits, a
 // heartbeat watchdog and fault injection, as typed calls. Pure: no sockets, no clocks, no wire format. Each
 // dialect has its own front end over it (line_front_end.hpp: the line protocol; framed_front_end.hpp: the
-// framed ASCII dialect; modbus_server.cpp: the Modbus register map), which decodes requests into these calls,
-// passes wall time in for the watchdog and encodes the answers. Refusals carry the line protocol's error
-// codes (docs/protocol.md section 10), which every front end maps to its own.
+// framed ASCII dialect; modbus_server.hpp: the Modbus register map), which decodes requests into these calls,
+// passes wall time in for the watchdog and encodes the answers. Refusals carry a cause of the core's own
+// (SimError) and latched faults come out as typed events (FaultEvent); each front end maps them to its
+// dialect's codes and words.
 #pragma once
 
 #include <cstdint>
 #include <optional>
 #include <random>
 #include <string>
-#include <string_view>
+#include <variant>
 #include <vector>
 
 #include "controller/controller.hpp"
-#include "line/line_protocol.hpp"
 #include "physics/roller_model.hpp"
 
 namespace loadtrim::sim {
 
 struct FaultPlan {
-  std::optional<double> drop_at_s;          // close the link once when simulated time passes this
-  std::optional<std::string> drop_in_mode;  // ...or when this mode (HOLD, ROADLOAD) has lasted drop_after_s
+  std::optional<double> drop_at_s;               // close the link once when simulated time passes this
+  std::optional<controller::Mode> drop_in_mode;  // ...or when this mode, as reported, has lasted drop_after_s
   double drop_after_s = 0.0;
   std::optional<std::uint64_t> corrupt_line;  // corrupt the Nth line sent (1-based), once
   std::uint64_t corrupt_every = 0;            // corrupt every Nth line sent (0 = never)
   std::optional<double> stall_at_s;           // stop the sample stream at this simulated time
   double delay_replies_ms = 0.0;     // hold every reply back this long (wall time; the server applies it)
-  std::vector<std::string> refuse;   // verbs answered with ERR 41
+  std::vector<std::string> refuse;   // requests refused by the front end: the dialect's verbs or operations
   std::optional<double> estop_at_s;  // raise an emergency stop at this simulated time
   std::optional<double> report_roller_diameter_m;  // IDENT reports this instead of the truth
   std::optional<double> report_base_inertia_kg;
@@ -43,27 +43,75 @@ struct SimSettings {
   FaultPlan faults;
 };
 
-// A refusal by the simulated controller: the protocol's error code and a short text.
-struct SimError {
-  line::ErrorCode code;
-  std::string text;
+// Why the simulated controller refused a call. Each front end maps a cause to its dialect's code: the line
+// protocol's error code (line_error_code), the framed dialect's status digit (framed_status), the Modbus
+// error register (modbus_error_code).
+enum class Cause : std::uint8_t {
+  bad_argument,   // a value the call cannot take (not a number, a rate outside its range, a version)
+  out_of_limits,  // outside the controller's speed, force or inertia limits
+  wrong_state,    // not allowed in the current state (during road-load simulation, rollers turning)
+  fault_active,   // a fault is latched: clear it first
 };
+
+// A refusal by the simulated controller: its cause and a short message for the operator.
+struct SimError {
+  Cause cause;
+  std::string message;
+};
+
+// A fault the simulated controller latches on its own; it then goes to its safe state (controlled stop, or
+// idle at rest) and refuses motoring until the fault is cleared.
+enum class FaultKind : std::uint8_t { watchdog, estop };
+// "WATCHDOG", "ESTOP": the words of controller::StatusReport::fault (and of every dialect that names faults).
+const char* to_string(FaultKind k);
+
+struct FaultEvent {
+  FaultKind kind;
+  std::string detail;   // a short sentence (with spaces)
+  double time_s = 0.0;  // simulated time when it latched
+};
+
+// A command with the setpoint its mode takes, typed so that a speed and a force never share a parameter.
+namespace cmd {
+struct Idle {};
+struct HoldSpeed {
+  double speed_kmh = 0.0;
+};
+struct ReleaseRoadLoad {};  // into road-load simulation with the set inertia and coefficients
+struct ControlledStop {};
+struct ApplyForce {
+  double force_n = 0.0;
+};
+struct FreeCoast {};
+}  // namespace cmd
+using Command = std::variant<cmd::Idle, cmd::HoldSpeed, cmd::ReleaseRoadLoad, cmd::ControlledStop,
+                             cmd::ApplyForce, cmd::FreeCoast>;
+// The mode a command leads to.
+controller::Mode mode_of(const Command& c);
+// The controller interface's command (controller::Controller::do_command: a mode and one value, the speed in
+// km/h for speed_hold, the force in N for constant_force, else unused) as a typed one, for in-process
+// adapters.
+Command command_for(controller::Mode mode, double value);
 
 class SimController {
  public:
   SimController(const physics::Truth& truth, SimSettings settings);
 
-  // The capability words of info().capabilities (the line protocol's spelling, docs/protocol.md section 2).
+  // The capability words of info().capabilities (the controller interface's spelling, which the line protocol
+  // uses: docs/protocol.md section 2).
   static constexpr const char* kCapabilities =
       "hold,hold-force,roadload,stop,stream,watchdog,status,force,free";
+  // The version of the controller interface this simulator states in info() (the line protocol's version:
+  // its front end checks that they agree).
+  static constexpr int kProtocolVersion = 1;
 
   // What any front end (a dialect, a direct in-process adapter) calls.
-  // Checks a client's protocol version against the one this simulator states in info() (no state kept).
+  // Checks a client's protocol version against kProtocolVersion (no state kept).
   std::optional<SimError> hello(int version);
   controller::ControllerInfo info() const;
   std::optional<SimError> set_inertia(double kg);
   std::optional<SimError> set_coefficients(const core::RoadLoad& c);
-  std::optional<SimError> command(controller::Mode mode, double hold_kmh);
+  std::optional<SimError> command(const Command& c);
   std::optional<SimError> stream(double rate_hz);
   std::optional<SimError> clear();
   // The speed in it is the encoder's reading, with its noise (at rest too: never an exact zero by design).
@@ -71,11 +119,10 @@ class SimController {
   void touch(double wall_s) { last_request_wall_s_ = wall_s; }  // a sign of life from the tool
   // A reading now (noisy), with mode and flags: what register-based front ends publish.
   controller::Sample reading();
-  // Advances simulated time; samples at the stream rate and fault events ("FAULT kind=... detail=...")
-  // appended.
+  // Advances simulated time; samples at the stream rate and the faults latched meanwhile are appended.
   void advance_typed(double sim_dt_s, std::vector<controller::Sample>& samples,
-                     std::vector<std::string>& events);
-  void check_watchdog_typed(double wall_s, std::vector<std::string>& events);
+                     std::vector<FaultEvent>& events);
+  void check_watchdog_typed(double wall_s, std::vector<FaultEvent>& events);
 
   // The link went away: the stream stops (the watchdog then takes over).
   void on_disconnect() { stream_hz_ = 0.0; }
@@ -86,12 +133,19 @@ class SimController {
 
   const physics::RollerModel& model() const { return model_; }
   double time_s() const { return model_.time_s(); }
-  std::string fault() const { return fault_; }
+  std::optional<FaultKind> fault() const { return fault_; }
   double delay_replies_ms() const { return settings_.faults.delay_replies_ms; }
 
  private:
-  void latch_fault(const std::string& kind, const std::string& detail, std::vector<std::string>& events);
-  std::string wire_mode() const;
+  std::optional<SimError> run(const cmd::HoldSpeed& h);
+  std::optional<SimError> run(const cmd::ApplyForce& f);
+  std::optional<SimError> run(const cmd::ReleaseRoadLoad&);
+  std::optional<SimError> run(const cmd::ControlledStop&);
+  std::optional<SimError> run(const cmd::Idle&);
+  std::optional<SimError> run(const cmd::FreeCoast&);
+  void latch_fault(FaultKind kind, std::string detail, std::vector<FaultEvent>& events);
+  // The mode as the controller reports it: idle while the rollers coast freely (docs/protocol.md section 11).
+  controller::Mode reported_mode() const;
   std::uint32_t flags() const;
 
   physics::RollerModel model_;
@@ -101,7 +155,7 @@ class SimController {
   std::uint64_t sample_index_ = 0;
   double last_request_wall_s_ = 0.0;
   double mode_since_s_ = 0.0;
-  std::string fault_;  // latched: WATCHDOG, ESTOP
+  std::optional<FaultKind> fault_;  // latched
   bool dropped_once_ = false;
   bool drop_pending_ = false;
   bool estop_done_ = false;

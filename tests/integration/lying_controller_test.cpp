@@ -716,7 +716,8 @@ const ModbusRow kModbusRows[] = {
     {"fault_flag", ModbusLie::fault_flag, mb_hold30(), Cmd::run, 3, "reports a fault", 60},
     {"at_limit", ModbusLie::at_limit, mb_hold30(), Cmd::run, 3, "at a limit (flags 0x", 60},
     {"over_speed", ModbusLie::over_speed, ModbusTrigger::start(), Cmd::run, 3, "above the limit", 60},
-    // Busy on every request: retried within the map's policy (3 times, 500 ms), then a refusal named as such.
+    // Busy on every request: retried within the map's policy (3 times, 500 ms), then a refusal named as such;
+    // the proxy counts each request's retries (below).
     {"busy_always", ModbusLie::busy_always, mb_hold30(), Cmd::run, 3, "Modbus exception 6", 60},
     // A gateway whose target does not answer: a timeout, under the reconnect policy, then a fault.
     {"gateway_always", ModbusLie::gateway_always, mb_hold30(), Cmd::run, 3, "Modbus exception 11", 60},
@@ -747,7 +748,8 @@ const ModbusRow kModbusRows[] = {
     {"rtu_trickle", ModbusLie::trickle, mb_hold30(), Cmd::run, 3, "no complete reply", 60, nullptr, false,
      true},
     // A reply that arrives after the tool's reply timeout, when it has asked something else: never taken for
-    // the other request's reply (RTU frames carry no transaction id); the link is reported, the stop follows.
+    // the other request's reply (RTU frames carry no transaction id); the link is reported with the late
+    // bytes discarded (checked below), the stop follows.
     {"rtu_late_reply", ModbusLie::late_reply, mb_hold30(), Cmd::run, 3, "no complete reply", 60, nullptr,
      false, true},
 };
@@ -844,14 +846,17 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
     if (e.is_directory() && fs::exists(e.path() / "events.jsonl")) folder = e.path().string();
   const std::string logged = folder.empty() ? "" : read_text(folder + "/events.jsonl");
   const auto st = proxy->stats();
+  std::string runs;
+  for (const int n : st.exception_runs) runs += (runs.empty() ? "" : ",") + std::to_string(n);
   std::printf(
       "[lie] modbus %s (%s, %s): exit %d%s after %.1f s (bound %.0f s); lie %s; proxy: %d connection(s), "
-      "%llu requests, %llu values altered, %llu exceptions sent, %llu replies dropped; said: %s\n",
+      "%llu requests, %llu values altered, %llu exceptions sent (per request: %s), %llu replies dropped; "
+      "said: %s\n",
       row.name, loadtrim::testing::to_string(row.lie), loadtrim::testing::describe(row.trigger).c_str(),
       res.exit_code, res.killed ? " (killed at the bound)" : "", res.seconds, bound,
       proxy->lie_began() ? "told" : "not told by the proxy", st.connections,
       static_cast<unsigned long long>(st.requests), static_cast<unsigned long long>(st.values_altered),
-      static_cast<unsigned long long>(st.exceptions_sent),
+      static_cast<unsigned long long>(st.exceptions_sent), runs.empty() ? "-" : runs.c_str(),
       static_cast<unsigned long long>(st.replies_dropped), outcome_line(res.output).c_str());
   std::fflush(stdout);
 
@@ -881,6 +886,32 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
       const auto v = record::verify_session_folder(folder);
       EXPECT_TRUE(v.ok) << v.message;
     }
+  }
+  if (row.lie == ModbusLie::busy_always || row.lie == ModbusLie::gateway_always) {
+    // Every request was sent 1 + modbus.retry_attempts times (the map's policy, docs/modbus.md "Exceptions"),
+    // no more, no fewer: the proxy's runs of one request answered with exceptions. A run may hold the same
+    // request twice over when the tool asked it again after giving up (a multiple, then).
+    const int tries = 1 + map.retry.attempts;
+    ASSERT_FALSE(st.exception_runs.empty());
+    EXPECT_EQ(st.exception_runs.front(), tries) << "the first request the lie met";
+    for (std::size_t i = 0; i < st.exception_runs.size(); ++i)
+      EXPECT_EQ(st.exception_runs[i] % tries, 0) << "run " << i << " of " << st.exception_runs[i];
+    // Busy is a refusal once the retries are spent: the message that ends the session counts them.
+    const std::string said = "still after " + std::to_string(map.retry.attempts) + " retries";
+    if (row.lie == ModbusLie::busy_always) {
+      EXPECT_TRUE(res.output.find(said) != std::string::npos || logged.find(said) != std::string::npos)
+          << "expected '" << said << "'; output:\n"
+          << tail(res.output);
+    }
+  }
+  if (row.lie == ModbusLie::late_reply) {
+    // The late frame reached the tool's line (the proxy sent it on) and the tool threw it away and said so,
+    // rather than taking it for the next request's reply.
+    EXPECT_EQ(st.late_replies_delivered, 1u);
+    const std::string said = "(a late reply) discarded";
+    EXPECT_TRUE(res.output.find(said) != std::string::npos || logged.find(said) != std::string::npos)
+        << "expected '" << said << "'; output:\n"
+        << tail(res.output);
   }
   if (row.counter16) {
     // At least one coast-down spanned a wrap of the 16-bit counter: its release and its end lie in different

@@ -223,6 +223,89 @@ TEST(Modbus, WatchdogWatchesTheHeartbeatCounter) {
   EXPECT_NE(r.message.find("error register 40"), std::string::npos) << r.message;
 }
 
+// A controller left idle longer than its watchdog window must still take the first motoring command: the
+// watchdog sees a beat only as a change of the heartbeat counter, so the adapter beats just before such a
+// command, and goes on from the counter's value (a second tool after one that left after a single beat would
+// otherwise write the same value, which is no beat). The simulator's watchdog (300 ms here) latches WATCHDOG
+// when motoring with no beat for longer (src/sim, --watchdog-ms).
+TEST(Modbus, AControllerIdleLongerThanItsWatchdogTakesTheFirstMotoringCommand) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "5", "--watchdog-ms", "300"});
+  {
+    modbus::ModbusController first(cell_for(sim.port()));  // an earlier tool: one beat, then gone
+    ASSERT_TRUE(first.connect().ok());
+    controller::ControllerInfo info;
+    ASSERT_TRUE(first.identify(info).ok());
+    ASSERT_TRUE(first.heartbeat().ok());
+    first.disconnect();
+  }
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  std::this_thread::sleep_for(std::chrono::milliseconds(700));  // idle, no beat: over twice the window
+  const auto r = c.hold_speed(20.0);
+  ASSERT_TRUE(r.ok()) << r.message;
+  controller::StatusReport st;
+  const auto s = c.status(st);  // well within the window after the command's beat
+  ASSERT_TRUE(s.ok()) << s.message;
+  EXPECT_EQ(st.fault, "") << "the watchdog tripped on the first motoring command";
+  EXPECT_EQ(st.flags & controller::kFlagWatchdog, 0u);
+  EXPECT_EQ(st.mode, controller::Mode::speed_hold);
+  c.controlled_stop();
+}
+
+// Without a time register the host clock stands in for the controller's (docs/modbus.md, "Quantities"), for
+// samples and status alike and at the rate the controller states (its time_scale register: the simulator's
+// --time-scale 5): the status's time agrees with the samples' (the clock guard refuses a status more than the
+// stated rate × 1 s behind the last sample, controller/clock_guard.hpp), and the samples' clock runs at 5×
+// the wall clock.
+TEST(Modbus, WithoutATimeRegisterSamplesAndStatusShareOneClock) {
+  std::string text;
+  {
+    std::ifstream in(kCell);
+    text.assign(std::istreambuf_iterator<char>(in), {});
+  }
+  const auto from = text.find("[modbus.time]");
+  ASSERT_NE(from, std::string::npos);
+  const auto to = text.find("[modbus.", from + 1);
+  ASSERT_NE(to, std::string::npos);
+  text.erase(from, to - from);
+  std::string dir = (fs::temp_directory_path() / "loadtrim-notime-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  const std::string path = dir + "/cell.toml";
+  std::ofstream(path) << text;
+  SimProcess sim({"--modbus-map", path, "--time-scale", "5", "--watchdog-ms", "60000"});
+  auto cell = config::load_cell(path, adapters::production().sections());
+  ASSERT_FALSE(settings(cell).map[modbus::Q::time].present);
+  adapters::production().override_link(cell, {sim.port(), ""});
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_EQ(info.time_scale, 5.0);
+  ASSERT_TRUE(c.start_stream(50.0).ok());
+  std::vector<controller::Sample> all;
+  const auto w0 = std::chrono::steady_clock::now();
+  while (std::chrono::steady_clock::now() - w0 < std::chrono::milliseconds(1500)) {
+    std::vector<controller::Sample> got;
+    const auto r = c.receive_samples(got);
+    ASSERT_TRUE(r.ok()) << r.message;
+    all.insert(all.end(), got.begin(), got.end());
+  }
+  const double wall_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - w0).count();
+  ASSERT_GE(all.size(), 20u);
+  const double span_s = all.back().time_s - all.front().time_s;
+  EXPECT_GT(span_s, 5.0 * (wall_s - 0.3)) << "the samples' clock runs at the stated 5x";
+  EXPECT_LT(span_s, 5.0 * (wall_s + 0.3));
+  controller::StatusReport st;
+  const auto r = c.status(st);
+  ASSERT_TRUE(r.ok()) << r.message;
+  EXPECT_GE(st.time_s, all.back().time_s) << "read after the last sample, on the same clock";
+  EXPECT_LT(st.time_s, all.back().time_s + 5.0 * 0.5);
+  c.stop_stream();
+  fs::remove_all(dir);
+}
+
 TEST(Modbus, ExceptionReplySurfacesAsAClearError) {
   SimProcess sim({"--modbus-map", kCell, "--time-scale", "5"});
   auto cell = cell_for(sim.port());
@@ -392,6 +475,15 @@ TEST(Modbus, RtuALateReplyIsNeverTakenForTheNextRequestsReply) {
   EXPECT_EQ(late.status, controller::Result::Status::retryable) << late.message;
   EXPECT_NE(late.message.find("read mode (input 4)"), std::string::npos) << late.message;
   EXPECT_TRUE(proxy.lie_began());
+  // The held-back reply reached the tool's line and was thrown away, counted and named: a read reply of one
+  // register over RTU is 7 bytes (unit, function, byte count, 2 data bytes, CRC-16: the RTU frame format).
+  EXPECT_EQ(proxy.stats().late_replies_delivered, 1u);
+  EXPECT_NE(late.message.find("7 bytes that came after the failure (a late reply) discarded"),
+            std::string::npos)
+      << late.message;
+  EXPECT_EQ(c.stats().lines_rejected, 1u);
+  EXPECT_NE(c.stats().last_rejected.find("read mode (input 4): 7 bytes"), std::string::npos)
+      << c.stats().last_rejected;
   std::this_thread::sleep_for(std::chrono::milliseconds(700));
   const auto next = c.status(st);
   ASSERT_TRUE(next.ok()) << next.message;
@@ -399,6 +491,41 @@ TEST(Modbus, RtuALateReplyIsNeverTakenForTheNextRequestsReply) {
   EXPECT_EQ(st.flags & controller::kFlagFault, 0u);
   EXPECT_GT(st.speed_kmh, 0.5);  // the rollers are on their way to 40 km/h, not at the stale frame's 0.01
   c.controlled_stop();
+}
+
+// The whole-reply bound (docs/modbus.md, "Exceptions"): a reply whose bytes each come within the byte timeout
+// of the last but that takes longer than timeouts.reply_ms in all is no reply: a retryable timeout named as
+// such, never a slow link that passes. The lying proxy delivers the tool-bound bytes one per 150 ms; with
+// modbus.byte_timeout_ms = 1000 no single gap ends the wait, so only the whole-reply bound can. The first
+// read of identify (roller_diameter, float32: two registers) is answered over TCP in 13 bytes (7 of MBAP
+// header, function code, byte count, 4 data bytes: the Modbus TCP frame format), so about 12 × 150 ms = 1.8
+// s, past reply_ms = 1000.
+TEST(Modbus, AReplyTricklingInSlowerThanTheWholeReplyBoundIsATimeout) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "5", "--watchdog-ms", "60000"});
+  auto cell = load_cell();
+  const auto map = settings(cell).map;
+  loadtrim::testing::ModbusLyingProxy proxy(sim.port(), map, loadtrim::testing::ModbusLie::trickle,
+                                            loadtrim::testing::ModbusTrigger::start());
+  adapters::production().override_link(cell, {proxy.port(), ""});
+  ASSERT_EQ(cell.timeouts.reply, std::chrono::milliseconds(1000)) << "the shipped reply_ms";
+  settings(cell).map.retry.byte_timeout_ms = 1000;
+  modbus::ModbusController c(cell);
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  const auto t0 = std::chrono::steady_clock::now();
+  const auto r = c.identify(info);
+  const double took_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  EXPECT_EQ(r.status, controller::Result::Status::retryable) << r.message;
+  EXPECT_NE(r.message.find("read roller_diameter (input 10): no complete reply within timeouts.reply_ms = "
+                           "1000 ms: it took "),
+            std::string::npos)
+      << r.message;
+  EXPECT_NE(r.message.find("modbus.byte_timeout_ms = 1000 ms"), std::string::npos) << r.message;
+  EXPECT_TRUE(proxy.lie_began());
+  // The whole reply came (about 1.8 s) and was refused then: one request, not the rest of identify's reads.
+  EXPECT_GT(took_s, 1.0) << r.message;
+  EXPECT_LT(took_s, 4.0);
+  c.disconnect();
 }
 
 TEST(Modbus, BadRegisterMapsAreRefused) {

@@ -114,6 +114,10 @@ TEST_P(FleetOverTcp, ReachesAcceptanceWithinTolerance) {
       session::plan_inputs(config::parse_cell(cell_text(sim.port(), core::to_string(layout), 20.0),
                                               "cell.toml", adapters::production().sections()),
                            profile, v);
+  // At 1000x, 0.12 s of the tool's wall time is 120 s of controller time: on a loaded host the first release
+  // can miss the 120 s rule for reasons of the host alone. This test is about convergence, so a late release
+  // is kept with a finding (the rule itself is tested in SessionUnit at controller speed).
+  in.profile.late_start = core::Profile::LateStart::finding;
   auto c = adapters::make_controller(in.cell);
   const std::string folder = dir + "/session";
   fs::create_directories(folder);
@@ -173,7 +177,11 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   ASSERT_FALSE(folder.empty());
   const auto before = records(folder);
   ASSERT_EQ(count(before, "coastdown"), 1);
-  ASSERT_EQ(count(before, "coastdown_started"), 2);
+  // A first release later than the 120 s rule (possible at 200x on a loaded host: 0.6 s of wall time) is
+  // discarded and repeated after a re-warm (docs/standards.md §3.6); each such run shifts the run numbers by
+  // one.
+  const int late = count(before, "coastdown_discarded");
+  ASSERT_EQ(count(before, "coastdown_started"), 2 + late);
   std::string out, err;
   const int rc = run_command({kExe, "resume", folder, "--unattended", "--rewarm-s", "300", "--quiet",
                               "--override-checks", "integration test against the simulator"},
@@ -186,7 +194,7 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   bool said = false;
   for (const auto& r : after)
     if (r.value("type", "") == "resumed") {
-      EXPECT_EQ(r.value("discarded_run", 0), 2);
+      EXPECT_EQ(r.value("discarded_run", 0), 2 + late);
       EXPECT_EQ(r.value("completed_coastdowns", 0), 1);
       said = true;
     }
@@ -195,8 +203,8 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   for (const auto& r : after)
     if (r.value("type", "") == "coastdown") runs.push_back(r.value("run", 0));
   ASSERT_GE(runs.size(), 2u);
-  EXPECT_EQ(runs[0], 1);
-  EXPECT_EQ(runs[1], 3);  // run 2 was half-recorded and is repeated as run 3
+  EXPECT_EQ(runs[0], 1 + late);
+  EXPECT_EQ(runs[1], 3 + late);  // run 2 was half-recorded and is repeated as run 3
   ASSERT_GE(after.size(), 2u);
   EXPECT_EQ(after.back().value("type", ""), "seal");
   EXPECT_EQ(after[after.size() - 2].value("type", ""), "finished");
@@ -404,6 +412,44 @@ TEST(SessionCli, BadInputIsRefusedBeforeAnythingMoves) {
             2);
   EXPECT_NE(err.find("refusing to motor the rollers"), std::string::npos) << err;
   EXPECT_FALSE(fs::exists(dir + "/sessions"));
+  fs::remove_all(dir);
+}
+
+TEST(SessionCli, AVehicleSlowerThanTheWarmUpIsRefusedAlikeByTargetAndRun) {
+  // The shipped wltp-iterative profile warms up at 80 km/h (docs/standards.md §3); a vehicle whose maximum is
+  // 70 km/h cannot be driven there. `run` refuses it before connecting (core::check_combination); `target`,
+  // which prepares the file, must refuse it with the same sentence (the profile's key, the figure, the cause)
+  // rather than accept what run then refuses. By hand: 80 > 70; the session's speed limit is min(cell 160,
+  // vehicle 70) = 70 km/h. Nothing listens on the cell's port: a tool that tried to connect would exit 3.
+  const std::string dir = temp_dir("slowwarm");
+  write(dir + "/cell.toml", cell_text(9, "single-axle", 100.0));
+  std::string t;
+  {
+    std::ifstream in(kSrc + "/samples/targets/demo-hatchback.toml");
+    t.assign(std::istreambuf_iterator<char>(in), {});
+  }
+  t.replace(t.find("max_speed_kmh = 185.0"), 21, "max_speed_kmh = 70.0");
+  write(dir + "/t70.toml", t);
+  const std::string must =
+      "warm_up.speed_kmh: is 80 km/h, above the vehicle's vehicle.max_speed_kmh (70 km/h): "
+      "allowed up to 70 km/h";
+  std::string out, err;
+  EXPECT_EQ(
+      run_command({kExe, "target", "--metric", "142", "0.35", "0.033", "--id", "slow-70", "--test-mass-kg",
+                   "1470", "--mass-in-running-order-kg", "1380", "--max-speed-kmh", "70"},
+                  &out, &err),
+      2)
+      << out << err;
+  EXPECT_NE((out + err).find(must), std::string::npos) << out << err;
+  EXPECT_EQ(run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+                         dir + "/cell.toml", "--target", dir + "/t70.toml", "--sessions", dir + "/sessions",
+                         "--unattended"},
+                        &out, &err),
+            2)
+      << err;
+  EXPECT_NE(err.find(must), std::string::npos) << err;
+  EXPECT_NE(err.find("refused: nothing was started"), std::string::npos) << err;
+  EXPECT_FALSE(fs::exists(dir + "/sessions")) << "a session folder was created";
   fs::remove_all(dir);
 }
 

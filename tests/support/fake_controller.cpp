@@ -4,6 +4,7 @@
 #include <stdexcept>
 
 #include "config/loaders.hpp"
+#include "sim/line_front_end.hpp"
 
 namespace loadtrim::testing {
 
@@ -11,11 +12,11 @@ using controller::Mode;
 using controller::Result;
 
 namespace {
+// A refusal as the line protocol's error code, as a line adapter would report it.
 Result from(const std::optional<sim::SimError>& e) {
   if (!e) return Result::success();
-  return Result::fail(
-      "controller refused (error " + std::to_string(static_cast<int>(e->code)) + "): " + e->text,
-      static_cast<int>(e->code));
+  const int code = static_cast<int>(sim::line_error_code(e->cause));
+  return Result::fail("controller refused (error " + std::to_string(code) + "): " + e->message, code);
 }
 }  // namespace
 
@@ -78,10 +79,10 @@ Result FakeController::do_command(Mode mode, double value, controller::Deadline)
   commands.emplace_back(mode, value);
   if (script.throw_in == "command") throw std::runtime_error("scripted failure in the command hook");
   if (mode == Mode::controlled_stop && script.never_stops) {
-    sim_->command(Mode::speed_hold, 30.0);
+    sim_->command(sim::cmd::HoldSpeed{30.0});
     return Result::success();
   }
-  return from(sim_->command(mode, value));
+  return from(sim_->command(sim::command_for(mode, value)));
 }
 Result FakeController::do_stream(double rate_hz, controller::Deadline) {
   return from(sim_->stream(rate_hz));
@@ -115,7 +116,7 @@ Result FakeController::do_clear_fault(controller::Deadline) {
   return from(sim_->clear());
 }
 void FakeController::do_take_events(std::vector<std::string>& out) {
-  out.insert(out.end(), sim_events_.begin(), sim_events_.end());
+  for (const auto& e : sim_events_) out.push_back(sim::line_event_text(e));
   sim_events_.clear();
   out.insert(out.end(), script.events.begin(), script.events.end());
   script.events.clear();

@@ -69,7 +69,7 @@ class FakeController : public controller::Controller {
 
  private:
   std::unique_ptr<sim::SimController> sim_;
-  std::vector<std::string> sim_events_;
+  std::vector<sim::FaultEvent> sim_events_;
   core::RoadLoad written_{};
   bool have_written_ = false;
 };

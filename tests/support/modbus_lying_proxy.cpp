@@ -162,6 +162,9 @@ struct ModbusLyingProxy::Impl {
   bool lie_t0_set = false;
   std::uint64_t request_count = 0;
   bool illegal_sent = false, late_sent = false;
+  std::vector<std::uint8_t> last_exception_request;  // the request last answered with an exception...
+  bool last_was_exception = false;                   // ...and whether nothing was forwarded since
+  bool run_counted = false;                          // the current run has its entry in exception_runs
   bool rtu = false;
   std::string tool_device, controller_device;
   int slaves[2] = {
@@ -310,8 +313,24 @@ struct ModbusLyingProxy::Impl {
         code = 0x06;
       if (lie == ModbusLie::gateway_always) code = 0x0B;
       if (lie == ModbusLie::illegal_address && !illegal_sent) code = 0x02, illegal_sent = true;
-      if (code) return exception_reply(pr, f, code);
+      if (code) {
+        // A run of the same request answered with exceptions is one request and its retries.
+        std::vector<std::uint8_t> key(f.begin() + (rtu ? 0 : 2), f.end());
+        {
+          std::lock_guard<std::mutex> l(mu);
+          auto& runs = stats.exception_runs;
+          if (!(last_was_exception && key == last_exception_request)) {
+            run_counted = runs.size() < 64;
+            if (run_counted) runs.push_back(0);
+          }
+          if (run_counted) ++runs.back();
+        }
+        last_exception_request = std::move(key);
+        last_was_exception = true;
+        return exception_reply(pr, f, code);
+      }
     }
+    last_was_exception = false;
     if (rtu)
       pr.rtu_pending.push_back(p);
     else
@@ -380,6 +399,7 @@ struct ModbusLyingProxy::Impl {
     p.tool = fd;
     p.ctrl = c;
     pairs.push_back(std::move(p));
+    last_was_exception = false;  // a new connection: its requests are new ones
     std::lock_guard<std::mutex> l(mu);
     ++stats.connections;
   }
@@ -452,6 +472,8 @@ struct ModbusLyingProxy::Impl {
           }
           p.to_tool.insert(p.to_tool.end(), h->second.begin(), h->second.end());
           h = p.held.erase(h);
+          std::lock_guard<std::mutex> l(mu);
+          ++stats.late_replies_delivered;
         }
         if (!flush(p.ctrl, p.to_ctrl, p.to_ctrl.size())) p.dead = true;
         if (trickling) {

@@ -17,6 +17,7 @@
 #include <memory>
 #include <optional>
 #include <string>
+#include <vector>
 
 #include "modbus/register_map.hpp"
 
@@ -60,6 +61,10 @@ struct ModbusProxyStats {
   std::uint64_t values_altered = 0;   // register values changed in replies
   std::uint64_t exceptions_sent = 0;  // replies the proxy made up
   std::uint64_t replies_dropped = 0;  // silence
+  // The busy and gateway lies: for each run of consecutive identical requests (the transaction id aside) the
+  // proxy answered with an exception, how many there were: 1 + the retries the tool sent (the first 64 runs).
+  std::vector<int> exception_runs;
+  std::uint64_t late_replies_delivered = 0;  // late_reply: held-back replies sent on to the tool
 };
 
 class ModbusLyingProxy {

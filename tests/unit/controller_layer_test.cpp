@@ -6,6 +6,7 @@
 #include <gtest/gtest.h>
 
 #include <limits>
+#include <optional>
 #include <thread>
 
 #include "controller/cell.hpp"
@@ -157,6 +158,51 @@ TEST_F(Layer, AReadBackThatDiffersIsFatal) {
   const auto r = c.set_coefficients({100.0, 0.5, 0.03});
   EXPECT_EQ(r.status, controller::Result::Status::fatal);
   EXPECT_NE(r.message.find("differs from what was written"), std::string::npos) << r.message;
+}
+
+// An adapter that reads back the force it was told to hold (as Modbus reads its force setpoint register):
+// the adapter only reports what it read, and this layer judges it against the force written, within the
+// register's resolution the adapter states.
+class ForceReadingFake : public FakeController {
+ public:
+  using FakeController::FakeController;
+  std::optional<double> reported;  // what the controller reports holding (empty: the adapter cannot read it)
+  double half_count_n = 0.0;       // half a count of the force register
+
+ protected:
+  controller::Result do_read_force(std::optional<double>& force_n, controller::Deadline) override {
+    force_n = reported;
+    return controller::Result::success();
+  }
+  double setting_tolerance(Setting what, double written) const override {
+    return FakeController::setting_tolerance(what, written) + (what == Setting::force ? half_count_n : 0.0);
+  }
+};
+
+TEST(LayerForce, TheForceReadBackIsJudgedByTheLayerWithinTheRegistersResolution) {
+  ForceReadingFake c(loadtrim::testing::demo_truth());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.identify(info).ok());
+  // A register of 0.5 N per count rounds 558.8 N to 1118 counts = 559 N; half a count is 0.25 N (the
+  // definition of rounding to the nearest count), so 559 N is what was written and 559.5 N is not.
+  c.half_count_n = 0.25;
+  c.reported = 559.0;
+  auto r = c.apply_force(558.8);
+  EXPECT_TRUE(r.ok()) << r.message;
+  c.reported = 559.5;
+  r = c.apply_force(558.8);
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("read-back force 559.5 N differs from the 558.8 N written"), std::string::npos)
+      << r.message;
+  // NaN compares false with everything (IEEE 754): a NaN read-back is a mismatch, not a match.
+  c.reported = std::numeric_limits<double>::quiet_NaN();
+  EXPECT_EQ(c.apply_force(558.8).status, controller::Result::Status::fatal);
+  // An adapter that cannot read the force back is not judged.
+  c.reported.reset();
+  r = c.apply_force(558.8);
+  EXPECT_TRUE(r.ok()) << r.message;
+  EXPECT_EQ(c.commands.size(), 4u) << "each force was commanded once";
 }
 
 // IEEE 754: every ordered comparison with NaN is false, so a check written as "mismatch when |a − b| > tol"

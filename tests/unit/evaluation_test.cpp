@@ -14,9 +14,12 @@
 
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cmath>
+#include <random>
 #include <vector>
 
+#include "core/warm_up_drift.hpp"
 #include "support/test_support.hpp"
 
 using namespace loadtrim;
@@ -114,6 +117,42 @@ TEST(Evaluation, ToleranceVerdictFollowsTheStandardRowByRow) {
   EXPECT_NEAR(b.check.worst_abs_deviation_n, 10.3147, 5e-3);
 }
 
+TEST(Evaluation, AGuardBandRefusesACoastDownWhoseUncertaintyStraddlesTheLimit) {
+  // docs/standards.md §3.11: the same coast-down, judged by the standard's simple rule and by a guard band
+  // (lab policy). The trace is the closed-form coast-down of target + 9 N with seeded N(0, 0.05 km/h) speed
+  // noise, so each regressed force carries a standard error u > 0. The tolerance is set just above the worst
+  // deviation, by less than k·u: the measured value is inside the tolerance, its uncertainty straddles the
+  // limit. Simple acceptance passes every speed; the guard band fails the worst one (its limit is the
+  // tolerance − k·u, below the worst deviation). u is recorded under both rules.
+  auto tr = loadtrim::testing::exact_trace({109.0, 0.5, 0.03}, kMass, 142.0, 10.0, 100.0);
+  std::mt19937_64 rng(7);
+  std::normal_distribution<double> noise(0.0, 0.05);
+  for (double& v : tr.speed_kmh) v += noise(rng);
+  core::Profile p = profile();
+  const auto first = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass);
+  ASSERT_TRUE(first.usable) << first.unusable_reason;
+  double worst = 0, u_min = 1e9;
+  for (const auto& r : first.check.rows) {
+    worst = std::max(worst, std::abs(r.deviation_n));
+    u_min = std::min(u_min, r.u_n);
+  }
+  ASSERT_GT(u_min, 0.0);
+  p.decision_rule.coverage_k = 2.0;
+  p.tolerance_n = worst + 0.5 * p.decision_rule.coverage_k * u_min;
+  const auto simple = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass);
+  EXPECT_TRUE(simple.check.pass);
+  p.decision_rule.kind = core::DecisionRule::Kind::guard_band;
+  const auto banded = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass);
+  EXPECT_FALSE(banded.check.pass);
+  ASSERT_EQ(banded.check.rows.size(), simple.check.rows.size());
+  for (std::size_t j = 0; j < banded.check.rows.size(); ++j) {
+    const auto& r = banded.check.rows[j];
+    EXPECT_DOUBLE_EQ(r.u_n, simple.check.rows[j].u_n);
+    EXPECT_NEAR(r.limit_n, p.tolerance_n - 2.0 * r.u_n, 1e-12);
+    EXPECT_EQ(r.pass, std::abs(r.deviation_n) <= r.limit_n);
+  }
+}
+
 TEST(Evaluation, AMissingBandMakesTheRunUnusable) {
   // The standard regresses every reference speed (§8.1.3.3), so a coast-down released at 132 km/h, below the
   // top band's upper edge of 135 km/h, is repeated, not patched (docs/analysis.md, step 3): no regression, no
@@ -126,4 +165,33 @@ TEST(Evaluation, AMissingBandMakesTheRunUnusable) {
   EXPECT_TRUE(e.check.rows.empty());
   ASSERT_EQ(e.bands.size(), kSpeeds.size());
   EXPECT_EQ(e.bands.back().status, core::BandStatus::not_reached);
+}
+
+TEST(WarmUpDrift, TheFirstOrderWarmingCurveIsRecovered) {
+  // docs/standards.md §3.12: F(t) = F∞ + A·exp(−t/τ) (first-order response, textbook). Windows every 30 s
+  // over 20 min of F∞ = 80 N, A = 20 N, τ = 600 s with seeded N(0, 0.3 N) noise: the fit recovers the three
+  // within a few per cent, and the drift still to come at t = 1500 s is 20·e^(−2.5) = 1.64 N (by hand).
+  std::vector<core::DriftPoint> pts;
+  std::mt19937_64 rng(11);
+  std::normal_distribution<double> noise(0.0, 0.3);
+  for (double t = 15.0; t < 1200.0; t += 30.0)
+    pts.push_back({t, 80.0 + 20.0 * std::exp(-t / 600.0) + noise(rng)});
+  const core::WarmUpCurve c = core::fit_warm_up_curve(pts);
+  ASSERT_TRUE(c.ok) << c.why;
+  EXPECT_NEAR(c.tau_s / 600.0, 1.0, 0.1);
+  EXPECT_NEAR(c.amplitude_n / 20.0, 1.0, 0.05);
+  EXPECT_NEAR(c.settled_n, 80.0, 1.0);
+  EXPECT_FALSE(c.tau_at_bound);
+  EXPECT_NEAR(c.remaining_drift_n(1500.0), 20.0 * std::exp(-2.5), 0.3);
+  EXPECT_LT(c.rms_residual_n, 0.5);
+  // Too few windows, a NaN, or a flat line that no τ resolves: said, never a made-up curve.
+  EXPECT_FALSE(core::fit_warm_up_curve(std::span(pts).first(3)).ok);
+  auto bad = pts;
+  bad[4].force_n = std::nan("");
+  EXPECT_FALSE(core::fit_warm_up_curve(bad).ok);
+  std::vector<core::DriftPoint> line;
+  for (double t = 15.0; t < 300.0; t += 30.0) line.push_back({t, 100.0 - 0.01 * t});
+  const core::WarmUpCurve l = core::fit_warm_up_curve(line);
+  ASSERT_TRUE(l.ok);
+  EXPECT_TRUE(l.tau_at_bound) << "a straight fall over 5 min does not show where warming ends";
 }

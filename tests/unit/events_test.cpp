@@ -22,6 +22,7 @@
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
 #include "record/event_log.hpp"
+#include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 #include "record/vehicle_history.hpp"
 #include "registry.hpp"
@@ -30,6 +31,24 @@
 
 using namespace loadtrim;
 using namespace loadtrim::session;
+
+namespace {
+loadtrim::core::WarmUpCurve settled_curve() {
+  loadtrim::core::WarmUpCurve c;
+  c.ok = true;
+  c.settled_n = 80.0;
+  c.amplitude_n = 20.0;
+  c.tau_s = 600.0;
+  c.points = 20;
+  return c;
+}
+loadtrim::core::WarmUpCurve unestimated_curve() {
+  loadtrim::core::WarmUpCurve c;
+  c.why = "too few hold windows (2, at least 4)";
+  c.points = 2;
+  return c;
+}
+}  // namespace
 
 namespace {
 
@@ -111,6 +130,7 @@ std::string event_name(const Payload& p) {
                                       "CoastdownStarted",
                                       "ReleaseTiming",
                                       "PassesReset",
+                                      "WarmUpDrift",
                                       "ConsecutiveTiming",
                                       "Coastdown",
                                       "CoastdownDiscarded",
@@ -252,6 +272,9 @@ std::vector<Payload> every_event() {
       ev::ReleaseTiming{"first coast-down released within 120 s", 30.0, true, ""},
       ev::ReleaseTiming{"first coast-down released within 120 s", 130.0, false, "repeat"},
       ev::PassesReset{3, 1, "coast-down 3 discarded"},
+      ev::WarmUpDrift{2, 1500.0, settled_curve(), "warn", 3.0, "settled"},
+      ev::WarmUpDrift{2, 1500.0, unestimated_curve(), "warn", 3.0,
+                      "not estimated: too few hold windows (2, at least 4)"},
       ev::ConsecutiveTiming{"consecutive coast-downs start immediately", 12.0},
       ev::Coastdown{usable_run()},
       ev::Coastdown{unusable},
@@ -336,6 +359,19 @@ TEST(Events, TheRoadLoadSpellingRoundTrips) {
   EXPECT_EQ(back.f1_n_per_kmh, kSet.f1_n_per_kmh);
   EXPECT_EQ(back.f2_n_per_kmh2, kSet.f2_n_per_kmh2);
   EXPECT_THROW(road_load_from_json({{"f0_n", 1.0}}), nlohmann::json::exception);
+}
+
+TEST(Events, OneRoadLoadSpellingServesRecordsHistoriesAndReports) {
+  // The record layer's mapping is the one the events use (docs/records.md: one spelling for every file).
+  EXPECT_EQ(loadtrim::record::road_load_json(kSet), to_json(kSet));
+  EXPECT_TRUE(loadtrim::record::is_road_load_json(to_json(kSet)));
+  EXPECT_FALSE(loadtrim::record::is_road_load_json({{"f0_n", 1.0}, {"f1_n_per_kmh", 2.0}}));
+  EXPECT_FALSE(
+      loadtrim::record::is_road_load_json({{"f0_n", 1.0}, {"f1_n_per_kmh", "2"}, {"f2_n_per_kmh2", 3.0}}));
+  EXPECT_FALSE(loadtrim::record::is_road_load_json(nlohmann::json::array({1.0, 2.0, 3.0})));
+  EXPECT_EQ(loadtrim::record::measured_member({{"simulated", to_json(kSet)}}), "simulated");
+  EXPECT_EQ(loadtrim::record::measured_member({{"measured", to_json(kSet)}, {"simulated", 0}}), "measured");
+  EXPECT_EQ(loadtrim::record::measured_member(nlohmann::json::object()), "measured");
 }
 
 // Lines as the version before typed events wrote them (the data part: the log adds seq, utc, type, prev).

@@ -259,6 +259,40 @@ TEST(ModbusTimeCounter, SignedCountersLongPausesAndFrozenCounters) {
   EXPECT_NEAR(tc.read(std::fmod(expect, 65.536), 200.0), expect, 1e-6);
 }
 
+// A counter frozen across a long pause of the tool is frozen, not a counter that advanced by whole periods
+// (issue 21 review): a 16-bit ms counter (period 65.536 s) reads 10 s, the tool pauses 65 s (rate 1) and
+// reads 10 s again. The nearest whole number of periods would be 1 (65 / 65.536 rounds to 1), making it
+// 75.536 s; with no movement at all none is counted, so the time stays 10 s and the clock guard
+// (controller/clock_guard.hpp) names a clock that stopped. Likewise a counter that moved 10 s in a 100 s
+// pause (one period more would make 75.536 s, 24.5 s from the 100 s elapsed: more than 10 % + 1 s, the
+// agreement TimeCounter requires) is not given a period it cannot have run. An honest counter 5 % slow across
+// 200 s (190 s: 2 periods and 58.928 s, by hand) still is.
+TEST(ModbusTimeCounter, AFrozenCounterAfterALongPauseIsNotUnwrappedAsAdvancing) {
+  TimeCounter tc;
+  tc.reset(65.536, 1.0);
+  controller::ClockGuard guard;
+  EXPECT_NEAR(tc.read(10.0, 0.0), 10.0, 1e-9);
+  EXPECT_FALSE(guard.on_sample(10.0, 0.0, 0));
+  const double after = tc.read(10.0, 65.0);
+  EXPECT_NEAR(after, 10.0, 1e-9) << "a frozen counter unwrapped as advancing";
+  EXPECT_EQ(tc.wraps(), 0u);
+  const auto v = guard.on_sample(after, 65.0, 1);
+  ASSERT_TRUE(v) << "the guard must see a clock that did not move in 65 s";
+  EXPECT_NE(v->find("stopped"), std::string::npos) << *v;
+  // Two periods' worth of pause (131.072 s), frozen still: still 10 s.
+  EXPECT_NEAR(tc.read(10.0, 131.072), 10.0, 1e-9);
+  // Far less movement than the pause: no whole period made up for it.
+  tc.reset(65.536, 1.0);
+  tc.read(10.0, 0.0);
+  EXPECT_NEAR(tc.read(20.0, 100.0), 20.0, 1e-9);
+  EXPECT_EQ(tc.wraps(), 0u);
+  // Honest but 5 % slow across 200 s: 1 s + 190 s = 191 s, read as 191 - 2 × 65.536 = 59.928 s.
+  tc.reset(65.536, 1.0);
+  tc.read(1.0, 0.0);
+  EXPECT_NEAR(tc.read(59.928, 200.0), 191.0, 1e-9);
+  EXPECT_EQ(tc.wraps(), 2u);
+}
+
 TEST(ModbusTimeCounter, ACounterThatWrapsTooOftenOrCountsBackIsRefused) {
   // uint16 at 0.1 ms wraps every 6.5536 s: too short to tell a wrap from a step back.
   std::string text = variant("type = \"uint32\"         # uint16", "type = \"uint16\"         # uint16");

@@ -31,8 +31,8 @@ physics::Truth bare_truth() {
 }  // namespace
 
 TEST(Physics, Rk4MatchesTheClosedFormCoastdown) {
-  // docs/standards.md §6.4 (textbook integral, completed square): relative speed error below 1e-6 from 130 to 15
-  // km/h.
+  // docs/standards.md §6.4 (textbook integral, completed square): relative speed error below 1e-6 from 130 to
+  // 15 km/h.
   for (const core::RoadLoad load :
        {core::RoadLoad{100, 0.0, 0.03}, core::RoadLoad{100, 0.5, 0.03}, core::RoadLoad{180, -0.9, 0.045}}) {
     physics::RollerModel m(bare_truth());
@@ -57,9 +57,40 @@ TEST(Physics, Rk4MatchesTheClosedFormCoastdown) {
   }
 }
 
+TEST(Physics, FreeCoastOfTheEmptyRollersMatchesTheClosedForm) {
+  // docs/protocol.md section 11: in a free coast the empty rollers coast on their own inertia against their
+  // own losses, compensation off, so m·dv/dt = −P(v) with m the base inertia and P the parasitic curve; the
+  // speed follows the textbook integral of docs/standards.md §6.4 (relative error below 1e-6, as above).
+  physics::Truth t = bare_truth();
+  t.vehicle_on_rollers = false;
+  physics::RollerModel m(t);
+  m.hold_speed(100.0);
+  m.advance(60.0);
+  ASSERT_NEAR(m.speed_kmh(), 100.0, 1e-9);
+  m.free_coast();
+  EXPECT_EQ(m.mode(), physics::Mode::free_coast);
+  const core::RoadLoad parasitic{t.dyno.parasitic_f0_n, t.dyno.parasitic_f1_n_per_kmh,
+                                 t.dyno.parasitic_f2_n_per_kmh2};
+  const double t0 = m.time_s();
+  double worst = 0.0;
+  int checked = 0;
+  while (m.speed_kmh() > 15.0) {
+    m.advance(0.5, 0.01);
+    EXPECT_EQ(m.exact().force_n, 0.0);  // the motor is off: its load cell reads nothing
+    const double exact =
+        loadtrim::testing::exact_speed_kmh(parasitic, t.dyno.base_inertia_kg, 100.0, m.time_s() - t0);
+    if (exact < 15.0) break;
+    worst = std::max(worst, std::abs(m.speed_kmh() - exact) / exact);
+    ++checked;
+  }
+  EXPECT_GT(checked, 100);
+  EXPECT_LT(worst, 1e-6);
+  EXPECT_EQ(m.mode(), physics::Mode::free_coast);  // the model never leaves it on its own
+}
+
 TEST(Physics, RollerCurvatureFactor) {
-  // docs/standards.md §5: √(1 + r/R) (form from memory); ratios 1.414 for equal diameters and 2.0 for a tyre three
-  // times the roller diameter [text, secondary]; 0.32 m tyre on a 48-inch roller (R = 0.6096 m): 1.2349
+  // docs/standards.md §5: √(1 + r/R) (form from memory); ratios 1.414 for equal diameters and 2.0 for a tyre
+  // three times the roller diameter [text, secondary]; 0.32 m tyre on a 48-inch roller (R = 0.6096 m): 1.2349
   // [computed].
   EXPECT_NEAR(physics::roller_curvature_factor(0.5, 0.5), 1.414, 5e-4);
   EXPECT_NEAR(physics::roller_curvature_factor(1.5, 0.5), 2.0, 1e-12);

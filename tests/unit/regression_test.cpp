@@ -4,6 +4,8 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <random>
+#include <vector>
 
 #include "core/trace_analysis.hpp"
 #include "support/test_support.hpp"
@@ -37,9 +39,9 @@ TEST(Regression, NistStrdWampler1Degree5) {
 }
 
 TEST(Regression, WltpExampleTableRegressesBack) {
-  // docs/standards.md §6.2 [computed from GTR 15 §8.1.3.2]: the forces from the table's Δt_j (3 decimals) regress
-  // back to (100, 0.5, 0.03). Δt rounded to 0.0005 s moves a force by at most F·0.0005/Δt ≤ 0.053 N, hence
-  // the bounds.
+  // docs/standards.md §6.2 [computed from GTR 15 §8.1.3.2]: the forces from the table's Δt_j (3 decimals)
+  // regress back to (100, 0.5, 0.03). Δt rounded to 0.0005 s moves a force by at most F·0.0005/Δt ≤ 0.053 N,
+  // hence the bounds.
   const double speeds[] = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
   const double dt[] = {35.126, 30.179, 25.508, 21.427, 18.006, 15.197,
                        12.908, 11.045, 9.523,  8.273,  7.239,  6.377};
@@ -55,6 +57,39 @@ TEST(Regression, WltpExampleTableRegressesBack) {
   EXPECT_NEAR(fit.coefficients.f1_n_per_kmh, 0.5, 0.003);
   EXPECT_NEAR(fit.coefficients.f2_n_per_kmh2, 0.03, 0.00002);
   for (double v : speeds) EXPECT_NEAR(fit.coefficients.force_n(v), 100 + 0.5 * v + 0.03 * v * v, 0.06);
+}
+
+TEST(Regression, ForceStandardErrorAgreesWithTheScatterOfRepeats) {
+  // docs/standards.md §3.11: the uncertainty a decision rule uses is the least-squares standard error of
+  // F(v), sqrt(gᵀ·Cov·g) with g = (1, v, v²) and Cov = s²·(XᵀX)⁻¹ (textbook ordinary least squares). Checked
+  // against repeats: 4000 coast-downs whose band forces carry independent N(0, 2 N) errors (seeded); at each
+  // speed the scatter of the fitted force must match the mean reported standard error. For 12 points and 3
+  // parameters the mean of s is c4(10)·σ ≈ 0.973·σ (textbook), and 4000 repeats estimate a standard deviation
+  // to about 1.1 %, hence the bounds 0.93–1.03 on the ratio.
+  const std::vector<double> speeds = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
+  const core::RoadLoad truth{100, 0.5, 0.03};
+  std::mt19937_64 rng(20261202);
+  std::normal_distribution<double> noise(0.0, 2.0);
+  for (double v : {20.0, 80.0, 130.0}) {
+    double sum = 0, sum2 = 0, se_sum = 0;
+    const int n = 4000;
+    std::mt19937_64 r = rng;
+    for (int k = 0; k < n; ++k) {
+      std::vector<double> f;
+      for (double s : speeds) f.push_back(truth.force_n(s) + noise(r));
+      const auto fit = core::fit_road_load(speeds, f);
+      ASSERT_TRUE(fit.ok);
+      const double x = fit.coefficients.force_n(v);
+      sum += x;
+      sum2 += x * x;
+      se_sum += fit.force_standard_error_n(v);
+    }
+    const double mean = sum / n, sd = std::sqrt((sum2 - n * mean * mean) / (n - 1));
+    const double ratio = (se_sum / n) / sd;
+    EXPECT_GT(ratio, 0.93) << v << " km/h: reported " << se_sum / n << " N, scatter " << sd << " N";
+    EXPECT_LT(ratio, 1.03) << v << " km/h: reported " << se_sum / n << " N, scatter " << sd << " N";
+    EXPECT_NEAR(mean, truth.force_n(v), 4.0 * sd / std::sqrt(n));  // unbiased (textbook)
+  }
 }
 
 TEST(Regression, WeightsAndRefusals) {

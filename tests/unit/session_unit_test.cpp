@@ -252,6 +252,59 @@ TEST(SessionUnit, ALateFirstCoastDownIsRepeatedOrKeptWithAFindingAsTheProfileSay
   }
 }
 
+TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
+  // docs/standards.md §3.12 (lab policy): the warm-up hold windows are fitted with F∞ + A·exp(−t/τ)
+  // (first-order warming) and the drift still to come is judged when a setting is about to be accepted. The
+  // truth warms slowly: cold excess 1.0 of the spin loss (25 N + 0.002·80² = 37.8 N at 80 km/h) with τ = 400
+  // s, so after a 600 s warm-up plus the first coast-downs (t ≈ 700–800 s) about 37.8·e^(−1.9) ≈ 5–6 N is
+  // still to come, above the 2 N threshold; by t ≈ 1100 s it is under 2 N (by hand). "warn": accepted with a
+  // finding on page one; "require": coasting goes on at the accepted setting until the estimate is under the
+  // threshold.
+  for (const auto rule : {core::WarmUp::DriftRule::warn, core::WarmUp::DriftRule::require}) {
+    physics::Truth t = loadtrim::testing::demo_truth();
+    t.vehicle.drivetrain_cold_excess = 1.0;
+    t.vehicle.warm_up_time_constant_s = 400.0;
+    t.vehicle.initial_warmth = 0.0;
+    FakeController c(t);
+    Recorder record(true);
+    std::vector<session::ev::WarmUpDrift> drifts;
+    Hook hook([&](const session::Event& e) {
+      if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) drifts.push_back(*d);
+    });
+    session::Inputs in = inputs();
+    in.profile.warm_up.duration_s = 600.0;
+    in.profile.warm_up.stable_window_s = 30.0;
+    in.profile.warm_up.drift_rule = rule;
+    in.profile.warm_up.drift_threshold_n = 2.0;
+    in.profile.max_coastdowns = 20;
+    session::Session s(in, options(), c, {&record, &hook});
+    const auto sum = s.run();
+    ASSERT_FALSE(drifts.empty()) << sum.stop_reason;
+    const auto& first = drifts.front();
+    ASSERT_TRUE(first.curve.ok) << first.curve.why;
+    EXPECT_GE(first.curve.points, 15);
+    // The fit finds the truth's warming: τ within a factor of 2 of 400 s, the amplitude within 30 % of the
+    // cold excess at 80 km/h (the hold force also carries noise and the dyno's own terms, which do not warm).
+    EXPECT_GT(first.curve.tau_s, 200.0);
+    EXPECT_LT(first.curve.tau_s, 800.0);
+    EXPECT_NEAR(first.curve.amplitude_n / 37.8, 1.0, 0.3);
+    EXPECT_GT(first.curve.remaining_drift_n(first.t_s), 2.0);
+    EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+    if (rule == core::WarmUp::DriftRule::warn) {
+      EXPECT_EQ(drifts.size(), 1u);
+      EXPECT_EQ(first.verdict, "still warming: accepted with a finding");
+      ASSERT_EQ(sum.findings.size(), 1u);
+      EXPECT_NE(sum.findings[0].find("still warming at acceptance"), std::string::npos) << sum.findings[0];
+    } else {
+      ASSERT_GE(drifts.size(), 2u);
+      EXPECT_EQ(first.verdict, "still warming: coasting again at the accepted setting");
+      EXPECT_EQ(drifts.back().verdict, "settled");
+      EXPECT_LE(drifts.back().curve.remaining_drift_n(drifts.back().t_s), 2.0);
+      EXPECT_TRUE(sum.findings.empty());
+    }
+  }
+}
+
 TEST(SessionUnit, OnlyTheFirstCriticalObserverCanFailASession) {
   // docs/safety.md: only the record can end a session; a second observer that calls itself critical is a
   // view, dropped once when it fails, and one whose critical() throws is a view too.

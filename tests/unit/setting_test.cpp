@@ -4,6 +4,9 @@
 
 #include <gtest/gtest.h>
 
+#include <cmath>
+#include <vector>
+
 #include "core/profile.hpp"
 
 using namespace loadtrim::core;
@@ -45,6 +48,33 @@ TEST(Setting, ToleranceAtTheBoundary) {
   EXPECT_NEAR(d.rows[2].deviation_n, 16.9, 1e-9);
 }
 
+TEST(Setting, GuardBandRefusesWhatSimpleAcceptanceAccepts) {
+  // docs/standards.md §3.11. A deviation of 8 N with a standard uncertainty of 1.5 N: the standard's simple
+  // rule accepts (8 ≤ 10, GTR 15 §8.1.3.4.2); a guard band of k·u = 2 × 1.5 = 3 N (ILAC-G8 form, from memory)
+  // leaves 10 − 3 = 7 N, and 8 > 7 fails: the uncertainty straddles the limit. With u = 0.9 N the limit is
+  // 8.2 N and 8 N passes. Arithmetic by hand.
+  const std::vector<double> v = {20, 60, 130};
+  const RoadLoad target{100, 0.5, 0.03}, measured{108, 0.5, 0.03};
+  const auto u15 = [](double) { return 1.5; };
+  const auto simple = check_tolerance(target, measured, v, 10.0, {}, u15);
+  EXPECT_TRUE(simple.pass);
+  EXPECT_EQ(simple.rule.kind, DecisionRule::Kind::simple);
+  EXPECT_DOUBLE_EQ(simple.rows[1].u_n, 1.5);  // recorded under either rule
+  EXPECT_DOUBLE_EQ(simple.rows[1].limit_n, 10.0);
+  const DecisionRule guard{DecisionRule::Kind::guard_band, 2.0};
+  const auto banded = check_tolerance(target, measured, v, 10.0, guard, u15);
+  EXPECT_FALSE(banded.pass);
+  EXPECT_DOUBLE_EQ(banded.rows[0].limit_n, 7.0);
+  EXPECT_FALSE(banded.rows[0].pass);
+  EXPECT_TRUE(check_tolerance(target, measured, v, 10.0, guard, [](double) { return 0.9; }).pass);
+  // An uncertainty the estimator could not give (NaN) fails the guard band, never passes it.
+  EXPECT_FALSE(check_tolerance(target, measured, v, 10.0, guard, [](double) { return std::nan(""); }).pass);
+  // A guard band wider than the tolerance leaves no acceptance zone, even for a perfect match.
+  EXPECT_FALSE(check_tolerance(target, target, v, 10.0, guard, [](double) { return 6.0; }).pass);
+  EXPECT_STREQ(to_string(DecisionRule::Kind::guard_band), "guard-band");
+  EXPECT_STREQ(to_string(DecisionRule::Kind::simple), "simple");
+}
+
 TEST(Setting, StandardInitialSetting) {
   // docs/standards.md §3 (from memory): Ad = 0.5·At (0.1·At two-axle), Bd = 0.2·Bt, Cd = Ct.
   InitialSettingRule r;
@@ -53,8 +83,8 @@ TEST(Setting, StandardInitialSetting) {
 }
 
 TEST(Setting, MassRules) {
-  // EU SA4 §2.5.1: m_r = 3 % of (MRO + 25 kg): MRO 1400 kg → 42.75 kg (docs/standards.md §6.2). §2.5.3: dyno inertia
-  // TM + 50 % m_r on a single-axle dyno, TM on a two-axle dyno.
+  // EU SA4 §2.5.1: m_r = 3 % of (MRO + 25 kg): MRO 1400 kg → 42.75 kg (docs/standards.md §6.2). §2.5.3: dyno
+  // inertia TM + 50 % m_r on a single-axle dyno, TM on a two-axle dyno.
   MassRule r;
   EXPECT_NEAR(rotating_mass_kg(1400.0, r), 42.75, 1e-12);
   EXPECT_NEAR(force_mass_kg(1500.0, 42.75), 1542.75, 1e-12);
