@@ -8,6 +8,7 @@
 #include <fstream>
 
 #include "record/event_log.hpp"
+#include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
 
@@ -73,8 +74,8 @@ std::vector<core::CheckRecord> CellHistory::checks() const {
 std::optional<core::RoadLoad> CellHistory::parasitic_curve(std::string* utc) const {
   std::optional<core::RoadLoad> out;
   for (const auto& r : records_)
-    if (r.value("type", "") == "parasitic_curve" && r.contains("f0_n")) {
-      out = core::RoadLoad{r.value("f0_n", 0.0), r.value("f1_n_per_kmh", 0.0), r.value("f2_n_per_kmh2", 0.0)};
+    if (r.value("type", "") == "parasitic_curve" && record::is_road_load_json(r)) {
+      out = record::road_load_from_json(r);  // the curve's members sit at the record's top
       if (utc) *utc = r.value("utc", "");
     }
   return out;

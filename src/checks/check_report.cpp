@@ -9,6 +9,7 @@
 #include "checks/check_runner.hpp"
 #include "core/problem.hpp"
 #include "record/event_log.hpp"
+#include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 #include "report/svg_plot.hpp"
 
@@ -74,13 +75,14 @@ bool write_check_report(const std::string& folder, std::string& error) {
   };
   if (r.contains("parasitic")) {
     const auto& p = r["parasitic"];
-    if (p.contains("curve"))
-      h << "<p>Parasitic loss curve: P(v) = " << num(p["curve"].value("f0_n", 0.0)) << " N + "
-        << num(p["curve"].value("f1_n_per_kmh", 0.0)) << " N/(km/h)·v + "
-        << num(p["curve"].value("f2_n_per_kmh2", 0.0))
+    if (p.contains("curve") && record::is_road_load_json(p["curve"])) {
+      const core::RoadLoad c = record::road_load_from_json(p["curve"]);
+      h << "<p>Parasitic loss curve: P(v) = " << num(c.f0_n) << " N + " << num(c.f1_n_per_kmh)
+        << " N/(km/h)·v + " << num(c.f2_n_per_kmh2)
         << " N/(km/h)²·v², from the coast of the empty rollers at the base inertia "
         << num(p.value("base_inertia_kg", 0.0)) << " kg. "
         << (r.value("curve_stored", false) ? "Stored as the cell's curve." : "Not stored.") << "</p>";
+    }
     h << "<p>Limits: the larger of "
       << "the profile's tolerance in N and its share of the stored loss (the lab's).</p>";
     h << "<table><tr><th>speed (km/h)</th><th>measured (N)</th><th>stored (N)</th><th>deviation "

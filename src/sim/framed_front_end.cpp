@@ -2,8 +2,6 @@
 
 #include <algorithm>
 
-#include "sim/line_front_end.hpp"  // line_event_text: the simulator's note for a latched fault
-
 namespace loadtrim::sim {
 
 using framed::Field;
@@ -178,7 +176,7 @@ void FramedFrontEnd::catch_up(double wall_s) {
 void FramedFrontEnd::tick(double, double wall_s, std::vector<std::string>&, std::vector<std::string>& notes) {
   catch_up(wall_s);
   sim_.check_watchdog_typed(wall_s, events_);
-  for (const auto& e : events_) notes.push_back("framed EVT " + line_event_text(e));
+  for (const auto& e : events_) notes.push_back("framed EVT " + event_text(e));
   events_.clear();
 }
 

@@ -56,12 +56,6 @@ std::vector<std::string> line_event_fields(const FaultEvent& e) {
   return {"FAULT", kv("kind", to_string(e.kind)), kv("detail", d), kv("time_s", e.time_s)};
 }
 
-std::string line_event_text(const FaultEvent& e) {
-  std::string t;
-  for (const auto& f : line_event_fields(e)) t += (t.empty() ? "" : " ") + f;
-  return t;
-}
-
 LineFrontEnd::LineFrontEnd(const physics::Truth& truth, SimSettings settings)
     : sim_(truth, std::move(settings)) {}
 

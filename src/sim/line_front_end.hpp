@@ -18,10 +18,6 @@ line::ErrorCode line_error_code(Cause c);
 // A latched fault as the fields of the EVT line that tells it (docs/protocol.md section 9): FAULT,
 // kind=<WATCHDOG|ESTOP>, detail=<words joined by _>, time_s=<simulated s>.
 std::vector<std::string> line_event_fields(const FaultEvent& e);
-// The same joined by spaces ("FAULT kind=WATCHDOG detail=... time_s=..."): the text of a controller event as
-// the controller interface hands it up (controller.hpp, do_take_events), for in-process adapters, and the
-// simulator's note to its operator.
-std::string line_event_text(const FaultEvent& e);
 
 class LineFrontEnd : public FrontEnd {
  public:

@@ -2,11 +2,21 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdio>
 #include <utility>
 
 namespace loadtrim::sim {
 
 using controller::Mode;
+
+std::string event_text(const FaultEvent& e) {
+  std::string d = e.detail;  // one field: no spaces
+  for (char& ch : d)
+    if (ch == ' ') ch = '_';
+  char t[40];
+  std::snprintf(t, sizeof t, "%.17g", e.time_s);  // parses back to the same double
+  return std::string("FAULT kind=") + to_string(e.kind) + " detail=" + d + " time_s=" + t;
+}
 
 const char* to_string(FaultKind k) {
   switch (k) {

@@ -70,6 +70,11 @@ struct FaultEvent {
   std::string detail;   // a short sentence (with spaces)
   double time_s = 0.0;  // simulated time when it latched
 };
+// A latched fault as the text of a controller event that the controller interface hands up
+// (controller.hpp, do_take_events): "FAULT kind=<WATCHDOG|ESTOP> detail=<words joined by _> time_s=<s>".
+// In-process adapters hand it up as it is, and the simulator says it to its operator; each dialect puts the
+// same words on its own wire its own way.
+std::string event_text(const FaultEvent& e);
 
 // A command with the setpoint its mode takes, typed so that a speed and a force never share a parameter.
 namespace cmd {

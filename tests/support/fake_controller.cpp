@@ -116,7 +116,7 @@ Result FakeController::do_clear_fault(controller::Deadline) {
   return from(sim_->clear());
 }
 void FakeController::do_take_events(std::vector<std::string>& out) {
-  for (const auto& e : sim_events_) out.push_back(sim::line_event_text(e));
+  for (const auto& e : sim_events_) out.push_back(sim::event_text(e));
   sim_events_.clear();
   out.insert(out.end(), script.events.begin(), script.events.end());
   script.events.clear();
