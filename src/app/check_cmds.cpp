@@ -171,7 +171,7 @@ int run_due(const CheckOptions& o) {
   } else {
     now = *checks::parse_utc_s(record::utc_now());
   }
-  const checks::Readiness r = checks::readiness(h, l.profile, now);
+  const checks::Readiness r = checks::readiness(h, l.profile, now, l.cell.adapter);
   if (o.json) {
     std::printf("%s\n", checks::to_json(r).dump().c_str());
   } else {

@@ -57,10 +57,16 @@ CellHistory::CellHistory(const std::string& root, const std::string& cell_name) 
   if (!v.ok) error_ = log_path_ + ": " + v.message;
 }
 
-std::vector<core::CheckRecord> CellHistory::checks() const {
+namespace {
+bool made_through(const nlohmann::json& r, const std::string& adapter) {
+  return adapter.empty() || !r.contains("adapter") || r.value("adapter", "") == adapter;
+}
+}  // namespace
+
+std::vector<core::CheckRecord> CellHistory::checks(const std::string& adapter) const {
   std::vector<core::CheckRecord> out;
   for (const auto& r : records_) {
-    if (r.value("type", "") != "check") continue;
+    if (r.value("type", "") != "check" || !made_through(r, adapter)) continue;
     core::CheckRecord c;
     const auto t = parse_utc_s(r.value("utc", ""));
     if (!t || !core::parse(r.value("kind", ""), c.kind)) continue;
@@ -71,10 +77,10 @@ std::vector<core::CheckRecord> CellHistory::checks() const {
   return out;
 }
 
-std::optional<core::RoadLoad> CellHistory::parasitic_curve(std::string* utc) const {
+std::optional<core::RoadLoad> CellHistory::parasitic_curve(std::string* utc, const std::string& adapter) const {
   std::optional<core::RoadLoad> out;
   for (const auto& r : records_)
-    if (r.value("type", "") == "parasitic_curve" && record::is_road_load_json(r)) {
+    if (r.value("type", "") == "parasitic_curve" && made_through(r, adapter) && record::is_road_load_json(r)) {
       out = record::road_load_from_json(r);  // the curve's members sit at the record's top
       if (utc) *utc = r.value("utc", "");
     }
@@ -158,14 +164,15 @@ std::string Readiness::summary() const {
   return s;
 }
 
-Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, double now) {
+Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, double now,
+                    const std::string& adapter) {
   Readiness r;
   if (!h.ok()) {
     r.history_ok = false;
     r.history_error = h.error();
     return r;
   }
-  const auto recs = h.checks();
+  const auto recs = h.checks(adapter);
   r.items = core::due_checks(recs, now, profile.due, h.maintenance_utc_s());
   for (const auto& it : r.items)
     if (it.due() &&

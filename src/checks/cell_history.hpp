@@ -1,9 +1,9 @@
 // A cell's own history, for the dyno checks and the sessions that depend on them:
 //   <checks root>/<cell>/cell-log.jsonl   hash-chained, fsync'd, append-only (record/event_log.hpp). Records:
-//     "check"            {kind, passed, verdict, folder}      one per finished check; or
+//     "check"            {kind, passed, verdict, folder, adapter, controller}   one per finished check; or
 //                        {kind, passed, verdict, logged: true, operator}   one per check performed outside
 //                        loadtrim (speed, linearity) and logged with `loadtrim check record`
-//     "parasitic_curve"  {f0_n, f1_n_per_kmh, f2_n_per_kmh2, folder}   the cell's stored curve, latest wins
+//     "parasitic_curve"  {f0_n, f1_n_per_kmh, f2_n_per_kmh2, folder, adapter}   the stored curve, latest wins
 //     "maintenance"      {note}                                major maintenance (makes checks due again)
 //     "seal"             {kind, folder, origin, chain_head, seal, seal_seq, signer}   one per sealed session
 //     or
@@ -38,8 +38,12 @@ class CellHistory {
   const std::string& dir() const { return dir_; }
   const std::string& log_path() const { return log_path_; }
 
-  std::vector<core::CheckRecord> checks() const;
-  std::optional<core::RoadLoad> parasitic_curve(std::string* utc = nullptr) const;
+  // A check run through one adapter does not count for a cell reached through another: a run over the
+  // in-process simulator, say, never makes the real dyno's checks current. `adapter` (the cell file's
+  // controller.adapter) keeps the records made through it, and those that name none (logged with `check
+  // record`, or written before records named their adapter); "" keeps all.
+  std::vector<core::CheckRecord> checks(const std::string& adapter = "") const;
+  std::optional<core::RoadLoad> parasitic_curve(std::string* utc = nullptr, const std::string& adapter = "") const;
   std::optional<double> maintenance_utc_s() const;
   const std::vector<nlohmann::json>& records() const { return records_; }
 
@@ -63,7 +67,9 @@ struct Readiness {
   bool may_start() const { return history_ok && blocking.empty(); }
   std::string summary() const;  // one line per blocking item (or "all required checks current")
 };
-Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, double now_utc_s);
+// `adapter`: the cell file's controller.adapter (CellHistory::checks).
+Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, double now_utc_s,
+                    const std::string& adapter);
 
 // What a finished session or dyno check calls last, after its final record and its last write to any file of
 // the folder: seals the folder (record::seal_folder, with the cell's key or unsigned) and appends the seal to

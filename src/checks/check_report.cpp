@@ -1,6 +1,7 @@
 // The check's report.html, from its folder alone (result.json and the traces): the verdict, the clause, each
 // figure the verdict rests on, and which limits are the text's and which the lab's.
 #include <algorithm>
+#include <cmath>
 #include <filesystem>
 #include <fstream>
 #include <functional>
@@ -19,6 +20,13 @@ namespace fs = std::filesystem;
 using core::num;
 
 namespace {
+// Where a limit comes from: the text's own figure, or the lab's (the profile loader refuses a limit looser
+// than the text's, so a different figure is a stricter one).
+std::string source_of(double limit, double text_limit) {
+  return std::abs(limit - text_limit) <= 1e-12 * std::abs(text_limit) ? "[text]"
+                                                                      : "[the lab's, stricter than the text's]";
+}
+
 std::string pct(double fraction, int decimals = 2) {
   return (fraction >= 0.0 ? "+" : "") + num(100.0 * fraction, decimals);
 }
@@ -121,8 +129,10 @@ bool write_check_report(const std::string& folder, std::string& error) {
          "Stated base inertia "
       << num(x.value("stated_kg", 0.0), 1) << " kg; mean " << num(x.value("mean_kg", 0.0), 1) << " kg ("
       << pct(x.value("mean_error_fraction", 0.0)) << " %, limit ±"
-      << num(100.0 * x.value("mean_tolerance_fraction", 0.0), 2) << " % [text]); every set within ±"
-      << num(100.0 * x.value("set_tolerance_fraction", 0.0), 1) << " % [text]"
+      << num(100.0 * x.value("mean_tolerance_fraction", 0.0), 2) << " % "
+      << source_of(x.value("mean_tolerance_fraction", 0.0), core::InertiaCheckOptions{}.mean_tolerance_fraction)
+      << "); every set within ±" << num(100.0 * x.value("set_tolerance_fraction", 0.0), 1) << " % "
+      << source_of(x.value("set_tolerance_fraction", 0.0), core::InertiaCheckOptions{}.set_tolerance_fraction)
       << (x.value("complete", false) ? "" : "; <b>fewer sets than the text's five at three rate pairs</b>")
       << ".</p>";
     h << "<table><tr><th>pair</th><th>set</th><th>rates ((mph)/s)</th><th>F̄ accel (N)</th><th>Δt accel "
@@ -161,8 +171,9 @@ bool write_check_report(const std::string& folder, std::string& error) {
     const auto& x = r["accel_decel"];
     h << "<h2>Acceleration and deceleration (40 CFR 1066.265)</h2><p>Road-load simulation at each inertia "
          "with a constant set force F = I·rate (no speed terms), timed 10 → 40 mph and 40 → 10 mph; limit ±"
-      << num(100.0 * x.value("tolerance_fraction", 0.0), 1)
-      << " % [text]. Not run: " << xml_escape(x.value("not_run", "")) << ".</p>";
+      << num(100.0 * x.value("tolerance_fraction", 0.0), 1) << " % "
+      << source_of(x.value("tolerance_fraction", 0.0), core::AccelDecelOptions{}.tolerance_fraction)
+      << ". Not run: " << xml_escape(x.value("not_run", "")) << ".</p>";
     h << "<table><tr><th>inertia (kg)</th><th>nominal ((mph)/s)</th><th>run</th><th>direction</th><th>Δt "
          "(s)</th><th>measured ((mph)/s)</th><th>error (%)</th><th>result</th></tr>";
     for (const auto& s : x.value("runs", nlohmann::json::array()))
@@ -180,8 +191,10 @@ bool write_check_report(const std::string& folder, std::string& error) {
          "speed hold; the settling time is counted from the last sample before the step until the force "
          "stays "
          "within ±"
-      << num(100.0 * x.value("band_fraction", 0.0), 0) << " % of its final value; limit "
-      << num(1000.0 * x.value("limit_s", 0.0), 0) << " ms [text].</p>";
+      << num(100.0 * x.value("band_fraction", 0.0), 0) << " % "
+      << source_of(x.value("band_fraction", 0.0), core::ResponseOptions{}.band_fraction)
+      << " of its final value; limit " << num(1000.0 * x.value("limit_s", 0.0), 0) << " ms "
+      << source_of(x.value("limit_s", 0.0), core::ResponseOptions{}.limit_s) << ".</p>";
     h << "<table><tr><th>rate ((mph)/s)</th><th>force (N)</th><th>final (N)</th><th>settling "
          "(ms)</th><th>overshoot "
          "(%)</th><th>sample spacing (ms)</th><th>result</th></tr>";

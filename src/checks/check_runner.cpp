@@ -60,7 +60,7 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     return res;
   }
   std::string stored_utc;
-  const std::optional<core::RoadLoad> stored = hist.parasitic_curve(&stored_utc);
+  const std::optional<core::RoadLoad> stored = hist.parasitic_curve(&stored_utc, req.cell.adapter);
   try {
     res.folder = record::create_session_folder(hist.dir(), core::to_string(req.kind));
   } catch (const std::exception& e) {
@@ -74,12 +74,14 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   nlohmann::json result = {{"check", core::to_string(req.kind)},
                            {"clause", std::string("40 CFR ") + core::clause_of(req.kind)},
                            {"cell", req.cell.name},
+                           {"adapter", req.cell.adapter},
                            {"profile", req.profile.name},
                            {"standard", req.profile.standard}};
   bool passed = false;
   std::string verdict;
   std::optional<core::RoadLoad> new_curve;
   bool moved = false;
+  std::string controller_name = "not identified";  // as the controller names itself at identify
   try {
     nlohmann::json files = nlohmann::json::array();
     files.push_back(record::copy_input(res.folder, req.cell_file, "cell.toml"));
@@ -108,10 +110,29 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
                   "the response time (40 CFR 1066.245) needs the controller's own samples at most " +
                       core::num(1000.0 * req.profile.response.max_sample_period_s, 1) +
                       " ms apart, and this cell's adapter polls its samples (their times are the poll's)"};
+    // The friction compensation error (40 CFR 1066.260) is measured against the parasitic curve of 1066.255:
+    // refused, before anything connects, without a current one (none stored, the latest determination
+    // failed, or it is due again).
+    if (req.kind == core::CheckKind::friction) {
+      if (!stored)
+        throw Abort{CheckResult::End::refused,
+                    "the friction compensation check (40 CFR 1066.260) follows the parasitic loss "
+                    "determination (1066.255), and the cell's history holds no parasitic curve: run `loadtrim "
+                    "check parasitic` first"};
+      const auto now_s = parse_utc_s(record::utc_now());
+      for (const auto& it : readiness(hist, req.profile, now_s.value_or(0.0), req.cell.adapter).items)
+        if (it.kind == core::CheckKind::parasitic && it.due())
+          throw Abort{CheckResult::End::refused,
+                      "the friction compensation check (40 CFR 1066.260) is measured against the parasitic "
+                      "loss curve (1066.255), and the parasitic check is " +
+                          std::string(core::to_string(it.state)) + " (" + it.why +
+                          "): pass `loadtrim check parasitic` first"};
+    }
     const controller::KeepAlive keep_alive(c);
     p.must(c.connect(), "connect");
     controller::ControllerInfo info;
     p.must(c.identify(info), "identify");
+    controller_name = info.name;
     const core::Problems id = controller::check_identity(req.cell, info);
     p.record(ev::CheckIdentified{info.name, info.roller_diameter_m, info.base_inertia_kg, id.size()});
     if (core::has_errors(id))
@@ -219,11 +240,14 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
                           {{"kind", core::to_string(req.kind)},
                            {"passed", res.end == CheckResult::End::passed},
                            {"verdict", verdict},
-                           {"folder", fs::path(res.folder).filename().string()}},
+                           {"folder", fs::path(res.folder).filename().string()},
+                           {"adapter", req.cell.adapter},
+                           {"controller", controller_name}},
                           now);
   if (store_curve && hist_ok) {
     nlohmann::json curve = session::to_json(*new_curve);  // the cell log keeps the curve's members at its top
     curve["folder"] = fs::path(res.folder).filename().string();
+    curve["adapter"] = req.cell.adapter;
     curve["accepted_by_operator"] = res.end == CheckResult::End::failed;
     hist_ok = hist.append("parasitic_curve", curve, now);
   }

@@ -108,7 +108,10 @@ core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profil
   t.id = row.id;
   t.description = "US EPA Test Car List row at line " + std::to_string(row.line);
   t.test_mass_kg = row.etw_kg;
+  // The list gives the equivalent test weight only: its mass in running order is an estimate (the weight
+  // less 100 kg; common practice, no source) and says so wherever the target goes (target file, record).
   t.mass_in_running_order_kg = row.etw_kg - 100.0;
+  t.mass_in_running_order_estimated = true;
   t.drive = drive_of(row);
   t.max_speed_kmh = max_speed_kmh;
   t.target = row.target;

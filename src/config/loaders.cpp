@@ -287,8 +287,13 @@ core::CheckProfile read_check_profile(TomlReader& r) {
     r.error("inertia.decel_rates_mph_per_s",
             "must give one deceleration rate per acceleration rate (the rate pairs), at least one pair");
   in.sets_per_rate_pair = r.integer_or("inertia.sets_per_rate_pair", in.sets_per_rate_pair, 1, 20);
-  in.set_tolerance_fraction = r.number("inertia.set_tolerance_fraction", 0.0, 0.5, "");
-  in.mean_tolerance_fraction = r.number("inertia.mean_tolerance_fraction", 0.0, 0.5, "");
+  // The text's limits are the loosest a profile may give (a lab may be stricter): the defaults of
+  // core::InertiaCheckOptions are CFR 1066.250's ±1.0 % and ±0.20 %.
+  const core::InertiaCheckOptions text_in;
+  in.set_tolerance_fraction =
+      r.number("inertia.set_tolerance_fraction", 0.0, text_in.set_tolerance_fraction, "(CFR 1066.250 [text])");
+  in.mean_tolerance_fraction =
+      r.number("inertia.mean_tolerance_fraction", 0.0, text_in.mean_tolerance_fraction, "(CFR 1066.250 [text])");
 
   // 1066.260 friction compensation.
   auto& fr = p.friction;
@@ -309,7 +314,9 @@ core::CheckProfile read_check_profile(TomlReader& r) {
   ad.highest_test_rate_mph_per_s = r.number_or("accel_decel.highest_test_rate_mph_per_s",
                                                ad.highest_test_rate_mph_per_s, 0.1, 20.0, "(mph)/s");
   ad.runs_per_rate = r.integer_or("accel_decel.runs_per_rate", ad.runs_per_rate, 1, 20);
-  ad.tolerance_fraction = r.number_or("accel_decel.tolerance_fraction", ad.tolerance_fraction, 0.0, 0.5, "");
+  ad.tolerance_fraction = r.number_or("accel_decel.tolerance_fraction", ad.tolerance_fraction, 0.0,
+                                      core::AccelDecelOptions{}.tolerance_fraction,  // the text's ±1.0 %
+                                      "(CFR 1066.265 [text])");
   if (r.has("accel_decel.inertias_kg"))
     ad.inertias_kg = r.numbers("accel_decel.inertias_kg", 100.0, 20000.0, "kg");
 
@@ -319,8 +326,10 @@ core::CheckProfile read_check_profile(TomlReader& r) {
     rs.rates_mph_per_s = r.numbers("response.rates_mph_per_s", 0.1, 20.0, "(mph)/s");
   rs.start_mph = r.number_or("response.start_mph", rs.start_mph, 1.0, 100.0, "mph");
   rs.window_s = r.number_or("response.window_s", rs.window_s, 0.2, 10.0, "s");
-  rs.limit_s = r.number_or("response.limit_s", rs.limit_s, 0.001, 10.0, "s");
-  rs.band_fraction = r.number_or("response.band_fraction", rs.band_fraction, 0.001, 0.5, "");
+  const core::ResponseOptions text_rs;  // CFR 1066.245's 100 ms and ±10 %: a profile may only be stricter
+  rs.limit_s = r.number_or("response.limit_s", rs.limit_s, 0.001, text_rs.limit_s, "s (CFR 1066.245 [text])");
+  rs.band_fraction = r.number_or("response.band_fraction", rs.band_fraction, 0.001, text_rs.band_fraction,
+                                 "(CFR 1066.245 [text])");
   rs.max_sample_period_s =
       r.number_or("response.max_sample_period_s", rs.max_sample_period_s, 0.0001, 1.0, "s");
   rs.sample_rate_hz = r.number_or("response.sample_rate_hz", rs.sample_rate_hz, 10.0, 1000.0, "Hz");

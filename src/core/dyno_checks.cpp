@@ -446,7 +446,7 @@ UnloadedCoastdown check_unloaded_coastdown(TraceView coast, double inertia_kg, c
   const TraceAnalyser a(coast);
   const auto edges = interval_edges_mph(o);
   bool all = edges.size() >= 2;
-  double worst = 0.0, worst_speed = 0.0;
+  double worst = 0.0, worst_speed = 0.0, worst_dev_n = 0.0, worst_limit_n = 0.0;
   for (std::size_t k = 0; k + 1 < edges.size(); ++k) {
     IntervalResult r;
     r.v_high_mph = edges[k];
@@ -474,6 +474,8 @@ UnloadedCoastdown check_unloaded_coastdown(TraceView coast, double inertia_kg, c
     if (std::abs(r.deviation_n) / r.limit_n > std::abs(worst)) {
       worst = r.deviation_n / r.limit_n;
       worst_speed = 0.5 * (r.v_high_mph + r.v_low_mph);
+      worst_dev_n = r.deviation_n;
+      worst_limit_n = r.limit_n;
     }
     out.intervals.push_back(r);
   }
@@ -487,7 +489,9 @@ UnloadedCoastdown check_unloaded_coastdown(TraceView coast, double inertia_kg, c
     }
   mean_dev = n ? mean_dev / n : 0.0;
   if (out.passed) {
-    out.verdict = "pass: every interval within its limit at " + num(inertia_kg, 0) + " kg";
+    out.verdict = "pass: every interval within its limit at " + num(inertia_kg, 0) + " kg; worst " +
+                  (worst_dev_n >= 0 ? "+" : "") + num(worst_dev_n, 1) + " N near " + num(worst_speed, 0) +
+                  " mph (limit ±" + num(worst_limit_n, 1) + " N, the lab's)";
   } else if (n < static_cast<int>(out.intervals.size())) {
     out.verdict = "FAIL: not every interval was measured (coast incomplete) at " + num(inertia_kg, 0) + " kg";
   } else {

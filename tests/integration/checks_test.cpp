@@ -664,3 +664,36 @@ TEST(DynoChecksCli, ACheckTheMapCannotCommandIsRefusedBeforeAnythingConnects) {
   EXPECT_TRUE(h.checks().empty());
   if (!HasFailure()) fs::remove_all(dir);
 }
+
+// A check run through one adapter never makes another adapter's checks current (an in-process simulator run
+// under the dyno's cell name, say): CFR 1066.215 Table 1 counts the dyno's own checks, and a simulator is not
+// the dyno. Readiness is due within 1 day (1066.215 Table 1 [text]); the records below are a pass 1 h ago.
+TEST(DynoChecksHistory, ARunThroughAnotherAdapterDoesNotCount) {
+  const std::string dir = temp_dir("checks-adapter");
+  {
+    checks::CellHistory h(dir, "cell-a");
+    ASSERT_TRUE(h.ok()) << h.error();
+    ASSERT_TRUE(h.append("check",
+                         {{"kind", "readiness"}, {"passed", true}, {"verdict", "pass"}, {"folder", "x"},
+                          {"adapter", "inprocess-sim"}, {"controller", "sim"}},
+                         "2026-12-01T07:00:00.000Z"));
+    ASSERT_TRUE(h.append("parasitic_curve",
+                         {{"f0_n", 10.0}, {"f1_n_per_kmh", 0.1}, {"f2_n_per_kmh2", 0.001}, {"folder", "y"},
+                          {"adapter", "inprocess-sim"}},
+                         "2026-12-01T07:00:00.000Z"));
+  }
+  const checks::CellHistory h(dir, "cell-a");
+  ASSERT_TRUE(h.ok()) << h.error();
+  const double now = *checks::parse_utc_s("2026-12-01T08:00:00.000Z");
+  const core::CheckProfile profile;  // the text's table (core::cfr1066_due_policy)
+  auto state_of = [&](const std::string& adapter) {
+    for (const auto& it : checks::readiness(h, profile, now, adapter).items)
+      if (it.kind == core::CheckKind::readiness) return it.state;
+    return core::DueState::overdue;
+  };
+  EXPECT_EQ(state_of("inprocess-sim"), core::DueState::current);
+  EXPECT_EQ(state_of("line-tcp"), core::DueState::due_never_done);
+  EXPECT_TRUE(h.parasitic_curve(nullptr, "inprocess-sim").has_value());
+  EXPECT_FALSE(h.parasitic_curve(nullptr, "line-tcp").has_value());
+  if (!HasFailure()) fs::remove_all(dir);
+}

@@ -503,8 +503,8 @@ TEST(DynoChecks, TheDueTableIsTheTextsTable) {
       {CheckKind::parasitic, 0, true, cd_or_ready}, {CheckKind::coastdown, 7, false, {}},
       {CheckKind::readiness, 1, false, {}},         {CheckKind::inertia, 0, true, {}},
       {CheckKind::friction, 0, true, cd_or_ready},  {CheckKind::accel_decel, 0, true, {}},
-      {CheckKind::response, 370, true, {}},         {CheckKind::speed, 370, true, {}},
-      {CheckKind::linearity, 370, true, {}}};
+      {CheckKind::response, 370, false, {}},        {CheckKind::speed, 370, false, {}},
+      {CheckKind::linearity, 370, false, {}}};
   const CheckProfile shipped =
       config::load_check_profile(std::string(LOADTRIM_SOURCE_DIR) + "/config/checks/cfr1066.toml");
   for (const DuePolicy& p : {cfr1066_due_policy(), shipped.due}) {
