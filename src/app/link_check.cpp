@@ -115,6 +115,7 @@ int run_link_check(const LinkCheckOptions& o) {
     return fail(r);
   }
   c->stop_stream();
+  m.drain_warnings();  // what the stream's end raised
   const auto s = c->stats();
   const double span = samples.size() > 1 ? samples.back().time_s - samples.front().time_s : 0.0;
   const double hz = span > 0 ? (samples.size() - 1) / span : 0.0;
