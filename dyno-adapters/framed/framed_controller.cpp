@@ -156,10 +156,9 @@ Result FramedController::transact(Op op, const Values& in, Values& out, controll
         warned_bits_ |= fresh;
         char hex[24];
         std::snprintf(hex, sizeof hex, "0x%llX", static_cast<unsigned long long>(fresh));
-        events_.push_back(
-            std::string("WARNING framed: status-word bits ") + hex + " in the reply to " + what +
-            " are not mapped by [framed.flags] (fault, estop, watchdog, limit, at_setpoint) and "
-            "are ignored");
+        warn("status_bits", std::string("the status word sets bits ") + hex + " (in the reply to " + what +
+                                ") that [framed.flags] does not map (fault, estop, watchdog, limit, "
+                                "at_setpoint): they are ignored");
       }
       return Result::success();
     }
@@ -314,11 +313,6 @@ Result FramedController::do_status(controller::StatusReport& out, controller::De
 Result FramedController::do_clear_fault(controller::Deadline d) {
   Values v;
   return transact(Op::clear_fault, {}, v, d);
-}
-
-void FramedController::do_take_events(std::vector<std::string>& out) {
-  out.insert(out.end(), events_.begin(), events_.end());
-  events_.clear();
 }
 
 }  // namespace loadtrim::framed

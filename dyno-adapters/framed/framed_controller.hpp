@@ -59,7 +59,7 @@ class FramedController : public controller::Controller {
   controller::Result do_status(controller::StatusReport& out, controller::Deadline d) override;
   controller::Result do_clear_fault(controller::Deadline d) override;
   // Warnings (once each): status-word bits the table does not map.
-  void do_take_events(std::vector<std::string>& out) override;
+  double polled_rate_hz() const override { return table_.poll_rate_hz; }
   // A scaled field carries whole counts: a read-back may differ from the value written by half a count of
   // the field that carried it (and by nothing more).
   double readback_tolerance(double written) const override;
@@ -81,7 +81,6 @@ class FramedController : public controller::Controller {
   std::uint64_t index_ = 0;
   std::vector<std::pair<double, double>> resolutions_;  // (value written, half a count of its field)
   std::uint64_t warned_bits_ = 0;                       // unmapped status-word bits already warned about
-  std::vector<std::string> events_;
 };
 
 }  // namespace loadtrim::framed

@@ -146,7 +146,11 @@ Result LineController::request(const std::string& verb, std::vector<std::string>
     while (!replies_.empty()) {
       Message rep = std::move(replies_.front());
       replies_.pop_front();
-      if (rep.fields.empty() || rep.fields[0] != std::to_string(m.seq)) continue;  // a stale reply
+      if (rep.fields.empty() || rep.fields[0] != std::to_string(m.seq)) {  // a stale reply
+        warn("late_reply_discarded",
+             "a reply to an earlier request came after its deadline and was discarded");
+        continue;
+      }
       if (rep.type == kTypeErr) {
         int code = 0;
         if (rep.fields.size() > 1)
@@ -223,8 +227,9 @@ Result LineController::do_read_inertia(double& kg, Deadline d) {
 Result LineController::do_write_coefficients(const core::RoadLoad& c, Deadline d) {
   Message rep;
   return request(
-      kVerbCoef, {kArgSet, format_number(c.f0_n), format_number(c.f1_n_per_kmh), format_number(c.f2_n_per_kmh2)},
-      rep, d);
+      kVerbCoef,
+      {kArgSet, format_number(c.f0_n), format_number(c.f1_n_per_kmh), format_number(c.f2_n_per_kmh2)}, rep,
+      d);
 }
 
 Result LineController::do_read_coefficients(core::RoadLoad& c, Deadline d) {

@@ -92,12 +92,18 @@ Result ModbusController::transact(const std::string& what, F&& request) {
         discarded = std::to_string(waiting) + " bytes that came after the failure (a late reply) discarded";
         ++stats_.lines_rejected;
         stats_.last_rejected = what + ": " + discarded;
+        warn("late_reply_discarded", "bytes that came after a failed request (a late reply) were discarded");
       }
     }
     const bool again = exception && retryable_exception(e - MODBUS_ENOBASE);
     const auto next = Clock::now() + std::chrono::milliseconds(p.delay_ms);
     if (again && attempt < p.attempts && next - first < std::chrono::milliseconds(p.within_ms)) {
       ++exception_retries_;
+      // Counted per exception code between two reads of the warnings (Controller::warn coalesces).
+      warn("exception_retried",
+           "the controller answered Modbus exception " + std::to_string(e - MODBUS_ENOBASE) + " (" +
+               modbus_strerror(e) +
+               "); the request was sent again (modbus.retry_attempts = " + std::to_string(p.attempts) + ")");
       std::this_thread::sleep_until(next);
       continue;
     }
@@ -156,24 +162,9 @@ void ModbusController::do_disconnect() {
 }
 
 Result ModbusController::read(Q q, double& value) {
-  if (!ctx_) return Result::retry("link not open");
   const Register& r = settings_.map[q];
   std::uint16_t w[4] = {0, 0, 0, 0};
-  if (Result res = transact(std::string("read ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
-                                std::to_string(r.address) + ")",
-                            [&] {
-                              if (r.table == Table::coil) {
-                                std::uint8_t bit = 0;
-                                const int rc = modbus_read_bits(ctx_, r.address, 1, &bit);
-                                w[0] = bit;
-                                return rc;
-                              }
-                              if (r.table == Table::input)
-                                return modbus_read_input_registers(ctx_, r.address, r.words(), w);
-                              return modbus_read_registers(ctx_, r.address, r.words(), w);
-                            });
-      !res.ok())
-    return res;
+  if (Result res = read_words(q, w); !res.ok()) return res;
   value = decode(r, w);
   if (!std::isfinite(value))
     return Result::fail(std::string("the controller sent a non-finite ") + kQuantities[q].name + " (" +
@@ -181,14 +172,37 @@ Result ModbusController::read(Q q, double& value) {
   return Result::success();
 }
 
-Result ModbusController::write(Q q, double value) {
+Result ModbusController::read_words(Q q, std::uint16_t* w) {
   if (!ctx_) return Result::retry("link not open");
+  const Register& r = settings_.map[q];
+  return transact(std::string("read ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
+                      std::to_string(r.address) + ")",
+                  [&] {
+                    if (r.table == Table::coil) {
+                      std::uint8_t bit = 0;
+                      const int rc = modbus_read_bits(ctx_, r.address, 1, &bit);
+                      w[0] = bit;
+                      return rc;
+                    }
+                    if (r.table == Table::input)
+                      return modbus_read_input_registers(ctx_, r.address, r.words(), w);
+                    return modbus_read_registers(ctx_, r.address, r.words(), w);
+                  });
+}
+
+Result ModbusController::write(Q q, double value) {
   const Register& r = settings_.map[q];
   std::uint16_t w[4] = {0, 0, 0, 0};
   if (!encode(r, value, w))
     return Result::fail(std::string("cannot write ") + kQuantities[q].name + " = " + std::to_string(value) +
                         ": it does not fit the " + to_string(r.type) + " register at " + to_string(r.table) +
                         " " + std::to_string(r.address) + " with scale " + std::to_string(r.scale));
+  return write_words(q, w);
+}
+
+Result ModbusController::write_words(Q q, const std::uint16_t* w) {
+  if (!ctx_) return Result::retry("link not open");
+  const Register& r = settings_.map[q];
   return transact(std::string("write ") + kQuantities[q].name + " (" + to_string(r.table) + " " +
                       std::to_string(r.address) + ")",
                   [&] {
@@ -242,9 +256,17 @@ Result ModbusController::do_identify(controller::ControllerInfo& out, controller
   if (Result r = read(Q::max_force, out.max_force_n); !r.ok()) return r;
   // The heartbeat counter goes on from the value the register holds (left by an earlier connection or
   // process), so the next beat changes it: a controller's watchdog sees a beat only as a change.
-  double beat = 0.0;
-  if (Result r = read(Q::heartbeat, beat); !r.ok()) return r;
-  if (beat >= 0.0 && beat <= 65535.0 && beat == std::floor(beat)) beat_ = static_cast<std::uint16_t>(beat);
+  std::uint16_t w[4] = {0, 0, 0, 0};
+  if (Result r = read_words(Q::heartbeat, w); !r.ok()) return r;
+  if (const auto count = heartbeat_count(settings_.map[Q::heartbeat], w)) {
+    beat_ = *count;
+  } else {
+    const Register& h = settings_.map[Q::heartbeat];
+    warn("heartbeat_counter", "the heartbeat register (" + std::string(to_string(h.table)) + " " +
+                                  std::to_string(h.address) + ", float32) holds " + core::num(decode(h, w)) +
+                                  ", not a whole count from 0 to 65535: the counter starts again from 0");
+    beat_ = 0;
+  }
   return Result::success();
 }
 
@@ -315,7 +337,7 @@ Result ModbusController::do_command(controller::Mode mode, double value, control
   // while the tool was idle (connected, identifying, analysing) must not take its first motoring command for
   // a lapsed watchdog. Stops and idle need none.
   if (mode != controller::Mode::idle && mode != controller::Mode::controlled_stop)
-    if (Result r = write(Q::heartbeat, ++beat_); !r.ok()) return r;
+    if (Result r = beat(); !r.ok()) return r;
   if (Result r = write(Q::command, code); !r.ok()) return r;
   return strobe(d);
 }
@@ -374,23 +396,16 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
 }
 
 void ModbusController::check_status_bits(std::uint32_t flags) {
-  const std::uint32_t undefined = flags & ~kDefinedStatusBits;
-  if (!undefined || warned_status_bits_) return;
-  warned_status_bits_ = true;
+  const std::uint32_t fresh = flags & ~kDefinedStatusBits & ~warned_status_bits_;
+  if (!fresh) return;
+  warned_status_bits_ |= fresh;
   char hex[16];
-  std::snprintf(hex, sizeof hex, "0x%X", undefined);
-  const std::string w = std::string("the controller's status register sets bits the map does not define (") +
-                        hex +
-                        "; defined: 1 fault, 2 emergency stop, 4 watchdog, 8 at a limit, 16 at setpoint)";
-  // Once per connection's life: a warning, not a stop (the defined bits still act); the operator should
-  // learn what they mean from the controller's documentation.
-  std::fprintf(stderr, "loadtrim: WARNING: %s\n", w.c_str());
-  if (events_.size() < 16) events_.push_back("WARNING kind=STATUS_BITS detail=" + w);
-}
-
-void ModbusController::do_take_events(std::vector<std::string>& out) {
-  out.insert(out.end(), events_.begin(), events_.end());
-  events_.clear();
+  std::snprintf(hex, sizeof hex, "0x%X", fresh);
+  // A warning the first time each bit is seen, not a stop (the defined bits still act, the at-limit bit
+  // among them); the operator should learn what they mean from the controller's documentation.
+  warn("status_bits", std::string("the controller's status register sets bits the map does not define (") +
+                          hex +
+                          "; defined: 1 fault, 2 emergency stop, 4 watchdog, 8 at a limit, 16 at setpoint)");
 }
 
 double ModbusController::host_time_s(Clock::time_point at) const {
@@ -406,7 +421,17 @@ Result ModbusController::read_time(double& time_s) {
 }
 
 Result ModbusController::do_heartbeat(controller::Deadline) {
-  return write(Q::heartbeat, ++beat_);
+  return beat();
+}
+
+Result ModbusController::beat() {
+  const Register& h = settings_.map[Q::heartbeat];
+  const std::uint64_t next = next_heartbeat(h, beat_);
+  std::uint16_t w[4] = {0, 0, 0, 0};
+  heartbeat_words(h, next, w);
+  if (Result r = write_words(Q::heartbeat, w); !r.ok()) return r;
+  beat_ = next;
+  return Result::success();
 }
 
 Result ModbusController::do_status(controller::StatusReport& out, controller::Deadline) {

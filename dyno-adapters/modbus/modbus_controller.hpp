@@ -4,7 +4,9 @@
 // time register gives the sample and status time when the map has one, else the host clock does (since
 // connect, at the controller's stated rate) and the poll jitter is measured. Heartbeat: a counter register
 // the controller's watchdog watches, continued from its value at identify and beaten once more just before
-// every command that sets the rollers moving.
+// every command that sets the rollers moving; it wraps at the register's width. What the controller or the
+// link does that is no failure but must not pass unseen (undefined status bits, exceptions retried, late
+// bytes discarded, a heartbeat register holding no count) is raised as a warning (Controller::warn).
 #pragma once
 
 #include <chrono>
@@ -63,31 +65,34 @@ class ModbusController : public controller::Controller {
   double setting_tolerance(Setting what, double written) const override;
   std::string readback_source() const override;
   std::string mode_unavailable(controller::Mode mode) const override;
-  void do_take_events(std::vector<std::string>& out) override;
+  double polled_rate_hz() const override { return settings_.map.poll_rate_hz; }
 
  private:
   controller::Result read(Q q, double& value);
   controller::Result write(Q q, double value);
+  // The register's words as they are (Register::words() of them): read, and written without encoding.
+  controller::Result read_words(Q q, std::uint16_t* words);
+  controller::Result write_words(Q q, const std::uint16_t* words);
+  controller::Result beat();  // the next count of the heartbeat counter (register_map.hpp)
   controller::Result strobe(controller::Deadline d);          // raise, wait for the controller to clear it
   controller::Result fail(const std::string& what, int err);  // from an errno, naming Modbus exceptions
   // One request (a libmodbus call returning < 0 on failure), under the map's retry policy for busy and
   // gateway exceptions and the whole-reply bound (timeouts.reply_ms).
   template <class F>
   controller::Result transact(const std::string& what, F&& request);
-  // Status bits the map does not define: named once (stderr and an event), then only counted.
+  // Status bits the map does not define: a warning ("status_bits") the first time each bit is seen.
   void check_status_bits(std::uint32_t flags);
   Settings settings_;
   modbus_t* ctx_ = nullptr;
   adapters::PollPacer pacer_;  // the live quantities' polls (poller.hpp)
   std::uint64_t index_ = 0;
-  std::uint16_t beat_ = 0;
+  std::uint64_t beat_ = 0;  // the heartbeat counter's raw count, wrapped at the register's width
   std::chrono::steady_clock::time_point t0_{};  // without a time register: the host clock's origin (connect)
   double worst_jitter_s_ = 0.0;
   TimeCounter counter_;       // the time register unwrapped (register_map.hpp)
   double stated_rate_ = 1.0;  // the clock rate the controller stated at its last identify
   std::uint64_t exception_retries_ = 0;
-  bool warned_status_bits_ = false;
-  std::vector<std::string> events_;
+  std::uint32_t warned_status_bits_ = 0;         // the undefined bits already named
   controller::Result read_time(double& time_s);  // read and unwrapped
   // Without a time register, samples and status alike: the host clock since connect, at the stated rate.
   double host_time_s(std::chrono::steady_clock::time_point at) const;

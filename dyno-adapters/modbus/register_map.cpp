@@ -251,6 +251,49 @@ bool encode(const Register& r, double value, std::uint16_t* w) {
 }
 
 namespace {
+// The heartbeat counter's modulus minus one (all ones for uint64).
+std::uint64_t heartbeat_mask(const Register& r) {
+  if (r.type == Type::float32) return 0xFFFF;
+  const int bits = r.bits();
+  return bits >= 64 ? ~std::uint64_t{0} : bits <= 0 ? 0xFFFF : (std::uint64_t{1} << bits) - 1;
+}
+}  // namespace
+
+std::optional<std::uint64_t> heartbeat_count(const Register& r, const std::uint16_t* w) {
+  if (r.type == Type::float32) {
+    Register raw = r;
+    raw.scale = 1.0;  // the count is the register's raw value
+    const double v = decode(raw, w);
+    if (!(std::isfinite(v) && v == std::floor(v) && v >= 0.0 && v <= 65535.0)) return std::nullopt;
+    return static_cast<std::uint64_t>(v);
+  }
+  // The raw bits, high word first in the register's word order.
+  const int n = r.words();
+  std::uint64_t v = 0;
+  for (int i = 0; i < n; ++i) v = (v << 16) | w[r.order == WordOrder::big ? i : n - 1 - i];
+  return v & heartbeat_mask(r);
+}
+
+std::uint64_t next_heartbeat(const Register& r, std::uint64_t count) {
+  return (count + 1) & heartbeat_mask(r);
+}
+
+void heartbeat_words(const Register& r, std::uint64_t count, std::uint16_t* w) {
+  count &= heartbeat_mask(r);
+  if (r.type == Type::float32) {
+    const float f = static_cast<float>(count);
+    std::uint32_t v32 = 0;
+    std::memcpy(&v32, &f, sizeof f);
+    w[r.order == WordOrder::big ? 0 : 1] = static_cast<std::uint16_t>(v32 >> 16);
+    w[r.order == WordOrder::big ? 1 : 0] = static_cast<std::uint16_t>(v32 & 0xFFFF);
+    return;
+  }
+  const int n = r.words();
+  for (int i = n - 1; i >= 0; --i, count >>= 16)
+    w[r.order == WordOrder::big ? i : n - 1 - i] = static_cast<std::uint16_t>(count & 0xFFFF);
+}
+
+namespace {
 // A register value that must be a whole number in [lo, hi] (codes and bit fields).
 bool whole_in(double v, double lo, double hi) {
   return std::isfinite(v) && v == std::floor(v) && v >= lo && v <= hi;

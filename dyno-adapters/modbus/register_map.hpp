@@ -5,6 +5,7 @@
 
 #include <array>
 #include <cstdint>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -160,6 +161,21 @@ int command_code(const RegisterMap& m, controller::Mode mode);
 // setpoint is never clamped or wrapped silently. `words` holds Register::words() words (at most 4).
 double decode(const Register& r, const std::uint16_t* words);
 bool encode(const Register& r, double value, std::uint16_t* words);
+
+// The heartbeat counter (docs/modbus.md, "Heartbeat"): a count of raw register units (the register's scale
+// plays no part: only a change is looked for) that goes up by one at every beat and wraps at the register's
+// width — after 2^16 counts for int16 and uint16 (int16 goes from 32767 to -32768, uint16 from 65535 to 0),
+// 2^32 for int32 and uint32, 2^64 for uint64; float32 counts 0 to 65535 (whole numbers a float holds
+// exactly) and wraps to 0. The count is kept as the register's raw bits, so every step is a change and none
+// is out of the register's range.
+//
+// The count a register's words hold, or nothing when they hold no count (a float32 that is not a whole number
+// from 0 to 65535).
+std::optional<std::uint64_t> heartbeat_count(const Register& r, const std::uint16_t* words);
+// The count after `count`, wrapped at the register's width.
+std::uint64_t next_heartbeat(const Register& r, std::uint64_t count);
+// The words that write `count` (taken modulo the register's width) to the register.
+void heartbeat_words(const Register& r, std::uint64_t count, std::uint16_t* words);
 
 // The controller's clock as a counter (docs/modbus.md, "The time counter"): an integer time register counts
 // in units of its scale and wraps to 0 after 2^bits counts (a uint32 of milliseconds after 49.7 days of

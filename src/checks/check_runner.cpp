@@ -199,6 +199,7 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     }
     result["rollers_stopped"] = stopped;
   }
+  p.motion().drain_warnings();  // the controller's last warnings, before the check's end
   c.disconnect();
   res.verdict = verdict;
   result["end"] = to_string(res.end);

@@ -46,7 +46,13 @@ Procedure::Procedure(controller::Controller& c, const CheckRequest& req, record:
       log_(log),
       folder_(std::move(folder)),
       motion_(c, rules(req), stop),
-      observers_(req.observers) {}
+      observers_(req.observers) {
+  // The controller's warnings into the check's own log, as a session logs them. A log that cannot take one
+  // fails the next step's record (Procedure::record), which ends the check as a record failure.
+  motion_.on_warning = [this](const controller::Warning& w) {
+    (void)log_event(ev::ControllerWarning{w.code, w.text, w.count});
+  };
+}
 
 motion::Rules Procedure::rules(const CheckRequest& req) {
   motion::Rules r;

@@ -320,6 +320,8 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
       pending_fault_ = Result::fail("the controller reports a fault event: " + e.substr(0, 200));
       pending_fault_is_event_ = true;
     }
+    // A warning the controller sends of its own accord goes on to the session's log.
+    if (e.rfind("WARNING", 0) == 0) warn("controller_event", "the controller warns: " + e.substr(0, 200));
   }
   const double w = wall_s();
   for (auto& s : raw) {
@@ -441,6 +443,37 @@ void Controller::heartbeat_if_due_and_free() {
   if (!lease_valid()) return;
   const std::unique_lock<std::recursive_mutex> lock(mu_, std::try_to_lock);
   if (lock.owns_lock()) heartbeat_if_due();  // a failure shows on the driving thread's next call
+}
+
+void Controller::warn(std::string code, std::string text) {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
+  ++stats_.warnings;
+  for (Warning& w : warnings_)
+    if (w.code == code && w.text == text) {
+      ++w.count;
+      return;
+    }
+  if (warnings_.size() >= kMaxWarnings) {
+    ++warnings_dropped_;
+    ++stats_.warnings_dropped;
+    return;
+  }
+  warnings_.push_back(Warning{std::move(code), std::move(text), 1});
+}
+
+std::vector<Warning> Controller::take_warnings() {
+  const std::lock_guard<std::recursive_mutex> lock(mu_);
+  std::vector<Warning> out;
+  out.swap(warnings_);
+  if (warnings_dropped_ > 0) {
+    out.push_back(Warning{"warnings_dropped",
+                          std::to_string(warnings_dropped_) + " more warnings did not fit the queue of " +
+                              std::to_string(kMaxWarnings) +
+                              " distinct warnings between two reads and are counted here only",
+                          warnings_dropped_});
+    warnings_dropped_ = 0;
+  }
+  return out;
 }
 
 LinkStats Controller::stats() const {

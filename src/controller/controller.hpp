@@ -115,6 +115,17 @@ struct Limits {
   bool clock_wall_related = true;  // false only for a controller simulated inside the tool's process
 };
 
+// A warning an adapter raises: something the controller or the link did that does not end the call but must
+// not pass unseen (status bits the map does not define, a busy or gateway exception retried, late bytes
+// discarded, a heartbeat counter that could not be continued). `code` is a short fixed word naming it
+// (docs/modbus.md, "Warnings"), `text` says what was seen; `count` is how many times the same code and text
+// were raised since the last take_warnings (repeats are coalesced, never dropped silently).
+struct Warning {
+  std::string code;
+  std::string text;
+  std::uint64_t count = 1;
+};
+
 struct LinkStats {
   std::uint64_t lines_rejected = 0;  // corrupted or malformed lines received and dropped
   std::uint64_t lines_lost = 0;      // gaps in the controller's line sequence
@@ -128,6 +139,8 @@ struct LinkStats {
   std::uint64_t events = 0;          // EVT lines (or their equivalent) received
   std::uint64_t events_dropped = 0;  // beyond the bounded queue
   std::string last_event;
+  std::uint64_t warnings = 0;          // raised by the adapter (Controller::warn), repeats included
+  std::uint64_t warnings_dropped = 0;  // beyond the bounded warning queue (reported by take_warnings)
 };
 
 class Controller {
@@ -194,6 +207,16 @@ class Controller {
   const Timeouts& timeouts() const { return timeouts_; }
   const Limits& limits() const { return limits_; }
   void set_speed_limit(double max_speed_kmh) { limits_.max_speed_kmh = max_speed_kmh; }
+  // The adapter's own poll rate in wall Hz when it polls (streams() false), else 0: what a polled link must
+  // deliver.
+  double poll_rate_hz() const { return streamed() ? 0.0 : polled_rate_hz(); }
+
+  // The warnings raised since the last call, oldest first (motion drains them at every step it takes). The
+  // queue holds kMaxWarnings distinct entries; a repeat of a queued code and text only counts up, and what
+  // did not fit is reported as one more warning, code "warnings_dropped", with its count: nothing is lost
+  // unseen.
+  static constexpr std::size_t kMaxWarnings = 64;
+  std::vector<Warning> take_warnings();
 
  protected:
   virtual Result do_connect(Deadline d) = 0;
@@ -238,6 +261,11 @@ class Controller {
   // What the read-back reads, named in a mismatch's message ("read-back", "the applied values the
   // controller reports", ...).
   virtual std::string readback_source() const { return "read-back"; }
+  // A polling adapter's poll rate (wall Hz); see poll_rate_hz().
+  virtual double polled_rate_hz() const { return 0.0; }
+
+  // Raises a warning (see Warning): queued for take_warnings, bounded. Safe from any adapter hook.
+  void warn(std::string code, std::string text);
 
   LinkStats stats_;
 
@@ -271,6 +299,8 @@ class Controller {
   int malformed_run_ = 0;
   bool stopping_ = false;
   std::uint64_t recent_valid_ = 0, recent_malformed_ = 0;
+  std::vector<Warning> warnings_;       // at most kMaxWarnings
+  std::uint64_t warnings_dropped_ = 0;  // since the last take_warnings
 };
 
 // Feeds the controller's watchdog from a thread of its own for as long as it lives, so that a slow disk, a

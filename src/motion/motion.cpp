@@ -44,8 +44,32 @@ Clock::duration Motion::wall_budget(double budget_s) const {
   return std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(s)) + rules_.wall_slack;
 }
 
+void Motion::drain_warnings() {
+  last_warnings_ = Clock::now();
+  if (!on_warning) return;
+  for (const controller::Warning& w : c_.take_warnings()) on_warning(w);
+}
+
+void Motion::drain_warnings_if_due() {
+  if (Clock::now() - last_warnings_ >= rules_.warning_every) drain_warnings();
+}
+
+namespace {
+// Drains the warnings when a step ends, however it ends.
+struct DrainAtEnd {
+  Motion& m;
+  ~DrainAtEnd() {
+    try {
+      m.drain_warnings();
+    } catch (...) {  // a warning's observer never throws out of a step's end
+    }
+  }
+};
+}  // namespace
+
 Result Motion::collect(const Step& step, const std::function<bool(const Sample&)>& done,
                        std::vector<Sample>* keep) {
+  const DrainAtEnd drain{*this};
   const auto began = Clock::now();
   const auto wall_end = began + wall_budget(step.budget_s);
   const std::uint64_t clear_epoch = c_.clear_epoch();
@@ -74,6 +98,7 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
                               num(step.budget_s) + " s)",
                           kWallDeadline);
     got.clear();
+    drain_warnings_if_due();
     if (Result r = c_.receive_samples(got); !r.ok()) {
       r.message += " (during " + step.what + ")";
       return r;
@@ -173,11 +198,13 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
 }
 
 Result Motion::settle_by_status(double budget_s, controller::StatusReport& st) {
+  const DrainAtEnd drain{*this};
   const Stopping stopping(c_);
   const auto began = Clock::now();
   const auto wall_end = began + wall_budget(budget_s);
   double t_first = -1.0;
   for (;;) {
+    drain_warnings_if_due();
     if (Result r = c_.status(st); !r.ok()) return r;
     if (t_first < 0.0) t_first = st.time_s;
     if (at_rest(st.speed_kmh, st.mode)) return Result::success();

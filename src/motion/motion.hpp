@@ -21,6 +21,9 @@
 // with code kTooSlow when the controller budget ran out, kWallDeadline when the wall deadline passed,
 // kInterrupted, or 0.
 //
+// Warnings: the controller's (Controller::warn: undefined status bits, retried exceptions, late replies) are
+// handed to on_warning during every step and at its end.
+//
 // Threading: the thread that drives the controller calls these; they renew the controller's keep-alive lease
 // only by calling it (a stalled caller lets the controller's watchdog trip).
 #pragma once
@@ -64,6 +67,9 @@ struct Rules {
   // time, whichever comes first, counted across steps; 0 = never.
   std::chrono::milliseconds status_every{1000};
   double status_every_controller_s = 30.0;
+  // How often a step hands the controller's warnings on (Motion::on_warning): a flaky link raising one
+  // per poll becomes one record a second with its count, not one per poll (common practice, no source).
+  std::chrono::milliseconds warning_every{1000};
 };
 
 struct Step {
@@ -82,6 +88,12 @@ class Motion {
 
   // Called with every sample that passed the safety checks (any epoch), e.g. for the clock and progress.
   std::function<void(const Sample&)> on_sample;
+  // Called with the controller's warnings (Controller::take_warnings), oldest first: during a step at most
+  // once per warning_every of wall time (repeats in between are counted in Warning::count), and at every
+  // step's end. Without it the warnings stay in the controller's bounded queue.
+  std::function<void(const controller::Warning&)> on_warning;
+  // Hands the controller's warnings to on_warning now (callers do so after their own controller calls).
+  void drain_warnings();
 
   // Receives until done(s) holds for a sample of the step; the step's samples go to `keep` when given.
   Result collect(const Step& step, const std::function<bool(const Sample&)>& done,
@@ -116,6 +128,9 @@ class Motion {
   double last_time_s_ = 0.0;
   bool have_time_ = false;
   std::chrono::steady_clock::time_point last_status_{};
+  std::chrono::steady_clock::time_point last_warnings_{};
+  // Drains when warning_every has passed since the last drain.
+  void drain_warnings_if_due();
   double last_status_c_ = -1e300;
 };
 

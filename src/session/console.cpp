@@ -134,6 +134,11 @@ bool Console::on_event(const Event& e) {
           [&](const ev::SafeStop&) { raw(); }, [&](const ev::EnvelopeRefused& x) { stopping(x.why); },
           [&](const ev::Diverging& x) { stopping(x.why); },
           [&](const ev::ObserverDropped& x) { stopping(x.why); },
+          [&](const ev::ControllerWarning& x) {
+            std::fprintf(out_, "  WARNING from the controller link (%s%s): %s\n", x.code.c_str(),
+                         x.count > 1 ? (", " + std::to_string(x.count) + " times").c_str() : "",
+                         x.text.c_str());
+          },
           [&](const ev::NotSettled& x) { stopping(x.message); },
           [&](const ev::Finished& x) {
             const auto& s = x.summary;

@@ -311,6 +311,9 @@ struct Mapper {
     return j;
   }
   nlohmann::json operator()(const ev::ObserverDropped& e) const { return {{"why", e.why}}; }
+  nlohmann::json operator()(const ev::ControllerWarning& e) const {
+    return {{"code", e.code}, {"text", e.text}, {"count", e.count}};
+  }
   nlohmann::json operator()(const ev::Finished& e) const { return to_json(e.summary); }
 
   nlohmann::json operator()(const ev::CheckStarted& e) const {
@@ -548,6 +551,7 @@ struct Typer {
   const char* operator()(const ev::SafeStopReconnect&) const { return "safe_stop_reconnect"; }
   const char* operator()(const ev::SafeStop&) const { return "safe_stop"; }
   const char* operator()(const ev::ObserverDropped&) const { return "observer_dropped"; }
+  const char* operator()(const ev::ControllerWarning&) const { return "controller_warning"; }
   const char* operator()(const ev::Finished&) const { return "finished"; }
   const char* operator()(const ev::CheckStarted&) const { return "check_started"; }
   const char* operator()(const ev::CheckIdentified&) const { return "identified"; }

@@ -327,6 +327,13 @@ struct SafeStop {  // "safe_stop"
 struct ObserverDropped {  // "observer_dropped"
   std::string why;
 };
+// A warning the controller layer raised (controller::Warning: undefined status bits, exceptions retried, late
+// replies discarded, ...), in sessions and dyno checks alike.
+struct ControllerWarning {  // "controller_warning"
+  std::string code;         // a fixed word (docs/modbus.md, "Warnings")
+  std::string text;
+  std::uint64_t count = 1;  // how many times it was raised since the last such record
+};
 struct Finished {  // "finished"; summary.json when the result is final
   Summary summary;
 };
@@ -406,17 +413,19 @@ struct CheckFinished {  // "check_finished"
 
 }  // namespace ev
 
-using Payload = std::variant<
-    ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
-    ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted, ev::WarmUpHeld,
-    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::WarmUpEnded, ev::FirstSetting,
-    ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted, ev::ReleaseTiming, ev::PassesReset,
-    ev::WarmUpDrift, ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging,
-    ev::LinkLost, ev::Reconnect, ev::NotSettled, ev::FaultCleared, ev::LinkRestored, ev::Fault,
-    ev::Interrupted, ev::Resumed, ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished,
-    ev::CheckStarted, ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied,
-    ev::RateRunStarted, ev::ParasiticAnalysed, ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed,
-    ev::FrictionAnalysed, ev::AccelDecelAnalysed, ev::ResponseAnalysed, ev::CheckFinished>;
+using Payload =
+    std::variant<ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
+                 ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted,
+                 ev::WarmUpHeld, ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint,
+                 ev::WarmUpEnded, ev::FirstSetting, ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted,
+                 ev::ReleaseTiming, ev::PassesReset, ev::WarmUpDrift, ev::ConsecutiveTiming, ev::Coastdown,
+                 ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect, ev::NotSettled,
+                 ev::FaultCleared, ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Resumed,
+                 ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted,
+                 ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied,
+                 ev::RateRunStarted, ev::ParasiticAnalysed, ev::UnloadedCoastdownAnalysed,
+                 ev::InertiaAnalysed, ev::FrictionAnalysed, ev::AccelDecelAnalysed, ev::ResponseAnalysed,
+                 ev::CheckFinished, ev::ControllerWarning>;
 
 // The record type an event is written as (the "type" member of its line).
 const char* type_of(const Payload& p);

@@ -42,6 +42,11 @@ Session::Session(Inputs inputs, Options options, controller::Controller& control
   rules.standstill_kmh = in_.cell.standstill_kmh;
   motion_.set_rules(rules);
   motion_.on_sample = [this](const controller::Sample& s) { on_sample(s); };
+  // The controller's warnings (undefined status bits, retried exceptions, late replies, ...) into the log, as
+  // motion hands them on during and at the end of every step.
+  motion_.on_warning = [this](const controller::Warning& w) {
+    emit(ev::ControllerWarning{w.code, w.text, w.count});
+  };
 }
 
 Inputs plan_inputs(controller::CellConfig cell, const core::Profile& profile, core::VehicleTarget vehicle) {
@@ -137,6 +142,8 @@ Result Session::hold_and_wait(double speed_kmh, const char* what) {
 }
 
 std::optional<Session::Stop> Session::fault(const Result& r, const std::string& during) {
+  // What the controller warned of before it failed (a call outside any step) is logged before the fault.
+  motion_.drain_warnings();
   if (r.code == kInterruptedCode) {
     emit(ev::Interrupted{during});
     return Stop{Outcome::interrupted, "interrupted by the operator during " + during};
@@ -654,6 +661,7 @@ Summary Session::run(const ResumePoint* resume) {
     stop_note_ = std::string("rollers not confirmed stopped: the stop failed: ") + e.what();
     rollers_stopped_ = false;
   }
+  motion_.drain_warnings();  // the last of the controller's warnings, before the end
   transition(State::finished, to_string(stop->outcome));
   Summary s;
   s.outcome = stop->outcome;

@@ -80,6 +80,9 @@ int main(int argc, char** argv) {
       ->check(CLI::Range(0.0, 1e15));
   f->add_flag("--modbus-coefficients-not-applied", mb_opt.coefficients_not_applied,
               "Modbus: acknowledge every coefficient setting after the first without applying it");
+  f->add_option("--modbus-status-bits", mb_opt.extra_status_bits,
+                "Modbus: the status register also sets these bits (e.g. 64: a bit the map does not define)")
+      ->check(CLI::Range(0u, 65535u));
   // Faults of the dyno's own checks (docs/dyno-checks.md): each overrides the truth's [dyno] key of its name.
   double loop_gain = -1, loop_tau = -1, loop_damping = -1, friction_error = -2;
   f->add_option("--force-loop-gain", loop_gain,

@@ -95,7 +95,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     put(Q::time, counter(s.time_s));
     // A mode the map has no code for reads as idle (it cannot have been commanded over this map).
     put(Q::mode, std::max(modbus::kCommandIdle, modbus::command_code(map, s.mode)));
-    put(Q::status, s.flags);
+    put(Q::status, s.flags | options.extra_status_bits);
   };
 
   modbus_t* ctx = nullptr;
@@ -120,7 +120,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
   std::set<int> written;  // holding addresses written since the last strobe
   const auto start = std::chrono::steady_clock::now();
   auto last = start;
-  double last_beat = get(Q::heartbeat);
+  HeartbeatWatch beats(get(Q::heartbeat));
   auto wall = [&] { return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count(); };
   sim.touch(0.0);
   while (!g_stop) {
@@ -164,11 +164,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
       const int count = (query[hl + 3] << 8) | query[hl + 4];
       for (int i = 0; i < count; ++i) written.insert(addr + i);
     }
-    const double beat = get(Q::heartbeat);
-    if (beat != last_beat) {
-      last_beat = beat;
-      sim.touch(wall());
-    }
+    if (beats.changed(get(Q::heartbeat))) sim.touch(wall());
     if (get(Q::strobe) != 0.0) {
       auto was = [&](Q q) { return map[q].table != Table::coil && written.count(map[q].address) > 0; };
       std::optional<SimError> e;

@@ -2,7 +2,8 @@
 // RTU on a serial device (e.g. one end of a socat pseudo-terminal pair), serving the register map of a cell
 // file from the same typed simulator core as the line protocol. Setpoints take effect when the strobe is
 // raised; the strobe is then cleared and the error register holds 0 or the refusal's code; the applied-value
-// registers report what the simulated controller runs. The watchdog watches the heartbeat counter.
+// registers report what the simulated controller runs. The watchdog watches the heartbeat counter: only a
+// change of its value is a sign of life (a master writing the same value, or only reading, lets it trip).
 #pragma once
 
 #include <functional>
@@ -20,6 +21,23 @@ inline int modbus_error_code(Cause c) {
   return static_cast<int>(line_error_code(c));
 }
 
+// The watchdog's view of the heartbeat register: a sign of life only when its value changed since the last
+// look (a counter the master increments). A master that writes the same value forever, or only reads, is
+// silent to it.
+class HeartbeatWatch {
+ public:
+  explicit HeartbeatWatch(double initial) : last_(initial) {}
+  // Whether `value` differs from the value seen last (and remembers it).
+  bool changed(double value) {
+    if (value == last_) return false;
+    last_ = value;
+    return true;
+  }
+
+ private:
+  double last_;
+};
+
 struct ModbusOptions {
   std::string rtu_device;  // "" = Modbus TCP
   // The controller had been running this long when the simulation starts: its time register counts from
@@ -29,6 +47,9 @@ struct ModbusOptions {
   // setpoint registers keep what was written) but never applied; the applied-value registers keep reporting
   // the first.
   bool coefficients_not_applied = false;
+  // A fault, for tests: the status register also sets these bits always (e.g. 0x40, one the map does not
+  // define), whatever the simulated controller's own flags.
+  unsigned extra_status_bits = 0;
 };
 
 int run_modbus_server(const physics::Truth& truth, const SimSettings& sim, const ServerSettings& server,

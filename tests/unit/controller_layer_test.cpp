@@ -506,3 +506,105 @@ TEST_F(Layer, ANegativeSpeedGlitchIsDroppedAndARunOfThemIsAFault) {
   EXPECT_EQ(r.status, controller::Result::Status::fatal);
   EXPECT_NE(r.message.find("malformed samples"), std::string::npos) << r.message;
 }
+
+namespace {
+// A fake whose adapter raises warnings as a real one does (Controller::warn), optionally one per receive.
+class WarningFake : public FakeController {
+ public:
+  using controller::Controller::warn;
+  using FakeController::FakeController;
+  bool warn_each_receive = false;
+  int warned = 0;
+
+ protected:
+  controller::Result do_receive_samples(std::vector<controller::Sample>& out,
+                                        controller::Deadline d) override {
+    if (warn_each_receive) {
+      ++warned;
+      warn("exception_retried", "scripted: a busy reply, sent again");
+    }
+    return FakeController::do_receive_samples(out, d);
+  }
+};
+}  // namespace
+
+// The warning queue (controller.hpp, take_warnings): repeats of a code and text are counted on one entry; at
+// most kMaxWarnings distinct entries are held; what does not fit is reported as one more warning with its
+// count, so every warning raised is accounted for (the project's rule: nothing dropped unseen). The counts
+// are constructed by the test.
+TEST(ControllerWarnings, TheQueueIsBoundedCoalescesRepeatsAndReportsWhatItDropped) {
+  WarningFake c(loadtrim::testing::demo_truth());
+  EXPECT_TRUE(c.take_warnings().empty());
+  for (int i = 0; i < 5; ++i) c.warn("status_bits", "bits 0x40");
+  auto w = c.take_warnings();
+  ASSERT_EQ(w.size(), 1u);
+  EXPECT_EQ(w[0].code, "status_bits");
+  EXPECT_EQ(w[0].text, "bits 0x40");
+  EXPECT_EQ(w[0].count, 5u);
+  EXPECT_TRUE(c.take_warnings().empty()) << "taking drains the queue";
+
+  const std::size_t cap = controller::Controller::kMaxWarnings;
+  ASSERT_EQ(cap, 64u);
+  for (std::size_t i = 0; i < cap; ++i) c.warn("late_reply_discarded", "reply " + std::to_string(i));
+  for (int i = 0; i < 10; ++i) c.warn("late_reply_discarded", "beyond " + std::to_string(i));  // 10 dropped
+  c.warn("late_reply_discarded", "reply 3");  // a repeat of a queued one still counts there
+  w = c.take_warnings();
+  ASSERT_EQ(w.size(), cap + 1);
+  EXPECT_EQ(w[3].count, 2u);
+  EXPECT_EQ(w.back().code, "warnings_dropped");
+  EXPECT_EQ(w.back().count, 10u);
+  EXPECT_NE(w.back().text.find("10 more warnings"), std::string::npos) << w.back().text;
+  std::uint64_t total = 0;
+  for (const auto& x : w) total += x.count;
+  EXPECT_EQ(total, cap + 10 + 1) << "every warning raised is counted once";
+  EXPECT_EQ(c.stats().warnings, 5u + cap + 10 + 1);
+  EXPECT_EQ(c.stats().warnings_dropped, 10u);
+  EXPECT_TRUE(c.take_warnings().empty()) << "the drop count was reported once";
+}
+
+// A controller's own warning event (the line protocol's EVT WARNING) reaches the queue; other events (a
+// fault aside) do not.
+TEST(ControllerWarnings, AControllersWarningEventIsQueued) {
+  WarningFake c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  c.script.events = {"INFO kind=NOTE detail=x", "WARNING kind=FAN detail=fan_speed_low"};
+  std::vector<controller::Sample> s;
+  ASSERT_TRUE(c.receive_samples(s).ok());
+  const auto w = c.take_warnings();
+  ASSERT_EQ(w.size(), 1u);
+  EXPECT_EQ(w[0].code, "controller_event");
+  EXPECT_NE(w[0].text.find("WARNING kind=FAN detail=fan_speed_low"), std::string::npos) << w[0].text;
+}
+
+// Motion hands the warnings on during a step (at most once per Rules::warning_every) and at its end, so
+// after a step nothing is left in the queue and the counts handed on add up to every warning raised.
+TEST(Motion, TheControllersWarningsAreHandedOnDuringAndAtTheEndOfEveryStep) {
+  WarningFake c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  motion::Rules rules;
+  rules.warning_every = std::chrono::milliseconds(0);  // every pass of the step's loop
+  motion::Motion m(c, rules);
+  std::vector<controller::Warning> got;
+  m.on_warning = [&](const controller::Warning& w) { got.push_back(w); };
+  c.warn_each_receive = true;
+  ASSERT_TRUE(m.hold(30.0, 1.0, "run-up", 120.0).ok());
+  EXPECT_GT(got.size(), 1u) << "handed on during the step, not only at its end";
+  std::uint64_t total = 0;
+  for (const auto& w : got) {
+    EXPECT_EQ(w.code, "exception_retried");
+    total += w.count;
+  }
+  EXPECT_EQ(total, static_cast<std::uint64_t>(c.warned));
+  EXPECT_TRUE(c.take_warnings().empty()) << "a step leaves no warning behind";
+  // With the default pacing (1 s of wall time) a short step still hands them on at its end, coalesced.
+  got.clear();
+  m.set_rules(motion::Rules{});
+  c.warned = 0;
+  bool stopped = false;
+  ASSERT_TRUE(m.stop_and_wait(120.0, stopped).ok());
+  total = 0;
+  for (const auto& w : got) total += w.count;
+  EXPECT_EQ(total, static_cast<std::uint64_t>(c.warned));
+  EXPECT_GE(total, 1u);
+  EXPECT_TRUE(c.take_warnings().empty());
+}

@@ -159,7 +159,8 @@ std::string event_name(const Payload& p) {
                                       "FrictionAnalysed",
                                       "AccelDecelAnalysed",
                                       "ResponseAnalysed",
-                                      "CheckFinished"};
+                                      "CheckFinished",
+                                      "ControllerWarning"};
   static_assert(std::size(names) == std::variant_size_v<Payload>, "a name per event");
   return names[p.index()];
 }
@@ -318,6 +319,8 @@ std::vector<Payload> every_event() {
       ev::ResponseAnalysed{core::summarise_response({core::ResponseStep{}}), 0.1, 0.1,
                            nlohmann::json::array({{{"path", "traces/response-step-1.csv"}}})},
       ev::CheckFinished{"parasitic", "passed", true, "ok", {{"path", "result.json"}}},
+      ev::ControllerWarning{"status_bits",
+                            "the controller's status register sets bits the map does not define (0x40)", 3},
   };
 }
 

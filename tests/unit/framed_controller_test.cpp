@@ -271,10 +271,14 @@ TEST(FramedAdapter, SamplesCarryTheControllersClockAndUnmappedBitsAreWarnedOnce)
   EXPECT_DOUBLE_EQ(got[0].time_s, 612.34);
   EXPECT_DOUBLE_EQ(got[1].time_s, 612.36);
   EXPECT_EQ(got[0].flags, controller::kFlagAtSetpoint);
-  const auto s = rig.c->stats();
-  EXPECT_EQ(s.events, 1u);
-  EXPECT_NE(s.last_event.find("0x20"), std::string::npos) << s.last_event;
-  EXPECT_NE(s.last_event.find("[framed.flags]"), std::string::npos) << s.last_event;
+  // One warning, named "status_bits", with the bit and the table section, however many samples carried it.
+  const auto w = rig.c->take_warnings();
+  ASSERT_EQ(w.size(), 1u);
+  EXPECT_EQ(w[0].code, "status_bits");
+  EXPECT_EQ(w[0].count, 1u);
+  EXPECT_NE(w[0].text.find("0x20"), std::string::npos) << w[0].text;
+  EXPECT_NE(w[0].text.find("[framed.flags]"), std::string::npos) << w[0].text;
+  EXPECT_EQ(rig.c->stats().warnings, 1u);
 }
 
 // The controller layer collects what an adapter has read when a command is acknowledged, with a deadline

@@ -354,3 +354,64 @@ TEST(ModbusMap, RetryPolicyKeysAndTheirRanges) {
   EXPECT_NE(msg.find("modbus.retry_attempts"), std::string::npos) << msg;
   EXPECT_NE(msg.find("modbus.byte_timeout_ms"), std::string::npos) << msg;
 }
+
+// The heartbeat counter wraps at its register's width (docs/modbus.md, "Heartbeat"), never with an error and
+// never to the same value: the boundaries of two's-complement 16-bit and 32-bit integers (int16 holds -32768
+// to 32767, uint16 0 to 65535, uint32 0 to 4294967295: the C++ standard's fixed-width integer types,
+// [basic.fundamental]) and float32's whole numbers up to 65535 (each exact in a 24-bit significand, IEEE
+// 754).
+TEST(ModbusHeartbeat, TheCounterWrapsAtTheRegistersWidth) {
+  const auto next_value = [](Register r, double from) {
+    // The register holds `from` (written as the controller would hold it), the adapter reads its count,
+    // steps it and writes the next count: what does the register then hold?
+    std::uint16_t w[4] = {0, 0, 0, 0};
+    EXPECT_TRUE(encode(r, from, w)) << from;
+    const auto count = heartbeat_count(r, w);
+    EXPECT_TRUE(count.has_value()) << from;
+    std::uint16_t out[4] = {0, 0, 0, 0};
+    heartbeat_words(r, next_heartbeat(r, count.value_or(0)), out);
+    return decode(r, out);
+  };
+  Register r;
+  r.present = true;
+  r.type = Type::uint16;
+  EXPECT_EQ(next_value(r, 0.0), 1.0);
+  EXPECT_EQ(next_value(r, 32767.0), 32768.0);  // no wrap at the signed limit for a uint16
+  EXPECT_EQ(next_value(r, 65534.0), 65535.0);
+  EXPECT_EQ(next_value(r, 65535.0), 0.0);  // 2^16 - 1 → 0
+  r.type = Type::int16;
+  EXPECT_EQ(next_value(r, 32766.0), 32767.0);
+  EXPECT_EQ(next_value(r, 32767.0), -32768.0);  // 0x7FFF → 0x8000, still in the register's range
+  EXPECT_EQ(next_value(r, -1.0), 0.0);          // 0xFFFF → 0
+  r.type = Type::uint32;
+  r.order = WordOrder::little;
+  EXPECT_EQ(next_value(r, 65535.0), 65536.0);  // a 32-bit counter does not wrap at 16 bits
+  EXPECT_EQ(next_value(r, 4294967295.0), 0.0);
+  r.type = Type::int32;
+  r.order = WordOrder::big;
+  EXPECT_EQ(next_value(r, 2147483647.0), -2147483648.0);
+  r.type = Type::float32;
+  EXPECT_EQ(next_value(r, 65534.0), 65535.0);
+  EXPECT_EQ(next_value(r, 65535.0), 0.0);
+  // The register's scale plays no part: the count is its raw value, so each beat is a change of one count.
+  r.type = Type::uint16;
+  r.scale = 0.5;
+  EXPECT_EQ(next_value(r, 10.0), 10.5);  // raw 20 → 21
+  // A float32 holding no whole count is no count (the adapter warns and starts from 0).
+  r.type = Type::float32;
+  r.scale = 1.0;
+  std::uint16_t w[2] = {0, 0};
+  ASSERT_TRUE(encode(r, 1.5, w));
+  EXPECT_FALSE(heartbeat_count(r, w).has_value());
+  ASSERT_TRUE(encode(r, 70000.0, w));
+  EXPECT_FALSE(heartbeat_count(r, w).has_value());
+  // Every count of a uint16 counter steps to a different value: a full turn of 2^16 beats visits each once.
+  r.type = Type::uint16;
+  std::uint64_t c = 0;
+  for (int i = 0; i < 65536; ++i) {
+    const std::uint64_t n = next_heartbeat(r, c);
+    ASSERT_NE(n, c);
+    c = n;
+  }
+  EXPECT_EQ(c, 0u);
+}

@@ -193,3 +193,36 @@ TEST(SimCore, CommandsAreTypedAndAFreeCoastIsReportedAsIdle) {
   EXPECT_GT(core.model().speed_kmh(), 1.0);
   EXPECT_TRUE(events.empty());
 }
+
+// The Modbus front end's watchdog watches the heartbeat counter (docs/modbus.md, "Heartbeat"): only a change
+// of the register's value is a sign of life, so a master that writes the same value forever lets the
+// watchdog trip (here its 1 s window, SimSettings::watchdog_s), and one that counts keeps it quiet. The wall
+// times are the test's own, chosen to straddle the window.
+TEST(SimCore, TheModbusWatchdogTakesOnlyAChangedHeartbeatForASignOfLife) {
+  const auto run = [](bool counting) {
+    sim::SimController core(physics::Truth{}, {});
+    core.touch(0.0);
+    EXPECT_FALSE(core.command(sim::cmd::HoldSpeed{30.0}));
+    sim::HeartbeatWatch beats(0.0);
+    std::vector<sim::FaultEvent> events;
+    double value = 0.0;
+    // A write every 100 ms of wall time for 3 s: three windows.
+    for (int i = 1; i <= 30 && events.empty(); ++i) {
+      const double wall_s = 0.1 * i;
+      if (counting) value += 1.0;
+      if (beats.changed(value)) core.touch(wall_s);
+      core.check_watchdog_typed(wall_s, events);
+    }
+    return events;
+  };
+  const auto same = run(false);
+  ASSERT_EQ(same.size(), 1u) << "the same value written again and again kept the watchdog quiet";
+  EXPECT_EQ(same[0].kind, sim::FaultKind::watchdog);
+  EXPECT_TRUE(run(true).empty()) << "a counting master tripped the watchdog";
+  // The watch itself: the first look at an unchanged register is no change; every new value is one.
+  sim::HeartbeatWatch w(7.0);
+  EXPECT_FALSE(w.changed(7.0));
+  EXPECT_TRUE(w.changed(8.0));
+  EXPECT_FALSE(w.changed(8.0));
+  EXPECT_TRUE(w.changed(7.0));
+}
