@@ -2,18 +2,24 @@
 // simulated controller for a fleet of real road-load targets, each with a randomised truth drawn from a seed,
 // so every first-setting strategy meets exactly the same vehicles and truths. The controller is the
 // in-process direct adapter (dyno-adapters/inprocess/direct_controller.hpp): same interface, same simulator
-// core, no text codec. Also: the compute figures (trace analysis, simulator speed) against baselines measured
-// in the same run, and the estimators' spread over repeated coast-downs beside the spread the noise model
-// predicts (docs/performance.md).
+// core, no text codec. Every accepted session is judged by the hidden truth (physics/truth_judge.hpp): what a
+// noise-free coast-down of the final setting would measure, in the vehicle's state at the last coast-down and
+// fully warm, and the steady force on the rollers. The truths' spreads are named presets with options
+// (physics::truth_preset). Also: the compute figures (trace analysis, simulator speed) against baselines
+// measured in the same run, and the estimators' spread over repeated coast-downs beside the spread the noise
+// model predicts (docs/performance.md).
 #include <algorithm>
 #include <atomic>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <fstream>
+#include <iostream>
 #include <map>
 #include <mutex>
 #include <numeric>
+#include <optional>
 #include <random>
 #include <thread>
 
@@ -27,6 +33,7 @@
 #include "inprocess/direct_controller.hpp"
 #include "inprocess/sim_rows.hpp"
 #include "physics/truth_generator.hpp"
+#include "physics/truth_judge.hpp"
 #include "session/session.hpp"
 
 namespace loadtrim::app {
@@ -34,6 +41,18 @@ namespace loadtrim::app {
 namespace {
 
 using Clock = std::chrono::steady_clock;
+
+// A spread the operator changed from the preset (docs/performance.md, "Truth presets").
+struct TruthOverrides {
+  std::optional<double> hold_bias_sd_n, inertia_error_sd_pct, compensation_error_sd_pct, speed_noise_kmh;
+  std::optional<double> warm_up_tau_min_s, warm_up_tau_max_s, cold_excess_min, cold_excess_max;
+  std::optional<double> day_loss_sd_pct, day_hold_bias_sd_n;
+  bool any() const {
+    return hold_bias_sd_n || inertia_error_sd_pct || compensation_error_sd_pct || speed_noise_kmh ||
+           warm_up_tau_min_s || warm_up_tau_max_s || cold_excess_min || cold_excess_max || day_loss_sd_pct ||
+           day_hold_bias_sd_n;
+  }
+};
 
 struct BenchOptions {
   std::string epa;
@@ -44,6 +63,8 @@ struct BenchOptions {
   double rate_hz = 10.0;
   std::string json_out;
   int estimator_repeats = 200;
+  std::string truths = "typical";
+  TruthOverrides overrides;
 };
 
 struct Strategy {
@@ -52,13 +73,25 @@ struct Strategy {
   bool history = false;  // a second session of the same vehicle after a first (loss-map) one
 };
 
+// Controller time spent in each part of a session, s.
+struct TimeSplit {
+  double warm_up_s = 0.0, loss_map_s = 0.0, run_up_s = 0.0, coastdown_s = 0.0, other_s = 0.0;
+};
+
 struct Result {
   bool accepted = false;
   int coastdowns = 0;
   double cell_min = 0.0;
   double after_warm_min = 0.0;  // cell time from the warm-up's end
-  double worst_n = 0.0;
+  double tool_worst_n = 0.0;    // the tool's own worst final deviation (what it believed)
   std::string reason;
+  bool verification_failed = false;  // fixed-run: the final setting failed its verification coast-down
+  TimeSplit split;
+  // The truth's verdict on the final setting (accepted sessions; judged = false when it could not be formed).
+  bool judged = false;
+  double true_last_n = 0.0;    // worst |coast-down-equivalent error| in the state at the last coast-down
+  double true_warm_n = 0.0;    // the same, fully warm
+  double steady_warm_n = 0.0;  // worst |steady force − target|, fully warm
 };
 
 double quantile(std::vector<double> x, double q) {
@@ -69,36 +102,124 @@ double quantile(std::vector<double> x, double q) {
   return i + 1 < x.size() ? x[i] + (pos - i) * (x[i + 1] - x[i]) : x[i];
 }
 
-// Observer that notes the warm-up's end (controller time) and nothing else.
-class WarmEnd : public session::Observer {
+// Observer that notes the warm-up's end and splits the controller time by what the session was doing: the
+// interval from one stamped event to the next belongs to the state the first one left the session in; the
+// warm-up state after the plain hold (WarmUpHeld) until WarmUpEnded is the loss map.
+class Phases : public session::Observer {
  public:
   bool on_event(const session::Event& e) override {
-    if (std::holds_alternative<session::ev::WarmUpEnded>(e.payload) && !seen) {
-      seen = true;
-      cell_time_s = e.stamp && e.stamp->cell_time_s ? *e.stamp->cell_time_s : 0.0;
+    if (!e.stamp || !e.stamp->t_s) return true;
+    const double t = *e.stamp->t_s;
+    if (have_) {
+      const double dt = std::max(0.0, t - last_t_);
+      switch (state_) {
+        case session::State::warm_up:
+          (in_map_ ? split.loss_map_s : split.warm_up_s) += dt;
+          break;
+        case session::State::run_up:
+          split.run_up_s += dt;
+          break;
+        case session::State::coast_down:
+          split.coastdown_s += dt;
+          break;
+        default:
+          split.other_s += dt;
+          break;
+      }
+    }
+    have_ = true;
+    last_t_ = t;
+    state_ = e.stamp->state;
+    if (std::holds_alternative<session::ev::WarmUpHeld>(e.payload)) in_map_ = true;
+    if (std::holds_alternative<session::ev::WarmUpStarted>(e.payload)) in_map_ = false;
+    if (std::holds_alternative<session::ev::WarmUpEnded>(e.payload)) {
+      in_map_ = false;
+      if (!seen) {
+        seen = true;
+        warm_end_cell_s = e.stamp->cell_time_s ? *e.stamp->cell_time_s : 0.0;
+      }
     }
     return true;
   }
   bool seen = false;
-  double cell_time_s = 0.0;
+  double warm_end_cell_s = 0.0;
+  TimeSplit split;
+
+ private:
+  bool have_ = false, in_map_ = false;
+  double last_t_ = 0.0;
+  session::State state_ = session::State::connect;
 };
 
-session::Summary run_one(const session::Inputs& in, const physics::Truth& truth, session::Options opt,
-                         double* warm_end_s) {
-  inprocess::DirectController c(truth, in.cell.timeouts,
-                                {in.cell.max_speed_kmh, in.cell.max_force_n, 1e9, false});
-  WarmEnd w;
+// The direct adapter, watched: during each road-load simulation (a coast-down) it notes the simulator's speed
+// and drivetrain warmth after every chunk of samples, keeping the last coast-down's, so the truth can judge
+// the final setting in the state the vehicle was in when the coast passed each reference speed.
+class WatchedController : public inprocess::DirectController {
+ public:
+  using inprocess::DirectController::DirectController;
+  struct Point {
+    double speed_kmh, warmth;
+  };
+  std::vector<Point> last_coast;
+  double last_coast_inertia_kg = 0.0;
+  core::RoadLoad last_coast_set;
+
+  // The warmth when the last coast-down first came down to v (its last point when it never did; 1 when no
+  // coast-down ran).
+  double warmth_at(double v_kmh) const {
+    for (const auto& p : last_coast)
+      if (p.speed_kmh <= v_kmh) return p.warmth;
+    return last_coast.empty() ? 1.0 : last_coast.back().warmth;
+  }
+
+ protected:
+  controller::Result do_receive_samples(std::vector<controller::Sample>& out,
+                                        controller::Deadline d) override {
+    auto r = inprocess::DirectController::do_receive_samples(out, d);
+    const physics::RollerModel& m = sim().model();
+    if (m.mode() == physics::Mode::road_load) {
+      if (!coasting_) {
+        last_coast.clear();
+        last_coast_inertia_kg = m.inertia_set_kg();
+        last_coast_set = m.coefficients();
+      }
+      coasting_ = true;
+      last_coast.push_back({m.speed_kmh(), m.warmth()});
+    } else {
+      coasting_ = false;
+    }
+    return r;
+  }
+
+ private:
+  bool coasting_ = false;
+};
+
+struct Run {
+  session::Summary summary;
+  Phases phases;
+  std::vector<double> warmth_per_speed;
+  double inertia_kg = 0.0;
+};
+
+Run run_one(const session::Inputs& in, const physics::Truth& truth, session::Options opt) {
+  WatchedController c(truth, in.cell.timeouts, {in.cell.max_speed_kmh, in.cell.max_force_n, 1e9, false});
+  Run out;
   opt.whole_trace_estimator =
       false;  // the band method decides; the whole-trace fit is measured separately below
-  session::Session s(in, opt, c, {&w});
-  auto sum = s.run();
-  if (warm_end_s) *warm_end_s = w.cell_time_s;
-  return sum;
+  {
+    session::Session s(in, opt, c, {&out.phases});  // gone before `out` is returned
+    out.summary = s.run();
+  }
+  for (const auto& d : out.summary.deviations) out.warmth_per_speed.push_back(c.warmth_at(d.speed_kmh));
+  out.inertia_kg = c.last_coast_inertia_kg;
+  return out;
 }
 
 struct Vehicle {
   core::VehicleTarget target;
   physics::Truth truth;
+  physics::Truth truth_day2;  // the same vehicle on another day (history's second session)
   core::AxleLayout layout;
 };
 
@@ -171,8 +292,49 @@ std::vector<double> expected_whole_sd(const core::RoadLoad& load, double mass, d
   return out;
 }
 
+// The preset named on the command line with the operator's changes; a message naming the option and its
+// range when a combination is refused (the ranges of single options are CLI11's checks).
+std::optional<std::string> resolve_truths(const BenchOptions& o, physics::TruthPreset& out) {
+  const physics::TruthPreset* p = physics::truth_preset(o.truths);
+  if (!p) return "--truths: is \"" + o.truths + "\", allowed typical or harsh";
+  out = *p;
+  const TruthOverrides& v = o.overrides;
+  if (v.hold_bias_sd_n) out.spread.hold_bias_sd_n = *v.hold_bias_sd_n;
+  if (v.inertia_error_sd_pct) out.spread.inertia_error_sd = *v.inertia_error_sd_pct / 100.0;
+  if (v.compensation_error_sd_pct) out.spread.compensation_error_sd = *v.compensation_error_sd_pct / 100.0;
+  if (v.speed_noise_kmh) out.speed_noise_kmh = *v.speed_noise_kmh;
+  if (v.warm_up_tau_min_s) out.spread.warm_up_tau_min_s = *v.warm_up_tau_min_s;
+  if (v.warm_up_tau_max_s) out.spread.warm_up_tau_max_s = *v.warm_up_tau_max_s;
+  if (v.cold_excess_min) out.spread.cold_excess_min = *v.cold_excess_min;
+  if (v.cold_excess_max) out.spread.cold_excess_max = *v.cold_excess_max;
+  if (v.day_loss_sd_pct) out.day.loss_sd = *v.day_loss_sd_pct / 100.0;
+  if (v.day_hold_bias_sd_n) out.day.hold_bias_sd_n = *v.day_hold_bias_sd_n;
+  char buf[200];
+  if (out.spread.warm_up_tau_min_s > out.spread.warm_up_tau_max_s) {
+    std::snprintf(
+        buf, sizeof buf,
+        "--warm-up-tau-min-s: is %g s, above --warm-up-tau-max-s (%g s); allowed 60 s to the maximum",
+        out.spread.warm_up_tau_min_s, out.spread.warm_up_tau_max_s);
+    return std::string(buf);
+  }
+  if (out.spread.cold_excess_min > out.spread.cold_excess_max) {
+    std::snprintf(buf, sizeof buf,
+                  "--cold-excess-min: is %g, above --cold-excess-max (%g); allowed 0 to the maximum",
+                  out.spread.cold_excess_min, out.spread.cold_excess_max);
+    return std::string(buf);
+  }
+  return std::nullopt;
+}
+
 int run_bench(BenchOptions o) {
   const auto wall0 = Clock::now();
+  physics::TruthPreset preset;
+  if (auto why = resolve_truths(o, preset)) {
+    std::cerr << "loadtrim bench: error: " << *why << "\nrefused: nothing was started.\n";
+    return kBadInput;
+  }
+  const bool custom = o.overrides.any();
+  const std::string truths_name = std::string(preset.name) + (custom ? " with changes" : "");
   if (o.quick && o.vehicles == 0) o.vehicles = 16;
   const core::Profile iterative =
       config::load_profile(config::profile_path(data_dir() + "/config/profiles", "wltp-iterative"));
@@ -182,13 +344,16 @@ int run_bench(BenchOptions o) {
   // Fleet model from the same file (in-sample: the benchmark's fleet figure is optimistic by that much).
   const core::FleetLossModel fleet = core::fit_fleet_loss(config::fleet_rows(f));
 
-  // The vehicles: every plausible row (or a seeded sample), each with its own seeded truth.
+  // The vehicles: every plausible row (or a seeded sample), each with its own seeded truth (and its truth on
+  // a second day, drawn from the same vehicle's generator after the first).
   std::vector<std::size_t> order(f.rows.size());
   std::iota(order.begin(), order.end(), 0);
   std::mt19937_64 pick(o.seed);
   if (o.vehicles > 0) std::shuffle(order.begin(), order.end(), pick);
   std::vector<Vehicle> fleet_v;
   int screened = 0;
+  physics::DynoTruth dyno;
+  dyno.speed_noise_kmh = preset.speed_noise_kmh;
   for (std::size_t idx : order) {
     if (o.vehicles > 0 && static_cast<int>(fleet_v.size()) >= o.vehicles) break;
     core::VehicleTarget t = config::target_from_epa(f.rows[idx], iterative.name);
@@ -200,7 +365,8 @@ int run_bench(BenchOptions o) {
     v.layout = core::axle_layout_for(t.drive);
     std::mt19937_64 rng(o.seed * 1000003ULL + idx);
     v.truth = physics::random_truth(t.test_mass_kg, core::resolved_rotating_mass_kg(t, iterative.mass),
-                                    v.layout, {}, rng);
+                                    v.layout, dyno, rng, preset.spread);
+    v.truth_day2 = physics::redraw_day(v.truth, rng, preset.day);
     v.target = t;
     fleet_v.push_back(std::move(v));
   }
@@ -213,10 +379,25 @@ int run_bench(BenchOptions o) {
                                             {"fleet", core::FirstSetting::fleet},
                                             {"loss-map", core::FirstSetting::loss_map},
                                             {"history", core::FirstSetting::history, true}};
-  const std::vector<const core::Profile*> methods = {&iterative, &fixed};
+  // The iterative profile with the drift rule "require" (docs/standards.md §3.12): the vehicle must be stable
+  // at acceptance; measured for the default first setting (the loss map) only.
+  core::Profile iterative_require = iterative;
+  iterative_require.warm_up.drift_rule = core::WarmUp::DriftRule::require;
+  struct Method {
+    std::string key;
+    const core::Profile* profile;
+    std::vector<std::size_t> strategies;  // indices into `strategies`
+  };
+  const std::vector<Method> methods = {{"iterative", &iterative, {0, 1, 2, 3}},
+                                       {"fixed-run", &fixed, {0, 1, 2, 3}},
+                                       {"iterative-require", &iterative_require, {2}}};
+  std::size_t sessions_run = 0;
+  for (const auto& m : methods)
+    for (std::size_t s : m.strategies) sessions_run += fleet_v.size() * (strategies[s].history ? 2 : 1);
   // results[method][strategy][vehicle]
   std::vector<std::vector<std::vector<Result>>> results(
-      2, std::vector<std::vector<Result>>(strategies.size(), std::vector<Result>(fleet_v.size())));
+      methods.size(),
+      std::vector<std::vector<Result>>(strategies.size(), std::vector<Result>(fleet_v.size())));
   std::atomic<std::size_t> next{0};
   auto worker = [&] {
     for (;;) {
@@ -224,32 +405,56 @@ int run_bench(BenchOptions o) {
       if (i >= fleet_v.size()) return;
       const Vehicle& v = fleet_v[i];
       for (std::size_t m = 0; m < methods.size(); ++m) {
+        const core::Profile& prof = *methods[m].profile;
         core::VehicleTarget target = v.target;
-        target.profile = methods[m]->name;
+        target.profile = prof.name;
         session::Inputs in = session::plan_inputs(
-            v.layout == core::AxleLayout::two_axle ? cell_two : cell_single, *methods[m], std::move(target));
-        for (std::size_t s = 0; s < strategies.size(); ++s) {
+            v.layout == core::AxleLayout::two_axle ? cell_two : cell_single, prof, std::move(target));
+        const double force_mass =
+            core::force_mass_kg(v.target.test_mass_kg, core::resolved_rotating_mass_kg(v.target, prof.mass));
+        for (std::size_t s : methods[m].strategies) {
           session::Options opt;
           opt.first_setting = strategies[s].first;
           opt.fleet = fleet;
           opt.sample_rate_hz = o.rate_hz;
+          const physics::Truth* truth = &v.truth;
           if (strategies[s].history) {
-            // History: this vehicle was set on this cell before (a first, loss-map session); its accepted
-            // setting seeds the second session, which is the one measured.
+            // History: this vehicle was set on this cell on an earlier day (a first, loss-map session); its
+            // accepted setting seeds the second session, which is the one measured, and which meets the
+            // vehicle as it is on the second day.
             session::Options first = opt;
             first.first_setting = core::FirstSetting::loss_map;
-            const auto s1 = run_one(in, v.truth, first, nullptr);
-            if (s1.final_set) opt.history = core::HistoryEntry{"", v.target.target, *s1.final_set};
+            const auto s1 = run_one(in, v.truth, first);
+            if (s1.summary.final_set)
+              opt.history = core::HistoryEntry{"", v.target.target, *s1.summary.final_set};
+            truth = &v.truth_day2;
           }
-          double warm_end = 0.0;
-          const auto sum = run_one(in, v.truth, opt, &warm_end);
+          const Run run = run_one(in, *truth, opt);
+          const auto& sum = run.summary;
           Result& r = results[m][s][i];
           r.accepted = sum.outcome == session::Outcome::accepted;
           r.coastdowns = sum.coastdowns;
           r.cell_min = sum.cell_time_s / 60.0;
-          r.after_warm_min = (sum.cell_time_s - warm_end) / 60.0;
-          for (const auto& d : sum.deviations) r.worst_n = std::max(r.worst_n, std::abs(d.deviation_n));
+          r.after_warm_min = (sum.cell_time_s - run.phases.warm_end_cell_s) / 60.0;
+          r.split = run.phases.split;
+          for (const auto& d : sum.deviations)
+            r.tool_worst_n = std::max(r.tool_worst_n, std::abs(d.deviation_n));
           r.reason = r.accepted ? "" : std::string(session::to_string(sum.outcome)) + ": " + sum.stop_reason;
+          r.verification_failed = !r.accepted && sum.stop_reason.find("verification") != std::string::npos;
+          if (r.accepted && sum.final_set && !sum.deviations.empty()) {
+            std::vector<double> speeds;
+            for (const auto& d : sum.deviations) speeds.push_back(d.speed_kmh);
+            const physics::SettingOnDyno on{run.inertia_kg, *sum.final_set, force_mass};
+            const auto last = physics::judge_setting(*truth, on, v.target.target, speeds,
+                                                     prof.band_half_width_kmh, run.warmth_per_speed);
+            const std::vector<double> warm(speeds.size(), 1.0);
+            const auto hot =
+                physics::judge_setting(*truth, on, v.target.target, speeds, prof.band_half_width_kmh, warm);
+            r.judged = last.ok && hot.ok;
+            r.true_last_n = last.worst_coastdown_n;
+            r.true_warm_n = hot.worst_coastdown_n;
+            r.steady_warm_n = hot.worst_steady_n;
+          }
         }
       }
     }
@@ -259,115 +464,267 @@ int run_bench(BenchOptions o) {
   for (auto& t : pool) t.join();
   const double fleet_wall_s = std::chrono::duration<double>(Clock::now() - wall0).count();
 
+  const auto& sp = preset.spread;
   nlohmann::json report = {{"vehicles", fleet_v.size()},
                            {"screened_out", screened},
                            {"sample_rate_hz", o.rate_hz},
                            {"seed", o.seed},
                            {"jobs", o.jobs},
-                           {"file", o.epa}};
+                           {"file", o.epa},
+                           {"truths",
+                            {{"preset", preset.name},
+                             {"changed", custom},
+                             {"hold_bias_sd_n", sp.hold_bias_sd_n},
+                             {"inertia_error_sd", sp.inertia_error_sd},
+                             {"compensation_error_sd", sp.compensation_error_sd},
+                             {"speed_noise_kmh", preset.speed_noise_kmh},
+                             {"warm_up_tau_s", {sp.warm_up_tau_min_s, sp.warm_up_tau_max_s}},
+                             {"cold_excess", {sp.cold_excess_min, sp.cold_excess_max}},
+                             {"day_to_day",
+                              {{"loss_sd", preset.day.loss_sd},
+                               {"hold_bias_sd_n", preset.day.hold_bias_sd_n},
+                               {"warm_up_sd", preset.day.warm_up_sd},
+                               {"compensation_error_sd", preset.day.compensation_error_sd}}}}}};
   std::printf(
       "loadtrim bench: %zu vehicles from %s (%d implausible rows screened out), seed %u, %g Hz samples,\n"
       "in-process direct simulated controller, %d worker threads. Every strategy meets the same vehicles and "
-      "truths.\n\n",
+      "truths.\n",
       fleet_v.size(), o.epa.c_str(), screened, o.seed, o.rate_hz, o.jobs);
+  std::printf(
+      "Truths: %s (hold bias sd %g N, inertia error sd %g %%, compensation error sd %g %%, speed noise %g "
+      "km/h, "
+      "warm-up tau %g-%g s, cold excess %g-%g; day to day: loss sd %g %%, hold bias sd %g N).\n\n",
+      truths_name.c_str(), sp.hold_bias_sd_n, 100 * sp.inertia_error_sd, 100 * sp.compensation_error_sd,
+      preset.speed_noise_kmh, sp.warm_up_tau_min_s, sp.warm_up_tau_max_s, sp.cold_excess_min,
+      sp.cold_excess_max, 100 * preset.day.loss_sd, preset.day.hold_bias_sd_n);
   bool sane = !fleet_v.empty();
+  int unjudged = 0;
+  double ref_cd = NAN, ref_min = NAN;  // the iterative standard's medians, for a method without its own
   for (std::size_t m = 0; m < methods.size(); ++m) {
-    std::printf("%s method (%s)\n", core::to_string(methods[m]->method), methods[m]->name.c_str());
+    const core::Profile& prof = *methods[m].profile;
+    const double tol = prof.tolerance_n;
     std::printf(
-        "  %-9s %5s %6s | coast-downs      | cell minutes      | after warm-up | worst final | vs standard "
-        "(median)\n",
+        "%s method (%s%s); failed sessions count as the limit of %d coast-downs\n",
+        core::to_string(prof.method), prof.name.c_str(),
+        prof.warm_up.drift_rule == core::WarmUp::DriftRule::require
+            ? ", drift rule \"require\": a stable vehicle at acceptance; vs standard: the iterative one"
+            : "",
+        prof.max_coastdowns);
+    std::printf(
+        "  %-9s %5s %6s | coast-downs      | at 2   | cell minutes  | after warm-up | vs standard (median)\n",
         "strategy", "n", "failed");
     std::printf(
-        "  %-9s %5s %6s | median  p95  max | median    p95     | median        | deviation N | coast-downs  "
+        "  %-9s %5s %6s | median  p95  max |        | median   p95  | median        | coast-downs  "
         "cell time\n",
         "", "", "");
-    double std_cd = NAN, std_min = NAN;
-    for (std::size_t s = 0; s < strategies.size(); ++s) {
-      std::vector<double> cd, mins, after, worst;
+    double std_cd = ref_cd, std_min = ref_min;
+    std::vector<nlohmann::json> rows;
+    for (std::size_t s : methods[m].strategies) {
+      std::vector<double> cd, mins, after;
       std::map<std::string, int> reasons;
-      int failed = 0;
+      int failed = 0, at2 = 0, verification = 0;
       for (const auto& r : results[m][s]) {
+        cd.push_back(r.accepted ? r.coastdowns : std::max(r.coastdowns, prof.max_coastdowns));
+        mins.push_back(r.cell_min);
+        after.push_back(r.after_warm_min);
+        if (r.accepted && r.coastdowns == 2) ++at2;
         if (!r.accepted) {
           ++failed;
           ++reasons[r.reason.substr(0, 90)];
-          continue;
+          if (r.verification_failed) ++verification;
         }
-        cd.push_back(r.coastdowns);
-        mins.push_back(r.cell_min);
-        after.push_back(r.after_warm_min);
-        worst.push_back(r.worst_n);
       }
+      const double n = static_cast<double>(results[m][s].size());
       const double mcd = quantile(cd, 0.5), mmin = quantile(mins, 0.5);
       if (s == 0) {
         std_cd = mcd;
         std_min = mmin;
+        if (m == 0) {
+          ref_cd = mcd;
+          ref_min = mmin;
+        }
       }
-      const double worst_max = worst.empty() ? NAN : *std::max_element(worst.begin(), worst.end());
       std::printf(
-          "  %-9s %5zu %6d | %6.1f %4.1f %4.0f | %6.1f %7.1f     | %6.1f        | %8.2f    | %6.2f      "
-          "%6.2f\n",
+          "  %-9s %5zu %6d | %6.1f %4.1f %4.0f | %5.1f%% | %6.1f %6.1f | %6.1f        | %6.2f      %6.2f\n",
           strategies[s].name.c_str(), results[m][s].size(), failed, mcd, quantile(cd, 0.95),
-          cd.empty() ? NAN : *std::max_element(cd.begin(), cd.end()), mmin, quantile(mins, 0.95),
-          quantile(after, 0.5), worst_max, mcd / std_cd, mmin / std_min);
-      for (const auto& [why, n] : reasons) std::printf("      not accepted x%d: %s\n", n, why.c_str());
-      const double at2 =
-          cd.empty() ? 0.0
-                     : std::count(cd.begin(), cd.end(), 2.0) / static_cast<double>(results[m][s].size());
-      report["methods"][core::to_string(methods[m]->method)][strategies[s].name] = {
-          {"n", results[m][s].size()},
-          {"failed", failed},
-          {"coastdowns_median", mcd},
-          {"coastdowns_p95", quantile(cd, 0.95)},
-          {"coastdowns_max", cd.empty() ? 0.0 : *std::max_element(cd.begin(), cd.end())},
-          {"share_at_2", at2},
-          {"cell_min_median", mmin},
-          {"cell_min_p95", quantile(mins, 0.95)},
-          {"after_warm_up_min_median", quantile(after, 0.5)},
-          {"worst_final_deviation_n", worst_max},
-          {"ratio_coastdowns_vs_standard", mcd / std_cd},
-          {"ratio_cell_time_vs_standard", mmin / std_min}};
-      if (!(worst_max <= methods[m]->tolerance_n) && !worst.empty()) sane = false;
+          cd.empty() ? NAN : *std::max_element(cd.begin(), cd.end()), 100.0 * at2 / n, mmin,
+          quantile(mins, 0.95), quantile(after, 0.5), mcd / std_cd, mmin / std_min);
+      for (const auto& [why, k] : reasons) std::printf("      not accepted x%d: %s\n", k, why.c_str());
+      auto med = [&](double TimeSplit::*field) {
+        std::vector<double> x;
+        for (const auto& r : results[m][s]) x.push_back(r.split.*field / 60.0);
+        return quantile(x, 0.5);
+      };
+      // The truth's verdict on the accepted sessions.
+      int out_last = 0, out_warm = 0, out_steady = 0;
+      double worst_last = 0.0, worst_warm = 0.0, worst_steady = 0.0, worst_tool = 0.0;
+      for (const auto& r : results[m][s]) {
+        if (!r.accepted) continue;
+        if (!r.judged) {
+          ++unjudged;
+          continue;
+        }
+        out_last += r.true_last_n > tol;
+        out_warm += r.true_warm_n > tol;
+        out_steady += r.steady_warm_n > tol;
+        worst_last = std::max(worst_last, r.true_last_n);
+        worst_warm = std::max(worst_warm, r.true_warm_n);
+        worst_steady = std::max(worst_steady, r.steady_warm_n);
+        worst_tool = std::max(worst_tool, r.tool_worst_n);
+      }
+      rows.push_back({{"strategy", strategies[s].name},
+                      {"n", results[m][s].size()},
+                      {"failed", failed},
+                      {"verification_failures", verification},
+                      {"coastdowns_median", mcd},
+                      {"coastdowns_p95", quantile(cd, 0.95)},
+                      {"coastdowns_max", cd.empty() ? 0.0 : *std::max_element(cd.begin(), cd.end())},
+                      {"share_at_2", at2 / n},
+                      {"cell_min_median", mmin},
+                      {"cell_min_p95", quantile(mins, 0.95)},
+                      {"after_warm_up_min_median", quantile(after, 0.5)},
+                      {"split_min_median",
+                       {{"warm_up", med(&TimeSplit::warm_up_s)},
+                        {"loss_map", med(&TimeSplit::loss_map_s)},
+                        {"run_ups", med(&TimeSplit::run_up_s)},
+                        {"coastdowns", med(&TimeSplit::coastdown_s)},
+                        {"other", med(&TimeSplit::other_s)}}},
+                      {"tool_worst_final_deviation_n", worst_tool},
+                      {"truly_outside_last_coastdown_share", out_last / n},
+                      {"truly_outside_fully_warm_share", out_warm / n},
+                      {"steady_force_outside_fully_warm_share", out_steady / n},
+                      {"true_worst_last_coastdown_n", worst_last},
+                      {"true_worst_fully_warm_n", worst_warm},
+                      {"true_worst_steady_fully_warm_n", worst_steady},
+                      {"ratio_coastdowns_vs_standard", mcd / std_cd},
+                      {"ratio_cell_time_vs_standard", mmin / std_min}});
+      report["methods"][methods[m].key][strategies[s].name] = rows.back();
     }
+    std::printf("  cell time split, median minutes: warm-up | loss map | run-ups | coast-downs | other\n");
+    for (const auto& row : rows) {
+      const auto& t = row["split_min_median"];
+      std::printf("  %-9s %25.1f %10.1f %9.1f %13.1f %7.1f\n", row["strategy"].get<std::string>().c_str(),
+                  t["warm_up"].get<double>(), t["loss_map"].get<double>(), t["run_ups"].get<double>(),
+                  t["coastdowns"].get<double>(), t["other"].get<double>());
+    }
+    std::printf(
+        "  judged by the truth (accepted sessions; share of all sessions truly outside +-%g N, worst N):\n"
+        "  %-9s | tool's worst | at the last coast-down | fully warm        | steady force, fully warm\n",
+        tol, "strategy");
+    for (const auto& row : rows)
+      std::printf("  %-9s | %8.2f     | %6.2f %%  worst %6.2f | %5.2f %% w %6.2f | %5.2f %%  worst %6.2f\n",
+                  row["strategy"].get<std::string>().c_str(),
+                  row["tool_worst_final_deviation_n"].get<double>(),
+                  100 * row["truly_outside_last_coastdown_share"].get<double>(),
+                  row["true_worst_last_coastdown_n"].get<double>(),
+                  100 * row["truly_outside_fully_warm_share"].get<double>(),
+                  row["true_worst_fully_warm_n"].get<double>(),
+                  100 * row["steady_force_outside_fully_warm_share"].get<double>(),
+                  row["true_worst_steady_fully_warm_n"].get<double>());
     std::printf("\n");
   }
+  if (unjudged > 0) {
+    std::printf("%d accepted session(s) could not be judged by the truth (a band that never ends)\n\n",
+                unjudged);
+    sane = false;
+  }
 
-  // Goals, beside the measured figures (iterative method).
-  const auto& it = report["methods"]["iterative"];
+  // Goals (issue 17's list), beside the measured figures.
+  const bool harsh = std::string(preset.name) == "harsh";
   auto yes = [](bool b) { return b ? "met" : "NOT met"; };
-  const double lm_med = it["loss-map"]["coastdowns_median"], lm_p95 = it["loss-map"]["coastdowns_p95"];
-  const double hist_share = it["history"]["share_at_2"];
-  const double time_ratio = it["loss-map"]["ratio_cell_time_vs_standard"];
-  const double after_ratio = it["loss-map"]["after_warm_up_min_median"].get<double>() /
-                             it["standard"]["after_warm_up_min_median"].get<double>();
-  std::printf("Goals (iterative method):\n");
-  std::printf("  loss map: median coast-downs = 2 and p95 <= 3   measured %.1f and %.1f   %s\n", lm_med,
-              lm_p95, yes(lm_med <= 2.0 && lm_p95 <= 3.0));
-  std::printf("  history: >= 95 %% of sessions at 2 coast-downs    measured %.1f %%          %s\n",
-              100 * hist_share, yes(hist_share >= 0.95));
-  std::printf("  >= 30 %% less median cell time than the standard's default first setting\n");
+  const auto& mr = report["methods"];
   std::printf(
-      "    measured with the warm-up: %.1f %% less   %s   (the profile's 20-minute warm-up is the same for "
-      "every strategy)\n",
-      100 * (1 - time_ratio), yes(time_ratio <= 0.70));
-  std::printf("    after the warm-up:         %.1f %% less   %s\n", 100 * (1 - after_ratio),
-              yes(after_ratio <= 0.70));
-  int unstated = 0, outside = 0;
-  for (const auto& mr : results)
-    for (const auto& sr : mr)
-      for (const auto& r : sr) {
-        if (!r.accepted && r.reason.empty()) ++unstated;
-        if (r.accepted && r.worst_n > 10.0) ++outside;
+      "Goals (truths: %s%s):\n", truths_name.c_str(),
+      custom ? "; the goals are stated for the unchanged presets, judged here against the preset's limits"
+             : "");
+  {
+    const double limit = harsh ? 0.01 : 0.001;
+    double worst = 0.0, worst_n = 0.0;
+    std::string where;
+    for (const auto& [method, strat] : mr.items())
+      for (const auto& [name, row] : strat.items()) {
+        const double share = row["truly_outside_last_coastdown_share"];
+        if (share >= worst) {
+          worst = share;
+          where = method + " " + name;
+        }
+        worst_n = std::max(worst_n, row["true_worst_last_coastdown_n"].get<double>());
       }
-  std::printf(
-      "  no session ends accepted outside tolerance: %d found %s; every non-accepted session has a reason: "
-      "%d without %s\n\n",
-      outside, yes(outside == 0), unstated, yes(unstated == 0));
-  report["goals"] = {{"loss_map_median_2_p95_3", lm_med <= 2.0 && lm_p95 <= 3.0},
-                     {"history_95pct_at_2", hist_share >= 0.95},
-                     {"cell_time_30pct_less", time_ratio <= 0.70},
-                     {"after_warm_up_30pct_less", after_ratio <= 0.70},
-                     {"accepted_outside_tolerance", outside},
-                     {"unstated_reasons", unstated}};
+    std::printf(
+        "  accepted but truly outside +-10 N at the last coast-down's state <= %.1f %% of sessions, every "
+        "strategy and method\n    measured: at most %.2f %% (%s), worst %.2f N   %s\n",
+        100 * limit, 100 * worst, where.c_str(), worst_n, yes(worst <= limit));
+    report["goals"]["truly_outside_last_coastdown"] = {
+        {"limit_share", limit}, {"worst_share", worst}, {"where", where}, {"met", worst <= limit}};
+    double warm = 0.0;
+    for (const auto& key : {"iterative", "fixed-run"})
+      for (const auto& [name, row] : mr[key].items())
+        warm = std::max(warm, row["truly_outside_fully_warm_share"].get<double>());
+    const auto& rq = mr["iterative-require"]["loss-map"];
+    const double rq_share = rq["truly_outside_fully_warm_share"];
+    const double rq_min = rq["cell_min_median"],
+                 rq_failed = rq["failed"].get<double>() / rq["n"].get<double>();
+    const double lm_min = mr["iterative"]["loss-map"]["cell_min_median"];
+    std::printf(
+        "  fully warm: <= 1 %% with harsh when the profile requires a stable vehicle (drift rule "
+        "\"require\", "
+        "iterative, loss map)\n    measured %.2f %% (worst %.2f N; %.1f %% not accepted), median cell time "
+        "%.1f "
+        "min against %.1f min with \"warn\" (with \"warn\": up to %.2f %% truly outside fully warm)   %s\n",
+        100 * rq_share, rq["true_worst_fully_warm_n"].get<double>(), 100 * rq_failed, rq_min, lm_min,
+        100 * warm, harsh ? yes(rq_share <= 0.01) : "(goal for harsh only)");
+    report["goals"]["truly_outside_fully_warm_require"] = {{"share", rq_share},
+                                                           {"not_accepted_share", rq_failed},
+                                                           {"cell_min_median", rq_min},
+                                                           {"warn_worst_share", warm},
+                                                           {"met", rq_share <= 0.01}};
+  }
+  {
+    const auto& lm = mr["iterative"]["loss-map"];
+    const double med = lm["coastdowns_median"], p95 = lm["coastdowns_p95"];
+    std::printf(
+        "  iterative, the default first setting (loss map): median 2 and p95 <= 3 coast-downs   measured "
+        "%.1f "
+        "and %.1f   %s\n",
+        med, p95, yes(med <= 2.0 && p95 <= 3.0));
+    const double h = mr["iterative"]["history"]["share_at_2"];
+    std::printf(
+        "  history: >= 95 %% at 2 coast-downs with typical (day-to-day variation on)   measured %.1f %%   "
+        "%s\n",
+        100 * h, harsh ? "(goal for typical only)" : yes(h >= 0.95));
+    int ver = 0;
+    std::size_t nf = 0;
+    for (const auto& [name, row] : mr["fixed-run"].items()) {
+      ver += row["verification_failures"].get<int>();
+      nf += row["n"].get<std::size_t>();
+    }
+    const double ver_share = nf ? static_cast<double>(ver) / nf : 0.0;
+    std::printf("  fixed-run verification failures <= 1 %% with harsh   measured %.2f %% (%d of %zu)   %s\n",
+                100 * ver_share, ver, nf, harsh ? yes(ver_share <= 0.01) : "(goal for harsh only)");
+    const double after = lm["after_warm_up_min_median"].get<double>() /
+                         mr["iterative"]["standard"]["after_warm_up_min_median"].get<double>();
+    const double total = lm["ratio_cell_time_vs_standard"];
+    std::printf(
+        "  cell time after the warm-up >= 30 %% less than the standard's default first setting (iterative, "
+        "loss "
+        "map)   measured %.1f %% less (negative: more)   %s\n",
+        100 * (1 - after), yes(after <= 0.70));
+    std::printf(
+        "  total cell time >= 30 %% less where the profile allows a stability-ended warm-up   not measured "
+        "(the "
+        "bench's profiles hold a fixed 20-minute warm-up; total measured %.1f %% less)   NOT met\n",
+        100 * (1 - total));
+    int unstated = 0;
+    for (std::size_t m = 0; m < methods.size(); ++m)
+      for (std::size_t s : methods[m].strategies)
+        for (const auto& r : results[m][s]) unstated += !r.accepted && r.reason.empty();
+    std::printf("  every non-accepted session has a reason: %d without   %s\n", unstated, yes(unstated == 0));
+    report["goals"]["loss_map_median_2_p95_3"] = med <= 2.0 && p95 <= 3.0;
+    report["goals"]["history_95pct_at_2"] = h >= 0.95;
+    report["goals"]["fixed_run_verification_failures_share"] = ver_share;
+    report["goals"]["after_warm_up_30pct_less"] = after <= 0.70;
+    report["goals"]["unstated_reasons"] = unstated;
+  }
 
   // Compute figures, each against a baseline measured here.
   {
@@ -415,14 +772,15 @@ int run_bench(BenchOptions o) {
     std::printf("Compute (one core each):\n");
     std::printf(
         "  trace analysis: %.1f million samples/s (%zu-sample trace, 12 bands with local fits); baseline "
-        "first-crossing scan %.1f million/s; ratio %.2f   goal >= 10 million/s: %s\n",
-        sps / 1e6, n, naive_sps / 1e6, sps / naive_sps, yes(sps >= 1e7));
+        "first-crossing scan %.1f million/s; ratio %.2f\n    goal >= 10 million/s and at least as fast as "
+        "the "
+        "scan: %s\n",
+        sps / 1e6, n, naive_sps / 1e6, sps / naive_sps, yes(sps >= 1e7 && sps >= naive_sps));
     std::printf(
         "  simulator: %.0f x real time in-process (100 Hz stream, physics and samples; baseline real time = "
         "1x)   goal >= 1000x: %s\n",
         sim_span / sim_wall, yes(sim_span / sim_wall >= 1000.0));
-    std::printf("  fleet wall time: %.1f s for %zu sessions\n\n", fleet_wall_s,
-                fleet_v.size() * methods.size() * (strategies.size() + 1));
+    std::printf("  fleet wall time: %.1f s for %zu sessions\n\n", fleet_wall_s, sessions_run);
     report["compute"] = {{"trace_analysis_samples_per_s", sps},
                          {"baseline_scan_samples_per_s", naive_sps},
                          {"simulator_x_real_time", sim_span / sim_wall},
@@ -525,7 +883,66 @@ void register_bench(CLI::App& app, Runner& run) {
       ->check(CLI::Range(10.0, 1000.0))
       ->capture_default_str();
   sub->add_option("--json-out", o->json_out, "also write the figures as JSON here");
-  sub->callback([o, &run] { run = [o] { return run_bench(*o); }; });
+  sub->add_option(
+         "--truths", o->truths,
+         "the truths' spreads: typical or harsh (docs/performance.md, \"Truth presets\"); the options "
+         "below change single spreads of the preset")
+      ->check(CLI::IsMember({"typical", "harsh"}))
+      ->capture_default_str();
+  // Each spread: a value, its range, and where it goes. Kept in a table so the callback applies exactly the
+  // options given.
+  struct Spread {
+    const char* name;
+    const char* help;
+    double lo, hi;
+    const char* unit;
+    std::optional<double> TruthOverrides::*field;
+  };
+  // "is 99, allowed 0 to 50 N" (CLI11 puts the option's name in front).
+  auto range = [](double lo, double hi, std::string unit) {
+    return CLI::Validator(
+        [lo, hi, unit](std::string& in) -> std::string {
+          char* end = nullptr;
+          const double x = std::strtod(in.c_str(), &end);
+          char buf[160];
+          std::snprintf(buf, sizeof buf, "is %s, allowed %g to %g%s", in.c_str(), lo, hi, unit.c_str());
+          if (end == in.c_str() || *end != '\0' || !(x >= lo && x <= hi)) return buf;
+          return {};
+        },
+        "", "range");
+  };
+  static const Spread spreads[] = {
+      {"--hold-bias-sd-n", "speed-hold bias between vehicles, sd, N (0 to 50)", 0.0, 50.0, " N",
+       &TruthOverrides::hold_bias_sd_n},
+      {"--inertia-error-sd-pct", "inertia simulation error, sd, % (0 to 5)", 0.0, 5.0, " %",
+       &TruthOverrides::inertia_error_sd_pct},
+      {"--compensation-error-sd-pct", "parasitic compensation error, sd, % (0 to 30)", 0.0, 30.0, " %",
+       &TruthOverrides::compensation_error_sd_pct},
+      {"--speed-noise-kmh", "encoder noise, sd, km/h, at the sample rate (0 to 1)", 0.0, 1.0, " km/h",
+       &TruthOverrides::speed_noise_kmh},
+      {"--warm-up-tau-min-s", "drivetrain warm-up time constant, lowest, s (60 to 7200)", 60.0, 7200.0, " s",
+       &TruthOverrides::warm_up_tau_min_s},
+      {"--warm-up-tau-max-s", "drivetrain warm-up time constant, highest, s (60 to 7200)", 60.0, 7200.0, " s",
+       &TruthOverrides::warm_up_tau_max_s},
+      {"--cold-excess-min", "spin loss excess when cold, lowest, fraction (0 to 2)", 0.0, 2.0, "",
+       &TruthOverrides::cold_excess_min},
+      {"--cold-excess-max", "spin loss excess when cold, highest, fraction (0 to 2)", 0.0, 2.0, "",
+       &TruthOverrides::cold_excess_max},
+      {"--day-loss-sd-pct", "day to day: tyre and spin loss change, sd, % (0 to 20)", 0.0, 20.0, " %",
+       &TruthOverrides::day_loss_sd_pct},
+      {"--day-hold-bias-sd-n", "day to day: hold bias change, sd, N (0 to 20)", 0.0, 20.0, " N",
+       &TruthOverrides::day_hold_bias_sd_n},
+  };
+  auto values = std::make_shared<std::vector<double>>(std::size(spreads), 0.0);
+  std::vector<CLI::Option*> opts;
+  for (std::size_t k = 0; k < std::size(spreads); ++k)
+    opts.push_back(sub->add_option(spreads[k].name, (*values)[k], spreads[k].help)
+                       ->check(range(spreads[k].lo, spreads[k].hi, spreads[k].unit)));
+  sub->callback([o, values, opts, &run] {
+    for (std::size_t k = 0; k < opts.size(); ++k)
+      if (opts[k]->count() > 0) o->overrides.*(spreads[k].field) = (*values)[k];
+    run = [o] { return run_bench(*o); };
+  });
 }
 
 }  // namespace loadtrim::app

@@ -28,8 +28,10 @@ Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayou
   const double share = layout == core::AxleLayout::two_axle ? 1.0 : 0.5;
   v.rotating_mass_on_rollers_kg = share * rotating_mass_kg * (0.85 + 0.3 * u(rng));
   v.tyre_radius_m = 0.29 + 0.08 * u(rng);
-  v.drivetrain_cold_excess = 0.15 + 0.25 * u(rng);
-  v.warm_up_time_constant_s = 300.0 + 600.0 * u(rng);
+  v.drivetrain_cold_excess =
+      spread.cold_excess_min + (spread.cold_excess_max - spread.cold_excess_min) * u(rng);
+  v.warm_up_time_constant_s =
+      spread.warm_up_tau_min_s + (spread.warm_up_tau_max_s - spread.warm_up_tau_min_s) * u(rng);
   v.cool_down_time_constant_s = 1200.0 + 2400.0 * u(rng);
   v.initial_warmth = 0.0;
   v.hold_bias_n = spread.hold_bias_sd_n * z(rng);
@@ -48,6 +50,42 @@ Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayou
   v.drivetrain_loss_n = (1.0 - tyre_share) * constant;
   v.drivetrain_loss_n_per_kmh2 = quad;
   return t;
+}
+
+Truth redraw_day(const Truth& first, std::mt19937_64& rng, const DayToDaySpread& day) {
+  std::normal_distribution<double> z(0.0, 1.0);
+  Truth t = first;
+  auto& v = t.vehicle;
+  const double tyre = std::exp(day.loss_sd * z(rng)), spin = std::exp(day.loss_sd * z(rng));
+  v.tyre_loss_flat_n *= tyre;
+  v.tyre_loss_flat_n_per_kmh *= tyre;
+  v.drivetrain_loss_n *= spin;
+  v.drivetrain_loss_n_per_kmh2 *= spin;
+  v.hold_bias_n += day.hold_bias_sd_n * z(rng);
+  v.warm_up_time_constant_s *= std::exp(day.warm_up_sd * z(rng));
+  v.drivetrain_cold_excess *= std::exp(day.warm_up_sd * z(rng));
+  t.dyno.parasitic_compensation_error += day.compensation_error_sd * z(rng);
+  t.noise_seed = rng();
+  return t;
+}
+
+const TruthPreset* truth_preset(std::string_view name) {
+  static const TruthPreset typical{};
+  static const TruthPreset harsh = [] {
+    TruthPreset p;
+    p.name = "harsh";
+    p.spread.hold_bias_sd_n = 15.0;
+    p.spread.inertia_error_sd = 0.015;
+    p.spread.warm_up_tau_min_s = 1500.0;
+    p.spread.warm_up_tau_max_s = 3000.0;
+    p.spread.cold_excess_min = 0.6;
+    p.spread.cold_excess_max = 1.0;
+    p.speed_noise_kmh = 0.2;
+    return p;
+  }();
+  if (name == "typical") return &typical;
+  if (name == "harsh") return &harsh;
+  return nullptr;
 }
 
 }  // namespace loadtrim::physics

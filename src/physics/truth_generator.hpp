@@ -4,6 +4,7 @@
 #pragma once
 
 #include <random>
+#include <string_view>
 
 #include "core/profile.hpp"
 #include "physics/roller_model.hpp"
@@ -16,11 +17,42 @@ struct TruthSpread {
   double inertia_error_sd = 0.003;                           // common practice, no source
   double compensation_error_sd = 0.05;                       // common practice, no source
   double hold_bias_sd_n = 3.0;                               // common practice, no source
+  // The drivetrain's warming: time constant uniform in [min, max], cold excess (the fraction the spin loss is
+  // higher when cold) uniform in [min, max]. Assumptions, no source (docs/performance.md, "Truth presets").
+  double warm_up_tau_min_s = 300.0, warm_up_tau_max_s = 900.0;
+  double cold_excess_min = 0.15, cold_excess_max = 0.40;
 };
+
+// How a vehicle's truth differs on another day on the same cell (the history strategy's second session):
+// tyre and spin losses scale by exp(σ·z) each, the hold bias and the cell's parasitic compensation error move
+// by σ·z, the warm-up time constant and cold excess scale by exp(σ·z), and the noise is fresh. The cell's
+// inertia simulation, the tyre radius and the rotating mass stay. Assumptions, no source
+// (docs/performance.md, "Truth presets").
+struct DayToDaySpread {
+  double loss_sd = 0.03;                // tyre and spin loss, relative (tyre pressure and temperature, oil)
+  double hold_bias_sd_n = 1.0;          // N
+  double warm_up_sd = 0.10;             // relative, time constant and cold excess
+  double compensation_error_sd = 0.01;  // absolute fraction of the parasitic loss
+};
+
+// A named set of truth spreads for the benchmark: the spreads, the encoder noise and the day-to-day change.
+struct TruthPreset {
+  const char* name = "typical";
+  TruthSpread spread;
+  double speed_noise_kmh = 0.05;  // encoder noise, standard deviation (sampled at the session's rate)
+  DayToDaySpread day;
+};
+// "typical" (the simulator's long-standing values) and "harsh" (hold bias σ 15 N, inertia error σ 1.5 %,
+// speed noise 0.2 km/h, warm-up τ 1500–3000 s with cold excess 0.6–1.0); nullptr for any other name.
+const TruthPreset* truth_preset(std::string_view name);
 
 // A truth for a vehicle of this test mass and rotating mass on this dyno layout; `dyno` supplies the
 // rollers (diameter, base inertia, parasitic curve, noise).
 Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayout layout,
                    const DynoTruth& dyno, std::mt19937_64& rng, const TruthSpread& spread = {});
+
+// The same vehicle on the same cell on another day: `first` redrawn within `day` (a new object; `first` is
+// not changed).
+Truth redraw_day(const Truth& first, std::mt19937_64& rng, const DayToDaySpread& day);
 
 }  // namespace loadtrim::physics

@@ -1,0 +1,26 @@
+# A tiny benchmark run (a few vehicles, the harsh truths): exit 0, the truth's verdict in both states (at the
+# last coast-down and fully warm) and the steady force, the cell time split, and the goal lines as met / not met.
+execute_process(COMMAND ${EXE} bench --quick --vehicles 3 --truths harsh
+                RESULT_VARIABLE rc OUTPUT_VARIABLE out ERROR_VARIABLE err)
+if(NOT rc EQUAL 0)
+  message(FATAL_ERROR "expected exit code 0, got ${rc}\n${out}\n${err}")
+endif()
+foreach(needle "Truths: harsh (hold bias sd 15 N, inertia error sd 1.5 %, compensation error sd 5 %, speed noise 0.2 km/h"
+               "judged by the truth" "at the last coast-down" "fully warm" "steady force, fully warm"
+               "cell time split, median minutes: warm-up | loss map | run-ups | coast-downs"
+               "failed sessions count as the limit of"
+               "accepted but truly outside +-10 N at the last coast-down's state <= 1.0 % of sessions"
+               "fully warm: <= 1 % with harsh when the profile requires a stable vehicle"
+               "iterative, the default first setting (loss map): median 2 and p95 <= 3 coast-downs"
+               "fixed-run verification failures <= 1 % with harsh" "bench completed")
+  string(FIND "${out}" "${needle}" pos)
+  if(pos EQUAL -1)
+    message(FATAL_ERROR "missing '${needle}' in:\n${out}")
+  endif()
+endforeach()
+# Every goal line ends in met or NOT met (or says which preset it is for).
+string(REGEX MATCHALL "   (met|NOT met)\n" verdicts "${out}")
+list(LENGTH verdicts n)
+if(n LESS 7)
+  message(FATAL_ERROR "expected at least 7 goal verdicts, found ${n} in:\n${out}")
+endif()
