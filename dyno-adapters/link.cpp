@@ -79,7 +79,6 @@ std::string host_key(const std::string& host) {
   return found.front();
 }
 
-
 }  // namespace
 
 std::string link_key(const TcpAddress& a) {

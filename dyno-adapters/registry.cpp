@@ -72,7 +72,8 @@ const Registry& production() {
       line::serial_row(),
       modbus::tcp_row(),
       modbus::rtu_row(),
-      framed::tcp_row(), framed::serial_row(),
+      framed::tcp_row(),
+      framed::serial_row(),
   });
   return table;
 }

@@ -81,8 +81,8 @@ enum class ErrorCode : int {
   internal = 50,
 };
 
-// Request verbs (tool -> controller) and message types (controller -> tool), spelled once for the line adapter
-// and the simulator's line front end (src/sim/line_front_end.cpp).
+// Request verbs (tool -> controller) and message types (controller -> tool), spelled once for the line
+// adapter and the simulator's line front end (src/sim/line_front_end.cpp).
 inline constexpr const char* kVerbHello = "HELLO";
 inline constexpr const char* kVerbIdent = "IDENT";
 inline constexpr const char* kVerbInertia = "INERTIA";

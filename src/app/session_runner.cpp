@@ -535,7 +535,8 @@ nlohmann::json dyno_check_gate(const RunRequest& req, const controller::CellConf
   const std::string pfile = req.check_profile.empty() ? default_check_profile() : req.check_profile;
   const core::CheckProfile profile = config::load_check_profile(pfile);
   const checks::CellHistory h(req.checks_dir, cell.name);
-  const checks::Readiness r = checks::readiness(h, profile, *checks::parse_utc_s(record::utc_now()), cell.adapter);
+  const checks::Readiness r =
+      checks::readiness(h, profile, *checks::parse_utc_s(record::utc_now()), cell.adapter);
   nlohmann::json j = {{"enforced", true},
                       {"check_profile", pfile},
                       {"history", h.log_path()},

@@ -169,7 +169,8 @@ int run_target(const TargetOptions& o) {
   if (plan.refusal)
     found.push_back({core::Problem::Severity::error, "bands.reference_speeds_kmh", *plan.refusal});
   // The rest of run's check of how the files combine (core::check_combination), so that target refuses what
-  // run would refuse: the warm-up and start speeds against the vehicle's maximum, the force envelope and, with
+  // run would refuse: the warm-up and start speeds against the vehicle's maximum, the force envelope and,
+  // with
   // --cell, the cell's limits and inertia range. Without --cell the cell's limits are not known and are not
   // checked. A problem of the profile or the cell names its file.
   {

@@ -77,10 +77,12 @@ std::vector<core::CheckRecord> CellHistory::checks(const std::string& adapter) c
   return out;
 }
 
-std::optional<core::RoadLoad> CellHistory::parasitic_curve(std::string* utc, const std::string& adapter) const {
+std::optional<core::RoadLoad> CellHistory::parasitic_curve(std::string* utc,
+                                                           const std::string& adapter) const {
   std::optional<core::RoadLoad> out;
   for (const auto& r : records_)
-    if (r.value("type", "") == "parasitic_curve" && made_through(r, adapter) && record::is_road_load_json(r)) {
+    if (r.value("type", "") == "parasitic_curve" && made_through(r, adapter) &&
+        record::is_road_load_json(r)) {
       out = record::road_load_from_json(r);  // the curve's members sit at the record's top
       if (utc) *utc = r.value("utc", "");
     }

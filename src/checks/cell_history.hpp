@@ -43,7 +43,8 @@ class CellHistory {
   // controller.adapter) keeps the records made through it, and those that name none (logged with `check
   // record`, or written before records named their adapter); "" keeps all.
   std::vector<core::CheckRecord> checks(const std::string& adapter = "") const;
-  std::optional<core::RoadLoad> parasitic_curve(std::string* utc = nullptr, const std::string& adapter = "") const;
+  std::optional<core::RoadLoad> parasitic_curve(std::string* utc = nullptr,
+                                                const std::string& adapter = "") const;
   std::optional<double> maintenance_utc_s() const;
   const std::vector<nlohmann::json>& records() const { return records_; }
 

@@ -23,8 +23,9 @@ namespace {
 // Where a limit comes from: the text's own figure, or the lab's (the profile loader refuses a limit looser
 // than the text's, so a different figure is a stricter one).
 std::string source_of(double limit, double text_limit) {
-  return std::abs(limit - text_limit) <= 1e-12 * std::abs(text_limit) ? "[text]"
-                                                                      : "[the lab's, stricter than the text's]";
+  return std::abs(limit - text_limit) <= 1e-12 * std::abs(text_limit)
+             ? "[text]"
+             : "[the lab's, stricter than the text's]";
 }
 
 std::string pct(double fraction, int decimals = 2) {
@@ -130,7 +131,8 @@ bool write_check_report(const std::string& folder, std::string& error) {
       << num(x.value("stated_kg", 0.0), 1) << " kg; mean " << num(x.value("mean_kg", 0.0), 1) << " kg ("
       << pct(x.value("mean_error_fraction", 0.0)) << " %, limit ±"
       << num(100.0 * x.value("mean_tolerance_fraction", 0.0), 2) << " % "
-      << source_of(x.value("mean_tolerance_fraction", 0.0), core::InertiaCheckOptions{}.mean_tolerance_fraction)
+      << source_of(x.value("mean_tolerance_fraction", 0.0),
+                   core::InertiaCheckOptions{}.mean_tolerance_fraction)
       << "); every set within ±" << num(100.0 * x.value("set_tolerance_fraction", 0.0), 1) << " % "
       << source_of(x.value("set_tolerance_fraction", 0.0), core::InertiaCheckOptions{}.set_tolerance_fraction)
       << (x.value("complete", false) ? "" : "; <b>fewer sets than the text's five at three rate pairs</b>")

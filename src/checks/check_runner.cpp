@@ -115,10 +115,11 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     // failed, or it is due again).
     if (req.kind == core::CheckKind::friction) {
       if (!stored)
-        throw Abort{CheckResult::End::refused,
-                    "the friction compensation check (40 CFR 1066.260) follows the parasitic loss "
-                    "determination (1066.255), and the cell's history holds no parasitic curve: run `loadtrim "
-                    "check parasitic` first"};
+        throw Abort{
+            CheckResult::End::refused,
+            "the friction compensation check (40 CFR 1066.260) follows the parasitic loss "
+            "determination (1066.255), and the cell's history holds no parasitic curve: run `loadtrim "
+            "check parasitic` first"};
       const auto now_s = parse_utc_s(record::utc_now());
       for (const auto& it : readiness(hist, req.profile, now_s.value_or(0.0), req.cell.adapter).items)
         if (it.kind == core::CheckKind::parasitic && it.due())

@@ -179,8 +179,8 @@ nlohmann::json run_parasitic(Procedure& p, const std::optional<core::RoadLoad>& 
   const core::ParasiticDetermination d = core::determine_parasitic({t, v}, inertia, stored, o);
   passed = d.passed;
   // "pass (40 CFR 1066.255): ..." as every check's verdict names its clause.
-  verdict = std::string(d.passed ? "pass" : "FAIL") + " (40 CFR " + core::clause_of(core::CheckKind::parasitic) +
-            ")" + d.verdict.substr(d.verdict.find(':'));
+  verdict = std::string(d.passed ? "pass" : "FAIL") + " (40 CFR " +
+            core::clause_of(core::CheckKind::parasitic) + ")" + d.verdict.substr(d.verdict.find(':'));
   if (d.ok) new_curve = d.fit.coefficients;
   session::Payload analysed = ev::ParasiticAnalysed{inertia, d, stored, file};
   nlohmann::json j = session::to_json(analysed);
@@ -238,7 +238,8 @@ nlohmann::json run_coastdowns(Procedure& p, bool readiness, bool& passed, std::s
   }
   // One verdict for the check, naming its clause, then each inertia's own.
   verdict = std::string(passed ? "pass" : "FAIL") + " (40 CFR " +
-            core::clause_of(readiness ? core::CheckKind::readiness : core::CheckKind::coastdown) + "): " + verdict;
+            core::clause_of(readiness ? core::CheckKind::readiness : core::CheckKind::coastdown) +
+            "): " + verdict;
   return {{"runs", out}};
 }
 

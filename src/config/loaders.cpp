@@ -290,10 +290,10 @@ core::CheckProfile read_check_profile(TomlReader& r) {
   // The text's limits are the loosest a profile may give (a lab may be stricter): the defaults of
   // core::InertiaCheckOptions are CFR 1066.250's ±1.0 % and ±0.20 %.
   const core::InertiaCheckOptions text_in;
-  in.set_tolerance_fraction =
-      r.number("inertia.set_tolerance_fraction", 0.0, text_in.set_tolerance_fraction, "(CFR 1066.250 [text])");
-  in.mean_tolerance_fraction =
-      r.number("inertia.mean_tolerance_fraction", 0.0, text_in.mean_tolerance_fraction, "(CFR 1066.250 [text])");
+  in.set_tolerance_fraction = r.number("inertia.set_tolerance_fraction", 0.0, text_in.set_tolerance_fraction,
+                                       "(CFR 1066.250 [text])");
+  in.mean_tolerance_fraction = r.number("inertia.mean_tolerance_fraction", 0.0,
+                                        text_in.mean_tolerance_fraction, "(CFR 1066.250 [text])");
 
   // 1066.260 friction compensation.
   auto& fr = p.friction;

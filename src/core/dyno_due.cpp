@@ -96,8 +96,9 @@ DuePolicy cfr1066_due_policy() {
   };
   // CFR 1066.215 Table 1 [text]: the unloaded coast-down within 7 days, readiness within 1 day (7 with
   // supporting data), speed, speed linearity and response time within 370 days (no maintenance rule: a lab
-  // that wants one sets after_maintenance in its profile); base inertia and acceleration/deceleration at installation and after major maintenance;
-  // parasitic loss and friction compensation also upon failure of the unloaded coast-down or readiness check.
+  // that wants one sets after_maintenance in its profile); base inertia and acceleration/deceleration at
+  // installation and after major maintenance; parasitic loss and friction compensation also upon failure of
+  // the unloaded coast-down or readiness check.
   return DuePolicy{{
       row(CheckKind::parasitic, 0.0, true, {CheckKind::coastdown, CheckKind::readiness}),
       row(CheckKind::coastdown, 7.0, false),

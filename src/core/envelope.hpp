@@ -18,7 +18,8 @@ namespace loadtrim::core {
 struct EnvelopeLimits {
   // The cell's force limit: |F(v)| of the target and of every set curve stays at or below it for 0 ≤ v ≤
   // top_speed_kmh. Must be positive: 0 (the default) means "not given", and then nothing passes (fail safe).
-  // check_target alone also takes +∞: no cell is known (`target` without --cell), so the limit is not compared.
+  // check_target alone also takes +∞: no cell is known (`target` without --cell), so the limit is not
+  // compared.
   double max_force_n = 0;
   // The highest speed the session reaches: the profile's start speed (top reference speed + run-up margin).
   double top_speed_kmh = 0;

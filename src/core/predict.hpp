@@ -1,6 +1,6 @@
 // Predicted coast-down times, closed form. For m·dv/dt = −(A + B·v + C·v²) the time from v1 down to v2 is
-// m·∫_{v2}^{v1} dv / (A + B·v + C·v²), solved by completing the square (textbook integral; docs/standards.md §6.4).
-// Pure: no I/O.
+// m·∫_{v2}^{v1} dv / (A + B·v + C·v²), solved by completing the square (textbook integral; docs/standards.md
+// §6.4). Pure: no I/O.
 #pragma once
 
 #include <optional>

@@ -682,11 +682,18 @@ TEST(DynoChecksHistory, ARunThroughAnotherAdapterDoesNotCount) {
     checks::CellHistory h(dir, "cell-a");
     ASSERT_TRUE(h.ok()) << h.error();
     ASSERT_TRUE(h.append("check",
-                         {{"kind", "readiness"}, {"passed", true}, {"verdict", "pass"}, {"folder", "x"},
-                          {"adapter", "inprocess-sim"}, {"controller", "sim"}},
+                         {{"kind", "readiness"},
+                          {"passed", true},
+                          {"verdict", "pass"},
+                          {"folder", "x"},
+                          {"adapter", "inprocess-sim"},
+                          {"controller", "sim"}},
                          "2026-12-01T07:00:00.000Z"));
     ASSERT_TRUE(h.append("parasitic_curve",
-                         {{"f0_n", 10.0}, {"f1_n_per_kmh", 0.1}, {"f2_n_per_kmh2", 0.001}, {"folder", "y"},
+                         {{"f0_n", 10.0},
+                          {"f1_n_per_kmh", 0.1},
+                          {"f2_n_per_kmh2", 0.001},
+                          {"folder", "y"},
                           {"adapter", "inprocess-sim"}},
                          "2026-12-01T07:00:00.000Z"));
   }

@@ -201,9 +201,9 @@ TEST(Envelope, RunawaySetIsRefused) {
 }
 
 TEST(Envelope, HonestFirstSetPasses) {
-  // The standard initial setting of the demo target (0.5·142, 0.2·0.35, 0.033) = (71, 0.07, 0.033) (docs/standards.md
-  // §3, from memory): target − set = 71 + 0.28·v, largest 71 + 39.76 = 110.76 N at 142 km/h (≤ 1000 N); the
-  // set's own largest force F(142) = 71 + 9.94 + 665.412 = 746.352 N (≤ 8000 N).
+  // The standard initial setting of the demo target (0.5·142, 0.2·0.35, 0.033) = (71, 0.07, 0.033)
+  // (docs/standards.md §3, from memory): target − set = 71 + 0.28·v, largest 71 + 39.76 = 110.76 N at 142
+  // km/h (≤ 1000 N); the set's own largest force F(142) = 71 + 9.94 + 665.412 = 746.352 N (≤ 8000 N).
   const SetCheck c = check_set({71.0, 0.07, 0.033}, kDemoTarget, std::nullopt, cell(8000.0, 142.0));
   EXPECT_TRUE(c.ok) << c.why;
   EXPECT_TRUE(c.why.empty());

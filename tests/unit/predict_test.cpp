@@ -22,7 +22,8 @@ double simpson_time(const core::RoadLoad& l, double m, double v1_kmh, double v2_
 
 TEST(Predict, CfrMotorcycleFigureF98_9) {
   // 40 CFR 86.529-98 Figure F98-9: coast-down 70 → 60 km/h, F = A + C·V² (V km/h). Columns: inertia kg, A N,
-  // C N/(km/h)², figure's target s, tolerance band s, and the exact integral [computed, docs/standards.md §6.1].
+  // C N/(km/h)², figure's target s, tolerance band s, and the exact integral [computed, docs/standards.md
+  // §6.1].
   struct Row {
     double m, a, c, target, lo, hi, exact;
   };
@@ -71,9 +72,9 @@ TEST(Predict, RefusesLoadsThatNeverStopTheMass) {
 }
 
 TEST(Predict, BandTimesOfTheWltpExample) {
-  // docs/standards.md §6.2 [computed]: TM 1500 kg + m_r 42.75 kg, target (100, 0.5, 0.03), Δv 5 km/h. The table's
-  // Δt_j uses the mid-speed force F(v_j); the exact band integral differs from it by well under 1 % (Jensen:
-  // the sign follows the curvature of 1/F, so it is shorter at low speed and longer at high speed).
+  // docs/standards.md §6.2 [computed]: TM 1500 kg + m_r 42.75 kg, target (100, 0.5, 0.03), Δv 5 km/h. The
+  // table's Δt_j uses the mid-speed force F(v_j); the exact band integral differs from it by well under 1 %
+  // (Jensen: the sign follows the curvature of 1/F, so it is shorter at low speed and longer at high speed).
   const double speeds[] = {20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130};
   const double table[] = {35.126, 30.179, 25.508, 21.427, 18.006, 15.197,
                           12.908, 11.045, 9.523,  8.273,  7.239,  6.377};

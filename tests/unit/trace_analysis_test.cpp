@@ -1,5 +1,5 @@
-// Band-time extraction against the textbook closed-form coast-down (docs/standards.md §6.4) and the standard's
-// formula.
+// Band-time extraction against the textbook closed-form coast-down (docs/standards.md §6.4) and the
+// standard's formula.
 #include "core/trace_analysis.hpp"
 
 #include <gtest/gtest.h>

@@ -34,7 +34,8 @@ TEST(Units, RoundTripsBothDirections) {
 }
 
 TEST(Units, CoefficientFactors) {
-  // docs/standards.md §1 [computed from NIST SP 811]: B × 2.763997 → N/(km/h); C × 1.717468 → N/(km/h)² (7 digits).
+  // docs/standards.md §1 [computed from NIST SP 811]: B × 2.763997 → N/(km/h); C × 1.717468 → N/(km/h)² (7
+  // digits).
   const core::RoadLoad m = core::to_metric({1.0, 1.0, 1.0});
   EXPECT_PRED3(close_rel, m.f0_n, 4.4482216152605, 1e-12);
   EXPECT_NEAR(m.f1_n_per_kmh, 2.763997, 5e-7);

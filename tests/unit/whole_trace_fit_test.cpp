@@ -63,9 +63,10 @@ TEST(WholeTraceFit, RecoversAPureQuadraticLoadFromTheTextbookSolution) {
 }
 
 TEST(WholeTraceFit, RecoversTheWltpExampleCurveWithControllerTimestamps) {
-  // General F = f0 + f1·v + f2·v² (docs/standards.md §6.2 target), exact samples at 100 Hz from the closed form in
-  // tests/support (u(t) = K·tan(atan(u0/K) − C·K·t/m), table integral). The controller's clock does not start
-  // at zero: a 5000 s offset on every timestamp must not change the result (the ODE has no explicit time).
+  // General F = f0 + f1·v + f2·v² (docs/standards.md §6.2 target), exact samples at 100 Hz from the closed
+  // form in tests/support (u(t) = K·tan(atan(u0/K) − C·K·t/m), table integral). The controller's clock does
+  // not start at zero: a 5000 s offset on every timestamp must not change the result (the ODE has no explicit
+  // time).
   auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 100.0);
   for (double& t : tr.time_s) t += 5000.0;
   const auto fit = core::fit_whole_trace({tr.time_s, tr.speed_kmh}, kMass, kLow, kHigh, kPoorStart);
@@ -93,11 +94,11 @@ TEST(WholeTraceFit, SamplesOutsideTheWindowAreIgnored) {
 }
 
 TEST(WholeTraceFit, WhiteSpeedNoiseLeavesResidualsAtTheNoiseLevel) {
-  // Speed noise σ = 0.1 km/h (half the ±0.2 km/h speed accuracy of GTR 15 §3.1, docs/standards.md). For a correct
-  // model the residual RMS estimates σ; with N ≈ 3000 points and 4 parameters its relative standard deviation
-  // is about 1/√(2N) ≈ 1.3 % (textbook: var(s²)/σ⁴ = 2/(N − p) for Gaussian noise), so ±6 % is over 4
-  // standard deviations. A wrong model or a fit stuck away from the optimum leaves systematic residuals and a
-  // larger RMS.
+  // Speed noise σ = 0.1 km/h (half the ±0.2 km/h speed accuracy of GTR 15 §3.1, docs/standards.md). For a
+  // correct model the residual RMS estimates σ; with N ≈ 3000 points and 4 parameters its relative standard
+  // deviation is about 1/√(2N) ≈ 1.3 % (textbook: var(s²)/σ⁴ = 2/(N − p) for Gaussian noise), so ±6 % is over
+  // 4 standard deviations. A wrong model or a fit stuck away from the optimum leaves systematic residuals and
+  // a larger RMS.
   constexpr double sigma = 0.1;
   const auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 100.0, sigma, 7);
   const auto fit = core::fit_whole_trace({tr.time_s, tr.speed_kmh}, kMass, kLow, kHigh, kPoorStart);
