@@ -13,7 +13,7 @@
 // kHz trace buffers). Under AddressSanitizer the quarantine grows RSS by design, so there the memory check is
 // LeakSanitizer's at exit and RSS is reported only.
 //
-// LOADTRIM_SOAK_SESSIONS (default 50) sets the number of sessions; LOADTRIM_SOAK_TIME_SCALE (default 200) the
+// LOADTRIM_SOAK_SESSIONS (default 50) sets the number of sessions; LOADTRIM_SOAK_TIME_SCALE (default 200; 100 under AddressSanitizer) the
 // simulator's time scale. The table printed at the end is the one quoted in docs/soak.md.
 #include <gtest/gtest.h>
 #include <malloc.h>
@@ -113,7 +113,10 @@ struct Row {
 
 TEST(Soak, BackToBackSessionsAtOneKilohertzLeakNothing) {
   const int n = env_int("LOADTRIM_SOAK_SESSIONS", 50);
-  const int scale = env_int("LOADTRIM_SOAK_TIME_SCALE", 200);
+  // Under AddressSanitizer the tool runs several times slower: at 200x a 1 kHz stream lost the link for about
+  // 2 s in one of the first sessions (three runs on a 2-core host, stop 27), so the sanitizer build soaks at
+  // 100x (passed: 50 sessions, 326 s). The normal build keeps 200x.
+  const int scale = env_int("LOADTRIM_SOAK_TIME_SCALE", kAsan ? 100 : 200);
   ASSERT_GE(n, 3);
   SimProcess sim({"--time-scale", std::to_string(scale), "--watchdog-ms", "1000", "--exit-after-s", "3600"});
   const core::Profile profile = config::load_profile(kSrc + "/tests/data/soak-short.toml");
