@@ -13,8 +13,9 @@
 // kHz trace buffers). Under AddressSanitizer the quarantine grows RSS by design, so there the memory check is
 // LeakSanitizer's at exit and RSS is reported only.
 //
-// LOADTRIM_SOAK_SESSIONS (default 50) sets the number of sessions; LOADTRIM_SOAK_TIME_SCALE (default 200; 100 under AddressSanitizer) the
-// simulator's time scale. The table printed at the end is the one quoted in docs/soak.md.
+// LOADTRIM_SOAK_SESSIONS (default 50) sets the number of sessions; LOADTRIM_SOAK_TIME_SCALE (default 200; 100
+// under AddressSanitizer) the simulator's time scale. The table printed at the end is the one quoted in
+// docs/soak.md.
 #include <gtest/gtest.h>
 #include <malloc.h>
 #include <unistd.h>
