@@ -157,6 +157,12 @@ def main():
     check("README step 4 reads the step-3 file", rc, out, 3, ["the controller was never reached"],
           ["targets/T1.toml: error"], "README, step 4; exit 3: nothing listens on the port")
 
+    # README step 1, as written, from the source tree (read-only there; the data root is the scratch one): exit 1
+    # while a required check is due (README, Exit codes: 1 "`check due`: a required check is due").
+    rc, out = run(["check", "due", "--cell", "config/cells/sim-tcp.toml"], src)
+    check("README step 1: check due", rc, out, 1, ["dyno checks for cell sim-cell-tcp", "due (never passed)"], [],
+          "README, The operator's day, step 1")
+
     # 3. target --from FILE with options the file overrides: refused, naming each option that would be ignored.
     for extra, named in ((["--id", "OTHER"], ["--id"]), (["--test-mass-kg", "1500"], ["--test-mass-kg"]),
                          (["--max-speed-kmh", "150"], ["--max-speed-kmh"]),
