@@ -318,8 +318,9 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   c->disconnect();
   // Nothing more goes into the folder: a final result is sealed (the report, a derived file, may follow).
   writer.close();
-  if (!resume && !connect_seen.seen && !session::is_final(sum.outcome) &&
-      sum.outcome != session::Outcome::record_failure && sum.rollers_stopped) {
+  // (An interruption while connecting keeps its folder: the operator's Ctrl-C is on record there.)
+  if (!resume && !connect_seen.seen && sum.outcome == session::Outcome::controller_fault &&
+      sum.rollers_stopped) {
     std::error_code ec;
     fs::remove_all(folder, ec);
     std::cerr
@@ -329,8 +330,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
                      "): it holds only the start record"
                : "so no session folder was kept (" + folder + " removed)")
         << "\nCheck the cell file's address and that the controller is on, then run the command again.\n";
-    return sum.outcome == session::Outcome::interrupted ? static_cast<int>(kInterrupted)
-                                                        : static_cast<int>(kControllerFault);
+    return kControllerFault;
   }
   // A final result is sealed only when its record and summary.json were written: else it is a record failure,
   // and resume finishes it from what was recorded.
