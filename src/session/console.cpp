@@ -42,8 +42,8 @@ void Console::on_progress(const Progress& p) {
     return;
   }
   if (mode_ != Mode::normal || !tty_) return;
-  // The state the console last saw announced, when it is later than the sample's (a connect or a limit
-  // check has no samples, so the progress line never speaks of a coast-down before the first one runs).
+  // The state in words; a coast-down number only while one runs (write the setting, run up, coast, analyse),
+  // so the line never speaks of "coast-down 1" while connecting or warming up.
   const State st = p.state;
   const bool in_run =
       st == State::write_set || st == State::run_up || st == State::coast_down || st == State::analyse;
@@ -176,7 +176,7 @@ bool Console::on_event(const Event& e) {
                          s.stop_reason.c_str(), s.coastdowns, clock_text(s.cell_time_s).c_str());
             if (s.final_set)
               std::fprintf(out_,
-                           "  final set coefficients (rounded; summary.json holds every digit): f0 %.1f N, "
+                           "  final set coefficients (rounded; the record holds every digit): f0 %.1f N, "
                            "f1 %.3f N/(km/h), f2 %.5f N/(km/h)²\n",
                            s.final_set->f0_n, s.final_set->f1_n_per_kmh, s.final_set->f2_n_per_kmh2);
           },
