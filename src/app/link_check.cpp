@@ -154,7 +154,18 @@ int run_link_check(const LinkCheckOptions& o) {
   const bool ok = mismatch.empty() && s.samples_lost == 0 && s.samples_malformed == 0 && rate_ok;
   if (warnings > 0) std::printf("warnings from the controller link: %zu (see above)\n", warnings);
   std::printf("link-check %s\n", ok ? "passed" : "found problems (see above)");
-  return ok ? kAccepted : kControllerFault;
+  if (ok) return kAccepted;
+  const bool link_ok = s.samples_lost == 0 && s.samples_malformed == 0 && rate_ok;
+  // A controller that does not match the cell file is what `run` refuses before it moves anything (exit 2):
+  // the same code here, so a script reads both alike. A link that loses samples is a link fault (exit 3).
+  if (link_ok) {
+    std::fprintf(stderr,
+                 "link-check: the controller does not match the cell file %s (a session would be refused "
+                 "the same way): correct the cell file or the controller, then check again\n",
+                 o.cell.c_str());
+    return kBadInput;
+  }
+  return kControllerFault;
 }
 
 }  // namespace

@@ -74,6 +74,13 @@ void register_session_commands(CLI::App& app, Runner& run) {
   rep->add_flag("--pdf", *pdf, "also print report.pdf with headless Chromium (Debian package chromium)");
   rep->callback([rfolder, pdf, &run] {
     run = [rfolder, pdf] {
+      std::error_code ec;
+      if (!std::filesystem::is_directory(*rfolder, ec)) {
+        std::fprintf(stderr,
+                     "loadtrim report: %s is not a session folder (no such folder): nothing written\n",
+                     rfolder->c_str());
+        return static_cast<int>(kBadInput);
+      }
       const report::ReportFiles r = report::write_report(*rfolder, LOADTRIM_VERSION);
       if (!r.ok) {
         std::fprintf(stderr, "loadtrim: %s\n", r.error.c_str());

@@ -281,7 +281,8 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
       .first_setting_requested = req.first_setting,
       .history_file = hfile,
       .history_available = opt.history.has_value()};
-  if (!writer.on_event({start_record(std::move(common)), std::nullopt, nullptr})) {
+  const session::Event start{start_record(std::move(common)), std::nullopt, nullptr};
+  if (!writer.on_event(start)) {
     std::cerr << "loadtrim: " << writer.error() << "\n";
     return kRecordFailure;
   }
@@ -290,6 +291,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   else
     std::printf("%s\n", nlohmann::json({{"type", "session_folder"}, {"path", folder}}).dump().c_str());
   std::fflush(stdout);
+  console.on_event(start);  // the target and the tolerance, before the first coast-down is compared with them
   const core::VehicleTarget vehicle = inputs.vehicle;
   std::vector<session::Observer*> observers = {&writer, &console};
   // A test hook (as LOADTRIM_TEST_FAIL_WRITES_AFTER): freeze the session's own thread at the named event, to
@@ -299,12 +301,37 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     freezer.emplace(st);
     observers.push_back(&*freezer);
   }
+  // Whether a controller ever answered: a new session that never reached one moved nothing and measured
+  // nothing, so its folder (the start record only) is not left behind as if it were a session.
+  struct ConnectSeen : session::Observer {
+    bool seen = false;
+    bool on_event(const session::Event& e) override {
+      if (std::holds_alternative<session::ev::ControllerIdentified>(e.payload)) seen = true;
+      return true;
+    }
+    std::string name() const override { return "the connect watcher"; }
+  } connect_seen;
+  observers.push_back(&connect_seen);
   const controller::CellConfig cell = inputs.cell;
   session::Session s(std::move(inputs), opt, *c, observers, &g_stop);
   session::Summary sum = s.run(resume);
   c->disconnect();
   // Nothing more goes into the folder: a final result is sealed (the report, a derived file, may follow).
   writer.close();
+  // (An interruption while connecting keeps its folder: the operator's Ctrl-C is on record there.)
+  if (!resume && !connect_seen.seen && sum.outcome == session::Outcome::controller_fault &&
+      sum.rollers_stopped) {
+    std::error_code ec;
+    fs::remove_all(folder, ec);
+    std::cerr
+        << "loadtrim: the controller was never reached (" << sum.stop_reason
+        << "): nothing was moved or measured, "
+        << (ec ? "and the session folder " + folder + " could not be removed (" + ec.message() +
+                     "): it holds only the start record"
+               : "so no session folder was kept (" + folder + " removed)")
+        << "\nCheck the cell file's address and that the controller is on, then run the command again.\n";
+    return kControllerFault;
+  }
   // A final result is sealed only when its record and summary.json were written: else it is a record failure,
   // and resume finishes it from what was recorded.
   if (session::is_final(sum.outcome) && (!writer.ok() || writer.summary().is_null()))
@@ -494,8 +521,13 @@ std::string ask_to_motor(bool unattended, const char* cautions, const std::strin
   }
   std::cerr << prompt << std::flush;
   std::string answer;
-  std::getline(std::cin, answer);
-  return answer == word ? given_as : "";
+  if (!std::getline(std::cin, answer)) answer.clear();
+  if (answer == word) return given_as;
+  // Anything but the exact word (a lower-case "yes" included) refuses: say what was expected, and that
+  // nothing moved, so the operator is never left guessing why the command ended.
+  std::cerr << "loadtrim: you typed \"" << answer << "\"; the confirmation is exactly " << word
+            << " (in capitals). Not confirmed: nothing was done, the rollers were not moved.\n";
+  return "";
 }
 
 std::optional<core::FleetLossModel> fleet_model(const std::string& csv) {

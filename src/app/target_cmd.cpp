@@ -6,6 +6,7 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
+#include <filesystem>
 #include <iostream>
 #include <limits>
 #include <memory>
@@ -43,7 +44,37 @@ struct TargetOptions {
          max_speed_kmh = 180.0, cycle_max_speed_kmh = 0;
   bool json = false;
   bool estimate_mro = false;  // --estimate-mass-in-running-order: the estimate accepted explicitly (recorded)
+  std::vector<std::string> given;  // the options given on the command line, by name
 };
+
+// The options a source takes its facts from itself: given with --from (the file states them) or --epa (the
+// row does), they would be ignored, so the command refuses them by name rather than ignore them silently.
+void refuse_ignored(const TargetOptions& o, const std::string& kind) {
+  if (kind != "file" && kind != "epa") return;
+  const std::vector<std::string> from_file = {"--id",
+                                              "--description",
+                                              "--test-mass-kg",
+                                              "--test-mass-lb",
+                                              "--mass-in-running-order-kg",
+                                              "--rotating-mass-kg",
+                                              "--estimate-mass-in-running-order",
+                                              "--drive",
+                                              "--max-speed-kmh"};
+  const std::vector<std::string> from_row = {"--id", "--description", "--test-mass-kg", "--test-mass-lb",
+                                             "--drive"};
+  std::string ignored;
+  for (const auto& name : kind == "file" ? from_file : from_row)
+    for (const auto& g : o.given)
+      if (g == name) ignored += (ignored.empty() ? "" : ", ") + name;
+  if (ignored.empty()) return;
+  throw config::InputError(
+      "command line",
+      {{core::Problem::Severity::error, kind == "file" ? "--from" : "--epa",
+        "takes the vehicle's facts from the " + std::string(kind == "file" ? "target file" : "CSV row") +
+            ", so " + ignored + " would be ignored: drop " +
+            (ignored.find(',') == std::string::npos ? "it" : "them") + ", or edit the " +
+            (kind == "file" ? "file" : "target file written with --out") + " instead"}});
+}
 
 // How the mass in running order was settled: given, or an estimate the operator accepted explicitly. Without
 // either (and without a rotating mass), nothing is invented: the command is refused, naming the options.
@@ -89,6 +120,7 @@ std::string where_from(const TargetOptions& o) {
 core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, std::string& source,
                           std::string& mro_basis) {
   const std::string kind = where_from(o);
+  refuse_ignored(o, kind);
   // CLI11's range check lets NaN through; an option that is given must be a number in range.
   if (!std::isfinite(o.cycle_max_speed_kmh) || !std::isfinite(o.max_speed_kmh))
     throw config::InputError("command line", {{core::Problem::Severity::error, "--cycle-max-speed-kmh",
@@ -274,6 +306,17 @@ int run_target(const TargetOptions& o) {
     const std::string text =
         config::target_toml(v, "Prepared by loadtrim target from " + source + "\non " + record::utc_now() +
                                    " for profile " + profile.name + "\nmass in running order: " + mro_basis);
+    // README step 3 writes into targets/ of a fresh clone: the folder is made when it is missing.
+    const std::filesystem::path parent = std::filesystem::path(o.out).parent_path();
+    std::error_code ec;
+    if (!parent.empty() && !std::filesystem::is_directory(parent, ec)) {
+      std::filesystem::create_directories(parent, ec);
+      if (ec) {
+        std::cerr << "loadtrim target: cannot create the folder " << parent.string() << " for --out " << o.out
+                  << ": " << ec.message() << "; nothing was written\n";
+        return kBadInput;
+      }
+    }
     if (!record::write_durable(o.out, text, err)) {
       std::cerr << "loadtrim target: cannot write " << o.out << ": " << err << "\n";
       return kRecordFailure;
@@ -396,7 +439,12 @@ void register_target_command(CLI::App& app, Runner& run) {
   s->add_option("--history", o->history, "history of earlier sessions (default: sessions/history)");
   s->add_option("--out", o->out, "write the target file here");
   s->add_flag("--json", o->json, "print everything as one JSON object");
-  s->callback([o, &run] { run = [o] { return run_target(*o); }; });
+  s->callback([o, s, &run] {
+    o->given.clear();
+    for (const CLI::Option* opt : s->get_options())
+      if (opt->count() > 0) o->given.push_back(opt->get_name());
+    run = [o] { return run_target(*o); };
+  });
 }
 
 }  // namespace loadtrim::app

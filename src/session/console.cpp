@@ -4,6 +4,8 @@
 
 #include <string>
 
+#include "session/event_text.hpp"
+
 namespace loadtrim::session {
 
 Console::Console(Mode mode, std::FILE* out) : mode_(mode), out_(out), tty_(::isatty(::fileno(out)) != 0) {}
@@ -40,10 +42,17 @@ void Console::on_progress(const Progress& p) {
     return;
   }
   if (mode_ != Mode::normal || !tty_) return;
+  // The state in words; a coast-down number only while one runs (write the setting, run up, coast, analyse),
+  // so the line never speaks of "coast-down 1" while connecting or warming up.
+  const State st = p.state;
+  const bool in_run =
+      st == State::write_set || st == State::run_up || st == State::coast_down || st == State::analyse;
+  char run[48] = "";
+  if (in_run) std::snprintf(run, sizeof run, " coast-down %d", p.coastdown);
   char band[32] = "";
-  if (p.band_kmh > 0) std::snprintf(band, sizeof band, "  band %.0f km/h", p.band_kmh);
-  std::fprintf(out_, "\r\033[K  [%s] coast-down %d  %6.1f km/h%s  cell time %s  about %s left",
-               to_string(p.state), p.coastdown, p.speed_kmh, band, clock_text(p.cell_time_s).c_str(),
+  if (in_run && p.band_kmh > 0) std::snprintf(band, sizeof band, "  band %.0f km/h", p.band_kmh);
+  std::fprintf(out_, "\r\033[K  [%s]%s  %6.1f km/h%s  cell time %s  about %s left", state_words(st), run,
+               p.speed_kmh, band, clock_text(p.cell_time_s).c_str(),
                clock_text(p.remaining_estimate_s).c_str());
   std::fflush(out_);
   progress_shown_ = true;
@@ -81,17 +90,29 @@ bool Console::on_event(const Event& e) {
     return true;
   }
   clear_progress();
-  // A line of its record, for the events an operator must notice but that have no sentence of their own.
-  auto raw = [&] { std::fprintf(out_, "  %s: %s\n", type_of(e), record_json(e).dump().c_str()); };
+  if (std::holds_alternative<ev::ControllerIdentified>(e.payload) ||
+      std::holds_alternative<ev::CheckIdentified>(e.payload))
+    text_.connected = true;
+  // The events an operator must notice, as one sentence each (event_text.hpp): never the record's JSON.
+  auto raw = [&] { std::fprintf(out_, "  %s\n", event_sentence(e, text_).c_str()); };
   auto stopping = [&](const std::string& why) { std::fprintf(out_, "  STOPPING: %s\n", why.c_str()); };
   std::visit(
       Overloaded{
+          [&](const ev::SessionStarted& x) {
+            std::fprintf(out_, "  target %s; tolerance ±%s N (%s)\n", c3(x.common.target).c_str(),
+                         rounded(x.common.tolerance_n, 1).c_str(), x.common.standard.c_str());
+          },
+          [&](const ev::ResumeStarted& x) {
+            std::fprintf(out_, "  target %s; tolerance ±%s N (%s); %zu coast-down(s) already recorded\n",
+                         c3(x.common.target).c_str(), rounded(x.common.tolerance_n, 1).c_str(),
+                         x.common.standard.c_str(), x.completed_coastdowns);
+          },
           [&](const ev::StateChanged& x) {
             // The per-run states show as the run's table row instead.
             if (x.to == State::analyse || x.to == State::write_set || x.to == State::run_up ||
                 x.to == State::coast_down)
               return;
-            std::fprintf(out_, "  -> %s%s\n", to_string(x.to),
+            std::fprintf(out_, "  -> %s%s\n", state_words(x.to),
                          x.why.empty() ? "" : (" (" + x.why + ")").c_str());
           },
           [&](const ev::ControllerIdentified& x) {
@@ -111,6 +132,10 @@ bool Console::on_event(const Event& e) {
             std::fprintf(out_, "  first setting (%s): %s\n", x.strategy.c_str(), c3(x.set).c_str());
             std::fprintf(out_, "  %3s  %-26s  %-26s  %8s %8s %6s  %s\n", "run", "set f0 / f1 / f2",
                          "measured f0 / f1 / f2", "worst N", "est.diff", "result", "decision");
+            std::fprintf(out_,
+                         "       (worst N: the largest deviation from the target at a reference speed, "
+                         "against the tolerance above; est.diff: how far the band estimate and the "
+                         "whole-trace fit differ, N)\n");
           },
           [&](const ev::Coastdown& x) {
             const auto& r = x.record;
@@ -150,7 +175,9 @@ bool Console::on_event(const Event& e) {
             std::fprintf(out_, "\n  %s: %s after %d coast-downs, %s of cell time\n", to_string(s.outcome),
                          s.stop_reason.c_str(), s.coastdowns, clock_text(s.cell_time_s).c_str());
             if (s.final_set)
-              std::fprintf(out_, "  final set coefficients: f0 %.1f N, f1 %.3f N/(km/h), f2 %.5f N/(km/h)²\n",
+              std::fprintf(out_,
+                           "  final set coefficients (rounded; the record holds every digit): f0 %.1f N, "
+                           "f1 %.3f N/(km/h), f2 %.5f N/(km/h)²\n",
                            s.final_set->f0_n, s.final_set->f1_n_per_kmh, s.final_set->f2_n_per_kmh2);
           },
           // The dyno's own checks: each step as it happens.

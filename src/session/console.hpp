@@ -4,6 +4,7 @@
 
 #include <cstdio>
 
+#include "session/event_text.hpp"
 #include "session/session.hpp"
 
 namespace loadtrim::session {
@@ -21,6 +22,7 @@ class Console : public Observer {
   std::FILE* out_;
   bool tty_;
   bool progress_shown_ = false;
+  TextContext text_;
   double last_json_progress_ = -1e9;
   void clear_progress();
 };

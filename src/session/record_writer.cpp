@@ -8,6 +8,7 @@
 
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
+#include "session/event_text.hpp"
 
 namespace loadtrim::session {
 
@@ -48,37 +49,6 @@ void RecordWriter::note(const std::string& text) {
   } catch (...) {  // the operator log never throws into the session
   }
 }
-
-namespace {
-std::string coef(const core::RoadLoad& c) {
-  char b[128];
-  std::snprintf(b, sizeof b, "(%.2f N, %.4f N/(km/h), %.5f N/(km/h)^2)", c.f0_n, c.f1_n_per_kmh,
-                c.f2_n_per_kmh2);
-  return b;
-}
-
-// The operator log's line for an event: a sentence for the ones an operator reads, the record otherwise.
-std::string human(const Event& e, const nlohmann::json& record) {
-  if (const auto* x = std::get_if<ev::StateChanged>(&e.payload))
-    return std::string("state ") + to_string(x->from) + " -> " + to_string(x->to) +
-           (x->why.empty() ? "" : " (" + x->why + ")");
-  if (const auto* x = std::get_if<ev::Coastdown>(&e.payload)) {
-    const auto& r = x->record;
-    if (!r.evaluation.usable)
-      return "coast-down " + std::to_string(r.run) + " unusable: " + r.evaluation.unusable_reason;
-    char b[96];
-    std::snprintf(b, sizeof b, " worst %.2f N -> ", r.evaluation.check.worst_abs_deviation_n);
-    return "coast-down " + std::to_string(r.run) + ": set " + coef(r.set) + " measured " +
-           coef(r.evaluation.fit.coefficients) + b + (r.evaluation.check.pass ? "pass" : "FAIL") + "; " +
-           r.decision.reason;
-  }
-  if (const auto* x = std::get_if<ev::FirstSetting>(&e.payload))
-    return "first setting (" + x->strategy + "): " + coef(x->set);
-  if (const auto* x = std::get_if<ev::Finished>(&e.payload))
-    return std::string("finished: ") + to_string(x->summary.outcome) + " — " + x->summary.stop_reason;
-  return std::string(type_of(e)) + " " + record.dump();
-}
-}  // namespace
 
 bool RecordWriter::on_event(const Event& ev) {
   if (!error_.empty()) return false;
@@ -121,7 +91,8 @@ bool RecordWriter::on_event(const Event& ev) {
     note("RECORD FAILURE: " + error_);
     return false;
   }
-  note(human(ev, data));
+  if (std::holds_alternative<ev::ControllerIdentified>(ev.payload)) text_.connected = true;
+  note(event_sentence(ev, text_));
   return true;
 }
 

@@ -8,6 +8,7 @@
 #include <string>
 
 #include "record/event_log.hpp"
+#include "session/event_text.hpp"
 #include "session/session.hpp"
 
 namespace spdlog {
@@ -40,6 +41,7 @@ class RecordWriter : public Observer {
   std::unique_ptr<record::EventLog> log_;
   std::shared_ptr<spdlog::logger> op_;
   std::string error_;
+  TextContext text_;  // what operator.log has said so far (its sentences, session/event_text.hpp)
   nlohmann::json summary_;
 };
 

@@ -18,8 +18,18 @@ foreach(needle "Truths: harsh (hold bias sd 15 N, inertia error sd 1.5 %, compen
     message(FATAL_ERROR "missing '${needle}' in:\n${out}")
   endif()
 endforeach()
-# Every goal line ends in met or NOT met (or says which preset it is for).
-string(REGEX MATCHALL "   (met|NOT met)\n" verdicts "${out}")
+# A --quick run judges nothing: every goal line ends in a development view's "met / not met in this quick run"
+# (or says which preset it is for), never in the verdict "NOT met" (common practice, no source: a smoke test
+# of a few sessions is no evidence either way).
+string(FIND "${out}" "NOT met" notmet)
+if(NOT notmet EQUAL -1)
+  message(FATAL_ERROR "a --quick run printed a goal as \"NOT met\":\n${out}")
+endif()
+string(FIND "${out}" "Development goals, a development view" view)
+if(view EQUAL -1)
+  message(FATAL_ERROR "a --quick run does not label its goals as a development view:\n${out}")
+endif()
+string(REGEX MATCHALL "   (met|not met) in this quick run \\(development view\\)\n" verdicts "${out}")
 list(LENGTH verdicts n)
 if(n LESS 7)
   message(FATAL_ERROR "expected at least 7 goal verdicts, found ${n} in:\n${out}")

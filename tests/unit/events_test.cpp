@@ -10,6 +10,7 @@
 #include <stdlib.h>
 
 #include <algorithm>
+#include <cctype>
 #include <filesystem>
 #include <fstream>
 #include <iterator>
@@ -26,6 +27,7 @@
 #include "record/session_folder.hpp"
 #include "record/vehicle_history.hpp"
 #include "registry.hpp"
+#include "session/event_text.hpp"
 #include "session/resume.hpp"
 #include "support/fake_controller.hpp"
 
@@ -607,4 +609,45 @@ TEST(Events, MeasuredCoefficientsAreReadUnderEitherName) {
   EXPECT_TRUE(loadtrim::session::measured_of(now) == loadtrim::session::measured_of(before));
   EXPECT_EQ(loadtrim::session::measured_of(now).f2_n_per_kmh2, 3.0);
   EXPECT_THROW((void)loadtrim::session::measured_of(nlohmann::json::object()), std::exception);
+}
+
+// The console's and operator.log's sentence for every event kind: never a JSON object, never float noise
+// (more than 6 decimals), never empty; with a controller that was never reached no sentence speaks of a
+// watchdog stopping rollers. (Common practice, no source: the project's own console rules, docs/session.md
+// "Observers".)
+TEST(Events, EveryEventReadsAsASentenceWithoutJsonOrFloatNoise) {
+  auto noisy = [](const std::string& t) {
+    for (std::size_t i = 0; i < t.size(); ++i) {
+      if (t[i] != '.' || i == 0 || !std::isdigit(static_cast<unsigned char>(t[i - 1]))) continue;
+      std::size_t n = 0;
+      while (i + 1 + n < t.size() && std::isdigit(static_cast<unsigned char>(t[i + 1 + n]))) ++n;
+      if (n > 6) return true;
+    }
+    return false;
+  };
+  for (const Payload& p : every_event())
+    for (bool connected : {false, true}) {
+      const std::string t = event_sentence(Event{p, std::nullopt, nullptr}, TextContext{connected});
+      EXPECT_FALSE(t.empty()) << type_of(p);
+      EXPECT_EQ(t.find("{\""), std::string::npos) << type_of(p) << ": " << t;
+      EXPECT_FALSE(noisy(t)) << type_of(p) << ": " << t;
+    }
+  // A lost link before any controller answered: nothing moved, so no watchdog sentence.
+  const std::string never =
+      event_sentence(Event{ev::LinkLost{"connect refused", 1}, std::nullopt, nullptr}, {false});
+  EXPECT_NE(never.find("nothing was moved"), std::string::npos) << never;
+  EXPECT_EQ(never.find("watchdog"), std::string::npos) << never;
+  const std::string lost = event_sentence(Event{ev::LinkLost{"timeout", 1}, std::nullopt, nullptr}, {true});
+  EXPECT_NE(lost.find("watchdog"), std::string::npos) << lost;
+  // Float noise in a recorded number is rounded away, and the final set says it is rounded.
+  Summary s;
+  s.outcome = Outcome::accepted;
+  s.stop_reason = "2 consecutive coast-down(s) within tolerance";
+  s.cell_time_s = 1653.4899999999998;
+  s.final_set = core::RoadLoad{39.599999999999994, 0.29800000000000004, 0.030070000000000003};
+  const std::string fin = event_sentence(Event{ev::Finished{s}, std::nullopt, nullptr}, {true});
+  EXPECT_NE(fin.find("27 min 33 s"), std::string::npos) << fin;  // 1653.49 s = 27 × 60 + 33.49 s
+  EXPECT_NE(fin.find("f0 39.60 N"), std::string::npos) << fin;
+  EXPECT_NE(fin.find("rounded"), std::string::npos) << fin;
+  EXPECT_FALSE(noisy(fin)) << fin;
 }

@@ -1,0 +1,247 @@
+#!/usr/bin/env python3
+"""The operator's mistakes, one row each: the command line, the exit code and the words the message must hold.
+
+The exit codes are the README's table ("Exit codes"): 0 accepted or done, 2 refused / bad input, 3 controller or link
+fault (common practice, no source: the codes are this project's own contract with scripts). Each row names what it
+checks; every row runs in a scratch folder with its own data root and lock folder, so nothing outside it changes.
+
+Usage: mistakes.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOURCE_DIR --workdir DIR
+"""
+import argparse
+import os
+import pty
+import select
+import shutil
+import socket
+import subprocess
+import sys
+import time
+
+ARGS = None
+FAILED = []
+
+
+def run(argv, cwd, stdin_text=None, timeout=60):
+    env = dict(os.environ)
+    env["LOADTRIM_LOCK_DIR"] = os.path.join(ARGS.workdir, "locks")
+    env["LOADTRIM_DATA_DIR"] = os.path.join(ARGS.workdir, "data")
+    p = subprocess.run([ARGS.exe] + argv, cwd=cwd, env=env, capture_output=True, text=True, timeout=timeout,
+                       input=stdin_text if stdin_text is not None else "")
+    return p.returncode, p.stdout + p.stderr
+
+
+def run_on_pty(argv, cwd, typed, timeout=60):
+    """Runs the tool with a pseudo-terminal as its stdin (the confirmation is asked only on a terminal) and types
+    `typed` once the prompt appears. Returns (exit code, everything written to stdout and stderr)."""
+    env = dict(os.environ)
+    env["LOADTRIM_LOCK_DIR"] = os.path.join(ARGS.workdir, "locks")
+    env["LOADTRIM_DATA_DIR"] = os.path.join(ARGS.workdir, "data")
+    master, slave = pty.openpty()
+    p = subprocess.Popen([ARGS.exe] + argv, cwd=cwd, env=env, stdin=slave, stdout=subprocess.PIPE,
+                         stderr=subprocess.STDOUT)
+    os.close(slave)
+    out = b""
+    deadline = time.monotonic() + timeout
+    sent = False
+    while time.monotonic() < deadline:
+        r, _, _ = select.select([p.stdout], [], [], 0.2)
+        if r:
+            chunk = os.read(p.stdout.fileno(), 65536)
+            if not chunk:
+                break
+            out += chunk
+        if not sent and b"Type YES" in out:
+            os.write(master, typed.encode() + b"\n")
+            sent = True
+        if p.poll() is not None and not r:
+            break
+    if p.poll() is None:
+        p.kill()
+    rc = p.wait(timeout=10)
+    out += p.stdout.read() or b""
+    os.close(master)
+    return rc, out.decode(errors="replace")
+
+
+def check(name, rc, out, want_rc, words, forbidden=(), source=""):
+    """One row: the exit code and every word expected; nothing forbidden."""
+    problems = []
+    if rc != want_rc:
+        problems.append("exit code %d, expected %d" % (rc, want_rc))
+    for w in words:
+        if w not in out:
+            problems.append("missing %r" % w)
+    for w in forbidden:
+        if w in out:
+            problems.append("must not say %r" % w)
+    status = "ok" if not problems else "FAIL"
+    print("%-4s %-44s exit %d  (%s)" % (status, name, rc, source))
+    if problems:
+        FAILED.append(name)
+        print("     " + "; ".join(problems))
+        print("     output:\n" + "\n".join("       " + l for l in out.splitlines()[-40:]))
+
+
+def free_port():
+    s = socket.socket()
+    s.bind(("127.0.0.1", 0))
+    port = s.getsockname()[1]
+    s.close()  # nothing listens there now
+    return port
+
+
+def start_sim(truth):
+    p = subprocess.Popen([ARGS.sim, "--truth", truth, "--port", "0", "--time-scale", "200"], stdout=subprocess.PIPE,
+                         stderr=subprocess.STDOUT, text=True)
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline:
+        line = p.stdout.readline()
+        if not line:
+            break
+        # "loadtrim-sim listening tcp 127.0.0.1:PORT pid=N"
+        at = line.find("127.0.0.1:")
+        if "listening" in line and at >= 0:
+            digits = ""
+            for ch in line[at + len("127.0.0.1:"):]:
+                if not ch.isdigit():
+                    break
+                digits += ch
+            return p, int(digits)
+    p.kill()
+    raise SystemExit("loadtrim-sim did not print its port")
+
+
+def main():
+    global ARGS
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--exe", required=True)
+    ap.add_argument("--sim", required=True)
+    ap.add_argument("--src", required=True)
+    ap.add_argument("--workdir", required=True)
+    ARGS = ap.parse_args()
+    ARGS.exe = os.path.abspath(ARGS.exe)
+    ARGS.sim = os.path.abspath(ARGS.sim)
+    ARGS.src = os.path.abspath(ARGS.src)
+    ARGS.workdir = os.path.abspath(ARGS.workdir)
+    shutil.rmtree(ARGS.workdir, ignore_errors=True)
+    os.makedirs(ARGS.workdir)
+    w = ARGS.workdir
+    src = ARGS.src
+    cell = os.path.join(src, "config/cells/sim-tcp.toml")
+    target = os.path.join(src, "samples/targets/demo-hatchback.toml")
+    run_args = ["--override-checks", "mistakes test", "--operator", "tester"]
+
+    # 1. "yes" at "Type YES": what was expected, and that nothing was done; exit 2 (refused). Nothing connects
+    # (the cell's port is a closed one, so a connect attempt would show as a fault instead).
+    closed = free_port()
+    for typed in ("yes", "Yes please", ""):
+        rc, out = run_on_pty(["run", "--cell", cell, "--target", target, "--port", str(closed)] + run_args, w,
+                             typed)
+        check("confirmation %r refused" % typed, rc, out, 2,
+              ["the confirmation is exactly YES", "nothing was done", "the rollers were not moved"],
+              ["session folder:", "connect"], "README, Exit codes: 2 no confirmation was given")
+
+    # 2. README step 3 from a fresh clone: --out into a folder that does not exist yet creates it, then writes.
+    fresh = os.path.join(w, "fresh-clone")
+    os.makedirs(fresh)
+    rc, out = run(["target", "--us", "30", "0.2", "0.02", "--id", "T1", "--test-mass-lb", "3500",
+                   "--mass-in-running-order-kg", "1500", "--out", "targets/T1.toml"], fresh)
+    check("target --out into a missing folder", rc, out, 0, ["written: targets/T1.toml (read back: identical)"],
+          [], "README, The operator's day, step 3")
+    if not os.path.isfile(os.path.join(fresh, "targets/T1.toml")):
+        FAILED.append("target file not written")
+        print("FAIL target file targets/T1.toml not written")
+    # The README's step 4 then takes that file as it is (the inputs are checked before anything connects).
+    rc, out = run(["run", "--cell", cell, "--target", "targets/T1.toml", "--port", str(closed), "--unattended"] +
+                  run_args, fresh)
+    check("README step 4 reads the step-3 file", rc, out, 3, ["the controller was never reached"],
+          ["targets/T1.toml: error"], "README, step 4; exit 3: nothing listens on the port")
+
+    # README step 1, as written, from the source tree (read-only there; the data root is the scratch one): exit 1
+    # while a required check is due (README, Exit codes: 1 "`check due`: a required check is due").
+    rc, out = run(["check", "due", "--cell", "config/cells/sim-tcp.toml"], src)
+    check("README step 1: check due", rc, out, 1, ["dyno checks for cell sim-cell-tcp", "due (never passed)"], [],
+          "README, The operator's day, step 1")
+
+    # 3. target --from FILE with options the file overrides: refused, naming each option that would be ignored.
+    for extra, named in ((["--id", "OTHER"], ["--id"]), (["--test-mass-kg", "1500"], ["--test-mass-kg"]),
+                         (["--max-speed-kmh", "150"], ["--max-speed-kmh"]),
+                         (["--id", "X", "--test-mass-kg", "1500", "--max-speed-kmh", "150"],
+                          ["--id", "--test-mass-kg", "--max-speed-kmh"])):
+        rc, out = run(["target", "--from", target] + extra, w)
+        check("target --from with " + " ".join(named), rc, out, 2,
+              named + ["would be ignored", "refused: nothing was started"], [], "README, Exit codes: 2")
+    rc, out = run(["target", "--from", target], w)
+    check("target --from alone", rc, out, 0, ["vehicle DEMO-HB-01"], ["would be ignored"], "README, step 3")
+
+    # 4. A bad cell file and a bad target file together: both files' errors.
+    bad_cell = os.path.join(w, "bad-cell.toml")
+    with open(cell) as f:
+        text = f.read()
+    with open(bad_cell, "w") as f:
+        f.write(text.replace("max_speed_kmh = 160.0", "max_speed_kmh = -5.0"))
+    bad_target = os.path.join(src, "tests/data/bad/bad-target.toml")
+    rc, out = run(["run", "--cell", bad_cell, "--target", bad_target, "--unattended"] + run_args, w)
+    check("bad cell and bad target together", rc, out, 2,
+          ["bad-cell.toml: error", "limits.max_speed_kmh", "bad-target.toml: error", "vehicle.test_mass_kg",
+           "refused: nothing was started"], [], "README, Exit codes: 2 (every problem listed)")
+
+    # 5. An unknown option names itself and the nearest; an unknown command suggests the nearest.
+    rc, out = run(["run", "--cel", "x"], w)
+    check("run --cel x", rc, out, 2, ["unknown option --cel", "did you mean --cell?"], ["--cell is required"],
+          "README, Exit codes: 2")
+    rc, out = run(["run", "--cell", cell, "--traget", target], w)
+    check("run --traget", rc, out, 2, ["unknown option --traget", "did you mean --target?"], [],
+          "README, Exit codes: 2")
+    rc, out = run(["rn"], w)
+    check("loadtrim rn", rc, out, 2, ['unknown command "rn"', 'did you mean "run"?'], [], "README, Exit codes: 2")
+    rc, out = run(["reprot", "x"], w)
+    check("loadtrim reprot", rc, out, 2, ['unknown command "reprot"', 'did you mean "report"?'], [],
+          "README, Exit codes: 2")
+
+    # 6. resume / report on a missing folder: bad input (2) with the path named, not a record failure (5).
+    missing = os.path.join(w, "no-such-session")
+    rc, out = run(["resume", missing, "--unattended"], w)
+    check("resume on a missing folder", rc, out, 2, [missing, "no such session folder"], [],
+          "README, Exit codes: 2 bad input; 5 is a record that could not be written")
+    rc, out = run(["report", missing], w)
+    check("report on a missing folder", rc, out, 2, [missing, "no such folder"], [], "README, Exit codes: 2")
+
+    # 7. A failed connect: exit 3, no session folder left behind, and no claim that a watchdog stops rollers
+    # nothing ever moved.
+    sessions = os.path.join(w, "connect-sessions")
+    rc, out = run(["run", "--cell", cell, "--target", target, "--port", str(closed), "--unattended", "--sessions",
+                   sessions] + run_args, w)
+    check("failed connect", rc, out, 3,
+          ["could not connect to the controller", "nothing was moved", "no session folder was kept"],
+          ["watchdog", '{"'], "README, Exit codes: 3 controller or link fault")
+    left = os.listdir(sessions) if os.path.isdir(sessions) else []
+    if left:
+        FAILED.append("failed connect left a folder")
+        print("FAIL failed connect left session folder(s): %s" % left)
+
+    # 8. link-check with a controller that does not match the cell file: the code `run` gives the same mismatch.
+    sim, port = start_sim(os.path.join(src, "samples/truths/demo-hatchback.toml"))
+    try:
+        wrong = os.path.join(w, "wrong-diameter.toml")
+        with open(wrong, "w") as f:
+            f.write(text.replace("roller_diameter_m = 1.2192", "roller_diameter_m = 0.5"))
+        rc_run, out_run = run(["run", "--cell", wrong, "--target", target, "--port", str(port), "--unattended",
+                               "--sessions", os.path.join(w, "mismatch-sessions")] + run_args, w, timeout=120)
+        check("run with a mismatching controller", rc_run, out_run, 2, ["does not match the cell file"], [],
+              "README, Exit codes: 2 the controller does not match the cell file")
+        rc, out = run(["link-check", "--cell", wrong, "--port", str(port), "--seconds", "0.5"], w, timeout=120)
+        check("link-check with the same mismatch", rc, out, rc_run,
+              ["roller_diameter_m", "does not match the cell file"], [], "README, Exit codes: 2, as run")
+        rc, out = run(["link-check", "--cell", cell, "--port", str(port), "--seconds", "0.5"], w, timeout=120)
+        check("link-check with a matching controller", rc, out, 0, ["link-check passed"], [], "README, link-check")
+    finally:
+        sim.kill()
+        sim.wait()
+
+    print("\n%d row(s) failed" % len(FAILED) if FAILED else "\nevery row passed")
+    return 1 if FAILED else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
