@@ -249,6 +249,19 @@ Result LineController::do_command(Mode mode, double value, Deadline d) {
   return request(kVerbMode, std::move(f), rep, d);
 }
 
+Result LineController::do_prompt_driver(controller::DriverPrompt p, double speed_kmh, Deadline d) {
+  Message rep;
+  switch (p) {
+    case controller::DriverPrompt::accelerate:
+      return request(kVerbDriver, {kDriverAccel, format_number(speed_kmh)}, rep, d);
+    case controller::DriverPrompt::neutral:
+      return request(kVerbDriver, {kDriverNeutral}, rep, d);
+    case controller::DriverPrompt::off:
+      return request(kVerbDriver, {kDriverOff}, rep, d);
+  }
+  return Result::fail("unknown driver prompt");
+}
+
 Result LineController::do_stream(double rate_hz, Deadline d) {
   Message rep;
   if (rate_hz == 0.0) samples_.clear();

@@ -54,7 +54,7 @@ std::string cell_text(unsigned port, const std::string& axles, double rate_hz, i
          std::to_string(reconnect_delay_ms) +
          "\n[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 7200.0\n"
          "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"" +
-         axles + "\"\n";
+         axles + "\"\nrun_up = \"vehicle\"\n";
 }
 
 std::vector<nlohmann::json> records(const std::string& folder) {
