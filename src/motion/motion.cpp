@@ -247,6 +247,7 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
     }
     return false;
   });
+  if (phase != Phase::coasting && out.run_up.empty() && out.coast.empty()) out.run_up = seen;  // not released
   if (!prompt_failed.ok()) return prompt_failed;
   if (!r.ok()) return r;
   if (phase == Phase::coasting) out.ending = Ending::coasted;
