@@ -182,6 +182,7 @@ Result LineController::do_connect(Deadline d) {
   Message rep;
   if (Result r = request(kVerbHello, {kv("version", kProtocolVersion), "client=loadtrim"}, rep, d); !r.ok())
     return r;
+  hello_caps_ = field(rep, "caps").value_or("");
   const auto v = number_field(rep, "version");
   if (!v || static_cast<int>(*v) != kProtocolVersion)
     return Result::fail("controller speaks protocol version " + field(rep, "version").value_or("?") +
@@ -200,7 +201,8 @@ Result LineController::do_identify(controller::ControllerInfo& out, Deadline d) 
              vmax = number_field(rep, "max_speed_kmh"), fmax = number_field(rep, "max_force_n");
   if (!dia || !inertia || !vmax || !fmax) return Result::fail("IDENT reply lacks a required field");
   out.name = field(rep, "name").value_or("");
-  out.capabilities = field(rep, "caps").value_or("");
+  // IDENT's own list when it states one, else the handshake's (docs/protocol.md section 3).
+  out.capabilities = field(rep, "caps").value_or(hello_caps_);
   out.protocol_version = static_cast<int>(number_field(rep, "version").value_or(0));
   out.roller_diameter_m = *dia;
   out.base_inertia_kg = *inertia;

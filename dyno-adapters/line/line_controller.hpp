@@ -60,6 +60,7 @@ class LineController : public controller::Controller {
   std::deque<controller::Sample> samples_;
   std::size_t max_samples_ = kMinSampleBound;
   std::deque<std::string> events_;
+  std::string hello_caps_;  // the capabilities HELLO's reply stated
 };
 
 bool parse_mode(std::string_view wire, controller::Mode& out);

@@ -55,7 +55,8 @@ Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayou
   t.driver.seed = drng() % 2147483647ULL;
   t.driver.reaction_time_s = 0.5 + 0.6 * u(drng);
   t.driver.overshoot_kmh = 0.5 + 1.0 * u(drng);
-  t.driver.max_power_w = 40000.0 + 50000.0 * u(drng);
+  t.driver.max_power_w = 100000.0 + 80000.0 * u(drng);
+  t.driver.max_tractive_force_n = 6000.0;
   return t;
 }
 

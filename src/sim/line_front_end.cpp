@@ -158,7 +158,7 @@ void LineFrontEnd::on_line(std::string_view text, double wall_s, std::vector<std
         req, kVerbIdent,
         {kv("name", i.name), kv("version", i.protocol_version), kv("roller_diameter_m", i.roller_diameter_m),
          kv("base_inertia_kg", i.base_inertia_kg), kv("max_speed_kmh", i.max_speed_kmh),
-         kv("max_force_n", i.max_force_n), kv("time_scale", i.time_scale), "caps=" + i.capabilities},
+         kv("max_force_n", i.max_force_n), kv("time_scale", i.time_scale)},
         out);
   }
   if (m.type == kVerbStatus) {

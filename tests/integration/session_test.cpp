@@ -223,7 +223,8 @@ TEST(SessionCli, VehicleRunUpReachesAcceptanceForSeveralDriverSeeds) {
       EXPECT_EQ(c.value("ending", ""), "coasted") << c.dump();
       EXPECT_EQ(c.value("detected_by", ""), "neutral signal");
       EXPECT_GE(c.value("release_speed_kmh", 0.0), c.value("start_speed_kmh", 1e9) - 0.5) << c.dump();
-      // The simulated driver has 40-90 kW: well above 6 m²/s³ (GTR 15 Annex 4 §8.1.3.4).
+      // The demo truth's driver has the default 60 kW (an assumption): well above 6 m²/s³ (GTR 15 Annex 4
+      // §8.1.3.4).
       EXPECT_TRUE(c.value("meets", false)) << c.dump();
     }
     EXPECT_EQ(of_type(v.rs, "run_up").at(0).value("run_up", ""), "vehicle");
