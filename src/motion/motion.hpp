@@ -86,9 +86,10 @@ struct Step {
 struct VehicleRunPlan {
   double start_kmh = 0.0;  // prompted; "neutral" is prompted once the speed is at or above it
   double end_kmh = 0.0;    // the coast ends at the first sample below this
-  // Controller seconds from the "accelerate" prompt to the start speed, and from the "neutral" prompt to the
-  // release: a driver who never gets there ends the run (common practice, no source).
-  double run_up_budget_s = 180.0;
+  // Controller seconds from the "accelerate" prompt to the start speed (as a dyno's speed hold gets), and
+  // from the "neutral" prompt to the release: a driver who never gets there ends the run (common practice, no
+  // source).
+  double run_up_budget_s = kDefaultStepBudgetS;
   double release_budget_s = 30.0;
   double coast_budget_s = kDefaultStepBudgetS;
   // Whether the controller states the vehicle-in-neutral signal (capability "neutral",

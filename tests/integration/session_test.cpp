@@ -249,7 +249,7 @@ TEST(SessionCli, VehicleRunUpTooSlowIsNamed) {
   // 1000 N and 40 kW at most against about the demo hatchback's road load (142 N + 0.35·v + 0.033·v², plus
   // a few per cent): the mean a·v from 12 to 142 km/h is about 5.7 m²/s³ in about 135 s (a 10 ms Euler
   // integration of m·dv/dt = min(F, P/v) − F_rl(v), m = 1530 kg, done beside this test), below the 6 m²/s³
-  // of GTR 15 Annex 4 §8.1.3.4 and within the 180 s run-up deadline.
+  // of GTR 15 Annex 4 §8.1.3.4 and within the 600 s run-up deadline.
   const VehicleRun v =
       vehicle_session({"--driver-max-force-n", "1000", "--driver-max-power-w", "40000"}, "slow-driver");
   const auto checks = of_type(v.rs, "run_up_checked");
