@@ -60,6 +60,10 @@ class FramedController : public controller::Controller {
   controller::Result do_clear_fault(controller::Deadline d) override;
   // Warnings (once each): status-word bits the table does not map.
   double polled_rate_hz() const override { return table_.poll_rate_hz; }
+  // The framed dialect's table has no operation for a driver display (docs/framed.md).
+  std::string driver_prompt_unavailable() const override {
+    return "the framed dialect's table maps no driver display";
+  }
   // A scaled field carries whole counts: a read-back may differ from the value written by half a count of
   // the field that carried it (and by nothing more).
   double readback_tolerance(double written) const override;

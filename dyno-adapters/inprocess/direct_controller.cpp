@@ -47,6 +47,10 @@ Result DirectController::do_read_coefficients(core::RoadLoad& c, controller::Dea
 Result DirectController::do_command(controller::Mode mode, double value, controller::Deadline) {
   return from(sim_->command(sim::command_for(mode, value)));
 }
+Result DirectController::do_prompt_driver(controller::DriverPrompt p, double speed_kmh,
+                                          controller::Deadline) {
+  return from(sim_->prompt_driver(p, speed_kmh));
+}
 Result DirectController::do_stream(double rate_hz, controller::Deadline) {
   return from(sim_->stream(rate_hz));
 }

@@ -31,6 +31,9 @@ class DirectController : public controller::Controller {
   controller::Result do_heartbeat(controller::Deadline) override { return controller::Result::success(); }
   controller::Result do_status(controller::StatusReport& out, controller::Deadline) override;
   controller::Result do_clear_fault(controller::Deadline) override;
+  controller::Result do_prompt_driver(controller::DriverPrompt p, double speed_kmh,
+                                      controller::Deadline) override;
+  std::string driver_prompt_unavailable() const override { return ""; }
 
  private:
   std::unique_ptr<sim::SimController> sim_;

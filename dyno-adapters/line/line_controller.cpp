@@ -182,6 +182,7 @@ Result LineController::do_connect(Deadline d) {
   Message rep;
   if (Result r = request(kVerbHello, {kv("version", kProtocolVersion), "client=loadtrim"}, rep, d); !r.ok())
     return r;
+  hello_caps_ = field(rep, "caps").value_or("");
   const auto v = number_field(rep, "version");
   if (!v || static_cast<int>(*v) != kProtocolVersion)
     return Result::fail("controller speaks protocol version " + field(rep, "version").value_or("?") +
@@ -200,7 +201,8 @@ Result LineController::do_identify(controller::ControllerInfo& out, Deadline d) 
              vmax = number_field(rep, "max_speed_kmh"), fmax = number_field(rep, "max_force_n");
   if (!dia || !inertia || !vmax || !fmax) return Result::fail("IDENT reply lacks a required field");
   out.name = field(rep, "name").value_or("");
-  out.capabilities = field(rep, "caps").value_or("");
+  // IDENT's own list when it states one, else the handshake's (docs/protocol.md section 3).
+  out.capabilities = field(rep, "caps").value_or(hello_caps_);
   out.protocol_version = static_cast<int>(number_field(rep, "version").value_or(0));
   out.roller_diameter_m = *dia;
   out.base_inertia_kg = *inertia;
@@ -247,6 +249,19 @@ Result LineController::do_command(Mode mode, double value, Deadline d) {
   std::vector<std::string> f = {wire_mode(mode)};
   if (mode == Mode::speed_hold || mode == Mode::constant_force) f.push_back(format_number(value));
   return request(kVerbMode, std::move(f), rep, d);
+}
+
+Result LineController::do_prompt_driver(controller::DriverPrompt p, double speed_kmh, Deadline d) {
+  Message rep;
+  switch (p) {
+    case controller::DriverPrompt::accelerate:
+      return request(kVerbDriver, {kDriverAccel, format_number(speed_kmh)}, rep, d);
+    case controller::DriverPrompt::neutral:
+      return request(kVerbDriver, {kDriverNeutral}, rep, d);
+    case controller::DriverPrompt::off:
+      return request(kVerbDriver, {kDriverOff}, rep, d);
+  }
+  return Result::fail("unknown driver prompt");
 }
 
 Result LineController::do_stream(double rate_hz, Deadline d) {

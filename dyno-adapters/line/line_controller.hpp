@@ -38,6 +38,9 @@ class LineController : public controller::Controller {
   Result do_heartbeat(Deadline d) override;
   Result do_status(controller::StatusReport& out, Deadline d) override;
   Result do_clear_fault(Deadline d) override;
+  Result do_prompt_driver(controller::DriverPrompt p, double speed_kmh, Deadline d) override;
+  // The protocol carries the driver display (DRIVER); whether this controller has one, IDENT's "driver".
+  std::string driver_prompt_unavailable() const override { return ""; }
   void do_take_events(std::vector<std::string>& out) override;
   void on_stream_rate(double samples_per_wall_s) override;
 
@@ -57,6 +60,7 @@ class LineController : public controller::Controller {
   std::deque<controller::Sample> samples_;
   std::size_t max_samples_ = kMinSampleBound;
   std::deque<std::string> events_;
+  std::string hello_caps_;  // the capabilities HELLO's reply stated
 };
 
 bool parse_mode(std::string_view wire, controller::Mode& out);

@@ -92,6 +92,11 @@ inline constexpr const char* kVerbStream = "STREAM";
 inline constexpr const char* kVerbBeat = "BEAT";
 inline constexpr const char* kVerbStatus = "STATUS";
 inline constexpr const char* kVerbClear = "CLEAR";
+// DRIVER ACCEL <km/h> | DRIVER NEUTRAL | DRIVER OFF: the driver display (capability "driver").
+inline constexpr const char* kVerbDriver = "DRIVER";
+inline constexpr const char* kDriverAccel = "ACCEL";
+inline constexpr const char* kDriverNeutral = "NEUTRAL";
+inline constexpr const char* kDriverOff = "OFF";
 inline constexpr const char* kArgSet = "SET";  // INERTIA SET <kg>, COEF SET <f0> <f1> <f2>
 inline constexpr const char* kArgGet = "GET";
 inline constexpr const char* kTypeOk = "OK";
@@ -114,5 +119,6 @@ inline constexpr std::uint32_t kFlagEstop = 0x02;
 inline constexpr std::uint32_t kFlagWatchdog = 0x04;
 inline constexpr std::uint32_t kFlagLimit = 0x08;
 inline constexpr std::uint32_t kFlagAtSetpoint = 0x10;
+inline constexpr std::uint32_t kFlagNeutral = 0x20;  // capability "neutral", while a driver prompt is shown
 
 }  // namespace loadtrim::line

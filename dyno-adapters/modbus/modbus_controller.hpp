@@ -65,6 +65,10 @@ class ModbusController : public controller::Controller {
   double setting_tolerance(Setting what, double written) const override;
   std::string readback_source() const override;
   std::string mode_unavailable(controller::Mode mode) const override;
+  // No register of the map carries a driver display yet (docs/modbus.md, "Driver prompts").
+  std::string driver_prompt_unavailable() const override {
+    return "the Modbus register map has no driver-prompt registers (docs/modbus.md, \"Driver prompts\")";
+  }
   double polled_rate_hz() const override { return settings_.map.poll_rate_hz; }
 
  private:

@@ -231,7 +231,7 @@ std::string cell_toml(const std::string& axles, double rate) {
          std::string(r) +
          "\n[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 14400.0\n"
          "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"" +
-         axles + "\"\n";
+         axles + "\"\nrun_up = \"vehicle\"\n";  // the simulated driver accelerates the vehicle
 }
 
 // Expected band-force SD from white speed noise (derivation in docs/performance.md and trace_analysis_test).

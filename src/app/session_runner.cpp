@@ -110,8 +110,8 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
   // How the three files combine (core/combination.hpp): every limit that needs no controller is checked now,
   // before anything connects.
   const auto& cell = l.inputs.cell;
-  const core::CellFacts facts{cell.max_speed_kmh, cell.max_force_n,    cell.max_motoring_s,
-                              cell.axles,         cell.min_inertia_kg, cell.max_inertia_kg};
+  const core::CellFacts facts{cell.max_speed_kmh,  cell.max_force_n,    cell.max_motoring_s, cell.axles,
+                              cell.min_inertia_kg, cell.max_inertia_kg, cell.run_up};
   const core::CombinationProblems cp = core::check_combination(l.inputs.vehicle, l.inputs.profile, facts);
   if (cp.any_error())
     std::cerr << "loadtrim: the cell file " << cell_file << ", the target " << target_file

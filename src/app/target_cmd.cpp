@@ -208,9 +208,9 @@ int run_target(const TargetOptions& o) {
   {
     constexpr double kUnbounded = std::numeric_limits<double>::infinity();
     const core::CellFacts facts =
-        cell ? core::CellFacts{cell->max_speed_kmh, cell->max_force_n,    cell->max_motoring_s,
-                               cell->axles,         cell->min_inertia_kg, cell->max_inertia_kg}
-             : core::CellFacts{kUnbounded, kUnbounded, kUnbounded, layout, 0.0, 0.0};
+        cell ? core::CellFacts{cell->max_speed_kmh,  cell->max_force_n,    cell->max_motoring_s, cell->axles,
+                               cell->min_inertia_kg, cell->max_inertia_kg, cell->run_up}
+             : core::CellFacts{kUnbounded, kUnbounded, kUnbounded, layout, 0.0, 0.0, std::nullopt};
     const core::CombinationProblems cp = core::check_combination(v, profile, facts);
     auto add = [&](const core::Problems& ps, const std::string& file) {
       for (core::Problem p : ps) {

@@ -55,6 +55,9 @@ controller::CellConfig read_cell(TomlReader& r, const AdapterSections& adapters)
   c.roller_diameter_tolerance_m = r.number_or("dyno.roller_diameter_tolerance_m", 0.002, 0.0, 0.1, "m");
   c.base_inertia_tolerance_kg = r.number_or("dyno.base_inertia_tolerance_kg", 5.0, 0.0, 500.0, "kg");
   core::parse(r.choice("dyno.axles", {"single-axle", "two-axle"}), c.axles);
+  // Who accelerates the vehicle (GTR 15 Annex 4 §8.1.3.4): required, never defaulted.
+  c.run_up =
+      r.choice("dyno.run_up", {"dyno", "vehicle"}) == "vehicle" ? core::RunUp::vehicle : core::RunUp::dyno;
   // The inertia range the dyno simulates (the unloaded coast-down runs at both ends); optional for sessions.
   c.min_inertia_kg = r.number_or("dyno.min_inertia_kg", 0.0, 0.0, 20000.0, "kg");
   c.max_inertia_kg = r.number_or("dyno.max_inertia_kg", 0.0, 0.0, 20000.0, "kg");

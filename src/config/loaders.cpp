@@ -185,6 +185,26 @@ physics::Truth read_truth(TomlReader& r) {
       r.number_or("dyno.force_loop_time_constant_s", d.force_loop_time_constant_s, 0.0, 2.0, "s");
   d.force_loop_damping = r.number_or("dyno.force_loop_damping", d.force_loop_damping, 0.05, 5.0, "");
   t.noise_seed = static_cast<std::uint64_t>(r.integer_or("noise_seed", 1, 0, 2147483647));
+  // [driver]: who accelerates the vehicle when the driver display asks (physics::DriverTruth; the defaults
+  // are assumptions, no source).
+  auto& dr = t.driver;
+  dr.reaction_time_s = r.number_or("driver.reaction_time_s", dr.reaction_time_s, 0.0, 10.0, "s");
+  dr.throttle_ramp_s = r.number_or("driver.throttle_ramp_s", dr.throttle_ramp_s, 0.0, 30.0, "s");
+  dr.max_tractive_force_n =
+      r.number_or("driver.max_tractive_force_n", dr.max_tractive_force_n, 50.0, 50000.0, "N");
+  dr.max_power_w = r.number_or("driver.max_power_w", dr.max_power_w, 500.0, 2000000.0, "W");
+  dr.overshoot_kmh = r.number_or("driver.overshoot_kmh", dr.overshoot_kmh, 0.0, 20.0, "km/h");
+  dr.hold_gain_per_s = r.number_or("driver.hold_gain_per_s", dr.hold_gain_per_s, 0.05, 20.0, "1/s");
+  dr.neutral_jitter_s = r.number_or("driver.neutral_jitter_s", dr.neutral_jitter_s, 0.0, 10.0, "s");
+  dr.late_release_probability =
+      r.number_or("driver.late_release_probability", dr.late_release_probability, 0.0, 1.0, "");
+  dr.late_release_extra_s =
+      r.number_or("driver.late_release_extra_s", dr.late_release_extra_s, 0.0, 120.0, "s");
+  dr.early_release_probability =
+      r.number_or("driver.early_release_probability", dr.early_release_probability, 0.0, 1.0, "");
+  dr.early_release_below_kmh =
+      r.number_or("driver.early_release_below_kmh", dr.early_release_below_kmh, 0.5, 100.0, "km/h");
+  dr.seed = static_cast<std::uint64_t>(r.integer_or("driver.seed", 1, 0, 2147483647));
   t.vehicle_on_rollers = r.boolean_or("vehicle_on_rollers", true);
   return t;
 }

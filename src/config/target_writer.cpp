@@ -95,6 +95,20 @@ std::string truth_toml(const physics::Truth& t, const std::string& header) {
   if (d.force_loop_gain != 1.0) kv("force_loop_gain", d.force_loop_gain);
   if (d.force_loop_time_constant_s != 0.0) kv("force_loop_time_constant_s", d.force_loop_time_constant_s);
   if (d.force_loop_damping != 1.0) kv("force_loop_damping", d.force_loop_damping);
+  const auto& dr = t.driver;
+  o += "\n[driver]\n";
+  kv("reaction_time_s", dr.reaction_time_s);
+  kv("throttle_ramp_s", dr.throttle_ramp_s);
+  kv("max_tractive_force_n", dr.max_tractive_force_n);
+  kv("max_power_w", dr.max_power_w);
+  kv("overshoot_kmh", dr.overshoot_kmh);
+  kv("hold_gain_per_s", dr.hold_gain_per_s);
+  kv("neutral_jitter_s", dr.neutral_jitter_s);
+  kv("late_release_probability", dr.late_release_probability);
+  kv("late_release_extra_s", dr.late_release_extra_s);
+  kv("early_release_probability", dr.early_release_probability);
+  kv("early_release_below_kmh", dr.early_release_below_kmh);
+  o += "seed = " + std::to_string(dr.seed % 2147483647ULL) + "\n";
   return o;
 }
 

@@ -9,6 +9,7 @@
 #include <string>
 
 #include "controller/controller.hpp"
+#include "core/mode.hpp"
 #include "core/problem.hpp"
 #include "core/profile.hpp"
 
@@ -43,6 +44,7 @@ struct CellConfig {
   double roller_diameter_tolerance_m = 0.002;
   double base_inertia_tolerance_kg = 5.0;
   core::AxleLayout axles = core::AxleLayout::single_axle;
+  core::RunUp run_up = core::RunUp::dyno;  // dyno.run_up (required): who accelerates the vehicle
   double sample_rate_hz = 100.0;
   double min_inertia_kg = 0.0;  // the dyno's simulated inertia range; 0 = not given
   double max_inertia_kg = 0.0;

@@ -227,6 +227,15 @@ Result Controller::release_road_load() {
   return guarded("road-load simulation",
                  [&] { return command_done(do_command(Mode::road_load, 0.0, reply_deadline())); });
 }
+Result Controller::prompt_driver(DriverPrompt p, double speed_kmh) {
+  return guarded("driver prompt", [&] {
+    if (p == DriverPrompt::accelerate &&
+        !(speed_kmh > 0.0 && (limits_.max_speed_kmh <= 0.0 || speed_kmh <= limits_.max_speed_kmh)))
+      return Result::fail("a driver prompt to " + num(speed_kmh) + " km/h is outside the speed limit of " +
+                          num(limits_.max_speed_kmh) + " km/h");
+    return command_done(do_prompt_driver(p, speed_kmh, reply_deadline()));
+  });
+}
 Result Controller::controlled_stop() {
   return guarded("controlled stop",
                  [&] { return command_done(do_command(Mode::controlled_stop, 0.0, reply_deadline())); });

@@ -61,6 +61,11 @@ inline constexpr std::uint32_t kFlagEstop = 0x02;
 inline constexpr std::uint32_t kFlagWatchdog = 0x04;
 inline constexpr std::uint32_t kFlagLimit = 0x08;
 inline constexpr std::uint32_t kFlagAtSetpoint = 0x10;
+// The vehicle is in neutral: set only by a controller that states the capability "neutral", and only while a
+// driver prompt is shown (from "accelerate" until "off"; docs/protocol.md, "Driver prompts").
+inline constexpr std::uint32_t kFlagNeutral = 0x20;
+
+using DriverPrompt = core::DriverPrompt;
 
 struct ControllerInfo {
   std::string name;
@@ -161,6 +166,13 @@ class Controller {
   // Motoring: refused here, before anything is sent, above the configured speed limit.
   Result hold_speed(double speed_kmh);
   Result release_road_load();
+  // The driver display (capability "driver"): accelerate to a speed (refused here above the configured speed
+  // limit), shift to neutral, or clear it. Like a command it closes an epoch (samples read before its
+  // acknowledgement belong to the phase before).
+  Result prompt_driver(DriverPrompt p, double speed_kmh = 0.0);
+  // What the configuration alone (no link) says against prompting a driver: "" when nothing stands in the
+  // way (the capabilities at identify have the last word), else why (e.g. the register map keys it lacks).
+  std::string driver_unavailable() const { return driver_prompt_unavailable(); }
   Result controlled_stop();
   Result idle();
   // The dyno's own checks (no vehicle on the rollers): refused here above the cell's force limit; the force
@@ -233,6 +245,10 @@ class Controller {
   virtual Result do_heartbeat(Deadline d) = 0;
   virtual Result do_status(StatusReport& out, Deadline d) = 0;
   virtual Result do_clear_fault(Deadline d) = 0;
+  virtual Result do_prompt_driver(DriverPrompt, double /*speed_kmh*/, Deadline) {
+    return Result::fail("this controller has no driver display");
+  }
+  virtual std::string driver_prompt_unavailable() const { return "this controller has no driver display"; }
   // Events the controller sent since the last call ("FAULT kind=... detail=..." and others), oldest first.
   virtual void do_take_events(std::vector<std::string>&) {}
   // Whether samples are streamed by the controller at the rate asked (checked), or polled by the adapter.

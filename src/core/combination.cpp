@@ -113,6 +113,14 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
   const std::string start_text = num(start) + " km/h (top reference speed " + num(profile.top_speed_kmh()) +
                                  " + run.run_up_margin_kmh " + num(profile.run_up_margin_kmh) + ")";
 
+  // Who accelerates the vehicle decides the method (GTR 15 Annex 4 §8.1.3.4, docs/standards.md §3.3).
+  if (cell.run_up == RunUp::dyno && profile.method == SettingMethod::iterative)
+    err(out.cell, "dyno.run_up",
+        "is \"dyno\" (the dyno accelerates the vehicle): only the fixed-run method may then be used "
+        "(GTR 15 Annex 4 §8.1.3.4), but the profile's method.kind is \"iterative\"; use a fixed-run profile "
+        "(method.kind = \"fixed-run\", e.g. config/profiles/wltp-fixed-run.toml) or a cell where the vehicle "
+        "accelerates itself (dyno.run_up = \"vehicle\")");
+
   // Speeds. Comparisons are written so that a NaN fails them.
   if (!start_speed_below(profile, cell.max_speed_kmh))
     err(out.cell, "limits.max_speed_kmh",

@@ -9,6 +9,7 @@
 #include <vector>
 
 #include "core/envelope.hpp"
+#include "core/mode.hpp"
 #include "core/problem.hpp"
 #include "core/profile.hpp"
 #include "core/vehicle.hpp"
@@ -22,6 +23,7 @@ struct CellFacts {
   double max_motoring_s = 0;                      // limits.max_motoring_s: one continuous motoring period
   AxleLayout axles = AxleLayout::single_axle;     // dyno.axles
   double min_inertia_kg = 0, max_inertia_kg = 0;  // dyno.min_inertia_kg / dyno.max_inertia_kg; 0 = not given
+  std::optional<RunUp> run_up;                    // dyno.run_up; nullopt = no cell given (not checked)
 };
 
 // Problems per file: `cell` keys as in the cell file, `target` as in the target file, `profile` as in the
@@ -84,6 +86,10 @@ std::optional<std::string> limits_refusal(const Profile& p, double cell_max_kmh,
 // - cell: limits.max_speed_kmh above the profile's start speed; limits.max_motoring_s at least
 //   planned_motoring_s; dyno.min_inertia_kg ≤ the inertia the session will set ≤ dyno.max_inertia_kg when
 //   given (dyno_inertia_kg(TM, resolved m_r, dyno.axles, the profile's mass rule), EU SA4 §2.5.3).
+// - cell: dyno.run_up "dyno" with the iterative method is an error naming the fixed-run method (GTR 15 Annex
+// 4
+//   §8.1.3.4, text: when the dyno accelerates the vehicle only the fixed-run method may be used; when the
+//   vehicle accelerates itself, either; docs/standards.md §3.3).
 // - target: vehicle.max_speed_kmh above the start speed; vehicle.drive "all" on a single-axle cell is an
 //   error unless vehicle.two_wheel_drive_mode (then a warning: the mode is a condition of the test and is
 //   logged); check_target with EnvelopeLimits{limits.max_force_n, start speed}, whose force-limit error names

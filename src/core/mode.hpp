@@ -35,4 +35,29 @@ constexpr const char* to_string(Mode m) {
   return "unknown";
 }
 
+// Who accelerates the vehicle for a coast-down (the cell's dyno.run_up): the dyno motoring it in neutral, or
+// the vehicle under its own power, a driver or driver robot prompted through the controller. GTR 15 Annex 4
+// §8.1.3.4 (text): with the dyno accelerating the vehicle only the fixed-run method may be used.
+enum class RunUp : std::uint8_t { dyno, vehicle };
+
+constexpr const char* to_string(RunUp r) {
+  return r == RunUp::dyno ? "dyno" : "vehicle";
+}
+
+// What the tool asks of the driver (or driver robot) on the controller's driver display during a run-up
+// under the vehicle's own power: accelerate to a speed, shift to neutral, or nothing (the display cleared).
+enum class DriverPrompt : std::uint8_t { accelerate, neutral, off };
+
+constexpr const char* to_string(DriverPrompt p) {
+  switch (p) {
+    case DriverPrompt::accelerate:
+      return "accelerate";
+    case DriverPrompt::neutral:
+      return "neutral";
+    case DriverPrompt::off:
+      return "off";
+  }
+  return "unknown";
+}
+
 }  // namespace loadtrim::core

@@ -7,6 +7,7 @@
 #include <thread>
 
 #include "core/problem.hpp"
+#include "core/run_up.hpp"
 
 namespace loadtrim::motion {
 
@@ -155,6 +156,102 @@ Result Motion::hold(double v_kmh, double settle_s, const std::string& what, doub
     if (reached < 0.0 && std::abs(s.speed_kmh - v_kmh) < tolerance_kmh) reached = s.time_s;
     return reached >= 0.0 && s.time_s - reached >= settle_s;
   });
+}
+
+Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
+                           const std::function<void(controller::DriverPrompt, double)>& on_prompt,
+                           const std::function<void()>& on_release) {
+  using controller::DriverPrompt;
+  using Ending = VehicleRunOutcome::Ending;
+  out = VehicleRunOutcome{};
+  out.detected_by = plan.neutral_signal ? "neutral signal" : "speed trace";
+  if (Result r = c_.release_road_load(); !r.ok()) return r;
+  Step st;
+  st.what = "vehicle run-up";
+  st.budget_s = plan.run_up_budget_s + plan.release_budget_s + plan.coast_budget_s;
+  st.modes = {Mode::road_load};
+  if (Result r = c_.prompt_driver(DriverPrompt::accelerate, plan.start_kmh); !r.ok()) return r;
+  st.since_epoch = c_.epoch();  // samples read after the prompt was acknowledged
+  if (on_prompt) on_prompt(DriverPrompt::accelerate, plan.start_kmh);
+  enum class Phase : std::uint8_t { accelerating, awaiting_release, coasting };
+  Phase phase = Phase::accelerating;
+  bool in_gear_seen = false;
+  Result prompt_failed = Result::success();
+  core::ReleaseDetector detector;
+  std::vector<Sample> seen;  // every sample of the run-up (the detector's indices point into it)
+  auto released = [&](std::size_t at) {
+    out.run_up.assign(seen.begin(), seen.begin() + static_cast<std::ptrdiff_t>(at));
+    out.coast.assign(seen.begin() + static_cast<std::ptrdiff_t>(at), seen.end());
+    out.release_s = seen[at].time_s;
+    out.release_kmh = seen[at].speed_kmh;
+  };
+  Result r = collect(st, [&](const Sample& s) {
+    if (out.prompt_s < 0.0) out.prompt_s = s.time_s;
+    if (phase == Phase::coasting) {
+      out.coast.push_back(s);
+      return s.speed_kmh < plan.end_kmh;
+    }
+    seen.push_back(s);
+    out.peak_kmh = std::max(out.peak_kmh, s.speed_kmh);
+    bool release = false;
+    std::size_t at = seen.size() - 1;
+    if (plan.neutral_signal) {
+      const bool neutral = (s.flags & controller::kFlagNeutral) != 0;
+      if (!neutral) in_gear_seen = true;
+      release = neutral && in_gear_seen;
+    } else if (detector.feed(s.time_s, s.speed_kmh)) {
+      release = true;
+      at = *detector.release_index();
+    }
+    if (phase == Phase::accelerating) {
+      if (release) {
+        released(at);
+        out.ending = Ending::early_release;
+        out.why = "the vehicle was shifted to neutral at " + num(out.release_kmh, 1) +
+                  " km/h, below the start speed of " + num(plan.start_kmh) + " km/h (found from the " +
+                  out.detected_by + ")";
+        return true;
+      }
+      if (s.speed_kmh >= plan.start_kmh) {
+        out.reached_s = s.time_s;
+        phase = Phase::awaiting_release;
+        if (Result pr = c_.prompt_driver(DriverPrompt::neutral); !pr.ok()) {
+          prompt_failed = pr;
+          return true;
+        }
+        out.neutral_prompt_s = s.time_s;
+        if (on_prompt) on_prompt(DriverPrompt::neutral, plan.start_kmh);
+        return false;
+      }
+      if (s.time_s - out.prompt_s > plan.run_up_budget_s) {
+        out.ending = Ending::not_reached;
+        out.why = "the vehicle did not reach the start speed of " + num(plan.start_kmh) + " km/h within " +
+                  num(plan.run_up_budget_s) + " s of the prompt to accelerate (highest speed " +
+                  num(out.peak_kmh, 1) + " km/h)";
+        return true;
+      }
+      return false;
+    }
+    // awaiting_release
+    if (release) {
+      released(at);
+      phase = Phase::coasting;
+      if (on_release) on_release();
+      return !out.coast.empty() && out.coast.back().speed_kmh < plan.end_kmh;
+    }
+    if (s.time_s - out.neutral_prompt_s > plan.release_budget_s) {
+      out.ending = Ending::no_release;
+      out.why = "no release to neutral was seen within " + num(plan.release_budget_s) +
+                " s of the prompt to shift to neutral (found from the " + out.detected_by + ")";
+      return true;
+    }
+    return false;
+  });
+  if (phase != Phase::coasting && out.run_up.empty() && out.coast.empty()) out.run_up = seen;  // not released
+  if (!prompt_failed.ok()) return prompt_failed;
+  if (!r.ok()) return r;
+  if (phase == Phase::coasting) out.ending = Ending::coasted;
+  return Result::success();
 }
 
 namespace {

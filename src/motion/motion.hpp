@@ -80,6 +80,33 @@ struct Step {
   bool stoppable = true;                  // the operator's stop flag ends it (false for stopping itself)
 };
 
+// A run-up under the vehicle's own power, then its coast (Motion::vehicle_run): the dyno simulates the road
+// load at the current setting while the driver, prompted on the controller's driver display, accelerates to
+// the start speed and, prompted again, shifts to neutral.
+struct VehicleRunPlan {
+  double start_kmh = 0.0;  // prompted; "neutral" is prompted once the speed is at or above it
+  double end_kmh = 0.0;    // the coast ends at the first sample below this
+  // Controller seconds from the "accelerate" prompt to the start speed (as a dyno's speed hold gets), and
+  // from the "neutral" prompt to the release: a driver who never gets there ends the run (common practice, no
+  // source).
+  double run_up_budget_s = kDefaultStepBudgetS;
+  double release_budget_s = 30.0;
+  double coast_budget_s = kDefaultStepBudgetS;
+  // Whether the controller states the vehicle-in-neutral signal (capability "neutral",
+  // controller::kFlagNeutral); else the release is found in the speed trace (core::ReleaseDetector).
+  bool neutral_signal = false;
+};
+struct VehicleRunOutcome {
+  enum class Ending : std::uint8_t { coasted, early_release, not_reached, no_release };
+  Ending ending = Ending::not_reached;
+  std::vector<Sample> run_up;  // from the "accelerate" prompt to the release (exclusive)
+  std::vector<Sample> coast;   // from the release until below end_kmh
+  double prompt_s = -1.0, reached_s = -1.0, neutral_prompt_s = -1.0, release_s = -1.0;
+  double peak_kmh = 0.0, release_kmh = 0.0;
+  std::string detected_by;  // "neutral signal" or "speed trace"
+  std::string why;          // for the endings other than coasted
+};
+
 class Motion {
  public:
   Motion(controller::Controller& c, Rules rules, const std::atomic<bool>* stop = nullptr);
@@ -102,6 +129,13 @@ class Motion {
   // (controller time).
   Result hold(double v_kmh, double settle_s, const std::string& what, double budget_s = kDefaultStepBudgetS,
               double tolerance_kmh = 0.5);
+  // Road-load simulation, the driver prompted to accelerate to the start speed, then to shift to neutral; the
+  // run-up and coast samples go to `out`. on_prompt is called after each prompt was acknowledged,
+  // on_release when the release is found. Ok with out.ending coasted, early_release (a release below the
+  // start speed: the run is unusable), not_reached or no_release (each with out.why); else as collect.
+  Result vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
+                     const std::function<void(controller::DriverPrompt, double)>& on_prompt,
+                     const std::function<void()>& on_release);
   // Controlled stop, then wait (not stoppable by the operator: stopping is what is wanted) for standstill:
   // speed at or below the standstill threshold in idle or controlled-stop mode. `stopped` says whether it was
   // confirmed.

@@ -18,7 +18,84 @@ RollerModel::RollerModel(const Truth& truth)
       inertia_set_kg_(truth.dyno.base_inertia_kg),
       warmth_(std::clamp(truth.vehicle.initial_warmth, 0.0, 1.0)),
       curvature_(roller_curvature_factor(truth.vehicle.tyre_radius_m, 0.5 * truth.dyno.roller_diameter_m)),
-      rng_(truth.noise_seed) {}
+      rng_(truth.noise_seed),
+      driver_rng_(truth.driver.seed) {}
+
+void RollerModel::prompt_driver(core::DriverPrompt p, double speed_kmh) {
+  const auto& d = truth_.driver;
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  std::normal_distribution<double> n(0.0, 1.0);
+  prompt_ = p;
+  switch (p) {
+    case core::DriverPrompt::accelerate:
+      prompted_kmh_ = std::max(0.0, speed_kmh);
+      driver_target_kmh_ = prompted_kmh_ + d.overshoot_kmh;
+      engage_at_s_ = time_s_ + d.reaction_time_s;
+      early_ = u(driver_rng_) < d.early_release_probability;
+      shift_pending_ = false;
+      holding_ = false;
+      break;
+    case core::DriverPrompt::neutral: {
+      if (!in_gear_) {  // not yet engaged: nothing to shift out of
+        engage_at_s_ = 1e300;
+        break;
+      }
+      double delay = d.reaction_time_s + std::abs(d.neutral_jitter_s * n(driver_rng_));
+      if (u(driver_rng_) < d.late_release_probability) delay += d.late_release_extra_s;
+      shift_at_s_ = time_s_ + delay;
+      shift_pending_ = true;
+      break;
+    }
+    case core::DriverPrompt::off:
+      in_gear_ = false;
+      shift_pending_ = false;
+      holding_ = false;
+      engage_at_s_ = 1e300;
+      break;
+  }
+}
+
+void RollerModel::advance_driver() {
+  const auto& d = truth_.driver;
+  const double v = speed_kmh();
+  if (!in_gear_ && prompt_ == core::DriverPrompt::accelerate && time_s_ >= engage_at_s_) {
+    in_gear_ = true;
+    throttle_from_s_ = time_s_;
+    engage_at_s_ = 1e300;  // engages once per prompt
+  }
+  if (!in_gear_) {
+    tractive_n_ = 0.0;
+    return;
+  }
+  if (early_ && !shift_pending_ && v >= prompted_kmh_ - d.early_release_below_kmh) {
+    in_gear_ = false;  // an early shift, unprompted
+    tractive_n_ = 0.0;
+    return;
+  }
+  if (shift_pending_ && time_s_ >= shift_at_s_) {
+    in_gear_ = false;
+    shift_pending_ = false;
+    tractive_n_ = 0.0;
+    return;
+  }
+  if (v >= driver_target_kmh_) holding_ = true;
+  const double available = std::min(d.max_tractive_force_n, d.max_power_w / std::max(1.0, v / kKmhPerMps));
+  if (!holding_) {
+    const double throttle = d.throttle_ramp_s > 0.0
+                                ? std::clamp((time_s_ - throttle_from_s_) / d.throttle_ramp_s, 0.0, 1.0)
+                                : 1.0;
+    tractive_n_ = throttle * available;
+  } else {
+    // Hold the target: balance the load, plus a correction proportional to the speed error.
+    const double err_mps = (driver_target_kmh_ - v) / kKmhPerMps;
+    tractive_n_ =
+        std::clamp(road_load_force_n(v) + d.hold_gain_per_s * err_mps * coasting_mass_kg(), 0.0, available);
+  }
+}
+
+double RollerModel::tractive_force_n() const {
+  return mode_ == Mode::road_load && in_gear_ && truth_.vehicle_on_rollers ? tractive_n_ : 0.0;
+}
 
 void RollerModel::apply_force(double force_n) {
   if (mode_ != Mode::constant_force) {  // the motor's force starts from nothing (no load at a steady hold)
@@ -113,8 +190,9 @@ double RollerModel::acceleration_mps2(double v_mps) const {
   const double v = v_mps * kKmhPerMps;
   const auto& d = truth_.dyno;
   if (mode_ == Mode::road_load) {
-    if (d.force_loop_gain == 1.0) return -road_load_force_n(v) / coasting_mass_kg();
-    return -(d.force_loop_gain * set_.force_n(v) + vehicle_loss_n(v) + parasitic_residual_n(v)) /
+    const double drive = tractive_force_n();
+    if (d.force_loop_gain == 1.0) return (drive - road_load_force_n(v)) / coasting_mass_kg();
+    return (drive - (d.force_loop_gain * set_.force_n(v) + vehicle_loss_n(v) + parasitic_residual_n(v))) /
            road_load_mass_kg();
   }
   const double physical_mass = d.base_inertia_kg + rotating_mass_kg();
@@ -135,6 +213,7 @@ void RollerModel::advance(double dt_s, double max_step_s) {
   const auto& veh = truth_.vehicle;
   for (int i = 0; i < steps; ++i) {
     const double v0 = speed_mps_;
+    advance_driver();
     switch (mode_) {
       case Mode::speed_hold: {
         const double target = hold_kmh_ / kKmhPerMps;
@@ -152,7 +231,8 @@ void RollerModel::advance(double dt_s, double max_step_s) {
       case Mode::idle:
       case Mode::free_coast: {
         if (mode_ == Mode::constant_force) advance_force_loop(h);
-        if (v0 <= 0.0 && !(mode_ == Mode::constant_force && force_applied_n_ > 0.0)) {
+        if (v0 <= 0.0 && !(mode_ == Mode::constant_force && force_applied_n_ > 0.0) &&
+            !(tractive_force_n() > 0.0)) {
           speed_mps_ = 0.0;
           break;
         }

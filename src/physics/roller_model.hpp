@@ -70,10 +70,29 @@ struct DynoTruth {
   double force_loop_damping = 1.0;
 };
 
+// The driver (or driver robot) who accelerates the vehicle under its own power when the controller's driver
+// display asks (a run-up in road-load simulation, docs/protocol.md "Driver prompts"). Every default is an
+// assumption, no source: a plausible human driver in a mid-size car.
+struct DriverTruth {
+  double reaction_time_s = 0.8;          // from a prompt to acting on it
+  double throttle_ramp_s = 1.5;          // from a closed to a fully open throttle
+  double max_tractive_force_n = 4000.0;  // at the roller surface, in the gear used
+  double max_power_w = 60000.0;          // the tractive force is at most this / speed
+  double overshoot_kmh = 1.0;            // the driver aims this far above the prompted speed and holds there
+  double hold_gain_per_s = 1.0;          // how firmly the held speed is kept (a speed error's rate of return)
+  double neutral_jitter_s = 0.3;         // extra delay of the shift to neutral, standard deviation
+  double late_release_probability = 0.0;  // per run-up: the shift comes late_release_extra_s later
+  double late_release_extra_s = 5.0;
+  double early_release_probability = 0.0;  // per run-up: the driver shifts to neutral unprompted, this far
+  double early_release_below_kmh = 8.0;    // below the prompted speed
+  std::uint64_t seed = 1;
+};
+
 struct Truth {
   bool vehicle_on_rollers = true;  // false: the empty rollers (the dyno's own checks)
   VehicleTruth vehicle;
   DynoTruth dyno;
+  DriverTruth driver;
   std::uint64_t noise_seed = 1;
 };
 
@@ -106,6 +125,13 @@ class RollerModel {
   void idle() { mode_ = Mode::idle; }
   void free_coast() { mode_ = Mode::free_coast; }  // as idle; the mode says it was commanded at speed
   void apply_force(double force_n);
+  // The driver display (DriverTruth): accelerate to a speed, shift to neutral, or cleared. The driver acts in
+  // road-load simulation only (the dyno holding or stopping the rollers overrides any throttle); "off" and
+  // "neutral" before the driver has engaged a gear leave the vehicle in neutral.
+  void prompt_driver(core::DriverPrompt p, double speed_kmh = 0.0);
+  bool in_neutral() const { return !in_gear_; }
+  core::DriverPrompt driver_prompt() const { return prompt_; }
+  double tractive_force_n() const;  // what the driver applies now (0 in neutral or outside road-load)
 
   // Advance simulated time by dt_s with fixed RK4 steps no longer than max_step_s.
   void advance(double dt_s, double max_step_s = 0.001);
@@ -136,6 +162,7 @@ class RollerModel {
 
  private:
   double acceleration_mps2(double v_mps) const;  // in road_load, constant_force, idle or free_coast
+  void advance_driver();                         // the driver's decisions at the current time and speed
   double road_load_mass_kg() const;   // the mass road-load simulation turns (the force loop's gain)
   void advance_force_loop(double h);  // the applied force towards its demand, over h seconds
   double load_cell_n() const;
@@ -154,6 +181,12 @@ class RollerModel {
   double curvature_;
   std::mt19937_64 rng_;
   std::normal_distribution<double> unit_normal_{0.0, 1.0};
+  core::DriverPrompt prompt_ = core::DriverPrompt::off;
+  bool in_gear_ = false, holding_ = false, early_ = false, shift_pending_ = false;
+  double engage_at_s_ = 0.0, throttle_from_s_ = 0.0, shift_at_s_ = 0.0, driver_target_kmh_ = 0.0;
+  double prompted_kmh_ = 0.0;
+  double tractive_n_ = 0.0;  // held constant over one integration step
+  std::mt19937_64 driver_rng_;
 };
 
 // A sampled coast-down trace (time from the model's clock).

@@ -49,6 +49,14 @@ Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayou
   v.tyre_loss_flat_n_per_kmh = l1 / curvature;
   v.drivetrain_loss_n = (1.0 - tyre_share) * constant;
   v.drivetrain_loss_n_per_kmh2 = quad;
+  // The driver: its own generator, seeded from the noise seed, so the vehicle's draws above stay as they
+  // were. Spreads are assumptions, no source: reaction 0.5-1.1 s, overshoot 0.5-1.5 km/h, 40-90 kW.
+  std::mt19937_64 drng(t.noise_seed ^ 0x9E3779B97F4A7C15ULL);
+  t.driver.seed = drng() % 2147483647ULL;
+  t.driver.reaction_time_s = 0.5 + 0.6 * u(drng);
+  t.driver.overshoot_kmh = 0.5 + 1.0 * u(drng);
+  t.driver.max_power_w = 100000.0 + 80000.0 * u(drng);
+  t.driver.max_tractive_force_n = 6000.0;
   return t;
 }
 

@@ -152,6 +152,13 @@ bool Console::on_event(const Event& e) {
           [&](const ev::ReleaseTiming& x) {
             if (!x.within) raw();
           },
+          // What the driver display asks, as the driver sees it; a run-up that failed its check in full.
+          [&](const ev::DriverPromptShown& x) {
+            if (x.prompt != core::DriverPrompt::off) std::fprintf(out_, "  DRIVER: %s\n", x.text.c_str());
+          },
+          [&](const ev::RunUpChecked& x) {
+            if (!x.meets || x.ending != "coasted") raw();
+          },
           [&](const ev::LinkLost&) { raw(); }, [&](const ev::LinkRestored&) { raw(); },
           [&](const ev::Fault&) { raw(); }, [&](const ev::Refused&) { raw(); },
           [&](const ev::Interrupted&) { raw(); }, [&](const ev::CoastdownDiscarded&) { raw(); },

@@ -246,6 +246,33 @@ struct Mapper {
     }
     return j;
   }
+  nlohmann::json operator()(const ev::RunUpPlan& e) const {
+    nlohmann::json j = {{"run_up", core::to_string(e.run_up)}, {"rule", e.rule}};
+    if (!e.release_detection.empty()) j["release_detection"] = e.release_detection;
+    return j;
+  }
+  nlohmann::json operator()(const ev::DriverPromptShown& e) const {
+    return {
+        {"run", e.run}, {"prompt", core::to_string(e.prompt)}, {"speed_kmh", e.speed_kmh}, {"text", e.text}};
+  }
+  nlohmann::json operator()(const ev::RunUpChecked& e) const {
+    nlohmann::json j = {{"run", e.run},
+                        {"ending", e.ending},
+                        {"start_speed_kmh", e.start_speed_kmh},
+                        {"peak_speed_kmh", e.peak_speed_kmh},
+                        {"detected_by", e.detected_by},
+                        {"min_av_m2ps3", e.min_av_m2ps3},
+                        {"meets", e.meets},
+                        {"run_up_s", e.run_up_s}};
+    if (e.figure_ok) {
+      j["mean_av_m2ps3"] = e.mean_av_m2ps3;
+      j["peak_av_m2ps3"] = e.peak_av_m2ps3;
+    }
+    if (e.ending == "coasted" || e.ending == "early_release") j["release_speed_kmh"] = e.release_speed_kmh;
+    if (e.ending == "coasted") j["release_delay_s"] = e.release_delay_s;
+    if (!e.why.empty()) j["why"] = e.why;
+    return j;
+  }
   nlohmann::json operator()(const ev::ConsecutiveTiming& e) const {
     return {{"rule", e.rule}, {"gap_since_last_coast_s", e.gap_since_last_coast_s}};
   }
@@ -537,6 +564,9 @@ struct Typer {
   const char* operator()(const ev::PassesReset&) const { return "passes_reset"; }
   const char* operator()(const ev::WarmUpDrift&) const { return "warm_up_drift"; }
   const char* operator()(const ev::ConsecutiveTiming&) const { return "timing"; }
+  const char* operator()(const ev::RunUpPlan&) const { return "run_up"; }
+  const char* operator()(const ev::DriverPromptShown&) const { return "driver_prompt"; }
+  const char* operator()(const ev::RunUpChecked&) const { return "run_up_checked"; }
   const char* operator()(const ev::Coastdown&) const { return "coastdown"; }
   const char* operator()(const ev::CoastdownDiscarded&) const { return "coastdown_discarded"; }
   const char* operator()(const ev::Diverging&) const { return "diverging"; }

@@ -247,6 +247,32 @@ struct WarmUpDrift {  // "warm_up_drift": the vehicle's warming trend when a set
   // again", or "not estimated: ..." (then nothing is decided by it).
   std::string verdict;
 };
+struct RunUpPlan {  // "run_up": who accelerates the vehicle (the cell's dyno.run_up), and how a release is
+                    // found
+  core::RunUp run_up = core::RunUp::dyno;
+  std::string release_detection;  // "neutral signal", "speed trace", or "" for dyno run-ups
+  std::string rule;               // the method rule it satisfies (GTR 15 Annex 4 §8.1.3.4)
+};
+struct DriverPromptShown {  // "driver_prompt": what the driver display was asked to show
+  int run = 0;
+  core::DriverPrompt prompt = core::DriverPrompt::off;
+  double speed_kmh = 0.0;  // the start speed of the run
+  std::string text;        // as the console says it: "accelerate to 130 km/h", "shift to neutral", ...
+};
+struct RunUpChecked {  // "run_up_checked": a run-up under the vehicle's own power
+  int run = 0;
+  std::string ending;  // "coasted", "early_release", "not_reached", "no_release"
+  double start_speed_kmh = 0.0, peak_speed_kmh = 0.0, release_speed_kmh = 0.0;
+  std::string detected_by;       // "neutral signal" or "speed trace"
+  bool figure_ok = false;        // an acceleration could be measured
+  double mean_av_m2ps3 = 0.0;    // acceleration × speed, mean over the accelerating part
+  double peak_av_m2ps3 = 0.0;    // its highest 1 s value
+  double min_av_m2ps3 = 6.0;     // GTR 15 Annex 4 §8.1.3.4
+  bool meets = true;             // mean_av ≥ min_av
+  double run_up_s = 0.0;         // from the prompt to the start speed (or to the ending)
+  double release_delay_s = 0.0;  // from the prompt to shift to neutral to the release (coasted only)
+  std::string why;               // an ending other than coasted, or a too slow run-up
+};
 struct ConsecutiveTiming {  // "timing"
   std::string rule;
   double gap_since_last_coast_s = 0.0;
@@ -418,14 +444,14 @@ using Payload =
                  ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted,
                  ev::WarmUpHeld, ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint,
                  ev::WarmUpEnded, ev::FirstSetting, ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted,
-                 ev::ReleaseTiming, ev::PassesReset, ev::WarmUpDrift, ev::ConsecutiveTiming, ev::Coastdown,
-                 ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect, ev::NotSettled,
-                 ev::FaultCleared, ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Resumed,
-                 ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted,
-                 ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied,
-                 ev::RateRunStarted, ev::ParasiticAnalysed, ev::UnloadedCoastdownAnalysed,
-                 ev::InertiaAnalysed, ev::FrictionAnalysed, ev::AccelDecelAnalysed, ev::ResponseAnalysed,
-                 ev::CheckFinished, ev::ControllerWarning>;
+                 ev::ReleaseTiming, ev::RunUpPlan, ev::DriverPromptShown, ev::RunUpChecked, ev::PassesReset,
+                 ev::WarmUpDrift, ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging,
+                 ev::LinkLost, ev::Reconnect, ev::NotSettled, ev::FaultCleared, ev::LinkRestored, ev::Fault,
+                 ev::Interrupted, ev::Resumed, ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped,
+                 ev::Finished, ev::CheckStarted, ev::CheckIdentified, ev::FreeCoastStarted,
+                 ev::CheckCoastStarted, ev::ForceApplied, ev::RateRunStarted, ev::ParasiticAnalysed,
+                 ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::FrictionAnalysed,
+                 ev::AccelDecelAnalysed, ev::ResponseAnalysed, ev::CheckFinished, ev::ControllerWarning>;
 
 // The record type an event is written as (the "type" member of its line).
 const char* type_of(const Payload& p);

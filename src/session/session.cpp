@@ -8,6 +8,7 @@
 #include "core/combination.hpp"
 #include "core/predict.hpp"
 #include "core/problem.hpp"
+#include "core/run_up.hpp"
 #include "core/setting.hpp"
 
 namespace loadtrim::session {
@@ -194,6 +195,17 @@ bool Session::recover_link(const std::string& why) {
 
 std::optional<Session::Stop> Session::do_connect() {
   transition(State::connect);
+  // A cell whose vehicle accelerates itself needs a driver display; an adapter whose configuration alone
+  // rules one out is refused before anything connects.
+  if (in_.cell.run_up == core::RunUp::vehicle) {
+    if (const std::string why = c_.driver_unavailable(); !why.empty()) {
+      const std::string msg =
+          "the cell's dyno.run_up is \"vehicle\" (the driver accelerates the vehicle), but " + why +
+          ": no driver can be prompted through this controller";
+      emit(ev::Refused{msg});
+      return Stop{Outcome::refused, msg};
+    }
+  }
   Result r = c_.connect();
   // The operator's stop is honoured between connect attempts (nothing moves yet: an interruption, exit 4).
   for (int attempt = 1; !r.ok() && r.status == Result::Status::retryable &&
@@ -252,6 +264,21 @@ std::optional<Session::Stop> Session::do_check_limits() {
     emit(ev::Refused{why});
     return Stop{Outcome::refused, why};
   }
+  if (in_.cell.run_up == core::RunUp::vehicle && !info_.has("driver")) {
+    const std::string msg =
+        "the cell's dyno.run_up is \"vehicle\" (the driver accelerates the vehicle), but the controller does "
+        "not state the capability \"driver\": it has no driver display to prompt the driver on";
+    emit(ev::Refused{msg});
+    return Stop{Outcome::refused, msg};
+  }
+  neutral_signal_ = in_.cell.run_up == core::RunUp::vehicle && info_.has("neutral");
+  emit(ev::RunUpPlan{
+      in_.cell.run_up,
+      in_.cell.run_up == core::RunUp::vehicle ? (neutral_signal_ ? "neutral signal" : "speed trace") : "",
+      in_.cell.run_up == core::RunUp::vehicle
+          ? "the vehicle accelerates itself: either method may be used (GTR 15 Annex 4 §8.1.3.4)"
+          : "the dyno accelerates the vehicle: the fixed-run method only (GTR 15 Annex 4 "
+            "§8.1.3.4)"});
   c_.set_speed_limit(speed_limit_kmh_);
   motion::Rules rules = motion_.rules();
   rules.speed_limit_kmh = speed_limit_kmh_;
@@ -353,6 +380,51 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   return std::nullopt;
 }
 
+std::optional<Session::Stop> Session::after_vehicle_run(int run, const motion::VehicleRunOutcome& out,
+                                                        double start_kmh) {
+  using Ending = motion::VehicleRunOutcome::Ending;
+  // The display is cleared whatever happened (a driver left with "shift to neutral" shown does nothing).
+  if (Result r = c_.prompt_driver(controller::DriverPrompt::off); !r.ok()) return fault(r, "driver prompt");
+  emit(ev::DriverPromptShown{run, controller::DriverPrompt::off, start_kmh, "prompt cleared"});
+  ev::RunUpChecked chk;
+  chk.run = run;
+  chk.ending = out.ending == Ending::coasted         ? "coasted"
+               : out.ending == Ending::early_release ? "early_release"
+               : out.ending == Ending::not_reached   ? "not_reached"
+                                                     : "no_release";
+  chk.start_speed_kmh = start_kmh;
+  chk.peak_speed_kmh = out.peak_kmh;
+  chk.release_speed_kmh = out.release_kmh;
+  chk.detected_by = out.detected_by;
+  chk.min_av_m2ps3 = core::kMinRunUpAccelSpeed_m2ps3;
+  // The figure over the run-up from the prompt to the start speed (or to the run's end when not reached).
+  std::vector<double> ts, vs;
+  for (const auto& s : out.run_up) {
+    if (out.reached_s >= 0.0 && s.time_s > out.reached_s) break;
+    ts.push_back(s.time_s);
+    vs.push_back(s.speed_kmh);
+  }
+  const core::RunUpFigure fig = core::run_up_figure(ts, vs);
+  chk.figure_ok = fig.ok;
+  chk.mean_av_m2ps3 = fig.mean_m2ps3;
+  chk.peak_av_m2ps3 = fig.peak_m2ps3;
+  // Comparisons written so that a NaN fails.
+  chk.meets = fig.ok && fig.mean_m2ps3 >= core::kMinRunUpAccelSpeed_m2ps3;
+  const double reached = out.reached_s >= 0.0 ? out.reached_s : (ts.empty() ? out.prompt_s : ts.back());
+  chk.run_up_s = reached - out.prompt_s;
+  if (out.ending == Ending::coasted) chk.release_delay_s = out.release_s - out.neutral_prompt_s;
+  chk.why = out.why;
+  if (!chk.meets && out.ending == Ending::coasted) {
+    const std::string slow = "a too slow run-up: acceleration × speed " + num(fig.mean_m2ps3, 3) +
+                             " m²/s³ below the " + num(core::kMinRunUpAccelSpeed_m2ps3) +
+                             " m²/s³ of GTR 15 Annex 4 §8.1.3.4, which then asks for full accelerator";
+    chk.why = slow;
+    findings_.push_back("coast-down " + std::to_string(run) + ": " + slow);
+  }
+  if (!emit(chk)) return Stop{Outcome::record_failure, record_error_};
+  return std::nullopt;
+}
+
 std::optional<Session::Stop> Session::do_run(int run) {
   const auto& p = in_.profile;
   auto link_or_fault = [&](const Result& r, const char* during) -> std::optional<Stop> {
@@ -397,11 +469,6 @@ std::optional<Session::Stop> Session::do_run(int run) {
   const double t_ru = t_now_;
   if (!emit(ev::CoastdownStarted{run, set_, p.start_speed_kmh()}))
     return Stop{Outcome::record_failure, record_error_};
-  if (Result r = hold_and_wait(p.start_speed_kmh(), "run-up"); !r.ok()) return link_or_fault(r, "run-up");
-  const double run_up_s = t_now_ - t_ru;
-
-  transition(State::coast_down);
-  if (Result r = c_.release_road_load(); !r.ok()) return link_or_fault(r, "release");
   std::vector<controller::Sample> trace;
   const double end = p.end_speed_kmh();
   // A coast that takes three times the target's predicted time (or 5 min, whichever is longer) means the set
@@ -410,10 +477,66 @@ std::optional<Session::Stop> Session::do_run(int run) {
       core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), end)
           .value_or(kMinCoastBudgetS);
   const double budget = std::max(kMinCoastBudgetS, 3.0 * predicted);
-  // Only road-load samples read after the release was acknowledged are this coast's.
-  Result r = motion_.collect(
-      step("coast-down", budget, {Mode::road_load}),
-      [&](const controller::Sample& s) { return s.speed_kmh < end; }, &trace);
+  double run_up_s = 0.0;
+  Result r = Result::success();
+  if (in_.cell.run_up == core::RunUp::vehicle) {
+    // Under the vehicle's own power: the driver prompted through the controller (docs/session.md).
+    motion_commanded_ = true;
+    motion::VehicleRunPlan plan;
+    plan.start_kmh = p.start_speed_kmh();
+    plan.end_kmh = end;
+    plan.coast_budget_s = budget;
+    plan.neutral_signal = neutral_signal_;
+    motion::VehicleRunOutcome out;
+    r = motion_.vehicle_run(
+        plan, out,
+        [&](controller::DriverPrompt pr, double v) {
+          emit(ev::DriverPromptShown{run, pr, v,
+                                     pr == controller::DriverPrompt::accelerate
+                                         ? "accelerate to " + num(v) + " km/h"
+                                     : pr == controller::DriverPrompt::neutral ? "shift to neutral"
+                                                                               : "prompt cleared"});
+        },
+        [&] { transition(State::coast_down); });
+    if (r.code == kTooSlowCode) {
+      (void)c_.prompt_driver(controller::DriverPrompt::off);  // the too-slow coast is handled below
+    } else if (r.ok()) {
+      if (auto s = after_vehicle_run(run, out, p.start_speed_kmh())) return s;
+      if (out.ending != motion::VehicleRunOutcome::Ending::coasted) {
+        if (Result h = c_.hold_speed(std::max(10.0, end)); !h.ok())
+          return link_or_fault(h, "after the run-up");
+        if (out.ending == motion::VehicleRunOutcome::Ending::early_release) {
+          // Released below the start speed: the run is unusable, discarded and repeated.
+          ++unusable_;
+          ++discarded_;
+          first_after_warm_up_ = false;
+          t_last_coast_end_ = t_now_;
+          reset_passes(run, "coast-down " + std::to_string(run) + " discarded: released early");
+          emit(ev::CoastdownDiscarded{run, out.why, std::nullopt,
+                                      "repeated (an early release, GTR 15 Annex 4 "
+                                      "§8.1.3.4: the coast starts at the start speed)"});
+          if (unusable_ >= p.max_unusable_runs)
+            return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) +
+                                                   "): the last was released early"};
+          return std::nullopt;
+        }
+        // Never reached the start speed, or never released: the run ends the session with the reason.
+        return Stop{Outcome::not_accepted, "coast-down " + std::to_string(run) + ": " + out.why};
+      }
+      trace = std::move(out.coast);
+      run_up_s = out.release_s - out.prompt_s;
+    }
+  } else {
+    if (Result rr = hold_and_wait(p.start_speed_kmh(), "run-up"); !rr.ok())
+      return link_or_fault(rr, "run-up");
+    run_up_s = t_now_ - t_ru;
+    transition(State::coast_down);
+    if (Result rr = c_.release_road_load(); !rr.ok()) return link_or_fault(rr, "release");
+    // Only road-load samples read after the release was acknowledged are this coast's.
+    r = motion_.collect(
+        step("coast-down", budget, {Mode::road_load}),
+        [&](const controller::Sample& s) { return s.speed_kmh < end; }, &trace);
+  }
   if (r.code == kTooSlowCode) {
     // Leave road-load simulation at once, count the run unusable and fall back to the standard's default
     // setting.

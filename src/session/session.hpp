@@ -119,6 +119,8 @@ class Session {
   std::optional<Stop> do_set_inertia();
   std::optional<Stop> do_warm_up(double duration_s, bool measure_loss_map);
   std::optional<Stop> do_run(int run);  // write_set → run_up → coast_down → analyse
+  // After a run-up under the vehicle's own power: the display cleared, the run-up's check recorded.
+  std::optional<Stop> after_vehicle_run(int run, const motion::VehicleRunOutcome& out, double start_kmh);
   void do_safe_stop();
   std::optional<Stop> fault(const controller::Result& r, const std::string& during);
   // Last line of defence when run() is left by an exception: a stop command, never throwing.
@@ -139,6 +141,7 @@ class Session {
   double t_start_ = -1.0, t_now_ = 0.0, t_warm_end_ = -1.0, t_last_coast_end_ = -1.0, t_motoring_from_ = -1.0;
   double cell_time_before_ = 0.0;
   bool link_up_ = false;
+  bool neutral_signal_ = false;  // the controller states "neutral" (vehicle run-ups find the release by it)
   core::RoadLoad set_;
   std::unique_ptr<core::SettingMethodState> method_;
   std::vector<core::HoldPoint> loss_map_;

@@ -29,7 +29,6 @@ std::string hex2(std::uint32_t f) {
   std::snprintf(b, sizeof b, "%02X", f);
   return b;
 }
-const std::string kCapsField = std::string("caps=") + SimController::kCapabilities;
 static_assert(SimController::kProtocolVersion == kProtocolVersion,
               "the simulator states the line protocol's version in IDENT and checks it at HELLO");
 }  // namespace
@@ -149,7 +148,7 @@ void LineFrontEnd::on_line(std::string_view text, double wall_s, std::vector<std
     const auto v = line::number_field(m, "version");
     const auto e = sim_.hello(v ? static_cast<int>(*v) : -1);
     if (!e) hello_ = true;
-    return answer(e, kVerbHello, {kv("version", line::kProtocolVersion), kCapsField});
+    return answer(e, kVerbHello, {kv("version", line::kProtocolVersion), "caps=" + sim_.info().capabilities});
   }
   if (!hello_) return reply_err(req, ErrorCode::wrong_state, "send HELLO first", out);
   if (m.type == kVerbBeat) return reply_ok(req, kVerbBeat, {}, out);
@@ -159,7 +158,7 @@ void LineFrontEnd::on_line(std::string_view text, double wall_s, std::vector<std
         req, kVerbIdent,
         {kv("name", i.name), kv("version", i.protocol_version), kv("roller_diameter_m", i.roller_diameter_m),
          kv("base_inertia_kg", i.base_inertia_kg), kv("max_speed_kmh", i.max_speed_kmh),
-         kv("max_force_n", i.max_force_n), kv("time_scale", i.time_scale), kCapsField},
+         kv("max_force_n", i.max_force_n), kv("time_scale", i.time_scale)},
         out);
   }
   if (m.type == kVerbStatus) {
@@ -228,6 +227,22 @@ void LineFrontEnd::on_line(std::string_view text, double wall_s, std::vector<std
     return answer(e, kVerbStream, {kv("rate_hz", sim_.stream_hz())});
   }
   if (m.type == kVerbClear) return answer(sim_.clear(), kVerbClear, {});
+  if (m.type == kVerbDriver) {
+    // DRIVER ACCEL <km/h> | DRIVER NEUTRAL | DRIVER OFF (docs/protocol.md, "Driver prompts")
+    std::optional<SimError> e;
+    if (f.size() == 2 && f[0] == kDriverAccel) {
+      const auto v = parse_number(f[1]);
+      if (!v) return reply_err(req, ErrorCode::bad_argument, "DRIVER ACCEL needs a speed in km/h", out);
+      e = sim_.prompt_driver(controller::DriverPrompt::accelerate, *v);
+    } else if (f.size() == 1 && f[0] == kDriverNeutral) {
+      e = sim_.prompt_driver(controller::DriverPrompt::neutral, 0.0);
+    } else if (f.size() == 1 && f[0] == kDriverOff) {
+      e = sim_.prompt_driver(controller::DriverPrompt::off, 0.0);
+    } else {
+      return reply_err(req, ErrorCode::bad_argument, "DRIVER ACCEL <km/h>|NEUTRAL|OFF", out);
+    }
+    return answer(e, kVerbDriver, {});
+  }
   reply_err(req, ErrorCode::unknown_verb, "unknown verb " + m.type, out);
 }
 

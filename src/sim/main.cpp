@@ -100,6 +100,29 @@ int main(int argc, char** argv) {
                 "the share of the parasitic loss the compensation misses (dyno.parasitic_compensation_error; "
                 "fails 1066.260)")
       ->check(CLI::Range(-1.0, 1.0));
+  // The driver (the truth's [driver] keys; each option overrides its key).
+  bool hide_neutral = false;
+  double driver_power_w = -1, driver_force_n = -1, driver_early = -1, driver_late = -1;
+  long long driver_seed = -1;
+  f->add_flag(
+      "--hide-neutral", hide_neutral,
+      "leave out the vehicle-in-neutral signal (flag 0x20, capability \"neutral\"): the tool must find "
+      "the driver's release in the speed trace");
+  f->add_option("--driver-max-power-w", driver_power_w,
+                "the driver's most tractive power (driver.max_power_w; low: a too slow run-up)")
+      ->check(CLI::Range(500.0, 2000000.0));
+  f->add_option(
+       "--driver-early-release", driver_early,
+       "probability of a shift to neutral below the prompted speed (driver.early_release_probability)")
+      ->check(CLI::Range(0.0, 1.0));
+  f->add_option("--driver-max-force-n", driver_force_n,
+                "the driver's most tractive force (driver.max_tractive_force_n; low: a too slow run-up)")
+      ->check(CLI::Range(50.0, 50000.0));
+  f->add_option("--driver-late-release", driver_late,
+                "probability of a late shift to neutral (driver.late_release_probability)")
+      ->check(CLI::Range(0.0, 1.0));
+  f->add_option("--driver-seed", driver_seed, "the driver model's seed (driver.seed)")
+      ->check(CLI::Range(0LL, 2147483647LL));
   CLI11_PARSE(app, argc, argv);
   physics::Truth truth;
   try {
@@ -116,6 +139,12 @@ int main(int argc, char** argv) {
   if (loop_damping > 0.0) truth.dyno.force_loop_damping = loop_damping;
   if (friction_error >= -1.0) truth.dyno.parasitic_compensation_error = friction_error;
   if (empty) truth.vehicle_on_rollers = false;
+  if (driver_power_w > 0) truth.driver.max_power_w = driver_power_w;
+  if (driver_force_n > 0) truth.driver.max_tractive_force_n = driver_force_n;
+  if (driver_early >= 0) truth.driver.early_release_probability = driver_early;
+  if (driver_late >= 0) truth.driver.late_release_probability = driver_late;
+  if (driver_seed >= 0) truth.driver.seed = static_cast<std::uint64_t>(driver_seed);
+  s.hide_neutral = hide_neutral;
   s.watchdog_s = watchdog_ms / 1000.0;
   s.time_scale = srv.time_scale;
   if (drop_at >= 0) s.faults.drop_at_s = drop_at;

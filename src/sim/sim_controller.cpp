@@ -80,6 +80,9 @@ std::uint32_t SimController::flags() const {
   if (fault_ == FaultKind::watchdog) f |= controller::kFlagWatchdog;
   if (model_.mode() == Mode::speed_hold && std::abs(model_.speed_kmh() - model_.hold_target_kmh()) < 0.1)
     f |= controller::kFlagAtSetpoint;
+  if (!settings_.hide_neutral && model_.driver_prompt() != controller::DriverPrompt::off &&
+      model_.in_neutral())
+    f |= controller::kFlagNeutral;
   return f;
 }
 
@@ -94,6 +97,7 @@ controller::ControllerInfo SimController::info() const {
   i.name = settings_.name;
   i.protocol_version = kProtocolVersion;
   i.capabilities = kCapabilities;
+  if (!settings_.hide_neutral) i.capabilities += ",neutral";
   i.roller_diameter_m = settings_.faults.report_roller_diameter_m.value_or(d.roller_diameter_m);
   i.base_inertia_kg = settings_.faults.report_base_inertia_kg.value_or(model_.stated_base_inertia_kg());
   i.max_speed_kmh = settings_.max_speed_kmh;
@@ -171,6 +175,18 @@ std::optional<SimError> SimController::stream(double rate_hz) {
   return std::nullopt;
 }
 
+std::optional<SimError> SimController::prompt_driver(controller::DriverPrompt p, double speed_kmh) {
+  if (p == controller::DriverPrompt::accelerate) {
+    if (!(speed_kmh > 0.0) || speed_kmh > settings_.max_speed_kmh)
+      return SimError{Cause::out_of_limits, "DRIVER ACCEL needs a speed above 0 and within the speed limit"};
+    if (fault_)
+      return SimError{Cause::fault_active,
+                      std::string("fault ") + to_string(*fault_) + " latched: CLEAR first"};
+  }
+  model_.prompt_driver(p, speed_kmh);
+  return std::nullopt;
+}
+
 std::optional<SimError> SimController::clear() {
   if (model_.speed_kmh() > 0.5) return SimError{Cause::wrong_state, "rollers still turning"};
   fault_.reset();
@@ -191,6 +207,7 @@ controller::StatusReport SimController::status() const {
 
 void SimController::latch_fault(FaultKind kind, std::string detail, std::vector<FaultEvent>& events) {
   fault_ = kind;
+  model_.prompt_driver(controller::DriverPrompt::off);  // the display says stop: the driver lets go
   if (model_.speed_kmh() > 0.0)
     model_.controlled_stop();
   else

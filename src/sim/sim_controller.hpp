@@ -40,6 +40,9 @@ struct SimSettings {
   double watchdog_s = 1.0;  // wall seconds without a request while motoring or simulating → controlled stop
   double time_scale = 1.0;  // simulated seconds per wall second, stated in IDENT (time_scale=) so the tool
                             // can check the clock
+  // The vehicle-in-neutral signal (controller::kFlagNeutral) and its capability word are left out: the tool
+  // must find the driver's release from the speed trace.
+  bool hide_neutral = false;
   FaultPlan faults;
 };
 
@@ -104,8 +107,9 @@ class SimController {
 
   // The capability words of info().capabilities (the controller interface's spelling, which the line protocol
   // uses: docs/protocol.md section 2).
+  // info().capabilities adds "neutral" unless SimSettings::hide_neutral.
   static constexpr const char* kCapabilities =
-      "hold,hold-force,roadload,stop,stream,watchdog,status,force,free";
+      "hold,hold-force,roadload,stop,stream,watchdog,status,force,free,driver";
   // The version of the controller interface this simulator states in info() (the line protocol's version:
   // its front end checks that they agree).
   static constexpr int kProtocolVersion = 1;
@@ -118,6 +122,8 @@ class SimController {
   std::optional<SimError> set_coefficients(const core::RoadLoad& c);
   std::optional<SimError> command(const Command& c);
   std::optional<SimError> stream(double rate_hz);
+  // The driver display: accelerate to speed_kmh (0 to the controller's speed limit), neutral, or off.
+  std::optional<SimError> prompt_driver(controller::DriverPrompt p, double speed_kmh);
   std::optional<SimError> clear();
   // The speed in it is the encoder's reading, with its noise (at rest too: never an exact zero by design).
   controller::StatusReport status() const;

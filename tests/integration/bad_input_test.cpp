@@ -89,6 +89,18 @@ const Row kRows[] = {
      "axles = \"single-axle\"",
      "axles = \"three-axle\"",
      {"dyno.axles (line", "is \"three-axle\", allowed \"single-axle\", \"two-axle\""}},
+    // Who accelerates the vehicle is required, never defaulted (GTR 15 Annex 4 §8.1.3.4 decides the method by
+    // it).
+    {"run_up_missing",
+     "cell",
+     "run_up = \"vehicle\"",
+     "",
+     {"dyno.run_up", "is missing, allowed \"dyno\", \"vehicle\""}},
+    {"run_up_bad_choice",
+     "cell",
+     "run_up = \"vehicle\"",
+     "run_up = \"robot\"",
+     {"dyno.run_up (line", "is \"robot\", allowed \"dyno\", \"vehicle\""}},
     {"empty_file", "profile", "", "", {"error: the file is empty"}},
     {"truncated_file", "target", "[target]", "[tar", {"not valid TOML"}},
     {"binary_garbage", "cell", "", kGarbage, {"the file holds binary data, not TOML text"}},

@@ -114,7 +114,7 @@ TEST(Framed, FullSessionEndsAccepted) {
   const Ran r =
       tool({"run", "--override-checks", "integration test against the simulator", "--cell", cell, "--port",
             std::to_string(sim.port()), "--target", kSrc + "/samples/targets/demo-hatchback.toml",
-            "--profile", kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir,
+            "--profile", kSrc + "/tests/data/wltp-fixed-run-short-warmup.toml", "--sessions", dir,
             "--unattended", "--quiet", "--rewarm-s", "60"});
   EXPECT_EQ(r.rc, 0) << r.out << r.err;
   std::string folder;

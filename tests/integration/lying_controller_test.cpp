@@ -835,7 +835,7 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
             "--target",
             kSrc + "/samples/targets/demo-hatchback.toml",
             "--profile",
-            kSrc + "/tests/data/wltp-iterative-short-warmup.toml",
+            kSrc + "/tests/data/wltp-fixed-run-short-warmup.toml",
             "--sessions",
             dir,
             "--unattended",

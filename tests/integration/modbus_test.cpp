@@ -594,7 +594,7 @@ TEST(Modbus, FullSessionOverModbusTcp) {
       run_command({LOADTRIM_EXE, "run", "--override-checks", "integration test against the simulator",
                    "--cell", dir + "/cell.toml", "--port", std::to_string(sim.port()), "--target",
                    kSrc + "/samples/targets/demo-hatchback.toml", "--profile",
-                   kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir, "--unattended",
+                   kSrc + "/tests/data/wltp-fixed-run-short-warmup.toml", "--sessions", dir, "--unattended",
                    "--quiet", "--rewarm-s", "60"},
                   &out, &err);
   EXPECT_EQ(rc, 0) << out << err;

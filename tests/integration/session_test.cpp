@@ -43,7 +43,8 @@ void write(const std::string& path, const std::string& text) {
   std::ofstream(path) << text;
 }
 
-std::string cell_text(unsigned port, const std::string& axles, double rate_hz, int reconnect_delay_ms = 500) {
+std::string cell_text(unsigned port, const std::string& axles, double rate_hz, int reconnect_delay_ms = 500,
+                      const std::string& run_up = "vehicle") {
   return "name = \"test cell (invented)\"\n[controller]\nadapter = \"line-tcp\"\nhost = \"127.0.0.1\"\nport "
          "= " +
          std::to_string(port) + "\nsample_rate_hz = " + std::to_string(rate_hz) +
@@ -54,7 +55,7 @@ std::string cell_text(unsigned port, const std::string& axles, double rate_hz, i
          std::to_string(reconnect_delay_ms) +
          "\n[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 7200.0\n"
          "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"" +
-         axles + "\"\n";
+         axles + "\"\nrun_up = \"" + run_up + "\"\n";
 }
 
 std::vector<nlohmann::json> records(const std::string& folder) {
@@ -150,6 +151,132 @@ INSTANTIATE_TEST_SUITE_P(EpaVehicles, FleetOverTcp,
                              if (ch == '-') ch = '_';
                            return n;
                          });
+
+// --- Who accelerates the vehicle (docs/session.md "Who accelerates the vehicle: the run-up") ---
+
+namespace {
+struct VehicleRun {
+  int rc = -1;
+  std::string out, err;
+  std::vector<nlohmann::json> rs;
+};
+// One `run` of the demo vehicle with the short-warm-up iterative profile against a simulator started with
+// `sim_args` (at 1000x, 20 Hz samples: a few seconds of wall time).
+VehicleRun vehicle_session(std::vector<std::string> sim_args, const std::string& name) {
+  sim_args.insert(sim_args.end(), {"--time-scale", "1000"});
+  SimProcess sim(sim_args);
+  const std::string dir = temp_dir(name);
+  write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 20.0));
+  VehicleRun v;
+  v.rc = run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+                      dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
+                      "--profile", kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir,
+                      "--unattended", "--quiet", "--first-setting", "standard"},
+                     &v.out, &v.err);
+  for (const auto& e : fs::directory_iterator(dir))
+    if (e.is_directory() && e.path().filename() != "history") v.rs = records(e.path().string());
+  fs::remove_all(dir);
+  return v;
+}
+std::vector<nlohmann::json> of_type(const std::vector<nlohmann::json>& rs, const std::string& type) {
+  std::vector<nlohmann::json> out;
+  for (const auto& r : rs)
+    if (r.value("type", "") == type) out.push_back(r);
+  return out;
+}
+}  // namespace
+
+TEST(SessionCli, IterativeOnADynoMotoredCellIsRefused) {
+  // GTR 15 Annex 4 §8.1.3.4 (text): when the dyno accelerates the vehicle only the fixed-run method may be
+  // used. Refused before anything connects (nothing listens on the port): exit 2, naming the key and the
+  // fixed-run method.
+  const std::string dir = temp_dir("dyno-runup");
+  write(dir + "/cell.toml", cell_text(1, "single-axle", 20.0, 500, "dyno"));
+  std::string out, err;
+  const int rc = run_command(
+      {kExe, "run", "--override-checks", "integration test", "--cell", dir + "/cell.toml", "--target",
+       kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended", "--quiet"},
+      &out, &err);
+  EXPECT_EQ(rc, 2) << out << err;
+  EXPECT_NE(err.find("dyno.run_up"), std::string::npos) << err;
+  EXPECT_NE(err.find("fixed-run"), std::string::npos) << err;
+  fs::remove_all(dir);
+}
+
+TEST(SessionCli, VehicleRunUpReachesAcceptanceForSeveralDriverSeeds) {
+  for (const char* seed : {"3", "17", "42"}) {
+    const VehicleRun v = vehicle_session({"--driver-seed", seed}, std::string("driver-") + seed);
+    EXPECT_EQ(v.rc, 0) << "seed " << seed << "\n" << v.out << v.err;
+    const auto prompts = of_type(v.rs, "driver_prompt");
+    const auto checks = of_type(v.rs, "run_up_checked");
+    // Two consecutive passes at least (GTR 15 §8.1.3.4.2): each run prompted to accelerate and to shift to
+    // neutral, the release found by the controller's neutral signal, above the start speed.
+    ASSERT_GE(checks.size(), 2u) << "seed " << seed;
+    int accelerate = 0, neutral = 0;
+    for (const auto& p : prompts) {
+      accelerate += p.value("prompt", "") == "accelerate";
+      neutral += p.value("prompt", "") == "neutral";
+    }
+    EXPECT_EQ(accelerate, static_cast<int>(checks.size()));
+    EXPECT_EQ(neutral, static_cast<int>(checks.size()));
+    for (const auto& c : checks) {
+      EXPECT_EQ(c.value("ending", ""), "coasted") << c.dump();
+      EXPECT_EQ(c.value("detected_by", ""), "neutral signal");
+      EXPECT_GE(c.value("release_speed_kmh", 0.0), c.value("start_speed_kmh", 1e9) - 0.5) << c.dump();
+      // The demo truth's driver has the default 60 kW (an assumption): well above 6 m²/s³ (GTR 15 Annex 4
+      // §8.1.3.4).
+      EXPECT_TRUE(c.value("meets", false)) << c.dump();
+    }
+    EXPECT_EQ(of_type(v.rs, "run_up").at(0).value("run_up", ""), "vehicle");
+  }
+}
+
+TEST(SessionCli, VehicleRunUpReleaseFoundFromTheTraceWhenTheNeutralSignalIsHidden) {
+  const VehicleRun v = vehicle_session({"--hide-neutral"}, "hidden-neutral");
+  EXPECT_EQ(v.rc, 0) << v.out << v.err;
+  const auto checks = of_type(v.rs, "run_up_checked");
+  ASSERT_GE(checks.size(), 2u);
+  for (const auto& c : checks) {
+    EXPECT_EQ(c.value("ending", ""), "coasted") << c.dump();
+    EXPECT_EQ(c.value("detected_by", ""), "speed trace");
+    // The release placed at the held speed: the driver holds 0.5-1.5 km/h above the start speed
+    // (an assumption of the simulated driver); within the trace detector's band of it.
+    EXPECT_GE(c.value("release_speed_kmh", 0.0), c.value("start_speed_kmh", 1e9) - 0.5) << c.dump();
+  }
+}
+
+TEST(SessionCli, VehicleRunUpTooSlowIsNamed) {
+  // 1000 N and 40 kW at most against about the demo hatchback's road load (142 N + 0.35·v + 0.033·v², plus
+  // a few per cent): the mean a·v from 12 to 142 km/h is about 5.7 m²/s³ in about 135 s (a 10 ms Euler
+  // integration of m·dv/dt = min(F, P/v) − F_rl(v), m = 1530 kg, done beside this test), below the 6 m²/s³
+  // of GTR 15 Annex 4 §8.1.3.4 and within the 600 s run-up deadline.
+  const VehicleRun v =
+      vehicle_session({"--driver-max-force-n", "1000", "--driver-max-power-w", "40000"}, "slow-driver");
+  const auto checks = of_type(v.rs, "run_up_checked");
+  ASSERT_GE(checks.size(), 1u) << v.out << v.err;
+  bool named = false;
+  for (const auto& c : checks)
+    if (!c.value("meets", true)) {
+      EXPECT_EQ(c.value("ending", ""), "coasted") << c.dump();
+      EXPECT_LT(c.value("mean_av_m2ps3", 99.0), 6.0) << c.dump();
+      named = named || c.value("why", "").find("too slow run-up") != std::string::npos;
+    }
+  EXPECT_TRUE(named);
+}
+
+TEST(SessionCli, VehicleRunUpEarlyReleaseIsDiscardedAndRepeated) {
+  // Every run-up released 8 km/h below the start speed: each run discarded and repeated until the profile's
+  // limit of unusable runs ends the session, not accepted (exit 1).
+  const VehicleRun v = vehicle_session({"--driver-early-release", "1"}, "early-driver");
+  EXPECT_EQ(v.rc, 1) << v.out << v.err;
+  const auto discarded = of_type(v.rs, "coastdown_discarded");
+  ASSERT_GE(discarded.size(), 2u);
+  for (const auto& d : discarded)
+    EXPECT_NE(d.value("why", "").find("below the start speed"), std::string::npos) << d.dump();
+  EXPECT_EQ(count(v.rs, "coastdown_started"), static_cast<int>(discarded.size()));
+  EXPECT_EQ(count(v.rs, "coastdown"), 0);
+  for (const auto& c : of_type(v.rs, "run_up_checked")) EXPECT_EQ(c.value("ending", ""), "early_release");
+}
 
 TEST(SessionCli, KillNineMidCoastdownThenResume) {
   SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});

@@ -101,7 +101,8 @@ std::string cell_text(unsigned port) {
          "[timeouts]\nconnect_ms = 3000\nreply_ms = 1000\nsample_gap_ms = 1000\nheartbeat_interval_ms = 100\n"
          "[reconnect]\nattempts = 3\ndelay_ms = 500\n"
          "[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 7200.0\n"
-         "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"single-axle\"\n";
+         "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"single-axle\"\nrun_up = "
+         "\"vehicle\"\n";
 }
 
 struct Row {

@@ -175,7 +175,7 @@ class Tamper : public ::testing::Test {
                     "500\n[limits]\nmax_speed_kmh = 160.0\n"
                     "max_force_n = 8000.0\nmax_motoring_s = 7200.0\n[dyno]\nroller_diameter_m = "
                     "1.2192\nbase_inertia_kg = 1250.0\n"
-                    "axles = \"single-axle\"\n[records]\npublic_key = \"" +
+                    "axles = \"single-axle\"\nrun_up = \"vehicle\"\n[records]\npublic_key = \"" +
                     g->cell_fp + "\"\n");
     const int rc = run_command(
         {kExe, "run", "--override-checks", "tamper test against the simulator", "--cell", cell, "--target",

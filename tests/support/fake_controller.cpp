@@ -84,6 +84,9 @@ Result FakeController::do_command(Mode mode, double value, controller::Deadline)
   }
   return from(sim_->command(sim::command_for(mode, value)));
 }
+Result FakeController::do_prompt_driver(controller::DriverPrompt p, double speed_kmh, controller::Deadline) {
+  return from(sim_->prompt_driver(p, speed_kmh));
+}
 Result FakeController::do_stream(double rate_hz, controller::Deadline) {
   return from(sim_->stream(rate_hz));
 }

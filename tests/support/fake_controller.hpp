@@ -65,6 +65,10 @@ class FakeController : public controller::Controller {
   controller::Result do_heartbeat(controller::Deadline) override;
   controller::Result do_status(controller::StatusReport& out, controller::Deadline) override;
   controller::Result do_clear_fault(controller::Deadline) override;
+  // The simulated driver, as the in-process adapters reach it (docs/session.md, the run-up).
+  controller::Result do_prompt_driver(controller::DriverPrompt p, double speed_kmh,
+                                      controller::Deadline) override;
+  std::string driver_prompt_unavailable() const override { return ""; }
   void do_take_events(std::vector<std::string>& out) override;
 
  private:

@@ -196,3 +196,24 @@ TEST(AdapterRegistry, StandstillThresholdComesFromTheCellOrTheStatedSpeedNoise) 
   msg = refusal([&] { config::parse_cell(noisy, "noisy.toml", sections); });
   EXPECT_NE(msg.find("below 3 × dyno.speed_noise_kmh"), std::string::npos) << msg;
 }
+
+// Who accelerates the vehicle (docs/session.md): the shipped cells state it, and an adapter whose
+// configuration rules out a driver display says so before anything connects (a "vehicle" cell on it is
+// refused then).
+TEST(AdapterRegistry, DriverDisplayAvailableOnlyWhereTheDialectCarriesIt) {
+  struct Row {
+    const char* file;
+    core::RunUp run_up;
+    bool driver;
+  };
+  for (const Row& r :
+       {Row{"sim-tcp", core::RunUp::vehicle, true}, Row{"sim-serial", core::RunUp::vehicle, true},
+        Row{"sim-modbus", core::RunUp::dyno, false}, Row{"sim-framed", core::RunUp::dyno, false}}) {
+    const controller::CellConfig c =
+        config::load_cell(kSrc + "/config/cells/" + r.file + ".toml", adapters::production().sections());
+    EXPECT_EQ(c.run_up, r.run_up) << r.file;
+    const auto ctl = adapters::production().make_controller(c);  // constructs; connects to nothing
+    ASSERT_NE(ctl, nullptr);
+    EXPECT_EQ(ctl->driver_unavailable().empty(), r.driver) << r.file << ": " << ctl->driver_unavailable();
+  }
+}

@@ -38,6 +38,7 @@ CellFacts demo_cell() {
   c.axles = AxleLayout::single_axle;
   c.min_inertia_kg = 800.0;
   c.max_inertia_kg = 2700.0;
+  c.run_up = RunUp::vehicle;
   return c;
 }
 
@@ -290,4 +291,34 @@ TEST(Combination, TwoWheelDriveModeKeyIsReadAndWritten) {
   } catch (const config::InputError& e) {
     EXPECT_TRUE(contains(e.what(), "two_wheel_drive_mode")) << e.what();
   }
+}
+
+// GTR 15 Annex 4 §8.1.3.4 (text, as the EU text states it): when the dyno accelerates the vehicle only the
+// fixed-run method may be used; when the vehicle accelerates itself, either (docs/standards.md §3.3).
+TEST(Combination, IterativeRefusedWhenTheDynoAcceleratesTheVehicle) {
+  CellFacts dyno = demo_cell();
+  dyno.run_up = RunUp::dyno;
+  const CombinationProblems c = check_combination(demo(), wltp(), dyno);
+  const Problem* p = find(c.cell, "dyno.run_up");
+  ASSERT_NE(p, nullptr);
+  EXPECT_TRUE(contains(p->message, "fixed-run")) << p->message;
+  EXPECT_TRUE(contains(p->message, "GTR 15 Annex 4 §8.1.3.4")) << p->message;
+  EXPECT_TRUE(c.any_error());
+}
+
+TEST(Combination, FixedRunAllowedWithEitherRunUpAndIterativeWithTheVehicle) {
+  const Profile fixed =
+      config::load_profile(std::string(LOADTRIM_SOURCE_DIR) + "/config/profiles/wltp-fixed-run.toml");
+  ASSERT_EQ(fixed.method, SettingMethod::fixed_run);
+  for (RunUp r : {RunUp::dyno, RunUp::vehicle}) {
+    CellFacts cell = demo_cell();
+    cell.run_up = r;
+    EXPECT_EQ(find(check_combination(demo(), fixed, cell).cell, "dyno.run_up"), nullptr) << to_string(r);
+  }
+  // The iterative method with the vehicle accelerating itself: no run-up problem.
+  EXPECT_EQ(find(check_combination(demo(), wltp(), demo_cell()).cell, "dyno.run_up"), nullptr);
+  // No cell given (target without --cell): not checked.
+  CellFacts unknown = demo_cell();
+  unknown.run_up.reset();
+  EXPECT_EQ(find(check_combination(demo(), wltp(), unknown).cell, "dyno.run_up"), nullptr);
 }
