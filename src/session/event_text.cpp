@@ -270,6 +270,30 @@ std::string event_sentence(const Event& e, const TextContext& ctx) {
                    " km/h (standstill below " + rounded(x.seen->standstill_threshold_kmh, 1) + " km/h)" +
                    (x.seen->note.empty() || x.seen->note == x.how ? "" : "; " + x.seen->note);
           },
+          [&](const ev::RunUpPlan& x) {
+            if (x.run_up == core::RunUp::dyno)
+              return "the dyno accelerates the vehicle for each run-up (" + x.rule + ")";
+            return "the vehicle accelerates itself for each run-up, the driver following the display; "
+                   "release found "
+                   "from the " +
+                   x.release_detection + " (" + x.rule + ")";
+          },
+          [&](const ev::DriverPromptShown& x) {
+            return "coast-down " + std::to_string(x.run) + ": driver display: " + x.text;
+          },
+          [&](const ev::RunUpChecked& x) {
+            std::string t = "coast-down " + std::to_string(x.run) + " run-up ";
+            if (x.ending == "coasted")
+              t += "released at " + rounded(x.release_speed_kmh, 1) + " km/h (peak " +
+                   rounded(x.peak_speed_kmh, 1) + " km/h, found by the " + x.detected_by + ")";
+            else
+              t += "ended without a coast-down (" + x.ending + ")";
+            if (x.figure_ok)
+              t += std::string("; acceleration × speed ") + rounded(x.mean_av_m2ps3, 1) + " m²/s³ " +
+                   (x.meets ? "meets" : "is BELOW") + " the minimum " + rounded(x.min_av_m2ps3, 1) + " m²/s³";
+            if (!x.why.empty()) t += ": " + x.why;
+            return t;
+          },
           [&](const ev::ObserverDropped& x) { return "observer dropped: " + x.why; },
           [&](const ev::ControllerWarning& x) {
             return "controller warning (" + x.code + "): " + x.text +
