@@ -54,17 +54,30 @@ bool lock_cell(const controller::CellConfig& cell, record::LockMode mode, const 
   }
 }
 
+namespace {
+// The folder's name in the lock directory: "folder-" and the first 32 hex digits of its canonical path's
+// hash.
+std::string folder_stem(const std::string& folder, std::string* abs_out = nullptr) {
+  std::error_code ec;
+  const std::string abs = fs::weakly_canonical(folder, ec).string();
+  if (abs_out) *abs_out = ec ? folder : abs;
+  return (fs::path(record::lock_dir()) / ("folder-" + record::sha256_hex(ec ? folder : abs).substr(0, 32)))
+      .string();
+}
+}  // namespace
+
+std::string folder_request_path(const std::string& folder) {
+  return folder_stem(folder) + ".request";
+}
+
 bool lock_folder(const std::string& folder, const std::string& command, std::optional<record::FileLock>& held,
                  std::string& message) {
   held.reset();
   message.clear();
-  std::error_code ec;
-  const std::string abs = fs::weakly_canonical(folder, ec).string();
   try {
-    const std::string path = (fs::path(record::lock_dir()) /
-                              ("folder-" + record::sha256_hex(ec ? folder : abs).substr(0, 32) + ".lock"))
-                                 .string();
-    return take(path, record::LockMode::exclusive, me(command, ec ? folder : abs), "folder", held, message);
+    std::string abs;
+    const std::string path = folder_stem(folder, &abs) + ".lock";
+    return take(path, record::LockMode::exclusive, me(command, abs), "folder", held, message);
   } catch (const std::exception& e) {
     message = std::string("cannot lock the folder: ") + e.what();
     return false;

@@ -25,5 +25,8 @@ bool lock_cell(const controller::CellConfig& cell, record::LockMode mode, const 
 // lock directory, never inside the folder (the folder's files are all evidence).
 bool lock_folder(const std::string& folder, const std::string& command, std::optional<record::FileLock>& held,
                  std::string& message);
+// Where `pause` and `continue` leave a request for the session running in `folder`: beside the folder's lock
+// (<lock dir>/folder-<hash>.request), never inside the folder.
+std::string folder_request_path(const std::string& folder);
 
 }  // namespace loadtrim::app

@@ -4,6 +4,7 @@
 #include <iostream>
 
 #include "app/exit_codes.hpp"
+#include "app/pause_watch.hpp"
 #include "app/session_runner.hpp"
 #include "app/subcommands.hpp"
 #include "record/data_root.hpp"
@@ -26,8 +27,13 @@ void output_options(CLI::App* sub, RunRequest& r) {
   sub->add_option("--port", r.port, "override the cell file's TCP port")->check(CLI::Range(1, 65535));
   sub->add_option("--device", r.device, "override the cell file's serial device");
   sub->add_option("--rewarm-s", r.resume_warm_up_s,
-                  "warm-up after a resume or a lost link (default: the profile's)")
+                  "warm-up after a resume, a lost link or a pause (default: the profile's)")
       ->check(CLI::Range(0.0, 14400.0));
+  sub->add_option(
+         "--max-pause-s", r.max_pause_s,
+         "how long a pause waits for its continue before the session ends as interrupted (resumable)")
+      ->check(CLI::Range(10.0, 86400.0))
+      ->capture_default_str();
   sub->add_option(
       "--data-dir", r.data_dir,
       "the lab's data root: sessions, checks, histories, keys (default: $LOADTRIM_DATA_DIR, else data_dir in "
@@ -65,6 +71,26 @@ void register_session_commands(CLI::App& app, Runner& run) {
   res->add_option("folder", *folder, "the session folder")->required();
   output_options(res, *rreq);
   res->callback([rreq, folder, &run] { run = [rreq, folder] { return resume_session(*folder, *rreq); }; });
+
+  // Pause and continue a running session from another terminal (pause_watch.hpp).
+  for (const char* action : {"pause", "continue"}) {
+    struct Req {
+      std::string folder, by, why;
+    };
+    auto pr = std::make_shared<Req>();
+    const bool pause = std::string(action) == "pause";
+    auto* ps =
+        app.add_subcommand(action, pause ? "pause the session running in a folder: a controlled stop to "
+                                           "standstill, then it waits for `continue`"
+                                         : "continue a paused session: it re-warms and goes on");
+    ps->add_option("folder", pr->folder, "the running session's folder")->required();
+    ps->add_option("--by", pr->by, "who asks, for the record")->required();
+    auto* why = ps->add_option("--why", pr->why, pause ? "why, for the record" : "a note for the record");
+    if (pause) why->required();
+    ps->callback([pr, &run, a = std::string(action)] {
+      run = [pr, a] { return send_pause_request(pr->folder, a, pr->by, pr->why); };
+    });
+  }
 
   auto rfolder = std::make_shared<std::string>();
   auto pdf = std::make_shared<bool>(false);

@@ -13,6 +13,7 @@
 
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
+#include "app/pause_watch.hpp"
 #include "app/subcommands.hpp"
 #include "checks/cell_history.hpp"
 #include "checks/check_runner.hpp"
@@ -251,6 +252,10 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   }
   opt.sample_rate_hz = inputs.cell.sample_rate_hz;
   opt.resume_warm_up_s = req.resume_warm_up_s;
+  // Pause and continue from the console, a signal, or `loadtrim pause` in another terminal (pause_watch.hpp).
+  session::PauseControl pause_control;
+  opt.pause = &pause_control;
+  opt.max_pause_s = req.max_pause_s;
   opt.operator_note = req.note;
   opt.fleet =
       load_fleet(req.fleet_csv.empty() ? data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv"
@@ -314,7 +319,16 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   observers.push_back(&connect_seen);
   const controller::CellConfig cell = inputs.cell;
   session::Session s(std::move(inputs), opt, *c, observers, &g_stop);
-  session::Summary sum = s.run(resume);
+  session::Summary sum;
+  {
+    const bool console_lines = req.console == session::Console::Mode::normal && ::isatty(STDIN_FILENO) != 0;
+    const PauseWatch watch(pause_control, folder, lab.who.value("name", std::string("the operator")),
+                           console_lines);
+    if (console_lines)
+      std::printf(
+          "  (type \"pause <reason>\" and Enter to stop the rollers and wait; \"continue\" to go on)\n");
+    sum = s.run(resume);
+  }
   c->disconnect();
   // Nothing more goes into the folder: a final result is sealed (the report, a derived file, may follow).
   writer.close();
@@ -551,6 +565,7 @@ void install_stop_handlers() {
   ::sigaction(SIGHUP, &sa, nullptr);
   ::sigaction(SIGQUIT, &sa, nullptr);
   ::signal(SIGPIPE, SIG_IGN);
+  install_pause_handlers();
 }
 
 void check_inputs(const RunRequest& req) {

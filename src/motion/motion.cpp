@@ -92,6 +92,8 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
     }
     if (step.stoppable && stop_requested())
       return Result::fail("interrupted by the operator during " + step.what, kInterrupted);
+    if (step.stoppable && pause_ && pause_->load())
+      return Result::fail("paused by the operator during " + step.what, kPaused);
     if (Clock::now() >= wall_end)
       return Result::fail(step.what + " did not complete within " + num(seconds(wall_end - began), 1) +
                               " s of wall time (the controller's clock advanced " +
@@ -176,6 +178,11 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
   enum class Phase : std::uint8_t { accelerating, awaiting_release, coasting };
   Phase phase = Phase::accelerating;
   bool in_gear_seen = false;
+  // The release budget runs from the first sample read after the "neutral" prompt was acknowledged: samples
+  // already buffered when it was sent are older than the prompt (a tool behind a fast stream would otherwise
+  // count its own lag against the driver).
+  std::uint64_t neutral_epoch = 0;
+  bool neutral_acknowledged = false;
   Result prompt_failed = Result::success();
   core::ReleaseDetector detector;
   std::vector<Sample> seen;  // every sample of the run-up (the detector's indices point into it)
@@ -220,6 +227,7 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
           return true;
         }
         out.neutral_prompt_s = s.time_s;
+        neutral_epoch = c_.epoch();
         if (on_prompt) on_prompt(DriverPrompt::neutral, plan.start_kmh);
         return false;
       }
@@ -233,13 +241,17 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
       return false;
     }
     // awaiting_release
+    if (!neutral_acknowledged && s.epoch >= neutral_epoch) {
+      neutral_acknowledged = true;
+      out.neutral_prompt_s = std::max(out.neutral_prompt_s, s.time_s);
+    }
     if (release) {
       released(at);
       phase = Phase::coasting;
       if (on_release) on_release();
       return !out.coast.empty() && out.coast.back().speed_kmh < plan.end_kmh;
     }
-    if (s.time_s - out.neutral_prompt_s > plan.release_budget_s) {
+    if (neutral_acknowledged && s.time_s - out.neutral_prompt_s > plan.release_budget_s) {
       out.ending = Ending::no_release;
       out.why = "no release to neutral was seen within " + num(plan.release_budget_s) +
                 " s of the prompt to shift to neutral (found from the " + out.detected_by + ")";
@@ -319,6 +331,30 @@ Result Motion::settle_by_status(double budget_s, controller::StatusReport& st) {
                           kWallDeadline);
     if (Result r = c_.heartbeat_if_due(); !r.ok()) return r;
     std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  }
+}
+
+Result Motion::wait_at_rest(const std::function<bool()>& resume, std::chrono::steady_clock::duration max_wall,
+                            const std::string& what, std::chrono::milliseconds poll) {
+  const DrainAtEnd drain{*this};
+  const auto began = Clock::now();
+  for (;;) {
+    drain_warnings_if_due();
+    controller::StatusReport st;
+    if (Result r = c_.status(st); !r.ok()) {
+      r.message += " (during " + what + ")";
+      return r;
+    }
+    if (!at_rest(st.speed_kmh, st.mode) || !st.fault.empty())
+      return Result::fail("the rollers are not at rest during " + what + " (status: " + num(st.speed_kmh, 1) +
+                          " km/h, " + controller::to_string(st.mode) +
+                          (st.fault.empty() ? std::string() : ", fault " + st.fault) + ")");
+    if (stop_requested()) return Result::fail("interrupted by the operator during " + what, kInterrupted);
+    if (resume()) return Result::success();
+    if (Clock::now() - began >= max_wall)
+      return Result::fail(what + " lasted longer than " + num(seconds(max_wall), 0) + " s", kWallDeadline);
+    if (Result r = c_.heartbeat_if_due(); !r.ok()) return r;
+    std::this_thread::sleep_for(poll);
   }
 }
 

@@ -51,6 +51,7 @@ inline constexpr int kInterrupted = -2;
 inline constexpr double kDefaultStepBudgetS = 600.0;
 inline constexpr int kTooSlow = -3;       // the step's controller-time budget ran out before its condition
 inline constexpr int kWallDeadline = -4;  // the step's deadline on the tool's own clock passed
+inline constexpr int kPaused = -5;        // the operator asked for a pause (Motion::set_pause_flag)
 
 struct Rules {
   double speed_limit_kmh = 0.0;  // > 0: a sample above this plus the margin ends the step
@@ -143,6 +144,15 @@ class Motion {
   // Without a stream: poll the status until the rollers stand still (commanding a stop while the controller
   // still motors or simulates), every poll bounded; `last` gets the final status.
   Result settle_by_status(double budget_s, controller::StatusReport& last);
+  // A pause at standstill (no stream): polls the status every poll of wall time, keeping the link's
+  // heartbeat, until resume() says go on (success). Ends early when the rollers are found moving or not at
+  // rest (failure naming it), on a controller error, on the operator's stop flag (kInterrupted), or when
+  // max_wall of the tool's own time has passed (kWallDeadline).
+  Result wait_at_rest(const std::function<bool()>& resume, std::chrono::steady_clock::duration max_wall,
+                      const std::string& what,
+                      std::chrono::milliseconds poll = std::chrono::milliseconds(200));
+  // While *pause is true, every stoppable step ends with kPaused (the session stops the rollers and waits).
+  void set_pause_flag(const std::atomic<bool>* pause) { pause_ = pause; }
   // The wall deadline a step of this controller budget gets.
   std::chrono::steady_clock::duration wall_budget(double budget_s) const;
   bool standstill(double speed_kmh) const { return speed_kmh <= rules_.standstill_kmh; }
@@ -159,6 +169,7 @@ class Motion {
   controller::Controller& c_;
   Rules rules_;
   const std::atomic<bool>* stop_;
+  const std::atomic<bool>* pause_ = nullptr;
   double last_time_s_ = 0.0;
   bool have_time_ = false;
   std::chrono::steady_clock::time_point last_status_{};

@@ -33,6 +33,8 @@ const char* state_words(State s) {
       return "coasting down";
     case State::analyse:
       return "analysing";
+    case State::paused:
+      return "paused";
     case State::safe_stop:
       return "stopping";
     case State::finished:
@@ -245,6 +247,17 @@ std::string event_sentence(const Event& e, const TextContext& ctx) {
                    (x.code != 0 ? " (code " + std::to_string(x.code) + ")" : std::string());
           },
           [&](const ev::Interrupted& x) { return "interrupted during " + x.during + ": stopping safely"; },
+          [&](const ev::Paused& x) {
+            return "PAUSED during " + x.during + " by " + x.by + " (" + x.source + ")" +
+                   (x.why.empty() ? std::string() : ": " + x.why) + "; " +
+                   (x.rollers_stopped ? "rollers stopped" : "rollers NOT confirmed stopped") +
+                   "; waiting for continue (at most " + minutes_seconds(x.max_pause_s) + ")";
+          },
+          [&](const ev::Continued& x) {
+            return "continued by " + x.by + " (" + x.source + ")" +
+                   (x.why.empty() ? std::string() : ": " + x.why) + " after " + minutes_seconds(x.paused_s) +
+                   " paused; re-warming for " + minutes_seconds(x.rewarm_s) + ", the pass count starts again";
+          },
           [&](const ev::Resumed& x) {
             const std::string done = std::to_string(x.completed_coastdowns) + " coast-down(s) recorded";
             if (const auto* c = std::get_if<ev::Resumed::Continued>(&x.how))

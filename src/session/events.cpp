@@ -28,6 +28,8 @@ const char* to_string(State s) {
       return "coast_down";
     case State::analyse:
       return "analyse";
+    case State::paused:
+      return "paused";
     case State::safe_stop:
       return "safe_stop";
     case State::finished:
@@ -311,6 +313,20 @@ struct Mapper {
             {"code", e.code}};
   }
   nlohmann::json operator()(const ev::Interrupted& e) const { return {{"during", e.during}}; }
+  nlohmann::json operator()(const ev::Paused& e) const {
+    return {{"run", e.run},
+            {"during", e.during},
+            {"by", e.by},
+            {"why", e.why},
+            {"source", e.source},
+            {"rollers_stopped", e.rollers_stopped},
+            {"max_pause_s", e.max_pause_s}};
+  }
+  nlohmann::json operator()(const ev::Continued& e) const {
+    return {{"run", e.run},           {"by", e.by},
+            {"why", e.why},           {"source", e.source},
+            {"paused_s", e.paused_s}, {"rewarm_s", e.rewarm_s}};
+  }
   nlohmann::json operator()(const ev::Resumed& e) const {
     nlohmann::json j = {{"completed_coastdowns", e.completed_coastdowns}, {"note", e.note}};
     if (const auto* c = std::get_if<ev::Resumed::Continued>(&e.how)) {
@@ -577,6 +593,8 @@ struct Typer {
   const char* operator()(const ev::LinkRestored&) const { return "link_restored"; }
   const char* operator()(const ev::Fault&) const { return "fault"; }
   const char* operator()(const ev::Interrupted&) const { return "interrupted"; }
+  const char* operator()(const ev::Paused&) const { return "paused"; }
+  const char* operator()(const ev::Continued&) const { return "continued"; }
   const char* operator()(const ev::Resumed&) const { return "resumed"; }
   const char* operator()(const ev::SafeStopReconnect&) const { return "safe_stop_reconnect"; }
   const char* operator()(const ev::SafeStop&) const { return "safe_stop"; }

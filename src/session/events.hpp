@@ -43,6 +43,7 @@ enum class State : std::uint8_t {
   run_up,
   coast_down,
   analyse,
+  paused,
   safe_stop,
   finished
 };
@@ -318,6 +319,21 @@ struct Fault {  // "fault"
 struct Interrupted {  // "interrupted"
   std::string during;
 };
+// "paused": the operator asked for a pause; the rollers were stopped (a run in progress was discarded first).
+struct Paused {
+  int run = 0;         // the run in progress or next
+  std::string during;  // the step the pause ended ("warm-up", "coast-down", ...)
+  std::string by, why, source;
+  bool rollers_stopped = false;  // standstill confirmed before the wait
+  double max_pause_s = 0.0;      // the wait's limit on the tool's own clock
+};
+// "continued": the operator asked to go on; the session re-warms (the pass count was reset) and goes on.
+struct Continued {
+  int run = 0;
+  std::string by, why, source;
+  double paused_s = 0.0;  // the tool's own clock, from the standstill to the continue
+  double rewarm_s = 0.0;  // the re-warm that follows
+};
 // "resumed": a session continuing from its log (continued), or a recorded verdict finalised without
 // motoring (finalised); the note says which.
 struct Resumed {
@@ -439,19 +455,18 @@ struct CheckFinished {  // "check_finished"
 
 }  // namespace ev
 
-using Payload =
-    std::variant<ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
-                 ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted,
-                 ev::WarmUpHeld, ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint,
-                 ev::WarmUpEnded, ev::FirstSetting, ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted,
-                 ev::ReleaseTiming, ev::RunUpPlan, ev::DriverPromptShown, ev::RunUpChecked, ev::PassesReset,
-                 ev::WarmUpDrift, ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging,
-                 ev::LinkLost, ev::Reconnect, ev::NotSettled, ev::FaultCleared, ev::LinkRestored, ev::Fault,
-                 ev::Interrupted, ev::Resumed, ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped,
-                 ev::Finished, ev::CheckStarted, ev::CheckIdentified, ev::FreeCoastStarted,
-                 ev::CheckCoastStarted, ev::ForceApplied, ev::RateRunStarted, ev::ParasiticAnalysed,
-                 ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::FrictionAnalysed,
-                 ev::AccelDecelAnalysed, ev::ResponseAnalysed, ev::CheckFinished, ev::ControllerWarning>;
+using Payload = std::variant<
+    ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
+    ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted, ev::WarmUpHeld,
+    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::WarmUpEnded, ev::FirstSetting,
+    ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted, ev::ReleaseTiming, ev::RunUpPlan,
+    ev::DriverPromptShown, ev::RunUpChecked, ev::PassesReset, ev::WarmUpDrift, ev::ConsecutiveTiming,
+    ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect, ev::NotSettled,
+    ev::FaultCleared, ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Paused, ev::Continued, ev::Resumed,
+    ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted,
+    ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied, ev::RateRunStarted,
+    ev::ParasiticAnalysed, ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::FrictionAnalysed,
+    ev::AccelDecelAnalysed, ev::ResponseAnalysed, ev::CheckFinished, ev::ControllerWarning>;
 
 // The record type an event is written as (the "type" member of its line).
 const char* type_of(const Payload& p);

@@ -1,6 +1,7 @@
 #include "session/session.hpp"
 
 #include <algorithm>
+#include <chrono>
 #include <cmath>
 #include <future>
 #include <thread>
@@ -42,6 +43,7 @@ Session::Session(Inputs inputs, Options options, controller::Controller& control
   motion::Rules rules;
   rules.standstill_kmh = in_.cell.standstill_kmh;
   motion_.set_rules(rules);
+  if (opt_.pause) motion_.set_pause_flag(&opt_.pause->flag());
   motion_.on_sample = [this](const controller::Sample& s) { on_sample(s); };
   // The controller's warnings (undefined status bits, retried exceptions, late replies, ...) into the log, as
   // motion hands them on during and at the end of every step.
@@ -302,6 +304,15 @@ std::optional<Session::Stop> Session::do_set_inertia() {
 std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure_loss_map) {
   transition(State::warm_up, measure_loss_map ? "warm-up, then the loss map" : "warm-up");
   const auto& w = in_.profile.warm_up;
+  // A pause in the warm-up or the loss map: after the continue, the whole warm-up (and map) again.
+  const double asked_s = duration_s;
+  auto fault = [&](const Result& r, const std::string& during) -> std::optional<Stop> {
+    if (r.code == motion::kPaused) {
+      if (auto s = do_pause(during, false, asked_s)) return s;
+      return do_warm_up(asked_s, measure_loss_map);
+    }
+    return Session::fault(r, during);
+  };
   if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
   t_motoring_from_ = t_now_;
   if (drift_t0_ < 0.0) drift_t0_ = t_now_;
@@ -380,6 +391,58 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   return std::nullopt;
 }
 
+double Session::rewarm_s() const {
+  return opt_.resume_warm_up_s >= 0.0 ? opt_.resume_warm_up_s : in_.profile.warm_up.duration_s;
+}
+
+std::optional<Session::Stop> Session::do_pause(const std::string& during, bool run_in_progress,
+                                               double rewarm_s) {
+  const PauseRequest asked = (opt_.pause ? opt_.pause->pause_request() : std::nullopt)
+                                 .value_or(PauseRequest{"unknown", "", "unknown"});
+  transition(State::paused, "asked by " + asked.by + " during " + during);
+  if (run_in_progress) {
+    ++discarded_;
+    emit(ev::CoastdownDiscarded{run_, "paused by the operator during " + during, std::nullopt,
+                                "repeated after the pause and a re-warm"});
+  }
+  reset_passes(run_, "paused by the operator during " + during);
+  // The driver display says nothing while the rollers stop (a vehicle run-up may have asked for throttle).
+  if (in_.cell.run_up == core::RunUp::vehicle && motion_commanded_) {
+    (void)c_.prompt_driver(controller::DriverPrompt::off);
+    emit(ev::DriverPromptShown{run_, controller::DriverPrompt::off, 0.0, "prompt cleared: paused"});
+  }
+  bool stopped = false;
+  if (Result r = motion_.stop_and_wait(opt_.stop_budget_s, stopped); !r.ok())
+    return fault(r, "the pause's stop");
+  rollers_stopped_ = stopped;
+  // At rest the samples stop; the wait polls the status and keeps the heartbeat.
+  if (Result r = c_.stop_stream(); !r.ok()) return fault(r, "the pause");
+  if (!emit(ev::Paused{run_, during, asked.by, asked.why, asked.source, stopped, opt_.max_pause_s}))
+    return Stop{Outcome::record_failure, record_error_};
+  const auto began = std::chrono::steady_clock::now();
+  std::optional<PauseRequest> go_on;
+  const Result w = motion_.wait_at_rest(
+      [&] {
+        go_on = opt_.pause ? opt_.pause->take_continue() : std::nullopt;
+        return go_on.has_value();
+      },
+      std::chrono::duration_cast<std::chrono::steady_clock::duration>(
+          std::chrono::duration<double>(opt_.max_pause_s)),
+      "the pause");
+  if (w.code == motion::kWallDeadline) {
+    emit(ev::Interrupted{"the pause"});
+    return Stop{Outcome::interrupted,
+                "paused longer than " + num(opt_.max_pause_s) +
+                    " s without a continue; the folder can be resumed (loadtrim resume)"};
+  }
+  if (!w.ok()) return fault(w, "the pause");
+  const double paused_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - began).count();
+  if (!emit(ev::Continued{run_, go_on->by, go_on->why, go_on->source, paused_s, rewarm_s}))
+    return Stop{Outcome::record_failure, record_error_};
+  if (Result r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "the continue");
+  return std::nullopt;
+}
+
 std::optional<Session::Stop> Session::after_vehicle_run(int run, const motion::VehicleRunOutcome& out,
                                                         double start_kmh) {
   using Ending = motion::VehicleRunOutcome::Ending;
@@ -427,7 +490,19 @@ std::optional<Session::Stop> Session::after_vehicle_run(int run, const motion::V
 
 std::optional<Session::Stop> Session::do_run(int run) {
   const auto& p = in_.profile;
+  run_ = run;
+  // A pause asked between runs (during the analysis, say): stop, wait, re-warm, then this run.
+  if (pause_asked()) {
+    if (auto s = do_pause("between coast-downs", false, rewarm_s())) return s;
+    if (auto s = do_warm_up(rewarm_s(), false)) return s;
+  }
   auto link_or_fault = [&](const Result& r, const char* during) -> std::optional<Stop> {
+    if (r.code == motion::kPaused) {
+      // The run is discarded (not counted as unusable: the operator asked), then repeated after a re-warm.
+      if (auto s = do_pause(during, true, rewarm_s())) return s;
+      if (auto s = do_warm_up(rewarm_s(), false)) return s;
+      return std::nullopt;
+    }
     if (r.status == Result::Status::retryable && r.code != kInterruptedCode) {
       emit(ev::CoastdownDiscarded{run, std::string("link lost during ") + during + ": " + r.message,
                                   std::nullopt, std::nullopt});
@@ -440,9 +515,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
         return Stop{Outcome::not_accepted,
                     "too many unusable coast-downs (" + std::to_string(unusable_) + ")"};
       // The rollers stopped: re-warm before the repeat, so the 120 s rule applies to a warm vehicle again.
-      const double rewarm = opt_.resume_warm_up_s >= 0.0 ? opt_.resume_warm_up_s : p.warm_up.duration_s;
       if (auto s = do_set_inertia()) return s;
-      if (auto s = do_warm_up(rewarm, false)) return s;
+      if (auto s = do_warm_up(rewarm_s(), false)) return s;
       return std::nullopt;
     }
     return fault(r, during);

@@ -57,6 +57,7 @@
 #include "core/warm_up_drift.hpp"
 #include "motion/motion.hpp"
 #include "session/events.hpp"
+#include "session/pause.hpp"
 #include "session/resume.hpp"
 
 namespace loadtrim::session {
@@ -73,6 +74,10 @@ struct Options {
   core::EnvelopeLimits envelope;  // max_force_n and top_speed_kmh are filled from the cell and profile
   bool whole_trace_estimator =
       true;  // the independent estimate beside the band method (benchmarks may skip it)
+  // Pause and continue (session/pause.hpp); none: the session cannot be paused. A pause waits at most
+  // max_pause_s of the tool's own time for its continue, then ends the session as interrupted (resumable).
+  PauseControl* pause = nullptr;
+  double max_pause_s = 3600.0;
 };
 
 struct Inputs {
@@ -119,6 +124,12 @@ class Session {
   std::optional<Stop> do_set_inertia();
   std::optional<Stop> do_warm_up(double duration_s, bool measure_loss_map);
   std::optional<Stop> do_run(int run);  // write_set → run_up → coast_down → analyse
+  // The operator's pause (r.code == motion::kPaused, or asked between steps): a run in progress discarded,
+  // the pass count reset, the rollers stopped, the wait at rest for a continue. Nothing (go on: the caller
+  // re-warms for rewarm_s) or how the session ends.
+  std::optional<Stop> do_pause(const std::string& during, bool run_in_progress, double rewarm_s);
+  bool pause_asked() const { return opt_.pause && opt_.pause->flag().load(); }
+  double rewarm_s() const;  // after a lost link or a pause: --resume-warm-up-s, else the profile's warm-up
   // After a run-up under the vehicle's own power: the display cleared, the run-up's check recorded.
   std::optional<Stop> after_vehicle_run(int run, const motion::VehicleRunOutcome& out, double start_kmh);
   void do_safe_stop();
@@ -145,6 +156,7 @@ class Session {
   core::RoadLoad set_;
   std::unique_ptr<core::SettingMethodState> method_;
   std::vector<core::HoldPoint> loss_map_;
+  int run_ = 0;  // the run in progress or last run (0 before the first)
   int coastdowns_ = 0, unusable_ = 0, discarded_ = 0, link_losses_ = 0, iterations_ = 0;
   std::optional<core::RoadLoad> last_written_;
   std::string first_setting_;

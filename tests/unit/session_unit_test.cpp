@@ -352,3 +352,147 @@ TEST(SessionUnit, SetpointOnlyReadBackIsLoggedAndShownOnTheReport) {
     fs::remove_all(dir);
   }
 }
+
+namespace {
+// Pauses the session when `when` holds for an event, and continues it as soon as the pause is recorded
+// (continue_after_pause), as an operator at another terminal would.
+struct PauseScript {
+  session::PauseControl control;
+  std::function<bool(const session::Event&)> when;
+  bool continue_after_pause = true;
+  bool asked = false;
+  void on(const session::Event& e) {
+    if (!asked && when(e)) {
+      asked = control.request_pause({"A. Tester", "scripted pause", "test"});
+      EXPECT_TRUE(asked);
+    }
+    if (continue_after_pause && std::holds_alternative<session::ev::Paused>(e.payload)) {
+      EXPECT_TRUE(control.request_continue({"B. Tester", "", "test"}));
+    }
+  }
+};
+
+bool entered(const session::Event& e, session::State s) {
+  const auto* sc = std::get_if<session::ev::StateChanged>(&e.payload);
+  return sc && sc->to == s;
+}
+}  // namespace
+
+TEST(SessionUnit, APauseDuringACoastDownStopsTheRollersAndTheContinuedSessionIsAccepted) {
+  // The pause contract (docs/session.md "Pause and continue"): the run in progress is discarded, the rollers
+  // are stopped to standstill before the wait, and after the continue the vehicle is re-warmed and the pass
+  // count starts again: two CONSECUTIVE passes after the pause (GTR 15 Annex 4 §8.1.3.4.2 [text]); the 120 s
+  // rule applies again after the re-warm (EU SA4 §8.1.2–8.1.3).
+  FakeController c(loadtrim::testing::demo_truth());
+  PauseScript ps;
+  ps.when = [](const session::Event& e) { return entered(e, session::State::coast_down); };
+  Recorder record(true);
+  std::vector<session::Event> paused, continued;
+  bool stopped_before_wait = false;
+  int passes_after_continue = 0;
+  Hook hook([&](const session::Event& e) {
+    ps.on(e);
+    if (const auto* p = std::get_if<session::ev::Paused>(&e.payload)) {
+      paused.push_back(e);
+      // The last command before the wait was the controlled stop (docs/safety.md: a pause is a stop).
+      stopped_before_wait = !c.commands.empty() && c.commands.back().first == Mode::controlled_stop;
+      EXPECT_EQ(p->during, "coast-down");
+    }
+    if (std::holds_alternative<session::ev::Continued>(e.payload)) continued.push_back(e);
+    if (const auto* cd = std::get_if<session::ev::Coastdown>(&e.payload);
+        cd && !continued.empty() && cd->record.evaluation.usable && cd->record.evaluation.check.pass)
+      ++passes_after_continue;
+  });
+  session::Options o = options();
+  o.pause = &ps.control;
+  session::Session s(inputs(), o, c, {&record, &hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+  ASSERT_EQ(paused.size(), 1u);
+  ASSERT_EQ(continued.size(), 1u);
+  const auto& p = std::get<session::ev::Paused>(paused[0].payload);
+  EXPECT_TRUE(p.rollers_stopped);
+  EXPECT_TRUE(stopped_before_wait);
+  EXPECT_EQ(p.by, "A. Tester");
+  EXPECT_EQ(p.why, "scripted pause");
+  EXPECT_EQ(std::get<session::ev::Continued>(continued[0].payload).by, "B. Tester");
+  EXPECT_EQ(count(record, "coastdown_discarded"), 1) << "the paused run is not counted";
+  EXPECT_EQ(count(record, "warm_up_ended"), 2) << "the warm-up and the re-warm after the continue";
+  EXPECT_GE(passes_after_continue, 2);
+  // The pause is a state of its own in the record (the progress line and the report read it).
+  EXPECT_TRUE(record.saw("paused") && record.saw("continued"));
+}
+
+TEST(SessionUnit, APauseDuringTheWarmUpWarmsUpAgainAfterTheContinue) {
+  FakeController c(loadtrim::testing::demo_truth());
+  PauseScript ps;
+  ps.when = [](const session::Event& e) {
+    return std::holds_alternative<session::ev::WarmUpStarted>(e.payload);
+  };
+  Recorder record(true);
+  std::string during;
+  Hook hook([&](const session::Event& e) {
+    ps.on(e);
+    if (const auto* p = std::get_if<session::ev::Paused>(&e.payload)) during = p->during;
+  });
+  session::Options o = options();
+  o.pause = &ps.control;
+  session::Session s(inputs(), o, c, {&record, &hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+  EXPECT_EQ(during, "warm-up");
+  EXPECT_EQ(count(record, "paused"), 1);
+  EXPECT_EQ(count(record, "continued"), 1);
+  // The interrupted warm-up never ended; the one after the continue did, before any coast-down.
+  EXPECT_EQ(count(record, "warm_up_started"), 2);
+  EXPECT_EQ(count(record, "warm_up_ended"), 1);
+  EXPECT_EQ(count(record, "coastdown_discarded"), 0) << "no run was in progress";
+}
+
+TEST(SessionUnit, APauseWithoutAContinueEndsAsInterruptedWithTheRollersStopped) {
+  // Every wait has a deadline on the tool's own clock: a pause nobody continues ends the session as
+  // interrupted (resumable, exit code 4) with the rollers stopped.
+  FakeController c(loadtrim::testing::demo_truth());
+  PauseScript ps;
+  ps.continue_after_pause = false;
+  ps.when = [](const session::Event& e) { return entered(e, session::State::run_up); };
+  Recorder record(true);
+  Hook hook([&](const session::Event& e) { ps.on(e); });
+  session::Options o = options();
+  o.pause = &ps.control;
+  o.max_pause_s = 0.3;
+  session::Session s(inputs(), o, c, {&record, &hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::interrupted) << sum.stop_reason;
+  EXPECT_NE(sum.stop_reason.find("paused longer than"), std::string::npos) << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+  EXPECT_EQ(count(record, "continued"), 0);
+  EXPECT_EQ(count(record, "coastdown_discarded"), 1);
+}
+
+TEST(SessionUnit, RollersThatMoveDuringAPauseEndTheSession) {
+  // At rest means at rest: a controller that starts the rollers while the session waits is a fault, never
+  // a continue (docs/safety.md).
+  FakeController c(loadtrim::testing::demo_truth());
+  PauseScript ps;
+  ps.continue_after_pause = false;
+  ps.when = [](const session::Event& e) {
+    return std::holds_alternative<session::ev::WarmUpStarted>(e.payload);
+  };
+  Recorder record(true);
+  Hook hook([&](const session::Event& e) {
+    ps.on(e);
+    if (std::holds_alternative<session::ev::Paused>(e.payload))
+      (void)c.sim().command(sim::command_for(Mode::speed_hold, 30.0));
+  });
+  session::Options o = options();
+  o.pause = &ps.control;
+  o.max_pause_s = 30.0;
+  session::Session s(inputs(), o, c, {&record, &hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::controller_fault) << sum.stop_reason;
+  EXPECT_NE(sum.stop_reason.find("not at rest"), std::string::npos) << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+}
