@@ -122,8 +122,21 @@ void Session::progress(double speed_kmh, double band_kmh) {
                              pr.start_speed_kmh(), std::max(1.0, pr.end_speed_kmh()));
   const double per_run = coast.value_or(kUnpredictedCoastS) + kRunUpEstimateS;
   p.remaining_estimate_s = runs_left * per_run;
-  if (state_ == State::warm_up && t_motoring_from_ >= 0.0)
-    p.remaining_estimate_s += std::max(0.0, pr.warm_up.duration_s - (t_now_ - t_motoring_from_));
+  // The warm-up still to come counts from the start (so the estimate does not leap when it begins), and
+  // counts down while it is held; a run in progress counts down too (so the estimate does not freeze, then
+  // drop).
+  const bool before_warm_up =
+      state_ == State::connect || state_ == State::check_limits || state_ == State::set_inertia;
+  if (before_warm_up && t_warm_end_ < 0.0)
+    p.remaining_estimate_s += warm_asked_s_ >= 0.0 ? warm_asked_s_ : pr.warm_up.duration_s;
+  if (state_ == State::warm_up) {
+    const double asked = warm_asked_s_ >= 0.0 ? warm_asked_s_ : pr.warm_up.duration_s;
+    p.remaining_estimate_s += std::max(0.0, asked - (warm_from_s_ >= 0.0 ? t_now_ - warm_from_s_ : 0.0));
+  }
+  const bool in_run = state_ == State::write_set || state_ == State::run_up || state_ == State::coast_down ||
+                      state_ == State::analyse;
+  if (in_run && run_from_s_ >= 0.0)
+    p.remaining_estimate_s -= std::min(per_run, std::max(0.0, t_now_ - run_from_s_));
   observers_.progress(p);
 }
 
@@ -306,6 +319,8 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   const auto& w = in_.profile.warm_up;
   // A pause in the warm-up or the loss map: after the continue, the whole warm-up (and map) again.
   const double asked_s = duration_s;
+  warm_asked_s_ = duration_s;
+  warm_from_s_ = -1.0;
   auto fault = [&](const Result& r, const std::string& during) -> std::optional<Stop> {
     if (r.code == motion::kPaused) {
       if (auto s = do_pause(during, false, asked_s)) return s;
@@ -315,6 +330,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   };
   if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
   t_motoring_from_ = t_now_;
+  warm_from_s_ = t_now_;
   if (drift_t0_ < 0.0) drift_t0_ = t_now_;
   // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
   // time (ramps at the motoring rate, settle and average at each speed).
@@ -521,6 +537,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
     }
     return fault(r, during);
   };
+  run_from_s_ = t_now_;
   transition(State::write_set, "coast-down " + std::to_string(run));
   // The envelope, before anything is written: a setting that would ask the dyno for more than the cell
   // allows, or that has run away from the target, is never sent.
@@ -888,6 +905,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
   divergence_.emplace(p.tolerance_n, p.bottom_speed_kmh(), p.top_speed_kmh());
   method_ = std::make_unique<core::SettingMethodState>(in_.profile, in_.vehicle.target);
   int run_no = 1;
+  // The warm-up to come, for the progress line's estimate from the first state on.
+  warm_asked_s_ = resume && opt_.resume_warm_up_s >= 0.0 ? opt_.resume_warm_up_s : p.warm_up.duration_s;
   if (resume) {
     cell_time_before_ = resume->cell_time_s;
     for (const auto& r : resume->completed) {

@@ -157,6 +157,8 @@ class Session {
   std::unique_ptr<core::SettingMethodState> method_;
   std::vector<core::HoldPoint> loss_map_;
   int run_ = 0;  // the run in progress or last run (0 before the first)
+  // For the progress line's estimate: the warm-up being held (its length and start) and the run's start.
+  double warm_asked_s_ = -1.0, warm_from_s_ = -1.0, run_from_s_ = -1.0;
   int coastdowns_ = 0, unusable_ = 0, discarded_ = 0, link_losses_ = 0, iterations_ = 0;
   std::optional<core::RoadLoad> last_written_;
   std::string first_setting_;

@@ -7,6 +7,8 @@ line of both consoles and of operator.log is checked:
   - no line is or contains a JSON object ('{"');
   - no number shows float noise (more than 6 decimals, e.g. 1653.4899999999998);
   - the progress line names a coast-down only while one runs (never "coast-down 1" while connecting);
+  - its remaining-time estimate never drops by more than one coast-down's time beyond the cell time that passed
+    (the longest recorded coast-down is the bound; it may rise when another run is needed);
 and the kinds of line seen are named and counted, so a kind that vanished shows in the log. --json stays: every
 line of a --json run is one JSON object. (Common practice, no source: these are the project's own console rules,
 issue "a console that reads like the cell".)
@@ -131,6 +133,33 @@ def check_lines(where, text, kinds):
                 PROBLEMS.append("%s: the progress line names a coast-down while %s: %s" % (where, state, line))
 
 
+PROGRESS = re.compile(r"\[([^\]]+)\].*?cell time (\d+):(\d\d):(\d\d)\s+about (\d+):(\d\d):(\d\d) left")
+
+
+def check_estimate(where, text, longest_coast_s):
+    """The remaining-time estimate never drops by more than one coast-down's time beyond the cell time that passed
+    (issue "a console that reads like the cell": an honest estimate; the longest recorded coast-down is the bound)."""
+    prev = None
+    seen = 0
+    for raw in text.replace("\r", "\n").splitlines():
+        m = PROGRESS.search(ANSI.sub("", raw))
+        if not m:
+            continue
+        seen += 1
+        g = [int(x) for x in m.groups()[1:]]
+        cell = g[0] * 3600 + g[1] * 60 + g[2]
+        left = g[3] * 3600 + g[4] * 60 + g[5]
+        if prev:
+            drop = (prev[1] - left) - (cell - prev[0])
+            if drop > longest_coast_s + 2:  # +2: both clocks are printed in whole seconds
+                PROBLEMS.append("%s: the estimate dropped %d s beyond the %d s that passed (more than one coast-down, "
+                                "%.0f s): %s -> %s" % (where, prev[1] - left, cell - prev[0], longest_coast_s,
+                                                      prev[2], m.group(0)))
+        prev = (cell, left, m.group(0))
+    if seen < 10:
+        PROBLEMS.append("%s: only %d progress lines" % (where, seen))
+
+
 def main():
     global ARGS
     ap = argparse.ArgumentParser()
@@ -174,6 +203,13 @@ def main():
     finally:
         sim.kill()
         sim.wait()
+    with open(os.path.join(folder, "events.jsonl")) as f:
+        coasts = [r.get("duration_s", 0.0) for r in map(json.loads, f) if r.get("type") == "coastdown"]
+    longest = max(coasts) if coasts else 0.0
+    if longest <= 0.0:
+        PROBLEMS.append("no coast-down duration recorded")
+    check_estimate("console (interrupted run)", out1, longest)
+    check_estimate("console (resumed run)", out2, longest)
     check_lines("console (interrupted run)", out1, kinds)
     check_lines("console (resumed run)", out2, kinds)
     with open(os.path.join(folder, "operator.log")) as f:
