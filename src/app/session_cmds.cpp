@@ -30,6 +30,11 @@ void output_options(CLI::App* sub, RunRequest& r) {
                   "warm-up after a resume, a lost link or a pause (default: the profile's)")
       ->check(CLI::Range(0.0, 14400.0));
   sub->add_option(
+         "--units", r.units,
+         "the console's units: metric, us (A, B, C in lbf, lbf/mph, lbf/mph²) or both (default: as the "
+         "target was given; the record is always SI)")
+      ->check(CLI::IsMember({"metric", "us", "both"}));
+  sub->add_option(
          "--max-pause-s", r.max_pause_s,
          "how long a pause waits for its continue before the session ends as interrupted (resumable)")
       ->check(CLI::Range(10.0, 86400.0))

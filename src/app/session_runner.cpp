@@ -241,6 +241,12 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     return kRecordFailure;
   }
   session::Console console(req.console);
+  // The console speaks the target's units (a [target_us] file: US and metric), or what --units asks.
+  console.set_units(req.units == "metric" ? session::Console::Units::metric
+                    : req.units == "us"   ? session::Console::Units::us
+                    : req.units == "both" || inputs.vehicle.target_given_in_us
+                        ? session::Console::Units::both
+                        : session::Console::Units::metric);
   std::unique_ptr<controller::Controller> c =
       req.inprocess_truth ? inprocess::make_controller(inputs.cell, *req.inprocess_truth)
                           : adapters::tool_registry().make_controller(inputs.cell);

@@ -127,6 +127,7 @@ core::VehicleTarget read_target(TomlReader& r) {
   v.profile = r.string("profile");
   bool present = false;
   v.target = read_coefficients(r, "target", "target_us", present);
+  v.target_given_in_us = r.has("target_us") && !r.has("target");
   if (!present)
     r.error("target",
             "is missing: give [target] with f0_n, f1_n_per_kmh, f2_n_per_kmh2 or [target_us] with a_lbf, "

@@ -39,7 +39,8 @@ struct VehicleTarget {
   // reference speed is the one just above it (core::plan_reference_speeds, docs/standards.md §2.1).
   std::optional<double> cycle_max_speed_kmh;
   RoadLoad target;
-  std::string profile;  // name of the standard profile to follow
+  bool target_given_in_us = false;  // the file gave [target_us] (A, B, C): the console shows US units too
+  std::string profile;              // name of the standard profile to follow
   std::optional<RoadLoad> initial_set;
 };
 

@@ -4,6 +4,8 @@
 
 #include <string>
 
+#include "core/road_load.hpp"
+#include "core/units.hpp"
 #include "session/event_text.hpp"
 
 namespace loadtrim::session {
@@ -66,12 +68,48 @@ struct Overloaded : F... {
 template <class... F>
 Overloaded(F...) -> Overloaded<F...>;
 
-std::string c3(const core::RoadLoad& c) {
+std::string c3_metric(const core::RoadLoad& c) {
   char b[64];
   std::snprintf(b, sizeof b, "%8.2f %7.4f %8.5f", c.f0_n, c.f1_n_per_kmh, c.f2_n_per_kmh2);
   return b;
 }
+std::string c3_us(const core::RoadLoad& c) {
+  const core::RoadLoadUs u = core::to_us(c);
+  char b[64];
+  std::snprintf(b, sizeof b, "%8.3f %7.5f %8.6f", u.a_lbf, u.b_lbf_per_mph, u.c_lbf_per_mph2);
+  return b;
+}
 }  // namespace
+
+std::string Console::coefficients(const core::RoadLoad& c) const {
+  switch (units_) {
+    case Units::metric:
+      return c3_metric(c);
+    case Units::us:
+      return c3_us(c);
+    case Units::both:
+      return c3_metric(c) + " (US " + c3_us(c) + ")";
+  }
+  return c3_metric(c);
+}
+
+std::string Console::units_words() const {
+  switch (units_) {
+    case Units::metric:
+      return "(f0 N, f1 N/(km/h), f2 N/(km/h)²)";
+    case Units::us:
+      return "(A lbf, B lbf/mph, C lbf/mph²)";
+    case Units::both:
+      return "(f0 N, f1 N/(km/h), f2 N/(km/h)²; US A lbf, B lbf/mph, C lbf/mph²)";
+  }
+  return "";
+}
+
+std::string Console::force(double n, int decimals) const {
+  const std::string lbf = rounded(core::units::n_to_lbf(n), decimals + 1) + " lbf";
+  const std::string metric = rounded(n, decimals) + " N";
+  return units_ == Units::metric ? metric : units_ == Units::us ? lbf : metric + " (" + lbf + ")";
+}
 
 bool Console::on_event(const Event& e) {
   if (mode_ == Mode::json) {
@@ -99,13 +137,15 @@ bool Console::on_event(const Event& e) {
   std::visit(
       Overloaded{
           [&](const ev::SessionStarted& x) {
-            std::fprintf(out_, "  target %s; tolerance ±%s N (%s)\n", c3(x.common.target).c_str(),
-                         rounded(x.common.tolerance_n, 1).c_str(), x.common.standard.c_str());
+            std::fprintf(out_, "  target %s %s; tolerance ±%s (%s)\n", units_words().c_str(),
+                         coefficients(x.common.target).c_str(), force(x.common.tolerance_n, 1).c_str(),
+                         x.common.standard.c_str());
           },
           [&](const ev::ResumeStarted& x) {
-            std::fprintf(out_, "  target %s; tolerance ±%s N (%s); %zu coast-down(s) already recorded\n",
-                         c3(x.common.target).c_str(), rounded(x.common.tolerance_n, 1).c_str(),
-                         x.common.standard.c_str(), x.completed_coastdowns);
+            std::fprintf(out_, "  target %s %s; tolerance ±%s (%s); %zu coast-down(s) already recorded\n",
+                         units_words().c_str(), coefficients(x.common.target).c_str(),
+                         force(x.common.tolerance_n, 1).c_str(), x.common.standard.c_str(),
+                         x.completed_coastdowns);
           },
           [&](const ev::StateChanged& x) {
             // The per-run states show as the run's table row instead.
@@ -129,25 +169,33 @@ bool Console::on_event(const Event& e) {
                          x.point.force_n);
           },
           [&](const ev::FirstSetting& x) {
-            std::fprintf(out_, "  first setting (%s): %s\n", x.strategy.c_str(), c3(x.set).c_str());
-            std::fprintf(out_, "  %3s  %-26s  %-26s  %8s %8s %6s  %s\n", "run", "set f0 / f1 / f2",
-                         "measured f0 / f1 / f2", "worst N", "est.diff", "result", "decision");
-            std::fprintf(out_,
-                         "       (worst N: the largest deviation from the target at a reference speed, "
-                         "against the tolerance above; est.diff: how far the band estimate and the "
-                         "whole-trace fit differ, N)\n");
+            std::fprintf(out_, "  first setting (%s): %s\n", x.strategy.c_str(), coefficients(x.set).c_str());
+            const bool us = units_ == Units::us;
+            const int w = static_cast<int>(coefficients(x.set).size());
+            std::fprintf(out_, "  %3s  %-*s  %-*s  %8s %8s %6s  %s\n", "run", w,
+                         us ? "set A / B / C" : "set f0 / f1 / f2", w,
+                         us ? "measured A / B / C" : "measured f0 / f1 / f2", us ? "worst lbf" : "worst N",
+                         "est.diff", "result", "decision");
+            std::fprintf(
+                out_,
+                "       (coefficients %s; worst: the largest deviation from the target at a reference "
+                "speed, against the tolerance above; est.diff: how far the band estimate and the "
+                "whole-trace fit differ, %s)\n",
+                units_words().c_str(), us ? "lbf" : "N");
           },
           [&](const ev::Coastdown& x) {
             const auto& r = x.record;
             const auto& v = r.evaluation;
             if (!v.usable)
-              std::fprintf(out_, "  %3d  %s  unusable: %s\n", r.run, c3(r.set).c_str(),
+              std::fprintf(out_, "  %3d  %s  unusable: %s\n", r.run, coefficients(r.set).c_str(),
                            v.unusable_reason.c_str());
-            else
-              std::fprintf(out_, "  %3d  %s  %s  %8.2f %8.2f %6s  %s\n", r.run, c3(r.set).c_str(),
-                           c3(v.fit.coefficients).c_str(), v.check.worst_abs_deviation_n,
-                           v.estimator_disagreement_n, v.check.pass ? "pass" : "FAIL",
+            else {
+              const double k = units_ == Units::us ? core::units::n_to_lbf(1.0) : 1.0;
+              std::fprintf(out_, "  %3d  %s  %s  %8.2f %8.2f %6s  %s\n", r.run, coefficients(r.set).c_str(),
+                           coefficients(v.fit.coefficients).c_str(), k * v.check.worst_abs_deviation_n,
+                           k * v.estimator_disagreement_n, v.check.pass ? "pass" : "FAIL",
                            r.decision.reason.c_str());
+            }
           },
           [&](const ev::ReleaseTiming& x) {
             if (!x.within) raw();
@@ -182,11 +230,21 @@ bool Console::on_event(const Event& e) {
                            s.stop_note.c_str());
             std::fprintf(out_, "\n  %s: %s after %d coast-downs, %s of cell time\n", to_string(s.outcome),
                          s.stop_reason.c_str(), s.coastdowns, clock_text(s.cell_time_s).c_str());
-            if (s.final_set)
+            // Rounded as the profile reports them (f0 1, f1 3, f2 5 decimals: docs/standards.md §3; US one
+            // more).
+            if (s.final_set && units_ != Units::us)
               std::fprintf(out_,
                            "  final set coefficients (rounded; the record holds every digit): f0 %.1f N, "
                            "f1 %.3f N/(km/h), f2 %.5f N/(km/h)²\n",
                            s.final_set->f0_n, s.final_set->f1_n_per_kmh, s.final_set->f2_n_per_kmh2);
+            if (s.final_set && units_ != Units::metric) {
+              const core::RoadLoadUs u = core::to_us(*s.final_set);
+              std::fprintf(
+                  out_,
+                  "  final set coefficients, US (rounded; the record holds every digit in SI): A %.2f "
+                  "lbf, B %.4f lbf/mph, C %.6f lbf/mph²\n",
+                  u.a_lbf, u.b_lbf_per_mph, u.c_lbf_per_mph2);
+            }
           },
           // The dyno's own checks: each step as it happens.
           [&](const ev::CheckIdentified& x) {
@@ -199,7 +257,7 @@ bool Console::on_event(const Event& e) {
           },
           [&](const ev::CheckCoastStarted& x) {
             std::fprintf(out_, "  coast-down %d at %.0f kg from %.1f km/h, set %s\n", x.run, x.inertia_kg,
-                         x.from_kmh, c3(x.set).c_str());
+                         x.from_kmh, coefficients(x.set).c_str());
           },
           [&](const ev::ForceApplied& x) {
             std::fprintf(out_, "  constant force %.1f N against the stated base inertia %.0f kg\n", x.force_n,

@@ -66,9 +66,11 @@ def on_pty(argv, interrupt_when=None, timeout=120):
             sent = True
         if p.poll() is not None and not r:
             break
-    if p.poll() is None:
+    try:  # the terminal closes a moment before the process is gone
+        rc = p.wait(timeout=max(1.0, min(20.0, deadline - time.monotonic())))
+    except subprocess.TimeoutExpired:
         p.kill()
-    rc = p.wait(timeout=20)
+        rc = p.wait(timeout=20)
     os.close(master)
     return rc, out.decode(errors="replace")
 

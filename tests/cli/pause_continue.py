@@ -91,10 +91,12 @@ def session_on_pty(argv, script, timeout=240):
             script(out, p, folder)
         if p.poll() is not None and not r:
             break
-    if p.poll() is None:
+    try:  # the terminal closes a moment before the process is gone
+        rc = p.wait(timeout=max(1.0, min(20.0, deadline - time.monotonic())))
+    except subprocess.TimeoutExpired:
         p.kill()
         PROBLEMS.append("the session did not end within %d s" % timeout)
-    rc = p.wait(timeout=20)
+        rc = p.wait(timeout=20)
     os.close(master)
     return rc, out, folder
 
@@ -228,7 +230,7 @@ def main():
         sim.kill()
         sim.wait()
     if PROBLEMS:
-        print("\n%d problem(s)" % len(PROBLEMS))
+        print("\n%d problem(s):\n%s" % (len(PROBLEMS), "\n".join(PROBLEMS)))
         return 1
     print("pause and continue: both sessions accepted and verified")
     return 0

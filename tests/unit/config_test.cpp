@@ -68,6 +68,9 @@ TEST(Config, UsTargetsConvertExactly) {
                1e-12);
   EXPECT_PRED3(loadtrim::testing::close_rel, v.target.f2_n_per_kmh2,
                0.0211 * 4.4482216152605 / (1.609344 * 1.609344), 1e-12);
+  // The console then speaks US units too (session/console.hpp); a metric target does not.
+  EXPECT_TRUE(v.target_given_in_us);
+  EXPECT_FALSE(config::parse_target(kGoodTarget, "metric.toml").target_given_in_us);
 }
 
 TEST(Config, BadTargetsAreRefusedWithKeyAndRange) {

@@ -27,6 +27,7 @@
 #include "record/session_folder.hpp"
 #include "record/vehicle_history.hpp"
 #include "registry.hpp"
+#include "session/console.hpp"
 #include "session/event_text.hpp"
 #include "session/resume.hpp"
 #include "support/fake_controller.hpp"
@@ -664,4 +665,52 @@ TEST(Events, EveryEventReadsAsASentenceWithoutJsonOrFloatNoise) {
   EXPECT_NE(fin.find("f0 39.60 N"), std::string::npos) << fin;
   EXPECT_NE(fin.find("rounded"), std::string::npos) << fin;
   EXPECT_FALSE(noisy(fin)) << fin;
+}
+
+TEST(Events, TheConsoleSpeaksTheTargetsUnits) {
+  // US coefficients from metric by the exact NIST SP 811 App. B factors (1 lbf = 4.4482216152605 N,
+  // 1 mph = 1.609344 km/h): A = f0/4.4482216152605, B = f1·1.609344/4.4482216152605,
+  // C = f2·1.609344²/4.4482216152605. The record stays SI; only the console changes.
+  constexpr double kN = 4.4482216152605, kKmh = 1.609344;
+  const core::RoadLoad final_set{118.0, 0.24, 0.0305};
+  auto console_text = [&](Console::Units u) {
+    char* buf = nullptr;
+    std::size_t len = 0;
+    std::FILE* f = ::open_memstream(&buf, &len);
+    {
+      Console c(Console::Mode::normal, f);
+      c.set_units(u);
+      ev::StartCommon common;
+      common.target = {150.0, 0.3, 0.035};
+      common.tolerance_n = 10.0;
+      c.on_event(Event{ev::SessionStarted{common, "iterative", nlohmann::json::array(), 4100, "", false,
+                                          nlohmann::json::array(), false, "tcp:127.0.0.1:4100", ""},
+                       std::nullopt, nullptr});
+      c.on_event(Event{ev::Coastdown{usable_run()}, std::nullopt, nullptr});
+      Summary s = summary();
+      s.final_set = final_set;
+      c.on_event(Event{ev::Finished{s}, std::nullopt, nullptr});
+    }
+    std::fclose(f);
+    std::string t(buf, len);
+    std::free(buf);
+    return t;
+  };
+  auto has = [](const std::string& t, const std::string& w) { return t.find(w) != std::string::npos; };
+  char a[32], b[32], c[32], tol[32];
+  std::snprintf(a, sizeof a, "A %.2f lbf", final_set.f0_n / kN);
+  std::snprintf(b, sizeof b, "B %.4f lbf/mph", final_set.f1_n_per_kmh * kKmh / kN);
+  std::snprintf(c, sizeof c, "C %.6f lbf/mph²", final_set.f2_n_per_kmh2 * kKmh * kKmh / kN);
+  std::snprintf(tol, sizeof tol, "±%.2f lbf", 10.0 / kN);
+  const std::string us = console_text(Console::Units::us);
+  EXPECT_TRUE(has(us, a) && has(us, b) && has(us, c)) << a << " " << b << " " << c << "\n" << us;
+  EXPECT_TRUE(has(us, tol)) << tol << "\n" << us;
+  EXPECT_FALSE(has(us, "N/(km/h)")) << us;
+  const std::string metric = console_text(Console::Units::metric);
+  EXPECT_TRUE(has(metric, "f0 118.0 N, f1 0.240 N/(km/h), f2 0.03050 N/(km/h)²")) << metric;
+  EXPECT_TRUE(has(metric, "±10.0 N")) << metric;
+  EXPECT_FALSE(has(metric, "lbf")) << metric;
+  const std::string both = console_text(Console::Units::both);
+  EXPECT_TRUE(has(both, a) && has(both, "f0 118.0 N") && has(both, "±10.0 N (" + std::string(tol + 2)))
+      << both;
 }
