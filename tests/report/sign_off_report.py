@@ -11,7 +11,8 @@ rule is the coast-down records', the 120 s rule's gap is the timing record's (EU
 
 Usage: sign_off_report.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOURCE_DIR --workdir DIR
 """
-import argparse, glob, html.parser, json, os, re, shutil, signal, subprocess, sys, tempfile, time
+import argparse, csv, glob, html.parser, json, os, re, shutil, signal, subprocess, sys, tempfile, time
+import xml.etree.ElementTree as ET
 
 failures, passes = [], []
 ARGS = None
@@ -162,6 +163,22 @@ def common_items(name, folder, ids, text, pages, expect_result):
                                           "Operated by", OPERATOR)),
               "%s: the sign-off list is on the first printed page" % name)
         check("Cell and controller" not in pages[0], "%s: page one ends before the facts" % name)
+    # The worst-deviation chart: whole-number ticks on the coast-down axis; the tolerance line strictly inside the
+    # frame (it sat on the frame when every coast-down was within the tolerance).
+    rep = open(os.path.join(folder, "report.html"), encoding="utf-8").read()
+    svg = [x for x in re.findall(r"<svg.*?</svg>", rep, re.S) if 'id="plot-convergence"' in x]
+    if svg:
+        root = ET.fromstring(svg[0])
+        NS = "{http://www.w3.org/2000/svg}"
+        fr = [e for e in root.iter(NS + "rect") if e.get("class") == "frame"][0]
+        top, bottom = float(fr.get("y")), float(fr.get("y")) + float(fr.get("height"))
+        line = [e for e in root.iter(NS + "polyline") if e.get("class") == "tolerance"]
+        ys = [float(p.split(",")[1]) for p in line[0].get("points").split()] if line else []
+        ticks = [t.text for t in root.iter(NS + "text") if t.get("class") == "tick-x"]
+        check(ys and all(top + 1 < y < bottom - 1 for y in ys) and all(re.fullmatch(r"-?\d+", t) for t in ticks),
+              "%s: worst-deviation chart: tolerance line inside the frame, whole-number ticks %s" % (name, ticks))
+    else:
+        check(False, "%s: the report has the worst-deviation chart" % name)
     # The facts after page one: cell and controller, estimators, warm-up.
     ctrl = [r for r in recs if r["type"] == "controller"][0]
     check(("%.4f m" % ctrl["roller_diameter_m"]) in ids.get("cell-controller", ""),
@@ -231,9 +248,22 @@ def main():
         check(r.returncode == 0, "resumed: the resumed session was accepted (exit %d) %s" % (r.returncode, r.stderr[-300:]))
         # (c) Accepted, sealed with the cell's key and approved by a reviewer.
         acc_dir = os.path.join(ARGS.workdir, "accepted")
-        r = tool("run", "--cell", signed, "--sessions", acc_dir, *base)
+        r = tool("run", "--cell", signed, "--sessions", acc_dir, "--csv-decimal-comma", *base)
         check(r.returncode == 0, "accepted: the session was accepted (exit %d) %s" % (r.returncode, r.stderr[-300:]))
         acc = only_folder(acc_dir)
+        # The session's own exports follow --csv-decimal-comma: read with csv.reader(';'), the final measured
+        # coefficients equal summary.json's within the 4, 6 and 7 decimals written.
+        if acc:
+            with open(os.path.join(acc, "coefficients.csv"), newline="", encoding="utf-8") as f:
+                rows = list(csv.reader(f, delimiter=";"))
+            summary = json.load(open(os.path.join(acc, "summary.json")))
+            last = [x for x in rows if x[1] == "measured"][-1]
+            m = summary["measured"]
+            check(rows[0][:5] == ["run", "what", "f0_n", "f1_n_per_kmh", "f2_n_per_kmh2"] and
+                  abs(float(last[2].replace(",", ".")) - m["f0_n"]) <= 0.5e-4 and
+                  abs(float(last[3].replace(",", ".")) - m["f1_n_per_kmh"]) <= 0.5e-6 and
+                  abs(float(last[4].replace(",", ".")) - m["f2_n_per_kmh2"]) <= 0.5e-7,
+                  "accepted: run --csv-decimal-comma wrote the session's coefficients.csv for a decimal comma")
         r = tool("keys", "create", "--reviewer", REVIEWER)
         key = glob.glob(os.path.join(ARGS.workdir, "data/keys/reviewer-*.key.pem"))
         r = tool("approve", acc, "--reviewer", REVIEWER, "--key", key[0] if key else "none", "--statement", STATEMENT)
