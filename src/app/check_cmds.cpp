@@ -136,6 +136,7 @@ int run_one(const CheckOptions& o) {
   req.accept_new_curve = o.accept_new_curve;
   req.key = key ? &*key : nullptr;
   req.operator_id = who;
+  req.software = {{"version", LOADTRIM_VERSION}, {"build", LOADTRIM_BUILD_ID}};
   req.note = o.note;
   // The steps as they happen, for the operator; --json keeps its one line (scripts read it).
   session::Console console(session::Console::Mode::normal);

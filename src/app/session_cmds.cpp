@@ -15,6 +15,16 @@
 namespace loadtrim::app {
 
 namespace {
+// The CSV exports for a spreadsheet set to a decimal comma, and in US units (report/report.hpp, CsvFormat).
+void csv_options(CLI::App* sub, report::CsvFormat& f) {
+  sub->add_flag(
+      "--csv-decimal-comma", f.decimal_comma,
+      "write the CSV exports for a spreadsheet set to a decimal comma: ';' between fields, ',' in numbers");
+  sub->add_flag(
+      "--csv-us", f.us_units,
+      "write every CSV table in US units: A lbf, B lbf/mph, C lbf/mph², speeds in mph, forces in lbf");
+}
+
 void output_options(CLI::App* sub, RunRequest& r) {
   auto* q = sub->add_flag_function(
       "--quiet", [&r](std::int64_t) { r.console = session::Console::Mode::quiet; }, "print only the result");
@@ -50,6 +60,7 @@ void output_options(CLI::App* sub, RunRequest& r) {
                   "dyno check profile (default: config/checks/cfr1066.toml)");
   sub->add_option("--override-checks", r.override_checks,
                   "start although required dyno checks are due or failed; give the reason (it is logged)");
+  csv_options(sub, r.csv);
   sub->add_option("--operator", r.operator_name,
                   "who runs it, for the record (default: the cell file's records.operator, else asked, else "
                   "the login name)");
@@ -103,8 +114,10 @@ void register_session_commands(CLI::App& app, Runner& run) {
       app.add_subcommand("report", "write the HTML report and CSV exports of a session folder (and a PDF)");
   rep->add_option("folder", *rfolder, "the session folder")->required();
   rep->add_flag("--pdf", *pdf, "also print report.pdf with headless Chromium (Debian package chromium)");
-  rep->callback([rfolder, pdf, &run] {
-    run = [rfolder, pdf] {
+  auto csv = std::make_shared<report::CsvFormat>();
+  csv_options(rep, *csv);
+  rep->callback([rfolder, pdf, csv, &run] {
+    run = [rfolder, pdf, csv] {
       std::error_code ec;
       if (!std::filesystem::is_directory(*rfolder, ec)) {
         std::fprintf(stderr,
@@ -112,7 +125,7 @@ void register_session_commands(CLI::App& app, Runner& run) {
                      rfolder->c_str());
         return static_cast<int>(kBadInput);
       }
-      const report::ReportFiles r = report::write_report(*rfolder, LOADTRIM_VERSION);
+      const report::ReportFiles r = report::write_report(*rfolder, LOADTRIM_VERSION, *csv);
       if (!r.ok) {
         std::fprintf(stderr, "loadtrim: %s\n", r.error.c_str());
         return static_cast<int>(kRecordFailure);

@@ -361,7 +361,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     sum.outcome = session::Outcome::record_failure;
   if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder);
   // Every session ends with its report (from the record alone, so it shows what an auditor would see).
-  const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION);
+  const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION, req.csv);
   if (!rep.ok)
     std::cerr << "loadtrim: report not written: " << rep.error << "\n";
   else if (req.console == session::Console::Mode::normal)
@@ -448,7 +448,7 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   if (writer.summary().is_null() || !seal_session(folder, in.cell, writer.summary(), key, req.checks_dir,
                                                   req.console == session::Console::Mode::json))
     return kRecordFailure;
-  const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION);
+  const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION, req.csv);
   if (!rep.ok) std::cerr << "loadtrim: report not written: " << rep.error << "\n";
   std::printf("%s: %s (finalised from the record; no coast-down was run)\n", session::to_string(sum.outcome),
               sum.stop_reason.c_str());

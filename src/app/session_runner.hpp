@@ -13,6 +13,7 @@
 #include "physics/roller_model.hpp"
 #include "record/data_root.hpp"
 #include "record/seal.hpp"
+#include "report/report.hpp"
 #include "session/console.hpp"
 #include "session/session.hpp"
 
@@ -41,6 +42,7 @@ struct RunRequest {
   std::string checks_dir;                         // the cells' dyno-check histories; "" = <data root>/checks
   std::string check_profile;                      // default: config/checks/cfr1066.toml
   std::string override_checks;  // non-empty: start although required checks are due; the reason is logged
+  report::CsvFormat csv;        // how the session's CSV exports are written (--csv-decimal-comma, --csv-us)
 };
 
 // Loads and validates every input of the request (throws config::InputError listing every problem).

@@ -53,18 +53,45 @@ bool write_check_report(const std::string& folder, std::string& error) {
        "1em}table{border-collapse:collapse}"
        "td,th{border:1px solid #999;padding:.2em "
        ".5em;text-align:right}th{background:#eee}.pass{color:#009E73}.fail{color:#D55E00;font-weight:bold}"
-       ".warn{border:2px solid #D55E00;padding:.5em}</style></head><body>";
+       ".warn{border:2px solid #D55E00;padding:.5em}table.facts th,table.facts "
+       "td{text-align:left}</style></head><body>";
   h << "<h1>Dyno check: " << xml_escape(r.value("check", "")) << " (no vehicle on the rollers)</h1>";
   h << "<p class=\"" << (passed ? "pass" : "fail") << "\">" << (passed ? "PASSED" : "NOT PASSED") << ": "
     << xml_escape(r.value("verdict", "")) << "</p>";
-  h << "<p>Cell: " << xml_escape(r.value("cell", ""))
-    << ". Check profile: " << xml_escape(r.value("profile", "")) << " ("
+  // The header facts: when, with which software, by whom, on which cell (the log's first record and
+  // result.json; a fact an older folder lacks reads "not recorded").
+  nlohmann::json started = nlohmann::json::object();
+  {
+    std::ifstream ev((fs::path(folder) / "events.jsonl").string());
+    std::string line;
+    if (std::getline(ev, line)) started = nlohmann::json::parse(line, nullptr, false);
+    if (!started.is_object()) started = nlohmann::json::object();
+  }
+  auto text_at = [](const nlohmann::json& j, const char* k) {
+    return j.is_object() && j.contains(k) && j[k].is_string() ? j[k].get<std::string>() : std::string();
+  };
+  const std::string utc = text_at(started, "utc");
+  const nlohmann::json sw = r.contains("software") ? r["software"] : nlohmann::json::object();
+  const nlohmann::json op = started.contains("operator") ? started["operator"] : nlohmann::json::object();
+  const std::string version = text_at(sw, "version");
+  h << "<table id=\"check-facts\" class=\"facts\"><tr><th>Date and time (UTC)</th><td>"
+    << xml_escape(utc.size() >= 19 ? utc.substr(0, 10) + " " + utc.substr(11, 8)
+                                   : std::string("not recorded"))
+    << "</td></tr><tr><th>Software</th><td>"
+    << xml_escape(version.empty() ? std::string("not recorded")
+                                  : "loadtrim " + version + ", build " + text_at(sw, "build"))
+    << "</td></tr><tr><th>Operator</th><td>"
+    << xml_escape(text_at(op, "name").empty()
+                      ? std::string("not recorded")
+                      : text_at(op, "name") +
+                            (text_at(op, "from").empty() ? "" : " (" + text_at(op, "from") + ")"))
+    << "</td></tr><tr><th>Cell</th><td>" << xml_escape(r.value("cell", "")) << "</td></tr></table>";
+  h << "<p>Check profile: " << xml_escape(r.value("profile", "")) << " ("
     << xml_escape(r.value("standard", "")) << "). " << xml_escape(r.value("clause", ""))
     << ". Limits marked [text] are the clause's own; the others are the lab's settings in its check profile "
        "(docs/dyno-checks.md).</p>";
   h << "<p>Record: "
-    << (v.ok ? "chain intact, " + xml_escape(v.message)
-             : "<span class=\"fail\">BROKEN: " + xml_escape(v.message) + "</span>")
+    << (v.ok ? xml_escape(v.message) : "<span class=\"fail\">BROKEN: " + xml_escape(v.message) + "</span>")
     << "</p>";
   auto trace_plot = [&](const std::string& rel, const std::string& title) {
     std::vector<double> t, s;

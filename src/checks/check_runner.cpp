@@ -76,7 +76,8 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
                            {"cell", req.cell.name},
                            {"adapter", req.cell.adapter},
                            {"profile", req.profile.name},
-                           {"standard", req.profile.standard}};
+                           {"standard", req.profile.standard},
+                           {"software", req.software}};
   bool passed = false;
   std::string verdict;
   std::optional<core::RoadLoad> new_curve;

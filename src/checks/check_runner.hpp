@@ -33,6 +33,8 @@ struct CheckRequest {
   std::string note;
   const record::SigningKey* key = nullptr;  // the cell's signing key for the seal; nullptr: sealed unsigned
   nlohmann::json operator_id = nlohmann::json::object();  // {"name", "from"}
+  // The software that runs the check, for its report: {"version", "build"} (the app knows them).
+  nlohmann::json software = nlohmann::json::object();
   // Views of the check's steps (the console): each gets every event after its record is durable. The
   // check's record is its own log: an observer that fails or throws is dropped (said on stderr and in an
   // "observer_dropped" record), never the end of the check.
@@ -51,7 +53,9 @@ const char* to_string(CheckResult::End e);  // the process exit codes are the ap
 CheckResult run_check(controller::Controller& c, const CheckRequest& req,
                       const std::atomic<bool>* stop = nullptr);
 
-// The check's report.html, from its folder alone (result.json and the traces).
+// The check's report.html, from its folder alone (result.json, the log's first record and the traces): a
+// header with the date and time, the software version, the operator and the cell, and the record's state said
+// once.
 bool write_check_report(const std::string& folder, std::string& error);
 
 }  // namespace loadtrim::checks

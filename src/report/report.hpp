@@ -9,6 +9,16 @@
 
 namespace loadtrim::report {
 
+// How the CSV exports are written. The defaults suit a spreadsheet set to a decimal point: ',' between
+// fields,
+// '.' in numbers, SI units. decimal_comma: ';' between fields and ',' in numbers (a spreadsheet set to a
+// decimal comma). us_units: every table in US units (A lbf, B lbf/mph, C lbf/mph², speeds in mph, forces in
+// lbf; the exact NIST SP 811 factors of core/units.hpp).
+struct CsvFormat {
+  bool decimal_comma = false;
+  bool us_units = false;
+};
+
 struct ReportFiles {
   bool ok = false;
   std::string error;
@@ -26,8 +36,13 @@ struct ReportFiles {
 ReportFiles write_report(const std::string& folder, const std::string& software_version);
 ReportFiles write_report(const std::string& folder, const std::string& software_version,
                          const record::VerifyOptions& options);
+ReportFiles write_report(const std::string& folder, const std::string& software_version,
+                         const CsvFormat& csv);
+ReportFiles write_report(const std::string& folder, const std::string& software_version,
+                         const record::VerifyOptions& options, const CsvFormat& csv);
 
-// Prints report.html to report.pdf with headless Chromium; false with the reason when it could not.
+// Prints report.html to report.pdf with headless Chromium; false with the reason when it could not. Every
+// printed page carries the session id, the result and its page number (the report's @page margin boxes).
 bool print_pdf(const std::string& folder, std::string& error);
 
 }  // namespace loadtrim::report

@@ -17,12 +17,15 @@ struct Series {
   double width = 1.5;
   bool points = false;  // markers instead of a line
   bool dashed = false;
+  std::string dash = "";  // a stroke-dasharray of its own (overrides `dashed`), e.g. "2,3"
+  std::string cls = "";   // a class for the drawn element (tests find the tolerance line by it)
 };
 
 struct Band {  // a shaded region between two curves over the same x
   std::string label;
   std::vector<double> x, lo, hi;
   std::string colour = "#999999";
+  bool edges = false;  // also stroke its two edges, so that a band a few pixels high stays visible
 };
 
 class SvgPlot {
@@ -37,6 +40,10 @@ class SvgPlot {
         h_(height) {}
   void add(Series s) { series_.push_back(std::move(s)); }
   void add(Band b) { bands_.push_back(std::move(b)); }
+  // Ticks on whole numbers only (a count such as the coast-down number).
+  void integer_x() { integer_x_ = true; }
+  // The y axis reaches at least this value (a margin above a line that must not sit on the frame).
+  void include_y(double y) { extra_y_.push_back(y); }
   std::string render() const;
 
  private:
@@ -44,6 +51,8 @@ class SvgPlot {
   int w_, h_;
   std::vector<Series> series_;
   std::vector<Band> bands_;
+  bool integer_x_ = false;
+  std::vector<double> extra_y_;
 };
 
 std::string xml_escape(const std::string& s);

@@ -5,7 +5,7 @@ Independent references used here: Python's xml.etree parser (well-formed SVG), t
 below (1 lbf = 4.4482216152605 N, 1 mph = 1.609344 km/h), headless Chromium from Debian for rendering, and PIL
 (Debian python3-pil) to read the rendered pixels.
 """
-import argparse, glob, html.parser, json, os, re, shutil, subprocess, sys, tempfile
+import argparse, csv, glob, html.parser, json, os, re, shutil, subprocess, sys, tempfile
 import xml.etree.ElementTree as ET
 
 LBF = 4.4482216152605      # N per lbf, NIST SP 811 App. B (exact)
@@ -132,6 +132,94 @@ def main():
     dev = open(folder + "/deviations.csv").read().splitlines()
     check(coef[0].startswith("run,what,f0_n") and len(coef) >= 4, "coefficients.csv")
     check(dev[0] == "run,speed_kmh,target_n,measured_n,deviation_n,pass" and len(dev) >= 13, "deviations.csv")
+
+    # Spreadsheet exports: for a decimal-comma spreadsheet (';' between fields, ',' in numbers) and in US units. The
+    # reference reader is Python's csv module; the US values are checked against the metric export with the NIST
+    # SP 811 factors above.
+    def table(path, delimiter=","):
+        with open(path, newline="", encoding="utf-8") as f:
+            return list(csv.reader(f, delimiter=delimiter))
+
+    def number(x):
+        return float(x.replace(",", "."))
+
+    metric = {"coef": table(folder + "/coefficients.csv"), "dev": table(folder + "/deviations.csv")}
+    r = run(a.exe, "report", folder, "--csv-decimal-comma")
+    check(r.returncode == 0, "report --csv-decimal-comma")
+    comma = {"coef": table(folder + "/coefficients.csv", ";"), "dev": table(folder + "/deviations.csv", ";")}
+    same = all(len(comma[k]) == len(metric[k]) for k in metric)
+    for k in metric:
+        check(comma[k][0] == metric[k][0], "decimal comma %s.csv: the same header, ';' between fields" % k)
+        for mrow, crow in zip(metric[k][1:], comma[k][1:]):
+            for m, c in zip(mrow, crow):
+                if re.fullmatch(r"-?\d+\.\d+", m):
+                    same = same and "." not in c and abs(number(c) - float(m)) <= 1e-12
+                else:
+                    same = same and m == c
+    check(same, "decimal comma exports read back (csv.reader ';', ',' as the decimal mark) equal the metric ones")
+    r = run(a.exe, "report", folder, "--csv-decimal-comma", "--csv-us")
+    check(r.returncode == 0, "report --csv-decimal-comma --csv-us")
+    us = {"coef": table(folder + "/coefficients.csv", ";"), "dev": table(folder + "/deviations.csv", ";")}
+    check(us["coef"][0] == ["run", "what", "a_lbf", "b_lbf_per_mph", "c_lbf_per_mph2"] and
+          us["dev"][0] == ["run", "speed_mph", "target_lbf", "measured_lbf", "deviation_lbf", "pass"],
+          "US exports: every table in lbf, lbf/mph, lbf/mph² and mph")
+    bad = 0
+    for mrow, urow in zip(metric["coef"][1:], us["coef"][1:]):
+        f0, f1, f2 = (float(x) for x in mrow[2:5])
+        a_, b_, c_ = (number(x) for x in urow[2:5])
+        # 4, 6 and 7 decimals written; the metric side is rounded too (4, 6, 7 decimals).
+        bad += abs(a_ * LBF - f0) > 0.5e-4 * LBF + 0.5e-4
+        bad += abs(b_ * LBF / MPH - f1) > 0.5e-6 * LBF / MPH + 0.5e-6
+        bad += abs(c_ * LBF / MPH ** 2 - f2) > 0.5e-7 * LBF / MPH ** 2 + 0.5e-7
+    for mrow, urow in zip(metric["dev"][1:], us["dev"][1:]):
+        bad += abs(number(urow[1]) * MPH - float(mrow[1])) > 0.5e-4 * MPH + 0.05
+        for i in (2, 3, 4):
+            bad += abs(number(urow[i]) * LBF - float(mrow[i])) > 0.5e-4 * LBF + 0.5e-3
+        bad += urow[5] != mrow[5]
+    check(bad == 0 and len(us["dev"]) == len(metric["dev"]) and len(us["coef"]) == len(metric["coef"]),
+          "US exports equal the metric ones with the NIST factors, within the rounding written (%d off)" % bad)
+    r = run(a.exe, "report", folder)
+    check(r.returncode == 0 and open(folder + "/coefficients.csv").read().startswith("run,what,f0_n"),
+          "report without the options writes the metric, decimal-point exports again")
+
+    # The plots' fixes, read from the SVG: the coast-down axis has whole-number ticks; the tolerance line and the
+    # tolerance band lie strictly inside the frame; the force plot's band is stroked; coast-down 1 is drawn last
+    # on the speed plot, each coast-down with its own colour and dash.
+    by_id = {ET.fromstring(x).get("id"): ET.fromstring(x) for x in svgs}
+    NS = "{http://www.w3.org/2000/svg}"
+
+    def frame(root):
+        f = [e for e in root.iter(NS + "rect") if e.get("class") == "frame"][0]
+        return float(f.get("y")), float(f.get("y")) + float(f.get("height"))
+
+    def ys(points):
+        return [float(p.split(",")[1]) for p in points.split()]
+
+    conv = by_id["plot-convergence"]
+    ticks = [t.text for t in conv.iter(NS + "text") if t.get("class") == "tick-x"]
+    check(len(ticks) >= 2 and all(re.fullmatch(r"-?\d+", t) for t in ticks),
+          "convergence plot: coast-down ticks are whole numbers %s" % ticks)
+    top, bottom = frame(conv)
+    tol_line = [e for e in conv.iter(NS + "polyline") if e.get("class") == "tolerance"]
+    check(len(tol_line) == 1 and all(top + 1 < y < bottom - 1 for y in ys(tol_line[0].get("points"))),
+          "convergence plot: the tolerance line is strictly inside the frame (%s, frame %s to %s)" %
+          (tol_line[0].get("points") if tol_line else None, top, bottom))
+    dev = by_id["plot-deviation"]
+    top, bottom = frame(dev)
+    band = [e for e in dev.iter(NS + "polygon") if e.get("class") == "band"][0]
+    band_y = ys(band.get("points"))
+    # "Readable": at least 20 px high (a rule of thumb: common practice, no source); on the 0-1000 N force plot
+    # the same band is about 5 px.
+    check(all(top + 1 < y < bottom - 1 for y in band_y) and (max(band_y) - min(band_y)) >= 20,
+          "deviation panel: the ±tolerance band is inside the frame and at least 20 px high (%.1f px, frame %s to %s)"
+          % (max(band_y) - min(band_y), top, bottom))
+    force_band = [e for e in by_id["plot-force"].iter(NS + "polygon") if e.get("class") == "band"][0]
+    check(force_band.get("stroke") not in (None, "none"), "force plot: the ±tolerance band's edges are drawn")
+    lines = [e for e in by_id["plot-speed"].iter(NS + "polyline") if e.get("data-series")]
+    styles = {(e.get("stroke"), e.get("stroke-dasharray")) for e in lines}
+    check(len(lines) >= 2 and lines[-1].get("data-series") == "coast-down 1" and len(styles) == len(lines),
+          "speed plot: coast-down 1 drawn last, each coast-down with its own colour and dash %s" %
+          [(e.get("data-series"), e.get("stroke"), e.get("stroke-dasharray")) for e in lines])
 
     # A broken chain is said on the first page (before the first section heading).
     broken = a.workdir + "/broken"
