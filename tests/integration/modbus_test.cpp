@@ -673,7 +673,9 @@ TEST(Modbus, BadRegisterMapsAreRefused) {
 // With a map that has none of the dyno checks' entries (force setpoint, [modbus.modes]), as a map written
 // before they existed: setting sessions need none of them. The simulator also sets status bit 0x40 all along,
 // which the map does not define (docs/modbus.md, "Status bits"): a named warning, logged once as a
-// controller_warning record, and no stop; the session ends as an honest one does.
+// controller_warning record, and no stop; the session ends as an honest one does. The cell is a "vehicle"
+// one: every run-up is the simulated driver's, prompted through the map's driver display, the release found
+// by the map's neutral bit (docs/modbus.md, "Driver prompts"; docs/session.md).
 TEST(Modbus, FullSessionOverModbusTcp) {
   std::string dir = (fs::temp_directory_path() / "loadtrim-modbus-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
@@ -688,6 +690,9 @@ TEST(Modbus, FullSessionOverModbusTcp) {
   cell.resize(checks_part);
   ASSERT_EQ(cell.find("\n[modbus.force_setpoint]"), std::string::npos);
   ASSERT_EQ(cell.find("\n[modbus.modes]"), std::string::npos);
+  ASSERT_NE(cell.find("\n[modbus.driver_prompt]"), std::string::npos);
+  const std::string dyno = "run_up = \"dyno\"";
+  cell.replace(cell.find(dyno), dyno.size(), "run_up = \"vehicle\"");
   std::ofstream(dir + "/cell.toml") << cell;
   SimProcess sim({"--modbus-map", dir + "/cell.toml", "--time-scale", "20", "--modbus-status-bits", "64"});
   std::string out, err;
@@ -725,5 +730,33 @@ TEST(Modbus, FullSessionOverModbusTcp) {
   }
   EXPECT_EQ(warnings, 1) << "the undefined status bit is named once in the session's log";
   EXPECT_TRUE(finished_after);
+  // The driver's prompts and releases in the record: each run prompted to accelerate and to shift to neutral,
+  // the release found by the neutral bit at or above the start speed (GTR 15 Annex 4 §8.1.3.4: the coast
+  // starts from the start speed; 0.5 km/h: the encoder noise's band, common practice, no source), and the
+  // display cleared after each run.
+  std::vector<nlohmann::json> rs;
+  ASSERT_TRUE(record::read_log(folder + "/events.jsonl", &rs).ok);
+  int accelerate = 0, neutral = 0, cleared = 0, checked = 0;
+  for (const auto& e : rs) {
+    if (e.value("type", "") == "run_up") {
+      EXPECT_EQ(e.value("run_up", ""), "vehicle") << e.dump();
+    }
+    if (e.value("type", "") == "driver_prompt") {
+      accelerate += e.value("prompt", "") == "accelerate";
+      neutral += e.value("prompt", "") == "neutral";
+      cleared += e.value("prompt", "") == "off";
+    }
+    if (e.value("type", "") == "run_up_checked") {
+      ++checked;
+      EXPECT_EQ(e.value("ending", ""), "coasted") << e.dump();
+      EXPECT_EQ(e.value("detected_by", ""), "neutral signal") << e.dump();
+      EXPECT_GE(e.value("release_speed_kmh", 0.0), e.value("start_speed_kmh", 1e9) - 0.5) << e.dump();
+      EXPECT_GT(e.value("release_delay_s", -1.0), 0.0) << e.dump();
+    }
+  }
+  EXPECT_GE(checked, 2) << "two consecutive passes at least (GTR 15 Annex 4 §8.1.3.4.2)";
+  EXPECT_EQ(accelerate, checked);
+  EXPECT_EQ(neutral, checked);
+  EXPECT_EQ(cleared, checked);
   if (!HasFailure()) fs::remove_all(dir);
 }
