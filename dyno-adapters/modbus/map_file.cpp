@@ -41,6 +41,11 @@ RegisterMap read_register_map(config::TomlReader& r) {
   if (r.has("modbus.modes.free_coast"))
     m.modes.free_coast = static_cast<int>(r.integer_or("modbus.modes.free_coast", -1, 5, 65535));
   m.accept_setpoint_readback = r.boolean_or("modbus.accept_setpoint_readback", false);
+  // The vehicle-in-neutral bit of the status register (register_map.hpp RegisterMap::neutral_bit): a whole
+  // number in range here; a single bit that the status register can hold in validate.
+  if (r.has("modbus.status_bits.neutral"))
+    m.neutral_bit =
+        static_cast<std::uint32_t>(r.integer_or("modbus.status_bits.neutral", 0, 32, kHighestNeutralBit));
   r.add(validate(m));
   return m;
 }

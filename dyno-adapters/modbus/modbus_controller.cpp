@@ -245,6 +245,9 @@ Result ModbusController::do_identify(controller::ControllerInfo& out, controller
   // Logged with the controller in every session and shown on the report: the read-back proves only that the
   // write arrived.
   if (!settings_.map.reads_applied()) out.capabilities += ",readback-setpoint-only";
+  // The driver display and the neutral signal only where the map names their registers and bit.
+  if (settings_.map.has_driver_display()) out.capabilities += ",driver";
+  if (settings_.map.neutral_bit != 0) out.capabilities += ",neutral";
   if (Result r = read(Q::roller_diameter, out.roller_diameter_m); !r.ok()) return r;
   if (Result r = read(Q::base_inertia, out.base_inertia_kg); !r.ok()) return r;
   if (Result r = read(Q::max_speed, out.max_speed_kmh); !r.ok()) return r;
@@ -342,6 +345,59 @@ Result ModbusController::do_command(controller::Mode mode, double value, control
   return strobe(d);
 }
 
+Result ModbusController::do_prompt_driver(controller::DriverPrompt p, double speed_kmh,
+                                          controller::Deadline d) {
+  const RegisterMap& m = settings_.map;
+  if (!m.has_driver_display()) return Result::fail(missing_for_driver(m));
+  const bool accelerate = p == controller::DriverPrompt::accelerate;
+  if (accelerate) {
+    if (Result r = write(Q::prompt_speed, speed_kmh); !r.ok()) return r;
+    // The driver sets the rollers moving: a beat first, as before a motoring command.
+    if (Result r = beat(); !r.ok()) return r;
+  }
+  const int code = prompt_code(p);
+  if (Result r = write(Q::driver_prompt, code); !r.ok()) return r;
+  if (Result r = strobe(d); !r.ok()) return r;
+  // What the display shows, read back like every setpoint: a controller that clears the strobe but shows
+  // another prompt (or none) must not leave a driver waiting for a prompt that never came.
+  const Register& pr = m[Q::driver_prompt];
+  double shown = -1.0;
+  if (Result r = read(Q::driver_prompt, shown); !r.ok()) return r;
+  if (shown != code)
+    return Result::fail(
+        "the controller reads back the driver prompt code " + core::num(shown) + " (" + to_string(pr.table) +
+        " " + std::to_string(pr.address) + ") after the strobe, not the " + std::to_string(code) + " (" +
+        controller::to_string(p) + ") written (0 off, 1 accelerate, 2 neutral); refusing to go on");
+  if (accelerate) {
+    const Register& sp = m[Q::prompt_speed];
+    double back = 0.0;
+    if (Result r = read(Q::prompt_speed, back); !r.ok()) return r;
+    // Half a count of an integer register (written and read back through the same one), float32's last place.
+    const double tol =
+        readback_tolerance(speed_kmh) + (sp.type == Type::float32 ? 0.0 : std::abs(sp.scale) / 2.0);
+    if (!(std::abs(back - speed_kmh) <= tol))
+      return Result::fail("the controller reads back a prompt speed of " + core::num(back) + " km/h (" +
+                          to_string(sp.table) + " " + std::to_string(sp.address) +
+                          ") after the strobe, not the " + core::num(speed_kmh) +
+                          " km/h written; refusing to go on");
+  }
+  return Result::success();
+}
+
+std::string ModbusController::driver_prompt_unavailable() const {
+  const RegisterMap& m = settings_.map;
+  if (std::string why = missing_for_driver(m); !why.empty()) return why;
+  // Every speed the tool may prompt, up to the cell's speed limit, must fit the register (checked before
+  // connecting, not at the first run-up after the warm-up).
+  const Register& sp = m[Q::prompt_speed];
+  std::uint16_t w[4] = {0, 0, 0, 0};
+  const double top = limits().max_speed_kmh;
+  if (top > 0.0 && !encode(sp, top, w))
+    return "the register map's modbus.prompt_speed (" + std::string(to_string(sp.type)) + ", scale " +
+           core::num(sp.scale) + ") cannot carry the cell's speed limit of " + core::num(top) + " km/h";
+  return "";
+}
+
 Result ModbusController::do_read_force(std::optional<double>& force_n, controller::Deadline) {
   // The force setpoint register, read after the strobe; the controller layer compares it with what was
   // written (setting_tolerance).
@@ -388,24 +444,29 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   }
   if (std::string bad = decode_mode(mode, s.mode, settings_.map.modes); !bad.empty())
     return Result::fail(bad);
-  if (std::string bad = decode_flags(status, s.flags); !bad.empty()) return Result::fail(bad);
-  check_status_bits(s.flags);
+  std::uint32_t raw = 0;
+  if (std::string bad = decode_flags(status, raw); !bad.empty()) return Result::fail(bad);
+  check_status_bits(raw);
+  s.flags = controller_flags(settings_.map, raw);
   s.index = index_++;
   out.push_back(s);
   return Result::success();
 }
 
 void ModbusController::check_status_bits(std::uint32_t flags) {
-  const std::uint32_t fresh = flags & ~kDefinedStatusBits & ~warned_status_bits_;
+  const std::uint32_t fresh = flags & ~settings_.map.defined_status_bits() & ~warned_status_bits_;
   if (!fresh) return;
   warned_status_bits_ |= fresh;
   char hex[16];
   std::snprintf(hex, sizeof hex, "0x%X", fresh);
   // A warning the first time each bit is seen, not a stop (the defined bits still act, the at-limit bit
   // among them); the operator should learn what they mean from the controller's documentation.
-  warn("status_bits", std::string("the controller's status register sets bits the map does not define (") +
-                          hex +
-                          "; defined: 1 fault, 2 emergency stop, 4 watchdog, 8 at a limit, 16 at setpoint)");
+  const std::string neutral = settings_.map.neutral_bit != 0
+                                  ? ", " + std::to_string(settings_.map.neutral_bit) + " vehicle in neutral"
+                                  : std::string();
+  warn("status_bits",
+       std::string("the controller's status register sets bits the map does not define (") + hex +
+           "; defined: 1 fault, 2 emergency stop, 4 watchdog, 8 at a limit, 16 at setpoint" + neutral + ")");
 }
 
 double ModbusController::host_time_s(Clock::time_point at) const {
@@ -447,8 +508,10 @@ Result ModbusController::do_status(controller::StatusReport& out, controller::De
   }
   if (std::string bad = decode_mode(mode, out.mode, settings_.map.modes); !bad.empty())
     return Result::fail(bad);
-  if (std::string bad = decode_flags(status, out.flags); !bad.empty()) return Result::fail(bad);
-  check_status_bits(out.flags);
+  std::uint32_t raw = 0;
+  if (std::string bad = decode_flags(status, raw); !bad.empty()) return Result::fail(bad);
+  check_status_bits(raw);
+  out.flags = controller_flags(settings_.map, raw);
   out.fault = adapters::fault_name(out.flags);
   return Result::success();
 }

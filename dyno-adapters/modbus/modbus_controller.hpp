@@ -4,7 +4,9 @@
 // time register gives the sample and status time when the map has one, else the host clock does (since
 // connect, at the controller's stated rate) and the poll jitter is measured. Heartbeat: a counter register
 // the controller's watchdog watches, continued from its value at identify and beaten once more just before
-// every command that sets the rollers moving; it wraps at the register's width. What the controller or the
+// every command that sets the rollers moving; it wraps at the register's width. A driver display where the
+// map names one (driver_prompt, prompt_speed) and the vehicle-in-neutral bit of the status register
+// (status_bits.neutral, reported as controller::kFlagNeutral). What the controller or the
 // link does that is no failure but must not pass unseen (undefined status bits, exceptions retried, late
 // bytes discarded, a heartbeat register holding no count) is raised as a warning (Controller::warn).
 #pragma once
@@ -65,10 +67,13 @@ class ModbusController : public controller::Controller {
   double setting_tolerance(Setting what, double written) const override;
   std::string readback_source() const override;
   std::string mode_unavailable(controller::Mode mode) const override;
-  // No register of the map carries a driver display yet (docs/modbus.md, "Driver prompts").
-  std::string driver_prompt_unavailable() const override {
-    return "the Modbus register map has no driver-prompt registers (docs/modbus.md, \"Driver prompts\")";
-  }
+  // The driver display (docs/modbus.md, "Driver prompts"): the prompt speed (accelerate only) and the prompt
+  // code, one strobe, then both read back and compared with what was written.
+  controller::Result do_prompt_driver(controller::DriverPrompt p, double speed_kmh,
+                                      controller::Deadline d) override;
+  // The map's driver-display keys it lacks, or a prompt-speed register that cannot carry the cell's speed
+  // limit; "" when a driver can be prompted.
+  std::string driver_prompt_unavailable() const override;
   double polled_rate_hz() const override { return settings_.map.poll_rate_hz; }
 
  private:

@@ -129,7 +129,87 @@ core::Problems validate(const RegisterMap& m) {
     err("modbus.modes.constant_force",
         "is missing: modbus.force_setpoint is written only with the constant-force command code, "
         "allowed 5 to 65535");
+  // The driver display: both registers or neither, a prompt register that carries the codes 0 to 2, and a
+  // neutral bit only with a display (it is read only while a prompt is shown).
+  const bool prompt = m.regs[Q::driver_prompt].present, speed = m.regs[Q::prompt_speed].present;
+  if (prompt != speed)
+    err(prompt ? "modbus.prompt_speed" : "modbus.driver_prompt",
+        "is missing: the driver display is written together (driver_prompt: 0 off, 1 accelerate, 2 neutral; "
+        "prompt_speed: the speed to accelerate to, km/h), so the map names both or neither");
+  if (prompt) {
+    std::uint16_t w[4] = {0, 0, 0, 0};
+    const Register& r = m.regs[Q::driver_prompt];
+    for (int c : {kPromptOff, kPromptAccelerate, kPromptNeutral})
+      if (!encode(r, c, w) || decode(r, w) != c) {
+        err("modbus.driver_prompt.type", std::string("is \"") + to_string(r.type) + "\" with scale " +
+                                             core::num(r.scale) + ", which cannot carry the prompt code " +
+                                             std::to_string(c) + " (0 off, 1 accelerate, 2 neutral)");
+        break;
+      }
+  }
+  if (m.neutral_bit != 0) {
+    const Register& st = m.regs[Q::status];
+    // The highest bit the status register can report as a bit field (decode_flags): a signed type's sign bit
+    // reads negative, and float32 holds whole numbers exactly up to 2^24.
+    const int width = !st.present || st.type == Type::float32 ? 24
+                      : st.type == Type::int16                ? 15
+                      : st.type == Type::uint16               ? 16
+                                                              : 31;
+    const std::uint64_t highest =
+        std::min<std::uint64_t>(kHighestNeutralBit, std::uint64_t{1} << (width - 1));
+    const bool single = (m.neutral_bit & (m.neutral_bit - 1)) == 0;
+    if (!single || m.neutral_bit <= kDefinedStatusBits || m.neutral_bit > highest)
+      err("modbus.status_bits.neutral", "is " + std::to_string(m.neutral_bit) +
+                                            ", allowed a single bit (a power of two) from 32 to " +
+                                            std::to_string(highest) + " (the status register is " +
+                                            to_string(st.type) + "; 1 to 16 are the defined bits)");
+    else if (!prompt)
+      err("modbus.status_bits.neutral",
+          "is given, but the map has no driver display (modbus.driver_prompt, modbus.prompt_speed): the "
+          "neutral signal is read only while a driver prompt is shown");
+  }
   return ps;
+}
+
+int prompt_code(controller::DriverPrompt p) {
+  switch (p) {
+    case controller::DriverPrompt::accelerate:
+      return kPromptAccelerate;
+    case controller::DriverPrompt::neutral:
+      return kPromptNeutral;
+    case controller::DriverPrompt::off:
+      return kPromptOff;
+  }
+  return kPromptOff;
+}
+
+std::optional<controller::DriverPrompt> prompt_of(double code) {
+  if (code == kPromptOff) return controller::DriverPrompt::off;
+  if (code == kPromptAccelerate) return controller::DriverPrompt::accelerate;
+  if (code == kPromptNeutral) return controller::DriverPrompt::neutral;
+  return std::nullopt;
+}
+
+std::string missing_for_driver(const RegisterMap& m) {
+  std::vector<std::string> keys;
+  if (!m.regs[Q::driver_prompt].present) keys.push_back("modbus.driver_prompt");
+  if (!m.regs[Q::prompt_speed].present) keys.push_back("modbus.prompt_speed");
+  if (keys.empty()) return "";
+  std::string s = "the register map has no " + keys[0];
+  if (keys.size() > 1) s += " and " + keys[1];
+  return s + " (the driver display, docs/modbus.md \"Driver prompts\")";
+}
+
+std::uint32_t controller_flags(const RegisterMap& m, std::uint32_t raw) {
+  std::uint32_t out = raw & ~controller::kFlagNeutral & ~m.neutral_bit;
+  if (m.neutral_bit != 0 && (raw & m.neutral_bit) != 0) out |= controller::kFlagNeutral;
+  return out;
+}
+
+std::uint32_t status_register_bits(const RegisterMap& m, std::uint32_t flags) {
+  std::uint32_t out = flags & ~controller::kFlagNeutral;
+  if (m.neutral_bit != 0 && (flags & controller::kFlagNeutral) != 0) out |= m.neutral_bit;
+  return out;
 }
 
 std::string missing_for(const RegisterMap& m, controller::Mode mode) {

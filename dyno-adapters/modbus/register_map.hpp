@@ -41,6 +41,12 @@ struct Register {
 inline constexpr int kCommandIdle = 0, kCommandHold = 1, kCommandRoadLoad = 2, kCommandStop = 3,
                      kCommandClearFault = 4;
 
+// The driver-prompt register's codes (ours): what the driver display shows.
+inline constexpr int kPromptOff = 0, kPromptAccelerate = 1, kPromptNeutral = 2;
+int prompt_code(controller::DriverPrompt p);
+// The prompt a code stands for; nothing for a code that is none of the three.
+std::optional<controller::DriverPrompt> prompt_of(double code);
+
 // The codes of the dyno checks' modes, which controllers number differently and not every one offers: from
 // the map's [modbus.modes] table (keys constant_force, free_coast); -1 = the map does not name it, so the
 // adapter does not offer the mode. A constant force also needs the force_setpoint register.
@@ -56,7 +62,7 @@ struct Quantity {
   bool writable;  // the tool writes it (holding register or coil)
 };
 // The quantities a map may name, in a fixed order (index = position in RegisterMap::regs).
-inline constexpr std::array<Quantity, 24> kQuantities = {{
+inline constexpr std::array<Quantity, 26> kQuantities = {{
     {"speed", "km/h", true, false},
     {"force", "N", true, false},
     {"time", "s", false, false},
@@ -87,6 +93,11 @@ inline constexpr std::array<Quantity, 24> kQuantities = {{
     {"applied_f0", "N", false, false},
     {"applied_f1", "N/(km/h)", false, false},
     {"applied_f2", "N/(km/h)^2", false, false},
+    // The driver display (docs/modbus.md, "Driver prompts"): the prompt code (kPromptOff, kPromptAccelerate,
+    // kPromptNeutral) and the speed to accelerate to, taken with the strobe and read back after it. Both or
+    // neither; without them a run-up under the vehicle's own power cannot be prompted over this map.
+    {"driver_prompt", "", false, true},
+    {"prompt_speed", "km/h", false, true},
 }};
 enum Q : std::size_t {
   speed,
@@ -112,7 +123,9 @@ enum Q : std::size_t {
   applied_inertia,
   applied_f0,
   applied_f1,
-  applied_f2
+  applied_f2,
+  driver_prompt,
+  prompt_speed
 };
 inline constexpr std::array<Q, 4> kApplied = {Q::applied_inertia, Q::applied_f0, Q::applied_f1,
                                               Q::applied_f2};
@@ -132,6 +145,8 @@ struct RetryPolicy {
 bool retryable_exception(int code);
 // The status bits the map defines (docs/modbus.md): fault, emergency stop, watchdog, at a limit, at setpoint.
 inline constexpr std::uint32_t kDefinedStatusBits = 0x1F;
+// The highest bit modbus.status_bits.neutral may name (2^30; lower for a 16-bit or float32 status register).
+inline constexpr int kHighestNeutralBit = 1 << 30;
 
 struct RegisterMap {
   int unit_id = 1;
@@ -143,8 +158,15 @@ struct RegisterMap {
   // read-back is then of the setpoint registers only (it proves the write, not that the controller runs it),
   // which every session logs (the controller's capability "readback-setpoint-only") and the report shows.
   bool accept_setpoint_readback = false;
+  // modbus.status_bits.neutral: the status register's bit (its value, a power of two above 16) that says the
+  // vehicle is in neutral while a driver prompt is shown; 0 = the map names none, and the release is found in
+  // the speed trace. The adapter reports it as controller::kFlagNeutral.
+  std::uint32_t neutral_bit = 0;
   const Register& operator[](Q q) const { return regs[q]; }
   bool reads_applied() const { return regs[Q::applied_inertia].present; }
+  bool has_driver_display() const { return regs[Q::driver_prompt].present && regs[Q::prompt_speed].present; }
+  // The status bits the map defines: kDefinedStatusBits and the neutral bit.
+  std::uint32_t defined_status_bits() const { return kDefinedStatusBits | neutral_bit; }
 };
 
 // Every problem at once, keys "modbus.<quantity>.<field>" and "modbus.modes.<mode>".
@@ -155,6 +177,16 @@ core::Problems validate(const RegisterMap& m);
 std::string missing_for(const RegisterMap& m, controller::Mode mode);
 // The command register's code for `mode` (-1 when the map has none).
 int command_code(const RegisterMap& m, controller::Mode mode);
+// "" when the map carries a driver display (driver_prompt and prompt_speed), else which keys it lacks ("the
+// register map has no modbus.driver_prompt and modbus.prompt_speed ...").
+std::string missing_for_driver(const RegisterMap& m);
+// The status register's raw bits as every adapter reports them (controller::kFlag*): the map's neutral bit
+// becomes controller::kFlagNeutral; a raw 0x20 that is not the map's neutral bit is dropped (it would read
+// as the neutral signal). The other bits pass as they are.
+std::uint32_t controller_flags(const RegisterMap& m, std::uint32_t raw);
+// The other way (the simulated controller): controller::kFlagNeutral becomes the map's neutral bit, or is
+// dropped when the map has none.
+std::uint32_t status_register_bits(const RegisterMap& m, std::uint32_t flags);
 
 // Raw words ↔ physical value, per the register's type, word order and scale. encode refuses (returns false
 // and writes nothing) a value that is not finite or does not fit the register's type after scaling: a

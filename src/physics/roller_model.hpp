@@ -131,6 +131,7 @@ class RollerModel {
   void prompt_driver(core::DriverPrompt p, double speed_kmh = 0.0);
   bool in_neutral() const { return !in_gear_; }
   core::DriverPrompt driver_prompt() const { return prompt_; }
+  double prompted_kmh() const { return prompted_kmh_; }  // the speed of the last "accelerate" prompt
   double tractive_force_n() const;  // what the driver applies now (0 in neutral or outside road-load)
 
   // Advance simulated time by dt_s with fixed RK4 steps no longer than max_step_s.

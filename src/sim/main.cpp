@@ -80,6 +80,10 @@ int main(int argc, char** argv) {
       ->check(CLI::Range(0.0, 1e15));
   f->add_flag("--modbus-coefficients-not-applied", mb_opt.coefficients_not_applied,
               "Modbus: acknowledge every coefficient setting after the first without applying it");
+  f->add_flag(
+      "--modbus-prompt-not-shown", mb_opt.prompt_not_shown,
+      "Modbus: acknowledge every driver prompt without showing it (the prompt registers read back the "
+      "prompt shown before)");
   f->add_option("--modbus-status-bits", mb_opt.extra_status_bits,
                 "Modbus: the status register also sets these bits (e.g. 64: a bit the map does not define)")
       ->check(CLI::Range(0u, 65535u));

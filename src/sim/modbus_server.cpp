@@ -81,6 +81,12 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     put(Q::applied_f2, sim.model().coefficients().f2_n_per_kmh2);
   };
   publish_applied();
+  // What the driver display shows, read back after every prompt (docs/modbus.md, "Driver prompts").
+  auto publish_prompt = [&] {
+    put(Q::driver_prompt, modbus::prompt_code(sim.model().driver_prompt()));
+    put(Q::prompt_speed, sim.model().prompted_kmh());
+  };
+  publish_prompt();
   // The time register: a counter that wraps at its period (0 = float32, no wrap).
   const double period_s = modbus::counter_period_s(map[Q::time]);
   auto counter = [&](double t) {
@@ -95,7 +101,8 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     put(Q::time, counter(s.time_s));
     // A mode the map has no code for reads as idle (it cannot have been commanded over this map).
     put(Q::mode, std::max(modbus::kCommandIdle, modbus::command_code(map, s.mode)));
-    put(Q::status, s.flags | options.extra_status_bits);
+    // The vehicle-in-neutral flag as the map's neutral bit (none without one: the tool reads the trace).
+    put(Q::status, modbus::status_register_bits(map, s.flags) | options.extra_status_bits);
   };
 
   modbus_t* ctx = nullptr;
@@ -166,7 +173,9 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
     }
     if (beats.changed(get(Q::heartbeat))) sim.touch(wall());
     if (get(Q::strobe) != 0.0) {
-      auto was = [&](Q q) { return map[q].table != Table::coil && written.count(map[q].address) > 0; };
+      auto was = [&](Q q) {
+        return map[q].present && map[q].table != Table::coil && written.count(map[q].address) > 0;
+      };
       std::optional<SimError> e;
       if (was(Q::inertia)) e = sim.set_inertia(get(Q::inertia));
       const bool coefficients = was(Q::f0) || was(Q::f1) || was(Q::f2);
@@ -193,6 +202,15 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
         else
           e = SimError{Cause::bad_argument, "command code " + std::to_string(c) + " is not in the map"};
       }
+      if (!e && (was(Q::driver_prompt) || was(Q::prompt_speed))) {
+        const auto p = modbus::prompt_of(get(Q::driver_prompt));
+        if (!p)
+          e = SimError{Cause::bad_argument, "driver prompt code " + std::to_string(get(Q::driver_prompt)) +
+                                                " is not 0 off, 1 accelerate or 2 neutral"};
+        else if (!options
+                      .prompt_not_shown)  // the lie: acknowledged, not shown (the display keeps its prompt)
+          e = sim.prompt_driver(*p, get(Q::prompt_speed));
+      }
       put(Q::error, e ? static_cast<double>(modbus_error_code(e->cause)) : 0.0);
       put(Q::inertia, sim.model().inertia_set_kg());
       if (!lie) {  // the lie leaves the setpoint registers as written: they read back what the tool wrote
@@ -201,6 +219,7 @@ int run_modbus_server(const physics::Truth& truth, const SimSettings& settings, 
         put(Q::f2, sim.model().coefficients().f2_n_per_kmh2);
       }
       publish_applied();
+      publish_prompt();
       written.clear();
       put(Q::strobe, 0.0);
     }

@@ -47,6 +47,9 @@ struct ModbusOptions {
   // setpoint registers keep what was written) but never applied; the applied-value registers keep reporting
   // the first.
   bool coefficients_not_applied = false;
+  // A lie, for tests: every driver prompt is acknowledged (strobe cleared, error 0) but not shown: the driver
+  // is not prompted and the prompt registers read back what the display showed before.
+  bool prompt_not_shown = false;
   // A fault, for tests: the status register also sets these bits always (e.g. 0x40, one the map does not
   // define), whatever the simulated controller's own flags.
   unsigned extra_status_bits = 0;

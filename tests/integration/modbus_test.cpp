@@ -528,6 +528,107 @@ TEST(Modbus, AReplyTricklingInSlowerThanTheWholeReplyBoundIsATimeout) {
   c.disconnect();
 }
 
+// The driver display over Modbus TCP (docs/modbus.md, "Driver prompts"): the prompts written with the strobe
+// and read back, the driver (the simulator's driver model) accelerating the vehicle in road-load simulation,
+// and the map's neutral bit reported as the neutral flag, only while a prompt is shown.
+TEST(Modbus, DriverPromptsAreReadBackAndTheNeutralBitIsReported) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20"});
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  EXPECT_TRUE(info.has("driver")) << info.capabilities;
+  EXPECT_TRUE(info.has("neutral")) << info.capabilities;
+  ASSERT_TRUE(c.set_inertia(1491.075).ok());
+  ASSERT_TRUE(c.set_coefficients({42.38, 0.3135, 0.03013}).ok());
+  ASSERT_TRUE(c.start_stream(50.0).ok());
+  ASSERT_TRUE(c.release_road_load().ok());
+  const controller::Result acc = c.prompt_driver(controller::DriverPrompt::accelerate, 60.0);
+  ASSERT_TRUE(acc.ok()) << acc.message;
+  // Before the driver engages a gear the vehicle is in neutral (the flag is set); then in gear up to 60 km/h.
+  bool in_gear = false;
+  const auto up = poll_until(
+      c,
+      [&](const controller::Sample& s) {
+        in_gear = in_gear || (s.flags & controller::kFlagNeutral) == 0;
+        return in_gear && s.speed_kmh >= 60.0;
+      },
+      5000);
+  ASSERT_FALSE(up.empty());
+  ASSERT_GE(up.back().speed_kmh, 60.0);
+  EXPECT_EQ(up.back().flags & controller::kFlagNeutral, 0u);
+  EXPECT_EQ(up.back().mode, controller::Mode::road_load);
+  const controller::Result neu = c.prompt_driver(controller::DriverPrompt::neutral);
+  ASSERT_TRUE(neu.ok()) << neu.message;
+  const auto shift = poll_until(
+      c, [](const controller::Sample& s) { return (s.flags & controller::kFlagNeutral) != 0; }, 5000);
+  ASSERT_FALSE(shift.empty());
+  EXPECT_NE(shift.back().flags & controller::kFlagNeutral, 0u);
+  // The status reply reads the same register: the same flag.
+  controller::StatusReport st;
+  ASSERT_TRUE(c.status(st).ok());
+  EXPECT_NE(st.flags & controller::kFlagNeutral, 0u);
+  // Cleared: no prompt shown, no neutral signal.
+  ASSERT_TRUE(c.prompt_driver(controller::DriverPrompt::off).ok());
+  const auto off = poll_until(
+      c, [](const controller::Sample& s) { return (s.flags & controller::kFlagNeutral) == 0; }, 50);
+  ASSERT_FALSE(off.empty());
+  EXPECT_EQ(off.back().flags & controller::kFlagNeutral, 0u);
+  ASSERT_TRUE(c.controlled_stop().ok());
+}
+
+// A controller that clears the strobe but does not show the prompt (its prompt register still reads "off"):
+// refused at the first prompt, as a setting that reads back otherwise is (docs/modbus.md, "Driver prompts").
+TEST(Modbus, APromptAcknowledgedButNotShownIsRefused) {
+  SimProcess sim({"--modbus-map", kCell, "--time-scale", "20", "--modbus-prompt-not-shown"});
+  modbus::ModbusController c(cell_for(sim.port()));
+  ASSERT_TRUE(c.connect().ok());
+  controller::ControllerInfo info;
+  ASSERT_TRUE(c.identify(info).ok());
+  ASSERT_TRUE(c.release_road_load().ok());
+  const controller::Result r = c.prompt_driver(controller::DriverPrompt::accelerate, 60.0);
+  EXPECT_FALSE(r.ok());
+  EXPECT_EQ(r.status, controller::Result::Status::fatal);
+  EXPECT_NE(r.message.find("reads back the driver prompt code 0 (holding 14) after the strobe, not the 1 "
+                           "(accelerate) written"),
+            std::string::npos)
+      << r.message;
+  ASSERT_TRUE(c.controlled_stop().ok());
+}
+
+// A "vehicle" cell whose map has no driver display: refused before anything connects (nothing listens on port
+// 1: a connect attempt would end in a connect failure, exit 3), exit 2, naming the keys the map lacks
+// (docs/session.md, "Who accelerates the vehicle").
+TEST(Modbus, AVehicleCellWithoutTheDriverRegistersIsRefusedBeforeConnecting) {
+  std::string dir = (fs::temp_directory_path() / "loadtrim-modbus-nodriver-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  std::string cell = [] {
+    std::ifstream in(kCell);
+    return std::string(std::istreambuf_iterator<char>(in), {});
+  }();
+  const auto from = cell.find("# The driver display"), to = cell.find("# The dyno's own checks");
+  ASSERT_NE(from, std::string::npos);
+  ASSERT_NE(to, std::string::npos);
+  cell.erase(from, to - from);
+  const std::string dyno = "run_up = \"dyno\"";
+  cell.replace(cell.find(dyno), dyno.size(), "run_up = \"vehicle\"");
+  std::ofstream(dir + "/cell.toml") << cell;
+  std::string out, err;
+  const int rc = run_command(
+      {LOADTRIM_EXE, "run", "--override-checks", "integration test", "--cell", dir + "/cell.toml", "--port",
+       "1", "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--profile",
+       kSrc + "/tests/data/wltp-fixed-run-short-warmup.toml", "--sessions", dir, "--unattended", "--quiet"},
+      &out, &err);
+  EXPECT_EQ(rc, 2) << out << err;
+  // The session's refusal (stdout; the session folder records it too): before connect, so no connect error.
+  EXPECT_NE(out.find("refused: the cell's dyno.run_up is \"vehicle\""), std::string::npos) << out << err;
+  EXPECT_NE(out.find("the register map has no modbus.driver_prompt and modbus.prompt_speed"),
+            std::string::npos)
+      << out;
+  EXPECT_EQ((out + err).find("connect"), std::string::npos) << out << err;
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
 TEST(Modbus, BadRegisterMapsAreRefused) {
   std::string base;
   {
@@ -572,7 +673,9 @@ TEST(Modbus, BadRegisterMapsAreRefused) {
 // With a map that has none of the dyno checks' entries (force setpoint, [modbus.modes]), as a map written
 // before they existed: setting sessions need none of them. The simulator also sets status bit 0x40 all along,
 // which the map does not define (docs/modbus.md, "Status bits"): a named warning, logged once as a
-// controller_warning record, and no stop; the session ends as an honest one does.
+// controller_warning record, and no stop; the session ends as an honest one does. The cell is a "vehicle"
+// one: every run-up is the simulated driver's, prompted through the map's driver display, the release found
+// by the map's neutral bit (docs/modbus.md, "Driver prompts"; docs/session.md).
 TEST(Modbus, FullSessionOverModbusTcp) {
   std::string dir = (fs::temp_directory_path() / "loadtrim-modbus-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
@@ -587,6 +690,9 @@ TEST(Modbus, FullSessionOverModbusTcp) {
   cell.resize(checks_part);
   ASSERT_EQ(cell.find("\n[modbus.force_setpoint]"), std::string::npos);
   ASSERT_EQ(cell.find("\n[modbus.modes]"), std::string::npos);
+  ASSERT_NE(cell.find("\n[modbus.driver_prompt]"), std::string::npos);
+  const std::string dyno = "run_up = \"dyno\"";
+  cell.replace(cell.find(dyno), dyno.size(), "run_up = \"vehicle\"");
   std::ofstream(dir + "/cell.toml") << cell;
   SimProcess sim({"--modbus-map", dir + "/cell.toml", "--time-scale", "20", "--modbus-status-bits", "64"});
   std::string out, err;
@@ -624,5 +730,33 @@ TEST(Modbus, FullSessionOverModbusTcp) {
   }
   EXPECT_EQ(warnings, 1) << "the undefined status bit is named once in the session's log";
   EXPECT_TRUE(finished_after);
+  // The driver's prompts and releases in the record: each run prompted to accelerate and to shift to neutral,
+  // the release found by the neutral bit at or above the start speed (GTR 15 Annex 4 §8.1.3.4: the coast
+  // starts from the start speed; 0.5 km/h: the encoder noise's band, common practice, no source), and the
+  // display cleared after each run.
+  std::vector<nlohmann::json> rs;
+  ASSERT_TRUE(record::read_log(folder + "/events.jsonl", &rs).ok);
+  int accelerate = 0, neutral = 0, cleared = 0, checked = 0;
+  for (const auto& e : rs) {
+    if (e.value("type", "") == "run_up") {
+      EXPECT_EQ(e.value("run_up", ""), "vehicle") << e.dump();
+    }
+    if (e.value("type", "") == "driver_prompt") {
+      accelerate += e.value("prompt", "") == "accelerate";
+      neutral += e.value("prompt", "") == "neutral";
+      cleared += e.value("prompt", "") == "off";
+    }
+    if (e.value("type", "") == "run_up_checked") {
+      ++checked;
+      EXPECT_EQ(e.value("ending", ""), "coasted") << e.dump();
+      EXPECT_EQ(e.value("detected_by", ""), "neutral signal") << e.dump();
+      EXPECT_GE(e.value("release_speed_kmh", 0.0), e.value("start_speed_kmh", 1e9) - 0.5) << e.dump();
+      EXPECT_GT(e.value("release_delay_s", -1.0), 0.0) << e.dump();
+    }
+  }
+  EXPECT_GE(checked, 2) << "two consecutive passes at least (GTR 15 Annex 4 §8.1.3.4.2)";
+  EXPECT_EQ(accelerate, checked);
+  EXPECT_EQ(neutral, checked);
+  EXPECT_EQ(cleared, checked);
   if (!HasFailure()) fs::remove_all(dir);
 }

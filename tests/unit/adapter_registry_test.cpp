@@ -199,7 +199,8 @@ TEST(AdapterRegistry, StandstillThresholdComesFromTheCellOrTheStatedSpeedNoise) 
 
 // Who accelerates the vehicle (docs/session.md): the shipped cells state it, and an adapter whose
 // configuration rules out a driver display says so before anything connects (a "vehicle" cell on it is
-// refused then).
+// refused then). The shipped Modbus map names the driver-display registers (docs/modbus.md, "Driver
+// prompts"), though its cell keeps the dyno motoring; the framed dialect has no display.
 TEST(AdapterRegistry, DriverDisplayAvailableOnlyWhereTheDialectCarriesIt) {
   struct Row {
     const char* file;
@@ -208,7 +209,7 @@ TEST(AdapterRegistry, DriverDisplayAvailableOnlyWhereTheDialectCarriesIt) {
   };
   for (const Row& r :
        {Row{"sim-tcp", core::RunUp::vehicle, true}, Row{"sim-serial", core::RunUp::vehicle, true},
-        Row{"sim-modbus", core::RunUp::dyno, false}, Row{"sim-framed", core::RunUp::dyno, false}}) {
+        Row{"sim-modbus", core::RunUp::dyno, true}, Row{"sim-framed", core::RunUp::dyno, false}}) {
     const controller::CellConfig c =
         config::load_cell(kSrc + "/config/cells/" + r.file + ".toml", adapters::production().sections());
     EXPECT_EQ(c.run_up, r.run_up) << r.file;

@@ -415,3 +415,123 @@ TEST(ModbusHeartbeat, TheCounterWrapsAtTheRegistersWidth) {
   }
   EXPECT_EQ(c, 0u);
 }
+
+// ---- The driver display (docs/modbus.md, "Driver prompts") ----
+// The shipped map's driver-prompt registers and neutral bit. Check values: the prompt codes are ours (0 off,
+// 1 accelerate, 2 neutral, docs/modbus.md); 142.5 km/h at 1 count = 0.01 km/h is 14250 counts (the scale's
+// definition, physical = raw × scale); the neutral bit 32 = 2^5 (the status register read as a bit field).
+TEST(ModbusMap, ShippedMapNamesTheDriverDisplayAndTheNeutralBit) {
+  const RegisterMap m = map_of(shipped());
+  ASSERT_TRUE(m.has_driver_display());
+  EXPECT_EQ(m[Q::driver_prompt].table, Table::holding);
+  EXPECT_EQ(m[Q::driver_prompt].address, 14);
+  EXPECT_EQ(m[Q::driver_prompt].type, Type::uint16);
+  EXPECT_EQ(m[Q::prompt_speed].address, 15);
+  EXPECT_DOUBLE_EQ(m[Q::prompt_speed].scale, 0.01);
+  EXPECT_EQ(m[Q::prompt_speed].unit, "km/h");
+  EXPECT_EQ(m.neutral_bit, 32u);
+  EXPECT_EQ(missing_for_driver(m), "");
+  EXPECT_EQ(prompt_code(controller::DriverPrompt::off), 0);
+  EXPECT_EQ(prompt_code(controller::DriverPrompt::accelerate), 1);
+  EXPECT_EQ(prompt_code(controller::DriverPrompt::neutral), 2);
+  EXPECT_EQ(prompt_of(2.0), controller::DriverPrompt::neutral);
+  EXPECT_FALSE(prompt_of(3.0).has_value());
+  EXPECT_FALSE(prompt_of(1.5).has_value());
+  std::uint16_t w[4] = {0, 0, 0, 0};
+  ASSERT_TRUE(encode(m[Q::prompt_speed], 142.5, w));
+  EXPECT_EQ(w[0], 14250);
+  // The neutral bit is reported as the controller layer's flag (0x20, docs/protocol.md) and counts as
+  // defined (no status_bits warning); the other undefined bits pass as they are.
+  EXPECT_EQ(controller_flags(m, 32u | 1u), controller::kFlagNeutral | controller::kFlagFault);
+  EXPECT_EQ(controller_flags(m, 64u), 64u);
+  EXPECT_EQ(status_register_bits(m, controller::kFlagNeutral | controller::kFlagAtSetpoint), 32u | 16u);
+  EXPECT_EQ(m.defined_status_bits(), 0x3Fu);
+  const ModbusController c(config::parse_cell(shipped(), "map.toml", adapters::production().sections()));
+  EXPECT_EQ(c.driver_unavailable(), "");
+}
+
+// A neutral bit elsewhere than 0x20 (controllers number their bits differently): moved to the flag, and a raw
+// 0x20 that is not the map's neutral bit never reads as the neutral signal.
+TEST(ModbusMap, ANeutralBitElsewhereIsMovedToTheNeutralFlag) {
+  const RegisterMap m = map_of(variant("neutral = 32", "neutral = 256"));
+  EXPECT_EQ(m.neutral_bit, 256u);
+  EXPECT_EQ(controller_flags(m, 256u), controller::kFlagNeutral);
+  EXPECT_EQ(controller_flags(m, 32u), 0u);
+  EXPECT_EQ(controller_flags(m, 256u | 8u), controller::kFlagNeutral | controller::kFlagLimit);
+  EXPECT_EQ(status_register_bits(m, controller::kFlagNeutral), 256u);
+  // Without a neutral bit the flag is neither reported nor served: the release is found in the trace.
+  const RegisterMap none = map_of(variant("[modbus.status_bits]\nneutral = 32", ""));
+  EXPECT_EQ(none.neutral_bit, 0u);
+  EXPECT_TRUE(none.has_driver_display());
+  EXPECT_EQ(controller_flags(none, 32u), 0u);
+  EXPECT_EQ(status_register_bits(none, controller::kFlagNeutral), 0u);
+}
+
+// A map without the driver display (as every map written before it existed): it loads and drives dyno-motored
+// sessions, and says which keys a "vehicle" cell needs (the session refuses such a cell before connecting
+// with this text, docs/session.md).
+TEST(ModbusMap, MapWithoutTheDriverEntriesLoadsAndNamesWhatIsMissing) {
+  std::string text = shipped();
+  const auto from = text.find("# The driver display"), to = text.find("# The dyno's own checks");
+  ASSERT_NE(from, std::string::npos);
+  ASSERT_NE(to, std::string::npos);
+  text.erase(from, to - from);
+  const RegisterMap m = map_of(text);
+  EXPECT_FALSE(m.has_driver_display());
+  EXPECT_EQ(m.neutral_bit, 0u);
+  const std::string why = missing_for_driver(m);
+  EXPECT_NE(why.find("modbus.driver_prompt and modbus.prompt_speed"), std::string::npos) << why;
+  const ModbusController c(config::parse_cell(text, "map.toml", adapters::production().sections()));
+  EXPECT_EQ(c.driver_unavailable(), why);
+  // A prompt-speed register that cannot carry the cell's speed limit (160 km/h; uint16 × 0.001 km/h holds
+  // 65.535 km/h at most): refused before connecting too, naming the key and the limit.
+  const std::string narrow =
+      variant("type = \"uint16\"\nscale = 0.01            # 1 count = 0.01 km/h, as the",
+              "type = \"uint16\"\nscale = 0.001           # 1 count = 0.01 km/h, as the");
+  const ModbusController n(config::parse_cell(narrow, "map.toml", adapters::production().sections()));
+  const std::string slow = n.driver_unavailable();
+  EXPECT_NE(slow.find("modbus.prompt_speed"), std::string::npos) << slow;
+  EXPECT_NE(slow.find("160 km/h"), std::string::npos) << slow;
+}
+
+TEST(ModbusMap, BadDriverEntriesAreRefusedWithFileKeyAndRange) {
+  struct Case {
+    std::string text, must;
+    std::string key = "";  // also named, when `must` does not start with it
+  };
+  const std::string prompt_block = "[modbus.driver_prompt]\ntable = \"holding\"\naddress = 14";
+  const Case cases[] = {
+      // Not a single bit; one of the defined bits; beyond a uint16 status register; not a number.
+      {variant("neutral = 32", "neutral = 48"),
+       "is 48, allowed a single bit (a power of two) from 32 to 32768 (the status register is uint16",
+       "modbus.status_bits.neutral (line"},
+      {variant("neutral = 32", "neutral = 16"), "modbus.status_bits.neutral (line"},
+      {variant("neutral = 32", "neutral = 65536"), "is 65536, allowed a single bit",
+       "modbus.status_bits.neutral (line"},
+      {variant("neutral = 32", "neutral = \"yes\""), "modbus.status_bits.neutral (line"},
+      // One register without the other.
+      {variant("[modbus.prompt_speed]", "[modbus.not_a_prompt_speed]"),
+       "modbus.prompt_speed: is missing: the driver display is written together"},
+      {variant(prompt_block, "[modbus.not_a_driver_prompt]\ntable = \"holding\"\naddress = 14"),
+       "modbus.driver_prompt: is missing: the driver display is written together"},
+      {variant(prompt_block, "[modbus.not_a_driver_prompt]\ntable = \"holding\"\naddress = 14"),
+       "is given, but the map has no driver display", "modbus.status_bits.neutral (line"},
+      // As every quantity: unit, table, overlap; and a prompt register that cannot carry the codes.
+      {variant("scale = 0.01            # 1 count = 0.01 km/h, as the speed register\nunit = \"km/h\"",
+               "scale = 0.01\nunit = \"mph\""),
+       "modbus.prompt_speed.unit"},
+      {variant(prompt_block, "[modbus.driver_prompt]\ntable = \"input\"\naddress = 14"),
+       "modbus.driver_prompt.table"},
+      {variant(prompt_block, "[modbus.driver_prompt]\ntable = \"holding\"\naddress = 13"),
+       "overlaps force_setpoint at holding register 13"},
+      {variant(prompt_block + "\ntype = \"uint16\"", prompt_block + "\ntype = \"uint16\"\nscale = 10.0"),
+       "is \"uint16\" with scale 10, which cannot carry the prompt code 1",
+       "modbus.driver_prompt.type (line"},
+  };
+  for (const auto& c : cases) {
+    const std::string msg = refusal(c.text);
+    EXPECT_NE(msg.find("bad-map.toml"), std::string::npos) << msg;
+    EXPECT_NE(msg.find(c.must), std::string::npos) << "expected: " << c.must << "\ngot: " << msg;
+    EXPECT_NE(msg.find(c.key), std::string::npos) << "expected: " << c.key << "\ngot: " << msg;
+  }
+}
