@@ -37,8 +37,8 @@ struct InitialSettingRule {
 };
 
 // Vehicle warm-up on the dyno before the first coast-down (docs/standards.md §3: the dyno-side wording was
-// not found; the road rule is 90 % of the cycle's maximum speed for at least 20 min — used here as the
-// default, common practice).
+// not found). The road's warm-up (from memory: 90 % of the cycle's maximum speed for at least 20 min) is not
+// what the 80 km/h, 20 min default below is: that default is common practice, no source; profiles set theirs.
 struct WarmUp {
   double speed_kmh = 80.0;
   double duration_s = 1200.0;
