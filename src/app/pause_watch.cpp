@@ -1,5 +1,6 @@
 #include "app/pause_watch.hpp"
 
+#include <fcntl.h>
 #include <poll.h>
 #include <pwd.h>
 #include <signal.h>
@@ -61,13 +62,28 @@ constexpr std::size_t kMaxByChars = 200, kMaxWhyChars = 1000;
 
 }  // namespace
 
+namespace {
+struct sigaction g_old_usr1 {
+}, g_old_usr2{};
+
+// Writes `text` to a new file at `path` (an old one removed first), never through a symlink.
+bool write_new_file(const std::string& path, const std::string& text) {
+  std::error_code ec;
+  fs::remove(path, ec);
+  const int fd = ::open(path.c_str(), O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, 0644);
+  if (fd < 0) return false;
+  const bool ok = ::write(fd, text.data(), text.size()) == static_cast<ssize_t>(text.size());
+  return ::close(fd) == 0 && ok;
+}
+}  // namespace
+
 void install_pause_handlers() {
   struct sigaction sa {};
   sa.sa_sigaction = on_pause_signal;
   sa.sa_flags = SA_SIGINFO | SA_RESTART;
   sigemptyset(&sa.sa_mask);
-  ::sigaction(SIGUSR1, &sa, nullptr);
-  ::sigaction(SIGUSR2, &sa, nullptr);
+  ::sigaction(SIGUSR1, &sa, &g_old_usr1);
+  ::sigaction(SIGUSR2, &sa, &g_old_usr2);
 }
 
 PauseWatch::PauseWatch(session::PauseControl& control, std::string folder, std::string operator_name,
@@ -90,12 +106,15 @@ PauseWatch::PauseWatch(session::PauseControl& control, std::string folder, std::
   }
   g_pause_signal.store(false);
   g_continue_signal.store(false);
+  install_pause_handlers();  // only while a session can take them (elsewhere SIGUSR1/2 stop safely)
   thread_ = std::thread([this] { loop(); });
 }
 
 PauseWatch::~PauseWatch() {
   done_.store(true);
   if (thread_.joinable()) thread_.join();
+  ::sigaction(SIGUSR1, &g_old_usr1, nullptr);
+  ::sigaction(SIGUSR2, &g_old_usr2, nullptr);
   if (!request_path_.empty()) {
     std::error_code ec;
     fs::remove(request_path_, ec);
@@ -126,19 +145,34 @@ void PauseWatch::take_signals() {
 }
 
 void PauseWatch::take_file() {
-  std::error_code ec;
-  if (!fs::exists(request_path_, ec)) return;
+  // Checked before it is believed: a regular file (never through a symlink, never a FIFO that would block)
+  // of this process's own user, at most kMaxRequestBytes; one this process cannot remove is answered once.
+  const int fd = ::open(request_path_.c_str(), O_RDONLY | O_NOFOLLOW | O_NONBLOCK | O_CLOEXEC);
+  if (fd < 0) return;
   struct stat st {};
-  const bool have_stat = ::stat(request_path_.c_str(), &st) == 0;
-  const auto size = fs::file_size(request_path_, ec);
-  std::string text;
-  if (!ec && size <= kMaxRequestBytes) {
-    std::ifstream in(request_path_, std::ios::binary);
-    std::ostringstream ss;
-    ss << in.rdbuf();
-    text = ss.str();
+  std::string text, refusal;
+  if (::fstat(fd, &st) != 0 || !S_ISREG(st.st_mode)) {
+    refusal = "not a regular file";
+  } else if (st.st_uid != ::geteuid()) {
+    refusal = "the request file belongs to " + user_name(static_cast<long>(st.st_uid)) +
+              ", not to the user running the session";
+  } else {
+    char buf[kMaxRequestBytes + 1];
+    const ssize_t n = ::read(fd, buf, sizeof buf);
+    if (n <= 0 || static_cast<std::uintmax_t>(n) > kMaxRequestBytes)
+      refusal = "empty or larger than " + std::to_string(kMaxRequestBytes) + " bytes";
+    else
+      text.assign(buf, static_cast<std::size_t>(n));
   }
+  ::close(fd);
+  if (answered_ && st.st_dev == answered_dev_ && st.st_ino == answered_ino_) return;  // could not be removed
+  std::error_code ec;
   fs::remove(request_path_, ec);
+  if (ec || fs::exists(fs::symlink_status(request_path_, ec))) {
+    answered_ = true;
+    answered_dev_ = st.st_dev;
+    answered_ino_ = st.st_ino;
+  }
   std::string reply;
   const nlohmann::json j = nlohmann::json::parse(text, nullptr, /*allow_exceptions=*/false);
   const auto str = [&](const char* k) {
@@ -147,24 +181,24 @@ void PauseWatch::take_file() {
                : std::nullopt;
   };
   const auto action = str("action"), by = str("by"), why = str("why");
-  if (!action || (*action != "pause" && *action != "continue") || !by || by->empty() ||
+  if (!refusal.empty() || !action || (*action != "pause" && *action != "continue") || !by || by->empty() ||
       by->size() > kMaxByChars || (why && why->size() > kMaxWhyChars)) {
-    reply =
-        "refused: the request file is not one `loadtrim pause`/`continue` writes (action pause or continue, "
-        "by 1 to 200 characters, why at most 1000)";
+    reply = "refused: " + (refusal.empty()
+                               ? std::string("the request file is not one `loadtrim pause`/`continue` "
+                                             "writes (action pause or continue, by 1 to 200 "
+                                             "characters, why at most 1000)")
+                               : refusal);
     std::cerr << "\nloadtrim: a request for this session was refused: " << reply << "\n";
   } else {
-    const std::string source =
-        "command (user " + (have_stat ? user_name(static_cast<long>(st.st_uid)) : std::string("unknown")) +
-        ")";
-    const session::PauseRequest r{*by, why.value_or(""), source};
+    const session::PauseRequest r{*by, why.value_or(""),
+                                  "command (user " + user_name(static_cast<long>(st.st_uid)) + ")"};
     const bool ok = *action == "pause" ? control_.request_pause(r) : control_.request_continue(r);
     reply = ok ? "taken: " + *action + " by " + *by
                : std::string("ignored: ") +
                      (*action == "pause" ? "the session is already paused" : "the session is not paused");
   }
-  std::ofstream out(reply_path(request_path_), std::ios::trunc);
-  out << reply << "\n";
+  if (!write_new_file(reply_path(request_path_), reply + "\n"))
+    std::cerr << "\nloadtrim: could not answer the request at " << reply_path(request_path_) << "\n";
 }
 
 void PauseWatch::take_console() {
@@ -238,13 +272,9 @@ int send_pause_request(const std::string& folder, const std::string& action, con
   fs::remove(reply_path(path), ec);
   const nlohmann::json j = {{"action", action}, {"by", by}, {"why", why}, {"utc", record::utc_now()}};
   const std::string tmp = path + ".tmp-" + std::to_string(::getpid());
-  {
-    std::ofstream out(tmp, std::ios::trunc);
-    out << j.dump() << "\n";
-    if (!out.flush()) {
-      std::cerr << "loadtrim " << action << ": cannot write " << tmp << "\n";
-      return kBadInput;
-    }
+  if (!write_new_file(tmp, j.dump() + "\n")) {
+    std::cerr << "loadtrim " << action << ": cannot write " << tmp << "\n";
+    return kBadInput;
   }
   fs::rename(tmp, path, ec);
   if (ec) {
@@ -261,8 +291,8 @@ int send_pause_request(const std::string& folder, const std::string& action, con
     std::this_thread::sleep_for(std::chrono::milliseconds(50));
   }
   fs::remove(reply_path(path), ec);
+  fs::remove(path, ec);  // our own request, in case the session could not remove it
   if (reply.empty()) {
-    fs::remove(path, ec);
     std::cerr << "loadtrim " << action << ": the session in " << folder
               << " did not take the request within 10 s (request withdrawn)\n";
     return kBadInput;

@@ -8,6 +8,8 @@
 // is removed and named on stderr.
 #pragma once
 
+#include <sys/types.h>
+
 #include <atomic>
 #include <string>
 #include <thread>
@@ -37,6 +39,9 @@ class PauseWatch {
   std::string folder_, request_path_, operator_;
   bool console_;
   std::string line_;
+  bool answered_ = false;  // a request file that could not be removed is answered once (dev, inode)
+  dev_t answered_dev_ = 0;
+  ino_t answered_ino_ = 0;
   std::atomic<bool> done_{false};
   std::thread thread_;
 };

@@ -570,8 +570,11 @@ void install_stop_handlers() {
   // A closed terminal or ssh session (SIGHUP) and SIGQUIT stop the session safely too, never mid-motion.
   ::sigaction(SIGHUP, &sa, nullptr);
   ::sigaction(SIGQUIT, &sa, nullptr);
+  // SIGUSR1/SIGUSR2 pause and continue a running session (pause_watch.hpp, installed while one runs);
+  // anywhere else (a dyno check, the confirmation) they stop safely rather than kill the process mid-motion.
+  ::sigaction(SIGUSR1, &sa, nullptr);
+  ::sigaction(SIGUSR2, &sa, nullptr);
   ::signal(SIGPIPE, SIG_IGN);
-  install_pause_handlers();
 }
 
 void check_inputs(const RunRequest& req) {

@@ -92,7 +92,7 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
     }
     if (step.stoppable && stop_requested())
       return Result::fail("interrupted by the operator during " + step.what, kInterrupted);
-    if (step.stoppable && pause_ && pause_->load())
+    if (step.stoppable && step.pausable && pause_ && pause_->load())
       return Result::fail("paused by the operator during " + step.what, kPaused);
     if (Clock::now() >= wall_end)
       return Result::fail(step.what + " did not complete within " + num(seconds(wall_end - began), 1) +
@@ -183,7 +183,9 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
   // count its own lag against the driver).
   std::uint64_t neutral_epoch = 0;
   bool neutral_acknowledged = false;
+  double release_deadline_from_s = 0.0;
   Result prompt_failed = Result::success();
+  bool coast_too_slow = false;
   core::ReleaseDetector detector;
   std::vector<Sample> seen;  // every sample of the run-up (the detector's indices point into it)
   auto released = [&](std::size_t at) {
@@ -196,6 +198,11 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
     if (out.prompt_s < 0.0) out.prompt_s = s.time_s;
     if (phase == Phase::coasting) {
       out.coast.push_back(s);
+      // The coast has its own budget (too little retarding force: the dyno nearly drives the car).
+      if (s.time_s - out.release_s > plan.coast_budget_s) {
+        coast_too_slow = true;
+        return true;
+      }
       return s.speed_kmh < plan.end_kmh;
     }
     seen.push_back(s);
@@ -243,7 +250,7 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
     // awaiting_release
     if (!neutral_acknowledged && s.epoch >= neutral_epoch) {
       neutral_acknowledged = true;
-      out.neutral_prompt_s = std::max(out.neutral_prompt_s, s.time_s);
+      release_deadline_from_s = s.time_s;  // the recorded prompt time stays the sample that triggered it
     }
     if (release) {
       released(at);
@@ -251,7 +258,7 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
       if (on_release) on_release();
       return !out.coast.empty() && out.coast.back().speed_kmh < plan.end_kmh;
     }
-    if (neutral_acknowledged && s.time_s - out.neutral_prompt_s > plan.release_budget_s) {
+    if (neutral_acknowledged && s.time_s - release_deadline_from_s > plan.release_budget_s) {
       out.ending = Ending::no_release;
       out.why = "no release to neutral was seen within " + num(plan.release_budget_s) +
                 " s of the prompt to shift to neutral (found from the " + out.detected_by + ")";
@@ -262,6 +269,10 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
   if (phase != Phase::coasting && out.run_up.empty() && out.coast.empty()) out.run_up = seen;  // not released
   if (!prompt_failed.ok()) return prompt_failed;
   if (!r.ok()) return r;
+  if (coast_too_slow)
+    return Result::fail("the coast-down did not reach " + num(plan.end_kmh) + " km/h within " +
+                            num(plan.coast_budget_s) + " s of the release",
+                        kTooSlow);
   if (phase == Phase::coasting) out.ending = Ending::coasted;
   return Result::success();
 }

@@ -79,6 +79,7 @@ struct Step {
   std::vector<controller::Mode> modes;    // the step's samples are in one of these (empty: any)
   std::uint64_t since_epoch = 0;          // samples read before this epoch belong to the phase before
   bool stoppable = true;                  // the operator's stop flag ends it (false for stopping itself)
+  bool pausable = true;  // and the pause flag (false where nothing moves and no pause is taken)
 };
 
 // A run-up under the vehicle's own power, then its coast (Motion::vehicle_run): the dyno simulates the road

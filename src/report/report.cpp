@@ -363,7 +363,7 @@ static std::string write_report_body(const std::string& folder, const std::strin
   json started = json::object(), finished = json::object(), first = json::object(),
        controller_rec = json::object(), inertia_rec = json::object(), limits_rec = json::object();
   std::vector<json> runs, resumes, warm_ups, loss_points, loss_skips, drifts, stops, discards, resets,
-      interruptions, starts;
+      interruptions, starts, pauses;
   std::map<int, json> release_timing, consecutive_timing, run_up_checks, sets_written;
   std::string t_first, t_last;
   int current_run = 0;
@@ -414,6 +414,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
       resets.push_back(r);
     else if (type == "interrupted")
       interruptions.push_back(r);
+    else if (type == "paused" || type == "continued")
+      pauses.push_back(r);
   }
   const core::RoadLoad target = started.contains("target") ? coef(started["target"]) : core::RoadLoad{};
   const double tol = started.value("tolerance_n", 10.0);
@@ -525,7 +527,9 @@ static std::string write_report_body(const std::string& folder, const std::strin
   if (finished.empty()) {
     item(true,
          "The session has no final record: whether the rollers were stopped at its end is not recorded.");
-  } else if (finished.value("rollers_stopped", true)) {
+  } else if (!finished.contains("rollers_stopped") || !finished["rollers_stopped"].is_boolean()) {
+    item(true, "Whether the rollers were stopped at the end is not recorded.");
+  } else if (finished.value("rollers_stopped", false)) {
     item(false,
          "Rollers confirmed stopped at the end: " + finished.value("stop_note", std::string("")) + ".");
   } else {
@@ -533,7 +537,7 @@ static std::string write_report_body(const std::string& folder, const std::strin
          "ROLLERS NOT CONFIRMED STOPPED at the end: " + finished.value("stop_note", std::string("")) + ".");
   }
   for (const auto& s : stops)
-    if (!bv(s, "rollers_stopped").value_or(true))
+    if (!bv(s, "rollers_stopped").value_or(false))
       item(true, "A safe stop (record " + std::to_string(s.value("seq", -1)) +
                      ") did not confirm standstill: " + sv(s, "note", sv(s, "how")) + ".");
   if (release_timing.empty()) {
@@ -553,13 +557,13 @@ static std::string write_report_body(const std::string& folder, const std::strin
     for (const auto& [run, c] : run_up_checks) {
       ++checked;
       min_av = nv(c, "min_av_m2ps3").value_or(min_av);
-      if (!bv(c, "meets").value_or(true))
+      if (!bv(c, "meets").value_or(false))
         item(true, "Run-up of coast-down " + std::to_string(run) + " too slow: " +
                        sv(c, "why", "mean a\u00b7v " + num_or(nv(c, "mean_av_m2ps3"), 1, "m\u00b2/s\u00b3")) +
                        ".");
     }
     bool all_met = true;
-    for (const auto& [run, c] : run_up_checks) all_met = all_met && bv(c, "meets").value_or(true);
+    for (const auto& [run, c] : run_up_checks) all_met = all_met && bv(c, "meets").value_or(false);
     if (checked == 0)
       item(false,
            "Run-up speed: no run-up check recorded (the dyno motored the run-ups, or an older folder).");
@@ -590,6 +594,20 @@ static std::string write_report_body(const std::string& folder, const std::strin
                     std::to_string(static_cast<int>(nv(r, "run").value_or(0))) + ": " + sv(r, "why") + ".");
   for (const auto& r : interruptions)
     item(true, "Interrupted by the operator during " + sv(r, "during") + ".");
+  // Each pause: who asked, why, during which step, whether the rollers were stopped; each continue.
+  for (const auto& r : pauses) {
+    if (sv(r, "type") == "paused")
+      item(!bv(r, "rollers_stopped").value_or(false),
+           "Paused during " + sv(r, "during") + " by " + sv(r, "by") + " (" + sv(r, "source") + ")" +
+               (sv(r, "why").empty() ? std::string() : ": " + sv(r, "why")) + "; rollers " +
+               (bv(r, "rollers_stopped").value_or(false) ? "confirmed stopped" : "NOT confirmed stopped") +
+               ".");
+    else
+      item(false, "Continued by " + sv(r, "by") + " (" + sv(r, "source") + ") after " +
+                      num_or(nv(r, "paused_s"), 0, "s") + " paused; re-warmed " +
+                      num_or(nv(r, "rewarm_s"), 0, "s") + " and the pass count started again" +
+                      (sv(r, "why").empty() ? std::string() : ": " + sv(r, "why")) + ".");
+  }
   if (const json f = finished.value("findings", json::array()); f.is_array())
     for (const auto& x : f)
       if (x.is_string()) item(true, "Finding kept by the session: " + x.get<std::string>() + ".");

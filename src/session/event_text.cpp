@@ -180,8 +180,8 @@ std::string event_sentence(const Event& e, const TextContext& ctx) {
                    ": setting written and read back: " + coefficients(x.set);
           },
           [&](const ev::CoastdownStarted& x) {
-            return "coast-down " + std::to_string(x.run) + " released at " + rounded(x.start_speed_kmh, 1) +
-                   " km/h";
+            return "coast-down " + std::to_string(x.run) + ": running up to " +
+                   rounded(x.start_speed_kmh, 1) + " km/h";
           },
           [&](const ev::ReleaseTiming& x) {
             return std::string(x.within ? "timing within the rule: " : "TIMING RULE MISSED: ") +

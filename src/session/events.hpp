@@ -319,6 +319,9 @@ struct Fault {  // "fault"
 struct Interrupted {  // "interrupted"
   std::string during;
 };
+// The "why" of a coast-down discarded by a pause begins with this: such a run counts neither as unusable nor
+// as discarded (the session and resume alike).
+inline constexpr const char* kPausedDiscardWhy = "paused by the operator during ";
 // "paused": the operator asked for a pause; the rollers were stopped (a run in progress was discarded first).
 struct Paused {
   int run = 0;         // the run in progress or next

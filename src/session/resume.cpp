@@ -39,8 +39,11 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         p.last_run = std::max(p.last_run, *pending);
       } else if (type == "coastdown_discarded") {
         pending.reset();
-        ++p.unusable;
-        ++p.discarded;
+        // A run the operator's pause cut short counts against nothing (as in the session that paused it).
+        if (r.value("why", "").rfind(ev::kPausedDiscardWhy, 0) != 0) {
+          ++p.unusable;
+          ++p.discarded;
+        }
         p.last_run = std::max(p.last_run, r.at("run").get<int>());
         if (r.contains("next_set")) {
           p.next_set = road_load_from_json(r.at("next_set"));

@@ -108,7 +108,7 @@ motion::Step Session::step(const std::string& what, double budget_s,
 void Session::progress(double speed_kmh, double band_kmh) {
   Progress p;
   p.state = state_;
-  p.coastdown = coastdowns_ + 1;
+  p.coastdown = run_ > 0 ? run_ : coastdowns_ + 1;  // the run's number as the record and the table give it
   p.speed_kmh = speed_kmh;
   p.band_kmh = band_kmh;
   p.cell_time_s = t_start_ >= 0.0 ? cell_time_before_ + t_now_ - t_start_ : 0.0;
@@ -258,8 +258,10 @@ std::optional<Session::Stop> Session::do_connect() {
   if (r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "start stream");
   link_up_ = true;
   // The first samples give the controller's clock.
-  if (r = motion_.collect(step("the first sample", 10.0), [](const controller::Sample&) { return true; });
-      !r.ok())
+  // (A pause asked now is taken at the warm-up's first step: nothing moves before it.)
+  motion::Step first = step("the first sample", 10.0);
+  first.pausable = false;
+  if (r = motion_.collect(first, [](const controller::Sample&) { return true; }); !r.ok())
     return fault(r, "first sample");
   return std::nullopt;
 }
@@ -323,8 +325,10 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   warm_from_s_ = -1.0;
   auto fault = [&](const Result& r, const std::string& during) -> std::optional<Stop> {
     if (r.code == motion::kPaused) {
-      if (auto s = do_pause(during, false, asked_s)) return s;
-      return do_warm_up(asked_s, measure_loss_map);
+      const double again_s =
+          std::max(asked_s, rewarm_s());  // a short re-warm after a long stand is not enough
+      if (auto s = do_pause(during, false, again_s)) return s;
+      return do_warm_up(again_s, measure_loss_map);
     }
     return Session::fault(r, during);
   };
@@ -416,17 +420,14 @@ std::optional<Session::Stop> Session::do_pause(const std::string& during, bool r
   const PauseRequest asked = (opt_.pause ? opt_.pause->pause_request() : std::nullopt)
                                  .value_or(PauseRequest{"unknown", "", "unknown"});
   transition(State::paused, "asked by " + asked.by + " during " + during);
-  if (run_in_progress) {
-    ++discarded_;
-    emit(ev::CoastdownDiscarded{run_, "paused by the operator during " + during, std::nullopt,
+  pause_held_ = true;
+  if (run_in_progress)  // counted neither unusable nor discarded: the operator asked (resume skips it too)
+    emit(ev::CoastdownDiscarded{run_, std::string(ev::kPausedDiscardWhy) + during, std::nullopt,
                                 "repeated after the pause and a re-warm"});
-  }
   reset_passes(run_, "paused by the operator during " + during);
   // The driver display says nothing while the rollers stop (a vehicle run-up may have asked for throttle).
-  if (in_.cell.run_up == core::RunUp::vehicle && motion_commanded_) {
-    (void)c_.prompt_driver(controller::DriverPrompt::off);
-    emit(ev::DriverPromptShown{run_, controller::DriverPrompt::off, 0.0, "prompt cleared: paused"});
-  }
+  if (!clear_driver_prompt(run_, "paused"))
+    return Stop{Outcome::controller_fault, "the driver display could not be cleared for the pause"};
   bool stopped = false;
   if (Result r = motion_.stop_and_wait(opt_.stop_budget_s, stopped); !r.ok())
     return fault(r, "the pause's stop");
@@ -446,25 +447,45 @@ std::optional<Session::Stop> Session::do_pause(const std::string& during, bool r
           std::chrono::duration<double>(opt_.max_pause_s)),
       "the pause");
   if (w.code == motion::kWallDeadline) {
-    emit(ev::Interrupted{"the pause"});
+    emit(ev::Interrupted{"the pause, which had no continue within " + num(opt_.max_pause_s) + " s"});
     return Stop{Outcome::interrupted,
                 "paused longer than " + num(opt_.max_pause_s) +
                     " s without a continue; the folder can be resumed (loadtrim resume)"};
   }
   if (!w.ok()) return fault(w, "the pause");
   const double paused_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - began).count();
+  pause_held_ = false;
   if (!emit(ev::Continued{run_, go_on->by, go_on->why, go_on->source, paused_s, rewarm_s}))
     return Stop{Outcome::record_failure, record_error_};
   if (Result r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "the continue");
+  // The vehicle cooled while it stood: the warm-up trend starts again from the re-warm.
+  drift_points_.clear();
+  drift_t0_ = -1.0;
   return std::nullopt;
+}
+
+bool Session::clear_driver_prompt(int run, const std::string& why) {
+  if (!prompt_shown_) return true;
+  Result r = Result::fail("not sent");
+  try {
+    r = c_.prompt_driver(controller::DriverPrompt::off);
+  } catch (...) {
+    r = Result::fail("the controller call threw");
+  }
+  prompt_shown_ = !r.ok();
+  emit(ev::DriverPromptShown{
+      run, controller::DriverPrompt::off, 0.0,
+      r.ok() ? "prompt cleared: " + why : "prompt NOT cleared (" + r.message + "): " + why});
+  return r.ok();
 }
 
 std::optional<Session::Stop> Session::after_vehicle_run(int run, const motion::VehicleRunOutcome& out,
                                                         double start_kmh) {
   using Ending = motion::VehicleRunOutcome::Ending;
   // The display is cleared whatever happened (a driver left with "shift to neutral" shown does nothing).
-  if (Result r = c_.prompt_driver(controller::DriverPrompt::off); !r.ok()) return fault(r, "driver prompt");
-  emit(ev::DriverPromptShown{run, controller::DriverPrompt::off, start_kmh, "prompt cleared"});
+  (void)start_kmh;
+  if (!clear_driver_prompt(run, "the run-up ended"))
+    return Stop{Outcome::controller_fault, "the driver display could not be cleared after the run-up"};
   ev::RunUpChecked chk;
   chk.run = run;
   chk.ending = out.ending == Ending::coasted         ? "coasted"
@@ -527,6 +548,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
       reset_passes(
           run, std::string("coast-down ") + std::to_string(run) + " discarded: link lost during " + during);
       if (!recover_link(r.message)) return fault(r, during);
+      if (!clear_driver_prompt(run, "after the lost link"))
+        return Stop{Outcome::controller_fault, "the driver display could not be cleared after the lost link"};
       if (unusable_ >= p.max_unusable_runs)
         return Stop{Outcome::not_accepted,
                     "too many unusable coast-downs (" + std::to_string(unusable_) + ")"};
@@ -582,6 +605,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
     r = motion_.vehicle_run(
         plan, out,
         [&](controller::DriverPrompt pr, double v) {
+          prompt_shown_ = pr != controller::DriverPrompt::off;
           emit(ev::DriverPromptShown{run, pr, v,
                                      pr == controller::DriverPrompt::accelerate
                                          ? "accelerate to " + num(v) + " km/h"
@@ -590,7 +614,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
         },
         [&] { transition(State::coast_down); });
     if (r.code == kTooSlowCode) {
-      (void)c_.prompt_driver(controller::DriverPrompt::off);  // the too-slow coast is handled below
+      (void)clear_driver_prompt(run, "too slow a coast");  // the too-slow coast is handled below
     } else if (r.ok()) {
       if (auto s = after_vehicle_run(run, out, p.start_speed_kmh())) return s;
       if (out.ending != motion::VehicleRunOutcome::Ending::coasted) {
@@ -802,6 +826,7 @@ void Session::do_safe_stop() {
     emit(ev::SafeStop{stop_note_, true, std::nullopt});
     return;
   }
+  if (link_up_) (void)clear_driver_prompt(run_, "stopping");  // best effort; the stop comes first either way
   Result r = Result::retry("the link is down");
   bool stopped = false;
   if (link_up_) r = motion_.stop_and_wait(opt_.stop_budget_s, stopped);
@@ -846,6 +871,7 @@ Session::StopGuard::~StopGuard() {
   if (s.safe_stop_done_) return;
   try {
     s.c_.controlled_stop();  // best effort on a path that bypassed do_safe_stop
+    if (s.prompt_shown_) (void)s.c_.prompt_driver(controller::DriverPrompt::off);
   } catch (...) {
   }
 }
@@ -888,6 +914,11 @@ Summary Session::run(const ResumePoint* resume) {
   s.first_setting = first_setting_;
   s.rollers_stopped = rollers_stopped_;
   s.stop_note = stop_note_;
+  // A pause asked but never taken (the session ended first) is said, so the one who asked knows.
+  if (const auto asked =
+          pause_asked() && !pause_held_ && opt_.pause ? opt_.pause->pause_request() : std::nullopt)
+    findings_.push_back("a pause asked by " + asked->by + " (" + asked->source +
+                        ") was not taken: the session ended first");
   s.findings = findings_;
   if (final_set_) s.final_set = core::rounded(*final_set_, p.rounding);
   if (last_) {

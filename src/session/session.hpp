@@ -129,7 +129,13 @@ class Session {
   // re-warms for rewarm_s) or how the session ends.
   std::optional<Stop> do_pause(const std::string& during, bool run_in_progress, double rewarm_s);
   bool pause_asked() const { return opt_.pause && opt_.pause->flag().load(); }
-  double rewarm_s() const;  // after a lost link or a pause: --resume-warm-up-s, else the profile's warm-up
+  // Clears the driver display when a prompt may still show (every way out of a vehicle run-up, the safe stop,
+  // a pause); the record says whether the controller took it. Never throws; false when it could not.
+  bool clear_driver_prompt(int run, const std::string& why);
+  bool prompt_shown_ = false;
+  bool pause_held_ = false;  // a pause was taken and not yet continued  // a driver prompt other than "off"
+                             // was acknowledged and not yet cleared
+  double rewarm_s() const;   // after a lost link or a pause: --resume-warm-up-s, else the profile's warm-up
   // After a run-up under the vehicle's own power: the display cleared, the run-up's check recorded.
   std::optional<Stop> after_vehicle_run(int run, const motion::VehicleRunOutcome& out, double start_kmh);
   void do_safe_stop();

@@ -199,6 +199,14 @@ def main():
             passes = [r for r in rs if r["type"] == "coastdown" and r["seq"] > seq_c and r.get("usable") and
                       r["check"]["pass"]]
             check(len(passes) >= 2, "two passes after the continue (GTR 15 Annex 4 §8.1.3.4.2): %d" % len(passes))
+            with open(os.path.join(folder, "report.html"), encoding="utf-8") as f:
+                html_text = f.read()
+            page_one = html_text.split('id="page-one"', 1)[-1].split("</section>", 1)[0]
+            check("Paused during coast-down by A. Tester" in page_one and "Continued by A. Tester" in page_one,
+                  "the report's page one names the pause and the continue")
+            check(r["usable_coastdowns"] == r["coastdowns"] if (r := next((x for x in rs if x["type"] == "finished"),
+                                                                        None)) else False,
+                  "the paused run counts as neither usable nor unusable (summary)")
             v = tool("verify", folder)
             check(v.returncode == 0, "session 1's folder verifies (got %d: %s)" % (v.returncode, v.stdout[-300:] +
                                                                                  v.stderr[-300:]))

@@ -489,12 +489,20 @@ TEST(SessionUnit, APauseDuringACoastDownStopsTheRollersAndTheContinuedSessionIsA
   // rule applies again after the re-warm (EU SA4 §8.1.2–8.1.3).
   FakeController c(loadtrim::testing::demo_truth());
   PauseScript ps;
-  ps.when = [](const session::Event& e) { return entered(e, session::State::coast_down); };
+  // Paused in the coast-down that follows the first pass: that pass no longer counts.
+  bool passed = false;
+  ps.when = [&](const session::Event& e) { return passed && entered(e, session::State::coast_down); };
   Recorder record(true);
   std::vector<session::Event> paused, continued;
-  bool stopped_before_wait = false;
+  bool stopped_before_wait = false, reset_by_pause = false;
   int passes_after_continue = 0;
   Hook hook([&](const session::Event& e) {
+    if (const auto* cd = std::get_if<session::ev::Coastdown>(&e.payload);
+        cd && cd->record.evaluation.usable && cd->record.evaluation.check.pass)
+      passed = true;
+    if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload);
+        r && r->why.find("paused") != std::string::npos && r->passes == 1)
+      reset_by_pause = true;
     ps.on(e);
     if (const auto* p = std::get_if<session::ev::Paused>(&e.payload)) {
       paused.push_back(e);
@@ -523,7 +531,10 @@ TEST(SessionUnit, APauseDuringACoastDownStopsTheRollersAndTheContinuedSessionIsA
   EXPECT_EQ(std::get<session::ev::Continued>(continued[0].payload).by, "B. Tester");
   EXPECT_EQ(count(record, "coastdown_discarded"), 1) << "the paused run is not counted";
   EXPECT_EQ(count(record, "warm_up_ended"), 2) << "the warm-up and the re-warm after the continue";
+  EXPECT_TRUE(reset_by_pause) << "the pass before the pause no longer counts";
   EXPECT_GE(passes_after_continue, 2);
+  // The paused run counts as neither usable nor unusable: every recorded coast-down was usable here.
+  EXPECT_EQ(sum.usable_coastdowns, sum.coastdowns);
   // The pause is a state of its own in the record (the progress line and the report read it).
   EXPECT_TRUE(record.saw("paused") && record.saw("continued"));
 }
@@ -599,4 +610,31 @@ TEST(SessionUnit, RollersThatMoveDuringAPauseEndTheSession) {
   EXPECT_EQ(sum.outcome, session::Outcome::controller_fault) << sum.stop_reason;
   EXPECT_NE(sum.stop_reason.find("not at rest"), std::string::npos) << sum.stop_reason;
   EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+}
+
+TEST(SessionUnit, AFaultDuringAVehicleRunUpClearsTheDriverDisplay) {
+  // The display must not go on saying "accelerate" while the rollers are stopped (docs/safety.md): every way
+  // out of a vehicle run-up clears it, a fault included, and the record says the controller took it.
+  FakeController c(loadtrim::testing::demo_truth());
+  bool accelerating = false;
+  int n = 0;
+  c.script.sample_lie = [&](controller::Sample&) {
+    if (accelerating && ++n == 200) c.script.events = {"FAULT kind=ESTOP detail=scripted"};
+  };
+  std::vector<session::ev::DriverPromptShown> prompts;
+  Recorder record(true);
+  Hook hook([&](const session::Event& e) {
+    if (const auto* p = std::get_if<session::ev::DriverPromptShown>(&e.payload)) {
+      prompts.push_back(*p);
+      if (p->prompt == controller::DriverPrompt::accelerate) accelerating = true;
+    }
+  });
+  session::Session s(inputs(), options(), c, {&record, &hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::controller_fault) << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+  ASSERT_FALSE(prompts.empty());
+  EXPECT_EQ(prompts.back().prompt, controller::DriverPrompt::off);
+  EXPECT_NE(prompts.back().text.find("prompt cleared"), std::string::npos) << prompts.back().text;
+  EXPECT_EQ(c.sim().model().driver_prompt(), core::DriverPrompt::off) << "the controller was told";
 }
