@@ -37,7 +37,8 @@ struct RunRequest {
   std::string device;
   double resume_warm_up_s = -1.0;
   double max_pause_s = 3600.0;
-  std::string units;  // the console's: "metric", "us", "both", or "" for as the target was given  // a pause waits this long for its continue, then ends the session (resumable)
+  std::string units;  // the console's: "metric", "us", "both", or "" for as the target was given  // a pause
+                      // waits this long for its continue, then ends the session (resumable)
   std::optional<physics::Truth> inprocess_truth;  // in-process simulated controller with this truth
   std::string checks_dir;                         // the cells' dyno-check histories; "" = <data root>/checks
   std::string check_profile;                      // default: config/checks/cfr1066.toml

@@ -1,7 +1,8 @@
 // Coast-down trace analysis: from sampled (time, speed) data to the band times Δt_j and forces F_mj
 // (docs/standards.md §2.2–2.3: the variables are GTR 15 Annex 4 §8.1.3.2's text; the equation's form
 // F_mj = (1/3.6)·(TM + m_r)·(2·Δv)/Δt_j and Δv = 5 km/h are from memory), Δv in km/h, Δt_j the time from
-// v_j + Δv down to v_j − Δv. Pure: no I/O, no clocks; time comes with the samples (the controller's own timestamps).
+// v_j + Δv down to v_j − Δv. Pure: no I/O, no clocks; time comes with the samples (the controller's own
+// timestamps).
 #pragma once
 
 #include <cstdint>

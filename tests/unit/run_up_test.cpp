@@ -1,5 +1,6 @@
 // A run-up under the vehicle's own power (core/run_up.hpp): the acceleration × speed figure against closed
-// forms, and the release found from the speed trace alone; and the simulated driver (physics/roller_model.hpp).
+// forms, and the release found from the speed trace alone; and the simulated driver
+// (physics/roller_model.hpp).
 #include "core/run_up.hpp"
 
 #include <gtest/gtest.h>
@@ -70,7 +71,8 @@ TEST(RunUp, ReleaseFoundFromTheTraceNearTheTrueRelease) {
   EXPECT_GT(t[fed], 10.5);
   EXPECT_LT(t[fed], 11.2);
   ASSERT_TRUE(d.release_index());
-  // Placed within 0.3 s of the true release (a 0.3 km/h band at 1.8 km/h per s is 0.17 s, plus the half window).
+  // Placed within 0.3 s of the true release (a 0.3 km/h band at 1.8 km/h per s is 0.17 s, plus the half
+  // window).
   EXPECT_NEAR(t[*d.release_index()], 10.0, 0.3);
   // A held speed with noise alone is never a release.
   core::ReleaseDetector held;
