@@ -56,6 +56,21 @@ def records(folder):
     return [json.loads(l) for l in open(os.path.join(folder, "events.jsonl"), encoding="utf-8") if l.strip()]
 
 
+def records_so_far(folder):
+    """The records a running session has written so far: none before its events.jsonl exists (the folder is made
+    first), and a last line still being written is not yet a record."""
+    try:
+        with open(os.path.join(folder, "events.jsonl"), encoding="utf-8") as f:
+            lines = f.read().split("\n")
+    except FileNotFoundError:
+        return []
+    out = []
+    for l in lines[:-1]:
+        if l.strip():
+            out.append(json.loads(l))
+    return out
+
+
 def only_folder(d):
     f = [x for x in glob.glob(d + "/2*") if os.path.isdir(x)]
     return f[0] if len(f) == 1 else None
@@ -240,7 +255,7 @@ def main():
         deadline = time.monotonic() + 120
         while time.monotonic() < deadline and p.poll() is None:
             f = only_folder(res_dir)
-            if f and any(x["type"] == "coastdown" for x in records(f)):
+            if f and any(x["type"] == "coastdown" for x in records_so_far(f)):
                 p.send_signal(signal.SIGINT)
                 break
             time.sleep(0.05)
