@@ -258,7 +258,7 @@ int history(const StoreArgs& a) {
     std::printf("no session or dyno check matches\n");
     return kAccepted;
   }
-  std::printf("%-16s  %-20s  %-24s  %-14s  %-14s  %-40s  %-3s  %s\n", "started (UTC)", "what", "cell",
+  std::printf("%-16s  %-20s  %-30s  %-14s  %-14s  %-40s  %-3s  %s\n", "started (UTC)", "what", "cell",
               "vehicle", "result", "final set F0 N, F1 N/(km/h), F2 N/(km/h)^2", "cd", "seal");
   for (const auto& r : rows) {
     std::string when = r.utc.substr(0, 16);
@@ -268,7 +268,7 @@ int history(const StoreArgs& a) {
                                 ? fixed(r.final_set->f0_n, 2) + ", " + fixed(r.final_set->f1_n_per_kmh, 4) +
                                       ", " + fixed(r.final_set->f2_n_per_kmh2, 5)
                                 : std::string("-");
-    std::printf("%-16s  %-20s  %-24s  %-14s  %-14s  %-40s  %-3s  %s\n", when.c_str(), what.c_str(),
+    std::printf("%-16s  %-20s  %-30s  %-14s  %-14s  %-40s  %-3s  %s\n", when.c_str(), what.c_str(),
                 r.cell.c_str(), r.vehicle.empty() ? "-" : r.vehicle.c_str(), r.result.c_str(), set.c_str(),
                 r.what == "session" ? std::to_string(r.coastdowns).c_str() : "-", r.verify_outcome.c_str());
     std::printf("    %s%s\n", r.folder.c_str(),

@@ -152,30 +152,36 @@ class StoreTest : public ::testing::Test {
     o.whole_trace_estimator = false;
     o.stop_budget_s = 120.0;
     const controller::CellConfig cell = in.cell;
-    session::ev::StartCommon common{.vehicle = in.vehicle.id,
-                                    .cell = in.cell.name,
-                                    .profile = in.profile.name,
-                                    .dyno_checks = json{{"enforced", false}, {"why", "unit test"}},
-                                    .operator_id = json{{"name", "A. Tester"}, {"from", "--operator"}},
-                                    .signing_key = m.key->fingerprint(),
-                                    .confirmation = "unit test: scripted controller, nothing moves",
-                                    .target = in.vehicle.target,
-                                    .vehicle_description = in.vehicle.description,
-                                    .test_mass_kg = in.vehicle.test_mass_kg,
-                                    .standard = in.profile.standard,
-                                    .tolerance_n = in.profile.tolerance_n,
-                                    .reference_speeds_kmh = in.profile.reference_speeds_kmh,
-                                    .software_version = "test",
-                                    .software_build = "test",
-                                    .first_setting_requested = "standard"};
+    // The start record as the command writes it (src/app/session_runner.cpp), with what a test can know.
+    session::ev::StartCommon common;
+    common.vehicle = in.vehicle.id;
+    common.cell = in.cell.name;
+    common.profile = in.profile.name;
+    common.dyno_checks = json{{"enforced", false}, {"why", "unit test"}};
+    common.operator_id = json{{"name", "A. Tester"}, {"from", "--operator"}};
+    common.data_root_path = m.root;
+    common.data_root_from = "unit test";
+    common.signing_key = m.key->fingerprint();
+    common.confirmation = "unit test: scripted controller, nothing moves";
+    common.target = in.vehicle.target;
+    common.vehicle_description = in.vehicle.description;
+    common.test_mass_kg = in.vehicle.test_mass_kg;
+    common.standard = in.profile.standard;
+    common.tolerance_n = in.profile.tolerance_n;
+    common.reference_speeds_kmh = in.profile.reference_speeds_kmh;
+    common.software_version = "test";
+    common.software_build = "test";
+    common.first_setting_requested = "standard";
+    session::ev::SessionStarted started;
+    started.common = common;
+    started.method = "iterative";
+    started.files = json::array();
     {
       loadtrim::testing::FakeController c(loadtrim::testing::demo_truth());
       session::RecordWriter writer(m.folder);
       ASSERT_TRUE(writer.ok()) << writer.error();
       ASSERT_TRUE(writer.log().set_signer(&*m.key));
-      const session::Event start{
-          session::ev::SessionStarted{.common = common, .method = "iterative", .files = json::array()},
-          std::nullopt, nullptr};
+      const session::Event start{started, std::nullopt, nullptr};
       ASSERT_TRUE(writer.on_event(start)) << writer.error();
       session::Session s(std::move(in), o, c, {&writer});
       const session::Summary sum = s.run();
@@ -400,6 +406,39 @@ TEST_F(StoreTest, ImportingAFolderAgainRefreshesItsRowInsteadOfAddingOne) {
   EXPECT_EQ(sql_value(file_, "SELECT folder FROM sessions"), fs::absolute(moved).lexically_normal().string());
 }
 
+// issue 19 (the folder is the evidence, the store its index): the same folder (same origin) with another seal
+// — cut back and sealed again — is refused (exit 5) and the indexed row is left as it was.
+TEST_F(StoreTest, TheSameFolderWithAnotherSealIsRefused) {
+  auto s = migrated_store(file_);
+  ASSERT_TRUE(s);
+  ASSERT_EQ(store::ingest_folder(*s, g_made->folder, g_made->verify).status, store::IngestStatus::indexed);
+  const std::string copy = copy_folder("resealed");
+  std::vector<std::string> lines = lines_of(read_file(copy + "/events.jsonl"));
+  ASSERT_EQ(json::parse(lines.back())["type"], "seal");
+  lines.pop_back();
+  std::string text;
+  for (const auto& l : lines) text += l + "\n";
+  write_file(copy + "/events.jsonl", text);
+  record::SealRequest sr;
+  sr.cell = g_made->cell;
+  sr.result = json::parse(read_file(copy + "/summary.json"));
+  sr.key = &*g_made->key;
+  sr.utc = "2030-01-01T00:00:00.000Z";  // another seal line than the first
+  record::SealInfo info;
+  std::string err;
+  ASSERT_TRUE(record::seal_folder(copy, sr, &info, err)) << err;
+  ASSERT_EQ(record::verify_folder(copy, g_made->verify).outcome, record::Outcome::verified);
+  const std::string indexed_seal = sql_value(file_, "SELECT seal_sha256 FROM sessions");
+  ASSERT_NE(info.seal_sha256, indexed_seal);
+  const store::IngestResult r = store::ingest_folder(*s, copy, g_made->verify);
+  EXPECT_EQ(r.status, store::IngestStatus::broken) << r.message;
+  EXPECT_EQ(r.exit_code(), 5);
+  EXPECT_NE(r.message.find("another seal"), std::string::npos) << r.message;
+  EXPECT_EQ(sql_value(file_, "SELECT seal_sha256 FROM sessions"), indexed_seal);
+  EXPECT_EQ(sql_value(file_, "SELECT folder FROM sessions"),
+            fs::absolute(g_made->folder).lexically_normal().string());
+}
+
 // issue 19: "ingest verifies the folder's seal first and refuses a folder that does not verify". One byte of
 // events.jsonl changed: broken (exit 5, README's exit codes), the record named, nothing indexed.
 TEST_F(StoreTest, AFolderWithOneByteOfItsLogChangedIsRefused) {
@@ -485,7 +524,7 @@ TEST_F(StoreTest, ADynoCheckFolderIsIndexedAndShownByCellNotByVehicle) {
                             {"vehicle_on_rollers", false},
                             {"operator", {{"name", "C. Tester"}, {"from", "--operator"}}},
                             {"signing_key", "none: the folder will be sealed unsigned"}},
-                           "2026-12-03T01:00:00.000Z"))
+                           "2000-01-01T01:00:00.000Z"))
         << log.error();
     ASSERT_TRUE(log.append("check_finished",
                            {{"check", "coastdown"},
@@ -493,7 +532,7 @@ TEST_F(StoreTest, ADynoCheckFolderIsIndexedAndShownByCellNotByVehicle) {
                             {"passed", true},
                             {"verdict", "pass (40 CFR 1066.270): scripted"},
                             {"files", json::array()}},
-                           "2026-12-03T01:05:00.000Z"))
+                           "2000-01-01T01:05:00.000Z"))
         << log.error();
   }
   std::string err;
@@ -508,7 +547,7 @@ TEST_F(StoreTest, ADynoCheckFolderIsIndexedAndShownByCellNotByVehicle) {
   EXPECT_EQ(r.what, "check");
   EXPECT_EQ(
       sql_value(file_, "SELECT kind || '|' || passed || '|' || operator || '|' || started_utc FROM checks"),
-      "coastdown|1|C. Tester|2026-12-03T01:00:00.000Z");
+      "coastdown|1|C. Tester|2000-01-01T01:00:00.000Z");
   EXPECT_EQ(sql_value(file_, "SELECT verify_outcome FROM checks"),
             record::to_string(record::Outcome::unsigned_seal));
   std::vector<store::HistoryRow> rows;
@@ -518,6 +557,14 @@ TEST_F(StoreTest, ADynoCheckFolderIsIndexedAndShownByCellNotByVehicle) {
   EXPECT_EQ(rows[0].detail, "pass (40 CFR 1066.270): scripted");
   ASSERT_TRUE(s->history({g_made->vehicle, "", ""}, rows, err)) << err;
   EXPECT_TRUE(rows.empty()) << "a check has no vehicle";
+
+  // With the session of the same cell indexed too: both, newest first (issue 19's history lists every session
+  // and check; the check above is dated 2000-01-01, before the session).
+  ASSERT_EQ(store::ingest_folder(*s, g_made->folder, g_made->verify).status, store::IngestStatus::indexed);
+  ASSERT_TRUE(s->history({"", g_made->cell, ""}, rows, err)) << err;
+  ASSERT_EQ(rows.size(), 2u);
+  EXPECT_GE(rows[0].utc, rows[1].utc);
+  EXPECT_EQ(rows[1].what, "check");
 }
 
 // Where the store is (issue 19): --store, else [store] sqlite in the lab's system file (absolute, or relative
