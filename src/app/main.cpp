@@ -128,6 +128,7 @@ int main(int argc, char** argv) {
   register_target_command(app, run);
   register_keys_command(app, run);
   register_approve_command(app, run);
+  register_store_commands(app, run);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {

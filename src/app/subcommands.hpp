@@ -20,5 +20,6 @@ void register_check_commands(CLI::App& app, Runner& run);
 void register_target_command(CLI::App& app, Runner& run);
 void register_keys_command(CLI::App& app, Runner& run);
 void register_approve_command(CLI::App& app, Runner& run);
+void register_store_commands(CLI::App& app, Runner& run);
 
 }  // namespace loadtrim::app

@@ -14,7 +14,7 @@ RANK = {
     'config': 3,
     'adapters': 4,  # dyno-adapters/ and its dialect folders (line, modbus, framed): one layer
     'motion': 4, 'record': 4,
-    'events': 5, 'report': 5, 'sim': 5,
+    'events': 5, 'report': 5, 'sim': 5, 'store': 5,
     'session': 6, 'checks': 6, 'adapters/inprocess': 6,
     'app': 7,
 }

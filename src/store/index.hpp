@@ -1,0 +1,76 @@
+// Between the folders and the store (issue 19, docs/store.md): what a sealed folder says (read from its
+// events.jsonl and summary.json, never from anywhere else), ingesting a folder only after
+// record::verify_folder has found it intact and sealed, checking every row against its folder again, and
+// where the store file is. Engine-neutral: everything here goes through the abstract Store.
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "record/verify.hpp"
+#include "store/store.hpp"
+
+namespace loadtrim::store {
+
+// --- reading a folder ---
+// A folder's entry, from its records as verify_folder returned them (`verdict` gives the origin, the seal and
+// the approvals). Exactly one of session / check is set; error says what is missing otherwise (a record
+// without a member the index needs, or a record 0 that is neither session_started nor check_started).
+struct FolderEntry {
+  std::optional<SessionEntry> session;
+  std::optional<CheckEntry> check;
+  std::string error;
+};
+FolderEntry read_folder(const std::string& folder, const record::FolderVerdict& verdict);
+
+// --- ingest ---
+enum class IngestStatus {
+  indexed,      // a new row
+  refreshed,    // indexed before (same origin and seal): path, verify outcome and reviews brought up to date
+  refused,      // not a folder, not finished (no seal), or not a session or check folder: exit 2
+  broken,       // verify found it broken, or the store holds this folder with another seal: exit 5
+  store_failed  // the store could not be written: exit 5
+};
+struct IngestResult {
+  IngestStatus status = IngestStatus::refused;
+  std::string what;     // "session" / "check" when read
+  std::string message;  // one sentence: what was indexed, or why not
+  int exit_code() const;
+};
+// Verifies the folder (record::verify_folder with `options`) and indexes it when it is sealed and intact
+// (verified, or sealed unsigned / by a key the lab has not registered: the outcome is kept in the row and
+// shown by `history`). Refuses a broken folder (naming the record or file verify named) and an unfinished
+// one.
+IngestResult ingest_folder(Store& store, const std::string& folder, const record::VerifyOptions& options);
+
+// --- store check ---
+struct CheckFinding {
+  IndexedFolder row;
+  std::string problem;  // "missing", "broken", "not finished", "another seal", "another folder"
+  std::string message;  // a sentence naming the folder and what verify found
+};
+// Every row of the store against its folder: the folder must exist, verify intact and sealed, and carry the
+// indexed origin and seal. rows_checked gets the number of rows looked at.
+bool check_store(Store& store, const record::VerifyOptions& options, std::vector<CheckFinding>& findings,
+                 std::size_t& rows_checked, std::string& error);
+
+// --- where the store is ---
+inline constexpr const char* kStoreFileName = "store.sqlite";
+struct StorePath {
+  std::string path;    // absolute
+  std::string source;  // how it was chosen
+  std::string error;   // a sentence naming the file and key, when it could not be resolved
+  bool ok() const { return error.empty() && !path.empty(); }
+};
+// In order: `option` (--store, relative to cwd); `[store] sqlite = "..."` in the lab's system configuration
+// (its text `system_config`, read from `system_config_path`; a relative value is taken from the data root);
+// <data_root>/store.sqlite. A [store] sqlite that is present but not a one-line non-empty string is an
+// error naming the file and the key, never a fall-through. Pure.
+StorePath resolve_store_path(const std::string& option, const std::string& cwd,
+                             const std::optional<std::string>& system_config,
+                             const std::string& system_config_path, const std::string& data_root);
+// The same from this process (its current folder and /etc/loadtrim/loadtrim.toml).
+StorePath find_store_path(const std::string& option, const std::string& data_root);
+
+}  // namespace loadtrim::store
