@@ -11,6 +11,7 @@
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
 #include "app/session_runner.hpp"
+#include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
 #include "checks/cell_history.hpp"
 #include "checks/check_runner.hpp"
@@ -143,6 +144,11 @@ int run_one(const CheckOptions& o) {
   if (!o.json) req.observers.push_back(&console);
   auto c = adapters::tool_registry().make_controller(l.cell);
   const checks::CheckResult r = checks::run_check(*c, req, &stop_flag());
+  // A check that ran and was recorded is indexed in the lab's store, or queued for it (docs/store.md); a
+  // folder the seal did not close is refused by the store's ingest and set aside, said on stderr.
+  if (!r.folder.empty() && r.end != checks::CheckResult::End::refused &&
+      r.end != checks::CheckResult::End::record_failure)
+    index_finished_folder(o.root, r.folder, "check", !o.json);
   if (o.json) {
     std::printf("%s\n", nlohmann::json({{"type", "check"},
                                         {"check", o.kind},

@@ -14,6 +14,7 @@
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
 #include "app/pause_watch.hpp"
+#include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
 #include "checks/cell_history.hpp"
 #include "checks/check_runner.hpp"
@@ -367,6 +368,9 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   else if (req.console == session::Console::Mode::normal)
     std::printf("report: %s\n", rep.html.c_str());
   if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
+  // Indexed in the lab's store (or queued for it) once sealed; never changes the result (docs/store.md).
+  if (session::is_final(sum.outcome) && sum.outcome != session::Outcome::record_failure)
+    index_finished_folder(lab.root, folder, "session", req.console == session::Console::Mode::normal);
   if (sum.outcome == session::Outcome::record_failure && !writer.error().empty())
     std::cerr << "loadtrim: record failure: " << writer.error() << " (every record before it is intact in "
               << folder << ")\n";
@@ -398,6 +402,8 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
       return kRecordFailure;
     std::printf("%s: %s (finished earlier; now sealed)\n", session::to_string(sum.outcome),
                 sum.stop_reason.c_str());
+    index_finished_folder(record::find_data_root(req.data_dir), folder, "session",
+                          req.console == session::Console::Mode::normal);
     return summary.value("rollers_stopped", true) ? exit_code_for(sum.outcome)
                                                   : static_cast<int>(kControllerFault);
   }
@@ -452,6 +458,8 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   if (!rep.ok) std::cerr << "loadtrim: report not written: " << rep.error << "\n";
   std::printf("%s: %s (finalised from the record; no coast-down was run)\n", session::to_string(sum.outcome),
               sum.stop_reason.c_str());
+  index_finished_folder(record::find_data_root(req.data_dir), folder, "session",
+                        req.console == session::Console::Mode::normal);
   if (!stopped) {
     std::cerr << "loadtrim: " << note << "\n";
     return kControllerFault;

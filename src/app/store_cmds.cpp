@@ -11,22 +11,28 @@
 #include <vector>
 
 #include "app/exit_codes.hpp"
+#include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
 #include "record/data_root.hpp"
 #include "record/verify.hpp"
 #include "store/index.hpp"
+#include "store/queue.hpp"
 #include "store/sqlite_store.hpp"
 
 namespace loadtrim::app {
 
 namespace {
 
+// How long `store import --queued` may index before leaving the rest for another run (common practice, no
+// source: minutes, for a queue of a day's sessions).
+constexpr double kQueuedBudgetS = 600.0;
+
 struct StoreArgs {
   std::string data_dir, store, checks;
   std::vector<std::string> public_keys;
   std::vector<std::string> folders;
   std::string vehicle, cell, since;
-  bool csv = false, json = false;
+  bool csv = false, json = false, queued = false;
 };
 
 // Where the lab's data and the store are. False (with the message printed) when they cannot be resolved.
@@ -108,6 +114,23 @@ int import_folders(const StoreArgs& a) {
   record::DataRoot root;
   store::StorePath where;
   if (!locate("store import", a, root, where)) return kBadInput;
+  if (a.folders.empty() && !a.queued) {
+    std::fprintf(
+        stderr,
+        "loadtrim store import: give the folders to index, or --queued\nrefused: nothing was changed.\n");
+    return kBadInput;
+  }
+  if (a.queued) {
+    // The folders whose end found the store unavailable (docs/store.md "Indexed when it ends").
+    if (store::queued_entries(root.path).empty()) {
+      std::printf("nothing queued in %s\n", root.queue().c_str());
+    } else {
+      const int left = drain_store_queue(root, where, kQueuedBudgetS, true);
+      if (left != 0) return left < 0 ? kRecordFailure : kInterrupted;
+      std::printf("the queue in %s is empty\n", root.queue().c_str());
+    }
+    if (a.folders.empty()) return kAccepted;
+  }
   record::VerifyOptions opt;
   if (!verify_options("store import", a, root, opt)) return kBadInput;
   auto s = open_store("store import", where, store::OpenMode::use);
@@ -311,7 +334,10 @@ void register_store_commands(CLI::App& app, Runner& run) {
       "import",
       "index sealed folders: each is verified first; a broken one is refused (exit 5), an unfinished one too "
       "(exit 2)");
-  imp->add_option("folders", a->folders, "session or dyno-check folders")->required();
+  imp->add_option("folders", a->folders, "session or dyno-check folders");
+  imp->add_flag("--queued", a->queued,
+                "first index the folders queued in <data root>/queue/ when their end found the store "
+                "unavailable (those that do not verify are set aside in queue/refused/)");
   common_options(imp, *a);
   verify_options_cli(imp, *a);
   imp->callback([a, &run] { run = [a] { return import_folders(*a); }; });

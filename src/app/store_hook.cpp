@@ -1,0 +1,88 @@
+#include "app/store_hook.hpp"
+
+#include <chrono>
+#include <cstdio>
+#include <filesystem>
+
+#include "store/index.hpp"
+#include "store/queue.hpp"
+#include "store/sqlite_store.hpp"
+
+namespace loadtrim::app {
+
+namespace fs = std::filesystem;
+
+namespace {
+
+// How long the end of a session may spend indexing, and how long one open waits for another writer's lock.
+// Common practice, no source: short against a session's tens of minutes, long enough for a busy store.
+constexpr double kEndBudgetS = 10.0;
+constexpr int kBusyTimeoutMs = 2000;
+
+void log_line(const record::DataRoot& root, const std::string& line) {
+  std::string err;
+  if (!store::log_store_line(root.path, line, err))
+    std::fprintf(stderr, "loadtrim: store log not written: %s\n", err.c_str());
+}
+
+record::VerifyOptions verify_options(const record::DataRoot& root) {
+  record::VerifyOptions opt;
+  opt.keys_dir = root.keys();
+  opt.checks_root = root.checks();
+  return opt;
+}
+
+}  // namespace
+
+int drain_store_queue(const record::DataRoot& root, const store::StorePath& where, double budget_s,
+                      bool say) {
+  if (!root.ok() || store::queued_entries(root.path).empty()) return 0;
+  const store::StoreOpener open = [&](std::string& error) -> std::unique_ptr<store::Store> {
+    if (!where.ok()) {
+      error = where.error;
+      return nullptr;
+    }
+    return store::open_sqlite(where.path, store::OpenMode::use, error, kBusyTimeoutMs);
+  };
+  const auto deadline =
+      std::chrono::steady_clock::now() + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
+                                             std::chrono::duration<double>(budget_s));
+  const store::DrainResult r = store::drain_queue(root.path, open, verify_options(root), deadline);
+  for (const auto& m : r.messages) {
+    log_line(root, m);
+    if (!r.store_ok || m.starts_with("set aside"))
+      std::fprintf(stderr, "loadtrim: store: %s\n", m.c_str());
+    else if (say)
+      std::printf("store: %s\n", m.c_str());
+  }
+  if (r.remaining > 0 && (say || !r.store_ok))
+    std::fprintf(stderr,
+                 "loadtrim: store: %d folder(s) queued in %s for the store (%s); "
+                 "`loadtrim store import --queued` indexes them when it is back\n",
+                 r.remaining, (fs::path(root.path) / store::kQueueDirName).string().c_str(),
+                 where.ok() ? where.path.c_str() : where.error.c_str());
+  return r.store_ok ? r.remaining : -1;
+}
+
+void index_finished_folder(const record::DataRoot& root, const std::string& folder, const std::string& what,
+                           bool say) {
+  if (!root.ok()) return;
+  const store::StorePath where = store::find_store_path("", root.path);
+  std::error_code ec;
+  const bool configured = !where.ok() || where.source != "the data root's store.sqlite";
+  // A lab that never made a store is not using one: nothing is queued and nothing said (docs/store.md).
+  if (!configured && !fs::exists(where.path, ec)) return;
+  const std::string abs = fs::absolute(folder, ec).lexically_normal().string();
+  std::string err;
+  if (!store::enqueue(root.path, abs, what, err)) {
+    std::fprintf(stderr,
+                 "loadtrim: store: %s not queued for the store: %s (`loadtrim store import` indexes it)\n",
+                 abs.c_str(), err.c_str());
+    log_line(root, "not queued " + abs + ": " + err);
+    return;
+  }
+  log_line(root, "queued " + what + " " + abs);
+  drain_store_queue(root, where, kEndBudgetS, say);
+}
+
+}  // namespace loadtrim::app

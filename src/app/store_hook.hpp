@@ -1,0 +1,24 @@
+// A finished session or dyno check is indexed in the lab's record store when it ends (issue 19, docs/store.md
+// "Indexed when it ends"): queued first in the data root, then the queue drained within a few seconds. The
+// store down, locked or slow never changes the session's result or exit code: the entry stays queued and is
+// indexed at a later end or by `loadtrim store import --queued`.
+#pragma once
+
+#include <string>
+
+#include "record/data_root.hpp"
+#include "store/index.hpp"
+
+namespace loadtrim::app {
+
+// `folder` (sealed) is "session" or "check". `say` prints the outcome to the console (one line; failures go
+// to stderr whatever `say`). A lab without a store (none configured, no <data root>/store.sqlite) is not
+// using one: nothing is queued or said.
+void index_finished_folder(const record::DataRoot& root, const std::string& folder, const std::string& what,
+                           bool say);
+
+// Drains the queue into the store at `where` (at most `budget_s` seconds) and prints what it did; the number
+// left queued, -1 when the store could not be used.
+int drain_store_queue(const record::DataRoot& root, const store::StorePath& where, double budget_s, bool say);
+
+}  // namespace loadtrim::app

@@ -1,0 +1,220 @@
+#include "store/queue.hpp"
+
+#include <fcntl.h>
+#include <unistd.h>
+
+#include <algorithm>
+#include <cerrno>
+#include <cstring>
+#include <filesystem>
+#include <fstream>
+#include <nlohmann/json.hpp>
+#include <sstream>
+
+#include "record/session_folder.hpp"
+#include "store/index.hpp"
+
+namespace loadtrim::store {
+
+namespace fs = std::filesystem;
+
+namespace {
+
+// An entry is a few hundred bytes; anything much larger is not ours.
+constexpr std::uintmax_t kMaxEntryBytes = 64 * 1024;
+
+std::string queue_dir(const std::string& data_root) {
+  return (fs::path(data_root) / kQueueDirName).string();
+}
+
+// The entry's file name: the folder's own name with anything but [A-Za-z0-9._-] replaced, so that a folder
+// name can never point outside the queue folder.
+std::string entry_name(const std::string& folder) {
+  std::string n = fs::path(folder).lexically_normal().filename().string();
+  if (n.empty()) n = fs::path(folder).lexically_normal().parent_path().filename().string();
+  for (char& ch : n) {
+    const bool ok = (ch >= 'A' && ch <= 'Z') || (ch >= 'a' && ch <= 'z') || (ch >= '0' && ch <= '9') ||
+                    ch == '.' || ch == '_' || ch == '-';
+    if (!ok) ch = '_';
+  }
+  if (n.empty() || n[0] == '.') n = "_" + n;
+  return n + ".json";
+}
+
+bool write_whole(const std::string& path, const std::string& text, std::string& error) {
+  const std::string tmp = path + ".tmp";
+  const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_NOFOLLOW | O_CLOEXEC, 0644);
+  if (fd < 0) {
+    error = tmp + ": " + std::strerror(errno);
+    return false;
+  }
+  std::size_t done = 0;
+  while (done < text.size()) {
+    const ssize_t n = ::write(fd, text.data() + done, text.size() - done);
+    if (n < 0 && errno == EINTR) continue;
+    if (n <= 0) {
+      error = tmp + ": " + std::strerror(errno);
+      ::close(fd);
+      ::unlink(tmp.c_str());
+      return false;
+    }
+    done += static_cast<std::size_t>(n);
+  }
+  const bool synced = ::fsync(fd) == 0;
+  ::close(fd);
+  if (!synced || ::rename(tmp.c_str(), path.c_str()) != 0) {
+    error = path + ": " + std::strerror(errno);
+    ::unlink(tmp.c_str());
+    return false;
+  }
+  return true;
+}
+
+struct Entry {
+  std::string file, folder, what, queued_utc, error;
+};
+
+Entry read_entry(const std::string& file) {
+  Entry e;
+  e.file = file;
+  std::error_code ec;
+  const auto size = fs::file_size(file, ec);
+  if (ec || !fs::is_regular_file(fs::symlink_status(file, ec))) {
+    e.error = file + ": not a regular file";
+    return e;
+  }
+  if (size > kMaxEntryBytes) {
+    e.error = file + ": " + std::to_string(size) + " bytes, more than a queue entry can be";
+    return e;
+  }
+  std::ifstream in(file, std::ios::binary);
+  std::stringstream ss;
+  ss << in.rdbuf();
+  const auto j = nlohmann::json::parse(ss.str(), nullptr, false);
+  if (!j.is_object() || !j.contains("folder") || !j["folder"].is_string() || !j.contains("what") ||
+      !j["what"].is_string()) {
+    e.error = file + ": not a queue entry (a JSON object with the strings \"folder\" and \"what\")";
+    return e;
+  }
+  e.folder = j["folder"].get<std::string>();
+  e.what = j["what"].get<std::string>();
+  e.queued_utc = j.value("queued_utc", std::string("?"));
+  if (e.folder.empty() || e.folder[0] != '/')
+    e.error = file + ": \"folder\" is not an absolute path (" + e.folder + ")";
+  return e;
+}
+
+// Moves an entry that will never index to queue/refused/, keeping its name (a later one replaces it).
+void set_aside(const std::string& data_root, const Entry& e, DrainResult& out, const std::string& why) {
+  const fs::path dir = fs::path(queue_dir(data_root)) / "refused";
+  std::error_code ec;
+  fs::create_directories(dir, ec);
+  fs::rename(e.file, dir / fs::path(e.file).filename(), ec);
+  if (ec) fs::remove(e.file, ec);
+  ++out.set_aside;
+  out.messages.push_back("set aside " + (e.folder.empty() ? e.file : e.folder) + " (queued at " +
+                         (e.queued_utc.empty() ? "?" : e.queued_utc) + "): " + why);
+}
+
+}  // namespace
+
+bool log_store_line(const std::string& data_root, const std::string& line, std::string& error) {
+  const std::string path = (fs::path(data_root) / kStoreLogName).string();
+  const int fd = ::open(path.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_NOFOLLOW | O_CLOEXEC, 0644);
+  if (fd < 0) {
+    error = path + ": " + std::strerror(errno);
+    return false;
+  }
+  std::string text = record::utc_now() + " " + line;
+  std::replace(text.begin(), text.end(), '\n', ' ');
+  text += '\n';
+  // One write per line with O_APPEND: lines of several processes never interleave within a line (POSIX, for
+  // regular files).
+  const ssize_t n = ::write(fd, text.data(), text.size());
+  const bool ok = n == static_cast<ssize_t>(text.size()) && ::fsync(fd) == 0;
+  if (!ok) error = path + ": " + std::strerror(errno);
+  ::close(fd);
+  return ok;
+}
+
+bool enqueue(const std::string& data_root, const std::string& folder, const std::string& what,
+             std::string& error) {
+  const fs::path dir = queue_dir(data_root);
+  std::error_code ec;
+  fs::create_directories(dir, ec);
+  if (ec) {
+    error = dir.string() + ": " + ec.message();
+    return false;
+  }
+  const std::string path = (dir / entry_name(folder)).string();
+  if (fs::exists(fs::symlink_status(path, ec))) return true;
+  const nlohmann::json j = {{"folder", folder}, {"what", what}, {"queued_utc", record::utc_now()}};
+  return write_whole(path, j.dump() + "\n", error);
+}
+
+std::vector<std::string> queued_entries(const std::string& data_root) {
+  std::vector<std::string> out;
+  std::error_code ec;
+  for (fs::directory_iterator it(queue_dir(data_root), ec), end; !ec && it != end; it.increment(ec)) {
+    const std::string name = it->path().filename().string();
+    if (name.size() > 5 && name.ends_with(".json") && name[0] != '.') out.push_back(it->path().string());
+  }
+  std::sort(out.begin(), out.end());
+  return out;
+}
+
+DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
+                        const record::VerifyOptions& options,
+                        std::chrono::steady_clock::time_point deadline) {
+  DrainResult out;
+  const std::vector<std::string> files = queued_entries(data_root);
+  std::unique_ptr<Store> store;
+  std::size_t i = 0;
+  for (; i < files.size(); ++i) {
+    if (std::chrono::steady_clock::now() >= deadline) {
+      out.messages.push_back("the time for indexing is up: " + std::to_string(files.size() - i) +
+                             " left in the queue for the next time");
+      break;
+    }
+    const Entry e = read_entry(files[i]);
+    if (!e.error.empty()) {
+      set_aside(data_root, e, out, e.error);
+      continue;
+    }
+    if (!store) {
+      std::string err;
+      store = open(err);
+      if (!store) {
+        out.store_ok = false;
+        out.messages.push_back("store unavailable (" + err + "): " + std::to_string(files.size() - i) +
+                               " kept in the queue");
+        break;
+      }
+    }
+    const IngestResult r = ingest_folder(*store, e.folder, options);
+    switch (r.status) {
+      case IngestStatus::indexed:
+      case IngestStatus::refreshed: {
+        std::error_code ec;
+        fs::remove(e.file, ec);
+        ++out.indexed;
+        out.messages.push_back(r.message + " (queued at " + e.queued_utc + ")");
+        break;
+      }
+      case IngestStatus::refused:
+      case IngestStatus::broken:
+        set_aside(data_root, e, out, r.message);
+        break;
+      case IngestStatus::store_failed:
+        out.store_ok = false;
+        out.messages.push_back("store unavailable (" + r.message + "): " + std::to_string(files.size() - i) +
+                               " kept in the queue");
+        i = files.size();
+        break;
+    }
+  }
+  out.remaining = static_cast<int>(queued_entries(data_root).size());
+  return out;
+}
+
+}  // namespace loadtrim::store

@@ -1,0 +1,125 @@
+// The store's queue (src/store/queue.hpp, docs/store.md "Indexed when it ends") over temporary data roots: an
+// entry stays queued while the store cannot be opened, the deadline is our own clock's, an entry that can
+// never index is set aside (never retried forever), a file in the queue that is not an entry is not
+// believed, and a folder's name cannot place its entry outside the queue. What each check holds the code to
+// is issue 19's rules ("the store down or slow neither stops nor slows a session; the entry is queued and
+// ingested when the store is back, logged both times") and POSIX rename/append behaviour.
+#include <gtest/gtest.h>
+#include <stdlib.h>
+
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+
+#include "store/queue.hpp"
+#include "store/sqlite_store.hpp"
+
+using namespace loadtrim;
+namespace fs = std::filesystem;
+
+namespace {
+
+std::string make_temp_dir(const std::string& stem) {
+  std::string dir = (fs::temp_directory_path() / (stem + "-XXXXXX")).string();
+  if (!::mkdtemp(dir.data())) return "";
+  return dir;
+}
+
+std::string read_file(const std::string& path) {
+  std::ifstream f(path, std::ios::binary);
+  std::ostringstream s;
+  s << f.rdbuf();
+  return s.str();
+}
+
+std::unique_ptr<store::Store> migrated_store(const std::string& path) {
+  std::string err;
+  auto s = store::open_sqlite(path, store::OpenMode::migrate, err);
+  if (!s || !s->migrate(err)) ADD_FAILURE() << err;
+  return s;
+}
+
+const auto kLater = std::chrono::steady_clock::now() + std::chrono::hours(1);
+
+}  // namespace
+
+// Issue 19: the store unavailable keeps every entry queued, says why, and the log keeps each step.
+TEST(StoreQueue, AnUnavailableStoreKeepsTheEntriesQueued) {
+  const std::string root = make_temp_dir("lt-queue");
+  std::string err;
+  ASSERT_TRUE(store::enqueue(root, "/labs/x/sessions/20261203T100000Z-A", "session", err)) << err;
+  ASSERT_TRUE(store::enqueue(root, "/labs/x/sessions/20261203T100100Z-B", "session", err)) << err;
+  // The same folder queued twice is one entry.
+  ASSERT_TRUE(store::enqueue(root, "/labs/x/sessions/20261203T100100Z-B", "session", err)) << err;
+  ASSERT_EQ(store::queued_entries(root).size(), 2u);
+  int opens = 0;
+  const store::StoreOpener down = [&](std::string& e) -> std::unique_ptr<store::Store> {
+    ++opens;
+    e = "server 127.0.0.1:1 refused the connection";
+    return nullptr;
+  };
+  const store::DrainResult r = store::drain_queue(root, down, {}, kLater);
+  EXPECT_FALSE(r.store_ok);
+  EXPECT_EQ(r.indexed, 0);
+  EXPECT_EQ(r.remaining, 2);
+  EXPECT_EQ(opens, 1) << "one attempt per drain, not one per entry";
+  ASSERT_FALSE(r.messages.empty());
+  EXPECT_NE(r.messages.back().find("refused the connection"), std::string::npos) << r.messages.back();
+  ASSERT_TRUE(store::log_store_line(root, "queued session B\nsecond line", err)) << err;
+  const std::string log = read_file(root + "/" + store::kStoreLogName);
+  EXPECT_NE(log.find("queued session B second line\n"), std::string::npos) << "one line per step: " << log;
+  fs::remove_all(root);
+}
+
+// Our own clock's deadline: a drain whose deadline has passed opens nothing and indexes nothing.
+TEST(StoreQueue, ADrainPastItsDeadlineLeavesTheQueue) {
+  const std::string root = make_temp_dir("lt-queue");
+  std::string err;
+  ASSERT_TRUE(store::enqueue(root, "/labs/x/sessions/S1", "session", err)) << err;
+  bool opened = false;
+  const store::StoreOpener open = [&](std::string&) -> std::unique_ptr<store::Store> {
+    opened = true;
+    return nullptr;
+  };
+  const store::DrainResult r =
+      store::drain_queue(root, open, {}, std::chrono::steady_clock::now() - std::chrono::seconds(1));
+  EXPECT_FALSE(opened);
+  EXPECT_EQ(r.remaining, 1);
+  fs::remove_all(root);
+}
+
+// Never retried forever: a folder that is gone is set aside (queue/refused/), a file that is not an entry is
+// set aside too, and neither stops the rest.
+TEST(StoreQueue, WhatCanNeverIndexIsSetAside) {
+  const std::string root = make_temp_dir("lt-queue");
+  std::string err;
+  ASSERT_TRUE(store::enqueue(root, root + "/sessions/gone", "session", err)) << err;
+  const fs::path qdir = fs::path(root) / store::kQueueDirName;
+  std::ofstream(qdir / "0-not-an-entry.json") << "{\"folder\": 7}";
+  std::ofstream(qdir / "1-relative.json") << R"({"folder": "sessions/x", "what": "session"})";
+  auto s = migrated_store(root + "/store.sqlite");
+  ASSERT_TRUE(s);
+  const store::StoreOpener open = [&](std::string& e) -> std::unique_ptr<store::Store> {
+    return store::open_sqlite(root + "/store.sqlite", store::OpenMode::use, e);
+  };
+  const store::DrainResult r = store::drain_queue(root, open, {}, kLater);
+  EXPECT_EQ(r.set_aside, 3);
+  EXPECT_EQ(r.remaining, 0);
+  EXPECT_TRUE(fs::exists(qdir / "refused" / "gone.json"));
+  EXPECT_TRUE(fs::exists(qdir / "refused" / "0-not-an-entry.json"));
+  EXPECT_TRUE(fs::exists(qdir / "refused" / "1-relative.json"));
+  fs::remove_all(root);
+}
+
+// A folder's name never places its entry outside the queue folder.
+TEST(StoreQueue, AFolderNameCannotLeaveTheQueue) {
+  const std::string root = make_temp_dir("lt-queue");
+  std::string err;
+  ASSERT_TRUE(store::enqueue(root, "/labs/x/sessions/..", "session", err)) << err;
+  ASSERT_TRUE(store::enqueue(root, "/labs/x/sessions/.hidden", "session", err)) << err;
+  for (const auto& f : store::queued_entries(root))
+    EXPECT_EQ(fs::path(f).parent_path(), fs::path(root) / store::kQueueDirName) << f;
+  EXPECT_EQ(store::queued_entries(root).size(), 2u);
+  EXPECT_FALSE(fs::exists(fs::path(root) / "...json"));
+  fs::remove_all(root);
+}
