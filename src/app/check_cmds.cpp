@@ -10,6 +10,7 @@
 
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
+#include "app/notify.hpp"
 #include "app/session_runner.hpp"
 #include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
@@ -161,7 +162,11 @@ int run_one(const CheckOptions& o) {
     std::printf("check %s: %s\n%s\nfolder: %s\n", o.kind.c_str(), checks::to_string(r.end), r.verdict.c_str(),
                 r.folder.c_str());
   }
-  return exit_code_for(r.end);
+  const int code = exit_code_for(r.end);
+  // The cell's notifiers (docs/notify.md): they never change the exit code.
+  notify_end(l.cell, o.root,
+             end_message("check", l.cell.name, r.folder, checks::to_string(r.end), code, r.result));
+  return code;
 }
 
 int run_due(const CheckOptions& o) {

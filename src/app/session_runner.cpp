@@ -13,6 +13,7 @@
 
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
+#include "app/notify.hpp"
 #include "app/pause_watch.hpp"
 #include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
@@ -376,11 +377,20 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
               << folder << ")\n";
   // A session that could not confirm the rollers at standstill ends with the controller-fault code, whatever
   // its result, so no script mistakes it for a clean end.
+  int code = exit_code_for(sum.outcome);
   if (!sum.rollers_stopped) {
     std::cerr << "loadtrim: " << sum.stop_note << "\n";
-    return kControllerFault;
+    code = kControllerFault;
   }
-  return exit_code_for(sum.outcome);
+  // The cell's notifiers (docs/notify.md): after everything is written; they never change the exit code.
+  const nlohmann::json summary = writer.summary().is_object()
+                                     ? writer.summary()
+                                     : nlohmann::json{{"result", session::to_string(sum.outcome)},
+                                                      {"stop_reason", sum.stop_reason},
+                                                      {"rollers_stopped", sum.rollers_stopped}};
+  notify_end(cell, lab.root,
+             end_message("session", cell.name, folder, session::to_string(sum.outcome), code, summary));
+  return code;
 }
 
 // A folder whose result the record already holds (the process ended after the verdict, before the seal) is

@@ -68,6 +68,20 @@ controller::CellConfig read_cell(TomlReader& r, const AdapterSections& adapters)
   c.records_private_key = r.string_or("records.private_key", "");
   c.operator_name = r.string_or("records.operator", "");
   c.sample_rate_hz = r.number_or("controller.sample_rate_hz", 100.0, 10.0, 1000.0, "Hz");
+  c.notify_command = r.strings_or_none("notify.command");
+  if (!c.notify_command.empty() && c.notify_command[0][0] != '/')
+    r.error("notify.command", "[0] must be the program's absolute path (it is run without a shell), not \"" +
+                                  c.notify_command[0] + "\"");
+  c.notify_mail_to = r.string_or("notify.mail_to", "");
+  if (!c.notify_mail_to.empty() &&
+      (c.notify_mail_to.find('@') == std::string::npos || c.notify_mail_to[0] == '-' ||
+       c.notify_mail_to.find_first_of(" \t\r\n,;<>") != std::string::npos))
+    r.error("notify.mail_to",
+            "must be one e-mail address like name@example.org, not \"" + c.notify_mail_to + "\"");
+  c.notify_mailer = r.string_or("notify.mailer", "/usr/sbin/sendmail");
+  if (c.notify_mailer.empty() || c.notify_mailer[0] != '/')
+    r.error("notify.mailer", "must be the mailer's absolute path, not \"" + c.notify_mailer + "\"");
+  c.notify_timeout_s = r.number_or("notify.timeout_s", 10.0, 1.0, 120.0, "s");
   return c;
 }
 

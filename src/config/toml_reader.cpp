@@ -209,6 +209,30 @@ std::vector<double> TomlReader::numbers(std::string_view key, double lo, double 
   return out;
 }
 
+std::vector<std::string> TomlReader::strings_or_none(std::string_view key) {
+  std::vector<std::string> out;
+  if (!has(key)) {
+    used_.insert(std::string(key));
+    return out;
+  }
+  const auto v = lookup(key);
+  const auto* arr = v.node()->as_array();
+  if (!arr) {
+    error(where(key, v.node()), "must be a list of strings");
+    return out;
+  }
+  for (std::size_t i = 0; i < arr->size(); ++i) {
+    const toml::node& e = *arr->get(i);
+    const auto* s = e.as_string();
+    if (!s || s->get().empty()) {
+      error(where(std::string(key) + "[" + std::to_string(i) + "]", &e), "must be a non-empty string");
+      continue;
+    }
+    out.push_back(s->get());
+  }
+  return out;
+}
+
 std::vector<std::string> TomlReader::choices(std::string_view key, const std::vector<std::string>& allowed) {
   std::string list;
   for (const auto& a : allowed) list += (list.empty() ? "" : ", ") + ("\"" + a + "\"");

@@ -30,6 +30,8 @@ class TomlReader {
   std::string string_or(std::string_view key, std::string fallback);
   bool boolean_or(std::string_view key, bool fallback);
   std::vector<double> numbers(std::string_view key, double lo, double hi, std::string_view unit);
+  // An optional list of non-empty strings (empty when the key is absent).
+  std::vector<std::string> strings_or_none(std::string_view key);
   // A list whose every entry must be one of `allowed`.
   std::vector<std::string> choices(std::string_view key, const std::vector<std::string>& allowed);
   // An enumeration: the value must be one of `allowed`.

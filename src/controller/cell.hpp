@@ -7,6 +7,7 @@
 
 #include <any>
 #include <string>
+#include <vector>
 
 #include "controller/controller.hpp"
 #include "core/mode.hpp"
@@ -55,6 +56,13 @@ struct CellConfig {
   // unsigned.
   std::string records_public_key, records_private_key;
   std::string operator_name;  // records.operator: who runs this cell when the command does not say
+  // [notify] (docs/notify.md): told when a session or dyno check ends or faults. command: a program (absolute
+  // path) and its arguments, never through a shell, the end's summary on its standard input; mail_to: an
+  // address the system's mailer (mailer, default /usr/sbin/sendmail) gets the same summary for. Each waits at
+  // most timeout_s; a notifier that fails is logged and never changes the session.
+  std::vector<std::string> notify_command;
+  std::string notify_mail_to, notify_mailer = "/usr/sbin/sendmail";
+  double notify_timeout_s = 10.0;
 };
 
 // What the controller reports against what the cell file says: problems with key "dyno.*" when they differ.

@@ -119,7 +119,10 @@ void set_aside(const std::string& data_root, const Entry& e, DrainResult& out, c
 }  // namespace
 
 bool log_store_line(const std::string& data_root, const std::string& line, std::string& error) {
-  const std::string path = (fs::path(data_root) / kStoreLogName).string();
+  return append_utc_line((fs::path(data_root) / kStoreLogName).string(), line, error);
+}
+
+bool append_utc_line(const std::string& path, const std::string& line, std::string& error) {
   const int fd = ::open(path.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_NOFOLLOW | O_CLOEXEC, 0644);
   if (fd < 0) {
     error = path + ": " + std::strerror(errno);

@@ -1,11 +1,11 @@
 // The store's queue (issue 19, docs/store.md "Indexed when it ends"): a finished session or dyno check is
 // indexed when it ends, but the store being down or slow never stops or slows the session. Every folder to
-// index is first written as an entry in <data root>/queue/ (record::DataRoot::queue()) (one small JSON file, written whole and
-// renamed into place); the queue is then drained within a deadline on this process's monotonic clock. An
-// entry leaves the queue only when its folder is indexed (or was indexed before), or is set aside in
-// queue/refused/ when its folder does not verify or is not a finished folder (never retried forever).
-// Each step is a line in <data root>/store.log (append-only, flushed per line): queued, indexed, set aside,
-// store unavailable.
+// index is first written as an entry in <data root>/queue/ (record::DataRoot::queue()) (one small JSON file,
+// written whole and renamed into place); the queue is then drained within a deadline on this process's
+// monotonic clock. An entry leaves the queue only when its folder is indexed (or was indexed before), or is
+// set aside in queue/refused/ when its folder does not verify or is not a finished folder (never retried
+// forever). Each step is a line in <data root>/store.log (append-only, flushed per line): queued, indexed,
+// set aside, store unavailable.
 #pragma once
 
 #include <chrono>
@@ -22,7 +22,11 @@ namespace loadtrim::store {
 inline constexpr const char* kQueueDirName = "queue";  // record::DataRoot::queue()
 inline constexpr const char* kStoreLogName = "store.log";
 
-// One line appended to <data_root>/store.log, with the UTC time first. False (error set) when it cannot be.
+// One line appended to the file `path` with the UTC time first: one write (O_APPEND) and an fsync, so lines
+// of several processes never interleave and a line logged is on disk. Newlines in `line` become spaces.
+// False (error set) when it cannot be.
+bool append_utc_line(const std::string& path, const std::string& line, std::string& error);
+// The same to <data_root>/store.log.
 bool log_store_line(const std::string& data_root, const std::string& line, std::string& error);
 
 // Writes the queue entry for `folder` (absolute), "session" or "check". The entry's file name is the folder's
