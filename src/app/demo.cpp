@@ -12,6 +12,7 @@
 #include "app/exit_codes.hpp"
 #include "app/session_runner.hpp"
 #include "app/sim_launcher.hpp"
+#include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
 #include "config/epa_csv.hpp"
 #include "config/input_error.hpp"
@@ -137,6 +138,15 @@ void register_demo(CLI::App& app, Runner& run) {
       ->check(CLI::Range(1.0, 2000.0))
       ->capture_default_str();
   sub->add_flag("--in-process", o->in_process, "run the simulated controller inside this process");
+  // The live status page is on for a single demo session (docs/live.md), on a loopback port.
+  o->req.live = true;
+  sub->add_flag_function(
+      "--no-live", [o](std::int64_t) { o->req.live = false; }, "do not serve the live status page");
+  sub->add_option(
+         "--live-bind", o->req.live_bind,
+         "where the live page listens, HOST:PORT (port 0: any free port); not a loopback address only "
+         "with an access token in LOADTRIM_LIVE_TOKEN")
+      ->capture_default_str();
   sub->add_option("--data-dir", o->req.data_dir,
                   "the lab's data root (default: as for run; see loadtrim run --help)");
   sub->add_option("--sessions", o->req.sessions_dir,
@@ -156,6 +166,8 @@ void register_demo(CLI::App& app, Runner& run) {
     run = [o] {
       record::DataRoot root;
       if (!resolve_lab(o->req, root)) return static_cast<int>(kBadInput);
+      if (!o->epa.empty()) o->req.live = false;  // a fleet of sessions: no page for each
+      ensure_demo_store(root, o->req.console == session::Console::Mode::normal);
       return o->epa.empty() ? demo_one(*o) : demo_fleet(*o);
     };
   });

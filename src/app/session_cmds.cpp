@@ -34,6 +34,14 @@ void output_options(CLI::App* sub, RunRequest& r) {
   q->excludes(j);
   sub->add_flag("--unattended", r.unattended,
                 "motor the rollers without asking (the lab's rules must allow unattended runs)");
+  sub->add_flag("--live", r.live,
+                "serve the read-only live status page while the session runs (docs/live.md; the address is "
+                "printed)");
+  sub->add_option(
+         "--live-bind", r.live_bind,
+         "where the live page listens, HOST:PORT (port 0: any free port); not a loopback address only "
+         "with an access token in LOADTRIM_LIVE_TOKEN")
+      ->capture_default_str();
   sub->add_option("--port", r.port, "override the cell file's TCP port")->check(CLI::Range(1, 65535));
   sub->add_option("--device", r.device, "override the cell file's serial device");
   sub->add_option("--rewarm-s", r.resume_warm_up_s,

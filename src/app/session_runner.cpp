@@ -13,6 +13,7 @@
 
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
+#include "app/live_page.hpp"
 #include "app/notify.hpp"
 #include "app/pause_watch.hpp"
 #include "app/store_hook.hpp"
@@ -307,6 +308,28 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   console.on_event(start);  // the target and the tolerance, before the first coast-down is compared with them
   const core::VehicleTarget vehicle = inputs.vehicle;
   std::vector<session::Observer*> observers = {&writer, &console};
+  // The live status page (docs/live.md): a view like the console; one that cannot bind is said and the
+  // session goes on without it (its address and token were checked before anything started).
+  std::unique_ptr<LivePage> live;
+  if (req.live) {
+    std::string err;
+    const char* token = std::getenv("LOADTRIM_LIVE_TOKEN");
+    live = LivePage::start(
+        {req.live_bind, token ? token : ""},
+        "loadtrim live: session " + fs::path(folder).filename().string() + " on cell " + inputs.cell.name,
+        std::string(req.simulator ? "Simulated controller: no rollers move.\n" : "") + kCautions, err);
+    if (!live)
+      std::cerr << "loadtrim: the live page is not served: " << err << " (the session goes on)\n";
+    else {
+      observers.push_back(live.get());
+      if (req.console == session::Console::Mode::json)
+        std::printf("%s\n", nlohmann::json({{"type", "live_page"}, {"url", live->url()}}).dump().c_str());
+      else
+        std::printf("live page: %s (read-only; open it in a browser on this computer%s)\n",
+                    live->url().c_str(), token && *token ? ", with ?token=..." : "");
+      std::fflush(stdout);
+    }
+  }
   // A test hook (as LOADTRIM_TEST_FAIL_WRITES_AFTER): freeze the session's own thread at the named event, to
   // show that a stalled tool lets the controller's watchdog stop the rollers (docs/safety.md).
   std::optional<FreezeForTest> freezer;
@@ -642,6 +665,25 @@ bool cell_log_intact(const RunRequest& req, const controller::CellConfig& cell) 
   return false;
 }
 
+static bool live_options_ok(const RunRequest& req) {
+  if (!req.live) return true;
+  std::string host, err;
+  int port = 0;
+  bool loopback = true;
+  if (!parse_bind(req.live_bind, host, port, loopback, err)) {
+    std::cerr << "--live-bind: " << err << "\nrefused: nothing was started.\n";
+    return false;
+  }
+  const char* token = std::getenv("LOADTRIM_LIVE_TOKEN");
+  if (!loopback && !(token && *token)) {
+    std::cerr << "--live-bind " << req.live_bind
+              << ": not a loopback address, so the live page needs an access token: set LOADTRIM_LIVE_TOKEN "
+                 "(docs/live.md)\nrefused: nothing was started.\n";
+    return false;
+  }
+  return true;
+}
+
 int run_new_session(const RunRequest& request, std::string* folder_out) {
   RunRequest req = request;
   record::DataRoot root;
@@ -651,6 +693,7 @@ int run_new_session(const RunRequest& request, std::string* folder_out) {
   std::optional<record::SigningKey> key;
   if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
   if (!cell_log_intact(req, l.inputs.cell)) return kRecordFailure;
+  if (!live_options_ok(req)) return kBadInput;
   if (!key && !req.simulator)
     std::cerr
         << "loadtrim: note: cell \"" << l.inputs.cell.name
@@ -766,6 +809,7 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
   std::optional<record::SigningKey> key;
   if (!cell_signing_key(root, l.inputs.cell, key)) return kBadInput;
   if (!cell_log_intact(req, l.inputs.cell)) return kRecordFailure;
+  if (!live_options_ok(req)) return kBadInput;
   // The folder's own first record names the cell its inputs describe, and a cell with a key signed every
   // record: else the folder was re-chained without the key (or begun before the cell had one) and resuming it
   // would put the cell's signature on records nobody can vouch for.

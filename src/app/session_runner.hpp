@@ -44,6 +44,8 @@ struct RunRequest {
   std::string check_profile;                      // default: config/checks/cfr1066.toml
   std::string override_checks;  // non-empty: start although required checks are due; the reason is logged
   report::CsvFormat csv;        // how the session's CSV exports are written (--csv-decimal-comma, --csv-us)
+  bool live = false;            // serve the live status page (docs/live.md) while the session runs
+  std::string live_bind = "127.0.0.1:0";  // --live-bind HOST:PORT; the token is LOADTRIM_LIVE_TOKEN
 };
 
 // Loads and validates every input of the request (throws config::InputError listing every problem).

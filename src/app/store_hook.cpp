@@ -64,6 +64,30 @@ int drain_store_queue(const record::DataRoot& root, const store::StorePath& wher
   return r.store_ok ? r.remaining : -1;
 }
 
+bool ensure_demo_store(const record::DataRoot& root, bool say) {
+  if (!root.ok()) return false;
+  const store::StorePath where = store::find_store_path("", root.path);
+  std::error_code ec;
+  if (!where.ok() || where.source != "the data root's store.sqlite" || fs::exists(where.path, ec))
+    return true;
+  std::string err;
+  auto s = store::open_sqlite(where.path, store::OpenMode::migrate, err, kBusyTimeoutMs);
+  std::vector<std::string> applied;
+  if (!s || !s->migrate(err, &applied)) {
+    std::fprintf(stderr,
+                 "loadtrim demo: the lab's record store could not be made (%s); the session is not "
+                 "indexed\n",
+                 err.c_str());
+    return false;
+  }
+  log_line(root, "made the store " + where.path + " for the demo (schema version " +
+                     std::to_string(store::known_schema_version()) + ")");
+  if (say)
+    std::printf("demo: made the lab's record store %s (`loadtrim history` lists the session afterwards)\n",
+                where.path.c_str());
+  return true;
+}
+
 void index_finished_folder(const record::DataRoot& root, const std::string& folder, const std::string& what,
                            bool say) {
   if (!root.ok()) return;

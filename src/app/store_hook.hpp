@@ -17,6 +17,12 @@ namespace loadtrim::app {
 void index_finished_folder(const record::DataRoot& root, const std::string& folder, const std::string& what,
                            bool say);
 
+// The demo's lab gets a store when it has none (no [store] configured, no <data root>/store.sqlite): an empty
+// SQLite store at this loadtrim's schema, so that `loadtrim history` lists the demo's sessions. Never
+// migrates an existing store (that is `loadtrim store migrate`'s). False (said on stderr) when it cannot be
+// made.
+bool ensure_demo_store(const record::DataRoot& root, bool say);
+
 // Drains the queue into the store at `where` (at most `budget_s` seconds) and prints what it did; the number
 // left queued, -1 when the store could not be used.
 int drain_store_queue(const record::DataRoot& root, const store::StorePath& where, double budget_s, bool say);
