@@ -1,6 +1,7 @@
 #include "record/session_folder.hpp"
 
 #include <fcntl.h>
+#include <sys/stat.h>
 #include <unistd.h>
 
 #include <cerrno>
@@ -56,9 +57,18 @@ std::string identity_name(const std::string& s) {
 
 std::string create_session_folder(const std::string& root, const std::string& id) {
   const std::string base = (fs::path(root) / (utc_compact_now() + "-" + safe_name(id))).string();
-  std::string path = base;
-  for (int i = 2; fs::exists(path); ++i) path = base + "-" + std::to_string(i);
+  // Claimed with one mkdir(2), which fails with EEXIST when another process made the same name first (several
+  // cells sharing one data root start sessions of the same vehicle in the same second): never two sessions in
+  // one folder, and never a check-then-create race.
   std::error_code ec;
+  fs::create_directories(root, ec);
+  std::string path = base;
+  for (int i = 2;; ++i) {
+    if (::mkdir(path.c_str(), 0755) == 0) break;
+    if (errno != EEXIST || i > 10000)
+      throw std::runtime_error("cannot create the session folder " + path + ": " + std::strerror(errno));
+    path = base + "-" + std::to_string(i);
+  }
   fs::create_directories(fs::path(path) / "inputs", ec);
   if (!ec) fs::create_directories(fs::path(path) / "traces", ec);
   if (ec) throw std::runtime_error("cannot create the session folder " + path + ": " + ec.message());

@@ -1,6 +1,7 @@
 #include "store/queue.hpp"
 
 #include <fcntl.h>
+#include <sys/file.h>
 #include <unistd.h>
 
 #include <algorithm>
@@ -170,6 +171,30 @@ DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
                         const record::VerifyOptions& options,
                         std::chrono::steady_clock::time_point deadline) {
   DrainResult out;
+  // One drainer at a time per data root (several sessions may end together): a lock file in the queue folder,
+  // waited for until the deadline (flock(2); released when this process closes it or exits).
+  std::error_code mk;
+  fs::create_directories(queue_dir(data_root), mk);
+  const std::string lock_path = (fs::path(queue_dir(data_root)) / ".drain.lock").string();
+  const int lock_fd = ::open(lock_path.c_str(), O_RDWR | O_CREAT | O_NOFOLLOW | O_CLOEXEC, 0644);
+  struct Unlock {
+    int fd;
+    ~Unlock() {
+      if (fd >= 0) ::close(fd);
+    }
+  } unlock{lock_fd};
+  bool locked = false;
+  while (lock_fd >= 0 && !(locked = ::flock(lock_fd, LOCK_EX | LOCK_NB) == 0)) {
+    if (std::chrono::steady_clock::now() >= deadline) break;
+    ::usleep(20000);
+  }
+  if (!locked) {
+    out.messages.push_back(
+        lock_fd < 0 ? "the queue's lock " + lock_path + " cannot be opened: " + std::strerror(errno)
+                    : std::string("another process was draining the queue until the deadline"));
+    out.remaining = static_cast<int>(queued_entries(data_root).size());
+    return out;
+  }
   const std::vector<std::string> files = queued_entries(data_root);
   std::unique_ptr<Store> store;
   std::size_t i = 0;

@@ -79,7 +79,7 @@ def main():
     lock.execute("BEGIN EXCLUSIVE")
     a, _, err_a = demo("A (store locked)")
     b, _, _ = demo("B (store locked)")
-    queued = sorted(os.listdir(queue)) if os.path.isdir(queue) else []
+    queued = sorted(f for f in os.listdir(queue) if f.endswith(".json")) if os.path.isdir(queue) else []
     expect("A and B are queued in the data root", queued == sorted([os.path.basename(a) + ".json",
                                                                     os.path.basename(b) + ".json"]), str(queued))
     expect("A's end said the store was unavailable and the folder queued",
