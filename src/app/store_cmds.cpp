@@ -15,6 +15,7 @@
 #include "record/data_root.hpp"
 #include "record/verify.hpp"
 #include "store/index.hpp"
+#include "store/pg_store.hpp"
 #include "store/sqlite_store.hpp"
 
 namespace loadtrim::app {
@@ -68,9 +69,10 @@ bool verify_options(const char* cmd, const StoreArgs& a, const record::DataRoot&
 std::unique_ptr<store::Store> open_store(const char* cmd, const store::StorePath& where,
                                          store::OpenMode mode) {
   std::string err;
-  auto s = store::open_sqlite(where.path, mode, err);
+  auto s = where.engine == "postgresql" ? store::open_postgresql(where.path, mode, err)
+                                        : store::open_sqlite(where.path, mode, err);
   if (!s)
-    std::fprintf(stderr, "loadtrim %s: %s\nstore: %s (from %s)\n", cmd, err.c_str(), where.path.c_str(),
+    std::fprintf(stderr, "loadtrim %s: %s\nstore: %s (from %s)\n", cmd, err.c_str(), where.shown().c_str(),
                  where.source.c_str());
   return s;
 }
@@ -80,7 +82,8 @@ int migrate(const StoreArgs& a) {
   store::StorePath where;
   if (!locate("store migrate", a, root, where)) return kBadInput;
   std::error_code ec;
-  std::filesystem::create_directories(std::filesystem::path(where.path).parent_path(), ec);
+  if (where.engine == "sqlite")
+    std::filesystem::create_directories(std::filesystem::path(where.path).parent_path(), ec);
   if (ec) {
     std::fprintf(stderr, "loadtrim store migrate: cannot create the folder of %s: %s\n", where.path.c_str(),
                  ec.message().c_str());
@@ -88,7 +91,7 @@ int migrate(const StoreArgs& a) {
   }
   auto s = open_store("store migrate", where, store::OpenMode::migrate);
   if (!s) return kBadInput;
-  std::printf("store: %s (from %s), engine %s\n", where.path.c_str(), where.source.c_str(),
+  std::printf("store: %s (from %s), engine %s\n", s->location().c_str(), where.source.c_str(),
               s->engine().c_str());
   std::string err;
   std::vector<std::string> applied;
@@ -128,7 +131,7 @@ int import_folders(const StoreArgs& a) {
     if (code == kRecordFailure || (code == kBadInput && worst == kAccepted)) worst = code;
   }
   std::printf("%d indexed, %d already indexed, %d refused; store %s\n", indexed, refreshed, refused,
-              where.path.c_str());
+              s->location().c_str());
   return worst;
 }
 
@@ -149,7 +152,7 @@ int check_rows(const StoreArgs& a) {
   }
   for (const auto& f : findings) std::printf("%s: %s\n", f.problem.c_str(), f.message.c_str());
   std::printf("checked %zu row(s) against their folders: %zu finding(s); store %s\n", rows, findings.size(),
-              where.path.c_str());
+              s->location().c_str());
   return findings.empty() ? kAccepted : kRecordFailure;
 }
 
@@ -196,7 +199,7 @@ int history(const StoreArgs& a) {
     return kRecordFailure;
   }
   if (a.json) {
-    nlohmann::json out = {{"store", where.path},
+    nlohmann::json out = {{"store", s->location()},
                           {"engine", s->engine()},
                           {"query", {{"vehicle", a.vehicle}, {"cell", a.cell}, {"since", a.since}}},
                           {"rows", nlohmann::json::array()}};
@@ -253,7 +256,7 @@ int history(const StoreArgs& a) {
     }
     return kAccepted;
   }
-  std::printf("store: %s (from %s)\n", where.path.c_str(), where.source.c_str());
+  std::printf("store: %s (from %s)\n", s->location().c_str(), where.source.c_str());
   if (rows.empty()) {
     std::printf("no session or dyno check matches\n");
     return kAccepted;
@@ -282,9 +285,11 @@ void common_options(CLI::App* sub, StoreArgs& a) {
   sub->add_option("--data-dir", a.data_dir,
                   "the lab's data root (default: as `loadtrim verify`; now: " +
                       record::find_data_root("").describe() + ")");
-  sub->add_option("--store", a.store,
-                  "the store's SQLite file (default: [store] sqlite in /etc/loadtrim/loadtrim.toml, else "
-                  "<data root>/store.sqlite)");
+  sub->add_option(
+      "--store", a.store,
+      "the store: an SQLite file, or a PostgreSQL server as a libpq URI postgresql://[user@]host[:port]/"
+      "dbname (default: [store] postgresql or sqlite in /etc/loadtrim/loadtrim.toml, else "
+      "<data root>/store.sqlite)");
 }
 
 void verify_options_cli(CLI::App* sub, StoreArgs& a) {
