@@ -138,7 +138,10 @@ def four_cells(store_args):
         procs.append(subprocess.Popen(
             [ARGS.exe, "run", "--cell", cell, "--target",
              os.path.join(ARGS.src, "samples", "targets", "demo-hatchback.toml"), "--unattended", "--quiet",
-             "--operator", f"operator {i}", "--override-checks", "store test: a simulated cell"],
+             "--operator", f"operator {i}", "--override-checks", "store test: a simulated cell",
+             # Each cell its own sessions folder, as cells on their own PCs have: four runs of one vehicle started
+             # in the same second into one folder would race for the folder's name.
+             "--sessions", os.path.join(ARGS.workdir, "data", f"sessions-cell{i}")],
             cwd=ARGS.workdir, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True))
     folders = []
     for p in procs:
