@@ -696,6 +696,54 @@ TEST_P(StoreTest, TwoImportsOfOneFolderAtOnceLeaveOneRow) {
   EXPECT_EQ(value("SELECT count(*) FROM sessions"), "1");
 }
 
+// Every wait has a deadline (the project's rule): a store held by another writer is given up after the
+// engine's wait, not waited for without end. SQLite: another connection holds the write lock (BEGIN
+// EXCLUSIVE) and the store's busy timeout (sqlite3_busy_timeout) is 500 ms; PostgreSQL: another session holds
+// the sessions table (LOCK TABLE ... ACCESS EXCLUSIVE) and the store's statement_timeout is 1 s. The ingest
+// fails as a store failure (exit 5) naming the store, and nothing is indexed.
+TEST_P(StoreTest, AStoreHeldByAnotherWriterIsGivenUpInTime) {
+  ASSERT_TRUE(migrated());
+  std::string err;
+  std::unique_ptr<store::Store> s;
+  sqlite3* holder = nullptr;
+  PGconn* pg_holder = nullptr;
+  if (pg()) {
+    store::PgTimeouts t;
+    t.statement_timeout_ms = 1000;
+    t.answer_margin_ms = 2000;
+    s = store::open_postgresql(conninfo_, store::OpenMode::use, err, t);
+    ASSERT_TRUE(s) << err;
+    pg_holder = PQconnectdb(conninfo_.c_str());
+    ASSERT_EQ(PQstatus(pg_holder), CONNECTION_OK) << PQerrorMessage(pg_holder);
+    PGresult* r = PQexec(pg_holder, "BEGIN; LOCK TABLE sessions IN ACCESS EXCLUSIVE MODE");
+    ASSERT_EQ(PQresultStatus(r), PGRES_COMMAND_OK) << PQresultErrorMessage(r);
+    PQclear(r);
+  } else {
+    s = store::open_sqlite(file_, store::OpenMode::use, err, 500);
+    ASSERT_TRUE(s) << err;
+    ASSERT_EQ(sqlite3_open_v2(file_.c_str(), &holder, SQLITE_OPEN_READWRITE, nullptr), SQLITE_OK);
+    ASSERT_EQ(sqlite3_exec(holder, "BEGIN EXCLUSIVE", nullptr, nullptr, nullptr), SQLITE_OK);
+  }
+  const auto t0 = std::chrono::steady_clock::now();
+  const store::IngestResult r = store::ingest_folder(*s, g_made->folder, g_made->verify);
+  const double waited_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  if (holder) {
+    sqlite3_exec(holder, "ROLLBACK", nullptr, nullptr, nullptr);
+    sqlite3_close(holder);
+  }
+  if (pg_holder) {
+    PQclear(PQexec(pg_holder, "ROLLBACK"));
+    PQfinish(pg_holder);
+  }
+  EXPECT_EQ(r.status, store::IngestStatus::store_failed) << r.message;
+  EXPECT_EQ(r.exit_code(), 5);
+  EXPECT_NE(r.message.find(where_), std::string::npos) << r.message;
+  // The folder's verification comes first and takes its own time; the wait for the store adds at most its
+  // deadline.
+  EXPECT_LT(waited_s, 10.0);
+  EXPECT_EQ(value("SELECT count(*) FROM sessions"), "0");
+}
+
 INSTANTIATE_TEST_SUITE_P(Engines, StoreTest, ::testing::Values(Engine::sqlite, Engine::postgresql),
                          engine_name);
 
