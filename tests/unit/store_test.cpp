@@ -37,6 +37,7 @@
 #include "session/session.hpp"
 #include "store/index.hpp"
 #include "store/pg_store.hpp"
+#include "store/schema.hpp"
 #include "store/sqlite_store.hpp"
 #include "support/fake_controller.hpp"
 
@@ -869,4 +870,27 @@ TEST(PgStore, AServerThatNeverAnswersIsGivenUpInTimeAndNamedWithoutThePassword) 
   EXPECT_NE(err.find("postgresql://127.0.0.1:" + port + "/lab"), std::string::npos) << err;
   EXPECT_EQ(err.find("s3cret-pw"), std::string::npos) << err;
   EXPECT_NE(err.find("nothing was changed"), std::string::npos) << err;
+}
+
+// The migration steps are written once for both engines (src/store/schema.hpp): every placeholder is filled
+// for each dialect, and PostgreSQL never gets its REAL, a 4-byte float ("real: 4 bytes, 6 decimal digits
+// precision", the PostgreSQL manual's numeric types), where the schema means an 8-byte IEEE 754 number. On
+// SQLite an 8-byte REAL and INTEGER PRIMARY KEY as the rowid alias are sqlite's documented types.
+TEST(StoreSchema, EveryStepIsFilledForBothDialects) {
+  namespace sc = store::schema;
+  ASSERT_EQ(sc::step_count(), store::known_schema_version());
+  for (int step = 1; step <= sc::step_count(); ++step) {
+    const std::string lite = sc::step_sql(step, sc::Dialect::sqlite);
+    const std::string pg = sc::step_sql(step, sc::Dialect::postgresql);
+    EXPECT_EQ(lite.find('{'), std::string::npos) << "step " << step << ": " << lite;
+    EXPECT_EQ(pg.find('{'), std::string::npos) << "step " << step << ": " << pg;
+    EXPECT_EQ(pg.find(" REAL"), std::string::npos) << "step " << step;
+    EXPECT_FALSE(std::string(sc::step_name(step)).empty());
+  }
+  const std::string lite1 = sc::step_sql(1, sc::Dialect::sqlite);
+  const std::string pg1 = sc::step_sql(1, sc::Dialect::postgresql);
+  EXPECT_NE(lite1.find("id INTEGER PRIMARY KEY,"), std::string::npos);
+  EXPECT_NE(lite1.find("target_f0_n REAL NOT NULL"), std::string::npos);
+  EXPECT_NE(pg1.find("id BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY,"), std::string::npos);
+  EXPECT_NE(pg1.find("target_f0_n DOUBLE PRECISION NOT NULL"), std::string::npos);
 }
