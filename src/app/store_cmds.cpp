@@ -33,13 +33,13 @@ struct StoreArgs {
 // Where the lab's data and the store are. False (with the message printed) when they cannot be resolved.
 bool locate(const char* cmd, const StoreArgs& a, record::DataRoot& root, store::StorePath& where) {
   root = record::find_data_root(a.data_dir);
-  if (!root.ok() && a.store.empty()) {
-    std::fprintf(stderr, "loadtrim %s: %s\nrefused: nothing was changed.\n", cmd, root.describe().c_str());
-    return false;
-  }
   where = store::find_store_path(a.store, root.ok() ? root.path : std::string());
+  // A store given by --store or by the lab's [store] table (a server, an absolute file) needs no data root;
+  // the default file does.
   if (!where.ok()) {
-    std::fprintf(stderr, "loadtrim %s: %s\nrefused: nothing was changed.\n", cmd, where.error.c_str());
+    std::fprintf(stderr, "loadtrim %s: %s\n", cmd, where.error.c_str());
+    if (!root.ok()) std::fprintf(stderr, "loadtrim %s: %s\n", cmd, root.describe().c_str());
+    std::fprintf(stderr, "refused: nothing was changed.\n");
     return false;
   }
   return true;

@@ -814,6 +814,11 @@ TEST(StorePath, PostgresqlFromTheOptionOrTheLabConfig) {
   EXPECT_EQ(kv.engine, "postgresql");
   EXPECT_EQ(kv.server, "postgresql://db.lab:5432/lab");
   EXPECT_NE(kv.source.find("[store] postgresql"), std::string::npos) << kv.source;
+  // A server needs no data root (the SQLite default does).
+  EXPECT_TRUE(store::resolve_store_path(
+                  "", "/x", std::string("[store]\npostgresql = \"host=db.lab dbname=lab\"\n"), cfg, "")
+                  .ok());
+  EXPECT_FALSE(store::resolve_store_path("", "/x", std::nullopt, cfg, "").ok());
 
   const store::StorePath both = store::resolve_store_path(
       "", "/x", std::string("[store]\nsqlite = \"a.sqlite\"\npostgresql = \"host=db.lab dbname=lab\"\n"), cfg,
