@@ -49,6 +49,6 @@ if(LOADTRIM_DPKG_SHLIBDEPS)
 else()
   message(STATUS "dpkg-shlibdeps not found (package dpkg-dev): the .deb's Depends are the hand-written list")
   set(CPACK_DEBIAN_PACKAGE_DEPENDS
-      "libc6, libgcc-s1, libmodbus5, libnlopt0, libspdlog1.10-fmt9, libsqlite3-0, libssl3, libstdc++6, libtomlplusplus3")
+      "libc6, libgcc-s1, libmodbus5, libnlopt0, libpq5, libspdlog1.10-fmt9, libsqlite3-0, libssl3, libstdc++6, libtomlplusplus3")
 endif()
 include(CPack)

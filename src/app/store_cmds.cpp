@@ -16,6 +16,7 @@
 #include "record/data_root.hpp"
 #include "record/verify.hpp"
 #include "store/index.hpp"
+#include "store/pg_store.hpp"
 #include "store/queue.hpp"
 #include "store/sqlite_store.hpp"
 
@@ -38,13 +39,13 @@ struct StoreArgs {
 // Where the lab's data and the store are. False (with the message printed) when they cannot be resolved.
 bool locate(const char* cmd, const StoreArgs& a, record::DataRoot& root, store::StorePath& where) {
   root = record::find_data_root(a.data_dir);
-  if (!root.ok() && a.store.empty()) {
-    std::fprintf(stderr, "loadtrim %s: %s\nrefused: nothing was changed.\n", cmd, root.describe().c_str());
-    return false;
-  }
   where = store::find_store_path(a.store, root.ok() ? root.path : std::string());
+  // A store given by --store or by the lab's [store] table (a server, an absolute file) needs no data root;
+  // the default file does.
   if (!where.ok()) {
-    std::fprintf(stderr, "loadtrim %s: %s\nrefused: nothing was changed.\n", cmd, where.error.c_str());
+    std::fprintf(stderr, "loadtrim %s: %s\n", cmd, where.error.c_str());
+    if (!root.ok()) std::fprintf(stderr, "loadtrim %s: %s\n", cmd, root.describe().c_str());
+    std::fprintf(stderr, "refused: nothing was changed.\n");
     return false;
   }
   return true;
@@ -74,9 +75,10 @@ bool verify_options(const char* cmd, const StoreArgs& a, const record::DataRoot&
 std::unique_ptr<store::Store> open_store(const char* cmd, const store::StorePath& where,
                                          store::OpenMode mode) {
   std::string err;
-  auto s = store::open_sqlite(where.path, mode, err);
+  auto s = where.engine == "postgresql" ? store::open_postgresql(where.path, mode, err)
+                                        : store::open_sqlite(where.path, mode, err);
   if (!s)
-    std::fprintf(stderr, "loadtrim %s: %s\nstore: %s (from %s)\n", cmd, err.c_str(), where.path.c_str(),
+    std::fprintf(stderr, "loadtrim %s: %s\nstore: %s (from %s)\n", cmd, err.c_str(), where.shown().c_str(),
                  where.source.c_str());
   return s;
 }
@@ -86,7 +88,8 @@ int migrate(const StoreArgs& a) {
   store::StorePath where;
   if (!locate("store migrate", a, root, where)) return kBadInput;
   std::error_code ec;
-  std::filesystem::create_directories(std::filesystem::path(where.path).parent_path(), ec);
+  if (where.engine == "sqlite")
+    std::filesystem::create_directories(std::filesystem::path(where.path).parent_path(), ec);
   if (ec) {
     std::fprintf(stderr, "loadtrim store migrate: cannot create the folder of %s: %s\n", where.path.c_str(),
                  ec.message().c_str());
@@ -94,7 +97,7 @@ int migrate(const StoreArgs& a) {
   }
   auto s = open_store("store migrate", where, store::OpenMode::migrate);
   if (!s) return kBadInput;
-  std::printf("store: %s (from %s), engine %s\n", where.path.c_str(), where.source.c_str(),
+  std::printf("store: %s (from %s), engine %s\n", s->location().c_str(), where.source.c_str(),
               s->engine().c_str());
   std::string err;
   std::vector<std::string> applied;
@@ -151,7 +154,7 @@ int import_folders(const StoreArgs& a) {
     if (code == kRecordFailure || (code == kBadInput && worst == kAccepted)) worst = code;
   }
   std::printf("%d indexed, %d already indexed, %d refused; store %s\n", indexed, refreshed, refused,
-              where.path.c_str());
+              s->location().c_str());
   return worst;
 }
 
@@ -172,7 +175,7 @@ int check_rows(const StoreArgs& a) {
   }
   for (const auto& f : findings) std::printf("%s: %s\n", f.problem.c_str(), f.message.c_str());
   std::printf("checked %zu row(s) against their folders: %zu finding(s); store %s\n", rows, findings.size(),
-              where.path.c_str());
+              s->location().c_str());
   return findings.empty() ? kAccepted : kRecordFailure;
 }
 
@@ -219,7 +222,7 @@ int history(const StoreArgs& a) {
     return kRecordFailure;
   }
   if (a.json) {
-    nlohmann::json out = {{"store", where.path},
+    nlohmann::json out = {{"store", s->location()},
                           {"engine", s->engine()},
                           {"query", {{"vehicle", a.vehicle}, {"cell", a.cell}, {"since", a.since}}},
                           {"rows", nlohmann::json::array()}};
@@ -276,7 +279,7 @@ int history(const StoreArgs& a) {
     }
     return kAccepted;
   }
-  std::printf("store: %s (from %s)\n", where.path.c_str(), where.source.c_str());
+  std::printf("store: %s (from %s)\n", s->location().c_str(), where.source.c_str());
   if (rows.empty()) {
     std::printf("no session or dyno check matches\n");
     return kAccepted;
@@ -305,9 +308,11 @@ void common_options(CLI::App* sub, StoreArgs& a) {
   sub->add_option("--data-dir", a.data_dir,
                   "the lab's data root (default: as `loadtrim verify`; now: " +
                       record::find_data_root("").describe() + ")");
-  sub->add_option("--store", a.store,
-                  "the store's SQLite file (default: [store] sqlite in /etc/loadtrim/loadtrim.toml, else "
-                  "<data root>/store.sqlite)");
+  sub->add_option(
+      "--store", a.store,
+      "the store: an SQLite file, or a PostgreSQL server as a libpq URI postgresql://[user@]host[:port]/"
+      "dbname (default: [store] postgresql or sqlite in /etc/loadtrim/loadtrim.toml, else "
+      "<data root>/store.sqlite)");
 }
 
 void verify_options_cli(CLI::App* sub, StoreArgs& a) {

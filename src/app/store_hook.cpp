@@ -5,6 +5,7 @@
 #include <filesystem>
 
 #include "store/index.hpp"
+#include "store/pg_store.hpp"
 #include "store/queue.hpp"
 #include "store/sqlite_store.hpp"
 
@@ -18,6 +19,8 @@ namespace {
 // Common practice, no source: short against a session's tens of minutes, long enough for a busy store.
 constexpr double kEndBudgetS = 10.0;
 constexpr int kBusyTimeoutMs = 2000;
+// A server at a session's end: 3 s to connect, 4 s per statement, 1 s more for its answer.
+constexpr store::PgTimeouts kEndPgTimeouts{3, 4000, 1000};
 
 void log_line(const record::DataRoot& root, const std::string& line) {
   std::string err;
@@ -42,7 +45,11 @@ int drain_store_queue(const record::DataRoot& root, const store::StorePath& wher
       error = where.error;
       return nullptr;
     }
-    return store::open_sqlite(where.path, store::OpenMode::use, error, kBusyTimeoutMs);
+    // A server is given its own connect and statement deadlines (pg_store.hpp); a file waits at most the
+    // busy timeout for another writer.
+    return where.engine == "postgresql"
+               ? store::open_postgresql(where.path, store::OpenMode::use, error, kEndPgTimeouts)
+               : store::open_sqlite(where.path, store::OpenMode::use, error, kBusyTimeoutMs);
   };
   const auto deadline =
       std::chrono::steady_clock::now() + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
@@ -60,7 +67,7 @@ int drain_store_queue(const record::DataRoot& root, const store::StorePath& wher
                  "loadtrim: store: %d folder(s) queued in %s for the store (%s); "
                  "`loadtrim store import --queued` indexes them when it is back\n",
                  r.remaining, (fs::path(root.path) / store::kQueueDirName).string().c_str(),
-                 where.ok() ? where.path.c_str() : where.error.c_str());
+                 where.ok() ? where.shown().c_str() : where.error.c_str());
   return r.store_ok ? r.remaining : -1;
 }
 

@@ -8,6 +8,7 @@
 #include "record/data_root.hpp"
 #include "record/event_log.hpp"
 #include "record/inside.hpp"
+#include "store/pg_store.hpp"
 
 namespace loadtrim::store {
 
@@ -344,6 +345,15 @@ bool check_store(Store& store, const record::VerifyOptions& options, std::vector
   return true;
 }
 
+namespace {
+constexpr const char* kPgForms =
+    "allowed: a libpq connection string such as \"host=db.lab port=5432 dbname=loadtrim user=cell\", or a "
+    "URI "
+    "postgresql://[user@]host[:port]/dbname[?param=value...]";
+constexpr const char* kSqliteForms =
+    "allowed: a path to the SQLite file, absolute or relative to the data root";
+}  // namespace
+
 StorePath resolve_store_path(const std::string& option, const std::string& cwd,
                              const std::optional<std::string>& system_config,
                              const std::string& system_config_path, const std::string& data_root) {
@@ -354,6 +364,17 @@ StorePath resolve_store_path(const std::string& option, const std::string& cwd,
     return x;
   };
   if (!option.empty()) {
+    if (is_postgresql_uri(option)) {
+      std::string why;
+      if (!describe_conninfo(option, s.server, why)) {
+        s.error = "--store: " + why + " (" + kPgForms + "; anything else is an SQLite file)";
+        return s;
+      }
+      s.engine = "postgresql";
+      s.path = option;
+      s.source = "--store";
+      return s;
+    }
     const fs::path p(option);
     s.path = normal(p.is_absolute() || cwd.empty() ? p : fs::path(cwd) / p);
     s.source = "--store";
@@ -363,16 +384,38 @@ StorePath resolve_store_path(const std::string& option, const std::string& cwd,
     std::string err;
     const auto v = record::toml_string_value(*system_config, "store", "sqlite", &err);
     if (!err.empty()) {
-      s.error = system_config_path + ": " + err +
-                " (allowed: a path to the SQLite file, absolute or relative to "
-                "the data root)";
+      s.error = system_config_path + ": " + err + " (" + kSqliteForms + ")";
+      return s;
+    }
+    const auto pg = record::toml_string_value(*system_config, "store", "postgresql", &err);
+    if (!err.empty()) {
+      s.error = system_config_path + ": " + err + " (" + kPgForms + ")";
+      return s;
+    }
+    if (v && pg) {
+      s.error = system_config_path +
+                ": [store] names both sqlite and postgresql; give one of them (sqlite = \"PATH\" for a file, "
+                "postgresql = \"CONNINFO\" for a server)";
+      return s;
+    }
+    if (pg) {
+      std::string why;
+      if (pg->empty()) {
+        s.error = system_config_path + ": store.postgresql is empty (" + kPgForms + ")";
+        return s;
+      }
+      if (!describe_conninfo(*pg, s.server, why)) {
+        s.error = system_config_path + ": store.postgresql: " + why + " (" + kPgForms + ")";
+        return s;
+      }
+      s.engine = "postgresql";
+      s.path = *pg;
+      s.source = system_config_path + " ([store] postgresql)";
       return s;
     }
     if (v) {
       if (v->empty()) {
-        s.error = system_config_path +
-                  ": store.sqlite is empty (allowed: a path to the SQLite file, absolute "
-                  "or relative to the data root)";
+        s.error = system_config_path + ": store.sqlite is empty (" + kSqliteForms + ")";
         return s;
       }
       const fs::path p(*v);

@@ -58,15 +58,24 @@ bool check_store(Store& store, const record::VerifyOptions& options, std::vector
 // --- where the store is ---
 inline constexpr const char* kStoreFileName = "store.sqlite";
 struct StorePath {
-  std::string path;    // absolute
+  std::string engine = "sqlite";  // "sqlite" or "postgresql"
+  // sqlite: the file, absolute; postgresql: the libpq connection string (it may hold a password: never print
+  // it)
+  std::string path;
+  // postgresql: the server as postgresql://host:port/dbname, for messages (no user, no password)
+  std::string server;
   std::string source;  // how it was chosen
-  std::string error;   // a sentence naming the file and key, when it could not be resolved
+  std::string error;   // a sentence naming the file and key (or the option), when it could not be resolved
   bool ok() const { return error.empty() && !path.empty(); }
+  // What to print: the file, or the server (never the connection string itself).
+  const std::string& shown() const { return engine == "postgresql" ? server : path; }
 };
-// In order: `option` (--store, relative to cwd); `[store] sqlite = "..."` in the lab's system configuration
-// (its text `system_config`, read from `system_config_path`; a relative value is taken from the data root);
-// <data_root>/store.sqlite. A [store] sqlite that is present but not a one-line non-empty string is an
-// error naming the file and the key, never a fall-through. Pure.
+// In order: `option` (--store: a libpq URI when it starts with postgresql:// or postgres://, else an SQLite
+// file relative to cwd); the lab's system configuration's [store] table (its text `system_config`, read from
+// `system_config_path`): `postgresql = "CONNINFO"` (a libpq connection string or URI) or `sqlite = "PATH"` (a
+// relative path is taken from the data root), never both; <data_root>/store.sqlite. A key that is present but
+// not a one-line non-empty string, a connection string libpq cannot read, or both keys given is an error
+// naming the file and the key, never a fall-through. Pure (libpq only parses the connection string).
 StorePath resolve_store_path(const std::string& option, const std::string& cwd,
                              const std::optional<std::string>& system_config,
                              const std::string& system_config_path, const std::string& data_root);

@@ -4,148 +4,18 @@
 
 #include <algorithm>
 #include <filesystem>
-#include <iterator>
 #include <optional>
 #include <stdexcept>
 #include <utility>
 
 #include "record/session_folder.hpp"
+#include "store/schema.hpp"
 
 namespace loadtrim::store {
 
 namespace {
 
-// The migrations, in order: step N brings a store from version N-1 to N. A step is never edited once
-// released; a change is a new step (docs/store.md, "Migrations").
-struct Migration {
-  int version;
-  const char* name;
-  const char* sql;
-};
-
-constexpr Migration kMigrations[] = {
-    {1, "sessions, coast-downs, deviations, reviews and checks", R"SQL(
-CREATE TABLE sessions (
-  id INTEGER PRIMARY KEY,
-  origin TEXT NOT NULL UNIQUE,
-  name TEXT NOT NULL,
-  folder TEXT NOT NULL,
-  cell TEXT NOT NULL,
-  vehicle TEXT NOT NULL,
-  vehicle_description TEXT NOT NULL,
-  operator TEXT NOT NULL,
-  profile TEXT NOT NULL,
-  standard TEXT NOT NULL,
-  method TEXT NOT NULL,
-  first_setting_requested TEXT NOT NULL,
-  first_setting_strategy TEXT NOT NULL,
-  first_setting_fallback TEXT NOT NULL,
-  result TEXT NOT NULL,
-  accepted INTEGER NOT NULL CHECK (accepted IN (0, 1)),
-  stop_reason TEXT NOT NULL,
-  target_f0_n REAL NOT NULL,
-  target_f1_n_per_kmh REAL NOT NULL,
-  target_f2_n_per_kmh2 REAL NOT NULL,
-  final_f0_n REAL,
-  final_f1_n_per_kmh REAL,
-  final_f2_n_per_kmh2 REAL,
-  measured_f0_n REAL,
-  measured_f1_n_per_kmh REAL,
-  measured_f2_n_per_kmh2 REAL,
-  tolerance_n REAL,
-  test_mass_kg REAL,
-  coastdowns INTEGER NOT NULL,
-  usable_coastdowns INTEGER NOT NULL,
-  iterations INTEGER NOT NULL,
-  cell_time_s REAL,
-  started_utc TEXT NOT NULL,
-  sealed_utc TEXT NOT NULL,
-  chain_head TEXT NOT NULL,
-  seal_sha256 TEXT NOT NULL,
-  signer TEXT NOT NULL,
-  verify_outcome TEXT NOT NULL,
-  indexed_utc TEXT NOT NULL
-);
-CREATE TABLE session_deviations (
-  session INTEGER NOT NULL REFERENCES sessions(id) ON DELETE CASCADE,
-  speed_kmh REAL NOT NULL,
-  target_n REAL NOT NULL,
-  measured_n REAL NOT NULL,
-  deviation_n REAL NOT NULL,
-  limit_n REAL NOT NULL,
-  u_n REAL,
-  pass INTEGER NOT NULL CHECK (pass IN (0, 1))
-);
-CREATE TABLE coastdowns (
-  id INTEGER PRIMARY KEY,
-  session INTEGER NOT NULL REFERENCES sessions(id) ON DELETE CASCADE,
-  seq INTEGER NOT NULL,
-  run INTEGER NOT NULL,
-  usable INTEGER NOT NULL CHECK (usable IN (0, 1)),
-  unusable_reason TEXT NOT NULL,
-  set_f0_n REAL,
-  set_f1_n_per_kmh REAL,
-  set_f2_n_per_kmh2 REAL,
-  measured_f0_n REAL,
-  measured_f1_n_per_kmh REAL,
-  measured_f2_n_per_kmh2 REAL,
-  passed INTEGER CHECK (passed IN (0, 1)),
-  worst_abs_deviation_n REAL,
-  cell_time_s REAL,
-  UNIQUE (session, seq)
-);
-CREATE TABLE coastdown_deviations (
-  coastdown INTEGER NOT NULL REFERENCES coastdowns(id) ON DELETE CASCADE,
-  speed_kmh REAL NOT NULL,
-  target_n REAL NOT NULL,
-  measured_n REAL NOT NULL,
-  deviation_n REAL NOT NULL,
-  limit_n REAL NOT NULL,
-  u_n REAL,
-  pass INTEGER NOT NULL CHECK (pass IN (0, 1))
-);
-CREATE TABLE reviews (
-  session INTEGER NOT NULL REFERENCES sessions(id) ON DELETE CASCADE,
-  seq INTEGER NOT NULL,
-  reviewer TEXT NOT NULL,
-  utc TEXT NOT NULL,
-  statement TEXT NOT NULL,
-  signature_checked INTEGER NOT NULL CHECK (signature_checked IN (0, 1)),
-  PRIMARY KEY (session, seq)
-);
-CREATE TABLE checks (
-  id INTEGER PRIMARY KEY,
-  origin TEXT NOT NULL UNIQUE,
-  name TEXT NOT NULL,
-  folder TEXT NOT NULL,
-  cell TEXT NOT NULL,
-  kind TEXT NOT NULL,
-  end_state TEXT NOT NULL,
-  passed INTEGER NOT NULL CHECK (passed IN (0, 1)),
-  verdict TEXT NOT NULL,
-  operator TEXT NOT NULL,
-  started_utc TEXT NOT NULL,
-  sealed_utc TEXT NOT NULL,
-  chain_head TEXT NOT NULL,
-  seal_sha256 TEXT NOT NULL,
-  signer TEXT NOT NULL,
-  verify_outcome TEXT NOT NULL,
-  indexed_utc TEXT NOT NULL
-);
-)SQL"},
-    {2, "indexes for history by vehicle, cell and time", R"SQL(
-CREATE INDEX sessions_by_vehicle ON sessions (vehicle, started_utc);
-CREATE INDEX sessions_by_cell ON sessions (cell, started_utc);
-CREATE INDEX sessions_by_time ON sessions (started_utc);
-CREATE INDEX checks_by_cell ON checks (cell, started_utc);
-CREATE INDEX checks_by_time ON checks (started_utc);
-CREATE INDEX session_deviations_by_session ON session_deviations (session);
-CREATE INDEX coastdowns_by_session ON coastdowns (session);
-CREATE INDEX coastdown_deviations_by_coastdown ON coastdown_deviations (coastdown);
-)SQL"},
-};
-
-constexpr int kKnownVersion = static_cast<int>(std::size(kMigrations));
+// The migrations are schema.hpp's steps, shared with the PostgreSQL engine; SQLite's dialect of them.
 
 // Inside this file only: an SQLite call that failed, with its message. Caught at each Store method.
 struct SqlError : std::runtime_error {
@@ -300,23 +170,22 @@ class SqliteStore final : public Store {
 
   bool migrate(std::string& error, std::vector<std::string>* applied, int up_to) override {
     try {
-      const int target = up_to > 0 ? std::min(up_to, kKnownVersion) : kKnownVersion;
+      const int target = up_to > 0 ? std::min(up_to, schema::step_count()) : schema::step_count();
       const int have = version();
-      if (have > kKnownVersion) {
+      if (have > schema::step_count()) {
         error = newer_message(have);
         return false;
       }
-      for (const Migration& m : kMigrations) {
-        if (m.version <= have || m.version > target) continue;
+      for (int step = have + 1; step <= target; ++step) {
         Transaction t(db_);
         exec(db_,
              "CREATE TABLE IF NOT EXISTS schema_migrations (version INTEGER PRIMARY KEY, name TEXT NOT NULL, "
              "applied_utc TEXT NOT NULL)");
-        exec(db_, m.sql);
+        exec(db_, schema::step_sql(step, schema::Dialect::sqlite));
         Stmt ins(db_, "INSERT INTO schema_migrations (version, name, applied_utc) VALUES (?1, ?2, ?3)");
-        ins.integer(1, m.version).text(2, m.name).text(3, record::utc_now()).run();
+        ins.integer(1, step).text(2, schema::step_name(step)).text(3, record::utc_now()).run();
         t.commit();
-        if (applied) applied->push_back(std::to_string(m.version) + " " + m.name);
+        if (applied) applied->push_back(std::to_string(step) + " " + schema::step_name(step));
       }
       return true;
     } catch (const std::exception& e) {
@@ -562,7 +431,7 @@ class SqliteStore final : public Store {
 
   std::string newer_message(int have) const {
     return path_ + ": the store's schema is version " + std::to_string(have) +
-           ", newer than this loadtrim knows (up to " + std::to_string(kKnownVersion) +
+           ", newer than this loadtrim knows (up to " + std::to_string(schema::step_count()) +
            "): use the loadtrim that migrated it, or a newer one; nothing was changed";
   }
 
@@ -585,10 +454,6 @@ class SqliteStore final : public Store {
 };
 
 }  // namespace
-
-int known_schema_version() {
-  return kKnownVersion;
-}
 
 std::unique_ptr<Store> open_sqlite(const std::string& path, OpenMode mode, std::string& error,
                                    int busy_timeout_ms) {
@@ -616,13 +481,14 @@ std::unique_ptr<Store> open_sqlite(const std::string& path, OpenMode mode, std::
     // Foreign keys are off by default in SQLite and set per connection (sqlite's documented behaviour).
     exec(db, "PRAGMA foreign_keys = ON");
     const int have = store->version();
-    if (have > kKnownVersion) {
+    if (have > schema::step_count()) {
       error = store->newer_message(have);
       return nullptr;
     }
-    if (mode == OpenMode::use && have < kKnownVersion) {
+    if (mode == OpenMode::use && have < schema::step_count()) {
       error = path + ": the store's schema is version " + std::to_string(have) + "; this loadtrim needs " +
-              std::to_string(kKnownVersion) + ": run `loadtrim store migrate` first (nothing was changed)";
+              std::to_string(schema::step_count()) +
+              ": run `loadtrim store migrate` first (nothing was changed)";
       return nullptr;
     }
   } catch (const std::exception& e) {

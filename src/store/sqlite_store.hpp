@@ -10,11 +10,6 @@
 
 namespace loadtrim::store {
 
-enum class OpenMode {
-  use,     // the file must exist and be at exactly known_schema_version(): else refused, nothing changed
-  migrate  // the file is created when missing; any version up to known_schema_version() is accepted
-};
-
 // Opens the store at `path`. Refused (nullptr, with a sentence naming the file in `error`) when: the file is
 // missing (use), is not an SQLite database, holds tables but no schema_migrations (not a loadtrim store),
 // holds a schema newer than this tool knows (either mode), or, in `use`, an older one ("run loadtrim store

@@ -1,6 +1,12 @@
 #include "store/store.hpp"
 
+#include "store/schema.hpp"
+
 namespace loadtrim::store {
+
+int known_schema_version() {
+  return schema::step_count();
+}
 
 bool is_iso_date(const std::string& date) {
   // YYYY-MM-DD: ISO 8601 calendar date, complete representation, extended format.

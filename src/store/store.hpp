@@ -2,9 +2,10 @@
 // answers "what happened to this vehicle / on this cell / since that day". The folder stays the evidence; a
 // row is only what a verified folder said when it was indexed, and `store check` compares the two again.
 //
-// One schema, several engines behind the abstract Store: SQLite (sqlite_store.hpp) is the embedded default;
-// a server engine can follow behind the same interface. Migrations are numbered steps held in the code; a
-// store is migrated only by `loadtrim store migrate` (Store::migrate), never when it is opened.
+// One schema (schema.hpp), two engines behind the abstract Store: SQLite (sqlite_store.hpp) is the embedded
+// default; PostgreSQL (pg_store.hpp) serves a lab whose cells share one server. Migrations are numbered steps
+// held in the code; a store is migrated only by `loadtrim store migrate` (Store::migrate), never when it is
+// opened.
 //
 // Nothing here throws across the API: failures are `false` / an empty optional with a sentence in `error`.
 #pragma once
@@ -116,8 +117,8 @@ enum class PutResult {
 class Store {
  public:
   virtual ~Store() = default;
-  virtual std::string engine() const = 0;    // "sqlite"
-  virtual std::string location() const = 0;  // the file (or server) it is
+  virtual std::string engine() const = 0;    // "sqlite" or "postgresql"
+  virtual std::string location() const = 0;  // the file, or the server as host:port/dbname (no password)
   // The highest migration applied (0 for an empty store). -1 with error when it cannot be read.
   virtual int schema_version(std::string& error) = 0;
   // Applies every step above the current version, each in its own transaction, up to `up_to` (0 = all).
@@ -129,6 +130,12 @@ class Store {
   virtual bool history(const HistoryQuery& q, std::vector<HistoryRow>& rows, std::string& error) = 0;
   virtual bool folders(std::vector<IndexedFolder>& rows, std::string& error) = 0;
 };
+
+// How a store is opened. `use`: it must exist and be at exactly known_schema_version(), else refused with
+// nothing changed. `migrate` (only `loadtrim store migrate`): an SQLite file is created when missing, an
+// empty PostgreSQL schema is accepted, and any version up to known_schema_version() is accepted. A newer
+// schema is refused by both.
+enum class OpenMode { use, migrate };
 
 // The migrations this tool knows: the store's version must be exactly this to be used.
 int known_schema_version();

@@ -1,0 +1,29 @@
+// The record store's schema (docs/store.md, "Schema" and "Migrations"): the numbered migration steps, written
+// once for both engines. Where the two SQL dialects differ in a column's type, the step's text holds a
+// placeholder that schema::step_sql() fills for the engine:
+//   {id_column}  a row id assigned by the database: SQLite "INTEGER PRIMARY KEY" (an alias of the rowid),
+//   PostgreSQL
+//                "BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY" (an identity column, SQL:2003)
+//   {real}       an IEEE 754 binary64 number: SQLite "REAL" (its 8-byte float); PostgreSQL "DOUBLE PRECISION"
+//                (PostgreSQL's own REAL is a 4-byte float and would round every coefficient)
+//   {int64}      a 64-bit integer (a record's seq, a reference to a row id): SQLite "INTEGER"; PostgreSQL
+//   "BIGINT"
+// Everything else (TEXT, INTEGER for counts and 0/1 flags with their CHECK, UNIQUE, REFERENCES ... ON DELETE
+// CASCADE, the indexes) is the same text on both. The SQLite expansion is byte for byte the text these steps
+// were released with; a released step is never edited (a change to the schema is a new step).
+#pragma once
+
+#include <string>
+
+namespace loadtrim::store::schema {
+
+enum class Dialect { sqlite, postgresql };
+
+// The number of steps: a store at this version is current.
+int step_count();
+// Step `version` (1..step_count()): its one-line name (a row of schema_migrations) and its SQL for `dialect`,
+// one or more statements without parameters.
+const char* step_name(int version);
+std::string step_sql(int version, Dialect dialect);
+
+}  // namespace loadtrim::store::schema
