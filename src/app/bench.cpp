@@ -47,10 +47,13 @@ struct TruthOverrides {
   std::optional<double> hold_bias_sd_n, inertia_error_sd_pct, compensation_error_sd_pct, speed_noise_kmh;
   std::optional<double> warm_up_tau_min_s, warm_up_tau_max_s, cold_excess_min, cold_excess_max;
   std::optional<double> day_loss_sd_pct, day_hold_bias_sd_n;
+  std::optional<double> loss_mass_correlation, hold_bias_speed_sd_n, load_cell_gain_sd_pct,
+      load_cell_offset_sd_n;
   bool any() const {
     return hold_bias_sd_n || inertia_error_sd_pct || compensation_error_sd_pct || speed_noise_kmh ||
            warm_up_tau_min_s || warm_up_tau_max_s || cold_excess_min || cold_excess_max || day_loss_sd_pct ||
-           day_hold_bias_sd_n;
+           day_hold_bias_sd_n || loss_mass_correlation || hold_bias_speed_sd_n || load_cell_gain_sd_pct ||
+           load_cell_offset_sd_n;
   }
 };
 
@@ -65,6 +68,7 @@ struct BenchOptions {
   int estimator_repeats = 200;
   std::string truths = "typical";
   TruthOverrides overrides;
+  std::vector<double> compare_rates_hz;  // the sample-rate lever: these rates side by side (empty: not run)
 };
 
 struct Strategy {
@@ -309,6 +313,10 @@ std::optional<std::string> resolve_truths(const BenchOptions& o, physics::TruthP
   if (v.cold_excess_max) out.spread.cold_excess_max = *v.cold_excess_max;
   if (v.day_loss_sd_pct) out.day.loss_sd = *v.day_loss_sd_pct / 100.0;
   if (v.day_hold_bias_sd_n) out.day.hold_bias_sd_n = *v.day_hold_bias_sd_n;
+  if (v.loss_mass_correlation) out.spread.loss_mass_correlation = *v.loss_mass_correlation;
+  if (v.hold_bias_speed_sd_n) out.spread.hold_bias_speed_sd_n = *v.hold_bias_speed_sd_n;
+  if (v.load_cell_gain_sd_pct) out.spread.load_cell_gain_sd = *v.load_cell_gain_sd_pct / 100.0;
+  if (v.load_cell_offset_sd_n) out.spread.load_cell_offset_sd_n = *v.load_cell_offset_sd_n;
   char buf[200];
   if (out.spread.warm_up_tau_min_s > out.spread.warm_up_tau_max_s) {
     std::snprintf(
@@ -370,10 +378,17 @@ int run_bench(BenchOptions o) {
     v.target = t;
     fleet_v.push_back(std::move(v));
   }
-  const controller::CellConfig cell_single = config::parse_cell(
-      cell_toml("single-axle", o.rate_hz), "bench-cell.toml", adapters::tool_registry().sections());
-  const controller::CellConfig cell_two = config::parse_cell(
-      cell_toml("two-axle", o.rate_hz), "bench-cell.toml", adapters::tool_registry().sections());
+  // The bench cell at a sample rate: single- and two-axle.
+  struct Cells {
+    controller::CellConfig single, two;
+  };
+  auto cells_at = [](double rate) {
+    return Cells{config::parse_cell(cell_toml("single-axle", rate), "bench-cell.toml",
+                                    adapters::tool_registry().sections()),
+                 config::parse_cell(cell_toml("two-axle", rate), "bench-cell.toml",
+                                    adapters::tool_registry().sections())};
+  };
+  const Cells cells = cells_at(o.rate_hz);
 
   const std::vector<Strategy> strategies = {{"standard", core::FirstSetting::standard},
                                             {"fleet", core::FirstSetting::fleet},
@@ -394,6 +409,58 @@ int run_bench(BenchOptions o) {
   std::size_t sessions_run = 0;
   for (const auto& m : methods)
     for (std::size_t s : m.strategies) sessions_run += fleet_v.size() * (strategies[s].history ? 2 : 1);
+  // One measured session (two for history) of vehicle v with profile prof, strategy st, at rate_hz, judged by
+  // the truth.
+  auto run_session = [&](const Vehicle& v, const core::Profile& prof, const Strategy& st, const Cells& cl,
+                         double rate_hz) {
+    core::VehicleTarget target = v.target;
+    target.profile = prof.name;
+    session::Inputs in = session::plan_inputs(v.layout == core::AxleLayout::two_axle ? cl.two : cl.single,
+                                              prof, std::move(target));
+    const double force_mass =
+        core::force_mass_kg(v.target.test_mass_kg, core::resolved_rotating_mass_kg(v.target, prof.mass));
+    session::Options opt;
+    opt.first_setting = st.first;
+    opt.fleet = fleet;
+    opt.sample_rate_hz = rate_hz;
+    const physics::Truth* truth = &v.truth;
+    if (st.history) {
+      // History: this vehicle was set on this cell on an earlier day (a first, loss-map session); its
+      // accepted setting seeds the second session, which is the one measured, and which meets the vehicle
+      // as it is on the second day.
+      session::Options first = opt;
+      first.first_setting = core::FirstSetting::loss_map;
+      const auto s1 = run_one(in, v.truth, first);
+      if (s1.summary.final_set) opt.history = core::HistoryEntry{"", v.target.target, *s1.summary.final_set};
+      truth = &v.truth_day2;
+    }
+    const Run run = run_one(in, *truth, opt);
+    const auto& sum = run.summary;
+    Result r;
+    r.accepted = sum.outcome == session::Outcome::accepted;
+    r.coastdowns = sum.coastdowns;
+    r.cell_min = sum.cell_time_s / 60.0;
+    r.after_warm_min = (sum.cell_time_s - run.phases.warm_end_cell_s) / 60.0;
+    r.split = run.phases.split;
+    for (const auto& d : sum.deviations) r.tool_worst_n = std::max(r.tool_worst_n, std::abs(d.deviation_n));
+    r.reason = r.accepted ? "" : std::string(session::to_string(sum.outcome)) + ": " + sum.stop_reason;
+    r.verification_failed = !r.accepted && sum.stop_reason.find("verification") != std::string::npos;
+    if (r.accepted && sum.final_set && !sum.deviations.empty()) {
+      std::vector<double> speeds;
+      for (const auto& d : sum.deviations) speeds.push_back(d.speed_kmh);
+      const physics::SettingOnDyno on{run.inertia_kg, *sum.final_set, force_mass};
+      const auto last = physics::judge_setting(*truth, on, v.target.target, speeds, prof.band_half_width_kmh,
+                                               run.warmth_per_speed);
+      const std::vector<double> warm(speeds.size(), 1.0);
+      const auto hot =
+          physics::judge_setting(*truth, on, v.target.target, speeds, prof.band_half_width_kmh, warm);
+      r.judged = last.ok && hot.ok;
+      r.true_last_n = last.worst_coastdown_n;
+      r.true_warm_n = hot.worst_coastdown_n;
+      r.steady_warm_n = hot.worst_steady_n;
+    }
+    return r;
+  };
   // results[method][strategy][vehicle]
   std::vector<std::vector<std::vector<Result>>> results(
       methods.size(),
@@ -403,60 +470,9 @@ int run_bench(BenchOptions o) {
     for (;;) {
       const std::size_t i = next++;
       if (i >= fleet_v.size()) return;
-      const Vehicle& v = fleet_v[i];
-      for (std::size_t m = 0; m < methods.size(); ++m) {
-        const core::Profile& prof = *methods[m].profile;
-        core::VehicleTarget target = v.target;
-        target.profile = prof.name;
-        session::Inputs in = session::plan_inputs(
-            v.layout == core::AxleLayout::two_axle ? cell_two : cell_single, prof, std::move(target));
-        const double force_mass =
-            core::force_mass_kg(v.target.test_mass_kg, core::resolved_rotating_mass_kg(v.target, prof.mass));
-        for (std::size_t s : methods[m].strategies) {
-          session::Options opt;
-          opt.first_setting = strategies[s].first;
-          opt.fleet = fleet;
-          opt.sample_rate_hz = o.rate_hz;
-          const physics::Truth* truth = &v.truth;
-          if (strategies[s].history) {
-            // History: this vehicle was set on this cell on an earlier day (a first, loss-map session); its
-            // accepted setting seeds the second session, which is the one measured, and which meets the
-            // vehicle as it is on the second day.
-            session::Options first = opt;
-            first.first_setting = core::FirstSetting::loss_map;
-            const auto s1 = run_one(in, v.truth, first);
-            if (s1.summary.final_set)
-              opt.history = core::HistoryEntry{"", v.target.target, *s1.summary.final_set};
-            truth = &v.truth_day2;
-          }
-          const Run run = run_one(in, *truth, opt);
-          const auto& sum = run.summary;
-          Result& r = results[m][s][i];
-          r.accepted = sum.outcome == session::Outcome::accepted;
-          r.coastdowns = sum.coastdowns;
-          r.cell_min = sum.cell_time_s / 60.0;
-          r.after_warm_min = (sum.cell_time_s - run.phases.warm_end_cell_s) / 60.0;
-          r.split = run.phases.split;
-          for (const auto& d : sum.deviations)
-            r.tool_worst_n = std::max(r.tool_worst_n, std::abs(d.deviation_n));
-          r.reason = r.accepted ? "" : std::string(session::to_string(sum.outcome)) + ": " + sum.stop_reason;
-          r.verification_failed = !r.accepted && sum.stop_reason.find("verification") != std::string::npos;
-          if (r.accepted && sum.final_set && !sum.deviations.empty()) {
-            std::vector<double> speeds;
-            for (const auto& d : sum.deviations) speeds.push_back(d.speed_kmh);
-            const physics::SettingOnDyno on{run.inertia_kg, *sum.final_set, force_mass};
-            const auto last = physics::judge_setting(*truth, on, v.target.target, speeds,
-                                                     prof.band_half_width_kmh, run.warmth_per_speed);
-            const std::vector<double> warm(speeds.size(), 1.0);
-            const auto hot =
-                physics::judge_setting(*truth, on, v.target.target, speeds, prof.band_half_width_kmh, warm);
-            r.judged = last.ok && hot.ok;
-            r.true_last_n = last.worst_coastdown_n;
-            r.true_warm_n = hot.worst_coastdown_n;
-            r.steady_warm_n = hot.worst_steady_n;
-          }
-        }
-      }
+      for (std::size_t m = 0; m < methods.size(); ++m)
+        for (std::size_t s : methods[m].strategies)
+          results[m][s][i] = run_session(fleet_v[i], *methods[m].profile, strategies[s], cells, o.rate_hz);
     }
   };
   std::vector<std::thread> pool;
@@ -480,6 +496,10 @@ int run_bench(BenchOptions o) {
                              {"speed_noise_kmh", preset.speed_noise_kmh},
                              {"warm_up_tau_s", {sp.warm_up_tau_min_s, sp.warm_up_tau_max_s}},
                              {"cold_excess", {sp.cold_excess_min, sp.cold_excess_max}},
+                             {"loss_mass_correlation", sp.loss_mass_correlation},
+                             {"hold_bias_speed_sd_n_at_130_kmh", sp.hold_bias_speed_sd_n},
+                             {"load_cell_gain_sd", sp.load_cell_gain_sd},
+                             {"load_cell_offset_sd_n", sp.load_cell_offset_sd_n},
                              {"day_to_day",
                               {{"loss_sd", preset.day.loss_sd},
                                {"hold_bias_sd_n", preset.day.hold_bias_sd_n},
@@ -493,10 +513,12 @@ int run_bench(BenchOptions o) {
   std::printf(
       "Truths: %s (hold bias sd %g N, inertia error sd %g %%, compensation error sd %g %%, speed noise %g "
       "km/h, "
-      "warm-up tau %g-%g s, cold excess %g-%g; day to day: loss sd %g %%, hold bias sd %g N).\n\n",
+      "warm-up tau %g-%g s, cold excess %g-%g, loss-mass correlation %g, hold bias speed part sd %g N at 130 "
+      "km/h, load-cell gain sd %g %% and offset sd %g N; day to day: loss sd %g %%, hold bias sd %g N).\n\n",
       truths_name.c_str(), sp.hold_bias_sd_n, 100 * sp.inertia_error_sd, 100 * sp.compensation_error_sd,
       preset.speed_noise_kmh, sp.warm_up_tau_min_s, sp.warm_up_tau_max_s, sp.cold_excess_min,
-      sp.cold_excess_max, 100 * preset.day.loss_sd, preset.day.hold_bias_sd_n);
+      sp.cold_excess_max, sp.loss_mass_correlation, sp.hold_bias_speed_sd_n, 100 * sp.load_cell_gain_sd,
+      sp.load_cell_offset_sd_n, 100 * preset.day.loss_sd, preset.day.hold_bias_sd_n);
   bool sane = !fleet_v.empty();
   int unjudged = 0;
   double ref_cd = NAN, ref_min = NAN;  // the iterative standard's medians, for a method without its own
@@ -737,6 +759,107 @@ int run_bench(BenchOptions o) {
     report["goals"]["unstated_reasons"] = unstated;
   }
 
+  // The sample-rate lever: the same vehicles and truths (the encoder noise's sd per sample unchanged) at each
+  // rate, side by side: iterative with the standard's first setting and the loss map, fixed-run with the loss
+  // map.
+  if (!o.compare_rates_hz.empty()) {
+    const auto lever0 = Clock::now();
+    struct LeverRow {
+      const char* method;
+      const core::Profile* profile;
+      std::size_t strategy;
+    };
+    const std::vector<LeverRow> lever = {
+        {"iterative", &iterative, 0}, {"iterative", &iterative, 2}, {"fixed-run", &fixed, 2}};
+    const std::size_t nr = o.compare_rates_hz.size();
+    int lever_unjudged = 0;
+    std::vector<Cells> lever_cells;
+    for (double rate : o.compare_rates_hz) lever_cells.push_back(cells_at(rate));
+    // lr[rate][row][vehicle]
+    std::vector<std::vector<std::vector<Result>>> lr(
+        nr, std::vector<std::vector<Result>>(lever.size(), std::vector<Result>(fleet_v.size())));
+    std::atomic<std::size_t> job{0};
+    const std::size_t jobs_n = nr * fleet_v.size();
+    auto lever_worker = [&] {
+      for (;;) {
+        const std::size_t k = job++;
+        if (k >= jobs_n) return;
+        const std::size_t ri = k / fleet_v.size(), i = k % fleet_v.size();
+        for (std::size_t row = 0; row < lever.size(); ++row)
+          lr[ri][row][i] = run_session(fleet_v[i], *lever[row].profile, strategies[lever[row].strategy],
+                                       lever_cells[ri], o.compare_rates_hz[ri]);
+      }
+    };
+    std::vector<std::thread> lp;
+    for (int j = 0; j < std::max(1, o.jobs); ++j) lp.emplace_back(lever_worker);
+    for (auto& t : lp) t.join();
+    const double lever_wall_s = std::chrono::duration<double>(Clock::now() - lever0).count();
+    std::printf(
+        "Sample-rate lever (truths: %s; the same %zu vehicles, truths and seeds at every rate; encoder noise "
+        "%g km/h sd per sample):\n"
+        "  rate Hz | method    first     | failed | coast-downs median p95 | at 2    | truly outside: last "
+        "coast-down (worst) | fully warm | steady | cell min | after warm-up | run-ups | coast-downs | "
+        "verification failures\n",
+        truths_name.c_str(), fleet_v.size(), preset.speed_noise_kmh);
+    for (std::size_t ri = 0; ri < nr; ++ri)
+      for (std::size_t row = 0; row < lever.size(); ++row) {
+        const auto& rs = lr[ri][row];
+        const core::Profile& prof = *lever[row].profile;
+        std::vector<double> cd, mins, after, runups, coasts;
+        int failed = 0, at2 = 0, ver = 0, out_last = 0, out_warm = 0, out_steady = 0;
+        double worst_last = 0.0;
+        for (const auto& r : rs) {
+          cd.push_back(r.accepted ? r.coastdowns : std::max(r.coastdowns, prof.max_coastdowns));
+          mins.push_back(r.cell_min);
+          after.push_back(r.after_warm_min);
+          runups.push_back(r.split.run_up_s / 60.0);
+          coasts.push_back(r.split.coastdown_s / 60.0);
+          failed += !r.accepted;
+          at2 += r.accepted && r.coastdowns == 2;
+          ver += r.verification_failed;
+          if (r.accepted && !r.judged) ++lever_unjudged;
+          if (!r.accepted || !r.judged) continue;
+          out_last += r.true_last_n > prof.tolerance_n;
+          out_warm += r.true_warm_n > prof.tolerance_n;
+          out_steady += r.steady_warm_n > prof.tolerance_n;
+          worst_last = std::max(worst_last, r.true_last_n);
+        }
+        const double n = std::max<std::size_t>(1, rs.size());
+        const std::string& sname = strategies[lever[row].strategy].name;
+        std::printf(
+            "  %7g | %-9s %-9s | %6d | %6.1f %4.1f            | %5.1f %% | %5.2f %% (%5.1f N)               "
+            "  | %6.2f %%   | %5.1f %% | %8.1f | %13.1f | %7.1f | %11.1f | %d\n",
+            o.compare_rates_hz[ri], lever[row].method, sname.c_str(), failed, quantile(cd, 0.5),
+            quantile(cd, 0.95), 100.0 * at2 / n, 100.0 * out_last / n, worst_last, 100.0 * out_warm / n,
+            100.0 * out_steady / n, quantile(mins, 0.5), quantile(after, 0.5), quantile(runups, 0.5),
+            quantile(coasts, 0.5), ver);
+        char key[32];
+        std::snprintf(key, sizeof key, "%g", o.compare_rates_hz[ri]);
+        report["rate_lever"][key][lever[row].method][sname] = {
+            {"n", rs.size()},
+            {"failed", failed},
+            {"coastdowns_median", quantile(cd, 0.5)},
+            {"coastdowns_p95", quantile(cd, 0.95)},
+            {"share_at_2", at2 / n},
+            {"truly_outside_last_coastdown_share", out_last / n},
+            {"true_worst_last_coastdown_n", worst_last},
+            {"truly_outside_fully_warm_share", out_warm / n},
+            {"steady_force_outside_fully_warm_share", out_steady / n},
+            {"cell_min_median", quantile(mins, 0.5)},
+            {"after_warm_up_min_median", quantile(after, 0.5)},
+            {"split_min_median", {{"run_ups", quantile(runups, 0.5)}, {"coastdowns", quantile(coasts, 0.5)}}},
+            {"verification_failures", ver}};
+      }
+    std::printf("  lever wall time: %.1f s\n\n", lever_wall_s);
+    report["rate_lever_wall_s"] = lever_wall_s;
+    if (lever_unjudged > 0) {
+      std::printf(
+          "%d accepted lever session(s) could not be judged by the truth (a band that never ends)\n\n",
+          lever_unjudged);
+      sane = false;
+    }
+  }
+
   // Compute figures, each against a baseline measured here.
   {
     // A 100 Hz coast-down trace of a mid-size vehicle (closed-form speeds plus noise).
@@ -943,12 +1066,28 @@ void register_bench(CLI::App& app, Runner& run) {
        &TruthOverrides::day_loss_sd_pct},
       {"--day-hold-bias-sd-n", "day to day: hold bias change, sd, N (0 to 20)", 0.0, 20.0, " N",
        &TruthOverrides::day_hold_bias_sd_n},
+      {"--loss-mass-correlation", "correlation of log loss with log test mass (0 to 0.9; EPA data 0.43)", 0.0,
+       0.9, "", &TruthOverrides::loss_mass_correlation},
+      {"--hold-bias-speed-sd-n",
+       "steady-versus-coasting difference, speed part b2*v^2, sd at 130 km/h, N (0 to 50)", 0.0, 50.0, " N",
+       &TruthOverrides::hold_bias_speed_sd_n},
+      {"--load-cell-gain-sd-pct", "load-cell gain error, sd, % (0 to 5)", 0.0, 5.0, " %",
+       &TruthOverrides::load_cell_gain_sd_pct},
+      {"--load-cell-offset-sd-n", "load-cell offset, sd, N (0 to 50)", 0.0, 50.0, " N",
+       &TruthOverrides::load_cell_offset_sd_n},
   };
   auto values = std::make_shared<std::vector<double>>(std::size(spreads), 0.0);
   std::vector<CLI::Option*> opts;
   for (std::size_t k = 0; k < std::size(spreads); ++k)
     opts.push_back(sub->add_option(spreads[k].name, (*values)[k], spreads[k].help)
                        ->check(range(spreads[k].lo, spreads[k].hi, spreads[k].unit)));
+  sub->add_option(
+         "--compare-rates-hz", o->compare_rates_hz,
+         "the sample-rate lever: also run iterative (standard, loss map) and fixed-run (loss map) "
+         "sessions of the same vehicles at each of these rates, side by side (10 to 1000 Hz, at most 4)")
+      ->delimiter(',')
+      ->expected(1, 4)
+      ->check(range(10.0, 1000.0, " Hz"));
   sub->callback([o, values, opts, &run] {
     for (std::size_t k = 0; k < opts.size(); ++k)
       if (opts[k]->count() > 0) o->overrides.*(spreads[k].field) = (*values)[k];

@@ -162,6 +162,8 @@ physics::Truth read_truth(TomlReader& r) {
   v.initial_warmth = r.number_or("vehicle.initial_warmth", v.initial_warmth, 0.0, 1.0, "");
   v.brake_drag_n = r.number_or("vehicle.brake_drag_n", v.brake_drag_n, 0.0, 500.0, "N");
   v.hold_bias_n = r.number_or("vehicle.hold_bias_n", v.hold_bias_n, -100.0, 100.0, "N");
+  // Absent (a truth file from before it existed): 0, a constant steady-versus-coasting difference.
+  v.hold_bias_n_per_kmh2 = r.number_or("vehicle.hold_bias_n_per_kmh2", 0.0, -0.02, 0.02, "N/(km/h)²");
   auto& d = t.dyno;
   d.roller_diameter_m = r.number_or("dyno.roller_diameter_m", d.roller_diameter_m, 0.2, 3.0, "m");
   d.base_inertia_kg = r.number_or("dyno.base_inertia_kg", d.base_inertia_kg, 50.0, 10000.0, "kg");
@@ -179,6 +181,9 @@ physics::Truth read_truth(TomlReader& r) {
   d.parasitic_excess = r.number_or("dyno.parasitic_excess", d.parasitic_excess, -0.5, 2.0, "");
   d.speed_noise_kmh = r.number_or("dyno.speed_noise_kmh", d.speed_noise_kmh, 0.0, 5.0, "km/h");
   d.force_noise_n = r.number_or("dyno.force_noise_n", d.force_noise_n, 0.0, 500.0, "N");
+  // Absent (a truth file from before they existed): an exact load cell, gain 1 and offset 0.
+  d.load_cell_gain = r.number_or("dyno.load_cell_gain", 1.0, 0.8, 1.2, "");
+  d.load_cell_offset_n = r.number_or("dyno.load_cell_offset_n", 0.0, -200.0, 200.0, "N");
   d.motoring_accel_mps2 = r.number_or("dyno.motoring_accel_mps2", d.motoring_accel_mps2, 0.1, 10.0, "m/s²");
   d.stop_decel_mps2 = r.number_or("dyno.stop_decel_mps2", d.stop_decel_mps2, 0.1, 10.0, "m/s²");
   d.force_loop_gain = r.number_or("dyno.force_loop_gain", d.force_loop_gain, 0.5, 1.5, "");

@@ -77,6 +77,7 @@ std::string truth_toml(const physics::Truth& t, const std::string& header) {
   kv("initial_warmth", v.initial_warmth);
   kv("brake_drag_n", v.brake_drag_n);
   kv("hold_bias_n", v.hold_bias_n);
+  if (v.hold_bias_n_per_kmh2 != 0.0) kv("hold_bias_n_per_kmh2", v.hold_bias_n_per_kmh2);
   o += "\n[dyno]\n";
   const auto& d = t.dyno;
   kv("roller_diameter_m", d.roller_diameter_m);
@@ -90,6 +91,8 @@ std::string truth_toml(const physics::Truth& t, const std::string& header) {
   if (d.parasitic_excess != 0.0) kv("parasitic_excess", d.parasitic_excess);
   kv("speed_noise_kmh", d.speed_noise_kmh);
   kv("force_noise_n", d.force_noise_n);
+  if (d.load_cell_gain != 1.0) kv("load_cell_gain", d.load_cell_gain);
+  if (d.load_cell_offset_n != 0.0) kv("load_cell_offset_n", d.load_cell_offset_n);
   kv("motoring_accel_mps2", d.motoring_accel_mps2);
   kv("stop_decel_mps2", d.stop_decel_mps2);
   if (d.force_loop_gain != 1.0) kv("force_loop_gain", d.force_loop_gain);

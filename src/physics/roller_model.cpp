@@ -262,7 +262,7 @@ double RollerModel::load_cell_n() const {
       // The force the motor needs: the vehicle's and residual parasitic losses, plus what accelerates the
       // physical rotating mass.
       return vehicle_loss_n(v) + parasitic_residual_n(v) +
-             (v > 0.0 && truth_.vehicle_on_rollers ? truth_.vehicle.hold_bias_n : 0.0) +
+             (v > 0.0 && truth_.vehicle_on_rollers ? truth_.vehicle.hold_bias_at_n(v) : 0.0) +
              (truth_.dyno.base_inertia_kg + rotating_mass_kg()) * accel_mps2_;
     case Mode::road_load:
       // The set load plus the electrically simulated part of the inertia.
@@ -278,7 +278,7 @@ double RollerModel::load_cell_n() const {
 }
 
 Sample RollerModel::exact() const {
-  return {time_s_, speed_kmh(), load_cell_n()};
+  return {time_s_, speed_kmh(), truth_.dyno.load_cell_gain * load_cell_n() + truth_.dyno.load_cell_offset_n};
 }
 
 Sample RollerModel::sample() {

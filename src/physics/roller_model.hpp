@@ -8,8 +8,9 @@
 //   k·(1−θ))
 //             + brake drag;  θ ∈ [0, 1] the drivetrain warmth, rising while the rollers turn, falling at rest
 //   P_res(v)  dyno parasitic loss left after the controller's compensation: ε_P × P(v)
-//   speed hold: the dyno drives the rollers to the set speed; the load cell reads L + P_res + bias + inertial
-//   force
+//   speed hold: the dyno drives the rollers to the set speed; the load cell reads L + P_res + bias(v) +
+//   inertial force, bias(v) = b0 + b2·v² the steady-versus-coasting difference
+//   load cell: every force reading is gain·F + offset (DynoTruth::load_cell_*), then noise
 //   force loop (DynoTruth::force_loop_*): with a gain k ≠ 1 road-load simulation turns
 //   base + m_rot + k·(I_sim·(1+ε_I) − stated base) against k·F_set(v) + L + P_res; constant force applies the
 //   demand through a second-order lag
@@ -41,7 +42,14 @@ struct VehicleTruth {
   double cool_down_time_constant_s = 1800.0;
   double initial_warmth = 0.0;  // 0 = cold soak, 1 = fully warm
   double brake_drag_n = 5.0;
-  double hold_bias_n = 2.0;  // speed hold reads this much more than the coasting loss
+  // Steady versus coasting loss: at a steady speed (speed hold, or the vehicle driven at a constant speed)
+  // the vehicle's loss is the coasting loss plus hold_bias_n + hold_bias_n_per_kmh2·v². The speed hold reads
+  // it; a coast-down does not see it; the force a vehicle meets at a steady speed includes it.
+  double hold_bias_n = 2.0;
+  double hold_bias_n_per_kmh2 = 0.0;  // 0: a constant difference (a truth file without it)
+  double hold_bias_at_n(double speed_kmh) const {
+    return hold_bias_n + hold_bias_n_per_kmh2 * speed_kmh * speed_kmh;
+  }
 };
 
 struct DynoTruth {
@@ -54,10 +62,15 @@ struct DynoTruth {
   double parasitic_f1_n_per_kmh = 0.10;
   double parasitic_f2_n_per_kmh2 = 0.0008;
   double parasitic_compensation_error = 0.05;  // fraction of the parasitic loss the compensation misses
-  double parasitic_excess = 0.0;     // the rollers' true loss is (1 + this) × the curve above, which is
-                                     // what the controller compensates (a worn bearing: a planted fault)
-  double speed_noise_kmh = 0.05;     // encoder noise, standard deviation
-  double force_noise_n = 2.0;        // load-cell noise, standard deviation
+  double parasitic_excess = 0.0;  // the rollers' true loss is (1 + this) × the curve above, which is
+                                  // what the controller compensates (a worn bearing: a planted fault)
+  double speed_noise_kmh = 0.05;  // encoder noise, standard deviation
+  double force_noise_n = 2.0;     // load-cell noise, standard deviation
+  // The load cell's calibration: it reads gain × the force plus an offset, in every mode (a reading error:
+  // the force the motor applies is the force loop's, below). 1 and 0: an exact cell (a truth file without
+  // them).
+  double load_cell_gain = 1.0;
+  double load_cell_offset_n = 0.0;
   double motoring_accel_mps2 = 1.5;  // speed-hold ramp rate
   double stop_decel_mps2 = 2.0;      // controlled-stop deceleration
   // The motor's force loop, in every torque-controlled mode (road-load simulation, constant force). Planted

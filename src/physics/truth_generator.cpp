@@ -13,8 +13,16 @@ Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayou
   const double s20 = std::log(spread.loss_p95_20_n / spread.loss_median_20_n) / kZ95;
   const double s130 = std::log(spread.loss_p95_130_n / spread.loss_median_130_n) / kZ95;
   // The two speeds are strongly correlated in the data (a lossy car is lossy at every speed): ρ ≈ 0.8
-  // assumed.
-  const double z1 = z(rng), z2 = 0.8 * z1 + 0.6 * z(rng);
+  // assumed. With a loss–mass correlation ρ_m each speed's normal score is ρ_m·z_m + √(1 − ρ_m²)·(its own),
+  // z_m the test mass's standardised log; ρ_m = 0 is the long-standing draw exactly.
+  const double w1 = z(rng), w2 = 0.8 * w1 + 0.6 * z(rng);
+  const double rho = std::clamp(spread.loss_mass_correlation, -0.99, 0.99);
+  const double zm = spread.mass_log_sd > 0.0 && spread.mass_median_kg > 0.0 && test_mass_kg > 0.0
+                        ? std::log(test_mass_kg / spread.mass_median_kg) / spread.mass_log_sd
+                        : 0.0;
+  const double own = std::sqrt(1.0 - rho * rho);
+  const double z1 = rho == 0.0 ? w1 : rho * zm + own * w1;
+  const double z2 = rho == 0.0 ? w2 : rho * zm + own * w2;
   const double l20 = spread.loss_median_20_n * std::exp(s20 * z1);
   const double l130 = std::max(l20 * 1.02, spread.loss_median_130_n * std::exp(s130 * z2));
 
@@ -49,6 +57,11 @@ Truth random_truth(double test_mass_kg, double rotating_mass_kg, core::AxleLayou
   v.tyre_loss_flat_n_per_kmh = l1 / curvature;
   v.drivetrain_loss_n = (1.0 - tyre_share) * constant;
   v.drivetrain_loss_n_per_kmh2 = quad;
+  // The newer truths draw only when their spread is on, so a preset without them draws exactly as before.
+  if (spread.hold_bias_speed_sd_n > 0.0)
+    v.hold_bias_n_per_kmh2 = spread.hold_bias_speed_sd_n * z(rng) / (130.0 * 130.0);
+  if (spread.load_cell_gain_sd > 0.0) t.dyno.load_cell_gain = 1.0 + spread.load_cell_gain_sd * z(rng);
+  if (spread.load_cell_offset_sd_n > 0.0) t.dyno.load_cell_offset_n = spread.load_cell_offset_sd_n * z(rng);
   // The driver: its own generator, seeded from the noise seed, so the vehicle's draws above stay as they
   // were. Spreads are assumptions, no source: reaction 0.5-1.1 s, overshoot 0.5-1.5 km/h, 40-90 kW.
   std::mt19937_64 drng(t.noise_seed ^ 0x9E3779B97F4A7C15ULL);
@@ -89,6 +102,10 @@ const TruthPreset* truth_preset(std::string_view name) {
     p.spread.cold_excess_min = 0.6;
     p.spread.cold_excess_max = 1.0;
     p.speed_noise_kmh = 0.2;
+    p.spread.loss_mass_correlation = 0.43;  // the EPA data at 20 km/h (docs/standards.md §5.6)
+    p.spread.hold_bias_speed_sd_n = 10.0;
+    p.spread.load_cell_gain_sd = 0.01;
+    p.spread.load_cell_offset_sd_n = 4.9;  // ±9.8 N at 2σ (docs/standards.md §2.8's resolution)
     return p;
   }();
   if (name == "typical") return &typical;

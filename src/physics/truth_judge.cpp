@@ -60,7 +60,10 @@ TrueJudgement judge_setting(const Truth& truth, const SettingOnDyno& dyno, const
     row.speed_kmh = v;
     row.target_n = target.force_n(v);
     row.band_force_n = f_mj;
-    row.steady_force_n = retarding_force_n(m, v);
+    // At a steady speed the vehicle meets its steady loss: the coasting loss plus the steady-versus-coasting
+    // difference b0 + b2·v² (physics::VehicleTruth::hold_bias_at_n), which no coast-down sees.
+    row.steady_force_n =
+        retarding_force_n(m, v) + (truth.vehicle_on_rollers ? truth.vehicle.hold_bias_at_n(v) : 0.0);
     row.steady_error_n = row.steady_force_n - row.target_n;
     j.rows.push_back(row);
   }

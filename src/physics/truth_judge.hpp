@@ -8,8 +8,9 @@
 // (physics/roller_model.hpp; g the force loop's gain, 1 unless a fault is planted), so the band time is
 // Δt_j = (M/3.6)·∫ dv/R(v) over v_j ± Δv, and the force the tool computes from it is
 // F_mj = (1/3.6)·(TM + m_r)·2Δv/Δt_j. The F_mj are regressed as the standard does (§2.6) and the regressed
-// curve is compared with the target at each reference speed. The steady force is R(v) itself: what the
-// vehicle meets at a constant speed with the setting on the dyno, against the target it should meet.
+// curve is compared with the target at each reference speed. The steady force is R(v) plus the vehicle's
+// steady-versus-coasting difference b0 + b2·v² (VehicleTruth::hold_bias_at_n): what the vehicle meets at a
+// constant speed with the setting on the dyno, against the target it should meet.
 #pragma once
 
 #include <span>
@@ -26,7 +27,7 @@ struct TrueSpeedError {
   double band_force_n = 0.0;       // F_mj a noise-free coast-down would measure
   double coastdown_n = 0.0;        // the regressed curve at v_j (what the standard's acceptance checks)
   double coastdown_error_n = 0.0;  // coastdown_n − target_n
-  double steady_force_n = 0.0;     // R(v_j): the retarding force at a steady v_j
+  double steady_force_n = 0.0;     // R(v_j) + b0 + b2·v_j²: the retarding force at a steady v_j
   double steady_error_n = 0.0;     // steady_force_n − target_n
 };
 

@@ -1,6 +1,7 @@
 # A tiny benchmark run (a few vehicles, the harsh truths): exit 0, the truth's verdict in both states (at the
-# last coast-down and fully warm) and the steady force, the cell time split, and the goal lines as met / not met.
-execute_process(COMMAND ${EXE} bench --quick --vehicles 3 --truths harsh
+# last coast-down and fully warm) and the steady force, the cell time split, the goal lines as met / not met, and
+# the sample-rate lever side by side.
+execute_process(COMMAND ${EXE} bench --quick --vehicles 3 --truths harsh --compare-rates-hz 10,100
                 RESULT_VARIABLE rc OUTPUT_VARIABLE out ERROR_VARIABLE err)
 if(NOT rc EQUAL 0)
   message(FATAL_ERROR "expected exit code 0, got ${rc}\n${out}\n${err}")
@@ -12,7 +13,10 @@ foreach(needle "Truths: harsh (hold bias sd 15 N, inertia error sd 1.5 %, compen
                "accepted but truly outside +-10 N at the last coast-down's state <= 1.0 % of sessions"
                "fully warm: <= 1 % with harsh when the profile requires a stable vehicle"
                "iterative, the default first setting (loss map): median 2 and p95 <= 3 coast-downs"
-               "fixed-run verification failures <= 1 % with harsh" "bench completed")
+               "fixed-run verification failures <= 1 % with harsh" "bench completed"
+               "loss-mass correlation 0.43, hold bias speed part sd 10 N at 130 km/h, load-cell gain sd 1 % and offset sd 4.9 N"
+               "Sample-rate lever (truths: harsh; the same 3 vehicles"
+               "\n       10 | iterative loss-map" "\n      100 | iterative loss-map" "\n      100 | fixed-run loss-map")
   string(FIND "${out}" "${needle}" pos)
   if(pos EQUAL -1)
     message(FATAL_ERROR "missing '${needle}' in:\n${out}")

@@ -17,3 +17,7 @@ expect_refused("--warm-up-tau-min-s: is 3000 s, above --warm-up-tau-max-s (2000 
 expect_refused("--cold-excess-min: is 1.2, above --cold-excess-max (1); allowed 0 to the maximum"
                --truths harsh --cold-excess-min 1.2)
 expect_refused("--inertia-error-sd-pct: is lots, allowed 0 to 5 %" --inertia-error-sd-pct lots)
+expect_refused("--loss-mass-correlation: is 1.5, allowed 0 to 0.9" --loss-mass-correlation 1.5)
+expect_refused("--load-cell-offset-sd-n: is 60, allowed 0 to 50 N" --load-cell-offset-sd-n 60)
+expect_refused("--compare-rates-hz: is 5, allowed 10 to 1000 Hz" --compare-rates-hz 10,5)
+expect_refused("--compare-rates-hz: At Most 4 required but received 5" --compare-rates-hz 10,20,30,40,50)

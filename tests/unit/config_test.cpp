@@ -3,6 +3,7 @@
 
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
+#include "config/target_writer.hpp"
 #include "core/units.hpp"
 #include "support/test_support.hpp"
 
@@ -55,6 +56,31 @@ TEST(Config, ShippedFilesLoad) {
   EXPECT_NEAR(core::resolved_rotating_mass_kg(v, wltp.mass), 0.03 * (1380.0 + 25.0), 1e-12);  // EU SA4 §2.5.1
   const auto t = config::load_truth(kSrc + "/samples/truths/demo-hatchback.toml");
   EXPECT_EQ(t.vehicle.test_mass_kg, 1470.0);
+}
+
+TEST(Config, TruthsWithoutTheNewerKeysLoadAsNoneAndTheKeysRoundTrip) {
+  // A truth file from before the steady difference's speed part and the load cell's calibration existed (the
+  // shipped demo) loads with none: b2 = 0, gain 1, offset 0 (docs/performance.md, "Truth presets").
+  const auto old = config::load_truth(kSrc + "/samples/truths/demo-hatchback.toml");
+  EXPECT_EQ(old.vehicle.hold_bias_n_per_kmh2, 0.0);
+  EXPECT_EQ(old.dyno.load_cell_gain, 1.0);
+  EXPECT_EQ(old.dyno.load_cell_offset_n, 0.0);
+  // Written and read back: the same values.
+  physics::Truth t = old;
+  t.vehicle.hold_bias_n_per_kmh2 = 0.00061;
+  t.dyno.load_cell_gain = 0.987;
+  t.dyno.load_cell_offset_n = -4.25;
+  const auto back = config::parse_truth(config::truth_toml(t, "round trip"), "round-trip.toml");
+  EXPECT_DOUBLE_EQ(back.vehicle.hold_bias_n_per_kmh2, 0.00061);
+  EXPECT_DOUBLE_EQ(back.dyno.load_cell_gain, 0.987);
+  EXPECT_DOUBLE_EQ(back.dyno.load_cell_offset_n, -4.25);
+  // Out of range: refused with the key and its range.
+  const std::string msg = refusal([] {
+    config::parse_truth("[vehicle]\ntest_mass_kg = 1500\n[dyno]\nload_cell_gain = 1.5\n", "bad-cell.toml");
+  });
+  EXPECT_NE(msg.find("bad-cell.toml: error: dyno.load_cell_gain (line 4): is 1.5, allowed 0.8 to 1.2"),
+            std::string::npos)
+      << msg;
 }
 
 TEST(Config, UsTargetsConvertExactly) {

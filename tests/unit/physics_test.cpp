@@ -118,6 +118,45 @@ TEST(Physics, SpeedHoldReadsTheLossPlusResidualAndBias) {
   EXPECT_NEAR(m.vehicle_loss_n(80.0), expect, 1e-9);
 }
 
+TEST(Physics, TheSteadyDifferenceAndTheLoadCellShowInReadingsNotInCoasts) {
+  // The model's stated form (physics/roller_model.hpp): in speed hold the load cell reads L + P_res + b0 +
+  // b2·v² (+ the inertial force, nothing at a steady speed), and every reading is gain·F + offset. With
+  // b0 = 2 N, b2 = 0.001 N/(km/h)², gain 1.02, offset 3 N: at 80 km/h 1.02·(L + P_res + 2 + 6.4) + 3.
+  physics::Truth t;
+  t.dyno.speed_noise_kmh = t.dyno.force_noise_n = 0.0;
+  t.vehicle.initial_warmth = 1.0;
+  t.vehicle.hold_bias_n = 2.0;
+  t.vehicle.hold_bias_n_per_kmh2 = 0.001;
+  t.dyno.load_cell_gain = 1.02;
+  t.dyno.load_cell_offset_n = 3.0;
+  physics::RollerModel m(t);
+  m.hold_speed(80.0);
+  m.advance(120.0);
+  EXPECT_NEAR(m.exact().force_n,
+              1.02 * (m.vehicle_loss_n(80.0) + m.parasitic_residual_n(80.0) + 2.0 + 6.4) + 3.0, 1e-9);
+  // At rest with the motor off the cell reads its offset alone.
+  m.controlled_stop();
+  m.advance(60.0);
+  ASSERT_EQ(m.mode(), physics::Mode::idle);
+  EXPECT_NEAR(m.exact().force_n, 3.0, 1e-12);
+  // A coast-down never holds a speed and never uses the load cell: the same speeds as an exact cell with a
+  // constant difference (same seed, so the same noise).
+  physics::Truth plain = t;
+  plain.vehicle.hold_bias_n_per_kmh2 = 0.0;
+  plain.dyno.load_cell_gain = 1.0;
+  plain.dyno.load_cell_offset_n = 0.0;
+  plain.dyno.speed_noise_kmh = t.dyno.speed_noise_kmh = 0.05;
+  physics::RollerModel a(t), b(plain);
+  for (auto* x : {&a, &b}) {
+    x->set_inertia_kg(1500.0);
+    x->set_coefficients({50.0, 0.3, 0.02});
+  }
+  const auto ta = physics::record_coastdown(a, 130.0, 15.0, 10.0);
+  const auto tb = physics::record_coastdown(b, 130.0, 15.0, 10.0);
+  ASSERT_EQ(ta.speed_kmh.size(), tb.speed_kmh.size());
+  for (std::size_t i = 0; i < ta.speed_kmh.size(); ++i) EXPECT_EQ(ta.speed_kmh[i], tb.speed_kmh[i]) << i;
+}
+
 TEST(Physics, WarmUpLowersTheSpinLossAndRestCoolsIt) {
   physics::Truth t;
   t.vehicle.initial_warmth = 0.0;

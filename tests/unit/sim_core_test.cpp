@@ -7,6 +7,7 @@
 #include <string>
 #include <vector>
 
+#include "config/loaders.hpp"
 #include "config/toml_reader.hpp"
 #include "framed/framed_dialect.hpp"
 #include "line/line_protocol.hpp"
@@ -225,4 +226,36 @@ TEST(SimCore, TheModbusWatchdogTakesOnlyAChangedHeartbeatForASignOfLife) {
   EXPECT_TRUE(w.changed(8.0));
   EXPECT_FALSE(w.changed(8.0));
   EXPECT_TRUE(w.changed(7.0));
+}
+
+// The simulator honours a truth file's steady-versus-coasting difference and load-cell calibration
+// (docs/performance.md, "Truth presets"): the same vehicle held at 80 km/h reads, with b2 = 0.001 N/(km/h)²
+// (6.4 N more at 80 km/h), gain 1.02 and offset 3 N, exactly 1.02·(the reading without them + 6.4) + 3 — the
+// model's stated form (physics/roller_model.hpp); without the keys the file loads with none of them.
+TEST(SimCore, ATruthFilesSteadyDifferenceAndLoadCellReachTheReadings) {
+  const std::string base =
+      "[vehicle]\ntest_mass_kg = 1500\ninitial_warmth = 1.0\nhold_bias_n = 2.0\n%B2%"
+      "[dyno]\nspeed_noise_kmh = 0.0\nforce_noise_n = 0.0\n%CELL%";
+  auto with = [&](const std::string& b2, const std::string& cell) {
+    std::string t = base;
+    t.replace(t.find("%B2%"), 4, b2);
+    t.replace(t.find("%CELL%"), 6, cell);
+    return config::parse_truth(t, "sim-truth.toml");
+  };
+  auto held_reading = [](const physics::Truth& t) {
+    sim::SimController core(t, {});
+    core.touch(0.0);
+    EXPECT_FALSE(core.stream(10.0));
+    EXPECT_FALSE(core.command(sim::cmd::HoldSpeed{80.0}));
+    std::vector<controller::Sample> samples;
+    std::vector<sim::FaultEvent> events;
+    core.advance_typed(120.0, samples, events);
+    EXPECT_FALSE(samples.empty());
+    return samples.empty() ? 0.0 : samples.back().force_n;
+  };
+  const double plain = held_reading(with("", ""));
+  const double honoured = held_reading(
+      with("hold_bias_n_per_kmh2 = 0.001\n", "load_cell_gain = 1.02\nload_cell_offset_n = 3.0\n"));
+  EXPECT_GT(plain, 10.0);
+  EXPECT_NEAR(honoured, 1.02 * (plain + 6.4) + 3.0, 1e-6);
 }
