@@ -165,7 +165,8 @@ int run_one(const CheckOptions& o) {
   const int code = exit_code_for(r.end);
   // The cell's notifiers (docs/notify.md): they never change the exit code.
   notify_end(l.cell, o.root,
-             end_message("check", l.cell.name, r.folder, checks::to_string(r.end), code, r.result));
+             end_message("check", l.cell.name, r.folder, checks::to_string(r.end), code, r.result),
+             &stop_flag());
   return code;
 }
 

@@ -154,11 +154,19 @@ struct LivePage::Impl {
                           {"trace", {{"run", trace_run}, {"points", pts}}},
                           {"coastdowns", coastdowns},
                           {"lines", ls}}
-        .dump();
+        .dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
   }
 
   bool allowed(const httplib::Request& req) const {
-    if (token.empty()) return true;
+    if (token.empty()) {
+      // Without a token the page is on loopback: a request must name this host as loopback (a web page
+      // elsewhere that rebinds its own name to 127.0.0.1 gets nothing).
+      const std::string h = req.get_header_value("Host");
+      const std::string name = h.substr(0, h.rfind(':'));
+      in_addr a{};
+      return name == "localhost" ||
+             (::inet_pton(AF_INET, name.c_str(), &a) == 1 && (ntohl(a.s_addr) >> 24) == 127);
+    }
     if (req.has_param("token") && same_token(req.get_param_value("token"), token)) return true;
     const std::string auth = req.get_header_value("Authorization");
     return auth.rfind("Bearer ", 0) == 0 && same_token(auth.substr(7), token);
@@ -215,10 +223,19 @@ std::unique_ptr<LivePage> LivePage::start(const LiveOptions& options, const std:
   p->server.Get("/", [p, headers](const httplib::Request&, httplib::Response& res) {
     headers(res);
     // The page carries the state at the time it was served, so it shows the session before the stream's first
-    // message. "</" is written "<\/" so that nothing in the JSON can end the script element (HTML's
-    // script-data rules); the JSON means the same.
-    std::string snap = p->snapshot();
-    for (std::size_t i = 0; (i = snap.find("</", i)) != std::string::npos; i += 3) snap.replace(i, 2, "<\\/");
+    // message. Every "<", ">" and "&" in the JSON is written as its JSON unicode escape, so that no text in
+    // it can end or re-open the script element (HTML's script-data states); the JSON means the same.
+    std::string snap;
+    for (const char c : p->snapshot()) {
+      if (c == '<')
+        snap += "\\u003c";
+      else if (c == '>')
+        snap += "\\u003e";
+      else if (c == '&')
+        snap += "\\u0026";
+      else
+        snap += c;
+    }
     std::string page = kPage;
     const std::string mark = "/*SNAPSHOT*/null";
     page.replace(page.find(mark), mark.size(), snap);
@@ -252,6 +269,10 @@ std::unique_ptr<LivePage> LivePage::start(const LiveOptions& options, const std:
   });
   // Nothing else: no route changes anything (httplib answers other methods and paths with 404/405).
   p->server.set_keep_alive_max_count(10);
+  // A connection that says nothing is dropped within a second, so that idle sockets cannot hold the end of a
+  // session (the server finishes the connections it has before it stops).
+  p->server.set_read_timeout(1, 0);
+  p->server.set_keep_alive_timeout(1);
   if (p->port == 0) {
     p->port = p->server.bind_to_any_port(p->host);
     if (p->port <= 0) {

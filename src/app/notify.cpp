@@ -49,14 +49,15 @@ std::string mail_text(const std::string& to, const nlohmann::json& m) {
   t += m.value("what", std::string("?")) + " " + m.value("id", std::string("?")) + " on cell " +
        m.value("cell", std::string("?")) + ": " + m.value("result", std::string("?")) + " (exit code " +
        std::to_string(m.value("exit_code", -1)) + ")\nfolder: " + m.value("folder", std::string("?")) +
-       "\n\nsummary (JSON):\n" + m.dump(2) + "\n";
+       "\n\nsummary (JSON):\n" + m.dump(2, ' ', false, nlohmann::json::error_handler_t::replace) + "\n";
   return t;
 }
 
 }  // namespace
 
 NotifierRun run_notifier(const std::vector<std::string>& argv, const std::string& input,
-                         const std::vector<std::string>& env, double timeout_s) {
+                         const std::vector<std::string>& env, double timeout_s,
+                         const std::atomic<bool>* stop) {
   NotifierRun out;
   if (argv.empty() || argv[0].empty() || argv[0][0] != '/') {
     out.message = "not run: the program must be an absolute path";
@@ -90,8 +91,16 @@ NotifierRun run_notifier(const std::vector<std::string>& argv, const std::string
   sigfillset(&all);
   posix_spawnattr_setsigmask(&attr, &none);
   posix_spawnattr_setsigdefault(&attr, &all);
+  // The notifier gets the tool's environment without its secrets (the live page's token, a store password)
+  // and without stale LOADTRIM_NOTIFY_* values; then this end's.
   std::vector<std::string> envs;
-  for (char** e = environ; e && *e; ++e) envs.emplace_back(*e);
+  for (char** e = environ; e && *e; ++e) {
+    const std::string v = *e;
+    if (v.rfind("LOADTRIM_LIVE_TOKEN=", 0) == 0 || v.rfind("LOADTRIM_NOTIFY_", 0) == 0 ||
+        v.rfind("PGPASSWORD=", 0) == 0 || v.rfind("PGPASSFILE=", 0) == 0)
+      continue;
+    envs.push_back(v);
+  }
   envs.insert(envs.end(), env.begin(), env.end());
   std::vector<char*> cargv, cenv;
   for (const auto& a : argv) cargv.push_back(const_cast<char*>(a.c_str()));
@@ -131,7 +140,7 @@ NotifierRun run_notifier(const std::vector<std::string>& argv, const std::string
       break;
     }
     const auto now = std::chrono::steady_clock::now();
-    if (now >= deadline) break;
+    if (now >= deadline || (stop && stop->load())) break;
     pollfd fds[2];
     nfds_t n = 0;
     if (in_fd >= 0) fds[n++] = {in_fd, POLLOUT, 0};
@@ -166,7 +175,8 @@ NotifierRun run_notifier(const std::vector<std::string>& argv, const std::string
     }
     char t[64];
     std::snprintf(t, sizeof t, "%.0f", timeout_s);
-    out.message = argv[0] + " did not finish within " + t + " s: stopped";
+    out.message = stop && stop->load() ? argv[0] + " stopped: the operator interrupted the wait"
+                                       : argv[0] + " did not finish within " + t + " s: stopped";
     return out;
   }
   const std::string why = one_line(first_line(err_text));
@@ -198,7 +208,7 @@ nlohmann::json end_message(const std::string& what, const std::string& cell, con
 }
 
 void notify_end(const controller::CellConfig& cell, const record::DataRoot& root,
-                const nlohmann::json& message) {
+                const nlohmann::json& message, const std::atomic<bool>* stop) {
   if (cell.notify_command.empty() && cell.notify_mail_to.empty()) return;
   try {
     const std::string id =
@@ -215,11 +225,14 @@ void notify_end(const controller::CellConfig& cell, const record::DataRoot& root
                                           "LOADTRIM_NOTIFY_WHAT=" + message.value("what", std::string()),
                                           "LOADTRIM_NOTIFY_FOLDER=" + message.value("folder", std::string())};
     if (!cell.notify_command.empty())
-      log("command", run_notifier(cell.notify_command, message.dump() + "\n", env, cell.notify_timeout_s));
+      log("command",
+          run_notifier(cell.notify_command,
+                       message.dump(-1, ' ', false, nlohmann::json::error_handler_t::replace) + "\n", env,
+                       cell.notify_timeout_s, stop));
     if (!cell.notify_mail_to.empty())
       log("mail to " + cell.notify_mail_to,
           run_notifier({cell.notify_mailer, "-oi", "--", cell.notify_mail_to},
-                       mail_text(cell.notify_mail_to, message), env, cell.notify_timeout_s));
+                       mail_text(cell.notify_mail_to, message), env, cell.notify_timeout_s, stop));
   } catch (const std::exception& e) {
     std::fprintf(stderr, "loadtrim: notifier not run: %s (the session's result is not affected)\n", e.what());
   }

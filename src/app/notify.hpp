@@ -6,6 +6,7 @@
 // <data root>/notify.log and on stderr; it never changes the session's result, record or exit code.
 #pragma once
 
+#include <atomic>
 #include <nlohmann/json.hpp>
 #include <string>
 #include <vector>
@@ -23,8 +24,11 @@ struct NotifierRun {
 // Runs `argv` (argv[0] an absolute path) with `input` on its standard input and `env` added to this process's
 // environment; waits at most `timeout_s`. Standard output is discarded; the first line of standard error is
 // kept for the message.
+// `stop` (the tool's interrupt flag, may be null) ends the wait early: the notifier is stopped and it is
+// said.
 NotifierRun run_notifier(const std::vector<std::string>& argv, const std::string& input,
-                         const std::vector<std::string>& env, double timeout_s);
+                         const std::vector<std::string>& env, double timeout_s,
+                         const std::atomic<bool>* stop = nullptr);
 
 // What the notifiers get: {"what", "event" (ended / interrupted / fault), "cell", "id", "folder", "result",
 // "exit_code", "summary"}.
@@ -33,6 +37,6 @@ nlohmann::json end_message(const std::string& what, const std::string& cell, con
 
 // Runs the cell's notifiers, if any, for `message` and logs each outcome. Never throws.
 void notify_end(const controller::CellConfig& cell, const record::DataRoot& root,
-                const nlohmann::json& message);
+                const nlohmann::json& message, const std::atomic<bool>* stop = nullptr);
 
 }  // namespace loadtrim::app

@@ -394,7 +394,8 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
   // Indexed in the lab's store (or queued for it) once sealed; never changes the result (docs/store.md).
   if (session::is_final(sum.outcome) && sum.outcome != session::Outcome::record_failure)
-    index_finished_folder(lab.root, folder, "session", req.console == session::Console::Mode::normal);
+    index_finished_folder(lab.root, folder, "session", req.console == session::Console::Mode::normal,
+                          req.simulator);
   if (sum.outcome == session::Outcome::record_failure && !writer.error().empty())
     std::cerr << "loadtrim: record failure: " << writer.error() << " (every record before it is intact in "
               << folder << ")\n";
@@ -412,7 +413,8 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
                                                       {"stop_reason", sum.stop_reason},
                                                       {"rollers_stopped", sum.rollers_stopped}};
   notify_end(cell, lab.root,
-             end_message("session", cell.name, folder, session::to_string(sum.outcome), code, summary));
+             end_message("session", cell.name, folder, session::to_string(sum.outcome), code, summary),
+             &g_stop);
   return code;
 }
 

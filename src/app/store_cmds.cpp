@@ -11,6 +11,7 @@
 #include <vector>
 
 #include "app/exit_codes.hpp"
+#include "app/store_bench.hpp"
 #include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
 #include "record/data_root.hpp"
@@ -128,6 +129,7 @@ int import_folders(const StoreArgs& a) {
     if (store::queued_entries(root.path).empty()) {
       std::printf("nothing queued in %s\n", root.queue().c_str());
     } else {
+      // -1 the store unusable, -2 a queued folder set aside (it does not verify or is gone): both exit 5.
       const int left = drain_store_queue(root, where, kQueuedBudgetS, true);
       if (left != 0) return left < 0 ? kRecordFailure : kInterrupted;
       std::printf("the queue in %s is empty\n", root.queue().c_str());
@@ -352,6 +354,16 @@ void register_store_commands(CLI::App& app, Runner& run) {
   common_options(chk, *a);
   verify_options_cli(chk, *a);
   chk->callback([a, &run] { run = [a] { return check_rows(*a); }; });
+
+  auto bench = std::make_shared<StoreBenchArgs>();
+  auto* ben = sub->add_subcommand("bench",
+                                  "the store's speed at a lab's scale: a scratch store filled with invented "
+                                  "sessions, `history` timed against "
+                                  "a store without its history indexes (docs/performance.md)");
+  ben->add_option("--sessions", bench->sessions, "how many invented sessions")
+      ->check(CLI::Range(100, 1000000))
+      ->capture_default_str();
+  ben->callback([bench, &run] { run = [bench] { return store_bench(*bench); }; });
 
   auto* his =
       app.add_subcommand("history",

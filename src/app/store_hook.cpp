@@ -37,42 +37,61 @@ record::VerifyOptions verify_options(const record::DataRoot& root) {
 
 }  // namespace
 
+static bool make_demo_store(const record::DataRoot& root, bool say);
+
 int drain_store_queue(const record::DataRoot& root, const store::StorePath& where, double budget_s,
                       bool say) {
   if (!root.ok() || store::queued_entries(root.path).empty()) return 0;
-  const store::StoreOpener open = [&](std::string& error) -> std::unique_ptr<store::Store> {
-    if (!where.ok()) {
-      error = where.error;
-      return nullptr;
+  try {
+    const store::StoreOpener open = [&](std::string& error) -> std::unique_ptr<store::Store> {
+      if (!where.ok()) {
+        error = where.error;
+        return nullptr;
+      }
+      // A server is given its own connect and statement deadlines (pg_store.hpp); a file waits at most the
+      // busy timeout for another writer.
+      return where.engine == "postgresql"
+                 ? store::open_postgresql(where.path, store::OpenMode::use, error, kEndPgTimeouts)
+                 : store::open_sqlite(where.path, store::OpenMode::use, error, kBusyTimeoutMs);
+    };
+    const auto deadline =
+        std::chrono::steady_clock::now() + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
+                                               std::chrono::duration<double>(budget_s));
+    const store::DrainResult r = store::drain_queue(root.path, open, verify_options(root), deadline);
+    for (const auto& m : r.messages) {
+      log_line(root, m);
+      if (!r.store_ok || m.starts_with("set aside"))
+        std::fprintf(stderr, "loadtrim: store: %s\n", m.c_str());
+      else if (say)
+        std::printf("store: %s\n", m.c_str());
     }
-    // A server is given its own connect and statement deadlines (pg_store.hpp); a file waits at most the
-    // busy timeout for another writer.
-    return where.engine == "postgresql"
-               ? store::open_postgresql(where.path, store::OpenMode::use, error, kEndPgTimeouts)
-               : store::open_sqlite(where.path, store::OpenMode::use, error, kBusyTimeoutMs);
-  };
-  const auto deadline =
-      std::chrono::steady_clock::now() + std::chrono::duration_cast<std::chrono::steady_clock::duration>(
-                                             std::chrono::duration<double>(budget_s));
-  const store::DrainResult r = store::drain_queue(root.path, open, verify_options(root), deadline);
-  for (const auto& m : r.messages) {
-    log_line(root, m);
-    if (!r.store_ok || m.starts_with("set aside"))
-      std::fprintf(stderr, "loadtrim: store: %s\n", m.c_str());
-    else if (say)
-      std::printf("store: %s\n", m.c_str());
+    if (r.remaining > 0 && (say || !r.store_ok))
+      std::fprintf(stderr,
+                   "loadtrim: store: %d folder(s) queued in %s for the store (%s); "
+                   "`loadtrim store import --queued` indexes them when it is back\n",
+                   r.remaining, (fs::path(root.path) / store::kQueueDirName).string().c_str(),
+                   where.ok() ? where.shown().c_str() : where.error.c_str());
+    if (!r.store_ok) return -1;
+    return r.set_aside > 0 && r.remaining == 0 ? -2 : r.remaining;
+  } catch (const std::exception& e) {
+    // Nothing here may end a session that was sealed: said, logged, and the queue left for later.
+    std::fprintf(stderr, "loadtrim: store: the queue was not drained: %s\n", e.what());
+    log_line(root, std::string("queue not drained: ") + e.what());
+    return -1;
   }
-  if (r.remaining > 0 && (say || !r.store_ok))
-    std::fprintf(stderr,
-                 "loadtrim: store: %d folder(s) queued in %s for the store (%s); "
-                 "`loadtrim store import --queued` indexes them when it is back\n",
-                 r.remaining, (fs::path(root.path) / store::kQueueDirName).string().c_str(),
-                 where.ok() ? where.shown().c_str() : where.error.c_str());
-  return r.store_ok ? r.remaining : -1;
 }
 
 bool ensure_demo_store(const record::DataRoot& root, bool say) {
   if (!root.ok()) return false;
+  try {
+    return make_demo_store(root, say);
+  } catch (const std::exception& e) {
+    std::fprintf(stderr, "loadtrim demo: the lab's record store could not be made (%s)\n", e.what());
+    return false;
+  }
+}
+
+static bool make_demo_store(const record::DataRoot& root, bool say) {
   const store::StorePath where = store::find_store_path("", root.path);
   std::error_code ec;
   if (!where.ok() || where.source != "the data root's store.sqlite" || fs::exists(where.path, ec))
@@ -96,24 +115,36 @@ bool ensure_demo_store(const record::DataRoot& root, bool say) {
 }
 
 void index_finished_folder(const record::DataRoot& root, const std::string& folder, const std::string& what,
-                           bool say) {
+                           bool say, bool simulated) {
   if (!root.ok()) return;
-  const store::StorePath where = store::find_store_path("", root.path);
-  std::error_code ec;
-  const bool configured = !where.ok() || where.source != "the data root's store.sqlite";
-  // A lab that never made a store is not using one: nothing is queued and nothing said (docs/store.md).
-  if (!configured && !fs::exists(where.path, ec)) return;
-  const std::string abs = fs::absolute(folder, ec).lexically_normal().string();
-  std::string err;
-  if (!store::enqueue(root.path, abs, what, err)) {
-    std::fprintf(stderr,
-                 "loadtrim: store: %s not queued for the store: %s (`loadtrim store import` indexes it)\n",
-                 abs.c_str(), err.c_str());
-    log_line(root, "not queued " + abs + ": " + err);
-    return;
+  try {
+    const store::StorePath where = store::find_store_path("", root.path);
+    std::error_code ec;
+    const bool configured = !where.ok() || where.source != "the data root's store.sqlite";
+    // A lab that never made a store is not using one: nothing is queued and nothing said (docs/store.md).
+    if (!configured && !fs::exists(where.path, ec)) return;
+    // A session against a simulator that this command started (the demo) never goes into a store the lab
+    // configured: it is not a record of the lab's cells.
+    if (simulated && configured) {
+      if (say)
+        std::printf("store: not indexed: a simulated session stays out of the lab's configured store\n");
+      return;
+    }
+    const std::string abs = fs::absolute(folder, ec).lexically_normal().string();
+    std::string err;
+    if (!store::enqueue(root.path, abs, what, err)) {
+      std::fprintf(stderr,
+                   "loadtrim: store: %s not queued for the store: %s (`loadtrim store import` indexes it)\n",
+                   abs.c_str(), err.c_str());
+      log_line(root, "not queued " + abs + ": " + err);
+      return;
+    }
+    log_line(root, "queued " + what + " " + abs);
+    drain_store_queue(root, where, kEndBudgetS, say);
+  } catch (const std::exception& e) {
+    std::fprintf(stderr, "loadtrim: store: %s not indexed: %s (`loadtrim store import` indexes it)\n",
+                 folder.c_str(), e.what());
   }
-  log_line(root, "queued " + what + " " + abs);
-  drain_store_queue(root, where, kEndBudgetS, say);
 }
 
 }  // namespace loadtrim::app

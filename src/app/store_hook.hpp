@@ -14,8 +14,10 @@ namespace loadtrim::app {
 // `folder` (sealed) is "session" or "check". `say` prints the outcome to the console (one line; failures go
 // to stderr whatever `say`). A lab without a store (none configured, no <data root>/store.sqlite) is not
 // using one: nothing is queued or said.
+// `simulated`: the session ran against a simulator this command started (the demo): never indexed into a
+// store the lab configured. Never throws.
 void index_finished_folder(const record::DataRoot& root, const std::string& folder, const std::string& what,
-                           bool say);
+                           bool say, bool simulated = false);
 
 // The demo's lab gets a store when it has none (no [store] configured, no <data root>/store.sqlite): an empty
 // SQLite store at this loadtrim's schema, so that `loadtrim history` lists the demo's sessions. Never
@@ -24,7 +26,8 @@ void index_finished_folder(const record::DataRoot& root, const std::string& fold
 bool ensure_demo_store(const record::DataRoot& root, bool say);
 
 // Drains the queue into the store at `where` (at most `budget_s` seconds) and prints what it did; the number
-// left queued, -1 when the store could not be used.
+// left queued, -1 when the store could not be used, -2 when the queue is empty but a folder was set aside
+// (it does not verify, or is gone). Never throws.
 int drain_store_queue(const record::DataRoot& root, const store::StorePath& where, double budget_s, bool say);
 
 }  // namespace loadtrim::app

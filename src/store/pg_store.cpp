@@ -625,7 +625,8 @@ bool describe_conninfo(const std::string& conninfo, std::string& server, std::st
   }
   const ConninfoOptions o(conninfo);
   if (!o.options) {
-    error = "libpq cannot read the connection string: " + o.error;
+    // libpq's message quotes the part it could not read, which may be the password: never shown.
+    error = "libpq cannot read the connection string (its text is not shown: it may hold a password)";
     return false;
   }
   if (const auto t = o.get("connect_timeout")) {

@@ -13,6 +13,7 @@
 #include <sstream>
 
 #include "record/session_folder.hpp"
+#include "record/sha256.hpp"
 #include "store/index.hpp"
 
 namespace loadtrim::store {
@@ -29,7 +30,9 @@ std::string queue_dir(const std::string& data_root) {
 }
 
 // The entry's file name: the folder's own name with anything but [A-Za-z0-9._-] replaced, so that a folder
-// name can never point outside the queue folder.
+// name can never point outside the queue folder, then 16 hex digits of the SHA-256 of the whole path: two
+// folders of the same name (check folders of several cells, sessions in per-cell folders) never share an
+// entry.
 std::string entry_name(const std::string& folder) {
   std::string n = fs::path(folder).lexically_normal().filename().string();
   if (n.empty()) n = fs::path(folder).lexically_normal().parent_path().filename().string();
@@ -39,7 +42,7 @@ std::string entry_name(const std::string& folder) {
     if (!ok) ch = '_';
   }
   if (n.empty() || n[0] == '.') n = "_" + n;
-  return n + ".json";
+  return n + "-" + record::sha256_hex(folder).substr(0, 16) + ".json";
 }
 
 bool write_whole(const std::string& path, const std::string& text, std::string& error) {
@@ -99,18 +102,30 @@ Entry read_entry(const std::string& file) {
   }
   e.folder = j["folder"].get<std::string>();
   e.what = j["what"].get<std::string>();
+  if (j.contains("queued_utc") && !j["queued_utc"].is_string()) {
+    e.error = file + ": not a queue entry (\"queued_utc\" is not a string)";
+    return e;
+  }
   e.queued_utc = j.value("queued_utc", std::string("?"));
   if (e.folder.empty() || e.folder[0] != '/')
     e.error = file + ": \"folder\" is not an absolute path (" + e.folder + ")";
   return e;
 }
 
-// Moves an entry that will never index to queue/refused/, keeping its name (a later one replaces it).
+// Moves an entry that will never index to queue/refused/, under a name no later one takes (its name, then
+// the time it was set aside, then a count): what was set aside stays for whoever looks.
 void set_aside(const std::string& data_root, const Entry& e, DrainResult& out, const std::string& why) {
   const fs::path dir = fs::path(queue_dir(data_root)) / "refused";
   std::error_code ec;
   fs::create_directories(dir, ec);
-  fs::rename(e.file, dir / fs::path(e.file).filename(), ec);
+  const std::string stem = fs::path(e.file).stem().string();
+  std::string stamp = record::utc_now();
+  for (char& c : stamp)
+    if (c == ':') c = '-';
+  fs::path to = dir / (stem + "." + stamp + ".json");
+  for (int i = 2; fs::exists(fs::symlink_status(to, ec)) && i < 1000; ++i)
+    to = dir / (stem + "." + stamp + "-" + std::to_string(i) + ".json");
+  fs::rename(e.file, to, ec);
   if (ec) fs::remove(e.file, ec);
   ++out.set_aside;
   out.messages.push_back("set aside " + (e.folder.empty() ? e.file : e.folder) + " (queued at " +
@@ -153,7 +168,16 @@ bool enqueue(const std::string& data_root, const std::string& folder, const std:
   const std::string path = (dir / entry_name(folder)).string();
   if (fs::exists(fs::symlink_status(path, ec))) return true;
   const nlohmann::json j = {{"folder", folder}, {"what", what}, {"queued_utc", record::utc_now()}};
-  return write_whole(path, j.dump() + "\n", error);
+  // A path that is not UTF-8 cannot be a JSON string: refused here, said by the caller, never thrown.
+  std::string text;
+  try {
+    text = j.dump();
+  } catch (const nlohmann::json::exception&) {
+    error =
+        "the folder's path is not UTF-8 text, so it cannot be queued: index it with `loadtrim store import`";
+    return false;
+  }
+  return write_whole(path, text + "\n", error);
 }
 
 std::vector<std::string> queued_entries(const std::string& data_root) {

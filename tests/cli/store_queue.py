@@ -18,6 +18,7 @@ taken with Python's sqlite3 module. Each session is a real one (`loadtrim demo -
 Usage: store_queue.py --exe build/bin/loadtrim --workdir DIR
 """
 import argparse
+import hashlib
 import json
 import os
 import shutil
@@ -44,6 +45,17 @@ def expect(what, ok, detail=""):
         FAILED.append(what)
         if detail:
             print("     " + detail.replace("\n", "\n     "))
+
+
+def entry(folder):
+    """The queue entry's file name: the folder's name and 16 hex digits of the SHA-256 of its path (docs/store.md)."""
+    return os.path.basename(folder) + "-" + hashlib.sha256(folder.encode()).hexdigest()[:16] + ".json"
+
+
+def in_refused(queue, folder):
+    d = os.path.join(queue, "refused")
+    stem = entry(folder)[:-5]
+    return os.path.isdir(d) and any(f.startswith(stem + ".") for f in os.listdir(d))
 
 
 def demo(what):
@@ -80,8 +92,7 @@ def main():
     a, _, err_a = demo("A (store locked)")
     b, _, _ = demo("B (store locked)")
     queued = sorted(f for f in os.listdir(queue) if f.endswith(".json")) if os.path.isdir(queue) else []
-    expect("A and B are queued in the data root", queued == sorted([os.path.basename(a) + ".json",
-                                                                    os.path.basename(b) + ".json"]), str(queued))
+    expect("A and B are queued in the data root", queued == sorted([entry(a), entry(b)]), str(queued))
     expect("A's end said the store was unavailable and the folder queued",
            "store unavailable" in err_a and "queued" in err_a, err_a)
     text = open(log, encoding="utf-8").read() if os.path.exists(log) else ""
@@ -103,7 +114,7 @@ def main():
     expect("store.log says A was indexed from the queue", ("indexed session " + name(a)) in text, text)
     expect("store.log says C was indexed", ("indexed session " + name(c)) in text, text)
     expect("B, changed while queued, is set aside and named on stderr",
-           os.path.exists(os.path.join(queue, "refused", name(b) + ".json")) and "set aside " + b in err_c,
+           in_refused(queue, b) and "set aside " + b in err_c,
            err_c)
     left = [f for f in os.listdir(queue) if f.endswith(".json")]
     expect("the queue is empty", left == [], str(left))
@@ -118,13 +129,13 @@ def main():
     d, _, _ = demo("D (store locked again)")
     rc, out, err = run(["store", "import", "--queued"])
     expect("store import --queued while the store is still locked fails and keeps D queued (exit 5)",
-           rc == 5 and os.path.exists(os.path.join(queue, name(d) + ".json")), f"exit {rc}\n{out}{err}")
+           rc == 5 and os.path.exists(os.path.join(queue, entry(d))), f"exit {rc}\n{out}{err}")
     lock.execute("ROLLBACK")
     lock.close()
     rc, out, err = run(["store", "import", "--queued"])
     expect("store import --queued indexes D once the store is back (exit 0)",
            rc == 0 and ("indexed session " + name(d)) in out and "queue" in out and
-           not os.path.exists(os.path.join(queue, name(d) + ".json")), f"exit {rc}\n{out}{err}")
+           not os.path.exists(os.path.join(queue, entry(d))), f"exit {rc}\n{out}{err}")
     # Nothing queued is said so.
     rc, out, err = run(["store", "import", "--queued"])
     expect("store import --queued with an empty queue (exit 0)", rc == 0 and "nothing queued" in out, out + err)

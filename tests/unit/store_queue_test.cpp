@@ -7,6 +7,7 @@
 #include <gtest/gtest.h>
 #include <stdlib.h>
 
+#include <algorithm>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
@@ -105,9 +106,35 @@ TEST(StoreQueue, WhatCanNeverIndexIsSetAside) {
   const store::DrainResult r = store::drain_queue(root, open, {}, kLater);
   EXPECT_EQ(r.set_aside, 3);
   EXPECT_EQ(r.remaining, 0);
-  EXPECT_TRUE(fs::exists(qdir / "refused" / "gone.json"));
-  EXPECT_TRUE(fs::exists(qdir / "refused" / "0-not-an-entry.json"));
-  EXPECT_TRUE(fs::exists(qdir / "refused" / "1-relative.json"));
+  // Each under its own name, with the time it was set aside: nothing set aside is replaced by a later one.
+  std::vector<std::string> refused;
+  for (const auto& f : fs::directory_iterator(qdir / "refused"))
+    refused.push_back(f.path().filename().string());
+  std::sort(refused.begin(), refused.end());
+  ASSERT_EQ(refused.size(), 3u);
+  EXPECT_EQ(refused[0].rfind("0-not-an-entry.", 0), 0u) << refused[0];
+  EXPECT_EQ(refused[1].rfind("1-relative.", 0), 0u) << refused[1];
+  EXPECT_EQ(refused[2].rfind("gone-", 0), 0u) << refused[2];
+  fs::remove_all(root);
+}
+
+// Two folders of the same name (check folders of two cells started in the same second) are two entries; a
+// queued_utc that is not a string makes a file that is not an entry (set aside, never thrown).
+TEST(StoreQueue, FoldersOfTheSameNameAreTwoEntries) {
+  const std::string root = make_temp_dir("lt-queue");
+  std::string err;
+  ASSERT_TRUE(store::enqueue(root, "/labs/x/checks/cell-a/20261203T100000Z-coastdown", "check", err)) << err;
+  ASSERT_TRUE(store::enqueue(root, "/labs/x/checks/cell-b/20261203T100000Z-coastdown", "check", err)) << err;
+  EXPECT_EQ(store::queued_entries(root).size(), 2u);
+  const fs::path qdir = fs::path(root) / store::kQueueDirName;
+  std::ofstream(qdir / "0-bad-time.json") << R"({"folder": "/labs/x/s", "what": "session", "queued_utc": 5})";
+  const store::StoreOpener none = [&](std::string& e) -> std::unique_ptr<store::Store> {
+    e = "down";
+    return nullptr;
+  };
+  const store::DrainResult r = store::drain_queue(root, none, {}, kLater);
+  EXPECT_EQ(r.set_aside, 1);
+  EXPECT_EQ(r.remaining, 2);
   fs::remove_all(root);
 }
 

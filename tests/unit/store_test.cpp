@@ -263,9 +263,11 @@ class StoreTest : public ::testing::TestWithParam<Engine> {
       const PgResult made = pg_query(admin_, "CREATE SCHEMA " + schema_);
       ASSERT_TRUE(made.ok) << made.error;
       conninfo_ = base + "?connect_timeout=10&options=-csearch_path%3D" + schema_;
-      // The server as the store names it: the URI without its user.
+      // The server as the store names it: the URI without its user and password (user[:password]@).
       where_ = base;
-      where_.erase(where_.find("loadtrim@"), std::string("loadtrim@").size());
+      const auto at = where_.find('@');
+      const auto scheme = where_.find("://");
+      if (at != std::string::npos && scheme != std::string::npos) where_.erase(scheme + 3, at - scheme - 2);
     }
   }
   void TearDown() override {

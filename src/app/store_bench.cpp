@@ -1,0 +1,199 @@
+// `loadtrim store bench`: the record store at a lab's scale (issue 19, docs/performance.md "The record
+// store"). A scratch store is filled with N invented sessions (four invented cells, a fifth as many vehicles
+// as sessions, three coast-downs of four reference speeds each, start times spread over a year: bench data,
+// not a lab's), then `history` is asked by vehicle, by cell and since a date, each many times. The same is
+// done on a store held at migration step 1 (the tables without step 2's history indexes), the baseline
+// measured in the same run: the figures are its ratio, and whether the answers stay under 100 ms (issue 19's
+// goal). Nothing here is a test: it prints what it measured.
+#include "app/store_bench.hpp"
+
+#include <stdlib.h>
+
+#include <algorithm>
+#include <chrono>
+#include <cstdio>
+#include <filesystem>
+#include <random>
+#include <string>
+#include <vector>
+
+#include "app/exit_codes.hpp"
+#include "store/sqlite_store.hpp"
+
+namespace loadtrim::app {
+
+namespace fs = std::filesystem;
+
+namespace {
+
+using Clock = std::chrono::steady_clock;
+
+constexpr double kGoalMs = 100.0;  // issue 19: history and the overview answering in under 100 ms
+
+std::string two(int v) {
+  char b[8];
+  std::snprintf(b, sizeof b, "%02d", v);
+  return b;
+}
+
+// An invented session, reproducible from its index.
+store::SessionEntry invented_session(int i, int vehicles, std::mt19937_64& rng) {
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  store::SessionEntry e;
+  const int day = i % 360;
+  const std::string utc =
+      "2026-" + two(1 + day / 30) + "-" + two(1 + day % 28) + "T" + two(i % 24) + ":" + two(i % 60) + ":00Z";
+  e.facts.folder = "/bench/sessions/S" + std::to_string(i);
+  e.facts.name = "S" + std::to_string(i);
+  e.facts.origin = "bench-origin-" + std::to_string(i);
+  e.facts.cell = "bench cell " + std::to_string(1 + i % 4) + " (invented)";
+  e.facts.operator_name = "bench operator";
+  e.facts.started_utc = utc;
+  e.facts.sealed_utc = utc;
+  e.facts.chain_head = "bench-chain-" + std::to_string(i);
+  e.facts.seal_sha256 = "bench-seal-" + std::to_string(i);
+  e.facts.signer = "none";
+  e.facts.verify_outcome = "sealed, not signed";
+  e.vehicle = "BENCH-" + std::to_string(i % vehicles);
+  e.profile = "wltp-iterative";
+  e.standard = "UN GTR No. 15";
+  e.method = "iterative";
+  e.first_setting_requested = e.first_setting_strategy = "loss-map";
+  e.accepted = u(rng) < 0.9;
+  e.result = e.accepted ? "accepted" : "not-accepted";
+  e.stop_reason = e.accepted ? "2 consecutive coast-downs within tolerance" : "limit of coast-downs";
+  e.target = core::RoadLoad{100.0 + 80.0 * u(rng), 0.2 + 0.4 * u(rng), 0.02 + 0.03 * u(rng)};
+  e.final_set =
+      core::RoadLoad{e.target.f0_n - 90.0, e.target.f1_n_per_kmh - 0.1, e.target.f2_n_per_kmh2 - 0.003};
+  e.measured = e.target;
+  e.tolerance_n = 10.0;
+  e.test_mass_kg = 1200.0 + 1000.0 * u(rng);
+  e.cell_time_s = 1800.0 + 900.0 * u(rng);
+  e.coastdowns = e.usable_coastdowns = 3;
+  e.iterations = 2;
+  for (int run = 1; run <= 3; ++run) {
+    store::CoastdownEntry c;
+    c.seq = static_cast<std::uint64_t>(10 * run);
+    c.run = run;
+    c.usable = true;
+    c.set = e.final_set;
+    c.measured = e.target;
+    c.passed = run > 1;
+    c.worst_abs_deviation_n = 12.0 * u(rng);
+    c.cell_time_s = 600.0 * run;
+    for (double v : {20.0, 50.0, 80.0, 110.0})
+      c.deviations.push_back(
+          {v, 200.0, 200.0 + 8.0 * (u(rng) - 0.5), 8.0 * (u(rng) - 0.5), 10.0, std::nullopt, true});
+    e.coastdown_records.push_back(c);
+  }
+  e.final_deviations = e.coastdown_records.back().deviations;
+  return e;
+}
+
+struct Timing {
+  double median_ms = 0.0, p95_ms = 0.0;
+  std::size_t rows = 0;
+};
+
+Timing time_queries(store::Store& s, const std::vector<store::HistoryQuery>& qs, std::string& error) {
+  std::vector<double> ms;
+  std::size_t rows = 0;
+  for (const auto& q : qs) {
+    std::vector<store::HistoryRow> out;
+    const auto t0 = Clock::now();
+    if (!s.history(q, out, error)) return {};
+    ms.push_back(std::chrono::duration<double, std::milli>(Clock::now() - t0).count());
+    rows += out.size();
+  }
+  std::sort(ms.begin(), ms.end());
+  Timing t;
+  t.median_ms = ms[ms.size() / 2];
+  t.p95_ms = ms[std::min(ms.size() - 1, ms.size() * 95 / 100)];
+  t.rows = rows / qs.size();
+  return t;
+}
+
+struct Filled {
+  std::unique_ptr<store::Store> store;
+  double insert_per_s = 0.0;
+};
+
+Filled fill(std::unique_ptr<store::Store> s, int up_to, int n, int vehicles, std::string& error) {
+  Filled f;
+  if (!s || !s->migrate(error, nullptr, up_to)) return f;
+  std::mt19937_64 rng(2026);
+  const auto t0 = Clock::now();
+  for (int i = 0; i < n; ++i) {
+    store::PutResult r;
+    if (!s->put_session(invented_session(i, vehicles, rng), r, error)) return f;
+  }
+  f.insert_per_s = n / std::max(1e-9, std::chrono::duration<double>(Clock::now() - t0).count());
+  f.store = std::move(s);
+  return f;
+}
+
+}  // namespace
+
+int store_bench(const StoreBenchArgs& a) {
+  const int n = a.sessions;
+  const int vehicles = std::max(1, n / 5);
+  std::error_code ec;
+  std::string dir = (fs::temp_directory_path(ec) / "loadtrim-store-bench-XXXXXX").string();
+  if (!::mkdtemp(dir.data())) {
+    std::fprintf(stderr, "loadtrim store bench: cannot make a scratch folder\n");
+    return kBadInput;
+  }
+  std::printf(
+      "store bench: %d invented sessions (4 invented cells, %d vehicles, 3 coast-downs x 4 speeds each); "
+      "scratch %s\n",
+      n, vehicles, dir.c_str());
+  std::vector<store::HistoryQuery> by_vehicle, by_cell, since;
+  for (int i = 0; i < 50; ++i)
+    by_vehicle.push_back({"BENCH-" + std::to_string((i * 7919) % vehicles), "", ""});
+  for (int i = 0; i < 20; ++i)
+    by_cell.push_back({"", "bench cell " + std::to_string(1 + i % 4) + " (invented)", ""});
+  for (int i = 0; i < 20; ++i) since.push_back({"", "", "2026-12-" + two(1 + i % 28)});
+  int rc = kAccepted;
+  Timing t[2][3];
+  double ins[2] = {0, 0};
+  for (int k = 0; k < 2 && rc == kAccepted; ++k) {
+    const int up_to = k == 0 ? 1 : 0;  // the baseline: step 1 only (no history indexes); then every step
+    std::string err;
+    Filled f = fill(store::open_sqlite(dir + (k == 0 ? "/baseline.sqlite" : "/store.sqlite"),
+                                       store::OpenMode::migrate, err),
+                    up_to, n, vehicles, err);
+    if (!f.store) {
+      std::fprintf(stderr, "loadtrim store bench: %s\n", err.c_str());
+      rc = kRecordFailure;
+      break;
+    }
+    ins[k] = f.insert_per_s;
+    t[k][0] = time_queries(*f.store, by_vehicle, err);
+    t[k][1] = time_queries(*f.store, by_cell, err);
+    t[k][2] = time_queries(*f.store, since, err);
+    if (!err.empty()) {
+      std::fprintf(stderr, "loadtrim store bench: %s\n", err.c_str());
+      rc = kRecordFailure;
+    }
+  }
+  if (rc == kAccepted) {
+    std::printf("\nsqlite: indexing %.0f sessions/s (baseline without the history indexes %.0f/s)\n", ins[1],
+                ins[0]);
+    std::printf("  %-22s %8s %12s %12s %14s %8s\n", "history query", "rows", "median ms", "p95 ms",
+                "baseline p95", "ratio");
+    const char* names[] = {"--vehicle (50 asked)", "--cell (20 asked)", "--since (20 asked)"};
+    bool met = true;
+    for (int q = 0; q < 3; ++q) {
+      met = met && t[1][q].p95_ms < kGoalMs;
+      std::printf("  %-22s %8zu %12.2f %12.2f %14.2f %8.1f\n", names[q], t[1][q].rows, t[1][q].median_ms,
+                  t[1][q].p95_ms, t[0][q].p95_ms, t[0][q].p95_ms / std::max(1e-6, t[1][q].p95_ms));
+    }
+    std::printf("  goal: every history answer under %.0f ms at %d sessions (p95): %s\n", kGoalMs, n,
+                met ? "met" : "NOT met");
+    std::printf("store bench completed\n");
+  }
+  fs::remove_all(dir, ec);
+  return rc;
+}
+
+}  // namespace loadtrim::app
