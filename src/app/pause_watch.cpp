@@ -14,7 +14,6 @@
 #include <iostream>
 #include <nlohmann/json.hpp>
 #include <optional>
-#include <sstream>
 
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"

@@ -483,7 +483,6 @@ std::optional<Session::Stop> Session::after_vehicle_run(int run, const motion::V
                                                         double start_kmh) {
   using Ending = motion::VehicleRunOutcome::Ending;
   // The display is cleared whatever happened (a driver left with "shift to neutral" shown does nothing).
-  (void)start_kmh;
   if (!clear_driver_prompt(run, "the run-up ended"))
     return Stop{Outcome::controller_fault, "the driver display could not be cleared after the run-up"};
   ev::RunUpChecked chk;

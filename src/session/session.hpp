@@ -77,7 +77,7 @@ struct Options {
   // Pause and continue (session/pause.hpp); none: the session cannot be paused. A pause waits at most
   // max_pause_s of the tool's own time for its continue, then ends the session as interrupted (resumable).
   PauseControl* pause = nullptr;
-  double max_pause_s = 3600.0;
+  double max_pause_s = 3600.0;  // an hour: common practice, no source (docs/session.md)
 };
 
 struct Inputs {
