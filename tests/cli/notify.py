@@ -16,36 +16,16 @@ Usage: notify.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOU
 """
 import argparse, json, os, re, shutil, stat, subprocess, sys, time
 
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
+from testlib import FAILED, expect, finish, start_sim, env as testlib_env  # noqa: E402
+
 ARGS = None
-FAILED = []
 
 
-def expect(what, ok, detail=""):
-    print(("ok   " if ok else "FAIL ") + what)
-    if not ok:
-        FAILED.append(what)
-        if detail:
-            print("     " + detail.replace("\n", "\n     "))
 
 
-def env():
-    e = dict(os.environ)
-    e["LOADTRIM_LOCK_DIR"] = os.path.join(ARGS.workdir, "locks")
-    e["LOADTRIM_DATA_DIR"] = os.path.join(ARGS.workdir, "data")
-    return e
 
 
-def start_sim():
-    p = subprocess.Popen([ARGS.sim, "--truth", os.path.join(ARGS.src, "samples/truths/demo-hatchback.toml"), "--port",
-                          "0", "--time-scale", "100", "--watchdog-ms", "1000", "--exit-after-s", "300"],
-                         stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
-    deadline = time.monotonic() + 20
-    while time.monotonic() < deadline:
-        m = re.search(r"listening.*127\.0\.0\.1:(\d+)", p.stdout.readline())
-        if m:
-            return p, int(m.group(1))
-    p.kill()
-    raise SystemExit("loadtrim-sim did not print its port")
 
 
 def script(name, text):
@@ -82,13 +62,13 @@ def main():
     cell = cell_with("cell-notify.toml", 'command = ["%s"]\nmail_to = "cell-team@example.org"\nmailer = "%s"\n'
                      'timeout_s = 20\n' % (recorder, mailer))
     sessions = os.path.join(ARGS.workdir, "sessions")
-    sim, port = start_sim()
+    sim, port = start_sim(ARGS.sim, ARGS.src)
     try:
         p = subprocess.run([ARGS.exe, "run", "--cell", cell, "--target",
                             os.path.join(ARGS.src, "samples/targets/demo-hatchback.toml"), "--profile",
                             os.path.join(ARGS.src, "tests/data/wltp-iterative-short-warmup.toml"), "--port", str(port),
                             "--sessions", sessions, "--unattended", "--quiet", "--operator", "N. Otify"],
-                           cwd=ARGS.workdir, env=env(), capture_output=True, text=True, timeout=150)
+                           cwd=ARGS.workdir, env=testlib_env(ARGS.workdir), capture_output=True, text=True, timeout=150)
     finally:
         sim.kill()
         sim.wait()
@@ -128,12 +108,11 @@ def main():
     bad = cell_with("cell-bad.toml", 'command = ["notify.sh"]\n')
     r = subprocess.run([ARGS.exe, "run", "--cell", bad, "--target",
                         os.path.join(ARGS.src, "samples/targets/demo-hatchback.toml"), "--port", "1", "--unattended",
-                        "--quiet"], cwd=ARGS.workdir, env=env(), capture_output=True, text=True, timeout=60)
+                        "--quiet"], cwd=ARGS.workdir, env=testlib_env(ARGS.workdir), capture_output=True, text=True, timeout=60)
     expect("a relative notify.command is refused before anything moves (exit 2), naming the key",
            r.returncode == 2 and "notify.command" in r.stderr and "absolute path" in r.stderr, r.stderr[-600:])
 
-    print("%d failed" % len(FAILED))
-    return 1 if FAILED else 0
+    return finish()
 
 
 if __name__ == "__main__":

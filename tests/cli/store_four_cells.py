@@ -13,41 +13,21 @@ Usage: store_four_cells.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim
 """
 import argparse, json, os, re, shutil, subprocess, sys, time
 
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
+from testlib import FAILED, expect, finish, start_sim, env as testlib_env  # noqa: E402
+
 ARGS = None
-FAILED = []
 
 
-def expect(what, ok, detail=""):
-    print(("ok   " if ok else "FAIL ") + what)
-    if not ok:
-        FAILED.append(what)
-        if detail:
-            print("     " + str(detail).replace("\n", "\n     "))
 
 
-def env():
-    e = dict(os.environ)
-    e["LOADTRIM_LOCK_DIR"] = os.path.join(ARGS.workdir, "locks")
-    e["LOADTRIM_DATA_DIR"] = os.path.join(ARGS.workdir, "data")
-    return e
 
 
 def tool(*argv, timeout=120):
-    return subprocess.run([ARGS.exe] + list(argv), cwd=ARGS.workdir, env=env(), capture_output=True, text=True,
+    return subprocess.run([ARGS.exe] + list(argv), cwd=ARGS.workdir, env=testlib_env(ARGS.workdir), capture_output=True, text=True,
                           timeout=timeout)
 
 
-def start_sim():
-    p = subprocess.Popen([ARGS.sim, "--truth", os.path.join(ARGS.src, "samples/truths/demo-hatchback.toml"), "--port",
-                          "0", "--time-scale", "100", "--watchdog-ms", "1000", "--exit-after-s", "300"],
-                         stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
-    deadline = time.monotonic() + 20
-    while time.monotonic() < deadline:
-        m = re.search(r"listening.*127\.0\.0\.1:(\d+)", p.stdout.readline())
-        if m:
-            return p, int(m.group(1))
-    p.kill()
-    raise SystemExit("loadtrim-sim did not print its port")
 
 
 def main():
@@ -71,14 +51,14 @@ def main():
             path = os.path.join(ARGS.workdir, "cell-%d.toml" % i)
             open(path, "w").write(text + "\n[checks]\nenforce = false\n")
             cells.append(name)
-            sims.append(start_sim())
+            sims.append(start_sim(ARGS.sim, ARGS.src))
         for i, (sim, port) in enumerate(sims):
             procs.append(subprocess.Popen(
                 [ARGS.exe, "run", "--cell", os.path.join(ARGS.workdir, "cell-%d.toml" % i), "--target",
                  os.path.join(ARGS.src, "samples/targets/demo-hatchback.toml"), "--profile",
                  os.path.join(ARGS.src, "tests/data/wltp-iterative-short-warmup.toml"), "--port", str(port),
                  "--unattended", "--quiet", "--operator", "F. Our"],
-                cwd=ARGS.workdir, env=env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True))
+                cwd=ARGS.workdir, env=testlib_env(ARGS.workdir), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True))
         outs = [p.communicate(timeout=240) for p in procs]
     finally:
         for sim, _ in sims:
@@ -108,8 +88,7 @@ def main():
     expect("history lists all four sessions", len(rows) == 4 and len({x["cell"] for x in rows}) == 4, len(rows))
     r = tool("store", "check")
     expect("store check finds nothing wrong (exit 0)", r.returncode == 0, r.stdout[-400:] + r.stderr)
-    print("%d failed" % len(FAILED))
-    return 1 if FAILED else 0
+    return finish()
 
 
 if __name__ == "__main__":

@@ -26,8 +26,10 @@ import sqlite3
 import subprocess
 import sys
 
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
+from testlib import FAILED, expect, finish  # noqa: E402
+
 ARGS = None
-FAILED = []
 
 
 def run(argv, timeout=120):
@@ -39,12 +41,6 @@ def run(argv, timeout=120):
     return p.returncode, p.stdout, p.stderr
 
 
-def expect(what, ok, detail=""):
-    print(("ok   " if ok else "FAIL ") + what)
-    if not ok:
-        FAILED.append(what)
-        if detail:
-            print("     " + detail.replace("\n", "\n     "))
 
 
 def entry(folder):
@@ -140,8 +136,7 @@ def main():
     rc, out, err = run(["store", "import", "--queued"])
     expect("store import --queued with an empty queue (exit 0)", rc == 0 and "nothing queued" in out, out + err)
 
-    print(f"{len(FAILED)} failed")
-    return 1 if FAILED else 0
+    return finish()
 
 
 if __name__ == "__main__":

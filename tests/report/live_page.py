@@ -17,17 +17,13 @@ Usage: live_page.py --exe build/bin/loadtrim --src SOURCE_DIR --workdir DIR
 """
 import argparse, json, os, re, shutil, subprocess, sys, tempfile, time, urllib.error, urllib.request
 
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
+from testlib import FAILED, expect, finish  # noqa: E402
+
 ARGS = None
-FAILED = []
 TOKEN = "live-test-token-7f3a"
 
 
-def expect(what, ok, detail=""):
-    print(("ok   " if ok else "FAIL ") + what)
-    if not ok:
-        FAILED.append(what)
-        if detail:
-            print("     " + str(detail).replace("\n", "\n     "))
 
 
 def env(token=True):
@@ -162,8 +158,7 @@ def main():
             rest = p.communicate()[0]
     expect("the demo session ended with a verdict (exit 0 or 1)", p.returncode in (0, 1), rest[-600:])
     expect("the page is gone once the session has ended", get(base + "state?token=" + TOKEN, timeout=2)[0] == -1)
-    print("%d failed" % len(FAILED))
-    return 1 if FAILED else 0
+    return finish()
 
 
 if __name__ == "__main__":
