@@ -115,12 +115,23 @@ class Rows {
   // float8's text output is the shortest text that reads back as the same binary64 value (extra_float_digits
   // > 0, set at connection), so strtod returns the stored double exactly.
   double real(int row, int col) const { return std::strtod(PQgetvalue(r_.get(), row, col), nullptr); }
-  std::optional<double> opt_real(int row, int col) const {
-    return is_null(row, col) ? std::nullopt : std::optional<double>(real(row, col));
-  }
 
  private:
   std::unique_ptr<PGresult, decltype(&PQclear)> r_;
+};
+
+// Row `i` of a result for the engine-neutral readers of schema.hpp.
+class RowOf : public schema::ResultRow {
+ public:
+  RowOf(const Rows& r, int i) : r_(r), i_(i) {}
+  bool is_null(int c) const override { return r_.is_null(i_, c); }
+  std::string text(int c) const override { return r_.text(i_, c); }
+  std::int64_t integer(int c) const override { return r_.integer(i_, c); }
+  double real(int c) const override { return r_.real(i_, c); }
+
+ private:
+  const Rows& r_;
+  int i_;
 };
 
 // Serialises `store migrate` runs on one database (pg_advisory_xact_lock's key; any constant of our own).
@@ -355,54 +366,18 @@ class PgStore final : public Store {
         }
         // string_agg ... ORDER BY: PostgreSQL's aggregate for SQLite's group_concat, here in approval order.
         Rows s =
-            run("SELECT s.method, s.started_utc, s.cell, s.vehicle, s.operator, s.result, s.stop_reason, "
-                "s.accepted, "
-                "s.final_f0_n, s.final_f1_n_per_kmh, s.final_f2_n_per_kmh2, s.coastdowns, s.cell_time_s, "
-                "s.folder, "
-                "s.verify_outcome, (SELECT string_agg(r.reviewer, ', ' ORDER BY r.seq) FROM reviews r WHERE "
-                "r.session = s.id) FROM sessions s" +
+            run(std::string("SELECT ") + schema::kHistorySessionColumns +
+                    ", (SELECT string_agg(r.reviewer, ', ' ORDER BY r.seq) FROM reviews r WHERE r.session = "
+                    "s.id) FROM sessions s" +
                     w + " ORDER BY s.started_utc DESC",
                 sp);
-        for (int i = 0; i < s.size(); ++i) {
-          HistoryRow r;
-          r.what = "session";
-          r.kind = s.text(i, 0);
-          r.utc = s.text(i, 1);
-          r.cell = s.text(i, 2);
-          r.vehicle = s.text(i, 3);
-          r.operator_name = s.text(i, 4);
-          r.result = s.text(i, 5);
-          r.detail = s.text(i, 6);
-          r.accepted = s.integer(i, 7) != 0;
-          if (!s.is_null(i, 8)) r.final_set = core::RoadLoad{s.real(i, 8), s.real(i, 9), s.real(i, 10)};
-          r.coastdowns = static_cast<int>(s.integer(i, 11));
-          r.cell_time_s = s.opt_real(i, 12);
-          r.folder = s.text(i, 13);
-          r.verify_outcome = s.text(i, 14);
-          r.reviewer = s.text(i, 15);
-          rows.push_back(std::move(r));
-        }
+        for (int i = 0; i < s.size(); ++i) rows.push_back(schema::history_session_row(RowOf(s, i)));
       }
       if (q.vehicle.empty()) {  // a check has no vehicle
-        Rows s = run(
-            "SELECT s.kind, s.started_utc, s.cell, s.operator, s.end_state, s.verdict, s.passed, s.folder, "
-            "s.verify_outcome FROM checks s" +
-                where + " ORDER BY s.started_utc DESC",
-            p);
-        for (int i = 0; i < s.size(); ++i) {
-          HistoryRow r;
-          r.what = "check";
-          r.kind = s.text(i, 0);
-          r.utc = s.text(i, 1);
-          r.cell = s.text(i, 2);
-          r.operator_name = s.text(i, 3);
-          r.result = s.text(i, 4);
-          r.detail = s.text(i, 5);
-          r.accepted = s.integer(i, 6) != 0;
-          r.folder = s.text(i, 7);
-          r.verify_outcome = s.text(i, 8);
-          rows.push_back(std::move(r));
-        }
+        Rows s = run(std::string("SELECT ") + schema::kHistoryCheckColumns + " FROM checks s" + where +
+                         " ORDER BY s.started_utc DESC",
+                     p);
+        for (int i = 0; i < s.size(); ++i) rows.push_back(schema::history_check_row(RowOf(s, i)));
       }
       std::stable_sort(rows.begin(), rows.end(),
                        [](const HistoryRow& a, const HistoryRow& b) { return a.utc > b.utc; });

@@ -165,4 +165,46 @@ std::string step_sql(int version, Dialect dialect) {
   return sql;
 }
 
+const char* const kHistorySessionColumns =
+    "s.method, s.started_utc, s.cell, s.vehicle, s.operator, s.result, s.stop_reason, s.accepted, "
+    "s.final_f0_n, "
+    "s.final_f1_n_per_kmh, s.final_f2_n_per_kmh2, s.coastdowns, s.cell_time_s, s.folder, s.verify_outcome";
+const char* const kHistoryCheckColumns =
+    "s.kind, s.started_utc, s.cell, s.operator, s.end_state, s.verdict, s.passed, s.folder, s.verify_outcome";
+
+HistoryRow history_session_row(const ResultRow& c) {
+  HistoryRow r;
+  r.what = "session";
+  r.kind = c.text(0);
+  r.utc = c.text(1);
+  r.cell = c.text(2);
+  r.vehicle = c.text(3);
+  r.operator_name = c.text(4);
+  r.result = c.text(5);
+  r.detail = c.text(6);
+  r.accepted = c.integer(7) != 0;
+  if (!c.is_null(8)) r.final_set = core::RoadLoad{c.real(8), c.real(9), c.real(10)};
+  r.coastdowns = static_cast<int>(c.integer(11));
+  if (!c.is_null(12)) r.cell_time_s = c.real(12);
+  r.folder = c.text(13);
+  r.verify_outcome = c.text(14);
+  r.reviewer = c.text(15);
+  return r;
+}
+
+HistoryRow history_check_row(const ResultRow& c) {
+  HistoryRow r;
+  r.what = "check";
+  r.kind = c.text(0);
+  r.utc = c.text(1);
+  r.cell = c.text(2);
+  r.operator_name = c.text(3);
+  r.result = c.text(4);
+  r.detail = c.text(5);
+  r.accepted = c.integer(6) != 0;
+  r.folder = c.text(7);
+  r.verify_outcome = c.text(8);
+  return r;
+}
+
 }  // namespace loadtrim::store::schema

@@ -13,7 +13,10 @@
 // were released with; a released step is never edited (a change to the schema is a new step).
 #pragma once
 
+#include <cstdint>
 #include <string>
+
+#include "store/store.hpp"
 
 namespace loadtrim::store::schema {
 
@@ -25,5 +28,22 @@ int step_count();
 // one or more statements without parameters.
 const char* step_name(int version);
 std::string step_sql(int version, Dialect dialect);
+
+// `history`'s two queries, the same on both engines: their columns in the order history_session_row() and
+// history_check_row() read them. The sessions' query adds one last column, the approving reviewers as one
+// text, which each dialect aggregates its own way (SQLite group_concat, PostgreSQL string_agg).
+extern const char* const kHistorySessionColumns;  // alias s = sessions
+extern const char* const kHistoryCheckColumns;    // alias s = checks
+// One row of a result, read by column index through the engine's own API.
+class ResultRow {
+ public:
+  virtual ~ResultRow() = default;
+  virtual bool is_null(int column) const = 0;
+  virtual std::string text(int column) const = 0;
+  virtual std::int64_t integer(int column) const = 0;
+  virtual double real(int column) const = 0;
+};
+HistoryRow history_session_row(const ResultRow& row);
+HistoryRow history_check_row(const ResultRow& row);
 
 }  // namespace loadtrim::store::schema

@@ -70,9 +70,6 @@ class Stmt {
   }
   double col_real(int c) const { return sqlite3_column_double(s_, c); }
   std::int64_t col_int(int c) const { return sqlite3_column_int64(s_, c); }
-  std::optional<double> col_opt_real(int c) const {
-    return is_null(c) ? std::nullopt : std::optional<double>(col_real(c));
-  }
 
  private:
   Stmt& check(int rc) {
@@ -81,6 +78,19 @@ class Stmt {
   }
   sqlite3* db_;
   sqlite3_stmt* s_ = nullptr;
+};
+
+// The statement's current row for the engine-neutral readers of schema.hpp.
+class StmtRow : public schema::ResultRow {
+ public:
+  explicit StmtRow(const Stmt& s) : s_(s) {}
+  bool is_null(int c) const override { return s_.is_null(c); }
+  std::string text(int c) const override { return s_.col_text(c); }
+  std::int64_t integer(int c) const override { return s_.col_int(c); }
+  double real(int c) const override { return s_.col_real(c); }
+
+ private:
+  const Stmt& s_;
 };
 
 void exec(sqlite3* db, const std::string& sql) {
@@ -334,56 +344,23 @@ class SqliteStore final : public Store {
       if (!q.since.empty()) where += " AND s.started_utc >= ?2";
       {
         Stmt s(db_,
-               "SELECT s.method, s.started_utc, s.cell, s.vehicle, s.operator, s.result, s.stop_reason, "
-               "s.accepted, s.final_f0_n, s.final_f1_n_per_kmh, s.final_f2_n_per_kmh2, s.coastdowns, "
-               "s.cell_time_s, s.folder, s.verify_outcome, (SELECT group_concat(r.reviewer, ', ') FROM "
-               "reviews r WHERE r.session = s.id) FROM sessions s" +
+               std::string("SELECT ") + schema::kHistorySessionColumns +
+                   ", (SELECT group_concat(r.reviewer, ', ') FROM reviews r WHERE r.session = s.id) FROM "
+                   "sessions s" +
                    where + (q.vehicle.empty() ? "" : " AND s.vehicle = ?3") + " ORDER BY s.started_utc DESC");
         if (!q.cell.empty()) s.text(1, q.cell);
         if (!q.since.empty()) s.text(2, q.since);
         if (!q.vehicle.empty()) s.text(3, q.vehicle);
-        while (s.step()) {
-          HistoryRow r;
-          r.what = "session";
-          r.kind = s.col_text(0);
-          r.utc = s.col_text(1);
-          r.cell = s.col_text(2);
-          r.vehicle = s.col_text(3);
-          r.operator_name = s.col_text(4);
-          r.result = s.col_text(5);
-          r.detail = s.col_text(6);
-          r.accepted = s.col_int(7) != 0;
-          if (!s.is_null(8)) r.final_set = core::RoadLoad{s.col_real(8), s.col_real(9), s.col_real(10)};
-          r.coastdowns = static_cast<int>(s.col_int(11));
-          r.cell_time_s = s.col_opt_real(12);
-          r.folder = s.col_text(13);
-          r.verify_outcome = s.col_text(14);
-          r.reviewer = s.col_text(15);
-          rows.push_back(std::move(r));
-        }
+        const StmtRow row(s);
+        while (s.step()) rows.push_back(schema::history_session_row(row));
       }
       if (q.vehicle.empty()) {  // a check has no vehicle
-        Stmt s(
-            db_,
-            "SELECT s.kind, s.started_utc, s.cell, s.operator, s.end_state, s.verdict, s.passed, s.folder, "
-            "s.verify_outcome FROM checks s" +
-                where + " ORDER BY s.started_utc DESC");
+        Stmt s(db_, std::string("SELECT ") + schema::kHistoryCheckColumns + " FROM checks s" + where +
+                        " ORDER BY s.started_utc DESC");
         if (!q.cell.empty()) s.text(1, q.cell);
         if (!q.since.empty()) s.text(2, q.since);
-        while (s.step()) {
-          HistoryRow r;
-          r.what = "check";
-          r.kind = s.col_text(0);
-          r.utc = s.col_text(1);
-          r.cell = s.col_text(2);
-          r.operator_name = s.col_text(3);
-          r.result = s.col_text(4);
-          r.detail = s.col_text(5);
-          r.accepted = s.col_int(6) != 0;
-          r.folder = s.col_text(7);
-          r.verify_outcome = s.col_text(8);
-          rows.push_back(std::move(r));
-        }
+        const StmtRow row(s);
+        while (s.step()) rows.push_back(schema::history_check_row(row));
       }
       std::stable_sort(rows.begin(), rows.end(),
                        [](const HistoryRow& a, const HistoryRow& b) { return a.utc > b.utc; });
