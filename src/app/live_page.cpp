@@ -7,6 +7,7 @@
 #include <atomic>
 #include <chrono>
 #include <condition_variable>
+#include <cstdlib>
 #include <deque>
 #include <mutex>
 #include <nlohmann/json.hpp>
@@ -173,6 +174,8 @@ struct LivePage::Impl {
   }
 };
 
+namespace {
+
 bool parse_bind(const std::string& bind, std::string& host, int& port, bool& loopback, std::string& error) {
   const auto colon = bind.rfind(':');
   const std::string form = "HOST:PORT with a numeric IPv4 host and a port 0-65535, e.g. 127.0.0.1:8080";
@@ -193,16 +196,33 @@ bool parse_bind(const std::string& bind, std::string& host, int& port, bool& loo
   return true;
 }
 
+}  // namespace
+
+LiveOptions live_options_for(const std::string& bind) {
+  const char* token = std::getenv("LOADTRIM_LIVE_TOKEN");
+  return {bind, token ? token : ""};
+}
+
+bool check_live_options(const LiveOptions& options, std::string& error) {
+  std::string host;
+  int port = 0;
+  bool loopback = true;
+  if (!parse_bind(options.bind, host, port, loopback, error)) return false;
+  if (!loopback && options.token.empty()) {
+    error = "the live page on " + options.bind +
+            " (not a loopback address) needs an access token: set LOADTRIM_LIVE_TOKEN (docs/live.md)";
+    return false;
+  }
+  return true;
+}
+
 std::unique_ptr<LivePage> LivePage::start(const LiveOptions& options, const std::string& title,
                                           const std::string& cautions, std::string& error) {
   auto impl = std::make_unique<Impl>();
   bool loopback = true;
-  if (!parse_bind(options.bind, impl->host, impl->port, loopback, error)) return nullptr;
-  if (!loopback && options.token.empty()) {
-    error = "the live page on " + options.bind +
-            " (not a loopback address) needs an access token (LOADTRIM_LIVE_TOKEN); refused";
+  if (!check_live_options(options, error) ||
+      !parse_bind(options.bind, impl->host, impl->port, loopback, error))
     return nullptr;
-  }
   impl->token = options.token;
   impl->title = title;
   impl->cautions = cautions;

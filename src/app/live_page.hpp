@@ -22,9 +22,13 @@ struct LiveOptions {
   std::string token;                 // "" = none (loopback only)
 };
 
-// Whether `bind` is HOST:PORT with a numeric IPv4 host and a port 0-65535, and the host a loopback address.
-// False with a sentence (naming the allowed form) when it is malformed.
-bool parse_bind(const std::string& bind, std::string& host, int& port, bool& loopback, std::string& error);
+// The options for `bind`, with the token from the environment (LOADTRIM_LIVE_TOKEN; never the command line,
+// where other users could read it).
+LiveOptions live_options_for(const std::string& bind);
+// Whether LivePage::start accepts `options`: the bind is HOST:PORT with a numeric IPv4 host and a port
+// 0-65535, and a host that is not loopback has a token. False with a sentence naming what is allowed. Checked
+// before a session starts, so that nothing starts on options the page would refuse.
+bool check_live_options(const LiveOptions& options, std::string& error);
 
 class LivePage : public session::Observer {
  public:

@@ -313,9 +313,9 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   std::unique_ptr<LivePage> live;
   if (req.live) {
     std::string err;
-    const char* token = std::getenv("LOADTRIM_LIVE_TOKEN");
+    const LiveOptions options = live_options_for(req.live_bind);
     live = LivePage::start(
-        {req.live_bind, token ? token : ""},
+        options,
         "loadtrim live: session " + fs::path(folder).filename().string() + " on cell " + inputs.cell.name,
         std::string(req.simulator ? "Simulated controller: no rollers move.\n" : "") + kCautions, err);
     if (!live)
@@ -326,7 +326,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
         std::printf("%s\n", nlohmann::json({{"type", "live_page"}, {"url", live->url()}}).dump().c_str());
       else
         std::printf("live page: %s (read-only; open it in a browser on this computer%s)\n",
-                    live->url().c_str(), token && *token ? ", with ?token=..." : "");
+                    live->url().c_str(), options.token.empty() ? "" : ", with ?token=...");
       std::fflush(stdout);
     }
   }
@@ -668,22 +668,10 @@ bool cell_log_intact(const RunRequest& req, const controller::CellConfig& cell) 
 }
 
 static bool live_options_ok(const RunRequest& req) {
-  if (!req.live) return true;
-  std::string host, err;
-  int port = 0;
-  bool loopback = true;
-  if (!parse_bind(req.live_bind, host, port, loopback, err)) {
-    std::cerr << "--live-bind: " << err << "\nrefused: nothing was started.\n";
-    return false;
-  }
-  const char* token = std::getenv("LOADTRIM_LIVE_TOKEN");
-  if (!loopback && !(token && *token)) {
-    std::cerr << "--live-bind " << req.live_bind
-              << ": not a loopback address, so the live page needs an access token: set LOADTRIM_LIVE_TOKEN "
-                 "(docs/live.md)\nrefused: nothing was started.\n";
-    return false;
-  }
-  return true;
+  std::string err;
+  if (!req.live || check_live_options(live_options_for(req.live_bind), err)) return true;
+  std::cerr << "--live-bind: " << err << "\nrefused: nothing was started.\n";
+  return false;
 }
 
 int run_new_session(const RunRequest& request, std::string* folder_out) {
