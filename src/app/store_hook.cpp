@@ -94,8 +94,7 @@ bool ensure_demo_store(const record::DataRoot& root, bool say) {
 static bool make_demo_store(const record::DataRoot& root, bool say) {
   const store::StorePath where = store::find_store_path("", root.path);
   std::error_code ec;
-  if (!where.ok() || where.source != "the data root's store.sqlite" || fs::exists(where.path, ec))
-    return true;
+  if (!where.ok() || !where.data_root_default || fs::exists(where.path, ec)) return true;
   std::string err;
   auto s = store::open_sqlite(where.path, store::OpenMode::migrate, err, kBusyTimeoutMs);
   std::vector<std::string> applied;
@@ -120,7 +119,7 @@ void index_finished_folder(const record::DataRoot& root, const std::string& fold
   try {
     const store::StorePath where = store::find_store_path("", root.path);
     std::error_code ec;
-    const bool configured = !where.ok() || where.source != "the data root's store.sqlite";
+    const bool configured = !where.ok() || !where.data_root_default;
     // A lab that never made a store is not using one: nothing is queued and nothing said (docs/store.md).
     if (!configured && !fs::exists(where.path, ec)) return;
     // A session against a simulator that this command started (the demo) never goes into a store the lab

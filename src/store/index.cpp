@@ -435,6 +435,7 @@ StorePath resolve_store_path(const std::string& option, const std::string& cwd,
   }
   s.path = normal(fs::path(data_root) / kStoreFileName);
   s.source = "the data root's store.sqlite";
+  s.data_root_default = true;
   return s;
 }
 

@@ -65,7 +65,9 @@ struct StorePath {
   // postgresql: the server as postgresql://host:port/dbname, for messages (no user, no password)
   std::string server;
   std::string source;  // how it was chosen
-  std::string error;   // a sentence naming the file and key (or the option), when it could not be resolved
+  bool data_root_default =
+      false;          // <data root>/store.sqlite because nothing chose another (a lab may have none)
+  std::string error;  // a sentence naming the file and key (or the option), when it could not be resolved
   bool ok() const { return error.empty() && !path.empty(); }
   // What to print: the file, or the server (never the connection string itself).
   const std::string& shown() const { return engine == "postgresql" ? server : path; }
