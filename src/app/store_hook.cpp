@@ -37,8 +37,6 @@ record::VerifyOptions verify_options(const record::DataRoot& root) {
 
 }  // namespace
 
-static bool make_demo_store(const record::DataRoot& root, bool say);
-
 int drain_store_queue(const record::DataRoot& root, const store::StorePath& where, double budget_s,
                       bool say) {
   if (!root.ok() || store::queued_entries(root.path).empty()) return 0;
@@ -84,33 +82,28 @@ int drain_store_queue(const record::DataRoot& root, const store::StorePath& wher
 bool ensure_demo_store(const record::DataRoot& root, bool say) {
   if (!root.ok()) return false;
   try {
-    return make_demo_store(root, say);
+    const store::StorePath where = store::find_store_path("", root.path);
+    std::error_code ec;
+    if (!where.ok() || !where.data_root_default || fs::exists(where.path, ec)) return true;
+    std::string err;
+    auto s = store::open_sqlite(where.path, store::OpenMode::migrate, err, kBusyTimeoutMs);
+    if (!s || !s->migrate(err)) {
+      std::fprintf(stderr,
+                   "loadtrim demo: the lab's record store could not be made (%s); the session is not "
+                   "indexed\n",
+                   err.c_str());
+      return false;
+    }
+    log_line(root, "made the store " + where.path + " for the demo (schema version " +
+                       std::to_string(store::known_schema_version()) + ")");
+    if (say)
+      std::printf("demo: made the lab's record store %s (`loadtrim history` lists the session afterwards)\n",
+                  where.path.c_str());
+    return true;
   } catch (const std::exception& e) {
     std::fprintf(stderr, "loadtrim demo: the lab's record store could not be made (%s)\n", e.what());
     return false;
   }
-}
-
-static bool make_demo_store(const record::DataRoot& root, bool say) {
-  const store::StorePath where = store::find_store_path("", root.path);
-  std::error_code ec;
-  if (!where.ok() || !where.data_root_default || fs::exists(where.path, ec)) return true;
-  std::string err;
-  auto s = store::open_sqlite(where.path, store::OpenMode::migrate, err, kBusyTimeoutMs);
-  std::vector<std::string> applied;
-  if (!s || !s->migrate(err, &applied)) {
-    std::fprintf(stderr,
-                 "loadtrim demo: the lab's record store could not be made (%s); the session is not "
-                 "indexed\n",
-                 err.c_str());
-    return false;
-  }
-  log_line(root, "made the store " + where.path + " for the demo (schema version " +
-                     std::to_string(store::known_schema_version()) + ")");
-  if (say)
-    std::printf("demo: made the lab's record store %s (`loadtrim history` lists the session afterwards)\n",
-                where.path.c_str());
-  return true;
 }
 
 void index_finished_folder(const record::DataRoot& root, const std::string& folder, const std::string& what,

@@ -77,7 +77,8 @@ std::string create_session_folder(const std::string& root, const std::string& id
 
 bool write_durable(const std::string& path, const std::string& content, std::string& error) {
   const std::string tmp = path + ".tmp";
-  const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0644);
+  // Never through a symlink planted at the temporary name.
+  const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_NOFOLLOW | O_CLOEXEC, 0644);
   if (fd < 0) {
     error = "cannot create " + tmp + ": " + std::strerror(errno);
     return false;

@@ -45,35 +45,6 @@ std::string entry_name(const std::string& folder) {
   return n + "-" + record::sha256_hex(folder).substr(0, 16) + ".json";
 }
 
-bool write_whole(const std::string& path, const std::string& text, std::string& error) {
-  const std::string tmp = path + ".tmp";
-  const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_NOFOLLOW | O_CLOEXEC, 0644);
-  if (fd < 0) {
-    error = tmp + ": " + std::strerror(errno);
-    return false;
-  }
-  std::size_t done = 0;
-  while (done < text.size()) {
-    const ssize_t n = ::write(fd, text.data() + done, text.size() - done);
-    if (n < 0 && errno == EINTR) continue;
-    if (n <= 0) {
-      error = tmp + ": " + std::strerror(errno);
-      ::close(fd);
-      ::unlink(tmp.c_str());
-      return false;
-    }
-    done += static_cast<std::size_t>(n);
-  }
-  const bool synced = ::fsync(fd) == 0;
-  ::close(fd);
-  if (!synced || ::rename(tmp.c_str(), path.c_str()) != 0) {
-    error = path + ": " + std::strerror(errno);
-    ::unlink(tmp.c_str());
-    return false;
-  }
-  return true;
-}
-
 struct Entry {
   std::string file, folder, what, queued_utc, error;
 };
@@ -177,7 +148,7 @@ bool enqueue(const std::string& data_root, const std::string& folder, const std:
         "the folder's path is not UTF-8 text, so it cannot be queued: index it with `loadtrim store import`";
     return false;
   }
-  return write_whole(path, text + "\n", error);
+  return record::write_durable(path, text + "\n", error);
 }
 
 std::vector<std::string> queued_entries(const std::string& data_root) {
@@ -221,8 +192,7 @@ DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
   }
   const std::vector<std::string> files = queued_entries(data_root);
   std::unique_ptr<Store> store;
-  std::size_t i = 0;
-  for (; i < files.size(); ++i) {
+  for (std::size_t i = 0; i < files.size(); ++i) {
     if (std::chrono::steady_clock::now() >= deadline) {
       out.messages.push_back("the time for indexing is up: " + std::to_string(files.size() - i) +
                              " left in the queue for the next time");
@@ -261,9 +231,9 @@ DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
         out.store_ok = false;
         out.messages.push_back("store unavailable (" + r.message + "): " + std::to_string(files.size() - i) +
                                " kept in the queue");
-        i = files.size();
         break;
     }
+    if (!out.store_ok) break;
   }
   out.remaining = static_cast<int>(queued_entries(data_root).size());
   return out;
