@@ -363,6 +363,9 @@ void register_store_commands(CLI::App& app, Runner& run) {
   ben->add_option("--sessions", bench->sessions, "how many invented sessions")
       ->check(CLI::Range(100, 1000000))
       ->capture_default_str();
+  ben->add_option("--postgresql", bench->postgresql,
+                  "also run it on this PostgreSQL server (a libpq connection string), in two scratch schemas "
+                  "it creates and drops (loadtrim_bench_*); nothing else there is touched");
   ben->callback([bench, &run] { run = [bench] { return store_bench(*bench); }; });
 
   auto* his =

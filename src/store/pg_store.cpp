@@ -157,6 +157,9 @@ class PgStore final : public Store {
     if (!schema_.empty() && schema_ != "public") where_ += " (schema " + schema_ + ")";
   }
 
+  // A text of statements without parameters, for pg_bench_schema (whose names are checked there).
+  void run_script(const std::string& sql) { script(sql); }
+
   int schema_version(std::string& error) override {
     try {
       return version();
@@ -625,9 +628,12 @@ bool describe_conninfo(const std::string& conninfo, std::string& server, std::st
   return true;
 }
 
-std::unique_ptr<Store> open_postgresql(const std::string& conninfo, OpenMode mode, std::string& error,
-                                       const PgTimeouts& timeouts) {
-  std::string server;
+namespace {
+
+// Connects with our deadlines (connect_timeout unless the string names one): the connection, with `server`
+// as libpq connected to it, or nullptr with a sentence in `error` naming the server.
+PGconn* connect(const std::string& conninfo, const PgTimeouts& timeouts, std::string& server,
+                std::string& error) {
   if (!describe_conninfo(conninfo, server, error)) return nullptr;
   bool has_timeout = false;
   {
@@ -661,6 +667,25 @@ std::unique_ptr<Store> open_postgresql(const std::string& conninfo, OpenMode mod
   const char* p = PQport(c);
   const char* d = PQdb(c);
   server = std::string("postgresql://") + (h ? h : "") + ":" + (p ? p : "") + "/" + (d ? d : "");
+  return c;
+}
+
+// A bench schema name: loadtrim_bench_ and then lower-case letters, digits and _ only.
+bool is_bench_schema_name(const std::string& name) {
+  const std::string prefix = "loadtrim_bench_";
+  if (name.rfind(prefix, 0) != 0 || name.size() == prefix.size() || name.size() > 63) return false;
+  for (char ch : name)
+    if (!((ch >= 'a' && ch <= 'z') || (ch >= '0' && ch <= '9') || ch == '_')) return false;
+  return true;
+}
+
+}  // namespace
+
+std::unique_ptr<Store> open_postgresql(const std::string& conninfo, OpenMode mode, std::string& error,
+                                       const PgTimeouts& timeouts) {
+  std::string server;
+  PGconn* c = connect(conninfo, timeouts, server, error);
+  if (!c) return nullptr;
   auto store = std::make_unique<PgStore>(c, server, timeouts);
   try {
     store->configure();
@@ -686,6 +711,32 @@ std::unique_ptr<Store> open_postgresql(const std::string& conninfo, OpenMode mod
     return nullptr;
   }
   return store;
+}
+
+bool pg_bench_schema(const std::string& conninfo, const std::string& name, bool create, std::string& error) {
+  if (!is_bench_schema_name(name)) {
+    error = "\"" + name + "\" is not a bench schema name (loadtrim_bench_ then a-z, 0-9 or _; at most 63)";
+    return false;
+  }
+  std::string server;
+  PGconn* c = connect(conninfo, PgTimeouts{}, server, error);
+  if (!c) return false;
+  PgStore s(c, server, PgTimeouts{});
+  try {
+    s.configure();
+    // An identifier cannot be a bound parameter: the name was checked above to hold nothing but a-z, 0-9, _.
+    s.run_script(create ? "CREATE SCHEMA " + name : "DROP SCHEMA IF EXISTS " + name + " CASCADE");
+  } catch (const std::exception& e) {
+    error = server + ": " + (create ? "cannot create schema " : "cannot drop schema ") + name + ": " + e.what();
+    return false;
+  }
+  return true;
+}
+
+std::string pg_conninfo_with_schema(const std::string& conninfo, const std::string& name) {
+  if (is_postgresql_uri(conninfo))
+    return conninfo + (conninfo.find('?') == std::string::npos ? "?" : "&") + "options=-csearch_path%3D" + name;
+  return conninfo + " options='-csearch_path=" + name + "'";
 }
 
 }  // namespace loadtrim::store

@@ -40,4 +40,13 @@ bool describe_conninfo(const std::string& conninfo, std::string& server, std::st
 std::unique_ptr<Store> open_postgresql(const std::string& conninfo, OpenMode mode, std::string& error,
                                        const PgTimeouts& timeouts = {});
 
+// The store bench's scratch schemas (`loadtrim store bench --postgresql`, docs/performance.md): creates schema
+// `name` on the server, or drops it with everything in it. Only a name loadtrim_bench_ followed by a-z, 0-9 or
+// _ is accepted (an identifier cannot be a bound parameter, so nothing else is ever written into the SQL);
+// nothing else on the server is touched. False with a sentence naming the server in `error`.
+bool pg_bench_schema(const std::string& conninfo, const std::string& name, bool create, std::string& error);
+// The connection string with its search_path set to schema `name` (libpq's `options`, added last so that it
+// replaces one the string gives), for open_postgresql.
+std::string pg_conninfo_with_schema(const std::string& conninfo, const std::string& name);
+
 }  // namespace loadtrim::store
