@@ -398,6 +398,21 @@ int run_bench(BenchOptions o) {
   // at acceptance; measured for the default first setting (the loss map) only.
   core::Profile iterative_require = iterative;
   iterative_require.warm_up.drift_rule = core::WarmUp::DriftRule::require;
+  // The iterative profile with a stability-ended warm-up (lab policy; the road rule is "at least 20 minutes
+  // until stable" and the dyno-side wording is not known: docs/standards.md §3): at least kStableMinS at the
+  // warm-up speed, then until the warming curve across the 60 s windows says less than the profile's drift
+  // threshold is still to come (stable_by "trend", docs/standards.md §3.12), at most the profile's 20 minutes
+  // in all; measured for the loss map with the drift rule "warn", against the iterative standard's fixed
+  // 20-minute warm-up (issue 17's total-cell-time goal).
+  constexpr double kStableMinS = 300.0;  // lab policy for the bench, no source
+  core::Profile iterative_stable = iterative;
+  iterative_stable.warm_up.max_extra_s = std::max(0.0, iterative.warm_up.duration_s - kStableMinS);
+  iterative_stable.warm_up.duration_s = kStableMinS;
+  iterative_stable.warm_up.stable_within_n = iterative.warm_up.drift_threshold_n;
+  iterative_stable.warm_up.stable_window_s = 60.0;
+  iterative_stable.warm_up.stable_by = core::WarmUp::StableBy::trend;
+  core::Profile iterative_stable_require = iterative_stable;
+  iterative_stable_require.warm_up.drift_rule = core::WarmUp::DriftRule::require;
   struct Method {
     std::string key;
     const core::Profile* profile;
@@ -405,7 +420,9 @@ int run_bench(BenchOptions o) {
   };
   const std::vector<Method> methods = {{"iterative", &iterative, {0, 1, 2, 3}},
                                        {"fixed-run", &fixed, {0, 1, 2, 3}},
-                                       {"iterative-require", &iterative_require, {2}}};
+                                       {"iterative-require", &iterative_require, {2}},
+                                       {"iterative-stable-warm-up", &iterative_stable, {2}},
+                                       {"iterative-stable-warm-up-require", &iterative_stable_require, {2}}};
   std::size_t sessions_run = 0;
   for (const auto& m : methods)
     for (std::size_t s : m.strategies) sessions_run += fleet_v.size() * (strategies[s].history ? 2 : 1);
@@ -525,12 +542,16 @@ int run_bench(BenchOptions o) {
   for (std::size_t m = 0; m < methods.size(); ++m) {
     const core::Profile& prof = *methods[m].profile;
     const double tol = prof.tolerance_n;
-    std::printf(
-        "%s method (%s%s); failed sessions count as the limit of %d coast-downs\n",
-        core::to_string(prof.method), prof.name.c_str(),
-        prof.warm_up.drift_rule == core::WarmUp::DriftRule::require
-            ? ", drift rule \"require\": a stable vehicle at acceptance; vs standard: the iterative one"
-            : "",
+    const bool stable_end = prof.warm_up.stable_within_n > 0.0,
+               require = prof.warm_up.drift_rule == core::WarmUp::DriftRule::require;
+    const std::string note =
+        std::string(stable_end ? ", warm-up ended on stability: at least 5 min, then until the warming trend "
+                                 "says less than the drift threshold is to come, at most 20 min"
+                               : "") +
+        (require ? ", drift rule \"require\": a stable vehicle at acceptance" : "") +
+        (stable_end || require ? "; vs standard: the iterative one with its fixed 20 min" : "");
+    std::printf("%s method (%s%s); failed sessions count as the limit of %d coast-downs\n",
+                core::to_string(prof.method), prof.name.c_str(), note.c_str(),
         prof.max_coastdowns);
     std::printf(
         "  %-9s %5s %6s | coast-downs      | at 2   | cell minutes  | after warm-up | vs standard (median)\n",
@@ -742,11 +763,31 @@ int run_bench(BenchOptions o) {
         "loss "
         "map)   measured %.1f %% less (negative: more)   %s\n",
         100 * (1 - after), yes(after <= 0.70));
+    // The stability-ended warm-up's total against the iterative standard's (fixed 20-minute warm-up), and
+    // what the truth says of the settings it accepts; with the drift rule "warn" and "require".
     std::printf(
-        "  total cell time >= 30 %% less where the profile allows a stability-ended warm-up   not measured "
-        "(the "
-        "bench's profiles hold a fixed 20-minute warm-up; total measured %.1f %% less)   %s\n",
-        100 * (1 - total), yes(false));
+        "  total cell time >= 30 %% less where the profile allows a stability-ended warm-up (iterative, loss "
+        "map; with the fixed warm-up: %.1f %% less, truly outside fully warm %.2f %%)\n",
+        100 * (1 - total), 100 * lm["truly_outside_fully_warm_share"].get<double>());
+    bool stable_met = false;
+    for (const char* key : {"iterative-stable-warm-up", "iterative-stable-warm-up-require"}) {
+      const auto& sw = mr[key]["loss-map"];
+      const double st_total = sw["ratio_cell_time_vs_standard"];
+      const double not_accepted = sw["failed"].get<double>() / sw["n"].get<double>();
+      // Met only when the time is saved without giving up acceptance: the sessions it accepts are truly
+      // within tolerance at the last coast-down as often as the goal above asks of every method.
+      const double out_last = sw["truly_outside_last_coastdown_share"];
+      const bool met = st_total <= 0.70 && out_last <= (harsh ? 0.01 : 0.001);
+      stable_met = stable_met || met;
+      std::printf(
+          "    drift rule %-7s measured %.1f %% less (negative: more); warm-up median %.1f min; %.1f %% not "
+          "accepted; truly outside at the last coast-down %.2f %%, fully warm %.2f %%   %s\n",
+          std::string(key).ends_with("require") ? "require" : "warn", 100 * (1 - st_total),
+          sw["split_min_median"]["warm_up"].get<double>(), 100 * not_accepted, 100 * out_last,
+          100 * sw["truly_outside_fully_warm_share"].get<double>(), yes(met));
+      report["goals"]["total_30pct_less_stability_ended_warm_up"][key] = {{"ratio", st_total}, {"met", met}};
+    }
+    (void)stable_met;
     int unstated = 0;
     for (std::size_t m = 0; m < methods.size(); ++m)
       for (std::size_t s : methods[m].strategies)

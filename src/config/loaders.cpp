@@ -68,6 +68,9 @@ core::Profile read_profile(TomlReader& r) {
   p.warm_up.stable_window_s =
       r.number_or("warm_up.stable_window_s", p.warm_up.stable_window_s, 5.0, 1200.0, "s");
   p.warm_up.max_extra_s = r.number_or("warm_up.max_extra_s", p.warm_up.max_extra_s, 0.0, 7200.0, "s");
+  p.warm_up.stable_by = r.choice("warm_up.stable_by", {"windows", "trend"}, std::string("windows")) == "trend"
+                            ? core::WarmUp::StableBy::trend
+                            : core::WarmUp::StableBy::windows;
   if (r.has("loss_map.speeds_kmh"))
     p.loss_map.speeds_kmh = r.numbers("loss_map.speeds_kmh", 5.0, 250.0, "km/h");
   p.loss_map.settle_s = r.number_or("loss_map.settle_s", p.loss_map.settle_s, 0.5, 120.0, "s");

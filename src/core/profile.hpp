@@ -42,9 +42,15 @@ struct InitialSettingRule {
 struct WarmUp {
   double speed_kmh = 80.0;
   double duration_s = 1200.0;
-  double stable_within_n = 0.0;  // > 0: continue until the hold force changes less than this between windows
+  double stable_within_n = 0.0;  // > 0: continue until stable, judged as stable_by says
   double stable_window_s = 60.0;
   double max_extra_s = 600.0;  // ...for at most this much longer
+  // How "stable" is judged (lab policy, docs/standards.md §3.12): `windows`, the mean hold force of the last
+  // window differs from the one before by less than stable_within_n; `trend`, the warming curve fitted across
+  // the hold windows so far (warm_up_drift.hpp) says less than stable_within_n is still to come at the warm-up
+  // speed (a fit that is not ok, or whose τ is not resolved, is not stable).
+  enum class StableBy { windows, trend };
+  StableBy stable_by = StableBy::windows;
   // The drift still to come at acceptance (docs/standards.md §3.12, lab policy): "warn" accepts with a
   // finding when it is above drift_threshold_n; "require" keeps coasting at the accepted setting until it is
   // below (within the coast-down limit).

@@ -360,9 +360,18 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
           sum = 0.0;
           n = 0;
           window_start = s.time_s;
-          if (window_means.size() >= 2 && w.stable_within_n > 0.0 &&
-              std::abs(window_means.back() - window_means[window_means.size() - 2]) < w.stable_within_n)
-            stable = true;
+          // The latest window's verdict (not latched: an early window that looked stable does not end a
+          // warm-up that has since moved).
+          if (w.stable_within_n > 0.0) {
+            if (w.stable_by == core::WarmUp::StableBy::trend) {
+              // The warming curve across every hold window since motoring began (docs/standards.md §3.12).
+              const core::WarmUpCurve c = core::fit_warm_up_curve(drift_points_);
+              stable = c.ok && !c.tau_at_bound && c.remaining_drift_n(s.time_s - drift_t0_) < w.stable_within_n;
+            } else {
+              stable = window_means.size() >= 2 &&
+                       std::abs(window_means.back() - window_means[window_means.size() - 2]) < w.stable_within_n;
+            }
+          }
         }
         const double held = s.time_s - t0;
         return held >= duration_s && (stable || held >= duration_s + w.max_extra_s);
