@@ -252,6 +252,17 @@ TEST(SessionUnit, ALateFirstCoastDownIsRepeatedOrKeptWithAFindingAsTheProfileSay
   }
 }
 
+namespace {
+// The demo truth starting cold and warming slowly: cold excess 1.0 of the spin loss, τ = 400 s.
+physics::Truth slowly_warming_truth() {
+  physics::Truth t = loadtrim::testing::demo_truth();
+  t.vehicle.drivetrain_cold_excess = 1.0;
+  t.vehicle.warm_up_time_constant_s = 400.0;
+  t.vehicle.initial_warmth = 0.0;
+  return t;
+}
+}  // namespace
+
 TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
   // docs/standards.md §3.12 (lab policy): the warm-up hold windows are fitted with F∞ + A·exp(−t/τ)
   // (first-order warming) and the drift still to come is judged when a setting is about to be accepted. The
@@ -261,11 +272,7 @@ TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
   // finding on page one; "require": coasting goes on at the accepted setting until the estimate is under the
   // threshold.
   for (const auto rule : {core::WarmUp::DriftRule::warn, core::WarmUp::DriftRule::require}) {
-    physics::Truth t = loadtrim::testing::demo_truth();
-    t.vehicle.drivetrain_cold_excess = 1.0;
-    t.vehicle.warm_up_time_constant_s = 400.0;
-    t.vehicle.initial_warmth = 0.0;
-    FakeController c(t);
+    FakeController c(slowly_warming_truth());
     Recorder record(true);
     std::vector<session::ev::WarmUpDrift> drifts;
     Hook hook([&](const session::Event& e) {
@@ -317,11 +324,7 @@ TEST(SessionUnit, AWarmUpEndedOnTheWarmingTrendWaitsForTheDriftAWindowRuleMisses
   double held[2] = {0.0, 0.0};
   std::string stability[2];
   for (int k = 0; k < 2; ++k) {
-    physics::Truth t = loadtrim::testing::demo_truth();
-    t.vehicle.drivetrain_cold_excess = 1.0;
-    t.vehicle.warm_up_time_constant_s = 400.0;
-    t.vehicle.initial_warmth = 0.0;
-    FakeController c(t);
+    FakeController c(slowly_warming_truth());
     Recorder record(true);
     Hook hook([&](const session::Event& e) {
       if (const auto* h = std::get_if<session::ev::WarmUpHeld>(&e.payload)) {
