@@ -411,6 +411,12 @@ int run_bench(BenchOptions o) {
   iterative_stable.warm_up.stable_within_n = iterative.warm_up.drift_threshold_n;
   iterative_stable.warm_up.stable_window_s = 60.0;
   iterative_stable.warm_up.stable_by = core::WarmUp::StableBy::trend;
+  // The iterative profile with the guard-band decision rule (docs/standards.md §3.11, lab
+  // policy): a coast-down passes only when |deviation| + k·u <= tolerance, k = 2; a lever against acceptances
+  // that the truth finds outside tolerance.
+  core::Profile iterative_guard = iterative;
+  iterative_guard.decision_rule.kind = core::DecisionRule::Kind::guard_band;
+  iterative_guard.decision_rule.coverage_k = 2.0;
   core::Profile iterative_stable_require = iterative_stable;
   iterative_stable_require.warm_up.drift_rule = core::WarmUp::DriftRule::require;
   struct Method {
@@ -422,7 +428,8 @@ int run_bench(BenchOptions o) {
                                        {"fixed-run", &fixed, {0, 1, 2, 3}},
                                        {"iterative-require", &iterative_require, {2}},
                                        {"iterative-stable-warm-up", &iterative_stable, {2}},
-                                       {"iterative-stable-warm-up-require", &iterative_stable_require, {2}}};
+                                       {"iterative-stable-warm-up-require", &iterative_stable_require, {2}},
+                                       {"iterative-guard-band", &iterative_guard, {2}}};
   std::size_t sessions_run = 0;
   for (const auto& m : methods)
     for (std::size_t s : m.strategies) sessions_run += fleet_v.size() * (strategies[s].history ? 2 : 1);
@@ -543,13 +550,15 @@ int run_bench(BenchOptions o) {
     const core::Profile& prof = *methods[m].profile;
     const double tol = prof.tolerance_n;
     const bool stable_end = prof.warm_up.stable_within_n > 0.0,
-               require = prof.warm_up.drift_rule == core::WarmUp::DriftRule::require;
+               require = prof.warm_up.drift_rule == core::WarmUp::DriftRule::require,
+               guard = prof.decision_rule.kind == core::DecisionRule::Kind::guard_band;
     const std::string note =
         std::string(stable_end ? ", warm-up ended on stability: at least 5 min, then until the warming trend "
                                  "says less than the drift threshold is to come, at most 20 min"
                                : "") +
         (require ? ", drift rule \"require\": a stable vehicle at acceptance" : "") +
-        (stable_end || require ? "; vs standard: the iterative one with its fixed 20 min" : "");
+        (guard ? ", decision rule guard band: |deviation| + 2u <= tolerance" : "") +
+        (stable_end || require || guard ? "; vs standard: the iterative one" : "");
     std::printf("%s method (%s%s); failed sessions count as the limit of %d coast-downs\n",
                 core::to_string(prof.method), prof.name.c_str(), note.c_str(),
         prof.max_coastdowns);
