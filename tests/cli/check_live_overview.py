@@ -101,7 +101,7 @@ def main():
             if m:
                 url = m.group(1)
         expect("the check prints where its live page is", url is not None, out[-500:])
-        seen = {"what": None, "steps": set(), "points": 0, "results_before_end": 0, "running_url": None}
+        seen = {"what": None, "steps": set(), "points": 0, "results": [], "running_url": None}
         deadline = time.monotonic() + 120
         while url and p.poll() is None and time.monotonic() < deadline:
             code, body = get(url + "state", timeout=2)
@@ -111,8 +111,8 @@ def main():
                 if s["step"]:
                     seen["steps"].add(s["step"])
                 seen["points"] = max(seen["points"], len(s["trace"]["points"]))
-                if not s["finished"]:
-                    seen["results_before_end"] = max(seen["results_before_end"], len(s["results"]))
+                if len(s["results"]) >= len(seen["results"]):
+                    seen["results"] = s["results"]
             if seen["running_url"] is None:
                 c = cell_of(overview())
                 if c and c["state"] == "running" and c["running"]:
@@ -125,12 +125,22 @@ def main():
         expect("its page named the check's steps (%s)" % sorted(seen["steps"]),
                any(x.startswith("coast-down 1") for x in seen["steps"]) and len(seen["steps"]) >= 2, seen)
         expect("its page drew the coast's trace (%d points)" % seen["points"], seen["points"] >= 3, seen)
-        expect("the analysed result arrived on the page before the end", seen["results_before_end"] >= 1, seen)
         expect("meanwhile the overview showed the cell running, with the page's address (%s)" % seen["running_url"],
                url is not None and seen["running_url"] == url, seen)
         m = re.search(r"(?m)^folder: (.+)$", out)
         folder = m.group(1).strip() if m else None
         want = json.load(open(os.path.join(folder, "result.json"))) if folder else {}
+        analysed = []
+        if folder:
+            for line in open(os.path.join(folder, "events.jsonl")):
+                rec = json.loads(line)
+                if rec.get("type") == "analysed":
+                    analysed.append(rec)
+        rows = [len(r.get("rows", [])) for r in seen["results"]]
+        want_rows = [len((a.get("data") or a).get("intervals", [])) for a in analysed]
+        expect("the page showed each analysed record's rows as the record holds them (%s, record %s)" %
+               (rows, want_rows), analysed and rows == want_rows and all(n > 0 for n in rows),
+               json.dumps(seen["results"])[:600] + " / " + json.dumps(analysed)[:600])
         c = cell_of(overview())
         expect("afterwards the overview names the check's folder and its end (%s)" % want.get("end"),
                c is not None and c["check"] is not None and c["check"]["name"] == os.path.basename(folder or "?") and
@@ -138,6 +148,10 @@ def main():
                json.dumps(c)[:800])
         expect("and nothing runs on the cell", c is not None and c["state"] == "idle" and not c["running"], c)
 
+        # The session on a faster simulator (the check above ran at 20x so that its page could be read meanwhile).
+        sim.kill()
+        sim.wait()
+        sim, port = start_sim(ARGS.sim, ARGS.src, time_scale=100)
         r = subprocess.run([ARGS.exe, "run", "--cell", cell_file, "--target",
                             os.path.join(ARGS.src, "samples/targets/demo-hatchback.toml"), "--profile",
                             os.path.join(ARGS.src, "tests/data/wltp-iterative-short-warmup.toml"), "--port", str(port),
