@@ -1,6 +1,6 @@
 // The lab overview (issue 19, docs/live.md "The lab overview"): every cell's current or last session and dyno
-// check, from the lab's record store (Store::overview). `loadtrim overview` prints it once as text or JSON, or
-// serves it as a read-only, self-contained page with the live page's bind and token rules (live_page.hpp),
+// check, from the lab's record store (Store::overview). `loadtrim overview` prints it once as text or JSON,
+// or serves it as a read-only, self-contained page with the live page's bind and token rules (live_page.hpp),
 // refreshing itself. It reads the store only; it never talks to a dyno.
 #pragma once
 
