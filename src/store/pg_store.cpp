@@ -435,12 +435,14 @@ class PgStore final : public Store {
   bool note_running(const RunningEntry& e, bool& noted, std::string& error) override {
     try {
       // Every value is a bound parameter; CAST gives each its type (PostgreSQL must know it, and a parameter
-      // in a select list has none). Not noted when the folder is indexed already or noted before.
+      // in a select list has none). Not noted when the folder is indexed already; noted again (a resume),
+      // its start, page and time are the new ones.
       Rows r = run(R"SQL(INSERT INTO running (folder, what, name, cell, vehicle, kind, started_utc, live_url,
         noted_utc) SELECT CAST($1 AS TEXT), CAST($2 AS TEXT), CAST($3 AS TEXT), CAST($4 AS TEXT),
         CAST($5 AS TEXT), CAST($6 AS TEXT), CAST($7 AS TEXT), CAST($8 AS TEXT), CAST($9 AS TEXT)
         WHERE NOT EXISTS (SELECT 1 FROM sessions WHERE folder = CAST($1 AS TEXT)) AND NOT EXISTS
-        (SELECT 1 FROM checks WHERE folder = CAST($1 AS TEXT)) ON CONFLICT (folder) DO NOTHING
+        (SELECT 1 FROM checks WHERE folder = CAST($1 AS TEXT)) ON CONFLICT (folder) DO UPDATE
+        SET started_utc = excluded.started_utc, live_url = excluded.live_url, noted_utc = excluded.noted_utc
         RETURNING folder)SQL",
                    Params()
                        .text(e.folder)

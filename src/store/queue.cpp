@@ -265,7 +265,7 @@ DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
       out.messages.push_back(
           e.what == "ended" ? "ended without a seal " + e.folder + " (queued at " + e.queued_utc + ")"
           : noted ? "running " + e.running.what + " " + e.folder + " (queued at " + e.queued_utc + ")"
-                  : "not noted as running (indexed or noted before) " + e.folder);
+                  : "not noted as running (indexed before) " + e.folder);
       continue;
     }
     const IngestResult r = ingest_folder(*store, e.folder, options);

@@ -417,11 +417,12 @@ class SqliteStore final : public Store {
     try {
       Transaction t(db_);
       // Every value is a bound parameter. Not noted when the folder is indexed already (a start entry
-      // drained after its end's) or noted before (ON CONFLICT: sqlite's upsert, which needs the WHERE).
+      // drained after its end's); noted again (a resume) its start, page and time are the new ones (ON
+      // CONFLICT: sqlite's upsert, which needs the WHERE).
       Stmt ins(db_, R"SQL(INSERT INTO running (folder, what, name, cell, vehicle, kind, started_utc, live_url,
         noted_utc) SELECT ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9 WHERE NOT EXISTS (SELECT 1 FROM sessions WHERE
-        folder = ?1) AND NOT EXISTS (SELECT 1 FROM checks WHERE folder = ?1) ON CONFLICT (folder) DO
-        NOTHING)SQL");
+        folder = ?1) AND NOT EXISTS (SELECT 1 FROM checks WHERE folder = ?1) ON CONFLICT (folder) DO UPDATE
+        SET started_utc = excluded.started_utc, live_url = excluded.live_url, noted_utc = excluded.noted_utc)SQL");
       ins.text(1, e.folder)
           .text(2, e.what)
           .text(3, e.name)

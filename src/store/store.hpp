@@ -162,8 +162,9 @@ class Store {
 
   // --- the lab overview (docs/store.md "The lab overview"; schema step 3) ---
   // Notes a session or check that has started (a "started" queue entry): one row per folder, kept until the
-  // folder is indexed or an "ended" entry clears it. Not noted (`noted` false, no error) when the folder is
-  // indexed already or noted before: a late start entry never shows an indexed folder as running.
+  // folder is indexed or an "ended" entry clears it; noted again (a resume), it takes the new start, page and
+  // time. Not noted (`noted` false, no error) when the folder is indexed already: a late start entry never
+  // shows an indexed folder as running.
   virtual bool note_running(const RunningEntry& e, bool& noted, std::string& error) = 0;
   // Clears the folder's running row, if any (its end was queued without a seal to index).
   virtual bool clear_running(const std::string& folder, std::string& error) = 0;

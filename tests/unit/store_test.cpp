@@ -856,9 +856,9 @@ TEST_P(StoreTest, OverviewGivesEachCellsLatestSessionAndCheck) {
   EXPECT_TRUE(a->running.empty());
 }
 
-// The running rows: a start noted once; a second note of it and a note for an indexed folder (a start entry
-// drained after its end's) change nothing; an indexed folder's row is left out even if never cleared; an end
-// without a seal clears it.
+// The running rows: a start noted once (noted again, by a resume, it takes the new start and page); a note
+// for an indexed folder (a start entry drained after its end's) changes nothing; an indexed folder's row is
+// left out even if never cleared; an end without a seal clears it.
 TEST_P(StoreTest, OverviewShowsRunningEntriesUntilTheirEndIsIndexedOrCleared) {
   auto s = migrated();
   ASSERT_TRUE(s);
@@ -875,9 +875,16 @@ TEST_P(StoreTest, OverviewShowsRunningEntriesUntilTheirEndIsIndexedOrCleared) {
                                 ""};
   ASSERT_TRUE(s->note_running(run, noted, err)) << err;
   EXPECT_TRUE(noted);
-  ASSERT_TRUE(s->note_running(run, noted, err)) << err;
-  EXPECT_FALSE(noted) << "noted twice";
+  // Noted again (a resume of the folder): still one row, with the new start and page.
+  store::RunningEntry again = run;
+  again.started_utc = "2026-12-03T09:00:00.000Z";
+  again.live_url = "http://127.0.0.1:8081/";
+  ASSERT_TRUE(s->note_running(again, noted, err)) << err;
+  EXPECT_TRUE(noted);
   EXPECT_EQ(value("SELECT count(*) FROM running"), "1");
+  EXPECT_EQ(value("SELECT started_utc || ' ' || live_url FROM running"),
+            "2026-12-03T09:00:00.000Z http://127.0.0.1:8081/");
+  ASSERT_TRUE(s->note_running(run, noted, err)) << err;
 
   store::PutResult put;
   store::SessionEntry done = session_row("cell-A", "s1", "2026-12-01T08:00:00.000Z", true, 101.0);
