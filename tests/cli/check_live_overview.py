@@ -15,7 +15,7 @@ On one data root with a migrated SQLite store and an invented cell (a copy of th
 
 Usage: check_live_overview.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOURCE_DIR --workdir DIR
 """
-import argparse, json, os, re, shutil, subprocess, sys, time, urllib.error, urllib.request
+import argparse, json, os, re, shutil, subprocess, sys, threading, time, urllib.error, urllib.request
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "support"))
 from testlib import expect, finish, start_sim, env as testlib_env  # noqa: E402
@@ -102,6 +102,20 @@ def main():
                 url = m.group(1)
         expect("the check prints where its live page is", url is not None, out[-500:])
         seen = {"what": None, "steps": set(), "points": 0, "results": [], "running_url": None}
+        streamed = []  # every snapshot the page's stream sent (/events, server-sent events)
+
+        def read_stream():
+            try:
+                with urllib.request.urlopen(url + "events", timeout=30) as st:
+                    for raw in st:
+                        line = raw.decode("utf-8", "replace")
+                        if line.startswith("data: "):
+                            streamed.append(json.loads(line[6:]))
+            except (OSError, ValueError):
+                pass
+        reader = threading.Thread(target=read_stream, daemon=True)
+        if url:
+            reader.start()
         deadline = time.monotonic() + 120
         while url and p.poll() is None and time.monotonic() < deadline:
             code, body = get(url + "state", timeout=2)
@@ -120,6 +134,13 @@ def main():
             time.sleep(0.2)
         rest = p.communicate(timeout=120)[0]
         out += rest
+        if url:
+            reader.join(timeout=30)
+        # The stream sends each change as it comes (at most four a second): the analysed result is in a
+        # snapshot even when it came moments before the end, between two polls.
+        for snap in streamed:
+            if len(snap.get("results", [])) >= len(seen["results"]):
+                seen["results"] = snap["results"]
         expect("the check ended with a verdict (exit 0 or 1)", p.returncode in (0, 1), out[-800:])
         expect("its page said it is a check", seen["what"] == "check", seen)
         expect("its page named the check's steps (%s)" % sorted(seen["steps"]),
