@@ -5,11 +5,13 @@
 
 #include <algorithm>
 #include <cstdio>
+#include <filesystem>
 #include <iostream>
 #include <memory>
 
 #include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
+#include "app/live_page.hpp"
 #include "app/notify.hpp"
 #include "app/session_runner.hpp"
 #include "app/store_hook.hpp"
@@ -60,6 +62,8 @@ struct CheckOptions {
   int port = 0;
   std::string device;
   bool unattended = false, accept_new_curve = false, json = false;
+  bool live = false;                      // --live: the read-only live page (docs/live.md)
+  std::string live_bind = "127.0.0.1:0";  // --live-bind; the token is LOADTRIM_LIVE_TOKEN
   record::DataRoot root;
 };
 
@@ -104,6 +108,7 @@ Loaded load(const CheckOptions& o) {
 int run_one(const CheckOptions& o) {
   core::CheckKind kind;
   if (!core::parse(o.kind, kind)) return kBadInput;
+  if (o.live && !live_bind_usable(o.live_bind)) return kBadInput;
   const Loaded l = load(o);  // throws InputError: nothing started
   // One procedure per cell: a busy cell is refused at once (the check's folder is not known yet: the lock
   // names the command and the pid).
@@ -143,13 +148,30 @@ int run_one(const CheckOptions& o) {
   // The steps as they happen, for the operator; --json keeps its one line (scripts read it).
   session::Console console(session::Console::Mode::normal);
   if (!o.json) req.observers.push_back(&console);
+  // The live page (docs/live.md): a view like the console, read-only; one that cannot bind is said and the
+  // check goes on without it.
+  std::unique_ptr<LivePage> live;
+  if (o.live) {
+    live = serve_live_page(o.live_bind, "loadtrim live: check " + o.kind + " on cell " + l.cell.name,
+                           kCheckCautions, o.json, "check");
+    if (live) req.observers.push_back(live.get());
+  }
+  // The lab overview learns that the check runs once its folder exists (docs/store.md "The lab overview").
+  RunningNote running;
+  req.on_folder = [&](const std::string& folder) {
+    running = RunningNote::start(o.root,
+                                 {"check", folder, std::filesystem::path(folder).filename().string(),
+                                  l.cell.name, "", o.kind, record::utc_now(), live ? live->url() : "", ""},
+                                 false);
+  };
   auto c = adapters::tool_registry().make_controller(l.cell);
   const checks::CheckResult r = checks::run_check(*c, req, &stop_flag());
   // A check that ran and was recorded is indexed in the lab's store, or queued for it (docs/store.md); a
   // folder the seal did not close is refused by the store's ingest and set aside, said on stderr.
-  if (!r.folder.empty() && r.end != checks::CheckResult::End::refused &&
-      r.end != checks::CheckResult::End::record_failure)
-    index_finished_folder(o.root, r.folder, "check", !o.json);
+  const bool indexed = !r.folder.empty() && r.end != checks::CheckResult::End::refused &&
+                       r.end != checks::CheckResult::End::record_failure;
+  running.end(indexed, !o.json);
+  if (indexed) index_finished_folder(o.root, r.folder, "check", !o.json);
   if (o.json) {
     std::printf("%s\n", nlohmann::json({{"type", "check"},
                                         {"check", o.kind},
@@ -311,6 +333,13 @@ void register_check_commands(CLI::App& app, Runner& run) {
                   "who runs it, for the record (default: the cell file's records.operator, else asked, else "
                   "the login name)");
     s->add_flag("--json", o->json, "print the result as one JSON line");
+    s->add_flag("--live", o->live,
+                "serve the read-only live status page while the check runs (docs/live.md; the address is "
+                "printed)");
+    s->add_option(
+        "--live-bind", o->live_bind,
+        "where the live page listens, HOST:PORT (port 0: any free port); not a loopback address only "
+        "with LOADTRIM_LIVE_TOKEN set");
     if (std::string(k.name) == "parasitic")
       s->add_flag(
           "--accept-new-curve", o->accept_new_curve,

@@ -7,8 +7,10 @@
 #include <atomic>
 #include <chrono>
 #include <condition_variable>
+#include <cstdio>
 #include <cstdlib>
 #include <deque>
+#include <iostream>
 #include <mutex>
 #include <nlohmann/json.hpp>
 #include <thread>
@@ -59,7 +61,8 @@ table{border-collapse:collapse;margin:.4em 0}td,th{border:1px solid #bbb;padding
 <p id="link">read-only page: it shows the session, it never commands the dyno. <span id="conn">connecting…</span></p>
 <h2>Coast-down <span id="trace-run">-</span>: speed over time</h2>
 <svg id="trace" width="720" height="260" viewBox="0 0 720 260" data-points="0"><polyline id="trace-line" fill="none" stroke="#1f4e9c" stroke-width="1.5" points=""/></svg>
-<h2>Deviations at the reference speeds</h2><div id="coastdowns">none yet</div>
+<div id="session-part"><h2>Deviations at the reference speeds</h2><div id="coastdowns">none yet</div></div>
+<div id="check-part" hidden><h2>Results as they come</h2><div id="results">none yet</div></div>
 <h2>What happened</h2><div id="lines"></div>
 <script>
 "use strict";
@@ -89,15 +92,33 @@ function tables(list){
     box.appendChild(tb);
   }
 }
+function num(v){ if(typeof v !== "number") return v === null || v === undefined ? "" : String(v);
+  return Math.abs(v) >= 100 || Number.isInteger(v) ? v.toFixed(Number.isInteger(v) ? 0 : 1) : v.toPrecision(4); }
+function results(list){
+  const box = $("results"); if(!list.length) return; box.textContent = "";
+  for(const r of list){
+    const h = document.createElement("p"); h.textContent = r.title + (r.verdict ? ": " + r.verdict : "");
+    if(r.passed !== null) h.className = r.passed ? "pass" : "fail"; box.appendChild(h);
+    if(!r.rows.length) continue;
+    const tb = document.createElement("table"); tb.className = "result"; const hr = tb.insertRow();
+    for(const k of r.columns){ const th=document.createElement("th"); th.textContent=k; hr.appendChild(th); }
+    for(const row of r.rows){ const tr = tb.insertRow();
+      for(const v of row){ const c = tr.insertCell(); c.textContent = typeof v === "boolean" ? (v ? "pass" : "FAIL") : num(v);
+        if(typeof v === "boolean") c.className = v ? "pass" : "fail"; } }
+    box.appendChild(tb);
+  }
+}
 function show(s){
   if(s.version === version) return; version = s.version;
   $("title").textContent = s.title; $("caution").textContent = s.cautions;
-  $("state").textContent = s.state_words + (s.finished ? " (" + s.result + ")" : "");
+  const check = s.what === "check";
+  $("session-part").hidden = check; $("check-part").hidden = !check;
+  $("state").textContent = (check && !s.finished && s.step ? s.step : s.state_words) + (s.finished ? " (" + s.result + ")" : "");
   $("state").setAttribute("data-state", s.state);
   $("run").textContent = s.coastdown ? String(s.coastdown) : "-";
   $("speed").textContent = s.speed_kmh.toFixed(1); $("left").textContent = s.finished ? "0:00:00" : fmt(s.remaining_s);
   $("celltime").textContent = fmt(s.cell_time_s);
-  draw(s.trace); tables(s.coastdowns);
+  draw(s.trace); if(check) results(s.results); else tables(s.coastdowns);
   const box = $("lines"); box.textContent = "";
   for(const l of s.lines){ const d = document.createElement("div"); d.textContent = l; box.appendChild(d); }
   box.scrollTop = box.scrollHeight;
@@ -111,10 +132,56 @@ es.onmessage = (m) => { try { show(JSON.parse(m.data)); } catch(e) {} };
 </script></body></html>
 )PAGE";
 
+// A dyno check's "analysed" record as the page shows it: a title, the pass and verdict when it has them, and
+// the rows of its first table (the parasitic curve's points, the coast-down's intervals, the inertia sets,
+// the rate runs, the response steps) with their plain members as columns.
+nlohmann::json result_rows(const nlohmann::json& j) {
+  nlohmann::json out = {
+      {"title", j.contains("run") && j["run"].is_number()
+                    ? "coast-down " + std::to_string(j["run"].get<int>())
+                    : std::string("result")},
+      {"passed", j.contains("passed") && j["passed"].is_boolean() ? j["passed"] : nlohmann::json()},
+      {"verdict", j.value("verdict", std::string())},
+      {"columns", nlohmann::json::array()},
+      {"rows", nlohmann::json::array()}};
+  for (const char* key : {"points", "intervals", "sets", "runs", "steps"}) {
+    if (!j.contains(key) || !j[key].is_array() || j[key].empty() || !j[key][0].is_object()) continue;
+    std::vector<std::string> columns;
+    for (const auto& [k, v] : j[key][0].items())
+      if (v.is_primitive() && k != "message" && k != "reason") columns.push_back(k);
+    for (const auto& c : columns) out["columns"].push_back(c);
+    for (const auto& row : j[key]) {
+      nlohmann::json r = nlohmann::json::array();
+      for (const auto& c : columns)
+        r.push_back(row.is_object() && row.contains(c) ? row[c] : nlohmann::json());
+      out["rows"].push_back(r);
+    }
+    break;
+  }
+  return out;
+}
+
+// Who may read a page (the live page, the overview): with a token, a request that carries it; without one
+// (loopback only), a request that names this host as loopback.
+bool request_allowed(const httplib::Request& req, const std::string& token) {
+  if (token.empty()) {
+    // Without a token the page is on loopback: a request must name this host as loopback (a web page
+    // elsewhere that rebinds its own name to 127.0.0.1 gets nothing).
+    const std::string h = req.get_header_value("Host");
+    const std::string name = h.substr(0, h.rfind(':'));
+    in_addr a{};
+    return name == "localhost" ||
+           (::inet_pton(AF_INET, name.c_str(), &a) == 1 && (ntohl(a.s_addr) >> 24) == 127);
+  }
+  if (req.has_param("token") && same_token(req.get_param_value("token"), token)) return true;
+  const std::string auth = req.get_header_value("Authorization");
+  return auth.rfind("Bearer ", 0) == 0 && same_token(auth.substr(7), token);
+}
+
 }  // namespace
 
 struct LivePage::Impl {
-  std::string host, token, title, cautions;
+  std::string host, token, title, cautions, what = "session";
   int port = 0;
   httplib::Server server;
   std::thread thread;
@@ -132,6 +199,8 @@ struct LivePage::Impl {
   int trace_run = 0;
   std::vector<std::pair<double, double>> trace;  // (cell time s, km/h) of the running or last coast-down
   nlohmann::json coastdowns = nlohmann::json::array();
+  std::string step;                                  // a check's step in words
+  nlohmann::json results = nlohmann::json::array();  // a check's analysed results, as they come
   session::TextContext text_context;
 
   std::string snapshot() {
@@ -142,6 +211,9 @@ struct LivePage::Impl {
     nlohmann::json ls = nlohmann::json::array();
     for (const auto& l : lines) ls.push_back(l);
     return nlohmann::json{{"version", version},
+                          {"what", what},
+                          {"step", step},
+                          {"results", results},
                           {"title", title},
                           {"cautions", cautions},
                           {"state", session::to_string(state)},
@@ -158,20 +230,7 @@ struct LivePage::Impl {
         .dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
   }
 
-  bool allowed(const httplib::Request& req) const {
-    if (token.empty()) {
-      // Without a token the page is on loopback: a request must name this host as loopback (a web page
-      // elsewhere that rebinds its own name to 127.0.0.1 gets nothing).
-      const std::string h = req.get_header_value("Host");
-      const std::string name = h.substr(0, h.rfind(':'));
-      in_addr a{};
-      return name == "localhost" ||
-             (::inet_pton(AF_INET, name.c_str(), &a) == 1 && (ntohl(a.s_addr) >> 24) == 127);
-    }
-    if (req.has_param("token") && same_token(req.get_param_value("token"), token)) return true;
-    const std::string auth = req.get_header_value("Authorization");
-    return auth.rfind("Bearer ", 0) == 0 && same_token(auth.substr(7), token);
-  }
+  bool allowed(const httplib::Request& req) const { return request_allowed(req, token); }
 };
 
 namespace {
@@ -196,6 +255,46 @@ bool parse_bind(const std::string& bind, std::string& host, int& port, bool& loo
   return true;
 }
 
+// The rules every page of ours follows: a request that request_allowed() refuses gets 401 before any route.
+void guard(httplib::Server& server, const std::string& token) {
+  server.set_pre_routing_handler([token](const httplib::Request& req, httplib::Response& res) {
+    if (request_allowed(req, token)) return httplib::Server::HandlerResponse::Unhandled;
+    res.status = 401;
+    res.set_content("this page needs its access token\n", "text/plain");
+    return httplib::Server::HandlerResponse::Handled;
+  });
+}
+
+void page_headers(httplib::Response& res) {
+  res.set_header("Cache-Control", "no-store");
+  res.set_header("X-Content-Type-Options", "nosniff");
+  res.set_header(
+      "Content-Security-Policy",
+      "default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; connect-src 'self'");
+}
+
+// Binds (port 0: any free port, then `port` is the one taken) and serves on a thread of its own.
+bool listen(httplib::Server& server, const std::string& host, int& port, const std::string& bind,
+            std::thread& thread, std::string& error) {
+  server.set_keep_alive_max_count(10);
+  // A connection that says nothing is dropped within a second, so that idle sockets cannot hold the end of a
+  // session (the server finishes the connections it has before it stops).
+  server.set_read_timeout(1, 0);
+  server.set_keep_alive_timeout(1);
+  if (port == 0) {
+    port = server.bind_to_any_port(host);
+    if (port <= 0) {
+      error = "the page could not bind to " + host;
+      return false;
+    }
+  } else if (!server.bind_to_port(host, port)) {
+    error = "the page could not bind to " + bind + " (in use, or not an address of this host)";
+    return false;
+  }
+  thread = std::thread([&server] { server.listen_after_bind(); });
+  return true;
+}
+
 }  // namespace
 
 LiveOptions live_options_for(const std::string& bind) {
@@ -217,29 +316,20 @@ bool check_live_options(const LiveOptions& options, std::string& error) {
 }
 
 std::unique_ptr<LivePage> LivePage::start(const LiveOptions& options, const std::string& title,
-                                          const std::string& cautions, std::string& error) {
+                                          const std::string& cautions, std::string& error,
+                                          const std::string& what) {
   auto impl = std::make_unique<Impl>();
   bool loopback = true;
   if (!check_live_options(options, error) ||
       !parse_bind(options.bind, impl->host, impl->port, loopback, error))
     return nullptr;
   impl->token = options.token;
+  impl->what = what;
   impl->title = title;
   impl->cautions = cautions;
   Impl* p = impl.get();
-  p->server.set_pre_routing_handler([p](const httplib::Request& req, httplib::Response& res) {
-    if (p->allowed(req)) return httplib::Server::HandlerResponse::Unhandled;
-    res.status = 401;
-    res.set_content("this live page needs its access token\n", "text/plain");
-    return httplib::Server::HandlerResponse::Handled;
-  });
-  auto headers = [](httplib::Response& res) {
-    res.set_header("Cache-Control", "no-store");
-    res.set_header("X-Content-Type-Options", "nosniff");
-    res.set_header(
-        "Content-Security-Policy",
-        "default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; connect-src 'self'");
-  };
+  guard(p->server, p->token);
+  const auto headers = page_headers;
   p->server.Get("/", [p, headers](const httplib::Request&, httplib::Response& res) {
     headers(res);
     // The page carries the state at the time it was served, so it shows the session before the stream's first
@@ -288,22 +378,7 @@ std::unique_ptr<LivePage> LivePage::start(const LiveOptions& options, const std:
         });
   });
   // Nothing else: no route changes anything (httplib answers other methods and paths with 404/405).
-  p->server.set_keep_alive_max_count(10);
-  // A connection that says nothing is dropped within a second, so that idle sockets cannot hold the end of a
-  // session (the server finishes the connections it has before it stops).
-  p->server.set_read_timeout(1, 0);
-  p->server.set_keep_alive_timeout(1);
-  if (p->port == 0) {
-    p->port = p->server.bind_to_any_port(p->host);
-    if (p->port <= 0) {
-      error = "the live page could not bind to " + p->host;
-      return nullptr;
-    }
-  } else if (!p->server.bind_to_port(p->host, p->port)) {
-    error = "the live page could not bind to " + options.bind + " (in use, or not an address of this host)";
-    return nullptr;
-  }
-  p->thread = std::thread([p] { p->server.listen_after_bind(); });
+  if (!listen(p->server, p->host, p->port, options.bind, p->thread, error)) return nullptr;
   return std::unique_ptr<LivePage>(new LivePage(std::move(impl)));
 }
 
@@ -357,6 +432,12 @@ bool LivePage::on_event(const session::Event& e) {
       impl_->finished = true;
       impl_->result = j.value("result", std::string());
     }
+    if (type == "analysed") impl_->results.push_back(result_rows(j));
+    if (type == "check_finished") {
+      impl_->finished = true;
+      impl_->state = session::State::finished;
+      impl_->result = j.value("end", std::string());
+    }
     impl_->lines.push_back(sentence);
     while (impl_->lines.size() > kMaxLines) impl_->lines.pop_front();
     ++impl_->version;
@@ -373,6 +454,7 @@ void LivePage::on_progress(const session::Progress& p) {
     impl_->speed_kmh = p.speed_kmh;
     impl_->cell_time_s = p.cell_time_s;
     impl_->remaining_s = p.remaining_estimate_s;
+    if (!p.step.empty()) impl_->step = p.step;
     if (p.state == session::State::coast_down) {
       if (impl_->trace_run != p.coastdown) {
         impl_->trace_run = p.coastdown;
@@ -385,6 +467,78 @@ void LivePage::on_progress(const session::Progress& p) {
     ++impl_->version;
   }
   impl_->changed.notify_all();
+}
+
+bool live_bind_usable(const std::string& bind) {
+  std::string err;
+  if (check_live_options(live_options_for(bind), err)) return true;
+  std::cerr << "--live-bind: " << err << "\nrefused: nothing was started.\n";
+  return false;
+}
+
+std::unique_ptr<LivePage> serve_live_page(const std::string& bind, const std::string& title,
+                                          const std::string& cautions, bool json, const std::string& what) {
+  std::string err;
+  const LiveOptions options = live_options_for(bind);
+  auto live = LivePage::start(options, title, cautions, err, what);
+  if (!live) {
+    std::cerr << "loadtrim: the live page is not served: " << err << " (the " << what << " goes on)\n";
+    return nullptr;
+  }
+  if (json)
+    std::printf("%s\n", nlohmann::json({{"type", "live_page"}, {"url", live->url()}}).dump().c_str());
+  else
+    std::printf("live page: %s (read-only; open it in a browser on this computer%s)\n", live->url().c_str(),
+                options.token.empty() ? "" : ", with ?token=...");
+  std::fflush(stdout);
+  return live;
+}
+
+// --- the lab overview's page ---
+struct OverviewServer::Impl {
+  std::string host;
+  int port = 0;
+  httplib::Server server;
+  std::thread thread;
+  std::mutex mutex;  // one store read at a time
+};
+
+std::unique_ptr<OverviewServer> OverviewServer::start(const LiveOptions& options, Page page,
+                                                      std::string& error) {
+  auto impl = std::make_unique<Impl>();
+  bool loopback = true;
+  if (!check_live_options(options, error) ||
+      !parse_bind(options.bind, impl->host, impl->port, loopback, error))
+    return nullptr;
+  Impl* p = impl.get();
+  guard(p->server, options.token);
+  auto answer = [p, page](bool json, httplib::Response& res) {
+    page_headers(res);
+    std::pair<int, std::string> r;
+    {
+      std::lock_guard<std::mutex> lock(p->mutex);
+      r = page(json);
+    }
+    res.status = r.first;
+    res.set_content(r.second, json ? "application/json" : "text/html; charset=utf-8");
+  };
+  p->server.Get("/", [answer](const httplib::Request&, httplib::Response& res) { answer(false, res); });
+  p->server.Get("/overview.json",
+                [answer](const httplib::Request&, httplib::Response& res) { answer(true, res); });
+  // Nothing else: no route changes anything.
+  if (!listen(p->server, p->host, p->port, options.bind, p->thread, error)) return nullptr;
+  return std::unique_ptr<OverviewServer>(new OverviewServer(std::move(impl)));
+}
+
+OverviewServer::OverviewServer(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
+
+OverviewServer::~OverviewServer() {
+  impl_->server.stop();
+  if (impl_->thread.joinable()) impl_->thread.join();
+}
+
+std::string OverviewServer::url() const {
+  return "http://" + impl_->host + ":" + std::to_string(impl_->port) + "/";
 }
 
 }  // namespace loadtrim::app

@@ -312,24 +312,20 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   // session goes on without it (its address and token were checked before anything started).
   std::unique_ptr<LivePage> live;
   if (req.live) {
-    std::string err;
-    const LiveOptions options = live_options_for(req.live_bind);
-    live = LivePage::start(
-        options,
+    live = serve_live_page(
+        req.live_bind,
         "loadtrim live: session " + fs::path(folder).filename().string() + " on cell " + inputs.cell.name,
-        std::string(req.simulator ? "Simulated controller: no rollers move.\n" : "") + kCautions, err);
-    if (!live)
-      std::cerr << "loadtrim: the live page is not served: " << err << " (the session goes on)\n";
-    else {
-      observers.push_back(live.get());
-      if (req.console == session::Console::Mode::json)
-        std::printf("%s\n", nlohmann::json({{"type", "live_page"}, {"url", live->url()}}).dump().c_str());
-      else
-        std::printf("live page: %s (read-only; open it in a browser on this computer%s)\n",
-                    live->url().c_str(), options.token.empty() ? "" : ", with ?token=...");
-      std::fflush(stdout);
-    }
+        std::string(req.simulator ? "Simulated controller: no rollers move.\n" : "") + kCautions,
+        req.console == session::Console::Mode::json);
+    if (live) observers.push_back(live.get());
   }
+  // The lab overview learns that the session runs (docs/store.md "The lab overview"): a start entry in the
+  // queue, drained on a thread of its own; the session never waits for the store.
+  RunningNote running = RunningNote::start(
+      lab.root,
+      {"session", folder, fs::path(folder).filename().string(), inputs.cell.name, inputs.vehicle.id,
+       core::to_string(inputs.profile.method), record::utc_now(), live ? live->url() : std::string(), ""},
+      req.simulator);
   // A test hook (as LOADTRIM_TEST_FAIL_WRITES_AFTER): freeze the session's own thread at the named event, to
   // show that a stalled tool lets the controller's watchdog stop the rollers (docs/safety.md).
   std::optional<FreezeForTest> freezer;
@@ -368,6 +364,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
       sum.rollers_stopped) {
     std::error_code ec;
     fs::remove_all(folder, ec);
+    running.end(false, false);
     std::cerr
         << "loadtrim: the controller was never reached (" << sum.stop_reason
         << "): nothing was moved or measured, "
@@ -393,7 +390,9 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
     std::printf("report: %s\n", rep.html.c_str());
   if (req.console != session::Console::Mode::json) std::printf("session folder: %s\n", folder.c_str());
   // Indexed in the lab's store (or queued for it) once sealed; never changes the result (docs/store.md).
-  if (session::is_final(sum.outcome) && sum.outcome != session::Outcome::record_failure)
+  const bool indexed = session::is_final(sum.outcome) && sum.outcome != session::Outcome::record_failure;
+  running.end(indexed, req.console == session::Console::Mode::normal);
+  if (indexed)
     index_finished_folder(lab.root, folder, "session", req.console == session::Console::Mode::normal,
                           req.simulator);
   if (sum.outcome == session::Outcome::record_failure && !writer.error().empty())
@@ -668,10 +667,7 @@ bool cell_log_intact(const RunRequest& req, const controller::CellConfig& cell) 
 }
 
 static bool live_options_ok(const RunRequest& req) {
-  std::string err;
-  if (!req.live || check_live_options(live_options_for(req.live_bind), err)) return true;
-  std::cerr << "--live-bind: " << err << "\nrefused: nothing was started.\n";
-  return false;
+  return !req.live || live_bind_usable(req.live_bind);
 }
 
 int run_new_session(const RunRequest& request, std::string* folder_out) {

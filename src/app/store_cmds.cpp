@@ -2,19 +2,25 @@
 // (docs/store.md). Thin: src/store opens the store, reads and verifies the folders and answers the questions;
 // the exit codes are here, with the other commands' (README, "Exit codes").
 #include <algorithm>
+#include <chrono>
 #include <cstdio>
 #include <filesystem>
 #include <memory>
 #include <nlohmann/json.hpp>
 #include <optional>
 #include <string>
+#include <thread>
 #include <vector>
 
 #include "app/exit_codes.hpp"
+#include "app/live_page.hpp"
+#include "app/overview.hpp"
+#include "app/session_runner.hpp"
 #include "app/store_bench.hpp"
 #include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
 #include "record/data_root.hpp"
+#include "record/session_folder.hpp"
 #include "record/verify.hpp"
 #include "store/index.hpp"
 #include "store/pg_store.hpp"
@@ -35,6 +41,10 @@ struct StoreArgs {
   std::vector<std::string> folders;
   std::string vehicle, cell, since;
   bool csv = false, json = false, queued = false;
+  // overview
+  std::string format, bind = "127.0.0.1:0";
+  int refresh_s = 10;
+  double stale_after_h = kDefaultStaleAfterS / 3600.0;
 };
 
 // Where the lab's data and the store are. False (with the message printed) when they cannot be resolved.
@@ -324,6 +334,82 @@ void verify_options_cli(CLI::App* sub, StoreArgs& a) {
       ->check(CLI::ExistingFile);
 }
 
+// --- `loadtrim overview` (docs/live.md "The lab overview") ---
+// The view read now; false with the store's sentence.
+bool read_overview(store::Store& s, const StoreArgs& a, OverviewView& v, std::string& err) {
+  v.store = s.location();
+  v.engine = s.engine();
+  v.now_utc = record::utc_now();
+  v.stale_after_s = a.stale_after_h * 3600.0;
+  return s.overview(v.cells, err);
+}
+
+int overview(const StoreArgs& a) {
+  if (!a.format.empty() && a.format != "text" && a.format != "json" && a.format != "html") {
+    std::fprintf(stderr,
+                 "loadtrim overview: --format \"%s\": allowed: text, json or html (without --format the "
+                 "page is served)\nrefused: nothing was read.\n",
+                 a.format.c_str());
+    return kBadInput;
+  }
+  if (a.format.empty() && !live_bind_usable(a.bind)) return kBadInput;
+  record::DataRoot root;
+  store::StorePath where;
+  if (!locate("overview", a, root, where)) return kBadInput;
+  // The store missing or down is a failure to read the record (exit 5), not a bad option.
+  auto s = open_store("overview", where, store::OpenMode::use);
+  if (!s) return kRecordFailure;
+  OverviewView v;
+  std::string err;
+  if (!read_overview(*s, a, v, err)) {
+    std::fprintf(stderr, "loadtrim overview: the store could not be read: %s\n", err.c_str());
+    return kRecordFailure;
+  }
+  if (a.format == "json") {
+    std::printf("%s\n",
+                overview_json(v).dump(-1, ' ', false, nlohmann::json::error_handler_t::replace).c_str());
+    return kAccepted;
+  }
+  if (a.format == "text") {
+    std::printf("%s", overview_text(v).c_str());
+    return kAccepted;
+  }
+  if (a.format == "html") {
+    std::printf("%s", overview_html(v, 0).c_str());
+    return kAccepted;
+  }
+  // Served until Ctrl-C: each request reads the store again (opened anew, so a store that went down and came
+  // back is read again); one that cannot be read answers 503 with the sentence.
+  const int refresh = a.refresh_s;
+  const OverviewServer::Page page = [&where, &a, refresh](bool json) -> std::pair<int, std::string> {
+    std::string e;
+    auto st = where.engine == "postgresql" ? store::open_postgresql(where.path, store::OpenMode::use, e)
+                                           : store::open_sqlite(where.path, store::OpenMode::use, e);
+    OverviewView view;
+    if (!st || !read_overview(*st, a, view, e)) {
+      const std::string sentence = "the store could not be read: " + e;
+      if (json) return {503, nlohmann::json({{"error", sentence}}).dump()};
+      return {503, overview_error_html(sentence, refresh)};
+    }
+    if (json)
+      return {200, overview_json(view).dump(-1, ' ', false, nlohmann::json::error_handler_t::replace)};
+    return {200, overview_html(view, refresh)};
+  };
+  install_stop_handlers();
+  auto server = OverviewServer::start(live_options_for(a.bind), page, err);
+  if (!server) {
+    std::fprintf(stderr, "loadtrim overview: %s\n", err.c_str());
+    return kBadInput;
+  }
+  s.reset();
+  std::printf("lab overview: %s (read-only; from %s; Ctrl-C ends it)\n", server->url().c_str(),
+              where.shown().c_str());
+  std::fflush(stdout);
+  while (!stop_flag().load()) std::this_thread::sleep_for(std::chrono::milliseconds(100));
+  std::printf("lab overview: stopped\n");
+  return kAccepted;
+}
+
 }  // namespace
 
 void register_store_commands(CLI::App& app, Runner& run) {
@@ -379,6 +465,26 @@ void register_store_commands(CLI::App& app, Runner& run) {
   his->add_flag("--json", a->json, "one JSON object with the rows")->excludes(csv);
   common_options(his, *a);
   his->callback([a, &run] { run = [a] { return history(*a); }; });
+
+  auto* ovw = app.add_subcommand("overview",
+                                 "every cell's current or last session and dyno check from the store: a "
+                                 "read-only page, refreshing itself "
+                                 "(or printed once with --format)");
+  ovw->add_option("--format", a->format, "print it once instead of serving the page: text, json or html");
+  ovw->add_option(
+         "--bind", a->bind,
+         "where the page listens, HOST:PORT (port 0: any free port); not a loopback address only with "
+         "an access token in LOADTRIM_LIVE_TOKEN")
+      ->capture_default_str();
+  ovw->add_option("--refresh", a->refresh_s, "the page reloads itself every this many seconds")
+      ->check(CLI::Range(2, 3600))
+      ->capture_default_str();
+  ovw->add_option("--stale-after-h", a->stale_after_h,
+                  "a running entry older than this many hours is shown as \"no end indexed (stale?)\"")
+      ->check(CLI::Range(0.1, 720.0))
+      ->capture_default_str();
+  common_options(ovw, *a);
+  ovw->callback([a, &run] { run = [a] { return overview(*a); }; });
 }
 
 }  // namespace loadtrim::app

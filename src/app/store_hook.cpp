@@ -3,6 +3,7 @@
 #include <chrono>
 #include <cstdio>
 #include <filesystem>
+#include <thread>
 
 #include "store/index.hpp"
 #include "store/pg_store.hpp"
@@ -136,6 +137,81 @@ void index_finished_folder(const record::DataRoot& root, const std::string& fold
   } catch (const std::exception& e) {
     std::fprintf(stderr, "loadtrim: store: %s not indexed: %s (`loadtrim store import` indexes it)\n",
                  folder.c_str(), e.what());
+  }
+}
+
+// --- the lab overview ---
+struct RunningNote::Impl {
+  record::DataRoot root;
+  store::StorePath where;
+  std::string folder;
+  std::thread drain;
+  bool ended = false;
+  void join() {
+    if (drain.joinable()) drain.join();
+  }
+  ~Impl() { join(); }
+};
+
+RunningNote::RunningNote() = default;
+RunningNote::~RunningNote() = default;  // Impl's destructor waits for the drain
+RunningNote::RunningNote(RunningNote&&) noexcept = default;
+RunningNote& RunningNote::operator=(RunningNote&&) noexcept = default;
+
+RunningNote RunningNote::start(const record::DataRoot& root, const store::RunningEntry& entry,
+                               bool simulated) {
+  RunningNote note;
+  if (!root.ok()) return note;
+  try {
+    store::StorePath where = store::find_store_path("", root.path);
+    std::error_code ec;
+    const bool configured = !where.ok() || !where.data_root_default;
+    // The same rule as at the end (index_finished_folder): no store, nothing; a simulated session stays out
+    // of a store the lab configured.
+    if (!configured && !fs::exists(where.path, ec)) return note;
+    if (simulated && configured) return note;
+    store::RunningEntry e = entry;
+    e.folder = fs::absolute(entry.folder, ec).lexically_normal().string();
+    std::string err;
+    if (!store::enqueue_started(root.path, e, err)) {
+      std::fprintf(stderr,
+                   "loadtrim: store: the start of %s not queued (the overview will not show it): %s\n",
+                   e.folder.c_str(), err.c_str());
+      log_line(root, "start not queued " + e.folder + ": " + err);
+      return note;
+    }
+    log_line(root, "queued start of " + e.what + " " + e.folder);
+    auto impl = std::make_unique<Impl>();
+    impl->root = root;
+    impl->where = where;
+    impl->folder = e.folder;
+    // Its own thread: the session goes on at once; what it says goes to the store log (and stderr when the
+    // store is down), never between the console's lines.
+    Impl* p = impl.get();
+    impl->drain = std::thread([p] { drain_store_queue(p->root, p->where, kEndBudgetS, false); });
+    note.impl_ = std::move(impl);
+  } catch (const std::exception& ex) {
+    std::fprintf(stderr, "loadtrim: store: the start was not queued: %s\n", ex.what());
+  }
+  return note;
+}
+
+void RunningNote::end(bool indexed, bool say) {
+  if (!impl_ || impl_->ended) return;
+  impl_->ended = true;
+  impl_->join();
+  if (indexed) return;
+  try {
+    std::string err;
+    if (!store::enqueue(impl_->root.path, impl_->folder, "ended", err)) {
+      std::fprintf(stderr, "loadtrim: store: the end of %s not queued: %s\n", impl_->folder.c_str(),
+                   err.c_str());
+      return;
+    }
+    log_line(impl_->root, "queued end without a seal " + impl_->folder);
+    drain_store_queue(impl_->root, impl_->where, kEndBudgetS, say);
+  } catch (const std::exception& ex) {
+    std::fprintf(stderr, "loadtrim: store: the end was not queued: %s\n", ex.what());
   }
 }
 

@@ -4,6 +4,7 @@
 // indexed at a later end or by `loadtrim store import --queued`.
 #pragma once
 
+#include <memory>
 #include <string>
 
 #include "record/data_root.hpp"
@@ -29,5 +30,28 @@ bool ensure_demo_store(const record::DataRoot& root, bool say);
 // left queued, -1 when the store could not be used, -2 when the queue is empty but a folder was set aside
 // (it does not verify, or is gone). Never throws.
 int drain_store_queue(const record::DataRoot& root, const store::StorePath& where, double budget_s, bool say);
+
+// --- the lab overview (docs/store.md "The lab overview") ---
+// A session or check noted as running in the lab's store: a start entry written to the queue now (a small
+// local file), and the queue drained by a thread of its own (bounded as at an end), so the session or check
+// never waits for the store. Nothing is done for a lab without a store, or (as at the end) for a simulated
+// session and a store the lab configured. Never throws.
+class RunningNote {
+ public:
+  RunningNote();
+  static RunningNote start(const record::DataRoot& root, const store::RunningEntry& entry, bool simulated);
+  // The command ended: waits for the start's drain (bounded by its own deadline). `indexed`: the folder's
+  // index entry follows (index_finished_folder), which clears the running row; otherwise an "ended" entry is
+  // queued and drained now, so the overview stops showing it as running.
+  void end(bool indexed, bool say);
+  ~RunningNote();  // waits for the start's drain
+  RunningNote(RunningNote&&) noexcept;
+  RunningNote& operator=(RunningNote&&) noexcept;
+
+  struct Impl;
+
+ private:
+  std::unique_ptr<Impl> impl_;
+};
 
 }  // namespace loadtrim::app

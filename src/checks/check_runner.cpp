@@ -68,6 +68,12 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     res.verdict = e.what();
     return res;
   }
+  if (req.on_folder) {
+    try {
+      req.on_folder(res.folder);
+    } catch (const std::exception&) {  // a view of the check (the overview), never its end
+    }
+  }
   record::EventLog log((fs::path(res.folder) / "events.jsonl").string());
   log.set_signer(req.key);  // every record signed with the cell's key, like a session's (docs/records.md)
   Procedure p(c, req, log, res.folder, stop);

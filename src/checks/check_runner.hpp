@@ -9,6 +9,7 @@
 #pragma once
 
 #include <atomic>
+#include <functional>
 #include <nlohmann/json.hpp>
 #include <string>
 
@@ -39,6 +40,9 @@ struct CheckRequest {
   // check's record is its own log: an observer that fails or throws is dropped (said on stderr and in an
   // "observer_dropped" record), never the end of the check.
   std::vector<session::Observer*> observers;
+  // Called once with the check's folder as soon as it exists (the app notes the check as running for the
+  // lab's overview, docs/store.md). Must be quick; an exception from it is ignored.
+  std::function<void(const std::string& folder)> on_folder;
 };
 
 struct CheckResult {

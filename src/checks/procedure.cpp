@@ -52,6 +52,22 @@ Procedure::Procedure(controller::Controller& c, const CheckRequest& req, record:
   motion_.on_warning = [this](const controller::Warning& w) {
     (void)log_event(ev::ControllerWarning{w.code, w.text, w.count});
   };
+  motion_.on_sample = [this](const Sample& x) { on_sample(x); };
+}
+
+// Progress for the views (the live page; the console ignores a check's): every 0.1 s of controller time at
+// most (common practice, no source: the page draws at most four times a second).
+void Procedure::on_sample(const Sample& x) {
+  if (t_first_s_ < 0.0) t_first_s_ = x.time_s;
+  if (x.time_s - last_progress_s_ < 0.1) return;
+  last_progress_s_ = x.time_s;
+  session::Progress p;
+  p.state = tracing_ ? session::State::coast_down : session::State::run_up;
+  p.coastdown = tracing_ ? trace_run_ : 0;
+  p.speed_kmh = x.speed_kmh;
+  p.cell_time_s = x.time_s - t_first_s_;
+  p.step = step_.empty() ? std::string("connecting") : step_;
+  observers_.progress(p);
 }
 
 motion::Rules Procedure::rules(const CheckRequest& req) {
@@ -62,6 +78,16 @@ motion::Rules Procedure::rules(const CheckRequest& req) {
 }
 
 void Procedure::record(session::Payload event) {
+  // A coast's start: the samples collected next are its trace on the live page.
+  if (std::holds_alternative<ev::FreeCoastStarted>(event)) {
+    ++trace_run_;
+    tracing_ = true;
+    step_ = "the free coast";
+  } else if (const auto* cs = std::get_if<ev::CheckCoastStarted>(&event)) {
+    trace_run_ = cs->run;
+    tracing_ = true;
+    step_ = "coast-down " + std::to_string(cs->run) + " at " + num(cs->inertia_kg, 0) + " kg";
+  }
   if (!log_event(std::move(event))) throw Abort{CheckResult::End::record_failure, log_.error()};
 }
 
@@ -100,6 +126,11 @@ void Procedure::collect(std::vector<Sample>& out, const std::function<bool(const
   st.budget_s = budget_s;
   st.modes = modes;
   st.since_epoch = since_epoch.value_or(c_.epoch());
+  if (!tracing_) step_ = step;
+  struct EndTrace {
+    bool& tracing;
+    ~EndTrace() { tracing = false; }
+  } end_trace{tracing_};
   must_step(motion_.collect(st, done, &out));
 }
 
@@ -107,11 +138,13 @@ void Procedure::hold_and_settle(double v_kmh) {
   if (v_kmh > req_.cell.max_speed_kmh)
     throw Abort{CheckResult::End::refused, "start speed " + num(v_kmh) + " km/h is above the cell limit of " +
                                                num(req_.cell.max_speed_kmh) + " km/h"};
+  step_ = "settling at " + num(v_kmh, 0) + " km/h";
   must_step(motion_.hold(v_kmh, req_.profile.settle_s, "settling at the start speed",
                          budget::hold_s(req_.cell.max_speed_kmh, req_.profile.settle_s, latency_s())));
 }
 
 void Procedure::stop_rollers() {
+  step_ = "stopping the rollers";
   bool stopped = false;
   must_step(motion_.stop_and_wait(stop_budget_s(), stopped));
 }

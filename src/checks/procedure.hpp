@@ -101,6 +101,14 @@ class Procedure {
 
  private:
   static motion::Rules rules(const CheckRequest& req);
+  // Every sample as progress to the observers (the live page), at most every kProgressEvery_s of controller
+  // time: the step in words, and a coast's samples as its trace.
+  void on_sample(const controller::Sample& s);
+  std::string step_;         // the step running now, in words
+  int trace_run_ = 0;        // the coast whose samples are being collected (1, 2, ...), 0 = none
+  bool tracing_ = false;     // a coast_started record was made and its samples are being collected
+  double t_first_s_ = -1.0;  // the first sample's controller time
+  double last_progress_s_ = -1e300;
   controller::Controller& c_;
   const CheckRequest& req_;
   record::EventLog& log_;

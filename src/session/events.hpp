@@ -500,6 +500,9 @@ struct Progress {
   double band_kmh = 0.0;     // reference speed whose band the coast is in (0 = none)
   double cell_time_s = 0.0;  // controller time since the session started
   double remaining_estimate_s = 0.0;
+  // A dyno check's step in words ("the free coast", "settling at 80 km/h"); empty in a session, whose state
+  // says it. A check's state is coast_down while a coast's samples are its trace (coastdown = its number).
+  std::string step;
 };
 
 // Observers: the record writer, the console, anything else. on_event returning false (or throwing) means the

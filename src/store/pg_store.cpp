@@ -434,6 +434,82 @@ class PgStore final : public Store {
            "): use the loadtrim that migrated it, or a newer one; nothing was changed";
   }
 
+  // --- the lab overview (schema step 3; docs/store.md "The lab overview") ---
+  bool note_running(const RunningEntry& e, bool& noted, std::string& error) override {
+    try {
+      // Every value is a bound parameter; CAST gives each its type (PostgreSQL must know it, and a parameter
+      // in a select list has none). Not noted when the folder is indexed already; noted again (a resume),
+      // its start, page and time are the new ones.
+      Rows r = run(R"SQL(INSERT INTO running (folder, what, name, cell, vehicle, kind, started_utc, live_url,
+        noted_utc) SELECT CAST($1 AS TEXT), CAST($2 AS TEXT), CAST($3 AS TEXT), CAST($4 AS TEXT),
+        CAST($5 AS TEXT), CAST($6 AS TEXT), CAST($7 AS TEXT), CAST($8 AS TEXT), CAST($9 AS TEXT)
+        WHERE NOT EXISTS (SELECT 1 FROM sessions WHERE folder = CAST($1 AS TEXT)) AND NOT EXISTS
+        (SELECT 1 FROM checks WHERE folder = CAST($1 AS TEXT)) ON CONFLICT (folder) DO UPDATE
+        SET started_utc = excluded.started_utc, live_url = excluded.live_url, noted_utc = excluded.noted_utc
+        RETURNING folder)SQL",
+                   Params()
+                       .text(e.folder)
+                       .text(e.what)
+                       .text(e.name)
+                       .text(e.cell)
+                       .text(e.vehicle)
+                       .text(e.kind)
+                       .text(e.started_utc)
+                       .text(e.live_url)
+                       .text(record::utc_now()));
+      noted = r.size() > 0;
+      return true;
+    } catch (const std::exception& ex) {
+      error = where_ + ": cannot note " + e.folder + " as running: " + ex.what();
+      return false;
+    }
+  }
+
+  bool clear_running(const std::string& folder, std::string& error) override {
+    try {
+      run("DELETE FROM running WHERE folder = $1", Params().text(folder));
+      return true;
+    } catch (const std::exception& ex) {
+      error = where_ + ": cannot clear the running row of " + folder + ": " + ex.what();
+      return false;
+    }
+  }
+
+  bool overview(std::vector<CellOverview>& cells, std::string& error) override {
+    try {
+      std::vector<LatestRow> sessions, checks;
+      std::vector<RunningEntry> running;
+      // One snapshot for the three answers (REPEATABLE READ: every statement sees the transaction's start).
+      run("BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY");
+      struct End {
+        PgStore& s;
+        ~End() {
+          try {
+            if (s.c_) s.run("COMMIT");
+          } catch (const std::exception&) {  // a read-only transaction: nothing to lose
+          }
+        }
+      } end{*this};
+      {
+        Rows r = run(schema::kLatestSessionSql);
+        for (int i = 0; i < r.size(); ++i) sessions.push_back(schema::latest_row(RowOf(r, i), "session"));
+      }
+      {
+        Rows r = run(schema::kLatestCheckSql);
+        for (int i = 0; i < r.size(); ++i) checks.push_back(schema::latest_row(RowOf(r, i), "check"));
+      }
+      {
+        Rows r = run(schema::kRunningSql);
+        for (int i = 0; i < r.size(); ++i) running.push_back(schema::running_row(RowOf(r, i)));
+      }
+      cells = schema::assemble_overview(sessions, checks, running);
+      return true;
+    } catch (const std::exception& e) {
+      error = where_ + ": " + e.what();
+      return false;
+    }
+  }
+
  private:
   // A transaction, rolled back unless committed.
   class Transaction {

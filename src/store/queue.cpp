@@ -45,8 +45,24 @@ std::string entry_name(const std::string& folder) {
   return n + "-" + record::sha256_hex(folder).substr(0, 16) + ".json";
 }
 
+// The queue folder, made when missing; false with a sentence when it cannot be.
+bool make_queue_dir(const fs::path& dir, std::string& error) {
+  std::error_code ec;
+  fs::create_directories(dir, ec);
+  if (ec) error = dir.string() + ": " + ec.message();
+  return !ec;
+}
+
+// A start or end-without-seal entry of the same folder: the same name with its own suffix, so that it never
+// stands for (or is kept instead of) the folder's index entry.
+std::string marker_name(const std::string& folder, const char* marker) {
+  std::string n = entry_name(folder);
+  return n.substr(0, n.size() - 5) + "." + marker + ".json";
+}
+
 struct Entry {
   std::string file, folder, what, queued_utc, error;
+  RunningEntry running;  // what == "started"
 };
 
 Entry read_entry(const std::string& file) {
@@ -80,6 +96,27 @@ Entry read_entry(const std::string& file) {
   e.queued_utc = j.value("queued_utc", std::string("?"));
   if (e.folder.empty() || e.folder[0] != '/')
     e.error = file + ": \"folder\" is not an absolute path (" + e.folder + ")";
+  if (e.error.empty() && e.what == "started") {
+    // A start entry names what the overview shows: every member a string.
+    const auto& r = j.contains("running") ? j["running"] : nlohmann::json();
+    const char* keys[] = {"what", "name", "cell", "vehicle", "kind", "started_utc", "live_url"};
+    for (const char* k : keys)
+      if (!r.is_object() || !r.contains(k) || !r[k].is_string()) {
+        e.error = file + ": not a start entry (\"running\" needs the string \"" + k + "\")";
+        return e;
+      }
+    e.running = {r["what"].get<std::string>(),
+                 e.folder,
+                 r["name"].get<std::string>(),
+                 r["cell"].get<std::string>(),
+                 r["vehicle"].get<std::string>(),
+                 r["kind"].get<std::string>(),
+                 r["started_utc"].get<std::string>(),
+                 r["live_url"].get<std::string>(),
+                 ""};
+    if (e.running.what != "session" && e.running.what != "check")
+      e.error = file + ": not a start entry (\"running\".\"what\" is neither session nor check)";
+  }
   return e;
 }
 
@@ -130,13 +167,12 @@ bool append_utc_line(const std::string& path, const std::string& line, std::stri
 bool enqueue(const std::string& data_root, const std::string& folder, const std::string& what,
              std::string& error) {
   const fs::path dir = queue_dir(data_root);
+  if (!make_queue_dir(dir, error)) return false;
   std::error_code ec;
-  fs::create_directories(dir, ec);
-  if (ec) {
-    error = dir.string() + ": " + ec.message();
-    return false;
-  }
-  const std::string path = (dir / entry_name(folder)).string();
+  // The folder's end: a start entry still queued is no longer news (the end's entry clears the running row).
+  fs::remove(dir / marker_name(folder, "started"), ec);
+  const std::string path =
+      (dir / (what == "ended" ? marker_name(folder, "ended") : entry_name(folder))).string();
   if (fs::exists(fs::symlink_status(path, ec))) return true;
   const nlohmann::json j = {{"folder", folder}, {"what", what}, {"queued_utc", record::utc_now()}};
   // A path that is not UTF-8 cannot be a JSON string: refused here, said by the caller, never thrown.
@@ -213,10 +249,32 @@ DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
         break;
       }
     }
+    if (e.what == "started" || e.what == "ended") {
+      std::string err;
+      bool noted = false;
+      const bool ok = e.what == "started" ? store->note_running(e.running, noted, err)
+                                          : store->clear_running(e.folder, err);
+      if (!ok) {
+        out.store_ok = false;
+        out.messages.push_back("store unavailable (" + err + "): " + std::to_string(files.size() - i) +
+                               " kept in the queue");
+        break;
+      }
+      std::error_code ec;
+      fs::remove(e.file, ec);
+      out.messages.push_back(
+          e.what == "ended" ? "ended without a seal " + e.folder + " (queued at " + e.queued_utc + ")"
+          : noted ? "running " + e.running.what + " " + e.folder + " (queued at " + e.queued_utc + ")"
+                  : "not noted as running (indexed before) " + e.folder);
+      continue;
+    }
     const IngestResult r = ingest_folder(*store, e.folder, options);
     switch (r.status) {
       case IngestStatus::indexed:
       case IngestStatus::refreshed: {
+        // Its running row, if the start was noted, is over (the overview leaves it out anyway).
+        std::string ignored;
+        store->clear_running(e.folder, ignored);
         std::error_code ec;
         fs::remove(e.file, ec);
         ++out.indexed;
@@ -237,6 +295,31 @@ DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
   }
   out.remaining = static_cast<int>(queued_entries(data_root).size());
   return out;
+}
+
+// --- the lab overview: start entries (docs/store.md "The lab overview") ---
+bool enqueue_started(const std::string& data_root, const RunningEntry& e, std::string& error) {
+  const fs::path dir = queue_dir(data_root);
+  if (!make_queue_dir(dir, error)) return false;
+  const nlohmann::json j = {{"folder", e.folder},
+                            {"what", "started"},
+                            {"queued_utc", record::utc_now()},
+                            {"running",
+                             {{"what", e.what},
+                              {"name", e.name},
+                              {"cell", e.cell},
+                              {"vehicle", e.vehicle},
+                              {"kind", e.kind},
+                              {"started_utc", e.started_utc},
+                              {"live_url", e.live_url}}}};
+  std::string text;
+  try {
+    text = j.dump();
+  } catch (const nlohmann::json::exception&) {
+    error = "the folder's path or a name is not UTF-8 text, so the start cannot be queued";
+    return false;
+  }
+  return record::write_durable((dir / marker_name(e.folder, "started")).string(), text + "\n", error);
 }
 
 }  // namespace loadtrim::store

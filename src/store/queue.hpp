@@ -29,8 +29,9 @@ bool append_utc_line(const std::string& path, const std::string& line, std::stri
 // The same to <data_root>/store.log.
 bool log_store_line(const std::string& data_root, const std::string& line, std::string& error);
 
-// Writes the queue entry for `folder` (absolute), "session" or "check". The entry's file name is the folder's
-// own name (ids are unique per lab); an entry already queued for the same folder is kept as it is.
+// Writes the queue entry for `folder` (absolute), "session" or "check" (or "ended": the folder ended without
+// a seal and is not indexed; its running row is cleared). The entry's file name is the folder's own name (ids
+// are unique per lab); an entry already queued for the same folder is kept as it is.
 bool enqueue(const std::string& data_root, const std::string& folder, const std::string& what,
              std::string& error);
 
@@ -53,5 +54,11 @@ using StoreOpener = std::function<std::unique_ptr<Store>(std::string& error)>;
 // (checked before each entry; one ingest is bounded by the engine's own timeouts).
 DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
                         const record::VerifyOptions& options, std::chrono::steady_clock::time_point deadline);
+
+// --- the lab overview (docs/store.md "The lab overview") ---
+// A start entry for the folder `e.folder` (absolute): drained into Store::note_running, so the overview shows
+// the session or check as running. The folder's end entry (enqueue with "session"/"check", or "ended" for an
+// end without a seal, which drains into Store::clear_running) removes a start entry still queued.
+bool enqueue_started(const std::string& data_root, const RunningEntry& e, std::string& error);
 
 }  // namespace loadtrim::store

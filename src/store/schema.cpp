@@ -1,6 +1,7 @@
 #include "store/schema.hpp"
 
 #include <iterator>
+#include <map>
 #include <stdexcept>
 
 namespace loadtrim::store::schema {
@@ -134,6 +135,22 @@ CREATE INDEX session_deviations_by_session ON session_deviations (session);
 CREATE INDEX coastdowns_by_session ON coastdowns (session);
 CREATE INDEX coastdown_deviations_by_coastdown ON coastdown_deviations (coastdown);
 )SQL"},
+    {3, "running sessions and checks for the lab overview", R"SQL(
+CREATE TABLE running (
+  folder TEXT NOT NULL PRIMARY KEY,
+  what TEXT NOT NULL CHECK (what IN ('session', 'check')),
+  name TEXT NOT NULL,
+  cell TEXT NOT NULL,
+  vehicle TEXT NOT NULL,
+  kind TEXT NOT NULL,
+  started_utc TEXT NOT NULL,
+  live_url TEXT NOT NULL,
+  noted_utc TEXT NOT NULL
+);
+CREATE INDEX running_by_cell ON running (cell, started_utc);
+CREATE INDEX sessions_by_folder ON sessions (folder);
+CREATE INDEX checks_by_folder ON checks (folder);
+)SQL"},
 };
 
 void replace_all(std::string& text, const std::string& from, const std::string& to) {
@@ -205,6 +222,76 @@ HistoryRow history_check_row(const ResultRow& c) {
   r.folder = c.text(7);
   r.verify_outcome = c.text(8);
   return r;
+}
+
+// --- the lab overview (step 3) ---
+// The latest row per cell: the distinct cells (read from the (cell, started_utc) index), each joined with its
+// newest row by started_utc (the higher id on a tie), so the work grows with the number of cells, not of
+// rows.
+const char* const kLatestSessionSql =
+    "SELECT s.name, s.method, s.cell, s.vehicle, s.started_utc, s.result, s.stop_reason, s.accepted, "
+    "s.final_f0_n, s.final_f1_n_per_kmh, s.final_f2_n_per_kmh2, s.folder, s.verify_outcome "
+    "FROM (SELECT DISTINCT cell FROM sessions) c JOIN sessions s ON s.id = (SELECT s2.id FROM sessions s2 "
+    "WHERE s2.cell = c.cell ORDER BY s2.started_utc DESC, s2.id DESC LIMIT 1) ORDER BY s.cell";
+const char* const kLatestCheckSql =
+    "SELECT s.name, s.kind, s.cell, '', s.started_utc, s.end_state, s.verdict, s.passed, "
+    "NULL, NULL, NULL, s.folder, s.verify_outcome "
+    "FROM (SELECT DISTINCT cell FROM checks) c JOIN checks s ON s.id = (SELECT s2.id FROM checks s2 "
+    "WHERE s2.cell = c.cell ORDER BY s2.started_utc DESC, s2.id DESC LIMIT 1) ORDER BY s.cell";
+// A running row whose folder has been indexed meanwhile is over, whatever cleared it or not.
+const char* const kRunningSql =
+    "SELECT r.what, r.folder, r.name, r.cell, r.vehicle, r.kind, r.started_utc, r.live_url, r.noted_utc "
+    "FROM running r WHERE NOT EXISTS (SELECT 1 FROM sessions s WHERE s.folder = r.folder) "
+    "AND NOT EXISTS (SELECT 1 FROM checks k WHERE k.folder = r.folder) ORDER BY r.cell, r.started_utc";
+
+LatestRow latest_row(const ResultRow& c, const char* what) {
+  LatestRow r;
+  r.what = what;
+  r.name = c.text(0);
+  r.kind = c.text(1);
+  r.cell = c.text(2);
+  r.vehicle = c.text(3);
+  r.started_utc = c.text(4);
+  r.result = c.text(5);
+  r.detail = c.text(6);
+  r.accepted = c.integer(7) != 0;
+  if (!c.is_null(8) && !c.is_null(9) && !c.is_null(10))
+    r.final_set = core::RoadLoad{c.real(8), c.real(9), c.real(10)};
+  r.folder = c.text(11);
+  r.verify_outcome = c.text(12);
+  return r;
+}
+
+RunningEntry running_row(const ResultRow& c) {
+  RunningEntry r;
+  r.what = c.text(0);
+  r.folder = c.text(1);
+  r.name = c.text(2);
+  r.cell = c.text(3);
+  r.vehicle = c.text(4);
+  r.kind = c.text(5);
+  r.started_utc = c.text(6);
+  r.live_url = c.text(7);
+  r.noted_utc = c.text(8);
+  return r;
+}
+
+std::vector<CellOverview> assemble_overview(const std::vector<LatestRow>& sessions,
+                                            const std::vector<LatestRow>& checks,
+                                            const std::vector<RunningEntry>& running) {
+  std::map<std::string, CellOverview> by_cell;
+  auto cell = [&](const std::string& name) -> CellOverview& {
+    CellOverview& c = by_cell[name];
+    c.cell = name;
+    return c;
+  };
+  for (const auto& r : sessions) cell(r.cell).session = r;
+  for (const auto& r : checks) cell(r.cell).check = r;
+  for (const auto& r : running) cell(r.cell).running.push_back(r);
+  std::vector<CellOverview> out;
+  out.reserve(by_cell.size());
+  for (auto& [name, c] : by_cell) out.push_back(std::move(c));
+  return out;
 }
 
 }  // namespace loadtrim::store::schema

@@ -15,6 +15,7 @@
 
 #include <cstdint>
 #include <string>
+#include <vector>
 
 #include "store/store.hpp"
 
@@ -45,5 +46,18 @@ class ResultRow {
 };
 HistoryRow history_session_row(const ResultRow& row);
 HistoryRow history_check_row(const ResultRow& row);
+
+// --- the lab overview (step 3): the same three queries on both engines, without parameters (nothing in
+// them comes from a user); the engines differ only in how they run them. Columns in the order latest_row()
+// and running_row() read them.
+extern const char* const kLatestSessionSql;
+extern const char* const kLatestCheckSql;
+extern const char* const kRunningSql;
+LatestRow latest_row(const ResultRow& row, const char* what);
+RunningEntry running_row(const ResultRow& row);
+// The three results as one list per cell, cells in name order.
+std::vector<CellOverview> assemble_overview(const std::vector<LatestRow>& sessions,
+                                            const std::vector<LatestRow>& checks,
+                                            const std::vector<RunningEntry>& running);
 
 }  // namespace loadtrim::store::schema

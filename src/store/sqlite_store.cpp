@@ -412,6 +412,82 @@ class SqliteStore final : public Store {
            "): use the loadtrim that migrated it, or a newer one; nothing was changed";
   }
 
+  // --- the lab overview (schema step 3; docs/store.md "The lab overview") ---
+  bool note_running(const RunningEntry& e, bool& noted, std::string& error) override {
+    try {
+      Transaction t(db_);
+      // Every value is a bound parameter. Not noted when the folder is indexed already (a start entry
+      // drained after its end's); noted again (a resume) its start, page and time are the new ones (ON
+      // CONFLICT: sqlite's upsert, which needs the WHERE).
+      Stmt ins(db_, R"SQL(INSERT INTO running (folder, what, name, cell, vehicle, kind, started_utc, live_url,
+        noted_utc) SELECT ?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9 WHERE NOT EXISTS (SELECT 1 FROM sessions WHERE
+        folder = ?1) AND NOT EXISTS (SELECT 1 FROM checks WHERE folder = ?1) ON CONFLICT (folder) DO UPDATE
+        SET started_utc = excluded.started_utc, live_url = excluded.live_url, noted_utc = excluded.noted_utc)SQL");
+      ins.text(1, e.folder)
+          .text(2, e.what)
+          .text(3, e.name)
+          .text(4, e.cell)
+          .text(5, e.vehicle)
+          .text(6, e.kind)
+          .text(7, e.started_utc)
+          .text(8, e.live_url)
+          .text(9, record::utc_now());
+      ins.run();
+      noted = sqlite3_changes(db_) > 0;
+      t.commit();
+      return true;
+    } catch (const std::exception& ex) {
+      error = path_ + ": cannot note " + e.folder + " as running: " + ex.what();
+      return false;
+    }
+  }
+
+  bool clear_running(const std::string& folder, std::string& error) override {
+    try {
+      Transaction t(db_);
+      Stmt del(db_, "DELETE FROM running WHERE folder = ?1");
+      del.text(1, folder).run();
+      t.commit();
+      return true;
+    } catch (const std::exception& ex) {
+      error = path_ + ": cannot clear the running row of " + folder + ": " + ex.what();
+      return false;
+    }
+  }
+
+  bool overview(std::vector<CellOverview>& cells, std::string& error) override {
+    try {
+      std::vector<LatestRow> sessions, checks;
+      std::vector<RunningEntry> running;
+      // One read transaction: the three answers are of one state of the file.
+      exec(db_, "BEGIN");
+      struct End {
+        sqlite3* db;
+        ~End() { sqlite3_exec(db, "COMMIT", nullptr, nullptr, nullptr); }
+      } end{db_};
+      {
+        Stmt s(db_, schema::kLatestSessionSql);
+        const StmtRow row(s);
+        while (s.step()) sessions.push_back(schema::latest_row(row, "session"));
+      }
+      {
+        Stmt s(db_, schema::kLatestCheckSql);
+        const StmtRow row(s);
+        while (s.step()) checks.push_back(schema::latest_row(row, "check"));
+      }
+      {
+        Stmt s(db_, schema::kRunningSql);
+        const StmtRow row(s);
+        while (s.step()) running.push_back(schema::running_row(row));
+      }
+      cells = schema::assemble_overview(sessions, checks, running);
+      return true;
+    } catch (const std::exception& e) {
+      error = path_ + ": " + e.what();
+      return false;
+    }
+  }
+
  private:
   // The row id and seal of the folder with this origin, if indexed.
   std::optional<std::pair<std::int64_t, std::string>> find(const std::string& table,

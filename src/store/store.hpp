@@ -108,6 +108,36 @@ struct IndexedFolder {
   std::string folder, origin, seal_sha256, verify_outcome;
 };
 
+// A session or check that has started and whose end is not indexed yet (the overview's "running").
+struct RunningEntry {
+  std::string what;                 // "session" or "check"
+  std::string folder;               // absolute, as the end's queue entry will name it
+  std::string name, cell, vehicle;  // vehicle: "" for a check
+  std::string kind;                 // the session's method, the check's kind
+  std::string started_utc;
+  std::string live_url;   // the live page's address when the command serves one, else ""
+  std::string noted_utc;  // when the store noted it (read back; ignored by note_running)
+};
+
+// The latest session or check of a cell, as the overview shows it.
+struct LatestRow {
+  std::string what;  // "session" or "check"
+  std::string name;  // the folder's name: the session's or check's id
+  std::string kind;  // the session's method, the check's kind
+  std::string cell, vehicle, started_utc;
+  std::string result;     // a session's result, a check's end
+  std::string detail;     // a session's stop reason, a check's verdict
+  bool accepted = false;  // a session accepted / a check passed
+  std::optional<core::RoadLoad> final_set;
+  std::string folder, verify_outcome;
+};
+
+struct CellOverview {
+  std::string cell;
+  std::optional<LatestRow> session, check;
+  std::vector<RunningEntry> running;  // oldest first
+};
+
 enum class PutResult {
   indexed,    // a new row
   refreshed,  // the same folder and seal were indexed before: its path, verify outcome and reviews updated
@@ -129,6 +159,18 @@ class Store {
   // Newest first.
   virtual bool history(const HistoryQuery& q, std::vector<HistoryRow>& rows, std::string& error) = 0;
   virtual bool folders(std::vector<IndexedFolder>& rows, std::string& error) = 0;
+
+  // --- the lab overview (docs/store.md "The lab overview"; schema step 3) ---
+  // Notes a session or check that has started (a "started" queue entry): one row per folder, kept until the
+  // folder is indexed or an "ended" entry clears it; noted again (a resume), it takes the new start, page and
+  // time. Not noted (`noted` false, no error) when the folder is indexed already: a late start entry never
+  // shows an indexed folder as running.
+  virtual bool note_running(const RunningEntry& e, bool& noted, std::string& error) = 0;
+  // Clears the folder's running row, if any (its end was queued without a seal to index).
+  virtual bool clear_running(const std::string& folder, std::string& error) = 0;
+  // Per cell: the latest session, the latest check, and the running rows whose folder is not indexed yet.
+  // Cells in name order; every cell that has a session, a check or a running row.
+  virtual bool overview(std::vector<CellOverview>& cells, std::string& error) = 0;
 };
 
 // How a store is opened. `use`: it must exist and be at exactly known_schema_version(), else refused with

@@ -150,3 +150,62 @@ TEST(StoreQueue, AFolderNameCannotLeaveTheQueue) {
   EXPECT_FALSE(fs::exists(fs::path(root) / "...json"));
   fs::remove_all(root);
 }
+
+// The lab overview (docs/store.md "The lab overview"): a start entry drains into a running row without the
+// folder being indexed or verified (it is running: nothing to verify yet); an end without a seal ("ended")
+// clears it; a start entry still queued when its folder's end is queued is removed (it is no longer news); a
+// start entry that is not one (a member missing) is set aside, never believed.
+TEST(StoreQueue, StartAndEndedEntriesNoteAndClearTheRunningRow) {
+  const std::string root = make_temp_dir("lt-queue");
+  auto s = migrated_store(root + "/store.sqlite");
+  ASSERT_TRUE(s);
+  const store::StoreOpener open = [&](std::string& e) -> std::unique_ptr<store::Store> {
+    return store::open_sqlite(root + "/store.sqlite", store::OpenMode::use, e);
+  };
+  std::string err;
+  const store::RunningEntry run{"session",
+                                root + "/sessions/20261203T100000Z-A",
+                                "20261203T100000Z-A",
+                                "bay 1",
+                                "car-A",
+                                "iterative",
+                                "2026-12-03T10:00:00.000Z",
+                                "http://127.0.0.1:9/",
+                                ""};
+  ASSERT_TRUE(store::enqueue_started(root, run, err)) << err;
+  store::DrainResult r = store::drain_queue(root, open, {}, kLater);
+  EXPECT_EQ(r.set_aside, 0);
+  EXPECT_EQ(r.remaining, 0);
+  std::vector<store::CellOverview> cells;
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  ASSERT_EQ(cells.size(), 1u);
+  ASSERT_EQ(cells[0].running.size(), 1u);
+  EXPECT_EQ(cells[0].running[0].folder, run.folder);
+  EXPECT_EQ(cells[0].running[0].live_url, "http://127.0.0.1:9/");
+
+  ASSERT_TRUE(store::enqueue(root, run.folder, "ended", err)) << err;
+  r = store::drain_queue(root, open, {}, kLater);
+  EXPECT_EQ(r.remaining, 0);
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  EXPECT_TRUE(cells.empty() || cells[0].running.empty());
+
+  // A start still queued when the end is queued: removed, so it can never be drained after the end.
+  ASSERT_TRUE(store::enqueue_started(root, run, err)) << err;
+  ASSERT_EQ(store::queued_entries(root).size(), 1u);
+  ASSERT_TRUE(store::enqueue(root, run.folder, "ended", err)) << err;
+  const auto left = store::queued_entries(root);
+  ASSERT_EQ(left.size(), 1u);
+  EXPECT_NE(left[0].find(".ended.json"), std::string::npos) << left[0];
+  r = store::drain_queue(root, open, {}, kLater);
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  EXPECT_TRUE(cells.empty() || cells[0].running.empty());
+
+  const fs::path qdir = fs::path(root) / store::kQueueDirName;
+  std::ofstream(qdir / "x.started.json")
+      << R"({"folder": "/labs/x", "what": "started", "running": {"what": "session"}})";
+  r = store::drain_queue(root, open, {}, kLater);
+  EXPECT_EQ(r.set_aside, 1);
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  EXPECT_TRUE(cells.empty() || cells[0].running.empty());
+  fs::remove_all(root);
+}

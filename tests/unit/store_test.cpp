@@ -747,6 +747,217 @@ TEST_P(StoreTest, AStoreHeldByAnotherWriterIsGivenUpInTime) {
   EXPECT_EQ(value("SELECT count(*) FROM sessions"), "0");
 }
 
+// --- the lab overview (issue 19: "A lab overview page lists every cell's current or last session from the
+// store"; docs/store.md "The lab overview") ---
+namespace {
+
+// A hand-built session row (what ingest would read from a folder), dated `utc`.
+store::SessionEntry session_row(const std::string& cell, const std::string& name, const std::string& utc,
+                                bool accepted, double f0_n) {
+  store::SessionEntry e;
+  e.facts.folder = "/lab/sessions/" + name;
+  e.facts.name = name;
+  e.facts.origin = record::sha256_hex("origin of " + name);
+  e.facts.cell = cell;
+  e.facts.operator_name = "A. Tester";
+  e.facts.started_utc = utc;
+  e.facts.sealed_utc = utc;
+  e.facts.chain_head = record::sha256_hex("head of " + name);
+  e.facts.seal_sha256 = record::sha256_hex("seal of " + name);
+  e.facts.verify_outcome = "verified";
+  e.vehicle = "car-" + name;
+  e.method = "iterative";
+  e.result = accepted ? "accepted" : "not_accepted";
+  e.accepted = accepted;
+  e.stop_reason = accepted ? "" : "iteration limit";
+  e.target = {100.0, 1.0, 0.03};
+  e.final_set = core::RoadLoad{f0_n, 0.5, 0.025};
+  return e;
+}
+
+store::CheckEntry check_row(const std::string& cell, const std::string& name, const std::string& utc,
+                            bool passed) {
+  store::CheckEntry e;
+  e.facts.folder = "/lab/checks/" + cell + "/" + name;
+  e.facts.name = name;
+  e.facts.origin = record::sha256_hex("origin of check " + cell + name);
+  e.facts.cell = cell;
+  e.facts.started_utc = utc;
+  e.facts.sealed_utc = utc;
+  e.facts.chain_head = record::sha256_hex("head of check " + cell + name);
+  e.facts.seal_sha256 = record::sha256_hex("seal of check " + cell + name);
+  e.facts.verify_outcome = "sealed, not signed";
+  e.kind = "parasitic";
+  e.end = passed ? "passed" : "failed";
+  e.passed = passed;
+  e.verdict = passed ? "pass (40 CFR 1066.255)" : "FAIL (40 CFR 1066.255)";
+  return e;
+}
+
+const store::CellOverview* find_cell(const std::vector<store::CellOverview>& cells, const std::string& name) {
+  for (const auto& c : cells)
+    if (c.cell == name) return &c;
+  return nullptr;
+}
+
+}  // namespace
+
+// Per cell the newest session and check by their start (record 0's UTC, which sorts as text: ISO 8601), the
+// older ones left out; a cell with only a check is listed too. A cell name with quotes and markup arrives as
+// written (bound parameters, never SQL text).
+TEST_P(StoreTest, OverviewGivesEachCellsLatestSessionAndCheck) {
+  auto s = migrated();
+  ASSERT_TRUE(s);
+  std::string err;
+  store::PutResult put;
+  const std::string odd = "cell 'B' <b>&\"";
+  ASSERT_TRUE(s->put_session(session_row("cell-A", "s1", "2026-12-01T08:00:00.000Z", true, 101.0), put, err))
+      << err;
+  ASSERT_TRUE(s->put_session(session_row("cell-A", "s2", "2026-12-02T08:00:00.000Z", false, 102.0), put, err))
+      << err;
+  ASSERT_TRUE(s->put_session(session_row("cell-A", "s0", "2026-11-30T08:00:00.000Z", true, 100.0), put, err))
+      << err;
+  ASSERT_TRUE(s->put_session(session_row(odd, "s3", "2026-12-01T09:00:00.000Z", true, 103.0), put, err))
+      << err;
+  ASSERT_TRUE(s->put_check(check_row("cell-A", "c1", "2026-12-02T07:00:00.000Z", true), put, err)) << err;
+  ASSERT_TRUE(s->put_check(check_row("cell-A", "c2", "2026-12-01T07:00:00.000Z", false), put, err)) << err;
+  ASSERT_TRUE(s->put_check(check_row("cell-C", "c3", "2026-12-03T07:00:00.000Z", false), put, err)) << err;
+
+  std::vector<store::CellOverview> cells;
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  ASSERT_EQ(cells.size(), 3u);
+  const auto* a = find_cell(cells, "cell-A");
+  ASSERT_NE(a, nullptr);
+  ASSERT_TRUE(a->session);
+  EXPECT_EQ(a->session->name, "s2");  // the newest start, though indexed before s0
+  EXPECT_EQ(a->session->vehicle, "car-s2");
+  EXPECT_EQ(a->session->result, "not_accepted");
+  EXPECT_FALSE(a->session->accepted);
+  EXPECT_EQ(a->session->detail, "iteration limit");
+  ASSERT_TRUE(a->session->final_set);
+  EXPECT_EQ(a->session->final_set->f0_n, 102.0);  // exact: binary64 both ways (docs/store.md)
+  EXPECT_EQ(a->session->folder, "/lab/sessions/s2");
+  EXPECT_EQ(a->session->verify_outcome, "verified");
+  ASSERT_TRUE(a->check);
+  EXPECT_EQ(a->check->name, "c1");
+  EXPECT_TRUE(a->check->accepted);
+  EXPECT_EQ(a->check->kind, "parasitic");
+  EXPECT_FALSE(a->check->final_set);
+  const auto* b = find_cell(cells, odd);
+  ASSERT_NE(b, nullptr);
+  ASSERT_TRUE(b->session);
+  EXPECT_EQ(b->session->name, "s3");
+  EXPECT_FALSE(b->check);
+  const auto* c = find_cell(cells, "cell-C");
+  ASSERT_NE(c, nullptr);
+  EXPECT_FALSE(c->session);
+  ASSERT_TRUE(c->check);
+  EXPECT_EQ(c->check->result, "failed");
+  EXPECT_TRUE(a->running.empty());
+}
+
+// The running rows: a start noted once (noted again, by a resume, it takes the new start and page); a note
+// for an indexed folder (a start entry drained after its end's) changes nothing; an indexed folder's row is
+// left out even if never cleared; an end without a seal clears it.
+TEST_P(StoreTest, OverviewShowsRunningEntriesUntilTheirEndIsIndexedOrCleared) {
+  auto s = migrated();
+  ASSERT_TRUE(s);
+  std::string err;
+  bool noted = false;
+  const store::RunningEntry run{"session",
+                                "/lab/sessions/r1",
+                                "r1",
+                                "cell-A",
+                                "car-r1",
+                                "iterative",
+                                "2026-12-03T08:00:00.000Z",
+                                "http://127.0.0.1:8080/",
+                                ""};
+  ASSERT_TRUE(s->note_running(run, noted, err)) << err;
+  EXPECT_TRUE(noted);
+  // Noted again (a resume of the folder): still one row, with the new start and page.
+  store::RunningEntry again = run;
+  again.started_utc = "2026-12-03T09:00:00.000Z";
+  again.live_url = "http://127.0.0.1:8081/";
+  ASSERT_TRUE(s->note_running(again, noted, err)) << err;
+  EXPECT_TRUE(noted);
+  EXPECT_EQ(value("SELECT count(*) FROM running"), "1");
+  EXPECT_EQ(value("SELECT started_utc || ' ' || live_url FROM running"),
+            "2026-12-03T09:00:00.000Z http://127.0.0.1:8081/");
+  ASSERT_TRUE(s->note_running(run, noted, err)) << err;
+
+  store::PutResult put;
+  store::SessionEntry done = session_row("cell-A", "s1", "2026-12-01T08:00:00.000Z", true, 101.0);
+  ASSERT_TRUE(s->put_session(done, put, err)) << err;
+  const store::RunningEntry late{"session",   done.facts.folder,      "s1", "cell-A", "car-s1",
+                                 "iterative", done.facts.started_utc, "",   ""};
+  ASSERT_TRUE(s->note_running(late, noted, err)) << err;
+  EXPECT_FALSE(noted) << "an indexed folder noted as running";
+
+  std::vector<store::CellOverview> cells;
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  ASSERT_EQ(cells.size(), 1u);
+  ASSERT_EQ(cells[0].running.size(), 1u);
+  EXPECT_EQ(cells[0].running[0].folder, "/lab/sessions/r1");
+  EXPECT_EQ(cells[0].running[0].live_url, "http://127.0.0.1:8080/");
+  EXPECT_EQ(cells[0].running[0].vehicle, "car-r1");
+  EXPECT_FALSE(cells[0].running[0].noted_utc.empty());
+
+  // A check noted on another cell, then its folder indexed without the row being cleared: left out.
+  const store::CheckEntry chk = check_row("cell-B", "c1", "2026-12-03T09:00:00.000Z", true);
+  const store::RunningEntry crun{"check",     chk.facts.folder,      "c1", "cell-B", "",
+                                 "parasitic", chk.facts.started_utc, "",   ""};
+  ASSERT_TRUE(s->note_running(crun, noted, err)) << err;
+  EXPECT_TRUE(noted);
+  ASSERT_TRUE(s->put_check(chk, put, err)) << err;
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  const auto* b = find_cell(cells, "cell-B");
+  ASSERT_NE(b, nullptr);
+  EXPECT_TRUE(b->running.empty());
+  ASSERT_TRUE(b->check);
+
+  ASSERT_TRUE(s->clear_running("/lab/sessions/r1", err)) << err;
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  for (const auto& c : cells) EXPECT_TRUE(c.running.empty()) << c.cell;
+}
+
+// issue 19 ("versioned migrations"): a store at the previous version (2) is refused until migrated, and the
+// migration to 3 keeps every indexed row; the overview then reads them.
+TEST_P(StoreTest, AStoreAtVersionTwoMigratesToTheRunningTableKeepingItsRows) {
+  std::string err;
+  {
+    auto s = open(store::OpenMode::migrate, err);
+    ASSERT_TRUE(s) << err;
+    ASSERT_TRUE(s->migrate(err, nullptr, 2)) << err;
+    ASSERT_EQ(s->schema_version(err), 2);
+  }
+  exec(
+      "INSERT INTO checks (origin, name, folder, cell, kind, end_state, passed, verdict, operator, "
+      "started_utc, sealed_utc, chain_head, seal_sha256, signer, verify_outcome, indexed_utc) VALUES ('o1', "
+      "'c1', '/lab/checks/c1', 'cell-A', 'readiness', 'passed', 1, 'pass', 'op', "
+      "'2026-12-01T07:00:00.000Z', '2026-12-01T07:10:00.000Z', 'h', 'x', '', 'verified', "
+      "'2026-12-01T07:11:00.000Z')");
+  EXPECT_FALSE(open(store::OpenMode::use, err));
+  EXPECT_NE(err.find("version 2"), std::string::npos) << err;
+  {
+    auto s = open(store::OpenMode::migrate, err);
+    ASSERT_TRUE(s) << err;
+    std::vector<std::string> applied;
+    ASSERT_TRUE(s->migrate(err, &applied)) << err;
+    ASSERT_FALSE(applied.empty());
+    EXPECT_EQ(applied.front().rfind("3 ", 0), 0u) << applied.front();
+  }
+  EXPECT_EQ(value("SELECT count(*) FROM running"), "0");
+  auto s = open(store::OpenMode::use, err);
+  ASSERT_TRUE(s) << err;
+  std::vector<store::CellOverview> cells;
+  ASSERT_TRUE(s->overview(cells, err)) << err;
+  ASSERT_EQ(cells.size(), 1u);
+  ASSERT_TRUE(cells[0].check);
+  EXPECT_EQ(cells[0].check->name, "c1");
+  EXPECT_EQ(cells[0].check->kind, "readiness");
+}
+
 INSTANTIATE_TEST_SUITE_P(Engines, StoreTest, ::testing::Values(Engine::sqlite, Engine::postgresql),
                          engine_name);
 
