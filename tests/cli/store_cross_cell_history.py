@@ -145,6 +145,22 @@ def main():
     else:
         expect("target --cell B shows the history from V's session on A", os.path.basename(va) in shown.get("note", ""),
                (shown, r.stderr[-600:]))
+    # A store that cannot be used (here a file that is not a database) is not in the way: the history file is
+    # read instead, and the lookup says why (docs/store.md, "The history first setting", 1).
+    broken_root = os.path.join(ARGS.workdir, "data-broken-store")
+    os.makedirs(broken_root)
+    open(os.path.join(broken_root, "store.sqlite"), "w").write("not a database, long enough for a header " * 4)
+    r = tool("target", "--from", v_target, "--cell", cells["B"][1], "--profile",
+             os.path.join(ARGS.src, "tests/data/wltp-iterative-short-warmup.toml"), "--data-dir", broken_root, "--json")
+    shown = {}
+    try:
+        shown = next(x for x in json.loads(r.stdout)["initial_settings"] if x["strategy"] == "history")
+    except (ValueError, KeyError, StopIteration):
+        pass
+    lookup = shown.get("lookup", {})
+    expect("a store that cannot be used: the history file is read and the lookup says why",
+           r.returncode == 0 and lookup.get("looked") == "file" and "could not be used" in lookup.get("note", "") and
+           "history file was read" in lookup.get("note", ""), (shown, r.stderr[-400:]))
     return finish()
 
 
