@@ -214,7 +214,9 @@ void RunningNote::end(bool indexed, bool say) {
   } catch (const std::exception& ex) {
     std::fprintf(stderr, "loadtrim: store: the end was not queued: %s\n", ex.what());
   }
+}
 
+// --- the history first setting (docs/store.md, "The history first setting") ---
 HistoryFound find_history(const record::DataRoot& root, const std::string& cell, const std::string& vehicle,
                           const std::string& history_file,
                           const std::function<std::optional<core::HistoryEntry>()>& from_file) {

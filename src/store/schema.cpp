@@ -291,6 +291,8 @@ std::vector<CellOverview> assemble_overview(const std::vector<LatestRow>& sessio
   std::vector<CellOverview> out;
   out.reserve(by_cell.size());
   for (auto& [name, c] : by_cell) out.push_back(std::move(c));
+  return out;
+}
 
 // --- the history first setting (docs/store.md, "The history first setting") ---
 

@@ -136,6 +136,7 @@ struct CellOverview {
   std::string cell;
   std::optional<LatestRow> session, check;
   std::vector<RunningEntry> running;  // oldest first
+};
 
 // --- the history first setting (docs/store.md, "The history first setting") ---
 // An accepted session with its final set, as indexed.

@@ -957,6 +957,7 @@ TEST_P(StoreTest, AStoreAtVersionTwoMigratesToTheRunningTableKeepingItsRows) {
   ASSERT_TRUE(cells[0].check);
   EXPECT_EQ(cells[0].check->name, "c1");
   EXPECT_EQ(cells[0].check->kind, "readiness");
+}
 
 // --- the history first setting (docs/store.md, "The history first setting"; issue 19: "a vehicle set on one
 // cell yesterday starts from that setting on another cell today, corrected by what the store knows about the
