@@ -455,7 +455,12 @@ int run_bench(BenchOptions o) {
       session::Options first = opt;
       first.first_setting = core::FirstSetting::loss_map;
       const auto s1 = run_one(in, v.truth, first);
-      if (s1.summary.final_set) opt.history = core::HistoryEntry{"", v.target.target, *s1.summary.final_set};
+      if (s1.summary.final_set) {
+        core::HistoryEntry h;
+        h.target = v.target.target;
+        h.final_set = *s1.summary.final_set;
+        opt.history = h;
+      }
       truth = &v.truth_day2;
     }
     const Run run = run_one(in, *truth, opt);

@@ -5,6 +5,7 @@
 #include <filesystem>
 #include <thread>
 
+#include "store/history_source.hpp"
 #include "store/index.hpp"
 #include "store/pg_store.hpp"
 #include "store/queue.hpp"
@@ -213,6 +214,69 @@ void RunningNote::end(bool indexed, bool say) {
   } catch (const std::exception& ex) {
     std::fprintf(stderr, "loadtrim: store: the end was not queued: %s\n", ex.what());
   }
+}
+
+// --- the history first setting (docs/store.md, "The history first setting") ---
+HistoryFound find_history(const record::DataRoot& root, const std::string& cell, const std::string& vehicle,
+                          const std::string& history_file,
+                          const std::function<std::optional<core::HistoryEntry>()>& from_file) {
+  HistoryFound out;
+  nlohmann::json lookup = {{"looked", "store"}, {"store", ""}, {"not_used", nlohmann::json::array()}};
+  std::string why_not_store;
+  try {
+    const store::StorePath where = root.ok() ? store::find_store_path("", root.path) : store::StorePath{};
+    std::error_code ec;
+    if (!root.ok()) {
+      why_not_store = "no data root (" + root.describe() + ")";
+    } else if (!where.ok()) {
+      why_not_store = where.error;
+    } else if (where.data_root_default && !fs::exists(where.path, ec)) {
+      why_not_store = "the lab has no record store (none configured, no " + where.path + ")";
+    } else {
+      lookup["store"] = where.shown();
+      std::string err;
+      auto s = where.engine == "postgresql"
+                   ? store::open_postgresql(where.path, store::OpenMode::use, err, kEndPgTimeouts)
+                   : store::open_sqlite(where.path, store::OpenMode::use, err, kBusyTimeoutMs);
+      store::StoreHistoryLookup found;
+      if (!s) {
+        why_not_store = "the store could not be used: " + err;
+      } else if (!store::lookup_store_history(*s, vehicle, cell, verify_options(root), found, err)) {
+        why_not_store = "the store could not be read: " + err;
+      } else {
+        for (const auto& n : found.not_used)
+          lookup["not_used"].push_back({{"session", n.session}, {"folder", n.folder}, {"why", n.why}});
+        if (found.entry && found.entry->basis) found.entry->basis->where = where.shown();
+        lookup["note"] = found.entry
+                             ? found.entry->basis->note
+                             : (found.sessions_found > 0
+                                    ? "no accepted session of this vehicle in the store whose folder still "
+                                      "verifies: no history"
+                                    : "no accepted session of this vehicle in the store: no history");
+        out.entry = std::move(found.entry);
+        out.lookup = std::move(lookup);
+        return out;
+      }
+    }
+  } catch (const std::exception& e) {
+    why_not_store = std::string("the store could not be used: ") + e.what();
+  }
+  // The store unavailable: the per-cell history file, as before the store (said in the record).
+  lookup["looked"] = "file";
+  lookup["file"] = history_file;
+  out.entry = from_file();
+  if (out.entry) {
+    core::HistoryBasis b;
+    b.source = "file";
+    b.where = history_file;
+    b.source_cell = cell;
+    b.same_cell = true;
+    b.note = "the history file of this vehicle on this cell: not corrected";
+    out.entry->basis = std::move(b);
+  }
+  lookup["note"] = why_not_store + "; the history file was read" + (out.entry ? "" : ": no entry there");
+  out.lookup = std::move(lookup);
+  return out;
 }
 
 }  // namespace loadtrim::app

@@ -15,6 +15,7 @@
 
 #include "app/exit_codes.hpp"
 #include "app/session_runner.hpp"
+#include "app/store_hook.hpp"
 #include "app/subcommands.hpp"
 #include "config/cell_loader.hpp"
 #include "config/epa_csv.hpp"
@@ -28,8 +29,10 @@
 #include "core/trace_analysis.hpp"
 #include "core/units.hpp"
 #include "inprocess/sim_rows.hpp"
+#include "record/data_root.hpp"
 #include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
+#include "record/vehicle_history.hpp"
 
 namespace loadtrim::app {
 
@@ -42,6 +45,7 @@ struct TargetOptions {
   int epa_line = 0;
   double test_mass_kg = 0, test_mass_lb = 0, mass_in_running_order_kg = 0, rotating_mass_kg = -1,
          max_speed_kmh = 180.0, cycle_max_speed_kmh = 0;
+  std::string data_dir;  // the lab's data root, for its record store (the history strategy)
   bool json = false;
   bool estimate_mro = false;  // --estimate-mass-in-running-order: the estimate accepted explicitly (recorded)
   std::vector<std::string> given;  // the options given on the command line, by name
@@ -236,8 +240,18 @@ int run_target(const TargetOptions& o) {
   // each strategy through the session's own choice (core::choose_first_setting); a strategy whose data is
   // missing shows why instead of the setting the session would fall back to.
   std::optional<core::FleetLossModel> fleet = fleet_model(default_fleet_csv());  // first: its messages first
+  // The history as a session on this cell would find it: the lab's record store when it can be used, else
+  // the history file (docs/store.md, "The history first setting").
   std::optional<core::HistoryEntry> hist;
-  if (cell) hist = history_for(o.history.empty() ? "sessions/history" : o.history, *cell, v);
+  nlohmann::json hist_lookup;
+  if (cell) {
+    const std::string dir = o.history.empty() ? "sessions/history" : o.history;
+    HistoryFound found = find_history(record::find_data_root(o.data_dir), cell->name, v.id,
+                                      record::vehicle_history_file(dir, cell->name, v.id),
+                                      [&] { return history_for(dir, *cell, v); });
+    hist = std::move(found.entry);
+    hist_lookup = std::move(found.lookup);
+  }
   core::FirstSettingInputs choice_in{.requested = core::FirstSetting::standard,
                                      .target = v.target,
                                      .test_mass_kg = v.test_mass_kg,
@@ -269,14 +283,30 @@ int run_target(const TargetOptions& o) {
                      {"note",
                       "measured in speed hold at the end of the warm-up, in the session; falls back to "
                       "standard if it cannot be measured"}});
-  if (const auto c = choice(core::FirstSetting::history); chosen(c, core::FirstSetting::history))
-    initial.push_back({{"strategy", "history"},
-                       {"set", coef(c.set)},
-                       {"note", "target minus the loss of the accepted session of " + *c.history_utc}});
-  else
-    initial.push_back({{"strategy", "history"},
-                       {"note", cell ? "no earlier accepted session of this vehicle on this cell"
-                                     : "give --cell to look up the history"}});
+  if (const auto c = choice(core::FirstSetting::history); chosen(c, core::FirstSetting::history)) {
+    std::string note = "target minus the loss of the accepted session of " + *c.history_utc;
+    if (c.history_basis) {
+      const core::HistoryBasis& b = *c.history_basis;
+      note += b.session_id.empty() ? " (the history file " + b.where + ")"
+                                   : " (session " + b.session_id + " on cell " + b.source_cell +
+                                         ", from the store " + b.where + "): " + b.note;
+      if (!b.pairs.empty())
+        note += "; correction f0 " + std::to_string(b.correction.f0_n) + " N, f1 " +
+                std::to_string(b.correction.f1_n_per_kmh) + " N/(km/h), f2 " +
+                std::to_string(b.correction.f2_n_per_kmh2) + " N/(km/h)^2";
+    }
+    nlohmann::json h = {{"strategy", "history"}, {"set", coef(c.set)}, {"note", note}};
+    if (c.loss) h["loss"] = coef(*c.loss);
+    if (!hist_lookup.is_null()) h["lookup"] = hist_lookup;
+    initial.push_back(h);
+  } else {
+    nlohmann::json h = {{"strategy", "history"},
+                        {"note", cell ? "no earlier accepted session of this vehicle (" +
+                                            hist_lookup.value("note", std::string()) + ")"
+                                      : "give --cell to look up the history (the store was not looked in)"}};
+    if (!hist_lookup.is_null()) h["lookup"] = hist_lookup;
+    initial.push_back(h);
+  }
 
   nlohmann::json rows = nlohmann::json::array();
   for (std::size_t j = 0; j < profile.reference_speeds_kmh.size(); ++j) {
@@ -436,7 +466,10 @@ void register_target_command(CLI::App& app, Runner& run) {
       ->check(CLI::Range(10.0, 400.0));
   s->add_option("--profile", o->profile, "standard profile name or file")->capture_default_str();
   s->add_option("--cell", o->cell, "cell file: its axle layout, and the history of this vehicle on it");
-  s->add_option("--history", o->history, "history of earlier sessions (default: sessions/history)");
+  s->add_option("--history", o->history,
+                "history file folder, read when no record store can be used (default: sessions/history)");
+  s->add_option("--data-dir", o->data_dir,
+                "the lab's data root, whose record store the history strategy reads (default: as for run)");
   s->add_option("--out", o->out, "write the target file here");
   s->add_flag("--json", o->json, "print everything as one JSON object");
   s->callback([o, s, &run] {

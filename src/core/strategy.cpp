@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <map>
 
 #include "core/setting.hpp"
 
@@ -98,6 +99,65 @@ RoadLoadFit fit_loss_map(std::span<const HoldPoint> points) {
   return fit_road_load(v, f);
 }
 
+std::optional<HistoryEntry> history_from_store(const std::string& this_cell,
+                                               std::span<const StoredSession> vehicle_sessions,
+                                               std::span<const CellPair> pairs, int max_pairs) {
+  // The vehicle's latest accepted session on each cell (ties in time: the first given).
+  std::map<std::string, const StoredSession*> latest;
+  for (const auto& s : vehicle_sessions) {
+    auto& l = latest[s.cell];
+    if (!l || s.utc > l->utc) l = &s;
+  }
+  if (latest.empty()) return std::nullopt;
+  HistoryEntry h;
+  HistoryBasis b;
+  b.source = "store";
+  const StoredSession* from = nullptr;
+  std::vector<CellPair> used;
+  if (auto here = latest.find(this_cell); here != latest.end()) {
+    from = here->second;
+    b.note = "the vehicle's latest accepted session on this cell: not corrected";
+  } else {
+    // The other cell with the most pairs; ties: the cell of the newer session.
+    std::map<std::string, std::vector<CellPair>> by_cell;
+    for (const auto& p : pairs)
+      if (p.here.cell == this_cell && latest.count(p.there.cell)) by_cell[p.there.cell].push_back(p);
+    for (const auto& [cell, s] : latest) {
+      const std::size_t n = by_cell.count(cell) ? by_cell[cell].size() : 0;
+      const std::size_t best = from && by_cell.count(from->cell) ? by_cell[from->cell].size() : 0;
+      if (!from || n > best || (n == best && s->utc > from->utc)) from = s;
+    }
+    used = by_cell[from->cell];
+    b.pairs_available = static_cast<int>(used.size());
+    // The newest pairs first (ties: by vehicle, so the choice does not depend on the order given).
+    std::sort(used.begin(), used.end(), [](const CellPair& a, const CellPair& c) {
+      return a.newest_utc() != c.newest_utc() ? a.newest_utc() > c.newest_utc() : a.vehicle < c.vehicle;
+    });
+    if (static_cast<int>(used.size()) > std::max(0, max_pairs)) used.resize(std::max(0, max_pairs));
+    b.same_cell = false;
+    if (used.empty()) {
+      b.note = "no vehicle run on both cells: not corrected";
+    } else {
+      // The arithmetic mean, per coefficient, of (loss here − loss there) over the pairs used.
+      RoadLoad sum;
+      for (const auto& p : used) sum = sum + (p.here.loss() - p.there.loss());
+      h.correction = sum.scaled(1.0 / static_cast<double>(used.size()));
+      b.note = "from cell " + from->cell + ", corrected by the mean difference of " +
+               std::to_string(used.size()) + " vehicle(s) run on both cells";
+    }
+  }
+  h.utc = from->utc;
+  h.target = from->target;
+  h.final_set = from->final_set;
+  b.session_id = from->id;
+  b.session_folder = from->folder;
+  b.source_cell = from->cell;
+  b.pairs = std::move(used);
+  b.correction = h.correction;
+  h.basis = std::move(b);
+  return h;
+}
+
 FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
   FirstSettingChoice c;
   c.used = to_string(in.requested);
@@ -112,6 +172,7 @@ FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
     if (in.history) {
       c.used = to_string(FirstSetting::history);
       c.loss = in.history->loss();
+      c.history_basis = in.history->basis;
     } else if (fleet_ok) {
       c.used = to_string(FirstSetting::fleet);
       c.loss = in.fleet->estimate(in.test_mass_kg, in.layout);
@@ -134,8 +195,9 @@ FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
       if (in.history) {
         c.loss = in.history->loss();
         c.history_utc = in.history->utc;
+        c.history_basis = in.history->basis;
       } else {
-        fallback("no earlier session of this vehicle on this cell");
+        fallback("no earlier accepted session of this vehicle");
       }
       break;
     case FirstSetting::loss_map: {

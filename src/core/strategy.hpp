@@ -67,14 +67,62 @@ struct HoldPlan {
 };
 HoldPlan plan_hold_points(const LossMap& map, double from_kmh, double speed_limit_kmh);
 
-// (d) History: the loss seen in earlier sessions of the same vehicle on the same cell (target − accepted
-// set).
+// (d) History: the loss seen in earlier sessions of the vehicle (target − accepted set): on the same cell as
+// it is; from another cell, corrected by what the lab's record store knows about the two cells
+// (docs/store.md, "The history first setting"; our rule, no source).
+//
+// One accepted session as the record store indexed it (its folder verified again before it is passed here).
+struct StoredSession {
+  std::string id;      // the session id (the folder's name)
+  std::string folder;  // where the store says it is
+  std::string cell, vehicle;
+  std::string utc;  // when it started (record 0), ISO 8601 UTC: sorts as text
+  RoadLoad target, final_set;
+  RoadLoad loss() const { return target - final_set; }
+};
+// A vehicle accepted on two cells: its latest accepted session on each.
+struct CellPair {
+  std::string vehicle;
+  StoredSession here;   // on the cell being set
+  StoredSession there;  // on the other cell
+  // When the pair was last seen: the later of its two sessions.
+  const std::string& newest_utc() const { return here.utc > there.utc ? here.utc : there.utc; }
+};
+// At most this many pairs (the newest) go into a cell correction (our rule, no source: enough for a stable
+// mean, few enough that a cell's drift over the years does not dominate).
+inline constexpr int kMaxCellPairs = 20;
+// Where a history estimate came from, for the record.
+struct HistoryBasis {
+  std::string source;  // "store" or "file"
+  std::string where;   // the store as shown (a file, or a server), or the history file
+  std::string session_id, session_folder, source_cell;  // the vehicle's session the loss is from
+  bool same_cell = true;
+  std::vector<CellPair> pairs;  // the pairs the correction is the mean over (newest first)
+  int pairs_available = 0;      // pairs between the two cells before the cap
+  RoadLoad correction;          // added to the session's loss (zero on the same cell, or without a pair)
+  std::string note;             // one sentence: how the loss was obtained
+};
 struct HistoryEntry {
   std::string utc;
   RoadLoad target;
   RoadLoad final_set;
-  RoadLoad loss() const { return target - final_set; }
+  RoadLoad correction;  // the cell correction (zero when the session was on this cell)
+  std::optional<HistoryBasis> basis;
+  RoadLoad loss() const { return target - final_set + correction; }
 };
+// The history estimate from the record store, for `vehicle_sessions` (accepted sessions of the vehicle, any
+// cell, any order) on `this_cell`, with `pairs` (vehicles accepted on this cell and another, there.cell the
+// other; any order). The rule (docs/store.md):
+// - the vehicle's latest accepted session on this cell, uncorrected, when there is one;
+// - else the cell X (of those the vehicle was accepted on) with the most pairs, ties to the cell of the newer
+//   session, and there the vehicle's latest accepted session; its loss plus the correction, the arithmetic
+//   mean over the newest `max_pairs` pairs of (loss here − loss on X), per coefficient;
+// - with no pair, X's loss uncorrected, note "no vehicle run on both cells: not corrected".
+// nullopt when the vehicle has no accepted session.
+std::optional<HistoryEntry> history_from_store(const std::string& this_cell,
+                                               std::span<const StoredSession> vehicle_sessions,
+                                               std::span<const CellPair> pairs,
+                                               int max_pairs = kMaxCellPairs);
 
 // The first setting, chosen once before the first coast-down (session.cpp) and shown per strategy by
 // `loadtrim target` (target_cmd.cpp): the one place the choice and its fallbacks are written.
@@ -96,6 +144,8 @@ struct FirstSettingChoice {
   std::optional<RoadLoad> loss;  // the loss estimate the set was derived from (set = target − loss)
   // What the chosen strategy used, recorded beside its result.
   std::optional<std::string> history_utc;  // only when history was requested and used
+  std::optional<HistoryBasis>
+      history_basis;  // whenever the history's loss was used and says where it is from
   std::optional<RoadLoad> map_fit;
   std::optional<double> map_residual_sd_n;
 };
@@ -103,8 +153,8 @@ struct FirstSettingChoice {
 // - A target file's initial set is used as given ("target-file").
 // - standard: Ad = k0·At, Bd = k1·Bt, Cd = k2·Ct (standard_initial_setting with the layout and rule).
 // - fleet: target − fleet.estimate(TM, layout) when the model is ok(); else standard, why "no fleet data".
-// - history: target − history.loss(); without history, the fallback below, why "no earlier session of this
-//   vehicle on this cell".
+// - history: target − history.loss(); without history, the fallback below, why "no earlier accepted session
+//   of this vehicle".
 // - loss-map: target − fit_loss_map(points) when the fit is ok; else the fallback, why "no loss map (not
 //   measured)" or "no loss map (<the fit's message>)".
 // - The fallback: history when there is one, else fleet when ok(), else standard.

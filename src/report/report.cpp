@@ -682,6 +682,27 @@ static std::string write_report_body(const std::string& folder, const std::strin
        first.value("strategy", "") + (first.value("fallback_reason", "").empty()
                                           ? ""
                                           : " (" + first.value("fallback_reason", "") + ")"));
+  // The history's sessions, when its loss was used (docs/store.md, "The history first setting").
+  if (const json hist = first.value("inputs", json::object()).value("history", json()); hist.is_object()) {
+    std::string text = hist.value("source", std::string()) == "store"
+                           ? "session " + hist.value("session", std::string()) + " on cell " +
+                                 hist.value("cell", std::string()) + " (" +
+                                 hist.value("folder", std::string()) + ")"
+                           : "the history file " + hist.value("where", std::string());
+    for (const auto& p : hist.value("pairs", json::array()))
+      if (p.is_object())
+        text += "; pair " + p.value("vehicle", std::string()) + ": " +
+                p.value("this_cell", json::object()).value("session", std::string()) + " here, " +
+                p.value("other_cell", json::object()).value("session", std::string()) + " there";
+    const json c = hist.value("correction", json::object());
+    if (c.value("pairs", 0) > 0 && c.value("f0_n", json()).is_number() &&
+        c.value("f1_n_per_kmh", json()).is_number() && c.value("f2_n_per_kmh2", json()).is_number())
+      text += "; correction f0 " + fmt(c["f0_n"].get<double>(), 2) + " N, f1 " +
+              fmt(c["f1_n_per_kmh"].get<double>(), 4) + " N/(km/h), f2 " +
+              fmt(c["f2_n_per_kmh2"].get<double>(), 6) + " N/(km/h)²";
+    text += ". " + hist.value("note", std::string());
+    meta("History used", text, "history-used");
+  }
   meta("Started / last record (UTC)", t_first + " / " + t_last);
   const json sw = started.value("software", json::object());
   meta("Software",

@@ -170,7 +170,12 @@ std::string event_sentence(const Event& e, const TextContext& ctx) {
           [&](const ev::WarmUpEnded&) { return std::string("warm-up ended"); },
           [&](const ev::FirstSetting& x) {
             return "first setting (" + x.strategy + "): " + coefficients(x.set) +
-                   (x.fallback_reason.empty() ? "" : " (" + x.fallback_reason + ")");
+                   (x.fallback_reason.empty() ? "" : " (" + x.fallback_reason + ")") +
+                   (!x.history ? std::string()
+                    : x.history->source == "store"
+                        ? "; history from session " + x.history->session_id + " on cell " +
+                              x.history->source_cell + " (" + x.history->note + ")"
+                        : "; history from the history file (" + x.history->note + ")");
           },
           [&](const ev::EnvelopeRefused& x) {
             return "coast-down " + std::to_string(x.run) + " not run: " + x.why;

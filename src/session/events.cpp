@@ -209,11 +209,33 @@ struct Mapper {
     if (e.loss_map_fit) inputs["loss_map_fit"] = to_json(*e.loss_map_fit);
     if (e.loss_map_residual_sd_n) inputs["loss_map_residual_sd_n"] = *e.loss_map_residual_sd_n;
     if (e.loss) inputs["loss"] = to_json(*e.loss);
-    return {{"requested", e.requested},
-            {"strategy", e.strategy},
-            {"fallback_reason", e.fallback_reason},
-            {"set", to_json(e.set)},
-            {"inputs", inputs}};
+    if (e.history) {
+      const core::HistoryBasis& b = *e.history;
+      nlohmann::json pairs = nlohmann::json::array();
+      for (const auto& p : b.pairs)
+        pairs.push_back({{"vehicle", p.vehicle},
+                         {"this_cell", {{"session", p.here.id}, {"folder", p.here.folder}}},
+                         {"other_cell", {{"session", p.there.id}, {"folder", p.there.folder}}}});
+      nlohmann::json correction = to_json(b.correction);
+      correction["pairs"] = b.pairs.size();
+      inputs["history"] = {{"source", b.source},
+                           {"where", b.where},
+                           {"session", b.session_id},
+                           {"folder", b.session_folder},
+                           {"cell", b.source_cell},
+                           {"same_cell", b.same_cell},
+                           {"pairs_available", b.pairs_available},
+                           {"pairs", pairs},
+                           {"correction", correction},
+                           {"note", b.note}};
+    }
+    nlohmann::json out = {{"requested", e.requested},
+                          {"strategy", e.strategy},
+                          {"fallback_reason", e.fallback_reason},
+                          {"set", to_json(e.set)},
+                          {"inputs", inputs}};
+    if (!e.history_lookup.is_null()) out["history_lookup"] = e.history_lookup;
+    return out;
   }
   nlohmann::json operator()(const ev::EnvelopeRefused& e) const {
     return {{"run", e.run}, {"set", to_json(e.set)}, {"why", e.why}};

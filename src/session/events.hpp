@@ -209,6 +209,12 @@ struct FirstSetting {   // "first_setting"
   std::optional<core::RoadLoad> loss_map_fit;
   std::optional<double> loss_map_residual_sd_n;
   std::optional<core::RoadLoad> loss;
+  // The history's sessions when its loss was used (written as inputs.history): the vehicle's session, the
+  // source cell, each pair's two sessions and the correction (docs/store.md, "The history first setting").
+  std::optional<core::HistoryBasis> history;
+  // Where the history was looked for and what was not used (written as "history_lookup" when the history
+  // strategy was requested or used; null: not written). Made by the app, which knows the store.
+  nlohmann::json history_lookup;
 };
 struct EnvelopeRefused {  // "envelope_refused"
   int run = 0;

@@ -994,8 +994,11 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
                                                                    .loss_map = loss_map_});
     set_ = c.set;
     first_setting_ = c.used;
+    const bool history_involved = opt_.first_setting == core::FirstSetting::history ||
+                                  c.used == core::to_string(core::FirstSetting::history);
     if (!emit(ev::FirstSetting{core::to_string(opt_.first_setting), c.used, c.why, set_, c.history_utc,
-                               c.map_fit, c.map_residual_sd_n, c.loss}))
+                               c.map_fit, c.map_residual_sd_n, c.loss, c.history_basis,
+                               history_involved ? opt_.history_lookup : nlohmann::json()}))
       stop = Stop{Outcome::record_failure, record_error_};
   }
   while (!stop) {

@@ -66,6 +66,9 @@ struct Options {
   core::FirstSetting first_setting = core::FirstSetting::loss_map;
   std::optional<core::FleetLossModel> fleet;  // for FirstSetting::fleet, and as a fallback
   std::optional<core::HistoryEntry> history;  // for FirstSetting::history, and as a fallback
+  // Where the history was looked for (the store or the history file) and the rows not used, for the
+  // first_setting record when the history is requested or used (docs/store.md); null: not said.
+  nlohmann::json history_lookup;
   double sample_rate_hz = 100.0;
   double resume_warm_up_s = -1.0;  // warm-up after a resume; < 0: the profile's full warm-up
   std::string operator_note;

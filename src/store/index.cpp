@@ -313,35 +313,36 @@ IngestResult ingest_folder(Store& store, const std::string& folder, const record
   return r;
 }
 
+std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::VerifyOptions& options) {
+  std::error_code ec;
+  if (!fs::is_directory(row.folder, ec))
+    return CheckFinding{row, "missing", row.what + " folder " + row.folder + " is missing"};
+  const record::FolderVerdict v = record::verify_folder(row.folder, options);
+  if (v.outcome == record::Outcome::broken)
+    return CheckFinding{row, "broken",
+                        row.what + " folder " + row.folder + " no longer verifies (broken): " + v.message};
+  if (v.outcome == record::Outcome::not_finished || !v.seal)
+    return CheckFinding{
+        row, "not finished",
+        row.what + " folder " + row.folder + " has lost its seal (not finished): " + v.message};
+  if (v.origin != row.origin)
+    return CheckFinding{row, "another folder",
+                        row.what + " folder " + row.folder + " is another folder now (origin " + v.origin +
+                            ", indexed " + row.origin + ")"};
+  if (v.seal->seal_sha256 != row.seal_sha256)
+    return CheckFinding{row, "another seal",
+                        row.what + " folder " + row.folder + " carries another seal than the one indexed"};
+  return std::nullopt;
+}
+
 bool check_store(Store& store, const record::VerifyOptions& options, std::vector<CheckFinding>& findings,
                  std::size_t& rows_checked, std::string& error) {
   std::vector<IndexedFolder> rows;
   if (!store.folders(rows, error)) return false;
   findings.clear();
   rows_checked = rows.size();
-  for (const auto& row : rows) {
-    std::error_code ec;
-    if (!fs::is_directory(row.folder, ec)) {
-      findings.push_back({row, "missing", row.what + " folder " + row.folder + " is missing"});
-      continue;
-    }
-    const record::FolderVerdict v = record::verify_folder(row.folder, options);
-    if (v.outcome == record::Outcome::broken) {
-      findings.push_back(
-          {row, "broken", row.what + " folder " + row.folder + " no longer verifies (broken): " + v.message});
-    } else if (v.outcome == record::Outcome::not_finished || !v.seal) {
-      findings.push_back(
-          {row, "not finished",
-           row.what + " folder " + row.folder + " has lost its seal (not finished): " + v.message});
-    } else if (v.origin != row.origin) {
-      findings.push_back({row, "another folder",
-                          row.what + " folder " + row.folder + " is another folder now (origin " + v.origin +
-                              ", indexed " + row.origin + ")"});
-    } else if (v.seal->seal_sha256 != row.seal_sha256) {
-      findings.push_back({row, "another seal",
-                          row.what + " folder " + row.folder + " carries another seal than the one indexed"});
-    }
-  }
+  for (const auto& row : rows)
+    if (auto f = check_row(row, options)) findings.push_back(std::move(*f));
   return true;
 }
 

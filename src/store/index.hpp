@@ -50,6 +50,9 @@ struct CheckFinding {
   std::string problem;  // "missing", "broken", "not finished", "another seal", "another folder"
   std::string message;  // a sentence naming the folder and what verify found
 };
+// One row against its folder (as check_store does for each): the finding, or nullopt when the folder is
+// there, verifies intact and sealed, and carries the indexed origin and seal.
+std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::VerifyOptions& options);
 // Every row of the store against its folder: the folder must exist, verify intact and sealed, and carry the
 // indexed origin and seal. rows_checked gets the number of rows looked at.
 bool check_store(Store& store, const record::VerifyOptions& options, std::vector<CheckFinding>& findings,

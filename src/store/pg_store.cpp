@@ -344,6 +344,35 @@ class PgStore final : public Store {
     }
   }
 
+  // --- the history first setting (docs/store.md, "The history first setting") ---
+  bool accepted_sessions(const std::string& vehicle, std::vector<AcceptedSession>& rows,
+                         std::string& error) override {
+    try {
+      rows.clear();
+      Rows s = run(schema::accepted_sessions_sql("$1"), Params().text(vehicle));
+      for (int i = 0; i < s.size(); ++i) rows.push_back(schema::accepted_session_row(RowOf(s, i)));
+      return true;
+    } catch (const std::exception& e) {
+      error = where_ + ": " + e.what();
+      return false;
+    }
+  }
+  bool cell_pairs(const std::string& cell_a, const std::string& cell_b, std::vector<CellPairRow>& rows,
+                  std::string& error) override {
+    try {
+      rows.clear();
+      if (cell_a == cell_b) return true;
+      Rows s = run(schema::cell_pairs_sql("$1", "$2"), Params().text(cell_a).text(cell_b));
+      std::vector<AcceptedSession> found;
+      for (int i = 0; i < s.size(); ++i) found.push_back(schema::accepted_session_row(RowOf(s, i)));
+      rows = schema::pair_rows(found, cell_a, cell_b);
+      return true;
+    } catch (const std::exception& e) {
+      error = where_ + ": " + e.what();
+      return false;
+    }
+  }
+
   bool history(const HistoryQuery& q, std::vector<HistoryRow>& rows, std::string& error) override {
     try {
       rows.clear();

@@ -294,4 +294,70 @@ std::vector<CellOverview> assemble_overview(const std::vector<LatestRow>& sessio
   return out;
 }
 
+// --- the history first setting (docs/store.md, "The history first setting") ---
+
+namespace {
+constexpr const char* kAcceptedColumns =
+    "s.name, s.folder, s.origin, s.seal_sha256, s.cell, s.vehicle, s.started_utc, s.target_f0_n, "
+    "s.target_f1_n_per_kmh, s.target_f2_n_per_kmh2, s.final_f0_n, s.final_f1_n_per_kmh, "
+    "s.final_f2_n_per_kmh2";
+// An accepted session that has a final set, in the table aliased `t` (an accepted session always has one;
+// the test is kept so that a row without it can never be used).
+std::string accepted(const std::string& t) {
+  return t + ".accepted = 1 AND " + t + ".final_f0_n IS NOT NULL AND " + t +
+         ".final_f1_n_per_kmh IS NOT NULL AND " + t + ".final_f2_n_per_kmh2 IS NOT NULL";
+}
+}  // namespace
+
+std::string accepted_sessions_sql(const std::string& vehicle) {
+  return std::string("SELECT ") + kAcceptedColumns + " FROM sessions s WHERE s.vehicle = " + vehicle +
+         " AND " + accepted("s") + " ORDER BY s.cell, s.started_utc DESC, s.id DESC";
+}
+
+std::string cell_pairs_sql(const std::string& cell_a, const std::string& cell_b) {
+  // Each vehicle's latest accepted session on either cell, for the vehicles accepted on both.
+  return std::string("SELECT ") + kAcceptedColumns + " FROM sessions s WHERE s.cell IN (" + cell_a + ", " +
+         cell_b + ") AND " + accepted("s") +
+         " AND s.started_utc = (SELECT max(t.started_utc) FROM sessions t WHERE t.vehicle = s.vehicle AND "
+         "t.cell = s.cell AND " +
+         accepted("t") +
+         ") AND EXISTS (SELECT 1 FROM sessions a WHERE a.vehicle = s.vehicle AND a.cell = " + cell_a +
+         " AND " + accepted("a") +
+         ") AND EXISTS (SELECT 1 FROM sessions b WHERE b.vehicle = s.vehicle "
+         "AND b.cell = " +
+         cell_b + " AND " + accepted("b") + ") ORDER BY s.vehicle, s.cell, s.id DESC";
+}
+
+AcceptedSession accepted_session_row(const ResultRow& c) {
+  AcceptedSession a;
+  a.name = c.text(0);
+  a.folder = c.text(1);
+  a.origin = c.text(2);
+  a.seal_sha256 = c.text(3);
+  a.cell = c.text(4);
+  a.vehicle = c.text(5);
+  a.started_utc = c.text(6);
+  a.target = core::RoadLoad{c.real(7), c.real(8), c.real(9)};
+  a.final_set = core::RoadLoad{c.real(10), c.real(11), c.real(12)};
+  return a;
+}
+
+std::vector<CellPairRow> pair_rows(const std::vector<AcceptedSession>& rows, const std::string& cell_a,
+                                   const std::string& cell_b) {
+  std::vector<CellPairRow> out;
+  if (cell_a == cell_b) return out;
+  for (std::size_t i = 0; i < rows.size();) {
+    std::size_t j = i;
+    const AcceptedSession *a = nullptr, *b = nullptr;
+    // The first row of each cell (two sessions started in the same millisecond: the later indexed).
+    for (; j < rows.size() && rows[j].vehicle == rows[i].vehicle; ++j) {
+      if (rows[j].cell == cell_a && !a) a = &rows[j];
+      if (rows[j].cell == cell_b && !b) b = &rows[j];
+    }
+    if (a && b) out.push_back({rows[i].vehicle, *a, *b});
+    i = j;
+  }
+  return out;
+}
+
 }  // namespace loadtrim::store::schema

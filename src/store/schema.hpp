@@ -60,4 +60,14 @@ std::vector<CellOverview> assemble_overview(const std::vector<LatestRow>& sessio
                                             const std::vector<LatestRow>& checks,
                                             const std::vector<RunningEntry>& running);
 
+// --- the history first setting: the same two queries on both engines, each given its parameters as the
+// engine writes them (SQLite "?1", "?2"; PostgreSQL "$1", "$2"): the vehicle, or the two cells. Their rows
+// are read by accepted_session_row().
+std::string accepted_sessions_sql(const std::string& first_parameter);
+std::string cell_pairs_sql(const std::string& first_parameter, const std::string& second_parameter);
+AcceptedSession accepted_session_row(const ResultRow& row);
+// Pairs the rows of cell_pairs_sql() (ordered by vehicle, then cell) into one row per vehicle.
+std::vector<CellPairRow> pair_rows(const std::vector<AcceptedSession>& rows, const std::string& cell_a,
+                                   const std::string& cell_b);
+
 }  // namespace loadtrim::store::schema

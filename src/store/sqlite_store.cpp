@@ -388,6 +388,39 @@ class SqliteStore final : public Store {
     }
   }
 
+  // --- the history first setting (docs/store.md, "The history first setting") ---
+  bool accepted_sessions(const std::string& vehicle, std::vector<AcceptedSession>& rows,
+                         std::string& error) override {
+    try {
+      rows.clear();
+      Stmt s(db_, schema::accepted_sessions_sql("?1"));
+      s.text(1, vehicle);
+      const StmtRow row(s);
+      while (s.step()) rows.push_back(schema::accepted_session_row(row));
+      return true;
+    } catch (const std::exception& e) {
+      error = path_ + ": " + e.what();
+      return false;
+    }
+  }
+  bool cell_pairs(const std::string& cell_a, const std::string& cell_b, std::vector<CellPairRow>& rows,
+                  std::string& error) override {
+    try {
+      rows.clear();
+      if (cell_a == cell_b) return true;
+      Stmt s(db_, schema::cell_pairs_sql("?1", "?2"));
+      s.text(1, cell_a).text(2, cell_b);
+      const StmtRow row(s);
+      std::vector<AcceptedSession> found;
+      while (s.step()) found.push_back(schema::accepted_session_row(row));
+      rows = schema::pair_rows(found, cell_a, cell_b);
+      return true;
+    } catch (const std::exception& e) {
+      error = path_ + ": " + e.what();
+      return false;
+    }
+  }
+
   // The version, as read from schema_migrations; 0 for an empty file. Throws SqlError for a file that is
   // not a loadtrim store.
   int version() {

@@ -138,6 +138,21 @@ struct CellOverview {
   std::vector<RunningEntry> running;  // oldest first
 };
 
+// --- the history first setting (docs/store.md, "The history first setting") ---
+// An accepted session with its final set, as indexed.
+struct AcceptedSession {
+  std::string name;  // the session id (the folder's name)
+  std::string folder, origin, seal_sha256;
+  std::string cell, vehicle;
+  std::string started_utc;
+  core::RoadLoad target, final_set;
+};
+// A vehicle accepted on two cells: its latest accepted session on each.
+struct CellPairRow {
+  std::string vehicle;
+  AcceptedSession on_a, on_b;
+};
+
 enum class PutResult {
   indexed,    // a new row
   refreshed,  // the same folder and seal were indexed before: its path, verify outcome and reviews updated
@@ -171,6 +186,15 @@ class Store {
   // Per cell: the latest session, the latest check, and the running rows whose folder is not indexed yet.
   // Cells in name order; every cell that has a session, a check or a running row.
   virtual bool overview(std::vector<CellOverview>& cells, std::string& error) = 0;
+
+  // --- the history first setting (docs/store.md, "The history first setting") ---
+  // The accepted sessions of `vehicle` that have a final set, on every cell: by cell, newest first in each.
+  virtual bool accepted_sessions(const std::string& vehicle, std::vector<AcceptedSession>& rows,
+                                 std::string& error) = 0;
+  // The vehicles with an accepted session (with a final set) on both `cell_a` and `cell_b`, each with its
+  // latest accepted session on either cell; by vehicle. Empty when the two cells are one.
+  virtual bool cell_pairs(const std::string& cell_a, const std::string& cell_b,
+                          std::vector<CellPairRow>& rows, std::string& error) = 0;
 };
 
 // How a store is opened. `use`: it must exist and be at exactly known_schema_version(), else refused with

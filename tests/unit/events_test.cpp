@@ -175,6 +175,28 @@ std::string event_name(const Payload& p) {
 
 const core::RoadLoad kSet{120.5, 0.25, 0.031};
 
+// A history from another cell with one pair (invented sessions).
+core::HistoryBasis history_basis() {
+  core::HistoryBasis b;
+  b.source = "store";
+  b.where = "/lab/store.sqlite";
+  b.session_id = "20261120T080000Z-V";
+  b.session_folder = "/lab/sessions/20261120T080000Z-V";
+  b.source_cell = "A";
+  b.same_cell = false;
+  core::CellPair p;
+  p.vehicle = "P1";
+  p.here.id = "20261110T080000Z-P1";
+  p.here.folder = "/lab/sessions/20261110T080000Z-P1";
+  p.there.id = "20261109T080000Z-P1";
+  p.there.folder = "/lab/sessions/20261109T080000Z-P1";
+  b.pairs = {p};
+  b.pairs_available = 1;
+  b.correction = {-7.0, -0.15, 0.0015};
+  b.note = "from cell A, corrected by the mean difference of 1 vehicle(s) run on both cells";
+  return b;
+}
+
 // One base-inertia set (both directions) and its summary.
 core::BaseInertiaCheck inertia_check() {
   core::ConstantForceRun up, down;
@@ -272,9 +294,15 @@ std::vector<Payload> every_event() {
       ev::LossMapPoint{{60.0, 80.0, 1.5, 500}},
       ev::WarmUpEnded{},
       ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, core::RoadLoad{30.0, 0.1, 0.004}, 0.8,
-                       core::RoadLoad{30.0, 0.1, 0.004}},
+                       core::RoadLoad{30.0, 0.1, 0.004}, std::nullopt, nlohmann::json()},
       ev::FirstSetting{"history", "standard", "no history", kSet, std::nullopt, std::nullopt, std::nullopt,
-                       std::nullopt},
+                       std::nullopt, std::nullopt, nlohmann::json()},
+      ev::FirstSetting{"history", "history", "", kSet, std::string("2026-11-20T08:00:00.000Z"), std::nullopt,
+                       std::nullopt, core::RoadLoad{73.0, 0.05, 0.0025}, history_basis(),
+                       nlohmann::json{{"looked", "store"},
+                                      {"store", "/lab/store.sqlite"},
+                                      {"not_used", nlohmann::json::array()},
+                                      {"note", ""}}},
       ev::EnvelopeRefused{2, kSet, "force above the cell's"},
       ev::SetWritten{1, kSet, 1},
       ev::CoastdownStarted{1, kSet, 135.0},
@@ -430,7 +458,7 @@ TEST(Events, TheRecordsResumeNeedsReadBack) {
   const CoastdownRecord run = usable_run();
   const std::vector<nlohmann::json> records = {
       line(ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, std::nullopt, std::nullopt,
-                            std::nullopt}),
+                            std::nullopt, std::nullopt, nlohmann::json()}),
       line(ev::SetWritten{3, kSet, 2}), line(ev::CoastdownStarted{3, kSet, 135.0}), line(ev::Coastdown{run})};
   const ResumePoint p = resume_point(records);
   EXPECT_EQ(p.malformed, 0);

@@ -68,7 +68,11 @@ core::FirstSettingInputs demo_inputs(FirstSetting f) {
 
 // History: a target of (150, 0.4, 0.03) accepted at (100, 0.1, 0.03): loss (50, 0.3, 0) by hand.
 core::HistoryEntry a_history() {
-  return {"2026-11-30T10:00:00.000Z", {150.0, 0.4, 0.03}, {100.0, 0.1, 0.03}};
+  core::HistoryEntry h;
+  h.utc = "2026-11-30T10:00:00.000Z";
+  h.target = {150.0, 0.4, 0.03};
+  h.final_set = {100.0, 0.1, 0.03};
+  return h;
 }
 
 }  // namespace
@@ -130,7 +134,7 @@ TEST(FirstSettingChoice, HistoryMissingFallsBackToFleetThenStandard) {
   in.fleet = exact_fleet({20.0, 0.1, 0.0}, {0.05, 0.0001, 0.0});
   core::FirstSettingChoice c = core::choose_first_setting(in);
   EXPECT_EQ(c.used, "fleet");
-  EXPECT_EQ(c.why, "no earlier session of this vehicle on this cell");
+  EXPECT_EQ(c.why, "no earlier accepted session of this vehicle");
   EXPECT_FALSE(c.history_utc);
   expect_curve(c.set, {48.5, 0.103, 0.033}, 1e-8);
   in.fleet.reset();

@@ -35,6 +35,7 @@
 #include "registry.hpp"
 #include "session/record_writer.hpp"
 #include "session/session.hpp"
+#include "store/history_source.hpp"
 #include "store/index.hpp"
 #include "store/pg_store.hpp"
 #include "store/schema.hpp"
@@ -956,6 +957,136 @@ TEST_P(StoreTest, AStoreAtVersionTwoMigratesToTheRunningTableKeepingItsRows) {
   ASSERT_TRUE(cells[0].check);
   EXPECT_EQ(cells[0].check->name, "c1");
   EXPECT_EQ(cells[0].check->kind, "readiness");
+}
+
+// --- the history first setting (docs/store.md, "The history first setting"; issue 19: "a vehicle set on one
+// cell yesterday starts from that setting on another cell today, corrected by what the store knows about the
+// two cells (vehicles run on both)"). Rows made by hand through put_session; the expected rows are picked by
+// hand from the list below.
+namespace {
+store::SessionEntry hand_entry(const std::string& name, const std::string& cell, const std::string& vehicle,
+                               const std::string& utc, bool accepted, const core::RoadLoad& final_set) {
+  store::SessionEntry e;
+  e.facts.folder = "/nowhere/sessions/" + name;
+  e.facts.name = name;
+  e.facts.origin = record::sha256_hex("origin of " + name);
+  e.facts.cell = cell;
+  e.facts.started_utc = utc;
+  e.facts.sealed_utc = utc;
+  e.facts.seal_sha256 = record::sha256_hex("seal of " + name);
+  e.vehicle = vehicle;
+  e.accepted = accepted;
+  e.result = accepted ? "accepted" : "not_accepted";
+  e.target = {150.0, 0.5, 0.03};
+  e.final_set = final_set;
+  return e;
+}
+}  // namespace
+
+TEST_P(StoreTest, AcceptedSessionsOfAVehicleAndTheVehiclesRunOnTwoCells) {
+  auto s = migrated();
+  ASSERT_TRUE(s);
+  // A vehicle id with a quote and a cell with a semicolon: bound parameters, never pasted into the SQL.
+  const std::string v = "V 'quoted'", a = "A; bay 1", b = "B", c = "C";
+  const std::vector<store::SessionEntry> entries = {
+      hand_entry("v-a-old", a, v, "2026-11-01T08:00:00.000Z", true, {60.0, 0.2, 0.028}),
+      hand_entry("v-a-new", a, v, "2026-11-20T08:00:00.000Z", true, {70.0, 0.3, 0.029}),
+      hand_entry("v-a-rejected", a, v, "2026-11-25T08:00:00.000Z", false, {71.0, 0.3, 0.029}),
+      hand_entry("v-c", c, v, "2026-11-25T09:00:00.000Z", true, {75.0, 0.25, 0.0295}),
+      hand_entry("w-a", a, "W", "2026-11-02T08:00:00.000Z", true, {50.0, 0.2, 0.02}),
+      hand_entry("p1-b-old", b, "P1", "2026-11-05T08:00:00.000Z", true, {49.0, 0.2, 0.027}),
+      hand_entry("p1-b", b, "P1", "2026-11-10T08:00:00.000Z", true, {50.0, 0.2, 0.027}),
+      hand_entry("p1-a", a, "P1", "2026-11-09T08:00:00.000Z", true, {40.0, 0.1, 0.028}),
+      hand_entry("p2-b", b, "P2", "2026-10-10T08:00:00.000Z", true, {40.0, 0.2, 0.023}),
+      hand_entry("p2-a", a, "P2", "2026-10-09T08:00:00.000Z", true, {36.0, 0.0, 0.025}),
+      hand_entry("q-b", b, "Q", "2026-10-11T08:00:00.000Z", true, {30.0, 0.1, 0.02}),
+      hand_entry("r-a", a, "R", "2026-10-12T08:00:00.000Z", true, {30.0, 0.1, 0.02}),
+      hand_entry("r-b", b, "R", "2026-10-13T08:00:00.000Z", false, {31.0, 0.1, 0.02}),
+  };
+  std::string err;
+  for (const auto& e : entries) {
+    store::PutResult r{};
+    ASSERT_TRUE(s->put_session(e, r, err)) << err;
+    ASSERT_EQ(r, store::PutResult::indexed);
+  }
+  // V: accepted only (not "v-a-rejected"), by cell ("A; bay 1" before "C"), newest first in each.
+  std::vector<store::AcceptedSession> rows;
+  ASSERT_TRUE(s->accepted_sessions(v, rows, err)) << err;
+  ASSERT_EQ(rows.size(), 3u);
+  EXPECT_EQ(rows[0].name, "v-a-new");
+  EXPECT_EQ(rows[1].name, "v-a-old");
+  EXPECT_EQ(rows[2].name, "v-c");
+  EXPECT_EQ(rows[0].cell, a);
+  EXPECT_EQ(rows[0].folder, "/nowhere/sessions/v-a-new");
+  EXPECT_EQ(rows[0].seal_sha256, record::sha256_hex("seal of v-a-new"));
+  EXPECT_EQ(rows[0].started_utc, "2026-11-20T08:00:00.000Z");
+  EXPECT_EQ(rows[0].target, (core::RoadLoad{150.0, 0.5, 0.03}));
+  EXPECT_EQ(rows[0].final_set, (core::RoadLoad{70.0, 0.3, 0.029}));
+  ASSERT_TRUE(s->accepted_sessions("V", rows, err)) << err;
+  EXPECT_TRUE(rows.empty()) << "another vehicle's id matched";
+  // B and A: P1 (its latest on B, p1-b) and P2; not Q (B only), not R (not accepted on B), not V or W.
+  std::vector<store::CellPairRow> pairs;
+  ASSERT_TRUE(s->cell_pairs(b, a, pairs, err)) << err;
+  ASSERT_EQ(pairs.size(), 2u);
+  EXPECT_EQ(pairs[0].vehicle, "P1");
+  EXPECT_EQ(pairs[0].on_a.name, "p1-b");
+  EXPECT_EQ(pairs[0].on_a.cell, b);
+  EXPECT_EQ(pairs[0].on_b.name, "p1-a");
+  EXPECT_EQ(pairs[0].on_b.final_set, (core::RoadLoad{40.0, 0.1, 0.028}));
+  EXPECT_EQ(pairs[1].vehicle, "P2");
+  EXPECT_EQ(pairs[1].on_a.name, "p2-b");
+  EXPECT_EQ(pairs[1].on_b.name, "p2-a");
+  // A and C: V only.
+  ASSERT_TRUE(s->cell_pairs(a, c, pairs, err)) << err;
+  ASSERT_EQ(pairs.size(), 1u);
+  EXPECT_EQ(pairs[0].on_a.name, "v-a-new");
+  EXPECT_EQ(pairs[0].on_b.name, "v-c");
+  ASSERT_TRUE(s->cell_pairs(a, a, pairs, err)) << err;
+  EXPECT_TRUE(pairs.empty());
+}
+
+// issue 19's rule for every row used: its folder must still be there, verify, and carry the indexed seal. A
+// newer row whose folder is missing is not used (and said), the sealed folder under it is; once that folder
+// is changed by one byte, nothing is used.
+TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
+  auto s = migrated();
+  ASSERT_TRUE(s);
+  const std::string copy = copy_folder("indexed");
+  ASSERT_EQ(store::ingest_folder(*s, copy, g_made->verify).status, store::IngestStatus::indexed);
+  std::string err;
+  store::PutResult put{};
+  ASSERT_TRUE(s->put_session(
+      hand_entry("gone", g_made->cell, g_made->vehicle, "2099-01-01T00:00:00.000Z", true, {1.0, 0.0, 0.0}),
+      put, err))
+      << err;
+  const json summary = json::parse(read_file(copy + "/summary.json"));
+  const json start = json::parse(lines_of(read_file(copy + "/events.jsonl")).front());
+  store::StoreHistoryLookup found;
+  ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))
+      << err;
+  EXPECT_EQ(found.sessions_found, 2);
+  ASSERT_EQ(found.not_used.size(), 1u);
+  EXPECT_EQ(found.not_used[0].session, "gone");
+  EXPECT_NE(found.not_used[0].why.find("missing"), std::string::npos) << found.not_used[0].why;
+  ASSERT_TRUE(found.entry && found.entry->basis);
+  EXPECT_EQ(found.entry->basis->session_id, "indexed");
+  EXPECT_EQ(found.entry->basis->source_cell, g_made->cell);
+  EXPECT_EQ(found.entry->basis->note, "no vehicle run on both cells: not corrected");
+  // loss = target (record 0) − final set (summary.json), no correction.
+  const core::RoadLoad loss = found.entry->loss();
+  EXPECT_DOUBLE_EQ(loss.f0_n,
+                   start["target"]["f0_n"].get<double>() - summary["final_set"]["f0_n"].get<double>());
+  EXPECT_DOUBLE_EQ(loss.f2_n_per_kmh2, start["target"]["f2_n_per_kmh2"].get<double>() -
+                                           summary["final_set"]["f2_n_per_kmh2"].get<double>());
+
+  std::string text = read_file(copy + "/summary.json");
+  text.back() = text.back() == ' ' ? '\t' : ' ';  // one byte of a sealed file
+  write_file(copy + "/summary.json", text);
+  ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))
+      << err;
+  EXPECT_FALSE(found.entry);
+  ASSERT_EQ(found.not_used.size(), 2u);
+  EXPECT_NE(found.not_used[1].why.find("broken"), std::string::npos) << found.not_used[1].why;
 }
 
 INSTANTIATE_TEST_SUITE_P(Engines, StoreTest, ::testing::Values(Engine::sqlite, Engine::postgresql),

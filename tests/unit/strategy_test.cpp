@@ -143,8 +143,140 @@ TEST(Strategy, SettingFromALossAndFromHistory) {
   EXPECT_NEAR(set.f2_n_per_kmh2, 0.032, 1e-15);
   for (double v : {20.0, 80.0, 130.0})
     EXPECT_NEAR(set.force_n(v), target.force_n(v) - loss.force_n(v), 1e-12);
-  const core::HistoryEntry h{"2026-01-01T00:00:00Z", target, set};
+  core::HistoryEntry h;
+  h.utc = "2026-01-01T00:00:00Z";
+  h.target = target;
+  h.final_set = set;
   EXPECT_NEAR(h.loss().f0_n, loss.f0_n, 1e-12);
   EXPECT_NEAR(h.loss().f1_n_per_kmh, loss.f1_n_per_kmh, 1e-15);
   EXPECT_NEAR(h.loss().f2_n_per_kmh2, loss.f2_n_per_kmh2, 1e-15);
+}
+
+// --- The history estimate from the record store (core::history_from_store; the rule is docs/store.md's, "The
+// history first setting": our rule, no source). Every expected number below is worked by hand from the
+// invented sessions: loss = target − accepted set (algebra), the correction the arithmetic mean, per
+// coefficient, of (loss on this cell − loss on the other cell) over the pairs.
+namespace {
+core::StoredSession stored(const std::string& id, const std::string& cell, const std::string& vehicle,
+                           const std::string& utc, const RoadLoad& target, const RoadLoad& final_set) {
+  return {id, "/lab/sessions/" + id, cell, vehicle, utc, target, final_set};
+}
+void expect_load(const RoadLoad& a, const RoadLoad& b) {
+  EXPECT_NEAR(a.f0_n, b.f0_n, 1e-9);
+  EXPECT_NEAR(a.f1_n_per_kmh, b.f1_n_per_kmh, 1e-12);
+  EXPECT_NEAR(a.f2_n_per_kmh2, b.f2_n_per_kmh2, 1e-14);
+}
+const RoadLoad kVTarget{150.0, 0.5, 0.03};
+// Vehicle V: accepted twice on cell A (the newer loss {80, 0.2, 0.001}), once on cell C (loss {75, 0.25,
+// 0.0005}); never on cell B, the cell being set.
+std::vector<core::StoredSession> v_sessions() {
+  return {stored("a-old", "A", "V", "2026-11-01T08:00:00.000Z", kVTarget, {60.0, 0.2, 0.028}),
+          stored("a-new", "A", "V", "2026-11-20T08:00:00.000Z", kVTarget, {70.0, 0.3, 0.029}),
+          stored("c-1", "C", "V", "2026-11-25T08:00:00.000Z", kVTarget, {75.0, 0.25, 0.0295})};
+}
+// Two vehicles run on A and B: loss on B − loss on A = {−10, −0.1, 0.001} (P1) and {−4, −0.2, 0.002} (P2).
+core::CellPair p1() {
+  return {"P1", stored("p1-b", "B", "P1", "2026-11-10T08:00:00.000Z", {120.0, 0.4, 0.03}, {50.0, 0.2, 0.027}),
+          stored("p1-a", "A", "P1", "2026-11-09T08:00:00.000Z", {120.0, 0.4, 0.03}, {40.0, 0.1, 0.028})};
+}
+core::CellPair p2() {
+  return {"P2",
+          stored("p2-b", "B", "P2", "2026-10-10T08:00:00.000Z", {100.0, 0.3, 0.025}, {40.0, 0.2, 0.023}),
+          stored("p2-a", "A", "P2", "2026-10-09T08:00:00.000Z", {100.0, 0.3, 0.025}, {36.0, 0.0, 0.025})};
+}
+// One vehicle run on C and B: loss on B − loss on C = {5, 0, 0}.
+core::CellPair q1(const std::string& vehicle = "Q1", const std::string& day = "2026-11-26") {
+  return {
+      vehicle,
+      stored(vehicle + "-b", "B", vehicle, day + "T09:00:00.000Z", {100.0, 0.3, 0.025}, {35.0, 0.2, 0.023}),
+      stored(vehicle + "-c", "C", vehicle, day + "T08:00:00.000Z", {100.0, 0.3, 0.025}, {40.0, 0.2, 0.023})};
+}
+}  // namespace
+
+TEST(HistoryFromStore, AnotherCellWithTheMostPairsAndTheMeanCorrection) {
+  // A has two pairs, C one: A is used although V's session on C is newer. V's latest on A: loss {80, 0.2,
+  // 0.001}; correction = mean of {−10, −0.1, 0.001} and {−4, −0.2, 0.002} = {−7, −0.15, 0.0015}; loss
+  // {73, 0.05, 0.0025}; set for the target {150, 0.5, 0.03}: {77, 0.45, 0.0275}.
+  const auto v = v_sessions();
+  const std::vector<core::CellPair> pairs = {p2(), q1(), p1()};
+  const auto h = core::history_from_store("B", v, pairs);
+  ASSERT_TRUE(h);
+  ASSERT_TRUE(h->basis);
+  EXPECT_EQ(h->basis->source_cell, "A");
+  EXPECT_EQ(h->basis->session_id, "a-new");
+  EXPECT_EQ(h->basis->session_folder, "/lab/sessions/a-new");
+  EXPECT_FALSE(h->basis->same_cell);
+  ASSERT_EQ(h->basis->pairs.size(), 2u);
+  EXPECT_EQ(h->basis->pairs[0].vehicle, "P1");  // the newest pair first
+  EXPECT_EQ(h->basis->pairs_available, 2);
+  expect_load(h->correction, {-7.0, -0.15, 0.0015});
+  expect_load(h->basis->correction, {-7.0, -0.15, 0.0015});
+  expect_load(h->loss(), {73.0, 0.05, 0.0025});
+  core::FirstSettingInputs in;
+  in.requested = core::FirstSetting::history;
+  in.target = kVTarget;
+  in.history = h;
+  const auto c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "history");
+  ASSERT_TRUE(c.history_basis);
+  EXPECT_EQ(c.history_basis->session_id, "a-new");
+  expect_load(c.set, {77.0, 0.45, 0.0275});
+}
+
+TEST(HistoryFromStore, ATieInPairsGoesToTheCellOfTheNewerSession) {
+  // Two pairs each for A and C: C's session (2026-11-25) is newer than A's (2026-11-20). Correction = mean of
+  // two {5, 0, 0} = {5, 0, 0}; C's loss {75, 0.25, 0.0005}; loss {80, 0.25, 0.0005}.
+  const auto v = v_sessions();
+  const std::vector<core::CellPair> pairs = {p1(), p2(), q1("Q1", "2026-11-26"), q1("Q2", "2026-11-27")};
+  const auto h = core::history_from_store("B", v, pairs);
+  ASSERT_TRUE(h && h->basis);
+  EXPECT_EQ(h->basis->source_cell, "C");
+  EXPECT_EQ(h->basis->session_id, "c-1");
+  ASSERT_EQ(h->basis->pairs.size(), 2u);
+  EXPECT_EQ(h->basis->pairs[0].vehicle, "Q2");
+  expect_load(h->loss(), {80.0, 0.25, 0.0005});
+}
+
+TEST(HistoryFromStore, TheSameCellIsUsedAsItIsWhateverThePairs) {
+  // V accepted on B itself (older than its sessions on A and C): B's session, loss {90, 0.1, 0.002}, no
+  // correction.
+  auto v = v_sessions();
+  v.push_back(stored("b-1", "B", "V", "2026-09-01T08:00:00.000Z", kVTarget, {60.0, 0.4, 0.028}));
+  const std::vector<core::CellPair> pairs = {p1(), p2()};
+  const auto h = core::history_from_store("B", v, pairs);
+  ASSERT_TRUE(h && h->basis);
+  EXPECT_TRUE(h->basis->same_cell);
+  EXPECT_EQ(h->basis->session_id, "b-1");
+  EXPECT_TRUE(h->basis->pairs.empty());
+  expect_load(h->correction, {0.0, 0.0, 0.0});
+  expect_load(h->loss(), {90.0, 0.1, 0.002});
+}
+
+TEST(HistoryFromStore, WithoutAPairTheOtherCellsLossIsUsedUncorrectedAndSaidSo) {
+  // Only A and C, no pair: the newer session (C, loss {75, 0.25, 0.0005}) as it is.
+  const auto v = v_sessions();
+  const auto h = core::history_from_store("B", v, {});
+  ASSERT_TRUE(h && h->basis);
+  EXPECT_EQ(h->basis->source_cell, "C");
+  EXPECT_EQ(h->basis->note, "no vehicle run on both cells: not corrected");
+  EXPECT_EQ(h->basis->pairs_available, 0);
+  expect_load(h->loss(), {75.0, 0.25, 0.0005});
+}
+
+TEST(HistoryFromStore, OnlyTheNewestPairsUpToTheCapAreUsed) {
+  // A cap of one pair: P1 (2026-11-10) is newer than P2 (2026-10-10): correction {−10, −0.1, 0.001}, loss
+  // {70, 0.1, 0.002}; two pairs were available.
+  const auto v = v_sessions();
+  const std::vector<core::CellPair> pairs = {p2(), p1()};
+  const auto h = core::history_from_store("B", v, pairs, 1);
+  ASSERT_TRUE(h && h->basis);
+  EXPECT_EQ(h->basis->source_cell, "A");
+  ASSERT_EQ(h->basis->pairs.size(), 1u);
+  EXPECT_EQ(h->basis->pairs[0].vehicle, "P1");
+  EXPECT_EQ(h->basis->pairs_available, 2);
+  expect_load(h->loss(), {70.0, 0.1, 0.002});
+}
+
+TEST(HistoryFromStore, NoAcceptedSessionIsNoEstimate) {
+  EXPECT_FALSE(core::history_from_store("B", {}, std::vector<core::CellPair>{p1()}));
 }

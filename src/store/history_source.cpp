@@ -1,0 +1,86 @@
+#include "store/history_source.hpp"
+
+#include <algorithm>
+#include <map>
+
+#include "store/index.hpp"
+
+namespace loadtrim::store {
+
+namespace {
+
+core::StoredSession to_core(const AcceptedSession& a) {
+  return {a.name, a.folder, a.cell, a.vehicle, a.started_utc, a.target, a.final_set};
+}
+
+// Each folder verified at most once per lookup (a session on this cell may pair with several other cells).
+class FolderChecks {
+ public:
+  FolderChecks(const record::VerifyOptions& options, std::vector<HistoryRowNotUsed>& not_used)
+      : options_(options), not_used_(not_used) {}
+  bool usable(const AcceptedSession& a) {
+    auto it = seen_.find(a.folder + '\n' + a.origin + '\n' + a.seal_sha256);
+    if (it != seen_.end()) return it->second;
+    const auto finding = check_row({"session", a.folder, a.origin, a.seal_sha256, ""}, options_);
+    if (finding) not_used_.push_back({a.name, a.folder, finding->message});
+    return seen_[a.folder + '\n' + a.origin + '\n' + a.seal_sha256] = !finding;
+  }
+
+ private:
+  const record::VerifyOptions& options_;
+  std::vector<HistoryRowNotUsed>& not_used_;
+  std::map<std::string, bool> seen_;
+};
+
+}  // namespace
+
+bool lookup_store_history(Store& store, const std::string& vehicle, const std::string& cell,
+                          const record::VerifyOptions& options, StoreHistoryLookup& out, std::string& error,
+                          int max_pairs) {
+  out = {};
+  std::vector<AcceptedSession> rows;
+  if (!store.accepted_sessions(vehicle, rows, error)) return false;
+  out.sessions_found = static_cast<int>(rows.size());
+  FolderChecks checks(options, out.not_used);
+  // Per cell, the newest session whose folder still verifies (rows: by cell, newest first in each).
+  std::vector<core::StoredSession> latest;
+  for (const auto& r : rows)
+    if ((latest.empty() || latest.back().cell != r.cell) && checks.usable(r)) latest.push_back(to_core(r));
+  const bool on_this_cell =
+      std::any_of(latest.begin(), latest.end(), [&](const core::StoredSession& s) { return s.cell == cell; });
+  std::vector<core::CellPair> pairs;
+  std::map<std::string, int> available;  // pairs between this cell and each other, before any was checked
+  if (!on_this_cell) {
+    for (const auto& other : latest) {
+      std::vector<CellPairRow> found;
+      if (!store.cell_pairs(cell, other.cell, found, error)) return false;
+      available[other.cell] = static_cast<int>(found.size());
+      // The newest pairs first (the later of a pair's two sessions; ties by vehicle), as the core orders
+      // them.
+      std::sort(found.begin(), found.end(), [](const CellPairRow& a, const CellPairRow& b) {
+        const std::string& ta = std::max(a.on_a.started_utc, a.on_b.started_utc);
+        const std::string& tb = std::max(b.on_a.started_utc, b.on_b.started_utc);
+        return ta != tb ? ta > tb : a.vehicle < b.vehicle;
+      });
+      int used = 0;
+      for (std::size_t i = 0; i < found.size() && used < max_pairs; ++i) {
+        const bool here_ok = checks.usable(found[i].on_a);
+        const bool there_ok = checks.usable(found[i].on_b);
+        if (here_ok && there_ok) {
+          pairs.push_back({found[i].vehicle, to_core(found[i].on_a), to_core(found[i].on_b)});
+          ++used;
+        }
+      }
+    }
+  }
+  out.entry = core::history_from_store(cell, latest, pairs, max_pairs);
+  if (out.entry && out.entry->basis) {
+    auto& b = *out.entry->basis;
+    b.source = "store";
+    b.where = store.location();
+    if (!b.same_cell) b.pairs_available = available[b.source_cell];
+  }
+  return true;
+}
+
+}  // namespace loadtrim::store
