@@ -46,9 +46,9 @@ struct WarmUp {
   double stable_window_s = 60.0;
   double max_extra_s = 600.0;  // ...for at most this much longer
   // How "stable" is judged (lab policy, docs/standards.md §3.12): `windows`, the mean hold force of the last
-  // window differs from the one before by less than stable_within_n; `trend`, the warming curve fitted across
-  // the hold windows so far (warm_up_drift.hpp) says less than stable_within_n is still to come at the warm-up
-  // speed (a fit that is not ok, or whose τ is not resolved, is not stable).
+  // window differs from the one before by less than stable_within_n; `trend`, less than stable_within_n is
+  // still to come at the warm-up speed by remaining_drift_for_end_n (warm_up_drift.hpp: the warming curve
+  // fitted across the hold windows so far, and the recent slope carried on; no verdict is not stable).
   enum class StableBy { windows, trend };
   StableBy stable_by = StableBy::windows;
   // The drift still to come at acceptance (docs/standards.md §3.12, lab policy): "warn" accepts with a

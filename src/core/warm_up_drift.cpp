@@ -74,4 +74,28 @@ WarmUpCurve fit_warm_up_curve(std::span<const DriftPoint> pts, double tau_min_s,
   return out;
 }
 
+std::optional<double> remaining_drift_for_end_n(std::span<const DriftPoint> points, double t_s,
+                                                double horizon_s, std::size_t recent) {
+  if (recent < 2 || points.size() < recent) return std::nullopt;
+  const WarmUpCurve c = fit_warm_up_curve(points);
+  if (!c.ok || c.tau_at_bound) return std::nullopt;
+  // Least-squares slope of the last `recent` windows (textbook linear regression).
+  const auto last = points.subspan(points.size() - recent);
+  double mt = 0.0, mf = 0.0;
+  for (const auto& p : last) {
+    mt += p.t_s;
+    mf += p.force_n;
+  }
+  mt /= static_cast<double>(recent);
+  mf /= static_cast<double>(recent);
+  double stt = 0.0, stf = 0.0;
+  for (const auto& p : last) {
+    stt += (p.t_s - mt) * (p.t_s - mt);
+    stf += (p.t_s - mt) * (p.force_n - mf);
+  }
+  if (!(stt > 0.0)) return std::nullopt;
+  const double slope = stf / stt;
+  return std::max(c.remaining_drift_n(t_s), std::abs(slope) * std::max(c.tau_s, horizon_s));
+}
+
 }  // namespace loadtrim::core

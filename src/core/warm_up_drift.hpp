@@ -4,6 +4,8 @@
 // force the loss will still fall (or rise) by at the warm-up speed. Pure: no I/O.
 #pragma once
 
+#include <cstddef>
+#include <optional>
 #include <span>
 #include <string>
 
@@ -29,5 +31,19 @@ struct WarmUpCurve {
 // A). Needs at least 4 finite points spanning some time.
 WarmUpCurve fit_warm_up_curve(std::span<const DriftPoint> points, double tau_min_s = 30.0,
                               double tau_max_s = 20000.0);
+
+// How long the recent slope is carried on at least (lab policy, no source: ten minutes, half the road
+// warm-up's 20 minutes).
+inline constexpr double kTrendHorizonS = 600.0;
+
+// The drift still to come as the warm-up's end rule judges it (stable_by "trend", docs/standards.md §3.12):
+// the larger of the curve's |A|·exp(−t/τ) and the recent slope carried on, |s|·max(τ, horizon_s), where s is
+// the least-squares slope of the last `recent` windows. For one first-order warming the two agree (the slope
+// of A·exp(−t/τ) is −A/τ·exp(−t/τ)); when the warming has a second, slower part, or noise or a start spike
+// bends the fit to a short τ, the curve alone says "settled" while the force still falls, and the slope
+// carried over the horizon does not. nullopt when the curve cannot be fitted (or is not resolved: τ at the
+// search's bound) or fewer than `recent` windows exist.
+std::optional<double> remaining_drift_for_end_n(std::span<const DriftPoint> points, double t_s,
+                                                double horizon_s, std::size_t recent = 5);
 
 }  // namespace loadtrim::core

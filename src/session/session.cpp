@@ -364,9 +364,11 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
           // warm-up that has since moved).
           if (w.stable_within_n > 0.0) {
             if (w.stable_by == core::WarmUp::StableBy::trend) {
-              // The warming curve across every hold window since motoring began (docs/standards.md §3.12).
-              const core::WarmUpCurve c = core::fit_warm_up_curve(drift_points_);
-              stable = c.ok && !c.tau_at_bound && c.remaining_drift_n(s.time_s - drift_t0_) < w.stable_within_n;
+              // The warming curve across every hold window since motoring began, and the recent slope
+              // carried over at least kTrendHorizonS (docs/standards.md §3.12).
+              const auto left = core::remaining_drift_for_end_n(drift_points_, s.time_s - drift_t0_,
+                                                                core::kTrendHorizonS);
+              stable = left && *left < w.stable_within_n;
             } else {
               stable = window_means.size() >= 2 &&
                        std::abs(window_means.back() - window_means[window_means.size() - 2]) < w.stable_within_n;

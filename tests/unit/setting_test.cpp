@@ -156,6 +156,7 @@ TEST(Setting, ProfileValidationReportsEveryProblem) {
   p.band_half_width_kmh = 20.0;
   p.tolerance_n = -1.0;
   p.reference_speeds_kmh = {30, 20};
+  p.warm_up.stable_by = WarmUp::StableBy::trend;  // with stable_within_n 0: nothing would be checked
   const Problems ps = validate(p);
   auto has = [&](const std::string& key) {
     for (const auto& q : ps)
@@ -166,5 +167,6 @@ TEST(Setting, ProfileValidationReportsEveryProblem) {
   EXPECT_TRUE(has("bands.half_width_kmh"));
   EXPECT_TRUE(has("acceptance.tolerance_n"));
   EXPECT_TRUE(has("bands.reference_speeds_kmh"));
+  EXPECT_TRUE(has("warm_up.stable_by"));
   EXPECT_TRUE(validate(wltp(SettingMethod::iterative)).empty());
 }
