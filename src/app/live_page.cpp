@@ -268,6 +268,8 @@ void guard(httplib::Server& server, const std::string& token) {
 void page_headers(httplib::Response& res) {
   res.set_header("Cache-Control", "no-store");
   res.set_header("X-Content-Type-Options", "nosniff");
+  // A token given as ?token= never leaves in a Referer header (the page links only to itself anyway).
+  res.set_header("Referrer-Policy", "no-referrer");
   res.set_header(
       "Content-Security-Policy",
       "default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; connect-src 'self'");

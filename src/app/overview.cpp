@@ -11,22 +11,40 @@ namespace {
 
 using report::xml_escape;
 
-// "running" or "stale" for a running row, by its start against the time the view was read. A start that is
-// not a UTC time (never written so by loadtrim) is stale: nothing says it is recent.
-const char* running_state(const store::RunningEntry& r, const OverviewView& v) {
+// "running" or "stale" for a running row of cell `c`, against the time the view was read. Stale: a start that
+// is not a UTC time (never written so by loadtrim), older than v.stale_after_s, more than a minute in the future
+// (a clock not to be believed), or followed by a later start on the same cell (a cell runs one session or
+// check at a time, so an earlier one without an end crashed or lost its end: the hostile review saw a killed
+// session shown as running beside the cell's next, accepted session).
+const char* running_state(const store::CellOverview& c, const store::RunningEntry& r, const OverviewView& v) {
   const auto now = checks::parse_utc_s(v.now_utc);
   const auto started = checks::parse_utc_s(r.started_utc);
   if (!now || !started) return "stale";
-  return *now - *started > v.stale_after_s ? "stale" : "running";
+  if (*now - *started > v.stale_after_s || *started - *now > 60.0) return "stale";
+  auto later = [&](const std::string& utc) {
+    const auto t = checks::parse_utc_s(utc);
+    return t && *t > *started;
+  };
+  if ((c.session && later(c.session->started_utc)) || (c.check && later(c.check->started_utc))) return "stale";
+  for (const auto& o : c.running)
+    if (&o != &r && later(o.started_utc)) return "stale";
+  return "running";
 }
 
 const char* cell_state(const store::CellOverview& c, const OverviewView& v) {
   const char* state = "idle";
   for (const auto& r : c.running) {
-    if (std::string(running_state(r, v)) == "running") return "running";
+    if (std::string(running_state(c, r, v)) == "running") return "running";
     state = "stale";
   }
   return state;
+}
+
+// Text for a terminal: control characters from the store (escape sequences, line breaks) shown as '?'.
+std::string printable(std::string s) {
+  for (char& ch : s)
+    if (static_cast<unsigned char>(ch) < 0x20 || ch == 0x7f) ch = '?';
+  return s;
 }
 
 nlohmann::json latest_json(const std::optional<store::LatestRow>& r) {
@@ -61,9 +79,9 @@ std::string set_text(const std::optional<core::RoadLoad>& s) {
 }
 
 // One running row in words: "running since ..., live page at ..." or "no end indexed (stale?)".
-std::string running_words(const store::RunningEntry& r, const OverviewView& v) {
+std::string running_words(const store::CellOverview& c, const store::RunningEntry& r, const OverviewView& v) {
   const std::string what = r.what + " " + r.name + (r.vehicle.empty() ? "" : " (" + r.vehicle + ")");
-  if (std::string(running_state(r, v)) == "stale")
+  if (std::string(running_state(c, r, v)) == "stale")
     return what + ": started " + r.started_utc + ", no end indexed (stale?)";
   return what + ": running since " + r.started_utc +
          (r.live_url.empty() ? std::string() : ", live page at " + r.live_url);
@@ -72,7 +90,9 @@ std::string running_words(const store::RunningEntry& r, const OverviewView& v) {
 std::string latest_words(const store::LatestRow& r) {
   std::string s = r.what + " " + r.name + " (" + r.kind + (r.vehicle.empty() ? "" : ", " + r.vehicle) +
                   "), started " + r.started_utc + ": " + r.result;
-  if (r.what == "session") s += std::string(r.accepted ? ", accepted" : ", not accepted");
+  // The result's own word says it already ("accepted", "not-accepted"); otherwise the verdict is added.
+  if (r.what == "session" && r.result != (r.accepted ? "accepted" : "not-accepted"))
+    s += std::string(r.accepted ? ", accepted" : ", not accepted");
   if (r.what == "session") s += "; final set " + set_text(r.final_set);
   if (!r.detail.empty()) s += "; " + r.detail;
   return s + "; seal " + r.verify_outcome;
@@ -92,7 +112,7 @@ nlohmann::json overview_json(const OverviewView& v) {
                          {"started_utc", r.started_utc},
                          {"live_url", r.live_url},
                          {"folder", r.folder},
-                         {"state", running_state(r, v)}});
+                         {"state", running_state(c, r, v)}});
     cells.push_back({{"cell", c.cell},
                      {"state", cell_state(c, v)},
                      {"running", running},
@@ -110,10 +130,10 @@ std::string overview_text(const OverviewView& v) {
   std::string out = "lab overview from " + v.store + " at " + v.now_utc + "\n";
   if (v.cells.empty()) return out + "no cell has an indexed session, check or running entry\n";
   for (const auto& c : v.cells) {
-    out += "cell " + c.cell + ": " + cell_state(c, v) + "\n";
-    for (const auto& r : c.running) out += "  now:           " + running_words(r, v) + "\n";
-    out += "  last session:  " + (c.session ? latest_words(*c.session) : std::string("none indexed")) + "\n";
-    out += "  last check:    " + (c.check ? latest_words(*c.check) : std::string("none indexed")) + "\n";
+    out += "cell " + printable(c.cell) + ": " + cell_state(c, v) + "\n";
+    for (const auto& r : c.running) out += "  now:           " + printable(running_words(c, r, v)) + "\n";
+    out += "  last session:  " + printable(c.session ? latest_words(*c.session) : "none indexed") + "\n";
+    out += "  last check:    " + printable(c.check ? latest_words(*c.check) : "none indexed") + "\n";
   }
   return out;
 }
@@ -167,9 +187,9 @@ std::string overview_html(const OverviewView& v, int refresh_s) {
            xml_escape(c.cell) + "</td><td>";
     if (c.running.empty()) out += "<span class=\"small\">idle</span>";
     for (const auto& r : c.running) {
-      const bool stale = std::string(running_state(r, v)) == "stale";
+      const bool stale = std::string(running_state(c, r, v)) == "stale";
       out += "<div class=\"" + std::string(stale ? "stale" : "running") + "\">" +
-             xml_escape(running_words(r, v));
+             xml_escape(running_words(c, r, v));
       // The live page's address as a link only when it is an http address the tool itself printed.
       if (!stale && r.live_url.rfind("http://", 0) == 0)
         out += " <a href=\"" + xml_escape(r.live_url) + "\">open</a>";
