@@ -234,8 +234,13 @@ DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
                              " left in the queue for the next time");
       break;
     }
+    // An entry gone since the list was read was taken by its folder's end (a start entry) or another drainer:
+    // nothing to do and nothing to set aside.
+    std::error_code gone;
+    if (fs::symlink_status(files[i], gone).type() == fs::file_type::not_found) continue;
     const Entry e = read_entry(files[i]);
     if (!e.error.empty()) {
+      if (fs::symlink_status(files[i], gone).type() == fs::file_type::not_found) continue;  // went meanwhile
       set_aside(data_root, e, out, e.error);
       continue;
     }

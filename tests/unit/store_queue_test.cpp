@@ -209,3 +209,32 @@ TEST(StoreQueue, StartAndEndedEntriesNoteAndClearTheRunningRow) {
   EXPECT_TRUE(cells.empty() || cells[0].running.empty());
   fs::remove_all(root);
 }
+
+// An entry that goes while a drain runs (its folder's end removes a start entry without the drain lock, or
+// another drainer took it) is not "set aside": nothing was (the hostile review saw exit 5 and a set-aside line
+// in store.log with queue/refused/ empty).
+TEST(StoreQueue, AnEntryGoneWhileTheQueueDrainsIsNotSetAside) {
+  const std::string root = make_temp_dir("lt-queue");
+  auto s = migrated_store(root + "/store.sqlite");
+  ASSERT_TRUE(s);
+  std::string err;
+  for (const char* name : {"20261203T100000Z-A", "20261203T100100Z-B"}) {
+    const store::RunningEntry run{"session",   root + "/sessions/" + name, name, "bay 1", "car", "iterative",
+                                  "2026-12-03T10:00:00.000Z", "", ""};
+    ASSERT_TRUE(store::enqueue_started(root, run, err)) << err;
+  }
+  const auto files = store::queued_entries(root);
+  ASSERT_EQ(files.size(), 2u);
+  // The store is opened when the first entry has been read: the second goes then.
+  const store::StoreOpener open = [&](std::string& e) -> std::unique_ptr<store::Store> {
+    fs::remove(files[1]);
+    return store::open_sqlite(root + "/store.sqlite", store::OpenMode::use, e);
+  };
+  const store::DrainResult r = store::drain_queue(root, open, {}, kLater);
+  EXPECT_EQ(r.set_aside, 0);
+  EXPECT_EQ(r.remaining, 0);
+  for (const auto& m : r.messages) EXPECT_EQ(m.find("set aside"), std::string::npos) << m;
+  EXPECT_FALSE(fs::exists(fs::path(root) / store::kQueueDirName / "refused"));
+  fs::remove_all(root);
+}
+
