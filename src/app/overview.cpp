@@ -12,10 +12,10 @@ namespace {
 using report::xml_escape;
 
 // "running" or "stale" for a running row of cell `c`, against the time the view was read. Stale: a start that
-// is not a UTC time (never written so by loadtrim), older than v.stale_after_s, more than a minute in the future
-// (a clock not to be believed), or followed by a later start on the same cell (a cell runs one session or
-// check at a time, so an earlier one without an end crashed or lost its end: the hostile review saw a killed
-// session shown as running beside the cell's next, accepted session).
+// is not a UTC time (never written so by loadtrim), older than v.stale_after_s, more than a minute in the
+// future (a clock not to be believed), or followed by a later start on the same cell (a cell runs one session
+// or check at a time, so an earlier one without an end crashed or lost its end: the hostile review saw a
+// killed session shown as running beside the cell's next, accepted session).
 const char* running_state(const store::CellOverview& c, const store::RunningEntry& r, const OverviewView& v) {
   const auto now = checks::parse_utc_s(v.now_utc);
   const auto started = checks::parse_utc_s(r.started_utc);
@@ -25,7 +25,8 @@ const char* running_state(const store::CellOverview& c, const store::RunningEntr
     const auto t = checks::parse_utc_s(utc);
     return t && *t > *started;
   };
-  if ((c.session && later(c.session->started_utc)) || (c.check && later(c.check->started_utc))) return "stale";
+  if ((c.session && later(c.session->started_utc)) || (c.check && later(c.check->started_utc)))
+    return "stale";
   for (const auto& o : c.running)
     if (&o != &r && later(o.started_utc)) return "stale";
   return "running";

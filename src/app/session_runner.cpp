@@ -270,11 +270,14 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
       load_fleet(req.fleet_csv.empty() ? data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv"
                                        : req.fleet_csv);
   const std::string hfile = history_file(req.history_dir, inputs.cell, inputs.vehicle);
-  // The history: the lab's record store when it can be used, else the per-cell file (docs/store.md).
-  HistoryFound history =
-      find_history(lab.root, inputs.cell.name, inputs.vehicle.id, hfile, [&] { return load_history(hfile); });
-  opt.history = std::move(history.entry);
-  opt.history_lookup = std::move(history.lookup);
+  // The history: the lab's record store when it can be used, else the per-cell file (docs/store.md). Not
+  // looked for when nothing can use it: the standard first setting, or a target file's own initial set.
+  if (req.first_setting != core::to_string(core::FirstSetting::standard) && !inputs.vehicle.initial_set) {
+    HistoryFound history = find_history(lab.root, inputs.cell.name, inputs.vehicle.id, hfile,
+                                        [&] { return load_history(hfile); });
+    opt.history = std::move(history.entry);
+    opt.history_lookup = std::move(history.lookup);
+  }
   const auto& tv = inputs.vehicle;
   session::ev::StartCommon common{
       .vehicle = tv.id,

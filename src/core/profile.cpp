@@ -96,9 +96,10 @@ Problems validate(const Profile& p) {
   range(ps, "warm_up.stable_window_s", p.warm_up.stable_window_s, 5.0, 1200.0, "s");
   range(ps, "warm_up.max_extra_s", p.warm_up.max_extra_s, 0.0, 7200.0, "s");
   if (p.warm_up.stable_by == WarmUp::StableBy::trend && !(p.warm_up.stable_within_n > 0.0))
-    ps.push_back({Problem::Severity::error, "warm_up.stable_by",
-                  "is \"trend\", which needs warm_up.stable_within_n above 0 N (the drift still to come at which "
-                  "the warm-up may end); with 0 nothing would be checked"});
+    ps.push_back(
+        {Problem::Severity::error, "warm_up.stable_by",
+         "is \"trend\", which needs warm_up.stable_within_n above 0 N (the drift still to come at which "
+         "the warm-up may end); with 0 nothing would be checked"});
   if (p.loss_map.speeds_kmh.size() < 3)
     ps.push_back(
         {Problem::Severity::error, "loss_map.speeds_kmh", "needs at least 3 speeds for a quadratic"});

@@ -366,12 +366,13 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
             if (w.stable_by == core::WarmUp::StableBy::trend) {
               // The warming curve across every hold window since motoring began, and the recent slope
               // carried over at least kTrendHorizonS (docs/standards.md §3.12).
-              const auto left = core::remaining_drift_for_end_n(drift_points_, s.time_s - drift_t0_,
-                                                                core::kTrendHorizonS);
+              const auto left =
+                  core::remaining_drift_for_end_n(drift_points_, s.time_s - drift_t0_, core::kTrendHorizonS);
               stable = left && *left < w.stable_within_n;
             } else {
-              stable = window_means.size() >= 2 &&
-                       std::abs(window_means.back() - window_means[window_means.size() - 2]) < w.stable_within_n;
+              stable =
+                  window_means.size() >= 2 &&
+                  std::abs(window_means.back() - window_means[window_means.size() - 2]) < w.stable_within_n;
             }
           }
         }
@@ -985,15 +986,31 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
   }
   if (!stop && choose_first) {
     // The first setting: the choice and its fallbacks are the core's (core/strategy.hpp).
-    const core::FirstSettingChoice c = core::choose_first_setting({.requested = opt_.first_setting,
-                                                                   .target = in_.vehicle.target,
-                                                                   .test_mass_kg = in_.vehicle.test_mass_kg,
-                                                                   .layout = in_.cell.axles,
-                                                                   .rule = p.initial,
-                                                                   .target_file_set = in_.vehicle.initial_set,
-                                                                   .fleet = opt_.fleet,
-                                                                   .history = opt_.history,
-                                                                   .loss_map = loss_map_});
+    auto choose = [&](core::FirstSetting requested) {
+      return core::choose_first_setting({.requested = requested,
+                                         .target = in_.vehicle.target,
+                                         .test_mass_kg = in_.vehicle.test_mass_kg,
+                                         .layout = in_.cell.axles,
+                                         .rule = p.initial,
+                                         .target_file_set = in_.vehicle.initial_set,
+                                         .fleet = opt_.fleet,
+                                         .history = opt_.history,
+                                         .loss_map = loss_map_});
+    };
+    core::FirstSettingChoice c = choose(opt_.first_setting);
+    // A strategy's set that leaves the safe envelope (a history row, a fleet or map fit gone wild) is never
+    // the first setting: the standard's is used instead and the record says why (the envelope would refuse
+    // to write it anyway, after the warm-up, as a controller fault).
+    if (c.used != "target-file" && c.used != core::to_string(core::FirstSetting::standard)) {
+      if (const core::SetCheck chk = core::check_set(c.set, in_.vehicle.target, std::nullopt, opt_.envelope);
+          !chk.ok) {
+        const std::string why = "the " + c.used + " first setting leaves the safe envelope (" + chk.why + ")";
+        const auto basis = c.history_basis;
+        c = choose(core::FirstSetting::standard);
+        c.why = why + "; the standard's first setting is used";
+        c.history_basis = basis;
+      }
+    }
     set_ = c.set;
     first_setting_ = c.used;
     const bool history_involved = opt_.first_setting == core::FirstSetting::history ||

@@ -21,7 +21,7 @@ class FolderChecks {
   bool usable(const AcceptedSession& a) {
     auto it = seen_.find(a.folder + '\n' + a.origin + '\n' + a.seal_sha256);
     if (it != seen_.end()) return it->second;
-    const auto finding = check_row({"session", a.folder, a.origin, a.seal_sha256, ""}, options_);
+    const auto finding = check_accepted_row(a, options_);
     if (finding) not_used_.push_back({a.name, a.folder, finding->message});
     return seen_[a.folder + '\n' + a.origin + '\n' + a.seal_sha256] = !finding;
   }
@@ -79,6 +79,16 @@ bool lookup_store_history(Store& store, const std::string& vehicle, const std::s
     b.source = "store";
     b.where = store.location();
     if (!b.same_cell) b.pairs_available = available[b.source_cell];
+    if (!b.same_cell && b.pairs.empty() && b.pairs_available > 0)
+      b.note = "from cell " + b.source_cell + ", not corrected: " + std::to_string(b.pairs_available) +
+               " vehicle(s) run on both cells, none whose folders still verify (see not_used)";
+  }
+  // A bounded record: the first kMaxNotUsed rows not used, and how many more.
+  constexpr std::size_t kMaxNotUsed = 20;
+  if (out.not_used.size() > kMaxNotUsed) {
+    const std::size_t more = out.not_used.size() - kMaxNotUsed;
+    out.not_used.resize(kMaxNotUsed);
+    out.not_used.push_back({"", "", "and " + std::to_string(more) + " more rows not used"});
   }
   return true;
 }

@@ -1,5 +1,6 @@
 #include "store/index.hpp"
 
+#include <cmath>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
@@ -313,11 +314,14 @@ IngestResult ingest_folder(Store& store, const std::string& folder, const record
   return r;
 }
 
-std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::VerifyOptions& options) {
+namespace {
+// check_row, also handing back the verdict when the folder verified (for callers that read the folder next).
+std::optional<CheckFinding> check_row_verdict(const IndexedFolder& row, const record::VerifyOptions& options,
+                                              record::FolderVerdict* verdict_out) {
   std::error_code ec;
   if (!fs::is_directory(row.folder, ec))
     return CheckFinding{row, "missing", row.what + " folder " + row.folder + " is missing"};
-  const record::FolderVerdict v = record::verify_folder(row.folder, options);
+  record::FolderVerdict v = record::verify_folder(row.folder, options);
   if (v.outcome == record::Outcome::broken)
     return CheckFinding{row, "broken",
                         row.what + " folder " + row.folder + " no longer verifies (broken): " + v.message};
@@ -332,6 +336,42 @@ std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::Ve
   if (v.seal->seal_sha256 != row.seal_sha256)
     return CheckFinding{row, "another seal",
                         row.what + " folder " + row.folder + " carries another seal than the one indexed"};
+  if (verdict_out) *verdict_out = std::move(v);
+  return std::nullopt;
+}
+
+bool same_load(const core::RoadLoad& a, const core::RoadLoad& b) {
+  auto same = [](double x, double y) {
+    return std::isfinite(x) && std::isfinite(y) && std::abs(x - y) <= 1e-9 * std::max(1.0, std::abs(y));
+  };
+  return same(a.f0_n, b.f0_n) && same(a.f1_n_per_kmh, b.f1_n_per_kmh) &&
+         same(a.f2_n_per_kmh2, b.f2_n_per_kmh2);
+}
+}  // namespace
+
+std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::VerifyOptions& options) {
+  return check_row_verdict(row, options, nullptr);
+}
+
+std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a,
+                                               const record::VerifyOptions& options) {
+  const IndexedFolder row{"session", a.folder, a.origin, a.seal_sha256, ""};
+  record::FolderVerdict v;
+  if (auto f = check_row_verdict(row, options, &v)) return f;
+  // The row is only what the folder said when it was indexed: its vehicle, cell, result, target and final set
+  // are believed only when the folder says the same now.
+  const FolderEntry e = read_folder(a.folder, v);
+  auto differs = [&](const std::string& what) {
+    return CheckFinding{row, "differs",
+                        "session folder " + a.folder + " says another " + what + " than the store's row"};
+  };
+  if (!e.session) return differs("kind of record (" + e.error + ")");
+  const SessionEntry& s = *e.session;
+  if (s.vehicle != a.vehicle) return differs("vehicle (" + s.vehicle + ")");
+  if (s.facts.cell != a.cell) return differs("cell (" + s.facts.cell + ")");
+  if (!s.accepted) return differs("result (" + s.result + ")");
+  if (!same_load(s.target, a.target)) return differs("target");
+  if (!s.final_set || !same_load(*s.final_set, a.final_set)) return differs("final set");
   return std::nullopt;
 }
 

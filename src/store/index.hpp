@@ -53,6 +53,11 @@ struct CheckFinding {
 // One row against its folder (as check_store does for each): the finding, or nullopt when the folder is
 // there, verifies intact and sealed, and carries the indexed origin and seal.
 std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::VerifyOptions& options);
+// An accepted session's row as the history first setting uses it: check_row, and then the folder read again
+// must say the same vehicle, cell, accepted result, target and final set as the row (the row is not the
+// evidence: the hostile review changed a row's final set, vehicle and cell and saw them used). A difference
+// is the finding "differs".
+std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options);
 // Every row of the store against its folder: the folder must exist, verify intact and sealed, and carry the
 // indexed origin and seal. rows_checked gets the number of rows looked at.
 bool check_store(Store& store, const record::VerifyOptions& options, std::vector<CheckFinding>& findings,

@@ -3,7 +3,7 @@
 // the same refusals at open, and every value a bound parameter ($1, $2, ...), never pasted into the SQL.
 //
 // Every wait has a deadline: the connection is given libpq's connect_timeout (PgTimeouts::connect_timeout_s
-// unless the connection string names one; 0 there, "wait without end", is refused), the session a
+// unless the connection string names a shorter one; 0 there, "wait without end", is refused), the session a
 // statement_timeout, and each answer is awaited on our monotonic clock for at most statement_timeout plus
 // PgTimeouts::answer_margin_ms; past that the connection is closed and the call fails. Messages name the
 // server as host:port/dbname, never the password.

@@ -197,8 +197,9 @@ TEST(WarmUpDrift, TheFirstOrderWarmingCurveIsRecovered) {
 }
 
 namespace {
-// When the warm-up's end rule (stable_by "trend", docs/standards.md §3.12) first says less than `within_n` is to
-// come, for window means `force(t)` every 60 s from t = 30 s, at least `min_s` and at most 3600 s: that time.
+// When the warm-up's end rule (stable_by "trend", docs/standards.md §3.12) first says less than `within_n` is
+// to come, for window means `force(t)` every 60 s from t = 30 s, at least `min_s` and at most 3600 s: that
+// time.
 template <class Force>
 double trend_end_s(Force force, double within_n, double min_s = 300.0) {
   std::vector<core::DriftPoint> pts;
@@ -213,27 +214,30 @@ double trend_end_s(Force force, double within_n, double min_s = 300.0) {
 
 TEST(WarmUpDrift, TheEndRuleWaitsWhileTheForceStillFalls) {
   // docs/standards.md §3.12. Window means of 60 s, a warm-up of at least 300 s ended when less than 2 N is to
-  // come. The truth's drift still to come at the end is computed by hand from its closed form; the rule must not
-  // end a warm-up with more than 4 N of it left (twice the threshold: our bound).
-  // (a) Two time constants, 25 N over 60 s and 20 N over 900 s (the curve alone fits τ ≈ 80 s and ended at
+  // come. The truth's drift still to come at the end is computed by hand from its closed form; the rule must
+  // not end a warm-up with more than 4 N of it left (twice the threshold: our bound). (a) Two time constants,
+  // 25 N over 60 s and 20 N over 900 s (the curve alone fits τ ≈ 80 s and ended at
   //     300 s with 14.5 N to come): 25·e^(−t/60) + 20·e^(−t/900).
   auto two = [](double t) { return 80.0 + 25.0 * std::exp(-t / 60.0) + 20.0 * std::exp(-t / 900.0); };
   const double t2 = trend_end_s(two, 2.0);
   EXPECT_LE(25.0 * std::exp(-t2 / 60.0) + 20.0 * std::exp(-t2 / 900.0), 4.0) << "ended at " << t2 << " s";
   EXPECT_LT(t2, 3600.0) << "it still ends";
-  // (b) A start spike of 15 N in the first window on a 30 N, 600 s warming (the curve alone ended at 300 s with
+  // (b) A start spike of 15 N in the first window on a 30 N, 600 s warming (the curve alone ended at 300 s
+  // with
   //     18.2 N to come).
   auto spike = [](double t) { return 80.0 + 30.0 * std::exp(-t / 600.0) + (t < 60.0 ? 15.0 : 0.0); };
   const double ts = trend_end_s(spike, 2.0);
   EXPECT_LE(30.0 * std::exp(-ts / 600.0), 4.0) << "ended at " << ts << " s";
-  // (c) One first-order warming, 30 N over 600 s: the closed form says 2 N is left at 600·ln(15) = 1625 s. The
-  //     slope of the last five windows is the slope 150 s before t (their middle), carried 600 s (= τ): it says
-  //     2 N at 1625 + 150 = 1775 s, so the rule ends at the next window's end, 1800 s (by hand).
+  // (c) One first-order warming, 30 N over 600 s: the closed form says 2 N is left at 600·ln(15) = 1625 s.
+  // The
+  //     slope of the last five windows is the slope 150 s before t (their middle), carried 600 s (= τ): it
+  //     says 2 N at 1625 + 150 = 1775 s, so the rule ends at the next window's end, 1800 s (by hand).
   auto one = [](double t) { return 80.0 + 30.0 * std::exp(-t / 600.0); };
   const double t1 = trend_end_s(one, 2.0);
   EXPECT_GE(t1, 1625.0);
   EXPECT_LE(t1, 1800.0);
-  // (d) The same with seeded N(0, 1 N) noise on the window means, 200 warm-ups: the curve alone left more than
+  // (d) The same with seeded N(0, 1 N) noise on the window means, 200 warm-ups: the curve alone left more
+  // than
   //     4 N to come in 18 % of them; the rule in at most 2 % (our bound).
   std::mt19937_64 rng(2026);
   std::normal_distribution<double> noise(0.0, 1.0);
@@ -247,4 +251,3 @@ TEST(WarmUpDrift, TheEndRuleWaitsWhileTheForceStillFalls) {
   std::vector<core::DriftPoint> few = {{30, 100}, {90, 99}, {150, 98}, {210, 97}};
   EXPECT_FALSE(core::remaining_drift_for_end_n(few, 240.0, core::kTrendHorizonS).has_value());
 }
-

@@ -284,9 +284,9 @@ TEST(Overview, RunningOrStaleIsJudgedByTheBound) {
   EXPECT_NE(text.find("no end indexed (stale?)"), std::string::npos) << text;
 }
 
-// A running row the cell's later indexed session or check follows is stale (a cell runs one at a time), and so
-// is one that starts more than a minute after the view's clock (a time not to be believed); the text form shows
-// control characters from the store as '?' (no escape sequence reaches a terminal).
+// A running row the cell's later indexed session or check follows is stale (a cell runs one at a time), and
+// so is one that starts more than a minute after the view's clock (a time not to be believed); the text form
+// shows control characters from the store as '?' (no escape sequence reaches a terminal).
 TEST(Overview, ACrashedStartFollowedByALaterSessionOrAFutureStartIsStale) {
   app::OverviewView v = sample_view();
   v.cells[0].running.resize(1);  // r1, started 11:00, an hour before the view

@@ -252,6 +252,34 @@ TEST(SessionUnit, ALateFirstCoastDownIsRepeatedOrKeptWithAFindingAsTheProfileSay
   }
 }
 
+// A history whose set leaves the safe envelope (the hostile review forged a store row with F0 = −10⁶ N and
+// saw the session end as a controller fault after the whole warm-up) is never the first setting: the
+// standard's is, the record says why, and the session goes on (docs/store.md, "The history first setting").
+TEST(SessionUnit, AFirstSettingOutsideTheEnvelopeFallsBackToTheStandard) {
+  FakeController c(loadtrim::testing::demo_truth());
+  Recorder record(true);
+  std::vector<session::ev::FirstSetting> firsts;
+  Hook hook([&](const session::Event& e) {
+    if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) firsts.push_back(*f);
+  });
+  session::Inputs in = inputs();
+  session::Options o = options();
+  o.first_setting = core::FirstSetting::history;
+  core::HistoryEntry h;
+  h.utc = "2026-12-02T10:00:00Z";
+  h.target = in.vehicle.target;
+  h.final_set = core::RoadLoad{-1.0e6, h.target.f1_n_per_kmh, h.target.f2_n_per_kmh2};
+  o.history = h;
+  session::Session s(in, o, c, {&record, &hook});
+  const auto sum = s.run();
+  ASSERT_EQ(firsts.size(), 1u);
+  EXPECT_EQ(firsts[0].strategy, "standard");
+  EXPECT_NE(firsts[0].fallback_reason.find("leaves the safe envelope"), std::string::npos)
+      << firsts[0].fallback_reason;
+  EXPECT_GT(firsts[0].set.f0_n, -1000.0);
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+}
+
 namespace {
 // The demo truth starting cold and warming slowly: cold excess 1.0 of the spin loss, τ = 400 s.
 physics::Truth slowly_warming_truth() {
@@ -317,8 +345,8 @@ TEST(SessionUnit, AWarmUpEndedOnTheWarmingTrendWaitsForTheDriftAWindowRuleMisses
   // with cold excess 1.0 of the spin loss (25 N + 0.002·80² = 37.8 N at 80 km/h) and τ = 400 s, so the force
   // still to come at t s of motoring is 37.8·e^(−t/400) (first-order warming, textbook). By hand:
   // - `trend` with 2 N: the curve says 37.8·e^(−t/400) < 2 from t = 400·ln(18.9) = 1176 s on, but the rule
-  //   also carries the slope of the last five 30 s windows (the slope at t − 75 s) over max(τ, 600 s) = 600 s:
-  //   37.8/400·e^(−(t−75)/400)·600 < 2 from t = 75 + 400·ln(28.35) = 1412 s on, so the warm-up holds about
+  //   also carries the slope of the last five 30 s windows (the slope at t − 75 s) over max(τ, 600 s) = 600
+  //   s: 37.8/400·e^(−(t−75)/400)·600 < 2 from t = 75 + 400·ln(28.35) = 1412 s on, so the warm-up holds about
   //   1412 s (less the run-up's few seconds; the fit carries the hold's noise: ±10 %, our bound);
   // - `windows` with 2 N per 30 s window: the window means fall by 37.8·(1 − e^(−30/400))·e^(−t/400) =
   //   2.73·e^(−t/400) N, under 2 N from t = 400·ln(1.37) = 125 s on, so it ends at the 300 s minimum with

@@ -211,16 +211,16 @@ TEST(StoreQueue, StartAndEndedEntriesNoteAndClearTheRunningRow) {
 }
 
 // An entry that goes while a drain runs (its folder's end removes a start entry without the drain lock, or
-// another drainer took it) is not "set aside": nothing was (the hostile review saw exit 5 and a set-aside line
-// in store.log with queue/refused/ empty).
+// another drainer took it) is not "set aside": nothing was (the hostile review saw exit 5 and a set-aside
+// line in store.log with queue/refused/ empty).
 TEST(StoreQueue, AnEntryGoneWhileTheQueueDrainsIsNotSetAside) {
   const std::string root = make_temp_dir("lt-queue");
   auto s = migrated_store(root + "/store.sqlite");
   ASSERT_TRUE(s);
   std::string err;
   for (const char* name : {"20261203T100000Z-A", "20261203T100100Z-B"}) {
-    const store::RunningEntry run{"session",   root + "/sessions/" + name, name, "bay 1", "car", "iterative",
-                                  "2026-12-03T10:00:00.000Z", "", ""};
+    const store::RunningEntry run{"session",   root + "/sessions/" + name, name, "bay 1", "car",
+                                  "iterative", "2026-12-03T10:00:00.000Z", "",   ""};
     ASSERT_TRUE(store::enqueue_started(root, run, err)) << err;
   }
   const auto files = store::queued_entries(root);
@@ -237,4 +237,3 @@ TEST(StoreQueue, AnEntryGoneWhileTheQueueDrainsIsNotSetAside) {
   EXPECT_FALSE(fs::exists(fs::path(root) / store::kQueueDirName / "refused"));
   fs::remove_all(root);
 }
-

@@ -18,6 +18,7 @@
 #include <sys/socket.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <atomic>
 #include <chrono>
 #include <filesystem>
@@ -947,6 +948,7 @@ TEST_P(StoreTest, AStoreAtVersionTwoMigratesToTheRunningTableKeepingItsRows) {
     ASSERT_TRUE(s->migrate(err, &applied)) << err;
     ASSERT_FALSE(applied.empty());
     EXPECT_EQ(applied.front().rfind("3 ", 0), 0u) << applied.front();
+    EXPECT_EQ(static_cast<int>(applied.size()), store::known_schema_version() - 2);
   }
   EXPECT_EQ(value("SELECT count(*) FROM running"), "0");
   auto s = open(store::OpenMode::use, err);
@@ -1078,6 +1080,25 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
                    start["target"]["f0_n"].get<double>() - summary["final_set"]["f0_n"].get<double>());
   EXPECT_DOUBLE_EQ(loss.f2_n_per_kmh2, start["target"]["f2_n_per_kmh2"].get<double>() -
                                            summary["final_set"]["f2_n_per_kmh2"].get<double>());
+
+  // The row is not the evidence: a final set, vehicle or cell changed in the store alone (the folder still
+  // verifies with its seal) is not used, and the lookup says the folder differs.
+  for (const std::string& forge :
+       {std::string("UPDATE sessions SET final_f0_n = final_f0_n + 100 WHERE name = 'indexed'"),
+        std::string("UPDATE sessions SET cell = 'another cell' WHERE name = 'indexed'")}) {
+    exec(forge);
+    ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))
+        << err;
+    EXPECT_FALSE(found.entry) << forge;
+    ASSERT_EQ(found.not_used.size(), 2u) << forge;
+    const bool said = std::any_of(found.not_used.begin(), found.not_used.end(), [](const auto& n) {
+      return n.session == "indexed" && n.why.find("says another") != std::string::npos;
+    });
+    EXPECT_TRUE(said) << forge << ": " << found.not_used[0].why << " / " << found.not_used[1].why;
+    exec(forge.find("cell =") != std::string::npos
+             ? "UPDATE sessions SET cell = '" + g_made->cell + "' WHERE name = 'indexed'"
+             : "UPDATE sessions SET final_f0_n = final_f0_n - 100 WHERE name = 'indexed'");
+  }
 
   std::string text = read_file(copy + "/summary.json");
   text.back() = text.back() == ' ' ? '\t' : ' ';  // one byte of a sealed file
