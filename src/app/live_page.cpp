@@ -186,6 +186,7 @@ struct LivePage::Impl {
   httplib::Server server;
   std::thread thread;
   std::atomic<bool> stopping{false};
+  std::atomic<int> streams{0};  // /events connections open
 
   std::mutex mutex;
   std::condition_variable changed;
@@ -361,23 +362,26 @@ std::unique_ptr<LivePage> LivePage::start(const LiveOptions& options, const std:
     headers(res);
     res.set_chunked_content_provider(
         "text/event-stream", [p, sent = std::uint64_t(-1)](std::size_t, httplib::DataSink& sink) mutable {
-          if (p->stopping) return false;
           {
             std::unique_lock<std::mutex> lock(p->mutex);
             p->changed.wait_for(lock, kKeepAlive, [&] { return p->version != sent || p->stopping.load(); });
-            if (p->stopping) return false;
             if (p->version == sent) {
+              if (p->stopping) return false;  // nothing new since the last message: the stream ends
               lock.unlock();
               static const char ping[] = ": keep-alive\n\n";
               return sink.write(ping, sizeof ping - 1);
             }
             sent = p->version;
           }
+          // What changed is sent, also when the page is stopping: the end's state (a result that came moments
+          // before the end) is the last message, then the stream ends.
           const std::string msg = "data: " + p->snapshot() + "\n\n";
           if (!sink.write(msg.data(), msg.size())) return false;
-          std::this_thread::sleep_for(kStreamPeriod);
-          return !p->stopping.load();
-        });
+          if (!p->stopping) std::this_thread::sleep_for(kStreamPeriod);
+          return true;
+        },
+        [p](bool) { --p->streams; });
+    ++p->streams;
   });
   // Nothing else: no route changes anything (httplib answers other methods and paths with 404/405).
   if (!listen(p->server, p->host, p->port, options.bind, p->thread, error)) return nullptr;
@@ -389,6 +393,11 @@ LivePage::LivePage(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
 LivePage::~LivePage() {
   impl_->stopping = true;
   impl_->changed.notify_all();
+  // An open stream is given one stream period to send the end's state (its last message) before the server
+  // stops; bounded, so a client that does not read cannot hold the end.
+  const auto until = std::chrono::steady_clock::now() + kStreamPeriod;
+  while (impl_->streams > 0 && std::chrono::steady_clock::now() < until)
+    std::this_thread::sleep_for(std::chrono::milliseconds(10));
   impl_->server.stop();
   if (impl_->thread.joinable()) impl_->thread.join();
 }
