@@ -215,7 +215,7 @@ double trend_end_s(Force force, double within_n, double min_s = 300.0) {
 TEST(WarmUpDrift, TheEndRuleWaitsWhileTheForceStillFalls) {
   // docs/standards.md §3.12. Window means of 60 s, a warm-up of at least 300 s ended when less than 2 N is to
   // come. The truth's drift still to come at the end is computed by hand from its closed form; the rule must
-  // not end a warm-up with more than 4 N of it left (twice the threshold: our bound). (a) Two time constants,
+  // not end a warm-up with more than 4 N of it left (twice the threshold: common practice, no source). (a) Two time constants,
   // 25 N over 60 s and 20 N over 900 s (the curve alone fits τ ≈ 80 s and ended at
   //     300 s with 14.5 N to come): 25·e^(−t/60) + 20·e^(−t/900).
   auto two = [](double t) { return 80.0 + 25.0 * std::exp(-t / 60.0) + 20.0 * std::exp(-t / 900.0); };
@@ -238,7 +238,7 @@ TEST(WarmUpDrift, TheEndRuleWaitsWhileTheForceStillFalls) {
   EXPECT_LE(t1, 1800.0);
   // (d) The same with seeded N(0, 1 N) noise on the window means, 200 warm-ups: the curve alone left more
   // than
-  //     4 N to come in 18 % of them; the rule in at most 2 % (our bound).
+  //     4 N to come in 18 % of them; the rule in at most 2 % (common practice, no source).
   std::mt19937_64 rng(2026);
   std::normal_distribution<double> noise(0.0, 1.0);
   int early = 0;

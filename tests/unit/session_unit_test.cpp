@@ -347,7 +347,7 @@ TEST(SessionUnit, AWarmUpEndedOnTheWarmingTrendWaitsForTheDriftAWindowRuleMisses
   // - `trend` with 2 N: the curve says 37.8·e^(−t/400) < 2 from t = 400·ln(18.9) = 1176 s on, but the rule
   //   also carries the slope of the last five 30 s windows (the slope at t − 75 s) over max(τ, 600 s) = 600
   //   s: 37.8/400·e^(−(t−75)/400)·600 < 2 from t = 75 + 400·ln(28.35) = 1412 s on, so the warm-up holds about
-  //   1412 s (less the run-up's few seconds; the fit carries the hold's noise: ±10 %, our bound);
+  //   1412 s (less the run-up's few seconds; the fit carries the hold's noise: ±10 %, common practice, no source);
   // - `windows` with 2 N per 30 s window: the window means fall by 37.8·(1 − e^(−30/400))·e^(−t/400) =
   //   2.73·e^(−t/400) N, under 2 N from t = 400·ln(1.37) = 125 s on, so it ends at the 300 s minimum with
   //   37.8·e^(−0.75) ≈ 17.9 N still to come.
