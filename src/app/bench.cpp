@@ -405,6 +405,7 @@ int run_bench(BenchOptions o) {
   // in all; measured for the loss map with the drift rule "warn", against the iterative standard's fixed
   // 20-minute warm-up (issue 17's total-cell-time goal).
   constexpr double kStableMinS = 300.0;  // lab policy for the bench, no source
+  constexpr double kWaitExtraS = 7200.0;  // the profile's limit on warm_up.max_extra_s
   core::Profile iterative_stable = iterative;
   iterative_stable.warm_up.max_extra_s = std::max(0.0, iterative.warm_up.duration_s - kStableMinS);
   iterative_stable.warm_up.duration_s = kStableMinS;
@@ -417,8 +418,24 @@ int run_bench(BenchOptions o) {
   core::Profile iterative_guard = iterative;
   iterative_guard.decision_rule.kind = core::DecisionRule::Kind::guard_band;
   iterative_guard.decision_rule.coverage_k = 2.0;
+  // The iterative profile whose passes the whole-trace curve must confirm (acceptance.whole_trace_confirms,
+  // docs/standards.md §3.11, lab policy): the whole-trace estimator as a tie-breaker against acceptances the
+  // truth finds outside tolerance, at a smaller cost than the guard band where the whole trace is the less
+  // noisy estimate.
+  core::Profile iterative_confirm = iterative;
+  iterative_confirm.whole_trace_confirms = true;
   core::Profile iterative_stable_require = iterative_stable;
   iterative_stable_require.warm_up.drift_rule = core::WarmUp::DriftRule::require;
+  // The iterative profile that waits for a stable vehicle (issue 17's fully-warm goal): the fixed profile's
+  // 20 minutes as the least warm-up, then on until the warming trend says less than the drift threshold is
+  // still to come, at most the profile limit of 2 hours more (lab policy for the bench, no source), and the
+  // drift rule "require" at acceptance. Measured for the loss map.
+  core::Profile iterative_wait = iterative;
+  iterative_wait.warm_up.max_extra_s = kWaitExtraS;
+  iterative_wait.warm_up.stable_within_n = iterative.warm_up.drift_threshold_n;
+  iterative_wait.warm_up.stable_window_s = 60.0;
+  iterative_wait.warm_up.stable_by = core::WarmUp::StableBy::trend;
+  iterative_wait.warm_up.drift_rule = core::WarmUp::DriftRule::require;
   struct Method {
     std::string key;
     const core::Profile* profile;
@@ -429,7 +446,9 @@ int run_bench(BenchOptions o) {
                                        {"iterative-require", &iterative_require, {2}},
                                        {"iterative-stable-warm-up", &iterative_stable, {2}},
                                        {"iterative-stable-warm-up-require", &iterative_stable_require, {2}},
-                                       {"iterative-guard-band", &iterative_guard, {2}}};
+                                       {"iterative-guard-band", &iterative_guard, {2}},
+                                       {"iterative-wait-for-stable-require", &iterative_wait, {2}},
+                                       {"iterative-whole-trace-confirms", &iterative_confirm, {2}}};
   std::size_t sessions_run = 0;
   for (const auto& m : methods)
     for (std::size_t s : m.strategies) sessions_run += fleet_v.size() * (strategies[s].history ? 2 : 1);
@@ -551,19 +570,28 @@ int run_bench(BenchOptions o) {
   bool sane = !fleet_v.empty();
   int unjudged = 0;
   double ref_cd = NAN, ref_min = NAN;  // the iterative standard's medians, for a method without its own
+  auto num_min = [](double s) {
+    char b[32];
+    std::snprintf(b, sizeof b, "%g", s / 60.0);
+    return std::string(b);
+  };
   for (std::size_t m = 0; m < methods.size(); ++m) {
     const core::Profile& prof = *methods[m].profile;
     const double tol = prof.tolerance_n;
     const bool stable_end = prof.warm_up.stable_within_n > 0.0,
                require = prof.warm_up.drift_rule == core::WarmUp::DriftRule::require,
-               guard = prof.decision_rule.kind == core::DecisionRule::Kind::guard_band;
+               guard = prof.decision_rule.kind == core::DecisionRule::Kind::guard_band,
+               confirm = prof.whole_trace_confirms;
     const std::string note =
-        std::string(stable_end ? ", warm-up ended on stability: at least 5 min, then until the warming trend "
-                                 "says less than the drift threshold is to come, at most 20 min"
-                               : "") +
+        (stable_end ? ", warm-up ended on stability: at least " + num_min(prof.warm_up.duration_s) +
+                          " min, then until the warming trend says less than the drift threshold is to come, "
+                          "at most " +
+                          num_min(prof.warm_up.duration_s + prof.warm_up.max_extra_s) + " min"
+                    : std::string()) +
         (require ? ", drift rule \"require\": a stable vehicle at acceptance" : "") +
         (guard ? ", decision rule guard band: |deviation| + 2u <= tolerance" : "") +
-        (stable_end || require || guard ? "; vs standard: the iterative one" : "");
+        (confirm ? ", a pass needs the whole-trace curve within tolerance too" : "") +
+        (stable_end || require || guard || confirm ? "; vs standard: the iterative one" : "");
     std::printf("%s method (%s%s); failed sessions count as the limit of %d coast-downs\n",
                 core::to_string(prof.method), prof.name.c_str(), note.c_str(),
         prof.max_coastdowns);
@@ -728,24 +756,42 @@ int run_bench(BenchOptions o) {
     for (const auto& key : {"iterative", "fixed-run"})
       for (const auto& [name, row] : mr[key].items())
         warm = std::max(warm, row["truly_outside_fully_warm_share"].get<double>());
-    const auto& rq = mr["iterative-require"]["loss-map"];
-    const double rq_share = rq["truly_outside_fully_warm_share"];
-    const double rq_min = rq["cell_min_median"],
-                 rq_failed = rq["failed"].get<double>() / rq["n"].get<double>();
     const double lm_min = mr["iterative"]["loss-map"]["cell_min_median"];
     std::printf(
-        "  fully warm: <= 1 %% with harsh when the profile requires a stable vehicle (drift rule "
-        "\"require\", "
-        "iterative, loss map)\n    measured %.2f %% (worst %.2f N; %.1f %% not accepted), median cell time "
-        "%.1f "
-        "min against %.1f min with \"warn\" (with \"warn\": up to %.2f %% truly outside fully warm)   %s\n",
-        100 * rq_share, rq["true_worst_fully_warm_n"].get<double>(), 100 * rq_failed, rq_min, lm_min,
-        100 * warm, harsh ? yes(rq_share <= 0.01) : "(goal for harsh only)");
-    report["goals"]["truly_outside_fully_warm_require"] = {{"share", rq_share},
-                                                           {"not_accepted_share", rq_failed},
-                                                           {"cell_min_median", rq_min},
-                                                           {"warn_worst_share", warm},
-                                                           {"met", rq_share <= 0.01}};
+        "  fully warm: <= 1 %% with harsh when the profile requires a stable vehicle (drift rule \"require\", "
+        "iterative, loss map; share of all sessions and of the accepted ones; with \"warn\": up to %.2f %% of "
+        "all sessions truly outside fully warm, median cell time %.1f min)\n",
+        100 * warm, lm_min);
+    // Two profiles that require a stable vehicle: the fixed 20-minute warm-up (which then coasts on at the
+    // accepted setting until the drift is below the threshold, within the coast-down limit) and one whose
+    // warm-up waits for the trend. The verdict is the waiting one's: a lab that requires a stable vehicle
+    // gives it the time; the fixed one is shown beside it. Both shares must hold: a profile that accepts few
+    // sessions can show a small share of all of them while most of what it accepts is outside.
+    bool wait_met = false;
+    for (const char* key : {"iterative-require", "iterative-wait-for-stable-require"}) {
+      const auto& rq = mr[key]["loss-map"];
+      const double n = rq["n"].get<double>(), failed = rq["failed"].get<double>();
+      const double share = rq["truly_outside_fully_warm_share"];
+      const double of_accepted = n > failed ? share * n / (n - failed) : 0.0;
+      const bool met = n > failed && share <= 0.01 && of_accepted <= 0.01;
+      const bool waits = std::string(key) != "iterative-require";
+      if (waits) wait_met = met;
+      std::printf(
+          "    %-26s %.2f %% of all, %.2f %% of accepted (worst %.2f N; %.1f %% not accepted); median cell "
+          "time %.1f min (warm-up %.1f)   %s\n",
+          waits ? "warm-up waits for stable:" : "fixed 20-minute warm-up:", 100 * share, 100 * of_accepted,
+          rq["true_worst_fully_warm_n"].get<double>(), 100 * failed / n, rq["cell_min_median"].get<double>(),
+          rq["split_min_median"]["warm_up"].get<double>(),
+          !harsh ? "(goal for harsh only)" : waits ? yes(met) : "(shown beside it)");
+      report["goals"]["truly_outside_fully_warm_require"][key] = {
+          {"share", share},
+          {"share_of_accepted", of_accepted},
+          {"not_accepted_share", failed / n},
+          {"cell_min_median", rq["cell_min_median"]},
+          {"met", met}};
+    }
+    report["goals"]["truly_outside_fully_warm_require"]["warn_worst_share"] = warm;
+    report["goals"]["truly_outside_fully_warm_require"]["met"] = wait_met;
   }
   {
     const auto& lm = mr["iterative"]["loss-map"];
@@ -815,7 +861,8 @@ int run_bench(BenchOptions o) {
   }
 
   // The sample-rate lever: the same vehicles and truths (the encoder noise's sd per sample unchanged) at each
-  // rate, side by side: iterative with the standard's first setting and the loss map, fixed-run with the loss
+  // rate, side by side: iterative with the standard's first setting and the loss map, iterative with the loss
+  // map and the guard-band decision rule (its guard band narrows as the noise falls), fixed-run with the loss
   // map.
   if (!o.compare_rates_hz.empty()) {
     const auto lever0 = Clock::now();
@@ -825,7 +872,10 @@ int run_bench(BenchOptions o) {
       std::size_t strategy;
     };
     const std::vector<LeverRow> lever = {
-        {"iterative", &iterative, 0}, {"iterative", &iterative, 2}, {"fixed-run", &fixed, 2}};
+        {"iterative", &iterative, 0},
+        {"iterative", &iterative, 2},
+        {"guard-band", &iterative_guard, 2},
+        {"fixed-run", &fixed, 2}};
     const std::size_t nr = o.compare_rates_hz.size();
     int lever_unjudged = 0;
     std::vector<Cells> lever_cells;

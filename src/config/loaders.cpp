@@ -36,6 +36,7 @@ core::Profile read_profile(TomlReader& r) {
   if (r.choice("acceptance.decision_rule", {"simple", "guard-band"}, std::string("simple")) == "guard-band")
     p.decision_rule.kind = core::DecisionRule::Kind::guard_band;
   p.decision_rule.coverage_k = r.number_or("acceptance.guard_band_k", 2.0, 1.0, 3.0, "");
+  p.whole_trace_confirms = r.boolean_or("acceptance.whole_trace_confirms", false);
   p.estimator_disagreement_n = r.number_or("acceptance.estimator_disagreement_n", 5.0, 0.0, 1000.0, "N");
   p.fixed_runs = r.integer_or("method.fixed_runs", 4, 2, 10);
   p.fixed_run_verification_runs = r.integer_or("method.fixed_run_verification_runs", 1, 0, 5);

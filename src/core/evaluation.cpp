@@ -33,7 +33,7 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
   e.check =
       check_tolerance(target, e.fit.coefficients, profile.reference_speeds_kmh, profile.tolerance_n,
                       profile.decision_rule, [&fit](double v) { return fit.force_standard_error_n(v); });
-  if (options.whole_trace) {
+  if (options.whole_trace || profile.whole_trace_confirms) {
     e.whole_trace =
         fit_whole_trace(trace, force_mass_kg, profile.bottom_speed_kmh() - profile.band_half_width_kmh,
                         profile.top_speed_kmh() + profile.band_half_width_kmh, e.fit.coefficients,
@@ -44,6 +44,30 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
             std::max(e.estimator_disagreement_n,
                      std::abs(e.fit.coefficients.force_n(v) - e.whole_trace.coefficients.force_n(v)));
       e.estimators_disagree = e.estimator_disagreement_n > profile.estimator_disagreement_n;
+    }
+  }
+  if (profile.whole_trace_confirms) {
+    // docs/standards.md §3.11 (lab policy): the standard's verdict stands only when an independent estimate
+    // from the same trace agrees that every reference speed is within tolerance.
+    if (!e.whole_trace.ok) {
+      e.confirmation = "not confirmed: the whole-trace fit failed (" + e.whole_trace.message + ")";
+    } else {
+      e.whole_trace_check = check_tolerance(target, e.whole_trace.coefficients, profile.reference_speeds_kmh,
+                                            profile.tolerance_n);
+      const ToleranceCheck& w = *e.whole_trace_check;
+      const SpeedDeviation* worst = nullptr;
+      for (const auto& r : w.rows)
+        if (!worst || std::abs(r.deviation_n) > std::abs(worst->deviation_n)) worst = &r;
+      const std::string at =
+          worst ? num(worst->deviation_n, 2) + " N at " + num(worst->speed_kmh) + " km/h" : std::string("-");
+      e.confirmation = w.pass ? "confirmed by the whole-trace curve (worst " + at + ")"
+                              : "not confirmed: the whole-trace curve is " + at + ", outside ±" +
+                                    num(profile.tolerance_n) + " N";
+    }
+    const bool confirmed = e.whole_trace_check && e.whole_trace_check->pass;
+    if (e.check.pass && !confirmed) {
+      e.check.pass = false;
+      e.confirmation_refused = true;
     }
   }
   return e;

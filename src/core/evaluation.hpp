@@ -2,6 +2,7 @@
 // the whole-trace estimator beside it, and the tolerance check against the target. Pure: no I/O.
 #pragma once
 
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -22,6 +23,11 @@ struct CoastdownEvaluation {
   double estimator_disagreement_n = 0.0;  // largest |F_band(v_j) − F_whole(v_j)|
   bool estimators_disagree = false;       // above the profile's threshold
   ToleranceCheck check;                   // of the regressed curve against the target
+  // The profile's whole_trace_confirms: the whole-trace curve's own check (simple rule), and one sentence on
+  // what it did to the verdict ("" when the profile does not ask). check.pass already includes it.
+  std::optional<ToleranceCheck> whole_trace_check;
+  std::string confirmation;
+  bool confirmation_refused = false;  // the band regression passed, the confirmation did not
 };
 
 struct EvaluationOptions {

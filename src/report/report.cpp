@@ -489,6 +489,11 @@ static std::string write_report_body(const std::string& folder, const std::strin
         r["check"].value("decision_rule", "simple") == "guard-band")
       rule_text = "guard band (lab policy): |deviation| \u2264 tolerance \u2212 " +
                   fmt(r["check"].value("coverage_k", 2.0), 1) + " \u00d7 u";
+  for (const auto& r : runs)
+    if (r.value("usable", false) && r.contains("check") && r["check"].contains("whole_trace_confirmation")) {
+      rule_text += "; a pass also needs the whole-trace curve within the tolerance (lab policy)";
+      break;
+    }
   meta("Decision rule", rule_text + "; tolerance \u00b1" + fmt(tol, 1) + " N at each reference speed",
        "decision-rule");
   meta("Standard and method", started.value("standard", "") + " \u2014 " + started.value("method", "") +

@@ -691,6 +691,12 @@ nlohmann::json to_json(const CoastdownRecord& r) {
                 {"rows", deviations_json(e.check.rows)}};
   if (e.check.rule.kind == core::DecisionRule::Kind::guard_band)
     j["check"]["coverage_k"] = e.check.rule.coverage_k;
+  if (!e.confirmation.empty()) {
+    j["check"]["whole_trace_confirmation"] = {{"text", e.confirmation},
+                                              {"refused_a_pass", e.confirmation_refused}};
+    if (e.whole_trace_check)
+      j["check"]["whole_trace_confirmation"]["rows"] = deviations_json(e.whole_trace_check->rows);
+  }
   j["decision"] = {{"kind", core::to_string(r.decision.kind)},
                    {"reason", r.decision.reason},
                    {"next_set", to_json(r.decision.next_set)}};

@@ -766,6 +766,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
                                              "): " + rec.evaluation.unusable_reason};
   } else {
     rec.decision = method_->on_coastdown(set_, rec.evaluation.fit.coefficients, rec.evaluation.check.pass);
+    if (rec.evaluation.confirmation_refused)
+      rec.decision.reason += "; within tolerance by the band regression but " + rec.evaluation.confirmation;
     if (divergence_)
       divergence_->add(set_, in_.vehicle.target, rec.evaluation.fit.coefficients,
                        rec.evaluation.check.worst_abs_deviation_n);

@@ -12,11 +12,13 @@ foreach(needle "Truths: harsh (hold bias sd 15 N, inertia error sd 1.5 %, compen
                "failed sessions count as the limit of"
                "accepted but truly outside +-10 N at the last coast-down's state <= 1.0 % of sessions"
                "fully warm: <= 1 % with harsh when the profile requires a stable vehicle"
+               "warm-up waits for stable:" "fixed 20-minute warm-up:"
                "iterative, the default first setting (loss map): median 2 and p95 <= 3 coast-downs"
                "fixed-run verification failures <= 1 % with harsh" "bench completed"
                "loss-mass correlation 0.43, hold bias speed part sd 10 N at 130 km/h, load-cell gain sd 1 % and offset sd 4.9 N"
                "Sample-rate lever (truths: harsh; the same 3 vehicles"
-               "\n       10 | iterative loss-map" "\n      100 | iterative loss-map" "\n      100 | fixed-run loss-map")
+               "\n       10 | iterative loss-map" "\n      100 | iterative loss-map" "\n      100 | fixed-run loss-map"
+               "\n      100 | guard-band loss-map")
   string(FIND "${out}" "${needle}" pos)
   if(pos EQUAL -1)
     message(FATAL_ERROR "missing '${needle}' in:\n${out}")

@@ -85,6 +85,56 @@ TEST(Evaluation, EstimatorDisagreementIsTheBandIntegralBias) {
   EXPECT_FALSE(e2.estimators_disagree);
 }
 
+TEST(Evaluation, TheWholeTraceConfirmationRefusesAPassItsCurveDoesNotMake) {
+  // acceptance.whole_trace_confirms (docs/standards.md §3.11, lab policy). The vehicle on the rollers is the
+  // target plus 10.3 N·(v/130 km/h)², i.e. f2 = 0.03 + 10.3/130² = 0.0306094674556213 N/(km/h)². numpy (the
+  // script above with f2 changed): the band regression minus the target runs from 0.2894 N at 20 km/h to
+  // 9.6937 N at 130 km/h (every speed within ±10 N: the standard's simple verdict passes); the true curve
+  // minus the target is 10.3 N at 130 km/h, outside. The whole-trace fit returns the true curve (the test
+  // above, within 0.03 N), so the confirmation must refuse the pass and name 130 km/h.
+  const core::RoadLoad vehicle{100, 0.5, 0.0306094674556213};
+  auto p = profile();
+  const auto plain = evaluate(vehicle, p);
+  ASSERT_TRUE(plain.usable) << plain.unusable_reason;
+  EXPECT_TRUE(plain.check.pass);
+  EXPECT_NEAR(plain.check.worst_abs_deviation_n, 9.6937, 0.01);
+  EXPECT_TRUE(plain.confirmation.empty());
+  EXPECT_FALSE(plain.whole_trace_check.has_value());
+
+  p.whole_trace_confirms = true;
+  const auto e = evaluate(vehicle, p);
+  ASSERT_TRUE(e.usable) << e.unusable_reason;
+  ASSERT_TRUE(e.whole_trace.ok) << e.whole_trace.message;
+  ASSERT_TRUE(e.whole_trace_check.has_value());
+  EXPECT_FALSE(e.whole_trace_check->pass);
+  EXPECT_NEAR(e.whole_trace_check->rows.back().deviation_n, 10.3, 0.03);
+  EXPECT_FALSE(e.check.pass);
+  EXPECT_TRUE(e.confirmation_refused);
+  EXPECT_NE(e.confirmation.find("not confirmed"), std::string::npos) << e.confirmation;
+  EXPECT_NE(e.confirmation.find("130 km/h"), std::string::npos) << e.confirmation;
+  // The band rows are the standard's, untouched: the refusal is the confirmation's alone.
+  for (const auto& r : e.check.rows) EXPECT_TRUE(r.pass) << r.speed_kmh;
+
+  // A vehicle on the target: both agree, the pass stands and says it was confirmed. Even with the session's
+  // whole-trace estimator switched off, the profile's confirmation computes it.
+  core::EvaluationOptions off;
+  off.whole_trace = false;
+  const auto tr = loadtrim::testing::exact_trace(kTarget, kMass, 142.0, 10.0, 100.0);
+  const auto ok = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass, off);
+  ASSERT_TRUE(ok.usable);
+  EXPECT_TRUE(ok.whole_trace.ok);
+  EXPECT_TRUE(ok.check.pass);
+  EXPECT_FALSE(ok.confirmation_refused);
+  EXPECT_NE(ok.confirmation.find("confirmed by the whole-trace curve"), std::string::npos) << ok.confirmation;
+
+  // The confirmation never turns a fail into a pass: a vehicle 40 N above the target fails by the bands.
+  const core::RoadLoad far{140, 0.5, 0.03};  // 40 N above the target at every speed (unit arithmetic)
+  const auto e3 = evaluate(far, p);
+  ASSERT_TRUE(e3.usable);
+  EXPECT_FALSE(e3.check.pass);
+  EXPECT_FALSE(e3.confirmation_refused);
+}
+
 TEST(Evaluation, ToleranceVerdictFollowsTheStandardRowByRow) {
   // GTR 15 Annex 4 §8.1.3.4.2 (docs/analysis.md, "Tolerance, adjustment, methods";
   // config/profiles/wltp-iterative): the regressed forces must be within ±10 N of the target at every
