@@ -260,7 +260,8 @@ int run_target(const TargetOptions& o) {
                                      .target_file_set = std::nullopt,  // each strategy, not the file's set
                                      .fleet = std::move(fleet),
                                      .history = hist,
-                                     .loss_map = {}};
+                                     .loss_map = {},
+                                     .coast_points = {}};
   auto choice = [&](core::FirstSetting f) {
     choice_in.requested = f;
     return core::choose_first_setting(choice_in);

@@ -76,6 +76,7 @@ core::Profile read_profile(TomlReader& r) {
     p.loss_map.speeds_kmh = r.numbers("loss_map.speeds_kmh", 5.0, 250.0, "km/h");
   p.loss_map.settle_s = r.number_or("loss_map.settle_s", p.loss_map.settle_s, 0.5, 120.0, "s");
   p.loss_map.average_s = r.number_or("loss_map.average_s", p.loss_map.average_s, 0.5, 120.0, "s");
+  p.loss_map.coast_between_holds = r.boolean_or("loss_map.coast_between_holds", false);
   // Cross-field rules (ordering, run-up margin against Δv, fixed-run counts) live in the core validator.
   core::Problems ps = core::validate(p);
   if (mph)

@@ -65,6 +65,10 @@ struct LossMap {
   std::vector<double> speeds_kmh = {130.0, 100.0, 70.0, 40.0, 20.0};
   double settle_s = 5.0;
   double average_s = 5.0;
+  // Coast from each hold down to the next with the standard's default setting written, and learn the
+  // steady-versus-coasting difference from those coasts (strategy.hpp fit_coast_correction; docs/standards.md
+  // §3.15, lab policy). Off: the map ramps between holds at the motoring rate.
+  bool coast_between_holds = false;
 };
 
 // How a deviation is judged against the tolerance (docs/standards.md §3.11). ISO/IEC 17025:2017 §7.8.6 asks

@@ -99,6 +99,53 @@ RoadLoadFit fit_loss_map(std::span<const HoldPoint> points) {
   return fit_road_load(v, f);
 }
 
+CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const CoastPoint> points) {
+  CoastCorrection c;
+  std::vector<double> v, d;
+  for (const auto& p : points)
+    if (std::isfinite(p.speed_kmh) && p.speed_kmh > 0.0 && std::isfinite(p.coasting_loss_n)) {
+      v.push_back(p.speed_kmh);
+      d.push_back(hold_map.force_n(p.speed_kmh) - p.coasting_loss_n);
+    }
+  c.points = static_cast<int>(v.size());
+  if (v.empty()) {
+    c.why = "no usable coast point";
+    return c;
+  }
+  const double vmin = *std::min_element(v.begin(), v.end()), vmax = *std::max_element(v.begin(), v.end());
+  if (v.size() == 1 || vmax - vmin < 1.0) {
+    // One speed: the difference as a constant, the mean of the points.
+    double s = 0.0;
+    for (double x : d) s += x;
+    c.d0_n = s / static_cast<double>(d.size());
+  } else {
+    // Least squares of d = d0 + d2·x, x = v² (the normal equations of a straight line in x).
+    const double n = static_cast<double>(v.size());
+    double sx = 0, sy = 0, sxx = 0, sxy = 0;
+    for (std::size_t i = 0; i < v.size(); ++i) {
+      const double x = v[i] * v[i];
+      sx += x;
+      sy += d[i];
+      sxx += x * x;
+      sxy += x * d[i];
+    }
+    const double den = n * sxx - sx * sx;
+    c.d2_n_per_kmh2 = (n * sxy - sx * sy) / den;
+    c.d0_n = (sy - c.d2_n_per_kmh2 * sx) / n;
+    if (v.size() >= 3) {
+      double ss = 0.0;
+      for (std::size_t i = 0; i < v.size(); ++i) {
+        const double r = d[i] - (c.d0_n + c.d2_n_per_kmh2 * v[i] * v[i]);
+        ss += r * r;
+      }
+      c.residual_sd_n = std::sqrt(ss / (n - 2.0));
+    }
+  }
+  c.ok = std::isfinite(c.d0_n) && std::isfinite(c.d2_n_per_kmh2);
+  if (!c.ok) c.why = "the difference could not be fitted (not finite)";
+  return c;
+}
+
 std::optional<HistoryEntry> history_from_store(const std::string& this_cell,
                                                std::span<const StoredSession> vehicle_sessions,
                                                std::span<const CellPair> pairs, int max_pairs) {
@@ -206,6 +253,10 @@ FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
         c.loss = fit.coefficients;
         c.map_fit = fit.coefficients;
         c.map_residual_sd_n = fit.residual_sd_n;
+        if (!in.coast_points.empty()) {
+          c.coast_correction = fit_coast_correction(fit.coefficients, in.coast_points);
+          if (c.coast_correction->ok) c.loss = fit.coefficients - c.coast_correction->as_road_load();
+        }
       } else {
         fallback("no loss map (" + (in.loss_map.empty() ? std::string("not measured") : fit.message) + ")");
       }

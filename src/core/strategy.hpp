@@ -56,6 +56,27 @@ RoadLoadFit fit_loss_map(std::span<const HoldPoint> points);
 // The mean and the (population) spread of the load-cell force over one averaging window.
 HoldPoint hold_point(double speed_kmh, std::span<const double> forces_n);
 
+// The steady-versus-coasting difference, learnt inside the warm-up (lab policy, docs/standards.md §3.13): a
+// speed hold reads the vehicle's loss plus what a coast-down never sees (the steady-versus-coasting difference,
+// a load cell's offset and gain); short coasts between the map's holds measure the loss as a coast-down does
+// (band force m·Δv/Δt less the set the dyno applied). The difference d(v) = hold map(v) − coasting loss(v)
+// is fitted as d0 + d2·v² (least squares; one point: d0 alone), and the loss map's estimate becomes
+// map − d.
+struct CoastPoint {
+  double speed_kmh = 0.0;
+  double coasting_loss_n = 0.0;  // band force less the set force at the band's reference speed
+};
+struct CoastCorrection {
+  bool ok = false;
+  std::string why;  // when not ok
+  int points = 0;
+  double d0_n = 0.0, d2_n_per_kmh2 = 0.0;
+  double residual_sd_n = 0.0;  // of the points about d(v) (0 with fewer than 3 points)
+  RoadLoad as_road_load() const { return {d0_n, 0.0, d2_n_per_kmh2}; }
+};
+// At least one finite point at a positive speed; two or more need two distinct speeds for d2.
+CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const CoastPoint> points);
+
 // The loss map's plan, before it is run: the profile's speeds at or below the speed limit less 1 km/h, in the
 // profile's order (the others skipped), and the time they take: each ramp from the previous speed at the
 // motoring rate kHoldRampMps2, 2 s to reach the setpoint, then settle and average (common practice, no
@@ -136,6 +157,7 @@ struct FirstSettingInputs {
   std::optional<FleetLossModel> fleet;          // used only when ok()
   std::optional<HistoryEntry> history;          // this vehicle on this cell
   std::vector<HoldPoint> loss_map;              // measured at the end of the warm-up (empty: not measured)
+  std::vector<CoastPoint> coast_points;         // the coasts between the holds (empty: none)
 };
 struct FirstSettingChoice {
   std::string used;  // the strategy's name (to_string), or "target-file"
@@ -148,6 +170,7 @@ struct FirstSettingChoice {
       history_basis;  // whenever the history's loss was used and says where it is from
   std::optional<RoadLoad> map_fit;
   std::optional<double> map_residual_sd_n;
+  std::optional<CoastCorrection> coast_correction;  // when coast points were given with a loss map
 };
 // The rules:
 // - A target file's initial set is used as given ("target-file").
@@ -155,8 +178,9 @@ struct FirstSettingChoice {
 // - fleet: target − fleet.estimate(TM, layout) when the model is ok(); else standard, why "no fleet data".
 // - history: target − history.loss(); without history, the fallback below, why "no earlier accepted session
 //   of this vehicle".
-// - loss-map: target − fit_loss_map(points) when the fit is ok; else the fallback, why "no loss map (not
-//   measured)" or "no loss map (<the fit's message>)".
+// - loss-map: target − fit_loss_map(points) when the fit is ok, less the coast correction d when coast points
+//   were given and it fits (else the map as it is, the correction's why recorded); else the fallback, why "no
+//   loss map (not measured)" or "no loss map (<the fit's message>)".
 // - The fallback: history when there is one, else fleet when ok(), else standard.
 FirstSettingChoice choose_first_setting(const FirstSettingInputs& in);
 

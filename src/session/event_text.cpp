@@ -167,6 +167,13 @@ std::string event_sentence(const Event& e, const TextContext& ctx) {
             return "loss map: " + rounded(x.point.speed_kmh, 0) + " km/h holds with " +
                    rounded(x.point.force_n, 1) + " N";
           },
+          [&](const ev::LossMapCoast& x) {
+            std::string t = "loss map: coasted from " + rounded(x.from_kmh, 0) + " to " + rounded(x.to_kmh, 0) +
+                            " km/h";
+            for (const auto& pt : x.points)
+              t += "; " + rounded(pt.speed_kmh, 0) + " km/h loses " + rounded(pt.coasting_loss_n, 1) + " N coasting";
+            return x.note.empty() ? t : t + " (" + x.note + ")";
+          },
           [&](const ev::WarmUpEnded&) { return std::string("warm-up ended"); },
           [&](const ev::FirstSetting& x) {
             return "first setting (" + x.strategy + "): " + coefficients(x.set) +

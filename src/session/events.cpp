@@ -202,6 +202,16 @@ struct Mapper {
             {"force_sd_n", e.point.force_sd_n},
             {"samples", e.point.samples}};
   }
+  nlohmann::json operator()(const ev::LossMapCoast& e) const {
+    nlohmann::json pts = nlohmann::json::array();
+    for (const auto& x : e.points)
+      pts.push_back({{"speed_kmh", x.speed_kmh},
+                     {"band_force_n", x.band_force_n},
+                     {"set_force_n", x.set_force_n},
+                     {"coasting_loss_n", x.coasting_loss_n}});
+    return {{"from_kmh", e.from_kmh}, {"to_kmh", e.to_kmh}, {"set", to_json(e.set)}, {"points", pts},
+            {"note", e.note}};
+  }
   nlohmann::json operator()(const ev::WarmUpEnded&) const { return nlohmann::json::object(); }
   nlohmann::json operator()(const ev::FirstSetting& e) const {
     nlohmann::json inputs = nlohmann::json::object();
@@ -209,6 +219,15 @@ struct Mapper {
     if (e.loss_map_fit) inputs["loss_map_fit"] = to_json(*e.loss_map_fit);
     if (e.loss_map_residual_sd_n) inputs["loss_map_residual_sd_n"] = *e.loss_map_residual_sd_n;
     if (e.loss) inputs["loss"] = to_json(*e.loss);
+    if (e.coast_correction) {
+      const core::CoastCorrection& k = *e.coast_correction;
+      inputs["coast_correction"] = {{"used", k.ok},
+                                    {"points", k.points},
+                                    {"d0_n", k.d0_n},
+                                    {"d2_n_per_kmh2", k.d2_n_per_kmh2},
+                                    {"residual_sd_n", k.residual_sd_n},
+                                    {"why", k.why}};
+    }
     if (e.history) {
       const core::HistoryBasis& b = *e.history;
       nlohmann::json pairs = nlohmann::json::array();
@@ -591,6 +610,7 @@ struct Typer {
   const char* operator()(const ev::LossMapSkipped&) const { return "loss_map_skipped"; }
   const char* operator()(const ev::LossMapPointSkipped&) const { return "loss_map_point_skipped"; }
   const char* operator()(const ev::LossMapPoint&) const { return "loss_map_point"; }
+  const char* operator()(const ev::LossMapCoast&) const { return "loss_map_coast"; }
   const char* operator()(const ev::WarmUpEnded&) const { return "warm_up_ended"; }
   const char* operator()(const ev::FirstSetting&) const { return "first_setting"; }
   const char* operator()(const ev::EnvelopeRefused&) const { return "envelope_refused"; }

@@ -200,6 +200,18 @@ struct LossMapPointSkipped {  // "loss_map_point_skipped"
 struct LossMapPoint {  // "loss_map_point"
   core::HoldPoint point;
 };
+// The loss map's coast from one hold to the next (loss_map.coast_between_holds, docs/standards.md §3.15): the
+// set written for it, and at each reference speed the coast spans whole the band force, the set's force there
+// and the difference, the vehicle's loss as a coast-down sees it.
+struct LossMapCoastPoint {
+  double speed_kmh = 0.0, band_force_n = 0.0, set_force_n = 0.0, coasting_loss_n = 0.0;
+};
+struct LossMapCoast {  // "loss_map_coast"
+  double from_kmh = 0.0, to_kmh = 0.0;
+  core::RoadLoad set;
+  std::vector<LossMapCoastPoint> points;
+  std::string note;  // why a point or the whole coast was not used ("" when all were)
+};
 struct WarmUpEnded {};  // "warm_up_ended": the stamp's t_s is the warm-up's end (controller time)
 struct FirstSetting {   // "first_setting"
   std::string requested, strategy, fallback_reason;
@@ -215,6 +227,8 @@ struct FirstSetting {   // "first_setting"
   // Where the history was looked for and what was not used (written as "history_lookup" when the history
   // strategy was requested or used; null: not written). Made by the app, which knows the store.
   nlohmann::json history_lookup;
+  // The steady-versus-coasting difference taken off the loss map (written as inputs.coast_correction).
+  std::optional<core::CoastCorrection> coast_correction;
 };
 struct EnvelopeRefused {  // "envelope_refused"
   int run = 0;
@@ -467,7 +481,7 @@ struct CheckFinished {  // "check_finished"
 using Payload = std::variant<
     ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
     ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted, ev::WarmUpHeld,
-    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::WarmUpEnded, ev::FirstSetting,
+    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::LossMapCoast, ev::WarmUpEnded, ev::FirstSetting,
     ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted, ev::ReleaseTiming, ev::RunUpPlan,
     ev::DriverPromptShown, ev::RunUpChecked, ev::PassesReset, ev::WarmUpDrift, ev::ConsecutiveTiming,
     ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect, ev::NotSettled,

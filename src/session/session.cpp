@@ -339,7 +339,17 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
   // time (ramps at the motoring rate, settle and average at each speed).
   const core::HoldPlan plan = core::plan_hold_points(in_.profile.loss_map, w.speed_kmh, speed_limit_kmh_);
-  const double map_s = measure_loss_map && info_.has("hold-force") ? plan.planned_s : 0.0;
+  double map_s = measure_loss_map && info_.has("hold-force") ? plan.planned_s : 0.0;
+  const bool coast_between = map_s > 0.0 && in_.profile.loss_map.coast_between_holds;
+  if (coast_between)
+    // A coast replaces the ramp between two holds: its time as a coast-down of the target itself (the
+    // standard's default setting plus the vehicle's loss is about the target; an estimate, no source).
+    for (std::size_t i = 0; i + 1 < plan.speeds_kmh.size(); ++i) {
+      const double a = plan.speeds_kmh[i], b = plan.speeds_kmh[i + 1];
+      if (!(b < a)) continue;
+      map_s += core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, a, b).value_or(0.0) -
+               (a - b) / 3.6 / core::kHoldRampMps2;
+    }
   duration_s = std::max(0.0, duration_s - map_s);
   emit(ev::WarmUpStarted{w.speed_kmh, duration_s, map_s});
   const double t0 = t_now_;
@@ -388,11 +398,13 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
                       window_means.empty() ? std::nullopt : std::optional<double>(window_means.back())});
   if (measure_loss_map) {
     loss_map_.clear();
+    coast_points_.clear();
     if (!info_.has("hold-force")) {
       emit(ev::LossMapSkipped{"the controller does not report force in speed hold"});
     } else {
       for (double v : plan.skipped_kmh) emit(ev::LossMapPointSkipped{v, "above the speed limit"});
-      for (double v : plan.speeds_kmh) {
+      for (std::size_t i = 0; i < plan.speeds_kmh.size(); ++i) {
+        const double v = plan.speeds_kmh[i];
         if (Result rr = hold_and_wait(v, "loss-map hold"); !rr.ok()) return fault(rr, "loss map");
         const double ts = t_now_;
         if (Result rr = motion_.collect(
@@ -414,6 +426,8 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         const core::HoldPoint hp = core::hold_point(v, forces);
         loss_map_.push_back(hp);
         emit(ev::LossMapPoint{hp});
+        if (coast_between && i + 1 < plan.speeds_kmh.size() && plan.speeds_kmh[i + 1] < v)
+          if (Result rr = coast_to_next_hold(v, plan.speeds_kmh[i + 1]); !rr.ok()) return fault(rr, "loss map");
       }
     }
   }
@@ -421,6 +435,60 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   first_after_warm_up_ = true;
   emit(ev::WarmUpEnded{});  // its stamp's t_s is t_warm_end_
   return std::nullopt;
+}
+
+Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
+  // docs/standards.md §3.15 (lab policy): from the hold at from_kmh, coast with the standard's default setting
+  // to to_kmh and measure the vehicle's loss as a coast-down sees it at the reference speeds the coast spans
+  // whole (2 km/h below the release for the release to settle; common practice, no source).
+  const auto& p = in_.profile;
+  ev::LossMapCoast rec{from_kmh, to_kmh,
+                       core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial), {}, ""};
+  // The envelope before anything is written (the step rule is the iterations' and has no previous here).
+  if (const core::SetCheck chk = core::check_set(rec.set, in_.vehicle.target, std::nullopt, opt_.envelope);
+      !chk.ok) {
+    rec.note = "not coasted: the standard's default setting leaves the safe envelope (" + chk.why + ")";
+    emit(rec);
+    return Result::success();  // the next hold ramps there as without coasts
+  }
+  if (Result r = c_.set_coefficients(rec.set); !r.ok()) return r;
+  motion_commanded_ = true;
+  if (Result r = c_.release_road_load(); !r.ok()) return r;
+  std::vector<controller::Sample> trace;
+  const double predicted =
+      core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, from_kmh, to_kmh).value_or(kMinCoastBudgetS);
+  Result r = motion_.collect(step("loss-map coast", std::max(30.0, 3.0 * predicted), {Mode::road_load}),
+                             [&](const controller::Sample& s) { return s.speed_kmh < to_kmh; }, &trace);
+  if (r.code == kTooSlowCode) {
+    // Too little retarding force: leave road-load simulation at once; the hold that follows takes over.
+    if (Result h = c_.hold_speed(to_kmh); !h.ok()) return h;
+    rec.note = "not used: " + r.message + " (too little retarding force)";
+    emit(rec);
+    return Result::success();
+  }
+  if (!r.ok()) return r;
+  std::vector<double> speeds;
+  for (double v : p.reference_speeds_kmh)
+    if (v + p.band_half_width_kmh <= from_kmh - 2.0 && v - p.band_half_width_kmh >= to_kmh) speeds.push_back(v);
+  std::vector<double> ts, vs;
+  ts.reserve(trace.size());
+  vs.reserve(trace.size());
+  for (const auto& s : trace) {
+    ts.push_back(s.time_s);
+    vs.push_back(s.speed_kmh);
+  }
+  for (const auto& b : core::analyse_bands({ts, vs}, speeds, p.band_half_width_kmh, force_mass_kg_)) {
+    if (!b.ok()) {
+      rec.note += (rec.note.empty() ? "" : "; ") + num(b.reference_speed_kmh) + " km/h not used: " + b.reason;
+      continue;
+    }
+    const double set_n = rec.set.force_n(b.reference_speed_kmh);
+    rec.points.push_back({b.reference_speed_kmh, b.force_n, set_n, b.force_n - set_n});
+    coast_points_.push_back({b.reference_speed_kmh, b.force_n - set_n});
+  }
+  if (speeds.empty()) rec.note = "no reference speed lies wholly within this coast";
+  emit(rec);
+  return Result::success();
 }
 
 double Session::rewarm_s() const {
@@ -997,7 +1065,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
                                          .target_file_set = in_.vehicle.initial_set,
                                          .fleet = opt_.fleet,
                                          .history = opt_.history,
-                                         .loss_map = loss_map_});
+                                         .loss_map = loss_map_,
+                                         .coast_points = coast_points_});
     };
     core::FirstSettingChoice c = choose(opt_.first_setting);
     // A strategy's set that leaves the safe envelope (a history row, a fleet or map fit gone wild) is never
@@ -1019,7 +1088,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
                                   c.used == core::to_string(core::FirstSetting::history);
     if (!emit(ev::FirstSetting{core::to_string(opt_.first_setting), c.used, c.why, set_, c.history_utc,
                                c.map_fit, c.map_residual_sd_n, c.loss, c.history_basis,
-                               history_involved ? opt_.history_lookup : nlohmann::json()}))
+                               history_involved ? opt_.history_lookup : nlohmann::json(),
+                               c.coast_correction}))
       stop = Stop{Outcome::record_failure, record_error_};
   }
   while (!stop) {

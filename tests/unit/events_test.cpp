@@ -126,6 +126,7 @@ std::string event_name(const Payload& p) {
                                       "LossMapSkipped",
                                       "LossMapPointSkipped",
                                       "LossMapPoint",
+                                      "LossMapCoast",
                                       "WarmUpEnded",
                                       "FirstSetting",
                                       "EnvelopeRefused",
@@ -292,17 +293,21 @@ std::vector<Payload> every_event() {
       ev::LossMapSkipped{"no force in speed hold"},
       ev::LossMapPointSkipped{150.0, "above the speed limit"},
       ev::LossMapPoint{{60.0, 80.0, 1.5, 500}},
+      ev::LossMapCoast{130.0, 100.0, kSet, {{120.0, 560.5, 420.0, 140.5}, {110.0, 500.0, 380.0, 120.0}}, ""},
+      ev::LossMapCoast{40.0, 20.0, kSet, {}, "not used: too little retarding force"},
       ev::WarmUpEnded{},
       ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, core::RoadLoad{30.0, 0.1, 0.004}, 0.8,
-                       core::RoadLoad{30.0, 0.1, 0.004}, std::nullopt, nlohmann::json()},
+                       core::RoadLoad{30.0, 0.1, 0.004}, std::nullopt, nlohmann::json(),
+                       core::CoastCorrection{true, "", 7, 12.5, 0.0004, 1.1}},
       ev::FirstSetting{"history", "standard", "no history", kSet, std::nullopt, std::nullopt, std::nullopt,
-                       std::nullopt, std::nullopt, nlohmann::json()},
+                       std::nullopt, std::nullopt, nlohmann::json(), std::nullopt},
       ev::FirstSetting{"history", "history", "", kSet, std::string("2026-11-20T08:00:00.000Z"), std::nullopt,
                        std::nullopt, core::RoadLoad{73.0, 0.05, 0.0025}, history_basis(),
                        nlohmann::json{{"looked", "store"},
                                       {"store", "/lab/store.sqlite"},
                                       {"not_used", nlohmann::json::array()},
-                                      {"note", ""}}},
+                                      {"note", ""}},
+                       std::nullopt},
       ev::EnvelopeRefused{2, kSet, "force above the cell's"},
       ev::SetWritten{1, kSet, 1},
       ev::CoastdownStarted{1, kSet, 135.0},
@@ -458,7 +463,7 @@ TEST(Events, TheRecordsResumeNeedsReadBack) {
   const CoastdownRecord run = usable_run();
   const std::vector<nlohmann::json> records = {
       line(ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, std::nullopt, std::nullopt,
-                            std::nullopt, std::nullopt, nlohmann::json()}),
+                            std::nullopt, std::nullopt, nlohmann::json(), std::nullopt}),
       line(ev::SetWritten{3, kSet, 2}), line(ev::CoastdownStarted{3, kSet, 135.0}), line(ev::Coastdown{run})};
   const ResumePoint p = resume_point(records);
   EXPECT_EQ(p.malformed, 0);

@@ -712,3 +712,69 @@ TEST(SessionUnit, AFaultDuringAVehicleRunUpClearsTheDriverDisplay) {
   EXPECT_NE(prompts.back().text.find("prompt cleared"), std::string::npos) << prompts.back().text;
   EXPECT_EQ(c.sim().model().driver_prompt(), core::DriverPrompt::off) << "the controller was told";
 }
+
+TEST(SessionUnit, TheLossMapCoastsLearnWhatTheHoldsReadAndACoastDownDoesNot) {
+  // docs/standards.md §3.15. The demo vehicle with a steady-versus-coasting difference of 20 N + 0.0006·v²
+  // N (v in km/h) and a load cell 5 N high (both planted here; roller_model.hpp: a speed hold reads them, a
+  // coast-down does not). Unit arithmetic: the holds read 25 N + 0.0006·v² more than the loss a coast-down
+  // sees, 35.1 N at 130 km/h. Without the coasts the loss map carries all of it into the first setting, and
+  // the first coast-down misses the target by about that much (outside ±10 N, GTR 15 Annex 4 §8.1.3.4.2);
+  // with them the correction finds it and the first coast-down is within tolerance. The coasts measure as a
+  // coast-down does, so what they find also holds the coast-down's own terms (the demo dyno's 0.2 % inertia
+  // error and the tool's rotating mass against the truth's, both times the deceleration, largest at the top
+  // speed): within 3 N of the planted difference at 20 km/h and 6 N at 130 km/h (the band noise of a few
+  // coasts, the drift between them and those terms; common practice, no source).
+  physics::Truth t = loadtrim::testing::demo_truth();
+  t.vehicle.hold_bias_n = 20.0;
+  t.vehicle.hold_bias_n_per_kmh2 = 0.0006;
+  t.dyno.load_cell_offset_n = 5.0;
+  auto run = [&](bool coasts, std::vector<session::ev::LossMapCoast>& seen,
+                 std::optional<session::ev::FirstSetting>& first, std::vector<double>& first_worst) {
+    FakeController c(t);
+    Recorder record(true);
+    Hook hook([&](const session::Event& e) {
+      if (const auto* x = std::get_if<session::ev::LossMapCoast>(&e.payload)) seen.push_back(*x);
+      if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) first = *f;
+      if (const auto* cd = std::get_if<session::ev::Coastdown>(&e.payload))
+        if (cd->record.evaluation.usable) first_worst.push_back(cd->record.evaluation.check.worst_abs_deviation_n);
+    });
+    session::Inputs in = inputs();
+    in.profile.loss_map.coast_between_holds = coasts;
+    session::Options o = options();
+    o.first_setting = core::FirstSetting::loss_map;
+    session::Session s(in, o, c, {&record, &hook});
+    const auto sum = s.run();
+    EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+    EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+  };
+  std::vector<session::ev::LossMapCoast> none, four;
+  std::optional<session::ev::FirstSetting> first_plain, first_coast;
+  std::vector<double> worst_plain, worst_coast;
+  run(false, none, first_plain, worst_plain);
+  run(true, four, first_coast, worst_coast);
+  EXPECT_TRUE(none.empty());
+  ASSERT_EQ(four.size(), 4u);  // 130→100, 100→70, 70→40, 40→20
+  EXPECT_EQ(four[0].from_kmh, 130.0);
+  EXPECT_EQ(four[0].to_kmh, 100.0);
+  std::size_t points = 0;
+  for (const auto& k : four) {
+    points += k.points.size();
+    for (const auto& p : k.points) {
+      EXPECT_GT(p.speed_kmh - 5.0, k.to_kmh - 1e-9);
+      EXPECT_LT(p.speed_kmh + 5.0, k.from_kmh - 2.0 + 1e-9);
+    }
+  }
+  EXPECT_EQ(points, 7u);  // 110, 120 | 80, 90 | 50, 60 | 30
+  ASSERT_TRUE(first_plain && first_coast);
+  EXPECT_FALSE(first_plain->coast_correction.has_value());
+  ASSERT_TRUE(first_coast->coast_correction.has_value());
+  const core::CoastCorrection& k = *first_coast->coast_correction;
+  ASSERT_TRUE(k.ok) << k.why;
+  EXPECT_EQ(k.points, 7);
+  EXPECT_NEAR(k.d0_n + k.d2_n_per_kmh2 * 20.0 * 20.0, 25.0 + 0.0006 * 400.0, 3.0);
+  EXPECT_NEAR(k.d0_n + k.d2_n_per_kmh2 * 130.0 * 130.0, 25.0 + 0.0006 * 16900.0, 6.0);
+  ASSERT_FALSE(worst_plain.empty());
+  ASSERT_FALSE(worst_coast.empty());
+  EXPECT_GT(worst_plain.front(), 20.0);
+  EXPECT_LE(worst_coast.front(), 10.0);
+}

@@ -280,3 +280,73 @@ TEST(HistoryFromStore, OnlyTheNewestPairsUpToTheCapAreUsed) {
 TEST(HistoryFromStore, NoAcceptedSessionIsNoEstimate) {
   EXPECT_FALSE(core::history_from_store("B", {}, std::vector<core::CellPair>{p1()}));
 }
+
+TEST(CoastCorrection, AnExactDifferenceIsRecoveredAndTakenOffTheMap) {
+  // docs/standards.md §3.15. The hold map is 80 + 0.2·v + 0.02·v² N; the coasts see that less d(v) = 12 +
+  // 0.0005·v² N (unit arithmetic), at the seven reference speeds the default map's four coasts span. The fit
+  // must return d0 = 12 N and d2 = 0.0005 N/(km/h)² with no residual, and the loss-map strategy must set
+  // target − (map − d).
+  const RoadLoad map{80.0, 0.2, 0.02};
+  std::vector<core::CoastPoint> pts;
+  for (double v : {120.0, 110.0, 90.0, 80.0, 60.0, 50.0, 30.0})
+    pts.push_back({v, map.force_n(v) - (12.0 + 0.0005 * v * v)});
+  const auto c = core::fit_coast_correction(map, pts);
+  ASSERT_TRUE(c.ok) << c.why;
+  EXPECT_EQ(c.points, 7);
+  EXPECT_NEAR(c.d0_n, 12.0, 1e-9);
+  EXPECT_NEAR(c.d2_n_per_kmh2, 0.0005, 1e-12);
+  EXPECT_NEAR(c.residual_sd_n, 0.0, 1e-9);
+
+  core::FirstSettingInputs in;
+  in.requested = core::FirstSetting::loss_map;
+  in.target = {150.0, 0.5, 0.035};
+  // Hold points exactly on the map (five speeds: the quadratic through them is the map itself).
+  for (double v : {130.0, 100.0, 70.0, 40.0, 20.0}) in.loss_map.push_back({v, map.force_n(v), 0.1, 50});
+  const auto plain = core::choose_first_setting(in);
+  ASSERT_EQ(plain.used, "loss-map");
+  EXPECT_FALSE(plain.coast_correction.has_value());
+  in.coast_points = pts;
+  const auto corrected = core::choose_first_setting(in);
+  ASSERT_EQ(corrected.used, "loss-map");
+  ASSERT_TRUE(corrected.coast_correction.has_value());
+  ASSERT_TRUE(corrected.loss.has_value());
+  // set = target − (map − d): at every speed 12 + 0.0005·v² N more than without the coasts.
+  for (double v : {20.0, 75.0, 130.0})
+    EXPECT_NEAR(corrected.set.force_n(v) - plain.set.force_n(v), 12.0 + 0.0005 * v * v, 1e-6) << v;
+  EXPECT_NEAR(corrected.loss->force_n(100.0), map.force_n(100.0) - 17.0, 1e-6);
+}
+
+TEST(CoastCorrection, LeastSquaresAgainstNumpyOnePointAndNothingUsable) {
+  // Three points on a zero map: d = 5, 8, 9 N at 10, 20, 30 km/h (x = v² = 100, 400, 900). numpy 1.24
+  // (Debian 12): np.polyfit(x, d, 1) = [4.69387755e-03, 5.14285714e+00]; the residual sd with one degree of
+  // freedom, sqrt(sum(r²)/1) = 1.2121830534626532.
+  const RoadLoad zero{0.0, 0.0, 0.0};
+  const std::vector<core::CoastPoint> three = {{10.0, -5.0}, {20.0, -8.0}, {30.0, -9.0}};
+  const auto c = core::fit_coast_correction(zero, three);
+  ASSERT_TRUE(c.ok) << c.why;
+  EXPECT_NEAR(c.d2_n_per_kmh2, 4.69387755e-03, 1e-11);
+  EXPECT_NEAR(c.d0_n, 5.14285714, 1e-8);
+  EXPECT_NEAR(c.residual_sd_n, 1.2121830534626532, 1e-9);
+  // One speed: the mean difference as a constant (unit arithmetic: (4 + 6)/2 = 5).
+  const std::vector<core::CoastPoint> one = {{50.0, -4.0}, {50.0, -6.0}};
+  const auto c1 = core::fit_coast_correction(zero, one);
+  ASSERT_TRUE(c1.ok);
+  EXPECT_DOUBLE_EQ(c1.d0_n, 5.0);
+  EXPECT_DOUBLE_EQ(c1.d2_n_per_kmh2, 0.0);
+  // Nothing usable (not finite, or no positive speed): not ok, and the strategy keeps the map as it is.
+  const std::vector<core::CoastPoint> bad = {{NAN, 3.0}, {40.0, INFINITY}, {0.0, 1.0}};
+  const auto cb = core::fit_coast_correction(zero, bad);
+  EXPECT_FALSE(cb.ok);
+  EXPECT_EQ(cb.points, 0);
+  EXPECT_FALSE(cb.why.empty());
+  core::FirstSettingInputs in;
+  in.requested = core::FirstSetting::loss_map;
+  in.target = {150.0, 0.5, 0.035};
+  for (double v : {130.0, 100.0, 70.0, 40.0, 20.0}) in.loss_map.push_back({v, 50.0 + 0.01 * v * v, 0.1, 50});
+  const auto without = core::choose_first_setting(in);
+  in.coast_points = bad;
+  const auto with_bad = core::choose_first_setting(in);
+  ASSERT_TRUE(with_bad.coast_correction.has_value());
+  EXPECT_FALSE(with_bad.coast_correction->ok);
+  EXPECT_NEAR(with_bad.set.force_n(100.0), without.set.force_n(100.0), 1e-9);
+}
