@@ -362,7 +362,7 @@ static std::string write_report_body(const std::string& folder, const std::strin
              ") " + p + "; the report cannot be made from it";
   json started = json::object(), finished = json::object(), first = json::object(),
        controller_rec = json::object(), inertia_rec = json::object(), limits_rec = json::object();
-  std::vector<json> runs, resumes, warm_ups, loss_points, loss_skips, drifts, stops, discards, resets,
+  std::vector<json> runs, resumes, warm_ups, loss_points, loss_skips, loss_coasts, drifts, stops, discards, resets,
       interruptions, starts, pauses;
   std::map<int, json> release_timing, consecutive_timing, run_up_checks, sets_written;
   std::string t_first, t_last;
@@ -398,6 +398,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
       warm_ups.push_back(r);
     else if (type == "loss_map_point")
       loss_points.push_back(r);
+    else if (type == "loss_map_coast")
+      loss_coasts.push_back(r);
     else if (type == "loss_map_skipped" || type == "loss_map_point_skipped")
       loss_skips.push_back(r);
     else if (type == "timing" || type == "timing_rule_missed")
@@ -804,6 +806,33 @@ static std::string write_report_body(const std::string& folder, const std::strin
            (nv(p, "speed_kmh") ? fmt(*nv(p, "speed_kmh"), 0) : std::string("all")) +
            "</td><td colspan=\"3\">skipped: " + esc(sv(p, "why")) + "</td></tr>\n";
     h += "</table>\n";
+  }
+  // The coasts between the holds (docs/standards.md §3.15) and the difference taken off the map.
+  if (!loss_coasts.empty()) {
+    h += "<table id=\"loss-map-coasts\"><tr><th>coast km/h</th><th>speed km/h</th><th>band force N</th><th>set "
+         "force N</th><th>coasting loss N</th></tr>\n";
+    for (const auto& k : loss_coasts) {
+      const std::string span = num_or(nv(k, "from_kmh"), 0, "") + " \u2192 " + num_or(nv(k, "to_kmh"), 0, "");
+      const json pts = k.contains("points") && k["points"].is_array() ? k["points"] : json::array();
+      for (const auto& p : pts)
+        h += "<tr><td>" + span + "</td><td class=\"num\">" + num_or(nv(p, "speed_kmh"), 0, "") +
+             "</td><td class=\"num\">" + num_or(nv(p, "band_force_n"), 1, "") + "</td><td class=\"num\">" +
+             num_or(nv(p, "set_force_n"), 1, "") + "</td><td class=\"num\">" +
+             num_or(nv(p, "coasting_loss_n"), 1, "") + "</td></tr>\n";
+      if (!sv(k, "note").empty())
+        h += "<tr><td>" + span + "</td><td colspan=\"4\">" + esc(sv(k, "note")) + "</td></tr>\n";
+    }
+    h += "</table>\n";
+    if (first.contains("inputs") && first["inputs"].contains("coast_correction")) {
+      const json& c = first["inputs"]["coast_correction"];
+      h += "<p id=\"loss-map-correction\">Steady-versus-coasting difference (lab policy): " +
+           (bv(c, "used").value_or(false)
+                ? "d(v) = " + num_or(nv(c, "d0_n"), 2, "N") + " + " + num_or(nv(c, "d2_n_per_kmh2"), 6, "") +
+                      " \u00b7 v\u00b2 (km/h) from " + num_or(nv(c, "points"), 0, "") +
+                      " coast points, taken off the loss map"
+                : "not used (" + esc(sv(c, "why")) + ")") +
+           ".</p>\n";
+    }
   }
 
   // Each coast-down: its quality and timing, and both estimators.
