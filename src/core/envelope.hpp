@@ -128,7 +128,10 @@ class DivergenceWatch {
   // noise chasing, and with measured curves good to a few newtons r's spread there is about 0.2 (lab policy,
   // common practice, no source): an honest loop (r ≈ 1, or its force loop's gain) does not reach 0.25. It
   // catches the controller that ignores the setting while the deviation stays between T and 3·T, which rules
-  // 1 and 2 may miss.
+  // 1 and 2 may miss; so it fires only when every deviation over the span is above T. A loop that keeps the
+  // measured load within tolerance while the set moves is tracking a vehicle whose losses still fall (the set
+  // rises as the loss falls and the measured load stays put: r ≈ 0 with the loop in control), not a
+  // controller that ignores the setting (issue 17's harsh truths fired it in about 5 % of sessions).
   void add(const RoadLoad& set, const RoadLoad& target, const RoadLoad& measured,
            double worst_abs_deviation_n);
   // "the controller does not follow the setting: ..." once a rule has fired; else nothing.
