@@ -49,8 +49,12 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
   if (profile.whole_trace_confirms) {
     // docs/standards.md §3.11 (lab policy): the standard's verdict stands only when an independent estimate
     // from the same trace agrees that every reference speed is within tolerance.
-    if (!e.whole_trace.ok) {
-      e.confirmation = "not confirmed: the whole-trace fit failed (" + e.whole_trace.message + ")";
+    if (!e.whole_trace.ok || !e.whole_trace.converged) {
+      // A fit that stopped before converging started from the band fit: it would confirm the verdict it is
+      // meant to check.
+      e.confirmation = "not confirmed: the whole-trace fit " +
+                       std::string(e.whole_trace.ok ? "did not converge (" : "failed (") + e.whole_trace.message +
+                       ")";
     } else {
       e.whole_trace_check = check_tolerance(target, e.whole_trace.coefficients, profile.reference_speeds_kmh,
                                             profile.tolerance_n);
@@ -60,11 +64,16 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
         if (!worst || std::abs(r.deviation_n) > std::abs(worst->deviation_n)) worst = &r;
       const std::string at =
           worst ? num(worst->deviation_n, 2) + " N at " + num(worst->speed_kmh) + " km/h" : std::string("-");
-      e.confirmation = w.pass ? "confirmed by the whole-trace curve (worst " + at + ")"
-                              : "not confirmed: the whole-trace curve is " + at + ", outside ±" +
-                                    num(profile.tolerance_n) + " N";
+      if (!e.check.pass)
+        e.confirmation = "nothing to confirm: the band regression is outside tolerance (whole-trace curve worst " +
+                         at + ")";
+      else
+        e.confirmation = w.pass ? "confirmed by the whole-trace curve (worst " + at + ")"
+                                : "not confirmed: the whole-trace curve is " + at + ", outside ±" +
+                                      num(profile.tolerance_n) + " N";
     }
-    const bool confirmed = e.whole_trace_check && e.whole_trace_check->pass;
+    const bool confirmed =
+        e.whole_trace.ok && e.whole_trace.converged && e.whole_trace_check && e.whole_trace_check->pass;
     if (e.check.pass && !confirmed) {
       e.check.pass = false;
       e.confirmation_refused = true;

@@ -99,7 +99,8 @@ RoadLoadFit fit_loss_map(std::span<const HoldPoint> points) {
   return fit_road_load(v, f);
 }
 
-CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const CoastPoint> points) {
+CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const CoastPoint> points,
+                                     double lo_kmh, double hi_kmh) {
   CoastCorrection c;
   std::vector<double> v, d;
   for (const auto& p : points)
@@ -113,11 +114,16 @@ CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const C
     return c;
   }
   const double vmin = *std::min_element(v.begin(), v.end()), vmax = *std::max_element(v.begin(), v.end());
-  if (v.size() == 1 || vmax - vmin < 1.0) {
-    // One speed: the difference as a constant, the mean of the points.
+  if (v.size() < 3 || vmax - vmin < kCoastMinSpanKmh) {
+    // Too few points or too narrow a span for d2: the difference as a constant, the mean of the points.
     double s = 0.0;
     for (double x : d) s += x;
     c.d0_n = s / static_cast<double>(d.size());
+    if (v.size() >= 2) {
+      double ss = 0.0;
+      for (double x : d) ss += (x - c.d0_n) * (x - c.d0_n);
+      c.residual_sd_n = std::sqrt(ss / static_cast<double>(v.size() - 1));
+    }
   } else {
     // Least squares of d = d0 + d2·x, x = v² (the normal equations of a straight line in x).
     const double n = static_cast<double>(v.size());
@@ -141,8 +147,24 @@ CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const C
       c.residual_sd_n = std::sqrt(ss / (n - 2.0));
     }
   }
-  c.ok = std::isfinite(c.d0_n) && std::isfinite(c.d2_n_per_kmh2);
-  if (!c.ok) c.why = "the difference could not be fitted (not finite)";
+  if (!std::isfinite(c.d0_n) || !std::isfinite(c.d2_n_per_kmh2) || !std::isfinite(c.residual_sd_n)) {
+    c.why = "the difference could not be fitted (not finite)";
+    return c;
+  }
+  if (c.residual_sd_n > kCoastMaxResidualSdN) {
+    c.why = "the coast points disagree: residual sd " + num(c.residual_sd_n, 1) + " N about d(v), above " +
+            num(kCoastMaxResidualSdN) + " N";
+    return c;
+  }
+  for (double at : {std::min(lo_kmh, vmin), std::max(hi_kmh, vmax)}) {
+    const double dv = c.d0_n + c.d2_n_per_kmh2 * at * at;
+    if (!(std::abs(dv) <= kCoastMaxDifferenceN)) {
+      c.why = "the difference " + num(dv, 1) + " N at " + num(at) + " km/h is beyond ±" +
+              num(kCoastMaxDifferenceN) + " N";
+      return c;
+    }
+  }
+  c.ok = true;
   return c;
 }
 
@@ -253,8 +275,8 @@ FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
         c.loss = fit.coefficients;
         c.map_fit = fit.coefficients;
         c.map_residual_sd_n = fit.residual_sd_n;
-        if (!in.coast_points.empty()) {
-          c.coast_correction = fit_coast_correction(fit.coefficients, in.coast_points);
+        if (in.coasts_asked || !in.coast_points.empty()) {
+          c.coast_correction = fit_coast_correction(fit.coefficients, in.coast_points, in.lo_kmh, in.hi_kmh);
           if (c.coast_correction->ok) c.loss = fit.coefficients - c.coast_correction->as_road_load();
         }
       } else {

@@ -56,12 +56,19 @@ RoadLoadFit fit_loss_map(std::span<const HoldPoint> points);
 // The mean and the (population) spread of the load-cell force over one averaging window.
 HoldPoint hold_point(double speed_kmh, std::span<const double> forces_n);
 
-// The steady-versus-coasting difference, learnt inside the warm-up (lab policy, docs/standards.md §3.13): a
+// The steady-versus-coasting difference, learnt inside the warm-up (lab policy, docs/standards.md §3.15): a
 // speed hold reads the vehicle's loss plus what a coast-down never sees (the steady-versus-coasting difference,
 // a load cell's offset and gain); short coasts between the map's holds measure the loss as a coast-down does
-// (band force m·Δv/Δt less the set the dyno applied). The difference d(v) = hold map(v) − coasting loss(v)
-// is fitted as d0 + d2·v² (least squares; one point: d0 alone), and the loss map's estimate becomes
-// map − d.
+// (band force m·2Δv/Δt less the set the dyno applied). The difference d(v) = hold map(v) − coasting loss(v)
+// is fitted as d0 + d2·v² (least squares), and the loss map's estimate becomes map − d. Never trusted as
+// given (lab policy, no source): d2 only when the points span at least kCoastMinSpanKmh (else d0 alone, the
+// mean: two nearby points would carry their noise far down the speed range); refused (not ok, why said) when
+// the points disagree by more than kCoastMaxResidualSdN about d(v), or |d| exceeds kCoastMaxDifferenceN
+// anywhere on [lo_kmh, hi_kmh] (a reading to distrust, not a vehicle: harsh truths' spreads are about 60 N
+// at three standard deviations).
+inline constexpr double kCoastMinSpanKmh = 40.0;
+inline constexpr double kCoastMaxResidualSdN = 5.0;
+inline constexpr double kCoastMaxDifferenceN = 80.0;
 struct CoastPoint {
   double speed_kmh = 0.0;
   double coasting_loss_n = 0.0;  // band force less the set force at the band's reference speed
@@ -74,8 +81,9 @@ struct CoastCorrection {
   double residual_sd_n = 0.0;  // of the points about d(v) (0 with fewer than 3 points)
   RoadLoad as_road_load() const { return {d0_n, 0.0, d2_n_per_kmh2}; }
 };
-// At least one finite point at a positive speed; two or more need two distinct speeds for d2.
-CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const CoastPoint> points);
+// At least one finite point at a positive speed.
+CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const CoastPoint> points,
+                                     double lo_kmh = 20.0, double hi_kmh = 130.0);
 
 // The loss map's plan, before it is run: the profile's speeds at or below the speed limit less 1 km/h, in the
 // profile's order (the others skipped), and the time they take: each ramp from the previous speed at the
@@ -158,6 +166,8 @@ struct FirstSettingInputs {
   std::optional<HistoryEntry> history;          // this vehicle on this cell
   std::vector<HoldPoint> loss_map;              // measured at the end of the warm-up (empty: not measured)
   std::vector<CoastPoint> coast_points;         // the coasts between the holds (empty: none)
+  bool coasts_asked = false;                    // the profile asked for them: the record says what came of it
+  double lo_kmh = 20.0, hi_kmh = 130.0;         // the reference speed range (the correction's bound)
 };
 struct FirstSettingChoice {
   std::string used;  // the strategy's name (to_string), or "target-file"
@@ -178,8 +188,8 @@ struct FirstSettingChoice {
 // - fleet: target − fleet.estimate(TM, layout) when the model is ok(); else standard, why "no fleet data".
 // - history: target − history.loss(); without history, the fallback below, why "no earlier accepted session
 //   of this vehicle".
-// - loss-map: target − fit_loss_map(points) when the fit is ok, less the coast correction d when coast points
-//   were given and it fits (else the map as it is, the correction's why recorded); else the fallback, why "no
+// - loss-map: target − fit_loss_map(points) when the fit is ok, less the coast correction d when coasts were
+//   asked for and it fits (else the map as it is, the correction's why recorded); else the fallback, why "no
 //   loss map (not measured)" or "no loss map (<the fit's message>)".
 // - The fallback: history when there is one, else fleet when ok(), else standard.
 FirstSettingChoice choose_first_setting(const FirstSettingInputs& in);

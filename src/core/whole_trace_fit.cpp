@@ -73,10 +73,14 @@ WholeTraceFit fit_whole_trace(TraceView trace, double force_mass_kg, double v_lo
   try {
     const nlopt::result r = opt.optimize(x, best);
     out.ok = r > 0;
-    out.message = out.ok ? "" : "optimizer stopped without converging";
+    out.converged = r == nlopt::SUCCESS || r == nlopt::STOPVAL_REACHED || r == nlopt::FTOL_REACHED ||
+                    r == nlopt::XTOL_REACHED;
+    out.message = out.ok ? (out.converged ? "" : "stopped at the evaluation or time limit before converging")
+                         : "optimizer stopped without converging";
   } catch (const nlopt::roundoff_limited&) {
     // x holds the best point found; round-off is the floor of the objective, not a failure.
     out.ok = true;
+    out.converged = true;
     best = objective(4, x.data(), nullptr, &p);
   } catch (const std::exception& e) {
     out.message = std::string("optimizer failed: ") + e.what();

@@ -169,6 +169,10 @@ bool Console::on_event(const Event& e) {
             std::fprintf(out_, "  loss map: %.0f km/h holds with %.1f N\n", x.point.speed_kmh,
                          x.point.force_n);
           },
+          [&](const ev::LossMapCoast& x) {
+            std::fprintf(out_, "  loss map: coast %.0f -> %.0f km/h, %zu point(s)%s%s\n", x.from_kmh, x.to_kmh,
+                         x.points.size(), x.note.empty() ? "" : ": ", x.note.c_str());
+          },
           [&](const ev::FirstSetting& x) {
             std::fprintf(out_, "  first setting (%s): %s\n", x.strategy.c_str(), coefficients(x.set).c_str());
             const bool us = units_ == Units::us;

@@ -167,6 +167,10 @@ std::string event_sentence(const Event& e, const TextContext& ctx) {
             return "loss map: " + rounded(x.point.speed_kmh, 0) + " km/h holds with " +
                    rounded(x.point.force_n, 1) + " N";
           },
+          [&](const ev::LossMapCoastStarted& x) {
+            return "loss map: coasting from " + rounded(x.from_kmh, 0) + " to " + rounded(x.to_kmh, 0) +
+                   " km/h with the standard's default setting written";
+          },
           [&](const ev::LossMapCoast& x) {
             std::string t = "loss map: coasted from " + rounded(x.from_kmh, 0) + " to " + rounded(x.to_kmh, 0) +
                             " km/h";

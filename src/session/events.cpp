@@ -202,6 +202,9 @@ struct Mapper {
             {"force_sd_n", e.point.force_sd_n},
             {"samples", e.point.samples}};
   }
+  nlohmann::json operator()(const ev::LossMapCoastStarted& e) const {
+    return {{"from_kmh", e.from_kmh}, {"to_kmh", e.to_kmh}, {"set", to_json(e.set)}};
+  }
   nlohmann::json operator()(const ev::LossMapCoast& e) const {
     nlohmann::json pts = nlohmann::json::array();
     for (const auto& x : e.points)
@@ -610,6 +613,7 @@ struct Typer {
   const char* operator()(const ev::LossMapSkipped&) const { return "loss_map_skipped"; }
   const char* operator()(const ev::LossMapPointSkipped&) const { return "loss_map_point_skipped"; }
   const char* operator()(const ev::LossMapPoint&) const { return "loss_map_point"; }
+  const char* operator()(const ev::LossMapCoastStarted&) const { return "loss_map_coast_started"; }
   const char* operator()(const ev::LossMapCoast&) const { return "loss_map_coast"; }
   const char* operator()(const ev::WarmUpEnded&) const { return "warm_up_ended"; }
   const char* operator()(const ev::FirstSetting&) const { return "first_setting"; }

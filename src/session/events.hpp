@@ -206,6 +206,10 @@ struct LossMapPoint {  // "loss_map_point"
 struct LossMapCoastPoint {
   double speed_kmh = 0.0, band_force_n = 0.0, set_force_n = 0.0, coasting_loss_n = 0.0;
 };
+struct LossMapCoastStarted {  // "loss_map_coast_started": before the set is written and road load released
+  double from_kmh = 0.0, to_kmh = 0.0;
+  core::RoadLoad set;
+};
 struct LossMapCoast {  // "loss_map_coast"
   double from_kmh = 0.0, to_kmh = 0.0;
   core::RoadLoad set;
@@ -481,7 +485,7 @@ struct CheckFinished {  // "check_finished"
 using Payload = std::variant<
     ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
     ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted, ev::WarmUpHeld,
-    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::LossMapCoast, ev::WarmUpEnded, ev::FirstSetting,
+    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::LossMapCoastStarted, ev::LossMapCoast, ev::WarmUpEnded, ev::FirstSetting,
     ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted, ev::ReleaseTiming, ev::RunUpPlan,
     ev::DriverPromptShown, ev::RunUpChecked, ev::PassesReset, ev::WarmUpDrift, ev::ConsecutiveTiming,
     ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect, ev::NotSettled,

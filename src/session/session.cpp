@@ -426,8 +426,13 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         const core::HoldPoint hp = core::hold_point(v, forces);
         loss_map_.push_back(hp);
         emit(ev::LossMapPoint{hp});
-        if (coast_between && i + 1 < plan.speeds_kmh.size() && plan.speeds_kmh[i + 1] < v)
-          if (Result rr = coast_to_next_hold(v, plan.speeds_kmh[i + 1]); !rr.ok()) return fault(rr, "loss map");
+        if (coast_between && i + 1 < plan.speeds_kmh.size()) {
+          if (plan.speeds_kmh[i + 1] < v) {
+            if (Result rr = coast_to_next_hold(v, plan.speeds_kmh[i + 1]); !rr.ok()) return fault(rr, "loss map");
+          } else {
+            emit(ev::LossMapCoast{v, plan.speeds_kmh[i + 1], {}, {}, "not coasted: the next hold is not lower"});
+          }
+        }
       }
     }
   }
@@ -451,7 +456,11 @@ Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
     emit(rec);
     return Result::success();  // the next hold ramps there as without coasts
   }
+  // Recorded before anything moves: a fault, a pause or a kill from here on leaves a record of what was
+  // written and released.
+  emit(ev::LossMapCoastStarted{from_kmh, to_kmh, rec.set});
   if (Result r = c_.set_coefficients(rec.set); !r.ok()) return r;
+  last_written_ = rec.set;  // what the dyno now holds: the first setting's step is checked from it
   motion_commanded_ = true;
   if (Result r = c_.release_road_load(); !r.ok()) return r;
   std::vector<controller::Sample> trace;
@@ -460,13 +469,16 @@ Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
   Result r = motion_.collect(step("loss-map coast", std::max(30.0, 3.0 * predicted), {Mode::road_load}),
                              [&](const controller::Sample& s) { return s.speed_kmh < to_kmh; }, &trace);
   if (r.code == kTooSlowCode) {
-    // Too little retarding force: leave road-load simulation at once; the hold that follows takes over.
+    // Not below to_kmh within the budget (too little retarding force, a stuck speed reading, or a controller
+    // that never entered road load): leave road-load simulation at once; the hold that follows takes over.
     if (Result h = c_.hold_speed(to_kmh); !h.ok()) return h;
-    rec.note = "not used: " + r.message + " (too little retarding force)";
+    rec.note = "not used: did not fall below " + num(to_kmh) + " km/h within the budget (" + r.message + ")";
     emit(rec);
     return Result::success();
   }
   if (!r.ok()) return r;
+  // Leave road-load simulation at once, before the analysis and the record (as after a coast-down).
+  if (Result h = c_.hold_speed(to_kmh); !h.ok()) return h;
   std::vector<double> speeds;
   for (double v : p.reference_speeds_kmh)
     if (v + p.band_half_width_kmh <= from_kmh - 2.0 && v - p.band_half_width_kmh >= to_kmh) speeds.push_back(v);
@@ -1066,20 +1078,48 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
                                          .fleet = opt_.fleet,
                                          .history = opt_.history,
                                          .loss_map = loss_map_,
-                                         .coast_points = coast_points_});
+                                         .coast_points = coast_points_,
+                                         .coasts_asked = p.loss_map.coast_between_holds && !loss_map_.empty(),
+                                         .lo_kmh = p.bottom_speed_kmh(),
+                                         .hi_kmh = p.top_speed_kmh()});
     };
     core::FirstSettingChoice c = choose(opt_.first_setting);
+    // Checked from what the dyno holds now (the loss map's coasts wrote the standard's default setting).
+    auto refused = [&](const core::FirstSettingChoice& x) {
+      return core::check_set(x.set, in_.vehicle.target, last_written_, opt_.envelope);
+    };
+    // A coast correction that takes the map's set out of the envelope: the map as it is, said.
+    if (c.coast_correction && c.coast_correction->ok) {
+      if (const core::SetCheck chk = refused(c); !chk.ok) {
+        core::FirstSettingChoice plain = c;
+        plain.loss = c.map_fit;
+        plain.set = core::setting_for_loss(in_.vehicle.target, *c.map_fit);
+        plain.coast_correction->ok = false;
+        plain.coast_correction->why = "not used: the corrected setting leaves the safe envelope (" + chk.why + ")";
+        c = plain;
+      }
+    }
     // A strategy's set that leaves the safe envelope (a history row, a fleet or map fit gone wild) is never
     // the first setting: the standard's is used instead and the record says why (the envelope would refuse
     // to write it anyway, after the warm-up, as a controller fault).
     if (c.used != "target-file" && c.used != core::to_string(core::FirstSetting::standard)) {
-      if (const core::SetCheck chk = core::check_set(c.set, in_.vehicle.target, std::nullopt, opt_.envelope);
-          !chk.ok) {
+      if (const core::SetCheck chk = refused(c); !chk.ok) {
         const std::string why = "the " + c.used + " first setting leaves the safe envelope (" + chk.why + ")";
+        // What the refused strategy measured stays in the record (an auditor sees what was refused).
         const auto basis = c.history_basis;
+        const auto map_fit = c.map_fit;
+        const auto map_sd = c.map_residual_sd_n;
+        auto correction = c.coast_correction;
+        if (correction && correction->ok) {
+          correction->ok = false;
+          correction->why = "not used: the loss-map first setting left the safe envelope";
+        }
         c = choose(core::FirstSetting::standard);
         c.why = why + "; the standard's first setting is used";
         c.history_basis = basis;
+        c.map_fit = map_fit;
+        c.map_residual_sd_n = map_sd;
+        c.coast_correction = correction;
       }
     }
     set_ = c.set;

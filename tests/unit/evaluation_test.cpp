@@ -301,3 +301,26 @@ TEST(WarmUpDrift, TheEndRuleWaitsWhileTheForceStillFalls) {
   std::vector<core::DriftPoint> few = {{30, 100}, {90, 99}, {150, 98}, {210, 97}};
   EXPECT_FALSE(core::remaining_drift_for_end_n(few, 240.0, core::kTrendHorizonS).has_value());
 }
+
+TEST(Evaluation, AWholeTraceFitThatDidNotConvergeConfirmsNothing) {
+  // The whole-trace fit starts from the band regression's coefficients: one stopped at its evaluation limit
+  // returns about the band curve and would "confirm" the verdict it is meant to check (a hostile review saw
+  // "confirmed ... worst 9.69 N" here). The vehicle is the one of TheWholeTraceConfirmationRefuses... (its
+  // band regression passes); 8 evaluations stand for a fit that stalls on a noisy or hostile trace.
+  const core::RoadLoad vehicle{100, 0.5, 0.0306094674556213};
+  auto p = profile();
+  p.whole_trace_confirms = true;
+  core::EvaluationOptions o;
+  o.whole_trace_options.max_evaluations = 8;
+  const auto tr = loadtrim::testing::exact_trace(vehicle, kMass, 142.0, 10.0, 100.0);
+  const auto e = core::evaluate_coastdown({tr.time_s, tr.speed_kmh}, p, kTarget, kMass, o);
+  ASSERT_TRUE(e.usable);
+  EXPECT_TRUE(e.whole_trace.ok);  // an estimate, but not a converged one
+  EXPECT_FALSE(e.whole_trace.converged);
+  EXPECT_FALSE(e.check.pass);
+  EXPECT_TRUE(e.confirmation_refused);
+  EXPECT_NE(e.confirmation.find("did not converge"), std::string::npos) << e.confirmation;
+  // The converged fit of the same trace does converge (the default evaluation limit).
+  const auto full = evaluate(vehicle, p);
+  EXPECT_TRUE(full.whole_trace.converged) << full.whole_trace.message;
+}

@@ -15,6 +15,7 @@
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
 #include "registry.hpp"
+#include "record/verify.hpp"
 #include "report/report.hpp"
 #include "session/record_writer.hpp"
 #include "session/session.hpp"
@@ -777,4 +778,227 @@ TEST(SessionUnit, TheLossMapCoastsLearnWhatTheHoldsReadAndACoastDownDoesNot) {
   ASSERT_FALSE(worst_coast.empty());
   EXPECT_GT(worst_plain.front(), 20.0);
   EXPECT_LE(worst_coast.front(), 10.0);
+}
+
+// The loss map's coasts (loss_map.coast_between_holds, docs/standards.md §3.15) against a hostile controller, a
+// pause and an auditor: what a hostile review found, kept as tests.
+namespace {
+session::Inputs coast_inputs() {
+  session::Inputs in = inputs();
+  in.profile.loss_map.coast_between_holds = true;
+  return in;
+}
+session::Options map_options() {
+  session::Options o = options();
+  o.first_setting = core::FirstSetting::loss_map;
+  return o;
+}
+}  // namespace
+
+// The coast leaves road-load simulation at once, before its analysis and its record (as a coast-down does): a
+// slow record (fsync within record_budget) must not let the vehicle coast on unheld.
+TEST(SessionUnitCoasts, TheMapCoastLeavesRoadLoadBeforeItsRecordIsWritten) {
+  FakeController c(loadtrim::testing::demo_truth());
+  Recorder record(true);
+  std::vector<Mode> at_record;
+  Hook hook([&](const session::Event& e) {
+    if (std::holds_alternative<session::ev::LossMapCoast>(e.payload))
+      at_record.push_back(c.sim().model().mode());
+  });
+  session::Session s(coast_inputs(), map_options(), c, {&record, &hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  ASSERT_FALSE(at_record.empty());
+  for (Mode m : at_record) EXPECT_NE(m, Mode::road_load) << "the dyno still simulates road load at the record";
+}
+
+// Speed readings that lie during the map's coasts only (the reported deceleration 1.5 times the true one,
+// smooth and even, so the band analysis accepts every band): before the bounds the correction was −117 N at
+// 20 km/h and −475 N at 130 km/h and a first setting with f0 = −74.6 N was written. Now the correction is
+// refused (beyond ±80 N, strategy.hpp) and the map is used as it is, said in the record.
+TEST(SessionUnitCoasts, LyingSpeedsInTheMapCoastsAreRefusedNotWritten) {
+  FakeController c(loadtrim::testing::demo_truth());
+  bool in_map = true;
+  bool coasting = false;
+  double v0 = 0.0;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (!in_map) return;
+    if (s.mode != Mode::road_load) {
+      coasting = false;
+      return;
+    }
+    if (!coasting) {
+      coasting = true;
+      v0 = s.speed_kmh;
+    }
+    s.speed_kmh = v0 - 1.5 * (v0 - s.speed_kmh);
+  };
+  Recorder record(true);
+  std::optional<session::ev::FirstSetting> first;
+  std::optional<core::RoadLoad> written;
+  Hook hook([&](const session::Event& e) {
+    if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) {
+      first = *f;
+      in_map = false;
+    }
+    if (const auto* w = std::get_if<session::ev::SetWritten>(&e.payload))
+      if (!written) written = w->set;
+  });
+  session::Session s(coast_inputs(), map_options(), c, {&record, &hook});
+  const auto sum = s.run();
+  ASSERT_TRUE(first && first->coast_correction);
+  const core::CoastCorrection& k = *first->coast_correction;
+  std::printf("correction ok=%d points=%d d0=%.1f N d2=%.6f resid=%.2f; d(20)=%.1f N d(130)=%.1f N\n", k.ok,
+              k.points, k.d0_n, k.d2_n_per_kmh2, k.residual_sd_n, k.d0_n + k.d2_n_per_kmh2 * 400.0,
+              k.d0_n + k.d2_n_per_kmh2 * 16900.0);
+  std::printf("first setting (%s): %.1f %.4f %.5f; map fit at 100 km/h %.1f N; outcome %s (%s)\n",
+              first->strategy.c_str(), first->set.f0_n, first->set.f1_n_per_kmh, first->set.f2_n_per_kmh2,
+              first->loss_map_fit ? first->loss_map_fit->force_n(100.0) : -1.0, session::to_string(sum.outcome),
+              sum.stop_reason.c_str());
+  ASSERT_TRUE(written.has_value());
+  std::printf("first set written: %.1f %.4f %.5f\n", written->f0_n, written->f1_n_per_kmh, written->f2_n_per_kmh2);
+  EXPECT_FALSE(k.ok) << "an absurd correction was used";
+  EXPECT_FALSE(k.why.empty());
+  EXPECT_GT(written->f0_n, 0.0);  // the holds-only map's set, not the corrected one (−74.6 N before)
+  ASSERT_TRUE(first->loss_map_fit.has_value());
+  for (double v : {20.0, 130.0})
+    EXPECT_NEAR(first->set.force_n(v), (inputs().vehicle.target - *first->loss_map_fit).force_n(v), 1e-9) << v;
+}
+
+// Coasts asked for, none of them usable (holds 8 km/h apart: no reference band lies wholly in a coast): the
+// first setting is the holds-only map and its record says why the correction asked for is not used.
+TEST(SessionUnitCoasts, CoastsAskedButNoneUsableIsSaidInTheFirstSetting) {
+  FakeController c(loadtrim::testing::demo_truth());
+  session::Inputs in = coast_inputs();
+  in.profile.loss_map.speeds_kmh = {130.0, 122.0, 114.0, 106.0, 98.0, 90.0, 82.0};
+  Recorder record(true);
+  std::optional<session::ev::FirstSetting> first;
+  int coasts = 0;
+  Hook hook([&](const session::Event& e) {
+    if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) first = *f;
+    if (std::holds_alternative<session::ev::LossMapCoast>(e.payload)) ++coasts;
+  });
+  session::Session s(in, map_options(), c, {&record, &hook});
+  (void)s.run();
+  EXPECT_EQ(coasts, 6);
+  ASSERT_TRUE(first);
+  EXPECT_EQ(first->strategy, "loss-map");
+  ASSERT_TRUE(first->coast_correction.has_value());
+  EXPECT_FALSE(first->coast_correction->ok);
+  EXPECT_EQ(first->coast_correction->why, "no usable coast point");
+}
+
+// A pause taken during a map coast: the rollers stop and the continued session re-runs warm-up and map, as a
+// pause in the holds does; the coast's set write and its release are in the log before the pause
+// (loss_map_coast_started is written before anything moves).
+TEST(SessionUnitCoasts, APauseDuringAMapCoastStopsTheRollersAndItsStartIsRecorded) {
+  FakeController c(loadtrim::testing::demo_truth());
+  PauseScript pause;
+  pause.when = [](const session::Event& e) {
+    const auto* p = std::get_if<session::ev::LossMapPoint>(&e.payload);
+    return p && p->point.speed_kmh == 130.0;
+  };
+  session::Options o = map_options();
+  o.pause = &pause.control;
+  Recorder record(true);
+  std::vector<std::string> seq;
+  bool stopped_at_pause = false;
+  Hook hook([&](const session::Event& e) {
+    pause.on(e);
+    seq.push_back(session::type_of(e));
+    if (const auto* p = std::get_if<session::ev::Paused>(&e.payload)) stopped_at_pause = p->rollers_stopped;
+  });
+  session::Session s(coast_inputs(), o, c, {&record, &hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  EXPECT_TRUE(stopped_at_pause);
+  const auto paused = std::find(seq.begin(), seq.end(), "paused");
+  ASSERT_NE(paused, seq.end());
+  const bool coast_seen = std::find(seq.begin(), paused, "loss_map_coast_started") != paused;
+  // The pause was taken inside the coast (after the write and the release): show the commands.
+  bool released_before_pause = false;
+  for (const auto& [m, v] : c.commands)
+    if (m == Mode::road_load) released_before_pause = true;
+  EXPECT_TRUE(released_before_pause);
+  EXPECT_TRUE(coast_seen) << "the paused coast's write of the default setting and its release are not in the log";
+}
+
+// Report and verify on a folder with loss_map_coast records.
+TEST(SessionUnitCoasts, AFolderWithMapCoastsReportsAndVerifies) {
+  namespace fs = std::filesystem;
+  FakeController c(loadtrim::testing::demo_truth());
+  std::string dir = (fs::temp_directory_path() / "loadtrim-review-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  const std::string folder = dir + "/session";
+  fs::create_directories(folder);
+  {
+    session::RecordWriter writer(folder);
+    session::Session s(coast_inputs(), map_options(), c, {&writer});
+    const auto sum = s.run();
+    EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  }
+  const auto files = report::write_report(folder, "test");
+  ASSERT_TRUE(files.ok) << files.error;
+  std::ifstream html(files.html);
+  const std::string page((std::istreambuf_iterator<char>(html)), {});
+  EXPECT_NE(page.find("loss-map-coasts"), std::string::npos);
+  EXPECT_NE(page.find("loss-map-correction"), std::string::npos);
+  const auto v = record::verify_folder(folder);
+  EXPECT_TRUE(v.intact()) << v.message;
+  std::printf("verify: %s\n", v.message.c_str());
+  fs::remove_all(dir);
+}
+
+// Hostile controllers during the map's coasts only: every path ends with the rollers stopped and a controlled
+// stop as the last command (docs/safety.md); what happened is printed.
+TEST(SessionUnitCoasts, HostileCoastsAreBoundedAndEndSafe) {
+  struct Case {
+    const char* name;
+    std::function<void(controller::Sample&, double v0)> lie;
+    bool not_applied = false;
+  };
+  const std::vector<Case> cases = {
+      {"never decelerates", [](controller::Sample& s, double v0) { s.speed_kmh = v0; }},
+      {"NaN speed", [](controller::Sample& s, double) { s.speed_kmh = NAN; }},
+      {"negative speed", [](controller::Sample& s, double) { s.speed_kmh = -5.0; }},
+      {"speeds up", [](controller::Sample& s, double v0) { s.speed_kmh = v0 + (v0 - s.speed_kmh); }},
+      {"ignores later sets", nullptr, true},
+  };
+  for (const auto& k : cases) {
+    FakeController c(loadtrim::testing::demo_truth());
+    c.script.coefficients_not_applied = k.not_applied;
+    bool in_map = true, coasting = false;
+    double v0 = 0.0;
+    if (k.lie)
+      c.script.sample_lie = [&](controller::Sample& s) {
+        if (!in_map) return;
+        if (s.mode != Mode::road_load) {
+          coasting = false;
+          return;
+        }
+        if (!coasting) coasting = true, v0 = s.speed_kmh;
+        k.lie(s, v0);
+      };
+    Recorder record(true);
+    std::vector<std::string> notes;
+    std::optional<session::ev::FirstSetting> first;
+    Hook hook([&](const session::Event& e) {
+      if (const auto* x = std::get_if<session::ev::LossMapCoast>(&e.payload))
+        notes.push_back(std::to_string(int(x->from_kmh)) + "->" + std::to_string(int(x->to_kmh)) + ": " +
+                        std::to_string(x->points.size()) + " pts, '" + x->note + "'");
+      if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) {
+        first = *f;
+        in_map = false;
+      }
+    });
+    session::Session s(coast_inputs(), map_options(), c, {&record, &hook});
+    const auto sum = s.run();
+    std::printf("== %s: outcome %s (%s); rollers stopped %d; first %s\n", k.name, session::to_string(sum.outcome),
+                sum.stop_reason.substr(0, 200).c_str(), sum.rollers_stopped,
+                first ? (first->strategy + (first->coast_correction ? (first->coast_correction->ok ? " corrected" : " correction not used: " + first->coast_correction->why) : " no correction")).c_str() : "-");
+    for (const auto& n : notes) std::printf("   %s\n", n.substr(0, 300).c_str());
+    EXPECT_TRUE(sum.rollers_stopped) << k.name;
+    ASSERT_FALSE(c.commands.empty());
+    EXPECT_EQ(c.commands.back().first, Mode::controlled_stop) << k.name;
+  }
 }

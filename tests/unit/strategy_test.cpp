@@ -317,14 +317,14 @@ TEST(CoastCorrection, AnExactDifferenceIsRecoveredAndTakenOffTheMap) {
 }
 
 TEST(CoastCorrection, LeastSquaresAgainstNumpyOnePointAndNothingUsable) {
-  // Three points on a zero map: d = 5, 8, 9 N at 10, 20, 30 km/h (x = v² = 100, 400, 900). numpy 1.24
-  // (Debian 12): np.polyfit(x, d, 1) = [4.69387755e-03, 5.14285714e+00]; the residual sd with one degree of
+  // Three points on a zero map: d = 5, 8, 9 N at 20, 40, 60 km/h (x = v² = 400, 1600, 3600). numpy 1.24
+  // (Debian 12): np.polyfit(x, d, 1) = [1.17346939e-03, 5.14285714e+00]; the residual sd with one degree of
   // freedom, sqrt(sum(r²)/1) = 1.2121830534626532.
   const RoadLoad zero{0.0, 0.0, 0.0};
-  const std::vector<core::CoastPoint> three = {{10.0, -5.0}, {20.0, -8.0}, {30.0, -9.0}};
+  const std::vector<core::CoastPoint> three = {{20.0, -5.0}, {40.0, -8.0}, {60.0, -9.0}};
   const auto c = core::fit_coast_correction(zero, three);
   ASSERT_TRUE(c.ok) << c.why;
-  EXPECT_NEAR(c.d2_n_per_kmh2, 4.69387755e-03, 1e-11);
+  EXPECT_NEAR(c.d2_n_per_kmh2, 1.17346939e-03, 1e-11);
   EXPECT_NEAR(c.d0_n, 5.14285714, 1e-8);
   EXPECT_NEAR(c.residual_sd_n, 1.2121830534626532, 1e-9);
   // One speed: the mean difference as a constant (unit arithmetic: (4 + 6)/2 = 5).
@@ -349,4 +349,53 @@ TEST(CoastCorrection, LeastSquaresAgainstNumpyOnePointAndNothingUsable) {
   ASSERT_TRUE(with_bad.coast_correction.has_value());
   EXPECT_FALSE(with_bad.coast_correction->ok);
   EXPECT_NEAR(with_bad.set.force_n(100.0), without.set.force_n(100.0), 1e-9);
+}
+
+TEST(CoastCorrection, ItIsNeverTrustedAsGiven) {
+  // docs/standards.md §3.15 bounds (lab policy, no source); the cases a hostile review found.
+  const RoadLoad zero{0.0, 0.0, 0.0};
+  // Two points 10 km/h apart and 4 N apart: no d2 from them (span below 40 km/h), the mean as a constant
+  // (unit arithmetic: (0 + 4)/2 = 2 N, sd about it √8 = 2.83 N), not a correction carried down to 20 km/h by
+  // a slope fitted to their noise. 10 N apart they disagree (sd √50 = 7.07 N above 5 N): refused.
+  const std::vector<core::CoastPoint> two = {{110.0, 0.0}, {120.0, -4.0}};
+  const auto c2 = core::fit_coast_correction(zero, two);
+  ASSERT_TRUE(c2.ok) << c2.why;
+  EXPECT_DOUBLE_EQ(c2.d2_n_per_kmh2, 0.0);
+  EXPECT_DOUBLE_EQ(c2.d0_n, 2.0);
+  EXPECT_NEAR(c2.residual_sd_n, std::sqrt(8.0), 1e-12);
+  const std::vector<core::CoastPoint> apart = {{110.0, 0.0}, {120.0, -10.0}};
+  EXPECT_FALSE(core::fit_coast_correction(zero, apart).ok);
+  // Points that contradict each other by hundreds of N: refused on the residual, said.
+  const RoadLoad map{100.0, 0.5, 0.03};
+  std::vector<core::CoastPoint> wild;
+  int i = 0;
+  for (double v : {120.0, 110.0, 90.0, 80.0, 60.0, 50.0, 30.0})
+    wild.push_back({v, map.force_n(v) + ((i++ % 2) ? 300.0 : -300.0)});
+  const auto cw = core::fit_coast_correction(map, wild);
+  EXPECT_FALSE(cw.ok);
+  EXPECT_NE(cw.why.find("disagree"), std::string::npos) << cw.why;
+  // Consistent points 400 N off (a lying force): refused on the size, said, and the strategy keeps the map.
+  core::FirstSettingInputs in;
+  in.requested = core::FirstSetting::loss_map;
+  in.target = {150.0, 0.5, 0.035};
+  const RoadLoad m2{80.0, 0.2, 0.02};
+  for (double v : {130.0, 100.0, 70.0, 40.0, 20.0}) in.loss_map.push_back({v, m2.force_n(v), 0.1, 50});
+  const auto plain = core::choose_first_setting(in);
+  for (double v : {120.0, 110.0}) in.coast_points.push_back({v, m2.force_n(v) - 400.0});
+  const auto c = core::choose_first_setting(in);
+  ASSERT_TRUE(c.coast_correction.has_value());
+  EXPECT_FALSE(c.coast_correction->ok);
+  EXPECT_NE(c.coast_correction->why.find("beyond"), std::string::npos) << c.coast_correction->why;
+  EXPECT_NEAR(c.set.force_n(100.0), plain.set.force_n(100.0), 1e-9);
+  // Coasts asked for and none usable: the record still says so (not silently like coasts off).
+  in.coast_points.clear();
+  in.coasts_asked = true;
+  const auto none = core::choose_first_setting(in);
+  ASSERT_TRUE(none.coast_correction.has_value());
+  EXPECT_FALSE(none.coast_correction->ok);
+  EXPECT_EQ(none.coast_correction->why, "no usable coast point");
+  // A difference just inside the bound passes: d = 79.9 N at every speed.
+  const std::vector<core::CoastPoint> at_bound = {{30.0, -79.9}, {60.0, -79.9}, {120.0, -79.9}};
+  const auto cb = core::fit_coast_correction(zero, at_bound);
+  EXPECT_TRUE(cb.ok) << cb.why;
 }
