@@ -404,7 +404,7 @@ int run_bench(BenchOptions o) {
   // threshold is still to come (stable_by "trend", docs/standards.md §3.12), at most the profile's 20 minutes
   // in all; measured for the loss map with the drift rule "warn", against the iterative standard's fixed
   // 20-minute warm-up (issue 17's total-cell-time goal).
-  constexpr double kStableMinS = 300.0;  // lab policy for the bench, no source
+  constexpr double kStableMinS = 300.0;   // lab policy for the bench, no source
   constexpr double kWaitExtraS = 7200.0;  // the profile's limit on warm_up.max_extra_s
   core::Profile iterative_stable = iterative;
   iterative_stable.warm_up.max_extra_s = std::max(0.0, iterative.warm_up.duration_s - kStableMinS);
@@ -425,8 +425,8 @@ int run_bench(BenchOptions o) {
   core::Profile iterative_confirm = iterative;
   iterative_confirm.whole_trace_confirms = true;
   // The shipped profiles' loss map coasts between its holds and takes the steady-versus-coasting difference
-  // off the map (loss_map.coast_between_holds, docs/standards.md §3.15, lab policy); this row is the map as it
-  // was before, holds only, so that the lever's contribution is measured side by side.
+  // off the map (loss_map.coast_between_holds, docs/standards.md §3.15, lab policy); this row is the map as
+  // it was before, holds only, so that the lever's contribution is measured side by side.
   core::Profile iterative_holds_only = iterative;
   iterative_holds_only.loss_map.coast_between_holds = false;
   core::Profile iterative_stable_require = iterative_stable;
@@ -601,8 +601,7 @@ int run_bench(BenchOptions o) {
         (holds_only ? ", the loss map from its holds only (no coasts between them)" : "") +
         (stable_end || require || guard || confirm || holds_only ? "; vs standard: the iterative one" : "");
     std::printf("%s method (%s%s); failed sessions count as the limit of %d coast-downs\n",
-                core::to_string(prof.method), prof.name.c_str(), note.c_str(),
-        prof.max_coastdowns);
+                core::to_string(prof.method), prof.name.c_str(), note.c_str(), prof.max_coastdowns);
     std::printf(
         "  %-9s %5s %6s | coast-downs      | at 2   | cell minutes  | after warm-up | vs standard (median)\n",
         "strategy", "n", "failed");
@@ -766,8 +765,10 @@ int run_bench(BenchOptions o) {
         warm = std::max(warm, row["truly_outside_fully_warm_share"].get<double>());
     const double lm_min = mr["iterative"]["loss-map"]["cell_min_median"];
     std::printf(
-        "  fully warm: <= 1 %% with harsh when the profile requires a stable vehicle (drift rule \"require\", "
-        "iterative, loss map; share of all sessions and of the accepted ones; with \"warn\": up to %.2f %% of "
+        "  fully warm: <= 1 %% with harsh when the profile requires a stable vehicle (drift rule "
+        "\"require\", "
+        "iterative, loss map; share of all sessions and of the accepted ones; with \"warn\": up to %.2f %% "
+        "of "
         "all sessions truly outside fully warm, median cell time %.1f min)\n",
         100 * warm, lm_min);
     // Two profiles that require a stable vehicle: the fixed 20-minute warm-up (which then coasts on at the
@@ -790,13 +791,14 @@ int run_bench(BenchOptions o) {
           waits ? "warm-up waits for stable:" : "fixed 20-minute warm-up:", 100 * share, 100 * of_accepted,
           rq["true_worst_fully_warm_n"].get<double>(), 100 * failed / n, rq["cell_min_median"].get<double>(),
           rq["split_min_median"]["warm_up"].get<double>(),
-          !harsh ? "(goal for harsh only)" : waits ? yes(met) : "(shown beside it)");
-      report["goals"]["truly_outside_fully_warm_require"][key] = {
-          {"share", share},
-          {"share_of_accepted", of_accepted},
-          {"not_accepted_share", failed / n},
-          {"cell_min_median", rq["cell_min_median"]},
-          {"met", met}};
+          !harsh  ? "(goal for harsh only)"
+          : waits ? yes(met)
+                  : "(shown beside it)");
+      report["goals"]["truly_outside_fully_warm_require"][key] = {{"share", share},
+                                                                  {"share_of_accepted", of_accepted},
+                                                                  {"not_accepted_share", failed / n},
+                                                                  {"cell_min_median", rq["cell_min_median"]},
+                                                                  {"met", met}};
     }
     report["goals"]["truly_outside_fully_warm_require"]["warn_worst_share"] = warm;
     report["goals"]["truly_outside_fully_warm_require"]["met"] = wait_met;
@@ -879,11 +881,10 @@ int run_bench(BenchOptions o) {
       const core::Profile* profile;
       std::size_t strategy;
     };
-    const std::vector<LeverRow> lever = {
-        {"iterative", &iterative, 0},
-        {"iterative", &iterative, 2},
-        {"guard-band", &iterative_guard, 2},
-        {"fixed-run", &fixed, 2}};
+    const std::vector<LeverRow> lever = {{"iterative", &iterative, 0},
+                                         {"iterative", &iterative, 2},
+                                         {"guard-band", &iterative_guard, 2},
+                                         {"fixed-run", &fixed, 2}};
     const std::size_t nr = o.compare_rates_hz.size();
     int lever_unjudged = 0;
     std::vector<Cells> lever_cells;

@@ -222,7 +222,8 @@ void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, const Roa
     if (n < span + 1 || !entries_[n - 1 - span].measured) continue;
     const Entry &a = entries_[n - 1 - span], &c = entries_[n - 1];
     bool all_outside = true;
-    for (std::size_t j = n - 1 - span; j < n; ++j) all_outside = all_outside && entries_[j].deviation_n > tolerance_n_;
+    for (std::size_t j = n - 1 - span; j < n; ++j)
+      all_outside = all_outside && entries_[j].deviation_n > tolerance_n_;
     if (!all_outside) continue;
     double ss = 0.0, ms = 0.0;
     constexpr int kPoints = 12;

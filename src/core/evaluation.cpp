@@ -53,8 +53,8 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
       // A fit that stopped before converging started from the band fit: it would confirm the verdict it is
       // meant to check.
       e.confirmation = "not confirmed: the whole-trace fit " +
-                       std::string(e.whole_trace.ok ? "did not converge (" : "failed (") + e.whole_trace.message +
-                       ")";
+                       std::string(e.whole_trace.ok ? "did not converge (" : "failed (") +
+                       e.whole_trace.message + ")";
     } else {
       e.whole_trace_check = check_tolerance(target, e.whole_trace.coefficients, profile.reference_speeds_kmh,
                                             profile.tolerance_n);
@@ -65,8 +65,9 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
       const std::string at =
           worst ? num(worst->deviation_n, 2) + " N at " + num(worst->speed_kmh) + " km/h" : std::string("-");
       if (!e.check.pass)
-        e.confirmation = "nothing to confirm: the band regression is outside tolerance (whole-trace curve worst " +
-                         at + ")";
+        e.confirmation =
+            "nothing to confirm: the band regression is outside tolerance (whole-trace curve worst " + at +
+            ")";
       else
         e.confirmation = w.pass ? "confirmed by the whole-trace curve (worst " + at + ")"
                                 : "not confirmed: the whole-trace curve is " + at + ", outside ±" +

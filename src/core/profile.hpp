@@ -90,12 +90,13 @@ struct Profile {
   double band_half_width_kmh = 5.0;  // Δv: the band runs from v_j + Δv down to v_j − Δv
   double tolerance_n = 10.0;         // every reference speed within ± this of the target
   DecisionRule decision_rule;        // how "within" is judged (acceptance.decision_rule)
-  // acceptance.whole_trace_confirms (lab policy, docs/standards.md §3.11): a coast-down within tolerance by the
-  // standard's band regression counts as a pass only when the whole-trace curve is within tolerance at every
-  // reference speed too (a fit that fails confirms nothing: no pass). The adjustment stays the standard's.
+  // acceptance.whole_trace_confirms (lab policy, docs/standards.md §3.11): a coast-down within tolerance by
+  // the standard's band regression counts as a pass only when the whole-trace curve is within tolerance at
+  // every reference speed too (a fit that fails confirms nothing: no pass). The adjustment stays the
+  // standard's.
   bool whole_trace_confirms = false;
-  int consecutive_passes = 2;        // iterative method: passes in a row for acceptance
-  double run_up_margin_kmh = 12.0;   // run up this far above the top reference speed before releasing
+  int consecutive_passes = 2;       // iterative method: passes in a row for acceptance
+  double run_up_margin_kmh = 12.0;  // run up this far above the top reference speed before releasing
   SettingMethod method = SettingMethod::iterative;
   int fixed_runs = 4;                   // fixed-run method: coast-downs in total, run 1 stabilises
   int fixed_run_verification_runs = 1;  // coast-downs at the final setting to confirm it (0 = none)

@@ -57,17 +57,20 @@ RoadLoadFit fit_loss_map(std::span<const HoldPoint> points);
 HoldPoint hold_point(double speed_kmh, std::span<const double> forces_n);
 
 // The steady-versus-coasting difference, learnt inside the warm-up (lab policy, docs/standards.md §3.15): a
-// speed hold reads the vehicle's loss plus what a coast-down never sees (the steady-versus-coasting difference,
-// a load cell's offset and gain); short coasts between the map's holds measure the loss as a coast-down does
-// (band force m·2Δv/Δt less the set the dyno applied). The difference d(v) = hold map(v) − coasting loss(v)
-// is fitted as d0 + d2·v² (least squares), and the loss map's estimate becomes map − d. Never trusted as
-// given (lab policy, no source): d2 only when the points span at least kCoastMinSpanKmh (else d0 alone, the
-// mean: two nearby points would carry their noise far down the speed range); refused (not ok, why said) when
-// the points disagree by more than kCoastMaxResidualSdN about d(v), or |d| exceeds kCoastMaxDifferenceN
-// anywhere on [lo_kmh, hi_kmh] (a reading to distrust, not a vehicle: harsh truths' spreads are about 60 N
-// at three standard deviations).
+// speed hold reads the vehicle's loss plus what a coast-down never sees (the steady-versus-coasting
+// difference, a load cell's offset and gain); short coasts between the map's holds measure the loss as a
+// coast-down does (band force m·2Δv/Δt less the set the dyno applied). The difference d(v) = hold map(v) −
+// coasting loss(v) is fitted as d0 + d2·v² (least squares), and the loss map's estimate becomes map − d.
+// Never trusted as given (lab policy, no source): d2 only when the points span at least kCoastMinSpanKmh
+// (else d0 alone, the mean: two nearby points would carry their noise far down the speed range); refused (not
+// ok, why said) when the points disagree by more than kCoastMaxResidualSdN about d(v), or |d| exceeds
+// kCoastMaxDifferenceN anywhere on [lo_kmh, hi_kmh] (a reading to distrust, not a vehicle: harsh truths'
+// spreads are about 60 N at three standard deviations).
 inline constexpr double kCoastMinSpanKmh = 40.0;
-inline constexpr double kCoastMaxResidualSdN = 5.0;
+// 10 N: above the band force's noise at the top reference speeds at 10 Hz with a 0.2 km/h encoder (about
+// 5–8 N: the 100 Hz, 0.05 km/h spread of docs/performance.md "Estimator spread and the noise model" scaled by
+// σ_v/√f_s), far below what a lying trace gives (hundreds of N in the review's cases).
+inline constexpr double kCoastMaxResidualSdN = 10.0;
 inline constexpr double kCoastMaxDifferenceN = 80.0;
 struct CoastPoint {
   double speed_kmh = 0.0;

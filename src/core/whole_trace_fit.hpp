@@ -20,7 +20,8 @@ struct WholeTraceOptions {
 struct WholeTraceFit {
   bool ok = false;
   // The optimizer met its tolerance (or round-off): false when it stopped at max_evaluations or its time
-  // limit, which still leaves ok (a usable estimate) but not an independent one: it started from the band fit.
+  // limit, which still leaves ok (a usable estimate) but not an independent one: it started from the band
+  // fit.
   bool converged = false;
   std::string message;
   RoadLoad coefficients;

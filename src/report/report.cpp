@@ -362,8 +362,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
              ") " + p + "; the report cannot be made from it";
   json started = json::object(), finished = json::object(), first = json::object(),
        controller_rec = json::object(), inertia_rec = json::object(), limits_rec = json::object();
-  std::vector<json> runs, resumes, warm_ups, loss_points, loss_skips, loss_coasts, drifts, stops, discards, resets,
-      interruptions, starts, pauses;
+  std::vector<json> runs, resumes, warm_ups, loss_points, loss_skips, loss_coasts, drifts, stops, discards,
+      resets, interruptions, starts, pauses;
   std::map<int, json> release_timing, consecutive_timing, run_up_checks, sets_written;
   std::string t_first, t_last;
   int current_run = 0;
@@ -809,7 +809,8 @@ static std::string write_report_body(const std::string& folder, const std::strin
   }
   // The coasts between the holds (docs/standards.md §3.15) and the difference taken off the map.
   if (!loss_coasts.empty()) {
-    h += "<table id=\"loss-map-coasts\"><tr><th>coast km/h</th><th>speed km/h</th><th>band force N</th><th>set "
+    h += "<table id=\"loss-map-coasts\"><tr><th>coast km/h</th><th>speed km/h</th><th>band force "
+         "N</th><th>set "
          "force N</th><th>coasting loss N</th></tr>\n";
     for (const auto& k : loss_coasts) {
       const std::string span = num_or(nv(k, "from_kmh"), 0, "") + " \u2192 " + num_or(nv(k, "to_kmh"), 0, "");

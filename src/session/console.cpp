@@ -170,8 +170,8 @@ bool Console::on_event(const Event& e) {
                          x.point.force_n);
           },
           [&](const ev::LossMapCoast& x) {
-            std::fprintf(out_, "  loss map: coast %.0f -> %.0f km/h, %zu point(s)%s%s\n", x.from_kmh, x.to_kmh,
-                         x.points.size(), x.note.empty() ? "" : ": ", x.note.c_str());
+            std::fprintf(out_, "  loss map: coast %.0f -> %.0f km/h, %zu point(s)%s%s\n", x.from_kmh,
+                         x.to_kmh, x.points.size(), x.note.empty() ? "" : ": ", x.note.c_str());
           },
           [&](const ev::FirstSetting& x) {
             std::fprintf(out_, "  first setting (%s): %s\n", x.strategy.c_str(), coefficients(x.set).c_str());

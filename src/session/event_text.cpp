@@ -172,10 +172,11 @@ std::string event_sentence(const Event& e, const TextContext& ctx) {
                    " km/h with the standard's default setting written";
           },
           [&](const ev::LossMapCoast& x) {
-            std::string t = "loss map: coasted from " + rounded(x.from_kmh, 0) + " to " + rounded(x.to_kmh, 0) +
-                            " km/h";
+            std::string t =
+                "loss map: coasted from " + rounded(x.from_kmh, 0) + " to " + rounded(x.to_kmh, 0) + " km/h";
             for (const auto& pt : x.points)
-              t += "; " + rounded(pt.speed_kmh, 0) + " km/h loses " + rounded(pt.coasting_loss_n, 1) + " N coasting";
+              t += "; " + rounded(pt.speed_kmh, 0) + " km/h loses " + rounded(pt.coasting_loss_n, 1) +
+                   " N coasting";
             return x.note.empty() ? t : t + " (" + x.note + ")";
           },
           [&](const ev::WarmUpEnded&) { return std::string("warm-up ended"); },

@@ -212,7 +212,10 @@ struct Mapper {
                      {"band_force_n", x.band_force_n},
                      {"set_force_n", x.set_force_n},
                      {"coasting_loss_n", x.coasting_loss_n}});
-    return {{"from_kmh", e.from_kmh}, {"to_kmh", e.to_kmh}, {"set", to_json(e.set)}, {"points", pts},
+    return {{"from_kmh", e.from_kmh},
+            {"to_kmh", e.to_kmh},
+            {"set", to_json(e.set)},
+            {"points", pts},
             {"note", e.note}};
   }
   nlohmann::json operator()(const ev::WarmUpEnded&) const { return nlohmann::json::object(); }

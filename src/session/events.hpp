@@ -485,15 +485,16 @@ struct CheckFinished {  // "check_finished"
 using Payload = std::variant<
     ev::SessionStarted, ev::ResumeStarted, ev::StateChanged, ev::ControllerIdentified,
     ev::ControllerStateOnConnect, ev::Refused, ev::Limits, ev::InertiaSet, ev::WarmUpStarted, ev::WarmUpHeld,
-    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::LossMapCoastStarted, ev::LossMapCoast, ev::WarmUpEnded, ev::FirstSetting,
-    ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted, ev::ReleaseTiming, ev::RunUpPlan,
-    ev::DriverPromptShown, ev::RunUpChecked, ev::PassesReset, ev::WarmUpDrift, ev::ConsecutiveTiming,
-    ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging, ev::LinkLost, ev::Reconnect, ev::NotSettled,
-    ev::FaultCleared, ev::LinkRestored, ev::Fault, ev::Interrupted, ev::Paused, ev::Continued, ev::Resumed,
-    ev::SafeStopReconnect, ev::SafeStop, ev::ObserverDropped, ev::Finished, ev::CheckStarted,
-    ev::CheckIdentified, ev::FreeCoastStarted, ev::CheckCoastStarted, ev::ForceApplied, ev::RateRunStarted,
-    ev::ParasiticAnalysed, ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::FrictionAnalysed,
-    ev::AccelDecelAnalysed, ev::ResponseAnalysed, ev::CheckFinished, ev::ControllerWarning>;
+    ev::LossMapSkipped, ev::LossMapPointSkipped, ev::LossMapPoint, ev::LossMapCoastStarted, ev::LossMapCoast,
+    ev::WarmUpEnded, ev::FirstSetting, ev::EnvelopeRefused, ev::SetWritten, ev::CoastdownStarted,
+    ev::ReleaseTiming, ev::RunUpPlan, ev::DriverPromptShown, ev::RunUpChecked, ev::PassesReset,
+    ev::WarmUpDrift, ev::ConsecutiveTiming, ev::Coastdown, ev::CoastdownDiscarded, ev::Diverging,
+    ev::LinkLost, ev::Reconnect, ev::NotSettled, ev::FaultCleared, ev::LinkRestored, ev::Fault,
+    ev::Interrupted, ev::Paused, ev::Continued, ev::Resumed, ev::SafeStopReconnect, ev::SafeStop,
+    ev::ObserverDropped, ev::Finished, ev::CheckStarted, ev::CheckIdentified, ev::FreeCoastStarted,
+    ev::CheckCoastStarted, ev::ForceApplied, ev::RateRunStarted, ev::ParasiticAnalysed,
+    ev::UnloadedCoastdownAnalysed, ev::InertiaAnalysed, ev::FrictionAnalysed, ev::AccelDecelAnalysed,
+    ev::ResponseAnalysed, ev::CheckFinished, ev::ControllerWarning>;
 
 // The record type an event is written as (the "type" member of its line).
 const char* type_of(const Payload& p);

@@ -30,6 +30,19 @@ constexpr double kEstimateMassKg = 1500.0;
 // A coast-down with no predicted time gets this much controller time at least, and never less than three
 // times the predicted time (common practice, no source): longer means too little retarding force.
 constexpr double kMinCoastBudgetS = 300.0;
+
+// The samples' times and speeds as the two columns the trace analysis reads.
+void split_trace(const std::vector<controller::Sample>& trace, std::vector<double>& ts,
+                 std::vector<double>& vs) {
+  ts.clear();
+  vs.clear();
+  ts.reserve(trace.size());
+  vs.reserve(trace.size());
+  for (const auto& s : trace) {
+    ts.push_back(s.time_s);
+    vs.push_back(s.speed_kmh);
+  }
+}
 }  // namespace
 
 Session::Session(Inputs inputs, Options options, controller::Controller& controller,
@@ -428,9 +441,11 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         emit(ev::LossMapPoint{hp});
         if (coast_between && i + 1 < plan.speeds_kmh.size()) {
           if (plan.speeds_kmh[i + 1] < v) {
-            if (Result rr = coast_to_next_hold(v, plan.speeds_kmh[i + 1]); !rr.ok()) return fault(rr, "loss map");
+            if (Result rr = coast_to_next_hold(v, plan.speeds_kmh[i + 1]); !rr.ok())
+              return fault(rr, "loss map");
           } else {
-            emit(ev::LossMapCoast{v, plan.speeds_kmh[i + 1], {}, {}, "not coasted: the next hold is not lower"});
+            emit(ev::LossMapCoast{
+                v, plan.speeds_kmh[i + 1], {}, {}, "not coasted: the next hold is not lower"});
           }
         }
       }
@@ -443,12 +458,15 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
 }
 
 Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
-  // docs/standards.md §3.15 (lab policy): from the hold at from_kmh, coast with the standard's default setting
-  // to to_kmh and measure the vehicle's loss as a coast-down sees it at the reference speeds the coast spans
-  // whole (2 km/h below the release for the release to settle; common practice, no source).
+  // docs/standards.md §3.15 (lab policy): from the hold at from_kmh, coast with the standard's default
+  // setting to to_kmh and measure the vehicle's loss as a coast-down sees it at the reference speeds the
+  // coast spans whole (2 km/h below the release for the release to settle; common practice, no source).
   const auto& p = in_.profile;
-  ev::LossMapCoast rec{from_kmh, to_kmh,
-                       core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial), {}, ""};
+  ev::LossMapCoast rec{from_kmh,
+                       to_kmh,
+                       core::standard_initial_setting(in_.vehicle.target, in_.cell.axles, p.initial),
+                       {},
+                       ""};
   // The envelope before anything is written (the step rule is the iterations' and has no previous here).
   if (const core::SetCheck chk = core::check_set(rec.set, in_.vehicle.target, std::nullopt, opt_.envelope);
       !chk.ok) {
@@ -466,8 +484,9 @@ Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
   std::vector<controller::Sample> trace;
   const double predicted =
       core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, from_kmh, to_kmh).value_or(kMinCoastBudgetS);
-  Result r = motion_.collect(step("loss-map coast", std::max(30.0, 3.0 * predicted), {Mode::road_load}),
-                             [&](const controller::Sample& s) { return s.speed_kmh < to_kmh; }, &trace);
+  Result r = motion_.collect(
+      step("loss-map coast", std::max(30.0, 3.0 * predicted), {Mode::road_load}),
+      [&](const controller::Sample& s) { return s.speed_kmh < to_kmh; }, &trace);
   if (r.code == kTooSlowCode) {
     // Not below to_kmh within the budget (too little retarding force, a stuck speed reading, or a controller
     // that never entered road load): leave road-load simulation at once; the hold that follows takes over.
@@ -481,14 +500,10 @@ Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
   if (Result h = c_.hold_speed(to_kmh); !h.ok()) return h;
   std::vector<double> speeds;
   for (double v : p.reference_speeds_kmh)
-    if (v + p.band_half_width_kmh <= from_kmh - 2.0 && v - p.band_half_width_kmh >= to_kmh) speeds.push_back(v);
+    if (v + p.band_half_width_kmh <= from_kmh - 2.0 && v - p.band_half_width_kmh >= to_kmh)
+      speeds.push_back(v);
   std::vector<double> ts, vs;
-  ts.reserve(trace.size());
-  vs.reserve(trace.size());
-  for (const auto& s : trace) {
-    ts.push_back(s.time_s);
-    vs.push_back(s.speed_kmh);
-  }
+  split_trace(trace, ts, vs);
   for (const auto& b : core::analyse_bands({ts, vs}, speeds, p.band_half_width_kmh, force_mass_kg_)) {
     if (!b.ok()) {
       rec.note += (rec.note.empty() ? "" : "; ") + num(b.reference_speed_kmh) + " km/h not used: " + b.reason;
@@ -805,12 +820,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
 
   transition(State::analyse);
   std::vector<double> ts, vs;
-  ts.reserve(trace.size());
-  vs.reserve(trace.size());
-  for (const auto& s : trace) {
-    ts.push_back(s.time_s);
-    vs.push_back(s.speed_kmh);
-  }
+  split_trace(trace, ts, vs);
   CoastdownRecord rec;
   rec.run = run;
   rec.set = set_;
@@ -1095,7 +1105,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
         plain.loss = c.map_fit;
         plain.set = core::setting_for_loss(in_.vehicle.target, *c.map_fit);
         plain.coast_correction->ok = false;
-        plain.coast_correction->why = "not used: the corrected setting leaves the safe envelope (" + chk.why + ")";
+        plain.coast_correction->why =
+            "not used: the corrected setting leaves the safe envelope (" + chk.why + ")";
         c = plain;
       }
     }

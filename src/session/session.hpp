@@ -138,7 +138,7 @@ class Session {
   bool prompt_shown_ = false;
   bool pause_held_ = false;  // a pause was taken and not yet continued  // a driver prompt other than "off"
                              // was acknowledged and not yet cleared
-  double rewarm_s() const;  // after a lost link or a pause: --resume-warm-up-s, else the profile's warm-up
+  double rewarm_s() const;   // after a lost link or a pause: --resume-warm-up-s, else the profile's warm-up
   // The loss map's coast from one hold down to the next (loss_map.coast_between_holds): recorded as a
   // loss_map_coast event, its points kept for the first setting; a motion or link failure is returned.
   controller::Result coast_to_next_hold(double from_kmh, double to_kmh);
@@ -168,8 +168,9 @@ class Session {
   core::RoadLoad set_;
   std::unique_ptr<core::SettingMethodState> method_;
   std::vector<core::HoldPoint> loss_map_;
-  std::vector<core::CoastPoint> coast_points_;  // the coasts between the map's holds (loss_map.coast_between_holds)
-  int run_ = 0;  // the run in progress or last run (0 before the first)
+  std::vector<core::CoastPoint>
+      coast_points_;  // the coasts between the map's holds (loss_map.coast_between_holds)
+  int run_ = 0;       // the run in progress or last run (0 before the first)
   // For the progress line's estimate: the warm-up being held (its length and start) and the run's start.
   double warm_asked_s_ = -1.0, warm_from_s_ = -1.0, run_from_s_ = -1.0;
   int coastdowns_ = 0, unusable_ = 0, discarded_ = 0, link_losses_ = 0, iterations_ = 0;

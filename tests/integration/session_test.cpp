@@ -350,13 +350,13 @@ TEST(SessionCli, LinkDroppedMidCoastdownIsRepeated) {
   const std::string dir = temp_dir("drop");
   write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 100.0, 2500));
   std::string out, err;
-  const int rc =
-      run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
-                   dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
-                   "--sessions", dir, "--unattended", "--quiet", "--rewarm-s", "200",
-                   // no loss map: its coasts are road load too and would take the drop meant for the coast-down
-                   "--first-setting", "standard"},
-                  &out, &err);
+  const int rc = run_command(
+      {kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+       dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir,
+       "--unattended", "--quiet", "--rewarm-s", "200",
+       // no loss map: its coasts are road load too and would take the drop meant for the coast-down
+       "--first-setting", "standard"},
+      &out, &err);
   EXPECT_EQ(rc, 0) << out << err;
   std::string folder;
   for (const auto& e : fs::directory_iterator(dir))

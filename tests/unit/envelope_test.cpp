@@ -511,7 +511,9 @@ TEST(Divergence, ALoopTrackingAVehicleWhoseLossesStillFallDoesNotFire) {
       fired += watch.verdict().has_value();
     }
     std::printf("drift %.0f N per coast-down: rule 3 fired in %d of 200 seeds\n", drift, fired);
-    if (drift == 6.0) EXPECT_EQ(fired, 0);
-    else EXPECT_LE(fired, 10);  // 8 N + noise is often above T: rare, no longer half of them
+    if (drift == 6.0)
+      EXPECT_EQ(fired, 0);
+    else
+      EXPECT_LE(fired, 10);  // 8 N + noise is often above T: rare, no longer half of them
   }
 }

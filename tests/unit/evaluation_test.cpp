@@ -265,8 +265,8 @@ double trend_end_s(Force force, double within_n, double min_s = 300.0) {
 TEST(WarmUpDrift, TheEndRuleWaitsWhileTheForceStillFalls) {
   // docs/standards.md §3.12. Window means of 60 s, a warm-up of at least 300 s ended when less than 2 N is to
   // come. The truth's drift still to come at the end is computed by hand from its closed form; the rule must
-  // not end a warm-up with more than 4 N of it left (twice the threshold: common practice, no source). (a) Two time constants,
-  // 25 N over 60 s and 20 N over 900 s (the curve alone fits τ ≈ 80 s and ended at
+  // not end a warm-up with more than 4 N of it left (twice the threshold: common practice, no source). (a)
+  // Two time constants, 25 N over 60 s and 20 N over 900 s (the curve alone fits τ ≈ 80 s and ended at
   //     300 s with 14.5 N to come): 25·e^(−t/60) + 20·e^(−t/900).
   auto two = [](double t) { return 80.0 + 25.0 * std::exp(-t / 60.0) + 20.0 * std::exp(-t / 900.0); };
   const double t2 = trend_end_s(two, 2.0);

@@ -14,8 +14,8 @@
 
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
-#include "registry.hpp"
 #include "record/verify.hpp"
+#include "registry.hpp"
 #include "report/report.hpp"
 #include "session/record_writer.hpp"
 #include "session/session.hpp"
@@ -348,7 +348,8 @@ TEST(SessionUnit, AWarmUpEndedOnTheWarmingTrendWaitsForTheDriftAWindowRuleMisses
   // - `trend` with 2 N: the curve says 37.8·e^(−t/400) < 2 from t = 400·ln(18.9) = 1176 s on, but the rule
   //   also carries the slope of the last five 30 s windows (the slope at t − 75 s) over max(τ, 600 s) = 600
   //   s: 37.8/400·e^(−(t−75)/400)·600 < 2 from t = 75 + 400·ln(28.35) = 1412 s on, so the warm-up holds about
-  //   1412 s (less the run-up's few seconds; the fit carries the hold's noise: ±10 %, common practice, no source);
+  //   1412 s (less the run-up's few seconds; the fit carries the hold's noise: ±10 %, common practice, no
+  //   source);
   // - `windows` with 2 N per 30 s window: the window means fall by 37.8·(1 − e^(−30/400))·e^(−t/400) =
   //   2.73·e^(−t/400) N, under 2 N from t = 400·ln(1.37) = 125 s on, so it ends at the 300 s minimum with
   //   37.8·e^(−0.75) ≈ 17.9 N still to come.
@@ -737,7 +738,8 @@ TEST(SessionUnit, TheLossMapCoastsLearnWhatTheHoldsReadAndACoastDownDoesNot) {
       if (const auto* x = std::get_if<session::ev::LossMapCoast>(&e.payload)) seen.push_back(*x);
       if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) first = *f;
       if (const auto* cd = std::get_if<session::ev::Coastdown>(&e.payload))
-        if (cd->record.evaluation.usable) first_worst.push_back(cd->record.evaluation.check.worst_abs_deviation_n);
+        if (cd->record.evaluation.usable)
+          first_worst.push_back(cd->record.evaluation.check.worst_abs_deviation_n);
     });
     session::Inputs in = inputs();
     in.profile.loss_map.coast_between_holds = coasts;
@@ -780,8 +782,8 @@ TEST(SessionUnit, TheLossMapCoastsLearnWhatTheHoldsReadAndACoastDownDoesNot) {
   EXPECT_LE(worst_coast.front(), 10.0);
 }
 
-// The loss map's coasts (loss_map.coast_between_holds, docs/standards.md §3.15) against a hostile controller, a
-// pause and an auditor: what a hostile review found, kept as tests.
+// The loss map's coasts (loss_map.coast_between_holds, docs/standards.md §3.15) against a hostile controller,
+// a pause and an auditor: what a hostile review found, kept as tests.
 namespace {
 session::Inputs coast_inputs() {
   session::Inputs in = inputs();
@@ -809,7 +811,8 @@ TEST(SessionUnitCoasts, TheMapCoastLeavesRoadLoadBeforeItsRecordIsWritten) {
   const auto sum = s.run();
   EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
   ASSERT_FALSE(at_record.empty());
-  for (Mode m : at_record) EXPECT_NE(m, Mode::road_load) << "the dyno still simulates road load at the record";
+  for (Mode m : at_record)
+    EXPECT_NE(m, Mode::road_load) << "the dyno still simulates road load at the record";
 }
 
 // Speed readings that lie during the map's coasts only (the reported deceleration 1.5 times the true one,
@@ -853,16 +856,18 @@ TEST(SessionUnitCoasts, LyingSpeedsInTheMapCoastsAreRefusedNotWritten) {
               k.d0_n + k.d2_n_per_kmh2 * 16900.0);
   std::printf("first setting (%s): %.1f %.4f %.5f; map fit at 100 km/h %.1f N; outcome %s (%s)\n",
               first->strategy.c_str(), first->set.f0_n, first->set.f1_n_per_kmh, first->set.f2_n_per_kmh2,
-              first->loss_map_fit ? first->loss_map_fit->force_n(100.0) : -1.0, session::to_string(sum.outcome),
-              sum.stop_reason.c_str());
+              first->loss_map_fit ? first->loss_map_fit->force_n(100.0) : -1.0,
+              session::to_string(sum.outcome), sum.stop_reason.c_str());
   ASSERT_TRUE(written.has_value());
-  std::printf("first set written: %.1f %.4f %.5f\n", written->f0_n, written->f1_n_per_kmh, written->f2_n_per_kmh2);
+  std::printf("first set written: %.1f %.4f %.5f\n", written->f0_n, written->f1_n_per_kmh,
+              written->f2_n_per_kmh2);
   EXPECT_FALSE(k.ok) << "an absurd correction was used";
   EXPECT_FALSE(k.why.empty());
   EXPECT_GT(written->f0_n, 0.0);  // the holds-only map's set, not the corrected one (−74.6 N before)
   ASSERT_TRUE(first->loss_map_fit.has_value());
   for (double v : {20.0, 130.0})
-    EXPECT_NEAR(first->set.force_n(v), (inputs().vehicle.target - *first->loss_map_fit).force_n(v), 1e-9) << v;
+    EXPECT_NEAR(first->set.force_n(v), (inputs().vehicle.target - *first->loss_map_fit).force_n(v), 1e-9)
+        << v;
 }
 
 // Coasts asked for, none of them usable (holds 8 km/h apart: no reference band lies wholly in a coast): the
@@ -920,7 +925,8 @@ TEST(SessionUnitCoasts, APauseDuringAMapCoastStopsTheRollersAndItsStartIsRecorde
   for (const auto& [m, v] : c.commands)
     if (m == Mode::road_load) released_before_pause = true;
   EXPECT_TRUE(released_before_pause);
-  EXPECT_TRUE(coast_seen) << "the paused coast's write of the default setting and its release are not in the log";
+  EXPECT_TRUE(coast_seen)
+      << "the paused coast's write of the default setting and its release are not in the log";
 }
 
 // Report and verify on a folder with loss_map_coast records.
@@ -993,9 +999,15 @@ TEST(SessionUnitCoasts, HostileCoastsAreBoundedAndEndSafe) {
     });
     session::Session s(coast_inputs(), map_options(), c, {&record, &hook});
     const auto sum = s.run();
-    std::printf("== %s: outcome %s (%s); rollers stopped %d; first %s\n", k.name, session::to_string(sum.outcome),
-                sum.stop_reason.substr(0, 200).c_str(), sum.rollers_stopped,
-                first ? (first->strategy + (first->coast_correction ? (first->coast_correction->ok ? " corrected" : " correction not used: " + first->coast_correction->why) : " no correction")).c_str() : "-");
+    std::printf("== %s: outcome %s (%s); rollers stopped %d; first %s\n", k.name,
+                session::to_string(sum.outcome), sum.stop_reason.substr(0, 200).c_str(), sum.rollers_stopped,
+                first ? (first->strategy + (first->coast_correction ? (first->coast_correction->ok
+                                                                           ? " corrected"
+                                                                           : " correction not used: " +
+                                                                                 first->coast_correction->why)
+                                                                    : " no correction"))
+                            .c_str()
+                      : "-");
     for (const auto& n : notes) std::printf("   %s\n", n.substr(0, 300).c_str());
     EXPECT_TRUE(sum.rollers_stopped) << k.name;
     ASSERT_FALSE(c.commands.empty());

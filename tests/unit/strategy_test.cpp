@@ -356,14 +356,14 @@ TEST(CoastCorrection, ItIsNeverTrustedAsGiven) {
   const RoadLoad zero{0.0, 0.0, 0.0};
   // Two points 10 km/h apart and 4 N apart: no d2 from them (span below 40 km/h), the mean as a constant
   // (unit arithmetic: (0 + 4)/2 = 2 N, sd about it √8 = 2.83 N), not a correction carried down to 20 km/h by
-  // a slope fitted to their noise. 10 N apart they disagree (sd √50 = 7.07 N above 5 N): refused.
+  // a slope fitted to their noise. 20 N apart they disagree (sd √200 = 14.1 N above 10 N): refused.
   const std::vector<core::CoastPoint> two = {{110.0, 0.0}, {120.0, -4.0}};
   const auto c2 = core::fit_coast_correction(zero, two);
   ASSERT_TRUE(c2.ok) << c2.why;
   EXPECT_DOUBLE_EQ(c2.d2_n_per_kmh2, 0.0);
   EXPECT_DOUBLE_EQ(c2.d0_n, 2.0);
   EXPECT_NEAR(c2.residual_sd_n, std::sqrt(8.0), 1e-12);
-  const std::vector<core::CoastPoint> apart = {{110.0, 0.0}, {120.0, -10.0}};
+  const std::vector<core::CoastPoint> apart = {{110.0, 0.0}, {120.0, -20.0}};
   EXPECT_FALSE(core::fit_coast_correction(zero, apart).ok);
   // Points that contradict each other by hundreds of N: refused on the residual, said.
   const RoadLoad map{100.0, 0.5, 0.03};
