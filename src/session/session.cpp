@@ -478,7 +478,6 @@ Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
   // written and released.
   emit(ev::LossMapCoastStarted{from_kmh, to_kmh, rec.set});
   if (Result r = c_.set_coefficients(rec.set); !r.ok()) return r;
-  last_written_ = rec.set;  // what the dyno now holds: the first setting's step is checked from it
   motion_commanded_ = true;
   if (Result r = c_.release_road_load(); !r.ok()) return r;
   std::vector<controller::Sample> trace;
@@ -1094,9 +1093,11 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
                                          .hi_kmh = p.top_speed_kmh()});
     };
     core::FirstSettingChoice c = choose(opt_.first_setting);
-    // Checked from what the dyno holds now (the loss map's coasts wrote the standard's default setting).
+    // A first setting has no previous write to step from: the map's coasts wrote the standard's default
+    // setting as a measurement, not as an iteration (a step rule from it refused legitimate loss-map settings
+    // of large vehicles in the bench); an absurd coast correction is bounded by fit_coast_correction.
     auto refused = [&](const core::FirstSettingChoice& x) {
-      return core::check_set(x.set, in_.vehicle.target, last_written_, opt_.envelope);
+      return core::check_set(x.set, in_.vehicle.target, std::nullopt, opt_.envelope);
     };
     // A coast correction that takes the map's set out of the envelope: the map as it is, said.
     if (c.coast_correction && c.coast_correction->ok) {
