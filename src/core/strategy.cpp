@@ -114,16 +114,12 @@ CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const C
     return c;
   }
   const double vmin = *std::min_element(v.begin(), v.end()), vmax = *std::max_element(v.begin(), v.end());
-  if (v.size() < 3 || vmax - vmin < kCoastMinSpanKmh) {
+  const bool with_d2 = v.size() >= 3 && vmax - vmin >= kCoastMinSpanKmh;
+  if (!with_d2) {
     // Too few points or too narrow a span for d2: the difference as a constant, the mean of the points.
     double s = 0.0;
     for (double x : d) s += x;
     c.d0_n = s / static_cast<double>(d.size());
-    if (v.size() >= 2) {
-      double ss = 0.0;
-      for (double x : d) ss += (x - c.d0_n) * (x - c.d0_n);
-      c.residual_sd_n = std::sqrt(ss / static_cast<double>(v.size() - 1));
-    }
   } else {
     // Least squares of d = d0 + d2·x, x = v² (the normal equations of a straight line in x).
     const double n = static_cast<double>(v.size());
@@ -138,14 +134,16 @@ CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const C
     const double den = n * sxx - sx * sx;
     c.d2_n_per_kmh2 = (n * sxy - sx * sy) / den;
     c.d0_n = (sy - c.d2_n_per_kmh2 * sx) / n;
-    if (v.size() >= 3) {
-      double ss = 0.0;
-      for (std::size_t i = 0; i < v.size(); ++i) {
-        const double r = d[i] - (c.d0_n + c.d2_n_per_kmh2 * v[i] * v[i]);
-        ss += r * r;
-      }
-      c.residual_sd_n = std::sqrt(ss / (n - 2.0));
+  }
+  // The points' spread about d(v), with the degrees of freedom the fit left (none: 0).
+  const std::size_t params = with_d2 ? 2 : 1;
+  if (v.size() > params) {
+    double ss = 0.0;
+    for (std::size_t i = 0; i < v.size(); ++i) {
+      const double r = d[i] - (c.d0_n + c.d2_n_per_kmh2 * v[i] * v[i]);
+      ss += r * r;
     }
+    c.residual_sd_n = std::sqrt(ss / static_cast<double>(v.size() - params));
   }
   if (!std::isfinite(c.d0_n) || !std::isfinite(c.d2_n_per_kmh2) || !std::isfinite(c.residual_sd_n)) {
     c.why = "the difference could not be fitted (not finite)";
