@@ -58,6 +58,7 @@ core::Profile read_profile(TomlReader& r) {
                              ? core::WarmUp::DriftRule::require
                              : core::WarmUp::DriftRule::warn;
   p.warm_up.drift_threshold_n = r.number_or("warm_up.drift_threshold_n", 3.0, 0.1, 100.0, "N");
+  p.warm_up.anticipate_drift = r.boolean_or("warm_up.anticipate_drift", false);
   p.late_start = r.choice("timing.late_start", {"repeat", "finding"}, std::string("repeat")) == "finding"
                      ? core::Profile::LateStart::finding
                      : core::Profile::LateStart::repeat;

@@ -2,6 +2,8 @@
 
 #include <cmath>
 
+#include "core/problem.hpp"
+
 namespace loadtrim::core {
 
 ToleranceCheck check_tolerance(const RoadLoad& target, const RoadLoad& simulated,
@@ -43,6 +45,37 @@ RoadLoad fixed_run_final_setting(const RoadLoad& target, std::span<const RunCoef
   return target - loss_sum.scaled(1.0 / static_cast<double>(runs.size()));
 }
 
+Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outlook, double from_s,
+                                double to_s) {
+  Anticipation a;
+  a.from_s = from_s;
+  a.to_s = to_s;
+  const std::optional<double> change = outlook.change_n ? outlook.change_n(from_s, to_s) : std::nullopt;
+  if (!change || !std::isfinite(*change)) {
+    a.why = "no warming anticipated: the warm-up's trend does not predict it";
+    return a;
+  }
+  const double at_warm = loss.force_n(outlook.speed_kmh);
+  if (!(at_warm >= kMinLossForShareN)) {
+    a.why = "no warming anticipated: the loss on the dyno at " + num(outlook.speed_kmh) +
+            " km/h is below " + num(kMinLossForShareN) + " N";
+    return a;
+  }
+  const double ratio = *change / at_warm;
+  if (!(std::abs(ratio) <= kMaxAnticipatedShare)) {
+    a.why = "no warming anticipated: the trend predicts a change of " + num(ratio * 100.0, 1) +
+            " % of the loss, beyond " + num(kMaxAnticipatedShare * 100.0) + " %";
+    return a;
+  }
+  a.used = true;
+  a.change_n = *change;
+  a.ratio = ratio;
+  a.why = "anticipates a loss change of " + num(*change, 1) + " N at " +
+          num(outlook.speed_kmh) + " km/h by the next coast-down (" + num(ratio * 100.0, 1) +
+          " % of the loss)";
+  return a;
+}
+
 const char* to_string(Decision::Kind k) {
   switch (k) {
     case Decision::Kind::run_again:
@@ -59,7 +92,7 @@ SettingMethodState::SettingMethodState(const Profile& profile, const RoadLoad& t
     : profile_(profile), target_(target) {}
 
 Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& simulated,
-                                          bool within_tolerance) {
+                                          bool within_tolerance, const WarmingOutlook* outlook) {
   ++runs_;
   Decision d;
   if (profile_.method == SettingMethod::iterative || verifying_) {
@@ -87,6 +120,12 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
     }
     d.next_set = adjusted_setting(target_, set, simulated);
     d.reason = "outside tolerance: adjusted A*d = Ad + At − As (B, C likewise)";
+    if (outlook) {
+      const RoadLoad loss = simulated - set;
+      d.anticipation = anticipate_warming(loss, *outlook, outlook->now_s, outlook->next_s);
+      if (d.anticipation.used) d.next_set = target_ - loss.scaled(1.0 + d.anticipation.ratio);
+      d.reason += "; " + d.anticipation.why;
+    }
     return d;
   }
   // Fixed-run method: run 1 stabilises and sets run 2; runs 2..n at that setting; final from their mean.
@@ -96,6 +135,7 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
     return d;
   }
   fixed_runs_.push_back({set, simulated});
+  if (outlook) fixed_run_times_s_.push_back(outlook->now_s);
   if (runs_ < profile_.fixed_runs) {
     d.next_set = set;
     d.reason = "fixed-run: run " + std::to_string(runs_) + " of " + std::to_string(profile_.fixed_runs);
@@ -110,6 +150,23 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
   }
   verifying_ = true;
   d.reason = "fixed-run: final setting computed, verifying it";
+  // Every averaged run timed by an outlook (a resumed session replays its runs without one): the loss they
+  // averaged is of their mean time; the verification run meets the vehicle one coast-down after this one.
+  if (outlook && fixed_run_times_s_.size() == fixed_runs_.size()) {
+    double mean_t = 0.0;
+    RoadLoad loss;
+    for (std::size_t i = 0; i < fixed_runs_.size(); ++i) {
+      mean_t += fixed_run_times_s_[i];
+      loss = loss + (fixed_runs_[i].simulated - fixed_runs_[i].set);
+    }
+    mean_t /= static_cast<double>(fixed_runs_.size());
+    loss = loss.scaled(1.0 / static_cast<double>(fixed_runs_.size()));
+    d.anticipation = anticipate_warming(loss, *outlook, mean_t, outlook->next_s);
+    if (d.anticipation.used) d.next_set = target_ - loss.scaled(1.0 + d.anticipation.ratio);
+    d.reason += "; " + d.anticipation.why;
+  } else if (outlook) {
+    d.reason += "; no warming anticipated: not every averaged run was timed";
+  }
   return d;
 }
 

@@ -55,12 +55,48 @@ struct RunCoefficients {
 RoadLoad fixed_run_final_setting(const RoadLoad& target,
                                  std::span<const RunCoefficients> runs_after_stabilisation);
 
+// Warming anticipated in the next setting (warm_up.anticipate_drift, docs/standards.md §3.16, lab policy). The
+// loss the vehicle shows on the dyno, loss = simulated − set (the coefficients As − Ad, Bs − Bd, Cs − Cd), is
+// what the standard's adjustment takes off the target (A*d = At − (As − Ad)). A vehicle still warming will show
+// less of it at the next coast-down: by change_n at the warm-up speed, as the warming curve of the warm-up's
+// hold windows predicts (warm_up_drift.hpp predicted_change_n). The whole loss curve is scaled by the same
+// share, ratio = change_n / loss(v_warm), so the setting becomes At − (As − Ad)·(1 + ratio). The share is a
+// model (the whole loss drifting in proportion, lab policy, no source): the drivetrain's spin loss, the part
+// that warms, grows faster with speed than the tyres' loss, so at the top speeds it under-predicts and at the
+// lowest it over-predicts.
+struct WarmingOutlook {
+  // The loss change at speed_kmh from from_s to to_s (s since motoring began); nullopt: not predicted.
+  std::function<std::optional<double>(double from_s, double to_s)> change_n;
+  double speed_kmh = 80.0;
+  double now_s = 0.0;   // this coast-down's time (the middle of its coast)
+  double next_s = 0.0;  // the next coast-down's expected time (its middle)
+};
+
+struct Anticipation {
+  bool used = false;
+  double change_n = 0.0;  // predicted at the warm-up speed (0 when not predicted)
+  double ratio = 0.0;     // change_n / loss(v_warm), the share the whole loss curve is scaled by
+  double from_s = 0.0, to_s = 0.0;  // the span predicted over, s since motoring began
+  std::string why;        // one line for the log: what was anticipated, or why nothing was
+};
+
+// Bounds on the anticipation (lab policy, no source): the loss at the warm-up speed at least kMinLossForShareN
+// (a share of a near-zero loss is no prediction), the share at most kMaxAnticipatedShare in size (a quarter of
+// the loss between two coast-downs is far beyond any warming the tool has seen; a curve that says so is not
+// believed).
+inline constexpr double kMinLossForShareN = 20.0;
+inline constexpr double kMaxAnticipatedShare = 0.25;
+
+// The share for `loss` at `speed_kmh` over [from_s, to_s]; not used (and why) outside the bounds.
+Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outlook, double from_s, double to_s);
+
 // What the method says after a coast-down.
 struct Decision {
   enum class Kind { run_again, accepted, rejected };
   Kind kind = Kind::run_again;
   RoadLoad next_set;   // the setting for the next coast-down (run_again), or the final one (accepted)
   std::string reason;  // one line for the log
+  Anticipation anticipation;  // the warming the next setting anticipates (used only with an outlook)
 };
 const char* to_string(Decision::Kind k);
 
@@ -69,7 +105,10 @@ const char* to_string(Decision::Kind k);
 class SettingMethodState {
  public:
   SettingMethodState(const Profile& profile, const RoadLoad& target);
-  Decision on_coastdown(const RoadLoad& set, const RoadLoad& simulated, bool within_tolerance);
+  // `outlook` (optional): anticipate the warming in an adjusted setting (iterative) and in the fixed-run final
+  // setting (from the mean time of the runs it averages to the verification run's).
+  Decision on_coastdown(const RoadLoad& set, const RoadLoad& simulated, bool within_tolerance,
+                        const WarmingOutlook* outlook = nullptr);
   int consecutive_passes() const { return passes_; }
   // A discarded run, a stop or a re-warm breaks "consecutive" (GTR 15 §8.1.3.4.2, docs/standards.md §3.1):
   // the passes so far no longer count. Returns how many were dropped.
@@ -85,6 +124,7 @@ class SettingMethodState {
   int passes_ = 0;
   bool verifying_ = false;
   std::vector<RunCoefficients> fixed_runs_;
+  std::vector<double> fixed_run_times_s_;  // the outlook's now_s of each averaged run (when given)
 };
 
 }  // namespace loadtrim::core

@@ -74,6 +74,14 @@ WarmUpCurve fit_warm_up_curve(std::span<const DriftPoint> pts, double tau_min_s,
   return out;
 }
 
+std::optional<double> predicted_change_n(const WarmUpCurve& c, double t1_s, double t2_s, double max_rms_n) {
+  if (!c.ok || c.tau_at_bound || !(c.rms_residual_n <= max_rms_n)) return std::nullopt;
+  if (!std::isfinite(t1_s) || !std::isfinite(t2_s) || !(t1_s >= 0.0) || !(t2_s >= t1_s)) return std::nullopt;
+  const double change = c.amplitude_n * (std::exp(-t2_s / c.tau_s) - std::exp(-t1_s / c.tau_s));
+  if (!std::isfinite(change)) return std::nullopt;
+  return change;
+}
+
 std::optional<double> remaining_drift_for_end_n(std::span<const DriftPoint> points, double t_s,
                                                 double horizon_s, std::size_t recent) {
   if (recent < 2 || points.size() < recent) return std::nullopt;

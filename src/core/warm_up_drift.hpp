@@ -32,6 +32,19 @@ struct WarmUpCurve {
 WarmUpCurve fit_warm_up_curve(std::span<const DriftPoint> points, double tau_min_s = 30.0,
                               double tau_max_s = 20000.0);
 
+// How well a curve must fit its windows before its forecast moves a setting (lab policy, no source: the hold
+// windows of a warm vehicle scatter by well under a newton; 2 N of rms residual is a curve that is not the
+// vehicle's).
+inline constexpr double kMaxCurveRmsForOutlookN = 2.0;
+
+// The change of the warm-up-speed force from t1_s to t2_s (s since motoring began) that the curve predicts,
+// A·(exp(−t2/τ) − exp(−t1/τ)) (warm_up.anticipate_drift, docs/standards.md §3.16). nullopt when the curve is
+// not fitted, not resolved (τ at the search's upper bound: the decay's shape is not known, so neither is its
+// future), fits its windows with an rms residual above max_rms_n, or the times are not finite with
+// 0 <= t1_s <= t2_s.
+std::optional<double> predicted_change_n(const WarmUpCurve& c, double t1_s, double t2_s,
+                                         double max_rms_n = kMaxCurveRmsForOutlookN);
+
 // How long the recent slope is carried on at least (lab policy, no source: ten minutes, half the road
 // warm-up's 20 minutes).
 inline constexpr double kTrendHorizonS = 600.0;

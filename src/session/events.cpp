@@ -727,6 +727,13 @@ nlohmann::json to_json(const CoastdownRecord& r) {
   j["decision"] = {{"kind", core::to_string(r.decision.kind)},
                    {"reason", r.decision.reason},
                    {"next_set", to_json(r.decision.next_set)}};
+  if (!r.decision.anticipation.why.empty())
+    j["decision"]["anticipation"] = {{"used", r.decision.anticipation.used},
+                                     {"change_n", r.decision.anticipation.change_n},
+                                     {"ratio", r.decision.anticipation.ratio},
+                                     {"from_s", r.decision.anticipation.from_s},
+                                     {"to_s", r.decision.anticipation.to_s},
+                                     {"why", r.decision.anticipation.why}};
   return j;
 }
 

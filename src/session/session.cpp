@@ -412,6 +412,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   if (measure_loss_map) {
     loss_map_.clear();
     coast_points_.clear();
+    map_from_s_ = t_now_;
     if (!info_.has("hold-force")) {
       emit(ev::LossMapSkipped{"the controller does not report force in speed hold"});
     } else {
@@ -451,6 +452,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
       }
     }
   }
+  if (measure_loss_map) map_to_s_ = t_now_;
   t_warm_end_ = t_now_;
   first_after_warm_up_ = true;
   emit(ev::WarmUpEnded{});  // its stamp's t_s is t_warm_end_
@@ -854,7 +856,22 @@ std::optional<Session::Stop> Session::do_run(int run) {
       return Stop{Outcome::not_accepted, "too many unusable coast-downs (" + std::to_string(unusable_) +
                                              "): " + rec.evaluation.unusable_reason};
   } else {
-    rec.decision = method_->on_coastdown(set_, rec.evaluation.fit.coefficients, rec.evaluation.check.pass);
+    // The warming still to come, anticipated in the next setting (warm_up.anticipate_drift, docs/standards.md
+    // §3.16): the warm-up's curve predicts the loss change from this coast-down's middle to the next one's,
+    // a run-up and a coast-down later.
+    core::WarmingOutlook outlook;
+    const bool anticipate = p.warm_up.anticipate_drift && drift_t0_ >= 0.0;
+    if (anticipate) {
+      const core::WarmUpCurve curve = core::fit_warm_up_curve(drift_points_);
+      outlook.change_n = [curve](double from_s, double to_s) {
+        return core::predicted_change_n(curve, from_s, to_s);
+      };
+      outlook.speed_kmh = p.warm_up.speed_kmh;
+      outlook.now_s = rec.release_time_s + 0.5 * rec.duration_s - drift_t0_;
+      outlook.next_s = outlook.now_s + std::max(0.0, rec.run_up_s) + rec.duration_s;
+    }
+    rec.decision = method_->on_coastdown(set_, rec.evaluation.fit.coefficients, rec.evaluation.check.pass,
+                                         anticipate ? &outlook : nullptr);
     if (rec.evaluation.confirmation_refused)
       rec.decision.reason += "; within tolerance by the band regression but " + rec.evaluation.confirmation;
     if (divergence_)
@@ -1110,6 +1127,32 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
             "not used: the corrected setting leaves the safe envelope (" + chk.why + ")";
         c = plain;
       }
+    }
+    // The warming from the map to the first coast-down, anticipated (warm_up.anticipate_drift,
+    // docs/standards.md §3.16): the map's loss is of its middle; the first coast-down's middle is a run-up
+    // (at the motoring rate from the last hold) and half a coast-down of the target later.
+    if (p.warm_up.anticipate_drift && c.used == core::to_string(core::FirstSetting::loss_map) && c.loss &&
+        drift_t0_ >= 0.0 && map_to_s_ >= map_from_s_ && map_from_s_ >= drift_t0_) {
+      const core::WarmUpCurve curve = core::fit_warm_up_curve(drift_points_);
+      core::WarmingOutlook o;
+      o.change_n = [&curve](double from_s, double to_s) {
+        return core::predicted_change_n(curve, from_s, to_s);
+      };
+      o.speed_kmh = p.warm_up.speed_kmh;
+      const double last_hold_kmh = loss_map_.empty() ? p.warm_up.speed_kmh : loss_map_.back().speed_kmh;
+      const double run_up_s =
+          std::max(0.0, p.start_speed_kmh() - last_hold_kmh) / 3.6 / core::kHoldRampMps2;
+      const double coast_s =
+          core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), p.end_speed_kmh())
+              .value_or(0.0);
+      o.now_s = 0.5 * (map_from_s_ + map_to_s_) - drift_t0_;
+      o.next_s = t_now_ - drift_t0_ + run_up_s + 0.5 * coast_s;
+      const core::Anticipation a = core::anticipate_warming(*c.loss, o, o.now_s, o.next_s);
+      if (a.used) {
+        c.loss = c.loss->scaled(1.0 + a.ratio);
+        c.set = core::setting_for_loss(in_.vehicle.target, *c.loss);
+      }
+      c.why += (c.why.empty() ? "" : "; ") + std::string("the map's loss ") + a.why;
     }
     // A strategy's set that leaves the safe envelope (a history row, a fleet or map fit gone wild) is never
     // the first setting: the standard's is used instead and the record says why (the envelope would refuse

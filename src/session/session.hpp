@@ -168,6 +168,7 @@ class Session {
   core::RoadLoad set_;
   std::unique_ptr<core::SettingMethodState> method_;
   std::vector<core::HoldPoint> loss_map_;
+  double map_from_s_ = -1.0, map_to_s_ = -2.0;  // the loss map's span on the controller's clock
   std::vector<core::CoastPoint>
       coast_points_;  // the coasts between the map's holds (loss_map.coast_between_holds)
   int run_ = 0;       // the run in progress or last run (0 before the first)

@@ -246,6 +246,38 @@ TEST(WarmUpDrift, TheFirstOrderWarmingCurveIsRecovered) {
   EXPECT_TRUE(l.tau_at_bound) << "a straight fall over 5 min does not show where warming ends";
 }
 
+TEST(WarmUpDrift, TheCurveForecastsTheChangeBetweenTwoCoastDowns) {
+  // docs/standards.md §3.16: the change the curve predicts from t1 to t2 is A·(e^(−t2/τ) − e^(−t1/τ))
+  // (first-order response, textbook). Windows every 60 s over the first 1000 s of F∞ = 120 N, A = 40 N, τ =
+  // 2000 s (a slow warming: the decay is not over when the windows end) with seeded N(0, 0.1 N) noise; from
+  // 1300 to 1520 s the truth falls by 40·(e^(−0.76) − e^(−0.65)) = 40·(0.46767 − 0.52205) = −2.175 N (by hand). The fit extrapolates
+  // it within 15 % (common practice, no source).
+  std::vector<core::DriftPoint> pts;
+  std::mt19937_64 rng(5);
+  std::normal_distribution<double> noise(0.0, 0.1);
+  for (double t = 30.0; t < 1000.0; t += 60.0)
+    pts.push_back({t, 120.0 + 40.0 * std::exp(-t / 2000.0) + noise(rng)});
+  const core::WarmUpCurve c = core::fit_warm_up_curve(pts);
+  ASSERT_TRUE(c.ok) << c.why;
+  const auto change = core::predicted_change_n(c, 1300.0, 1520.0);
+  ASSERT_TRUE(change.has_value());
+  const double truth = 40.0 * (std::exp(-1520.0 / 2000.0) - std::exp(-1300.0 / 2000.0));
+  EXPECT_NEAR(truth, -2.175, 0.001);
+  EXPECT_NEAR(*change / truth, 1.0, 0.15);
+  // Nothing is forecast from a curve that is not the vehicle's: unresolved (τ at the bound), not fitted, a
+  // worse fit than the bound, or times out of order or not finite.
+  std::vector<core::DriftPoint> line;
+  for (double t = 15.0; t < 300.0; t += 30.0) line.push_back({t, 100.0 - 0.01 * t});
+  const core::WarmUpCurve l = core::fit_warm_up_curve(line);
+  ASSERT_TRUE(l.tau_at_bound);
+  EXPECT_FALSE(core::predicted_change_n(l, 400.0, 600.0).has_value());
+  EXPECT_FALSE(core::predicted_change_n(core::WarmUpCurve{}, 400.0, 600.0).has_value());
+  EXPECT_FALSE(core::predicted_change_n(c, 1300.0, 1520.0, c.rms_residual_n * 0.5).has_value());
+  EXPECT_FALSE(core::predicted_change_n(c, 1520.0, 1300.0).has_value());
+  EXPECT_FALSE(core::predicted_change_n(c, std::nan(""), 1300.0).has_value());
+  EXPECT_FALSE(core::predicted_change_n(c, -5.0, 1300.0).has_value());
+}
+
 namespace {
 // When the warm-up's end rule (stable_by "trend", docs/standards.md §3.12) first says less than `within_n` is
 // to come, for window means `force(t)` every 60 s from t = 30 s, at least `min_s` and at most 3600 s: that

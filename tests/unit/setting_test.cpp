@@ -5,6 +5,7 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <optional>
 #include <vector>
 
 #include "core/profile.hpp"
@@ -148,6 +149,110 @@ TEST(Setting, FixedRunWithVerification) {
   s = m2.on_coastdown({50, 0.1, 0.03}, {110, 0.4, 0.031}, false).next_set;
   for (int i = 0; i < 3; ++i) s = m2.on_coastdown(s, s + RoadLoad{60, 0.3, 0.001}, false).next_set;
   EXPECT_EQ(m2.on_coastdown(s, {130, 0.5, 0.03}, false).kind, Decision::Kind::rejected);
+}
+
+TEST(Setting, TheAdjustmentAnticipatesTheWarmingTheTrendPredicts) {
+  // docs/standards.md §3.16 (lab policy): the adjusted setting At − (As − Ad) with the loss (As − Ad) scaled by
+  // 1 + ratio, ratio = change / loss(v_warm). By hand: target (100, 0.5, 0.03), set (50, 0.2, 0.028), simulated
+  // (120, 0.5, 0.03) → loss (70, 0.3, 0.002); at 80 km/h 70 + 24 + 12.8 = 106.8 N; a predicted change of −10.68
+  // N is a ratio of −0.1, so the next set is (100 − 63, 0.5 − 0.27, 0.03 − 0.0018) = (37, 0.23, 0.0282); without
+  // the outlook it is the standard's (30, 0.2, 0.028) (GTR 15 §8.1.4).
+  const Profile p = wltp(SettingMethod::iterative);
+  const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028}, simulated{120, 0.5, 0.03};
+  WarmingOutlook o;
+  double asked_from = -1, asked_to = -1;
+  o.change_n = [&](double from, double to) -> std::optional<double> {
+    asked_from = from;
+    asked_to = to;
+    return -10.68;
+  };
+  o.speed_kmh = 80.0;
+  o.now_s = 1300.0;
+  o.next_s = 1520.0;
+  SettingMethodState m(p, target);
+  const Decision d = m.on_coastdown(set, simulated, false, &o);
+  EXPECT_EQ(d.kind, Decision::Kind::run_again);
+  ASSERT_TRUE(d.anticipation.used) << d.anticipation.why;
+  EXPECT_NEAR(d.anticipation.ratio, -0.1, 1e-12);
+  EXPECT_DOUBLE_EQ(asked_from, 1300.0);
+  EXPECT_DOUBLE_EQ(asked_to, 1520.0);
+  expect_eq(d.next_set, {37, 0.23, 0.0282}, 1e-9);
+  EXPECT_NE(d.reason.find("anticipates a loss change of -10.7 N at 80 km/h"), std::string::npos) << d.reason;
+  SettingMethodState plain(p, target);
+  expect_eq(plain.on_coastdown(set, simulated, false).next_set, {30, 0.2, 0.028}, 1e-12);
+  // A pass keeps the setting: consecutive passes are at one setting (GTR 15 §8.1.3.4.2).
+  SettingMethodState passing(p, target);
+  const Decision kept = passing.on_coastdown(set, {101, 0.5, 0.03}, true, &o);
+  expect_eq(kept.next_set, set);
+  EXPECT_FALSE(kept.anticipation.used);
+}
+
+TEST(Setting, AnAnticipationOutsideItsBoundsIsNotUsedAndSaysWhy) {
+  // The bounds (lab policy, no source): the loss at the warm-up speed at least kMinLossForShareN, the share at
+  // most kMaxAnticipatedShare; no prediction, or a NaN one: nothing anticipated. Each falls back to the
+  // standard's adjustment, (30, 0.2, 0.028) here (GTR 15 §8.1.4, as above).
+  const Profile p = wltp(SettingMethod::iterative);
+  const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028};
+  struct Case {
+    RoadLoad simulated;
+    std::optional<double> change;
+    const char* says;
+  };
+  const Case cases[] = {
+      {{120, 0.5, 0.03}, std::nullopt, "does not predict"},
+      {{120, 0.5, 0.03}, std::nan(""), "does not predict"},
+      {{120, 0.5, 0.03}, -30.0, "beyond 25 %"},  // 30 / 106.8 = 28 %
+      {{120, 0.5, 0.03}, +30.0, "beyond 25 %"},
+      // loss (5, 0.0, 0.0): 5 N at 80 km/h, below 20 N
+      {{55, 0.2, 0.028}, -1.0, "below 20 N"},
+  };
+  for (const auto& c : cases) {
+    WarmingOutlook o;
+    o.change_n = [&](double, double) { return c.change; };
+    o.now_s = 1000.0;
+    o.next_s = 1200.0;
+    SettingMethodState m(p, target);
+    const Decision d = m.on_coastdown(set, c.simulated, false, &o);
+    EXPECT_FALSE(d.anticipation.used);
+    EXPECT_NE(d.anticipation.why.find(c.says), std::string::npos) << d.anticipation.why;
+    expect_eq(d.next_set, adjusted_setting(target, set, c.simulated), 1e-12);
+  }
+}
+
+TEST(Setting, TheFixedRunFinalSettingAnticipatesFromTheRunsMeanTimeToTheVerification) {
+  // docs/standards.md §3.16: the fixed-run final setting A = At − mean(As − Ad) (docs/standards.md §3, as in
+  // FixedRunFinalSetting above: mean loss (60, 0.30, 0.0010) → (40, 0.2, 0.029)) with the mean loss scaled by
+  // 1 + ratio, the change predicted from the mean time of runs 2..4 (1200, 1400, 1600 s → 1400 s) to the
+  // verification run (next_s of run 4: 1800 s). The mean loss at 80 km/h is 60 + 24 + 6.4 = 90.4 N; a change of
+  // −9.04 N is a ratio of −0.1 → (100 − 54, 0.5 − 0.27, 0.03 − 0.0009) = (46, 0.23, 0.0291) (by hand).
+  Profile p = wltp(SettingMethod::fixed_run);
+  p.fixed_run_verification_runs = 1;
+  const RoadLoad target{100, 0.5, 0.03};
+  double asked_from = -1, asked_to = -1;
+  WarmingOutlook o;
+  o.change_n = [&](double from, double to) -> std::optional<double> {
+    asked_from = from;
+    asked_to = to;
+    return -9.04;
+  };
+  SettingMethodState m(p, target);
+  o.now_s = 1000.0;
+  o.next_s = 1200.0;
+  const Decision first = m.on_coastdown({50, 0.1, 0.03}, {112, 0.42, 0.031}, false, &o);
+  expect_eq(first.next_set, {38, 0.18, 0.029});  // run 1 → run 2: the standard's adjustment, as without
+  const RoadLoad s = first.next_set;
+  const RoadLoad losses[] = {{60, 0.30, 0.0010}, {63, 0.33, 0.0012}, {57, 0.27, 0.0008}};
+  Decision d;
+  for (int i = 0; i < 3; ++i) {
+    o.now_s = 1200.0 + 200.0 * i;
+    o.next_s = o.now_s + 200.0;
+    d = m.on_coastdown(s, s + losses[i], false, &o);
+  }
+  EXPECT_TRUE(m.verifying());
+  ASSERT_TRUE(d.anticipation.used) << d.anticipation.why;
+  EXPECT_DOUBLE_EQ(asked_from, 1400.0);
+  EXPECT_DOUBLE_EQ(asked_to, 1800.0);
+  expect_eq(d.next_set, {46, 0.23, 0.0291}, 1e-9);
 }
 
 TEST(Setting, ProfileValidationReportsEveryProblem) {
