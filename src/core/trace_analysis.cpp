@@ -43,42 +43,81 @@ TraceAnalyser::TraceAnalyser(TraceView trace, BandOptions options) : trace_(trac
     trace_problem_ = "time and speed columns differ in length";
     return;
   }
-  for (std::size_t i = 0; i < n; ++i) {
-    if (!std::isfinite(trace_.time_s[i]) || !std::isfinite(trace_.speed_kmh[i])) {
-      trace_problem_ = "non-finite value at sample " + std::to_string(i);
-      return;
+  // One pass: each block's speed extremes, and whether every value is finite and time ascends (x − x is 0
+  // for a finite x and NaN otherwise; a NaN compares false). Written without an early exit so that the
+  // compiler can keep several blocks in flight; a problem is located by a second, plain pass.
+  const std::size_t nb = (n + kBlock - 1) / kBlock;
+  block_prefix_min_.resize(nb);
+  block_suffix_max_.resize(nb);
+  const double* t = trace_.time_s.data();
+  const double* v = trace_.speed_kmh.data();
+  bool ok = true;
+  for (std::size_t b = 0; b < nb; ++b) {
+    const std::size_t i0 = b * kBlock, i1 = std::min(n, i0 + kBlock);
+    double mn = INFINITY, mx = -INFINITY;
+    bool good = true;
+    for (std::size_t i = i0; i < i1; ++i) {
+      mn = v[i] < mn ? v[i] : mn;
+      mx = v[i] > mx ? v[i] : mx;
+      good &= (t[i] - t[i] == 0.0) & (v[i] - v[i] == 0.0) & (i == 0 || t[i] > t[i - 1]);
     }
-    if (i > 0 && !(trace_.time_s[i] > trace_.time_s[i - 1])) {
-      trace_problem_ = "time not ascending at sample " + std::to_string(i);
-      return;
-    }
+    ok &= good;
+    block_prefix_min_[b] = mn;
+    block_suffix_max_[b] = mx;
   }
-  prefix_min_.resize(n);
-  suffix_max_.resize(n);
-  double m = INFINITY;
-  for (std::size_t i = 0; i < n; ++i) prefix_min_[i] = m = std::min(m, trace_.speed_kmh[i]);
-  m = -INFINITY;
-  for (std::size_t i = n; i-- > 0;) suffix_max_[i] = m = std::max(m, trace_.speed_kmh[i]);
+  if (!ok) {
+    for (std::size_t i = 0; i < n; ++i) {
+      if (!std::isfinite(t[i]) || !std::isfinite(v[i])) {
+        trace_problem_ = "non-finite value at sample " + std::to_string(i);
+        break;
+      }
+      if (i > 0 && !(t[i] > t[i - 1])) {
+        trace_problem_ = "time not ascending at sample " + std::to_string(i);
+        break;
+      }
+    }
+    block_prefix_min_.clear();
+    block_suffix_max_.clear();
+    return;
+  }
+  for (std::size_t b = 1; b < nb; ++b) block_prefix_min_[b] = std::min(block_prefix_min_[b - 1], block_prefix_min_[b]);
+  for (std::size_t b = nb - (nb > 0); b-- > 0;)
+    block_suffix_max_[b] = std::max(block_suffix_max_[b + 1], block_suffix_max_[b]);
+}
+
+std::optional<TraceAnalyser::RoughIndices> TraceAnalyser::rough_indices(double level) const {
+  if (!trace_problem_.empty() || block_prefix_min_.empty()) return std::nullopt;
+  const std::size_t n = trace_.size();
+  const double* v = trace_.speed_kmh.data();
+  // First index whose running minimum is below the level: the first block whose running minimum is, then
+  // the first sample below the level inside it (the blocks before it hold none).
+  const auto pb = std::partition_point(block_prefix_min_.begin(), block_prefix_min_.end(),
+                                       [&](double m) { return m >= level; });
+  if (pb == block_prefix_min_.end()) return std::nullopt;
+  RoughIndices r;
+  r.first_below = static_cast<std::size_t>(pb - block_prefix_min_.begin()) * kBlock;
+  while (!(v[r.first_below] < level)) ++r.first_below;
+  if (r.first_below == 0) return std::nullopt;
+  // Last index whose suffix maximum is at or above the level: the last block holding such a sample, then the
+  // last one inside it (sample 0 is one: it is not below the level).
+  const auto sb = std::partition_point(block_suffix_max_.begin(), block_suffix_max_.end(),
+                                       [&](double m) { return m >= level; });
+  const std::size_t b = static_cast<std::size_t>(sb - block_suffix_max_.begin()) - 1;
+  r.last_at_or_above = std::min(n, (b + 1) * kBlock) - 1;
+  while (!(v[r.last_at_or_above] >= level)) --r.last_at_or_above;
+  return r;
 }
 
 bool TraceAnalyser::rough_crossing(double level, double& t) const {
-  // First index whose running minimum is below the level.
-  auto first_below =
-      std::partition_point(prefix_min_.begin(), prefix_min_.end(), [&](double v) { return v >= level; });
-  if (first_below == prefix_min_.end() || first_below == prefix_min_.begin()) return false;
-  // Last index whose suffix maximum is at or above the level.
-  auto past_last_above =
-      std::partition_point(suffix_max_.begin(), suffix_max_.end(), [&](double v) { return v >= level; });
-  if (past_last_above == suffix_max_.begin()) return false;
-  const std::size_t i_below = static_cast<std::size_t>(first_below - prefix_min_.begin());
-  const std::size_t i_above = static_cast<std::size_t>(past_last_above - suffix_max_.begin()) - 1;
-  t = 0.5 * (trace_.time_s[i_below] + trace_.time_s[i_above]);
+  const auto r = rough_indices(level);
+  if (!r) return false;
+  t = 0.5 * (trace_.time_s[r->first_below] + trace_.time_s[r->last_at_or_above]);
   return true;
 }
 
 Crossing TraceAnalyser::crossing(double level) const {
   Crossing c;
-  const std::size_t n = prefix_min_.size();
+  const std::size_t n = trace_.size();
   if (!trace_problem_.empty() || n == 0) {
     c.status = BandStatus::bad_trace;
     c.reason = trace_problem_.empty() ? "empty trace" : trace_problem_;
@@ -89,7 +128,7 @@ Crossing TraceAnalyser::crossing(double level) const {
     c.reason = "trace starts at " + num(trace_.speed_kmh.front()) + " km/h, below " + num(level) + " km/h";
     return c;
   }
-  if (prefix_min_.back() >= level) {
+  if (block_prefix_min_.back() >= level) {
     c.status = BandStatus::not_finished;
     c.reason = "trace never falls below " + num(level) + " km/h";
     return c;

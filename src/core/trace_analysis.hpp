@@ -6,6 +6,7 @@
 #pragma once
 
 #include <cstdint>
+#include <optional>
 #include <span>
 #include <string>
 #include <vector>
@@ -70,6 +71,12 @@ class TraceAnalyser {
   std::vector<BandResult> bands(std::span<const double> reference_speeds_kmh, double half_band_kmh,
                                 double force_mass_kg) const;
   const TraceView& trace() const { return trace_; }
+  // The samples a crude crossing of `level_kmh` lies between: the first sample below the level and the last
+  // sample at or above it (nullopt: the trace is bad, starts below the level, or never falls below it).
+  struct RoughIndices {
+    std::size_t first_below = 0, last_at_or_above = 0;
+  };
+  std::optional<RoughIndices> rough_indices(double level_kmh) const;
 
  private:
   // Crude crossing: midway between the first sample below the level and the last sample at or above it.
@@ -77,8 +84,12 @@ class TraceAnalyser {
   bool even_deceleration(double v, double half_band, double t_up, double t_low, std::string& why) const;
   TraceView trace_;
   BandOptions options_;
-  std::vector<double> prefix_min_;  // min of speed[0..i]: non-increasing
-  std::vector<double> suffix_max_;  // max of speed[i..n-1]: non-increasing
+  // The running extremes by blocks of kBlock samples (one pass builds them; a crossing is found by a binary
+  // search over the blocks and a scan inside one): block_prefix_min_[b] is the min of speed[0 .. end of block
+  // b] (non-increasing), block_suffix_max_[b] the max of speed[start of block b .. n−1] (non-increasing).
+  static constexpr std::size_t kBlock = 16;
+  std::vector<double> block_prefix_min_;
+  std::vector<double> block_suffix_max_;
   std::string trace_problem_;
 };
 

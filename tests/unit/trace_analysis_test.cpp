@@ -5,6 +5,8 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <optional>
+#include <random>
 
 #include "core/evaluation.hpp"
 #include "core/predict.hpp"
@@ -142,4 +144,51 @@ TEST(TraceAnalysis, ReportsMissingAndUnusableBands) {
     if (stall.speed_kmh[i] < 66.0 && stall.speed_kmh[i] > 54.0) stall.speed_kmh[i] = 66.0;
   const auto st = core::analyse_bands({stall.time_s, stall.speed_kmh}, kSpeeds, 5.0, kMass);
   EXPECT_FALSE(st[4].ok());
+}
+
+TEST(TraceAnalysis, RoughCrossingIndicesAreTheFirstSampleBelowAndTheLastAtOrAbove) {
+  // The crude crossing's definition (trace_analysis.hpp), checked against a plain scan of every sample: the
+  // first sample below the level and the last at or above it. Random noisy falling traces of every length from
+  // 1 to 70 samples (the analyser works in blocks of 16; lengths cross every block boundary) and levels that
+  // sit exactly on sample values, between them, above the start and below the end.
+  std::mt19937_64 rng(17);
+  std::normal_distribution<double> noise(0.0, 0.6);
+  int compared = 0, none = 0;
+  for (std::size_t n = 1; n <= 70; ++n)
+    for (int rep = 0; rep < 20; ++rep) {
+      std::vector<double> t(n), v(n);
+      for (std::size_t i = 0; i < n; ++i) {
+        t[i] = 0.1 * static_cast<double>(i);
+        v[i] = std::round((50.0 - 0.5 * static_cast<double>(i) + noise(rng)) * 4.0) / 4.0;  // ties likely
+      }
+      const core::TraceAnalyser a({t, v});
+      std::vector<double> levels = {v.front() + 1.0, v.back() - 1.0, v.front(), v.back()};
+      for (std::size_t i = 0; i < n; i += 3) levels.push_back(v[i]), levels.push_back(v[i] + 0.125);
+      for (double level : levels) {
+        std::optional<std::size_t> below, above;
+        for (std::size_t i = 0; i < n; ++i) {
+          if (!below && v[i] < level) below = i;
+          if (v[i] >= level) above = i;
+        }
+        const auto r = a.rough_indices(level);
+        if (!below || *below == 0) {
+          EXPECT_FALSE(r.has_value()) << "n " << n << " level " << level;
+          ++none;
+          continue;
+        }
+        ASSERT_TRUE(r.has_value()) << "n " << n << " level " << level;
+        ASSERT_TRUE(above.has_value());
+        EXPECT_EQ(r->first_below, *below) << "n " << n << " level " << level;
+        EXPECT_EQ(r->last_at_or_above, *above) << "n " << n << " level " << level;
+        ++compared;
+      }
+    }
+  EXPECT_GT(compared, 10000);
+  EXPECT_GT(none, 1000);
+  // A bad trace has no crossings at all.
+  const std::vector<double> bt = {0.0, 0.1, 0.1}, bv = {50.0, 49.0, 48.0};
+  EXPECT_FALSE(core::TraceAnalyser({bt, bv}).rough_indices(48.5).has_value());
+  const std::vector<double> nt = {0.0, 0.1, 0.2}, nv = {50.0, std::nan(""), 48.0};
+  EXPECT_FALSE(core::TraceAnalyser({nt, nv}).rough_indices(48.5).has_value());
+  EXPECT_EQ(core::TraceAnalyser({nt, nv}).crossing(48.5).status, core::BandStatus::bad_trace);
 }
