@@ -1,5 +1,6 @@
 #include "core/setting.hpp"
 
+#include <algorithm>
 #include <cmath>
 
 #include "core/problem.hpp"
@@ -50,6 +51,9 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
   Anticipation a;
   a.from_s = from_s;
   a.to_s = to_s;
+  a.epoch_s = outlook.epoch_s;
+  a.loss = loss;
+  a.curve = outlook.curve;
   const std::optional<double> change = outlook.change_n ? outlook.change_n(from_s, to_s) : std::nullopt;
   if (!change || !std::isfinite(*change)) {
     a.why = "no warming anticipated: the warm-up's trend does not predict it";
@@ -60,6 +64,15 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
     a.why = "no warming anticipated: the loss on the dyno at " + num(outlook.speed_kmh) +
             " km/h is below " + num(kMinLossForShareN) + " N";
     return a;
+  }
+  for (double v : outlook.speeds_kmh) {
+    const double l = loss.force_n(v);
+    if (!(l >= kMinLossForShareN) || !(l <= kMaxLossSpread * at_warm)) {
+      a.why = "no warming anticipated: the loss on the dyno is " + num(l, 1) + " N at " + num(v) +
+              " km/h, outside " + num(kMinLossForShareN) + " N to " + num(kMaxLossSpread) +
+              " times its " + num(at_warm, 1) + " N at " + num(outlook.speed_kmh) + " km/h";
+      return a;
+    }
   }
   const double ratio = *change / at_warm;
   if (!(std::abs(ratio) <= kMaxAnticipatedShare)) {
@@ -135,7 +148,10 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
     return d;
   }
   fixed_runs_.push_back({set, simulated});
-  if (outlook) fixed_run_times_s_.push_back(outlook->now_s);
+  if (outlook) {
+    fixed_run_times_s_.push_back(outlook->now_s);
+    fixed_run_epochs_s_.push_back(outlook->epoch_s);
+  }
   if (runs_ < profile_.fixed_runs) {
     d.next_set = set;
     d.reason = "fixed-run: run " + std::to_string(runs_) + " of " + std::to_string(profile_.fixed_runs);
@@ -150,9 +166,18 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
   }
   verifying_ = true;
   d.reason = "fixed-run: final setting computed, verifying it";
-  // Every averaged run timed by an outlook (a resumed session replays its runs without one): the loss they
-  // averaged is of their mean time; the verification run meets the vehicle one coast-down after this one.
-  if (outlook && fixed_run_times_s_.size() == fixed_runs_.size()) {
+  // Every averaged run timed by an outlook of the same warm-up (a resumed session replays its runs without
+  // one; a pause re-warms and restarts the curve's clock): the loss they averaged is of their mean time; the
+  // verification run meets the vehicle one coast-down after this one.
+  if (!outlook) return d;
+  const bool timed = fixed_run_times_s_.size() == fixed_runs_.size();
+  const bool one_warm_up = std::all_of(fixed_run_epochs_s_.begin(), fixed_run_epochs_s_.end(),
+                                       [&](double e) { return e == outlook->epoch_s; });
+  if (!timed || !one_warm_up) {
+    d.anticipation.why = timed ? "no warming anticipated: the averaged runs span a re-warm (their times are of "
+                                 "two warm-ups)"
+                               : "no warming anticipated: not every averaged run was timed (a resumed session)";
+  } else {
     double mean_t = 0.0;
     RoadLoad loss;
     for (std::size_t i = 0; i < fixed_runs_.size(); ++i) {
@@ -163,10 +188,8 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
     loss = loss.scaled(1.0 / static_cast<double>(fixed_runs_.size()));
     d.anticipation = anticipate_warming(loss, *outlook, mean_t, outlook->next_s);
     if (d.anticipation.used) d.next_set = target_ - loss.scaled(1.0 + d.anticipation.ratio);
-    d.reason += "; " + d.anticipation.why;
-  } else if (outlook) {
-    d.reason += "; no warming anticipated: not every averaged run was timed";
   }
+  d.reason += "; " + d.anticipation.why;
   return d;
 }
 

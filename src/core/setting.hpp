@@ -12,6 +12,7 @@
 
 #include "core/profile.hpp"
 #include "core/road_load.hpp"
+#include "core/warm_up_drift.hpp"
 
 namespace loadtrim::core {
 
@@ -67,7 +68,10 @@ RoadLoad fixed_run_final_setting(const RoadLoad& target,
 struct WarmingOutlook {
   // The loss change at speed_kmh from from_s to to_s (s since motoring began); nullopt: not predicted.
   std::function<std::optional<double>(double from_s, double to_s)> change_n;
+  WarmUpCurve curve;     // the curve change_n comes from (recorded with the anticipation)
+  double epoch_s = 0.0;  // when motoring began, on the controller's clock: the times' origin
   double speed_kmh = 80.0;
+  std::vector<double> speeds_kmh;  // the reference speeds: the loss is checked at each (below)
   double now_s = 0.0;   // this coast-down's time (the middle of its coast)
   double next_s = 0.0;  // the next coast-down's expected time (its middle)
 };
@@ -77,17 +81,23 @@ struct Anticipation {
   double change_n = 0.0;  // predicted at the warm-up speed (0 when not predicted)
   double ratio = 0.0;     // change_n / loss(v_warm), the share the whole loss curve is scaled by
   double from_s = 0.0, to_s = 0.0;  // the span predicted over, s since motoring began
-  std::string why;        // one line for the log: what was anticipated, or why nothing was
+  double epoch_s = 0.0;             // when motoring began, on the controller's clock
+  RoadLoad loss;                    // the loss before it was scaled (the setting is target − loss·(1 + ratio))
+  WarmUpCurve curve;                // the warm-up curve the change is from
+  std::string why;                  // one line for the log: what was anticipated, or why nothing was
 };
 
-// Bounds on the anticipation (lab policy, no source): the loss at the warm-up speed at least kMinLossForShareN
-// (a share of a near-zero loss is no prediction), the share at most kMaxAnticipatedShare in size (a quarter of
-// the loss between two coast-downs is far beyond any warming the tool has seen; a curve that says so is not
-// believed).
+// Bounds on the anticipation (lab policy, no source): the loss at least kMinLossForShareN at the warm-up speed
+// and at every reference speed (a share of a near-zero loss is no prediction), and at no reference speed more
+// than kMaxLossSpread times the loss at the warm-up speed (one share scales the whole curve: a curve that
+// wild is a fit gone wrong, and the share would move the setting there by far more than the change predicted);
+// the share at most kMaxAnticipatedShare in size (a quarter of the loss between two coast-downs is far beyond
+// any warming the tool has seen; a curve that says so is not believed).
 inline constexpr double kMinLossForShareN = 20.0;
+inline constexpr double kMaxLossSpread = 3.0;
 inline constexpr double kMaxAnticipatedShare = 0.25;
 
-// The share for `loss` at `speed_kmh` over [from_s, to_s]; not used (and why) outside the bounds.
+// The share for `loss` over [from_s, to_s]; not used (and why) outside the bounds.
 Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outlook, double from_s, double to_s);
 
 // What the method says after a coast-down.
@@ -124,7 +134,8 @@ class SettingMethodState {
   int passes_ = 0;
   bool verifying_ = false;
   std::vector<RunCoefficients> fixed_runs_;
-  std::vector<double> fixed_run_times_s_;  // the outlook's now_s of each averaged run (when given)
+  std::vector<double> fixed_run_times_s_;   // the outlook's now_s of each averaged run (when given)
+  std::vector<double> fixed_run_epochs_s_;  // and its epoch_s: runs of an earlier warm-up are not comparable
 };
 
 }  // namespace loadtrim::core

@@ -12,6 +12,7 @@
 #include "core/profile.hpp"
 #include "core/regression.hpp"
 #include "core/road_load.hpp"
+#include "core/setting.hpp"
 
 namespace loadtrim::core {
 
@@ -184,6 +185,9 @@ struct FirstSettingChoice {
   std::optional<RoadLoad> map_fit;
   std::optional<double> map_residual_sd_n;
   std::optional<CoastCorrection> coast_correction;  // when coast points were given with a loss map
+  // The warming the loss map's setting anticipates (docs/standards.md §3.16): set by the session, which
+  // knows the clock; loss above is the scaled one and anticipation->loss the map's before scaling.
+  std::optional<Anticipation> anticipation;
 };
 // The rules:
 // - A target file's initial set is used as given ("target-file").

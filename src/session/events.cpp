@@ -98,6 +98,21 @@ nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
   return out;
 }
 
+// The warming anticipated in a setting (docs/standards.md §3.16): enough to recompute it (the setting is
+// target − loss·(1 + ratio)) and to check the change against the curve (A·(e^(−to/τ) − e^(−from/τ))).
+nlohmann::json anticipation_json(const core::Anticipation& a) {
+  nlohmann::json curve = nlohmann::json::object();
+  if (a.curve.ok)
+    curve = {{"settled_n", a.curve.settled_n},     {"amplitude_n", a.curve.amplitude_n},
+             {"tau_s", a.curve.tau_s},             {"rms_residual_n", a.curve.rms_residual_n},
+             {"windows", a.curve.points},          {"tau_at_bound", a.curve.tau_at_bound}};
+  else
+    curve = {{"windows", a.curve.points}, {"why", a.curve.why}};
+  return {{"used", a.used},       {"change_n", a.change_n},   {"ratio", a.ratio},
+          {"from_s", a.from_s},   {"to_s", a.to_s},           {"epoch_s", a.epoch_s},
+          {"loss", to_json(a.loss)}, {"curve", curve},        {"why", a.why}};
+}
+
 nlohmann::json dropped_json(const std::vector<core::DroppedSpeed>& dropped) {
   nlohmann::json a = nlohmann::json::array();
   for (const auto& d : dropped) a.push_back({{"speed_kmh", d.speed_kmh}, {"why", d.why}});
@@ -234,6 +249,7 @@ struct Mapper {
                                     {"residual_sd_n", k.residual_sd_n},
                                     {"why", k.why}};
     }
+    if (e.anticipation) inputs["anticipation"] = anticipation_json(*e.anticipation);
     if (e.history) {
       const core::HistoryBasis& b = *e.history;
       nlohmann::json pairs = nlohmann::json::array();
@@ -727,13 +743,7 @@ nlohmann::json to_json(const CoastdownRecord& r) {
   j["decision"] = {{"kind", core::to_string(r.decision.kind)},
                    {"reason", r.decision.reason},
                    {"next_set", to_json(r.decision.next_set)}};
-  if (!r.decision.anticipation.why.empty())
-    j["decision"]["anticipation"] = {{"used", r.decision.anticipation.used},
-                                     {"change_n", r.decision.anticipation.change_n},
-                                     {"ratio", r.decision.anticipation.ratio},
-                                     {"from_s", r.decision.anticipation.from_s},
-                                     {"to_s", r.decision.anticipation.to_s},
-                                     {"why", r.decision.anticipation.why}};
+  if (!r.decision.anticipation.why.empty()) j["decision"]["anticipation"] = anticipation_json(r.decision.anticipation);
   return j;
 }
 

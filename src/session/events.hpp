@@ -233,6 +233,8 @@ struct FirstSetting {   // "first_setting"
   nlohmann::json history_lookup;
   // The steady-versus-coasting difference taken off the loss map (written as inputs.coast_correction).
   std::optional<core::CoastCorrection> coast_correction;
+  // The warming the map's setting anticipates (written as inputs.anticipation; docs/standards.md §3.16).
+  std::optional<core::Anticipation> anticipation;
 };
 struct EnvelopeRefused {  // "envelope_refused"
   int run = 0;

@@ -632,6 +632,20 @@ std::optional<Session::Stop> Session::after_vehicle_run(int run, const motion::V
   return std::nullopt;
 }
 
+core::WarmingOutlook Session::warming_outlook(double now_abs_s, double next_abs_s) const {
+  core::WarmingOutlook o;
+  o.curve = core::fit_warm_up_curve(drift_points_);
+  o.change_n = [curve = o.curve](double from_s, double to_s) {
+    return core::predicted_change_n(curve, from_s, to_s);
+  };
+  o.epoch_s = drift_t0_;
+  o.speed_kmh = in_.profile.warm_up.speed_kmh;
+  o.speeds_kmh = in_.profile.reference_speeds_kmh;
+  o.now_s = now_abs_s - drift_t0_;
+  o.next_s = next_abs_s - drift_t0_;
+  return o;
+}
+
 std::optional<Session::Stop> Session::do_run(int run) {
   const auto& p = in_.profile;
   run_ = run;
@@ -783,6 +797,9 @@ std::optional<Session::Stop> Session::do_run(int run) {
   // Keep the vehicle turning for the next run: leave road-load simulation for a low speed hold at once.
   if (Result h = c_.hold_speed(std::max(10.0, end)); !h.ok()) return link_or_fault(h, "after coast-down");
   const double release = trace.empty() ? t_now_ : trace.front().time_s;
+  // The last coast-down's end and whether this run follows one of the same warm-up (the cycle the warming
+  // outlook below expects again).
+  const double previous_end = first_after_warm_up_ ? -1.0 : t_last_coast_end_;
   if (first_after_warm_up_) {
     // The 120 s rule applies after every warm-up, a re-warm included (EU SA4 §8.1.2–8.1.3, docs/standards.md
     // §3.6). Comparisons are written so that a NaN gap is late.
@@ -862,13 +879,14 @@ std::optional<Session::Stop> Session::do_run(int run) {
     core::WarmingOutlook outlook;
     const bool anticipate = p.warm_up.anticipate_drift && drift_t0_ >= 0.0;
     if (anticipate) {
-      const core::WarmUpCurve curve = core::fit_warm_up_curve(drift_points_);
-      outlook.change_n = [curve](double from_s, double to_s) {
-        return core::predicted_change_n(curve, from_s, to_s);
-      };
-      outlook.speed_kmh = p.warm_up.speed_kmh;
-      outlook.now_s = rec.release_time_s + 0.5 * rec.duration_s - drift_t0_;
-      outlook.next_s = outlook.now_s + std::max(0.0, rec.run_up_s) + rec.duration_s;
+      // The next coast-down follows this one by the cycle just measured (end to end, when this run followed
+      // one of the same warm-up), else by this run's run-up and coast (the first after a warm-up, whose
+      // run-up started from the warm-up speed: a shorter cycle, so less is anticipated, not more).
+      const double mid = rec.release_time_s + 0.5 * rec.duration_s;
+      const double cycle = previous_end >= drift_t0_ && t_now_ > previous_end
+                               ? t_now_ - previous_end
+                               : std::max(0.0, rec.run_up_s) + rec.duration_s;
+      outlook = warming_outlook(mid, mid + cycle);
     }
     rec.decision = method_->on_coastdown(set_, rec.evaluation.fit.coefficients, rec.evaluation.check.pass,
                                          anticipate ? &outlook : nullptr);
@@ -1133,26 +1151,28 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     // (at the motoring rate from the last hold) and half a coast-down of the target later.
     if (p.warm_up.anticipate_drift && c.used == core::to_string(core::FirstSetting::loss_map) && c.loss &&
         drift_t0_ >= 0.0 && map_to_s_ >= map_from_s_ && map_from_s_ >= drift_t0_) {
-      const core::WarmUpCurve curve = core::fit_warm_up_curve(drift_points_);
-      core::WarmingOutlook o;
-      o.change_n = [&curve](double from_s, double to_s) {
-        return core::predicted_change_n(curve, from_s, to_s);
-      };
-      o.speed_kmh = p.warm_up.speed_kmh;
       const double last_hold_kmh = loss_map_.empty() ? p.warm_up.speed_kmh : loss_map_.back().speed_kmh;
       const double run_up_s =
           std::max(0.0, p.start_speed_kmh() - last_hold_kmh) / 3.6 / core::kHoldRampMps2;
       const double coast_s =
           core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), p.end_speed_kmh())
               .value_or(0.0);
-      o.now_s = 0.5 * (map_from_s_ + map_to_s_) - drift_t0_;
-      o.next_s = t_now_ - drift_t0_ + run_up_s + 0.5 * coast_s;
-      const core::Anticipation a = core::anticipate_warming(*c.loss, o, o.now_s, o.next_s);
+      const core::WarmingOutlook o =
+          warming_outlook(0.5 * (map_from_s_ + map_to_s_), t_now_ + run_up_s + 0.5 * coast_s);
+      core::Anticipation a = core::anticipate_warming(*c.loss, o, o.now_s, o.next_s);
       if (a.used) {
-        c.loss = c.loss->scaled(1.0 + a.ratio);
-        c.set = core::setting_for_loss(in_.vehicle.target, *c.loss);
+        core::FirstSettingChoice anticipated = c;
+        anticipated.loss = c.loss->scaled(1.0 + a.ratio);
+        anticipated.set = core::setting_for_loss(in_.vehicle.target, *anticipated.loss);
+        // An anticipated setting outside the envelope: the map's own, said (the check below judges it).
+        if (const core::SetCheck chk = refused(anticipated); chk.ok) {
+          c = anticipated;
+        } else {
+          a.used = false;
+          a.why = "not used: the anticipated setting leaves the safe envelope (" + chk.why + "); " + a.why;
+        }
       }
-      c.why += (c.why.empty() ? "" : "; ") + std::string("the map's loss ") + a.why;
+      c.anticipation = std::move(a);
     }
     // A strategy's set that leaves the safe envelope (a history row, a fleet or map fit gone wild) is never
     // the first setting: the standard's is used instead and the record says why (the envelope would refuse
@@ -1165,6 +1185,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
         const auto map_fit = c.map_fit;
         const auto map_sd = c.map_residual_sd_n;
         auto correction = c.coast_correction;
+        const auto anticipation = c.anticipation;
         if (correction && correction->ok) {
           correction->ok = false;
           correction->why = "not used: the loss-map first setting left the safe envelope";
@@ -1175,6 +1196,11 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
         c.map_fit = map_fit;
         c.map_residual_sd_n = map_sd;
         c.coast_correction = correction;
+        c.anticipation = anticipation;
+        if (c.anticipation && c.anticipation->used) {
+          c.anticipation->used = false;
+          c.anticipation->why = "not used: the loss-map first setting left the safe envelope; " + c.anticipation->why;
+        }
       }
     }
     set_ = c.set;
@@ -1184,7 +1210,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     if (!emit(ev::FirstSetting{core::to_string(opt_.first_setting), c.used, c.why, set_, c.history_utc,
                                c.map_fit, c.map_residual_sd_n, c.loss, c.history_basis,
                                history_involved ? opt_.history_lookup : nlohmann::json(),
-                               c.coast_correction}))
+                               c.coast_correction, c.anticipation}))
       stop = Stop{Outcome::record_failure, record_error_};
   }
   while (!stop) {

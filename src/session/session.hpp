@@ -168,6 +168,9 @@ class Session {
   core::RoadLoad set_;
   std::unique_ptr<core::SettingMethodState> method_;
   std::vector<core::HoldPoint> loss_map_;
+  // The warming outlook from now_abs_s to next_abs_s (controller clock) on the warm-up's curve so far
+  // (docs/standards.md §3.16).
+  core::WarmingOutlook warming_outlook(double now_abs_s, double next_abs_s) const;
   double map_from_s_ = -1.0, map_to_s_ = -2.0;  // the loss map's span on the controller's clock
   std::vector<core::CoastPoint>
       coast_points_;  // the coasts between the map's holds (loss_map.coast_between_holds)

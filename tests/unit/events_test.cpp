@@ -177,6 +177,26 @@ std::string event_name(const Payload& p) {
 
 const core::RoadLoad kSet{120.5, 0.25, 0.031};
 
+// A warming anticipated in a map's setting (invented figures).
+core::Anticipation anticipation() {
+  core::Anticipation a;
+  a.used = true;
+  a.change_n = -4.2;
+  a.ratio = -0.035;
+  a.from_s = 1150.0;
+  a.to_s = 1290.0;
+  a.epoch_s = 20.0;
+  a.loss = {110.0, 0.2, 0.004};
+  a.curve.ok = true;
+  a.curve.settled_n = 120.0;
+  a.curve.amplitude_n = 40.0;
+  a.curve.tau_s = 2000.0;
+  a.curve.rms_residual_n = 0.3;
+  a.curve.points = 16;
+  a.why = "anticipates a loss change of -4.2 N at 80 km/h by the next coast-down (-3.5 % of the loss)";
+  return a;
+}
+
 // A history from another cell with one pair (invented sessions).
 core::HistoryBasis history_basis() {
   core::HistoryBasis b;
@@ -300,16 +320,16 @@ std::vector<Payload> every_event() {
       ev::WarmUpEnded{},
       ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, core::RoadLoad{30.0, 0.1, 0.004}, 0.8,
                        core::RoadLoad{30.0, 0.1, 0.004}, std::nullopt, nlohmann::json(),
-                       core::CoastCorrection{true, "", 7, 12.5, 0.0004, 1.1}},
+                       core::CoastCorrection{true, "", 7, 12.5, 0.0004, 1.1}, anticipation()},
       ev::FirstSetting{"history", "standard", "no history", kSet, std::nullopt, std::nullopt, std::nullopt,
-                       std::nullopt, std::nullopt, nlohmann::json(), std::nullopt},
+                       std::nullopt, std::nullopt, nlohmann::json(), std::nullopt, std::nullopt},
       ev::FirstSetting{"history", "history", "", kSet, std::string("2026-11-20T08:00:00.000Z"), std::nullopt,
                        std::nullopt, core::RoadLoad{73.0, 0.05, 0.0025}, history_basis(),
                        nlohmann::json{{"looked", "store"},
                                       {"store", "/lab/store.sqlite"},
                                       {"not_used", nlohmann::json::array()},
                                       {"note", ""}},
-                       std::nullopt},
+                       std::nullopt, std::nullopt},
       ev::EnvelopeRefused{2, kSet, "force above the cell's"},
       ev::SetWritten{1, kSet, 1},
       ev::CoastdownStarted{1, kSet, 135.0},
@@ -465,7 +485,7 @@ TEST(Events, TheRecordsResumeNeedsReadBack) {
   const CoastdownRecord run = usable_run();
   const std::vector<nlohmann::json> records = {
       line(ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, std::nullopt, std::nullopt,
-                            std::nullopt, std::nullopt, nlohmann::json(), std::nullopt}),
+                            std::nullopt, std::nullopt, nlohmann::json(), std::nullopt, std::nullopt}),
       line(ev::SetWritten{3, kSet, 2}), line(ev::CoastdownStarted{3, kSet, 135.0}), line(ev::Coastdown{run})};
   const ResumePoint p = resume_point(records);
   EXPECT_EQ(p.malformed, 0);
