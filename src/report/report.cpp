@@ -835,6 +835,17 @@ static std::string write_report_body(const std::string& folder, const std::strin
            ".</p>\n";
     }
   }
+  // The warming the first setting anticipated (docs/standards.md §3.16); each adjustment's is in its reason.
+  if (first.contains("inputs") && first["inputs"].contains("anticipation")) {
+    const json& a = first["inputs"]["anticipation"];
+    h += "<p id=\"first-setting-anticipation\">Warming anticipated in the first setting (lab policy): " +
+         (bv(a, "used").value_or(false)
+              ? "the map's loss scaled by 1 + " + num_or(nv(a, "ratio"), 4, "") + " (a change of " +
+                    num_or(nv(a, "change_n"), 1, "N") + " predicted at the warm-up speed from " +
+                    num_or(nv(a, "from_s"), 0, "s") + " to " + num_or(nv(a, "to_s"), 0, "s") + ")"
+              : "none (" + esc(sv(a, "why")) + ")") +
+         ".</p>\n";
+  }
 
   // Each coast-down: its quality and timing, and both estimators.
   h += "<h2>Coast-downs</h2>\n<table id=\"coastdown-quality\"><tr><th>run</th><th>usable</th><th>duration "

@@ -1052,7 +1052,9 @@ TEST(SessionUnitCoasts, AFolderWithMapCoastsReportsAndVerifies) {
   fs::create_directories(folder);
   {
     session::RecordWriter writer(folder);
-    session::Session s(coast_inputs(), map_options(), c, {&writer});
+    session::Inputs in = coast_inputs();
+    in.profile.warm_up.anticipate_drift = true;  // its first-setting line in the report (docs/standards.md §3.16)
+    session::Session s(in, map_options(), c, {&writer});
     const auto sum = s.run();
     EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
   }
@@ -1062,6 +1064,7 @@ TEST(SessionUnitCoasts, AFolderWithMapCoastsReportsAndVerifies) {
   const std::string page((std::istreambuf_iterator<char>(html)), {});
   EXPECT_NE(page.find("loss-map-coasts"), std::string::npos);
   EXPECT_NE(page.find("loss-map-correction"), std::string::npos);
+  EXPECT_NE(page.find("first-setting-anticipation"), std::string::npos);
   const auto v = record::verify_folder(folder);
   EXPECT_TRUE(v.intact()) << v.message;
   std::printf("verify: %s\n", v.message.c_str());
