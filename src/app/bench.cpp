@@ -599,9 +599,9 @@ int run_bench(BenchOptions o) {
                guard = prof.decision_rule.kind == core::DecisionRule::Kind::guard_band,
                confirm = prof.whole_trace_confirms,
                holds_only = !prof.loss_map.coast_between_holds && iterative.loss_map.coast_between_holds,
-               anticipate_differs =
-                   prof.warm_up.anticipate_drift !=
-                   (prof.method == core::SettingMethod::fixed_run ? fixed : iterative).warm_up.anticipate_drift;
+               anticipate_differs = prof.warm_up.anticipate_drift !=
+                                    (prof.method == core::SettingMethod::fixed_run ? fixed : iterative)
+                                        .warm_up.anticipate_drift;
     const std::string note =
         (stable_end ? ", warm-up ended on stability: at least " + num_min(prof.warm_up.duration_s) +
                           " min, then until the warming trend says less than the drift threshold is to come, "

@@ -58,8 +58,9 @@ struct WarmUp {
   DriftRule drift_rule = DriftRule::warn;
   double drift_threshold_n = 3.0;
   // Anticipate the warming still to come in each adjusted setting and in the fixed-run final setting
-  // (setting.hpp WarmingOutlook, docs/standards.md §3.16, lab policy): the loss taken off the target is scaled
-  // by the change the warm-up's curve predicts by the next coast-down. Off: the standard's adjustment as it is.
+  // (setting.hpp WarmingOutlook, docs/standards.md §3.16, lab policy): the loss taken off the target is
+  // scaled by the change the warm-up's curve predicts by the next coast-down. Off: the standard's adjustment
+  // as it is.
   bool anticipate_drift = false;
 };
 

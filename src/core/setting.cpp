@@ -61,16 +61,16 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
   }
   const double at_warm = loss.force_n(outlook.speed_kmh);
   if (!(at_warm >= kMinLossForShareN)) {
-    a.why = "no warming anticipated: the loss on the dyno at " + num(outlook.speed_kmh) +
-            " km/h is below " + num(kMinLossForShareN) + " N";
+    a.why = "no warming anticipated: the loss on the dyno at " + num(outlook.speed_kmh) + " km/h is below " +
+            num(kMinLossForShareN) + " N";
     return a;
   }
   for (double v : outlook.speeds_kmh) {
     const double l = loss.force_n(v);
     if (!(l >= kMinLossForShareN) || !(l <= kMaxLossSpread * at_warm)) {
       a.why = "no warming anticipated: the loss on the dyno is " + num(l, 1) + " N at " + num(v) +
-              " km/h, outside " + num(kMinLossForShareN) + " N to " + num(kMaxLossSpread) +
-              " times its " + num(at_warm, 1) + " N at " + num(outlook.speed_kmh) + " km/h";
+              " km/h, outside " + num(kMinLossForShareN) + " N to " + num(kMaxLossSpread) + " times its " +
+              num(at_warm, 1) + " N at " + num(outlook.speed_kmh) + " km/h";
       return a;
     }
   }
@@ -83,9 +83,8 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
   a.used = true;
   a.change_n = *change;
   a.ratio = ratio;
-  a.why = "anticipates a loss change of " + num(*change, 1) + " N at " +
-          num(outlook.speed_kmh) + " km/h by the next coast-down (" + num(ratio * 100.0, 1) +
-          " % of the loss)";
+  a.why = "anticipates a loss change of " + num(*change, 1) + " N at " + num(outlook.speed_kmh) +
+          " km/h by the next coast-down (" + num(ratio * 100.0, 1) + " % of the loss)";
   return a;
 }
 
@@ -174,9 +173,10 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
   const bool one_warm_up = std::all_of(fixed_run_epochs_s_.begin(), fixed_run_epochs_s_.end(),
                                        [&](double e) { return e == outlook->epoch_s; });
   if (!timed || !one_warm_up) {
-    d.anticipation.why = timed ? "no warming anticipated: the averaged runs span a re-warm (their times are of "
-                                 "two warm-ups)"
-                               : "no warming anticipated: not every averaged run was timed (a resumed session)";
+    d.anticipation.why = timed
+                             ? "no warming anticipated: the averaged runs span a re-warm (their times are of "
+                               "two warm-ups)"
+                             : "no warming anticipated: not every averaged run was timed (a resumed session)";
   } else {
     double mean_t = 0.0;
     RoadLoad loss;

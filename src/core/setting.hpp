@@ -56,15 +56,15 @@ struct RunCoefficients {
 RoadLoad fixed_run_final_setting(const RoadLoad& target,
                                  std::span<const RunCoefficients> runs_after_stabilisation);
 
-// Warming anticipated in the next setting (warm_up.anticipate_drift, docs/standards.md §3.16, lab policy). The
-// loss the vehicle shows on the dyno, loss = simulated − set (the coefficients As − Ad, Bs − Bd, Cs − Cd), is
-// what the standard's adjustment takes off the target (A*d = At − (As − Ad)). A vehicle still warming will show
-// less of it at the next coast-down: by change_n at the warm-up speed, as the warming curve of the warm-up's
-// hold windows predicts (warm_up_drift.hpp predicted_change_n). The whole loss curve is scaled by the same
-// share, ratio = change_n / loss(v_warm), so the setting becomes At − (As − Ad)·(1 + ratio). The share is a
-// model (the whole loss drifting in proportion, lab policy, no source): the drivetrain's spin loss, the part
-// that warms, grows faster with speed than the tyres' loss, so at the top speeds it under-predicts and at the
-// lowest it over-predicts.
+// Warming anticipated in the next setting (warm_up.anticipate_drift, docs/standards.md §3.16, lab policy).
+// The loss the vehicle shows on the dyno, loss = simulated − set (the coefficients As − Ad, Bs − Bd, Cs −
+// Cd), is what the standard's adjustment takes off the target (A*d = At − (As − Ad)). A vehicle still warming
+// will show less of it at the next coast-down: by change_n at the warm-up speed, as the warming curve of the
+// warm-up's hold windows predicts (warm_up_drift.hpp predicted_change_n). The whole loss curve is scaled by
+// the same share, ratio = change_n / loss(v_warm), so the setting becomes At − (As − Ad)·(1 + ratio). The
+// share is a model (the whole loss drifting in proportion, lab policy, no source): the drivetrain's spin
+// loss, the part that warms, grows faster with speed than the tyres' loss, so at the top speeds it
+// under-predicts and at the lowest it over-predicts.
 struct WarmingOutlook {
   // The loss change at speed_kmh from from_s to to_s (s since motoring began); nullopt: not predicted.
   std::function<std::optional<double>(double from_s, double to_s)> change_n;
@@ -72,40 +72,41 @@ struct WarmingOutlook {
   double epoch_s = 0.0;  // when motoring began, on the controller's clock: the times' origin
   double speed_kmh = 80.0;
   std::vector<double> speeds_kmh;  // the reference speeds: the loss is checked at each (below)
-  double now_s = 0.0;   // this coast-down's time (the middle of its coast)
-  double next_s = 0.0;  // the next coast-down's expected time (its middle)
+  double now_s = 0.0;              // this coast-down's time (the middle of its coast)
+  double next_s = 0.0;             // the next coast-down's expected time (its middle)
 };
 
 struct Anticipation {
   bool used = false;
-  double change_n = 0.0;  // predicted at the warm-up speed (0 when not predicted)
-  double ratio = 0.0;     // change_n / loss(v_warm), the share the whole loss curve is scaled by
+  double change_n = 0.0;            // predicted at the warm-up speed (0 when not predicted)
+  double ratio = 0.0;               // change_n / loss(v_warm), the share the whole loss curve is scaled by
   double from_s = 0.0, to_s = 0.0;  // the span predicted over, s since motoring began
   double epoch_s = 0.0;             // when motoring began, on the controller's clock
-  RoadLoad loss;                    // the loss before it was scaled (the setting is target − loss·(1 + ratio))
-  WarmUpCurve curve;                // the warm-up curve the change is from
-  std::string why;                  // one line for the log: what was anticipated, or why nothing was
+  RoadLoad loss;      // the loss before it was scaled (the setting is target − loss·(1 + ratio))
+  WarmUpCurve curve;  // the warm-up curve the change is from
+  std::string why;    // one line for the log: what was anticipated, or why nothing was
 };
 
-// Bounds on the anticipation (lab policy, no source): the loss at least kMinLossForShareN at the warm-up speed
-// and at every reference speed (a share of a near-zero loss is no prediction), and at no reference speed more
-// than kMaxLossSpread times the loss at the warm-up speed (one share scales the whole curve: a curve that
-// wild is a fit gone wrong, and the share would move the setting there by far more than the change predicted);
-// the share at most kMaxAnticipatedShare in size (a quarter of the loss between two coast-downs is far beyond
-// any warming the tool has seen; a curve that says so is not believed).
+// Bounds on the anticipation (lab policy, no source): the loss at least kMinLossForShareN at the warm-up
+// speed and at every reference speed (a share of a near-zero loss is no prediction), and at no reference
+// speed more than kMaxLossSpread times the loss at the warm-up speed (one share scales the whole curve: a
+// curve that wild is a fit gone wrong, and the share would move the setting there by far more than the change
+// predicted); the share at most kMaxAnticipatedShare in size (a quarter of the loss between two coast-downs
+// is far beyond any warming the tool has seen; a curve that says so is not believed).
 inline constexpr double kMinLossForShareN = 20.0;
 inline constexpr double kMaxLossSpread = 3.0;
 inline constexpr double kMaxAnticipatedShare = 0.25;
 
 // The share for `loss` over [from_s, to_s]; not used (and why) outside the bounds.
-Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outlook, double from_s, double to_s);
+Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outlook, double from_s,
+                                double to_s);
 
 // What the method says after a coast-down.
 struct Decision {
   enum class Kind { run_again, accepted, rejected };
   Kind kind = Kind::run_again;
-  RoadLoad next_set;   // the setting for the next coast-down (run_again), or the final one (accepted)
-  std::string reason;  // one line for the log
+  RoadLoad next_set;          // the setting for the next coast-down (run_again), or the final one (accepted)
+  std::string reason;         // one line for the log
   Anticipation anticipation;  // the warming the next setting anticipates (used only with an outlook)
 };
 const char* to_string(Decision::Kind k);
@@ -115,8 +116,8 @@ const char* to_string(Decision::Kind k);
 class SettingMethodState {
  public:
   SettingMethodState(const Profile& profile, const RoadLoad& target);
-  // `outlook` (optional): anticipate the warming in an adjusted setting (iterative) and in the fixed-run final
-  // setting (from the mean time of the runs it averages to the verification run's).
+  // `outlook` (optional): anticipate the warming in an adjusted setting (iterative) and in the fixed-run
+  // final setting (from the mean time of the runs it averages to the verification run's).
   Decision on_coastdown(const RoadLoad& set, const RoadLoad& simulated, bool within_tolerance,
                         const WarmingOutlook* outlook = nullptr);
   int consecutive_passes() const { return passes_; }

@@ -80,7 +80,8 @@ TraceAnalyser::TraceAnalyser(TraceView trace, BandOptions options) : trace_(trac
     block_suffix_max_.clear();
     return;
   }
-  for (std::size_t b = 1; b < nb; ++b) block_prefix_min_[b] = std::min(block_prefix_min_[b - 1], block_prefix_min_[b]);
+  for (std::size_t b = 1; b < nb; ++b)
+    block_prefix_min_[b] = std::min(block_prefix_min_[b - 1], block_prefix_min_[b]);
   for (std::size_t b = nb - (nb > 0); b-- > 0;)
     block_suffix_max_[b] = std::max(block_suffix_max_[b + 1], block_suffix_max_[b]);
 }

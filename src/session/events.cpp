@@ -103,14 +103,14 @@ nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
 nlohmann::json anticipation_json(const core::Anticipation& a) {
   nlohmann::json curve = nlohmann::json::object();
   if (a.curve.ok)
-    curve = {{"settled_n", a.curve.settled_n},     {"amplitude_n", a.curve.amplitude_n},
-             {"tau_s", a.curve.tau_s},             {"rms_residual_n", a.curve.rms_residual_n},
-             {"windows", a.curve.points},          {"tau_at_bound", a.curve.tau_at_bound}};
+    curve = {{"settled_n", a.curve.settled_n}, {"amplitude_n", a.curve.amplitude_n},
+             {"tau_s", a.curve.tau_s},         {"rms_residual_n", a.curve.rms_residual_n},
+             {"windows", a.curve.points},      {"tau_at_bound", a.curve.tau_at_bound}};
   else
     curve = {{"windows", a.curve.points}, {"why", a.curve.why}};
-  return {{"used", a.used},       {"change_n", a.change_n},   {"ratio", a.ratio},
-          {"from_s", a.from_s},   {"to_s", a.to_s},           {"epoch_s", a.epoch_s},
-          {"loss", to_json(a.loss)}, {"curve", curve},        {"why", a.why}};
+  return {{"used", a.used},          {"change_n", a.change_n}, {"ratio", a.ratio},
+          {"from_s", a.from_s},      {"to_s", a.to_s},         {"epoch_s", a.epoch_s},
+          {"loss", to_json(a.loss)}, {"curve", curve},         {"why", a.why}};
 }
 
 nlohmann::json dropped_json(const std::vector<core::DroppedSpeed>& dropped) {
@@ -743,7 +743,8 @@ nlohmann::json to_json(const CoastdownRecord& r) {
   j["decision"] = {{"kind", core::to_string(r.decision.kind)},
                    {"reason", r.decision.reason},
                    {"next_set", to_json(r.decision.next_set)}};
-  if (!r.decision.anticipation.why.empty()) j["decision"]["anticipation"] = anticipation_json(r.decision.anticipation);
+  if (!r.decision.anticipation.why.empty())
+    j["decision"]["anticipation"] = anticipation_json(r.decision.anticipation);
   return j;
 }
 

@@ -1152,8 +1152,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     if (p.warm_up.anticipate_drift && c.used == core::to_string(core::FirstSetting::loss_map) && c.loss &&
         drift_t0_ >= 0.0 && map_to_s_ >= map_from_s_ && map_from_s_ >= drift_t0_) {
       const double last_hold_kmh = loss_map_.empty() ? p.warm_up.speed_kmh : loss_map_.back().speed_kmh;
-      const double run_up_s =
-          std::max(0.0, p.start_speed_kmh() - last_hold_kmh) / 3.6 / core::kHoldRampMps2;
+      const double run_up_s = std::max(0.0, p.start_speed_kmh() - last_hold_kmh) / 3.6 / core::kHoldRampMps2;
       const double coast_s =
           core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), p.end_speed_kmh())
               .value_or(0.0);
@@ -1199,7 +1198,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
         c.anticipation = anticipation;
         if (c.anticipation && c.anticipation->used) {
           c.anticipation->used = false;
-          c.anticipation->why = "not used: the loss-map first setting left the safe envelope; " + c.anticipation->why;
+          c.anticipation->why =
+              "not used: the loss-map first setting left the safe envelope; " + c.anticipation->why;
         }
       }
     }
@@ -1209,8 +1209,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
                                   c.used == core::to_string(core::FirstSetting::history);
     if (!emit(ev::FirstSetting{core::to_string(opt_.first_setting), c.used, c.why, set_, c.history_utc,
                                c.map_fit, c.map_residual_sd_n, c.loss, c.history_basis,
-                               history_involved ? opt_.history_lookup : nlohmann::json(),
-                               c.coast_correction, c.anticipation}))
+                               history_involved ? opt_.history_lookup : nlohmann::json(), c.coast_correction,
+                               c.anticipation}))
       stop = Stop{Outcome::record_failure, record_error_};
   }
   while (!stop) {

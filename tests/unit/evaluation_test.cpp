@@ -250,8 +250,8 @@ TEST(WarmUpDrift, TheCurveForecastsTheChangeBetweenTwoCoastDowns) {
   // docs/standards.md §3.16: the change the curve predicts from t1 to t2 is A·(e^(−t2/τ) − e^(−t1/τ))
   // (first-order response, textbook). Windows every 60 s over the first 1000 s of F∞ = 120 N, A = 40 N, τ =
   // 2000 s (a slow warming: the decay is not over when the windows end) with seeded N(0, 0.1 N) noise; from
-  // 1300 to 1520 s the truth falls by 40·(e^(−0.76) − e^(−0.65)) = 40·(0.46767 − 0.52205) = −2.175 N (by hand). The fit extrapolates
-  // it within 15 % (common practice, no source).
+  // 1300 to 1520 s the truth falls by 40·(e^(−0.76) − e^(−0.65)) = 40·(0.46767 − 0.52205) = −2.175 N (by
+  // hand). The fit extrapolates it within 15 % (common practice, no source).
   std::vector<core::DriftPoint> pts;
   std::mt19937_64 rng(5);
   std::normal_distribution<double> noise(0.0, 0.1);

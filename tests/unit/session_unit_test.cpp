@@ -395,8 +395,8 @@ TEST(SessionUnit, TheAdjustmentAnticipatesTheWarmingOfASlowlyWarmingVehicle) {
     }
   }
   // The fall over the anticipation's span, by the truth's closed form.
-  const double truth_change = 1.5 * (30.0 + 0.0028 * 80.0 * 80.0) *
-                              (std::exp(-used.to_s / 1000.0) - std::exp(-used.from_s / 1000.0));
+  const double truth_change =
+      1.5 * (30.0 + 0.0028 * 80.0 * 80.0) * (std::exp(-used.to_s / 1000.0) - std::exp(-used.from_s / 1000.0));
   EXPECT_LT(truth_change, -3.0);
   EXPECT_NEAR(used.change_n / truth_change, 1.0, 0.25) << used.change_n << " vs " << truth_change;
   EXPECT_LT(mean_dev[0], -3.0) << "the standard's adjustment misses by the fall";
@@ -420,7 +420,8 @@ TEST(SessionUnit, TheLossMapsFirstSettingAnticipatesTheWarmingToTheFirstCoastDow
   std::vector<double> map_t;
   Hook hook([&](const session::Event& e) {
     if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) first = *f;
-    if (std::holds_alternative<session::ev::LossMapPoint>(e.payload)) map_t.push_back(e.stamp && e.stamp->t_s ? *e.stamp->t_s : -1.0);
+    if (std::holds_alternative<session::ev::LossMapPoint>(e.payload))
+      map_t.push_back(e.stamp && e.stamp->t_s ? *e.stamp->t_s : -1.0);
   });
   session::Inputs in = inputs();
   in.profile.warm_up.duration_s = 600.0;
@@ -1053,7 +1054,8 @@ TEST(SessionUnitCoasts, AFolderWithMapCoastsReportsAndVerifies) {
   {
     session::RecordWriter writer(folder);
     session::Inputs in = coast_inputs();
-    in.profile.warm_up.anticipate_drift = true;  // its first-setting line in the report (docs/standards.md §3.16)
+    in.profile.warm_up.anticipate_drift =
+        true;  // its first-setting line in the report (docs/standards.md §3.16)
     session::Session s(in, map_options(), c, {&writer});
     const auto sum = s.run();
     EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;

@@ -152,11 +152,11 @@ TEST(Setting, FixedRunWithVerification) {
 }
 
 TEST(Setting, TheAdjustmentAnticipatesTheWarmingTheTrendPredicts) {
-  // docs/standards.md §3.16 (lab policy): the adjusted setting At − (As − Ad) with the loss (As − Ad) scaled by
-  // 1 + ratio, ratio = change / loss(v_warm). By hand: target (100, 0.5, 0.03), set (50, 0.2, 0.028), simulated
-  // (120, 0.5, 0.03) → loss (70, 0.3, 0.002); at 80 km/h 70 + 24 + 12.8 = 106.8 N; a predicted change of −10.68
-  // N is a ratio of −0.1, so the next set is (100 − 63, 0.5 − 0.27, 0.03 − 0.0018) = (37, 0.23, 0.0282); without
-  // the outlook it is the standard's (30, 0.2, 0.028) (GTR 15 §8.1.4).
+  // docs/standards.md §3.16 (lab policy): the adjusted setting At − (As − Ad) with the loss (As − Ad) scaled
+  // by 1 + ratio, ratio = change / loss(v_warm). By hand: target (100, 0.5, 0.03), set (50, 0.2, 0.028),
+  // simulated (120, 0.5, 0.03) → loss (70, 0.3, 0.002); at 80 km/h 70 + 24 + 12.8 = 106.8 N; a predicted
+  // change of −10.68 N is a ratio of −0.1, so the next set is (100 − 63, 0.5 − 0.27, 0.03 − 0.0018) = (37,
+  // 0.23, 0.0282); without the outlook it is the standard's (30, 0.2, 0.028) (GTR 15 §8.1.4).
   const Profile p = wltp(SettingMethod::iterative);
   const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028}, simulated{120, 0.5, 0.03};
   WarmingOutlook o;
@@ -189,8 +189,8 @@ TEST(Setting, TheAdjustmentAnticipatesTheWarmingTheTrendPredicts) {
 }
 
 TEST(Setting, AnAnticipationOutsideItsBoundsIsNotUsedAndSaysWhy) {
-  // The bounds (lab policy, no source): the loss at the warm-up speed at least kMinLossForShareN, the share at
-  // most kMaxAnticipatedShare; no prediction, or a NaN one: nothing anticipated. Each falls back to the
+  // The bounds (lab policy, no source): the loss at the warm-up speed at least kMinLossForShareN, the share
+  // at most kMaxAnticipatedShare; no prediction, or a NaN one: nothing anticipated. Each falls back to the
   // standard's adjustment, (30, 0.2, 0.028) here (GTR 15 §8.1.4, as above).
   const Profile p = wltp(SettingMethod::iterative);
   const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028};
@@ -206,8 +206,8 @@ TEST(Setting, AnAnticipationOutsideItsBoundsIsNotUsedAndSaysWhy) {
       {{120, 0.5, 0.03}, +30.0, "beyond 25 %"},
       // loss (5, 0.0, 0.0): 5 N at 80 km/h, below 20 N
       {{55, 0.2, 0.028}, -1.0, "below 20 N"},
-      // loss (−400, 0, 0.066) (a wild fit): 22.4 N at 80 km/h but −373.6 N at 20 km/h (outside 20 N to 3 times
-      // 22.4 N): a share of it would move the setting by far more than the change at 80 km/h (by hand)
+      // loss (−400, 0, 0.066) (a wild fit): 22.4 N at 80 km/h but −373.6 N at 20 km/h (outside 20 N to 3
+      // times 22.4 N): a share of it would move the setting by far more than the change at 80 km/h (by hand)
       {{-350, 0.2, 0.094}, -5.0, "at 20 km/h, outside 20 N to 3 times"},
       // loss (0, 0, 0.03): 192 N at 80 km/h but 12 N at 20 km/h, below 20 N there (by hand)
       {{50, 0.2, 0.058}, -5.0, "at 20 km/h, outside"},
@@ -230,8 +230,8 @@ TEST(Setting, TheFixedRunFinalSettingAnticipatesFromTheRunsMeanTimeToTheVerifica
   // docs/standards.md §3.16: the fixed-run final setting A = At − mean(As − Ad) (docs/standards.md §3, as in
   // FixedRunFinalSetting above: mean loss (60, 0.30, 0.0010) → (40, 0.2, 0.029)) with the mean loss scaled by
   // 1 + ratio, the change predicted from the mean time of runs 2..4 (1200, 1400, 1600 s → 1400 s) to the
-  // verification run (next_s of run 4: 1800 s). The mean loss at 80 km/h is 60 + 24 + 6.4 = 90.4 N; a change of
-  // −9.04 N is a ratio of −0.1 → (100 − 54, 0.5 − 0.27, 0.03 − 0.0009) = (46, 0.23, 0.0291) (by hand).
+  // verification run (next_s of run 4: 1800 s). The mean loss at 80 km/h is 60 + 24 + 6.4 = 90.4 N; a change
+  // of −9.04 N is a ratio of −0.1 → (100 − 54, 0.5 − 0.27, 0.03 − 0.0009) = (46, 0.23, 0.0291) (by hand).
   Profile p = wltp(SettingMethod::fixed_run);
   p.fixed_run_verification_runs = 1;
   const RoadLoad target{100, 0.5, 0.03};

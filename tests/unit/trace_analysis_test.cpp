@@ -148,9 +148,9 @@ TEST(TraceAnalysis, ReportsMissingAndUnusableBands) {
 
 TEST(TraceAnalysis, RoughCrossingIndicesAreTheFirstSampleBelowAndTheLastAtOrAbove) {
   // The crude crossing's definition (trace_analysis.hpp), checked against a plain scan of every sample: the
-  // first sample below the level and the last at or above it. Random noisy falling traces of every length from
-  // 1 to 70 samples (the analyser works in blocks of 16; lengths cross every block boundary) and levels that
-  // sit exactly on sample values, between them, above the start and below the end.
+  // first sample below the level and the last at or above it. Random noisy falling traces of every length
+  // from 1 to 70 samples (the analyser works in blocks of 16; lengths cross every block boundary) and levels
+  // that sit exactly on sample values, between them, above the start and below the end.
   std::mt19937_64 rng(17);
   std::normal_distribution<double> noise(0.0, 0.6);
   int compared = 0, none = 0;
