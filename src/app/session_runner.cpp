@@ -831,6 +831,10 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
               << " record(s) lack what this version reads; the first: " << rp.malformed_note << "\n";
     return kRecordFailure;
   }
+  if (const auto why = session::missing_adjustment(rp, l.inputs.profile)) {
+    std::cerr << "loadtrim: refusing to resume " << folder << ": " << *why << "\n";
+    return kRecordFailure;
+  }
   if (rp.verdict) return finalise_recorded(folder, l.inputs, rp, req, key ? &*key : nullptr);
   // The dyno-check gate applies to a resumed session as to a new one.
   bool refuse = false;

@@ -20,15 +20,20 @@ core::Profile read_profile(TomlReader& r) {
                  : core::SettingMethod::iterative;
   // Speeds in km/h, or in mph for US-style profiles (converted exactly, NIST SP 811).
   const bool mph = r.has("bands.reference_speeds_mph") || r.has("bands.half_width_mph");
-  if (mph && (r.has("bands.reference_speeds_kmh") || r.has("bands.half_width_kmh")))
+  if (mph ? r.has("bands.reference_speeds_kmh") || r.has("bands.half_width_kmh") ||
+                r.has("bands.crossing_fit_half_width_kmh")
+          : r.has("bands.crossing_fit_half_width_mph"))
     r.error("bands", "give speeds in km/h or in mph, not both");
   if (mph) {
     for (double v : r.numbers("bands.reference_speeds_mph", 1.0, 160.0, "mph"))
       p.reference_speeds_kmh.push_back(core::units::mph_to_kmh(v));
     p.band_half_width_kmh = core::units::mph_to_kmh(r.number("bands.half_width_mph", 0.5, 7.0, "mph"));
+    p.crossing_fit_half_width_kmh = core::units::mph_to_kmh(
+        r.number_or("bands.crossing_fit_half_width_mph", core::units::kmh_to_mph(2.5), 0.6, 6.2, "mph"));
   } else {
     p.reference_speeds_kmh = r.numbers("bands.reference_speeds_kmh", 1.0, 250.0, "km/h");
     p.band_half_width_kmh = r.number("bands.half_width_kmh", 1.0, 10.0, "km/h");
+    p.crossing_fit_half_width_kmh = r.number_or("bands.crossing_fit_half_width_kmh", 2.5, 1.0, 10.0, "km/h");
   }
   p.tolerance_n = r.number("acceptance.tolerance_n", 0.1, 1000.0, "N");
   p.consecutive_passes = r.integer_or("acceptance.consecutive_passes", 2, 1, 10);
@@ -38,6 +43,10 @@ core::Profile read_profile(TomlReader& r) {
   p.decision_rule.coverage_k = r.number_or("acceptance.guard_band_k", 2.0, 1.0, 3.0, "");
   p.whole_trace_confirms = r.boolean_or("acceptance.whole_trace_confirms", false);
   p.estimator_disagreement_n = r.number_or("acceptance.estimator_disagreement_n", 5.0, 0.0, 1000.0, "N");
+  p.adjust_from = r.choice("method.adjust_from", {"band-regression", "whole-trace"},
+                           std::string("band-regression")) == "whole-trace"
+                      ? core::Profile::AdjustFrom::whole_trace
+                      : core::Profile::AdjustFrom::band_regression;
   p.fixed_runs = r.integer_or("method.fixed_runs", 4, 2, 10);
   p.fixed_run_verification_runs = r.integer_or("method.fixed_run_verification_runs", 1, 0, 5);
   p.run_up_margin_kmh = r.number("run.run_up_margin_kmh", 0.0, 30.0, "km/h");
@@ -59,6 +68,10 @@ core::Profile read_profile(TomlReader& r) {
                              : core::WarmUp::DriftRule::warn;
   p.warm_up.drift_threshold_n = r.number_or("warm_up.drift_threshold_n", 3.0, 0.1, 100.0, "N");
   p.warm_up.anticipate_drift = r.boolean_or("warm_up.anticipate_drift", false);
+  p.warm_up.anticipate_for =
+      r.choice("warm_up.anticipate_for", {"next", "passes"}, std::string("next")) == "passes"
+          ? core::WarmUp::AnticipateFor::passes
+          : core::WarmUp::AnticipateFor::next;
   p.late_start = r.choice("timing.late_start", {"repeat", "finding"}, std::string("repeat")) == "finding"
                      ? core::Profile::LateStart::finding
                      : core::Profile::LateStart::repeat;

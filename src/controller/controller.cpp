@@ -451,7 +451,10 @@ void Controller::heartbeat_if_due_and_free() {
   // controller's watchdog stop the rollers.
   if (!lease_valid()) return;
   const std::unique_lock<std::recursive_mutex> lock(mu_, std::try_to_lock);
-  if (lock.owns_lock()) heartbeat_if_due();  // a failure shows on the driving thread's next call
+  // A failed beat is not kept: the driving thread meets the link's state in its own next call, and this
+  // thread tries the next beat when it is due (if none gets through, the controller's watchdog stops the
+  // rollers). A beat tried here holds the link for its retries: a stop command waits behind them.
+  if (lock.owns_lock()) heartbeat_if_due();
 }
 
 void Controller::warn(std::string code, std::string text) {

@@ -1,14 +1,21 @@
 #include "core/evaluation.hpp"
 
+#include <algorithm>
 #include <cmath>
+#include <vector>
+
+#include "core/predict.hpp"
+#include "core/regression.hpp"
 
 namespace loadtrim::core {
 
 CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, const RoadLoad& target,
                                        double force_mass_kg, const EvaluationOptions& options) {
   CoastdownEvaluation e;
-  e.bands = analyse_bands(trace, profile.reference_speeds_kmh, profile.band_half_width_kmh, force_mass_kg,
-                          options.bands);
+  BandOptions bands = options.bands;
+  bands.fit_half_width_kmh = profile.crossing_fit_half_width_kmh;  // the profile's window (lab policy)
+  e.bands =
+      analyse_bands(trace, profile.reference_speeds_kmh, profile.band_half_width_kmh, force_mass_kg, bands);
   std::vector<double> speeds, forces;
   for (const auto& b : e.bands) {
     if (b.ok()) {
@@ -33,7 +40,8 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
   e.check =
       check_tolerance(target, e.fit.coefficients, profile.reference_speeds_kmh, profile.tolerance_n,
                       profile.decision_rule, [&fit](double v) { return fit.force_standard_error_n(v); });
-  if (options.whole_trace || profile.whole_trace_confirms) {
+  const bool adjust_whole = profile.adjust_from == Profile::AdjustFrom::whole_trace;
+  if (options.whole_trace || profile.whole_trace_confirms || adjust_whole) {
     e.whole_trace =
         fit_whole_trace(trace, force_mass_kg, profile.bottom_speed_kmh() - profile.band_half_width_kmh,
                         profile.top_speed_kmh() + profile.band_half_width_kmh, e.fit.coefficients,
@@ -44,6 +52,62 @@ CoastdownEvaluation evaluate_coastdown(TraceView trace, const Profile& profile, 
             std::max(e.estimator_disagreement_n,
                      std::abs(e.fit.coefficients.force_n(v) - e.whole_trace.coefficients.force_n(v)));
       e.estimators_disagree = e.estimator_disagreement_n > profile.estimator_disagreement_n;
+    }
+  }
+  e.adjust_basis = e.fit.coefficients;
+  if (adjust_whole) {
+    // Like with like: the whole-trace curve is F(v) itself, the band regression carries the band's own
+    // average (the band-integral bias, EstimatorDisagreementIsTheBandIntegralBias). The whole-trace curve's
+    // band forces (its closed-form band times through the standard's formula), regressed as the standard
+    // regresses the measured ones, are what a noise-free coast-down of it would have measured: that curve is
+    // compared and adjusted from.
+    const WholeTraceFit& w = e.whole_trace;
+    std::string why_not;
+    RoadLoad equivalent;
+    if (!w.ok || !w.converged) {
+      why_not =
+          "the whole-trace fit " + std::string(w.ok ? "did not converge (" : "failed (") + w.message + ")";
+    } else {
+      std::vector<double> band_forces;
+      const auto times =
+          predicted_band_times_s(w.coefficients, force_mass_kg, speeds, profile.band_half_width_kmh);
+      for (std::size_t i = 0; i < speeds.size(); ++i) {
+        const std::optional<double>& t = times[i];
+        if (!t || !std::isfinite(*t) || !(*t > 0.0)) {
+          why_not = "the whole-trace curve gives no band time at " + num(speeds[i]) + " km/h";
+          break;
+        }
+        band_forces.push_back(band_force_n(force_mass_kg, profile.band_half_width_kmh, *t));
+      }
+      if (why_not.empty()) {
+        const RoadLoadFit eq = fit_road_load(speeds, band_forces);
+        if (!eq.ok) why_not = "the whole-trace curve's band forces do not regress (" + eq.message + ")";
+        equivalent = eq.coefficients;
+        if (eq.ok) e.adjust_band_equivalent = equivalent;
+      }
+    }
+    // Within the band regression's noise of it at every reference speed, and never more than the tolerance
+    // away: the adjustment then moves the setting by at most that much beyond the standard's.
+    if (why_not.empty())
+      for (double v : profile.reference_speeds_kmh) {
+        const double d = std::abs(e.fit.coefficients.force_n(v) - equivalent.force_n(v));
+        const double u = fit.force_standard_error_n(v);
+        const double limit = std::min(profile.tolerance_n, profile.estimator_disagreement_n +
+                                                               kAdjustNoiseK * (std::isfinite(u) ? u : 0.0));
+        if (!(d <= limit)) {
+          why_not = "the whole-trace curve's band-equivalent is " + num(d, 1) + " N apart at " + num(v) +
+                    " km/h, beyond " + num(limit, 1) + " N";
+          break;
+        }
+      }
+    if (!why_not.empty()) {
+      e.adjust_why = "band regression: " + why_not;
+    } else {
+      e.adjust_basis = equivalent;
+      e.adjust_from_whole_trace = true;
+      e.adjust_why =
+          "whole-trace curve, as its band forces regress (within the band regression's noise of it at every "
+          "reference speed)";
     }
   }
   if (profile.whole_trace_confirms) {

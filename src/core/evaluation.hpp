@@ -28,10 +28,25 @@ struct CoastdownEvaluation {
   std::optional<ToleranceCheck> whole_trace_check;
   std::string confirmation;
   bool confirmation_refused = false;  // the band regression passed, the confirmation did not
+  // The measured curve the adjustment takes the loss from (profile.adjust_from, docs/standards.md §3.17):
+  // the band regression's unless the profile asks for the whole-trace curve and it qualifies; adjust_why
+  // says which and why ("" when the profile keeps the band regression).
+  RoadLoad adjust_basis;
+  bool adjust_from_whole_trace = false;
+  std::string adjust_why;
+  std::optional<RoadLoad> adjust_band_equivalent;  // the whole-trace curve's band-equivalent, when computed
 };
 
+// The whole-trace curve qualifies for the adjustment when it is fitted and converged and its band-equivalent
+// curve (its closed-form band forces, regressed as the measured ones are) lies, at every reference speed,
+// within estimator_disagreement_n + kAdjustNoiseK × u of the band regression (u its standard error there),
+// and never more than the tolerance away: further apart than the band regression's own noise explains, one of
+// the two fits is wrong and the standard's is kept (lab policy, no source). The band-equivalent curve is then
+// the adjustment's basis.
+inline constexpr double kAdjustNoiseK = 3.0;
+
 struct EvaluationOptions {
-  BandOptions bands;
+  BandOptions bands;  // its fit_half_width_kmh is the profile's crossing_fit_half_width_kmh
   bool whole_trace = true;
   WholeTraceOptions whole_trace_options;
 };

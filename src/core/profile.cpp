@@ -72,8 +72,12 @@ Problems validate(const Profile& p) {
   range(ps, "acceptance.tolerance_n", p.tolerance_n, 0.1, 1000.0, "N");
   irange(ps, "acceptance.consecutive_passes", p.consecutive_passes, 1, 10);
   range(ps, "acceptance.guard_band_k", p.decision_rule.coverage_k, 1.0, 3.0, "");
-  // The upper edge of the top band must be passed in free coast, with room for the crossing fit.
-  range(ps, "run.run_up_margin_kmh", p.run_up_margin_kmh, p.band_half_width_kmh + 2.0, 30.0, "km/h");
+  // The upper edge of the top band must be passed in free coast, with room for the crossing fit: its window
+  // (bands.crossing_fit_half_width_kmh, docs/standards.md §2.10) ends at or below the release, and at least 2
+  // km/h of free coast lie above the edge.
+  range(ps, "bands.crossing_fit_half_width_kmh", p.crossing_fit_half_width_kmh, 1.0, 10.0, "km/h");
+  range(ps, "run.run_up_margin_kmh", p.run_up_margin_kmh,
+        p.band_half_width_kmh + std::max(2.0, p.crossing_fit_half_width_kmh), 30.0, "km/h");
   irange(ps, "method.fixed_runs", p.fixed_runs, 2, 10);
   irange(ps, "method.fixed_run_verification_runs", p.fixed_run_verification_runs, 0, 5);
   range(ps, "mass.rotating_fraction", p.mass.rotating_fraction, 0.0, 0.2, "");

@@ -62,6 +62,12 @@ struct WarmUp {
   // scaled by the change the warm-up's curve predicts by the next coast-down. Off: the standard's adjustment
   // as it is.
   bool anticipate_drift = false;
+  // Which coast-downs an anticipated setting aims at (docs/standards.md §3.16, lab policy): `next`, the next
+  // coast-down only; `passes`, the coast-downs it must pass in a row at one setting (the iterative method's
+  // consecutive passes, the fixed-run method's verification runs), by the mean of the changes predicted to
+  // each: a setting aimed at the first of two passes meets the second a whole cycle's warming off.
+  enum class AnticipateFor { next, passes };
+  AnticipateFor anticipate_for = AnticipateFor::next;
 };
 
 // Loss map at the end of the warm-up (first-setting strategy "loss-map"): hold each speed, let it settle,
@@ -93,8 +99,12 @@ struct Profile {
   std::string standard;  // free text, e.g. "UN GTR 15 Annex 4 §8.1.3"
   std::vector<double> reference_speeds_kmh;
   double band_half_width_kmh = 5.0;  // Δv: the band runs from v_j + Δv down to v_j − Δv
-  double tolerance_n = 10.0;         // every reference speed within ± this of the target
-  DecisionRule decision_rule;        // how "within" is judged (acceptance.decision_rule)
+  // The samples each band edge's crossing time is fitted over: those within ± this of the edge's speed
+  // (trace_analysis.hpp BandOptions; bands.crossing_fit_half_width_kmh, lab policy, docs/standards.md §2.10).
+  // A wider window averages more samples of a noisy encoder; the fit's error stays of fourth order in it.
+  double crossing_fit_half_width_kmh = 2.5;
+  double tolerance_n = 10.0;   // every reference speed within ± this of the target
+  DecisionRule decision_rule;  // how "within" is judged (acceptance.decision_rule)
   // acceptance.whole_trace_confirms (lab policy, docs/standards.md §3.11): a coast-down within tolerance by
   // the standard's band regression counts as a pass only when the whole-trace curve is within tolerance at
   // every reference speed too (a fit that fails confirms nothing: no pass). The adjustment stays the
@@ -119,6 +129,13 @@ struct Profile {
   LateStart late_start = LateStart::repeat;
   double late_start_rewarm_s = 300.0;     // the short re-warm before the repeat (lab policy, no source)
   double estimator_disagreement_n = 5.0;  // flag when band and whole-trace forces differ by more
+  // method.adjust_from (lab policy, docs/standards.md §3.17): the estimate the adjustment (and the fixed-run
+  // final setting's average) takes the measured curve from. band_regression: the standard's (As, Bs, Cs);
+  // whole_trace: the whole-trace curve's band-equivalent, when the fit converged and that curve lies within
+  // the band regression's noise of it and within the tolerance at every reference speed (evaluation.hpp
+  // kAdjustNoiseK; else the band regression's, said). Acceptance is the band regression's either way.
+  enum class AdjustFrom { band_regression, whole_trace };
+  AdjustFrom adjust_from = AdjustFrom::band_regression;
 
   double top_speed_kmh() const;
   double bottom_speed_kmh() const;

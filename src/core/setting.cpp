@@ -54,7 +54,16 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
   a.epoch_s = outlook.epoch_s;
   a.loss = loss;
   a.curve = outlook.curve;
-  const std::optional<double> change = outlook.change_n ? outlook.change_n(from_s, to_s) : std::nullopt;
+  // The coast-downs aimed at: the next, and with a cycle the ones after it; the change is their mean.
+  const int aimed =
+      outlook.cycle_s > 0.0 && std::isfinite(outlook.cycle_s) ? std::clamp(outlook.aimed, 1, 10) : 1;
+  a.aimed = aimed;
+  a.to_last_s = to_s + (aimed - 1) * outlook.cycle_s;
+  std::optional<double> change = outlook.change_n ? std::optional<double>(0.0) : std::nullopt;
+  for (int k = 0; k < aimed && change; ++k) {
+    const std::optional<double> c = outlook.change_n(from_s, to_s + k * outlook.cycle_s);
+    change = c ? std::optional<double>(*change + *c / aimed) : std::nullopt;
+  }
   if (!change || !std::isfinite(*change)) {
     a.why = "no warming anticipated: the warm-up's trend does not predict it";
     return a;
@@ -84,7 +93,10 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
   a.change_n = *change;
   a.ratio = ratio;
   a.why = "anticipates a loss change of " + num(*change, 1) + " N at " + num(outlook.speed_kmh) +
-          " km/h by the next coast-down (" + num(ratio * 100.0, 1) + " % of the loss)";
+          " km/h by " +
+          (aimed == 1 ? std::string("the next coast-down")
+                      : "the next " + std::to_string(aimed) + " coast-downs (their mean)") +
+          " (" + num(ratio * 100.0, 1) + " % of the loss)";
   return a;
 }
 
@@ -100,6 +112,19 @@ const char* to_string(Decision::Kind k) {
   return "unknown";
 }
 
+int coastdowns_aimed_at(const WarmUp& warm_up, int passes) {
+  return warm_up.anticipate_for == WarmUp::AnticipateFor::passes ? std::max(1, passes) : 1;
+}
+
+namespace {
+// The outlook aimed at the coast-downs a setting must pass (coastdowns_aimed_at).
+WarmingOutlook aimed(const WarmingOutlook& outlook, const WarmUp& warm_up, int passes) {
+  WarmingOutlook o = outlook;
+  o.aimed = coastdowns_aimed_at(warm_up, passes);
+  return o;
+}
+}  // namespace
+
 SettingMethodState::SettingMethodState(const Profile& profile, const RoadLoad& target)
     : profile_(profile), target_(target) {}
 
@@ -110,12 +135,16 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
   if (profile_.method == SettingMethod::iterative || verifying_) {
     const int required = verifying_ ? profile_.fixed_run_verification_runs : profile_.consecutive_passes;
     if (within_tolerance) {
-      ++passes_;
+      // A held fixed-run setting (no verification runs asked: required 0) has no passes to count.
+      if (required > 0) ++passes_;
       if (passes_ >= required) {
         d.kind = Decision::Kind::accepted;
         d.next_set = set;
-        d.reason = std::to_string(passes_) + (verifying_ ? " verification" : " consecutive") +
-                   " coast-down(s) within tolerance";
+        d.reason = verifying_ && required == 0
+                       ? "the accepted fixed-run setting within tolerance on a coast-down held while the "
+                         "vehicle settles"
+                       : std::to_string(passes_) + (verifying_ ? " verification" : " consecutive") +
+                             " coast-down(s) within tolerance";
       } else {
         d.next_set = set;
         d.reason = "within tolerance (" + std::to_string(passes_) + " of " + std::to_string(required) +
@@ -127,14 +156,18 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
     if (verifying_) {
       d.kind = Decision::Kind::rejected;
       d.next_set = set;
-      d.reason = "fixed-run final setting outside tolerance on its verification coast-down";
+      d.reason = required == 0 ? "the accepted fixed-run setting outside tolerance on a held verification "
+                                 "coast-down (the drift rule's, while the vehicle settles)"
+                               : "fixed-run final setting outside tolerance on its verification coast-down";
       return d;
     }
     d.next_set = adjusted_setting(target_, set, simulated);
     d.reason = "outside tolerance: adjusted A*d = Ad + At − As (B, C likewise)";
     if (outlook) {
       const RoadLoad loss = simulated - set;
-      d.anticipation = anticipate_warming(loss, *outlook, outlook->now_s, outlook->next_s);
+      d.anticipation =
+          anticipate_warming(loss, aimed(*outlook, profile_.warm_up, profile_.consecutive_passes),
+                             outlook->now_s, outlook->next_s);
       if (d.anticipation.used) d.next_set = target_ - loss.scaled(1.0 + d.anticipation.ratio);
       d.reason += "; " + d.anticipation.why;
     }
@@ -161,6 +194,10 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
     d.kind = Decision::Kind::accepted;
     d.reason =
         "fixed-run: final setting A = At − mean(As − Ad) over runs 2.." + std::to_string(profile_.fixed_runs);
+    // A coast-down after this one (a drift rule that keeps coasting at the accepted setting until the vehicle
+    // has settled, docs/standards.md §3.12) checks this setting as a verification run does: within tolerance
+    // it stays accepted, outside it is rejected. It never joins the average (§3.2: runs 2..fixed_runs only).
+    verifying_ = true;
     return d;
   }
   verifying_ = true;
@@ -186,7 +223,9 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
     }
     mean_t /= static_cast<double>(fixed_runs_.size());
     loss = loss.scaled(1.0 / static_cast<double>(fixed_runs_.size()));
-    d.anticipation = anticipate_warming(loss, *outlook, mean_t, outlook->next_s);
+    d.anticipation =
+        anticipate_warming(loss, aimed(*outlook, profile_.warm_up, profile_.fixed_run_verification_runs),
+                           mean_t, outlook->next_s);
     if (d.anticipation.used) d.next_set = target_ - loss.scaled(1.0 + d.anticipation.ratio);
   }
   d.reason += "; " + d.anticipation.why;

@@ -74,6 +74,11 @@ struct WarmingOutlook {
   std::vector<double> speeds_kmh;  // the reference speeds: the loss is checked at each (below)
   double now_s = 0.0;              // this coast-down's time (the middle of its coast)
   double next_s = 0.0;             // the next coast-down's expected time (its middle)
+  // The coast-downs the setting aims at (warm_up.anticipate_for): `aimed` of them, the next and each
+  // following one cycle_s later; the change anticipated is the mean of the changes predicted to each. 1 (or
+  // no cycle): the next coast-down only.
+  int aimed = 1;
+  double cycle_s = 0.0;
 };
 
 struct Anticipation {
@@ -81,6 +86,8 @@ struct Anticipation {
   double change_n = 0.0;            // predicted at the warm-up speed (0 when not predicted)
   double ratio = 0.0;               // change_n / loss(v_warm), the share the whole loss curve is scaled by
   double from_s = 0.0, to_s = 0.0;  // the span predicted over, s since motoring began
+  int aimed = 1;                    // coast-downs aimed at: the change is the mean of those to to_s, to_s +
+  double to_last_s = 0.0;           // cycle, ..., to_last_s (to_last_s = to_s for one)
   double epoch_s = 0.0;             // when motoring began, on the controller's clock
   RoadLoad loss;      // the loss before it was scaled (the setting is target − loss·(1 + ratio))
   WarmUpCurve curve;  // the warm-up curve the change is from
@@ -97,7 +104,12 @@ inline constexpr double kMinLossForShareN = 20.0;
 inline constexpr double kMaxLossSpread = 3.0;
 inline constexpr double kMaxAnticipatedShare = 0.25;
 
-// The share for `loss` over [from_s, to_s]; not used (and why) outside the bounds.
+// How many coast-downs a setting that must pass `passes` in a row at one setting aims at: all of them with
+// warm_up.anticipate_for = "passes", else the next one only.
+int coastdowns_aimed_at(const WarmUp& warm_up, int passes);
+
+// The share for `loss` from from_s to the coast-downs aimed at (to_s and, with outlook.aimed > 1 and a
+// cycle, those following it); not used (and why) outside the bounds.
 Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outlook, double from_s,
                                 double to_s);
 
@@ -125,7 +137,8 @@ class SettingMethodState {
   // the passes so far no longer count. Returns how many were dropped.
   int reset_passes() { return std::exchange(passes_, 0); }
   int runs() const { return runs_; }
-  // Fixed-run: true once the final setting has been computed and the runs are verification runs.
+  // Fixed-run: true once the final setting has been computed: later runs check it (verification runs, or,
+  // with none asked, coast-downs the drift rule holds at the accepted setting while the vehicle settles).
   bool verifying() const { return verifying_; }
 
  private:

@@ -43,27 +43,39 @@ TraceAnalyser::TraceAnalyser(TraceView trace, BandOptions options) : trace_(trac
     trace_problem_ = "time and speed columns differ in length";
     return;
   }
-  // One pass: each block's speed extremes, and whether every value is finite and time ascends (x − x is 0
-  // for a finite x and NaN otherwise; a NaN compares false). Written without an early exit so that the
-  // compiler can keep several blocks in flight; a problem is located by a second, plain pass.
+  // Whole-array reductions with Eigen's explicit vector packets (the compiler does not vectorise a floating
+  // minimum or a chain of comparisons at -O2 on its own): whether every value is finite (x − x is 0 for a
+  // finite x and NaN otherwise, and a NaN survives a sum of zeros), whether time ascends (the smallest step
+  // is positive), and each block's speed extremes. A problem is located by a second, plain pass making the
+  // same tests sample by sample. Only what is compared changes, never a value: the crossings and their fits
+  // read the same samples as before.
   const std::size_t nb = (n + kBlock - 1) / kBlock;
   block_prefix_min_.resize(nb);
   block_suffix_max_.resize(nb);
   const double* t = trace_.time_s.data();
   const double* v = trace_.speed_kmh.data();
+  using Column = Eigen::Map<const Eigen::ArrayXd>;
+  const auto len = static_cast<Eigen::Index>(n);
   bool ok = true;
-  for (std::size_t b = 0; b < nb; ++b) {
-    const std::size_t i0 = b * kBlock, i1 = std::min(n, i0 + kBlock);
-    double mn = INFINITY, mx = -INFINITY;
-    bool good = true;
-    for (std::size_t i = i0; i < i1; ++i) {
-      mn = v[i] < mn ? v[i] : mn;
-      mx = v[i] > mx ? v[i] : mx;
-      good &= (t[i] - t[i] == 0.0) & (v[i] - v[i] == 0.0) & (i == 0 || t[i] > t[i - 1]);
+  if (n > 0) {
+    const Column tc(t, len), vc(v, len);
+    const double zeros = ((tc - tc) + (vc - vc)).sum();
+    ok = zeros == 0.0;
+    if (ok && n > 1) ok = (Column(t + 1, len - 1) - Column(t, len - 1)).minCoeff() > 0.0;
+  }
+  if (ok) {
+    using Block = Eigen::Map<const Eigen::Array<double, kBlock, 1>>;
+    const std::size_t full = n / kBlock;
+    for (std::size_t b = 0; b < full; ++b) {
+      const Block blk(v + b * kBlock);
+      block_prefix_min_[b] = blk.minCoeff();
+      block_suffix_max_[b] = blk.maxCoeff();
     }
-    ok &= good;
-    block_prefix_min_[b] = mn;
-    block_suffix_max_[b] = mx;
+    if (full < nb) {
+      const Column rest(v + full * kBlock, static_cast<Eigen::Index>(n - full * kBlock));
+      block_prefix_min_[full] = rest.minCoeff();
+      block_suffix_max_[full] = rest.maxCoeff();
+    }
   }
   if (!ok) {
     for (std::size_t i = 0; i < n; ++i) {
@@ -71,11 +83,13 @@ TraceAnalyser::TraceAnalyser(TraceView trace, BandOptions options) : trace_(trac
         trace_problem_ = "non-finite value at sample " + std::to_string(i);
         break;
       }
-      if (i > 0 && !(t[i] > t[i - 1])) {
+      if (i > 0 && !(t[i] - t[i - 1] > 0.0)) {  // the very test of the reduction above
         trace_problem_ = "time not ascending at sample " + std::to_string(i);
         break;
       }
     }
+    // Never a rejected trace without a reason (crossing() reads the blocks only when there is none).
+    if (trace_problem_.empty()) trace_problem_ = "trace rejected by its validation (no sample located)";
     block_prefix_min_.clear();
     block_suffix_max_.clear();
     return;

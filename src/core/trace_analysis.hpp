@@ -84,9 +84,10 @@ class TraceAnalyser {
   bool even_deceleration(double v, double half_band, double t_up, double t_low, std::string& why) const;
   TraceView trace_;
   BandOptions options_;
-  // The running extremes by blocks of kBlock samples (one pass builds them; a crossing is found by a binary
-  // search over the blocks and a scan inside one): block_prefix_min_[b] is the min of speed[0 .. end of block
-  // b] (non-increasing), block_suffix_max_[b] the max of speed[start of block b .. n−1] (non-increasing).
+  // The running extremes by blocks of kBlock samples (vector reductions build them; a crossing is found by a
+  // binary search over the blocks and a scan inside one): block_prefix_min_[b] is the min of speed[0 .. end
+  // of block b] (non-increasing), block_suffix_max_[b] the max of speed[start of block b .. n−1]
+  // (non-increasing).
   static constexpr std::size_t kBlock = 16;
   std::vector<double> block_prefix_min_;
   std::vector<double> block_suffix_max_;

@@ -842,7 +842,12 @@ static std::string write_report_body(const std::string& folder, const std::strin
          (bv(a, "used").value_or(false)
               ? "the map's loss scaled by 1 + " + num_or(nv(a, "ratio"), 4, "") + " (a change of " +
                     num_or(nv(a, "change_n"), 1, "N") + " predicted at the warm-up speed from " +
-                    num_or(nv(a, "from_s"), 0, "s") + " to " + num_or(nv(a, "to_s"), 0, "s") + ")"
+                    num_or(nv(a, "from_s"), 0, "s") + " to " + num_or(nv(a, "to_s"), 0, "s") +
+                    (nv(a, "aimed").value_or(1.0) > 1.0
+                         ? ", the mean over the " + num_or(nv(a, "aimed"), 0, "") +
+                               " coast-downs it must pass, the last at " + num_or(nv(a, "to_last_s"), 0, "s")
+                         : std::string()) +
+                    ")"
               : "none (" + esc(sv(a, "why")) + ")") +
          ".</p>\n";
   }

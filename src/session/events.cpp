@@ -83,6 +83,11 @@ core::RoadLoad measured_of(const nlohmann::json& r) {
   return road_load_from_json(r.at(std::string(record::measured_member(r))));
 }
 
+core::RoadLoad adjust_basis_of(const nlohmann::json& r) {
+  if (r.contains("adjustment")) return road_load_from_json(r.at("adjustment").at("measured"));
+  return measured_of(r);
+}
+
 namespace {
 
 nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
@@ -108,9 +113,17 @@ nlohmann::json anticipation_json(const core::Anticipation& a) {
              {"windows", a.curve.points},      {"tau_at_bound", a.curve.tau_at_bound}};
   else
     curve = {{"windows", a.curve.points}, {"why", a.curve.why}};
-  return {{"used", a.used},          {"change_n", a.change_n}, {"ratio", a.ratio},
-          {"from_s", a.from_s},      {"to_s", a.to_s},         {"epoch_s", a.epoch_s},
-          {"loss", to_json(a.loss)}, {"curve", curve},         {"why", a.why}};
+  return {{"used", a.used},
+          {"change_n", a.change_n},
+          {"ratio", a.ratio},
+          {"from_s", a.from_s},
+          {"to_s", a.to_s},
+          {"aimed", a.aimed},
+          {"to_last_s", a.to_last_s},
+          {"epoch_s", a.epoch_s},
+          {"loss", to_json(a.loss)},
+          {"curve", curve},
+          {"why", a.why}};
 }
 
 nlohmann::json dropped_json(const std::vector<core::DroppedSpeed>& dropped) {
@@ -721,12 +734,18 @@ nlohmann::json to_json(const CoastdownRecord& r) {
   j["regression_residual_sd_n"] = e.fit.residual_sd_n;
   if (e.whole_trace.ok)
     j["whole_trace"] = {{"coefficients", to_json(e.whole_trace.coefficients)},
+                        {"converged", e.whole_trace.converged},
                         {"rms_residual_kmh", e.whole_trace.rms_residual_kmh},
                         {"evaluations", e.whole_trace.evaluations}};
   else
     j["whole_trace"] = {{"failed", e.whole_trace.message}};
   j["estimator_disagreement_n"] = e.estimator_disagreement_n;
   j["estimators_disagree"] = e.estimators_disagree;
+  if (!e.adjust_why.empty())
+    j["adjustment"] = {{"from", e.adjust_from_whole_trace ? "whole-trace" : "band-regression"},
+                       {"measured", to_json(e.adjust_basis)},
+                       {"why", e.adjust_why}};
+  if (e.adjust_band_equivalent) j["adjustment"]["band_equivalent"] = to_json(*e.adjust_band_equivalent);
   j["check"] = {{"pass", e.check.pass},
                 {"worst_abs_deviation_n", e.check.worst_abs_deviation_n},
                 {"tolerance_n", r.tolerance_n},

@@ -74,6 +74,9 @@ core::RoadLoad road_load_from_json(const nlohmann::json& j);
 // A usable coast-down record's measured coefficients (As, Bs, Cs; the standard's "simulated"): "measured", or
 // "simulated" in folders written before the name was unified. Throws like road_load_from_json when absent.
 core::RoadLoad measured_of(const nlohmann::json& coastdown_record);
+// The curve its adjustment took the loss from (method.adjust_from): "adjustment.measured" when the record has
+// it, else the measured coefficients (the band regression's). Throws likewise.
+core::RoadLoad adjust_basis_of(const nlohmann::json& coastdown_record);
 
 // The per-coast-down record (the "coastdown" event).
 struct CoastdownRecord {

@@ -58,6 +58,7 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         if (!r.at("usable").is_boolean()) throw std::invalid_argument("\"usable\" is not true or false");
         if (r.at("usable").get<bool>()) {
           (void)measured_of(r);
+          (void)adjust_basis_of(r);
           (void)r.at("check").at("rows").size();
           (void)r.at("decision").at("kind").get<std::string>();
         }
@@ -120,6 +121,16 @@ Summary summary_from_record(const ResumePoint& p, const core::Profile& profile) 
     s.deviations.clear();
   }
   return s;
+}
+
+std::optional<std::string> missing_adjustment(const ResumePoint& rp, const core::Profile& profile) {
+  if (profile.adjust_from != core::Profile::AdjustFrom::whole_trace) return std::nullopt;
+  for (const auto& r : rp.completed)
+    if (r.value("usable", false) && !r.contains("adjustment"))
+      return "coast-down " + std::to_string(r.value("run", 0)) +
+             "'s record has no \"adjustment\" though the profile takes the loss from the whole-trace curve: "
+             "the folder is damaged";
+  return std::nullopt;
 }
 
 }  // namespace loadtrim::session

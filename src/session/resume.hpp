@@ -39,6 +39,13 @@ struct ResumePoint {
 // Rebuilds where a session stood from its log records. A record whose fields are not what this version
 // writes is counted and named (malformed, malformed_note; resume refuses it), never a crash.
 ResumePoint resume_point(const std::vector<nlohmann::json>& records);
+
+// A folder whose profile takes each adjustment's loss from the whole-trace curve (method.adjust_from,
+// docs/standards.md §3.17) wrote the curve it used with every usable coast-down; the resume replays the
+// method from it. The first usable record without it (damage, not an old folder: an old folder's own profile
+// copy keeps the band regression), named; nullopt when there is none. Resume refuses before anything is
+// written.
+std::optional<std::string> missing_adjustment(const ResumePoint& rp, const core::Profile& profile);
 // The summary of a session whose verdict the record already holds (ResumePoint::verdict), from the record
 // alone.
 Summary summary_from_record(const ResumePoint& p, const core::Profile& profile);

@@ -499,13 +499,18 @@ Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
   if (!r.ok()) return r;
   // Leave road-load simulation at once, before the analysis and the record (as after a coast-down).
   if (Result h = c_.hold_speed(to_kmh); !h.ok()) return h;
+  // The crossing fit of these short coasts keeps at most the earlier 2.5 km/h window, and a band is used only
+  // when its window's top lies 2 km/h below the release (the release itself is never in a fit).
+  core::BandOptions bo;
+  bo.fit_half_width_kmh = std::min(p.crossing_fit_half_width_kmh, 2.5);
   std::vector<double> speeds;
   for (double v : p.reference_speeds_kmh)
-    if (v + p.band_half_width_kmh <= from_kmh - 2.0 && v - p.band_half_width_kmh >= to_kmh)
+    if (v + p.band_half_width_kmh + bo.fit_half_width_kmh <= from_kmh - 2.0 &&
+        v - p.band_half_width_kmh >= to_kmh)
       speeds.push_back(v);
   std::vector<double> ts, vs;
   split_trace(trace, ts, vs);
-  for (const auto& b : core::analyse_bands({ts, vs}, speeds, p.band_half_width_kmh, force_mass_kg_)) {
+  for (const auto& b : core::analyse_bands({ts, vs}, speeds, p.band_half_width_kmh, force_mass_kg_, bo)) {
     if (!b.ok()) {
       rec.note += (rec.note.empty() ? "" : "; ") + num(b.reference_speed_kmh) + " km/h not used: " + b.reason;
       continue;
@@ -887,9 +892,19 @@ std::optional<Session::Stop> Session::do_run(int run) {
                                ? t_now_ - previous_end
                                : std::max(0.0, rec.run_up_s) + rec.duration_s;
       outlook = warming_outlook(mid, mid + cycle);
+      outlook.cycle_s = cycle;  // the coast-downs after the next (warm_up.anticipate_for = "passes")
     }
-    rec.decision = method_->on_coastdown(set_, rec.evaluation.fit.coefficients, rec.evaluation.check.pass,
+    // The acceptance is the band regression's (check.pass); the loss an adjustment takes off comes from the
+    // profile's estimate (method.adjust_from, docs/standards.md §3.17).
+    rec.decision = method_->on_coastdown(set_, rec.evaluation.adjust_basis, rec.evaluation.check.pass,
                                          anticipate ? &outlook : nullptr);
+    // Said wherever the basis moved a setting: an iterative adjustment, or a fixed-run run (its loss sets run
+    // 2 or enters the final setting's average).
+    const bool fixed_run_loss = p.method == core::SettingMethod::fixed_run && !rec.verifying;
+    if (!rec.evaluation.adjust_why.empty() &&
+        (fixed_run_loss ||
+         (rec.decision.kind == core::Decision::Kind::run_again && !rec.evaluation.check.pass)))
+      rec.decision.reason += "; loss from the " + rec.evaluation.adjust_why;
     if (rec.evaluation.confirmation_refused)
       rec.decision.reason += "; within tolerance by the band regression but " + rec.evaluation.confirmation;
     if (divergence_)
@@ -900,6 +915,17 @@ std::optional<Session::Stop> Session::do_run(int run) {
     for (const auto& t : core::predicted_band_times_s(in_.vehicle.target, force_mass_kg_,
                                                       p.reference_speeds_kmh, p.band_half_width_kmh))
       rec.predicted_delta_t_s.push_back(t);
+    // A fixed-run final setting accepted without verification runs was never coasted: it meets the same
+    // envelope as every setting written, or it is rejected, before the record says anything.
+    if (rec.decision.kind == core::Decision::Kind::accepted && !(rec.decision.next_set == set_))
+      if (const core::SetCheck chk =
+              core::check_set(rec.decision.next_set, in_.vehicle.target, last_written_, opt_.envelope);
+          !chk.ok) {
+        emit(ev::EnvelopeRefused{run, rec.decision.next_set, chk.why});
+        rec.decision.kind = core::Decision::Kind::rejected;
+        rec.decision.reason +=
+            "; but the final setting leaves the safe envelope (" + chk.why + "): not accepted";
+      }
     // A setting about to be accepted: is the vehicle still warming (docs/standards.md §3.12)?
     if (rec.decision.kind == core::Decision::Kind::accepted) {
       const auto& w = p.warm_up;
@@ -924,7 +950,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
         rec.decision.kind = core::Decision::Kind::run_again;
         rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +
                                num(d.curve.remaining_drift_n(d.t_s), 1) + " N above " +
-                               num(w.drift_threshold_n, 1) + " N): same setting again";
+                               num(w.drift_threshold_n, 1) +
+                               " N): coasting the accepted setting until the vehicle settles";
       } else if (warming) {
         findings_.push_back("the vehicle was still warming at acceptance: estimated remaining drift " +
                             num(d.curve.remaining_drift_n(d.t_s), 1) + " N at the warm-up speed (threshold " +
@@ -1079,7 +1106,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     cell_time_before_ = resume->cell_time_s;
     for (const auto& r : resume->completed) {
       if (r.value("usable", false))
-        method_->on_coastdown(road_load_from_json(r.at("set")), measured_of(r),
+        method_->on_coastdown(road_load_from_json(r.at("set")), adjust_basis_of(r),
                               r.at("check").at("pass").get<bool>());
       run_no = std::max(run_no, r.at("run").get<int>() + 1);
     }
@@ -1156,8 +1183,16 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
       const double coast_s =
           core::coastdown_time_s(in_.vehicle.target, force_mass_kg_, p.start_speed_kmh(), p.end_speed_kmh())
               .value_or(0.0);
-      const core::WarmingOutlook o =
+      core::WarmingOutlook o =
           warming_outlook(0.5 * (map_from_s_ + map_to_s_), t_now_ + run_up_s + 0.5 * coast_s);
+      // Aimed at the consecutive passes of the iterative method (warm_up.anticipate_for = "passes"): the
+      // coast-downs after the first follow by a run-up from the end speed and a coast (the fixed-run method's
+      // first run only stabilises: its setting is aimed at that run).
+      if (p.method == core::SettingMethod::iterative) {
+        o.aimed = core::coastdowns_aimed_at(p.warm_up, p.consecutive_passes);
+        o.cycle_s =
+            std::max(0.0, p.start_speed_kmh() - p.end_speed_kmh()) / 3.6 / core::kHoldRampMps2 + coast_s;
+      }
       core::Anticipation a = core::anticipate_warming(*c.loss, o, o.now_s, o.next_s);
       if (a.used) {
         core::FirstSettingChoice anticipated = c;

@@ -100,9 +100,12 @@ const Row kRows[] = {
     // A clock that reads a large value (true + 1e6 s) and then restarts from 0, as a counter that wraps.
     {"clock_reset_to_zero", Lie::clock_reset_to_zero, hold30(), Cmd::run, 3,
      "the controller's clock ran backwards", 60, false},
-    // A clock that jumps 1000 s ahead once in the middle of a coast-down.
+    // A clock that jumps 1000 s ahead once in the middle of a coast-down: found in the samples, or (on a
+    // loaded host, seen once beside a build) in a STATUS reply read before the next sample, whose clock then
+    // disagrees with the samples'. Either names the lie ("|" separates the accepted causes).
     {"clock_jumps_ahead", Lie::clock_jumps_ahead, Trigger::in_mode("ROADLOAD", 10.0), Cmd::run, 3,
-     "the controller's clock jumped ahead", 90, false},
+     "the controller's clock jumped ahead|the controller's status clock and sample clock disagree", 90,
+     false},
     // A clock that runs 10x faster than the controller's own (too fast against wall time).
     {"clock_runs_fast", Lie::clock_runs_fast, hold30(), Cmd::run, 3, "the controller's clock runs too fast",
      60, false},
@@ -154,12 +157,12 @@ const Row kRows[] = {
     // the bound; the fragment is the stalled stream's.
     {"trickle", Lie::trickle, hold30(), Cmd::run, 3, "no sample for", 60, false},
     // Every sample 20 times: duplicates are dropped, the session still accepted, memory bounded. At 20x
-    // (40,000
-    // lines per wall second) so that the row measures the duplicates, not the host's throughput.
+    // (40,000 lines per wall second; 10x under the sanitize preset, sample_flood_scale below) so that the row
+    // measures the duplicates, not the host's throughput.
     {"sample_dup_flood", Lie::sample_dup_flood, hold30(), Cmd::run, 0, "accepted", 120, true, "20"},
-    // 20,000 events per second for a session of about a minute (20x): over a million events, which an
-    // unbounded
-    // queue would keep (well above 64 MiB); the bounded one keeps 256. The session is still accepted.
+    // 20,000 events per second for a session of about a minute (20x; 10x and 10,000 per second under the
+    // sanitize preset, sample_flood_scale below): over a million events, which an unbounded queue would keep
+    // (well above 64 MiB); the bounded one keeps 256. The session is still accepted.
     {"event_flood", Lie::event_flood, hold30(), Cmd::run, 0, "accepted", 120, true, "20"},
     // link-check meets the same lies: it moves nothing, but must end and say why.
     {"link_check_clock_frozen", Lie::clock_frozen, Trigger::at_start(), Cmd::link_check, 3,
@@ -190,6 +193,34 @@ std::string time_scale() {
   char* end = nullptr;
   const double v = std::strtod(s, &end);
   return end && *end == '\0' && v >= 1.0 && v <= 1000.0 ? std::string(s) : "200";
+}
+
+// The floods' scale (the event flood's rate follows it, see the test below). The sample flood sends 100 Hz x
+// scale x 20 lines per wall second through the proxy to the tool, all three sanitized in the sanitize preset.
+// At 20x (40,000 lines/s) a loaded 2-core CI host running that build fell behind: a STATUS reply queued
+// behind the backlog missed its deadline 10 s in (exit 3; seen in CI on 2026-12-04).
+// LOADTRIM_TEST_LIE_SAMPLE_FLOOD_TIME_SCALE (set to 10 by the sanitize preset) lowers the rate; the lie is
+// the same (every sample 20 times) and the row still asserts acceptance and a verified record. Its bound
+// grows by the row's scale over this one (the session is the same in simulated time); from 10 to the row's
+// own scale, else the row's.
+std::string sample_flood_scale(const char* row_scale) {
+  const char* s = std::getenv("LOADTRIM_TEST_LIE_SAMPLE_FLOOD_TIME_SCALE");
+  if (!s || !*s) return row_scale;
+  char* end = nullptr;
+  const long v = std::strtol(s, &end, 10);
+  return end && *end == '\0' && v >= 10 && v <= std::atol(row_scale) ? std::to_string(v)
+                                                                     : std::string(row_scale);
+}
+
+// Whether the output or the log says the row's cause, or one of its causes separated by "|".
+bool names_a_cause(const std::string& causes, const std::string& output, const std::string& logged) {
+  for (std::size_t from = 0; from <= causes.size();) {
+    const std::size_t bar = std::min(causes.find('|', from), causes.size());
+    const std::string cause = causes.substr(from, bar - from);
+    if (output.find(cause) != std::string::npos || logged.find(cause) != std::string::npos) return true;
+    from = bar + 1;
+  }
+  return false;
 }
 
 double bound_scale() {
@@ -347,8 +378,19 @@ class LyingController : public ::testing::TestWithParam<Row> {};
 TEST_P(LyingController, EndsWithinItsBoundNamingTheCause) {
   const Row& row = GetParam();
   const bool session = row.cmd == Cmd::run;
-  loadtrim::testing::SimProcess sim({"--time-scale", row.scale ? std::string(row.scale) : time_scale()});
-  LyingProxy proxy(sim.port(), {row.lie, row.trigger});
+  // The floods run slower alike under the sanitize preset (sample_flood_scale): the event flood's rate per
+  // wall second falls with the time scale, so the session meets as many events in its simulated time. Both
+  // floods side by side at 20x (40,000 + 20,000 lines per wall second) ended the event flood's session
+  // "no reply to MODE before the deadline" in a sanitized build here (ctest -j4 of the lie rows, 2026-12-04).
+  const bool flood = row.lie == Lie::sample_dup_flood || row.lie == Lie::event_flood;
+  const std::string scale = flood && row.scale ? sample_flood_scale(row.scale)
+                            : row.scale        ? std::string(row.scale)
+                                               : time_scale();
+  loadtrim::testing::SimProcess sim({"--time-scale", scale});
+  const double event_rate = loadtrim::testing::Script{}.event_flood_per_s;  // the proxy's own rate
+  LyingProxy proxy(
+      sim.port(),
+      {row.lie, row.trigger, row.scale ? event_rate * std::stod(scale) / std::stod(row.scale) : event_rate});
   std::string dir = (fs::temp_directory_path() / "loadtrim-lie-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
   // The row's own data root and lock folder: rows run in parallel and never touch the user's.
@@ -377,7 +419,10 @@ TEST_P(LyingController, EndsWithinItsBoundNamingTheCause) {
   else
     args = {"link-check", "--cell", kSrc + "/config/cells/sim-tcp.toml", "--port",
             std::to_string(proxy.port())};
-  const double bound = std::min(row.bound_s * bound_scale(), kMaxScaledBoundS);
+  // A row run slower than its own scale (the sample flood under the sanitize preset) has its bound stretched
+  // alike.
+  const double slower = row.scale ? std::stod(row.scale) / std::stod(scale) : 1.0;
+  const double bound = std::min(row.bound_s * bound_scale() * slower, kMaxScaledBoundS);
   const RunResult res = run_bounded(args, env, bound);
 
   std::string folder;  // the session folder: the one with a log
@@ -400,8 +445,7 @@ TEST_P(LyingController, EndsWithinItsBoundNamingTheCause) {
   EXPECT_FALSE(res.killed) << "no end within " << bound << " s: killed at the bound. Last output:\n"
                            << tail(res.output);
   EXPECT_EQ(res.exit_code, row.exit_code) << tail(res.output);
-  EXPECT_TRUE(res.output.find(row.message) != std::string::npos ||
-              logged.find(row.message) != std::string::npos)
+  EXPECT_TRUE(names_a_cause(row.message, res.output, logged))
       << "expected '" << row.message << "' in the output or the log; output:\n"
       << tail(res.output);
   if (row.lie == Lie::none) {
@@ -871,8 +915,7 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
 
   EXPECT_FALSE(res.killed) << "no end within " << bound << " s. Last output:\n" << tail(res.output);
   EXPECT_EQ(res.exit_code, row.exit_code) << tail(res.output);
-  EXPECT_TRUE(res.output.find(row.message) != std::string::npos ||
-              logged.find(row.message) != std::string::npos)
+  EXPECT_TRUE(names_a_cause(row.message, res.output, logged))
       << "expected '" << row.message << "' in the output or the log; output:\n"
       << tail(res.output);
   if (row.lie == ModbusLie::none) {
@@ -898,13 +941,27 @@ TEST_P(ModbusLyingController, EndsWithinItsBoundNamingTheCause) {
   }
   if (row.lie == ModbusLie::busy_always || row.lie == ModbusLie::gateway_always) {
     // Every request was sent 1 + modbus.retry_attempts times (the map's policy, docs/modbus.md "Exceptions"),
-    // no more, no fewer: the proxy's runs of one request answered with exceptions. A run may hold the same
-    // request twice over when the tool asked it again after giving up (a multiple, then).
+    // no more, no fewer: the proxy's runs of one request answered with exceptions. A run of heartbeat writes
+    // may be a multiple of it: a beat that failed is not counted (the counter does not advance), so the
+    // keep-alive thread's next beat, due while the driving thread writes its fault records, sends the very
+    // same bytes and the proxy sees one run (seen once as runs 8,4,4 in a clean-clone run beside a build).
+    // Every other request is tried exactly the policy's count.
     const int tries = 1 + map.retry.attempts;
+    const auto& beat = map[modbus::Q::heartbeat];
     ASSERT_FALSE(st.exception_runs.empty());
-    EXPECT_EQ(st.exception_runs.front(), tries) << "the first request the lie met";
-    for (std::size_t i = 0; i < st.exception_runs.size(); ++i)
-      EXPECT_EQ(st.exception_runs[i] % tries, 0) << "run " << i << " of " << st.exception_runs[i];
+    ASSERT_EQ(st.exception_runs.size(), st.exception_run_requests.size());
+    for (std::size_t i = 0; i < st.exception_runs.size(); ++i) {
+      const auto [fn, addr] = st.exception_run_requests[i];
+      // Writes of one register (0x06), of several (0x10) or of a coil (0x05) at the heartbeat's address.
+      const bool heartbeat = (fn == 0x06 || fn == 0x10 || fn == 0x05) && addr == beat.address;
+      if (heartbeat) {
+        EXPECT_EQ(st.exception_runs[i] % tries, 0) << "run " << i << " (heartbeat write)";
+        EXPECT_GE(st.exception_runs[i], tries) << "run " << i << " (heartbeat write)";
+      } else {
+        EXPECT_EQ(st.exception_runs[i], tries)
+            << "run " << i << " (function " << fn << ", address " << addr << ")";
+      }
+    }
     // Busy is a refusal once the retries are spent: the message that ends the session counts them.
     const std::string said = "still after " + std::to_string(map.retry.attempts) + " retries";
     if (row.lie == ModbusLie::busy_always) {

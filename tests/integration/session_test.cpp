@@ -6,6 +6,7 @@
 #include <gtest/gtest.h>
 #include <signal.h>
 
+#include <cmath>
 #include <filesystem>
 #include <fstream>
 #include <random>
@@ -53,7 +54,10 @@ std::string cell_text(unsigned port, const std::string& axles, double rate_hz, i
          "100\n"
          "[reconnect]\nattempts = 3\ndelay_ms = " +
          std::to_string(reconnect_delay_ms) +
-         "\n[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 7200.0\n"
+         // Motoring time is controller time: at 1000x a loaded host stretches it (a fixed-run fleet session
+         // of about 3 s of wall time alone reached 7200 s in a loaded ctest -j4 here), so these cells allow
+         // 10 h; the planned motoring time against the limit is tested in policy_test.
+         "\n[limits]\nmax_speed_kmh = 160.0\nmax_force_n = 8000.0\nmax_motoring_s = 36000.0\n"
          "[dyno]\nroller_diameter_m = 1.2192\nbase_inertia_kg = 1250.0\naxles = \"" +
          axles + "\"\nrun_up = \"" + run_up + "\"\n";
 }
@@ -161,18 +165,28 @@ struct VehicleRun {
   std::vector<nlohmann::json> rs;
 };
 // One `run` of the demo vehicle with the short-warm-up iterative profile against a simulator started with
-// `sim_args` (at 1000x, 20 Hz samples: a few seconds of wall time).
+// `sim_args` (at 1000x, 20 Hz samples: a few seconds of wall time). LOADTRIM_TEST_VEHICLE_TIME_SCALE lowers
+// the simulator's speed for slow builds (the sanitizer preset: 200).
+// At 1000x, 0.12 s of the tool's wall time is 120 s of controller time: in a CI sanitizer pass every first
+// release of five sessions missed the 120 s rule after the warm-up (CI of 2026-12-04; on an idle 2-core host
+// the sanitized tool's gap was 33 s of controller time, 30.5 s of it the driver's run-up: the rest was the
+// load). These tests are about the run-up, so the profile keeps a late first release with a finding
+// (timing.late_start = "finding", as the fleet and soak tests do); the rule itself is tested at controller
+// speed in SessionUnit.
 VehicleRun vehicle_session(std::vector<std::string> sim_args, const std::string& name) {
-  sim_args.insert(sim_args.end(), {"--time-scale", "1000"});
+  const char* scale = std::getenv("LOADTRIM_TEST_VEHICLE_TIME_SCALE");
+  sim_args.insert(sim_args.end(), {"--time-scale", scale && *scale ? scale : "1000"});
   SimProcess sim(sim_args);
   const std::string dir = temp_dir(name);
   write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 20.0));
+  write(dir + "/profile.toml", loadtrim::testing::profile_keeping_late_release(
+                                   kSrc + "/tests/data/wltp-iterative-short-warmup.toml"));
   VehicleRun v;
-  v.rc = run_command({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
-                      dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml",
-                      "--profile", kSrc + "/tests/data/wltp-iterative-short-warmup.toml", "--sessions", dir,
-                      "--unattended", "--quiet", "--first-setting", "standard"},
-                     &v.out, &v.err);
+  v.rc = run_command(
+      {kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
+       dir + "/cell.toml", "--target", kSrc + "/samples/targets/demo-hatchback.toml", "--profile",
+       dir + "/profile.toml", "--sessions", dir, "--unattended", "--quiet", "--first-setting", "standard"},
+      &v.out, &v.err);
   for (const auto& e : fs::directory_iterator(dir))
     if (e.is_directory() && e.path().filename() != "history") v.rs = records(e.path().string());
   fs::remove_all(dir);
@@ -228,6 +242,26 @@ TEST(SessionCli, VehicleRunUpReachesAcceptanceForSeveralDriverSeeds) {
       EXPECT_TRUE(c.value("meets", false)) << c.dump();
     }
     EXPECT_EQ(of_type(v.rs, "run_up").at(0).value("run_up", ""), "vehicle");
+    // The 120 s rule after the warm-up (EU SA4 §8.1.2-8.1.3, docs/standards.md §3.6) is judged once, on the
+    // first release, with a finite gap; missed, it is kept with a finding (the profile's policy here), never
+    // silently.
+    int judged = 0;
+    for (const auto& t : of_type(v.rs, "timing")) {
+      if (!t.contains("within")) continue;
+      ++judged;
+      const double gap = t.value("gap_s", -1.0);
+      EXPECT_TRUE(std::isfinite(gap) && gap >= 0.0) << t.dump();
+      if (!t.value("within", true)) {
+        const auto fin = of_type(v.rs, "finished");
+        ASSERT_EQ(fin.size(), 1u);
+        EXPECT_NE(fin[0].at("findings").dump().find("beyond the 120 s rule"), std::string::npos)
+            << fin[0].dump();
+      }
+    }
+    EXPECT_EQ(judged, 1) << "seed " << seed;
+    // The first run-up starts from the warm-up speed, in controller time (the host's load barely moves it):
+    // one longer than the rule's 120 s could never meet the rule.
+    EXPECT_LT(checks.front().value("run_up_s", 1e9), 120.0) << checks.front().dump();
   }
 }
 
@@ -281,12 +315,15 @@ TEST(SessionCli, VehicleRunUpEarlyReleaseIsDiscardedAndRepeated) {
 TEST(SessionCli, KillNineMidCoastdownThenResume) {
   SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
   const std::string dir = temp_dir("resume");
+  // The shipped profile with a late first release kept (a finding): at 200x a late release is the host's.
+  write(dir + "/profile.toml",
+        loadtrim::testing::profile_keeping_late_release(kSrc + "/config/profiles/wltp-iterative.toml"));
   std::string folder;
   {
     ChildProcess run({kExe, "run", "--override-checks", "integration test against the simulator", "--cell",
                       kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
-                      kSrc + "/samples/targets/demo-hatchback.toml", "--sessions", dir, "--unattended",
-                      "--json", "--first-setting", "standard"});
+                      kSrc + "/samples/targets/demo-hatchback.toml", "--profile", dir + "/profile.toml",
+                      "--sessions", dir, "--unattended", "--json", "--first-setting", "standard"});
     bool first_done = false;
     for (;;) {
       auto line = run.read_line(std::chrono::seconds(60));
@@ -304,9 +341,8 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
   ASSERT_FALSE(folder.empty());
   const auto before = records(folder);
   ASSERT_EQ(count(before, "coastdown"), 1);
-  // A first release later than the 120 s rule (possible at 200x on a loaded host: 0.6 s of wall time) is
-  // discarded and repeated after a re-warm (docs/standards.md §3.6); each such run shifts the run numbers by
-  // one.
+  // A run discarded before the kill (a stalled stream on a loaded host is repeated, docs/session.md) shifts
+  // the run numbers by one each.
   const int late = count(before, "coastdown_discarded");
   ASSERT_EQ(count(before, "coastdown_started"), 2 + late);
   std::string out, err;
@@ -331,7 +367,18 @@ TEST(SessionCli, KillNineMidCoastdownThenResume) {
     if (r.value("type", "") == "coastdown") runs.push_back(r.value("run", 0));
   ASSERT_GE(runs.size(), 2u);
   EXPECT_EQ(runs[0], 1 + late);
-  EXPECT_EQ(runs[1], 3 + late);  // run 2 was half-recorded and is repeated as run 3
+  // Run 2 was half-recorded: the first run the resume starts is run 3 (its later runs may be discarded and
+  // repeated on a loaded host; the number of the first is what the resume decides).
+  bool resumed = false;
+  int first_after_resume = 0;
+  for (const auto& r : after) {
+    if (r.value("type", "") == "resumed") resumed = true;
+    if (resumed && r.value("type", "") == "coastdown_started") {
+      first_after_resume = r.value("run", 0);
+      break;
+    }
+  }
+  EXPECT_EQ(first_after_resume, 3 + late);
   ASSERT_GE(after.size(), 2u);
   EXPECT_EQ(after.back().value("type", ""), "seal");
   EXPECT_EQ(after[after.size() - 2].value("type", ""), "finished");

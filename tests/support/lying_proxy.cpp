@@ -114,7 +114,6 @@ constexpr double kOverSpeedAboveKmh = 100.0;
 constexpr double kOverSpeedFactor = 1.5;
 constexpr int kSlowStreamEvery = 50;
 constexpr int kDupCopies = 20;
-constexpr double kEventFloodPerS = 20000.0;
 constexpr auto kTrickleEvery = std::chrono::milliseconds(20);
 constexpr std::size_t kMaxPendingReplies = 1024;
 constexpr std::size_t kReadChunk = 65536;
@@ -629,10 +628,10 @@ struct LyingProxy::Impl {
       flood_start = now;
     }
     const auto due = static_cast<std::uint64_t>(std::chrono::duration<double>(now - flood_start).count() *
-                                                kEventFloodPerS);
+                                                script.event_flood_per_s);
     // At most a quarter second's worth at once after a stall of this thread: a flood, not a burst.
-    const std::uint64_t n =
-        std::min<std::uint64_t>(due - flood_due_done, static_cast<std::uint64_t>(kEventFloodPerS / 4));
+    const std::uint64_t n = std::min<std::uint64_t>(due - flood_due_done,
+                                                    static_cast<std::uint64_t>(script.event_flood_per_s / 4));
     for (Pair& p : pairs) {
       if (p.dead || !p.have_out_seq || p.tool_pending() > kMaxPendingBytes) continue;
       for (std::uint64_t i = 0; i < n; ++i)

@@ -86,6 +86,7 @@ std::string describe(const Trigger& t);
 struct Script {
   Lie lie = Lie::none;
   Trigger trigger;
+  double event_flood_per_s = 20000.0;  // event_flood: events injected per wall second
 };
 
 using WallClock = std::chrono::steady_clock;

@@ -321,7 +321,10 @@ struct ModbusLyingProxy::Impl {
           auto& runs = stats.exception_runs;
           if (!(last_was_exception && key == last_exception_request)) {
             run_counted = runs.size() < 64;
-            if (run_counted) runs.push_back(0);
+            if (run_counted) {
+              runs.push_back(0);
+              stats.exception_run_requests.emplace_back(p.fn, p.addr);
+            }
           }
           if (run_counted) ++runs.back();
         }

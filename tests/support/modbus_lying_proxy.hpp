@@ -17,6 +17,7 @@
 #include <memory>
 #include <optional>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include "modbus/register_map.hpp"
@@ -64,6 +65,8 @@ struct ModbusProxyStats {
   // The busy and gateway lies: for each run of consecutive identical requests (the transaction id aside) the
   // proxy answered with an exception, how many there were: 1 + the retries the tool sent (the first 64 runs).
   std::vector<int> exception_runs;
+  // For each of those runs, the request's function code and first address (what was asked).
+  std::vector<std::pair<int, int>> exception_run_requests;
   std::uint64_t late_replies_delivered = 0;  // late_reply: held-back replies sent on to the tool
 };
 

@@ -1,5 +1,7 @@
 #include "support/sim_process.hpp"
 
+#include <fstream>
+#include <sstream>
 #include <stdexcept>
 
 #include "sim/announce.hpp"
@@ -35,6 +37,20 @@ SimProcess::SimProcess(std::vector<std::string> args, bool pty) {
 
 void SimProcess::stop() {
   child_->stop();
+}
+
+std::string profile_keeping_late_release(const std::string& path) {
+  std::ifstream in(path);
+  if (!in) throw std::runtime_error("cannot read the profile " + path);
+  std::stringstream text;
+  text << in.rdbuf();
+  std::string profile = text.str();
+  const std::string repeat = "late_start = \"repeat\"";
+  if (const auto at = profile.find(repeat); at != std::string::npos)
+    return profile.replace(at, repeat.size(), "late_start = \"finding\"");
+  if (profile.find("late_start") != std::string::npos || profile.find("[timing]") != std::string::npos)
+    throw std::runtime_error("the profile " + path + " has a [timing] table this helper does not know");
+  return profile + "\n[timing]\nlate_start = \"finding\"\n";
 }
 
 SimProcess::~SimProcess() {

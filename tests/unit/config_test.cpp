@@ -177,11 +177,64 @@ TEST(Config, BadProfilesAndTruthsAreRefused) {
   EXPECT_NE(msg.find("method.kind (line 10): is \"guess\", allowed \"iterative\", \"fixed-run\""),
             std::string::npos)
       << msg;
-  EXPECT_NE(msg.find("run.run_up_margin_kmh (line 8): is 2, allowed 7 to 30 km/h"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("run.run_up_margin_kmh (line 8): is 2, allowed 7.5 to 30 km/h"), std::string::npos)
+      << msg;
   const std::string tmsg = refusal([] {
     config::parse_truth("[vehicle]\ntest_mass_kg = 1500\n[dyno]\nroller_diameter_m = 30\n", "bad-truth.toml");
   });
   EXPECT_NE(tmsg.find("bad-truth.toml: error: dyno.roller_diameter_m (line 4): is 30, allowed 0.2 to 3 m"),
             std::string::npos)
       << tmsg;
+}
+
+TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) {
+  // The shipped profiles set each of them (docs/standards.md §2.10, §3.16, §3.17); a profile without them
+  // keeps the earlier behaviour (2.5 km/h, the band regression, the next coast-down).
+  const auto wltp = config::load_profile(kSrc + "/config/profiles/wltp-iterative.toml");
+  EXPECT_DOUBLE_EQ(wltp.crossing_fit_half_width_kmh, 5.0);
+  EXPECT_EQ(wltp.adjust_from, core::Profile::AdjustFrom::whole_trace);
+  EXPECT_EQ(wltp.warm_up.anticipate_for, core::WarmUp::AnticipateFor::passes);
+  const auto us = config::load_profile(kSrc + "/config/profiles/us-iterative.toml");
+  EXPECT_DOUBLE_EQ(us.crossing_fit_half_width_kmh, 2.5 * 1.609344);  // NIST SP 811: exact mph factor
+  // extra_bands and extra_method go into their tables; extra_warm_up makes a [warm_up] table at the end.
+  auto profile_text = [](const std::string& extra_bands, const std::string& extra_method,
+                         const std::string& extra_warm_up) {
+    return "name = \"p\"\n[bands]\nreference_speeds_kmh = [20, 30, 40]\nhalf_width_kmh = 5.0\n" +
+           extra_bands +
+           "[acceptance]\ntolerance_n = 10.0\n[run]\nrun_up_margin_kmh = 10.0\n[method]\nkind = "
+           "\"iterative\"\n" +
+           extra_method + (extra_warm_up.empty() ? "" : "[warm_up]\n" + extra_warm_up);
+  };
+  const auto plain = config::parse_profile(profile_text("", "", ""), "plain.toml");
+  EXPECT_DOUBLE_EQ(plain.crossing_fit_half_width_kmh, 2.5);
+  EXPECT_EQ(plain.adjust_from, core::Profile::AdjustFrom::band_regression);
+  EXPECT_EQ(plain.warm_up.anticipate_for, core::WarmUp::AnticipateFor::next);
+  const std::string too_wide = refusal([&] {
+    config::parse_profile(profile_text("crossing_fit_half_width_kmh = 12.0\n", "", ""), "bad.toml");
+  });
+  EXPECT_NE(too_wide.find(
+                "bad.toml: error: bands.crossing_fit_half_width_kmh (line 5): is 12, allowed 1 to 10 km/h"),
+            std::string::npos)
+      << too_wide;
+  const std::string basis = refusal(
+      [&] { config::parse_profile(profile_text("", "adjust_from = \"average\"\n", ""), "bad.toml"); });
+  EXPECT_NE(basis.find(
+                "method.adjust_from (line 11): is \"average\", allowed \"band-regression\", \"whole-trace\""),
+            std::string::npos)
+      << basis;
+  const std::string aim =
+      refusal([&] { config::parse_profile(profile_text("", "", "anticipate_for = \"all\"\n"), "bad.toml"); });
+  EXPECT_NE(aim.find("warm_up.anticipate_for (line 12): is \"all\", allowed \"next\", \"passes\""),
+            std::string::npos)
+      << aim;
+  // A crossing window in km/h in a profile whose speeds are in mph is refused, not ignored.
+  const std::string mixed = refusal([] {
+    config::parse_profile(
+        "name = \"p\"\n[bands]\nreference_speeds_mph = [15, 20]\nhalf_width_mph = 2.5\n"
+        "crossing_fit_half_width_kmh = 5.0\n[acceptance]\ntolerance_n = 10.0\n[run]\nrun_up_margin_kmh = "
+        "10.0\n"
+        "[method]\nkind = \"iterative\"\n",
+        "mixed.toml");
+  });
+  EXPECT_NE(mixed.find("give speeds in km/h or in mph, not both"), std::string::npos) << mixed;
 }

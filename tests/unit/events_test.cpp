@@ -681,6 +681,40 @@ TEST(Events, MeasuredCoefficientsAreReadUnderEitherName) {
   EXPECT_THROW((void)loadtrim::session::measured_of(nlohmann::json::object()), std::exception);
 }
 
+TEST(Events, TheAdjustmentBasisIsRecordedAndReadBack) {
+  // method.adjust_from (docs/standards.md §3.17): the record says which curve the adjustment took the loss
+  // from and gives it; a resume replays from it. A record without it (the band regression, or a folder
+  // written before) reads as the measured coefficients.
+  CoastdownRecord r = usable_run();
+  nlohmann::json plain = to_json(r);
+  EXPECT_FALSE(plain.contains("adjustment"));
+  EXPECT_TRUE(loadtrim::session::adjust_basis_of(plain) == r.evaluation.fit.coefficients);
+  r.evaluation.adjust_basis = r.evaluation.whole_trace.coefficients;
+  r.evaluation.adjust_from_whole_trace = true;
+  r.evaluation.adjust_why =
+      "whole-trace curve (within the band regression's noise of it at every reference speed)";
+  const nlohmann::json j = to_json(r);
+  ASSERT_TRUE(j.contains("adjustment"));
+  EXPECT_EQ(j["adjustment"]["from"], "whole-trace");
+  EXPECT_EQ(j["adjustment"]["why"], r.evaluation.adjust_why);
+  EXPECT_FALSE(j["adjustment"].contains("band_equivalent"));
+  EXPECT_EQ(j["whole_trace"]["converged"], r.evaluation.whole_trace.converged);
+  r.evaluation.adjust_band_equivalent = core::RoadLoad{129.5, 0.21, 0.0301};
+  EXPECT_EQ(to_json(r)["adjustment"]["band_equivalent"]["f0_n"], 129.5);
+  EXPECT_TRUE(loadtrim::session::adjust_basis_of(j) == r.evaluation.whole_trace.coefficients);
+  EXPECT_FALSE(loadtrim::session::adjust_basis_of(j) == loadtrim::session::measured_of(j));
+  nlohmann::json broken = j;
+  broken["adjustment"].erase("measured");
+  EXPECT_THROW((void)loadtrim::session::adjust_basis_of(broken), std::exception);
+  // The anticipation says how many coast-downs it aimed at and the last one's time.
+  r.decision.anticipation = anticipation();
+  r.decision.anticipation.aimed = 2;
+  r.decision.anticipation.to_last_s = 1540.0;
+  const nlohmann::json a = to_json(r)["decision"]["anticipation"];
+  EXPECT_EQ(a["aimed"], 2);
+  EXPECT_EQ(a["to_last_s"], 1540.0);
+}
+
 // The console's and operator.log's sentence for every event kind: never a JSON object, never float noise
 // (more than 6 decimals), never empty; with a controller that was never reached no sentence speaks of a
 // watchdog stopping rollers. (Common practice, no source: the project's own console rules, docs/session.md

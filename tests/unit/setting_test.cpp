@@ -133,6 +133,22 @@ TEST(Setting, FixedRunFinalSetting) {
   d = m.on_coastdown(s, s + RoadLoad{57, 0.27, 0.0008}, false);
   EXPECT_EQ(d.kind, Decision::Kind::accepted);
   expect_eq(d.next_set, {40, 0.2, 0.029}, 1e-9);
+  // A drift rule that keeps coasting at the accepted setting until the vehicle settles (docs/standards.md
+  // §3.12): the coast-down at (40, 0.2, 0.029) checks that setting and never joins the average of runs 2..4
+  // (§3.2). Averaged in, its loss (54, 0.24, 0.0006) would have made the mean of four (58.5, 0.285, 0.0009)
+  // and the setting (41.5, 0.215, 0.0291) (by hand), never coasted.
+  const RoadLoad f{40, 0.2, 0.029};
+  d = m.on_coastdown(f, f + RoadLoad{54, 0.24, 0.0006}, true);
+  EXPECT_EQ(d.kind, Decision::Kind::accepted);
+  expect_eq(d.next_set, f, 1e-12);
+  EXPECT_TRUE(m.verifying());
+  // Outside tolerance when coasted again: rejected, as a failed verification run is.
+  SettingMethodState m2(p, target);
+  RoadLoad s2 = m2.on_coastdown({50, 0.1, 0.03}, {112, 0.42, 0.031}, false).next_set;
+  for (int i = 0; i < 3; ++i) s2 = m2.on_coastdown(s2, s2 + RoadLoad{60, 0.3, 0.001}, false).next_set;
+  d = m2.on_coastdown(s2, s2 + RoadLoad{40, 0.3, 0.001}, false);
+  EXPECT_EQ(d.kind, Decision::Kind::rejected);
+  expect_eq(d.next_set, s2, 1e-12);
 }
 
 TEST(Setting, FixedRunWithVerification) {
@@ -186,6 +202,86 @@ TEST(Setting, TheAdjustmentAnticipatesTheWarmingTheTrendPredicts) {
   const Decision kept = passing.on_coastdown(set, {101, 0.5, 0.03}, true, &o);
   expect_eq(kept.next_set, set);
   EXPECT_FALSE(kept.anticipation.used);
+}
+
+TEST(Setting, AnAnticipationAimedAtThePassesTakesTheMeanChangeToEach) {
+  // docs/standards.md §3.16 (warm_up.anticipate_for = "passes", lab policy): the iterative method accepts
+  // after two consecutive passes at one setting (GTR 15 §8.1.3.4.2), so the setting aims at both: the change
+  // is the mean of those predicted from this coast-down (1300 s) to the next (1520 s) and to the one after
+  // (1520 + 250 s). The warming curve is a first-order response F∞ + A·e^(−t/τ) (textbook), so each change
+  // is the closed form Δ(t1, t2) = A·(e^(−t2/τ) − e^(−t1/τ)); A = 80 N, τ = 2000 s (invented figures). Same
+  // target, set and loss as above (loss 106.8 N at 80 km/h).
+  Profile p = wltp(SettingMethod::iterative);
+  p.warm_up.anticipate_for = WarmUp::AnticipateFor::passes;
+  const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028}, simulated{120, 0.5, 0.03};
+  const double A = 80.0, tau = 2000.0;
+  auto closed = [&](double t1, double t2) { return A * (std::exp(-t2 / tau) - std::exp(-t1 / tau)); };
+  std::vector<double> asked_to;
+  WarmingOutlook o;
+  o.change_n = [&](double from, double to) -> std::optional<double> {
+    asked_to.push_back(to);
+    return closed(from, to);
+  };
+  o.speed_kmh = 80.0;
+  o.speeds_kmh = p.reference_speeds_kmh;
+  o.now_s = 1300.0;
+  o.next_s = 1520.0;
+  o.cycle_s = 250.0;
+  SettingMethodState m(p, target);
+  const Decision d = m.on_coastdown(set, simulated, false, &o);
+  ASSERT_TRUE(d.anticipation.used) << d.anticipation.why;
+  ASSERT_EQ(asked_to.size(), 2u);
+  EXPECT_DOUBLE_EQ(asked_to[0], 1520.0);
+  EXPECT_DOUBLE_EQ(asked_to[1], 1770.0);
+  const double mean_change = 0.5 * (closed(1300.0, 1520.0) + closed(1300.0, 1770.0));
+  EXPECT_NEAR(d.anticipation.change_n, mean_change, 1e-12);
+  EXPECT_NEAR(d.anticipation.ratio, mean_change / 106.8, 1e-12);
+  EXPECT_EQ(d.anticipation.aimed, 2);
+  EXPECT_DOUBLE_EQ(d.anticipation.to_last_s, 1770.0);
+  // The setting: At − loss·(1 + ratio), the loss (70, 0.3, 0.002) (as above).
+  const double k = 1.0 + mean_change / 106.8;
+  expect_eq(d.next_set, {100 - 70 * k, 0.5 - 0.3 * k, 0.03 - 0.002 * k}, 1e-9);
+  EXPECT_NE(d.reason.find("by the next 2 coast-downs (their mean)"), std::string::npos) << d.reason;
+  // Aimed at the next only (the profile's "next"), or with no cycle known: the change to the next alone.
+  for (bool next_only : {true, false}) {
+    Profile q = p;
+    if (next_only) q.warm_up.anticipate_for = WarmUp::AnticipateFor::next;
+    WarmingOutlook o2 = o;
+    if (!next_only) o2.cycle_s = 0.0;
+    asked_to.clear();
+    SettingMethodState m2(q, target);
+    const Decision d2 = m2.on_coastdown(set, simulated, false, &o2);
+    ASSERT_TRUE(d2.anticipation.used);
+    EXPECT_EQ(asked_to, std::vector<double>{1520.0});
+    EXPECT_NEAR(d2.anticipation.change_n, closed(1300.0, 1520.0), 1e-12);
+    EXPECT_EQ(d2.anticipation.aimed, 1);
+  }
+  // The fixed-run final setting aims at its verification runs: one here, so the next coast-down only.
+  Profile f = wltp(SettingMethod::fixed_run);
+  f.warm_up.anticipate_for = WarmUp::AnticipateFor::passes;
+  f.fixed_run_verification_runs = 1;
+  SettingMethodState fm(f, target);
+  WarmingOutlook of = o;
+  Decision fd;
+  for (int i = 0; i < f.fixed_runs; ++i) {
+    of.now_s = 1000.0 + 250.0 * i;
+    of.next_s = of.now_s + 250.0;
+    fd = fm.on_coastdown(set, simulated, false, &of);
+  }
+  ASSERT_TRUE(fm.verifying());
+  ASSERT_TRUE(fd.anticipation.used) << fd.anticipation.why;
+  EXPECT_EQ(fd.anticipation.aimed, 1);
+  // Two verification runs: both aimed at.
+  f.fixed_run_verification_runs = 2;
+  SettingMethodState fm2(f, target);
+  for (int i = 0; i < f.fixed_runs; ++i) {
+    of.now_s = 1000.0 + 250.0 * i;
+    of.next_s = of.now_s + 250.0;
+    fd = fm2.on_coastdown(set, simulated, false, &of);
+  }
+  ASSERT_TRUE(fd.anticipation.used) << fd.anticipation.why;
+  EXPECT_EQ(fd.anticipation.aimed, 2);
+  EXPECT_DOUBLE_EQ(fd.anticipation.to_last_s, of.next_s + 250.0);
 }
 
 TEST(Setting, AnAnticipationOutsideItsBoundsIsNotUsedAndSaysWhy) {
