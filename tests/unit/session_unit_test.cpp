@@ -14,6 +14,7 @@
 
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
+#include "core/combination.hpp"
 #include "record/verify.hpp"
 #include "registry.hpp"
 #include "report/report.hpp"
@@ -1348,4 +1349,42 @@ TEST(SessionUnit, EveryFixedRunRunWhoseLossIsUsedNamesItsBasis) {
   ASSERT_NE(verify, runs.end());
   EXPECT_NEAR(verify->set.f0_n, expect.f0_n, 0.06);  // the written set is rounded to the profile's decimals
   EXPECT_NEAR(verify->set.f2_n_per_kmh2, expect.f2_n_per_kmh2, 1e-5);
+}
+
+// The cell's motoring-time limit (limits.max_motoring_s: one continuous motoring period) is checked again while
+// the session runs, on the controller's clock, after each setting is written and before its run-up: a session
+// that has motored longer than the limit starts no further coast-down and stops, not accepted, with the rollers
+// stopped (the planned time against the limit, before anything moves: policy_test and combination_test). The
+// limit is the least the cell may state for this profile, its planned motoring (by hand: 120 s warm-up + 5 map
+// speeds x (4 s settle + 4 s average + 30 s ramp) = 310 s), and the tolerance one no coast-down meets (0.001 N),
+// so that only the limit can end the session. The motoring period starts when the warm-up's hold is reached: the
+// warm-up's end minus its 120 s.
+TEST(SessionUnit, TheCellsMotoringTimeLimitStartsNoFurtherCoastDown) {
+  FakeController c(loadtrim::testing::demo_truth());
+  session::Inputs in = inputs();
+  in.profile.tolerance_n = 0.001;
+  in.cell.max_motoring_s = core::planned_motoring_s(in.profile);
+  ASSERT_DOUBLE_EQ(in.cell.max_motoring_s, 310.0);
+  Recorder record(true);
+  std::vector<double> warm_up_ends, started, written;
+  Hook hook([&](const session::Event& e) {
+    if (!e.stamp || !e.stamp->t_s) return;
+    const std::string t = session::type_of(e);
+    if (t == "warm_up_ended") warm_up_ends.push_back(*e.stamp->t_s);
+    if (t == "coastdown_started") started.push_back(*e.stamp->t_s);
+    if (t == "set_written") written.push_back(*e.stamp->t_s);
+  });
+  session::Session s(in, options(), c, {&record, &hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::not_accepted) << sum.stop_reason;
+  EXPECT_NE(sum.stop_reason.find("motoring-time limit of 310 s was reached"), std::string::npos)
+      << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+  EXPECT_TRUE(c.sent(Mode::controlled_stop));
+  ASSERT_EQ(warm_up_ends.size(), 1u);
+  const double from = warm_up_ends[0] - in.profile.warm_up.duration_s;
+  ASSERT_FALSE(started.empty());
+  ASSERT_EQ(written.size(), started.size() + 1) << "the last setting written is never coasted";
+  for (double t : started) EXPECT_LE(t - from, 310.0) << "a coast-down started after the limit";
+  EXPECT_GT(written.back() - from, 310.0);
 }
