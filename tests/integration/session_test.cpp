@@ -171,8 +171,8 @@ struct VehicleRun {
 // release of five sessions missed the 120 s rule after the warm-up (CI of 2026-12-04; on an idle 2-core host
 // the sanitized tool's gap was 33 s of controller time, 30.5 s of it the driver's run-up: the rest was the
 // load). These tests are about the run-up, so the profile keeps a late first release with a finding
-// (timing.late_start = "finding", as the fleet and soak tests do); the rule itself is tested at controller
-// speed in SessionUnit.
+// (timing.late_start = "finding": the test profile in tests/data does so itself now, and the helper keeps it as
+// it is); the rule itself is tested on the fake controller's clock in SessionUnit.
 VehicleRun vehicle_session(std::vector<std::string> sim_args, const std::string& name) {
   const char* scale = std::getenv("LOADTRIM_TEST_VEHICLE_TIME_SCALE");
   sim_args.insert(sim_args.end(), {"--time-scale", scale && *scale ? scale : "1000"});
