@@ -236,11 +236,10 @@ TEST(DynoChecksCli, PlantedParasiticExcessFailsTheDeterminationAndBlocksSessions
   // host's reasons must not end the session (the 120 s rule itself: session_unit_test).
   std::ofstream(dir + "/profile.toml")
       << loadtrim::testing::profile_keeping_late_release(kSrc + "/config/profiles/wltp-iterative.toml");
-  const Ran over =
-      tool({"run", "--cell", kCell, "--port", std::to_string(car.port()), "--target",
-            kSrc + "/samples/targets/demo-hatchback.toml", "--profile", dir + "/profile.toml", "--checks", dir,
-            "--sessions", sessions,
-            "--unattended", "--quiet", "--override-checks", "bearing replaced, re-check booked"});
+  const Ran over = tool({"run", "--cell", kCell, "--port", std::to_string(car.port()), "--target",
+                         kSrc + "/samples/targets/demo-hatchback.toml", "--profile", dir + "/profile.toml",
+                         "--checks", dir, "--sessions", sessions, "--unattended", "--quiet",
+                         "--override-checks", "bearing replaced, re-check booked"});
   EXPECT_EQ(over.rc, 0) << over.out << over.err;
   bool logged = false;
   for (const auto& d : fs::directory_iterator(sessions)) {

@@ -99,22 +99,22 @@ TEST_P(FaultMatrix, ExitsAsDocumentedWithTheRollersStopped) {
   loadtrim::testing::SimProcess sim(sim_args);
   std::string dir = (fs::temp_directory_path() / "loadtrim-fault-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
-  // The shipped profile with a late first release kept (a finding): at 200x the 120 s rule after the warm-up is
-  // 0.6 s of the tool's wall time, and a release late for the host's reasons (a sanitized build beside other
-  // tests) must not use the unusable runs a row's fault needs. The rule itself: session_unit_test.
+  // The shipped profile with a late first release kept (a finding): at 200x the 120 s rule after the warm-up
+  // is 0.6 s of the tool's wall time, and a release late for the host's reasons (a sanitized build beside
+  // other tests) must not use the unusable runs a row's fault needs. The rule itself: session_unit_test.
   const std::string profile = dir + "/profile.toml";
-  std::ofstream(profile) << loadtrim::testing::profile_keeping_late_release(kSrc +
-                                                                            "/config/profiles/wltp-iterative.toml");
+  std::ofstream(profile) << loadtrim::testing::profile_keeping_late_release(
+      kSrc + "/config/profiles/wltp-iterative.toml");
   std::string out;
-  const int rc = run_tool(
-      {"run", "--override-checks", "integration test against the simulator", "--cell",
-       kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
-       kSrc + "/samples/targets/demo-hatchback.toml", "--profile", profile, "--sessions", dir, "--unattended",
-       "--rewarm-s", "120",
-       // No loss map: its coasts are road load too and would take the faults meant for the coast-downs (the
-       // map's coasts under faults: session_unit_test, SessionUnitCoasts).
-       "--first-setting", "standard"},
-      row.env, out);
+  const int rc =
+      run_tool({"run", "--override-checks", "integration test against the simulator", "--cell",
+                kSrc + "/config/cells/sim-tcp.toml", "--port", std::to_string(sim.port()), "--target",
+                kSrc + "/samples/targets/demo-hatchback.toml", "--profile", profile, "--sessions", dir,
+                "--unattended", "--rewarm-s", "120",
+                // No loss map: its coasts are road load too and would take the faults meant for the
+                // coast-downs (the map's coasts under faults: session_unit_test, SessionUnitCoasts).
+                "--first-setting", "standard"},
+               row.env, out);
   EXPECT_EQ(rc, row.exit_code) << out;
   std::string folder;
   for (const auto& e : fs::directory_iterator(dir))

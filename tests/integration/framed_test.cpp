@@ -144,11 +144,12 @@ TEST(Framed, TheFourDynoChecksPass) {
   SimProcess sim_a(sim_args), sim_b(sim_args);
   const std::string cell = cell_polling_at(dir, kControllerHz * scale);
   // The inertia check accelerates the rollers under a set force until the tool turns it: its own simulator at
-  // a fifth of the scale (20x, 8x sanitized), as tests/integration/checks_test.cpp's accel_scale() explains. At
-  // 100x, on a host loaded by a build beside the suite, the check was refused a speed hold for a latched fault
-  // after its fourth force step (observed, not traced further; at 3 mph/s, the top rate of
-  // config/checks/cfr1066.toml, from the 69.2 km/h turn-round checks_test names to the cell's 158 km/h trip is 18.4 s of
-  // controller time: 0.18 s of the tool's wall time at 100x, 0.9 s at 20x; 1 mph = 1.609344 km/h, NIST SP 811).
+  // a fifth of the scale (20x, 8x sanitized), as tests/integration/checks_test.cpp's accel_scale() explains.
+  // At 100x, on a host loaded by a build beside the suite, the check was refused a speed hold for a latched
+  // fault after its fourth force step (observed, not traced further; at 3 mph/s, the top rate of
+  // config/checks/cfr1066.toml, from the 69.2 km/h turn-round checks_test names to the cell's 158 km/h trip
+  // is 18.4 s of controller time: 0.18 s of the tool's wall time at 100x, 0.9 s at 20x; 1 mph = 1.609344
+  // km/h, NIST SP 811).
   const double accel_scale = scale / 5.0;
   const std::vector<std::string> accel_sim_args = {
       "--framed-table", kCell, "--empty-rollers", "--time-scale", std::to_string(accel_scale),
@@ -157,16 +158,11 @@ TEST(Framed, TheFourDynoChecksPass) {
   fs::create_directories(dir + "/c");
   const std::string accel_cell = cell_polling_at(dir + "/c", kControllerHz * accel_scale);
   auto args = [&](const std::string& kind, const SimProcess& sim, const std::string& checks) {
-    return std::vector<std::string>{"check",
-                                    kind,
-                                    "--cell",
-                                    kind == "inertia" ? accel_cell : cell,
-                                    "--port",
-                                    std::to_string(sim.port()),
-                                    "--checks",
-                                    checks,
-                                    "--unattended",
-                                    "--json"};
+    return std::vector<std::string>{"check",        kind,
+                                    "--cell",       kind == "inertia" ? accel_cell : cell,
+                                    "--port",       std::to_string(sim.port()),
+                                    "--checks",     checks,
+                                    "--unattended", "--json"};
   };
   std::vector<std::string> parasitic_argv = args("parasitic", sim_a, dir + "/a");
   parasitic_argv.insert(parasitic_argv.begin(), LOADTRIM_EXE);
@@ -174,8 +170,8 @@ TEST(Framed, TheFourDynoChecksPass) {
   std::vector<std::pair<std::string, Ran>> ran;
   for (const std::string kind : {"coastdown", "readiness"})
     ran.emplace_back(kind, tool(args(kind, sim_b, dir + "/b")));
-  // With the tests' short check profile (one set per rate pair, as checks_test's inertia rows; the verdict says
-  // it is fewer than the text's): the full counts are checked on the physics model in dyno_checks_test.
+  // With the tests' short check profile (one set per rate pair, as checks_test's inertia rows; the verdict
+  // says it is fewer than the text's): the full counts are checked on the physics model in dyno_checks_test.
   std::vector<std::string> inertia_argv = args("inertia", sim_c, dir + "/c");
   inertia_argv.insert(inertia_argv.end(), {"--profile", kSrc + "/tests/data/checks-short.toml"});
   ran.emplace_back("inertia", tool(inertia_argv));

@@ -171,8 +171,8 @@ struct VehicleRun {
 // release of five sessions missed the 120 s rule after the warm-up (CI of 2026-12-04; on an idle 2-core host
 // the sanitized tool's gap was 33 s of controller time, 30.5 s of it the driver's run-up: the rest was the
 // load). These tests are about the run-up, so the profile keeps a late first release with a finding
-// (timing.late_start = "finding": the test profile in tests/data does so itself now, and the helper keeps it as
-// it is); the rule itself is tested on the fake controller's clock in SessionUnit.
+// (timing.late_start = "finding": the test profile in tests/data does so itself now, and the helper keeps it
+// as it is); the rule itself is tested on the fake controller's clock in SessionUnit.
 VehicleRun vehicle_session(std::vector<std::string> sim_args, const std::string& name) {
   const char* scale = std::getenv("LOADTRIM_TEST_VEHICLE_TIME_SCALE");
   sim_args.insert(sim_args.end(), {"--time-scale", scale && *scale ? scale : "1000"});
@@ -396,8 +396,9 @@ TEST(SessionCli, LinkDroppedMidCoastdownIsRepeated) {
       {"--time-scale", "200", "--watchdog-ms", "1000", "--drop-in-mode", "ROADLOAD", "--drop-after-s", "40"});
   const std::string dir = temp_dir("drop");
   write(dir + "/cell.toml", cell_text(sim.port(), "single-axle", 100.0, 2500));
-  // The shipped profile with a late first release kept (a finding): at 200x the injected drop already uses one of
-  // the three unusable runs a session allows, and a release late for the host's reasons must not use the others.
+  // The shipped profile with a late first release kept (a finding): at 200x the injected drop already uses
+  // one of the three unusable runs a session allows, and a release late for the host's reasons must not use
+  // the others.
   write(dir + "/profile.toml",
         loadtrim::testing::profile_keeping_late_release(kSrc + "/config/profiles/wltp-iterative.toml"));
   std::string out, err;

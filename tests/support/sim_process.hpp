@@ -16,8 +16,9 @@ namespace loadtrim::testing {
 // The text of the profile file at `path` with a late first release kept with a finding (timing.late_start =
 // "finding", docs/standards.md §3.6) instead of repeated. For tests that run a simulator at a high time scale
 // and are not about that rule: at 200x, 0.6 s of a loaded host's wall time is 120 s of controller time (the
-// rule itself is tested at controller speed in SessionUnit). A profile that already keeps it (the test profiles
-// in tests/data) is returned as it is. Throws when the file cannot be read or says something else of late_start.
+// rule itself is tested at controller speed in SessionUnit). A profile that already keeps it (the test
+// profiles in tests/data) is returned as it is. Throws when the file cannot be read or says something else of
+// late_start.
 std::string profile_keeping_late_release(const std::string& path);
 
 class SimProcess {

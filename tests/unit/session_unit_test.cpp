@@ -35,8 +35,8 @@ session::Inputs inputs() {
   in.cell = config::load_cell(kSrc + "/config/cells/sim-tcp.toml", adapters::production().sections());
   in.profile = config::load_profile(kSrc + "/tests/data/wltp-iterative-short-warmup.toml");
   // The test profile keeps a late first release with a finding (for the process tests on a loaded host); here
-  // time is the fake controller's, so the shipped profiles' policy applies: a late first release is repeated, and
-  // a session whose releases were all wrongly judged late could not end accepted.
+  // time is the fake controller's, so the shipped profiles' policy applies: a late first release is repeated,
+  // and a session whose releases were all wrongly judged late could not end accepted.
   in.profile.late_start = core::Profile::LateStart::repeat;
   in.vehicle = config::load_target(kSrc + "/samples/targets/demo-hatchback.toml");
   return in;
@@ -89,7 +89,8 @@ TEST(SessionUnit, AnHonestControllerIsAcceptedAndTheRollersEndStopped) {
   // The first release met the 120 s rule after the warm-up (EU SA4 §8.1.2-8.1.3, docs/standards.md §3.6): the
   // fake controller's run-up from the 80 km/h warm-up to the 142 km/h start takes well under it.
   EXPECT_TRUE(std::find(record.types.begin(), record.types.end(), "timing") != record.types.end());
-  EXPECT_TRUE(std::find(record.types.begin(), record.types.end(), "timing_rule_missed") == record.types.end());
+  EXPECT_TRUE(std::find(record.types.begin(), record.types.end(), "timing_rule_missed") ==
+              record.types.end());
 }
 
 TEST(SessionUnit, AThrowingViewIsDroppedAndTheSessionGoesOn) {
@@ -1359,14 +1360,14 @@ TEST(SessionUnit, EveryFixedRunRunWhoseLossIsUsedNamesItsBasis) {
   EXPECT_NEAR(verify->set.f2_n_per_kmh2, expect.f2_n_per_kmh2, 1e-5);
 }
 
-// The cell's motoring-time limit (limits.max_motoring_s: one continuous motoring period) is checked again while
-// the session runs, on the controller's clock, after each setting is written and before its run-up: a session
-// that has motored longer than the limit starts no further coast-down and stops, not accepted, with the rollers
-// stopped (the planned time against the limit, before anything moves: policy_test and combination_test). The
-// limit is the least the cell may state for this profile, its planned motoring (by hand: 120 s warm-up + 5 map
-// speeds x (4 s settle + 4 s average + 30 s ramp) = 310 s), and the tolerance one no coast-down meets (0.001 N),
-// so that only the limit can end the session. The motoring period starts when the warm-up's hold is reached: the
-// warm-up's end minus its 120 s.
+// The cell's motoring-time limit (limits.max_motoring_s: one continuous motoring period) is checked again
+// while the session runs, on the controller's clock, after each setting is written and before its run-up: a
+// session that has motored longer than the limit starts no further coast-down and stops, not accepted, with
+// the rollers stopped (the planned time against the limit, before anything moves: policy_test and
+// combination_test). The limit is the least the cell may state for this profile, its planned motoring (by
+// hand: 120 s warm-up + 5 map speeds x (4 s settle + 4 s average + 30 s ramp) = 310 s), and the tolerance one
+// no coast-down meets (0.001 N), so that only the limit can end the session. The motoring period starts when
+// the warm-up's hold is reached: the warm-up's end minus its 120 s.
 TEST(SessionUnit, TheCellsMotoringTimeLimitStartsNoFurtherCoastDown) {
   FakeController c(loadtrim::testing::demo_truth());
   session::Inputs in = inputs();
