@@ -115,6 +115,17 @@ Problems validate(const Profile& p) {
     ps.push_back({Problem::Severity::error, "limits.max_coastdowns",
                   "must be at least method.fixed_runs + method.fixed_run_verification_runs (" +
                       std::to_string(p.fixed_runs + p.fixed_run_verification_runs) + ")"});
+  // docs/standards.md §3.12: with no verification run, the coast-downs "require" holds while the vehicle
+  // settles can only confirm or reject the fixed-run final setting (which carries no warming anticipation,
+  // §3.16).
+  if (p.method == SettingMethod::fixed_run && p.fixed_run_verification_runs == 0 &&
+      p.warm_up.drift_rule == WarmUp::DriftRule::require)
+    ps.push_back(
+        {Problem::Severity::warning, "warm_up.drift_rule",
+         "is \"require\" with method.fixed_run_verification_runs = 0: the coast-downs held while the "
+         "vehicle settles can only confirm or reject the fixed-run final setting, never improve it, and "
+         "that setting anticipates no warming (docs/standards.md §3.12, §3.16); a vehicle still warming "
+         "may end the session rejected. Ask for at least one verification run (1 to 5)"});
   return ps;
 }
 

@@ -523,6 +523,60 @@ TEST(SessionUnit, TheLossMapsFirstSettingAnticipatesTheWarmingToTheFirstCoastDow
   EXPECT_NEAR(first->set.f2_n_per_kmh2, expect_set.f2_n_per_kmh2, 1e-12);
 }
 
+// The report's sentence for the first setting's anticipation (docs/standards.md §3.16), aimed at the two
+// consecutive passes (warm_up.anticipate_for = "passes", GTR 15 §8.1.3.4.2): it states the share, the change,
+// the span and the mean over the passes with the last one's time, each as the record has it (rounded as
+// printed). The truth of the test above (still warming after a 600 s warm-up, so the anticipation is used).
+TEST(SessionUnit, TheReportStatesTheFirstSettingsAnticipationAimedAtThePasses) {
+  namespace fs = std::filesystem;
+  physics::Truth truth = loadtrim::testing::demo_truth();
+  truth.vehicle.drivetrain_cold_excess = 1.5;
+  truth.vehicle.warm_up_time_constant_s = 1000.0;
+  truth.vehicle.initial_warmth = 0.0;
+  FakeController c(truth);
+  std::string dir = (fs::temp_directory_path() / "loadtrim-aimed-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  const std::string folder = dir + "/session";
+  fs::create_directories(folder);
+  std::optional<session::ev::FirstSetting> first;
+  {
+    session::RecordWriter writer(folder);
+    Hook hook([&](const session::Event& e) {
+      if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) first = *f;
+    });
+    session::Inputs in = inputs();
+    in.profile.warm_up.duration_s = 600.0;
+    in.profile.warm_up.stable_window_s = 30.0;
+    in.profile.warm_up.anticipate_drift = true;
+    in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;
+    session::Options o = options();
+    o.first_setting = core::FirstSetting::loss_map;
+    session::Session s(in, o, c, {&writer, &hook});
+    s.run();
+  }
+  ASSERT_TRUE(first && first->anticipation);
+  const core::Anticipation& a = *first->anticipation;
+  ASSERT_TRUE(a.used) << a.why;
+  ASSERT_EQ(a.aimed, 2);
+  EXPECT_GT(a.to_last_s, a.to_s);
+  const auto files = report::write_report(folder, "test");
+  ASSERT_TRUE(files.ok) << files.error;
+  std::ifstream html(files.html);
+  const std::string page((std::istreambuf_iterator<char>(html)), {});
+  char ratio[32], change[32], from[32], to[32], last[32];
+  std::snprintf(ratio, sizeof ratio, "%.4f", a.ratio);
+  std::snprintf(change, sizeof change, "%.1f", a.change_n);
+  std::snprintf(from, sizeof from, "%.0f", a.from_s);
+  std::snprintf(to, sizeof to, "%.0f", a.to_s);
+  std::snprintf(last, sizeof last, "%.0f", a.to_last_s);
+  const std::string sentence = std::string("the map's loss scaled by 1 + ") + ratio + " (a change of " +
+                               change + " N predicted at the warm-up speed from " + from + " s to " + to +
+                               " s, the mean over the 2 coast-downs it must pass, the last at " + last +
+                               " s)";
+  EXPECT_NE(page.find(sentence), std::string::npos) << sentence;
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
 TEST(SessionUnit, TheShippedLeversReachTheSettingsAndTheRecord) {
   // docs/standards.md §3.16 (warm_up.anticipate_for = "passes") and §3.17 (method.adjust_from =
   // "whole-trace"), as the shipped profiles set them, through the session: the truth of the tests above

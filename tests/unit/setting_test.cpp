@@ -405,3 +405,32 @@ TEST(Setting, ProfileValidationReportsEveryProblem) {
   EXPECT_TRUE(has("warm_up.stable_by"));
   EXPECT_TRUE(validate(wltp(SettingMethod::iterative)).empty());
 }
+
+// docs/standards.md §3.12: with the fixed-run method, no verification run and warm_up.drift_rule = "require",
+// the held coast-downs can only confirm or reject the final setting. The profile loads with a warning naming
+// the key (the combination is allowed: a lab may choose it), and not for the iterative method, nor with one
+// verification run.
+TEST(Setting, FixedRunRequireWithoutVerificationIsWarnedAtLoad) {
+  auto warnings_on = [](const Profile& p, const std::string& key) {
+    int n = 0;
+    for (const auto& q : validate(p)) {
+      EXPECT_EQ(q.severity, Problem::Severity::warning) << q.key << ": " << q.message;
+      n += q.key == key;
+    }
+    return n;
+  };
+  Profile p = wltp(SettingMethod::fixed_run);
+  p.warm_up.drift_rule = WarmUp::DriftRule::require;
+  p.fixed_run_verification_runs = 0;
+  EXPECT_EQ(warnings_on(p, "warm_up.drift_rule"), 1);
+  EXPECT_FALSE(has_errors(validate(p)));
+  p.fixed_run_verification_runs = 1;
+  EXPECT_EQ(warnings_on(p, "warm_up.drift_rule"), 0);
+  p.fixed_run_verification_runs = 0;
+  p.warm_up.drift_rule = WarmUp::DriftRule::warn;
+  EXPECT_EQ(warnings_on(p, "warm_up.drift_rule"), 0);
+  Profile it = wltp(SettingMethod::iterative);
+  it.warm_up.drift_rule = WarmUp::DriftRule::require;
+  it.fixed_run_verification_runs = 0;
+  EXPECT_EQ(warnings_on(it, "warm_up.drift_rule"), 0);
+}
