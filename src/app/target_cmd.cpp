@@ -188,7 +188,8 @@ nlohmann::json coef(const core::RoadLoad& c) {
 
 int run_target(const TargetOptions& o) {
   const std::string pfile = profile_file(o.profile);
-  const core::Profile profile = config::load_profile(pfile);
+  core::Problems profile_warnings;  // the profile file's own (printed with its name; in the JSON with "file")
+  const core::Profile profile = config::load_profile(pfile, &profile_warnings);
   std::string source, mro_basis;
   core::VehicleTarget v = build(o, profile, source, mro_basis);
   if (v.profile.empty()) v.profile = profile.name;
@@ -330,6 +331,8 @@ int run_target(const TargetOptions& o) {
     warnings.push_back({{"severity", p.severity == core::Problem::Severity::error ? "error" : "warning"},
                         {"key", p.key},
                         {"message", p.message}});
+  for (const auto& p : profile_warnings)
+    warnings.push_back({{"severity", "warning"}, {"key", p.key}, {"message", p.message}, {"file", pfile}});
 
   std::string written;
   if (!o.out.empty()) {
@@ -424,6 +427,7 @@ int run_target(const TargetOptions& o) {
                     i["note"].get<std::string>().c_str());
     }
     if (!found.empty()) std::cerr << config::format_problems(o.from.empty() ? "target" : o.from, found);
+    if (!profile_warnings.empty()) std::cerr << config::format_problems(pfile, profile_warnings);
     if (!written.empty()) std::printf("\nwritten: %s (read back: identical)\n", written.c_str());
   }
   return errors ? kBadInput : kAccepted;

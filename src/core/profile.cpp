@@ -115,17 +115,21 @@ Problems validate(const Profile& p) {
     ps.push_back({Problem::Severity::error, "limits.max_coastdowns",
                   "must be at least method.fixed_runs + method.fixed_run_verification_runs (" +
                       std::to_string(p.fixed_runs + p.fixed_run_verification_runs) + ")"});
-  // docs/standards.md §3.12: with no verification run, the coast-downs "require" holds while the vehicle
-  // settles can only confirm or reject the fixed-run final setting (which carries no warming anticipation,
-  // §3.16).
-  if (p.method == SettingMethod::fixed_run && p.fixed_run_verification_runs == 0 &&
-      p.warm_up.drift_rule == WarmUp::DriftRule::require)
-    ps.push_back(
-        {Problem::Severity::warning, "warm_up.drift_rule",
-         "is \"require\" with method.fixed_run_verification_runs = 0: the coast-downs held while the "
-         "vehicle settles can only confirm or reject the fixed-run final setting, never improve it, and "
-         "that setting anticipates no warming (docs/standards.md §3.12, §3.16); a vehicle still warming "
-         "may end the session rejected. Ask for at least one verification run (1 to 5)"});
+  // docs/standards.md §3.12, §3.16: with the fixed-run method the coast-downs "require" holds while the
+  // vehicle settles can only confirm or reject the final setting, never improve it; that setting anticipates
+  // the warming only with warm_up.anticipate_drift and at least one verification run (aimed at those runs,
+  // not at later held ones).
+  if (p.method == SettingMethod::fixed_run && p.warm_up.drift_rule == WarmUp::DriftRule::require &&
+      (p.fixed_run_verification_runs == 0 || !p.warm_up.anticipate_drift))
+    ps.push_back({Problem::Severity::warning, "warm_up.drift_rule",
+                  std::string("is \"require\" with the fixed-run method and ") +
+                      (p.fixed_run_verification_runs == 0 ? "method.fixed_run_verification_runs = 0"
+                                                          : "warm_up.anticipate_drift = false") +
+                      ": the coast-downs held while the vehicle settles can only confirm or reject the final "
+                      "setting, never improve it, and that setting anticipates no warming (docs/standards.md "
+                      "§3.12, §3.16); a vehicle still warming may end the session rejected. At least one "
+                      "verification run with warm_up.anticipate_drift = true reduces that risk, it does not "
+                      "remove it"});
   return ps;
 }
 

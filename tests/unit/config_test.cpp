@@ -227,6 +227,24 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
   EXPECT_NE(aim.find("warm_up.anticipate_for (line 12): is \"all\", allowed \"next\", \"passes\""),
             std::string::npos)
       << aim;
+  // A fixed-run profile with drift_rule "require" and no verification run loads, with one warning on the key
+  // and its line (docs/standards.md §3.12): the held coast-downs can only confirm or reject the final
+  // setting.
+  core::Problems held;
+  const auto fixed = config::parse_profile(
+      "name = \"p\"\n[bands]\nreference_speeds_kmh = [20, 30, 40]\nhalf_width_kmh = 5.0\n[acceptance]\n"
+      "tolerance_n = 10.0\n[run]\nrun_up_margin_kmh = 10.0\n[method]\nkind = \"fixed-run\"\n"
+      "fixed_run_verification_runs = 0\n[warm_up]\ndrift_rule = \"require\"\n",
+      "held.toml", &held);
+  EXPECT_EQ(fixed.method, core::SettingMethod::fixed_run);
+  ASSERT_EQ(held.size(), 1u) << config::format_problems("held.toml", held);
+  EXPECT_EQ(held[0].severity, core::Problem::Severity::warning);
+  const std::string held_text = config::format_problems("held.toml", held);
+  EXPECT_NE(
+      held_text.find("held.toml: warning: warm_up.drift_rule (line 13): is \"require\" with the fixed-run "
+                     "method and method.fixed_run_verification_runs = 0"),
+      std::string::npos)
+      << held_text;
   // A crossing window in km/h in a profile whose speeds are in mph is refused, not ignored.
   const std::string mixed = refusal([] {
     config::parse_profile(

@@ -7,9 +7,12 @@
 #include <gtest/gtest.h>
 
 #include <algorithm>
+#include <cstdio>
+#include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <functional>
+#include <optional>
 #include <stdexcept>
 
 #include "config/cell_loader.hpp"
@@ -536,6 +539,7 @@ TEST(SessionUnit, TheReportStatesTheFirstSettingsAnticipationAimedAtThePasses) {
   FakeController c(truth);
   std::string dir = (fs::temp_directory_path() / "loadtrim-aimed-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
+  SCOPED_TRACE("session folder kept under " + dir);
   const std::string folder = dir + "/session";
   fs::create_directories(folder);
   std::optional<session::ev::FirstSetting> first;

@@ -406,11 +406,12 @@ TEST(Setting, ProfileValidationReportsEveryProblem) {
   EXPECT_TRUE(validate(wltp(SettingMethod::iterative)).empty());
 }
 
-// docs/standards.md §3.12: with the fixed-run method, no verification run and warm_up.drift_rule = "require",
-// the held coast-downs can only confirm or reject the final setting. The profile loads with a warning naming
-// the key (the combination is allowed: a lab may choose it), and not for the iterative method, nor with one
-// verification run.
-TEST(Setting, FixedRunRequireWithoutVerificationIsWarnedAtLoad) {
+// docs/standards.md §3.12, §3.16: with the fixed-run method and warm_up.drift_rule = "require", the held
+// coast-downs can only confirm or reject the final setting, which anticipates the warming only with
+// warm_up.anticipate_drift and at least one verification run. Without either, validation warns on the key
+// (the combination is allowed: a lab may choose it); not with both, not with "warn", not for the iterative
+// method.
+TEST(Setting, FixedRunRequireWithoutAnticipationIsWarned) {
   auto warnings_on = [](const Profile& p, const std::string& key) {
     int n = 0;
     for (const auto& q : validate(p)) {
@@ -421,13 +422,16 @@ TEST(Setting, FixedRunRequireWithoutVerificationIsWarnedAtLoad) {
   };
   Profile p = wltp(SettingMethod::fixed_run);
   p.warm_up.drift_rule = WarmUp::DriftRule::require;
+  p.warm_up.anticipate_drift = true;
   p.fixed_run_verification_runs = 0;
   EXPECT_EQ(warnings_on(p, "warm_up.drift_rule"), 1);
   EXPECT_FALSE(has_errors(validate(p)));
   p.fixed_run_verification_runs = 1;
   EXPECT_EQ(warnings_on(p, "warm_up.drift_rule"), 0);
-  p.fixed_run_verification_runs = 0;
+  p.warm_up.anticipate_drift = false;
+  EXPECT_EQ(warnings_on(p, "warm_up.drift_rule"), 1);
   p.warm_up.drift_rule = WarmUp::DriftRule::warn;
+  p.fixed_run_verification_runs = 0;
   EXPECT_EQ(warnings_on(p, "warm_up.drift_rule"), 0);
   Profile it = wltp(SettingMethod::iterative);
   it.warm_up.drift_rule = WarmUp::DriftRule::require;
