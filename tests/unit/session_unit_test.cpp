@@ -295,13 +295,22 @@ TEST(SessionUnit, AFirstSettingOutsideTheEnvelopeFallsBackToTheStandard) {
 }
 
 namespace {
-// The demo truth starting cold and warming slowly: cold excess 1.0 of the spin loss, τ = 400 s.
-physics::Truth slowly_warming_truth() {
+// The demo truth starting cold (textbook first-order warming): the drivetrain's cold excess, a multiple of
+// its spin loss, decays with time constant tau_s. warming_truth(1.0, 400.0) warms slowly; warming_truth(1.5,
+// 1000.0) (spin loss 30 + 0.0028·v² N) is still warming after a 600 s warm-up.
+physics::Truth warming_truth(double cold_excess, double tau_s) {
   physics::Truth t = loadtrim::testing::demo_truth();
-  t.vehicle.drivetrain_cold_excess = 1.0;
-  t.vehicle.warm_up_time_constant_s = 400.0;
+  t.vehicle.drivetrain_cold_excess = cold_excess;
+  t.vehicle.warm_up_time_constant_s = tau_s;
   t.vehicle.initial_warmth = 0.0;
   return t;
+}
+// The test profile with a 600 s warm-up held in 30 s windows (the warming curve is fitted across them).
+session::Inputs long_warm_up_inputs() {
+  session::Inputs in = inputs();
+  in.profile.warm_up.duration_s = 600.0;
+  in.profile.warm_up.stable_window_s = 30.0;
+  return in;
 }
 }  // namespace
 
@@ -314,15 +323,13 @@ TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
   // finding on page one; "require": coasting goes on at the accepted setting until the estimate is under the
   // threshold.
   for (const auto rule : {core::WarmUp::DriftRule::warn, core::WarmUp::DriftRule::require}) {
-    FakeController c(slowly_warming_truth());
+    FakeController c(warming_truth(1.0, 400.0));
     Recorder record(true);
     std::vector<session::ev::WarmUpDrift> drifts;
     Hook hook([&](const session::Event& e) {
       if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) drifts.push_back(*d);
     });
-    session::Inputs in = inputs();
-    in.profile.warm_up.duration_s = 600.0;
-    in.profile.warm_up.stable_window_s = 30.0;
+    session::Inputs in = long_warm_up_inputs();
     in.profile.warm_up.drift_rule = rule;
     in.profile.warm_up.drift_threshold_n = 2.0;
     in.profile.max_coastdowns = 20;
@@ -362,7 +369,7 @@ TEST(SessionUnit, AFixedRunFinalSettingHeldWhileTheVehicleSettlesIsCoastedNeverA
   // 37.8·e^(−1.75) ≈ 6.6 N still to come, above the 2 N threshold (by hand). Every coast-down after run 4 is
   // at the final setting computed from runs 2..4, is recorded as checking it, and the setting accepted at the
   // end is that one.
-  FakeController c(slowly_warming_truth());
+  FakeController c(warming_truth(1.0, 400.0));
   Recorder record(true);
   std::vector<session::CoastdownRecord> runs;
   std::vector<session::ev::WarmUpDrift> drifts;
@@ -423,10 +430,7 @@ TEST(SessionUnit, TheAdjustmentAnticipatesTheWarmingOfASlowlyWarmingVehicle) {
   // lands nearer the target. The curve's prediction over its own span matches the truth's closed form within
   // 25 % (the fit's time origin is the warm-up hold, a run-up after motoring began: common practice, no
   // source).
-  physics::Truth truth = loadtrim::testing::demo_truth();
-  truth.vehicle.drivetrain_cold_excess = 1.5;
-  truth.vehicle.warm_up_time_constant_s = 1000.0;
-  truth.vehicle.initial_warmth = 0.0;
+  physics::Truth truth = warming_truth(1.5, 1000.0);
   double mean_dev[2] = {0.0, 0.0};
   core::Anticipation used;
   for (int anticipate = 0; anticipate < 2; ++anticipate) {
@@ -436,9 +440,7 @@ TEST(SessionUnit, TheAdjustmentAnticipatesTheWarmingOfASlowlyWarmingVehicle) {
     Hook hook([&](const session::Event& e) {
       if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload)) runs.push_back(d->record);
     });
-    session::Inputs in = inputs();
-    in.profile.warm_up.duration_s = 600.0;
-    in.profile.warm_up.stable_window_s = 30.0;
+    session::Inputs in = long_warm_up_inputs();
     in.profile.warm_up.anticipate_drift = anticipate == 1;
     session::Session s(in, options(), c, {&record, &hook});
     const auto sum = s.run();
@@ -481,10 +483,7 @@ TEST(SessionUnit, TheLossMapsFirstSettingAnticipatesTheWarmingToTheFirstCoastDow
   // warming): the change recorded matches it within 25 % over the recorded span, the span starts inside the
   // map and ends after it, and the record's loss and set are the map's loss scaled by 1 + ratio (set =
   // target − loss, GTR 15 §8.1.4's form).
-  physics::Truth truth = loadtrim::testing::demo_truth();
-  truth.vehicle.drivetrain_cold_excess = 1.5;
-  truth.vehicle.warm_up_time_constant_s = 1000.0;
-  truth.vehicle.initial_warmth = 0.0;
+  physics::Truth truth = warming_truth(1.5, 1000.0);
   FakeController c(truth);
   Recorder record(true);
   std::optional<session::ev::FirstSetting> first;
@@ -494,9 +493,7 @@ TEST(SessionUnit, TheLossMapsFirstSettingAnticipatesTheWarmingToTheFirstCoastDow
     if (std::holds_alternative<session::ev::LossMapPoint>(e.payload))
       map_t.push_back(e.stamp && e.stamp->t_s ? *e.stamp->t_s : -1.0);
   });
-  session::Inputs in = inputs();
-  in.profile.warm_up.duration_s = 600.0;
-  in.profile.warm_up.stable_window_s = 30.0;
+  session::Inputs in = long_warm_up_inputs();
   in.profile.warm_up.anticipate_drift = true;
   session::Options o = options();
   o.first_setting = core::FirstSetting::loss_map;
@@ -532,10 +529,7 @@ TEST(SessionUnit, TheLossMapsFirstSettingAnticipatesTheWarmingToTheFirstCoastDow
 // printed). The truth of the test above (still warming after a 600 s warm-up, so the anticipation is used).
 TEST(SessionUnit, TheReportStatesTheFirstSettingsAnticipationAimedAtThePasses) {
   namespace fs = std::filesystem;
-  physics::Truth truth = loadtrim::testing::demo_truth();
-  truth.vehicle.drivetrain_cold_excess = 1.5;
-  truth.vehicle.warm_up_time_constant_s = 1000.0;
-  truth.vehicle.initial_warmth = 0.0;
+  physics::Truth truth = warming_truth(1.5, 1000.0);
   FakeController c(truth);
   std::string dir = (fs::temp_directory_path() / "loadtrim-aimed-XXXXXX").string();
   ASSERT_TRUE(::mkdtemp(dir.data()));
@@ -548,9 +542,7 @@ TEST(SessionUnit, TheReportStatesTheFirstSettingsAnticipationAimedAtThePasses) {
     Hook hook([&](const session::Event& e) {
       if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) first = *f;
     });
-    session::Inputs in = inputs();
-    in.profile.warm_up.duration_s = 600.0;
-    in.profile.warm_up.stable_window_s = 30.0;
+    session::Inputs in = long_warm_up_inputs();
     in.profile.warm_up.anticipate_drift = true;
     in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;
     session::Options o = options();
@@ -587,10 +579,7 @@ TEST(SessionUnit, TheShippedLeversReachTheSettingsAndTheRecord) {
   // (still warming after a 600 s warm-up). Each adjusted setting is target − basis-loss·(1 + ratio), the loss
   // taken from the curve the record names (GTR 15 §8.1.4's form with the lab's basis and share), aimed at the
   // two consecutive passes a cycle apart (GTR 15 §8.1.3.4.2); the loss map's first setting likewise.
-  physics::Truth truth = loadtrim::testing::demo_truth();
-  truth.vehicle.drivetrain_cold_excess = 1.5;
-  truth.vehicle.warm_up_time_constant_s = 1000.0;
-  truth.vehicle.initial_warmth = 0.0;
+  physics::Truth truth = warming_truth(1.5, 1000.0);
   for (const bool map : {false, true}) {
     FakeController c(truth);
     Recorder record(true);
@@ -600,9 +589,7 @@ TEST(SessionUnit, TheShippedLeversReachTheSettingsAndTheRecord) {
       if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload)) runs.push_back(d->record);
       if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) first = *f;
     });
-    session::Inputs in = inputs();
-    in.profile.warm_up.duration_s = 600.0;
-    in.profile.warm_up.stable_window_s = 30.0;
+    session::Inputs in = long_warm_up_inputs();
     in.profile.warm_up.anticipate_drift = true;
     in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;
     in.profile.adjust_from = core::Profile::AdjustFrom::whole_trace;
@@ -662,7 +649,7 @@ TEST(SessionUnit, AWarmUpEndedOnTheWarmingTrendWaitsForTheDriftAWindowRuleMisses
   double held[2] = {0.0, 0.0};
   std::string stability[2];
   for (int k = 0; k < 2; ++k) {
-    FakeController c(slowly_warming_truth());
+    FakeController c(warming_truth(1.0, 400.0));
     Recorder record(true);
     Hook hook([&](const session::Event& e) {
       if (const auto* h = std::get_if<session::ev::WarmUpHeld>(&e.payload)) {
