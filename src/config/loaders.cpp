@@ -29,7 +29,7 @@ core::Profile read_profile(TomlReader& r) {
       p.reference_speeds_kmh.push_back(core::units::mph_to_kmh(v));
     p.band_half_width_kmh = core::units::mph_to_kmh(r.number("bands.half_width_mph", 0.5, 7.0, "mph"));
     p.crossing_fit_half_width_kmh = core::units::mph_to_kmh(
-        r.number_or("bands.crossing_fit_half_width_mph", core::units::kmh_to_mph(2.5), 0.6, 6.2, "mph"));
+        r.number_or("bands.crossing_fit_half_width_mph", core::units::kmh_to_mph(2.5), 0.63, 6.2, "mph"));
   } else {
     p.reference_speeds_kmh = r.numbers("bands.reference_speeds_kmh", 1.0, 250.0, "km/h");
     p.band_half_width_kmh = r.number("bands.half_width_kmh", 1.0, 10.0, "km/h");

@@ -45,11 +45,11 @@ std::string profile_keeping_late_release(const std::string& path) {
   std::stringstream text;
   text << in.rdbuf();
   std::string profile = text.str();
-  const std::string repeat = "late_start = \"repeat\"";
+  const std::string repeat = "\nlate_start = \"repeat\"";  // the key at the start of a line, not in a comment
   // The test profiles keep it already (the key at the start of a line: a comment naming it does not count).
   if (profile.find("\nlate_start = \"finding\"") != std::string::npos) return profile;
   if (const auto at = profile.find(repeat); at != std::string::npos)
-    return profile.replace(at, repeat.size(), "late_start = \"finding\"");
+    return profile.replace(at, repeat.size(), "\nlate_start = \"finding\"");
   if (profile.find("late_start") != std::string::npos || profile.find("[timing]") != std::string::npos)
     throw std::runtime_error("the profile " + path + " has a [timing] table this helper does not know");
   return profile + "\n[timing]\nlate_start = \"finding\"\n";

@@ -255,4 +255,16 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
         "mixed.toml");
   });
   EXPECT_NE(mixed.find("give speeds in km/h or in mph, not both"), std::string::npos) << mixed;
+  // The crossing window in mph is refused below 0.63 mph under its own key and line: 0.62 mph is 0.998 km/h,
+  // below the 1 km/h the km/h key allows (1 mph = 1.609344 km/h exactly, NIST SP 811).
+  const std::string narrow = refusal([] {
+    config::parse_profile(
+        "name = \"p\"\n[bands]\nreference_speeds_mph = [15, 20, 25]\nhalf_width_mph = 2.5\n"
+        "crossing_fit_half_width_mph = 0.62\n[acceptance]\ntolerance_n = 10.0\n[run]\nrun_up_margin_kmh = "
+        "10.0\n[method]\nkind = \"iterative\"\n",
+        "narrow.toml");
+  });
+  EXPECT_NE(narrow.find("bands.crossing_fit_half_width_mph (line 5): is 0.62, allowed 0.63 to 6.2 mph"),
+            std::string::npos)
+      << narrow;
 }

@@ -506,6 +506,9 @@ TEST(SessionUnit, TheLossMapsFirstSettingAnticipatesTheWarmingToTheFirstCoastDow
   const core::Anticipation& a = *first->anticipation;
   ASSERT_TRUE(a.used) << a.why;
   ASSERT_GE(map_t.size(), 2u);
+  // 30 s: one hold window (warm_up.stable_window_s above), the curve's time resolution: the span starts no
+  // more than a window before the map's first point and inside the map, and ends more than a window later (a
+  // run-up and half a coast-down later, by construction).
   EXPECT_GT(a.from_s + a.epoch_s, map_t.front() - 30.0);
   EXPECT_LT(a.from_s + a.epoch_s, map_t.back());
   EXPECT_GT(a.to_s, a.from_s + 30.0);
