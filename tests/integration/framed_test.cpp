@@ -157,22 +157,21 @@ TEST(Framed, TheFourDynoChecksPass) {
   SimProcess sim_c(accel_sim_args);
   fs::create_directories(dir + "/c");
   const std::string accel_cell = cell_polling_at(dir + "/c", kControllerHz * accel_scale);
-  auto args = [&](const std::string& kind, const SimProcess& sim, const std::string& checks) {
-    return std::vector<std::string>{"check",        kind,
-                                    "--cell",       kind == "inertia" ? accel_cell : cell,
-                                    "--port",       std::to_string(sim.port()),
-                                    "--checks",     checks,
-                                    "--unattended", "--json"};
+  auto args = [](const std::string& kind, const SimProcess& sim, const std::string& checks,
+                 const std::string& cell_file) {
+    return std::vector<std::string>{
+        "check",    kind,   "--cell",       cell_file, "--port", std::to_string(sim.port()),
+        "--checks", checks, "--unattended", "--json"};
   };
-  std::vector<std::string> parasitic_argv = args("parasitic", sim_a, dir + "/a");
+  std::vector<std::string> parasitic_argv = args("parasitic", sim_a, dir + "/a", cell);
   parasitic_argv.insert(parasitic_argv.begin(), LOADTRIM_EXE);
   process::ChildProcess parasitic(parasitic_argv);
   std::vector<std::pair<std::string, Ran>> ran;
   for (const std::string kind : {"coastdown", "readiness"})
-    ran.emplace_back(kind, tool(args(kind, sim_b, dir + "/b")));
+    ran.emplace_back(kind, tool(args(kind, sim_b, dir + "/b", cell)));
   // With the tests' short check profile (one set per rate pair, as checks_test's inertia rows; the verdict
   // says it is fewer than the text's): the full counts are checked on the physics model in dyno_checks_test.
-  std::vector<std::string> inertia_argv = args("inertia", sim_c, dir + "/c");
+  std::vector<std::string> inertia_argv = args("inertia", sim_c, dir + "/c", accel_cell);
   inertia_argv.insert(inertia_argv.end(), {"--profile", kSrc + "/tests/data/checks-short.toml"});
   ran.emplace_back("inertia", tool(inertia_argv));
   Ran p;
