@@ -75,6 +75,11 @@ struct Strategy {
   std::string name;
   core::FirstSetting first;
   bool history = false;  // a second session of the same vehicle after a first (loss-map) one
+  // The history's two levers (docs/store.md, "The history first setting"), each turned off in a row of its
+  // own so that its contribution is measured side by side: the loss from the first session's last measured
+  // curve (off: target − accepted set) and the day-to-day scale from the two warm-ups.
+  bool history_measured = true;
+  bool history_day_scale = true;
 };
 
 // Controller time spent in each part of a session, s.
@@ -134,7 +139,10 @@ class Phases : public session::Observer {
     have_ = true;
     last_t_ = t;
     state_ = e.stamp->state;
-    if (std::holds_alternative<session::ev::WarmUpHeld>(e.payload)) in_map_ = true;
+    if (const auto* held = std::get_if<session::ev::WarmUpHeld>(&e.payload)) {
+      in_map_ = true;
+      if (!warm_up) warm_up = core::WarmUpRecord{held->speed_kmh, held->windows};
+    }
     if (std::holds_alternative<session::ev::WarmUpStarted>(e.payload)) in_map_ = false;
     if (std::holds_alternative<session::ev::WarmUpEnded>(e.payload)) {
       in_map_ = false;
@@ -148,6 +156,7 @@ class Phases : public session::Observer {
   bool seen = false;
   double warm_end_cell_s = 0.0;
   TimeSplit split;
+  std::optional<core::WarmUpRecord> warm_up;  // the first warm-up hold, as its record keeps it
 
  private:
   bool have_ = false, in_map_ = false;
@@ -394,7 +403,10 @@ int run_bench(BenchOptions o) {
   const std::vector<Strategy> strategies = {{"standard", core::FirstSetting::standard},
                                             {"fleet", core::FirstSetting::fleet},
                                             {"loss-map", core::FirstSetting::loss_map},
-                                            {"history", core::FirstSetting::history, true}};
+                                            {"history", core::FirstSetting::history, true},
+                                            {"history-no-day-scale", core::FirstSetting::history, true, true, false},
+                                            {"history-target-less-set", core::FirstSetting::history, true, false,
+                                             false}};
   // The iterative profile with the drift rule "require" (docs/standards.md §3.12): the vehicle must be stable
   // at acceptance; measured for the default first setting (the loss map) only.
   core::Profile iterative_require = iterative;
@@ -470,7 +482,7 @@ int run_bench(BenchOptions o) {
     const core::Profile* profile;
     std::vector<std::size_t> strategies;  // indices into `strategies`
   };
-  const std::vector<Method> methods = {{"iterative", &iterative, {0, 1, 2, 3}},
+  const std::vector<Method> methods = {{"iterative", &iterative, {0, 1, 2, 3, 4, 5}},
                                        {"fixed-run", &fixed, {0, 1, 2, 3}},
                                        {"iterative-require", &iterative_require, {2}},
                                        {"iterative-stable-warm-up", &iterative_stable, {2}},
@@ -514,6 +526,11 @@ int run_bench(BenchOptions o) {
         core::HistoryEntry h;
         h.target = v.target.target;
         h.final_set = *s1.summary.final_set;
+        // As the store gives it: the last measured curve of an iterative session only, and the first
+        // session's first warm-up hold as its record keeps it.
+        if (prof.method == core::SettingMethod::iterative && st.history_measured)
+          h.measured = s1.summary.measured;
+        if (st.history_day_scale) h.warm_up = s1.phases.warm_up;
         opt.history = h;
       }
       truth = &v.truth_day2;
@@ -804,11 +821,23 @@ int run_bench(BenchOptions o) {
              : "");
   {
     const double limit = harsh ? 0.01 : 0.001;
-    double worst = 0.0, worst_n = 0.0;
-    std::string where;
+    // Judged over the methods and first-setting strategies as shipped (the iterative and fixed-run profiles,
+    // the four strategies); the rows that turn a lever off or try a lab policy are shown beside it.
+    auto is_shipped = [&](const std::string& method, const std::string& name) {
+      return (method == "iterative" || method == "fixed-run") &&
+             std::any_of(strategies.begin(), strategies.begin() + 4,
+                         [&](const Strategy& st) { return st.name == name; });
+    };
+    double worst = 0.0, worst_n = 0.0, any = 0.0;
+    std::string where, any_where;
     for (const auto& [method, strat] : mr.items())
       for (const auto& [name, row] : strat.items()) {
         const double share = row["truly_outside_last_coastdown_share"];
+        if (share >= any) {
+          any = share;
+          any_where = method + " " + name;
+        }
+        if (!is_shipped(method, name)) continue;
         if (share >= worst) {
           worst = share;
           where = method + " " + name;
@@ -817,10 +846,12 @@ int run_bench(BenchOptions o) {
       }
     std::printf(
         "  accepted but truly outside +-10 N at the last coast-down's state <= %.1f %% of sessions, every "
-        "strategy and method\n    measured: at most %.2f %% (%s), worst %.2f N   %s\n",
-        100 * limit, 100 * worst, where.c_str(), worst_n, yes(worst <= limit));
+        "strategy and method as shipped\n    measured: at most %.2f %% (%s), worst %.2f N   %s\n"
+        "    (every row, with the levers turned off and the lab-policy rows: at most %.2f %%, %s)\n",
+        100 * limit, 100 * worst, where.c_str(), worst_n, yes(worst <= limit), 100 * any, any_where.c_str());
     report["goals"]["truly_outside_last_coastdown"] = {
-        {"limit_share", limit}, {"worst_share", worst}, {"where", where}, {"met", worst <= limit}};
+        {"limit_share", limit}, {"worst_share", worst},         {"where", where},
+        {"met", worst <= limit}, {"every_row_worst_share", any}, {"every_row_where", any_where}};
     double warm = 0.0;
     for (const auto& key : {"iterative", "fixed-run"})
       for (const auto& [name, row] : mr[key].items())

@@ -158,10 +158,15 @@ std::optional<core::HistoryEntry> load_history(const std::string& file) {
 }
 
 void save_history(const std::string& file, const core::VehicleTarget& v, const session::Summary& s,
-                  const std::string& folder) {
+                  const std::string& folder, core::SettingMethod method) {
   if (!s.final_set) return;
   std::string err;
-  if (!record::save_vehicle_history(file, v.id, folder, v.target, *s.final_set, err))
+  // The last measured curve only from an iterative session, whose last coast-down is at the accepted
+  // setting (docs/store.md, "The history first setting").
+  // Its first warm-up hold, read back from the record, for the next session's day-to-day correction.
+  if (!record::save_vehicle_history(file, v.id, folder, v.target, *s.final_set, err,
+                                    method == core::SettingMethod::iterative ? s.measured : std::nullopt,
+                                    record::first_warm_up_of(folder)))
     std::cerr << "history not saved: " << err << "\n";
 }
 
@@ -352,6 +357,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   } connect_seen;
   observers.push_back(&connect_seen);
   const controller::CellConfig cell = inputs.cell;
+  const core::SettingMethod method = inputs.profile.method;
   session::Session s(std::move(inputs), opt, *c, observers, &g_stop);
   session::Summary sum;
   {
@@ -388,7 +394,7 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   if (session::is_final(sum.outcome) && !seal_session(folder, cell, writer.summary(), key, req.checks_dir,
                                                       req.console == session::Console::Mode::json))
     sum.outcome = session::Outcome::record_failure;
-  if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder);
+  if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder, method);
   // Every session ends with its report (from the record alone, so it shows what an auditor would see).
   const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION, req.csv);
   if (!rep.ok)

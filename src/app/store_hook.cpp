@@ -271,7 +271,8 @@ HistoryFound find_history(const record::DataRoot& root, const std::string& cell,
     b.where = history_file;
     b.source_cell = cell;
     b.same_cell = true;
-    b.note = "the history file of this vehicle on this cell: not corrected";
+    b.note = "the history file of this vehicle on this cell: not corrected; " +
+             core::history_loss_note(out.entry->measured.has_value());
     out.entry->basis = std::move(b);
   }
   lookup["note"] = why_not_store + "; the history file was read" + (out.entry ? "" : ": no entry there");

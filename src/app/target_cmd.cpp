@@ -261,6 +261,8 @@ int run_target(const TargetOptions& o) {
                                      .target_file_set = std::nullopt,  // each strategy, not the file's set
                                      .fleet = std::move(fleet),
                                      .history = hist,
+                                     // no warm-up here: the session scales the history by its own
+                                     .warm_up_today = std::nullopt,
                                      .loss_map = {},
                                      .coast_points = {}};
   auto choice = [&](core::FirstSetting f) {

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdio>
 #include <map>
 
 #include "core/setting.hpp"
@@ -213,9 +214,13 @@ std::optional<HistoryEntry> history_from_store(const std::string& this_cell,
                std::to_string(used.size()) + " vehicle(s) run on both cells";
     }
   }
+  b.note += "; " + history_loss_note(from->measured.has_value());
   h.utc = from->utc;
   h.target = from->target;
   h.final_set = from->final_set;
+  h.measured = from->measured;
+  // The day-to-day correction compares warm-ups on the same cell only (another dyno's hold reads its own).
+  if (b.same_cell) h.warm_up = from->warm_up;
   b.session_id = from->id;
   b.session_folder = from->folder;
   b.source_cell = from->cell;
@@ -223,6 +228,69 @@ std::optional<HistoryEntry> history_from_store(const std::string& this_cell,
   b.correction = h.correction;
   h.basis = std::move(b);
   return h;
+}
+
+DayScale day_to_day_scale(const WarmUpRecord& then, const WarmUpRecord& now) {
+  DayScale d;
+  char buf[200];
+  if (!std::isfinite(then.speed_kmh) || !std::isfinite(now.speed_kmh) ||
+      std::abs(then.speed_kmh - now.speed_kmh) > kDayScaleSpeedKmh) {
+    std::snprintf(buf, sizeof buf, "the warm-ups were held at %.1f and %.1f km/h (not the same speed)",
+                  then.speed_kmh, now.speed_kmh);
+    d.why = buf;
+    return d;
+  }
+  auto last_t = [](const WarmUpRecord& r) {
+    double t = -1.0;
+    for (const auto& w : r.windows)
+      if (std::isfinite(w.t_s) && std::isfinite(w.force_n)) t = std::max(t, w.t_s);
+    return t;
+  };
+  d.at_s = std::min(last_t(then), last_t(now));
+  if (!(d.at_s >= kDayScaleMinHeldS)) {
+    std::snprintf(buf, sizeof buf, "a warm-up's windows end before %.0f s", kDayScaleMinHeldS);
+    d.why = buf;
+    d.at_s = 0.0;
+    return d;
+  }
+  auto mean_near = [&](const WarmUpRecord& r, int& count) {
+    double sum = 0.0;
+    count = 0;
+    for (const auto& w : r.windows)
+      if (std::isfinite(w.t_s) && std::isfinite(w.force_n) && w.t_s > d.at_s - kDayScaleSpanS &&
+          w.t_s <= d.at_s) {
+        sum += w.force_n;
+        ++count;
+      }
+    return count > 0 ? sum / count : 0.0;
+  };
+  d.then_n = mean_near(then, d.windows_then);
+  d.now_n = mean_near(now, d.windows_now);
+  if (d.windows_then < 2 || d.windows_now < 2) {
+    std::snprintf(buf, sizeof buf, "fewer than two windows in the last %.0f s of a warm-up", kDayScaleSpanS);
+    d.why = buf;
+    return d;
+  }
+  if (!(d.then_n > 0.0) || !(d.now_n > 0.0)) {
+    d.why = "a warm-up's mean force is not positive";
+    return d;
+  }
+  const double r = d.now_n / d.then_n;
+  if (!(r >= kDayScaleMin && r <= kDayScaleMax)) {
+    std::snprintf(buf, sizeof buf, "today's warm-up force is %.3f times the earlier one's (outside %.2f to %.2f)",
+                  r, kDayScaleMin, kDayScaleMax);
+    d.why = buf;
+    return d;
+  }
+  d.used = true;
+  d.ratio = r;
+  return d;
+}
+
+std::string history_loss_note(bool measured) {
+  return measured ? "its loss as measured at its last coast-down (that curve less the accepted setting)"
+                  : "its loss as target − accepted set (no measured curve: only an iterative session's is "
+                    "used)";
 }
 
 FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
@@ -234,12 +302,25 @@ FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
     return c;
   }
   const bool fleet_ok = in.fleet && in.fleet->ok();
+  // The history's loss, scaled by the day-to-day correction when it can be made.
+  auto history_loss = [&] {
+    c.loss = in.history->loss();
+    c.history_basis = in.history->basis;
+    DayScale d;
+    if (!in.warm_up_today)
+      d.why = "this session's warm-up not given";
+    else if (!in.history->warm_up)
+      d.why = "the earlier session's warm-up not recorded (or on another cell)";
+    else
+      d = day_to_day_scale(*in.history->warm_up, *in.warm_up_today);
+    if (d.used) c.loss = c.loss->scaled(d.ratio);
+    c.day_scale = std::move(d);
+  };
   auto fallback = [&](const std::string& reason) {
     c.why += (c.why.empty() ? "" : "; ") + reason;
     if (in.history) {
       c.used = to_string(FirstSetting::history);
-      c.loss = in.history->loss();
-      c.history_basis = in.history->basis;
+      history_loss();
     } else if (fleet_ok) {
       c.used = to_string(FirstSetting::fleet);
       c.loss = in.fleet->estimate(in.test_mass_kg, in.layout);
@@ -260,9 +341,8 @@ FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
       break;
     case FirstSetting::history:
       if (in.history) {
-        c.loss = in.history->loss();
+        history_loss();
         c.history_utc = in.history->utc;
-        c.history_basis = in.history->basis;
       } else {
         fallback("no earlier accepted session of this vehicle");
       }

@@ -13,6 +13,7 @@
 #include "core/regression.hpp"
 #include "core/road_load.hpp"
 #include "core/setting.hpp"
+#include "core/warm_up_drift.hpp"
 
 namespace loadtrim::core {
 
@@ -100,6 +101,33 @@ struct HoldPlan {
 };
 HoldPlan plan_hold_points(const LossMap& map, double from_kmh, double speed_limit_kmh);
 
+// A session's first warm-up hold as its record keeps it (the "warm_up" record's windows): the speed and each
+// stability window's mean force, at the window's middle in time since the warm-up began.
+struct WarmUpRecord {
+  double speed_kmh = 0.0;
+  std::vector<DriftPoint> windows;
+};
+
+// The history's day-to-day correction (docs/store.md, "The history first setting"; our rule, no source): the
+// vehicle's loss on the same cell changes from day to day (tyre pressure and temperature, oil), and today's
+// warm-up hold sees that change before any coast-down. The two warm-ups are compared at the same time since
+// their start: t = the end of the shorter, each as the mean of its windows in (t − kDayScaleSpanS, t]; the
+// history's loss is scaled by today's mean over the earlier one's.
+inline constexpr double kDayScaleSpanS = 180.0;          // three one-minute windows (our choice, no source)
+inline constexpr double kDayScaleMinHeldS = 600.0;       // both warm-ups held at least 10 min (our choice)
+inline constexpr double kDayScaleSpeedKmh = 0.5;         // the same warm-up speed within this
+inline constexpr double kDayScaleMin = 0.8, kDayScaleMax = 1.25;  // a larger change is not the same state
+struct DayScale {
+  bool used = false;
+  std::string why;       // when not used: why ("" when used)
+  double ratio = 1.0;    // today's mean over the earlier one's (1 when not used)
+  double at_s = 0.0;     // the time since the warm-up began the two were compared at
+  double then_n = 0.0;   // the earlier session's mean there
+  double now_n = 0.0;    // today's
+  int windows_then = 0, windows_now = 0;
+};
+DayScale day_to_day_scale(const WarmUpRecord& then, const WarmUpRecord& now);
+
 // (d) History: the loss seen in earlier sessions of the vehicle (target − accepted set): on the same cell as
 // it is; from another cell, corrected by what the lab's record store knows about the two cells
 // (docs/store.md, "The history first setting"; our rule, no source).
@@ -111,7 +139,13 @@ struct StoredSession {
   std::string cell, vehicle;
   std::string utc;  // when it started (record 0), ISO 8601 UTC: sorts as text
   RoadLoad target, final_set;
-  RoadLoad loss() const { return target - final_set; }
+  // The curve its last coast-down measured at final_set; the store gives it only for an iterative session,
+  // whose last coast-down is always at the accepted setting (nullopt otherwise, and for an older row).
+  std::optional<RoadLoad> measured;
+  std::optional<WarmUpRecord> warm_up;  // read from its verified folder (nullopt: none recorded)
+  // The loss on the rollers where the session ended: the measured curve less the setting it was measured
+  // at when known (what the standard's adjustment would carry on from), else target − final_set.
+  RoadLoad loss() const { return measured ? *measured - final_set : target - final_set; }
 };
 // A vehicle accepted on two cells: its latest accepted session on each.
 struct CellPair {
@@ -139,10 +173,16 @@ struct HistoryEntry {
   std::string utc;
   RoadLoad target;
   RoadLoad final_set;
-  RoadLoad correction;  // the cell correction (zero when the session was on this cell)
+  std::optional<RoadLoad> measured;      // as StoredSession::measured
+  std::optional<WarmUpRecord> warm_up;  // its first warm-up hold (nullopt: not recorded, or another cell)
+  RoadLoad correction;                  // the cell correction (zero when the session was on this cell)
   std::optional<HistoryBasis> basis;
-  RoadLoad loss() const { return target - final_set + correction; }
+  RoadLoad loss() const { return (measured ? *measured - final_set : target - final_set) + correction; }
 };
+// How a history loss was obtained, for the basis' note: "its loss as measured at its last coast-down" or
+// "its loss as target − accepted set (...)" (docs/store.md, "The history first setting").
+std::string history_loss_note(bool measured);
+
 // The history estimate from the record store, for `vehicle_sessions` (accepted sessions of the vehicle, any
 // cell, any order) on `this_cell`, with `pairs` (vehicles accepted on this cell and another, there.cell the
 // other; any order). The rule (docs/store.md):
@@ -168,6 +208,7 @@ struct FirstSettingInputs {
   std::optional<RoadLoad> target_file_set;      // vehicle.initial_set: overrides every strategy
   std::optional<FleetLossModel> fleet;          // used only when ok()
   std::optional<HistoryEntry> history;          // this vehicle on this cell
+  std::optional<WarmUpRecord> warm_up_today;    // this session's warm-up hold (the history's day scale)
   std::vector<HoldPoint> loss_map;              // measured at the end of the warm-up (empty: not measured)
   std::vector<CoastPoint> coast_points;         // the coasts between the holds (empty: none)
   bool coasts_asked = false;                    // the profile asked for them: the record says what came of it
@@ -182,6 +223,7 @@ struct FirstSettingChoice {
   std::optional<std::string> history_utc;  // only when history was requested and used
   std::optional<HistoryBasis>
       history_basis;  // whenever the history's loss was used and says where it is from
+  std::optional<DayScale> day_scale;  // whenever the history's loss was used: its day-to-day correction
   std::optional<RoadLoad> map_fit;
   std::optional<double> map_residual_sd_n;
   std::optional<CoastCorrection> coast_correction;  // when coast points were given with a loss map
@@ -193,8 +235,9 @@ struct FirstSettingChoice {
 // - A target file's initial set is used as given ("target-file").
 // - standard: Ad = k0·At, Bd = k1·Bt, Cd = k2·Ct (standard_initial_setting with the layout and rule).
 // - fleet: target − fleet.estimate(TM, layout) when the model is ok(); else standard, why "no fleet data".
-// - history: target − history.loss(); without history, the fallback below, why "no earlier accepted session
-//   of this vehicle".
+// - history: target − history.loss(), the loss scaled by day_to_day_scale(history.warm_up, warm_up_today)
+//   when both are given and it is used (day_scale says why not otherwise); without history, the fallback
+//   below, why "no earlier accepted session of this vehicle".
 // - loss-map: target − fit_loss_map(points) when the fit is ok, less the coast correction d when coasts were
 //   asked for and it fits (else the map as it is, the correction's why recorded); else the fallback, why "no
 //   loss map (not measured)" or "no loss map (<the fit's message>)".

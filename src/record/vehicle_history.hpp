@@ -1,10 +1,11 @@
 // The vehicle history: per cell and vehicle, the target and the accepted final setting of the latest accepted
 // session, which the "history" first-setting strategy (core/strategy.hpp) turns into a loss estimate. One
 // JSON file per vehicle: <dir>/<identity_name(cell)>/<safe_name(vehicle id)>.json with the members utc,
-// vehicle, session, target and final_set (road loads as {"f0_n", "f1_n_per_kmh", "f2_n_per_kmh2"}, the
+// vehicle, session, target, final_set and, from an iterative session, measured (road loads as {"f0_n", "f1_n_per_kmh", "f2_n_per_kmh2"}, the
 // spelling of session::to_json; docs/records.md). Storage only: what is stored and when is the caller's.
 #pragma once
 
+#include <nlohmann/json.hpp>
 #include <optional>
 #include <string>
 
@@ -21,8 +22,19 @@ std::string vehicle_history_file(const std::string& dir, const std::string& cell
 // or lacks a member.
 std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, std::string* error = nullptr);
 
-// Writes the entry durably (creating the folders), utc = now. False with `error` when it cannot.
+// Writes the entry durably (creating the folders), utc = now; `measured` (the last coast-down's curve at
+// final_set, given only for an iterative session) as the member "measured" and `warm_up` (the session's first
+// warm-up hold) as "warm_up" {"speed_kmh", "windows": [{"t_s", "force_n"}]} when given. False with `error`
+// when it cannot.
 bool save_vehicle_history(const std::string& file, const std::string& vehicle_id, const std::string& session,
-                          const core::RoadLoad& target, const core::RoadLoad& final_set, std::string& error);
+                          const core::RoadLoad& target, const core::RoadLoad& final_set, std::string& error,
+                          const std::optional<core::RoadLoad>& measured = std::nullopt,
+                          const std::optional<core::WarmUpRecord>& warm_up = std::nullopt);
+
+// A "warm_up" record's (or the history file's "warm_up" member's) speed and windows; nullopt when it has no
+// windows or any is not a pair of numbers (a record written before the windows were kept).
+std::optional<core::WarmUpRecord> warm_up_from_json(const nlohmann::json& r);
+// The first "warm_up" record of a session folder's events.jsonl (nullopt: none, or the log cannot be read).
+std::optional<core::WarmUpRecord> first_warm_up_of(const std::string& folder);
 
 }  // namespace loadtrim::record

@@ -105,6 +105,13 @@ nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
 
 // The warming anticipated in a setting (docs/standards.md §3.16): enough to recompute it (the setting is
 // target − loss·(1 + ratio)) and to check the change against the curve (A·(e^(−to/τ) − e^(−from/τ))).
+// The warm-up's stability windows as [{"t_s", "force_n"}, ...].
+nlohmann::json drift_points_json(const std::vector<core::DriftPoint>& points) {
+  nlohmann::json out = nlohmann::json::array();
+  for (const auto& p : points) out.push_back({{"t_s", p.t_s}, {"force_n", p.force_n}});
+  return out;
+}
+
 nlohmann::json anticipation_json(const core::Anticipation& a) {
   nlohmann::json curve = nlohmann::json::object();
   if (a.curve.ok)
@@ -218,7 +225,8 @@ struct Mapper {
             {"stability", e.stability},
             {"stability_threshold_n", e.stability_threshold_n},
             {"last_window_force_n",
-             e.last_window_force_n ? nlohmann::json(*e.last_window_force_n) : nlohmann::json(nullptr)}};
+             e.last_window_force_n ? nlohmann::json(*e.last_window_force_n) : nlohmann::json(nullptr)},
+            {"windows", drift_points_json(e.windows)}};
   }
   nlohmann::json operator()(const ev::LossMapSkipped& e) const { return {{"why", e.why}}; }
   nlohmann::json operator()(const ev::LossMapPointSkipped& e) const {
@@ -263,6 +271,13 @@ struct Mapper {
                                     {"why", k.why}};
     }
     if (e.anticipation) inputs["anticipation"] = anticipation_json(*e.anticipation);
+    if (e.day_scale) {
+      const core::DayScale& d = *e.day_scale;
+      inputs["history_day_scale"] = {{"used", d.used},       {"why", d.why},
+                                     {"ratio", d.ratio},     {"at_s", d.at_s},
+                                     {"then_n", d.then_n},   {"now_n", d.now_n},
+                                     {"windows_then", d.windows_then}, {"windows_now", d.windows_now}};
+    }
     if (e.history) {
       const core::HistoryBasis& b = *e.history;
       nlohmann::json pairs = nlohmann::json::array();

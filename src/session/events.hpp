@@ -192,6 +192,9 @@ struct WarmUpHeld {  // "warm_up"
   std::string stability;
   double stability_threshold_n = 0.0;
   std::optional<double> last_window_force_n;  // null when no stability window completed
+  // Every stability window of this hold: its middle in time since the warm-up began (first motoring at its
+  // speed) and its mean force; the history's day-to-day correction compares a later session's with these.
+  std::vector<core::DriftPoint> windows;
 };
 struct LossMapSkipped {  // "loss_map_skipped"
   std::string why;
@@ -238,6 +241,9 @@ struct FirstSetting {   // "first_setting"
   std::optional<core::CoastCorrection> coast_correction;
   // The warming the map's setting anticipates (written as inputs.anticipation; docs/standards.md §3.16).
   std::optional<core::Anticipation> anticipation;
+  // The history's day-to-day correction (written as inputs.history_day_scale whenever the history's loss was
+  // used; docs/store.md, "The history first setting").
+  std::optional<core::DayScale> day_scale;
 };
 struct EnvelopeRefused {  // "envelope_refused"
   int run = 0;

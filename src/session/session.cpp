@@ -368,6 +368,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   const double t0 = t_now_;
   // Hold for the time, keeping the load-cell force of the last stability window.
   std::vector<double> window_means;
+  std::vector<core::DriftPoint> windows;  // this hold's, for its record
   double sum = 0.0;
   int n = 0;
   double window_start = t0;
@@ -380,6 +381,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         if (s.time_s - window_start >= w.stable_window_s) {
           window_means.push_back(sum / std::max(1, n));
           drift_points_.push_back({0.5 * (window_start + s.time_s) - drift_t0_, window_means.back()});
+          windows.push_back(drift_points_.back());
           sum = 0.0;
           n = 0;
           window_start = s.time_s;
@@ -408,7 +410,8 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
                       : stable                 ? "stable"
                                                : "not stable within the extra time",
                       w.stable_within_n,
-                      window_means.empty() ? std::nullopt : std::optional<double>(window_means.back())});
+                      window_means.empty() ? std::nullopt : std::optional<double>(window_means.back()),
+                      std::move(windows)});
   if (measure_loss_map) {
     loss_map_.clear();
     coast_points_.clear();
@@ -1148,6 +1151,11 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
                                          .target_file_set = in_.vehicle.initial_set,
                                          .fleet = opt_.fleet,
                                          .history = opt_.history,
+                                         .warm_up_today =
+                                             drift_points_.empty()
+                                                 ? std::nullopt
+                                                 : std::optional<core::WarmUpRecord>(core::WarmUpRecord{
+                                                       p.warm_up.speed_kmh, drift_points_}),
                                          .loss_map = loss_map_,
                                          .coast_points = coast_points_,
                                          .coasts_asked = p.loss_map.coast_between_holds && !loss_map_.empty(),
@@ -1245,7 +1253,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     if (!emit(ev::FirstSetting{core::to_string(opt_.first_setting), c.used, c.why, set_, c.history_utc,
                                c.map_fit, c.map_residual_sd_n, c.loss, c.history_basis,
                                history_involved ? opt_.history_lookup : nlohmann::json(), c.coast_correction,
-                               c.anticipation}))
+                               c.anticipation, c.day_scale}))
       stop = Stop{Outcome::record_failure, record_error_};
   }
   while (!stop) {

@@ -9,8 +9,9 @@ namespace loadtrim::store {
 
 namespace {
 
-core::StoredSession to_core(const AcceptedSession& a) {
-  return {a.name, a.folder, a.cell, a.vehicle, a.started_utc, a.target, a.final_set};
+core::StoredSession to_core(const AcceptedSession& a,
+                            const std::optional<core::WarmUpRecord>& warm_up = std::nullopt) {
+  return {a.name, a.folder, a.cell, a.vehicle, a.started_utc, a.target, a.final_set, a.measured, warm_up};
 }
 
 // Each folder verified at most once per lookup (a session on this cell may pair with several other cells).
@@ -18,18 +19,29 @@ class FolderChecks {
  public:
   FolderChecks(const record::VerifyOptions& options, std::vector<HistoryRowNotUsed>& not_used)
       : options_(options), not_used_(not_used) {}
-  bool usable(const AcceptedSession& a) {
-    auto it = seen_.find(a.folder + '\n' + a.origin + '\n' + a.seal_sha256);
-    if (it != seen_.end()) return it->second;
-    const auto finding = check_accepted_row(a, options_);
-    if (finding) not_used_.push_back({a.name, a.folder, finding->message});
-    return seen_[a.folder + '\n' + a.origin + '\n' + a.seal_sha256] = !finding;
+  // Whether the row's folder passes; when it does and `warm_up` is given, the folder's first warm-up hold.
+  bool usable(const AcceptedSession& a, std::optional<core::WarmUpRecord>* warm_up = nullptr) {
+    const std::string key = a.folder + '\n' + a.origin + '\n' + a.seal_sha256;
+    auto it = seen_.find(key);
+    if (it == seen_.end()) {
+      Seen s;
+      const auto finding = check_accepted_row(a, options_, &s.warm_up);
+      if (finding) not_used_.push_back({a.name, a.folder, finding->message});
+      s.ok = !finding;
+      it = seen_.emplace(key, std::move(s)).first;
+    }
+    if (warm_up) *warm_up = it->second.warm_up;
+    return it->second.ok;
   }
 
  private:
+  struct Seen {
+    bool ok = false;
+    std::optional<core::WarmUpRecord> warm_up;
+  };
   const record::VerifyOptions& options_;
   std::vector<HistoryRowNotUsed>& not_used_;
-  std::map<std::string, bool> seen_;
+  std::map<std::string, Seen> seen_;
 };
 
 }  // namespace
@@ -44,8 +56,11 @@ bool lookup_store_history(Store& store, const std::string& vehicle, const std::s
   FolderChecks checks(options, out.not_used);
   // Per cell, the newest session whose folder still verifies (rows: by cell, newest first in each).
   std::vector<core::StoredSession> latest;
-  for (const auto& r : rows)
-    if ((latest.empty() || latest.back().cell != r.cell) && checks.usable(r)) latest.push_back(to_core(r));
+  for (const auto& r : rows) {
+    std::optional<core::WarmUpRecord> warm_up;
+    if ((latest.empty() || latest.back().cell != r.cell) && checks.usable(r, &warm_up))
+      latest.push_back(to_core(r, warm_up));
+  }
   const bool on_this_cell =
       std::any_of(latest.begin(), latest.end(), [&](const core::StoredSession& s) { return s.cell == cell; });
   std::vector<core::CellPair> pairs;

@@ -6,9 +6,11 @@
 #include <sstream>
 #include <stdexcept>
 
+#include "core/profile.hpp"
 #include "record/data_root.hpp"
 #include "record/event_log.hpp"
 #include "record/inside.hpp"
+#include "record/vehicle_history.hpp"
 #include "store/pg_store.hpp"
 
 namespace loadtrim::store {
@@ -136,11 +138,14 @@ SessionEntry read_session(const std::string& folder, const std::vector<record::L
   e.target = *road_load(r0, "target", true);
   e.tolerance_n = number(r0, "tolerance_n");
   e.test_mass_kg = number(r0, "test_mass_kg");
-  bool first_setting_seen = false;
+  bool first_setting_seen = false, warm_up_seen = false;
   for (const auto& line : lines) {
     const json& r = line.record;
     const std::string type = r.value("type", std::string());
-    if (type == "first_setting" && !first_setting_seen) {  // the first setting is the first one recorded
+    if (type == "warm_up" && !warm_up_seen) {  // the first warm-up hold (a re-warm is not compared)
+      warm_up_seen = true;
+      e.warm_up = record::warm_up_from_json(r);
+    } else if (type == "first_setting" && !first_setting_seen) {  // the first setting is the first recorded  // the first setting is the first one recorded
       first_setting_seen = true;
       e.first_setting_strategy = text(r, "strategy");
       e.first_setting_fallback = text(r, "fallback_reason");
@@ -353,13 +358,13 @@ std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::Ve
   return check_row_verdict(row, options, nullptr);
 }
 
-std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a,
-                                               const record::VerifyOptions& options) {
+std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options,
+                                               std::optional<core::WarmUpRecord>* warm_up) {
   const IndexedFolder row{"session", a.folder, a.origin, a.seal_sha256, ""};
   record::FolderVerdict v;
   if (auto f = check_row_verdict(row, options, &v)) return f;
-  // The row is only what the folder said when it was indexed: its vehicle, cell, result, target and final set
-  // are believed only when the folder says the same now.
+  // The row is only what the folder said when it was indexed: its vehicle, cell, result, target, final set
+  // and measured curve are believed only when the folder says the same now.
   const FolderEntry e = read_folder(a.folder, v);
   auto differs = [&](const std::string& what) {
     return CheckFinding{row, "differs",
@@ -372,6 +377,12 @@ std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a,
   if (!s.accepted) return differs("result (" + s.result + ")");
   if (!same_load(s.target, a.target)) return differs("target");
   if (!s.final_set || !same_load(*s.final_set, a.final_set)) return differs("final set");
+  // The measured curve moves the history's loss (docs/store.md, "The history first setting"): believed only
+  // from an iterative session whose folder says the same curve.
+  if (a.measured && (s.method != core::to_string(core::SettingMethod::iterative) || !s.measured ||
+                     !same_load(*s.measured, *a.measured)))
+    return differs("measured curve or method");
+  if (warm_up) *warm_up = s.warm_up;
   return std::nullopt;
 }
 

@@ -57,7 +57,10 @@ std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::Ve
 // must say the same vehicle, cell, accepted result, target and final set as the row (the row is not the
 // evidence: the hostile review changed a row's final set, vehicle and cell and saw them used). A difference
 // is the finding "differs".
-std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options);
+// When the row passes and `warm_up` is given, it receives the folder's first warm-up hold (read from the
+// verified folder, never from the row).
+std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options,
+                                               std::optional<core::WarmUpRecord>* warm_up = nullptr);
 // Every row of the store against its folder: the folder must exist, verify intact and sealed, and carry the
 // indexed origin and seal. rows_checked gets the number of rows looked at.
 bool check_store(Store& store, const record::VerifyOptions& options, std::vector<CheckFinding>& findings,

@@ -17,6 +17,7 @@
 #include <vector>
 
 #include "core/road_load.hpp"
+#include "core/strategy.hpp"
 
 namespace loadtrim::store {
 
@@ -71,6 +72,8 @@ struct SessionEntry {
   std::vector<SpeedDeviation> final_deviations;  // summary.json's deviations
   std::vector<CoastdownEntry> coastdown_records;
   std::vector<Review> reviews;
+  // The first "warm_up" record's speed and windows (nullopt: none, or written before windows were kept).
+  std::optional<core::WarmUpRecord> warm_up;
 };
 
 struct CheckEntry {
@@ -146,6 +149,7 @@ struct AcceptedSession {
   std::string cell, vehicle;
   std::string started_utc;
   core::RoadLoad target, final_set;
+  std::optional<core::RoadLoad> measured;  // the last coast-down's curve, iterative sessions only
 };
 // A vehicle accepted on two cells: its latest accepted session on each.
 struct CellPairRow {

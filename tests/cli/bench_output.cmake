@@ -18,7 +18,9 @@ foreach(needle "Truths: harsh (hold bias sd 15 N, inertia error sd 1.5 %, compen
                "loss-mass correlation 0.43, hold bias speed part sd 10 N at 130 km/h, load-cell gain sd 1 % and offset sd 4.9 N"
                "Sample-rate lever (truths: harsh; the same 3 vehicles"
                "\n       10 | iterative loss-map" "\n      100 | iterative loss-map" "\n      100 | fixed-run loss-map"
-               "\n      100 | guard-band loss-map")
+               "\n      100 | guard-band loss-map"
+               "every strategy and method as shipped" "(every row, with the levers turned off and the lab-policy rows:"
+               "history-no-day-scale" "history-target-less-set")
   string(FIND "${out}" "${needle}" pos)
   if(pos EQUAL -1)
     message(FATAL_ERROR "missing '${needle}' in:\n${out}")

@@ -7,9 +7,10 @@ Two copies of the TCP cell file with names of their own (invented cells A and B)
 SQLite store. A second vehicle P (the demo target under another id) is accepted on A and on B, which makes a pair;
 vehicle V (the demo target) is accepted on A; then V runs on B with `--first-setting history`. Its first_setting
 record must name V's session on A (id and folder), cell A, and P's two sessions as the pair, and its set must be
-target − (loss on A + correction), with loss = target − final set and the correction the mean over the one pair of
-(loss on B − loss on A): computed here from each session's record 0 (the target) and summary.json (the final set),
-the rule of docs/store.md (the arithmetic mean of one value is that value).
+target − (loss on A + correction), with loss = measured − final set (every session here is iterative: the curve its
+last coast-down measured, at the accepted setting) and the correction the mean over the one pair of (loss on B −
+loss on A): computed here from each session's record 0 (the method) and summary.json (the measured curve and the
+final set), the rule of docs/store.md (the arithmetic mean of one value is that value).
 
 Usage: store_cross_cell_history.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOURCE_DIR --workdir DIR
 """
@@ -51,10 +52,11 @@ def records(folder):
 
 
 def loss(folder):
-    """target (record 0) − final set (summary.json), per coefficient."""
-    target = records(folder)[0]["target"]
-    final = json.load(open(os.path.join(folder, "summary.json")))["final_set"]
-    return {k: target[k] - final[k] for k in ("f0_n", "f1_n_per_kmh", "f2_n_per_kmh2")}
+    """An iterative session's loss: the last measured curve − final set (summary.json), per coefficient."""
+    assert records(folder)[0]["method"] == "iterative", folder
+    summary = json.load(open(os.path.join(folder, "summary.json")))
+    measured, final = summary["measured"], summary["final_set"]
+    return {k: measured[k] - final[k] for k in ("f0_n", "f1_n_per_kmh", "f2_n_per_kmh2")}
 
 
 def accepted(folder):
@@ -145,7 +147,8 @@ def main():
     # The store now also holds V's session on B: the target command, like a session, takes the same cell's.
     vb_set = json.load(open(os.path.join(vb, "summary.json"))).get("final_set")
     if accepted(vb):
-        want = {k: target[k] - (target[k] - vb_set[k]) for k in target if k in vb_set}
+        lvb = loss(vb)
+        want = {k: target[k] - lvb[k] for k in target if k in vb_set}
         expect("target --cell B shows the history from V's session on B now", shown.get("set") and all(
             abs(shown["set"][k] - want[k]) <= 1e-9 * max(1.0, abs(want[k])) for k in want) and
                os.path.basename(vb) in shown.get("note", ""), (shown, r.stdout[-600:], r.stderr[-600:]))

@@ -309,8 +309,8 @@ std::vector<Payload> every_event() {
       ev::Limits{140.0, 135.0, 15.0, 200.0, 180.0, 200.0, 3600.0},
       ev::InertiaSet{1500.0, 45.0, 1545.0, 1522.5, core::AxleLayout::single_axle},
       ev::WarmUpStarted{80.0, 1200.0, 60.0},
-      ev::WarmUpHeld{80.0, 1201.0, "stable", 2.0, 160.0},
-      ev::WarmUpHeld{80.0, 1201.0, "not stable within the extra time", 2.0, std::nullopt},
+      ev::WarmUpHeld{80.0, 1201.0, "stable", 2.0, 160.0, {{30.0, 170.0}, {90.0, 165.5}}},
+      ev::WarmUpHeld{80.0, 1201.0, "not stable within the extra time", 2.0, std::nullopt, {}},
       ev::LossMapSkipped{"no force in speed hold"},
       ev::LossMapPointSkipped{150.0, "above the speed limit"},
       ev::LossMapPoint{{60.0, 80.0, 1.5, 500}},
@@ -320,16 +320,16 @@ std::vector<Payload> every_event() {
       ev::WarmUpEnded{},
       ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, core::RoadLoad{30.0, 0.1, 0.004}, 0.8,
                        core::RoadLoad{30.0, 0.1, 0.004}, std::nullopt, nlohmann::json(),
-                       core::CoastCorrection{true, "", 7, 12.5, 0.0004, 1.1}, anticipation()},
+                       core::CoastCorrection{true, "", 7, 12.5, 0.0004, 1.1}, anticipation(), std::nullopt},
       ev::FirstSetting{"history", "standard", "no history", kSet, std::nullopt, std::nullopt, std::nullopt,
-                       std::nullopt, std::nullopt, nlohmann::json(), std::nullopt, std::nullopt},
+                       std::nullopt, std::nullopt, nlohmann::json(), std::nullopt, std::nullopt, std::nullopt},
       ev::FirstSetting{"history", "history", "", kSet, std::string("2026-11-20T08:00:00.000Z"), std::nullopt,
                        std::nullopt, core::RoadLoad{73.0, 0.05, 0.0025}, history_basis(),
                        nlohmann::json{{"looked", "store"},
                                       {"store", "/lab/store.sqlite"},
                                       {"not_used", nlohmann::json::array()},
                                       {"note", ""}},
-                       std::nullopt, std::nullopt},
+                       std::nullopt, std::nullopt, core::DayScale{true, "", 1.02, 1170.0, 150.0, 153.0, 3, 3}},
       ev::EnvelopeRefused{2, kSet, "force above the cell's"},
       ev::SetWritten{1, kSet, 1},
       ev::CoastdownStarted{1, kSet, 135.0},
@@ -463,8 +463,8 @@ TEST(Events, RecordsAreByteForByteWhatEarlierVersionsWrote) {
       to_json(Payload{ev::LinkLost{"timeout", 2}}).dump(),
       R"({"incident":2,"note":"the controller's watchdog takes the rollers to a stop","why":"timeout"})");
   EXPECT_EQ(
-      to_json(Payload{ev::WarmUpHeld{80.0, 1201.0, "not checked", 0.0, std::nullopt}}).dump(),
-      R"({"held_s":1201.0,"last_window_force_n":null,"speed_kmh":80.0,"stability":"not checked","stability_threshold_n":0.0})");
+      to_json(Payload{ev::WarmUpHeld{80.0, 1201.0, "not checked", 0.0, std::nullopt, {{30.0, 170.25}}}}).dump(),
+      R"({"held_s":1201.0,"last_window_force_n":null,"speed_kmh":80.0,"stability":"not checked","stability_threshold_n":0.0,"windows":[{"force_n":170.25,"t_s":30.0}]})");
   // A stamp before the controller's clock is known: the state only.
   const Event early{ev::Refused{"no"}, Stamp{State::connect, std::nullopt, std::nullopt}, nullptr};
   EXPECT_EQ(record_json(early).dump(), R"({"state":"connect","why":"no"})");
@@ -485,7 +485,8 @@ TEST(Events, TheRecordsResumeNeedsReadBack) {
   const CoastdownRecord run = usable_run();
   const std::vector<nlohmann::json> records = {
       line(ev::FirstSetting{"loss-map", "loss-map", "", kSet, std::nullopt, std::nullopt, std::nullopt,
-                            std::nullopt, std::nullopt, nlohmann::json(), std::nullopt, std::nullopt}),
+                            std::nullopt, std::nullopt, nlohmann::json(), std::nullopt, std::nullopt,
+                            std::nullopt}),
       line(ev::SetWritten{3, kSet, 2}), line(ev::CoastdownStarted{3, kSet, 135.0}), line(ev::Coastdown{run})};
   const ResumePoint p = resume_point(records);
   EXPECT_EQ(p.malformed, 0);
@@ -662,6 +663,14 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   EXPECT_EQ(back->utc, j["utc"].get<std::string>());
   EXPECT_TRUE(back->target == target);
   EXPECT_TRUE(back->final_set == final_set);
+  EXPECT_FALSE(back->measured);  // a file without "measured" (every file written before it): none
+  // From an iterative session the last measured curve is kept as "measured" and read back.
+  const core::RoadLoad measured{146.5, 0.33, 0.0335};
+  ASSERT_TRUE(record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err, measured)) << err;
+  const auto with = record::load_vehicle_history(file);
+  ASSERT_TRUE(with && with->measured);
+  EXPECT_TRUE(*with->measured == measured);
+  EXPECT_TRUE(with->final_set == final_set);
   EXPECT_FALSE(record::load_vehicle_history(dir + "/none.json"));
   { std::ofstream(file) << R"({"utc": "x", "target": {"f0_n": 1}})"; }
   err.clear();

@@ -1073,19 +1073,31 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
   ASSERT_TRUE(found.entry && found.entry->basis);
   EXPECT_EQ(found.entry->basis->session_id, "indexed");
   EXPECT_EQ(found.entry->basis->source_cell, g_made->cell);
-  EXPECT_EQ(found.entry->basis->note, "no vehicle run on both cells: not corrected");
-  // loss = target (record 0) − final set (summary.json), no correction.
+  // An iterative session (docs/store.md, "The history first setting"): loss = the last coast-down's measured
+  // curve (summary.json) − final set (summary.json), no correction; the sentence says so.
+  ASSERT_EQ(start["method"], "iterative");
+  EXPECT_EQ(found.entry->basis->note,
+            "no vehicle run on both cells: not corrected; " + core::history_loss_note(true));
   const core::RoadLoad loss = found.entry->loss();
   EXPECT_DOUBLE_EQ(loss.f0_n,
-                   start["target"]["f0_n"].get<double>() - summary["final_set"]["f0_n"].get<double>());
-  EXPECT_DOUBLE_EQ(loss.f2_n_per_kmh2, start["target"]["f2_n_per_kmh2"].get<double>() -
+                   summary["measured"]["f0_n"].get<double>() - summary["final_set"]["f0_n"].get<double>());
+  EXPECT_DOUBLE_EQ(loss.f2_n_per_kmh2, summary["measured"]["f2_n_per_kmh2"].get<double>() -
                                            summary["final_set"]["f2_n_per_kmh2"].get<double>());
+  // Not target − final set: the accepted deviation is part of the loss.
+  EXPECT_NE(loss.f0_n, start["target"]["f0_n"].get<double>() - summary["final_set"]["f0_n"].get<double>());
 
   // The row is not the evidence: a final set, vehicle or cell changed in the store alone (the folder still
   // verifies with its seal) is not used, and the lookup says the folder differs.
-  for (const std::string& forge :
-       {std::string("UPDATE sessions SET final_f0_n = final_f0_n + 100 WHERE name = 'indexed'"),
-        std::string("UPDATE sessions SET cell = 'another cell' WHERE name = 'indexed'")}) {
+  // The measured curve and the method are evidence too: a measured F0 changed, or the session called
+  // fixed-run in the store alone, is not used either.
+  const std::vector<std::pair<std::string, std::string>> forgeries = {
+      {"UPDATE sessions SET final_f0_n = final_f0_n + 100 WHERE name = 'indexed'",
+       "UPDATE sessions SET final_f0_n = final_f0_n - 100 WHERE name = 'indexed'"},
+      {"UPDATE sessions SET cell = 'another cell' WHERE name = 'indexed'",
+       "UPDATE sessions SET cell = '" + g_made->cell + "' WHERE name = 'indexed'"},
+      {"UPDATE sessions SET measured_f0_n = measured_f0_n + 100 WHERE name = 'indexed'",
+       "UPDATE sessions SET measured_f0_n = measured_f0_n - 100 WHERE name = 'indexed'"}};
+  for (const auto& [forge, undo] : forgeries) {
     exec(forge);
     ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))
         << err;
@@ -1095,10 +1107,18 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
       return n.session == "indexed" && n.why.find("says another") != std::string::npos;
     });
     EXPECT_TRUE(said) << forge << ": " << found.not_used[0].why << " / " << found.not_used[1].why;
-    exec(forge.find("cell =") != std::string::npos
-             ? "UPDATE sessions SET cell = '" + g_made->cell + "' WHERE name = 'indexed'"
-             : "UPDATE sessions SET final_f0_n = final_f0_n - 100 WHERE name = 'indexed'");
+    exec(undo);
   }
+  // Called fixed-run in the store, the row gives no measured curve, and its loss is target − final set (which
+  // the folder still confirms).
+  exec("UPDATE sessions SET method = 'fixed-run' WHERE name = 'indexed'");
+  ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))
+      << err;
+  ASSERT_TRUE(found.entry);
+  EXPECT_FALSE(found.entry->measured);
+  EXPECT_DOUBLE_EQ(found.entry->loss().f0_n,
+                   start["target"]["f0_n"].get<double>() - summary["final_set"]["f0_n"].get<double>());
+  exec("UPDATE sessions SET method = 'iterative' WHERE name = 'indexed'");
 
   std::string text = read_file(copy + "/summary.json");
   text.back() = text.back() == ' ' ? '\t' : ' ';  // one byte of a sealed file

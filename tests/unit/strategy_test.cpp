@@ -158,8 +158,9 @@ TEST(Strategy, SettingFromALossAndFromHistory) {
 // coefficient, of (loss on this cell − loss on the other cell) over the pairs.
 namespace {
 core::StoredSession stored(const std::string& id, const std::string& cell, const std::string& vehicle,
-                           const std::string& utc, const RoadLoad& target, const RoadLoad& final_set) {
-  return {id, "/lab/sessions/" + id, cell, vehicle, utc, target, final_set};
+                           const std::string& utc, const RoadLoad& target, const RoadLoad& final_set,
+                           const std::optional<RoadLoad>& measured = std::nullopt) {
+  return {id, "/lab/sessions/" + id, cell, vehicle, utc, target, final_set, measured, std::nullopt};
 }
 void expect_load(const RoadLoad& a, const RoadLoad& b) {
   EXPECT_NEAR(a.f0_n, b.f0_n, 1e-9);
@@ -258,7 +259,9 @@ TEST(HistoryFromStore, WithoutAPairTheOtherCellsLossIsUsedUncorrectedAndSaidSo) 
   const auto h = core::history_from_store("B", v, {});
   ASSERT_TRUE(h && h->basis);
   EXPECT_EQ(h->basis->source_cell, "C");
-  EXPECT_EQ(h->basis->note, "no vehicle run on both cells: not corrected");
+  EXPECT_EQ(h->basis->note,
+            "no vehicle run on both cells: not corrected; its loss as target − accepted set (no measured "
+            "curve: only an iterative session's is used)");
   EXPECT_EQ(h->basis->pairs_available, 0);
   expect_load(h->loss(), {75.0, 0.25, 0.0005});
 }
@@ -275,6 +278,39 @@ TEST(HistoryFromStore, OnlyTheNewestPairsUpToTheCapAreUsed) {
   EXPECT_EQ(h->basis->pairs[0].vehicle, "P1");
   EXPECT_EQ(h->basis->pairs_available, 2);
   expect_load(h->loss(), {70.0, 0.1, 0.002});
+}
+
+TEST(HistoryFromStore, AnIterativeSessionsLossIsItsLastMeasuredCurveLessItsSetting) {
+  // docs/store.md, "The history first setting": V accepted on B with the set {60, 0.4, 0.028} while its last
+  // coast-down measured {154, 0.45, 0.0302} against the target {150, 0.5, 0.03} (a deviation of +4 N at
+  // 0 km/h, accepted). The loss the rollers showed is measured − set = {94, 0.05, 0.0022} (algebra), not
+  // target − set = {90, 0.1, 0.002}; the set for the same target is then {56, 0.45, 0.0278}: the standard's
+  // next adjustment (set + target − measured, docs/standards.md §3.5).
+  auto v = v_sessions();
+  v.push_back(stored("b-1", "B", "V", "2026-09-01T08:00:00.000Z", kVTarget, {60.0, 0.4, 0.028},
+                     RoadLoad{154.0, 0.45, 0.0302}));
+  const auto h = core::history_from_store("B", v, {});
+  ASSERT_TRUE(h && h->basis);
+  EXPECT_EQ(h->basis->session_id, "b-1");
+  ASSERT_TRUE(h->measured);
+  expect_load(h->loss(), {94.0, 0.05, 0.0022});
+  EXPECT_EQ(h->basis->note,
+            "the vehicle's latest accepted session on this cell: not corrected; its loss as measured at its "
+            "last coast-down (that curve less the accepted setting)");
+  core::FirstSettingInputs in;
+  in.requested = core::FirstSetting::history;
+  in.target = kVTarget;
+  in.history = h;
+  expect_load(core::choose_first_setting(in).set, {56.0, 0.45, 0.0278});
+  expect_load(core::choose_first_setting(in).set,
+              core::adjusted_setting(kVTarget, {60.0, 0.4, 0.028}, {154.0, 0.45, 0.0302}));
+  // From another cell the pairs' losses follow the same rule: a pair on B measured 2 N above its target
+  // adds 2 N to the correction.
+  auto pair = p1();
+  pair.here.measured = RoadLoad{122.0, 0.4, 0.03};  // loss on B 72 instead of 70 at 0 km/h
+  const auto other = core::history_from_store("B", v_sessions(), std::vector<core::CellPair>{pair});
+  ASSERT_TRUE(other);
+  expect_load(other->correction, {-8.0, -0.1, 0.001});
 }
 
 TEST(HistoryFromStore, NoAcceptedSessionIsNoEstimate) {
