@@ -671,6 +671,27 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   ASSERT_TRUE(with && with->measured);
   EXPECT_TRUE(*with->measured == measured);
   EXPECT_TRUE(with->final_set == final_set);
+  EXPECT_FALSE(with->warm_up);
+  // And the session's first warm-up hold as "warm_up", read back window by window.
+  const core::WarmUpRecord warm{80.0, {{30.0, 212.5}, {90.0, 208.25}}};
+  ASSERT_TRUE(record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err, measured, warm))
+      << err;
+  const auto warmed = record::load_vehicle_history(file);
+  ASSERT_TRUE(warmed && warmed->warm_up);
+  EXPECT_EQ(warmed->warm_up->speed_kmh, 80.0);
+  ASSERT_EQ(warmed->warm_up->windows.size(), 2u);
+  EXPECT_EQ(warmed->warm_up->windows[1].t_s, 90.0);
+  EXPECT_EQ(warmed->warm_up->windows[1].force_n, 208.25);
+  // A window that is not a pair of numbers: no warm-up (the rest of the entry still reads).
+  {
+    nlohmann::json broken = nlohmann::json::parse(std::ifstream(file));
+    broken["warm_up"]["windows"][0]["force_n"] = "212.5";
+    std::ofstream(file) << broken.dump();
+  }
+  const auto no_warm = record::load_vehicle_history(file);
+  ASSERT_TRUE(no_warm);
+  EXPECT_FALSE(no_warm->warm_up);
+  EXPECT_TRUE(no_warm->measured);
   EXPECT_FALSE(record::load_vehicle_history(dir + "/none.json"));
   { std::ofstream(file) << R"({"utc": "x", "target": {"f0_n": 1}})"; }
   err.clear();

@@ -1085,6 +1085,28 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
                                            summary["final_set"]["f2_n_per_kmh2"].get<double>());
   // Not target − final set: the accepted deviation is part of the loss.
   EXPECT_NE(loss.f0_n, start["target"]["f0_n"].get<double>() - summary["final_set"]["f0_n"].get<double>());
+  // From another cell no warm-up comes with it; on its own cell the folder's first warm-up hold does, read
+  // from the verified folder (events.jsonl's first "warm_up" record), for the day-to-day correction.
+  EXPECT_FALSE(found.entry->warm_up);
+  {
+    store::StoreHistoryLookup same;
+    ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, g_made->cell, g_made->verify, same, err))
+        << err;
+    ASSERT_TRUE(same.entry && same.entry->warm_up);
+    json first_warm_up;
+    for (const auto& l : lines_of(read_file(copy + "/events.jsonl")))
+      if (const json r = json::parse(l); r.value("type", std::string()) == "warm_up") {
+        first_warm_up = r;
+        break;
+      }
+    ASSERT_TRUE(first_warm_up.is_object());
+    ASSERT_FALSE(first_warm_up["windows"].empty());
+    ASSERT_EQ(same.entry->warm_up->windows.size(), first_warm_up["windows"].size());
+    EXPECT_DOUBLE_EQ(same.entry->warm_up->speed_kmh, first_warm_up["speed_kmh"].get<double>());
+    EXPECT_DOUBLE_EQ(same.entry->warm_up->windows.back().force_n,
+                     first_warm_up["windows"].back()["force_n"].get<double>());
+    EXPECT_DOUBLE_EQ(same.entry->warm_up->windows.back().t_s, first_warm_up["windows"].back()["t_s"].get<double>());
+  }
 
   // The row is not the evidence: a final set, vehicle or cell changed in the store alone (the folder still
   // verifies with its seal) is not used, and the lookup says the folder differs.

@@ -313,6 +313,138 @@ TEST(HistoryFromStore, AnIterativeSessionsLossIsItsLastMeasuredCurveLessItsSetti
   expect_load(other->correction, {-8.0, -0.1, 0.001});
 }
 
+// --- The history's day-to-day correction (core::day_to_day_scale; docs/store.md, "The history first setting":
+// our rule, no source). Invented warm-ups: one-minute windows at t = 30, 90, ... s; every number below is
+// worked by hand.
+namespace {
+core::WarmUpRecord warm_up(double speed_kmh, double last_t_s, double settled_n) {
+  core::WarmUpRecord r{speed_kmh, {}};
+  // 40 N more at the start, falling by 4 N a window, settled from 630 s (the shape does not matter to the
+  // rule).
+  for (double t = 30.0; t <= last_t_s + 1e-9; t += 60.0)
+    r.windows.push_back({t, settled_n + std::max(0.0, 40.0 - 4.0 * (t - 30.0) / 60.0)});
+  return r;
+}
+}  // namespace
+
+TEST(DayScale, TodaysWarmUpOverTheEarlierOnesAtTheEndOfTheShorter) {
+  // The earlier warm-up's windows end at 1170 s, today's at 1230 s: compared at 1170 s over (990, 1170], the
+  // windows at 1050, 1110 and 1170 s of each (both settled there: 200 N and 206 N): ratio 206/200 = 1.03.
+  const auto d = core::day_to_day_scale(warm_up(80.0, 1170.0, 200.0), warm_up(80.2, 1230.0, 206.0));
+  EXPECT_TRUE(d.used) << d.why;
+  EXPECT_EQ(d.why, "");
+  EXPECT_DOUBLE_EQ(d.at_s, 1170.0);
+  EXPECT_EQ(d.windows_then, 3);
+  EXPECT_EQ(d.windows_now, 3);
+  EXPECT_DOUBLE_EQ(d.then_n, 200.0);
+  EXPECT_DOUBLE_EQ(d.now_n, 206.0);
+  EXPECT_NEAR(d.ratio, 1.03, 1e-12);
+  // At the same time, not at each one's end: an earlier warm-up that ended at 690 s, still warming, is
+  // compared with today's at that time. Windows in (510, 690]: 570, 630 and 690 s, 204, 200, 200 N for the
+  // earlier and 210, 206, 206 N today: (622/3)/(604/3).
+  const auto early = core::day_to_day_scale(warm_up(80.0, 690.0, 200.0), warm_up(80.0, 1230.0, 206.0));
+  EXPECT_TRUE(early.used) << early.why;
+  EXPECT_DOUBLE_EQ(early.at_s, 690.0);
+  EXPECT_NEAR(early.ratio, 622.0 / 604.0, 1e-12);
+}
+
+TEST(DayScale, NotUsedAndSaidWhenTheWarmUpsCannotBeCompared) {
+  const auto base = warm_up(80.0, 1170.0, 200.0);
+  // Another warm-up speed (0.6 km/h apart; the rule allows 0.5).
+  auto d = core::day_to_day_scale(base, warm_up(80.6, 1170.0, 200.0));
+  EXPECT_FALSE(d.used);
+  EXPECT_DOUBLE_EQ(d.ratio, 1.0);
+  EXPECT_NE(d.why.find("not the same speed"), std::string::npos) << d.why;
+  // A warm-up whose windows end before 600 s.
+  d = core::day_to_day_scale(base, warm_up(80.0, 570.0, 200.0));
+  EXPECT_FALSE(d.used);
+  EXPECT_NE(d.why.find("end before 600 s"), std::string::npos) << d.why;
+  // A change of 30 % (260 N over 200 N) is not the same vehicle state.
+  d = core::day_to_day_scale(base, warm_up(80.0, 1170.0, 260.0));
+  EXPECT_FALSE(d.used);
+  EXPECT_DOUBLE_EQ(d.ratio, 1.0);
+  EXPECT_NE(d.why.find("1.300 times"), std::string::npos) << d.why;
+  EXPECT_NE(d.why.find("outside 0.80 to 1.25"), std::string::npos) << d.why;
+  // One window in the compared span (the earlier record keeps only every third window).
+  core::WarmUpRecord sparse{80.0, {}};
+  for (const auto& w : base.windows)
+    if (static_cast<int>(w.t_s) % 180 == 30) sparse.windows.push_back(w);
+  ASSERT_EQ(sparse.windows.back().t_s, 1110.0);
+  d = core::day_to_day_scale(sparse, warm_up(80.0, 1170.0, 200.0));
+  EXPECT_FALSE(d.used);
+  EXPECT_NE(d.why.find("fewer than two windows"), std::string::npos) << d.why;
+  // A window that is not finite is not a window: today's then end at 1110 s, and both are compared over
+  // (930, 1110]: 990, 1050 and 1110 s, 200 and 206 N.
+  auto holed = warm_up(80.0, 1170.0, 206.0);
+  holed.windows.back().force_n = std::nan("");
+  d = core::day_to_day_scale(base, holed);
+  EXPECT_TRUE(d.used) << d.why;
+  EXPECT_DOUBLE_EQ(d.at_s, 1110.0);
+  EXPECT_EQ(d.windows_now, 3);
+  EXPECT_NEAR(d.ratio, 1.03, 1e-12);
+}
+
+TEST(DayScale, TheHistorysLossIsScaledWhenBothWarmUpsAreGiven) {
+  // History loss target − set = {150, 0.5, 0.03} − {70, 0.3, 0.029} = {80, 0.2, 0.001}; scaled by 1.03:
+  // {82.4, 0.206, 0.00103}; set = target − that = {67.6, 0.294, 0.02897} (algebra).
+  core::HistoryEntry h;
+  h.utc = "2026-11-20T08:00:00.000Z";
+  h.target = kVTarget;
+  h.final_set = {70.0, 0.3, 0.029};
+  h.warm_up = warm_up(80.0, 1170.0, 200.0);
+  core::FirstSettingInputs in;
+  in.requested = core::FirstSetting::history;
+  in.target = kVTarget;
+  in.history = h;
+  in.warm_up_today = warm_up(80.0, 1230.0, 206.0);
+  auto c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "history");
+  ASSERT_TRUE(c.day_scale && c.loss);
+  EXPECT_TRUE(c.day_scale->used);
+  expect_load(*c.loss, {82.4, 0.206, 0.00103});
+  expect_load(c.set, {67.6, 0.294, 0.02897});
+  // The same through the loss map's fallback (no map measured).
+  in.requested = core::FirstSetting::loss_map;
+  c = core::choose_first_setting(in);
+  EXPECT_EQ(c.used, "history");
+  ASSERT_TRUE(c.day_scale);
+  EXPECT_TRUE(c.day_scale->used);
+  expect_load(c.set, {67.6, 0.294, 0.02897});
+  // Without today's warm-up, or without the earlier one: the loss as it is, and why.
+  in.requested = core::FirstSetting::history;
+  in.warm_up_today.reset();
+  c = core::choose_first_setting(in);
+  ASSERT_TRUE(c.day_scale);
+  EXPECT_FALSE(c.day_scale->used);
+  EXPECT_EQ(c.day_scale->why, "this session's warm-up not given");
+  expect_load(c.set, {70.0, 0.3, 0.029});
+  in.warm_up_today = warm_up(80.0, 1230.0, 206.0);
+  in.history->warm_up.reset();
+  c = core::choose_first_setting(in);
+  ASSERT_TRUE(c.day_scale);
+  EXPECT_FALSE(c.day_scale->used);
+  EXPECT_NE(c.day_scale->why.find("not recorded"), std::string::npos);
+  expect_load(c.set, {70.0, 0.3, 0.029});
+  // Another strategy used: no day scale at all.
+  in.requested = core::FirstSetting::standard;
+  EXPECT_FALSE(core::choose_first_setting(in).day_scale);
+}
+
+TEST(HistoryFromStore, TheWarmUpGoesWithTheSameCellsSessionOnly) {
+  // docs/store.md: another dyno's hold reads its own, so a session on another cell brings no warm-up.
+  auto v = v_sessions();
+  for (auto& x : v) x.warm_up = warm_up(80.0, 1170.0, 200.0);
+  auto h = core::history_from_store("B", v, {});
+  ASSERT_TRUE(h && h->basis);
+  EXPECT_FALSE(h->basis->same_cell);
+  EXPECT_FALSE(h->warm_up);
+  h = core::history_from_store("A", v, {});
+  ASSERT_TRUE(h && h->basis);
+  EXPECT_TRUE(h->basis->same_cell);
+  ASSERT_TRUE(h->warm_up);
+  EXPECT_EQ(h->warm_up->windows.size(), 20u);
+}
+
 TEST(HistoryFromStore, NoAcceptedSessionIsNoEstimate) {
   EXPECT_FALSE(core::history_from_store("B", {}, std::vector<core::CellPair>{p1()}));
 }
