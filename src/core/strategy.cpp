@@ -308,9 +308,13 @@ FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
     c.history_basis = in.history->basis;
     DayScale d;
     if (!in.warm_up_today)
-      d.why = "this session's warm-up not given";
+      d.why =
+          "this session's initial warm-up hold is not known (a pause or a resume before the first setting, "
+          "fewer than two windows, or no force reported in speed hold)";
     else if (!in.history->warm_up)
-      d.why = "the earlier session's warm-up not recorded (or on another cell)";
+      d.why =
+          "the earlier session's initial warm-up hold is not known (not recorded, interrupted, or on another "
+          "cell)";
     else
       d = day_to_day_scale(*in.history->warm_up, *in.warm_up_today);
     if (d.used) c.loss = c.loss->scaled(d.ratio);

@@ -120,7 +120,8 @@ inline constexpr double kDayScaleMin = 0.8, kDayScaleMax = 1.25;  // a larger ch
 struct DayScale {
   bool used = false;
   std::string why;       // when not used: why ("" when used)
-  double ratio = 1.0;    // today's mean over the earlier one's (1 when not used)
+  double ratio = 1.0;    // today's mean over the earlier one's (1 when none was computed or it was out of
+                         // range: why gives it; the ratio refused when the scaled set left the envelope)
   double at_s = 0.0;     // the time since the warm-up began the two were compared at
   double then_n = 0.0;   // the earlier session's mean there
   double now_n = 0.0;    // today's

@@ -70,11 +70,17 @@ std::optional<core::WarmUpRecord> warm_up_from_json(const nlohmann::json& r) {
   return out;
 }
 
+std::optional<core::WarmUpRecord> initial_warm_up_from_record(const nlohmann::json& r) {
+  if (!r.is_object() || !r.contains("initial") || !r["initial"].is_boolean() || !r["initial"].get<bool>())
+    return std::nullopt;
+  return warm_up_from_json(r);
+}
+
 std::optional<core::WarmUpRecord> first_warm_up_of(const std::string& folder) {
   std::vector<nlohmann::json> records;
   read_log((fs::path(folder) / "events.jsonl").string(), &records);
   for (const auto& r : records)
-    if (r.is_object() && r.value("type", std::string()) == "warm_up") return warm_up_from_json(r);
+    if (r.is_object() && r.contains("type") && r["type"] == "warm_up") return initial_warm_up_from_record(r);
   return std::nullopt;
 }
 

@@ -1,7 +1,8 @@
 // The vehicle history: per cell and vehicle, the target and the accepted final setting of the latest accepted
 // session, which the "history" first-setting strategy (core/strategy.hpp) turns into a loss estimate. One
 // JSON file per vehicle: <dir>/<identity_name(cell)>/<safe_name(vehicle id)>.json with the members utc,
-// vehicle, session, target, final_set and, from an iterative session, measured (road loads as {"f0_n", "f1_n_per_kmh", "f2_n_per_kmh2"}, the
+// vehicle, session, target, final_set and, when known, measured (from an iterative session) and warm_up (the
+// session's initial warm-up hold) (road loads as {"f0_n", "f1_n_per_kmh", "f2_n_per_kmh2"}, the
 // spelling of session::to_json; docs/records.md). Storage only: what is stored and when is the caller's.
 #pragma once
 
@@ -32,9 +33,13 @@ bool save_vehicle_history(const std::string& file, const std::string& vehicle_id
                           const std::optional<core::WarmUpRecord>& warm_up = std::nullopt);
 
 // A "warm_up" record's (or the history file's "warm_up" member's) speed and windows; nullopt when it has no
-// windows or any is not a pair of numbers (a record written before the windows were kept).
+// "windows" member or any window is not a pair of numbers (a record written before the windows were kept). An
+// empty list is a record with no window (which the day-to-day correction does not use).
 std::optional<core::WarmUpRecord> warm_up_from_json(const nlohmann::json& r);
-// The first "warm_up" record of a session folder's events.jsonl (nullopt: none, or the log cannot be read).
+// A "warm_up" record's hold when the record says "initial": true (the session's initial hold), else nullopt.
+std::optional<core::WarmUpRecord> initial_warm_up_from_record(const nlohmann::json& r);
+// The initial warm-up hold of a session folder's events.jsonl: its first "warm_up" record when that is the
+// initial hold (nullopt: none, not initial, or the log cannot be read).
 std::optional<core::WarmUpRecord> first_warm_up_of(const std::string& folder);
 
 }  // namespace loadtrim::record

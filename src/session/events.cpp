@@ -103,8 +103,6 @@ nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
   return out;
 }
 
-// The warming anticipated in a setting (docs/standards.md §3.16): enough to recompute it (the setting is
-// target − loss·(1 + ratio)) and to check the change against the curve (A·(e^(−to/τ) − e^(−from/τ))).
 // The warm-up's stability windows as [{"t_s", "force_n"}, ...].
 nlohmann::json drift_points_json(const std::vector<core::DriftPoint>& points) {
   nlohmann::json out = nlohmann::json::array();
@@ -112,6 +110,8 @@ nlohmann::json drift_points_json(const std::vector<core::DriftPoint>& points) {
   return out;
 }
 
+// The warming anticipated in a setting (docs/standards.md §3.16): enough to recompute it (the setting is
+// target − loss·(1 + ratio)) and to check the change against the curve (A·(e^(−to/τ) − e^(−from/τ))).
 nlohmann::json anticipation_json(const core::Anticipation& a) {
   nlohmann::json curve = nlohmann::json::object();
   if (a.curve.ok)
@@ -226,7 +226,8 @@ struct Mapper {
             {"stability_threshold_n", e.stability_threshold_n},
             {"last_window_force_n",
              e.last_window_force_n ? nlohmann::json(*e.last_window_force_n) : nlohmann::json(nullptr)},
-            {"windows", drift_points_json(e.windows)}};
+            {"windows", drift_points_json(e.windows)},
+            {"initial", e.initial}};
   }
   nlohmann::json operator()(const ev::LossMapSkipped& e) const { return {{"why", e.why}}; }
   nlohmann::json operator()(const ev::LossMapPointSkipped& e) const {

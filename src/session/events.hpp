@@ -192,9 +192,12 @@ struct WarmUpHeld {  // "warm_up"
   std::string stability;
   double stability_threshold_n = 0.0;
   std::optional<double> last_window_force_n;  // null when no stability window completed
-  // Every stability window of this hold: its middle in time since the warm-up began (first motoring at its
-  // speed) and its mean force; the history's day-to-day correction compares a later session's with these.
+  // Every stability window of this hold from a controller that reports force in speed hold (else none): its
+  // middle in seconds since the session's warm-up began (after a pause: since its re-warm began) and its mean
+  // force. The history's day-to-day correction compares a later session's initial hold with these.
   std::vector<core::DriftPoint> windows;
+  // The session's initial hold: not a re-warm, not in a resumed session, no pause before it.
+  bool initial = false;
 };
 struct LossMapSkipped {  // "loss_map_skipped"
   std::string why;

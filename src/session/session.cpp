@@ -381,7 +381,8 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         if (s.time_s - window_start >= w.stable_window_s) {
           window_means.push_back(sum / std::max(1, n));
           drift_points_.push_back({0.5 * (window_start + s.time_s) - drift_t0_, window_means.back()});
-          windows.push_back(drift_points_.back());
+          // Recorded only from a controller that reports force in speed hold (as the loss map requires).
+          if (info_.has("hold-force")) windows.push_back(drift_points_.back());
           sum = 0.0;
           n = 0;
           window_start = s.time_s;
@@ -405,13 +406,18 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
         return held >= duration_s && (stable || held >= duration_s + w.max_extra_s);
       });
   if (!r.ok()) return fault(r, "warm-up");
+  // The session's initial hold (not a re-warm, not after a pause or a resume): the one the history's
+  // day-to-day correction compares (docs/store.md, "The history first setting").
+  const bool initial = initial_hold_;
+  initial_hold_ = false;
+  if (initial && windows.size() >= 2) initial_warm_up_ = core::WarmUpRecord{w.speed_kmh, windows};
   emit(ev::WarmUpHeld{w.speed_kmh, t_now_ - t0,
                       w.stable_within_n <= 0.0 ? "not checked"
                       : stable                 ? "stable"
                                                : "not stable within the extra time",
                       w.stable_within_n,
                       window_means.empty() ? std::nullopt : std::optional<double>(window_means.back()),
-                      std::move(windows)});
+                      std::move(windows), initial});
   if (measure_loss_map) {
     loss_map_.clear();
     coast_points_.clear();
@@ -577,6 +583,9 @@ std::optional<Session::Stop> Session::do_pause(const std::string& during, bool r
   // The vehicle cooled while it stood: the warm-up trend starts again from the re-warm.
   drift_points_.clear();
   drift_t0_ = -1.0;
+  // Nor is this session's warm-up what the history's day-to-day correction compares any more.
+  initial_hold_ = false;
+  initial_warm_up_.reset();
   return std::nullopt;
 }
 
@@ -1138,6 +1147,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
       choose_first && !in_.vehicle.initial_set && opt_.first_setting == core::FirstSetting::loss_map;
   if (!stop) {
     const double warm = resume && opt_.resume_warm_up_s >= 0.0 ? opt_.resume_warm_up_s : p.warm_up.duration_s;
+    initial_hold_ = !resume;
     stop = do_warm_up(warm, want_map);
   }
   if (!stop && choose_first) {
@@ -1151,11 +1161,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
                                          .target_file_set = in_.vehicle.initial_set,
                                          .fleet = opt_.fleet,
                                          .history = opt_.history,
-                                         .warm_up_today =
-                                             drift_points_.empty()
-                                                 ? std::nullopt
-                                                 : std::optional<core::WarmUpRecord>(core::WarmUpRecord{
-                                                       p.warm_up.speed_kmh, drift_points_}),
+                                         .warm_up_today = initial_warm_up_,
                                          .loss_map = loss_map_,
                                          .coast_points = coast_points_,
                                          .coasts_asked = p.loss_map.coast_between_holds && !loss_map_.empty(),
@@ -1228,6 +1234,11 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
         const auto map_sd = c.map_residual_sd_n;
         auto correction = c.coast_correction;
         const auto anticipation = c.anticipation;
+        auto day_scale = c.day_scale;
+        if (day_scale && day_scale->used) {
+          day_scale->used = false;
+          day_scale->why = "not used: the history first setting left the safe envelope";
+        }
         if (correction && correction->ok) {
           correction->ok = false;
           correction->why = "not used: the loss-map first setting left the safe envelope";
@@ -1239,6 +1250,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
         c.map_residual_sd_n = map_sd;
         c.coast_correction = correction;
         c.anticipation = anticipation;
+        c.day_scale = day_scale;
         if (c.anticipation && c.anticipation->used) {
           c.anticipation->used = false;
           c.anticipation->why =

@@ -189,6 +189,10 @@ class Session {
   // The warm-up hold windows (controller time since the first motoring, mean force) for the drift estimate.
   std::vector<core::DriftPoint> drift_points_;
   double drift_t0_ = -1.0;
+  // The initial warm-up hold (not resumed, no pause before the first setting, force reported in speed hold):
+  // the history's day-to-day correction compares it (docs/store.md, "The history first setting").
+  bool initial_hold_ = false;
+  std::optional<core::WarmUpRecord> initial_warm_up_;
   bool first_after_warm_up_ = true;  // the next release is the first after a (re-)warm-up: the 120 s rule
   bool safe_stop_done_ = false, rollers_stopped_ = false, motion_commanded_ = false;
   std::string stop_note_;

@@ -2,46 +2,49 @@
 
 #include <algorithm>
 #include <map>
+#include <set>
 
+#include "core/profile.hpp"
 #include "store/index.hpp"
 
 namespace loadtrim::store {
 
 namespace {
 
-core::StoredSession to_core(const AcceptedSession& a,
-                            const std::optional<core::WarmUpRecord>& warm_up = std::nullopt) {
-  return {a.name, a.folder, a.cell, a.vehicle, a.started_utc, a.target, a.final_set, a.measured, warm_up};
+// The row's identity, target and final set (compared with its folder), and from the verified folder alone
+// (never the row) the last measured curve of an iterative session and the initial warm-up hold.
+core::StoredSession to_core(const AcceptedSession& a, const SessionEntry& folder) {
+  const bool iterative = folder.method == core::to_string(core::SettingMethod::iterative);
+  return {a.name,         a.folder,    a.cell,
+          a.vehicle,      a.started_utc, a.target,
+          a.final_set,    iterative ? folder.measured : std::nullopt,
+          folder.warm_up};
 }
 
-// Each folder verified at most once per lookup (a session on this cell may pair with several other cells).
+// Each folder verified and read at most once per lookup (a session on this cell may pair with several other
+// cells); every row that names it is still compared with what it says (a forged row naming a folder already
+// verified for another row is not believed).
 class FolderChecks {
  public:
   FolderChecks(const record::VerifyOptions& options, std::vector<HistoryRowNotUsed>& not_used)
       : options_(options), not_used_(not_used) {}
-  // Whether the row's folder passes; when it does and `warm_up` is given, the folder's first warm-up hold.
-  bool usable(const AcceptedSession& a, std::optional<core::WarmUpRecord>* warm_up = nullptr) {
+  // The folder's own facts when the row passes; nullptr (and the row named as not used) when not.
+  const SessionEntry* usable(const AcceptedSession& a) {
     const std::string key = a.folder + '\n' + a.origin + '\n' + a.seal_sha256;
     auto it = seen_.find(key);
-    if (it == seen_.end()) {
-      Seen s;
-      const auto finding = check_accepted_row(a, options_, &s.warm_up);
-      if (finding) not_used_.push_back({a.name, a.folder, finding->message});
-      s.ok = !finding;
-      it = seen_.emplace(key, std::move(s)).first;
+    if (it == seen_.end()) it = seen_.emplace(key, verify_accepted_folder(a, options_)).first;
+    if (const auto finding = compare_accepted_row(a, it->second)) {
+      if (reported_.insert(a.name + '\n' + key).second) not_used_.push_back({a.name, a.folder, finding->message});
+      return nullptr;
     }
-    if (warm_up) *warm_up = it->second.warm_up;
-    return it->second.ok;
+    return &*it->second.session;
   }
 
  private:
-  struct Seen {
-    bool ok = false;
-    std::optional<core::WarmUpRecord> warm_up;
-  };
   const record::VerifyOptions& options_;
   std::vector<HistoryRowNotUsed>& not_used_;
-  std::map<std::string, Seen> seen_;
+  std::map<std::string, VerifiedSession> seen_;
+  std::set<std::string> reported_;  // each row not used is named once
 };
 
 }  // namespace
@@ -56,11 +59,9 @@ bool lookup_store_history(Store& store, const std::string& vehicle, const std::s
   FolderChecks checks(options, out.not_used);
   // Per cell, the newest session whose folder still verifies (rows: by cell, newest first in each).
   std::vector<core::StoredSession> latest;
-  for (const auto& r : rows) {
-    std::optional<core::WarmUpRecord> warm_up;
-    if ((latest.empty() || latest.back().cell != r.cell) && checks.usable(r, &warm_up))
-      latest.push_back(to_core(r, warm_up));
-  }
+  for (const auto& r : rows)
+    if (latest.empty() || latest.back().cell != r.cell)
+      if (const SessionEntry* folder = checks.usable(r)) latest.push_back(to_core(r, *folder));
   const bool on_this_cell =
       std::any_of(latest.begin(), latest.end(), [&](const core::StoredSession& s) { return s.cell == cell; });
   std::vector<core::CellPair> pairs;
@@ -79,10 +80,10 @@ bool lookup_store_history(Store& store, const std::string& vehicle, const std::s
       });
       int used = 0;
       for (std::size_t i = 0; i < found.size() && used < max_pairs; ++i) {
-        const bool here_ok = checks.usable(found[i].on_a);
-        const bool there_ok = checks.usable(found[i].on_b);
-        if (here_ok && there_ok) {
-          pairs.push_back({found[i].vehicle, to_core(found[i].on_a), to_core(found[i].on_b)});
+        const SessionEntry* here = checks.usable(found[i].on_a);
+        const SessionEntry* there = checks.usable(found[i].on_b);
+        if (here && there) {
+          pairs.push_back({found[i].vehicle, to_core(found[i].on_a, *here), to_core(found[i].on_b, *there)});
           ++used;
         }
       }

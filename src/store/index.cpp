@@ -142,10 +142,11 @@ SessionEntry read_session(const std::string& folder, const std::vector<record::L
   for (const auto& line : lines) {
     const json& r = line.record;
     const std::string type = r.value("type", std::string());
-    if (type == "warm_up" && !warm_up_seen) {  // the first warm-up hold (a re-warm is not compared)
+    if (type == "warm_up" && !warm_up_seen) {
+      // The first warm-up hold, when it was the session's initial one (not after a pause or a resume).
       warm_up_seen = true;
-      e.warm_up = record::warm_up_from_json(r);
-    } else if (type == "first_setting" && !first_setting_seen) {  // the first setting is the first recorded  // the first setting is the first one recorded
+      e.warm_up = record::initial_warm_up_from_record(r);
+    } else if (type == "first_setting" && !first_setting_seen) {  // the first setting is the first one recorded
       first_setting_seen = true;
       e.first_setting_strategy = text(r, "strategy");
       e.first_setting_fallback = text(r, "fallback_reason");
@@ -358,32 +359,46 @@ std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::Ve
   return check_row_verdict(row, options, nullptr);
 }
 
-std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options,
-                                               std::optional<core::WarmUpRecord>* warm_up) {
+VerifiedSession verify_accepted_folder(const AcceptedSession& a, const record::VerifyOptions& options) {
   const IndexedFolder row{"session", a.folder, a.origin, a.seal_sha256, ""};
+  VerifiedSession out;
   record::FolderVerdict v;
-  if (auto f = check_row_verdict(row, options, &v)) return f;
-  // The row is only what the folder said when it was indexed: its vehicle, cell, result, target, final set
-  // and measured curve are believed only when the folder says the same now.
-  const FolderEntry e = read_folder(a.folder, v);
+  if (auto f = check_row_verdict(row, options, &v)) {
+    out.finding = std::move(f);
+    return out;
+  }
+  FolderEntry e = read_folder(a.folder, v);
+  if (!e.session) {
+    out.finding = CheckFinding{row, "differs",
+                               "session folder " + a.folder + " says another kind of record (" + e.error +
+                                   ") than the store's row"};
+    return out;
+  }
+  out.session = std::move(*e.session);
+  return out;
+}
+
+std::optional<CheckFinding> compare_accepted_row(const AcceptedSession& a, const VerifiedSession& folder) {
+  if (folder.finding) return folder.finding;
+  const IndexedFolder row{"session", a.folder, a.origin, a.seal_sha256, ""};
+  // The row is only what the folder said when it was indexed: its vehicle, cell, result, target and final set
+  // are believed only when the folder says the same now.
   auto differs = [&](const std::string& what) {
     return CheckFinding{row, "differs",
                         "session folder " + a.folder + " says another " + what + " than the store's row"};
   };
-  if (!e.session) return differs("kind of record (" + e.error + ")");
-  const SessionEntry& s = *e.session;
+  if (!folder.session) return differs("kind of record");
+  const SessionEntry& s = *folder.session;
   if (s.vehicle != a.vehicle) return differs("vehicle (" + s.vehicle + ")");
   if (s.facts.cell != a.cell) return differs("cell (" + s.facts.cell + ")");
   if (!s.accepted) return differs("result (" + s.result + ")");
   if (!same_load(s.target, a.target)) return differs("target");
   if (!s.final_set || !same_load(*s.final_set, a.final_set)) return differs("final set");
-  // The measured curve moves the history's loss (docs/store.md, "The history first setting"): believed only
-  // from an iterative session whose folder says the same curve.
-  if (a.measured && (s.method != core::to_string(core::SettingMethod::iterative) || !s.measured ||
-                     !same_load(*s.measured, *a.measured)))
-    return differs("measured curve or method");
-  if (warm_up) *warm_up = s.warm_up;
   return std::nullopt;
+}
+
+std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options) {
+  return compare_accepted_row(a, verify_accepted_folder(a, options));
 }
 
 bool check_store(Store& store, const record::VerifyOptions& options, std::vector<CheckFinding>& findings,

@@ -56,11 +56,19 @@ std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::Ve
 // An accepted session's row as the history first setting uses it: check_row, and then the folder read again
 // must say the same vehicle, cell, accepted result, target and final set as the row (the row is not the
 // evidence: the hostile review changed a row's final set, vehicle and cell and saw them used). A difference
-// is the finding "differs".
-// When the row passes and `warm_up` is given, it receives the folder's first warm-up hold (read from the
-// verified folder, never from the row).
-std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options,
-                                               std::optional<core::WarmUpRecord>* warm_up = nullptr);
+// is the finding "differs". The measured curve, the method and the warm-up hold are not compared: the history
+// takes them from the folder (VerifiedSession below).
+std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options);
+// The same in two steps, so that a folder is verified and read once however many rows name it, and every row
+// is still compared with it: the folder (check_row, then read as a session), then each row against what it
+// says. What the history uses beyond the row's target and final set (the measured curve, the method, the
+// warm-up hold) is taken from `session`, never from the row.
+struct VerifiedSession {
+  std::optional<CheckFinding> finding;  // the folder failed check_row, or is not a session
+  std::optional<SessionEntry> session;  // its own facts, when it passed
+};
+VerifiedSession verify_accepted_folder(const AcceptedSession& a, const record::VerifyOptions& options);
+std::optional<CheckFinding> compare_accepted_row(const AcceptedSession& a, const VerifiedSession& folder);
 // Every row of the store against its folder: the folder must exist, verify intact and sealed, and carry the
 // indexed origin and seal. rows_checked gets the number of rows looked at.
 bool check_store(Store& store, const record::VerifyOptions& options, std::vector<CheckFinding>& findings,

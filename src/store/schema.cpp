@@ -4,8 +4,6 @@
 #include <map>
 #include <stdexcept>
 
-#include "core/profile.hpp"
-
 namespace loadtrim::store::schema {
 
 namespace {
@@ -307,7 +305,7 @@ namespace {
 constexpr const char* kAcceptedColumns =
     "s.name, s.folder, s.origin, s.seal_sha256, s.cell, s.vehicle, s.started_utc, s.target_f0_n, "
     "s.target_f1_n_per_kmh, s.target_f2_n_per_kmh2, s.final_f0_n, s.final_f1_n_per_kmh, "
-    "s.final_f2_n_per_kmh2, s.method, s.measured_f0_n, s.measured_f1_n_per_kmh, s.measured_f2_n_per_kmh2";
+    "s.final_f2_n_per_kmh2";
 // An accepted session that has a final set, in the table aliased `t` (an accepted session always has one;
 // the test is kept so that a row without it can never be used).
 std::string accepted(const std::string& t) {
@@ -346,11 +344,6 @@ AcceptedSession accepted_session_row(const ResultRow& c) {
   a.started_utc = c.text(6);
   a.target = core::RoadLoad{c.real(7), c.real(8), c.real(9)};
   a.final_set = core::RoadLoad{c.real(10), c.real(11), c.real(12)};
-  // The last measured curve only for an iterative session: its last coast-down is at the accepted setting (a
-  // fixed-run session's may be at the runs' setting). docs/store.md, "The history first setting".
-  if (c.text(13) == core::to_string(core::SettingMethod::iterative) && !c.is_null(14) && !c.is_null(15) &&
-      !c.is_null(16))
-    a.measured = core::RoadLoad{c.real(14), c.real(15), c.real(16)};
   return a;
 }
 

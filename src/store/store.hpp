@@ -72,7 +72,8 @@ struct SessionEntry {
   std::vector<SpeedDeviation> final_deviations;  // summary.json's deviations
   std::vector<CoastdownEntry> coastdown_records;
   std::vector<Review> reviews;
-  // The first "warm_up" record's speed and windows (nullopt: none, or written before windows were kept).
+  // The initial warm-up hold's speed and windows: the first "warm_up" record when it says "initial": true
+  // (nullopt: none, interrupted before it, or written before the windows were kept).
   std::optional<core::WarmUpRecord> warm_up;
 };
 
@@ -149,7 +150,6 @@ struct AcceptedSession {
   std::string cell, vehicle;
   std::string started_utc;
   core::RoadLoad target, final_set;
-  std::optional<core::RoadLoad> measured;  // the last coast-down's curve, iterative sessions only
 };
 // A vehicle accepted on two cells: its latest accepted session on each.
 struct CellPairRow {

@@ -136,6 +136,11 @@ def main():
         expect("set %s = target − (loss_A(V) + correction) = %.9g" % (k, want_set),
                abs(first["set"][k] - want_set) <= tol * max(1.0, abs(want_set)), first["set"])
     expect("the correction says it is over one pair", corr.get("pairs") == 1, corr)
+    # The day-to-day correction compares warm-ups on the same cell only (docs/store.md): from cell A it is not
+    # made, and the record says why.
+    ds = first.get("inputs", {}).get("history_day_scale", {})
+    expect("no day-to-day correction from another cell, said", ds.get("used") is False and
+           "on another cell" in ds.get("why", ""), ds)
     # `loadtrim target` shows the same choice for V on B, from the same store.
     r = tool("target", "--from", v_target, "--cell", cells["B"][1], "--profile",
              os.path.join(ARGS.src, "tests/data/wltp-iterative-short-warmup.toml"), "--json")

@@ -309,8 +309,8 @@ std::vector<Payload> every_event() {
       ev::Limits{140.0, 135.0, 15.0, 200.0, 180.0, 200.0, 3600.0},
       ev::InertiaSet{1500.0, 45.0, 1545.0, 1522.5, core::AxleLayout::single_axle},
       ev::WarmUpStarted{80.0, 1200.0, 60.0},
-      ev::WarmUpHeld{80.0, 1201.0, "stable", 2.0, 160.0, {{30.0, 170.0}, {90.0, 165.5}}},
-      ev::WarmUpHeld{80.0, 1201.0, "not stable within the extra time", 2.0, std::nullopt, {}},
+      ev::WarmUpHeld{80.0, 1201.0, "stable", 2.0, 160.0, {{30.0, 170.0}, {90.0, 165.5}}, true},
+      ev::WarmUpHeld{80.0, 1201.0, "not stable within the extra time", 2.0, std::nullopt, {}, false},
       ev::LossMapSkipped{"no force in speed hold"},
       ev::LossMapPointSkipped{150.0, "above the speed limit"},
       ev::LossMapPoint{{60.0, 80.0, 1.5, 500}},
@@ -463,8 +463,9 @@ TEST(Events, RecordsAreByteForByteWhatEarlierVersionsWrote) {
       to_json(Payload{ev::LinkLost{"timeout", 2}}).dump(),
       R"({"incident":2,"note":"the controller's watchdog takes the rollers to a stop","why":"timeout"})");
   EXPECT_EQ(
-      to_json(Payload{ev::WarmUpHeld{80.0, 1201.0, "not checked", 0.0, std::nullopt, {{30.0, 170.25}}}}).dump(),
-      R"({"held_s":1201.0,"last_window_force_n":null,"speed_kmh":80.0,"stability":"not checked","stability_threshold_n":0.0,"windows":[{"force_n":170.25,"t_s":30.0}]})");
+      to_json(Payload{ev::WarmUpHeld{80.0, 1201.0, "not checked", 0.0, std::nullopt, {{30.0, 170.25}}, true}})
+          .dump(),
+      R"({"held_s":1201.0,"initial":true,"last_window_force_n":null,"speed_kmh":80.0,"stability":"not checked","stability_threshold_n":0.0,"windows":[{"force_n":170.25,"t_s":30.0}]})");
   // A stamp before the controller's clock is known: the state only.
   const Event early{ev::Refused{"no"}, Stamp{State::connect, std::nullopt, std::nullopt}, nullptr};
   EXPECT_EQ(record_json(early).dump(), R"({"state":"connect","why":"no"})");

@@ -325,6 +325,7 @@ TEST(SessionUnit, TheHistorysLossIsScaledByTodaysWarmUpOverTheEarlierOnes) {
   // hold's last sample may not close).
   ASSERT_GE(held[0].windows.size(), 14u);
   ASSERT_LE(held[0].windows.size(), 15u);
+  EXPECT_TRUE(held[0].initial);
   EXPECT_NEAR(held[0].windows.front().t_s, 30.0, 1.0);
   EXPECT_GT(held[0].windows.back().t_s, 800.0);
   core::HistoryEntry h;
@@ -1038,6 +1039,51 @@ TEST(SessionUnit, APauseDuringTheWarmUpWarmsUpAgainAfterTheContinue) {
   EXPECT_EQ(count(record, "warm_up_started"), 2);
   EXPECT_EQ(count(record, "warm_up_ended"), 1);
   EXPECT_EQ(count(record, "coastdown_discarded"), 0) << "no run was in progress";
+}
+
+// The history's day-to-day correction compares only the session's initial warm-up hold (docs/store.md, "The
+// history first setting"): after a pause in the warm-up the re-warm is not initial, its record says so, and the
+// first setting uses the history's loss as it is, saying why.
+TEST(SessionUnit, APausedWarmUpIsNotComparedForTheDayToDayCorrection) {
+  FakeController c(loadtrim::testing::demo_truth());
+  PauseScript ps;
+  ps.when = [](const session::Event& e) {
+    return std::holds_alternative<session::ev::WarmUpStarted>(e.payload);
+  };
+  std::vector<session::ev::WarmUpHeld> held;
+  std::optional<session::ev::FirstSetting> first;
+  Hook hook([&](const session::Event& e) {
+    ps.on(e);
+    if (const auto* w = std::get_if<session::ev::WarmUpHeld>(&e.payload)) held.push_back(*w);
+    if (const auto* f = std::get_if<session::ev::FirstSetting>(&e.payload)) first = *f;
+  });
+  session::Inputs in = inputs();
+  in.profile.warm_up.duration_s = 900.0;
+  in.profile.warm_up.stable_window_s = 60.0;
+  session::Options o = options();
+  o.pause = &ps.control;
+  o.first_setting = core::FirstSetting::history;
+  core::HistoryEntry h;  // an invented earlier session: its loss the target's own 1/4, a settled 127 N hold
+  h.utc = "2026-12-02T10:00:00Z";
+  h.target = in.vehicle.target;
+  h.final_set = in.vehicle.target.scaled(0.75);
+  h.warm_up = core::WarmUpRecord{80.0, {}};
+  for (double t = 30.0; t < 900.0; t += 60.0) h.warm_up->windows.push_back({t, 127.0});
+  o.history = h;
+  Recorder record(true);
+  const auto sum = session::Session(in, o, c, {&record, &hook}).run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  EXPECT_EQ(count(record, "paused"), 1);
+  ASSERT_EQ(held.size(), 1u);  // the interrupted hold never ended; the re-warm did
+  EXPECT_FALSE(held[0].initial);
+  EXPECT_GE(held[0].windows.size(), 14u);  // still recorded, as facts of the re-warm
+  ASSERT_TRUE(first && first->day_scale);
+  EXPECT_EQ(first->strategy, "history");
+  EXPECT_FALSE(first->day_scale->used);
+  EXPECT_NE(first->day_scale->why.find("this session's initial warm-up hold is not known"), std::string::npos)
+      << first->day_scale->why;
+  const core::RoadLoad want = core::setting_for_loss(h.target, h.loss());  // the loss as it is
+  EXPECT_NEAR(first->set.f0_n, want.f0_n, 1e-9);
 }
 
 TEST(SessionUnit, APauseWithoutAContinueEndsAsInterruptedWithTheRollersStopped) {

@@ -1110,15 +1110,11 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
 
   // The row is not the evidence: a final set, vehicle or cell changed in the store alone (the folder still
   // verifies with its seal) is not used, and the lookup says the folder differs.
-  // The measured curve and the method are evidence too: a measured F0 changed, or the session called
-  // fixed-run in the store alone, is not used either.
   const std::vector<std::pair<std::string, std::string>> forgeries = {
       {"UPDATE sessions SET final_f0_n = final_f0_n + 100 WHERE name = 'indexed'",
        "UPDATE sessions SET final_f0_n = final_f0_n - 100 WHERE name = 'indexed'"},
       {"UPDATE sessions SET cell = 'another cell' WHERE name = 'indexed'",
-       "UPDATE sessions SET cell = '" + g_made->cell + "' WHERE name = 'indexed'"},
-      {"UPDATE sessions SET measured_f0_n = measured_f0_n + 100 WHERE name = 'indexed'",
-       "UPDATE sessions SET measured_f0_n = measured_f0_n - 100 WHERE name = 'indexed'"}};
+       "UPDATE sessions SET cell = '" + g_made->cell + "' WHERE name = 'indexed'"}};
   for (const auto& [forge, undo] : forgeries) {
     exec(forge);
     ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))
@@ -1131,16 +1127,15 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
     EXPECT_TRUE(said) << forge << ": " << found.not_used[0].why << " / " << found.not_used[1].why;
     exec(undo);
   }
-  // Called fixed-run in the store, the row gives no measured curve, and its loss is target − final set (which
-  // the folder still confirms).
-  exec("UPDATE sessions SET method = 'fixed-run' WHERE name = 'indexed'");
+  // The measured curve and the method are never taken from the row: changed there (a measured F0 100 N
+  // higher, the session called fixed-run, the curve emptied), the loss is still the folder's.
+  exec("UPDATE sessions SET measured_f0_n = measured_f0_n + 100, method = 'fixed-run', measured_f1_n_per_kmh = "
+       "NULL WHERE name = 'indexed'");
   ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))
       << err;
-  ASSERT_TRUE(found.entry);
-  EXPECT_FALSE(found.entry->measured);
-  EXPECT_DOUBLE_EQ(found.entry->loss().f0_n,
-                   start["target"]["f0_n"].get<double>() - summary["final_set"]["f0_n"].get<double>());
-  exec("UPDATE sessions SET method = 'iterative' WHERE name = 'indexed'");
+  ASSERT_TRUE(found.entry && found.entry->measured);
+  EXPECT_DOUBLE_EQ(found.entry->loss().f0_n, loss.f0_n);
+  EXPECT_DOUBLE_EQ(found.entry->loss().f1_n_per_kmh, loss.f1_n_per_kmh);
 
   std::string text = read_file(copy + "/summary.json");
   text.back() = text.back() == ' ' ? '\t' : ' ';  // one byte of a sealed file

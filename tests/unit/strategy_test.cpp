@@ -285,7 +285,7 @@ TEST(HistoryFromStore, AnIterativeSessionsLossIsItsLastMeasuredCurveLessItsSetti
   // coast-down measured {154, 0.45, 0.0302} against the target {150, 0.5, 0.03} (a deviation of +4 N at
   // 0 km/h, accepted). The loss the rollers showed is measured − set = {94, 0.05, 0.0022} (algebra), not
   // target − set = {90, 0.1, 0.002}; the set for the same target is then {56, 0.45, 0.0278}: the standard's
-  // next adjustment (set + target − measured, docs/standards.md §3.5).
+  // next adjustment (set + target − measured, docs/standards.md §3.4).
   auto v = v_sessions();
   v.push_back(stored("b-1", "B", "V", "2026-09-01T08:00:00.000Z", kVTarget, {60.0, 0.4, 0.028},
                      RoadLoad{154.0, 0.45, 0.0302}));
@@ -365,6 +365,13 @@ TEST(DayScale, NotUsedAndSaidWhenTheWarmUpsCannotBeCompared) {
   EXPECT_DOUBLE_EQ(d.ratio, 1.0);
   EXPECT_NE(d.why.find("1.300 times"), std::string::npos) << d.why;
   EXPECT_NE(d.why.find("outside 0.80 to 1.25"), std::string::npos) << d.why;
+  // The bounds belong to the range: 250/200 = 1.25 and 160/200 = 0.8 are used (exact in binary).
+  d = core::day_to_day_scale(base, warm_up(80.0, 1170.0, 250.0));
+  EXPECT_TRUE(d.used) << d.why;
+  EXPECT_DOUBLE_EQ(d.ratio, 1.25);
+  d = core::day_to_day_scale(base, warm_up(80.0, 1170.0, 160.0));
+  EXPECT_TRUE(d.used) << d.why;
+  EXPECT_DOUBLE_EQ(d.ratio, 0.8);
   // One window in the compared span (the earlier record keeps only every third window).
   core::WarmUpRecord sparse{80.0, {}};
   for (const auto& w : base.windows)
@@ -416,14 +423,14 @@ TEST(DayScale, TheHistorysLossIsScaledWhenBothWarmUpsAreGiven) {
   c = core::choose_first_setting(in);
   ASSERT_TRUE(c.day_scale);
   EXPECT_FALSE(c.day_scale->used);
-  EXPECT_EQ(c.day_scale->why, "this session's warm-up not given");
+  EXPECT_NE(c.day_scale->why.find("this session's initial warm-up hold is not known"), std::string::npos);
   expect_load(c.set, {70.0, 0.3, 0.029});
   in.warm_up_today = warm_up(80.0, 1230.0, 206.0);
   in.history->warm_up.reset();
   c = core::choose_first_setting(in);
   ASSERT_TRUE(c.day_scale);
   EXPECT_FALSE(c.day_scale->used);
-  EXPECT_NE(c.day_scale->why.find("not recorded"), std::string::npos);
+  EXPECT_NE(c.day_scale->why.find("the earlier session's initial warm-up hold is not known"), std::string::npos);
   expect_load(c.set, {70.0, 0.3, 0.029});
   // Another strategy used: no day scale at all.
   in.requested = core::FirstSetting::standard;
