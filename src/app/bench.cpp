@@ -401,14 +401,13 @@ int run_bench(BenchOptions o) {
   };
   const Cells cells = cells_at(o.rate_hz);
 
-  const std::vector<Strategy> strategies = {{"standard", core::FirstSetting::standard},
-                                            {"fleet", core::FirstSetting::fleet},
-                                            {"loss-map", core::FirstSetting::loss_map},
-                                            {"history", core::FirstSetting::history, true},
-                                            {"history-no-day-scale", core::FirstSetting::history, true, true, false,
-                                             false},
-                                            {"history-target-less-set", core::FirstSetting::history, true, false,
-                                             false, false}};
+  const std::vector<Strategy> strategies = {
+      {"standard", core::FirstSetting::standard},
+      {"fleet", core::FirstSetting::fleet},
+      {"loss-map", core::FirstSetting::loss_map},
+      {"history", core::FirstSetting::history, true},
+      {"history-no-day-scale", core::FirstSetting::history, true, true, false, false},
+      {"history-target-less-set", core::FirstSetting::history, true, false, false, false}};
   // The iterative profile with the drift rule "require" (docs/standards.md §3.12): the vehicle must be stable
   // at acceptance; measured for the default first setting (the loss map) only.
   core::Profile iterative_require = iterative;
@@ -852,7 +851,7 @@ int run_bench(BenchOptions o) {
         "    (every row, with the levers turned off and the lab-policy rows: at most %.2f %%, %s)\n",
         100 * limit, 100 * worst, where.c_str(), worst_n, yes(worst <= limit), 100 * any, any_where.c_str());
     report["goals"]["truly_outside_last_coastdown"] = {
-        {"limit_share", limit}, {"worst_share", worst},         {"where", where},
+        {"limit_share", limit},  {"worst_share", worst},         {"where", where},
         {"met", worst <= limit}, {"every_row_worst_share", any}, {"every_row_where", any_where}};
     double warm = 0.0;
     for (const auto& key : {"iterative", "fixed-run"})

@@ -277,8 +277,9 @@ DayScale day_to_day_scale(const WarmUpRecord& then, const WarmUpRecord& now) {
   }
   const double r = d.now_n / d.then_n;
   if (!(r >= kDayScaleMin && r <= kDayScaleMax)) {
-    std::snprintf(buf, sizeof buf, "today's warm-up force is %.3f times the earlier one's (outside %.2f to %.2f)",
-                  r, kDayScaleMin, kDayScaleMax);
+    std::snprintf(buf, sizeof buf,
+                  "today's warm-up force is %.3f times the earlier one's (outside %.2f to %.2f)", r,
+                  kDayScaleMin, kDayScaleMax);
     d.why = buf;
     return d;
   }

@@ -111,20 +111,21 @@ struct WarmUpRecord {
 // The history's day-to-day correction (docs/store.md, "The history first setting"; our rule, no source): the
 // vehicle's loss on the same cell changes from day to day (tyre pressure and temperature, oil), and today's
 // warm-up hold sees that change before any coast-down. The two warm-ups are compared at the same time since
-// their start: t = the end of the shorter, each as the mean of its windows in (t − kDayScaleSpanS, t]; the
-// history's loss is scaled by today's mean over the earlier one's.
-inline constexpr double kDayScaleSpanS = 180.0;          // three one-minute windows (our choice, no source)
-inline constexpr double kDayScaleMinHeldS = 600.0;       // both warm-ups held at least 10 min (our choice)
-inline constexpr double kDayScaleSpeedKmh = 0.5;         // the same warm-up speed within this
+// their start: t = the earlier of the two last windows' middles, each as the mean of its windows in
+// (t − kDayScaleSpanS, t]; the history's loss is scaled by today's mean over the earlier one's. Both are the
+// sessions' initial holds (the session and the store see to that).
+inline constexpr double kDayScaleSpanS = 180.0;     // three one-minute windows (our choice, no source)
+inline constexpr double kDayScaleMinHeldS = 600.0;  // t at least 10 min into both (our choice)
+inline constexpr double kDayScaleSpeedKmh = 0.5;    // the same warm-up speed within this
 inline constexpr double kDayScaleMin = 0.8, kDayScaleMax = 1.25;  // a larger change is not the same state
 struct DayScale {
   bool used = false;
-  std::string why;       // when not used: why ("" when used)
-  double ratio = 1.0;    // today's mean over the earlier one's (1 when none was computed or it was out of
-                         // range: why gives it; the ratio refused when the scaled set left the envelope)
-  double at_s = 0.0;     // the time since the warm-up began the two were compared at
-  double then_n = 0.0;   // the earlier session's mean there
-  double now_n = 0.0;    // today's
+  std::string why;      // when not used: why ("" when used)
+  double ratio = 1.0;   // today's mean over the earlier one's (1 when none was computed or it was out of
+                        // range: why gives it; the ratio refused when the scaled set left the envelope)
+  double at_s = 0.0;    // the time since the warm-up began the two were compared at
+  double then_n = 0.0;  // the earlier session's mean there
+  double now_n = 0.0;   // today's
   int windows_then = 0, windows_now = 0;
 };
 DayScale day_to_day_scale(const WarmUpRecord& then, const WarmUpRecord& now);
@@ -174,7 +175,7 @@ struct HistoryEntry {
   std::string utc;
   RoadLoad target;
   RoadLoad final_set;
-  std::optional<RoadLoad> measured;      // as StoredSession::measured
+  std::optional<RoadLoad> measured;     // as StoredSession::measured
   std::optional<WarmUpRecord> warm_up;  // its first warm-up hold (nullopt: not recorded, or another cell)
   RoadLoad correction;                  // the cell correction (zero when the session was on this cell)
   std::optional<HistoryBasis> basis;
@@ -223,7 +224,7 @@ struct FirstSettingChoice {
   // What the chosen strategy used, recorded beside its result.
   std::optional<std::string> history_utc;  // only when history was requested and used
   std::optional<HistoryBasis>
-      history_basis;  // whenever the history's loss was used and says where it is from
+      history_basis;                  // whenever the history's loss was used and says where it is from
   std::optional<DayScale> day_scale;  // whenever the history's loss was used: its day-to-day correction
   std::optional<RoadLoad> map_fit;
   std::optional<double> map_residual_sd_n;

@@ -711,8 +711,9 @@ static std::string write_report_body(const std::string& folder, const std::strin
     // The day-to-day correction from the two warm-ups (docs/store.md, "The history first setting").
     if (const json d = first.value("inputs", json::object()).value("history_day_scale", json());
         d.is_object()) {
-      if (d.value("used", false) && d.value("ratio", json()).is_number() && d.value("at_s", json()).is_number() &&
-          d.value("then_n", json()).is_number() && d.value("now_n", json()).is_number())
+      if (d.value("used", false) && d.value("ratio", json()).is_number() &&
+          d.value("at_s", json()).is_number() && d.value("then_n", json()).is_number() &&
+          d.value("now_n", json()).is_number())
         text += ". Day-to-day correction: the loss scaled by " + fmt(d["ratio"].get<double>(), 4) +
                 " (this warm-up's " + fmt(d["now_n"].get<double>(), 1) + " N over the earlier " +
                 fmt(d["then_n"].get<double>(), 1) + " N, at " + fmt(d["at_s"].get<double>(), 0) +

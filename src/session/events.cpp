@@ -274,10 +274,14 @@ struct Mapper {
     if (e.anticipation) inputs["anticipation"] = anticipation_json(*e.anticipation);
     if (e.day_scale) {
       const core::DayScale& d = *e.day_scale;
-      inputs["history_day_scale"] = {{"used", d.used},       {"why", d.why},
-                                     {"ratio", d.ratio},     {"at_s", d.at_s},
-                                     {"then_n", d.then_n},   {"now_n", d.now_n},
-                                     {"windows_then", d.windows_then}, {"windows_now", d.windows_now}};
+      inputs["history_day_scale"] = {{"used", d.used},
+                                     {"why", d.why},
+                                     {"ratio", d.ratio},
+                                     {"at_s", d.at_s},
+                                     {"then_n", d.then_n},
+                                     {"now_n", d.now_n},
+                                     {"windows_then", d.windows_then},
+                                     {"windows_now", d.windows_now}};
     }
     if (e.history) {
       const core::HistoryBasis& b = *e.history;

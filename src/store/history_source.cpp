@@ -15,9 +15,8 @@ namespace {
 // (never the row) the last measured curve of an iterative session and the initial warm-up hold.
 core::StoredSession to_core(const AcceptedSession& a, const SessionEntry& folder) {
   const bool iterative = folder.method == core::to_string(core::SettingMethod::iterative);
-  return {a.name,         a.folder,    a.cell,
-          a.vehicle,      a.started_utc, a.target,
-          a.final_set,    iterative ? folder.measured : std::nullopt,
+  return {a.name,        a.folder, a.cell,      a.vehicle,
+          a.started_utc, a.target, a.final_set, iterative ? folder.measured : std::nullopt,
           folder.warm_up};
 }
 
@@ -34,7 +33,8 @@ class FolderChecks {
     auto it = seen_.find(key);
     if (it == seen_.end()) it = seen_.emplace(key, verify_accepted_folder(a, options_)).first;
     if (const auto finding = compare_accepted_row(a, it->second)) {
-      if (reported_.insert(a.name + '\n' + key).second) not_used_.push_back({a.name, a.folder, finding->message});
+      if (reported_.insert(a.name + '\n' + key).second)
+        not_used_.push_back({a.name, a.folder, finding->message});
       return nullptr;
     }
     return &*it->second.session;

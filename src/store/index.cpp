@@ -146,7 +146,8 @@ SessionEntry read_session(const std::string& folder, const std::vector<record::L
       // The first warm-up hold, when it was the session's initial one (not after a pause or a resume).
       warm_up_seen = true;
       e.warm_up = record::initial_warm_up_from_record(r);
-    } else if (type == "first_setting" && !first_setting_seen) {  // the first setting is the first one recorded
+    } else if (type == "first_setting" &&
+               !first_setting_seen) {  // the first setting is the first one recorded
       first_setting_seen = true;
       e.first_setting_strategy = text(r, "strategy");
       e.first_setting_fallback = text(r, "fallback_reason");
@@ -369,9 +370,9 @@ VerifiedSession verify_accepted_folder(const AcceptedSession& a, const record::V
   }
   FolderEntry e = read_folder(a.folder, v);
   if (!e.session) {
-    out.finding = CheckFinding{row, "differs",
-                               "session folder " + a.folder + " says another kind of record (" + e.error +
-                                   ") than the store's row"};
+    out.finding = CheckFinding{
+        row, "differs",
+        "session folder " + a.folder + " says another kind of record (" + e.error + ") than the store's row"};
     return out;
   }
   out.session = std::move(*e.session);
@@ -397,7 +398,8 @@ std::optional<CheckFinding> compare_accepted_row(const AcceptedSession& a, const
   return std::nullopt;
 }
 
-std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options) {
+std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a,
+                                               const record::VerifyOptions& options) {
   return compare_accepted_row(a, verify_accepted_folder(a, options));
 }
 

@@ -58,7 +58,8 @@ std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::Ve
 // evidence: the hostile review changed a row's final set, vehicle and cell and saw them used). A difference
 // is the finding "differs". The measured curve, the method and the warm-up hold are not compared: the history
 // takes them from the folder (VerifiedSession below).
-std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a, const record::VerifyOptions& options);
+std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a,
+                                               const record::VerifyOptions& options);
 // The same in two steps, so that a folder is verified and read once however many rows name it, and every row
 // is still compared with it: the folder (check_row, then read as a session), then each row against what it
 // says. What the history uses beyond the row's target and final set (the measured curve, the method, the

@@ -322,14 +322,16 @@ std::vector<Payload> every_event() {
                        core::RoadLoad{30.0, 0.1, 0.004}, std::nullopt, nlohmann::json(),
                        core::CoastCorrection{true, "", 7, 12.5, 0.0004, 1.1}, anticipation(), std::nullopt},
       ev::FirstSetting{"history", "standard", "no history", kSet, std::nullopt, std::nullopt, std::nullopt,
-                       std::nullopt, std::nullopt, nlohmann::json(), std::nullopt, std::nullopt, std::nullopt},
+                       std::nullopt, std::nullopt, nlohmann::json(), std::nullopt, std::nullopt,
+                       std::nullopt},
       ev::FirstSetting{"history", "history", "", kSet, std::string("2026-11-20T08:00:00.000Z"), std::nullopt,
                        std::nullopt, core::RoadLoad{73.0, 0.05, 0.0025}, history_basis(),
                        nlohmann::json{{"looked", "store"},
                                       {"store", "/lab/store.sqlite"},
                                       {"not_used", nlohmann::json::array()},
                                       {"note", ""}},
-                       std::nullopt, std::nullopt, core::DayScale{true, "", 1.02, 1170.0, 150.0, 153.0, 3, 3}},
+                       std::nullopt, std::nullopt,
+                       core::DayScale{true, "", 1.02, 1170.0, 150.0, 153.0, 3, 3}},
       ev::EnvelopeRefused{2, kSet, "force above the cell's"},
       ev::SetWritten{1, kSet, 1},
       ev::CoastdownStarted{1, kSet, 135.0},
@@ -667,7 +669,8 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   EXPECT_FALSE(back->measured);  // a file without "measured" (every file written before it): none
   // From an iterative session the last measured curve is kept as "measured" and read back.
   const core::RoadLoad measured{146.5, 0.33, 0.0335};
-  ASSERT_TRUE(record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err, measured)) << err;
+  ASSERT_TRUE(record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err, measured))
+      << err;
   const auto with = record::load_vehicle_history(file);
   ASSERT_TRUE(with && with->measured);
   EXPECT_TRUE(*with->measured == measured);
@@ -675,7 +678,8 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   EXPECT_FALSE(with->warm_up);
   // And the session's first warm-up hold as "warm_up", read back window by window.
   const core::WarmUpRecord warm{80.0, {{30.0, 212.5}, {90.0, 208.25}}};
-  ASSERT_TRUE(record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err, measured, warm))
+  ASSERT_TRUE(
+      record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err, measured, warm))
       << err;
   const auto warmed = record::load_vehicle_history(file);
   ASSERT_TRUE(warmed && warmed->warm_up);

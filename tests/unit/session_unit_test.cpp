@@ -1042,8 +1042,8 @@ TEST(SessionUnit, APauseDuringTheWarmUpWarmsUpAgainAfterTheContinue) {
 }
 
 // The history's day-to-day correction compares only the session's initial warm-up hold (docs/store.md, "The
-// history first setting"): after a pause in the warm-up the re-warm is not initial, its record says so, and the
-// first setting uses the history's loss as it is, saying why.
+// history first setting"): after a pause in the warm-up the re-warm is not initial, its record says so, and
+// the first setting uses the history's loss as it is, saying why.
 TEST(SessionUnit, APausedWarmUpIsNotComparedForTheDayToDayCorrection) {
   FakeController c(loadtrim::testing::demo_truth());
   PauseScript ps;

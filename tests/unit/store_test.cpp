@@ -1105,7 +1105,8 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
     EXPECT_DOUBLE_EQ(same.entry->warm_up->speed_kmh, first_warm_up["speed_kmh"].get<double>());
     EXPECT_DOUBLE_EQ(same.entry->warm_up->windows.back().force_n,
                      first_warm_up["windows"].back()["force_n"].get<double>());
-    EXPECT_DOUBLE_EQ(same.entry->warm_up->windows.back().t_s, first_warm_up["windows"].back()["t_s"].get<double>());
+    EXPECT_DOUBLE_EQ(same.entry->warm_up->windows.back().t_s,
+                     first_warm_up["windows"].back()["t_s"].get<double>());
   }
 
   // The row is not the evidence: a final set, vehicle or cell changed in the store alone (the folder still
@@ -1129,8 +1130,10 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
   }
   // The measured curve and the method are never taken from the row: changed there (a measured F0 100 N
   // higher, the session called fixed-run, the curve emptied), the loss is still the folder's.
-  exec("UPDATE sessions SET measured_f0_n = measured_f0_n + 100, method = 'fixed-run', measured_f1_n_per_kmh = "
-       "NULL WHERE name = 'indexed'");
+  exec(
+      "UPDATE sessions SET measured_f0_n = measured_f0_n + 100, method = 'fixed-run', measured_f1_n_per_kmh "
+      "= "
+      "NULL WHERE name = 'indexed'");
   ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))
       << err;
   ASSERT_TRUE(found.entry && found.entry->measured);

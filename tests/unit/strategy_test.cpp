@@ -313,9 +313,9 @@ TEST(HistoryFromStore, AnIterativeSessionsLossIsItsLastMeasuredCurveLessItsSetti
   expect_load(other->correction, {-8.0, -0.1, 0.001});
 }
 
-// --- The history's day-to-day correction (core::day_to_day_scale; docs/store.md, "The history first setting":
-// our rule, no source). Invented warm-ups: one-minute windows at t = 30, 90, ... s; every number below is
-// worked by hand.
+// --- The history's day-to-day correction (core::day_to_day_scale; docs/store.md, "The history first
+// setting": our rule, no source). Invented warm-ups: one-minute windows at t = 30, 90, ... s; every number
+// below is worked by hand.
 namespace {
 core::WarmUpRecord warm_up(double speed_kmh, double last_t_s, double settled_n) {
   core::WarmUpRecord r{speed_kmh, {}};
@@ -430,7 +430,8 @@ TEST(DayScale, TheHistorysLossIsScaledWhenBothWarmUpsAreGiven) {
   c = core::choose_first_setting(in);
   ASSERT_TRUE(c.day_scale);
   EXPECT_FALSE(c.day_scale->used);
-  EXPECT_NE(c.day_scale->why.find("the earlier session's initial warm-up hold is not known"), std::string::npos);
+  EXPECT_NE(c.day_scale->why.find("the earlier session's initial warm-up hold is not known"),
+            std::string::npos);
   expect_load(c.set, {70.0, 0.3, 0.029});
   // Another strategy used: no day scale at all.
   in.requested = core::FirstSetting::standard;
