@@ -299,9 +299,10 @@ int run_target(const TargetOptions& o) {
                 std::to_string(b.correction.f1_n_per_kmh) + " N/(km/h), f2 " +
                 std::to_string(b.correction.f2_n_per_kmh2) + " N/(km/h)^2";
     }
-    note +=
-        "; a session scales this loss by its own warm-up hold force over the earlier session's (same cell; "
-        "docs/store.md, \"The history first setting\"), which this command cannot know";
+    if (!c.history_basis || c.history_basis->same_cell)
+      note +=
+          "; a session scales this loss by its own warm-up hold force over the earlier session's (same cell; "
+          "docs/store.md, \"The history first setting\"), which this command cannot know";
     nlohmann::json h = {{"strategy", "history"}, {"set", coef(c.set)}, {"note", note}};
     if (c.loss) h["loss"] = coef(*c.loss);
     if (!hist_lookup.is_null()) h["lookup"] = hist_lookup;

@@ -308,14 +308,14 @@ FirstSettingChoice choose_first_setting(const FirstSettingInputs& in) {
     c.loss = in.history->loss();
     c.history_basis = in.history->basis;
     DayScale d;
-    if (!in.warm_up_today)
+    if (in.history->basis && !in.history->basis->same_cell)
+      d.why = "the earlier session was on another cell (its warm-up hold was read on other rollers)";
+    else if (!in.warm_up_today)
       d.why =
           "this session's initial warm-up hold is not known (a pause or a resume before the first setting, "
           "fewer than two windows, or no force reported in speed hold)";
     else if (!in.history->warm_up)
-      d.why =
-          "the earlier session's initial warm-up hold is not known (not recorded, interrupted, or on another "
-          "cell)";
+      d.why = "the earlier session's initial warm-up hold is not known (not recorded, or interrupted)";
     else
       d = day_to_day_scale(*in.history->warm_up, *in.warm_up_today);
     if (d.used) c.loss = c.loss->scaled(d.ratio);

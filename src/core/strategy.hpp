@@ -130,9 +130,10 @@ struct DayScale {
 };
 DayScale day_to_day_scale(const WarmUpRecord& then, const WarmUpRecord& now);
 
-// (d) History: the loss seen in earlier sessions of the vehicle (target − accepted set): on the same cell as
-// it is; from another cell, corrected by what the lab's record store knows about the two cells
-// (docs/store.md, "The history first setting"; our rule, no source).
+// (d) History: the loss seen in earlier sessions of the vehicle (an iterative session's last measured curve
+// less its setting, else target − accepted set): on the same cell scaled by the day-to-day correction above;
+// from another cell, corrected by what the lab's record store knows about the two cells (docs/store.md, "The
+// history first setting"; our rule, no source).
 //
 // One accepted session as the record store indexed it (its folder verified again before it is passed here).
 struct StoredSession {
@@ -141,10 +142,10 @@ struct StoredSession {
   std::string cell, vehicle;
   std::string utc;  // when it started (record 0), ISO 8601 UTC: sorts as text
   RoadLoad target, final_set;
-  // The curve its last coast-down measured at final_set; the store gives it only for an iterative session,
-  // whose last coast-down is always at the accepted setting (nullopt otherwise, and for an older row).
+  // The curve its last coast-down measured at final_set, from its verified folder, only for an iterative
+  // session, whose last coast-down is always at the accepted setting (nullopt otherwise, or none recorded).
   std::optional<RoadLoad> measured;
-  std::optional<WarmUpRecord> warm_up;  // read from its verified folder (nullopt: none recorded)
+  std::optional<WarmUpRecord> warm_up;  // its initial warm-up hold, from its verified folder (or nullopt)
   // The loss on the rollers where the session ended: the measured curve less the setting it was measured
   // at when known (what the standard's adjustment would carry on from), else target − final_set.
   RoadLoad loss() const { return measured ? *measured - final_set : target - final_set; }
@@ -176,7 +177,7 @@ struct HistoryEntry {
   RoadLoad target;
   RoadLoad final_set;
   std::optional<RoadLoad> measured;     // as StoredSession::measured
-  std::optional<WarmUpRecord> warm_up;  // its first warm-up hold (nullopt: not recorded, or another cell)
+  std::optional<WarmUpRecord> warm_up;  // its initial warm-up hold (nullopt: not known, or another cell)
   RoadLoad correction;                  // the cell correction (zero when the session was on this cell)
   std::optional<HistoryBasis> basis;
   RoadLoad loss() const { return (measured ? *measured - final_set : target - final_set) + correction; }

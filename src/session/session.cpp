@@ -1237,7 +1237,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
         auto day_scale = c.day_scale;
         if (day_scale && day_scale->used) {
           day_scale->used = false;
-          day_scale->why = "not used: the history first setting left the safe envelope";
+          day_scale->why = "the scaled history first setting left the safe envelope";
         }
         if (correction && correction->ok) {
           correction->ok = false;

@@ -11,12 +11,19 @@ namespace loadtrim::store {
 
 namespace {
 
-// The row's identity, target and final set (compared with its folder), and from the verified folder alone
-// (never the row) the last measured curve of an iterative session and the initial warm-up hold.
+// The row's identity (compared with its folder), and from the verified folder alone its target, final set,
+// the last measured curve of an iterative session and the initial warm-up hold: no number of the row reaches
+// the loss.
 core::StoredSession to_core(const AcceptedSession& a, const SessionEntry& folder) {
   const bool iterative = folder.method == core::to_string(core::SettingMethod::iterative);
-  return {a.name,        a.folder, a.cell,      a.vehicle,
-          a.started_utc, a.target, a.final_set, iterative ? folder.measured : std::nullopt,
+  return {a.name,
+          a.folder,
+          a.cell,
+          a.vehicle,
+          a.started_utc,
+          folder.target,
+          folder.final_set.value_or(a.final_set),  // compare_accepted_row required it equal to the row's
+          iterative ? folder.measured : std::nullopt,
           folder.warm_up};
 }
 

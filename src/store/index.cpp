@@ -382,25 +382,23 @@ VerifiedSession verify_accepted_folder(const AcceptedSession& a, const record::V
 std::optional<CheckFinding> compare_accepted_row(const AcceptedSession& a, const VerifiedSession& folder) {
   if (folder.finding) return folder.finding;
   const IndexedFolder row{"session", a.folder, a.origin, a.seal_sha256, ""};
-  // The row is only what the folder said when it was indexed: its vehicle, cell, result, target and final set
-  // are believed only when the folder says the same now.
+  // The row is only what the folder said when it was indexed: its name, start time, vehicle, cell, result,
+  // target and final set are believed only when the folder says the same now.
   auto differs = [&](const std::string& what) {
     return CheckFinding{row, "differs",
                         "session folder " + a.folder + " says another " + what + " than the store's row"};
   };
   if (!folder.session) return differs("kind of record");
   const SessionEntry& s = *folder.session;
+  // The name and start time decide which session is the newest on a cell and which pairs are the newest.
+  if (s.facts.name != a.name) return differs("name (" + s.facts.name + ")");
+  if (s.facts.started_utc != a.started_utc) return differs("start time (" + s.facts.started_utc + ")");
   if (s.vehicle != a.vehicle) return differs("vehicle (" + s.vehicle + ")");
   if (s.facts.cell != a.cell) return differs("cell (" + s.facts.cell + ")");
   if (!s.accepted) return differs("result (" + s.result + ")");
   if (!same_load(s.target, a.target)) return differs("target");
   if (!s.final_set || !same_load(*s.final_set, a.final_set)) return differs("final set");
   return std::nullopt;
-}
-
-std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a,
-                                               const record::VerifyOptions& options) {
-  return compare_accepted_row(a, verify_accepted_folder(a, options));
 }
 
 bool check_store(Store& store, const record::VerifyOptions& options, std::vector<CheckFinding>& findings,

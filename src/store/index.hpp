@@ -53,17 +53,14 @@ struct CheckFinding {
 // One row against its folder (as check_store does for each): the finding, or nullopt when the folder is
 // there, verifies intact and sealed, and carries the indexed origin and seal.
 std::optional<CheckFinding> check_row(const IndexedFolder& row, const record::VerifyOptions& options);
-// An accepted session's row as the history first setting uses it: check_row, and then the folder read again
-// must say the same vehicle, cell, accepted result, target and final set as the row (the row is not the
-// evidence: the hostile review changed a row's final set, vehicle and cell and saw them used). A difference
-// is the finding "differs". The measured curve, the method and the warm-up hold are not compared: the history
-// takes them from the folder (VerifiedSession below).
-std::optional<CheckFinding> check_accepted_row(const AcceptedSession& a,
-                                               const record::VerifyOptions& options);
-// The same in two steps, so that a folder is verified and read once however many rows name it, and every row
-// is still compared with it: the folder (check_row, then read as a session), then each row against what it
-// says. What the history uses beyond the row's target and final set (the measured curve, the method, the
-// warm-up hold) is taken from `session`, never from the row.
+// An accepted session's row as the history first setting uses it, in two steps so that a folder is verified
+// and read once however many rows name it, and every row is still compared with it:
+// - verify_accepted_folder: check_row, then the folder read as a session;
+// - compare_accepted_row: the folder must say the same name, start time, vehicle, cell, accepted result,
+//   target and final set as the row (the row is not the evidence: the hostile review changed a row's final
+//   set, vehicle and cell and saw them used). A difference is the finding "differs".
+// The history takes the target, final set, measured curve, method and warm-up hold from `session`, never from
+// the row.
 struct VerifiedSession {
   std::optional<CheckFinding> finding;  // the folder failed check_row, or is not a session
   std::optional<SessionEntry> session;  // its own facts, when it passed

@@ -697,6 +697,22 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   ASSERT_TRUE(no_warm);
   EXPECT_FALSE(no_warm->warm_up);
   EXPECT_TRUE(no_warm->measured);
+  // From a record: only the session's initial hold ("initial": true); a re-warm's, or an older record
+  // without the member, gives none.
+  nlohmann::json rec = {{"type", "warm_up"},
+                        {"speed_kmh", 80.0},
+                        {"windows", {{{"t_s", 30.0}, {"force_n", 150.5}}}},
+                        {"initial", true}};
+  const auto initial = record::initial_warm_up_from_record(rec);
+  ASSERT_TRUE(initial);
+  ASSERT_EQ(initial->windows.size(), 1u);
+  EXPECT_EQ(initial->windows[0].force_n, 150.5);
+  rec["initial"] = false;
+  EXPECT_FALSE(record::initial_warm_up_from_record(rec));
+  rec["initial"] = "true";
+  EXPECT_FALSE(record::initial_warm_up_from_record(rec));
+  rec.erase("initial");
+  EXPECT_FALSE(record::initial_warm_up_from_record(rec));
   EXPECT_FALSE(record::load_vehicle_history(dir + "/none.json"));
   { std::ofstream(file) << R"({"utc": "x", "target": {"f0_n": 1}})"; }
   err.clear();

@@ -1115,7 +1115,10 @@ TEST_P(StoreTest, TheHistoryUsesOnlyRowsWhoseFoldersStillVerify) {
       {"UPDATE sessions SET final_f0_n = final_f0_n + 100 WHERE name = 'indexed'",
        "UPDATE sessions SET final_f0_n = final_f0_n - 100 WHERE name = 'indexed'"},
       {"UPDATE sessions SET cell = 'another cell' WHERE name = 'indexed'",
-       "UPDATE sessions SET cell = '" + g_made->cell + "' WHERE name = 'indexed'"}};
+       "UPDATE sessions SET cell = '" + g_made->cell + "' WHERE name = 'indexed'"},
+      // The start time decides which session is the newest on a cell: believed only from the folder too.
+      {"UPDATE sessions SET started_utc = '2099-12-31T00:00:00.000Z' WHERE name = 'indexed'",
+       "UPDATE sessions SET started_utc = '" + start["utc"].get<std::string>() + "' WHERE name = 'indexed'"}};
   for (const auto& [forge, undo] : forgeries) {
     exec(forge);
     ASSERT_TRUE(store::lookup_store_history(*s, g_made->vehicle, "another cell", g_made->verify, found, err))

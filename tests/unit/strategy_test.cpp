@@ -365,7 +365,8 @@ TEST(DayScale, NotUsedAndSaidWhenTheWarmUpsCannotBeCompared) {
   EXPECT_DOUBLE_EQ(d.ratio, 1.0);
   EXPECT_NE(d.why.find("1.300 times"), std::string::npos) << d.why;
   EXPECT_NE(d.why.find("outside 0.80 to 1.25"), std::string::npos) << d.why;
-  // The bounds belong to the range: 250/200 = 1.25 and 160/200 = 0.8 are used (exact in binary).
+  // The bounds belong to the range: 250/200 = 1.25 and 160/200 = 0.8 are used (each quotient rounds to the
+  // same double as the bound's literal).
   d = core::day_to_day_scale(base, warm_up(80.0, 1170.0, 250.0));
   EXPECT_TRUE(d.used) << d.why;
   EXPECT_DOUBLE_EQ(d.ratio, 1.25);
