@@ -101,8 +101,8 @@ struct HoldPlan {
 };
 HoldPlan plan_hold_points(const LossMap& map, double from_kmh, double speed_limit_kmh);
 
-// A session's first warm-up hold as its record keeps it (the "warm_up" record's windows): the speed and each
-// stability window's mean force, at the window's middle in time since the warm-up began.
+// A session's initial warm-up hold as its record keeps it (the "warm_up" record's windows): the speed and
+// each stability window's mean force, at the window's middle in time since the warm-up began.
 struct WarmUpRecord {
   double speed_kmh = 0.0;
   std::vector<DriftPoint> windows;

@@ -47,12 +47,15 @@ bool save_vehicle_history(const std::string& file, const std::string& vehicle_id
                       {"target", road_load_json(target)},
                       {"final_set", road_load_json(final_set)}};
   if (measured) j["measured"] = road_load_json(*measured);
-  if (warm_up) {
-    nlohmann::json windows = nlohmann::json::array();
-    for (const auto& w : warm_up->windows) windows.push_back({{"t_s", w.t_s}, {"force_n", w.force_n}});
-    j["warm_up"] = {{"speed_kmh", warm_up->speed_kmh}, {"windows", windows}};
-  }
+  if (warm_up)
+    j["warm_up"] = {{"speed_kmh", warm_up->speed_kmh}, {"windows", warm_up_windows_json(warm_up->windows)}};
   return write_durable(file, j.dump(2) + "\n", error);
+}
+
+nlohmann::json warm_up_windows_json(const std::vector<core::DriftPoint>& windows) {
+  nlohmann::json out = nlohmann::json::array();
+  for (const auto& w : windows) out.push_back({{"t_s", w.t_s}, {"force_n", w.force_n}});
+  return out;
 }
 
 std::optional<core::WarmUpRecord> warm_up_from_json(const nlohmann::json& r) {

@@ -9,6 +9,7 @@
 #include <nlohmann/json.hpp>
 #include <optional>
 #include <string>
+#include <vector>
 
 #include "core/road_load.hpp"
 #include "core/strategy.hpp"
@@ -32,6 +33,9 @@ bool save_vehicle_history(const std::string& file, const std::string& vehicle_id
                           const std::optional<core::RoadLoad>& measured = std::nullopt,
                           const std::optional<core::WarmUpRecord>& warm_up = std::nullopt);
 
+// The one JSON spelling of warm-up windows, in the "warm_up" record and the history file alike:
+// [{"t_s", "force_n"}, ...]; warm_up_from_json reads it back.
+nlohmann::json warm_up_windows_json(const std::vector<core::DriftPoint>& windows);
 // A "warm_up" record's (or the history file's "warm_up" member's) speed and windows; nullopt when it has no
 // "windows" member or any window is not a pair of numbers (a record written before the windows were kept). An
 // empty list is a record with no window (which the day-to-day correction does not use).

@@ -7,6 +7,7 @@
 #include <cmath>
 
 #include "record/road_load_json.hpp"
+#include "record/vehicle_history.hpp"
 
 namespace loadtrim::session {
 
@@ -100,13 +101,6 @@ nlohmann::json deviations_json(const std::vector<core::SpeedDeviation>& rows) {
                    {"u_n", d.u_n},
                    {"limit_n", d.limit_n},
                    {"pass", d.pass}});
-  return out;
-}
-
-// The warm-up's stability windows as [{"t_s", "force_n"}, ...].
-nlohmann::json drift_points_json(const std::vector<core::DriftPoint>& points) {
-  nlohmann::json out = nlohmann::json::array();
-  for (const auto& p : points) out.push_back({{"t_s", p.t_s}, {"force_n", p.force_n}});
   return out;
 }
 
@@ -226,7 +220,7 @@ struct Mapper {
             {"stability_threshold_n", e.stability_threshold_n},
             {"last_window_force_n",
              e.last_window_force_n ? nlohmann::json(*e.last_window_force_n) : nlohmann::json(nullptr)},
-            {"windows", drift_points_json(e.windows)},
+            {"windows", record::warm_up_windows_json(e.windows)},
             {"initial", e.initial}};
   }
   nlohmann::json operator()(const ev::LossMapSkipped& e) const { return {{"why", e.why}}; }
