@@ -67,6 +67,7 @@ core::Profile read_profile(TomlReader& r) {
                              ? core::WarmUp::DriftRule::require
                              : core::WarmUp::DriftRule::warn;
   p.warm_up.drift_threshold_n = r.number_or("warm_up.drift_threshold_n", 3.0, 0.1, 100.0, "N");
+  p.warm_up.check_fully_warm = r.boolean_or("warm_up.check_fully_warm", false);
   p.warm_up.anticipate_drift = r.boolean_or("warm_up.anticipate_drift", false);
   p.warm_up.anticipate_for =
       r.choice("warm_up.anticipate_for", {"next", "passes"}, std::string("next")) == "passes"

@@ -100,6 +100,59 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
   return a;
 }
 
+FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& loss,
+                                    const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh,
+                                    double tolerance_n) {
+  FullyWarmOutlook o;
+  o.speed_kmh = warm_up_speed_kmh;
+  const std::optional<double> change =
+      curve.ok && std::isfinite(curve.tau_s) && std::isfinite(t_s) && t_s >= 0.0
+          ? predicted_change_n(curve, t_s, t_s + kFullyWarmTaus * curve.tau_s)
+          : std::nullopt;
+  if (!change || !std::isfinite(*change) || !(warm_up_speed_kmh > 0.0) || now.rows.empty()) {
+    o.why = "not predicted: the warm-up's curve does not predict the change still to come";
+    return o;
+  }
+  o.change_n = *change;
+  const double vw2 = warm_up_speed_kmh * warm_up_speed_kmh;
+  for (const auto& d : now.rows) {
+    const double r2 = d.speed_kmh * d.speed_kmh / vw2;
+    FullyWarmRow row;
+    row.speed_kmh = d.speed_kmh;
+    row.deviation_n = d.deviation_n;
+    const double a = d.deviation_n + *change * std::min(1.0, r2),
+                 b = d.deviation_n + *change * std::max(1.0, r2);
+    row.low_n = std::min(a, b);
+    row.high_n = std::max(a, b);
+    if (!std::isfinite(row.low_n) || !std::isfinite(row.high_n)) {
+      o.rows.clear();
+      o.why = "not predicted: a deviation is not finite";
+      return o;
+    }
+    // Written so that a NaN tolerance fails.
+    row.within = std::abs(row.low_n) <= tolerance_n && std::abs(row.high_n) <= tolerance_n;
+    o.within = o.within && row.within;
+    o.rows.push_back(row);
+  }
+  o.predicted = true;
+  const FullyWarmRow* worst = &o.rows.front();
+  for (const auto& r : o.rows)
+    if (std::max(std::abs(r.low_n), std::abs(r.high_n)) >
+        std::max(std::abs(worst->low_n), std::abs(worst->high_n)))
+      worst = &r;
+  const std::string bounds = num(worst->low_n, 1) + " to " + num(worst->high_n, 1) + " N at " +
+                             num(worst->speed_kmh) + " km/h (change still to come " + num(*change, 1) +
+                             " N at " + num(warm_up_speed_kmh) + " km/h)";
+  if (o.within) {
+    o.why = "within tolerance once fully warm: at worst " + bounds;
+    return o;
+  }
+  const RoadLoad middle{0.5 * *change, 0.0, 0.5 * *change / vw2};
+  o.warm_setting = target - (loss + middle);
+  o.why = "predicted outside tolerance once fully warm: " + bounds;
+  return o;
+}
+
 const char* to_string(Decision::Kind k) {
   switch (k) {
     case Decision::Kind::run_again:

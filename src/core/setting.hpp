@@ -113,6 +113,36 @@ int coastdowns_aimed_at(const WarmUp& warm_up, int passes);
 Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outlook, double from_s,
                                 double to_s);
 
+// The setting once the vehicle is fully warm (warm_up.check_fully_warm with the drift rule "require",
+// docs/standards.md §3.18, lab policy, no source). The warm-up's curve gives the change of the warm-up-speed
+// force still to come, c = F(∞) − F(t) (negative while the loss falls). How that change spreads over the
+// speeds is not known, but for a warming part of the loss that is a polynomial in v with terms up to v², none
+// negative, the change at v is c·k with k between min(1, r²) and max(1, r²), r = v / v_warm-up (algebra: each
+// term's ratio (v / v_warm-up)^j, j = 0, 1, 2, lies between them). Each reference speed's deviation once
+// fully warm is then between the deviation now plus c·min and plus c·max; the setting is kept only when both
+// bounds are within ±tolerance everywhere. Otherwise it is adjusted for the warm vehicle, aimed at the middle
+// of the bounds, c·(1 + r²)/2: set = target − (loss + c·(1 + r²)/2), loss = measured − set (as 3.4 and 3.17).
+struct FullyWarmRow {
+  double speed_kmh = 0.0;
+  double deviation_n = 0.0;          // measured − target now (the acceptance's check)
+  double low_n = 0.0, high_n = 0.0;  // the bounds on the deviation once fully warm
+  bool within = false;               // both bounds within ±tolerance
+};
+struct FullyWarmOutlook {
+  bool predicted = false;  // false: the curve does not predict the change (why says so); nothing is decided
+  std::string why;         // one line for the log
+  double change_n = 0.0;   // c: the warm-up-speed force's change still to come (negative: still falling)
+  double speed_kmh = 0.0;  // the warm-up speed
+  std::vector<FullyWarmRow> rows;
+  bool within = true;     // every row within (true when not predicted)
+  RoadLoad warm_setting;  // the setting aimed at the warm vehicle (set only when predicted and not within)
+};
+// How far ahead "fully warm" is taken, in time constants of the curve (e^−50: nothing left to come).
+inline constexpr double kFullyWarmTaus = 50.0;
+FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& loss,
+                                    const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh,
+                                    double tolerance_n);
+
 // What the method says after a coast-down.
 struct Decision {
   enum class Kind { run_again, accepted, rejected };

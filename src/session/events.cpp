@@ -336,6 +336,24 @@ struct Mapper {
     } else {
       j["why"] = e.curve.why;
     }
+    if (e.fully_warm) {
+      const auto& o = *e.fully_warm;
+      nlohmann::json fw = {{"predicted", o.predicted}, {"why", o.why}, {"within", o.within}};
+      if (o.predicted) {
+        fw["change_n"] = o.change_n;
+        fw["speed_kmh"] = o.speed_kmh;
+        nlohmann::json rows = nlohmann::json::array();
+        for (const auto& r : o.rows)
+          rows.push_back({{"speed_kmh", r.speed_kmh},
+                          {"deviation_n", r.deviation_n},
+                          {"low_n", r.low_n},
+                          {"high_n", r.high_n},
+                          {"within", r.within}});
+        fw["rows"] = std::move(rows);
+        if (!o.within) fw["warm_setting"] = to_json(o.warm_setting);
+      }
+      j["fully_warm"] = std::move(fw);
+    }
     return j;
   }
   nlohmann::json operator()(const ev::RunUpPlan& e) const {

@@ -285,6 +285,9 @@ struct WarmUpDrift {  // "warm_up_drift": the vehicle's warming trend when a set
   // "settled" (below the threshold), "still warming: accepted with a finding", "still warming: coasting
   // again", or "not estimated: ..." (then nothing is decided by it).
   std::string verdict;
+  // With warm_up.check_fully_warm and "require", once settled: the setting as it will be fully warm
+  // (docs/standards.md §3.18).
+  std::optional<core::FullyWarmOutlook> fully_warm;
 };
 struct RunUpPlan {  // "run_up": who accelerates the vehicle (the cell's dyno.run_up), and how a release is
                     // found

@@ -947,10 +947,21 @@ std::optional<Session::Stop> Session::do_run(int run) {
                         core::fit_warm_up_curve(drift_points_),
                         require ? "require" : "warn",
                         w.drift_threshold_n,
-                        ""};
+                        "",
+                        std::nullopt};
       const bool warming = d.curve.ok && !(d.curve.remaining_drift_n(d.t_s) <= w.drift_threshold_n);
+      // Settled: is the setting still within tolerance once the vehicle is fully warm (docs/standards.md
+      // §3.18)? The deviations are the acceptance's; the loss is the adjustment's (§3.17).
+      if (require && w.check_fully_warm && d.curve.ok && !warming)
+        d.fully_warm = core::fully_warm_outlook(rec.evaluation.check, in_.vehicle.target,
+                                                rec.evaluation.adjust_basis - set_, d.curve, d.t_s,
+                                                w.speed_kmh, p.tolerance_n);
+      const bool warm_outside = d.fully_warm && d.fully_warm->predicted && !d.fully_warm->within;
+      const bool adjust_for_warm = warm_outside && p.method == core::SettingMethod::iterative;
       if (!d.curve.ok)
         d.verdict = "not estimated: " + d.curve.why;
+      else if (adjust_for_warm)
+        d.verdict = "settled, but outside tolerance once fully warm: adjusted for the warm vehicle";
       else if (!warming)
         d.verdict = "settled";
       else if (require)
@@ -958,7 +969,15 @@ std::optional<Session::Stop> Session::do_run(int run) {
       else
         d.verdict = "still warming: accepted with a finding";
       emit(d);
-      if (warming && require) {
+      if (adjust_for_warm) {
+        rec.decision.kind = core::Decision::Kind::run_again;
+        rec.decision.next_set = d.fully_warm->warm_setting;
+        rec.decision.reason += "; but " + d.fully_warm->why + ": adjusted for the warm vehicle";
+        reset_passes(run, "the setting is adjusted for the vehicle fully warm (" + d.fully_warm->why + ")");
+      } else if (warm_outside) {
+        findings_.push_back("the setting is " + d.fully_warm->why +
+                            "; the profile's method (fixed-run) keeps it");
+      } else if (warming && require) {
         rec.decision.kind = core::Decision::Kind::run_again;
         rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +
                                num(d.curve.remaining_drift_n(d.t_s), 1) + " N above " +

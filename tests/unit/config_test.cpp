@@ -227,6 +227,15 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
   EXPECT_NE(aim.find("warm_up.anticipate_for (line 12): is \"all\", allowed \"next\", \"passes\""),
             std::string::npos)
       << aim;
+  // warm_up.check_fully_warm (docs/standards.md §3.18): on in every shipped profile, off when absent, and a
+  // value that is not a boolean is refused naming the key and its line.
+  EXPECT_TRUE(wltp.warm_up.check_fully_warm);
+  EXPECT_TRUE(us.warm_up.check_fully_warm);
+  EXPECT_TRUE(config::load_profile(kSrc + "/config/profiles/wltp-fixed-run.toml").warm_up.check_fully_warm);
+  EXPECT_FALSE(plain.warm_up.check_fully_warm);
+  const std::string warm = refusal(
+      [&] { config::parse_profile(profile_text("", "", "check_fully_warm = \"yes\"\n"), "bad.toml"); });
+  EXPECT_NE(warm.find("bad.toml: error: warm_up.check_fully_warm (line 12)"), std::string::npos) << warm;
   // A fixed-run profile with drift_rule "require" and no verification run loads, with one warning on the key
   // and its line (docs/standards.md §3.12): the held coast-downs can only confirm or reject the final
   // setting.

@@ -464,6 +464,67 @@ TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
   }
 }
 
+TEST(SessionUnit, ASettledSettingOutsideToleranceFullyWarmIsAdjustedForTheWarmVehicle) {
+  // docs/standards.md §3.18 (lab policy; the bounds are algebra). The truth of the test above warms with
+  // τ = 400 s and 37.8 N of cold excess at 80 km/h; with a drift threshold of 8 N the vehicle counts as
+  // settled at the first acceptance (t ≈ 700–800 s: about 37.8·e^(−1.9) ≈ 5–6 N still to come, by hand),
+  // and the change still to come at 130 km/h is then up to (130/80)² = 2.64 times that, about 15 N: the
+  // bounds cannot both be within ±10 N, so the setting is adjusted for the warm vehicle instead of accepted.
+  // The truth's spin loss, 25 + 0.002·v² N, changes at 130 km/h by 58.8/37.8 = 1.56 times its change at
+  // 80 km/h and at 20 km/h by 25.8/37.8 = 0.68 times: inside the bounds' [1, 2.64] and [0.0625, 1] (by hand).
+  FakeController c(warming_truth(1.0, 400.0));
+  Recorder record(true);
+  std::vector<session::ev::WarmUpDrift> drifts;
+  std::vector<session::CoastdownRecord> runs;
+  std::vector<session::ev::PassesReset> resets;
+  Hook hook([&](const session::Event& e) {
+    if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) drifts.push_back(*d);
+    if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload)) runs.push_back(d->record);
+    if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload)) resets.push_back(*r);
+  });
+  session::Inputs in = long_warm_up_inputs();
+  in.profile.warm_up.drift_rule = core::WarmUp::DriftRule::require;
+  in.profile.warm_up.drift_threshold_n = 8.0;
+  in.profile.warm_up.check_fully_warm = true;
+  in.profile.max_coastdowns = 20;
+  session::Session s(in, options(), c, {&record, &hook});
+  const auto sum = s.run();
+  ASSERT_FALSE(drifts.empty()) << sum.stop_reason;
+  const auto& first = drifts.front();
+  ASSERT_TRUE(first.curve.ok) << first.curve.why;
+  EXPECT_LT(first.curve.remaining_drift_n(first.t_s), 8.0);
+  EXPECT_GT(first.curve.remaining_drift_n(first.t_s), 2.0);
+  ASSERT_TRUE(first.fully_warm.has_value());
+  const auto& o = *first.fully_warm;
+  ASSERT_TRUE(o.predicted) << o.why;
+  EXPECT_FALSE(o.within);
+  EXPECT_EQ(first.verdict, "settled, but outside tolerance once fully warm: adjusted for the warm vehicle");
+  EXPECT_LT(o.change_n, -2.0);  // still falling
+  // Each row's bounds are the deviation now plus c·min(1, r²) and c·max(1, r²).
+  for (const auto& r : o.rows) {
+    const double r2 = r.speed_kmh * r.speed_kmh / (80.0 * 80.0);
+    EXPECT_NEAR(r.low_n, r.deviation_n + o.change_n * std::max(1.0, r2), 1e-9);
+    EXPECT_NEAR(r.high_n, r.deviation_n + o.change_n * std::min(1.0, r2), 1e-9);
+  }
+  // The accepting coast-down's passes were dropped, with the reason, and the next coast-down ran the
+  // setting aimed at the warm vehicle (as written: rounded to the profile's decimals).
+  ASSERT_FALSE(resets.empty());
+  EXPECT_NE(resets.front().why.find("adjusted for the vehicle fully warm"), std::string::npos);
+  std::size_t at = 0;
+  while (at < runs.size() && runs[at].run != first.run) ++at;
+  ASSERT_LT(at + 1, runs.size());
+  EXPECT_EQ(runs[at].decision.kind, core::Decision::Kind::run_again);
+  EXPECT_NE(runs[at].decision.reason.find("adjusted for the warm vehicle"), std::string::npos);
+  EXPECT_NEAR(runs[at + 1].set.f0_n, o.warm_setting.f0_n, 0.06);
+  EXPECT_NEAR(runs[at + 1].set.f2_n_per_kmh2, o.warm_setting.f2_n_per_kmh2, 1e-5);
+  // Accepted in the end, with both bounds within tolerance at every speed.
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  ASSERT_TRUE(drifts.back().fully_warm.has_value());
+  EXPECT_TRUE(drifts.back().fully_warm->predicted);
+  EXPECT_TRUE(drifts.back().fully_warm->within) << drifts.back().fully_warm->why;
+  EXPECT_EQ(drifts.back().verdict, "settled");
+}
+
 TEST(SessionUnit, AFixedRunFinalSettingHeldWhileTheVehicleSettlesIsCoastedNeverAveraged) {
   // docs/standards.md §3.12 (lab policy) "require": coasting goes on at the accepted setting until the drift
   // still to come is under the threshold; §3.2: the fixed-run final setting A = At − mean(As − Ad) over runs

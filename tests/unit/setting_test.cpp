@@ -438,3 +438,102 @@ TEST(Setting, FixedRunRequireWithoutAnticipationIsWarned) {
   it.fixed_run_verification_runs = 0;
   EXPECT_EQ(warnings_on(it, "warm_up.drift_rule"), 0);
 }
+
+namespace {
+// A warming curve F(t) = 100 + 10·exp(−t/1000) N, as fit_warm_up_curve gives it.
+WarmUpCurve curve_tau_1000(double amplitude_n = 10.0) {
+  WarmUpCurve c;
+  c.ok = true;
+  c.settled_n = 100.0;
+  c.amplitude_n = amplitude_n;
+  c.tau_s = 1000.0;
+  c.rms_residual_n = 0.1;
+  c.points = 10;
+  return c;
+}
+}  // namespace
+
+TEST(FullyWarm, BoundsEachSpeedAndAimsTheSettingAtTheirMiddle) {
+  // docs/standards.md §3.18 (lab policy; the bounds are algebra). Worked by hand: at t = 2000 s the change
+  // still to come is c = 10·(e^−52 − e^−2) = −1.3533528 N at 80 km/h. The measured curve is the target plus
+  // {2.2424242, 0, −6.0606e−4}, i.e. deviations +2 at 20 km/h, −1.6363636 at 80 and −8 at 130
+  // (a + 400q = 2, a + 16900q = −8: q = −10/16500). r² = 0.0625, 1, 2.640625, so fully warm:
+  //   20 km/h: 2 + c·0.0625 = 1.9154154 and 2 + c = 0.6466472;
+  //   80 km/h: −1.6363636 + c = −2.9897164 (both);
+  //   130 km/h: −8 + c = −9.3533528 and −8 + c·2.640625 = −11.5736972: outside ±10 N.
+  // The setting for the warm vehicle, target − (loss + {c/2, 0, c/(2·80²)}) with loss = measured − set and
+  // set = {60, 0.2, 0.02}: set − (measured − target) − {c/2, 0, c/12800} = {60 − 2.2424242 + 0.6766764, 0.2,
+  // 0.02 + 6.0606e−4 + 1.0573069e−4} = {58.4342522, 0.2, 0.0207117907}.
+  const RoadLoad target{100.0, 0.5, 0.03}, set{60.0, 0.2, 0.02};
+  const double q = -10.0 / 16500.0;
+  const RoadLoad measured = target + RoadLoad{2.0 - 400.0 * q, 0.0, q};
+  const std::vector<double> speeds{20.0, 80.0, 130.0};
+  const ToleranceCheck now = check_tolerance(target, measured, speeds, 10.0);
+  ASSERT_TRUE(now.pass);
+  const FullyWarmOutlook o =
+      fully_warm_outlook(now, target, measured - set, curve_tau_1000(), 2000.0, 80.0, 10.0);
+  ASSERT_TRUE(o.predicted) << o.why;
+  EXPECT_NEAR(o.change_n, -1.3533528, 1e-6);
+  ASSERT_EQ(o.rows.size(), 3u);
+  EXPECT_NEAR(o.rows[0].low_n, 0.6466472, 1e-6);
+  EXPECT_NEAR(o.rows[0].high_n, 1.9154154, 1e-6);
+  EXPECT_TRUE(o.rows[0].within);
+  EXPECT_NEAR(o.rows[1].low_n, -2.9897164, 1e-6);
+  EXPECT_NEAR(o.rows[1].high_n, -2.9897164, 1e-6);
+  EXPECT_NEAR(o.rows[2].low_n, -11.5736972, 1e-6);
+  EXPECT_NEAR(o.rows[2].high_n, -9.3533528, 1e-6);
+  EXPECT_FALSE(o.rows[2].within);
+  EXPECT_FALSE(o.within);
+  expect_eq(o.warm_setting, {58.4342522, 0.2, 0.0207117907}, 1e-7);
+  EXPECT_NE(o.why.find("predicted outside tolerance once fully warm: -11.6 to -9.4 N at 130 km/h"),
+            std::string::npos)
+      << o.why;
+}
+
+TEST(FullyWarm, WithinBothBoundsKeepsTheSettingAndARisingLossIsBoundedAlike) {
+  // docs/standards.md §3.18, by hand as above: a deviation of −5 N at 130 km/h gives −6.35 and −8.57 N fully
+  // warm: within. A loss still rising (A = −10 N: c = +1.3533528 N) mirrors the bounds: +8 N at 130 km/h
+  // gives 9.35 and 11.57 N: outside.
+  const RoadLoad target{100.0, 0.5, 0.03}, set{60.0, 0.2, 0.02};
+  const std::vector<double> speeds{20.0, 80.0, 130.0};
+  const double q = -7.0 / 16500.0;
+  const RoadLoad measured = target + RoadLoad{2.0 - 400.0 * q, 0.0, q};
+  const FullyWarmOutlook in = fully_warm_outlook(check_tolerance(target, measured, speeds, 10.0), target,
+                                                 measured - set, curve_tau_1000(), 2000.0, 80.0, 10.0);
+  ASSERT_TRUE(in.predicted);
+  EXPECT_TRUE(in.within);
+  EXPECT_NEAR(in.rows[2].low_n, -5.0 - 1.3533528 * 2.640625, 1e-6);
+  EXPECT_NEAR(in.rows[2].high_n, -6.3533528, 1e-6);
+  EXPECT_EQ(in.why.rfind("within tolerance once fully warm", 0), 0u) << in.why;
+  const double up = 6.0 / 16500.0;  // +2 at 20 km/h, +8 at 130
+  const RoadLoad high = target + RoadLoad{2.0 - 400.0 * up, 0.0, up};
+  const FullyWarmOutlook rising = fully_warm_outlook(check_tolerance(target, high, speeds, 10.0), target,
+                                                     high - set, curve_tau_1000(-10.0), 2000.0, 80.0, 10.0);
+  ASSERT_TRUE(rising.predicted);
+  EXPECT_NEAR(rising.change_n, 1.3533528, 1e-6);
+  EXPECT_NEAR(rising.rows[2].low_n, 9.3533528, 1e-6);
+  EXPECT_NEAR(rising.rows[2].high_n, 11.5736972, 1e-6);
+  EXPECT_FALSE(rising.within);
+}
+
+TEST(FullyWarm, NothingIsDecidedWhenTheCurveDoesNotPredict) {
+  // docs/standards.md §3.18 and §3.16: a curve not fitted, not resolved (τ at the search's bound) or fitting
+  // its windows badly predicts nothing; the outlook says so and keeps the setting (within).
+  const RoadLoad target{100.0, 0.5, 0.03};
+  const std::vector<double> speeds{20.0, 130.0};
+  const ToleranceCheck now = check_tolerance(target, target + RoadLoad{0.0, 0.0, -0.0005}, speeds, 10.0);
+  WarmUpCurve not_fitted;
+  WarmUpCurve at_bound = curve_tau_1000();
+  at_bound.tau_at_bound = true;
+  WarmUpCurve rough = curve_tau_1000();
+  rough.rms_residual_n = 5.0;
+  for (const WarmUpCurve& c : {not_fitted, at_bound, rough}) {
+    const FullyWarmOutlook o = fully_warm_outlook(now, target, {}, c, 2000.0, 80.0, 10.0);
+    EXPECT_FALSE(o.predicted);
+    EXPECT_TRUE(o.within);
+    EXPECT_TRUE(o.rows.empty());
+    EXPECT_EQ(o.why.rfind("not predicted", 0), 0u) << o.why;
+  }
+  // A time before motoring began is not a time the curve speaks of.
+  EXPECT_FALSE(fully_warm_outlook(now, target, {}, curve_tau_1000(), -1.0, 80.0, 10.0).predicted);
+}
