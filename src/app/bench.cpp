@@ -658,8 +658,10 @@ int run_bench(BenchOptions o) {
                           num_min(prof.warm_up.duration_s + prof.warm_up.max_extra_s) + " min"
                     : std::string()) +
         (require ? ", drift rule \"require\": a stable vehicle at acceptance" : "") +
-        (require && !prof.warm_up.check_fully_warm
-             ? ", the settled setting not judged as it will be fully warm (no warm_up.check_fully_warm)"
+        (require
+             ? prof.warm_up.check_fully_warm
+                   ? ", the settled setting judged as it will be fully warm (warm_up.check_fully_warm)"
+                   : ", the settled setting not judged as it will be fully warm (no warm_up.check_fully_warm)"
              : "") +
         (guard ? ", decision rule guard band: |deviation| + 2u <= tolerance" : "") +
         (confirm ? ", a pass needs the whole-trace curve within tolerance too" : "") +

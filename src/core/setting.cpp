@@ -101,20 +101,32 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
 }
 
 FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& loss,
-                                    const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh,
-                                    double tolerance_n) {
+                                    const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh) {
   FullyWarmOutlook o;
   o.speed_kmh = warm_up_speed_kmh;
+  if (!curve.ok) {
+    o.why = "not predicted: the warm-up's curve is not fitted (" + curve.why + ")";
+    return o;
+  }
+  if (curve.tau_at_bound) {
+    o.why = "not predicted: the warm-up's curve does not resolve its time constant";
+    return o;
+  }
+  if (!(curve.rms_residual_n <= kMaxCurveRmsForOutlookN)) {
+    o.why = "not predicted: the warm-up's curve misses its windows by " + num(curve.rms_residual_n, 1) +
+            " N rms, above " + num(kMaxCurveRmsForOutlookN) + " N";
+    return o;
+  }
   const std::optional<double> change =
-      curve.ok && std::isfinite(curve.tau_s) && std::isfinite(t_s) && t_s >= 0.0
+      std::isfinite(curve.tau_s) && std::isfinite(t_s) && t_s >= 0.0
           ? predicted_change_n(curve, t_s, t_s + kFullyWarmTaus * curve.tau_s)
           : std::nullopt;
   if (!change || !std::isfinite(*change) || !(warm_up_speed_kmh > 0.0) || now.rows.empty()) {
     o.why = "not predicted: the warm-up's curve does not predict the change still to come";
     return o;
   }
-  o.change_n = *change;
   const double vw2 = warm_up_speed_kmh * warm_up_speed_kmh;
+  bool aimable = true;
   for (const auto& d : now.rows) {
     const double r2 = d.speed_kmh * d.speed_kmh / vw2;
     FullyWarmRow row;
@@ -126,15 +138,18 @@ FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& t
     row.high_n = std::max(a, b);
     if (!std::isfinite(row.low_n) || !std::isfinite(row.high_n)) {
       o.rows.clear();
+      o.within = true;
       o.why = "not predicted: a deviation is not finite";
       return o;
     }
-    // Written so that a NaN tolerance fails.
-    row.within = std::abs(row.low_n) <= tolerance_n && std::abs(row.high_n) <= tolerance_n;
+    // Written so that a NaN limit fails.
+    row.within = std::abs(row.low_n) <= d.limit_n && std::abs(row.high_n) <= d.limit_n;
+    aimable = aimable && std::abs(*change) * 0.5 * (1.0 + r2) <= d.limit_n;
     o.within = o.within && row.within;
     o.rows.push_back(row);
   }
   o.predicted = true;
+  o.change_n = *change;
   const FullyWarmRow* worst = &o.rows.front();
   for (const auto& r : o.rows)
     if (std::max(std::abs(r.low_n), std::abs(r.high_n)) >
@@ -147,9 +162,18 @@ FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& t
     o.why = "within tolerance once fully warm: at worst " + bounds;
     return o;
   }
-  const RoadLoad middle{0.5 * *change, 0.0, 0.5 * *change / vw2};
-  o.warm_setting = target - (loss + middle);
   o.why = "predicted outside tolerance once fully warm: " + bounds;
+  const RoadLoad middle{0.5 * *change, 0.0, 0.5 * *change / vw2};
+  const RoadLoad warm = target - (loss + middle);
+  if (!aimable) {
+    o.why += "; a setting aimed at the warm vehicle would miss the next coast-down by more than the limit";
+  } else if (!std::isfinite(warm.f0_n) || !std::isfinite(warm.f1_n_per_kmh) ||
+             !std::isfinite(warm.f2_n_per_kmh2)) {
+    o.why += "; the setting for the warm vehicle is not finite";
+  } else {
+    o.aimable = true;
+    o.warm_setting = warm;
+  }
   return o;
 }
 

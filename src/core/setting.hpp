@@ -116,17 +116,20 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
 // The setting once the vehicle is fully warm (warm_up.check_fully_warm with the drift rule "require",
 // docs/standards.md §3.18, lab policy, no source). The warm-up's curve gives the change of the warm-up-speed
 // force still to come, c = F(∞) − F(t) (negative while the loss falls). How that change spreads over the
-// speeds is not known, but for a warming part of the loss that is a polynomial in v with terms up to v², none
-// negative, the change at v is c·k with k between min(1, r²) and max(1, r²), r = v / v_warm-up (algebra: each
-// term's ratio (v / v_warm-up)^j, j = 0, 1, 2, lies between them). Each reference speed's deviation once
-// fully warm is then between the deviation now plus c·min and plus c·max; the setting is kept only when both
-// bounds are within ±tolerance everywhere. Otherwise it is adjusted for the warm vehicle, aimed at the middle
-// of the bounds, c·(1 + r²)/2: set = target − (loss + c·(1 + r²)/2), loss = measured − set (as 3.4 and 3.17).
+// speeds is not known, but when the part of the loss that warms is a polynomial in v with terms up to v² that
+// all change with the same sign, the change at v is c·k with k between min(1, r²) and max(1, r²),
+// r = v / v_warm-up (algebra: each term's ratio (v / v_warm-up)^j, j = 0, 1, 2, lies between them). Each
+// reference speed's deviation once fully warm is then between the deviation now plus c·min and plus c·max;
+// the setting is kept only when both bounds are within the acceptance's limit (±tolerance, or the guard
+// band's narrower limit) everywhere. Otherwise the setting for the warm vehicle is aimed at the middle of the
+// bounds, c·(1 + r²)/2: set = target − (loss + c·(1 + r²)/2), loss = measured − set (as 3.4 and 3.17); at the
+// next coast-down it reads about −c·(1 + r²)/2 (less the warming in between, which brings it nearer zero), so
+// it is aimable only when that is within the limit at every speed.
 struct FullyWarmRow {
   double speed_kmh = 0.0;
   double deviation_n = 0.0;          // measured − target now (the acceptance's check)
   double low_n = 0.0, high_n = 0.0;  // the bounds on the deviation once fully warm
-  bool within = false;               // both bounds within ±tolerance
+  bool within = false;               // both bounds within the acceptance's limit at this speed
 };
 struct FullyWarmOutlook {
   bool predicted = false;  // false: the curve does not predict the change (why says so); nothing is decided
@@ -134,14 +137,18 @@ struct FullyWarmOutlook {
   double change_n = 0.0;   // c: the warm-up-speed force's change still to come (negative: still falling)
   double speed_kmh = 0.0;  // the warm-up speed
   std::vector<FullyWarmRow> rows;
-  bool within = true;     // every row within (true when not predicted)
-  RoadLoad warm_setting;  // the setting aimed at the warm vehicle (set only when predicted and not within)
+  bool within = true;  // every row within (true when not predicted)
+  // Predicted and not within: whether the setting for the warm vehicle can pass the next coast-down (above),
+  // and that setting (finite; set only when aimable).
+  bool aimable = false;
+  RoadLoad warm_setting;
 };
 // How far ahead "fully warm" is taken, in time constants of the curve (e^−50: nothing left to come).
 inline constexpr double kFullyWarmTaus = 50.0;
+// `now` is the acceptance's check of the setting (its rows carry each speed's limit); `loss` the loss the
+// adjustment takes (measured − set); `t_s` the coast-down's middle, s since motoring began.
 FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& loss,
-                                    const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh,
-                                    double tolerance_n);
+                                    const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh);
 
 // What the method says after a coast-down.
 struct Decision {

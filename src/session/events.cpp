@@ -350,7 +350,8 @@ struct Mapper {
                           {"high_n", r.high_n},
                           {"within", r.within}});
         fw["rows"] = std::move(rows);
-        if (!o.within) fw["warm_setting"] = to_json(o.warm_setting);
+        if (!o.within) fw["aimable"] = o.aimable;
+        if (o.aimable) fw["warm_setting"] = to_json(o.warm_setting);
       }
       j["fully_warm"] = std::move(fw);
     }

@@ -951,17 +951,58 @@ std::optional<Session::Stop> Session::do_run(int run) {
                         std::nullopt};
       const bool warming = d.curve.ok && !(d.curve.remaining_drift_n(d.t_s) <= w.drift_threshold_n);
       // Settled: is the setting still within tolerance once the vehicle is fully warm (docs/standards.md
-      // §3.18)? The deviations are the acceptance's; the loss is the adjustment's (§3.17).
-      if (require && w.check_fully_warm && d.curve.ok && !warming)
-        d.fully_warm = core::fully_warm_outlook(rec.evaluation.check, in_.vehicle.target,
-                                                rec.evaluation.adjust_basis - set_, d.curve, d.t_s,
-                                                w.speed_kmh, p.tolerance_n);
-      const bool warm_outside = d.fully_warm && d.fully_warm->predicted && !d.fully_warm->within;
-      const bool adjust_for_warm = warm_outside && p.method == core::SettingMethod::iterative;
+      // §3.18)? The deviations are the acceptance's, the loss the adjustment's (§3.17), both of this
+      // coast-down, so the change still to come is taken from its middle.
+      enum class WarmAction { none, adjust, hold, finding };
+      WarmAction warm_action = WarmAction::none;
+      std::string warm_finding;
+      if (require && w.check_fully_warm && d.curve.ok && !warming) {
+        if (rec.decision.next_set == set_) {
+          d.fully_warm = core::fully_warm_outlook(
+              rec.evaluation.check, in_.vehicle.target, rec.evaluation.adjust_basis - set_, d.curve,
+              rec.release_time_s + 0.5 * rec.duration_s - drift_t0_, w.speed_kmh);
+        } else {
+          // A fixed-run final setting accepted without verification runs was never coasted: nothing of it
+          // was measured to judge.
+          d.fully_warm = core::FullyWarmOutlook{};
+          d.fully_warm->why = "not predicted: the final setting was never coasted (no verification run)";
+        }
+        const auto& o = *d.fully_warm;
+        const bool iterative = p.method == core::SettingMethod::iterative;
+        if (!o.predicted) {
+          warm_action = WarmAction::finding;
+          warm_finding = "the fully-warm check was not made (" + o.why + ")";
+        } else if (!o.within) {
+          warm_action = WarmAction::finding;
+          warm_finding = "the setting is " + o.why + "; ";
+          if (!iterative) {
+            warm_finding += "the fixed-run method keeps its final setting";
+          } else if (!o.aimable) {
+            if (coastdowns_ < p.max_coastdowns)
+              warm_action = WarmAction::hold;
+            else
+              warm_finding += "no coast-down is left to let the vehicle settle further";
+          } else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns) {
+            warm_finding += "too few coast-downs are left for a setting aimed at the warm vehicle to pass";
+          } else if (const core::SetCheck chk =
+                         core::check_set(o.warm_setting, in_.vehicle.target, last_written_, opt_.envelope);
+                     !chk.ok) {
+            emit(ev::EnvelopeRefused{run, o.warm_setting, chk.why});
+            warm_finding +=
+                "the setting aimed at the warm vehicle leaves the safe envelope (" + chk.why + ")";
+          } else {
+            warm_action = WarmAction::adjust;
+          }
+        }
+      }
       if (!d.curve.ok)
         d.verdict = "not estimated: " + d.curve.why;
-      else if (adjust_for_warm)
+      else if (warm_action == WarmAction::adjust)
         d.verdict = "settled, but outside tolerance once fully warm: adjusted for the warm vehicle";
+      else if (warm_action == WarmAction::hold)
+        d.verdict = "settled, but outside tolerance once fully warm: coasting again at the accepted setting";
+      else if (warm_action == WarmAction::finding && d.fully_warm->predicted)
+        d.verdict = "settled, but outside tolerance once fully warm: accepted with a finding";
       else if (!warming)
         d.verdict = "settled";
       else if (require)
@@ -969,14 +1010,17 @@ std::optional<Session::Stop> Session::do_run(int run) {
       else
         d.verdict = "still warming: accepted with a finding";
       emit(d);
-      if (adjust_for_warm) {
+      if (warm_action == WarmAction::adjust) {
         rec.decision.kind = core::Decision::Kind::run_again;
         rec.decision.next_set = d.fully_warm->warm_setting;
         rec.decision.reason += "; but " + d.fully_warm->why + ": adjusted for the warm vehicle";
         reset_passes(run, "the setting is adjusted for the vehicle fully warm (" + d.fully_warm->why + ")");
-      } else if (warm_outside) {
-        findings_.push_back("the setting is " + d.fully_warm->why +
-                            "; the profile's method (fixed-run) keeps it");
+      } else if (warm_action == WarmAction::hold) {
+        rec.decision.kind = core::Decision::Kind::run_again;
+        rec.decision.reason += "; but " + d.fully_warm->why +
+                               ": coasting the accepted setting until the vehicle settles further";
+      } else if (warm_action == WarmAction::finding) {
+        findings_.push_back(warm_finding);
       } else if (warming && require) {
         rec.decision.kind = core::Decision::Kind::run_again;
         rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +

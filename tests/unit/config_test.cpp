@@ -227,8 +227,9 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
   EXPECT_NE(aim.find("warm_up.anticipate_for (line 12): is \"all\", allowed \"next\", \"passes\""),
             std::string::npos)
       << aim;
-  // warm_up.check_fully_warm (docs/standards.md §3.18): on in every shipped profile, off when absent, and a
-  // value that is not a boolean is refused naming the key and its line.
+  // warm_up.check_fully_warm (docs/standards.md §3.18): set in every shipped profile (where it waits for a
+  // lab to choose the drift rule "require": with "warn" it does nothing), off when absent, and a value that
+  // is not a boolean is refused naming the key and its line.
   EXPECT_TRUE(wltp.warm_up.check_fully_warm);
   EXPECT_TRUE(us.warm_up.check_fully_warm);
   EXPECT_TRUE(config::load_profile(kSrc + "/config/profiles/wltp-fixed-run.toml").warm_up.check_fully_warm);

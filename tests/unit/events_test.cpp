@@ -356,6 +356,7 @@ std::vector<Payload> every_event() {
                                              80.0,
                                              {core::FullyWarmRow{130.0, -6.0, -11.3, -8.0, false}},
                                              false,
+                                             true,
                                              kSet}},
       ev::ConsecutiveTiming{"consecutive coast-downs start immediately", 12.0},
       ev::Coastdown{usable_run()},

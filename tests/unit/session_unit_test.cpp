@@ -464,65 +464,141 @@ TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
   }
 }
 
-TEST(SessionUnit, ASettledSettingOutsideToleranceFullyWarmIsAdjustedForTheWarmVehicle) {
-  // docs/standards.md §3.18 (lab policy; the bounds are algebra). The truth of the test above warms with
-  // τ = 400 s and 37.8 N of cold excess at 80 km/h; with a drift threshold of 8 N the vehicle counts as
-  // settled at the first acceptance (t ≈ 700–800 s: about 37.8·e^(−1.9) ≈ 5–6 N still to come, by hand),
-  // and the change still to come at 130 km/h is then up to (130/80)² = 2.64 times that, about 15 N: the
-  // bounds cannot both be within ±10 N, so the setting is adjusted for the warm vehicle instead of accepted.
-  // The truth's spin loss, 25 + 0.002·v² N, changes at 130 km/h by 58.8/37.8 = 1.56 times its change at
-  // 80 km/h and at 20 km/h by 25.8/37.8 = 0.68 times: inside the bounds' [1, 2.64] and [0.0625, 1] (by hand).
-  FakeController c(warming_truth(1.0, 400.0));
-  Recorder record(true);
+namespace {
+// A session of the warming truth above with the drift rule "require" and the fully-warm check
+// (docs/standards.md §3.18), its drift, coast-down and passes-reset records.
+struct FullyWarmRun {
+  session::Summary sum;
   std::vector<session::ev::WarmUpDrift> drifts;
   std::vector<session::CoastdownRecord> runs;
   std::vector<session::ev::PassesReset> resets;
+  std::vector<session::ev::EnvelopeRefused> refused;
+};
+FullyWarmRun run_fully_warm(double threshold_n, int max_coastdowns, double cold_excess = 1.0,
+                            double tau_s = 400.0, bool anticipate = false) {
+  FullyWarmRun out;
+  FakeController c(warming_truth(cold_excess, tau_s));
+  Recorder record(true);
   Hook hook([&](const session::Event& e) {
-    if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) drifts.push_back(*d);
-    if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload)) runs.push_back(d->record);
-    if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload)) resets.push_back(*r);
+    if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) out.drifts.push_back(*d);
+    if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload)) out.runs.push_back(d->record);
+    if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload)) out.resets.push_back(*r);
+    if (const auto* r = std::get_if<session::ev::EnvelopeRefused>(&e.payload)) out.refused.push_back(*r);
   });
   session::Inputs in = long_warm_up_inputs();
   in.profile.warm_up.drift_rule = core::WarmUp::DriftRule::require;
-  in.profile.warm_up.drift_threshold_n = 8.0;
+  in.profile.warm_up.drift_threshold_n = threshold_n;
   in.profile.warm_up.check_fully_warm = true;
-  in.profile.max_coastdowns = 20;
+  in.profile.warm_up.anticipate_drift = anticipate;
+  in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;
+  in.profile.max_coastdowns = max_coastdowns;
   session::Session s(in, options(), c, {&record, &hook});
-  const auto sum = s.run();
-  ASSERT_FALSE(drifts.empty()) << sum.stop_reason;
-  const auto& first = drifts.front();
-  ASSERT_TRUE(first.curve.ok) << first.curve.why;
-  EXPECT_LT(first.curve.remaining_drift_n(first.t_s), 8.0);
-  EXPECT_GT(first.curve.remaining_drift_n(first.t_s), 2.0);
-  ASSERT_TRUE(first.fully_warm.has_value());
-  const auto& o = *first.fully_warm;
-  ASSERT_TRUE(o.predicted) << o.why;
-  EXPECT_FALSE(o.within);
-  EXPECT_EQ(first.verdict, "settled, but outside tolerance once fully warm: adjusted for the warm vehicle");
+  out.sum = s.run();
+  return out;
+}
+// The first drift record whose fully-warm outlook is predicted and outside.
+const session::ev::WarmUpDrift* first_outside(const FullyWarmRun& r) {
+  for (const auto& d : r.drifts)
+    if (d.fully_warm && d.fully_warm->predicted && !d.fully_warm->within) return &d;
+  return nullptr;
+}
+}  // namespace
+
+TEST(SessionUnit, ASettledSettingOutsideToleranceFullyWarmIsAdjustedForTheWarmVehicle) {
+  // docs/standards.md §3.18 (lab policy; the bounds are algebra, tests/unit/setting_test.cpp FullyWarm.*).
+  // The truth of the test above warms with τ = 400 s and 37.8 N of cold excess at 80 km/h; with a drift
+  // threshold of 8 N the vehicle counts as settled at the first acceptance (t ≈ 700–800 s:
+  // about 37.8·e^(−1.9) ≈ 5–6 N still to come, by hand). At 130 km/h the bounds once fully warm are then the
+  // deviation plus c and plus 2.64·c, c ≈ −5 N: within ±10 N only for a deviation now between about +3 and
+  // +10 N. The premise, that this session's setting is outside, is asserted from its record. The truth's spin
+  // loss, 25 + 0.002·v² N, changes at 130 km/h by 58.8/37.8 = 1.56 times its change at 80 km/h and at 20 km/h
+  // by 25.8/37.8 = 0.68 times: inside the bounds' [1, 2.64] and [0.0625, 1] (by hand).
+  const FullyWarmRun r = run_fully_warm(8.0, 20);
+  ASSERT_FALSE(r.drifts.empty()) << r.sum.stop_reason;
+  const auto* first = first_outside(r);
+  ASSERT_NE(first, nullptr) << "the premise: a settled setting outside tolerance once fully warm";
+  EXPECT_EQ(first, &r.drifts.front());
+  ASSERT_TRUE(first->curve.ok) << first->curve.why;
+  EXPECT_LT(first->curve.remaining_drift_n(first->t_s), 8.0);
+  EXPECT_GT(first->curve.remaining_drift_n(first->t_s), 2.0);
+  const auto& o = *first->fully_warm;
+  ASSERT_TRUE(o.aimable) << o.why;
+  EXPECT_EQ(first->verdict, "settled, but outside tolerance once fully warm: adjusted for the warm vehicle");
   EXPECT_LT(o.change_n, -2.0);  // still falling
-  // Each row's bounds are the deviation now plus c·min(1, r²) and c·max(1, r²).
-  for (const auto& r : o.rows) {
-    const double r2 = r.speed_kmh * r.speed_kmh / (80.0 * 80.0);
-    EXPECT_NEAR(r.low_n, r.deviation_n + o.change_n * std::max(1.0, r2), 1e-9);
-    EXPECT_NEAR(r.high_n, r.deviation_n + o.change_n * std::min(1.0, r2), 1e-9);
-  }
+  // The change is taken at the accepting coast-down's middle, before the record's time (its end and the
+  // analysis): more is still to come then than the curve says at t_s.
+  EXPECT_GT(-o.change_n, first->curve.remaining_drift_n(first->t_s));
   // The accepting coast-down's passes were dropped, with the reason, and the next coast-down ran the
   // setting aimed at the warm vehicle (as written: rounded to the profile's decimals).
-  ASSERT_FALSE(resets.empty());
-  EXPECT_NE(resets.front().why.find("adjusted for the vehicle fully warm"), std::string::npos);
+  ASSERT_FALSE(r.resets.empty());
+  EXPECT_NE(r.resets.front().why.find("adjusted for the vehicle fully warm"), std::string::npos);
   std::size_t at = 0;
-  while (at < runs.size() && runs[at].run != first.run) ++at;
-  ASSERT_LT(at + 1, runs.size());
-  EXPECT_EQ(runs[at].decision.kind, core::Decision::Kind::run_again);
-  EXPECT_NE(runs[at].decision.reason.find("adjusted for the warm vehicle"), std::string::npos);
-  EXPECT_NEAR(runs[at + 1].set.f0_n, o.warm_setting.f0_n, 0.06);
-  EXPECT_NEAR(runs[at + 1].set.f2_n_per_kmh2, o.warm_setting.f2_n_per_kmh2, 1e-5);
-  // Accepted in the end, with both bounds within tolerance at every speed.
-  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
-  ASSERT_TRUE(drifts.back().fully_warm.has_value());
-  EXPECT_TRUE(drifts.back().fully_warm->predicted);
-  EXPECT_TRUE(drifts.back().fully_warm->within) << drifts.back().fully_warm->why;
-  EXPECT_EQ(drifts.back().verdict, "settled");
+  while (at < r.runs.size() && r.runs[at].run != first->run) ++at;
+  ASSERT_LT(at + 1, r.runs.size());
+  EXPECT_EQ(r.runs[at].decision.kind, core::Decision::Kind::run_again);
+  EXPECT_NE(r.runs[at].decision.reason.find("adjusted for the warm vehicle"), std::string::npos);
+  EXPECT_NEAR(r.runs[at + 1].set.f0_n, o.warm_setting.f0_n, 0.06);
+  EXPECT_NEAR(r.runs[at + 1].set.f2_n_per_kmh2, o.warm_setting.f2_n_per_kmh2, 1e-5);
+  // Accepted in the end, with both bounds within tolerance at every speed, and no finding.
+  EXPECT_EQ(r.sum.outcome, session::Outcome::accepted) << r.sum.stop_reason;
+  ASSERT_TRUE(r.drifts.back().fully_warm.has_value());
+  EXPECT_TRUE(r.drifts.back().fully_warm->predicted);
+  EXPECT_TRUE(r.drifts.back().fully_warm->within) << r.drifts.back().fully_warm->why;
+  EXPECT_EQ(r.drifts.back().verdict, "settled");
+  EXPECT_TRUE(r.sum.findings.empty());
+  EXPECT_TRUE(r.refused.empty());
+
+  // The same session with no room for two more passes after that acceptance: accepted as it is, with a
+  // finding that says why (docs/standards.md §3.18: no coast-down left).
+  const FullyWarmRun tight = run_fully_warm(8.0, first->run + 1);
+  ASSERT_FALSE(tight.drifts.empty());
+  EXPECT_EQ(tight.drifts.front().verdict,
+            "settled, but outside tolerance once fully warm: accepted with a finding");
+  EXPECT_EQ(tight.sum.outcome, session::Outcome::accepted) << tight.sum.stop_reason;
+  ASSERT_EQ(tight.sum.findings.size(), 1u);
+  EXPECT_NE(tight.sum.findings[0].find("too few coast-downs are left"), std::string::npos)
+      << tight.sum.findings[0];
+}
+
+TEST(SessionUnit, ASettingTooFarFromWarmToAimAtCoastsOnAtTheAcceptedSetting) {
+  // docs/standards.md §3.18: a setting aimed at the warm vehicle reads about −c·(1 + r²)/2 at the next
+  // coast-down, 1.82·|c| at 130 km/h (warm-up at 80 km/h); above 10 N it would fail there. With a 300 s
+  // warm-up the first acceptance comes near t ≈ 400–500 s, with about 37.8·e^(−1.1) ≈ 12.6 N still to come
+  // (by hand as above), so a threshold of 20 N counts the vehicle as settled while a setting aimed at the
+  // warm vehicle would read about 23 N: coasting goes on at the accepted setting, as for a vehicle still
+  // warming, until the change still to come is small enough. Each record's verdict follows the rule from its
+  // own c.
+  const FullyWarmRun r = run_fully_warm(50.0, 20, 2.0, 1500.0, true);
+  ASSERT_FALSE(r.drifts.empty()) << r.sum.stop_reason;
+  bool held = false;
+  for (std::size_t k = 0; k < r.drifts.size(); ++k) {
+    const auto& d = r.drifts[k];
+    ASSERT_TRUE(d.fully_warm.has_value());
+    if (!d.fully_warm->predicted || d.fully_warm->within) continue;
+    double need = 0.0;  // the largest |c|·(1 + r²)/2 over the reference speeds
+    for (const auto& row : d.fully_warm->rows)
+      need = std::max(need, std::abs(d.fully_warm->change_n) * 0.5 *
+                                (1.0 + row.speed_kmh * row.speed_kmh / (80.0 * 80.0)));
+    EXPECT_EQ(d.fully_warm->aimable, need <= 10.0) << need;
+    if (need > 10.0) {
+      held = true;
+      EXPECT_EQ(d.verdict,
+                "settled, but outside tolerance once fully warm: coasting again at the accepted setting");
+      std::size_t at = 0;
+      while (at < r.runs.size() && r.runs[at].run != d.run) ++at;
+      ASSERT_LT(at + 1, r.runs.size());
+      EXPECT_EQ(r.runs[at + 1].set, r.runs[at].set);  // the same setting coasted again
+    }
+  }
+  EXPECT_TRUE(held) << "the premise: a settled setting too far from warm to aim at";
+  // This vehicle (twice the cold excess, τ = 1500 s) is still far from warm when the coast-downs run out or
+  // the divergence rule stops the loop (its rule 3 reads a loss falling this fast as a controller not
+  // following the setting: docs/performance.md, a known limit); whatever the end, no setting outside the
+  // bounds was accepted without a finding.
+  if (r.sum.outcome == session::Outcome::accepted) {
+    const auto& last = r.drifts.back();
+    EXPECT_TRUE(!last.fully_warm->predicted || last.fully_warm->within || !r.sum.findings.empty());
+  }
 }
 
 TEST(SessionUnit, AFixedRunFinalSettingHeldWhileTheVehicleSettlesIsCoastedNeverAveraged) {

@@ -5,7 +5,10 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <limits>
 #include <optional>
+#include <random>
+#include <utility>
 #include <vector>
 
 #include "core/profile.hpp"
@@ -470,8 +473,7 @@ TEST(FullyWarm, BoundsEachSpeedAndAimsTheSettingAtTheirMiddle) {
   const std::vector<double> speeds{20.0, 80.0, 130.0};
   const ToleranceCheck now = check_tolerance(target, measured, speeds, 10.0);
   ASSERT_TRUE(now.pass);
-  const FullyWarmOutlook o =
-      fully_warm_outlook(now, target, measured - set, curve_tau_1000(), 2000.0, 80.0, 10.0);
+  const FullyWarmOutlook o = fully_warm_outlook(now, target, measured - set, curve_tau_1000(), 2000.0, 80.0);
   ASSERT_TRUE(o.predicted) << o.why;
   EXPECT_NEAR(o.change_n, -1.3533528, 1e-6);
   ASSERT_EQ(o.rows.size(), 3u);
@@ -484,6 +486,9 @@ TEST(FullyWarm, BoundsEachSpeedAndAimsTheSettingAtTheirMiddle) {
   EXPECT_NEAR(o.rows[2].high_n, -9.3533528, 1e-6);
   EXPECT_FALSE(o.rows[2].within);
   EXPECT_FALSE(o.within);
+  // Aimable: the warm setting reads about −c·(1 + r²)/2 at the next coast-down, at most 1.3533528·1.8203125
+  // = 2.46 N (130 km/h), within 10 N.
+  EXPECT_TRUE(o.aimable);
   expect_eq(o.warm_setting, {58.4342522, 0.2, 0.0207117907}, 1e-7);
   EXPECT_NE(o.why.find("predicted outside tolerance once fully warm: -11.6 to -9.4 N at 130 km/h"),
             std::string::npos)
@@ -499,7 +504,7 @@ TEST(FullyWarm, WithinBothBoundsKeepsTheSettingAndARisingLossIsBoundedAlike) {
   const double q = -7.0 / 16500.0;
   const RoadLoad measured = target + RoadLoad{2.0 - 400.0 * q, 0.0, q};
   const FullyWarmOutlook in = fully_warm_outlook(check_tolerance(target, measured, speeds, 10.0), target,
-                                                 measured - set, curve_tau_1000(), 2000.0, 80.0, 10.0);
+                                                 measured - set, curve_tau_1000(), 2000.0, 80.0);
   ASSERT_TRUE(in.predicted);
   EXPECT_TRUE(in.within);
   EXPECT_NEAR(in.rows[2].low_n, -5.0 - 1.3533528 * 2.640625, 1e-6);
@@ -508,7 +513,7 @@ TEST(FullyWarm, WithinBothBoundsKeepsTheSettingAndARisingLossIsBoundedAlike) {
   const double up = 6.0 / 16500.0;  // +2 at 20 km/h, +8 at 130
   const RoadLoad high = target + RoadLoad{2.0 - 400.0 * up, 0.0, up};
   const FullyWarmOutlook rising = fully_warm_outlook(check_tolerance(target, high, speeds, 10.0), target,
-                                                     high - set, curve_tau_1000(-10.0), 2000.0, 80.0, 10.0);
+                                                     high - set, curve_tau_1000(-10.0), 2000.0, 80.0);
   ASSERT_TRUE(rising.predicted);
   EXPECT_NEAR(rising.change_n, 1.3533528, 1e-6);
   EXPECT_NEAR(rising.rows[2].low_n, 9.3533528, 1e-6);
@@ -527,13 +532,94 @@ TEST(FullyWarm, NothingIsDecidedWhenTheCurveDoesNotPredict) {
   at_bound.tau_at_bound = true;
   WarmUpCurve rough = curve_tau_1000();
   rough.rms_residual_n = 5.0;
-  for (const WarmUpCurve& c : {not_fitted, at_bound, rough}) {
-    const FullyWarmOutlook o = fully_warm_outlook(now, target, {}, c, 2000.0, 80.0, 10.0);
+  not_fitted.why = "too few hold windows";
+  const std::vector<std::pair<WarmUpCurve, std::string>> cases = {
+      {not_fitted, "not predicted: the warm-up's curve is not fitted (too few hold windows)"},
+      {at_bound, "not predicted: the warm-up's curve does not resolve its time constant"},
+      {rough, "not predicted: the warm-up's curve misses its windows by 5.0 N rms, above 2 N"}};
+  for (const auto& [c, why] : cases) {
+    const FullyWarmOutlook o = fully_warm_outlook(now, target, {}, c, 2000.0, 80.0);
     EXPECT_FALSE(o.predicted);
     EXPECT_TRUE(o.within);
+    EXPECT_FALSE(o.aimable);
     EXPECT_TRUE(o.rows.empty());
-    EXPECT_EQ(o.why.rfind("not predicted", 0), 0u) << o.why;
+    EXPECT_EQ(o.why, why);
   }
+  // A deviation that is not finite, after a row outside: not predicted, and not "outside" either.
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  ToleranceCheck odd;
+  odd.rows = {SpeedDeviation{20.0, 100.0, 120.0, 20.0, 0.0, 10.0, false},
+              SpeedDeviation{130.0, 100.0, nan, nan, 0.0, 10.0, false}};
+  const FullyWarmOutlook bad = fully_warm_outlook(odd, target, {}, curve_tau_1000(), 2000.0, 80.0);
+  EXPECT_FALSE(bad.predicted);
+  EXPECT_TRUE(bad.within);
+  EXPECT_EQ(bad.why, "not predicted: a deviation is not finite");
   // A time before motoring began is not a time the curve speaks of.
-  EXPECT_FALSE(fully_warm_outlook(now, target, {}, curve_tau_1000(), -1.0, 80.0, 10.0).predicted);
+  EXPECT_FALSE(fully_warm_outlook(now, target, {}, curve_tau_1000(), -1.0, 80.0).predicted);
+}
+
+TEST(FullyWarm, ASettingTooFarFromWarmIsNotAimedAtAndTheGuardBandsLimitIsUsed) {
+  // docs/standards.md §3.18, by hand: with A = 100 N the change still to come at t = 2000 s is c = −13.533528
+  // N; a setting aimed at the middle would read 13.533528·(1 + 2.640625)/2 = 24.64 N at 130 km/h at the next
+  // coast-down, beyond 10 N: not aimable, and no setting is given. Under the guard band (docs/standards.md
+  // §3.11) a row's limit is tolerance − k·u: with u = 2 N and k = 2 the limit is 6 N, so a deviation of −5 N
+  // at 130 km/h and c = −1.3533528 N (bounds −6.35 and −8.57 N, within ±10) is outside once fully warm.
+  const RoadLoad target{100.0, 0.5, 0.03}, set{60.0, 0.2, 0.02};
+  const std::vector<double> speeds{20.0, 80.0, 130.0};
+  const double q = -10.0 / 16500.0;
+  const RoadLoad measured = target + RoadLoad{2.0 - 400.0 * q, 0.0, q};
+  const FullyWarmOutlook far = fully_warm_outlook(check_tolerance(target, measured, speeds, 10.0), target,
+                                                  measured - set, curve_tau_1000(100.0), 2000.0, 80.0);
+  ASSERT_TRUE(far.predicted);
+  EXPECT_NEAR(far.change_n, -13.533528, 1e-5);
+  EXPECT_FALSE(far.within);
+  EXPECT_FALSE(far.aimable);
+  EXPECT_NE(far.why.find("would miss the next coast-down"), std::string::npos) << far.why;
+  const double q5 = -7.0 / 16500.0;  // +2 at 20 km/h, −5 at 130
+  const RoadLoad m5 = target + RoadLoad{2.0 - 400.0 * q5, 0.0, q5};
+  DecisionRule guard;
+  guard.kind = DecisionRule::Kind::guard_band;
+  guard.coverage_k = 2.0;
+  const ToleranceCheck banded = check_tolerance(target, m5, speeds, 10.0, guard, [](double) { return 2.0; });
+  ASSERT_TRUE(banded.pass);  // |−5| <= 6
+  const FullyWarmOutlook g = fully_warm_outlook(banded, target, m5 - set, curve_tau_1000(), 2000.0, 80.0);
+  ASSERT_TRUE(g.predicted);
+  EXPECT_FALSE(g.rows[2].within);
+  EXPECT_FALSE(g.within);
+  EXPECT_TRUE(fully_warm_outlook(check_tolerance(target, m5, speeds, 10.0), target, m5 - set,
+                                 curve_tau_1000(), 2000.0, 80.0)
+                  .within);
+}
+
+TEST(FullyWarm, TheBoundsHoldForEveryWarmingPolynomialWithTermsOfOneSign) {
+  // The algebra behind docs/standards.md §3.18: for a change Δ(v) = s·(a + b·v + q·v²) with a, b, q >= 0 and
+  // s = ±1, and c = Δ(v_w), Δ(v) lies between c·min(1, r²) and c·max(1, r²), r = v / v_w. Checked on 2,000
+  // polynomials drawn with a fixed seed and every 5 km/h from 5 to 160 km/h (the bounds are reached by the
+  // pure terms: q alone gives c·r², a alone gives c).
+  std::mt19937_64 rng(17);
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  const double vw = 80.0;
+  for (int k = 0; k < 2000; ++k) {
+    const double a = 30.0 * u(rng) * (k % 3 != 0), b = 0.3 * u(rng) * (k % 5 != 0), q = 0.004 * u(rng);
+    const double sign = k % 2 ? 1.0 : -1.0;
+    auto change = [&](double v) { return sign * (a + b * v + q * v * v); };
+    const double c = change(vw);
+    for (double v = 5.0; v <= 160.0; v += 5.0) {
+      const double r2 = (v / vw) * (v / vw);
+      const double lo = std::min(c * std::min(1.0, r2), c * std::max(1.0, r2));
+      const double hi = std::max(c * std::min(1.0, r2), c * std::max(1.0, r2));
+      EXPECT_GE(change(v), lo - 1e-12) << "a " << a << " b " << b << " q " << q << " v " << v;
+      EXPECT_LE(change(v), hi + 1e-12) << "a " << a << " b " << b << " q " << q << " v " << v;
+    }
+  }
+  // And fully_warm_outlook's rows are those bounds: a deviation of 0 now at every speed gives exactly them.
+  const RoadLoad target{100.0, 0.5, 0.03};
+  const std::vector<double> speeds{20.0, 80.0, 130.0};
+  const FullyWarmOutlook o = fully_warm_outlook(check_tolerance(target, target, speeds, 10.0), target, {},
+                                                curve_tau_1000(), 2000.0, vw);
+  ASSERT_TRUE(o.predicted);
+  EXPECT_NEAR(o.rows[0].low_n, o.change_n, 1e-12);
+  EXPECT_NEAR(o.rows[0].high_n, o.change_n * 0.0625, 1e-12);
+  EXPECT_NEAR(o.rows[2].low_n, o.change_n * 2.640625, 1e-12);
+  EXPECT_NEAR(o.rows[2].high_n, o.change_n, 1e-12);
 }
