@@ -59,7 +59,8 @@ struct WarmUp {
   double drift_threshold_n = 3.0;
   // With "require": a settled vehicle's setting is also judged as it will be once the vehicle is fully warm
   // (setting.hpp fully_warm_outlook, docs/standards.md §3.18, lab policy); outside tolerance there, the
-  // iterative method adjusts it for the warm vehicle and coasts again instead of accepting.
+  // iterative method adjusts it for the warm vehicle (or coasts on at it while the vehicle settles further,
+  // not accepting when no coast-down is left) instead of accepting.
   bool check_fully_warm = false;
   // Anticipate the warming still to come in each adjusted setting and in the fixed-run final setting
   // (setting.hpp WarmingOutlook, docs/standards.md §3.16, lab policy): the loss taken off the target is

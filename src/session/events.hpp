@@ -285,7 +285,7 @@ struct WarmUpDrift {  // "warm_up_drift": the vehicle's warming trend when a set
   // "settled" (below the threshold), "still warming: accepted with a finding", "still warming: coasting
   // again at the accepted setting", "not estimated: ..." (then nothing is decided by it), or with the
   // fully-warm check (below) "settled, but outside tolerance once fully warm: " and "adjusted for the warm
-  // vehicle", "coasting again at the accepted setting" or "accepted with a finding".
+  // vehicle", "coasting again at the accepted setting", "not accepted" or "accepted with a finding".
   std::string verdict;
   // With warm_up.check_fully_warm and "require", once settled: the setting as it will be fully warm
   // (docs/standards.md §3.18).

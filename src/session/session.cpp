@@ -953,9 +953,9 @@ std::optional<Session::Stop> Session::do_run(int run) {
       // Settled: is the setting still within tolerance once the vehicle is fully warm (docs/standards.md
       // §3.18)? The deviations are the acceptance's, the loss the adjustment's (§3.17), both of this
       // coast-down, so the change still to come is taken from its middle.
-      enum class WarmAction { none, adjust, hold, finding };
+      enum class WarmAction { none, adjust, hold, reject, finding };
       WarmAction warm_action = WarmAction::none;
-      std::string warm_finding;
+      std::string warm_why;  // the finding (finding), or why it is not adjusted (hold, reject)
       if (require && w.check_fully_warm && d.curve.ok && !warming) {
         if (rec.decision.next_set == set_) {
           d.fully_warm = core::fully_warm_outlook(
@@ -968,31 +968,29 @@ std::optional<Session::Stop> Session::do_run(int run) {
           d.fully_warm->why = "not predicted: the final setting was never coasted (no verification run)";
         }
         const auto& o = *d.fully_warm;
-        const bool iterative = p.method == core::SettingMethod::iterative;
         if (!o.predicted) {
           warm_action = WarmAction::finding;
-          warm_finding = "the fully-warm check was not made (" + o.why + ")";
-        } else if (!o.within) {
+          warm_why = "the fully-warm check was not made (" + o.why + ")";
+        } else if (!o.within && p.method != core::SettingMethod::iterative) {
           warm_action = WarmAction::finding;
-          warm_finding = "the setting is " + o.why + "; ";
-          if (!iterative) {
-            warm_finding += "the fixed-run method keeps its final setting";
-          } else if (!o.aimable) {
-            if (coastdowns_ < p.max_coastdowns)
-              warm_action = WarmAction::hold;
-            else
-              warm_finding += "no coast-down is left to let the vehicle settle further";
-          } else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns) {
-            warm_finding += "too few coast-downs are left for a setting aimed at the warm vehicle to pass";
-          } else if (const core::SetCheck chk =
-                         core::check_set(o.warm_setting, in_.vehicle.target, last_written_, opt_.envelope);
-                     !chk.ok) {
+          warm_why = "the setting is " + o.why + "; the fixed-run method keeps its final setting";
+        } else if (!o.within) {
+          // The iterative method: adjusted for the warm vehicle when that setting can pass (aimable, two
+          // passes' room, inside the envelope); else coasting on at the accepted setting while the vehicle
+          // settles further, and not accepted when no coast-down is left (the drift rule "require").
+          if (!o.aimable)
+            warm_why = "the vehicle is still too far from warm to aim a setting at";
+          else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
+            warm_why = "too few coast-downs are left for a setting aimed at the warm vehicle to pass";
+          else if (const core::SetCheck chk =
+                       core::check_set(o.warm_setting, in_.vehicle.target, last_written_, opt_.envelope);
+                   !chk.ok) {
             emit(ev::EnvelopeRefused{run, o.warm_setting, chk.why});
-            warm_finding +=
-                "the setting aimed at the warm vehicle leaves the safe envelope (" + chk.why + ")";
-          } else {
-            warm_action = WarmAction::adjust;
+            warm_why = "the setting aimed at the warm vehicle leaves the safe envelope (" + chk.why + ")";
           }
+          warm_action = warm_why.empty()                 ? WarmAction::adjust
+                        : coastdowns_ < p.max_coastdowns ? WarmAction::hold
+                                                         : WarmAction::reject;
         }
       }
       if (!d.curve.ok)
@@ -1001,6 +999,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
         d.verdict = "settled, but outside tolerance once fully warm: adjusted for the warm vehicle";
       else if (warm_action == WarmAction::hold)
         d.verdict = "settled, but outside tolerance once fully warm: coasting again at the accepted setting";
+      else if (warm_action == WarmAction::reject)
+        d.verdict = "settled, but outside tolerance once fully warm: not accepted";
       else if (warm_action == WarmAction::finding && d.fully_warm->predicted)
         d.verdict = "settled, but outside tolerance once fully warm: accepted with a finding";
       else if (!warming)
@@ -1017,10 +1017,14 @@ std::optional<Session::Stop> Session::do_run(int run) {
         reset_passes(run, "the setting is adjusted for the vehicle fully warm (" + d.fully_warm->why + ")");
       } else if (warm_action == WarmAction::hold) {
         rec.decision.kind = core::Decision::Kind::run_again;
-        rec.decision.reason += "; but " + d.fully_warm->why +
-                               ": coasting the accepted setting until the vehicle settles further";
+        rec.decision.reason += "; but " + d.fully_warm->why + " and " + warm_why +
+                               ": coasting the accepted setting while the vehicle settles further";
+      } else if (warm_action == WarmAction::reject) {
+        rec.decision.kind = core::Decision::Kind::rejected;
+        rec.decision.reason += "; but " + d.fully_warm->why + ", " + warm_why +
+                               " and no coast-down is left (the drift rule \"require\"): not accepted";
       } else if (warm_action == WarmAction::finding) {
-        findings_.push_back(warm_finding);
+        findings_.push_back(warm_why);
       } else if (warming && require) {
         rec.decision.kind = core::Decision::Kind::run_again;
         rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +
