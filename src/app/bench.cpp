@@ -889,7 +889,8 @@ int run_bench(BenchOptions o) {
       const double share = rq["truly_outside_fully_warm_share"];
       const double of_accepted = n > failed ? share * n / (n - failed) : 0.0;
       const bool met = n > failed && share <= 0.01 && of_accepted <= 0.01;
-      // The verdict is the shipped profile's (it judges the settled setting fully warm); the row without that
+      // The verdict is the waiting row's, which judges the settled setting fully warm
+      // (warm_up.check_fully_warm, set in the shipped profiles, acts with "require"); the row without that
       // check is shown beside it, as the lever's contribution.
       const bool waits = std::string(key) == "iterative-wait-for-stable-require";
       const bool unchecked = std::string(key).ends_with("no-fully-warm-check");

@@ -132,6 +132,7 @@ FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& t
     FullyWarmRow row;
     row.speed_kmh = d.speed_kmh;
     row.deviation_n = d.deviation_n;
+    row.limit_n = d.limit_n;
     const double a = d.deviation_n + *change * std::min(1.0, r2),
                  b = d.deviation_n + *change * std::max(1.0, r2);
     row.low_n = std::min(a, b);
@@ -150,6 +151,7 @@ FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& t
   }
   o.predicted = true;
   o.change_n = *change;
+  o.from_s = t_s;
   const FullyWarmRow* worst = &o.rows.front();
   for (const auto& r : o.rows)
     if (std::max(std::abs(r.low_n), std::abs(r.high_n)) >
@@ -166,10 +168,13 @@ FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& t
   const RoadLoad middle{0.5 * *change, 0.0, 0.5 * *change / vw2};
   const RoadLoad warm = target - (loss + middle);
   if (!aimable) {
-    o.why += "; a setting aimed at the warm vehicle would miss the next coast-down by more than the limit";
+    o.not_aimable_why =
+        "the vehicle is still too far from warm to aim a setting at (it would miss the next coast-down by "
+        "more "
+        "than the limit)";
   } else if (!std::isfinite(warm.f0_n) || !std::isfinite(warm.f1_n_per_kmh) ||
              !std::isfinite(warm.f2_n_per_kmh2)) {
-    o.why += "; the setting for the warm vehicle is not finite";
+    o.not_aimable_why = "the setting for the warm vehicle is not finite";
   } else {
     o.aimable = true;
     o.warm_setting = warm;

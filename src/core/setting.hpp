@@ -128,20 +128,26 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
 struct FullyWarmRow {
   double speed_kmh = 0.0;
   double deviation_n = 0.0;          // measured − target now (the acceptance's check)
+  double limit_n = 0.0;              // the acceptance's limit at this speed (the check's)
   double low_n = 0.0, high_n = 0.0;  // the bounds on the deviation once fully warm
-  bool within = false;               // both bounds within the acceptance's limit at this speed
+  bool within = false;               // both bounds within limit_n
 };
 struct FullyWarmOutlook {
   bool predicted = false;  // false: the curve does not predict the change (why says so); nothing is decided
   std::string why;         // one line for the log
   double change_n = 0.0;   // c: the warm-up-speed force's change still to come (negative: still falling)
+  double from_s = 0.0;     // the time c is taken from, s since motoring began (the curve's clock)
   double speed_kmh = 0.0;  // the warm-up speed
   std::vector<FullyWarmRow> rows;
   bool within = true;  // every row within (true when not predicted)
   // Predicted and not within: whether the setting for the warm vehicle can pass the next coast-down (above),
   // and that setting (finite; set only when aimable).
   bool aimable = false;
+  std::string not_aimable_why;  // predicted, not within and not aimable: why
   RoadLoad warm_setting;
+  // Set by the session when the setting is not adjusted for the warm vehicle although not within: why (not
+  // aimable, too few coast-downs left, the safe envelope); empty otherwise.
+  std::string not_adjusted_why;
 };
 // How far ahead "fully warm" is taken, in time constants of the curve (e^−50: nothing left to come).
 inline constexpr double kFullyWarmTaus = 50.0;

@@ -341,16 +341,20 @@ struct Mapper {
       nlohmann::json fw = {{"predicted", o.predicted}, {"why", o.why}, {"within", o.within}};
       if (o.predicted) {
         fw["change_n"] = o.change_n;
+        fw["from_s"] = o.from_s;
         fw["speed_kmh"] = o.speed_kmh;
         nlohmann::json rows = nlohmann::json::array();
         for (const auto& r : o.rows)
           rows.push_back({{"speed_kmh", r.speed_kmh},
                           {"deviation_n", r.deviation_n},
+                          {"limit_n", r.limit_n},
                           {"low_n", r.low_n},
                           {"high_n", r.high_n},
                           {"within", r.within}});
         fw["rows"] = std::move(rows);
         if (!o.within) fw["aimable"] = o.aimable;
+        if (!o.not_aimable_why.empty()) fw["not_aimable_why"] = o.not_aimable_why;
+        if (!o.not_adjusted_why.empty()) fw["not_adjusted_why"] = o.not_adjusted_why;
         if (o.aimable) fw["warm_setting"] = to_json(o.warm_setting);
       }
       j["fully_warm"] = std::move(fw);

@@ -956,7 +956,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
       enum class WarmAction { none, adjust, hold, reject, finding };
       WarmAction warm_action = WarmAction::none;
       std::string warm_why;  // the finding (finding), or why it is not adjusted (hold, reject)
-      if (require && w.check_fully_warm && d.curve.ok && !warming) {
+      if (require && w.check_fully_warm && !warming) {
         if (rec.decision.next_set == set_) {
           d.fully_warm = core::fully_warm_outlook(
               rec.evaluation.check, in_.vehicle.target, rec.evaluation.adjust_basis - set_, d.curve,
@@ -979,15 +979,15 @@ std::optional<Session::Stop> Session::do_run(int run) {
           // passes' room, inside the envelope); else coasting on at the accepted setting while the vehicle
           // settles further, and not accepted when no coast-down is left (the drift rule "require").
           if (!o.aimable)
-            warm_why = "the vehicle is still too far from warm to aim a setting at";
+            warm_why = o.not_aimable_why;
           else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
-            warm_why = "too few coast-downs are left for a setting aimed at the warm vehicle to pass";
+            warm_why = "too few coast-downs are left for a setting aimed at the warm vehicle to pass " +
+                       std::to_string(p.consecutive_passes) + " in a row";
           else if (const core::SetCheck chk =
                        core::check_set(o.warm_setting, in_.vehicle.target, last_written_, opt_.envelope);
-                   !chk.ok) {
-            emit(ev::EnvelopeRefused{run, o.warm_setting, chk.why});
+                   !chk.ok)
             warm_why = "the setting aimed at the warm vehicle leaves the safe envelope (" + chk.why + ")";
-          }
+          d.fully_warm->not_adjusted_why = warm_why;
           warm_action = warm_why.empty()                 ? WarmAction::adjust
                         : coastdowns_ < p.max_coastdowns ? WarmAction::hold
                                                          : WarmAction::reject;

@@ -475,7 +475,7 @@ struct FullyWarmRun {
   std::vector<session::ev::EnvelopeRefused> refused;
 };
 FullyWarmRun run_fully_warm(double threshold_n, int max_coastdowns, double cold_excess = 1.0,
-                            double tau_s = 400.0, bool anticipate = false) {
+                            double tau_s = 400.0, bool anticipate = false, double warm_up_s = 600.0) {
   FullyWarmRun out;
   FakeController c(warming_truth(cold_excess, tau_s));
   Recorder record(true);
@@ -489,6 +489,7 @@ FullyWarmRun run_fully_warm(double threshold_n, int max_coastdowns, double cold_
   in.profile.warm_up.drift_rule = core::WarmUp::DriftRule::require;
   in.profile.warm_up.drift_threshold_n = threshold_n;
   in.profile.warm_up.check_fully_warm = true;
+  in.profile.warm_up.duration_s = warm_up_s;
   in.profile.warm_up.anticipate_drift = anticipate;
   in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;
   in.profile.max_coastdowns = max_coastdowns;
@@ -569,12 +570,13 @@ TEST(SessionUnit, ASettledSettingOutsideToleranceFullyWarmIsAdjustedForTheWarmVe
 
 TEST(SessionUnit, ASettingTooFarFromWarmToAimAtCoastsOnAtTheAcceptedSetting) {
   // docs/standards.md §3.18: a setting aimed at the warm vehicle reads about −c·(1 + r²)/2 at the next
-  // coast-down, 1.82·|c| at 130 km/h (warm-up at 80 km/h); above 10 N it would fail there. With a 300 s
-  // warm-up the first acceptance comes near t ≈ 400–500 s, with about 37.8·e^(−1.1) ≈ 12.6 N still to come
-  // (by hand as above), so a threshold of 20 N counts the vehicle as settled while a setting aimed at the
-  // warm vehicle would read about 23 N: coasting goes on at the accepted setting, as for a vehicle still
-  // warming, until the change still to come is small enough. Each record's verdict follows the rule from its
-  // own c.
+  // coast-down, 1.82·|c| at 130 km/h (warm-up at 80 km/h); above 10 N it would fail there. A vehicle with
+  // twice the cold excess (75.6 N at 80 km/h) and τ = 1500 s, after a 600 s warm-up, still has about
+  // 75.6·e^(−0.6) ≈ 40 N to come near t ≈ 900–1200 s (by hand), so with a drift threshold of 50 N it counts
+  // as settled at its first acceptance while a setting aimed at the warm vehicle would read about 70 N:
+  // coasting goes on at the accepted setting, as for a vehicle still warming. The settings anticipate the
+  // warming (§3.16) so that the loop reaches acceptance at all. Each record's verdict follows the rule from
+  // its own c.
   const FullyWarmRun r = run_fully_warm(50.0, 20, 2.0, 1500.0, true);
   ASSERT_FALSE(r.drifts.empty()) << r.sum.stop_reason;
   bool held = false;
@@ -606,6 +608,25 @@ TEST(SessionUnit, ASettingTooFarFromWarmToAimAtCoastsOnAtTheAcceptedSetting) {
     const auto& last = r.drifts.back();
     EXPECT_TRUE(!last.fully_warm->predicted || last.fully_warm->within);
   }
+}
+
+TEST(SessionUnit, AFullyWarmCheckThatCannotBeMadeIsAFinding) {
+  // docs/standards.md §3.18 and §3.12: a 90 s warm-up in 30 s windows gives 3 windows, fewer than the 4 the
+  // curve needs, so the curve is "not estimated" and nothing is decided by it; with the fully-warm check
+  // asked for, the acceptance carries a finding saying the check was not made and why.
+  const FullyWarmRun r = run_fully_warm(3.0, 20, 1.0, 400.0, false, 90.0);
+  ASSERT_FALSE(r.drifts.empty()) << r.sum.stop_reason;
+  EXPECT_EQ(r.drifts.back().verdict.rfind("not estimated", 0), 0u) << r.drifts.back().verdict;
+  ASSERT_TRUE(r.drifts.back().fully_warm.has_value());
+  EXPECT_FALSE(r.drifts.back().fully_warm->predicted);
+  EXPECT_EQ(r.sum.outcome, session::Outcome::accepted) << r.sum.stop_reason;
+  ASSERT_EQ(r.sum.findings.size(), 1u);
+  EXPECT_EQ(
+      r.sum.findings[0].rfind("the fully-warm check was not made (not predicted: the warm-up's curve is "
+                              "not fitted",
+                              0),
+      0u)
+      << r.sum.findings[0];
 }
 
 TEST(SessionUnit, AFixedRunFinalSettingHeldWhileTheVehicleSettlesIsCoastedNeverAveraged) {

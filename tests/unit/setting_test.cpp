@@ -443,6 +443,9 @@ TEST(Setting, FixedRunRequireWithoutAnticipationIsWarned) {
 }
 
 namespace {
+bool o_is_default(const RoadLoad& r) {
+  return r.f0_n == 0.0 && r.f1_n_per_kmh == 0.0 && r.f2_n_per_kmh2 == 0.0;
+}
 // A warming curve F(t) = 100 + 10·exp(−t/1000) N, as fit_warm_up_curve gives it.
 WarmUpCurve curve_tau_1000(double amplitude_n = 10.0) {
   WarmUpCurve c;
@@ -476,7 +479,10 @@ TEST(FullyWarm, BoundsEachSpeedAndAimsTheSettingAtTheirMiddle) {
   const FullyWarmOutlook o = fully_warm_outlook(now, target, measured - set, curve_tau_1000(), 2000.0, 80.0);
   ASSERT_TRUE(o.predicted) << o.why;
   EXPECT_NEAR(o.change_n, -1.3533528, 1e-6);
+  EXPECT_EQ(o.from_s, 2000.0);
   ASSERT_EQ(o.rows.size(), 3u);
+  EXPECT_EQ(o.rows[2].limit_n, 10.0);
+  EXPECT_TRUE(o.not_aimable_why.empty());
   EXPECT_NEAR(o.rows[0].low_n, 0.6466472, 1e-6);
   EXPECT_NEAR(o.rows[0].high_n, 1.9154154, 1e-6);
   EXPECT_TRUE(o.rows[0].within);
@@ -574,7 +580,9 @@ TEST(FullyWarm, ASettingTooFarFromWarmIsNotAimedAtAndTheGuardBandsLimitIsUsed) {
   EXPECT_NEAR(far.change_n, -13.533528, 1e-5);
   EXPECT_FALSE(far.within);
   EXPECT_FALSE(far.aimable);
-  EXPECT_NE(far.why.find("would miss the next coast-down"), std::string::npos) << far.why;
+  EXPECT_NE(far.not_aimable_why.find("would miss the next coast-down"), std::string::npos)
+      << far.not_aimable_why;
+  EXPECT_TRUE(o_is_default(far.warm_setting));
   const double q5 = -7.0 / 16500.0;  // +2 at 20 km/h, −5 at 130
   const RoadLoad m5 = target + RoadLoad{2.0 - 400.0 * q5, 0.0, q5};
   DecisionRule guard;
