@@ -446,6 +446,12 @@ namespace {
 bool o_is_default(const RoadLoad& r) {
   return r.f0_n == 0.0 && r.f1_n_per_kmh == 0.0 && r.f2_n_per_kmh2 == 0.0;
 }
+// The target plus a deviation of dev20_n at 20 km/h and dev130_n at 130 km/h through {a, 0, q}: a + 400q =
+// dev20_n, a + 16900q = dev130_n (by hand: q = (dev130_n − dev20_n)/16500).
+RoadLoad off_target(const RoadLoad& target, double dev20_n, double dev130_n) {
+  const double q = (dev130_n - dev20_n) / 16500.0;
+  return target + RoadLoad{dev20_n - 400.0 * q, 0.0, q};
+}
 // A warming curve F(t) = 100 + 10·exp(−t/1000) N, as fit_warm_up_curve gives it.
 WarmUpCurve curve_tau_1000(double amplitude_n = 10.0) {
   WarmUpCurve c;
@@ -471,8 +477,7 @@ TEST(FullyWarm, BoundsEachSpeedAndAimsTheSettingAtTheirMiddle) {
   // set = {60, 0.2, 0.02}: set − (measured − target) − {c/2, 0, c/12800} = {60 − 2.2424242 + 0.6766764, 0.2,
   // 0.02 + 6.0606e−4 + 1.0573069e−4} = {58.4342522, 0.2, 0.0207117907}.
   const RoadLoad target{100.0, 0.5, 0.03}, set{60.0, 0.2, 0.02};
-  const double q = -10.0 / 16500.0;
-  const RoadLoad measured = target + RoadLoad{2.0 - 400.0 * q, 0.0, q};
+  const RoadLoad measured = off_target(target, 2.0, -8.0);
   const std::vector<double> speeds{20.0, 80.0, 130.0};
   const ToleranceCheck now = check_tolerance(target, measured, speeds, 10.0);
   ASSERT_TRUE(now.pass);
@@ -507,8 +512,7 @@ TEST(FullyWarm, WithinBothBoundsKeepsTheSettingAndARisingLossIsBoundedAlike) {
   // gives 9.35 and 11.57 N: outside.
   const RoadLoad target{100.0, 0.5, 0.03}, set{60.0, 0.2, 0.02};
   const std::vector<double> speeds{20.0, 80.0, 130.0};
-  const double q = -7.0 / 16500.0;
-  const RoadLoad measured = target + RoadLoad{2.0 - 400.0 * q, 0.0, q};
+  const RoadLoad measured = off_target(target, 2.0, -5.0);
   const FullyWarmOutlook in = fully_warm_outlook(check_tolerance(target, measured, speeds, 10.0), target,
                                                  measured - set, curve_tau_1000(), 2000.0, 80.0);
   ASSERT_TRUE(in.predicted);
@@ -516,8 +520,7 @@ TEST(FullyWarm, WithinBothBoundsKeepsTheSettingAndARisingLossIsBoundedAlike) {
   EXPECT_NEAR(in.rows[2].low_n, -5.0 - 1.3533528 * 2.640625, 1e-6);
   EXPECT_NEAR(in.rows[2].high_n, -6.3533528, 1e-6);
   EXPECT_EQ(in.why.rfind("within tolerance once fully warm", 0), 0u) << in.why;
-  const double up = 6.0 / 16500.0;  // +2 at 20 km/h, +8 at 130
-  const RoadLoad high = target + RoadLoad{2.0 - 400.0 * up, 0.0, up};
+  const RoadLoad high = off_target(target, 2.0, 8.0);
   const FullyWarmOutlook rising = fully_warm_outlook(check_tolerance(target, high, speeds, 10.0), target,
                                                      high - set, curve_tau_1000(-10.0), 2000.0, 80.0);
   ASSERT_TRUE(rising.predicted);
@@ -572,8 +575,7 @@ TEST(FullyWarm, ASettingTooFarFromWarmIsNotAimedAtAndTheGuardBandsLimitIsUsed) {
   // at 130 km/h and c = −1.3533528 N (bounds −6.35 and −8.57 N, within ±10) is outside once fully warm.
   const RoadLoad target{100.0, 0.5, 0.03}, set{60.0, 0.2, 0.02};
   const std::vector<double> speeds{20.0, 80.0, 130.0};
-  const double q = -10.0 / 16500.0;
-  const RoadLoad measured = target + RoadLoad{2.0 - 400.0 * q, 0.0, q};
+  const RoadLoad measured = off_target(target, 2.0, -8.0);
   const FullyWarmOutlook far = fully_warm_outlook(check_tolerance(target, measured, speeds, 10.0), target,
                                                   measured - set, curve_tau_1000(100.0), 2000.0, 80.0);
   ASSERT_TRUE(far.predicted);
@@ -583,8 +585,7 @@ TEST(FullyWarm, ASettingTooFarFromWarmIsNotAimedAtAndTheGuardBandsLimitIsUsed) {
   EXPECT_NE(far.not_aimable_why.find("would miss the next coast-down"), std::string::npos)
       << far.not_aimable_why;
   EXPECT_TRUE(o_is_default(far.warm_setting));
-  const double q5 = -7.0 / 16500.0;  // +2 at 20 km/h, −5 at 130
-  const RoadLoad m5 = target + RoadLoad{2.0 - 400.0 * q5, 0.0, q5};
+  const RoadLoad m5 = off_target(target, 2.0, -5.0);
   DecisionRule guard;
   guard.kind = DecisionRule::Kind::guard_band;
   guard.coverage_k = 2.0;
