@@ -467,6 +467,14 @@ int run_bench(BenchOptions o) {
   iterative_plain.warm_up.anticipate_drift = false;
   core::Profile fixed_plain = fixed;
   fixed_plain.warm_up.anticipate_drift = false;
+  // The shipped iterative profiles predict, after a pass, whether the warming will take the next coast-down
+  // outside and adjust at once above a 0.3 chance (warm_up.predict_next_pass, next_pass_risk;
+  // docs/standards.md §3.19, lab policy); these rows coast on after every pass, as before, and adjust only
+  // above a 0.5 chance, so that the lever and its risk are measured side by side.
+  core::Profile iterative_no_predict = iterative;
+  iterative_no_predict.warm_up.predict_next_pass = false;
+  core::Profile iterative_risk_half = iterative;
+  iterative_risk_half.warm_up.next_pass_risk = 0.5;
   // The shipped profiles aim each anticipated setting at the coast-downs it must pass in a row
   // (warm_up.anticipate_for = "passes", docs/standards.md §3.16); this row aims at the next one only, as the
   // previous step did, so that the aim's contribution is measured side by side.
@@ -499,6 +507,8 @@ int run_bench(BenchOptions o) {
       {"iterative-whole-trace-confirms", &iterative_confirm, {2}},
       {"iterative-map-holds-only", &iterative_holds_only, {2}},
       {"iterative-no-anticipation", &iterative_plain, {2}},
+      {"iterative-no-next-pass-prediction", &iterative_no_predict, {2}},
+      {"iterative-next-pass-risk-0.5", &iterative_risk_half, {2}},
       {"fixed-run-no-anticipation", &fixed_plain, {2}},
       {"iterative-anticipates-next-only", &iterative_next, {2}},
       {"iterative-crossing-fit-2.5-kmh", &iterative_narrow, {2}},
@@ -650,7 +660,9 @@ int run_bench(BenchOptions o) {
                narrow = prof.crossing_fit_half_width_kmh != base.crossing_fit_half_width_kmh,
                loss_differs = prof.adjust_from != base.adjust_from,
                aim_differs = prof.warm_up.anticipate_drift &&
-                             prof.warm_up.anticipate_for != base.warm_up.anticipate_for;
+                             prof.warm_up.anticipate_for != base.warm_up.anticipate_for,
+               predict_differs = prof.warm_up.predict_next_pass != base.warm_up.predict_next_pass ||
+                                 prof.warm_up.next_pass_risk != base.warm_up.next_pass_risk;
     const std::string note =
         (stable_end ? ", warm-up ended on stability: at least " + num_min(prof.warm_up.duration_s) +
                           " min, then until the warming trend says less than the drift threshold is to come, "
@@ -674,6 +686,12 @@ int run_bench(BenchOptions o) {
                            ? ", each anticipated setting aims at the next coast-down only"
                            : ", each anticipated setting aims at the coast-downs it must pass in a row"
                      : "") +
+        (predict_differs
+             ? prof.warm_up.predict_next_pass
+                   ? ", a pass adjusted at once when the next coast-down fails with a chance above " +
+                         core::num(prof.warm_up.next_pass_risk) + " (warm_up.next_pass_risk)"
+                   : ", coasting on after every pass (no warm_up.predict_next_pass)"
+             : std::string()) +
         (narrow
              ? ", each crossing time fitted within ±" + core::num(prof.crossing_fit_half_width_kmh) + " km/h"
              : std::string()) +
@@ -682,7 +700,7 @@ int run_bench(BenchOptions o) {
                             : ", each adjustment's loss from the whole-trace curve"
                       : "") +
         (stable_end || require || guard || confirm || holds_only || anticipate_differs || aim_differs ||
-                 narrow || loss_differs
+                 narrow || loss_differs || predict_differs
              ? (prof.method == core::SettingMethod::fixed_run ? "; vs standard: the fixed-run one"
                                                               : "; vs standard: the iterative one")
              : "");
@@ -923,6 +941,14 @@ int run_bench(BenchOptions o) {
         "%.1f "
         "and %.1f   %s\n",
         med, p95, yes(med <= 2.0 && p95 <= 3.0));
+    // The next-pass prediction's rows beside it (warm_up.predict_next_pass, docs/standards.md §3.19).
+    for (const char* key : {"iterative-no-next-pass-prediction", "iterative-next-pass-risk-0.5"})
+      if (mr.contains(key) && mr[key].contains("loss-map")) {
+        const auto& r = mr[key]["loss-map"];
+        std::printf("    %s: median %.1f, p95 %.1f, %.1f %% at 2\n", key,
+                    r["coastdowns_median"].get<double>(), r["coastdowns_p95"].get<double>(),
+                    100 * r["share_at_2"].get<double>());
+      }
     const double h = mr["iterative"]["history"]["share_at_2"];
     std::printf(
         "  history: >= 95 %% at 2 coast-downs with typical (day-to-day variation on)   measured %.1f %%   "

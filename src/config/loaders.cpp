@@ -69,6 +69,8 @@ core::Profile read_profile(TomlReader& r) {
   p.warm_up.drift_threshold_n = r.number_or("warm_up.drift_threshold_n", 3.0, 0.1, 100.0, "N");
   p.warm_up.check_fully_warm = r.boolean_or("warm_up.check_fully_warm", false);
   p.warm_up.anticipate_drift = r.boolean_or("warm_up.anticipate_drift", false);
+  p.warm_up.predict_next_pass = r.boolean_or("warm_up.predict_next_pass", false);
+  p.warm_up.next_pass_risk = r.number_or("warm_up.next_pass_risk", 0.5, 0.01, 0.99, "");
   p.warm_up.anticipate_for =
       r.choice("warm_up.anticipate_for", {"next", "passes"}, std::string("next")) == "passes"
           ? core::WarmUp::AnticipateFor::passes

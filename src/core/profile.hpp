@@ -67,6 +67,14 @@ struct WarmUp {
   // scaled by the change the warm-up's curve predicts by the next coast-down. Off: the standard's adjustment
   // as it is.
   bool anticipate_drift = false;
+  // With anticipate_drift and the iterative method: after a pass that is not yet the last of the consecutive
+  // passes, predict the next coast-down's deviation with the warming to it (setting.hpp next_pass_outlook,
+  // docs/standards.md §3.19, lab policy); predicted outside the acceptance's limit, adjust the setting now
+  // (the passes start again) instead of coasting on to a likely failure.
+  bool predict_next_pass = false;
+  // The probability of a failure at the next coast-down above which the setting is adjusted now (0 to 1;
+  // 0.5: when a failure is more likely than not).
+  double next_pass_risk = 0.5;
   // Which coast-downs an anticipated setting aims at (docs/standards.md §3.16, lab policy): `next`, the next
   // coast-down only; `passes`, the coast-downs it must pass in a row at one setting (the iterative method's
   // consecutive passes, the fixed-run method's verification runs), by the mean of the changes predicted to

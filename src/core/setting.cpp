@@ -100,6 +100,65 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
   return a;
 }
 
+NextPassOutlook next_pass_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& set,
+                                  const RoadLoad& basis, const WarmingOutlook& outlook, double risk) {
+  NextPassOutlook o;
+  o.from_s = outlook.now_s;
+  o.to_s = outlook.next_s;
+  o.risk = risk;
+  WarmingOutlook next = outlook;
+  next.aimed = 1;  // the next coast-down alone
+  const RoadLoad loss = basis - set;
+  const Anticipation a = anticipate_warming(loss, next, outlook.now_s, outlook.next_s);
+  if (!a.used) {
+    o.why = "the next coast-down not predicted (" + a.why + ")";
+    return o;
+  }
+  o.change_n = a.change_n;
+  o.ratio = a.ratio;
+  double pass_all = 1.0;
+  std::size_t worst = 0;  // the row most likely to fail
+  for (const auto& row : now.rows) {
+    NextPassRow r;
+    r.speed_kmh = row.speed_kmh;
+    r.deviation_n = basis.force_n(row.speed_kmh) - target.force_n(row.speed_kmh);
+    r.change_n = a.ratio * loss.force_n(row.speed_kmh);
+    r.predicted_n = r.deviation_n + r.change_n;
+    r.u_n = row.u_n;
+    r.limit_n = row.limit_n;
+    if (!std::isfinite(r.predicted_n) || !std::isfinite(r.limit_n) || !std::isfinite(r.u_n) || r.u_n < 0.0) {
+      o.why = "the next coast-down not predicted (a value at " + num(r.speed_kmh) + " km/h is not finite)";
+      o.rows.clear();
+      return o;
+    }
+    // The normal tails beyond ±limit (u = 0: the prediction itself decides).
+    if (r.u_n > 0.0) {
+      const double s = r.u_n * std::sqrt(2.0);
+      r.fail_probability =
+          0.5 * std::erfc((r.limit_n - r.predicted_n) / s) + 0.5 * std::erfc((r.limit_n + r.predicted_n) / s);
+    } else {
+      r.fail_probability = std::abs(r.predicted_n) > r.limit_n ? 1.0 : 0.0;
+    }
+    r.fail_probability = std::clamp(r.fail_probability, 0.0, 1.0);
+    pass_all *= 1.0 - r.fail_probability;
+    if (o.rows.empty() || r.fail_probability > o.rows[worst].fail_probability) worst = o.rows.size();
+    o.rows.push_back(r);
+  }
+  o.predicted = true;
+  o.fail_probability = 1.0 - pass_all;
+  o.likely_to_fail = o.fail_probability > risk;
+  const std::string p = num(o.fail_probability * 100.0, 0) + " %";
+  o.why =
+      "the next coast-down predicted to fail with probability " + p +
+      (o.rows.empty() ? std::string()
+                      : " (most likely at " + num(o.rows[worst].speed_kmh) +
+                            " km/h: " + num(o.rows[worst].predicted_n, 1) + " N against ±" +
+                            num(o.rows[worst].limit_n, 1) + " N, u " + num(o.rows[worst].u_n, 1) + " N)") +
+      ", warming " + num(a.change_n, 1) + " N at " + num(outlook.speed_kmh) + " km/h; " +
+      (o.likely_to_fail ? "above" : "not above") + " the profile's " + num(risk * 100.0, 0) + " %";
+  return o;
+}
+
 FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& loss,
                                     const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh) {
   FullyWarmOutlook o;
@@ -210,6 +269,21 @@ WarmingOutlook aimed(const WarmingOutlook& outlook, const WarmUp& warm_up, int p
 SettingMethodState::SettingMethodState(const Profile& profile, const RoadLoad& target)
     : profile_(profile), target_(target) {}
 
+Decision SettingMethodState::adjusted(const RoadLoad& set, const RoadLoad& simulated,
+                                      const WarmingOutlook* outlook) const {
+  Decision d;
+  d.next_set = adjusted_setting(target_, set, simulated);
+  d.reason = "adjusted A*d = Ad + At − As (B, C likewise)";
+  if (outlook) {
+    const RoadLoad loss = simulated - set;
+    d.anticipation = anticipate_warming(loss, aimed(*outlook, profile_.warm_up, profile_.consecutive_passes),
+                                        outlook->now_s, outlook->next_s);
+    if (d.anticipation.used) d.next_set = target_ - loss.scaled(1.0 + d.anticipation.ratio);
+    d.reason += "; " + d.anticipation.why;
+  }
+  return d;
+}
+
 Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& simulated,
                                           bool within_tolerance, const WarmingOutlook* outlook) {
   ++runs_;
@@ -243,16 +317,8 @@ Decision SettingMethodState::on_coastdown(const RoadLoad& set, const RoadLoad& s
                                : "fixed-run final setting outside tolerance on its verification coast-down";
       return d;
     }
-    d.next_set = adjusted_setting(target_, set, simulated);
-    d.reason = "outside tolerance: adjusted A*d = Ad + At − As (B, C likewise)";
-    if (outlook) {
-      const RoadLoad loss = simulated - set;
-      d.anticipation =
-          anticipate_warming(loss, aimed(*outlook, profile_.warm_up, profile_.consecutive_passes),
-                             outlook->now_s, outlook->next_s);
-      if (d.anticipation.used) d.next_set = target_ - loss.scaled(1.0 + d.anticipation.ratio);
-      d.reason += "; " + d.anticipation.why;
-    }
+    d = adjusted(set, simulated, outlook);
+    d.reason = "outside tolerance: " + d.reason;
     return d;
   }
   // Fixed-run method: run 1 stabilises and sets run 2; runs 2..n at that setting; final from their mean.

@@ -156,6 +156,46 @@ inline constexpr double kFullyWarmTaus = 50.0;
 FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& loss,
                                     const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh);
 
+// A pass the warming is predicted to take outside the limit at the next coast-down
+// (warm_up.predict_next_pass, docs/standards.md §3.19, lab policy, no source). The iterative method needs its
+// passes in a row at one setting; a vehicle still warming reads less loss at each coast-down, so a pass near
+// the limit can be followed by a failure, and the passes start again two coast-downs later. The next
+// coast-down's deviation at each reference speed is predicted as the deviation now, by the curve the
+// adjustment takes (3.17), plus the warming to it by the anticipation's model (3.16: the loss scaled by the
+// share r = ΔF / L(v_warm-up), ΔF the warm-up curve's change from this coast-down's middle to the next
+// one's): predicted = deviation + r·(measured − set). The next coast-down's verdict reads it with its band
+// regression's noise, taken as this one's standard error u at that speed (2.6), normally distributed: it
+// fails there with probability P = Φ((−limit − predicted) / u) + 1 − Φ((limit − predicted) / u), and fails at
+// all with 1 − Π(1 − P) over the speeds (taken as independent). Above `risk` the session adjusts the setting
+// now.
+struct NextPassRow {
+  double speed_kmh = 0.0;
+  double deviation_n = 0.0;  // now: the adjustment's curve − target
+  double change_n = 0.0;     // the warming predicted to the next coast-down: r·loss(v)
+  double predicted_n = 0.0;  // deviation_n + change_n
+  double u_n = 0.0;          // the band regression's standard error at this speed (0: not known)
+  double limit_n = 0.0;      // the acceptance's limit at this speed (the check's)
+  double fail_probability = 0.0;
+};
+struct NextPassOutlook {
+  bool predicted = false;  // false: the warming to the next coast-down is not predicted (why says so)
+  std::string why;         // one line for the log
+  double change_n = 0.0;   // the warming to the next coast-down at the warm-up speed
+  double ratio = 0.0;      // its share of the loss there
+  double from_s = 0.0, to_s = 0.0;  // this coast-down's middle and the next one's, s since motoring began
+  std::vector<NextPassRow> rows;
+  double fail_probability = 0.0;  // that the next coast-down fails at any speed
+  double risk = 0.5;              // the profile's threshold
+  bool likely_to_fail = false;    // predicted and fail_probability > risk
+  bool adjusted = false;          // set by the session: the setting was adjusted now
+  std::string not_adjusted_why;   // set by the session: likely to fail, yet coasted on (why)
+};
+// `now` is the acceptance's check of this coast-down (its rows carry each speed's limit and u), `basis` the
+// curve the adjustment takes the loss from, `outlook` this coast-down's warming outlook (its next_s the next
+// coast-down's middle), `risk` the probability of a failure above which the setting is to be adjusted now.
+NextPassOutlook next_pass_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& set,
+                                  const RoadLoad& basis, const WarmingOutlook& outlook, double risk);
+
 // What the method says after a coast-down.
 struct Decision {
   enum class Kind { run_again, accepted, rejected };
@@ -163,6 +203,7 @@ struct Decision {
   RoadLoad next_set;          // the setting for the next coast-down (run_again), or the final one (accepted)
   std::string reason;         // one line for the log
   Anticipation anticipation;  // the warming the next setting anticipates (used only with an outlook)
+  std::optional<NextPassOutlook> next_pass;  // a pass's prediction of the next coast-down (when made)
 };
 const char* to_string(Decision::Kind k);
 
@@ -175,6 +216,10 @@ class SettingMethodState {
   // final setting (from the mean time of the runs it averages to the verification run's).
   Decision on_coastdown(const RoadLoad& set, const RoadLoad& simulated, bool within_tolerance,
                         const WarmingOutlook* outlook = nullptr);
+  // The iterative method's adjustment of `set` from the measured `simulated` (§8.1.4), anticipating the
+  // warming to the coast-downs it aims at when `outlook` is given: what a failed coast-down gets, and what a
+  // pass predicted to fail next gets (next_pass_outlook) when the session adjusts it.
+  Decision adjusted(const RoadLoad& set, const RoadLoad& simulated, const WarmingOutlook* outlook) const;
   int consecutive_passes() const { return passes_; }
   // A discarded run, a stop or a re-warm breaks "consecutive" (GTR 15 §8.1.3.4.2, docs/standards.md §3.1):
   // the passes so far no longer count. Returns how many were dropped.

@@ -801,6 +801,33 @@ nlohmann::json to_json(const CoastdownRecord& r) {
                    {"next_set", to_json(r.decision.next_set)}};
   if (!r.decision.anticipation.why.empty())
     j["decision"]["anticipation"] = anticipation_json(r.decision.anticipation);
+  if (const auto& np = r.decision.next_pass) {
+    // A pass's prediction of the next coast-down (warm_up.predict_next_pass, docs/standards.md §3.19).
+    nlohmann::json n = {{"predicted", np->predicted},
+                        {"why", np->why},
+                        {"likely_to_fail", np->likely_to_fail},
+                        {"adjusted", np->adjusted}};
+    if (np->predicted) {
+      n["change_n"] = np->change_n;
+      n["ratio"] = np->ratio;
+      n["from_s"] = np->from_s;
+      n["to_s"] = np->to_s;
+      n["fail_probability"] = np->fail_probability;
+      n["risk"] = np->risk;
+      nlohmann::json rows = nlohmann::json::array();
+      for (const auto& row : np->rows)
+        rows.push_back({{"speed_kmh", row.speed_kmh},
+                        {"deviation_n", row.deviation_n},
+                        {"change_n", row.change_n},
+                        {"predicted_n", row.predicted_n},
+                        {"u_n", row.u_n},
+                        {"limit_n", row.limit_n},
+                        {"fail_probability", row.fail_probability}});
+      n["rows"] = std::move(rows);
+    }
+    if (!np->not_adjusted_why.empty()) n["not_adjusted_why"] = np->not_adjusted_why;
+    j["decision"]["next_pass"] = std::move(n);
+  }
   return j;
 }
 

@@ -910,12 +910,42 @@ std::optional<Session::Stop> Session::do_run(int run) {
     // profile's estimate (method.adjust_from, docs/standards.md §3.17).
     rec.decision = method_->on_coastdown(set_, rec.evaluation.adjust_basis, rec.evaluation.check.pass,
                                          anticipate ? &outlook : nullptr);
+    // A pass that is not yet the last of the consecutive passes: is the warming predicted to take the next
+    // coast-down outside the limit (warm_up.predict_next_pass, docs/standards.md §3.19)? Then the setting is
+    // adjusted now, as after a failure, and the passes start again: two more coast-downs instead of a likely
+    // failure and two more after it. Only with room for the passes and a setting the safe envelope takes.
+    if (anticipate && p.warm_up.predict_next_pass && p.method == core::SettingMethod::iterative &&
+        !rec.verifying && rec.evaluation.check.pass && rec.decision.kind == core::Decision::Kind::run_again) {
+      core::NextPassOutlook np =
+          core::next_pass_outlook(rec.evaluation.check, in_.vehicle.target, set_, rec.evaluation.adjust_basis,
+                                  outlook, p.warm_up.next_pass_risk);
+      if (np.likely_to_fail) {
+        core::Decision adj = method_->adjusted(set_, rec.evaluation.adjust_basis, &outlook);
+        if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
+          np.not_adjusted_why = "too few coast-downs are left for an adjusted setting to pass " +
+                                std::to_string(p.consecutive_passes) + " in a row";
+        else if (const core::SetCheck chk =
+                     core::check_set(adj.next_set, in_.vehicle.target, last_written_, opt_.envelope);
+                 !chk.ok)
+          np.not_adjusted_why = "the adjusted setting leaves the safe envelope (" + chk.why + ")";
+        if (np.not_adjusted_why.empty()) {
+          np.adjusted = true;
+          reset_passes(run, "within tolerance, but " + np.why + ": adjusted now");
+          adj.reason = "within tolerance, but " + np.why + ": " + adj.reason;
+          rec.decision = std::move(adj);
+        } else {
+          rec.decision.reason += "; " + np.why + ", coasting on: " + np.not_adjusted_why;
+        }
+      }
+      rec.decision.next_pass = std::move(np);
+    }
     // Said wherever the basis moved a setting: an iterative adjustment, or a fixed-run run (its loss sets run
     // 2 or enters the final setting's average).
     const bool fixed_run_loss = p.method == core::SettingMethod::fixed_run && !rec.verifying;
     if (!rec.evaluation.adjust_why.empty() &&
         (fixed_run_loss ||
-         (rec.decision.kind == core::Decision::Kind::run_again && !rec.evaluation.check.pass)))
+         (rec.decision.kind == core::Decision::Kind::run_again &&
+          (!rec.evaluation.check.pass || (rec.decision.next_pass && rec.decision.next_pass->adjusted)))))
       rec.decision.reason += "; loss from the " + rec.evaluation.adjust_why;
     if (rec.evaluation.confirmation_refused)
       rec.decision.reason += "; within tolerance by the band regression but " + rec.evaluation.confirmation;

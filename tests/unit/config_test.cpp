@@ -237,6 +237,22 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
   const std::string warm = refusal(
       [&] { config::parse_profile(profile_text("", "", "check_fully_warm = \"yes\"\n"), "bad.toml"); });
   EXPECT_NE(warm.find("bad.toml: error: warm_up.check_fully_warm (line 12)"), std::string::npos) << warm;
+  // warm_up.predict_next_pass and next_pass_risk (docs/standards.md §3.19): set in the shipped iterative
+  // profiles (risk 0.3), off (risk 0.5) when absent; a risk outside 0.01 to 0.99 is refused naming the key,
+  // its line and the range.
+  EXPECT_TRUE(wltp.warm_up.predict_next_pass);
+  EXPECT_TRUE(us.warm_up.predict_next_pass);
+  EXPECT_DOUBLE_EQ(wltp.warm_up.next_pass_risk, 0.3);
+  EXPECT_DOUBLE_EQ(us.warm_up.next_pass_risk, 0.3);
+  EXPECT_FALSE(plain.warm_up.predict_next_pass);
+  EXPECT_DOUBLE_EQ(plain.warm_up.next_pass_risk, 0.5);
+  const std::string risk =
+      refusal([&] { config::parse_profile(profile_text("", "", "next_pass_risk = 1.5\n"), "bad.toml"); });
+  EXPECT_NE(risk.find("bad.toml: error: warm_up.next_pass_risk (line 12)"), std::string::npos) << risk;
+  EXPECT_NE(risk.find("0.99"), std::string::npos) << risk;
+  const std::string predict =
+      refusal([&] { config::parse_profile(profile_text("", "", "predict_next_pass = 1\n"), "bad.toml"); });
+  EXPECT_NE(predict.find("warm_up.predict_next_pass (line 12)"), std::string::npos) << predict;
   // A fixed-run profile with drift_rule "require" and no verification run loads, with one warning on the key
   // and its line (docs/standards.md §3.12): the held coast-downs can only confirm or reject the final
   // setting.

@@ -632,3 +632,91 @@ TEST(FullyWarm, TheBoundsHoldForEveryWarmingPolynomialWithTermsOfOneSign) {
   EXPECT_NEAR(o.rows[2].low_n, o.change_n * 2.640625, 1e-12);
   EXPECT_NEAR(o.rows[2].high_n, o.change_n, 1e-12);
 }
+
+namespace {
+// A check of two reference speeds, 20 and 130 km/h, each with the ±10 N limit (GTR 15 §8.1.3.4.2) and the
+// band regression's standard error u (2.6).
+ToleranceCheck two_speed_check(double u_n) {
+  ToleranceCheck c;
+  c.pass = true;
+  for (double v : {20.0, 130.0}) c.rows.push_back({v, 0.0, 0.0, 0.0, u_n, 10.0, true});
+  return c;
+}
+WarmingOutlook fixed_change_outlook(std::optional<double> change_n) {
+  WarmingOutlook o;
+  o.change_n = [change_n](double, double) { return change_n; };
+  o.speed_kmh = 80.0;
+  o.speeds_kmh = {20.0, 130.0};
+  o.now_s = 1300.0;
+  o.next_s = 1520.0;
+  return o;
+}
+}  // namespace
+
+TEST(NextPass, PredictsEachSpeedAndTheChanceTheNextCoastDownFails) {
+  // docs/standards.md §3.19 (lab policy). By hand: target (100, 0.5, 0.03), set (50, 0.2, 0.028), the
+  // adjustment's curve (94, 0.5, 0.03): the deviation now is −6 N at every speed; the loss (44, 0.3, 0.002)
+  // is 80.8 N at 80 km/h, 50.8 N at 20 and 116.8 N at 130. A change of −4.04 N at 80 km/h is a share of
+  // −0.05, so the warming to the next coast-down is −2.54 N at 20 and −5.84 N at 130: predicted −8.54 and
+  // −11.84 N. With u = 2 N the next verdict fails at 20 km/h with Φ((−10 + 8.54)/2) = Φ(−0.73) = 0.23270 and
+  // at 130 with Φ((−10 + 11.84)/2) = Φ(0.92) = 0.82121 (the other tails below 1e-20; standard normal table,
+  // textbook), and at either with 1 − (1 − 0.23270)(1 − 0.82121) = 0.86281.
+  const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028}, basis{94, 0.5, 0.03};
+  const NextPassOutlook o =
+      next_pass_outlook(two_speed_check(2.0), target, set, basis, fixed_change_outlook(-4.04), 0.5);
+  ASSERT_TRUE(o.predicted) << o.why;
+  EXPECT_NEAR(o.change_n, -4.04, 1e-12);
+  EXPECT_NEAR(o.ratio, -0.05, 1e-12);
+  EXPECT_DOUBLE_EQ(o.from_s, 1300.0);
+  EXPECT_DOUBLE_EQ(o.to_s, 1520.0);
+  ASSERT_EQ(o.rows.size(), 2u);
+  EXPECT_NEAR(o.rows[0].deviation_n, -6.0, 1e-9);
+  EXPECT_NEAR(o.rows[0].change_n, -2.54, 1e-9);
+  EXPECT_NEAR(o.rows[0].predicted_n, -8.54, 1e-9);
+  EXPECT_NEAR(o.rows[1].change_n, -5.84, 1e-9);
+  EXPECT_NEAR(o.rows[1].predicted_n, -11.84, 1e-9);
+  EXPECT_NEAR(o.rows[0].fail_probability, 0.23270, 5e-5);
+  EXPECT_NEAR(o.rows[1].fail_probability, 0.82121, 5e-5);
+  EXPECT_NEAR(o.fail_probability, 0.86281, 5e-5);
+  EXPECT_DOUBLE_EQ(o.rows[1].u_n, 2.0);
+  EXPECT_DOUBLE_EQ(o.rows[1].limit_n, 10.0);
+  EXPECT_TRUE(o.likely_to_fail);
+  EXPECT_NE(o.why.find("most likely at 130 km/h: -11.8 N against ±10.0 N"), std::string::npos) << o.why;
+  // The profile's risk decides: above 0.86 it coasts on.
+  EXPECT_FALSE(next_pass_outlook(two_speed_check(2.0), target, set, basis, fixed_change_outlook(-4.04), 0.9)
+                   .likely_to_fail);
+  // No warming predicted (a change of 0): the deviation now, −6 N, 2 u inside the limit at both speeds:
+  // Φ(−2) = 0.02275 each, 1 − (1 − 0.02275)² = 0.04498 at either (table).
+  const NextPassOutlook still =
+      next_pass_outlook(two_speed_check(2.0), target, set, basis, fixed_change_outlook(0.0), 0.3);
+  ASSERT_TRUE(still.predicted) << still.why;
+  EXPECT_NEAR(still.fail_probability, 0.04498, 5e-5);
+  EXPECT_FALSE(still.likely_to_fail);
+  // u not known (0): the prediction against the limit decides, 0 or 1.
+  const NextPassOutlook sharp =
+      next_pass_outlook(two_speed_check(0.0), target, set, basis, fixed_change_outlook(-4.04), 0.5);
+  EXPECT_DOUBLE_EQ(sharp.rows[0].fail_probability, 0.0);
+  EXPECT_DOUBLE_EQ(sharp.rows[1].fail_probability, 1.0);
+  EXPECT_TRUE(sharp.likely_to_fail);
+}
+
+TEST(NextPass, NothingIsPredictedWithoutAWarmingForecastOrFromValuesThatAreNotFinite) {
+  // docs/standards.md §3.19: no prediction, no adjustment (the session coasts on, as the standard does).
+  const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028}, basis{94, 0.5, 0.03};
+  const NextPassOutlook none =
+      next_pass_outlook(two_speed_check(2.0), target, set, basis, fixed_change_outlook(std::nullopt), 0.5);
+  EXPECT_FALSE(none.predicted);
+  EXPECT_FALSE(none.likely_to_fail);
+  EXPECT_NE(none.why.find("not predicted"), std::string::npos) << none.why;
+  // A share beyond the anticipation's bound (a quarter of the loss, 3.16) is not believed either.
+  EXPECT_FALSE(next_pass_outlook(two_speed_check(2.0), target, set, basis, fixed_change_outlook(-30.0), 0.5)
+                   .predicted);
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  ToleranceCheck bad = two_speed_check(2.0);
+  bad.rows[1].u_n = nan;
+  const NextPassOutlook o = next_pass_outlook(bad, target, set, basis, fixed_change_outlook(-4.04), 0.5);
+  EXPECT_FALSE(o.predicted);
+  EXPECT_FALSE(o.likely_to_fail);
+  EXPECT_TRUE(o.rows.empty());
+  EXPECT_NE(o.why.find("130 km/h is not finite"), std::string::npos) << o.why;
+}
