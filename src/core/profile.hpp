@@ -69,11 +69,12 @@ struct WarmUp {
   bool anticipate_drift = false;
   // With anticipate_drift and the iterative method: after a pass that is not yet the last of the consecutive
   // passes, predict the next coast-down's deviation with the warming to it (setting.hpp next_pass_outlook,
-  // docs/standards.md §3.19, lab policy); predicted outside the acceptance's limit, adjust the setting now
-  // (the passes start again) instead of coasting on to a likely failure.
+  // docs/standards.md §3.19, lab policy) and its chance to fail; above next_pass_risk, and when the adjusted
+  // setting is predicted likelier to pass, adjust the setting now (the passes start again) instead of coasting
+  // on to a likely failure.
   bool predict_next_pass = false;
-  // The probability of a failure at the next coast-down above which the setting is adjusted now (0 to 1;
-  // 0.5: when a failure is more likely than not).
+  // The model's chance of a failure at the next coast-down above which the setting is adjusted now (0.01 to
+  // 0.99; 0.5: when a failure is more likely than not by the model).
   double next_pass_risk = 0.5;
   // Which coast-downs an anticipated setting aims at (docs/standards.md §3.16, lab policy): `next`, the next
   // coast-down only; `passes`, the coast-downs it must pass in a row at one setting (the iterative method's

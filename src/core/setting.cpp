@@ -110,6 +110,7 @@ NextPassOutlook next_pass_outlook(const ToleranceCheck& now, const RoadLoad& tar
   next.aimed = 1;  // the next coast-down alone
   const RoadLoad loss = basis - set;
   const Anticipation a = anticipate_warming(loss, next, outlook.now_s, outlook.next_s);
+  o.warming = a;
   if (!a.used) {
     o.why = "the next coast-down not predicted (" + a.why + ")";
     return o;
@@ -157,6 +158,18 @@ NextPassOutlook next_pass_outlook(const ToleranceCheck& now, const RoadLoad& tar
       ", warming " + num(a.change_n, 1) + " N at " + num(outlook.speed_kmh) + " km/h; " +
       (o.likely_to_fail ? "above" : "not above") + " the profile's " + num(risk * 100.0, 0) + " %";
   return o;
+}
+
+void judge_adjusted(NextPassOutlook& o, const ToleranceCheck& now, const RoadLoad& target,
+                    const RoadLoad& set, const RoadLoad& basis, const RoadLoad& adjusted,
+                    const WarmingOutlook& outlook) {
+  if (!o.predicted) return;
+  // The adjusted setting as this coast-down would have read it: the same loss on top of it.
+  const NextPassOutlook a =
+      next_pass_outlook(now, target, adjusted, adjusted + (basis - set), outlook, o.risk);
+  if (!a.predicted) return;
+  o.adjusted_fail_probability = a.fail_probability;
+  o.adjusting_helps = a.fail_probability < o.fail_probability;
 }
 
 FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& loss,

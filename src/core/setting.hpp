@@ -166,14 +166,18 @@ FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& t
 // one's): predicted = deviation + r·(measured − set). The next coast-down's verdict reads it with its band
 // regression's noise, taken as this one's standard error u at that speed (2.6), normally distributed: it
 // fails there with probability P = Φ((−limit − predicted) / u) + 1 − Φ((limit − predicted) / u), and fails at
-// all with 1 − Π(1 − P) over the speeds (taken as independent). Above `risk` the session adjusts the setting
-// now.
+// all with 1 − Π(1 − P) over the speeds (taken as independent: they come from one fit, so this overstates
+// the chance somewhat). u is this coast-down's own within-coast error; the error of the deviation now and of
+// the warming model are not in it, so P is the model's chance, not a calibrated one: the bench measures what
+// a risk does (docs/performance.md). Above `risk`, and only when the adjusted setting is predicted likelier
+// to pass (judge_adjusted: noise alone, which an adjustment cannot help, never moves the setting), the
+// session adjusts the setting now.
 struct NextPassRow {
   double speed_kmh = 0.0;
   double deviation_n = 0.0;  // now: the adjustment's curve − target
   double change_n = 0.0;     // the warming predicted to the next coast-down: r·loss(v)
   double predicted_n = 0.0;  // deviation_n + change_n
-  double u_n = 0.0;          // the band regression's standard error at this speed (0: not known)
+  double u_n = 0.0;          // the band regression's standard error at this speed (0: the prediction decides)
   double limit_n = 0.0;      // the acceptance's limit at this speed (the check's)
   double fail_probability = 0.0;
 };
@@ -187,14 +191,25 @@ struct NextPassOutlook {
   double fail_probability = 0.0;  // that the next coast-down fails at any speed
   double risk = 0.5;              // the profile's threshold
   bool likely_to_fail = false;    // predicted and fail_probability > risk
-  bool adjusted = false;          // set by the session: the setting was adjusted now
-  std::string not_adjusted_why;   // set by the session: likely to fail, yet coasted on (why)
+  Anticipation warming;           // the warming to the next coast-down alone, as anticipate_warming gives it
+  // judge_adjusted: the same chance for the adjusted setting at the next coast-down, and whether it is lower.
+  std::optional<double> adjusted_fail_probability;
+  bool adjusting_helps = false;
+  bool adjusted = false;         // set by the session: the setting was adjusted now
+  std::string not_adjusted_why;  // set by the session: likely to fail, yet coasted on (why)
 };
 // `now` is the acceptance's check of this coast-down (its rows carry each speed's limit and u), `basis` the
 // curve the adjustment takes the loss from, `outlook` this coast-down's warming outlook (its next_s the next
 // coast-down's middle), `risk` the probability of a failure above which the setting is to be adjusted now.
 NextPassOutlook next_pass_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& set,
                                   const RoadLoad& basis, const WarmingOutlook& outlook, double risk);
+// The adjusted setting `adjusted` judged by the same model: at the next coast-down it would read
+// adjusted + loss·(1 + r) (the loss basis − set of this coast-down); its chance to fail there is compared
+// with the setting's own (o.fail_probability). Sets o.adjusted_fail_probability and o.adjusting_helps
+// (strictly lower); nothing when o was not predicted.
+void judge_adjusted(NextPassOutlook& o, const ToleranceCheck& now, const RoadLoad& target,
+                    const RoadLoad& set, const RoadLoad& basis, const RoadLoad& adjusted,
+                    const WarmingOutlook& outlook);
 
 // What the method says after a coast-down.
 struct Decision {

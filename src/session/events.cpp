@@ -814,6 +814,8 @@ nlohmann::json to_json(const CoastdownRecord& r) {
       n["to_s"] = np->to_s;
       n["fail_probability"] = np->fail_probability;
       n["risk"] = np->risk;
+      n["anticipation"] = anticipation_json(np->warming);
+      if (np->adjusted_fail_probability) n["adjusted_fail_probability"] = *np->adjusted_fail_probability;
       nlohmann::json rows = nlohmann::json::array();
       for (const auto& row : np->rows)
         rows.push_back({{"speed_kmh", row.speed_kmh},

@@ -921,7 +921,14 @@ std::optional<Session::Stop> Session::do_run(int run) {
                                   outlook, p.warm_up.next_pass_risk);
       if (np.likely_to_fail) {
         core::Decision adj = method_->adjusted(set_, rec.evaluation.adjust_basis, &outlook);
-        if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
+        core::judge_adjusted(np, rec.evaluation.check, in_.vehicle.target, set_, rec.evaluation.adjust_basis,
+                             adj.next_set, outlook);
+        if (!np.adjusting_helps)
+          np.not_adjusted_why = "the adjusted setting is not predicted likelier to pass" +
+                                (np.adjusted_fail_probability
+                                     ? " (" + num(*np.adjusted_fail_probability * 100.0, 0) + " % to fail)"
+                                     : std::string(" (not predicted)"));
+        else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
           np.not_adjusted_why = "too few coast-downs are left for an adjusted setting to pass " +
                                 std::to_string(p.consecutive_passes) + " in a row";
         else if (const core::SetCheck chk =

@@ -1865,6 +1865,15 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   EXPECT_EQ(first.decision.kind, core::Decision::Kind::run_again);
   EXPECT_FALSE(first.decision.next_set == first.set) << "adjusted at once";
   EXPECT_TRUE(first.decision.anticipation.used) << first.decision.anticipation.why;
+  // The adjusted setting is the anticipating adjustment's (docs/standards.md §3.16: target − loss·(1 + r), the
+  // loss from the adjustment's curve), predicted likelier to pass than the setting coasted on.
+  const core::RoadLoad first_loss = first.evaluation.adjust_basis - first.set;
+  for (double v : {20.0, 80.0, 130.0})
+    EXPECT_NEAR(first.decision.next_set.force_n(v),
+                (target - first_loss.scaled(1.0 + first.decision.anticipation.ratio)).force_n(v), 1e-9);
+  ASSERT_TRUE(np.adjusted_fail_probability.has_value());
+  EXPECT_LT(*np.adjusted_fail_probability, np.fail_probability);
+  EXPECT_TRUE(np.adjusting_helps);
   EXPECT_NE(first.decision.reason.find("within tolerance, but the next coast-down predicted to fail"),
             std::string::npos)
       << first.decision.reason;

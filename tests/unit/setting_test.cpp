@@ -720,3 +720,40 @@ TEST(NextPass, NothingIsPredictedWithoutAWarmingForecastOrFromValuesThatAreNotFi
   EXPECT_TRUE(o.rows.empty());
   EXPECT_NE(o.why.find("130 km/h is not finite"), std::string::npos) << o.why;
 }
+
+TEST(NextPass, AnAdjustmentIsJudgedByTheSameModelAndNoiseAloneNeverMovesTheSetting) {
+  // docs/standards.md §3.19: the setting is adjusted only when the adjusted setting is predicted likelier to
+  // pass. By hand, as in PredictsEachSpeed... above: the standard's adjustment target − loss (GTR 15 §8.1.4)
+  // would read, at the next coast-down, the warming alone, −2.54 N at 20 km/h and −5.84 N at 130: it fails
+  // with Φ((−10 + 2.54)/2) = Φ(−3.73) = 0.000096 and Φ((−10 + 5.84)/2) = Φ(−2.08) = 0.018763, at either
+  // 0.018857 (standard normal table), against 0.86281 coasting on: adjusting helps.
+  const RoadLoad target{100, 0.5, 0.03}, set{50, 0.2, 0.028}, basis{94, 0.5, 0.03};
+  const RoadLoad loss = basis - set;
+  NextPassOutlook o =
+      next_pass_outlook(two_speed_check(2.0), target, set, basis, fixed_change_outlook(-4.04), 0.5);
+  judge_adjusted(o, two_speed_check(2.0), target, set, basis, target - loss, fixed_change_outlook(-4.04));
+  ASSERT_TRUE(o.adjusted_fail_probability.has_value());
+  EXPECT_NEAR(*o.adjusted_fail_probability, 0.018857, 5e-5);
+  EXPECT_TRUE(o.adjusting_helps);
+  // Noise alone: a setting on the target (the adjustment's curve = target), no warming, u = 8 N at both
+  // speeds: each fails with 2Φ(−10/8) = 2 × 0.10565 = 0.21130, either with 1 − (1 − 0.21130)² = 0.37796
+  // (table): above a risk of 0.3. The standard's adjustment is the same setting: no likelier to pass, so the
+  // setting is not moved (an adjustment cannot help noise).
+  const RoadLoad on_target_set{60, 0.3, 0.028};
+  NextPassOutlook noisy =
+      next_pass_outlook(two_speed_check(8.0), target, on_target_set, target, fixed_change_outlook(0.0), 0.3);
+  ASSERT_TRUE(noisy.predicted) << noisy.why;
+  EXPECT_NEAR(noisy.fail_probability, 0.37796, 5e-5);
+  EXPECT_TRUE(noisy.likely_to_fail);
+  judge_adjusted(noisy, two_speed_check(8.0), target, on_target_set, target,
+                 target - (target - on_target_set), fixed_change_outlook(0.0));
+  ASSERT_TRUE(noisy.adjusted_fail_probability.has_value());
+  EXPECT_NEAR(*noisy.adjusted_fail_probability, 0.37796, 5e-5);
+  EXPECT_FALSE(noisy.adjusting_helps);
+  // Not predicted: nothing judged.
+  NextPassOutlook none =
+      next_pass_outlook(two_speed_check(2.0), target, set, basis, fixed_change_outlook(std::nullopt), 0.5);
+  judge_adjusted(none, two_speed_check(2.0), target, set, basis, target - loss, fixed_change_outlook(0.0));
+  EXPECT_FALSE(none.adjusted_fail_probability.has_value());
+  EXPECT_FALSE(none.adjusting_helps);
+}
