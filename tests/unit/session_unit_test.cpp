@@ -1813,7 +1813,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     std::vector<session::ev::PassesReset> resets;
     session::Summary sum;
   };
-  auto run = [&](std::optional<core::RoadLoad> initial, bool predict) {
+  auto run = [&](std::optional<core::RoadLoad> initial, bool predict, int max_coastdowns = 10) {
     Seen out;
     FakeController c(truth);
     Recorder record(true);
@@ -1827,6 +1827,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     in.profile.warm_up.next_pass_risk = 0.5;
     in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;  // as shipped
     in.vehicle.initial_set = initial;
+    in.profile.max_coastdowns = max_coastdowns;
     session::Session s(in, options(), c, {&record, &hook});
     out.sum = s.run();
     return out;
@@ -1865,8 +1866,8 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   EXPECT_EQ(first.decision.kind, core::Decision::Kind::run_again);
   EXPECT_FALSE(first.decision.next_set == first.set) << "adjusted at once";
   EXPECT_TRUE(first.decision.anticipation.used) << first.decision.anticipation.why;
-  // The adjusted setting is the anticipating adjustment's (docs/standards.md §3.16: target − loss·(1 + r), the
-  // loss from the adjustment's curve), predicted likelier to pass than the setting coasted on.
+  // The adjusted setting is the anticipating adjustment's (docs/standards.md §3.16: target − loss·(1 + r),
+  // the loss from the adjustment's curve), predicted likelier to pass than the setting coasted on.
   const core::RoadLoad first_loss = first.evaluation.adjust_basis - first.set;
   for (double v : {20.0, 80.0, 130.0})
     EXPECT_NEAR(first.decision.next_set.force_n(v),
@@ -1886,4 +1887,24 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   EXPECT_EQ(b.sum.outcome, session::Outcome::accepted) << b.sum.stop_reason;
   EXPECT_EQ(b.sum.coastdowns, 3);
   EXPECT_GT(c.sum.coastdowns, b.sum.coastdowns);
+  // With three in all, exactly enough are left for the adjusted setting's two passes: adjusted.
+  const Seen three = run(low, true, 3);
+  ASSERT_FALSE(three.runs.empty()) << three.sum.stop_reason;
+  ASSERT_TRUE(three.runs[0].decision.next_pass.has_value());
+  EXPECT_TRUE(three.runs[0].decision.next_pass->adjusted)
+      << three.runs[0].decision.next_pass->not_adjusted_why;
+  // With two coast-downs allowed in all, an adjusted setting could not pass twice: the session coasts on at
+  // the setting (its only chance), and the record says why.
+  const Seen last = run(low, true, 2);
+  ASSERT_FALSE(last.runs.empty()) << last.sum.stop_reason;
+  ASSERT_TRUE(last.runs[0].decision.next_pass.has_value());
+  const core::NextPassOutlook& kept = *last.runs[0].decision.next_pass;
+  EXPECT_TRUE(kept.likely_to_fail);
+  EXPECT_FALSE(kept.adjusted);
+  EXPECT_NE(kept.not_adjusted_why.find("too few coast-downs are left"), std::string::npos)
+      << kept.not_adjusted_why;
+  EXPECT_TRUE(last.runs[0].decision.next_set == last.runs[0].set);
+  EXPECT_TRUE(last.resets.empty());
+  EXPECT_NE(last.runs[0].decision.reason.find("coasting on: too few coast-downs are left"), std::string::npos)
+      << last.runs[0].decision.reason;
 }
