@@ -103,8 +103,6 @@ Anticipation anticipate_warming(const RoadLoad& loss, const WarmingOutlook& outl
 NextPassOutlook next_pass_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& set,
                                   const RoadLoad& basis, const WarmingOutlook& outlook, double risk) {
   NextPassOutlook o;
-  o.from_s = outlook.now_s;
-  o.to_s = outlook.next_s;
   o.risk = risk;
   WarmingOutlook next = outlook;
   next.aimed = 1;  // the next coast-down alone
@@ -115,8 +113,6 @@ NextPassOutlook next_pass_outlook(const ToleranceCheck& now, const RoadLoad& tar
     o.why = "the next coast-down not predicted (" + a.why + ")";
     return o;
   }
-  o.change_n = a.change_n;
-  o.ratio = a.ratio;
   double pass_all = 1.0;
   std::size_t worst = 0;  // the row most likely to fail
   for (const auto& row : now.rows) {

@@ -184,14 +184,13 @@ struct NextPassRow {
 struct NextPassOutlook {
   bool predicted = false;  // false: the warming to the next coast-down is not predicted (why says so)
   std::string why;         // one line for the log
-  double change_n = 0.0;   // the warming to the next coast-down at the warm-up speed
-  double ratio = 0.0;      // its share of the loss there
-  double from_s = 0.0, to_s = 0.0;  // this coast-down's middle and the next one's, s since motoring began
+  // The warming to the next coast-down alone, as anticipate_warming gives it: its change_n at the warm-up
+  // speed, ratio (the share of the loss), from_s and to_s (this coast-down's middle and the next one's).
+  Anticipation warming;
   std::vector<NextPassRow> rows;
   double fail_probability = 0.0;  // that the next coast-down fails at any speed
   double risk = 0.5;              // the profile's threshold
   bool likely_to_fail = false;    // predicted and fail_probability > risk
-  Anticipation warming;           // the warming to the next coast-down alone, as anticipate_warming gives it
   // judge_adjusted: the same chance for the adjusted setting at the next coast-down, and whether it is lower.
   std::optional<double> adjusted_fail_probability;
   bool adjusting_helps = false;

@@ -808,10 +808,10 @@ nlohmann::json to_json(const CoastdownRecord& r) {
                         {"likely_to_fail", np->likely_to_fail},
                         {"adjusted", np->adjusted}};
     if (np->predicted) {
-      n["change_n"] = np->change_n;
-      n["ratio"] = np->ratio;
-      n["from_s"] = np->from_s;
-      n["to_s"] = np->to_s;
+      n["change_n"] = np->warming.change_n;
+      n["ratio"] = np->warming.ratio;
+      n["from_s"] = np->warming.from_s;
+      n["to_s"] = np->warming.to_s;
       n["fail_probability"] = np->fail_probability;
       n["risk"] = np->risk;
       n["anticipation"] = anticipation_json(np->warming);

@@ -1852,15 +1852,15 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   ASSERT_TRUE(first.decision.next_pass.has_value());
   const core::NextPassOutlook& np = *first.decision.next_pass;
   ASSERT_TRUE(np.predicted) << np.why;
-  EXPECT_LT(np.change_n, -2.0) << "the warming to the next coast-down, at 80 km/h";
+  EXPECT_LT(np.warming.change_n, -2.0) << "the warming to the next coast-down, at 80 km/h";
   EXPECT_GT(np.fail_probability, 0.5) << np.why;
   EXPECT_TRUE(np.likely_to_fail);
   EXPECT_TRUE(np.adjusted) << np.not_adjusted_why;
   // Each row: the deviation now plus the warming's share of the loss there, against the check's limit.
   for (const auto& r : np.rows) {
     EXPECT_NEAR(r.predicted_n, r.deviation_n + r.change_n, 1e-9);
-    EXPECT_NEAR(r.change_n, np.ratio * (first.evaluation.adjust_basis - first.set).force_n(r.speed_kmh),
-                1e-9);
+    EXPECT_NEAR(r.change_n,
+                np.warming.ratio * (first.evaluation.adjust_basis - first.set).force_n(r.speed_kmh), 1e-9);
     EXPECT_DOUBLE_EQ(r.limit_n, 10.0);
   }
   EXPECT_EQ(first.decision.kind, core::Decision::Kind::run_again);

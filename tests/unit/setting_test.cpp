@@ -665,10 +665,10 @@ TEST(NextPass, PredictsEachSpeedAndTheChanceTheNextCoastDownFails) {
   const NextPassOutlook o =
       next_pass_outlook(two_speed_check(2.0), target, set, basis, fixed_change_outlook(-4.04), 0.5);
   ASSERT_TRUE(o.predicted) << o.why;
-  EXPECT_NEAR(o.change_n, -4.04, 1e-12);
-  EXPECT_NEAR(o.ratio, -0.05, 1e-12);
-  EXPECT_DOUBLE_EQ(o.from_s, 1300.0);
-  EXPECT_DOUBLE_EQ(o.to_s, 1520.0);
+  EXPECT_NEAR(o.warming.change_n, -4.04, 1e-12);
+  EXPECT_NEAR(o.warming.ratio, -0.05, 1e-12);
+  EXPECT_DOUBLE_EQ(o.warming.from_s, 1300.0);
+  EXPECT_DOUBLE_EQ(o.warming.to_s, 1520.0);
   ASSERT_EQ(o.rows.size(), 2u);
   EXPECT_NEAR(o.rows[0].deviation_n, -6.0, 1e-9);
   EXPECT_NEAR(o.rows[0].change_n, -2.54, 1e-9);
