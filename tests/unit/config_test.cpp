@@ -238,8 +238,8 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
       [&] { config::parse_profile(profile_text("", "", "check_fully_warm = \"yes\"\n"), "bad.toml"); });
   EXPECT_NE(warm.find("bad.toml: error: warm_up.check_fully_warm (line 12)"), std::string::npos) << warm;
   // warm_up.predict_next_pass and next_pass_risk (docs/standards.md §3.19): set in the shipped iterative
-  // profiles (risk 0.3), off (risk 0.5) when absent; a risk outside 0.01 to 0.99 is refused naming the key,
-  // its line and the range.
+  // profiles (risk 0.3: lab policy, no source; docs/performance.md measures it), off (risk 0.5) when absent;
+  // a risk outside 0.01 to 0.99 is refused naming the key, its line and the range.
   EXPECT_TRUE(wltp.warm_up.predict_next_pass);
   EXPECT_TRUE(us.warm_up.predict_next_pass);
   EXPECT_DOUBLE_EQ(wltp.warm_up.next_pass_risk, 0.3);
