@@ -130,6 +130,18 @@ Problems validate(const Profile& p) {
                       "§3.12, §3.16); a vehicle still warming may end the session rejected. At least one "
                       "verification run with warm_up.anticipate_drift = true reduces that risk, it does not "
                       "remove it"});
+  // docs/standards.md §3.19: the next-pass rule predicts with the anticipation's warming curve and acts on
+  // the iterative method's passes only; asked for where it cannot act, the profile says so instead of
+  // letting the operator believe it is on.
+  if (p.warm_up.predict_next_pass &&
+      (p.method == SettingMethod::fixed_run || !p.warm_up.anticipate_drift))
+    ps.push_back({Problem::Severity::warning, "warm_up.predict_next_pass",
+                  std::string("is true, but ") +
+                      (p.method == SettingMethod::fixed_run
+                           ? "the method is fixed-run, which has no passes in a row to give up"
+                           : "warm_up.anticipate_drift is false, so there is no warming forecast to judge the "
+                             "next pass by") +
+                      ": the rule does nothing with this profile (docs/standards.md §3.19)"});
   return ps;
 }
 

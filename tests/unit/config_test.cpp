@@ -253,6 +253,31 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
   const std::string predict =
       refusal([&] { config::parse_profile(profile_text("", "", "predict_next_pass = 1\n"), "bad.toml"); });
   EXPECT_NE(predict.find("warm_up.predict_next_pass (line 12)"), std::string::npos) << predict;
+  // Asked for where it cannot act (no anticipation; the fixed-run method), predict_next_pass loads with one
+  // warning on its key and line saying the rule does nothing (docs/standards.md §3.19); with the
+  // anticipation on and the iterative method, no warning.
+  const std::string head =
+      "name = \"p\"\n[bands]\nreference_speeds_kmh = [20, 30, 40]\nhalf_width_kmh = 5.0\n[acceptance]\n"
+      "tolerance_n = 10.0\n[run]\nrun_up_margin_kmh = 10.0\n[method]\n";
+  const auto next_pass_warnings = [&](const std::string& kind, const std::string& anticipate) {
+    core::Problems w;
+    (void)config::parse_profile(head + "kind = \"" + kind + "\"\n[warm_up]\npredict_next_pass = true\n" +
+                                    "anticipate_drift = " + anticipate + "\n",
+                                "np.toml", &w);
+    return config::format_problems("np.toml", w);
+  };
+  const std::string no_anticipation = next_pass_warnings("iterative", "false");
+  EXPECT_NE(no_anticipation.find("np.toml: warning: warm_up.predict_next_pass (line 12): is true, but "
+                                 "warm_up.anticipate_drift is false"),
+            std::string::npos)
+      << no_anticipation;
+  EXPECT_NE(no_anticipation.find("the rule does nothing"), std::string::npos) << no_anticipation;
+  const std::string fixed_run = next_pass_warnings("fixed-run", "true");
+  EXPECT_NE(fixed_run.find("np.toml: warning: warm_up.predict_next_pass (line 12): is true, but the method is "
+                           "fixed-run"),
+            std::string::npos)
+      << fixed_run;
+  EXPECT_EQ(next_pass_warnings("iterative", "true"), "");
   // A fixed-run profile with drift_rule "require" and no verification run loads, with one warning on the key
   // and its line (docs/standards.md §3.12): the held coast-downs can only confirm or reject the final
   // setting.
