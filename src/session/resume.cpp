@@ -34,6 +34,8 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         p.verdict_reason = r.value("stop_reason", "");
         p.finished_recorded = true;
         if (r.contains("final_set")) p.final_set = road_load_from_json(r.at("final_set"));
+      } else if (type == "passes_reset") {
+        p.passes_reset_before.push_back(p.completed.size());
       } else if (type == "coastdown_started") {
         pending = r.at("run").get<int>();
         p.last_run = std::max(p.last_run, *pending);
@@ -89,6 +91,26 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
     }
   p.discarded_run = pending;
   return p;
+}
+
+void replay_method(const ResumePoint& p, core::SettingMethodState& method) {
+  std::size_t next_reset = 0;
+  auto resets_up_to = [&](std::size_t completed) {
+    for (; next_reset < p.passes_reset_before.size() && p.passes_reset_before[next_reset] <= completed;
+         ++next_reset)
+      (void)method.reset_passes();
+  };
+  for (std::size_t i = 0; i < p.completed.size(); ++i) {
+    resets_up_to(i);
+    const auto& r = p.completed[i];
+    if (!r.value("usable", false)) continue;
+    const core::RoadLoad set = road_load_from_json(r.at("set"));
+    (void)method.on_coastdown(set, adjust_basis_of(r), r.at("check").at("pass").get<bool>());
+    // A pass whose next setting differs was given up when the setting moved (its passes_reset record comes
+    // before the coast-down's own): the passes count at one setting.
+    if (!(road_load_from_json(r.at("decision").at("next_set")) == set)) (void)method.reset_passes();
+  }
+  resets_up_to(p.completed.size());
 }
 
 Summary summary_from_record(const ResumePoint& p, const core::Profile& profile) {

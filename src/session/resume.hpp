@@ -9,6 +9,7 @@
 #include <vector>
 
 #include "core/profile.hpp"
+#include "core/setting.hpp"
 #include "session/events.hpp"
 
 namespace loadtrim::session {
@@ -34,6 +35,10 @@ struct ResumePoint {
   std::optional<core::RoadLoad> final_set;  // as the decision gave it (not yet rounded)
   bool finished_recorded = false;  // the final "finished" record (and summary.json) is already written
   int iterations = 0;              // distinct settings written
+  // For each "passes_reset" record, how many "coastdown" records came before it: where the session gave up
+  // its consecutive passes (a discarded or unusable run, a pause, a setting adjusted after a pass), for the
+  // replay.
+  std::vector<std::size_t> passes_reset_before;
 };
 
 // Rebuilds where a session stood from its log records. A record whose fields are not what this version
@@ -46,6 +51,11 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records);
 // copy keeps the band regression), named; nullopt when there is none. Resume refuses before anything is
 // written.
 std::optional<std::string> missing_adjustment(const ResumePoint& rp, const core::Profile& profile);
+// Replays the setting method over the completed coast-downs as the session took them: each usable run's
+// verdict, the passes the session gave up where its log says so, and a setting changed after a pass (the
+// next-pass rule, docs/standards.md §3.19; the setting for the vehicle fully warm, §3.18), after which no pass
+// counts. So the passes a resume finds in hand are the ones the session had.
+void replay_method(const ResumePoint& p, core::SettingMethodState& method);
 // The summary of a session whose verdict the record already holds (ResumePoint::verdict), from the record
 // alone.
 Summary summary_from_record(const ResumePoint& p, const core::Profile& profile);

@@ -1220,12 +1220,8 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
   warm_asked_s_ = resume && opt_.resume_warm_up_s >= 0.0 ? opt_.resume_warm_up_s : p.warm_up.duration_s;
   if (resume) {
     cell_time_before_ = resume->cell_time_s;
-    for (const auto& r : resume->completed) {
-      if (r.value("usable", false))
-        method_->on_coastdown(road_load_from_json(r.at("set")), adjust_basis_of(r),
-                              r.at("check").at("pass").get<bool>());
-      run_no = std::max(run_no, r.at("run").get<int>() + 1);
-    }
+    replay_method(*resume, *method_);
+    for (const auto& r : resume->completed) run_no = std::max(run_no, r.at("run").get<int>() + 1);
     coastdowns_ = static_cast<int>(resume->completed.size());
     unusable_ = resume->unusable;
     discarded_ = resume->discarded;

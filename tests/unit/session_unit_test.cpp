@@ -1692,6 +1692,45 @@ TEST(SessionUnit, AResumeOfAWholeTraceProfileRefusesARecordWithoutItsAdjustment)
   EXPECT_FALSE(session::missing_adjustment(rp, in.profile).has_value());
 }
 
+TEST(SessionUnit, AResumeFindsThePassesTheSessionHad) {
+  // GTR 15 §8.1.3.4.2 (two consecutive coast-downs within tolerance at one setting, docs/standards.md §3.1):
+  // the passes a resume finds in hand are the session's. A pass given up when the setting moved (the
+  // next-pass rule, §3.19: its passes_reset record comes before the coast-down's own) and one given up by an
+  // unusable run count for nothing after the resume; a pass at an unchanged setting still counts.
+  const nlohmann::json set = {{"f0_n", 50.0}, {"f1_n_per_kmh", 0.2}, {"f2_n_per_kmh2", 0.03}};
+  const nlohmann::json moved = {{"f0_n", 47.5}, {"f1_n_per_kmh", 0.2}, {"f2_n_per_kmh2", 0.03}};
+  auto coast = [&](int run, bool pass, const nlohmann::json& next) {
+    return nlohmann::json{{"type", "coastdown"},
+                          {"run", run},
+                          {"usable", true},
+                          {"set", set},
+                          {"measured", set},
+                          {"check", {{"pass", pass}, {"rows", nlohmann::json::array()}}},
+                          {"decision", {{"kind", "run-again"}, {"next_set", next}}}};
+  };
+  const nlohmann::json reset = {{"type", "passes_reset"}, {"run", 1}, {"passes", 1}};
+  const nlohmann::json unusable = {{"type", "coastdown"}, {"run", 2}, {"usable", false}, {"set", set}};
+  auto passes_after = [](const std::vector<nlohmann::json>& records) {
+    const session::ResumePoint rp = session::resume_point(records);
+    EXPECT_EQ(rp.malformed, 0) << rp.malformed_note;
+    core::SettingMethodState method(inputs().profile, inputs().vehicle.target);
+    session::replay_method(rp, method);
+    return method.consecutive_passes();
+  };
+  // A pass, coasting on at the same setting: one pass in hand.
+  EXPECT_EQ(passes_after({coast(1, true, set)}), 1);
+  // The same pass adjusted by the next-pass rule (the reset record first, then the record with a new next
+  // setting): none in hand, as in the session. Replaying the verdicts alone found one.
+  EXPECT_EQ(passes_after({reset, coast(1, true, moved)}), 0);
+  EXPECT_EQ(passes_after({coast(1, true, moved)}), 0);
+  // A pass, then an unusable run (its reset record before its own): none.
+  EXPECT_EQ(passes_after({coast(1, true, set), reset, unusable}), 0);
+  // A pass, a reset (a pause), then a pass at the same setting: one, not two.
+  EXPECT_EQ(passes_after({coast(1, true, set), reset, coast(2, true, set)}), 1);
+  // A failure adjusts as the standard does: none.
+  EXPECT_EQ(passes_after({coast(1, true, set), coast(2, false, moved)}), 0);
+}
+
 TEST(SessionUnit, TheLossMapsCoastsKeepTheirWindowBelowTheRelease) {
   // docs/standards.md §2.10 (lab policy): with the profile's 5 km/h crossing window the loss map's short
   // coasts still fit at most 2.5 km/h, and use a band only when its window's top lies 2 km/h below the
