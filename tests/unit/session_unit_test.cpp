@@ -18,6 +18,7 @@
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
 #include "core/combination.hpp"
+#include "core/envelope.hpp"
 #include "record/verify.hpp"
 #include "registry.hpp"
 #include "report/report.hpp"
@@ -1852,7 +1853,8 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     std::vector<session::ev::PassesReset> resets;
     session::Summary sum;
   };
-  auto run = [&](std::optional<core::RoadLoad> initial, bool predict, int max_coastdowns = 10) {
+  auto run = [&](std::optional<core::RoadLoad> initial, bool predict, int max_coastdowns = 10,
+                 double max_step_n = 0.0) {
     Seen out;
     FakeController c(truth);
     Recorder record(true);
@@ -1867,7 +1869,9 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;  // as shipped
     in.vehicle.initial_set = initial;
     in.profile.max_coastdowns = max_coastdowns;
-    session::Session s(in, options(), c, {&record, &hook});
+    session::Options o = options();
+    if (max_step_n > 0.0) o.envelope.max_step_n = max_step_n;
+    session::Session s(in, o, c, {&record, &hook});
     out.sum = s.run();
     return out;
   };
@@ -1946,4 +1950,22 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   EXPECT_TRUE(last.resets.empty());
   EXPECT_NE(last.runs[0].decision.reason.find("coasting on: too few coast-downs are left"), std::string::npos)
       << last.runs[0].decision.reason;
+  // The safe envelope (docs/standards.md §3.19: never a setting the envelope refuses): with a step limit
+  // below the adjustment's step (by hand, the change at the top speed is r·loss plus the 8 N moved, well
+  // above 1 N), the session coasts on at the setting and says why; nothing is reset, nothing written.
+  const double step_n =
+      core::max_abs_on(first.decision.next_set - first.set, 0.0, long_warm_up_inputs().profile.start_speed_kmh())
+          .force_n;
+  ASSERT_GT(std::abs(step_n), 1.0);
+  const Seen fenced = run(low, true, 10, 1.0);
+  ASSERT_FALSE(fenced.runs.empty()) << fenced.sum.stop_reason;
+  ASSERT_TRUE(fenced.runs[0].decision.next_pass.has_value());
+  const core::NextPassOutlook& held = *fenced.runs[0].decision.next_pass;
+  EXPECT_TRUE(held.likely_to_fail);
+  EXPECT_FALSE(held.adjusted);
+  EXPECT_NE(held.not_adjusted_why.find("the adjusted setting leaves the safe envelope"), std::string::npos)
+      << held.not_adjusted_why;
+  EXPECT_NE(held.not_adjusted_why.find("step limit"), std::string::npos) << held.not_adjusted_why;
+  EXPECT_TRUE(fenced.runs[0].decision.next_set == fenced.runs[0].set);
+  EXPECT_TRUE(fenced.resets.empty() || fenced.resets[0].run != fenced.runs[0].run);
 }
