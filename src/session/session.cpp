@@ -468,6 +468,39 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   return std::nullopt;
 }
 
+void Session::judge_next_pass(int run, CoastdownRecord& rec, const core::WarmingOutlook& outlook) {
+  const auto& p = in_.profile;
+  core::NextPassOutlook np =
+      core::next_pass_outlook(rec.evaluation.check, in_.vehicle.target, set_, rec.evaluation.adjust_basis,
+                              outlook, p.warm_up.next_pass_risk);
+  if (np.likely_to_fail) {
+    core::Decision adj = method_->adjusted(set_, rec.evaluation.adjust_basis, &outlook);
+    core::judge_adjusted(np, rec.evaluation.check, in_.vehicle.target, set_, rec.evaluation.adjust_basis,
+                         adj.next_set, outlook);
+    if (!np.adjusting_helps)
+      np.not_adjusted_why =
+          "the adjusted setting is not predicted likelier to pass" +
+          (np.adjusted_fail_probability ? " (" + num(*np.adjusted_fail_probability * 100.0, 0) + " % to fail)"
+                                        : std::string(" (not predicted)"));
+    else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
+      np.not_adjusted_why = "too few coast-downs are left for an adjusted setting to pass " +
+                            std::to_string(p.consecutive_passes) + " in a row";
+    else if (const core::SetCheck chk =
+                 core::check_set(adj.next_set, in_.vehicle.target, last_written_, opt_.envelope);
+             !chk.ok)
+      np.not_adjusted_why = "the adjusted setting leaves the safe envelope (" + chk.why + ")";
+    if (np.not_adjusted_why.empty()) {
+      np.adjusted = true;
+      reset_passes(run, "within tolerance, but " + np.why + ": adjusted now");
+      adj.reason = "within tolerance, but " + np.why + ": " + adj.reason;
+      rec.decision = std::move(adj);
+    } else {
+      rec.decision.reason += "; " + np.why + ", coasting on: " + np.not_adjusted_why;
+    }
+  }
+  rec.decision.next_pass = std::move(np);
+}
+
 Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
   // docs/standards.md §3.15 (lab policy): from the hold at from_kmh, coast with the standard's default
   // setting to to_kmh and measure the vehicle's loss as a coast-down sees it at the reference speeds the
@@ -915,37 +948,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
     // adjusted now, as after a failure, and the passes start again: two more coast-downs instead of a likely
     // failure and two more after it. Only with room for the passes and a setting the safe envelope takes.
     if (anticipate && p.warm_up.predict_next_pass && p.method == core::SettingMethod::iterative &&
-        !rec.verifying && rec.evaluation.check.pass && rec.decision.kind == core::Decision::Kind::run_again) {
-      core::NextPassOutlook np =
-          core::next_pass_outlook(rec.evaluation.check, in_.vehicle.target, set_, rec.evaluation.adjust_basis,
-                                  outlook, p.warm_up.next_pass_risk);
-      if (np.likely_to_fail) {
-        core::Decision adj = method_->adjusted(set_, rec.evaluation.adjust_basis, &outlook);
-        core::judge_adjusted(np, rec.evaluation.check, in_.vehicle.target, set_, rec.evaluation.adjust_basis,
-                             adj.next_set, outlook);
-        if (!np.adjusting_helps)
-          np.not_adjusted_why = "the adjusted setting is not predicted likelier to pass" +
-                                (np.adjusted_fail_probability
-                                     ? " (" + num(*np.adjusted_fail_probability * 100.0, 0) + " % to fail)"
-                                     : std::string(" (not predicted)"));
-        else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
-          np.not_adjusted_why = "too few coast-downs are left for an adjusted setting to pass " +
-                                std::to_string(p.consecutive_passes) + " in a row";
-        else if (const core::SetCheck chk =
-                     core::check_set(adj.next_set, in_.vehicle.target, last_written_, opt_.envelope);
-                 !chk.ok)
-          np.not_adjusted_why = "the adjusted setting leaves the safe envelope (" + chk.why + ")";
-        if (np.not_adjusted_why.empty()) {
-          np.adjusted = true;
-          reset_passes(run, "within tolerance, but " + np.why + ": adjusted now");
-          adj.reason = "within tolerance, but " + np.why + ": " + adj.reason;
-          rec.decision = std::move(adj);
-        } else {
-          rec.decision.reason += "; " + np.why + ", coasting on: " + np.not_adjusted_why;
-        }
-      }
-      rec.decision.next_pass = std::move(np);
-    }
+        !rec.verifying && rec.evaluation.check.pass && rec.decision.kind == core::Decision::Kind::run_again)
+      judge_next_pass(run, rec, outlook);
     // Said wherever the basis moved a setting: an iterative adjustment, or a fixed-run run (its loss sets run
     // 2 or enters the final setting's average).
     const bool fixed_run_loss = p.method == core::SettingMethod::fixed_run && !rec.verifying;

@@ -127,6 +127,11 @@ class Session {
   std::optional<Stop> do_set_inertia();
   std::optional<Stop> do_warm_up(double duration_s, bool measure_loss_map);
   std::optional<Stop> do_run(int run);  // write_set → run_up → coast_down → analyse
+  // After a pass that is not yet the last in a row (warm_up.predict_next_pass, docs/standards.md §3.19): the
+  // next coast-down predicted; when the warming will likely take it outside and the adjusted setting is
+  // likelier to pass, the setting is adjusted now and the passes start again, unless too few coast-downs are
+  // left or the envelope refuses it (it coasts on, said in rec.decision).
+  void judge_next_pass(int run, CoastdownRecord& rec, const core::WarmingOutlook& outlook);
   // The operator's pause (r.code == motion::kPaused, or asked between steps): a run in progress discarded,
   // the pass count reset, the rollers stopped, the wait at rest for a continue. Nothing (go on: the caller
   // re-warms for rewarm_s) or how the session ends.
