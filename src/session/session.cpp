@@ -468,6 +468,107 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   return std::nullopt;
 }
 
+void Session::judge_warm_acceptance(int run, CoastdownRecord& rec) {
+  const auto& p = in_.profile;
+  const auto& w = p.warm_up;
+  const bool require = w.drift_rule == core::WarmUp::DriftRule::require;
+  ev::WarmUpDrift d{run,
+                    t_now_ - drift_t0_,
+                    core::fit_warm_up_curve(drift_points_),
+                    require ? "require" : "warn",
+                    w.drift_threshold_n,
+                    "",
+                    std::nullopt};
+  const bool warming = d.curve.ok && !(d.curve.remaining_drift_n(d.t_s) <= w.drift_threshold_n);
+  // Settled: is the setting still within tolerance once the vehicle is fully warm (docs/standards.md
+  // §3.18)? The deviations are the acceptance's, the loss the adjustment's (§3.17), both of this
+  // coast-down, so the change still to come is taken from its middle.
+  enum class WarmAction { none, adjust, hold, reject, finding };
+  WarmAction warm_action = WarmAction::none;
+  std::string warm_why;  // the finding (finding), or why it is not adjusted (hold, reject)
+  if (require && w.check_fully_warm && !warming) {
+    if (rec.decision.next_set == set_) {
+      d.fully_warm = core::fully_warm_outlook(
+          rec.evaluation.check, in_.vehicle.target, rec.evaluation.adjust_basis - set_, d.curve,
+          rec.release_time_s + 0.5 * rec.duration_s - drift_t0_, w.speed_kmh);
+    } else {
+      // A fixed-run final setting accepted without verification runs was never coasted: nothing of it
+      // was measured to judge.
+      d.fully_warm = core::FullyWarmOutlook{};
+      d.fully_warm->why = "not predicted: the final setting was never coasted (no verification run)";
+    }
+    const auto& o = *d.fully_warm;
+    if (!o.predicted) {
+      warm_action = WarmAction::finding;
+      warm_why = "the fully-warm check was not made (" + o.why + ")";
+    } else if (!o.within && p.method != core::SettingMethod::iterative) {
+      warm_action = WarmAction::finding;
+      warm_why = "the setting is " + o.why + "; the fixed-run method keeps its final setting";
+    } else if (!o.within) {
+      // The iterative method: adjusted for the warm vehicle when that setting can pass (aimable, two
+      // passes' room, inside the envelope); else coasting on at the accepted setting while the vehicle
+      // settles further, and not accepted when no coast-down is left (the drift rule "require").
+      if (!o.aimable)
+        warm_why = o.not_aimable_why;
+      else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
+        warm_why = "too few coast-downs are left for a setting aimed at the warm vehicle to pass " +
+                   std::to_string(p.consecutive_passes) + " in a row";
+      else if (const core::SetCheck chk =
+                   core::check_set(o.warm_setting, in_.vehicle.target, last_written_, opt_.envelope);
+               !chk.ok)
+        warm_why = "the setting aimed at the warm vehicle leaves the safe envelope (" + chk.why + ")";
+      d.fully_warm->not_adjusted_why = warm_why;
+      warm_action = warm_why.empty()                 ? WarmAction::adjust
+                    : coastdowns_ < p.max_coastdowns ? WarmAction::hold
+                                                     : WarmAction::reject;
+    }
+  }
+  if (!d.curve.ok)
+    d.verdict = "not estimated: " + d.curve.why;
+  else if (warm_action == WarmAction::adjust)
+    d.verdict = "settled, but outside tolerance once fully warm: adjusted for the warm vehicle";
+  else if (warm_action == WarmAction::hold)
+    d.verdict = "settled, but outside tolerance once fully warm: coasting again at the accepted setting";
+  else if (warm_action == WarmAction::reject)
+    d.verdict = "settled, but outside tolerance once fully warm: not accepted";
+  else if (warm_action == WarmAction::finding && d.fully_warm->predicted)
+    d.verdict = "settled, but outside tolerance once fully warm: accepted with a finding";
+  else if (!warming)
+    d.verdict = "settled";
+  else if (require)
+    d.verdict = "still warming: coasting again at the accepted setting";
+  else
+    d.verdict = "still warming: accepted with a finding";
+  emit(d);
+  if (warm_action == WarmAction::adjust) {
+    rec.decision.kind = core::Decision::Kind::run_again;
+    rec.decision.next_set = d.fully_warm->warm_setting;
+    rec.decision.reason += "; but " + d.fully_warm->why + ": adjusted for the warm vehicle";
+    reset_passes(run, "the setting is adjusted for the vehicle fully warm (" + d.fully_warm->why + ")");
+  } else if (warm_action == WarmAction::hold) {
+    rec.decision.kind = core::Decision::Kind::run_again;
+    rec.decision.reason += "; but " + d.fully_warm->why + " and " + warm_why +
+                           ": coasting the accepted setting while the vehicle settles further";
+  } else if (warm_action == WarmAction::reject) {
+    rec.decision.kind = core::Decision::Kind::rejected;
+    rec.decision.reason += "; but " + d.fully_warm->why + ", " + warm_why +
+                           " and no coast-down is left (the drift rule \"require\"): not accepted";
+  } else if (warm_action == WarmAction::finding) {
+    findings_.push_back(warm_why);
+  } else if (warming && require) {
+    rec.decision.kind = core::Decision::Kind::run_again;
+    rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +
+                           num(d.curve.remaining_drift_n(d.t_s), 1) + " N above " +
+                           num(w.drift_threshold_n, 1) +
+                           " N): coasting the accepted setting until the vehicle settles";
+  } else if (warming) {
+    findings_.push_back("the vehicle was still warming at acceptance: estimated remaining drift " +
+                        num(d.curve.remaining_drift_n(d.t_s), 1) + " N at the warm-up speed (threshold " +
+                        num(w.drift_threshold_n, 1) + " N; warm-up curve time constant " +
+                        num(d.curve.tau_s, 0) + " s); the profile's warm_up.drift_rule is \"warn\"");
+  }
+}
+
 void Session::judge_next_pass(int run, CoastdownRecord& rec, const core::WarmingOutlook& outlook) {
   const auto& p = in_.profile;
   core::NextPassOutlook np =
@@ -980,105 +1081,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
             "; but the final setting leaves the safe envelope (" + chk.why + "): not accepted";
       }
     // A setting about to be accepted: is the vehicle still warming (docs/standards.md §3.12)?
-    if (rec.decision.kind == core::Decision::Kind::accepted) {
-      const auto& w = p.warm_up;
-      const bool require = w.drift_rule == core::WarmUp::DriftRule::require;
-      ev::WarmUpDrift d{run,
-                        t_now_ - drift_t0_,
-                        core::fit_warm_up_curve(drift_points_),
-                        require ? "require" : "warn",
-                        w.drift_threshold_n,
-                        "",
-                        std::nullopt};
-      const bool warming = d.curve.ok && !(d.curve.remaining_drift_n(d.t_s) <= w.drift_threshold_n);
-      // Settled: is the setting still within tolerance once the vehicle is fully warm (docs/standards.md
-      // §3.18)? The deviations are the acceptance's, the loss the adjustment's (§3.17), both of this
-      // coast-down, so the change still to come is taken from its middle.
-      enum class WarmAction { none, adjust, hold, reject, finding };
-      WarmAction warm_action = WarmAction::none;
-      std::string warm_why;  // the finding (finding), or why it is not adjusted (hold, reject)
-      if (require && w.check_fully_warm && !warming) {
-        if (rec.decision.next_set == set_) {
-          d.fully_warm = core::fully_warm_outlook(
-              rec.evaluation.check, in_.vehicle.target, rec.evaluation.adjust_basis - set_, d.curve,
-              rec.release_time_s + 0.5 * rec.duration_s - drift_t0_, w.speed_kmh);
-        } else {
-          // A fixed-run final setting accepted without verification runs was never coasted: nothing of it
-          // was measured to judge.
-          d.fully_warm = core::FullyWarmOutlook{};
-          d.fully_warm->why = "not predicted: the final setting was never coasted (no verification run)";
-        }
-        const auto& o = *d.fully_warm;
-        if (!o.predicted) {
-          warm_action = WarmAction::finding;
-          warm_why = "the fully-warm check was not made (" + o.why + ")";
-        } else if (!o.within && p.method != core::SettingMethod::iterative) {
-          warm_action = WarmAction::finding;
-          warm_why = "the setting is " + o.why + "; the fixed-run method keeps its final setting";
-        } else if (!o.within) {
-          // The iterative method: adjusted for the warm vehicle when that setting can pass (aimable, two
-          // passes' room, inside the envelope); else coasting on at the accepted setting while the vehicle
-          // settles further, and not accepted when no coast-down is left (the drift rule "require").
-          if (!o.aimable)
-            warm_why = o.not_aimable_why;
-          else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
-            warm_why = "too few coast-downs are left for a setting aimed at the warm vehicle to pass " +
-                       std::to_string(p.consecutive_passes) + " in a row";
-          else if (const core::SetCheck chk =
-                       core::check_set(o.warm_setting, in_.vehicle.target, last_written_, opt_.envelope);
-                   !chk.ok)
-            warm_why = "the setting aimed at the warm vehicle leaves the safe envelope (" + chk.why + ")";
-          d.fully_warm->not_adjusted_why = warm_why;
-          warm_action = warm_why.empty()                 ? WarmAction::adjust
-                        : coastdowns_ < p.max_coastdowns ? WarmAction::hold
-                                                         : WarmAction::reject;
-        }
-      }
-      if (!d.curve.ok)
-        d.verdict = "not estimated: " + d.curve.why;
-      else if (warm_action == WarmAction::adjust)
-        d.verdict = "settled, but outside tolerance once fully warm: adjusted for the warm vehicle";
-      else if (warm_action == WarmAction::hold)
-        d.verdict = "settled, but outside tolerance once fully warm: coasting again at the accepted setting";
-      else if (warm_action == WarmAction::reject)
-        d.verdict = "settled, but outside tolerance once fully warm: not accepted";
-      else if (warm_action == WarmAction::finding && d.fully_warm->predicted)
-        d.verdict = "settled, but outside tolerance once fully warm: accepted with a finding";
-      else if (!warming)
-        d.verdict = "settled";
-      else if (require)
-        d.verdict = "still warming: coasting again at the accepted setting";
-      else
-        d.verdict = "still warming: accepted with a finding";
-      emit(d);
-      if (warm_action == WarmAction::adjust) {
-        rec.decision.kind = core::Decision::Kind::run_again;
-        rec.decision.next_set = d.fully_warm->warm_setting;
-        rec.decision.reason += "; but " + d.fully_warm->why + ": adjusted for the warm vehicle";
-        reset_passes(run, "the setting is adjusted for the vehicle fully warm (" + d.fully_warm->why + ")");
-      } else if (warm_action == WarmAction::hold) {
-        rec.decision.kind = core::Decision::Kind::run_again;
-        rec.decision.reason += "; but " + d.fully_warm->why + " and " + warm_why +
-                               ": coasting the accepted setting while the vehicle settles further";
-      } else if (warm_action == WarmAction::reject) {
-        rec.decision.kind = core::Decision::Kind::rejected;
-        rec.decision.reason += "; but " + d.fully_warm->why + ", " + warm_why +
-                               " and no coast-down is left (the drift rule \"require\"): not accepted";
-      } else if (warm_action == WarmAction::finding) {
-        findings_.push_back(warm_why);
-      } else if (warming && require) {
-        rec.decision.kind = core::Decision::Kind::run_again;
-        rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +
-                               num(d.curve.remaining_drift_n(d.t_s), 1) + " N above " +
-                               num(w.drift_threshold_n, 1) +
-                               " N): coasting the accepted setting until the vehicle settles";
-      } else if (warming) {
-        findings_.push_back("the vehicle was still warming at acceptance: estimated remaining drift " +
-                            num(d.curve.remaining_drift_n(d.t_s), 1) + " N at the warm-up speed (threshold " +
-                            num(w.drift_threshold_n, 1) + " N; warm-up curve time constant " +
-                            num(d.curve.tau_s, 0) + " s); the profile's warm_up.drift_rule is \"warn\"");
-      }
-    }
+    if (rec.decision.kind == core::Decision::Kind::accepted) judge_warm_acceptance(run, rec);
     last_ = rec;
     if (!emit(ev::Coastdown{rec}, &trace)) return Stop{Outcome::record_failure, record_error_};
     if (rec.decision.kind == core::Decision::Kind::accepted) {

@@ -132,6 +132,10 @@ class Session {
   // likelier to pass, the setting is adjusted now and the passes start again, unless too few coast-downs are
   // left or the envelope refuses it (it coasts on, said in rec.decision).
   void judge_next_pass(int run, CoastdownRecord& rec, const core::WarmingOutlook& outlook);
+  // A setting about to be accepted (docs/standards.md §3.12, §3.18): the warming still to come judged by the
+  // drift rule (recorded as warm_up_drift), and a settled vehicle's setting once fully warm; rec.decision may
+  // become an adjustment, coasting on, a rejection, or stay accepted with a finding.
+  void judge_warm_acceptance(int run, CoastdownRecord& rec);
   // The operator's pause (r.code == motion::kPaused, or asked between steps): a run in progress discarded,
   // the pass count reset, the rollers stopped, the wait at rest for a continue. Nothing (go on: the caller
   // re-warms for rewarm_s) or how the session ends.
