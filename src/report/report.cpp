@@ -584,13 +584,17 @@ static std::string write_report_body(const std::string& folder, const std::strin
   } else {
     for (const auto& d : drifts) {
       const std::string v = sv(d, "verdict", "not recorded");
+      // A record is written each time a setting is due to be accepted; only the last one of an accepted
+      // session is at its acceptance (with the drift rule "require" the earlier ones coasted on).
+      const bool at_acceptance = accepted && &d == &drifts.back();
       // The fully-warm check's sentence (docs/session.md, "The setting once fully warm"), when it was made.
       const std::string warm = d.contains("fully_warm") && d["fully_warm"].is_object()
                                    ? "; " + sv(d["fully_warm"], "why", "fully-warm check not recorded")
                                    : std::string();
       item(v.rfind("still warming", 0) == 0 || v.rfind("settled, but", 0) == 0,
-           "Warm-up drift at acceptance (coast-down " +
-               std::to_string(static_cast<int>(nv(d, "run").value_or(0))) + "): " + v +
+           std::string(at_acceptance ? "Warm-up drift at acceptance"
+                                     : "Warm-up drift when the setting was due to be accepted") +
+               " (coast-down " + std::to_string(static_cast<int>(nv(d, "run").value_or(0))) + "): " + v +
                (nv(d, "remaining_drift_n")
                     ? "; estimated remaining drift " + fmt(*nv(d, "remaining_drift_n"), 2) + " N"
                     : std::string()) +

@@ -437,6 +437,15 @@ TEST(Events, EveryEventHasExactlyTheDocumentedMembers) {
           << name << " writes \"" << k << "\", which docs/session.md does not document";
     for (const auto& k : it->second.required)
       EXPECT_TRUE(j.contains(k)) << name << " lacks the documented member \"" << k << "\"";
+    // The stamp's members (record_json) are written over the payload's: a payload member of the same name
+    // would be lost from the log (common practice, no source: never let one field overwrite another).
+    // The one exception: the summary's cell_time_s (Finished), the very value the stamp writes (Session::run
+    // states it as emit() does).
+    for (const char* stamp : {"state", "t_s", "cell_time_s", "type", "seq"}) {
+      if (name == "Finished" && std::string(stamp) == "cell_time_s") continue;
+      EXPECT_FALSE(j.contains(stamp))
+          << name << " writes \"" << stamp << "\", which the record's stamp or header overwrites";
+    }
   }
   EXPECT_EQ(seen.size(), std::variant_size_v<Payload>) << "every event is exercised";
 }

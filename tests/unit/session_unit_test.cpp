@@ -428,7 +428,6 @@ TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
   // threshold.
   for (const auto rule : {core::WarmUp::DriftRule::warn, core::WarmUp::DriftRule::require}) {
     FakeController c(warming_truth(1.0, 400.0));
-    Recorder record(true);
     std::vector<session::ev::WarmUpDrift> drifts;
     Hook hook([&](const session::Event& e) {
       if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) drifts.push_back(*d);
@@ -437,9 +436,54 @@ TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
     in.profile.warm_up.drift_rule = rule;
     in.profile.warm_up.drift_threshold_n = 2.0;
     in.profile.max_coastdowns = 20;
-    session::Session s(in, options(), c, {&record, &hook});
-    const auto sum = s.run();
+    namespace fs = std::filesystem;
+    std::string dir = (fs::temp_directory_path() / "loadtrim-drift-XXXXXX").string();
+    ASSERT_TRUE(::mkdtemp(dir.data()));
+    const std::string folder = dir + "/session";
+    fs::create_directories(folder);
+    session::Summary sum;
+    {
+      session::RecordWriter writer(folder);
+      session::Session s(in, options(), c, {&writer, &hook});
+      sum = s.run();
+    }
     ASSERT_FALSE(drifts.empty()) << sum.stop_reason;
+    // The log keeps the time the remaining drift was read at (since the warm-up's motoring began) beside the
+    // record's own controller clock (t_s): neither overwrites the other.
+    {
+      std::ifstream log(folder + "/events.jsonl");
+      std::vector<nlohmann::json> logged;
+      for (std::string line; std::getline(log, line);) {
+        const auto j = nlohmann::json::parse(line, nullptr, false);
+        if (j.is_object() && j.value("type", "") == "warm_up_drift") logged.push_back(j);
+      }
+      ASSERT_EQ(logged.size(), drifts.size());
+      EXPECT_DOUBLE_EQ(logged.front().at("since_motoring_s").get<double>(), drifts.front().t_s);
+      EXPECT_NE(logged.front().at("t_s").get<double>(), drifts.front().t_s);
+      if (drifts.front().curve.ok) {
+        EXPECT_NEAR(
+            logged.front().at("remaining_drift_n").get<double>(),
+            drifts.front().curve.remaining_drift_n(logged.front().at("since_motoring_s").get<double>()),
+            1e-9);
+      }
+    }
+    // The report names only the last record of an accepted session "at acceptance"; an earlier one (the
+    // rule "require" coasted on) was when the setting was due to be accepted.
+    const auto files = report::write_report(folder, "test");
+    ASSERT_TRUE(files.ok) << files.error;
+    {
+      std::ifstream html(files.html);
+      const std::string page((std::istreambuf_iterator<char>(html)), {});
+      const auto count_of = [&](const std::string& what) {
+        std::size_t n = 0;
+        for (auto at = page.find(what); at != std::string::npos; at = page.find(what, at + 1)) ++n;
+        return n;
+      };
+      EXPECT_EQ(count_of("Warm-up drift at acceptance (coast-down"), 1u);
+      EXPECT_EQ(count_of("Warm-up drift when the setting was due to be accepted (coast-down"),
+                drifts.size() - 1);
+    }
+    fs::remove_all(dir);
     const auto& first = drifts.front();
     ASSERT_TRUE(first.curve.ok) << first.curve.why;
     EXPECT_GE(first.curve.points, 15);
@@ -1953,9 +1997,9 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   // The safe envelope (docs/standards.md §3.19: never a setting the envelope refuses): with a step limit
   // below the adjustment's step (by hand, the change at the top speed is r·loss plus the 8 N moved, well
   // above 1 N), the session coasts on at the setting and says why; nothing is reset, nothing written.
-  const double step_n =
-      core::max_abs_on(first.decision.next_set - first.set, 0.0, long_warm_up_inputs().profile.start_speed_kmh())
-          .force_n;
+  const double step_n = core::max_abs_on(first.decision.next_set - first.set, 0.0,
+                                         long_warm_up_inputs().profile.start_speed_kmh())
+                            .force_n;
   ASSERT_GT(std::abs(step_n), 1.0);
   const Seen fenced = run(low, true, 10, 1.0);
   ASSERT_FALSE(fenced.runs.empty()) << fenced.sum.stop_reason;
