@@ -150,10 +150,12 @@ std::string history_file(const std::string& dir, const controller::CellConfig& c
   return record::vehicle_history_file(dir, cell.name, v.id);
 }
 
-std::optional<core::HistoryEntry> load_history(const std::string& file) {
+std::optional<core::HistoryEntry> load_history(const std::string& file, const std::string& vehicle_id,
+                                               std::string* why_not = nullptr) {
   std::string err;
-  auto h = record::load_vehicle_history(file, &err);
+  auto h = record::load_vehicle_history(file, &err, vehicle_id);
   if (!h && !err.empty()) std::cerr << file << ": history entry not used: " << err << "\n";
+  if (why_not) *why_not = err;
   return h;
 }
 
@@ -278,8 +280,9 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   // The history: the lab's record store when it can be used, else the per-cell file (docs/store.md). Not
   // looked for when nothing can use it: the standard first setting, or a target file's own initial set.
   if (req.first_setting != core::to_string(core::FirstSetting::standard) && !inputs.vehicle.initial_set) {
-    HistoryFound history = find_history(lab.root, inputs.cell.name, inputs.vehicle.id, hfile,
-                                        [&] { return load_history(hfile); });
+    HistoryFound history =
+        find_history(lab.root, inputs.cell.name, inputs.vehicle.id, hfile,
+                     [&](std::string& why_not) { return load_history(hfile, inputs.vehicle.id, &why_not); });
     opt.history = std::move(history.entry);
     opt.history_lookup = std::move(history.lookup);
   }
@@ -609,8 +612,8 @@ std::optional<core::FleetLossModel> fleet_model(const std::string& csv) {
   return load_fleet(csv);
 }
 std::optional<core::HistoryEntry> history_for(const std::string& dir, const controller::CellConfig& cell,
-                                              const core::VehicleTarget& v) {
-  return load_history(history_file(dir, cell, v));
+                                              const core::VehicleTarget& v, std::string* why_not) {
+  return load_history(history_file(dir, cell, v), v.id, why_not);
 }
 std::string default_fleet_csv() {
   return data_dir() + "/samples/data/epa_test_car_roadload_MY2016_2019.csv";

@@ -70,12 +70,12 @@ int resume_session(const std::string& folder, const RunRequest& overrides);
 int exit_code_for(session::Outcome o);
 
 // The fleet loss model from an EPA-format CSV (nullopt, with a message on stderr, when it cannot be fitted),
-// and the history of a vehicle on a cell (nullopt when there is none) — as the session's first-setting
-// strategies use them.
+// and the history of a vehicle on a cell (nullopt when there is none, or when its entry is not believable:
+// why_not says why) — as the session's first-setting strategies use them.
 std::optional<core::FleetLossModel> fleet_model(const std::string& csv);
 std::optional<core::HistoryEntry> history_for(const std::string& history_dir,
                                               const controller::CellConfig& cell,
-                                              const core::VehicleTarget& v);
+                                              const core::VehicleTarget& v, std::string* why_not = nullptr);
 std::string default_fleet_csv();
 // A standard profile given by name (config/profiles/NAME.toml) or as a file path; the default dyno check
 // profile.

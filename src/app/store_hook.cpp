@@ -217,9 +217,10 @@ void RunningNote::end(bool indexed, bool say) {
 }
 
 // --- the history first setting (docs/store.md, "The history first setting") ---
-HistoryFound find_history(const record::DataRoot& root, const std::string& cell, const std::string& vehicle,
-                          const std::string& history_file,
-                          const std::function<std::optional<core::HistoryEntry>()>& from_file) {
+HistoryFound find_history(
+    const record::DataRoot& root, const std::string& cell, const std::string& vehicle,
+    const std::string& history_file,
+    const std::function<std::optional<core::HistoryEntry>(std::string& why_not)>& from_file) {
   HistoryFound out;
   nlohmann::json lookup = {{"looked", "store"}, {"store", ""}, {"not_used", nlohmann::json::array()}};
   std::string why_not_store;
@@ -264,7 +265,8 @@ HistoryFound find_history(const record::DataRoot& root, const std::string& cell,
   // The store unavailable: the per-cell history file, as before the store (said in the record).
   lookup["looked"] = "file";
   lookup["file"] = history_file;
-  out.entry = from_file();
+  std::string file_why_not;
+  out.entry = from_file(file_why_not);
   if (out.entry) {
     core::HistoryBasis b;
     b.source = "file";
@@ -275,7 +277,10 @@ HistoryFound find_history(const record::DataRoot& root, const std::string& cell,
              core::history_loss_note(out.entry->measured.has_value());
     out.entry->basis = std::move(b);
   }
-  lookup["note"] = why_not_store + "; the history file was read" + (out.entry ? "" : ": no entry there");
+  lookup["note"] = why_not_store + "; the history file was read" +
+                   (out.entry              ? ""
+                    : file_why_not.empty() ? ": no entry there"
+                                           : ": its entry was not used: " + file_why_not);
   out.lookup = std::move(lookup);
   return out;
 }

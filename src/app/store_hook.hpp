@@ -60,15 +60,17 @@ class RunningNote {
 
 // --- the history first setting (docs/store.md, "The history first setting") ---
 // The history of `vehicle` for a session on `cell`: from the lab's record store when one can be used (the
-// folders of the rows used verified again; store::lookup_store_history), else `from_file()` (the per-cell
-// history file `history_file`, as before the store). `lookup` says where it looked, why the store was not
-// used, and which rows were not used and why; it goes into the first_setting record. Never throws.
+// folders of the rows used verified again; store::lookup_store_history), else `from_file(why_not)` (the
+// per-cell history file `history_file`, as before the store; why_not says why an entry there was not used).
+// `lookup` says where it looked, why the store was not used, and which rows were not used and why; it goes
+// into the first_setting record. Never throws.
 struct HistoryFound {
   std::optional<core::HistoryEntry> entry;
   nlohmann::json lookup;
 };
-HistoryFound find_history(const record::DataRoot& root, const std::string& cell, const std::string& vehicle,
-                          const std::string& history_file,
-                          const std::function<std::optional<core::HistoryEntry>()>& from_file);
+HistoryFound find_history(
+    const record::DataRoot& root, const std::string& cell, const std::string& vehicle,
+    const std::string& history_file,
+    const std::function<std::optional<core::HistoryEntry>(std::string& why_not)>& from_file);
 
 }  // namespace loadtrim::app

@@ -1,9 +1,11 @@
 #include "record/vehicle_history.hpp"
 
+#include <cmath>
 #include <filesystem>
 #include <fstream>
 #include <nlohmann/json.hpp>
 
+#include "core/envelope.hpp"
 #include "record/event_log.hpp"
 #include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
@@ -17,21 +19,50 @@ std::string vehicle_history_file(const std::string& dir, const std::string& cell
   return (fs::path(dir) / identity_name(cell_name) / (safe_name(vehicle_id) + ".json")).string();
 }
 
-std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, std::string* error) {
+namespace {
+
+bool finite(const core::RoadLoad& c) {
+  return std::isfinite(c.f0_n) && std::isfinite(c.f1_n_per_kmh) && std::isfinite(c.f2_n_per_kmh2);
+}
+
+}  // namespace
+
+std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, std::string* error,
+                                                       const std::string& vehicle_id) {
   std::ifstream in(file);
   if (!in) return std::nullopt;
+  auto refuse = [&](const std::string& why) -> std::optional<core::HistoryEntry> {
+    if (error) *error = why;
+    return std::nullopt;
+  };
   try {
     const auto j = nlohmann::json::parse(in);
     core::HistoryEntry h;
     h.utc = j.at("utc").get<std::string>();
+    if (!vehicle_id.empty()) {
+      const std::string written = j.at("vehicle").get<std::string>();
+      if (written != vehicle_id)
+        return refuse("the entry is for vehicle \"" + written + "\", not \"" + vehicle_id + "\"");
+    }
     h.target = road_load_from_json(j.at("target"));
     h.final_set = road_load_from_json(j.at("final_set"));
     if (j.contains("measured")) h.measured = road_load_from_json(j.at("measured"));
+    for (const auto* c : {&h.target, &h.final_set, h.measured ? &*h.measured : &h.target})
+      if (!finite(*c)) return refuse("a coefficient is not a finite number");
+    // The same limit the envelope puts on every setting written (docs/safety.md): a loss no credible vehicle
+    // has is a damaged or foreign file, not an estimate.
+    const double limit_n = core::EnvelopeLimits{}.max_vehicle_loss_n;
+    for (const auto& [name, loss] :
+         {std::pair{"target − final set", h.target - h.final_set},
+          std::pair{"measured − final set", h.measured ? *h.measured - h.final_set : core::RoadLoad{}}})
+      if (const core::CurvePoint m = core::max_abs_on(loss, 0.0, 130.0); std::abs(m.force_n) > limit_n)
+        return refuse(std::string("its loss (") + name + ") is " + std::to_string(m.force_n) + " N at " +
+                      std::to_string(m.speed_kmh) + " km/h, beyond the vehicle-loss limit of ±" +
+                      std::to_string(limit_n) + " N");
     if (j.contains("warm_up")) h.warm_up = warm_up_from_json(j.at("warm_up"));
     return h;
   } catch (const std::exception& e) {
-    if (error) *error = e.what();
-    return std::nullopt;
+    return refuse(e.what());
   }
 }
 
@@ -64,11 +95,17 @@ std::optional<core::WarmUpRecord> warm_up_from_json(const nlohmann::json& r) {
     return std::nullopt;
   core::WarmUpRecord out;
   out.speed_kmh = r["speed_kmh"].get<double>();
+  if (!(out.speed_kmh >= 10.0 && out.speed_kmh <= 250.0)) return std::nullopt;  // warm_up.speed_kmh's range
   for (const auto& w : r["windows"]) {
     if (!w.is_object() || !w.contains("t_s") || !w.contains("force_n") || !w["t_s"].is_number() ||
         !w["force_n"].is_number())
       return std::nullopt;
-    out.windows.push_back({w["t_s"].get<double>(), w["force_n"].get<double>()});
+    const core::DriftPoint p{w["t_s"].get<double>(), w["force_n"].get<double>()};
+    // Windows in time order with finite values, as the session writes them.
+    if (!std::isfinite(p.t_s) || !std::isfinite(p.force_n) ||
+        (!out.windows.empty() && !(p.t_s > out.windows.back().t_s)))
+      return std::nullopt;
+    out.windows.push_back(p);
   }
   return out;
 }

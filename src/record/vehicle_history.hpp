@@ -20,9 +20,13 @@ namespace loadtrim::record {
 std::string vehicle_history_file(const std::string& dir, const std::string& cell_name,
                                  const std::string& vehicle_id);
 
-// The entry in `file`: nullopt when there is no file, or (with `error` set when given) when it cannot be read
-// or lacks a member.
-std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, std::string* error = nullptr);
+// The entry in `file`: nullopt when there is no file, or (with `error` set when given) when it cannot be
+// read, lacks a member, or is not believable: written for another vehicle than `vehicle_id` (when given), a
+// coefficient not finite, or a loss (target − final set, measured − final set) beyond the safe envelope's
+// vehicle-loss limit over 0–130 km/h (core::EnvelopeLimits, 1000 N). A warm-up hold whose windows are not
+// finite, not in time order or at a speed outside 10–250 km/h is left out (the rest of the entry reads).
+std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, std::string* error = nullptr,
+                                                       const std::string& vehicle_id = "");
 
 // Writes the entry durably (creating the folders), utc = now; `measured` (the last coast-down's curve at
 // final_set, given only for an iterative session) as the member "measured" and `warm_up` (the session's first

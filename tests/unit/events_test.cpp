@@ -13,6 +13,7 @@
 #include <cctype>
 #include <filesystem>
 #include <fstream>
+#include <functional>
 #include <iterator>
 #include <map>
 #include <set>
@@ -735,6 +736,51 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   EXPECT_FALSE(record::initial_warm_up_from_record(rec));
   rec.erase("initial");
   EXPECT_FALSE(record::initial_warm_up_from_record(rec));
+  // Never believed as written (common practice, no source: a file is checked before it moves anything). An
+  // entry written for another vehicle is refused by name; so is one whose loss no credible vehicle has (the
+  // safe envelope's vehicle-loss limit, 1000 N, docs/safety.md) or a coefficient that is not a finite number;
+  // a warm-up hold whose windows run back in time or whose speed is outside warm_up.speed_kmh's 10–250 km/h
+  // is left out and the rest reads.
+  ASSERT_TRUE(
+      record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err, measured, warm))
+      << err;
+  err.clear();
+  EXPECT_TRUE(record::load_vehicle_history(file, &err, "car/1")) << err;
+  EXPECT_FALSE(record::load_vehicle_history(file, &err, "car/2"));
+  EXPECT_NE(err.find("the entry is for vehicle \"car/1\", not \"car/2\""), std::string::npos) << err;
+  const nlohmann::json good = nlohmann::json::parse(std::ifstream(file));
+  auto with_member = [&](const std::function<void(nlohmann::json&)>& edit) {
+    nlohmann::json j = good;
+    edit(j);
+    { std::ofstream(file) << j.dump(); }
+    err.clear();
+    return record::load_vehicle_history(file, &err, "car/1");
+  };
+  // target − final set: 1,142 N at 0 km/h (by hand: 142 − (−1000)).
+  EXPECT_FALSE(with_member([](nlohmann::json& j) { j["final_set"]["f0_n"] = -1000.0; }));
+  EXPECT_NE(err.find("beyond the vehicle-loss limit"), std::string::npos) << err;
+  EXPECT_NE(err.find("target − final set"), std::string::npos) << err;
+  EXPECT_FALSE(with_member([](nlohmann::json& j) { j["measured"]["f2_n_per_kmh2"] = 1.0; }));
+  EXPECT_NE(err.find("measured − final set"), std::string::npos) << err;
+  EXPECT_TRUE(with_member([](nlohmann::json& j) { j["final_set"]["f0_n"] = -800.0; })) << err;
+  {
+    std::ofstream(file)
+        << R"({"utc": "x", "vehicle": "car/1", "target": {"f0_n": 1e400, "f1_n_per_kmh": 0,)"
+        << R"( "f2_n_per_kmh2": 0}, "final_set": {"f0_n": 1, "f1_n_per_kmh": 0, "f2_n_per_kmh2": 0}})";
+  }
+  err.clear();
+  EXPECT_FALSE(record::load_vehicle_history(file, &err, "car/1"));
+  EXPECT_FALSE(err.empty());
+  const auto back_in_time = with_member([](nlohmann::json& j) { j["warm_up"]["windows"][1]["t_s"] = 10.0; });
+  ASSERT_TRUE(back_in_time) << err;
+  EXPECT_FALSE(back_in_time->warm_up);
+  EXPECT_TRUE(back_in_time->measured);
+  const auto too_fast = with_member([](nlohmann::json& j) { j["warm_up"]["speed_kmh"] = 400.0; });
+  ASSERT_TRUE(too_fast) << err;
+  EXPECT_FALSE(too_fast->warm_up);
+  const auto as_written = with_member([](nlohmann::json&) {});
+  ASSERT_TRUE(as_written && as_written->warm_up) << err;
+  EXPECT_EQ(as_written->warm_up->windows.size(), 2u);
   EXPECT_FALSE(record::load_vehicle_history(dir + "/none.json"));
   { std::ofstream(file) << R"({"utc": "x", "target": {"f0_n": 1}})"; }
   err.clear();
