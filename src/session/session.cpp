@@ -714,13 +714,17 @@ std::optional<Session::Stop> Session::do_pause(const std::string& during, bool r
   if (!emit(ev::Continued{run_, go_on->by, go_on->why, go_on->source, paused_s, rewarm_s}))
     return Stop{Outcome::record_failure, record_error_};
   if (Result r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "the continue");
+  forget_warming();
+  return std::nullopt;
+}
+
+void Session::forget_warming() {
   // The vehicle cooled while it stood: the warm-up trend starts again from the re-warm.
   drift_points_.clear();
   drift_t0_ = -1.0;
   // Nor is this session's warm-up what the history's day-to-day correction compares any more.
   initial_hold_ = false;
   initial_warm_up_.reset();
-  return std::nullopt;
 }
 
 bool Session::clear_driver_prompt(int run, const std::string& why) {
@@ -825,7 +829,10 @@ std::optional<Session::Stop> Session::do_run(int run) {
       if (unusable_ >= p.max_unusable_runs)
         return Stop{Outcome::not_accepted,
                     "too many unusable coast-downs (" + std::to_string(unusable_) + ")"};
-      // The rollers stopped: re-warm before the repeat, so the 120 s rule applies to a warm vehicle again.
+      // The rollers stopped: re-warm before the repeat, so the 120 s rule applies to a warm vehicle again;
+      // the vehicle cooled as they stopped, so the warming trend starts again from that re-warm (as after a
+      // pause).
+      forget_warming();
       if (auto s = do_set_inertia()) return s;
       if (auto s = do_warm_up(rewarm_s(), false)) return s;
       return std::nullopt;

@@ -140,6 +140,9 @@ class Session {
   // the pass count reset, the rollers stopped, the wait at rest for a continue. Nothing (go on: the caller
   // re-warms for rewarm_s) or how the session ends.
   std::optional<Stop> do_pause(const std::string& during, bool run_in_progress, double rewarm_s);
+  // After the rollers stood (a pause, a lost link): the warming curve's windows and the session's initial
+  // hold are forgotten; the re-warm's windows start the curve again (docs/standards.md §3.12).
+  void forget_warming();
   bool pause_asked() const { return opt_.pause && opt_.pause->flag().load(); }
   // Clears the driver display when a prompt may still show (every way out of a vehicle run-up, the safe stop,
   // a pause); the record says whether the controller took it. Never throws; false when it could not.

@@ -418,6 +418,54 @@ session::Inputs long_warm_up_inputs() {
 }
 }  // namespace
 
+TEST(SessionUnit, AfterALostLinkTheWarmingCurveStartsAgainFromTheReWarm) {
+  // docs/standards.md §3.12: the warming curve is fitted to the hold windows since motoring began. A lost link
+  // stops the rollers (the controller's watchdog) and the vehicle cools, as in a pause: the curve judged at
+  // acceptance is the re-warm's alone, its time counted from the re-warm (common practice, no source: a curve
+  // across a stop mixes two warmings).
+  FakeController c(warming_truth(1.0, 400.0));
+  bool armed = false, lost = false;
+  std::vector<session::ev::WarmUpHeld> holds;
+  std::vector<session::ev::WarmUpDrift> drifts;
+  std::vector<double> warm_up_started_t, drift_t;  // their stamps, controller clock
+  Hook hook([&](const session::Event& e) {
+    if (std::holds_alternative<session::ev::WarmUpStarted>(e.payload) && e.stamp && e.stamp->t_s)
+      warm_up_started_t.push_back(*e.stamp->t_s);
+    if (std::holds_alternative<session::ev::WarmUpDrift>(e.payload) && e.stamp && e.stamp->t_s)
+      drift_t.push_back(*e.stamp->t_s);
+    if (const auto* cd = std::get_if<session::ev::Coastdown>(&e.payload);
+        cd && !lost && cd->record.evaluation.usable)
+      armed = true;  // the next coast-down loses its link
+    if (std::holds_alternative<session::ev::CoastdownStarted>(e.payload) && armed && !lost) {
+      lost = true;
+      c.script.silent = true;
+    }
+    if (std::holds_alternative<session::ev::LinkLost>(e.payload)) c.script.silent = false;
+    if (const auto* h = std::get_if<session::ev::WarmUpHeld>(&e.payload)) holds.push_back(*h);
+    if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) drifts.push_back(*d);
+  });
+  session::Inputs in = long_warm_up_inputs();
+  in.profile.max_coastdowns = 20;
+  session::Options o = options();
+  o.resume_warm_up_s = 300.0;  // the re-warm after the lost link
+  session::Session s(in, o, c, {&hook});
+  const auto sum = s.run();
+  ASSERT_TRUE(lost);
+  ASSERT_EQ(holds.size(), 2u) << sum.stop_reason;  // the warm-up, the re-warm
+  ASSERT_FALSE(drifts.empty()) << sum.stop_reason;
+  ASSERT_GE(holds[0].windows.size(), 15u);
+  ASSERT_GE(holds[1].windows.size(), 5u);
+  const auto& d = drifts.back();
+  ASSERT_TRUE(d.curve.ok) << d.curve.why;
+  // The re-warm's windows only (300 s of 30 s windows), not the first hold's 20 as well.
+  EXPECT_EQ(d.curve.points, static_cast<int>(holds[1].windows.size()));
+  // Its time counted from the re-warm's start (the hold begins once at speed, a few seconds before the
+  // warm_up_started record), not from the first warm-up's 600 s and more earlier.
+  ASSERT_EQ(warm_up_started_t.size(), 2u);
+  ASSERT_FALSE(drift_t.empty());
+  EXPECT_NEAR(d.t_s, drift_t.back() - warm_up_started_t[1], 5.0);
+}
+
 TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
   // docs/standards.md §3.12 (lab policy): the warm-up hold windows are fitted with F∞ + A·exp(−t/τ)
   // (first-order warming) and the drift still to come is judged when a setting is about to be accepted. The
