@@ -510,9 +510,8 @@ void Session::judge_warm_acceptance(int run, CoastdownRecord& rec) {
       // settles further, and not accepted when no coast-down is left (the drift rule "require").
       if (!o.aimable)
         warm_why = o.not_aimable_why;
-      else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
-        warm_why = "too few coast-downs are left for a setting aimed at the warm vehicle to pass " +
-                   std::to_string(p.consecutive_passes) + " in a row";
+      else if (std::string room = room_for_passes("a setting aimed at the warm vehicle"); !room.empty())
+        warm_why = std::move(room);
       else if (const core::SetCheck chk =
                    core::check_set(o.warm_setting, in_.vehicle.target, last_written_, opt_.envelope);
                !chk.ok)
@@ -583,9 +582,8 @@ void Session::judge_next_pass(int run, CoastdownRecord& rec, const core::Warming
           "the adjusted setting is not predicted likelier to pass" +
           (np.adjusted_fail_probability ? " (" + num(*np.adjusted_fail_probability * 100.0, 0) + " % to fail)"
                                         : std::string(" (not predicted)"));
-    else if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
-      np.not_adjusted_why = "too few coast-downs are left for an adjusted setting to pass " +
-                            std::to_string(p.consecutive_passes) + " in a row";
+    else if (std::string room = room_for_passes("an adjusted setting"); !room.empty())
+      np.not_adjusted_why = std::move(room);
     else if (const core::SetCheck chk =
                  core::check_set(adj.next_set, in_.vehicle.target, last_written_, opt_.envelope);
              !chk.ok)
@@ -716,6 +714,24 @@ std::optional<Session::Stop> Session::do_pause(const std::string& during, bool r
   if (Result r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "the continue");
   forget_warming();
   return std::nullopt;
+}
+
+std::string Session::room_for_passes(const std::string& what) const {
+  const auto& p = in_.profile;
+  const std::string passes = std::to_string(p.consecutive_passes) + " in a row";
+  if (coastdowns_ + p.consecutive_passes > p.max_coastdowns)
+    return "too few coast-downs are left for " + what + " to pass " + passes;
+  // Each coast-down's setting is written only within the cell's motoring-time limit (do_run): the last of
+  // the passes starts about (passes − 1) measured cycles from now.
+  if (t_motoring_from_ >= 0.0 && cycle_s_ > 0.0) {
+    const double used_s = t_now_ - t_motoring_from_;
+    const double last_start_s = used_s + (p.consecutive_passes - 1) * cycle_s_;
+    if (!(last_start_s <= in_.cell.max_motoring_s))
+      return "too little of the cell's motoring time is left for " + what + " to pass " + passes + " (" +
+             num(used_s, 0) + " s of " + num(in_.cell.max_motoring_s, 0) +
+             " s used, a coast-down about every " + num(cycle_s_, 0) + " s)";
+  }
+  return "";
 }
 
 void Session::forget_warming() {
@@ -1036,14 +1052,15 @@ std::optional<Session::Stop> Session::do_run(int run) {
     // a run-up and a coast-down later.
     core::WarmingOutlook outlook;
     const bool anticipate = p.warm_up.anticipate_drift && drift_t0_ >= 0.0;
+    // The next coast-down follows this one by the cycle just measured (end to end, when this run followed
+    // one of the same warm-up), else by this run's run-up and coast (the first after a warm-up, whose run-up
+    // started from the warm-up speed: a shorter cycle, so less is anticipated, not more).
+    cycle_s_ = previous_end >= 0.0 && previous_end >= drift_t0_ && t_now_ > previous_end
+                   ? t_now_ - previous_end
+                   : std::max(0.0, rec.run_up_s) + rec.duration_s;
     if (anticipate) {
-      // The next coast-down follows this one by the cycle just measured (end to end, when this run followed
-      // one of the same warm-up), else by this run's run-up and coast (the first after a warm-up, whose
-      // run-up started from the warm-up speed: a shorter cycle, so less is anticipated, not more).
       const double mid = rec.release_time_s + 0.5 * rec.duration_s;
-      const double cycle = previous_end >= drift_t0_ && t_now_ > previous_end
-                               ? t_now_ - previous_end
-                               : std::max(0.0, rec.run_up_s) + rec.duration_s;
+      const double cycle = cycle_s_;
       outlook = warming_outlook(mid, mid + cycle);
       outlook.cycle_s = cycle;  // the coast-downs after the next (warm_up.anticipate_for = "passes")
     }

@@ -419,10 +419,10 @@ session::Inputs long_warm_up_inputs() {
 }  // namespace
 
 TEST(SessionUnit, AfterALostLinkTheWarmingCurveStartsAgainFromTheReWarm) {
-  // docs/standards.md §3.12: the warming curve is fitted to the hold windows since motoring began. A lost link
-  // stops the rollers (the controller's watchdog) and the vehicle cools, as in a pause: the curve judged at
-  // acceptance is the re-warm's alone, its time counted from the re-warm (common practice, no source: a curve
-  // across a stop mixes two warmings).
+  // docs/standards.md §3.12: the warming curve is fitted to the hold windows since motoring began. A lost
+  // link stops the rollers (the controller's watchdog) and the vehicle cools, as in a pause: the curve judged
+  // at acceptance is the re-warm's alone, its time counted from the re-warm (common practice, no source: a
+  // curve across a stop mixes two warmings).
   FakeController c(warming_truth(1.0, 400.0));
   bool armed = false, lost = false;
   std::vector<session::ev::WarmUpHeld> holds;
@@ -1944,13 +1944,20 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     std::vector<session::CoastdownRecord> runs;
     std::vector<session::ev::PassesReset> resets;
     session::Summary sum;
+    double warm_up_t = -1.0;      // the warm_up_started stamp (motoring began), controller clock
+    std::vector<double> coast_t;  // each coastdown record's stamp
   };
   auto run = [&](std::optional<core::RoadLoad> initial, bool predict, int max_coastdowns = 10,
-                 double max_step_n = 0.0) {
+                 double max_step_n = 0.0, double max_motoring_s = 0.0) {
     Seen out;
     FakeController c(truth);
     Recorder record(true);
     Hook hook([&](const session::Event& e) {
+      if (std::holds_alternative<session::ev::WarmUpStarted>(e.payload) && e.stamp && e.stamp->t_s &&
+          out.warm_up_t < 0.0)
+        out.warm_up_t = *e.stamp->t_s;
+      if (std::holds_alternative<session::ev::Coastdown>(e.payload) && e.stamp && e.stamp->t_s)
+        out.coast_t.push_back(*e.stamp->t_s);
       if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload)) out.runs.push_back(d->record);
       if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload)) out.resets.push_back(*r);
     });
@@ -1961,6 +1968,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;  // as shipped
     in.vehicle.initial_set = initial;
     in.profile.max_coastdowns = max_coastdowns;
+    if (max_motoring_s > 0.0) in.cell.max_motoring_s = max_motoring_s;
     session::Options o = options();
     if (max_step_n > 0.0) o.envelope.max_step_n = max_step_n;
     session::Session s(in, o, c, {&record, &hook});
@@ -2060,4 +2068,28 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   EXPECT_NE(held.not_adjusted_why.find("step limit"), std::string::npos) << held.not_adjusted_why;
   EXPECT_TRUE(fenced.runs[0].decision.next_set == fenced.runs[0].set);
   EXPECT_TRUE(fenced.resets.empty() || fenced.resets[0].run != fenced.runs[0].run);
+  // The cell's motoring-time limit (limits.max_motoring_s): each setting is written only within it, and the
+  // adjusted setting's second pass would start a cycle after its first. A limit half a cycle beyond the
+  // first coast-down's decision leaves time for one more coast-down, not two: it coasts on and says why.
+  ASSERT_GE(b.coast_t.size(), 2u);
+  ASSERT_GE(b.warm_up_t, 0.0);
+  const double cycle_s = b.coast_t[1] - b.coast_t[0];
+  ASSERT_GT(cycle_s, 60.0);
+  const double limit_s = b.coast_t[0] - b.warm_up_t + 0.5 * cycle_s;
+  const Seen timed = run(low, true, 10, 0.0, limit_s);
+  ASSERT_FALSE(timed.runs.empty()) << timed.sum.stop_reason;
+  ASSERT_TRUE(timed.runs[0].decision.next_pass.has_value());
+  const core::NextPassOutlook& short_of_time = *timed.runs[0].decision.next_pass;
+  EXPECT_TRUE(short_of_time.likely_to_fail);
+  EXPECT_FALSE(short_of_time.adjusted);
+  EXPECT_NE(short_of_time.not_adjusted_why.find("too little of the cell's motoring time is left"),
+            std::string::npos)
+      << short_of_time.not_adjusted_why;
+  EXPECT_TRUE(timed.runs[0].decision.next_set == timed.runs[0].set);
+  // With a limit two cycles and more beyond, the same session adjusts as before.
+  const Seen roomy = run(low, true, 10, 0.0, b.coast_t[0] - b.warm_up_t + 2.5 * cycle_s);
+  ASSERT_FALSE(roomy.runs.empty()) << roomy.sum.stop_reason;
+  ASSERT_TRUE(roomy.runs[0].decision.next_pass.has_value());
+  EXPECT_TRUE(roomy.runs[0].decision.next_pass->adjusted)
+      << roomy.runs[0].decision.next_pass->not_adjusted_why;
 }
