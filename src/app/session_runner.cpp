@@ -9,6 +9,7 @@
 #include <fstream>
 #include <functional>
 #include <iostream>
+#include <sstream>
 #include <thread>
 
 #include "app/cell_locks.hpp"
@@ -72,7 +73,9 @@ void warn(const std::string& file, const core::Problems& w) {
 struct Loaded {
   session::Inputs inputs;
   std::string profile_path;
-  nlohmann::json warnings = nlohmann::json::array();  // the combination's warnings, for the record
+  // Every warning the input files gave (each file's own, with its line, and their combination's), for the
+  // record: the session_started record's combination_warnings.
+  nlohmann::json warnings = nlohmann::json::array();
 };
 
 // Every file's problems at once: all but the last are printed here, the last is thrown (main prints it and
@@ -91,6 +94,9 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
     try {
       fn(w);
       warn(file, w);
+      std::istringstream lines(config::format_problems(file, w));
+      for (std::string line; std::getline(lines, line);)
+        if (!line.empty()) l.warnings.push_back(line);
     } catch (const config::InputError& e) {
       errors.push_back(e);
     }

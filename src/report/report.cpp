@@ -547,6 +547,11 @@ static std::string write_report_body(const std::string& folder, const std::strin
     if (!bv(s, "rollers_stopped").value_or(false))
       item(true, "A safe stop (record " + std::to_string(s.value("seq", -1)) +
                      ") did not confirm standstill: " + sv(s, "note", sv(s, "how")) + ".");
+  // The warnings the input files (cell, target, profile) and their combination gave when the session started:
+  // the operator saw them on the console; the reviewer sees them here.
+  if (started.contains("combination_warnings") && started["combination_warnings"].is_array())
+    for (const auto& w : started["combination_warnings"])
+      if (w.is_string()) item(true, "Input warning when the session started: " + w.get<std::string>());
   if (release_timing.empty()) {
     item(false, "120 s rule: no coast-down released after a warm-up was recorded.");
   } else {

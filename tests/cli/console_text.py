@@ -191,9 +191,31 @@ def main():
         rc2, out2 = on_pty(["resume", folder, "--port", str(port), "--rewarm-s", "60"] + common[:-2])
         if rc2 not in (0, 1):
             PROBLEMS.append("the resumed run exited %d, expected a verdict (0 or 1)" % rc2)
-        # --json stays for scripts: every stdout line one JSON object.
-        p = subprocess.run([ARGS.exe, "run", "--cell", cell, "--target", target, "--port", str(port), "--json"] +
-                           common, cwd=ARGS.workdir, env=env(), capture_output=True, text=True, timeout=120)
+        # --json stays for scripts: every stdout line one JSON object. Its profile, the shipped one with a key
+        # it does not know, loads with a warning: the record keeps the warning (file, key, line) and the
+        # report lists it (docs/session.md, session_started's combination_warnings).
+        profile = os.path.join(ARGS.workdir, "wltp-iterative-with-a-typo.toml")
+        with open(os.path.join(ARGS.src, "config/profiles/wltp-iterative.toml")) as src, open(profile, "w") as dst:
+            dst.write(src.read() + "\n[invented_table]\nwarm_upp = 1\n")
+        before = set(os.listdir(sessions))
+        p = subprocess.run([ARGS.exe, "run", "--cell", cell, "--target", target, "--port", str(port), "--json",
+                            "--profile", profile] + common,
+                           cwd=ARGS.workdir, env=env(), capture_output=True, text=True, timeout=120)
+        new = sorted(set(os.listdir(sessions)) - before)
+        if len(new) != 1:
+            PROBLEMS.append("the --json run made %d session folders, expected 1" % len(new))
+        else:
+            with open(os.path.join(sessions, new[0], "events.jsonl")) as f:
+                started = next((r for r in map(json.loads, f) if r.get("type") == "session_started"), {})
+            warned = [w for w in started.get("combination_warnings", []) if "invented_table" in w]
+            if not warned or "unknown key" not in warned[0] or "line" not in warned[0]:
+                PROBLEMS.append("the profile's warning is not in the record: %s" % started.get("combination_warnings"))
+            r = subprocess.run([ARGS.exe, "report", os.path.join(sessions, new[0])], cwd=ARGS.workdir, env=env(),
+                               capture_output=True, text=True, timeout=120)
+            html = os.path.join(sessions, new[0], "report.html")
+            page = open(html).read() if os.path.exists(html) else ""
+            if "Input warning when the session started" not in page or "invented_table" not in page:
+                PROBLEMS.append("the report does not list the profile's warning (report exit %d)" % r.returncode)
         for line in p.stdout.splitlines():
             try:
                 if not isinstance(json.loads(line), dict):
