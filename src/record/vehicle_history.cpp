@@ -47,15 +47,18 @@ std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, 
     h.target = road_load_from_json(j.at("target"));
     h.final_set = road_load_from_json(j.at("final_set"));
     if (j.contains("measured")) h.measured = road_load_from_json(j.at("measured"));
-    for (const auto* c : {&h.target, &h.final_set, h.measured ? &*h.measured : &h.target})
-      if (!finite(*c)) return refuse("a coefficient is not a finite number");
+    // JSON holds no infinity, but two huge finite values can make one: each difference is checked too.
+    const core::RoadLoad none{};
+    for (const core::RoadLoad& c : {h.target, h.final_set, h.measured ? *h.measured : none,
+                                    h.target - h.final_set, h.measured ? *h.measured - h.final_set : none})
+      if (!finite(c)) return refuse("a coefficient, or a loss computed from them, is not a finite number");
     // The same limit the envelope puts on every setting written (docs/safety.md): a loss no credible vehicle
     // has is a damaged or foreign file, not an estimate.
     const double limit_n = core::EnvelopeLimits{}.max_vehicle_loss_n;
     for (const auto& [name, loss] :
          {std::pair{"target − final set", h.target - h.final_set},
           std::pair{"measured − final set", h.measured ? *h.measured - h.final_set : core::RoadLoad{}}})
-      if (const core::CurvePoint m = core::max_abs_on(loss, 0.0, 130.0); std::abs(m.force_n) > limit_n)
+      if (const core::CurvePoint m = core::max_abs_on(loss, 0.0, 130.0); !(std::abs(m.force_n) <= limit_n))
         return refuse(std::string("its loss (") + name + ") is " + std::to_string(m.force_n) + " N at " +
                       std::to_string(m.speed_kmh) + " km/h, beyond the vehicle-loss limit of ±" +
                       std::to_string(limit_n) + " N");

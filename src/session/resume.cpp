@@ -62,6 +62,8 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
           (void)measured_of(r);
           (void)adjust_basis_of(r);
           (void)r.at("check").at("rows").size();
+          if (!r.at("check").at("pass").is_boolean())
+            throw std::invalid_argument("\"check.pass\" is not true or false");
           (void)r.at("decision").at("kind").get<std::string>();
         }
         p.completed.push_back(r);

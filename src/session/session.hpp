@@ -146,7 +146,8 @@ class Session {
   // Why a new setting could not pass the consecutive passes (the coast-down limit, or the cell's motoring
   // time at the last measured cycle); empty when it could. `what` names the setting in the sentence.
   std::string room_for_passes(const std::string& what) const;
-  double cycle_s_ = 0.0;  // the last coast-down's cycle (end to end, or its run-up and coast), s
+  double cycle_s_ = 0.0;         // the last coast-down's cycle (end to end, or its run-up and coast), s
+  bool cycle_measured_ = false;  // cycle_s_ measured end to end (the run followed one of the same warm-up)
   bool pause_asked() const { return opt_.pause && opt_.pause->flag().load(); }
   // Clears the driver display when a prompt may still show (every way out of a vehicle run-up, the safe stop,
   // a pause); the record says whether the controller took it. Never throws; false when it could not.

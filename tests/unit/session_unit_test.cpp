@@ -267,6 +267,32 @@ TEST(SessionUnit, ALateFirstCoastDownIsRepeatedOrKeptWithAFindingAsTheProfileSay
   }
 }
 
+TEST(SessionUnit, AReWarmWithoutAStopDoesNotRestartTheMotoringClock) {
+  // The cell's limits.max_motoring_s is one continuous motoring period (docs/session.md; common practice, no
+  // source: a drivetrain and a tyre heat as long as the rollers turn). A late first coast-down's re-warm
+  // (EU SA4 §8.1.2–8.1.3, the 120 s rule made unmeetable: 1 s) never stops the rollers, so the period goes on
+  // from the first warm-up, and the second repeat is never written.
+  FakeController c(loadtrim::testing::demo_truth());
+  session::Inputs in = inputs();
+  in.profile.max_gap_after_warmup_s = 1.0;
+  in.profile.late_start = core::Profile::LateStart::repeat;
+  in.profile.late_start_rewarm_s = 20.0;
+  // At least the planned motoring (the combination's check), 400 s: by the fake controller's clock the first
+  // setting is written 120 s into the period, the first repeat's 337 s, the second repeat's 555 s. Restarted
+  // at each re-warm (before), the clock read 20 s at each repeat, and the session ended on the unusable-run
+  // limit.
+  in.cell.max_motoring_s = 400.0;
+  ASSERT_GE(in.cell.max_motoring_s, core::planned_motoring_s(in.profile));
+  Recorder record(true);
+  session::Session s(in, options(), c, {&record});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::not_accepted) << sum.stop_reason;
+  EXPECT_NE(sum.stop_reason.find("motoring-time limit"), std::string::npos) << sum.stop_reason;
+  EXPECT_EQ(count(record, "coastdown_discarded"), 2)
+      << "the first late run and one repeat; the next is not written";
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+}
+
 // A history whose set leaves the safe envelope (the hostile review forged a store row with F0 = −10⁶ N and
 // saw the session end as a controller fault after the whole warm-up) is never the first setting: the
 // standard's is, the record says why, and the session goes on (docs/store.md, "The history first setting").
@@ -1813,7 +1839,9 @@ TEST(SessionUnit, AResumeFindsThePassesTheSessionHad) {
   // A pass, coasting on at the same setting: one pass in hand.
   EXPECT_EQ(passes_after({coast(1, true, set)}), 1);
   // The same pass adjusted by the next-pass rule (the reset record first, then the record with a new next
-  // setting): none in hand, as in the session. Replaying the verdicts alone found one.
+  // setting): none in hand, as in the session. Replaying the verdicts alone found one. (The changed next
+  // setting alone already resets it, the line after; the reset record's own effect is the unusable and pause
+  // cases below.)
   EXPECT_EQ(passes_after({reset, coast(1, true, moved)}), 0);
   EXPECT_EQ(passes_after({coast(1, true, moved)}), 0);
   // A pass, then an unusable run (its reset record before its own): none.
@@ -2052,7 +2080,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
       << last.runs[0].decision.reason;
   // The safe envelope (docs/standards.md §3.19: never a setting the envelope refuses): with a step limit
   // below the adjustment's step (by hand, the change at the top speed is r·loss plus the 8 N moved, well
-  // above 1 N), the session coasts on at the setting and says why; nothing is reset, nothing written.
+  // above 1 N), the session coasts on at the setting and says why; no pass is given up at that coast-down.
   const double step_n = core::max_abs_on(first.decision.next_set - first.set, 0.0,
                                          long_warm_up_inputs().profile.start_speed_kmh())
                             .force_n;
@@ -2068,7 +2096,8 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   EXPECT_NE(held.not_adjusted_why.find("step limit"), std::string::npos) << held.not_adjusted_why;
   EXPECT_TRUE(fenced.runs[0].decision.next_set == fenced.runs[0].set);
   EXPECT_TRUE(fenced.resets.empty() || fenced.resets[0].run != fenced.runs[0].run);
-  // The cell's motoring-time limit (limits.max_motoring_s): each setting is written only within it, and the
+  // The cell's motoring-time limit (limits.max_motoring_s; the rule is lab policy, docs/standards.md §3.19,
+  // the limit the cell's own, common practice, no source): each setting is written only within it, and the
   // adjusted setting's second pass would start a cycle after its first. A limit half a cycle beyond the
   // first coast-down's decision leaves time for one more coast-down, not two: it coasts on and says why.
   ASSERT_GE(b.coast_t.size(), 2u);
