@@ -444,6 +444,38 @@ session::Inputs long_warm_up_inputs() {
 }
 }  // namespace
 
+TEST(SessionUnit, ARequireThatCouldNotBeAppliedIsAFinding) {
+  // docs/standards.md §3.12: with fewer than 4 windows the warming is "not estimated" and decides nothing.
+  // With the drift rule "require" the lab asked for a vehicle warm at acceptance, so the acceptance says the
+  // rule could not be applied (common practice, no source: a check not made is reported, never silent). Here
+  // a 120 s warm-up of 60 s windows gives 2.
+  FakeController c(loadtrim::testing::demo_truth());
+  std::vector<session::ev::WarmUpDrift> drifts;
+  Hook hook([&](const session::Event& e) {
+    if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) drifts.push_back(*d);
+  });
+  session::Inputs in = inputs();
+  in.profile.warm_up.duration_s = 120.0;
+  in.profile.warm_up.stable_window_s = 60.0;
+  in.profile.warm_up.drift_rule = core::WarmUp::DriftRule::require;
+  in.profile.warm_up.check_fully_warm = false;
+  session::Session s(in, options(), c, {&hook});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+  ASSERT_EQ(drifts.size(), 1u);
+  EXPECT_FALSE(drifts[0].curve.ok);
+  EXPECT_EQ(drifts[0].verdict.rfind("not estimated", 0), 0u) << drifts[0].verdict;
+  ASSERT_EQ(sum.findings.size(), 1u);
+  EXPECT_NE(sum.findings[0].find("the drift rule \"require\" could not be applied at acceptance"),
+            std::string::npos)
+      << sum.findings[0];
+  // With "warn" the same session carries no such finding (the rule asks nothing to be applied).
+  FakeController c2(loadtrim::testing::demo_truth());
+  in.profile.warm_up.drift_rule = core::WarmUp::DriftRule::warn;
+  session::Session s2(in, options(), c2, {});
+  EXPECT_TRUE(s2.run().findings.empty());
+}
+
 TEST(SessionUnit, AfterALostLinkTheWarmingCurveStartsAgainFromTheReWarm) {
   // docs/standards.md §3.12: the warming curve is fitted to the hold windows since motoring began. A lost
   // link stops the rollers (the controller's watchdog) and the vehicle cools, as in a pause: the curve judged
