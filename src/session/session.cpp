@@ -569,9 +569,12 @@ void Session::judge_warm_acceptance(int run, CoastdownRecord& rec) {
                         num(d.curve.tau_s, 0) + " s); the profile's warm_up.drift_rule is \"warn\"");
   } else if (require && !d.curve.ok) {
     // The lab asked for a vehicle warm at acceptance and the warming could not be judged (too few windows
-    // since the last stand, a poor fit): accepted as the standard accepts, and said (docs/standards.md §3.12).
-    findings_.push_back("the drift rule \"require\" could not be applied at acceptance: the warming was not "
-                        "estimated (" + d.curve.why + ")");
+    // since the last stand, a poor fit): accepted as the standard accepts, and said (docs/standards.md
+    // §3.12).
+    findings_.push_back(
+        "the drift rule \"require\" could not be applied at acceptance: the warming was not "
+        "estimated (" +
+        d.curve.why + ")");
   }
 }
 
@@ -874,9 +877,17 @@ std::optional<Session::Stop> Session::do_run(int run) {
   if (const core::SetCheck chk = core::check_set(set_, in_.vehicle.target, last_written_, opt_.envelope);
       !chk.ok) {
     emit(ev::EnvelopeRefused{run, set_, chk.why});
+    // The first adjustment is the error of the first setting's loss estimate (core/envelope.hpp): a step too
+    // large there most often means a vehicle unlike the one that estimate assumed.
+    const std::string cause = iterations_ == 1
+                                  ? "the first setting was far from this vehicle's loss on the rollers (set "
+                                    "a closer first setting: "
+                                    "a target file's initial set, or another first-setting strategy), or the "
+                                    "measurement is wrong, or "
+                                    "the controller does not follow the setting"
+                                  : "the controller does not follow the setting or the measurement is wrong";
     return Stop{Outcome::controller_fault,
-                "the next setting was not written: it leaves the safe envelope (" + chk.why +
-                    "); the controller does not follow the setting or the measurement is wrong"};
+                "the next setting was not written: it leaves the safe envelope (" + chk.why + "); " + cause};
   }
   if (Result r = c_.set_coefficients(set_); !r.ok()) return link_or_fault(r, "write set");
   if (!last_written_ || !(*last_written_ == set_)) ++iterations_;

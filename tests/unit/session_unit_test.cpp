@@ -444,6 +444,23 @@ session::Inputs long_warm_up_inputs() {
 }
 }  // namespace
 
+TEST(SessionUnit, AFirstAdjustmentBeyondTheStepLimitNamesTheFirstSetting) {
+  // core/envelope.hpp (the step limit, from the EPA Test Car List): the first adjustment is the error of the
+  // first setting's loss estimate, so a refused first step names that first, then the measurement and the
+  // controller (common practice, no source: the likeliest cause first). A 1 N step limit refuses it.
+  FakeController c(loadtrim::testing::demo_truth());
+  session::Options o = options();
+  o.envelope.max_step_n = 1.0;
+  session::Session s(inputs(), o, c, {});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::controller_fault) << sum.stop_reason;
+  EXPECT_EQ(sum.iterations, 1);
+  EXPECT_NE(sum.stop_reason.find("beyond the step limit"), std::string::npos) << sum.stop_reason;
+  EXPECT_NE(sum.stop_reason.find("the first setting was far from this vehicle's loss"), std::string::npos)
+      << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped);
+}
+
 TEST(SessionUnit, ARequireThatCouldNotBeAppliedIsAFinding) {
   // docs/standards.md §3.12: with fewer than 4 windows the warming is "not estimated" and decides nothing.
   // With the drift rule "require" the lab asked for a vehicle warm at acceptance, so the acceptance says the
