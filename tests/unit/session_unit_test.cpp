@@ -2170,4 +2170,57 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   ASSERT_TRUE(roomy.runs[0].decision.next_pass.has_value());
   EXPECT_TRUE(roomy.runs[0].decision.next_pass->adjusted)
       << roomy.runs[0].decision.next_pass->not_adjusted_why;
+  // A resume after an adjusted pass finds no pass in hand, as the session had none (GTR 15 §8.1.3.4.2, two
+  // consecutive passes at one setting): it writes no passes_reset of its own (the replay of the verdicts
+  // alone found one pass and wrote a count of 1). Stopped by the operator right after the adjusted pass.
+  {
+    namespace fs = std::filesystem;
+    std::string dir = (fs::temp_directory_path() / "loadtrim-nextpass-resume-XXXXXX").string();
+    ASSERT_TRUE(::mkdtemp(dir.data()));
+    const std::string folder = dir + "/session";
+    fs::create_directories(folder);
+    session::Inputs in = long_warm_up_inputs();
+    in.profile.warm_up.anticipate_drift = true;
+    in.profile.warm_up.predict_next_pass = true;
+    in.profile.warm_up.next_pass_risk = 0.5;
+    in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;
+    in.vehicle.initial_set = low;
+    std::atomic<bool> stop{false};
+    bool adjusted_pass = false;
+    Hook stopper([&](const session::Event& e) {
+      if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload);
+          d && d->record.decision.next_pass && d->record.decision.next_pass->adjusted) {
+        adjusted_pass = true;
+        stop = true;
+      }
+    });
+    {
+      FakeController c1(truth);
+      session::RecordWriter writer(folder);
+      session::Session s1(in, options(), c1, {&writer, &stopper}, &stop);
+      const auto first_part = s1.run();
+      ASSERT_TRUE(adjusted_pass) << first_part.stop_reason;
+      ASSERT_EQ(first_part.outcome, session::Outcome::interrupted) << first_part.stop_reason;
+    }
+    std::vector<nlohmann::json> records;
+    {
+      std::ifstream log(folder + "/events.jsonl");
+      for (std::string line; std::getline(log, line);) records.push_back(nlohmann::json::parse(line));
+    }
+    const session::ResumePoint rp = session::resume_point(records);
+    ASSERT_EQ(rp.malformed, 0) << rp.malformed_note;
+    ASSERT_EQ(rp.completed.size(), 1u);
+    std::vector<session::ev::PassesReset> resume_resets;
+    Hook seen([&](const session::Event& e) {
+      if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload)) resume_resets.push_back(*r);
+    });
+    FakeController c2(truth);
+    session::Session s2(in, options(), c2, {&seen});
+    const auto rest = s2.run(&rp);
+    for (const auto& r : resume_resets)
+      EXPECT_EQ(r.why.find("the session stopped and was resumed"), std::string::npos)
+          << "a resume found " << r.passes << " pass(es) in hand after an adjusted pass";
+    EXPECT_EQ(rest.outcome, session::Outcome::accepted) << rest.stop_reason;
+    fs::remove_all(dir);
+  }
 }
