@@ -153,7 +153,7 @@ std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
 
 std::string history_file(const std::string& dir, const controller::CellConfig& cell,
                          const core::VehicleTarget& v) {
-  return record::vehicle_history_file(dir, cell.name, v.id);
+  return record::vehicle_history_file_to_read(dir, cell.name, v.id);
 }
 
 std::optional<core::HistoryEntry> load_history(const std::string& file, const std::string& vehicle_id,
@@ -403,7 +403,9 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   if (session::is_final(sum.outcome) && !seal_session(folder, cell, writer.summary(), key, req.checks_dir,
                                                       req.console == session::Console::Mode::json))
     sum.outcome = session::Outcome::record_failure;
-  if (sum.outcome == session::Outcome::accepted) save_history(hfile, vehicle, sum, folder, method);
+  if (sum.outcome == session::Outcome::accepted)
+    save_history(record::vehicle_history_file(req.history_dir, inputs.cell.name, vehicle.id), vehicle, sum, folder,
+                 method);
   // Every session ends with its report (from the record alone, so it shows what an auditor would see).
   const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION, req.csv);
   if (!rep.ok)

@@ -249,7 +249,7 @@ int run_target(const TargetOptions& o) {
     const std::string dir = o.history.empty() ? "sessions/history" : o.history;
     HistoryFound found =
         find_history(record::find_data_root(o.data_dir), cell->name, v.id,
-                     record::vehicle_history_file(dir, cell->name, v.id),
+                     record::vehicle_history_file_to_read(dir, cell->name, v.id),
                      [&](std::string& why_not) { return history_for(dir, *cell, v, &why_not); });
     hist = std::move(found.entry);
     hist_lookup = std::move(found.lookup);

@@ -16,7 +16,16 @@ namespace fs = std::filesystem;
 
 std::string vehicle_history_file(const std::string& dir, const std::string& cell_name,
                                  const std::string& vehicle_id) {
-  return (fs::path(dir) / identity_name(cell_name) / (safe_name(vehicle_id) + ".json")).string();
+  return (fs::path(dir) / identity_name(cell_name) / (identity_name(vehicle_id) + ".json")).string();
+}
+
+std::string vehicle_history_file_to_read(const std::string& dir, const std::string& cell_name,
+                                         const std::string& vehicle_id) {
+  const std::string now = vehicle_history_file(dir, cell_name, vehicle_id);
+  const std::string before =
+      (fs::path(dir) / identity_name(cell_name) / (safe_name(vehicle_id) + ".json")).string();
+  std::error_code ec;
+  return !fs::exists(now, ec) && fs::exists(before, ec) ? before : now;
 }
 
 namespace {

@@ -16,16 +16,23 @@
 
 namespace loadtrim::record {
 
-// The file of a vehicle on a cell under the history folder `dir`.
+// The file of a vehicle on a cell under the history folder `dir`, named as the cell's folder is
+// (identity_name: two ids that differ only in characters a file name cannot hold get two files). Written
+// there.
 std::string vehicle_history_file(const std::string& dir, const std::string& cell_name,
                                  const std::string& vehicle_id);
+// The file to read: the one above, or, when it does not exist, the name earlier versions wrote (safe_name,
+// which two such ids shared: its entry's `vehicle` member decides whose it is, load_vehicle_history).
+std::string vehicle_history_file_to_read(const std::string& dir, const std::string& cell_name,
+                                         const std::string& vehicle_id);
 
 // The entry in `file`: nullopt when there is no file, or (with `error` set when given) when it cannot be
 // read, lacks a member, or is not believable: written for another vehicle than `vehicle_id` (when given), a
 // coefficient not finite, or a loss (target − final set, measured − final set) beyond the safe envelope's
 // vehicle-loss limit over 0–130 km/h (core::EnvelopeLimits, 1000 N: a coarse filter of the file; the setting
-// made from it still meets the envelope up to the profile's start speed before anything is written). A warm-up hold whose windows are not
-// finite, not in time order or at a speed outside 10–250 km/h is left out (the rest of the entry reads).
+// made from it still meets the envelope up to the profile's start speed before anything is written). A
+// warm-up hold whose windows are not finite, not in time order or at a speed outside 10–250 km/h is left out
+// (the rest of the entry reads).
 std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, std::string* error = nullptr,
                                                        const std::string& vehicle_id = "");
 

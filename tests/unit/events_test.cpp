@@ -442,7 +442,8 @@ TEST(Events, EveryEventHasExactlyTheDocumentedMembers) {
     // would be lost from the log (common practice, no source: never let one field overwrite another).
     // The one exception: the summary's cell_time_s (Finished), the very value the stamp writes (Session::run
     // states it as emit() does).
-    // The log's own members (record/event_log.cpp: seq, utc, type, prev, sig, record_signer) drop a payload's.
+    // The log's own members (record/event_log.cpp: seq, utc, type, prev, sig, record_signer) drop a
+    // payload's.
     for (const char* stamp :
          {"state", "t_s", "cell_time_s", "type", "seq", "utc", "prev", "sig", "record_signer"}) {
       if (name == "Finished" && std::string(stamp) == "cell_time_s") continue;
@@ -670,9 +671,28 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   std::string dir = (fs::temp_directory_path() / "loadtrim-history-XXXXXX").string();
   ASSERT_NE(::mkdtemp(dir.data()), nullptr);
   const std::string file = record::vehicle_history_file(dir, "cell (A)", "car/1");
-  EXPECT_EQ(
-      file,
-      (fs::path(dir) / record::identity_name("cell (A)") / (record::safe_name("car/1") + ".json")).string());
+  // Named as the cell's folder is: "car/1" and "car_1" get two files (the earlier safe_name gave both
+  // "car_1.json"); an id a file name can hold keeps its name.
+  EXPECT_EQ(file,
+            (fs::path(dir) / record::identity_name("cell (A)") / (record::identity_name("car/1") + ".json"))
+                .string());
+  EXPECT_NE(file, record::vehicle_history_file(dir, "cell (A)", "car_1"));
+  EXPECT_EQ(fs::path(record::vehicle_history_file(dir, "cell (A)", "car_1")).filename().string(),
+            "car_1.json");
+  {
+    // An earlier version's file (the shared name) is read while the new one does not exist; its `vehicle`
+    // member decides whose it is.
+    const std::string legacy =
+        (fs::path(dir) / record::identity_name("cell (A)") / (record::safe_name("car/1") + ".json")).string();
+    std::string e;
+    ASSERT_TRUE(record::save_vehicle_history(legacy, "car/1", "/s/old", {142.0, 0.35, 0.033}, kSet, e)) << e;
+    EXPECT_EQ(record::vehicle_history_file_to_read(dir, "cell (A)", "car/1"), legacy);
+    EXPECT_TRUE(record::load_vehicle_history(legacy, &e, "car/1")) << e;
+    EXPECT_FALSE(record::load_vehicle_history(record::vehicle_history_file_to_read(dir, "cell (A)", "car_1"),
+                                              &e, "car_1"));
+    EXPECT_NE(e.find("the entry is for vehicle \"car/1\", not \"car_1\""), std::string::npos) << e;
+    fs::remove(legacy);
+  }
   const core::RoadLoad target{142.0, 0.35, 0.033}, final_set = kSet;
   std::string err;
   ASSERT_TRUE(record::save_vehicle_history(file, "car/1", "/s/folder", target, final_set, err)) << err;
