@@ -246,7 +246,8 @@ int run_target(const TargetOptions& o) {
   std::optional<core::HistoryEntry> hist;
   nlohmann::json hist_lookup;
   if (cell) {
-    const std::string dir = o.history.empty() ? "sessions/history" : o.history;
+    // The folder `run` saves to: <data root>/history unless given.
+    const std::string dir = o.history.empty() ? record::find_data_root(o.data_dir).history() : o.history;
     HistoryFound found =
         find_history(record::find_data_root(o.data_dir), cell->name, v.id,
                      record::vehicle_history_file_to_read(dir, cell->name, v.id),
@@ -479,7 +480,8 @@ void register_target_command(CLI::App& app, Runner& run) {
   s->add_option("--profile", o->profile, "standard profile name or file")->capture_default_str();
   s->add_option("--cell", o->cell, "cell file: its axle layout, and the history of this vehicle on it");
   s->add_option("--history", o->history,
-                "history file folder, read when no record store can be used (default: sessions/history)");
+                "history file folder, read when no record store can be used (default: <data root>/history, "
+                "as for run)");
   s->add_option("--data-dir", o->data_dir,
                 "the lab's data root, whose record store the history strategy reads (default: as for run)");
   s->add_option("--out", o->out, "write the target file here");

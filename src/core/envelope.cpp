@@ -187,10 +187,13 @@ SetCheck check_set(const RoadLoad& next, const RoadLoad& target, const std::opti
     refuse("target minus set is " + num(m.force_n, 1) + " N at " + num(m.speed_kmh, 1) +
            " km/h, beyond the vehicle-loss limit of ±" + num(limits.max_vehicle_loss_n) + " N" + range);
   if (previous)
-    if (const CurvePoint m = max_abs_on(next - *previous, 0.0, top); std::abs(m.force_n) > limits.max_step_n)
+    if (const CurvePoint m = max_abs_on(next - *previous, 0.0, top);
+        std::abs(m.force_n) > limits.max_step_n) {
+      out.step_refused = true;
       refuse("the setting would change by " + num(m.force_n, 1) + " N at " + num(m.speed_kmh, 1) +
              " km/h since the last write, beyond the step limit of ±" + num(limits.max_step_n) + " N" +
              range);
+    }
   return out;
 }
 

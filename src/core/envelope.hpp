@@ -74,6 +74,7 @@ Problems check_target(const RoadLoad& target, std::span<const double> reference_
 struct SetCheck {
   bool ok = true;
   std::string why;
+  bool step_refused = false;  // the step limit is among the bounds broken
 };
 SetCheck check_set(const RoadLoad& next, const RoadLoad& target, const std::optional<RoadLoad>& previous,
                    const EnvelopeLimits& limits);

@@ -9,6 +9,7 @@
 #include "record/event_log.hpp"
 #include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
+#include "record/sha256.hpp"
 
 namespace loadtrim::record {
 
@@ -16,7 +17,11 @@ namespace fs = std::filesystem;
 
 std::string vehicle_history_file(const std::string& dir, const std::string& cell_name,
                                  const std::string& vehicle_id) {
-  return (fs::path(dir) / identity_name(cell_name) / (identity_name(vehicle_id) + ".json")).string();
+  // An id a file name holds as it is keeps its name; any other gets a short hash of it after "~", a character
+  // safe_name never keeps, so no id's name can be another's.
+  const std::string safe = safe_name(vehicle_id);
+  const std::string name = safe == vehicle_id ? safe : safe + "~" + sha256_hex(vehicle_id).substr(0, 8);
+  return (fs::path(dir) / identity_name(cell_name) / (name + ".json")).string();
 }
 
 std::string vehicle_history_file_to_read(const std::string& dir, const std::string& cell_name,

@@ -16,9 +16,9 @@
 
 namespace loadtrim::record {
 
-// The file of a vehicle on a cell under the history folder `dir`, named as the cell's folder is
-// (identity_name: two ids that differ only in characters a file name cannot hold get two files). Written
-// there.
+// The file of a vehicle on a cell under the history folder `dir`: the id itself when a file name holds it,
+// else its safe_name, "~" and a short hash of the id (two ids that differ only in characters a file name
+// cannot hold, or an id spelled like another's hashed name, get two files). Written there.
 std::string vehicle_history_file(const std::string& dir, const std::string& cell_name,
                                  const std::string& vehicle_id);
 // The file to read: the one above, or, when it does not exist, the name earlier versions wrote (safe_name,

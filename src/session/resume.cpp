@@ -23,6 +23,7 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         p.have_next_set = true;
       } else if (type == "set_written") {
         p.iterations = std::max(p.iterations, r.value("iteration", 0));
+        p.last_written = road_load_from_json(r.at("set"));
       } else if (type == "resumed") {
         pending
             .reset();  // a run this resume found half-recorded is discarded: it is not discarded again later

@@ -35,6 +35,8 @@ struct ResumePoint {
   std::optional<core::RoadLoad> final_set;  // as the decision gave it (not yet rounded)
   bool finished_recorded = false;  // the final "finished" record (and summary.json) is already written
   int iterations = 0;              // distinct settings written
+  std::optional<core::RoadLoad>
+      last_written;  // the last set_written record's setting (the step limit's base)
   // For each "passes_reset" record, how many "coastdown" records came before it: where the session gave up
   // its consecutive passes (a discarded or unusable run, a pause, a setting adjusted after a pass), for the
   // replay.
@@ -53,8 +55,8 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records);
 std::optional<std::string> missing_adjustment(const ResumePoint& rp, const core::Profile& profile);
 // Replays the setting method over the completed coast-downs as the session took them: each usable run's
 // verdict, the passes the session gave up where its log says so, and a setting changed after a pass (the
-// next-pass rule, docs/standards.md §3.19; the setting for the vehicle fully warm, §3.18), after which no pass
-// counts. So the passes a resume finds in hand are the ones the session had.
+// next-pass rule, docs/standards.md §3.19; the setting for the vehicle fully warm, §3.18), after which no
+// pass counts. So the passes a resume finds in hand are the ones the session had.
 void replay_method(const ResumePoint& p, core::SettingMethodState& method);
 // The summary of a session whose verdict the record already holds (ResumePoint::verdict), from the record
 // alone.

@@ -348,7 +348,14 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
   // One continuous motoring period (the cell's limits.max_motoring_s): it starts when the rollers start from
   // standstill, not again at a re-warm they never stopped for (a late first coast-down's).
-  if (t_motoring_from_ < 0.0) t_motoring_from_ = t_now_;
+  if (t_motoring_from_ < 0.0)
+    t_motoring_from_ = t_now_;
+  else if (t_now_ - t_motoring_from_ + duration_s > in_.cell.max_motoring_s)
+    // A re-warm within the period (the late first coast-down's) that the limit would cut short: not begun.
+    return Stop{Outcome::not_accepted, "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) +
+                                           " s would be reached in the re-warm (" +
+                                           num(t_now_ - t_motoring_from_, 0) + " s of the period used, " +
+                                           num(duration_s, 0) + " s of re-warm asked)"};
   warm_from_s_ = t_now_;
   if (drift_t0_ < 0.0) drift_t0_ = t_now_;
   // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
@@ -567,14 +574,19 @@ void Session::judge_warm_acceptance(int run, CoastdownRecord& rec) {
                         num(d.curve.remaining_drift_n(d.t_s), 1) + " N at the warm-up speed (threshold " +
                         num(w.drift_threshold_n, 1) + " N; warm-up curve time constant " +
                         num(d.curve.tau_s, 0) + " s); the profile's warm_up.drift_rule is \"warn\"");
-  } else if (require && !d.curve.ok) {
+  }
+  if (require && !d.curve.ok) {
     // The lab asked for a vehicle warm at acceptance and the warming could not be judged (too few windows
-    // since the last stand, a poor fit): accepted as the standard accepts, and said (docs/standards.md
-    // §3.12).
-    findings_.push_back(
+    // since the last stand, a poor fit): accepted as the standard accepts, and said once (docs/standards.md
+    // §3.12), with the fully-warm check's own finding when that was not made for the same reason.
+    const std::string f =
         "the drift rule \"require\" could not be applied at acceptance: the warming was not "
         "estimated (" +
-        d.curve.why + ")");
+        d.curve.why + ")";
+    if (warm_action == WarmAction::finding && !findings_.empty() && findings_.back() == warm_why)
+      findings_.back() = f + "; " + warm_why;
+    else
+      findings_.push_back(f);
   }
 }
 
@@ -872,20 +884,30 @@ std::optional<Session::Stop> Session::do_run(int run) {
   };
   run_from_s_ = t_now_;
   transition(State::write_set, "coast-down " + std::to_string(run));
+  // One continuous motoring period at most the cell's limit: no setting is written once it is used up.
+  if (t_motoring_from_ >= 0.0 && t_now_ - t_motoring_from_ > in_.cell.max_motoring_s)
+    return Stop{Outcome::not_accepted,
+                "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) + " s was reached"};
   // The envelope, before anything is written: a setting that would ask the dyno for more than the cell
   // allows, or that has run away from the target, is never sent.
   if (const core::SetCheck chk = core::check_set(set_, in_.vehicle.target, last_written_, opt_.envelope);
       !chk.ok) {
     emit(ev::EnvelopeRefused{run, set_, chk.why});
     // The first adjustment is the error of the first setting's loss estimate (core/envelope.hpp): a step too
-    // large there most often means a vehicle unlike the one that estimate assumed.
-    const std::string cause = iterations_ == 1
-                                  ? "the first setting was far from this vehicle's loss on the rollers (set "
-                                    "a closer first setting: "
-                                    "a target file's initial set, or another first-setting strategy), or the "
-                                    "measurement is wrong, or "
-                                    "the controller does not follow the setting"
-                                  : "the controller does not follow the setting or the measurement is wrong";
+    // large there most often means a vehicle unlike the one that estimate assumed. Only for that step: the
+    // step limit broken, one setting written so far, and the setting the decision after it.
+    const bool first_adjustment = chk.step_refused && iterations_ == 1 && last_ && last_->evaluation.usable &&
+                                  last_->decision.kind == core::Decision::Kind::run_again &&
+                                  last_->decision.next_set == set_;
+    const std::string cause =
+        iterations_ == 0 ? "nothing has been measured yet: the first setting itself is outside it (check the "
+                           "target file's initial set and the cell's limits)"
+        : first_adjustment ? "the first setting was far from this vehicle's loss on the rollers (set a "
+                             "closer first setting: a "
+                             "target file's initial set, or another first-setting strategy), or the "
+                             "measurement is wrong, or "
+                             "the controller does not follow the setting"
+                           : "the controller does not follow the setting or the measurement is wrong";
     return Stop{Outcome::controller_fault,
                 "the next setting was not written: it leaves the safe envelope (" + chk.why + "); " + cause};
   }
@@ -893,9 +915,6 @@ std::optional<Session::Stop> Session::do_run(int run) {
   if (!last_written_ || !(*last_written_ == set_)) ++iterations_;
   last_written_ = set_;
   if (!emit(ev::SetWritten{run, set_, iterations_})) return Stop{Outcome::record_failure, record_error_};
-  if (t_motoring_from_ >= 0.0 && t_now_ - t_motoring_from_ > in_.cell.max_motoring_s)
-    return Stop{Outcome::not_accepted,
-                "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) + " s was reached"};
 
   transition(State::run_up);
   const double t_ru = t_now_;
@@ -1276,6 +1295,10 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     replay_method(*resume, *method_);
     for (const auto& r : resume->completed) run_no = std::max(run_no, r.at("run").get<int>() + 1);
     coastdowns_ = static_cast<int>(resume->completed.size());
+    // The settings written before, so that the first write after the resume meets the step limit against the
+    // last one the controller was given (and counts as an iteration only when it differs).
+    iterations_ = resume->iterations;
+    last_written_ = resume->last_written;
     unusable_ = resume->unusable;
     discarded_ = resume->discarded;
     run_no = std::max(run_no, resume->last_run + 1);

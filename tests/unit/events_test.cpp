@@ -26,6 +26,7 @@
 #include "record/event_log.hpp"
 #include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
+#include "record/sha256.hpp"
 #include "record/vehicle_history.hpp"
 #include "registry.hpp"
 #include "session/console.hpp"
@@ -671,12 +672,15 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
   std::string dir = (fs::temp_directory_path() / "loadtrim-history-XXXXXX").string();
   ASSERT_NE(::mkdtemp(dir.data()), nullptr);
   const std::string file = record::vehicle_history_file(dir, "cell (A)", "car/1");
-  // Named as the cell's folder is: "car/1" and "car_1" get two files (the earlier safe_name gave both
-  // "car_1.json"); an id a file name can hold keeps its name.
-  EXPECT_EQ(file,
-            (fs::path(dir) / record::identity_name("cell (A)") / (record::identity_name("car/1") + ".json"))
-                .string());
+  // "car/1" and "car_1" get two files (the earlier safe_name gave both "car_1.json"); an id a file name can
+  // hold keeps its name; an id spelled like another's hashed name gets its own (common practice, no source: a
+  // name that two ids can share is a collision waiting to happen).
+  EXPECT_EQ(file, (fs::path(dir) / record::identity_name("cell (A)") /
+                   ("car_1~" + record::sha256_hex("car/1").substr(0, 8) + ".json"))
+                      .string());
   EXPECT_NE(file, record::vehicle_history_file(dir, "cell (A)", "car_1"));
+  const std::string look_alike = fs::path(file).stem().string();  // "car_1~xxxxxxxx" as an id
+  EXPECT_NE(record::vehicle_history_file(dir, "cell (A)", look_alike), file);
   EXPECT_EQ(fs::path(record::vehicle_history_file(dir, "cell (A)", "car_1")).filename().string(),
             "car_1.json");
   {
@@ -691,6 +695,9 @@ TEST(Events, VehicleHistoryFileKeepsItsFormat) {
     EXPECT_FALSE(record::load_vehicle_history(record::vehicle_history_file_to_read(dir, "cell (A)", "car_1"),
                                               &e, "car_1"));
     EXPECT_NE(e.find("the entry is for vehicle \"car/1\", not \"car_1\""), std::string::npos) << e;
+    // Once the new name exists it is the one read, the earlier one left alone.
+    ASSERT_TRUE(record::save_vehicle_history(file, "car/1", "/s/new", {142.0, 0.35, 0.033}, kSet, e)) << e;
+    EXPECT_EQ(record::vehicle_history_file_to_read(dir, "cell (A)", "car/1"), file);
     fs::remove(legacy);
   }
   const core::RoadLoad target{142.0, 0.35, 0.033}, final_set = kSet;

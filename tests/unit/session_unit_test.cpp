@@ -290,6 +290,8 @@ TEST(SessionUnit, AReWarmWithoutAStopDoesNotRestartTheMotoringClock) {
   EXPECT_NE(sum.stop_reason.find("motoring-time limit"), std::string::npos) << sum.stop_reason;
   EXPECT_EQ(count(record, "coastdown_discarded"), 2)
       << "the first late run and one repeat; the next is not written";
+  EXPECT_EQ(count(record, "set_written"), 2) << "no setting written once the period is used up";
+  EXPECT_NE(sum.stop_reason.find("would be reached in the re-warm"), std::string::npos) << sum.stop_reason;
   EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
 }
 
@@ -459,6 +461,24 @@ TEST(SessionUnit, AFirstAdjustmentBeyondTheStepLimitNamesTheFirstSetting) {
   EXPECT_NE(sum.stop_reason.find("the first setting was far from this vehicle's loss"), std::string::npos)
       << sum.stop_reason;
   EXPECT_TRUE(sum.rollers_stopped);
+  // Control: a first adjustment refused by the vehicle-loss limit instead (|target − set| at most 1 N). A
+  // target file's initial set equal to the target (0 N from it) is written; the adjustment after the first
+  // coast-down takes the vehicle's loss off the target, far beyond 1 N: not the step limit, so the message
+  // does not name the first setting.
+  FakeController c2(loadtrim::testing::demo_truth());
+  session::Options o2 = options();
+  o2.envelope.max_vehicle_loss_n = 1.0;
+  session::Inputs in2 = inputs();
+  in2.vehicle.initial_set = in2.vehicle.target;
+  session::Session s2(in2, o2, c2, {});
+  const auto other = s2.run();
+  EXPECT_EQ(other.outcome, session::Outcome::controller_fault) << other.stop_reason;
+  EXPECT_NE(other.stop_reason.find("beyond the vehicle-loss limit"), std::string::npos) << other.stop_reason;
+  EXPECT_EQ(other.stop_reason.find("beyond the step limit"), std::string::npos) << other.stop_reason;
+  EXPECT_EQ(other.stop_reason.find("the first setting was far"), std::string::npos) << other.stop_reason;
+  EXPECT_NE(other.stop_reason.find("the controller does not follow the setting or the measurement is wrong"),
+            std::string::npos)
+      << other.stop_reason;
 }
 
 TEST(SessionUnit, ARequireThatCouldNotBeAppliedIsAFinding) {
@@ -486,9 +506,23 @@ TEST(SessionUnit, ARequireThatCouldNotBeAppliedIsAFinding) {
   EXPECT_NE(sum.findings[0].find("the drift rule \"require\" could not be applied at acceptance"),
             std::string::npos)
       << sum.findings[0];
+  // With the fully-warm check on (as shipped), the one finding says both: the rule and the check (docs/
+  // standards.md §3.18) could not be applied for the same reason.
+  FakeController c3(loadtrim::testing::demo_truth());
+  in.profile.warm_up.check_fully_warm = true;
+  session::Session s3(in, options(), c3, {});
+  const auto checked = s3.run();
+  EXPECT_EQ(checked.outcome, session::Outcome::accepted) << checked.stop_reason;
+  ASSERT_EQ(checked.findings.size(), 1u);
+  EXPECT_NE(checked.findings[0].find("the drift rule \"require\" could not be applied at acceptance"),
+            std::string::npos)
+      << checked.findings[0];
+  EXPECT_NE(checked.findings[0].find("the fully-warm check was not made"), std::string::npos)
+      << checked.findings[0];
   // With "warn" the same session carries no such finding (the rule asks nothing to be applied).
   FakeController c2(loadtrim::testing::demo_truth());
   in.profile.warm_up.drift_rule = core::WarmUp::DriftRule::warn;
+  in.profile.warm_up.check_fully_warm = false;
   session::Session s2(in, options(), c2, {});
   EXPECT_TRUE(s2.run().findings.empty());
 }
