@@ -1364,6 +1364,67 @@ bool entered(const session::Event& e, session::State s) {
 }
 }  // namespace
 
+namespace {
+// Stamps (controller clock) of one session of the demo truth paused in the coast-down after the first
+// coast-down record and continued at once: the warm-ups' starts and the settings' writes.
+struct PausedTimes {
+  std::vector<double> warm_up_started, set_written;
+  session::Summary sum;
+};
+PausedTimes run_paused(double max_motoring_s);
+}  // namespace
+
+TEST(SessionUnit, APauseStartsANewMotoringPeriod) {
+  // The cell's limits.max_motoring_s is one continuous motoring period (common practice, no source); a pause
+  // stops the rollers (docs/safety.md), so the period starts again at the re-warm. A limit just long enough
+  // for each part alone accepts the session; counted from the first warm-up, its last write would be refused.
+  const PausedTimes free = run_paused(1e6);
+  ASSERT_EQ(free.sum.outcome, session::Outcome::accepted) << free.sum.stop_reason;
+  ASSERT_EQ(free.warm_up_started.size(), 2u);
+  double before = 0.0, after = 0.0;
+  for (double t : free.set_written) {
+    const int part = t < free.warm_up_started[1] ? 0 : 1;  // before the pause, or after the continue
+    double& longest = part == 0 ? before : after;
+    longest = std::max(longest, t - free.warm_up_started[part]);
+  }
+  ASSERT_GT(after, 0.0) << "a setting is written after the continue";
+  // At least the planned motoring (the combination's check) and the re-warm (the profile's warm-up, asked in
+  // full after a pause); 1 s beyond the longest part.
+  const double limit = std::max({before, after, core::planned_motoring_s(inputs().profile),
+                                 inputs().profile.warm_up.duration_s}) +
+                       1.0;
+  ASSERT_GT(free.set_written.back() - free.warm_up_started[0], limit)
+      << "counted from the first warm-up the last write would be beyond the limit (the test's premise)";
+  const PausedTimes tight = run_paused(limit);
+  EXPECT_EQ(tight.sum.outcome, session::Outcome::accepted) << tight.sum.stop_reason;
+  EXPECT_EQ(tight.set_written.size(), free.set_written.size());
+}
+
+namespace {
+PausedTimes run_paused(double max_motoring_s) {
+  PausedTimes out;
+  FakeController c(loadtrim::testing::demo_truth());
+  PauseScript ps;
+  bool analysed = false;
+  ps.when = [&](const session::Event& e) { return analysed && entered(e, session::State::coast_down); };
+  Hook hook([&](const session::Event& e) {
+    if (std::holds_alternative<session::ev::Coastdown>(e.payload)) analysed = true;
+    ps.on(e);
+    if (!e.stamp || !e.stamp->t_s) return;
+    if (std::holds_alternative<session::ev::WarmUpStarted>(e.payload))
+      out.warm_up_started.push_back(*e.stamp->t_s);
+    if (std::holds_alternative<session::ev::SetWritten>(e.payload)) out.set_written.push_back(*e.stamp->t_s);
+  });
+  session::Inputs in = inputs();
+  in.cell.max_motoring_s = max_motoring_s;
+  session::Options o = options();
+  o.pause = &ps.control;
+  session::Session s(in, o, c, {&hook});
+  out.sum = s.run();
+  return out;
+}
+}  // namespace
+
 TEST(SessionUnit, APauseDuringACoastDownStopsTheRollersAndTheContinuedSessionIsAccepted) {
   // The pause contract (docs/session.md "Pause and continue"): the run in progress is discarded, the rollers
   // are stopped to standstill before the wait, and after the continue the vehicle is re-warmed and the pass
@@ -2206,8 +2267,9 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
       << roomy.runs[0].decision.next_pass->not_adjusted_why;
   // A resume after an adjusted pass finds no pass in hand, as the session had none (GTR 15 §8.1.3.4.2, two
   // consecutive passes at one setting): it writes no passes_reset of its own (the replay of the verdicts
-  // alone found one pass and wrote a count of 1). Stopped by the operator right after the adjusted pass.
-  {
+  // alone found one pass and wrote a count of 1). Stopped by the operator right after the pass; the control,
+  // the same pass coasted on (no prediction), is resumed with its one pass reset (the count 1).
+  auto resume_after_first_pass = [&](bool predict, std::vector<session::ev::PassesReset>& resume_resets) {
     namespace fs = std::filesystem;
     std::string dir = (fs::temp_directory_path() / "loadtrim-nextpass-resume-XXXXXX").string();
     ASSERT_TRUE(::mkdtemp(dir.data()));
@@ -2215,16 +2277,17 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     fs::create_directories(folder);
     session::Inputs in = long_warm_up_inputs();
     in.profile.warm_up.anticipate_drift = true;
-    in.profile.warm_up.predict_next_pass = true;
+    in.profile.warm_up.predict_next_pass = predict;
     in.profile.warm_up.next_pass_risk = 0.5;
     in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;
     in.vehicle.initial_set = low;
     std::atomic<bool> stop{false};
-    bool adjusted_pass = false;
+    bool passed = false, adjusted = false;
     Hook stopper([&](const session::Event& e) {
       if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload);
-          d && d->record.decision.next_pass && d->record.decision.next_pass->adjusted) {
-        adjusted_pass = true;
+          d && d->record.evaluation.check.pass && !stop) {
+        passed = true;
+        adjusted = d->record.decision.next_pass && d->record.decision.next_pass->adjusted;
         stop = true;
       }
     });
@@ -2233,7 +2296,8 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
       session::RecordWriter writer(folder);
       session::Session s1(in, options(), c1, {&writer, &stopper}, &stop);
       const auto first_part = s1.run();
-      ASSERT_TRUE(adjusted_pass) << first_part.stop_reason;
+      ASSERT_TRUE(passed) << first_part.stop_reason;
+      ASSERT_EQ(adjusted, predict) << "the rule adjusts this pass, coasting on keeps it";
       ASSERT_EQ(first_part.outcome, session::Outcome::interrupted) << first_part.stop_reason;
     }
     std::vector<nlohmann::json> records;
@@ -2244,17 +2308,22 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     const session::ResumePoint rp = session::resume_point(records);
     ASSERT_EQ(rp.malformed, 0) << rp.malformed_note;
     ASSERT_EQ(rp.completed.size(), 1u);
-    std::vector<session::ev::PassesReset> resume_resets;
     Hook seen([&](const session::Event& e) {
-      if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload)) resume_resets.push_back(*r);
+      if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload);
+          r && r->why.find("the session stopped and was resumed") != std::string::npos)
+        resume_resets.push_back(*r);
     });
     FakeController c2(truth);
     session::Session s2(in, options(), c2, {&seen});
     const auto rest = s2.run(&rp);
-    for (const auto& r : resume_resets)
-      EXPECT_EQ(r.why.find("the session stopped and was resumed"), std::string::npos)
-          << "a resume found " << r.passes << " pass(es) in hand after an adjusted pass";
-    EXPECT_EQ(rest.outcome, session::Outcome::accepted) << rest.stop_reason;
+    EXPECT_NE(rest.outcome, session::Outcome::refused) << rest.stop_reason;
     fs::remove_all(dir);
-  }
+  };
+  std::vector<session::ev::PassesReset> after_adjusted, after_kept;
+  resume_after_first_pass(true, after_adjusted);
+  EXPECT_TRUE(after_adjusted.empty())
+      << "a resume found " << after_adjusted.front().passes << " pass(es) in hand after an adjusted pass";
+  resume_after_first_pass(false, after_kept);
+  ASSERT_EQ(after_kept.size(), 1u) << "the control: the pass coasted on is in hand when the session stops";
+  EXPECT_EQ(after_kept[0].passes, 1);
 }
