@@ -584,7 +584,7 @@ void Session::judge_warm_acceptance(int run, CoastdownRecord& rec) {
         "estimated (" +
         d.curve.why + ")";
     if (warm_action == WarmAction::finding && !findings_.empty() && findings_.back() == warm_why)
-      findings_.back() = f + "; " + warm_why;
+      findings_.back() = warm_why + "; " + f;
     else
       findings_.push_back(f);
   }
