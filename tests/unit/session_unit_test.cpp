@@ -1976,7 +1976,9 @@ TEST(SessionUnit, AResumeFindsThePassesTheSessionHad) {
   auto passes_after = [](const std::vector<nlohmann::json>& records) {
     const session::ResumePoint rp = session::resume_point(records);
     EXPECT_EQ(rp.malformed, 0) << rp.malformed_note;
-    core::SettingMethodState method(inputs().profile, inputs().vehicle.target);
+    // The method keeps references to its profile and target: the inputs outlive it.
+    const session::Inputs in = inputs();
+    core::SettingMethodState method(in.profile, in.vehicle.target);
     session::replay_method(rp, method);
     return method.consecutive_passes();
   };
