@@ -54,7 +54,7 @@ std::string positive_up_to(const char* what, double v, double most, const char* 
 // "" when the curve is finite and |F(v)| ≤ kMaxForceN from standstill to the speed limit (200 km/h when none
 // is configured: common practice, no source).
 std::string plausible_curve(const core::RoadLoad& c, double max_speed_kmh) {
-  if (!std::isfinite(c.f0_n) || !std::isfinite(c.f1_n_per_kmh) || !std::isfinite(c.f2_n_per_kmh2))
+  if (!c.finite())
     return "coefficients (" + num(c.f0_n) + ", " + num(c.f1_n_per_kmh) + ", " + num(c.f2_n_per_kmh2) +
            ") are not finite";
   const double top = max_speed_kmh > 0.0 ? max_speed_kmh : 200.0;
@@ -178,8 +178,7 @@ Result Controller::set_inertia(double kg) {
 
 Result Controller::set_coefficients(const core::RoadLoad& c) {
   return guarded("set coefficients", [&] {
-    if (!std::isfinite(c.f0_n) || !std::isfinite(c.f1_n_per_kmh) || !std::isfinite(c.f2_n_per_kmh2))
-      return Result::fail("coefficients are not finite");
+    if (!c.finite()) return Result::fail("coefficients are not finite");
     if (Result r = do_write_coefficients(c, reply_deadline()); !r.ok()) return r;
     core::RoadLoad back;
     if (Result r = do_read_coefficients(back, reply_deadline()); !r.ok()) return r;

@@ -10,9 +10,6 @@ namespace loadtrim::core {
 
 namespace {
 
-bool finite(const RoadLoad& c) {
-  return std::isfinite(c.f0_n) && std::isfinite(c.f1_n_per_kmh) && std::isfinite(c.f2_n_per_kmh2);
-}
 bool positive(double x) {
   return std::isfinite(x) && x > 0.0;
 }
@@ -99,7 +96,7 @@ Problems check_target(const RoadLoad& target, std::span<const double> reference_
   auto warn = [&](std::string key, std::string msg) {
     ps.push_back({Problem::Severity::warning, std::move(key), std::move(msg)});
   };
-  if (!finite(target)) {
+  if (!target.finite()) {
     err("target", "coefficients must be finite numbers");
     return ps;
   }
@@ -161,12 +158,12 @@ SetCheck check_set(const RoadLoad& next, const RoadLoad& target, const std::opti
     out.ok = false;
     out.why += (out.why.empty() ? "" : "; ") + why;
   };
-  if (!finite(next)) {
+  if (!next.finite()) {
     refuse("the set coefficients are not finite numbers (f0 " + num(next.f0_n) + " N, f1 " +
            num(next.f1_n_per_kmh) + " N/(km/h), f2 " + num(next.f2_n_per_kmh2) + " N/(km/h)²)");
     return out;
   }
-  if (!finite(target) || (previous && !finite(*previous))) {
+  if (!target.finite() || (previous && !previous->finite())) {
     refuse("the target or the previous setting is not finite: the new setting cannot be checked");
     return out;
   }
@@ -212,7 +209,7 @@ DivergenceWatch::DivergenceWatch(double tolerance_n, double lowest_speed_kmh, do
 void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, const RoadLoad& measured,
                           double worst_abs_deviation_n) {
   if (verdict_) return;
-  if (!finite(measured)) {
+  if (!measured.finite()) {
     verdict_ = "the controller does not follow the setting: a non-finite measured curve was reported";
     return;
   }
@@ -247,7 +244,7 @@ void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, const Roa
 
 void DivergenceWatch::add(const RoadLoad& set, const RoadLoad& target, double worst_abs_deviation_n) {
   if (verdict_) return;
-  if (!finite(set) || !finite(target) || !std::isfinite(worst_abs_deviation_n)) {
+  if (!set.finite() || !target.finite() || !std::isfinite(worst_abs_deviation_n)) {
     verdict_ = "the controller does not follow the setting: a non-finite setting, target or deviation (" +
                num(worst_abs_deviation_n) + " N) was reported";
     return;

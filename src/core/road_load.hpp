@@ -3,6 +3,7 @@
 // (40 CFR 1066.210); conversions use the exact NIST SP 811 factors. Pure value types, no I/O.
 #pragma once
 
+#include <cmath>
 #include <span>
 #include <vector>
 
@@ -27,6 +28,10 @@ struct RoadLoad {
     return {f0_n - o.f0_n, f1_n_per_kmh - o.f1_n_per_kmh, f2_n_per_kmh2 - o.f2_n_per_kmh2};
   }
   RoadLoad scaled(double k) const { return {f0_n * k, f1_n_per_kmh * k, f2_n_per_kmh2 * k}; }
+  // Every coefficient a finite number.
+  bool finite() const {
+    return std::isfinite(f0_n) && std::isfinite(f1_n_per_kmh) && std::isfinite(f2_n_per_kmh2);
+  }
   bool operator==(const RoadLoad&) const = default;
 };
 

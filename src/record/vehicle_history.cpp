@@ -15,31 +15,31 @@ namespace loadtrim::record {
 
 namespace fs = std::filesystem;
 
+namespace {
+
+// The file named `name` in the cell's folder under the history folder `dir`.
+std::string in_cell_folder(const std::string& dir, const std::string& cell_name, const std::string& name) {
+  return (fs::path(dir) / identity_name(cell_name) / (name + ".json")).string();
+}
+
+}  // namespace
+
 std::string vehicle_history_file(const std::string& dir, const std::string& cell_name,
                                  const std::string& vehicle_id) {
   // An id a file name holds as it is keeps its name; any other gets a short hash of it after "~", a character
   // safe_name never keeps, so no id's name can be another's.
   const std::string safe = safe_name(vehicle_id);
-  const std::string name = safe == vehicle_id ? safe : safe + "~" + sha256_hex(vehicle_id).substr(0, 8);
-  return (fs::path(dir) / identity_name(cell_name) / (name + ".json")).string();
+  return in_cell_folder(dir, cell_name,
+                        safe == vehicle_id ? safe : safe + "~" + sha256_hex(vehicle_id).substr(0, 8));
 }
 
 std::string vehicle_history_file_to_read(const std::string& dir, const std::string& cell_name,
                                          const std::string& vehicle_id) {
   const std::string now = vehicle_history_file(dir, cell_name, vehicle_id);
-  const std::string before =
-      (fs::path(dir) / identity_name(cell_name) / (safe_name(vehicle_id) + ".json")).string();
+  const std::string before = in_cell_folder(dir, cell_name, safe_name(vehicle_id));
   std::error_code ec;
   return !fs::exists(now, ec) && fs::exists(before, ec) ? before : now;
 }
-
-namespace {
-
-bool finite(const core::RoadLoad& c) {
-  return std::isfinite(c.f0_n) && std::isfinite(c.f1_n_per_kmh) && std::isfinite(c.f2_n_per_kmh2);
-}
-
-}  // namespace
 
 std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, std::string* error,
                                                        const std::string& vehicle_id) {
@@ -61,21 +61,22 @@ std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, 
     h.target = road_load_from_json(j.at("target"));
     h.final_set = road_load_from_json(j.at("final_set"));
     if (j.contains("measured")) h.measured = road_load_from_json(j.at("measured"));
-    // JSON holds no infinity, but two huge finite values can make one: each difference is checked too.
-    const core::RoadLoad none{};
-    for (const core::RoadLoad& c : {h.target, h.final_set, h.measured ? *h.measured : none,
-                                    h.target - h.final_set, h.measured ? *h.measured - h.final_set : none})
-      if (!finite(c)) return refuse("a coefficient, or a loss computed from them, is not a finite number");
+    // The losses the entry gives (a file without "measured" gives none from it).
+    const std::pair<const char*, core::RoadLoad> losses[] = {
+        {"target − final set", h.target - h.final_set},
+        {"measured − final set", h.measured ? *h.measured - h.final_set : core::RoadLoad{}}};
+    // JSON holds no infinity, but two huge finite values can make one: each loss is checked too.
+    for (const core::RoadLoad& c :
+         {h.target, h.final_set, h.measured.value_or(core::RoadLoad{}), losses[0].second, losses[1].second})
+      if (!c.finite()) return refuse("a coefficient, or a loss computed from them, is not a finite number");
     // The same limit the envelope puts on every setting written (docs/safety.md): a loss no credible vehicle
     // has is a damaged or foreign file, not an estimate.
     const double limit_n = core::EnvelopeLimits{}.max_vehicle_loss_n;
-    for (const auto& [name, loss] :
-         {std::pair{"target − final set", h.target - h.final_set},
-          std::pair{"measured − final set", h.measured ? *h.measured - h.final_set : core::RoadLoad{}}})
+    for (const auto& [name, loss] : losses)
       if (const core::CurvePoint m = core::max_abs_on(loss, 0.0, 130.0); !(std::abs(m.force_n) <= limit_n))
-        return refuse(std::string("its loss (") + name + ") is " + std::to_string(m.force_n) + " N at " +
-                      std::to_string(m.speed_kmh) + " km/h, beyond the vehicle-loss limit of ±" +
-                      std::to_string(limit_n) + " N");
+        return refuse(std::string("its loss (") + name + ") is " + core::num(m.force_n) + " N at " +
+                      core::num(m.speed_kmh) + " km/h, beyond the vehicle-loss limit of ±" +
+                      core::num(limit_n) + " N");
     if (j.contains("warm_up")) h.warm_up = warm_up_from_json(j.at("warm_up"));
     return h;
   } catch (const std::exception& e) {
