@@ -489,6 +489,13 @@ void Session::judge_warm_acceptance(int run, CoastdownRecord& rec) {
                     "",
                     std::nullopt};
   const bool warming = d.curve.ok && !(d.curve.remaining_drift_n(d.t_s) <= w.drift_threshold_n);
+  // The lab asked for a vehicle warm at acceptance and the warming could not be judged (too few windows since
+  // the last stand, a poor fit): accepted as the standard accepts, and said once (docs/standards.md §3.12).
+  const std::string not_applied =
+      require && !d.curve.ok
+          ? "the drift rule \"require\" could not be applied at acceptance: the warming was not estimated (" +
+                d.curve.why + ")"
+          : std::string();
   // Settled: is the setting still within tolerance once the vehicle is fully warm (docs/standards.md
   // §3.18)? The deviations are the acceptance's, the loss the adjustment's (§3.17), both of this
   // coast-down, so the change still to come is taken from its middle.
@@ -562,7 +569,7 @@ void Session::judge_warm_acceptance(int run, CoastdownRecord& rec) {
     rec.decision.reason += "; but " + d.fully_warm->why + ", " + warm_why +
                            " and no coast-down is left (the drift rule \"require\"): not accepted";
   } else if (warm_action == WarmAction::finding) {
-    findings_.push_back(warm_why);
+    findings_.push_back(not_applied.empty() ? warm_why : warm_why + "; " + not_applied);
   } else if (warming && require) {
     rec.decision.kind = core::Decision::Kind::run_again;
     rec.decision.reason += "; but the vehicle is still warming (estimated remaining drift " +
@@ -575,19 +582,8 @@ void Session::judge_warm_acceptance(int run, CoastdownRecord& rec) {
                         num(w.drift_threshold_n, 1) + " N; warm-up curve time constant " +
                         num(d.curve.tau_s, 0) + " s); the profile's warm_up.drift_rule is \"warn\"");
   }
-  if (require && !d.curve.ok) {
-    // The lab asked for a vehicle warm at acceptance and the warming could not be judged (too few windows
-    // since the last stand, a poor fit): accepted as the standard accepts, and said once (docs/standards.md
-    // §3.12), with the fully-warm check's own finding when that was not made for the same reason.
-    const std::string f =
-        "the drift rule \"require\" could not be applied at acceptance: the warming was not "
-        "estimated (" +
-        d.curve.why + ")";
-    if (warm_action == WarmAction::finding && !findings_.empty() && findings_.back() == warm_why)
-      findings_.back() = warm_why + "; " + f;
-    else
-      findings_.push_back(f);
-  }
+  // The fully-warm check's finding above carries it when that was not made either.
+  if (!not_applied.empty() && warm_action != WarmAction::finding) findings_.push_back(not_applied);
 }
 
 void Session::judge_next_pass(int run, CoastdownRecord& rec, const core::WarmingOutlook& outlook) {
@@ -899,15 +895,16 @@ std::optional<Session::Stop> Session::do_run(int run) {
     const bool first_adjustment = chk.step_refused && iterations_ == 1 && last_ && last_->evaluation.usable &&
                                   last_->decision.kind == core::Decision::Kind::run_again &&
                                   last_->decision.next_set == set_;
-    const std::string cause =
-        iterations_ == 0 ? "nothing has been measured yet: the first setting itself is outside it (check the "
-                           "target file's initial set and the cell's limits)"
-        : first_adjustment ? "the first setting was far from this vehicle's loss on the rollers (set a "
-                             "closer first setting: a "
-                             "target file's initial set, or another first-setting strategy), or the "
-                             "measurement is wrong, or "
-                             "the controller does not follow the setting"
-                           : "the controller does not follow the setting or the measurement is wrong";
+    const std::string cause = iterations_ == 0 ? "nothing has been measured yet: the first setting itself is "
+                                                 "outside it (check the target file's "
+                                                 "initial set and the cell's limits)"
+                              : first_adjustment
+                                  ? "the first setting was far from this vehicle's loss on the rollers (set "
+                                    "a closer first setting: a "
+                                    "target file's initial set, or another first-setting strategy), or the "
+                                    "measurement is wrong, or "
+                                    "the controller does not follow the setting"
+                                  : "the controller does not follow the setting or the measurement is wrong";
     return Stop{Outcome::controller_fault,
                 "the next setting was not written: it leaves the safe envelope (" + chk.why + "); " + cause};
   }
@@ -1101,9 +1098,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
     cycle_s_ = cycle_measured_ ? t_now_ - previous_end : std::max(0.0, rec.run_up_s) + rec.duration_s;
     if (anticipate) {
       const double mid = rec.release_time_s + 0.5 * rec.duration_s;
-      const double cycle = cycle_s_;
-      outlook = warming_outlook(mid, mid + cycle);
-      outlook.cycle_s = cycle;  // the coast-downs after the next (warm_up.anticipate_for = "passes")
+      outlook = warming_outlook(mid, mid + cycle_s_);
+      outlook.cycle_s = cycle_s_;  // the coast-downs after the next (warm_up.anticipate_for = "passes")
     }
     // The acceptance is the band regression's (check.pass); the loss an adjustment takes off comes from the
     // profile's estimate (method.adjust_from, docs/standards.md §3.17).
@@ -1293,7 +1289,6 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
   if (resume) {
     cell_time_before_ = resume->cell_time_s;
     replay_method(*resume, *method_);
-    for (const auto& r : resume->completed) run_no = std::max(run_no, r.at("run").get<int>() + 1);
     coastdowns_ = static_cast<int>(resume->completed.size());
     // The settings written before, so that the first write after the resume meets the step limit against the
     // last one the controller was given (and counts as an iteration only when it differs).

@@ -129,8 +129,8 @@ class Session {
   std::optional<Stop> do_run(int run);  // write_set → run_up → coast_down → analyse
   // After a pass that is not yet the last in a row (warm_up.predict_next_pass, docs/standards.md §3.19): the
   // next coast-down predicted; when the warming will likely take it outside and the adjusted setting is
-  // likelier to pass, the setting is adjusted now and the passes start again, unless too few coast-downs are
-  // left or the envelope refuses it (it coasts on, said in rec.decision).
+  // likelier to pass, the setting is adjusted now and the passes start again, unless too few coast-downs or
+  // too little motoring time are left or the envelope refuses it (it coasts on, said in rec.decision).
   void judge_next_pass(int run, CoastdownRecord& rec, const core::WarmingOutlook& outlook);
   // A setting about to be accepted (docs/standards.md §3.12, §3.18): the warming still to come judged by the
   // drift rule (recorded as warm_up_drift), and a settled vehicle's setting once fully warm; rec.decision may
@@ -146,8 +146,6 @@ class Session {
   // Why a new setting could not pass the consecutive passes (the coast-down limit, or the cell's motoring
   // time at the last measured cycle); empty when it could. `what` names the setting in the sentence.
   std::string room_for_passes(const std::string& what) const;
-  double cycle_s_ = 0.0;         // the last coast-down's cycle (end to end, or its run-up and coast), s
-  bool cycle_measured_ = false;  // cycle_s_ measured end to end (the run followed one of the same warm-up)
   bool pause_asked() const { return opt_.pause && opt_.pause->flag().load(); }
   // Clears the driver display when a prompt may still show (every way out of a vehicle run-up, the safe stop,
   // a pause); the record says whether the controller took it. Never throws; false when it could not.
@@ -190,8 +188,10 @@ class Session {
   core::WarmingOutlook warming_outlook(double now_abs_s, double next_abs_s) const;
   double map_from_s_ = -1.0, map_to_s_ = -2.0;  // the loss map's span on the controller's clock
   std::vector<core::CoastPoint>
-      coast_points_;  // the coasts between the map's holds (loss_map.coast_between_holds)
-  int run_ = 0;       // the run in progress or last run (0 before the first)
+      coast_points_;             // the coasts between the map's holds (loss_map.coast_between_holds)
+  int run_ = 0;                  // the run in progress or last run (0 before the first)
+  double cycle_s_ = 0.0;         // the last coast-down's cycle (end to end, or its run-up and coast), s
+  bool cycle_measured_ = false;  // cycle_s_ measured end to end (the run followed one of the same warm-up)
   // For the progress line's estimate: the warm-up being held (its length and start) and the run's start.
   double warm_asked_s_ = -1.0, warm_from_s_ = -1.0, run_from_s_ = -1.0;
   int coastdowns_ = 0, unusable_ = 0, discarded_ = 0, link_losses_ = 0, iterations_ = 0;
