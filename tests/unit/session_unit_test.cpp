@@ -2211,17 +2211,21 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   ASSERT_TRUE(three.runs[0].decision.next_pass.has_value());
   EXPECT_TRUE(three.runs[0].decision.next_pass->adjusted)
       << three.runs[0].decision.next_pass->not_adjusted_why;
+  // A first pass likely to fail that is not adjusted: the session coasts on at its setting, and the record
+  // says why (the part of not_adjusted_why given).
+  auto expect_coasts_on = [](const Seen& s, const std::string& why) {
+    ASSERT_FALSE(s.runs.empty()) << s.sum.stop_reason;
+    ASSERT_TRUE(s.runs[0].decision.next_pass.has_value());
+    const core::NextPassOutlook& np = *s.runs[0].decision.next_pass;
+    EXPECT_TRUE(np.likely_to_fail);
+    EXPECT_FALSE(np.adjusted);
+    EXPECT_NE(np.not_adjusted_why.find(why), std::string::npos) << np.not_adjusted_why;
+    EXPECT_TRUE(s.runs[0].decision.next_set == s.runs[0].set);
+  };
   // With two coast-downs allowed in all, an adjusted setting could not pass twice: the session coasts on at
   // the setting (its only chance), and the record says why.
   const Seen last = run(low, true, 2);
-  ASSERT_FALSE(last.runs.empty()) << last.sum.stop_reason;
-  ASSERT_TRUE(last.runs[0].decision.next_pass.has_value());
-  const core::NextPassOutlook& kept = *last.runs[0].decision.next_pass;
-  EXPECT_TRUE(kept.likely_to_fail);
-  EXPECT_FALSE(kept.adjusted);
-  EXPECT_NE(kept.not_adjusted_why.find("too few coast-downs are left"), std::string::npos)
-      << kept.not_adjusted_why;
-  EXPECT_TRUE(last.runs[0].decision.next_set == last.runs[0].set);
+  ASSERT_NO_FATAL_FAILURE(expect_coasts_on(last, "too few coast-downs are left"));
   EXPECT_TRUE(last.resets.empty());
   EXPECT_NE(last.runs[0].decision.reason.find("coasting on: too few coast-downs are left"), std::string::npos)
       << last.runs[0].decision.reason;
@@ -2233,15 +2237,8 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
                             .force_n;
   ASSERT_GT(std::abs(step_n), 1.0);
   const Seen fenced = run(low, true, 10, 1.0);
-  ASSERT_FALSE(fenced.runs.empty()) << fenced.sum.stop_reason;
-  ASSERT_TRUE(fenced.runs[0].decision.next_pass.has_value());
-  const core::NextPassOutlook& held = *fenced.runs[0].decision.next_pass;
-  EXPECT_TRUE(held.likely_to_fail);
-  EXPECT_FALSE(held.adjusted);
-  EXPECT_NE(held.not_adjusted_why.find("the adjusted setting leaves the safe envelope"), std::string::npos)
-      << held.not_adjusted_why;
-  EXPECT_NE(held.not_adjusted_why.find("step limit"), std::string::npos) << held.not_adjusted_why;
-  EXPECT_TRUE(fenced.runs[0].decision.next_set == fenced.runs[0].set);
+  ASSERT_NO_FATAL_FAILURE(expect_coasts_on(fenced, "the adjusted setting leaves the safe envelope"));
+  ASSERT_NO_FATAL_FAILURE(expect_coasts_on(fenced, "step limit"));
   EXPECT_TRUE(fenced.resets.empty() || fenced.resets[0].run != fenced.runs[0].run);
   // The cell's motoring-time limit (limits.max_motoring_s; the rule is lab policy, docs/standards.md §3.19,
   // the limit the cell's own, common practice, no source): each setting is written only within it, and the
@@ -2253,15 +2250,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   ASSERT_GT(cycle_s, 60.0);
   const double limit_s = b.coast_t[0] - b.warm_up_t + 0.5 * cycle_s;
   const Seen timed = run(low, true, 10, 0.0, limit_s);
-  ASSERT_FALSE(timed.runs.empty()) << timed.sum.stop_reason;
-  ASSERT_TRUE(timed.runs[0].decision.next_pass.has_value());
-  const core::NextPassOutlook& short_of_time = *timed.runs[0].decision.next_pass;
-  EXPECT_TRUE(short_of_time.likely_to_fail);
-  EXPECT_FALSE(short_of_time.adjusted);
-  EXPECT_NE(short_of_time.not_adjusted_why.find("too little of the cell's motoring time is left"),
-            std::string::npos)
-      << short_of_time.not_adjusted_why;
-  EXPECT_TRUE(timed.runs[0].decision.next_set == timed.runs[0].set);
+  ASSERT_NO_FATAL_FAILURE(expect_coasts_on(timed, "too little of the cell's motoring time is left"));
   // With a limit two cycles and more beyond, the same session adjusts as before.
   const Seen roomy = run(low, true, 10, 0.0, b.coast_t[0] - b.warm_up_t + 2.5 * cycle_s);
   ASSERT_FALSE(roomy.runs.empty()) << roomy.sum.stop_reason;
