@@ -42,9 +42,16 @@ std::optional<std::string> ClockGuard::close_window(double w) {
         v = "the controller's clock stopped: it read " + num(last_c_) + " s for " + num(dw, 1) +
             " s of wall time while samples arrived";
       else
+        // Either fast enough in this window but behind since (its lag on the wall grew past the allowance),
+        // or slower than the minimum rate now: the sentence gives both figures.
         v = "the controller's clock runs too slow: " + num(last_c_ - ref->c) + " s in " + num(dw, 1) +
             " s of wall time (" + num((last_c_ - ref->c) / dw) + "× real time; it stated " +
-            num(rules_.scale) + "×, at least " + num(rules_.min_rate * rules_.scale) + "× accepted)";
+            num(rules_.scale) + "×), and it has fallen " +
+            num((ref->max_offset - win_max_offset_) / scale, 2) +
+            " s of wall time behind the time it kept before, beyond the " +
+            num((ref->max_offset - floor) / scale, 2) + " s accepted (at least " +
+            num(rules_.min_rate * rules_.scale) + "× over " + num(dw, 1) + " s, plus " +
+            num(rules_.slack_wall_s) + " s)";
     }
   }
   checkpoints_.push_back({w, last_c_, max_offset_, samples_});

@@ -2,11 +2,16 @@
 
 #include <algorithm>
 
+#include "core/strategy.hpp"
+
 namespace loadtrim::core {
 
 double planned_motoring_s(const Profile& p) {
-  // The 30 s per loss-map speed is the allowance for the ramp between speeds.
-  return p.warm_up.duration_s + p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
+  // The period starts with the run-up from standstill (the session counts it: docs/safety.md): at the
+  // motoring rate, then the 2 s the session settles at the speed. The 30 s per loss-map speed is the
+  // allowance for the ramp between speeds.
+  return p.warm_up.speed_kmh / 3.6 / kHoldRampMps2 + 2.0 + p.warm_up.duration_s +
+         p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
          static_cast<double>(p.loss_map.speeds_kmh.size()) *
              (p.loss_map.settle_s + p.loss_map.average_s + 30.0);
 }

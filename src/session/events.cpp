@@ -211,7 +211,8 @@ struct Mapper {
   nlohmann::json operator()(const ev::WarmUpStarted& e) const {
     return {{"speed_kmh", e.speed_kmh},
             {"duration_s", e.duration_s},
-            {"loss_map_planned_s", e.loss_map_planned_s}};
+            {"loss_map_planned_s", e.loss_map_planned_s},
+            {"motoring_since_s", e.motoring_since_s}};
   }
   nlohmann::json operator()(const ev::WarmUpHeld& e) const {
     return {{"speed_kmh", e.speed_kmh},

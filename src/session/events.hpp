@@ -185,6 +185,9 @@ struct InertiaSet {  // "inertia" (always read back and matching: a mismatch is 
 };
 struct WarmUpStarted {  // "warm_up_started"
   double speed_kmh = 0.0, duration_s = 0.0, loss_map_planned_s = 0.0;
+  // When the continuous motoring period this warm-up belongs to began (controller clock; the first sample
+  // after the command that started the rollers): the cell's motoring-time limit counts from it.
+  double motoring_since_s = 0.0;
 };
 struct WarmUpHeld {  // "warm_up"
   double speed_kmh = 0.0, held_s = 0.0;

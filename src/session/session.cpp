@@ -98,6 +98,11 @@ bool Session::emit(Payload event, const std::vector<controller::Sample>* trace) 
 
 void Session::on_sample(const controller::Sample& s) {
   t_now_ = std::max(t_now_, s.time_s);
+  // The motoring period starts with the first sample read after the command that started the rollers.
+  if (motoring_epoch_ && s.epoch > *motoring_epoch_) {
+    t_motoring_from_ = s.time_s;
+    motoring_epoch_.reset();
+  }
   if (t_start_ < 0.0) t_start_ = s.time_s;
   if (s.time_s - last_progress_s_ < 0.5) return;
   last_progress_s_ = s.time_s;
@@ -345,17 +350,22 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
     }
     return Session::fault(r, during);
   };
-  if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
   // One continuous motoring period (the cell's limits.max_motoring_s): it starts when the rollers start from
-  // standstill, not again at a re-warm they never stopped for (a late first coast-down's).
-  if (t_motoring_from_ < 0.0)
-    t_motoring_from_ = t_now_;
-  else if (t_now_ - t_motoring_from_ + duration_s > in_.cell.max_motoring_s)
+  // standstill, with the run-up to the warm-up speed (on_sample takes its first sample's time), not again at
+  // a re-warm they never stopped for (a late first coast-down's).
+  const bool new_period = t_motoring_from_ < 0.0;
+  if (new_period) motoring_epoch_ = c_.epoch();
+  if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
+  if (new_period) {
+    if (motoring_epoch_) t_motoring_from_ = t_now_;  // no sample after the command (not expected): from now
+    motoring_epoch_.reset();
+  } else if (motoring_used_s() + duration_s > in_.cell.max_motoring_s) {
     // A re-warm within the period (the late first coast-down's) that the limit would cut short: not begun.
     return Stop{Outcome::not_accepted, "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) +
                                            " s would be reached in the re-warm (" +
-                                           num(t_now_ - t_motoring_from_, 0) + " s of the period used, " +
+                                           num(motoring_used_s(), 0) + " s of the period used, " +
                                            num(duration_s, 0) + " s of re-warm asked)"};
+  }
   warm_from_s_ = t_now_;
   if (drift_t0_ < 0.0) drift_t0_ = t_now_;
   // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
@@ -373,7 +383,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
                (a - b) / 3.6 / core::kHoldRampMps2;
     }
   duration_s = std::max(0.0, duration_s - map_s);
-  emit(ev::WarmUpStarted{w.speed_kmh, duration_s, map_s});
+  emit(ev::WarmUpStarted{w.speed_kmh, duration_s, map_s, t_motoring_from_});
   const double t0 = t_now_;
   // Hold for the time, keeping the load-cell force of the last stability window.
   std::vector<double> window_means;
@@ -742,7 +752,7 @@ std::string Session::room_for_passes(const std::string& what) const {
   // Each coast-down's setting is written only within the cell's motoring-time limit (do_run): the last of
   // the passes starts about (passes − 1) measured cycles from now.
   if (t_motoring_from_ >= 0.0 && cycle_s_ > 0.0) {
-    const double used_s = t_now_ - t_motoring_from_;
+    const double used_s = motoring_used_s();
     // Not measured end to end (the first coast-down after a warm-up, whose run-up started from the warm-up
     // speed, without the analysis and the write): a quarter more (common practice, no source).
     const double cycle_s = cycle_measured_ ? cycle_s_ : 1.25 * cycle_s_;
@@ -758,6 +768,7 @@ std::string Session::room_for_passes(const std::string& what) const {
 void Session::forget_warming() {
   // The rollers stood: the next warm-up starts a new motoring period.
   t_motoring_from_ = -1.0;
+  motoring_epoch_.reset();
   // The vehicle cooled while it stood: the warm-up trend starts again from the re-warm.
   drift_points_.clear();
   drift_t0_ = -1.0;
@@ -881,7 +892,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
   run_from_s_ = t_now_;
   transition(State::write_set, "coast-down " + std::to_string(run));
   // One continuous motoring period at most the cell's limit: no setting is written once it is used up.
-  if (t_motoring_from_ >= 0.0 && t_now_ - t_motoring_from_ > in_.cell.max_motoring_s)
+  if (motoring_used_s() > in_.cell.max_motoring_s)
     return Stop{Outcome::not_accepted,
                 "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) + " s was reached"};
   // The envelope, before anything is written: a setting that would ask the dyno for more than the cell

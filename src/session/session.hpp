@@ -41,6 +41,7 @@
 #pragma once
 
 #include <atomic>
+#include <cstdint>
 #include <memory>
 #include <nlohmann/json.hpp>
 #include <optional>
@@ -176,7 +177,16 @@ class Session {
   State state_ = State::connect;
   controller::ControllerInfo info_;
   double m_r_kg_ = 0.0, force_mass_kg_ = 0.0, inertia_kg_ = 0.0, speed_limit_kmh_ = 0.0;
-  double t_start_ = -1.0, t_now_ = 0.0, t_warm_end_ = -1.0, t_last_coast_end_ = -1.0, t_motoring_from_ = -1.0;
+  double t_start_ = -1.0, t_now_ = 0.0, t_warm_end_ = -1.0, t_last_coast_end_ = -1.0;
+  // The continuous motoring period (the cell's limits.max_motoring_s), on the controller's clock from the
+  // first sample after the command that started the rollers (-1: they stand). The clock guard keeps that
+  // clock within about 10 s of wall time of the truth over the whole period (controller/clock_guard.hpp: a
+  // clock that runs slow is found once its lag passes the guard's window;
+  // tests/integration/lying_controller_test.cpp clock_runs_slow). motoring_epoch_ is the controller's epoch
+  // before the command while its first sample is awaited (on_sample).
+  double t_motoring_from_ = -1.0;
+  std::optional<std::uint64_t> motoring_epoch_;
+  double motoring_used_s() const { return t_motoring_from_ < 0.0 ? 0.0 : t_now_ - t_motoring_from_; }
   double cell_time_before_ = 0.0;
   bool link_up_ = false;
   bool neutral_signal_ = false;  // the controller states "neutral" (vehicle run-ups find the release by it)

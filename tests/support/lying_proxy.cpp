@@ -40,6 +40,8 @@ const char* to_string(Lie lie) {
       return "clock_jumps_ahead";
     case Lie::clock_runs_fast:
       return "clock_runs_fast";
+    case Lie::clock_runs_slow:
+      return "clock_runs_slow";
     case Lie::status_clock_ahead:
       return "status_clock_ahead";
     case Lie::setting_not_applied:
@@ -109,6 +111,7 @@ constexpr double kJumpAheadS = 1000.0;
 constexpr double kResetLargeOffsetS = 1e6;
 constexpr double kCreepS = 1e-9;
 constexpr double kFastFactor = 10.0;
+constexpr double kSlowFactor = 0.55;
 constexpr double kStatusAheadS = 5000.0;
 constexpr double kOverSpeedAboveKmh = 100.0;
 constexpr double kOverSpeedFactor = 1.5;
@@ -321,6 +324,9 @@ struct LyingProxy::Impl {
       case Lie::clock_runs_fast:
         take_anchor(t);
         return anchor_s + kFastFactor * (t - anchor_s);
+      case Lie::clock_runs_slow:
+        take_anchor(t);
+        return anchor_s + kSlowFactor * (t - anchor_s);
       case Lie::status_clock_ahead:
         return sample ? std::nullopt : std::optional<double>(t + kStatusAheadS);
       default:
@@ -402,6 +408,7 @@ struct LyingProxy::Impl {
       case Lie::clock_reset_to_zero:
       case Lie::clock_jumps_ahead:
       case Lie::clock_runs_fast:
+      case Lie::clock_runs_slow:
       case Lie::status_clock_ahead: {
         if (smp && t_true) {
           if (const auto t = clock_lie(*t_true, true)) set_field(1, line::format_number(*t));

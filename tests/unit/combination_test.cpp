@@ -151,20 +151,22 @@ TEST(Combination, WarmUpSpeedAboveALimitIsRefused) {
 }
 
 TEST(Combination, MotoringTimeTooShortIsRefused) {
-  // Same formula as session.cpp do_check_limits: 1200 s + 0 (stability off) + 5 × (5 + 5 + 30) s = 1400 s.
-  EXPECT_DOUBLE_EQ(planned_motoring_s(wltp()), 1400.0);
+  // Same formula as session.cpp do_check_limits: the run-up from standstill to 80 km/h at 1.5 m/s² (80 / 3.6
+  // / 1.5 = 14.81 s, by hand) + its 2 s settle + 1200 s + 0 (stability off) + 5 × (5 + 5 + 30) s = 1416.8 s.
+  const double run_up_s = 80.0 / 3.6 / 1.5 + 2.0;
+  EXPECT_DOUBLE_EQ(planned_motoring_s(wltp()), 1400.0 + run_up_s);
   CellFacts cell = demo_cell();
-  cell.max_motoring_s = 1399.0;
+  cell.max_motoring_s = 1416.0;
   const CombinationProblems c = check_combination(demo(), wltp(), cell);
   const Problem* p = find(c.cell, "limits.max_motoring_s");
   ASSERT_NE(p, nullptr);
-  EXPECT_TRUE(contains(p->message, "up to 1400 s")) << p->message;
-  cell.max_motoring_s = 1400.0;
+  EXPECT_TRUE(contains(p->message, "up to 1416.8")) << p->message;
+  cell.max_motoring_s = 1417.0;
   EXPECT_FALSE(check_combination(demo(), wltp(), cell).any_error());
-  // With the stability rule on, warm_up.max_extra_s (600 s) is added: 2000 s no longer fits in 1400 s.
+  // With the stability rule on, warm_up.max_extra_s (600 s) is added: 2016.8 s no longer fits in 1417 s.
   Profile stable = wltp();
   stable.warm_up.stable_within_n = 2.0;
-  EXPECT_DOUBLE_EQ(planned_motoring_s(stable), 2000.0);
+  EXPECT_DOUBLE_EQ(planned_motoring_s(stable), 2000.0 + run_up_s);
   EXPECT_NE(find(check_combination(demo(), stable, cell).cell, "limits.max_motoring_s"), nullptr);
 }
 

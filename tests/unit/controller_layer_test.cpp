@@ -85,6 +85,11 @@ TEST(ClockGuard, NamesWhatTheClockDid) {
       {"backwards by 100 s at 3000 s", [](double t) { return t < 3000 ? t : t - 100; }, "ran backwards"},
       {"runs 10x fast after 300 s", [](double t) { return t < 300 ? t : 300 + 10 * (t - 300); },
        "runs too fast"},
+      // Above the minimum rate (0.25) in every window, but its lag on the wall grows without end: found once
+      // the lag passes 0.75 × 10 s + 1 s = 8.5 s of wall time (by hand: 0.45 s per wall second, about 19 s
+      // after the lie at 1.5 s of wall time, inside the 30 s fed).
+      {"runs at 0.55 of its stated rate after 300 s",
+       [](double t) { return t < 300 ? t : 300 + 0.55 * (t - 300); }, "runs too slow"},
   };
   for (const auto& c : cases) {
     ClockGuard g;
@@ -94,6 +99,10 @@ TEST(ClockGuard, NamesWhatTheClockDid) {
     ASSERT_TRUE(v) << c.name;
     EXPECT_NE(v->find("the controller's clock"), std::string::npos) << *v;
     EXPECT_NE(v->find(c.expected), std::string::npos) << c.name << ": " << *v;
+    if (std::string(c.expected) == "runs too slow") {
+      EXPECT_NE(v->find("s of wall time behind the time it kept before, beyond the 8.5"), std::string::npos)
+          << c.name << ": " << *v;
+    }
   }
 }
 

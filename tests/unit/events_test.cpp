@@ -310,7 +310,7 @@ std::vector<Payload> every_event() {
       ev::Refused{"start speed too high"},
       ev::Limits{140.0, 135.0, 15.0, 200.0, 180.0, 200.0, 3600.0},
       ev::InertiaSet{1500.0, 45.0, 1545.0, 1522.5, core::AxleLayout::single_axle},
-      ev::WarmUpStarted{80.0, 1200.0, 60.0},
+      ev::WarmUpStarted{80.0, 1200.0, 60.0, 12.5},
       ev::WarmUpHeld{80.0, 1201.0, "stable", 2.0, 160.0, {{30.0, 170.0}, {90.0, 165.5}}, true},
       ev::WarmUpHeld{80.0, 1201.0, "not stable within the extra time", 2.0, std::nullopt, {}, false},
       ev::LossMapSkipped{"no force in speed hold"},

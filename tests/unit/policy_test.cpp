@@ -218,11 +218,12 @@ TEST(Limits, StartAndWarmUpSpeeds) {
 }
 
 TEST(Limits, MotoringTimeOfTheWarmUp) {
-  // By hand from the profile file: 1200 s + 5 loss-map speeds × (5 s + 5 s + 30 s ramp) = 1400 s.
+  // By hand from the profile file: the run-up from standstill to 80 km/h at 1.5 m/s² (80 / 3.6 / 1.5 =
+  // 14.81 s) and its 2 s settle + 1200 s + 5 loss-map speeds × (5 s + 5 s + 30 s ramp) = 1416.81 s.
   const core::Profile p = wltp();
-  EXPECT_DOUBLE_EQ(core::planned_motoring_s(p), 1400.0);
-  EXPECT_TRUE(core::motoring_within(p, 1400.0));
-  EXPECT_FALSE(core::motoring_within(p, 1399.0));
+  EXPECT_DOUBLE_EQ(core::planned_motoring_s(p), 80.0 / 3.6 / 1.5 + 2.0 + 1400.0);
+  EXPECT_TRUE(core::motoring_within(p, 1417.0));
+  EXPECT_FALSE(core::motoring_within(p, 1416.0));
   EXPECT_FALSE(core::motoring_within(p, kNaN));
 }
 
@@ -241,8 +242,10 @@ TEST(Limits, TheSessionsRefusalNamesTheFirstRuleBroken) {
   // 143); the session always gets a planned profile (session::plan_inputs), so this is a guard.
   EXPECT_EQ(core::limits_refusal(p, 160.0, 143.0, 250.0, 5400.0).value_or(""),
             "reference speed 130 km/h is within 14 km/h of the vehicle's maximum speed");
-  EXPECT_EQ(core::limits_refusal(p, 160.0, 185.0, 250.0, 1399.0).value_or(""),
-            "the warm-up needs up to 1400 s of motoring, above the cell's limit of 1399 s");
+  // 1400 s of warm-up and loss map + the run-up from standstill to 80 km/h at 1.5 m/s² and its 2 s settle (80
+  // / 3.6 / 1.5 + 2 = 16.81 s, by hand).
+  EXPECT_EQ(core::limits_refusal(p, 160.0, 185.0, 250.0, 1416.0).value_or(""),
+            "the warm-up needs up to 1416.81 s of motoring, above the cell's limit of 1416 s");
   core::Profile hot = p;
   hot.warm_up.speed_kmh = 155.0;  // above the controller's 150 km/h
   EXPECT_EQ(core::limits_refusal(hot, 160.0, 185.0, 150.0, 5400.0).value_or(""),
@@ -262,7 +265,7 @@ TEST(Limits, TheSessionAndTheCombinationCheckAgree) {
   int refused = 0, accepted = 0;
   for (double cell_kmh : {80.0, 142.0, 150.0, 200.0})
     for (double veh_kmh : {79.0, 142.0, 143.0, 144.0, 144.5, 200.0})
-      for (double motoring_s : {1399.0, 1400.0}) {
+      for (double motoring_s : {1416.0, 1417.0}) {
         cell.max_speed_kmh = cell_kmh;
         cell.max_motoring_s = motoring_s;
         v.max_speed_kmh = veh_kmh;
@@ -275,10 +278,11 @@ TEST(Limits, TheSessionAndTheCombinationCheckAgree) {
         EXPECT_EQ(combination_refuses, session_refuses) << cell_kmh << " " << veh_kmh << " " << motoring_s;
         (session_refuses ? refused : accepted)++;
       }
-  // Both kinds occur. By hand, with 1400 s of motoring: vehicles of 142–144 km/h drop the 130 km/h point and
-  // start at 120 + 12 = 132 km/h, which cells of 142, 150 and 200 km/h allow (3 × 3); vehicles of 144.5 and
-  // 200 km/h keep it and start at 142 km/h, which only cells of 150 and 200 km/h allow (2 × 2); the 79 km/h
-  // vehicle is below the 80 km/h warm-up and the 80 km/h cell below every start speed. 13 accepted.
+  // Both kinds occur. By hand, with 1417 s of motoring (1416.81 s planned): vehicles of 142–144 km/h drop the
+  // 130 km/h point and start at 120 + 12 = 132 km/h, which cells of 142, 150 and 200 km/h allow (3 × 3);
+  // vehicles of 144.5 and 200 km/h keep it and start at 142 km/h, which only cells of 150 and 200 km/h allow
+  // (2 × 2); the 79 km/h vehicle is below the 80 km/h warm-up and the 80 km/h cell below every start speed.
+  // 13 accepted.
   EXPECT_EQ(accepted, 13);
   EXPECT_EQ(refused, 35);
 }
