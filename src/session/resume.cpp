@@ -74,6 +74,9 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
         } else {
           p.next_set = road_load_from_json(r.at("decision").at("next_set"));
           const std::string kind = r.at("decision").value("kind", "");
+          // An unusable record leaves it, as it leaves the session's last usable record.
+          p.last_adjusted_to.reset();
+          if (kind == core::to_string(core::Decision::Kind::run_again)) p.last_adjusted_to = p.next_set;
           if (kind == core::to_string(core::Decision::Kind::accepted)) {
             p.verdict = Outcome::accepted;
             p.verdict_reason = r.at("decision").value("reason", "");

@@ -37,6 +37,9 @@ struct ResumePoint {
   int iterations = 0;              // distinct settings written
   std::optional<core::RoadLoad>
       last_written;  // the last set_written record's setting (the step limit's base)
+  // The setting the last usable coast-down record adjusted to, when its decision was "run again" (for the
+  // envelope's message on a refused first adjustment, as the session that wrote it would give it).
+  std::optional<core::RoadLoad> last_adjusted_to;
   // For each "passes_reset" record, how many "coastdown" records came before it: where the session gave up
   // its consecutive passes (a discarded or unusable run, a pause, a setting adjusted after a pass), for the
   // replay.

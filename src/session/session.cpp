@@ -903,9 +903,8 @@ std::optional<Session::Stop> Session::do_run(int run) {
     // The first adjustment is the error of the first setting's loss estimate (core/envelope.hpp): a step too
     // large there most often means a vehicle unlike the one that estimate assumed. Only for that step: the
     // step limit broken, one setting written so far, and the setting the decision after it.
-    const bool first_adjustment = chk.step_refused && iterations_ == 1 && last_ && last_->evaluation.usable &&
-                                  last_->decision.kind == core::Decision::Kind::run_again &&
-                                  last_->decision.next_set == set_;
+    const bool first_adjustment =
+        chk.step_refused && iterations_ == 1 && last_adjusted_to_ && *last_adjusted_to_ == set_;
     const std::string cause = iterations_ == 0 ? "nothing has been measured yet: the first setting itself is "
                                                  "outside it (check the target file's "
                                                  "initial set and the cell's limits)"
@@ -1154,7 +1153,10 @@ std::optional<Session::Stop> Session::do_run(int run) {
       }
     // A setting about to be accepted: is the vehicle still warming (docs/standards.md §3.12)?
     if (rec.decision.kind == core::Decision::Kind::accepted) judge_warm_acceptance(run, rec);
-    last_ = rec;
+    last_ = rec;  // usable records only, as last_adjusted_to_
+    last_adjusted_to_ = rec.decision.kind == core::Decision::Kind::run_again
+                            ? std::optional<core::RoadLoad>(rec.decision.next_set)
+                            : std::nullopt;
     if (!emit(ev::Coastdown{rec}, &trace)) return Stop{Outcome::record_failure, record_error_};
     if (rec.decision.kind == core::Decision::Kind::accepted) {
       final_set_ = rec.decision.next_set;
@@ -1305,6 +1307,7 @@ std::optional<Session::Stop> Session::run_states(const ResumePoint* resume) {
     // last one the controller was given (and counts as an iteration only when it differs).
     iterations_ = resume->iterations;
     last_written_ = resume->last_written;
+    last_adjusted_to_ = resume->last_adjusted_to;
     unusable_ = resume->unusable;
     discarded_ = resume->discarded;
     run_no = std::max(run_no, resume->last_run + 1);

@@ -208,6 +208,9 @@ class Session {
   std::optional<core::RoadLoad> last_written_;
   std::string first_setting_;
   std::optional<CoastdownRecord> last_;
+  // The setting the last usable coast-down adjusted to (decision "run again"), restored by a resume: the
+  // envelope's refusal of the first adjustment names the first setting (do_run).
+  std::optional<core::RoadLoad> last_adjusted_to_;
   std::optional<core::RoadLoad> final_set_;
   bool record_failed_ = false;
   std::string record_error_;

@@ -481,6 +481,54 @@ TEST(SessionUnit, AFirstAdjustmentBeyondTheStepLimitNamesTheFirstSetting) {
       << other.stop_reason;
 }
 
+TEST(SessionUnit, AFirstAdjustmentRefusedAfterAResumeStillNamesTheFirstSetting) {
+  // As above (core/envelope.hpp; the likeliest cause first: common practice, no source), across a resume. The
+  // session with a 1 N step limit is cut off right after its first coast-down record (the process ended
+  // there: the records after it dropped), its first coast-down adjusted (the standard's first setting is far
+  // from the demo vehicle's loss). The resume restores the last setting written and the setting that
+  // coast-down adjusted to, so its first write is refused by the step limit against what the controller was
+  // given, and named as the live session names it.
+  namespace fs = std::filesystem;
+  std::string dir = (fs::temp_directory_path() / "loadtrim-first-adjust-resume-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  const std::string folder = dir + "/session";
+  fs::create_directories(folder);
+  session::Options o = options();
+  o.envelope.max_step_n = 1.0;
+  {
+    FakeController c1(loadtrim::testing::demo_truth());
+    session::RecordWriter writer(folder);
+    session::Session s1(inputs(), o, c1, {&writer});
+    const auto live = s1.run();
+    ASSERT_EQ(live.outcome, session::Outcome::controller_fault) << live.stop_reason;
+    ASSERT_NE(live.stop_reason.find("the first setting was far"), std::string::npos) << live.stop_reason;
+  }
+  std::vector<nlohmann::json> records;
+  {
+    std::ifstream log(folder + "/events.jsonl");
+    for (std::string line; std::getline(log, line);) {
+      records.push_back(nlohmann::json::parse(line));
+      if (records.back().value("type", "") == "coastdown") break;  // the process ended here
+    }
+  }
+  ASSERT_EQ(records.back().value("type", ""), "coastdown");
+  ASSERT_EQ(records.back().at("decision").value("kind", ""), "run-again") << "the test's premise";
+  const session::ResumePoint rp = session::resume_point(records);
+  ASSERT_EQ(rp.malformed, 0) << rp.malformed_note;
+  ASSERT_EQ(rp.iterations, 1);
+  ASSERT_TRUE(rp.last_adjusted_to.has_value());
+  EXPECT_TRUE(*rp.last_adjusted_to == rp.next_set);
+  FakeController c2(loadtrim::testing::demo_truth());
+  session::Session s2(inputs(), o, c2, {});
+  const auto rest = s2.run(&rp);
+  EXPECT_EQ(rest.outcome, session::Outcome::controller_fault) << rest.stop_reason;
+  EXPECT_NE(rest.stop_reason.find("beyond the step limit"), std::string::npos) << rest.stop_reason;
+  EXPECT_NE(rest.stop_reason.find("the first setting was far from this vehicle's loss"), std::string::npos)
+      << rest.stop_reason;
+  EXPECT_EQ(c2.coefficient_writes, 0) << "the refused setting is never written";
+  fs::remove_all(dir);
+}
+
 TEST(SessionUnit, ARequireThatCouldNotBeAppliedIsAFinding) {
   // docs/standards.md §3.12: with fewer than 4 windows the warming is "not estimated" and decides nothing.
   // With the drift rule "require" the lab asked for a vehicle warm at acceptance, so the acceptance says the
