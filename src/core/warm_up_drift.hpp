@@ -1,7 +1,7 @@
 // The vehicle's warm-up trend and the drift still to come (docs/standards.md §3.12): the force the dyno needs
 // to hold the warm-up speed falls as the drivetrain warms. Fitted as F(t) = F∞ + A·exp(−t/τ) (first-order
-// warming, textbook), t from the start of motoring; the drift still to come at time t is |A|·exp(−t/τ), the
-// force the loss will still fall (or rise) by at the warm-up speed. Pure: no I/O.
+// warming, textbook), t from the start of the warm-up hold; the drift still to come at time t is
+// |A|·exp(−t/τ), the force the loss will still fall (or rise) by at the warm-up speed. Pure: no I/O.
 #pragma once
 
 #include <cstddef>

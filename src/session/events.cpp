@@ -324,7 +324,7 @@ struct Mapper {
     return {{"run", e.run}, {"passes", e.passes}, {"why", e.why}};
   }
   nlohmann::json operator()(const ev::WarmUpDrift& e) const {
-    nlohmann::json j = {{"run", e.run},         {"since_motoring_s", e.t_s},
+    nlohmann::json j = {{"run", e.run},         {"since_warm_up_s", e.t_s},
                         {"rule", e.rule},       {"threshold_n", e.threshold_n},
                         {"verdict", e.verdict}, {"points", e.curve.points}};
     if (e.curve.ok) {

@@ -663,13 +663,12 @@ TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
         if (j.is_object() && j.value("type", "") == "warm_up_drift") logged.push_back(j);
       }
       ASSERT_EQ(logged.size(), drifts.size());
-      EXPECT_DOUBLE_EQ(logged.front().at("since_motoring_s").get<double>(), drifts.front().t_s);
+      EXPECT_DOUBLE_EQ(logged.front().at("since_warm_up_s").get<double>(), drifts.front().t_s);
       EXPECT_NE(logged.front().at("t_s").get<double>(), drifts.front().t_s);
       if (drifts.front().curve.ok) {
         EXPECT_NEAR(
             logged.front().at("remaining_drift_n").get<double>(),
-            drifts.front().curve.remaining_drift_n(logged.front().at("since_motoring_s").get<double>()),
-            1e-9);
+            drifts.front().curve.remaining_drift_n(logged.front().at("since_warm_up_s").get<double>()), 1e-9);
       }
     }
     // The report names only the last record of an accepted session "at acceptance"; an earlier one (the
@@ -723,14 +722,22 @@ struct FullyWarmRun {
   std::vector<session::CoastdownRecord> runs;
   std::vector<session::ev::PassesReset> resets;
   std::vector<session::ev::EnvelopeRefused> refused;
+  std::vector<double> drift_stamps;  // each warm_up_drift record's time (controller clock)
+  double motoring_since_s = -1.0;    // the first motoring period's start (warm_up_started)
 };
 FullyWarmRun run_fully_warm(double threshold_n, int max_coastdowns, double cold_excess = 1.0,
-                            double tau_s = 400.0, bool anticipate = false, double warm_up_s = 600.0) {
+                            double tau_s = 400.0, bool anticipate = false, double warm_up_s = 600.0,
+                            double max_motoring_s = 0.0) {
   FullyWarmRun out;
   FakeController c(warming_truth(cold_excess, tau_s));
   Recorder record(true);
   Hook hook([&](const session::Event& e) {
-    if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) out.drifts.push_back(*d);
+    if (const auto* d = std::get_if<session::ev::WarmUpDrift>(&e.payload)) {
+      out.drifts.push_back(*d);
+      out.drift_stamps.push_back(e.stamp && e.stamp->t_s ? *e.stamp->t_s : -1.0);
+    }
+    if (const auto* w = std::get_if<session::ev::WarmUpStarted>(&e.payload); w && out.motoring_since_s < 0.0)
+      out.motoring_since_s = w->motoring_since_s;
     if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload)) out.runs.push_back(d->record);
     if (const auto* r = std::get_if<session::ev::PassesReset>(&e.payload)) out.resets.push_back(*r);
     if (const auto* r = std::get_if<session::ev::EnvelopeRefused>(&e.payload)) out.refused.push_back(*r);
@@ -743,6 +750,7 @@ FullyWarmRun run_fully_warm(double threshold_n, int max_coastdowns, double cold_
   in.profile.warm_up.anticipate_drift = anticipate;
   in.profile.warm_up.anticipate_for = core::WarmUp::AnticipateFor::passes;
   in.profile.max_coastdowns = max_coastdowns;
+  if (max_motoring_s > 0.0) in.cell.max_motoring_s = max_motoring_s;
   session::Session s(in, options(), c, {&record, &hook});
   out.sum = s.run();
   return out;
@@ -816,6 +824,32 @@ TEST(SessionUnit, ASettledSettingOutsideToleranceFullyWarmIsAdjustedForTheWarmVe
       << none_left.sum.stop_reason;
   EXPECT_NE(none_left.sum.stop_reason.find("no coast-down is left"), std::string::npos)
       << none_left.sum.stop_reason;
+
+  // The same session with coast-downs to spare but too little of the cell's motoring time for two passes
+  // (room_for_passes, shared with the next-pass rule): the limit half a cycle beyond the moment the first
+  // outside setting was judged, so the adjusted setting's second pass could not start within it. It coasts
+  // on at the accepted setting, saying why, and no setting is written once the period is used up.
+  const std::size_t first_i = static_cast<std::size_t>(first - &r.drifts.front());
+  ASSERT_GE(r.motoring_since_s, 0.0);
+  ASSERT_GE(r.drift_stamps[first_i], 0.0);
+  const double used_at_first_s = r.drift_stamps[first_i] - r.motoring_since_s;
+  const double cycle_s = r.runs[at + 1].release_time_s - r.runs[at].release_time_s;
+  ASSERT_GT(cycle_s, 0.0);
+  const FullyWarmRun short_period =
+      run_fully_warm(8.0, 20, 1.0, 400.0, false, 600.0, used_at_first_s + 0.5 * cycle_s);
+  ASSERT_FALSE(short_period.drifts.empty()) << short_period.sum.stop_reason;
+  const auto& judged = short_period.drifts.front();
+  ASSERT_TRUE(judged.fully_warm.has_value());
+  EXPECT_FALSE(judged.fully_warm->within);
+  EXPECT_EQ(judged.verdict,
+            "settled, but outside tolerance once fully warm: coasting again at the accepted setting");
+  EXPECT_NE(judged.fully_warm->not_adjusted_why.find("too little of the cell's motoring time is left"),
+            std::string::npos)
+      << judged.fully_warm->not_adjusted_why;
+  EXPECT_TRUE(short_period.resets.empty()) << "no adjustment, so no passes given up for one";
+  EXPECT_EQ(short_period.sum.outcome, session::Outcome::not_accepted) << short_period.sum.stop_reason;
+  EXPECT_NE(short_period.sum.stop_reason.find("motoring-time limit"), std::string::npos)
+      << short_period.sum.stop_reason;
 }
 
 TEST(SessionUnit, ASettingTooFarFromWarmToAimAtCoastsOnAtTheAcceptedSetting) {
