@@ -6,11 +6,16 @@
 
 namespace loadtrim::core {
 
+double planned_run_up_s(const Profile& p) {
+  // At the motoring rate the tool assumes (kHoldRampMps2; a cell that ramps slower motors longer), then the 2
+  // s the session settles at the speed (Session::hold_and_wait).
+  return p.warm_up.speed_kmh / 3.6 / kHoldRampMps2 + 2.0;
+}
+
 double planned_motoring_s(const Profile& p) {
-  // The period starts with the run-up from standstill (the session counts it: docs/safety.md): at the
-  // motoring rate, then the 2 s the session settles at the speed. The 30 s per loss-map speed is the
-  // allowance for the ramp between speeds.
-  return p.warm_up.speed_kmh / 3.6 / kHoldRampMps2 + 2.0 + p.warm_up.duration_s +
+  // The period starts with the run-up from standstill (the session counts it: docs/safety.md). The 30 s per
+  // loss-map speed is the allowance for the ramp between speeds.
+  return planned_run_up_s(p) + p.warm_up.duration_s +
          p.warm_up.max_extra_s * (p.warm_up.stable_within_n > 0 ? 1 : 0) +
          static_cast<double>(p.loss_map.speeds_kmh.size()) *
              (p.loss_map.settle_s + p.loss_map.average_s + 30.0);
@@ -173,7 +178,9 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
   if (!motoring_within(profile, cell.max_motoring_s))
     err(out.cell, "limits.max_motoring_s",
         "is " + num(cell.max_motoring_s) + " s; the profile's warm-up motors the rollers for up to " +
-            num(motoring) + " s (warm_up.duration_s " + num(profile.warm_up.duration_s) +
+            num(motoring) + " s (the run-up to warm_up.speed_kmh " + num(planned_run_up_s(profile), 3) +
+            " s at an assumed " + num(kHoldRampMps2) + " m/s² and 2 s at the speed + warm_up.duration_s " +
+            num(profile.warm_up.duration_s) +
             (profile.warm_up.stable_within_n > 0
                  ? " + warm_up.max_extra_s " + num(profile.warm_up.max_extra_s)
                  : std::string()) +

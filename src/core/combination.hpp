@@ -34,10 +34,14 @@ struct CombinationProblems {
 };
 
 // The longest continuous motoring of the warm-up, s (check_combination and, through limits_refusal, the
-// session's limit check): the run-up from standstill to the warm-up speed at the motoring rate
-// (kHoldRampMps2) plus the 2 s the session settles there, warm_up.duration_s, plus warm_up.max_extra_s when
-// the stability rule is on (stable_within_n > 0), plus (settle + average + 30 s) for each loss-map speed.
+// session's limit check): the run-up from standstill to the warm-up speed (planned_run_up_s),
+// warm_up.duration_s, plus warm_up.max_extra_s when the stability rule is on (stable_within_n > 0), plus
+// (settle + average + 30 s) for each loss-map speed.
 double planned_motoring_s(const Profile& p);
+// The run-up from standstill to the warm-up speed at an assumed motoring rate (kHoldRampMps2, 1.5 m/s²: a
+// cell file does not state its own; a cell that ramps slower motors longer than planned, and the session's
+// check before each setting is written counts what it did) plus the 2 s the session settles at the speed.
+double planned_run_up_s(const Profile& p);
 
 // The speed and time rules, each written once: check_combination (before anything connects) and
 // limits_refusal (the session, after connecting, with the controller's own limit) both use them. Every

@@ -66,10 +66,11 @@ RoadLoad fixed_run_final_setting(const RoadLoad& target,
 // loss, the part that warms, grows faster with speed than the tyres' loss, so at the top speeds it
 // under-predicts and at the lowest it over-predicts.
 struct WarmingOutlook {
-  // The loss change at speed_kmh from from_s to to_s (s since motoring began); nullopt: not predicted.
+  // The loss change at speed_kmh from from_s to to_s (s since the warm-up hold began); nullopt: not
+  // predicted.
   std::function<std::optional<double>(double from_s, double to_s)> change_n;
   WarmUpCurve curve;     // the curve change_n comes from (recorded with the anticipation)
-  double epoch_s = 0.0;  // when motoring began, on the controller's clock: the times' origin
+  double epoch_s = 0.0;  // when the warm-up hold began, on the controller's clock: the times' origin
   double speed_kmh = 80.0;
   std::vector<double> speeds_kmh;  // the reference speeds: the loss is checked at each (below)
   double now_s = 0.0;              // this coast-down's time (the middle of its coast)
@@ -85,10 +86,10 @@ struct Anticipation {
   bool used = false;
   double change_n = 0.0;            // predicted at the warm-up speed (0 when not predicted)
   double ratio = 0.0;               // change_n / loss(v_warm), the share the whole loss curve is scaled by
-  double from_s = 0.0, to_s = 0.0;  // the span predicted over, s since motoring began
+  double from_s = 0.0, to_s = 0.0;  // the span predicted over, s since the warm-up hold began
   int aimed = 1;                    // coast-downs aimed at: the change is the mean of those to to_s, to_s +
   double to_last_s = 0.0;           // cycle, ..., to_last_s (to_last_s = to_s for one)
-  double epoch_s = 0.0;             // when motoring began, on the controller's clock
+  double epoch_s = 0.0;             // when the warm-up hold began, on the controller's clock
   RoadLoad loss;      // the loss before it was scaled (the setting is target − loss·(1 + ratio))
   WarmUpCurve curve;  // the warm-up curve the change is from
   std::string why;    // one line for the log: what was anticipated, or why nothing was
@@ -136,7 +137,7 @@ struct FullyWarmOutlook {
   bool predicted = false;  // false: the curve does not predict the change (why says so); nothing is decided
   std::string why;         // one line for the log
   double change_n = 0.0;   // c: the warm-up-speed force's change still to come (negative: still falling)
-  double from_s = 0.0;     // the time c is taken from, s since motoring began (the curve's clock)
+  double from_s = 0.0;     // the time c is taken from, s since the warm-up hold began (the curve's clock)
   double speed_kmh = 0.0;  // the warm-up speed
   std::vector<FullyWarmRow> rows;
   bool within = true;  // every row within (true when not predicted)
@@ -152,7 +153,7 @@ struct FullyWarmOutlook {
 // How far ahead "fully warm" is taken, in time constants of the curve (e^−50: nothing left to come).
 inline constexpr double kFullyWarmTaus = 50.0;
 // `now` is the acceptance's check of the setting (its rows carry each speed's limit); `loss` the loss the
-// adjustment takes (measured − set); `t_s` the coast-down's middle, s since motoring began.
+// adjustment takes (measured − set); `t_s` the coast-down's middle, s since the warm-up hold began.
 FullyWarmOutlook fully_warm_outlook(const ToleranceCheck& now, const RoadLoad& target, const RoadLoad& loss,
                                     const WarmUpCurve& curve, double t_s, double warm_up_speed_kmh);
 

@@ -12,7 +12,7 @@
 namespace loadtrim::core {
 
 struct DriftPoint {
-  double t_s = 0.0;      // controller time since motoring began, at the middle of the window
+  double t_s = 0.0;      // controller time since the warm-up hold began, at the middle of the window
   double force_n = 0.0;  // mean hold force over the window
 };
 
@@ -37,11 +37,11 @@ WarmUpCurve fit_warm_up_curve(std::span<const DriftPoint> points, double tau_min
 // vehicle's).
 inline constexpr double kMaxCurveRmsForOutlookN = 2.0;
 
-// The change of the warm-up-speed force from t1_s to t2_s (s since motoring began) that the curve predicts,
-// A·(exp(−t2/τ) − exp(−t1/τ)) (warm_up.anticipate_drift, docs/standards.md §3.16). nullopt when the curve is
-// not fitted, not resolved (τ at the search's upper bound: the decay's shape is not known, so neither is its
-// future), fits its windows with an rms residual above max_rms_n, or the times are not finite with
-// 0 <= t1_s <= t2_s.
+// The change of the warm-up-speed force from t1_s to t2_s (s since the warm-up hold began) that the curve
+// predicts, A·(exp(−t2/τ) − exp(−t1/τ)) (warm_up.anticipate_drift, docs/standards.md §3.16). nullopt when the
+// curve is not fitted, not resolved (τ at the search's upper bound: the decay's shape is not known, so
+// neither is its future), fits its windows with an rms residual above max_rms_n, or the times are not finite
+// with 0 <= t1_s <= t2_s.
 std::optional<double> predicted_change_n(const WarmUpCurve& c, double t1_s, double t2_s,
                                          double max_rms_n = kMaxCurveRmsForOutlookN);
 

@@ -281,7 +281,7 @@ struct PassesReset {  // "passes_reset": passes that no longer count as consecut
 };
 struct WarmUpDrift {  // "warm_up_drift": the vehicle's warming trend when a setting is about to be accepted
   int run = 0;
-  double t_s = 0.0;  // controller time since motoring began
+  double t_s = 0.0;  // controller time since the warm-up hold began (since_warm_up_s)
   core::WarmUpCurve curve;
   std::string rule;  // "warn" or "require"
   double threshold_n = 0.0;

@@ -68,13 +68,13 @@ ResumePoint resume_point(const std::vector<nlohmann::json>& records) {
           (void)r.at("decision").at("kind").get<std::string>();
         }
         p.completed.push_back(r);
+        // last_adjusted_to: an unusable record leaves it, as it leaves the session's last usable record.
         if (!r.value("usable", false)) {
           ++p.unusable;
           p.next_set = road_load_from_json(r.at("set"));
         } else {
           p.next_set = road_load_from_json(r.at("decision").at("next_set"));
           const std::string kind = r.at("decision").value("kind", "");
-          // An unusable record leaves it, as it leaves the session's last usable record.
           p.last_adjusted_to.reset();
           if (kind == core::to_string(core::Decision::Kind::run_again)) p.last_adjusted_to = p.next_set;
           if (kind == core::to_string(core::Decision::Kind::accepted)) {

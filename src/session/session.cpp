@@ -354,18 +354,24 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   // standstill, with the run-up to the warm-up speed (on_sample takes its first sample's time), not again at
   // a re-warm they never stopped for (a late first coast-down's).
   const bool new_period = t_motoring_from_ < 0.0;
-  if (new_period) motoring_epoch_ = c_.epoch();
-  if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
-  if (new_period) {
-    if (motoring_epoch_) t_motoring_from_ = t_now_;  // no sample after the command (not expected): from now
-    motoring_epoch_.reset();
-  } else if (motoring_used_s() + duration_s > in_.cell.max_motoring_s) {
-    // A re-warm within the period (the late first coast-down's) that the limit would cut short: not begun.
+  // A re-warm within the period (the late first coast-down's) that the limit would cut short: not begun,
+  // judged before its run-up back to the speed and again once there (the run-up's time counts too).
+  auto rewarm_cut_short = [&]() -> std::optional<Stop> {
+    if (new_period || !(motoring_used_s() + duration_s > in_.cell.max_motoring_s)) return std::nullopt;
     return Stop{Outcome::not_accepted, "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) +
                                            " s would be reached in the re-warm (" +
                                            num(motoring_used_s(), 0) + " s of the period used, " +
                                            num(duration_s, 0) + " s of re-warm asked)"};
+  };
+  if (auto s = rewarm_cut_short()) return s;
+  const double t_before_s = t_now_;  // the latest time read before the command: an over-count, never under
+  if (new_period) motoring_epoch_ = c_.epoch();
+  if (Result r = hold_and_wait(w.speed_kmh, "warm-up run-up"); !r.ok()) return fault(r, "warm-up");
+  if (new_period) {
+    if (motoring_epoch_) t_motoring_from_ = t_before_s;  // no sample after the command (not expected)
+    motoring_epoch_.reset();
   }
+  if (auto s = rewarm_cut_short()) return s;
   warm_from_s_ = t_now_;
   if (drift_t0_ < 0.0) drift_t0_ = t_now_;
   // The loss map is part of the warm-up, not added to it: the plain hold is shortened by the map's planned
@@ -409,7 +415,7 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
           // warm-up that has since moved).
           if (w.stable_within_n > 0.0) {
             if (w.stable_by == core::WarmUp::StableBy::trend) {
-              // The warming curve across every hold window since motoring began, and the recent slope
+              // The warming curve across every hold window since the warm-up hold began, and the recent slope
               // carried over at least kTrendHorizonS (docs/standards.md §3.12).
               const auto left =
                   core::remaining_drift_for_end_n(drift_points_, s.time_s - drift_t0_, core::kTrendHorizonS);

@@ -112,15 +112,14 @@ const Row kRows[] = {
     // A clock that runs at 0.55 of the controller's own: above the guard's stated minimum rate (0.25 × the
     // stated rate), but its lag on the wall grows without end and would stretch every limit counted in
     // controller time (the 120 s rule, the cell's motoring time) by 1.8 times. The guard compares each window
-    // with the largest offset ever seen, so a clock slower than stated is found once its lag passes 0.75 × 10
-    // + 1 = 8.5 s of wall time (controller/clock_guard.hpp), whatever its rate: the session's motoring period
-    // on the controller's clock is never more than that behind the truth. At 10x (8.5 s of wall time are 85
-    // controller seconds) it is found in the warm-up or the loss map, before any coast-down (seen: after 24 s
-    // of
-    // wall time, in the first run-up). At the other rows' 200x the same 8.5 s are 1,700 controller seconds:
-    // the first coast-down is then timed by the lying clock, reads about 1.8 times the force, and the
-    // envelope's
-    // step limit refuses the next setting (seen: exit 3 after one coast-down, nothing written).
+    // with the largest offset ever seen, so a clock slower than stated is found once its lag passes about 8.5
+    // s of wall time (0.75 × its reference window of at least 10 s, + 1 s; controller/clock_guard.hpp),
+    // whatever its rate: the session's motoring period on the controller's clock is never more than that
+    // behind the truth. At 10x (8.5 s of wall time are 85 controller seconds) it was found before the first
+    // coast-down (seen: after 24 s of wall time, in the first vehicle run-up; the row asserts the cause, not
+    // the moment). At the other rows' 200x the same 8.5 s are 1,700 controller seconds: the first coast-down
+    // is then timed by the lying clock, reads about 1.8 times the force, and the envelope's step limit
+    // refuses the next setting (seen: exit 3 after one coast-down, the next setting not written).
     {"clock_runs_slow", Lie::clock_runs_slow, hold30(), Cmd::run, 3, "the controller's clock runs too slow",
      60, false, "10"},
     // STATUS replies run 5000 s ahead of the samples' clock, from the start: whenever the tool compares the

@@ -38,8 +38,8 @@ enum class Lie : std::uint8_t {
   clock_reset_to_zero,  // the clock reads true + 1e6 s until triggered, then restarts from 0
   clock_jumps_ahead,    // the clock steps ahead by 1000 s once, then runs on from there
   clock_runs_fast,      // the clock runs 10x faster than the controller's from the trigger on
-  clock_runs_slow,      // the clock runs at 0.55 of the controller's from the trigger on (within the guard's
-                        // bounds: only a wall-time count of the motoring period sees it)
+  clock_runs_slow,      // the clock runs at 0.55 of the controller's from the trigger on (above the guard's
+                        // minimum rate: found by its growing lag on the wall)
   status_clock_ahead,   // STATUS replies' time_s = true + 5000 s; samples keep the true clock
   setting_not_applied,  // COEF SET after the first: answered OK by the proxy, not forwarded; COEF GET then
                         // answered by the proxy with what the tool last wrote

@@ -278,9 +278,9 @@ TEST(SessionUnit, AReWarmWithoutAStopDoesNotRestartTheMotoringClock) {
   in.profile.late_start = core::Profile::LateStart::repeat;
   in.profile.late_start_rewarm_s = 20.0;
   // At least the planned motoring (the combination's check), 400 s: by the fake controller's clock the first
-  // setting is written 120 s into the period, the first repeat's 337 s, the second repeat's 555 s. Restarted
-  // at each re-warm (before), the clock read 20 s at each repeat, and the session ended on the unusable-run
-  // limit.
+  // setting is written 120 s after the warm-up hold began, the first repeat's 337 s, the second repeat's 555
+  // s (seen before the period counted the run-up; about 17 s more into the period with it). Restarted at each
+  // re-warm (before), the clock read 20 s at each repeat, and the session ended on the unusable-run limit.
   in.cell.max_motoring_s = 400.0;
   ASSERT_GE(in.cell.max_motoring_s, core::planned_motoring_s(in.profile));
   Recorder record(true);
@@ -576,10 +576,10 @@ TEST(SessionUnit, ARequireThatCouldNotBeAppliedIsAFinding) {
 }
 
 TEST(SessionUnit, AfterALostLinkTheWarmingCurveStartsAgainFromTheReWarm) {
-  // docs/standards.md §3.12: the warming curve is fitted to the hold windows since motoring began. A lost
-  // link stops the rollers (the controller's watchdog) and the vehicle cools, as in a pause: the curve judged
-  // at acceptance is the re-warm's alone, its time counted from the re-warm (common practice, no source: a
-  // curve across a stop mixes two warmings).
+  // docs/standards.md §3.12: the warming curve is fitted to the hold windows since the warm-up hold began. A
+  // lost link stops the rollers (the controller's watchdog) and the vehicle cools, as in a pause: the curve
+  // judged at acceptance is the re-warm's alone, its time counted from the re-warm (common practice, no
+  // source: a curve across a stop mixes two warmings).
   FakeController c(warming_truth(1.0, 400.0));
   bool armed = false, lost = false;
   std::vector<session::ev::WarmUpHeld> holds;
@@ -653,7 +653,7 @@ TEST(SessionUnit, AVehicleStillWarmingIsFlaggedOrKeptRunningAsTheProfileSays) {
       sum = s.run();
     }
     ASSERT_FALSE(drifts.empty()) << sum.stop_reason;
-    // The log keeps the time the remaining drift was read at (since the warm-up's motoring began) beside the
+    // The log keeps the time the remaining drift was read at (since the warm-up hold began) beside the
     // record's own controller clock (t_s): neither overwrites the other.
     {
       std::ifstream log(folder + "/events.jsonl");
@@ -2213,7 +2213,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     std::vector<session::CoastdownRecord> runs;
     std::vector<session::ev::PassesReset> resets;
     session::Summary sum;
-    double warm_up_t = -1.0;      // the warm_up_started stamp (motoring began), controller clock
+    double warm_up_t = -1.0;      // when motoring began (warm_up_started.motoring_since_s), controller clock
     std::vector<double> coast_t;  // each coastdown record's stamp
   };
   auto run = [&](std::optional<core::RoadLoad> initial, bool predict, int max_coastdowns = 10,
@@ -2222,9 +2222,8 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     FakeController c(truth);
     Recorder record(true);
     Hook hook([&](const session::Event& e) {
-      if (std::holds_alternative<session::ev::WarmUpStarted>(e.payload) && e.stamp && e.stamp->t_s &&
-          out.warm_up_t < 0.0)
-        out.warm_up_t = *e.stamp->t_s;
+      if (const auto* w = std::get_if<session::ev::WarmUpStarted>(&e.payload); w && out.warm_up_t < 0.0)
+        out.warm_up_t = w->motoring_since_s;
       if (std::holds_alternative<session::ev::Coastdown>(e.payload) && e.stamp && e.stamp->t_s)
         out.coast_t.push_back(*e.stamp->t_s);
       if (const auto* d = std::get_if<session::ev::Coastdown>(&e.payload)) out.runs.push_back(d->record);
