@@ -178,8 +178,9 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
   if (!motoring_within(profile, cell.max_motoring_s))
     err(out.cell, "limits.max_motoring_s",
         "is " + num(cell.max_motoring_s) + " s; the profile's warm-up motors the rollers for up to " +
-            num(motoring) + " s (the run-up to warm_up.speed_kmh " + num(planned_run_up_s(profile), 3) +
-            " s at an assumed " + num(kHoldRampMps2) + " m/s² and 2 s at the speed + warm_up.duration_s " +
+            num(motoring) + " s (the run-up to warm_up.speed_kmh " + num(profile.warm_up.speed_kmh) +
+            " km/h at an assumed " + num(kHoldRampMps2) + " m/s² plus 2 s there, " +
+            num(planned_run_up_s(profile), 1) + " s, + warm_up.duration_s " +
             num(profile.warm_up.duration_s) +
             (profile.warm_up.stable_within_n > 0
                  ? " + warm_up.max_extra_s " + num(profile.warm_up.max_extra_s)

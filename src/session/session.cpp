@@ -358,9 +358,12 @@ std::optional<Session::Stop> Session::do_warm_up(double duration_s, bool measure
   // judged before its run-up back to the speed and again once there (the run-up's time counts too).
   auto rewarm_cut_short = [&]() -> std::optional<Stop> {
     if (new_period || !(motoring_used_s() + duration_s > in_.cell.max_motoring_s)) return std::nullopt;
+    const std::string used = num(motoring_used_s(), 0) + " s of the period used";
+    if (!(motoring_used_s() < in_.cell.max_motoring_s))
+      return Stop{Outcome::not_accepted, "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) +
+                                             " s was reached before the re-warm (" + used + ")"};
     return Stop{Outcome::not_accepted, "the cell's motoring-time limit of " + num(in_.cell.max_motoring_s) +
-                                           " s would be reached in the re-warm (" +
-                                           num(motoring_used_s(), 0) + " s of the period used, " +
+                                           " s would be reached in the re-warm (" + used + ", " +
                                            num(duration_s, 0) + " s of re-warm asked)"};
   };
   if (auto s = rewarm_cut_short()) return s;

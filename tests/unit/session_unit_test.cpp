@@ -54,6 +54,24 @@ session::Options options() {
   return o;
 }
 
+// A fresh temporary folder holding an empty "session" folder (the record writer's), for a test that stops a
+// session and resumes it: {the temporary folder, to remove at the end; the session folder}.
+std::pair<std::string, std::string> temp_session_folder(const std::string& name) {
+  namespace fs = std::filesystem;
+  std::string dir = (fs::temp_directory_path() / ("loadtrim-" + name + "-XXXXXX")).string();
+  if (!::mkdtemp(dir.data())) throw std::runtime_error("mkdtemp failed for " + dir);
+  fs::create_directories(dir + "/session");
+  return {dir, dir + "/session"};
+}
+
+// The session folder's log, one record per line.
+std::vector<nlohmann::json> read_log(const std::string& folder) {
+  std::vector<nlohmann::json> records;
+  std::ifstream log(folder + "/events.jsonl");
+  for (std::string line; std::getline(log, line);) records.push_back(nlohmann::json::parse(line));
+  return records;
+}
+
 // Keeps every event; fails (returns false, or throws) on the first event of a given type when told to.
 class Recorder : public session::Observer {
  public:
@@ -291,8 +309,46 @@ TEST(SessionUnit, AReWarmWithoutAStopDoesNotRestartTheMotoringClock) {
   EXPECT_EQ(count(record, "coastdown_discarded"), 2)
       << "the first late run and one repeat; the next is not written";
   EXPECT_EQ(count(record, "set_written"), 2) << "no setting written once the period is used up";
-  EXPECT_NE(sum.stop_reason.find("would be reached in the re-warm"), std::string::npos) << sum.stop_reason;
+  EXPECT_NE(sum.stop_reason.find("was reached before the re-warm"), std::string::npos) << sum.stop_reason;
   EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+
+  // A re-warm the limit would cut short is not begun: refused before its run-up back to the warm-up speed.
+  // Found from a session without the limit: the period used when the first re-warm begins (the warm-up
+  // state entered, before its run-up), from the period's start as recorded; the limit is then 10 s beyond
+  // it, so the 20 s re-warm would cross it.
+  auto hold_commands = [&](const FakeController& fc) {
+    return std::count_if(fc.commands.begin(), fc.commands.end(), [&](const auto& cmd) {
+      return cmd.first == Mode::speed_hold && cmd.second == in.profile.warm_up.speed_kmh;
+    });
+  };
+  double since = -1.0;
+  std::vector<double> warm_up_entered;
+  Hook times([&](const session::Event& e) {
+    if (const auto* w = std::get_if<session::ev::WarmUpStarted>(&e.payload); w && since < 0.0)
+      since = w->motoring_since_s;
+    if (const auto* t = std::get_if<session::ev::StateChanged>(&e.payload);
+        t && t->to == session::State::warm_up && e.stamp && e.stamp->t_s)
+      warm_up_entered.push_back(*e.stamp->t_s);
+  });
+  FakeController free_c(loadtrim::testing::demo_truth());
+  session::Inputs free_in = in;
+  free_in.cell.max_motoring_s = 1e6;
+  session::Session free_s(free_in, options(), free_c, {&times});
+  (void)free_s.run();
+  ASSERT_GE(since, 0.0);
+  ASSERT_GE(warm_up_entered.size(), 2u) << "the first warm-up and the late start's re-warm";
+  const double used_at_rewarm_s = warm_up_entered[1] - since;
+  EXPECT_GE(hold_commands(free_c), 2) << "without the limit the re-warm runs up to the speed";
+  session::Inputs tight = in;
+  tight.cell.max_motoring_s = used_at_rewarm_s + 10.0;
+  ASSERT_GE(tight.cell.max_motoring_s, core::planned_motoring_s(tight.profile));
+  FakeController tight_c(loadtrim::testing::demo_truth());
+  session::Session tight_s(tight, options(), tight_c, {});
+  const auto cut = tight_s.run();
+  EXPECT_EQ(cut.outcome, session::Outcome::not_accepted) << cut.stop_reason;
+  EXPECT_NE(cut.stop_reason.find("would be reached in the re-warm"), std::string::npos) << cut.stop_reason;
+  EXPECT_EQ(hold_commands(tight_c), 1) << "the re-warm's run-up was begun";
+  EXPECT_TRUE(cut.rollers_stopped) << cut.stop_note;
 }
 
 // A history whose set leaves the safe envelope (the hostile review forged a store row with F0 = −10⁶ N and
@@ -488,11 +544,7 @@ TEST(SessionUnit, AFirstAdjustmentRefusedAfterAResumeStillNamesTheFirstSetting) 
   // from the demo vehicle's loss). The resume restores the last setting written and the setting that
   // coast-down adjusted to, so its first write is refused by the step limit against what the controller was
   // given, and named as the live session names it.
-  namespace fs = std::filesystem;
-  std::string dir = (fs::temp_directory_path() / "loadtrim-first-adjust-resume-XXXXXX").string();
-  ASSERT_TRUE(::mkdtemp(dir.data()));
-  const std::string folder = dir + "/session";
-  fs::create_directories(folder);
+  const auto [dir, folder] = temp_session_folder("first-adjust-resume");
   session::Options o = options();
   o.envelope.max_step_n = 1.0;
   {
@@ -503,14 +555,13 @@ TEST(SessionUnit, AFirstAdjustmentRefusedAfterAResumeStillNamesTheFirstSetting) 
     ASSERT_EQ(live.outcome, session::Outcome::controller_fault) << live.stop_reason;
     ASSERT_NE(live.stop_reason.find("the first setting was far"), std::string::npos) << live.stop_reason;
   }
-  std::vector<nlohmann::json> records;
-  {
-    std::ifstream log(folder + "/events.jsonl");
-    for (std::string line; std::getline(log, line);) {
-      records.push_back(nlohmann::json::parse(line));
-      if (records.back().value("type", "") == "coastdown") break;  // the process ended here
-    }
-  }
+  std::vector<nlohmann::json> records = read_log(folder);
+  // The process ended right after the first coast-down record.
+  const auto first_coastdown = std::find_if(records.begin(), records.end(), [](const nlohmann::json& r) {
+    return r.value("type", "") == "coastdown";
+  });
+  ASSERT_NE(first_coastdown, records.end());
+  records.erase(first_coastdown + 1, records.end());
   ASSERT_EQ(records.back().value("type", ""), "coastdown");
   ASSERT_EQ(records.back().at("decision").value("kind", ""), "run-again") << "the test's premise";
   const session::ResumePoint rp = session::resume_point(records);
@@ -526,7 +577,7 @@ TEST(SessionUnit, AFirstAdjustmentRefusedAfterAResumeStillNamesTheFirstSetting) 
   EXPECT_NE(rest.stop_reason.find("the first setting was far from this vehicle's loss"), std::string::npos)
       << rest.stop_reason;
   EXPECT_EQ(c2.coefficient_writes, 0) << "the refused setting is never written";
-  fs::remove_all(dir);
+  std::filesystem::remove_all(dir);
 }
 
 TEST(SessionUnit, ARequireThatCouldNotBeAppliedIsAFinding) {
@@ -2355,11 +2406,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   // alone found one pass and wrote a count of 1). Stopped by the operator right after the pass; the control,
   // the same pass coasted on (no prediction), is resumed with its one pass reset (the count 1).
   auto resume_after_first_pass = [&](bool predict, std::vector<session::ev::PassesReset>& resume_resets) {
-    namespace fs = std::filesystem;
-    std::string dir = (fs::temp_directory_path() / "loadtrim-nextpass-resume-XXXXXX").string();
-    ASSERT_TRUE(::mkdtemp(dir.data()));
-    const std::string folder = dir + "/session";
-    fs::create_directories(folder);
+    const auto [dir, folder] = temp_session_folder("nextpass-resume");
     session::Inputs in = long_warm_up_inputs();
     in.profile.warm_up.anticipate_drift = true;
     in.profile.warm_up.predict_next_pass = predict;
@@ -2385,12 +2432,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
       ASSERT_EQ(adjusted, predict) << "the rule adjusts this pass, coasting on keeps it";
       ASSERT_EQ(first_part.outcome, session::Outcome::interrupted) << first_part.stop_reason;
     }
-    std::vector<nlohmann::json> records;
-    {
-      std::ifstream log(folder + "/events.jsonl");
-      for (std::string line; std::getline(log, line);) records.push_back(nlohmann::json::parse(line));
-    }
-    const session::ResumePoint rp = session::resume_point(records);
+    const session::ResumePoint rp = session::resume_point(read_log(folder));
     ASSERT_EQ(rp.malformed, 0) << rp.malformed_note;
     ASSERT_EQ(rp.completed.size(), 1u);
     Hook seen([&](const session::Event& e) {
@@ -2402,7 +2444,7 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
     session::Session s2(in, options(), c2, {&seen});
     const auto rest = s2.run(&rp);
     EXPECT_NE(rest.outcome, session::Outcome::refused) << rest.stop_reason;
-    fs::remove_all(dir);
+    std::filesystem::remove_all(dir);
   };
   std::vector<session::ev::PassesReset> after_adjusted, after_kept;
   resume_after_first_pass(true, after_adjusted);

@@ -563,7 +563,7 @@ TEST(FullyWarm, NothingIsDecidedWhenTheCurveDoesNotPredict) {
   EXPECT_FALSE(bad.predicted);
   EXPECT_TRUE(bad.within);
   EXPECT_EQ(bad.why, "not predicted: a deviation is not finite");
-  // A time before motoring began is not a time the curve speaks of.
+  // A time before the warm-up hold began (the curve's origin) is not a time the curve speaks of.
   EXPECT_FALSE(fully_warm_outlook(now, target, {}, curve_tau_1000(), -1.0, 80.0).predicted);
 }
 
