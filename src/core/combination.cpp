@@ -7,9 +7,9 @@
 namespace loadtrim::core {
 
 double planned_run_up_s(const Profile& p) {
-  // At the motoring rate the tool assumes (kHoldRampMps2; a cell that ramps slower motors longer), then the 2
-  // s the session settles at the speed (Session::hold_and_wait).
-  return p.warm_up.speed_kmh / 3.6 / kHoldRampMps2 + 2.0;
+  // At the motoring rate the tool assumes (kHoldRampMps2; a cell that ramps slower motors longer), then the
+  // session's settle at the speed (kHoldSettleS, Session::hold_and_wait).
+  return p.warm_up.speed_kmh / 3.6 / kHoldRampMps2 + kHoldSettleS;
 }
 
 double planned_motoring_s(const Profile& p) {
@@ -179,7 +179,7 @@ CombinationProblems check_combination(const VehicleTarget& vehicle, const Profil
     err(out.cell, "limits.max_motoring_s",
         "is " + num(cell.max_motoring_s) + " s; the profile's warm-up motors the rollers for up to " +
             num(motoring) + " s (the run-up to warm_up.speed_kmh " + num(profile.warm_up.speed_kmh) +
-            " km/h at an assumed " + num(kHoldRampMps2) + " m/s² plus 2 s there, " +
+            " km/h at an assumed " + num(kHoldRampMps2) + " m/s² plus " + num(kHoldSettleS) + " s there, " +
             num(planned_run_up_s(profile), 1) + " s, + warm_up.duration_s " +
             num(profile.warm_up.duration_s) +
             (profile.warm_up.stable_within_n > 0

@@ -34,7 +34,8 @@ HoldPlan plan_hold_points(const LossMap& map, double from_kmh, double speed_limi
       continue;
     }
     plan.speeds_kmh.push_back(v);
-    plan.planned_s += std::abs(v - v_prev) / (3.6 * kHoldRampMps2) + 2.0 + map.settle_s + map.average_s;
+    plan.planned_s +=
+        std::abs(v - v_prev) / (3.6 * kHoldRampMps2) + kHoldSettleS + map.settle_s + map.average_s;
     v_prev = v;
   }
   return plan;

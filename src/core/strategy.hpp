@@ -92,9 +92,12 @@ CoastCorrection fit_coast_correction(const RoadLoad& hold_map, std::span<const C
 
 // The loss map's plan, before it is run: the profile's speeds at or below the speed limit less 1 km/h, in the
 // profile's order (the others skipped), and the time they take: each ramp from the previous speed at the
-// motoring rate kHoldRampMps2, 2 s to reach the setpoint, then settle and average (common practice, no
+// motoring rate kHoldRampMps2, kHoldSettleS at the setpoint, then settle and average (common practice, no
 // source). The session shortens the plain warm-up hold by planned_s: the map is part of the warm-up.
 inline constexpr double kHoldRampMps2 = 1.5;
+// How long the session's every speed hold stays at its setpoint before it counts as reached
+// (Session::hold_and_wait; common practice, no source).
+inline constexpr double kHoldSettleS = 2.0;
 struct HoldPlan {
   std::vector<double> speeds_kmh, skipped_kmh;
   double planned_s = 0.0;

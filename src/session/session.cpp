@@ -171,8 +171,8 @@ void Session::transition(State to, const std::string& why) {
 
 Result Session::hold_and_wait(double speed_kmh, const char* what) {
   motion_commanded_ = true;
-  // At the setpoint, then 2 s more to settle; the default step budget of controller time at most.
-  return motion_.hold(speed_kmh, 2.0, what, motion::kDefaultStepBudgetS);
+  // At the setpoint, then kHoldSettleS more to settle; the default step budget of controller time at most.
+  return motion_.hold(speed_kmh, core::kHoldSettleS, what, motion::kDefaultStepBudgetS);
 }
 
 std::optional<Session::Stop> Session::fault(const Result& r, const std::string& during) {
