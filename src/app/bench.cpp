@@ -22,6 +22,7 @@
 #include <optional>
 #include <random>
 #include <thread>
+#include <utility>
 
 #include "app/exit_codes.hpp"
 #include "app/subcommands.hpp"
@@ -102,6 +103,9 @@ struct Result {
   double true_last_n = 0.0;    // worst |coast-down-equivalent error| in the state at the last coast-down
   double true_warm_n = 0.0;    // the same, fully warm
   double steady_warm_n = 0.0;  // worst |steady force − target|, fully warm
+  // Every pass whose next coast-down was predicted (docs/standards.md §3.19) and that coasted on at the same
+  // setting: the predicted chance to fail, and whether the next usable coast-down failed.
+  std::vector<std::pair<double, bool>> next_pass;
 };
 
 double quantile(std::vector<double> x, double q) {
@@ -118,6 +122,7 @@ double quantile(std::vector<double> x, double q) {
 class Phases : public session::Observer {
  public:
   bool on_event(const session::Event& e) override {
+    note_next_pass(e);
     if (!e.stamp || !e.stamp->t_s) return true;
     const double t = *e.stamp->t_s;
     if (have_) {
@@ -157,9 +162,33 @@ class Phases : public session::Observer {
   bool seen = false;
   double warm_end_cell_s = 0.0;
   TimeSplit split;
-  std::optional<core::WarmUpRecord> warm_up;  // the first warm-up hold, as its record keeps it
+  std::optional<core::WarmUpRecord> warm_up;       // the first warm-up hold, as its record keeps it
+  std::vector<std::pair<double, bool>> next_pass;  // Result::next_pass
 
  private:
+  // A pass's predicted chance that the next coast-down fails, paired with that coast-down's verdict when the
+  // setting was not adjusted in between and nothing broke the passes (a discarded run, a stop, a re-warm).
+  void note_next_pass(const session::Event& e) {
+    if (std::holds_alternative<session::ev::CoastdownDiscarded>(e.payload) ||
+        std::holds_alternative<session::ev::PassesReset>(e.payload)) {
+      pending_.reset();
+      return;
+    }
+    const auto* cd = std::get_if<session::ev::Coastdown>(&e.payload);
+    if (!cd) return;
+    const auto& r = cd->record;
+    if (!r.evaluation.usable) {
+      pending_.reset();
+      return;
+    }
+    if (pending_) next_pass.emplace_back(*pending_, !r.evaluation.check.pass);
+    pending_.reset();
+    const auto& np = r.decision.next_pass;
+    if (np && np->predicted && !np->adjusted && r.decision.kind == core::Decision::Kind::run_again &&
+        std::isfinite(np->fail_probability))
+      pending_ = np->fail_probability;
+  }
+  std::optional<double> pending_;
   bool have_ = false, in_map_ = false;
   double last_t_ = 0.0;
   session::State state_ = session::State::connect;
@@ -560,6 +589,7 @@ int run_bench(BenchOptions o) {
     r.cell_min = sum.cell_time_s / 60.0;
     r.after_warm_min = (sum.cell_time_s - run.phases.warm_end_cell_s) / 60.0;
     r.split = run.phases.split;
+    r.next_pass = run.phases.next_pass;
     for (const auto& d : sum.deviations) r.tool_worst_n = std::max(r.tool_worst_n, std::abs(d.deviation_n));
     r.reason = r.accepted ? "" : std::string(session::to_string(sum.outcome)) + ": " + sum.stop_reason;
     r.verification_failed = !r.accepted && sum.stop_reason.find("verification") != std::string::npos;
@@ -799,6 +829,39 @@ int run_bench(BenchOptions o) {
                       {"true_worst_steady_fully_warm_n", worst_steady},
                       {"ratio_coastdowns_vs_standard", mcd / std_cd},
                       {"ratio_cell_time_vs_standard", mmin / std_min}});
+      // The next-pass chance (docs/standards.md §3.19) against what the next coast-down did: the passes that
+      // coasted on, by predicted chance. The outcome is the next coast-down's own verdict, measured on the
+      // simulator's truth, not the model's; a calibrated chance has its observed share near its mean.
+      {
+        const std::vector<double> edges = {0.0, 0.02, 0.1, 0.2, 0.3, 1.0000001};
+        nlohmann::json bins = nlohmann::json::array();
+        std::size_t total = 0, failed_next = 0;
+        double predicted = 0.0;
+        for (std::size_t b = 0; b + 1 < edges.size(); ++b) {
+          std::size_t k = 0, f = 0;
+          double sum = 0.0;
+          for (const auto& r : results[m][s])
+            for (const auto& [chance, fail] : r.next_pass)
+              if (chance >= edges[b] && chance < edges[b + 1]) {
+                ++k;
+                f += fail;
+                sum += chance;
+              }
+          total += k;
+          failed_next += f;
+          predicted += sum;
+          bins.push_back({{"from", edges[b]},
+                          {"to", std::min(1.0, edges[b + 1])},
+                          {"passes", k},
+                          {"mean_predicted", k ? sum / k : 0.0},
+                          {"observed_failure_share", k ? static_cast<double>(f) / k : 0.0}});
+        }
+        if (total > 0)
+          rows.back()["next_pass_calibration"] = {{"passes", total},
+                                                  {"predicted_failures", predicted},
+                                                  {"observed_failures", failed_next},
+                                                  {"bins", bins}};
+      }
       report["methods"][methods[m].key][strategies[s].name] = rows.back();
     }
     std::printf("  cell time split, median minutes: warm-up | loss map | run-ups | coast-downs | other\n");
@@ -822,6 +885,29 @@ int run_bench(BenchOptions o) {
                   row["true_worst_fully_warm_n"].get<double>(),
                   100 * row["steady_force_outside_fully_warm_share"].get<double>(),
                   row["true_worst_steady_fully_warm_n"].get<double>());
+    bool calibration_header = false;
+    for (const auto& row : rows) {
+      if (!row.contains("next_pass_calibration")) continue;
+      if (!calibration_header) {
+        std::printf(
+            "  next-pass chance (docs/standards.md §3.19) against the next coast-down's verdict, passes that "
+            "coasted on:\n"
+            "  %-9s | passes | failures predicted / seen | by chance: passes, mean chance -> share that "
+            "failed\n",
+            "strategy");
+        calibration_header = true;
+      }
+      const auto& c = row["next_pass_calibration"];
+      std::printf("  %-9s | %6zu | %8.1f / %-6zu         |", row["strategy"].get<std::string>().c_str(),
+                  c["passes"].get<std::size_t>(), c["predicted_failures"].get<double>(),
+                  c["observed_failures"].get<std::size_t>());
+      for (const auto& b : c["bins"])
+        if (b["passes"].get<std::size_t>() > 0)
+          std::printf(" [%g-%g) %zu, %.3f -> %.3f;", b["from"].get<double>(), b["to"].get<double>(),
+                      b["passes"].get<std::size_t>(), b["mean_predicted"].get<double>(),
+                      b["observed_failure_share"].get<double>());
+      std::printf("\n");
+    }
     std::printf("\n");
   }
   if (unjudged > 0) {
