@@ -184,7 +184,8 @@ Result LineController::do_connect(Deadline d) {
     return r;
   hello_caps_ = field(rep, "caps").value_or("");
   const auto v = number_field(rep, "version");
-  if (!v || static_cast<int>(*v) != kProtocolVersion)
+  // Exactly the version, a whole number: 1.9 is not 1 (and a huge value is never cast).
+  if (!v || *v != static_cast<double>(kProtocolVersion))
     return Result::fail("controller speaks protocol version " + field(rep, "version").value_or("?") +
                         ", loadtrim speaks " + std::to_string(kProtocolVersion));
   return Result::success();
@@ -203,12 +204,17 @@ Result LineController::do_identify(controller::ControllerInfo& out, Deadline d) 
   out.name = field(rep, "name").value_or("");
   // IDENT's own list when it states one, else the handshake's (docs/protocol.md section 3).
   out.capabilities = field(rep, "caps").value_or(hello_caps_);
-  out.protocol_version = static_cast<int>(number_field(rep, "version").value_or(0));
+  const auto pv = number_field(rep, "version");
+  out.protocol_version = pv && *pv >= 0.0 && *pv <= 1e6 ? static_cast<int>(*pv) : 0;
   out.roller_diameter_m = *dia;
   out.base_inertia_kg = *inertia;
   out.max_speed_kmh = *vmax;
   out.max_force_n = *fmax;
-  out.time_scale = number_field(rep, "time_scale").value_or(1.0);
+  // Absent: a real-time clock (docs/protocol.md section 3). Present, it must be a number.
+  const auto ts = number_field(rep, "time_scale");
+  if (field(rep, "time_scale") && !ts)
+    return Result::fail("IDENT reply's time_scale=" + *field(rep, "time_scale") + " is not a number");
+  out.time_scale = ts.value_or(1.0);
   return Result::success();
 }
 
@@ -293,11 +299,21 @@ Result LineController::do_status(controller::StatusReport& out, Deadline d) {
     return Result::fail("STATUS reply is incomplete");
   out.speed_kmh = *v;
   out.time_s = *t;
+  // The flags as docs/protocol.md section 7 gives them: hex, every character a digit, within 32 bits.
   std::uint32_t fl = 0;
-  std::from_chars(flags->data(), flags->data() + flags->size(), fl, 16);
+  const auto [end, ec] = std::from_chars(flags->data(), flags->data() + flags->size(), fl, 16);
+  if (flags->empty() || ec != std::errc() || end != flags->data() + flags->size())
+    return Result::fail("STATUS reply's flags=" + *flags + " is not a hex bit field");
   out.flags = fl;
-  const std::string fault = field(rep, "fault").value_or("none");
-  out.fault = fault == "none" ? "" : fault;
+  // The fault's name must be there and agree with the flags: a latched fault with "none", or a name with no
+  // fault flag, is a reply that cannot be believed either way.
+  const auto fault = field(rep, "fault");
+  if (!fault) return Result::fail("STATUS reply is incomplete (no fault field)");
+  const bool flagged =
+      (fl & (controller::kFlagFault | controller::kFlagEstop | controller::kFlagWatchdog)) != 0;
+  if (flagged != (*fault != "none"))
+    return Result::fail("STATUS reply's fault=" + *fault + " disagrees with its flags=" + *flags);
+  out.fault = *fault == "none" ? "" : *fault;
   return Result::success();
 }
 

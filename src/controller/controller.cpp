@@ -513,12 +513,24 @@ KeepAlive::~KeepAlive() {
   thread_.join();
 }
 
+bool tool_may_clear(const StatusReport& st) {
+  return st.fault == "WATCHDOG" && (st.flags & kFlagWatchdog) != 0 && (st.flags & kFlagEstop) == 0;
+}
+
 Result Controller::status(StatusReport& out) {
   return guarded("status", [&] {
     if (Result r = do_status(out, reply_deadline()); !r.ok()) return r;
     if (!std::isfinite(out.speed_kmh) || out.speed_kmh < -2.0)
       return Result::fail("the controller's status reports a speed of " + num(out.speed_kmh) +
                           " km/h, not a speed");
+    // Checked while stopping too (the clock guard is not): a stop is never confirmed on a time that is not
+    // one.
+    if (!std::isfinite(out.time_s))
+      return Result::fail("the controller's status reports a time of " + num(out.time_s) + " s, not a time");
+    // A fault the flags show is a fault, whatever name the status gives (or leaves out): the emergency stop
+    // named first, the one that must never be taken for a watchdog stop.
+    if (out.fault.empty() && (out.flags & (kFlagFault | kFlagEstop | kFlagWatchdog)) != 0)
+      out.fault = (out.flags & kFlagEstop) ? "ESTOP" : (out.flags & kFlagWatchdog) ? "WATCHDOG" : "FAULT";
     if (!stopping_)
       if (auto v = clock_.on_status(out.time_s, wall_s())) return Result::fail(*v);
     return Result::success();

@@ -101,6 +101,12 @@ struct StatusReport {
   std::string fault;  // empty when none
 };
 
+// The one fault the tool clears on its own (docs/safety.md, "Faults the tool clears"): the watchdog stop its
+// own silence caused (a killed tool, a lost link), named WATCHDOG with the watchdog flag set and the
+// emergency-stop flag clear. An emergency stop, a fault of the controller's own, an unknown name or a name
+// the flags do not bear out stays latched for the operator at the cell.
+bool tool_may_clear(const StatusReport& st);
+
 struct Timeouts {
   std::chrono::milliseconds connect{3000};
   std::chrono::milliseconds reply{1000};

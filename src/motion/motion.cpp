@@ -89,6 +89,10 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
         r.message += " (during " + step.what + ")";
         return r;
       }
+      // A fault the status names (or its flags show: Controller::status) ends the step as a fault flag on a
+      // sample does (docs/safety.md), whether or not the samples carry it.
+      if (!st.fault.empty())
+        return Result::fail("the controller's status reports fault \"" + st.fault + "\" during " + step.what);
     }
     if (step.stoppable && stop_requested())
       return Result::fail("interrupted by the operator during " + step.what, kInterrupted);
@@ -298,7 +302,10 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
   st.since_epoch = c_.epoch();
   st.stoppable = false;
   // Held for standstill_hold_s of controller time, or of the tool's own time when the controller's clock
-  // does not move (a frozen clock must not keep the stop from being confirmed, nor confirm it at once).
+  // does not move (a frozen clock must not keep the stop from being confirmed, nor confirm it at once). The
+  // clock guard is off while stopping, so the controller's time alone never confirms it faster than half the
+  // hold at the rate the controller stated (a clock that jumps ahead must not either; a controller simulated
+  // in the tool's own process has no wall-related clock).
   double still_since = std::numeric_limits<double>::quiet_NaN();
   Clock::time_point still_wall{};
   Result r = collect(st, [&](const Sample& s) {
@@ -310,8 +317,11 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
       still_since = s.time_s;
       still_wall = Clock::now();
     }
-    return s.time_s - still_since >= rules_.standstill_hold_s ||
-           seconds(Clock::now() - still_wall) >= rules_.standstill_hold_s;
+    const double wall_s = seconds(Clock::now() - still_wall);
+    return (s.time_s - still_since >= rules_.standstill_hold_s &&
+            (!c_.limits().clock_wall_related ||
+             wall_s * c_.time_scale() >= 0.5 * rules_.standstill_hold_s)) ||
+           wall_s >= rules_.standstill_hold_s;
   });
   stopped = r.ok();
   return r;
@@ -328,7 +338,9 @@ Result Motion::settle_by_status(double budget_s, controller::StatusReport& st) {
     if (Result r = c_.status(st); !r.ok()) return r;
     if (t_first < 0.0) t_first = st.time_s;
     if (at_rest(st.speed_kmh, st.mode)) return Result::success();
-    if (st.mode == Mode::speed_hold || st.mode == Mode::road_load || st.mode == Mode::constant_force)
+    // Not at rest and not stopping: commanded to stop, whatever the mode says (idle at speed is a free coast
+    // nobody brakes: docs/safety.md).
+    if (st.mode != Mode::controlled_stop)
       if (Result r = c_.controlled_stop(); !r.ok()) return r;
     if (st.time_s - t_first > budget_s)
       return Result::fail("the rollers did not stop within " + num(budget_s) +

@@ -64,8 +64,8 @@ struct Rules {
       0.25;  // the slowest the controller's clock may run, × its stated rate (as the clock guard)
   std::chrono::milliseconds wall_slack{20000};
   // How often the steps also ask the controller's status (its clock is checked against the samples' there,
-  // and an error there ends the step): after this much wall time or status_every_controller_s of controller
-  // time, whichever comes first, counted across steps; 0 = never.
+  // and an error or a fault it names ends the step): after this much wall time or status_every_controller_s
+  // of controller time, whichever comes first, counted across steps; 0 = never.
   std::chrono::milliseconds status_every{1000};
   double status_every_controller_s = 30.0;
   // How often a step hands the controller's warnings on (Motion::on_warning): a flaky link raising one

@@ -196,6 +196,18 @@ bool Session::settle_and_clear(const std::string& when) {
     return false;
   }
   if (!st.fault.empty()) {
+    if (!controller::tool_may_clear(st)) {
+      // Not the watchdog stop the tool's own silence caused: an emergency stop or the controller's own fault
+      // is the cell's to clear, by a person who knows why it latched (docs/safety.md).
+      char flags[16];
+      std::snprintf(flags, sizeof flags, "%02X", static_cast<unsigned>(st.flags));
+      held_fault_ =
+          "controller fault \"" + st.fault + "\" (flags " + flags + ") latched " + when +
+          ": the tool clears only a watchdog stop it caused; an emergency stop or another fault needs "
+          "the operator at the cell (find its cause, clear it at the controller, then run or resume)";
+      emit(ev::FaultCleared{st.fault, when, false, "not cleared: " + held_fault_});
+      return false;
+    }
     const Result cr = c_.clear_fault();
     emit(ev::FaultCleared{st.fault, when, cr.ok(), cr.message});
     if (!cr.ok()) return false;
@@ -216,8 +228,30 @@ bool Session::recover_link(const std::string& why) {
     if (r.ok()) r = c_.identify(info_);
     emit(ev::Reconnect{attempt, policy.attempts, r.ok(), r.message});
     if (!r.ok()) continue;
-    // Settle first, stream after: no stale samples from the stopping rollers reach the next wait.
-    if (!settle_and_clear("after the lost link")) continue;
+    // The controller that answers may not be the one the session began with: checked as on connect, and the
+    // session's speed limit taken again from what it states now (the lower, never the higher).
+    emit(ev::ControllerIdentified{info_});
+    if (const core::Problems mismatch = controller::check_identity(in_.cell, info_); !mismatch.empty()) {
+      std::string msg;
+      for (const auto& q : mismatch) msg += (msg.empty() ? "" : "; ") + q.key + ": " + q.message;
+      held_fault_ = "after the lost link the controller does not match the cell file: " + msg;
+      return false;
+    }
+    const auto& p = in_.profile;
+    if (const auto why = core::limits_refusal(p, in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh,
+                                              info_.max_speed_kmh, in_.cell.max_motoring_s)) {
+      held_fault_ = "after the lost link: " + *why;
+      return false;
+    }
+    speed_limit_kmh_ = std::min(
+        speed_limit_kmh_, core::session_speed_limit_kmh(in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh,
+                                                        info_.max_speed_kmh));
+    // Settle first, stream after: no stale samples from the stopping rollers reach the next wait. A fault the
+    // tool may not clear ends the attempts: reconnecting again would not clear it either.
+    if (!settle_and_clear("after the lost link")) {
+      if (!held_fault_.empty()) return false;
+      continue;
+    }
     if (!c_.start_stream(opt_.sample_rate_hz).ok()) continue;
     link_up_ = true;
     emit(ev::LinkRestored{attempt});
@@ -271,7 +305,10 @@ std::optional<Session::Stop> Session::do_connect() {
   if (!st.fault.empty() || !motion_.at_rest(st.speed_kmh, st.mode)) {
     emit(ev::ControllerStateOnConnect{st.fault, st.speed_kmh, st.mode});
     if (!settle_and_clear("on connect"))
-      return fault(Result::fail("the controller did not reach a stopped, fault-free state"), "connect");
+      return fault(
+          Result::fail(held_fault_.empty() ? "the controller did not reach a stopped, fault-free state"
+                                           : held_fault_),
+          "connect");
   }
   if (r = c_.start_stream(opt_.sample_rate_hz); !r.ok()) return fault(r, "start stream");
   link_up_ = true;
@@ -882,7 +919,7 @@ std::optional<Session::Stop> Session::do_run(int run) {
       ++discarded_;
       reset_passes(
           run, std::string("coast-down ") + std::to_string(run) + " discarded: link lost during " + during);
-      if (!recover_link(r.message)) return fault(r, during);
+      if (!recover_link(r.message)) return fault(held_fault_.empty() ? r : Result::fail(held_fault_), during);
       if (!clear_driver_prompt(run, "after the lost link"))
         return Stop{Outcome::controller_fault, "the driver display could not be cleared after the lost link"};
       if (unusable_ >= p.max_unusable_runs)
@@ -1210,17 +1247,20 @@ void Session::do_safe_stop() {
   // Without confirmation from the stream, ask the controller's status (every poll bounded in both clocks).
   controller::StatusReport st;
   Result sr = Result::fail("not asked");
-  bool seen = true;  // st holds a status the controller sent
+  bool seen = false;  // st holds a status the controller sent and the controller layer accepted
   if (stopped) {
     // The stream saw a standstill; the controller's own status must agree, or the wait goes on by status.
-    if (Result q = c_.status(st); !q.ok())
-      seen = false;  // nothing read: the record says so rather than a speed nobody reported
-    else if (!motion_.standstill(st.speed_kmh))
+    // A status that could not be read or failed its checks is no agreement: the wait goes on by status.
+    if (Result q = c_.status(st); q.ok() && motion_.standstill(st.speed_kmh))
+      seen = true;
+    else
       stopped = false;
   }
   if (!stopped) {
-    seen = true;
+    st = {};
     sr = motion_.settle_by_status(opt_.stop_budget_s, st);
+    // Ended by its own deadlines, the wait read statuses; ended by a status read, st is not one.
+    seen = sr.ok() || sr.code == motion::kTooSlow || sr.code == motion::kWallDeadline;
   }
   c_.stop_stream();
   rollers_stopped_ = stopped || sr.ok();

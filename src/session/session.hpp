@@ -226,6 +226,9 @@ class Session {
   bool first_after_warm_up_ = true;  // the next release is the first after a (re-)warm-up: the 120 s rule
   bool safe_stop_done_ = false, rollers_stopped_ = false, motion_commanded_ = false;
   std::string stop_note_;
+  // Why the link could not be recovered for good (a fault the tool may not clear, another controller): the
+  // session's fault, in place of the lost link's message. Empty otherwise.
+  std::string held_fault_;
   double last_progress_s_ = -1e300;
   std::optional<core::DivergenceWatch> divergence_;
 };

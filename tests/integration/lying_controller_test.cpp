@@ -128,6 +128,13 @@ const Row kRows[] = {
     // there).
     {"status_clock_ahead", Lie::status_clock_ahead, Trigger::at_start(), Cmd::run, 3,
      "status clock and sample clock disagree", 60, false},
+    // STATUS replies whose flags show a latched fault, an emergency stop and a watchdog stop while the
+    // fault's
+    // name says "none" (docs/protocol.md sections 7 and 9: the flags and the name are one state). Before, the
+    // flags were parsed unchecked and never read: the tool motored on such replies. Now the reply is refused
+    // (at the first status read once the lie begins: the periodic one during the hold) and the rollers stop.
+    {"status_fault_hidden", Lie::status_fault_hidden, hold30(), Cmd::run, 3, "disagrees with its flags", 60,
+     false},
     // The setting is acknowledged and read back but never applied after the first: the tool must see the
     // coast-downs not respond and stop, not drive the setting to absurd values.
     {"setting_not_applied", Lie::setting_not_applied, Trigger::at_start(), Cmd::run, 3,

@@ -44,6 +44,8 @@ const char* to_string(Lie lie) {
       return "clock_runs_slow";
     case Lie::status_clock_ahead:
       return "status_clock_ahead";
+    case Lie::status_fault_hidden:
+      return "status_fault_hidden";
     case Lie::setting_not_applied:
       return "setting_not_applied";
     case Lie::readback_differs:
@@ -420,6 +422,12 @@ struct LyingProxy::Impl {
         }
         break;
       }
+      case Lie::status_fault_hidden:
+        if (armed && status_reply) {
+          set_kv("flags", "07");
+          set_kv("fault", "none");
+        }
+        break;
       case Lie::setting_not_applied:
         break;  // acts on requests
       case Lie::readback_differs:

@@ -41,6 +41,8 @@ enum class Lie : std::uint8_t {
   clock_runs_slow,      // the clock runs at 0.55 of the controller's from the trigger on (above the guard's
                         // minimum rate: found by its growing lag on the wall)
   status_clock_ahead,   // STATUS replies' time_s = true + 5000 s; samples keep the true clock
+  status_fault_hidden,  // STATUS replies say flags=07 fault=none (fault, emergency-stop and watchdog bits
+                        // set, the fault's name left out)
   setting_not_applied,  // COEF SET after the first: answered OK by the proxy, not forwarded; COEF GET then
                         // answered by the proxy with what the tool last wrote
   readback_differs,     // replies to COEF GET report f0 + 1 N

@@ -5,6 +5,8 @@
 // is stated beside the check.
 #include <gtest/gtest.h>
 
+#include <chrono>
+#include <cmath>
 #include <limits>
 #include <optional>
 #include <thread>
@@ -628,4 +630,109 @@ TEST(Motion, TheControllersWarningsAreHandedOnDuringAndAtTheEndOfEveryStep) {
   EXPECT_EQ(total, static_cast<std::uint64_t>(c.warned));
   EXPECT_GE(total, 1u);
   EXPECT_TRUE(c.take_warnings().empty());
+}
+
+// docs/safety.md, "Faults the tool clears": the one fault the tool clears on its own is the watchdog stop its
+// own silence caused (docs/protocol.md sections 7-9: WATCHDOG with flags 05). An emergency stop, the
+// controller's own fault, or a watchdog name the flags do not bear out (no watchdog bit, or the
+// emergency-stop bit set beside it) stays latched for the operator.
+TEST(FaultClearing, OnlyAWatchdogStopIsTheToolsToClear) {
+  using controller::kFlagEstop;
+  using controller::kFlagFault;
+  using controller::kFlagWatchdog;
+  auto report = [](std::string fault, std::uint32_t flags) {
+    controller::StatusReport st;
+    st.fault = std::move(fault);
+    st.flags = flags;
+    return st;
+  };
+  EXPECT_TRUE(controller::tool_may_clear(report("WATCHDOG", kFlagFault | kFlagWatchdog)));
+  EXPECT_FALSE(controller::tool_may_clear(report("ESTOP", kFlagFault | kFlagEstop)));
+  EXPECT_FALSE(controller::tool_may_clear(report("WATCHDOG", kFlagFault | kFlagWatchdog | kFlagEstop)));
+  EXPECT_FALSE(controller::tool_may_clear(report("WATCHDOG", kFlagFault)));
+  EXPECT_FALSE(controller::tool_may_clear(report("FAULT", kFlagFault)));
+  EXPECT_FALSE(controller::tool_may_clear(report("OVERTEMP", kFlagFault | kFlagWatchdog)));
+}
+
+// A status whose flags show a fault names it even when the adapter left the name out, the emergency stop
+// first (docs/protocol.md section 7); a status time that is not a number is refused while stopping too (the
+// clock guard is off then, docs/safety.md).
+TEST(StatusChecks, AFaultTheFlagsShowIsNamedAndATimeThatIsNotOneIsRefused) {
+  FakeController c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  c.script.status_lie = [](controller::StatusReport& st) {
+    st.fault.clear();
+    st.flags |= controller::kFlagFault | controller::kFlagEstop | controller::kFlagWatchdog;
+  };
+  controller::StatusReport st;
+  ASSERT_TRUE(c.status(st).ok());
+  EXPECT_EQ(st.fault, "ESTOP");
+  c.script.status_lie = [](controller::StatusReport& s) { s.time_s = std::nan(""); };
+  c.set_stopping(true);
+  const auto r = c.status(st);
+  c.set_stopping(false);
+  EXPECT_FALSE(r.ok());
+  EXPECT_NE(r.message.find("not a time"), std::string::npos) << r.message;
+}
+
+// docs/safety.md (the stop): standstill is held for standstill_hold_s (1 s) before the stop is confirmed.
+// While stopping the clock guard is off, so a controller clock that runs ahead of the wall must not confirm
+// it at once: with a wall-related clock stated at real time, the hold takes at least half its length of wall
+// time. The fake's clock runs as fast as the host allows (0.5 s per receive); before, the stop was confirmed
+// after three samples, within milliseconds.
+TEST(Motion, AStopIsNotConfirmedFasterThanTheControllersStatedClockAllows) {
+  FakeController c(loadtrim::testing::demo_truth(), FakeController::fast_timeouts(),
+                   {160.0, 8000.0, 1e9, true});
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  ASSERT_DOUBLE_EQ(c.time_scale(), 1.0);
+  motion::Motion m(c, {});
+  bool stopped = false;
+  const auto t0 = std::chrono::steady_clock::now();
+  const auto r = m.stop_and_wait(60.0, stopped);
+  const double took = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  // Confirmed only after half the hold of wall time; or, as here where the fake's clock runs far ahead, not
+  // confirmed at all once the stop's controller-time budget has gone (the rollers not confirmed stopped, exit
+  // 3 in a session): never a confirmation within milliseconds.
+  if (stopped) {
+    EXPECT_TRUE(r.ok()) << r.message;
+    EXPECT_GE(took, 0.45);
+  } else {
+    EXPECT_EQ(r.code, motion::kTooSlow) << r.message;
+  }
+}
+
+// docs/safety.md (the stop): rollers that are not at rest are commanded to stop whatever mode the controller
+// reports. IDLE at 90 km/h is a free coast nobody brakes (found on connect or after a lost link); before,
+// only the motoring modes were commanded to stop and the wait ran out its budget.
+TEST(Motion, RollersIdleAtSpeedAreCommandedToStop) {
+  FakeController c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  c.script.status_lie = [&](controller::StatusReport& st) {
+    if (c.sent(Mode::controlled_stop)) return;
+    st.mode = Mode::idle;
+    st.speed_kmh = 90.0;
+  };
+  motion::Motion m(c, {});
+  controller::StatusReport st;
+  const auto r = m.settle_by_status(0.2, st);
+  EXPECT_TRUE(c.sent(Mode::controlled_stop));
+  EXPECT_TRUE(r.ok()) << r.message;
+}
+
+// docs/safety.md: a fault ends a step whether the samples' flags or the controller's status show it. Here
+// only the status names it (the samples stay clean): the periodic status read during the step ends it.
+// Before, that read was checked for errors only and the hold went on.
+TEST(Motion, AFaultOnlyTheStatusShowsEndsTheStep) {
+  FakeController c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  motion::Rules rules;
+  rules.status_every_controller_s = 1.0;
+  motion::Motion m(c, rules);
+  c.script.status_lie = [](controller::StatusReport& st) {
+    st.fault = "ESTOP";
+    st.flags |= controller::kFlagFault | controller::kFlagEstop;
+  };
+  const auto r = m.hold(50.0, 1.0, "run-up", 120.0);
+  EXPECT_FALSE(r.ok());
+  EXPECT_NE(r.message.find("reports fault \"ESTOP\""), std::string::npos) << r.message;
 }

@@ -7,6 +7,7 @@
 #include <gtest/gtest.h>
 
 #include <algorithm>
+#include <cmath>
 #include <cstdio>
 #include <cstdlib>
 #include <filesystem>
@@ -2453,4 +2454,116 @@ TEST(SessionUnit, APassTheWarmingWillTakeOutsideTheLimitIsAdjustedNow) {
   resume_after_first_pass(false, after_kept);
   ASSERT_EQ(after_kept.size(), 1u) << "the control: the pass coasted on is in hand when the session stops";
   EXPECT_EQ(after_kept[0].passes, 1);
+}
+
+// docs/safety.md, "Faults the tool clears": a fault latched before the tool came is cleared only when it is
+// the watchdog stop a killed tool left (WATCHDOG, flags 05: docs/protocol.md sections 7-9). An emergency stop
+// stays latched: the session ends as a controller fault (exit 3) saying the operator is needed, and nothing
+// is commanded to move. Before, any latched fault was cleared and the rollers motored.
+TEST(SessionUnit, AnEmergencyStopLatchedBeforeTheToolCameIsNotClearedAndNothingMoves) {
+  struct Case {
+    const char* fault;
+    std::uint32_t flags;
+    bool cleared;
+  };
+  using controller::kFlagEstop;
+  using controller::kFlagFault;
+  using controller::kFlagWatchdog;
+  for (const Case k : {Case{"ESTOP", kFlagFault | kFlagEstop, false},
+                       Case{"WATCHDOG", kFlagFault | kFlagWatchdog | kFlagEstop, false},
+                       Case{"WATCHDOG", kFlagFault | kFlagWatchdog, true}}) {
+    SCOPED_TRACE(std::string(k.fault) + " flags " + std::to_string(k.flags));
+    FakeController c(loadtrim::testing::demo_truth());
+    bool clear_asked = false;
+    c.script.status_lie = [&](controller::StatusReport& st) {
+      if (clear_asked) return;  // a clear that was sent is taken
+      st.fault = k.fault;
+      st.flags |= k.flags;
+    };
+    std::vector<session::ev::FaultCleared> clears;
+    Hook hook([&](const session::Event& e) {
+      if (const auto* f = std::get_if<session::ev::FaultCleared>(&e.payload)) {
+        clears.push_back(*f);
+        clear_asked = f->ok;
+      }
+    });
+    session::Session s(inputs(), options(), c, {&hook});
+    const auto sum = s.run();
+    ASSERT_EQ(clears.size(), 1u) << sum.stop_reason;
+    EXPECT_EQ(clears[0].ok, k.cleared) << clears[0].message;
+    if (k.cleared) {
+      EXPECT_TRUE(c.sent(Mode::speed_hold)) << sum.stop_reason;
+      EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;
+      continue;
+    }
+    EXPECT_EQ(sum.outcome, session::Outcome::controller_fault);
+    EXPECT_NE(sum.stop_reason.find("needs the operator at the cell"), std::string::npos) << sum.stop_reason;
+    EXPECT_FALSE(c.sent(Mode::speed_hold));
+    EXPECT_FALSE(c.sent(Mode::road_load));
+    EXPECT_TRUE(sum.rollers_stopped);
+  }
+}
+
+// The same after a lost link (docs/safety.md): the controller found latched on reconnecting is cleared only
+// for the watchdog stop the lost link caused, and the controller that answers must still be the cell's
+// (roller diameter and base inertia as the cell file says, as on connect). An emergency stop, or another
+// controller, ends the session (exit 3) with no further reconnection and nothing more commanded to move.
+// Before, the emergency stop was cleared and the session went on to acceptance, and a controller stating
+// other rollers was driven.
+TEST(SessionUnit, AfterALostLinkAnEmergencyStopOrAnotherControllerEndsTheSession) {
+  for (const std::string lie : {"estop", "identity"}) {
+    SCOPED_TRACE(lie);
+    FakeController c(loadtrim::testing::demo_truth());
+    bool lost = false;
+    std::size_t commands_at_loss = 0;
+    int reconnects = 0;
+    Hook hook([&](const session::Event& e) {
+      if (std::holds_alternative<session::ev::CoastdownStarted>(e.payload) && !lost) {
+        lost = true;
+        c.script.silent = true;
+      }
+      if (std::holds_alternative<session::ev::LinkLost>(e.payload)) {
+        c.script.silent = false;
+        commands_at_loss = c.commands.size();
+        if (lie == "estop")
+          c.script.status_lie = [](controller::StatusReport& st) {
+            st.fault = "ESTOP";
+            st.flags |= controller::kFlagFault | controller::kFlagEstop;
+          };
+        else
+          c.script.identify_lie = [](controller::ControllerInfo& i) { i.roller_diameter_m = 0.5; };
+      }
+      if (std::holds_alternative<session::ev::Reconnect>(e.payload)) ++reconnects;
+    });
+    session::Session s(inputs(), options(), c, {&hook});
+    const auto sum = s.run();
+    ASSERT_TRUE(lost);
+    EXPECT_EQ(sum.outcome, session::Outcome::controller_fault) << sum.stop_reason;
+    EXPECT_NE(sum.stop_reason.find(lie == "estop" ? "needs the operator at the cell"
+                                                  : "does not match the cell file"),
+              std::string::npos)
+        << sum.stop_reason;
+    EXPECT_EQ(reconnects, 1);
+    for (std::size_t i = commands_at_loss; i < c.commands.size(); ++i) {
+      EXPECT_NE(c.commands[i].first, Mode::speed_hold) << "command " << i;
+      EXPECT_NE(c.commands[i].first, Mode::road_load) << "command " << i;
+    }
+  }
+}
+
+// docs/safety.md (the stop): the stream's standstill must be confirmed by the controller's status. A status
+// that fails its checks (here a time that is not a number, once the stop is commanded) is no confirmation:
+// the run ends "rollers not confirmed stopped" (exit 3). Before, a status that could not be read left the
+// stop confirmed by the stream alone.
+TEST(SessionUnit, AStatusThatFailsItsChecksAtTheStopIsNoConfirmation) {
+  FakeController c(loadtrim::testing::demo_truth());
+  c.script.status_lie = [&](controller::StatusReport& st) {
+    if (c.sent(Mode::controlled_stop)) st.time_s = std::nan("");
+  };
+  session::Session s(inputs(), options(), c, {});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::accepted) << sum.stop_reason;  // the stop at the end, no earlier
+  EXPECT_TRUE(c.sent(Mode::controlled_stop));
+  EXPECT_FALSE(sum.rollers_stopped) << sum.stop_note;
+  EXPECT_NE(sum.stop_note.find("not confirmed"), std::string::npos) << sum.stop_note;
 }
