@@ -9,6 +9,7 @@
 #include <fstream>
 #include <functional>
 #include <iostream>
+#include <iterator>
 #include <sstream>
 #include <thread>
 
@@ -450,7 +451,8 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   if (rp.finished_recorded) {
     // Everything but the seal was written: seal what summary.json says (nothing hashed is ever rewritten).
     std::ifstream sj((fs::path(folder) / "summary.json").string());
-    const nlohmann::json summary = nlohmann::json::parse(sj, nullptr, false);
+    const nlohmann::json summary =
+        record::parse_record_json(std::string(std::istreambuf_iterator<char>(sj), {}));
     if (!summary.is_object()) {
       std::cerr << "loadtrim: record failure: the finished record names summary.json, which cannot be read\n";
       return kRecordFailure;
