@@ -2,10 +2,15 @@
 // of a sealed folder. Only a folder that verifies (the cell's seal checked against a trusted key) is
 // approved; the approval names the seal it approves and is verified by `loadtrim verify`. Thin:
 // record/seal.hpp writes it.
+#include <chrono>
 #include <cstdio>
 #include <filesystem>
 #include <memory>
+#include <optional>
+#include <string>
+#include <thread>
 
+#include "app/cell_locks.hpp"
 #include "app/exit_codes.hpp"
 #include "app/subcommands.hpp"
 #include "record/data_root.hpp"
@@ -15,6 +20,12 @@
 namespace loadtrim::app {
 
 namespace {
+
+// How long a second `approve` of one folder waits for the first to finish before it is refused (an approval
+// verifies the folder, signs and appends one record: well under a second for a session folder; the project's
+// own choice, docs/records.md "Approvals").
+constexpr auto kApproveLockWait = std::chrono::seconds(10);
+constexpr auto kApproveLockPoll = std::chrono::milliseconds(100);
 
 struct ApproveArgs {
   std::string folder, reviewer, key, statement, data_dir, checks;
@@ -65,6 +76,25 @@ int approve(const ApproveArgs& a) {
           registered.c_str());
     }
   }
+  // The folder's lock (the one run and resume hold: docs/safety.md §7), held across the verify, the read of
+  // the log and the append, so that two approvals never both append after the same record. A second approver
+  // waits for it up to kApproveLockWait, then is refused naming the holder.
+  std::optional<record::FileLock> folder_lock;
+  std::string lock_msg;
+  const auto give_up = std::chrono::steady_clock::now() + kApproveLockWait;
+  while (!lock_folder(a.folder, "approve", folder_lock, lock_msg)) {
+    const bool busy = lock_msg.rfind("folder busy", 0) == 0;
+    if (!busy || std::chrono::steady_clock::now() >= give_up) {
+      const std::string waited =
+          busy ? " (waited " + std::to_string(kApproveLockWait.count()) + " s for it); nothing was written"
+               : "";
+      std::fprintf(stderr, "loadtrim approve: refusing to approve %s: %s%s\n", a.folder.c_str(),
+                   lock_msg.c_str(), waited.c_str());
+      return kBadInput;
+    }
+    std::this_thread::sleep_for(kApproveLockPoll);
+  }
+  if (!lock_msg.empty()) std::printf("note: %s\n", lock_msg.c_str());  // a stale lock taken over
   // Approve only what verifies: approvals may follow the seal, so whether other approvals are already there
   // does not matter, but an unknown reviewer key among them does not stop a new approval.
   const record::FolderVerdict v = record::verify_folder(a.folder, opt);

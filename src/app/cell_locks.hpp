@@ -21,7 +21,8 @@ std::string endpoint_key(const controller::CellConfig& cell);
 // over (for the record). A cell simulated in-process needs no lock: true, `held` left empty.
 bool lock_cell(const controller::CellConfig& cell, record::LockMode mode, const std::string& command,
                const std::string& folder, std::optional<record::FileLock>& held, std::string& message);
-// The lock on one session folder (held by `run` for its session, and by `resume`); the lock file lives in the
+// The lock on one session folder (held by `run` for its session, by `resume`, and by `approve` across its
+// verify, read and append; approve alone retries for a while, docs/safety.md §7); the lock file lives in the
 // lock directory, never inside the folder (the folder's files are all evidence).
 bool lock_folder(const std::string& folder, const std::string& command, std::optional<record::FileLock>& held,
                  std::string& message);

@@ -9,6 +9,7 @@
 #include <fstream>
 #include <functional>
 #include <iostream>
+#include <iterator>
 #include <sstream>
 #include <thread>
 
@@ -450,7 +451,8 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
   if (rp.finished_recorded) {
     // Everything but the seal was written: seal what summary.json says (nothing hashed is ever rewritten).
     std::ifstream sj((fs::path(folder) / "summary.json").string());
-    const nlohmann::json summary = nlohmann::json::parse(sj, nullptr, false);
+    const nlohmann::json summary =
+        record::parse_record_json(std::string(std::istreambuf_iterator<char>(sj), {}));
     if (!summary.is_object()) {
       std::cerr << "loadtrim: record failure: the finished record names summary.json, which cannot be read\n";
       return kRecordFailure;
@@ -523,6 +525,43 @@ int finalise_recorded(const std::string& folder, const session::Inputs& in, cons
     return kControllerFault;
   }
   return exit_code_for(sum.outcome);
+}
+
+// A member's value for a message: compact JSON, cut at 40 characters.
+std::string shown(const nlohmann::json& j) {
+  std::string s = j.dump(-1, ' ', false, nlohmann::json::error_handler_t::replace);
+  return s.size() > 40 ? s.substr(0, 40) + "..." : s;
+}
+
+// What resume reads from a session_started record (the first command line's choices), each member's type and
+// range checked: "" when every member present is as `run` writes it (docs/records.md, "When folders are
+// sealed, and resume"), else which member is wrong and what is allowed. A member an older folder lacks is
+// taken from this command line, as before.
+std::string started_record_problem(const nlohmann::json& r) {
+  if (r.contains("first_setting_requested")) {
+    const nlohmann::json& f = r["first_setting_requested"];
+    core::FirstSetting parsed{};
+    if (!f.is_string() || !core::parse(f.get<std::string>(), parsed))
+      return "\"first_setting_requested\" is " + shown(f) +
+             "; allowed: one of the strings \"standard\", \"fleet\", \"loss-map\", \"history\"";
+  }
+  if (!r.contains("overrides")) return "";
+  const nlohmann::json& o = r["overrides"];
+  if (!o.is_object())
+    return "\"overrides\" is " + shown(o) + "; allowed: an object with \"port\" and \"device\"";
+  if (o.contains("port")) {
+    const nlohmann::json& p = o["port"];
+    const bool in_range = (p.is_number_unsigned() && p.get<std::uint64_t>() <= 65535) ||
+                          (p.is_number_integer() && !p.is_number_unsigned() && p.get<std::int64_t>() >= 0 &&
+                           p.get<std::int64_t>() <= 65535);
+    if (!in_range)
+      return "\"overrides.port\" is " + shown(p) +
+             "; allowed: an integer from 1 to 65535 (the --port given to run), or 0 for none";
+  }
+  if (o.contains("device") && !o["device"].is_string())
+    return "\"overrides.device\" is " + shown(o["device"]) +
+           "; allowed: a string (the --device given to run), \"\" for none";
+  return "";
 }
 
 }  // namespace
@@ -808,6 +847,11 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
   Loaded l = load_all(in + "/cell.toml", in + "/target.toml", in + "/profile.toml", req);
   for (const auto& r : records)
     if (r.value("type", "") == "session_started") {
+      if (const std::string why = started_record_problem(r); !why.empty()) {
+        std::cerr << "loadtrim: refusing to resume " << folder << ": record " << r["seq"].get<std::uint64_t>()
+                  << " (session_started): " << why << "\n";
+        return kRecordFailure;
+      }
       req.first_setting = r.value("first_setting_requested", req.first_setting);
       // The port or device given on the first command line, unless this one gives another.
       if (overrides.port == 0 && r.contains("overrides") && r["overrides"].value("port", 0) > 0)

@@ -5,6 +5,7 @@
 #include <filesystem>
 #include <fstream>
 #include <functional>
+#include <iterator>
 #include <sstream>
 
 #include "checks/check_runner.hpp"
@@ -38,9 +39,13 @@ const char* cell_class(bool passed) {
 
 bool write_check_report(const std::string& folder, std::string& error) {
   std::ifstream in((fs::path(folder) / "result.json").string());
-  nlohmann::json r = nlohmann::json::parse(in, nullptr, false);
+  const std::string text((std::istreambuf_iterator<char>(in)), {});
+  bool too_deep = false;
+  nlohmann::json r = record::parse_record_json(text, &too_deep);
   if (!r.is_object()) {
-    error = "result.json missing or malformed";
+    error = too_deep ? "result.json nests arrays and objects deeper than " +
+                           std::to_string(record::kMaxRecordDepth) + " levels"
+                     : "result.json missing or malformed";
     return false;
   }
   const record::VerifyResult v = record::verify_session_folder(folder);
@@ -64,7 +69,7 @@ bool write_check_report(const std::string& folder, std::string& error) {
   {
     std::ifstream ev((fs::path(folder) / "events.jsonl").string());
     std::string line;
-    if (std::getline(ev, line)) started = nlohmann::json::parse(line, nullptr, false);
+    if (std::getline(ev, line)) started = record::parse_record_json(line);
     if (!started.is_object()) started = nlohmann::json::object();
   }
   auto text_at = [](const nlohmann::json& j, const char* k) {

@@ -20,6 +20,35 @@ namespace {
 const std::string kZeroHash(64, '0');
 }
 
+bool json_nested_deeper_than(std::string_view text, std::size_t limit) {
+  std::size_t depth = 0;
+  bool in_string = false, escaped = false;
+  for (const char c : text) {
+    if (in_string) {
+      if (escaped)
+        escaped = false;
+      else if (c == '\\')
+        escaped = true;
+      else if (c == '"')
+        in_string = false;
+    } else if (c == '"') {
+      in_string = true;
+    } else if (c == '[' || c == '{') {
+      if (++depth > limit) return true;
+    } else if ((c == ']' || c == '}') && depth > 0) {
+      --depth;
+    }
+  }
+  return false;
+}
+
+nlohmann::json parse_record_json(std::string_view text, bool* too_deep) {
+  const bool deep = json_nested_deeper_than(text, kMaxRecordDepth);
+  if (too_deep) *too_deep = deep;
+  if (deep) return nlohmann::json(nlohmann::json::value_t::discarded);
+  return nlohmann::json::parse(text, nullptr, false);
+}
+
 VerifyResult parse_log(const std::string& text, std::vector<LogLine>* lines, bool* torn) {
   VerifyResult v;
   if (torn) *torn = false;
@@ -35,10 +64,14 @@ VerifyResult parse_log(const std::string& text, std::vector<LogLine>* lines, boo
     }
     const std::string line = text.substr(pos, nl - pos);
     pos = nl + 1;
-    nlohmann::json j = nlohmann::json::parse(line, nullptr, false);
+    bool too_deep = false;
+    nlohmann::json j = parse_record_json(line, &too_deep);
     if (j.is_discarded()) {
       v.first_bad_record = static_cast<std::int64_t>(n);
-      v.message = "record " + std::to_string(n) + " is not valid JSON";
+      v.message = "record " + std::to_string(n) +
+                  (too_deep ? " nests arrays and objects deeper than " + std::to_string(kMaxRecordDepth) +
+                                  " levels (no record loadtrim writes does)"
+                            : std::string(" is not valid JSON"));
       v.records = n;
       return v;
     }

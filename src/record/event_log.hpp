@@ -14,6 +14,7 @@
 
 #include <nlohmann/json.hpp>
 #include <string>
+#include <string_view>
 #include <vector>
 
 namespace loadtrim::record {
@@ -70,6 +71,19 @@ struct VerifyResult {
   std::string message;                 // what is wrong, or a summary when ok
   std::vector<std::string> notes;      // per-file findings (traces, inputs)
 };
+
+// Record lines are nested at most kMaxRecordDepth arrays and objects deep (docs/records.md, "The chain"); a
+// session's records nest 5 levels (measured on a demo session's folder). A deeper line is not read as a
+// record: the JSON library's serialiser, comparison and copy recurse once per level, and a line nested
+// 100,000 deep overflowed the stack.
+inline constexpr std::size_t kMaxRecordDepth = 64;
+// Whether `text`'s arrays and objects nest deeper than `limit`, counted by a scan of the text's brackets
+// outside strings (no parse, no recursion; an invalid text is scanned as far as it goes).
+bool json_nested_deeper_than(std::string_view text, std::size_t limit);
+// Parses one JSON text that a record folder or the cell log holds (a record line, summary.json, result.json):
+// the parsed value, or a discarded value (is_discarded()) when the text is not valid JSON or nests deeper
+// than kMaxRecordDepth; *too_deep (when given) says which. Never throws (allocation failure aside).
+nlohmann::json parse_record_json(std::string_view text, bool* too_deep = nullptr);
 
 // Reads a log, checking each record's "prev" against the hash of the line before and its "seq".
 // records gets the parsed records up to (not including) the first bad one.

@@ -36,7 +36,7 @@ namespace loadtrim::record {
 // Who holds a lock, as written into the lock file by an exclusive holder.
 struct LockHolder {
   long pid = 0;
-  std::string command;  // "run", "resume", "check", "link-check"
+  std::string command;  // "run", "resume", "check", "link-check", "approve"
   std::string folder;   // the session (or check) folder the holder writes
   std::string utc;      // when it took the lock, record::utc_now() form
   std::string host;     // gethostname(); informational (locks are local, see above)

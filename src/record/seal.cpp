@@ -616,6 +616,22 @@ bool approve_folder(const std::string& folder_in, const ApprovalRequest& req, Ap
       return false;
     }
     rec["signature"] = sig;
+    // Just before writing: the log still ends where it ended when it was opened (the approval's seq and prev
+    // name its last record). Another writer in between (a second approver that did not take the folder's
+    // lock) would otherwise make two records with one seq.
+    {
+      const InsideFile now = read_inside(folder, "events.jsonl");
+      std::vector<LogLine> lines;
+      bool torn = false;
+      if (now.status != InsideStatus::ok || !parse_log(now.content, &lines, &torn).ok || torn ||
+          lines.size() != log.records() || lines.empty() || lines.back().sha256 != log.last_hash()) {
+        error = "refusing to approve " + folder +
+                ": its events.jsonl changed while the approval was being made" +
+                " (another process wrote to it; it no longer ends at record " +
+                std::to_string(log.records() - 1) + "); nothing was written";
+        return false;
+      }
+    }
     if (!log.append("approval", payload_of(rec), utc)) {
       error = log.error();
       return false;

@@ -153,7 +153,10 @@ struct ApprovalInfo {
 };
 // Appends a signed approval of the folder's seal. The folder must be sealed and intact (chain, files, seal
 // coverage); callers should also have it verified with the cell's key (verify_folder) before asking a
-// reviewer to sign, as `loadtrim approve` does.
+// reviewer to sign, as `loadtrim approve` does, and hold the folder's lock (app/cell_locks.hpp, lock_folder)
+// across that verify and this call, so that no other approval is appended in between. Just before writing,
+// the log is read again: when it no longer ends at the record the approval's seq and prev follow (another
+// process wrote to it), the approval is refused and nothing is written.
 bool approve_folder(const std::string& folder, const ApprovalRequest& request, ApprovalInfo* info,
                     std::string& error);
 

@@ -564,7 +564,10 @@ std::string result_disagreement(const std::string& folder, const json& result, s
   if (sf.status == InsideStatus::missing || !result.is_object() || result.empty()) return "";
   if (file) *file = name;
   if (sf.status != InsideStatus::ok) return sf.error;
-  const json sj = json::parse(sf.content, nullptr, false);
+  bool too_deep = false;
+  const json sj = parse_record_json(sf.content, &too_deep);
+  if (too_deep)
+    return name + " nests arrays and objects deeper than " + std::to_string(kMaxRecordDepth) + " levels";
   if (!sj.is_object()) return name + " is not a JSON object";
   for (auto it = result.begin(); it != result.end(); ++it)
     if (!sj.contains(it.key()) || sj[it.key()] != it.value())

@@ -6,6 +6,7 @@
 // the project's own (docs/records.md).
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <csignal>
 #include <filesystem>
 #include <fstream>
@@ -502,5 +503,63 @@ TEST(Resume, AMissingFieldALinkOrADamagedCellLogIsRefusedBeforeAnythingMoves) {
   EXPECT_EQ(process::run_command(args, &out, &err), 5) << err;
   EXPECT_NE(err.find("cell-log.jsonl is damaged"), std::string::npos) << err;
   EXPECT_FALSE(fs::exists(dir + "/s2")) << "a folder was made for a session that could not be sealed";
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
+// The members of the session_started record that resume reads (the first command line's first setting, port
+// and device) are checked for type and range: a wrong one refuses the resume with exit 5, naming the record,
+// the member and what is allowed, before anything connects, never exit 70 (docs/records.md, "When folders are
+// sealed, and resume"). The folder is otherwise intact: every link recomputed, verify says NOT FINISHED
+// (exit 6).
+TEST(Resume, AWrongTypedOrOutOfRangeStartMemberIsRefusedNamingIt) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
+  const std::string dir = temp_dir(), lab = dir + "/lab";
+  {
+    std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=coastdown"};
+    auto args = run_args(sim.port(), dir + "/s");
+    args.insert(args.end(), {"--data-dir", lab});
+    argv.insert(argv.end(), args.begin(), args.end());
+    process::ChildProcess first(argv);
+    ASSERT_TRUE(wait_logged(dir + "/s", "coastdown", std::chrono::seconds(120)));
+    first.signal(SIGKILL);
+    first.wait();
+  }
+  const std::string base = only_folder(dir + "/s");
+  ASSERT_EQ(records_of(base).front().value("type", ""), "session_started");
+  struct Case {
+    const char* name;
+    std::function<void(nlohmann::json&)> change;  // record 0
+    std::string must;                             // in resume's message
+  };
+  const Case cases[] = {
+      {"first setting a number", [](auto& r) { r["first_setting_requested"] = 5; },
+       "record 0 (session_started): \"first_setting_requested\" is 5; allowed: one of the strings "
+       "\"standard\", \"fleet\", \"loss-map\", \"history\""},
+      {"first setting unknown", [](auto& r) { r["first_setting_requested"] = "guess"; },
+       "record 0 (session_started): \"first_setting_requested\" is \"guess\"; allowed:"},
+      {"port out of range", [](auto& r) { r["overrides"]["port"] = 70000; },
+       "record 0 (session_started): \"overrides.port\" is 70000; allowed: an integer from 1 to 65535"},
+      {"port a string", [](auto& r) { r["overrides"]["port"] = "7301"; },
+       "record 0 (session_started): \"overrides.port\" is \"7301\"; allowed: an integer"},
+      {"device a number", [](auto& r) { r["overrides"]["device"] = 1; },
+       "record 0 (session_started): \"overrides.device\" is 1; allowed: a string"},
+      {"overrides a list", [](auto& r) { r["overrides"] = nlohmann::json::array(); },
+       "record 0 (session_started): \"overrides\" is []; allowed: an object"},
+  };
+  for (const Case& c : cases) {
+    SCOPED_TRACE(c.name);
+    std::string name = c.name;
+    std::replace(name.begin(), name.end(), ' ', '-');
+    const std::string f = dir + "/" + name;
+    fs::copy(base, f, fs::copy_options::recursive);
+    rechain(f, [&](auto& recs) { c.change(recs.front()); });
+    std::string out, err;
+    EXPECT_EQ(process::run_command({kExe, "verify", f, "--data-dir", lab}, &out, &err), 6) << out << err;
+    const auto before = records_of(f).size();
+    EXPECT_EQ(resume(f, lab, err), 5) << err;
+    EXPECT_NE(err.find("refusing to resume " + f), std::string::npos) << err;
+    EXPECT_NE(err.find(c.must), std::string::npos) << err;
+    EXPECT_EQ(records_of(f).size(), before) << "nothing was written";
+  }
   if (!HasFailure()) fs::remove_all(dir);
 }

@@ -12,11 +12,13 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <functional>
 #include <iostream>
+#include <memory>
 
 #include "checks/cell_history.hpp"
 #include "process/child_process.hpp"
@@ -881,6 +883,49 @@ TEST_F(Tamper, OtherOutcomes) {
               5);
     EXPECT_NE(err.find("cut back"), std::string::npos) << err;
   }
+}
+
+// Six `loadtrim approve` of one sealed folder at once, as the review ran them (docs/records.md, "Approvals":
+// approve holds the folder's lock across its verify, its read of the log and its append, a second approver
+// waiting for it up to 10 s; docs/safety.md §7): the folder verifies afterwards, every approval reported
+// ("approved: record N", exit 0) is in the log once, under the N it printed, and any other was refused (exit
+// 2, "folder busy") and wrote nothing. Without the lock two approvals took the same seq and prev (or one
+// chained to a line that was being written): the folder broken.
+TEST_F(Tamper, ConcurrentApprovalsAreEachRecordedOnce) {
+  const std::string f = copy_of(g->sealed, "concurrent approvals");
+  const std::string key = g->root + "/keys/" + record::reviewer_key_stem("Auditor One") + ".key.pem";
+  constexpr int kApprovers = 6;
+  std::vector<std::unique_ptr<process::ChildProcess>> approvers;
+  for (int i = 0; i < kApprovers; ++i)
+    approvers.push_back(std::make_unique<process::ChildProcess>(std::vector<std::string>{
+        "/bin/sh", "-c", "exec \"$0\" \"$@\" 2>&1", kExe, "approve", f, "--reviewer", "Auditor One", "--key",
+        key, "--statement", "approval " + std::to_string(i)}));
+  std::vector<std::size_t> reported;
+  int refused = 0;
+  for (auto& a : approvers) {
+    std::string out;
+    while (const auto line = a->read_line(std::chrono::seconds(60))) out += *line + "\n";
+    const int rc = a->wait();
+    if (rc == 0) {
+      const auto at = out.find("approved: record ");
+      ASSERT_NE(at, std::string::npos) << out;
+      reported.push_back(std::stoul(out.substr(at + 17)));
+    } else {
+      EXPECT_EQ(rc, 2) << out;
+      EXPECT_NE(out.find("folder busy"), std::string::npos) << out;
+      ++refused;
+    }
+  }
+  EXPECT_GE(reported.size(), 1u);
+  EXPECT_EQ(static_cast<int>(reported.size()) + refused, kApprovers);
+  std::string out, err;
+  EXPECT_EQ(run_command({kExe, "verify", f}, &out, &err), 0) << out << err;
+  const Log log(f + "/events.jsonl");
+  std::vector<std::size_t> approvals;
+  for (std::size_t i = 0; i < log.lines.size(); ++i)
+    if (log.at(i).value("type", "") == "approval") approvals.push_back(i);
+  std::sort(reported.begin(), reported.end());
+  EXPECT_EQ(approvals, reported) << "each reported approval once, under the record number it printed";
 }
 
 TEST_F(Tamper, KeysAreCreatedWithSafeModesAndNeverOverwritten) {

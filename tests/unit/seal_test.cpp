@@ -393,6 +393,67 @@ TEST(Approval, SignedByTheReviewerAndBoundToThisSeal) {
   fs::remove_all(dir);
 }
 
+namespace {
+// `levels` arrays, one inside the other, as text (made as text: the JSON library's serialiser recurses).
+std::string nested_arrays(std::size_t levels) {
+  return std::string(levels, '[') + std::string(levels, ']');
+}
+// A log of one record whose member "x" is `x`, with the seq and prev a first record has.
+std::string one_record_log(const std::string& x) {
+  return "{\"prev\":\"" + std::string(64, '0') + "\",\"seq\":0,\"type\":\"t\",\"utc\":\"u\",\"x\":" + x +
+         "}\n";
+}
+}  // namespace
+
+// docs/records.md, "The chain": a record line nests at most 64 arrays and objects; a deeper one makes the
+// folder broken, named by record and file (exit 5), and is never a crash. In-process on purpose: verify used
+// to serialise the seal's line with the JSON library's recursive dump before checking its signature, and a
+// "result" nested 100,000 deep overflowed the stack (SIGSEGV), which ends this test binary: that is this test
+// failing. The limit itself: 64 levels is a record, 65 is not, and brackets inside a string are not nesting.
+TEST(Verify, ARecordNestedTooDeepIsBrokenNeverACrash) {
+  const std::string dir = temp_dir("deep");
+  const std::string f = make_folder(dir);
+  std::string err;
+  ASSERT_TRUE(record::create_key_pair(dir + "/cell.key.pem", dir + "/cell.pub.pem", nullptr, err)) << err;
+  const auto key = record::SigningKey::load(dir + "/cell.key.pem", err);
+  ASSERT_TRUE(key) << err;
+  ASSERT_TRUE(record::seal_folder(f, {"unit cell", {{"accepted", true}}, &*key, ""}, nullptr, err)) << err;
+  // The seal's "result" given a member nested 100,000 arrays deep; the seal is the last line, so no link
+  // changes.
+  const std::string text = slurp(f + "/events.jsonl");
+  const std::size_t start = text.rfind('\n', text.size() - 2) + 1;
+  std::string seal = text.substr(start, text.size() - 1 - start);
+  const std::size_t at = seal.find("\"result\":{");
+  ASSERT_NE(at, std::string::npos) << seal;
+  seal.insert(at + 10, "\"deep\":" + nested_arrays(100000) + ",");
+  write(f + "/events.jsonl", text.substr(0, start) + seal + "\n");
+  record::VerifyOptions trusted;
+  trusted.cell_keys.push_back(key->public_key());
+  const record::FolderVerdict v = record::verify_folder(f, trusted);
+  EXPECT_EQ(v.outcome, record::Outcome::broken) << v.message;
+  EXPECT_EQ(record::verify_exit_code(v.outcome), 5);
+  EXPECT_EQ(v.record, 3);
+  EXPECT_EQ(v.file, "events.jsonl");
+  EXPECT_NE(v.message.find("record 3 nests arrays and objects deeper than 64 levels"), std::string::npos)
+      << v.message;
+  // An approval (`loadtrim approve`, `resume` likewise) is refused the same way.
+  EXPECT_FALSE(record::approve_folder(f, {"R. Viewer", "fit for use", &*key, ""}, nullptr, err));
+  EXPECT_NE(err.find("it is broken: record 3 nests arrays and objects deeper than 64"), std::string::npos)
+      << err;
+  // Every log is read by read_log / parse_log (events.jsonl, the cell log): the limit and the strings.
+  write(dir + "/64.jsonl", one_record_log(nested_arrays(63)));  // the record's own object and 63 arrays
+  EXPECT_TRUE(record::read_log(dir + "/64.jsonl", nullptr).ok);
+  write(dir + "/65.jsonl", one_record_log(nested_arrays(64)));
+  const record::VerifyResult r65 = record::read_log(dir + "/65.jsonl", nullptr);
+  EXPECT_FALSE(r65.ok);
+  EXPECT_EQ(r65.first_bad_record, 0);
+  EXPECT_NE(r65.message.find("record 0 nests arrays and objects deeper than 64 levels"), std::string::npos)
+      << r65.message;
+  write(dir + "/strings.jsonl", one_record_log("\"" + std::string(100000, '[') + "\\\"{[\""));
+  EXPECT_TRUE(record::read_log(dir + "/strings.jsonl", nullptr).ok);
+  fs::remove_all(dir);
+}
+
 TEST(Inside, PathsThatLeaveTheFolderAreRefused) {
   for (const char* bad : {"", "/etc/hostname", "../x", "a/../../x", "a//b", "./a", "a/.", "a\\b", "..", "a/"})
     EXPECT_FALSE(record::is_safe_relative_path(bad)) << bad;
