@@ -134,6 +134,10 @@ void register_session_commands(CLI::App& app, Runner& run) {
         return static_cast<int>(kBadInput);
       }
       const report::ReportFiles r = report::write_report(*rfolder, LOADTRIM_VERSION, *csv);
+      if (r.not_a_session_folder) {
+        std::fprintf(stderr, "loadtrim report: %s\n", r.error.c_str());
+        return static_cast<int>(kBadInput);
+      }
       if (!r.ok) {
         std::fprintf(stderr, "loadtrim: %s\n", r.error.c_str());
         return static_cast<int>(kRecordFailure);

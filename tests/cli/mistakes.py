@@ -2,8 +2,9 @@
 """The operator's mistakes, one row each: the command line, the exit code and the words the message must hold.
 
 The exit codes are the README's table ("Exit codes"): 0 accepted or done, 2 refused / bad input, 3 controller or link
-fault (common practice, no source: the codes are this project's own contract with scripts). Each row names what it
-checks; every row runs in a scratch folder with its own data root and lock folder, so nothing outside it changes.
+fault, 5 a record that cannot be written or read (common practice, no source: the codes are this project's own
+contract with scripts). Each row names what it checks; every row runs in a scratch folder with its own data root and
+lock folder, so nothing outside it changes.
 
 Usage: mistakes.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOURCE_DIR --workdir DIR
 """
@@ -238,6 +239,39 @@ def main():
     finally:
         sim.kill()
         sim.wait()
+
+    # 9. `report` on a folder that is not a session folder touches nothing there: exit 2, naming the folder and
+    # what is missing; the operator's files of the derived files' names stay as they were. A folder whose
+    # events.jsonl cannot be read (here a folder by that name) is refused too, and nothing in it is removed.
+    derived = ("report.html", "report.pdf", "coefficients.csv", "deviations.csv")
+    cases = (("no events.jsonl", None, 2, ["is not a session folder", "it has no events.jsonl"]),
+             ("another program's events.jsonl", '{"event":"door opened"}\n', 2,
+              ["is not a session folder", "holds no loadtrim record"]),
+             ("a dyno check's folder", '{"prev":"%s","seq":0,"type":"check_started","utc":"x"}\n' % ("0" * 64), 2,
+              ["is not a session folder", "a dyno check's log"]),
+             ("an unreadable events.jsonl", "dir", 5, ["no readable events.jsonl", "nothing was removed"]))
+    for k, (what, log, want_rc, words) in enumerate(cases):
+        mine = os.path.join(w, "operator-files-%d" % k)
+        os.makedirs(mine)
+        for name in derived:
+            with open(os.path.join(mine, name), "w") as f:
+                f.write("mine\n")
+        if log == "dir":
+            os.makedirs(os.path.join(mine, "events.jsonl"))
+        elif log is not None:
+            with open(os.path.join(mine, "events.jsonl"), "w") as f:
+                f.write(log)
+        rc, out = run(["report", mine], w)
+        check("report on a folder with " + what, rc, out, want_rc, [mine] + words,
+              ["if any, was removed", "if any, were removed"],
+              ("README, Exit codes: 2 `report` on a folder that is not a session folder" if want_rc == 2 else
+               "README, Exit codes: 5 `report` on a session folder whose events.jsonl cannot be read") +
+              "; docs/records.md, \"The folder\": nothing else in it is removed")
+        for name in derived:
+            path = os.path.join(mine, name)
+            if not os.path.isfile(path) or open(path).read() != "mine\n":
+                FAILED.append("report on a folder with %s: %s" % (what, name))
+                print("FAIL report on a folder with %s changed or removed %s" % (what, name))
 
     print("\n%d row(s) failed" % len(FAILED) if FAILED else "\nevery row passed")
     return 1 if FAILED else 0
