@@ -164,6 +164,18 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
     problems.push_back({E, "--test-mass-kg", "give exactly one of --test-mass-kg and --test-mass-lb"});
   if (!core::parse(o.drive, v.drive))
     problems.push_back({E, "--drive", "\"" + o.drive + "\" is not one of front, rear, all"});
+  // The coefficients typed, each against the range a target file's own key has (config::kMetricCoefficients,
+  // kUsCoefficients), named as typed: "--us A: is nan, must be a finite number, allowed -1200 to 1200 lbf".
+  const std::vector<double>& typed = kind == "metric" ? o.metric : o.us;
+  for (std::size_t i = 0; i < 3 && i < typed.size(); ++i) {
+    const config::CoefficientRange& k =
+        (kind == "metric" ? config::kMetricCoefficients : config::kUsCoefficients)[i];
+    if (!(typed[i] >= k.lo && typed[i] <= k.hi))
+      problems.push_back({E, "--" + kind + " " + k.name,
+                          "is " + core::num(typed[i]) +
+                              (std::isfinite(typed[i]) ? "" : ", must be a finite number") + ", allowed " +
+                              core::num(k.lo) + " to " + core::num(k.hi) + " " + k.unit});
+  }
   if (!problems.empty()) throw config::InputError("command line", problems);
   v.id = o.id;
   v.description = o.description;
@@ -230,6 +242,14 @@ int run_target(const TargetOptions& o) {
     add(cp.profile, pfile);
     if (cell) add(cp.cell, o.cell);
   }
+  // Coefficients typed on the command line: a finding on one names the option as well as the file's key.
+  if (!o.metric.empty() || !o.us.empty())
+    for (core::Problem& p : found)
+      for (std::size_t i = 0; i < 3; ++i)
+        if (p.key == std::string("target.") + config::kMetricCoefficients[i].key)
+          p.key = (o.us.empty() ? std::string("--metric ") + config::kMetricCoefficients[i].name
+                                : std::string("--us ") + config::kUsCoefficients[i].name) +
+                  " (" + p.key + ")";
   const double m_r = core::resolved_rotating_mass_kg(v, profile.mass);
   const double force_mass = core::force_mass_kg(v.test_mass_kg, m_r);
   const double inertia = core::dyno_inertia_kg(v.test_mass_kg, m_r, layout, profile.mass);
@@ -342,12 +362,32 @@ int run_target(const TargetOptions& o) {
   for (const auto& p : profile_warnings)
     warnings.push_back({{"severity", "warning"}, {"key", p.key}, {"message", p.message}, {"file", pfile}});
 
-  std::string written;
-  if (!o.out.empty()) {
+  // --out: written only when the target is accepted, and only after the prepared text reads back through the
+  // loader as what was prepared; until then nothing is written, so a refused target never replaces a file
+  // already there (record::write_durable then writes a temporary file and renames it over).
+  const bool errors = core::has_errors(found);
+  std::string written, not_written;
+  if (!o.out.empty() && errors)
+    not_written = "not written: the target is refused (the errors above); " + o.out + " is left as it was";
+  if (!o.out.empty() && !errors) {
     std::string err;
     const std::string text =
         config::target_toml(v, "Prepared by loadtrim target from " + source + "\non " + record::utc_now() +
                                    " for profile " + profile.name + "\nmass in running order: " + mro_basis);
+    core::VehicleTarget back;
+    try {
+      back = config::parse_target(text, o.out);
+    } catch (const config::InputError& e) {
+      std::cerr << "loadtrim target: the file prepared for --out " << o.out << " does not read back:\n"
+                << e.what() << "nothing was written; " << o.out << " is left as it was\n";
+      return kBadInput;
+    }
+    if (!(back.target == v.target) || back.test_mass_kg != v.test_mass_kg ||
+        back.mass_in_running_order_estimated != v.mass_in_running_order_estimated) {
+      std::cerr << "loadtrim target: the file prepared for --out " << o.out
+                << " does not read back as prepared; nothing was written\n";
+      return kInternalError;
+    }
     // README step 3 writes into targets/ of a fresh clone: the folder is made when it is missing.
     const std::filesystem::path parent = std::filesystem::path(o.out).parent_path();
     std::error_code ec;
@@ -363,16 +403,8 @@ int run_target(const TargetOptions& o) {
       std::cerr << "loadtrim target: cannot write " << o.out << ": " << err << "\n";
       return kRecordFailure;
     }
-    // Read back through the loader: the file must say exactly what was prepared.
-    const core::VehicleTarget back = config::load_target(o.out);
-    if (!(back.target == v.target) || back.test_mass_kg != v.test_mass_kg ||
-        back.mass_in_running_order_estimated != v.mass_in_running_order_estimated) {
-      std::cerr << "loadtrim target: " << o.out << " does not read back as written\n";
-      return kInternalError;
-    }
     written = o.out;
   }
-  const bool errors = core::has_errors(found);
   if (o.json) {
     nlohmann::json j = {
         {"vehicle", v.id},
@@ -438,6 +470,7 @@ int run_target(const TargetOptions& o) {
     if (!profile_warnings.empty()) std::cerr << config::format_problems(pfile, profile_warnings);
     if (!written.empty()) std::printf("\nwritten: %s (read back: identical)\n", written.c_str());
   }
+  if (!not_written.empty()) std::cerr << not_written << "\n";
   return errors ? kBadInput : kAccepted;
 }
 

@@ -273,6 +273,29 @@ def main():
                 FAILED.append("report on a folder with %s: %s" % (what, name))
                 print("FAIL report on a folder with %s changed or removed %s" % (what, name))
 
+    # 10. target --out: a refused target (exit 2) leaves the file already there as it was, and the message names
+    # the option typed with its range in the units typed, not only the written file's metric key.
+    good = ["target", "--id", "T9", "--test-mass-lb", "3500", "--mass-in-running-order-kg", "1500", "--out",
+            "r1/T9.toml"]
+    rc, out = run(["target", "--us", "30", "0.5", "0.02"] + good[1:], w)
+    check("target --out, accepted", rc, out, 0, ["written: r1/T9.toml (read back: identical)"], [],
+          "README, The operator's day, step 3")
+    before = open(os.path.join(w, "r1/T9.toml"), "rb").read()
+    for coefficients, words in ((["--us", "nan", "0.5", "0.02"],
+                                 ["--us A: is nan, must be a finite number, allowed -1200 to 1200 lbf"]),
+                                (["--us", "30", "inf", "0.02"],
+                                 ["--us B: is inf, must be a finite number, allowed -20 to 20 lbf/mph"]),
+                                (["--metric", "100", "0.5", "7"], ["--metric f2: is 7, allowed -1 to 1 N/(km/h)²"]),
+                                (["--us", "30", "0.5", "-0.02"],
+                                 ["--us C (target.f2_n_per_kmh2)", "must be positive",
+                                  "not written", "r1/T9.toml is left as it was"])):
+        rc, out = run(["target"] + coefficients + good[1:], w)
+        check("target --out refused: " + " ".join(coefficients), rc, out, 2, words,
+              ["T9.toml: error", "written: r1/T9.toml"], "README, Exit codes: 2; step 3")
+        if open(os.path.join(w, "r1/T9.toml"), "rb").read() != before:
+            FAILED.append("target --out refused changed the file: " + " ".join(coefficients))
+            print("FAIL target --out refused (%s) changed r1/T9.toml" % " ".join(coefficients))
+
     print("\n%d row(s) failed" % len(FAILED) if FAILED else "\nevery row passed")
     return 1 if FAILED else 0
 
