@@ -125,10 +125,6 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
                           std::string& mro_basis) {
   const std::string kind = where_from(o);
   refuse_ignored(o, kind);
-  // CLI11's range check lets NaN through; an option that is given must be a number in range.
-  if (!std::isfinite(o.cycle_max_speed_kmh) || !std::isfinite(o.max_speed_kmh))
-    throw config::InputError("command line", {{core::Problem::Severity::error, "--cycle-max-speed-kmh",
-                                               "must be a number from 10 to 400 km/h"}});
   core::VehicleTarget v;
   if (kind == "file") {
     v = config::load_target(o.from);
@@ -490,26 +486,27 @@ void register_target_command(CLI::App& app, Runner& run) {
   s->add_option("--id", o->id, "vehicle id (metric and US forms)");
   s->add_option("--description", o->description, "vehicle description");
   s->add_option("--test-mass-kg", o->test_mass_kg, "test mass TM")
-      ->check(CLI::Range(core::kMinTestMass_kg, core::kMaxTestMass_kg));
+      ->check(config::number_in(core::kMinTestMass_kg, core::kMaxTestMass_kg, "kg"));
   s->add_option("--test-mass-lb", o->test_mass_lb, "test mass in lb (converted exactly)")
-      ->check(CLI::Range(core::units::kg_to_lb(core::kMinTestMass_kg),
-                         core::units::kg_to_lb(core::kMaxTestMass_kg)));
+      ->check(config::number_in(core::units::kg_to_lb(core::kMinTestMass_kg),
+                                core::units::kg_to_lb(core::kMaxTestMass_kg), "lb"));
   s->add_option("--mass-in-running-order-kg", o->mass_in_running_order_kg,
                 "for m_r by the profile's rule (required unless --rotating-mass-kg or "
                 "--estimate-mass-in-running-order)")
-      ->check(CLI::Range(0.5 * core::kMinTestMass_kg, core::kMaxTestMass_kg));
+      ->check(config::number_in(0.5 * core::kMinTestMass_kg, core::kMaxTestMass_kg, "kg"));
   s->add_flag(
       "--estimate-mass-in-running-order", o->estimate_mro,
       "no measured mass in running order: accept the estimate (the test mass; for an EPA row its test "
       "weight less 100 kg), recorded as an estimate in the target file");
-  s->add_option("--rotating-mass-kg", o->rotating_mass_kg, "m_r when known")->check(CLI::Range(0.0, 4000.0));
+  s->add_option("--rotating-mass-kg", o->rotating_mass_kg, "m_r when known")
+      ->check(config::number_in(0.0, 4000.0, "kg"));
   s->add_option("--drive", o->drive, "front, rear or all")->capture_default_str();
   s->add_option("--max-speed-kmh", o->max_speed_kmh, "the vehicle's maximum speed")
-      ->check(CLI::Range(30.0, 400.0))
+      ->check(config::number_in(30.0, 400.0, "km/h"))
       ->capture_default_str();
   s->add_option("--cycle-max-speed-kmh", o->cycle_max_speed_kmh,
                 "the test cycle's maximum speed: the top reference speed is the one just above it")
-      ->check(CLI::Range(10.0, 400.0));
+      ->check(config::number_in(10.0, 400.0, "km/h"));
   s->add_option("--profile", o->profile, "standard profile name or file")->capture_default_str();
   s->add_option("--cell", o->cell, "cell file: its axle layout, and the history of this vehicle on it");
   s->add_option("--history", o->history,
