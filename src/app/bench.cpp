@@ -1384,7 +1384,7 @@ void register_bench(CLI::App& app, Runner& run) {
   sub->add_option("--seed", o->seed, "seed for vehicles and truths")->capture_default_str();
   sub->add_option("--jobs", o->jobs, "worker threads")->check(CLI::Range(1, 64))->capture_default_str();
   sub->add_option("--rate-hz", o->rate_hz, "sample rate of the sessions (GTR 15 §3.1: at least 10 Hz)")
-      ->check(CLI::Range(10.0, 1000.0))
+      ->check(config::number_in(10.0, 1000.0, "Hz"))
       ->capture_default_str();
   sub->add_option("--json-out", o->json_out, "also write the figures as JSON here");
   sub->add_option(
@@ -1402,62 +1402,49 @@ void register_bench(CLI::App& app, Runner& run) {
     const char* unit;
     std::optional<double> TruthOverrides::*field;
   };
-  // "is 99, allowed 0 to 50 N" (CLI11 puts the option's name in front).
-  auto range = [](double lo, double hi, std::string unit) {
-    return CLI::Validator(
-        [lo, hi, unit](std::string& in) -> std::string {
-          char* end = nullptr;
-          const double x = std::strtod(in.c_str(), &end);
-          char buf[160];
-          std::snprintf(buf, sizeof buf, "is %s, allowed %g to %g%s", in.c_str(), lo, hi, unit.c_str());
-          if (end == in.c_str() || *end != '\0' || !(x >= lo && x <= hi)) return buf;
-          return {};
-        },
-        "", "range");
-  };
   static const Spread spreads[] = {
-      {"--hold-bias-sd-n", "speed-hold bias between vehicles, sd, N (0 to 50)", 0.0, 50.0, " N",
+      {"--hold-bias-sd-n", "speed-hold bias between vehicles, sd, N (0 to 50)", 0.0, 50.0, "N",
        &TruthOverrides::hold_bias_sd_n},
-      {"--inertia-error-sd-pct", "inertia simulation error, sd, % (0 to 5)", 0.0, 5.0, " %",
+      {"--inertia-error-sd-pct", "inertia simulation error, sd, % (0 to 5)", 0.0, 5.0, "%",
        &TruthOverrides::inertia_error_sd_pct},
-      {"--compensation-error-sd-pct", "parasitic compensation error, sd, % (0 to 30)", 0.0, 30.0, " %",
+      {"--compensation-error-sd-pct", "parasitic compensation error, sd, % (0 to 30)", 0.0, 30.0, "%",
        &TruthOverrides::compensation_error_sd_pct},
-      {"--speed-noise-kmh", "encoder noise, sd, km/h, at the sample rate (0 to 1)", 0.0, 1.0, " km/h",
+      {"--speed-noise-kmh", "encoder noise, sd, km/h, at the sample rate (0 to 1)", 0.0, 1.0, "km/h",
        &TruthOverrides::speed_noise_kmh},
-      {"--warm-up-tau-min-s", "drivetrain warm-up time constant, lowest, s (60 to 7200)", 60.0, 7200.0, " s",
+      {"--warm-up-tau-min-s", "drivetrain warm-up time constant, lowest, s (60 to 7200)", 60.0, 7200.0, "s",
        &TruthOverrides::warm_up_tau_min_s},
-      {"--warm-up-tau-max-s", "drivetrain warm-up time constant, highest, s (60 to 7200)", 60.0, 7200.0, " s",
+      {"--warm-up-tau-max-s", "drivetrain warm-up time constant, highest, s (60 to 7200)", 60.0, 7200.0, "s",
        &TruthOverrides::warm_up_tau_max_s},
       {"--cold-excess-min", "spin loss excess when cold, lowest, fraction (0 to 2)", 0.0, 2.0, "",
        &TruthOverrides::cold_excess_min},
       {"--cold-excess-max", "spin loss excess when cold, highest, fraction (0 to 2)", 0.0, 2.0, "",
        &TruthOverrides::cold_excess_max},
-      {"--day-loss-sd-pct", "day to day: tyre and spin loss change, sd, % (0 to 20)", 0.0, 20.0, " %",
+      {"--day-loss-sd-pct", "day to day: tyre and spin loss change, sd, % (0 to 20)", 0.0, 20.0, "%",
        &TruthOverrides::day_loss_sd_pct},
-      {"--day-hold-bias-sd-n", "day to day: hold bias change, sd, N (0 to 20)", 0.0, 20.0, " N",
+      {"--day-hold-bias-sd-n", "day to day: hold bias change, sd, N (0 to 20)", 0.0, 20.0, "N",
        &TruthOverrides::day_hold_bias_sd_n},
       {"--loss-mass-correlation", "correlation of log loss with log test mass (0 to 0.9; EPA data 0.43)", 0.0,
        0.9, "", &TruthOverrides::loss_mass_correlation},
       {"--hold-bias-speed-sd-n",
-       "steady-versus-coasting difference, speed part b2*v^2, sd at 130 km/h, N (0 to 50)", 0.0, 50.0, " N",
+       "steady-versus-coasting difference, speed part b2*v^2, sd at 130 km/h, N (0 to 50)", 0.0, 50.0, "N",
        &TruthOverrides::hold_bias_speed_sd_n},
-      {"--load-cell-gain-sd-pct", "load-cell gain error, sd, % (0 to 5)", 0.0, 5.0, " %",
+      {"--load-cell-gain-sd-pct", "load-cell gain error, sd, % (0 to 5)", 0.0, 5.0, "%",
        &TruthOverrides::load_cell_gain_sd_pct},
-      {"--load-cell-offset-sd-n", "load-cell offset, sd, N (0 to 50)", 0.0, 50.0, " N",
+      {"--load-cell-offset-sd-n", "load-cell offset, sd, N (0 to 50)", 0.0, 50.0, "N",
        &TruthOverrides::load_cell_offset_sd_n},
   };
   auto values = std::make_shared<std::vector<double>>(std::size(spreads), 0.0);
   std::vector<CLI::Option*> opts;
   for (std::size_t k = 0; k < std::size(spreads); ++k)
     opts.push_back(sub->add_option(spreads[k].name, (*values)[k], spreads[k].help)
-                       ->check(range(spreads[k].lo, spreads[k].hi, spreads[k].unit)));
+                       ->check(config::number_in(spreads[k].lo, spreads[k].hi, spreads[k].unit)));
   sub->add_option(
          "--compare-rates-hz", o->compare_rates_hz,
          "the sample-rate lever: also run iterative (standard, loss map) and fixed-run (loss map) "
          "sessions of the same vehicles at each of these rates, side by side (10 to 1000 Hz, at most 4)")
       ->delimiter(',')
       ->expected(1, 4)
-      ->check(range(10.0, 1000.0, " Hz"));
+      ->check(config::number_in(10.0, 1000.0, "Hz"));
   sub->callback([o, values, opts, &run] {
     for (std::size_t k = 0; k < opts.size(); ++k)
       if (opts[k]->count() > 0) o->overrides.*(spreads[k].field) = (*values)[k];

@@ -135,7 +135,7 @@ void register_demo(CLI::App& app, Runner& run) {
       ->check(CLI::IsMember({"standard", "fleet", "loss-map", "history"}))
       ->capture_default_str();
   sub->add_option("--time-scale", o->time_scale, "simulated seconds per wall second")
-      ->check(CLI::Range(1.0, 2000.0))
+      ->check(config::number_in(1.0, 2000.0))
       ->capture_default_str();
   sub->add_flag("--in-process", o->in_process, "run the simulated controller inside this process");
   // The live status page is on for a single demo session (docs/live.md), on a loopback port.

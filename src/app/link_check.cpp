@@ -177,10 +177,10 @@ void register_link_check(CLI::App& app, Runner& run) {
   sub->add_option("--port", o->port, "override the TCP port of the cell file")->check(CLI::Range(1, 65535));
   sub->add_option("--device", o->device, "override the serial device of the cell file");
   sub->add_option("--seconds", o->seconds, "controller seconds of samples to stream")
-      ->check(CLI::Range(0.1, 600.0))
+      ->check(config::number_in(0.1, 600.0, "s"))
       ->capture_default_str();
   sub->add_option("--rate-hz", o->rate_hz, "sample rate to request")
-      ->check(CLI::Range(10.0, 1000.0))
+      ->check(config::number_in(10.0, 1000.0, "Hz"))
       ->capture_default_str();
   sub->callback([o, &run] { run = [o] { return run_link_check(*o); }; });
 }

@@ -46,7 +46,7 @@ void output_options(CLI::App* sub, RunRequest& r) {
   sub->add_option("--device", r.device, "override the cell file's serial device");
   sub->add_option("--rewarm-s", r.resume_warm_up_s,
                   "warm-up after a resume, a lost link or a pause (default: the profile's)")
-      ->check(CLI::Range(0.0, 14400.0));
+      ->check(config::number_in(0.0, 14400.0, "s"));
   sub->add_option(
          "--units", r.units,
          "the console's units: metric, us (A, B, C in lbf, lbf/mph, lbf/mph²) or both (default: as the "
@@ -55,7 +55,7 @@ void output_options(CLI::App* sub, RunRequest& r) {
   sub->add_option(
          "--max-pause-s", r.max_pause_s,
          "how long a pause waits for its continue before the session ends as interrupted (resumable)")
-      ->check(CLI::Range(10.0, 86400.0))
+      ->check(config::number_in(10.0, 86400.0, "s"))
       ->capture_default_str();
   sub->add_option(
       "--data-dir", r.data_dir,
@@ -134,6 +134,10 @@ void register_session_commands(CLI::App& app, Runner& run) {
         return static_cast<int>(kBadInput);
       }
       const report::ReportFiles r = report::write_report(*rfolder, LOADTRIM_VERSION, *csv);
+      if (r.not_a_session_folder) {
+        std::fprintf(stderr, "loadtrim report: %s\n", r.error.c_str());
+        return static_cast<int>(kBadInput);
+      }
       if (!r.ok) {
         std::fprintf(stderr, "loadtrim: %s\n", r.error.c_str());
         return static_cast<int>(kRecordFailure);

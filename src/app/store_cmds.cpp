@@ -481,7 +481,7 @@ void register_store_commands(CLI::App& app, Runner& run) {
       ->capture_default_str();
   ovw->add_option("--stale-after-h", a->stale_after_h,
                   "a running entry older than this many hours is shown as \"no end indexed (stale?)\"")
-      ->check(CLI::Range(0.1, 720.0))
+      ->check(config::number_in(0.1, 720.0, "h"))
       ->capture_default_str();
   common_options(ovw, *a);
   ovw->callback([a, &run] { run = [a] { return overview(*a); }; });

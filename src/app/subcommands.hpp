@@ -5,6 +5,10 @@
 #include <functional>
 #include <string>
 
+// Every floating option is checked with config::number_in (or config::finite_number), never CLI::Range alone,
+// which lets NaN through.
+#include "config/cli_number.hpp"
+
 namespace loadtrim::app {
 
 // Where the project's config/ and samples/ are: LOADTRIM_HOME, else the installed share/loadtrim beside the

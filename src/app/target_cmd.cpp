@@ -125,10 +125,6 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
                           std::string& mro_basis) {
   const std::string kind = where_from(o);
   refuse_ignored(o, kind);
-  // CLI11's range check lets NaN through; an option that is given must be a number in range.
-  if (!std::isfinite(o.cycle_max_speed_kmh) || !std::isfinite(o.max_speed_kmh))
-    throw config::InputError("command line", {{core::Problem::Severity::error, "--cycle-max-speed-kmh",
-                                               "must be a number from 10 to 400 km/h"}});
   core::VehicleTarget v;
   if (kind == "file") {
     v = config::load_target(o.from);
@@ -164,6 +160,18 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
     problems.push_back({E, "--test-mass-kg", "give exactly one of --test-mass-kg and --test-mass-lb"});
   if (!core::parse(o.drive, v.drive))
     problems.push_back({E, "--drive", "\"" + o.drive + "\" is not one of front, rear, all"});
+  // The coefficients typed, each against the range a target file's own key has (config::kMetricCoefficients,
+  // kUsCoefficients), named as typed: "--us A: is nan, must be a finite number, allowed -1200 to 1200 lbf".
+  const std::vector<double>& typed = kind == "metric" ? o.metric : o.us;
+  for (std::size_t i = 0; i < 3 && i < typed.size(); ++i) {
+    const config::CoefficientRange& k =
+        (kind == "metric" ? config::kMetricCoefficients : config::kUsCoefficients)[i];
+    if (!(typed[i] >= k.lo && typed[i] <= k.hi))
+      problems.push_back({E, "--" + kind + " " + k.name,
+                          "is " + core::num(typed[i]) +
+                              (std::isfinite(typed[i]) ? "" : ", must be a finite number") + ", allowed " +
+                              core::num(k.lo) + " to " + core::num(k.hi) + " " + k.unit});
+  }
   if (!problems.empty()) throw config::InputError("command line", problems);
   v.id = o.id;
   v.description = o.description;
@@ -230,6 +238,14 @@ int run_target(const TargetOptions& o) {
     add(cp.profile, pfile);
     if (cell) add(cp.cell, o.cell);
   }
+  // Coefficients typed on the command line: a finding on one names the option as well as the file's key.
+  if (!o.metric.empty() || !o.us.empty())
+    for (core::Problem& p : found)
+      for (std::size_t i = 0; i < 3; ++i)
+        if (p.key == std::string("target.") + config::kMetricCoefficients[i].key)
+          p.key = (o.us.empty() ? std::string("--metric ") + config::kMetricCoefficients[i].name
+                                : std::string("--us ") + config::kUsCoefficients[i].name) +
+                  " (" + p.key + ")";
   const double m_r = core::resolved_rotating_mass_kg(v, profile.mass);
   const double force_mass = core::force_mass_kg(v.test_mass_kg, m_r);
   const double inertia = core::dyno_inertia_kg(v.test_mass_kg, m_r, layout, profile.mass);
@@ -342,12 +358,32 @@ int run_target(const TargetOptions& o) {
   for (const auto& p : profile_warnings)
     warnings.push_back({{"severity", "warning"}, {"key", p.key}, {"message", p.message}, {"file", pfile}});
 
-  std::string written;
-  if (!o.out.empty()) {
+  // --out: written only when the target is accepted, and only after the prepared text reads back through the
+  // loader as what was prepared; until then nothing is written, so a refused target never replaces a file
+  // already there (record::write_durable then writes a temporary file and renames it over).
+  const bool errors = core::has_errors(found);
+  std::string written, not_written;
+  if (!o.out.empty() && errors)
+    not_written = "not written: the target is refused (the errors above); " + o.out + " is left as it was";
+  if (!o.out.empty() && !errors) {
     std::string err;
     const std::string text =
         config::target_toml(v, "Prepared by loadtrim target from " + source + "\non " + record::utc_now() +
                                    " for profile " + profile.name + "\nmass in running order: " + mro_basis);
+    core::VehicleTarget back;
+    try {
+      back = config::parse_target(text, o.out);
+    } catch (const config::InputError& e) {
+      std::cerr << "loadtrim target: the file prepared for --out " << o.out << " does not read back:\n"
+                << e.what() << "nothing was written; " << o.out << " is left as it was\n";
+      return kBadInput;
+    }
+    if (!(back.target == v.target) || back.test_mass_kg != v.test_mass_kg ||
+        back.mass_in_running_order_estimated != v.mass_in_running_order_estimated) {
+      std::cerr << "loadtrim target: the file prepared for --out " << o.out
+                << " does not read back as prepared; nothing was written\n";
+      return kInternalError;
+    }
     // README step 3 writes into targets/ of a fresh clone: the folder is made when it is missing.
     const std::filesystem::path parent = std::filesystem::path(o.out).parent_path();
     std::error_code ec;
@@ -363,16 +399,8 @@ int run_target(const TargetOptions& o) {
       std::cerr << "loadtrim target: cannot write " << o.out << ": " << err << "\n";
       return kRecordFailure;
     }
-    // Read back through the loader: the file must say exactly what was prepared.
-    const core::VehicleTarget back = config::load_target(o.out);
-    if (!(back.target == v.target) || back.test_mass_kg != v.test_mass_kg ||
-        back.mass_in_running_order_estimated != v.mass_in_running_order_estimated) {
-      std::cerr << "loadtrim target: " << o.out << " does not read back as written\n";
-      return kInternalError;
-    }
     written = o.out;
   }
-  const bool errors = core::has_errors(found);
   if (o.json) {
     nlohmann::json j = {
         {"vehicle", v.id},
@@ -438,6 +466,7 @@ int run_target(const TargetOptions& o) {
     if (!profile_warnings.empty()) std::cerr << config::format_problems(pfile, profile_warnings);
     if (!written.empty()) std::printf("\nwritten: %s (read back: identical)\n", written.c_str());
   }
+  if (!not_written.empty()) std::cerr << not_written << "\n";
   return errors ? kBadInput : kAccepted;
 }
 
@@ -457,26 +486,27 @@ void register_target_command(CLI::App& app, Runner& run) {
   s->add_option("--id", o->id, "vehicle id (metric and US forms)");
   s->add_option("--description", o->description, "vehicle description");
   s->add_option("--test-mass-kg", o->test_mass_kg, "test mass TM")
-      ->check(CLI::Range(core::kMinTestMass_kg, core::kMaxTestMass_kg));
+      ->check(config::number_in(core::kMinTestMass_kg, core::kMaxTestMass_kg, "kg"));
   s->add_option("--test-mass-lb", o->test_mass_lb, "test mass in lb (converted exactly)")
-      ->check(CLI::Range(core::units::kg_to_lb(core::kMinTestMass_kg),
-                         core::units::kg_to_lb(core::kMaxTestMass_kg)));
+      ->check(config::number_in(core::units::kg_to_lb(core::kMinTestMass_kg),
+                                core::units::kg_to_lb(core::kMaxTestMass_kg), "lb"));
   s->add_option("--mass-in-running-order-kg", o->mass_in_running_order_kg,
                 "for m_r by the profile's rule (required unless --rotating-mass-kg or "
                 "--estimate-mass-in-running-order)")
-      ->check(CLI::Range(0.5 * core::kMinTestMass_kg, core::kMaxTestMass_kg));
+      ->check(config::number_in(0.5 * core::kMinTestMass_kg, core::kMaxTestMass_kg, "kg"));
   s->add_flag(
       "--estimate-mass-in-running-order", o->estimate_mro,
       "no measured mass in running order: accept the estimate (the test mass; for an EPA row its test "
       "weight less 100 kg), recorded as an estimate in the target file");
-  s->add_option("--rotating-mass-kg", o->rotating_mass_kg, "m_r when known")->check(CLI::Range(0.0, 4000.0));
+  s->add_option("--rotating-mass-kg", o->rotating_mass_kg, "m_r when known")
+      ->check(config::number_in(0.0, 4000.0, "kg"));
   s->add_option("--drive", o->drive, "front, rear or all")->capture_default_str();
   s->add_option("--max-speed-kmh", o->max_speed_kmh, "the vehicle's maximum speed")
-      ->check(CLI::Range(30.0, 400.0))
+      ->check(config::number_in(30.0, 400.0, "km/h"))
       ->capture_default_str();
   s->add_option("--cycle-max-speed-kmh", o->cycle_max_speed_kmh,
                 "the test cycle's maximum speed: the top reference speed is the one just above it")
-      ->check(CLI::Range(10.0, 400.0));
+      ->check(config::number_in(10.0, 400.0, "km/h"));
   s->add_option("--profile", o->profile, "standard profile name or file")->capture_default_str();
   s->add_option("--cell", o->cell, "cell file: its axle layout, and the history of this vehicle on it");
   s->add_option("--history", o->history,

@@ -113,15 +113,15 @@ core::RoadLoad read_coefficients(TomlReader& r, const std::string& table, const 
                        "] (lbf, lbf/mph, lbf/mph²), not both");
     return {};
   }
-  if (metric)
-    return {r.number(table + ".f0_n", -5000.0, 5000.0, "N"),
-            r.number(table + ".f1_n_per_kmh", -50.0, 50.0, "N/(km/h)"),
-            r.number(table + ".f2_n_per_kmh2", -1.0, 1.0, "N/(km/h)²")};
-  if (us)
-    return core::to_metric({r.number(us_table + ".a_lbf", -1200.0, 1200.0, "lbf"),
-                            r.number(us_table + ".b_lbf_per_mph", -20.0, 20.0, "lbf/mph"),
-                            r.number(us_table + ".c_lbf_per_mph2", -0.6, 0.6, "lbf/mph²")});
-  return {};
+  if (!metric && !us) return {};
+  const std::string& t = metric ? table : us_table;
+  double c[3];
+  for (int i = 0; i < 3; ++i) {
+    const CoefficientRange& k = (metric ? kMetricCoefficients : kUsCoefficients)[i];
+    c[i] = r.number(t + "." + k.key, k.lo, k.hi, k.unit);
+  }
+  if (metric) return {c[0], c[1], c[2]};
+  return core::to_metric({c[0], c[1], c[2]});
 }
 
 core::VehicleTarget read_target(TomlReader& r) {

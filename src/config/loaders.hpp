@@ -29,6 +29,22 @@ core::VehicleTarget parse_target(const std::string& text, const std::string& nam
 physics::Truth parse_truth(const std::string& text, const std::string& name,
                            core::Problems* warnings = nullptr);
 
+// The range of each road-load coefficient a target file may give, in the order f0 f1 f2 ([target] and
+// [initial_set]: N, N/(km/h), N/(km/h)²) and A B C ([target_us] and [initial_set_us]: lbf, lbf/mph,
+// lbf/mph²). `loadtrim target --metric` and `--us` check the coefficients typed against the same ranges.
+struct CoefficientRange {
+  const char* key;   // in the file's table
+  const char* name;  // as the operator gives it: f0, f1, f2 or A, B, C
+  double lo, hi;
+  const char* unit;
+};
+inline constexpr CoefficientRange kMetricCoefficients[3] = {{"f0_n", "f0", -5000.0, 5000.0, "N"},
+                                                            {"f1_n_per_kmh", "f1", -50.0, 50.0, "N/(km/h)"},
+                                                            {"f2_n_per_kmh2", "f2", -1.0, 1.0, "N/(km/h)²"}};
+inline constexpr CoefficientRange kUsCoefficients[3] = {{"a_lbf", "A", -1200.0, 1200.0, "lbf"},
+                                                        {"b_lbf_per_mph", "B", -20.0, 20.0, "lbf/mph"},
+                                                        {"c_lbf_per_mph2", "C", -0.6, 0.6, "lbf/mph²"}};
+
 // Finds a profile by name in a directory of profiles (name.toml), for a target's `profile = "..."`.
 std::string profile_path(const std::string& profiles_dir, const std::string& name);
 

@@ -334,21 +334,39 @@ class CsvTable {
 
 }  // namespace
 
-// The report; "" when written, else why not (the caller removes what an earlier report left).
-static std::string write_report_body(const std::string& folder, const std::string& software_version,
+// Why the log is not a session's ("" when it is). A session's log starts with session_started; its records
+// carry seq, prev and type, so one whose first line is damaged is still a session's (the report says the
+// chain is broken). A dyno check's log starts with check_started: its folder holds the check's own
+// report.html.
+static std::string not_a_session_log(const std::string& log) {
+  bool chained = false;
+  std::istringstream in(log);
+  for (std::string l; std::getline(in, l);) {
+    const json j = json::parse(l, nullptr, false);
+    if (!j.is_object() || !j.contains("type") || !j["type"].is_string()) continue;
+    const std::string type = j["type"].get<std::string>();
+    if (type == "session_started") return "";
+    if (type == "check_started")
+      return "is a dyno check's log (check_started), whose folder has the check's own report";
+    if (j.contains("seq") && j.contains("prev")) chained = true;
+  }
+  return chained ? "" : "holds no loadtrim record (a line with seq, prev and type)";
+}
+
+// The report of a session folder whose log is `log`; "" when written, else why not (the caller removes what
+// an earlier report left).
+static std::string write_report_body(const std::string& folder, const std::string& log,
+                                     const std::string& software_version,
                                      const record::VerifyOptions& options, const CsvFormat& csv_format,
                                      ReportFiles& out) {
   const record::FolderVerdict verdict = record::verify_folder(folder, options);
   out.chain_ok = verdict.intact();
   out.verify_outcome = record::to_string(verdict.outcome);
   // Every record that parses, whether or not the chain holds: the report shows what is there and says which
-  // part is not vouched for. Read without leaving the folder (record/inside.hpp).
+  // part is not vouched for.
   std::vector<json> recs;
   {
-    const record::InsideFile ev = record::read_inside(folder, "events.jsonl");
-    if (ev.status != record::InsideStatus::ok)
-      return "no readable events.jsonl in " + folder + ": " + ev.error;
-    std::istringstream in(ev.content);
+    std::istringstream in(log);
     for (std::string l; std::getline(in, l);) {
       auto j = record::parse_record_json(l);  // a line nested too deep is not a record (verify says so)
       if (j.is_object()) recs.push_back(std::move(j));
@@ -1229,16 +1247,41 @@ ReportFiles write_report(const std::string& folder, const std::string& software_
 ReportFiles write_report(const std::string& folder, const std::string& software_version,
                          const record::VerifyOptions& options, const CsvFormat& csv) {
   ReportFiles out;
+  // Whether the folder is a session folder is settled before anything is written or removed: only where
+  // events.jsonl holds a session's log is a report written, or an earlier one removed when none can be.
+  // Nothing else is ever touched: files of the same names in another folder are not ours to remove. Read
+  // without leaving the folder (record/inside.hpp).
+  const record::InsideFile ev = record::read_inside(folder, "events.jsonl");
+  if (ev.status == record::InsideStatus::missing) {
+    out.not_a_session_folder = true;
+    out.error = folder +
+                " is not a session folder: it has no events.jsonl (the session's log); nothing was " +
+                "written or removed";
+    return out;
+  }
+  if (ev.status != record::InsideStatus::ok) {
+    out.error = "no readable events.jsonl in " + folder + ": " + ev.error +
+                " (no report was written; nothing was removed)";
+    return out;
+  }
+  if (const std::string not_session = not_a_session_log(ev.content); !not_session.empty()) {
+    out.not_a_session_folder = true;
+    out.error = folder + " is not a session folder: its events.jsonl " + not_session +
+                "; nothing was written or removed";
+    return out;
+  }
   std::string why;
   try {
-    why = write_report_body(folder, software_version, options, csv, out);
+    why = write_report_body(folder, ev.content, software_version, options, csv, out);
   } catch (const std::exception& e) {
     why = "cannot make the report of " + folder + ": " + e.what();
   }
   if (why.empty()) return out;
   remove_stale(folder);
   out.ok = false;
-  out.error = why + " (no report was written; an earlier report.html, if any, was removed)";
+  out.error = why +
+              " (no report was written; an earlier report's report.html, report.pdf, coefficients.csv and "
+              "deviations.csv, if any, were removed so that none looks current)";
   return out;
 }
 

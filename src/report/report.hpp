@@ -21,18 +21,21 @@ struct CsvFormat {
 
 struct ReportFiles {
   bool ok = false;
+  bool not_a_session_folder = false;  // no events.jsonl, or a log that is not a session's: nothing touched
   std::string error;
   std::string html, coefficients_csv, deviations_csv;  // paths written
   bool chain_ok = false;                               // intact (record::FolderVerdict::intact)
   std::string verify_outcome;  // record::to_string(outcome): verified, broken, not finished, ...
 };
 
-// Writes report.html, coefficients.csv and deviations.csv into the folder. The first page states what verify
-// finds (broken, not finished, sealed with or without a signature) and the sign-off. A record the report
-// needs that lacks a member, or has one of another type, is named in error (never an exception); on any
-// failure the derived files of an earlier report (record::derived_files) are removed, so no stale report
-// remains. Keys and cell logs for the seal's status come from the data root (record::find_data_root), or from
-// options.
+// Writes report.html, coefficients.csv and deviations.csv into a session folder. The first page states what
+// verify finds (broken, not finished, sealed with or without a signature) and the sign-off. A folder that is
+// not a session folder (no events.jsonl, or a log that is not a session's: not_a_session_folder) or whose
+// events.jsonl cannot be read is refused before anything is written or removed. In a session folder, a record
+// the report needs that lacks a member, or has one of another type, is named in error (never an exception);
+// on any failure there the derived files of an earlier report (record::derived_files) are removed, so no
+// stale report remains. Keys and cell logs for the seal's status come from the data root
+// (record::find_data_root), or from options.
 ReportFiles write_report(const std::string& folder, const std::string& software_version);
 ReportFiles write_report(const std::string& folder, const std::string& software_version,
                          const record::VerifyOptions& options);

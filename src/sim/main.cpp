@@ -4,6 +4,7 @@
 #include <iostream>
 #include <utility>
 
+#include "config/cli_number.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
 #include "framed/framed_dialect.hpp"
@@ -34,16 +35,18 @@ int main(int argc, char** argv) {
                "no vehicle on the rollers (the dyno's own checks): only the truth's [dyno] part acts");
   app.add_flag("--pty", srv.pty, "serve on a new pseudo-terminal instead of TCP and print its path");
   app.add_option("--time-scale", srv.time_scale, "simulated seconds per wall second")
-      ->check(CLI::Range(0.01, 10000.0))
+      ->check(config::number_in(0.01, 10000.0))
       ->capture_default_str();
   app.add_option("--watchdog-ms", watchdog_ms, "no request for this long while motoring → controlled stop")
-      ->check(CLI::Range(50.0, 600000.0))
+      ->check(config::number_in(50.0, 600000.0, "ms"))
       ->capture_default_str();
-  app.add_option("--max-speed-kmh", s.max_speed_kmh, "the controller's speed limit")->capture_default_str();
+  app.add_option("--max-speed-kmh", s.max_speed_kmh, "the controller's speed limit")
+      ->check(config::finite_number())
+      ->capture_default_str();
   app.add_option("--name", s.name, "controller name reported by IDENT (no spaces)")->capture_default_str();
   app.add_option("--initial-warmth", warmth,
                  "override the truth's initial drivetrain warmth (0 cold .. 1 warm)")
-      ->check(CLI::Range(0.0, 1.0));
+      ->check(config::number_in(0.0, 1.0));
   std::string modbus_map, modbus_rtu;
   app.add_option("--modbus-map", modbus_map,
                  "serve Modbus instead of the line protocol, with the [modbus] map of this cell file");
@@ -55,29 +58,37 @@ int main(int argc, char** argv) {
       "serve the framed ASCII dialect instead of the line protocol (TCP, or --pty), with the [framed] "
       "command table of this cell file");
   app.add_option("--exit-after-s", srv.exit_after_s,
-                 "exit after this many wall seconds (a safety net for tests)");
+                 "exit after this many wall seconds (a safety net for tests)")
+      ->check(config::finite_number());
   auto* f = app.add_option_group("faults", "fault injection");
-  f->add_option("--drop-at-s", drop_at, "drop the connection once at this simulated time");
+  f->add_option("--drop-at-s", drop_at, "drop the connection once at this simulated time")
+      ->check(config::finite_number());
   f->add_option(
       "--drop-in-mode", drop_in_mode,
       "drop the connection once this mode (IDLE, HOLD, ROADLOAD, STOP, FORCE) has lasted --drop-after-s");
-  f->add_option("--drop-after-s", s.faults.drop_after_s, "see --drop-in-mode (simulated seconds)");
+  f->add_option("--drop-after-s", s.faults.drop_after_s, "see --drop-in-mode (simulated seconds)")
+      ->check(config::finite_number());
   f->add_option("--corrupt-line", corrupt_line, "corrupt the Nth line sent (1-based), once");
   f->add_option("--corrupt-every", s.faults.corrupt_every, "corrupt every Nth line sent");
-  f->add_option("--stall-at-s", stall_at, "stop the sample stream at this simulated time");
-  f->add_option("--delay-replies-ms", s.faults.delay_replies_ms, "hold every reply back this long (wall)");
+  f->add_option("--stall-at-s", stall_at, "stop the sample stream at this simulated time")
+      ->check(config::finite_number());
+  f->add_option("--delay-replies-ms", s.faults.delay_replies_ms, "hold every reply back this long (wall)")
+      ->check(config::finite_number());
   f->add_option("--refuse", s.faults.refuse, "answer this verb with ERR 41 (repeatable)");
-  f->add_option("--estop-at-s", estop_at, "raise an emergency stop at this simulated time");
+  f->add_option("--estop-at-s", estop_at, "raise an emergency stop at this simulated time")
+      ->check(config::finite_number());
   f->add_option("--report-roller-diameter-m", report_dia,
-                "IDENT reports this roller diameter instead of the truth");
+                "IDENT reports this roller diameter instead of the truth")
+      ->check(config::finite_number());
   f->add_option("--report-base-inertia-kg", report_inertia,
-                "IDENT reports this base inertia instead of the truth");
+                "IDENT reports this base inertia instead of the truth")
+      ->check(config::finite_number());
   sim::ModbusOptions mb_opt;
   app.add_option(
          "--modbus-clock-offset-s", mb_opt.clock_offset_s,
          "Modbus: the controller's uptime when the simulation starts (its time counter starts there and "
          "wraps at the register's width)")
-      ->check(CLI::Range(0.0, 1e15));
+      ->check(config::number_in(0.0, 1e15, "s"));
   f->add_flag("--modbus-coefficients-not-applied", mb_opt.coefficients_not_applied,
               "Modbus: acknowledge every coefficient setting after the first without applying it");
   f->add_flag(
@@ -91,19 +102,19 @@ int main(int argc, char** argv) {
   double loop_gain = -1, loop_tau = -1, loop_damping = -1, friction_error = -2;
   f->add_option("--force-loop-gain", loop_gain,
                 "the motor applies this × the force asked (dyno.force_loop_gain; fails 1066.265)")
-      ->check(CLI::Range(0.5, 1.5));
+      ->check(config::number_in(0.5, 1.5));
   f->add_option(
        "--force-loop-time-constant-s", loop_tau,
        "the constant force follows its demand with this second-order lag (dyno.force_loop_time_constant_s; "
        "fails 1066.245)")
-      ->check(CLI::Range(0.0, 2.0));
+      ->check(config::number_in(0.0, 2.0, "s"));
   f->add_option("--force-loop-damping", loop_damping,
                 "the force loop's damping, below 1 it overshoots (dyno.force_loop_damping)")
-      ->check(CLI::Range(0.05, 5.0));
+      ->check(config::number_in(0.05, 5.0));
   f->add_option("--friction-compensation-error", friction_error,
                 "the share of the parasitic loss the compensation misses (dyno.parasitic_compensation_error; "
                 "fails 1066.260)")
-      ->check(CLI::Range(-1.0, 1.0));
+      ->check(config::number_in(-1.0, 1.0));
   // The driver (the truth's [driver] keys; each option overrides its key).
   bool hide_neutral = false;
   double driver_power_w = -1, driver_force_n = -1, driver_early = -1, driver_late = -1;
@@ -114,20 +125,25 @@ int main(int argc, char** argv) {
       "the driver's release in the speed trace");
   f->add_option("--driver-max-power-w", driver_power_w,
                 "the driver's most tractive power (driver.max_power_w; low: a too slow run-up)")
-      ->check(CLI::Range(500.0, 2000000.0));
+      ->check(config::number_in(500.0, 2000000.0, "W"));
   f->add_option(
        "--driver-early-release", driver_early,
        "probability of a shift to neutral below the prompted speed (driver.early_release_probability)")
-      ->check(CLI::Range(0.0, 1.0));
+      ->check(config::number_in(0.0, 1.0));
   f->add_option("--driver-max-force-n", driver_force_n,
                 "the driver's most tractive force (driver.max_tractive_force_n; low: a too slow run-up)")
-      ->check(CLI::Range(50.0, 50000.0));
+      ->check(config::number_in(50.0, 50000.0, "N"));
   f->add_option("--driver-late-release", driver_late,
                 "probability of a late shift to neutral (driver.late_release_probability)")
-      ->check(CLI::Range(0.0, 1.0));
+      ->check(config::number_in(0.0, 1.0));
   f->add_option("--driver-seed", driver_seed, "the driver model's seed (driver.seed)")
       ->check(CLI::Range(0LL, 2147483647LL));
-  CLI11_PARSE(app, argc, argv);
+  // A refused option exits 2, as a refused truth file does (README, "Exit codes"); --help exits 0.
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    return app.exit(e) == 0 ? 0 : 2;
+  }
   physics::Truth truth;
   try {
     core::Problems w;

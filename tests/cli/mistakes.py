@@ -2,8 +2,9 @@
 """The operator's mistakes, one row each: the command line, the exit code and the words the message must hold.
 
 The exit codes are the README's table ("Exit codes"): 0 accepted or done, 2 refused / bad input, 3 controller or link
-fault (common practice, no source: the codes are this project's own contract with scripts). Each row names what it
-checks; every row runs in a scratch folder with its own data root and lock folder, so nothing outside it changes.
+fault, 5 a record that cannot be written or read (common practice, no source: the codes are this project's own
+contract with scripts). Each row names what it checks; every row runs in a scratch folder with its own data root and
+lock folder, so nothing outside it changes.
 
 Usage: mistakes.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOURCE_DIR --workdir DIR
 """
@@ -21,12 +22,19 @@ ARGS = None
 FAILED = []
 
 
-def run(argv, cwd, stdin_text=None, timeout=60):
+def run(argv, cwd, stdin_text=None, timeout=60, exe=None):
+    """Runs loadtrim (or `exe`). A run past `timeout` is killed and reported as exit -1 with "(timed out)": a tool
+    that should have refused at once, but started, fails its row instead of the whole script."""
     env = dict(os.environ)
     env["LOADTRIM_LOCK_DIR"] = os.path.join(ARGS.workdir, "locks")
     env["LOADTRIM_DATA_DIR"] = os.path.join(ARGS.workdir, "data")
-    p = subprocess.run([ARGS.exe] + argv, cwd=cwd, env=env, capture_output=True, text=True, timeout=timeout,
-                       input=stdin_text if stdin_text is not None else "")
+    try:
+        p = subprocess.run([exe or ARGS.exe] + argv, cwd=cwd, env=env, capture_output=True, text=True,
+                           timeout=timeout, input=stdin_text if stdin_text is not None else "")
+    except subprocess.TimeoutExpired as e:
+        def text(b):
+            return b.decode(errors="replace") if isinstance(b, bytes) else (b or "")
+        return -1, text(e.stdout) + text(e.stderr) + "\n(timed out after %d s)" % timeout
     return p.returncode, p.stdout + p.stderr
 
 
@@ -238,6 +246,111 @@ def main():
     finally:
         sim.kill()
         sim.wait()
+
+    # 9. `report` on a folder that is not a session folder touches nothing there: exit 2, naming the folder and
+    # what is missing; the operator's files of the derived files' names stay as they were. A folder whose
+    # events.jsonl cannot be read (here a folder by that name) is refused too, and nothing in it is removed.
+    derived = ("report.html", "report.pdf", "coefficients.csv", "deviations.csv")
+    cases = (("no events.jsonl", None, 2, ["is not a session folder", "it has no events.jsonl"]),
+             ("another program's events.jsonl", '{"event":"door opened"}\n', 2,
+              ["is not a session folder", "holds no loadtrim record"]),
+             ("a dyno check's folder", '{"prev":"%s","seq":0,"type":"check_started","utc":"x"}\n' % ("0" * 64), 2,
+              ["is not a session folder", "a dyno check's log"]),
+             ("an unreadable events.jsonl", "dir", 5, ["no readable events.jsonl", "nothing was removed"]))
+    for k, (what, log, want_rc, words) in enumerate(cases):
+        mine = os.path.join(w, "operator-files-%d" % k)
+        os.makedirs(mine)
+        for name in derived:
+            with open(os.path.join(mine, name), "w") as f:
+                f.write("mine\n")
+        if log == "dir":
+            os.makedirs(os.path.join(mine, "events.jsonl"))
+        elif log is not None:
+            with open(os.path.join(mine, "events.jsonl"), "w") as f:
+                f.write(log)
+        rc, out = run(["report", mine], w)
+        check("report on a folder with " + what, rc, out, want_rc, [mine] + words,
+              ["if any, was removed", "if any, were removed"],
+              ("README, Exit codes: 2 `report` on a folder that is not a session folder" if want_rc == 2 else
+               "README, Exit codes: 5 `report` on a session folder whose events.jsonl cannot be read") +
+              "; docs/records.md, \"The folder\": nothing else in it is removed")
+        for name in derived:
+            path = os.path.join(mine, name)
+            if not os.path.isfile(path) or open(path).read() != "mine\n":
+                FAILED.append("report on a folder with %s: %s" % (what, name))
+                print("FAIL report on a folder with %s changed or removed %s" % (what, name))
+
+    # 10. target --out: a refused target (exit 2) leaves the file already there as it was, and the message names
+    # the option typed with its range in the units typed, not only the written file's metric key.
+    good = ["target", "--id", "T9", "--test-mass-lb", "3500", "--mass-in-running-order-kg", "1500", "--out",
+            "r1/T9.toml"]
+    rc, out = run(["target", "--us", "30", "0.5", "0.02"] + good[1:], w)
+    check("target --out, accepted", rc, out, 0, ["written: r1/T9.toml (read back: identical)"], [],
+          "README, The operator's day, step 3")
+    before = open(os.path.join(w, "r1/T9.toml"), "rb").read()
+    for coefficients, words in ((["--us", "nan", "0.5", "0.02"],
+                                 ["--us A: is nan, must be a finite number, allowed -1200 to 1200 lbf"]),
+                                (["--us", "30", "inf", "0.02"],
+                                 ["--us B: is inf, must be a finite number, allowed -20 to 20 lbf/mph"]),
+                                (["--metric", "100", "0.5", "7"], ["--metric f2: is 7, allowed -1 to 1 N/(km/h)²"]),
+                                (["--us", "30", "0.5", "-0.02"],
+                                 ["--us C (target.f2_n_per_kmh2)", "must be positive",
+                                  "not written", "r1/T9.toml is left as it was"])):
+        rc, out = run(["target"] + coefficients + good[1:], w)
+        check("target --out refused: " + " ".join(coefficients), rc, out, 2, words,
+              ["T9.toml: error", "written: r1/T9.toml"], "README, Exit codes: 2; step 3")
+        if open(os.path.join(w, "r1/T9.toml"), "rb").read() != before:
+            FAILED.append("target --out refused changed the file: " + " ".join(coefficients))
+            print("FAIL target --out refused (%s) changed r1/T9.toml" % " ".join(coefficients))
+
+    # 11. NaN and inf given to a floating option: exit 2 and the option named with its range, before anything
+    # starts (CLI11's range check alone lets NaN through). One row per floating option of loadtrim and
+    # loadtrim-sim; the simulator's options with no range of their own must be finite numbers.
+    truth = os.path.join(src, "samples/truths/demo-hatchback.toml")
+    scratch = os.path.join(w, "nan-sessions")
+    target_base = ["target", "--us", "30", "0.5", "0.02", "--id", "T", "--mass-in-running-order-kg", "1500"]
+    rows = [
+        (None, ["demo", "--in-process", "--no-live", "--sessions", scratch], "--time-scale", "1 to 2000"),
+        (None, ["link-check", "--cell", cell, "--port", str(closed)], "--seconds", "0.1 to 600 s"),
+        (None, ["link-check", "--cell", cell, "--port", str(closed)], "--rate-hz", "10 to 1000 Hz"),
+        (None, ["run", "--cell", cell, "--target", target, "--port", str(closed)] + run_args, "--max-pause-s",
+         "10 to 86400 s"),
+        (None, ["run", "--cell", cell, "--target", target, "--port", str(closed)] + run_args, "--rewarm-s",
+         "0 to 14400 s"),
+        (None, ["resume", missing, "--unattended"], "--rewarm-s", "0 to 14400 s"),
+        (None, ["bench", "--vehicles", "2"], "--rate-hz", "10 to 1000 Hz"),
+        (None, ["bench", "--vehicles", "2"], "--hold-bias-sd-n", "0 to 50 N"),
+        (None, ["bench", "--vehicles", "2"], "--compare-rates-hz", "10 to 1000 Hz"),
+        (None, target_base, "--test-mass-kg", "50 to 20000 kg"),
+        (None, target_base, "--test-mass-lb", "110.231 to 44092.5 lb"),
+        (None, target_base[:-2] + ["--test-mass-kg", "1500"], "--mass-in-running-order-kg", "25 to 20000 kg"),
+        (None, target_base + ["--test-mass-kg", "1500"], "--rotating-mass-kg", "0 to 4000 kg"),
+        (None, target_base + ["--test-mass-kg", "1500"], "--max-speed-kmh", "30 to 400 km/h"),
+        (None, target_base + ["--test-mass-kg", "1500"], "--cycle-max-speed-kmh", "10 to 400 km/h"),
+        (None, ["overview", "--format", "text"], "--stale-after-h", "0.1 to 720 h"),
+    ]
+    for option, allowed in (("--time-scale", "0.01 to 10000"), ("--watchdog-ms", "50 to 600000 ms"),
+                            ("--initial-warmth", "0 to 1"), ("--modbus-clock-offset-s", "0 to 1e+15 s"),
+                            ("--force-loop-gain", "0.5 to 1.5"), ("--force-loop-time-constant-s", "0 to 2 s"),
+                            ("--force-loop-damping", "0.05 to 5"), ("--friction-compensation-error", "-1 to 1"),
+                            ("--driver-max-power-w", "500 to 2e+06 W"), ("--driver-early-release", "0 to 1"),
+                            ("--driver-max-force-n", "50 to 50000 N"), ("--driver-late-release", "0 to 1"),
+                            ("--max-speed-kmh", None), ("--exit-after-s", None), ("--drop-at-s", None),
+                            ("--drop-after-s", None), ("--stall-at-s", None), ("--delay-replies-ms", None),
+                            ("--estop-at-s", None), ("--report-roller-diameter-m", None),
+                            ("--report-base-inertia-kg", None)):
+        # A simulator that started anyway exits by itself (--exit-after-s) or at the row's time limit.
+        net = [] if option == "--exit-after-s" else ["--exit-after-s", "10"]
+        rows.append((ARGS.sim, ["--truth", truth, "--port", "0"] + net, option, allowed))
+    for exe, argv, option, allowed in rows:
+        for value in ("nan", "inf", "-inf"):
+            if value == "-inf" and option not in ("--max-speed-kmh", "--rewarm-s", "--friction-compensation-error"):
+                continue
+            said = option + ": is " + value + ", must be a finite number" + (", allowed " + allowed if allowed else "")
+            rc, out = run(argv + [option, value], w, timeout=20, exe=exe)
+            check("%s %s %s" % ("loadtrim-sim" if exe else argv[0], option, value), rc, out, 2, [said],
+                  ["internal error", "bench-cell.toml", "real time", "Type YES", "listening"],
+                  "README, Exit codes: 2 an option refused before anything moved")
 
     print("\n%d row(s) failed" % len(FAILED) if FAILED else "\nevery row passed")
     return 1 if FAILED else 0
