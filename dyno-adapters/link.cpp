@@ -18,6 +18,8 @@ namespace loadtrim::adapters {
 TcpAddress read_tcp_address(config::TomlReader& r) {
   TcpAddress a;
   a.host = r.string_or("controller.host", "127.0.0.1");
+  if (a.host.empty())
+    r.error("controller.host", "is empty: a host name or address (127.0.0.1 when left out)");
   a.port = static_cast<unsigned>(r.integer_or("controller.port", 0, 1, 65535));
   // integer_or accepts a missing key (it is optional for the reader); an address without a port is not.
   if (!r.has("controller.port")) r.error("controller.port", "is missing, allowed 1 to 65535");
@@ -27,6 +29,8 @@ TcpAddress read_tcp_address(config::TomlReader& r) {
 SerialLine read_serial_line(config::TomlReader& r) {
   SerialLine s;
   s.device = r.string("controller.device");
+  if (r.has("controller.device") && s.device.empty())
+    r.error("controller.device", "is empty: the serial device's path (e.g. /dev/ttyUSB0)");
   s.baud = static_cast<unsigned>(r.integer_or("controller.baud", 115200, 1200, 4000000));
   const std::string parity = r.choice("controller.parity", {"none", "odd", "even"}, std::string("none"));
   s.parity = parity == "odd"    ? SerialLine::Parity::odd

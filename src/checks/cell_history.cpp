@@ -20,7 +20,9 @@ std::optional<double> parse_utc_s(const std::string& iso) {
   int y, mo, d, h, mi;
   double s;
   char z = 0;
-  if (std::sscanf(iso.c_str(), "%4d-%2d-%2dT%2d:%2d:%lf%c", &y, &mo, &d, &h, &mi, &s, &z) != 7 || z != 'Z')
+  int used = 0;
+  if (std::sscanf(iso.c_str(), "%4d-%2d-%2dT%2d:%2d:%lf%c%n", &y, &mo, &d, &h, &mi, &s, &z, &used) != 7 ||
+      z != 'Z' || static_cast<std::size_t>(used) != iso.size())
     return std::nullopt;
   if (mo < 1 || mo > 12 || d < 1 || d > 31 || h < 0 || h > 23 || mi < 0 || mi > 59 || !(s >= 0.0 && s < 61.0))
     return std::nullopt;
@@ -33,6 +35,8 @@ std::optional<double> parse_utc_s(const std::string& iso) {
   t.tm_sec = 0;
   const std::time_t base = ::timegm(&t);
   if (base == static_cast<std::time_t>(-1)) return std::nullopt;
+  // timegm carries a day the month does not have into the next month (30 February is 2 March): not a date.
+  if (t.tm_year != y - 1900 || t.tm_mon != mo - 1 || t.tm_mday != d) return std::nullopt;
   return static_cast<double>(base) + s;
 }
 

@@ -15,6 +15,8 @@ std::chrono::milliseconds ms(TomlReader& r, const char* key, double fallback, do
 controller::CellConfig read_cell(TomlReader& r, const AdapterSections& adapters) {
   controller::CellConfig c;
   c.name = r.string("name");
+  // The cell's name keys its folders, locks and records: an empty one is refused, as a profile's is.
+  if (r.has("name") && c.name.empty()) r.error("name", "is empty: the cell's name, a non-empty text");
   if (adapters.names.empty() || !adapters.read) {
     // A caller that passes no registry cannot have a cell file read: say so as a problem of the file rather
     // than guess.

@@ -4,6 +4,7 @@
 #include <chrono>
 #include <cmath>
 #include <future>
+#include <memory>
 #include <thread>
 
 #include "core/combination.hpp"
@@ -1119,17 +1120,34 @@ std::optional<Session::Stop> Session::do_run(int run) {
   {
     // The analysis (the whole-trace fit above all) runs on a worker thread while this one keeps the link
     // alive: the controller's watchdog must never see the tool fall silent while the vehicle turns.
+    // The wait has a deadline on the tool's own clock (docs/safety.md): an analysis that never ends must not
+    // hold the rollers at the run's end speed while the keep-alive feeds the watchdog. The worker owns copies
+    // of what it reads, so one given up on can finish (or not) on its own.
     core::EvaluationOptions eo;
     eo.whole_trace = opt_.whole_trace_estimator;
-    auto job = std::async(std::launch::async, [&] {
-      return core::evaluate_coastdown({ts, vs}, p, in_.vehicle.target, force_mass_kg_, eo);
-    });
-    while (job.wait_for(std::chrono::milliseconds(20)) != std::future_status::ready) {
+    auto task = std::make_shared<std::packaged_task<core::CoastdownEvaluation()>>(
+        [ts, vs, prof = p, target = in_.vehicle.target, mass = force_mass_kg_, eo,
+         hook = opt_.before_analysis] {
+          if (hook) hook();
+          return core::evaluate_coastdown({ts, vs}, prof, target, mass, eo);
+        });
+    auto job = task->get_future();
+    std::thread([task] { (*task)(); }).detach();
+    using SteadyClock = std::chrono::steady_clock;
+    const auto deadline = SteadyClock::now() + std::chrono::duration_cast<SteadyClock::duration>(
+                                                   std::chrono::duration<double>(opt_.analysis_wall_limit_s));
+    for (;;) {
+      const auto left = std::max(SteadyClock::duration::zero(), deadline - SteadyClock::now());
+      if (job.wait_for(std::min<SteadyClock::duration>(std::chrono::milliseconds(20), left)) ==
+          std::future_status::ready)
+        break;
+      if (SteadyClock::now() >= deadline)
+        return fault(Result::fail("the analysis of coast-down " + std::to_string(run) +
+                                  " did not finish within " + core::num(opt_.analysis_wall_limit_s) +
+                                  " s of wall time: the session stops rather than hold the rollers"),
+                     "analysis");
       c_.lease(in_.cell.timeouts.progress_grace);  // this thread is alive: waiting on a bounded computation
-      if (Result hb = c_.heartbeat_if_due(); !hb.ok()) {
-        rec.evaluation = job.get();
-        return link_or_fault(hb, "analysis");
-      }
+      if (Result hb = c_.heartbeat_if_due(); !hb.ok()) return link_or_fault(hb, "analysis");
     }
     rec.evaluation = job.get();
   }

@@ -42,6 +42,7 @@
 
 #include <atomic>
 #include <cstdint>
+#include <functional>
 #include <memory>
 #include <nlohmann/json.hpp>
 #include <optional>
@@ -75,6 +76,12 @@ struct Options {
   std::string operator_note;
   std::chrono::milliseconds record_budget{30000};  // a durable record write (fsync) may take this long (wall)
   double stop_budget_s = 300.0;                    // controller seconds for the rollers to stop
+  // Wall seconds a coast-down's analysis may take before the session stops (docs/safety.md: every wait has a
+  // deadline on the tool's own clock). An analysis takes far less; 60 s is margin for a loaded host and a
+  // sanitizer build (common practice, no source).
+  double analysis_wall_limit_s = 60.0;
+  // Tests only: runs on the analysis worker before it analyses (a slow analysis, to show the deadline above).
+  std::function<void()> before_analysis;
   core::EnvelopeLimits envelope;  // max_force_n and top_speed_kmh are filled from the cell and profile
   bool whole_trace_estimator =
       true;  // the independent estimate beside the band method (benchmarks may skip it)

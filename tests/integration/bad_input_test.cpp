@@ -101,6 +101,11 @@ const Row kRows[] = {
      "run_up = \"vehicle\"",
      "run_up = \"robot\"",
      {"dyno.run_up (line", "is \"robot\", allowed \"dyno\", \"vehicle\""}},
+    // An empty host or cell name is refused naming the key (the brief's rule: bad input named with the key,
+    // never a silent default); before, an empty host passed and failed only at connect (exit 3, "cannot
+    // connect to tcp :7301"), and an empty cell name was taken.
+    {"empty_host", "cell", "host = \"127.0.0.1\"", "host = \"\"", {"controller.host", "is empty"}},
+    {"empty_cell_name", "cell", "name = \"", "name = \"\"\nold_name = \"", {"is empty: the cell's name"}},
     {"empty_file", "profile", "", "", {"error: the file is empty"}},
     {"truncated_file", "target", "[target]", "[tar", {"not valid TOML"}},
     {"binary_garbage", "cell", "", kGarbage, {"the file holds binary data, not TOML text"}},

@@ -591,6 +591,13 @@ TEST(DynoChecks, UtcTimesRoundTrip) {
   EXPECT_EQ(checks::utc_from_s(1796083200.5), "2026-12-01T00:00:00.500Z");
   EXPECT_FALSE(checks::parse_utc_s("2026-12-01 00:00:00").has_value());
   EXPECT_FALSE(checks::parse_utc_s("2026-13-01T00:00:00Z").has_value());
+  // Days the month does not have (Gregorian calendar: February 2026 has 28 days, April 30) and text after the
+  // Z are not UTC times; before, 30 February was read as 2 March.
+  EXPECT_FALSE(checks::parse_utc_s("2026-02-30T00:00:00Z").has_value());
+  EXPECT_FALSE(checks::parse_utc_s("2026-02-29T00:00:00Z").has_value());
+  EXPECT_FALSE(checks::parse_utc_s("2026-04-31T00:00:00Z").has_value());
+  EXPECT_TRUE(checks::parse_utc_s("2028-02-29T00:00:00Z").has_value());  // a leap year
+  EXPECT_FALSE(checks::parse_utc_s("2026-12-01T00:00:00Zjunk").has_value());
 }
 
 TEST(DynoChecks, CheckProfileLoadsAndBadValuesAreRefused) {

@@ -7,6 +7,7 @@
 #include <gtest/gtest.h>
 
 #include <algorithm>
+#include <chrono>
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
@@ -15,6 +16,7 @@
 #include <functional>
 #include <optional>
 #include <stdexcept>
+#include <thread>
 
 #include "config/cell_loader.hpp"
 #include "config/loaders.hpp"
@@ -2566,4 +2568,23 @@ TEST(SessionUnit, AStatusThatFailsItsChecksAtTheStopIsNoConfirmation) {
   EXPECT_TRUE(c.sent(Mode::controlled_stop));
   EXPECT_FALSE(sum.rollers_stopped) << sum.stop_note;
   EXPECT_NE(sum.stop_note.find("not confirmed"), std::string::npos) << sum.stop_note;
+}
+
+// docs/safety.md (every wait has a deadline on the tool's own clock): the analysis of a coast-down runs on a
+// worker while the rollers turn at the run's end speed and the keep-alive feeds the watchdog. One that does
+// not finish within Options::analysis_wall_limit_s ends the session (exit 3) with the rollers stopped. Here
+// the limit is 0.05 s and the analysis is held back 0.5 s, so the first one is given up on. Before, the wait
+// had no deadline.
+TEST(SessionUnit, AnAnalysisThatDoesNotFinishInTimeStopsTheSession) {
+  FakeController c(loadtrim::testing::demo_truth());
+  session::Options o = options();
+  o.analysis_wall_limit_s = 0.05;
+  o.before_analysis = [] { std::this_thread::sleep_for(std::chrono::milliseconds(500)); };
+  session::Session s(inputs(), o, c, {});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::controller_fault);
+  EXPECT_NE(sum.stop_reason.find("did not finish within"), std::string::npos) << sum.stop_reason;
+  EXPECT_EQ(sum.coastdowns, 0);
+  EXPECT_TRUE(c.sent(Mode::road_load));  // it got as far as a coast-down
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
 }
