@@ -404,8 +404,10 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   if (session::is_final(sum.outcome) && !seal_session(folder, cell, writer.summary(), key, req.checks_dir,
                                                       req.console == session::Console::Mode::json))
     sum.outcome = session::Outcome::record_failure;
+  // Under the cell's own name, where the next session looks (`inputs` was moved into the session above: its
+  // cell name is gone, and a history saved under it was never found again).
   if (sum.outcome == session::Outcome::accepted)
-    save_history(record::vehicle_history_file(req.history_dir, inputs.cell.name, vehicle.id), vehicle, sum, folder,
+    save_history(record::vehicle_history_file(req.history_dir, cell.name, vehicle.id), vehicle, sum, folder,
                  method);
   // Every session ends with its report (from the record alone, so it shows what an auditor would see).
   const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION, req.csv);

@@ -9,6 +9,7 @@ lock folder, so nothing outside it changes.
 Usage: mistakes.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOURCE_DIR --workdir DIR
 """
 import argparse
+import json
 import os
 import pty
 import select
@@ -351,6 +352,49 @@ def main():
             check("%s %s %s" % ("loadtrim-sim" if exe else argv[0], option, value), rc, out, 2, [said],
                   ["internal error", "bench-cell.toml", "real time", "Type YES", "listening"],
                   "README, Exit codes: 2 an option refused before anything moved")
+
+    # 12. --first-setting history without a store, twice in one data root (docs/store.md, "The history first
+    # setting", 1: with no store the per-cell history file is read): the first session finds none and says on the
+    # console that it fell back and why; the second finds the first's accepted setting on this cell and uses it.
+    # (The history was once saved under an empty cell name and never found again.) Both simulated cells: the
+    # in-process one, and the TCP one against loadtrim-sim.
+    sim, port = start_sim(os.path.join(src, "samples/truths/demo-hatchback.toml"))
+    try:
+        for cell_file, extra in (("sim-inprocess.toml", []), ("sim-tcp.toml", ["--port", str(port)])):
+            root = os.path.join(w, "history-" + cell_file.replace(".toml", ""))
+            argv = ["run", "--cell", os.path.join(src, "config/cells", cell_file), "--target", target,
+                    "--unattended", "--first-setting", "history", "--data-dir", root] + extra + run_args
+            said = []
+            for k in (1, 2):
+                rc, out = run(argv, w, timeout=120)
+                said.append(out)
+                words = (["first setting (fleet)", "first setting: fleet used, history asked for",
+                          "no earlier accepted session of this vehicle", "the history file was read: no entry there"]
+                         if k == 1 else ["first setting (history)"])
+                check("history first setting, %s session %d" % (cell_file, k), rc, out, 0, words,
+                      ["first setting (fleet)"] if k == 2 else [],
+                      "docs/store.md, The history first setting, 1; README, Exit codes: 0")
+            # The second session's first_setting record names history, and the history file it read is where the
+            # first session saved (the cell's own folder, not one for an empty name).
+            sessions = sorted(os.listdir(os.path.join(root, "sessions")))
+            records = []
+            for name in sessions:
+                with open(os.path.join(root, "sessions", name, "events.jsonl")) as f:
+                    records += [r for r in map(json.loads, f) if r.get("type") == "first_setting"]
+            strategies = [(r.get("requested"), r.get("strategy")) for r in records]
+            saved = sorted(os.listdir(os.path.join(root, "history")))
+            ok = (strategies == [("history", "fleet"), ("history", "history")] and len(saved) == 1 and
+                  not saved[0].startswith("unnamed") and
+                  os.path.isfile(records[-1].get("history_lookup", {}).get("file", "")))
+            print("%-4s %-44s (%s)" % ("ok" if ok else "FAIL", "history first setting, %s records" % cell_file,
+                                       "docs/store.md, The history first setting"))
+            if not ok:
+                FAILED.append("history first setting, %s records" % cell_file)
+                print("     first_setting records (requested, strategy): %s; history folders: %s" % (strategies,
+                                                                                                      saved))
+    finally:
+        sim.kill()
+        sim.wait()
 
     print("\n%d row(s) failed" % len(FAILED) if FAILED else "\nevery row passed")
     return 1 if FAILED else 0
