@@ -3,6 +3,7 @@
 #include <pwd.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <atomic>
 #include <csignal>
 #include <filesystem>
@@ -65,6 +66,16 @@ std::string profile_file(const std::string& p) {
              : config::profile_path(data_dir() + "/config/profiles", p);
 }
 
+std::vector<std::string> profile_names() {
+  std::vector<std::string> names;
+  std::error_code ec;
+  for (fs::directory_iterator it(data_dir() + "/config/profiles", ec), end; !ec && it != end;
+       it.increment(ec))
+    if (it->path().extension() == ".toml") names.push_back(it->path().stem().string());
+  std::sort(names.begin(), names.end());
+  return names;
+}
+
 namespace {
 
 void warn(const std::string& file, const core::Problems& w) {
@@ -107,7 +118,10 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
   });
   bool have_target = false;
   load(target_file, [&](core::Problems& w) {
-    l.inputs.vehicle = config::load_target(target_file, &w);
+    // The target's own profile, when no other is given, must be one there is (a misspelt name is named with
+    // the known ones).
+    l.inputs.vehicle = config::load_target(
+        target_file, &w, profile_override.empty() ? profile_names() : std::vector<std::string>{});
     have_target = true;
   });
   if (have_target || !profile_override.empty()) {

@@ -63,7 +63,8 @@ void refuse_ignored(const TargetOptions& o, const std::string& kind) {
                                               "--rotating-mass-kg",
                                               "--estimate-mass-in-running-order",
                                               "--drive",
-                                              "--max-speed-kmh"};
+                                              "--max-speed-kmh",
+                                              "--profile"};
   const std::vector<std::string> from_row = {"--id", "--description", "--test-mass-kg", "--test-mass-lb",
                                              "--drive"};
   std::string ignored;
@@ -121,13 +122,14 @@ std::string where_from(const TargetOptions& o) {
   return !o.from.empty() ? "file" : !o.metric.empty() ? "metric" : !o.us.empty() ? "us" : "epa";
 }
 
-core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, std::string& source,
+// `from_file`: the target file --from names, already loaded (its profile decides `profile`).
+core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile,
+                          const std::optional<core::VehicleTarget>& from_file, std::string& source,
                           std::string& mro_basis) {
   const std::string kind = where_from(o);
-  refuse_ignored(o, kind);
   core::VehicleTarget v;
   if (kind == "file") {
-    v = config::load_target(o.from);
+    v = *from_file;
     if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
     source = "target file " + o.from;
     mro_basis = v.rotating_mass_kg                  ? "not used: the file gives the rotating mass"
@@ -195,11 +197,17 @@ nlohmann::json coef(const core::RoadLoad& c) {
 }
 
 int run_target(const TargetOptions& o) {
-  const std::string pfile = profile_file(o.profile);
+  refuse_ignored(o, where_from(o));
+  // --from: the file is read as `run` reads it, its profile checked against the known ones and its warnings
+  // (an unknown key, a typo?) kept for the findings; the profile is the file's own, as for `run`.
+  core::Problems file_warnings;
+  std::optional<core::VehicleTarget> from_file;
+  if (!o.from.empty()) from_file = config::load_target(o.from, &file_warnings, profile_names());
+  const std::string pfile = profile_file(from_file ? from_file->profile : o.profile);
   core::Problems profile_warnings;  // the profile file's own (printed with its name; in the JSON with "file")
   const core::Profile profile = config::load_profile(pfile, &profile_warnings);
   std::string source, mro_basis;
-  core::VehicleTarget v = build(o, profile, source, mro_basis);
+  core::VehicleTarget v = build(o, profile, from_file, source, mro_basis);
   if (v.profile.empty()) v.profile = profile.name;
   core::AxleLayout layout = core::axle_layout_for(v.drive);
   std::optional<controller::CellConfig> cell;
@@ -207,7 +215,12 @@ int run_target(const TargetOptions& o) {
     cell = config::load_cell(o.cell, adapters::tool_registry().sections());
     layout = cell->axles;
   }
-  core::Problems found = core::plausibility(v);
+  // The file's own warnings first (with their lines), then what the checks below find that they did not say.
+  core::Problems found = file_warnings;
+  for (const core::Problem& p : core::plausibility(v))
+    if (std::none_of(found.begin(), found.end(),
+                     [&](const core::Problem& q) { return q.message == p.message; }))
+      found.push_back(p);
   // The same reference-speed rule as `run` (core::plan_reference_speeds): what is dropped and why.
   const core::ReferenceSpeedPlan plan =
       core::plan_reference_speeds(profile, v.max_speed_kmh, v.cycle_max_speed_kmh);

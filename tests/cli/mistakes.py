@@ -182,6 +182,53 @@ def main():
               named + ["would be ignored", "refused: nothing was started"], [], "README, Exit codes: 2")
     rc, out = run(["target", "--from", target], w)
     check("target --from alone", rc, out, 0, ["vehicle DEMO-HB-01"], ["would be ignored"], "README, step 3")
+    # --profile with --from: the file names its profile, so the option would be ignored (as --id above).
+    rc, out = run(["target", "--from", target, "--profile", "wltp-fixed-run"], w)
+    check("target --from with --profile", rc, out, 2, ["--profile", "would be ignored"], ["written:"],
+          "README, Exit codes: 2 `target --from` with options the file would override")
+    # The file's profile is the one used, as `run` uses it: a [target_us] file of the US profile is tabled at that
+    # profile's speeds and written for it (header and body alike).
+    with open(target) as f:
+        demo_text = f.read()
+    us_file = os.path.join(w, "us-target.toml")
+    with open(us_file, "w") as f:
+        f.write('profile = "us-iterative"\n\n[vehicle]\nid = "US-1"\ntest_mass_kg = 1700.0\n'
+                'mass_in_running_order_kg = 1600.0\ndrive = "front"\nmax_speed_kmh = 180.0\n\n'
+                '[target_us]\na_lbf = 30.0\nb_lbf_per_mph = 0.3\nc_lbf_per_mph2 = 0.02\n')
+    rc, out = run(["target", "--from", us_file, "--out", "us-out/US-1.toml"], w)
+    check("target --from a us-iterative file", rc, out, 0,
+          ["profile us-iterative)", "[band ±4.0 km/h]", "24.1", "written: us-out/US-1.toml"],
+          ["profile wltp-iterative", "[band ±5.0 km/h]"], "README, step 3: --from takes the file's facts")
+    written = open(os.path.join(w, "us-out/US-1.toml")).read() if rc == 0 else ""
+    if "for profile us-iterative" not in written or 'profile = "us-iterative"' not in written:
+        FAILED.append("target --from a us-iterative file: written header and body")
+        print("FAIL target --from a us-iterative file wrote:\n" + written)
+    # A misspelt profile name: refused as `run` refuses it (exit 2), naming the file, the key and its line, and
+    # the names allowed; nothing written. The brief's rule: bad input names the file, line/key and allowed range.
+    misspelt = os.path.join(w, "misspelt-profile.toml")
+    with open(misspelt, "w") as f:
+        f.write(demo_text.replace('profile = "wltp-iterative"', 'profile = "wltp-iterativ"'))
+    profile_words = ["misspelt-profile.toml: error: profile (line 3)", '"wltp-iterativ"', "allowed",
+                     '"us-iterative", "wltp-fixed-run", "wltp-iterative"']
+    rc, out = run(["target", "--from", misspelt, "--out", "misspelt-out.toml"], w)
+    check("target --from a misspelt profile", rc, out, 2, profile_words, ["written:", "read back"],
+          "README, Exit codes: 2; the brief's rule: file, line/key, allowed")
+    if os.path.exists(os.path.join(w, "misspelt-out.toml")):
+        FAILED.append("target --from a misspelt profile wrote --out")
+        print("FAIL target --from a misspelt profile wrote misspelt-out.toml")
+    rc, out = run(["run", "--cell", cell, "--target", misspelt, "--port", str(closed), "--unattended"] + run_args, w)
+    check("run with a misspelt profile", rc, out, 2, profile_words + ["refused: nothing was started"], [],
+          "README, Exit codes: 2")
+    # An unknown key (a typo): warned as `run` warns, with its line; the target itself is accepted.
+    typo = os.path.join(w, "typo-key.toml")
+    with open(typo, "w") as f:
+        f.write(demo_text.replace("max_speed_kmh = 185.0", "max_speed_kmh = 185.0\ncycle_max_speed_khm = 100.0"))
+    typo_words = ["typo-key.toml: warning: vehicle.cycle_max_speed_khm (line 12): unknown key, ignored (a typo?)"]
+    rc, out = run(["target", "--from", typo], w)
+    check("target --from with an unknown key", rc, out, 0, typo_words + ["vehicle DEMO-HB-01"], [],
+          "the brief's rule: never a silent default; run warns the same")
+    rc, out = run(["run", "--cell", cell, "--target", typo, "--port", str(closed), "--unattended"] + run_args, w)
+    check("run with the same unknown key", rc, out, 3, typo_words, [], "README, Exit codes: 3 nothing listens")
 
     # 4. A bad cell file and a bad target file together: both files' errors.
     bad_cell = os.path.join(w, "bad-cell.toml")
