@@ -63,8 +63,7 @@ void refuse_ignored(const TargetOptions& o, const std::string& kind) {
                                               "--rotating-mass-kg",
                                               "--estimate-mass-in-running-order",
                                               "--drive",
-                                              "--max-speed-kmh",
-                                              "--profile"};
+                                              "--max-speed-kmh"};
   const std::vector<std::string> from_row = {"--id", "--description", "--test-mass-kg", "--test-mass-lb",
                                              "--drive"};
   std::string ignored;
@@ -198,11 +197,18 @@ nlohmann::json coef(const core::RoadLoad& c) {
 
 int run_target(const TargetOptions& o) {
   refuse_ignored(o, where_from(o));
-  // --from: the file is read as `run` reads it, its profile checked against the known ones and its warnings
-  // (an unknown key, a typo?) kept for the findings; the profile is the file's own, as for `run`.
+  // --from: the file is read as `run` reads it, its warnings (an unknown key, a typo?) kept for the findings;
+  // the profile is the file's own (checked against the known ones), unless --profile gives another, as for
+  // `run`.
+  const bool profile_given = std::find(o.given.begin(), o.given.end(), "--profile") != o.given.end();
   core::Problems file_warnings;
   std::optional<core::VehicleTarget> from_file;
-  if (!o.from.empty()) from_file = config::load_target(o.from, &file_warnings, profile_names());
+  if (!o.from.empty()) {
+    from_file = config::load_target(o.from, &file_warnings,
+                                    profile_given ? std::vector<std::string>{} : profile_names());
+    // What is tabled is what --out writes: the profile given, in the file's body as in its header.
+    if (profile_given) from_file->profile = o.profile;
+  }
   const std::string pfile = profile_file(from_file ? from_file->profile : o.profile);
   core::Problems profile_warnings;  // the profile file's own (printed with its name; in the JSON with "file")
   const core::Profile profile = config::load_profile(pfile, &profile_warnings);

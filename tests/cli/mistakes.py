@@ -182,12 +182,9 @@ def main():
               named + ["would be ignored", "refused: nothing was started"], [], "README, Exit codes: 2")
     rc, out = run(["target", "--from", target], w)
     check("target --from alone", rc, out, 0, ["vehicle DEMO-HB-01"], ["would be ignored"], "README, step 3")
-    # --profile with --from: the file names its profile, so the option would be ignored (as --id above).
-    rc, out = run(["target", "--from", target, "--profile", "wltp-fixed-run"], w)
-    check("target --from with --profile", rc, out, 2, ["--profile", "would be ignored"], ["written:"],
-          "README, Exit codes: 2 `target --from` with options the file would override")
-    # The file's profile is the one used, as `run` uses it: a [target_us] file of the US profile is tabled at that
-    # profile's speeds and written for it (header and body alike).
+    # The file's profile is the one used, as `run` uses it (unless --profile gives another, as for `run`): a
+    # [target_us] file of the US profile is tabled at that profile's speeds and written for it (header and body
+    # alike).
     with open(target) as f:
         demo_text = f.read()
     us_file = os.path.join(w, "us-target.toml")
@@ -203,6 +200,13 @@ def main():
     if "for profile us-iterative" not in written or 'profile = "us-iterative"' not in written:
         FAILED.append("target --from a us-iterative file: written header and body")
         print("FAIL target --from a us-iterative file wrote:\n" + written)
+    rc, out = run(["target", "--from", us_file, "--profile", "wltp-fixed-run", "--out", "us-out/US-1-fixed.toml"], w)
+    check("target --from with --profile", rc, out, 0, ["profile wltp-fixed-run)", "[band ±5.0 km/h]"],
+          ["profile us-iterative", "[band ±4.0 km/h]"], "README, step 3: --profile, as for run")
+    written = open(os.path.join(w, "us-out/US-1-fixed.toml")).read() if rc == 0 else ""
+    if "for profile wltp-fixed-run" not in written or 'profile = "wltp-fixed-run"' not in written:
+        FAILED.append("target --from with --profile: written header and body")
+        print("FAIL target --from with --profile wrote:\n" + written)
     # A misspelt profile name: refused as `run` refuses it (exit 2), naming the file, the key and its line, and
     # the names allowed; nothing written. The brief's rule: bad input names the file, line/key and allowed range.
     misspelt = os.path.join(w, "misspelt-profile.toml")
