@@ -158,6 +158,7 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
 std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
   try {
     const config::EpaFile f = config::read_epa_csv(csv);
+    std::cerr << config::skipped_rows_note(csv, f, 1);  // the fit leaves out rows that cannot be used
     auto m = core::fit_fleet_loss(config::fleet_rows(f));
     if (m.ok()) return m;
   } catch (const config::InputError& e) {

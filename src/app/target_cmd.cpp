@@ -141,6 +141,9 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile,
     for (const auto& r : f.rows)
       if ((o.epa_line > 0 && r.line == o.epa_line) || (!o.epa_id.empty() && r.id == o.epa_id)) {
         v = config::target_from_epa(r, profile.name, o.max_speed_kmh);
+        // A row that cannot give a target is refused before anything is shown, naming its line and column.
+        if (const core::Problems bad = config::row_errors(r, core::plausibility(v)); !bad.empty())
+          throw config::InputError(o.epa, bad);
         if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
         // The row gives the equivalent test weight only: its mass in running order is an estimate.
         settle_mass_in_running_order(o, v, *v.mass_in_running_order_kg,
@@ -149,10 +152,30 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile,
             o.epa + " line " + std::to_string(r.line) + " (US units: A, B, C and the equivalent test weight)";
         return v;
       }
+    // Not found: why the row asked for is not there, or cannot be used.
+    if (o.epa_line > 0) {
+      for (const auto& sk : f.skipped)
+        if (sk.line == o.epa_line)
+          throw config::InputError(
+              o.epa,
+              {{core::Problem::Severity::error, "line " + std::to_string(sk.line) + ", column " + sk.column,
+                sk.message + "; the row cannot be used (--epa-line " + std::to_string(o.epa_line) + ")"}});
+      throw config::InputError(
+          o.epa, {{core::Problem::Severity::error, "--epa-line",
+                   "is " + std::to_string(o.epa_line) + ": " +
+                       (o.epa_line == 1            ? "line 1 is the header"
+                        : o.epa_line > f.last_line ? "the file ends at line " + std::to_string(f.last_line)
+                                                   : "that line is empty") +
+                       "; allowed a data row's line, 2 to " + std::to_string(f.last_line)}});
+    }
     throw config::InputError(
-        o.epa, {{core::Problem::Severity::error, o.epa_line > 0 ? "--epa-line" : "--epa-id",
-                 "no usable row with " +
-                     (o.epa_line > 0 ? "line " + std::to_string(o.epa_line) : "id \"" + o.epa_id + "\"")}});
+        o.epa, {{core::Problem::Severity::error, "--epa-id",
+                 "no row has the id \"" + o.epa_id + "\" (model_year/test_vehicle_id/test_veh_config_num)" +
+                     (f.skipped.empty() ? std::string()
+                                        : "; " + std::to_string(f.skipped.size()) +
+                                              " row(s) of the file cannot be used, the first at line " +
+                                              std::to_string(f.skipped.front().line) + ", column " +
+                                              f.skipped.front().column + ": " + f.skipped.front().message)}});
   }
   core::Problems problems;
   const auto E = core::Problem::Severity::error;

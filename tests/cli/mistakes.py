@@ -447,6 +447,55 @@ def main():
         sim.kill()
         sim.wait()
 
+    # 13. EPA CSV rows (target --epa, demo --epa): a row that cannot be used says why, naming the CSV, the line,
+    # the column, the value and what is allowed, and nothing is tabled before the row is known good; a drive code
+    # that is empty or not one of the list is never taken for all-wheel drive (the brief's rule: bad input names
+    # the file, line/key and allowed range; never a silent default; README, Exit codes: 2).
+    with open(os.path.join(src, "samples/data/epa_test_car_roadload_MY2016_2019.csv")) as f:
+        epa = [f.readline().rstrip("\n") for _ in range(9)]
+    header = epa[0].split(",")
+
+    def with_cell(line_no, column, value):
+        cells = epa[line_no - 1].split(",")
+        cells[header.index(column)] = value
+        return ",".join(cells)
+
+    rows = list(epa)
+    rows[2] = with_cell(3, "drive_system_code", "")
+    rows[3] = with_cell(4, "drive_system_code", "f")
+    rows[4] = with_cell(5, "etw_kg", epa[4].split(",")[header.index("etw_kg")] + " ")
+    rows[5] = ",".join(epa[5].split(",")[:5])
+    rows[6] = with_cell(7, "etw_kg", "-5")
+    rows[7] = with_cell(8, "etw_kg", "12x")
+    bad_csv = os.path.join(w, "bad-rows.csv")
+    with open(bad_csv, "w") as f:
+        f.write("\n".join(rows) + "\n")
+    codes = 'allowed "F" (2WD front), "R" (2WD rear), "A" (AWD), "4" (4WD), "P" (part-time 4WD)'
+    table = ["target (exact)", "masses:", "initial dyno setting"]
+    for line_no, rc_want, words in (
+            (3, 2, ["bad-rows.csv: error: line 3, column drive_system_code: is empty, " + codes]),
+            (4, 2, ['bad-rows.csv: error: line 4, column drive_system_code: is "f", ' + codes]),
+            (6, 2, ["bad-rows.csv: error: line 6, column drive_system_code: is missing: the row has 5 cells, "
+                    "the header 24"]),
+            (7, 2, ["bad-rows.csv: error: line 7, column etw_kg", "is -5, allowed 50 to 20000 kg"]),
+            (8, 2, ['bad-rows.csv: error: line 8, column etw_kg: is "12x", not a number: allowed a finite number '
+                    "in kg"]),
+            (10, 2, ["bad-rows.csv: error: --epa-line: is 10: the file ends at line 9"]),
+            (5, 0, ["from " + bad_csv + " line 5"] + table)):
+        rc, out = run(["target", "--epa", bad_csv, "--epa-line", str(line_no), "--estimate-mass-in-running-order"],
+                      w)
+        check("target --epa line %d" % line_no, rc, out, rc_want, words,
+              (table + ["TM -5.0 kg", "no usable row", "two-axle"]) if rc_want == 2 else ["error"],
+              "the brief's rule: file, line/key, allowed range; README, Exit codes: 2" if rc_want == 2 else
+              "README, step 3: a value with a space after it is the value")
+    rc, out = run(["demo", "--epa", bad_csv, "--vehicles", "1", "--no-live", "--sessions",
+                   os.path.join(w, "epa-demo-sessions")], w, timeout=120)
+    check("demo --epa names the rows it cannot use", rc, out, 0,
+          [bad_csv + ": line 3, column drive_system_code: is empty, " + codes + "; the row is not used",
+           bad_csv + ': line 4, column drive_system_code: is "f"', bad_csv + ": line 6, column drive_system_code",
+           bad_csv + ": line 8, column etw_kg", "1 of 1 vehicles accepted"], [],
+          "the brief's rule: never a silent default")
+
     print("\n%d row(s) failed" % len(FAILED) if FAILED else "\nevery row passed")
     return 1 if FAILED else 0
 
