@@ -389,6 +389,7 @@ int run_bench(BenchOptions o) {
   const core::Profile fixed =
       config::load_profile(config::profile_path(data_dir() + "/config/profiles", "wltp-fixed-run"));
   const config::EpaFile f = config::read_epa_csv(o.epa);
+  std::cerr << config::skipped_rows_note(o.epa, f);  // rows that cannot be used, each with why
   // Fleet model from the same file (in-sample: the benchmark's fleet figure is optimistic by that much).
   const core::FleetLossModel fleet = core::fit_fleet_loss(config::fleet_rows(f));
 

@@ -60,6 +60,7 @@ int demo_fleet(DemoOptions o) {
   std::printf("loadtrim demo: %d vehicles from %s, randomised truths, in-process simulated controller.\n",
               o.vehicles, o.epa.c_str());
   const config::EpaFile f = config::read_epa_csv(o.epa);
+  std::cerr << config::skipped_rows_note(o.epa, f);  // rows that cannot be used, each with why
   const std::string profile_name = o.req.profile.empty() ? "wltp-iterative" : o.req.profile;
   const core::Profile profile = config::load_profile(
       profile_name.ends_with(".toml") ? profile_name

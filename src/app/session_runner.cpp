@@ -3,6 +3,7 @@
 #include <pwd.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <atomic>
 #include <csignal>
 #include <filesystem>
@@ -65,6 +66,16 @@ std::string profile_file(const std::string& p) {
              : config::profile_path(data_dir() + "/config/profiles", p);
 }
 
+std::vector<std::string> profile_names() {
+  std::vector<std::string> names;
+  std::error_code ec;
+  for (fs::directory_iterator it(data_dir() + "/config/profiles", ec), end; !ec && it != end;
+       it.increment(ec))
+    if (it->path().extension() == ".toml") names.push_back(it->path().stem().string());
+  std::sort(names.begin(), names.end());
+  return names;
+}
+
 namespace {
 
 void warn(const std::string& file, const core::Problems& w) {
@@ -107,7 +118,10 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
   });
   bool have_target = false;
   load(target_file, [&](core::Problems& w) {
-    l.inputs.vehicle = config::load_target(target_file, &w);
+    // The target's own profile, when no other is given, must be one there is (a misspelt name is named with
+    // the known ones).
+    l.inputs.vehicle = config::load_target(
+        target_file, &w, profile_override.empty() ? profile_names() : std::vector<std::string>{});
     have_target = true;
   });
   if (have_target || !profile_override.empty()) {
@@ -144,6 +158,7 @@ Loaded load_all(const std::string& cell_file, const std::string& target_file,
 std::optional<core::FleetLossModel> load_fleet(const std::string& csv) {
   try {
     const config::EpaFile f = config::read_epa_csv(csv);
+    std::cerr << config::skipped_rows_note(csv, f, 1);  // the fit leaves out rows that cannot be used
     auto m = core::fit_fleet_loss(config::fleet_rows(f));
     if (m.ok()) return m;
   } catch (const config::InputError& e) {
@@ -404,8 +419,10 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
   if (session::is_final(sum.outcome) && !seal_session(folder, cell, writer.summary(), key, req.checks_dir,
                                                       req.console == session::Console::Mode::json))
     sum.outcome = session::Outcome::record_failure;
+  // Under the cell's own name, where the next session looks (`inputs` was moved into the session above: its
+  // cell name is gone, and a history saved under it was never found again).
   if (sum.outcome == session::Outcome::accepted)
-    save_history(record::vehicle_history_file(req.history_dir, inputs.cell.name, vehicle.id), vehicle, sum, folder,
+    save_history(record::vehicle_history_file(req.history_dir, cell.name, vehicle.id), vehicle, sum, folder,
                  method);
   // Every session ends with its report (from the record alone, so it shows what an auditor would see).
   const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION, req.csv);

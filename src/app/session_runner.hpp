@@ -5,6 +5,7 @@
 #include <atomic>
 #include <optional>
 #include <string>
+#include <vector>
 
 #include "controller/cell.hpp"
 #include "controller/controller.hpp"
@@ -80,6 +81,8 @@ std::string default_fleet_csv();
 // A standard profile given by name (config/profiles/NAME.toml) or as a file path; the default dyno check
 // profile.
 std::string profile_file(const std::string& name_or_path);
+// The names profile_file resolves (config/profiles/*.toml, sorted); empty when that folder cannot be read.
+std::vector<std::string> profile_names();
 std::string default_check_profile();
 // The operator's permission to motor the rollers: the explicit unattended flag, or the cautions on stderr and
 // `word` typed on the terminal. Returns how it was given (for the record), or "" when refused.

@@ -121,13 +121,14 @@ std::string where_from(const TargetOptions& o) {
   return !o.from.empty() ? "file" : !o.metric.empty() ? "metric" : !o.us.empty() ? "us" : "epa";
 }
 
-core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, std::string& source,
+// `from_file`: the target file --from names, already loaded (its profile decides `profile`).
+core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile,
+                          const std::optional<core::VehicleTarget>& from_file, std::string& source,
                           std::string& mro_basis) {
   const std::string kind = where_from(o);
-  refuse_ignored(o, kind);
   core::VehicleTarget v;
   if (kind == "file") {
-    v = config::load_target(o.from);
+    v = *from_file;
     if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
     source = "target file " + o.from;
     mro_basis = v.rotating_mass_kg                  ? "not used: the file gives the rotating mass"
@@ -140,6 +141,9 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
     for (const auto& r : f.rows)
       if ((o.epa_line > 0 && r.line == o.epa_line) || (!o.epa_id.empty() && r.id == o.epa_id)) {
         v = config::target_from_epa(r, profile.name, o.max_speed_kmh);
+        // A row that cannot give a target is refused before anything is shown, naming its line and column.
+        if (const core::Problems bad = config::row_errors(r, core::plausibility(v)); !bad.empty())
+          throw config::InputError(o.epa, bad);
         if (o.cycle_max_speed_kmh > 0) v.cycle_max_speed_kmh = o.cycle_max_speed_kmh;
         // The row gives the equivalent test weight only: its mass in running order is an estimate.
         settle_mass_in_running_order(o, v, *v.mass_in_running_order_kg,
@@ -148,10 +152,30 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile, 
             o.epa + " line " + std::to_string(r.line) + " (US units: A, B, C and the equivalent test weight)";
         return v;
       }
+    // Not found: why the row asked for is not there, or cannot be used.
+    if (o.epa_line > 0) {
+      for (const auto& sk : f.skipped)
+        if (sk.line == o.epa_line)
+          throw config::InputError(
+              o.epa,
+              {{core::Problem::Severity::error, "line " + std::to_string(sk.line) + ", column " + sk.column,
+                sk.message + "; the row cannot be used (--epa-line " + std::to_string(o.epa_line) + ")"}});
+      throw config::InputError(
+          o.epa, {{core::Problem::Severity::error, "--epa-line",
+                   "is " + std::to_string(o.epa_line) + ": " +
+                       (o.epa_line == 1            ? "line 1 is the header"
+                        : o.epa_line > f.last_line ? "the file ends at line " + std::to_string(f.last_line)
+                                                   : "that line is empty") +
+                       "; allowed a data row's line, 2 to " + std::to_string(f.last_line)}});
+    }
     throw config::InputError(
-        o.epa, {{core::Problem::Severity::error, o.epa_line > 0 ? "--epa-line" : "--epa-id",
-                 "no usable row with " +
-                     (o.epa_line > 0 ? "line " + std::to_string(o.epa_line) : "id \"" + o.epa_id + "\"")}});
+        o.epa, {{core::Problem::Severity::error, "--epa-id",
+                 "no row has the id \"" + o.epa_id + "\" (model_year/test_vehicle_id/test_veh_config_num)" +
+                     (f.skipped.empty() ? std::string()
+                                        : "; " + std::to_string(f.skipped.size()) +
+                                              " row(s) of the file cannot be used, the first at line " +
+                                              std::to_string(f.skipped.front().line) + ", column " +
+                                              f.skipped.front().column + ": " + f.skipped.front().message)}});
   }
   core::Problems problems;
   const auto E = core::Problem::Severity::error;
@@ -195,11 +219,24 @@ nlohmann::json coef(const core::RoadLoad& c) {
 }
 
 int run_target(const TargetOptions& o) {
-  const std::string pfile = profile_file(o.profile);
+  refuse_ignored(o, where_from(o));
+  // --from: the file is read as `run` reads it, its warnings (an unknown key, a typo?) kept for the findings;
+  // the profile is the file's own (checked against the known ones), unless --profile gives another, as for
+  // `run`.
+  const bool profile_given = std::find(o.given.begin(), o.given.end(), "--profile") != o.given.end();
+  core::Problems file_warnings;
+  std::optional<core::VehicleTarget> from_file;
+  if (!o.from.empty()) {
+    from_file = config::load_target(o.from, &file_warnings,
+                                    profile_given ? std::vector<std::string>{} : profile_names());
+    // What is tabled is what --out writes: the profile given, in the file's body as in its header.
+    if (profile_given) from_file->profile = o.profile;
+  }
+  const std::string pfile = profile_file(from_file ? from_file->profile : o.profile);
   core::Problems profile_warnings;  // the profile file's own (printed with its name; in the JSON with "file")
   const core::Profile profile = config::load_profile(pfile, &profile_warnings);
   std::string source, mro_basis;
-  core::VehicleTarget v = build(o, profile, source, mro_basis);
+  core::VehicleTarget v = build(o, profile, from_file, source, mro_basis);
   if (v.profile.empty()) v.profile = profile.name;
   core::AxleLayout layout = core::axle_layout_for(v.drive);
   std::optional<controller::CellConfig> cell;
@@ -207,7 +244,12 @@ int run_target(const TargetOptions& o) {
     cell = config::load_cell(o.cell, adapters::tool_registry().sections());
     layout = cell->axles;
   }
-  core::Problems found = core::plausibility(v);
+  // The file's own warnings first (with their lines), then what the checks below find that they did not say.
+  core::Problems found = file_warnings;
+  for (const core::Problem& p : core::plausibility(v))
+    if (std::none_of(found.begin(), found.end(),
+                     [&](const core::Problem& q) { return q.message == p.message; }))
+      found.push_back(p);
   // The same reference-speed rule as `run` (core::plan_reference_speeds): what is dropped and why.
   const core::ReferenceSpeedPlan plan =
       core::plan_reference_speeds(profile, v.max_speed_kmh, v.cycle_max_speed_kmh);

@@ -27,12 +27,19 @@ std::vector<std::string> split_csv(const std::string& line) {
   return out;
 }
 
+// The value without the spaces around it.
+std::string trimmed(const std::string& s) {
+  const auto b = s.find_first_not_of(' ');
+  if (b == std::string::npos) return "";
+  return s.substr(b, s.find_last_not_of(' ') - b + 1);
+}
+
 bool to_double(const std::string& s, double& out) {
-  const char* b = s.data();
-  const char* e = s.data() + s.size();
-  while (b < e && *b == ' ') ++b;
+  const std::string t = trimmed(s);
+  const char* b = t.data();
+  const char* e = t.data() + t.size();
   auto r = std::from_chars(b, e, out);
-  return r.ec == std::errc() && r.ptr == e && std::isfinite(out);
+  return !t.empty() && r.ec == std::errc() && r.ptr == e && std::isfinite(out);
 }
 }  // namespace
 
@@ -62,22 +69,35 @@ EpaFile read_epa_csv(const std::string& path) {
     if (line.empty() || line == "\r") continue;
     const auto cells = split_csv(line);
     if (cells.size() < header.size()) {
-      f.skipped.push_back("line " + std::to_string(lineno) + ": " + std::to_string(cells.size()) +
-                          " cells, header has " + std::to_string(header.size()));
+      f.skipped.push_back({lineno, header[cells.size()],
+                           "is missing: the row has " + std::to_string(cells.size()) + " cells, the header " +
+                               std::to_string(header.size())});
       continue;
     }
     EpaRow row;
     row.line = lineno;
     row.id = cells[col["model_year"]] + "/" + cells[col["test_vehicle_id"]] + "/" +
              cells[col["test_veh_config_num"]];
-    row.drive_code = cells[col["drive_system_code"]];
+    // The drive decides single- or two-axle: a code not in the list is not taken for any of them.
+    row.drive_code = trimmed(cells[col["drive_system_code"]]);
+    if (row.drive_code != "F" && row.drive_code != "R" && row.drive_code != "A" && row.drive_code != "4" &&
+        row.drive_code != "P") {
+      f.skipped.push_back(
+          {lineno, "drive_system_code",
+           (row.drive_code.empty() ? std::string("is empty") : "is \"" + row.drive_code + "\"") +
+               ", allowed " + kEpaDriveCodes});
+      continue;
+    }
     double v[7];
     const char* names[7] = {"etw_kg",   "target_f0_N",      "target_f1_N_per_kmh", "target_f2_N_per_kmh2",
                             "set_f0_N", "set_f1_N_per_kmh", "set_f2_N_per_kmh2"};
+    const char* units[7] = {"kg", "N", "N/(km/h)", "N/(km/h)²", "N", "N/(km/h)", "N/(km/h)²"};
     bool ok = true;
     for (int k = 0; k < 7 && ok; ++k)
       if (!to_double(cells[col[names[k]]], v[k])) {
-        f.skipped.push_back("line " + std::to_string(lineno) + ": " + names[k] + " is not a number");
+        f.skipped.push_back(
+            {lineno, names[k],
+             "is \"" + cells[col[names[k]]] + "\", not a number: allowed a finite number in " + units[k]});
         ok = false;
       }
     if (!ok) continue;
@@ -86,7 +106,38 @@ EpaFile read_epa_csv(const std::string& path) {
     row.set = {v[4], v[5], v[6]};
     f.rows.push_back(row);
   }
+  f.last_line = lineno;
   return f;
+}
+
+std::string skipped_rows_note(const std::string& path, const EpaFile& f, std::size_t most) {
+  std::string out;
+  for (std::size_t i = 0; i < f.skipped.size() && i < most; ++i)
+    out += path + ": line " + std::to_string(f.skipped[i].line) + ", column " + f.skipped[i].column + ": " +
+           f.skipped[i].message + "; the row is not used\n";
+  if (f.skipped.size() > most)
+    out += path + ": and " + std::to_string(f.skipped.size() - most) + " more row(s) not used\n";
+  return out;
+}
+
+core::Problems row_errors(const EpaRow& row, const core::Problems& target_problems) {
+  // The target's keys that come from the row, and the columns they come from.
+  static const std::map<std::string, std::string> column = {
+      {"vehicle.test_mass_kg", "etw_kg (the equivalent test weight is the test mass)"},
+      {"target.f0_n", "target_f0_N"},
+      {"target.f1_n_per_kmh", "target_f1_N_per_kmh"},
+      {"target.f2_n_per_kmh2", "target_f2_N_per_kmh2"},
+      {"target", "target_f0_N, target_f1_N_per_kmh, target_f2_N_per_kmh2"}};
+  core::Problems out;
+  for (const auto& p : target_problems) {
+    if (p.severity != core::Problem::Severity::error) continue;
+    const auto c = column.find(p.key);
+    out.push_back({p.severity,
+                   "line " + std::to_string(row.line) +
+                       (c != column.end() ? ", column " + c->second : " (the target's " + p.key + ")"),
+                   p.message});
+  }
+  return out;
 }
 
 core::Drive drive_of(const EpaRow& row) {

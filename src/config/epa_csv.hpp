@@ -5,6 +5,7 @@
 #include <string>
 #include <vector>
 
+#include "core/problem.hpp"
 #include "core/road_load.hpp"
 #include "core/strategy.hpp"
 #include "core/vehicle.hpp"
@@ -20,15 +21,40 @@ struct EpaRow {
   core::RoadLoad set;  // what the lab used
 };
 
-struct EpaFile {
-  std::vector<EpaRow> rows;
-  std::vector<std::string> skipped;  // "line N: reason"
+// A row that cannot be used: its line, the column at fault and what is wrong with what is allowed.
+struct EpaSkipped {
+  int line = 0;
+  std::string column;
+  std::string message;  // e.g. "is \"f\", allowed \"F\" (2WD front), ..."
 };
 
-// Throws InputError when the file cannot be read or lacks a required column.
+struct EpaFile {
+  std::vector<EpaRow> rows;
+  std::vector<EpaSkipped> skipped;  // every row not used, with why
+  int last_line = 1;                // the file's last line (the header is line 1)
+};
+
+// The drive_system_code values a row may give (samples/data/README.md), as a message lists them.
+inline constexpr const char* kEpaDriveCodes =
+    "\"F\" (2WD front), \"R\" (2WD rear), \"A\" (AWD), \"4\" (4WD), \"P\" (part-time 4WD)";
+
+// Throws InputError when the file cannot be read or lacks a required column. A row that cannot be used (too
+// few cells, a number column that is not a finite number, a drive_system_code not one of kEpaDriveCodes) is
+// not guessed at: it is listed in `skipped` with its line and column. Spaces around a value are not part of
+// it.
 EpaFile read_epa_csv(const std::string& path);
 
-// The row's driven wheels from its drive_system_code: F front, R rear, anything else (A, 4, P) all wheels.
+// "PATH: line N, column C: MESSAGE; the row is not used" for the first `most` skipped rows, one a line, and
+// how many more; "" when every row was read.
+std::string skipped_rows_note(const std::string& path, const EpaFile& f, std::size_t most = 5);
+
+// The errors of a target made from a row (core::plausibility's), each named by the row's line and the CSV
+// column it came from (etw_kg for the test mass, target_f0_N ... for the coefficients): a row that cannot
+// give a target.
+core::Problems row_errors(const EpaRow& row, const core::Problems& target_problems);
+
+// The row's driven wheels from its drive_system_code (one read_epa_csv accepted): F front, R rear, A, 4 and
+// P all wheels.
 core::Drive drive_of(const EpaRow& row);
 
 // The rows as the fleet loss model takes them (core::fit_fleet_loss): ETW as test mass, the layout of the

@@ -1,5 +1,6 @@
 #include "config/loaders.hpp"
 
+#include <algorithm>
 #include <filesystem>
 
 #include "config/input_error.hpp"
@@ -124,7 +125,9 @@ core::RoadLoad read_coefficients(TomlReader& r, const std::string& table, const 
   return core::to_metric({c[0], c[1], c[2]});
 }
 
-core::VehicleTarget read_target(TomlReader& r) {
+// `profile_names`: the profiles a bare name may give (empty: not checked here; the profile file is then
+// looked for as it is named).
+core::VehicleTarget read_target(TomlReader& r, const std::vector<std::string>& profile_names) {
   core::VehicleTarget v;
   v.id = r.string("vehicle.id");
   v.description = r.string_or("vehicle.description", "");
@@ -147,6 +150,17 @@ core::VehicleTarget read_target(TomlReader& r) {
   v.max_speed_kmh = r.number("vehicle.max_speed_kmh", 30.0, 400.0, "km/h");
   v.cycle_max_speed_kmh = r.maybe_number("vehicle.cycle_max_speed_kmh", 10.0, 400.0, "km/h");
   v.profile = r.string("profile");
+  // A bare name is a profile of the installation's config/profiles; a misspelt one is refused here, with
+  // the names there, rather than as a profile file that cannot be opened.
+  if (!profile_names.empty() && r.has("profile") && v.profile.find('/') == std::string::npos &&
+      !v.profile.ends_with(".toml") &&
+      std::find(profile_names.begin(), profile_names.end(), v.profile) == profile_names.end()) {
+    std::string list;
+    for (const auto& n : profile_names) list += (list.empty() ? "\"" : ", \"") + n + "\"";
+    r.add({{core::Problem::Severity::error, "profile",
+            "is \"" + v.profile + "\", not a known profile: allowed " + list +
+                " (config/profiles), or the path of a profile file ending in .toml"}});
+  }
   bool present = false;
   v.target = read_coefficients(r, "target", "target_us", present);
   v.target_given_in_us = r.has("target_us") && !r.has("target");
@@ -401,8 +415,10 @@ T load_with(TomlReader r, core::Problems* warnings, F read) {
 core::Profile load_profile(const std::string& path, core::Problems* w) {
   return load_with<core::Profile>(TomlReader::from_file(path), w, read_profile);
 }
-core::VehicleTarget load_target(const std::string& path, core::Problems* w) {
-  return load_with<core::VehicleTarget>(TomlReader::from_file(path), w, read_target);
+core::VehicleTarget load_target(const std::string& path, core::Problems* w,
+                                const std::vector<std::string>& profile_names) {
+  return load_with<core::VehicleTarget>(TomlReader::from_file(path), w,
+                                        [&](TomlReader& r) { return read_target(r, profile_names); });
 }
 physics::Truth load_truth(const std::string& path, core::Problems* w) {
   return load_with<physics::Truth>(TomlReader::from_file(path), w, read_truth);
@@ -417,7 +433,8 @@ core::Profile parse_profile(const std::string& text, const std::string& name, co
   return load_with<core::Profile>(TomlReader::from_text(text, name), w, read_profile);
 }
 core::VehicleTarget parse_target(const std::string& text, const std::string& name, core::Problems* w) {
-  return load_with<core::VehicleTarget>(TomlReader::from_text(text, name), w, read_target);
+  return load_with<core::VehicleTarget>(TomlReader::from_text(text, name), w,
+                                        [](TomlReader& r) { return read_target(r, {}); });
 }
 physics::Truth parse_truth(const std::string& text, const std::string& name, core::Problems* w) {
   return load_with<physics::Truth>(TomlReader::from_text(text, name), w, read_truth);

@@ -4,6 +4,7 @@
 #pragma once
 
 #include <string>
+#include <vector>
 
 #include "core/dyno_checks.hpp"
 #include "core/problem.hpp"
@@ -14,7 +15,11 @@
 namespace loadtrim::config {
 
 core::Profile load_profile(const std::string& path, core::Problems* warnings = nullptr);
-core::VehicleTarget load_target(const std::string& path, core::Problems* warnings = nullptr);
+// `profile_names`, when given: the names a target's `profile` may give as a bare name (the files of
+// config/profiles); another bare name is an error naming them. A path (with '/' or ending in .toml) is not
+// checked here.
+core::VehicleTarget load_target(const std::string& path, core::Problems* warnings = nullptr,
+                                const std::vector<std::string>& profile_names = {});
 physics::Truth load_truth(const std::string& path, core::Problems* warnings = nullptr);
 // The dyno checks' profile (config/checks/*.toml).
 core::CheckProfile load_check_profile(const std::string& path, core::Problems* warnings = nullptr);

@@ -175,6 +175,10 @@ bool Console::on_event(const Event& e) {
           },
           [&](const ev::FirstSetting& x) {
             std::fprintf(out_, "  first setting (%s): %s\n", x.strategy.c_str(), coefficients(x.set).c_str());
+            // A strategy asked for and not used is said plainly, with why (docs/store.md, "The history first
+            // setting").
+            if (const std::string fb = first_setting_fallback(x); !fb.empty())
+              std::fprintf(out_, "  first setting: %s\n", fb.c_str());
             const bool us = units_ == Units::us;
             const int w = static_cast<int>(coefficients(x.set).size());
             std::fprintf(out_, "  %3s  %-*s  %-*s  %8s %8s %6s  %s\n", "run", w,

@@ -15,6 +15,15 @@ std::string rounded(double v, int decimals) {
   return s;
 }
 
+std::string first_setting_fallback(const ev::FirstSetting& x) {
+  if (x.fallback_reason.empty() || x.requested.empty() || x.requested == x.strategy) return "";
+  std::string why = x.fallback_reason;
+  if (x.requested == "history" && x.history_lookup.is_object() && x.history_lookup.contains("note") &&
+      x.history_lookup["note"].is_string())
+    why += ": " + x.history_lookup["note"].get<std::string>();
+  return x.strategy + " used, " + x.requested + " asked for (" + why + ")";
+}
+
 const char* state_words(State s) {
   switch (s) {
     case State::connect:
@@ -181,8 +190,11 @@ std::string event_sentence(const Event& e, const TextContext& ctx) {
           },
           [&](const ev::WarmUpEnded&) { return std::string("warm-up ended"); },
           [&](const ev::FirstSetting& x) {
+            const std::string fallback = first_setting_fallback(x);
             return "first setting (" + x.strategy + "): " + coefficients(x.set) +
-                   (x.fallback_reason.empty() ? "" : " (" + x.fallback_reason + ")") +
+                   (!fallback.empty()           ? "; " + fallback
+                    : x.fallback_reason.empty() ? ""
+                                                : " (" + x.fallback_reason + ")") +
                    (!x.history ? std::string()
                     : x.history->source == "store"
                         ? "; history from session " + x.history->session_id + " on cell " +

@@ -19,6 +19,10 @@ struct TextContext {
 // written as "<what>: key value, key value" with numbers rounded to 6 significant digits.
 std::string event_sentence(const Event& e, const TextContext& ctx);
 
+// When the first setting is not the strategy asked for: "fleet used, history asked for (<why>)", with where
+// the history was looked for when that was the one asked for; "" when it is the one asked for.
+std::string first_setting_fallback(const ev::FirstSetting& x);
+
 // A number with a fixed count of decimals, never "-0.0".
 std::string rounded(double v, int decimals);
 

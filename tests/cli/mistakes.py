@@ -9,6 +9,7 @@ lock folder, so nothing outside it changes.
 Usage: mistakes.py --exe build/bin/loadtrim --sim build/bin/loadtrim-sim --src SOURCE_DIR --workdir DIR
 """
 import argparse
+import json
 import os
 import pty
 import select
@@ -181,6 +182,57 @@ def main():
               named + ["would be ignored", "refused: nothing was started"], [], "README, Exit codes: 2")
     rc, out = run(["target", "--from", target], w)
     check("target --from alone", rc, out, 0, ["vehicle DEMO-HB-01"], ["would be ignored"], "README, step 3")
+    # The file's profile is the one used, as `run` uses it (unless --profile gives another, as for `run`): a
+    # [target_us] file of the US profile is tabled at that profile's speeds and written for it (header and body
+    # alike).
+    with open(target) as f:
+        demo_text = f.read()
+    us_file = os.path.join(w, "us-target.toml")
+    with open(us_file, "w") as f:
+        f.write('profile = "us-iterative"\n\n[vehicle]\nid = "US-1"\ntest_mass_kg = 1700.0\n'
+                'mass_in_running_order_kg = 1600.0\ndrive = "front"\nmax_speed_kmh = 180.0\n\n'
+                '[target_us]\na_lbf = 30.0\nb_lbf_per_mph = 0.3\nc_lbf_per_mph2 = 0.02\n')
+    rc, out = run(["target", "--from", us_file, "--out", "us-out/US-1.toml"], w)
+    check("target --from a us-iterative file", rc, out, 0,
+          ["profile us-iterative)", "[band ±4.0 km/h]", "24.1", "written: us-out/US-1.toml"],
+          ["profile wltp-iterative", "[band ±5.0 km/h]"], "README, step 3: --from takes the file's facts")
+    written = open(os.path.join(w, "us-out/US-1.toml")).read() if rc == 0 else ""
+    if "for profile us-iterative" not in written or 'profile = "us-iterative"' not in written:
+        FAILED.append("target --from a us-iterative file: written header and body")
+        print("FAIL target --from a us-iterative file wrote:\n" + written)
+    rc, out = run(["target", "--from", us_file, "--profile", "wltp-fixed-run", "--out", "us-out/US-1-fixed.toml"], w)
+    check("target --from with --profile", rc, out, 0, ["profile wltp-fixed-run)", "[band ±5.0 km/h]"],
+          ["profile us-iterative", "[band ±4.0 km/h]"], "README, step 3: --profile, as for run")
+    written = open(os.path.join(w, "us-out/US-1-fixed.toml")).read() if rc == 0 else ""
+    if "for profile wltp-fixed-run" not in written or 'profile = "wltp-fixed-run"' not in written:
+        FAILED.append("target --from with --profile: written header and body")
+        print("FAIL target --from with --profile wrote:\n" + written)
+    # A misspelt profile name: refused as `run` refuses it (exit 2), naming the file, the key and its line, and
+    # the names allowed; nothing written. The brief's rule: bad input names the file, line/key and allowed range.
+    misspelt = os.path.join(w, "misspelt-profile.toml")
+    with open(misspelt, "w") as f:
+        f.write(demo_text.replace('profile = "wltp-iterative"', 'profile = "wltp-iterativ"'))
+    profile_words = ["misspelt-profile.toml: error: profile (line 3)", '"wltp-iterativ"', "allowed",
+                     '"us-iterative", "wltp-fixed-run", "wltp-iterative"']
+    rc, out = run(["target", "--from", misspelt, "--out", "misspelt-out.toml"], w)
+    check("target --from a misspelt profile", rc, out, 2, profile_words, ["written:", "read back"],
+          "README, Exit codes: 2; the brief's rule: file, line/key, allowed")
+    if os.path.exists(os.path.join(w, "misspelt-out.toml")):
+        FAILED.append("target --from a misspelt profile wrote --out")
+        print("FAIL target --from a misspelt profile wrote misspelt-out.toml")
+    rc, out = run(["run", "--cell", cell, "--target", misspelt, "--port", str(closed), "--unattended"] + run_args, w)
+    check("run with a misspelt profile", rc, out, 2, profile_words + ["refused: nothing was started"], [],
+          "README, Exit codes: 2")
+    # An unknown key (a typo): warned as `run` warns, with its line; the target itself is accepted.
+    typo = os.path.join(w, "typo-key.toml")
+    with open(typo, "w") as f:
+        f.write(demo_text.replace("max_speed_kmh = 185.0", "max_speed_kmh = 185.0\ncycle_max_speed_khm = 100.0"))
+    typo_words = ["typo-key.toml: warning: vehicle.cycle_max_speed_khm (line 12): unknown key, ignored (a typo?)"]
+    rc, out = run(["target", "--from", typo], w)
+    check("target --from with an unknown key", rc, out, 0, typo_words + ["vehicle DEMO-HB-01"], [],
+          "the brief's rule: never a silent default; run warns the same")
+    rc, out = run(["run", "--cell", cell, "--target", typo, "--port", str(closed), "--unattended"] + run_args, w)
+    check("run with the same unknown key", rc, out, 3, typo_words, [], "README, Exit codes: 3 nothing listens")
 
     # 4. A bad cell file and a bad target file together: both files' errors.
     bad_cell = os.path.join(w, "bad-cell.toml")
@@ -351,6 +403,98 @@ def main():
             check("%s %s %s" % ("loadtrim-sim" if exe else argv[0], option, value), rc, out, 2, [said],
                   ["internal error", "bench-cell.toml", "real time", "Type YES", "listening"],
                   "README, Exit codes: 2 an option refused before anything moved")
+
+    # 12. --first-setting history without a store, twice in one data root (docs/store.md, "The history first
+    # setting", 1: with no store the per-cell history file is read): the first session finds none and says on the
+    # console that it fell back and why; the second finds the first's accepted setting on this cell and uses it.
+    # (The history was once saved under an empty cell name and never found again.) Both simulated cells: the
+    # in-process one, and the TCP one against loadtrim-sim.
+    sim, port = start_sim(os.path.join(src, "samples/truths/demo-hatchback.toml"))
+    try:
+        for cell_file, extra in (("sim-inprocess.toml", []), ("sim-tcp.toml", ["--port", str(port)])):
+            root = os.path.join(w, "history-" + cell_file.replace(".toml", ""))
+            argv = ["run", "--cell", os.path.join(src, "config/cells", cell_file), "--target", target,
+                    "--unattended", "--first-setting", "history", "--data-dir", root] + extra + run_args
+            said = []
+            for k in (1, 2):
+                rc, out = run(argv, w, timeout=120)
+                said.append(out)
+                words = (["first setting (fleet)", "first setting: fleet used, history asked for",
+                          "no earlier accepted session of this vehicle", "the history file was read: no entry there"]
+                         if k == 1 else ["first setting (history)"])
+                check("history first setting, %s session %d" % (cell_file, k), rc, out, 0, words,
+                      ["first setting (fleet)"] if k == 2 else [],
+                      "docs/store.md, The history first setting, 1; README, Exit codes: 0")
+            # The second session's first_setting record names history, and the history file it read is where the
+            # first session saved (the cell's own folder, not one for an empty name).
+            sessions = sorted(os.listdir(os.path.join(root, "sessions")))
+            records = []
+            for name in sessions:
+                with open(os.path.join(root, "sessions", name, "events.jsonl")) as f:
+                    records += [r for r in map(json.loads, f) if r.get("type") == "first_setting"]
+            strategies = [(r.get("requested"), r.get("strategy")) for r in records]
+            saved = sorted(os.listdir(os.path.join(root, "history")))
+            ok = (strategies == [("history", "fleet"), ("history", "history")] and len(saved) == 1 and
+                  not saved[0].startswith("unnamed") and
+                  os.path.isfile(records[-1].get("history_lookup", {}).get("file", "")))
+            print("%-4s %-44s (%s)" % ("ok" if ok else "FAIL", "history first setting, %s records" % cell_file,
+                                       "docs/store.md, The history first setting"))
+            if not ok:
+                FAILED.append("history first setting, %s records" % cell_file)
+                print("     first_setting records (requested, strategy): %s; history folders: %s" % (strategies,
+                                                                                                      saved))
+    finally:
+        sim.kill()
+        sim.wait()
+
+    # 13. EPA CSV rows (target --epa, demo --epa): a row that cannot be used says why, naming the CSV, the line,
+    # the column, the value and what is allowed, and nothing is tabled before the row is known good; a drive code
+    # that is empty or not one of the list is never taken for all-wheel drive (the brief's rule: bad input names
+    # the file, line/key and allowed range; never a silent default; README, Exit codes: 2).
+    with open(os.path.join(src, "samples/data/epa_test_car_roadload_MY2016_2019.csv")) as f:
+        epa = [f.readline().rstrip("\n") for _ in range(9)]
+    header = epa[0].split(",")
+
+    def with_cell(line_no, column, value):
+        cells = epa[line_no - 1].split(",")
+        cells[header.index(column)] = value
+        return ",".join(cells)
+
+    rows = list(epa)
+    rows[2] = with_cell(3, "drive_system_code", "")
+    rows[3] = with_cell(4, "drive_system_code", "f")
+    rows[4] = with_cell(5, "etw_kg", epa[4].split(",")[header.index("etw_kg")] + " ")
+    rows[5] = ",".join(epa[5].split(",")[:5])
+    rows[6] = with_cell(7, "etw_kg", "-5")
+    rows[7] = with_cell(8, "etw_kg", "12x")
+    bad_csv = os.path.join(w, "bad-rows.csv")
+    with open(bad_csv, "w") as f:
+        f.write("\n".join(rows) + "\n")
+    codes = 'allowed "F" (2WD front), "R" (2WD rear), "A" (AWD), "4" (4WD), "P" (part-time 4WD)'
+    table = ["target (exact)", "masses:", "initial dyno setting"]
+    for line_no, rc_want, words in (
+            (3, 2, ["bad-rows.csv: error: line 3, column drive_system_code: is empty, " + codes]),
+            (4, 2, ['bad-rows.csv: error: line 4, column drive_system_code: is "f", ' + codes]),
+            (6, 2, ["bad-rows.csv: error: line 6, column drive_system_code: is missing: the row has 5 cells, "
+                    "the header 24"]),
+            (7, 2, ["bad-rows.csv: error: line 7, column etw_kg", "is -5, allowed 50 to 20000 kg"]),
+            (8, 2, ['bad-rows.csv: error: line 8, column etw_kg: is "12x", not a number: allowed a finite number '
+                    "in kg"]),
+            (10, 2, ["bad-rows.csv: error: --epa-line: is 10: the file ends at line 9"]),
+            (5, 0, ["from " + bad_csv + " line 5"] + table)):
+        rc, out = run(["target", "--epa", bad_csv, "--epa-line", str(line_no), "--estimate-mass-in-running-order"],
+                      w)
+        check("target --epa line %d" % line_no, rc, out, rc_want, words,
+              (table + ["TM -5.0 kg", "no usable row", "two-axle"]) if rc_want == 2 else ["error"],
+              "the brief's rule: file, line/key, allowed range; README, Exit codes: 2" if rc_want == 2 else
+              "README, step 3: a value with a space after it is the value")
+    rc, out = run(["demo", "--epa", bad_csv, "--vehicles", "1", "--no-live", "--sessions",
+                   os.path.join(w, "epa-demo-sessions")], w, timeout=120)
+    check("demo --epa names the rows it cannot use", rc, out, 0,
+          [bad_csv + ": line 3, column drive_system_code: is empty, " + codes + "; the row is not used",
+           bad_csv + ': line 4, column drive_system_code: is "f"', bad_csv + ": line 6, column drive_system_code",
+           bad_csv + ": line 8, column etw_kg", "1 of 1 vehicles accepted"], [],
+          "the brief's rule: never a silent default")
 
     print("\n%d row(s) failed" % len(FAILED) if FAILED else "\nevery row passed")
     return 1 if FAILED else 0

@@ -2,8 +2,11 @@
 // rules (core/combination.hpp), the band-time formula (core/trace_analysis.hpp) and the drive-to-axle mapping
 // (core/vehicle.hpp, config/epa_csv.hpp). Each check names its reference outside loadtrim beside it.
 #include <gtest/gtest.h>
+#include <stdlib.h>
 
 #include <cmath>
+#include <filesystem>
+#include <fstream>
 #include <limits>
 #include <string>
 #include <vector>
@@ -338,6 +341,64 @@ TEST(AxleLayout, EpaDriveCodesOfTheExtract) {
   }
   EXPECT_EQ(single, 3110);
   EXPECT_EQ(two, 375);
+  // Every row of the extract is read: none is left out by the reader's checks.
+  EXPECT_TRUE(f.skipped.empty()) << config::skipped_rows_note("extract", f);
+  EXPECT_EQ(f.last_line, 3486);
+}
+
+// A row the reader cannot use is never guessed at (the brief's rule: bad input names the file, line/key and
+// the allowed range; never a silent default): a drive_system_code that is empty or not one of F, R, A, 4, P
+// (once taken for all-wheel drive, two-axle), a short row and a number column that is not a number are each
+// left out with the line, the column, the value and what is allowed. Spaces around a value are not part of
+// it.
+TEST(AxleLayout, EpaRowsThatCannotBeUsedAreNamedNotGuessed) {
+  std::string dir = (std::filesystem::temp_directory_path() / "loadtrim-epa-XXXXXX").string();
+  ASSERT_TRUE(::mkdtemp(dir.data()));
+  const std::string csv = dir + "/rows.csv";
+  {
+    std::ofstream out(csv);
+    out << "model_year,test_vehicle_id,test_veh_config_num,drive_system_code,etw_kg,target_f0_N,"
+           "target_f1_N_per_kmh,target_f2_N_per_kmh2,set_f0_N,set_f1_N_per_kmh,set_f2_N_per_kmh2\n"
+        << "2016,A1,0,F,1500,150,0.5,0.03,20,0.1,0.03\n"     // line 2: good
+        << "2016,A2,0,,1500,150,0.5,0.03,20,0.1,0.03\n"      // line 3: empty drive code
+        << "2016,A3,0,f,1500,150,0.5,0.03,20,0.1,0.03\n"     // line 4: lower-case f
+        << "2016,A4,0,R,1500 ,150,0.5,0.03,20,0.1,0.03\n"    // line 5: a trailing space: read
+        << "2016,A5,0,R,1500\n"                              // line 6: short
+        << "2016,A6,0,R,15x0,150,0.5,0.03,20,0.1,0.03\n"     // line 7: not a number
+        << "2016,A7,0, A ,1500,150,0.5,0.03,20,0.1,0.03\n";  // line 8: spaces around A: read
+  }
+  const config::EpaFile f = config::read_epa_csv(csv);
+  std::vector<int> read;
+  for (const auto& r : f.rows) read.push_back(r.line);
+  EXPECT_EQ(read, (std::vector<int>{2, 5, 8}));
+  EXPECT_EQ(config::drive_of(f.rows[2]), core::Drive::all);
+  EXPECT_DOUBLE_EQ(f.rows[1].etw_kg, 1500.0);
+  ASSERT_EQ(f.skipped.size(), 4u);
+  const std::string codes = "allowed \"F\" (2WD front), \"R\" (2WD rear), \"A\" (AWD), \"4\" (4WD), \"P\"";
+  EXPECT_EQ(f.skipped[0].line, 3);
+  EXPECT_EQ(f.skipped[0].column, "drive_system_code");
+  EXPECT_NE(f.skipped[0].message.find("is empty, " + codes), std::string::npos) << f.skipped[0].message;
+  EXPECT_EQ(f.skipped[1].line, 4);
+  EXPECT_NE(f.skipped[1].message.find("is \"f\", " + codes), std::string::npos) << f.skipped[1].message;
+  EXPECT_EQ(f.skipped[2].line, 6);
+  EXPECT_EQ(f.skipped[2].column, "target_f0_N");
+  EXPECT_NE(f.skipped[2].message.find("the row has 5 cells, the header 11"), std::string::npos);
+  EXPECT_EQ(f.skipped[3].line, 7);
+  EXPECT_EQ(f.skipped[3].column, "etw_kg");
+  EXPECT_NE(f.skipped[3].message.find("is \"15x0\", not a number: allowed a finite number in kg"),
+            std::string::npos);
+  const std::string note = config::skipped_rows_note(csv, f, 2);
+  EXPECT_NE(note.find(csv + ": line 3, column drive_system_code: is empty"), std::string::npos) << note;
+  EXPECT_NE(note.find(csv + ": and 2 more row(s) not used"), std::string::npos) << note;
+  // A row read but unable to give a target names its line and the column: ETW −5 kg as the test mass.
+  config::EpaRow neg = f.rows[0];
+  neg.etw_kg = -5.0;
+  const core::Problems bad =
+      config::row_errors(neg, core::plausibility(config::target_from_epa(neg, "wltp-iterative")));
+  ASSERT_FALSE(bad.empty());
+  EXPECT_EQ(bad[0].key.rfind("line 2, column etw_kg", 0), 0u) << bad[0].key;
+  EXPECT_NE(bad[0].message.find("is -5, allowed 50 to 20000 kg"), std::string::npos) << bad[0].message;
+  std::filesystem::remove_all(dir);
 }
 
 // ---- hold points
