@@ -453,23 +453,31 @@ TEST(Resume, ASignedFolderKilledAfterItsVerdictIsFinalisedSigned) {
   if (!HasFailure()) fs::remove_all(dir);
 }
 
+namespace {
+// A session (in dir/s, data root lab) killed by SIGKILL while frozen in its first coast-down: its folder, or
+// "" when the coast-down was never logged.
+std::string killed_in_coastdown(const loadtrim::testing::SimProcess& sim, const std::string& dir,
+                                const std::string& lab) {
+  std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=coastdown"};
+  auto args = run_args(sim.port(), dir + "/s");
+  args.insert(args.end(), {"--data-dir", lab});
+  argv.insert(argv.end(), args.begin(), args.end());
+  process::ChildProcess first(argv);
+  const bool logged = wait_logged(dir + "/s", "coastdown", std::chrono::seconds(120));
+  first.signal(SIGKILL);
+  first.wait();
+  return logged ? only_folder(dir + "/s") : std::string();
+}
+}  // namespace
+
 // A record that verifies but lacks a field resume reads is named (exit 5), never read as a default; a link
 // placed in an unfinished folder is refused before anything connects; a damaged cell log refuses a session
 // before it connects (issue 14, robust readers; docs/records.md).
 TEST(Resume, AMissingFieldALinkOrADamagedCellLogIsRefusedBeforeAnythingMoves) {
   loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
   const std::string dir = temp_dir(), lab = dir + "/lab";
-  {
-    std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=coastdown"};
-    auto args = run_args(sim.port(), dir + "/s");
-    args.insert(args.end(), {"--data-dir", lab});
-    argv.insert(argv.end(), args.begin(), args.end());
-    process::ChildProcess first(argv);
-    ASSERT_TRUE(wait_logged(dir + "/s", "coastdown", std::chrono::seconds(120)));
-    first.signal(SIGKILL);
-    first.wait();
-  }
-  const std::string base = only_folder(dir + "/s");
+  const std::string base = killed_in_coastdown(sim, dir, lab);
+  ASSERT_FALSE(base.empty());
   std::string err, out;
   const std::string missing = dir + "/missing";
   fs::copy(base, missing, fs::copy_options::recursive);
@@ -514,17 +522,8 @@ TEST(Resume, AMissingFieldALinkOrADamagedCellLogIsRefusedBeforeAnythingMoves) {
 TEST(Resume, AWrongTypedOrOutOfRangeStartMemberIsRefusedNamingIt) {
   loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
   const std::string dir = temp_dir(), lab = dir + "/lab";
-  {
-    std::vector<std::string> argv = {"/usr/bin/env", "LOADTRIM_TEST_FREEZE_IN_STATE=coastdown"};
-    auto args = run_args(sim.port(), dir + "/s");
-    args.insert(args.end(), {"--data-dir", lab});
-    argv.insert(argv.end(), args.begin(), args.end());
-    process::ChildProcess first(argv);
-    ASSERT_TRUE(wait_logged(dir + "/s", "coastdown", std::chrono::seconds(120)));
-    first.signal(SIGKILL);
-    first.wait();
-  }
-  const std::string base = only_folder(dir + "/s");
+  const std::string base = killed_in_coastdown(sim, dir, lab);
+  ASSERT_FALSE(base.empty());
   ASSERT_EQ(records_of(base).front().value("type", ""), "session_started");
   struct Case {
     const char* name;
