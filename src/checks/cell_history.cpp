@@ -99,8 +99,12 @@ std::optional<double> CellHistory::maintenance_utc_s() const {
 
 bool CellHistory::append(const std::string& type, nlohmann::json payload, const std::string& utc) {
   if (!ok()) return false;
-  std::error_code ec;
-  fs::create_directories(dir_, ec);
+  // The cell's directory, when new, is fsync'd into checks/ (and the log's name into it by EventLog).
+  std::string err;
+  if (!record::make_directories_durably(dir_, err)) {
+    error_ = err;
+    return false;
+  }
   record::EventLog log(log_path_);
   if (!log.append(type, payload, utc)) {
     error_ = log.error();

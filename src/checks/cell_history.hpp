@@ -48,7 +48,8 @@ class CellHistory {
   std::optional<double> maintenance_utc_s() const;
   const std::vector<nlohmann::json>& records() const { return records_; }
 
-  // Appends (durably) with the given UTC (normally now); false with error() when it could not.
+  // Appends (durably) with the given UTC (normally now); false with error() when it could not. The cell's
+  // directory, when it is made, is fsync'd into its parent.
   bool append(const std::string& type, nlohmann::json payload, const std::string& utc);
   // Appends a "seal" record for a folder sealed by record::seal_folder; kind is "session" or the check's
   // kind.

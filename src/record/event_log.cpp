@@ -11,6 +11,7 @@
 #include <sstream>
 
 #include "record/seal.hpp"
+#include "record/session_folder.hpp"
 #include "record/sha256.hpp"
 #include "record/verify.hpp"
 
@@ -149,8 +150,23 @@ EventLog::EventLog(std::string path) : path_(std::move(path)) {
   // of this process fail as a full disk would. Never set in production; documented in docs/session.md.
   if (const char* n = std::getenv("LOADTRIM_TEST_FAIL_WRITES_AFTER"))
     fail_after_ = std::strtoll(n, nullptr, 10);
+  std::error_code ec;
+  const bool created = !std::filesystem::exists(path_, ec);
   fd_ = ::open(path_.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0644);
-  if (fd_ < 0) error_ = "cannot open " + path_ + " for appending: " + std::strerror(errno);
+  if (fd_ < 0) {
+    error_ = "cannot open " + path_ + " for appending: " + std::strerror(errno);
+    return;
+  }
+  // A new log's name is fsync'd into its folder before the first record is confirmed: a record that append()
+  // confirmed must not vanish with the file's directory entry (docs/records.md, "The chain").
+  if (created) {
+    std::string err;
+    if (!sync_directory(std::filesystem::path(path_).parent_path().string(), err)) {
+      error_ = "cannot make the new log " + path_ + " durable: " + err;
+      ::close(fd_);
+      fd_ = -1;
+    }
+  }
 }
 
 EventLog::~EventLog() {

@@ -1,6 +1,7 @@
 // The session's event log: append-only JSON Lines where every record carries the SHA-256 of the previous
 // record's line (a hash chain; the first record's "prev" is 64 zeros). Each append is written, flushed and
-// fsync'd before it returns, so a record that append() confirmed survives a crash or SIGKILL.
+// fsync'd before it returns, so a record that append() confirmed survives a crash or SIGKILL (a new log's
+// name is fsync'd into its folder when the log is created).
 //
 // Record layout: {"seq": n, "utc": "...", "type": "...", ...payload..., "prev": "<hex>"}; the hash of a
 // record is the SHA-256 of its line without the '\n'.

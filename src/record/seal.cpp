@@ -14,6 +14,7 @@
 #include <cerrno>
 #include <cstring>
 #include <filesystem>
+#include <set>
 
 #include "record/data_root.hpp"
 #include "record/event_log.hpp"
@@ -492,6 +493,26 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
     if (!listing.ok) {
       error = "refusing to seal " + folder + ": " + listing.error;
       return false;
+    }
+    // What the seal hashes must be what a power loss leaves: every covered file fsync'd (operator.log is
+    // written through spdlog's buffered sink, which never syncs), and the directories holding them, for their
+    // names (docs/records.md, "The seal").
+    std::set<std::string> dirs = {""};
+    for (const auto& rel : listing.files) {
+      if (rel == "events.jsonl" || is_derived_file(rel)) continue;
+      if (const InsideFile synced = sync_inside(folder, rel); synced.status != InsideStatus::ok) {
+        error = "refusing to seal " + folder + ": " + synced.error;
+        return false;
+      }
+      for (auto slash = rel.find('/'); slash != std::string::npos; slash = rel.find('/', slash + 1))
+        dirs.insert(rel.substr(0, slash));
+    }
+    for (const auto& d : dirs) {
+      std::string err;
+      if (!sync_directory(d.empty() ? folder : (fs::path(folder) / d).string(), err)) {
+        error = "refusing to seal " + folder + ": " + err;
+        return false;
+      }
     }
     json files = json::array();
     for (const auto& rel : listing.files) {
