@@ -219,7 +219,9 @@ bool seal_session(const std::string& folder, const controller::CellConfig& cell,
   sr.key = key;
   record::SealInfo info;
   std::string err;
-  if (!checks::seal_and_log(folder, sr, checks_root, "session", &info, err)) {
+  const bool sealed = checks::seal_and_log(folder, sr, checks_root, "session", &info, err);
+  for (const auto& n : info.notes) std::cerr << "loadtrim: note: " << n << "\n";
+  if (!sealed) {
     std::cerr << "loadtrim: record failure: the folder could not be sealed: " << err << "\n";
     return false;
   }
@@ -405,8 +407,8 @@ int execute(session::Inputs inputs, const RunRequest& req, const std::string& fo
                                                       req.console == session::Console::Mode::json))
     sum.outcome = session::Outcome::record_failure;
   if (sum.outcome == session::Outcome::accepted)
-    save_history(record::vehicle_history_file(req.history_dir, inputs.cell.name, vehicle.id), vehicle, sum, folder,
-                 method);
+    save_history(record::vehicle_history_file(req.history_dir, inputs.cell.name, vehicle.id), vehicle, sum,
+                 folder, method);
   // Every session ends with its report (from the record alone, so it shows what an auditor would see).
   const report::ReportFiles rep = report::write_report(folder, LOADTRIM_VERSION, req.csv);
   if (!rep.ok)

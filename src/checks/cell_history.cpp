@@ -99,6 +99,7 @@ std::optional<double> CellHistory::maintenance_utc_s() const {
 
 bool CellHistory::append(const std::string& type, nlohmann::json payload, const std::string& utc) {
   if (!ok()) return false;
+  repaired_.clear();
   // The cell's directory, when new, is fsync'd into checks/ (and the log's name into it by EventLog).
   std::string err;
   if (!record::make_directories_durably(dir_, err)) {
@@ -106,6 +107,8 @@ bool CellHistory::append(const std::string& type, nlohmann::json payload, const 
     return false;
   }
   record::EventLog log(log_path_);
+  // A torn last line (a write cut short by a crash) is cut when the log is opened: said, never silent.
+  if (!log.repaired().empty()) repaired_ = log_path_ + ": " + log.repaired();
   if (!log.append(type, payload, utc)) {
     error_ = log.error();
     return false;
@@ -152,7 +155,9 @@ bool seal_and_log(const std::string& folder, const record::SealRequest& request,
     }
   }
   if (!record::seal_folder(folder, request, &s, error)) return false;
-  if (!h.append_seal(s, kind, record::utc_now())) {
+  const bool logged = h.append_seal(s, kind, record::utc_now());
+  if (!h.repaired().empty()) s.notes.push_back(h.repaired());
+  if (!logged) {
     error = "the folder " + s.folder + " is sealed, but the seal could not be added to the cell log " +
             h.log_path() + ": " + h.error();
     return false;

@@ -51,12 +51,15 @@ class CellHistory {
   // Appends (durably) with the given UTC (normally now); false with error() when it could not. The cell's
   // directory, when it is made, is fsync'd into its parent.
   bool append(const std::string& type, nlohmann::json payload, const std::string& utc);
+  // What the last append repaired, for the caller to report: a torn last line (a write a crash cut short)
+  // that opening the log cut off; "" when nothing.
+  const std::string& repaired() const { return repaired_; }
   // Appends a "seal" record for a folder sealed by record::seal_folder; kind is "session" or the check's
   // kind.
   bool append_seal(const record::SealInfo& seal, const std::string& kind, const std::string& utc);
 
  private:
-  std::string dir_, log_path_, error_;
+  std::string dir_, log_path_, error_, repaired_;
   std::vector<nlohmann::json> records_;
 };
 
@@ -77,7 +80,8 @@ Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, dou
 // the folder: seals the folder (record::seal_folder, with the cell's key or unsigned) and appends the seal to
 // the cell's log under checks_root (<checks_root>/<cell>/cell-log.jsonl, the same log CellHistory reads).
 // False with error when either step failed; *info->seal_sha256 is non-empty when the folder itself was sealed
-// (then only the cell-log append failed, and the error says so).
+// (then only the cell-log append failed, and the error says so). info->notes lists the repairs made on the
+// way (a torn last line cut from the folder's log or the cell log), for the caller to report.
 bool seal_and_log(const std::string& folder, const record::SealRequest& request,
                   const std::string& checks_root, const std::string& kind, record::SealInfo* info,
                   std::string& error);

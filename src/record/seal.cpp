@@ -482,6 +482,8 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
       error = log.error();
       return false;
     }
+    std::vector<std::string> notes;
+    if (!log.repaired().empty()) notes.push_back(folder + "/events.jsonl: " + log.repaired());
     const InsideFile events = read_inside(folder, "events.jsonl");
     std::vector<LogLine> lines;
     if (events.status != InsideStatus::ok || !parse_log(events.content, &lines).ok || lines.empty() ||
@@ -575,7 +577,8 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
                        log.last_hash(),
                        rec["signer"].get<std::string>(),
                        files.size(),
-                       utc};
+                       utc,
+                       notes};
     }
     // Self-check: the folder as sealed must read back as sealed and intact (catches any drift between what
     // was signed and what the line parses back to).

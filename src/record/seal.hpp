@@ -130,6 +130,9 @@ struct SealInfo {
   std::string signer;       // fingerprint, "" when unsigned
   std::size_t files = 0;
   std::string utc;
+  // Repairs made on the way, for the caller to report: a torn last line cut from the folder's log when it
+  // was opened for the seal (checks::seal_and_log adds one cut from the cell log).
+  std::vector<std::string> notes;
 };
 
 // Seals a finished folder: checks it first (chain, every recorded file hash, no unsafe path, no link, no

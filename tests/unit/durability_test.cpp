@@ -1,6 +1,7 @@
 // What the record layer makes durable, and what it does when it cannot (docs/records.md, "The chain", "The
 // seal", "The cell log"): every directory it makes is fsync'd into its parent, a new log's name into its
-// folder, every file a seal covers before the seal.
+// folder, every file a seal covers before the seal; a failed append leaves the log ending at its last good
+// record and refuses every later append; a torn last line cut on the way is reported.
 //
 // fsync(2) is interposed in this test program (and only here): the definition below takes the place of the C
 // library's for every call the record layer makes (its libraries are linked statically into this program),
@@ -94,6 +95,11 @@ std::string temp_dir(const std::string& tag) {
 
 void write(const std::string& path, const std::string& text) {
   std::ofstream(path, std::ios::binary) << text;
+}
+
+std::string slurp(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  return std::string(std::istreambuf_iterator<char>(in), {});
 }
 
 // A small finished folder: an input, a trace, summary.json, operator.log (written as spdlog writes it:
@@ -210,4 +216,106 @@ TEST(Durability, EveryFileTheSealCoversIsSyncedBeforeTheSeal) {
     EXPECT_GE(at, 0) << p << " never synced\n" << s.all();
     EXPECT_LT(at, seal) << p << " synced only after the seal\n" << s.all();
   }
+}
+
+// record/event_log.hpp, docs/records.md "The chain": a write cut short (a full disk mid-line) is cut off
+// again, so the file ends at its last good record and reads with no torn line; the log is poisoned: every
+// later append is refused with the first failure's message, so no record follows a gap or repeats a seq.
+// Reopened (resume), the log continues its chain.
+TEST(Durability, AShortWriteIsCutOffAndLaterAppendsAreRefused) {
+  const std::string t = temp_dir("dur-short");
+  const std::string path = t + "/events.jsonl";
+  record::EventLog log(path);
+  ASSERT_TRUE(log.append("a", {{"n", 1}}, "2026-12-02T08:00:00.000Z"));
+  ASSERT_TRUE(log.append("b", {{"n", 2}}, "2026-12-02T08:00:01.000Z"));
+  const std::string good = slurp(path);
+  log.inject_short_write(17);
+  EXPECT_FALSE(log.append("c", {{"n", 3}}, "2026-12-02T08:00:02.000Z"));
+  const std::string first_error = log.error();
+  EXPECT_NE(first_error.find("No space left"), std::string::npos) << first_error;
+  EXPECT_EQ(slurp(path), good) << "the torn line was not cut off";
+  EXPECT_TRUE(log.poisoned());
+  EXPECT_FALSE(log.append("d", {{"n", 4}}, "2026-12-02T08:00:03.000Z")) << "an append after a failure";
+  EXPECT_EQ(log.error(), first_error);
+  EXPECT_EQ(slurp(path), good);
+  std::vector<json> recs;
+  bool torn = true;
+  std::vector<record::LogLine> lines;
+  const record::VerifyResult v = record::parse_log(slurp(path), &lines, &torn);
+  EXPECT_TRUE(v.ok) << v.message;
+  EXPECT_FALSE(torn);
+  EXPECT_EQ(v.records, 2u);
+  record::EventLog reopened(path);
+  EXPECT_TRUE(reopened.repaired().empty());
+  EXPECT_EQ(reopened.records(), 2u);
+  ASSERT_TRUE(reopened.append("c", {{"n", 3}}, "2026-12-02T08:00:04.000Z")) << reopened.error();
+  EXPECT_TRUE(record::read_log(path, &recs).ok);
+  EXPECT_EQ(recs.size(), 3u);
+}
+
+// The same for a line written whole whose fsync failed: the record was not confirmed, so it is cut off (the
+// caller was told it is not there), and the log takes nothing more.
+TEST(Durability, ALineWhoseSyncFailedIsCutOffAndLaterAppendsAreRefused) {
+  const std::string t = temp_dir("dur-sync");
+  const std::string path = t + "/events.jsonl";
+  record::EventLog log(path);
+  ASSERT_TRUE(log.append("a", {{"n", 1}}, "2026-12-02T08:00:00.000Z"));
+  const std::string good = slurp(path);
+  log.inject_sync_failure();
+  EXPECT_FALSE(log.append("b", {{"n", 2}}, "2026-12-02T08:00:01.000Z"));
+  const std::string first_error = log.error();
+  EXPECT_NE(first_error.find("cannot sync"), std::string::npos) << first_error;
+  EXPECT_EQ(slurp(path), good);
+  EXPECT_FALSE(log.append("c", {{"n", 3}}, "2026-12-02T08:00:02.000Z"));
+  EXPECT_EQ(log.error(), first_error);
+  EXPECT_EQ(slurp(path), good) << "no record with a repeated seq after the unconfirmed one";
+  EXPECT_EQ(record::read_log(path, nullptr).records, 1u);
+}
+
+// docs/records.md, "The seal": a torn last line that opening the log for the seal cuts is reported to the
+// caller (SealInfo::notes), never cut silently.
+TEST(Durability, ATornLineCutForTheSealIsReported) {
+  const std::string t = temp_dir("dur-torn-seal");
+  const std::string f = make_folder(t);
+  std::ofstream(f + "/events.jsonl", std::ios::binary | std::ios::app) << "{\"seq\":3,\"utc\":\"2026";
+  record::SealInfo info;
+  std::string err;
+  ASSERT_TRUE(record::seal_folder(f, {"unit cell", {{"result", "accepted"}}, nullptr, ""}, &info, err))
+      << err;
+  ASSERT_EQ(info.notes.size(), 1u);
+  EXPECT_NE(info.notes[0].find("cut an incomplete last line"), std::string::npos) << info.notes[0];
+  EXPECT_NE(info.notes[0].find("events.jsonl"), std::string::npos) << info.notes[0];
+  EXPECT_TRUE(record::verify_folder(f).intact()) << record::verify_folder(f).message;
+}
+
+// docs/records.md, "The cell log": a torn last line of the cell log (an append a crash cut short) is cut when
+// the next append opens it, and that append says so (CellHistory::repaired; seal_and_log passes it on in
+// SealInfo::notes).
+TEST(Durability, ATornCellLogLineCutByAnAppendIsReported) {
+  const std::string t = temp_dir("dur-torn-cell");
+  {
+    checks::CellHistory h(t + "/checks", "unit cell");
+    ASSERT_TRUE(h.append("maintenance", {{"note", "one"}}, "2026-12-02T08:00:00.000Z")) << h.error();
+    EXPECT_TRUE(h.repaired().empty());
+    std::ofstream(h.log_path(), std::ios::binary | std::ios::app) << "{\"seq\":1,\"ty";
+  }
+  {
+    checks::CellHistory h(t + "/checks", "unit cell");
+    ASSERT_TRUE(h.ok()) << h.error();
+    ASSERT_TRUE(h.append("maintenance", {{"note", "two"}}, "2026-12-02T09:00:00.000Z")) << h.error();
+    EXPECT_NE(h.repaired().find("cut an incomplete last line"), std::string::npos) << h.repaired();
+    EXPECT_NE(h.repaired().find("cell-log.jsonl"), std::string::npos) << h.repaired();
+    std::ofstream(h.log_path(), std::ios::binary | std::ios::app) << "{\"seq\":2,\"ty";
+  }
+  const std::string f = make_folder(t);
+  record::SealInfo info;
+  std::string err;
+  ASSERT_TRUE(checks::seal_and_log(f, {"unit cell", {{"result", "accepted"}}, nullptr, ""}, t + "/checks",
+                                   "session", &info, err))
+      << err;
+  ASSERT_EQ(info.notes.size(), 1u);
+  EXPECT_NE(info.notes[0].find("cell-log.jsonl"), std::string::npos) << info.notes[0];
+  std::vector<json> recs;
+  EXPECT_TRUE(record::read_log(checks::CellHistory(t + "/checks", "unit cell").log_path(), &recs).ok);
+  EXPECT_EQ(recs.size(), 3u);
 }
