@@ -23,6 +23,7 @@
 #include "core/dyno_checks.hpp"
 #include "core/road_load.hpp"
 #include "record/seal.hpp"
+#include "record/verify.hpp"
 
 namespace loadtrim::checks {
 
@@ -62,6 +63,20 @@ class CellHistory {
   std::string dir_, log_path_, error_, repaired_;
   std::vector<nlohmann::json> records_;
 };
+
+// The seq of the cell log's "seal" record for the folder whose record 0 hashes to `origin`; nullopt when
+// none.
+std::optional<std::uint64_t> logged_seal(const CellHistory& h, const std::string& origin);
+
+// The cell-log entry of a sealed folder, added when the cell log lacks it: seal_and_log seals the folder and
+// then appends to the cell log, and a crash in between leaves a sealed folder the log does not know (its
+// cut-back would then read as not finished instead of broken; docs/records.md, "The cell log"). `v` is the
+// folder's verdict, made with the cell log consulted; the seal must be signed and its signature checked
+// against a trusted key of the cell (else false with error, nothing written: an unsigned seal could have been
+// made by anyone who can write the folder). The caller holds the folder's lock. added says whether an entry
+// was written; note, a torn cell-log line the append cut. True with added false when the log already has it.
+bool log_sealed_folder(const std::string& checks_root, const std::string& folder,
+                       const record::FolderVerdict& v, bool& added, std::string& note, std::string& error);
 
 // What a session needs from the history: the due list under a check profile, and whether it may start.
 struct Readiness {
