@@ -86,12 +86,22 @@ struct SyncLog {
   }
 };
 
-// A scratch directory, by its canonical path (what /proc/self/fd shows).
-std::string temp_dir(const std::string& tag) {
-  std::string t = (fs::temp_directory_path() / ("loadtrim-" + tag + "-XXXXXX")).string();
-  if (!::mkdtemp(t.data())) throw std::runtime_error("mkdtemp failed");
-  return fs::canonical(t).string();
-}
+// A scratch directory, by its canonical path (what /proc/self/fd shows), removed with everything in it when
+// the test ends.
+struct Scratch {
+  std::string path;
+  explicit Scratch(const std::string& tag) {
+    std::string t = (fs::temp_directory_path() / ("loadtrim-" + tag + "-XXXXXX")).string();
+    if (!::mkdtemp(t.data())) throw std::runtime_error("mkdtemp failed");
+    path = fs::canonical(t).string();
+  }
+  ~Scratch() {
+    std::error_code ec;
+    fs::remove_all(path, ec);
+  }
+  Scratch(const Scratch&) = delete;
+  Scratch& operator=(const Scratch&) = delete;
+};
 
 void write(const std::string& path, const std::string& text) {
   std::ofstream(path, std::ios::binary) << text;
@@ -141,7 +151,8 @@ std::string make_folder(const std::string& root) {
 // directories before create_session_folder returns; without it a power loss could lose the folder a
 // confirmed record lives in.
 TEST(Durability, ANewSessionFolderIsSyncedIntoEveryParentItMade) {
-  const std::string t = temp_dir("dur-folder");
+  const Scratch scratch("dur-folder");
+  const std::string& t = scratch.path;
   const std::string sessions = t + "/lab/sessions";
   SyncLog s;
   const std::string folder = record::create_session_folder(sessions, "vehicle 1");
@@ -154,7 +165,8 @@ TEST(Durability, ANewSessionFolderIsSyncedIntoEveryParentItMade) {
 // docs/records.md, "The data root": the directories made on first use (sessions/, checks/, history/, queue/,
 // keys/) are synced into the root, and the root into its parent.
 TEST(Durability, TheDataRootsDirectoriesAreSyncedWhenMade) {
-  const std::string t = temp_dir("dur-root");
+  const Scratch scratch("dur-root");
+  const std::string& t = scratch.path;
   const record::DataRoot root = record::find_data_root(t + "/root");
   ASSERT_TRUE(root.ok()) << root.describe();
   SyncLog s;
@@ -168,7 +180,8 @@ TEST(Durability, TheDataRootsDirectoriesAreSyncedWhenMade) {
 // new log's name is synced into its folder before its first record is confirmed; an existing log's folder
 // is left alone.
 TEST(Durability, ANewLogsNameIsSyncedIntoItsFolder) {
-  const std::string t = temp_dir("dur-log");
+  const Scratch scratch("dur-log");
+  const std::string& t = scratch.path;
   {
     SyncLog s;
     record::EventLog log(t + "/events.jsonl");
@@ -185,7 +198,8 @@ TEST(Durability, ANewLogsNameIsSyncedIntoItsFolder) {
 // docs/records.md, "The cell log": a cell's log directory, when new, is synced into checks/ (and checks/ into
 // its parent when it is made with it), and the log's name into the cell's directory.
 TEST(Durability, TheCellLogsDirectoryIsSyncedWhenMade) {
-  const std::string t = temp_dir("dur-cell");
+  const Scratch scratch("dur-cell");
+  const std::string& t = scratch.path;
   checks::CellHistory h(t + "/checks", "unit cell");
   SyncLog s;
   ASSERT_TRUE(h.append("maintenance", {{"note", "rollers replaced"}}, "2026-12-02T08:00:00.000Z"))
@@ -200,7 +214,8 @@ TEST(Durability, TheCellLogsDirectoryIsSyncedWhenMade) {
 // holding them, all before the seal record itself (the last fsync of events.jsonl). Without it a finished
 // folder could verify as broken forever after a power loss.
 TEST(Durability, EveryFileTheSealCoversIsSyncedBeforeTheSeal) {
-  const std::string t = temp_dir("dur-seal");
+  const Scratch scratch("dur-seal");
+  const std::string& t = scratch.path;
   const std::string f = make_folder(t);
   SyncLog s;
   record::SealInfo info;
@@ -223,7 +238,8 @@ TEST(Durability, EveryFileTheSealCoversIsSyncedBeforeTheSeal) {
 // later append is refused with the first failure's message, so no record follows a gap or repeats a seq.
 // Reopened (resume), the log continues its chain.
 TEST(Durability, AShortWriteIsCutOffAndLaterAppendsAreRefused) {
-  const std::string t = temp_dir("dur-short");
+  const Scratch scratch("dur-short");
+  const std::string& t = scratch.path;
   const std::string path = t + "/events.jsonl";
   record::EventLog log(path);
   ASSERT_TRUE(log.append("a", {{"n", 1}}, "2026-12-02T08:00:00.000Z"));
@@ -256,7 +272,8 @@ TEST(Durability, AShortWriteIsCutOffAndLaterAppendsAreRefused) {
 // The same for a line written whole whose fsync failed: the record was not confirmed, so it is cut off (the
 // caller was told it is not there), and the log takes nothing more.
 TEST(Durability, ALineWhoseSyncFailedIsCutOffAndLaterAppendsAreRefused) {
-  const std::string t = temp_dir("dur-sync");
+  const Scratch scratch("dur-sync");
+  const std::string& t = scratch.path;
   const std::string path = t + "/events.jsonl";
   record::EventLog log(path);
   ASSERT_TRUE(log.append("a", {{"n", 1}}, "2026-12-02T08:00:00.000Z"));
@@ -275,7 +292,8 @@ TEST(Durability, ALineWhoseSyncFailedIsCutOffAndLaterAppendsAreRefused) {
 // docs/records.md, "The seal": a torn last line that opening the log for the seal cuts is reported to the
 // caller (SealInfo::notes), never cut silently.
 TEST(Durability, ATornLineCutForTheSealIsReported) {
-  const std::string t = temp_dir("dur-torn-seal");
+  const Scratch scratch("dur-torn-seal");
+  const std::string& t = scratch.path;
   const std::string f = make_folder(t);
   std::ofstream(f + "/events.jsonl", std::ios::binary | std::ios::app) << "{\"seq\":3,\"utc\":\"2026";
   record::SealInfo info;
@@ -292,7 +310,8 @@ TEST(Durability, ATornLineCutForTheSealIsReported) {
 // the next append opens it, and that append says so (CellHistory::repaired; seal_and_log passes it on in
 // SealInfo::notes).
 TEST(Durability, ATornCellLogLineCutByAnAppendIsReported) {
-  const std::string t = temp_dir("dur-torn-cell");
+  const Scratch scratch("dur-torn-cell");
+  const std::string& t = scratch.path;
   {
     checks::CellHistory h(t + "/checks", "unit cell");
     ASSERT_TRUE(h.append("maintenance", {{"note", "one"}}, "2026-12-02T08:00:00.000Z")) << h.error();
