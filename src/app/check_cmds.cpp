@@ -250,13 +250,15 @@ int run_record(const CheckOptions& o) {
   const bool passed = o.result == "passed";
   const std::string verdict = std::string(passed ? "pass" : "FAIL") + " (40 CFR " + core::clause_of(kind) +
                               "), performed outside loadtrim and logged: " + o.note;
-  if (!h.append("check",
-                {{"kind", core::to_string(kind)},
-                 {"passed", passed},
-                 {"verdict", verdict},
-                 {"logged", true},
-                 {"operator", o.operator_name}},
-                record::utc_now())) {
+  const bool appended = h.append("check",
+                                 {{"kind", core::to_string(kind)},
+                                  {"passed", passed},
+                                  {"verdict", verdict},
+                                  {"logged", true},
+                                  {"operator", o.operator_name}},
+                                 record::utc_now());
+  if (!h.repaired().empty()) std::cerr << "loadtrim: note: " << h.repaired() << "\n";
+  if (!appended) {
     std::cerr << "loadtrim: " << h.error() << "\n";
     return kRecordFailure;
   }
@@ -272,7 +274,9 @@ int run_maintenance(const CheckOptions& o) {
     return kBadInput;
   }
   checks::CellHistory h(o.checks, l.cell.name);
-  if (!h.append("maintenance", {{"note", o.note}}, record::utc_now())) {
+  const bool appended = h.append("maintenance", {{"note", o.note}}, record::utc_now());
+  if (!h.repaired().empty()) std::cerr << "loadtrim: note: " << h.repaired() << "\n";
+  if (!appended) {
     std::cerr << "loadtrim: " << h.error() << "\n";
     return kRecordFailure;
   }

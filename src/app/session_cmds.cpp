@@ -239,6 +239,7 @@ void register_session_commands(CLI::App& app, Runner& run) {
           std::printf("KEY UNKNOWN: %s\n", v.message.c_str());
           break;
       }
+      for (const auto& f : v.findings) std::printf("finding: %s\n", f.c_str());
       if (v.outcome == record::Outcome::broken) {
         if (v.record >= 0) std::printf("first broken record: %lld\n", static_cast<long long>(v.record));
         if (!v.file.empty()) std::printf("file: %s\n", v.file.c_str());

@@ -234,7 +234,9 @@ bool seal_session(const std::string& folder, const controller::CellConfig& cell,
   sr.key = key;
   record::SealInfo info;
   std::string err;
-  if (!checks::seal_and_log(folder, sr, checks_root, "session", &info, err)) {
+  const bool sealed = checks::seal_and_log(folder, sr, checks_root, "session", &info, err);
+  for (const auto& n : info.notes) std::cerr << "loadtrim: note: " << n << "\n";
+  if (!sealed) {
     std::cerr << "loadtrim: record failure: the folder could not be sealed: " << err << "\n";
     return false;
   }
@@ -820,6 +822,49 @@ int run_new_session(const RunRequest& request, std::string* folder_out) {
       key ? &*key : nullptr);
 }
 
+// A sealed folder whose cell log lacks its seal (a crash between the seal and the cell-log entry): the entry
+// is added, under the folder's lock, when the seal is signed and checks with the cell's trusted key
+// (docs/records.md, "The cell log"). False (with the reason on stderr) when it is not there afterwards.
+static bool log_missing_seal(const std::string& folder, const record::FolderVerdict& first,
+                             const RunRequest& req, const record::VerifyOptions& vo) {
+  if (!first.seal || !first.seal->is_signed || !first.seal->signature_checked) {
+    // Anyone who can write the folder could have made a seal that no trusted key vouches for: it is not put
+    // in the cell log, whose entries are what later verifies trust.
+    std::cerr << "loadtrim: the cell log holds no seal for " << folder << "; not added: the seal is "
+              << (first.seal && first.seal->is_signed ? "signed by a key not trusted for its cell here"
+                                                      : "not signed")
+              << ", so nothing vouches for it\n";
+    return true;
+  }
+  std::optional<record::FileLock> folder_lock;
+  std::string lock_msg;
+  if (!lock_folder(folder, "resume", folder_lock, lock_msg)) {
+    std::cerr << "loadtrim: the cell log holds no seal for " << folder
+              << ", and it was not added: " << lock_msg << "\n";
+    return false;
+  }
+  // Again under the lock: the very seal verify saw, and still missing from the cell log.
+  const record::FolderVerdict v = record::verify_folder(folder, vo);
+  if (!v.seal || !first.seal || v.seal->seal_sha256 != first.seal->seal_sha256) {
+    std::cerr << "loadtrim: " << folder << " changed while its seal was being added to the cell log; nothing "
+              << "was added\n";
+    return false;
+  }
+  bool added = false;
+  std::string note, err;
+  const bool ok = checks::log_sealed_folder(req.checks_dir, folder, v, added, note, err);
+  if (!note.empty()) std::cerr << "loadtrim: note: " << note << "\n";
+  if (!ok) {
+    std::cerr << "loadtrim: the cell log holds no seal for " << folder << ", and it was not added: " << err
+              << "\n";
+    return false;
+  }
+  if (added)
+    std::cerr << "loadtrim: the cell log lacked this folder's seal (a crash between the seal and its "
+                 "cell-log entry); added, so a later cut-back of the folder is seen\n";
+  return true;
+}
+
 int resume_session(const std::string& folder, const RunRequest& overrides) {
   RunRequest req = overrides;
   record::DataRoot root;
@@ -851,6 +896,7 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     const std::string result = verdict.seal->result.value("result", "");
     std::cerr << "loadtrim: " << folder << " is finished and sealed (" << result << "); nothing to resume\n";
     const std::optional<session::Outcome> o = session::outcome_from_string(result);
+    if (verdict.cell_log_lacks_seal && !log_missing_seal(folder, verdict, req, vo)) return kRecordFailure;
     return o && session::is_final(*o) ? exit_code_for(*o) : static_cast<int>(kNotAccepted);
   }
   std::vector<nlohmann::json> records;

@@ -103,9 +103,16 @@ std::optional<double> CellHistory::maintenance_utc_s() const {
 
 bool CellHistory::append(const std::string& type, nlohmann::json payload, const std::string& utc) {
   if (!ok()) return false;
-  std::error_code ec;
-  fs::create_directories(dir_, ec);
+  repaired_.clear();
+  // The cell's directory, when new, is fsync'd into checks/ (and the log's name into it by EventLog).
+  std::string err;
+  if (!record::make_directories_durably(dir_, err)) {
+    error_ = err;
+    return false;
+  }
   record::EventLog log(log_path_);
+  // A torn last line (a write cut short by a crash) is cut when the log is opened: said, never silent.
+  if (!log.repaired().empty()) repaired_ = log_path_ + ": " + log.repaired();
   if (!log.append(type, payload, utc)) {
     error_ = log.error();
     return false;
@@ -152,11 +159,58 @@ bool seal_and_log(const std::string& folder, const record::SealRequest& request,
     }
   }
   if (!record::seal_folder(folder, request, &s, error)) return false;
-  if (!h.append_seal(s, kind, record::utc_now())) {
+  const bool logged = h.append_seal(s, kind, record::utc_now());
+  if (!h.repaired().empty()) s.notes.push_back(h.repaired());
+  if (!logged) {
     error = "the folder " + s.folder + " is sealed, but the seal could not be added to the cell log " +
             h.log_path() + ": " + h.error();
     return false;
   }
+  return true;
+}
+
+std::optional<std::uint64_t> logged_seal(const CellHistory& h, const std::string& origin) {
+  std::optional<std::uint64_t> at;
+  for (const auto& r : h.records())
+    if (r.value("type", "") == "seal" && r.value("origin", "") == origin)
+      at = r.value("seq", std::uint64_t{0});
+  return at;
+}
+
+bool log_sealed_folder(const std::string& checks_root, const std::string& folder,
+                       const record::FolderVerdict& v, bool& added, std::string& note, std::string& error) {
+  added = false;
+  note.clear();
+  if (!v.intact() || !v.seal || !v.seal->is_signed || !v.seal->signature_checked) {
+    error = "the folder's seal was not checked against a trusted key of its cell";
+    return false;
+  }
+  CellHistory h(checks_root, v.seal->cell);
+  if (!h.ok()) {
+    error = "the cell log " + h.log_path() + " is damaged: " + h.error();
+    return false;
+  }
+  if (logged_seal(h, v.origin)) return true;  // already there (verify compared it with the folder's seal)
+  record::SealInfo s;
+  s.folder = fs::absolute(folder).lexically_normal().string();
+  s.seq = v.seal->seq;
+  s.origin = v.origin;
+  s.chain_head = v.seal->chain_head;
+  s.seal_sha256 = v.seal->seal_sha256;
+  s.signer = v.seal->signer;
+  s.files = v.seal->files;
+  s.utc = v.seal->utc;
+  const std::string kind =
+      v.seal->result.is_object() && v.seal->result.contains("check") && v.seal->result["check"].is_string()
+          ? v.seal->result["check"].get<std::string>()
+          : std::string("session");
+  const bool ok = h.append_seal(s, kind, record::utc_now());
+  note = h.repaired();
+  if (!ok) {
+    error = "the seal could not be added to the cell log " + h.log_path() + ": " + h.error();
+    return false;
+  }
+  added = true;
   return true;
 }
 

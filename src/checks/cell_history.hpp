@@ -23,6 +23,7 @@
 #include "core/dyno_checks.hpp"
 #include "core/road_load.hpp"
 #include "record/seal.hpp"
+#include "record/verify.hpp"
 
 namespace loadtrim::checks {
 
@@ -48,16 +49,34 @@ class CellHistory {
   std::optional<double> maintenance_utc_s() const;
   const std::vector<nlohmann::json>& records() const { return records_; }
 
-  // Appends (durably) with the given UTC (normally now); false with error() when it could not.
+  // Appends (durably) with the given UTC (normally now); false with error() when it could not. The cell's
+  // directory, when it is made, is fsync'd into its parent.
   bool append(const std::string& type, nlohmann::json payload, const std::string& utc);
+  // What the last append repaired, for the caller to report: a torn last line (a write a crash cut short)
+  // that opening the log cut off; "" when nothing.
+  const std::string& repaired() const { return repaired_; }
   // Appends a "seal" record for a folder sealed by record::seal_folder; kind is "session" or the check's
   // kind.
   bool append_seal(const record::SealInfo& seal, const std::string& kind, const std::string& utc);
 
  private:
-  std::string dir_, log_path_, error_;
+  std::string dir_, log_path_, error_, repaired_;
   std::vector<nlohmann::json> records_;
 };
+
+// The seq of the cell log's "seal" record for the folder whose record 0 hashes to `origin`; nullopt when
+// none.
+std::optional<std::uint64_t> logged_seal(const CellHistory& h, const std::string& origin);
+
+// The cell-log entry of a sealed folder, added when the cell log lacks it: seal_and_log seals the folder and
+// then appends to the cell log, and a crash in between leaves a sealed folder the log does not know (its
+// cut-back would then read as not finished instead of broken; docs/records.md, "The cell log"). `v` is the
+// folder's verdict, made with the cell log consulted; the seal must be signed and its signature checked
+// against a trusted key of the cell (else false with error, nothing written: an unsigned seal could have been
+// made by anyone who can write the folder). The caller holds the folder's lock. added says whether an entry
+// was written; note, a torn cell-log line the append cut. True with added false when the log already has it.
+bool log_sealed_folder(const std::string& checks_root, const std::string& folder,
+                       const record::FolderVerdict& v, bool& added, std::string& note, std::string& error);
 
 // What a session needs from the history: the due list under a check profile, and whether it may start.
 struct Readiness {
@@ -76,7 +95,8 @@ Readiness readiness(const CellHistory& h, const core::CheckProfile& profile, dou
 // the folder: seals the folder (record::seal_folder, with the cell's key or unsigned) and appends the seal to
 // the cell's log under checks_root (<checks_root>/<cell>/cell-log.jsonl, the same log CellHistory reads).
 // False with error when either step failed; *info->seal_sha256 is non-empty when the folder itself was sealed
-// (then only the cell-log append failed, and the error says so).
+// (then only the cell-log append failed, and the error says so). info->notes lists the repairs made on the
+// way (a torn last line cut from the folder's log or the cell log), for the caller to report.
 bool seal_and_log(const std::string& folder, const record::SealRequest& request,
                   const std::string& checks_root, const std::string& kind, record::SealInfo* info,
                   std::string& error);

@@ -234,6 +234,7 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
   // a derived file, follows it.
   bool sealed = false;
   std::string seal_err;
+  std::vector<std::string> repairs;  // torn last lines cut from a log on the way: said, never silent
   if (wrote && logged) {
     record::SealRequest sr;
     sr.cell = req.cell.name;
@@ -241,6 +242,7 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
     sr.key = req.key;
     record::SealInfo info;
     sealed = seal_and_log(res.folder, sr, req.checks_root, core::to_string(req.kind), &info, seal_err);
+    repairs = info.notes;
   }
   const bool counts = res.end == CheckResult::End::passed || res.end == CheckResult::End::failed;
   bool hist_ok = true;
@@ -253,12 +255,14 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
                            {"adapter", req.cell.adapter},
                            {"controller", controller_name}},
                           now);
+  if (counts && !hist.repaired().empty()) repairs.push_back(hist.repaired());
   if (store_curve && hist_ok) {
     nlohmann::json curve = session::to_json(*new_curve);  // the cell log keeps the curve's members at its top
     curve["folder"] = fs::path(res.folder).filename().string();
     curve["adapter"] = req.cell.adapter;
     curve["accepted_by_operator"] = res.end == CheckResult::End::failed;
     hist_ok = hist.append("parasitic_curve", curve, now);
+    if (!hist.repaired().empty()) repairs.push_back(hist.repaired());
   }
   if (!wrote || !logged || !sealed || !hist_ok) {
     res.end = CheckResult::End::record_failure;
@@ -268,6 +272,7 @@ CheckResult run_check(controller::Controller& c, const CheckRequest& req, const 
                     : !sealed ? "the folder could not be sealed: " + seal_err
                               : hist.error());
   }
+  for (const auto& r : repairs) res.verdict += "; note: " + r;
   std::string rerr;
   if (!write_check_report(res.folder, rerr)) res.verdict += "; report not written: " + rerr;
   return res;

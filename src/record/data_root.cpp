@@ -10,6 +10,8 @@
 #include <fstream>
 #include <sstream>
 
+#include "record/session_folder.hpp"
+
 namespace loadtrim::record {
 
 namespace fs = std::filesystem;
@@ -287,21 +289,18 @@ bool ensure_data_root(const DataRoot& root, std::string& error, std::vector<std:
     error = root.describe();
     return false;
   }
-  std::error_code ec;
-  fs::create_directories(root.path, ec);
-  if (ec) {
-    error = "cannot create the data root " + root.path + ": " + ec.message();
+  // Each directory made is fsync'd into its parent (docs/records.md, "The data root").
+  std::string err;
+  if (!make_directories_durably(root.path, err)) {
+    error = "cannot create the data root " + root.path + ": " + err;
     return false;
   }
-  for (const auto& d : {root.sessions(), root.checks(), root.history(), root.queue()}) {
-    fs::create_directories(d, ec);
-    if (ec) {
-      error = "cannot create " + d + ": " + ec.message();
-      return false;
-    }
-  }
+  for (const auto& d : {root.sessions(), root.checks(), root.history(), root.queue()})
+    if (!make_directories_durably(d, error)) return false;
   const std::string keys = root.keys();
-  if (::mkdir(keys.c_str(), 0700) != 0 && errno != EEXIST) {
+  if (::mkdir(keys.c_str(), 0700) == 0) {
+    if (!sync_directory(root.path, error)) return false;
+  } else if (errno != EEXIST) {
     error = "cannot create " + keys + ": " + std::strerror(errno);
     return false;
   }

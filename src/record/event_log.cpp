@@ -1,8 +1,10 @@
 #include "record/event_log.hpp"
 
 #include <fcntl.h>
+#include <sys/stat.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <cerrno>
 #include <cstdlib>
 #include <cstring>
@@ -11,6 +13,7 @@
 #include <sstream>
 
 #include "record/seal.hpp"
+#include "record/session_folder.hpp"
 #include "record/sha256.hpp"
 #include "record/verify.hpp"
 
@@ -149,8 +152,31 @@ EventLog::EventLog(std::string path) : path_(std::move(path)) {
   // of this process fail as a full disk would. Never set in production; documented in docs/session.md.
   if (const char* n = std::getenv("LOADTRIM_TEST_FAIL_WRITES_AFTER"))
     fail_after_ = std::strtoll(n, nullptr, 10);
+  std::error_code ec;
+  const bool created = !std::filesystem::exists(path_, ec);
   fd_ = ::open(path_.c_str(), O_WRONLY | O_CREAT | O_APPEND | O_CLOEXEC, 0644);
-  if (fd_ < 0) error_ = "cannot open " + path_ + " for appending: " + std::strerror(errno);
+  if (fd_ < 0) {
+    error_ = "cannot open " + path_ + " for appending: " + std::strerror(errno);
+    return;
+  }
+  struct stat st {};
+  if (::fstat(fd_, &st) != 0) {
+    error_ = "cannot examine " + path_ + ": " + std::strerror(errno);
+    ::close(fd_);
+    fd_ = -1;
+    return;
+  }
+  good_bytes_ = static_cast<std::uint64_t>(st.st_size);
+  // A new log's name is fsync'd into its folder before the first record is confirmed: a record that append()
+  // confirmed must not vanish with the file's directory entry (docs/records.md, "The chain").
+  if (created) {
+    std::string err;
+    if (!sync_directory(std::filesystem::path(path_).parent_path().string(), err)) {
+      error_ = "cannot make the new log " + path_ + " durable: " + err;
+      ::close(fd_);
+      fd_ = -1;
+    }
+  }
 }
 
 EventLog::~EventLog() {
@@ -176,11 +202,24 @@ bool EventLog::set_signer(const SigningKey* key) {
   return true;
 }
 
+bool EventLog::fail_append(const std::string& what) {
+  error_ = what;
+  // Whatever reached the file of this record is cut off again, so the log ends at its last good record (a
+  // later reader sees no torn or unconfirmed line), and the log takes no more records: its state on disk is
+  // no longer known for sure (docs/records.md, "The chain").
+  if (::ftruncate(fd_, static_cast<off_t>(good_bytes_)) != 0 || ::fsync(fd_) != 0)
+    error_ +=
+        "; and the unconfirmed record could not be cut off again (" + std::string(std::strerror(errno)) + ")";
+  poisoned_ = true;
+  return false;
+}
+
 bool EventLog::append(const std::string& type, nlohmann::json payload, const std::string& utc) {
   if (fd_ < 0) {
     if (error_.empty()) error_ = "log not open";
     return false;
   }
+  if (poisoned_) return false;  // error_ still names the first failure
   try {
     nlohmann::json j = nlohmann::json::object();
     j["seq"] = next_seq_;
@@ -206,23 +245,33 @@ bool EventLog::append(const std::string& type, nlohmann::json payload, const std
     if (fail_after_ >= 0 && appended_ >= fail_after_) fail_writes_ = true;
     if (fail_writes_) {
       errno = ENOSPC;
-      error_ = "cannot write to " + path_ + ": " + std::strerror(errno);
-      return false;
+      return fail_append("cannot write to " + path_ + ": " + std::strerror(errno));
     }
     std::size_t done = 0;
     while (done < out.size()) {
-      const ssize_t w = ::write(fd_, out.data() + done, out.size() - done);
+      std::size_t n = out.size() - done;
+      if (short_write_ >= 0) {  // test hook: the disk takes this many bytes of the line, then no more
+        if (done >= static_cast<std::size_t>(short_write_)) {
+          short_write_ = -1;
+          errno = ENOSPC;
+          return fail_append("cannot write to " + path_ + ": " + std::strerror(errno));
+        }
+        n = std::min(n, static_cast<std::size_t>(short_write_) - done);
+      }
+      const ssize_t w = ::write(fd_, out.data() + done, n);
       if (w < 0) {
         if (errno == EINTR) continue;
-        error_ = "cannot write to " + path_ + ": " + std::strerror(errno);
-        return false;
+        return fail_append("cannot write to " + path_ + ": " + std::strerror(errno));
       }
       done += static_cast<std::size_t>(w);
     }
-    if (::fsync(fd_) != 0) {
-      error_ = "cannot sync " + path_ + ": " + std::strerror(errno);
-      return false;
+    if (fail_sync_) {  // test hook: the line was written, its fsync fails
+      fail_sync_ = false;
+      errno = EIO;
+      return fail_append("cannot sync " + path_ + ": " + std::strerror(errno));
     }
+    if (::fsync(fd_) != 0) return fail_append("cannot sync " + path_ + ": " + std::strerror(errno));
+    good_bytes_ += out.size();
     last_hash_ = sha256_hex(line);
     ++next_seq_;
     ++appended_;

@@ -1,6 +1,7 @@
 // The session's event log: append-only JSON Lines where every record carries the SHA-256 of the previous
 // record's line (a hash chain; the first record's "prev" is 64 zeros). Each append is written, flushed and
-// fsync'd before it returns, so a record that append() confirmed survives a crash or SIGKILL.
+// fsync'd before it returns, so a record that append() confirmed survives a crash or SIGKILL (a new log's
+// name is fsync'd into its folder when the log is created).
 //
 // Record layout: {"seq": n, "utc": "...", "type": "...", ...payload..., "prev": "<hex>"}; the hash of a
 // record is the SHA-256 of its line without the '\n'.
@@ -36,8 +37,12 @@ class EventLog {
   EventLog(const EventLog&) = delete;
   EventLog& operator=(const EventLog&) = delete;
 
-  // Appends one record; false (with error()) when it could not be made durable. Never throws.
+  // Appends one record; false (with error()) when it could not be made durable. Never throws. When a write or
+  // its fsync fails, whatever reached the file of that record is cut off again (the file ends at the last
+  // record append() confirmed) and the log is poisoned: every later append returns false, error() still
+  // naming the first failure, so no record can follow a gap or repeat a seq.
   bool append(const std::string& type, nlohmann::json payload, const std::string& utc);
+  bool poisoned() const { return poisoned_; }
   const std::string& error() const { return error_; }
   std::uint64_t records() const { return next_seq_; }
   const std::string& last_hash() const { return last_hash_; }
@@ -47,8 +52,12 @@ class EventLog {
   // Signs every record appended from now on with `key` (which must outlive the log). Ignored (false) when the
   // log already holds records and its record 0 is not signed: one folder is signed throughout or not at all.
   bool set_signer(const SigningKey* key);
-  // A test hook: the next appends fail as if the disk refused them.
+  // Test hooks. The next appends fail as if the disk refused them (nothing written).
   void inject_write_failure(bool on) { fail_writes_ = on; }
+  // The next append's write stops after `bytes` bytes of its line and then fails (a full disk mid-line).
+  void inject_short_write(std::size_t bytes) { short_write_ = static_cast<long long>(bytes); }
+  // The next append writes its whole line, then its fsync fails.
+  void inject_sync_failure() { fail_sync_ = true; }
 
  private:
   std::string path_;
@@ -58,10 +67,15 @@ class EventLog {
   std::string error_;
   std::string repaired_;
   bool fail_writes_ = false;
+  long long short_write_ = -1;
+  bool fail_sync_ = false;
+  bool poisoned_ = false;
+  std::uint64_t good_bytes_ = 0;  // the file's length after the last record append() confirmed
   const SigningKey* signer_ = nullptr;
   bool first_signed_ = false;  // record 0 of an existing log is signed
   long long fail_after_ = -1;
   long long appended_ = 0;
+  bool fail_append(const std::string& what);  // cuts the file back to good_bytes_, poisons the log
 };
 
 struct VerifyResult {

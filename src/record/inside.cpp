@@ -242,6 +242,17 @@ InsideHash hash_inside(const std::string& folder, const std::string& rel) {
   return h;
 }
 
+InsideFile sync_inside(const std::string& folder, const std::string& rel) {
+  InsideFile f;
+  Fd fd(open_inside(folder, rel, f.status, f.error));
+  if (fd.fd < 0) return f;
+  if (::fsync(fd.fd) != 0) {
+    f.status = InsideStatus::io_error;
+    f.error = "cannot sync " + rel + ": " + std::strerror(errno);
+  }
+  return f;
+}
+
 FolderListing list_inside(const std::string& folder) {
   FolderListing l;
   Fd dir(::open(folder.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC));

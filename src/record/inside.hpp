@@ -41,6 +41,9 @@ struct InsideHash {
   std::uint64_t bytes = 0;
 };
 InsideHash hash_inside(const std::string& folder, const std::string& rel);
+// fsync(2) of folder/rel (opened under the rules above), so that what a seal hashes is what a power loss
+// leaves. ok, or a status with a sentence naming the file.
+InsideFile sync_inside(const std::string& folder, const std::string& rel);
 
 struct FolderListing {
   bool ok = false;

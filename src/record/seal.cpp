@@ -14,6 +14,7 @@
 #include <cerrno>
 #include <cstring>
 #include <filesystem>
+#include <set>
 
 #include "record/data_root.hpp"
 #include "record/event_log.hpp"
@@ -481,6 +482,8 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
       error = log.error();
       return false;
     }
+    std::vector<std::string> notes;
+    if (!log.repaired().empty()) notes.push_back(folder + "/events.jsonl: " + log.repaired());
     const InsideFile events = read_inside(folder, "events.jsonl");
     std::vector<LogLine> lines;
     if (events.status != InsideStatus::ok || !parse_log(events.content, &lines).ok || lines.empty() ||
@@ -492,6 +495,26 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
     if (!listing.ok) {
       error = "refusing to seal " + folder + ": " + listing.error;
       return false;
+    }
+    // What the seal hashes must be what a power loss leaves: every covered file fsync'd (operator.log is
+    // written through spdlog's buffered sink, which never syncs), and the directories holding them, for their
+    // names (docs/records.md, "The seal").
+    std::set<std::string> dirs = {""};
+    for (const auto& rel : listing.files) {
+      if (rel == "events.jsonl" || is_derived_file(rel)) continue;
+      if (const InsideFile synced = sync_inside(folder, rel); synced.status != InsideStatus::ok) {
+        error = "refusing to seal " + folder + ": " + synced.error;
+        return false;
+      }
+      for (auto slash = rel.find('/'); slash != std::string::npos; slash = rel.find('/', slash + 1))
+        dirs.insert(rel.substr(0, slash));
+    }
+    for (const auto& d : dirs) {
+      std::string err;
+      if (!sync_directory(d.empty() ? folder : (fs::path(folder) / d).string(), err)) {
+        error = "refusing to seal " + folder + ": " + err;
+        return false;
+      }
     }
     json files = json::array();
     for (const auto& rel : listing.files) {
@@ -554,7 +577,8 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
                        log.last_hash(),
                        rec["signer"].get<std::string>(),
                        files.size(),
-                       utc};
+                       utc,
+                       notes};
     }
     // Self-check: the folder as sealed must read back as sealed and intact (catches any drift between what
     // was signed and what the line parses back to).

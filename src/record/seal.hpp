@@ -130,10 +130,15 @@ struct SealInfo {
   std::string signer;       // fingerprint, "" when unsigned
   std::size_t files = 0;
   std::string utc;
+  // Repairs made on the way, for the caller to report: a torn last line cut from the folder's log when it
+  // was opened for the seal (checks::seal_and_log adds one cut from the cell log).
+  std::vector<std::string> notes;
 };
 
 // Seals a finished folder: checks it first (chain, every recorded file hash, no unsafe path, no link, no
-// special file, no seal yet), hashes every file, signs, and appends the seal record durably. Call it once,
+// special file, no seal yet), fsyncs every file it covers and the directories holding them (operator.log is
+// written through a buffered sink and never synced by its writer), hashes every file, signs, and appends
+// the seal record durably: a seal never covers a file that a power loss could still change. Call it once,
 // after the last record and the last write to any file of the folder (operator.log included); afterwards only
 // approvals and derived files may be added. Refused, with the folder unchanged, when the folder is not
 // intact, is already sealed, its summary.json (else result.json) disagrees with request.result, its own cell

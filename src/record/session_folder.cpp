@@ -55,13 +55,54 @@ std::string identity_name(const std::string& s) {
   return safe == s ? safe : safe + "-" + sha256_hex(s).substr(0, 8);
 }
 
+bool sync_directory(const std::string& dir, std::string& error) {
+  const std::string d = dir.empty() ? "." : dir;
+  const int dfd = ::open(d.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
+  if (dfd < 0) {
+    error = "cannot open the directory " + d + " to sync it: " + std::strerror(errno);
+    return false;
+  }
+  if (::fsync(dfd) != 0) {
+    error = "cannot sync the directory " + d + ": " + std::strerror(errno);
+    ::close(dfd);
+    return false;
+  }
+  ::close(dfd);
+  return true;
+}
+
+bool make_directories_durably(const std::string& dir, std::string& error) {
+  fs::path p = fs::path(dir.empty() ? "." : dir).lexically_normal();
+  if (p.filename().empty() && p != p.root_path()) p = p.parent_path();  // "a/b/" → "a/b"
+  // The missing directories, innermost first.
+  std::vector<fs::path> missing;
+  std::error_code ec;
+  for (fs::path q = p; !q.empty() && !fs::exists(q, ec); q = q.parent_path()) {
+    missing.push_back(q);
+    if (q == q.parent_path()) break;
+  }
+  for (auto it = missing.rbegin(); it != missing.rend(); ++it) {
+    if (::mkdir(it->c_str(), 0755) != 0 && errno != EEXIST) {
+      error = "cannot create " + it->string() + ": " + std::strerror(errno);
+      return false;
+    }
+    if (!sync_directory(it->parent_path().string(), error)) return false;
+  }
+  if (!fs::is_directory(p, ec)) {
+    error = p.string() + " is not a directory";
+    return false;
+  }
+  return true;
+}
+
 std::string create_session_folder(const std::string& root, const std::string& id) {
   const std::string base = (fs::path(root) / (utc_compact_now() + "-" + safe_name(id))).string();
   // Claimed with one mkdir(2), which fails with EEXIST when another process made the same name first (several
   // cells sharing one data root start sessions of the same vehicle in the same second): never two sessions in
   // one folder, and never a check-then-create race.
-  std::error_code ec;
-  fs::create_directories(root, ec);
+  std::string err;
+  if (!make_directories_durably(root, err))
+    throw std::runtime_error("cannot create the session folder's parent: " + err);
   std::string path = base;
   for (int i = 2;; ++i) {
     if (::mkdir(path.c_str(), 0755) == 0) break;
@@ -69,9 +110,13 @@ std::string create_session_folder(const std::string& root, const std::string& id
       throw std::runtime_error("cannot create the session folder " + path + ": " + std::strerror(errno));
     path = base + "-" + std::to_string(i);
   }
-  fs::create_directories(fs::path(path) / "inputs", ec);
-  if (!ec) fs::create_directories(fs::path(path) / "traces", ec);
-  if (ec) throw std::runtime_error("cannot create the session folder " + path + ": " + ec.message());
+  // Each new name fsync'd into its directory before the program goes on (docs/records.md, "The chain").
+  for (const char* sub : {"inputs", "traces"})
+    if (::mkdir((fs::path(path) / sub).c_str(), 0755) != 0 && errno != EEXIST)
+      throw std::runtime_error("cannot create the session folder " + path + ": " + sub + ": " +
+                               std::strerror(errno));
+  if (!sync_directory(root, err) || !sync_directory(path, err))
+    throw std::runtime_error("cannot make the session folder " + path + " durable: " + err);
   return path;
 }
 

@@ -22,8 +22,17 @@ std::string safe_name(const std::string& s);  // letters, digits, '-', '_', '.' 
 // safe_name replaces ("cell (A)" and "cell [A]") never share a key, a log or a history.
 std::string identity_name(const std::string& s);
 
-// Creates <root>/<utc>-<id>/ with inputs/ and traces/; throws std::runtime_error when it cannot.
+// Creates <root>/<utc>-<id>/ with inputs/ and traces/; throws std::runtime_error when it cannot. Every
+// directory it makes (root and its missing parents included) is fsync'd into its parent before it returns
+// (make_directories_durably), so the folder's name survives a power loss (docs/records.md, "The chain").
 std::string create_session_folder(const std::string& root, const std::string& id);
+
+// fsync(2) of a directory, so that the entries made in it (a new file, a new folder) survive a power loss.
+// False with error when the directory cannot be opened or synced.
+bool sync_directory(const std::string& dir, std::string& error);
+// Makes `dir` and every missing parent (as mkdir -p), fsyncing each new directory's parent after making it.
+// An existing directory is not an error (nor is one another process made at the same moment).
+bool make_directories_durably(const std::string& dir, std::string& error);
 
 // Writes content to path durably: a temporary file, fsync, rename over the target, fsync of the directory. On
 // failure the temporary file is removed and the target is left as it was.

@@ -56,7 +56,8 @@ json FolderVerdict::to_json() const {
             {"origin", origin},
             {"records_signed", records_signed},
             {"records_signature_checked", records_signature_checked},
-            {"notes", notes}};
+            {"notes", notes},
+            {"findings", findings}};
   if (!records_signer.empty()) j["records_signer"] = records_signer;
   if (record >= 0) j["record"] = record;
   if (!file.empty()) j["file"] = file;
@@ -116,6 +117,8 @@ bool is_canonical(const LogLine& l) {
 }
 
 struct CellLogEntry {
+  bool consulted = false;  // the cell log exists and its chain is intact
+  std::string path;
   bool found = false;
   std::uint64_t seq = 0;
   std::string utc, seal;
@@ -193,6 +196,8 @@ CellLogEntry find_in_cell_log(const std::string& checks_root, const std::string&
     notes.push_back("the cell log " + path + " is broken (" + v.message + "); not consulted");
     return e;
   }
+  e.consulted = true;
+  e.path = path;
   for (const auto& r : recs)
     if (r.value("type", "") == "seal" && r.value("origin", "") == origin) {
       e.found = true;
@@ -201,7 +206,6 @@ CellLogEntry find_in_cell_log(const std::string& checks_root, const std::string&
       e.seal = r.value("seal", "");
       e.seal_seq = r.value("seal_seq", std::uint64_t{0});
     }
-  if (!e.found) notes.push_back("the cell log " + path + " has no seal for this folder");
   return e;
 }
 
@@ -211,6 +215,8 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
   FolderVerdict v;
   auto broken = [&v](const std::string& msg, std::int64_t rec = -1, const std::string& file = "") {
     v.outcome = Outcome::broken;
+    v.findings.clear();  // what an intact folder would need; a broken one is the finding
+    v.cell_log_lacks_seal = false;
     v.message = msg;
     v.record = rec;
     v.file = file;
@@ -337,6 +343,7 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
                           logged.utc + ") records it sealed at record " + std::to_string(logged.seal_seq) +
                           ", but it now ends at record " + std::to_string(v.records - 1) + " with no seal",
                       static_cast<std::int64_t>(v.records - 1), "events.jsonl");
+      if (logged.consulted) v.notes.push_back("the cell log " + logged.path + " has no seal for this folder");
       // No link, FIFO or device anywhere in it, sealed or not (a resumed session would otherwise run to the
       // end before the seal refuses it).
       const FolderListing listing = list_inside(folder);
@@ -427,6 +434,18 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
                     seal_at, "events.jsonl");
     if (logged.found)
       v.notes.push_back("the cell log (record " + std::to_string(logged.seq) + ") records this seal");
+    // A sealed folder its cell log does not know: a crash between the seal and its cell-log entry, or the
+    // entry was removed. The folder itself may be fine, but a cut-back of it would no longer be seen (it
+    // would read as not finished): a finding, not a note. Verify only reads; resume adds the entry.
+    if (logged.consulted && !logged.found) {
+      v.cell_log_lacks_seal = true;
+      v.findings.push_back("the cell log " + logged.path + " holds no seal for this folder (origin " +
+                           v.origin +
+                           "): a crash between the seal and its cell-log entry, or the entry was removed; "
+                           "until it is there, a cut-back of this folder reads as not finished instead of "
+                           "broken. `loadtrim resume " +
+                           folder + "` adds it when the seal's signature checks with the cell's trusted key");
+    }
 
     // 5. The seal's signature.
     const std::string sig = s["signature"];

@@ -9,7 +9,8 @@
 //   the
 //      SHA-256 the record holds.
 //   3. At most one seal; after it only approvals. No seal: the cell log (when given) must not know a seal for
-//      this folder (else it was cut back); outcome not_finished.
+//      this folder (else it was cut back); outcome not_finished. Sealed, and the cell log (when given,
+//      present and intact) holds no seal for it: a finding (FolderVerdict::findings), the outcome unchanged.
 //   4. The seal: exactly its fields, its line in canonical form, chain_head == prev; its files list sorted,
 //      unique and safe; every file present in the folder covered, none missing, none extra except the derived
 //      files; each hash matching; the folder's summary.json (else result.json) agreeing with every member of
@@ -95,6 +96,10 @@ struct FolderVerdict {
   bool records_signed = false, records_signature_checked = false;
   std::string records_signer;
   std::vector<std::string> notes;
+  // What an intact folder's verdict does not show but the lab must act on (the outcome and exit code are not
+  // changed by it): a sealed folder whose cell log (consulted, intact) holds no seal for it.
+  std::vector<std::string> findings;
+  bool cell_log_lacks_seal = false;  // that finding: the folder is sealed and its cell log has no seal for it
   bool ok() const { return outcome == Outcome::verified; }
   // Intact as far as the folder itself shows (anything but broken).
   bool intact() const { return outcome != Outcome::broken; }

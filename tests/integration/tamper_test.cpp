@@ -25,6 +25,7 @@
 #include "record/event_log.hpp"
 #include "record/inside.hpp"
 #include "record/seal.hpp"
+#include "record/session_folder.hpp"
 #include "record/sha256.hpp"
 #include "record/verify.hpp"
 #include "support/sim_process.hpp"
@@ -987,4 +988,81 @@ TEST_F(Tamper, ReportNamesAMissingMemberAndRemovesTheStaleReport) {
   EXPECT_FALSE(fs::exists(f + "/coefficients.csv"));
   for (const auto& e : fs::recursive_directory_iterator(f))
     EXPECT_NE(e.path().extension(), ".tmp") << e.path();
+}
+
+// docs/records.md, "The cell log" and "When folders are sealed, and resume": checks::seal_and_log seals the
+// folder and then appends to the cell log, so a crash in between leaves a sealed folder the cell log does not
+// know, and a later cut-back of it would read as not finished (resumable) instead of broken. verify reports
+// the missing entry as a finding, not a note (its outcome unchanged, nothing written); `loadtrim resume`
+// adds the entry (the seal signed and checked with the cell's trusted key), after which the cut-back is
+// BROKEN ("cut back"). A second resume adds nothing.
+TEST_F(Tamper, ASealTheCellLogLostInACrashIsAddedBackByResume) {
+  ASSERT_FALSE(g->unfinished.empty());
+  // A data root of its own: the suite's keys, and a cell log with one earlier record.
+  const std::string root = g->dir + "/crash-root";
+  fs::create_directories(root);
+  fs::copy(g->root + "/keys", root + "/keys", fs::copy_options::recursive);
+  checks::CellHistory h(root + "/checks", kCell);
+  ASSERT_TRUE(h.append("maintenance", {{"note", "before the session"}}, record::utc_now())) << h.error();
+  // The session's folder sealed as a finished session seals it; then the crash: its cell-log entry lost.
+  const std::string f = g->dir + "/crash-session";
+  fs::copy(g->unfinished, f, fs::copy_options::recursive);
+  std::string e;
+  const auto key = record::SigningKey::load(root + "/keys/" + record::cell_key_stem(kCell) + ".key.pem", e);
+  ASSERT_TRUE(key) << e;
+  record::SealInfo info;
+  ASSERT_TRUE(
+      checks::seal_and_log(f, {kCell, summary_of(f), &*key, ""}, root + "/checks", "session", &info, e))
+      << e;
+  std::string text = slurp(h.log_path());
+  text.erase(text.rfind('\n', text.size() - 2) + 1);
+  write(h.log_path(), text);
+  std::vector<json> recs;
+  ASSERT_TRUE(record::read_log(h.log_path(), &recs).ok);
+  ASSERT_EQ(recs.size(), 1u);
+
+  // verify: a finding, the outcome unchanged, the cell log untouched.
+  std::string out, err;
+  EXPECT_EQ(run_command({kExe, "verify", f, "--data-dir", root, "--json"}, &out, &err), 0) << out << err;
+  const json j = json::parse(out);
+  ASSERT_TRUE(j.contains("findings")) << out;
+  ASSERT_EQ(j["findings"].size(), 1u) << out;
+  EXPECT_NE(j["findings"][0].get<std::string>().find("holds no seal for this folder"), std::string::npos)
+      << out;
+  EXPECT_EQ(run_command({kExe, "verify", f, "--data-dir", root}, &out, &err), 0) << out << err;
+  EXPECT_NE(out.find("finding: the cell log "), std::string::npos) << out;
+  EXPECT_EQ(out.find("note: the cell log " + h.log_path() + " has no seal"), std::string::npos) << out;
+  EXPECT_EQ(slurp(h.log_path()), text) << "verify wrote to the cell log";
+  // The gap: cut back to before its seal, the folder reads as not finished.
+  const std::string cut = g->dir + "/crash-session-cut";
+  fs::copy(f, cut, fs::copy_options::recursive);
+  {
+    std::string t = slurp(cut + "/events.jsonl");
+    t.erase(t.rfind('\n', t.size() - 2) + 1);
+    write(cut + "/events.jsonl", t);
+  }
+  EXPECT_EQ(run_command({kExe, "verify", cut, "--data-dir", root}, &out, &err), 6) << out << err;
+
+  // resume: the entry is back, naming this very seal.
+  const int rc = run_command({kExe, "resume", f, "--data-dir", root}, &out, &err);
+  EXPECT_TRUE(rc == 0 || rc == 1) << rc << "\n" << out << err;
+  EXPECT_NE(err.find("added"), std::string::npos) << err;
+  recs.clear();
+  ASSERT_TRUE(record::read_log(h.log_path(), &recs).ok);
+  ASSERT_EQ(recs.size(), 2u);
+  const Log folder_log(f + "/events.jsonl");
+  EXPECT_EQ(recs[1].value("type", ""), "seal");
+  EXPECT_EQ(recs[1].value("kind", ""), "session");
+  EXPECT_EQ(recs[1].value("origin", ""), record::sha256_hex(folder_log.lines.front()));
+  EXPECT_EQ(recs[1].value("seal", ""), record::sha256_hex(folder_log.lines.back()));
+  EXPECT_EQ(recs[1].value("seal_seq", 0u), folder_log.lines.size() - 1);
+  EXPECT_EQ(run_command({kExe, "verify", f, "--data-dir", root}, &out, &err), 0) << out << err;
+  EXPECT_EQ(out.find("finding:"), std::string::npos) << out;
+  // The cut-back is now seen.
+  EXPECT_EQ(run_command({kExe, "verify", cut, "--data-dir", root}, &out, &err), 5) << out << err;
+  EXPECT_NE(out.find("BROKEN: the folder was cut back"), std::string::npos) << out;
+  // Once is enough.
+  const std::string logged = slurp(h.log_path());
+  EXPECT_EQ(run_command({kExe, "resume", f, "--data-dir", root}, &out, &err), rc) << out << err;
+  EXPECT_EQ(slurp(h.log_path()), logged);
 }
