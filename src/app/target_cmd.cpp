@@ -168,6 +168,12 @@ core::VehicleTarget build(const TargetOptions& o, const core::Profile& profile,
                                                    : "that line is empty") +
                        "; allowed a data row's line, 2 to " + std::to_string(f.last_line)}});
     }
+    for (const auto& sk : f.skipped)
+      if (!sk.id.empty() && sk.id == o.epa_id)
+        throw config::InputError(
+            o.epa,
+            {{core::Problem::Severity::error, "line " + std::to_string(sk.line) + ", column " + sk.column,
+              sk.message + "; the row cannot be used (--epa-id " + o.epa_id + ")"}});
     throw config::InputError(
         o.epa, {{core::Problem::Severity::error, "--epa-id",
                  "no row has the id \"" + o.epa_id + "\" (model_year/test_vehicle_id/test_veh_config_num)" +

@@ -69,7 +69,11 @@ EpaFile read_epa_csv(const std::string& path) {
     if (line.empty() || line == "\r") continue;
     const auto cells = split_csv(line);
     if (cells.size() < header.size()) {
-      f.skipped.push_back({lineno, header[cells.size()],
+      const auto c1 = col["model_year"], c2 = col["test_vehicle_id"], c3 = col["test_veh_config_num"];
+      const std::string id = std::max({c1, c2, c3}) < cells.size()
+                                 ? cells[c1] + "/" + cells[c2] + "/" + cells[c3]
+                                 : std::string();
+      f.skipped.push_back({lineno, header[cells.size()], id,
                            "is missing: the row has " + std::to_string(cells.size()) + " cells, the header " +
                                std::to_string(header.size())});
       continue;
@@ -83,7 +87,7 @@ EpaFile read_epa_csv(const std::string& path) {
     if (row.drive_code != "F" && row.drive_code != "R" && row.drive_code != "A" && row.drive_code != "4" &&
         row.drive_code != "P") {
       f.skipped.push_back(
-          {lineno, "drive_system_code",
+          {lineno, "drive_system_code", row.id,
            (row.drive_code.empty() ? std::string("is empty") : "is \"" + row.drive_code + "\"") +
                ", allowed " + kEpaDriveCodes});
       continue;
@@ -96,7 +100,7 @@ EpaFile read_epa_csv(const std::string& path) {
     for (int k = 0; k < 7 && ok; ++k)
       if (!to_double(cells[col[names[k]]], v[k])) {
         f.skipped.push_back(
-            {lineno, names[k],
+            {lineno, names[k], row.id,
              "is \"" + cells[col[names[k]]] + "\", not a number: allowed a finite number in " + units[k]});
         ok = false;
       }

@@ -25,6 +25,7 @@ struct EpaRow {
 struct EpaSkipped {
   int line = 0;
   std::string column;
+  std::string id;       // as EpaRow::id, when the row has its id cells ("" otherwise)
   std::string message;  // e.g. "is \"f\", allowed \"F\" (2WD front), ..."
 };
 

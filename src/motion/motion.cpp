@@ -327,7 +327,8 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
   return r;
 }
 
-Result Motion::settle_by_status(double budget_s, controller::StatusReport& st) {
+Result Motion::settle_by_status(double budget_s, controller::StatusReport& st, bool* read) {
+  if (read) *read = false;
   const DrainAtEnd drain{*this};
   const Stopping stopping(c_);
   const auto began = Clock::now();
@@ -335,7 +336,11 @@ Result Motion::settle_by_status(double budget_s, controller::StatusReport& st) {
   double t_first = -1.0;
   for (;;) {
     drain_warnings_if_due();
-    if (Result r = c_.status(st); !r.ok()) return r;
+    if (Result r = c_.status(st); !r.ok()) {
+      if (read) *read = false;  // st may hold a part of the refused reply
+      return r;
+    }
+    if (read) *read = true;
     if (t_first < 0.0) t_first = st.time_s;
     if (at_rest(st.speed_kmh, st.mode)) return Result::success();
     // Not at rest and not stopping: commanded to stop, whatever the mode says (idle at speed is a free coast

@@ -142,9 +142,10 @@ class Motion {
   // speed at or below the standstill threshold in idle or controlled-stop mode. `stopped` says whether it was
   // confirmed.
   Result stop_and_wait(double budget_s, bool& stopped);
-  // Without a stream: poll the status until the rollers stand still (commanding a stop while the controller
-  // still motors or simulates), every poll bounded; `last` gets the final status.
-  Result settle_by_status(double budget_s, controller::StatusReport& last);
+  // Without a stream: poll the status until the rollers stand still (commanding a stop whenever they are not
+  // at rest and not already stopping), every poll bounded; `last` gets the final status, and `read` (when
+  // given) says whether `last` is a status the controller layer accepted.
+  Result settle_by_status(double budget_s, controller::StatusReport& last, bool* read = nullptr);
   // A pause at standstill (no stream): polls the status every poll of wall time, keeping the link's
   // heartbeat, until resume() says go on (success). Ends early when the rollers are found moving or not at
   // rest (failure naming it), on a controller error, on the operator's stop flag (kInterrupted), or when

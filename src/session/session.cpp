@@ -244,9 +244,16 @@ bool Session::recover_link(const std::string& why) {
       held_fault_ = "after the lost link: " + *why;
       return false;
     }
-    speed_limit_kmh_ = std::min(
-        speed_limit_kmh_, core::session_speed_limit_kmh(in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh,
-                                                        info_.max_speed_kmh));
+    // The identity check above already refuses a controller stating less than the cell's speed limit, so the
+    // limit cannot fall here today; were it to (a check relaxed), it is applied where every limit is (the
+    // controller layer's refusal of higher speeds, the overspeed check on every sample) and recorded; a
+    // higher one is never taken.
+    if (const double limit = core::session_speed_limit_kmh(in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh,
+                                                           info_.max_speed_kmh);
+        limit < speed_limit_kmh_) {
+      speed_limit_kmh_ = limit;
+      apply_speed_limit();
+    }
     // Settle first, stream after: no stale samples from the stopping rollers reach the next wait. A fault the
     // tool may not clear ends the attempts: reconnecting again would not clear it either.
     if (!settle_and_clear("after the lost link")) {
@@ -289,6 +296,7 @@ std::optional<Session::Stop> Session::do_connect() {
   }
   if (!r.ok()) return fault(r, "connect");
   if (r = c_.identify(info_); !r.ok()) return fault(r, "identify");
+  identified_ = true;
   emit(ev::ControllerIdentified{info_});
   const core::Problems mismatch = controller::check_identity(in_.cell, info_);
   if (!mismatch.empty()) {
@@ -297,6 +305,9 @@ std::optional<Session::Stop> Session::do_connect() {
     emit(ev::Refused{msg});
     return Stop{Outcome::refused, "controller does not match the cell file: " + msg};
   }
+  // The cell's own controller: from here on the safe stop commands a stop and confirms it by the controller,
+  // never assumes it (another cell's controller, refused above, is never commanded).
+  controller_reached_ = true;
   // A fault latched before we came (a watchdog stop after a lost tool): only with the rollers stopped is it
   // cleared.
   controller::StatusReport st;
@@ -327,7 +338,6 @@ std::optional<Session::Stop> Session::do_check_limits() {
   const auto& p = in_.profile;
   speed_limit_kmh_ =
       core::session_speed_limit_kmh(in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh, info_.max_speed_kmh);
-  const double start = p.start_speed_kmh();
   // The rules are the core's (core/combination.hpp), the same ones check_combination applied before
   // connecting; here the controller's own limit joins them.
   const std::string why = core::limits_refusal(p, in_.cell.max_speed_kmh, in_.vehicle.max_speed_kmh,
@@ -352,13 +362,18 @@ std::optional<Session::Stop> Session::do_check_limits() {
           ? "the vehicle accelerates itself: either method may be used (GTR 15 Annex 4 §8.1.3.4)"
           : "the dyno accelerates the vehicle: the fixed-run method only (GTR 15 Annex 4 "
             "§8.1.3.4)"});
+  apply_speed_limit();
+  return std::nullopt;
+}
+
+void Session::apply_speed_limit() {
+  const auto& p = in_.profile;
   c_.set_speed_limit(speed_limit_kmh_);
   motion::Rules rules = motion_.rules();
   rules.speed_limit_kmh = speed_limit_kmh_;
   motion_.set_rules(rules);
-  emit(ev::Limits{speed_limit_kmh_, start, p.end_speed_kmh(), in_.cell.max_speed_kmh,
+  emit(ev::Limits{speed_limit_kmh_, p.start_speed_kmh(), p.end_speed_kmh(), in_.cell.max_speed_kmh,
                   in_.vehicle.max_speed_kmh, info_.max_speed_kmh, in_.cell.max_motoring_s});
-  return std::nullopt;
 }
 
 std::optional<Session::Stop> Session::do_set_inertia() {
@@ -1245,17 +1260,21 @@ void Session::do_safe_stop() {
   if (safe_stop_done_) return;
   safe_stop_done_ = true;
   transition(State::safe_stop);
-  if (!link_up_ && !motion_commanded_) {
+  if (!controller_reached_ && !link_up_ && !motion_commanded_) {
     rollers_stopped_ = true;
-    stop_note_ = "nothing was commanded to move: the link to the controller never came up";
+    stop_note_ = identified_ ? "nothing was commanded: the controller was refused before anything moved"
+                             : "nothing was commanded to move: the link to the controller never came up";
     emit(ev::SafeStop{stop_note_, true, std::nullopt});
     return;
   }
   if (link_up_) (void)clear_driver_prompt(run_, "stopping");  // best effort; the stop comes first either way
   Result r = Result::retry("the link is down");
   bool stopped = false;
-  if (link_up_) r = motion_.stop_and_wait(opt_.stop_budget_s, stopped);
-  if (!stopped && (r.status == Result::Status::retryable || !link_up_)) {
+  if (link_up_)
+    r = motion_.stop_and_wait(opt_.stop_budget_s, stopped);
+  else if (controller_reached_)
+    r = c_.controlled_stop();  // reached but not streaming (a refusal on connect): confirmed by status below
+  if (!stopped && !r.ok() && (r.status == Result::Status::retryable || !link_up_)) {
     // The link failed: one reconnection to command the stop ourselves rather than leave it to the watchdog.
     c_.disconnect();
     r = c_.connect();
@@ -1276,9 +1295,7 @@ void Session::do_safe_stop() {
   }
   if (!stopped) {
     st = {};
-    sr = motion_.settle_by_status(opt_.stop_budget_s, st);
-    // Ended by its own deadlines, the wait read statuses; ended by a status read, st is not one.
-    seen = sr.ok() || sr.code == motion::kTooSlow || sr.code == motion::kWallDeadline;
+    sr = motion_.settle_by_status(opt_.stop_budget_s, st, &seen);
   }
   c_.stop_stream();
   rollers_stopped_ = stopped || sr.ok();

@@ -132,6 +132,8 @@ class Session {
 
   std::optional<Stop> do_connect();
   std::optional<Stop> do_check_limits();
+  // The session's speed limit applied to the controller layer and the motion rules, and recorded.
+  void apply_speed_limit();
   std::optional<Stop> do_set_inertia();
   std::optional<Stop> do_warm_up(double duration_s, bool measure_loss_map);
   std::optional<Stop> do_run(int run);  // write_set → run_up → coast_down → analyse
@@ -232,6 +234,9 @@ class Session {
   std::optional<core::WarmUpRecord> initial_warm_up_;
   bool first_after_warm_up_ = true;  // the next release is the first after a (re-)warm-up: the 120 s rule
   bool safe_stop_done_ = false, rollers_stopped_ = false, motion_commanded_ = false;
+  // identified_: the controller answered IDENT; controller_reached_: and it is the cell's (the safe stop then
+  // commands a stop and confirms it by the controller).
+  bool identified_ = false, controller_reached_ = false;
   std::string stop_note_;
   // Why the link could not be recovered for good (a fault the tool may not clear, another controller): the
   // session's fault, in place of the lost link's message. Empty otherwise.

@@ -488,6 +488,14 @@ def main():
               (table + ["TM -5.0 kg", "no usable row", "two-axle"]) if rc_want == 2 else ["error"],
               "the brief's rule: file, line/key, allowed range; README, Exit codes: 2" if rc_want == 2 else
               "README, step 3: a value with a space after it is the value")
+    # The same row asked for by its id: it is there but cannot be used (before: "no row has the id").
+    epa_id = "/".join(epa[3].split(",")[header.index(c)]
+                      for c in ("model_year", "test_vehicle_id", "test_veh_config_num"))
+    rc, out = run(["target", "--epa", bad_csv, "--epa-id", epa_id, "--estimate-mass-in-running-order"], w)
+    check("target --epa-id of an unusable row", rc, out, 2,
+          ['bad-rows.csv: error: line 4, column drive_system_code: is "f", ' + codes,
+           "the row cannot be used (--epa-id " + epa_id + ")"], ["no row has the id"] + table,
+          "the brief's rule: file, line/key, allowed range; README, Exit codes: 2")
     rc, out = run(["demo", "--epa", bad_csv, "--vehicles", "1", "--no-live", "--sessions",
                    os.path.join(w, "epa-demo-sessions")], w, timeout=120)
     check("demo --epa names the rows it cannot use", rc, out, 0,

@@ -736,3 +736,18 @@ TEST(Motion, AFaultOnlyTheStatusShowsEndsTheStep) {
   EXPECT_FALSE(r.ok());
   EXPECT_NE(r.message.find("reports fault \"ESTOP\""), std::string::npos) << r.message;
 }
+
+// The safe stop records the status it read only when the controller layer accepted it (docs/safety.md: a
+// status never read is recorded as not read): settle_by_status says so.
+TEST(Motion, SettleByStatusSaysWhetherItsLastStatusWasAccepted) {
+  FakeController c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  motion::Motion m(c, {});
+  controller::StatusReport st;
+  bool read = false;
+  EXPECT_TRUE(m.settle_by_status(10.0, st, &read).ok());
+  EXPECT_TRUE(read);
+  c.script.status_lie = [](controller::StatusReport& s) { s.time_s = std::nan(""); };
+  EXPECT_FALSE(m.settle_by_status(10.0, st, &read).ok());
+  EXPECT_FALSE(read);
+}

@@ -2502,18 +2502,22 @@ TEST(SessionUnit, AnEmergencyStopLatchedBeforeTheToolCameIsNotClearedAndNothingM
     EXPECT_NE(sum.stop_reason.find("needs the operator at the cell"), std::string::npos) << sum.stop_reason;
     EXPECT_FALSE(c.sent(Mode::speed_hold));
     EXPECT_FALSE(c.sent(Mode::road_load));
+    // The cell's controller was reached: the safe stop commands a stop and the controller confirms it
+    // (before, the record said the link never came up and took the rollers as stopped).
+    EXPECT_TRUE(c.sent(Mode::controlled_stop));
     EXPECT_TRUE(sum.rollers_stopped);
+    EXPECT_NE(sum.stop_note.find("confirmed by the controller"), std::string::npos) << sum.stop_note;
   }
 }
 
 // The same after a lost link (docs/safety.md): the controller found latched on reconnecting is cleared only
 // for the watchdog stop the lost link caused, and the controller that answers must still be the cell's
-// (roller diameter and base inertia as the cell file says, as on connect). An emergency stop, or another
-// controller, ends the session (exit 3) with no further reconnection and nothing more commanded to move.
-// Before, the emergency stop was cleared and the session went on to acceptance, and a controller stating
-// other rollers was driven.
+// (roller diameter, base inertia and a maximum speed not below the cell's limit, as on connect). An emergency
+// stop, or another controller, ends the session (exit 3) with no further reconnection and nothing more
+// commanded to move. Before, the emergency stop was cleared and the session went on to acceptance, and a
+// controller stating other rollers or a lower maximum speed was driven.
 TEST(SessionUnit, AfterALostLinkAnEmergencyStopOrAnotherControllerEndsTheSession) {
-  for (const std::string lie : {"estop", "identity"}) {
+  for (const std::string lie : {"estop", "identity", "max_speed"}) {
     SCOPED_TRACE(lie);
     FakeController c(loadtrim::testing::demo_truth());
     bool lost = false;
@@ -2532,8 +2536,10 @@ TEST(SessionUnit, AfterALostLinkAnEmergencyStopOrAnotherControllerEndsTheSession
             st.fault = "ESTOP";
             st.flags |= controller::kFlagFault | controller::kFlagEstop;
           };
-        else
+        else if (lie == "identity")
           c.script.identify_lie = [](controller::ControllerInfo& i) { i.roller_diameter_m = 0.5; };
+        else  // a maximum speed below the cell's limits.max_speed_kmh (160 km/h), as on connect
+          c.script.identify_lie = [](controller::ControllerInfo& i) { i.max_speed_kmh = 150.0; };
       }
       if (std::holds_alternative<session::ev::Reconnect>(e.payload)) ++reconnects;
     });
