@@ -1,11 +1,19 @@
 #include "checks/cell_history.hpp"
 
+#include <fcntl.h>
+#include <sys/file.h>
+#include <unistd.h>
+
 #include <algorithm>
+#include <cerrno>
+#include <chrono>
 #include <cmath>
 #include <cstdio>
+#include <cstring>
 #include <ctime>
 #include <filesystem>
 #include <fstream>
+#include <thread>
 
 #include "record/event_log.hpp"
 #include "record/road_load_json.hpp"
@@ -101,6 +109,12 @@ std::optional<double> CellHistory::maintenance_utc_s() const {
   return out;
 }
 
+namespace {
+// How long an append waits for another writer of the same cell log (an append takes milliseconds; common
+// practice, no source).
+constexpr auto kCellLogLockWait = std::chrono::seconds(10);
+}  // namespace
+
 bool CellHistory::append(const std::string& type, nlohmann::json payload, const std::string& utc) {
   if (!ok()) return false;
   repaired_.clear();
@@ -109,6 +123,32 @@ bool CellHistory::append(const std::string& type, nlohmann::json payload, const 
   if (!record::make_directories_durably(dir_, err)) {
     error_ = err;
     return false;
+  }
+  // Every writer of the cell log (a session's seal, a dyno check, `check record`, `check maintenance`,
+  // resume's repair: several processes) appends under an exclusive lock on the cell's directory, so two never
+  // append after the same record (docs/records.md). The wait is bounded on the tool's own clock.
+  const int dfd = ::open(dir_.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
+  if (dfd < 0) {
+    error_ = "cannot open " + dir_ + " to lock the cell log: " + std::strerror(errno);
+    return false;
+  }
+  struct Unlock {
+    int fd;
+    ~Unlock() { ::close(fd); }  // closing the descriptor releases its lock
+  } unlock{dfd};
+  const auto give_up = std::chrono::steady_clock::now() + kCellLogLockWait;
+  while (::flock(dfd, LOCK_EX | LOCK_NB) != 0) {
+    if (errno != EWOULDBLOCK && errno != EINTR) {
+      error_ = "cannot lock the cell log " + log_path_ + ": " + std::strerror(errno);
+      return false;
+    }
+    if (std::chrono::steady_clock::now() >= give_up) {
+      error_ = "the cell log " + log_path_ + " stayed locked by another writer for " +
+               std::to_string(std::chrono::duration_cast<std::chrono::seconds>(kCellLogLockWait).count()) +
+               " s; nothing was appended";
+      return false;
+    }
+    std::this_thread::sleep_for(std::chrono::milliseconds(20));
   }
   record::EventLog log(log_path_);
   // A torn last line (a write cut short by a crash) is cut when the log is opened: said, never silent.

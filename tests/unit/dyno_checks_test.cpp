@@ -8,7 +8,12 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <cstdlib>
+#include <filesystem>
 #include <functional>
+#include <set>
+#include <string>
+#include <thread>
 #include <vector>
 
 #include "checks/cell_history.hpp"
@@ -16,6 +21,7 @@
 #include "config/loaders.hpp"
 #include "core/units.hpp"
 #include "physics/roller_model.hpp"
+#include "record/event_log.hpp"
 
 using namespace loadtrim;
 using namespace loadtrim::core;
@@ -636,4 +642,36 @@ TEST(DynoChecks, CheckProfileLoadsAndBadValuesAreRefused) {
       {"due.required[1]", "parasitic.speeds_kmh"});
   refused("name = \"x\"\n[due]\nrequired = [\"friction\"]\n[due.coastdown]\ninterval_days = 7\n",
           {"due.required[0]", "has no [due.friction] row"});
+}
+
+// docs/records.md (the cell log): several processes append to one cell's log (a session's seal, a dyno check,
+// `check record`, `check maintenance`, resume's repair). Each append holds an exclusive lock on the cell's
+// directory, so four writers appending at once leave one unbroken chain with every record once. Before, two
+// writers could both append after the same record (a repeated seq: the chain broken).
+TEST(DynoChecksHistory, WritersAppendingAtOnceLeaveOneUnbrokenChain) {
+  namespace fs = std::filesystem;
+  std::string dir = (fs::temp_directory_path() / "loadtrim-cell-log-XXXXXX").string();
+  ASSERT_NE(::mkdtemp(dir.data()), nullptr);
+  constexpr int kWriters = 4, kEach = 25;
+  std::vector<std::thread> writers;
+  std::vector<int> failures(kWriters, 0);
+  for (int w = 0; w < kWriters; ++w)
+    writers.emplace_back([&, w] {
+      for (int i = 0; i < kEach; ++i) {
+        checks::CellHistory h(dir + "/checks", "unit cell");  // as a separate process opens it
+        if (!h.append("maintenance", {{"note", std::to_string(w) + "." + std::to_string(i)}},
+                      "2026-12-05T00:00:00Z"))
+          ++failures[static_cast<std::size_t>(w)];
+      }
+    });
+  for (auto& t : writers) t.join();
+  for (int f : failures) EXPECT_EQ(f, 0);
+  std::vector<nlohmann::json> recs;
+  const auto v = record::read_log(checks::CellHistory(dir + "/checks", "unit cell").log_path(), &recs);
+  EXPECT_TRUE(v.ok) << v.message;
+  EXPECT_EQ(recs.size(), static_cast<std::size_t>(kWriters * kEach));
+  std::set<std::string> notes;
+  for (const auto& r : recs) notes.insert(r.value("note", ""));
+  EXPECT_EQ(notes.size(), static_cast<std::size_t>(kWriters * kEach));
+  fs::remove_all(dir);
 }
