@@ -236,6 +236,9 @@ bool Session::recover_link(const std::string& why) {
       std::string msg;
       for (const auto& q : mismatch) msg += (msg.empty() ? "" : "; ") + q.key + ": " + q.message;
       held_fault_ = "after the lost link the controller does not match the cell file: " + msg;
+      // Not the cell's controller: never commanded, not even the stop (docs/safety.md).
+      controller_reached_ = false;
+      c_.disconnect();
       return false;
     }
     const auto& p = in_.profile;
@@ -1262,8 +1265,10 @@ void Session::do_safe_stop() {
   transition(State::safe_stop);
   if (!controller_reached_ && !link_up_ && !motion_commanded_) {
     rollers_stopped_ = true;
-    stop_note_ = identified_ ? "nothing was commanded: the controller was refused before anything moved"
-                             : "nothing was commanded to move: the link to the controller never came up";
+    stop_note_ = identified_
+                     ? "nothing was commanded: the controller was refused before anything moved"
+                     : "nothing was commanded to move: no controller was identified (the link never came "
+                       "up, or the controller did not identify itself)";
     emit(ev::SafeStop{stop_note_, true, std::nullopt});
     return;
   }
@@ -1274,10 +1279,21 @@ void Session::do_safe_stop() {
     r = motion_.stop_and_wait(opt_.stop_budget_s, stopped);
   else if (controller_reached_)
     r = c_.controlled_stop();  // reached but not streaming (a refusal on connect): confirmed by status below
+  bool ours = true;            // the controller the stop is asked of is the cell's (identified and matching)
   if (!stopped && !r.ok() && (r.status == Result::Status::retryable || !link_up_)) {
     // The link failed: one reconnection to command the stop ourselves rather than leave it to the watchdog.
+    // The controller that answers is identified and checked first: another cell's is never commanded.
     c_.disconnect();
     r = c_.connect();
+    controller::ControllerInfo again;
+    if (r.ok()) r = c_.identify(again);
+    if (r.ok())
+      if (const core::Problems mismatch = controller::check_identity(in_.cell, again); !mismatch.empty()) {
+        ours = false;
+        r = Result::fail("the controller that answers does not match the cell file (" + mismatch.front().key +
+                         ": " + mismatch.front().message + "): not commanded");
+        c_.disconnect();
+      }
     if (r.ok()) r = c_.controlled_stop();
     emit(ev::SafeStopReconnect{r.ok(), r.message});
   }
@@ -1293,9 +1309,11 @@ void Session::do_safe_stop() {
     else
       stopped = false;
   }
-  if (!stopped) {
+  if (!stopped && ours) {
     st = {};
     sr = motion_.settle_by_status(opt_.stop_budget_s, st, &seen);
+  } else if (!ours) {
+    sr = r;  // why nothing was asked of the controller that answered
   }
   c_.stop_stream();
   rollers_stopped_ = stopped || sr.ok();

@@ -2555,7 +2555,14 @@ TEST(SessionUnit, AfterALostLinkAnEmergencyStopOrAnotherControllerEndsTheSession
     for (std::size_t i = commands_at_loss; i < c.commands.size(); ++i) {
       EXPECT_NE(c.commands[i].first, Mode::speed_hold) << "command " << i;
       EXPECT_NE(c.commands[i].first, Mode::road_load) << "command " << i;
+      // Another cell's controller (identity or stated maximum not the cell's) is never commanded, not even
+      // the stop: the rollers are then not confirmed stopped (exit 3) and its watchdog is the safeguard. The
+      // cell's own, with an emergency stop latched, is stopped and confirmed.
+      if (lie != "estop") {
+        EXPECT_NE(c.commands[i].first, Mode::controlled_stop) << "command " << i;
+      }
     }
+    EXPECT_EQ(sum.rollers_stopped, lie == "estop") << sum.stop_note;
   }
 }
 
@@ -2593,4 +2600,18 @@ TEST(SessionUnit, AnAnalysisThatDoesNotFinishInTimeStopsTheSession) {
   EXPECT_EQ(sum.coastdowns, 0);
   EXPECT_TRUE(c.sent(Mode::road_load));  // it got as far as a coast-down
   EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+}
+
+// docs/safety.md: a controller that does not match the cell file on connect is refused and never commanded,
+// not even the stop (it may be another cell's dyno, in use); the record says nothing was commanded because the
+// controller was refused, not that the link never came up.
+TEST(SessionUnit, AControllerRefusedByItsIdentityOnConnectIsNeverCommanded) {
+  FakeController c(loadtrim::testing::demo_truth());
+  c.script.identify_lie = [](controller::ControllerInfo& i) { i.roller_diameter_m = 0.5; };
+  session::Session s(inputs(), options(), c, {});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::refused) << sum.stop_reason;
+  EXPECT_TRUE(c.commands.empty()) << c.commands.size() << " command(s) sent";
+  EXPECT_NE(sum.stop_note.find("the controller was refused before anything moved"), std::string::npos)
+      << sum.stop_note;
 }
