@@ -305,7 +305,8 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
   // does not move (a frozen clock must not keep the stop from being confirmed, nor confirm it at once). The
   // clock guard is off while stopping, so the controller's time alone never confirms it faster than half the
   // hold at the rate the controller stated (a clock that jumps ahead must not either; a controller simulated
-  // in the tool's own process has no wall-related clock).
+  // in the tool's own process has no wall-related clock). The half is margin for a clock a little fast
+  // against the wall (common practice, no source).
   double still_since = std::numeric_limits<double>::quiet_NaN();
   Clock::time_point still_wall{};
   Result r = collect(st, [&](const Sample& s) {

@@ -20,6 +20,13 @@ using controller::Result;
 using core::num;
 
 namespace {
+
+// What check_identity found, one clause per key, as the records and messages give it.
+std::string mismatch_text(const core::Problems& mismatch) {
+  std::string msg;
+  for (const auto& q : mismatch) msg += (msg.empty() ? "" : "; ") + q.key + ": " + q.message;
+  return msg;
+}
 constexpr int kInterruptedCode = motion::kInterrupted;
 constexpr int kTooSlowCode = motion::kTooSlow;
 // The progress line's estimate only (it moves nothing): a coast-down whose time cannot be predicted counts as
@@ -233,9 +240,8 @@ bool Session::recover_link(const std::string& why) {
     // session's speed limit taken again from what it states now (the lower, never the higher).
     emit(ev::ControllerIdentified{info_});
     if (const core::Problems mismatch = controller::check_identity(in_.cell, info_); !mismatch.empty()) {
-      std::string msg;
-      for (const auto& q : mismatch) msg += (msg.empty() ? "" : "; ") + q.key + ": " + q.message;
-      held_fault_ = "after the lost link the controller does not match the cell file: " + msg;
+      held_fault_ =
+          "after the lost link the controller does not match the cell file: " + mismatch_text(mismatch);
       // Not the cell's controller: never commanded, not even the stop (docs/safety.md).
       controller_reached_ = false;
       c_.disconnect();
@@ -303,8 +309,7 @@ std::optional<Session::Stop> Session::do_connect() {
   emit(ev::ControllerIdentified{info_});
   const core::Problems mismatch = controller::check_identity(in_.cell, info_);
   if (!mismatch.empty()) {
-    std::string msg;
-    for (const auto& p : mismatch) msg += (msg.empty() ? "" : "; ") + p.key + ": " + p.message;
+    const std::string msg = mismatch_text(mismatch);
     emit(ev::Refused{msg});
     return Stop{Outcome::refused, "controller does not match the cell file: " + msg};
   }
