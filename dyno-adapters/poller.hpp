@@ -48,13 +48,15 @@ class PollPacer {
   Clock::time_point next_{};
 };
 
-// The fault a status report names for these flags (controller::kFlag*): the most specific first; "" when
-// none is set.
+// The fault a status report names for these flags (controller::kFlag*): the emergency stop first (the one
+// that must never be taken for a watchdog stop, as controller::Controller::status names them), then the
+// watchdog;
+// "" when none is set.
 inline std::string fault_name(std::uint32_t flags) {
-  return (flags & controller::kFlagWatchdog) ? "WATCHDOG"
-         : (flags & controller::kFlagEstop)  ? "ESTOP"
-         : (flags & controller::kFlagFault)  ? "FAULT"
-                                             : "";
+  return (flags & controller::kFlagEstop)      ? "ESTOP"
+         : (flags & controller::kFlagWatchdog) ? "WATCHDOG"
+         : (flags & controller::kFlagFault)    ? "FAULT"
+                                               : "";
 }
 
 }  // namespace loadtrim::adapters

@@ -24,6 +24,8 @@ const char* to_string(FaultKind k) {
       return "WATCHDOG";
     case FaultKind::estop:
       return "ESTOP";
+    case FaultKind::overspeed:
+      return "OVERSPEED";
   }
   return "FAULT";
 }
@@ -223,6 +225,7 @@ void SimController::advance_typed(double dt, std::vector<controller::Sample>& sa
   constexpr double kStep = 0.01;
   while (stream_hz_ > 0.0 && next_sample_s_ <= end + 1e-12) {
     model_.advance(next_sample_s_ - model_.time_s(), kStep);
+    check_overspeed(events);
     if (!(fp.stall_at_s && model_.time_s() >= *fp.stall_at_s)) {
       const physics::Sample s = model_.sample();
       samples.push_back(
@@ -231,6 +234,7 @@ void SimController::advance_typed(double dt, std::vector<controller::Sample>& sa
     next_sample_s_ += 1.0 / stream_hz_;
   }
   model_.advance(end - model_.time_s(), kStep);
+  check_overspeed(events);
   if (fp.estop_at_s && !estop_done_ && model_.time_s() >= *fp.estop_at_s) {
     estop_done_ = true;
     latch_fault(FaultKind::estop, "emergency stop raised at the controller", events);
@@ -244,6 +248,12 @@ void SimController::advance_typed(double dt, std::vector<controller::Sample>& sa
       drop_pending_ = true;
     }
   }
+}
+
+void SimController::check_overspeed(std::vector<FaultEvent>& events) {
+  // A fault already latched has the rollers in a controlled stop and moving commands refused: it stands.
+  if (!fault_ && model_.speed_kmh() > kOverspeedTripFactor * settings_.max_speed_kmh)
+    latch_fault(FaultKind::overspeed, "rollers above the over-speed trip: controlled stop", events);
 }
 
 void SimController::check_watchdog_typed(double wall_s, std::vector<FaultEvent>& events) {

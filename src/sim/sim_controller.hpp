@@ -64,8 +64,17 @@ struct SimError {
 
 // A fault the simulated controller latches on its own; it then goes to its safe state (controlled stop, or
 // idle at rest) and refuses motoring until the fault is cleared.
-enum class FaultKind : std::uint8_t { watchdog, estop };
-// "WATCHDOG", "ESTOP": the words of controller::StatusReport::fault (and of every dialect that names faults).
+// overspeed: the rollers turned faster than the controller's trip speed (kOverspeedTripFactor times its
+// stated maximum speed), whatever drove them there (a constant force on empty rollers, a vehicle that would
+// not stop).
+enum class FaultKind : std::uint8_t { watchdog, estop, overspeed };
+// Above this multiple of its stated maximum speed (SimSettings::max_speed_kmh) the simulated controller
+// trips: controlled stop and a latched OVERSPEED fault, as a drive's own over-speed protection does whatever
+// it was told. The 2 % above the rating is common practice, no source; speed holds never reach it (they stop
+// at the held speed, which the controller refuses above the maximum).
+inline constexpr double kOverspeedTripFactor = 1.02;
+// "WATCHDOG", "ESTOP", "OVERSPEED": the words of controller::StatusReport::fault (and of every dialect that
+// names faults).
 const char* to_string(FaultKind k);
 
 struct FaultEvent {
@@ -74,9 +83,9 @@ struct FaultEvent {
   double time_s = 0.0;  // simulated time when it latched
 };
 // A latched fault as the text of a controller event that the controller interface hands up
-// (controller.hpp, do_take_events): "FAULT kind=<WATCHDOG|ESTOP> detail=<words joined by _> time_s=<s>".
-// In-process adapters hand it up as it is, and the simulator says it to its operator; each dialect puts the
-// same words on its own wire its own way.
+// (controller.hpp, do_take_events): "FAULT kind=<WATCHDOG|ESTOP|OVERSPEED> detail=<words joined by _>
+// time_s=<s>". In-process adapters hand it up as it is, and the simulator says it to its operator; each
+// dialect puts the same words on its own wire its own way.
 std::string event_text(const FaultEvent& e);
 
 // A command with the setpoint its mode takes, typed so that a speed and a force never share a parameter.
@@ -155,6 +164,9 @@ class SimController {
   std::optional<SimError> run(const cmd::Idle&);
   std::optional<SimError> run(const cmd::FreeCoast&);
   void latch_fault(FaultKind kind, std::string detail, std::vector<FaultEvent>& events);
+  // Latches OVERSPEED when the rollers are above the trip speed (kOverspeedTripFactor) and no fault is
+  // latched.
+  void check_overspeed(std::vector<FaultEvent>& events);
   // The mode as the controller reports it: idle while the rollers coast freely (docs/protocol.md section 11).
   controller::Mode reported_mode() const;
   std::uint32_t flags() const;

@@ -73,11 +73,16 @@ TEST(Poller, AStalledPollerDoesNotBurstToCatchUp) {
   }
 }
 
-TEST(Poller, FaultNamesTheMostSpecificFlagFirst) {
+// The emergency stop is named first, whatever else the flags show (docs/protocol.md section 7;
+// docs/safety.md, "Faults the tool clears": an emergency stop must never be named as a watchdog stop), then
+// the watchdog.
+TEST(Poller, FaultNamesTheEmergencyStopFirst) {
   using namespace loadtrim::controller;
   EXPECT_EQ(fault_name(0), "");
   EXPECT_EQ(fault_name(kFlagLimit | kFlagAtSetpoint), "") << "at a limit or at setpoint is no fault name";
   EXPECT_EQ(fault_name(kFlagFault), "FAULT");
   EXPECT_EQ(fault_name(kFlagFault | kFlagEstop), "ESTOP");
-  EXPECT_EQ(fault_name(kFlagFault | kFlagEstop | kFlagWatchdog), "WATCHDOG");
+  EXPECT_EQ(fault_name(kFlagFault | kFlagWatchdog), "WATCHDOG");
+  EXPECT_EQ(fault_name(kFlagFault | kFlagEstop | kFlagWatchdog), "ESTOP")
+      << "an emergency stop with the watchdog flag set too was named a watchdog stop";
 }

@@ -4,6 +4,7 @@
 // as the documented EVT line; a free coast is reported as idle.
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <string>
 #include <vector>
 
@@ -193,6 +194,54 @@ TEST(SimCore, CommandsAreTypedAndAFreeCoastIsReportedAsIdle) {
   EXPECT_LT(core.model().speed_kmh(), 150.0);  // coasting down
   EXPECT_GT(core.model().speed_kmh(), 1.0);
   EXPECT_TRUE(events.empty());
+}
+
+// The simulated controller's own over-speed protection (docs/protocol.md section 9: OVERSPEED): a constant
+// force that drives the rollers past kOverspeedTripFactor times the stated maximum speed latches the fault,
+// once, with a controlled stop; moving commands are then refused until a CLEAR at rest. A speed hold at the
+// maximum itself never trips it. The 60 km/h maximum is the test's own.
+TEST(SimCore, RollersDrivenPastTheOverSpeedTripLatchAFaultAndStop) {
+  sim::SimSettings settings;
+  settings.max_speed_kmh = 60.0;
+  {
+    sim::SimController held(physics::Truth{}, settings);
+    held.touch(0.0);
+    ASSERT_FALSE(held.command(sim::cmd::HoldSpeed{60.0}));
+    std::vector<controller::Sample> samples;
+    std::vector<sim::FaultEvent> events;
+    for (int i = 0; i < 120; ++i) held.advance_typed(0.5, samples, events);
+    EXPECT_NEAR(held.model().speed_kmh(), 60.0, 1e-9);
+    EXPECT_TRUE(events.empty()) << "a hold at the stated maximum speed tripped";
+  }
+  sim::SimController core(physics::Truth{}, settings);
+  core.touch(0.0);
+  ASSERT_FALSE(core.stream(10.0));
+  ASSERT_FALSE(core.command(sim::cmd::ApplyForce{5000.0}));
+  std::vector<controller::Sample> samples;
+  std::vector<sim::FaultEvent> events;
+  double top_kmh = 0.0;
+  for (int i = 0; i < 600 && events.empty(); ++i) {
+    core.advance_typed(0.1, samples, events);
+    top_kmh = std::max(top_kmh, core.model().speed_kmh());
+  }
+  ASSERT_EQ(events.size(), 1u) << "5 kN on the rollers for 60 s never tripped; top " << top_kmh << " km/h";
+  EXPECT_EQ(events[0].kind, sim::FaultKind::overspeed);
+  EXPECT_GT(top_kmh, sim::kOverspeedTripFactor * 60.0);
+  EXPECT_LT(top_kmh, sim::kOverspeedTripFactor * 60.0 + 1.0) << "tripped late";
+  EXPECT_NE(sim::event_text(events[0]).find("kind=OVERSPEED"), std::string::npos);
+  const controller::StatusReport st = core.status();
+  EXPECT_EQ(st.fault, "OVERSPEED");
+  EXPECT_NE(st.flags & controller::kFlagFault, 0u);
+  EXPECT_EQ(st.flags & (controller::kFlagEstop | controller::kFlagWatchdog), 0u);
+  EXPECT_EQ(st.mode, controller::Mode::controlled_stop);
+  const auto refused = core.command(sim::cmd::ApplyForce{100.0});
+  ASSERT_TRUE(refused);
+  EXPECT_EQ(refused->cause, Cause::fault_active);
+  EXPECT_TRUE(core.clear()) << "cleared with the rollers still turning";
+  for (int i = 0; i < 600 && core.model().speed_kmh() > 0.0; ++i) core.advance_typed(0.1, samples, events);
+  EXPECT_EQ(events.size(), 1u) << "the trip latched again while stopping";
+  EXPECT_FALSE(core.clear());
+  EXPECT_FALSE(core.command(sim::cmd::HoldSpeed{30.0}));
 }
 
 // The Modbus front end's watchdog watches the heartbeat counter (docs/modbus.md, "Heartbeat"): only a change
