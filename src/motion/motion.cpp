@@ -45,6 +45,13 @@ Clock::duration Motion::wall_budget(double budget_s) const {
   return std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(s)) + rules_.wall_slack;
 }
 
+Clock::duration Motion::stop_progress_window() const {
+  const double s = std::clamp(rules_.stop_progress_s / std::max(1.0, c_.time_scale()), 0.0, 1e7);
+  return std::max<Clock::duration>(
+      std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(s)),
+      rules_.stop_progress_min_wall);
+}
+
 void Motion::drain_warnings() {
   last_warnings_ = Clock::now();
   if (!on_warning) return;
@@ -282,6 +289,39 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
 }
 
 namespace {
+// Whether a stop makes progress (Rules::stop_progress_*): the rollers, while not at rest, come step_kmh
+// slower than the slowest speed since the last such step within the window of the tool's own clock; standing
+// still in a mode that holds something (no slower to come), they must be at rest within the window.
+class StopProgress {
+ public:
+  StopProgress(double step_kmh, Clock::duration window) : step_kmh_(step_kmh), window_(window) {}
+  // Empty while the stop makes progress; else the failure's message.
+  std::string on(double speed_kmh, controller::Mode mode, bool at_rest, bool standing,
+                 Clock::time_point now) {
+    if (!started_ || at_rest || (!standing && speed_kmh <= mark_kmh_ - step_kmh_)) {
+      started_ = true;
+      mark_kmh_ = speed_kmh;
+      mark_wall_ = now;
+      return {};
+    }
+    if (now - mark_wall_ <= window_) return {};
+    if (standing)
+      return std::string("commanded to stop, the controller still reports ") + controller::to_string(mode) +
+             " at " + num(speed_kmh, 1) + " km/h after " + num(seconds(window_), 1) +
+             " s of the tool's clock";
+    return "commanded to stop, the rollers did not slow by " + num(step_kmh_, 1) + " km/h from " +
+           num(mark_kmh_, 1) + " km/h within " + num(seconds(window_), 1) + " s of the tool's clock (now " +
+           num(speed_kmh, 1) + " km/h, " + controller::to_string(mode) + ")";
+  }
+
+ private:
+  double step_kmh_;
+  Clock::duration window_;
+  bool started_ = false;
+  double mark_kmh_ = 0.0;
+  Clock::time_point mark_wall_{};
+};
+
 // While stopping, the controller's earlier faults and clock no longer end a call (Controller::set_stopping).
 struct Stopping {
   controller::Controller& c;
@@ -309,7 +349,12 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
   // against the wall (common practice, no source).
   double still_since = std::numeric_limits<double>::quiet_NaN();
   Clock::time_point still_wall{};
+  StopProgress progress(rules_.stop_progress_kmh, stop_progress_window());
+  std::string not_slowing;
   Result r = collect(st, [&](const Sample& s) {
+    not_slowing =
+        progress.on(s.speed_kmh, s.mode, at_rest(s.speed_kmh, s.mode), standstill(s.speed_kmh), Clock::now());
+    if (!not_slowing.empty()) return true;  // ends the wait: a failure below
     if (!at_rest(s.speed_kmh, s.mode)) {
       still_since = std::numeric_limits<double>::quiet_NaN();
       return false;
@@ -324,6 +369,7 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
              wall_s * c_.time_scale() >= 0.5 * rules_.standstill_hold_s)) ||
            wall_s >= rules_.standstill_hold_s;
   });
+  if (r.ok() && !not_slowing.empty()) r = Result::fail(not_slowing, kNotSlowing);
   stopped = r.ok();
   return r;
 }
@@ -335,6 +381,7 @@ Result Motion::settle_by_status(double budget_s, controller::StatusReport& st, b
   const auto began = Clock::now();
   const auto wall_end = began + wall_budget(budget_s);
   double t_first = -1.0;
+  StopProgress progress(rules_.stop_progress_kmh, stop_progress_window());
   for (;;) {
     drain_warnings_if_due();
     if (Result r = c_.status(st); !r.ok()) {
@@ -344,6 +391,9 @@ Result Motion::settle_by_status(double budget_s, controller::StatusReport& st, b
     if (read) *read = true;
     if (t_first < 0.0) t_first = st.time_s;
     if (at_rest(st.speed_kmh, st.mode)) return Result::success();
+    if (std::string why = progress.on(st.speed_kmh, st.mode, false, standstill(st.speed_kmh), Clock::now());
+        !why.empty())
+      return Result::fail(why + " (by status)", kNotSlowing);
     // Not at rest and not stopping: commanded to stop, whatever the mode says (idle at speed is a free coast
     // nobody brakes: docs/safety.md).
     if (st.mode != Mode::controlled_stop)

@@ -52,6 +52,8 @@ inline constexpr double kDefaultStepBudgetS = 600.0;
 inline constexpr int kTooSlow = -3;       // the step's controller-time budget ran out before its condition
 inline constexpr int kWallDeadline = -4;  // the step's deadline on the tool's own clock passed
 inline constexpr int kPaused = -5;        // the operator asked for a pause (Motion::set_pause_flag)
+inline constexpr int kNotSlowing =
+    -6;  // commanded to stop, the rollers did not slow (Rules::stop_progress_*)
 
 struct Rules {
   double speed_limit_kmh = 0.0;  // > 0: a sample above this plus the margin ends the step
@@ -71,6 +73,15 @@ struct Rules {
   // How often a step hands the controller's warnings on (Motion::on_warning): a flaky link raising one
   // per poll becomes one record a second with its count, not one per poll (common practice, no source).
   std::chrono::milliseconds warning_every{1000};
+  // A stop must show progress: once commanded to stop, rollers not at rest must come stop_progress_kmh
+  // slower than the slowest speed since the last such step within stop_progress_s of controller time, as
+  // the tool's own clock measures it (divided by the controller's stated time scale, never less than
+  // stop_progress_min_wall): a controller that acknowledges the stop and holds the speed, with a clock that
+  // is frozen or slow, must not keep the tool waiting (and feeding its watchdog) for the whole stop budget.
+  // 1 km/h in 10 s is 0.028 m/s², far below any controlled stop (common practice, no source).
+  double stop_progress_kmh = 1.0;
+  double stop_progress_s = 10.0;
+  std::chrono::milliseconds stop_progress_min_wall{2000};
 };
 
 struct Step {
@@ -163,6 +174,8 @@ class Motion {
     return standstill(speed_kmh) &&
            (mode == controller::Mode::idle || mode == controller::Mode::controlled_stop);
   }
+  // The wall window a stop has to show its progress in (Rules::stop_progress_*).
+  std::chrono::steady_clock::duration stop_progress_window() const;
   double last_time_s() const { return last_time_s_; }
   bool have_time() const { return have_time_; }
 

@@ -1308,8 +1308,9 @@ void Session::do_safe_stop() {
   bool seen = false;  // st holds a status the controller sent and the controller layer accepted
   if (stopped) {
     // The stream saw a standstill; the controller's own status must agree, or the wait goes on by status.
-    // A status that could not be read or failed its checks is no agreement: the wait goes on by status.
-    if (Result q = c_.status(st); q.ok() && motion_.standstill(st.speed_kmh))
+    // A status that could not be read or failed its checks, or that shows the rollers slow but not at rest
+    // (a holding mode at standstill), is no agreement: the wait goes on by status.
+    if (Result q = c_.status(st); q.ok() && motion_.at_rest(st.speed_kmh, st.mode))
       seen = true;
     else
       stopped = false;

@@ -441,6 +441,51 @@ TEST(Motion, AStopThatIsNeverReachedIsReportedNotAssumed) {
   EXPECT_TRUE(stopped);
 }
 
+// A controller that acknowledges the stop and holds the speed with a frozen clock (a hostile review): the
+// controller-time budget never runs out, so without a progress rule the tool waited out the whole wall
+// deadline (budget / (rate × 0.25) + 20 s: 1,220 s for the safe stop's 300 s), feeding the controller's
+// watchdog meanwhile. Now the stop must show its progress (Rules::stop_progress_*, docs/safety.md): both the
+// streamed wait and the status wait end with kNotSlowing within the window. The 1 s window (0.5 s of wall
+// at least) is the test's own, to keep it short; the shipped one is 10 s.
+TEST(Motion, AStopAcknowledgedButNotMadeEndsWithinTheProgressWindow) {
+  FakeController c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  motion::Rules rules;
+  rules.stop_progress_s = 1.0;
+  rules.stop_progress_min_wall = std::chrono::milliseconds(500);
+  motion::Motion m(c, rules);
+  ASSERT_TRUE(m.hold(30.0, 1.0, "run-up", 120.0).ok());
+  double frozen_at = -1.0;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (frozen_at < 0.0) frozen_at = s.time_s;
+    s.time_s = frozen_at;
+  };
+  c.script.status_lie = [&](controller::StatusReport& st) {
+    if (frozen_at >= 0.0) st.time_s = frozen_at;
+  };
+  c.script.never_stops = true;
+  bool stopped = true;
+  auto t0 = std::chrono::steady_clock::now();
+  auto res = m.stop_and_wait(300.0, stopped);
+  double took = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  EXPECT_FALSE(stopped);
+  EXPECT_EQ(res.code, motion::kNotSlowing) << res.message;
+  EXPECT_NE(res.message.find("did not slow"), std::string::npos) << res.message;
+  EXPECT_LT(took, 10.0) << "held " << took << " s by a stop that was never made";
+  controller::StatusReport st;
+  t0 = std::chrono::steady_clock::now();
+  res = m.settle_by_status(300.0, st);
+  took = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  EXPECT_EQ(res.code, motion::kNotSlowing) << res.message;
+  EXPECT_LT(took, 10.0) << "held " << took << " s by a stop that was never made";
+  // An honest stop from the same speed is confirmed under the same rules.
+  c.script.never_stops = false;
+  c.script.sample_lie = nullptr;
+  c.script.status_lie = nullptr;
+  EXPECT_TRUE(m.stop_and_wait(300.0, stopped).ok());
+  EXPECT_TRUE(stopped);
+}
+
 // The issue this guards against (docs/safety.md §3): a wait that skipped samples stamped before its command's
 // time, before looking at their flags, let an emergency stop latched behind a lagging clock go unseen. Here
 // the controller's sample clock stops (so every later sample is stamped before the command below) and the

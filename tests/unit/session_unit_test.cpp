@@ -173,6 +173,33 @@ TEST(SessionUnit, AControllerThatNeverStopsIsReportedAsSuch) {
   EXPECT_NE(sum.stop_note.find("rollers not confirmed stopped"), std::string::npos) << sum.stop_note;
 }
 
+// The status that confirms the stream's standstill at the end must show the rollers at rest, not only slow
+// (docs/safety.md §3: standstill in idle or controlled stop, for every stop and start check; a hostile review
+// found the speed alone checked there). Here the controller's status says HOLD at standstill twice after
+// the stop: the tool must command the stop again and confirm it by status.
+TEST(SessionUnit, TheFinalStatusMustShowTheRollersAtRestNotOnlySlow) {
+  FakeController c(loadtrim::testing::demo_truth());
+  int lies_left = 2;
+  std::size_t lied_at = 0;
+  c.script.status_lie = [&](controller::StatusReport& st) {
+    if (lies_left > 0 && !c.commands.empty() && c.commands.back().first == Mode::controlled_stop &&
+        st.speed_kmh <= 0.5) {
+      if (lies_left == 2) lied_at = c.commands.size();
+      --lies_left;
+      st.mode = Mode::speed_hold;
+    }
+  };
+  Recorder record(true);
+  session::Session s(inputs(), options(), c, {&record});
+  const auto sum = s.run();
+  ASSERT_EQ(lies_left, 0) << "the lie never fired";
+  bool stopped_again = false;
+  for (std::size_t i = lied_at; i < c.commands.size(); ++i)
+    if (c.commands[i].first == Mode::controlled_stop) stopped_again = true;
+  EXPECT_TRUE(stopped_again) << "a status in speed hold at standstill was taken for the rollers at rest";
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+}
+
 TEST(SessionUnit, ASettingAcknowledgedButNotAppliedStopsTheSession) {
   FakeController c(loadtrim::testing::demo_truth());
   c.script.coefficients_not_applied = true;
@@ -2603,8 +2630,8 @@ TEST(SessionUnit, AnAnalysisThatDoesNotFinishInTimeStopsTheSession) {
 }
 
 // docs/safety.md: a controller that does not match the cell file on connect is refused and never commanded,
-// not even the stop (it may be another cell's dyno, in use); the record says nothing was commanded because the
-// controller was refused, not that the link never came up.
+// not even the stop (it may be another cell's dyno, in use); the record says nothing was commanded because
+// the controller was refused, not that the link never came up.
 TEST(SessionUnit, AControllerRefusedByItsIdentityOnConnectIsNeverCommanded) {
   FakeController c(loadtrim::testing::demo_truth());
   c.script.identify_lie = [](controller::ControllerInfo& i) { i.roller_diameter_m = 0.5; };
