@@ -873,12 +873,21 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     std::cerr << "loadtrim: cannot resume " << folder << ": no such session folder\n";
     return kBadInput;
   }
+  // The folder's lock first: the log is read once, under it (verify hands back the records it read), so what
+  // resume continues from is what was verified and no other process writes the folder in between.
+  std::optional<record::FileLock> cell_lock, folder_lock;
+  std::string lock_msg;
+  if (!lock_folder(folder, "resume", folder_lock, lock_msg)) {
+    std::cerr << "loadtrim: refusing to resume: " << lock_msg << "\n";
+    return kBadInput;
+  }
   // Resume is a function of the verified folder: the whole folder (chain, every recorded file hash, the
   // inputs) is checked before anything connects, and a folder that does not verify is refused.
   record::VerifyOptions vo;
   vo.keys_dir = root.keys();
   vo.checks_root = req.checks_dir;
-  const record::FolderVerdict verdict = record::verify_folder(folder, vo);
+  std::vector<nlohmann::json> records;
+  const record::FolderVerdict verdict = record::verify_folder(folder, vo, &records);
   if (verdict.outcome == record::Outcome::broken) {
     std::cerr << "loadtrim: refusing to resume " << folder
               << ": the folder does not verify: " << verdict.message
@@ -896,14 +905,9 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
     const std::string result = verdict.seal->result.value("result", "");
     std::cerr << "loadtrim: " << folder << " is finished and sealed (" << result << "); nothing to resume\n";
     const std::optional<session::Outcome> o = session::outcome_from_string(result);
+    folder_lock.reset();  // log_missing_seal takes it again for its own verify and append
     if (verdict.cell_log_lacks_seal && !log_missing_seal(folder, verdict, req, vo)) return kRecordFailure;
     return o && session::is_final(*o) ? exit_code_for(*o) : static_cast<int>(kNotAccepted);
-  }
-  std::vector<nlohmann::json> records;
-  if (const record::VerifyResult v = record::read_log((fs::path(folder) / "events.jsonl").string(), &records);
-      !v.ok) {
-    std::cerr << "loadtrim: cannot resume " << folder << ": " << v.message << "\n";
-    return kRecordFailure;
   }
   const std::string in = (fs::path(folder) / "inputs").string();
   // The same inputs as the interrupted session: the copies in its folder (their hashes were just verified).
@@ -942,10 +946,7 @@ int resume_session(const std::string& folder, const RunRequest& overrides) {
               << "\n";
     return kRecordFailure;
   }
-  std::optional<record::FileLock> cell_lock, folder_lock;
-  std::string lock_msg;
-  if (!lock_folder(folder, "resume", folder_lock, lock_msg) ||
-      !lock_cell(l.inputs.cell, record::LockMode::exclusive, "resume", folder, cell_lock, lock_msg)) {
+  if (!lock_cell(l.inputs.cell, record::LockMode::exclusive, "resume", folder, cell_lock, lock_msg)) {
     std::cerr << "loadtrim: refusing to resume: " << lock_msg << "\n";
     return kBadInput;
   }

@@ -16,6 +16,7 @@
 #include <thread>
 
 #include "record/event_log.hpp"
+#include "record/inside.hpp"
 #include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
@@ -113,50 +114,99 @@ namespace {
 // How long an append waits for another writer of the same cell log (an append takes milliseconds; common
 // practice, no source).
 constexpr auto kCellLogLockWait = std::chrono::seconds(10);
+
+// The exclusive lock every writer of a cell log holds while it appends (docs/records.md, "The cell log"): a
+// flock(2) on the cell's directory, waited for at most kCellLogLockWait on the tool's own clock, released
+// when this object is destroyed (closing the descriptor). flock belongs to the open file description: a
+// holder in this process must not take it again (a second descriptor would wait for the first).
+class CellLogLock {
+ public:
+  CellLogLock() = default;
+  ~CellLogLock() {
+    if (fd_ >= 0) ::close(fd_);
+  }
+  CellLogLock(const CellLogLock&) = delete;
+  CellLogLock& operator=(const CellLogLock&) = delete;
+  // Makes the cell's directory when new (fsync'd into checks/) and takes the lock; false with error.
+  bool acquire(const std::string& dir, const std::string& log_path, std::string& error) {
+    std::string err;
+    if (!record::make_directories_durably(dir, err)) {
+      error = err;
+      return false;
+    }
+    fd_ = ::open(dir.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
+    if (fd_ < 0) {
+      error = "cannot open " + dir + " to lock the cell log: " + std::strerror(errno);
+      return false;
+    }
+    const auto give_up = std::chrono::steady_clock::now() + kCellLogLockWait;
+    while (::flock(fd_, LOCK_EX | LOCK_NB) != 0) {
+      if (errno != EWOULDBLOCK && errno != EINTR) {
+        error = "cannot lock the cell log " + log_path + ": " + std::strerror(errno);
+        return false;
+      }
+      if (std::chrono::steady_clock::now() >= give_up) {
+        error = "the cell log " + log_path + " stayed locked by another writer for " +
+                std::to_string(std::chrono::duration_cast<std::chrono::seconds>(kCellLogLockWait).count()) +
+                " s; nothing was appended";
+        return false;
+      }
+      std::this_thread::sleep_for(std::chrono::milliseconds(20));
+    }
+    return true;
+  }
+
+ private:
+  int fd_ = -1;
+};
+
+// Appends one record to the cell log; the caller holds its CellLogLock. repaired: a torn last line the open
+// cut ("" when none).
+bool append_locked(const std::string& log_path, const std::string& type, const nlohmann::json& payload,
+                   const std::string& utc, std::string& repaired, std::string& error) {
+  record::EventLog log(log_path);
+  // A torn last line (a write cut short by a crash) is cut when the log is opened: said, never silent.
+  if (!log.repaired().empty()) repaired = log_path + ": " + log.repaired();
+  if (!log.append(type, payload, utc)) {
+    error = log.error();
+    return false;
+  }
+  return true;
+}
+
+// The cell log's "seal" record of a sealed folder.
+nlohmann::json seal_payload(const record::SealInfo& s, const std::string& kind) {
+  return {{"kind", kind},          {"folder", s.folder}, {"origin", s.origin}, {"chain_head", s.chain_head},
+          {"seal", s.seal_sha256}, {"seal_seq", s.seq},  {"signer", s.signer}};
+}
+
+// The cell log's records as they are now (read under the caller's lock: what another writer appended since
+// a CellHistory was made included), up to the first bad one.
+std::vector<nlohmann::json> records_now(const std::string& log_path) {
+  std::vector<nlohmann::json> recs;
+  std::error_code ec;
+  if (fs::exists(log_path, ec)) (void)record::read_log(log_path, &recs);
+  return recs;
+}
+
+const nlohmann::json* seal_of_origin(const std::vector<nlohmann::json>& recs, const std::string& origin) {
+  const nlohmann::json* found = nullptr;
+  for (const auto& r : recs)
+    if (r.value("type", "") == "seal" && r.value("origin", "") == origin) found = &r;
+  return found;
+}
 }  // namespace
 
 bool CellHistory::append(const std::string& type, nlohmann::json payload, const std::string& utc) {
   if (!ok()) return false;
   repaired_.clear();
-  // The cell's directory, when new, is fsync'd into checks/ (and the log's name into it by EventLog).
-  std::string err;
-  if (!record::make_directories_durably(dir_, err)) {
-    error_ = err;
-    return false;
-  }
   // Every writer of the cell log (a session's seal, a dyno check, `check record`, `check maintenance`,
   // resume's repair: several processes) appends under an exclusive lock on the cell's directory, so two never
-  // append after the same record (docs/records.md). The wait is bounded on the tool's own clock.
-  const int dfd = ::open(dir_.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
-  if (dfd < 0) {
-    error_ = "cannot open " + dir_ + " to lock the cell log: " + std::strerror(errno);
-    return false;
-  }
-  struct Unlock {
-    int fd;
-    ~Unlock() { ::close(fd); }  // closing the descriptor releases its lock
-  } unlock{dfd};
-  const auto give_up = std::chrono::steady_clock::now() + kCellLogLockWait;
-  while (::flock(dfd, LOCK_EX | LOCK_NB) != 0) {
-    if (errno != EWOULDBLOCK && errno != EINTR) {
-      error_ = "cannot lock the cell log " + log_path_ + ": " + std::strerror(errno);
-      return false;
-    }
-    if (std::chrono::steady_clock::now() >= give_up) {
-      error_ = "the cell log " + log_path_ + " stayed locked by another writer for " +
-               std::to_string(std::chrono::duration_cast<std::chrono::seconds>(kCellLogLockWait).count()) +
-               " s; nothing was appended";
-      return false;
-    }
-    std::this_thread::sleep_for(std::chrono::milliseconds(20));
-  }
-  record::EventLog log(log_path_);
-  // A torn last line (a write cut short by a crash) is cut when the log is opened: said, never silent.
-  if (!log.repaired().empty()) repaired_ = log_path_ + ": " + log.repaired();
-  if (!log.append(type, payload, utc)) {
-    error_ = log.error();
-    return false;
-  }
+  // append after the same record (docs/records.md). The cell's directory, when new, is fsync'd into checks/
+  // (and the log's name into it by EventLog).
+  CellLogLock lock;
+  if (!lock.acquire(dir_, log_path_, error_)) return false;
+  if (!append_locked(log_path_, type, payload, utc, repaired_, error_)) return false;
   payload["type"] = type;
   payload["utc"] = utc;
   records_.push_back(std::move(payload));
@@ -164,15 +214,7 @@ bool CellHistory::append(const std::string& type, nlohmann::json payload, const 
 }
 
 bool CellHistory::append_seal(const record::SealInfo& s, const std::string& kind, const std::string& utc) {
-  return append("seal",
-                {{"kind", kind},
-                 {"folder", s.folder},
-                 {"origin", s.origin},
-                 {"chain_head", s.chain_head},
-                 {"seal", s.seal_sha256},
-                 {"seal_seq", s.seq},
-                 {"signer", s.signer}},
-                utc);
+  return append("seal", seal_payload(s, kind), utc);
 }
 
 bool seal_and_log(const std::string& folder, const record::SealRequest& request,
@@ -183,27 +225,38 @@ bool seal_and_log(const std::string& folder, const record::SealRequest& request,
   s = {};
   CellHistory h(checks_root, request.cell);
   // One seal per folder identity: a copy of an unfinished folder, finished on its own, is refused rather than
-  // sealed beside (and so breaking) the folder it was copied from.
+  // sealed beside (and so breaking) the folder it was copied from. The check, the seal and the cell-log
+  // append happen under one hold of the cell log's lock: a copy and its original finishing at the same moment
+  // cannot both find no seal and both log one (docs/records.md, "The cell log").
+  CellLogLock lock;
+  std::string lock_error;
+  const bool locked = lock.acquire(h.dir(), h.log_path(), lock_error);
+  if (!locked) {
+    error = "the folder " + folder + " was not sealed: " + lock_error;
+    return false;
+  }
   {
-    std::ifstream in((std::filesystem::path(folder) / "events.jsonl").string(), std::ios::binary);
-    std::string first;
-    if (std::getline(in, first)) {
-      const std::string origin = record::sha256_hex(first);
-      for (const auto& r : h.records())
-        if (r.value("type", "") == "seal" && r.value("origin", "") == origin) {
-          error = "the cell log already holds a seal for this folder's origin (record " +
-                  std::to_string(r.value("seq", 0)) + ", folder " + r.value("folder", "?") +
-                  "): this folder is a copy of one already finished; it is not sealed";
-          return false;
-        }
+    const record::InsideFile ev = record::read_inside(folder, "events.jsonl");
+    if (ev.status == record::InsideStatus::ok && !ev.content.empty()) {
+      const std::string origin = record::sha256_hex(ev.content.substr(0, ev.content.find('\n')));
+      const std::vector<nlohmann::json> logged = records_now(h.log_path());
+      if (const nlohmann::json* r = seal_of_origin(logged, origin)) {
+        error = "the cell log already holds a seal for this folder's origin (record " +
+                std::to_string(r->value("seq", 0)) + ", folder " + r->value("folder", "?") +
+                "): this folder is a copy of one already finished; it is not sealed";
+        return false;
+      }
     }
+    // A log that cannot be read (missing, too large) is refused by seal_folder below, naming it.
   }
   if (!record::seal_folder(folder, request, &s, error)) return false;
-  const bool logged = h.append_seal(s, kind, record::utc_now());
-  if (!h.repaired().empty()) s.notes.push_back(h.repaired());
+  std::string repaired, append_error = h.error();
+  const bool logged = h.ok() && append_locked(h.log_path(), "seal", seal_payload(s, kind), record::utc_now(),
+                                              repaired, append_error);
+  if (!repaired.empty()) s.notes.push_back(repaired);
   if (!logged) {
     error = "the folder " + s.folder + " is sealed, but the seal could not be added to the cell log " +
-            h.log_path() + ": " + h.error();
+            h.log_path() + ": " + append_error;
     return false;
   }
   return true;
@@ -231,6 +284,14 @@ bool log_sealed_folder(const std::string& checks_root, const std::string& folder
     return false;
   }
   if (logged_seal(h, v.origin)) return true;  // already there (verify compared it with the folder's seal)
+  // Looked for again under the lock, with the append in the same hold: another process adding the same seal
+  // (a resume of a copy of this folder) at the same moment never makes a second entry.
+  CellLogLock lock;
+  if (!lock.acquire(h.dir(), h.log_path(), error)) {
+    error = "the seal could not be added to the cell log " + h.log_path() + ": " + error;
+    return false;
+  }
+  if (seal_of_origin(records_now(h.log_path()), v.origin)) return true;
   record::SealInfo s;
   s.folder = fs::absolute(folder).lexically_normal().string();
   s.seq = v.seal->seq;
@@ -244,10 +305,11 @@ bool log_sealed_folder(const std::string& checks_root, const std::string& folder
       v.seal->result.is_object() && v.seal->result.contains("check") && v.seal->result["check"].is_string()
           ? v.seal->result["check"].get<std::string>()
           : std::string("session");
-  const bool ok = h.append_seal(s, kind, record::utc_now());
-  note = h.repaired();
+  std::string append_error;
+  const bool ok =
+      append_locked(h.log_path(), "seal", seal_payload(s, kind), record::utc_now(), note, append_error);
   if (!ok) {
-    error = "the seal could not be added to the cell log " + h.log_path() + ": " + h.error();
+    error = "the seal could not be added to the cell log " + h.log_path() + ": " + append_error;
     return false;
   }
   added = true;

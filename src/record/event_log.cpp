@@ -12,6 +12,7 @@
 #include <fstream>
 #include <sstream>
 
+#include "record/inside.hpp"
 #include "record/seal.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
@@ -107,16 +108,16 @@ VerifyResult parse_log(const std::string& text, std::vector<LogLine>* lines, boo
 }
 
 VerifyResult read_log(const std::string& path, std::vector<nlohmann::json>* records) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) {
+  // Read whole under the limit on a record file (record/inside.hpp, kMaxRecordFileBytes): a log of gigabytes
+  // is a finding naming it, never an allocation failure.
+  const InsideFile f = read_file_whole(path);
+  if (f.status != InsideStatus::ok) {
     VerifyResult v;
-    v.message = "cannot open " + path;
+    v.message = f.status == InsideStatus::missing ? "cannot open " + path : f.error;
     return v;
   }
-  std::ostringstream ss;
-  ss << in.rdbuf();
   std::vector<LogLine> lines;
-  VerifyResult v = parse_log(ss.str(), &lines);
+  VerifyResult v = parse_log(f.content, &lines);
   if (records)
     for (auto& l : lines) records->push_back(std::move(l.record));
   return v;

@@ -129,16 +129,42 @@ int open_inside(const std::string& folder, const std::string& rel, InsideStatus&
   return -1;
 }
 
-bool read_all(int fd, std::string& out, std::string& error, const std::string& rel) {
+std::string too_large_message(const std::string& name, std::uint64_t size, std::uint64_t max_bytes) {
+  return name + " is " + std::to_string(size) + " bytes, more than the " + std::to_string(max_bytes) +
+         " bytes a record file may have to be read whole (docs/records.md, \"Size limits\"); it was not read";
+}
+
+// Reads the whole of fd, refusing more than max_bytes (checked on the size before reading, and again while
+// reading: the file may grow).
+bool read_all(int fd, std::string& out, std::string& error, const std::string& rel, std::uint64_t max_bytes,
+              InsideStatus& status) {
+  struct stat st {};
+  if (::fstat(fd, &st) != 0) {
+    status = InsideStatus::io_error;
+    error = "cannot examine " + rel + ": " + std::strerror(errno);
+    return false;
+  }
+  if (st.st_size > 0 && static_cast<std::uint64_t>(st.st_size) > max_bytes) {
+    status = InsideStatus::too_large;
+    error = too_large_message(rel, static_cast<std::uint64_t>(st.st_size), max_bytes);
+    return false;
+  }
+  if (st.st_size > 0) out.reserve(static_cast<std::size_t>(st.st_size));
   char buf[65536];
   for (;;) {
     const ssize_t n = ::read(fd, buf, sizeof buf);
     if (n < 0 && errno == EINTR) continue;
     if (n < 0) {
+      status = InsideStatus::io_error;
       error = "cannot read " + rel + ": " + std::strerror(errno);
       return false;
     }
     if (n == 0) return true;
+    if (out.size() + static_cast<std::size_t>(n) > max_bytes) {
+      status = InsideStatus::too_large;
+      error = too_large_message(rel, out.size() + static_cast<std::size_t>(n), max_bytes);
+      return false;
+    }
     out.append(buf, static_cast<std::size_t>(n));
   }
 }
@@ -220,25 +246,60 @@ bool is_safe_relative_path(const std::string& rel, std::string* why) {
   return true;
 }
 
-InsideFile read_inside(const std::string& folder, const std::string& rel) {
+InsideFile read_inside(const std::string& folder, const std::string& rel, std::uint64_t max_bytes) {
   InsideFile f;
   Fd fd(open_inside(folder, rel, f.status, f.error));
   if (fd.fd < 0) return f;
-  if (!read_all(fd.fd, f.content, f.error, rel)) {
-    f.status = InsideStatus::io_error;
+  if (!read_all(fd.fd, f.content, f.error, rel, max_bytes, f.status)) {
     f.content.clear();
+    f.content.shrink_to_fit();
+  }
+  return f;
+}
+
+InsideFile read_file_whole(const std::string& path, std::uint64_t max_bytes) {
+  InsideFile f;
+  Fd fd(::open(path.c_str(), O_RDONLY | O_NONBLOCK | O_NOCTTY | O_CLOEXEC));
+  if (fd.fd < 0) {
+    f.status = errno == ENOENT ? InsideStatus::missing : InsideStatus::io_error;
+    f.error = "cannot open " + path + ": " + std::strerror(errno);
+    return f;
+  }
+  struct stat st {};
+  if (::fstat(fd.fd, &st) != 0 || !S_ISREG(st.st_mode)) {
+    f.status = InsideStatus::unsafe;
+    f.error = path + " is not a regular file";
+    return f;
+  }
+  f.status = InsideStatus::ok;
+  if (!read_all(fd.fd, f.content, f.error, path, max_bytes, f.status)) {
+    f.content.clear();
+    f.content.shrink_to_fit();
   }
   return f;
 }
 
 InsideHash hash_inside(const std::string& folder, const std::string& rel) {
   InsideHash h;
-  InsideFile f = read_inside(folder, rel);
-  h.status = f.status;
-  h.error = f.error;
-  if (f.status != InsideStatus::ok) return h;
-  h.bytes = f.content.size();
-  h.sha256 = sha256_hex(f.content);
+  Fd fd(open_inside(folder, rel, h.status, h.error));
+  if (fd.fd < 0) return h;
+  // Streamed: a file of any size is hashed in constant memory (a damaged trace of gigabytes is read through,
+  // never held).
+  Sha256 sha;
+  std::vector<char> buf(kHashChunkBytes);
+  for (;;) {
+    const ssize_t n = ::read(fd.fd, buf.data(), buf.size());
+    if (n < 0 && errno == EINTR) continue;
+    if (n < 0) {
+      h.status = InsideStatus::io_error;
+      h.error = "cannot read " + rel + ": " + std::strerror(errno);
+      return h;
+    }
+    if (n == 0) break;
+    sha.update(buf.data(), static_cast<std::size_t>(n));
+    h.bytes += static_cast<std::uint64_t>(n);
+  }
+  h.sha256 = sha.hex();
   return h;
 }
 

@@ -6,23 +6,37 @@
 // lstat-style check, before any open(2) (opening a FIFO could block, or be noticed by whoever holds its other
 // end).
 //
+// A file read whole into memory (read_inside, read_file_whole) is refused above kMaxRecordFileBytes, before
+// anything is read: a damaged or planted file of gigabytes is a finding naming the file and the limit, never
+// an allocation failure. Hashing (hash_inside) streams the file in chunks (record/sha256.hpp) and has no
+// limit.
+//
 // Never throws; every failure is a status with a sentence naming the path.
 #pragma once
 
+#include <cstddef>
 #include <cstdint>
 #include <string>
 #include <vector>
 
 namespace loadtrim::record {
 
+// The largest file of a record folder (or log) read whole into memory: events.jsonl, summary.json,
+// result.json, a trace read back for the report, the inputs, the cell log. A session writes a trace of at
+// most a few MB per coast-down (1 kHz, the highest controller.sample_rate_hz, is about 50 bytes a sample; a
+// 10-minute coast-down at 1 kHz would be 30 MB) and a log of a few MB at most (100 coast-downs, the highest
+// limits.max_coastdowns); 256 MiB is about eight times the largest of them (common practice, no source).
+inline constexpr std::uint64_t kMaxRecordFileBytes = std::uint64_t{256} << 20;
+
 // Whether `rel` may name a file inside a folder; when not, `why` says which rule it breaks.
 bool is_safe_relative_path(const std::string& rel, std::string* why = nullptr);
 
 enum class InsideStatus {
   ok,
-  missing,  // no such file (or a directory on the way is missing)
-  unsafe,   // refused without opening: unsafe path, a symbolic link, or not a regular file
-  io_error  // the folder or the file could not be read
+  missing,   // no such file (or a directory on the way is missing)
+  unsafe,    // refused without opening: unsafe path, a symbolic link, or not a regular file
+  io_error,  // the folder or the file could not be read
+  too_large  // larger than the limit on a file read whole (kMaxRecordFileBytes unless told); nothing read
 };
 
 struct InsideFile {
@@ -31,8 +45,14 @@ struct InsideFile {
   std::string content;
 };
 
-// Reads folder/rel under the rules above.
-InsideFile read_inside(const std::string& folder, const std::string& rel);
+// Reads folder/rel under the rules above; a file larger than max_bytes is too_large, its error naming the
+// file, its size and the limit.
+InsideFile read_inside(const std::string& folder, const std::string& rel,
+                       std::uint64_t max_bytes = kMaxRecordFileBytes);
+// Reads the regular file at `path` (a log outside any folder rules: the cell log; links are followed as
+// open(2) follows them) whole, under the same limit; status missing, io_error or too_large with a sentence
+// naming the path otherwise.
+InsideFile read_file_whole(const std::string& path, std::uint64_t max_bytes = kMaxRecordFileBytes);
 
 struct InsideHash {
   InsideStatus status = InsideStatus::io_error;
@@ -40,6 +60,7 @@ struct InsideHash {
   std::string sha256;  // lower-case hex
   std::uint64_t bytes = 0;
 };
+// SHA-256 of folder/rel, read in chunks of kHashChunkBytes: any size, constant memory.
 InsideHash hash_inside(const std::string& folder, const std::string& rel);
 // fsync(2) of folder/rel (opened under the rules above), so that what a seal hashes is what a power loss
 // leaves. ok, or a status with a sentence naming the file.

@@ -103,13 +103,10 @@ bool read_fd(int fd, std::string& out) {
   }
 }
 
-void fsync_dir(const std::string& path) {
+// fsync(2) of the directory holding `path`, so that a name made in it survives a power loss.
+bool fsync_dir(const std::string& path, std::string& error) {
   const std::string dir = fs::path(path).parent_path().empty() ? "." : fs::path(path).parent_path().string();
-  const int dfd = ::open(dir.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
-  if (dfd >= 0) {
-    ::fsync(dfd);
-    ::close(dfd);
-  }
+  return sync_directory(dir, error);
 }
 
 // Writes a new file that must not exist yet: a temporary file made with O_EXCL and `mode` from its first
@@ -156,7 +153,12 @@ bool write_new_file(const std::string& path, const std::string& content, mode_t 
     return false;
   }
   ::unlink(tmp.c_str());
-  fsync_dir(path);
+  if (std::string derr; !fsync_dir(path, derr)) {
+    // Not durable: a power loss could take the key back. Nothing is left behind (the key is of no use then).
+    error = "cannot make " + path + " durable: " + derr;
+    ::unlink(path.c_str());
+    return false;
+  }
   return true;
 }
 
@@ -398,7 +400,8 @@ bool create_key_pair(const std::string& private_path, const std::string& public_
   if (!wrote_priv) return false;
   if (!write_new_file(public_path, pub, 0644, error)) {
     ::unlink(private_path.c_str());  // a private key without its public half is of no use and must not linger
-    fsync_dir(private_path);
+    std::string ignored;             // the error already says why; the unlink is best effort
+    (void)fsync_dir(private_path, ignored);
     return false;
   }
   if (out) *out = {private_path, public_path, fp};
@@ -485,9 +488,13 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
     std::vector<std::string> notes;
     if (!log.repaired().empty()) notes.push_back(folder + "/events.jsonl: " + log.repaired());
     const InsideFile events = read_inside(folder, "events.jsonl");
+    if (events.status != InsideStatus::ok) {
+      error = "refusing to seal " + folder + ": " + events.error;
+      return false;
+    }
     std::vector<LogLine> lines;
-    if (events.status != InsideStatus::ok || !parse_log(events.content, &lines).ok || lines.empty() ||
-        lines.size() != log.records() || lines.back().sha256 != log.last_hash()) {
+    if (!parse_log(events.content, &lines).ok || lines.empty() || lines.size() != log.records() ||
+        lines.back().sha256 != log.last_hash()) {
       error = "refusing to seal " + folder + ": its log is empty or changed while it was being sealed";
       return false;
     }
@@ -537,7 +544,11 @@ bool seal_folder(const std::string& folder_in, const SealRequest& req, SealInfo*
     }
     // A folder whose own cell file names the cell's key is sealed with that key or not at all (verify would
     // refuse anything else).
-    if (const InsideFile cf = read_inside(folder, "inputs/cell.toml"); cf.status == InsideStatus::ok) {
+    if (const InsideFile cf = read_inside(folder, "inputs/cell.toml"); cf.status != InsideStatus::missing) {
+      if (cf.status != InsideStatus::ok) {
+        error = "refusing to seal " + folder + ": " + cf.error;
+        return false;
+      }
       std::string terr;
       const auto named = toml_string_value(cf.content, "records", "public_key", &terr);
       if (named && named->rfind("sha256:", 0) == 0 && (!req.key || req.key->fingerprint() != *named)) {

@@ -14,6 +14,7 @@
 #include <sstream>
 #include <stdexcept>
 
+#include "record/inside.hpp"
 #include "record/sha256.hpp"
 
 namespace loadtrim::record {
@@ -146,10 +147,12 @@ bool write_durable(const std::string& path, const std::string& content, std::str
   if (::fsync(fd) != 0) return fail("cannot sync " + tmp, true);
   if (::close(fd) != 0) return fail("cannot close " + tmp, false);
   if (::rename(tmp.c_str(), path.c_str()) != 0) return fail("cannot rename " + tmp, false);
-  const int dfd = ::open(fs::path(path).parent_path().c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
-  if (dfd >= 0) {
-    ::fsync(dfd);
-    ::close(dfd);
+  // The new name is durable only once its directory is synced: a failure here is a failure of the write (the
+  // file holds the new content, but a power loss could still bring back the old one or none).
+  std::string derr;
+  if (!sync_directory(fs::path(path).parent_path().string(), derr)) {
+    error = path + " was written, but it is not durable: " + derr;
+    return false;
   }
   return true;
 }
@@ -181,14 +184,12 @@ std::string trace_csv(const std::vector<controller::Sample>& samples) {
 
 bool read_trace_csv(const std::string& path, std::vector<double>& t, std::vector<double>& v,
                     std::string& error) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) {
-    error = "cannot open " + path;
+  const InsideFile f = read_file_whole(path);  // under kMaxRecordFileBytes
+  if (f.status != InsideStatus::ok) {
+    error = f.status == InsideStatus::missing ? "cannot open " + path : f.error;
     return false;
   }
-  std::ostringstream ss;
-  ss << in.rdbuf();
-  return parse_trace_csv(ss.str(), path, t, v, error);
+  return parse_trace_csv(f.content, path, t, v, error);
 }
 
 bool parse_trace_csv(const std::string& text, const std::string& name, std::vector<double>& t,

@@ -35,7 +35,9 @@ bool sync_directory(const std::string& dir, std::string& error);
 bool make_directories_durably(const std::string& dir, std::string& error);
 
 // Writes content to path durably: a temporary file, fsync, rename over the target, fsync of the directory. On
-// failure the temporary file is removed and the target is left as it was.
+// a failure before the rename the temporary file is removed and the target is left as it was. When only the
+// directory's fsync fails, the target already holds the new content, but false is returned with an error
+// naming the directory: the write is not durable and must not be relied on.
 bool write_durable(const std::string& path, const std::string& content, std::string& error);
 
 // Copies an input file into folder/inputs/<name>; returns {"path", "sha256", "source"}.

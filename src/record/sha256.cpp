@@ -5,14 +5,11 @@
 #include <fstream>
 #include <memory>
 #include <stdexcept>
+#include <vector>
 
 namespace loadtrim::record {
 
 namespace {
-struct Ctx {
-  EVP_MD_CTX* p = EVP_MD_CTX_new();
-  ~Ctx() { EVP_MD_CTX_free(p); }
-};
 std::string hex(const unsigned char* d, unsigned n) {
   static const char* k = "0123456789abcdef";
   std::string s;
@@ -24,31 +21,46 @@ std::string hex(const unsigned char* d, unsigned n) {
 }
 }  // namespace
 
-std::string sha256_hex(std::string_view data) {
-  Ctx c;
+struct Sha256::Impl {
+  EVP_MD_CTX* p = EVP_MD_CTX_new();
+  ~Impl() { EVP_MD_CTX_free(p); }
+};
+
+Sha256::Sha256() : impl_(std::make_unique<Impl>()) {
+  if (!impl_->p || EVP_DigestInit_ex(impl_->p, EVP_sha256(), nullptr) != 1)
+    throw std::runtime_error("SHA-256 failed (OpenSSL)");
+}
+
+Sha256::~Sha256() = default;
+
+void Sha256::update(const void* data, std::size_t n) {
+  if (n > 0 && EVP_DigestUpdate(impl_->p, data, n) != 1) throw std::runtime_error("SHA-256 failed (OpenSSL)");
+}
+
+std::string Sha256::hex() {
   unsigned char md[EVP_MAX_MD_SIZE];
   unsigned n = 0;
-  if (!c.p || EVP_DigestInit_ex(c.p, EVP_sha256(), nullptr) != 1 ||
-      EVP_DigestUpdate(c.p, data.data(), data.size()) != 1 || EVP_DigestFinal_ex(c.p, md, &n) != 1)
-    throw std::runtime_error("SHA-256 failed (OpenSSL)");
-  return hex(md, n);
+  if (EVP_DigestFinal_ex(impl_->p, md, &n) != 1) throw std::runtime_error("SHA-256 failed (OpenSSL)");
+  return record::hex(md, n);
+}
+
+std::string sha256_hex(std::string_view data) {
+  Sha256 h;
+  h.update(data.data(), data.size());
+  return h.hex();
 }
 
 std::string sha256_file(const std::string& path) {
   std::ifstream in(path, std::ios::binary);
   if (!in) return "";
-  Ctx c;
-  if (!c.p || EVP_DigestInit_ex(c.p, EVP_sha256(), nullptr) != 1)
-    throw std::runtime_error("SHA-256 failed (OpenSSL)");
-  char buf[65536];
+  Sha256 h;
+  std::vector<char> buf(kHashChunkBytes);
   while (in) {
-    in.read(buf, sizeof buf);
-    if (in.gcount() > 0) EVP_DigestUpdate(c.p, buf, static_cast<std::size_t>(in.gcount()));
+    in.read(buf.data(), static_cast<std::streamsize>(buf.size()));
+    if (in.gcount() > 0) h.update(buf.data(), static_cast<std::size_t>(in.gcount()));
   }
-  unsigned char md[EVP_MAX_MD_SIZE];
-  unsigned n = 0;
-  EVP_DigestFinal_ex(c.p, md, &n);
-  return hex(md, n);
+  if (in.bad()) return "";
+  return h.hex();
 }
 
 }  // namespace loadtrim::record

@@ -7,6 +7,7 @@
 
 #include "core/envelope.hpp"
 #include "record/event_log.hpp"
+#include "record/inside.hpp"
 #include "record/road_load_json.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
@@ -16,6 +17,11 @@ namespace loadtrim::record {
 namespace fs = std::filesystem;
 
 namespace {
+
+// A history entry is under 2 kB, and under 20 kB with the most warm-up windows a 4-hour warm-up
+// (warm_up.duration_s's highest) records; a file larger than 1 MiB is not one and is not read (common
+// practice, no source).
+constexpr std::uint64_t kMaxVehicleHistoryBytes = std::uint64_t{1} << 20;
 
 // The file named `name` in the cell's folder under the history folder `dir`.
 std::string in_cell_folder(const std::string& dir, const std::string& cell_name, const std::string& name) {
@@ -43,14 +49,17 @@ std::string vehicle_history_file_to_read(const std::string& dir, const std::stri
 
 std::optional<core::HistoryEntry> load_vehicle_history(const std::string& file, std::string* error,
                                                        const std::string& vehicle_id) {
-  std::ifstream in(file);
-  if (!in) return std::nullopt;
+  std::error_code ec;
+  if (!fs::exists(file, ec)) return std::nullopt;
   auto refuse = [&](const std::string& why) -> std::optional<core::HistoryEntry> {
     if (error) *error = why;
     return std::nullopt;
   };
+  const InsideFile f = read_file_whole(file, kMaxVehicleHistoryBytes);
+  if (f.status == InsideStatus::missing) return std::nullopt;
+  if (f.status != InsideStatus::ok) return refuse(f.error);
   try {
-    const auto j = nlohmann::json::parse(in);
+    const auto j = nlohmann::json::parse(f.content);
     core::HistoryEntry h;
     h.utc = j.at("utc").get<std::string>();
     if (!vehicle_id.empty()) {
@@ -88,8 +97,12 @@ bool save_vehicle_history(const std::string& file, const std::string& vehicle_id
                           const core::RoadLoad& target, const core::RoadLoad& final_set, std::string& error,
                           const std::optional<core::RoadLoad>& measured,
                           const std::optional<core::WarmUpRecord>& warm_up) {
-  std::error_code ec;
-  fs::create_directories(fs::path(file).parent_path(), ec);
+  // The history folder and the cell's folder in it, when new, are fsync'd into their parents: the entry's
+  // own durable write would otherwise sit in a directory a power loss could lose.
+  if (std::string err; !make_directories_durably(fs::path(file).parent_path().string(), err)) {
+    error = "cannot make the history folder for " + file + ": " + err;
+    return false;
+  }
   nlohmann::json j = {{"utc", utc_now()},
                       {"vehicle", vehicle_id},
                       {"session", session},

@@ -212,6 +212,11 @@ CellLogEntry find_in_cell_log(const std::string& checks_root, const std::string&
 }  // namespace
 
 FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt) {
+  return verify_folder(folder, opt, nullptr);
+}
+
+FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt,
+                            std::vector<nlohmann::json>* records) {
   FolderVerdict v;
   auto broken = [&v](const std::string& msg, std::int64_t rec = -1, const std::string& file = "") {
     v.outcome = Outcome::broken;
@@ -232,6 +237,10 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
     bool torn = false;
     std::vector<LogLine> lines;
     const VerifyResult chain = parse_log(ev.content, &lines, &torn);
+    if (records) {
+      records->clear();
+      for (const auto& l : lines) records->push_back(l.record);
+    }
     v.records = chain.records;
     v.notes = chain.notes;
     if (!chain.ok) return broken(chain.message, chain.first_bad_record, "events.jsonl");
@@ -455,6 +464,7 @@ FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& opt)
     // The session's own cell file (sealed, so as it was at the start) may name the cell's key.
     if (covered.count("inputs/cell.toml")) {
       const InsideFile cf = read_inside(folder, "inputs/cell.toml");
+      if (cf.status != InsideStatus::ok) return broken(cf.error, seal_at, "inputs/cell.toml");
       std::string terr;
       const auto named = cf.status == InsideStatus::ok
                              ? toml_string_value(cf.content, "records", "public_key", &terr)

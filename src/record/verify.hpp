@@ -107,6 +107,11 @@ struct FolderVerdict {
 };
 
 FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& options = {});
+// The same, handing back the records of events.jsonl as this one reading parsed them (up to the first bad
+// one; a torn last line left out), so that a caller (resume) reads the log once: what it acts on is what was
+// verified.
+FolderVerdict verify_folder(const std::string& folder, const VerifyOptions& options,
+                            std::vector<nlohmann::json>* records);
 
 // Whether a result to be sealed agrees with the folder's summary: summary.json, else result.json, when
 // present, must hold every member of `result` with an equal value. "" when it agrees (or there is no

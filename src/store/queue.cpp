@@ -12,6 +12,7 @@
 #include <nlohmann/json.hpp>
 #include <sstream>
 
+#include "record/inside.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
 #include "store/index.hpp"
@@ -45,12 +46,14 @@ std::string entry_name(const std::string& folder) {
   return n + "-" + record::sha256_hex(folder).substr(0, 16) + ".json";
 }
 
-// The queue folder, made when missing; false with a sentence when it cannot be.
+// The queue folder, made when missing (with any missing parent), each new directory fsync'd into its parent
+// (record::make_directories_durably), so an entry confirmed in it is not lost with the folder's name on a
+// power loss; false with a sentence when it cannot be.
 bool make_queue_dir(const fs::path& dir, std::string& error) {
-  std::error_code ec;
-  fs::create_directories(dir, ec);
-  if (ec) error = dir.string() + ": " + ec.message();
-  return !ec;
+  std::string err;
+  if (record::make_directories_durably(dir.string(), err)) return true;
+  error = dir.string() + ": " + err;
+  return false;
 }
 
 // A start or end-without-seal entry of the same folder: the same name with its own suffix, so that it never
@@ -78,10 +81,13 @@ Entry read_entry(const std::string& file) {
     e.error = file + ": " + std::to_string(size) + " bytes, more than a queue entry can be";
     return e;
   }
-  std::ifstream in(file, std::ios::binary);
-  std::stringstream ss;
-  ss << in.rdbuf();
-  const auto j = nlohmann::json::parse(ss.str(), nullptr, false);
+  // Read under the same limit (the file may have grown since its size was taken).
+  const record::InsideFile f = record::read_file_whole(file, kMaxEntryBytes);
+  if (f.status != record::InsideStatus::ok) {
+    e.error = f.error;
+    return e;
+  }
+  const auto j = nlohmann::json::parse(f.content, nullptr, false);
   if (!j.is_object() || !j.contains("folder") || !j["folder"].is_string() || !j.contains("what") ||
       !j["what"].is_string()) {
     e.error = file + ": not a queue entry (a JSON object with the strings \"folder\" and \"what\")";
@@ -125,7 +131,8 @@ Entry read_entry(const std::string& file) {
 void set_aside(const std::string& data_root, const Entry& e, DrainResult& out, const std::string& why) {
   const fs::path dir = fs::path(queue_dir(data_root)) / "refused";
   std::error_code ec;
-  fs::create_directories(dir, ec);
+  std::string mkerr;
+  if (!make_queue_dir(dir, mkerr)) out.messages.push_back("cannot make " + dir.string() + ": " + mkerr);
   const std::string stem = fs::path(e.file).stem().string();
   std::string stamp = record::utc_now();
   for (char& c : stamp)
@@ -204,8 +211,8 @@ DrainResult drain_queue(const std::string& data_root, const StoreOpener& open,
   DrainResult out;
   // One drainer at a time per data root (several sessions may end together): a lock file in the queue folder,
   // waited for until the deadline (flock(2); released when this process closes it or exits).
-  std::error_code mk;
-  fs::create_directories(queue_dir(data_root), mk);
+  std::string mkerr;
+  if (!make_queue_dir(queue_dir(data_root), mkerr)) out.messages.push_back("cannot make the queue: " + mkerr);
   const std::string lock_path = (fs::path(queue_dir(data_root)) / ".drain.lock").string();
   const int lock_fd = ::open(lock_path.c_str(), O_RDWR | O_CREAT | O_NOFOLLOW | O_CLOEXEC, 0644);
   struct Unlock {

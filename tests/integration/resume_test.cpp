@@ -5,6 +5,7 @@
 // resume as to a new run. Against the simulated controller on loopback; the session-level rules checked are
 // the project's own (docs/records.md).
 #include <gtest/gtest.h>
+#include <unistd.h>
 
 #include <algorithm>
 #include <csignal>
@@ -16,6 +17,8 @@
 
 #include "process/child_process.hpp"
 #include "record/event_log.hpp"
+#include "record/inside.hpp"
+#include "record/lock.hpp"
 #include "record/sha256.hpp"
 #include "record/verify.hpp"
 #include "support/sim_process.hpp"
@@ -511,6 +514,44 @@ TEST(Resume, AMissingFieldALinkOrADamagedCellLogIsRefusedBeforeAnythingMoves) {
   EXPECT_EQ(process::run_command(args, &out, &err), 5) << err;
   EXPECT_NE(err.find("cell-log.jsonl is damaged"), std::string::npos) << err;
   EXPECT_FALSE(fs::exists(dir + "/s2")) << "a folder was made for a session that could not be sealed";
+  if (!HasFailure()) fs::remove_all(dir);
+}
+
+// A log too large to be read whole (a sparse events.jsonl past record::kMaxRecordFileBytes, as a damaged disk
+// or a planted file could leave) is a record failure naming the file and the limit (exit 5), never an
+// allocation failure (exit 70), and nothing is written to it. The log is read only under the folder's lock:
+// with the lock held by another process, resume is refused as busy (exit 2) before it reads the folder
+// (docs/records.md, "Size limits" and "When folders are sealed, and resume").
+TEST(Resume, ALogTooLargeToReadIsARecordFailureAndIsReadOnlyUnderTheFolderLock) {
+  loadtrim::testing::SimProcess sim({"--time-scale", "200", "--watchdog-ms", "1000"});
+  const std::string dir = temp_dir(), lab = dir + "/lab";
+  const std::string base = killed_in_coastdown(sim, dir, lab);
+  ASSERT_FALSE(base.empty());
+  const std::string log = base + "/events.jsonl";
+  const auto intact = fs::file_size(log);
+  std::string err;
+  {
+    // A line that breaks the chain: read before the lock, it would refuse the folder as broken (exit 5).
+    std::ofstream(log, std::ios::app) << "{\"junk\":1}\n";
+    // The lock file `loadtrim` takes for this folder (app/cell_locks.cpp, lock_folder).
+    const std::string lock_path =
+        (fs::path(record::lock_dir()) /
+         ("folder-" + record::sha256_hex(fs::weakly_canonical(base).string()).substr(0, 32) + ".lock"))
+            .string();
+    std::string busy;
+    const auto held = record::FileLock::try_acquire(lock_path, record::LockMode::exclusive,
+                                                    {::getpid(), "resume", base, "", ""}, "folder", busy);
+    ASSERT_TRUE(held) << busy;
+    EXPECT_EQ(resume(base, lab, err), 2) << err;
+    EXPECT_NE(err.find("busy"), std::string::npos) << err;
+  }
+  fs::resize_file(log, intact);
+  const auto size = record::kMaxRecordFileBytes + 1;
+  ASSERT_EQ(::truncate(log.c_str(), static_cast<off_t>(size)), 0);
+  EXPECT_EQ(resume(base, lab, err), 5) << err;
+  EXPECT_NE(err.find("events.jsonl"), std::string::npos) << err;
+  EXPECT_NE(err.find(std::to_string(record::kMaxRecordFileBytes)), std::string::npos) << err;
+  EXPECT_EQ(fs::file_size(log), size) << "the log was written to";
   if (!HasFailure()) fs::remove_all(dir);
 }
 

@@ -13,11 +13,14 @@
 #include <unistd.h>
 
 #include <algorithm>
+#include <atomic>
+#include <cerrno>
 #include <climits>
 #include <filesystem>
 #include <fstream>
 #include <mutex>
 #include <string>
+#include <thread>
 #include <vector>
 
 #include "checks/cell_history.hpp"
@@ -26,22 +29,31 @@
 #include "record/seal.hpp"
 #include "record/session_folder.hpp"
 #include "record/sha256.hpp"
+#include "record/vehicle_history.hpp"
 #include "record/verify.hpp"
+#include "store/queue.hpp"
 
 namespace {
 std::mutex g_mu;
 bool g_listening = false;
 std::vector<std::string> g_synced;  // the paths fsync'd while listening, in order
+std::string g_fail;                 // while set: an fsync of this path fails with EIO (nothing synced)
 }  // namespace
 
 extern "C" int fsync(int fd) {
   {
     const std::lock_guard<std::mutex> lock(g_mu);
-    if (g_listening) {
+    if (g_listening || !g_fail.empty()) {
       char buf[PATH_MAX];
       const std::string link = "/proc/self/fd/" + std::to_string(fd);
       const ssize_t n = ::readlink(link.c_str(), buf, sizeof buf - 1);
-      g_synced.push_back(n > 0 ? std::string(buf, static_cast<std::size_t>(n)) : "fd " + std::to_string(fd));
+      const std::string path =
+          n > 0 ? std::string(buf, static_cast<std::size_t>(n)) : "fd " + std::to_string(fd);
+      if (g_listening) g_synced.push_back(path);
+      if (!g_fail.empty() && path == g_fail) {
+        errno = EIO;
+        return -1;
+      }
     }
   }
   return static_cast<int>(::syscall(SYS_fsync, fd));
@@ -84,6 +96,20 @@ struct SyncLog {
     for (const auto& p : synced()) out += "  " + p + "\n";
     return out;
   }
+};
+
+// Makes every fsync of `path` fail with EIO for its lifetime.
+struct FailSync {
+  explicit FailSync(const std::string& path) {
+    const std::lock_guard<std::mutex> lock(g_mu);
+    g_fail = path;
+  }
+  ~FailSync() {
+    const std::lock_guard<std::mutex> lock(g_mu);
+    g_fail.clear();
+  }
+  FailSync(const FailSync&) = delete;
+  FailSync& operator=(const FailSync&) = delete;
 };
 
 // A scratch directory, by its canonical path (what /proc/self/fd shows), removed with everything in it when
@@ -337,4 +363,86 @@ TEST(Durability, ATornCellLogLineCutByAnAppendIsReported) {
   std::vector<json> recs;
   EXPECT_TRUE(record::read_log(checks::CellHistory(t + "/checks", "unit cell").log_path(), &recs).ok);
   EXPECT_EQ(recs.size(), 3u);
+}
+
+// record/session_folder.hpp, docs/records.md "The chain": write_durable's last step, the fsync of the
+// directory that holds the new name, is part of the write: when it fails, write_durable reports failure with
+// an error naming the directory (the content is in place but not durable), never success.
+TEST(Durability, WriteDurableReportsAFailedSyncOfItsDirectory) {
+  const Scratch scratch("dur-dir-fail");
+  const std::string& t = scratch.path;
+  fs::create_directories(t + "/sub");
+  std::string err;
+  {
+    const FailSync fail(t + "/sub");
+    EXPECT_FALSE(record::write_durable(t + "/sub/summary.json", "{}\n", err));
+  }
+  EXPECT_NE(err.find(t + "/sub"), std::string::npos) << err;
+  EXPECT_NE(err.find("not durable"), std::string::npos) << err;
+  EXPECT_FALSE(fs::exists(t + "/sub/summary.json.tmp"));
+  err.clear();
+  EXPECT_TRUE(record::write_durable(t + "/sub/summary.json", "{}\n", err)) << err;
+}
+
+// docs/records.md, "The vehicle history": a new history folder and the cell's folder in it are synced into
+// their parents before the entry is written (the entry's own write syncs only the cell's folder).
+TEST(Durability, ANewVehicleHistoryFolderIsSyncedIntoItsParents) {
+  const Scratch scratch("dur-history");
+  const std::string& t = scratch.path;
+  const std::string file = record::vehicle_history_file(t + "/history", "unit cell", "vehicle 1");
+  SyncLog s;
+  std::string err;
+  const core::RoadLoad set{100.0, 0.5, 0.03};
+  ASSERT_TRUE(record::save_vehicle_history(file, "vehicle 1", "session", set, set, err)) << err;
+  EXPECT_GE(s.first(t), 0) << "history/ made: its name synced into " << t << "\n" << s.all();
+  EXPECT_GE(s.first(t + "/history"), 0) << "the cell's folder synced into history/\n" << s.all();
+  EXPECT_LT(s.first(t + "/history"), s.first(file + ".tmp")) << "before the entry is written\n" << s.all();
+}
+
+// docs/store.md / docs/records.md "The data root": the store queue's folder, made on the first entry, is
+// synced into the data root before the entry is confirmed.
+TEST(Durability, TheStoreQueueFolderIsSyncedWhenMade) {
+  const Scratch scratch("dur-queue");
+  const std::string& t = scratch.path;
+  SyncLog s;
+  std::string err;
+  ASSERT_TRUE(store::enqueue(t + "/root", t + "/root/sessions/one", "session", err)) << err;
+  EXPECT_GE(s.first(t), 0) << "root/ made: synced into " << t << "\n" << s.all();
+  EXPECT_GE(s.first(t + "/root"), 0) << "queue/ made: synced into the root\n" << s.all();
+}
+
+// checks/cell_history.hpp, docs/records.md "The cell log": the look for an earlier seal of the same origin,
+// the seal and the cell-log append happen under one hold of the cell log's lock. Two copies of one unfinished
+// folder finished at the same moment: exactly one is sealed and logged, the other refused, and the cell log
+// holds one seal for the origin. (Without the one hold, both found no seal and both logged one.)
+TEST(CellLogSeal, ACopyAndItsOriginalSealedAtOnceLogOneSeal) {
+  for (int round = 0; round < 3; ++round) {
+    const Scratch scratch("dur-dup-" + std::to_string(round));
+    const std::string& t = scratch.path;
+    const std::string original = make_folder(t);
+    const std::string copy = t + "/copy";
+    fs::copy(original, copy, fs::copy_options::recursive);
+    std::atomic<int> ready{0};
+    bool ok[2] = {false, false};
+    std::string err[2];
+    auto finish = [&](int i, const std::string& f) {
+      ++ready;
+      while (ready.load() < 2) std::this_thread::yield();
+      record::SealInfo info;
+      ok[i] = checks::seal_and_log(f, {"unit cell", {{"result", "accepted"}}, nullptr, ""}, t + "/checks",
+                                   "session", &info, err[i]);
+    };
+    std::thread a(finish, 0, original), b(finish, 1, copy);
+    a.join();
+    b.join();
+    EXPECT_NE(ok[0], ok[1]) << "round " << round << ": " << err[0] << " / " << err[1];
+    const std::string& refused = ok[0] ? err[1] : err[0];
+    EXPECT_NE(refused.find("already holds a seal for this folder's origin"), std::string::npos) << refused;
+    std::vector<json> recs;
+    ASSERT_TRUE(record::read_log(checks::CellHistory(t + "/checks", "unit cell").log_path(), &recs).ok);
+    EXPECT_EQ(
+        std::count_if(recs.begin(), recs.end(), [](const json& r) { return r.value("type", "") == "seal"; }),
+        1)
+        << "round " << round;
+  }
 }

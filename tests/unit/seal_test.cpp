@@ -10,6 +10,7 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <filesystem>
 #include <fstream>
 
@@ -522,4 +523,107 @@ TEST(Seal, KeyStemsOfDifferentNamesNeverCollide) {
   // hashlib.sha256(b"a(b)c").hexdigest()[:8], computed outside the project.
   EXPECT_EQ(record::identity_name("abc"), "abc");
   EXPECT_EQ(record::identity_name("a(b)c"), "a_b_c-456e6469");
+}
+
+// record/inside.hpp, docs/records.md "Size limits": hashing streams the file in kHashChunkBytes pieces; a
+// file larger than one piece (and not a multiple of it) hashes to what the one-shot hash of its content
+// gives, as do the incremental hash fed in uneven pieces and sha256_file.
+TEST(Inside, HashingAFileLargerThanTheReadBufferEqualsTheOneShotHash) {
+  const std::string dir = temp_dir("hash-stream");
+  std::string content(2 * record::kHashChunkBytes + 12345, '\0');
+  for (std::size_t i = 0; i < content.size(); ++i) content[i] = static_cast<char>((i * 131 + i / 7) & 0xff);
+  write(dir + "/big.csv", content);
+  const std::string expected = record::sha256_hex(content);
+  const record::InsideHash h = record::hash_inside(dir, "big.csv");
+  ASSERT_EQ(h.status, record::InsideStatus::ok) << h.error;
+  EXPECT_EQ(h.sha256, expected);
+  EXPECT_EQ(h.bytes, content.size());
+  EXPECT_EQ(record::sha256_file(dir + "/big.csv"), expected);
+  record::Sha256 pieces;
+  for (std::size_t at = 0, step = 1; at < content.size(); at += step, step = step * 3 + 1)
+    pieces.update(content.data() + at, std::min(step, content.size() - at));
+  EXPECT_EQ(pieces.hex(), expected);
+  // The SHA-256 of "abc" (FIPS 180-2, appendix B.1).
+  EXPECT_EQ(record::sha256_hex("abc"), "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
+  fs::remove_all(dir);
+}
+
+#if !defined(__SANITIZE_ADDRESS__) && !defined(__SANITIZE_THREAD__)
+#if defined(__has_feature)
+#if __has_feature(address_sanitizer) || __has_feature(thread_sanitizer)
+#define LOADTRIM_NO_ADDRESS_LIMIT 1
+#endif
+#endif
+#else
+#define LOADTRIM_NO_ADDRESS_LIMIT 1
+#endif
+
+// Hashing takes constant memory: a 768 MiB file (sparse) hashes with the address space limited to 256 MiB
+// above what the process uses (reading it whole, as hash_inside once did, failed with std::bad_alloc). Not
+// under the sanitizers, which reserve terabytes of address space of their own.
+TEST(Inside, HashingAFileNeverHoldsItInMemory) {
+#ifdef LOADTRIM_NO_ADDRESS_LIMIT
+  GTEST_SKIP() << "address-space limit not usable under a sanitizer";
+#else
+  const std::string dir = temp_dir("hash-memory");
+  const std::uint64_t size = std::uint64_t{768} << 20;
+  {
+    std::ofstream(dir + "/trace.csv");
+    ASSERT_EQ(::truncate((dir + "/trace.csv").c_str(), static_cast<off_t>(size)), 0);
+  }
+  std::ifstream statm("/proc/self/statm");
+  std::uint64_t pages = 0;
+  statm >> pages;
+  ASSERT_GT(pages, 0u);
+  struct rlimit old {};
+  ASSERT_EQ(::getrlimit(RLIMIT_AS, &old), 0);
+  struct rlimit tight = old;
+  tight.rlim_cur = pages * static_cast<std::uint64_t>(::sysconf(_SC_PAGESIZE)) + (std::uint64_t{256} << 20);
+  ASSERT_EQ(::setrlimit(RLIMIT_AS, &tight), 0);
+  record::InsideHash h;
+  std::string thrown;
+  try {
+    h = record::hash_inside(dir, "trace.csv");
+  } catch (const std::exception& e) {
+    thrown = e.what();
+  }
+  ::setrlimit(RLIMIT_AS, &old);
+  EXPECT_EQ(thrown, "");
+  EXPECT_EQ(h.status, record::InsideStatus::ok) << h.error;
+  EXPECT_EQ(h.bytes, size);
+  fs::remove_all(dir);
+#endif
+}
+
+// docs/records.md, "Size limits": a file read whole that is larger than kMaxRecordFileBytes (here a sealed
+// folder's events.jsonl made sparse past it, nothing read) makes verify name the file and the limit (broken,
+// exit 5), never a crash; read_inside and read_log refuse it the same way.
+TEST(Verify, AFileLargerThanTheReadLimitIsBrokenNamingItAndTheLimit) {
+  const std::string dir = temp_dir("too-large");
+  const std::string f = make_folder(dir);
+  record::SealInfo info;
+  std::string err;
+  ASSERT_TRUE(record::seal_folder(f, {"unit cell", {{"result", "accepted"}}, nullptr, ""}, &info, err))
+      << err;
+  ASSERT_EQ(record::verify_folder(f).outcome, record::Outcome::unsigned_seal);
+  const std::string limit = std::to_string(record::kMaxRecordFileBytes);
+  ASSERT_EQ(::truncate((f + "/events.jsonl").c_str(), static_cast<off_t>(record::kMaxRecordFileBytes + 1)),
+            0);
+  const record::FolderVerdict v = record::verify_folder(f);
+  EXPECT_EQ(v.outcome, record::Outcome::broken);
+  EXPECT_EQ(record::verify_exit_code(v.outcome), 5);
+  EXPECT_EQ(v.file, "events.jsonl");
+  EXPECT_NE(v.message.find("events.jsonl"), std::string::npos) << v.message;
+  EXPECT_NE(v.message.find(limit), std::string::npos) << v.message;
+  const record::InsideFile r = record::read_inside(f, "events.jsonl");
+  EXPECT_EQ(r.status, record::InsideStatus::too_large);
+  EXPECT_TRUE(r.content.empty());
+  std::vector<json> recs;
+  const record::VerifyResult l = record::read_log(f + "/events.jsonl", &recs);
+  EXPECT_FALSE(l.ok);
+  EXPECT_NE(l.message.find(limit), std::string::npos) << l.message;
+  // A small limit shows the check on a file's own size.
+  EXPECT_EQ(record::read_inside(f, "summary.json", 4).status, record::InsideStatus::too_large);
+  EXPECT_EQ(record::read_inside(f, "summary.json").status, record::InsideStatus::ok);
+  fs::remove_all(dir);
 }
