@@ -45,11 +45,21 @@ Clock::duration Motion::wall_budget(double budget_s) const {
   return std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(s)) + rules_.wall_slack;
 }
 
-Clock::duration Motion::stop_progress_window() const {
-  const double s = std::clamp(rules_.stop_progress_s / std::max(1.0, c_.time_scale()), 0.0, 1e7);
+namespace {
+// controller_s of controller time on the tool's clock at the stated time scale, never less than min_wall.
+Clock::duration scaled_window(double controller_s, double time_scale, Clock::duration min_wall) {
+  const double s = std::clamp(controller_s / std::max(1.0, time_scale), 0.0, 1e7);
   return std::max<Clock::duration>(
-      std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(s)),
-      rules_.stop_progress_min_wall);
+      std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(s)), min_wall);
+}
+}  // namespace
+
+Clock::duration Motion::stop_progress_window() const {
+  return scaled_window(rules_.stop_progress_s, c_.time_scale(), rules_.stop_progress_min_wall);
+}
+
+Clock::duration Motion::mode_entry_window() const {
+  return scaled_window(rules_.mode_entry_s, c_.time_scale(), rules_.stop_progress_min_wall);
 }
 
 void Motion::drain_warnings() {
@@ -85,6 +95,23 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
   double t_first = -1.0, t_last = -1.0;
   Sample last{};
   std::vector<Sample> got;
+  // The wall time the step's samples left its modes (when out_of_mode), judged at the end of each batch so
+  // that a batch read late, with the old mode's samples first, is not taken for a controller that stays out.
+  bool out_of_mode = false;
+  Clock::time_point out_of_mode_since{};
+  double out_of_mode_since_c = 0.0;
+  const Clock::duration mode_window = mode_entry_window();
+  const auto wrong_mode = [&] {
+    std::string want;
+    for (const Mode m : step.modes)
+      want += (want.empty() ? "" : " or ") + std::string(controller::to_string(m));
+    return Result::fail("the controller did not enter " + want + " for " + step.what + ": its samples stay " +
+                            describe(last) + " for " + num(last.time_s - out_of_mode_since_c, 1) +
+                            " s of its time (" + num(seconds(Clock::now() - out_of_mode_since), 1) +
+                            " s of the tool's) after the command was acknowledged; " +
+                            num(rules_.mode_entry_s, 1) + " s allowed",
+                        kWrongMode);
+  };
   for (;;) {
     if (!stopping && rules_.status_every.count() > 0 &&
         (Clock::now() - last_status_ >= rules_.status_every ||
@@ -143,14 +170,24 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
       const bool in_mode =
           step.modes.empty() || std::find(step.modes.begin(), step.modes.end(), s.mode) != step.modes.end();
       if (in_mode) {
+        out_of_mode = false;
         if (keep) keep->push_back(s);
         if (done(s)) return Result::success();
+      } else if (!out_of_mode) {
+        out_of_mode = true;
+        out_of_mode_since = Clock::now();
+        out_of_mode_since_c = s.time_s;
       }
+      // Samples read after the acknowledgement were made after the command: out of the step's modes for
+      // mode_entry_s of the controller's time is a controller that did not follow it.
+      if (out_of_mode && s.time_s - out_of_mode_since_c > rules_.mode_entry_s) return wrong_mode();
       if (s.time_s - t_first > step.budget_s)
         return Result::fail(step.what + " did not complete within " + num(step.budget_s) +
                                 " s of controller time (last sample: " + describe(last) + ")",
                             kTooSlow);
     }
+    // ... or of the tool's clock at the stated rate (a frozen clock), judged at the end of a batch.
+    if (out_of_mode && Clock::now() - out_of_mode_since > mode_window) return wrong_mode();
   }
 }
 

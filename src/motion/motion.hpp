@@ -52,8 +52,10 @@ inline constexpr double kDefaultStepBudgetS = 600.0;
 inline constexpr int kTooSlow = -3;       // the step's controller-time budget ran out before its condition
 inline constexpr int kWallDeadline = -4;  // the step's deadline on the tool's own clock passed
 inline constexpr int kPaused = -5;        // the operator asked for a pause (Motion::set_pause_flag)
-inline constexpr int kNotSlowing =
-    -6;  // commanded to stop, the rollers did not slow (Rules::stop_progress_*)
+// Commanded to stop, the rollers did not slow (Rules::stop_progress_*).
+inline constexpr int kNotSlowing = -6;
+// The controller stayed in a mode other than the step's (Rules::mode_entry_s).
+inline constexpr int kWrongMode = -7;
 
 struct Rules {
   double speed_limit_kmh = 0.0;  // > 0: a sample above this plus the margin ends the step
@@ -79,6 +81,13 @@ struct Rules {
   // stop_progress_min_wall): a controller that acknowledges the stop and holds the speed, with a clock that
   // is frozen or slow, must not keep the tool waiting (and feeding its watchdog) for the whole stop budget.
   // 1 km/h in 10 s is 0.028 m/s², far below any controlled stop (common practice, no source).
+  // A step with modes must see them: once the step's command was acknowledged, samples that stay in another
+  // mode for mode_entry_s of controller time as the tool's clock measures it (divided by the stated time
+  // scale, never less than stop_progress_min_wall) end the step (kWrongMode): a controller that acknowledged
+  // road-load simulation and stayed in speed hold was taken for a coast-down with too little retarding force,
+  // its setting changed on that, while the vehicle was motored at the start speed. 40 CFR 1066.245 asks a
+  // dyno to settle within 100 ms; 2 s is twenty times that (common practice, no source).
+  double mode_entry_s = 2.0;
   double stop_progress_kmh = 1.0;
   double stop_progress_s = 10.0;
   std::chrono::milliseconds stop_progress_min_wall{2000};
@@ -176,6 +185,8 @@ class Motion {
   }
   // The wall window a stop has to show its progress in (Rules::stop_progress_*).
   std::chrono::steady_clock::duration stop_progress_window() const;
+  // The same for a step's mode (Rules::mode_entry_s).
+  std::chrono::steady_clock::duration mode_entry_window() const;
   double last_time_s() const { return last_time_s_; }
   bool have_time() const { return have_time_; }
 

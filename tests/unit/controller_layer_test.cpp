@@ -441,6 +441,41 @@ TEST(Motion, AStopThatIsNeverReachedIsReportedNotAssumed) {
   EXPECT_TRUE(stopped);
 }
 
+// A controller that acknowledges road-load simulation and reports another mode (a hostile review: the samples
+// were skipped as not the step's until the controller-time budget ran out, and the run was taken for one with
+// too little retarding force): the step ends with kWrongMode once its samples have stayed out of its modes
+// for the window (Rules::mode_entry_s on the tool's clock). The 0.3 s window is the test's own.
+TEST(Motion, AStepWhoseModeTheControllerNeverEntersEndsWithinTheWindow) {
+  FakeController c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  motion::Rules rules;
+  rules.mode_entry_s = 0.3;
+  rules.stop_progress_min_wall = std::chrono::milliseconds(200);
+  motion::Motion m(c, rules);
+  ASSERT_TRUE(m.hold(50.0, 1.0, "run-up", 120.0).ok());
+  c.script.sample_lie = [](controller::Sample& s) {
+    if (s.mode == Mode::road_load) s.mode = Mode::speed_hold;
+  };
+  ASSERT_TRUE(c.release_road_load().ok());
+  motion::Step st;
+  st.what = "coast-down";
+  st.budget_s = 1e6;  // the controller-time budget must not be what ends it
+  st.modes = {Mode::road_load};
+  st.since_epoch = c.epoch();
+  const auto t0 = std::chrono::steady_clock::now();
+  const auto res = m.collect(st, [](const controller::Sample& s) { return s.speed_kmh < 20.0; });
+  const double took = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  EXPECT_EQ(res.code, motion::kWrongMode) << res.message;
+  EXPECT_NE(res.message.find("did not enter"), std::string::npos) << res.message;
+  EXPECT_LT(took, 5.0);
+  // The same step with the controller honest completes.
+  c.script.sample_lie = nullptr;
+  ASSERT_TRUE(m.hold(50.0, 1.0, "run-up", 120.0).ok());
+  ASSERT_TRUE(c.release_road_load().ok());
+  st.since_epoch = c.epoch();
+  EXPECT_TRUE(m.collect(st, [](const controller::Sample& s) { return s.speed_kmh < 20.0; }).ok());
+}
+
 // A controller that acknowledges the stop and holds the speed with a frozen clock (a hostile review): the
 // controller-time budget never runs out, so without a progress rule the tool waited out the whole wall
 // deadline (budget / (rate × 0.25) + 20 s: 1,220 s for the safe stop's 300 s), feeding the controller's

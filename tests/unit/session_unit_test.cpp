@@ -200,6 +200,23 @@ TEST(SessionUnit, TheFinalStatusMustShowTheRollersAtRestNotOnlySlow) {
   EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
 }
 
+// A controller that acknowledges road-load simulation and stays in speed hold (a hostile review): the session
+// took each run for a coast-down with too little retarding force, changed the setting on that and ended "not
+// accepted" while the vehicle was motored at the start speed. Now it is a controller fault (exit 3) naming
+// the mode, with the rollers stopped.
+TEST(SessionUnit, RoadLoadAcknowledgedButNotEnteredIsAControllerFault) {
+  FakeController c(loadtrim::testing::demo_truth());
+  c.script.sample_lie = [](controller::Sample& s) {
+    if (s.mode == Mode::road_load) s.mode = Mode::speed_hold;
+  };
+  Recorder record(true);
+  session::Session s(inputs(), options(), c, {&record});
+  const auto sum = s.run();
+  EXPECT_EQ(sum.outcome, session::Outcome::controller_fault) << sum.stop_reason;
+  EXPECT_NE(sum.stop_reason.find("did not enter"), std::string::npos) << sum.stop_reason;
+  EXPECT_TRUE(sum.rollers_stopped) << sum.stop_note;
+}
+
 TEST(SessionUnit, ASettingAcknowledgedButNotAppliedStopsTheSession) {
   FakeController c(loadtrim::testing::demo_truth());
   c.script.coefficients_not_applied = true;
