@@ -80,7 +80,10 @@ bool Controller::lease_valid() const {
 void Controller::set_stopping(bool on) {
   const std::lock_guard<std::recursive_mutex> lock(mu_);
   // The clock was not checked while stopping: its history starts afresh when moving resumes.
-  if (stopping_ && !on) clock_.reset();
+  if (stopping_ && !on) {
+    clock_.reset();
+    time_fresh_start_ = true;
+  }
   stopping_ = on;
 }
 
@@ -120,6 +123,7 @@ Result Controller::connect() {
     pending_fault_is_event_ = false;
     last_sample_wall_ = Clock::now();
     clock_.reset();
+    time_fresh_start_ = true;
     malformed_run_ = 0;
     return do_connect(Clock::now() + timeouts_.connect);
   });
@@ -318,6 +322,24 @@ std::string describe_sample(const Sample& s) {
 }
 }  // namespace
 
+double Controller::continued_time(double raw_s, const char* what) {
+  double t = raw_s + time_offset_s_;
+  if (!time_fresh_start_ || !std::isfinite(t)) return t;
+  time_fresh_start_ = false;
+  if (!have_time_seen_ || t >= last_time_seen_s_) return t;
+  const double since_s =
+      limits_.clock_wall_related
+          ? std::chrono::duration<double>(Clock::now() - last_time_seen_wall_).count() * time_scale_
+          : 0.0;
+  const double to = last_time_seen_s_ + since_s;
+  time_offset_s_ += to - t;
+  warn("clock_restarted", std::string("the controller's clock started again: its ") + what + " read " +
+                              num(raw_s) + " s after " + num(last_time_seen_s_) +
+                              " s had been handed up; its times continue from " + num(to) +
+                              " s (the tool's own time since, at the stated rate)");
+  return to;
+}
+
 void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted) {
   std::vector<std::string> events;
   do_take_events(events);
@@ -333,6 +355,7 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
   }
   const double w = wall_s();
   for (auto& s : raw) {
+    s.time_s += time_offset_s_;  // the layer's continuous time (continued_time); a NaN stays one
     // Exact repeats (a controller or a link that sends a line twice) are harmless: dropped and counted.
     if (have_index_ && s.index == last_sample_.index && s.time_s == last_sample_.time_s &&
         s.speed_kmh == last_sample_.speed_kmh && s.force_n == last_sample_.force_n &&
@@ -368,6 +391,7 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
     }
     malformed_run_ = 0;
     if (++recent_valid_ + recent_malformed_ >= 500) recent_valid_ = recent_malformed_ = 0;
+    s.time_s = continued_time(s.time_s - time_offset_s_, "sample");
     if (!stopping_)
       if (auto v = clock_.on_sample(s.time_s, w, have_index_ ? s.index - last_sample_.index : 0);
           v && !pending_fault_)
@@ -377,6 +401,11 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
     have_index_ = true;
     last_sample_ = s;
     last_sample_wall_ = Clock::now();
+    if (!have_time_seen_ || s.time_s > last_time_seen_s_) {
+      last_time_seen_s_ = s.time_s;
+      last_time_seen_wall_ = last_sample_wall_;
+    }
+    have_time_seen_ = true;
     s.epoch = epoch_;
     ++stats_.samples_received;
     accepted.push_back(s);
@@ -527,6 +556,7 @@ Result Controller::status(StatusReport& out) {
     // one.
     if (!std::isfinite(out.time_s))
       return Result::fail("the controller's status reports a time of " + num(out.time_s) + " s, not a time");
+    out.time_s = continued_time(out.time_s, "status");
     // A fault the flags show is a fault, whatever name the status gives (or leaves out): the emergency stop
     // named first, the one that must never be taken for a watchdog stop.
     if (out.fault.empty() && (out.flags & (kFlagFault | kFlagEstop | kFlagWatchdog)) != 0)

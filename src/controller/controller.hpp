@@ -300,6 +300,13 @@ class Controller {
   void ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted);
   Result command_done(Result r);  // a successful command closes the epoch
   double wall_s() const;
+  // The controller's time as this layer hands it up: continuous across the clock guard's fresh starts (a new
+  // connection, the end of a stop). The first time read after such a start that is earlier than the latest
+  // sample time handed up (a controller that restarted, a counter unwrapped afresh, a clock stepped back
+  // while stopping) starts a new offset: the times continue from that latest time plus the tool's own time
+  // since, at the stated rate (0 for a clock not related to the wall), and a warning names the step. The
+  // session's timing (the 120 s rule, the motoring time, the warming curve) never runs backwards so.
+  double continued_time(double raw_s, const char* what);
   mutable std::recursive_mutex mu_;
   Deadline reply_deadline() const { return Clock::now() + timeouts_.reply; }
   Timeouts timeouts_;
@@ -316,6 +323,11 @@ class Controller {
   std::optional<Result> pending_fault_;
   bool pending_fault_is_event_ = false;
   ClockGuard clock_;
+  double time_offset_s_ = 0.0;  // added to every time the adapter reads (continued_time)
+  bool time_fresh_start_ = false;
+  bool have_time_seen_ = false;
+  double last_time_seen_s_ = 0.0;  // the latest sample time handed up
+  Clock::time_point last_time_seen_wall_{};
   double time_scale_ = 1.0;
   double stream_rate_hz_ = 0.0;
   int malformed_run_ = 0;

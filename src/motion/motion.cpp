@@ -101,6 +101,9 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
   Clock::time_point out_of_mode_since{};
   double out_of_mode_since_c = 0.0;
   const Clock::duration mode_window = mode_entry_window();
+  // Only samples read after the last command acknowledged before this wait judge the mode: a step may take
+  // samples from an earlier epoch (read before its command's acknowledgement, the old mode's among them).
+  const std::uint64_t mode_epoch = std::max(step.since_epoch, c_.epoch());
   const auto wrong_mode = [&] {
     std::string want;
     for (const Mode m : step.modes)
@@ -173,7 +176,7 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
         out_of_mode = false;
         if (keep) keep->push_back(s);
         if (done(s)) return Result::success();
-      } else if (!out_of_mode) {
+      } else if (!out_of_mode && s.epoch >= mode_epoch) {
         out_of_mode = true;
         out_of_mode_since = Clock::now();
         out_of_mode_since_c = s.time_s;

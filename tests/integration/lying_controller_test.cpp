@@ -168,8 +168,9 @@ const Row kRows[] = {
     {"silence", Lie::silence, hold30(), Cmd::run, 3, "no sample for", 60, false},
     // Replies name the wrong request: none answers what the tool asked.
     {"wrong_reply_seq", Lie::wrong_reply_seq, hold30(), Cmd::run, 3, "no reply to", 60, false},
-    // Samples always say ROADLOAD while the rollers are held: the hold never completes.
-    {"wrong_mode", Lie::wrong_mode, hold30(), Cmd::run, 3, "did not complete", 60, false},
+    // Samples always say ROADLOAD while the rollers are held: the hold's mode is never seen, a controller
+    // fault within 2 s of its time (docs/safety.md, motion's mode_entry_s; before, the step ran out its budget).
+    {"wrong_mode", Lie::wrong_mode, hold30(), Cmd::run, 3, "did not enter", 60, false},
     // A stream at 1/50 of the asked rate (2 Hz for 100 Hz), without gaps in its counter.
     {"slow_stream", Lie::slow_stream, hold30(), Cmd::run, 3, "streams at", 60, false},
     // The link delivers one byte per 20 ms: replies and samples arrive far too late. The assertion is exit 3

@@ -734,6 +734,55 @@ TEST(FaultClearing, OnlyAWatchdogStopIsTheToolsToClear) {
   EXPECT_FALSE(controller::tool_may_clear(report("OVERTEMP", kFlagFault | kFlagWatchdog)));
 }
 
+// A controller whose clock starts again after a new connection (a restart; a counter unwrapped afresh) or
+// steps back while stopping (the clock guard is off then): the layer hands its times up continuing from the
+// latest sample time, with a warning naming the step, so the session's timing never runs backwards (a hostile
+// review: the 120 s rule was recorded as met with a negative gap). Within a connection and not stopping, a
+// clock that runs backwards is still refused (the clock guard's rule, unchanged).
+TEST(ClockContinuity, AClockThatStartsAgainAfterAReconnectOrAStopContinuesWithAWarning) {
+  FakeController c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  std::vector<controller::Sample> got;
+  for (int i = 0; i < 10; ++i) ASSERT_TRUE(c.receive_samples(got).ok());
+  ASSERT_FALSE(got.empty());
+  const double before = got.back().time_s;
+  ASSERT_GT(before, 2.0);
+  (void)c.take_warnings();
+  // The clock restarts with the new connection: 1000 s earlier than before.
+  double back_s = before + 1000.0;
+  c.script.sample_lie = [&](controller::Sample& s) { s.time_s -= back_s; };
+  c.script.status_lie = [&](controller::StatusReport& st) { st.time_s -= back_s; };
+  c.disconnect();
+  ASSERT_TRUE(c.connect().ok());
+  ASSERT_TRUE(c.start_stream(100.0).ok());
+  got.clear();
+  for (int i = 0; i < 4; ++i) ASSERT_TRUE(c.receive_samples(got).ok());
+  ASSERT_FALSE(got.empty());
+  for (const auto& s : got) EXPECT_GE(s.time_s, before) << "a time handed up ran backwards";
+  controller::StatusReport st;
+  ASSERT_TRUE(c.status(st).ok());
+  EXPECT_GE(st.time_s, got.back().time_s - 1.0);
+  bool warned = false;
+  for (const auto& w : c.take_warnings())
+    if (w.code == "clock_restarted") warned = true;
+  EXPECT_TRUE(warned) << "the clock's new start was not named";
+  // A step back while stopping continues the same way once moving resumes.
+  const double latest = got.back().time_s;
+  c.set_stopping(true);
+  back_s += 500.0;
+  c.set_stopping(false);
+  got.clear();
+  ASSERT_TRUE(c.receive_samples(got).ok());
+  ASSERT_FALSE(got.empty());
+  EXPECT_GE(got.front().time_s, latest);
+  // Within a connection, not stopping: a clock that runs backwards is refused, not continued.
+  back_s += 500.0;
+  got.clear();
+  controller::Result r = controller::Result::success();
+  for (int i = 0; i < 4 && r.ok(); ++i) r = c.receive_samples(got);
+  EXPECT_FALSE(r.ok()) << "a clock that ran backwards within a connection was taken";
+}
+
 // A status whose flags show a fault names it even when the adapter left the name out, the emergency stop
 // first (docs/protocol.md section 7); a status time that is not a number is refused while stopping too (the
 // clock guard is off then, docs/safety.md).
