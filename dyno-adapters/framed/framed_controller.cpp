@@ -49,6 +49,7 @@ Result FramedController::do_connect(controller::Deadline d) {
   do_disconnect();
   splitter_.reset();
   frames_.clear();
+  have_last_time_ = false;
   return transport_->open(d);
 }
 
@@ -77,6 +78,11 @@ Result FramedController::read_frames(controller::Deadline d) {
   return Result::success();
 }
 
+Clock::duration FramedController::quiet_window() const {
+  return std::clamp<Clock::duration>(timeouts().reply / 4, std::chrono::milliseconds(10),
+                                     std::chrono::milliseconds(250));
+}
+
 Result FramedController::resync(controller::Deadline d, const std::string& before) {
   // Over TCP a new connection leaves a late reply on the old one; a serial port opened again may still
   // receive it, hence the quiet window too.
@@ -84,8 +90,7 @@ Result FramedController::resync(controller::Deadline d, const std::string& befor
   splitter_.reset();
   frames_.clear();
   if (Result r = transport_->open(d); !r.ok()) return r;
-  const auto quiet = std::clamp<Clock::duration>(timeouts().reply / 4, std::chrono::milliseconds(10),
-                                                 std::chrono::milliseconds(250));
+  const auto quiet = quiet_window();
   auto last_bytes = Clock::now();
   std::size_t dropped = 0;
   for (;;) {
@@ -279,8 +284,13 @@ Result FramedController::do_receive_samples(std::vector<controller::Sample>& out
   // A deadline already passed (the controller layer collecting what was read before a command's
   // acknowledgement) leaves no time for a reply: no poll then, or its reply would come late.
   if (Clock::now() >= d || !pacer_.wait_turn(d, table_.poll_rate_hz)) return Result::success();
+  // A poll due by `d` is one request with its own deadline: timeouts.reply_ms for its reply from when it is
+  // sent, after the quiet window when the link must be brought back in step first (docs/framed.md), however
+  // short the slice the caller waits in (the controller layer slices its waits at the heartbeat interval,
+  // which is shorter than a slow device's reply). One request at a time: no heartbeat can go out meanwhile.
+  const auto own = Clock::now() + timeouts().reply + (dirty_ ? quiet_window() : Clock::duration::zero());
   Values v;
-  if (Result r = transact(Op::sample, {}, v, d); !r.ok()) return r;
+  if (Result r = transact(Op::sample, {}, v, own); !r.ok()) return r;
   if (!v.contains(Qty::time_s))  // validate() requires it; never the host's clock in its place
     return Result::fail("the sample reply carries no time_s (framed.ops.sample.reply)");
   controller::Sample s;
@@ -289,6 +299,19 @@ Result FramedController::do_receive_samples(std::vector<controller::Sample>& out
   s.mode = to_mode(v.get(Qty::mode));
   s.flags = static_cast<std::uint32_t>(v.get(Qty::flags));
   s.time_s = v.get(Qty::time_s);
+  // Every sample is a moment of its own: a reply with the time of the last one (a device answering each
+  // request twice and so one poll behind, a time field coarser than the poll period) is no new sample.
+  // Dropped and counted with the duplicates, and named once per read of the warnings.
+  if (have_last_time_ && s.time_s == last_time_s_) {
+    ++stats_.samples_duplicate;
+    warn("sample_time_repeated",
+         "a poll read the same controller time as the one before: not a new sample, dropped");
+    return Result::success();
+  }
+  if (std::isfinite(s.time_s)) {
+    have_last_time_ = true;
+    last_time_s_ = s.time_s;
+  }
   s.index = index_++;
   out.push_back(s);
   return Result::success();

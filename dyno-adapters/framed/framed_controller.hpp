@@ -75,6 +75,9 @@ class FramedController : public controller::Controller {
   controller::Result read_frames(controller::Deadline d);
   // After a timeout: opens the link again and drops what arrives until it is quiet (see above).
   controller::Result resync(controller::Deadline d, const std::string& before);
+  // How long the link must stay quiet before a request after a timeout: a quarter of the reply timeout, 10 to
+  // 250 ms.
+  std::chrono::steady_clock::duration quiet_window() const;
   void remember_resolution(double written, const std::vector<Field>& fields, Qty q);
   std::unique_ptr<line::Transport> transport_;
   Table table_;
@@ -83,6 +86,8 @@ class FramedController : public controller::Controller {
   bool dirty_ = false;                            // a request timed out: its reply may still be on its way
   adapters::PollPacer pacer_;
   std::uint64_t index_ = 0;
+  bool have_last_time_ = false;
+  double last_time_s_ = 0.0;  // the controller time of the last sample handed up (this connection)
   std::vector<std::pair<double, double>> resolutions_;  // (value written, half a count of its field)
   std::uint64_t warned_bits_ = 0;                       // unmapped status-word bits already warned about
 };

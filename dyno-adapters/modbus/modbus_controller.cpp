@@ -18,7 +18,7 @@ using controller::Result;
 using Clock = std::chrono::steady_clock;
 
 ModbusController::ModbusController(Settings settings, controller::Timeouts t, controller::Limits l)
-    : Controller(t, l), settings_(std::move(settings)) {}
+    : Controller(t, l), settings_(std::move(settings)), block_(sample_block(settings_.map)) {}
 
 ModbusController::ModbusController(const controller::CellConfig& cell)
     : ModbusController(std::any_cast<const Settings&>(cell.adapter_settings), cell.timeouts,
@@ -135,6 +135,7 @@ Result ModbusController::do_connect(controller::Deadline) {
   // without a time register the host clock counts from here.
   counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
   t0_ = Clock::now();
+  have_last_time_ = false;
   modbus_set_slave(ctx_, settings_.map.unit_id);
   const auto reply = timeouts().reply;
   modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000),
@@ -159,6 +160,13 @@ void ModbusController::do_disconnect() {
     ctx_ = nullptr;
   }
   pacer_.stop();
+}
+
+Result ModbusController::read_any(Q q, double& value) {
+  std::uint16_t w[4] = {0, 0, 0, 0};
+  if (Result res = read_words(q, w); !res.ok()) return res;
+  value = decode(settings_.map[q], w);
+  return Result::success();
 }
 
 Result ModbusController::read(Q q, double& value) {
@@ -425,29 +433,99 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
   // The shared pacer (poller.hpp): one poll per period of the map's rate, none when it is due after the
   // deadline, no burst after a stall. A poll already due is taken even with the deadline passed (the
   // controller layer collecting what was read before a command's acknowledgement).
-  const auto turn = pacer_.wait_turn(d, settings_.map.poll_rate_hz);
+  const RegisterMap& m = settings_.map;
+  const auto turn = pacer_.wait_turn(d, m.poll_rate_hz);
   if (!turn) return Result::success();
   const auto now = turn->now;
-  if (!settings_.map[Q::time].present)
+  if (!m[Q::time].present)
     worst_jitter_s_ =
         std::max(worst_jitter_s_, std::abs(std::chrono::duration<double>(now - turn->due).count()));
   controller::Sample s;
-  double mode = 0, status = 0;
-  if (Result r = read(Q::speed, s.speed_kmh); !r.ok()) return r;
-  if (Result r = read(Q::force, s.force_n); !r.ok()) return r;
-  if (Result r = read(Q::mode, mode); !r.ok()) return r;
-  if (Result r = read(Q::status, status); !r.ok()) return r;
-  if (settings_.map[Q::time].present) {
-    if (Result r = read_time(s.time_s); !r.ok()) return r;
+  double mode = 0, status = 0, raw_time = 0;
+  if (block_) {
+    // One request: the controller answers every register of the sample from one moment
+    // (docs/modbus.md, "One sample, one moment").
+    std::uint16_t w[kMaxReadRegisters] = {};
+    const Block b = *block_;
+    if (Result r = transact(
+            std::string("read the sample (") + to_string(b.table) + " " + std::to_string(b.address) + " to " +
+                std::to_string(b.address + b.count - 1) + ")",
+            [&] {
+              return b.table == Table::input ? modbus_read_input_registers(ctx_, b.address, b.count, w)
+                                             : modbus_read_registers(ctx_, b.address, b.count, w);
+            });
+        !r.ok())
+      return r;
+    const auto at = [&](Q q) { return decode(m[q], w + (m[q].address - b.address)); };
+    s.speed_kmh = at(Q::speed);
+    s.force_n = at(Q::force);
+    mode = at(Q::mode);
+    status = at(Q::status);
+    if (m[Q::time].present) raw_time = at(Q::time);
   } else {
-    s.time_s = host_time_s(now);
+    // Register by register, the time right after the speed; the whole poll within one poll period, or its
+    // values are not of one moment (below).
+    const auto first = Clock::now();
+    if (Result r = read_any(Q::speed, s.speed_kmh); !r.ok()) return r;
+    if (m[Q::time].present)
+      if (Result r = read_any(Q::time, raw_time); !r.ok()) return r;
+    if (Result r = read_any(Q::force, s.force_n); !r.ok()) return r;
+    if (Result r = read_any(Q::mode, mode); !r.ok()) return r;
+    if (Result r = read_any(Q::status, status); !r.ok()) return r;
+    const auto took = Clock::now() - first;
+    const auto period = std::chrono::duration<double>(1.0 / m.poll_rate_hz);
+    if (took > period) {
+      // The sample's time would name a moment up to `took` away from its speed: a pairing no better than the
+      // sampling itself is the bound (lab policy, common practice, no source). Dropped and counted.
+      const auto ms = std::chrono::duration_cast<std::chrono::milliseconds>(took).count();
+      ++stats_.lines_rejected;
+      stats_.last_rejected = "a sample whose reads took " + std::to_string(ms) +
+                             " ms, longer than the poll period of " + core::num(1000.0 / m.poll_rate_hz) +
+                             " ms: its time and speed are not of one moment";
+      warn("sample_reads_slow",
+           "the reads of a sample took longer than one poll period (1/modbus.poll_rate_hz): the sample was "
+           "dropped (its time and speed are not of one moment; a map with the sample's registers in one "
+           "block is read in one request)");
+      // The time counter still learns the reading (its unwrapping follows every read).
+      if (m[Q::time].present)
+        counter_.read(raw_time, std::chrono::duration<double>(Clock::now().time_since_epoch()).count());
+      return Result::success();
+    }
   }
-  if (std::string bad = decode_mode(mode, s.mode, settings_.map.modes); !bad.empty())
-    return Result::fail(bad);
+  if (m[Q::time].present)
+    s.time_s =
+        counter_.read(raw_time, std::chrono::duration<double>(Clock::now().time_since_epoch()).count());
+  else
+    s.time_s = host_time_s(now);
+  // A status that is no bit field may hide a fault: fatal, as in a status reply.
   std::uint32_t raw = 0;
   if (std::string bad = decode_flags(status, raw); !bad.empty()) return Result::fail(bad);
   check_status_bits(raw);
-  s.flags = controller_flags(settings_.map, raw);
+  s.flags = controller_flags(m, raw);
+  if (std::string bad = decode_mode(mode, s.mode, m.modes); !bad.empty()) {
+    // A sample in no mode we know is malformed: dropped and counted, as the controller layer does with a
+    // non-finite value; but not when its status names a fault (that must not wait for the sample gap).
+    if (const std::string fault = adapters::fault_name(s.flags); !fault.empty())
+      return Result::fail(bad + ", with the status register reporting " + fault);
+    ++stats_.samples_malformed;
+    stats_.last_malformed = bad + " (time " + core::num(s.time_s) + " s, speed " + core::num(s.speed_kmh) +
+                            " km/h, force " + core::num(s.force_n) + " N)";
+    warn("sample_malformed", "a sample's mode register held no mode code: the sample was dropped");
+    return Result::success();
+  }
+  // Every sample is a moment of its own: a poll that reads the time of the last one again (a count coarser
+  // than the poll period, a controller answering from a stale copy) is no new sample. Dropped and counted.
+  if (have_last_time_ && s.time_s == last_time_s_) {
+    ++stats_.samples_duplicate;
+    warn("sample_time_repeated",
+         "a poll read the same controller time as the one before: not a new sample, dropped");
+    return Result::success();
+  }
+  // Only a sample the controller layer will take sets the time a repeat is judged by.
+  if (std::isfinite(s.time_s) && std::isfinite(s.speed_kmh) && std::isfinite(s.force_n)) {
+    have_last_time_ = true;
+    last_time_s_ = s.time_s;
+  }
   s.index = index_++;
   out.push_back(s);
   return Result::success();

@@ -78,6 +78,9 @@ class ModbusController : public controller::Controller {
 
  private:
   controller::Result read(Q q, double& value);
+  // The register decoded as it is, a non-finite value included (a sample's values: the controller layer drops
+  // and counts a sample with one).
+  controller::Result read_any(Q q, double& value);
   controller::Result write(Q q, double value);
   // The register's words as they are (Register::words() of them): read, and written without encoding.
   controller::Result read_words(Q q, std::uint16_t* words);
@@ -95,7 +98,10 @@ class ModbusController : public controller::Controller {
   modbus_t* ctx_ = nullptr;
   adapters::PollPacer pacer_;  // the live quantities' polls (poller.hpp)
   std::uint64_t index_ = 0;
-  std::uint64_t beat_ = 0;  // the heartbeat counter's raw count, wrapped at the register's width
+  std::optional<Block> block_;  // the one read of a sample's registers (sample_block), when the map allows it
+  bool have_last_time_ = false;
+  double last_time_s_ = 0.0;  // the controller time of the last sample handed up (this connection)
+  std::uint64_t beat_ = 0;    // the heartbeat counter's raw count, wrapped at the register's width
   std::chrono::steady_clock::time_point t0_{};  // without a time register: the host clock's origin (connect)
   double worst_jitter_s_ = 0.0;
   TimeCounter counter_;       // the time register unwrapped (register_map.hpp)

@@ -100,6 +100,25 @@ core::Problems validate(const RegisterMap& m) {
               ": the counter wraps every " + core::num(p) +
               " s, which cannot be told from a clock stepping back between reads; at least 10 s is needed "
               "(a wider type or a coarser scale)");
+    // Every poll must read a time of its own: two samples with one time are no trace (the analysis needs time
+    // strictly ascending). A count coarser than the poll period makes successive polls read the same time; a
+    // float32's resolution is 2^-23 of the time it holds (24 significant bits, IEEE 754 binary32), so it
+    // falls with the controller's uptime until it is coarser than any poll period.
+    const bool rate_ok = m.poll_rate_hz >= 10.0 && m.poll_rate_hz <= 1000.0;
+    if (t.type == Type::float32 && rate_ok)
+      err("modbus.time.type",
+          "is \"float32\": its resolution is 2^-23 of the time it holds, so it falls with the controller's "
+          "uptime and is coarser than the poll period of " +
+              core::num(1.0 / m.poll_rate_hz) + " s (modbus.poll_rate_hz = " + core::num(m.poll_rate_hz) +
+              ") after about " + core::num(std::ldexp(1.0 / m.poll_rate_hz, 23) / 3600.0, 1) +
+              " h of uptime: successive polls would then read one time; use an integer counter (e.g. uint32 "
+              "with scale 0.001, milliseconds)");
+    else if (rate_ok && t.scale > 1.0 / m.poll_rate_hz)
+      err("modbus.time.scale",
+          "is " + core::num(t.scale) + " s per count, coarser than the poll period of " +
+              core::num(1.0 / m.poll_rate_hz) + " s (modbus.poll_rate_hz = " + core::num(m.poll_rate_hz) +
+              "): successive polls would read the same time; allowed at most " +
+              core::num(1.0 / m.poll_rate_hz) + " s per count (a finer count, or a lower poll_rate_hz)");
   }
   // The checks' mode codes: distinct from ours (0 to 4) and from each other, and sendable through the command
   // register; a constant force goes with its setpoint register.
@@ -417,6 +436,38 @@ std::string decode_error_code(double value, int& out) {
     return "error register value " + shown(value) + " is not an error code";
   out = static_cast<int>(value);
   return "";
+}
+
+std::optional<Block> sample_block(const RegisterMap& m) {
+  const Q parts[] = {Q::speed, Q::force, Q::mode, Q::status, Q::time};
+  Block b;
+  int lo = 1 << 20, hi = -1;
+  bool first = true;
+  for (Q q : parts) {
+    const Register& r = m.regs[q];
+    if (!r.present) {
+      if (q == Q::time) continue;
+      return std::nullopt;
+    }
+    if (r.table == Table::coil) return std::nullopt;
+    if (first) b.table = r.table, first = false;
+    if (r.table != b.table) return std::nullopt;
+    lo = std::min(lo, r.address);
+    hi = std::max(hi, r.address + r.words());
+  }
+  if (first || hi - lo > kMaxReadRegisters || lo < 0) return std::nullopt;
+  // Every address of the span named by some register of the map in that table.
+  std::vector<bool> named(static_cast<std::size_t>(hi - lo), false);
+  for (const Register& r : m.regs) {
+    if (!r.present || r.table != b.table) continue;
+    for (int w = 0; w < r.words(); ++w)
+      if (r.address + w >= lo && r.address + w < hi)
+        named[static_cast<std::size_t>(r.address + w - lo)] = true;
+  }
+  if (std::find(named.begin(), named.end(), false) != named.end()) return std::nullopt;
+  b.address = lo;
+  b.count = hi - lo;
+  return b;
 }
 
 bool retryable_exception(int code) {

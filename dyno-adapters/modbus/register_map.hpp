@@ -172,6 +172,21 @@ struct RegisterMap {
 // Every problem at once, keys "modbus.<quantity>.<field>" and "modbus.modes.<mode>".
 core::Problems validate(const RegisterMap& m);
 
+// The most registers one read may ask for (function codes 03 and 04: 1 to 125, the Modbus application
+// protocol specification).
+inline constexpr int kMaxReadRegisters = 125;
+// The one read that carries every register of a sample (speed, force, mode, status, and time when the map
+// names it): their table and the span from the lowest address to the end of the highest register, when they
+// are all in one table (input or holding), the span is at most kMaxReadRegisters long and every register in
+// it is named by the map (a read never asks for an address the controller may not define). Nothing otherwise:
+// the sample is then read register by register (docs/modbus.md, "One sample, one moment").
+struct Block {
+  Table table = Table::input;
+  int address = 0;
+  int count = 0;
+};
+std::optional<Block> sample_block(const RegisterMap& m);
+
 // "" when the map lets the adapter command `mode`, else which keys it lacks ("the register map has no
 // modbus.modes.free_coast"). The modes of a setting session (idle, hold, road load, stop) are always there.
 std::string missing_for(const RegisterMap& m, controller::Mode mode);

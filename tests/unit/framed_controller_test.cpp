@@ -295,3 +295,52 @@ TEST(FramedAdapter, NoPollIsSentWithoutTimeForItsReply) {
   EXPECT_EQ(rig.link->sent("RV"), 0u);
   EXPECT_EQ(rig.c->stats().lines_rejected, 0u);
 }
+
+// A device that answers each sample request twice (so the tool reads one poll behind and sees every sample
+// twice): a reply with the time of the last sample is no new sample. Times 612.34 s, 612.34 s, 612.36 s,
+// 612.36 s, ...: the samples handed up have strictly ascending times, the repeats are counted and named.
+TEST(FramedAdapter, ASampleWithTheTimeOfTheLastOneIsNoNewSample) {
+  Rig rig;
+  int n = 0;
+  rig.link->answer = [&](const std::vector<std::string>& q) -> std::optional<Reply> {
+    if (q[0] == "HB") return Reply{frame({"HB", "0"})};
+    const int k = n++ / 2;
+    return Reply{frame({"RV", "0", std::to_string(612340 + 20 * k), "5000", "1000", "1", "16"})};
+  };
+  ASSERT_TRUE(rig.c->start_stream(50.0).ok());
+  std::vector<controller::Sample> got;
+  for (int i = 0; i < 4; ++i) ASSERT_TRUE(rig.c->receive_samples(got).ok());
+  ASSERT_GE(got.size(), 4u);
+  for (std::size_t i = 1; i < got.size(); ++i) EXPECT_GT(got[i].time_s, got[i - 1].time_s) << i;
+  EXPECT_GE(rig.c->stats().samples_duplicate, 3u);
+  bool warned = false;
+  for (const auto& w : rig.c->take_warnings()) warned = warned || w.code == "sample_time_repeated";
+  EXPECT_TRUE(warned);
+}
+
+// docs/framed.md: a sample poll's reply is awaited timeouts.reply_ms (400 ms here) from when the poll was
+// sent, whatever slice the controller layer waits in (its heartbeat interval, 60 ms here). The device answers
+// every sample 150 ms late and every heartbeat at once: samples come, no timeout.
+TEST(FramedAdapter, ASamplePollWaitsItsReplyTimeoutNotTheHeartbeatSlice) {
+  auto l = std::make_unique<ScriptedLink>(false);
+  ScriptedLink* link = l.get();
+  controller::Timeouts t = timeouts();
+  t.heartbeat_interval = milliseconds(60);
+  FramedController c(std::move(l), shipped(), t, controller::Limits{160.0, 8000.0, 10000.0, false});
+  ASSERT_TRUE(c.connect().ok());
+  int n = 0;
+  link->answer = [&](const std::vector<std::string>& q) -> std::optional<Reply> {
+    if (q[0] == "HB") return Reply{frame({"HB", "0"})};
+    return Reply{frame({"RV", "0", std::to_string(612340 + 20 * n++), "5000", "1000", "1", "16"}),
+                 milliseconds(150)};
+  };
+  ASSERT_TRUE(c.start_stream(50.0).ok());
+  std::vector<controller::Sample> got;
+  for (int i = 0; i < 3; ++i) {
+    const Result r = c.receive_samples(got);
+    ASSERT_TRUE(r.ok()) << r.message;
+  }
+  ASSERT_EQ(got.size(), 3u);
+  EXPECT_DOUBLE_EQ(got[0].time_s, 612.34);
+  EXPECT_EQ(c.stats().lines_rejected, 0u);
+}

@@ -535,3 +535,53 @@ TEST(ModbusMap, BadDriverEntriesAreRefusedWithFileKeyAndRange) {
     EXPECT_NE(msg.find(c.key), std::string::npos) << "expected: " << c.key << "\ngot: " << msg;
   }
 }
+
+// ---- One time per poll, one moment per sample (docs/modbus.md, "One sample, one moment") ----
+// A time register coarser than the poll period (0.1 s per count at 50 Hz: 20 ms) or a float32 one (its
+// resolution falls with the time it holds: 2^-23 of it) is refused at load, naming the key and the period.
+TEST(ModbusMap, ATimeRegisterCoarserThanThePollPeriodIsRefused) {
+  const std::string ms = "scale = 0.001           # ms";
+  std::string msg = refusal(variant(ms, "scale = 0.1"));
+  EXPECT_NE(msg.find("modbus.time.scale"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("coarser than the poll period of 0.02 s"), std::string::npos) << msg;
+  // 20 ms per count at 50 Hz is one count per poll: allowed; at 10 Hz 0.1 s is too.
+  EXPECT_EQ(refusal(variant(ms, "scale = 0.02")), "");
+  std::string ten = variant(ms, "scale = 0.1");
+  ten.replace(ten.find("poll_rate_hz = 50.0"), 19, "poll_rate_hz = 10.0");
+  EXPECT_EQ(refusal(ten), "");
+  msg = refusal(variant("type = \"uint32\"         # uint16", "type = \"float32\"        # uint16"));
+  EXPECT_NE(msg.find("modbus.time.type"), std::string::npos) << msg;
+  EXPECT_NE(msg.find("falls with the controller's uptime"), std::string::npos) << msg;
+  // 0.02 s × 2^23 = 167,772 s = 46.6 h.
+  EXPECT_NE(msg.find("46.6 h"), std::string::npos) << msg;
+}
+
+// The shipped map's sample registers (speed 0, force 1, time 2-3, mode 4, status 5: input) are one read of
+// six; a gap no register names or another table makes none.
+TEST(ModbusMap, TheSampleBlockIsOneReadOnlyWhenTheMapAllowsIt) {
+  RegisterMap m = map_of(shipped());
+  auto b = sample_block(m);
+  ASSERT_TRUE(b.has_value());
+  EXPECT_EQ(b->table, Table::input);
+  EXPECT_EQ(b->address, 0);
+  EXPECT_EQ(b->count, 6);
+  m.regs[Q::mode].address = 6;  // mode and error swapped: the error register (4) is named, 0 to 6
+  m.regs[Q::error].address = 4;
+  b = sample_block(m);
+  ASSERT_TRUE(b.has_value());
+  EXPECT_EQ(b->count, 7);
+  m.regs[Q::mode].address = 8;  // input 6 and 7 are named by nothing
+  EXPECT_FALSE(sample_block(m).has_value());
+  m.regs[Q::mode].address = 4;
+  m.regs[Q::error].address = 6;
+  m.regs[Q::time].table = Table::holding;
+  m.regs[Q::time].address = 40;
+  EXPECT_FALSE(sample_block(m).has_value());
+  m.regs[Q::time].present = false;  // no time register: its addresses 2-3 are a gap now
+  EXPECT_FALSE(sample_block(m).has_value());
+  m.regs[Q::mode].address = 2;  // mode and status at 2 and 3: speed, force, mode, status in 0 to 3
+  m.regs[Q::status].address = 3;
+  b = sample_block(m);
+  ASSERT_TRUE(b.has_value());
+  EXPECT_EQ(b->count, 4);
+}
