@@ -81,7 +81,8 @@ void refuse_ignored(const TargetOptions& o, const std::string& kind) {
 }
 
 // --epa-line and --epa-id each pick the row of the CSV --epa names: both at once (the line was used, the id
-// not looked at), either without --epa (ignored), or --epa with neither (no row) is refused, naming them.
+// not looked at), either without --epa (ignored), or --epa with neither (no row) is refused, naming them; so
+// is --estimate-mass-in-running-order beside a mass given (the estimate would be ignored).
 void check_row_choice(const TargetOptions& o) {
   auto given = [&](const char* name) {
     return std::find(o.given.begin(), o.given.end(), name) != o.given.end();
@@ -99,6 +100,13 @@ void check_row_choice(const TargetOptions& o) {
          "picks a row of the CSV that --epa names, and no --epa is given: give --epa CSV, or drop it"});
   else if (!o.epa.empty() && !line && !id)
     ps.push_back({E, "--epa", "needs the row to take: give --epa-line N or --epa-id ID"});
+  // The estimate is used only when no mass is given: with one it would be ignored.
+  if (given("--estimate-mass-in-running-order"))
+    for (const char* mass : {"--mass-in-running-order-kg", "--rotating-mass-kg"})
+      if (given(mass))
+        ps.push_back({E, "--estimate-mass-in-running-order",
+                      std::string("accepts an estimate when no mass is given, and ") + mass +
+                          " is given: drop one of them"});
   if (!ps.empty()) throw config::InputError("command line", ps);
 }
 

@@ -532,6 +532,9 @@ def main():
             (["target", "--from", target, "--epa-id", epa_id], ["--epa-id: picks a row of the CSV"]),
             (["target", "--epa", bad_csv, "--estimate-mass-in-running-order"],
              ["--epa: needs the row to take: give --epa-line N or --epa-id ID"]),
+            (target_base + ["--test-mass-kg", "1500", "--estimate-mass-in-running-order"],
+             ["--estimate-mass-in-running-order: accepts an estimate when no mass is given, and "
+              "--mass-in-running-order-kg is given"]),
             (epa_demo + ["--vehicles", "3"],
              ["--vehicles: draws the vehicles from the CSV that --epa names, and no --epa is given"]),
             (epa_demo + ["--seed", "7"], ["--seed: draws the vehicles from the CSV that --epa names"]),
@@ -543,7 +546,7 @@ def main():
              ["--truth: is not used with --epa"]),
             (epa_demo + ["--epa", bad_csv, "--time-scale", "50"], ["--time-scale: is not used with --epa"])):
         rc, out = run(argv, w, timeout=30)
-        check(" ".join(a for a in argv[:1] + argv[1:] if a.startswith("--") and a not in ("--no-live", "--sessions")),
+        check(" ".join([argv[0]] + [a for a in argv[1:] if a.startswith("--") and a not in ("--no-live", "--sessions")]),
               rc, out, 2, words + ["refused: nothing was started"],
               ["target (exact)", "vehicles accepted", "simulated controller started", "session folder"],
               "the brief's rule: never a silent default; README, Exit codes: 2")
