@@ -352,8 +352,10 @@ TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
   // A US profile: each band key refused in mph, with the metric check's range in mph.
   std::ifstream in(kSrc + "/config/profiles/us-iterative.toml");
   const std::string us_profile((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
-  auto profile_with = [&](const std::string& from, const std::string& to) {
+  // (The run-up margin, in km/h, must exceed the half width plus the crossing window: 30 km/h for the edges.)
+  auto profile_with = [&](const std::string& from, const std::string& to, bool wide_margin = false) {
     std::string t = us_profile;
+    if (wide_margin) t.replace(t.find("run_up_margin_kmh = 12.0"), 24, "run_up_margin_kmh = 30.0");
     const auto at = t.find(from);
     EXPECT_NE(at, std::string::npos) << from;
     if (at != std::string::npos) t.replace(at, from.size(), to);
@@ -389,7 +391,7 @@ TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
         {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 6.213"},
         {"65, 70]", "65, 155.3]"},
         {"[15, 20,", "[4.986, 20,"}})
-    EXPECT_EQ(profile_with(from, to), "") << to;
+    EXPECT_EQ(profile_with(from, to, true), "") << to;
 
   // A [target_us] table: its keys and its units.
   auto us_target = [](const std::string& a, const std::string& b, const std::string& c,
