@@ -100,8 +100,9 @@ void check_row_choice(const TargetOptions& o) {
          "picks a row of the CSV that --epa names, and no --epa is given: give --epa CSV, or drop it"});
   else if (!o.epa.empty() && !line && !id)
     ps.push_back({E, "--epa", "needs the row to take: give --epa-line N or --epa-id ID"});
-  // The estimate is used only when no mass is given: with one it would be ignored.
-  if (given("--estimate-mass-in-running-order"))
+  // The estimate is used only when no mass is given: with one it would be ignored. (With --from all three are
+  // the file's, and refuse_ignored names every one given.)
+  if (o.from.empty() && given("--estimate-mass-in-running-order"))
     for (const char* mass : {"--mass-in-running-order-kg", "--rotating-mass-kg"})
       if (given(mass))
         ps.push_back({E, "--estimate-mass-in-running-order",

@@ -439,7 +439,7 @@ T load_with(TomlReader r, core::Problems* warnings, F read) {
 
 double us_bound(double converted, bool lower) {
   if (converted == 0.0 || !std::isfinite(converted)) return converted;
-  const double scale = std::pow(10.0, 3.0 - std::floor(std::log10(std::abs(converted))));
+  const double scale = std::pow(10.0, 5.0 - std::floor(std::log10(std::abs(converted))));
   return (lower ? std::ceil(converted * scale) : std::floor(converted * scale)) / scale;
 }
 

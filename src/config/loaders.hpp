@@ -47,15 +47,19 @@ inline constexpr CoefficientRange kMetricCoefficients[3] = {{"f0_n", "f0", -5000
                                                             {"f1_n_per_kmh", "f1", -50.0, 50.0, "N/(km/h)"},
                                                             {"f2_n_per_kmh2", "f2", -1.0, 1.0, "N/(km/h)²"}};
 // The US ranges are the metric ones converted with the exact NIST SP 811 factors (core/units.hpp) and rounded
-// inward by us_bound: ±5000 N is ±1124.04 lbf, ±50 N/(km/h) ±18.0897 lbf/mph, ±1 N/(km/h)² ±0.582254
+// inward by us_bound: ±5000 N is ±1124.04 lbf, ±50 N/(km/h) ±18.0897 lbf/mph, ±1 N/(km/h)² ±0.582252
 // lbf/mph² (config_test checks each against us_bound of its metric range).
-inline constexpr CoefficientRange kUsCoefficients[3] = {{"a_lbf", "A", -1124.0, 1124.0, "lbf"},
-                                                        {"b_lbf_per_mph", "B", -18.08, 18.08, "lbf/mph"},
-                                                        {"c_lbf_per_mph2", "C", -0.5822, 0.5822, "lbf/mph²"}};
+inline constexpr CoefficientRange kUsCoefficients[3] = {
+    {"a_lbf", "A", -1124.04, 1124.04, "lbf"},
+    {"b_lbf_per_mph", "B", -18.0897, 18.0897, "lbf/mph"},
+    {"c_lbf_per_mph2", "C", -0.582252, 0.582252, "lbf/mph²"}};
 
-// A bound of a range in a US unit, from the metric bound the tool enforces converted exactly: rounded to 4
+// A bound of a range in a US unit, from the metric bound the tool enforces converted exactly: rounded to 6
 // significant digits towards the inside of the range (a lower bound up, an upper bound down), so that the
-// range a message prints is the range checked, and every value inside it also passes the metric check.
+// range a message prints (core::num, 6 significant digits) is the range checked, and every value inside it
+// also passes the metric check. At 6 digits a value typed with up to 6 significant digits is accepted exactly
+// when the metric check accepts it: the exact edge converted and rounded to the nearest 5 digits (6.2137 mph
+// for 10 km/h) passes, where 4 digits (6.213) would refuse it.
 double us_bound(double converted, bool lower);
 
 // The findings of core::plausibility (and core::check_target) on the coefficients of a target the operator

@@ -341,21 +341,21 @@ def main():
           "README, The operator's day, step 3")
     before = open(os.path.join(w, "r1/T9.toml"), "rb").read()
     for coefficients, words in ((["--us", "nan", "0.5", "0.02"],
-                                 ["--us A: is nan, must be a finite number, allowed -1124 to 1124 lbf"]),
+                                 ["--us A: is nan, must be a finite number, allowed -1124.04 to 1124.04 lbf"]),
                                 (["--us", "30", "inf", "0.02"],
-                                 ["--us B: is inf, must be a finite number, allowed -18.08 to 18.08 lbf/mph"]),
+                                 ["--us B: is inf, must be a finite number, allowed -18.0897 to 18.0897 lbf/mph"]),
                                 (["--metric", "100", "0.5", "7"], ["--metric f2: is 7, allowed -1 to 1 N/(km/h)²"]),
                                 (["--us", "30", "0.5", "-0.02"],
-                                 ["--us C: is -0.02, must be positive (allowed 0 to 0.1164 lbf/mph²)",
+                                 ["--us C: is -0.02, must be positive (allowed 0 to 0.11645 lbf/mph²)",
                                   "not written", "r1/T9.toml is left as it was"]),
                                 # US coefficients: the option typed and its range in US units, the metric
                                 # range converted exactly (NIST SP 811) and rounded inward; never the metric
                                 # key or unit.
-                                (["--us", "30", "0.5", "0.2"], ["--us C: is 0.2, allowed 0 to 0.1164 lbf/mph²"]),
+                                (["--us", "30", "0.5", "0.2"], ["--us C: is 0.2, allowed 0 to 0.11645 lbf/mph²"]),
                                 (["--us", "-5", "0.5", "0.02"],
-                                 ["--us A: is -5, must not be negative (allowed 0 to 1124 lbf)"]),
-                                (["--us", "1150", "0.5", "0.02"], ["--us A: is 1150, allowed -1124 to 1124 lbf"]),
-                                (["--us", "30", "19", "0.02"], ["--us B: is 19, allowed -18.08 to 18.08 lbf/mph"])):
+                                 ["--us A: is -5, must not be negative (allowed 0 to 1124.04 lbf)"]),
+                                (["--us", "1150", "0.5", "0.02"], ["--us A: is 1150, allowed -1124.04 to 1124.04 lbf"]),
+                                (["--us", "30", "19", "0.02"], ["--us B: is 19, allowed -18.0897 to 18.0897 lbf/mph"])):
         rc, out = run(["target"] + coefficients + good[1:], w)
         check("target --out refused: " + " ".join(coefficients), rc, out, 2, words,
               ["T9.toml: error", "written: r1/T9.toml"] +
@@ -535,6 +535,10 @@ def main():
             (target_base + ["--test-mass-kg", "1500", "--estimate-mass-in-running-order"],
              ["--estimate-mass-in-running-order: accepts an estimate when no mass is given, and "
               "--mass-in-running-order-kg is given"]),
+            # With --from both come from the file: every one given is named as ignored, not "drop one of them".
+            (["target", "--from", target, "--mass-in-running-order-kg", "1500", "--estimate-mass-in-running-order"],
+             ["--from: takes the vehicle's facts from the target file, so --mass-in-running-order-kg, "
+              "--estimate-mass-in-running-order would be ignored"]),
             (epa_demo + ["--vehicles", "3"],
              ["--vehicles: draws the vehicles from the CSV that --epa names, and no --epa is given"]),
             (epa_demo + ["--seed", "7"], ["--seed: draws the vehicles from the CSV that --epa names"]),

@@ -314,7 +314,7 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
         "mixed.toml");
   });
   EXPECT_NE(mixed.find("give speeds in km/h or in mph, not both"), std::string::npos) << mixed;
-  // The crossing window in mph is refused below 0.6214 mph under its own key and line: 0.62 mph is 0.998
+  // The crossing window in mph is refused below 0.621372 mph under its own key and line: 0.62 mph is 0.998
   // km/h, below the 1 km/h the km/h key allows (1 mph = 1.609344 km/h exactly, NIST SP 811;
   // config::us_bound).
   const std::string narrow = refusal([] {
@@ -324,13 +324,14 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
         "10.0\n[method]\nkind = \"iterative\"\n",
         "narrow.toml");
   });
-  EXPECT_NE(narrow.find("bands.crossing_fit_half_width_mph (line 5): is 0.62, allowed 0.6214 to 6.213 mph"),
-            std::string::npos)
+  EXPECT_NE(
+      narrow.find("bands.crossing_fit_half_width_mph (line 5): is 0.62, allowed 0.621372 to 6.21371 mph"),
+      std::string::npos)
       << narrow;
 }
 
 // A key in US units is checked against the range the tool enforces in metric units, converted with the exact
-// NIST SP 811 factors (core/units.hpp) and rounded inward to 4 significant digits (config::us_bound), and a
+// NIST SP 811 factors (core/units.hpp) and rounded inward to 6 significant digits (config::us_bound), and a
 // refusal names the key typed with that range in its unit: never the metric key, never km/h or N.
 TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
   namespace u = core::units;
@@ -344,10 +345,10 @@ TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
     EXPECT_DOUBLE_EQ(config::kUsCoefficients[i].hi, config::us_bound(hi, false)) << i;
     EXPECT_GE(config::kUsCoefficients[i].lo, lo) << i;
     EXPECT_LE(config::kUsCoefficients[i].hi, hi) << i;
-    EXPECT_LT(config::kUsCoefficients[i].hi, hi * 1.001) << i;  // 4 significant digits: within 0.1 %
+    EXPECT_LT(config::kUsCoefficients[i].hi, hi * 1.00001) << i;  // 6 significant digits: within 0.001 %
   }
-  EXPECT_DOUBLE_EQ(config::us_bound(u::kmh_to_mph(1.0), true), 0.6214);
-  EXPECT_DOUBLE_EQ(config::us_bound(u::kmh_to_mph(10.0), false), 6.213);
+  EXPECT_DOUBLE_EQ(config::us_bound(u::kmh_to_mph(1.0), true), 0.621372);
+  EXPECT_DOUBLE_EQ(config::us_bound(u::kmh_to_mph(10.0), false), 6.21371);
 
   // A US profile: each band key refused in mph, with the metric check's range in mph.
   std::ifstream in(kSrc + "/config/profiles/us-iterative.toml");
@@ -366,17 +367,17 @@ TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
   };
   const Row profile_rows[] = {
       {"half_width_mph = 2.5", "half_width_mph = 0.55", "bands.half_width_mph (line "},
-      {"half_width_mph = 2.5", "half_width_mph = 0.55", "is 0.55, allowed 0.6214 to 6.213 mph"},
-      {"half_width_mph = 2.5", "half_width_mph = 6.5", "is 6.5, allowed 0.6214 to 6.213 mph"},
+      {"half_width_mph = 2.5", "half_width_mph = 0.55", "is 0.55, allowed 0.621372 to 6.21371 mph"},
+      {"half_width_mph = 2.5", "half_width_mph = 6.5", "is 6.5, allowed 0.621372 to 6.21371 mph"},
       {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 6.5",
        "bands.crossing_fit_half_width_mph (line "},
       {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 6.5",
-       "allowed 0.6214 to 6.213 mph"},
+       "allowed 0.621372 to 6.21371 mph"},
       // The lowest reference speed: the half width + 4 km/h (2.5 + 2.48548 mph), the highest 250 km/h.
       {"[15, 20,", "[4.9, 20,", "bands.reference_speeds_mph[0] (line "},
-      {"[15, 20,", "[4.9, 20,", "is 4.9, allowed 4.986 to 155.3 mph"},
+      {"[15, 20,", "[4.9, 20,", "is 4.9, allowed 4.98549 to 155.342 mph"},
       {"65, 70]", "65, 156]", "bands.reference_speeds_mph[11] (line "},
-      {"65, 70]", "65, 156]", "is 156, allowed 4.986 to 155.3 mph"},
+      {"65, 70]", "65, 156]", "is 156, allowed 4.98549 to 155.342 mph"},
   };
   for (const auto& r : profile_rows) {
     const std::string msg = profile_with(r.from, r.to);
@@ -386,11 +387,18 @@ TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
   }
   // The edges of the printed ranges pass (the metric check behind them too).
   for (const auto& [from, to] :
-       {std::pair<std::string, std::string>{"half_width_mph = 2.5", "half_width_mph = 6.213"},
-        {"half_width_mph = 2.5", "half_width_mph = 0.6214"},
-        {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 6.213"},
-        {"65, 70]", "65, 155.3]"},
-        {"[15, 20,", "[4.986, 20,"}})
+       {std::pair<std::string, std::string>{"half_width_mph = 2.5", "half_width_mph = 6.21371"},
+        {"half_width_mph = 2.5", "half_width_mph = 0.621372"},
+        {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 6.21371"},
+        {"65, 70]", "65, 155.342]"},
+        {"[15, 20,", "[4.98549, 20,"},
+        // The exact metric edges converted and rounded to the nearest 5 significant digits: 10 km/h is
+        // 6.2137119 mph, 1 km/h 0.6213712 mph, 250 km/h 155.34280 mph, the half width + 4 km/h 4.9854848 mph.
+        // The metric check accepts them, and so does the mph one (4 digits, 6.213 and 0.6214, would not).
+        {"half_width_mph = 2.5", "half_width_mph = 6.2137"},
+        {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 0.62138"},
+        {"65, 70]", "65, 155.34]"},
+        {"[15, 20,", "[4.9855, 20,"}})
     EXPECT_EQ(profile_with(from, to, true), "") << to;
 
   // A [target_us] table: its keys and its units.
@@ -402,15 +410,17 @@ TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
     return refusal([&] { config::parse_target(text, "us.toml", w); });
   };
   const Row target_rows[] = {
-      {"a", "1150", "target_us.a_lbf (line 9): is 1150, allowed -1124 to 1124 lbf"},
-      {"a", "-5", "target_us.a_lbf (line 9): is -5, must not be negative (allowed 0 to 1124 lbf)"},
-      {"b", "19", "target_us.b_lbf_per_mph (line 10): is 19, allowed -18.08 to 18.08 lbf/mph"},
-      {"c", "0.6", "target_us.c_lbf_per_mph2 (line 11): is 0.6, allowed -0.5822 to 0.5822 lbf/mph²"},
+      {"a", "1150", "target_us.a_lbf (line 9): is 1150, allowed -1124.04 to 1124.04 lbf"},
+      {"a", "-5", "target_us.a_lbf (line 9): is -5, must not be negative (allowed 0 to 1124.04 lbf)"},
+      {"b", "19", "target_us.b_lbf_per_mph (line 10): is 19, allowed -18.0897 to 18.0897 lbf/mph"},
+      {"c", "0.6", "target_us.c_lbf_per_mph2 (line 11): is 0.6, allowed -0.582252 to 0.582252 lbf/mph²"},
       {"c", "-0.02",
-       "target_us.c_lbf_per_mph2 (line 11): is -0.02, must be positive (allowed 0 to 0.1164 lbf/mph²)"},
-      {"c", "0.2", "target_us.c_lbf_per_mph2 (line 11): is 0.2, allowed 0 to 0.1164 lbf/mph²"},
-      // Above the printed bound, below the metric 0.2 N/(km/h)² converted (0.116452): refused as printed.
-      {"c", "0.11645", "target_us.c_lbf_per_mph2 (line 11): is 0.11645, allowed 0 to 0.1164 lbf/mph²"},
+       "target_us.c_lbf_per_mph2 (line 11): is -0.02, must be positive (allowed 0 to 0.11645 lbf/mph²)"},
+      {"c", "0.2", "target_us.c_lbf_per_mph2 (line 11): is 0.2, allowed 0 to 0.11645 lbf/mph²"},
+      // Above the exact bound, the metric 0.2 N/(km/h)² converted (0.1164505): refused in lbf/mph².
+      {"c", "0.116451", "target_us.c_lbf_per_mph2 (line 11): is 0.116451, allowed 0 to 0.11645 lbf/mph²"},
+      // Above the printed bound and below the exact one (7 digits): refused as printed.
+      {"c", "0.1164502", "target_us.c_lbf_per_mph2 (line 11): is 0.11645, allowed 0 to 0.11645 lbf/mph²"},
   };
   for (const auto& r : target_rows) {
     const std::string msg =
@@ -419,17 +429,23 @@ TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
     EXPECT_EQ(msg.find("target."), std::string::npos) << msg;
     EXPECT_EQ(msg.find("N/(km/h)"), std::string::npos) << msg;
   }
-  EXPECT_EQ(us_target("1124", "18.08", "0.1164"), "");  // the printed edges pass
+  EXPECT_EQ(us_target("1124.04", "18.0897", "0.11645"), "");  // the printed edges pass
+  // Values inside the exact edges typed with fewer digits (5000 N is 1124.0447 lbf, 50 N/(km/h) 18.089746
+  // lbf/mph, 0.2 N/(km/h)² 0.1164505 lbf/mph²): accepted, as the metric check accepts them (4 significant
+  // digits would print and check ±18.08 and 0.1164, and refuse 18.089 and 0.11645).
+  EXPECT_EQ(us_target("1124.0", "18.089", "0.11645"), "");
+  EXPECT_EQ(us_target("1124.0", "-18.089", "0.11645"), "");
+  EXPECT_NE(us_target("1124.05", "0.3", "0.02"), "");  // above the exact edge: the metric check refuses too
   // Warnings too: B outside the usual ±10 N/(km/h), C below the usual 0.005 N/(km/h)², in US units.
   core::Problems w;
   EXPECT_EQ(us_target("30", "5", "0.002", &w), "");
   const std::string warned = config::format_problems("us.toml", w);
-  EXPECT_NE(warned.find("target_us.b_lbf_per_mph (line 10): is 5, outside the usual ±3.617 lbf/mph"),
+  EXPECT_NE(warned.find("target_us.b_lbf_per_mph (line 10): is 5, outside the usual ±3.61794 lbf/mph"),
             std::string::npos)
       << warned;
-  EXPECT_NE(
-      warned.find("target_us.c_lbf_per_mph2 (line 11): is 0.002, below the usual 0.002912–0.1164 lbf/mph²"),
-      std::string::npos)
+  EXPECT_NE(warned.find(
+                "target_us.c_lbf_per_mph2 (line 11): is 0.002, below the usual 0.00291127–0.11645 lbf/mph²"),
+            std::string::npos)
       << warned;
   EXPECT_EQ(warned.find("N/(km/h)"), std::string::npos) << warned;
 }
