@@ -8,6 +8,9 @@
 #include <iostream>
 #include <numeric>
 #include <random>
+#include <string>
+#include <utility>
+#include <vector>
 
 #include "app/exit_codes.hpp"
 #include "app/session_runner.hpp"
@@ -33,7 +36,45 @@ struct DemoOptions {
   std::string epa;
   int vehicles = 20;
   unsigned seed = 2026;
+  std::vector<std::string> given;  // the options given on the command line, by name
 };
+
+// Options that only one kind of demo uses: given to the other they would be ignored, so the demo refuses them
+// by name (exit 2) rather than ignore them. --vehicles and --seed draw vehicles from --epa; with --epa each
+// vehicle's target is a CSV row and its truth is drawn at random, every session runs in-process (no
+// loadtrim-sim, so no time scale) and no live page is served; --in-process runs no loadtrim-sim either.
+void refuse_unused(const DemoOptions& o) {
+  auto given = [&](const std::string& name) {
+    return std::find(o.given.begin(), o.given.end(), name) != o.given.end();
+  };
+  const auto E = core::Problem::Severity::error;
+  core::Problems ps;
+  if (o.epa.empty()) {
+    for (const char* name : {"--vehicles", "--seed"})
+      if (given(name))
+        ps.push_back(
+            {E, name,
+             "draws the vehicles from the CSV that --epa names, and no --epa is given: give --epa CSV, "
+             "or drop " +
+                 std::string(name) + " (without --epa the demo runs the one vehicle of --target)"});
+    if (!o.req.live && given("--live-bind"))
+      ps.push_back({E, "--live-bind",
+                    "sets where the live page listens, and --no-live serves none: drop one of them"});
+    if (o.in_process && given("--time-scale"))
+      ps.push_back({E, "--time-scale",
+                    "sets loadtrim-sim's time scale, and --in-process runs no loadtrim-sim (the in-process "
+                    "controller runs as fast as it can): drop one of them"});
+  } else {
+    for (const auto& [name, why] :
+         {std::pair<const char*, const char*>{"--target", "each vehicle's target is a row of the CSV"},
+          {"--truth", "each vehicle's truth is drawn at random (--seed)"},
+          {"--time-scale", "the sessions run in-process, with no loadtrim-sim"},
+          {"--live-bind", "a fleet of sessions serves no live page"}})
+      if (given(name))
+        ps.push_back({E, name, std::string("is not used with --epa (") + why + "): drop it, or drop --epa"});
+  }
+  if (!ps.empty()) throw config::InputError("command line", ps);
+}
 
 int demo_one(DemoOptions o) {
   std::printf("loadtrim demo: the rollers are simulated (loadtrim-sim); nothing physical moves.\n");
@@ -163,8 +204,12 @@ void register_demo(CLI::App& app, Runner& run) {
   auto* j = sub->add_flag_function(
       "--json", [o](std::int64_t) { o->req.console = session::Console::Mode::json; }, "JSON lines");
   q->excludes(j);
-  sub->callback([o, &run] {
+  sub->callback([o, sub, &run] {
+    o->given.clear();
+    for (const CLI::Option* opt : sub->get_options())
+      if (opt->count() > 0) o->given.push_back(opt->get_name());
     run = [o] {
+      refuse_unused(*o);
       record::DataRoot root;
       if (!resolve_lab(o->req, root)) return static_cast<int>(kBadInput);
       if (!o->epa.empty()) o->req.live = false;  // a fleet of sessions: no page for each

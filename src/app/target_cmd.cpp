@@ -80,6 +80,37 @@ void refuse_ignored(const TargetOptions& o, const std::string& kind) {
             (kind == "file" ? "file" : "target file written with --out") + " instead"}});
 }
 
+// --epa-line and --epa-id each pick the row of the CSV --epa names: both at once (the line was used, the id
+// not looked at), either without --epa (ignored), or --epa with neither (no row) is refused, naming them; so
+// is --estimate-mass-in-running-order beside a mass given (the estimate would be ignored).
+void check_row_choice(const TargetOptions& o) {
+  auto given = [&](const char* name) {
+    return std::find(o.given.begin(), o.given.end(), name) != o.given.end();
+  };
+  const bool line = given("--epa-line"), id = given("--epa-id");
+  const auto E = core::Problem::Severity::error;
+  core::Problems ps;
+  if (line && id)
+    ps.push_back({E, "--epa-line",
+                  "and --epa-id both pick the CSV row (--epa-line " + std::to_string(o.epa_line) +
+                      ", --epa-id " + o.epa_id + "): give one of them"});
+  else if ((line || id) && o.epa.empty())
+    ps.push_back(
+        {E, line ? "--epa-line" : "--epa-id",
+         "picks a row of the CSV that --epa names, and no --epa is given: give --epa CSV, or drop it"});
+  else if (!o.epa.empty() && !line && !id)
+    ps.push_back({E, "--epa", "needs the row to take: give --epa-line N or --epa-id ID"});
+  // The estimate is used only when no mass is given: with one it would be ignored. (With --from all three are
+  // the file's, and refuse_ignored names every one given.)
+  if (o.from.empty() && given("--estimate-mass-in-running-order"))
+    for (const char* mass : {"--mass-in-running-order-kg", "--rotating-mass-kg"})
+      if (given(mass))
+        ps.push_back({E, "--estimate-mass-in-running-order",
+                      std::string("accepts an estimate when no mass is given, and ") + mass +
+                          " is given: drop one of them"});
+  if (!ps.empty()) throw config::InputError("command line", ps);
+}
+
 // How the mass in running order was settled: given, or an estimate the operator accepted explicitly. Without
 // either (and without a rotating mass), nothing is invented: the command is refused, naming the options.
 // `estimate`: the estimate this source offers and how it is made.
@@ -225,6 +256,7 @@ nlohmann::json coef(const core::RoadLoad& c) {
 }
 
 int run_target(const TargetOptions& o) {
+  check_row_choice(o);
   refuse_ignored(o, where_from(o));
   // --from: the file is read as `run` reads it, its warnings (an unknown key, a typo?) kept for the findings;
   // the profile is the file's own (checked against the known ones), unless --profile gives another, as for
@@ -250,9 +282,20 @@ int run_target(const TargetOptions& o) {
     cell = config::load_cell(o.cell, adapters::tool_registry().sections());
     layout = cell->axles;
   }
+  // Coefficients the operator gave in US units (--us, or a file's [target_us]): the findings on them name the
+  // option or the file's key, with ranges in lbf, lbf/mph, lbf/mph² (config::in_us_units).
+  const bool given_in_us = !o.us.empty() || (!o.from.empty() && v.target_given_in_us);
+  const core::RoadLoadUs typed_us =
+      o.us.size() == 3 ? core::RoadLoadUs{o.us[0], o.us[1], o.us[2]} : core::to_us(v.target);
+  static const std::string us_options[3] = {"--us A", "--us B", "--us C"};
+  static const std::string us_keys[3] = {"target_us.a_lbf", "target_us.b_lbf_per_mph",
+                                         "target_us.c_lbf_per_mph2"};
+  auto as_given = [&](const core::Problems& ps) {
+    return given_in_us ? config::in_us_units(ps, typed_us, o.us.empty() ? us_keys : us_options) : ps;
+  };
   // The file's own warnings first (with their lines), then what the checks below find that they did not say.
   core::Problems found = file_warnings;
-  for (const core::Problem& p : core::plausibility(v))
+  for (const core::Problem& p : as_given(core::plausibility(v)))
     if (std::none_of(found.begin(), found.end(),
                      [&](const core::Problem& q) { return q.message == p.message; }))
       found.push_back(p);
@@ -282,18 +325,17 @@ int run_target(const TargetOptions& o) {
         if (!known) found.push_back(p);
       }
     };
-    add(cp.target, "");
+    add(as_given(cp.target), "");
     add(cp.profile, pfile);
     if (cell) add(cp.cell, o.cell);
   }
-  // Coefficients typed on the command line: a finding on one names the option as well as the file's key.
-  if (!o.metric.empty() || !o.us.empty())
+  // Metric coefficients typed on the command line: a finding on one names the option as well as the file's
+  // key (US ones are named above, in their units).
+  if (!o.metric.empty())
     for (core::Problem& p : found)
       for (std::size_t i = 0; i < 3; ++i)
         if (p.key == std::string("target.") + config::kMetricCoefficients[i].key)
-          p.key = (o.us.empty() ? std::string("--metric ") + config::kMetricCoefficients[i].name
-                                : std::string("--us ") + config::kUsCoefficients[i].name) +
-                  " (" + p.key + ")";
+          p.key = std::string("--metric ") + config::kMetricCoefficients[i].name + " (" + p.key + ")";
   const double m_r = core::resolved_rotating_mass_kg(v, profile.mass);
   const double force_mass = core::force_mass_kg(v.test_mass_kg, m_r);
   const double inertia = core::dyno_inertia_kg(v.test_mass_kg, m_r, layout, profile.mass);

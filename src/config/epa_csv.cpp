@@ -105,6 +105,18 @@ EpaFile read_epa_csv(const std::string& path) {
         ok = false;
       }
     if (!ok) continue;
+    // The weight is the test mass, and less the load allowance the mass in running order: a row too light for
+    // either (or too heavy) is not used.
+    if (!(v[0] >= kEpaMinEtw_kg && v[0] <= core::kMaxTestMass_kg)) {
+      f.skipped.push_back(
+          {lineno, "etw_kg", row.id,
+           "is " + core::num(v[0]) + ", allowed " + core::num(kEpaMinEtw_kg) + " to " +
+               core::num(core::kMaxTestMass_kg) +
+               " kg (the test mass; the mass in running order is estimated as the weight less " +
+               core::num(kEpaLoadAllowance_kg) + " kg and must be at least " +
+               core::num(kEpaMinEtw_kg - kEpaLoadAllowance_kg) + " kg)"});
+      continue;
+    }
     row.etw_kg = v[0];
     row.target = {v[1], v[2], v[3]};
     row.set = {v[4], v[5], v[6]};
@@ -164,8 +176,9 @@ core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profil
   t.description = "US EPA Test Car List row at line " + std::to_string(row.line);
   t.test_mass_kg = row.etw_kg;
   // The list gives the equivalent test weight only: its mass in running order is an estimate (the weight
-  // less 100 kg; common practice, no source) and says so wherever the target goes (target file, record).
-  t.mass_in_running_order_kg = row.etw_kg - 100.0;
+  // less kEpaLoadAllowance_kg, 100 kg; common practice, no source) and says so wherever the target goes
+  // (target file, record).
+  t.mass_in_running_order_kg = row.etw_kg - kEpaLoadAllowance_kg;
   t.mass_in_running_order_estimated = true;
   t.drive = drive_of(row);
   t.max_speed_kmh = max_speed_kmh;

@@ -39,10 +39,18 @@ struct EpaFile {
 inline constexpr const char* kEpaDriveCodes =
     "\"F\" (2WD front), \"R\" (2WD rear), \"A\" (AWD), \"4\" (4WD), \"P\" (part-time 4WD)";
 
+// A row's mass in running order is estimated as its equivalent test weight less this (common practice, no
+// source: US test weight adds a nominal load to the curb mass; target_from_epa).
+inline constexpr double kEpaLoadAllowance_kg = 100.0;
+// The equivalent test weights a row may give: its estimated mass in running order at least the lowest a
+// target file takes (vehicle.mass_in_running_order_kg, half of core::kMinTestMass_kg: 25 kg), so at least
+// 125 kg; at most core::kMaxTestMass_kg. A lighter row would give a mass in running order of zero or below.
+inline constexpr double kEpaMinEtw_kg = kEpaLoadAllowance_kg + 0.5 * core::kMinTestMass_kg;
+
 // Throws InputError when the file cannot be read or lacks a required column. A row that cannot be used (too
-// few cells, a number column that is not a finite number, a drive_system_code not one of kEpaDriveCodes) is
-// not guessed at: it is listed in `skipped` with its line and column. Spaces around a value are not part of
-// it.
+// few cells, a number column that is not a finite number, a drive_system_code not one of kEpaDriveCodes, an
+// etw_kg outside kEpaMinEtw_kg to core::kMaxTestMass_kg) is not guessed at: it is listed in `skipped` with
+// its line and column. Spaces around a value are not part of it.
 EpaFile read_epa_csv(const std::string& path);
 
 // "PATH: line N, column C: MESSAGE; the row is not used" for the first `most` skipped rows, one a line, and
@@ -62,9 +70,8 @@ core::Drive drive_of(const EpaRow& row);
 // row's drive (core::axle_layout_for(drive_of(row))), the target and the lab's set curve.
 std::vector<core::FleetRow> fleet_rows(const EpaFile& f);
 
-// A vehicle target from a row: test mass = ETW; mass in running order taken as ETW − 100 kg (common practice,
-// no source: US test weight adds a nominal load to the curb mass); drive code F/R single axle, A/4/P all
-// wheels.
+// A vehicle target from a row: test mass = ETW; mass in running order taken as ETW − kEpaLoadAllowance_kg
+// (100 kg); drive code F/R single axle, A/4/P all wheels.
 core::VehicleTarget target_from_epa(const EpaRow& row, const std::string& profile,
                                     double max_speed_kmh = 180.0);
 

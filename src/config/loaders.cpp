@@ -1,6 +1,7 @@
 #include "config/loaders.hpp"
 
 #include <algorithm>
+#include <cmath>
 #include <filesystem>
 
 #include "config/input_error.hpp"
@@ -26,11 +27,23 @@ core::Profile read_profile(TomlReader& r) {
           : r.has("bands.crossing_fit_half_width_mph"))
     r.error("bands", "give speeds in km/h or in mph, not both");
   if (mph) {
-    for (double v : r.numbers("bands.reference_speeds_mph", 1.0, 160.0, "mph"))
-      p.reference_speeds_kmh.push_back(core::units::mph_to_kmh(v));
-    p.band_half_width_kmh = core::units::mph_to_kmh(r.number("bands.half_width_mph", 0.5, 7.0, "mph"));
-    p.crossing_fit_half_width_kmh = core::units::mph_to_kmh(
-        r.number_or("bands.crossing_fit_half_width_mph", core::units::kmh_to_mph(2.5), 0.63, 6.2, "mph"));
+    // The ranges core::validate enforces in km/h (below), said and checked in mph: converted exactly and
+    // rounded inward (us_bound), so a value these let through passes the metric check too, whose km/h
+    // findings on these keys are then not shown (the operator typed mph).
+    namespace u = core::units;
+    const double half_mph = r.number("bands.half_width_mph", us_bound(u::kmh_to_mph(1.0), true),
+                                     us_bound(u::kmh_to_mph(10.0), false), "mph");
+    p.band_half_width_kmh = u::mph_to_kmh(half_mph);
+    // Each reference speed at least the half width + 4 km/h above standstill (the band's lower edge 4 km/h
+    // up), at most 250 km/h.
+    const double lowest_mph =
+        us_bound(u::kmh_to_mph(std::isfinite(half_mph) ? p.band_half_width_kmh + 4.0 : 5.0), true);
+    for (double v :
+         r.numbers("bands.reference_speeds_mph", lowest_mph, us_bound(u::kmh_to_mph(250.0), false), "mph"))
+      p.reference_speeds_kmh.push_back(u::mph_to_kmh(v));
+    p.crossing_fit_half_width_kmh = u::mph_to_kmh(
+        r.number_or("bands.crossing_fit_half_width_mph", u::kmh_to_mph(2.5),
+                    us_bound(u::kmh_to_mph(1.0), true), us_bound(u::kmh_to_mph(10.0), false), "mph"));
   } else {
     p.reference_speeds_kmh = r.numbers("bands.reference_speeds_kmh", 1.0, 250.0, "km/h");
     p.band_half_width_kmh = r.number("bands.half_width_kmh", 1.0, 10.0, "km/h");
@@ -97,16 +110,23 @@ core::Profile read_profile(TomlReader& r) {
   p.loss_map.coast_between_holds = r.boolean_or("loss_map.coast_between_holds", false);
   // Cross-field rules (ordering, run-up margin against Δv, fixed-run counts) live in the core validator.
   core::Problems ps = core::validate(p);
-  if (mph)
+  if (mph) {
+    // The band keys were checked above in mph against the same ranges: their km/h findings would name keys
+    // and units the file does not have. What is left on the speeds (how many, their order) is renamed.
+    std::erase_if(ps, [](const core::Problem& q) {
+      return q.key == "bands.half_width_kmh" || q.key == "bands.crossing_fit_half_width_kmh" ||
+             q.key.rfind("bands.reference_speeds_kmh[", 0) == 0;
+    });
     for (auto& q : ps)
-      if (q.key.rfind("bands.reference_speeds_kmh", 0) == 0)
-        q.key.replace(0, 26, "bands.reference_speeds_mph");
+      if (q.key == "bands.reference_speeds_kmh") q.key = "bands.reference_speeds_mph";
+  }
   r.add(ps);
   return p;
 }
 
+// `typed_us`: the coefficients as the [us_table] gives them, when it is the one given.
 core::RoadLoad read_coefficients(TomlReader& r, const std::string& table, const std::string& us_table,
-                                 bool& present) {
+                                 bool& present, core::RoadLoadUs* typed_us = nullptr) {
   const bool metric = r.has(table), us = r.has(us_table);
   present = metric || us;
   if (metric && us) {
@@ -122,6 +142,7 @@ core::RoadLoad read_coefficients(TomlReader& r, const std::string& table, const 
     c[i] = r.number(t + "." + k.key, k.lo, k.hi, k.unit);
   }
   if (metric) return {c[0], c[1], c[2]};
+  if (typed_us) *typed_us = {c[0], c[1], c[2]};
   return core::to_metric({c[0], c[1], c[2]});
 }
 
@@ -162,7 +183,8 @@ core::VehicleTarget read_target(TomlReader& r, const std::vector<std::string>& p
                 " (config/profiles), or the path of a profile file ending in .toml"}});
   }
   bool present = false;
-  v.target = read_coefficients(r, "target", "target_us", present);
+  core::RoadLoadUs typed_us;
+  v.target = read_coefficients(r, "target", "target_us", present, &typed_us);
   v.target_given_in_us = r.has("target_us") && !r.has("target");
   if (!present)
     r.error("target",
@@ -171,7 +193,10 @@ core::VehicleTarget read_target(TomlReader& r, const std::vector<std::string>& p
   bool initial = false;
   const core::RoadLoad init = read_coefficients(r, "initial_set", "initial_set_us", initial);
   if (initial) v.initial_set = init;
-  r.add(core::plausibility(v));
+  // A [target_us] table's findings name its keys, with ranges in its units.
+  static const std::string us_keys[3] = {"target_us.a_lbf", "target_us.b_lbf_per_mph",
+                                         "target_us.c_lbf_per_mph2"};
+  r.add(v.target_given_in_us ? in_us_units(core::plausibility(v), typed_us, us_keys) : core::plausibility(v));
   return v;
 }
 
@@ -411,6 +436,64 @@ T load_with(TomlReader r, core::Problems* warnings, F read) {
 }
 
 }  // namespace
+
+double us_bound(double converted, bool lower) {
+  if (converted == 0.0 || !std::isfinite(converted)) return converted;
+  const double scale = std::pow(10.0, 5.0 - std::floor(std::log10(std::abs(converted))));
+  return (lower ? std::ceil(converted * scale) : std::floor(converted * scale)) / scale;
+}
+
+core::Problems in_us_units(const core::Problems& metric_findings, const core::RoadLoadUs& typed,
+                           const std::string (&names)[3]) {
+  namespace u = core::units;
+  using core::num;
+  const auto E = core::Problem::Severity::error;
+  const double per_mph2 = u::kKmhPerMph * u::kKmhPerMph;
+  // core::plausibility's bounds (core/vehicle.hpp) in US units; A's upper bound is the file's
+  // (kUsCoefficients).
+  const double a_max = kUsCoefficients[0].hi;
+  const double c_max = us_bound(u::n_to_lbf(core::kMaxTargetF2_n_per_kmh2 * per_mph2), false);
+  const double b_usual = us_bound(u::n_to_lbf(core::kUsualTargetF1_n_per_kmh * u::kKmhPerMph), false);
+  const double c_usual = us_bound(u::n_to_lbf(core::kUsualMinTargetF2_n_per_kmh2 * per_mph2), true);
+  const std::string metric[3] = {"target.f0_n", "target.f1_n_per_kmh", "target.f2_n_per_kmh2"};
+  const double value[3] = {typed.a_lbf, typed.b_lbf_per_mph, typed.c_lbf_per_mph2};
+  core::Problems out;
+  bool c_refused = false;
+  for (const core::Problem& p : metric_findings) {
+    int i = 0;
+    while (i < 3 && p.key != metric[i]) ++i;
+    if (i == 3) {
+      out.push_back(p);
+      continue;
+    }
+    const bool error = p.severity == E;
+    const std::string is = "is " + num(value[i]);
+    std::string key = names[i], msg;
+    if (i == 0 && error)
+      msg = is + ", must not be negative (allowed 0 to " + num(a_max) + " lbf)";
+    else if (i == 1 && !error)
+      msg = is + ", outside the usual ±" + num(b_usual) + " lbf/mph: check units";
+    else if (i == 2 && error) {
+      msg = is + (value[2] < 0.0 ? ", must be positive (allowed 0 to " + num(c_max) + " lbf/mph²)"
+                                 : ", allowed 0 to " + num(c_max) + " lbf/mph²");
+      c_refused = true;
+    } else if (i == 2 && !error && value[2] > 0.0)
+      msg = is + ", below the usual " + num(c_usual) + "–" + num(c_max) +
+            " lbf/mph²: given per (km/h)² or per (m/s)²?";
+    else {
+      // A finding with no range of these keys in it (F0/(TM·g); C = 0): as it is, with the metric key it
+      // speaks of when it names a metric unit.
+      msg = p.message;
+      if (msg.find("N/(km/h)") != std::string::npos) key += " (" + metric[i] + ")";
+    }
+    out.push_back({p.severity, key, msg});
+  }
+  // C between the printed bound and the metric one converted (the rounding): refused as printed (the 1e-12
+  // lets through a C at the bound that was converted to metric and back, and so differs in its last digit).
+  if (!c_refused && value[2] > c_max * (1.0 + 1e-12))
+    out.push_back({E, names[2], "is " + num(value[2]) + ", allowed 0 to " + num(c_max) + " lbf/mph²"});
+  return out;
+}
 
 core::Profile load_profile(const std::string& path, core::Problems* w) {
   return load_with<core::Profile>(TomlReader::from_file(path), w, read_profile);

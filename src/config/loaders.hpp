@@ -46,9 +46,29 @@ struct CoefficientRange {
 inline constexpr CoefficientRange kMetricCoefficients[3] = {{"f0_n", "f0", -5000.0, 5000.0, "N"},
                                                             {"f1_n_per_kmh", "f1", -50.0, 50.0, "N/(km/h)"},
                                                             {"f2_n_per_kmh2", "f2", -1.0, 1.0, "N/(km/h)²"}};
-inline constexpr CoefficientRange kUsCoefficients[3] = {{"a_lbf", "A", -1200.0, 1200.0, "lbf"},
-                                                        {"b_lbf_per_mph", "B", -20.0, 20.0, "lbf/mph"},
-                                                        {"c_lbf_per_mph2", "C", -0.6, 0.6, "lbf/mph²"}};
+// The US ranges are the metric ones converted with the exact NIST SP 811 factors (core/units.hpp) and rounded
+// inward by us_bound: ±5000 N is ±1124.04 lbf, ±50 N/(km/h) ±18.0897 lbf/mph, ±1 N/(km/h)² ±0.582252
+// lbf/mph² (config_test checks each against us_bound of its metric range).
+inline constexpr CoefficientRange kUsCoefficients[3] = {
+    {"a_lbf", "A", -1124.04, 1124.04, "lbf"},
+    {"b_lbf_per_mph", "B", -18.0897, 18.0897, "lbf/mph"},
+    {"c_lbf_per_mph2", "C", -0.582252, 0.582252, "lbf/mph²"}};
+
+// A bound of a range in a US unit, from the metric bound the tool enforces converted exactly: rounded to 6
+// significant digits towards the inside of the range (a lower bound up, an upper bound down), so that the
+// range a message prints (core::num, 6 significant digits) is the range checked, and every value inside it
+// also passes the metric check. At 6 digits a value typed with up to 6 significant digits is accepted exactly
+// when the metric check accepts it: the exact edge converted and rounded to the nearest 5 digits (6.2137 mph
+// for 10 km/h) passes, where 4 digits (6.213) would refuse it.
+double us_bound(double converted, bool lower);
+
+// The findings of core::plausibility (and core::check_target) on the coefficients of a target the operator
+// gave in US units, said in those units: a finding on target.f0_n, f1_n_per_kmh or f2_n_per_kmh2 is named
+// `names[0..2]` (the US keys, "target_us.a_lbf", or the options, "--us A") and its range is in lbf, lbf/mph,
+// lbf/mph², the metric bounds converted (us_bound). C above that printed bound is refused here as well, so
+// what is printed is what is checked. `typed`: the coefficients as given. Other findings pass unchanged.
+core::Problems in_us_units(const core::Problems& metric_findings, const core::RoadLoadUs& typed,
+                           const std::string (&names)[3]);
 
 // Finds a profile by name in a directory of profiles (name.toml), for a target's `profile = "..."`.
 std::string profile_path(const std::string& profiles_dir, const std::string& name);

@@ -63,10 +63,11 @@ Problems plausibility(const VehicleTarget& v) {
     return ps;
   }
   if (t.f2_n_per_kmh2 < 0.0)
+    err("target.f2_n_per_kmh2", "is " + num(t.f2_n_per_kmh2) + ", must be positive (allowed 0 to " +
+                                    num(kMaxTargetF2_n_per_kmh2) + " N/(km/h)²)");
+  else if (t.f2_n_per_kmh2 > kMaxTargetF2_n_per_kmh2)
     err("target.f2_n_per_kmh2",
-        "is " + num(t.f2_n_per_kmh2) + ", must be positive (allowed 0 to 0.2 N/(km/h)²)");
-  else if (t.f2_n_per_kmh2 > 0.2)
-    err("target.f2_n_per_kmh2", "is " + num(t.f2_n_per_kmh2) + ", allowed 0 to 0.2 N/(km/h)²");
+        "is " + num(t.f2_n_per_kmh2) + ", allowed 0 to " + num(kMaxTargetF2_n_per_kmh2) + " N/(km/h)²");
   // F0 may be zero (CFR 86.529-98 Figure F98-9's lightest row has A = 0), never negative.
   if (!(t.f0_n >= 0.0))
     err("target.f0_n", "is " + num(t.f0_n) + ", must not be negative (allowed 0 to 5000 N)");
@@ -80,12 +81,13 @@ Problems plausibility(const VehicleTarget& v) {
            "F0/(TM·g) = " + num(ratio) +
                " is above the usual 0.004–0.03: was the mass given in tonnes, or F0 in a wrong unit?");
   }
-  if (std::abs(t.f1_n_per_kmh) > 10.0)
-    warn("target.f1_n_per_kmh",
-         "is " + num(t.f1_n_per_kmh) + ", outside the usual ±10 N/(km/h): check units");
-  if (t.f2_n_per_kmh2 > 0.0 && t.f2_n_per_kmh2 < 0.005)
-    warn("target.f2_n_per_kmh2", "is " + num(t.f2_n_per_kmh2) +
-                                     ", below the usual 0.005–0.2 N/(km/h)²: given per (m/s)² or per mph²?");
+  if (std::abs(t.f1_n_per_kmh) > kUsualTargetF1_n_per_kmh)
+    warn("target.f1_n_per_kmh", "is " + num(t.f1_n_per_kmh) + ", outside the usual ±" +
+                                    num(kUsualTargetF1_n_per_kmh) + " N/(km/h): check units");
+  if (t.f2_n_per_kmh2 > 0.0 && t.f2_n_per_kmh2 < kUsualMinTargetF2_n_per_kmh2)
+    warn("target.f2_n_per_kmh2", "is " + num(t.f2_n_per_kmh2) + ", below the usual " +
+                                     num(kUsualMinTargetF2_n_per_kmh2) + "–" + num(kMaxTargetF2_n_per_kmh2) +
+                                     " N/(km/h)²: given per (m/s)² or per mph²?");
   if (t.force_n(20.0) <= 0.0)
     err("target", "force at 20 km/h is not positive: the vehicle would not decelerate");
   return ps;

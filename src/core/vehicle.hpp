@@ -50,6 +50,15 @@ struct VehicleTarget {
 inline constexpr double kMinTestMass_kg = 50.0;
 inline constexpr double kMaxTestMass_kg = 20000.0;
 
+// The target coefficients plausibility() refuses outside (errors) or questions (warnings), in metric units;
+// config translates them for a target typed in US units (config::in_us_units). F0 at least 0 (CFR 86.529-98
+// Figure F98-9's lightest row has A = 0), F2 from 0 (docs/standards.md §1: the aerodynamic term is
+// positive) to 0.2 N/(km/h)²; the usual |F1| up to 10 N/(km/h) and F2 from 0.005 N/(km/h)² (common practice,
+// no source).
+inline constexpr double kMaxTargetF2_n_per_kmh2 = 0.2;
+inline constexpr double kUsualTargetF1_n_per_kmh = 10.0;
+inline constexpr double kUsualMinTargetF2_n_per_kmh2 = 0.005;
+
 // m_r: as given, else from the mass in running order by the rule.
 double resolved_rotating_mass_kg(const VehicleTarget& v, const MassRule& rule);
 

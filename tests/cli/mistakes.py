@@ -341,16 +341,26 @@ def main():
           "README, The operator's day, step 3")
     before = open(os.path.join(w, "r1/T9.toml"), "rb").read()
     for coefficients, words in ((["--us", "nan", "0.5", "0.02"],
-                                 ["--us A: is nan, must be a finite number, allowed -1200 to 1200 lbf"]),
+                                 ["--us A: is nan, must be a finite number, allowed -1124.04 to 1124.04 lbf"]),
                                 (["--us", "30", "inf", "0.02"],
-                                 ["--us B: is inf, must be a finite number, allowed -20 to 20 lbf/mph"]),
+                                 ["--us B: is inf, must be a finite number, allowed -18.0897 to 18.0897 lbf/mph"]),
                                 (["--metric", "100", "0.5", "7"], ["--metric f2: is 7, allowed -1 to 1 N/(km/h)²"]),
                                 (["--us", "30", "0.5", "-0.02"],
-                                 ["--us C (target.f2_n_per_kmh2)", "must be positive",
-                                  "not written", "r1/T9.toml is left as it was"])):
+                                 ["--us C: is -0.02, must be positive (allowed 0 to 0.11645 lbf/mph²)",
+                                  "not written", "r1/T9.toml is left as it was"]),
+                                # US coefficients: the option typed and its range in US units, the metric
+                                # range converted exactly (NIST SP 811) and rounded inward; never the metric
+                                # key or unit.
+                                (["--us", "30", "0.5", "0.2"], ["--us C: is 0.2, allowed 0 to 0.11645 lbf/mph²"]),
+                                (["--us", "-5", "0.5", "0.02"],
+                                 ["--us A: is -5, must not be negative (allowed 0 to 1124.04 lbf)"]),
+                                (["--us", "1150", "0.5", "0.02"], ["--us A: is 1150, allowed -1124.04 to 1124.04 lbf"]),
+                                (["--us", "30", "19", "0.02"], ["--us B: is 19, allowed -18.0897 to 18.0897 lbf/mph"])):
         rc, out = run(["target"] + coefficients + good[1:], w)
         check("target --out refused: " + " ".join(coefficients), rc, out, 2, words,
-              ["T9.toml: error", "written: r1/T9.toml"], "README, Exit codes: 2; step 3")
+              ["T9.toml: error", "written: r1/T9.toml"] +
+              (["target.f"] if coefficients[0] == "--us" else []),
+              "README, Exit codes: 2; step 3")
         if open(os.path.join(w, "r1/T9.toml"), "rb").read() != before:
             FAILED.append("target --out refused changed the file: " + " ".join(coefficients))
             print("FAIL target --out refused (%s) changed r1/T9.toml" % " ".join(coefficients))
@@ -467,6 +477,7 @@ def main():
     rows[5] = ",".join(epa[5].split(",")[:5])
     rows[6] = with_cell(7, "etw_kg", "-5")
     rows[7] = with_cell(8, "etw_kg", "12x")
+    rows[8] = with_cell(9, "etw_kg", "80")
     bad_csv = os.path.join(w, "bad-rows.csv")
     with open(bad_csv, "w") as f:
         f.write("\n".join(rows) + "\n")
@@ -477,7 +488,12 @@ def main():
             (4, 2, ['bad-rows.csv: error: line 4, column drive_system_code: is "f", ' + codes]),
             (6, 2, ["bad-rows.csv: error: line 6, column drive_system_code: is missing: the row has 5 cells, "
                     "the header 24"]),
-            (7, 2, ["bad-rows.csv: error: line 7, column etw_kg", "is -5, allowed 50 to 20000 kg"]),
+            (7, 2, ["bad-rows.csv: error: line 7, column etw_kg", "is -5, allowed 125 to 20000 kg"]),
+            # Lighter than the 100 kg the mass in running order is estimated below it, plus the lowest mass in
+            # running order a target takes (25 kg): left out, not tabled with a negative mass.
+            (9, 2, ["bad-rows.csv: error: line 9, column etw_kg: is 80, allowed 125 to 20000 kg",
+                    "the mass in running order is estimated as the weight less 100 kg",
+                    "the row cannot be used (--epa-line 9)"]),
             (8, 2, ['bad-rows.csv: error: line 8, column etw_kg: is "12x", not a number: allowed a finite number '
                     "in kg"]),
             (10, 2, ["bad-rows.csv: error: --epa-line: is 10: the file ends at line 9"]),
@@ -503,6 +519,41 @@ def main():
            bad_csv + ': line 4, column drive_system_code: is "f"', bad_csv + ": line 6, column drive_system_code",
            bad_csv + ": line 8, column etw_kg", "1 of 1 vehicles accepted"], [],
           "the brief's rule: never a silent default")
+
+    # 14. Options that pick or need another: both row choices at once, one without --epa, --epa without one
+    # (target), and the demo's options that only one kind of demo uses; each refused (exit 2), naming them,
+    # before anything runs (the brief's rule: never a silent default; README, Exit codes: 2).
+    epa_demo = ["demo", "--no-live", "--sessions", os.path.join(w, "option-sessions")]
+    for argv, words in (
+            (["target", "--epa", bad_csv, "--epa-line", "5", "--epa-id", epa_id, "--estimate-mass-in-running-order"],
+             ["--epa-line: and --epa-id both pick the CSV row (--epa-line 5, --epa-id " + epa_id + ")"]),
+            (["target", "--from", target, "--epa-line", "5"],
+             ["--epa-line: picks a row of the CSV that --epa names, and no --epa is given"]),
+            (["target", "--from", target, "--epa-id", epa_id], ["--epa-id: picks a row of the CSV"]),
+            (["target", "--epa", bad_csv, "--estimate-mass-in-running-order"],
+             ["--epa: needs the row to take: give --epa-line N or --epa-id ID"]),
+            (target_base + ["--test-mass-kg", "1500", "--estimate-mass-in-running-order"],
+             ["--estimate-mass-in-running-order: accepts an estimate when no mass is given, and "
+              "--mass-in-running-order-kg is given"]),
+            # With --from both come from the file: every one given is named as ignored, not "drop one of them".
+            (["target", "--from", target, "--mass-in-running-order-kg", "1500", "--estimate-mass-in-running-order"],
+             ["--from: takes the vehicle's facts from the target file, so --mass-in-running-order-kg, "
+              "--estimate-mass-in-running-order would be ignored"]),
+            (epa_demo + ["--vehicles", "3"],
+             ["--vehicles: draws the vehicles from the CSV that --epa names, and no --epa is given"]),
+            (epa_demo + ["--seed", "7"], ["--seed: draws the vehicles from the CSV that --epa names"]),
+            (epa_demo + ["--in-process", "--time-scale", "50"],
+             ["--time-scale: sets loadtrim-sim's time scale, and --in-process runs no loadtrim-sim"]),
+            (epa_demo + ["--live-bind", "127.0.0.1:0"], ["--live-bind: sets where the live page listens, and --no-live"]),
+            (epa_demo + ["--epa", bad_csv, "--target", target], ["--target: is not used with --epa"]),
+            (epa_demo + ["--epa", bad_csv, "--truth", os.path.join(src, "samples/truths/demo-hatchback.toml")],
+             ["--truth: is not used with --epa"]),
+            (epa_demo + ["--epa", bad_csv, "--time-scale", "50"], ["--time-scale: is not used with --epa"])):
+        rc, out = run(argv, w, timeout=30)
+        check(" ".join([argv[0]] + [a for a in argv[1:] if a.startswith("--") and a not in ("--no-live", "--sessions")]),
+              rc, out, 2, words + ["refused: nothing was started"],
+              ["target (exact)", "vehicles accepted", "simulated controller started", "session folder"],
+              "the brief's rule: never a silent default; README, Exit codes: 2")
 
     print("\n%d row(s) failed" % len(FAILED) if FAILED else "\nevery row passed")
     return 1 if FAILED else 0

@@ -1,6 +1,13 @@
 // Input files: the shipped ones load; bad ones are refused with file, key, line and allowed range.
 #include <gtest/gtest.h>
 
+#include <fstream>
+#include <functional>
+#include <iterator>
+#include <string>
+#include <utility>
+
+#include "config/epa_csv.hpp"
 #include "config/input_error.hpp"
 #include "config/loaders.hpp"
 #include "config/target_writer.hpp"
@@ -273,9 +280,10 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
       << no_anticipation;
   EXPECT_NE(no_anticipation.find("the rule does nothing"), std::string::npos) << no_anticipation;
   const std::string fixed_run = next_pass_warnings("fixed-run", "true");
-  EXPECT_NE(fixed_run.find("np.toml: warning: warm_up.predict_next_pass (line 12): is true, but the method is "
-                           "fixed-run"),
-            std::string::npos)
+  EXPECT_NE(
+      fixed_run.find("np.toml: warning: warm_up.predict_next_pass (line 12): is true, but the method is "
+                     "fixed-run"),
+      std::string::npos)
       << fixed_run;
   EXPECT_EQ(next_pass_warnings("iterative", "true"), "");
   // A fixed-run profile with drift_rule "require" and no verification run loads, with one warning on the key
@@ -306,8 +314,9 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
         "mixed.toml");
   });
   EXPECT_NE(mixed.find("give speeds in km/h or in mph, not both"), std::string::npos) << mixed;
-  // The crossing window in mph is refused below 0.63 mph under its own key and line: 0.62 mph is 0.998 km/h,
-  // below the 1 km/h the km/h key allows (1 mph = 1.609344 km/h exactly, NIST SP 811).
+  // The crossing window in mph is refused below 0.621372 mph under its own key and line: 0.62 mph is 0.998
+  // km/h, below the 1 km/h the km/h key allows (1 mph = 1.609344 km/h exactly, NIST SP 811;
+  // config::us_bound).
   const std::string narrow = refusal([] {
     config::parse_profile(
         "name = \"p\"\n[bands]\nreference_speeds_mph = [15, 20, 25]\nhalf_width_mph = 2.5\n"
@@ -315,7 +324,170 @@ TEST(Config, TheCrossingWindowTheLossBasisAndTheAimLoadAndAreRefusedOutOfRange) 
         "10.0\n[method]\nkind = \"iterative\"\n",
         "narrow.toml");
   });
-  EXPECT_NE(narrow.find("bands.crossing_fit_half_width_mph (line 5): is 0.62, allowed 0.63 to 6.2 mph"),
-            std::string::npos)
+  EXPECT_NE(
+      narrow.find("bands.crossing_fit_half_width_mph (line 5): is 0.62, allowed 0.621372 to 6.21371 mph"),
+      std::string::npos)
       << narrow;
+}
+
+// A key in US units is checked against the range the tool enforces in metric units, converted with the exact
+// NIST SP 811 factors (core/units.hpp) and rounded inward to 6 significant digits (config::us_bound), and a
+// refusal names the key typed with that range in its unit: never the metric key, never km/h or N.
+TEST(Config, UsUnitKeysAreCheckedAndNamedInTheirOwnUnits) {
+  namespace u = core::units;
+  // The coefficient ranges of [target_us] / [initial_set_us] and --us are those of [target] converted.
+  const double factor[3] = {1.0 / u::kNewtonPerLbf, u::kKmhPerMph / u::kNewtonPerLbf,
+                            u::kKmhPerMph * u::kKmhPerMph / u::kNewtonPerLbf};
+  for (int i = 0; i < 3; ++i) {
+    const double lo = config::kMetricCoefficients[i].lo * factor[i],
+                 hi = config::kMetricCoefficients[i].hi * factor[i];
+    EXPECT_DOUBLE_EQ(config::kUsCoefficients[i].lo, config::us_bound(lo, true)) << i;
+    EXPECT_DOUBLE_EQ(config::kUsCoefficients[i].hi, config::us_bound(hi, false)) << i;
+    EXPECT_GE(config::kUsCoefficients[i].lo, lo) << i;
+    EXPECT_LE(config::kUsCoefficients[i].hi, hi) << i;
+    EXPECT_LT(config::kUsCoefficients[i].hi, hi * 1.00001) << i;  // 6 significant digits: within 0.001 %
+  }
+  EXPECT_DOUBLE_EQ(config::us_bound(u::kmh_to_mph(1.0), true), 0.621372);
+  EXPECT_DOUBLE_EQ(config::us_bound(u::kmh_to_mph(10.0), false), 6.21371);
+
+  // A US profile: each band key refused in mph, with the metric check's range in mph.
+  std::ifstream in(kSrc + "/config/profiles/us-iterative.toml");
+  const std::string us_profile((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+  // (The run-up margin, in km/h, must exceed the half width plus the crossing window: 30 km/h for the edges.)
+  auto profile_with = [&](const std::string& from, const std::string& to, bool wide_margin = false) {
+    std::string t = us_profile;
+    if (wide_margin) t.replace(t.find("run_up_margin_kmh = 12.0"), 24, "run_up_margin_kmh = 30.0");
+    const auto at = t.find(from);
+    EXPECT_NE(at, std::string::npos) << from;
+    if (at != std::string::npos) t.replace(at, from.size(), to);
+    return refusal([&] { config::parse_profile(t, "us.toml"); });
+  };
+  struct Row {
+    std::string from, to, said;
+  };
+  const Row profile_rows[] = {
+      {"half_width_mph = 2.5", "half_width_mph = 0.55", "bands.half_width_mph (line "},
+      {"half_width_mph = 2.5", "half_width_mph = 0.55", "is 0.55, allowed 0.621372 to 6.21371 mph"},
+      {"half_width_mph = 2.5", "half_width_mph = 6.5", "is 6.5, allowed 0.621372 to 6.21371 mph"},
+      {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 6.5",
+       "bands.crossing_fit_half_width_mph (line "},
+      {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 6.5",
+       "allowed 0.621372 to 6.21371 mph"},
+      // The lowest reference speed: the half width + 4 km/h (2.5 + 2.48548 mph), the highest 250 km/h.
+      {"[15, 20,", "[4.9, 20,", "bands.reference_speeds_mph[0] (line "},
+      {"[15, 20,", "[4.9, 20,", "is 4.9, allowed 4.98549 to 155.342 mph"},
+      {"65, 70]", "65, 156]", "bands.reference_speeds_mph[11] (line "},
+      {"65, 70]", "65, 156]", "is 156, allowed 4.98549 to 155.342 mph"},
+  };
+  for (const auto& r : profile_rows) {
+    const std::string msg = profile_with(r.from, r.to);
+    EXPECT_NE(msg.find(r.said), std::string::npos) << r.to << "\nexpected: " << r.said << "\ngot: " << msg;
+    EXPECT_EQ(msg.find("_kmh"), std::string::npos) << msg;
+    EXPECT_EQ(msg.find("km/h"), std::string::npos) << msg;
+  }
+  // The edges of the printed ranges pass (the metric check behind them too).
+  for (const auto& [from, to] :
+       {std::pair<std::string, std::string>{"half_width_mph = 2.5", "half_width_mph = 6.21371"},
+        {"half_width_mph = 2.5", "half_width_mph = 0.621372"},
+        {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 6.21371"},
+        {"65, 70]", "65, 155.342]"},
+        {"[15, 20,", "[4.98549, 20,"},
+        // The exact metric edges converted and rounded to the nearest 5 significant digits: 10 km/h is
+        // 6.2137119 mph, 1 km/h 0.6213712 mph, 250 km/h 155.34280 mph, the half width + 4 km/h 4.9854848 mph.
+        // The metric check accepts them, and so does the mph one (4 digits, 6.213 and 0.6214, would not).
+        {"half_width_mph = 2.5", "half_width_mph = 6.2137"},
+        {"crossing_fit_half_width_mph = 2.5", "crossing_fit_half_width_mph = 0.62138"},
+        {"65, 70]", "65, 155.34]"},
+        {"[15, 20,", "[4.9855, 20,"}})
+    EXPECT_EQ(profile_with(from, to, true), "") << to;
+
+  // A [target_us] table: its keys and its units.
+  auto us_target = [](const std::string& a, const std::string& b, const std::string& c,
+                      core::Problems* w = nullptr) {
+    std::string text = kGoodTarget;
+    text.replace(text.find("[target]"), std::string::npos,
+                 "[target_us]\na_lbf = " + a + "\nb_lbf_per_mph = " + b + "\nc_lbf_per_mph2 = " + c + "\n");
+    return refusal([&] { config::parse_target(text, "us.toml", w); });
+  };
+  const Row target_rows[] = {
+      {"a", "1150", "target_us.a_lbf (line 9): is 1150, allowed -1124.04 to 1124.04 lbf"},
+      {"a", "-5", "target_us.a_lbf (line 9): is -5, must not be negative (allowed 0 to 1124.04 lbf)"},
+      {"b", "19", "target_us.b_lbf_per_mph (line 10): is 19, allowed -18.0897 to 18.0897 lbf/mph"},
+      {"c", "0.6", "target_us.c_lbf_per_mph2 (line 11): is 0.6, allowed -0.582252 to 0.582252 lbf/mph²"},
+      {"c", "-0.02",
+       "target_us.c_lbf_per_mph2 (line 11): is -0.02, must be positive (allowed 0 to 0.11645 lbf/mph²)"},
+      {"c", "0.2", "target_us.c_lbf_per_mph2 (line 11): is 0.2, allowed 0 to 0.11645 lbf/mph²"},
+      // Above the exact bound, the metric 0.2 N/(km/h)² converted (0.1164505): refused in lbf/mph².
+      {"c", "0.116451", "target_us.c_lbf_per_mph2 (line 11): is 0.116451, allowed 0 to 0.11645 lbf/mph²"},
+      // Above the printed bound and below the exact one (7 digits): refused as printed.
+      {"c", "0.1164502", "target_us.c_lbf_per_mph2 (line 11): is 0.11645, allowed 0 to 0.11645 lbf/mph²"},
+  };
+  for (const auto& r : target_rows) {
+    const std::string msg =
+        us_target(r.from == "a" ? r.to : "30", r.from == "b" ? r.to : "0.3", r.from == "c" ? r.to : "0.02");
+    EXPECT_NE(msg.find(r.said), std::string::npos) << "expected: " << r.said << "\ngot: " << msg;
+    EXPECT_EQ(msg.find("target."), std::string::npos) << msg;
+    EXPECT_EQ(msg.find("N/(km/h)"), std::string::npos) << msg;
+  }
+  EXPECT_EQ(us_target("1124.04", "18.0897", "0.11645"), "");  // the printed edges pass
+  // Values inside the exact edges typed with fewer digits (5000 N is 1124.0447 lbf, 50 N/(km/h) 18.089746
+  // lbf/mph, 0.2 N/(km/h)² 0.1164505 lbf/mph²): accepted, as the metric check accepts them (4 significant
+  // digits would print and check ±18.08 and 0.1164, and refuse 18.089 and 0.11645).
+  EXPECT_EQ(us_target("1124.0", "18.089", "0.11645"), "");
+  EXPECT_EQ(us_target("1124.0", "-18.089", "0.11645"), "");
+  EXPECT_NE(us_target("1124.05", "0.3", "0.02"), "");  // above the exact edge: the metric check refuses too
+  // Warnings too: B outside the usual ±10 N/(km/h), C below the usual 0.005 N/(km/h)², in US units.
+  core::Problems w;
+  EXPECT_EQ(us_target("30", "5", "0.002", &w), "");
+  const std::string warned = config::format_problems("us.toml", w);
+  EXPECT_NE(warned.find("target_us.b_lbf_per_mph (line 10): is 5, outside the usual ±3.61794 lbf/mph"),
+            std::string::npos)
+      << warned;
+  EXPECT_NE(warned.find(
+                "target_us.c_lbf_per_mph2 (line 11): is 0.002, below the usual 0.00291127–0.11645 lbf/mph²"),
+            std::string::npos)
+      << warned;
+  EXPECT_EQ(warned.find("N/(km/h)"), std::string::npos) << warned;
+}
+
+// An EPA row whose equivalent test weight leaves no mass in running order (the weight less 100 kg, and at
+// least the 25 kg a target file takes) is not used: listed with its line, the column and the range, not read
+// as a vehicle with a negative mass.
+TEST(Config, EpaRowsTooLightForAMassInRunningOrderAreLeftOut) {
+  const std::string csv = ::testing::TempDir() + "/loadtrim-epa-etw.csv";
+  {
+    std::ofstream out(csv);
+    out << "model_year,test_vehicle_id,test_veh_config_num,drive_system_code,etw_kg,target_f0_N,"
+           "target_f1_N_per_kmh,target_f2_N_per_kmh2,set_f0_N,set_f1_N_per_kmh,set_f2_N_per_kmh2\n"
+        << "2016,A1,0,F,80,150,0.5,0.03,20,0.1,0.03\n"     // line 2: below 100 kg
+        << "2016,A2,0,F,124.9,150,0.5,0.03,20,0.1,0.03\n"  // line 3: 24.9 kg in running order
+        << "2016,A3,0,F,125,150,0.5,0.03,20,0.1,0.03\n"    // line 4: the lightest taken
+        << "2016,A4,0,F,20001,150,0.5,0.03,20,0.1,0.03\n"  // line 5: above the heaviest test mass
+        << "2016,A5,0,F,1500,150,0.5,0.03,20,0.1,0.03\n";  // line 6
+  }
+  const config::EpaFile f = config::read_epa_csv(csv);
+  std::vector<int> read;
+  for (const auto& r : f.rows) read.push_back(r.line);
+  EXPECT_EQ(read, (std::vector<int>{4, 6}));
+  ASSERT_EQ(f.skipped.size(), 3u);
+  EXPECT_EQ(f.skipped[0].line, 2);
+  EXPECT_EQ(f.skipped[0].column, "etw_kg");
+  EXPECT_EQ(f.skipped[0].id, "2016/A1/0");
+  EXPECT_NE(
+      f.skipped[0].message.find("is 80, allowed 125 to 20000 kg (the test mass; the mass in running order "
+                                "is estimated as the weight less 100 kg and must be at least 25 kg)"),
+      std::string::npos)
+      << f.skipped[0].message;
+  EXPECT_EQ(f.skipped[1].line, 3);
+  EXPECT_EQ(f.skipped[2].line, 5);
+  // The lightest row taken gives a target that reads back: 25 kg in running order, no error.
+  const core::VehicleTarget t = config::target_from_epa(f.rows[0], "wltp-iterative");
+  EXPECT_DOUBLE_EQ(*t.mass_in_running_order_kg, 25.0);
+  EXPECT_NO_THROW(config::parse_target(config::target_toml(t, "lightest"), "lightest.toml"));
+  std::remove(csv.c_str());
+  // The shipped extract: every one of its 3,485 rows is read.
+  const config::EpaFile shipped =
+      config::read_epa_csv(kSrc + "/samples/data/epa_test_car_roadload_MY2016_2019.csv");
+  EXPECT_EQ(shipped.rows.size(), 3485u);
+  EXPECT_TRUE(shipped.skipped.empty());
 }
