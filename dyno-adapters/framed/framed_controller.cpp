@@ -49,7 +49,6 @@ Result FramedController::do_connect(controller::Deadline d) {
   do_disconnect();
   splitter_.reset();
   frames_.clear();
-  have_last_time_ = false;
   return transport_->open(d);
 }
 
@@ -299,19 +298,9 @@ Result FramedController::do_receive_samples(std::vector<controller::Sample>& out
   s.mode = to_mode(v.get(Qty::mode));
   s.flags = static_cast<std::uint32_t>(v.get(Qty::flags));
   s.time_s = v.get(Qty::time_s);
-  // Every sample is a moment of its own: a reply with the time of the last one (a device answering each
-  // request twice and so one poll behind, a time field coarser than the poll period) is no new sample.
-  // Dropped and counted with the duplicates, and named once per read of the warnings.
-  if (have_last_time_ && s.time_s == last_time_s_) {
-    ++stats_.samples_duplicate;
-    warn("sample_time_repeated",
-         "a poll read the same controller time as the one before: not a new sample, dropped");
-    return Result::success();
-  }
-  if (std::isfinite(s.time_s)) {
-    have_last_time_ = true;
-    last_time_s_ = s.time_s;
-  }
+  // A reply with the time of the last one (a device answering each request twice and so one poll behind, a
+  // time field coarser than the poll period) is handed up as it is: the controller layer drops it as no new
+  // sample after its clock guard has seen it (a frozen clock must read as one, not as a gap).
   s.index = index_++;
   out.push_back(s);
   return Result::success();

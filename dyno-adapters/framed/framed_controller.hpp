@@ -86,8 +86,6 @@ class FramedController : public controller::Controller {
   bool dirty_ = false;                            // a request timed out: its reply may still be on its way
   adapters::PollPacer pacer_;
   std::uint64_t index_ = 0;
-  bool have_last_time_ = false;
-  double last_time_s_ = 0.0;  // the controller time of the last sample handed up (this connection)
   std::vector<std::pair<double, double>> resolutions_;  // (value written, half a count of its field)
   std::uint64_t warned_bits_ = 0;                       // unmapped status-word bits already warned about
 };

@@ -131,11 +131,15 @@ Result ModbusController::do_connect(controller::Deadline) {
                           s.stop_bits == adapters::SerialLine::StopBits::two ? 2 : 1);
   }
   if (!ctx_) return Result::fail("cannot create the Modbus context");
-  // A new link: the counter is read afresh, at the rate the controller stated before (1 until it states one);
-  // without a time register the host clock counts from here.
+  // A new link: the counter is read afresh, at the rate the controller stated before (1 until it states one).
   counter_.reset(counter_period_s(settings_.map[Q::time]), stated_rate_);
-  t0_ = Clock::now();
-  have_last_time_ = false;
+  // Without a time register the host clock stands in, from the first connection on: a reconnection does not
+  // restart it (the controller layer would take that for a controller whose clock started again).
+  if (!have_t0_) {
+    t0_ = Clock::now();
+    have_t0_ = true;
+  }
+  undefined_mode_run_ = 0;
   modbus_set_slave(ctx_, settings_.map.unit_id);
   const auto reply = timeouts().reply;
   modbus_set_response_timeout(ctx_, static_cast<std::uint32_t>(reply.count() / 1000),
@@ -508,24 +512,17 @@ Result ModbusController::do_receive_samples(std::vector<controller::Sample>& out
     if (const std::string fault = adapters::fault_name(s.flags); !fault.empty())
       return Result::fail(bad + ", with the status register reporting " + fault);
     ++stats_.samples_malformed;
+    // A run of them is a controller that sends no sample we can read, not a link that went quiet (the
+    // controller layer's own bound for malformed samples: more than 20 in a row).
+    if (++undefined_mode_run_ > 20) return Result::fail("the controller sends samples in no mode: " + bad);
     stats_.last_malformed = bad + " (time " + core::num(s.time_s) + " s, speed " + core::num(s.speed_kmh) +
                             " km/h, force " + core::num(s.force_n) + " N)";
     warn("sample_malformed", "a sample's mode register held no mode code: the sample was dropped");
     return Result::success();
   }
-  // Every sample is a moment of its own: a poll that reads the time of the last one again (a count coarser
-  // than the poll period, a controller answering from a stale copy) is no new sample. Dropped and counted.
-  if (have_last_time_ && s.time_s == last_time_s_) {
-    ++stats_.samples_duplicate;
-    warn("sample_time_repeated",
-         "a poll read the same controller time as the one before: not a new sample, dropped");
-    return Result::success();
-  }
-  // Only a sample the controller layer will take sets the time a repeat is judged by.
-  if (std::isfinite(s.time_s) && std::isfinite(s.speed_kmh) && std::isfinite(s.force_n)) {
-    have_last_time_ = true;
-    last_time_s_ = s.time_s;
-  }
+  undefined_mode_run_ = 0;
+  // A poll that reads the time of the last one again is handed up as it is: the controller layer drops it
+  // as no new sample after its clock guard has seen it (a frozen clock must read as one, not as a gap).
   s.index = index_++;
   out.push_back(s);
   return Result::success();

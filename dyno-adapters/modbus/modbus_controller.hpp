@@ -99,10 +99,11 @@ class ModbusController : public controller::Controller {
   adapters::PollPacer pacer_;  // the live quantities' polls (poller.hpp)
   std::uint64_t index_ = 0;
   std::optional<Block> block_;  // the one read of a sample's registers (sample_block), when the map allows it
-  bool have_last_time_ = false;
-  double last_time_s_ = 0.0;  // the controller time of the last sample handed up (this connection)
-  std::uint64_t beat_ = 0;    // the heartbeat counter's raw count, wrapped at the register's width
-  std::chrono::steady_clock::time_point t0_{};  // without a time register: the host clock's origin (connect)
+  int undefined_mode_run_ = 0;  // samples in a row whose mode register held no mode code
+  std::uint64_t beat_ = 0;      // the heartbeat counter's raw count, wrapped at the register's width
+  std::chrono::steady_clock::time_point
+      t0_{};  // without a time register: the host clock's origin (first connect)
+  bool have_t0_ = false;
   double worst_jitter_s_ = 0.0;
   TimeCounter counter_;       // the time register unwrapped (register_map.hpp)
   double stated_rate_ = 1.0;  // the clock rate the controller stated at its last identify

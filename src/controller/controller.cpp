@@ -398,6 +398,22 @@ void Controller::ingest(std::vector<Sample>& raw, std::vector<Sample>& accepted)
         pending_fault_ = Result::fail(*v);
     if (have_index_ && s.index != next_index_) stats_.samples_lost += s.index - next_index_;
     next_index_ = s.index + 1;
+    // Every sample is a moment of its own: one with the time of the last one (a polled device one poll
+    // behind, a time register coarser than the poll period, a frozen clock) is no new sample, and the trace
+    // analysis needs time to ascend. Dropped and counted here, after the clock guard has seen it, so that a
+    // clock that stopped still reads as "the controller's clock stopped", never as a quiet link.
+    // While stopping the guard is off and the time not needed to ascend: a frozen clock's samples go on to
+    // the stop's own rules (its progress, its standstill held on the tool's clock).
+    // A repeat that shows a fault or a limit is handed up all the same: a fault is never hidden behind a
+    // clock.
+    if (!stopping_ && have_index_ && s.time_s == last_sample_.time_s &&
+        (s.flags & (kFlagFault | kFlagEstop | kFlagWatchdog | kFlagLimit)) == 0) {
+      last_sample_wall_ = Clock::now();  // a sample came: the link is alive (the sample gap is for silence)
+      ++stats_.samples_duplicate;
+      warn("sample_time_repeated",
+           "a sample carried the controller time of the one before: not a new sample, dropped");
+      continue;
+    }
     have_index_ = true;
     last_sample_ = s;
     last_sample_wall_ = Clock::now();
@@ -437,9 +453,12 @@ Result Controller::receive_samples(std::vector<Sample>& out) {
       const Deadline slice = std::min(gap, Clock::now() + timeouts_.heartbeat_interval);
       raw.clear();
       if (Result r = do_receive_samples(raw, slice); !r.ok()) return r;
+      const std::uint64_t repeats = stats_.samples_duplicate;
       ingest(raw, out);
       if (pending_fault_ && !stopping_) return *pending_fault_;
-      if (out.size() > before) break;
+      // Samples came, though none new (each with the time of the one before): no silence; the caller's
+      // own deadlines and the clock guard judge a clock that does not move.
+      if (out.size() > before || stats_.samples_duplicate != repeats) break;
       if (Clock::now() >= gap) {
         std::string why = "no sample for " + std::to_string(timeouts_.sample_gap.count()) +
                           " ms (stalled stream or lost link";

@@ -145,7 +145,7 @@ struct LinkStats {
   std::uint64_t heartbeats = 0;
   std::string last_rejected;            // what the last rejection was
   std::uint64_t samples_malformed = 0;  // dropped: non-finite or impossible values, counter running backwards
-  std::uint64_t samples_duplicate = 0;  // dropped: exact repeats of a sample already received
+  std::uint64_t samples_duplicate = 0;  // dropped: exact repeats, or the time of the sample before
   std::string last_malformed;
   std::uint64_t events = 0;          // EVT lines (or their equivalent) received
   std::uint64_t events_dropped = 0;  // beyond the bounded queue

@@ -100,6 +100,7 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
   bool out_of_mode = false;
   Clock::time_point out_of_mode_since{};
   double out_of_mode_since_c = 0.0;
+  double in_mode_since_c = std::numeric_limits<double>::quiet_NaN();
   const Clock::duration mode_window = mode_entry_window();
   // Only samples read after the last command acknowledged before this wait judge the mode: a step may take
   // samples from an earlier epoch (read before its command's acknowledgement, the old mode's among them).
@@ -173,24 +174,36 @@ Result Motion::collect(const Step& step, const std::function<bool(const Sample&)
       const bool in_mode =
           step.modes.empty() || std::find(step.modes.begin(), step.modes.end(), s.mode) != step.modes.end();
       if (in_mode) {
-        out_of_mode = false;
+        // Back in the step's modes for a quarter of mode_entry_s of the controller's time: one in-mode
+        // reading slipped in now and then does not make a controller that stays out look as if it followed.
+        if (std::isnan(in_mode_since_c)) in_mode_since_c = s.time_s;
+        if (s.time_s - in_mode_since_c >= 0.25 * rules_.mode_entry_s) out_of_mode = false;
         if (keep) keep->push_back(s);
         if (done(s)) return Result::success();
-      } else if (!out_of_mode && s.epoch >= mode_epoch) {
-        out_of_mode = true;
-        out_of_mode_since = Clock::now();
-        out_of_mode_since_c = s.time_s;
+      } else {
+        in_mode_since_c = std::numeric_limits<double>::quiet_NaN();
+        if (!out_of_mode && s.epoch >= mode_epoch) {
+          out_of_mode = true;
+          out_of_mode_since = Clock::now();
+          out_of_mode_since_c = s.time_s;
+        }
+        // Samples read after the acknowledgement were made after the command: out of the step's modes for
+        // mode_entry_s of the controller's time is a controller that did not follow it.
+        if (out_of_mode && s.time_s - out_of_mode_since_c > rules_.mode_entry_s) return wrong_mode();
       }
-      // Samples read after the acknowledgement were made after the command: out of the step's modes for
-      // mode_entry_s of the controller's time is a controller that did not follow it.
-      if (out_of_mode && s.time_s - out_of_mode_since_c > rules_.mode_entry_s) return wrong_mode();
       if (s.time_s - t_first > step.budget_s)
         return Result::fail(step.what + " did not complete within " + num(step.budget_s) +
                                 " s of controller time (last sample: " + describe(last) + ")",
                             kTooSlow);
     }
-    // ... or of the tool's clock at the stated rate (a frozen clock), judged at the end of a batch.
-    if (out_of_mode && Clock::now() - out_of_mode_since > mode_window) return wrong_mode();
+    // ... or of the tool's clock at the stated rate (a frozen clock), judged at the end of a batch. Only a
+    // batch with samples: a stream gone quiet is the sample gap's (a lost link, tried again), not these
+    // rules'.
+    if (!got.empty()) {
+      if (out_of_mode && Clock::now() - out_of_mode_since > mode_window) return wrong_mode();
+      if (step.after_batch)
+        if (Result r = step.after_batch(); !r.ok()) return r;
+    }
   }
 }
 
@@ -329,29 +342,36 @@ Result Motion::vehicle_run(const VehicleRunPlan& plan, VehicleRunOutcome& out,
 }
 
 namespace {
-// Whether a stop makes progress (Rules::stop_progress_*): the rollers, while not at rest, come step_kmh
-// slower than the slowest speed since the last such step within the window of the tool's own clock; standing
-// still in a mode that holds something (no slower to come), they must be at rest within the window.
+// Whether a stop makes progress (Rules::stop_progress_*): the rollers, not yet standing still, come step_kmh
+// slower than at the last such step within the window of the tool's own clock; standing still (no slower to
+// come), the stop must be confirmed within the window.
 class StopProgress {
  public:
   StopProgress(double step_kmh, Clock::duration window) : step_kmh_(step_kmh), window_(window) {}
-  // Empty while the stop makes progress; else the failure's message.
-  std::string on(double speed_kmh, controller::Mode mode, bool at_rest, bool standing,
-                 Clock::time_point now) {
-    if (!started_ || at_rest || (!standing && speed_kmh <= mark_kmh_ - step_kmh_)) {
+  // Takes a reading: progress when the rollers, not yet standing still, are step_kmh slower than at the last
+  // progress. A reading at rest is no progress of its own (a controller slipping one "at rest" reading in
+  // now and then must not keep the window open): the standstill hold ends an honest stop within it.
+  void observe(double speed_kmh, controller::Mode mode, bool standing, Clock::time_point now) {
+    last_kmh_ = speed_kmh;
+    last_mode_ = mode;
+    last_standing_ = standing;
+    if (!started_ || (!standing && speed_kmh <= mark_kmh_ - step_kmh_)) {
       started_ = true;
       mark_kmh_ = speed_kmh;
       mark_wall_ = now;
-      return {};
     }
-    if (now - mark_wall_ <= window_) return {};
-    if (standing)
-      return std::string("commanded to stop, the controller still reports ") + controller::to_string(mode) +
-             " at " + num(speed_kmh, 1) + " km/h after " + num(seconds(window_), 1) +
-             " s of the tool's clock";
+  }
+  // Judged after a batch of readings (a batch read late, after a stall of the tool, brings its own progress
+  // first): empty while the stop makes progress; else the failure's message.
+  std::string judge(Clock::time_point now) const {
+    if (!started_ || now - mark_wall_ <= window_) return {};
+    if (last_standing_)
+      return std::string("commanded to stop, the controller still reports ") +
+             controller::to_string(last_mode_) + " at " + num(last_kmh_, 1) + " km/h after " +
+             num(seconds(window_), 1) + " s of the tool's clock";
     return "commanded to stop, the rollers did not slow by " + num(step_kmh_, 1) + " km/h from " +
            num(mark_kmh_, 1) + " km/h within " + num(seconds(window_), 1) + " s of the tool's clock (now " +
-           num(speed_kmh, 1) + " km/h, " + controller::to_string(mode) + ")";
+           num(last_kmh_, 1) + " km/h, " + controller::to_string(last_mode_) + ")";
   }
 
  private:
@@ -360,6 +380,9 @@ class StopProgress {
   bool started_ = false;
   double mark_kmh_ = 0.0;
   Clock::time_point mark_wall_{};
+  double last_kmh_ = 0.0;
+  controller::Mode last_mode_ = controller::Mode::idle;
+  bool last_standing_ = false;
 };
 
 // While stopping, the controller's earlier faults and clock no longer end a call (Controller::set_stopping).
@@ -390,11 +413,12 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
   double still_since = std::numeric_limits<double>::quiet_NaN();
   Clock::time_point still_wall{};
   StopProgress progress(rules_.stop_progress_kmh, stop_progress_window());
-  std::string not_slowing;
+  st.after_batch = [&] {
+    const std::string why = progress.judge(Clock::now());
+    return why.empty() ? Result::success() : Result::fail(why, kNotSlowing);
+  };
   Result r = collect(st, [&](const Sample& s) {
-    not_slowing =
-        progress.on(s.speed_kmh, s.mode, at_rest(s.speed_kmh, s.mode), standstill(s.speed_kmh), Clock::now());
-    if (!not_slowing.empty()) return true;  // ends the wait: a failure below
+    progress.observe(s.speed_kmh, s.mode, standstill(s.speed_kmh), Clock::now());
     if (!at_rest(s.speed_kmh, s.mode)) {
       still_since = std::numeric_limits<double>::quiet_NaN();
       return false;
@@ -409,7 +433,6 @@ Result Motion::stop_and_wait(double budget_s, bool& stopped) {
              wall_s * c_.time_scale() >= 0.5 * rules_.standstill_hold_s)) ||
            wall_s >= rules_.standstill_hold_s;
   });
-  if (r.ok() && !not_slowing.empty()) r = Result::fail(not_slowing, kNotSlowing);
   stopped = r.ok();
   return r;
 }
@@ -431,8 +454,8 @@ Result Motion::settle_by_status(double budget_s, controller::StatusReport& st, b
     if (read) *read = true;
     if (t_first < 0.0) t_first = st.time_s;
     if (at_rest(st.speed_kmh, st.mode)) return Result::success();
-    if (std::string why = progress.on(st.speed_kmh, st.mode, false, standstill(st.speed_kmh), Clock::now());
-        !why.empty())
+    progress.observe(st.speed_kmh, st.mode, standstill(st.speed_kmh), Clock::now());
+    if (std::string why = progress.judge(Clock::now()); !why.empty())
       return Result::fail(why + " (by status)", kNotSlowing);
     // Not at rest and not stopping: commanded to stop, whatever the mode says (idle at speed is a free coast
     // nobody brakes: docs/safety.md).

@@ -75,19 +75,21 @@ struct Rules {
   // How often a step hands the controller's warnings on (Motion::on_warning): a flaky link raising one
   // per poll becomes one record a second with its count, not one per poll (common practice, no source).
   std::chrono::milliseconds warning_every{1000};
-  // A stop must show progress: once commanded to stop, rollers not at rest must come stop_progress_kmh
-  // slower than the slowest speed since the last such step within stop_progress_s of controller time, as
-  // the tool's own clock measures it (divided by the controller's stated time scale, never less than
-  // stop_progress_min_wall): a controller that acknowledges the stop and holds the speed, with a clock that
-  // is frozen or slow, must not keep the tool waiting (and feeding its watchdog) for the whole stop budget.
-  // 1 km/h in 10 s is 0.028 m/s², far below any controlled stop (common practice, no source).
-  // A step with modes must see them: once the step's command was acknowledged, samples that stay in another
-  // mode for mode_entry_s of controller time as the tool's clock measures it (divided by the stated time
-  // scale, never less than stop_progress_min_wall) end the step (kWrongMode): a controller that acknowledged
+  // A step with modes must see them: samples read after the last command acknowledged before the wait that
+  // stay in another mode (a quarter of mode_entry_s back in it resets that) for mode_entry_s of the
+  // controller's time, or of the tool's clock at the stated time scale (never less than
+  // stop_progress_min_wall; judged after a batch), end the step (kWrongMode): a controller that acknowledged
   // road-load simulation and stayed in speed hold was taken for a coast-down with too little retarding force,
   // its setting changed on that, while the vehicle was motored at the start speed. 40 CFR 1066.245 asks a
   // dyno to settle within 100 ms; 2 s is twenty times that (common practice, no source).
   double mode_entry_s = 2.0;
+  // A stop must show progress: once commanded to stop, rollers not yet standing still must come
+  // stop_progress_kmh slower than at the last such step (a reading at rest is no step of its own) within
+  // stop_progress_s of controller time, judged after each batch of samples, as
+  // the tool's own clock measures it (divided by the controller's stated time scale, never less than
+  // stop_progress_min_wall): a controller that acknowledges the stop and holds the speed, with a clock that
+  // is frozen or slow, must not keep the tool waiting (and feeding its watchdog) for the whole stop budget.
+  // 1 km/h in 10 s is 0.028 m/s², far below any controlled stop (common practice, no source).
   double stop_progress_kmh = 1.0;
   double stop_progress_s = 10.0;
   std::chrono::milliseconds stop_progress_min_wall{2000};
@@ -100,6 +102,8 @@ struct Step {
   std::uint64_t since_epoch = 0;          // samples read before this epoch belong to the phase before
   bool stoppable = true;                  // the operator's stop flag ends it (false for stopping itself)
   bool pausable = true;  // and the pause flag (false where nothing moves and no pause is taken)
+  // Judged after each batch of samples (when given): a failure ends the step with it.
+  std::function<Result()> after_batch;
 };
 
 // A run-up under the vehicle's own power, then its coast (Motion::vehicle_run): the dyno simulates the road

@@ -728,8 +728,9 @@ Result Session::coast_to_next_hold(double from_kmh, double to_kmh) {
       step("loss-map coast", std::max(30.0, 3.0 * predicted), {Mode::road_load}),
       [&](const controller::Sample& s) { return s.speed_kmh < to_kmh; }, &trace);
   if (r.code == kTooSlowCode) {
-    // Not below to_kmh within the budget (too little retarding force, a stuck speed reading, or a controller
-    // that never entered road load): leave road-load simulation at once; the hold that follows takes over.
+    // Not below to_kmh within the budget (too little retarding force, a stuck speed reading): leave road-load
+    // simulation at once; the hold that follows takes over. A controller that never entered road load ends
+    // the step with kWrongMode instead: a controller fault, below (docs/safety.md).
     if (Result h = c_.hold_speed(to_kmh); !h.ok()) return h;
     rec.note = "not used: did not fall below " + num(to_kmh) + " km/h within the budget (" + r.message + ")";
     emit(rec);

@@ -476,6 +476,50 @@ TEST(Motion, AStepWhoseModeTheControllerNeverEntersEndsWithinTheWindow) {
   EXPECT_TRUE(m.collect(st, [](const controller::Sample& s) { return s.speed_kmh < 20.0; }).ok());
 }
 
+// Two cheap ways round the rules above (a second hostile review): a controller that slips one in-mode
+// reading in now and then, and one that slips one "at rest" reading into a stop it never makes. Neither
+// resets its rule: the step ends with kWrongMode, the stop with kNotSlowing. Windows are the test's own.
+TEST(Motion, ReadingsSlippedInNowAndThenDoNotDefeatTheModeOrStopRules) {
+  FakeController c(loadtrim::testing::demo_truth());
+  ASSERT_NO_FATAL_FAILURE(bring_up(c));
+  motion::Rules rules;
+  rules.mode_entry_s = 0.3;
+  rules.stop_progress_s = 1.0;
+  rules.stop_progress_min_wall = std::chrono::milliseconds(300);
+  motion::Motion m(c, rules);
+  ASSERT_TRUE(m.hold(50.0, 1.0, "run-up", 120.0).ok());
+  int n = 0;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (s.mode == Mode::road_load && ++n % 20 != 0) s.mode = Mode::speed_hold;  // road-load 1 in 20
+  };
+  ASSERT_TRUE(c.release_road_load().ok());
+  motion::Step st;
+  st.what = "coast-down";
+  st.budget_s = 60.0;  // without the rule: kTooSlow
+  st.modes = {Mode::road_load};
+  st.since_epoch = c.epoch();
+  auto res = m.collect(st, [](const controller::Sample&) { return false; });
+  EXPECT_EQ(res.code, motion::kWrongMode) << res.message;
+  // The stop: held at 30 km/h on a frozen clock, with one "0 km/h, idle" reading in ten.
+  double frozen_at = -1.0;
+  c.script.sample_lie = [&](controller::Sample& s) {
+    if (frozen_at < 0.0) frozen_at = s.time_s;
+    s.time_s = frozen_at;
+    if (++n % 10 == 0) {
+      s.speed_kmh = 0.0;
+      s.mode = Mode::idle;
+    }
+  };
+  c.script.never_stops = true;
+  bool stopped = true;
+  const auto t0 = std::chrono::steady_clock::now();
+  res = m.stop_and_wait(300.0, stopped);
+  const double took = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  EXPECT_FALSE(stopped);
+  EXPECT_EQ(res.code, motion::kNotSlowing) << res.message;
+  EXPECT_LT(took, 10.0);
+}
+
 // A controller that acknowledges the stop and holds the speed with a frozen clock (a hostile review): the
 // controller-time budget never runs out, so without a progress rule the tool waited out the whole wall
 // deadline (budget / (rate × 0.25) + 20 s: 1,220 s for the safe stop's 300 s), feeding the controller's
